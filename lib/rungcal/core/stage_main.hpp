@@ -1,0 +1,32 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <functional>
+#include <string>
+
+#include <CLI/CLI.hpp>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/log.hpp"
+
+namespace rungcal {
+
+// Options every stage takes.
+struct CommonOptions {
+  bool quiet = false;     // warnings and errors only
+  bool verbose = false;   // debug messages too
+  std::string log_file;   // also log everything here
+  void add_to(CLI::App& app);
+  Verbosity verbosity() const;
+};
+
+// Runs a stage's body and turns its outcome into the documented exit code: InputError ->
+// 2 (bad_input) with its message, any other exception -> 1 (internal_error). The body
+// returns its own code for the other outcomes.
+int run_stage(const std::string& stage, const std::function<ExitCode()>& body);
+
+// Parses the command line; on --help prints and returns 0, on a bad command line prints
+// the reason and returns 2. Returns -1 when the stage should go on.
+int parse_command_line(CLI::App& app, int argc, char** argv);
+
+}  // namespace rungcal

@@ -1,0 +1,624 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/ingest/ingest.hpp"
+
+#include <algorithm>
+#include <charconv>
+#include <cmath>
+#include <filesystem>
+#include <set>
+#include <unordered_map>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/units.hpp"
+
+namespace rungcal {
+namespace {
+
+// Built-in spellings of pulsation modes and classes found in published catalogs; a
+// config's [modes] / [classes] tables add to them.
+const std::map<std::string, std::string>& builtin_mode_aliases() {
+  static const std::map<std::string, std::string> kAliases = {
+      {"F", "fundamental"},        {"FU", "fundamental"},       {"FM", "fundamental"},
+      {"DCEP_F", "fundamental"},   {"RRab", "fundamental"},     {"RRAB", "fundamental"},
+      {"1O", "first_overtone"},    {"FO", "first_overtone"},    {"1OT", "first_overtone"},
+      {"DCEP_1O", "first_overtone"}, {"RRc", "first_overtone"}, {"RRC", "first_overtone"},
+      {"2O", "second_overtone"},   {"RRd", "double_mode"},      {"F/1O", "double_mode"},
+      {"1O/2O", "double_mode"},
+  };
+  return kAliases;
+}
+
+const std::map<std::string, std::string>& builtin_class_aliases() {
+  static const std::map<std::string, std::string> kAliases = {
+      {"DCEP", "classical_cepheid"}, {"CEP", "classical_cepheid"}, {"T2CEP", "type2_cepheid"},
+      {"ACEP", "anomalous_cepheid"}, {"RRLYR", "rr_lyrae"},       {"RRL", "rr_lyrae"},
+  };
+  return kAliases;
+}
+
+// A row that breaks a rule; caught per row and turned into a RejectedRow.
+struct RowReject {
+  std::string rule;
+  std::string column;
+  std::string message;
+};
+
+bool parse_double(const std::string& text, double& out) {
+  const char* b = text.data();
+  const char* e = b + text.size();
+  if (b != e && *b == '+') ++b;  // from_chars rejects a leading '+', published tables use it
+  auto [ptr, ec] = std::from_chars(b, e, out);
+  return ec == std::errc() && ptr == e;
+}
+
+ValueSource value_source_from(const ConfigSection& s, const std::string& key) {
+  ValueSource v;
+  if (s.is_string(key)) {
+    v.column = *s.get_string(key);
+    return v;
+  }
+  if (!s.is_table(key)) {
+    v.constant = *s.get_number(key);
+    return v;
+  }
+  auto t = s.section(key);
+  if (!t) s.fail(key, "must be a column name, a number, or a table { column = ..., unit = ... }");
+  v.column = t->string_or("column", "");
+  v.unit = t->string_or("unit", "");
+  if (t->has("value")) {
+    if (t->is_string("value")) v.constant = *t->get_string("value");
+    else v.constant = *t->get_number("value");
+  }
+  if (v.column.empty() == !v.constant.has_value())
+    s.fail(key, "give exactly one of 'column' and 'value'");
+  return v;
+}
+
+// Resolves a ValueSource against the input table: column pointer and unit conversion.
+struct Resolved {
+  std::string key;  // canonical key or band name, for messages
+  const Column* column = nullptr;
+  std::string column_name;
+  UnitConversion conversion;
+  std::optional<std::variant<double, std::string>> constant;
+  bool present() const { return column || constant; }
+};
+
+[[noreturn]] void whole_file_error(const IngestOptions& o, const std::string& column,
+                                   const std::string& rule, const std::string& message) {
+  throw InputError({o.input_path, {}, column}, rule, message);
+}
+
+Resolved resolve(const ValueSource& src, const std::string& key, QuantityKind kind,
+                 const SourceTable& in, const IngestOptions& o) {
+  Resolved r;
+  r.key = key;
+  r.constant = src.constant;
+  if (src.column.empty()) {
+    if (src.constant && std::holds_alternative<double>(*src.constant) && !src.unit.empty()) {
+      auto conv = unit_conversion(kind, src.unit);
+      if (!conv) whole_file_error(o, "", "bad_unit", fmt::format("'{}' is not a unit for {} (accepted: {})", src.unit, key, accepted_units(kind)));
+      r.constant = conv->apply(std::get<double>(*src.constant));
+    }
+    return r;
+  }
+  r.column_name = src.column;
+  if (!in.table.has(src.column)) {
+    auto bad = in.unusable_columns.find(src.column);
+    if (bad != in.unusable_columns.end()) whole_file_error(o, src.column, "column_type", bad->second);
+    std::string names;
+    for (const auto& n : in.table.column_names()) names += (names.empty() ? "" : ", ") + n;
+    if (names.size() > 300) names = names.substr(0, 300) + ", ...";
+    whole_file_error(o, src.column, "missing_column",
+                     fmt::format("the config maps {} to this column, which the file does not have (it has: {})", key, names));
+  }
+  r.column = &in.table.column(src.column);
+  std::string unit = src.unit.empty() ? r.column->unit : src.unit;
+  if (unit.empty()) unit = canonical_unit(kind);
+  auto conv = unit_conversion(kind, unit);
+  if (!conv)
+    whole_file_error(o, src.column, "bad_unit",
+                     fmt::format("unit '{}' is not a unit for {} (accepted: {})", unit, key, accepted_units(kind)));
+  if (!src.unit.empty() && !r.column->unit.empty() && r.column->unit != src.unit) {
+    auto file_conv = unit_conversion(kind, r.column->unit);
+    if (!file_conv || file_conv->scale != conv->scale || file_conv->log10_input != conv->log10_input)
+      whole_file_error(o, src.column, "unit_conflict",
+                       fmt::format("the config says unit '{}' but the file's TUNIT says '{}'", src.unit, r.column->unit));
+  }
+  r.conversion = *conv;
+  // A numeric quantity in a text column none of whose values parse is a wrong mapping,
+  // not a hundred bad rows.
+  if (kind != QuantityKind::kDimensionless || key == "ruwe" || key == "astrometric_params") {
+    if (r.column->type == ColumnType::kText) {
+      std::size_t nonnull = 0, parsed = 0;
+      for (std::size_t i = 0; i < r.column->size(); ++i) {
+        if (r.column->is_null(i)) continue;
+        ++nonnull;
+        double x;
+        if (parse_double(r.column->text[i], x)) ++parsed;
+      }
+      if (nonnull > 0 && parsed == 0)
+        whole_file_error(o, src.column, "column_type",
+                         fmt::format("{} must be numeric, but no value in this column is a number (e.g. '{}')", key,
+                                     r.column->text[std::distance(r.column->null.begin(), std::find(r.column->null.begin(), r.column->null.end(), 0))]));
+    } else if (r.column->type == ColumnType::kBoolean) {
+      whole_file_error(o, src.column, "column_type", fmt::format("{} must be numeric, not a logical column", key));
+    }
+  }
+  return r;
+}
+
+// The value of a numeric quantity in a row: nullopt when missing; RowReject when unusable.
+std::optional<double> number_at(const Resolved& r, std::size_t row) {
+  if (r.constant) {
+    if (const double* d = std::get_if<double>(&*r.constant)) return *d;
+    throw RowReject{"not_a_number", "", fmt::format("{}: the constant given is not a number", r.key)};
+  }
+  if (!r.column || r.column->is_null(row)) return std::nullopt;
+  double x = 0;
+  switch (r.column->type) {
+    case ColumnType::kReal: x = r.column->real[row]; break;
+    case ColumnType::kInteger: x = static_cast<double>(r.column->integer[row]); break;
+    case ColumnType::kText:
+      if (!parse_double(r.column->text[row], x))
+        throw RowReject{"not_a_number", r.column_name, fmt::format("{}: '{}' is not a number", r.key, r.column->text[row])};
+      break;
+    case ColumnType::kBoolean: x = r.column->boolean[row]; break;
+  }
+  if (!std::isfinite(x))
+    throw RowReject{"not_finite", r.column_name, fmt::format("{}: value {} is not finite", r.key, x)};
+  x = r.conversion.apply(x);
+  if (!std::isfinite(x))
+    throw RowReject{"not_finite", r.column_name, fmt::format("{}: value is not finite after unit conversion", r.key)};
+  return x;
+}
+
+std::optional<std::string> text_at(const Resolved& r, std::size_t row) {
+  if (r.constant) {
+    if (const auto* s = std::get_if<std::string>(&*r.constant)) return *s;
+    return fmt::format("{}", std::get<double>(*r.constant));
+  }
+  if (!r.column || r.column->is_null(row)) return std::nullopt;
+  if (r.column->type == ColumnType::kInteger || r.column->type == ColumnType::kReal) {
+    std::string s = r.column->to_string(row);
+    return s;
+  }
+  return r.column->to_string(row);
+}
+
+bool compare(double a, SelectOp op, double b) {
+  switch (op) {
+    case SelectOp::kEqual: return a == b;
+    case SelectOp::kNotEqual: return a != b;
+    case SelectOp::kLess: return a < b;
+    case SelectOp::kLessEqual: return a <= b;
+    case SelectOp::kGreater: return a > b;
+    case SelectOp::kGreaterEqual: return a >= b;
+  }
+  return false;
+}
+
+bool select_row(const SelectRule& rule, const Column& c, std::size_t row) {
+  if (c.is_null(row)) return false;
+  if (const double* v = std::get_if<double>(&rule.value)) {
+    double x = c.as_real(row);
+    if (c.type == ColumnType::kText && !parse_double(c.text[row], x)) return false;
+    return compare(x, rule.op, *v);
+  }
+  const std::string& v = std::get<std::string>(rule.value);
+  std::string x = c.to_string(row);
+  int cmp = x.compare(v);
+  return compare(cmp, rule.op, 0);
+}
+
+std::int64_t canonical_astrometric_params(double x) {
+  // Gaia's astrometric_params_solved is a bit mask: 31 = 5-parameter, 95 = 6-parameter.
+  if (x == 31) return 5;
+  if (x == 95) return 6;
+  if (x == 3) return 2;
+  if (x == 2 || x == 5 || x == 6) return static_cast<std::int64_t>(x);
+  throw RowReject{"bad_astrometric_params", "", fmt::format("astrometric parameters {} is not 2, 5, 6 (or Gaia's 3, 31, 95)", x)};
+}
+
+std::string canonical_choice(const std::string& value, const std::map<std::string, std::string>& config_aliases,
+                             const std::map<std::string, std::string>& builtin, bool is_mode) {
+  if (auto it = config_aliases.find(value); it != config_aliases.end()) return it->second;
+  if (is_mode ? kPulsationModeNames.parse(value).has_value() : kPulsatorClassNames.parse(value).has_value())
+    return value;
+  if (auto it = builtin.find(value); it != builtin.end()) return it->second;
+  return "";
+}
+
+void read_alias_table(const ConfigSection& root, const std::string& name, bool is_mode,
+                      std::map<std::string, std::string>& out) {
+  auto sec = root.section(name);
+  if (!sec) return;
+  for (const auto& k : sec->keys()) {
+    std::string target = *sec->get_string(k);
+    bool known = is_mode ? kPulsationModeNames.parse(target).has_value() : kPulsatorClassNames.parse(target).has_value();
+    if (!known)
+      sec->fail(k, fmt::format("'{}' is not one of: {}", target,
+                               is_mode ? kPulsationModeNames.choices() : kPulsatorClassNames.choices()));
+    out[k] = target;
+  }
+}
+
+bool has_fits_extension(const std::string& path) {
+  std::string p = path;
+  std::transform(p.begin(), p.end(), p.begin(), ::tolower);
+  for (const char* ext : {".fits", ".fit", ".fts", ".fits.gz", ".fit.gz"}) {
+    std::string e = ext;
+    if (p.size() >= e.size() && p.compare(p.size() - e.size(), e.size(), e) == 0) return true;
+  }
+  return false;
+}
+
+}  // namespace
+
+std::string SelectRule::describe() const {
+  std::string v = std::visit([](const auto& x) { return fmt::format("{}", x); }, value);
+  return fmt::format("{} {} {}", column, kSelectOpNames.name(op), v);
+}
+
+std::string IngestOptions::check() const {
+  if (input_path.empty()) return "source.path: required";
+  if (catalog_path.empty()) return "output.catalog: required";
+  if (!quantities.count("id")) return "columns.id: required (which input column identifies each star)";
+  if (!quantities.count("period")) return "columns.period: required (a period or log-period column)";
+  if (!quantities.count("mode"))
+    return "columns.mode: required (a column, or mode = { value = \"fundamental\" } for all stars)";
+  if (!quantities.count("pulsator_class"))
+    return "columns.pulsator_class: required (a column, or { value = \"classical_cepheid\" })";
+  if (bands.empty()) return "bands: at least one band is required";
+  if (!(magnitude_min < magnitude_max)) return "validate.magnitude_range: the minimum must be below the maximum";
+  if (!(ebv_min < ebv_max)) return "validate.ebv_range: the minimum must be below the maximum";
+  std::set<std::string> seen;
+  for (const auto& b : bands) {
+    if (b.band.empty() || b.band.find_first_of(" ,") != std::string::npos)
+      return fmt::format("bands.{}: a band name must be non-empty without spaces or commas", b.band);
+    if (!seen.insert(b.band).second) return fmt::format("bands.{}: named twice", b.band);
+  }
+  if (!input_is_fits) {
+    if (std::string t = text.check(); !t.empty()) return "source." + t;
+  }
+  return "";
+}
+
+IngestOptions ingest_options_from_config(Config& config) {
+  IngestOptions o;
+  ConfigSection root = config.root();
+  o.config_file = config.file();
+  o.config_sha256 = config.sha256();
+
+  auto source = root.section("source");
+  if (!source)
+    throw InputError({config.file(), {}, "source", "line", "key"}, "config_missing_key", "a [source] table is required");
+  o.input_path = config.resolve_path(source->require_string("path"));
+  std::string format = source->string_or("format", has_fits_extension(o.input_path) ? "fits" : "text");
+  if (format != "fits" && format != "text") source->fail("format", "must be \"fits\" or \"text\"");
+  o.input_is_fits = format == "fits";
+  if (source->has("hdu")) {
+    if (source->is_string("hdu")) o.hdu.name = *source->get_string("hdu");
+    else o.hdu.index = static_cast<int>(*source->get_integer("hdu"));
+    if (!o.input_is_fits) source->fail("hdu", "only FITS sources have HDUs");
+  }
+  if (auto d = source->get_string("delimiter")) {
+    auto parsed = kDelimiterNames.parse(*d);
+    if (!parsed) source->fail("delimiter", fmt::format("'{}' is not one of: {}", *d, kDelimiterNames.choices()));
+    o.text.delimiter = *parsed;
+  }
+  o.text.has_header = source->bool_or("header", true);
+  o.text.header_prefix = source->string_or("header_prefix", "");
+  o.text.comment_prefix = source->string_or("comment_prefix", "#");
+  o.text.skip_lines = static_cast<std::size_t>(source->integer_or("skip_lines", 0));
+  if (auto m = source->get_string_list("missing")) o.text.missing = *m;
+  if (auto names = source->get_string_list("column_names")) o.text.column_names = *names;
+
+  if (auto cols = root.section("columns")) {
+    for (const auto& k : cols->keys()) {
+      if (!find_quantity(k))
+        throw InputError({config.file(), cols->line_of(k), "columns." + k, "line", "key"}, "unknown_config_key",
+                         "not a catalog quantity (see docs/file-formats.md for the list)");
+      o.quantities[k] = value_source_from(*cols, k);
+    }
+  }
+  if (auto bands = root.section("bands")) {
+    for (const auto& name : bands->keys()) {
+      auto b = bands->section(name);
+      if (!b) bands->fail(name, "each band is a table: [bands.NAME] with mag and err");
+      BandSource bs;
+      bs.band = name;
+      if (!b->has("mag")) b->fail("mag", "required: the column of the band's mean magnitude");
+      bs.mag = value_source_from(*b, "mag");
+      if (b->has("err")) bs.err = value_source_from(*b, "err");
+      o.bands.push_back(std::move(bs));
+    }
+  }
+  if (auto extra = root.section("extra")) {
+    for (const auto& name : extra->keys()) {
+      ExtraColumn e;
+      e.name = name;
+      if (extra->is_string(name)) {
+        e.column = *extra->get_string(name);
+      } else if (auto t = extra->section(name)) {
+        e.column = t->require_string("column");
+        e.unit = t->string_or("unit", "");
+      }
+      o.extras.push_back(e);
+    }
+  }
+  for (const auto& sel : root.section_list("select")) {
+    SelectRule r;
+    r.column = sel.require_string("column");
+    std::string op = sel.string_or("op", "==");
+    auto parsed = kSelectOpNames.parse(op);
+    if (!parsed) sel.fail("op", fmt::format("'{}' is not one of: {}", op, kSelectOpNames.choices()));
+    r.op = *parsed;
+    if (sel.is_string("value")) r.value = *sel.get_string("value");
+    else if (auto v = sel.get_number("value")) r.value = *v;
+    else sel.fail("value", "required: a number or a string");
+    o.selection.push_back(r);
+  }
+  read_alias_table(root, "modes", true, o.mode_aliases);
+  read_alias_table(root, "classes", false, o.class_aliases);
+  if (auto v = root.section("validate")) {
+    if (auto r = v->get_number_list("magnitude_range")) {
+      if (r->size() != 2) v->fail("magnitude_range", "must be [min, max]");
+      o.magnitude_min = (*r)[0];
+      o.magnitude_max = (*r)[1];
+    }
+    if (auto r = v->get_number_list("ebv_range")) {
+      if (r->size() != 2) v->fail("ebv_range", "must be [min, max]");
+      o.ebv_min = (*r)[0];
+      o.ebv_max = (*r)[1];
+    }
+    o.require_errors = v->bool_or("require_errors", o.require_errors);
+  }
+  if (auto out = root.section("output")) {
+    if (auto c = out->get_string("catalog")) o.catalog_path = config.resolve_path(*c);
+    if (auto c = out->get_string("rejects_csv")) o.rejects_csv_path = config.resolve_path(*c);
+  } else {
+    o.catalog_path = config.resolve_path(o.catalog_path);
+  }
+  config.check_unknown_keys();
+  if (std::string err = o.check(); !err.empty()) {
+    std::string keypath = err.substr(0, err.find(':'));
+    throw InputError({config.file(), {}, keypath, "line", "key"}, "config_value", err.substr(err.find(':') + 2));
+  }
+  return o;
+}
+
+IngestOptions ingest_options_from_file(const std::string& path) {
+  Config c = Config::from_file(path);
+  return ingest_options_from_config(c);
+}
+
+StarTable IngestResult::rejects_table() const {
+  StarTable t;
+  t.add_column("source_row", ColumnType::kInteger, "", "line (text) or row (FITS) in the input");
+  t.add_column("id", ColumnType::kText);
+  t.add_column("rule", ColumnType::kText, "", "rule the row broke");
+  t.add_column("column", ColumnType::kText, "", "input column involved");
+  t.add_column("message", ColumnType::kText);
+  for (const auto& r : rejected) {
+    t.column("source_row").push_integer(r.source_row);
+    r.id.empty() ? t.column("id").push_null() : t.column("id").push_text(r.id);
+    t.column("rule").push_text(r.rule);
+    r.column.empty() ? t.column("column").push_null() : t.column("column").push_text(r.column);
+    t.column("message").push_text(r.message);
+  }
+  return t;
+}
+
+IngestResult run_ingest(const IngestOptions& o) {
+  if (std::string err = o.check(); !err.empty())
+    throw InputError({o.config_file, {}, err.substr(0, err.find(':')), "line", "key"}, "config_value", err);
+  SourceTable in = o.input_is_fits ? read_fits_table(o.input_path, o.hdu) : read_text_table(o.input_path, o.text);
+  const std::size_t n = in.table.rows();
+  if (n == 0) throw InputError({o.input_path, {}, {}}, "empty_file", "the table has no rows");
+
+  IngestResult result;
+  result.rows_read = n;
+  result.provenance = Provenance::for_stage("ingest");
+  result.provenance.config_sha256 = o.config_sha256;
+  result.provenance.inputs.push_back({o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(n)});
+
+  // Resolve every mapping before any row is read: mapping errors stop the whole file.
+  std::map<std::string, Resolved> q;
+  for (const auto& [k, src] : o.quantities) q[k] = resolve(src, k, find_quantity(k)->kind, in, o);
+  struct BandResolved { std::string band; Resolved mag, err; };
+  std::vector<BandResolved> bands;
+  for (const auto& b : o.bands)
+    bands.push_back({b.band, resolve(b.mag, "magnitude " + b.band, QuantityKind::kMagnitude, in, o),
+                     resolve(b.err, "magnitude error " + b.band, QuantityKind::kMagnitude, in, o)});
+  std::vector<const Column*> select_cols;
+  for (const auto& s : o.selection) {
+    if (!in.table.has(s.column)) whole_file_error(o, s.column, "missing_column", "a [[select]] rule names this column, which the file does not have");
+    select_cols.push_back(&in.table.column(s.column));
+  }
+  std::vector<const Column*> extra_cols;
+  for (const auto& e : o.extras) {
+    if (!in.table.has(e.column)) whole_file_error(o, e.column, "missing_column", fmt::format("[extra] {} names this column, which the file does not have", e.name));
+    extra_cols.push_back(&in.table.column(e.column));
+  }
+
+  // Output columns: fixed ones first, then the mapped quantities, bands and extras.
+  StarTable& cat = result.catalog;
+  auto add = [&](const QuantitySpec& s) {
+    return &cat.add_column(std::string(s.column), s.type, canonical_unit(s.kind), std::string(s.description));
+  };
+  Column* c_id = add(*find_quantity("id"));
+  Column* c_row = &cat.add_column(col::kSourceRow, ColumnType::kInteger, "", "line or row in the input");
+  Column* c_period = add(*find_quantity("period"));
+  Column* c_logp = &cat.add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
+  std::map<std::string, Column*> out_q;
+  for (const auto& spec : catalog_quantities()) {
+    std::string k(spec.key);
+    if (k == "id" || k == "period" || !q.count(k)) continue;
+    out_q[k] = add(spec);
+  }
+  std::vector<std::pair<Column*, Column*>> out_bands;
+  std::string band_list;
+  for (const auto& b : bands) {
+    out_bands.emplace_back(&cat.add_column(magnitude_column(b.band), ColumnType::kReal, "mag", "mean magnitude in " + b.band),
+                           &cat.add_column(magnitude_error_column(b.band), ColumnType::kReal, "mag", "error of mag_" + b.band));
+    band_list += (band_list.empty() ? "" : ",") + b.band;
+  }
+  std::vector<Column*> out_extras;
+  for (std::size_t i = 0; i < o.extras.size(); ++i) {
+    const Column* src = extra_cols[i];
+    out_extras.push_back(&cat.add_column(o.extras[i].name, src->type, o.extras[i].unit.empty() ? src->unit : o.extras[i].unit,
+                                         "copied from input column " + o.extras[i].column));
+  }
+  // add_column may reallocate: re-fetch the pointers by name.
+  c_id = &cat.column(col::kId);
+  c_row = &cat.column(col::kSourceRow);
+  c_period = &cat.column(col::kPeriod);
+  c_logp = &cat.column(col::kLogPeriod);
+  for (auto& [k, ptr] : out_q) ptr = &cat.column(std::string(find_quantity(k)->column));
+  for (std::size_t i = 0; i < bands.size(); ++i)
+    out_bands[i] = {&cat.column(magnitude_column(bands[i].band)), &cat.column(magnitude_error_column(bands[i].band))};
+  for (std::size_t i = 0; i < o.extras.size(); ++i) out_extras[i] = &cat.column(o.extras[i].name);
+
+  std::unordered_map<std::string, std::int64_t> first_row_of_id;
+  for (std::size_t r = 0; r < n; ++r) {
+    const std::int64_t src_row = in.source_rows[r];
+    std::string id;
+    try {
+      auto idv = text_at(q.at("id"), r);
+      if (!idv || idv->empty()) throw RowReject{"missing_required", q.at("id").column_name, "the star has no id"};
+      id = *idv;
+      auto [it, fresh] = first_row_of_id.emplace(id, src_row);
+      if (!fresh)
+        throw RowReject{"duplicate_id", q.at("id").column_name,
+                        fmt::format("id '{}' was already used at {} {}", id, in.row_label, it->second)};
+      auto period = number_at(q.at("period"), r);
+      if (!period) throw RowReject{"missing_required", q.at("period").column_name, "the star has no period"};
+      if (*period <= 0) throw RowReject{"period_nonpositive", q.at("period").column_name, fmt::format("period {} d is not positive", *period)};
+      for (std::size_t s = 0; s < o.selection.size(); ++s)
+        if (!select_row(o.selection[s], *select_cols[s], r))
+          throw RowReject{"selection", o.selection[s].column, "fails the selection " + o.selection[s].describe()};
+
+      auto mode_text = text_at(q.at("mode"), r);
+      if (!mode_text) throw RowReject{"missing_required", q.at("mode").column_name, "the star has no pulsation mode"};
+      std::string mode = canonical_choice(*mode_text, o.mode_aliases, builtin_mode_aliases(), true);
+      if (mode.empty())
+        throw RowReject{"unknown_mode", q.at("mode").column_name,
+                        fmt::format("mode '{}' is unknown (map it in [modes]; known: {})", *mode_text, kPulsationModeNames.choices())};
+      auto class_text = text_at(q.at("pulsator_class"), r);
+      if (!class_text) throw RowReject{"missing_required", q.at("pulsator_class").column_name, "the star has no pulsator class"};
+      std::string klass = canonical_choice(*class_text, o.class_aliases, builtin_class_aliases(), false);
+      if (klass.empty())
+        throw RowReject{"unknown_class", q.at("pulsator_class").column_name,
+                        fmt::format("class '{}' is unknown (map it in [classes]; known: {})", *class_text, kPulsatorClassNames.choices())};
+
+      // Numeric quantities, validated before anything is appended so a reject leaves no trace.
+      std::map<std::string, std::optional<double>> values;
+      for (const auto& [k, res] : q) {
+        const QuantitySpec* spec = find_quantity(k);
+        if (spec->type == ColumnType::kText || k == "period") continue;
+        values[k] = number_at(res, r);
+      }
+      auto get = [&](const char* k) -> std::optional<double> {
+        auto found = values.find(k);
+        return found == values.end() ? std::nullopt : found->second;
+      };
+      if (get("parallax")) {
+        auto e = get("parallax_err");
+        if (!e && o.require_errors) throw RowReject{"missing_error", q.count("parallax_err") ? q.at("parallax_err").column_name : "", "a parallax without its error"};
+        if (e && !(*e > 0)) throw RowReject{"parallax_error_nonpositive", q.at("parallax_err").column_name, fmt::format("parallax error {} mas is not positive", *e)};
+      }
+      if (auto e = get("ebv")) {
+        if (*e < o.ebv_min || *e > o.ebv_max)
+          throw RowReject{"ebv_out_of_range", q.at("ebv").column_name, fmt::format("E(B-V) = {} is outside [{}, {}]", *e, o.ebv_min, o.ebv_max)};
+      }
+      for (const char* k : {"ebv_err", "feh_err", "mu_err", "period_err"})
+        if (auto e = get(k); e && *e < 0) throw RowReject{"error_negative", q.at(k).column_name, fmt::format("{} = {} is negative", k, *e)};
+      std::optional<std::int64_t> astrometric;
+      if (auto a = get("astrometric_params")) {
+        try {
+          astrometric = canonical_astrometric_params(*a);
+        } catch (RowReject& rr) {
+          rr.column = q.at("astrometric_params").column_name;
+          throw;
+        }
+      }
+      std::vector<std::pair<std::optional<double>, std::optional<double>>> mags;
+      bool any_mag = false;
+      for (const auto& b : bands) {
+        auto m = number_at(b.mag, r);
+        auto e = b.err.present() ? number_at(b.err, r) : std::nullopt;
+        if (m) {
+          any_mag = true;
+          if (*m < o.magnitude_min || *m > o.magnitude_max)
+            throw RowReject{"magnitude_out_of_range", b.mag.column_name, fmt::format("{} = {} mag is outside [{}, {}]", b.band, *m, o.magnitude_min, o.magnitude_max)};
+          if (!e && o.require_errors) throw RowReject{"missing_error", b.err.column_name, fmt::format("{} magnitude without its error", b.band)};
+          if (e && !(*e > 0)) throw RowReject{"magnitude_error_nonpositive", b.err.column_name, fmt::format("{} error {} mag is not positive", b.band, *e)};
+        }
+        mags.emplace_back(m, m ? e : std::nullopt);
+      }
+      if (!any_mag) throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
+
+      // Accepted: append the row.
+      c_id->push_text(id);
+      c_row->push_integer(src_row);
+      c_period->push_real(*period);
+      c_logp->push_real(std::log10(*period));
+      for (auto& [k, out] : out_q) {
+        if (k == "mode") out->push_text(mode);
+        else if (k == "pulsator_class") out->push_text(klass);
+        else if (find_quantity(k)->type == ColumnType::kText) {
+          auto t = text_at(q.at(k), r);
+          t ? out->push_text(*t) : out->push_null();
+        } else if (k == "astrometric_params") {
+          astrometric ? out->push_integer(*astrometric) : out->push_null();
+        } else {
+          auto v = get(k.c_str());
+          v ? out->push_real(*v) : out->push_null();
+        }
+      }
+      for (std::size_t i = 0; i < mags.size(); ++i) {
+        mags[i].first ? out_bands[i].first->push_real(*mags[i].first) : out_bands[i].first->push_null();
+        mags[i].second ? out_bands[i].second->push_real(*mags[i].second) : out_bands[i].second->push_null();
+      }
+      for (std::size_t i = 0; i < out_extras.size(); ++i) {
+        const Column* s = extra_cols[i];
+        Column* d = out_extras[i];
+        if (s->is_null(r)) { d->push_null(); continue; }
+        switch (s->type) {
+          case ColumnType::kReal: d->push_real(s->real[r]); break;
+          case ColumnType::kInteger: d->push_integer(s->integer[r]); break;
+          case ColumnType::kText: d->push_text(s->text[r]); break;
+          case ColumnType::kBoolean: d->push_boolean(s->boolean[r] != 0); break;
+        }
+      }
+    } catch (const RowReject& rej) {
+      result.rejected.push_back({src_row, id, rej.rule, rej.column, rej.message});
+    }
+  }
+  if (cat.rows() == 0) {
+    std::string first = result.rejected.empty() ? "" : fmt::format(" (first: {} {}: [{}] {})", in.row_label, result.rejected[0].source_row, result.rejected[0].rule, result.rejected[0].message);
+    throw InputError({o.input_path, {}, {}}, "no_rows_left", fmt::format("all {} rows were rejected{}", n, first));
+  }
+  stamp_provenance(cat, result.provenance, "catalog");
+  cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
+  return result;
+}
+
+void write_ingest_products(const IngestResult& result, const IngestOptions& o) {
+  StarTable rejects = result.rejects_table();
+  stamp_provenance(rejects, result.provenance, "rejects");
+  write_fits_tables(o.catalog_path, {{"CATALOG", &result.catalog}, {"REJECTS", &rejects}});
+  std::string csv = o.rejects_csv_path;
+  if (csv.empty()) {
+    std::filesystem::path p(o.catalog_path);
+    csv = (p.parent_path() / (p.stem().string() + "_rejects.csv")).string();
+  }
+  write_csv_table(rejects, csv);
+}
+
+}  // namespace rungcal

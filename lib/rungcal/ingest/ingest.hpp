@@ -1,0 +1,111 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <map>
+#include <optional>
+#include <string>
+#include <variant>
+#include <vector>
+
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/provenance.hpp"
+#include "rungcal/table/fits_io.hpp"
+#include "rungcal/table/star_table.hpp"
+#include "rungcal/table/text_io.hpp"
+
+namespace rungcal {
+
+// Where a canonical value comes from: an input column (with its unit), or one constant for
+// every row (e.g. mode = "fundamental" for a list of fundamental-mode stars).
+struct ValueSource {
+  std::string column;  // input column name; empty when constant is used
+  std::string unit;    // input unit; empty = the FITS TUNIT if any, else the canonical unit
+  std::optional<std::variant<double, std::string>> constant;  // used when column is empty
+};
+
+enum class SelectOp { kEqual, kNotEqual, kLess, kLessEqual, kGreater, kGreaterEqual };
+inline constexpr EnumTable<SelectOp, 6> kSelectOpNames{{{
+    {SelectOp::kEqual, "=="},
+    {SelectOp::kNotEqual, "!="},
+    {SelectOp::kLess, "<"},
+    {SelectOp::kLessEqual, "<="},
+    {SelectOp::kGreater, ">"},
+    {SelectOp::kGreaterEqual, ">="},
+}}};
+
+// Keep a row only when `column op value` holds (rows failing it are rejected with rule
+// "selection"). A null value fails every selection.
+struct SelectRule {
+  std::string column;  // input column name
+  SelectOp op = SelectOp::kEqual;
+  std::variant<double, std::string> value;
+  std::string describe() const;
+};
+
+// A band's magnitude and its error.
+struct BandSource {
+  std::string band;   // band name as in the band table (config/bands.toml)
+  ValueSource mag;    // mean magnitude
+  ValueSource err;    // its error (a column, or a constant for every star)
+};
+
+// An input column copied through unchanged under a new name (quality flags and the like).
+struct ExtraColumn {
+  std::string name;    // catalog column name
+  std::string column;  // input column name
+  std::string unit;    // written as TUNIT
+};
+
+struct IngestOptions {
+  std::string input_path;             // catalog to read (FITS or delimited text)
+  bool input_is_fits = false;         // chosen from [source] format or the file extension
+  FitsHduChoice hdu;                  // FITS: which table HDU
+  TextReadOptions text;               // text: delimiter, header, missing markers
+  std::map<std::string, ValueSource> quantities;  // canonical key -> source ([columns])
+  std::vector<BandSource> bands;      // [bands.NAME]
+  std::vector<ExtraColumn> extras;    // [extra]
+  std::vector<SelectRule> selection;  // [[select]]
+  std::map<std::string, std::string> mode_aliases;   // input mode value -> canonical mode name
+  std::map<std::string, std::string> class_aliases;  // input class value -> canonical class name
+  double magnitude_min = -12.0;  // plausible apparent/absolute magnitude range (common practice)
+  double magnitude_max = 35.0;
+  double ebv_min = -0.3;         // E(B-V) below this is an error, not noise (common practice)
+  double ebv_max = 10.0;
+  bool require_errors = true;    // a value without its error (magnitude, parallax) rejects the row
+  std::string catalog_path = "out/catalog.fits";   // the FITS catalog product
+  std::string rejects_csv_path;  // human-readable rejects; "" = beside the catalog
+  std::string config_file;       // for messages and provenance
+  std::string config_sha256;
+
+  // "" when usable, else "field: rule" for the first broken rule.
+  std::string check() const;
+};
+
+// Reads an ingest config ([source], [columns], [bands.*], [extra], [[select]], [modes],
+// [classes], [validate], [output]); unknown keys stop with rule "unknown_config_key".
+IngestOptions ingest_options_from_config(Config& config);
+IngestOptions ingest_options_from_file(const std::string& path);
+
+// One rejected input row.
+struct RejectedRow {
+  std::int64_t source_row = 0;  // line (text) or row (FITS) in the input
+  std::string id;
+  std::string rule;    // short rule name, e.g. "duplicate_id"
+  std::string column;  // input column involved, if any
+  std::string message;
+};
+
+struct IngestResult {
+  StarTable catalog;                  // canonical columns, one row per accepted star
+  std::vector<RejectedRow> rejected;  // in input order
+  std::size_t rows_read = 0;
+  Provenance provenance;
+  StarTable rejects_table() const;
+};
+
+// Reads, maps and validates; writes nothing. Throws InputError for whole-file problems.
+IngestResult run_ingest(const IngestOptions& options);
+// Writes the catalog (HDUs CATALOG and REJECTS) and the rejects CSV, atomically.
+void write_ingest_products(const IngestResult& result, const IngestOptions& options);
+
+}  // namespace rungcal

@@ -1,0 +1,398 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/table/fits_io.hpp"
+
+#include <fitsio.h>
+
+#include <CCfits/CCfits>
+#include <algorithm>
+#include <cmath>
+#include <cstring>
+#include <filesystem>
+#include <limits>
+
+#include <fmt/format.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/error.hpp"
+
+namespace rungcal {
+namespace {
+
+constexpr std::int64_t kIntegerNull = std::numeric_limits<std::int64_t>::min();
+
+std::string cfitsio_message(int status) {
+  char text[FLEN_STATUS] = {0};
+  fits_get_errstatus(status, text);
+  std::string out = text;
+  char msg[FLEN_ERRMSG];
+  while (fits_read_errmsg(msg)) {
+    if (std::strlen(msg)) out += std::string("; ") + msg;
+  }
+  return out;
+}
+
+void check_status(int status, const std::string& path, const std::string& what,
+                  const std::string& column = "") {
+  if (status == 0) return;
+  throw InputError({path, {}, column}, "fits_read", fmt::format("{}: {}", what, cfitsio_message(status)));
+}
+
+// Structural keywords that describe the table itself, not its content.
+bool is_structural_keyword(const std::string& k) {
+  static const char* const kFixed[] = {"XTENSION", "BITPIX", "NAXIS", "PCOUNT", "GCOUNT", "TFIELDS",
+                                       "EXTNAME", "SIMPLE", "EXTEND", "COMMENT", "HISTORY", "",
+                                       "LONGSTRN", "CONTINUE", "END"};
+  for (const char* f : kFixed)
+    if (k == f) return true;
+  if (k.rfind("NAXIS", 0) == 0) return true;
+  static const char* const kIndexed[] = {"TTYPE", "TFORM", "TUNIT", "TNULL", "TDISP", "TSCAL", "TZERO", "TDIM"};
+  for (const char* p : kIndexed) {
+    std::size_t n = std::strlen(p);
+    if (k.size() > n && k.compare(0, n, p) == 0 &&
+        std::all_of(k.begin() + static_cast<std::ptrdiff_t>(n), k.end(), ::isdigit))
+      return true;
+  }
+  return false;
+}
+
+void read_header_keywords(fitsfile* f, const std::string& path, StarTable& table) {
+  int status = 0, nkeys = 0, more = 0;
+  fits_get_hdrspace(f, &nkeys, &more, &status);
+  check_status(status, path, "reading the header");
+  for (int i = 1; i <= nkeys; ++i) {
+    char name[FLEN_KEYWORD], value[FLEN_VALUE], comment[FLEN_COMMENT];
+    fits_read_keyn(f, i, name, value, comment, &status);
+    check_status(status, path, "reading a header keyword");
+    std::string key = name;
+    if (is_structural_keyword(key) || std::strlen(value) == 0) continue;
+    char dtype = 0;
+    fits_get_keytype(value, &dtype, &status);
+    if (status) {
+      status = 0;
+      continue;
+    }
+    if (dtype == 'C') {
+      char* longstr = nullptr;
+      fits_read_key_longstr(f, name, &longstr, comment, &status);
+      std::string v = longstr ? longstr : "";
+      if (longstr) fits_free_memory(longstr, &status);
+      check_status(status, path, "reading keyword " + key);
+      table.set_keyword(key, v, comment);
+    } else if (dtype == 'L') {
+      table.set_keyword(key, std::string(value) == "T", comment);
+    } else if (dtype == 'I') {
+      table.set_keyword(key, static_cast<std::int64_t>(std::stoll(value)), comment);
+    } else if (dtype == 'F') {
+      table.set_keyword(key, std::stod(value), comment);
+    }
+  }
+}
+
+std::string read_string_key(fitsfile* f, const std::string& key) {
+  int status = 0;
+  char value[FLEN_VALUE] = {0};
+  fits_read_key(f, TSTRING, key.c_str(), value, nullptr, &status);
+  return status ? "" : std::string(value);
+}
+
+void move_to_hdu(fitsfile* f, const std::string& path, const FitsHduChoice& hdu) {
+  int status = 0, hdutype = 0;
+  if (!hdu.name.empty()) {
+    fits_movnam_hdu(f, ANY_HDU, const_cast<char*>(hdu.name.c_str()), 0, &status);
+    if (status == BAD_HDU_NUM)
+      throw InputError({path, {}, {}}, "fits_hdu", fmt::format("the file has no HDU named '{}'", hdu.name));
+    check_status(status, path, "moving to HDU " + hdu.name);
+    fits_get_hdu_type(f, &hdutype, &status);
+  } else if (hdu.index > 0) {
+    fits_movabs_hdu(f, hdu.index + 1, &hdutype, &status);
+    if (status == END_OF_FILE || status == BAD_HDU_NUM)
+      throw InputError({path, {}, {}}, "fits_hdu", fmt::format("the file has no extension number {}", hdu.index));
+    check_status(status, path, fmt::format("moving to extension {}", hdu.index));
+  } else {
+    int n = 0;
+    fits_get_num_hdus(f, &n, &status);
+    check_status(status, path, "counting HDUs");
+    for (int i = 2; i <= n; ++i) {
+      fits_movabs_hdu(f, i, &hdutype, &status);
+      check_status(status, path, "moving between HDUs");
+      if (hdutype == BINARY_TBL) return;
+    }
+    throw InputError({path, {}, {}}, "fits_hdu", "the file has no binary table extension");
+  }
+  if (hdutype != BINARY_TBL)
+    throw InputError({path, {}, {}}, "fits_hdu", "the chosen HDU is not a binary table");
+}
+
+void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG nrows, SourceTable& out) {
+  int status = 0, typecode = 0;
+  LONGLONG repeat = 0, width = 0;
+  char ttype[FLEN_VALUE] = {0};
+  fits_read_key(f, TSTRING, fmt::format("TTYPE{}", colnum).c_str(), ttype, nullptr, &status);
+  check_status(status, path, fmt::format("reading the name of column {}", colnum));
+  std::string name = ttype;
+  fits_get_eqcoltypell(f, colnum, &typecode, &repeat, &width, &status);
+  check_status(status, path, "reading the column type", name);
+  std::string unit = read_string_key(f, fmt::format("TUNIT{}", colnum));
+  auto n = static_cast<std::size_t>(nrows);
+  std::vector<char> nulls(n, 0);
+  int anynul = 0;
+
+  if (typecode == TSTRING) {
+      std::vector<char> buf(static_cast<std::size_t>(width) + 1, 0);
+    Column& col = out.table.add_column(name, ColumnType::kText, unit);
+    col.resize(n);
+    for (std::size_t r = 0; r < n; ++r) {
+      char* p = buf.data();
+      fits_read_col_str(f, colnum, static_cast<LONGLONG>(r) + 1, 1, 1, const_cast<char*>(""), &p, &anynul, &status);
+      check_status(status, path, fmt::format("reading row {}", r + 1), name);
+      std::string v = buf.data();
+      while (!v.empty() && v.back() == ' ') v.pop_back();
+      col.null[r] = v.empty() ? 1 : 0;
+      col.text[r] = v;
+    }
+    return;
+  }
+  if (repeat != 1) {
+    out.unusable_columns[name] = fmt::format("a vector column ({} values per row) cannot be mapped", repeat);
+    return;
+  }
+  if (nrows == 0) {
+    out.table.add_column(name, ColumnType::kReal, unit);
+    return;
+  }
+  if (typecode == TLOGICAL) {
+    std::vector<char> v(n, 0);
+    fits_read_colnull_log(f, colnum, 1, 1, nrows, v.data(), nulls.data(), &anynul, &status);
+    check_status(status, path, "reading", name);
+    Column& col = out.table.add_column(name, ColumnType::kBoolean, unit);
+    col.resize(n);
+    for (std::size_t r = 0; r < n; ++r) {
+      col.boolean[r] = v[r] ? 1 : 0;
+      col.null[r] = nulls[r] ? 1 : 0;
+    }
+  } else if (typecode == TFLOAT || typecode == TDOUBLE) {
+    Column& col = out.table.add_column(name, ColumnType::kReal, unit);
+    col.resize(n);
+    fits_read_colnull_dbl(f, colnum, 1, 1, nrows, col.real.data(), nulls.data(), &anynul, &status);
+    check_status(status, path, "reading", name);
+    for (std::size_t r = 0; r < n; ++r) {
+      bool is_null = nulls[r] || std::isnan(col.real[r]);
+      col.null[r] = is_null ? 1 : 0;
+      if (is_null) col.real[r] = std::numeric_limits<double>::quiet_NaN();
+    }
+  } else if (typecode == TBYTE || typecode == TSBYTE || typecode == TSHORT || typecode == TUSHORT ||
+             typecode == TINT || typecode == TUINT || typecode == TLONG || typecode == TULONG ||
+             typecode == TLONGLONG) {
+    Column& col = out.table.add_column(name, ColumnType::kInteger, unit);
+    col.resize(n);
+    std::vector<LONGLONG> v(n, 0);
+    fits_read_colnull_lnglng(f, colnum, 1, 1, nrows, v.data(), nulls.data(), &anynul, &status);
+    check_status(status, path, "reading", name);
+    for (std::size_t r = 0; r < n; ++r) {
+      col.integer[r] = v[r];
+      col.null[r] = nulls[r] ? 1 : 0;
+    }
+  } else {
+    out.unusable_columns[name] = fmt::format("FITS column type code {} is not supported", typecode);
+  }
+}
+
+std::string tform_for(const Column& c) {
+  switch (c.type) {
+    case ColumnType::kReal: return "1D";
+    case ColumnType::kInteger: return "1K";
+    case ColumnType::kBoolean: return "1L";
+    case ColumnType::kText: {
+      std::size_t w = 1;
+      for (std::size_t r = 0; r < c.size(); ++r)
+        if (!c.is_null(r)) w = std::max(w, c.text[r].size());
+      return fmt::format("{}A", w);
+    }
+  }
+  return "1D";
+}
+
+std::size_t field_width(const Column& c, const std::string& tform) {
+  switch (c.type) {
+    case ColumnType::kReal: case ColumnType::kInteger: return 8;
+    case ColumnType::kBoolean: return 1;
+    case ColumnType::kText: return static_cast<std::size_t>(std::stoul(tform));
+  }
+  return 0;
+}
+
+void throw_write_status(int status, const std::string& path, const std::string& what) {
+  throw InputError({path, {}, {}}, "write_failed", fmt::format("{}: {}", what, cfitsio_message(status)));
+}
+
+void write_keyword(fitsfile* f, const Keyword& k, const std::string& path) {
+  int status = 0;
+  // Names longer than 8 characters: cfitsio writes HIERARCH cards when asked this way.
+  std::string key = k.key.size() > 8 ? "HIERARCH " + k.key : k.key;
+  const char* comment = k.comment.empty() ? nullptr : k.comment.c_str();
+  std::visit(
+      [&](const auto& v) {
+        using T = std::decay_t<decltype(v)>;
+        if constexpr (std::is_same_v<T, std::string>) {
+          if (v.size() > 68 && key.size() <= 8) {
+            fits_write_key_longstr(f, key.c_str(), v.c_str(), comment, &status);
+          } else {
+            fits_write_key(f, TSTRING, key.c_str(), const_cast<char*>(v.c_str()), comment, &status);
+          }
+        } else if constexpr (std::is_same_v<T, double>) {
+          double x = v;
+          fits_write_key(f, TDOUBLE, key.c_str(), &x, comment, &status);
+        } else if constexpr (std::is_same_v<T, std::int64_t>) {
+          LONGLONG x = v;
+          fits_write_key(f, TLONGLONG, key.c_str(), &x, comment, &status);
+        } else {
+          int x = v ? 1 : 0;
+          fits_write_key(f, TLOGICAL, key.c_str(), &x, comment, &status);
+        }
+      },
+      k.value);
+  if (status) throw_write_status(status, path, "writing keyword " + k.key);
+}
+
+void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t, const std::string& path) {
+  int status = 0;
+  std::vector<std::string> names, forms, units;
+  for (std::size_t c = 0; c < t.columns(); ++c) {
+    names.push_back(t.column(c).name);
+    forms.push_back(tform_for(t.column(c)));
+    units.push_back(t.column(c).unit);
+  }
+  std::vector<std::size_t> offsets;
+  std::size_t offset = 0;
+  for (std::size_t c = 0; c < t.columns(); ++c) {
+    offsets.push_back(offset);
+    offset += field_width(t.column(c), forms[c]);
+  }
+  std::vector<char*> pn, pf, pu;
+  for (std::size_t c = 0; c < names.size(); ++c) {
+    pn.push_back(names[c].data());
+    pf.push_back(forms[c].data());
+    pu.push_back(units[c].data());
+  }
+  fits_create_tbl(f, BINARY_TBL, static_cast<LONGLONG>(t.rows()), static_cast<int>(names.size()), pn.data(),
+                  pf.data(), pu.data(), extname.c_str(), &status);
+  if (status) throw_write_status(status, path, "creating table " + extname);
+  const auto nrows = static_cast<LONGLONG>(t.rows());
+  for (std::size_t c = 0; c < t.columns(); ++c) {
+    const Column& col = t.column(c);
+    int colnum = static_cast<int>(c) + 1;
+    if (!col.description.empty()) {
+      fits_modify_comment(f, fmt::format("TTYPE{}", colnum).c_str(), col.description.c_str(), &status);
+    }
+    if (nrows == 0) continue;
+    switch (col.type) {
+      case ColumnType::kReal: {
+        std::vector<double> v(col.real);
+        for (std::size_t r = 0; r < v.size(); ++r)
+          if (col.is_null(r)) v[r] = std::numeric_limits<double>::quiet_NaN();
+        fits_write_col(f, TDOUBLE, colnum, 1, 1, nrows, v.data(), &status);
+        break;
+      }
+      case ColumnType::kInteger: {
+        LONGLONG tnull = kIntegerNull;
+        fits_write_key(f, TLONGLONG, fmt::format("TNULL{}", colnum).c_str(), &tnull, "value of null entries", &status);
+        std::vector<LONGLONG> v(col.integer.begin(), col.integer.end());
+        for (std::size_t r = 0; r < v.size(); ++r)
+          if (col.is_null(r)) v[r] = kIntegerNull;
+        fits_set_btblnull(f, colnum, kIntegerNull, &status);
+        fits_write_colnull(f, TLONGLONG, colnum, 1, 1, nrows, v.data(), &tnull, &status);
+        break;
+      }
+      case ColumnType::kBoolean: {
+        std::vector<char> v(col.boolean.begin(), col.boolean.end());
+        fits_write_col(f, TLOGICAL, colnum, 1, 1, nrows, v.data(), &status);
+        for (std::size_t r = 0; r < v.size(); ++r)
+          if (col.is_null(r)) fits_write_col_null(f, colnum, static_cast<LONGLONG>(r) + 1, 1, 1, &status);
+        break;
+      }
+      case ColumnType::kText: {
+        // Raw bytes padded with NUL, as astropy writes them: cfitsio would pad with blanks,
+        // which astropy then hands its users as part of the value.
+        std::size_t width = field_width(col, forms[c]);
+        std::vector<unsigned char> buf(width);
+        for (std::size_t r = 0; r < col.size() && status == 0; ++r) {
+          std::fill(buf.begin(), buf.end(), 0);
+          if (!col.is_null(r)) std::copy(col.text[r].begin(), col.text[r].end(), buf.begin());
+          fits_write_tblbytes(f, static_cast<LONGLONG>(r) + 1, static_cast<LONGLONG>(offsets[c]) + 1,
+                              static_cast<LONGLONG>(width), buf.data(), &status);
+        }
+        break;
+      }
+    }
+    if (status) throw_write_status(status, path, "writing column " + col.name);
+  }
+  for (const auto& k : t.header()) write_keyword(f, k, path);
+}
+
+SourceTable read_fits_table_unchecked(const std::string& path, const FitsHduChoice& hdu);
+
+struct FitsFileCloser {
+  void operator()(fitsfile* f) const {
+    int status = 0;
+    if (f) fits_close_file(f, &status);
+  }
+};
+
+}  // namespace
+
+SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu) {
+  if (!std::filesystem::is_regular_file(path))
+    throw InputError({path, {}, {}}, "unreadable_file", "no such file");
+  try {
+    return read_fits_table_unchecked(path, hdu);
+  } catch (const InputError& e) {
+    // FITS files are whole 2880-byte blocks; a file that is not was cut short.
+    if (std::filesystem::file_size(path) % 2880 == 0) throw;
+    throw InputError(e.where(), e.rule(), e.detail() + fmt::format(" (the file is {} bytes, not a multiple of 2880: truncated?)", std::filesystem::file_size(path)));
+  }
+}
+
+namespace {
+SourceTable read_fits_table_unchecked(const std::string& path, const FitsHduChoice& hdu) {
+  // CCfits opens the file and checks the primary header; cfitsio does the null-aware reads.
+  std::unique_ptr<CCfits::FITS> fits;
+  try {
+    CCfits::FITS::setVerboseMode(false);
+    fits = std::make_unique<CCfits::FITS>(path, CCfits::Read, false);
+  } catch (const CCfits::FitsException& e) {
+    throw InputError({path, {}, {}}, "fits_read", "not a readable FITS file: " + e.message());
+  }
+  fitsfile* f = fits->fitsPointer();
+  move_to_hdu(f, path, hdu);
+
+  SourceTable out;
+  out.file = path;
+  int status = 0, ncols = 0;
+  LONGLONG nrows = 0;
+  fits_get_num_rowsll(f, &nrows, &status);
+  fits_get_num_cols(f, &ncols, &status);
+  check_status(status, path, "reading the table size");
+  for (int c = 1; c <= ncols; ++c) read_column(f, path, c, nrows, out);
+  read_header_keywords(f, path, out.table);
+  for (LONGLONG r = 1; r <= nrows; ++r) out.source_rows.push_back(r);
+  return out;
+}
+}  // namespace
+
+void write_fits_tables(const std::string& path, const std::vector<NamedTable>& tables) {
+  AtomicOutput out(path);
+  int status = 0;
+  fitsfile* raw = nullptr;
+  // A leading '!' would tell cfitsio to overwrite; the temp name is new, so none is needed.
+  fits_create_file(&raw, out.temp_path().c_str(), &status);
+  if (status) throw_write_status(status, path, "creating the file");
+  std::unique_ptr<fitsfile, FitsFileCloser> f(raw);
+  fits_create_img(raw, BYTE_IMG, 0, nullptr, &status);
+  if (status) throw_write_status(status, path, "writing the primary HDU");
+  for (const auto& [name, table] : tables) write_one_table(raw, name, *table, path);
+  fits_close_file(f.release(), &status);
+  if (status) throw_write_status(status, path, "closing the file");
+  out.commit();
+}
+
+}  // namespace rungcal

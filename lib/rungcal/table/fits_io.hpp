@@ -1,0 +1,36 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "rungcal/table/source_table.hpp"
+
+namespace rungcal {
+
+// Which binary-table HDU to read: by EXTNAME, or by index (1 = first extension), or the
+// first binary table when neither is given.
+struct FitsHduChoice {
+  std::string name;  // EXTNAME; wins over index when both are set
+  int index = 0;     // 1-based extension number, 0 = first binary table
+};
+
+// Reads one binary-table HDU. Real columns: NaN is null. Integer columns: TNULLn is null.
+// Logical columns: the FITS null byte is null. Text columns: an all-blank value is null.
+// Units come from TUNITn, header keywords (other than the table structure) into header().
+// Vector columns are listed in unusable_columns. Throws InputError: "unreadable_file",
+// "fits_read" (truncated or corrupt file, cfitsio's message included), "fits_hdu" (no such
+// HDU, or not a binary table), "empty_file".
+SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu = {});
+
+// A table and the EXTNAME it is written under.
+using NamedTable = std::pair<std::string, const StarTable*>;
+
+// Writes tables as binary-table extensions after an empty primary HDU, each with its units
+// (TUNITn), column descriptions (TTYPEn comments), header keywords, and for integer columns
+// TNULLn. Keyword names longer than 8 characters are written with the HIERARCH convention,
+// long string values with the LONGSTRN convention. Atomic: temp file, fsync, rename.
+void write_fits_tables(const std::string& path, const std::vector<NamedTable>& tables);
+
+}  // namespace rungcal

@@ -1,0 +1,57 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "rungcal/core/enum_table.hpp"
+#include "rungcal/table/source_table.hpp"
+
+namespace rungcal {
+
+// How fields are separated in a delimited text table.
+enum class Delimiter {
+  kComma,       // "," with RFC 4180 double quotes
+  kTab,         // one tab
+  kSemicolon,   // ";"
+  kPipe,        // "|"
+  kWhitespace,  // any run of spaces or tabs
+  kMultiSpace,  // two or more spaces, or a tab: names with single spaces stay whole
+};
+inline constexpr EnumTable<Delimiter, 6> kDelimiterNames{{{
+    {Delimiter::kComma, "comma"},
+    {Delimiter::kTab, "tab"},
+    {Delimiter::kSemicolon, "semicolon"},
+    {Delimiter::kPipe, "pipe"},
+    {Delimiter::kWhitespace, "whitespace"},
+    {Delimiter::kMultiSpace, "multispace"},
+}}};
+
+struct TextReadOptions {
+  Delimiter delimiter = Delimiter::kComma;  // field separator
+  bool has_header = true;                   // a line names the columns
+  std::string header_prefix;    // the header line starts with this (e.g. "#"), which is cut off
+  std::string comment_prefix = "#";  // other lines starting with this are skipped
+  std::size_t skip_lines = 0;        // lines skipped before anything else
+  // Field values that mean "no value" (compared after trimming); an empty field always does.
+  std::vector<std::string> missing = {"NaN", "nan"};
+  std::vector<std::string> column_names;  // names for a headerless file, in order
+
+  // "" when usable, else the broken rule ("column_names: required when has_header is false").
+  std::string check() const;
+};
+
+// Reads a delimited text table: every column comes back as text (typing happens when the
+// columns are mapped). A UTF-8 byte-order mark is dropped, CRLF and a missing final newline
+// are accepted. Throws InputError: "unreadable_file", "empty_file", "encoding" (UTF-16/32 or
+// NUL bytes), "field_count", "duplicate_column", "unterminated_quote".
+SourceTable read_text_table(const std::string& path, const TextReadOptions& options);
+SourceTable parse_text_table(const std::string& content, const std::string& name,
+                             const TextReadOptions& options);
+
+// Writes a table as CSV (comma, RFC 4180 quoting, header line, empty field for null), with
+// the header keywords as leading "# key = value" lines. Atomic (temp file + rename).
+void write_csv_table(const StarTable& table, const std::string& path);
+std::string format_csv_table(const StarTable& table);
+
+}  // namespace rungcal

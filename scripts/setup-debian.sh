@@ -1,0 +1,28 @@
+#!/usr/bin/env bash
+# SPDX-License-Identifier: MIT
+# Installs the Debian packages rungcal needs, only those that are missing.
+# Usage: scripts/setup-debian.sh [build|test]
+#   build: compiler, CMake and the C++ libraries (enough for the demo)
+#   test : the above plus Debian's Python reference libraries used by the tests
+set -euo pipefail
+mode=${1:-build}
+
+build_pkgs=(g++ cmake make pkg-config git libceres-dev libeigen3-dev libccfits-dev
+  libcfitsio-dev libspdlog-dev libfmt-dev libgtest-dev libgmock-dev libcli11-dev
+  libtomlplusplus-dev nlohmann-json3-dev libssl-dev)
+test_pkgs=(python3 python3-numpy python3-astropy python3-scipy python3-extinction
+  python3-statsmodels)
+
+pkgs=("${build_pkgs[@]}")
+[ "$mode" = test ] && pkgs+=("${test_pkgs[@]}")
+
+missing=()
+for p in "${pkgs[@]}"; do
+  dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing+=("$p")
+done
+if [ ${#missing[@]} -gt 0 ]; then
+  echo "setup: installing ${missing[*]}" >&2
+  export DEBIAN_FRONTEND=noninteractive
+  apt-get update -qq
+  apt-get install -y -qq --no-install-recommends "${missing[@]}" >/dev/null
+fi

@@ -1,0 +1,120 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/core: errors, provenance hashes, atomic writes, config reading.
+#include <gtest/gtest.h>
+
+#include <filesystem>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/provenance.hpp"
+#include "test_util.hpp"
+
+namespace rungcal {
+namespace {
+
+TEST(Error, MessageNamesFileRowColumnAndRule) {
+  InputError e({"cat.csv", 12, "parallax", "line"}, "not_a_number", "'abc' is not a number");
+  EXPECT_STREQ(e.what(), "cat.csv:line 12: column 'parallax': [not_a_number] 'abc' is not a number");
+  EXPECT_EQ(e.rule(), "not_a_number");
+}
+
+TEST(Error, ExitCodesAreTheDocumentedValues) {
+  // docs/exit-codes.md: scripts rely on these numbers.
+  EXPECT_EQ(static_cast<int>(ExitCode::kSuccess), 0);
+  EXPECT_EQ(static_cast<int>(ExitCode::kInternalError), 1);
+  EXPECT_EQ(static_cast<int>(ExitCode::kBadInput), 2);
+  EXPECT_EQ(static_cast<int>(ExitCode::kNothingToDo), 3);
+  EXPECT_EQ(static_cast<int>(ExitCode::kDriftAlarm), 4);
+  EXPECT_EQ(static_cast<int>(ExitCode::kBusy), 5);
+  EXPECT_STREQ(exit_code_name(ExitCode::kBadInput), "bad_input");
+}
+
+TEST(Provenance, Sha256MatchesFips180TestVectors) {
+  // FIPS 180-4 / NIST CSRC example values for SHA-256.
+  EXPECT_EQ(sha256_hex("abc"), "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
+  EXPECT_EQ(sha256_hex(""), "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855");
+}
+
+TEST(Provenance, FileHashEqualsStringHash) {
+  test::TempDir dir;
+  test::write_text(dir.file("a.txt"), "abc");
+  EXPECT_EQ(sha256_file(dir.file("a.txt")), sha256_hex("abc"));
+  EXPECT_THROW(sha256_file(dir.file("missing.txt")), InputError);
+}
+
+TEST(Provenance, UtcTimeIsIso8601) {
+  std::string t = utc_now_iso8601();
+  ASSERT_EQ(t.size(), 20u);
+  EXPECT_EQ(t[4], '-');
+  EXPECT_EQ(t[10], 'T');
+  EXPECT_EQ(t.back(), 'Z');
+}
+
+TEST(AtomicOutput, CommitReplacesAndLeavesNoTemporaryFile) {
+  test::TempDir dir;
+  write_file_atomically(dir.file("x.txt"), "old");
+  write_file_atomically(dir.file("x.txt"), "new");
+  EXPECT_EQ(test::read_text(dir.file("x.txt")), "new");
+  int files = 0;
+  for (const auto& e : std::filesystem::directory_iterator(dir.path())) (void)e, ++files;
+  EXPECT_EQ(files, 1);
+}
+
+TEST(AtomicOutput, AbandonedOutputRemovesItsTemporaryFileAndKeepsTheOld) {
+  test::TempDir dir;
+  write_file_atomically(dir.file("x.txt"), "old");
+  std::string temp;
+  {
+    AtomicOutput out(dir.file("x.txt"));
+    temp = out.temp_path();
+    test::write_text(temp, "half");
+  }
+  EXPECT_FALSE(test::file_exists(temp));
+  EXPECT_EQ(test::read_text(dir.file("x.txt")), "old");
+}
+
+TEST(Config, UnknownKeyIsNamedWithItsLine) {
+  Config c = Config::from_string("[source]\npath = \"a\"\ndelimter = \"comma\"\n", "x.toml");
+  auto src = c.root().section("source");
+  ASSERT_TRUE(src);
+  EXPECT_EQ(src->require_string("path"), "a");
+  try {
+    c.check_unknown_keys();
+    FAIL() << "expected an error";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "unknown_config_key");
+    EXPECT_EQ(e.where().column, "source.delimter");
+    EXPECT_EQ(e.where().row, 3);
+  }
+}
+
+TEST(Config, TypeErrorsNameTheKey) {
+  Config c = Config::from_string("n = \"three\"\n", "x.toml");
+  try {
+    (void)c.root().get_number("n");
+    FAIL() << "expected an error";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "config_value");
+    EXPECT_NE(std::string(e.what()).find("must be a number"), std::string::npos);
+  }
+}
+
+TEST(Config, SyntaxErrorNamesTheLine) {
+  try {
+    Config::from_string("a = 1\nb = [1, \n", "bad.toml");
+    FAIL() << "expected an error";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "config_syntax");
+    EXPECT_TRUE(e.where().row.has_value());
+  }
+}
+
+TEST(Config, RelativePathsResolveAgainstTheConfigFolder) {
+  Config c = Config::from_string("", "/data/cfg/run.toml");
+  EXPECT_EQ(c.resolve_path("in/cat.csv"), "/data/cfg/in/cat.csv");
+  EXPECT_EQ(c.resolve_path("/abs/cat.csv"), "/abs/cat.csv");
+}
+
+}  // namespace
+}  // namespace rungcal

@@ -1,0 +1,218 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/table: star table, delimited text and FITS readers/writers, units.
+// FITS interchange is checked against astropy (Debian python3-astropy) in both directions.
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/table/fits_io.hpp"
+#include "rungcal/table/text_io.hpp"
+#include "rungcal/table/units.hpp"
+#include "test_util.hpp"
+
+namespace rungcal {
+namespace {
+
+std::string rule_of(const std::function<void()>& f) {
+  try {
+    f();
+  } catch (const InputError& e) {
+    return e.rule();
+  }
+  return "";
+}
+
+TEST(StarTable, SelectRowsKeepsTypesAndNulls) {
+  StarTable t;
+  t.add_column("x", ColumnType::kReal, "mag");
+  t.add_column("n", ColumnType::kInteger);
+  t.column("x").push_real(1.5);
+  t.column("x").push_null();
+  t.column("n").push_integer(7);
+  t.column("n").push_integer(8);
+  StarTable s = t.select_rows({1, 0});
+  EXPECT_TRUE(s.column("x").is_null(0));
+  EXPECT_DOUBLE_EQ(s.column("x").real[1], 1.5);
+  EXPECT_EQ(s.column("n").integer[0], 8);
+  EXPECT_EQ(s.column("x").unit, "mag");
+}
+
+TEST(TextReader, CrlfBomCommentsAndMissingMarkers) {
+  TextReadOptions o;
+  o.missing = {"xxx", "---", "...", "\xE2\x80\xA6"};  // the last is the Unicode ellipsis
+  auto t = parse_text_table("\xEF\xBB\xBFid,mag\r\n# a comment\r\nA,1.5\r\nB,xxx\r\nC,\xE2\x80\xA6\r\nD,---\r\nE,...", "x.csv", o);
+  ASSERT_EQ(t.table.rows(), 5u);
+  EXPECT_EQ(t.table.column("id").text[0], "A");  // BOM gone from the first name
+  EXPECT_EQ(t.table.column("mag").text[0], "1.5");
+  for (std::size_t r = 1; r < 5; ++r) EXPECT_TRUE(t.table.column("mag").is_null(r)) << r;
+  EXPECT_EQ(t.source_rows[0], 3);  // line numbers count the header and comment lines
+  EXPECT_EQ(t.source_rows[4], 7);
+}
+
+TEST(TextReader, MultispaceKeepsNamesWithSingleSpaces) {
+  TextReadOptions o;
+  o.delimiter = Delimiter::kMultiSpace;
+  o.header_prefix = "#";
+  auto t = parse_text_table("#Name  P  mag\nAA GEM  10.3  7.1\nX  CYG  1\n", "x.txt", o);
+  EXPECT_EQ(t.table.column("Name").text[0], "AA GEM");
+  EXPECT_EQ(t.table.column("Name").text[1], "X");
+  EXPECT_EQ(t.table.column("P").text[1], "CYG");
+}
+
+TEST(TextReader, QuotedCsvFields) {
+  TextReadOptions o;
+  auto t = parse_text_table("id,note\n\"A, b\",\"say \"\"hi\"\"\"\n", "x.csv", o);
+  EXPECT_EQ(t.table.column("id").text[0], "A, b");
+  EXPECT_EQ(t.table.column("note").text[0], "say \"hi\"");
+}
+
+TEST(TextReader, HeaderlessFileTakesNamesFromOptions) {
+  TextReadOptions o;
+  o.has_header = false;
+  o.column_names = {"a", "b"};
+  auto t = parse_text_table("1,2\n3,4", "x.csv", o);  // no final newline
+  ASSERT_EQ(t.table.rows(), 2u);
+  EXPECT_EQ(t.table.column("b").text[1], "4");
+  o.column_names.clear();
+  EXPECT_EQ(rule_of([&] { parse_text_table("1,2\n", "x.csv", o); }), "config_value");
+}
+
+TEST(TextReader, BadFilesNameTheirRule) {
+  TextReadOptions o;
+  EXPECT_EQ(rule_of([&] { parse_text_table("", "x.csv", o); }), "empty_file");
+  EXPECT_EQ(rule_of([&] { parse_text_table("id,a\n", "x.csv", o); }), "empty_file");
+  EXPECT_EQ(rule_of([&] { parse_text_table("id,a\n1,2,3\n", "x.csv", o); }), "field_count");
+  EXPECT_EQ(rule_of([&] { parse_text_table("id,id\n1,2\n", "x.csv", o); }), "duplicate_column");
+  EXPECT_EQ(rule_of([&] { parse_text_table("id,a\n\"1,2\n", "x.csv", o); }), "unterminated_quote");
+  EXPECT_EQ(rule_of([&] { parse_text_table(std::string("\xFF\xFEi\0d\0", 6), "x.csv", o); }), "encoding");
+  EXPECT_EQ(rule_of([&] { parse_text_table(std::string("id\n\0\n", 5), "x.csv", o); }), "encoding");
+  try {
+    parse_text_table("id,a\n1,2\n3\n", "cat.csv", o);
+  } catch (const InputError& e) {
+    EXPECT_EQ(std::string(e.what()), "cat.csv:line 3: [field_count] 1 fields where the header has 2 columns");
+  }
+}
+
+TEST(Units, ConversionsToCanonicalUnits) {
+  EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kParallax, "arcsec")->apply(0.001), 1.0);
+  EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kParallax, "uas")->apply(1500.0), 1.5);
+  EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kPeriod, "log_d")->apply(1.0), 10.0);
+  EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kPeriod, "h")->apply(12.0), 0.5);
+  EXPECT_NEAR(unit_conversion(QuantityKind::kAngle, "rad")->apply(M_PI), 180.0, 1e-12);
+  EXPECT_FALSE(unit_conversion(QuantityKind::kParallax, "pc").has_value());
+}
+
+StarTable sample_table() {
+  StarTable t;
+  t.add_column("id", ColumnType::kText);
+  t.add_column("parallax_mas", ColumnType::kReal, "mas", "trigonometric parallax");
+  t.add_column("nobs", ColumnType::kInteger);
+  t.add_column("flag", ColumnType::kBoolean);
+  const char* ids[] = {"A 1", "B", "C"};
+  double plx[] = {1.25, -0.3, std::nan("")};
+  for (int i = 0; i < 3; ++i) {
+    t.column("id").push_text(ids[i]);
+    t.column("parallax_mas").push_real(plx[i]);
+    if (i == 1) t.column("nobs").push_null(); else t.column("nobs").push_integer(10 + i);
+    if (i == 2) t.column("flag").push_null(); else t.column("flag").push_boolean(i == 0);
+  }
+  t.set_keyword("RGSTAGE", std::string("test"), "stage");
+  t.set_keyword("RGINP01", std::string(100, 'p'), "a long path");
+  t.set_keyword("RGNINPUT", std::int64_t{1});
+  return t;
+}
+
+TEST(Fits, RoundTripKeepsValuesUnitsNullsAndKeywords) {
+  test::TempDir dir;
+  StarTable t = sample_table();
+  write_fits_tables(dir.file("t.fits"), {{"CATALOG", &t}});
+  SourceTable back = read_fits_table(dir.file("t.fits"), {"CATALOG", 0});
+  ASSERT_EQ(back.table.rows(), 3u);
+  EXPECT_EQ(back.table.column("id").text[0], "A 1");
+  EXPECT_DOUBLE_EQ(back.table.column("parallax_mas").real[1], -0.3);
+  EXPECT_TRUE(back.table.column("parallax_mas").is_null(2));
+  EXPECT_EQ(back.table.column("parallax_mas").unit, "mas");
+  EXPECT_TRUE(back.table.column("nobs").is_null(1));
+  EXPECT_EQ(back.table.column("nobs").integer[2], 12);
+  EXPECT_TRUE(back.table.column("flag").is_null(2));
+  EXPECT_EQ(back.table.column("flag").boolean[0], 1);
+  ASSERT_NE(back.table.keyword("RGINP01"), nullptr);
+  EXPECT_EQ(std::get<std::string>(back.table.keyword("RGINP01")->value), std::string(100, 'p'));
+}
+
+TEST(Fits, AstropyReadsWhatRungcalWrites) {
+  // Reference: astropy.table.Table.read (Debian python3-astropy).
+  test::TempDir dir;
+  StarTable t = sample_table();
+  write_fits_tables(dir.file("t.fits"), {{"CATALOG", &t}});
+  auto r = test::run_python(R"(
+import sys, math
+from astropy.table import Table
+from astropy.io import fits
+t = Table.read(sys.argv[1], hdu="CATALOG")
+h = fits.getheader(sys.argv[1], "CATALOG")
+print(list(t["id"]), [None if v is None or (hasattr(t["parallax_mas"], "mask") and t["parallax_mas"].mask[i]) or math.isnan(v) else float(v) for i, v in enumerate(t["parallax_mas"])])
+print(str(t["parallax_mas"].unit), list(t["nobs"].mask), h["RGSTAGE"], len(h["RGINP01"]))
+)", {dir.file("t.fits")});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_NE(r.output.find("['A 1', 'B', 'C'] [1.25, -0.3, None]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("mas [False, True, False] test 100"), std::string::npos) << r.output;
+}
+
+TEST(Fits, RungcalReadsWhatAstropyWrites) {
+  // Reference: astropy.table.Table.write with units, a masked integer column (TNULL) and NaN.
+  test::TempDir dir;
+  auto r = test::run_python(R"(
+import sys, numpy as np
+from astropy.table import Table, MaskedColumn
+import astropy.units as u
+t = Table()
+t["name"] = ["V1", "V2", "V3"]
+t["plx"] = np.array([0.5, np.nan, -0.125]) * u.mas
+t["plx_uas"] = np.array([500.0, 10.0, -125.0]) * u.uas
+t["n"] = MaskedColumn([3, 4, 5], mask=[False, True, False], dtype=np.int32)
+t["P"] = np.array([3.5, 10.0, 20.25], dtype=np.float32) * u.d
+t.meta["OBSERVAT"] = "Mount Vellin"
+t.write(sys.argv[1], format="fits")
+)", {dir.file("a.fits")});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  SourceTable t = read_fits_table(dir.file("a.fits"));
+  ASSERT_EQ(t.table.rows(), 3u);
+  EXPECT_EQ(t.table.column("name").text[2], "V3");
+  EXPECT_DOUBLE_EQ(t.table.column("plx").real[0], 0.5);
+  EXPECT_TRUE(t.table.column("plx").is_null(1));
+  EXPECT_DOUBLE_EQ(t.table.column("plx").real[2], -0.125);
+  EXPECT_EQ(t.table.column("plx").unit, "mas");
+  // astropy writes micro-arcsec as "10**-6 arcsec"; rungcal's unit table knows that spelling.
+  EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kParallax, t.table.column("plx_uas").unit)->apply(500.0), 0.5);
+  EXPECT_EQ(t.table.column("n").type, ColumnType::kInteger);
+  EXPECT_TRUE(t.table.column("n").is_null(1));
+  EXPECT_EQ(t.table.column("n").integer[2], 5);
+  EXPECT_DOUBLE_EQ(t.table.column("P").real[2], 20.25);
+  EXPECT_EQ(std::get<std::string>(t.table.keyword("OBSERVAT")->value), "Mount Vellin");
+}
+
+TEST(Fits, BadFilesNameTheirRule) {
+  test::TempDir dir;
+  StarTable t = sample_table();
+  write_fits_tables(dir.file("t.fits"), {{"CATALOG", &t}});
+  std::string bytes = test::read_text(dir.file("t.fits"));
+  test::write_text(dir.file("trunc.fits"), bytes.substr(0, bytes.size() - 2000));  // inside the data
+  EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("trunc.fits")); }), "fits_read");
+  test::write_text(dir.file("trunc_header.fits"), bytes.substr(0, 4000));  // inside the table header
+  try {
+    read_fits_table(dir.file("trunc_header.fits"));
+    ADD_FAILURE() << "expected an error";
+  } catch (const InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("truncated"), std::string::npos) << e.what();
+  }
+  test::write_text(dir.file("text.fits"), "id,a\n1,2\n");
+  EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("text.fits")); }), "fits_read");
+  EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("t.fits"), {"NOPE", 0}); }), "fits_hdu");
+  EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("t.fits"), {"", 5}); }), "fits_hdu");
+  EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("none.fits")); }), "unreadable_file");
+}
+
+}  // namespace
+}  // namespace rungcal
