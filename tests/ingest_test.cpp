@@ -1,0 +1,360 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/ingest and pipeline/rungcal-ingest: the published reference tables
+// ingest through config/reference/*.toml, rows break named rules, bad inputs stop cleanly.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <filesystem>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/ingest/ingest.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+#include "test_util.hpp"
+
+namespace fs = std::filesystem;
+
+namespace rungcal {
+namespace {
+
+IngestResult ingest_reference(const std::string& config_name, const std::string& out) {
+  IngestOptions o = ingest_options_from_file(test::source_file("config/reference/" + config_name));
+  o.catalog_path = out;
+  IngestResult r = run_ingest(o);
+  write_ingest_products(r, o);
+  return r;
+}
+
+std::size_t row_of(const StarTable& t, const std::string& id) {
+  const Column& c = t.column(col::kId);
+  for (std::size_t i = 0; i < c.size(); ++i)
+    if (c.text[i] == id) return i;
+  return t.rows();
+}
+
+TEST(IngestReference, MilkyWayCepheidsHstGaiaDr2) {
+  // Riess et al. 2018, ApJ 861, 126: 50 stars, 4 with FinalAnalysisFlag = 1 (RW CAM, RY VEL,
+  // SV PER, T MON), whitespace table with '#' header, CRLF, "xxx" missing.
+  test::TempDir dir;
+  IngestResult r = ingest_reference("mw_cepheids_hst_gaiadr2.toml", dir.file("mw.fits"));
+  EXPECT_EQ(r.rows_read, 50u);
+  EXPECT_EQ(r.catalog.rows(), 46u);
+  ASSERT_EQ(r.rejected.size(), 4u);
+  std::vector<std::string> flagged;
+  for (const auto& rej : r.rejected) {
+    EXPECT_EQ(rej.rule, "selection");
+    flagged.push_back(rej.id);
+  }
+  EXPECT_EQ(flagged, (std::vector<std::string>{"RW CAM", "RY VEL", "SV PER", "T MON"}));
+  // Values as in the file (line 2, AA GEM): LogPeriod 1.053, parallax 0.18780788545791 mas,
+  // F160W 7.348 +- 0.017, mWH 6.871.
+  std::size_t aa = row_of(r.catalog, "AA GEM");
+  ASSERT_LT(aa, r.catalog.rows());
+  EXPECT_NEAR(r.catalog.column(col::kLogPeriod).real[aa], 1.053, 1e-12);
+  EXPECT_NEAR(r.catalog.column(col::kPeriod).real[aa], std::pow(10.0, 1.053), 1e-9);
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kParallax).real[aa], 0.18780788545791);
+  EXPECT_DOUBLE_EQ(r.catalog.column("mag_F160W").real[aa], 7.348);
+  EXPECT_DOUBLE_EQ(r.catalog.column("mag_err_F160W").real[aa], 0.017);
+  EXPECT_DOUBLE_EQ(r.catalog.column("mag_W_H").real[aa], 6.871);
+  EXPECT_EQ(r.catalog.column("astrometric_params").integer[aa], 5);  // Gaia's 31 = 5-parameter
+  EXPECT_EQ(r.catalog.column(col::kMode).text[aa], "fundamental");
+  // "xxx" becomes null: AA GEM has no a_g_val; its G magnitude is present.
+  EXPECT_FALSE(r.catalog.column("gaia_g_mag").is_null(aa));
+}
+
+TEST(IngestReference, RRLyraeDistancePriors) {
+  // Klein & Bloom 2014, MNRAS 440, L96, Table 1: 134 stars, tab-separated, "---" missing.
+  // Six stars have none of V, J, H, K, W1 and are rejected as "no_photometry".
+  test::TempDir dir;
+  IngestResult r = ingest_reference("rrlyrae_distance_priors.toml", dir.file("rr.fits"));
+  EXPECT_EQ(r.rows_read, 134u);
+  EXPECT_EQ(r.catalog.rows(), 128u);
+  for (const auto& rej : r.rejected) EXPECT_EQ(rej.rule, "no_photometry") << rej.id;
+  std::size_t k_count = 0;
+  const Column& k = r.catalog.column("mag_K");
+  for (std::size_t i = 0; i < k.size(); ++i) k_count += k.is_null(i) ? 0 : 1;
+  EXPECT_EQ(k_count, 22u);  // the README of the reference data: 22 have K
+  // First row of the file: AACMi, RRab, P = 0.4763 d, [Fe/H] = -0.15, mu prior 10.4730 +- 0.1384.
+  std::size_t aa = row_of(r.catalog, "AACMi");
+  EXPECT_EQ(r.catalog.column(col::kMode).text[aa], "fundamental");
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kPeriod).real[aa], 0.4763);
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kFeh).real[aa], -0.15);
+  EXPECT_DOUBLE_EQ(r.catalog.column("mu_mag").real[aa], 10.4730);
+  EXPECT_DOUBLE_EQ(r.catalog.column("mu_err_mag").real[aa], 0.1384);
+  std::size_t ae = row_of(r.catalog, "AEBoo");
+  EXPECT_EQ(r.catalog.column(col::kMode).text[ae], "first_overtone");  // RRc
+}
+
+TEST(IngestReference, LmcFundamentalCepheidsHeaderless) {
+  // OGLE-IV LMC fundamental-mode Cepheids (Soszynski et al. 2015, Acta Astron. 65, 297):
+  // 2,477 rows, no header, "-" missing, 2,315 with both V and I.
+  test::TempDir dir;
+  IngestResult r = ingest_reference("lmc_fundamental_cepheids.toml", dir.file("lmc.fits"));
+  EXPECT_EQ(r.rows_read, 2477u);
+  std::size_t both = 0;
+  const Column& v = r.catalog.column("mag_V");
+  const Column& i = r.catalog.column("mag_I");
+  for (std::size_t k = 0; k < r.catalog.rows(); ++k) both += (!v.is_null(k) && !i.is_null(k)) ? 1 : 0;
+  EXPECT_EQ(both, 2315u);
+  EXPECT_EQ(r.catalog.rows() + r.rejected.size(), 2477u);
+  // Last line of the file (no final newline): OGLE-LMC-CEP-4712, I 15.372, V 16.087, P 2.7551528 d.
+  std::size_t last = row_of(r.catalog, "OGLE-LMC-CEP-4712");
+  ASSERT_LT(last, r.catalog.rows());
+  EXPECT_DOUBLE_EQ(r.catalog.column("mag_I").real[last], 15.372);
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kPeriod).real[last], 2.7551528);
+  EXPECT_EQ(r.catalog.column(col::kSourceRow).integer[last], 2477);
+}
+
+TEST(IngestReference, AstropyOpensEveryCatalogWithUnitsAndProvenance) {
+  test::TempDir dir;
+  for (const char* c : {"mw_cepheids_hst_gaiadr2.toml", "rrlyrae_distance_priors.toml", "lmc_fundamental_cepheids.toml"})
+    ingest_reference(c, dir.file(std::string(c) + ".fits"));
+  auto r = test::run_python(R"(
+import sys, warnings
+from astropy.table import Table
+from astropy.io import fits
+warnings.simplefilter("error")  # a unit astropy cannot parse fails the check
+for path in sys.argv[1:]:
+    t = Table.read(path, hdu="CATALOG")
+    rej = Table.read(path, hdu="REJECTS")
+    h = fits.getheader(path, "CATALOG")
+    print(len(t), len(rej), str(t["period_d"].unit), h["RGSTAGE"], h["RGPRODUC"], len(h["RGSHA01"]), h["RGSCHEMA"])
+)", {dir.file("mw_cepheids_hst_gaiadr2.toml.fits"), dir.file("rrlyrae_distance_priors.toml.fits"),
+     dir.file("lmc_fundamental_cepheids.toml.fits")});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_NE(r.output.find("46 4 d ingest catalog 64 1"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("128 6 d ingest catalog 64 1"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("2464 13 d ingest catalog 64 1"), std::string::npos) << r.output;
+}
+
+std::string replace_all_for_test(std::string s, const std::string& from, const std::string& to) {
+  for (auto p = s.find(from); p != std::string::npos; p = s.find(from, p + to.size())) s.replace(p, from.size(), to);
+  return s;
+}
+
+// A small valid CSV and a config for it; cases below break one thing each.
+const char* kGoodCsv =
+    "id,P,plx,plx_err,V,V_err,ebv,mode\n"
+    "S1,5.0,0.5,0.05,12.0,0.02,0.3,F\n"
+    "S2,10.0,-0.1,0.08,11.0,0.02,0.2,1O\n"
+    "S3,20.0,0.3,0.04,10.0,0.02,0.1,F\n";
+
+std::string config_for(const std::string& input, const std::string& out, const std::string& extra = "",
+                       const std::string& columns_extra = "") {
+  return "[source]\npath = \"" + input + "\"\n" + extra +
+         "\n[columns]\nid = \"id\"\nperiod = { column = \"P\", unit = \"d\" }\nparallax = \"plx\"\n"
+         "parallax_err = \"plx_err\"\nebv = \"ebv\"\nmode = \"mode\"\npulsator_class = { value = \"classical_cepheid\" }\n" +
+         columns_extra + "\n[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n\n[output]\ncatalog = \"" + out + "\"\n";
+}
+
+TEST(IngestRows, EachBrokenRuleRejectsItsRowAndNamesIt) {
+  test::TempDir dir;
+  test::write_text(dir.file("in.csv"),
+                   "id,P,plx,plx_err,V,V_err,ebv,mode\r\n"
+                   "S1,5.0,0.5,0.05,12.0,0.02,0.3,F\r\n"      // line 2: good
+                   "S1,6.0,0.5,0.05,12.0,0.02,0.3,F\r\n"      // duplicate_id
+                   "S3,-2,0.5,0.05,12.0,0.02,0.3,F\r\n"       // period_nonpositive
+                   "S4,5.0,0.5,0,12.0,0.02,0.3,F\r\n"         // parallax_error_nonpositive
+                   "S5,5.0,abc,0.05,12.0,0.02,0.3,F\r\n"      // not_a_number
+                   "S6,5.0,0.5,0.05,99.0,0.02,0.3,F\r\n"      // magnitude_out_of_range
+                   "S7,5.0,0.5,0.05,12.0,0.02,11.5,F\r\n"     // ebv_out_of_range
+                   "S8,5.0,0.5,0.05,12.0,0.02,0.3,3O\r\n"     // unknown_mode
+                   "S9,,0.5,0.05,12.0,0.02,0.3,F\r\n"         // missing_required
+                   "S10,5.0,inf,0.05,12.0,0.02,0.3,F\r\n"     // not_finite
+                   "S11,5.0,0.5,0.05,12.0,,0.3,F\r\n"         // missing_error
+                   "S12,5.0,0.5,0.05,12.0,-0.1,0.3,F\r\n"     // magnitude_error_nonpositive
+                   "S13,5.0,-0.7,0.05,12.0,0.02,0.3,1O\r\n"); // good: negative parallaxes are data
+  test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits"));
+  IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
+  o.text.missing = {};  // "inf" must be read as a number to be refused as not finite
+  IngestResult r = run_ingest(o);
+  ASSERT_EQ(r.catalog.rows(), 2u);
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kParallax).real[1], -0.7);
+  EXPECT_EQ(r.catalog.column(col::kMode).text[1], "first_overtone");
+  std::vector<std::pair<std::int64_t, std::string>> got;
+  for (const auto& rej : r.rejected) got.emplace_back(rej.source_row, rej.rule);
+  std::vector<std::pair<std::int64_t, std::string>> want = {
+      {3, "duplicate_id"}, {4, "period_nonpositive"}, {5, "parallax_error_nonpositive"}, {6, "not_a_number"},
+      {7, "magnitude_out_of_range"}, {8, "ebv_out_of_range"}, {9, "unknown_mode"}, {10, "missing_required"},
+      {11, "not_finite"}, {12, "missing_error"}, {13, "magnitude_error_nonpositive"}};
+  EXPECT_EQ(got, want);
+  EXPECT_EQ(r.rejected[0].message, "id 'S1' was already used at line 2");
+  EXPECT_EQ(r.rejected[3].column, "plx");
+}
+
+TEST(IngestRows, NanInFitsIsMissingAndUnitsConvert) {
+  test::TempDir dir;
+  StarTable t;
+  t.add_column("id", ColumnType::kText);
+  t.add_column("P", ColumnType::kReal, "h");
+  t.add_column("plx", ColumnType::kReal, "arcsec");
+  t.add_column("plx_err", ColumnType::kReal, "arcsec");
+  t.add_column("V", ColumnType::kReal, "mag");
+  t.add_column("V_err", ColumnType::kReal, "mag");
+  t.add_column("ebv", ColumnType::kReal, "mag");
+  t.add_column("mode", ColumnType::kText);
+  auto row = [&](const char* id, double p, double plx, double v) {
+    t.column("id").push_text(id);
+    t.column("P").push_real(p);
+    t.column("plx").push_real(plx);
+    t.column("plx_err").push_real(5e-5);
+    t.column("V").push_real(v);
+    t.column("V_err").push_real(0.01);
+    t.column("ebv").push_real(0.1);
+    t.column("mode").push_text("F");
+  };
+  row("A", 120.0, 5e-4, 12.0);
+  row("B", std::nan(""), 5e-4, 12.0);
+  write_fits_tables(dir.file("in.fits"), {{"STARS", &t}});
+  // No unit in the config: the file's TUNIT (h, arcsec) is used.
+  test::write_text(dir.file("c.toml"), replace_all_for_test(config_for("in.fits", "cat.fits", "hdu = \"STARS\"\n"),
+                                                            "{ column = \"P\", unit = \"d\" }", "\"P\""));
+  IngestResult r = run_ingest(ingest_options_from_file(dir.file("c.toml")));
+  ASSERT_EQ(r.catalog.rows(), 1u);
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kPeriod).real[0], 5.0);      // 120 h
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kParallax).real[0], 0.5);    // 5e-4 arcsec
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kParallaxErr).real[0], 0.05);
+  ASSERT_EQ(r.rejected.size(), 1u);
+  EXPECT_EQ(r.rejected[0].rule, "missing_required");
+  EXPECT_EQ(r.rejected[0].source_row, 2);
+}
+
+// One whole-file failure: what to write, which rule and exit code to expect.
+struct BadCase {
+  const char* name;
+  std::string config;   // config text ("" = none written)
+  std::string input;    // input file content
+  std::string input_name = "in.csv";
+  std::string rule;     // expected [rule] in the message
+  int exit_code = 2;
+  std::string args;     // command-line args; default --config c.toml
+};
+
+BadCase bad(const char* name, std::string config, std::string input, std::string input_name,
+            std::string rule, int exit_code = 2, std::string args = "") {
+  return BadCase{name, std::move(config), std::move(input), std::move(input_name), std::move(rule), exit_code, std::move(args)};
+}
+
+std::vector<BadCase> bad_cases() {
+  const std::string good = kGoodCsv;
+  auto cfg = [](const std::string& extra = "", const std::string& cols = "") {
+    return config_for("in.csv", "out/cat.fits", extra, cols);
+  };
+  std::string base = cfg();
+  auto replace = [](std::string s, const std::string& from, const std::string& to) {
+    auto p = s.find(from);
+    if (p != std::string::npos) s.replace(p, from.size(), to);
+    return s;
+  };
+  std::vector<BadCase> v;
+  v.push_back(bad("config_missing", "", good, "in.csv", "unreadable_file"));
+  v.push_back(bad("config_syntax", "[source\npath = 1\n", good, "in.csv", "config_syntax"));
+  v.push_back(bad("unknown_key_typo", cfg("delimter = \"comma\"\n"), good, "in.csv", "unknown_config_key"));
+  v.push_back(bad("unknown_quantity", cfg("", "paralax = \"plx\"\n"), good, "in.csv", "unknown_config_key"));
+  v.push_back(bad("unknown_section", base + "\n[fitt]\nloss = \"huber\"\n", good, "in.csv", "unknown_config_key"));
+  v.push_back(bad("no_source_table", replace(base, "[source]\npath = \"in.csv\"\n", ""), good, "in.csv", "config_missing_key"));
+  v.push_back(bad("no_id_mapping", replace(base, "id = \"id\"\n", ""), good, "in.csv", "config_value"));
+  v.push_back(bad("no_mode_mapping", replace(base, "mode = \"mode\"\n", ""), good, "in.csv", "config_value"));
+  v.push_back(bad("bad_delimiter_name", cfg("delimiter = \"spaces\"\n"), good, "in.csv", "config_value"));
+  v.push_back(bad("wrong_key_type", cfg("header = \"yes\"\n"), good, "in.csv", "config_value"));
+  v.push_back(bad("hdu_on_text_source", cfg("hdu = 1\n"), good, "in.csv", "config_value"));
+  v.push_back(bad("reversed_magnitude_range", base + "\n[validate]\nmagnitude_range = [30, -5]\n", good, "in.csv", "config_value"));
+  v.push_back(bad("bad_mode_alias", base + "\n[modes]\nX = \"fundamentl\"\n", good, "in.csv", "config_value"));
+  v.push_back(bad("bad_select_op", base + "\n[[select]]\ncolumn = \"P\"\nop = \"=>\"\nvalue = 1\n", good, "in.csv", "config_value"));
+  v.push_back(bad("no_bands", replace(base, "[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n", ""), good, "in.csv", "config_value"));
+  v.push_back(bad("input_missing", replace(base, "in.csv", "nothere.csv"), good, "in.csv", "unreadable_file"));
+  v.push_back(bad("empty_file", base, "", "in.csv", "empty_file"));
+  v.push_back(bad("header_only", base, "id,P,plx,plx_err,V,V_err,ebv,mode\n", "in.csv", "empty_file"));
+  v.push_back(bad("missing_required_column", base, "id,Q,plx,plx_err,V,V_err,ebv,mode\nS1,5,0.5,0.05,12,0.02,0.3,F\n", "in.csv", "missing_column"));
+  v.push_back(bad("field_count", base, "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,5,0.5,0.05,12,0.02,0.3\n", "in.csv", "field_count"));
+  v.push_back(bad("utf16_bom", base, std::string("\xFF\xFE", 2) + good, "in.csv", "encoding"));
+  v.push_back(bad("nul_bytes", base, std::string("id,P\0\0\0", 7), "in.csv", "encoding"));
+  v.push_back(bad("duplicate_header_column", base, "id,P,plx,plx_err,V,V_err,ebv,mode,P\nS1,5,0.5,0.05,12,0.02,0.3,F,1\n", "in.csv", "duplicate_column"));
+  v.push_back(bad("unterminated_quote", base, "id,P,plx,plx_err,V,V_err,ebv,mode\n\"S1,5,0.5,0.05,12,0.02,0.3,F\n", "in.csv", "unterminated_quote"));
+  v.push_back(bad("bad_unit", replace(base, "unit = \"d\"", "unit = \"fortnight\""), good, "in.csv", "bad_unit"));
+  v.push_back(bad("wrong_type_text_parallax", base, "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,5,high,0.05,12,0.02,0.3,F\nS2,6,low,0.05,12,0.02,0.3,F\n", "in.csv", "column_type"));
+  v.push_back(bad("all_rows_rejected", base, "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,-5,0.5,0.05,12,0.02,0.3,F\nS2,0,0.5,0.05,12,0.02,0.3,F\n", "in.csv", "no_rows_left"));
+  v.push_back(bad("select_unknown_column", base + "\n[[select]]\ncolumn = \"flag\"\nvalue = 0\n", good, "in.csv", "missing_column"));
+  v.push_back(bad("extra_unknown_column", base + "\n[extra]\nq = \"quality\"\n", good, "in.csv", "missing_column"));
+  v.push_back(bad("fits_not_fits", replace(base, "path = \"in.csv\"", "path = \"in.fits\""), good, "in.fits", "fits_read"));
+  v.push_back(bad("output_under_a_file", replace(base, "out/cat.fits", "in.csv/cat.fits"), good, "in.csv", "write_failed"));
+  v.push_back(bad("cli_no_config", "", good, "in.csv", "", 2, " "));
+  v.push_back(bad("cli_unknown_option", base, good, "in.csv", "", 2, "--config c.toml --frobnicate"));
+  return v;
+}
+
+class IngestBadInput : public ::testing::TestWithParam<BadCase> {};
+
+TEST_P(IngestBadInput, StopsWithItsRuleAndExitCodeAndWritesNothing) {
+  const BadCase& c = GetParam();
+  test::TempDir dir;
+  if (!c.config.empty()) test::write_text(dir.file("c.toml"), c.config);
+  test::write_text(dir.file(c.input_name), c.input);
+  std::string args = c.args.empty() ? "--config " + dir.file("c.toml") : c.args;
+  if (args.find("c.toml") != std::string::npos && c.args.size()) args = "--config " + dir.file("c.toml") + args.substr(args.find("c.toml") + 6);
+  auto r = test::run_stage("ingest", args);
+  EXPECT_EQ(r.exit_code, c.exit_code) << r.output;
+  if (!c.rule.empty()) {
+    EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
+    // The message names the file it is about (the config or the input).
+    EXPECT_TRUE(r.output.find("c.toml") != std::string::npos || r.output.find(c.input_name) != std::string::npos ||
+                r.output.find("nothere.csv") != std::string::npos) << r.output;
+  }
+  EXPECT_FALSE(test::file_exists(dir.file("out"))) << "an output folder was left behind";
+  for (const auto& e : fs::recursive_directory_iterator(dir.path()))
+    EXPECT_EQ(e.path().string().find(".part"), std::string::npos) << e.path();
+}
+
+INSTANTIATE_TEST_SUITE_P(Cases, IngestBadInput, ::testing::ValuesIn(bad_cases()),
+                         [](const auto& case_info) { return std::string(case_info.param.name); });
+
+TEST(IngestBadInput, FitsCasesNameTheirRule) {
+  test::TempDir dir;
+  StarTable t;
+  t.add_column("id", ColumnType::kText);
+  t.add_column("P", ColumnType::kReal, "d");
+  t.add_column("plx", ColumnType::kReal, "arcsec");
+  t.add_column("plx_err", ColumnType::kReal, "mas");
+  t.add_column("V", ColumnType::kReal, "mag");
+  t.add_column("V_err", ColumnType::kReal, "mag");
+  t.add_column("ebv", ColumnType::kReal, "mag");
+  t.add_column("ok", ColumnType::kBoolean);
+  t.add_column("mode", ColumnType::kText);
+  for (int i = 0; i < 40; ++i) {
+    t.column("id").push_text("S" + std::to_string(i));
+    t.column("P").push_real(5.0 + i);
+    t.column("plx").push_real(5e-4);
+    t.column("plx_err").push_real(0.05);
+    t.column("V").push_real(12.0);
+    t.column("V_err").push_real(0.02);
+    t.column("ebv").push_real(0.2);
+    t.column("ok").push_boolean(true);
+    t.column("mode").push_text("F");
+  }
+  write_fits_tables(dir.file("in.fits"), {{"STARS", &t}});
+  auto run = [&](const std::string& name, const std::string& config) {
+    test::write_text(dir.file(name + ".toml"), config);
+    return test::run_stage("ingest", "--config " + dir.file(name + ".toml"));
+  };
+  // The file says arcsec, the config says mas: refuse rather than guess.
+  auto r = run("conflict", replace_all_for_test(config_for("in.fits", "out/a.fits"), "parallax = \"plx\"", "parallax = { column = \"plx\", unit = \"mas\" }"));
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("[unit_conflict]"), std::string::npos) << r.output;
+  // A logical column mapped to E(B-V).
+  r = run("logical", replace_all_for_test(config_for("in.fits", "out/b.fits"), "ebv = \"ebv\"", "ebv = \"ok\""));
+  EXPECT_NE(r.output.find("[column_type]"), std::string::npos) << r.output;
+  // No such HDU.
+  r = run("hdu", config_for("in.fits", "out/c.fits", "hdu = \"PHOTOMETRY\"\n"));
+  EXPECT_NE(r.output.find("[fits_hdu]"), std::string::npos) << r.output;
+  // Truncated file.
+  std::string bytes = test::read_text(dir.file("in.fits"));
+  test::write_text(dir.file("cut.fits"), bytes.substr(0, bytes.size() - 1500));
+  r = run("cut", config_for("cut.fits", "out/d.fits"));
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("[fits_read]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("truncated"), std::string::npos) << r.output;
+  EXPECT_FALSE(test::file_exists(dir.file("out")));
+}
+
+}  // namespace
+}  // namespace rungcal
