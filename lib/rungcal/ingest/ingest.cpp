@@ -464,8 +464,10 @@ IngestResult run_ingest(const IngestOptions& o) {
   std::vector<std::pair<Column*, Column*>> out_bands;
   std::string band_list;
   for (const auto& b : bands) {
-    out_bands.emplace_back(&cat.add_column(magnitude_column(b.band), ColumnType::kReal, "mag", "mean magnitude in " + b.band),
-                           &cat.add_column(magnitude_error_column(b.band), ColumnType::kReal, "mag", "error of mag_" + b.band));
+    // Two statements: the magnitude column must come before its error in the file.
+    Column* mag = &cat.add_column(magnitude_column(b.band), ColumnType::kReal, "mag", "mean magnitude in " + b.band);
+    Column* err = &cat.add_column(magnitude_error_column(b.band), ColumnType::kReal, "mag", "error of mag_" + b.band);
+    out_bands.emplace_back(mag, err);
     band_list += (band_list.empty() ? "" : ",") + b.band;
   }
   std::vector<Column*> out_extras;
@@ -474,16 +476,6 @@ IngestResult run_ingest(const IngestOptions& o) {
     out_extras.push_back(&cat.add_column(o.extras[i].name, src->type, o.extras[i].unit.empty() ? src->unit : o.extras[i].unit,
                                          "copied from input column " + o.extras[i].column));
   }
-  // add_column may reallocate: re-fetch the pointers by name.
-  c_id = &cat.column(col::kId);
-  c_row = &cat.column(col::kSourceRow);
-  c_period = &cat.column(col::kPeriod);
-  c_logp = &cat.column(col::kLogPeriod);
-  for (auto& [k, ptr] : out_q) ptr = &cat.column(std::string(find_quantity(k)->column));
-  for (std::size_t i = 0; i < bands.size(); ++i)
-    out_bands[i] = {&cat.column(magnitude_column(bands[i].band)), &cat.column(magnitude_error_column(bands[i].band))};
-  for (std::size_t i = 0; i < o.extras.size(); ++i) out_extras[i] = &cat.column(o.extras[i].name);
-
   std::unordered_map<std::string, std::int64_t> first_row_of_id;
   for (std::size_t r = 0; r < n; ++r) {
     const std::int64_t src_row = in.source_rows[r];

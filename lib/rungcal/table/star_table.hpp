@@ -2,6 +2,7 @@
 #pragma once
 
 #include <cstdint>
+#include <deque>
 #include <map>
 #include <optional>
 #include <string>
@@ -64,7 +65,7 @@ class StarTable {
   std::vector<std::string> column_names() const;
 
   // Adds an empty column sized to the current row count (all null); replaces a column of
-  // the same name in place.
+  // the same name in place. References to other columns stay valid.
   Column& add_column(const std::string& name, ColumnType type, const std::string& unit = "",
                      const std::string& description = "");
   void remove_column(const std::string& name);
@@ -77,7 +78,7 @@ class StarTable {
   const Keyword* keyword(const std::string& key) const;
 
  private:
-  std::vector<Column> columns_;
+  std::deque<Column> columns_;  // a deque: adding a column never moves the others
   std::map<std::string, std::size_t> index_;
   std::vector<Keyword> header_;
 };

@@ -1,0 +1,31 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+namespace rungcal {
+
+// Distance modulus mu = 5 log10(d / 10 pc) (method brief, section 1).
+double distance_modulus_from_parsec(double distance_pc);
+double parsec_from_distance_modulus(double mu);
+
+// Photometric parallax in mas of a star with dereddened apparent magnitude m0 and absolute
+// magnitude M: pi = 10^(-0.2 (m0 - M - 10)) (mu = m0 - M, pi[mas] = 1000 / d[pc]).
+double parallax_mas_from_magnitudes(double m0, double absolute_mag);
+
+// Distance modulus of a parallax (mas): mu = 5 log10(100 / pi). Only for pi > 0; biased when
+// sigma_pi / pi is not small (use parallax-space fits instead).
+double distance_modulus_from_parallax_mas(double parallax_mas);
+
+// Absolute magnitude from apparent (dereddened) magnitude and distance modulus: M = m0 - mu.
+inline double absolute_from_apparent(double m0, double mu) { return m0 - mu; }
+
+// Intensity-averaged mean magnitude of a sinusoid m0 + A sin(2 pi phi) relative to m0:
+// -2.5 log10 I0(0.4 ln10 A), with I0 the modified Bessel function (method brief, section 5).
+double sinusoid_intensity_mean_offset(double amplitude_mag);
+
+// The fundamental-mode period of a first-overtone pulsator (memory: attributed to Feast &
+// Catchpole 1997, MNRAS 286, L1): P_F = P_1O / (0.716 - 0.027 log10 P_1O); 1 d -> 1.39665 d.
+double fundamentalized_period(double first_overtone_period);
+// Inverse of fundamentalized_period (fixed-point iteration, converges in a few steps).
+double first_overtone_period_for(double fundamental_period);
+
+}  // namespace rungcal

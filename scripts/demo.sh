@@ -1,0 +1,20 @@
+#!/usr/bin/env bash
+# SPDX-License-Identifier: MIT
+# Installs what is missing (Debian packages), builds rungcal, and runs the demo on
+# sample_data/ with config/ defaults. Outputs go to demo_out/.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+bash scripts/setup-debian.sh build
+cmake -S . -B build -DCMAKE_BUILD_TYPE=RelWithDebInfo -DRUNGCAL_BUILD_TESTS=OFF >/dev/null
+cmake --build build -j"$(nproc)" >/dev/null
+bin=build/bin
+mkdir -p demo_out
+echo "== ingest: Halden Peak Observatory calibrators (sample_data/calibrators.fits)"
+"$bin/rungcal-ingest" --config config/demo/ingest.toml
+echo "== deredden: extinction-corrected and Wesenheit magnitudes"
+"$bin/rungcal-deredden" --config config/demo/deredden.toml
+echo
+echo "Demo outputs:"
+for f in demo_out/catalog.fits demo_out/catalog_rejects.csv demo_out/catalog_dereddened.fits; do
+  echo "  $(pwd)/$f"
+done
