@@ -1,0 +1,137 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include <Eigen/Core>
+
+#include "rungcal/core/enum_table.hpp"
+#include "rungcal/plfit/losses.hpp"
+
+namespace rungcal {
+
+// The space the residuals of parallax calibrators are formed in (method brief, section 4).
+enum class FitSpace {
+  // r = (pi_obs - Z - offset - pi_phot(M)) / s, pi_phot = 10^(-0.2 (m0 - M - 10)),
+  // s^2 = sigma_pi^2 + (0.2 ln10 pi_phot)^2 (sigma_m^2 + sigma_int^2). Unbiased for noisy and
+  // negative parallaxes: the default.
+  kParallax,
+  // r = (m0 - 5 log10(100 / (pi - Z - offset)) - M) / s,
+  // s^2 = sigma_m^2 + sigma_int^2 + (5 / ln10 sigma_pi / pi)^2. Only pi > 0; biased unless
+  // sigma_pi / pi is small (Lutz & Kelker 1973, PASP 85, 573).
+  kMagnitude,
+  // Astrometry-based luminosity (Arenou & Luri 1999, ASP Conf. 167, 13):
+  // a = (pi - Z - offset) 10^(0.2 m0 - 2) against 10^(0.2 M), linear in the parallax;
+  // s^2 = (10^(0.2 m0 - 2) sigma_pi)^2 + (0.2 ln10 10^(0.2 M))^2 (sigma_m^2 + sigma_int^2).
+  kAbl,
+};
+inline constexpr EnumTable<FitSpace, 3> kFitSpaceNames{{{
+    {FitSpace::kParallax, "parallax"},
+    {FitSpace::kMagnitude, "magnitude"},
+    {FitSpace::kAbl, "abl"},
+}}};
+
+// How a parameter enters the fit.
+enum class ParamMode { kFree, kFixed, kPrior };
+inline constexpr EnumTable<ParamMode, 3> kParamModeNames{{{
+    {ParamMode::kFree, "free"},
+    {ParamMode::kFixed, "fixed"},
+    {ParamMode::kPrior, "prior"},
+}}};
+
+struct ParamSpec {
+  ParamMode mode = ParamMode::kFree;
+  double value = 0.0;        // fixed value, prior mean, or starting value
+  double prior_sigma = 0.0;  // Gaussian prior width (kPrior)
+  bool has_start = false;    // value is a starting value for a free parameter
+};
+
+// M = alpha + beta (log P - log P0) [+ beta_long (log P - log Pb) for log P > log Pb]
+//     [+ gamma [Fe/H]], per-anchor distance moduli mu_g, parallax offset, intrinsic scatter.
+struct ModelTerms {
+  double pivot_log_period = 1.0;
+  bool has_break = false;
+  double break_log_period = 1.0;
+  bool has_metallicity = false;
+  int n_anchors = 0;
+};
+
+// Where each parameter sits in the parameter vector.
+struct ParameterLayout {
+  int alpha = 0, beta = 1, beta_long = -1, gamma = -1, offset = -1, sigma = -1, anchor0 = -1;
+  int size = 0;
+  std::vector<std::string> names;
+  static ParameterLayout for_terms(const ModelTerms& terms, const std::vector<std::string>& anchor_names);
+};
+
+// Calibrators of one relation, by kind, as column arrays.
+struct FitData {
+  struct Common {
+    Eigen::ArrayXd x;       // log P_F - log P0
+    Eigen::ArrayXd xl;      // max(0, log P_F - log Pb)
+    Eigen::ArrayXd feh;     // [Fe/H] (0 when the term is off)
+    Eigen::ArrayXd m0;      // dereddened (or Wesenheit) apparent magnitude
+    Eigen::ArrayXd var_m;   // its variance
+    std::vector<std::size_t> row;  // catalog row, for reporting
+    Eigen::Index size() const { return x.size(); }
+  };
+  Common parallax;            // parallax calibrators
+  Eigen::ArrayXd plx;         // pi_obs - Z (mas)
+  Eigen::ArrayXd var_plx;     // inflated parallax variance (mas^2)
+  Common known;               // stars or clusters with a known distance modulus
+  Eigen::ArrayXd mu, var_mu;
+  Common anchor;              // stars of anchor galaxies
+  std::vector<int> group;     // anchor index per anchor star
+
+  Eigen::Index stars() const { return parallax.size() + known.size() + anchor.size(); }
+  // Resample: rows of each kind chosen by index (with repeats), for the bootstrap.
+  FitData take(const std::vector<Eigen::Index>& p, const std::vector<Eigen::Index>& k,
+               const std::vector<Eigen::Index>& a) const;
+  FitData without(const std::vector<bool>& drop_p, const std::vector<bool>& drop_k, const std::vector<bool>& drop_a) const;
+};
+
+struct FitSettings {
+  FitSpace space = FitSpace::kParallax;
+  LossKind loss = LossKind::kNone;
+  double loss_scale = 3.0;  // in units of sigma
+  ModelTerms terms;
+  std::vector<ParamSpec> params;  // by ParameterLayout index
+  int max_iterations = 200;
+};
+
+// The raw (non-robust) normalised residual of every star at a parameter vector, in the
+// order parallax, known, anchor; and s^2 of each.
+struct StarResiduals {
+  Eigen::ArrayXd r, s2, model_abs_mag, predicted;  // predicted: pi_phot (parallax space) or m0 model
+};
+StarResiduals star_residuals(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                             const Eigen::VectorXd& theta);
+
+struct FitSolution {
+  Eigen::VectorXd theta;
+  bool usable = false;       // Ceres: IsSolutionUsable()
+  std::string termination;   // Ceres termination type
+  std::string message;
+  int iterations = 0;
+  double cost = 0;           // 1/2 sum rho + normalisation + priors, at the optimum
+  std::string brief_report;
+};
+
+// Solves with Ceres (Levenberg-Marquardt, dense QR) from a start vector. With the scatter
+// free, the Gaussian likelihood's log-normalisation sum ln s^2 is part of the objective
+// (as extra residuals sqrt(ln s_i^2 + K_i), K_i keeping the root real), so the scatter is
+// the maximum-likelihood one; least squares alone would drive it to infinity.
+FitSolution solve_fit(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                      const Eigen::VectorXd& start);
+
+// Covariance of the parameters at the optimum (Ceres Covariance, dense SVD); fixed
+// parameters get zero rows. Returns false when the Jacobian is rank-deficient.
+bool fit_covariance(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                    const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance);
+
+// A starting vector: magnitude-space least squares on the stars with good parallaxes or
+// known distances, then the settings' values for fixed/prior/started parameters.
+Eigen::VectorXd starting_vector(const FitData& data, const FitSettings& settings, const ParameterLayout& layout);
+
+}  // namespace rungcal

@@ -1,0 +1,236 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/plfit: robust losses against Ceres' own objects, and fits against
+// scipy.optimize.least_squares / minimize and statsmodels WLS (Debian python3-scipy,
+// python3-statsmodels) on the same data.
+#include <gtest/gtest.h>
+
+#include <ceres/loss_function.h>
+
+#include <cmath>
+#include <sstream>
+
+#include "rungcal/photometry/photometry.hpp"
+#include "rungcal/plfit/model.hpp"
+#include "rungcal/simulate/random.hpp"
+#include "test_util.hpp"
+
+namespace rungcal {
+namespace {
+
+TEST(Losses, VectorisedLossesEqualCeres) {
+  Eigen::ArrayXd s = Eigen::ArrayXd::LinSpaced(400, 0.0, 60.0);
+  for (LossKind k : {LossKind::kHuber, LossKind::kSoftL1, LossKind::kCauchy, LossKind::kTukey}) {
+    for (double a : {0.5, 1.0, 3.0}) {
+      Eigen::ArrayXd rho, rho1;
+      evaluate_loss(k, a, s, rho, rho1);
+      auto ceres_loss = make_ceres_loss(k, a);
+      for (Eigen::Index i = 0; i < s.size(); ++i) {
+        double out[3];
+        ceres_loss->Evaluate(s[i], out);
+        ASSERT_NEAR(rho[i], out[0], 1e-12 * (1 + out[0])) << kLossNames.name(k) << " a=" << a << " s=" << s[i];
+        ASSERT_NEAR(rho1[i], out[1], 1e-12) << kLossNames.name(k);
+      }
+    }
+  }
+}
+
+TEST(Losses, CheckValuesOfTheMethodBrief) {
+  // Method brief, section 4: residual 3, a = 1: Huber 5, SoftL1 4.324555, Cauchy 2.302585.
+  Eigen::ArrayXd s(1), rho, rho1;
+  s << 9.0;
+  evaluate_loss(LossKind::kHuber, 1.0, s, rho, rho1);
+  EXPECT_NEAR(rho[0], 5.0, 1e-12);
+  evaluate_loss(LossKind::kSoftL1, 1.0, s, rho, rho1);
+  EXPECT_NEAR(rho[0], 4.324555, 1e-6);
+  evaluate_loss(LossKind::kCauchy, 1.0, s, rho, rho1);
+  EXPECT_NEAR(rho[0], 2.302585, 1e-6);
+}
+
+// A mock parallax sample with known truth (simulation test data).
+struct Mock {
+  FitData data;
+  double alpha = -5.8, beta = -3.3, offset = -0.02, sigma = 0.08;
+};
+
+Mock mock_parallax_sample(std::uint64_t seed, int n, double outlier_fraction = 0.05) {
+  Mock m;
+  Random rng(seed);
+  auto& p = m.data.parallax;
+  p.x.resize(n), p.xl.resize(n), p.feh.resize(n), p.m0.resize(n), p.var_m.resize(n);
+  m.data.plx.resize(n), m.data.var_plx.resize(n);
+  for (int i = 0; i < n; ++i) {
+    double x = rng.uniform(-0.6, 0.8);
+    double d_kpc = 0.5 + 5.5 * std::sqrt(rng.uniform());
+    double mu = distance_modulus_from_parsec(d_kpc * 1e3);
+    double sm = 0.02, sp = 0.02 + 0.03 * rng.uniform();
+    double mag = m.alpha + m.beta * x + rng.normal(0, m.sigma) + mu + rng.normal(0, sm);
+    if (rng.uniform() < outlier_fraction) mag -= 1.0;
+    p.x[i] = x, p.xl[i] = 0, p.feh[i] = 0, p.m0[i] = mag, p.var_m[i] = sm * sm;
+    p.row.push_back(static_cast<std::size_t>(i));
+    m.data.plx[i] = 1.0 / d_kpc + m.offset + rng.normal(0, sp);
+    m.data.var_plx[i] = sp * sp;
+  }
+  return m;
+}
+
+FitSettings settings_for(FitSpace space, LossKind loss, double scale, bool sigma_free, double sigma) {
+  FitSettings s;
+  s.space = space;
+  s.loss = loss;
+  s.loss_scale = scale;
+  ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
+  s.params.assign(L.size, ParamSpec{});
+  s.params[L.sigma] = sigma_free ? ParamSpec{ParamMode::kFree, sigma, 0, true} : ParamSpec{ParamMode::kFixed, sigma, 0, false};
+  return s;
+}
+
+std::string to_csv(const Mock& m) {
+  std::ostringstream o;
+  o.precision(17);
+  const auto& p = m.data.parallax;
+  for (Eigen::Index i = 0; i < p.size(); ++i)
+    o << p.x[i] << "," << p.m0[i] << "," << p.var_m[i] << "," << m.data.plx[i] << "," << m.data.var_plx[i] << "\n";
+  return o.str();
+}
+
+std::vector<double> parse_numbers(const std::string& text) {
+  std::istringstream in(text);
+  std::vector<double> v;
+  double x;
+  while (in >> x) v.push_back(x);
+  return v;
+}
+
+// scipy's side of the comparison: the same parallax-space residual, written out in numpy.
+const char* kScipyParallaxFit = R"(
+import sys, numpy as np
+from scipy.optimize import least_squares
+d = np.loadtxt(sys.argv[1], delimiter=",")
+x, m0, vm, plx, vp = d.T
+loss, scale, sigma = sys.argv[2], float(sys.argv[3]), float(sys.argv[4])
+k = 0.2 * np.log(10)
+def resid(t):
+    a, b, off = t
+    M = a + b * x
+    pi = np.exp(-k * (m0 - M - 10))
+    s = np.sqrt(vp + (k * pi) ** 2 * (vm + sigma ** 2))
+    return (plx - off - pi) / s
+r = least_squares(resid, [float(v) for v in sys.argv[5:8]], loss=loss, f_scale=scale, method="trf",
+                  ftol=1e-15, xtol=1e-15, gtol=1e-15, max_nfev=10000)
+print(*["%.17g" % v for v in r.x])
+)";
+
+class AgainstScipy : public ::testing::TestWithParam<LossKind> {};
+
+TEST_P(AgainstScipy, ParallaxSpaceRobustFitAgreesTo1e6) {
+  // Same data, same loss: rungcal (Ceres) and scipy.optimize.least_squares (trf) must land
+  // on the same optimum: parameters to 1e-6 relative.
+  LossKind loss = GetParam();
+  Mock m = mock_parallax_sample(11, 400);
+  test::TempDir dir;
+  test::write_text(dir.file("d.csv"), to_csv(m));
+  FitSettings s = settings_for(FitSpace::kParallax, loss, 2.0, false, 0.08);
+  ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
+  Eigen::VectorXd start = starting_vector(m.data, s, L);
+  FitSolution sol = solve_fit(m.data, s, L, start);
+  ASSERT_TRUE(sol.usable) << sol.message;
+  std::string name = loss == LossKind::kSoftL1 ? "soft_l1" : std::string(kLossNames.name(loss));
+  if (loss == LossKind::kNone) name = "linear";
+  auto r = test::run_python(kScipyParallaxFit, {dir.file("d.csv"), name, "2.0", "0.08", std::to_string(start[0]),
+                                                std::to_string(start[1]), std::to_string(start[L.offset])});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  std::vector<double> ref = parse_numbers(r.output);
+  ASSERT_EQ(ref.size(), 3u) << r.output;
+  EXPECT_NEAR(sol.theta[L.alpha], ref[0], 1e-6 * std::abs(ref[0]));
+  EXPECT_NEAR(sol.theta[L.beta], ref[1], 1e-6 * std::abs(ref[1]));
+  EXPECT_NEAR(sol.theta[L.offset], ref[2], 1e-6 * std::abs(ref[2]));
+}
+
+INSTANTIATE_TEST_SUITE_P(Losses, AgainstScipy,
+                         ::testing::Values(LossKind::kNone, LossKind::kHuber, LossKind::kSoftL1, LossKind::kCauchy),
+                         [](const auto& i) { return std::string(kLossNames.name(i.param)); });
+
+TEST(MaximumLikelihood, ScatterAgreesWithScipyMinimize) {
+  // The intrinsic scatter maximises the Gaussian likelihood, normalisation term included:
+  // -2 ln L = sum r^2 + ln s^2. Reference: scipy.optimize.minimize (Nelder-Mead, tight) on
+  // that function.
+  Mock m = mock_parallax_sample(23, 300, 0.0);
+  test::TempDir dir;
+  test::write_text(dir.file("d.csv"), to_csv(m));
+  FitSettings s = settings_for(FitSpace::kParallax, LossKind::kNone, 1.0, true, 0.1);
+  ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
+  FitSolution sol = solve_fit(m.data, s, L, starting_vector(m.data, s, L));
+  ASSERT_TRUE(sol.usable);
+  auto r = test::run_python(R"(
+import sys, numpy as np
+from scipy.optimize import minimize
+x, m0, vm, plx, vp = np.loadtxt(sys.argv[1], delimiter=",").T
+k = 0.2 * np.log(10)
+def nll(t):
+    a, b, off, sig = t
+    pi = np.exp(-k * (m0 - a - b * x - 10))
+    s2 = vp + (k * pi) ** 2 * (vm + sig ** 2)
+    return np.sum((plx - off - pi) ** 2 / s2 + np.log(s2))
+t = minimize(nll, [-5.5, -3.0, 0.0, 0.1], method="Nelder-Mead",
+             options=dict(xatol=1e-10, fatol=1e-12, maxiter=200000, maxfev=200000)).x
+t = minimize(nll, t, method="BFGS", options=dict(gtol=1e-10)).x
+print(*["%.17g" % v for v in t])
+)", {dir.file("d.csv")});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  std::vector<double> ref = parse_numbers(r.output);
+  ASSERT_EQ(ref.size(), 4u) << r.output;
+  EXPECT_NEAR(sol.theta[L.sigma], std::abs(ref[3]), 1e-5);
+  EXPECT_NEAR(sol.theta[L.alpha], ref[0], 1e-5);
+  EXPECT_NEAR(sol.theta[L.offset], ref[2], 1e-6);
+  // And it recovers the simulated truth within errors.
+  EXPECT_NEAR(sol.theta[L.sigma], m.sigma, 0.03);
+}
+
+TEST(Covariance, LinearCaseEqualsStatsmodelsWls) {
+  // Known-distance calibrators with the scatter fixed: M = alpha + beta x is linear, and the
+  // covariance must equal weighted least squares' (X^T W X)^-1: statsmodels WLS with
+  // cov_type="fixed scale" (Debian python3-statsmodels).
+  Random rng(5);
+  const int n = 60;
+  FitData d;
+  auto& k = d.known;
+  k.x.resize(n), k.xl.setZero(n), k.feh.setZero(n), k.m0.resize(n), k.var_m.resize(n);
+  d.mu.resize(n), d.var_mu.resize(n);
+  std::ostringstream csv;
+  csv.precision(17);
+  for (int i = 0; i < n; ++i) {
+    double x = rng.uniform(-0.5, 0.9), sm = 0.03 + 0.05 * rng.uniform(), smu = 0.05;
+    double mu = rng.uniform(8, 12);
+    k.x[i] = x, k.var_m[i] = sm * sm, d.mu[i] = mu, d.var_mu[i] = smu * smu;
+    k.m0[i] = -4.0 - 2.8 * x + mu + rng.normal(0, std::hypot(sm, smu, 0.1));
+    k.row.push_back(static_cast<std::size_t>(i));
+    csv << x << "," << k.m0[i] - mu << "," << (sm * sm + smu * smu + 0.01) << "\n";
+  }
+  FitSettings s = settings_for(FitSpace::kParallax, LossKind::kNone, 1.0, false, 0.1);
+  ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
+  s.params[L.offset] = ParamSpec{ParamMode::kFixed, 0.0, 0, false};
+  FitSolution sol = solve_fit(d, s, L, starting_vector(d, s, L));
+  Eigen::MatrixXd cov;
+  ASSERT_TRUE(fit_covariance(d, s, L, sol.theta, cov));
+  test::TempDir dir;
+  test::write_text(dir.file("d.csv"), csv.str());
+  auto r = test::run_python(R"(
+import sys, numpy as np, statsmodels.api as sm
+x, y, var = np.loadtxt(sys.argv[1], delimiter=",").T
+res = sm.WLS(y, sm.add_constant(x), weights=1 / var).fit(cov_type="fixed scale")
+c = res.cov_params()
+print(*["%.17g" % v for v in [*res.params, c[0, 0], c[0, 1], c[1, 1]]])
+)", {dir.file("d.csv")});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  std::vector<double> ref = parse_numbers(r.output);
+  ASSERT_EQ(ref.size(), 5u);
+  EXPECT_NEAR(sol.theta[L.alpha], ref[0], 1e-9);
+  EXPECT_NEAR(sol.theta[L.beta], ref[1], 1e-9);
+  EXPECT_NEAR(cov(L.alpha, L.alpha), ref[2], 1e-8 * ref[2]);
+  EXPECT_NEAR(cov(L.alpha, L.beta), ref[3], 1e-8 * std::abs(ref[3]));
+  EXPECT_NEAR(cov(L.beta, L.beta), ref[4], 1e-8 * ref[4]);
+  EXPECT_EQ(cov(L.offset, L.offset), 0.0);  // fixed
+}
+
+}  // namespace
+}  // namespace rungcal
