@@ -71,7 +71,7 @@ TEST(IngestReference, RRLyraeDistancePriors) {
   EXPECT_EQ(r.catalog.rows(), 128u);
   for (const auto& rej : r.rejected) EXPECT_EQ(rej.rule, "no_photometry") << rej.id;
   std::size_t k_count = 0;
-  const Column& k = r.catalog.column("mag_K");
+  const Column& k = r.catalog.column("mag_Ks");
   for (std::size_t i = 0; i < k.size(); ++i) k_count += k.is_null(i) ? 0 : 1;
   EXPECT_EQ(k_count, 22u);  // the README of the reference data: 22 have K
   // First row of the file: AACMi, RRab, P = 0.4763 d, [Fe/H] = -0.15, mu prior 10.4730 +- 0.1384.

@@ -23,6 +23,12 @@ double fundamentalized_period(double first_overtone_period) {
   return first_overtone_period / (0.716 - 0.027 * std::log10(first_overtone_period));
 }
 
+double fundamentalized_log_period(const std::string& pulsator_class, const std::string& mode, double log_period) {
+  if (mode != "first_overtone") return log_period;
+  if (pulsator_class == "rr_lyrae") return log_period + kRRLyraeOvertoneLogShift;
+  return std::log10(fundamentalized_period(std::pow(10.0, log_period)));
+}
+
 double first_overtone_period_for(double fundamental_period) {
   double p1 = 0.716 * fundamental_period;
   for (int i = 0; i < 50; ++i) p1 = fundamental_period * (0.716 - 0.027 * std::log10(p1));

@@ -4,6 +4,7 @@
 #include <ceres/ceres.h>
 
 #include <cmath>
+#include <limits>
 
 #include <Eigen/Dense>
 
@@ -35,7 +36,7 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
   const auto& c = d.parallax;
   KindTerms k;
   k.abs_mag = absolute_magnitude(c, L, t);
-  const double off = t[L.offset], sig2 = t[L.sigma] * t[L.sigma];
+  const double off = t[L.offset], sig2 = t[L.sigma];  // inside the solver the slot holds sigma^2
   const Eigen::ArrayXd var_tot = c.var_m + sig2;
   const Eigen::Index n = c.size();
   switch (space) {
@@ -49,7 +50,7 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
       k.r = e / s;
       k.ds2_m = 2.0 * kK5 * kpi2 * var_tot;
       k.ds2_off = Eigen::ArrayXd::Zero(n);
-      k.ds2_sigma = 2.0 * kpi2 * t[L.sigma];
+      k.ds2_sigma = kpi2;
       k.d_m = -kK5 * pi / s - 0.5 * e * k.ds2_m / (s * k.s2);
       k.d_off = -1.0 / s;
       k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
@@ -67,7 +68,7 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
       k.r = e / s;
       k.ds2_m = Eigen::ArrayXd::Zero(n);
       k.ds2_off = 2.0 * vplx / pc;
-      k.ds2_sigma = Eigen::ArrayXd::Constant(n, 2.0 * t[L.sigma]);
+      k.ds2_sigma = Eigen::ArrayXd::Ones(n);
       k.d_m = -1.0 / s;
       k.d_off = -kFiveOverLn10 / pc / s - 0.5 * e * k.ds2_off / (s * k.s2);
       k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
@@ -85,7 +86,7 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
       k.r = e / s;
       k.ds2_m = 2.0 * kK5 * ka2 * var_tot;
       k.ds2_off = Eigen::ArrayXd::Zero(n);
-      k.ds2_sigma = 2.0 * ka2 * t[L.sigma];
+      k.ds2_sigma = ka2;
       k.d_m = -kK5 * a_model / s - 0.5 * e * k.ds2_m / (s * k.s2);
       k.d_off = -f / s;
       k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
@@ -104,7 +105,7 @@ KindTerms magnitude_terms(const FitData::Common& c, const Eigen::ArrayXd& mu, co
   const Eigen::Index n = c.size();
   k.abs_mag = absolute_magnitude(c, L, t);
   Eigen::ArrayXd e = c.m0 - mu - k.abs_mag;
-  k.s2 = c.var_m + var_mu + t[L.sigma] * t[L.sigma];
+  k.s2 = c.var_m + var_mu + t[L.sigma];
   k.s2_min = c.var_m + var_mu;
   Eigen::ArrayXd s = k.s2.sqrt();
   k.r = e / s;
@@ -112,7 +113,7 @@ KindTerms magnitude_terms(const FitData::Common& c, const Eigen::ArrayXd& mu, co
   k.d_off = Eigen::ArrayXd::Zero(n);
   k.ds2_m = Eigen::ArrayXd::Zero(n);
   k.ds2_off = Eigen::ArrayXd::Zero(n);
-  k.ds2_sigma = Eigen::ArrayXd::Constant(n, 2.0 * t[L.sigma]);
+  k.ds2_sigma = Eigen::ArrayXd::Ones(n);
   k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
   k.predicted = k.abs_mag + mu;
   return k;
@@ -134,6 +135,20 @@ std::vector<KindTerms> all_terms(const FitData& d, const FitSettings& s, const P
 
 const FitData::Common& common_of(const FitData& d, int kind) {
   return kind == 0 ? d.parallax : (kind == 1 ? d.known : d.anchor);
+}
+
+// The scatter is fitted as the variance sigma^2 >= 0: its Jacobian column does not vanish at
+// sigma = 0, where a maximum-likelihood scatter often sits for small samples, and the bound
+// keeps it physical. Outside the solver the slot holds sigma.
+Eigen::VectorXd to_internal(const Eigen::VectorXd& t, const ParameterLayout& L) {
+  Eigen::VectorXd v = t;
+  v[L.sigma] = t[L.sigma] * t[L.sigma];
+  return v;
+}
+Eigen::VectorXd to_external(const Eigen::VectorXd& v, const ParameterLayout& L) {
+  Eigen::VectorXd t = v;
+  t[L.sigma] = std::sqrt(std::max(0.0, v[L.sigma]));
+  return t;
 }
 
 bool scatter_is_free(const FitSettings& s, const ParameterLayout& L) { return s.params[L.sigma].mode != ParamMode::kFixed; }
@@ -233,6 +248,7 @@ class RelationCost final : public ceres::CostFunction {
 void configure_problem(ceres::Problem& problem, RelationCost* cost, const FitSettings& s, const ParameterLayout& L,
                        double* theta) {
   problem.AddResidualBlock(cost, nullptr, theta);
+  if (s.params[L.sigma].mode != ParamMode::kFixed) problem.SetParameterLowerBound(theta, L.sigma, 0.0);
   std::vector<int> fixed;
   for (int j = 0; j < L.size; ++j)
     if (s.params[j].mode == ParamMode::kFixed) fixed.push_back(j);
@@ -310,7 +326,7 @@ FitData FitData::without(const std::vector<bool>& dp, const std::vector<bool>& d
 }
 
 StarResiduals star_residuals(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& t) {
-  std::vector<KindTerms> kinds = all_terms(d, s, L, t);
+  std::vector<KindTerms> kinds = all_terms(d, s, L, to_internal(t, L));
   StarResiduals out;
   const Eigen::Index n = d.stars();
   out.r.resize(n), out.s2.resize(n), out.model_abs_mag.resize(n), out.predicted.resize(n);
@@ -370,7 +386,7 @@ Eigen::VectorXd starting_vector(const FitData& d, const FitSettings& s, const Pa
 
 FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& start) {
   FitSolution sol;
-  sol.theta = start;
+  sol.theta = to_internal(start, L);
   ceres::Problem::Options po;
   po.cost_function_ownership = ceres::TAKE_OWNERSHIP;
   ceres::Problem problem(po);
@@ -391,13 +407,13 @@ FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLay
   sol.iterations = static_cast<int>(summary.iterations.size());
   sol.cost = summary.final_cost;
   sol.brief_report = summary.BriefReport();
-  if (L.sigma >= 0) sol.theta[L.sigma] = std::abs(sol.theta[L.sigma]);
+  sol.theta = to_external(sol.theta, L);
   return sol;
 }
 
 bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& theta,
                     Eigen::MatrixXd& covariance) {
-  Eigen::VectorXd t = theta;
+  Eigen::VectorXd t = to_internal(theta, L);
   ceres::Problem::Options po;
   po.cost_function_ownership = ceres::TAKE_OWNERSHIP;
   ceres::Problem problem(po);
@@ -409,7 +425,15 @@ bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayou
   if (!cov.Compute(blocks, &problem)) return false;
   Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> c(L.size, L.size);
   if (!cov.GetCovarianceBlock(t.data(), t.data(), c.data())) return false;
-  covariance = c;
+  // From sigma^2 to sigma by the delta method, d sigma = d(sigma^2) / (2 sigma); undefined at
+  // sigma = 0 (the likelihood's maximum on its boundary), where that row stays NaN.
+  Eigen::VectorXd scale = Eigen::VectorXd::Ones(L.size);
+  scale[L.sigma] = theta[L.sigma] > 0 ? 0.5 / theta[L.sigma] : std::numeric_limits<double>::quiet_NaN();
+  covariance = scale.asDiagonal() * c * scale.asDiagonal();
+  if (s.params[L.sigma].mode == ParamMode::kFixed) {
+    covariance.row(L.sigma).setZero();
+    covariance.col(L.sigma).setZero();
+  }
   return true;
 }
 

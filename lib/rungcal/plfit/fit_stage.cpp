@@ -1,0 +1,686 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/fit_stage.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <filesystem>
+#include <numbers>
+#include <thread>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/progress.hpp"
+#include "rungcal/photometry/photometry.hpp"
+#include "rungcal/simulate/random.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+
+namespace rungcal {
+namespace {
+
+ParamSpec param_from(const ConfigSection& parent, const std::string& key, ParamSpec fallback) {
+  if (!parent.has(key)) return fallback;
+  if (!parent.is_table(key)) {
+    // A bare number fixes the parameter at that value.
+    return ParamSpec{ParamMode::kFixed, *parent.get_number(key), 0.0, false};
+  }
+  auto s = parent.section(key);
+  ParamSpec p = fallback;
+  std::string mode = s->string_or("mode", std::string(kParamModeNames.name(fallback.mode)));
+  auto m = kParamModeNames.parse(mode);
+  if (!m) s->fail("mode", fmt::format("'{}' is not one of: {}", mode, kParamModeNames.choices()));
+  p.mode = *m;
+  if (auto v = s->get_number("value")) {
+    p.value = *v;
+    p.has_start = true;
+  } else if (p.mode != ParamMode::kFree && !fallback.has_start) {
+    s->fail("value", "required for a fixed parameter or a prior");
+  }
+  p.prior_sigma = s->number_or("sigma", 0.0);
+  if (p.mode == ParamMode::kPrior && !(p.prior_sigma > 0)) s->fail("sigma", "a prior needs sigma > 0");
+  return p;
+}
+
+template <typename E, std::size_t N>
+E enum_from(const ConfigSection& s, const std::string& key, const EnumTable<E, N>& table, E fallback) {
+  std::string v = s.string_or(key, std::string(table.name(fallback)));
+  auto parsed = table.parse(v);
+  if (!parsed) s.fail(key, fmt::format("'{}' is not one of: {}", v, table.choices()));
+  return *parsed;
+}
+
+bool contains(const std::vector<std::string>& v, const std::string& x) {
+  return std::find(v.begin(), v.end(), x) != v.end();
+}
+
+double value_or_nan(const StarTable& t, const std::string& col, std::size_t r) {
+  if (!t.has(col)) return std::numeric_limits<double>::quiet_NaN();
+  return t.column(col).as_real(r);
+}
+
+std::string text_or_empty(const StarTable& t, const std::string& col, std::size_t r) {
+  if (!t.has(col) || t.column(col).is_null(r)) return "";
+  return t.column(col).to_string(r);
+}
+
+struct Calibrators {
+  FitData data;
+  std::vector<StarOutcome> stars;             // every catalog star, in catalog order
+  std::vector<std::size_t> p_star, k_star, a_star;  // index into stars per data row
+};
+
+struct ParallaxTools {
+  std::optional<ZeroPointTable> zp5, zp6;
+};
+
+// Chooses one relation's calibrators from the catalog; every refusal keeps its reason.
+Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, const StarTable& cat,
+                               const ParallaxTools& tools, const ParamSpec& offset) {
+  Calibrators c;
+  const std::string mag_col = rel.magnitude_column.empty() ? "mag0_" + rel.band : rel.magnitude_column;
+  std::string err_col = rel.error_column;
+  if (err_col.empty()) {
+    err_col = rel.magnitude_column.empty() ? "mag0_err_" + rel.band : rel.magnitude_column;
+    if (!rel.magnitude_column.empty()) {
+      auto p = err_col.find("mag_");
+      err_col = p == 0 ? "mag_err_" + err_col.substr(4) : err_col + "_err";
+    }
+  }
+  if (!cat.has(mag_col))
+    throw InputError({o.input_path, {}, mag_col}, "missing_column",
+                     fmt::format("relation {} needs this column (dereddened magnitudes come from rungcal-deredden)", rel.name));
+  if (!cat.has(err_col))
+    throw InputError({o.input_path, {}, err_col}, "missing_column", fmt::format("relation {} needs this error column", rel.name));
+  if (!cat.has(col::kLogPeriod) || !cat.has(col::kId))
+    throw InputError({o.input_path, {}, col::kLogPeriod}, "missing_column", "not a rungcal catalog (no id / log_period)");
+  auto push = [](FitData::Common& common, double x, double xl, double feh, double m0, double var, std::size_t row) {
+    auto grow = [](Eigen::ArrayXd& a, double v) {
+      a.conservativeResize(a.size() + 1);
+      a[a.size() - 1] = v;
+    };
+    grow(common.x, x), grow(common.xl, xl), grow(common.feh, feh), grow(common.m0, m0), grow(common.var_m, var);
+    common.row.push_back(row);
+  };
+  auto grow = [](Eigen::ArrayXd& a, double v) {
+    a.conservativeResize(a.size() + 1);
+    a[a.size() - 1] = v;
+  };
+
+  for (std::size_t r = 0; r < cat.rows(); ++r) {
+    StarOutcome s;
+    s.row = r;
+    s.id = cat.column(col::kId).to_string(r);
+    auto refuse = [&](const std::string& why) {
+      s.reason = why;
+      c.stars.push_back(s);
+    };
+    std::string klass = text_or_empty(cat, col::kClass, r), mode = text_or_empty(cat, col::kMode, r);
+    if (!rel.classes.empty() && !contains(rel.classes, klass)) { refuse("class " + klass + " not in this relation"); continue; }
+    if (!rel.modes.empty() && !contains(rel.modes, mode)) { refuse("mode " + mode + " not in this relation"); continue; }
+    double logp = cat.column(col::kLogPeriod).as_real(r);
+    if (rel.fundamentalize) logp = fundamentalized_log_period(klass, mode, logp);
+    s.log_period = logp;
+    if (logp < rel.min_log_period || logp > rel.max_log_period) {
+      refuse(fmt::format("log P = {:.3f} outside [{}, {}]", logp, rel.min_log_period, rel.max_log_period));
+      continue;
+    }
+    double m0 = cat.column(mag_col).as_real(r), e = cat.column(err_col).as_real(r);
+    if (!std::isfinite(m0)) { refuse("no " + mag_col); continue; }
+    if (!std::isfinite(e) || !(e > 0)) { refuse("no positive " + err_col); continue; }
+    s.m0 = m0;
+    s.m0_err = e;
+    double feh = 0.0;
+    if (rel.metallicity) {
+      feh = value_or_nan(cat, col::kFeh, r);
+      if (!std::isfinite(feh)) { refuse("no [Fe/H] for the metallicity term"); continue; }
+    }
+    double x = logp - rel.pivot_log_period;
+    double xl = rel.break_log_period ? std::max(0.0, logp - *rel.break_log_period) : 0.0;
+    std::string group = text_or_empty(cat, col::kGroup, r);
+    auto anchor = std::find_if(o.anchors.begin(), o.anchors.end(), [&](const auto& a) { return a.group == group; });
+    double mu = value_or_nan(cat, "mu_mag", r), mu_err = value_or_nan(cat, "mu_err_mag", r);
+    double plx = value_or_nan(cat, col::kParallax, r), plx_err = value_or_nan(cat, col::kParallaxErr, r);
+    if (anchor != o.anchors.end()) {
+      s.kind = "anchor";
+      s.used = true;
+      c.a_star.push_back(c.stars.size());
+      push(c.data.anchor, x, xl, feh, m0, e * e, r);
+      c.data.group.push_back(static_cast<int>(anchor - o.anchors.begin()));
+      c.stars.push_back(s);
+      continue;
+    }
+    if (o.use_known_mu && std::isfinite(mu)) {
+      s.kind = "known_distance";
+      s.used = true;
+      c.k_star.push_back(c.stars.size());
+      push(c.data.known, x, xl, feh, m0, e * e, r);
+      grow(c.data.mu, mu);
+      grow(c.data.var_mu, std::isfinite(mu_err) ? mu_err * mu_err : 0.0);
+      c.stars.push_back(s);
+      continue;
+    }
+    if (!std::isfinite(plx)) { refuse("no distance: neither a parallax nor a known distance modulus"); continue; }
+    s.kind = "parallax";
+    if (o.max_ruwe > 0) {
+      double ruwe = value_or_nan(cat, "ruwe", r);
+      if (std::isfinite(ruwe) && ruwe > o.max_ruwe) { refuse(fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe)); continue; }
+    }
+    double z = 0.0;
+    if (o.zero_point == ZeroPointRecipe::kConstant) z = o.zero_point_mas;
+    if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
+      double g = value_or_nan(cat, "gaia_g_mag", r), beta = value_or_nan(cat, "ecl_lat_deg", r);
+      double n_param = value_or_nan(cat, "astrometric_params", r);
+      bool six = n_param == 6;
+      double colour = value_or_nan(cat, six ? "pseudocolour_um" : "nu_eff_um", r);
+      if (!std::isfinite(g) || !std::isfinite(beta) || !std::isfinite(colour) || !std::isfinite(n_param)) {
+        refuse("zero point inputs missing (G, colour, ecliptic latitude, astrometric parameters)");
+        continue;
+      }
+      z = (six ? *tools.zp6 : *tools.zp5).zero_point_mas(g, colour, beta);
+    }
+    double inflate = 1.0;
+    if (o.inflation == InflationRecipe::kConstant) inflate = o.inflation_factor;
+    if (o.inflation == InflationRecipe::kElBadry2021) {
+      double g = value_or_nan(cat, "gaia_g_mag", r);
+      if (!std::isfinite(g)) { refuse("no G magnitude for the El-Badry et al. 2021 inflation"); continue; }
+      inflate = el_badry_inflation(g);
+    }
+    if (!std::isfinite(plx_err) || !(plx_err > 0)) { refuse("no positive parallax error"); continue; }
+    s.plx = plx - z;
+    s.plx_err = plx_err * inflate;
+    if (o.space == FitSpace::kMagnitude && s.plx - offset.value <= 0) {
+      refuse(fmt::format("parallax {:.4f} mas is not positive: it cannot enter a magnitude-space fit (use space = \"parallax\")", s.plx));
+      continue;
+    }
+    s.used = true;
+    c.p_star.push_back(c.stars.size());
+    push(c.data.parallax, x, xl, feh, m0, e * e, r);
+    grow(c.data.plx, s.plx);
+    grow(c.data.var_plx, s.plx_err * s.plx_err);
+    c.stars.push_back(s);
+  }
+  return c;
+}
+
+FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const ParameterLayout& L) {
+  FitSettings s;
+  s.space = o.space;
+  s.loss = o.loss;
+  s.loss_scale = o.loss_scale;
+  s.terms.pivot_log_period = rel.pivot_log_period;
+  s.terms.has_break = rel.break_log_period.has_value();
+  s.terms.break_log_period = rel.break_log_period.value_or(0.0);
+  s.terms.has_metallicity = rel.metallicity;
+  s.terms.n_anchors = static_cast<int>(o.anchors.size());
+  s.params.assign(L.size, ParamSpec{});
+  s.params[L.beta] = rel.slope;
+  s.params[L.offset] = o.offset;
+  s.params[L.sigma] = o.scatter;
+  for (std::size_t g = 0; g < o.anchors.size(); ++g)
+    s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchors[g].mu_err, true};
+  return s;
+}
+
+// Data rows with nothing to constrain a parameter make the fit degenerate; say so plainly.
+void check_constrained(const FitOptions& o, const RelationOptions& rel, const Calibrators& c, const FitSettings& s,
+                       const ParameterLayout& L) {
+  if (c.data.stars() < 3)
+    throw InputError({o.input_path, {}, {}}, "too_few_calibrators",
+                     fmt::format("relation {}: {} usable calibrators, at least 3 are needed", rel.name, c.data.stars()));
+  if (s.params[L.offset].mode == ParamMode::kFree && c.data.parallax.size() == 0)
+    throw InputError({o.config_file, {}, "fit.offset", "line", "key"}, "config_value",
+                     fmt::format("relation {}: the parallax offset is free but no parallax calibrator is used", rel.name));
+  for (std::size_t g = 0; g < o.anchors.size(); ++g)
+    if (std::count(c.data.group.begin(), c.data.group.end(), static_cast<int>(g)) == 0)
+      spdlog::warn("relation {}: anchor {} has no star; its distance modulus stays at its prior", rel.name, o.anchors[g].group);
+}
+
+void fill_star_residuals(RelationResult& rr, const Calibrators& c) {
+  StarResiduals res = star_residuals(c.data, rr.settings, rr.layout, rr.solution.theta);
+  std::vector<std::size_t> order;
+  order.insert(order.end(), c.p_star.begin(), c.p_star.end());
+  order.insert(order.end(), c.k_star.begin(), c.k_star.end());
+  order.insert(order.end(), c.a_star.begin(), c.a_star.end());
+  for (std::size_t i = 0; i < order.size(); ++i) {
+    StarOutcome& s = rr.stars[order[i]];
+    s.residual = res.r[static_cast<Eigen::Index>(i)];
+    s.model_abs_mag = res.model_abs_mag[static_cast<Eigen::Index>(i)];
+    s.predicted = res.predicted[static_cast<Eigen::Index>(i)];
+  }
+  rr.chi2 = res.r.square().sum();
+  rr.neg2_log_likelihood = (res.r.square() + (2.0 * std::numbers::pi * res.s2).log()).sum();
+  rr.n_used = static_cast<int>(order.size());
+  rr.n_free = 0;
+  for (const auto& p : rr.settings.params) rr.n_free += p.mode == ParamMode::kFixed ? 0 : 1;
+  rr.dof = rr.n_used - rr.n_free;
+  rr.aic = rr.neg2_log_likelihood + 2.0 * rr.n_free;
+  rr.bic = rr.neg2_log_likelihood + rr.n_free * std::log(static_cast<double>(rr.n_used));
+}
+
+std::uint64_t resample_seed(std::uint64_t seed, int b) {
+  // splitmix64 of (seed, b): resample b draws the same stars whichever thread runs it.
+  std::uint64_t z = seed + 0x9E3779B97F4A7C15ull * static_cast<std::uint64_t>(b + 1);
+  z = (z ^ (z >> 30)) * 0xBF58476D1CE4E5B9ull;
+  z = (z ^ (z >> 27)) * 0x94D049BB133111EBull;
+  return z ^ (z >> 31);
+}
+
+void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data) {
+  if (o.bootstrap <= 0) return;
+  const int B = o.bootstrap, P = rr.layout.size;
+  rr.bootstrap = Eigen::MatrixXd::Constant(B, P, std::numeric_limits<double>::quiet_NaN());
+  std::vector<char> ok(B, 0);
+  std::atomic<int> next{0};
+  Progress progress("bootstrap " + rr.relation.name, static_cast<std::size_t>(B));
+  auto worker = [&] {
+    for (int b = next++; b < B; b = next++) {
+      Random rng(resample_seed(o.seed, b));
+      auto draw = [&](Eigen::Index n) {
+        std::vector<Eigen::Index> idx(static_cast<std::size_t>(n));
+        for (auto& i : idx) i = static_cast<Eigen::Index>(rng.below(static_cast<std::uint64_t>(n)));
+        return idx;
+      };
+      std::vector<Eigen::Index> ai;
+      // Anchors are resampled within each galaxy so each keeps its stars.
+      for (int g = 0; g < rr.settings.terms.n_anchors; ++g) {
+        std::vector<Eigen::Index> members;
+        for (Eigen::Index i = 0; i < data.anchor.size(); ++i)
+          if (data.group[i] == g) members.push_back(i);
+        for (std::size_t k = 0; k < members.size(); ++k) ai.push_back(members[rng.below(members.size())]);
+      }
+      FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
+      FitSolution s = solve_fit(sample, rr.settings, rr.layout, rr.solution.theta);
+      if (s.usable) {
+        rr.bootstrap.row(b) = s.theta.transpose();
+        ok[b] = 1;
+      }
+      progress.advance();
+    }
+  };
+  int threads = o.threads > 0 ? o.threads : static_cast<int>(std::max(1u, std::thread::hardware_concurrency()));
+  std::vector<std::thread> pool;
+  for (int t = 0; t < std::min(threads, B); ++t) pool.emplace_back(worker);
+  for (auto& t : pool) t.join();
+  progress.finish();
+  rr.bootstrap_failed = static_cast<int>(std::count(ok.begin(), ok.end(), 0));
+}
+
+double percentile(std::vector<double> v, double q) {
+  if (v.empty()) return std::numeric_limits<double>::quiet_NaN();
+  std::sort(v.begin(), v.end());
+  double pos = q * static_cast<double>(v.size() - 1);
+  auto lo = static_cast<std::size_t>(std::floor(pos));
+  std::size_t hi = std::min(lo + 1, v.size() - 1);
+  return v[lo] + (pos - static_cast<double>(lo)) * (v[hi] - v[lo]);
+}
+
+std::vector<double> bootstrap_column(const RelationResult& rr, int j) {
+  std::vector<double> v;
+  for (Eigen::Index b = 0; b < rr.bootstrap.rows(); ++b)
+    if (std::isfinite(rr.bootstrap(b, j))) v.push_back(rr.bootstrap(b, j));
+  return v;
+}
+
+int index_of(const ParameterLayout& L, const std::string& name) {
+  for (std::size_t j = 0; j < L.names.size(); ++j)
+    if (L.names[j] == name) return static_cast<int>(j);
+  throw std::out_of_range("no fit parameter named " + name);
+}
+
+}  // namespace
+
+std::string FitOptions::check() const {
+  if (input_path.empty()) return "fit.input: required";
+  if (output_path.empty()) return "fit.output: required";
+  if (relations.empty()) return "relation: at least one [[relation]] is required";
+  if (!(loss_scale > 0)) return "fit.loss_scale: must be positive";
+  if (clip_sigma < 0) return "fit.clip_sigma: must be 0 (off) or positive";
+  if (bootstrap < 0) return "fit.bootstrap: must be 0 or more";
+  if (zero_point == ZeroPointRecipe::kLindegren2021 && (zero_point_table_5p.empty() || zero_point_table_6p.empty()))
+    return "fit.zero_point_table_5p: both Lindegren et al. 2021 tables are required for that recipe";
+  if (inflation == InflationRecipe::kConstant && !(inflation_factor > 0)) return "fit.inflation_factor: must be positive";
+  if (scatter.mode == ParamMode::kPrior) return "fit.scatter: free or fixed only";
+  for (const auto& r : relations) {
+    if (r.band.empty() && r.magnitude_column.empty()) return "relation.band: required";
+    if (r.slope.mode == ParamMode::kPrior && !(r.slope.prior_sigma > 0)) return "relation.slope: a prior needs sigma > 0";
+    if (!(r.min_log_period < r.max_log_period)) return "relation.log_period_range: minimum must be below maximum";
+    for (const auto& m : r.modes)
+      if (!kPulsationModeNames.parse(m)) return "relation.modes: unknown mode '" + m + "'";
+    for (const auto& c : r.classes)
+      if (!kPulsatorClassNames.parse(c)) return "relation.classes: unknown class '" + c + "'";
+  }
+  for (const auto& a : anchors)
+    if (!(a.mu_err > 0)) return "anchor.mu_err: must be positive (" + a.group + ")";
+  return "";
+}
+
+FitOptions fit_options_from_file(const std::string& path) {
+  Config c = Config::from_file(path);
+  ConfigSection root = c.root();
+  auto f = root.section("fit");
+  if (!f) throw InputError({path, {}, "fit", "line", "key"}, "config_missing_key", "a [fit] table is required");
+  FitOptions o;
+  o.config_file = path;
+  o.config_sha256 = c.sha256();
+  o.input_path = c.resolve_path(f->require_string("input"));
+  o.output_path = c.resolve_path(f->string_or("output", o.output_path));
+  if (auto r = f->get_string("residuals")) o.residuals_path = c.resolve_path(*r);
+  o.space = enum_from(*f, "space", kFitSpaceNames, o.space);
+  o.loss = enum_from(*f, "loss", kLossNames, o.loss);
+  o.loss_scale = f->number_or("loss_scale", o.loss_scale);
+  o.clip_sigma = f->number_or("clip_sigma", o.clip_sigma);
+  o.clip_iterations = static_cast<int>(f->integer_or("clip_iterations", o.clip_iterations));
+  o.zero_point = enum_from(*f, "zero_point", kZeroPointRecipeNames, o.zero_point);
+  o.zero_point_mas = f->number_or("zero_point_mas", o.zero_point_mas);
+  if (auto t = f->get_string("zero_point_table_5p")) o.zero_point_table_5p = c.resolve_path(*t);
+  if (auto t = f->get_string("zero_point_table_6p")) o.zero_point_table_6p = c.resolve_path(*t);
+  o.inflation = enum_from(*f, "inflation", kInflationRecipeNames, o.inflation);
+  o.inflation_factor = f->number_or("inflation_factor", o.inflation_factor);
+  o.max_ruwe = f->number_or("max_ruwe", o.max_ruwe);
+  o.use_known_mu = f->bool_or("use_known_distance", o.use_known_mu);
+  o.offset = param_from(*f, "offset", o.offset);
+  o.scatter = param_from(*f, "scatter", o.scatter);
+  o.bootstrap = static_cast<int>(f->integer_or("bootstrap", o.bootstrap));
+  o.seed = static_cast<std::uint64_t>(f->integer_or("seed", static_cast<std::int64_t>(o.seed)));
+  o.threads = static_cast<int>(f->integer_or("threads", o.threads));
+  for (const auto& r : root.section_list("relation")) {
+    RelationOptions rel;
+    rel.band = r.string_or("band", "");
+    rel.name = r.string_or("name", rel.band);
+    rel.magnitude_column = r.string_or("magnitude_column", "");
+    rel.error_column = r.string_or("error_column", "");
+    if (rel.name.empty()) rel.name = rel.magnitude_column;
+    rel.pivot_log_period = r.number_or("pivot_log_period", rel.pivot_log_period);
+    rel.slope = param_from(r, "slope", rel.slope);
+    rel.break_log_period = r.get_number("break_log_period");
+    rel.metallicity = r.bool_or("metallicity", rel.metallicity);
+    if (auto v = r.get_string_list("classes")) rel.classes = *v;
+    if (auto v = r.get_string_list("modes")) rel.modes = *v;
+    rel.fundamentalize = r.bool_or("fundamentalize", rel.fundamentalize);
+    if (auto v = r.get_number_list("log_period_range")) {
+      if (v->size() != 2) r.fail("log_period_range", "must be [min, max]");
+      rel.min_log_period = (*v)[0];
+      rel.max_log_period = (*v)[1];
+    }
+    o.relations.push_back(rel);
+  }
+  for (const auto& a : root.section_list("anchor")) {
+    AnchorOptions an;
+    an.group = a.require_string("group");
+    an.mu = a.number_or("mu", 0.0);
+    an.mu_err = a.number_or("mu_err", 0.0);
+    o.anchors.push_back(an);
+  }
+  c.check_unknown_keys();
+  if (std::string err = o.check(); !err.empty())
+    throw InputError({path, {}, err.substr(0, err.find(':')), "line", "key"}, "config_value", err.substr(err.find(':') + 2));
+  return o;
+}
+
+double RelationResult::parameter(const std::string& name) const { return solution.theta[index_of(layout, name)]; }
+double RelationResult::error(const std::string& name) const {
+  int j = index_of(layout, name);
+  if (!covariance_ok || !std::isfinite(covariance(j, j))) return std::numeric_limits<double>::quiet_NaN();
+  return std::sqrt(std::max(0.0, covariance(j, j)));
+}
+double RelationResult::bootstrap_error(const std::string& name) const {
+  std::vector<double> v = bootstrap_column(*this, index_of(layout, name));
+  if (v.size() < 2) return std::numeric_limits<double>::quiet_NaN();
+  double m = 0;
+  for (double x : v) m += x;
+  m /= static_cast<double>(v.size());
+  double s = 0;
+  for (double x : v) s += (x - m) * (x - m);
+  return std::sqrt(s / static_cast<double>(v.size() - 1));
+}
+
+FitResult run_fit(const FitOptions& o, const StarTable& cat) {
+  if (std::string err = o.check(); !err.empty()) throw InputError({o.config_file, {}, {}, "line", "key"}, "config_value", err);
+  ParallaxTools tools;
+  if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
+    tools.zp5 = ZeroPointTable::from_file(o.zero_point_table_5p);
+    tools.zp6 = ZeroPointTable::from_file(o.zero_point_table_6p);
+  }
+  std::vector<std::string> anchor_names;
+  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
+  FitResult result;
+  for (const auto& rel : o.relations) {
+    RelationResult rr;
+    rr.relation = rel;
+    rr.layout = ParameterLayout::for_terms(ModelTerms{rel.pivot_log_period, rel.break_log_period.has_value(),
+                                                      rel.break_log_period.value_or(0.0), rel.metallicity,
+                                                      static_cast<int>(o.anchors.size())},
+                                           anchor_names);
+    rr.settings = settings_for(o, rel, rr.layout);
+    Calibrators c = select_calibrators(o, rel, cat, tools, o.offset);
+    rr.stars = c.stars;
+    check_constrained(o, rel, c, rr.settings, rr.layout);
+    if (o.space == FitSpace::kMagnitude) {
+      int noisy = 0;
+      for (Eigen::Index i = 0; i < c.data.parallax.size(); ++i)
+        noisy += std::sqrt(c.data.var_plx[i]) > 0.1 * c.data.plx[i] ? 1 : 0;
+      if (noisy > 0) {
+        rr.warnings.push_back(fmt::format(
+            "{} of {} parallax stars have sigma_pi/pi > 0.1: a magnitude-space fit of such parallaxes is biased "
+            "(Lutz-Kelker) and drops non-positive parallaxes; fit in parallax space instead",
+            noisy, c.data.parallax.size()));
+      }
+    }
+    // Fit, then clip |r| > k and refit until nothing more is clipped.
+    FitData data = c.data;
+    Eigen::VectorXd start = starting_vector(data, rr.settings, rr.layout);
+    rr.solution = solve_fit(data, rr.settings, rr.layout, start);
+    for (int pass = 0; o.clip_sigma > 0 && pass < o.clip_iterations; ++pass) {
+      StarResiduals res = star_residuals(data, rr.settings, rr.layout, rr.solution.theta);
+      std::vector<bool> dp(data.parallax.size()), dk(data.known.size()), da(data.anchor.size());
+      int clipped = 0;
+      Eigen::Index i = 0;
+      auto mark = [&](std::vector<bool>& drop, std::vector<std::size_t>& star_index) {
+        for (std::size_t k = 0; k < drop.size(); ++k, ++i) {
+          if (std::abs(res.r[i]) > o.clip_sigma) {
+            drop[k] = true;
+            ++clipped;
+            StarOutcome& s = rr.stars[star_index[k]];
+            s.used = false;
+            s.reason = fmt::format("clipped: |r| = {:.2f} > {}", std::abs(res.r[i]), o.clip_sigma);
+          }
+        }
+      };
+      mark(dp, c.p_star);
+      mark(dk, c.k_star);
+      mark(da, c.a_star);
+      if (clipped == 0) break;
+      rr.n_clipped += clipped;
+      auto keep_index = [](const std::vector<std::size_t>& v, const std::vector<bool>& drop) {
+        std::vector<std::size_t> out;
+        for (std::size_t k = 0; k < v.size(); ++k)
+          if (!drop[k]) out.push_back(v[k]);
+        return out;
+      };
+      c.p_star = keep_index(c.p_star, dp);
+      c.k_star = keep_index(c.k_star, dk);
+      c.a_star = keep_index(c.a_star, da);
+      data = data.without(dp, dk, da);
+      c.data = data;
+      check_constrained(o, rel, c, rr.settings, rr.layout);
+      rr.solution = solve_fit(data, rr.settings, rr.layout, rr.solution.theta);
+    }
+    c.data = data;
+    if (!rr.solution.usable)
+      rr.warnings.push_back("the solver did not reach a usable solution: " + rr.solution.message);
+    rr.covariance_ok = fit_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);
+    if (!rr.covariance_ok) rr.warnings.push_back("the covariance could not be computed (degenerate parameters?)");
+    fill_star_residuals(rr, c);
+    run_bootstrap(o, rr, data);
+    for (const auto& w : rr.warnings) spdlog::warn("relation {}: {}", rel.name, w);
+    result.relations.push_back(std::move(rr));
+  }
+  return result;
+}
+
+nlohmann::json FitResult::to_json(const FitOptions& o) const {
+  using nlohmann::json;
+  json out;
+  out["schema"] = "rungcal-fit";
+  out["schema_version"] = kFitSchemaVersion;
+  out["provenance"] = {{"stage", provenance.stage},
+                       {"software_version", provenance.software_version},
+                       {"software_commit", provenance.software_commit},
+                       {"created_utc", provenance.created_utc},
+                       {"config_sha256", provenance.config_sha256}};
+  for (const auto& in : provenance.inputs)
+    out["provenance"]["inputs"].push_back({{"path", in.path}, {"sha256", in.sha256}, {"rows", in.rows}});
+  out["model"] = {{"space", std::string(kFitSpaceNames.name(o.space))},
+                  {"loss", std::string(kLossNames.name(o.loss))},
+                  {"loss_scale", o.loss_scale},
+                  {"clip_sigma", o.clip_sigma},
+                  {"zero_point", std::string(kZeroPointRecipeNames.name(o.zero_point))},
+                  {"zero_point_mas", o.zero_point_mas},
+                  {"inflation", std::string(kInflationRecipeNames.name(o.inflation))},
+                  {"inflation_factor", o.inflation_factor},
+                  {"max_ruwe", o.max_ruwe},
+                  {"bootstrap", o.bootstrap},
+                  {"seed", o.seed}};
+  auto finite_or_null = [](double v) { return std::isfinite(v) ? json(v) : json(nullptr); };
+  for (const auto& rr : relations) {
+    json r;
+    r["name"] = rr.relation.name;
+    r["band"] = rr.relation.band;
+    r["pivot_log_period"] = rr.relation.pivot_log_period;
+    if (rr.relation.break_log_period) r["break_log_period"] = *rr.relation.break_log_period;
+    r["metallicity"] = rr.relation.metallicity;
+    r["parameter_names"] = rr.layout.names;
+    for (int j = 0; j < rr.layout.size; ++j) {
+      const auto& name = rr.layout.names[j];
+      std::vector<double> boot = bootstrap_column(rr, j);
+      json p = {{"name", name},
+                {"value", rr.solution.theta[j]},
+                {"mode", std::string(kParamModeNames.name(rr.settings.params[j].mode))},
+                {"error", rr.settings.params[j].mode == ParamMode::kFixed ? json(0.0) : finite_or_null(rr.error(name))},
+                {"bootstrap_error", finite_or_null(rr.bootstrap_error(name))},
+                {"p16", finite_or_null(percentile(boot, 0.16))},
+                {"p50", finite_or_null(percentile(boot, 0.50))},
+                {"p84", finite_or_null(percentile(boot, 0.84))}};
+      if (rr.settings.params[j].mode == ParamMode::kPrior)
+        p["prior"] = {{"mean", rr.settings.params[j].value}, {"sigma", rr.settings.params[j].prior_sigma}};
+      r["parameters"].push_back(p);
+    }
+    json cov = json::array(), corr = json::array();
+    for (int i = 0; i < rr.layout.size; ++i) {
+      json row = json::array(), crow = json::array();
+      for (int j = 0; j < rr.layout.size; ++j) {
+        double cij = rr.covariance_ok ? rr.covariance(i, j) : std::numeric_limits<double>::quiet_NaN();
+        row.push_back(finite_or_null(cij));
+        double d = rr.covariance_ok ? std::sqrt(rr.covariance(i, i) * rr.covariance(j, j)) : 0.0;
+        crow.push_back(d > 0 ? json(cij / d) : json(nullptr));
+      }
+      cov.push_back(row);
+      corr.push_back(crow);
+    }
+    r["covariance"] = cov;
+    r["correlation"] = corr;
+    int rejected = 0;
+    for (const auto& s : rr.stars) rejected += s.used ? 0 : 1;
+    r["statistics"] = {{"chi2", rr.chi2},
+                       {"dof", rr.dof},
+                       {"n_used", rr.n_used},
+                       {"n_rejected", rejected},
+                       {"n_clipped", rr.n_clipped},
+                       {"n_free_parameters", rr.n_free},
+                       {"neg2_log_likelihood", rr.neg2_log_likelihood},
+                       {"aic", rr.aic},
+                       {"bic", rr.bic},
+                       {"bootstrap_resamples", rr.bootstrap.rows()},
+                       {"bootstrap_failed", rr.bootstrap_failed}};
+    r["solver"] = {{"termination", rr.solution.termination},
+                   {"message", rr.solution.message},
+                   {"iterations", rr.solution.iterations},
+                   {"usable", rr.solution.usable},
+                   {"brief_report", rr.solution.brief_report}};
+    r["rejected"] = json::array();
+    for (const auto& s : rr.stars)
+      if (!s.used) r["rejected"].push_back({{"id", s.id}, {"reason", s.reason}});
+    r["warnings"] = rr.warnings;
+    out["relations"].push_back(r);
+  }
+  return out;
+}
+
+std::string fit_summary(const FitResult& result) {
+  std::string out;
+  for (const auto& rr : result.relations) {
+    out += fmt::format("{}: {} stars used, {} refused, chi2/dof = {:.2f}/{}\n", rr.relation.name, rr.n_used,
+                       rr.stars.size() - static_cast<std::size_t>(rr.n_used), rr.chi2, rr.dof);
+    for (int j = 0; j < rr.layout.size; ++j) {
+      const std::string& name = rr.layout.names[j];
+      if (rr.settings.params[j].mode == ParamMode::kFixed) {
+        out += fmt::format("  {:<22} {:>10.4f} (fixed)\n", name, rr.solution.theta[j]);
+        continue;
+      }
+      double e = rr.error(name);
+      if (std::isfinite(e)) out += fmt::format("  {:<22} {:>10.4f} +- {:.4f}", name, rr.solution.theta[j], e);
+      else out += fmt::format("  {:<22} {:>10.4f} (on its boundary: no covariance error)", name, rr.solution.theta[j]);
+      double be = rr.bootstrap_error(name);
+      if (std::isfinite(be)) out += fmt::format("  (bootstrap {:.4f})", be);
+      out += "\n";
+    }
+  }
+  return out;
+}
+
+FitResult fit_catalog_file(const FitOptions& o) {
+  SourceTable in = read_fits_table(o.input_path, {"CATALOG", 0});
+  FitResult result = run_fit(o, in.table);
+  result.provenance = Provenance::for_stage("fit");
+  result.provenance.config_sha256 = o.config_sha256;
+  result.provenance.inputs.push_back({o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(in.table.rows())});
+  if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
+    result.provenance.inputs.push_back({o.zero_point_table_5p, sha256_file(o.zero_point_table_5p), -1});
+    result.provenance.inputs.push_back({o.zero_point_table_6p, sha256_file(o.zero_point_table_6p), -1});
+  }
+  // Residuals per star and relation.
+  StarTable res;
+  for (const char* c : {"relation", "id", "kind", "reason"}) res.add_column(c, ColumnType::kText);
+  res.add_column("used", ColumnType::kBoolean);
+  res.add_column("log_period_f", ColumnType::kReal, "", "log10 of the (fundamentalized) period in days");
+  res.add_column("m0", ColumnType::kReal, "mag", "magnitude the relation uses");
+  res.add_column("m0_err", ColumnType::kReal, "mag");
+  res.add_column("abs_mag_model", ColumnType::kReal, "mag", "relation's absolute magnitude");
+  res.add_column("residual", ColumnType::kReal, "", "normalised residual at the optimum");
+  res.add_column("parallax_corrected_mas", ColumnType::kReal, "mas", "parallax minus zero point");
+  res.add_column("parallax_err_mas", ColumnType::kReal, "mas", "inflated parallax error");
+  res.add_column("predicted", ColumnType::kReal, "", "photometric parallax (mas, parallax space) or predicted m0");
+  for (const auto& rr : result.relations) {
+    for (const auto& s : rr.stars) {
+      res.column("relation").push_text(rr.relation.name);
+      res.column("id").push_text(s.id);
+      s.kind.empty() ? res.column("kind").push_null() : res.column("kind").push_text(s.kind);
+      s.reason.empty() ? res.column("reason").push_null() : res.column("reason").push_text(s.reason);
+      res.column("used").push_boolean(s.used);
+      res.column("log_period_f").push_real(s.kind.empty() && s.log_period == 0 ? std::nan("") : s.log_period);
+      res.column("m0").push_real(s.m0_err > 0 ? s.m0 : std::nan(""));
+      res.column("m0_err").push_real(s.m0_err > 0 ? s.m0_err : std::nan(""));
+      res.column("abs_mag_model").push_real(s.model_abs_mag);
+      res.column("residual").push_real(s.residual);
+      res.column("parallax_corrected_mas").push_real(s.plx);
+      res.column("parallax_err_mas").push_real(s.plx_err);
+      res.column("predicted").push_real(s.predicted);
+    }
+  }
+  stamp_provenance(res, result.provenance, "fit_residuals");
+  std::string residuals = o.residuals_path;
+  if (residuals.empty()) {
+    std::filesystem::path p(o.output_path);
+    residuals = (p.parent_path() / (p.stem().string() + "_residuals.fits")).string();
+  }
+  write_fits_tables(residuals, {{"RESIDUALS", &res}});
+  write_file_atomically(o.output_path, result.to_json(o).dump(2) + "\n");
+  return result;
+}
+
+}  // namespace rungcal

@@ -1,0 +1,126 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <cstdint>
+#include <limits>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+#include "rungcal/astrometry/astrometry.hpp"
+#include "rungcal/core/provenance.hpp"
+#include "rungcal/plfit/model.hpp"
+#include "rungcal/table/star_table.hpp"
+
+namespace rungcal {
+
+// Schema version of the fit result (docs/file-formats.md, "Fit result").
+inline constexpr int kFitSchemaVersion = 1;
+
+// One period-luminosity relation to fit.
+struct RelationOptions {
+  std::string name;              // label in outputs (default: the band)
+  std::string band;              // band or Wesenheit name: uses mag0_<band>, mag0_err_<band>
+  std::string magnitude_column;  // override, e.g. "mag_W_H" for a Wesenheit given in the input
+  std::string error_column;      // override of the error column
+  double pivot_log_period = 1.0;  // log P0
+  ParamSpec slope;                // beta: free, fixed (e.g. -3.26) or with a prior
+  std::optional<double> break_log_period;  // a second slope above log Pb when set
+  bool metallicity = false;       // gamma [Fe/H] term
+  std::vector<std::string> classes = {"classical_cepheid"};             // pulsator classes used
+  std::vector<std::string> modes = {"fundamental", "first_overtone"};   // modes used
+  bool fundamentalize = true;     // first-overtone periods -> fundamental (fundamentalized_log_period)
+  double min_log_period = -std::numeric_limits<double>::infinity();     // of the (fundamentalized) period
+  double max_log_period = std::numeric_limits<double>::infinity();
+};
+
+// An anchor galaxy: its stars (catalog group == name) share one distance modulus, a fit
+// parameter with a Gaussian prior from a geometric distance.
+struct AnchorOptions {
+  std::string group;
+  double mu = 0;
+  double mu_err = 0;
+};
+
+struct FitOptions {
+  std::string input_path;      // dereddened catalog (HDU CATALOG)
+  std::string output_path = "out/fit.json";            // the fit result
+  std::string residuals_path;  // per-star residuals (FITS); "" = beside the result
+  FitSpace space = FitSpace::kParallax;  // residual space of parallax calibrators
+  LossKind loss = LossKind::kHuber;      // robust loss
+  double loss_scale = 3.0;               // its scale, in units of each star's sigma
+  double clip_sigma = 0.0;               // > 0: iterative k-sigma clipping on |r|
+  int clip_iterations = 10;              // at most this many clipping passes
+  ZeroPointRecipe zero_point = ZeroPointRecipe::kNone;  // parallax zero point Z
+  double zero_point_mas = 0.0;           // Z for the constant recipe
+  std::string zero_point_table_5p;       // Lindegren et al. 2021 tables
+  std::string zero_point_table_6p;
+  InflationRecipe inflation = InflationRecipe::kNone;  // parallax error inflation
+  double inflation_factor = 1.0;         // for the constant recipe
+  double max_ruwe = 0.0;                 // > 0: parallax stars with RUWE above are refused
+  bool use_known_mu = true;              // stars with mu_mag enter as known-distance calibrators
+  ParamSpec offset;                      // residual parallax offset (mas): free, fixed or prior
+  ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free (ML) or fixed
+  int bootstrap = 0;                     // resamples over stars (0: none)
+  std::uint64_t seed = 1;                // bootstrap seed: results are the same for any thread count
+  int threads = 0;                       // 0: all cores
+  std::vector<RelationOptions> relations;
+  std::vector<AnchorOptions> anchors;
+  std::string config_file, config_sha256;
+  nlohmann::json resolved;               // the options as read, for the result file
+
+  // "" when usable, else "field: rule".
+  std::string check() const;
+};
+
+FitOptions fit_options_from_file(const std::string& path);
+
+// What happened to one catalog star in one relation.
+struct StarOutcome {
+  std::size_t row = 0;
+  std::string id;
+  std::string kind;    // parallax, known_distance, anchor, none
+  bool used = false;
+  std::string reason;  // why not used
+  double log_period = 0, m0 = 0, m0_err = 0;
+  double plx = std::numeric_limits<double>::quiet_NaN(), plx_err = std::numeric_limits<double>::quiet_NaN();
+  double residual = std::numeric_limits<double>::quiet_NaN();  // normalised, at the optimum
+  double model_abs_mag = std::numeric_limits<double>::quiet_NaN();
+  double predicted = std::numeric_limits<double>::quiet_NaN();   // pi_phot (parallax space) or m0 model
+};
+
+struct RelationResult {
+  RelationOptions relation;
+  ParameterLayout layout;
+  FitSettings settings;
+  FitSolution solution;
+  Eigen::MatrixXd covariance;
+  bool covariance_ok = false;
+  Eigen::MatrixXd bootstrap;  // resamples x parameters
+  int bootstrap_failed = 0;
+  std::vector<StarOutcome> stars;
+  double chi2 = 0, neg2_log_likelihood = 0, aic = 0, bic = 0;
+  int dof = 0, n_used = 0, n_clipped = 0, n_free = 0;
+  std::vector<std::string> warnings;
+  double parameter(const std::string& name) const;
+  double error(const std::string& name) const;            // from the covariance
+  double bootstrap_error(const std::string& name) const;  // standard deviation of the resamples
+};
+
+struct FitResult {
+  std::vector<RelationResult> relations;
+  Provenance provenance;
+  nlohmann::json to_json(const FitOptions& options) const;
+};
+
+// Selects each relation's calibrators (every refused star keeps its reason), fits, clips,
+// and computes covariance and bootstrap errors. Writes nothing.
+FitResult run_fit(const FitOptions& options, const StarTable& catalog);
+// Reads the catalog, runs, writes the result JSON and the residuals FITS atomically.
+FitResult fit_catalog_file(const FitOptions& options);
+// A few lines a person reads on the terminal.
+std::string fit_summary(const FitResult& result);
+
+}  // namespace rungcal
