@@ -12,6 +12,7 @@
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/model.hpp"
 #include "rungcal/simulate/random.hpp"
+#include "mock_samples.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
@@ -46,32 +47,8 @@ TEST(Losses, CheckValuesOfTheMethodBrief) {
   EXPECT_NEAR(rho[0], 2.302585, 1e-6);
 }
 
-// A mock parallax sample with known truth (simulation test data).
-struct Mock {
-  FitData data;
-  double alpha = -5.8, beta = -3.3, offset = -0.02, sigma = 0.08;
-};
-
-Mock mock_parallax_sample(std::uint64_t seed, int n, double outlier_fraction = 0.05) {
-  Mock m;
-  Random rng(seed);
-  auto& p = m.data.parallax;
-  p.x.resize(n), p.xl.resize(n), p.feh.resize(n), p.m0.resize(n), p.var_m.resize(n);
-  m.data.plx.resize(n), m.data.var_plx.resize(n);
-  for (int i = 0; i < n; ++i) {
-    double x = rng.uniform(-0.6, 0.8);
-    double d_kpc = 0.5 + 5.5 * std::sqrt(rng.uniform());
-    double mu = distance_modulus_from_parsec(d_kpc * 1e3);
-    double sm = 0.02, sp = 0.02 + 0.03 * rng.uniform();
-    double mag = m.alpha + m.beta * x + rng.normal(0, m.sigma) + mu + rng.normal(0, sm);
-    if (rng.uniform() < outlier_fraction) mag -= 1.0;
-    p.x[i] = x, p.xl[i] = 0, p.feh[i] = 0, p.m0[i] = mag, p.var_m[i] = sm * sm;
-    p.row.push_back(static_cast<std::size_t>(i));
-    m.data.plx[i] = 1.0 / d_kpc + m.offset + rng.normal(0, sp);
-    m.data.var_plx[i] = sp * sp;
-  }
-  return m;
-}
+using Mock = test::MockSample;
+using test::mock_parallax_sample;
 
 FitSettings settings_for(FitSpace space, LossKind loss, double scale, bool sigma_free, double sigma) {
   FitSettings s;
@@ -158,6 +135,7 @@ TEST(MaximumLikelihood, ScatterAgreesWithScipyMinimize) {
   test::TempDir dir;
   test::write_text(dir.file("d.csv"), to_csv(m));
   FitSettings s = settings_for(FitSpace::kParallax, LossKind::kNone, 1.0, true, 0.1);
+  s.scatter_estimator = ScatterEstimator::kLikelihood;
   ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
   FitSolution sol = solve_fit(m.data, s, L, starting_vector(m.data, s, L));
   ASSERT_TRUE(sol.usable);
@@ -183,7 +161,7 @@ print(*["%.17g" % v for v in t])
   EXPECT_NEAR(sol.theta[L.alpha], ref[0], 1e-5);
   EXPECT_NEAR(sol.theta[L.offset], ref[2], 1e-6);
   // And it recovers the simulated truth within errors.
-  EXPECT_NEAR(sol.theta[L.sigma], m.sigma, 0.03);
+  EXPECT_NEAR(sol.theta[L.sigma], m.truth.sigma, 0.03);
 }
 
 TEST(Covariance, LinearCaseEqualsStatsmodelsWls) {

@@ -210,6 +210,7 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, 
 FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const ParameterLayout& L) {
   FitSettings s;
   s.space = o.space;
+  s.scatter_estimator = o.scatter_estimator;
   s.loss = o.loss;
   s.loss_scale = o.loss_scale;
   s.terms.pivot_log_period = rel.pivot_log_period;
@@ -385,6 +386,7 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.use_known_mu = f->bool_or("use_known_distance", o.use_known_mu);
   o.offset = param_from(*f, "offset", o.offset);
   o.scatter = param_from(*f, "scatter", o.scatter);
+  o.scatter_estimator = enum_from(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
   o.bootstrap = static_cast<int>(f->integer_or("bootstrap", o.bootstrap));
   o.seed = static_cast<std::uint64_t>(f->integer_or("seed", static_cast<std::int64_t>(o.seed)));
   o.threads = static_cast<int>(f->integer_or("threads", o.threads));
@@ -537,6 +539,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     out["provenance"]["inputs"].push_back({{"path", in.path}, {"sha256", in.sha256}, {"rows", in.rows}});
   out["model"] = {{"space", std::string(kFitSpaceNames.name(o.space))},
                   {"loss", std::string(kLossNames.name(o.loss))},
+                  {"scatter_estimator", std::string(kScatterEstimatorNames.name(o.scatter_estimator))},
                   {"loss_scale", o.loss_scale},
                   {"clip_sigma", o.clip_sigma},
                   {"zero_point", std::string(kZeroPointRecipeNames.name(o.zero_point))},

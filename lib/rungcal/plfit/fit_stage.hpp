@@ -62,7 +62,8 @@ struct FitOptions {
   double max_ruwe = 0.0;                 // > 0: parallax stars with RUWE above are refused
   bool use_known_mu = true;              // stars with mu_mag enter as known-distance calibrators
   ParamSpec offset;                      // residual parallax offset (mas): free, fixed or prior
-  ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free (ML) or fixed
+  ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free or fixed
+  ScatterEstimator scatter_estimator = ScatterEstimator::kDecoupled;  // how a free scatter is estimated
   int bootstrap = 0;                     // resamples over stars (0: none)
   std::uint64_t seed = 1;                // bootstrap seed: results are the same for any thread count
   int threads = 0;                       // 0: all cores

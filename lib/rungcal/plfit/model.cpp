@@ -22,6 +22,7 @@ constexpr double kNormShift = 10.0;
 struct KindTerms {
   Eigen::ArrayXd r, d_m, d_off, d_sigma;          // dr/dM, dr/doffset, dr/dsigma
   Eigen::ArrayXd s2, s2_min, ds2_m, ds2_off, ds2_sigma;
+  Eigen::ArrayXd s2_base, s2_per_var;  // s^2 = s2_base + s2_per_var * sigma^2
   Eigen::ArrayXd abs_mag, predicted;
 };
 
@@ -46,6 +47,8 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
       Eigen::ArrayXd e = d.plx - off - pi;
       k.s2 = d.var_plx + kpi2 * var_tot;
       k.s2_min = d.var_plx;
+      k.s2_base = d.var_plx + kpi2 * c.var_m;
+      k.s2_per_var = kpi2;
       Eigen::ArrayXd s = k.s2.sqrt();
       k.r = e / s;
       k.ds2_m = 2.0 * kK5 * kpi2 * var_tot;
@@ -64,6 +67,8 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
       Eigen::ArrayXd vplx = kFiveOverLn10 * kFiveOverLn10 * d.var_plx / pc.square();
       k.s2 = var_tot + vplx;
       k.s2_min = c.var_m + 1e-30;  // a bound that does not move with the parameters
+      k.s2_base = c.var_m + vplx;
+      k.s2_per_var = Eigen::ArrayXd::Ones(n);
       Eigen::ArrayXd s = k.s2.sqrt();
       k.r = e / s;
       k.ds2_m = Eigen::ArrayXd::Zero(n);
@@ -82,6 +87,8 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
       Eigen::ArrayXd ka2 = (kK5 * a_model).square();
       k.s2 = f.square() * d.var_plx + ka2 * var_tot;
       k.s2_min = f.square() * d.var_plx;
+      k.s2_base = f.square() * d.var_plx + ka2 * c.var_m;
+      k.s2_per_var = ka2;
       Eigen::ArrayXd s = k.s2.sqrt();
       k.r = e / s;
       k.ds2_m = 2.0 * kK5 * ka2 * var_tot;
@@ -107,6 +114,8 @@ KindTerms magnitude_terms(const FitData::Common& c, const Eigen::ArrayXd& mu, co
   Eigen::ArrayXd e = c.m0 - mu - k.abs_mag;
   k.s2 = c.var_m + var_mu + t[L.sigma];
   k.s2_min = c.var_m + var_mu;
+  k.s2_base = k.s2_min;
+  k.s2_per_var = Eigen::ArrayXd::Ones(n);
   Eigen::ArrayXd s = k.s2.sqrt();
   k.r = e / s;
   k.d_m = -1.0 / s;
@@ -158,7 +167,11 @@ bool scatter_is_free(const FitSettings& s, const ParameterLayout& L) { return s.
 // whose squares sum to the robust objective exactly.
 class RelationCost final : public ceres::CostFunction {
  public:
-  RelationCost(const FitData& d, const FitSettings& s, const ParameterLayout& L) : d_(d), s_(s), L_(L) {
+  // reference: internal parameters at which A and B of s^2 = A + B sigma^2 are frozen for
+  // the normalisation (decoupled estimator); nullptr for the full likelihood.
+  RelationCost(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd* reference)
+      : d_(d), s_(s), L_(L) {
+    if (reference) frozen_ = all_terms(d, s, L, *reference);
     n_stars_ = static_cast<int>(d.stars());
     n_norm_ = scatter_is_free(s, L) ? n_stars_ : 0;
     for (int j = 0; j < L.size; ++j)
@@ -184,8 +197,11 @@ class RelationCost final : public ceres::CostFunction {
       Eigen::ArrayXd f, df_dr;
       robust(k.r, f, df_dr);
       Eigen::Map<Eigen::ArrayXd>(residuals + row, n) = f;
+      const bool frozen = !frozen_.empty();
+      Eigen::ArrayXd norm_s2;
       if (n_norm_) {
-        Eigen::ArrayXd arg = (k.s2 / k.s2_min).log() + kNormShift;
+        norm_s2 = frozen ? Eigen::ArrayXd(frozen_[kind].s2_base + frozen_[kind].s2_per_var * theta[L_.sigma]) : k.s2;
+        Eigen::ArrayXd arg = (norm_s2 / k.s2_min).log() + kNormShift;
         Eigen::Map<Eigen::ArrayXd>(residuals + n_stars_ + row, n) = arg.sqrt();
       }
       if (jacobians && jacobians[0]) {
@@ -198,7 +214,10 @@ class RelationCost final : public ceres::CostFunction {
         J.block(row, L_.sigma, n, 1) = (df_dr * k.d_sigma).matrix();
         if (kind == 2)
           for (Eigen::Index i = 0; i < n; ++i) J(row + i, L_.anchor0 + d_.group[i]) = gm[i];
-        if (n_norm_) {
+        if (n_norm_ && frozen) {
+          Eigen::ArrayXd arg = (norm_s2 / k.s2_min).log() + kNormShift;
+          J.block(n_stars_ + row, L_.sigma, n, 1) = (0.5 / (arg.sqrt() * norm_s2) * frozen_[kind].s2_per_var).matrix();
+        } else if (n_norm_) {
           Eigen::ArrayXd arg = (k.s2 / k.s2_min).log() + kNormShift;
           Eigen::ArrayXd g = 0.5 / (arg.sqrt() * k.s2);  // d sqrt(arg) / d s^2
           const int nr = n_stars_ + row;
@@ -243,6 +262,7 @@ class RelationCost final : public ceres::CostFunction {
   const ParameterLayout& L_;
   int n_stars_ = 0, n_norm_ = 0;
   std::vector<int> priors_;
+  std::vector<KindTerms> frozen_;
 };
 
 void configure_problem(ceres::Problem& problem, RelationCost* cost, const FitSettings& s, const ParameterLayout& L,
@@ -384,13 +404,16 @@ Eigen::VectorXd starting_vector(const FitData& d, const FitSettings& s, const Pa
   return t;
 }
 
-FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& start) {
+namespace {
+
+FitSolution solve_once(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& start_internal,
+                       const Eigen::VectorXd* reference) {
   FitSolution sol;
-  sol.theta = to_internal(start, L);
+  sol.theta = start_internal;
   ceres::Problem::Options po;
   po.cost_function_ownership = ceres::TAKE_OWNERSHIP;
   ceres::Problem problem(po);
-  configure_problem(problem, new RelationCost(d, s, L), s, L, sol.theta.data());
+  configure_problem(problem, new RelationCost(d, s, L, reference), s, L, sol.theta.data());
   ceres::Solver::Options so;
   so.linear_solver_type = ceres::DENSE_QR;
   so.max_num_iterations = s.max_iterations;
@@ -407,6 +430,34 @@ FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLay
   sol.iterations = static_cast<int>(summary.iterations.size());
   sol.cost = summary.final_cost;
   sol.brief_report = summary.BriefReport();
+  return sol;
+}
+
+bool decoupled(const FitSettings& s, const ParameterLayout& L) {
+  return scatter_is_free(s, L) && s.scatter_estimator == ScatterEstimator::kDecoupled;
+}
+
+}  // namespace
+
+FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& start) {
+  Eigen::VectorXd x = to_internal(start, L);
+  if (!decoupled(s, L)) {
+    FitSolution sol = solve_once(d, s, L, x, nullptr);
+    sol.theta = to_external(sol.theta, L);
+    return sol;
+  }
+  // Fixed point: freeze s^2 = A + B sigma^2 at the last solution, solve, repeat.
+  FitSolution sol;
+  int total = 0;
+  for (int pass = 0; pass < 50; ++pass) {
+    Eigen::VectorXd reference = x;
+    sol = solve_once(d, s, L, x, &reference);
+    total += sol.iterations;
+    double change = (sol.theta - reference).cwiseAbs().maxCoeff();
+    x = sol.theta;
+    if (!sol.usable || change < 1e-11) break;
+  }
+  sol.iterations = total;
   sol.theta = to_external(sol.theta, L);
   return sol;
 }
@@ -414,10 +465,11 @@ FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLay
 bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& theta,
                     Eigen::MatrixXd& covariance) {
   Eigen::VectorXd t = to_internal(theta, L);
+  const Eigen::VectorXd reference = t;
   ceres::Problem::Options po;
   po.cost_function_ownership = ceres::TAKE_OWNERSHIP;
   ceres::Problem problem(po);
-  configure_problem(problem, new RelationCost(d, s, L), s, L, t.data());
+  configure_problem(problem, new RelationCost(d, s, L, decoupled(s, L) ? &reference : nullptr), s, L, t.data());
   ceres::Covariance::Options co;
   co.algorithm_type = ceres::DENSE_SVD;
   ceres::Covariance cov(co);

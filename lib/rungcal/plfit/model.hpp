@@ -91,7 +91,25 @@ struct FitData {
   FitData without(const std::vector<bool>& drop_p, const std::vector<bool>& drop_k, const std::vector<bool>& drop_a) const;
 };
 
+// How a free intrinsic scatter is estimated.
+enum class ScatterEstimator {
+  // sigma solves the Gaussian likelihood's score equation for sigma, with each star's
+  // s^2 = A + B sigma^2 taken at the solution (A, B frozen and iterated to a fixed point);
+  // the other parameters solve their weighted least-squares equations. In parallax space
+  // B = (0.2 ln10 pi_phot)^2 depends on the zero point, and the full likelihood's ln s^2
+  // term then pulls the zero point (0.4 sigma in tests/fit_stage_test.cpp's simulation):
+  // the scatter is Gaussian in magnitude, not in parallax. The default.
+  kDecoupled,
+  // The full Gaussian likelihood, normalisation included, over all parameters at once.
+  kLikelihood,
+};
+inline constexpr EnumTable<ScatterEstimator, 2> kScatterEstimatorNames{{{
+    {ScatterEstimator::kDecoupled, "decoupled"},
+    {ScatterEstimator::kLikelihood, "likelihood"},
+}}};
+
 struct FitSettings {
+  ScatterEstimator scatter_estimator = ScatterEstimator::kDecoupled;
   FitSpace space = FitSpace::kParallax;
   LossKind loss = LossKind::kNone;
   double loss_scale = 3.0;  // in units of sigma
@@ -120,8 +138,8 @@ struct FitSolution {
 
 // Solves with Ceres (Levenberg-Marquardt, dense QR) from a start vector. With the scatter
 // free, the Gaussian likelihood's log-normalisation sum ln s^2 is part of the objective
-// (as extra residuals sqrt(ln s_i^2 + K_i), K_i keeping the root real), so the scatter is
-// the maximum-likelihood one; least squares alone would drive it to infinity.
+// (as extra residuals sqrt(ln s_i^2 + K_i), K_i keeping the root real): least squares alone
+// would drive the scatter to infinity. See ScatterEstimator for which parameters it acts on.
 FitSolution solve_fit(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                       const Eigen::VectorXd& start);
 
