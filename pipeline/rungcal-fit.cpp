@@ -19,6 +19,7 @@ int main(int argc, char** argv) {
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("fit", common.verbosity(), common.log_file);
+  rungcal::keep_freed_memory_for_reuse();
 
   return rungcal::run_stage("fit", [&] {
     rungcal::FitOptions options = rungcal::fit_options_from_file(config_path);

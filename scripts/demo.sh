@@ -13,8 +13,11 @@ echo "== ingest: Halden Peak Observatory calibrators (sample_data/calibrators.fi
 "$bin/rungcal-ingest" --config config/demo/ingest.toml
 echo "== deredden: extinction-corrected and Wesenheit magnitudes"
 "$bin/rungcal-deredden" --config config/demo/deredden.toml
+echo "== fit: period-luminosity relations in parallax space (truth: sample_data/truth.json)"
+"$bin/rungcal-fit" --config config/demo/fit.toml
 echo
 echo "Demo outputs:"
-for f in demo_out/catalog.fits demo_out/catalog_rejects.csv demo_out/catalog_dereddened.fits; do
+for f in demo_out/catalog.fits demo_out/catalog_rejects.csv demo_out/catalog_dereddened.fits \
+         demo_out/fit.json demo_out/fit_residuals.fits; do
   echo "  $(pwd)/$f"
 done

@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/core/log.hpp"
 
+#include <malloc.h>
 #include <unistd.h>
 
 #include <spdlog/sinks/basic_file_sink.h>
@@ -10,6 +11,11 @@
 #include <vector>
 
 namespace rungcal {
+
+void keep_freed_memory_for_reuse() {
+  mallopt(M_TRIM_THRESHOLD, 512 << 20);
+  mallopt(M_MMAP_THRESHOLD, 256 << 20);
+}
 
 bool stderr_is_terminal() { return ::isatty(STDERR_FILENO) == 1; }
 

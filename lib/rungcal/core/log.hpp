@@ -13,6 +13,11 @@ enum class Verbosity { kQuiet, kNormal, kVerbose };
 // message at debug level regardless.
 void setup_logging(const std::string& stage, Verbosity verbosity, const std::string& log_file = "");
 
+// Keeps freed heap memory in the process (glibc trim and mmap thresholds raised): stages
+// that solve thousands of small problems (bootstrap) otherwise spend most of their time in
+// page faults as glibc returns and re-maps the same buffers. Call once from a stage's main.
+void keep_freed_memory_for_reuse();
+
 // True when stderr is a terminal (progress bars and info messages are shown).
 bool stderr_is_terminal();
 

@@ -277,6 +277,11 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
   rr.bootstrap = Eigen::MatrixXd::Constant(B, P, std::numeric_limits<double>::quiet_NaN());
   std::vector<char> ok(B, 0);
   std::atomic<int> next{0};
+  // Resamples start at the optimum; 1e-9 in the cost and 1e-8 in the step are far below
+  // their statistical spread.
+  FitSettings settings = rr.settings;
+  settings.function_tolerance = 1e-9;
+  settings.parameter_tolerance = 1e-8;
   Progress progress("bootstrap " + rr.relation.name, static_cast<std::size_t>(B));
   auto worker = [&] {
     for (int b = next++; b < B; b = next++) {
@@ -295,7 +300,7 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
         for (std::size_t k = 0; k < members.size(); ++k) ai.push_back(members[rng.below(members.size())]);
       }
       FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
-      FitSolution s = solve_fit(sample, rr.settings, rr.layout, rr.solution.theta);
+      FitSolution s = solve_fit(sample, settings, rr.layout, rr.solution.theta);
       if (s.usable) {
         rr.bootstrap.row(b) = s.theta.transpose();
         ok[b] = 1;

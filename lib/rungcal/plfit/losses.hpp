@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <cmath>
 #include <memory>
 
 #include <Eigen/Core>
@@ -30,7 +31,41 @@ inline constexpr EnumTable<LossKind, 5> kLossNames{{{
     {LossKind::kTukey, "tukey"},
 }}};
 
-// rho(s) and rho'(s) element-wise, vectorised (the fit evaluates thousands per step).
+// rho(s) and rho'(s) of one squared residual: the single definition every caller uses.
+inline void loss_terms(LossKind kind, double a, double s, double& rho, double& rho1) {
+  const double b = a * a;
+  switch (kind) {
+    case LossKind::kNone: rho = s, rho1 = 1.0; return;
+    case LossKind::kHuber:
+      if (s > b) {
+        double root = std::sqrt(s);
+        rho = 2.0 * a * root - b, rho1 = a / root;
+      } else {
+        rho = s, rho1 = 1.0;
+      }
+      return;
+    case LossKind::kSoftL1: {
+      double t = std::sqrt(1.0 + s / b);
+      rho = 2.0 * b * (t - 1.0), rho1 = 1.0 / t;
+      return;
+    }
+    case LossKind::kCauchy: {
+      double t = 1.0 + s / b;
+      rho = b * std::log(t), rho1 = 1.0 / t;
+      return;
+    }
+    case LossKind::kTukey:
+      if (s > b) {
+        rho = b / 3.0, rho1 = 0.0;
+      } else {
+        double u = 1.0 - s / b;
+        rho = b / 3.0 * (1.0 - u * u * u), rho1 = u * u;
+      }
+      return;
+  }
+}
+
+// rho(s) and rho'(s) element-wise.
 void evaluate_loss(LossKind kind, double scale, const Eigen::ArrayXd& s, Eigen::ArrayXd& rho, Eigen::ArrayXd& rho1);
 
 // The same loss as a Ceres object (nullptr for kNone), for tests and per-block use.

@@ -17,88 +17,76 @@ constexpr double kFiveOverLn10 = 5.0 / 2.302585092994045684;
 // measurement variance alone) bounds s^2 below, so the root stays real.
 constexpr double kNormShift = 10.0;
 
-// One kind's residuals and their derivatives with respect to the absolute magnitude M,
-// the parallax offset, the intrinsic scatter sigma, and (through s^2) the same for s^2.
-struct KindTerms {
-  Eigen::ArrayXd r, d_m, d_off, d_sigma;          // dr/dM, dr/doffset, dr/dsigma
-  Eigen::ArrayXd s2, s2_min, ds2_m, ds2_off, ds2_sigma;
-  Eigen::ArrayXd s2_base, s2_per_var;  // s^2 = s2_base + s2_per_var * sigma^2
-  Eigen::ArrayXd abs_mag, predicted;
+// The parameters as plain numbers, unpacked once per evaluation.
+struct Params {
+  double alpha, beta, beta_long, gamma, offset, var;  // var = sigma^2 (the solver's slot)
 };
 
-Eigen::ArrayXd absolute_magnitude(const FitData::Common& c, const ParameterLayout& L, const Eigen::VectorXd& t) {
-  Eigen::ArrayXd m = t[L.alpha] + t[L.beta] * c.x;
-  if (L.beta_long >= 0) m += t[L.beta_long] * c.xl;
-  if (L.gamma >= 0) m += t[L.gamma] * c.feh;
-  return m;
+Params unpack(const ParameterLayout& L, const double* t) {
+  return {t[L.alpha], t[L.beta], L.beta_long >= 0 ? t[L.beta_long] : 0.0, L.gamma >= 0 ? t[L.gamma] : 0.0,
+          t[L.offset], t[L.sigma]};
 }
 
-KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout& L, const Eigen::VectorXd& t) {
-  const auto& c = d.parallax;
-  KindTerms k;
-  k.abs_mag = absolute_magnitude(c, L, t);
-  const double off = t[L.offset], sig2 = t[L.sigma];  // inside the solver the slot holds sigma^2
-  const Eigen::ArrayXd var_tot = c.var_m + sig2;
-  const Eigen::Index n = c.size();
+// One star's residual r and its derivatives with respect to the absolute magnitude M, the
+// parallax offset and sigma^2, and s^2 = base + per_var sigma^2 with the same derivatives.
+struct Term {
+  double r, d_m, d_off, d_var;
+  double s2, s2_min, ds2_m, ds2_off, s2_base, s2_per_var;
+  double abs_mag, predicted;
+};
+
+// r = e / s: dr = de / s - e ds^2 / (2 s^3).
+inline void finish(Term& k, double e, double de_m, double de_off) {
+  const double inv_s = 1.0 / std::sqrt(k.s2), h = 0.5 * e * inv_s * inv_s * inv_s;
+  k.r = e * inv_s;
+  k.d_m = de_m * inv_s - h * k.ds2_m;
+  k.d_off = de_off * inv_s - h * k.ds2_off;
+  k.d_var = -h * k.s2_per_var;
+}
+
+inline Term parallax_term(FitSpace space, double m0, double var_m, double plx, double var_plx, double abs_mag,
+                          const Params& p) {
+  Term k;
+  k.abs_mag = abs_mag;
   switch (space) {
     case FitSpace::kParallax: {
-      Eigen::ArrayXd pi = (-kK5 * (c.m0 - k.abs_mag - 10.0)).exp();
-      Eigen::ArrayXd kpi2 = (kK5 * pi).square();
-      Eigen::ArrayXd e = d.plx - off - pi;
-      k.s2 = d.var_plx + kpi2 * var_tot;
-      k.s2_min = d.var_plx;
-      k.s2_base = d.var_plx + kpi2 * c.var_m;
+      const double pi = std::exp(-kK5 * (m0 - abs_mag - 10.0)), kpi2 = kK5 * kK5 * pi * pi;
+      k.s2_base = var_plx + kpi2 * var_m;
       k.s2_per_var = kpi2;
-      Eigen::ArrayXd s = k.s2.sqrt();
-      k.r = e / s;
-      k.ds2_m = 2.0 * kK5 * kpi2 * var_tot;
-      k.ds2_off = Eigen::ArrayXd::Zero(n);
-      k.ds2_sigma = kpi2;
-      k.d_m = -kK5 * pi / s - 0.5 * e * k.ds2_m / (s * k.s2);
-      k.d_off = -1.0 / s;
-      k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
+      k.s2 = k.s2_base + kpi2 * p.var;
+      k.s2_min = var_plx;
+      k.ds2_m = 2.0 * kK5 * kpi2 * (var_m + p.var);
+      k.ds2_off = 0.0;
       k.predicted = pi;
-      break;
+      finish(k, plx - p.offset - pi, -kK5 * pi, -1.0);
+      return k;
     }
     case FitSpace::kMagnitude: {
-      Eigen::ArrayXd pc = (d.plx - off).max(1e-9);  // guarded: such stars are refused beforehand
-      Eigen::ArrayXd mu = kFiveOverLn10 * (100.0 / pc).log();
-      Eigen::ArrayXd e = c.m0 - mu - k.abs_mag;
-      Eigen::ArrayXd vplx = kFiveOverLn10 * kFiveOverLn10 * d.var_plx / pc.square();
-      k.s2 = var_tot + vplx;
-      k.s2_min = c.var_m + 1e-30;  // a bound that does not move with the parameters
-      k.s2_base = c.var_m + vplx;
-      k.s2_per_var = Eigen::ArrayXd::Ones(n);
-      Eigen::ArrayXd s = k.s2.sqrt();
-      k.r = e / s;
-      k.ds2_m = Eigen::ArrayXd::Zero(n);
+      const double pc = std::max(plx - p.offset, 1e-9);  // such stars are refused beforehand
+      const double mu = kFiveOverLn10 * std::log(100.0 / pc);
+      const double vplx = kFiveOverLn10 * kFiveOverLn10 * var_plx / (pc * pc);
+      k.s2_base = var_m + vplx;
+      k.s2_per_var = 1.0;
+      k.s2 = k.s2_base + p.var;
+      k.s2_min = var_m + 1e-30;  // a bound that does not move with the parameters
+      k.ds2_m = 0.0;
       k.ds2_off = 2.0 * vplx / pc;
-      k.ds2_sigma = Eigen::ArrayXd::Ones(n);
-      k.d_m = -1.0 / s;
-      k.d_off = -kFiveOverLn10 / pc / s - 0.5 * e * k.ds2_off / (s * k.s2);
-      k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
-      k.predicted = k.abs_mag + mu;
-      break;
+      k.predicted = abs_mag + mu;
+      finish(k, m0 - mu - abs_mag, -1.0, -kFiveOverLn10 / pc);
+      return k;
     }
     case FitSpace::kAbl: {
-      Eigen::ArrayXd f = (kK5 * c.m0 * 1.0 - 2.0 * 2.302585092994045684).exp();  // 10^(0.2 m0 - 2)
-      Eigen::ArrayXd a_model = (kK5 * k.abs_mag).exp();
-      Eigen::ArrayXd e = (d.plx - off) * f - a_model;
-      Eigen::ArrayXd ka2 = (kK5 * a_model).square();
-      k.s2 = f.square() * d.var_plx + ka2 * var_tot;
-      k.s2_min = f.square() * d.var_plx;
-      k.s2_base = f.square() * d.var_plx + ka2 * c.var_m;
+      const double f = std::exp(kK5 * m0 - 2.0 * 2.302585092994045684);  // 10^(0.2 m0 - 2)
+      const double a_model = std::exp(kK5 * abs_mag), ka2 = kK5 * kK5 * a_model * a_model;
+      k.s2_base = f * f * var_plx + ka2 * var_m;
       k.s2_per_var = ka2;
-      Eigen::ArrayXd s = k.s2.sqrt();
-      k.r = e / s;
-      k.ds2_m = 2.0 * kK5 * ka2 * var_tot;
-      k.ds2_off = Eigen::ArrayXd::Zero(n);
-      k.ds2_sigma = ka2;
-      k.d_m = -kK5 * a_model / s - 0.5 * e * k.ds2_m / (s * k.s2);
-      k.d_off = -f / s;
-      k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
+      k.s2 = k.s2_base + ka2 * p.var;
+      k.s2_min = f * f * var_plx;
+      k.ds2_m = 2.0 * kK5 * ka2 * (var_m + p.var);
+      k.ds2_off = 0.0;
       k.predicted = a_model;
-      break;
+      finish(k, (plx - p.offset) * f - a_model, -kK5 * a_model, -f);
+      return k;
     }
   }
   return k;
@@ -106,44 +94,36 @@ KindTerms parallax_terms(const FitData& d, FitSpace space, const ParameterLayout
 
 // Known-distance stars (mu given) and anchor stars (mu a parameter) share one form:
 // r = (m0 - mu - M) / s, s^2 = sigma_m^2 + sigma_mu^2 + sigma_int^2.
-KindTerms magnitude_terms(const FitData::Common& c, const Eigen::ArrayXd& mu, const Eigen::ArrayXd& var_mu,
-                          const ParameterLayout& L, const Eigen::VectorXd& t) {
-  KindTerms k;
-  const Eigen::Index n = c.size();
-  k.abs_mag = absolute_magnitude(c, L, t);
-  Eigen::ArrayXd e = c.m0 - mu - k.abs_mag;
-  k.s2 = c.var_m + var_mu + t[L.sigma];
-  k.s2_min = c.var_m + var_mu;
-  k.s2_base = k.s2_min;
-  k.s2_per_var = Eigen::ArrayXd::Ones(n);
-  Eigen::ArrayXd s = k.s2.sqrt();
-  k.r = e / s;
-  k.d_m = -1.0 / s;
-  k.d_off = Eigen::ArrayXd::Zero(n);
-  k.ds2_m = Eigen::ArrayXd::Zero(n);
-  k.ds2_off = Eigen::ArrayXd::Zero(n);
-  k.ds2_sigma = Eigen::ArrayXd::Ones(n);
-  k.d_sigma = -0.5 * e * k.ds2_sigma / (s * k.s2);
-  k.predicted = k.abs_mag + mu;
+inline Term magnitude_term(double m0, double var_m, double mu, double var_mu, double abs_mag, const Params& p) {
+  Term k;
+  k.abs_mag = abs_mag;
+  k.s2_base = k.s2_min = var_m + var_mu;
+  k.s2_per_var = 1.0;
+  k.s2 = k.s2_base + p.var;
+  k.ds2_m = k.ds2_off = 0.0;
+  k.predicted = abs_mag + mu;
+  finish(k, m0 - mu - abs_mag, -1.0, 0.0);
   return k;
-}
-
-Eigen::ArrayXd anchor_mu(const FitData& d, const ParameterLayout& L, const Eigen::VectorXd& t) {
-  Eigen::ArrayXd mu(d.anchor.size());
-  for (Eigen::Index i = 0; i < mu.size(); ++i) mu[i] = t[L.anchor0 + d.group[i]];
-  return mu;
-}
-
-std::vector<KindTerms> all_terms(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& t) {
-  std::vector<KindTerms> out;
-  out.push_back(parallax_terms(d, s.space, L, t));
-  out.push_back(magnitude_terms(d.known, d.mu, d.var_mu, L, t));
-  out.push_back(magnitude_terms(d.anchor, anchor_mu(d, L, t), Eigen::ArrayXd::Zero(d.anchor.size()), L, t));
-  return out;
 }
 
 const FitData::Common& common_of(const FitData& d, int kind) {
   return kind == 0 ? d.parallax : (kind == 1 ? d.known : d.anchor);
+}
+
+// Calls f(kind, i, term) for every star, in the order parallax, known, anchor.
+template <typename F>
+void for_each_star(const FitData& d, const FitSettings& s, const ParameterLayout& L, const double* t, F&& f) {
+  const Params p = unpack(L, t);
+  for (int kind = 0; kind < 3; ++kind) {
+    const FitData::Common& c = common_of(d, kind);
+    for (Eigen::Index i = 0; i < c.size(); ++i) {
+      const double m = p.alpha + p.beta * c.x[i] + p.beta_long * c.xl[i] + p.gamma * c.feh[i];
+      Term k = kind == 0   ? parallax_term(s.space, c.m0[i], c.var_m[i], d.plx[i], d.var_plx[i], m, p)
+               : kind == 1 ? magnitude_term(c.m0[i], c.var_m[i], d.mu[i], d.var_mu[i], m, p)
+                           : magnitude_term(c.m0[i], c.var_m[i], t[L.anchor0 + d.group[i]], 0.0, m, p);
+      f(kind, i, k);
+    }
+  }
 }
 
 // The scatter is fitted as the variance sigma^2 >= 0: its Jacobian column does not vanish at
@@ -162,18 +142,25 @@ Eigen::VectorXd to_external(const Eigen::VectorXd& v, const ParameterLayout& L) 
 
 bool scatter_is_free(const FitSettings& s, const ParameterLayout& L) { return s.params[L.sigma].mode != ParamMode::kFixed; }
 
-// The whole relation as one Ceres residual block: thousands of stars evaluated as arrays
-// (vectorised), with analytic derivatives; the robust loss enters as f = sgn(r) sqrt(rho(r^2)),
-// whose squares sum to the robust objective exactly.
+// The whole relation as one Ceres residual block with analytic derivatives, one pass over
+// the stars writing contiguous Jacobian rows; the robust loss enters as
+// f = sgn(r) sqrt(rho(r^2)), whose squares sum to the robust objective exactly.
 class RelationCost final : public ceres::CostFunction {
  public:
-  // reference: internal parameters at which A and B of s^2 = A + B sigma^2 are frozen for
-  // the normalisation (decoupled estimator); nullptr for the full likelihood.
+  // reference: internal parameters at which s^2 = base + per_var sigma^2 is frozen for the
+  // normalisation (decoupled estimator); nullptr for the full likelihood.
   RelationCost(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd* reference)
       : d_(d), s_(s), L_(L) {
-    if (reference) frozen_ = all_terms(d, s, L, *reference);
     n_stars_ = static_cast<int>(d.stars());
     n_norm_ = scatter_is_free(s, L) ? n_stars_ : 0;
+    if (reference && n_norm_) {
+      frozen_base_.resize(n_stars_), frozen_per_var_.resize(n_stars_);
+      int row = 0;
+      for_each_star(d, s, L, reference->data(), [&](int, Eigen::Index, const Term& k) {
+        frozen_base_[row] = k.s2_base, frozen_per_var_[row] = k.s2_per_var;
+        ++row;
+      });
+    }
     for (int j = 0; j < L.size; ++j)
       if (s.params[j].mode == ParamMode::kPrior) priors_.push_back(j);
     set_num_residuals(n_stars_ + n_norm_ + static_cast<int>(priors_.size()));
@@ -181,80 +168,86 @@ class RelationCost final : public ceres::CostFunction {
   }
 
   bool Evaluate(double const* const* parameters, double* residuals, double** jacobians) const override {
-    Eigen::Map<const Eigen::VectorXd> t(parameters[0], L_.size);
-    const Eigen::VectorXd theta = t;
-    std::vector<KindTerms> kinds = all_terms(d_, s_, L_, theta);
+    const double* t = parameters[0];
     const int P = L_.size;
-    using RowMajor = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor>;
-    Eigen::Map<RowMajor> J(jacobians && jacobians[0] ? jacobians[0] : nullptr, jacobians && jacobians[0] ? num_residuals() : 0, P);
-    if (jacobians && jacobians[0]) J.setZero();
+    double* J = jacobians ? jacobians[0] : nullptr;
+    if (J) std::fill(J, J + static_cast<std::size_t>(num_residuals()) * P, 0.0);
+    const bool frozen = !frozen_base_.empty();
+    bool finite = true;
     int row = 0;
-    for (int kind = 0; kind < 3; ++kind) {
-      const KindTerms& k = kinds[kind];
+    for_each_star(d_, s_, L_, t, [&](int kind, Eigen::Index i, const Term& k) {
       const FitData::Common& c = common_of(d_, kind);
-      const Eigen::Index n = c.size();
-      if (n == 0) continue;
-      Eigen::ArrayXd f, df_dr;
+      const double sw = c.sqrt_weight.size() ? c.sqrt_weight[i] : 1.0;
+      double f, df_dr;
       robust(k.r, f, df_dr);
-      Eigen::Map<Eigen::ArrayXd>(residuals + row, n) = f;
-      const bool frozen = !frozen_.empty();
-      Eigen::ArrayXd norm_s2;
+      residuals[row] = sw * f;
+      finite = finite && std::isfinite(f);
+      double norm_s2 = 0, n = 0;
       if (n_norm_) {
-        norm_s2 = frozen ? Eigen::ArrayXd(frozen_[kind].s2_base + frozen_[kind].s2_per_var * theta[L_.sigma]) : k.s2;
-        Eigen::ArrayXd arg = (norm_s2 / k.s2_min).log() + kNormShift;
-        Eigen::Map<Eigen::ArrayXd>(residuals + n_stars_ + row, n) = arg.sqrt();
+        norm_s2 = frozen ? frozen_base_[row] + frozen_per_var_[row] * t[L_.sigma] : k.s2;
+        n = std::sqrt(std::log(norm_s2 / k.s2_min) + kNormShift);
+        residuals[n_stars_ + row] = sw * n;
       }
-      if (jacobians && jacobians[0]) {
-        Eigen::ArrayXd gm = df_dr * k.d_m;
-        J.block(row, L_.alpha, n, 1) = gm.matrix();
-        J.block(row, L_.beta, n, 1) = (gm * c.x).matrix();
-        if (L_.beta_long >= 0) J.block(row, L_.beta_long, n, 1) = (gm * c.xl).matrix();
-        if (L_.gamma >= 0) J.block(row, L_.gamma, n, 1) = (gm * c.feh).matrix();
-        J.block(row, L_.offset, n, 1) = (df_dr * k.d_off).matrix();
-        J.block(row, L_.sigma, n, 1) = (df_dr * k.d_sigma).matrix();
-        if (kind == 2)
-          for (Eigen::Index i = 0; i < n; ++i) J(row + i, L_.anchor0 + d_.group[i]) = gm[i];
-        if (n_norm_ && frozen) {
-          Eigen::ArrayXd arg = (norm_s2 / k.s2_min).log() + kNormShift;
-          J.block(n_stars_ + row, L_.sigma, n, 1) = (0.5 / (arg.sqrt() * norm_s2) * frozen_[kind].s2_per_var).matrix();
-        } else if (n_norm_) {
-          Eigen::ArrayXd arg = (k.s2 / k.s2_min).log() + kNormShift;
-          Eigen::ArrayXd g = 0.5 / (arg.sqrt() * k.s2);  // d sqrt(arg) / d s^2
-          const int nr = n_stars_ + row;
-          Eigen::ArrayXd gm2 = g * k.ds2_m;
-          J.block(nr, L_.alpha, n, 1) = gm2.matrix();
-          J.block(nr, L_.beta, n, 1) = (gm2 * c.x).matrix();
-          if (L_.beta_long >= 0) J.block(nr, L_.beta_long, n, 1) = (gm2 * c.xl).matrix();
-          if (L_.gamma >= 0) J.block(nr, L_.gamma, n, 1) = (gm2 * c.feh).matrix();
-          J.block(nr, L_.offset, n, 1) = (g * k.ds2_off).matrix();
-          J.block(nr, L_.sigma, n, 1) = (g * k.ds2_sigma).matrix();
+      if (J) {
+        double* Jr = J + static_cast<std::size_t>(row) * P;
+        const double gm = sw * df_dr * k.d_m;
+        Jr[L_.alpha] = gm;
+        Jr[L_.beta] = gm * c.x[i];
+        if (L_.beta_long >= 0) Jr[L_.beta_long] = gm * c.xl[i];
+        if (L_.gamma >= 0) Jr[L_.gamma] = gm * c.feh[i];
+        Jr[L_.offset] = sw * df_dr * k.d_off;
+        Jr[L_.sigma] = sw * df_dr * k.d_var;
+        if (kind == 2) Jr[L_.anchor0 + d_.group[i]] = gm;
+        if (n_norm_) {
+          double* Jn = J + static_cast<std::size_t>(n_stars_ + row) * P;
+          const double g = sw * 0.5 / (n * norm_s2);  // d sqrt(ln s^2 + K) / d s^2
+          if (frozen) {
+            Jn[L_.sigma] = g * frozen_per_var_[row];
+          } else {
+            const double gm2 = g * k.ds2_m;
+            Jn[L_.alpha] = gm2;
+            Jn[L_.beta] = gm2 * c.x[i];
+            if (L_.beta_long >= 0) Jn[L_.beta_long] = gm2 * c.xl[i];
+            if (L_.gamma >= 0) Jn[L_.gamma] = gm2 * c.feh[i];
+            Jn[L_.offset] = g * k.ds2_off;
+            Jn[L_.sigma] = g * k.s2_per_var;
+            if (kind == 2) Jn[L_.anchor0 + d_.group[i]] = gm2;
+          }
         }
       }
-      row += static_cast<int>(n);
-    }
+      ++row;
+    });
     int pr = n_stars_ + n_norm_;
     for (int j : priors_) {
       const ParamSpec& p = s_.params[j];
-      residuals[pr] = (theta[j] - p.value) / p.prior_sigma;
-      if (jacobians && jacobians[0]) J(pr, j) = 1.0 / p.prior_sigma;
+      residuals[pr] = (t[j] - p.value) / p.prior_sigma;
+      if (J) J[static_cast<std::size_t>(pr) * P + j] = 1.0 / p.prior_sigma;
       ++pr;
     }
-    return residuals[0] == residuals[0];  // false on NaN: Ceres shortens the step
+    return finite;  // false on NaN: Ceres shortens the step
   }
 
  private:
-  void robust(const Eigen::ArrayXd& r, Eigen::ArrayXd& f, Eigen::ArrayXd& df_dr) const {
+  void robust(double r, double& f, double& df_dr) const {
     if (s_.loss == LossKind::kNone) {
-      f = r;
-      df_dr = Eigen::ArrayXd::Ones(r.size());
+      f = r, df_dr = 1.0;
       return;
     }
-    Eigen::ArrayXd s2 = r.square(), rho, rho1;
-    evaluate_loss(s_.loss, s_.loss_scale, s2, rho, rho1);
-    Eigen::ArrayXd root = rho.sqrt();
-    f = (r < 0).select(-root, root);
+    if (s_.loss == LossKind::kHuber) {
+      // Written with selects: about a third of the stars sit past the scale, unpredictably.
+      const double a = s_.loss_scale, ar = std::abs(r);
+      const double q = std::sqrt(std::max(2.0 * a * ar - a * a, 1e-300));
+      const bool inner = ar <= a;
+      f = inner ? r : std::copysign(q, r);
+      df_dr = inner ? 1.0 : a / q;
+      return;
+    }
+    double rho = 0.0, rho1 = 1.0;
+    loss_terms(s_.loss, s_.loss_scale, r * r, rho, rho1);
+    const double root = std::sqrt(rho);
+    f = r < 0 ? -root : root;
     // d/dr sgn(r) sqrt(rho(r^2)) = rho' |r| / sqrt(rho); its limit at r = 0 is sqrt(rho'(0)).
-    df_dr = (root > 1e-150).select(rho1 * r.abs() / root, rho1.sqrt());
+    df_dr = root > 1e-150 ? rho1 * std::abs(r) / root : std::sqrt(rho1);
   }
 
   const FitData& d_;
@@ -262,7 +255,7 @@ class RelationCost final : public ceres::CostFunction {
   const ParameterLayout& L_;
   int n_stars_ = 0, n_norm_ = 0;
   std::vector<int> priors_;
-  std::vector<KindTerms> frozen_;
+  std::vector<double> frozen_base_, frozen_per_var_;
 };
 
 void configure_problem(ceres::Problem& problem, RelationCost* cost, const FitSettings& s, const ParameterLayout& L,
@@ -303,20 +296,45 @@ ParameterLayout ParameterLayout::for_terms(const ModelTerms& terms, const std::v
 }
 
 namespace {
-FitData::Common take_common(const FitData::Common& c, const std::vector<Eigen::Index>& idx) {
+// Distinct rows of idx, in first-seen order, with how often each occurs (times the row's
+// own weight, so a weighted sample can be resampled again).
+struct Distinct {
+  std::vector<Eigen::Index> rows;
+  std::vector<double> weight;
+};
+Distinct distinct(const std::vector<Eigen::Index>& idx, const Eigen::ArrayXd& old_weight, Eigen::Index n) {
+  Distinct out;
+  std::vector<int> slot(static_cast<std::size_t>(n), -1);
+  for (Eigen::Index j : idx) {
+    int& s = slot[static_cast<std::size_t>(j)];
+    if (s < 0) {
+      s = static_cast<int>(out.rows.size());
+      out.rows.push_back(j);
+      out.weight.push_back(0.0);
+    }
+    out.weight[static_cast<std::size_t>(s)] += old_weight.size() ? old_weight[j] : 1.0;
+  }
+  return out;
+}
+FitData::Common take_common(const FitData::Common& c, const Distinct& dd) {
   FitData::Common o;
-  const auto n = static_cast<Eigen::Index>(idx.size());
-  o.x.resize(n), o.xl.resize(n), o.feh.resize(n), o.m0.resize(n), o.var_m.resize(n);
+  const auto n = static_cast<Eigen::Index>(dd.rows.size());
+  o.x.resize(n), o.xl.resize(n), o.feh.resize(n), o.m0.resize(n), o.var_m.resize(n), o.weight.resize(n);
+  bool all_one = true;
   for (Eigen::Index i = 0; i < n; ++i) {
-    Eigen::Index j = idx[i];
+    Eigen::Index j = dd.rows[static_cast<std::size_t>(i)];
     o.x[i] = c.x[j], o.xl[i] = c.xl[j], o.feh[i] = c.feh[j], o.m0[i] = c.m0[j], o.var_m[i] = c.var_m[j];
+    o.weight[i] = dd.weight[static_cast<std::size_t>(i)];
+    all_one = all_one && o.weight[i] == 1.0;
     o.row.push_back(c.row[j]);
   }
+  if (all_one) o.weight.resize(0);
+  o.sqrt_weight = o.weight.sqrt();
   return o;
 }
-Eigen::ArrayXd take_array(const Eigen::ArrayXd& a, const std::vector<Eigen::Index>& idx) {
-  Eigen::ArrayXd o(static_cast<Eigen::Index>(idx.size()));
-  for (std::size_t i = 0; i < idx.size(); ++i) o[static_cast<Eigen::Index>(i)] = a[idx[i]];
+Eigen::ArrayXd take_array(const Eigen::ArrayXd& a, const Distinct& dd) {
+  Eigen::ArrayXd o(static_cast<Eigen::Index>(dd.rows.size()));
+  for (std::size_t i = 0; i < dd.rows.size(); ++i) o[static_cast<Eigen::Index>(i)] = a[dd.rows[i]];
   return o;
 }
 std::vector<Eigen::Index> kept(const std::vector<bool>& drop, Eigen::Index n) {
@@ -330,14 +348,16 @@ std::vector<Eigen::Index> kept(const std::vector<bool>& drop, Eigen::Index n) {
 FitData FitData::take(const std::vector<Eigen::Index>& p, const std::vector<Eigen::Index>& k,
                       const std::vector<Eigen::Index>& a) const {
   FitData o;
-  o.parallax = take_common(parallax, p);
-  o.plx = take_array(plx, p);
-  o.var_plx = take_array(var_plx, p);
-  o.known = take_common(known, k);
-  o.mu = take_array(mu, k);
-  o.var_mu = take_array(var_mu, k);
-  o.anchor = take_common(anchor, a);
-  for (Eigen::Index i : a) o.group.push_back(group[i]);
+  Distinct dp = distinct(p, parallax.weight, parallax.size()), dk = distinct(k, known.weight, known.size()),
+           da = distinct(a, anchor.weight, anchor.size());
+  o.parallax = take_common(parallax, dp);
+  o.plx = take_array(plx, dp);
+  o.var_plx = take_array(var_plx, dp);
+  o.known = take_common(known, dk);
+  o.mu = take_array(mu, dk);
+  o.var_mu = take_array(var_mu, dk);
+  o.anchor = take_common(anchor, da);
+  for (Eigen::Index i : da.rows) o.group.push_back(group[i]);
   return o;
 }
 
@@ -346,19 +366,15 @@ FitData FitData::without(const std::vector<bool>& dp, const std::vector<bool>& d
 }
 
 StarResiduals star_residuals(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& t) {
-  std::vector<KindTerms> kinds = all_terms(d, s, L, to_internal(t, L));
   StarResiduals out;
   const Eigen::Index n = d.stars();
   out.r.resize(n), out.s2.resize(n), out.model_abs_mag.resize(n), out.predicted.resize(n);
   Eigen::Index row = 0;
-  for (const auto& k : kinds) {
-    const Eigen::Index m = k.r.size();
-    out.r.segment(row, m) = k.r;
-    out.s2.segment(row, m) = k.s2;
-    out.model_abs_mag.segment(row, m) = k.abs_mag;
-    out.predicted.segment(row, m) = k.predicted;
-    row += m;
-  }
+  const Eigen::VectorXd internal = to_internal(t, L);
+  for_each_star(d, s, L, internal.data(), [&](int, Eigen::Index, const Term& k) {
+    out.r[row] = k.r, out.s2[row] = k.s2, out.model_abs_mag[row] = k.abs_mag, out.predicted[row] = k.predicted;
+    ++row;
+  });
   return out;
 }
 
@@ -415,11 +431,13 @@ FitSolution solve_once(const FitData& d, const FitSettings& s, const ParameterLa
   ceres::Problem problem(po);
   configure_problem(problem, new RelationCost(d, s, L, reference), s, L, sol.theta.data());
   ceres::Solver::Options so;
-  so.linear_solver_type = ceres::DENSE_QR;
+  // A few parameters and thousands of residuals: the normal equations (Jacobi-scaled) are
+  // small and well conditioned, and far cheaper than a QR of the tall Jacobian.
+  so.linear_solver_type = ceres::DENSE_NORMAL_CHOLESKY;
   so.max_num_iterations = s.max_iterations;
-  so.function_tolerance = 1e-15;
+  so.function_tolerance = s.function_tolerance;
   so.gradient_tolerance = 1e-15;
-  so.parameter_tolerance = 1e-13;
+  so.parameter_tolerance = s.parameter_tolerance;
   so.logging_type = ceres::SILENT;
   so.num_threads = 1;
   ceres::Solver::Summary summary;

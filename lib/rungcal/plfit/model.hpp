@@ -73,6 +73,8 @@ struct FitData {
     Eigen::ArrayXd feh;     // [Fe/H] (0 when the term is off)
     Eigen::ArrayXd m0;      // dereddened (or Wesenheit) apparent magnitude
     Eigen::ArrayXd var_m;   // its variance
+    Eigen::ArrayXd weight;  // multiplicity of each row (bootstrap); empty = every row once
+    Eigen::ArrayXd sqrt_weight;  // its square root, what the residuals are scaled by
     std::vector<std::size_t> row;  // catalog row, for reporting
     Eigen::Index size() const { return x.size(); }
   };
@@ -85,7 +87,8 @@ struct FitData {
   std::vector<int> group;     // anchor index per anchor star
 
   Eigen::Index stars() const { return parallax.size() + known.size() + anchor.size(); }
-  // Resample: rows of each kind chosen by index (with repeats), for the bootstrap.
+  // Resample: rows of each kind chosen by index (with repeats), for the bootstrap. Repeated
+  // rows are kept once with their count as weight: the same objective, fewer residuals.
   FitData take(const std::vector<Eigen::Index>& p, const std::vector<Eigen::Index>& k,
                const std::vector<Eigen::Index>& a) const;
   FitData without(const std::vector<bool>& drop_p, const std::vector<bool>& drop_k, const std::vector<bool>& drop_a) const;
@@ -116,6 +119,11 @@ struct FitSettings {
   ModelTerms terms;
   std::vector<ParamSpec> params;  // by ParameterLayout index
   int max_iterations = 200;
+  // Convergence: |delta cost| / cost below function_tolerance, or a step below
+  // parameter_tolerance relative to the parameters. The bootstrap relaxes both (its
+  // resamples start at the optimum and need far less than their statistical error).
+  double function_tolerance = 1e-15;
+  double parameter_tolerance = 1e-13;
 };
 
 // The raw (non-robust) normalised residual of every star at a parameter vector, in the
@@ -136,7 +144,7 @@ struct FitSolution {
   std::string brief_report;
 };
 
-// Solves with Ceres (Levenberg-Marquardt, dense QR) from a start vector. With the scatter
+// Solves with Ceres (Levenberg-Marquardt, dense normal-equation Cholesky) from a start vector. With the scatter
 // free, the Gaussian likelihood's log-normalisation sum ln s^2 is part of the objective
 // (as extra residuals sqrt(ln s_i^2 + K_i), K_i keeping the root real): least squares alone
 // would drive the scatter to infinity. See ScatterEstimator for which parameters it acts on.
