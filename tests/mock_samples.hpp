@@ -2,6 +2,7 @@
 // Mock calibrator samples with known truth, for simulation tests of the fit.
 #pragma once
 
+#include <algorithm>
 #include <cmath>
 
 #include "rungcal/photometry/photometry.hpp"
@@ -12,6 +13,8 @@ namespace rungcal::test {
 
 struct MockTruth {
   double alpha = -5.8, beta = -3.3, offset = -0.02, sigma = 0.08;
+  double beta_long = 0.0, break_x = 0.3;  // extra slope above x = break_x (log P - log P0)
+  double gamma = 0.0, feh_sigma = 0.0;    // metallicity term and the spread of [Fe/H]
 };
 
 struct MockSample {
@@ -36,9 +39,11 @@ inline MockSample mock_parallax_sample(std::uint64_t seed, int n, double outlier
     double d_kpc = 0.5 + (max_kpc - 0.5) * std::sqrt(rng.uniform());
     double mu = distance_modulus_from_parsec(d_kpc * 1e3);
     double sm = 0.02, sp = rng.uniform(plx_err_min, plx_err_max);
-    double mag = truth.alpha + truth.beta * x + rng.normal(0, truth.sigma) + mu + rng.normal(0, sm);
+    double xl = std::max(0.0, x - truth.break_x), feh = truth.feh_sigma > 0 ? rng.normal(0, truth.feh_sigma) : 0.0;
+    double mag = truth.alpha + truth.beta * x + truth.beta_long * xl + truth.gamma * feh + rng.normal(0, truth.sigma) +
+                 mu + rng.normal(0, sm);
     if (rng.uniform() < outlier_fraction) mag -= 1.0;
-    p.x[i] = x, p.m0[i] = mag, p.var_m[i] = sm * sm;
+    p.x[i] = x, p.xl[i] = xl, p.feh[i] = feh, p.m0[i] = mag, p.var_m[i] = sm * sm;
     p.row.push_back(static_cast<std::size_t>(i));
     m.data.plx[i] = 1.0 / d_kpc + truth.offset + rng.normal(0, sp);
     m.data.var_plx[i] = sp * sp;
