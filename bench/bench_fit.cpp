@@ -22,23 +22,12 @@ int main(int argc, char** argv) {
   const int n = std::atoi(argv[1]), resamples = std::atoi(argv[2]);
   keep_freed_memory_for_reuse();
   test::MockSample m = test::mock_parallax_sample(2026, n, 0.03);
-  StarTable t;
-  for (const char* c : {"id", "mode", "pulsator_class"}) t.add_column(c, ColumnType::kText);
-  for (const char* c : {"log_period", "mag0_X", "mag0_err_X", "parallax_mas", "parallax_err_mas"}) t.add_column(c, ColumnType::kReal);
+  StarTable t = test::catalog_from_mock(m);
   std::ofstream csv(argv[3]);
   csv.precision(17);
-  for (Eigen::Index i = 0; i < m.data.parallax.size(); ++i) {
-    t.column("id").push_text("S" + std::to_string(i));
-    t.column("mode").push_text("fundamental");
-    t.column("pulsator_class").push_text("classical_cepheid");
-    t.column("log_period").push_real(m.data.parallax.x[i] + 1.0);
-    t.column("mag0_X").push_real(m.data.parallax.m0[i]);
-    t.column("mag0_err_X").push_real(std::sqrt(m.data.parallax.var_m[i]));
-    t.column("parallax_mas").push_real(m.data.plx[i]);
-    t.column("parallax_err_mas").push_real(std::sqrt(m.data.var_plx[i]));
+  for (Eigen::Index i = 0; i < m.data.parallax.size(); ++i)
     csv << m.data.parallax.x[i] << "," << m.data.parallax.m0[i] << "," << m.data.parallax.var_m[i] << "," << m.data.plx[i]
         << "," << m.data.var_plx[i] << "\n";
-  }
   csv.close();
   FitOptions o;
   o.input_path = "bench";

@@ -171,23 +171,7 @@ TEST(FitSimulation, MagnitudeSpaceIsBiasedFaintOnLowSignalToNoiseParallaxes) {
   std::cout << "[ magnitude-space bias ] mean alpha error " << mag_bias << " mag (parallax space " << plx_bias << ")\n";
 }
 
-// A small catalog with the columns the fit reads.
-StarTable catalog_from_mock(const test::MockSample& m) {
-  StarTable t;
-  for (const char* c : {"id", "mode", "pulsator_class"}) t.add_column(c, ColumnType::kText);
-  for (const char* c : {"log_period", "mag0_X", "mag0_err_X", "parallax_mas", "parallax_err_mas"}) t.add_column(c, ColumnType::kReal);
-  for (Eigen::Index i = 0; i < m.data.parallax.size(); ++i) {
-    t.column("id").push_text("S" + std::to_string(i));
-    t.column("mode").push_text("fundamental");
-    t.column("pulsator_class").push_text("classical_cepheid");
-    t.column("log_period").push_real(m.data.parallax.x[i] + 1.0);
-    t.column("mag0_X").push_real(m.data.parallax.m0[i]);
-    t.column("mag0_err_X").push_real(std::sqrt(m.data.parallax.var_m[i]));
-    t.column("parallax_mas").push_real(m.data.plx[i]);
-    t.column("parallax_err_mas").push_real(std::sqrt(m.data.var_plx[i]));
-  }
-  return t;
-}
+using test::catalog_from_mock;
 
 FitOptions mock_options() {
   FitOptions o;

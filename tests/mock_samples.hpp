@@ -4,10 +4,12 @@
 
 #include <algorithm>
 #include <cmath>
+#include <string>
 
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/model.hpp"
 #include "rungcal/simulate/random.hpp"
+#include "rungcal/table/star_table.hpp"
 
 namespace rungcal::test {
 
@@ -49,6 +51,24 @@ inline MockSample mock_parallax_sample(std::uint64_t seed, int n, double outlier
     m.data.var_plx[i] = sp * sp;
   }
   return m;
+}
+
+// The columns rungcal-fit reads, for a mock sample's stars: relation band "X" (mag0_X).
+inline StarTable catalog_from_mock(const MockSample& m) {
+  StarTable t;
+  for (const char* c : {"id", "mode", "pulsator_class"}) t.add_column(c, ColumnType::kText);
+  for (const char* c : {"log_period", "mag0_X", "mag0_err_X", "parallax_mas", "parallax_err_mas"}) t.add_column(c, ColumnType::kReal);
+  for (Eigen::Index i = 0; i < m.data.parallax.size(); ++i) {
+    t.column("id").push_text("S" + std::to_string(i));
+    t.column("mode").push_text("fundamental");
+    t.column("pulsator_class").push_text("classical_cepheid");
+    t.column("log_period").push_real(m.data.parallax.x[i] + 1.0);
+    t.column("mag0_X").push_real(m.data.parallax.m0[i]);
+    t.column("mag0_err_X").push_real(std::sqrt(m.data.parallax.var_m[i]));
+    t.column("parallax_mas").push_real(m.data.plx[i]);
+    t.column("parallax_err_mas").push_real(std::sqrt(m.data.var_plx[i]));
+  }
+  return t;
 }
 
 }  // namespace rungcal::test
