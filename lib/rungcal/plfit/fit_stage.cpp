@@ -300,7 +300,7 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
         for (std::size_t k = 0; k < members.size(); ++k) ai.push_back(members[rng.below(members.size())]);
       }
       FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
-      FitSolution s = solve_fit(sample, settings, rr.layout, rr.solution.theta);
+      FitSolution s = solve_fit(sample, settings, rr.layout, gauss_newton_start(sample, settings, rr.layout, rr.solution.theta));
       if (s.usable) {
         rr.bootstrap.row(b) = s.theta.transpose();
         ok[b] = 1;

@@ -480,6 +480,30 @@ FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLay
   return sol;
 }
 
+Eigen::VectorXd gauss_newton_start(const FitData& d, const FitSettings& s, const ParameterLayout& L,
+                                   const Eigen::VectorXd& theta) {
+  const Eigen::VectorXd x = to_internal(theta, L);
+  const Eigen::VectorXd reference = x;
+  RelationCost cost(d, s, L, decoupled(s, L) ? &reference : nullptr);
+  const int n = cost.num_residuals(), P = L.size;
+  Eigen::VectorXd f(n);
+  Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> J(n, P);
+  const double* params[] = {x.data()};
+  double* jac[] = {J.data()};
+  if (!cost.Evaluate(params, f.data(), jac)) return theta;
+  std::vector<int> free;
+  for (int j = 0; j < P; ++j)
+    if (s.params[j].mode != ParamMode::kFixed) free.push_back(j);
+  Eigen::MatrixXd Jf(n, static_cast<Eigen::Index>(free.size()));
+  for (std::size_t k = 0; k < free.size(); ++k) Jf.col(static_cast<Eigen::Index>(k)) = J.col(free[k]);
+  Eigen::VectorXd step = (Jf.transpose() * Jf).ldlt().solve(-Jf.transpose() * f);
+  if (!step.allFinite()) return theta;
+  Eigen::VectorXd out = x;
+  for (std::size_t k = 0; k < free.size(); ++k) out[free[k]] += step[static_cast<Eigen::Index>(k)];
+  if (L.sigma >= 0) out[L.sigma] = std::max(0.0, out[L.sigma]);
+  return to_external(out, L);
+}
+
 bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& theta,
                     Eigen::MatrixXd& covariance) {
   Eigen::VectorXd t = to_internal(theta, L);

@@ -151,6 +151,11 @@ struct FitSolution {
 FitSolution solve_fit(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                       const Eigen::VectorXd& start);
 
+// theta plus one Gauss-Newton step of the objective on this data (fixed parameters kept):
+// a cheap start for a bootstrap resample, whose optimum is a small step from the full fit's.
+Eigen::VectorXd gauss_newton_start(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                                   const Eigen::VectorXd& theta);
+
 // Covariance of the parameters at the optimum (Ceres Covariance, dense SVD); fixed
 // parameters get zero rows. Returns false when the Jacobian is rank-deficient.
 bool fit_covariance(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
