@@ -183,10 +183,6 @@ std::optional<std::string> text_at(const Resolved& r, std::size_t row) {
     return fmt::format("{}", std::get<double>(*r.constant));
   }
   if (!r.column || r.column->is_null(row)) return std::nullopt;
-  if (r.column->type == ColumnType::kInteger || r.column->type == ColumnType::kReal) {
-    std::string s = r.column->to_string(row);
-    return s;
-  }
   return r.column->to_string(row);
 }
 

@@ -98,17 +98,13 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, 
     throw InputError({o.input_path, {}, err_col}, "missing_column", fmt::format("relation {} needs this error column", rel.name));
   if (!cat.has(col::kLogPeriod) || !cat.has(col::kId))
     throw InputError({o.input_path, {}, col::kLogPeriod}, "missing_column", "not a rungcal catalog (no id / log_period)");
-  auto push = [](FitData::Common& common, double x, double xl, double feh, double m0, double var, std::size_t row) {
-    auto grow = [](Eigen::ArrayXd& a, double v) {
-      a.conservativeResize(a.size() + 1);
-      a[a.size() - 1] = v;
-    };
-    grow(common.x, x), grow(common.xl, xl), grow(common.feh, feh), grow(common.m0, m0), grow(common.var_m, var);
-    common.row.push_back(row);
-  };
   auto grow = [](Eigen::ArrayXd& a, double v) {
     a.conservativeResize(a.size() + 1);
     a[a.size() - 1] = v;
+  };
+  auto push = [&grow](FitData::Common& common, double x, double xl, double feh, double m0, double var, std::size_t row) {
+    grow(common.x, x), grow(common.xl, xl), grow(common.feh, feh), grow(common.m0, m0), grow(common.var_m, var);
+    common.row.push_back(row);
   };
 
   for (std::size_t r = 0; r < cat.rows(); ++r) {
