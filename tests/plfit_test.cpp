@@ -10,6 +10,7 @@
 #include <sstream>
 
 #include "rungcal/photometry/photometry.hpp"
+#include "rungcal/plfit/joint.hpp"
 #include "rungcal/plfit/model.hpp"
 #include "rungcal/simulate/random.hpp"
 #include "mock_samples.hpp"
@@ -279,6 +280,115 @@ TEST(Model, GaussianPriorCombinesWithTheData) {
   const double w = 1 / (e * e) + 1 / (s0 * s0);
   EXPECT_NEAR(prior_fit.sol.theta[j], (x / (e * e) + mu0 / (s0 * s0)) / w, 0.1 / std::sqrt(w));
   EXPECT_NEAR(sd(prior_fit, j), 1 / std::sqrt(w), 0.05 / std::sqrt(w));
+}
+
+// Joint data of a mock whose stars have R relations sharing the parallax: relation r has
+// zero point alpha + 0.5 r and slope beta - 0.1 r; each band gets its own intrinsic and
+// photometric noise, and an E(B-V) error shared by the bands (coefficients 1.0, 0.6, 0.3).
+struct JointMock {
+  JointData data;
+  std::vector<double> alpha, beta;
+  double offset = -0.02, sigma = 0.06, ebv_err = 0.05;
+};
+
+JointMock joint_mock(std::uint64_t seed, int stars, int relations) {
+  JointMock m;
+  Random rng(seed);
+  m.data.relations = relations;
+  for (int r = 0; r < relations; ++r) m.alpha.push_back(-5.8 + 0.5 * r), m.beta.push_back(-3.3 + 0.1 * r);
+  const double coef[3] = {1.0, 0.6, 0.3};
+  for (int i = 0; i < stars; ++i) {
+    double x = rng.uniform(-0.6, 0.8), d_kpc = 0.5 + 5.5 * std::sqrt(rng.uniform());
+    double mu = distance_modulus_from_parsec(d_kpc * 1e3), sp = rng.uniform(0.02, 0.05), de = rng.normal(0, m.ebv_err);
+    m.data.first.push_back(static_cast<int>(m.data.relation.size()));
+    for (int r = 0; r < relations; ++r) {
+      m.data.relation.push_back(r);
+      m.data.x.push_back(x);
+      m.data.m0.push_back(m.alpha[r] + m.beta[r] * x + mu + rng.normal(0, m.sigma) + rng.normal(0, 0.02) - coef[r] * de);
+      m.data.var_phot.push_back(0.02 * 0.02);
+      m.data.coefficient.push_back(coef[r]);
+    }
+    m.data.plx.push_back(1.0 / d_kpc + m.offset + rng.normal(0, sp));
+    m.data.var_plx.push_back(sp * sp);
+    m.data.var_ebv.push_back(m.ebv_err * m.ebv_err);
+    m.data.feh.push_back(0.0);
+    m.data.row.push_back(static_cast<std::size_t>(i));
+  }
+  m.data.first.push_back(static_cast<int>(m.data.relation.size()));
+  return m;
+}
+
+TEST(Joint, OneRelationEqualsTheSingleRelationFit) {
+  // With one relation and no E(B-V) error the joint GLS is the single-relation fit.
+  JointMock jm = joint_mock(41, 300, 1);
+  jm.data.var_ebv.assign(jm.data.var_ebv.size(), 0.0);
+  FitData fd;
+  auto& p = fd.parallax;
+  const auto n = static_cast<Eigen::Index>(jm.data.stars());
+  p.x = Eigen::Map<Eigen::ArrayXd>(jm.data.x.data(), n);
+  p.xl.setZero(n), p.feh.setZero(n);
+  p.m0 = Eigen::Map<Eigen::ArrayXd>(jm.data.m0.data(), n);
+  p.var_m = Eigen::Map<Eigen::ArrayXd>(jm.data.var_phot.data(), n);
+  p.row = jm.data.row;
+  fd.plx = Eigen::Map<Eigen::ArrayXd>(jm.data.plx.data(), n);
+  fd.var_plx = Eigen::Map<Eigen::ArrayXd>(jm.data.var_plx.data(), n);
+  FitSettings s = settings_for(FitSpace::kParallax, LossKind::kNone, 1.0, false, jm.sigma);
+  ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
+  FitSolution single = solve_fit(fd, s, L, starting_vector(fd, s, L));
+  Eigen::MatrixXd cov;
+  ASSERT_TRUE(fit_covariance(fd, s, L, single.theta, cov));
+  JointLayout J = JointLayout::make({"X"}, {false}, false);
+  JointSettings js;
+  js.sigma_int = {jm.sigma};
+  Eigen::VectorXd start(J.size);
+  start << -5.0, -3.0, 0.0;
+  JointSolution joint = solve_joint(jm.data, js, J, start);
+  ASSERT_TRUE(joint.usable && joint.covariance_ok) << joint.message;
+  // The same objective: equal to the two solvers' tolerance (1e-7 relative).
+  EXPECT_NEAR(joint.theta[J.alpha[0]], single.theta[L.alpha], 1e-7 * std::abs(single.theta[L.alpha]));
+  EXPECT_NEAR(joint.theta[J.beta[0]], single.theta[L.beta], 1e-7 * std::abs(single.theta[L.beta]));
+  EXPECT_NEAR(joint.theta[J.offset], single.theta[L.offset], 1e-6 * std::abs(single.theta[L.offset]));
+  EXPECT_NEAR(joint.covariance(J.offset, J.offset) / cov(L.offset, L.offset), 1.0, 1e-6);
+  EXPECT_NEAR(joint.covariance(J.alpha[0], J.beta[0]) / cov(L.alpha, L.beta), 1.0, 1e-6);
+}
+
+TEST(Joint, ThreeRelationsShareOneOffsetAndRecoverTheTruth) {
+  // Simulation: 3 relations per star, shared parallax, shared E(B-V) error; over 100
+  // samples the mean error of the offset is below 0.15 sigma (the estimate itself scatters
+  // by 0.1 sigma) and its 68% interval covers 60-76%; zero points and slopes of the first
+  // sample within 3 sigma. (A covariance frozen at the solution biased alpha by 0.23 mag here.)
+  double bias = 0, err = 0;
+  int inside = 0;
+  const int samples = 100;
+  JointLayout J = JointLayout::make({"A", "B", "C"}, {false, false, false}, false);
+  for (int k = 0; k < samples; ++k) {
+    JointMock jm = joint_mock(500 + k, 250, 3);
+    JointSettings js;
+    js.sigma_int = {jm.sigma, jm.sigma, jm.sigma};
+    Eigen::VectorXd start(J.size);
+    start << -5.5, -3.0, -5.0, -3.0, -4.5, -3.0, 0.0;
+    JointSolution sol = solve_joint(jm.data, js, J, start);
+    ASSERT_TRUE(sol.usable && sol.covariance_ok);
+    double e = std::sqrt(sol.covariance(J.offset, J.offset)), d = sol.theta[J.offset] - jm.offset;
+    bias += d / samples;
+    err += e / samples;
+    inside += std::abs(d) < e ? 1 : 0;
+    if (k == 0)
+      for (int r = 0; r < 3; ++r) {
+        EXPECT_NEAR(sol.theta[J.alpha[r]], jm.alpha[r], 3 * std::sqrt(sol.covariance(J.alpha[r], J.alpha[r])));
+        EXPECT_NEAR(sol.theta[J.beta[r]], jm.beta[r], 3 * std::sqrt(sol.covariance(J.beta[r], J.beta[r])));
+      }
+  }
+  EXPECT_LT(std::abs(bias / err), 0.15);
+  EXPECT_GT(inside, 60);
+  EXPECT_LT(inside, 77);
+  std::cout << "[ joint ] offset bias " << bias / err << " sigma, coverage " << inside << "%\n";
+}
+
+TEST(Joint, SharedSlopeIsOneParameter) {
+  JointLayout J = JointLayout::make({"A", "B"}, {true, false}, true);
+  EXPECT_EQ(J.beta[0], J.beta[1]);
+  EXPECT_EQ(J.names, (std::vector<std::string>{"alpha_A", "beta", "gamma_A", "alpha_B", "parallax_offset_mas"}));
 }
 
 }  // namespace

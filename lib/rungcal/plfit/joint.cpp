@@ -1,0 +1,151 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/joint.hpp"
+
+#include <ceres/ceres.h>
+#include <ceres/dynamic_autodiff_cost_function.h>
+
+#include <cmath>
+
+#include <vector>
+
+namespace rungcal {
+namespace {
+
+constexpr double kK5 = 0.2 * 2.302585092994045684;  // 0.2 ln 10
+
+// One star: r = L(theta)^-1 e(theta) with C(theta) = L L^T its covariance between
+// relations, written once for doubles and Ceres Jets (automatic derivatives).
+struct StarResidual {
+  const JointData* d;
+  const JointSettings* s;
+  const JointLayout* L;
+  int star;
+
+  template <typename T>
+  bool operator()(T const* const* parameters, T* residuals) const {
+    const T* t = parameters[0];
+    const int b0 = d->first[star], K = d->first[star + 1] - b0;
+    std::vector<T> kpi(K), e(K), c(static_cast<std::size_t>(K * K)), lower(static_cast<std::size_t>(K * K), T(0.0));
+    for (int i = 0; i < K; ++i) {
+      const int entry = b0 + i, r = d->relation[entry];
+      T m = t[L->alpha[r]] + t[L->beta[r]] * d->x[entry];
+      if (L->gamma[r] >= 0) m += t[L->gamma[r]] * d->feh[star];
+      const T pi = exp(-kK5 * (d->m0[entry] - m - 10.0));
+      kpi[i] = kK5 * pi;
+      e[i] = d->plx[star] - t[L->offset] - pi;
+    }
+    for (int i = 0; i < K; ++i)
+      for (int j = 0; j < K; ++j) {
+        double inner = d->coefficient[b0 + i] * d->coefficient[b0 + j] * d->var_ebv[star];
+        if (i == j) inner += d->var_phot[b0 + i] + s->sigma_int[d->relation[b0 + i]] * s->sigma_int[d->relation[b0 + i]];
+        c[i * K + j] = d->var_plx[star] + kpi[i] * kpi[j] * inner;
+      }
+    // Cholesky C = L L^T, then forward substitution L r = e.
+    for (int i = 0; i < K; ++i)
+      for (int j = 0; j <= i; ++j) {
+        T sum = c[i * K + j];
+        for (int k = 0; k < j; ++k) sum -= lower[i * K + k] * lower[j * K + k];
+        if (i == j) {
+          if (!(sum > T(0.0))) return false;
+          lower[i * K + i] = sqrt(sum);
+        } else {
+          lower[i * K + j] = sum / lower[j * K + j];
+        }
+      }
+    for (int i = 0; i < K; ++i) {
+      T sum = e[i];
+      for (int k = 0; k < i; ++k) sum -= lower[i * K + k] * residuals[k];
+      residuals[i] = sum / lower[i * K + i];
+    }
+    return true;
+  }
+};
+
+void build_problem(ceres::Problem& problem, const JointData& d, const JointSettings& s, const JointLayout& L, double* t,
+                   bool robust) {
+  for (int star = 0; star < d.stars(); ++star) {
+    auto* cost = new ceres::DynamicAutoDiffCostFunction<StarResidual, 8>(new StarResidual{&d, &s, &L, star});
+    cost->AddParameterBlock(L.size);
+    cost->SetNumResiduals(d.first[star + 1] - d.first[star]);
+    ceres::LossFunction* loss = robust ? make_ceres_loss(s.loss, s.loss_scale).release() : nullptr;
+    problem.AddResidualBlock(cost, loss, t);
+  }
+  std::vector<int> fixed;
+  for (int j = 0; j < L.size; ++j)
+    if (j < static_cast<int>(s.fixed.size()) && s.fixed[j]) fixed.push_back(j);
+  if (!fixed.empty()) problem.SetManifold(t, new ceres::SubsetManifold(L.size, fixed));
+}
+
+}  // namespace
+
+JointLayout JointLayout::make(const std::vector<std::string>& names, const std::vector<bool>& metallicity, bool shared_slope) {
+  JointLayout L;
+  int next = 0;
+  int shared = -1;
+  for (std::size_t r = 0; r < names.size(); ++r) {
+    L.alpha.push_back(next++);
+    L.names.push_back("alpha_" + names[r]);
+    if (shared_slope && shared >= 0) {
+      L.beta.push_back(shared);
+    } else {
+      L.beta.push_back(next++);
+      L.names.push_back(shared_slope ? "beta" : "beta_" + names[r]);
+      if (shared_slope) shared = L.beta.back();
+    }
+    if (metallicity[r]) {
+      L.gamma.push_back(next++);
+      L.names.push_back("gamma_" + names[r]);
+    } else {
+      L.gamma.push_back(-1);
+    }
+  }
+  L.offset = next++;
+  L.names.push_back("parallax_offset_mas");
+  L.size = next;
+  return L;
+}
+
+JointSolution solve_joint(const JointData& d, const JointSettings& s, const JointLayout& L, const Eigen::VectorXd& start) {
+  JointSolution sol;
+  sol.theta = start;
+  sol.entries = static_cast<int>(d.relation.size());
+  {
+    ceres::Problem problem;
+    build_problem(problem, d, s, L, sol.theta.data(), true);
+    ceres::Solver::Options so;
+    so.linear_solver_type = ceres::DENSE_NORMAL_CHOLESKY;
+    so.function_tolerance = 1e-15;
+    so.gradient_tolerance = 1e-15;
+    so.parameter_tolerance = 1e-13;
+    so.max_num_iterations = 200;
+    so.logging_type = ceres::SILENT;
+    ceres::Solver::Summary summary;
+    ceres::Solve(so, &problem, &summary);
+    sol.usable = summary.IsSolutionUsable();
+    sol.message = summary.message;
+    sol.termination = ceres::TerminationTypeToString(summary.termination_type);
+    sol.iterations = static_cast<int>(summary.iterations.size());
+    sol.passes = 1;
+  }
+  // chi^2 of the plain (non-robust) whitened residuals, and the covariance.
+  Eigen::VectorXd t = sol.theta;
+  ceres::Problem plain;
+  build_problem(plain, d, s, L, t.data(), false);
+  double cost = 0;
+  plain.Evaluate(ceres::Problem::EvaluateOptions(), &cost, nullptr, nullptr, nullptr);
+  sol.chi2 = 2.0 * cost;
+  ceres::Problem robust;
+  build_problem(robust, d, s, L, t.data(), true);
+  ceres::Covariance::Options co;
+  co.algorithm_type = ceres::DENSE_SVD;
+  ceres::Covariance cov(co);
+  std::vector<std::pair<const double*, const double*>> blocks = {{t.data(), t.data()}};
+  if (cov.Compute(blocks, &robust)) {
+    Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, Eigen::RowMajor> c(L.size, L.size);
+    sol.covariance_ok = cov.GetCovarianceBlock(t.data(), t.data(), c.data());
+    sol.covariance = c;
+  }
+  return sol;
+}
+
+}  // namespace rungcal
