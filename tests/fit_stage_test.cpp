@@ -330,5 +330,36 @@ TEST(FitStage, BadInputsStopCleanly) {
   }
 }
 
+TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetWithAConsistentChi2) {
+  // The demo scenario (simulated truth: residual parallax offset -0.010 mas after the
+  // -0.020 mas zero point): W_VI, W_G and Ks together, intrinsic scatter correlated 0.9
+  // between bands as the simulation's instability strip makes it.
+  test::TempDir dir;
+  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/demo/ingest.toml") + " --out " +
+                                          dir.file("cat.fits")).exit_code, 0);
+  DereddenOptions d = deredden_options_from_file(test::source_file("config/demo/deredden.toml"));
+  d.input_path = dir.file("cat.fits");
+  d.output_path = dir.file("dered.fits");
+  deredden_catalog_file(d);
+  FitOptions o = fit_options_from_file(test::source_file("config/demo/fit.toml"));
+  o.input_path = dir.file("dered.fits");
+  o.output_path = dir.file("fit.json");
+  o.bootstrap = 0;
+  FitResult r = fit_catalog_file(o);
+  ASSERT_TRUE(r.joint.has_value());
+  const JointResult& j = *r.joint;
+  ASSERT_TRUE(j.solution.usable && j.solution.covariance_ok);
+  EXPECT_TRUE(j.warnings.empty());  // the COEFFS table was found
+  const double off = j.solution.theta[j.layout.offset], e = std::sqrt(j.solution.covariance(j.layout.offset, j.layout.offset));
+  EXPECT_NEAR(off, -0.010, 2 * e);
+  const int dof = j.solution.entries - j.n_free;
+  EXPECT_NEAR(j.solution.chi2 / dof, 1.0, 3 * std::sqrt(2.0 / dof));
+  auto json = test::read_text(dir.file("fit.json"));
+  EXPECT_NE(json.find("\"joint\""), std::string::npos);
+  o.joint = true;
+  o.relations.resize(1);
+  EXPECT_NE(o.check().find("fit.joint"), std::string::npos);
+}
+
 }  // namespace
 }  // namespace rungcal

@@ -334,6 +334,88 @@ int index_of(const ParameterLayout& L, const std::string& name) {
   throw std::out_of_range("no fit parameter named " + name);
 }
 
+double coefficient_of(const StarTable* coefficients, const std::string& name) {
+  if (!coefficients || !coefficients->has("name") || !coefficients->has("a_over_ebv")) return 0.0;
+  const Column& n = coefficients->column("name");
+  for (std::size_t i = 0; i < n.size(); ++i)
+    if (!n.is_null(i) && n.text[i] == name) return coefficients->column("a_over_ebv").as_real(i);
+  return 0.0;
+}
+
+JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
+                      const StarTable* coefficients) {
+  JointResult jr;
+  std::vector<bool> metallicity;
+  for (const auto& rr : fits) {
+    jr.relations.push_back(rr.relation.name);
+    metallicity.push_back(rr.relation.metallicity);
+  }
+  jr.layout = JointLayout::make(jr.relations, metallicity, o.joint_shared_slope);
+  const JointLayout& L = jr.layout;
+  JointSettings js;
+  js.loss = o.loss;
+  js.loss_scale = o.loss_scale;
+  js.scatter_correlation = o.joint_scatter_correlation;
+  js.fixed.assign(L.size, false);
+  if (o.offset.mode == ParamMode::kFixed) js.fixed[L.offset] = true;
+  if (o.offset.mode == ParamMode::kPrior) jr.warnings.push_back("the offset's prior is not used by the joint fit (free there)");
+  Eigen::VectorXd start = Eigen::VectorXd::Zero(L.size);
+  double offset_sum = 0;
+  for (std::size_t r = 0; r < fits.size(); ++r) {
+    const RelationResult& rr = fits[r];
+    js.sigma_int.push_back(rr.parameter("sigma_int"));
+    start[L.alpha[r]] = rr.parameter("alpha");
+    start[L.beta[r]] = rr.parameter("beta");
+    if (rr.settings.params[rr.layout.beta].mode == ParamMode::kFixed) js.fixed[L.beta[r]] = true;
+    if (L.gamma[r] >= 0) start[L.gamma[r]] = rr.parameter("gamma");
+    offset_sum += rr.parameter("parallax_offset_mas");
+  }
+  start[L.offset] = o.offset.mode == ParamMode::kFixed ? o.offset.value : offset_sum / static_cast<double>(fits.size());
+  // Entries: every relation in which a star was used as a parallax calibrator.
+  JointData& d = jr.data;
+  d.relations = static_cast<int>(fits.size());
+  for (std::size_t row = 0; row < cat.rows(); ++row) {
+    int added = 0;
+    double plx = 0, plx_err = 0;
+    for (std::size_t r = 0; r < fits.size(); ++r) {
+      const StarOutcome& s = fits[r].stars[row];
+      if (!s.used || s.kind != "parallax") continue;
+      if (added == 0) d.first.push_back(static_cast<int>(d.relation.size()));
+      const std::string& band = fits[r].relation.band;
+      const double c = fits[r].relation.magnitude_column.empty() ? coefficient_of(coefficients, band) : 0.0;
+      const double se = cat.has(col::kEbvErr) ? cat.column(col::kEbvErr).as_real(row) : 0.0;
+      const double se2 = std::isfinite(se) ? se * se : 0.0;
+      d.relation.push_back(static_cast<int>(r));
+      d.x.push_back(s.log_period - fits[r].relation.pivot_log_period);
+      d.m0.push_back(s.m0);
+      // mag0_err holds the photometric and E(B-V) parts in quadrature: keep the first here.
+      d.var_phot.push_back(std::max(s.m0_err * s.m0_err - c * c * se2, 1e-8));
+      d.coefficient.push_back(c);
+      plx = s.plx, plx_err = s.plx_err;
+      ++added;
+    }
+    if (added == 0) continue;
+    d.plx.push_back(plx);
+    d.var_plx.push_back(plx_err * plx_err);
+    const double se = cat.has(col::kEbvErr) ? cat.column(col::kEbvErr).as_real(row) : 0.0;
+    d.var_ebv.push_back(std::isfinite(se) && coefficients ? se * se : 0.0);
+    const double feh = cat.has(col::kFeh) ? cat.column(col::kFeh).as_real(row) : 0.0;
+    d.feh.push_back(std::isfinite(feh) ? feh : 0.0);
+    d.row.push_back(row);
+  }
+  d.first.push_back(static_cast<int>(d.relation.size()));
+  jr.stars = d.stars();
+  if (jr.stars < 3)
+    throw InputError({o.input_path, {}, {}}, "too_few_calibrators", "the joint fit has fewer than 3 parallax calibrators");
+  if (!coefficients)
+    jr.warnings.push_back("no COEFFS table: E(B-V) errors are taken as independent between relations");
+  jr.n_free = static_cast<int>(std::count(js.fixed.begin(), js.fixed.end(), false));
+  jr.solution = solve_joint(d, js, L, start);
+  if (!jr.solution.usable) jr.warnings.push_back("the joint solver did not reach a usable solution: " + jr.solution.message);
+  for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
+  return jr;
+}
+
 }  // namespace
 
 std::string FitOptions::check() const {
@@ -347,6 +429,16 @@ std::string FitOptions::check() const {
     return "fit.zero_point_table_5p: both Lindegren et al. 2021 tables are required for that recipe";
   if (inflation == InflationRecipe::kConstant && !(inflation_factor > 0)) return "fit.inflation_factor: must be positive";
   if (scatter.mode == ParamMode::kPrior) return "fit.scatter: free or fixed only";
+  if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
+  if (joint && space != FitSpace::kParallax) return "fit.joint: the joint fit works in parallax space";
+  if (!(joint_scatter_correlation >= 0.0 && joint_scatter_correlation < 1.0))
+    return "fit.joint_scatter_correlation: must be in [0, 1)";
+  if (joint_shared_slope) {
+    if (!joint) return "fit.joint_shared_slope: needs joint = true";
+    for (const auto& r : relations)
+      if (r.pivot_log_period != relations[0].pivot_log_period)
+        return "fit.joint_shared_slope: every relation needs the same pivot_log_period";
+  }
   for (const auto& r : relations) {
     if (r.band.empty() && r.magnitude_column.empty()) return "relation.band: required";
     if (r.slope.mode == ParamMode::kPrior && !(r.slope.prior_sigma > 0)) return "relation.slope: a prior needs sigma > 0";
@@ -388,6 +480,9 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.offset = param_from(*f, "offset", o.offset);
   o.scatter = param_from(*f, "scatter", o.scatter);
   o.scatter_estimator = enum_from(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
+  o.joint = f->bool_or("joint", o.joint);
+  o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
+  o.joint_scatter_correlation = f->number_or("joint_scatter_correlation", o.joint_scatter_correlation);
   o.bootstrap = static_cast<int>(f->integer_or("bootstrap", o.bootstrap));
   o.seed = static_cast<std::uint64_t>(f->integer_or("seed", static_cast<std::int64_t>(o.seed)));
   o.threads = static_cast<int>(f->integer_or("threads", o.threads));
@@ -442,7 +537,7 @@ double RelationResult::bootstrap_error(const std::string& name) const {
   return std::sqrt(s / static_cast<double>(v.size() - 1));
 }
 
-FitResult run_fit(const FitOptions& o, const StarTable& cat) {
+FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* coefficients) {
   if (std::string err = o.check(); !err.empty()) throw InputError({o.config_file, {}, {}, "line", "key"}, "config_value", err);
   ParallaxTools tools;
   if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
@@ -523,6 +618,7 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat) {
     for (const auto& w : rr.warnings) spdlog::warn("relation {}: {}", rel.name, w);
     result.relations.push_back(std::move(rr));
   }
+  if (o.joint) result.joint = run_joint(o, result.relations, cat, coefficients);
   return result;
 }
 
@@ -612,11 +708,45 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     r["warnings"] = rr.warnings;
     out["relations"].push_back(r);
   }
+  if (joint) {
+    const JointSolution& js = joint->solution;
+    json j;
+    j["relations"] = joint->relations;
+    j["shared_slope"] = o.joint_shared_slope;
+    j["scatter_correlation"] = o.joint_scatter_correlation;
+    j["parameter_names"] = joint->layout.names;
+    for (int p = 0; p < joint->layout.size; ++p) {
+      double e = js.covariance_ok ? std::sqrt(std::max(0.0, js.covariance(p, p))) : std::nan("");
+      j["parameters"].push_back({{"name", joint->layout.names[p]}, {"value", js.theta[p]}, {"error", finite_or_null(e)}});
+    }
+    json cov = json::array();
+    for (int a = 0; a < joint->layout.size; ++a) {
+      json row = json::array();
+      for (int b = 0; b < joint->layout.size; ++b) row.push_back(js.covariance_ok ? finite_or_null(js.covariance(a, b)) : json(nullptr));
+      cov.push_back(row);
+    }
+    j["covariance"] = cov;
+    j["statistics"] = {{"chi2", js.chi2}, {"n_stars", joint->stars}, {"n_entries", js.entries},
+                       {"n_free_parameters", joint->n_free}, {"dof", js.entries - joint->n_free}};
+    j["solver"] = {{"termination", js.termination}, {"message", js.message}, {"iterations", js.iterations}, {"usable", js.usable}};
+    j["warnings"] = joint->warnings;
+    out["joint"] = j;
+  }
   return out;
 }
 
 std::string fit_summary(const FitResult& result) {
   std::string out;
+  if (result.joint) {
+    const JointResult& j = *result.joint;
+    std::string names;
+    for (const auto& n : j.relations) names += (names.empty() ? "" : " + ") + n;
+    out += fmt::format("joint ({}): {} stars, {} magnitudes, chi2 = {:.2f}\n", names, j.stars, j.solution.entries, j.solution.chi2);
+    for (int p = 0; p < j.layout.size; ++p) {
+      double e = j.solution.covariance_ok ? std::sqrt(std::max(0.0, j.solution.covariance(p, p))) : std::nan("");
+      out += fmt::format("  {:<22} {:>10.4f} +- {:.4f}\n", j.layout.names[p], j.solution.theta[p], e);
+    }
+  }
   for (const auto& rr : result.relations) {
     out += fmt::format("{}: {} stars used, {} refused, chi2/dof = {:.2f}/{}\n", rr.relation.name, rr.n_used,
                        rr.stars.size() - static_cast<std::size_t>(rr.n_used), rr.chi2, rr.dof);
@@ -639,7 +769,15 @@ std::string fit_summary(const FitResult& result) {
 
 FitResult fit_catalog_file(const FitOptions& o) {
   SourceTable in = read_fits_table(o.input_path, {"CATALOG", 0});
-  FitResult result = run_fit(o, in.table);
+  std::optional<SourceTable> coeffs;
+  if (o.joint) {
+    try {
+      coeffs = read_fits_table(o.input_path, {"COEFFS", 0});
+    } catch (const InputError& e) {
+      if (e.rule() != "fits_hdu") throw;
+    }
+  }
+  FitResult result = run_fit(o, in.table, coeffs ? &coeffs->table : nullptr);
   result.provenance = Provenance::for_stage("fit");
   result.provenance.config_sha256 = o.config_sha256;
   result.provenance.inputs.push_back({o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(in.table.rows())});

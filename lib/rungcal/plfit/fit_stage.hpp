@@ -11,6 +11,7 @@
 
 #include "rungcal/astrometry/astrometry.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/plfit/joint.hpp"
 #include "rungcal/plfit/model.hpp"
 #include "rungcal/table/star_table.hpp"
 
@@ -64,6 +65,9 @@ struct FitOptions {
   ParamSpec offset;                      // residual parallax offset (mas): free, fixed or prior
   ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free or fixed
   ScatterEstimator scatter_estimator = ScatterEstimator::kDecoupled;  // how a free scatter is estimated
+  bool joint = false;                    // also fit all relations at once, one parallax offset
+  bool joint_shared_slope = false;       // ... and one slope for all relations
+  double joint_scatter_correlation = 0.0;  // correlation of a star's intrinsic scatter between relations
   int bootstrap = 0;                     // resamples over stars (0: none)
   std::uint64_t seed = 1;                // bootstrap seed: results are the same for any thread count
   int threads = 0;                       // 0: all cores
@@ -110,15 +114,31 @@ struct RelationResult {
   double bootstrap_error(const std::string& name) const;  // standard deviation of the resamples
 };
 
+// The relations fitted together (FitOptions::joint): parallax calibrators only, each
+// relation's intrinsic scatter from its own fit.
+struct JointResult {
+  std::vector<std::string> relations;
+  JointLayout layout;
+  JointData data;
+  JointSolution solution;
+  int stars = 0;
+  int n_free = 0;  // parameters the joint fit estimated
+  std::vector<std::string> warnings;
+};
+
 struct FitResult {
   std::vector<RelationResult> relations;
+  std::optional<JointResult> joint;
   Provenance provenance;
   nlohmann::json to_json(const FitOptions& options) const;
 };
 
 // Selects each relation's calibrators (every refused star keeps its reason), fits, clips,
-// and computes covariance and bootstrap errors. Writes nothing.
-FitResult run_fit(const FitOptions& options, const StarTable& catalog);
+// and computes covariance and bootstrap errors; then the joint fit when asked. coefficients:
+// the deredden product's COEFFS table (A/E(B-V) per band), for the joint fit's E(B-V)
+// covariance; without it E(B-V) errors are taken as independent between relations.
+// Writes nothing.
+FitResult run_fit(const FitOptions& options, const StarTable& catalog, const StarTable* coefficients = nullptr);
 // Reads the catalog, runs, writes the result JSON and the residuals FITS atomically.
 FitResult fit_catalog_file(const FitOptions& options);
 // A few lines a person reads on the terminal.

@@ -37,7 +37,8 @@ struct StarResidual {
     for (int i = 0; i < K; ++i)
       for (int j = 0; j < K; ++j) {
         double inner = d->coefficient[b0 + i] * d->coefficient[b0 + j] * d->var_ebv[star];
-        if (i == j) inner += d->var_phot[b0 + i] + s->sigma_int[d->relation[b0 + i]] * s->sigma_int[d->relation[b0 + i]];
+        const double si = s->sigma_int[d->relation[b0 + i]], sj = s->sigma_int[d->relation[b0 + j]];
+        inner += i == j ? d->var_phot[b0 + i] + si * si : s->scatter_correlation * si * sj;
         c[i * K + j] = d->var_plx[star] + kpi[i] * kpi[j] * inner;
       }
     // Cholesky C = L L^T, then forward substitution L r = e.

@@ -37,6 +37,9 @@ struct JointSettings {
   LossKind loss = LossKind::kNone;
   double loss_scale = 3.0;
   std::vector<double> sigma_int;  // per relation, fixed (from each relation's own fit)
+  // Correlation of one star's intrinsic scatter between relations (its place in the
+  // instability strip moves every band): C_bc += (k pi_b)(k pi_c) rho sigma_b sigma_c.
+  double scatter_correlation = 0.0;
   std::vector<bool> fixed;        // per parameter
 };
 
