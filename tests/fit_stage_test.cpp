@@ -344,7 +344,8 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetWithAConsistentChi2) {
   FitOptions o = fit_options_from_file(test::source_file("config/demo/fit.toml"));
   o.input_path = dir.file("dered.fits");
   o.output_path = dir.file("fit.json");
-  o.bootstrap = 0;
+  o.bootstrap = 60;
+  o.relations.resize(2);  // keep the test quick: W_VI and W_G
   FitResult r = fit_catalog_file(o);
   ASSERT_TRUE(r.joint.has_value());
   const JointResult& j = *r.joint;
@@ -354,6 +355,15 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetWithAConsistentChi2) {
   EXPECT_NEAR(off, -0.010, 2 * e);
   const int dof = j.solution.entries - j.n_free;
   EXPECT_NEAR(j.solution.chi2 / dof, 1.0, 3 * std::sqrt(2.0 / dof));
+  // The bootstrap over stars agrees with the covariance error of the offset (within the
+  // scatter 60 resamples allow).
+  std::vector<double> boot;
+  for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b) boot.push_back(j.bootstrap(b, j.layout.offset));
+  ASSERT_EQ(j.bootstrap_failed, 0);
+  double mean = 0, var = 0;
+  for (double v : boot) mean += v / static_cast<double>(boot.size());
+  for (double v : boot) var += (v - mean) * (v - mean) / static_cast<double>(boot.size() - 1);
+  EXPECT_NEAR(std::sqrt(var) / e, 1.0, 0.35);
   auto json = test::read_text(dir.file("fit.json"));
   EXPECT_NE(json.find("\"joint\""), std::string::npos);
   o.joint = true;

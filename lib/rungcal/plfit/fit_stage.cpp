@@ -267,39 +267,23 @@ std::uint64_t resample_seed(std::uint64_t seed, int b) {
   return z ^ (z >> 31);
 }
 
-void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data) {
-  if (o.bootstrap <= 0) return;
-  const int B = o.bootstrap, P = rr.layout.size;
-  rr.bootstrap = Eigen::MatrixXd::Constant(B, P, std::numeric_limits<double>::quiet_NaN());
-  std::vector<char> ok(B, 0);
+// Runs B resamples over the configured threads with a progress bar. solve(b, rng) returns
+// resample b's parameters, or nothing when its fit failed; the rows come back in b order,
+// NaN for failures, identical for any thread count.
+template <typename Solve>
+Eigen::MatrixXd parallel_bootstrap(const FitOptions& o, int P, const std::string& label, Solve&& solve, int& failed) {
+  const int B = o.bootstrap;
+  Eigen::MatrixXd out = Eigen::MatrixXd::Constant(B, P, std::numeric_limits<double>::quiet_NaN());
+  std::vector<char> ok(static_cast<std::size_t>(B), 0);
   std::atomic<int> next{0};
-  // Resamples start at the optimum; 1e-9 in the cost and 1e-8 in the step are far below
-  // their statistical spread.
-  FitSettings settings = rr.settings;
-  settings.function_tolerance = 1e-9;
-  settings.parameter_tolerance = 1e-8;
-  Progress progress("bootstrap " + rr.relation.name, static_cast<std::size_t>(B));
+  Progress progress("bootstrap " + label, static_cast<std::size_t>(B));
   auto worker = [&] {
     for (int b = next++; b < B; b = next++) {
       Random rng(resample_seed(o.seed, b));
-      auto draw = [&](Eigen::Index n) {
-        std::vector<Eigen::Index> idx(static_cast<std::size_t>(n));
-        for (auto& i : idx) i = static_cast<Eigen::Index>(rng.below(static_cast<std::uint64_t>(n)));
-        return idx;
-      };
-      std::vector<Eigen::Index> ai;
-      // Anchors are resampled within each galaxy so each keeps its stars.
-      for (int g = 0; g < rr.settings.terms.n_anchors; ++g) {
-        std::vector<Eigen::Index> members;
-        for (Eigen::Index i = 0; i < data.anchor.size(); ++i)
-          if (data.group[i] == g) members.push_back(i);
-        for (std::size_t k = 0; k < members.size(); ++k) ai.push_back(members[rng.below(members.size())]);
-      }
-      FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
-      FitSolution s = solve_fit(sample, settings, rr.layout, gauss_newton_start(sample, settings, rr.layout, rr.solution.theta));
-      if (s.usable) {
-        rr.bootstrap.row(b) = s.theta.transpose();
-        ok[b] = 1;
+      std::optional<Eigen::VectorXd> theta = solve(rng);
+      if (theta) {
+        out.row(b) = theta->transpose();
+        ok[static_cast<std::size_t>(b)] = 1;
       }
       progress.advance();
     }
@@ -309,7 +293,37 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
   for (int t = 0; t < std::min(threads, B); ++t) pool.emplace_back(worker);
   for (auto& t : pool) t.join();
   progress.finish();
-  rr.bootstrap_failed = static_cast<int>(std::count(ok.begin(), ok.end(), 0));
+  failed = static_cast<int>(std::count(ok.begin(), ok.end(), 0));
+  return out;
+}
+
+void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data) {
+  if (o.bootstrap <= 0) return;
+  // Resamples start at the optimum; 1e-9 in the cost and 1e-8 in the step are far below
+  // their statistical spread.
+  FitSettings settings = rr.settings;
+  settings.function_tolerance = 1e-9;
+  settings.parameter_tolerance = 1e-8;
+  auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
+    auto draw = [&](Eigen::Index n) {
+      std::vector<Eigen::Index> idx(static_cast<std::size_t>(n));
+      for (auto& i : idx) i = static_cast<Eigen::Index>(rng.below(static_cast<std::uint64_t>(n)));
+      return idx;
+    };
+    std::vector<Eigen::Index> ai;
+    // Anchors are resampled within each galaxy so each keeps its stars.
+    for (int g = 0; g < rr.settings.terms.n_anchors; ++g) {
+      std::vector<Eigen::Index> members;
+      for (Eigen::Index i = 0; i < data.anchor.size(); ++i)
+        if (data.group[i] == g) members.push_back(i);
+      for (std::size_t k = 0; k < members.size(); ++k) ai.push_back(members[rng.below(members.size())]);
+    }
+    FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
+    FitSolution s = solve_fit(sample, settings, rr.layout, gauss_newton_start(sample, settings, rr.layout, rr.solution.theta));
+    if (!s.usable) return std::nullopt;
+    return s.theta;
+  };
+  rr.bootstrap = parallel_bootstrap(o, rr.layout.size, rr.relation.name, solve, rr.bootstrap_failed);
 }
 
 double percentile(std::vector<double> v, double q) {
@@ -319,6 +333,16 @@ double percentile(std::vector<double> v, double q) {
   auto lo = static_cast<std::size_t>(std::floor(pos));
   std::size_t hi = std::min(lo + 1, v.size() - 1);
   return v[lo] + (pos - static_cast<double>(lo)) * (v[hi] - v[lo]);
+}
+
+double standard_deviation(const std::vector<double>& v) {
+  if (v.size() < 2) return std::numeric_limits<double>::quiet_NaN();
+  double m = 0;
+  for (double x : v) m += x;
+  m /= static_cast<double>(v.size());
+  double s = 0;
+  for (double x : v) s += (x - m) * (x - m);
+  return std::sqrt(s / static_cast<double>(v.size() - 1));
 }
 
 std::vector<double> bootstrap_column(const RelationResult& rr, int j) {
@@ -412,6 +436,16 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   jr.n_free = static_cast<int>(std::count(js.fixed.begin(), js.fixed.end(), false));
   jr.solution = solve_joint(d, js, L, start);
   if (!jr.solution.usable) jr.warnings.push_back("the joint solver did not reach a usable solution: " + jr.solution.message);
+  if (o.bootstrap > 0) {
+    auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
+      std::vector<int> stars(static_cast<std::size_t>(d.stars()));
+      for (auto& i : stars) i = static_cast<int>(rng.below(static_cast<std::uint64_t>(d.stars())));
+      JointSolution s = solve_joint(d.take(stars), js, L, jr.solution.theta, false);
+      if (!s.usable) return std::nullopt;
+      return s.theta;
+    };
+    jr.bootstrap = parallel_bootstrap(o, L.size, "joint", solve, jr.bootstrap_failed);
+  }
   for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
   return jr;
 }
@@ -527,14 +561,7 @@ double RelationResult::error(const std::string& name) const {
   return std::sqrt(std::max(0.0, covariance(j, j)));
 }
 double RelationResult::bootstrap_error(const std::string& name) const {
-  std::vector<double> v = bootstrap_column(*this, index_of(layout, name));
-  if (v.size() < 2) return std::numeric_limits<double>::quiet_NaN();
-  double m = 0;
-  for (double x : v) m += x;
-  m /= static_cast<double>(v.size());
-  double s = 0;
-  for (double x : v) s += (x - m) * (x - m);
-  return std::sqrt(s / static_cast<double>(v.size() - 1));
+  return standard_deviation(bootstrap_column(*this, index_of(layout, name)));
 }
 
 FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* coefficients) {
@@ -717,7 +744,16 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     j["parameter_names"] = joint->layout.names;
     for (int p = 0; p < joint->layout.size; ++p) {
       double e = js.covariance_ok ? std::sqrt(std::max(0.0, js.covariance(p, p))) : std::nan("");
-      j["parameters"].push_back({{"name", joint->layout.names[p]}, {"value", js.theta[p]}, {"error", finite_or_null(e)}});
+      std::vector<double> boot;
+      for (Eigen::Index b = 0; b < joint->bootstrap.rows(); ++b)
+        if (std::isfinite(joint->bootstrap(b, p))) boot.push_back(joint->bootstrap(b, p));
+      j["parameters"].push_back({{"name", joint->layout.names[p]},
+                                 {"value", js.theta[p]},
+                                 {"error", finite_or_null(e)},
+                                 {"bootstrap_error", finite_or_null(standard_deviation(boot))},
+                                 {"p16", finite_or_null(percentile(boot, 0.16))},
+                                 {"p50", finite_or_null(percentile(boot, 0.50))},
+                                 {"p84", finite_or_null(percentile(boot, 0.84))}});
     }
     json cov = json::array();
     for (int a = 0; a < joint->layout.size; ++a) {
@@ -727,7 +763,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     }
     j["covariance"] = cov;
     j["statistics"] = {{"chi2", js.chi2}, {"n_stars", joint->stars}, {"n_entries", js.entries},
-                       {"n_free_parameters", joint->n_free}, {"dof", js.entries - joint->n_free}};
+                       {"n_free_parameters", joint->n_free}, {"dof", js.entries - joint->n_free},
+                       {"bootstrap_resamples", joint->bootstrap.rows()}, {"bootstrap_failed", joint->bootstrap_failed}};
     j["solver"] = {{"termination", js.termination}, {"message", js.message}, {"iterations", js.iterations}, {"usable", js.usable}};
     j["warnings"] = joint->warnings;
     out["joint"] = j;
@@ -744,7 +781,13 @@ std::string fit_summary(const FitResult& result) {
     out += fmt::format("joint ({}): {} stars, {} magnitudes, chi2 = {:.2f}\n", names, j.stars, j.solution.entries, j.solution.chi2);
     for (int p = 0; p < j.layout.size; ++p) {
       double e = j.solution.covariance_ok ? std::sqrt(std::max(0.0, j.solution.covariance(p, p))) : std::nan("");
-      out += fmt::format("  {:<22} {:>10.4f} +- {:.4f}\n", j.layout.names[p], j.solution.theta[p], e);
+      out += fmt::format("  {:<22} {:>10.4f} +- {:.4f}", j.layout.names[p], j.solution.theta[p], e);
+      std::vector<double> boot;
+      for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b)
+        if (std::isfinite(j.bootstrap(b, p))) boot.push_back(j.bootstrap(b, p));
+      double be = standard_deviation(boot);
+      if (std::isfinite(be)) out += fmt::format("  (bootstrap {:.4f})", be);
+      out += "\n";
     }
   }
   for (const auto& rr : result.relations) {

@@ -123,6 +123,8 @@ struct JointResult {
   JointSolution solution;
   int stars = 0;
   int n_free = 0;  // parameters the joint fit estimated
+  Eigen::MatrixXd bootstrap;  // resamples x parameters (NaN rows: failed resamples)
+  int bootstrap_failed = 0;
   std::vector<std::string> warnings;
 };
 

@@ -79,6 +79,28 @@ void build_problem(ceres::Problem& problem, const JointData& d, const JointSetti
 
 }  // namespace
 
+JointData JointData::take(const std::vector<int>& stars) const {
+  JointData o;
+  o.relations = relations;
+  for (int star : stars) {
+    o.first.push_back(static_cast<int>(o.relation.size()));
+    for (int e = first[star]; e < first[star + 1]; ++e) {
+      o.relation.push_back(relation[e]);
+      o.x.push_back(x[e]);
+      o.m0.push_back(m0[e]);
+      o.var_phot.push_back(var_phot[e]);
+      o.coefficient.push_back(coefficient[e]);
+    }
+    o.plx.push_back(plx[star]);
+    o.var_plx.push_back(var_plx[star]);
+    o.var_ebv.push_back(var_ebv[star]);
+    o.feh.push_back(feh[star]);
+    o.row.push_back(row[star]);
+  }
+  o.first.push_back(static_cast<int>(o.relation.size()));
+  return o;
+}
+
 JointLayout JointLayout::make(const std::vector<std::string>& names, const std::vector<bool>& metallicity, bool shared_slope) {
   JointLayout L;
   int next = 0;
@@ -106,7 +128,8 @@ JointLayout JointLayout::make(const std::vector<std::string>& names, const std::
   return L;
 }
 
-JointSolution solve_joint(const JointData& d, const JointSettings& s, const JointLayout& L, const Eigen::VectorXd& start) {
+JointSolution solve_joint(const JointData& d, const JointSettings& s, const JointLayout& L, const Eigen::VectorXd& start,
+                          bool with_covariance) {
   JointSolution sol;
   sol.theta = start;
   sol.entries = static_cast<int>(d.relation.size());
@@ -128,6 +151,7 @@ JointSolution solve_joint(const JointData& d, const JointSettings& s, const Join
     sol.iterations = static_cast<int>(summary.iterations.size());
     sol.passes = 1;
   }
+  if (!with_covariance) return sol;
   // chi^2 of the plain (non-robust) whitened residuals, and the covariance.
   Eigen::VectorXd t = sol.theta;
   ceres::Problem plain;

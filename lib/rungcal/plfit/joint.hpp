@@ -21,6 +21,8 @@ struct JointData {
   std::vector<double> plx, var_plx, var_ebv, feh;    // per star
   std::vector<std::size_t> row;    // per star: catalog row
   int stars() const { return static_cast<int>(plx.size()); }
+  // The stars given by index (repeats allowed), with all their entries: a bootstrap sample.
+  JointData take(const std::vector<int>& stars) const;
 };
 
 // Parameters: alpha_r, beta_r (or one shared beta), gamma_r, the shared parallax offset.
@@ -62,6 +64,6 @@ struct JointSolution {
 // zero points, by 0.23 mag for three relations in tests/plfit_test.cpp's simulation. The
 // robust loss acts on each star's whole Mahalanobis distance: a star is an outlier or not.
 JointSolution solve_joint(const JointData& data, const JointSettings& settings, const JointLayout& layout,
-                          const Eigen::VectorXd& start);
+                          const Eigen::VectorXd& start, bool with_covariance = true);
 
 }  // namespace rungcal
