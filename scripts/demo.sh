@@ -15,9 +15,12 @@ echo "== deredden: extinction-corrected and Wesenheit magnitudes"
 "$bin/rungcal-deredden" --config config/demo/deredden.toml
 echo "== fit: period-luminosity relations in parallax space (truth: sample_data/truth.json)"
 "$bin/rungcal-fit" --config config/demo/fit.toml
+echo "== publish: the next version of the 'halden-peak' calibration (unchanged reruns make none)"
+"$bin/rungcal-publish" --store demo_out/store --name halden-peak --fit demo_out/fit.json \
+  --residuals demo_out/fit_residuals.fits --config config/demo/fit.toml
 echo
 echo "Demo outputs:"
 for f in demo_out/catalog.fits demo_out/catalog_rejects.csv demo_out/catalog_dereddened.fits \
-         demo_out/fit.json demo_out/fit_residuals.fits; do
+         demo_out/fit.json demo_out/fit_residuals.fits demo_out/store/halden-peak/latest; do
   echo "  $(pwd)/$f"
 done

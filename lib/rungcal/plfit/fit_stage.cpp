@@ -672,7 +672,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                   {"inflation_factor", o.inflation_factor},
                   {"max_ruwe", o.max_ruwe},
                   {"bootstrap", o.bootstrap},
-                  {"seed", o.seed}};
+                  {"seed", o.seed},
+                  {"extinction", extinction.is_null() ? nlohmann::json::object() : extinction}};
   auto finite_or_null = [](double v) { return std::isfinite(v) ? json(v) : json(nullptr); };
   for (const auto& rr : relations) {
     json r;
@@ -823,6 +824,9 @@ FitResult fit_catalog_file(const FitOptions& o) {
   FitResult result = run_fit(o, in.table, coeffs ? &coeffs->table : nullptr);
   result.provenance = Provenance::for_stage("fit");
   result.provenance.config_sha256 = o.config_sha256;
+  for (const auto& [keyword, field] : {std::pair{"RGLAW", "law"}, std::pair{"RGRV", "r_v"}, std::pair{"RGBNDSHA", "band_table_sha256"}})
+    if (const Keyword* k = in.table.keyword(keyword))
+      std::visit([&, f = field](const auto& v) { result.extinction[f] = v; }, k->value);
   result.provenance.inputs.push_back({o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(in.table.rows())});
   if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
     result.provenance.inputs.push_back({o.zero_point_table_5p, sha256_file(o.zero_point_table_5p), -1});

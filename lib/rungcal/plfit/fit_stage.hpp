@@ -131,6 +131,7 @@ struct JointResult {
 struct FitResult {
   std::vector<RelationResult> relations;
   std::optional<JointResult> joint;
+  nlohmann::json extinction;  // law, R_V and band-table hash of the dereddened input
   Provenance provenance;
   nlohmann::json to_json(const FitOptions& options) const;
 };

@@ -1,0 +1,50 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+namespace rungcal {
+
+// Schema version of calibration files (docs/file-formats.md, "Calibration file").
+inline constexpr int kCalibrationSchemaVersion = 1;
+
+// A published calibration file: {schema, schema_version, name, version, published_utc,
+// content_sha256, previous {version, content_sha256, shifts}, config_text, fit}, where fit
+// is the rungcal-fit result it was made from (parameters, covariance, statistics, rejected
+// stars, provenance and model).
+struct Calibration {
+  nlohmann::json document;  // the whole calibration file
+
+  const std::string& name() const;
+  int version() const;
+  // SHA-256 of what defines the calibration: the fit result and the config text, without
+  // the fit's creation time and input paths (inputs count by their SHA-256), so the same
+  // inputs, config and code give the same hash wherever and whenever they run.
+  std::string content_sha256() const;
+  // "name@version" of the calibration, or of a relation in it.
+  std::string label() const;
+  std::vector<std::string> relation_names() const;
+};
+
+// The content hash of a fit result (rungcal-fit JSON) with its config text.
+std::string calibration_content_sha256(const nlohmann::json& fit, const std::string& config_text);
+
+// An absolute magnitude from a calibration with its uncertainties.
+struct Prediction {
+  double abs_mag = 0;        // M(log P, [Fe/H])
+  double calibration_error = 0;  // from the parameters' covariance: common to all stars
+  double intrinsic_scatter = 0;  // the relation's sigma_int: a single star's scatter about it
+};
+
+// M = alpha + beta (log P - log P0) [+ beta_long (log P - log Pb) above log Pb]
+// [+ gamma [Fe/H]]; calibration error sqrt(g^T C g), g the gradient in the parameters.
+// Throws InputError ("unknown_relation", "missing_value") when the relation is not in the
+// calibration or a metallicity term needs [Fe/H].
+Prediction predict_absolute_magnitude(const Calibration& calibration, const std::string& relation, double log_period,
+                                      std::optional<double> feh = std::nullopt);
+
+}  // namespace rungcal

@@ -1,0 +1,274 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/calibration/store.hpp"
+
+#include <fcntl.h>
+#include <sys/file.h>
+#include <unistd.h>
+
+#include <chrono>
+#include <cmath>
+#include <filesystem>
+#include <fstream>
+#include <regex>
+#include <sstream>
+#include <thread>
+
+#include <fmt/format.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/fault.hpp"
+#include "rungcal/core/provenance.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+
+namespace fs = std::filesystem;
+
+namespace rungcal {
+namespace {
+
+std::string read_all(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
+  std::stringstream ss;
+  ss << in.rdbuf();
+  return ss.str();
+}
+
+nlohmann::json read_json(const std::string& path) {
+  try {
+    return nlohmann::json::parse(read_all(path));
+  } catch (const nlohmann::json::parse_error& e) {
+    throw InputError({path, {}, {}}, "json_syntax", e.what());
+  }
+}
+
+std::string version_folder(int v) { return fmt::format("v{:04d}", v); }
+
+// An exclusive lock on a file, held for the object's life.
+class FileLock {
+ public:
+  FileLock(const std::string& path, double wait_seconds) {
+    fd_ = ::open(path.c_str(), O_RDWR | O_CREAT | O_CLOEXEC, 0644);
+    if (fd_ < 0) throw InputError({path, {}, {}}, "write_failed", "cannot create the lock file");
+    auto deadline = std::chrono::steady_clock::now() + std::chrono::duration<double>(wait_seconds);
+    while (::flock(fd_, LOCK_EX | LOCK_NB) != 0) {
+      if (std::chrono::steady_clock::now() >= deadline) {
+        ::close(fd_);
+        throw BusyError(fmt::format("{}: another publisher holds the lock; gave up after {} s", path, wait_seconds));
+      }
+      std::this_thread::sleep_for(std::chrono::milliseconds(50));
+    }
+  }
+  ~FileLock() {
+    ::flock(fd_, LOCK_UN);
+    ::close(fd_);
+  }
+  FileLock(const FileLock&) = delete;
+  FileLock& operator=(const FileLock&) = delete;
+
+ private:
+  int fd_ = -1;
+};
+
+std::optional<int> latest_version(const std::string& folder) {
+  std::error_code ec;
+  fs::path target = fs::read_symlink(fs::path(folder) / "latest", ec);
+  if (ec) return std::nullopt;
+  std::smatch m;
+  std::string t = target.filename().string();
+  if (!std::regex_match(t, m, std::regex("v([0-9]{4,})"))) return std::nullopt;
+  return std::stoi(m[1]);
+}
+
+nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& before) {
+  nlohmann::json out = nlohmann::json::object();
+  for (const auto& r : now.at("relations")) {
+    const std::string name = r.at("name");
+    const nlohmann::json* old = nullptr;
+    for (const auto& o : before.at("relations"))
+      if (o.at("name") == name) old = &o;
+    if (!old) continue;
+    for (const auto& p : r.at("parameters")) {
+      for (const auto& q : old->at("parameters")) {
+        if (q.at("name") != p.at("name")) continue;
+        double shift = p.at("value").get<double>() - q.at("value").get<double>();
+        double e1 = p.at("error").is_null() ? NAN : p.at("error").get<double>();
+        double e0 = q.at("error").is_null() ? NAN : q.at("error").get<double>();
+        double combined = std::hypot(e1, e0);
+        nlohmann::json entry = {{"shift", shift}, {"combined_sigma", std::isfinite(combined) ? nlohmann::json(combined) : nlohmann::json(nullptr)}};
+        entry["shift_in_sigma"] = std::isfinite(combined) && combined > 0 ? nlohmann::json(shift / combined) : nlohmann::json(nullptr);
+        out[name][p.at("name").get<std::string>()] = entry;
+      }
+    }
+  }
+  return out;
+}
+
+// The FITS copy: header keywords, a parameter table, and the whole JSON as one text cell
+// (so the copy holds the same content, readable without a JSON parser for the numbers).
+void write_calibration_fits(const Calibration& cal, const std::string& path) {
+  StarTable params;
+  for (const char* c : {"relation", "parameter", "mode"}) params.add_column(c, ColumnType::kText);
+  for (const char* c : {"value", "error", "bootstrap_error", "p16", "p50", "p84"}) params.add_column(c, ColumnType::kReal);
+  for (const auto& r : cal.document.at("fit").at("relations")) {
+    for (const auto& p : r.at("parameters")) {
+      params.column("relation").push_text(r.at("name"));
+      params.column("parameter").push_text(p.at("name"));
+      params.column("mode").push_text(p.at("mode"));
+      for (const char* c : {"value", "error", "bootstrap_error", "p16", "p50", "p84"})
+        p.at(c).is_null() ? params.column(c).push_null() : params.column(c).push_real(p.at(c).get<double>());
+    }
+  }
+  StarTable doc;
+  doc.add_column("json", ColumnType::kText, "", "the calibration file, verbatim");
+  doc.column("json").push_text(cal.document.dump());
+  for (StarTable* t : {&params, &doc}) {
+    t->set_keyword("RGCALNAM", cal.name(), "calibration name");
+    t->set_keyword("RGCALVER", static_cast<std::int64_t>(cal.version()), "calibration version");
+    t->set_keyword("RGCALSHA", cal.document.at("content_sha256").get<std::string>(), "content SHA-256");
+    t->set_keyword(key::kSchema, static_cast<std::int64_t>(kCalibrationSchemaVersion), "calibration schema version");
+    t->set_keyword(key::kProduct, std::string("calibration"), "rungcal product type");
+    t->set_keyword(key::kDate, cal.document.at("published_utc").get<std::string>(), "UTC time of publishing");
+  }
+  write_fits_tables(path, {{"PARAMS", &params}, {"CALJSON", &doc}});
+}
+
+void copy_file_synced(const std::string& from, const std::string& to) {
+  write_file_atomically(to, read_all(from));
+}
+
+}  // namespace
+
+std::string PublishOptions::check() const {
+  if (store.empty()) return "store: required";
+  if (!std::regex_match(name, std::regex("[A-Za-z0-9][A-Za-z0-9_.-]*")))
+    return "name: letters, digits, '-', '_' and '.', starting with a letter or digit";
+  if (fit_path.empty()) return "fit: required (a rungcal-fit result)";
+  if (!(lock_wait_seconds >= 0)) return "lock_wait_seconds: must be 0 or more";
+  return "";
+}
+
+std::vector<int> calibration_versions(const std::string& store, const std::string& name) {
+  std::vector<int> out;
+  fs::path folder = fs::path(store) / name;
+  std::error_code ec;
+  if (!fs::is_directory(folder, ec)) return out;
+  for (const auto& e : fs::directory_iterator(folder)) {
+    std::smatch m;
+    std::string n = e.path().filename().string();
+    if (e.is_directory() && std::regex_match(n, m, std::regex("v([0-9]{4,})"))) out.push_back(std::stoi(m[1]));
+  }
+  std::sort(out.begin(), out.end());
+  return out;
+}
+
+Calibration load_calibration(const std::string& store, const std::string& reference) {
+  auto at = reference.find('@');
+  std::string name = reference.substr(0, at), which = at == std::string::npos ? "latest" : reference.substr(at + 1);
+  fs::path folder = fs::path(store) / name;
+  int version = 0;
+  if (which == "latest") {
+    auto v = latest_version(folder.string());
+    if (!v) throw InputError({folder.string(), {}, {}}, "unknown_calibration", "no published version (no 'latest' link)");
+    version = *v;
+  } else {
+    try {
+      version = std::stoi(which);
+    } catch (...) {
+      throw InputError({reference, {}, {}}, "unknown_calibration", "give name@latest or name@N");
+    }
+  }
+  fs::path file = folder / version_folder(version) / "calibration.json";
+  if (!fs::exists(file))
+    throw InputError({file.string(), {}, {}}, "unknown_calibration", fmt::format("{} has no version {}", name, version));
+  Calibration cal{read_json(file.string())};
+  if (cal.document.value("schema", "") != "rungcal-calibration")
+    throw InputError({file.string(), {}, "schema"}, "not_a_calibration", "not a rungcal calibration file");
+  return cal;
+}
+
+PublishOutcome publish_calibration(const PublishOptions& o) {
+  if (std::string err = o.check(); !err.empty())
+    throw InputError({"", {}, err.substr(0, err.find(':'))}, "config_value", err.substr(err.find(':') + 2));
+  nlohmann::json fit = read_json(o.fit_path);
+  if (fit.value("schema", "") != "rungcal-fit")
+    throw InputError({o.fit_path, {}, "schema"}, "not_a_fit_result", "not a rungcal-fit result");
+  const std::string config_text = o.config_path.empty() ? "" : read_all(o.config_path);
+  if (!o.residuals_path.empty() && !fs::exists(o.residuals_path))
+    throw InputError({o.residuals_path, {}, {}}, "unreadable_file", "no such residuals file");
+
+  fs::path folder = fs::path(o.store) / o.name;
+  ensure_parent_folder((folder / ".lock").string());
+  FileLock lock((folder / ".lock").string(), o.lock_wait_seconds);
+  fault_point("publish_locked");
+  // Leftovers of a publisher that died mid-way: never a version, safe to remove.
+  for (const auto& e : fs::directory_iterator(folder)) {
+    std::string n = e.path().filename().string();
+    if (n.rfind(".v", 0) == 0 || n.rfind(".latest", 0) == 0) fs::remove_all(e.path());
+  }
+
+  PublishOutcome out;
+  const std::string content = calibration_content_sha256(fit, config_text);
+  std::optional<int> latest = latest_version(folder.string());
+  std::optional<Calibration> previous;
+  if (latest) {
+    previous = load_calibration(o.store, fmt::format("{}@{}", o.name, *latest));
+    if (previous->document.value("content_sha256", "") == content) {
+      out.version = *latest;
+      out.folder = (folder / version_folder(*latest)).string();
+      return out;
+    }
+  }
+  std::vector<int> versions = calibration_versions(o.store, o.name);
+  const int version = versions.empty() ? 1 : versions.back() + 1;
+
+  Calibration cal;
+  cal.document = {{"schema", "rungcal-calibration"},
+                  {"schema_version", kCalibrationSchemaVersion},
+                  {"name", o.name},
+                  {"version", version},
+                  {"published_utc", utc_now_iso8601()},
+                  {"content_sha256", content},
+                  {"config_text", config_text},
+                  {"fit", fit}};
+  if (previous) {
+    out.shifts = shifts_between(fit, previous->document.at("fit"));
+    cal.document["previous"] = {{"version", previous->version()},
+                                {"content_sha256", previous->document.value("content_sha256", "")},
+                                {"shifts", out.shifts}};
+  } else {
+    cal.document["previous"] = nullptr;
+  }
+
+  // Build the version under a temporary name, then rename it into place: a crash leaves
+  // either no new version or a whole one.
+  fs::path tmp = folder / fmt::format(".{}.tmp-{}", version_folder(version), ::getpid());
+  fs::create_directories(tmp);
+  write_file_atomically((tmp / "calibration.json").string(), cal.document.dump(2) + "\n");
+  fault_point("publish_json_written");
+  write_calibration_fits(cal, (tmp / "calibration.fits").string());
+  if (!o.residuals_path.empty()) copy_file_synced(o.residuals_path, (tmp / "fit_residuals.fits").string());
+  if (!o.config_path.empty()) write_file_atomically((tmp / "config.toml").string(), config_text);
+  fsync_path(tmp.string());
+  fault_point("publish_version_built");
+  fs::path final = folder / version_folder(version);
+  if (::rename(tmp.c_str(), final.c_str()) != 0)
+    throw InputError({final.string(), {}, {}}, "write_failed", "cannot move the new version into place");
+  fsync_path(folder.string());
+  fault_point("publish_version_renamed");
+  // Then point 'latest' at it: a new link under a temporary name renamed over the old one.
+  fs::path link_tmp = folder / fmt::format(".latest.tmp-{}", ::getpid());
+  fs::create_directory_symlink(version_folder(version), link_tmp);
+  fault_point("publish_link_made");
+  if (::rename(link_tmp.c_str(), (folder / "latest").c_str()) != 0)
+    throw InputError({(folder / "latest").string(), {}, {}}, "write_failed", "cannot replace the latest link");
+  fsync_path(folder.string());
+  fault_point("publish_done");
+  out.created = true;
+  out.version = version;
+  out.folder = final.string();
+  return out;
+}
+
+}  // namespace rungcal

@@ -1,0 +1,45 @@
+// SPDX-License-Identifier: MIT
+// rungcal-publish: a fit result -> the next immutable version of a named calibration.
+#include <cstdio>
+
+#include <spdlog/spdlog.h>
+
+#include "rungcal/calibration/store.hpp"
+#include "rungcal/core/stage_main.hpp"
+
+int main(int argc, char** argv) {
+  CLI::App app{"Publishes a rungcal-fit result as the next version of a calibration in a store, "
+               "unless its content equals the latest version's. Versions never change once written."};
+  rungcal::CommonOptions common;
+  rungcal::PublishOptions o;
+  app.add_option("--store", o.store, "Calibration store folder")->required();
+  app.add_option("--name", o.name, "Calibration name")->required();
+  app.add_option("--fit", o.fit_path, "rungcal-fit result (JSON)")->required();
+  app.add_option("--residuals", o.residuals_path, "Its residuals (FITS), kept with the version");
+  app.add_option("--config", o.config_path, "The fit config, kept with the version");
+  app.add_option("--lock-wait", o.lock_wait_seconds, "Seconds to wait for another publisher (then exit 5)");
+  common.add_to(app);
+  if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
+  rungcal::setup_logging("publish", common.verbosity(), common.log_file);
+
+  return rungcal::run_stage("publish", [&] {
+    rungcal::PublishOutcome out;
+    try {
+      out = rungcal::publish_calibration(o);
+    } catch (const rungcal::BusyError& e) {
+      spdlog::error("{}", e.what());
+      return rungcal::ExitCode::kBusy;
+    }
+    if (!out.created) {
+      std::printf("%s@%d unchanged: the content equals the latest version\n", o.name.c_str(), out.version);
+      return rungcal::ExitCode::kSuccess;
+    }
+    std::printf("published %s@%d in %s\n", o.name.c_str(), out.version, out.folder.c_str());
+    for (const auto& [relation, params] : out.shifts.items())
+      for (const auto& [name, s] : params.items())
+        if (!s["shift_in_sigma"].is_null())
+          std::printf("  %s %s: %+.5f (%+.2f sigma)\n", relation.c_str(), name.c_str(), s["shift"].get<double>(),
+                      s["shift_in_sigma"].get<double>());
+    return rungcal::ExitCode::kSuccess;
+  });
+}
