@@ -5,9 +5,9 @@
 set -euo pipefail
 cd "$(dirname "$0")/.."
 bash scripts/setup-debian.sh build
-cmake -S . -B build -DCMAKE_BUILD_TYPE=RelWithDebInfo -DRUNGCAL_BUILD_TESTS=OFF >/dev/null
-cmake --build build -j"$(nproc)" >/dev/null
-bin=build/bin
+cmake -S . -B build-demo -DCMAKE_BUILD_TYPE=RelWithDebInfo -DRUNGCAL_BUILD_TESTS=OFF >/dev/null
+cmake --build build-demo -j"$(nproc)" >/dev/null
+bin=build-demo/bin
 mkdir -p demo_out
 echo "== ingest: Halden Peak Observatory calibrators (sample_data/calibrators.fits)"
 "$bin/rungcal-ingest" --config config/demo/ingest.toml
@@ -18,9 +18,15 @@ echo "== fit: period-luminosity relations in parallax space (truth: sample_data/
 echo "== publish: the next version of the 'halden-peak' calibration (unchanged reruns make none)"
 "$bin/rungcal-publish" --store demo_out/store --name halden-peak --fit demo_out/fit.json \
   --residuals demo_out/fit_residuals.fits --config config/demo/fit.toml
+echo "== apply: distances to the Veyra Spiral's Cepheids (truth: mu = 29.35)"
+"$bin/rungcal-ingest" --config config/demo/ingest_targets.toml
+"$bin/rungcal-deredden" --config config/demo/deredden_targets.toml
+"$bin/rungcal-apply" --store demo_out/store --calibration halden-peak@latest --relation W_VI \
+  --targets demo_out/targets_dereddened.fits --out demo_out/distances.fits
 echo
 echo "Demo outputs:"
 for f in demo_out/catalog.fits demo_out/catalog_rejects.csv demo_out/catalog_dereddened.fits \
-         demo_out/fit.json demo_out/fit_residuals.fits demo_out/store/halden-peak/latest; do
+         demo_out/fit.json demo_out/fit_residuals.fits demo_out/store/halden-peak/latest \
+         demo_out/distances.fits demo_out/distances.csv demo_out/distances_hosts.csv; do
   echo "  $(pwd)/$f"
 done

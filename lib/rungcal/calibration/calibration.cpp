@@ -35,14 +35,27 @@ std::string Calibration::content_sha256() const {
   return calibration_content_sha256(document.at("fit"), document.value("config_text", ""));
 }
 
+namespace {
+const nlohmann::json& relation_of(const Calibration& cal, const std::string& relation) {
+  for (const auto& r : cal.document.at("fit").at("relations"))
+    if (r.at("name") == relation) return r;
+  throw InputError({cal.label(), {}, relation, "row", "relation"}, "unknown_relation",
+                   "the calibration has no relation of this name");
+}
+}  // namespace
+
+double calibration_error_of(const Calibration& cal, const std::string& relation, const std::vector<double>& grad) {
+  const auto& cov = relation_of(cal, relation).at("covariance");
+  double var = 0;
+  for (std::size_t i = 0; i < grad.size(); ++i)
+    for (std::size_t j = 0; j < grad.size(); ++j)
+      if (grad[i] != 0 && grad[j] != 0 && !cov[i][j].is_null()) var += grad[i] * grad[j] * cov[i][j].get<double>();
+  return std::sqrt(std::max(0.0, var));
+}
+
 Prediction predict_absolute_magnitude(const Calibration& cal, const std::string& relation, double log_period,
                                       std::optional<double> feh) {
-  const nlohmann::json* rel = nullptr;
-  for (const auto& r : cal.document.at("fit").at("relations"))
-    if (r.at("name") == relation) rel = &r;
-  if (!rel)
-    throw InputError({cal.label(), {}, relation, "row", "relation"}, "unknown_relation",
-                     "the calibration has no relation of this name");
+  const nlohmann::json* rel = &relation_of(cal, relation);
   const auto& names = rel->at("parameter_names");
   const auto& params = rel->at("parameters");
   const std::size_t n = names.size();
@@ -68,13 +81,9 @@ Prediction predict_absolute_magnitude(const Calibration& cal, const std::string&
     grad[j] = g;
     p.abs_mag += g * value[j];
   }
-  const auto& cov = rel->at("covariance");
-  double var = 0;
-  for (std::size_t i = 0; i < n; ++i)
-    for (std::size_t j = 0; j < n; ++j)
-      if (grad[i] != 0 && grad[j] != 0 && !cov[i][j].is_null()) var += grad[i] * grad[j] * cov[i][j].get<double>();
-  p.calibration_error = std::sqrt(std::max(0.0, var));
+  p.calibration_error = calibration_error_of(cal, relation, grad);
   p.intrinsic_scatter = sigma;
+  p.gradient = grad;
   return p;
 }
 

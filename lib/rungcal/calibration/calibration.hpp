@@ -38,7 +38,12 @@ struct Prediction {
   double abs_mag = 0;        // M(log P, [Fe/H])
   double calibration_error = 0;  // from the parameters' covariance: common to all stars
   double intrinsic_scatter = 0;  // the relation's sigma_int: a single star's scatter about it
+  std::vector<double> gradient;  // dM / d(parameter), in the relation's parameter order
 };
+
+// sqrt(g^T C g) for a relation's covariance C: the calibration error of any linear
+// combination of predictions (a host's weighted mean uses the mean gradient).
+double calibration_error_of(const Calibration& calibration, const std::string& relation, const std::vector<double>& gradient);
 
 // M = alpha + beta (log P - log P0) [+ beta_long (log P - log Pb) above log Pb]
 // [+ gamma [Fe/H]]; calibration error sqrt(g^T C g), g the gradient in the parameters.
