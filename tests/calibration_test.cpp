@@ -12,6 +12,7 @@
 #include <fmt/format.h>
 
 #include "rungcal/calibration/apply.hpp"
+#include "rungcal/calibration/diff.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/ingest/ingest.hpp"
@@ -305,6 +306,52 @@ TEST(Apply, TheSimulatedTargetGalaxyIsAtItsTrueDistance) {
   EXPECT_EQ(std::get<std::string>(hosts.table.keyword("RGCALIB")->value), "halden@1");
   EXPECT_TRUE(test::file_exists(dir.file("distances.csv")));
   std::cout << "[ Veyra Spiral ] mu = " << mu << " +- " << err << " (truth 29.35)\n";
+}
+
+TEST(Diff, ShiftsInputsAndStarsBetweenTwoVersions) {
+  // Version 2 of the Riess et al. 2018 fit leaves out one star (its parallax file row
+  // changed): the diff names the changed input, the star that left, and shifts whose sigma
+  // is the shift over the combined covariance errors.
+  test::TempDir dir;
+  std::string fit1 = write_reference_fit(dir, "one");
+  ASSERT_TRUE(publish_calibration(publish_options(dir, fit1)).created);
+  std::string table = test::read_text(test::reference_file("mw_cepheids_hst_gaiadr2.txt"));
+  // AA GEM's row (it starts "AA-GEM"): set its FinalAnalysisFlag, the 11th field, to 1.
+  ASSERT_NE(table.find("\nAA-GEM  "), std::string::npos);
+  std::string edited = table;
+  auto row = edited.find("\nAA-GEM  ");
+  auto flag_pos = row;
+  for (int field = 0; field < 10; ++field) flag_pos = edited.find("  ", flag_pos + 2);
+  edited.replace(flag_pos + 2, 1, "1");
+  test::write_text(dir.file("edited.txt"), edited);
+  IngestOptions io = ingest_options_from_file(test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml"));
+  io.input_path = dir.file("edited.txt");
+  io.catalog_path = dir.file("cat2.fits");
+  write_ingest_products(run_ingest(io), io);
+  FitOptions o = fit_options_from_file(test::source_file("config/reference/fit_mw_cepheids_dr2.toml"));
+  o.input_path = dir.file("cat2.fits");
+  o.output_path = dir.file("two.json");
+  fit_catalog_file(o);
+  ASSERT_TRUE(publish_calibration(publish_options(dir, o.output_path)).created);
+  Calibration a = load_calibration(dir.file("store"), "mw-dr2@1"), b = load_calibration(dir.file("store"), "mw-dr2@2");
+  CalibrationDiff d = diff_calibrations(a, b);
+  ASSERT_EQ(d.left.size(), 1u);
+  EXPECT_EQ(d.left[0].second, std::vector<std::string>{"AA GEM"});
+  EXPECT_TRUE(d.entered.empty());
+  ASSERT_EQ(d.inputs.size(), 1u);
+  EXPECT_EQ(d.inputs[0].what, "changed");
+  for (const auto& s : d.shifts) {
+    if (s.parameter != "parallax_offset_mas") continue;
+    EXPECT_NEAR(s.shift_in_sigma, s.shift / std::hypot(s.from_error, s.to_error), 1e-12);
+    EXPECT_NE(s.shift, 0.0);
+  }
+  auto r = test::run_stage("diff", "--store " + dir.file("store") + " --to mw-dr2@latest");
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_NE(r.output.find("mw-dr2@1 -> mw-dr2@2"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("1 stars left: AA GEM"), std::string::npos) << r.output;
+  r = test::run_stage("diff", "--store " + dir.file("store") + " --to mw-dr2@1");
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("[no_previous_version]"), std::string::npos) << r.output;
 }
 
 }  // namespace

@@ -731,8 +731,11 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                    {"usable", rr.solution.usable},
                    {"brief_report", rr.solution.brief_report}};
     r["rejected"] = json::array();
-    for (const auto& s : rr.stars)
+    r["used"] = json::array();
+    for (const auto& s : rr.stars) {
       if (!s.used) r["rejected"].push_back({{"id", s.id}, {"reason", s.reason}});
+      else r["used"].push_back(s.id);
+    }
     r["warnings"] = rr.warnings;
     out["relations"].push_back(r);
   }
