@@ -12,7 +12,7 @@ int main(int argc, char** argv) {
   CLI::App app{"Corrects a catalog's magnitudes for extinction and forms Wesenheit magnitudes. "
                "With --law, --rv and --wavelength it instead prints A_lambda/A_V, one line per wavelength."};
   rungcal::CommonOptions common;
-  std::string config_path, out_path, law_name;
+  std::string config_path, out_path, in_path, law_name;
   double r_v = 3.1;
   std::vector<double> wavelengths;
   app.add_option("--config", config_path, "Deredden config (TOML)");
@@ -20,6 +20,7 @@ int main(int argc, char** argv) {
   app.add_option("--law", law_name, "Query mode: extinction law (ccm89, odonnell94, fitzpatrick99)");
   app.add_option("--rv", r_v, "Query mode: R_V");
   app.add_option("--wavelength", wavelengths, "Query mode: wavelengths in Angstrom")->expected(1, -1);
+  app.add_option("--input", in_path, "Input catalog (overrides [deredden] input)");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("deredden", common.verbosity(), common.log_file);
@@ -37,6 +38,7 @@ int main(int argc, char** argv) {
     if (config_path.empty())
       throw rungcal::InputError({"", {}, "--config"}, "config_value", "give --config, or --law/--rv/--wavelength for a query");
     rungcal::DereddenOptions options = rungcal::deredden_options_from_file(config_path);
+    if (!in_path.empty()) options.input_path = in_path;
     if (!out_path.empty()) options.output_path = out_path;
     rungcal::DereddenResult result = rungcal::deredden_catalog_file(options);
     for (const auto& c : result.coefficients) {

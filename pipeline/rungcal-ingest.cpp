@@ -9,15 +9,17 @@ int main(int argc, char** argv) {
   CLI::App app{"Reads a calibrator catalog through a TOML column map, validates every row and "
                "writes the canonical FITS catalog plus a table of rejected rows."};
   rungcal::CommonOptions common;
-  std::string config_path, out_path;
+  std::string config_path, out_path, in_path;
   app.add_option("--config", config_path, "Ingest config (TOML)")->required();
   app.add_option("--out", out_path, "Catalog to write (overrides [output] catalog)");
+  app.add_option("--input", in_path, "Input catalog (overrides [source] path)");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("ingest", common.verbosity(), common.log_file);
 
   return rungcal::run_stage("ingest", [&] {
     rungcal::IngestOptions options = rungcal::ingest_options_from_file(config_path);
+    if (!in_path.empty()) options.input_path = in_path;
     if (!out_path.empty()) options.catalog_path = out_path;
     rungcal::IngestResult result = rungcal::run_ingest(options);
     rungcal::write_ingest_products(result, options);

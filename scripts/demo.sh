@@ -18,6 +18,15 @@ echo "== fit: period-luminosity relations in parallax space (truth: sample_data/
 echo "== publish: the next version of the 'halden-peak' calibration (unchanged reruns make none)"
 "$bin/rungcal-publish" --store demo_out/store --name halden-peak --fit demo_out/fit.json \
   --residuals demo_out/fit_residuals.fits --config config/demo/fit.toml
+echo "== a new data release arrives: the same stars, parallaxes with smaller errors"
+r2=demo_out/release2
+"$bin/rungcal-ingest" --config config/demo/ingest.toml --input sample_data/calibrators_release2.fits --out $r2/catalog.fits
+"$bin/rungcal-deredden" --config config/demo/deredden.toml --input $r2/catalog.fits --out $r2/catalog_dereddened.fits
+"$bin/rungcal-fit" --config config/demo/fit.toml --input $r2/catalog_dereddened.fits --out $r2/fit.json >/dev/null
+"$bin/rungcal-publish" --store demo_out/store --name halden-peak --fit $r2/fit.json \
+  --residuals $r2/fit_residuals.fits --config config/demo/fit.toml
+echo "== diff: what the new release changed"
+"$bin/rungcal-diff" --store demo_out/store --to halden-peak@latest
 echo "== apply: distances to the Veyra Spiral's Cepheids (truth: mu = 29.35)"
 "$bin/rungcal-ingest" --config config/demo/ingest_targets.toml
 "$bin/rungcal-deredden" --config config/demo/deredden_targets.toml

@@ -119,6 +119,7 @@ SimulateOptions simulate_options_from_file(const std::string& path) {
   o.parallax_zero_point_mas = s->number_or("parallax_zero_point_mas", o.parallax_zero_point_mas);
   o.parallax_offset_mas = s->number_or("parallax_offset_mas", o.parallax_offset_mas);
   o.parallax_error_floor_mas = s->number_or("parallax_error_floor_mas", o.parallax_error_floor_mas);
+  o.release2_error_factor = s->number_or("release2_error_factor", o.release2_error_factor);
   o.mag_error = s->number_or("mag_error", o.mag_error);
   std::string law = s->string_or("law", std::string(kExtinctionLawNames.name(o.law)));
   auto parsed = kExtinctionLawNames.parse(law);
@@ -297,6 +298,22 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
     }
   }
 
+  // A later data release: the same stars, new parallaxes with smaller errors, drawn from a
+  // stream of their own so the first release's draw stays as it was.
+  if (o.release2_error_factor > 0) {
+    sim.calibrators_release2 = cat;
+    Random r2(o.seed ^ 0x5EC0DD47A5E1EA5Eull);
+    for (std::size_t i = 0; i < cat.rows(); ++i) {
+      double err = cat.column("PLX_ERR").real[i] * o.release2_error_factor;
+      double noise = err * (cat.column("RUWE").real[i] > 1.4 ? 3.0 : 1.0);
+      sim.calibrators_release2.column("PLX").real[i] =
+          rounded(truth.column("parallax_true_mas").real[i] + o.parallax_zero_point_mas + o.parallax_offset_mas +
+                      r2.normal(0, noise), 4);
+      sim.calibrators_release2.column("PLX_ERR").real[i] = rounded(err, 4);
+    }
+    sim.calibrators_release2.set_keyword("RGRELEAS", static_cast<std::int64_t>(2), "simulated data release");
+  }
+
   // Targets in the invented distant galaxy.
   StarTable& tg = sim.targets;
   tg.add_column("id", ColumnType::kText);
@@ -367,6 +384,8 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
 void write_simulation(const Simulation& sim, const std::string& folder) {
   std::filesystem::create_directories(folder);
   write_fits_tables(folder + "/calibrators.fits", {{"STARS", &sim.calibrators}});
+  if (sim.calibrators_release2.rows() > 0)
+    write_fits_tables(folder + "/calibrators_release2.fits", {{"STARS", &sim.calibrators_release2}});
   write_csv_table(sim.light_curves, folder + "/lightcurves.csv");
   write_csv_table(sim.targets, folder + "/targets.csv");
   write_csv_table(sim.truth_stars, folder + "/truth_stars.csv");

@@ -46,6 +46,7 @@ struct SimulateOptions {
   double parallax_zero_point_mas = -0.020;  // Z in observed = true + Z + offset + noise
   double parallax_offset_mas = -0.010;      // the residual offset a fit should find
   double parallax_error_floor_mas = 0.018;  // error of the brightest stars; grows with G
+  double release2_error_factor = 0.7;   // a second data release's parallax errors (0: none)
   double mag_error = 0.015;             // photometric error of calibrator mean magnitudes
   ExtinctionLaw law = ExtinctionLaw::kF99;  // law reddening the simulated stars
   double r_v = 3.1;
@@ -72,6 +73,7 @@ SimulateOptions simulate_options_from_file(const std::string& path);
 // What the simulator drew: the products and the truth behind them.
 struct Simulation {
   StarTable calibrators;   // catalog in the invented observatory's own column names
+  StarTable calibrators_release2;  // the same stars, parallaxes of a later data release
   StarTable light_curves;  // star, time_bjd_tdb, band, mag, mag_err
   StarTable targets;       // target-galaxy Cepheids
   StarTable truth_stars;   // per calibrator: true distance, E(B-V), [Fe/H], absolute magnitudes, flags
@@ -79,7 +81,8 @@ struct Simulation {
 };
 
 Simulation simulate(const SimulateOptions& options, const BandTable& bands);
-// Writes calibrators.fits, lightcurves.csv, targets.csv, truth_stars.csv, truth.json.
+// Writes calibrators.fits (and calibrators_release2.fits), lightcurves.csv, targets.csv,
+// truth_stars.csv, truth.json.
 void write_simulation(const Simulation& sim, const std::string& folder);
 
 }  // namespace rungcal
