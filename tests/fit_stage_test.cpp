@@ -281,10 +281,10 @@ TEST(FitStage, TheStageWritesItsProductsAndAstropyReadsTheResiduals) {
   test::TempDir dir;
   ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
                                           " --out " + dir.file("cat.fits")).exit_code, 0);
-  std::string cfg = test::read_text(test::source_file("config/reference/fit_mw_cepheids_dr2.toml"));
-  cfg.replace(cfg.find("../../out/reference/mw_cepheids_catalog.fits"), 44, dir.file("cat.fits"));
-  cfg.replace(cfg.find("../../out/reference/mw_cepheids_fit.json"), 40, dir.file("fit.json"));
-  test::write_text(dir.file("fit.toml"), cfg);
+  test::write_text(dir.file("fit.toml"),
+                   test::replaced(test::read_text(test::source_file("config/reference/fit_mw_cepheids_dr2.toml")),
+                                  {{"../../out/reference/mw_cepheids_catalog.fits", dir.file("cat.fits")},
+                                   {"../../out/reference/mw_cepheids_fit.json", dir.file("fit.json")}}));
   auto r = test::run_stage("fit", "--config " + dir.file("fit.toml") + " --bootstrap 50");
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_NE(r.output.find("parallax_offset_mas"), std::string::npos) << r.output;

@@ -127,11 +127,6 @@ for path in sys.argv[1:]:
   EXPECT_NE(r.output.find("2464 13 d ingest catalog 64 1"), std::string::npos) << r.output;
 }
 
-std::string replace_all_for_test(std::string s, const std::string& from, const std::string& to) {
-  for (auto p = s.find(from); p != std::string::npos; p = s.find(from, p + to.size())) s.replace(p, from.size(), to);
-  return s;
-}
-
 // A small valid CSV and a config for it; cases below break one thing each.
 const char* kGoodCsv =
     "id,P,plx,plx_err,V,V_err,ebv,mode\n"
@@ -207,8 +202,8 @@ TEST(IngestRows, NanInFitsIsMissingAndUnitsConvert) {
   row("B", std::nan(""), 5e-4, 12.0);
   write_fits_tables(dir.file("in.fits"), {{"STARS", &t}});
   // No unit in the config: the file's TUNIT (h, arcsec) is used.
-  test::write_text(dir.file("c.toml"), replace_all_for_test(config_for("in.fits", "cat.fits", "hdu = \"STARS\"\n"),
-                                                            "{ column = \"P\", unit = \"d\" }", "\"P\""));
+  test::write_text(dir.file("c.toml"), test::replaced(config_for("in.fits", "cat.fits", "hdu = \"STARS\"\n"),
+                                                      {{"{ column = \"P\", unit = \"d\" }", "\"P\""}}));
   IngestResult r = run_ingest(ingest_options_from_file(dir.file("c.toml")));
   ASSERT_EQ(r.catalog.rows(), 1u);
   EXPECT_DOUBLE_EQ(r.catalog.column(col::kPeriod).real[0], 5.0);      // 120 h
@@ -337,11 +332,11 @@ TEST(IngestBadInput, FitsCasesNameTheirRule) {
     return test::run_stage("ingest", "--config " + dir.file(name + ".toml"));
   };
   // The file says arcsec, the config says mas: refuse rather than guess.
-  auto r = run("conflict", replace_all_for_test(config_for("in.fits", "out/a.fits"), "parallax = \"plx\"", "parallax = { column = \"plx\", unit = \"mas\" }"));
+  auto r = run("conflict", test::replaced(config_for("in.fits", "out/a.fits"), {{"parallax = \"plx\"", "parallax = { column = \"plx\", unit = \"mas\" }"}}));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("[unit_conflict]"), std::string::npos) << r.output;
   // A logical column mapped to E(B-V).
-  r = run("logical", replace_all_for_test(config_for("in.fits", "out/b.fits"), "ebv = \"ebv\"", "ebv = \"ok\""));
+  r = run("logical", test::replaced(config_for("in.fits", "out/b.fits"), {{"ebv = \"ebv\"", "ebv = \"ok\""}}));
   EXPECT_NE(r.output.find("[column_type]"), std::string::npos) << r.output;
   // No such HDU.
   r = run("hdu", config_for("in.fits", "out/c.fits", "hdu = \"PHOTOMETRY\"\n"));

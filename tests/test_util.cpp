@@ -79,3 +79,13 @@ std::string reference_file(const std::string& name) { return std::string(RUNGCAL
 std::string source_file(const std::string& relative) { return std::string(RUNGCAL_SOURCE_DIR) + "/" + relative; }
 
 }  // namespace rungcal::test
+
+namespace rungcal::test {
+
+std::string replaced(std::string text, const std::vector<std::pair<std::string, std::string>>& edits) {
+  for (const auto& [from, to] : edits)
+    for (auto p = text.find(from); p != std::string::npos; p = text.find(from, p + to.size())) text.replace(p, from.size(), to);
+  return text;
+}
+
+}  // namespace rungcal::test

@@ -2,6 +2,7 @@
 #pragma once
 
 #include <string>
+#include <utility>
 #include <vector>
 
 namespace rungcal::test {
@@ -37,5 +38,7 @@ bool file_exists(const std::string& path);
 std::string reference_file(const std::string& name);
 std::string source_file(const std::string& relative);
 std::string shell_quote(const std::string& s);
+// text with every occurrence of each `from` replaced by its `to`, in order.
+std::string replaced(std::string text, const std::vector<std::pair<std::string, std::string>>& edits);
 
 }  // namespace rungcal::test
