@@ -671,6 +671,15 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                   {"inflation", std::string(kInflationRecipeNames.name(o.inflation))},
                   {"inflation_factor", o.inflation_factor},
                   {"max_ruwe", o.max_ruwe},
+                  {"use_known_distance", o.use_known_mu},
+                  {"offset", {{"mode", std::string(kParamModeNames.name(o.offset.mode))}, {"value", o.offset.value}, {"prior_sigma", o.offset.prior_sigma}}},
+                  {"scatter", {{"mode", std::string(kParamModeNames.name(o.scatter.mode))}, {"value", o.scatter.value}}},
+                  {"anchors", [&] {
+                     nlohmann::json a = nlohmann::json::array();
+                     for (const auto& an : o.anchors) a.push_back({{"group", an.group}, {"mu", an.mu}, {"mu_err", an.mu_err}});
+                     return a;
+                   }()},
+                  {"joint", o.joint},
                   {"bootstrap", o.bootstrap},
                   {"seed", o.seed},
                   {"extinction", extinction.is_null() ? nlohmann::json::object() : extinction}};
@@ -682,6 +691,15 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     r["pivot_log_period"] = rr.relation.pivot_log_period;
     if (rr.relation.break_log_period) r["break_log_period"] = *rr.relation.break_log_period;
     r["metallicity"] = rr.relation.metallicity;
+    // The relation's resolved selection: with the model and config text, what it was fitted on.
+    r["selection"] = {{"classes", rr.relation.classes},
+                      {"modes", rr.relation.modes},
+                      {"fundamentalize", rr.relation.fundamentalize},
+                      {"log_period_range", {finite_or_null(rr.relation.min_log_period), finite_or_null(rr.relation.max_log_period)}},
+                      {"magnitude_column", rr.relation.magnitude_column.empty() ? "mag0_" + rr.relation.band : rr.relation.magnitude_column},
+                      {"slope", {{"mode", std::string(kParamModeNames.name(rr.relation.slope.mode))},
+                                 {"value", rr.relation.slope.value},
+                                 {"prior_sigma", rr.relation.slope.prior_sigma}}}};
     r["parameter_names"] = rr.layout.names;
     for (int j = 0; j < rr.layout.size; ++j) {
       const auto& name = rr.layout.names[j];
