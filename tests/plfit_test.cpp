@@ -312,6 +312,7 @@ JointMock joint_mock(std::uint64_t seed, int stars, int relations) {
     m.data.var_plx.push_back(sp * sp);
     m.data.var_ebv.push_back(m.ebv_err * m.ebv_err);
     m.data.feh.push_back(0.0);
+    m.data.kind.push_back(0), m.data.group.push_back(-1), m.data.mu.push_back(0.0), m.data.var_mu.push_back(0.0);
     m.data.row.push_back(static_cast<std::size_t>(i));
   }
   m.data.first.push_back(static_cast<int>(m.data.relation.size()));
@@ -389,6 +390,48 @@ TEST(Joint, SharedSlopeIsOneParameter) {
   JointLayout J = JointLayout::make({"A", "B"}, {true, false}, true);
   EXPECT_EQ(J.beta[0], J.beta[1]);
   EXPECT_EQ(J.names, (std::vector<std::string>{"alpha_A", "beta", "gamma_A", "alpha_B", "parallax_offset_mas"}));
+}
+
+TEST(Joint, KnownDistanceAndAnchorStarsJoinTheParallaxStars) {
+  // Simulation: 150 parallax stars, 60 known-distance stars (mu +- 0.05) and an anchor galaxy
+  // of 150 stars at mu = 18.48 (prior 18.50 +- 0.03), two relations each; the joint fit
+  // recovers the zero points, slopes, the offset and the anchor's modulus within 3 sigma.
+  JointMock jm = joint_mock(61, 150, 2);
+  Random rng(62);
+  auto add = [&](int kind, double mu, double var_mu, int group) {
+    double x = rng.uniform(-0.6, 0.8), shared = rng.normal(0, std::sqrt(var_mu));
+    jm.data.first.back() = static_cast<int>(jm.data.relation.size());
+    for (int r = 0; r < 2; ++r) {
+      jm.data.relation.push_back(r);
+      jm.data.x.push_back(x);
+      jm.data.m0.push_back(jm.alpha[r] + jm.beta[r] * x + mu + shared + rng.normal(0, jm.sigma) + rng.normal(0, 0.02));
+      jm.data.var_phot.push_back(0.02 * 0.02);
+      jm.data.coefficient.push_back(0.0);
+    }
+    jm.data.plx.push_back(0), jm.data.var_plx.push_back(0), jm.data.var_ebv.push_back(0), jm.data.feh.push_back(0);
+    jm.data.kind.push_back(kind), jm.data.group.push_back(group);
+    jm.data.mu.push_back(kind == 1 ? mu : 0.0), jm.data.var_mu.push_back(var_mu);
+    jm.data.row.push_back(jm.data.row.size());
+    jm.data.first.push_back(static_cast<int>(jm.data.relation.size()));
+  };
+  for (int i = 0; i < 60; ++i) add(1, rng.uniform(8, 12), 0.05 * 0.05, -1);
+  for (int i = 0; i < 150; ++i) add(2, 18.48, 0.0, 0);
+  JointLayout J = JointLayout::make({"A", "B"}, {false, false}, false, {"Kessel"});
+  JointSettings js;
+  js.sigma_int = {jm.sigma, jm.sigma};
+  js.anchor_priors = {{18.50, 0.03}};
+  Eigen::VectorXd start(J.size);
+  start << -5.5, -3.0, -5.0, -3.0, 0.0, 18.5;
+  JointSolution sol = solve_joint(jm.data, js, J, start);
+  ASSERT_TRUE(sol.usable && sol.covariance_ok) << sol.message;
+  auto sd = [&](int j) { return std::sqrt(sol.covariance(j, j)); };
+  for (int r = 0; r < 2; ++r) {
+    EXPECT_NEAR(sol.theta[J.alpha[r]], jm.alpha[r], 3 * sd(J.alpha[r]));
+    EXPECT_NEAR(sol.theta[J.beta[r]], jm.beta[r], 3 * sd(J.beta[r]));
+  }
+  EXPECT_NEAR(sol.theta[J.offset], jm.offset, 3 * sd(J.offset));
+  EXPECT_NEAR(sol.theta[J.anchor0], 18.48, 3 * sd(J.anchor0));
+  EXPECT_LT(sd(J.anchor0), 0.03);  // the stars add to the prior
 }
 
 }  // namespace

@@ -114,7 +114,7 @@ struct RelationResult {
   double bootstrap_error(const std::string& name) const;  // standard deviation of the resamples
 };
 
-// The relations fitted together (FitOptions::joint): parallax calibrators only, each
+// The relations fitted together (FitOptions::joint): every kind of calibrator, each
 // relation's intrinsic scatter from its own fit.
 struct JointResult {
   std::vector<std::string> relations;

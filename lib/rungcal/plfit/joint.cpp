@@ -24,22 +24,29 @@ struct StarResidual {
   template <typename T>
   bool operator()(T const* const* parameters, T* residuals) const {
     const T* t = parameters[0];
-    const int b0 = d->first[star], K = d->first[star + 1] - b0;
+    const int b0 = d->first[star], K = d->first[star + 1] - b0, kind = d->kind[star];
     std::vector<T> kpi(K), e(K), c(static_cast<std::size_t>(K * K)), lower(static_cast<std::size_t>(K * K), T(0.0));
+    const T mu = kind == 1 ? T(d->mu[star]) : (kind == 2 ? t[L->anchor0 + d->group[star]] : T(0.0));
     for (int i = 0; i < K; ++i) {
       const int entry = b0 + i, r = d->relation[entry];
       T m = t[L->alpha[r]] + t[L->beta[r]] * d->x[entry];
       if (L->gamma[r] >= 0) m += t[L->gamma[r]] * d->feh[star];
-      const T pi = exp(-kK5 * (d->m0[entry] - m - 10.0));
-      kpi[i] = kK5 * pi;
-      e[i] = d->plx[star] - t[L->offset] - pi;
+      if (kind == 0) {
+        const T pi = exp(-kK5 * (d->m0[entry] - m - 10.0));
+        kpi[i] = kK5 * pi;
+        e[i] = d->plx[star] - t[L->offset] - pi;
+      } else {
+        kpi[i] = T(1.0);  // magnitude residuals: the same covariance terms, unscaled
+        e[i] = d->m0[entry] - mu - m;
+      }
     }
+    const double shared = kind == 0 ? d->var_plx[star] : (kind == 1 ? d->var_mu[star] : 0.0);
     for (int i = 0; i < K; ++i)
       for (int j = 0; j < K; ++j) {
         double inner = d->coefficient[b0 + i] * d->coefficient[b0 + j] * d->var_ebv[star];
         const double si = s->sigma_int[d->relation[b0 + i]], sj = s->sigma_int[d->relation[b0 + j]];
         inner += i == j ? d->var_phot[b0 + i] + si * si : s->scatter_correlation * si * sj;
-        c[i * K + j] = d->var_plx[star] + kpi[i] * kpi[j] * inner;
+        c[i * K + j] = shared + kpi[i] * kpi[j] * inner;
       }
     // Cholesky C = L L^T, then forward substitution L r = e.
     for (int i = 0; i < K; ++i)
@@ -62,8 +69,26 @@ struct StarResidual {
   }
 };
 
+// (mu_g - prior mean) / prior sigma for one anchor galaxy.
+struct AnchorPrior {
+  int index;
+  double mean, sigma;
+  template <typename T>
+  bool operator()(T const* const* parameters, T* residual) const {
+    residual[0] = (parameters[0][index] - mean) / sigma;
+    return true;
+  }
+};
+
 void build_problem(ceres::Problem& problem, const JointData& d, const JointSettings& s, const JointLayout& L, double* t,
                    bool robust) {
+  for (std::size_t g = 0; g < s.anchor_priors.size(); ++g) {
+    auto* prior = new ceres::DynamicAutoDiffCostFunction<AnchorPrior, 8>(
+        new AnchorPrior{L.anchor0 + static_cast<int>(g), s.anchor_priors[g].first, s.anchor_priors[g].second});
+    prior->AddParameterBlock(L.size);
+    prior->SetNumResiduals(1);
+    problem.AddResidualBlock(prior, nullptr, t);
+  }
   for (int star = 0; star < d.stars(); ++star) {
     auto* cost = new ceres::DynamicAutoDiffCostFunction<StarResidual, 8>(new StarResidual{&d, &s, &L, star});
     cost->AddParameterBlock(L.size);
@@ -95,13 +120,18 @@ JointData JointData::take(const std::vector<int>& stars) const {
     o.var_plx.push_back(var_plx[star]);
     o.var_ebv.push_back(var_ebv[star]);
     o.feh.push_back(feh[star]);
+    o.kind.push_back(kind[star]);
+    o.group.push_back(group[star]);
+    o.mu.push_back(mu[star]);
+    o.var_mu.push_back(var_mu[star]);
     o.row.push_back(row[star]);
   }
   o.first.push_back(static_cast<int>(o.relation.size()));
   return o;
 }
 
-JointLayout JointLayout::make(const std::vector<std::string>& names, const std::vector<bool>& metallicity, bool shared_slope) {
+JointLayout JointLayout::make(const std::vector<std::string>& names, const std::vector<bool>& metallicity, bool shared_slope,
+                              const std::vector<std::string>& anchors) {
   JointLayout L;
   int next = 0;
   int shared = -1;
@@ -124,6 +154,11 @@ JointLayout JointLayout::make(const std::vector<std::string>& names, const std::
   }
   L.offset = next++;
   L.names.push_back("parallax_offset_mas");
+  L.anchor0 = next;
+  for (const auto& a : anchors) {
+    L.names.push_back("mu_" + a);
+    ++next;
+  }
   L.size = next;
   return L;
 }

@@ -19,20 +19,25 @@ struct JointData {
   std::vector<double> x, m0, var_phot, coefficient;  // per entry: log P - log P0, magnitude,
                                    // photometric variance, A/E(B-V) left in the magnitude
   std::vector<double> plx, var_plx, var_ebv, feh;    // per star
+  // Per star: 0 parallax calibrator, 1 known distance (mu, var_mu), 2 anchor galaxy (group).
+  std::vector<int> kind, group;
+  std::vector<double> mu, var_mu;
   std::vector<std::size_t> row;    // per star: catalog row
   int stars() const { return static_cast<int>(plx.size()); }
   // The stars given by index (repeats allowed), with all their entries: a bootstrap sample.
   JointData take(const std::vector<int>& stars) const;
 };
 
-// Parameters: alpha_r, beta_r (or one shared beta), gamma_r, the shared parallax offset.
+// Parameters: alpha_r, beta_r (or one shared beta), gamma_r, the shared parallax offset,
+// and one distance modulus per anchor galaxy.
 struct JointLayout {
   std::vector<int> alpha, beta, gamma;  // per relation; gamma -1 when the relation has none
   int offset = -1;
+  int anchor0 = -1;
   int size = 0;
   std::vector<std::string> names;
   static JointLayout make(const std::vector<std::string>& relation_names, const std::vector<bool>& metallicity,
-                          bool shared_slope);
+                          bool shared_slope, const std::vector<std::string>& anchors = {});
 };
 
 struct JointSettings {
@@ -43,6 +48,7 @@ struct JointSettings {
   // instability strip moves every band): C_bc += (k pi_b)(k pi_c) rho sigma_b sigma_c.
   double scatter_correlation = 0.0;
   std::vector<bool> fixed;        // per parameter
+  std::vector<std::pair<double, double>> anchor_priors;  // per anchor: mean and sigma of mu
 };
 
 struct JointSolution {
@@ -55,10 +61,13 @@ struct JointSolution {
   int entries = 0;
 };
 
-// Generalised least squares in parallax space with each star's covariance between its
-// relations: residuals e_b = pi - offset - pi_phot,b, covariance
+// Generalised least squares with each star's covariance between its relations. Parallax
+// calibrators: residuals e_b = pi - offset - pi_phot,b, covariance
 // C_bc = sigma_pi^2 + (k pi_b)(k pi_c) [delta_bc (sigma_phot,b^2 + sigma_int,b^2) + R_b R_c sigma_E^2]
-// (k = 0.2 ln 10: the parallax is shared, so is the E(B-V) error). Each star's residual
+// (k = 0.2 ln 10: the parallax is shared, so is the E(B-V) error). Known-distance and anchor
+// stars: e_b = m0_b - mu - M_b, C_bc = sigma_mu^2 + delta_bc (sigma_phot,b^2 + sigma_int,b^2)
+// + ... (the same scatter and E(B-V) terms without (k pi)^2), mu an anchor's parameter with
+// its Gaussian prior. Each star's residual
 // vector is whitened by the Cholesky factor of C(theta) itself, derivatives by Ceres'
 // automatic differentiation: freezing C at the solution instead (a fixed point) biases the
 // zero points, by 0.23 mag for three relations in tests/plfit_test.cpp's simulation. The
