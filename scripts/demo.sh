@@ -32,10 +32,13 @@ echo "== apply: distances to the Veyra Spiral's Cepheids (truth: mu = 29.35)"
 "$bin/rungcal-deredden" --config config/demo/deredden_targets.toml
 "$bin/rungcal-apply" --store demo_out/store --calibration halden-peak@latest --relation W_VI \
   --targets demo_out/targets_dereddened.fits --out demo_out/distances.fits
+echo "== report: paper tables of both versions side by side"
+"$bin/rungcal-report" --store demo_out/store --calibration halden-peak@1 --calibration halden-peak@2 --out demo_out/report
 echo
 echo "Demo outputs:"
 for f in demo_out/catalog.fits demo_out/catalog_rejects.csv demo_out/catalog_dereddened.fits \
          demo_out/fit.json demo_out/fit_residuals.fits demo_out/store/halden-peak/latest \
-         demo_out/distances.fits demo_out/distances.csv demo_out/distances_hosts.csv; do
+         demo_out/distances.fits demo_out/distances.csv demo_out/distances_hosts.csv \
+         demo_out/report/relations.tex demo_out/report/relations.md demo_out/report/stars_W_VI.tex; do
   echo "  $(pwd)/$f"
 done

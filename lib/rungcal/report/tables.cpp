@@ -1,0 +1,191 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/report/tables.hpp"
+
+#include <cmath>
+
+#include <fmt/format.h>
+
+namespace rungcal {
+namespace {
+
+struct Quantity {
+  const char* parameter;
+  const char* label;        // plain text
+  const char* latex;        // LaTeX
+};
+
+const Quantity kQuantities[] = {
+    {"alpha", "zero point alpha (mag)", "$\\alpha$ (mag)"},
+    {"beta", "slope beta (mag/dex)", "$\\beta$ (mag dex$^{-1}$)"},
+    {"beta_long", "long-period slope (mag/dex)", "$\\beta_{\\rm long}$ (mag dex$^{-1}$)"},
+    {"gamma", "metallicity term gamma (mag/dex)", "$\\gamma$ (mag dex$^{-1}$)"},
+    {"parallax_offset_mas", "parallax offset (mas)", "$\\Delta\\varpi$ (mas)"},
+    {"sigma_int", "intrinsic scatter (mag)", "$\\sigma_{\\rm int}$ (mag)"},
+};
+
+std::string escape_latex(const std::string& s) {
+  std::string out;
+  for (char c : s) {
+    if (c == '_' || c == '&' || c == '%' || c == '#' || c == '$') out += '\\';
+    out += c;
+  }
+  return out;
+}
+
+std::string quote_csv(const std::string& s) {
+  if (s.find_first_of(",\"") == std::string::npos) return s;
+  std::string out = "\"";
+  for (char c : s) out += c == '"' ? std::string("\"\"") : std::string(1, c);
+  return out + "\"";
+}
+
+const nlohmann::json* relation_in(const Calibration& c, const std::string& name) {
+  for (const auto& r : c.document.at("fit").at("relations"))
+    if (r.at("name") == name) return &r;
+  return nullptr;
+}
+
+// One cell per format: "v +- e" (plain), "$v \pm e$" (LaTeX), "(fixed)" for fixed ones.
+std::string cell(const nlohmann::json& p, TableFormat f) {
+  double v = p.at("value");
+  const bool fixed = p.value("mode", "free") == "fixed";
+  double e = fixed || p.at("error").is_null() ? NAN : p.at("error").get<double>();
+  Rounded r = round_for_print(v, e);
+  if (fixed) r.value = fmt::format("{}", v);  // a fixed value prints as it was given
+  if (f == TableFormat::kLatex) {
+    if (fixed) return fmt::format("${}$ (fixed)", r.value);
+    return r.error.empty() ? fmt::format("${}$", r.value) : fmt::format("${} \\pm {}$", r.value, r.error);
+  }
+  if (fixed) return r.value + " (fixed)";
+  return r.error.empty() ? r.value : fmt::format("{} +- {}", r.value, r.error);
+}
+
+struct Grid {
+  std::vector<std::string> header;
+  std::vector<std::vector<std::string>> rows;
+};
+
+std::string render(const Grid& g, TableFormat f, const std::string& caption, const std::string& label) {
+  std::string out;
+  if (f == TableFormat::kCsv) {
+    for (std::size_t i = 0; i < g.header.size(); ++i) out += (i ? "," : "") + quote_csv(g.header[i]);
+    out += "\n";
+    for (const auto& row : g.rows) {
+      for (std::size_t i = 0; i < row.size(); ++i) out += (i ? "," : "") + quote_csv(row[i]);
+      out += "\n";
+    }
+    return out;
+  }
+  if (f == TableFormat::kMarkdown) {
+    out += "|";
+    for (const auto& h : g.header) out += " " + h + " |";
+    out += "\n|";
+    for (std::size_t i = 0; i < g.header.size(); ++i) out += i == 0 ? "---|" : "---:|";
+    out += "\n";
+    for (const auto& row : g.rows) {
+      out += "|";
+      for (const auto& c : row) out += " " + c + " |";
+      out += "\n";
+    }
+    return out;
+  }
+  out += fmt::format("\\begin{{deluxetable}}{{l{}}}\n\\tablecaption{{{}\\label{{{}}}}}\n\\tablehead{{", std::string(g.header.size() - 1, 'c'),
+                     caption, label);
+  for (std::size_t i = 0; i < g.header.size(); ++i) out += (i ? " & " : "") + fmt::format("\\colhead{{{}}}", g.header[i]);
+  out += "}\n\\startdata\n";
+  for (std::size_t r = 0; r < g.rows.size(); ++r) {
+    for (std::size_t i = 0; i < g.rows[r].size(); ++i) out += (i ? " & " : "") + g.rows[r][i];
+    out += r + 1 < g.rows.size() ? " \\\\\n" : "\n";
+  }
+  out += "\\enddata\n\\end{deluxetable}\n";
+  return out;
+}
+
+}  // namespace
+
+Rounded round_for_print(double value, double error) {
+  Rounded r;
+  if (!std::isfinite(error) || error <= 0) {
+    r.decimals = 4;
+    r.value = fmt::format("{:.4f}", value);
+    return r;
+  }
+  // Two significant digits of the error: its leading digit's place, one further.
+  int lead = static_cast<int>(std::floor(std::log10(error)));
+  int decimals = 1 - lead;
+  // Rounding can carry into a new digit (0.0996 -> 0.10): recompute from the rounded error.
+  double scale = std::pow(10.0, decimals);
+  double e = std::round(error * scale) / scale;
+  if (static_cast<int>(std::floor(std::log10(e))) != lead) decimals -= 1;
+  r.decimals = decimals;
+  if (decimals >= 0) {
+    r.value = fmt::format("{:.{}f}", value, decimals);
+    r.error = fmt::format("{:.{}f}", error, decimals);
+  } else {
+    double s = std::pow(10.0, -decimals);
+    r.value = fmt::format("{:.0f}", std::round(value / s) * s);
+    r.error = fmt::format("{:.0f}", std::round(error / s) * s);
+  }
+  if (r.value == "-0" || r.value.rfind("-0.", 0) == 0) {
+    bool all_zero = r.value.find_first_not_of("-0.") == std::string::npos;
+    if (all_zero) r.value = r.value.substr(1);
+  }
+  return r;
+}
+
+std::string relation_table(const std::vector<Calibration>& versions, TableFormat f) {
+  Grid g;
+  g.header.push_back(f == TableFormat::kLatex ? "Relation / quantity" : "relation / quantity");
+  for (const auto& c : versions) g.header.push_back(f == TableFormat::kLatex ? escape_latex(c.label()) : c.label());
+  std::vector<std::string> relations;
+  for (const auto& c : versions)
+    for (const auto& n : c.relation_names())
+      if (std::find(relations.begin(), relations.end(), n) == relations.end()) relations.push_back(n);
+  for (const auto& rel : relations) {
+    const std::string rel_name = f == TableFormat::kLatex ? escape_latex(rel) : rel;
+    for (const auto& q : kQuantities) {
+      std::vector<std::string> row = {fmt::format("{}: {}", rel_name, f == TableFormat::kLatex ? q.latex : q.label)};
+      bool any = false;
+      for (const auto& c : versions) {
+        const nlohmann::json* r = relation_in(c, rel);
+        std::string text = f == TableFormat::kLatex ? "\\nodata" : "";
+        if (r)
+          for (const auto& p : r->at("parameters"))
+            if (p.at("name") == q.parameter) text = cell(p, f), any = true;
+        row.push_back(text);
+      }
+      if (any) g.rows.push_back(row);
+    }
+    std::vector<std::string> row = {fmt::format("{}: N", rel_name)};
+    for (const auto& c : versions) {
+      const nlohmann::json* r = relation_in(c, rel);
+      row.push_back(r ? std::to_string(r->at("statistics").at("n_used").get<int>()) : (f == TableFormat::kLatex ? "\\nodata" : ""));
+    }
+    g.rows.push_back(row);
+  }
+  std::string names;
+  for (const auto& c : versions) names += (names.empty() ? "" : ", ") + escape_latex(c.label());
+  return render(g, f, fmt::format("Period-luminosity relations ({}). Errors from the covariance at the optimum.", names),
+                "tab:pl");
+}
+
+std::string star_table(const StarTable& t, const std::string& relation, TableFormat f) {
+  Grid g;
+  g.header = {"id", "log P", "m0 (mag)", "parallax (mas)", "residual (sigma)", "used", "note"};
+  if (f == TableFormat::kLatex) g.header = {"ID", "$\\log P$", "$m_0$ (mag)", "$\\varpi$ (mas)", "$r/\\sigma$", "Used", "Note"};
+  auto num = [&](const std::string& col, std::size_t i, int decimals) {
+    if (!t.has(col) || t.column(col).is_null(i)) return std::string(f == TableFormat::kLatex ? "\\nodata" : "");
+    return fmt::format("{:.{}f}", t.column(col).real[i], decimals);
+  };
+  for (std::size_t i = 0; i < t.rows(); ++i) {
+    if (t.column("relation").text[i] != relation) continue;
+    const bool used = t.column("used").boolean[i] != 0;
+    std::string id = t.column("id").text[i], reason = t.column("reason").is_null(i) ? "" : t.column("reason").text[i];
+    if (f == TableFormat::kLatex) id = escape_latex(id), reason = escape_latex(reason);
+    g.rows.push_back({id, num("log_period_f", i, 4), num("m0", i, 3), num("parallax_corrected_mas", i, 4), num("residual", i, 2),
+                      used ? "yes" : "no", reason});
+  }
+  return render(g, f, "Calibrators of the " + escape_latex(relation) + " relation.", "tab:stars");
+}
+
+}  // namespace rungcal

@@ -1,0 +1,39 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+#include <utility>
+#include <vector>
+
+#include "rungcal/calibration/calibration.hpp"
+#include "rungcal/core/enum_table.hpp"
+#include "rungcal/table/star_table.hpp"
+
+namespace rungcal {
+
+// A value with its error, rounded for print by the usual convention: the error to two
+// significant digits, the value to the same decimal place (common practice). NaN error:
+// the value alone, to 4 decimals.
+struct Rounded {
+  std::string value, error;  // "" error when none
+  int decimals = 0;
+};
+Rounded round_for_print(double value, double error);
+
+enum class TableFormat { kLatex, kCsv, kMarkdown };
+inline constexpr EnumTable<TableFormat, 3> kTableFormatNames{{{
+    {TableFormat::kLatex, "latex"},
+    {TableFormat::kCsv, "csv"},
+    {TableFormat::kMarkdown, "markdown"},
+}}};
+
+// The relation table: one row per relation and quantity (zero point, slope(s), metallicity
+// term, parallax offset, intrinsic scatter, N), one column per calibration version, side
+// by side. LaTeX is an AASTeX deluxetable.
+std::string relation_table(const std::vector<Calibration>& versions, TableFormat format);
+
+// The per-star appendix of one relation from a residuals table (fit_residuals.fits): id,
+// log P, magnitude, parallax, normalised residual, used, and why not.
+std::string star_table(const StarTable& residuals, const std::string& relation, TableFormat format);
+
+}  // namespace rungcal

@@ -1,0 +1,45 @@
+// SPDX-License-Identifier: MIT
+// rungcal-report: paper tables from published calibrations.
+#include <cstdio>
+#include <filesystem>
+
+#include <spdlog/spdlog.h>
+
+#include "rungcal/calibration/store.hpp"
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/stage_main.hpp"
+#include "rungcal/report/tables.hpp"
+#include "rungcal/table/fits_io.hpp"
+
+int main(int argc, char** argv) {
+  CLI::App app{"Writes the tables for a paper from one or more published calibration versions: the relations "
+               "side by side and the per-star appendix, in LaTeX (AASTeX), CSV and Markdown."};
+  rungcal::CommonOptions common;
+  std::string store, out_dir = "out/report";
+  std::vector<std::string> calibrations;
+  app.add_option("--store", store, "Calibration store folder")->required();
+  app.add_option("--calibration", calibrations, "name@N or name@latest; several for side by side")->required();
+  app.add_option("--out", out_dir, "Folder for the tables");
+  common.add_to(app);
+  if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
+  rungcal::setup_logging("report", common.verbosity(), common.log_file);
+
+  return rungcal::run_stage("report", [&] {
+    std::vector<rungcal::Calibration> versions;
+    for (const auto& c : calibrations) versions.push_back(rungcal::load_calibration(store, c));
+    const char* ext[] = {"tex", "csv", "md"};
+    for (auto f : {rungcal::TableFormat::kLatex, rungcal::TableFormat::kCsv, rungcal::TableFormat::kMarkdown}) {
+      std::string e = ext[static_cast<int>(f)];
+      rungcal::write_file_atomically(out_dir + "/relations." + e, rungcal::relation_table(versions, f));
+      // Per-star appendix of the last version given, from the residuals kept with it.
+      const rungcal::Calibration& last = versions.back();
+      std::string residuals = store + "/" + last.name() + "/" + fmt::format("v{:04d}", last.version()) + "/fit_residuals.fits";
+      if (!std::filesystem::exists(residuals)) continue;
+      rungcal::SourceTable res = rungcal::read_fits_table(residuals, {"RESIDUALS", 0});
+      for (const auto& rel : last.relation_names())
+        rungcal::write_file_atomically(out_dir + "/stars_" + rel + "." + e, rungcal::star_table(res.table, rel, f));
+    }
+    std::printf("tables for %zu calibration version(s) in %s\n", versions.size(), out_dir.c_str());
+    return rungcal::ExitCode::kSuccess;
+  });
+}

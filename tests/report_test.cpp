@@ -1,0 +1,137 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/report: rounding for print, and tables whose numbers parse back to
+// the calibration's values after that rounding; the LaTeX table compiles when a TeX engine
+// is present.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <regex>
+#include <sstream>
+
+#include <fmt/format.h>
+
+#include "rungcal/report/tables.hpp"
+#include "test_util.hpp"
+
+namespace rungcal {
+namespace {
+
+TEST(Rounding, ErrorsToTwoSignificantDigitsValuesToTheSamePlace) {
+  // Common practice (no single source): the error to two significant digits.
+  auto r = round_for_print(-5.91013, 0.0752287);
+  EXPECT_EQ(r.value, "-5.910");
+  EXPECT_EQ(r.error, "0.075");
+  r = round_for_print(-0.0471809, 0.0139687);
+  EXPECT_EQ(r.value, "-0.047");
+  EXPECT_EQ(r.error, "0.014");
+  r = round_for_print(1.23456, 0.0996);  // rounds up into a new digit: 0.10
+  EXPECT_EQ(r.error, "0.10");
+  EXPECT_EQ(r.value, "1.23");
+  r = round_for_print(1234.5, 13.4);
+  EXPECT_EQ(r.value, "1234");
+  EXPECT_EQ(r.error, "13");
+  r = round_for_print(12345.0, 134.0);  // to the tens place, halves rounded up
+  EXPECT_EQ(r.value, "12350");
+  EXPECT_EQ(r.error, "130");
+  r = round_for_print(-0.0004, 0.012);
+  EXPECT_EQ(r.value, "0.000");
+  r = round_for_print(2.5, std::nan(""));
+  EXPECT_EQ(r.value, "2.5000");
+  EXPECT_TRUE(r.error.empty());
+}
+
+Calibration two_relations(int version, double shift) {
+  Calibration c;
+  c.document = {{"name", "cal"}, {"version", version}};
+  auto rel = [&](const std::string& name, double a) {
+    return nlohmann::json{{"name", name},
+                          {"parameters",
+                           {{{"name", "alpha"}, {"value", a + shift}, {"error", 0.0752}, {"mode", "free"}},
+                            {{"name", "beta"}, {"value", -3.26}, {"error", 0.0}, {"mode", "fixed"}},
+                            {{"name", "parallax_offset_mas"}, {"value", -0.04718 + shift}, {"error", 0.01397}, {"mode", "free"}},
+                            {{"name", "sigma_int"}, {"value", 0.06}, {"error", 0.0}, {"mode", "fixed"}}}},
+                          {"statistics", {{"n_used", 46}}}};
+  };
+  c.document["fit"]["relations"] = nlohmann::json::array({rel("W_H", -5.91013), rel("W_VI", -5.8)});
+  return c;
+}
+
+TEST(Tables, NumbersParseBackToTheRoundedValues) {
+  std::vector<Calibration> v = {two_relations(1, 0.0), two_relations(2, 0.0123)};
+  std::string csv = relation_table(v, TableFormat::kCsv);
+  std::istringstream in(csv);
+  std::string line;
+  std::getline(in, line);
+  EXPECT_EQ(line, "relation / quantity,cal@1,cal@2");
+  int checked = 0;
+  while (std::getline(in, line)) {
+    std::smatch m;
+    if (!std::regex_match(line, m, std::regex("([^:]+): ([^,]+),([^,]*),([^,]*)"))) continue;
+    for (int k = 0; k < 2; ++k) {
+      const nlohmann::json* rel = nullptr;
+      for (const auto& r : v[k].document["fit"]["relations"])
+        if (r["name"] == m[1].str()) rel = &r;
+      ASSERT_NE(rel, nullptr);
+      std::string text = m[3 + k];
+      std::smatch vm;
+      if (!std::regex_match(text, vm, std::regex("(-?[0-9.]+)(?: \\+- ([0-9.]+))?(?: \\(fixed\\))?"))) continue;
+      const std::string q = m[2];
+      for (const auto& p : (*rel)["parameters"]) {
+        bool match = (q.find("zero point") == 0 && p["name"] == "alpha") ||
+                     (q.find("parallax offset") == 0 && p["name"] == "parallax_offset_mas") ||
+                     (q.find("slope") == 0 && p["name"] == "beta");
+        if (!match) continue;
+        Rounded expect = round_for_print(p["value"], p["mode"] == "fixed" ? NAN : p["error"].get<double>());
+        // A fixed value prints as it was given.
+        std::string value = p["mode"] == "fixed" ? fmt::format("{}", p["value"].get<double>()) : expect.value;
+        EXPECT_EQ(vm[1].str(), value) << line;
+        if (vm[2].matched) {
+          EXPECT_EQ(vm[2].str(), expect.error) << line;
+        }
+        ++checked;
+      }
+    }
+  }
+  EXPECT_EQ(checked, 12);  // 2 relations x 3 quantities x 2 versions
+  std::string md = relation_table(v, TableFormat::kMarkdown);
+  EXPECT_NE(md.find("| W_H: zero point alpha (mag) | -5.910 +- 0.075 | -5.898 +- 0.075 |"), std::string::npos) << md;
+  std::string tex = relation_table(v, TableFormat::kLatex);
+  EXPECT_NE(tex.find("W\\_H: $\\alpha$ (mag) & $-5.910 \\pm 0.075$ & $-5.898 \\pm 0.075$"), std::string::npos) << tex;
+  EXPECT_NE(tex.find("$-3.26$ (fixed)"), std::string::npos);
+}
+
+TEST(Tables, StarAppendixListsUsedAndRejectedStars) {
+  StarTable t;
+  for (const char* c : {"relation", "id", "reason"}) t.add_column(c, ColumnType::kText);
+  t.add_column("used", ColumnType::kBoolean);
+  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "residual"}) t.add_column(c, ColumnType::kReal);
+  auto row = [&](const char* id, bool used, const char* reason) {
+    t.column("relation").push_text("W_H");
+    t.column("id").push_text(id);
+    reason ? t.column("reason").push_text(reason) : t.column("reason").push_null();
+    t.column("used").push_boolean(used);
+    t.column("log_period_f").push_real(1.053);
+    t.column("m0").push_real(6.871);
+    t.column("parallax_corrected_mas").push_real(0.1878);
+    used ? t.column("residual").push_real(-0.52) : t.column("residual").push_null();
+  };
+  row("AA GEM", true, nullptr);
+  row("RW CAM", false, "RUWE 2.10 > 1.4");
+  std::string csv = star_table(t, "W_H", TableFormat::kCsv);
+  EXPECT_NE(csv.find("AA GEM,1.0530,6.871,0.1878,-0.52,yes,"), std::string::npos) << csv;
+  EXPECT_NE(csv.find("RW CAM,1.0530,6.871,0.1878,,no,RUWE 2.10 > 1.4"), std::string::npos) << csv;
+}
+
+TEST(Tables, LatexTableCompilesWhenATexEngineIsPresent) {
+  if (test::run_command("command -v pdflatex").exit_code != 0)
+    GTEST_SKIP() << "no pdflatex on this machine: the LaTeX table was not compiled";
+  test::TempDir dir;
+  std::string doc = "\\documentclass{aastex631}\n\\begin{document}\n" +
+                    relation_table({two_relations(1, 0.0)}, TableFormat::kLatex) + "\\end{document}\n";
+  test::write_text(dir.file("t.tex"), doc);
+  auto r = test::run_command("cd " + dir.path() + " && pdflatex -interaction=nonstopmode t.tex");
+  EXPECT_EQ(r.exit_code, 0) << r.output;
+}
+
+}  // namespace
+}  // namespace rungcal
