@@ -8,6 +8,8 @@ bash scripts/setup-debian.sh build
 cmake -S . -B build-demo -DCMAKE_BUILD_TYPE=RelWithDebInfo -DRUNGCAL_BUILD_TESTS=OFF >/dev/null
 cmake --build build-demo -j"$(nproc)" >/dev/null
 bin=build-demo/bin
+# The demo starts from scratch: its own store would otherwise gain versions on every run.
+rm -rf demo_out
 mkdir -p demo_out
 echo "== ingest: Halden Peak Observatory calibrators (sample_data/calibrators.fits)"
 "$bin/rungcal-ingest" --config config/demo/ingest.toml
