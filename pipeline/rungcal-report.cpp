@@ -8,6 +8,7 @@
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/stage_main.hpp"
+#include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
 #include "rungcal/table/fits_io.hpp"
 
@@ -39,7 +40,27 @@ int main(int argc, char** argv) {
       for (const auto& rel : last.relation_names())
         rungcal::write_file_atomically(out_dir + "/stars_" + rel + "." + e, rungcal::star_table(res.table, rel, f));
     }
-    std::printf("tables for %zu calibration version(s) in %s\n", versions.size(), out_dir.c_str());
+    // Figures: the period-luminosity diagram of each relation of the last version, and the
+    // zero point and offset version by version when several versions are given.
+    const rungcal::Calibration& last = versions.back();
+    std::string residuals = store + "/" + last.name() + "/" + fmt::format("v{:04d}", last.version()) + "/fit_residuals.fits";
+    int figures = 0;
+    for (auto f : {rungcal::FigureFormat::kPdf, rungcal::FigureFormat::kPng, rungcal::FigureFormat::kSvg}) {
+      std::string e(rungcal::kFigureFormatNames.name(f));
+      if (std::filesystem::exists(residuals)) {
+        rungcal::SourceTable res = rungcal::read_fits_table(residuals, {"RESIDUALS", 0});
+        for (const auto& rel : last.relation_names()) {
+          rungcal::pl_diagram(last, rel, res.table, f, out_dir + "/pl_" + rel + "." + e);
+          ++figures;
+        }
+      }
+      if (versions.size() > 1)
+        for (const auto& rel : last.relation_names()) {
+          rungcal::version_trend(versions, rel, f, out_dir + "/versions_" + rel + "." + e);
+          ++figures;
+        }
+    }
+    std::printf("tables and %d figures for %zu calibration version(s) in %s\n", figures, versions.size(), out_dir.c_str());
     return rungcal::ExitCode::kSuccess;
   });
 }

@@ -9,7 +9,7 @@ mode=${1:-build}
 
 build_pkgs=(g++ cmake make pkg-config git libceres-dev libeigen3-dev libccfits-dev
   libcfitsio-dev libspdlog-dev libfmt-dev libgtest-dev libgmock-dev libcli11-dev
-  libtomlplusplus-dev nlohmann-json3-dev libssl-dev)
+  libtomlplusplus-dev nlohmann-json3-dev libssl-dev libcairo2-dev fonts-dejavu-core)
 test_pkgs=(python3 python3-numpy python3-astropy python3-scipy python3-extinction
   python3-statsmodels)
 

@@ -2,6 +2,7 @@
 // Tests of lib/rungcal/report: rounding for print, and tables whose numbers parse back to
 // the calibration's values after that rounding; the LaTeX table compiles when a TeX engine
 // is present.
+#include <cairo.h>
 #include <gtest/gtest.h>
 
 #include <cmath>
@@ -10,6 +11,7 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
 #include "test_util.hpp"
 
@@ -131,6 +133,101 @@ TEST(Tables, LatexTableCompilesWhenATexEngineIsPresent) {
   test::write_text(dir.file("t.tex"), doc);
   auto r = test::run_command("cd " + dir.path() + " && pdflatex -interaction=nonstopmode t.tex");
   EXPECT_EQ(r.exit_code, 0) << r.output;
+}
+
+// A calibration (alpha -5, beta -3 at P0 = 10 d, no offset) and residuals of stars at
+// known log P; the last one rejected.
+struct FigureInputs {
+  Calibration cal;
+  StarTable res;
+};
+
+FigureInputs figure_inputs() {
+  FigureInputs f;
+  f.cal.document = {{"name", "fig"}, {"version", 1}};
+  f.cal.document["fit"]["relations"] = nlohmann::json::array(
+      {{{"name", "X"},
+        {"pivot_log_period", 1.0},
+        {"parameters",
+         {{{"name", "alpha"}, {"value", -5.0}, {"error", 0.02}},
+          {{"name", "beta"}, {"value", -3.0}, {"error", 0.03}},
+          {{"name", "parallax_offset_mas"}, {"value", 0.0}, {"error", 0.01}},
+          {{"name", "sigma_int"}, {"value", 0.1}, {"error", 0.01}}}}}});
+  StarTable& t = f.res;
+  for (const char* c : {"relation", "id", "kind", "reason"}) t.add_column(c, ColumnType::kText);
+  t.add_column("used", ColumnType::kBoolean);
+  for (const char* c : {"log_period_f", "m0", "m0_err", "abs_mag_model", "residual", "parallax_corrected_mas", "parallax_err_mas", "predicted"})
+    t.add_column(c, ColumnType::kReal);
+  const double logp[] = {0.4, 0.7, 1.0, 1.3, 1.6};
+  for (int i = 0; i < 5; ++i) {
+    double m_abs = -5.0 - 3.0 * (logp[i] - 1.0), d_kpc = 2.0, m0 = m_abs + 5 * std::log10(d_kpc * 100);
+    t.column("relation").push_text("X");
+    t.column("id").push_text("S" + std::to_string(i));
+    t.column("kind").push_text("parallax");
+    i == 4 ? t.column("reason").push_text("RUWE 2.0 > 1.4") : t.column("reason").push_null();
+    t.column("used").push_boolean(i != 4);
+    t.column("log_period_f").push_real(logp[i]);
+    t.column("m0").push_real(m0);
+    t.column("m0_err").push_real(0.02);
+    t.column("abs_mag_model").push_real(m_abs);
+    i == 4 ? t.column("residual").push_null() : t.column("residual").push_real(0.1);
+    t.column("parallax_corrected_mas").push_real(1.0 / d_kpc);
+    t.column("parallax_err_mas").push_real(0.02);
+    t.column("predicted").push_real(1.0 / d_kpc);
+  }
+  return f;
+}
+
+TEST(Figures, FilesAreValidInEachFormat) {
+  test::TempDir dir;
+  FigureInputs f = figure_inputs();
+  pl_diagram(f.cal, "X", f.res, FigureFormat::kPdf, dir.file("pl.pdf"));
+  pl_diagram(f.cal, "X", f.res, FigureFormat::kSvg, dir.file("pl.svg"));
+  pl_diagram(f.cal, "X", f.res, FigureFormat::kPng, dir.file("pl.png"));
+  EXPECT_EQ(test::read_text(dir.file("pl.pdf")).substr(0, 5), "%PDF-");
+  EXPECT_EQ(test::read_text(dir.file("pl.png")).substr(1, 3), "PNG");
+  // The SVG parses as XML and the PNG decodes, as a reader other than cairo sees them
+  // (Python's xml.etree; astropy ships no PNG reader, so the header and size are checked).
+  auto r = test::run_python(R"(
+import sys, struct, xml.etree.ElementTree as ET
+root = ET.parse(sys.argv[1]).getroot()
+png = open(sys.argv[2], "rb").read()
+w, h = struct.unpack(">II", png[16:24])
+print(root.tag.endswith("svg"), png[:8] == b"\x89PNG\r\n\x1a\n", w, h)
+)", {dir.file("pl.svg"), dir.file("pl.png")});
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_NE(r.output.find("True True 720 640"), std::string::npos) << r.output;
+}
+
+// Counts pixels near a colour in a column band of a PNG.
+int pixels_like(cairo_surface_t* img, double x_center, int half_width, const double rgb[3]) {
+  const int w = cairo_image_surface_get_width(img), h = cairo_image_surface_get_height(img);
+  const int stride = cairo_image_surface_get_stride(img);
+  const unsigned char* data = cairo_image_surface_get_data(img);
+  int count = 0;
+  for (int x = std::max(0, static_cast<int>(x_center) - half_width); x <= std::min(w - 1, static_cast<int>(x_center) + half_width); ++x)
+    for (int y = 0; y < h; ++y) {
+      const unsigned char* p = data + y * stride + 4 * x;  // ARGB32, little endian: B G R A
+      if (std::abs(p[2] - 255 * rgb[0]) < 30 && std::abs(p[1] - 255 * rgb[1]) < 30 && std::abs(p[0] - 255 * rgb[2]) < 30) ++count;
+    }
+  return count;
+}
+
+TEST(Figures, PointsSitWhereTheDataAreAndRejectedStarsShowTheirMarker) {
+  test::TempDir dir;
+  FigureInputs f = figure_inputs();
+  FigureSummary s = pl_diagram(f.cal, "X", f.res, FigureFormat::kPng, dir.file("pl.png"));
+  EXPECT_EQ(s.used_points, 4);
+  EXPECT_EQ(s.rejected_points, 1);
+  cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("pl.png").c_str());
+  ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+  const double blue[3] = {0.0, 0.447, 0.698}, vermillion[3] = {0.835, 0.369, 0.0};
+  for (double logp : {0.4, 0.7, 1.0, 1.3}) EXPECT_GT(pixels_like(img, s.x_to_output(logp), 4, blue), 20) << logp;
+  // Between the stars, no marker colour.
+  EXPECT_EQ(pixels_like(img, s.x_to_output(0.85), 2, blue), 0);
+  EXPECT_GT(pixels_like(img, s.x_to_output(1.6), 5, vermillion), 10);
+  EXPECT_EQ(pixels_like(img, s.x_to_output(1.0), 5, vermillion), 0);
+  cairo_surface_destroy(img);
 }
 
 }  // namespace

@@ -163,10 +163,6 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, 
     }
     if (!std::isfinite(plx)) { refuse("no distance: neither a parallax nor a known distance modulus"); continue; }
     s.kind = "parallax";
-    if (o.max_ruwe > 0) {
-      double ruwe = value_or_nan(cat, "ruwe", r);
-      if (std::isfinite(ruwe) && ruwe > o.max_ruwe) { refuse(fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe)); continue; }
-    }
     double z = 0.0;
     if (o.zero_point == ZeroPointRecipe::kConstant) z = o.zero_point_mas;
     if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
@@ -190,6 +186,11 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, 
     if (!std::isfinite(plx_err) || !(plx_err > 0)) { refuse("no positive parallax error"); continue; }
     s.plx = plx - z;
     s.plx_err = plx_err * inflate;
+    // The cut comes after the correction so that refused stars keep their parallax for plots.
+    if (o.max_ruwe > 0) {
+      double ruwe = value_or_nan(cat, "ruwe", r);
+      if (std::isfinite(ruwe) && ruwe > o.max_ruwe) { refuse(fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe)); continue; }
+    }
     if (o.space == FitSpace::kMagnitude && s.plx - offset.value <= 0) {
       refuse(fmt::format("parallax {:.4f} mas is not positive: it cannot enter a magnitude-space fit (use space = \"parallax\")", s.plx));
       continue;

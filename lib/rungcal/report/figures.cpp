@@ -1,0 +1,300 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/report/figures.hpp"
+
+#include <cairo-pdf.h>
+#include <cairo-svg.h>
+#include <cairo.h>
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <memory>
+
+#include <fmt/format.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/error.hpp"
+
+namespace rungcal {
+namespace {
+
+constexpr double kWidth = 720, kHeight = 640;  // points (PDF, SVG) or pixels (PNG)
+// Okabe & Ito colour-blind-safe palette.
+constexpr double kBlue[3] = {0.0, 0.447, 0.698};
+constexpr double kVermillion[3] = {0.835, 0.369, 0.0};
+constexpr double kGrey[3] = {0.55, 0.55, 0.55};
+
+struct Surface {
+  cairo_surface_t* surface = nullptr;
+  cairo_t* cr = nullptr;
+  FigureFormat format;
+  std::string temp;
+  ~Surface() {
+    if (cr) cairo_destroy(cr);
+    if (surface) cairo_surface_destroy(surface);
+  }
+};
+
+std::unique_ptr<Surface> open_surface(FigureFormat f, const std::string& temp) {
+  auto s = std::make_unique<Surface>();
+  s->format = f;
+  s->temp = temp;
+  switch (f) {
+    case FigureFormat::kPdf: s->surface = cairo_pdf_surface_create(temp.c_str(), kWidth, kHeight); break;
+    case FigureFormat::kSvg: s->surface = cairo_svg_surface_create(temp.c_str(), kWidth, kHeight); break;
+    case FigureFormat::kPng: s->surface = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, static_cast<int>(kWidth), static_cast<int>(kHeight)); break;
+  }
+  s->cr = cairo_create(s->surface);
+  cairo_set_source_rgb(s->cr, 1, 1, 1);
+  cairo_paint(s->cr);
+  cairo_select_font_face(s->cr, "DejaVu Sans", CAIRO_FONT_SLANT_NORMAL, CAIRO_FONT_WEIGHT_NORMAL);
+  return s;
+}
+
+void finish_surface(Surface& s, const std::string& path) {
+  cairo_destroy(s.cr);
+  s.cr = nullptr;
+  if (s.format == FigureFormat::kPng) {
+    if (cairo_surface_write_to_png(s.surface, s.temp.c_str()) != CAIRO_STATUS_SUCCESS)
+      throw InputError({path, {}, {}}, "write_failed", "cairo could not write the PNG");
+  }
+  cairo_surface_finish(s.surface);
+  if (cairo_surface_status(s.surface) != CAIRO_STATUS_SUCCESS)
+    throw InputError({path, {}, {}}, "write_failed", cairo_status_to_string(cairo_surface_status(s.surface)));
+}
+
+// "Nice" tick spacing: 1, 2 or 5 times a power of ten, about n ticks over the range.
+double tick_step(double lo, double hi, int n = 6) {
+  double raw = (hi - lo) / n, p = std::pow(10.0, std::floor(std::log10(raw)));
+  for (double m : {1.0, 2.0, 5.0, 10.0})
+    if (m * p >= raw) return m * p;
+  return 10 * p;
+}
+
+struct Panel {
+  double left, right, top, bottom;
+  double x0, x1, y0, y1;
+  bool y_inverted = false;  // magnitudes: brighter up
+  double px(double x) const { return left + (x - x0) / (x1 - x0) * (right - left); }
+  double py(double y) const {
+    double f = (y - y0) / (y1 - y0);
+    return y_inverted ? top + f * (bottom - top) : bottom - f * (bottom - top);
+  }
+};
+
+void text(cairo_t* cr, double x, double y, const std::string& s, double size, double align_x, double align_y, bool vertical = false) {
+  cairo_save(cr);
+  cairo_set_font_size(cr, size);
+  cairo_text_extents_t e;
+  cairo_text_extents(cr, s.c_str(), &e);
+  cairo_move_to(cr, x, y);
+  if (vertical) cairo_rotate(cr, -M_PI / 2);
+  cairo_rel_move_to(cr, -e.width * align_x - e.x_bearing, e.height * align_y);
+  cairo_set_source_rgb(cr, 0, 0, 0);
+  cairo_show_text(cr, s.c_str());
+  cairo_restore(cr);
+}
+
+void axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::string& ylabel, bool x_numbers = true,
+          double min_x_step = 0.0) {
+  cairo_set_source_rgb(cr, 0, 0, 0);
+  cairo_set_line_width(cr, 1.2);
+  cairo_rectangle(cr, p.left, p.top, p.right - p.left, p.bottom - p.top);
+  cairo_stroke(cr);
+  double sx = std::max(tick_step(p.x0, p.x1), min_x_step), sy = tick_step(std::min(p.y0, p.y1), std::max(p.y0, p.y1), 5);
+  for (double x = std::ceil(p.x0 / sx) * sx; x <= p.x1 + 1e-9; x += sx) {
+    cairo_move_to(cr, p.px(x), p.bottom);
+    cairo_line_to(cr, p.px(x), p.bottom - 6);
+    cairo_stroke(cr);
+    if (x_numbers) text(cr, p.px(x), p.bottom + 6, fmt::format("{:g}", std::round(x / sx) * sx), 13, 0.5, 1.0);
+  }
+  for (double y = std::ceil(std::min(p.y0, p.y1) / sy) * sy; y <= std::max(p.y0, p.y1) + 1e-9; y += sy) {
+    cairo_move_to(cr, p.left, p.py(y));
+    cairo_line_to(cr, p.left + 6, p.py(y));
+    cairo_stroke(cr);
+    text(cr, p.left - 6, p.py(y), fmt::format("{:g}", std::round(y / sy) * sy), 13, 1.0, 0.5);
+  }
+  if (!xlabel.empty()) text(cr, (p.left + p.right) / 2, p.bottom + 28, xlabel, 15, 0.5, 1.0);
+  text(cr, p.left - 52, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true);
+}
+
+void marker(cairo_t* cr, double x, double y, bool used) {
+  if (used) {
+    cairo_set_source_rgb(cr, kBlue[0], kBlue[1], kBlue[2]);
+    cairo_arc(cr, x, y, 3.6, 0, 2 * M_PI);
+    cairo_fill(cr);
+  } else {
+    cairo_set_source_rgb(cr, kVermillion[0], kVermillion[1], kVermillion[2]);
+    cairo_set_line_width(cr, 1.6);
+    cairo_rectangle(cr, x - 4, y - 4, 8, 8);
+    cairo_stroke(cr);
+  }
+}
+
+const nlohmann::json& relation_json(const Calibration& cal, const std::string& relation) {
+  for (const auto& r : cal.document.at("fit").at("relations"))
+    if (r.at("name") == relation) return r;
+  throw InputError({cal.label(), {}, relation, "row", "relation"}, "unknown_relation", "the calibration has no relation of this name");
+}
+
+double parameter(const nlohmann::json& rel, const std::string& name, double fallback = 0.0) {
+  for (const auto& p : rel.at("parameters"))
+    if (p.at("name") == name) return p.at("value").get<double>();
+  return fallback;
+}
+
+double parameter_error(const nlohmann::json& rel, const std::string& name) {
+  for (const auto& p : rel.at("parameters"))
+    if (p.at("name") == name) return p.at("error").is_null() ? 0.0 : p.at("error").get<double>();
+  return 0.0;
+}
+
+struct Point {
+  double x, y, lo, hi, r;  // y with asymmetric errors (lo, hi as values), residual
+  bool used, open_below;
+};
+
+}  // namespace
+
+FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
+                         const std::string& path) {
+  const nlohmann::json& rel = relation_json(cal, relation);
+  const double offset = parameter(rel, "parallax_offset_mas"), sigma = parameter(rel, "sigma_int");
+  const double alpha = parameter(rel, "alpha"), beta = parameter(rel, "beta"), p0 = rel.at("pivot_log_period");
+  std::vector<Point> pts;
+  FigureSummary s;
+  for (std::size_t i = 0; i < res.rows(); ++i) {
+    if (res.column("relation").text[i] != relation || res.column("m0").is_null(i) || res.column("log_period_f").is_null(i)) continue;
+    const std::string kind = res.column("kind").is_null(i) ? "" : res.column("kind").text[i];
+    const double m0 = res.column("m0").real[i], x = res.column("log_period_f").real[i];
+    Point p{x, 0, 0, 0, res.column("residual").is_null(i) ? NAN : res.column("residual").real[i], res.column("used").boolean[i] != 0, false};
+    if (kind == "parallax" && !res.column("parallax_corrected_mas").is_null(i)) {
+      const double pi = res.column("parallax_corrected_mas").real[i] - offset, e = res.column("parallax_err_mas").real[i];
+      if (!(pi > 0)) continue;  // no magnitude to plot
+      auto abs_mag = [&](double q) { return m0 - 5.0 * std::log10(100.0 / q); };
+      p.y = abs_mag(pi);
+      p.lo = abs_mag(pi + e);  // a larger parallax: a nearer, so intrinsically fainter, star
+      p.open_below = pi - e <= 0;
+      p.hi = p.open_below ? p.y - 2.0 : abs_mag(pi - e);
+    } else if (!res.column("predicted").is_null(i) && !res.column("abs_mag_model").is_null(i)) {
+      const double mu = res.column("predicted").real[i] - res.column("abs_mag_model").real[i];
+      p.y = m0 - mu;
+      const double e = res.column("m0_err").is_null(i) ? 0 : res.column("m0_err").real[i];
+      p.lo = p.y + e, p.hi = p.y - e;
+    } else {
+      continue;
+    }
+    pts.push_back(p);
+    (p.used ? s.used_points : s.rejected_points) += 1;
+  }
+  if (pts.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no star to plot");
+  double xmin = 1e9, xmax = -1e9, ymin = 1e9, ymax = -1e9;
+  for (const auto& p : pts) xmin = std::min(xmin, p.x), xmax = std::max(xmax, p.x), ymin = std::min(ymin, p.y), ymax = std::max(ymax, p.y);
+  const double padx = 0.05 * (xmax - xmin + 0.1), pady = 0.08 * (ymax - ymin + 0.5);
+  Panel top{90, kWidth - 30, 30, 430, xmin - padx, xmax + padx, ymin - pady, ymax + pady, true};
+  Panel bottom{90, kWidth - 30, 450, 570, top.x0, top.x1, -4.5, 4.5, false};
+  AtomicOutput out(path);
+  auto surface = open_surface(format, out.temp_path());
+  cairo_t* cr = surface->cr;
+  // The relation and its intrinsic-scatter band, clipped to the plot box.
+  cairo_save(cr);
+  cairo_rectangle(cr, top.left, top.top, top.right - top.left, top.bottom - top.top);
+  cairo_clip(cr);
+  cairo_set_source_rgba(cr, kGrey[0], kGrey[1], kGrey[2], 0.35);
+  cairo_move_to(cr, top.px(top.x0), top.py(alpha + beta * (top.x0 - p0) - sigma));
+  cairo_line_to(cr, top.px(top.x1), top.py(alpha + beta * (top.x1 - p0) - sigma));
+  cairo_line_to(cr, top.px(top.x1), top.py(alpha + beta * (top.x1 - p0) + sigma));
+  cairo_line_to(cr, top.px(top.x0), top.py(alpha + beta * (top.x0 - p0) + sigma));
+  cairo_close_path(cr);
+  cairo_fill(cr);
+  cairo_set_source_rgb(cr, 0, 0, 0);
+  cairo_set_line_width(cr, 1.5);
+  cairo_move_to(cr, top.px(top.x0), top.py(alpha + beta * (top.x0 - p0)));
+  cairo_line_to(cr, top.px(top.x1), top.py(alpha + beta * (top.x1 - p0)));
+  cairo_stroke(cr);
+  for (const auto& p : pts) {
+    cairo_set_source_rgba(cr, 0.3, 0.3, 0.3, 0.8);
+    cairo_set_line_width(cr, 0.9);
+    cairo_move_to(cr, top.px(p.x), top.py(std::max(p.lo, p.hi)));
+    cairo_line_to(cr, top.px(p.x), top.py(std::min(p.lo, p.hi)));
+    cairo_stroke(cr);
+    if (p.open_below) {  // an arrow: the parallax allows any brighter magnitude
+      double ax = top.px(p.x), ay = top.py(p.hi);
+      cairo_move_to(cr, ax - 3, ay + 5);
+      cairo_line_to(cr, ax, ay);
+      cairo_line_to(cr, ax + 3, ay + 5);
+      cairo_stroke(cr);
+    }
+    marker(cr, top.px(p.x), top.py(p.y), p.used);
+  }
+  cairo_restore(cr);
+  axes(cr, top, "", "M (mag)", false);
+  // Residuals.
+  cairo_set_source_rgb(cr, 0, 0, 0);
+  cairo_set_line_width(cr, 0.8);
+  cairo_move_to(cr, bottom.left, bottom.py(0));
+  cairo_line_to(cr, bottom.right, bottom.py(0));
+  cairo_stroke(cr);
+  for (const auto& p : pts)
+    if (std::isfinite(p.r)) marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.used);
+  axes(cr, bottom, "log10 P (days)", "r / sigma");
+  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}   used: {}   rejected: {}", cal.label(), relation, s.used_points,
+                                                    s.rejected_points),
+       13, 0.0, 1.0);
+  finish_surface(*surface, path);
+  surface.reset();
+  out.commit();
+  s.box_left = top.left, s.box_right = top.right, s.box_top = top.top, s.box_bottom = top.bottom;
+  s.x_min = top.x0, s.x_max = top.x1, s.y_min = top.y0, s.y_max = top.y1;
+  return s;
+}
+
+FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
+                            const std::string& path) {
+  FigureSummary s;
+  std::vector<double> v, a, ae, o, oe;
+  for (const auto& c : versions) {
+    const nlohmann::json& rel = relation_json(c, relation);
+    v.push_back(c.version());
+    a.push_back(parameter(rel, "alpha")), ae.push_back(parameter_error(rel, "alpha"));
+    o.push_back(parameter(rel, "parallax_offset_mas") * 1e3), oe.push_back(parameter_error(rel, "parallax_offset_mas") * 1e3);
+  }
+  auto range = [](const std::vector<double>& y, const std::vector<double>& e) {
+    double lo = 1e9, hi = -1e9;
+    for (std::size_t i = 0; i < y.size(); ++i) lo = std::min(lo, y[i] - e[i]), hi = std::max(hi, y[i] + e[i]);
+    double pad = 0.1 * (hi - lo + 1e-3);
+    return std::pair{lo - pad, hi + pad};
+  };
+  const double x0 = *std::min_element(v.begin(), v.end()) - 0.5, x1 = *std::max_element(v.begin(), v.end()) + 0.5;
+  auto [a0, a1] = range(a, ae);
+  auto [o0, o1] = range(o, oe);
+  Panel top{90, kWidth - 30, 30, 300, x0, x1, a0, a1, true};
+  Panel bottom{90, kWidth - 30, 330, 570, x0, x1, o0, o1, false};
+  AtomicOutput out(path);
+  auto surface = open_surface(format, out.temp_path());
+  cairo_t* cr = surface->cr;
+  auto series = [&](const Panel& p, const std::vector<double>& y, const std::vector<double>& e) {
+    for (std::size_t i = 0; i < y.size(); ++i) {
+      cairo_set_source_rgb(cr, 0.3, 0.3, 0.3);
+      cairo_set_line_width(cr, 1.0);
+      cairo_move_to(cr, p.px(v[i]), p.py(y[i] - e[i]));
+      cairo_line_to(cr, p.px(v[i]), p.py(y[i] + e[i]));
+      cairo_stroke(cr);
+      marker(cr, p.px(v[i]), p.py(y[i]), true);
+      ++s.used_points;
+    }
+  };
+  series(top, a, ae);
+  series(bottom, o, oe);
+  axes(cr, top, "", "alpha (mag)", false, 1.0);
+  axes(cr, bottom, "version", "parallax offset (micro-arcsec)", true, 1.0);  // versions are whole numbers
+  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}", versions.back().name(), relation), 13, 0.0, 1.0);
+  finish_surface(*surface, path);
+  surface.reset();
+  out.commit();
+  s.box_left = top.left, s.box_right = top.right, s.box_top = top.top, s.box_bottom = top.bottom;
+  s.x_min = x0, s.x_max = x1, s.y_min = a0, s.y_max = a1;
+  return s;
+}
+
+}  // namespace rungcal

@@ -1,0 +1,43 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include "rungcal/calibration/calibration.hpp"
+#include "rungcal/core/enum_table.hpp"
+#include "rungcal/table/star_table.hpp"
+
+namespace rungcal {
+
+enum class FigureFormat { kPdf, kPng, kSvg };
+inline constexpr EnumTable<FigureFormat, 3> kFigureFormatNames{{{
+    {FigureFormat::kPdf, "pdf"},
+    {FigureFormat::kPng, "png"},
+    {FigureFormat::kSvg, "svg"},
+}}};
+
+// Where a figure put things, for tests and for a caption.
+struct FigureSummary {
+  int used_points = 0, rejected_points = 0;
+  // Plot box of the top panel in output units (PNG pixels), and its data ranges.
+  double box_left = 0, box_right = 0, box_top = 0, box_bottom = 0;
+  double x_min = 0, x_max = 0, y_min = 0, y_max = 0;
+  double x_to_output(double x) const { return box_left + (x - x_min) / (x_max - x_min) * (box_right - box_left); }
+};
+
+// The period-luminosity diagram of one relation (cairo): absolute magnitudes from the
+// calibrators' corrected parallaxes (M = m0 - 5 log10(100 / (pi - offset)), asymmetric
+// errors from pi -+ sigma_pi, an arrow where pi - sigma_pi <= 0; non-positive parallaxes are
+// off the diagram and counted) or known distance moduli, against log P; the fitted relation
+// at [Fe/H] = 0 with its intrinsic-scatter band; used stars as filled blue circles and
+// rejected ones as open vermillion squares (Okabe & Ito colours: legible to colour-blind
+// readers, and the shapes differ in greyscale); a panel of normalised residuals below.
+FigureSummary pl_diagram(const Calibration& calibration, const std::string& relation, const StarTable& residuals,
+                         FigureFormat format, const std::string& path);
+
+// Zero point and parallax offset of a relation, version by version, with covariance errors.
+FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
+                            const std::string& path);
+
+}  // namespace rungcal
