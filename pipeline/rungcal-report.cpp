@@ -51,7 +51,8 @@ int main(int argc, char** argv) {
         rungcal::SourceTable res = rungcal::read_fits_table(residuals, {"RESIDUALS", 0});
         for (const auto& rel : last.relation_names()) {
           rungcal::pl_diagram(last, rel, res.table, f, out_dir + "/pl_" + rel + "." + e);
-          ++figures;
+          rungcal::residual_trends(last, rel, res.table, f, out_dir + "/residuals_" + rel + "." + e);
+          figures += 2;
         }
       }
       if (versions.size() > 1)

@@ -230,5 +230,19 @@ TEST(Figures, PointsSitWhereTheDataAreAndRejectedStarsShowTheirMarker) {
   cairo_surface_destroy(img);
 }
 
+TEST(Figures, ResidualTrendsShowEachStarWithAResidual) {
+  test::TempDir dir;
+  FigureInputs f = figure_inputs();
+  f.res.add_column("feh", ColumnType::kReal);
+  for (std::size_t i = 0; i < f.res.rows(); ++i) f.res.column("feh").real[i] = -0.2 + 0.1 * static_cast<double>(i), f.res.column("feh").null[i] = 0;
+  FigureSummary s = residual_trends(f.cal, "X", f.res, FigureFormat::kPng, dir.file("r.png"));
+  EXPECT_EQ(s.used_points, 4);  // the refused star has no residual
+  cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("r.png").c_str());
+  ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+  const double blue[3] = {0.0, 0.447, 0.698};
+  EXPECT_GT(pixels_like(img, s.x_to_output(-0.1), 4, blue), 20);  // the star at [Fe/H] = -0.1
+  cairo_surface_destroy(img);
+}
+
 }  // namespace
 }  // namespace rungcal

@@ -892,6 +892,9 @@ FitResult fit_catalog_file(const FitOptions& o) {
   res.add_column("parallax_corrected_mas", ColumnType::kReal, "mas", "parallax minus zero point");
   res.add_column("parallax_err_mas", ColumnType::kReal, "mas", "inflated parallax error");
   res.add_column("predicted", ColumnType::kReal, "", "photometric parallax (mas, parallax space) or predicted m0");
+  // Where zero-point, offset and metallicity problems show: [Fe/H] and G beside each residual.
+  res.add_column("feh", ColumnType::kReal, "", "[Fe/H] (dex)");
+  res.add_column("gaia_g_mag", ColumnType::kReal, "mag");
   for (const auto& rr : result.relations) {
     for (const auto& s : rr.stars) {
       res.column("relation").push_text(rr.relation.name);
@@ -907,6 +910,8 @@ FitResult fit_catalog_file(const FitOptions& o) {
       res.column("parallax_corrected_mas").push_real(s.plx);
       res.column("parallax_err_mas").push_real(s.plx_err);
       res.column("predicted").push_real(s.predicted);
+      res.column("feh").push_real(in.table.has(col::kFeh) ? in.table.column(col::kFeh).as_real(s.row) : std::nan(""));
+      res.column("gaia_g_mag").push_real(in.table.has("gaia_g_mag") ? in.table.column("gaia_g_mag").as_real(s.row) : std::nan(""));
     }
   }
   stamp_provenance(res, result.provenance, "fit_residuals");

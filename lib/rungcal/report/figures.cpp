@@ -249,6 +249,67 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   return s;
 }
 
+FigureSummary residual_trends(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
+                              const std::string& path) {
+  struct Series {
+    std::string label;
+    std::vector<double> x, r;
+    std::vector<bool> used;
+  };
+  std::vector<Series> panels = {{"[Fe/H] (dex)", {}, {}, {}}, {"G (mag)", {}, {}, {}}, {"parallax / error", {}, {}, {}}};
+  const double offset = parameter(relation_json(cal, relation), "parallax_offset_mas");
+  FigureSummary s;
+  for (std::size_t i = 0; i < res.rows(); ++i) {
+    if (res.column("relation").text[i] != relation || res.column("residual").is_null(i)) continue;
+    const double r = res.column("residual").real[i];
+    const bool used = res.column("used").boolean[i] != 0;
+    auto add = [&](Series& p, const char* col, double transform_offset, bool snr) {
+      if (!res.has(col) || res.column(col).is_null(i)) return;
+      double x = res.column(col).real[i];
+      if (snr) {
+        if (res.column("parallax_err_mas").is_null(i)) return;
+        x = (x - transform_offset) / res.column("parallax_err_mas").real[i];
+      }
+      p.x.push_back(x), p.r.push_back(r), p.used.push_back(used);
+    };
+    add(panels[0], "feh", 0, false);
+    add(panels[1], "gaia_g_mag", 0, false);
+    add(panels[2], "parallax_corrected_mas", offset, true);
+    (used ? s.used_points : s.rejected_points) += 1;
+  }
+  std::vector<Series*> shown;
+  for (auto& p : panels)
+    if (!p.x.empty()) shown.push_back(&p);
+  if (shown.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no residual with [Fe/H], G or a parallax");
+  AtomicOutput out(path);
+  auto surface = open_surface(format, out.temp_path());
+  cairo_t* cr = surface->cr;
+  const double height = (570.0 - 30.0) / static_cast<double>(shown.size());
+  for (std::size_t k = 0; k < shown.size(); ++k) {
+    const Series& p = *shown[k];
+    double lo = *std::min_element(p.x.begin(), p.x.end()), hi = *std::max_element(p.x.begin(), p.x.end());
+    double pad = 0.05 * (hi - lo + 0.1);
+    const double kd = static_cast<double>(k);
+    Panel panel{90, kWidth - 30, 30 + kd * height, 30 + (kd + 1) * height - 45, lo - pad, hi + pad, -4.5, 4.5, false};
+    cairo_set_source_rgb(cr, 0, 0, 0);
+    cairo_set_line_width(cr, 0.8);
+    cairo_move_to(cr, panel.left, panel.py(0));
+    cairo_line_to(cr, panel.right, panel.py(0));
+    cairo_stroke(cr);
+    for (std::size_t i = 0; i < p.x.size(); ++i) marker(cr, panel.px(p.x[i]), panel.py(std::clamp(p.r[i], -4.4, 4.4)), p.used[i]);
+    axes(cr, panel, p.label, "r / sigma");
+    if (k == 0) {
+      s.box_left = panel.left, s.box_right = panel.right, s.box_top = panel.top, s.box_bottom = panel.bottom;
+      s.x_min = panel.x0, s.x_max = panel.x1, s.y_min = panel.y0, s.y_max = panel.y1;
+    }
+  }
+  text(cr, 100, 40, fmt::format("{}  {}  residuals", cal.label(), relation), 13, 0.0, 1.0);
+  finish_surface(*surface, path);
+  surface.reset();
+  out.commit();
+  return s;
+}
+
 FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
                             const std::string& path) {
   FigureSummary s;

@@ -36,6 +36,12 @@ struct FigureSummary {
 FigureSummary pl_diagram(const Calibration& calibration, const std::string& relation, const StarTable& residuals,
                          FigureFormat format, const std::string& path);
 
+// Normalised residuals of a relation against [Fe/H], G and parallax S/N (one panel each,
+// for the columns the residuals have), where metallicity, zero-point and offset problems
+// show as trends; used and refused stars marked as in pl_diagram.
+FigureSummary residual_trends(const Calibration& calibration, const std::string& relation, const StarTable& residuals,
+                              FigureFormat format, const std::string& path);
+
 // Zero point and parallax offset of a relation, version by version, with covariance errors.
 FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
                             const std::string& path);
