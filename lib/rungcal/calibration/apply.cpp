@@ -172,8 +172,7 @@ ApplyResult apply_calibration(const Calibration& cal, const std::string& relatio
 }
 
 ApplyResult apply_calibration_files(const ApplyOptions& o) {
-  if (std::string err = o.check(); !err.empty())
-    throw InputError({"", {}, err.substr(0, err.find(':'))}, "config_value", err.substr(err.find(':') + 2));
+  throw_if_invalid(o.check(), "");
   Calibration cal = load_calibration(o.store, o.calibration);
   SourceTable targets = read_fits_table(o.targets_path, {"CATALOG", 0});
   ApplyResult r = apply_calibration(cal, o.relation, targets.table, o);

@@ -35,17 +35,19 @@ std::string Calibration::content_sha256() const {
   return calibration_content_sha256(document.at("fit"), document.value("config_text", ""));
 }
 
-namespace {
-const nlohmann::json& relation_of(const Calibration& cal, const std::string& relation) {
-  for (const auto& r : cal.document.at("fit").at("relations"))
-    if (r.at("name") == relation) return r;
-  throw InputError({cal.label(), {}, relation, "row", "relation"}, "unknown_relation",
-                   "the calibration has no relation of this name");
+const nlohmann::json* Calibration::find_relation(const std::string& name) const {
+  for (const auto& r : document.at("fit").at("relations"))
+    if (r.at("name") == name) return &r;
+  return nullptr;
 }
-}  // namespace
+
+const nlohmann::json& Calibration::relation(const std::string& name) const {
+  if (const nlohmann::json* r = find_relation(name)) return *r;
+  throw InputError({label(), {}, name, "row", "relation"}, "unknown_relation", "the calibration has no relation of this name");
+}
 
 double calibration_error_of(const Calibration& cal, const std::string& relation, const std::vector<double>& grad) {
-  const auto& cov = relation_of(cal, relation).at("covariance");
+  const auto& cov = cal.relation(relation).at("covariance");
   double var = 0;
   for (std::size_t i = 0; i < grad.size(); ++i)
     for (std::size_t j = 0; j < grad.size(); ++j)
@@ -55,7 +57,7 @@ double calibration_error_of(const Calibration& cal, const std::string& relation,
 
 Prediction predict_absolute_magnitude(const Calibration& cal, const std::string& relation, double log_period,
                                       std::optional<double> feh) {
-  const nlohmann::json* rel = &relation_of(cal, relation);
+  const nlohmann::json* rel = &cal.relation(relation);
   const auto& names = rel->at("parameter_names");
   const auto& params = rel->at("parameters");
   const std::size_t n = names.size();

@@ -28,6 +28,10 @@ struct Calibration {
   // "name@version" of the calibration, or of a relation in it.
   std::string label() const;
   std::vector<std::string> relation_names() const;
+  // The relation of this name in the fit result, or nullptr.
+  const nlohmann::json* find_relation(const std::string& name) const;
+  // The same, or InputError (rule "unknown_relation").
+  const nlohmann::json& relation(const std::string& name) const;
 };
 
 // The content hash of a fit result (rungcal-fit JSON) with its config text.

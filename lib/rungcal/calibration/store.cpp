@@ -189,8 +189,7 @@ Calibration load_calibration(const std::string& store, const std::string& refere
 }
 
 PublishOutcome publish_calibration(const PublishOptions& o) {
-  if (std::string err = o.check(); !err.empty())
-    throw InputError({"", {}, err.substr(0, err.find(':'))}, "config_value", err.substr(err.find(':') + 2));
+  throw_if_invalid(o.check(), "");
   nlohmann::json fit = read_json(o.fit_path);
   if (fit.value("schema", "") != "rungcal-fit")
     throw InputError({o.fit_path, {}, "schema"}, "not_a_fit_result", "not a rungcal-fit result");

@@ -28,6 +28,15 @@ std::string format_input_error(const InputLocation& where, const std::string& ru
   return out;
 }
 
+void throw_if_invalid(const std::string& check_result, const std::string& file, const std::string& key_prefix) {
+  if (check_result.empty()) return;
+  const auto colon = check_result.find(':');
+  const std::string field = check_result.substr(0, colon);
+  const std::string rule = colon == std::string::npos ? check_result : check_result.substr(colon + 1);
+  throw InputError({file, {}, key_prefix + field, "line", "key"}, "config_value",
+                   rule.empty() || rule[0] != ' ' ? rule : rule.substr(1));
+}
+
 InputError::InputError(InputLocation where, std::string rule, std::string message)
     : std::runtime_error(format_input_error(where, rule, message)),
       where_(std::move(where)),

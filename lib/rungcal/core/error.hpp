@@ -47,6 +47,10 @@ class InputError : public std::runtime_error {
   std::string detail_;
 };
 
+// Turns an options check() result ("field: rule", "" when fine) into InputError
+// (rule "config_value") naming the config file and the key (key_prefix + field).
+void throw_if_invalid(const std::string& check_result, const std::string& file, const std::string& key_prefix = "");
+
 // Formats "file:row N: column 'c': [rule] message", leaving out what is unknown.
 std::string format_input_error(const InputLocation& where, const std::string& rule,
                                const std::string& message);

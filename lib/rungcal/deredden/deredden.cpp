@@ -65,9 +65,7 @@ DereddenOptions deredden_options_from_file(const std::string& path) {
   if (auto a = s->section("a_over_ebv"))
     for (const auto& k : a->keys()) o.a_over_ebv[k] = *a->get_number(k);
   c.check_unknown_keys();
-  if (std::string err = o.check(); !err.empty())
-    throw InputError({path, {}, "deredden." + err.substr(0, err.find(':')), "line", "key"}, "config_value",
-                     err.substr(err.find(':') + 2));
+  throw_if_invalid(o.check(), path, "deredden.");
   return o;
 }
 
@@ -96,7 +94,7 @@ StarTable DereddenResult::coefficients_table() const {
 }
 
 DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const BandTable& table) {
-  if (std::string err = o.check(); !err.empty()) throw InputError({}, "config_value", err);
+  throw_if_invalid(o.check(), o.input_path, "deredden.");
   DereddenResult result;
   result.catalog = in;
   StarTable& cat = result.catalog;

@@ -381,10 +381,7 @@ IngestOptions ingest_options_from_config(Config& config) {
     o.catalog_path = config.resolve_path(o.catalog_path);
   }
   config.check_unknown_keys();
-  if (std::string err = o.check(); !err.empty()) {
-    std::string keypath = err.substr(0, err.find(':'));
-    throw InputError({config.file(), {}, keypath, "line", "key"}, "config_value", err.substr(err.find(':') + 2));
-  }
+  throw_if_invalid(o.check(), config.file());
   return o;
 }
 
@@ -411,8 +408,7 @@ StarTable IngestResult::rejects_table() const {
 }
 
 IngestResult run_ingest(const IngestOptions& o) {
-  if (std::string err = o.check(); !err.empty())
-    throw InputError({o.config_file, {}, err.substr(0, err.find(':')), "line", "key"}, "config_value", err);
+  throw_if_invalid(o.check(), o.config_file);
   SourceTable in = o.input_is_fits ? read_fits_table(o.input_path, o.hdu) : read_text_table(o.input_path, o.text);
   const std::size_t n = in.table.rows();
   if (n == 0) throw InputError({o.input_path, {}, {}}, "empty_file", "the table has no rows");

@@ -576,8 +576,7 @@ FitOptions fit_options_from_file(const std::string& path) {
     o.anchors.push_back(an);
   }
   c.check_unknown_keys();
-  if (std::string err = o.check(); !err.empty())
-    throw InputError({path, {}, err.substr(0, err.find(':')), "line", "key"}, "config_value", err.substr(err.find(':') + 2));
+  throw_if_invalid(o.check(), path);
   return o;
 }
 
@@ -592,7 +591,7 @@ double RelationResult::bootstrap_error(const std::string& name) const {
 }
 
 FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* coefficients) {
-  if (std::string err = o.check(); !err.empty()) throw InputError({o.config_file, {}, {}, "line", "key"}, "config_value", err);
+  throw_if_invalid(o.check(), o.config_file);
   ParallaxTools tools;
   if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
     tools.zp5 = ZeroPointTable::from_file(o.zero_point_table_5p);

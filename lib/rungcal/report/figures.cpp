@@ -131,12 +131,6 @@ void marker(cairo_t* cr, double x, double y, bool used) {
   }
 }
 
-const nlohmann::json& relation_json(const Calibration& cal, const std::string& relation) {
-  for (const auto& r : cal.document.at("fit").at("relations"))
-    if (r.at("name") == relation) return r;
-  throw InputError({cal.label(), {}, relation, "row", "relation"}, "unknown_relation", "the calibration has no relation of this name");
-}
-
 double parameter(const nlohmann::json& rel, const std::string& name, double fallback = 0.0) {
   for (const auto& p : rel.at("parameters"))
     if (p.at("name") == name) return p.at("value").get<double>();
@@ -158,7 +152,7 @@ struct Point {
 
 FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
                          const std::string& path) {
-  const nlohmann::json& rel = relation_json(cal, relation);
+  const nlohmann::json& rel = cal.relation(relation);
   const double offset = parameter(rel, "parallax_offset_mas"), sigma = parameter(rel, "sigma_int");
   const double alpha = parameter(rel, "alpha"), beta = parameter(rel, "beta"), p0 = rel.at("pivot_log_period");
   std::vector<Point> pts;
@@ -257,7 +251,7 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
     std::vector<bool> used;
   };
   std::vector<Series> panels = {{"[Fe/H] (dex)", {}, {}, {}}, {"G (mag)", {}, {}, {}}, {"parallax / error", {}, {}, {}}};
-  const double offset = parameter(relation_json(cal, relation), "parallax_offset_mas");
+  const double offset = parameter(cal.relation(relation), "parallax_offset_mas");
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
     if (res.column("relation").text[i] != relation || res.column("residual").is_null(i)) continue;
@@ -315,7 +309,7 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   FigureSummary s;
   std::vector<double> v, a, ae, o, oe;
   for (const auto& c : versions) {
-    const nlohmann::json& rel = relation_json(c, relation);
+    const nlohmann::json& rel = c.relation(relation);
     v.push_back(c.version());
     a.push_back(parameter(rel, "alpha")), ae.push_back(parameter_error(rel, "alpha"));
     o.push_back(parameter(rel, "parallax_offset_mas") * 1e3), oe.push_back(parameter_error(rel, "parallax_offset_mas") * 1e3);

@@ -39,12 +39,6 @@ std::string quote_csv(const std::string& s) {
   return out + "\"";
 }
 
-const nlohmann::json* relation_in(const Calibration& c, const std::string& name) {
-  for (const auto& r : c.document.at("fit").at("relations"))
-    if (r.at("name") == name) return &r;
-  return nullptr;
-}
-
 // One cell per format: "v +- e" (plain), "$v \pm e$" (LaTeX), "(fixed)" for fixed ones.
 std::string cell(const nlohmann::json& p, TableFormat f) {
   double v = p.at("value");
@@ -147,7 +141,7 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
       std::vector<std::string> row = {fmt::format("{}: {}", rel_name, f == TableFormat::kLatex ? q.latex : q.label)};
       bool any = false;
       for (const auto& c : versions) {
-        const nlohmann::json* r = relation_in(c, rel);
+        const nlohmann::json* r = c.find_relation(rel);
         std::string text = f == TableFormat::kLatex ? "\\nodata" : "";
         if (r)
           for (const auto& p : r->at("parameters"))
@@ -158,7 +152,7 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
     }
     std::vector<std::string> row = {fmt::format("{}: N", rel_name)};
     for (const auto& c : versions) {
-      const nlohmann::json* r = relation_in(c, rel);
+      const nlohmann::json* r = c.find_relation(rel);
       row.push_back(r ? std::to_string(r->at("statistics").at("n_used").get<int>()) : (f == TableFormat::kLatex ? "\\nodata" : ""));
     }
     g.rows.push_back(row);

@@ -154,13 +154,12 @@ SimulateOptions simulate_options_from_file(const std::string& path) {
     o.relations.push_back(t);
   }
   c.check_unknown_keys();
-  if (std::string err = o.check(); !err.empty())
-    throw InputError({path, {}, "simulate." + err.substr(0, err.find(':')), "line", "key"}, "config_value", err);
+  throw_if_invalid(o.check(), path, "simulate.");
   return o;
 }
 
 Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
-  if (std::string err = o.check(); !err.empty()) throw InputError({}, "config_value", err);
+  throw_if_invalid(o.check(), "", "simulate.");
   Random rng(o.seed);
   Simulation sim;
   std::map<std::string, double> coefficient;  // R_band = A_band / E(B-V)
