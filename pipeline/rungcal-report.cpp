@@ -13,14 +13,18 @@
 #include "rungcal/table/fits_io.hpp"
 
 int main(int argc, char** argv) {
-  CLI::App app{"Writes the tables for a paper from one or more published calibration versions: the relations "
-               "side by side and the per-star appendix, in LaTeX (AASTeX), CSV and Markdown."};
+  CLI::App app{"Writes the tables and figures for a paper from one or more published calibration versions: the "
+               "relations side by side and the per-star appendix in LaTeX (AASTeX), CSV and Markdown; period-luminosity "
+               "diagrams, residual trends, versions side by side and light curves in PDF, PNG and SVG."};
   rungcal::CommonOptions common;
   std::string store, out_dir = "out/report";
-  std::vector<std::string> calibrations;
+  std::vector<std::string> calibrations, lc_stars;
+  std::string lightcurves;
   app.add_option("--store", store, "Calibration store folder")->required();
   app.add_option("--calibration", calibrations, "name@N or name@latest; several for side by side")->required();
   app.add_option("--out", out_dir, "Folder for the tables");
+  app.add_option("--lightcurves", lightcurves, "rungcal-lightcurve product: phased light curves and periodograms too");
+  app.add_option("--star", lc_stars, "Stars whose light curves to draw (default: those with a kept periodogram)");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("report", common.verbosity(), common.log_file);
@@ -58,6 +62,17 @@ int main(int argc, char** argv) {
       if (versions.size() > 1)
         for (const auto& rel : last.relation_names()) {
           rungcal::version_trend(versions, rel, f, out_dir + "/versions_" + rel + "." + e);
+          ++figures;
+        }
+    }
+    if (!lightcurves.empty()) {
+      rungcal::LightCurveTables lc = rungcal::read_lightcurve_tables(lightcurves);
+      if (lc_stars.empty())
+        for (std::size_t i = 0; i < lc.periodogram.rows(); ++i)
+          if (lc_stars.empty() || lc_stars.back() != lc.periodogram.column("id").text[i]) lc_stars.push_back(lc.periodogram.column("id").text[i]);
+      for (auto f : {rungcal::FigureFormat::kPdf, rungcal::FigureFormat::kPng, rungcal::FigureFormat::kSvg})
+        for (const auto& star : lc_stars) {
+          rungcal::light_curve_figure(lc, star, f, out_dir + "/lightcurve_" + star + "." + std::string(rungcal::kFigureFormatNames.name(f)));
           ++figures;
         }
     }

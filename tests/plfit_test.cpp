@@ -71,14 +71,6 @@ std::string to_csv(const Mock& m) {
   return o.str();
 }
 
-std::vector<double> parse_numbers(const std::string& text) {
-  std::istringstream in(text);
-  std::vector<double> v;
-  double x;
-  while (in >> x) v.push_back(x);
-  return v;
-}
-
 // scipy's side of the comparison: the same parallax-space residual, written out in numpy.
 const char* kScipyParallaxFit = R"(
 import sys, numpy as np
@@ -117,7 +109,7 @@ TEST_P(AgainstScipy, ParallaxSpaceRobustFitAgreesTo1e6) {
   auto r = test::run_python(kScipyParallaxFit, {dir.file("d.csv"), name, "2.0", "0.08", std::to_string(start[0]),
                                                 std::to_string(start[1]), std::to_string(start[L.offset])});
   ASSERT_EQ(r.exit_code, 0) << r.output;
-  std::vector<double> ref = parse_numbers(r.output);
+  std::vector<double> ref = test::parse_numbers(r.output);
   ASSERT_EQ(ref.size(), 3u) << r.output;
   EXPECT_NEAR(sol.theta[L.alpha], ref[0], 1e-6 * std::abs(ref[0]));
   EXPECT_NEAR(sol.theta[L.beta], ref[1], 1e-6 * std::abs(ref[1]));
@@ -156,7 +148,7 @@ t = minimize(nll, t, method="BFGS", options=dict(gtol=1e-10)).x
 print(*["%.17g" % v for v in t])
 )", {dir.file("d.csv")});
   ASSERT_EQ(r.exit_code, 0) << r.output;
-  std::vector<double> ref = parse_numbers(r.output);
+  std::vector<double> ref = test::parse_numbers(r.output);
   ASSERT_EQ(ref.size(), 4u) << r.output;
   EXPECT_NEAR(sol.theta[L.sigma], std::abs(ref[3]), 1e-5);
   EXPECT_NEAR(sol.theta[L.alpha], ref[0], 1e-5);
@@ -201,7 +193,7 @@ c = res.cov_params()
 print(*["%.17g" % v for v in [*res.params, c[0, 0], c[0, 1], c[1, 1]]])
 )", {dir.file("d.csv")});
   ASSERT_EQ(r.exit_code, 0) << r.output;
-  std::vector<double> ref = parse_numbers(r.output);
+  std::vector<double> ref = test::parse_numbers(r.output);
   ASSERT_EQ(ref.size(), 5u);
   EXPECT_NEAR(sol.theta[L.alpha], ref[0], 1e-9);
   EXPECT_NEAR(sol.theta[L.beta], ref[1], 1e-9);

@@ -11,6 +11,7 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/core/error.hpp"
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
 #include "test_util.hpp"
@@ -242,6 +243,94 @@ TEST(Figures, ResidualTrendsShowEachStarWithAResidual) {
   const double blue[3] = {0.0, 0.447, 0.698};
   EXPECT_GT(pixels_like(img, s.x_to_output(-0.1), 4, blue), 20);  // the star at [Fe/H] = -0.1
   cairo_surface_destroy(img);
+}
+
+// A hand-made light-curve product: one star, V epochs at four phases only, a first-order
+// model, a periodogram with one peak.
+LightCurveTables light_curve_inputs() {
+  LightCurveTables t;
+  t.summary.add_column("id", ColumnType::kText);
+  for (const char* c : {"period_d", "t_ref", "epoch_max"}) t.summary.add_column(c, ColumnType::kReal);
+  t.summary.column("id").push_text("STAR-A");
+  t.summary.column("period_d").push_real(10.0);
+  t.summary.column("t_ref").push_real(100.0);
+  t.summary.column("epoch_max").push_real(102.5);  // phase zero a quarter cycle after t_ref
+  t.fourier.add_column("id", ColumnType::kText);
+  t.fourier.add_column("band", ColumnType::kText);
+  t.fourier.add_column("harmonic", ColumnType::kInteger);
+  t.fourier.add_column("cos_coef", ColumnType::kReal);
+  t.fourier.add_column("sin_coef", ColumnType::kReal);
+  for (int k = 0; k < 2; ++k) {
+    t.fourier.column("id").push_text("STAR-A");
+    t.fourier.column("band").push_text("V");
+    t.fourier.column("harmonic").push_integer(k);
+    t.fourier.column("cos_coef").push_real(k == 0 ? 12.0 : 0.0);
+    t.fourier.column("sin_coef").push_real(k == 0 ? 0.0 : -0.3);  // brightest a quarter cycle after t_ref
+  }
+  t.points.add_column("id", ColumnType::kText);
+  t.points.add_column("band", ColumnType::kText);
+  for (const char* c : {"phase", "mag", "mag_err"}) t.points.add_column(c, ColumnType::kReal);
+  for (double ph : {0.1, 0.3, 0.55, 0.8}) {
+    t.points.column("id").push_text("STAR-A");
+    t.points.column("band").push_text("V");
+    t.points.column("phase").push_real(ph);
+    t.points.column("mag").push_real(12.0 - 0.3 * std::cos(2 * M_PI * ph));
+    t.points.column("mag_err").push_real(0.01);
+  }
+  t.periodogram.add_column("id", ColumnType::kText);
+  t.periodogram.add_column("frequency", ColumnType::kReal);
+  t.periodogram.add_column("power", ColumnType::kReal);
+  for (int k = 0; k < 200; ++k) {
+    const double f = 0.01 + 0.005 * k;
+    t.periodogram.column("id").push_text("STAR-A");
+    t.periodogram.column("frequency").push_real(f);
+    t.periodogram.column("power").push_real(std::exp(-std::pow((f - 0.1) / 0.004, 2)));
+  }
+  return t;
+}
+
+TEST(Figures, LightCurveShowsEachEpochTwiceAndTheModelPeaksAtPhaseZero) {
+  test::TempDir dir;
+  LightCurveTables t = light_curve_inputs();
+  FigureSummary s = light_curve_figure(t, "STAR-A", FigureFormat::kPng, dir.file("lc.png"));
+  light_curve_figure(t, "STAR-A", FigureFormat::kPdf, dir.file("lc.pdf"));
+  light_curve_figure(t, "STAR-A", FigureFormat::kSvg, dir.file("lc.svg"));
+  EXPECT_EQ(test::read_text(dir.file("lc.pdf")).substr(0, 5), "%PDF-");
+  EXPECT_NE(test::read_text(dir.file("lc.svg")).find("<svg"), std::string::npos);
+  EXPECT_EQ(s.used_points, 4);
+  cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("lc.png").c_str());
+  ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+  const double blue[3] = {0.0, 0.447, 0.698};
+  // Each epoch at its phase and one cycle later; the model line crosses every column, so
+  // a marker column holds clearly more blue than a column between epochs.
+  const int between = pixels_like(img, s.x_to_output(0.45), 2, blue);
+  for (double ph : {0.1, 0.3, 0.55, 0.8, 1.1, 1.3, 1.55, 1.8}) EXPECT_GT(pixels_like(img, s.x_to_output(ph), 2, blue), between + 10) << ph;
+  cairo_surface_destroy(img);
+  // The model's brightest point (smallest magnitude) drawn at phase 0: the top rows of the
+  // plot box hold model pixels near phase 0 and 1, not near 0.5.
+  img = cairo_image_surface_create_from_png(dir.file("lc.png").c_str());
+  const int stride = cairo_image_surface_get_stride(img);
+  const unsigned char* data = cairo_image_surface_get_data(img);
+  auto blue_near_top = [&](double phase) {
+    const int x = static_cast<int>(s.x_to_output(phase));
+    int count = 0;
+    for (int y = static_cast<int>(s.box_top); y < static_cast<int>(s.box_top + 0.25 * (s.box_bottom - s.box_top)); ++y)
+      for (int dx = -3; dx <= 3; ++dx) {
+        const unsigned char* p = data + y * stride + 4 * (x + dx);
+        count += std::abs(p[0] - 178) < 30 && std::abs(p[2] - 0) < 30;
+      }
+    return count;
+  };
+  EXPECT_GT(blue_near_top(1.0), 0);
+  EXPECT_EQ(blue_near_top(0.5), 0);
+  cairo_surface_destroy(img);
+}
+
+TEST(Figures, LightCurveOfAStarWithoutAPeriodIsRefused) {
+  test::TempDir dir;
+  LightCurveTables t = light_curve_inputs();
+  EXPECT_THROW(light_curve_figure(t, "NOT-THERE", FigureFormat::kPng, dir.file("x.png")), InputError);
+  EXPECT_FALSE(test::file_exists(dir.file("x.png")));
 }
 
 }  // namespace

@@ -88,4 +88,12 @@ std::string replaced(std::string text, const std::vector<std::pair<std::string, 
   return text;
 }
 
+std::vector<double> parse_numbers(const std::string& text) {
+  std::istringstream in(text);
+  std::vector<double> v;
+  double x;
+  while (in >> x) v.push_back(x);
+  return v;
+}
+
 }  // namespace rungcal::test

@@ -31,6 +31,9 @@ CommandResult run_stage(const std::string& stage, const std::string& args);
 // Runs Debian's Python (/usr/bin/python3) on an inline script with arguments.
 CommandResult run_python(const std::string& script, const std::vector<std::string>& args = {});
 
+// Every number in a whitespace-separated text (a Python script's printout).
+std::vector<double> parse_numbers(const std::string& text);
+
 void write_text(const std::string& path, const std::string& content);
 std::string read_text(const std::string& path);
 bool file_exists(const std::string& path);

@@ -13,6 +13,7 @@
 
 #include "rungcal/core/error.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/table_source.hpp"
 #include "rungcal/table/units.hpp"
 
 namespace rungcal {
@@ -243,15 +244,6 @@ void read_alias_table(const ConfigSection& root, const std::string& name, bool i
   }
 }
 
-bool has_fits_extension(const std::string& path) {
-  std::string p = path;
-  std::transform(p.begin(), p.end(), p.begin(), ::tolower);
-  for (const char* ext : {".fits", ".fit", ".fts", ".fits.gz", ".fit.gz"}) {
-    std::string e = ext;
-    if (p.size() >= e.size() && p.compare(p.size() - e.size(), e.size(), e) == 0) return true;
-  }
-  return false;
-}
 
 }  // namespace
 
@@ -293,26 +285,11 @@ IngestOptions ingest_options_from_config(Config& config) {
   auto source = root.section("source");
   if (!source)
     throw InputError({config.file(), {}, "source", "line", "key"}, "config_missing_key", "a [source] table is required");
-  o.input_path = config.resolve_path(source->require_string("path"));
-  std::string format = source->string_or("format", has_fits_extension(o.input_path) ? "fits" : "text");
-  if (format != "fits" && format != "text") source->fail("format", "must be \"fits\" or \"text\"");
-  o.input_is_fits = format == "fits";
-  if (source->has("hdu")) {
-    if (source->is_string("hdu")) o.hdu.name = *source->get_string("hdu");
-    else o.hdu.index = static_cast<int>(*source->get_integer("hdu"));
-    if (!o.input_is_fits) source->fail("hdu", "only FITS sources have HDUs");
-  }
-  if (auto d = source->get_string("delimiter")) {
-    auto parsed = kDelimiterNames.parse(*d);
-    if (!parsed) source->fail("delimiter", fmt::format("'{}' is not one of: {}", *d, kDelimiterNames.choices()));
-    o.text.delimiter = *parsed;
-  }
-  o.text.has_header = source->bool_or("header", true);
-  o.text.header_prefix = source->string_or("header_prefix", "");
-  o.text.comment_prefix = source->string_or("comment_prefix", "#");
-  o.text.skip_lines = static_cast<std::size_t>(source->integer_or("skip_lines", 0));
-  if (auto m = source->get_string_list("missing")) o.text.missing = *m;
-  if (auto names = source->get_string_list("column_names")) o.text.column_names = *names;
+  TableSourceSpec spec = table_source_from_section(config, *source);
+  o.input_path = spec.path;
+  o.input_is_fits = spec.is_fits;
+  o.hdu = spec.hdu;
+  o.text = spec.text;
 
   if (auto cols = root.section("columns")) {
     for (const auto& k : cols->keys()) {
@@ -374,6 +351,17 @@ IngestOptions ingest_options_from_config(Config& config) {
     }
     o.require_errors = v->bool_or("require_errors", o.require_errors);
   }
+  if (auto lc = root.section("lightcurves")) {
+    o.lightcurves.summary_path = config.resolve_path(lc->require_string("summary"));
+    std::string use = lc->string_or("use", "replace");
+    auto parsed = kJoinUseNames.parse(use);
+    if (!parsed) lc->fail("use", fmt::format("'{}' is not one of: {}", use, kJoinUseNames.choices()));
+    o.lightcurves.use = *parsed;
+    if (auto b = lc->get_string_list("bands")) o.lightcurves.bands = *b;
+    o.lightcurves.periods = lc->bool_or("periods", true);
+    o.lightcurves.warn_period_change = lc->number_or("warn_period_change", o.lightcurves.warn_period_change);
+    if (!(o.lightcurves.warn_period_change > 0)) lc->fail("warn_period_change", "must be positive");
+  }
   if (auto out = root.section("output")) {
     if (auto c = out->get_string("catalog")) o.catalog_path = config.resolve_path(*c);
     if (auto c = out->get_string("rejects_csv")) o.rejects_csv_path = config.resolve_path(*c);
@@ -405,6 +393,82 @@ StarTable IngestResult::rejects_table() const {
     t.column("message").push_text(r.message);
   }
   return t;
+}
+
+void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestResult& result) {
+  SourceTable lc = read_fits_table(join.summary_path, {"SUMMARY", 0});
+  const StarTable& s = lc.table;
+  for (const char* c : {"id", "period_d", "usable"})
+    if (!s.has(c)) throw InputError({join.summary_path, {}, c}, "missing_column", "not a rungcal-lightcurve summary (HDU SUMMARY)");
+  result.provenance.inputs.push_back({join.summary_path, sha256_file(join.summary_path), static_cast<std::int64_t>(s.rows())});
+  std::vector<std::string> bands = join.bands;
+  if (bands.empty())
+    for (const auto& name : s.column_names())
+      if (name.rfind("mag_err_", 0) == 0) bands.push_back(name.substr(8));
+  for (const auto& b : bands)
+    if (!s.has("mag_" + b) || !s.has("mag_err_" + b))
+      throw InputError({join.summary_path, {}, "mag_" + b}, "missing_column", fmt::format("[lightcurves] bands names {}, which the summary does not have", b));
+
+  std::unordered_map<std::string, std::size_t> lc_row;
+  for (std::size_t r = 0; r < s.rows(); ++r) lc_row.emplace(s.column("id").to_string(r), r);
+  // Bands the catalog lacks get columns of their own, and join the catalog's band list.
+  std::string band_list = std::get<std::string>(cat.keyword(key::kBands)->value);
+  for (const auto& b : bands)
+    if (!cat.has(magnitude_column(b))) {
+      cat.add_column(magnitude_column(b), ColumnType::kReal, "mag", "mean magnitude in " + b);
+      cat.add_column(magnitude_error_column(b), ColumnType::kReal, "mag", "error of mag_" + b);
+      band_list += (band_list.empty() ? "" : ",") + b;
+    }
+  cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
+  Column& origin = cat.add_column("period_origin", ColumnType::kText, "", "catalog or lightcurve");
+  if (join.periods && !cat.has("period_err_d"))
+    cat.add_column("period_err_d", ColumnType::kReal, "d", "period uncertainty");
+  const bool replace = join.use == JoinUse::kReplace;
+  std::size_t unmatched = 0;
+  for (std::size_t r = 0; r < cat.rows(); ++r) {
+    origin.text[r] = "catalog";
+    origin.null[r] = 0;
+    auto it = lc_row.find(cat.column(col::kId).text[r]);
+    if (it == lc_row.end()) {
+      ++unmatched;
+      continue;
+    }
+    const std::size_t k = it->second;
+    if (s.column("usable").is_null(k) || !s.column("usable").boolean[k]) continue;
+    Column& period = cat.column(col::kPeriod);
+    if (join.periods && (replace || period.is_null(r))) {
+      const double p_lc = s.column("period_d").real[k];
+      const double p_cat = period.real[r];
+      if (!period.is_null(r) && std::abs(p_lc / p_cat - 1) > join.warn_period_change)
+        spdlog::warn("{}: light-curve period {:.6f} d differs from the catalog's {:.6f} d by {:.2g}% (alias or a mode mix-up?)",
+                     cat.column(col::kId).text[r], p_lc, p_cat, 100 * std::abs(p_lc / p_cat - 1));
+      period.real[r] = p_lc;
+      period.null[r] = 0;
+      cat.column(col::kLogPeriod).real[r] = std::log10(p_lc);
+      cat.column(col::kLogPeriod).null[r] = 0;
+      if (s.has("period_err_d") && !s.column("period_err_d").is_null(k)) {
+        cat.column("period_err_d").real[r] = s.column("period_err_d").real[k];
+        cat.column("period_err_d").null[r] = 0;
+      }
+      origin.text[r] = "lightcurve";
+      ++result.periods_joined;
+    }
+    for (const auto& b : bands) {
+      const Column& m = s.column("mag_" + b);
+      const Column& e = s.column("mag_err_" + b);
+      if (m.is_null(k) || e.is_null(k)) continue;
+      Column& cm = cat.column(magnitude_column(b));
+      Column& ce = cat.column(magnitude_error_column(b));
+      if (!replace && !cm.is_null(r)) continue;
+      cm.real[r] = m.real[k];
+      cm.null[r] = 0;
+      ce.real[r] = e.real[k];
+      ce.null[r] = 0;
+      ++result.magnitudes_joined;
+    }
+  }
+  spdlog::info("light curves ({}): {} periods and {} band means joined; {} catalog stars have no light curve", join.summary_path,
+               result.periods_joined, result.magnitudes_joined, unmatched);
 }
 
 IngestResult run_ingest(const IngestOptions& o) {
@@ -588,8 +652,9 @@ IngestResult run_ingest(const IngestOptions& o) {
     std::string first = result.rejected.empty() ? "" : fmt::format(" (first: {} {}: [{}] {})", in.row_label, result.rejected[0].source_row, result.rejected[0].rule, result.rejected[0].message);
     throw InputError({o.input_path, {}, {}}, "no_rows_left", fmt::format("all {} rows were rejected{}", n, first));
   }
-  stamp_provenance(cat, result.provenance, "catalog");
   cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
+  if (!o.lightcurves.summary_path.empty()) join_lightcurve_summary(cat, o.lightcurves, result);
+  stamp_provenance(cat, result.provenance, "catalog");
   return result;
 }
 

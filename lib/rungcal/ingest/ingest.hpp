@@ -56,6 +56,23 @@ struct ExtraColumn {
   std::string unit;    // written as TUNIT
 };
 
+// How a light-curve summary (rungcal-lightcurve, HDU SUMMARY) is joined onto the catalog
+// by star id: its periods and intensity-mean magnitudes replace the catalog's, or only
+// fill the catalog's empty values. Only periods without a blocking flag are joined.
+enum class JoinUse { kReplace, kFill };
+inline constexpr EnumTable<JoinUse, 2> kJoinUseNames{{{
+    {JoinUse::kReplace, "replace"},
+    {JoinUse::kFill, "fill"},
+}}};
+
+struct LightCurveJoin {
+  std::string summary_path;         // "" = no join
+  JoinUse use = JoinUse::kReplace;  // replace catalog values, or fill empty ones only
+  std::vector<std::string> bands;   // bands whose means are joined; empty = every summary band
+  bool periods = true;              // join periods too (false: magnitudes only)
+  double warn_period_change = 0.01; // relative period change that is logged per star
+};
+
 struct IngestOptions {
   std::string input_path;             // catalog to read (FITS or delimited text)
   bool input_is_fits = false;         // chosen from [source] format or the file extension
@@ -72,6 +89,7 @@ struct IngestOptions {
   double ebv_min = -0.3;         // E(B-V) below this is an error, not noise (common practice)
   double ebv_max = 10.0;
   bool require_errors = true;    // a value without its error (magnitude, parallax) rejects the row
+  LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
   std::string catalog_path = "out/catalog.fits";   // the FITS catalog product
   std::string rejects_csv_path;  // human-readable rejects; "" = beside the catalog
   std::string config_file;       // for messages and provenance
@@ -97,11 +115,16 @@ struct RejectedRow {
 
 struct IngestResult {
   StarTable catalog;                  // canonical columns, one row per accepted star
+  std::size_t periods_joined = 0;     // stars whose period came from the light-curve summary
+  std::size_t magnitudes_joined = 0;  // band means taken from it
   std::vector<RejectedRow> rejected;  // in input order
   std::size_t rows_read = 0;
   Provenance provenance;
   StarTable rejects_table() const;
 };
+
+// Joins a light-curve summary onto an ingested catalog (adds a period_origin column).
+void join_lightcurve_summary(StarTable& catalog, const LightCurveJoin& join, IngestResult& result);
 
 // Reads, maps and validates; writes nothing. Throws InputError for whole-file problems.
 IngestResult run_ingest(const IngestOptions& options);

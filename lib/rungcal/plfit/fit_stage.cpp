@@ -15,6 +15,7 @@
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/simulate/random.hpp"
@@ -277,23 +278,17 @@ Eigen::MatrixXd parallel_bootstrap(const FitOptions& o, int P, const std::string
   const int B = o.bootstrap;
   Eigen::MatrixXd out = Eigen::MatrixXd::Constant(B, P, std::numeric_limits<double>::quiet_NaN());
   std::vector<char> ok(static_cast<std::size_t>(B), 0);
-  std::atomic<int> next{0};
   Progress progress("bootstrap " + label, static_cast<std::size_t>(B));
-  auto worker = [&] {
-    for (int b = next++; b < B; b = next++) {
-      Random rng(resample_seed(o.seed, b));
-      std::optional<Eigen::VectorXd> theta = solve(rng);
-      if (theta) {
-        out.row(b) = theta->transpose();
-        ok[static_cast<std::size_t>(b)] = 1;
-      }
-      progress.advance();
+  parallel_for(static_cast<std::size_t>(B), worker_threads(o.threads), [&](std::size_t i) {
+    const int b = static_cast<int>(i);
+    Random rng(resample_seed(o.seed, b));
+    std::optional<Eigen::VectorXd> theta = solve(rng);
+    if (theta) {
+      out.row(b) = theta->transpose();
+      ok[i] = 1;
     }
-  };
-  int threads = o.threads > 0 ? o.threads : static_cast<int>(std::max(1u, std::thread::hardware_concurrency()));
-  std::vector<std::thread> pool;
-  for (int t = 0; t < std::min(threads, B); ++t) pool.emplace_back(worker);
-  for (auto& t : pool) t.join();
+    progress.advance();
+  });
   progress.finish();
   failed = static_cast<int>(std::count(ok.begin(), ok.end(), 0));
   return out;

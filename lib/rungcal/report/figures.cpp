@@ -9,11 +9,13 @@
 #include <cmath>
 #include <limits>
 #include <memory>
+#include <utility>
 
 #include <fmt/format.h>
 
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/table/fits_io.hpp"
 
 namespace rungcal {
 namespace {
@@ -82,6 +84,18 @@ struct Panel {
   }
 };
 
+// Finishes the drawing and moves the file into place (nothing half-written on failure).
+void commit_figure(std::unique_ptr<Surface> surface, AtomicOutput& out, const std::string& path) {
+  finish_surface(*surface, path);
+  surface.reset();
+  out.commit();
+}
+
+void record_plot_box(FigureSummary& s, const Panel& p) {
+  s.box_left = p.left, s.box_right = p.right, s.box_top = p.top, s.box_bottom = p.bottom;
+  s.x_min = p.x0, s.x_max = p.x1, s.y_min = p.y0, s.y_max = p.y1;
+}
+
 void text(cairo_t* cr, double x, double y, const std::string& s, double size, double align_x, double align_y, bool vertical = false) {
   cairo_save(cr);
   cairo_set_font_size(cr, size);
@@ -106,13 +120,13 @@ void axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::str
     cairo_move_to(cr, p.px(x), p.bottom);
     cairo_line_to(cr, p.px(x), p.bottom - 6);
     cairo_stroke(cr);
-    if (x_numbers) text(cr, p.px(x), p.bottom + 6, fmt::format("{:g}", std::round(x / sx) * sx), 13, 0.5, 1.0);
+    if (x_numbers) text(cr, p.px(x), p.bottom + 6, fmt::format("{:g}", std::round(x / sx) * sx + 0.0), 13, 0.5, 1.0);
   }
   for (double y = std::ceil(std::min(p.y0, p.y1) / sy) * sy; y <= std::max(p.y0, p.y1) + 1e-9; y += sy) {
     cairo_move_to(cr, p.left, p.py(y));
     cairo_line_to(cr, p.left + 6, p.py(y));
     cairo_stroke(cr);
-    text(cr, p.left - 6, p.py(y), fmt::format("{:g}", std::round(y / sy) * sy), 13, 1.0, 0.5);
+    text(cr, p.left - 6, p.py(y), fmt::format("{:g}", std::round(y / sy) * sy + 0.0), 13, 1.0, 0.5);
   }
   if (!xlabel.empty()) text(cr, (p.left + p.right) / 2, p.bottom + 28, xlabel, 15, 0.5, 1.0);
   text(cr, p.left - 52, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true);
@@ -235,11 +249,8 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}   used: {}   rejected: {}", cal.label(), relation, s.used_points,
                                                     s.rejected_points),
        13, 0.0, 1.0);
-  finish_surface(*surface, path);
-  surface.reset();
-  out.commit();
-  s.box_left = top.left, s.box_right = top.right, s.box_top = top.top, s.box_bottom = top.bottom;
-  s.x_min = top.x0, s.x_max = top.x1, s.y_min = top.y0, s.y_max = top.y1;
+  commit_figure(std::move(surface), out, path);
+  record_plot_box(s, top);
   return s;
 }
 
@@ -292,15 +303,10 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
     cairo_stroke(cr);
     for (std::size_t i = 0; i < p.x.size(); ++i) marker(cr, panel.px(p.x[i]), panel.py(std::clamp(p.r[i], -4.4, 4.4)), p.used[i]);
     axes(cr, panel, p.label, "r / sigma");
-    if (k == 0) {
-      s.box_left = panel.left, s.box_right = panel.right, s.box_top = panel.top, s.box_bottom = panel.bottom;
-      s.x_min = panel.x0, s.x_max = panel.x1, s.y_min = panel.y0, s.y_max = panel.y1;
-    }
+    if (k == 0) record_plot_box(s, panel);
   }
   text(cr, 100, 40, fmt::format("{}  {}  residuals", cal.label(), relation), 13, 0.0, 1.0);
-  finish_surface(*surface, path);
-  surface.reset();
-  out.commit();
+  commit_figure(std::move(surface), out, path);
   return s;
 }
 
@@ -344,11 +350,174 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   axes(cr, top, "", "alpha (mag)", false, 1.0);
   axes(cr, bottom, "version", "parallax offset (micro-arcsec)", true, 1.0);  // versions are whole numbers
   text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}", versions.back().name(), relation), 13, 0.0, 1.0);
-  finish_surface(*surface, path);
-  surface.reset();
-  out.commit();
-  s.box_left = top.left, s.box_right = top.right, s.box_top = top.top, s.box_bottom = top.bottom;
-  s.x_min = x0, s.x_max = x1, s.y_min = a0, s.y_max = a1;
+  commit_figure(std::move(surface), out, path);
+  record_plot_box(s, top);
+  return s;
+}
+
+namespace {
+
+// Okabe & Ito colours and a shape per band, in the order bands appear.
+constexpr double kBandColours[][3] = {{0.0, 0.447, 0.698}, {0.835, 0.369, 0.0}, {0.0, 0.62, 0.451},
+                                      {0.8, 0.475, 0.655}, {0.902, 0.624, 0.0}, {0.337, 0.706, 0.914}};
+
+void band_marker(cairo_t* cr, double x, double y, std::size_t band) {
+  const double* c = kBandColours[band % 6];
+  cairo_set_source_rgb(cr, c[0], c[1], c[2]);
+  switch (band % 3) {
+    case 0: cairo_arc(cr, x, y, 3.2, 0, 2 * M_PI); cairo_fill(cr); break;
+    case 1: cairo_rectangle(cr, x - 3, y - 3, 6, 6); cairo_fill(cr); break;
+    default:
+      cairo_move_to(cr, x, y - 4);
+      cairo_line_to(cr, x + 3.6, y + 2.6);
+      cairo_line_to(cr, x - 3.6, y + 2.6);
+      cairo_close_path(cr);
+      cairo_fill(cr);
+  }
+}
+
+std::size_t row_of(const StarTable& t, const std::string& id) {
+  for (std::size_t i = 0; i < t.rows(); ++i)
+    if (t.column("id").text[i] == id) return i;
+  return t.rows();
+}
+
+}  // namespace
+
+LightCurveTables read_lightcurve_tables(const std::string& path) {
+  LightCurveTables t;
+  t.summary = read_fits_table(path, {"SUMMARY", 0}).table;
+  t.fourier = read_fits_table(path, {"FOURIER", 0}).table;
+  t.points = read_fits_table(path, {"POINTS", 0}).table;
+  t.periodogram = read_fits_table(path, {"PERIODOGRAM", 0}).table;
+  return t;
+}
+
+FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& star, FigureFormat format,
+                                 const std::string& path) {
+  const std::size_t row = row_of(lc.summary, star);
+  if (row == lc.summary.rows() || lc.summary.column("period_d").is_null(row))
+    throw InputError({path, {}, star, "row", "star"}, "no_rows_left", "the light-curve summary has no period for this star");
+  const double period = lc.summary.column("period_d").real[row];
+  const double frequency = 1.0 / period;
+  const double t_ref = lc.summary.column("t_ref").real[row];
+  const double phase_zero = (lc.summary.column("epoch_max").real[row] - t_ref) * frequency;
+
+  // Points and each band's Fourier coefficients.
+  std::vector<std::string> bands;
+  struct Obs { double phase, mag, err; std::size_t band; };
+  std::vector<Obs> obs;
+  auto band_index = [&](const std::string& b) {
+    auto it = std::find(bands.begin(), bands.end(), b);
+    if (it != bands.end()) return static_cast<std::size_t>(it - bands.begin());
+    bands.push_back(b);
+    return bands.size() - 1;
+  };
+  for (std::size_t i = 0; i < lc.points.rows(); ++i)
+    if (lc.points.column("id").text[i] == star)
+      obs.push_back({lc.points.column("phase").real[i], lc.points.column("mag").real[i], lc.points.column("mag_err").real[i],
+                     band_index(lc.points.column("band").text[i])});
+  std::vector<std::vector<std::pair<double, double>>> coef(bands.size());
+  for (std::size_t i = 0; i < lc.fourier.rows(); ++i) {
+    if (lc.fourier.column("id").text[i] != star) continue;
+    auto it = std::find(bands.begin(), bands.end(), lc.fourier.column("band").text[i]);
+    if (it == bands.end()) continue;
+    auto& c = coef[static_cast<std::size_t>(it - bands.begin())];
+    const auto k = static_cast<std::size_t>(lc.fourier.column("harmonic").integer[i]);
+    if (c.size() <= k) c.resize(k + 1);
+    c[k] = {lc.fourier.column("cos_coef").real[i], lc.fourier.column("sin_coef").real[i]};
+  }
+  if (obs.empty()) throw InputError({path, {}, star, "row", "star"}, "no_rows_left", "the light-curve product has no epochs for this star");
+  auto model = [&](std::size_t b, double phase) {
+    const double x = 2 * M_PI * (phase + phase_zero);
+    double m = coef[b].empty() ? NAN : coef[b][0].first;
+    for (std::size_t k = 1; k < coef[b].size(); ++k) {
+      const double kx = static_cast<double>(k) * x;
+      m += coef[b][k].first * std::cos(kx) + coef[b][k].second * std::sin(kx);
+    }
+    return m;
+  };
+
+  double ymin = 1e9, ymax = -1e9;
+  for (const auto& o : obs) ymin = std::min(ymin, o.mag - o.err), ymax = std::max(ymax, o.mag + o.err);
+  for (std::size_t b = 0; b < bands.size(); ++b)  // the model's extremes, which epochs may miss
+    for (int i = 0; i < 200 && !coef[b].empty(); ++i) ymin = std::min(ymin, model(b, i / 200.0)), ymax = std::max(ymax, model(b, i / 200.0));
+  const double pad = 0.06 * (ymax - ymin + 0.1);
+  std::vector<double> freq, power;
+  for (std::size_t i = 0; i < lc.periodogram.rows(); ++i)
+    if (lc.periodogram.column("id").text[i] == star) {
+      freq.push_back(lc.periodogram.column("frequency").real[i]);
+      power.push_back(lc.periodogram.column("power").real[i]);
+    }
+  const bool with_periodogram = !freq.empty();
+  Panel top{90, kWidth - 30, 40, with_periodogram ? 370.0 : 570.0, 0.0, 2.0, ymin - pad, ymax + pad, true};
+  AtomicOutput out(path);
+  auto surface = open_surface(format, out.temp_path());
+  cairo_t* cr = surface->cr;
+  FigureSummary s;
+  cairo_save(cr);
+  cairo_rectangle(cr, top.left, top.top, top.right - top.left, top.bottom - top.top);
+  cairo_clip(cr);
+  for (std::size_t b = 0; b < bands.size(); ++b) {
+    if (coef[b].empty()) continue;
+    const double* c = kBandColours[b % 6];
+    cairo_set_source_rgb(cr, c[0], c[1], c[2]);
+    cairo_set_line_width(cr, 1.6);
+    for (int i = 0; i <= 400; ++i) {
+      const double ph = 2.0 * i / 400;
+      i == 0 ? cairo_move_to(cr, top.px(ph), top.py(model(b, ph))) : cairo_line_to(cr, top.px(ph), top.py(model(b, ph)));
+    }
+    cairo_stroke(cr);
+  }
+  for (const auto& o : obs)
+    for (double shift : {0.0, 1.0}) {
+      cairo_set_source_rgba(cr, 0.35, 0.35, 0.35, 0.7);
+      cairo_set_line_width(cr, 0.8);
+      cairo_move_to(cr, top.px(o.phase + shift), top.py(o.mag - o.err));
+      cairo_line_to(cr, top.px(o.phase + shift), top.py(o.mag + o.err));
+      cairo_stroke(cr);
+      band_marker(cr, top.px(o.phase + shift), top.py(o.mag), o.band);
+    }
+  cairo_restore(cr);
+  s.used_points = static_cast<int>(obs.size());
+  axes(cr, top, "phase (maximum light at 0)", "magnitude");
+  // Legend: band names in their colour and shape, on white so data behind it stay apart.
+  cairo_set_source_rgba(cr, 1, 1, 1, 0.85);
+  cairo_rectangle(cr, top.right - 80, top.top + 4, 72, 18.0 * static_cast<double>(bands.size()) + 4);
+  cairo_fill(cr);
+  for (std::size_t b = 0; b < bands.size(); ++b) {
+    const double x = top.right - 70, y = top.top + 14 + 18.0 * static_cast<double>(b);
+    band_marker(cr, x, y, b);
+    text(cr, x + 10, y, bands[b], 13, 0.0, 0.5);
+  }
+  text(cr, top.left + 10, top.top - 26, fmt::format("{}   P = {:.6f} d", star, period), 14, 0.0, 1.0);
+
+  if (with_periodogram) {
+    // Power against period (log scale): a period is what a reader looks for.
+    double p0 = 1.0 / freq.back(), p1 = 1.0 / freq.front();
+    Panel bottom{90, kWidth - 30, 430, 580, std::log10(p0), std::log10(p1), 0.0, 1.0, false};
+    cairo_save(cr);
+    cairo_rectangle(cr, bottom.left, bottom.top, bottom.right - bottom.left, bottom.bottom - bottom.top);
+    cairo_clip(cr);
+    cairo_set_source_rgb(cr, kBandColours[0][0], kBandColours[0][1], kBandColours[0][2]);
+    cairo_set_line_width(cr, 0.7);
+    for (std::size_t i = 0; i < freq.size(); ++i) {
+      const double x = bottom.px(std::log10(1.0 / freq[i])), y = bottom.py(power[i]);
+      i == 0 ? cairo_move_to(cr, x, y) : cairo_line_to(cr, x, y);
+    }
+    cairo_stroke(cr);
+    cairo_set_source_rgb(cr, kBandColours[1][0], kBandColours[1][1], kBandColours[1][2]);
+    cairo_set_line_width(cr, 1.0);
+    const double dash[] = {4.0, 3.0};
+    cairo_set_dash(cr, dash, 2, 0);
+    cairo_move_to(cr, bottom.px(std::log10(period)), bottom.top);
+    cairo_line_to(cr, bottom.px(std::log10(period)), bottom.bottom);
+    cairo_stroke(cr);
+    cairo_restore(cr);
+    axes(cr, bottom, "log10 period (days)", "power");
+  }
+  commit_figure(std::move(surface), out, path);
+  record_plot_box(s, top);
   return s;
 }
 

@@ -7,6 +7,7 @@
 #include "rungcal/calibration/calibration.hpp"
 #include "rungcal/core/enum_table.hpp"
 #include "rungcal/table/star_table.hpp"
+#include "rungcal/table/source_table.hpp"
 
 namespace rungcal {
 
@@ -45,5 +46,19 @@ FigureSummary residual_trends(const Calibration& calibration, const std::string&
 // Zero point and parallax offset of a relation, version by version, with covariance errors.
 FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
                             const std::string& path);
+
+// The products of rungcal-lightcurve one figure needs (HDUs of its FITS file).
+struct LightCurveTables {
+  StarTable summary, fourier, points, periodogram;
+};
+// Reads SUMMARY, FOURIER, POINTS and PERIODOGRAM; throws InputError naming a missing HDU.
+LightCurveTables read_lightcurve_tables(const std::string& path);
+
+// One star's light curve: the epochs of every band against phase (two cycles, maximum light
+// of the star's first band at phase 0, magnitudes brighter up) with each band's Fourier
+// model, bands told apart by Okabe & Ito colours and by marker shape; below, the
+// periodogram against period with the adopted period marked (when it was kept).
+FigureSummary light_curve_figure(const LightCurveTables& tables, const std::string& star, FigureFormat format,
+                                 const std::string& path);
 
 }  // namespace rungcal

@@ -1,0 +1,54 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/table/table_source.hpp"
+
+#include <algorithm>
+
+#include <fmt/format.h>
+
+namespace rungcal {
+
+bool has_fits_extension(const std::string& path) {
+  std::string p = path;
+  std::transform(p.begin(), p.end(), p.begin(), ::tolower);
+  for (const char* ext : {".fits", ".fit", ".fts", ".fits.gz", ".fit.gz"}) {
+    std::string e = ext;
+    if (p.size() >= e.size() && p.compare(p.size() - e.size(), e.size(), e) == 0) return true;
+  }
+  return false;
+}
+
+TableSourceSpec table_source_from_section(const Config& config, const ConfigSection& source) {
+  TableSourceSpec o;
+  o.path = config.resolve_path(source.require_string("path"));
+  std::string format = source.string_or("format", has_fits_extension(o.path) ? "fits" : "text");
+  if (format != "fits" && format != "text") source.fail("format", "must be \"fits\" or \"text\"");
+  o.is_fits = format == "fits";
+  if (source.has("hdu")) {
+    if (source.is_string("hdu"))
+      o.hdu.name = *source.get_string("hdu");
+    else
+      o.hdu.index = static_cast<int>(*source.get_integer("hdu"));
+    if (!o.is_fits) source.fail("hdu", "only FITS sources have HDUs");
+  }
+  if (auto d = source.get_string("delimiter")) {
+    auto parsed = kDelimiterNames.parse(*d);
+    if (!parsed)
+      source.fail("delimiter",
+                  fmt::format("'{}' is not one of: {}", *d, kDelimiterNames.choices()));
+    o.text.delimiter = *parsed;
+  }
+  o.text.has_header = source.bool_or("header", true);
+  o.text.header_prefix = source.string_or("header_prefix", "");
+  o.text.comment_prefix = source.string_or("comment_prefix", "#");
+  o.text.skip_lines = static_cast<std::size_t>(source.integer_or("skip_lines", 0));
+  if (auto m = source.get_string_list("missing")) o.text.missing = *m;
+  if (auto names = source.get_string_list("column_names")) o.text.column_names = *names;
+  return o;
+}
+
+SourceTable read_table_source(const TableSourceSpec& spec) {
+  return spec.is_fits ? read_fits_table(spec.path, spec.hdu)
+                      : read_text_table(spec.path, spec.text);
+}
+
+}  // namespace rungcal
