@@ -24,8 +24,14 @@ std::string calibration_content_sha256(const nlohmann::json& fit, const std::str
   nlohmann::json f = fit;
   if (f.contains("provenance")) {
     f["provenance"].erase("created_utc");
+    // Input paths and byte hashes stay in the document for provenance but out of the
+    // content: an upstream product rewritten with the same numbers differs only in its
+    // DATE card, and must not make a new version.
     if (f["provenance"].contains("inputs"))
-      for (auto& in : f["provenance"]["inputs"]) in.erase("path");
+      for (auto& in : f["provenance"]["inputs"]) {
+        in.erase("path");
+        in.erase("sha256");
+      }
   }
   nlohmann::json c = {{"fit", f}, {"config_text", config_text}};
   return sha256_hex(c.dump());  // nlohmann::json keeps object keys sorted: a canonical form

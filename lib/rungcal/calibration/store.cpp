@@ -14,9 +14,11 @@
 #include <thread>
 
 #include <fmt/format.h>
+#include <spdlog/spdlog.h>
 
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_lock.hpp"
 #include "rungcal/core/fault.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/table/catalog_schema.hpp"
@@ -45,31 +47,6 @@ nlohmann::json read_json(const std::string& path) {
 
 std::string version_folder(int v) { return fmt::format("v{:04d}", v); }
 
-// An exclusive lock on a file, held for the object's life.
-class FileLock {
- public:
-  FileLock(const std::string& path, double wait_seconds) {
-    fd_ = ::open(path.c_str(), O_RDWR | O_CREAT | O_CLOEXEC, 0644);
-    if (fd_ < 0) throw InputError({path, {}, {}}, "write_failed", "cannot create the lock file");
-    auto deadline = std::chrono::steady_clock::now() + std::chrono::duration<double>(wait_seconds);
-    while (::flock(fd_, LOCK_EX | LOCK_NB) != 0) {
-      if (std::chrono::steady_clock::now() >= deadline) {
-        ::close(fd_);
-        throw BusyError(fmt::format("{}: another publisher holds the lock; gave up after {} s", path, wait_seconds));
-      }
-      std::this_thread::sleep_for(std::chrono::milliseconds(50));
-    }
-  }
-  ~FileLock() {
-    ::flock(fd_, LOCK_UN);
-    ::close(fd_);
-  }
-  FileLock(const FileLock&) = delete;
-  FileLock& operator=(const FileLock&) = delete;
-
- private:
-  int fd_ = -1;
-};
 
 std::optional<int> latest_version(const std::string& folder) {
   std::error_code ec;
@@ -79,6 +56,34 @@ std::optional<int> latest_version(const std::string& folder) {
   std::string t = target.filename().string();
   if (!std::regex_match(t, m, std::regex("v([0-9]{4,})"))) return std::nullopt;
   return std::stoi(m[1]);
+}
+
+constexpr const char* kPendingMarker = ".pending";
+
+// Points 'latest' at a version: a new link under a temporary name renamed over the old one.
+void point_latest_at(const fs::path& folder, int version) {
+  fs::path link_tmp = folder / fmt::format(".latest.tmp-{}", ::getpid());
+  fs::remove(link_tmp);
+  fs::create_directory_symlink(version_folder(version), link_tmp);
+  fault_point("publish_link_made");
+  if (::rename(link_tmp.c_str(), (folder / "latest").c_str()) != 0)
+    throw InputError({(folder / "latest").string(), {}, {}}, "write_failed", "cannot replace the latest link");
+  fsync_path(folder.string());
+}
+
+// A publisher killed after renaming its version into place but before moving 'latest'
+// left the marker: the version is whole, so 'latest' is pointed at it now.
+void complete_interrupted_publish(const fs::path& folder) {
+  const fs::path marker = folder / kPendingMarker;
+  if (!fs::exists(marker)) return;
+  const std::string name = read_all(marker.string());
+  std::smatch m;
+  if (std::regex_match(name, m, std::regex("v([0-9]{4,})")) && fs::exists(folder / name)) {
+    spdlog::warn("{}: completing an interrupted publish: 'latest' now points at {}", folder.string(), name);
+    point_latest_at(folder, std::stoi(m[1]));
+  }
+  fs::remove(marker);
+  fsync_path(folder.string());
 }
 
 nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& before) {
@@ -199,8 +204,9 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
 
   fs::path folder = fs::path(o.store) / o.name;
   ensure_parent_folder((folder / ".lock").string());
-  FileLock lock((folder / ".lock").string(), o.lock_wait_seconds);
+  FileLock lock((folder / ".lock").string(), o.lock_wait_seconds, "another publisher");
   fault_point("publish_locked");
+  complete_interrupted_publish(folder);
   // Leftovers of a publisher that died mid-way: never a version, safe to remove.
   for (const auto& e : fs::directory_iterator(folder)) {
     std::string n = e.path().filename().string();
@@ -252,16 +258,15 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
   fsync_path(tmp.string());
   fault_point("publish_version_built");
   fs::path final = folder / version_folder(version);
+  // Marks the window between the version's rename and the link's: a publisher killed in it
+  // left a whole version that 'latest' does not name yet, which the next one completes.
+  write_file_atomically((folder / kPendingMarker).string(), version_folder(version));
   if (::rename(tmp.c_str(), final.c_str()) != 0)
     throw InputError({final.string(), {}, {}}, "write_failed", "cannot move the new version into place");
   fsync_path(folder.string());
   fault_point("publish_version_renamed");
-  // Then point 'latest' at it: a new link under a temporary name renamed over the old one.
-  fs::path link_tmp = folder / fmt::format(".latest.tmp-{}", ::getpid());
-  fs::create_directory_symlink(version_folder(version), link_tmp);
-  fault_point("publish_link_made");
-  if (::rename(link_tmp.c_str(), (folder / "latest").c_str()) != 0)
-    throw InputError({(folder / "latest").string(), {}, {}}, "write_failed", "cannot replace the latest link");
+  point_latest_at(folder, version);
+  fs::remove(folder / kPendingMarker);
   fsync_path(folder.string());
   fault_point("publish_done");
   out.created = true;

@@ -6,6 +6,7 @@
 #include <vector>
 
 #include "rungcal/calibration/calibration.hpp"
+#include "rungcal/core/file_lock.hpp"  // BusyError
 
 namespace rungcal {
 
@@ -40,10 +41,5 @@ Calibration load_calibration(const std::string& store, const std::string& refere
 // Versions present in a store for a name, ascending.
 std::vector<int> calibration_versions(const std::string& store, const std::string& name);
 
-// Another process held the lock for longer than the wait (exit code 5, busy).
-class BusyError : public std::runtime_error {
- public:
-  using std::runtime_error::runtime_error;
-};
 
 }  // namespace rungcal

@@ -13,6 +13,7 @@ const char* exit_code_name(ExitCode code) {
     case ExitCode::kNothingToDo: return "nothing_to_do";
     case ExitCode::kDriftAlarm: return "drift_alarm";
     case ExitCode::kBusy: return "busy";
+    case ExitCode::kNewCalibration: return "new_calibration";
   }
   return "unknown";
 }

@@ -17,6 +17,7 @@ enum class ExitCode : int {
   kNothingToDo = 3,    // inputs unchanged since the last product; nothing was rewritten
   kDriftAlarm = 4,     // a new calibration moved beyond the configured alarm threshold
   kBusy = 5,           // another process holds the lock and the wait ran out
+  kNewCalibration = 6, // rungcal-run published a new calibration version (within the drift threshold)
 };
 
 // Short machine name of an exit code, as printed in logs ("bad_input").

@@ -5,6 +5,7 @@
 #include <unistd.h>
 
 #include <spdlog/sinks/basic_file_sink.h>
+#include <spdlog/sinks/rotating_file_sink.h>
 #include <spdlog/sinks/stdout_color_sinks.h>
 #include <spdlog/spdlog.h>
 
@@ -19,7 +20,8 @@ void keep_freed_memory_for_reuse() {
 
 bool stderr_is_terminal() { return ::isatty(STDERR_FILENO) == 1; }
 
-void setup_logging(const std::string& stage, Verbosity verbosity, const std::string& log_file) {
+void setup_logging(const std::string& stage, Verbosity verbosity, const std::string& log_file, std::size_t rotate_bytes,
+                   std::size_t rotate_files) {
   std::vector<spdlog::sink_ptr> sinks;
   auto console = std::make_shared<spdlog::sinks::stderr_color_sink_mt>();
   spdlog::level::level_enum level = stderr_is_terminal() ? spdlog::level::info : spdlog::level::warn;
@@ -29,7 +31,11 @@ void setup_logging(const std::string& stage, Verbosity verbosity, const std::str
   console->set_pattern("%^rungcal-" + stage + " %l:%$ %v");
   sinks.push_back(console);
   if (!log_file.empty()) {
-    auto file = std::make_shared<spdlog::sinks::basic_file_sink_mt>(log_file, false);
+    spdlog::sink_ptr file;
+    if (rotate_bytes > 0)
+      file = std::make_shared<spdlog::sinks::rotating_file_sink_mt>(log_file, rotate_bytes, rotate_files);
+    else
+      file = std::make_shared<spdlog::sinks::basic_file_sink_mt>(log_file, false);
     file->set_level(spdlog::level::debug);
     file->set_pattern("%Y-%m-%dT%H:%M:%S.%e %l rungcal-" + stage + ": %v");
     sinks.push_back(file);

@@ -1,6 +1,8 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/core/stage_main.hpp"
 
+#include "rungcal/core/file_lock.hpp"
+
 #include <spdlog/spdlog.h>
 
 namespace rungcal {
@@ -39,6 +41,9 @@ int run_stage(const std::string& stage, const std::function<ExitCode()>& body) {
   } catch (const InputError& e) {
     spdlog::error("{}", e.what());
     return static_cast<int>(ExitCode::kBadInput);
+  } catch (const BusyError& e) {
+    spdlog::error("{}", e.what());
+    return static_cast<int>(ExitCode::kBusy);
   } catch (const std::exception& e) {
     spdlog::critical("internal error in rungcal-{}: {} (please report this)", stage, e.what());
     return static_cast<int>(ExitCode::kInternalError);

@@ -21,7 +21,8 @@ struct CommonOptions {
 };
 
 // Runs a stage's body and turns its outcome into the documented exit code: InputError ->
-// 2 (bad_input) with its message, any other exception -> 1 (internal_error). The body
+// 2 (bad_input) with its message, BusyError -> 5 (busy), any other exception -> 1
+// (internal_error). The body
 // returns its own code for the other outcomes.
 int run_stage(const std::string& stage, const std::function<ExitCode()>& body);
 

@@ -1,0 +1,29 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+#include <vector>
+
+namespace rungcal {
+
+struct ReportOptions {
+  std::string store;                      // calibration store folder
+  std::vector<std::string> calibrations;  // "name@N" or "name@latest", side by side in this order
+  std::string out_dir = "out/report";     // folder for the tables and figures
+  std::string lightcurves;         // rungcal-lightcurve product ("" = no light-curve figures)
+  std::vector<std::string> stars;  // light curves to draw; empty = those with a kept periodogram
+
+  // "" when usable, else "field: rule".
+  std::string check() const;
+};
+
+struct ReportOutcome {
+  int tables = 0;
+  int figures = 0;
+};
+
+// Writes relations.{tex,csv,md}, the per-star appendix of the last version, the PL,
+// residual and version figures, and the light curves (docs/file-formats.md, "Paper tables").
+ReportOutcome write_report(const ReportOptions& options);
+
+}  // namespace rungcal

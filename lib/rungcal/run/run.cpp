@@ -1,0 +1,442 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/run/run.hpp"
+
+#include <cmath>
+#include <filesystem>
+#include <fstream>
+#include <functional>
+#include <set>
+#include <sstream>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+#include <nlohmann/json.hpp>
+
+#include "rungcal/calibration/apply.hpp"
+#include "rungcal/calibration/store.hpp"
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/fault.hpp"
+#include "rungcal/core/file_lock.hpp"
+#include "rungcal/core/provenance.hpp"
+#include "rungcal/core/version.hpp"
+#include "rungcal/deredden/deredden.hpp"
+#include "rungcal/ingest/ingest.hpp"
+#include "rungcal/lightcurve/lightcurve_stage.hpp"
+#include "rungcal/plfit/fit_stage.hpp"
+#include "rungcal/report/report.hpp"
+
+namespace fs = std::filesystem;
+
+namespace rungcal {
+namespace {
+
+constexpr int kStateSchemaVersion = 1;
+
+// One stage of the chain: what keys it, what it writes, how it runs.
+struct Stage {
+  std::string name;
+  std::string config;                // stage config file ("" = none)
+  std::vector<std::string> inputs;   // files whose bytes key the stage
+  std::string settings;              // overrides and choices that key it too
+  std::vector<std::string> outputs;  // files it writes (a missing one reruns it)
+  std::string output_folder;         // a folder whose every file is its product (report)
+  std::function<void()> run;
+  bool uses_calibration = false;  // keyed by the store's latest version too
+};
+
+std::string in_folder(const RunOptions& o, const std::string& name) {
+  return (fs::path(o.folder) / name).string();
+}
+
+// SHA-256 of everything that decides a stage's products.
+std::string stage_key(const Stage& s) {
+  std::string text = fmt::format("stage={}\nsoftware={} {}\nsettings={}\n", s.name,
+                                 software_version(), software_commit(), s.settings);
+  if (!s.config.empty()) text += fmt::format("config={} {}\n", s.config, sha256_file(s.config));
+  for (const auto& in : s.inputs)
+    text += fmt::format("input={} {}\n", in, fs::exists(in) ? sha256_file(in) : "missing");
+  return sha256_hex(text);
+}
+
+std::vector<std::string> products_of(const Stage& s) {
+  std::vector<std::string> out = s.outputs;
+  if (!s.output_folder.empty() && fs::exists(s.output_folder))
+    for (const auto& e : fs::directory_iterator(s.output_folder))
+      if (e.is_regular_file() && e.path().filename().string().rfind('.', 0) != 0)
+        out.push_back(e.path().string());
+  std::sort(out.begin(), out.end());
+  return out;
+}
+
+class RunState {
+ public:
+  explicit RunState(std::string path) : path_(std::move(path)) {
+    if (!fs::exists(path_)) return;
+    std::ifstream in(path_);
+    std::stringstream ss;
+    ss << in.rdbuf();
+    try {
+      state_ = nlohmann::json::parse(ss.str());
+    } catch (const nlohmann::json::parse_error& e) {
+      // Written atomically, so only a hand edit breaks it: start over rather than guess.
+      spdlog::warn("{}: unreadable run state ({}): every stage reruns", path_, e.what());
+      state_ = nlohmann::json::object();
+    }
+  }
+
+  // "" when the stage's record matches key and its products are all there unchanged, else
+  // the reason it must run.
+  std::string why_run(const Stage& s, const std::string& key) const {
+    if (!state_.contains("stages") || !state_["stages"].contains(s.name)) return "never ran here";
+    const auto& rec = state_["stages"][s.name];
+    if (rec.value("key", "") != key) return changed_part(s, rec);
+    for (const auto& [path, sha] : rec["outputs"].items()) {
+      if (!fs::exists(path)) return "product " + fs::path(path).filename().string() + " is missing";
+      if (sha256_file(path) != sha.get<std::string>())
+        return "product " + fs::path(path).filename().string() + " was changed";
+    }
+    return "";
+  }
+
+  void record(const Stage& s, const std::string& key) {
+    nlohmann::json rec;
+    rec["key"] = key;
+    rec["config_sha256"] = s.config.empty() ? "" : sha256_file(s.config);
+    rec["inputs"] = nlohmann::json::object();
+    for (const auto& in : s.inputs)
+      rec["inputs"][in] = fs::exists(in) ? sha256_file(in) : "missing";
+    rec["outputs"] = nlohmann::json::object();
+    for (const auto& out : products_of(s)) rec["outputs"][out] = sha256_file(out);
+    rec["finished_utc"] = utc_now_iso8601();
+    state_["schema"] = "rungcal-run-state";
+    state_["schema_version"] = kStateSchemaVersion;
+    state_["stages"][s.name] = rec;
+    write_file_atomically(path_, state_.dump(2) + "\n");
+  }
+
+ private:
+  // Names what differs from the record, for the log and --dry-run.
+  static std::string changed_part(const Stage& s, const nlohmann::json& rec) {
+    if (!s.config.empty() && rec.value("config_sha256", "") != sha256_file(s.config))
+      return "config changed";
+    for (const auto& in : s.inputs) {
+      const std::string now = fs::exists(in) ? sha256_file(in) : "missing";
+      if (!rec.contains("inputs") || !rec["inputs"].contains(in))
+        return "new input " + fs::path(in).filename().string();
+      if (rec["inputs"][in].get<std::string>() != now)
+        return "input " + fs::path(in).filename().string() + " changed";
+    }
+    return "software or settings changed";
+  }
+
+  std::string path_;
+  nlohmann::json state_ = nlohmann::json::object();
+};
+
+// The latest version's calibration.json, and the one before (what the report compares).
+std::vector<std::string> latest_versions(const RunOptions& o, std::size_t how_many) {
+  std::vector<int> v = calibration_versions(o.store, o.calibration);
+  std::vector<std::string> refs;
+  for (std::size_t i = v.size() > how_many ? v.size() - how_many : 0; i < v.size(); ++i)
+    refs.push_back(fmt::format("{}@{}", o.calibration, v[i]));
+  return refs;
+}
+
+std::string version_json(const RunOptions& o, const std::string& ref) {
+  const int v = std::stoi(ref.substr(ref.find('@') + 1));
+  return (fs::path(o.store) / o.calibration / fmt::format("v{:04d}", v) / "calibration.json")
+      .string();
+}
+
+}  // namespace
+
+std::string RunOptions::check() const {
+  if (folder.empty()) return "run.folder: required";
+  if (store.empty()) return "run.store: required";
+  if (calibration.empty())
+    return "run.calibration: required (the name versions are published under)";
+  if (ingest_config.empty()) return "ingest.config: required";
+  if (deredden_config.empty()) return "deredden.config: required";
+  if (fit_config.empty()) return "fit.config: required";
+  if (!(lock_wait_seconds >= 0)) return "run.lock_wait: must be 0 or more seconds";
+  if (!(drift_alarm_sigma > 0)) return "run.drift_alarm_sigma: must be positive";
+  if (!apply_relation.empty() && (targets_ingest_config.empty() || targets_deredden_config.empty()))
+    return "apply: relation needs targets_ingest and targets_deredden";
+  return "";
+}
+
+RunOptions run_options_from_file(const std::string& path) {
+  Config c = Config::from_file(path);
+  ConfigSection root = c.root();
+  RunOptions o;
+  o.config_file = path;
+  o.config_sha256 = c.sha256();
+  auto run = root.section("run");
+  if (!run)
+    throw InputError({path, {}, "run", "line", "key"}, "config_missing_key",
+                     "a [run] table is required");
+  o.folder = c.resolve_path(run->require_string("folder"));
+  o.store = run->has("store") ? c.resolve_path(*run->get_string("store"))
+                              : (fs::path(o.folder) / "store").string();
+  o.calibration = run->require_string("calibration");
+  o.lock_wait_seconds = run->number_or("lock_wait", o.lock_wait_seconds);
+  o.drift_alarm_sigma = run->number_or("drift_alarm_sigma", o.drift_alarm_sigma);
+  o.log_rotate_bytes = static_cast<std::size_t>(run->number_or("log_max_mb", 5.0) * (1 << 20));
+  o.log_files = static_cast<std::size_t>(run->integer_or("log_files", 5));
+  auto stage_config = [&](const char* name, std::string& out) {
+    if (auto s = root.section(name)) out = c.resolve_path(s->require_string("config"));
+  };
+  stage_config("lightcurve", o.lightcurve_config);
+  stage_config("ingest", o.ingest_config);
+  if (auto s = root.section("ingest"))
+    if (auto in = s->get_string("input")) o.ingest_input = c.resolve_path(*in);
+  stage_config("deredden", o.deredden_config);
+  stage_config("fit", o.fit_config);
+  if (auto s = root.section("fit"))
+    o.fit_bootstrap = static_cast<int>(s->integer_or("bootstrap", -1));
+  if (auto s = root.section("report")) o.report = s->bool_or("enabled", true);
+  if (auto s = root.section("apply")) {
+    o.apply_relation = s->require_string("relation");
+    o.targets_ingest_config = c.resolve_path(s->require_string("targets_ingest"));
+    o.targets_deredden_config = c.resolve_path(s->require_string("targets_deredden"));
+  }
+  c.check_unknown_keys();
+  throw_if_invalid(o.check(), path);
+  return o;
+}
+
+RunOutcome run_pipeline(const RunOptions& o) {
+  throw_if_invalid(o.check(), o.config_file);
+  fs::create_directories(o.folder);
+  // Every stage config is read (and checked) before anything runs or is locked: a typo
+  // stops the run at once, not halfway.
+  std::optional<LightCurveOptions> lc_opt;
+  if (!o.lightcurve_config.empty()) {
+    lc_opt = lightcurve_options_from_file(o.lightcurve_config);
+    lc_opt->output_path = in_folder(o, "lightcurves.fits");
+    lc_opt->summary_csv_path = in_folder(o, "lightcurves.csv");
+  }
+  IngestOptions ingest = ingest_options_from_file(o.ingest_config);
+  if (!o.ingest_input.empty()) ingest.input_path = o.ingest_input;
+  ingest.catalog_path = in_folder(o, "catalog.fits");
+  ingest.rejects_csv_path = in_folder(o, "catalog_rejects.csv");
+  if (lc_opt) ingest.lightcurves.summary_path = lc_opt->output_path;
+  DereddenOptions deredden = deredden_options_from_file(o.deredden_config);
+  deredden.input_path = ingest.catalog_path;
+  deredden.output_path = in_folder(o, "catalog_dereddened.fits");
+  FitOptions fit = fit_options_from_file(o.fit_config);
+  fit.input_path = deredden.output_path;
+  fit.output_path = in_folder(o, "fit.json");
+  fit.residuals_path = in_folder(o, "fit_residuals.fits");
+  if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap;
+  std::optional<IngestOptions> t_ingest;
+  std::optional<DereddenOptions> t_deredden;
+  if (!o.apply_relation.empty()) {
+    t_ingest = ingest_options_from_file(o.targets_ingest_config);
+    t_ingest->catalog_path = in_folder(o, "targets.fits");
+    t_ingest->rejects_csv_path = in_folder(o, "targets_rejects.csv");
+    t_deredden = deredden_options_from_file(o.targets_deredden_config);
+    t_deredden->input_path = t_ingest->catalog_path;
+    t_deredden->output_path = in_folder(o, "targets_dereddened.fits");
+  }
+
+  FileLock lock(in_folder(o, ".run.lock"), o.lock_wait_seconds, "another rungcal-run");
+  if (lock.waited()) spdlog::warn("started after waiting for another run to finish");
+  RunState state(in_folder(o, "run_state.json"));
+  RunOutcome outcome;
+  PublishOutcome published;
+  bool published_ran = false;
+
+  std::vector<Stage> stages;
+  if (lc_opt)
+    stages.push_back({"lightcurve",
+                      o.lightcurve_config,
+                      {lc_opt->source.path, lc_opt->bands_file},
+                      "",
+                      {lc_opt->output_path, lc_opt->summary_csv_path},
+                      "",
+                      [&] { write_lightcurve_products(run_lightcurves(*lc_opt), *lc_opt); }});
+  {
+    std::vector<std::string> in = {ingest.input_path};
+    if (lc_opt) in.push_back(lc_opt->output_path);
+    stages.push_back({"ingest",
+                      o.ingest_config,
+                      in,
+                      "",
+                      {ingest.catalog_path, ingest.rejects_csv_path},
+                      "",
+                      [&] { write_ingest_products(run_ingest(ingest), ingest); }});
+  }
+  stages.push_back({"deredden",
+                    o.deredden_config,
+                    {deredden.input_path, deredden.bands_file},
+                    "",
+                    {deredden.output_path},
+                    "",
+                    [&] { deredden_catalog_file(deredden); }});
+  stages.push_back({"fit",
+                    o.fit_config,
+                    {fit.input_path},
+                    fmt::format("bootstrap={}", fit.bootstrap),
+                    {fit.output_path, fit.residuals_path},
+                    "",
+                    [&] { spdlog::info("fit:\n{}", fit_summary(fit_catalog_file(fit))); }});
+  PublishOptions publish;
+  publish.store = o.store;
+  publish.name = o.calibration;
+  publish.fit_path = fit.output_path;
+  publish.residuals_path = fit.residuals_path;
+  publish.config_path = o.fit_config;
+  publish.lock_wait_seconds = o.lock_wait_seconds;
+  stages.push_back({"publish",
+                    "",
+                    {fit.output_path, fit.residuals_path, o.fit_config},
+                    "store=" + o.store + " name=" + o.calibration,
+                    {},
+                    "",
+                    [&] {
+                      published = publish_calibration(publish);
+                      published_ran = true;
+                    }});
+  ReportOptions report;
+  report.store = o.store;
+  report.out_dir = in_folder(o, "report");
+  report.lightcurves = lc_opt ? lc_opt->output_path : "";
+  if (o.report)
+    stages.push_back(
+        {"report", "", {}, "", {}, report.out_dir, [&] { write_report(report); }, true});
+  ApplyOptions apply;
+  if (t_ingest) {
+    stages.push_back({"targets_ingest",
+                      o.targets_ingest_config,
+                      {t_ingest->input_path},
+                      "",
+                      {t_ingest->catalog_path, t_ingest->rejects_csv_path},
+                      "",
+                      [&] { write_ingest_products(run_ingest(*t_ingest), *t_ingest); }});
+    stages.push_back({"targets_deredden",
+                      o.targets_deredden_config,
+                      {t_deredden->input_path, t_deredden->bands_file},
+                      "",
+                      {t_deredden->output_path},
+                      "",
+                      [&] { deredden_catalog_file(*t_deredden); }});
+    apply.store = o.store;
+    apply.relation = o.apply_relation;
+    apply.targets_path = t_deredden->output_path;
+    apply.output_path = in_folder(o, "distances.fits");
+    apply.csv_path = in_folder(o, "distances.csv");
+    stages.push_back({"apply",
+                      "",
+                      {t_deredden->output_path},
+                      "relation=" + o.apply_relation,
+                      {apply.output_path, apply.csv_path, in_folder(o, "distances_hosts.csv")},
+                      "",
+                      [&] { apply_calibration_files(apply); },
+                      true});
+  }
+
+  std::set<std::string> will_change;  // dry run: products the stages that would run rewrite
+  for (std::size_t i = 0; i < stages.size(); ++i) {
+    Stage& s = stages[i];
+    if (s.uses_calibration) {
+      std::vector<std::string> refs = latest_versions(o, 2);
+      if (refs.empty()) {
+        if (!o.dry_run) throw std::logic_error("no calibration in the store after publish");
+      } else {
+        report.calibrations = refs;
+        apply.calibration = refs.back();
+        s.inputs.push_back(version_json(o, refs.back()));
+        if (s.name == "report") {
+          if (refs.size() > 1) s.inputs.push_back(version_json(o, refs.front()));
+          if (lc_opt) s.inputs.push_back(lc_opt->output_path);
+        }
+      }
+    }
+    const std::string key = stage_key(s);
+    std::string why = o.force ? "forced" : state.why_run(s, key);
+    if (why.empty() && o.dry_run) {
+      // A dry run cannot see the new products: a stage reruns when an input of it would change.
+      for (const auto& in : s.inputs)
+        if (will_change.count(in)) why = fs::path(in).filename().string() + " would change";
+      if (s.uses_calibration && will_change.count(o.store)) why = "a new version may be published";
+    }
+    StageReport rep{s.name, !why.empty(), why.empty() ? "up to date" : why};
+    if (o.dry_run) {
+      spdlog::info("{}: {}", s.name, rep.ran ? "would run (" + why + ")" : "up to date");
+      if (rep.ran) {
+        will_change.insert(s.outputs.begin(), s.outputs.end());
+        if (s.name == "publish") will_change.insert(o.store);
+      }
+      outcome.stages.push_back(rep);
+      continue;
+    }
+    if (!rep.ran) {
+      spdlog::info("{}: up to date, skipped", s.name);
+      outcome.stages.push_back(rep);
+      continue;
+    }
+    spdlog::info("{}: running ({})", s.name, why);
+    s.run();
+    fault_point(("run_after_" + s.name).c_str());
+    state.record(s, stage_key(s));
+    outcome.stages.push_back(rep);
+  }
+
+  // The outcome and its exit code.
+  std::vector<std::string> ran, skipped;
+  for (const auto& r : outcome.stages) (r.ran ? ran : skipped).push_back(r.name);
+  std::vector<int> versions = calibration_versions(o.store, o.calibration);
+  outcome.version = versions.empty() ? 0 : versions.back();
+  if (published_ran && published.created) {
+    outcome.new_version = true;
+    for (const auto& [relation, params] : published.shifts.items())
+      for (const auto& [name, sh] : params.items()) {
+        if (sh["shift_in_sigma"].is_null()) continue;
+        const double sigma = sh["shift_in_sigma"].get<double>();
+        spdlog::info("shift {} {}: {:+.5f} ({:+.2f} sigma)", relation, name,
+                     sh["shift"].get<double>(), sigma);
+        if (std::abs(sigma) > std::abs(outcome.max_shift_sigma)) {
+          outcome.max_shift_sigma = sigma;
+          outcome.max_shift_parameter = relation + " " + name;
+        }
+      }
+  }
+  auto join = [](const std::vector<std::string>& v) {
+    std::string s;
+    for (const auto& x : v) s += (s.empty() ? "" : ", ") + x;
+    return s.empty() ? std::string("none") : s;
+  };
+  const std::string label = fmt::format("{}@{}", o.calibration, outcome.version);
+  if (o.dry_run) {
+    outcome.code = ran.empty() ? ExitCode::kNothingToDo : ExitCode::kSuccess;
+    outcome.summary = fmt::format("rungcal-run (dry run): would run {}; up to date: {}", join(ran),
+                                  join(skipped));
+  } else if (ran.empty()) {
+    outcome.code = ExitCode::kNothingToDo;
+    outcome.summary = fmt::format("rungcal-run: nothing changed; {} stands",
+                                  outcome.version ? label : "no calibration");
+  } else if (outcome.new_version && std::abs(outcome.max_shift_sigma) > o.drift_alarm_sigma) {
+    outcome.code = ExitCode::kDriftAlarm;
+    outcome.summary = fmt::format(
+        "rungcal-run: DRIFT ALARM: new {} moves {} by {:+.2f} sigma (threshold {}); ran {}", label,
+        outcome.max_shift_parameter, outcome.max_shift_sigma, o.drift_alarm_sigma, join(ran));
+  } else if (outcome.new_version) {
+    outcome.code = ExitCode::kNewCalibration;
+    const std::string shift =
+        outcome.max_shift_parameter.empty()
+            ? std::string("the first version")
+            : fmt::format("largest shift {} {:+.2f} sigma", outcome.max_shift_parameter,
+                          outcome.max_shift_sigma);
+    outcome.summary =
+        fmt::format("rungcal-run: new calibration {} ({}); ran {}", label, shift, join(ran));
+  } else {
+    outcome.code = ExitCode::kSuccess;
+    outcome.summary =
+        fmt::format("rungcal-run: ran {}; the calibration is unchanged ({})", join(ran), label);
+  }
+  return outcome;
+}
+
+}  // namespace rungcal

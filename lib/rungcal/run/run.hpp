@@ -1,0 +1,71 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <map>
+#include <string>
+#include <vector>
+
+#include "rungcal/core/error.hpp"
+
+namespace rungcal {
+
+// One pipeline config (docs/operations.md): which stages run, with which configs, into which
+// run folder, publishing to which store.
+struct RunOptions {
+  std::string config_file;  // the pipeline config, for messages
+  std::string config_sha256;
+  std::string folder;              // run folder: stage products, run_state.json, logs/
+  std::string store;               // calibration store (default: folder/store)
+  std::string calibration;         // calibration name published to
+  double lock_wait_seconds = 600;  // wait this long for another run, then exit 5 (busy)
+  double drift_alarm_sigma = 3.0;  // a new version moving any parameter more than this: exit 4
+  std::size_t log_rotate_bytes = 5u << 20;  // rotating log in folder/logs/rungcal-run.log
+  std::size_t log_files = 5;
+
+  // Stage configs ("" = the stage is not run). ingest, deredden and fit are required.
+  std::string lightcurve_config;
+  std::string ingest_config;
+  std::string ingest_input;  // overrides the ingest config's [source] path
+  std::string deredden_config;
+  std::string fit_config;
+  int fit_bootstrap = -1;      // overrides the fit config's bootstrap (-1: keep)
+  bool report = true;          // tables and figures of the latest version (and the one before)
+  std::string apply_relation;  // "" = no distances
+  std::string targets_ingest_config;
+  std::string targets_deredden_config;
+
+  bool dry_run = false;  // say what would run and why; run nothing
+  bool force = false;    // run every stage whatever changed
+
+  // "" when usable, else "field: rule".
+  std::string check() const;
+};
+
+// Reads a pipeline config ([run], [lightcurve], [ingest], [deredden], [fit], [report],
+// [apply]); unknown keys stop with rule "unknown_config_key".
+RunOptions run_options_from_file(const std::string& path);
+
+// What happened to one stage.
+struct StageReport {
+  std::string name;
+  bool ran = false;
+  std::string reason;  // why it ran ("config changed", "input ... changed", ...) or "up to date"
+};
+
+struct RunOutcome {
+  ExitCode code = ExitCode::kSuccess;
+  std::vector<StageReport> stages;
+  bool new_version = false;
+  int version = 0;                  // the latest version after the run (0 = none)
+  double max_shift_sigma = 0;       // largest |shift| / combined sigma of the new version
+  std::string max_shift_parameter;  // "relation parameter" of that shift
+  std::string summary;              // one line for cron mail
+};
+
+// Runs the chain in order, each stage only when the hash of its config and inputs changed
+// (or its products are missing), under an exclusive lock on the run folder. Stage products
+// are written atomically and the run state after each stage, so a killed run loses at most
+// the stage it was in. Throws InputError (bad input, exit 2) and BusyError (exit 5).
+RunOutcome run_pipeline(const RunOptions& options);
+
+}  // namespace rungcal

@@ -1,0 +1,334 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/run (rungcal-run): skipping what has not changed, rerunning what
+// has, the lock between runs, SIGKILL at any point, the drift alarm and the exit codes.
+// The data are the demo's simulated calibrators (known truth).
+#include <fcntl.h>
+#include <gtest/gtest.h>
+#include <signal.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <chrono>
+#include <filesystem>
+#include <fstream>
+#include <thread>
+
+#include <fmt/format.h>
+#include <nlohmann/json.hpp>
+
+#include "rungcal/calibration/store.hpp"
+#include "rungcal/core/provenance.hpp"
+#include "rungcal/simulate/random.hpp"
+#include "rungcal/table/fits_io.hpp"
+#include "test_util.hpp"
+
+namespace fs = std::filesystem;
+
+namespace rungcal {
+namespace {
+
+// A pipeline config over the demo's stage configs, writing into dir, reading the calibrator
+// catalog from dir/incoming.fits.
+std::string pipeline_config(const test::TempDir& dir, const std::string& run_extra = "",
+                            int bootstrap = 0, bool with_lightcurves = true) {
+  const std::string demo = test::source_file("config/demo");
+  std::string text = fmt::format(R"([run]
+folder = "{0}/run"
+calibration = "test-cal"
+{1}
+[ingest]
+config = "{2}/ingest.toml"
+input = "{0}/incoming.fits"
+[deredden]
+config = "{2}/deredden.toml"
+[fit]
+config = "{2}/fit.toml"
+bootstrap = {3}
+[report]
+enabled = false
+)",
+                                 dir.path(), run_extra, demo, bootstrap);
+  if (with_lightcurves)
+    text += fmt::format("[lightcurve]\nconfig = \"{}/lightcurve.toml\"\n", demo);
+  return text;
+}
+
+void stage_catalog(const test::TempDir& dir,
+                   const std::string& source = "sample_data/calibrators.fits") {
+  fs::copy_file(test::source_file(source), dir.file("incoming.fits"),
+                fs::copy_options::overwrite_existing);
+}
+
+// Rewrites the incoming catalog with edit(table) applied to its STARS table.
+template <typename Edit>
+void edit_catalog(const test::TempDir& dir, Edit&& edit) {
+  SourceTable t = read_fits_table(dir.file("incoming.fits"), {"STARS", 0});
+  edit(t.table);
+  write_fits_tables(dir.file("incoming.fits"), {{"STARS", &t.table}});
+}
+
+test::CommandResult run(const test::TempDir& dir, const std::string& args = "") {
+  return test::run_stage("run", "--config " + dir.file("pipeline.toml") + " " + args);
+}
+
+bool ran(const std::string& output, const std::string& stage) {
+  return output.find("ran ") != std::string::npos &&
+         output.substr(output.find("ran ")).find(stage) != std::string::npos;
+}
+
+// Every version folder is whole: its JSON parses and names its own version; latest points
+// at the newest.
+void expect_store_intact(const std::string& store, const std::string& name) {
+  const fs::path folder = fs::path(store) / name;
+  if (!fs::exists(folder)) return;
+  std::vector<int> versions = calibration_versions(store, name);
+  for (int v : versions) {
+    const fs::path dir = folder / fmt::format("v{:04d}", v);
+    ASSERT_TRUE(fs::exists(dir / "calibration.json")) << dir;
+    ASSERT_TRUE(fs::exists(dir / "calibration.fits")) << dir;
+    nlohmann::json j = nlohmann::json::parse(test::read_text((dir / "calibration.json").string()));
+    EXPECT_EQ(j.at("version").get<int>(), v);
+  }
+  for (const auto& e : fs::directory_iterator(folder)) {
+    // A publisher killed mid-way leaves .vNNNN.tmp-PID or .latest.tmp-PID: never a version,
+    // removed by the next publish.
+    const std::string n = e.path().filename().string();
+    const bool leftover = (n.rfind(".v", 0) == 0 || n.rfind(".latest", 0) == 0) &&
+                          n.find(".tmp-") != std::string::npos;
+    EXPECT_TRUE(n == "latest" || n == ".lock" || n == ".pending" || n.rfind('v', 0) == 0 ||
+                leftover)
+        << "stray entry " << n;
+    EXPECT_EQ(n.find(".part"), std::string::npos) << n;
+  }
+  // 'latest' names the newest version, except in the moment between a version's rename and
+  // the link's, which the .pending marker records and the next publish completes.
+  if (!versions.empty() && !fs::exists(folder / ".pending")) {
+    EXPECT_EQ(load_calibration(store, name + "@latest").version(), versions.back());
+  }
+}
+
+TEST(Run, SecondRunWithNothingChangedDoesNoStageAndExits3) {
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir));
+  auto first = run(dir);
+  ASSERT_EQ(first.exit_code, 6) << first.output;  // a new calibration
+  EXPECT_NE(first.output.find("new calibration test-cal@1"), std::string::npos) << first.output;
+  const std::string state = test::read_text(dir.file("run/run_state.json"));
+  auto second = run(dir);
+  EXPECT_EQ(second.exit_code, 3) << second.output;
+  EXPECT_NE(second.output.find("nothing changed"), std::string::npos) << second.output;
+  EXPECT_EQ(test::read_text(dir.file("run/run_state.json")), state);  // nothing rewritten
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), std::vector<int>{1});
+  const std::string log = test::read_text(dir.file("run/logs/rungcal-run.log"));
+  EXPECT_NE(log.find("fit: up to date, skipped"), std::string::npos);
+}
+
+TEST(Run, ANewParallaxRerunsOnlyTheStagesItReachesAndPublishesWithTheDiffInTheLog) {
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir));
+  ASSERT_EQ(run(dir).exit_code, 6);
+  edit_catalog(dir, [](StarTable& t) { t.column("PLX").real[4] += 0.05; });
+  auto dry = run(dir, "--dry-run");
+  EXPECT_EQ(dry.exit_code, 0) << dry.output;
+  EXPECT_NE(dry.output.find("would run ingest, deredden, fit, publish; up to date: lightcurve"),
+            std::string::npos)
+      << dry.output;
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"),
+            std::vector<int>{1});  // a dry run writes nothing
+  auto second = run(dir);
+  EXPECT_EQ(second.exit_code, 6) << second.output;
+  EXPECT_TRUE(ran(second.output, "ingest") && ran(second.output, "fit") &&
+              ran(second.output, "publish"))
+      << second.output;
+  EXPECT_FALSE(ran(second.output, "lightcurve")) << second.output;
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), (std::vector<int>{1, 2}));
+  const std::string log = test::read_text(dir.file("run/logs/rungcal-run.log"));
+  EXPECT_NE(log.find("ingest: running (input incoming.fits changed)"), std::string::npos);
+  EXPECT_NE(log.find("shift W_VI alpha"), std::string::npos);
+  expect_store_intact(dir.file("run/store"), "test-cal");
+}
+
+TEST(Run, RerunWithTheSameInputsGivesByteIdenticalCalibrationContent) {
+  // --force reruns every stage: the fit is deterministic, so publish finds the content equal
+  // to the latest version and makes none (exit 0: ran, calibration unchanged).
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 50));
+  ASSERT_EQ(run(dir).exit_code, 6);
+  const std::string fit_first = test::read_text(dir.file("run/fit.json"));
+  auto again = run(dir, "--force");
+  EXPECT_EQ(again.exit_code, 0) << again.output;
+  EXPECT_NE(again.output.find("unchanged"), std::string::npos) << again.output;
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), std::vector<int>{1});
+  // The fit result is the same but for its time and the byte hash of its input, whose
+  // FITS header carries the time it was written.
+  auto without_time = [](const std::string& text) {
+    nlohmann::json j = nlohmann::json::parse(text);
+    j["provenance"].erase("created_utc");
+    for (auto& in : j["provenance"]["inputs"]) in.erase("sha256");
+    return j.dump();
+  };
+  EXPECT_TRUE(without_time(test::read_text(dir.file("run/fit.json"))) == without_time(fit_first));
+}
+
+TEST(Run, DriftAlarmFiresOnAShiftedInputAndNotOnAnUnchangedOne) {
+  // Every parallax 0.1 mas larger: the fitted offset moves by ~10 of its sigmas.
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"),
+                   pipeline_config(dir, "drift_alarm_sigma = 3.0", 0, false));
+  ASSERT_EQ(run(dir).exit_code, 6);
+  EXPECT_EQ(run(dir).exit_code, 3);  // unchanged: no alarm
+  edit_catalog(dir, [](StarTable& t) {
+    for (double& p : t.column("PLX").real) p += 0.1;
+  });
+  auto shifted = run(dir);
+  EXPECT_EQ(shifted.exit_code, 4) << shifted.output;
+  EXPECT_NE(shifted.output.find("DRIFT ALARM"), std::string::npos) << shifted.output;
+  EXPECT_NE(shifted.output.find("parallax_offset_mas"), std::string::npos) << shifted.output;
+  // The alarm does not hold the version back: it is published, and said loudly.
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), (std::vector<int>{1, 2}));
+}
+
+TEST(Run, TwoRunsAtOnceOneWaitsOrRefusesAndBothSaySo) {
+  test::TempDir dir;
+  stage_catalog(dir);
+  // A slow first run (bootstrap) holds the lock; a second with no patience refuses (exit 5),
+  // a third with patience waits and then finds nothing to do.
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 300, false));
+  test::write_text(dir.file("impatient.toml"), pipeline_config(dir, "lock_wait = 0", 300, false));
+  const std::string bin = std::string(RUNGCAL_BIN_DIR) + "/rungcal-run";
+  auto start = [&](const std::string& cfg, const std::string& out) {
+    pid_t pid = fork();
+    if (pid == 0) {
+      const std::string cmd = bin + " --config " + cfg + " > " + out + " 2>&1";
+      execl("/bin/sh", "sh", "-c", cmd.c_str(), static_cast<char*>(nullptr));
+      _exit(127);
+    }
+    return pid;
+  };
+  auto wait_exit = [](pid_t pid) {
+    int status = 0;
+    waitpid(pid, &status, 0);
+    return WIFEXITED(status) ? WEXITSTATUS(status) : -1;
+  };
+  pid_t first = start(dir.file("pipeline.toml"), dir.file("first.out"));
+  // Wait until the first run holds the lock (its log exists), then start the others.
+  for (int i = 0; i < 200 && !fs::exists(dir.file("run/logs/rungcal-run.log")); ++i)
+    std::this_thread::sleep_for(std::chrono::milliseconds(10));
+  std::this_thread::sleep_for(std::chrono::milliseconds(100));
+  pid_t impatient = start(dir.file("impatient.toml"), dir.file("impatient.out"));
+  pid_t patient = start(dir.file("pipeline.toml"), dir.file("patient.out"));
+  const int rc_impatient = wait_exit(impatient), rc_first = wait_exit(first),
+            rc_patient = wait_exit(patient);
+  EXPECT_EQ(rc_first, 6) << test::read_text(dir.file("first.out"));
+  EXPECT_EQ(rc_impatient, 5) << test::read_text(dir.file("impatient.out"));
+  EXPECT_NE(test::read_text(dir.file("impatient.out")).find("another rungcal-run holds the lock"),
+            std::string::npos);
+  EXPECT_EQ(rc_patient, 3) << test::read_text(dir.file("patient.out"));
+  EXPECT_NE(test::read_text(dir.file("patient.out")).find("waiting up to"), std::string::npos);
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), std::vector<int>{1});
+  expect_store_intact(dir.file("run/store"), "test-cal");
+}
+
+// Kills a run with SIGKILL `after` into it; returns true when it was still running then.
+bool run_and_kill(const std::string& config, std::chrono::milliseconds after) {
+  const std::string bin = std::string(RUNGCAL_BIN_DIR) + "/rungcal-run";
+  pid_t pid = fork();
+  if (pid == 0) {
+    const int null_fd = ::open("/dev/null", O_WRONLY);
+    dup2(null_fd, 1);
+    dup2(null_fd, 2);
+    execl(bin.c_str(), bin.c_str(), "--config", config.c_str(), static_cast<char*>(nullptr));
+    _exit(127);
+  }
+  std::this_thread::sleep_for(after);
+  const bool alive = ::kill(pid, SIGKILL) == 0;
+  int status = 0;
+  waitpid(pid, &status, 0);
+  return alive && WIFSIGNALED(status);
+}
+
+TEST(Run, SigkillAtRandomMomentsLeavesOnlyWholeVersionsAndTheNextRunFinishes) {
+  // 24 kills at moments drawn over a full run's length (seeded), alternating between an
+  // unchanged and a changed input so some kills land inside fit and publish; after each,
+  // the store holds only whole versions; at the end an unkilled run completes the work.
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 100));
+  auto t0 = std::chrono::steady_clock::now();
+  ASSERT_EQ(run(dir).exit_code, 6);
+  const double full_ms =
+      std::chrono::duration<double, std::milli>(std::chrono::steady_clock::now() - t0).count();
+  Random rng(20261202);
+  int killed = 0;
+  for (int k = 0; k < 24; ++k) {
+    edit_catalog(dir, [&](StarTable& t) { t.column("PLX").real[7] += (k % 2 ? -0.01 : 0.01); });
+    const auto after =
+        std::chrono::milliseconds(static_cast<int>(rng.uniform(0.02, 0.9) * full_ms));
+    killed += run_and_kill(dir.file("pipeline.toml"), after);
+    expect_store_intact(dir.file("run/store"), "test-cal");
+  }
+  // Most kills land while the run is still going (under load the runs are slower, not
+  // faster, than the timed one); the few that come after the end test a finished run.
+  EXPECT_GE(killed, 8);
+  auto finish = run(dir);
+  EXPECT_TRUE(finish.exit_code == 6 || finish.exit_code == 0 || finish.exit_code == 3)
+      << finish.output;
+  EXPECT_EQ(run(dir).exit_code, 3);  // and then all is up to date
+  expect_store_intact(dir.file("run/store"), "test-cal");
+  // The run state records the input now in place: the last fit used the last edit.
+  const std::string incoming_sha = sha256_file(dir.file("incoming.fits"));
+  EXPECT_NE(test::read_text(dir.file("run/run_state.json")).find(incoming_sha), std::string::npos);
+}
+
+TEST(Run, KilledAfterEachStageTheNextRunPicksUpWhereItStopped) {
+  // Deterministic kill points (RUNGCAL_FAULT_AT): right after each stage's products, before
+  // the run state records them, and inside publish at each of its steps.
+  const char* points[] = {"run_after_lightcurve",    "run_after_ingest",
+                          "run_after_deredden",      "run_after_fit",
+                          "run_after_publish",       "publish_locked",
+                          "publish_json_written",    "publish_version_built",
+                          "publish_version_renamed", "publish_link_made"};
+  for (const char* point : points) {
+    test::TempDir dir;
+    stage_catalog(dir);
+    test::write_text(dir.file("pipeline.toml"), pipeline_config(dir));
+    auto killed =
+        test::run_command(std::string("RUNGCAL_FAULT_AT=") + point + " " + RUNGCAL_BIN_DIR +
+                          "/rungcal-run --config " + dir.file("pipeline.toml") + " 2>&1");
+    EXPECT_EQ(killed.exit_code, 128 + SIGKILL) << point << ": " << killed.output;
+    expect_store_intact(dir.file("run/store"), "test-cal");
+    auto next = run(dir);
+    // A version made by the killed run is found, not made twice.
+    EXPECT_TRUE(next.exit_code == 6 || next.exit_code == 0) << point << ": " << next.output;
+    EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), std::vector<int>{1})
+        << point;
+    EXPECT_EQ(run(dir).exit_code, 3) << point;
+  }
+}
+
+TEST(Run, BadPipelineConfigStopsBeforeAnythingIsWritten) {
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "drift_alarm_sigmaa = 2"));
+  auto r = run(dir);
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("[unknown_config_key]"), std::string::npos) << r.output;
+  EXPECT_FALSE(fs::exists(dir.file("run")));
+  // A broken stage config stops the run before any stage runs, naming that file.
+  test::write_text(dir.file("fit_bad.toml"), "[fit]\ninput = \"x.fits\"\nloss = \"quadratic\"\n");
+  std::string cfg = pipeline_config(dir);
+  cfg.replace(cfg.find(test::source_file("config/demo") + "/fit.toml"),
+              (test::source_file("config/demo") + "/fit.toml").size(), dir.file("fit_bad.toml"));
+  test::write_text(dir.file("pipeline.toml"), cfg);
+  r = run(dir);
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("fit_bad.toml"), std::string::npos) << r.output;
+  EXPECT_FALSE(fs::exists(dir.file("run/catalog.fits")));
+}
+
+}  // namespace
+}  // namespace rungcal
