@@ -11,7 +11,7 @@ build_pkgs=(g++ cmake make pkg-config git libceres-dev libeigen3-dev libccfits-d
   libcfitsio-dev libspdlog-dev libfmt-dev libgtest-dev libgmock-dev libcli11-dev
   libtomlplusplus-dev nlohmann-json3-dev libssl-dev libcairo2-dev fonts-dejavu-core)
 test_pkgs=(python3 python3-numpy python3-astropy python3-scipy python3-extinction
-  python3-statsmodels)
+  python3-statsmodels clang)
 
 pkgs=("${build_pkgs[@]}")
 [ "$mode" = test ] && pkgs+=("${test_pkgs[@]}")
@@ -25,4 +25,14 @@ if [ ${#missing[@]} -gt 0 ]; then
   export DEBIAN_FRONTEND=noninteractive
   apt-get update -qq
   apt-get install -y -qq --no-install-recommends "${missing[@]}" >/dev/null
+fi
+
+# The fuzz targets (scripts/fuzz.sh) link clang's libFuzzer runtime, packaged per clang version.
+if [ "$mode" = test ] && command -v clang >/dev/null; then
+  major=$(clang -dumpversion | cut -d. -f1)
+  if ! dpkg-query -W -f='${Status}' "libclang-rt-$major-dev" 2>/dev/null | grep -q "install ok installed"; then
+    echo "setup: installing libclang-rt-$major-dev" >&2
+    export DEBIAN_FRONTEND=noninteractive
+    apt-get install -y -qq --no-install-recommends "libclang-rt-$major-dev" >/dev/null
+  fi
 fi

@@ -2,12 +2,15 @@
 // Tests of lib/rungcal/core: errors, provenance hashes, atomic writes, config reading.
 #include <gtest/gtest.h>
 
+#include <cmath>
+
 #include <filesystem>
 
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/core/simd.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
@@ -114,6 +117,18 @@ TEST(Config, RelativePathsResolveAgainstTheConfigFolder) {
   Config c = Config::from_string("", "/data/cfg/run.toml");
   EXPECT_EQ(c.resolve_path("in/cat.csv"), "/data/cfg/in/cat.csv");
   EXPECT_EQ(c.resolve_path("/abs/cat.csv"), "/abs/cat.csv");
+}
+
+TEST(Simd, VectorisableExpAgreesWithTheLibraryToAFewUlp) {
+  // Reference: std::exp (glibc, correctly rounded to < 1 ulp) over the range the fit uses
+  // (photometric parallaxes: |x| up to ~40) and beyond.
+  double worst = 0;
+  for (int i = -70000; i <= 70000; ++i) {
+    const double x = i * 0.01 + 0.000123;
+    worst = std::max(worst, std::abs(exp_vectorisable(x) / std::exp(x) - 1.0));
+  }
+  EXPECT_LT(worst, 4e-16);
+  EXPECT_EQ(exp_vectorisable(0.0), 1.0);
 }
 
 }  // namespace

@@ -9,6 +9,7 @@
 #include <cmath>
 #include <fstream>
 #include <numbers>
+#include <ostream>
 #include <sstream>
 
 #include "mock_lightcurves.hpp"
@@ -356,6 +357,9 @@ struct LcBadCase {
   std::string input;
   std::string rule;
 };
+
+// Test names in listings, not the struct's bytes.
+void PrintTo(const LcBadCase& c, std::ostream* os) { *os << c.name; }
 
 std::vector<LcBadCase> lc_bad_cases() {
   const std::string header = "star,t,band,mag,err\n";

@@ -9,6 +9,7 @@
 #include <unistd.h>
 
 #include <chrono>
+#include <cstdlib>
 #include <filesystem>
 #include <fstream>
 #include <thread>
@@ -264,7 +265,10 @@ TEST(Run, SigkillAtRandomMomentsLeavesOnlyWholeVersionsAndTheNextRunFinishes) {
       std::chrono::duration<double, std::milli>(std::chrono::steady_clock::now() - t0).count();
   Random rng(20261202);
   int killed = 0;
-  for (int k = 0; k < 24; ++k) {
+  // RUNGCAL_KILL_ROUNDS=500 for a longer soak (docs/operations.md).
+  const char* rounds_env = std::getenv("RUNGCAL_KILL_ROUNDS");
+  const int rounds = rounds_env ? std::max(1, std::atoi(rounds_env)) : 24;
+  for (int k = 0; k < rounds; ++k) {
     edit_catalog(dir, [&](StarTable& t) { t.column("PLX").real[7] += (k % 2 ? -0.01 : 0.01); });
     const auto after =
         std::chrono::milliseconds(static_cast<int>(rng.uniform(0.02, 0.9) * full_ms));
@@ -273,7 +277,7 @@ TEST(Run, SigkillAtRandomMomentsLeavesOnlyWholeVersionsAndTheNextRunFinishes) {
   }
   // Most kills land while the run is still going (under load the runs are slower, not
   // faster, than the timed one); the few that come after the end test a finished run.
-  EXPECT_GE(killed, 8);
+  EXPECT_GE(killed, rounds / 3);
   auto finish = run(dir);
   EXPECT_TRUE(finish.exit_code == 6 || finish.exit_code == 0 || finish.exit_code == 3)
       << finish.output;

@@ -4,6 +4,9 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <filesystem>
+
+#include <fmt/format.h>
 
 #include "rungcal/core/error.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -212,6 +215,41 @@ TEST(Fits, BadFilesNameTheirRule) {
   EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("t.fits"), {"NOPE", 0}); }), "fits_hdu");
   EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("t.fits"), {"", 5}); }), "fits_hdu");
   EXPECT_EQ(rule_of([&] { read_fits_table(dir.file("none.fits")); }), "unreadable_file");
+}
+
+std::string fits_read_rule(const std::string& path) {
+  try {
+    read_fits_table(path);
+  } catch (const InputError& e) {
+    return e.rule();
+  }
+  return "";
+}
+
+TEST(Fits, HeadersDeclaringMoreThanTheFileHoldsAreRefusedBeforeAnyAllocation) {
+  // TFIELDS is 0..999 by the FITS standard (4.0, section 7.2.1); NAXIS2 rows of NAXIS1
+  // bytes must be in the file. Both edited into a real product, card by card.
+  test::TempDir dir;
+  const std::string good = test::read_text(test::source_file("sample_data/calibrators.fits"));
+  auto with_card = [&](const std::string& key, const std::string& value) {
+    std::string bytes = good;
+    const std::size_t at = bytes.find(key, 2880);  // in the table's header, not the primary
+    EXPECT_NE(at, std::string::npos) << key;
+    const std::string card = fmt::format("{:<8}= {:>20}", key, value);
+    bytes.replace(at, card.size(), card);
+    return bytes;
+  };
+  test::write_text(dir.file("tfields.fits"), with_card("TFIELDS", "999999999"));
+  test::write_text(dir.file("naxis2.fits"), with_card("NAXIS2", "900000000000"));
+  EXPECT_EQ(fits_read_rule(dir.file("tfields.fits")), "fits_read");
+  EXPECT_EQ(fits_read_rule(dir.file("naxis2.fits")), "fits_read");
+  EXPECT_EQ(fits_read_rule(test::source_file("sample_data/calibrators.fits")), "");
+}
+
+TEST(Fits, InputsTheFuzzerFoundAreRefusedCleanly) {
+  // fuzz/regressions/fits: files that once crashed the reader under AddressSanitizer.
+  for (const auto& e : std::filesystem::directory_iterator(test::source_file("fuzz/regressions/fits")))
+    EXPECT_FALSE(fits_read_rule(e.path().string()).empty()) << e.path();
 }
 
 }  // namespace

@@ -8,6 +8,8 @@
 
 #include <toml++/toml.h>
 
+#include "rungcal/core/enum_table.hpp"
+
 namespace rungcal {
 
 class Config;
@@ -76,5 +78,15 @@ class Config {
   toml::table table_;
   std::set<std::string> known_;
 };
+
+// A choice read through its name table: fallback when the key is absent; a name not in the
+// table stops with rule "config_value", listing the choices.
+template <typename E, std::size_t N>
+E choice_or(const ConfigSection& s, const std::string& key, const EnumTable<E, N>& table, E fallback) {
+  std::string v = s.string_or(key, std::string(table.name(fallback)));
+  auto parsed = table.parse(v);
+  if (!parsed) s.fail(key, "'" + v + "' is not one of: " + table.choices());
+  return *parsed;
+}
 
 }  // namespace rungcal

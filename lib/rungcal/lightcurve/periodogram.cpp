@@ -8,6 +8,8 @@
 
 #include <Eigen/Dense>
 
+#include "rungcal/core/simd.hpp"
+
 namespace rungcal {
 namespace {
 
@@ -80,15 +82,6 @@ struct Sums {
   double c = 0, s = 0, yc = 0, ys = 0;
 };
 
-// Compiled for the generic x86-64 target and for x86-64-v3 (AVX2 + FMA), picked at load
-// time by what the processor supports (not by its model, as "arch=haswell" would be): the
-// epoch loop runs four lanes wide where the processor can.
-#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__) && \
-    !defined(__SANITIZE_ADDRESS__)
-#define RUNGCAL_VECTOR_CLONES __attribute__((target_clones("arch=x86-64-v3", "default")))
-#else
-#define RUNGCAL_VECTOR_CLONES
-#endif
 
 // Sums of w cos, w sin and w y cos, w y sin of one harmonic at the current frequency, then
 // one rotation step. The hot loop of both periodograms.

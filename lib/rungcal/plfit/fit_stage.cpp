@@ -48,14 +48,6 @@ ParamSpec param_from(const ConfigSection& parent, const std::string& key, ParamS
   return p;
 }
 
-template <typename E, std::size_t N>
-E enum_from(const ConfigSection& s, const std::string& key, const EnumTable<E, N>& table, E fallback) {
-  std::string v = s.string_or(key, std::string(table.name(fallback)));
-  auto parsed = table.parse(v);
-  if (!parsed) s.fail(key, fmt::format("'{}' is not one of: {}", v, table.choices()));
-  return *parsed;
-}
-
 bool contains(const std::vector<std::string>& v, const std::string& x) {
   return std::find(v.begin(), v.end(), x) != v.end();
 }
@@ -520,22 +512,22 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.input_path = c.resolve_path(f->require_string("input"));
   o.output_path = c.resolve_path(f->string_or("output", o.output_path));
   if (auto r = f->get_string("residuals")) o.residuals_path = c.resolve_path(*r);
-  o.space = enum_from(*f, "space", kFitSpaceNames, o.space);
-  o.loss = enum_from(*f, "loss", kLossNames, o.loss);
+  o.space = choice_or(*f, "space", kFitSpaceNames, o.space);
+  o.loss = choice_or(*f, "loss", kLossNames, o.loss);
   o.loss_scale = f->number_or("loss_scale", o.loss_scale);
   o.clip_sigma = f->number_or("clip_sigma", o.clip_sigma);
   o.clip_iterations = static_cast<int>(f->integer_or("clip_iterations", o.clip_iterations));
-  o.zero_point = enum_from(*f, "zero_point", kZeroPointRecipeNames, o.zero_point);
+  o.zero_point = choice_or(*f, "zero_point", kZeroPointRecipeNames, o.zero_point);
   o.zero_point_mas = f->number_or("zero_point_mas", o.zero_point_mas);
   if (auto t = f->get_string("zero_point_table_5p")) o.zero_point_table_5p = c.resolve_path(*t);
   if (auto t = f->get_string("zero_point_table_6p")) o.zero_point_table_6p = c.resolve_path(*t);
-  o.inflation = enum_from(*f, "inflation", kInflationRecipeNames, o.inflation);
+  o.inflation = choice_or(*f, "inflation", kInflationRecipeNames, o.inflation);
   o.inflation_factor = f->number_or("inflation_factor", o.inflation_factor);
   o.max_ruwe = f->number_or("max_ruwe", o.max_ruwe);
   o.use_known_mu = f->bool_or("use_known_distance", o.use_known_mu);
   o.offset = param_from(*f, "offset", o.offset);
   o.scatter = param_from(*f, "scatter", o.scatter);
-  o.scatter_estimator = enum_from(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
+  o.scatter_estimator = choice_or(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
   o.joint = f->bool_or("joint", o.joint);
   o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
   o.joint_scatter_correlation = f->number_or("joint_scatter_correlation", o.joint_scatter_correlation);

@@ -8,6 +8,8 @@
 
 #include <Eigen/Dense>
 
+#include "rungcal/core/simd.hpp"
+
 namespace rungcal {
 namespace {
 
@@ -142,6 +144,64 @@ Eigen::VectorXd to_external(const Eigen::VectorXd& v, const ParameterLayout& L) 
 
 bool scatter_is_free(const FitSettings& s, const ParameterLayout& L) { return s.params[L.sigma].mode != ParamMode::kFixed; }
 
+// The common case in one vectorisable loop: parallax calibrators only, parallax space, no
+// period break, no loss or the Huber loss, scatter not fitted. The same residual and
+// derivatives as parallax_term + finish + the Huber branch of RelationCost::robust, written
+// branch-free over plain arrays (exp_vectorisable for the photometric parallax), each
+// Jacobian row filled in full. Returns false when a residual is not finite.
+struct FastParallaxInput {
+  const double *x, *feh, *m0, *var_m, *plx, *var_plx, *sqrt_weight;  // feh, sqrt_weight may be null
+  Eigen::Index n;
+  double alpha, beta, gamma, offset, var;
+  bool huber;
+  double huber_scale;
+  int P, col_alpha, col_beta, col_gamma, col_offset, col_sigma;  // col_gamma -1 when absent
+};
+
+RUNGCAL_VECTOR_CLONES
+bool fast_parallax_residuals(const FastParallaxInput& in, double* __restrict res, double* __restrict J) {
+  const double a = in.huber_scale;
+  int bad = 0;
+#pragma omp simd reduction(+ : bad)
+  for (Eigen::Index i = 0; i < in.n; ++i) {
+    const double feh = in.feh ? in.feh[i] : 0.0;
+    const double m = in.alpha + in.beta * in.x[i] + in.gamma * feh;
+    const double pi = exp_vectorisable(-kK5 * (in.m0[i] - m - 10.0));
+    const double kpi2 = kK5 * kK5 * pi * pi;
+    const double vm = in.var_m[i] + in.var;
+    const double s2 = in.var_plx[i] + kpi2 * vm;
+    const double ds2_m = 2.0 * kK5 * kpi2 * vm;
+    const double e = in.plx[i] - in.offset - pi;
+    const double inv_s = 1.0 / std::sqrt(s2);
+    const double h = 0.5 * e * inv_s * inv_s * inv_s;
+    const double r = e * inv_s;
+    const double d_m = -kK5 * pi * inv_s - h * ds2_m;
+    const double d_off = -inv_s;
+    const double d_var = -h * kpi2;
+    double f = r, df = 1.0;
+    if (in.huber) {
+      const double ar = std::abs(r);
+      const double q = std::sqrt(std::max(2.0 * a * ar - a * a, 1e-300));
+      const bool inner = ar <= a;
+      f = inner ? r : std::copysign(q, r);
+      df = inner ? 1.0 : a / q;
+    }
+    const double sw = in.sqrt_weight ? in.sqrt_weight[i] : 1.0;
+    res[i] = sw * f;
+    bad += (f - f != 0.0) ? 1 : 0;  // NaN or infinite
+    if (J) {
+      double* row = J + i * in.P;
+      const double gm = sw * df * d_m;
+      row[in.col_alpha] = gm;
+      row[in.col_beta] = gm * in.x[i];
+      if (in.col_gamma >= 0) row[in.col_gamma] = gm * feh;
+      row[in.col_offset] = sw * df * d_off;
+      row[in.col_sigma] = sw * df * d_var;
+    }
+  }
+  return bad == 0;
+}
+
 // The whole relation as one Ceres residual block with analytic derivatives, one pass over
 // the stars writing contiguous Jacobian rows; the robust loss enters as
 // f = sgn(r) sqrt(rho(r^2)), whose squares sum to the robust objective exactly.
@@ -163,6 +223,8 @@ class RelationCost final : public ceres::CostFunction {
     }
     for (int j = 0; j < L.size; ++j)
       if (s.params[j].mode == ParamMode::kPrior) priors_.push_back(j);
+    fast_ = d.known.size() == 0 && d.anchor.size() == 0 && s.space == FitSpace::kParallax && n_norm_ == 0 &&
+            L.beta_long < 0 && L.size == L.anchor0 && (s.loss == LossKind::kNone || s.loss == LossKind::kHuber);
     set_num_residuals(n_stars_ + n_norm_ + static_cast<int>(priors_.size()));
     mutable_parameter_block_sizes()->push_back(L.size);
   }
@@ -171,6 +233,7 @@ class RelationCost final : public ceres::CostFunction {
     const double* t = parameters[0];
     const int P = L_.size;
     double* J = jacobians ? jacobians[0] : nullptr;
+    if (fast_) return evaluate_fast(t, residuals, J);
     if (J) std::fill(J, J + static_cast<std::size_t>(num_residuals()) * P, 0.0);
     const bool frozen = !frozen_base_.empty();
     bool finite = true;
@@ -228,6 +291,27 @@ class RelationCost final : public ceres::CostFunction {
   }
 
  private:
+  bool evaluate_fast(const double* t, double* residuals, double* J) const {
+    const FitData::Common& c = d_.parallax;
+    const int P = L_.size;
+    FastParallaxInput in{c.x.data(), L_.gamma >= 0 ? c.feh.data() : nullptr, c.m0.data(), c.var_m.data(), d_.plx.data(),
+                         d_.var_plx.data(), c.sqrt_weight.size() ? c.sqrt_weight.data() : nullptr, c.size(),
+                         t[L_.alpha], t[L_.beta], L_.gamma >= 0 ? t[L_.gamma] : 0.0, t[L_.offset], t[L_.sigma],
+                         s_.loss == LossKind::kHuber, s_.loss_scale, P, L_.alpha, L_.beta, L_.gamma, L_.offset, L_.sigma};
+    const bool finite = fast_parallax_residuals(in, residuals, J);
+    int pr = n_stars_;
+    for (int j : priors_) {
+      const ParamSpec& p = s_.params[j];
+      residuals[pr] = (t[j] - p.value) / p.prior_sigma;
+      if (J) {
+        std::fill(J + static_cast<std::size_t>(pr) * P, J + static_cast<std::size_t>(pr + 1) * P, 0.0);
+        J[static_cast<std::size_t>(pr) * P + j] = 1.0 / p.prior_sigma;
+      }
+      ++pr;
+    }
+    return finite;
+  }
+
   void robust(double r, double& f, double& df_dr) const {
     if (s_.loss == LossKind::kNone) {
       f = r, df_dr = 1.0;
@@ -256,6 +340,7 @@ class RelationCost final : public ceres::CostFunction {
   int n_stars_ = 0, n_norm_ = 0;
   std::vector<int> priors_;
   std::vector<double> frozen_base_, frozen_per_var_;
+  bool fast_ = false;  // evaluate_fast applies (see fast_parallax_residuals)
 };
 
 void configure_problem(ceres::Problem& problem, RelationCost* cost, const FitSettings& s, const ParameterLayout& L,

@@ -2,6 +2,9 @@
 #include "rungcal/report/report.hpp"
 
 #include <filesystem>
+#include <fstream>
+
+#include <nlohmann/json.hpp>
 
 #include <fmt/format.h>
 
@@ -51,6 +54,23 @@ ReportOutcome write_report(const ReportOptions& o) {
     // Per-star appendix of the last version, from the residuals kept with it.
     for (const auto& rel : last.relation_names()) {
       write_file_atomically(o.out_dir + "/stars_" + rel + "." + e, star_table(res, rel, f));
+      ++outcome.tables;
+    }
+  }
+  if (!o.grid.empty()) {
+    std::ifstream in(o.grid);
+    if (!in) throw InputError({o.grid, {}, {}}, "unreadable_file", "cannot open the grid result");
+    nlohmann::json budget;
+    try {
+      budget = nlohmann::json::parse(in);
+    } catch (const nlohmann::json::parse_error& e) {
+      throw InputError({o.grid, {}, {}}, "json_syntax", e.what());
+    }
+    if (budget.value("schema", "") != "rungcal-error-budget")
+      throw InputError({o.grid, {}, "schema"}, "not_a_grid_result", "not a rungcal-grid result");
+    for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
+      write_file_atomically(o.out_dir + "/error_budget." + ext[static_cast<int>(f)],
+                            error_budget_table(budget, f));
       ++outcome.tables;
     }
   }

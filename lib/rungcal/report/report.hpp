@@ -12,6 +12,7 @@ struct ReportOptions {
   std::string out_dir = "out/report";     // folder for the tables and figures
   std::string lightcurves;         // rungcal-lightcurve product ("" = no light-curve figures)
   std::vector<std::string> stars;  // light curves to draw; empty = those with a kept periodogram
+  std::string grid;                // rungcal-grid result (grid.json): the error budget table too
 
   // "" when usable, else "field: rule".
   std::string check() const;
@@ -23,7 +24,8 @@ struct ReportOutcome {
 };
 
 // Writes relations.{tex,csv,md}, the per-star appendix of the last version, the PL,
-// residual and version figures, and the light curves (docs/file-formats.md, "Paper tables").
+// residual and version figures, the light curves, and the error budget
+// (docs/file-formats.md, "Paper tables").
 ReportOutcome write_report(const ReportOptions& options);
 
 }  // namespace rungcal

@@ -182,4 +182,44 @@ std::string star_table(const StarTable& t, const std::string& relation, TableFor
   return render(g, f, "Calibrators of the " + escape_latex(relation) + " relation.", "tab:stars");
 }
 
+std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {
+  // Columns: the baseline, then each category's quadrature sum of shifts, then the total.
+  std::vector<std::string> categories;
+  for (const auto& rel : budget.at("relations"))
+    for (const auto& p : rel.at("parameters"))
+      for (const auto& [cat, q] : p.at("categories").items())
+        if (std::find(categories.begin(), categories.end(), cat) == categories.end()) categories.push_back(cat);
+  Grid g;
+  const bool latex = f == TableFormat::kLatex;
+  g.header.push_back(latex ? "Relation / parameter" : "relation / parameter");
+  g.header.push_back(latex ? "Baseline" : "baseline");
+  for (const auto& c : categories) g.header.push_back(latex ? escape_latex(c) : c);
+  g.header.push_back(latex ? "Total systematic" : "total systematic");
+  for (const auto& rel : budget.at("relations")) {
+    const std::string rel_name = rel.at("name").get<std::string>();
+    for (const auto& p : rel.at("parameters")) {
+      const double value = p.at("baseline").get<double>();
+      const double error = p.at("baseline_error").is_null() ? NAN : p.at("baseline_error").get<double>();
+      const Rounded r = round_for_print(value, error);
+      const std::string name = p.at("name").get<std::string>();
+      std::vector<std::string> row = {fmt::format("{}: {}", latex ? escape_latex(rel_name) : rel_name, latex ? escape_latex(name) : name)};
+      row.push_back(r.error.empty() ? r.value : (latex ? fmt::format("${} \\pm {}$", r.value, r.error) : fmt::format("{} +- {}", r.value, r.error)));
+      // Shifts one decimal finer than the baseline's error, with their size in its sigmas.
+      auto shift_cell = [&](double q) {
+        std::string text = fmt::format("{:.{}f}", q, r.decimals + 1);
+        if (std::isfinite(error) && error > 0) text += latex ? fmt::format(" ({:.2f}$\\sigma$)", q / error) : fmt::format(" ({:.2f} sigma)", q / error);
+        return text;
+      };
+      for (const auto& c : categories)
+        row.push_back(p.at("categories").contains(c) ? shift_cell(p.at("categories").at(c).get<double>()) : (latex ? "\\nodata" : ""));
+      row.push_back(shift_cell(p.at("total").get<double>()));
+      g.rows.push_back(row);
+    }
+  }
+  return render(g, f,
+                "Systematic error budget: for each category of analysis choices, the quadrature sum of the shifts of its "
+                "variants from the baseline; in parentheses in units of the baseline's statistical error.",
+                "tab:budget");
+}
+
 }  // namespace rungcal

@@ -36,4 +36,9 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
 // log P, magnitude, parallax, normalised residual, used, and why not.
 std::string star_table(const StarTable& residuals, const std::string& relation, TableFormat format);
 
+// The systematic error budget of a rungcal-grid run (grid.json): per relation and
+// parameter the baseline with its error, each category's quadrature sum of shifts, and the
+// total, in the parameter's units and in baseline sigmas.
+std::string error_budget_table(const nlohmann::json& budget, TableFormat format);
+
 }  // namespace rungcal

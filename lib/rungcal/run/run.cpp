@@ -21,6 +21,7 @@
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/core/version.hpp"
 #include "rungcal/deredden/deredden.hpp"
+#include "rungcal/grid/grid.hpp"
 #include "rungcal/ingest/ingest.hpp"
 #include "rungcal/lightcurve/lightcurve_stage.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
@@ -195,6 +196,7 @@ RunOptions run_options_from_file(const std::string& path) {
   stage_config("fit", o.fit_config);
   if (auto s = root.section("fit"))
     o.fit_bootstrap = static_cast<int>(s->integer_or("bootstrap", -1));
+  stage_config("grid", o.grid_config);
   if (auto s = root.section("report")) o.report = s->bool_or("enabled", true);
   if (auto s = root.section("apply")) {
     o.apply_relation = s->require_string("relation");
@@ -230,6 +232,14 @@ RunOutcome run_pipeline(const RunOptions& o) {
   fit.output_path = in_folder(o, "fit.json");
   fit.residuals_path = in_folder(o, "fit_residuals.fits");
   if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap;
+  std::optional<GridOptions> grid;
+  if (!o.grid_config.empty()) {
+    grid = grid_options_from_file(o.grid_config);
+    grid->catalog_path = ingest.catalog_path;
+    grid->deredden_config = o.deredden_config;
+    grid->fit_config = o.fit_config;
+    grid->output_folder = in_folder(o, "grid");
+  }
   std::optional<IngestOptions> t_ingest;
   std::optional<DereddenOptions> t_deredden;
   if (!o.apply_relation.empty()) {
@@ -282,6 +292,14 @@ RunOutcome run_pipeline(const RunOptions& o) {
                     {fit.output_path, fit.residuals_path},
                     "",
                     [&] { spdlog::info("fit:\n{}", fit_summary(fit_catalog_file(fit))); }});
+  if (grid)
+    stages.push_back({"grid",
+                      o.grid_config,
+                      {grid->catalog_path, o.deredden_config, o.fit_config},
+                      "",
+                      {in_folder(o, "grid/grid.json"), in_folder(o, "grid/error_budget.csv")},
+                      "",
+                      [&] { run_grid_files(*grid); }});
   PublishOptions publish;
   publish.store = o.store;
   publish.name = o.calibration;
@@ -303,6 +321,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
   report.store = o.store;
   report.out_dir = in_folder(o, "report");
   report.lightcurves = lc_opt ? lc_opt->output_path : "";
+  report.grid = grid ? in_folder(o, "grid/grid.json") : "";
   if (o.report)
     stages.push_back(
         {"report", "", {}, "", {}, report.out_dir, [&] { write_report(report); }, true});
@@ -351,6 +370,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
         if (s.name == "report") {
           if (refs.size() > 1) s.inputs.push_back(version_json(o, refs.front()));
           if (lc_opt) s.inputs.push_back(lc_opt->output_path);
+          if (grid) s.inputs.push_back(report.grid);
         }
       }
     }

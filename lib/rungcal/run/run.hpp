@@ -29,6 +29,7 @@ struct RunOptions {
   std::string deredden_config;
   std::string fit_config;
   int fit_bootstrap = -1;      // overrides the fit config's bootstrap (-1: keep)
+  std::string grid_config;  // systematics grid ("" = none): its budget joins the report
   bool report = true;          // tables and figures of the latest version (and the one before)
   std::string apply_relation;  // "" = no distances
   std::string targets_ingest_config;

@@ -6,9 +6,13 @@
 #include <CCfits/CCfits>
 #include <algorithm>
 #include <cmath>
+#include <cstdio>
+#include <cstdlib>
 #include <cstring>
 #include <filesystem>
 #include <limits>
+#include <memory>
+#include <vector>
 
 #include <fmt/format.h>
 
@@ -331,6 +335,78 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
 
 SourceTable read_fits_table_unchecked(const std::string& path, const FitsHduChoice& hdu);
 
+// Walks the headers before cfitsio does: every HDU's declared data must lie inside the
+// file, and TFIELDS must be within the standard's 0..999 (FITS 4.0, section 7.2.1). A
+// corrupt header claiming billions of columns or rows otherwise makes cfitsio try to
+// allocate for them (found by fuzz/fuzz_fits_table).
+void check_declared_sizes(const std::string& path) {
+  constexpr std::uintmax_t kBlock = 2880, kCard = 80;
+  std::FILE* f = std::fopen(path.c_str(), "rb");
+  if (!f) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file");
+  std::unique_ptr<std::FILE, int (*)(std::FILE*)> closer(f, &std::fclose);
+  const std::uintmax_t size = std::filesystem::file_size(path);
+  std::uintmax_t offset = 0;
+  for (int hdu = 1; offset < size; ++hdu) {
+    long long bitpix = 8, naxis = 0, pcount = 0, gcount = 1, tfields = 0;
+    std::vector<long long> axes;
+    bool end = false;
+    char card[kCard + 1] = {};
+    while (!end) {
+      if (offset + kCard > size || std::fseek(f, static_cast<long>(offset), SEEK_SET) != 0 ||
+          std::fread(card, 1, kCard, f) != kCard)
+        throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} header has no END card: truncated or corrupt", hdu));
+      if (hdu == 1 && offset == 0 && std::strncmp(card, "SIMPLE  =", 9) != 0)
+        throw InputError({path, {}, {}}, "fits_read", "not a FITS file: it does not begin with SIMPLE");
+      // Header cards are printable ASCII (FITS 4.0, section 4.1.1).
+      for (std::size_t i = 0; i < kCard; ++i)
+        if (card[i] < 0x20 || card[i] > 0x7E)
+          throw InputError({path, {}, {}}, "fits_read",
+                           fmt::format("HDU {} header byte {} is not FITS header text: corrupt", hdu, offset + i));
+      offset += kCard;
+      const std::string key = std::string(card, 8).substr(0, std::string(card, 8).find_last_not_of(' ') + 1);
+      if (key == "END") {
+        end = true;
+        break;
+      }
+      if (card[8] != '=') continue;
+      const bool structural = key == "BITPIX" || key == "PCOUNT" || key == "GCOUNT" || key == "TFIELDS" || key.rfind("NAXIS", 0) == 0;
+      if (!structural) continue;
+      // A structural keyword's value is an integer, then blanks or a comment (FITS 4.0,
+      // section 4.2.3): anything else is a corrupt header that cfitsio may misread.
+      char* end_of_number = nullptr;
+      const long long value = std::strtoll(card + 10, &end_of_number, 10);
+      const char* rest = end_of_number;
+      while (rest < card + kCard && *rest == ' ') ++rest;
+      if (end_of_number == card + 10 || (rest < card + kCard && *rest != '/'))
+        throw InputError({path, {}, {}}, "fits_read",
+                         fmt::format("HDU {} keyword {} has a malformed value '{}': corrupt header", hdu, key,
+                                     std::string(card + 10, std::min<std::size_t>(20, kCard - 10))));
+      if (key == "BITPIX") bitpix = value;
+      else if (key == "NAXIS") naxis = value;
+      else if (key == "PCOUNT") pcount = value;
+      else if (key == "GCOUNT") gcount = value;
+      else if (key == "TFIELDS") tfields = value;
+      else if (key.rfind("NAXIS", 0) == 0 && key.size() > 5) axes.push_back(value);
+    }
+    offset = (offset + kBlock - 1) / kBlock * kBlock;
+    if (tfields < 0 || tfields > 999)
+      throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} declares TFIELDS = {}; the standard allows 0 to 999", hdu, tfields));
+    if (naxis < 0 || naxis > 999 || static_cast<long long>(axes.size()) < naxis || pcount < 0 || gcount < 0)
+      throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} has a malformed NAXIS/PCOUNT/GCOUNT header", hdu));
+    // Data bytes = |BITPIX|/8 * GCOUNT * (PCOUNT + NAXIS1 * ... * NAXISn), computed in long
+    // double so a corrupt header cannot overflow the check itself.
+    long double elements = naxis > 0 ? 1.0L : 0.0L;
+    for (long long i = 0; i < naxis; ++i) elements *= static_cast<long double>(std::max(0LL, axes[static_cast<std::size_t>(i)]));
+    const long double bytes = std::abs(static_cast<long double>(bitpix)) / 8.0L * static_cast<long double>(gcount) *
+                              (static_cast<long double>(pcount) + elements);
+    if (static_cast<long double>(offset) + bytes > static_cast<long double>(size))
+      throw InputError({path, {}, {}}, "fits_read",
+                       fmt::format("HDU {} declares {:.0f} bytes of data but the file has {} bytes: truncated or corrupt",
+                                   hdu, static_cast<double>(bytes), size - std::min(size, offset)));
+    offset += static_cast<std::uintmax_t>((bytes + kBlock - 1) / kBlock) * kBlock;
+  }
+}
+
 struct FitsFileCloser {
   void operator()(fitsfile* f) const {
     int status = 0;
@@ -344,6 +420,7 @@ SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu) {
   if (!std::filesystem::is_regular_file(path))
     throw InputError({path, {}, {}}, "unreadable_file", "no such file");
   try {
+    check_declared_sizes(path);
     return read_fits_table_unchecked(path, hdu);
   } catch (const InputError& e) {
     // FITS files are whole 2880-byte blocks; a file that is not was cut short.

@@ -1,0 +1,72 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <optional>
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+#include "rungcal/deredden/deredden.hpp"
+#include "rungcal/plfit/fit_stage.hpp"
+
+namespace rungcal {
+
+// One analysis choice changed from the baseline. Only the fields set are changed.
+struct GridVariant {
+  std::string name;                           // a row of the error budget
+  std::string category;                       // shifts are summed in quadrature within a category
+  std::optional<ExtinctionLaw> law;           // extinction law
+  std::optional<double> r_v;                  // R_V
+  std::optional<ZeroPointRecipe> zero_point;  // parallax zero-point recipe
+  std::optional<double> zero_point_mas;       // its constant
+  std::optional<double> max_ruwe;             // quality cut on RUWE (0: none)
+  std::optional<LossKind> loss;               // robust loss
+  std::optional<double> loss_scale;
+  std::optional<FitSpace> space;         // fit space
+  std::optional<bool> metallicity;       // the [Fe/H] term, every relation
+  std::optional<double> min_log_period;  // period range, every relation
+  std::optional<double> max_log_period;
+  std::optional<InflationRecipe> inflation;  // parallax error inflation
+  // True when the variant changes the dereddened magnitudes (law or R_V).
+  bool changes_extinction() const { return law.has_value() || r_v.has_value(); }
+};
+
+struct GridOptions {
+  std::string catalog_path;     // ingested catalog (HDU CATALOG): every variant dereddens it
+  std::string deredden_config;  // baseline deredden config
+  std::string fit_config;       // baseline fit config
+  std::string output_folder = "out/grid";  // grid.json and error_budget.csv
+  int bootstrap = 0;  // bootstrap resamples per variant (overrides the fit config)
+  int threads = 0;    // variants in parallel; 0: every core
+  std::vector<GridVariant> variants;
+  std::string config_file, config_sha256;
+
+  // "" when usable, else "field: rule".
+  std::string check() const;
+};
+
+// Reads [grid] and [[variant]] tables; unknown keys stop with rule "unknown_config_key".
+GridOptions grid_options_from_file(const std::string& path);
+
+// The baseline and every variant, fitted; the shifts and the budget.
+struct GridResult {
+  FitResult baseline;
+  std::vector<FitResult> variants;  // in the options' order
+  // shift of a variant's parameter from the baseline's, and in units of the baseline's
+  // covariance error: per relation, per parameter, per variant.
+  nlohmann::json budget;  // docs/file-formats.md, "Systematics grid"
+};
+
+// Runs the baseline and the variants (in parallel, each deterministic) on one catalog.
+// Writes nothing.
+GridResult run_grid(const GridOptions& options);
+// Runs and writes OUTPUT/grid.json and OUTPUT/error_budget.csv atomically.
+GridResult run_grid_files(const GridOptions& options);
+
+// The budget as JSON: for each relation and parameter, the baseline value and error, each
+// variant's shift (and shift / error), and per category the quadrature sum of its
+// variants' shifts, and the total over categories.
+nlohmann::json error_budget(const GridOptions& options, const GridResult& result);
+
+}  // namespace rungcal

@@ -1,0 +1,53 @@
+#!/usr/bin/env bash
+# SPDX-License-Identifier: MIT
+# Builds the libFuzzer targets (fuzz/, clang with ASan + UBSan) and runs each for SECONDS on
+# a corpus seeded from the test inputs (sample data, the published reference tables, the
+# configs). The corpus grows in BUILD/corpus/ from run to run; findings (crash-*, leak-*,
+# timeout-*, oom-*) land in BUILD/findings/<target>/ and make the script exit 1.
+#   scripts/fuzz.sh                      # 60 s per target
+#   scripts/fuzz.sh --seconds 3600       # an hour per target; see docs/operations.md
+set -euo pipefail
+cd "$(dirname "$0")/.."
+seconds=60
+build=build-fuzz
+while [ $# -gt 0 ]; do
+  case "$1" in
+    --seconds) seconds=$2; shift 2 ;;
+    --build) build=$2; shift 2 ;;
+    *) echo "fuzz.sh: unknown option $1 (--seconds N, --build DIR)" >&2; exit 2 ;;
+  esac
+done
+cmake -S . -B "$build" -DCMAKE_CXX_COMPILER=clang++ -DCMAKE_BUILD_TYPE=RelWithDebInfo -DRUNGCAL_FUZZ=ON \
+  -DRUNGCAL_WERROR=OFF >/dev/null
+cmake --build "$build" -j"$(nproc)" >/dev/null
+
+# Seeds. The text target's first byte picks the reader's options (0: comma with header,
+# 4: whitespace, 5: multi-space), so each file is seeded under the options it is read with.
+seeds="$build/seeds"
+rm -rf "$seeds"
+mkdir -p "$seeds/fuzz_text_table" "$seeds/fuzz_fits_table" "$seeds/fuzz_config"
+n=0
+for f in sample_data/*.csv ../shared/reference/*.csv ../shared/reference/*.txt tests/*.csv; do
+  [ -f "$f" ] || continue
+  for opt in '\x00' '\x04' '\x05'; do
+    n=$((n + 1))
+    { printf "$opt"; head -c 60000 "$f"; } > "$seeds/fuzz_text_table/seed$n"
+  done
+done
+cp sample_data/*.fits "$seeds/fuzz_fits_table/"
+find config -name '*.toml' -exec cp {} "$seeds/fuzz_config/" \;
+
+status=0
+for target in fuzz_text_table fuzz_fits_table fuzz_config; do
+  corpus="$build/corpus/$target"
+  findings="$build/findings/$target"
+  mkdir -p "$corpus" "$findings"
+  echo "== $target: $seconds s"
+  if ! "$build/fuzz/$target" -max_total_time="$seconds" -max_len=65536 -timeout=10 -rss_limit_mb=4096 \
+       -artifact_prefix="$findings/" -print_final_stats=1 "$corpus" "$seeds/$target" > "$build/$target.log" 2>&1; then
+    echo "$target: FOUND A PROBLEM (see $build/$target.log and $findings/)"
+    status=1
+  fi
+  grep -E "^stat::number_of_executed_units|^stat::peak_rss_mb|^#[0-9]+.*DONE" "$build/$target.log" | tail -3 || true
+done
+exit $status

@@ -1,0 +1,208 @@
+// SPDX-License-Identifier: MIT
+// Bad input across the stage executables (deredden, fit, publish, apply, report, diff,
+// simulate, run, lightcurve): each case must stop with exit 2, a message naming the file
+// and the broken rule in brackets, and leave nothing half-written. The ingest stage's own
+// cases are in ingest_test.cpp, the light-curve stage's in lightcurve_test.cpp.
+#include <gtest/gtest.h>
+
+#include <filesystem>
+#include <ostream>
+#include <string>
+#include <vector>
+
+#include "test_util.hpp"
+
+namespace fs = std::filesystem;
+
+namespace rungcal {
+namespace {
+
+struct StageCase {
+  const char* name;
+  std::string stage;
+  std::string args;                                        // {dir} stands for the case's folder
+  std::vector<std::pair<std::string, std::string>> files;  // written into {dir} first
+  std::string rule;                                        // expected [rule]
+  std::string names;                                       // the message names this (file or key)
+  std::string must_not_exist = "out";                      // nothing written here
+};
+
+// Test names in listings, not the struct's bytes.
+void PrintTo(const StageCase& c, std::ostream* os) { *os << c.name; }
+
+const std::string kDemo = test::source_file("config/demo");
+const std::string kRelation = "[[relation]]\nname = \"V\"\nband = \"V\"\n";
+
+std::vector<StageCase> stage_cases() {
+  return {
+      {"DereddenNoConfig", "deredden", "", {}, "config_value", "--config"},
+      {"DereddenUnknownLaw",
+       "deredden",
+       "--law ccm99 --wavelength 5500",
+       {},
+       "config_value",
+       "ccm99"},
+      {"DereddenWavelengthOutsideLaw",
+       "deredden",
+       "--law ccm89 --rv 3.1 --wavelength 100",
+       {},
+       "outside_law_range",
+       "ccm89"},
+      {"DereddenNegativeRv",
+       "deredden",
+       "--config {dir}/d.toml --out {dir}/out/c.fits",
+       {{"d.toml", "[deredden]\ninput = \"x.fits\"\nr_v = -1\n"}},
+       "config_value",
+       "d.toml"},
+      {"DereddenMissingInput",
+       "deredden",
+       "--config {dir}/d.toml --out {dir}/out/c.fits",
+       {{"d.toml", "[deredden]\ninput = \"x.fits\"\n"}},
+       "unreadable_file",
+       "x.fits"},
+      {"DereddenUnknownKey",
+       "deredden",
+       "--config {dir}/d.toml --out {dir}/out/c.fits",
+       {{"d.toml", "[deredden]\ninput = \"x.fits\"\nlaww = \"ccm89\"\n"}},
+       "unknown_config_key",
+       "laww"},
+      {"FitUnknownLoss",
+       "fit",
+       "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\nloss = \"quadratic\"\n" + kRelation}},
+       "config_value",
+       "quadratic"},
+      {"FitNegativeBootstrap",
+       "fit",
+       "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\nbootstrap = -3\n" + kRelation}},
+       "config_value",
+       "bootstrap"},
+      {"FitNoFitTable",
+       "fit",
+       "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fitt]\n"}},
+       "config_missing_key",
+       "f.toml"},
+      {"FitInputNotFits",
+       "fit",
+       "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"cat.fits\"\n" + kRelation},
+        {"cat.fits", "id,period\nA,3.2\n"}},
+       "fits_read",
+       "cat.fits"},
+      {"PublishMissingFit",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/nothere.json",
+       {},
+       "unreadable_file",
+       "nothere.json"},
+      {"PublishFitNotJson",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/bad.json",
+       {{"bad.json", "{not json"}},
+       "json_syntax",
+       "bad.json"},
+      {"PublishNotAFitResult",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/other.json",
+       {{"other.json", "{\"schema\": \"other\"}"}},
+       "not_a_fit_result",
+       "other.json"},
+      {"PublishBadName",
+       "publish",
+       "--store {dir}/out --name a/b --fit {dir}/other.json",
+       {{"other.json", "{}"}},
+       "config_value",
+       "name"},
+      {"ApplyUnknownCalibration",
+       "apply",
+       "--store {dir}/store --calibration t@latest --relation W_VI --targets x.fits --out "
+       "{dir}/out/d.fits",
+       {},
+       "unknown_calibration",
+       "store"},
+      {"ReportUnknownVersion",
+       "report",
+       "--store {dir}/store --calibration t@3 --out {dir}/out",
+       {},
+       "unknown_calibration",
+       "store"},
+      {"DiffUnknownCalibration",
+       "diff",
+       "--store {dir}/store --to t@latest",
+       {},
+       "unknown_calibration",
+       "store"},
+      {"SimulateUnknownKey",
+       "simulate",
+       "--config {dir}/s.toml",
+       {{"s.toml", "[simulate]\nseedd = 3\noutput_folder = \"out\"\n"}},
+       "unknown_config_key",
+       "seedd"},
+      {"RunNoRunTable",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", "[ingest]\nconfig = \"x.toml\"\n"}},
+       "config_missing_key",
+       "r.toml"},
+      {"RunApplyWithoutTargets",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", "[run]\nfolder = \"out\"\ncalibration = \"c\"\n[ingest]\nconfig = \"" + kDemo +
+                       "/ingest.toml\"\n[deredden]\nconfig = \"" + kDemo +
+                       "/deredden.toml\"\n[fit]\nconfig = \"" + kDemo +
+                       "/fit.toml\"\n[apply]\nrelation = \"W_VI\"\n"}},
+       "config_missing_key",
+       "targets_ingest"},
+      {"RunMissingConfig",
+       "run",
+       "--config {dir}/nothere.toml",
+       {},
+       "unreadable_file",
+       "nothere.toml"},
+      {"RunStageConfigMissing",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml",
+         "[run]\nfolder = \"out\"\ncalibration = \"c\"\n[ingest]\nconfig = "
+         "\"gone.toml\"\n[deredden]\nconfig = \"" +
+             kDemo + "/deredden.toml\"\n[fit]\nconfig = \"" + kDemo + "/fit.toml\"\n"}},
+       "unreadable_file",
+       "gone.toml",
+       "out/catalog.fits"},
+      {"LightcurveMissingConfig",
+       "lightcurve",
+       "--config {dir}/nothere.toml",
+       {},
+       "unreadable_file",
+       "nothere.toml"},
+  };
+}
+
+std::string with_dir(std::string text, const std::string& dir) {
+  for (std::size_t at; (at = text.find("{dir}")) != std::string::npos;) text.replace(at, 5, dir);
+  return text;
+}
+
+class StageBadInput : public ::testing::TestWithParam<StageCase> {};
+
+TEST_P(StageBadInput, StopsWithExit2ItsRuleAndWritesNothing) {
+  const StageCase& c = GetParam();
+  test::TempDir dir;
+  for (const auto& [name, content] : c.files) test::write_text(dir.file(name), content);
+  auto r = test::run_command("cd " + dir.path() + " && " + std::string(RUNGCAL_BIN_DIR) +
+                             "/rungcal-" + c.stage + " " + with_dir(c.args, dir.path()));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find(c.names), std::string::npos) << r.output;
+  EXPECT_FALSE(fs::exists(dir.file(c.must_not_exist))) << c.must_not_exist << " was written";
+  for (const auto& e : fs::recursive_directory_iterator(dir.path()))
+    EXPECT_EQ(e.path().string().find(".part"), std::string::npos) << e.path();
+}
+
+INSTANTIATE_TEST_SUITE_P(Cases, StageBadInput, ::testing::ValuesIn(stage_cases()),
+                         [](const auto& case_info) { return std::string(case_info.param.name); });
+
+}  // namespace
+}  // namespace rungcal
