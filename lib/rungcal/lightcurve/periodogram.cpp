@@ -6,8 +6,6 @@
 #include <numbers>
 #include <stdexcept>
 
-#include <Eigen/Dense>
-
 #include "rungcal/core/simd.hpp"
 
 namespace rungcal {
@@ -186,39 +184,53 @@ std::vector<double> gls_sweep(const Prepared& p, const FrequencyGrid& grid) {
   return power;
 }
 
-using SmallMatrix = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, 0, 2 * kMaxHarmonics + 1,
-                                  2 * kMaxHarmonics + 1>;
-using SmallVector = Eigen::Matrix<double, Eigen::Dynamic, 1, 0, 2 * kMaxHarmonics + 1, 1>;
-
 // chi^2 reduction (normalised weights) of a K-harmonic fit from the harmonic sums
-// h[m] (m = 1..2K; h[0] unused): the normal matrix of the basis 1, cos(kx), sin(kx) by the
-// product-to-sum identities, e.g. sum w cos(ax) cos(bx) = (C_{a-b} + C_{a+b}) / 2.
+// h[m] (m = 1..2K; h[0] unused): the normal matrix A of the basis 1, cos(kx), sin(kx) by the
+// product-to-sum identities, e.g. sum w cos(ax) cos(bx) = (C_{a-b} + C_{a+b}) / 2; then
+// r^T A^-1 r = |z|^2 with L z = r, A = L L^T (Cholesky; A is a normal matrix, positive
+// definite unless the sampling cannot tell the terms apart, where the power is 0).
 double chi2_reduction(const std::vector<Sums>& h, int k_max) {
+  constexpr int kMax = 2 * kMaxHarmonics + 1;
   const int p = 2 * k_max + 1;
   auto cm = [&](int m) { return m == 0 ? 1.0 : h[static_cast<std::size_t>(std::abs(m))].c; };
   auto sm = [&](int m) {
     return m == 0 ? 0.0 : (m > 0 ? 1.0 : -1.0) * h[static_cast<std::size_t>(std::abs(m))].s;
   };
-  SmallMatrix a(p, p);
-  SmallVector r(p);
-  a(0, 0) = 1.0;
-  r(0) = 0.0;  // values are weighted-centred
+  double a[kMax][kMax];
+  double r[kMax];
+  a[0][0] = 1.0;
+  r[0] = 0.0;  // values are weighted-centred
   for (int i = 1; i <= k_max; ++i) {
     const int ci = 2 * i - 1, si = 2 * i;
-    a(0, ci) = a(ci, 0) = cm(i);
-    a(0, si) = a(si, 0) = sm(i);
-    r(ci) = h[static_cast<std::size_t>(i)].yc;
-    r(si) = h[static_cast<std::size_t>(i)].ys;
-    for (int j = 1; j <= k_max; ++j) {
+    a[ci][0] = cm(i);
+    a[si][0] = sm(i);
+    r[ci] = h[static_cast<std::size_t>(i)].yc;
+    r[si] = h[static_cast<std::size_t>(i)].ys;
+    for (int j = 1; j <= i; ++j) {  // the lower triangle is all Cholesky reads
       const int cj = 2 * j - 1, sj = 2 * j;
-      a(ci, cj) = 0.5 * (cm(i - j) + cm(i + j));
-      a(si, sj) = 0.5 * (cm(i - j) - cm(i + j));
-      a(ci, sj) = a(sj, ci) = 0.5 * (sm(i + j) - sm(i - j));
+      a[ci][cj] = 0.5 * (cm(i - j) + cm(i + j));
+      a[si][sj] = 0.5 * (cm(i - j) - cm(i + j));
+      a[si][cj] = 0.5 * (sm(i + j) + sm(i - j));  // sum w sin(ix) cos(jx)
+      if (j < i) a[ci][sj] = 0.5 * (sm(i + j) - sm(i - j));  // sum w cos(ix) sin(jx)
     }
   }
-  Eigen::LDLT<SmallMatrix> ldlt(a);
-  if (ldlt.info() != Eigen::Success) return 0.0;
-  double red = r.dot(ldlt.solve(r));
+  double red = 0;
+  for (int i = 0; i < p; ++i) {
+    for (int j = 0; j <= i; ++j) {
+      double v = a[i][j];
+      for (int k = 0; k < j; ++k) v -= a[i][k] * a[j][k];
+      if (i == j) {
+        if (!(v > 1e-14)) return 0.0;
+        a[i][i] = std::sqrt(v);
+      } else {
+        a[i][j] = v / a[j][j];
+      }
+    }
+    double z = r[i];
+    for (int k = 0; k < i; ++k) z -= a[i][k] * r[k];
+    r[i] = z / a[i][i];  // r now holds z
+    red += r[i] * r[i];
+  }
   return std::isfinite(red) ? red : 0.0;
 }
 

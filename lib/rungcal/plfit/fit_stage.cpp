@@ -293,6 +293,7 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
   FitSettings settings = rr.settings;
   settings.function_tolerance = 1e-9;
   settings.parameter_tolerance = 1e-8;
+  settings.initial_trust_region_radius = 1e8;
   auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
     auto draw = [&](Eigen::Index n) {
       std::vector<Eigen::Index> idx(static_cast<std::size_t>(n));

@@ -523,6 +523,7 @@ FitSolution solve_once(const FitData& d, const FitSettings& s, const ParameterLa
   so.function_tolerance = s.function_tolerance;
   so.gradient_tolerance = 1e-15;
   so.parameter_tolerance = s.parameter_tolerance;
+  so.initial_trust_region_radius = s.initial_trust_region_radius;
   so.logging_type = ceres::SILENT;
   so.num_threads = 1;
   ceres::Solver::Summary summary;

@@ -124,6 +124,9 @@ struct FitSettings {
   // resamples start at the optimum and need far less than their statistical error).
   double function_tolerance = 1e-15;
   double parameter_tolerance = 1e-13;
+  // Levenberg-Marquardt's first trust region (Ceres' default 1e4). A resample that starts
+  // one Gauss-Newton step from its optimum takes full steps at once with a larger one.
+  double initial_trust_region_radius = 1e4;
 };
 
 // The raw (non-robust) normalised residual of every star at a parameter vector, in the
