@@ -351,5 +351,18 @@ TEST(IngestBadInput, FitsCasesNameTheirRule) {
   EXPECT_FALSE(test::file_exists(dir.file("out")));
 }
 
+TEST(IngestChunks, AFitsCatalogReadInGroupsOfRowsGivesTheSameCatalog) {
+  // Groups of 7 rows (120 stars: 18 groups, the last short) against one read of the whole.
+  IngestOptions o = ingest_options_from_file(test::source_file("config/demo/ingest.toml"));
+  IngestResult whole = run_ingest(o);
+  o.chunk_rows = 7;
+  IngestResult chunked = run_ingest(o);
+  whole.catalog.header().clear();
+  chunked.catalog.header().clear();
+  EXPECT_EQ(format_csv_table(chunked.catalog), format_csv_table(whole.catalog));
+  EXPECT_EQ(chunked.rejected.size(), whole.rejected.size());
+  EXPECT_EQ(chunked.rows_read, 120u);
+}
+
 }  // namespace
 }  // namespace rungcal

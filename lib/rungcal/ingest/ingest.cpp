@@ -5,6 +5,7 @@
 #include <charconv>
 #include <cmath>
 #include <filesystem>
+#include <memory>
 #include <set>
 #include <unordered_map>
 
@@ -23,11 +24,11 @@ namespace {
 // config's [modes] / [classes] tables add to them.
 const std::map<std::string, std::string>& builtin_mode_aliases() {
   static const std::map<std::string, std::string> kAliases = {
-      {"F", "fundamental"},        {"FU", "fundamental"},       {"FM", "fundamental"},
-      {"DCEP_F", "fundamental"},   {"RRab", "fundamental"},     {"RRAB", "fundamental"},
-      {"1O", "first_overtone"},    {"FO", "first_overtone"},    {"1OT", "first_overtone"},
+      {"F", "fundamental"},          {"FU", "fundamental"},     {"FM", "fundamental"},
+      {"DCEP_F", "fundamental"},     {"RRab", "fundamental"},   {"RRAB", "fundamental"},
+      {"1O", "first_overtone"},      {"FO", "first_overtone"},  {"1OT", "first_overtone"},
       {"DCEP_1O", "first_overtone"}, {"RRc", "first_overtone"}, {"RRC", "first_overtone"},
-      {"2O", "second_overtone"},   {"RRd", "double_mode"},      {"F/1O", "double_mode"},
+      {"2O", "second_overtone"},     {"RRd", "double_mode"},    {"F/1O", "double_mode"},
       {"1O/2O", "double_mode"},
   };
   return kAliases;
@@ -36,7 +37,7 @@ const std::map<std::string, std::string>& builtin_mode_aliases() {
 const std::map<std::string, std::string>& builtin_class_aliases() {
   static const std::map<std::string, std::string> kAliases = {
       {"DCEP", "classical_cepheid"}, {"CEP", "classical_cepheid"}, {"T2CEP", "type2_cepheid"},
-      {"ACEP", "anomalous_cepheid"}, {"RRLYR", "rr_lyrae"},       {"RRL", "rr_lyrae"},
+      {"ACEP", "anomalous_cepheid"}, {"RRLYR", "rr_lyrae"},        {"RRL", "rr_lyrae"},
   };
   return kAliases;
 }
@@ -71,8 +72,10 @@ ValueSource value_source_from(const ConfigSection& s, const std::string& key) {
   v.column = t->string_or("column", "");
   v.unit = t->string_or("unit", "");
   if (t->has("value")) {
-    if (t->is_string("value")) v.constant = *t->get_string("value");
-    else v.constant = *t->get_number("value");
+    if (t->is_string("value"))
+      v.constant = *t->get_string("value");
+    else
+      v.constant = *t->get_number("value");
   }
   if (v.column.empty() == !v.constant.has_value())
     s.fail(key, "give exactly one of 'column' and 'value'");
@@ -102,7 +105,10 @@ Resolved resolve(const ValueSource& src, const std::string& key, QuantityKind ki
   if (src.column.empty()) {
     if (src.constant && std::holds_alternative<double>(*src.constant) && !src.unit.empty()) {
       auto conv = unit_conversion(kind, src.unit);
-      if (!conv) whole_file_error(o, "", "bad_unit", fmt::format("'{}' is not a unit for {} (accepted: {})", src.unit, key, accepted_units(kind)));
+      if (!conv)
+        whole_file_error(o, "", "bad_unit",
+                         fmt::format("'{}' is not a unit for {} (accepted: {})", src.unit, key,
+                                     accepted_units(kind)));
       r.constant = conv->apply(std::get<double>(*src.constant));
     }
     return r;
@@ -110,12 +116,15 @@ Resolved resolve(const ValueSource& src, const std::string& key, QuantityKind ki
   r.column_name = src.column;
   if (!in.table.has(src.column)) {
     auto bad = in.unusable_columns.find(src.column);
-    if (bad != in.unusable_columns.end()) whole_file_error(o, src.column, "column_type", bad->second);
+    if (bad != in.unusable_columns.end())
+      whole_file_error(o, src.column, "column_type", bad->second);
     std::string names;
     for (const auto& n : in.table.column_names()) names += (names.empty() ? "" : ", ") + n;
     if (names.size() > 300) names = names.substr(0, 300) + ", ...";
-    whole_file_error(o, src.column, "missing_column",
-                     fmt::format("the config maps {} to this column, which the file does not have (it has: {})", key, names));
+    whole_file_error(
+        o, src.column, "missing_column",
+        fmt::format("the config maps {} to this column, which the file does not have (it has: {})",
+                    key, names));
   }
   r.column = &in.table.column(src.column);
   std::string unit = src.unit.empty() ? r.column->unit : src.unit;
@@ -123,12 +132,15 @@ Resolved resolve(const ValueSource& src, const std::string& key, QuantityKind ki
   auto conv = unit_conversion(kind, unit);
   if (!conv)
     whole_file_error(o, src.column, "bad_unit",
-                     fmt::format("unit '{}' is not a unit for {} (accepted: {})", unit, key, accepted_units(kind)));
+                     fmt::format("unit '{}' is not a unit for {} (accepted: {})", unit, key,
+                                 accepted_units(kind)));
   if (!src.unit.empty() && !r.column->unit.empty() && r.column->unit != src.unit) {
     auto file_conv = unit_conversion(kind, r.column->unit);
-    if (!file_conv || file_conv->scale != conv->scale || file_conv->log10_input != conv->log10_input)
+    if (!file_conv || file_conv->scale != conv->scale ||
+        file_conv->log10_input != conv->log10_input)
       whole_file_error(o, src.column, "unit_conflict",
-                       fmt::format("the config says unit '{}' but the file's TUNIT says '{}'", src.unit, r.column->unit));
+                       fmt::format("the config says unit '{}' but the file's TUNIT says '{}'",
+                                   src.unit, r.column->unit));
   }
   r.conversion = *conv;
   // A numeric quantity in a text column none of whose values parse is a wrong mapping,
@@ -143,11 +155,16 @@ Resolved resolve(const ValueSource& src, const std::string& key, QuantityKind ki
         if (parse_double(r.column->text[i], x)) ++parsed;
       }
       if (nonnull > 0 && parsed == 0)
-        whole_file_error(o, src.column, "column_type",
-                         fmt::format("{} must be numeric, but no value in this column is a number (e.g. '{}')", key,
-                                     r.column->text[std::distance(r.column->null.begin(), std::find(r.column->null.begin(), r.column->null.end(), 0))]));
+        whole_file_error(
+            o, src.column, "column_type",
+            fmt::format("{} must be numeric, but no value in this column is a number (e.g. '{}')",
+                        key,
+                        r.column->text[std::distance(
+                            r.column->null.begin(),
+                            std::find(r.column->null.begin(), r.column->null.end(), 0))]));
     } else if (r.column->type == ColumnType::kBoolean) {
-      whole_file_error(o, src.column, "column_type", fmt::format("{} must be numeric, not a logical column", key));
+      whole_file_error(o, src.column, "column_type",
+                       fmt::format("{} must be numeric, not a logical column", key));
     }
   }
   return r;
@@ -157,24 +174,34 @@ Resolved resolve(const ValueSource& src, const std::string& key, QuantityKind ki
 std::optional<double> number_at(const Resolved& r, std::size_t row) {
   if (r.constant) {
     if (const double* d = std::get_if<double>(&*r.constant)) return *d;
-    throw RowReject{"not_a_number", "", fmt::format("{}: the constant given is not a number", r.key)};
+    throw RowReject{"not_a_number", "",
+                    fmt::format("{}: the constant given is not a number", r.key)};
   }
   if (!r.column || r.column->is_null(row)) return std::nullopt;
   double x = 0;
   switch (r.column->type) {
-    case ColumnType::kReal: x = r.column->real[row]; break;
-    case ColumnType::kInteger: x = static_cast<double>(r.column->integer[row]); break;
+    case ColumnType::kReal:
+      x = r.column->real[row];
+      break;
+    case ColumnType::kInteger:
+      x = static_cast<double>(r.column->integer[row]);
+      break;
     case ColumnType::kText:
       if (!parse_double(r.column->text[row], x))
-        throw RowReject{"not_a_number", r.column_name, fmt::format("{}: '{}' is not a number", r.key, r.column->text[row])};
+        throw RowReject{"not_a_number", r.column_name,
+                        fmt::format("{}: '{}' is not a number", r.key, r.column->text[row])};
       break;
-    case ColumnType::kBoolean: x = r.column->boolean[row]; break;
+    case ColumnType::kBoolean:
+      x = r.column->boolean[row];
+      break;
   }
   if (!std::isfinite(x))
-    throw RowReject{"not_finite", r.column_name, fmt::format("{}: value {} is not finite", r.key, x)};
+    throw RowReject{"not_finite", r.column_name,
+                    fmt::format("{}: value {} is not finite", r.key, x)};
   x = r.conversion.apply(x);
   if (!std::isfinite(x))
-    throw RowReject{"not_finite", r.column_name, fmt::format("{}: value is not finite after unit conversion", r.key)};
+    throw RowReject{"not_finite", r.column_name,
+                    fmt::format("{}: value is not finite after unit conversion", r.key)};
   return x;
 }
 
@@ -189,12 +216,18 @@ std::optional<std::string> text_at(const Resolved& r, std::size_t row) {
 
 bool compare(double a, SelectOp op, double b) {
   switch (op) {
-    case SelectOp::kEqual: return a == b;
-    case SelectOp::kNotEqual: return a != b;
-    case SelectOp::kLess: return a < b;
-    case SelectOp::kLessEqual: return a <= b;
-    case SelectOp::kGreater: return a > b;
-    case SelectOp::kGreaterEqual: return a >= b;
+    case SelectOp::kEqual:
+      return a == b;
+    case SelectOp::kNotEqual:
+      return a != b;
+    case SelectOp::kLess:
+      return a < b;
+    case SelectOp::kLessEqual:
+      return a <= b;
+    case SelectOp::kGreater:
+      return a > b;
+    case SelectOp::kGreaterEqual:
+      return a >= b;
   }
   return false;
 }
@@ -218,13 +251,16 @@ std::int64_t canonical_astrometric_params(double x) {
   if (x == 95) return 6;
   if (x == 3) return 2;
   if (x == 2 || x == 5 || x == 6) return static_cast<std::int64_t>(x);
-  throw RowReject{"bad_astrometric_params", "", fmt::format("astrometric parameters {} is not 2, 5, 6 (or Gaia's 3, 31, 95)", x)};
+  throw RowReject{"bad_astrometric_params", "",
+                  fmt::format("astrometric parameters {} is not 2, 5, 6 (or Gaia's 3, 31, 95)", x)};
 }
 
-std::string canonical_choice(const std::string& value, const std::map<std::string, std::string>& config_aliases,
+std::string canonical_choice(const std::string& value,
+                             const std::map<std::string, std::string>& config_aliases,
                              const std::map<std::string, std::string>& builtin, bool is_mode) {
   if (auto it = config_aliases.find(value); it != config_aliases.end()) return it->second;
-  if (is_mode ? kPulsationModeNames.parse(value).has_value() : kPulsatorClassNames.parse(value).has_value())
+  if (is_mode ? kPulsationModeNames.parse(value).has_value()
+              : kPulsatorClassNames.parse(value).has_value())
     return value;
   if (auto it = builtin.find(value); it != builtin.end()) return it->second;
   return "";
@@ -236,14 +272,15 @@ void read_alias_table(const ConfigSection& root, const std::string& name, bool i
   if (!sec) return;
   for (const auto& k : sec->keys()) {
     std::string target = *sec->get_string(k);
-    bool known = is_mode ? kPulsationModeNames.parse(target).has_value() : kPulsatorClassNames.parse(target).has_value();
+    bool known = is_mode ? kPulsationModeNames.parse(target).has_value()
+                         : kPulsatorClassNames.parse(target).has_value();
     if (!known)
-      sec->fail(k, fmt::format("'{}' is not one of: {}", target,
-                               is_mode ? kPulsationModeNames.choices() : kPulsatorClassNames.choices()));
+      sec->fail(
+          k, fmt::format("'{}' is not one of: {}", target,
+                         is_mode ? kPulsationModeNames.choices() : kPulsatorClassNames.choices()));
     out[k] = target;
   }
 }
-
 
 }  // namespace
 
@@ -255,19 +292,24 @@ std::string SelectRule::describe() const {
 std::string IngestOptions::check() const {
   if (input_path.empty()) return "source.path: required";
   if (catalog_path.empty()) return "output.catalog: required";
-  if (!quantities.count("id")) return "columns.id: required (which input column identifies each star)";
-  if (!quantities.count("period")) return "columns.period: required (a period or log-period column)";
+  if (chunk_rows < 1) return "source.chunk_rows: must be at least 1";
+  if (!quantities.count("id"))
+    return "columns.id: required (which input column identifies each star)";
+  if (!quantities.count("period"))
+    return "columns.period: required (a period or log-period column)";
   if (!quantities.count("mode"))
     return "columns.mode: required (a column, or mode = { value = \"fundamental\" } for all stars)";
   if (!quantities.count("pulsator_class"))
     return "columns.pulsator_class: required (a column, or { value = \"classical_cepheid\" })";
   if (bands.empty()) return "bands: at least one band is required";
-  if (!(magnitude_min < magnitude_max)) return "validate.magnitude_range: the minimum must be below the maximum";
+  if (!(magnitude_min < magnitude_max))
+    return "validate.magnitude_range: the minimum must be below the maximum";
   if (!(ebv_min < ebv_max)) return "validate.ebv_range: the minimum must be below the maximum";
   std::set<std::string> seen;
   for (const auto& b : bands) {
     if (b.band.empty() || b.band.find_first_of(" ,") != std::string::npos)
-      return fmt::format("bands.{}: a band name must be non-empty without spaces or commas", b.band);
+      return fmt::format("bands.{}: a band name must be non-empty without spaces or commas",
+                         b.band);
     if (!seen.insert(b.band).second) return fmt::format("bands.{}: named twice", b.band);
   }
   if (!input_is_fits) {
@@ -284,17 +326,20 @@ IngestOptions ingest_options_from_config(Config& config) {
 
   auto source = root.section("source");
   if (!source)
-    throw InputError({config.file(), {}, "source", "line", "key"}, "config_missing_key", "a [source] table is required");
+    throw InputError({config.file(), {}, "source", "line", "key"}, "config_missing_key",
+                     "a [source] table is required");
   TableSourceSpec spec = table_source_from_section(config, *source);
   o.input_path = spec.path;
   o.input_is_fits = spec.is_fits;
   o.hdu = spec.hdu;
   o.text = spec.text;
+  o.chunk_rows = source->integer_or("chunk_rows", o.chunk_rows);
 
   if (auto cols = root.section("columns")) {
     for (const auto& k : cols->keys()) {
       if (!find_quantity(k))
-        throw InputError({config.file(), cols->line_of(k), "columns." + k, "line", "key"}, "unknown_config_key",
+        throw InputError({config.file(), cols->line_of(k), "columns." + k, "line", "key"},
+                         "unknown_config_key",
                          "not a catalog quantity (see docs/file-formats.md for the list)");
       o.quantities[k] = value_source_from(*cols, k);
     }
@@ -329,11 +374,15 @@ IngestOptions ingest_options_from_config(Config& config) {
     r.column = sel.require_string("column");
     std::string op = sel.string_or("op", "==");
     auto parsed = kSelectOpNames.parse(op);
-    if (!parsed) sel.fail("op", fmt::format("'{}' is not one of: {}", op, kSelectOpNames.choices()));
+    if (!parsed)
+      sel.fail("op", fmt::format("'{}' is not one of: {}", op, kSelectOpNames.choices()));
     r.op = *parsed;
-    if (sel.is_string("value")) r.value = *sel.get_string("value");
-    else if (auto v = sel.get_number("value")) r.value = *v;
-    else sel.fail("value", "required: a number or a string");
+    if (sel.is_string("value"))
+      r.value = *sel.get_string("value");
+    else if (auto v = sel.get_number("value"))
+      r.value = *v;
+    else
+      sel.fail("value", "required: a number or a string");
     o.selection.push_back(r);
   }
   read_alias_table(root, "modes", true, o.mode_aliases);
@@ -355,11 +404,13 @@ IngestOptions ingest_options_from_config(Config& config) {
     o.lightcurves.summary_path = config.resolve_path(lc->require_string("summary"));
     std::string use = lc->string_or("use", "replace");
     auto parsed = kJoinUseNames.parse(use);
-    if (!parsed) lc->fail("use", fmt::format("'{}' is not one of: {}", use, kJoinUseNames.choices()));
+    if (!parsed)
+      lc->fail("use", fmt::format("'{}' is not one of: {}", use, kJoinUseNames.choices()));
     o.lightcurves.use = *parsed;
     if (auto b = lc->get_string_list("bands")) o.lightcurves.bands = *b;
     o.lightcurves.periods = lc->bool_or("periods", true);
-    o.lightcurves.warn_period_change = lc->number_or("warn_period_change", o.lightcurves.warn_period_change);
+    o.lightcurves.warn_period_change =
+        lc->number_or("warn_period_change", o.lightcurves.warn_period_change);
     if (!(o.lightcurves.warn_period_change > 0)) lc->fail("warn_period_change", "must be positive");
   }
   if (auto out = root.section("output")) {
@@ -399,15 +450,20 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
   SourceTable lc = read_fits_table(join.summary_path, {"SUMMARY", 0});
   const StarTable& s = lc.table;
   for (const char* c : {"id", "period_d", "usable"})
-    if (!s.has(c)) throw InputError({join.summary_path, {}, c}, "missing_column", "not a rungcal-lightcurve summary (HDU SUMMARY)");
-  result.provenance.inputs.push_back({join.summary_path, sha256_file(join.summary_path), static_cast<std::int64_t>(s.rows())});
+    if (!s.has(c))
+      throw InputError({join.summary_path, {}, c}, "missing_column",
+                       "not a rungcal-lightcurve summary (HDU SUMMARY)");
+  result.provenance.inputs.push_back(
+      {join.summary_path, sha256_file(join.summary_path), static_cast<std::int64_t>(s.rows())});
   std::vector<std::string> bands = join.bands;
   if (bands.empty())
     for (const auto& name : s.column_names())
       if (name.rfind("mag_err_", 0) == 0) bands.push_back(name.substr(8));
   for (const auto& b : bands)
     if (!s.has("mag_" + b) || !s.has("mag_err_" + b))
-      throw InputError({join.summary_path, {}, "mag_" + b}, "missing_column", fmt::format("[lightcurves] bands names {}, which the summary does not have", b));
+      throw InputError(
+          {join.summary_path, {}, "mag_" + b}, "missing_column",
+          fmt::format("[lightcurves] bands names {}, which the summary does not have", b));
 
   std::unordered_map<std::string, std::size_t> lc_row;
   for (std::size_t r = 0; r < s.rows(); ++r) lc_row.emplace(s.column("id").to_string(r), r);
@@ -440,8 +496,10 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       const double p_lc = s.column("period_d").real[k];
       const double p_cat = period.real[r];
       if (!period.is_null(r) && std::abs(p_lc / p_cat - 1) > join.warn_period_change)
-        spdlog::warn("{}: light-curve period {:.6f} d differs from the catalog's {:.6f} d by {:.2g}% (alias or a mode mix-up?)",
-                     cat.column(col::kId).text[r], p_lc, p_cat, 100 * std::abs(p_lc / p_cat - 1));
+        spdlog::warn(
+            "{}: light-curve period {:.6f} d differs from the catalog's {:.6f} d by {:.2g}% (alias "
+            "or a mode mix-up?)",
+            cat.column(col::kId).text[r], p_lc, p_cat, 100 * std::abs(p_lc / p_cat - 1));
       period.real[r] = p_lc;
       period.null[r] = 0;
       cat.column(col::kLogPeriod).real[r] = std::log10(p_lc);
@@ -467,190 +525,306 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       ++result.magnitudes_joined;
     }
   }
-  spdlog::info("light curves ({}): {} periods and {} band means joined; {} catalog stars have no light curve", join.summary_path,
-               result.periods_joined, result.magnitudes_joined, unmatched);
+  spdlog::info(
+      "light curves ({}): {} periods and {} band means joined; {} catalog stars have no light "
+      "curve",
+      join.summary_path, result.periods_joined, result.magnitudes_joined, unmatched);
 }
 
 IngestResult run_ingest(const IngestOptions& o) {
   throw_if_invalid(o.check(), o.config_file);
-  SourceTable in = o.input_is_fits ? read_fits_table(o.input_path, o.hdu) : read_text_table(o.input_path, o.text);
-  const std::size_t n = in.table.rows();
+  // FITS catalogs are read in groups of rows (a million-row table never sits in memory
+  // twice); text tables whole.
+  std::unique_ptr<FitsTableReader> reader;
+  SourceTable first_chunk;
+  if (o.input_is_fits) {
+    reader = std::make_unique<FitsTableReader>(o.input_path, o.hdu);
+    first_chunk = reader->read(0, o.chunk_rows);
+  } else {
+    first_chunk = read_text_table(o.input_path, o.text);
+  }
+  const std::size_t n =
+      reader ? static_cast<std::size_t>(reader->rows()) : first_chunk.table.rows();
   if (n == 0) throw InputError({o.input_path, {}, {}}, "empty_file", "the table has no rows");
 
   IngestResult result;
   result.rows_read = n;
   result.provenance = Provenance::for_stage("ingest");
   result.provenance.config_sha256 = o.config_sha256;
-  result.provenance.inputs.push_back({o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(n)});
+  result.provenance.inputs.push_back(
+      {o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(n)});
 
-  // Resolve every mapping before any row is read: mapping errors stop the whole file.
-  std::map<std::string, Resolved> q;
-  for (const auto& [k, src] : o.quantities) q[k] = resolve(src, k, find_quantity(k)->kind, in, o);
-  struct BandResolved { std::string band; Resolved mag, err; };
-  std::vector<BandResolved> bands;
-  for (const auto& b : o.bands)
-    bands.push_back({b.band, resolve(b.mag, "magnitude " + b.band, QuantityKind::kMagnitude, in, o),
-                     resolve(b.err, "magnitude error " + b.band, QuantityKind::kMagnitude, in, o)});
-  std::vector<const Column*> select_cols;
-  for (const auto& s : o.selection) {
-    if (!in.table.has(s.column)) whole_file_error(o, s.column, "missing_column", "a [[select]] rule names this column, which the file does not have");
-    select_cols.push_back(&in.table.column(s.column));
-  }
-  std::vector<const Column*> extra_cols;
-  for (const auto& e : o.extras) {
-    if (!in.table.has(e.column)) whole_file_error(o, e.column, "missing_column", fmt::format("[extra] {} names this column, which the file does not have", e.name));
-    extra_cols.push_back(&in.table.column(e.column));
-  }
-
-  // Output columns: fixed ones first, then the mapped quantities, bands and extras.
   StarTable& cat = result.catalog;
-  auto add = [&](const QuantitySpec& s) {
-    return &cat.add_column(std::string(s.column), s.type, canonical_unit(s.kind), std::string(s.description));
-  };
-  Column* c_id = add(*find_quantity("id"));
-  Column* c_row = &cat.add_column(col::kSourceRow, ColumnType::kInteger, "", "line or row in the input");
-  Column* c_period = add(*find_quantity("period"));
-  Column* c_logp = &cat.add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
+  Column *c_id = nullptr, *c_row = nullptr, *c_period = nullptr, *c_logp = nullptr;
   std::map<std::string, Column*> out_q;
-  for (const auto& spec : catalog_quantities()) {
-    std::string k(spec.key);
-    if (k == "id" || k == "period" || !q.count(k)) continue;
-    out_q[k] = add(spec);
-  }
   std::vector<std::pair<Column*, Column*>> out_bands;
   std::string band_list;
-  for (const auto& b : bands) {
-    // Two statements: the magnitude column must come before its error in the file.
-    Column* mag = &cat.add_column(magnitude_column(b.band), ColumnType::kReal, "mag", "mean magnitude in " + b.band);
-    Column* err = &cat.add_column(magnitude_error_column(b.band), ColumnType::kReal, "mag", "error of mag_" + b.band);
-    out_bands.emplace_back(mag, err);
-    band_list += (band_list.empty() ? "" : ",") + b.band;
-  }
   std::vector<Column*> out_extras;
-  for (std::size_t i = 0; i < o.extras.size(); ++i) {
-    const Column* src = extra_cols[i];
-    out_extras.push_back(&cat.add_column(o.extras[i].name, src->type, o.extras[i].unit.empty() ? src->unit : o.extras[i].unit,
-                                         "copied from input column " + o.extras[i].column));
-  }
   std::unordered_map<std::string, std::int64_t> first_row_of_id;
-  for (std::size_t r = 0; r < n; ++r) {
-    const std::int64_t src_row = in.source_rows[r];
-    std::string id;
-    try {
-      auto idv = text_at(q.at("id"), r);
-      if (!idv || idv->empty()) throw RowReject{"missing_required", q.at("id").column_name, "the star has no id"};
-      id = *idv;
-      auto [it, fresh] = first_row_of_id.emplace(id, src_row);
-      if (!fresh)
-        throw RowReject{"duplicate_id", q.at("id").column_name,
-                        fmt::format("id '{}' was already used at {} {}", id, in.row_label, it->second)};
-      auto period = number_at(q.at("period"), r);
-      if (!period) throw RowReject{"missing_required", q.at("period").column_name, "the star has no period"};
-      if (*period <= 0) throw RowReject{"period_nonpositive", q.at("period").column_name, fmt::format("period {} d is not positive", *period)};
-      for (std::size_t s = 0; s < o.selection.size(); ++s)
-        if (!select_row(o.selection[s], *select_cols[s], r))
-          throw RowReject{"selection", o.selection[s].column, "fails the selection " + o.selection[s].describe()};
-
-      auto mode_text = text_at(q.at("mode"), r);
-      if (!mode_text) throw RowReject{"missing_required", q.at("mode").column_name, "the star has no pulsation mode"};
-      std::string mode = canonical_choice(*mode_text, o.mode_aliases, builtin_mode_aliases(), true);
-      if (mode.empty())
-        throw RowReject{"unknown_mode", q.at("mode").column_name,
-                        fmt::format("mode '{}' is unknown (map it in [modes]; known: {})", *mode_text, kPulsationModeNames.choices())};
-      auto class_text = text_at(q.at("pulsator_class"), r);
-      if (!class_text) throw RowReject{"missing_required", q.at("pulsator_class").column_name, "the star has no pulsator class"};
-      std::string klass = canonical_choice(*class_text, o.class_aliases, builtin_class_aliases(), false);
-      if (klass.empty())
-        throw RowReject{"unknown_class", q.at("pulsator_class").column_name,
-                        fmt::format("class '{}' is unknown (map it in [classes]; known: {})", *class_text, kPulsatorClassNames.choices())};
-
-      // Numeric quantities, validated before anything is appended so a reject leaves no trace.
-      std::map<std::string, std::optional<double>> values;
-      for (const auto& [k, res] : q) {
-        const QuantitySpec* spec = find_quantity(k);
-        if (spec->type == ColumnType::kText || k == "period") continue;
-        values[k] = number_at(res, r);
-      }
-      auto get = [&](const char* k) -> std::optional<double> {
-        auto found = values.find(k);
-        return found == values.end() ? std::nullopt : found->second;
-      };
-      if (get("parallax")) {
-        auto e = get("parallax_err");
-        if (!e && o.require_errors) throw RowReject{"missing_error", q.count("parallax_err") ? q.at("parallax_err").column_name : "", "a parallax without its error"};
-        if (e && !(*e > 0)) throw RowReject{"parallax_error_nonpositive", q.at("parallax_err").column_name, fmt::format("parallax error {} mas is not positive", *e)};
-      }
-      if (auto e = get("ebv")) {
-        if (*e < o.ebv_min || *e > o.ebv_max)
-          throw RowReject{"ebv_out_of_range", q.at("ebv").column_name, fmt::format("E(B-V) = {} is outside [{}, {}]", *e, o.ebv_min, o.ebv_max)};
-      }
-      for (const char* k : {"ebv_err", "feh_err", "mu_err", "period_err"})
-        if (auto e = get(k); e && *e < 0) throw RowReject{"error_negative", q.at(k).column_name, fmt::format("{} = {} is negative", k, *e)};
-      std::optional<std::int64_t> astrometric;
-      if (auto a = get("astrometric_params")) {
-        try {
-          astrometric = canonical_astrometric_params(*a);
-        } catch (RowReject& rr) {
-          rr.column = q.at("astrometric_params").column_name;
-          throw;
-        }
-      }
-      std::vector<std::pair<std::optional<double>, std::optional<double>>> mags;
-      bool any_mag = false;
-      for (const auto& b : bands) {
-        auto m = number_at(b.mag, r);
-        auto e = b.err.present() ? number_at(b.err, r) : std::nullopt;
-        if (m) {
-          any_mag = true;
-          if (*m < o.magnitude_min || *m > o.magnitude_max)
-            throw RowReject{"magnitude_out_of_range", b.mag.column_name, fmt::format("{} = {} mag is outside [{}, {}]", b.band, *m, o.magnitude_min, o.magnitude_max)};
-          if (!e && o.require_errors) throw RowReject{"missing_error", b.err.column_name, fmt::format("{} magnitude without its error", b.band)};
-          if (e && !(*e > 0)) throw RowReject{"magnitude_error_nonpositive", b.err.column_name, fmt::format("{} error {} mag is not positive", b.band, *e)};
-        }
-        mags.emplace_back(m, m ? e : std::nullopt);
-      }
-      if (!any_mag) throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
-
-      // Accepted: append the row.
-      c_id->push_text(id);
-      c_row->push_integer(src_row);
-      c_period->push_real(*period);
-      c_logp->push_real(std::log10(*period));
-      for (auto& [k, out] : out_q) {
-        if (k == "mode") out->push_text(mode);
-        else if (k == "pulsator_class") out->push_text(klass);
-        else if (find_quantity(k)->type == ColumnType::kText) {
-          auto t = text_at(q.at(k), r);
-          t ? out->push_text(*t) : out->push_null();
-        } else if (k == "astrometric_params") {
-          astrometric ? out->push_integer(*astrometric) : out->push_null();
-        } else {
-          auto v = get(k.c_str());
-          v ? out->push_real(*v) : out->push_null();
-        }
-      }
-      for (std::size_t i = 0; i < mags.size(); ++i) {
-        mags[i].first ? out_bands[i].first->push_real(*mags[i].first) : out_bands[i].first->push_null();
-        mags[i].second ? out_bands[i].second->push_real(*mags[i].second) : out_bands[i].second->push_null();
-      }
-      for (std::size_t i = 0; i < out_extras.size(); ++i) {
-        const Column* s = extra_cols[i];
-        Column* d = out_extras[i];
-        if (s->is_null(r)) { d->push_null(); continue; }
-        switch (s->type) {
-          case ColumnType::kReal: d->push_real(s->real[r]); break;
-          case ColumnType::kInteger: d->push_integer(s->integer[r]); break;
-          case ColumnType::kText: d->push_text(s->text[r]); break;
-          case ColumnType::kBoolean: d->push_boolean(s->boolean[r] != 0); break;
-        }
-      }
-    } catch (const RowReject& rej) {
-      result.rejected.push_back({src_row, id, rej.rule, rej.column, rej.message});
+  auto process = [&](const SourceTable& in) {
+    // Resolve every mapping before any row is read: mapping errors stop the whole file.
+    std::map<std::string, Resolved> q;
+    for (const auto& [k, src] : o.quantities) q[k] = resolve(src, k, find_quantity(k)->kind, in, o);
+    struct BandResolved {
+      std::string band;
+      Resolved mag, err;
+    };
+    std::vector<BandResolved> bands;
+    for (const auto& b : o.bands)
+      bands.push_back(
+          {b.band, resolve(b.mag, "magnitude " + b.band, QuantityKind::kMagnitude, in, o),
+           resolve(b.err, "magnitude error " + b.band, QuantityKind::kMagnitude, in, o)});
+    std::vector<const Column*> select_cols;
+    for (const auto& s : o.selection) {
+      if (!in.table.has(s.column))
+        whole_file_error(o, s.column, "missing_column",
+                         "a [[select]] rule names this column, which the file does not have");
+      select_cols.push_back(&in.table.column(s.column));
     }
-  }
+    std::vector<const Column*> extra_cols;
+    for (const auto& e : o.extras) {
+      if (!in.table.has(e.column))
+        whole_file_error(
+            o, e.column, "missing_column",
+            fmt::format("[extra] {} names this column, which the file does not have", e.name));
+      extra_cols.push_back(&in.table.column(e.column));
+    }
+
+    // Output columns: fixed ones first, then the mapped quantities, bands and extras.
+    if (!c_id) {
+      auto add = [&](const QuantitySpec& s) {
+        return &cat.add_column(std::string(s.column), s.type, canonical_unit(s.kind),
+                               std::string(s.description));
+      };
+      c_id = add(*find_quantity("id"));
+      c_row =
+          &cat.add_column(col::kSourceRow, ColumnType::kInteger, "", "line or row in the input");
+      c_period = add(*find_quantity("period"));
+      c_logp =
+          &cat.add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
+      for (const auto& spec : catalog_quantities()) {
+        std::string k(spec.key);
+        if (k == "id" || k == "period" || !q.count(k)) continue;
+        out_q[k] = add(spec);
+      }
+      for (const auto& b : bands) {
+        // Two statements: the magnitude column must come before its error in the file.
+        Column* mag = &cat.add_column(magnitude_column(b.band), ColumnType::kReal, "mag",
+                                      "mean magnitude in " + b.band);
+        Column* err = &cat.add_column(magnitude_error_column(b.band), ColumnType::kReal, "mag",
+                                      "error of mag_" + b.band);
+        out_bands.emplace_back(mag, err);
+        band_list += (band_list.empty() ? "" : ",") + b.band;
+      }
+      for (std::size_t i = 0; i < o.extras.size(); ++i) {
+        const Column* src = extra_cols[i];
+        out_extras.push_back(&cat.add_column(
+            o.extras[i].name, src->type, o.extras[i].unit.empty() ? src->unit : o.extras[i].unit,
+            "copied from input column " + o.extras[i].column));
+      }
+    }
+    // Per-chunk lookups done once, not per row: the numeric quantities in slots, and what
+    // each output column takes.
+    std::vector<const Resolved*> numeric;
+    std::map<std::string, int> slot_of;
+    for (const auto& [k, res] : q) {
+      if (find_quantity(k)->type == ColumnType::kText || k == "period") continue;
+      slot_of[k] = static_cast<int>(numeric.size());
+      numeric.push_back(&res);
+    }
+    auto slot = [&](const char* k) {
+      auto it = slot_of.find(k);
+      return it == slot_of.end() ? -1 : it->second;
+    };
+    struct OutSource {
+      Column* out;
+      int kind;  // 0 mode, 1 class, 2 text, 3 astrometric, 4 numeric
+      const Resolved* text;
+      int slot;
+    };
+    std::vector<OutSource> out_sources;
+    for (auto& [k, out] : out_q) {
+      if (k == "mode") out_sources.push_back({out, 0, nullptr, -1});
+      else if (k == "pulsator_class") out_sources.push_back({out, 1, nullptr, -1});
+      else if (find_quantity(k)->type == ColumnType::kText) out_sources.push_back({out, 2, &q.at(k), -1});
+      else if (k == "astrometric_params") out_sources.push_back({out, 3, nullptr, -1});
+      else out_sources.push_back({out, 4, nullptr, slot(k.c_str())});
+    }
+    std::vector<std::optional<double>> values(numeric.size());
+    const int s_parallax = slot("parallax"), s_parallax_err = slot("parallax_err"), s_ebv = slot("ebv"),
+              s_astrometric = slot("astrometric_params");
+    std::vector<std::pair<std::string, int>> error_slots;
+    for (const char* k : {"ebv_err", "feh_err", "mu_err", "period_err"})
+      if (slot(k) >= 0) error_slots.emplace_back(k, slot(k));
+    for (std::size_t r = 0; r < in.table.rows(); ++r) {
+      const std::int64_t src_row = in.source_rows[r];
+      std::string id;
+      try {
+        auto idv = text_at(q.at("id"), r);
+        if (!idv || idv->empty())
+          throw RowReject{"missing_required", q.at("id").column_name, "the star has no id"};
+        id = *idv;
+        auto [it, fresh] = first_row_of_id.emplace(id, src_row);
+        if (!fresh)
+          throw RowReject{
+              "duplicate_id", q.at("id").column_name,
+              fmt::format("id '{}' was already used at {} {}", id, in.row_label, it->second)};
+        auto period = number_at(q.at("period"), r);
+        if (!period)
+          throw RowReject{"missing_required", q.at("period").column_name, "the star has no period"};
+        if (*period <= 0)
+          throw RowReject{"period_nonpositive", q.at("period").column_name,
+                          fmt::format("period {} d is not positive", *period)};
+        for (std::size_t s = 0; s < o.selection.size(); ++s)
+          if (!select_row(o.selection[s], *select_cols[s], r))
+            throw RowReject{"selection", o.selection[s].column,
+                            "fails the selection " + o.selection[s].describe()};
+
+        auto mode_text = text_at(q.at("mode"), r);
+        if (!mode_text)
+          throw RowReject{"missing_required", q.at("mode").column_name,
+                          "the star has no pulsation mode"};
+        std::string mode =
+            canonical_choice(*mode_text, o.mode_aliases, builtin_mode_aliases(), true);
+        if (mode.empty())
+          throw RowReject{"unknown_mode", q.at("mode").column_name,
+                          fmt::format("mode '{}' is unknown (map it in [modes]; known: {})",
+                                      *mode_text, kPulsationModeNames.choices())};
+        auto class_text = text_at(q.at("pulsator_class"), r);
+        if (!class_text)
+          throw RowReject{"missing_required", q.at("pulsator_class").column_name,
+                          "the star has no pulsator class"};
+        std::string klass =
+            canonical_choice(*class_text, o.class_aliases, builtin_class_aliases(), false);
+        if (klass.empty())
+          throw RowReject{"unknown_class", q.at("pulsator_class").column_name,
+                          fmt::format("class '{}' is unknown (map it in [classes]; known: {})",
+                                      *class_text, kPulsatorClassNames.choices())};
+
+        // Numeric quantities, validated before anything is appended so a reject leaves no trace.
+        for (std::size_t i = 0; i < numeric.size(); ++i) values[i] = number_at(*numeric[i], r);
+        auto get = [&](int i) -> std::optional<double> {
+          return i < 0 ? std::nullopt : values[static_cast<std::size_t>(i)];
+        };
+        if (get(s_parallax)) {
+          auto e = get(s_parallax_err);
+          if (!e && o.require_errors)
+            throw RowReject{"missing_error",
+                            q.count("parallax_err") ? q.at("parallax_err").column_name : "",
+                            "a parallax without its error"};
+          if (e && !(*e > 0))
+            throw RowReject{"parallax_error_nonpositive", q.at("parallax_err").column_name,
+                            fmt::format("parallax error {} mas is not positive", *e)};
+        }
+        if (auto e = get(s_ebv)) {
+          if (*e < o.ebv_min || *e > o.ebv_max)
+            throw RowReject{
+                "ebv_out_of_range", q.at("ebv").column_name,
+                fmt::format("E(B-V) = {} is outside [{}, {}]", *e, o.ebv_min, o.ebv_max)};
+        }
+        for (const auto& [k, i] : error_slots)
+          if (auto e = get(i); e && *e < 0)
+            throw RowReject{"error_negative", q.at(k).column_name,
+                            fmt::format("{} = {} is negative", k, *e)};
+        std::optional<std::int64_t> astrometric;
+        if (auto a = get(s_astrometric)) {
+          try {
+            astrometric = canonical_astrometric_params(*a);
+          } catch (RowReject& rr) {
+            rr.column = q.at("astrometric_params").column_name;
+            throw;
+          }
+        }
+        std::vector<std::pair<std::optional<double>, std::optional<double>>> mags;
+        bool any_mag = false;
+        for (const auto& b : bands) {
+          auto m = number_at(b.mag, r);
+          auto e = b.err.present() ? number_at(b.err, r) : std::nullopt;
+          if (m) {
+            any_mag = true;
+            if (*m < o.magnitude_min || *m > o.magnitude_max)
+              throw RowReject{"magnitude_out_of_range", b.mag.column_name,
+                              fmt::format("{} = {} mag is outside [{}, {}]", b.band, *m,
+                                          o.magnitude_min, o.magnitude_max)};
+            if (!e && o.require_errors)
+              throw RowReject{"missing_error", b.err.column_name,
+                              fmt::format("{} magnitude without its error", b.band)};
+            if (e && !(*e > 0))
+              throw RowReject{"magnitude_error_nonpositive", b.err.column_name,
+                              fmt::format("{} error {} mag is not positive", b.band, *e)};
+          }
+          mags.emplace_back(m, m ? e : std::nullopt);
+        }
+        if (!any_mag)
+          throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
+
+        // Accepted: append the row.
+        c_id->push_text(id);
+        c_row->push_integer(src_row);
+        c_period->push_real(*period);
+        c_logp->push_real(std::log10(*period));
+        for (const auto& src : out_sources) {
+          Column* out = src.out;
+          if (src.kind == 0) {
+            out->push_text(mode);
+          } else if (src.kind == 1) {
+            out->push_text(klass);
+          } else if (src.kind == 2) {
+            auto t = text_at(*src.text, r);
+            t ? out->push_text(*t) : out->push_null();
+          } else if (src.kind == 3) {
+            astrometric ? out->push_integer(*astrometric) : out->push_null();
+          } else {
+            const auto& v = src.slot < 0 ? std::optional<double>{} : values[static_cast<std::size_t>(src.slot)];
+            v ? out->push_real(*v) : out->push_null();
+          }
+        }
+        for (std::size_t i = 0; i < mags.size(); ++i) {
+          mags[i].first ? out_bands[i].first->push_real(*mags[i].first)
+                        : out_bands[i].first->push_null();
+          mags[i].second ? out_bands[i].second->push_real(*mags[i].second)
+                         : out_bands[i].second->push_null();
+        }
+        for (std::size_t i = 0; i < out_extras.size(); ++i) {
+          const Column* s = extra_cols[i];
+          Column* d = out_extras[i];
+          if (s->is_null(r)) {
+            d->push_null();
+            continue;
+          }
+          switch (s->type) {
+            case ColumnType::kReal:
+              d->push_real(s->real[r]);
+              break;
+            case ColumnType::kInteger:
+              d->push_integer(s->integer[r]);
+              break;
+            case ColumnType::kText:
+              d->push_text(s->text[r]);
+              break;
+            case ColumnType::kBoolean:
+              d->push_boolean(s->boolean[r] != 0);
+              break;
+          }
+        }
+      } catch (const RowReject& rej) {
+        result.rejected.push_back({src_row, id, rej.rule, rej.column, rej.message});
+      }
+    }
+  };
+  process(first_chunk);
+  first_chunk = SourceTable{};
+  for (std::size_t start = static_cast<std::size_t>(o.chunk_rows); reader && start < n;
+       start += static_cast<std::size_t>(o.chunk_rows))
+    process(reader->read(static_cast<std::int64_t>(start), o.chunk_rows));
   if (cat.rows() == 0) {
-    std::string first = result.rejected.empty() ? "" : fmt::format(" (first: {} {}: [{}] {})", in.row_label, result.rejected[0].source_row, result.rejected[0].rule, result.rejected[0].message);
-    throw InputError({o.input_path, {}, {}}, "no_rows_left", fmt::format("all {} rows were rejected{}", n, first));
+    std::string first =
+        result.rejected.empty()
+            ? ""
+            : fmt::format(" (first: {} {}: [{}] {})", (reader ? "row" : "line"), result.rejected[0].source_row,
+                          result.rejected[0].rule, result.rejected[0].message);
+    throw InputError({o.input_path, {}, {}}, "no_rows_left",
+                     fmt::format("all {} rows were rejected{}", n, first));
   }
   cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
   if (!o.lightcurves.summary_path.empty()) join_lightcurve_summary(cat, o.lightcurves, result);

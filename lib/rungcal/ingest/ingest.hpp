@@ -90,6 +90,7 @@ struct IngestOptions {
   double ebv_max = 10.0;
   bool require_errors = true;    // a value without its error (magnitude, parallax) rejects the row
   LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
+  std::int64_t chunk_rows = 100000;  // FITS rows read at a time ([source] chunk_rows)
   std::string catalog_path = "out/catalog.fits";   // the FITS catalog product
   std::string rejects_csv_path;  // human-readable rejects; "" = beside the catalog
   std::string config_file;       // for messages and provenance

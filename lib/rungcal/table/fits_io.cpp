@@ -127,7 +127,8 @@ void move_to_hdu(fitsfile* f, const std::string& path, const FitsHduChoice& hdu)
     throw InputError({path, {}, {}}, "fits_hdu", "the chosen HDU is not a binary table");
 }
 
-void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG nrows, SourceTable& out) {
+// Reads rows first .. first + nrows - 1 (1-based) of one column.
+void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG first, LONGLONG nrows, SourceTable& out) {
   int status = 0, typecode = 0;
   LONGLONG repeat = 0, width = 0;
   char ttype[FLEN_VALUE] = {0};
@@ -142,17 +143,22 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG nrow
   int anynul = 0;
 
   if (typecode == TSTRING) {
-      std::vector<char> buf(static_cast<std::size_t>(width) + 1, 0);
+    // One call for all the rows: a buffer of fixed-width strings and a pointer to each.
+    const std::size_t w = static_cast<std::size_t>(width) + 1;
+    std::vector<char> buf(n * w, 0);
+    std::vector<char*> ptrs(n);
+    for (std::size_t r = 0; r < n; ++r) ptrs[r] = buf.data() + r * w;
     Column& col = out.table.add_column(name, ColumnType::kText, unit);
     col.resize(n);
+    if (n > 0) {
+      fits_read_col_str(f, colnum, first, 1, nrows, const_cast<char*>(""), ptrs.data(), &anynul, &status);
+      check_status(status, path, fmt::format("reading rows {} to {}", first, first + nrows - 1), name);
+    }
     for (std::size_t r = 0; r < n; ++r) {
-      char* p = buf.data();
-      fits_read_col_str(f, colnum, static_cast<LONGLONG>(r) + 1, 1, 1, const_cast<char*>(""), &p, &anynul, &status);
-      check_status(status, path, fmt::format("reading row {}", r + 1), name);
-      std::string v = buf.data();
+      std::string v = ptrs[r];
       while (!v.empty() && v.back() == ' ') v.pop_back();
       col.null[r] = v.empty() ? 1 : 0;
-      col.text[r] = v;
+      col.text[r] = std::move(v);
     }
     return;
   }
@@ -166,7 +172,7 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG nrow
   }
   if (typecode == TLOGICAL) {
     std::vector<char> v(n, 0);
-    fits_read_colnull_log(f, colnum, 1, 1, nrows, v.data(), nulls.data(), &anynul, &status);
+    fits_read_colnull_log(f, colnum, first, 1, nrows, v.data(), nulls.data(), &anynul, &status);
     check_status(status, path, "reading", name);
     Column& col = out.table.add_column(name, ColumnType::kBoolean, unit);
     col.resize(n);
@@ -177,7 +183,7 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG nrow
   } else if (typecode == TFLOAT || typecode == TDOUBLE) {
     Column& col = out.table.add_column(name, ColumnType::kReal, unit);
     col.resize(n);
-    fits_read_colnull_dbl(f, colnum, 1, 1, nrows, col.real.data(), nulls.data(), &anynul, &status);
+    fits_read_colnull_dbl(f, colnum, first, 1, nrows, col.real.data(), nulls.data(), &anynul, &status);
     check_status(status, path, "reading", name);
     for (std::size_t r = 0; r < n; ++r) {
       bool is_null = nulls[r] || std::isnan(col.real[r]);
@@ -190,7 +196,7 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG nrow
     Column& col = out.table.add_column(name, ColumnType::kInteger, unit);
     col.resize(n);
     std::vector<LONGLONG> v(n, 0);
-    fits_read_colnull_lnglng(f, colnum, 1, 1, nrows, v.data(), nulls.data(), &anynul, &status);
+    fits_read_colnull_lnglng(f, colnum, first, 1, nrows, v.data(), nulls.data(), &anynul, &status);
     check_status(status, path, "reading", name);
     for (std::size_t r = 0; r < n; ++r) {
       col.integer[r] = v[r];
@@ -333,7 +339,22 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
   for (const auto& k : t.header()) write_keyword(f, k, path);
 }
 
-SourceTable read_fits_table_unchecked(const std::string& path, const FitsHduChoice& hdu);
+
+// A binary-table TFORM with a character width of zero ('9A0', the rAw convention) makes
+// CCfits divide by it (found by fuzz/fuzz_fits_table): refused here.
+void check_tform(const std::string& path, int hdu, const std::string& key, const std::string& value) {
+  const auto open = value.find('\''), close = value.find('\'', open + 1);
+  if (open == std::string::npos || close == std::string::npos) return;
+  std::string tform;
+  for (char ch : value.substr(open + 1, close - open - 1))
+    if (ch != ' ') tform += ch;
+  const auto a = tform.find('A');
+  if (a == std::string::npos || a + 1 >= tform.size()) return;
+  const std::string width = tform.substr(a + 1);
+  if (width.find_first_not_of("0123456789") == std::string::npos && std::stoll(width) == 0)
+    throw InputError({path, {}, {}}, "fits_read",
+                     fmt::format("HDU {} {} = '{}' has a character width of 0: corrupt header", hdu, key, tform));
+}
 
 // Walks the headers before cfitsio does: every HDU's declared data must lie inside the
 // file, and TFIELDS must be within the standard's 0..999 (FITS 4.0, section 7.2.1). A
@@ -369,6 +390,7 @@ void check_declared_sizes(const std::string& path) {
         break;
       }
       if (card[8] != '=') continue;
+      if (key.rfind("TFORM", 0) == 0) check_tform(path, hdu, key, std::string(card + 10, kCard - 10));
       const bool structural = key == "BITPIX" || key == "PCOUNT" || key == "GCOUNT" || key == "TFIELDS" || key.rfind("NAXIS", 0) == 0;
       if (!structural) continue;
       // A structural keyword's value is an integer, then blanks or a comment (FITS 4.0,
@@ -414,47 +436,71 @@ struct FitsFileCloser {
   }
 };
 
+// FITS files are whole 2880-byte blocks; a file that is not was cut short: say so.
+[[noreturn]] void rethrow_with_size_hint(const InputError& e, const std::string& path) {
+  if (std::filesystem::file_size(path) % 2880 == 0) throw e;
+  throw InputError(e.where(), e.rule(),
+                   e.detail() + fmt::format(" (the file is {} bytes, not a multiple of 2880: truncated?)",
+                                            std::filesystem::file_size(path)));
+}
+
 }  // namespace
 
-SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu) {
-  if (!std::filesystem::is_regular_file(path))
-    throw InputError({path, {}, {}}, "unreadable_file", "no such file");
+struct FitsTableReader::Impl {
+  std::unique_ptr<CCfits::FITS> fits;
+  fitsfile* f = nullptr;
+  std::string path;
+  LONGLONG rows = 0;
+  int columns = 0;
+};
+
+FitsTableReader::FitsTableReader(const std::string& path, const FitsHduChoice& hdu) : impl_(std::make_unique<Impl>()) {
+  if (!std::filesystem::is_regular_file(path)) throw InputError({path, {}, {}}, "unreadable_file", "no such file");
+  impl_->path = path;
   try {
     check_declared_sizes(path);
-    return read_fits_table_unchecked(path, hdu);
+    // CCfits opens the file and checks the primary header; cfitsio does the null-aware reads.
+    try {
+      CCfits::FITS::setVerboseMode(false);
+      impl_->fits = std::make_unique<CCfits::FITS>(path, CCfits::Read, false);
+    } catch (const CCfits::FitsException& e) {
+      throw InputError({path, {}, {}}, "fits_read", "not a readable FITS file: " + e.message());
+    }
+    impl_->f = impl_->fits->fitsPointer();
+    move_to_hdu(impl_->f, path, hdu);
+    int status = 0;
+    fits_get_num_rowsll(impl_->f, &impl_->rows, &status);
+    fits_get_num_cols(impl_->f, &impl_->columns, &status);
+    check_status(status, path, "reading the table size");
   } catch (const InputError& e) {
-    // FITS files are whole 2880-byte blocks; a file that is not was cut short.
-    if (std::filesystem::file_size(path) % 2880 == 0) throw;
-    throw InputError(e.where(), e.rule(), e.detail() + fmt::format(" (the file is {} bytes, not a multiple of 2880: truncated?)", std::filesystem::file_size(path)));
+    rethrow_with_size_hint(e, path);
   }
 }
 
-namespace {
-SourceTable read_fits_table_unchecked(const std::string& path, const FitsHduChoice& hdu) {
-  // CCfits opens the file and checks the primary header; cfitsio does the null-aware reads.
-  std::unique_ptr<CCfits::FITS> fits;
-  try {
-    CCfits::FITS::setVerboseMode(false);
-    fits = std::make_unique<CCfits::FITS>(path, CCfits::Read, false);
-  } catch (const CCfits::FitsException& e) {
-    throw InputError({path, {}, {}}, "fits_read", "not a readable FITS file: " + e.message());
-  }
-  fitsfile* f = fits->fitsPointer();
-  move_to_hdu(f, path, hdu);
+FitsTableReader::~FitsTableReader() = default;
 
+std::int64_t FitsTableReader::rows() const { return impl_->rows; }
+
+SourceTable FitsTableReader::read(std::int64_t first, std::int64_t count) {
+  const LONGLONG begin = std::clamp<LONGLONG>(first, 0, impl_->rows);
+  const LONGLONG n = count < 0 ? impl_->rows - begin : std::min<LONGLONG>(count, impl_->rows - begin);
   SourceTable out;
-  out.file = path;
-  int status = 0, ncols = 0;
-  LONGLONG nrows = 0;
-  fits_get_num_rowsll(f, &nrows, &status);
-  fits_get_num_cols(f, &ncols, &status);
-  check_status(status, path, "reading the table size");
-  for (int c = 1; c <= ncols; ++c) read_column(f, path, c, nrows, out);
-  read_header_keywords(f, path, out.table);
-  for (LONGLONG r = 1; r <= nrows; ++r) out.source_rows.push_back(r);
+  out.file = impl_->path;
+  try {
+    for (int c = 1; c <= impl_->columns; ++c) read_column(impl_->f, impl_->path, c, begin + 1, n, out);
+    read_header_keywords(impl_->f, impl_->path, out.table);
+  } catch (const InputError& e) {
+    rethrow_with_size_hint(e, impl_->path);
+  }
+  out.source_rows.reserve(static_cast<std::size_t>(n));
+  for (LONGLONG r = 1; r <= n; ++r) out.source_rows.push_back(begin + r);
   return out;
 }
-}  // namespace
+
+SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu) {
+  FitsTableReader reader(path, hdu);
+  return reader.read(0, -1);
+}
 
 void write_fits_tables(const std::string& path, const std::vector<NamedTable>& tables) {
   AtomicOutput out(path);

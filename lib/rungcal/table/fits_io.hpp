@@ -1,6 +1,8 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <cstdint>
+#include <memory>
 #include <string>
 #include <utility>
 #include <vector>
@@ -23,6 +25,25 @@ struct FitsHduChoice {
 // "fits_read" (truncated or corrupt file, cfitsio's message included), "fits_hdu" (no such
 // HDU, or not a binary table), "empty_file".
 SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu = {});
+
+// A binary-table HDU opened once and read in row ranges, so a large catalog can be taken
+// in groups of rows without holding it whole. Same rules and errors as read_fits_table.
+class FitsTableReader {
+ public:
+  FitsTableReader(const std::string& path, const FitsHduChoice& hdu = {});
+  ~FitsTableReader();
+  FitsTableReader(const FitsTableReader&) = delete;
+  FitsTableReader& operator=(const FitsTableReader&) = delete;
+
+  std::int64_t rows() const;
+  // Rows first .. first + count - 1 (0-based; count < 0: to the end); source_rows stay the
+  // file's 1-based row numbers.
+  SourceTable read(std::int64_t first, std::int64_t count);
+
+ private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
 
 // A table and the EXTNAME it is written under.
 using NamedTable = std::pair<std::string, const StarTable*>;
