@@ -5,16 +5,22 @@
 # configs). The corpus grows in BUILD/corpus/ from run to run; findings (crash-*, leak-*,
 # timeout-*, oom-*) land in BUILD/findings/<target>/ and make the script exit 1.
 #   scripts/fuzz.sh                      # 60 s per target
-#   scripts/fuzz.sh --seconds 3600       # an hour per target; see docs/operations.md
+#   scripts/fuzz.sh --seconds 3600       # an hour per target (DEVELOPERS.md)
+#   scripts/fuzz.sh --runs 300 --seed 1  # a fixed number of inputs from a fixed seed:
+#                                        # the same run every time (the test suite's smoke run)
 set -euo pipefail
 cd "$(dirname "$0")/.."
 seconds=60
+runs=0
+seed=0
 build=build-fuzz
 while [ $# -gt 0 ]; do
   case "$1" in
     --seconds) seconds=$2; shift 2 ;;
     --build) build=$2; shift 2 ;;
-    *) echo "fuzz.sh: unknown option $1 (--seconds N, --build DIR)" >&2; exit 2 ;;
+    --runs) runs=$2; shift 2 ;;
+    --seed) seed=$2; shift 2 ;;
+    *) echo "fuzz.sh: unknown option $1 (--seconds N, --runs N, --seed N, --build DIR)" >&2; exit 2 ;;
   esac
 done
 cmake -S . -B "$build" -DCMAKE_CXX_COMPILER=clang++ -DCMAKE_BUILD_TYPE=RelWithDebInfo -DRUNGCAL_FUZZ=ON \
@@ -43,7 +49,10 @@ for target in fuzz_text_table fuzz_fits_table fuzz_config; do
   findings="$build/findings/$target"
   mkdir -p "$corpus" "$findings"
   echo "== $target: $seconds s"
-  if ! "$build/fuzz/$target" -max_total_time="$seconds" -max_len=65536 -timeout=10 -rss_limit_mb=4096 \
+  extra=()
+  [ "$runs" -gt 0 ] && extra+=(-runs="$runs")
+  [ "$seed" -gt 0 ] && extra+=(-seed="$seed")
+  if ! "$build/fuzz/$target" "${extra[@]}" -max_total_time="$seconds" -max_len=65536 -timeout=10 -rss_limit_mb=4096 \
        -artifact_prefix="$findings/" -print_final_stats=1 "$corpus" "$seeds/$target" > "$build/$target.log" 2>&1; then
     echo "$target: FOUND A PROBLEM (see $build/$target.log and $findings/)"
     status=1

@@ -3,6 +3,8 @@
 // ingest through config/reference/*.toml, rows break named rules, bad inputs stop cleanly.
 #include <gtest/gtest.h>
 
+#include <ostream>
+
 #include <cmath>
 #include <filesystem>
 
@@ -224,6 +226,9 @@ struct BadCase {
   int exit_code = 2;
   std::string args;     // command-line args; default --config c.toml
 };
+
+// Test names in listings, not the struct's bytes.
+void PrintTo(const BadCase& c, std::ostream* os) { *os << c.name; }
 
 BadCase bad(const char* name, std::string config, std::string input, std::string input_name,
             std::string rule, int exit_code = 2, std::string args = "") {

@@ -12,6 +12,7 @@
 #include <filesystem>
 #include <limits>
 #include <memory>
+#include <set>
 #include <vector>
 
 #include <fmt/format.h>
@@ -370,6 +371,8 @@ void check_declared_sizes(const std::string& path) {
   for (int hdu = 1; offset < size; ++hdu) {
     long long bitpix = 8, naxis = 0, pcount = 0, gcount = 1, tfields = 0;
     std::vector<long long> axes;
+    bool bintable = false;
+    std::set<long long> named, formed;  // n of each TTYPEn and TFORMn seen
     bool end = false;
     char card[kCard + 1] = {};
     while (!end) {
@@ -390,7 +393,12 @@ void check_declared_sizes(const std::string& path) {
         break;
       }
       if (card[8] != '=') continue;
-      if (key.rfind("TFORM", 0) == 0) check_tform(path, hdu, key, std::string(card + 10, kCard - 10));
+      if (key == "XTENSION") bintable = std::string(card + 10, kCard - 10).find("'BINTABLE'") != std::string::npos;
+      if (key.rfind("TFORM", 0) == 0) {
+        check_tform(path, hdu, key, std::string(card + 10, kCard - 10));
+        formed.insert(std::strtoll(key.c_str() + 5, nullptr, 10));
+      }
+      if (key.rfind("TTYPE", 0) == 0) named.insert(std::strtoll(key.c_str() + 5, nullptr, 10));
       const bool structural = key == "BITPIX" || key == "PCOUNT" || key == "GCOUNT" || key == "TFIELDS" || key.rfind("NAXIS", 0) == 0;
       if (!structural) continue;
       // A structural keyword's value is an integer, then blanks or a comment (FITS 4.0,
@@ -413,6 +421,13 @@ void check_declared_sizes(const std::string& path) {
     offset = (offset + kBlock - 1) / kBlock * kBlock;
     if (tfields < 0 || tfields > 999)
       throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} declares TFIELDS = {}; the standard allows 0 to 999", hdu, tfields));
+    // Every column of a binary table needs its TFORMn (FITS 4.0, section 7.3.1) and, for
+    // rungcal and for CCfits (which reads past its buffer without it: fuzz finding), TTYPEn.
+    for (long long c = 1; bintable && c <= tfields; ++c)
+      if (!formed.count(c) || !named.count(c))
+        throw InputError({path, {}, {}}, "fits_read",
+                         fmt::format("HDU {} column {} has no {}: every column needs a TFORMn and a TTYPEn", hdu, c,
+                                     formed.count(c) ? fmt::format("TTYPE{}", c) : fmt::format("TFORM{}", c)));
     if (naxis < 0 || naxis > 999 || static_cast<long long>(axes.size()) < naxis || pcount < 0 || gcount < 0)
       throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} has a malformed NAXIS/PCOUNT/GCOUNT header", hdu));
     // Data bytes = |BITPIX|/8 * GCOUNT * (PCOUNT + NAXIS1 * ... * NAXISn), computed in long
