@@ -39,18 +39,20 @@ std::string cfitsio_message(int status) {
 void check_status(int status, const std::string& path, const std::string& what,
                   const std::string& column = "") {
   if (status == 0) return;
-  throw InputError({path, {}, column}, "fits_read", fmt::format("{}: {}", what, cfitsio_message(status)));
+  throw InputError({path, {}, column}, "fits_read",
+                   fmt::format("{}: {}", what, cfitsio_message(status)));
 }
 
 // Structural keywords that describe the table itself, not its content.
 bool is_structural_keyword(const std::string& k) {
-  static const char* const kFixed[] = {"XTENSION", "BITPIX", "NAXIS", "PCOUNT", "GCOUNT", "TFIELDS",
-                                       "EXTNAME", "SIMPLE", "EXTEND", "COMMENT", "HISTORY", "",
-                                       "LONGSTRN", "CONTINUE", "END"};
+  static const char* const kFixed[] = {"XTENSION", "BITPIX",  "NAXIS",    "PCOUNT",   "GCOUNT",
+                                       "TFIELDS",  "EXTNAME", "SIMPLE",   "EXTEND",   "COMMENT",
+                                       "HISTORY",  "",        "LONGSTRN", "CONTINUE", "END"};
   for (const char* f : kFixed)
     if (k == f) return true;
   if (k.rfind("NAXIS", 0) == 0) return true;
-  static const char* const kIndexed[] = {"TTYPE", "TFORM", "TUNIT", "TNULL", "TDISP", "TSCAL", "TZERO", "TDIM"};
+  static const char* const kIndexed[] = {"TTYPE", "TFORM", "TUNIT", "TNULL",
+                                         "TDISP", "TSCAL", "TZERO", "TDIM"};
   for (const char* p : kIndexed) {
     std::size_t n = std::strlen(p);
     if (k.size() > n && k.compare(0, n, p) == 0 &&
@@ -105,13 +107,15 @@ void move_to_hdu(fitsfile* f, const std::string& path, const FitsHduChoice& hdu)
   if (!hdu.name.empty()) {
     fits_movnam_hdu(f, ANY_HDU, const_cast<char*>(hdu.name.c_str()), 0, &status);
     if (status == BAD_HDU_NUM)
-      throw InputError({path, {}, {}}, "fits_hdu", fmt::format("the file has no HDU named '{}'", hdu.name));
+      throw InputError({path, {}, {}}, "fits_hdu",
+                       fmt::format("the file has no HDU named '{}'", hdu.name));
     check_status(status, path, "moving to HDU " + hdu.name);
     fits_get_hdu_type(f, &hdutype, &status);
   } else if (hdu.index > 0) {
     fits_movabs_hdu(f, hdu.index + 1, &hdutype, &status);
     if (status == END_OF_FILE || status == BAD_HDU_NUM)
-      throw InputError({path, {}, {}}, "fits_hdu", fmt::format("the file has no extension number {}", hdu.index));
+      throw InputError({path, {}, {}}, "fits_hdu",
+                       fmt::format("the file has no extension number {}", hdu.index));
     check_status(status, path, fmt::format("moving to extension {}", hdu.index));
   } else {
     int n = 0;
@@ -129,7 +133,8 @@ void move_to_hdu(fitsfile* f, const std::string& path, const FitsHduChoice& hdu)
 }
 
 // Reads rows first .. first + nrows - 1 (1-based) of one column.
-void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG first, LONGLONG nrows, SourceTable& out) {
+void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG first, LONGLONG nrows,
+                 SourceTable& out) {
   int status = 0, typecode = 0;
   LONGLONG repeat = 0, width = 0;
   char ttype[FLEN_VALUE] = {0};
@@ -152,8 +157,10 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG firs
     Column& col = out.table.add_column(name, ColumnType::kText, unit);
     col.resize(n);
     if (n > 0) {
-      fits_read_col_str(f, colnum, first, 1, nrows, const_cast<char*>(""), ptrs.data(), &anynul, &status);
-      check_status(status, path, fmt::format("reading rows {} to {}", first, first + nrows - 1), name);
+      fits_read_col_str(f, colnum, first, 1, nrows, const_cast<char*>(""), ptrs.data(), &anynul,
+                        &status);
+      check_status(status, path, fmt::format("reading rows {} to {}", first, first + nrows - 1),
+                   name);
     }
     for (std::size_t r = 0; r < n; ++r) {
       std::string v = ptrs[r];
@@ -164,7 +171,8 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG firs
     return;
   }
   if (repeat != 1) {
-    out.unusable_columns[name] = fmt::format("a vector column ({} values per row) cannot be mapped", repeat);
+    out.unusable_columns[name] =
+        fmt::format("a vector column ({} values per row) cannot be mapped", repeat);
     return;
   }
   if (nrows == 0) {
@@ -184,7 +192,8 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG firs
   } else if (typecode == TFLOAT || typecode == TDOUBLE) {
     Column& col = out.table.add_column(name, ColumnType::kReal, unit);
     col.resize(n);
-    fits_read_colnull_dbl(f, colnum, first, 1, nrows, col.real.data(), nulls.data(), &anynul, &status);
+    fits_read_colnull_dbl(f, colnum, first, 1, nrows, col.real.data(), nulls.data(), &anynul,
+                          &status);
     check_status(status, path, "reading", name);
     for (std::size_t r = 0; r < n; ++r) {
       bool is_null = nulls[r] || std::isnan(col.real[r]);
@@ -210,9 +219,12 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG firs
 
 std::string tform_for(const Column& c) {
   switch (c.type) {
-    case ColumnType::kReal: return "1D";
-    case ColumnType::kInteger: return "1K";
-    case ColumnType::kBoolean: return "1L";
+    case ColumnType::kReal:
+      return "1D";
+    case ColumnType::kInteger:
+      return "1K";
+    case ColumnType::kBoolean:
+      return "1L";
     case ColumnType::kText: {
       std::size_t w = 1;
       for (std::size_t r = 0; r < c.size(); ++r)
@@ -225,15 +237,20 @@ std::string tform_for(const Column& c) {
 
 std::size_t field_width(const Column& c, const std::string& tform) {
   switch (c.type) {
-    case ColumnType::kReal: case ColumnType::kInteger: return 8;
-    case ColumnType::kBoolean: return 1;
-    case ColumnType::kText: return static_cast<std::size_t>(std::stoul(tform));
+    case ColumnType::kReal:
+    case ColumnType::kInteger:
+      return 8;
+    case ColumnType::kBoolean:
+      return 1;
+    case ColumnType::kText:
+      return static_cast<std::size_t>(std::stoul(tform));
   }
   return 0;
 }
 
 void throw_write_status(int status, const std::string& path, const std::string& what) {
-  throw InputError({path, {}, {}}, "write_failed", fmt::format("{}: {}", what, cfitsio_message(status)));
+  throw InputError({path, {}, {}}, "write_failed",
+                   fmt::format("{}: {}", what, cfitsio_message(status)));
 }
 
 void write_keyword(fitsfile* f, const Keyword& k, const std::string& path) {
@@ -265,7 +282,8 @@ void write_keyword(fitsfile* f, const Keyword& k, const std::string& path) {
   if (status) throw_write_status(status, path, "writing keyword " + k.key);
 }
 
-void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t, const std::string& path) {
+void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t,
+                     const std::string& path) {
   int status = 0;
   std::vector<std::string> names, forms, units;
   for (std::size_t c = 0; c < t.columns(); ++c) {
@@ -285,15 +303,16 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
     pf.push_back(forms[c].data());
     pu.push_back(units[c].data());
   }
-  fits_create_tbl(f, BINARY_TBL, static_cast<LONGLONG>(t.rows()), static_cast<int>(names.size()), pn.data(),
-                  pf.data(), pu.data(), extname.c_str(), &status);
+  fits_create_tbl(f, BINARY_TBL, static_cast<LONGLONG>(t.rows()), static_cast<int>(names.size()),
+                  pn.data(), pf.data(), pu.data(), extname.c_str(), &status);
   if (status) throw_write_status(status, path, "creating table " + extname);
   const auto nrows = static_cast<LONGLONG>(t.rows());
   for (std::size_t c = 0; c < t.columns(); ++c) {
     const Column& col = t.column(c);
     int colnum = static_cast<int>(c) + 1;
     if (!col.description.empty()) {
-      fits_modify_comment(f, fmt::format("TTYPE{}", colnum).c_str(), col.description.c_str(), &status);
+      fits_modify_comment(f, fmt::format("TTYPE{}", colnum).c_str(), col.description.c_str(),
+                          &status);
     }
     if (nrows == 0) continue;
     switch (col.type) {
@@ -306,7 +325,8 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
       }
       case ColumnType::kInteger: {
         LONGLONG tnull = kIntegerNull;
-        fits_write_key(f, TLONGLONG, fmt::format("TNULL{}", colnum).c_str(), &tnull, "value of null entries", &status);
+        fits_write_key(f, TLONGLONG, fmt::format("TNULL{}", colnum).c_str(), &tnull,
+                       "value of null entries", &status);
         std::vector<LONGLONG> v(col.integer.begin(), col.integer.end());
         for (std::size_t r = 0; r < v.size(); ++r)
           if (col.is_null(r)) v[r] = kIntegerNull;
@@ -318,7 +338,8 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
         std::vector<char> v(col.boolean.begin(), col.boolean.end());
         fits_write_col(f, TLOGICAL, colnum, 1, 1, nrows, v.data(), &status);
         for (std::size_t r = 0; r < v.size(); ++r)
-          if (col.is_null(r)) fits_write_col_null(f, colnum, static_cast<LONGLONG>(r) + 1, 1, 1, &status);
+          if (col.is_null(r))
+            fits_write_col_null(f, colnum, static_cast<LONGLONG>(r) + 1, 1, 1, &status);
         break;
       }
       case ColumnType::kText: {
@@ -329,8 +350,9 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
         for (std::size_t r = 0; r < col.size() && status == 0; ++r) {
           std::fill(buf.begin(), buf.end(), 0);
           if (!col.is_null(r)) std::copy(col.text[r].begin(), col.text[r].end(), buf.begin());
-          fits_write_tblbytes(f, static_cast<LONGLONG>(r) + 1, static_cast<LONGLONG>(offsets[c]) + 1,
-                              static_cast<LONGLONG>(width), buf.data(), &status);
+          fits_write_tblbytes(f, static_cast<LONGLONG>(r) + 1,
+                              static_cast<LONGLONG>(offsets[c]) + 1, static_cast<LONGLONG>(width),
+                              buf.data(), &status);
         }
         break;
       }
@@ -340,10 +362,10 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
   for (const auto& k : t.header()) write_keyword(f, k, path);
 }
 
-
 // A binary-table TFORM with a character width of zero ('9A0', the rAw convention) makes
 // CCfits divide by it (found by fuzz/fuzz_fits_table): refused here.
-void check_tform(const std::string& path, int hdu, const std::string& key, const std::string& value) {
+void check_tform(const std::string& path, int hdu, const std::string& key,
+                 const std::string& value) {
   const auto open = value.find('\''), close = value.find('\'', open + 1);
   if (open == std::string::npos || close == std::string::npos) return;
   std::string tform;
@@ -354,7 +376,8 @@ void check_tform(const std::string& path, int hdu, const std::string& key, const
   const std::string width = tform.substr(a + 1);
   if (width.find_first_not_of("0123456789") == std::string::npos && std::stoll(width) == 0)
     throw InputError({path, {}, {}}, "fits_read",
-                     fmt::format("HDU {} {} = '{}' has a character width of 0: corrupt header", hdu, key, tform));
+                     fmt::format("HDU {} {} = '{}' has a character width of 0: corrupt header", hdu,
+                                 key, tform));
 }
 
 // Walks the headers before cfitsio does: every HDU's declared data must lie inside the
@@ -378,28 +401,34 @@ void check_declared_sizes(const std::string& path) {
     while (!end) {
       if (offset + kCard > size || std::fseek(f, static_cast<long>(offset), SEEK_SET) != 0 ||
           std::fread(card, 1, kCard, f) != kCard)
-        throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} header has no END card: truncated or corrupt", hdu));
+        throw InputError({path, {}, {}}, "fits_read",
+                         fmt::format("HDU {} header has no END card: truncated or corrupt", hdu));
       if (hdu == 1 && offset == 0 && std::strncmp(card, "SIMPLE  =", 9) != 0)
-        throw InputError({path, {}, {}}, "fits_read", "not a FITS file: it does not begin with SIMPLE");
+        throw InputError({path, {}, {}}, "fits_read",
+                         "not a FITS file: it does not begin with SIMPLE");
       // Header cards are printable ASCII (FITS 4.0, section 4.1.1).
       for (std::size_t i = 0; i < kCard; ++i)
         if (card[i] < 0x20 || card[i] > 0x7E)
           throw InputError({path, {}, {}}, "fits_read",
-                           fmt::format("HDU {} header byte {} is not FITS header text: corrupt", hdu, offset + i));
+                           fmt::format("HDU {} header byte {} is not FITS header text: corrupt",
+                                       hdu, offset + i));
       offset += kCard;
-      const std::string key = std::string(card, 8).substr(0, std::string(card, 8).find_last_not_of(' ') + 1);
+      const std::string key =
+          std::string(card, 8).substr(0, std::string(card, 8).find_last_not_of(' ') + 1);
       if (key == "END") {
         end = true;
         break;
       }
       if (card[8] != '=') continue;
-      if (key == "XTENSION") bintable = std::string(card + 10, kCard - 10).find("'BINTABLE'") != std::string::npos;
+      if (key == "XTENSION")
+        bintable = std::string(card + 10, kCard - 10).find("'BINTABLE'") != std::string::npos;
       if (key.rfind("TFORM", 0) == 0) {
         check_tform(path, hdu, key, std::string(card + 10, kCard - 10));
         formed.insert(std::strtoll(key.c_str() + 5, nullptr, 10));
       }
       if (key.rfind("TTYPE", 0) == 0) named.insert(std::strtoll(key.c_str() + 5, nullptr, 10));
-      const bool structural = key == "BITPIX" || key == "PCOUNT" || key == "GCOUNT" || key == "TFIELDS" || key.rfind("NAXIS", 0) == 0;
+      const bool structural = key == "BITPIX" || key == "PCOUNT" || key == "GCOUNT" ||
+                              key == "TFIELDS" || key.rfind("NAXIS", 0) == 0;
       if (!structural) continue;
       // A structural keyword's value is an integer, then blanks or a comment (FITS 4.0,
       // section 4.2.3): anything else is a corrupt header that cfitsio may misread.
@@ -408,37 +437,53 @@ void check_declared_sizes(const std::string& path) {
       const char* rest = end_of_number;
       while (rest < card + kCard && *rest == ' ') ++rest;
       if (end_of_number == card + 10 || (rest < card + kCard && *rest != '/'))
-        throw InputError({path, {}, {}}, "fits_read",
-                         fmt::format("HDU {} keyword {} has a malformed value '{}': corrupt header", hdu, key,
-                                     std::string(card + 10, std::min<std::size_t>(20, kCard - 10))));
-      if (key == "BITPIX") bitpix = value;
-      else if (key == "NAXIS") naxis = value;
-      else if (key == "PCOUNT") pcount = value;
-      else if (key == "GCOUNT") gcount = value;
-      else if (key == "TFIELDS") tfields = value;
-      else if (key.rfind("NAXIS", 0) == 0 && key.size() > 5) axes.push_back(value);
+        throw InputError(
+            {path, {}, {}}, "fits_read",
+            fmt::format("HDU {} keyword {} has a malformed value '{}': corrupt header", hdu, key,
+                        std::string(card + 10, std::min<std::size_t>(20, kCard - 10))));
+      if (key == "BITPIX")
+        bitpix = value;
+      else if (key == "NAXIS")
+        naxis = value;
+      else if (key == "PCOUNT")
+        pcount = value;
+      else if (key == "GCOUNT")
+        gcount = value;
+      else if (key == "TFIELDS")
+        tfields = value;
+      else if (key.rfind("NAXIS", 0) == 0 && key.size() > 5)
+        axes.push_back(value);
     }
     offset = (offset + kBlock - 1) / kBlock * kBlock;
     if (tfields < 0 || tfields > 999)
-      throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} declares TFIELDS = {}; the standard allows 0 to 999", hdu, tfields));
+      throw InputError(
+          {path, {}, {}}, "fits_read",
+          fmt::format("HDU {} declares TFIELDS = {}; the standard allows 0 to 999", hdu, tfields));
     // Every column of a binary table needs its TFORMn (FITS 4.0, section 7.3.1) and, for
     // rungcal and for CCfits (which reads past its buffer without it: fuzz finding), TTYPEn.
     for (long long c = 1; bintable && c <= tfields; ++c)
       if (!formed.count(c) || !named.count(c))
-        throw InputError({path, {}, {}}, "fits_read",
-                         fmt::format("HDU {} column {} has no {}: every column needs a TFORMn and a TTYPEn", hdu, c,
-                                     formed.count(c) ? fmt::format("TTYPE{}", c) : fmt::format("TFORM{}", c)));
-    if (naxis < 0 || naxis > 999 || static_cast<long long>(axes.size()) < naxis || pcount < 0 || gcount < 0)
-      throw InputError({path, {}, {}}, "fits_read", fmt::format("HDU {} has a malformed NAXIS/PCOUNT/GCOUNT header", hdu));
+        throw InputError(
+            {path, {}, {}}, "fits_read",
+            fmt::format("HDU {} column {} has no {}: every column needs a TFORMn and a TTYPEn", hdu,
+                        c,
+                        formed.count(c) ? fmt::format("TTYPE{}", c) : fmt::format("TFORM{}", c)));
+    if (naxis < 0 || naxis > 999 || static_cast<long long>(axes.size()) < naxis || pcount < 0 ||
+        gcount < 0)
+      throw InputError({path, {}, {}}, "fits_read",
+                       fmt::format("HDU {} has a malformed NAXIS/PCOUNT/GCOUNT header", hdu));
     // Data bytes = |BITPIX|/8 * GCOUNT * (PCOUNT + NAXIS1 * ... * NAXISn), computed in long
     // double so a corrupt header cannot overflow the check itself.
     long double elements = naxis > 0 ? 1.0L : 0.0L;
-    for (long long i = 0; i < naxis; ++i) elements *= static_cast<long double>(std::max(0LL, axes[static_cast<std::size_t>(i)]));
-    const long double bytes = std::abs(static_cast<long double>(bitpix)) / 8.0L * static_cast<long double>(gcount) *
+    for (long long i = 0; i < naxis; ++i)
+      elements *= static_cast<long double>(std::max(0LL, axes[static_cast<std::size_t>(i)]));
+    const long double bytes = std::abs(static_cast<long double>(bitpix)) / 8.0L *
+                              static_cast<long double>(gcount) *
                               (static_cast<long double>(pcount) + elements);
     if (static_cast<long double>(offset) + bytes > static_cast<long double>(size))
       throw InputError({path, {}, {}}, "fits_read",
-                       fmt::format("HDU {} declares {:.0f} bytes of data but the file has {} bytes: truncated or corrupt",
+                       fmt::format("HDU {} declares {:.0f} bytes of data but the file has {} "
+                                   "bytes: truncated or corrupt",
                                    hdu, static_cast<double>(bytes), size - std::min(size, offset)));
     offset += static_cast<std::uintmax_t>((bytes + kBlock - 1) / kBlock) * kBlock;
   }
@@ -454,9 +499,10 @@ struct FitsFileCloser {
 // FITS files are whole 2880-byte blocks; a file that is not was cut short: say so.
 [[noreturn]] void rethrow_with_size_hint(const InputError& e, const std::string& path) {
   if (std::filesystem::file_size(path) % 2880 == 0) throw e;
-  throw InputError(e.where(), e.rule(),
-                   e.detail() + fmt::format(" (the file is {} bytes, not a multiple of 2880: truncated?)",
-                                            std::filesystem::file_size(path)));
+  throw InputError(
+      e.where(), e.rule(),
+      e.detail() + fmt::format(" (the file is {} bytes, not a multiple of 2880: truncated?)",
+                               std::filesystem::file_size(path)));
 }
 
 }  // namespace
@@ -469,8 +515,10 @@ struct FitsTableReader::Impl {
   int columns = 0;
 };
 
-FitsTableReader::FitsTableReader(const std::string& path, const FitsHduChoice& hdu) : impl_(std::make_unique<Impl>()) {
-  if (!std::filesystem::is_regular_file(path)) throw InputError({path, {}, {}}, "unreadable_file", "no such file");
+FitsTableReader::FitsTableReader(const std::string& path, const FitsHduChoice& hdu)
+    : impl_(std::make_unique<Impl>()) {
+  if (!std::filesystem::is_regular_file(path))
+    throw InputError({path, {}, {}}, "unreadable_file", "no such file");
   impl_->path = path;
   try {
     check_declared_sizes(path);
@@ -498,11 +546,13 @@ std::int64_t FitsTableReader::rows() const { return impl_->rows; }
 
 SourceTable FitsTableReader::read(std::int64_t first, std::int64_t count) {
   const LONGLONG begin = std::clamp<LONGLONG>(first, 0, impl_->rows);
-  const LONGLONG n = count < 0 ? impl_->rows - begin : std::min<LONGLONG>(count, impl_->rows - begin);
+  const LONGLONG n =
+      count < 0 ? impl_->rows - begin : std::min<LONGLONG>(count, impl_->rows - begin);
   SourceTable out;
   out.file = impl_->path;
   try {
-    for (int c = 1; c <= impl_->columns; ++c) read_column(impl_->f, impl_->path, c, begin + 1, n, out);
+    for (int c = 1; c <= impl_->columns; ++c)
+      read_column(impl_->f, impl_->path, c, begin + 1, n, out);
     read_header_keywords(impl_->f, impl_->path, out.table);
   } catch (const InputError& e) {
     rethrow_with_size_hint(e, impl_->path);
