@@ -427,9 +427,27 @@ void check_declared_sizes(const std::string& path) {
         formed.insert(std::strtoll(key.c_str() + 5, nullptr, 10));
       }
       if (key.rfind("TTYPE", 0) == 0) named.insert(std::strtoll(key.c_str() + 5, nullptr, 10));
+      // Keywords CCfits reads as strings must hold a quoted string; an unquoted or
+      // unterminated one made it read past its buffer (fuzz finding).
+      for (const char* prefix : {"TTYPE", "TFORM", "TUNIT", "TDISP", "EXTNAME", "XTENSION"})
+        if (key.rfind(prefix, 0) == 0) {
+          const std::string value(card + 10, kCard - 10);
+          const auto open = value.find_first_not_of(' ');
+          if (card[9] != ' ' || open == std::string::npos || value[open] != '\'' ||
+              value.find('\'', open + 1) == std::string::npos)
+            throw InputError(
+                {path, {}, {}}, "fits_read",
+                fmt::format("HDU {} keyword {} does not hold a quoted string: corrupt header", hdu,
+                            key));
+        }
       const bool structural = key == "BITPIX" || key == "PCOUNT" || key == "GCOUNT" ||
                               key == "TFIELDS" || key.rfind("NAXIS", 0) == 0;
       if (!structural) continue;
+      if (card[9] != ' ')  // "= " in bytes 9 and 10 (FITS 4.0, section 4.1.2.2)
+        throw InputError(
+            {path, {}, {}}, "fits_read",
+            fmt::format("HDU {} keyword {} lacks the '= ' value indicator: corrupt header", hdu,
+                        key));
       // A structural keyword's value is an integer, then blanks or a comment (FITS 4.0,
       // section 4.2.3): anything else is a corrupt header that cfitsio may misread.
       char* end_of_number = nullptr;
