@@ -5,6 +5,7 @@
 
 #include <CCfits/CCfits>
 #include <algorithm>
+#include <cerrno>
 #include <cmath>
 #include <cstdio>
 #include <cstdlib>
@@ -87,10 +88,18 @@ void read_header_keywords(fitsfile* f, const std::string& path, StarTable& table
       table.set_keyword(key, v, comment);
     } else if (dtype == 'L') {
       table.set_keyword(key, std::string(value) == "T", comment);
-    } else if (dtype == 'I') {
-      table.set_keyword(key, static_cast<std::int64_t>(std::stoll(value)), comment);
-    } else if (dtype == 'F') {
-      table.set_keyword(key, std::stod(value), comment);
+    } else if (dtype == 'I' || dtype == 'F') {
+      // A number out of range (a fuzzer found one) is kept as its text, not thrown on.
+      errno = 0;
+      char* end = nullptr;
+      const long long integer = dtype == 'I' ? std::strtoll(value, &end, 10) : 0;
+      const double d = dtype == 'F' ? std::strtod(value, &end) : 0.0;
+      if (errno == ERANGE || end == value)
+        table.set_keyword(key, std::string(value), comment);
+      else if (dtype == 'I')
+        table.set_keyword(key, static_cast<std::int64_t>(integer), comment);
+      else
+        table.set_keyword(key, d, comment);
     }
   }
 }
@@ -374,7 +383,7 @@ void check_tform(const std::string& path, int hdu, const std::string& key,
   const auto a = tform.find('A');
   if (a == std::string::npos || a + 1 >= tform.size()) return;
   const std::string width = tform.substr(a + 1);
-  if (width.find_first_not_of("0123456789") == std::string::npos && std::stoll(width) == 0)
+  if (width.find_first_not_of('0') == std::string::npos)
     throw InputError({path, {}, {}}, "fits_read",
                      fmt::format("HDU {} {} = '{}' has a character width of 0: corrupt header", hdu,
                                  key, tform));
