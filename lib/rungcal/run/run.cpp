@@ -400,7 +400,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
     spdlog::info("{}: running ({})", s.name, why);
     s.run();
     fault_point(("run_after_" + s.name).c_str());
-    state.record(s, stage_key(s));
+    state.record(s, key);  // a stage never writes its own inputs: the key still holds
     outcome.stages.push_back(rep);
   }
 
