@@ -3,15 +3,17 @@
 # Installs the Debian packages rungcal needs, only those that are missing.
 # Usage: scripts/setup-debian.sh [build|test]
 #   build: compiler, CMake and the C++ libraries (enough for the demo)
-#   test : the above plus Debian's Python reference libraries used by the tests
+#   test : the above plus Debian's Python reference libraries used by the tests and Open MPI
 set -euo pipefail
 mode=${1:-build}
 
 build_pkgs=(g++ cmake make pkg-config git libceres-dev libeigen3-dev libccfits-dev
   libcfitsio-dev libspdlog-dev libfmt-dev libgtest-dev libgmock-dev libcli11-dev
   libtomlplusplus-dev nlohmann-json3-dev libssl-dev libcairo2-dev fonts-dejavu-core)
+# openmpi: the suite runs the MPI stages on two local ranks (the build finds it and turns
+# RUNGCAL_MPI on); bc: the MPI benchmark script.
 test_pkgs=(python3 python3-numpy python3-astropy python3-scipy python3-extinction
-  python3-statsmodels clang)
+  python3-statsmodels clang openmpi-bin libopenmpi-dev bc)
 
 pkgs=("${build_pkgs[@]}")
 [ "$mode" = test ] && pkgs+=("${test_pkgs[@]}")

@@ -2,19 +2,90 @@
 // Tests of lib/rungcal/core: errors, provenance hashes, atomic writes, config reading.
 #include <gtest/gtest.h>
 
+#include <algorithm>
+#include <bit>
 #include <cmath>
+#include <cstdlib>
 
 #include <filesystem>
 
 #include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/parallel.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/core/simd.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
 namespace {
+
+TEST(ByteBuffer, ValuesComeBackBitForBitNanPayloadsIncluded) {
+  const double payload_nan = std::bit_cast<double>(0x7ff8000000000123ull);
+  Eigen::MatrixXd m(2, 3);
+  m << 1, 2, 3, 4, payload_nan, -0.0;
+  ByteWriter w;
+  w.put(payload_nan);
+  w.put_string(std::string("a\0b", 3));
+  w.put_strings({"", "V", "Ks"});
+  w.put_vector(std::vector<int>{7, -1});
+  w.put_matrix(m);
+  const std::string bytes = w.release();
+  ByteReader r(bytes);
+  EXPECT_EQ(std::bit_cast<std::uint64_t>(r.get<double>()), 0x7ff8000000000123ull);
+  EXPECT_EQ(r.get_string(), std::string("a\0b", 3));
+  EXPECT_EQ(r.get_strings(), (std::vector<std::string>{"", "V", "Ks"}));
+  EXPECT_EQ(r.get_vector<int>(), (std::vector<int>{7, -1}));
+  const Eigen::MatrixXd back = r.get_matrix();
+  ASSERT_EQ(back.rows(), 2);
+  EXPECT_EQ(std::bit_cast<std::uint64_t>(back(1, 1)), 0x7ff8000000000123ull);
+  EXPECT_TRUE(std::signbit(back(1, 2)));
+  EXPECT_TRUE(r.at_end());
+  EXPECT_THROW(r.get<char>(), std::logic_error);
+}
+
+TEST(Cluster, OneProcessRunsEveryIndexAndDecodesNothing) {
+  // Outside an MPI launch (as in this test) the world is one process.
+  ASSERT_EQ(Cluster::world().size(), 1);
+  EXPECT_TRUE(Cluster::world().writes_outputs());
+  std::vector<int> done(37, 0);
+  int decoded = 0;
+  distributed_for(
+      done.size(), 2, [&](std::size_t i) { done[i] += 1; },
+      [&](std::size_t) { return std::string("x"); },
+      [&](std::size_t, const std::string&) { ++decoded; });
+  EXPECT_EQ(std::count(done.begin(), done.end(), 1), 37);
+  EXPECT_EQ(decoded, 0);
+  {
+    LocalWorkScope local;
+    EXPECT_EQ(Cluster::world().size(), 1);
+  }
+}
+
+TEST(Cluster, ABodysInputErrorReachesTheCallerWithItsRule) {
+  try {
+    distributed_for(
+        5, 1,
+        [](std::size_t i) {
+          if (i == 3) throw InputError({"x.csv", 4, "mag"}, "not_a_number", "bad");
+        },
+        [](std::size_t) { return std::string(); }, [](std::size_t, const std::string&) {});
+    FAIL() << "no exception";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "not_a_number");
+  }
+}
+
+TEST(Parallel, RanksOnOneMachineShareItsCores) {
+  const int all = worker_threads(0);
+  ::setenv("OMPI_COMM_WORLD_LOCAL_SIZE", "2", 1);
+  EXPECT_EQ(worker_threads(0), std::max(1, all / 2));
+  EXPECT_EQ(worker_threads(3), 3);  // an explicit count is kept
+  ::unsetenv("OMPI_COMM_WORLD_LOCAL_SIZE");
+  EXPECT_EQ(worker_threads(0), all);
+}
 
 TEST(Error, MessageNamesFileRowColumnAndRule) {
   InputError e({"cat.csv", 12, "parallax", "line"}, "not_a_number", "'abc' is not a number");

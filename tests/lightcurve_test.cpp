@@ -7,6 +7,7 @@
 #include <fmt/format.h>
 
 #include <cmath>
+#include <limits>
 #include <fstream>
 #include <numbers>
 #include <ostream>
@@ -311,6 +312,30 @@ TEST(LightCurveStage, DemoLightCurvesGiveTheCatalogPeriodsAndMeans) {
   EXPECT_GT(pg.table.rows(), 3000u);
 }
 
+TEST(LightCurveStage, AStarResultCrossesBetweenRanksBitForBit) {
+  // Under MPI a rank receives the stars another rank measured (core/cluster.hpp): what it
+  // writes must be the same bytes as if it had measured them itself.
+  Random rng(5);
+  test::MockStar star = test::mock_cepheid(rng, 7.3, {120, 80, 50}, 0.012, 4);
+  StarResult r = analyse_star(star.series, mock_options(), true);
+  r.skipped_bands = {"J"};
+  r.second_peak_period_d = std::numeric_limits<double>::quiet_NaN();
+  ASSERT_EQ(r.bands.size(), 3u);
+  const std::string bytes = encode_star_result(r);
+  const StarResult back = decode_star_result(bytes);
+  EXPECT_EQ(encode_star_result(back), bytes);
+  EXPECT_EQ(back.id, r.id);
+  EXPECT_EQ(back.period_d, r.period_d);
+  EXPECT_TRUE(std::isnan(back.second_peak_period_d));
+  EXPECT_EQ(back.bands[2].band, r.bands[2].band);
+  EXPECT_EQ(back.bands[2].curve.covariance, r.bands[2].curve.covariance);
+  EXPECT_EQ(back.bands[1].measures.phi31, r.bands[1].measures.phi31);
+  EXPECT_EQ(back.periodogram, r.periodogram);
+  EXPECT_EQ(back.grid.count, r.grid.count);
+  EXPECT_EQ(back.skipped_bands, r.skipped_bands);
+  EXPECT_THROW(decode_star_result(bytes.substr(0, bytes.size() - 1)), std::logic_error);
+}
+
 TEST(LightCurveStage, ResultsDoNotDependOnTheThreadCount) {
   test::TempDir dir;
   std::string cfg = "--config " + test::source_file("config/demo/lightcurve.toml");
@@ -397,6 +422,36 @@ TEST_P(LightCurveBadInput, StopsWithItsRuleAndExitCode2AndWritesNothing) {
 
 INSTANTIATE_TEST_SUITE_P(Cases, LightCurveBadInput, ::testing::ValuesIn(lc_bad_cases()),
                          [](const auto& case_info) { return std::string(case_info.param.name); });
+
+TEST(LightCurveRows, ARepeatedEpochIsFoundInOrderAndOutOfOrder) {
+  // Epochs usually come in time order per star and band; a repeat must be caught either way.
+  LightCurveOptions o = mock_options();
+  o.star_column = "star";
+  o.time_column = "t";
+  o.band_column = "band";
+  o.mag_column = "mag";
+  o.err_column = "err";
+  SourceTable in = parse_text_table(
+      "star,t,band,mag,err\n"
+      "A,3,V,12,0.01\nA,5,V,12,0.01\nA,5,V,12,0.01\n"  // line 4: in-order repeat
+      "A,1,V,12,0.01\nA,2,I,12,0.01\nA,3,V,12,0.01\n"  // line 7: out-of-order repeat
+      "A,2,I,12,0.01\nB,5,V,12,0.01\nA,1,V,12,0.01\n",  // lines 8 and 10: repeats
+      "rows.csv", TextReadOptions{});
+  std::vector<ObservationReject> rejected;
+  std::vector<std::string> bands;
+  const std::vector<StarSeries> stars =
+      group_observations(in, o, BandTable::from_file(test::source_file("config/bands.toml")),
+                         rejected, bands);
+  ASSERT_EQ(rejected.size(), 4u);
+  const std::int64_t lines[] = {4, 7, 8, 10};
+  for (std::size_t i = 0; i < 4; ++i) {
+    EXPECT_EQ(rejected[i].rule, "duplicate_epoch");
+    EXPECT_EQ(rejected[i].source_row, lines[i]);
+  }
+  ASSERT_EQ(stars.size(), 2u);
+  EXPECT_EQ(stars[0].series[0].t, (std::vector<double>{3, 5, 1}));  // V, as read
+  EXPECT_EQ(stars[0].series[1].t, (std::vector<double>{2}));        // I
+}
 
 TEST(LightCurveRows, BadRowsAreRefusedWithTheirRuleAndTheRestIsMeasured) {
   test::TempDir dir;

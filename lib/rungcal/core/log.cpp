@@ -7,9 +7,12 @@
 #include <spdlog/sinks/basic_file_sink.h>
 #include <spdlog/sinks/rotating_file_sink.h>
 #include <spdlog/sinks/stdout_color_sinks.h>
+#include <fmt/format.h>
 #include <spdlog/spdlog.h>
 
 #include <vector>
+
+#include "rungcal/core/cluster.hpp"
 
 namespace rungcal {
 
@@ -28,16 +31,23 @@ void setup_logging(const std::string& stage, Verbosity verbosity, const std::str
   if (verbosity == Verbosity::kQuiet) level = spdlog::level::warn;
   if (verbosity == Verbosity::kVerbose) level = spdlog::level::debug;
   console->set_level(level);
-  console->set_pattern("%^rungcal-" + stage + " %l:%$ %v");
+  // Under MPI every rank logs; the rank is named and each rank has its own log file.
+  const Cluster& cluster = Cluster::world();
+  const std::string who = cluster.size() > 1
+                              ? fmt::format("rungcal-{}[rank {}]", stage, cluster.rank())
+                              : "rungcal-" + stage;
+  console->set_pattern("%^" + who + " %l:%$ %v");
   sinks.push_back(console);
   if (!log_file.empty()) {
+    const std::string path =
+        cluster.rank() > 0 ? fmt::format("{}.rank{}", log_file, cluster.rank()) : log_file;
     spdlog::sink_ptr file;
     if (rotate_bytes > 0)
-      file = std::make_shared<spdlog::sinks::rotating_file_sink_mt>(log_file, rotate_bytes, rotate_files);
+      file = std::make_shared<spdlog::sinks::rotating_file_sink_mt>(path, rotate_bytes, rotate_files);
     else
-      file = std::make_shared<spdlog::sinks::basic_file_sink_mt>(log_file, false);
+      file = std::make_shared<spdlog::sinks::basic_file_sink_mt>(path, false);
     file->set_level(spdlog::level::debug);
-    file->set_pattern("%Y-%m-%dT%H:%M:%S.%e %l rungcal-" + stage + ": %v");
+    file->set_pattern("%Y-%m-%dT%H:%M:%S.%e %l " + who + ": %v");
     sinks.push_back(file);
   }
   auto logger = std::make_shared<spdlog::logger>("rungcal", sinks.begin(), sinks.end());

@@ -3,6 +3,7 @@
 
 #include <algorithm>
 #include <atomic>
+#include <cstdlib>
 #include <exception>
 #include <mutex>
 #include <thread>
@@ -10,9 +11,26 @@
 
 namespace rungcal {
 
+namespace {
+
+// Processes an MPI launcher started on this machine (Open MPI, MPICH/Hydra); 1 otherwise.
+unsigned ranks_on_this_machine() {
+  for (const char* name : {"OMPI_COMM_WORLD_LOCAL_SIZE", "MPI_LOCALNRANKS"})
+    if (const char* v = std::getenv(name)) {
+      const long n = std::strtol(v, nullptr, 10);
+      if (n > 0) return static_cast<unsigned>(n);
+    }
+  return 1;
+}
+
+}  // namespace
+
 int worker_threads(int requested) {
-  return requested > 0 ? requested
-                       : static_cast<int>(std::max(1u, std::thread::hardware_concurrency()));
+  if (requested > 0) return requested;
+  // Ranks sharing a machine share its cores: two ranks with every core each would run
+  // twice as many threads as cores.
+  const unsigned cores = std::max(1u, std::thread::hardware_concurrency());
+  return static_cast<int>(std::max(1u, cores / ranks_on_this_machine()));
 }
 
 void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t)>& body) {

@@ -6,7 +6,8 @@
 
 namespace rungcal {
 
-// Worker threads for `requested` (0 = every core the machine reports, at least one).
+// Worker threads for `requested` (0 = every core the machine reports, at least one, shared
+// out between the MPI ranks an MPI launcher started on this machine).
 int worker_threads(int requested);
 
 // Calls body(i) for i in [0, n) on `threads` workers that take the next index as they

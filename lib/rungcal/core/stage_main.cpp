@@ -1,8 +1,12 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/core/stage_main.hpp"
 
+#include <cstdio>
+
+#include "rungcal/core/cluster.hpp"
 #include "rungcal/core/file_lock.hpp"
 
+#include <fmt/format.h>
 #include <spdlog/spdlog.h>
 
 namespace rungcal {
@@ -35,8 +39,31 @@ int parse_command_line(CLI::App& app, int argc, char** argv) {
   return -1;
 }
 
+namespace {
+
+// Stages that split their work across MPI ranks and write from rank 0 only. Any other
+// stage launched as several ranks would write (or publish) the same products twice.
+void refuse_mpi_unless_split(const std::string& stage) {
+  const Cluster& cluster = Cluster::world();
+  if (cluster.size() == 1) return;
+  for (const char* split : {"lightcurve", "fit", "grid"})
+    if (stage == split) return;
+  throw InputError({}, "mpi_not_supported",
+                   fmt::format("rungcal-{} runs as one process, not as {} MPI ranks; only "
+                               "rungcal-lightcurve, rungcal-fit and rungcal-grid split their "
+                               "work across ranks",
+                               stage, cluster.size()));
+}
+
+}  // namespace
+
 int run_stage(const std::string& stage, const std::function<ExitCode()>& body) {
+  // Under MPI every rank runs the same stage; what a person reads on stdout comes from rank
+  // 0 alone (errors and warnings still come from every rank, on stderr).
+  if (Cluster::world().rank() > 0 && !std::freopen("/dev/null", "w", stdout))
+    spdlog::warn("could not silence stdout of rank {}", Cluster::world().rank());
   try {
+    refuse_mpi_unless_split(stage);
     return static_cast<int>(body());
   } catch (const InputError& e) {
     spdlog::error("{}", e.what());

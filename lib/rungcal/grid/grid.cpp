@@ -10,6 +10,8 @@
 #include <spdlog/spdlog.h>
 
 #include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/parallel.hpp"
@@ -55,6 +57,41 @@ template <typename E, std::size_t N>
 std::optional<E> choice_if(const ConfigSection& s, const char* key, const EnumTable<E, N>& table) {
   if (!s.has(key)) return std::nullopt;
   return choice_or(s, key, table, table.entries[0].first);
+}
+
+// What the error budget reads of a fit, for the ranks that did not make it: per relation
+// its name, parameter names and modes, values and covariance.
+std::string encode_budget_fields(const FitResult& fit) {
+  ByteWriter w;
+  w.put<std::uint64_t>(fit.relations.size());
+  for (const RelationResult& rr : fit.relations) {
+    w.put_string(rr.relation.name);
+    w.put_strings(rr.layout.names);
+    std::vector<ParamMode> modes;
+    for (const ParamSpec& p : rr.settings.params) modes.push_back(p.mode);
+    w.put_vector(modes);
+    w.put_vector(rr.solution.theta);
+    w.put_matrix(rr.covariance);
+    w.put<std::uint8_t>(rr.covariance_ok);
+  }
+  return w.release();
+}
+
+FitResult decode_budget_fields(const std::string& bytes) {
+  ByteReader r(bytes);
+  FitResult fit;
+  fit.relations.resize(r.get<std::uint64_t>());
+  for (RelationResult& rr : fit.relations) {
+    rr.relation.name = r.get_string();
+    rr.layout.names = r.get_strings();
+    rr.layout.size = static_cast<int>(rr.layout.names.size());
+    for (ParamMode mode : r.get_vector<ParamMode>()) rr.settings.params.push_back({mode});
+    rr.solution.theta = r.get_column();
+    rr.solution.usable = true;
+    rr.covariance = r.get_matrix();
+    rr.covariance_ok = r.get<std::uint8_t>() != 0;
+  }
+  return fit;
 }
 
 const RelationResult* find_relation(const FitResult& r, const std::string& name) {
@@ -162,7 +199,11 @@ GridResult run_grid(const GridOptions& g) {
   const DereddenResult base_dr = run_deredden(base_dered, catalog.table, bands);
   const StarTable base_coeffs = base_dr.coefficients_table();
   Progress progress("systematics grid", fits.size());
-  parallel_for(fits.size(), worker_threads(g.threads), [&](std::size_t i) {
+  distributed_for(
+      fits.size(), worker_threads(g.threads),
+      [&](std::size_t i) {
+    // Under MPI the variants are split across ranks; each variant's bootstrap stays here.
+    LocalWorkScope local;
     const GridVariant* v = i == 0 ? nullptr : &g.variants[i - 1];
     const FitOptions fo = fit_options_for(g, base_fit, v);
     if (v && v->changes_extinction()) {
@@ -174,7 +215,9 @@ GridResult run_grid(const GridOptions& g) {
       fits[i] = run_fit(fo, base_dr.catalog, &base_coeffs);
     }
     progress.advance();
-  });
+      },
+      [&](std::size_t i) { return encode_budget_fields(fits[i]); },
+      [&](std::size_t i, const std::string& bytes) { fits[i] = decode_budget_fields(bytes); });
   progress.finish();
   GridResult result;
   result.baseline = std::move(fits[0]);
@@ -231,6 +274,7 @@ nlohmann::json error_budget(const GridOptions& g, const GridResult& r) {
 
 GridResult run_grid_files(const GridOptions& g) {
   GridResult r = run_grid(g);
+  if (!Cluster::world().writes_outputs()) return r;
   nlohmann::json doc = r.budget;
   Provenance prov = Provenance::for_stage("grid");
   prov.config_sha256 = g.config_sha256;

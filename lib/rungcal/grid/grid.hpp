@@ -52,16 +52,18 @@ GridOptions grid_options_from_file(const std::string& path);
 // The baseline and every variant, fitted; the shifts and the budget.
 struct GridResult {
   FitResult baseline;
-  std::vector<FitResult> variants;  // in the options' order
+  // In the options' order. Under MPI, a fit another rank made carries only what the budget
+  // reads: per relation its name, parameter names and modes, values and covariance.
+  std::vector<FitResult> variants;
   // shift of a variant's parameter from the baseline's, and in units of the baseline's
   // covariance error: per relation, per parameter, per variant.
   nlohmann::json budget;  // docs/file-formats.md, "Systematics grid"
 };
 
-// Runs the baseline and the variants (in parallel, each deterministic) on one catalog.
-// Writes nothing.
+// Runs the baseline and the variants (in parallel, each deterministic) on one catalog;
+// under MPI the variants are split across ranks. Writes nothing.
 GridResult run_grid(const GridOptions& options);
-// Runs and writes OUTPUT/grid.json and OUTPUT/error_budget.csv atomically.
+// Runs and writes OUTPUT/grid.json and OUTPUT/error_budget.csv atomically (rank 0 only).
 GridResult run_grid_files(const GridOptions& options);
 
 // The budget as JSON: for each relation and parameter, the baseline value and error, each

@@ -49,14 +49,6 @@ struct RowReject {
   std::string message;
 };
 
-bool parse_double(const std::string& text, double& out) {
-  const char* b = text.data();
-  const char* e = b + text.size();
-  if (b != e && *b == '+') ++b;  // from_chars rejects a leading '+', published tables use it
-  auto [ptr, ec] = std::from_chars(b, e, out);
-  return ec == std::errc() && ptr == e;
-}
-
 ValueSource value_source_from(const ConfigSection& s, const std::string& key) {
   ValueSource v;
   if (s.is_string(key)) {
@@ -152,7 +144,7 @@ Resolved resolve(const ValueSource& src, const std::string& key, QuantityKind ki
         if (r.column->is_null(i)) continue;
         ++nonnull;
         double x;
-        if (parse_double(r.column->text[i], x)) ++parsed;
+        if (parse_real(r.column->text[i], x)) ++parsed;
       }
       if (nonnull > 0 && parsed == 0)
         whole_file_error(
@@ -187,7 +179,7 @@ std::optional<double> number_at(const Resolved& r, std::size_t row) {
       x = static_cast<double>(r.column->integer[row]);
       break;
     case ColumnType::kText:
-      if (!parse_double(r.column->text[row], x))
+      if (!parse_real(r.column->text[row], x))
         throw RowReject{"not_a_number", r.column_name,
                         fmt::format("{}: '{}' is not a number", r.key, r.column->text[row])};
       break;
@@ -236,7 +228,7 @@ bool select_row(const SelectRule& rule, const Column& c, std::size_t row) {
   if (c.is_null(row)) return false;
   if (const double* v = std::get_if<double>(&rule.value)) {
     double x = c.as_real(row);
-    if (c.type == ColumnType::kText && !parse_double(c.text[row], x)) return false;
+    if (c.type == ColumnType::kText && !parse_real(c.text[row], x)) return false;
     return compare(x, rule.op, *v);
   }
   const std::string& v = std::get<std::string>(rule.value);

@@ -4,12 +4,15 @@
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
+#include <map>
 #include <set>
 #include <unordered_map>
 
 #include <fmt/format.h>
 #include <spdlog/spdlog.h>
 
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
@@ -295,18 +298,26 @@ std::vector<StarSeries> group_observations(const SourceTable& in, const LightCur
   const Column& err = t.column(o.err_column);
   std::vector<StarSeries> stars;
   std::unordered_map<std::string, std::size_t> star_index;
-  std::set<std::tuple<std::string, std::string, double>> seen;
+  // Times of the (star, band) series whose epochs came out of time order, for the repeat
+  // check; a series in time order (the usual case) needs only its last time.
+  std::map<std::pair<std::size_t, std::size_t>, std::set<double>> unordered_series;
+  auto repeats_an_epoch = [&](std::size_t star_at, std::size_t band_at, const TimeSeries* ts,
+                              double when) {
+    if (!ts) return false;
+    const auto key = std::pair{star_at, band_at};
+    auto it = unordered_series.find(key);
+    if (it == unordered_series.end()) {
+      if (ts->t.empty() || when > ts->t.back()) return false;
+      it = unordered_series.emplace(key, std::set<double>(ts->t.begin(), ts->t.end())).first;
+    }
+    return !it->second.insert(when).second;
+  };
   auto number = [](const Column& c, std::size_t r) -> std::optional<double> {
     if (c.is_null(r)) return std::nullopt;
     if (c.type != ColumnType::kText) return c.as_real(r);
-    try {
-      std::size_t used = 0;
-      double v = std::stod(c.text[r], &used);
-      if (used != c.text[r].size()) return std::nullopt;
-      return v;
-    } catch (...) {
-      return std::nullopt;
-    }
+    double v = 0;
+    if (!parse_real(c.text[r], v)) return std::nullopt;
+    return v;
   };
   for (std::size_t r = 0; r < t.rows(); ++r) {
     const std::int64_t row = in.source_rows[r];
@@ -346,23 +357,24 @@ std::vector<StarSeries> group_observations(const SourceTable& in, const LightCur
              fmt::format("magnitude error {} is not positive", *ev));
       continue;
     }
-    if (!seen.emplace(id, b, *tv).second) {
-      reject("duplicate_epoch", o.time_column,
-             fmt::format("star {} already has a {} epoch at {}", id, b, *tv));
-      continue;
-    }
     auto [it, fresh] = star_index.emplace(id, stars.size());
     if (fresh) stars.push_back({id, {}, {}});
     StarSeries& s = stars[it->second];
     auto bi = std::find(s.bands.begin(), s.bands.end(), b);
+    const auto band_index = static_cast<std::size_t>(bi - s.bands.begin());
+    const TimeSeries* existing = bi == s.bands.end() ? nullptr : &s.series[band_index];
+    if (repeats_an_epoch(it->second, band_index, existing, *tv)) {
+      reject("duplicate_epoch", o.time_column,
+             fmt::format("star {} already has a {} epoch at {}", id, b, *tv));
+      continue;
+    }
     if (bi == s.bands.end()) {
       s.bands.push_back(b);
       s.series.emplace_back();
-      bi = s.bands.end() - 1;
     }
     if (std::find(band_order.begin(), band_order.end(), b) == band_order.end())
       band_order.push_back(b);
-    TimeSeries& ts = s.series[static_cast<std::size_t>(bi - s.bands.begin())];
+    TimeSeries& ts = s.series[band_index];
     ts.t.push_back(*tv);
     ts.y.push_back(*mv);
     ts.dy.push_back(*ev);
@@ -370,12 +382,72 @@ std::vector<StarSeries> group_observations(const SourceTable& in, const LightCur
   return stars;
 }
 
+std::string encode_star_result(const StarResult& s) {
+  ByteWriter w;
+  w.put_string(s.id);
+  w.put(s.points);
+  for (double v : {s.baseline_d, s.frequency, s.frequency_err, s.period_d, s.period_err_d, s.power,
+                   s.false_alarm, s.second_peak_power, s.second_peak_period_d, s.t_ref,
+                   s.max_phase_gap})
+    w.put(v);
+  w.put(s.flags);
+  w.put<std::uint8_t>(s.usable);
+  w.put(s.iterations);
+  w.put<std::uint64_t>(s.bands.size());
+  for (const BandResult& b : s.bands) {
+    w.put_string(b.band);
+    w.put(b.curve.order);
+    w.put_vector(b.curve.coefficients);
+    w.put_matrix(b.curve.covariance);
+    w.put(b.curve.points);
+    w.put(b.curve.chi2);
+    w.put(b.curve.rms);
+    w.put(b.measures);
+  }
+  w.put_strings(s.skipped_bands);
+  w.put_vector(s.periodogram);
+  w.put(s.grid);
+  return w.release();
+}
+
+StarResult decode_star_result(const std::string& bytes) {
+  ByteReader r(bytes);
+  StarResult s;
+  s.id = r.get_string();
+  s.points = r.get<std::size_t>();
+  for (double* v : {&s.baseline_d, &s.frequency, &s.frequency_err, &s.period_d, &s.period_err_d,
+                    &s.power, &s.false_alarm, &s.second_peak_power, &s.second_peak_period_d,
+                    &s.t_ref, &s.max_phase_gap})
+    *v = r.get<double>();
+  s.flags = r.get<std::uint32_t>();
+  s.usable = r.get<std::uint8_t>() != 0;
+  s.iterations = r.get<int>();
+  s.bands.resize(r.get<std::uint64_t>());
+  for (BandResult& b : s.bands) {
+    b.band = r.get_string();
+    b.curve.order = r.get<int>();
+    b.curve.coefficients = r.get_column();
+    b.curve.covariance = r.get_matrix();
+    b.curve.points = r.get<std::size_t>();
+    b.curve.chi2 = r.get<double>();
+    b.curve.rms = r.get<double>();
+    b.measures = r.get<CurveMeasures>();
+  }
+  s.skipped_bands = r.get_strings();
+  s.periodogram = r.get_vector<double>();
+  s.grid = r.get<FrequencyGrid>();
+  if (!r.at_end()) throw std::logic_error("star result message longer than its fields");
+  return s;
+}
+
 LightCurveResult run_lightcurves(const LightCurveOptions& o) {
   throw_if_invalid(o.check(), file_label(o));
   BandTable band_table = BandTable::from_file(o.bands_file);
+  spdlog::debug("reading {}", o.source.path);
   SourceTable in = read_table_source(o.source);
   if (in.table.rows() == 0)
     throw InputError({in.file, {}, {}}, "empty_file", "the time series has no rows");
+  spdlog::debug("{} rows read", in.table.rows());
   LightCurveResult result;
   result.rows_read = in.table.rows();
   result.provenance = Provenance::for_stage("lightcurve");
@@ -383,6 +455,7 @@ LightCurveResult run_lightcurves(const LightCurveOptions& o) {
   result.provenance.inputs.push_back(
       {o.source.path, sha256_file(o.source.path), static_cast<std::int64_t>(in.table.rows())});
   result.series = group_observations(in, o, band_table, result.rejected, result.bands);
+  spdlog::debug("{} rows read and grouped into {} stars", in.table.rows(), result.series.size());
   if (result.series.empty())
     throw InputError({in.file, {}, {}}, "no_rows_left",
                      fmt::format("all {} rows were refused (first: {} {}: [{}] {})",
@@ -393,11 +466,17 @@ LightCurveResult run_lightcurves(const LightCurveOptions& o) {
   const std::set<std::string> keep(o.periodogram_stars.begin(), o.periodogram_stars.end());
   result.stars.resize(result.series.size());
   Progress progress("light curves", result.series.size());
-  parallel_for(result.series.size(), worker_threads(o.threads), [&](std::size_t i) {
-    const StarSeries& s = result.series[i];
-    result.stars[i] = analyse_star(s, o, keep_all || keep.count(s.id));
-    progress.advance();
-  });
+  distributed_for(
+      result.series.size(), worker_threads(o.threads),
+      [&](std::size_t i) {
+        const StarSeries& s = result.series[i];
+        result.stars[i] = analyse_star(s, o, keep_all || keep.count(s.id));
+        progress.advance();
+      },
+      [&](std::size_t i) { return encode_star_result(result.stars[i]); },
+      [&](std::size_t i, const std::string& bytes) {
+        result.stars[i] = decode_star_result(bytes);
+      });
   progress.finish();
   return result;
 }
@@ -610,6 +689,7 @@ StarTable LightCurveResult::rejects_table() const {
 }
 
 void write_lightcurve_products(const LightCurveResult& result, const LightCurveOptions& o) {
+  if (!Cluster::world().writes_outputs()) return;
   StarTable summary = result.summary_table(o.time_scale);
   StarTable fourier = result.fourier_table();
   StarTable points = o.write_points ? result.points_table() : StarTable{};

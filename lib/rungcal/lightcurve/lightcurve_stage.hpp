@@ -132,6 +132,10 @@ struct StarResult {
 StarResult analyse_star(const StarSeries& star, const LightCurveOptions& options,
                         bool keep_periodogram);
 
+// A star's result as bytes for the other ranks of an MPI run, and back (bit for bit).
+std::string encode_star_result(const StarResult& star);
+StarResult decode_star_result(const std::string& bytes);
+
 // One refused input row.
 struct ObservationReject {
   std::int64_t source_row = 0;
@@ -162,9 +166,11 @@ std::vector<StarSeries> group_observations(const SourceTable& in, const LightCur
                                            std::vector<ObservationReject>& rejected,
                                            std::vector<std::string>& band_order);
 
-// Reads, analyses every star in parallel (progress on a terminal); writes nothing.
+// Reads, analyses every star in parallel (progress on a terminal); writes nothing. Under
+// MPI the stars are split across ranks and every rank returns the whole result.
 LightCurveResult run_lightcurves(const LightCurveOptions& options);
-// Writes the FITS product (SUMMARY, FOURIER, POINTS, PERIODOGRAM, REJECTS) and the summary CSV.
+// Writes the FITS product (SUMMARY, FOURIER, POINTS, PERIODOGRAM, REJECTS) and the summary
+// CSV; under MPI only rank 0 writes.
 void write_lightcurve_products(const LightCurveResult& result, const LightCurveOptions& options);
 
 }  // namespace rungcal

@@ -13,6 +13,8 @@
 #include <spdlog/spdlog.h>
 
 #include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/parallel.hpp"
@@ -271,16 +273,30 @@ Eigen::MatrixXd parallel_bootstrap(const FitOptions& o, int P, const std::string
   Eigen::MatrixXd out = Eigen::MatrixXd::Constant(B, P, std::numeric_limits<double>::quiet_NaN());
   std::vector<char> ok(static_cast<std::size_t>(B), 0);
   Progress progress("bootstrap " + label, static_cast<std::size_t>(B));
-  parallel_for(static_cast<std::size_t>(B), worker_threads(o.threads), [&](std::size_t i) {
-    const int b = static_cast<int>(i);
-    Random rng(resample_seed(o.seed, b));
-    std::optional<Eigen::VectorXd> theta = solve(rng);
-    if (theta) {
-      out.row(b) = theta->transpose();
-      ok[i] = 1;
-    }
-    progress.advance();
-  });
+  // Under MPI each rank solves its share of the resamples; every rank ends with all rows.
+  distributed_for(
+      static_cast<std::size_t>(B), worker_threads(o.threads),
+      [&](std::size_t i) {
+        const int b = static_cast<int>(i);
+        Random rng(resample_seed(o.seed, b));
+        std::optional<Eigen::VectorXd> theta = solve(rng);
+        if (theta) {
+          out.row(b) = theta->transpose();
+          ok[i] = 1;
+        }
+        progress.advance();
+      },
+      [&](std::size_t i) {
+        ByteWriter w;
+        w.put(ok[i]);
+        w.put_vector(Eigen::VectorXd(out.row(static_cast<Eigen::Index>(i)).transpose()));
+        return w.release();
+      },
+      [&](std::size_t i, const std::string& bytes) {
+        ByteReader r(bytes);
+        ok[i] = r.get<char>();
+        out.row(static_cast<Eigen::Index>(i)) = r.get_column().transpose();
+      });
   progress.finish();
   failed = static_cast<int>(std::count(ok.begin(), ok.end(), 0));
   return out;
@@ -846,6 +862,33 @@ std::string fit_summary(const FitResult& result) {
   return out;
 }
 
+namespace {
+
+// Every bootstrap resample's parameters, one row per resample and parameter (NaN for a
+// failed resample), so a user can form any statistic of them.
+StarTable bootstrap_table(const FitResult& result) {
+  StarTable t;
+  t.add_column("relation", ColumnType::kText, "", "relation, or 'joint'");
+  t.add_column("resample", ColumnType::kInteger, "", "resample index b (seeded per b)");
+  t.add_column("parameter", ColumnType::kText);
+  t.add_column("value", ColumnType::kReal, "", "parameter's value in resample b (NaN: failed)");
+  auto add = [&](const std::string& relation, const std::vector<std::string>& names,
+                 const Eigen::MatrixXd& samples) {
+    for (Eigen::Index b = 0; b < samples.rows(); ++b)
+      for (Eigen::Index j = 0; j < samples.cols(); ++j) {
+        t.column("relation").push_text(relation);
+        t.column("resample").push_integer(b);
+        t.column("parameter").push_text(names[static_cast<std::size_t>(j)]);
+        t.column("value").push_real(samples(b, j));
+      }
+  };
+  for (const auto& rr : result.relations) add(rr.relation.name, rr.layout.names, rr.bootstrap);
+  if (result.joint) add("joint", result.joint->layout.names, result.joint->bootstrap);
+  return t;
+}
+
+}  // namespace
+
 FitResult fit_catalog_file(const FitOptions& o) {
   SourceTable in = read_fits_table(o.input_path, {"CATALOG", 0});
   std::optional<SourceTable> coeffs;
@@ -907,7 +950,12 @@ FitResult fit_catalog_file(const FitOptions& o) {
     std::filesystem::path p(o.output_path);
     residuals = (p.parent_path() / (p.stem().string() + "_residuals.fits")).string();
   }
-  write_fits_tables(residuals, {{"RESIDUALS", &res}});
+  if (!Cluster::world().writes_outputs()) return result;
+  StarTable boot = bootstrap_table(result);
+  stamp_provenance(boot, result.provenance, "fit_bootstrap");
+  std::vector<std::pair<std::string, const StarTable*>> hdus{{"RESIDUALS", &res}};
+  if (boot.rows() > 0) hdus.emplace_back("BOOTSTRAP", &boot);
+  write_fits_tables(residuals, hdus);
   write_file_atomically(o.output_path, result.to_json(o).dump(2) + "\n");
   return result;
 }

@@ -2,6 +2,8 @@
 #include "rungcal/table/text_io.hpp"
 
 #include <algorithm>
+#include <cctype>
+#include <charconv>
 #include <fstream>
 #include <set>
 #include <sstream>
@@ -63,6 +65,16 @@ std::vector<std::string> split_line(std::string_view line, Delimiter d, const st
   if (d == Delimiter::kMultiSpace) return split_runs(line, true);
   const char sep = single_delimiter(d);
   std::vector<std::string> out;
+  if (d != Delimiter::kComma || line.find('"') == std::string_view::npos) {
+    // No quoting on the line (most lines of most tables): cut at each delimiter.
+    std::size_t start = 0;
+    while (true) {
+      const std::size_t end = line.find(sep, start);
+      out.push_back(trim(line.substr(start, end == std::string_view::npos ? end : end - start)));
+      if (end == std::string_view::npos) return out;
+      start = end + 1;
+    }
+  }
   std::string cur;
   bool quoted = false, was_quoted = false;
   for (std::size_t i = 0; i < line.size(); ++i) {
@@ -191,7 +203,10 @@ SourceTable parse_text_table(const std::string& raw, const std::string& name,
     col.null.clear();
     col.text.reserve(rows.size());
     for (auto& r : rows) {
-      std::string v = trim(r[c]);
+      std::string& v = r[c];
+      if (!v.empty() && (std::isspace(static_cast<unsigned char>(v.front())) ||
+                         std::isspace(static_cast<unsigned char>(v.back()))))
+        v = trim(v);  // a quoted field keeps its spaces until here
       bool missing = v.empty() || std::find(options.missing.begin(), options.missing.end(), v) != options.missing.end();
       if (missing) col.push_null();
       else col.push_text(std::move(v));
@@ -203,9 +218,29 @@ SourceTable parse_text_table(const std::string& raw, const std::string& name,
 SourceTable read_text_table(const std::string& path, const TextReadOptions& options) {
   std::ifstream in(path, std::ios::binary);
   if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return parse_text_table(ss.str(), path, options);
+  std::string content;
+  in.seekg(0, std::ios::end);
+  const std::streamoff size = in.tellg();
+  in.seekg(0, std::ios::beg);
+  if (size > 0) {
+    content.resize(static_cast<std::size_t>(size));
+    in.read(content.data(), size);
+  } else {  // not seekable (a pipe): read to the end
+    std::stringstream ss;
+    ss << in.rdbuf();
+    content = ss.str();
+  }
+  if (!in && !in.eof())
+    throw InputError({path, {}, {}}, "unreadable_file", "the file could not be read to its end");
+  return parse_text_table(content, path, options);
+}
+
+bool parse_real(std::string_view text, double& out) {
+  const char* b = text.data();
+  const char* e = b + text.size();
+  if (b != e && *b == '+') ++b;  // from_chars rejects a leading '+', published tables use it
+  auto [ptr, ec] = std::from_chars(b, e, out);
+  return ec == std::errc() && ptr == e;
 }
 
 std::string format_csv_table(const StarTable& table) {

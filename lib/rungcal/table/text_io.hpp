@@ -2,6 +2,7 @@
 #pragma once
 
 #include <string>
+#include <string_view>
 #include <vector>
 
 #include "rungcal/core/enum_table.hpp"
@@ -48,6 +49,11 @@ struct TextReadOptions {
 SourceTable read_text_table(const std::string& path, const TextReadOptions& options);
 SourceTable parse_text_table(const std::string& content, const std::string& name,
                              const TextReadOptions& options);
+
+// A whole field as a number, as the C library reads it (decimal or exponent form, inf,
+// nan), also with a leading '+', which published tables use; false for anything else,
+// trailing characters and values beyond double's range included.
+bool parse_real(std::string_view text, double& out);
 
 // Writes a table as CSV (comma, RFC 4180 quoting, header line, empty field for null), with
 // the header keywords as leading "# key = value" lines. Atomic (temp file + rename).
