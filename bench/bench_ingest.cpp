@@ -2,7 +2,9 @@
 // Large-catalog benchmark (run by bench/compare_ingest.py, never by the tests):
 //   bench_ingest make FILE ROWS       writes a simulated calibrator catalog (invented stars)
 //   bench_ingest raw FILE             reads every column with plain cfitsio, in bulk
-//   bench_ingest ingest FILE CONFIG   rungcal-ingest's library path, in groups of rows
+//   bench_ingest ingest FILE CONFIG   rungcal-ingest's path: groups of rows read, mapped,
+//                                     checked and written to the output catalog
+//   bench_ingest memory FILE CONFIG   the same without writing: the whole catalog in memory
 // Each prints "seconds S", "peak_rss_mb M" and "bytes B" (the table's data size).
 #include <fitsio.h>
 #include <sys/resource.h>
@@ -14,6 +16,7 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/core/log.hpp"
 #include "rungcal/ingest/ingest.hpp"
 #include "rungcal/simulate/random.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -100,14 +103,16 @@ int raw(const std::string& path) {
   return 0;
 }
 
-int ingest(const std::string& path, const std::string& config) {
+int ingest(const std::string& path, const std::string& config, bool to_file) {
   const auto t0 = std::chrono::steady_clock::now();
   rungcal::IngestOptions o = rungcal::ingest_options_from_file(config);
   o.input_path = path;
-  rungcal::IngestResult r = rungcal::run_ingest(o);
+  o.catalog_path = path + ".catalog.fits";
+  o.rejects_csv_path = path + ".rejects.csv";
+  rungcal::IngestResult r = to_file ? rungcal::ingest_catalog_file(o) : rungcal::run_ingest(o);
   const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
   std::printf("seconds %.4f\npeak_rss_mb %.1f\nrows %zu\nrejected %zu\n", s, peak_rss_mb(),
-              r.catalog.rows(), r.rejected.size());
+              r.stars, r.rejected.size());
   return 0;
 }
 
@@ -115,9 +120,12 @@ int ingest(const std::string& path, const std::string& config) {
 
 int main(int argc, char** argv) {
   const std::string mode = argc > 1 ? argv[1] : "";
+  rungcal::keep_freed_memory_for_reuse();  // as rungcal-ingest does
   if (mode == "make" && argc == 4) return make(argv[2], std::stol(argv[3]));
   if (mode == "raw" && argc == 3) return raw(argv[2]);
-  if (mode == "ingest" && argc == 4) return ingest(argv[2], argv[3]);
-  std::fprintf(stderr, "usage: bench_ingest make FILE ROWS | raw FILE | ingest FILE CONFIG\n");
+  if (mode == "ingest" && argc == 4) return ingest(argv[2], argv[3], true);
+  if (mode == "memory" && argc == 4) return ingest(argv[2], argv[3], false);
+  std::fprintf(stderr,
+               "usage: bench_ingest make FILE ROWS | raw FILE | ingest|memory FILE CONFIG\n");
   return 2;
 }

@@ -18,16 +18,16 @@ int main(int argc, char** argv) {
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("ingest", common.verbosity(), common.log_file);
+  rungcal::keep_freed_memory_for_reuse();  // groups of a large catalog reuse the same buffers
 
   return rungcal::run_stage("ingest", [&] {
     rungcal::IngestOptions options = rungcal::ingest_options_from_file(config_path);
     if (!in_path.empty()) options.input_path = in_path;
     if (!out_path.empty()) options.catalog_path = out_path;
     if (!lightcurves_path.empty()) options.lightcurves.summary_path = lightcurves_path;
-    rungcal::IngestResult result = rungcal::run_ingest(options);
-    rungcal::write_ingest_products(result, options);
+    rungcal::IngestResult result = rungcal::ingest_catalog_file(options);
     spdlog::info("{} rows read, {} stars in the catalog, {} rejected", result.rows_read,
-                 result.catalog.rows(), result.rejected.size());
+                 result.stars, result.rejected.size());
     for (const auto& r : result.rejected)
       spdlog::debug("rejected line/row {} ({}): [{}] {}", r.source_row, r.id, r.rule, r.message);
     spdlog::info("catalog: {}", options.catalog_path);

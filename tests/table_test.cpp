@@ -278,3 +278,61 @@ TEST(Fits, InputsTheFuzzerFoundAreReadOrRefusedCleanly) {
 
 }  // namespace
 }  // namespace rungcal
+
+namespace rungcal {
+namespace {
+
+StarTable stream_group(const std::vector<std::string>& ids, double first) {
+  StarTable t;
+  t.add_column("id", ColumnType::kText, "", "star id");
+  t.add_column("x", ColumnType::kReal, "mag");
+  t.add_column("n", ColumnType::kInteger);
+  t.add_column("ok", ColumnType::kBoolean);
+  for (std::size_t i = 0; i < ids.size(); ++i) {
+    ids[i].empty() ? t.column("id").push_null() : t.column("id").push_text(ids[i]);
+    i == 1 ? t.column("x").push_null() : t.column("x").push_real(first + static_cast<double>(i));
+    i == 2 ? t.column("n").push_null() : t.column("n").push_integer(static_cast<std::int64_t>(i));
+    t.column("ok").push_boolean(i % 2 == 0);
+  }
+  return t;
+}
+
+TEST(FitsStream, GroupsWrittenInTurnReadBackAsOneTable) {
+  // A later group holds a longer text value (the column widens), the table was made for
+  // more rows than arrive (the rest are dropped), then for fewer (rows are added).
+  for (std::int64_t expected : {10, 2}) {
+    test::TempDir dir;
+    StarTable a = stream_group({"A1", "", "A3"}, 1.0);
+    StarTable b = stream_group({"B-much-longer-id", "B2", "B3", "B4"}, 10.0);
+    FitsTableStream stream(dir.file("s.fits"), "STREAM", expected);
+    stream.append(a);
+    EXPECT_FALSE(test::file_exists(dir.file("s.fits")));  // nothing at the path until finish
+    stream.append(b);
+    StarTable extra = stream_group({"R"}, 0.0);
+    StarTable schema = stream_group({}, 0.0);
+    stream.finish({{"RGTEST", std::string("yes"), "a keyword"}}, {{"EXTRA", &extra}}, schema);
+    EXPECT_EQ(stream.rows(), 7);
+    StarTable whole = a;
+    whole.append_rows(b);
+    StarTable back = read_fits_table(dir.file("s.fits"), {"STREAM", 0}).table;
+    ASSERT_NE(back.keyword("RGTEST"), nullptr);
+    back.header().clear();
+    EXPECT_EQ(format_csv_table(back), format_csv_table(whole)) << expected;
+    EXPECT_EQ(back.column("x").unit, "mag");
+    EXPECT_EQ(read_fits_table(dir.file("s.fits"), {"EXTRA", 0}).table.rows(), 1u);
+  }
+}
+
+TEST(FitsStream, AStreamNeverFinishedLeavesNothing) {
+  test::TempDir dir;
+  {
+    FitsTableStream stream(dir.file("s.fits"), "STREAM", 3);
+    stream.append(stream_group({"A"}, 1.0));
+  }
+  EXPECT_FALSE(test::file_exists(dir.file("s.fits")));
+  for (const auto& e : std::filesystem::directory_iterator(dir.path()))
+    ADD_FAILURE() << "left behind: " << e.path();
+}
+
+}  // namespace
+}  // namespace rungcal

@@ -7,13 +7,23 @@
 #include <filesystem>
 #include <memory>
 #include <set>
+#include <condition_variable>
+#include <exception>
+#include <functional>
+#include <future>
+#include <limits>
+#include <mutex>
+#include <string_view>
+#include <thread>
 #include <unordered_map>
 
 #include <fmt/format.h>
 #include <spdlog/spdlog.h>
 
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/parallel.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/table_source.hpp"
 #include "rungcal/table/units.hpp"
 
@@ -83,6 +93,83 @@ struct Resolved {
   std::optional<std::variant<double, std::string>> constant;
   bool present() const { return column || constant; }
 };
+
+// One input row's outcome before the duplicate-id check, which runs in file order.
+struct RowFate {
+  std::int64_t source_row = 0;
+  std::string id;                 // rejected rows (accepted rows' ids are in the group)
+  std::int64_t accepted_at = -1;  // row in the group's table, or -1: rejected
+  RowReject reject;
+};
+
+// A group of input rows mapped and checked: the accepted rows and every row's fate.
+struct RowGroup {
+  StarTable rows;
+  std::vector<RowFate> fates;
+  std::string row_label, id_column;
+};
+
+// Ids seen so far, with the source row of their first use. Open addressing over two
+// independent 64-bit hashes of each id: 24 bytes a slot and one cache line per look-up,
+// where a string-keyed map costs a node, a string and several cache misses per id (a
+// million-row catalog). Two ids are taken as equal when both hashes agree: the chance
+// that two different ids among n do is about n^2 / 2^129 (1e-27 for a million).
+class IdRegistry {
+ public:
+  explicit IdRegistry(std::size_t expected) {
+    std::size_t size = 1024;
+    while (size < 2 * expected) size *= 2;
+    slots_.assign(size, Slot{});
+  }
+  // The row the id was first seen at; nothing (and the id is recorded at row) when new.
+  std::optional<std::int64_t> first_seen(std::string_view id, std::int64_t row) {
+    if (2 * (count_ + 1) > slots_.size()) grow();
+    const std::uint64_t a = std::hash<std::string_view>{}(id), b = second_hash(id);
+    for (std::size_t i = a & (slots_.size() - 1);; i = (i + 1) & (slots_.size() - 1)) {
+      Slot& s = slots_[i];
+      if (s.row == kEmpty) {
+        s = {a, b, row};
+        ++count_;
+        return std::nullopt;
+      }
+      if (s.a == a && s.b == b) return s.row;
+    }
+  }
+
+ private:
+  static constexpr std::int64_t kEmpty = std::numeric_limits<std::int64_t>::min();
+  struct Slot {
+    std::uint64_t a = 0, b = 0;
+    std::int64_t row = kEmpty;
+  };
+  // FNV-1a, finished with the splitmix64 mixer: independent of std::hash's Murmur.
+  static std::uint64_t second_hash(std::string_view id) {
+    std::uint64_t h = 0xcbf29ce484222325ull;
+    for (unsigned char ch : id) h = (h ^ ch) * 0x100000001b3ull;
+    h = (h ^ (h >> 30)) * 0xBF58476D1CE4E5B9ull;
+    h = (h ^ (h >> 27)) * 0x94D049BB133111EBull;
+    return h ^ (h >> 31);
+  }
+  void grow() {
+    std::vector<Slot> old = std::move(slots_);
+    slots_.assign(old.size() * 2, Slot{});
+    for (const Slot& s : old)
+      if (s.row != kEmpty)
+        for (std::size_t i = s.a & (slots_.size() - 1);; i = (i + 1) & (slots_.size() - 1))
+          if (slots_[i].row == kEmpty) {
+            slots_[i] = s;
+            break;
+          }
+  }
+  std::vector<Slot> slots_;
+  std::size_t count_ = 0;
+};
+
+std::string rejects_csv_path(const IngestOptions& o) {
+  if (!o.rejects_csv_path.empty()) return o.rejects_csv_path;
+  std::filesystem::path p(o.catalog_path);
+  return (p.parent_path() / (p.stem().string() + "_rejects.csv")).string();
+}
 
 [[noreturn]] void whole_file_error(const IngestOptions& o, const std::string& column,
                                    const std::string& rule, const std::string& message) {
@@ -523,7 +610,15 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       join.summary_path, result.periods_joined, result.magnitudes_joined, unmatched);
 }
 
-IngestResult run_ingest(const IngestOptions& o) {
+namespace {
+
+using GroupSink = std::function<void(StarTable&&)>;
+
+// Reads, maps and checks the input group by group (FITS groups on every core, one cfitsio
+// read at a time), settles each group's duplicate ids in file order and hands its accepted
+// rows to sink in file order. Fills the rest of result; returns the catalog's columns and
+// header without rows.
+StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const GroupSink& sink) {
   throw_if_invalid(o.check(), o.config_file);
   // FITS catalogs are read in groups of rows (a million-row table never sits in memory
   // twice); text tables whole.
@@ -539,21 +634,24 @@ IngestResult run_ingest(const IngestOptions& o) {
       reader ? static_cast<std::size_t>(reader->rows()) : first_chunk.table.rows();
   if (n == 0) throw InputError({o.input_path, {}, {}}, "empty_file", "the table has no rows");
 
-  IngestResult result;
   result.rows_read = n;
   result.provenance = Provenance::for_stage("ingest");
   result.provenance.config_sha256 = o.config_sha256;
-  result.provenance.inputs.push_back(
-      {o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(n)});
+  // The input's hash for provenance, on its own thread while the rows are mapped.
+  auto input_hash =
+      std::async(std::launch::async, [path = o.input_path] { return sha256_file(path); });
 
-  StarTable& cat = result.catalog;
-  Column *c_id = nullptr, *c_row = nullptr, *c_period = nullptr, *c_logp = nullptr;
-  std::map<std::string, Column*> out_q;
-  std::vector<std::pair<Column*, Column*>> out_bands;
+  // The catalog's columns, made from the first group of rows; each group fills a copy.
+  StarTable schema;
+  bool schema_made = false;
+  std::size_t i_id = 0, i_row = 0, i_period = 0, i_logp = 0;
+  std::map<std::string, std::size_t> out_q_index;
+  std::vector<std::pair<std::size_t, std::size_t>> out_band_index;
   std::string band_list;
-  std::vector<Column*> out_extras;
-  std::unordered_map<std::string, std::int64_t> first_row_of_id;
+  std::vector<std::size_t> out_extra_index;
   auto process = [&](const SourceTable& in) {
+    RowGroup group;
+    group.row_label = in.row_label;
     // Resolve every mapping before any row is read: mapping errors stop the whole file.
     std::map<std::string, Resolved> q;
     for (const auto& [k, src] : o.quantities) q[k] = resolve(src, k, find_quantity(k)->kind, in, o);
@@ -583,38 +681,55 @@ IngestResult run_ingest(const IngestOptions& o) {
     }
 
     // Output columns: fixed ones first, then the mapped quantities, bands and extras.
-    if (!c_id) {
-      auto add = [&](const QuantitySpec& s) {
-        return &cat.add_column(std::string(s.column), s.type, canonical_unit(s.kind),
-                               std::string(s.description));
+    if (!schema_made) {
+      schema_made = true;
+      auto add_column = [&](const std::string& name, ColumnType type, const std::string& unit,
+                            const std::string& description) {
+        schema.add_column(name, type, unit, description);
+        return schema.columns() - 1;
       };
-      c_id = add(*find_quantity("id"));
-      c_row =
-          &cat.add_column(col::kSourceRow, ColumnType::kInteger, "", "line or row in the input");
-      c_period = add(*find_quantity("period"));
-      c_logp =
-          &cat.add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
+      auto add = [&](const QuantitySpec& spec) {
+        return add_column(std::string(spec.column), spec.type, canonical_unit(spec.kind),
+                          std::string(spec.description));
+      };
+      i_id = add(*find_quantity("id"));
+      i_row = add_column(col::kSourceRow, ColumnType::kInteger, "", "line or row in the input");
+      i_period = add(*find_quantity("period"));
+      i_logp = add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
       for (const auto& spec : catalog_quantities()) {
         std::string k(spec.key);
         if (k == "id" || k == "period" || !q.count(k)) continue;
-        out_q[k] = add(spec);
+        out_q_index[k] = add(spec);
       }
       for (const auto& b : bands) {
         // Two statements: the magnitude column must come before its error in the file.
-        Column* mag = &cat.add_column(magnitude_column(b.band), ColumnType::kReal, "mag",
-                                      "mean magnitude in " + b.band);
-        Column* err = &cat.add_column(magnitude_error_column(b.band), ColumnType::kReal, "mag",
-                                      "error of mag_" + b.band);
-        out_bands.emplace_back(mag, err);
+        const std::size_t mag = add_column(magnitude_column(b.band), ColumnType::kReal, "mag",
+                                           "mean magnitude in " + b.band);
+        const std::size_t err = add_column(magnitude_error_column(b.band), ColumnType::kReal,
+                                           "mag", "error of mag_" + b.band);
+        out_band_index.emplace_back(mag, err);
         band_list += (band_list.empty() ? "" : ",") + b.band;
       }
       for (std::size_t i = 0; i < o.extras.size(); ++i) {
         const Column* src = extra_cols[i];
-        out_extras.push_back(&cat.add_column(
+        out_extra_index.push_back(add_column(
             o.extras[i].name, src->type, o.extras[i].unit.empty() ? src->unit : o.extras[i].unit,
             "copied from input column " + o.extras[i].column));
       }
+      schema.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
     }
+    StarTable& table = group.rows;
+    table = schema;
+    Column* c_id = &table.column(i_id);
+    Column* c_row = &table.column(i_row);
+    Column* c_period = &table.column(i_period);
+    Column* c_logp = &table.column(i_logp);
+    std::map<std::string, Column*> out_q;
+    for (const auto& [k, i] : out_q_index) out_q[k] = &table.column(i);
+    std::vector<std::pair<Column*, Column*>> out_bands;
+    for (const auto& [m, e] : out_band_index) out_bands.emplace_back(&table.column(m), &table.column(e));
+    std::vector<Column*> out_extras;
+    for (std::size_t i : out_extra_index) out_extras.push_back(&table.column(i));
     // Per-chunk lookups done once, not per row: the numeric quantities in slots, and what
     // each output column takes.
     std::vector<const Resolved*> numeric;
@@ -648,48 +763,59 @@ IngestResult run_ingest(const IngestOptions& o) {
     std::vector<std::pair<std::string, int>> error_slots;
     for (const char* k : {"ebv_err", "feh_err", "mu_err", "period_err"})
       if (slot(k) >= 0) error_slots.emplace_back(k, slot(k));
+    // Modes and classes repeat from row to row: each distinct spelling is looked up once.
+    std::unordered_map<std::string, std::string> mode_of, class_of;
+    auto canonical_cached = [&](std::unordered_map<std::string, std::string>& cache,
+                                const std::string& text, bool is_mode) -> const std::string& {
+      auto it = cache.find(text);
+      if (it == cache.end())
+        it = cache.emplace(text, is_mode ? canonical_choice(text, o.mode_aliases,
+                                                            builtin_mode_aliases(), true)
+                                         : canonical_choice(text, o.class_aliases,
+                                                            builtin_class_aliases(), false))
+                 .first;
+      return it->second;
+    };
+    const Resolved& q_id = q.at("id");
+    const Resolved& q_period = q.at("period");
+    const Resolved& q_mode = q.at("mode");
+    const Resolved& q_class = q.at("pulsator_class");
+    std::vector<std::pair<std::optional<double>, std::optional<double>>> mags;
     for (std::size_t r = 0; r < in.table.rows(); ++r) {
       const std::int64_t src_row = in.source_rows[r];
       std::string id;
       try {
-        auto idv = text_at(q.at("id"), r);
+        auto idv = text_at(q_id, r);
         if (!idv || idv->empty())
-          throw RowReject{"missing_required", q.at("id").column_name, "the star has no id"};
-        id = *idv;
-        auto [it, fresh] = first_row_of_id.emplace(id, src_row);
-        if (!fresh)
-          throw RowReject{
-              "duplicate_id", q.at("id").column_name,
-              fmt::format("id '{}' was already used at {} {}", id, in.row_label, it->second)};
-        auto period = number_at(q.at("period"), r);
+          throw RowReject{"missing_required", q_id.column_name, "the star has no id"};
+        id = std::move(*idv);
+        auto period = number_at(q_period, r);
         if (!period)
-          throw RowReject{"missing_required", q.at("period").column_name, "the star has no period"};
+          throw RowReject{"missing_required", q_period.column_name, "the star has no period"};
         if (*period <= 0)
-          throw RowReject{"period_nonpositive", q.at("period").column_name,
+          throw RowReject{"period_nonpositive", q_period.column_name,
                           fmt::format("period {} d is not positive", *period)};
         for (std::size_t s = 0; s < o.selection.size(); ++s)
           if (!select_row(o.selection[s], *select_cols[s], r))
             throw RowReject{"selection", o.selection[s].column,
                             "fails the selection " + o.selection[s].describe()};
 
-        auto mode_text = text_at(q.at("mode"), r);
+        auto mode_text = text_at(q_mode, r);
         if (!mode_text)
-          throw RowReject{"missing_required", q.at("mode").column_name,
+          throw RowReject{"missing_required", q_mode.column_name,
                           "the star has no pulsation mode"};
-        std::string mode =
-            canonical_choice(*mode_text, o.mode_aliases, builtin_mode_aliases(), true);
+        const std::string& mode = canonical_cached(mode_of, *mode_text, true);
         if (mode.empty())
-          throw RowReject{"unknown_mode", q.at("mode").column_name,
+          throw RowReject{"unknown_mode", q_mode.column_name,
                           fmt::format("mode '{}' is unknown (map it in [modes]; known: {})",
                                       *mode_text, kPulsationModeNames.choices())};
-        auto class_text = text_at(q.at("pulsator_class"), r);
+        auto class_text = text_at(q_class, r);
         if (!class_text)
-          throw RowReject{"missing_required", q.at("pulsator_class").column_name,
+          throw RowReject{"missing_required", q_class.column_name,
                           "the star has no pulsator class"};
-        std::string klass =
-            canonical_choice(*class_text, o.class_aliases, builtin_class_aliases(), false);
+        const std::string& klass = canonical_cached(class_of, *class_text, false);
         if (klass.empty())
-          throw RowReject{"unknown_class", q.at("pulsator_class").column_name,
+          throw RowReject{"unknown_class", q_class.column_name,
                           fmt::format("class '{}' is unknown (map it in [classes]; known: {})",
                                       *class_text, kPulsatorClassNames.choices())};
 
@@ -727,7 +853,7 @@ IngestResult run_ingest(const IngestOptions& o) {
             throw;
           }
         }
-        std::vector<std::pair<std::optional<double>, std::optional<double>>> mags;
+        mags.clear();
         bool any_mag = false;
         for (const auto& b : bands) {
           auto m = number_at(b.mag, r);
@@ -751,7 +877,8 @@ IngestResult run_ingest(const IngestOptions& o) {
           throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
 
         // Accepted: append the row.
-        c_id->push_text(id);
+        group.fates.push_back({src_row, {}, static_cast<std::int64_t>(table.rows()), {}});
+        c_id->push_text(std::move(id));
         c_row->push_integer(src_row);
         c_period->push_real(*period);
         c_logp->push_real(std::log10(*period));
@@ -800,16 +927,114 @@ IngestResult run_ingest(const IngestOptions& o) {
           }
         }
       } catch (const RowReject& rej) {
-        result.rejected.push_back({src_row, id, rej.rule, rej.column, rej.message});
+        group.fates.push_back({src_row, id, -1, rej});
       }
     }
+    group.id_column = q_id.column_name;
+    return group;
   };
-  process(first_chunk);
+  IdRegistry ids(n);
+  std::size_t kept = 0;
+  auto settle = [&](RowGroup&& g) {
+    std::vector<std::size_t> keep;
+    bool dropped = false;
+    for (RowFate& f : g.fates) {
+      const std::string& id = f.accepted_at >= 0
+                                  ? g.rows.column(i_id).text[static_cast<std::size_t>(f.accepted_at)]
+                                  : f.id;
+      if (!id.empty()) {
+        if (auto first = ids.first_seen(id, f.source_row)) {
+          result.rejected.push_back(
+              {f.source_row, id, "duplicate_id", g.id_column,
+               fmt::format("id '{}' was already used at {} {}", id, g.row_label, *first)});
+          dropped = dropped || f.accepted_at >= 0;
+          continue;
+        }
+      }
+      if (f.accepted_at >= 0)
+        keep.push_back(static_cast<std::size_t>(f.accepted_at));
+      else
+        result.rejected.push_back(
+            {f.source_row, f.id, f.reject.rule, f.reject.column, f.reject.message});
+    }
+    if (dropped) g.rows = g.rows.select_rows(keep);
+    kept += g.rows.rows();
+    sink(std::move(g.rows));
+  };
+  settle(process(first_chunk));
   first_chunk = SourceTable{};
-  for (std::size_t start = static_cast<std::size_t>(o.chunk_rows); reader && start < n;
-       start += static_cast<std::size_t>(o.chunk_rows))
-    process(reader->read(static_cast<std::int64_t>(start), o.chunk_rows));
-  if (cat.rows() == 0) {
+  const auto chunk = static_cast<std::size_t>(o.chunk_rows);
+  const std::size_t groups = reader ? (n + chunk - 1) / chunk : 1;
+  if (groups > 1) {
+    // Workers read (one cfitsio call at a time) and check groups; this thread settles them
+    // in file order and hands them on (writing, when streaming) while the workers go on.
+    std::mutex read_mutex, mutex;
+    std::condition_variable changed;
+    std::map<std::size_t, RowGroup> done;  // checked groups waiting to be settled
+    std::size_t next = 1;                  // the next group to settle
+    bool failed = false;
+    std::exception_ptr worker_error;
+    const int threads = worker_threads(0);
+    // Groups read past the next to settle, at most: memory stays a few groups.
+    const auto ahead = static_cast<std::size_t>(threads) + 1;
+    std::thread workers([&] {
+      try {
+        parallel_for(groups - 1, threads, [&](std::size_t k) {
+          const std::size_t g = k + 1;
+          {
+            std::unique_lock lock(mutex);
+            changed.wait(lock, [&] { return failed || g < next + ahead; });
+            if (failed) return;
+          }
+          SourceTable in;
+          {
+            std::lock_guard lock(read_mutex);
+            in = reader->read(static_cast<std::int64_t>(g * chunk), o.chunk_rows);
+          }
+          RowGroup rows = process(in);
+          std::lock_guard lock(mutex);
+          done.emplace(g, std::move(rows));
+          changed.notify_all();
+        });
+      } catch (...) {
+        std::lock_guard lock(mutex);
+        worker_error = std::current_exception();
+        failed = true;
+        changed.notify_all();
+      }
+    });
+    try {
+      while (true) {
+        RowGroup rows;
+        {
+          std::unique_lock lock(mutex);
+          changed.wait(lock, [&] { return failed || next >= groups || done.count(next); });
+          if (failed || next >= groups) break;
+          auto it = done.find(next);
+          rows = std::move(it->second);
+          done.erase(it);
+        }
+        settle(std::move(rows));
+        std::lock_guard lock(mutex);
+        ++next;
+        changed.notify_all();
+      }
+    } catch (...) {
+      {
+        std::lock_guard lock(mutex);
+        failed = true;
+        changed.notify_all();
+      }
+      workers.join();
+      throw;
+    }
+    workers.join();
+    if (worker_error) std::rethrow_exception(worker_error);
+  }
+  result.provenance.inputs.push_back(
+      {o.input_path, input_hash.get(), static_cast<std::int64_t>(n)});
+  result.stars = kept;
+  if (kept == 0) {
     std::string first =
         result.rejected.empty()
             ? ""
@@ -818,9 +1043,51 @@ IngestResult run_ingest(const IngestOptions& o) {
     throw InputError({o.input_path, {}, {}}, "no_rows_left",
                      fmt::format("all {} rows were rejected{}", n, first));
   }
-  cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
+  return schema;
+}
+
+}  // namespace
+
+IngestResult run_ingest(const IngestOptions& o) {
+  IngestResult result;
+  StarTable& cat = result.catalog;
+  bool first = true;
+  StarTable schema = ingest_groups(o, result, [&](StarTable&& rows) {
+    if (first) {
+      cat = std::move(rows);
+      first = false;
+    } else {
+      cat.append_rows(rows);
+    }
+  });
+  if (first) cat = std::move(schema);
   if (!o.lightcurves.summary_path.empty()) join_lightcurve_summary(cat, o.lightcurves, result);
   stamp_provenance(cat, result.provenance, "catalog");
+  return result;
+}
+
+IngestResult ingest_catalog_file(const IngestOptions& o) {
+  if (!o.input_is_fits || !o.lightcurves.summary_path.empty()) {
+    // Text tables are read whole anyway; a light-curve join needs the whole catalog.
+    IngestResult result = run_ingest(o);
+    write_ingest_products(result, o);
+    return result;
+  }
+  IngestResult result;
+  // Made at the first accepted row: a file that fails its first checks leaves nothing.
+  std::optional<FitsTableStream> stream;
+  StarTable schema = ingest_groups(o, result, [&](StarTable&& rows) {
+    if (rows.rows() == 0) return;
+    // Made with a row for every input row: rows refused are dropped at the end.
+    if (!stream) stream.emplace(o.catalog_path, "CATALOG", static_cast<std::int64_t>(result.rows_read));
+    stream->append(rows);
+  });
+  stamp_provenance(schema, result.provenance, "catalog");
+  StarTable rejects = result.rejects_table();
+  stamp_provenance(rejects, result.provenance, "rejects");
+  stream->finish(schema.header(), {{"REJECTS", &rejects}}, schema);
+  write_csv_table(rejects, rejects_csv_path(o));
+  result.catalog = std::move(schema);  // columns and header: the rows are in the file
   return result;
 }
 
@@ -828,12 +1095,7 @@ void write_ingest_products(const IngestResult& result, const IngestOptions& o) {
   StarTable rejects = result.rejects_table();
   stamp_provenance(rejects, result.provenance, "rejects");
   write_fits_tables(o.catalog_path, {{"CATALOG", &result.catalog}, {"REJECTS", &rejects}});
-  std::string csv = o.rejects_csv_path;
-  if (csv.empty()) {
-    std::filesystem::path p(o.catalog_path);
-    csv = (p.parent_path() / (p.stem().string() + "_rejects.csv")).string();
-  }
-  write_csv_table(rejects, csv);
+  write_csv_table(rejects, rejects_csv_path(o));
 }
 
 }  // namespace rungcal

@@ -276,7 +276,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
                       "",
                       {ingest.catalog_path, ingest.rejects_csv_path},
                       "",
-                      [&] { write_ingest_products(run_ingest(ingest), ingest); }});
+                      [&] { ingest_catalog_file(ingest); }});
   }
   stages.push_back({"deredden",
                     o.deredden_config,
@@ -333,7 +333,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
                       "",
                       {t_ingest->catalog_path, t_ingest->rejects_csv_path},
                       "",
-                      [&] { write_ingest_products(run_ingest(*t_ingest), *t_ingest); }});
+                      [&] { ingest_catalog_file(*t_ingest); }});
     stages.push_back({"targets_deredden",
                       o.targets_deredden_config,
                       {t_deredden->input_path, t_deredden->bands_file},

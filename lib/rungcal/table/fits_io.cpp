@@ -291,20 +291,41 @@ void write_keyword(fitsfile* f, const Keyword& k, const std::string& path) {
   if (status) throw_write_status(status, path, "writing keyword " + k.key);
 }
 
-void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t,
-                     const std::string& path) {
+// Bytes per row of each column, text widths as given (at least 1).
+std::vector<std::size_t> field_widths(const StarTable& t, const std::vector<std::size_t>& text_widths) {
+  std::vector<std::size_t> w;
+  for (std::size_t c = 0; c < t.columns(); ++c) {
+    const Column& col = t.column(c);
+    w.push_back(col.type == ColumnType::kText ? std::max<std::size_t>(1, text_widths[c])
+                                              : field_width(col, tform_for(col)));
+  }
+  return w;
+}
+
+// The widest value of each text column (0 for other columns).
+std::vector<std::size_t> widest_text(const StarTable& t) {
+  std::vector<std::size_t> w(t.columns(), 0);
+  for (std::size_t c = 0; c < t.columns(); ++c) {
+    const Column& col = t.column(c);
+    if (col.type != ColumnType::kText) continue;
+    for (std::size_t r = 0; r < col.size(); ++r)
+      if (!col.is_null(r)) w[c] = std::max(w[c], col.text[r].size());
+  }
+  return w;
+}
+
+// A binary table HDU for t's columns with nrows rows, room for extra_keys more header
+// keywords, the column descriptions and integer TNULLs; no data written.
+void create_table_hdu(fitsfile* f, const std::string& extname, const StarTable& t,
+                      const std::vector<std::size_t>& widths, LONGLONG nrows, int extra_keys,
+                      const std::string& path) {
   int status = 0;
   std::vector<std::string> names, forms, units;
   for (std::size_t c = 0; c < t.columns(); ++c) {
-    names.push_back(t.column(c).name);
-    forms.push_back(tform_for(t.column(c)));
-    units.push_back(t.column(c).unit);
-  }
-  std::vector<std::size_t> offsets;
-  std::size_t offset = 0;
-  for (std::size_t c = 0; c < t.columns(); ++c) {
-    offsets.push_back(offset);
-    offset += field_width(t.column(c), forms[c]);
+    const Column& col = t.column(c);
+    names.push_back(col.name);
+    forms.push_back(col.type == ColumnType::kText ? fmt::format("{}A", widths[c]) : tform_for(col));
+    units.push_back(col.unit);
   }
   std::vector<char*> pn, pf, pu;
   for (std::size_t c = 0; c < names.size(); ++c) {
@@ -312,62 +333,86 @@ void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t
     pf.push_back(forms[c].data());
     pu.push_back(units[c].data());
   }
-  fits_create_tbl(f, BINARY_TBL, static_cast<LONGLONG>(t.rows()), static_cast<int>(names.size()),
-                  pn.data(), pf.data(), pu.data(), extname.c_str(), &status);
+  fits_create_tbl(f, BINARY_TBL, nrows, static_cast<int>(names.size()), pn.data(), pf.data(),
+                  pu.data(), extname.c_str(), &status);
+  if (extra_keys > 0) fits_set_hdrsize(f, extra_keys, &status);
   if (status) throw_write_status(status, path, "creating table " + extname);
-  const auto nrows = static_cast<LONGLONG>(t.rows());
   for (std::size_t c = 0; c < t.columns(); ++c) {
     const Column& col = t.column(c);
-    int colnum = static_cast<int>(c) + 1;
-    if (!col.description.empty()) {
+    const int colnum = static_cast<int>(c) + 1;
+    if (!col.description.empty())
       fits_modify_comment(f, fmt::format("TTYPE{}", colnum).c_str(), col.description.c_str(),
                           &status);
+    if (col.type == ColumnType::kInteger) {
+      LONGLONG tnull = kIntegerNull;
+      fits_write_key(f, TLONGLONG, fmt::format("TNULL{}", colnum).c_str(), &tnull,
+                     "value of null entries", &status);
+      fits_set_btblnull(f, colnum, kIntegerNull, &status);
     }
-    if (nrows == 0) continue;
-    switch (col.type) {
-      case ColumnType::kReal: {
-        std::vector<double> v(col.real);
-        for (std::size_t r = 0; r < v.size(); ++r)
-          if (col.is_null(r)) v[r] = std::numeric_limits<double>::quiet_NaN();
-        fits_write_col(f, TDOUBLE, colnum, 1, 1, nrows, v.data(), &status);
-        break;
-      }
-      case ColumnType::kInteger: {
-        LONGLONG tnull = kIntegerNull;
-        fits_write_key(f, TLONGLONG, fmt::format("TNULL{}", colnum).c_str(), &tnull,
-                       "value of null entries", &status);
-        std::vector<LONGLONG> v(col.integer.begin(), col.integer.end());
-        for (std::size_t r = 0; r < v.size(); ++r)
-          if (col.is_null(r)) v[r] = kIntegerNull;
-        fits_set_btblnull(f, colnum, kIntegerNull, &status);
-        fits_write_colnull(f, TLONGLONG, colnum, 1, 1, nrows, v.data(), &tnull, &status);
-        break;
-      }
-      case ColumnType::kBoolean: {
-        std::vector<char> v(col.boolean.begin(), col.boolean.end());
-        fits_write_col(f, TLOGICAL, colnum, 1, 1, nrows, v.data(), &status);
-        for (std::size_t r = 0; r < v.size(); ++r)
-          if (col.is_null(r))
-            fits_write_col_null(f, colnum, static_cast<LONGLONG>(r) + 1, 1, 1, &status);
-        break;
-      }
-      case ColumnType::kText: {
-        // Raw bytes padded with NUL, as astropy writes them: cfitsio would pad with blanks,
-        // which astropy then hands its users as part of the value.
-        std::size_t width = field_width(col, forms[c]);
-        std::vector<unsigned char> buf(width);
-        for (std::size_t r = 0; r < col.size() && status == 0; ++r) {
-          std::fill(buf.begin(), buf.end(), 0);
-          if (!col.is_null(r)) std::copy(col.text[r].begin(), col.text[r].end(), buf.begin());
-          fits_write_tblbytes(f, static_cast<LONGLONG>(r) + 1,
-                              static_cast<LONGLONG>(offsets[c]) + 1, static_cast<LONGLONG>(width),
-                              buf.data(), &status);
-        }
-        break;
-      }
-    }
-    if (status) throw_write_status(status, path, "writing column " + col.name);
+    if (status) throw_write_status(status, path, "describing column " + col.name);
   }
+}
+
+// FITS stores numbers big-endian (FITS Standard 4.0, section 7.3.3).
+template <typename T>
+void put_big_endian(unsigned char* to, T value) {
+  std::uint64_t bits = 0;
+  std::memcpy(&bits, &value, sizeof(T));
+  for (std::size_t i = 0; i < sizeof(T); ++i)
+    to[i] = static_cast<unsigned char>(bits >> (8 * (sizeof(T) - 1 - i)));
+}
+
+// Writes t's rows [begin, end) as rows first_row + 1 .. of the current HDU (which has them),
+// encoded row by row into one buffer per block of rows and written in one call: cfitsio's
+// own column-by-column writes cross the whole table once per column.
+void write_table_rows(fitsfile* f, const StarTable& t, const std::vector<std::size_t>& widths,
+                      LONGLONG first_row, const std::string& path, std::size_t begin,
+                      std::size_t end) {
+  std::size_t row_bytes = 0;
+  for (std::size_t w : widths) row_bytes += w;
+  const std::size_t block = std::max<std::size_t>(1, (4u << 20) / std::max<std::size_t>(1, row_bytes));
+  std::vector<unsigned char> buf;
+  for (std::size_t r0 = begin; r0 < end; r0 += block) {
+    const std::size_t n = std::min(block, end - r0);
+    buf.assign(n * row_bytes, 0);  // NUL: text padding, and a null logical
+    std::size_t offset = 0;
+    for (std::size_t c = 0; c < t.columns(); ++c) {
+      const Column& col = t.column(c);
+      unsigned char* at = buf.data() + offset;
+      for (std::size_t i = 0; i < n; ++i, at += row_bytes) {
+        const std::size_t r = r0 + i;
+        const bool null = col.is_null(r);
+        switch (col.type) {
+          case ColumnType::kReal:
+            put_big_endian(at, null ? std::numeric_limits<double>::quiet_NaN() : col.real[r]);
+            break;
+          case ColumnType::kInteger:
+            put_big_endian(at, null ? static_cast<std::int64_t>(kIntegerNull) : col.integer[r]);
+            break;
+          case ColumnType::kBoolean:
+            if (!null) *at = col.boolean[r] ? 'T' : 'F';
+            break;
+          case ColumnType::kText:
+            // Raw bytes padded with NUL, as astropy writes them: cfitsio would pad with
+            // blanks, which astropy then hands its users as part of the value.
+            if (!null) std::memcpy(at, col.text[r].data(), std::min(col.text[r].size(), widths[c]));
+            break;
+        }
+      }
+      offset += widths[c];
+    }
+    int status = 0;
+    fits_write_tblbytes(f, first_row + static_cast<LONGLONG>(r0 - begin) + 1, 1,
+                        static_cast<LONGLONG>(buf.size()), buf.data(), &status);
+    if (status) throw_write_status(status, path, "writing rows");
+  }
+}
+
+void write_one_table(fitsfile* f, const std::string& extname, const StarTable& t,
+                     const std::string& path) {
+  const std::vector<std::size_t> widths = field_widths(t, widest_text(t));
+  create_table_hdu(f, extname, t, widths, static_cast<LONGLONG>(t.rows()), 0, path);
+  write_table_rows(f, t, widths, 0, path, 0, t.rows());
   for (const auto& k : t.header()) write_keyword(f, k, path);
 }
 
@@ -608,6 +653,90 @@ void write_fits_tables(const std::string& path, const std::vector<NamedTable>& t
   fits_close_file(f.release(), &status);
   if (status) throw_write_status(status, path, "closing the file");
   out.commit();
+}
+
+struct FitsTableStream::Impl {
+  AtomicOutput out;
+  std::unique_ptr<fitsfile, FitsFileCloser> file;
+  std::string extname;
+  std::vector<std::size_t> widths;  // bytes per row of each column
+  LONGLONG rows = 0;       // rows written
+  LONGLONG allocated = 0;  // rows the table has (NAXIS2)
+  LONGLONG expected = 0;
+  bool table_made = false;
+  explicit Impl(const std::string& path) : out(path) {}
+};
+
+FitsTableStream::FitsTableStream(const std::string& path, std::string extname,
+                                 std::int64_t expected_rows)
+    : impl_(std::make_unique<Impl>(path)) {
+  impl_->extname = std::move(extname);
+  impl_->expected = std::max<std::int64_t>(0, expected_rows);
+  int status = 0;
+  fitsfile* raw = nullptr;
+  fits_create_file(&raw, impl_->out.temp_path().c_str(), &status);
+  if (status) throw_write_status(status, path, "creating the file");
+  impl_->file.reset(raw);
+  fits_create_img(raw, BYTE_IMG, 0, nullptr, &status);
+  if (status) throw_write_status(status, path, "writing the primary HDU");
+}
+
+FitsTableStream::~FitsTableStream() = default;
+
+std::int64_t FitsTableStream::rows() const { return impl_->rows; }
+
+void FitsTableStream::append(const StarTable& rows) {
+  Impl& m = *impl_;
+  const std::string& path = m.out.destination();
+  int status = 0;
+  std::vector<std::size_t> need = widest_text(rows);
+  if (!m.table_made) {
+    m.widths = field_widths(rows, need);
+    // Room for the keywords finish() writes: provenance, one per input, and the table's own.
+    create_table_hdu(m.file.get(), m.extname, rows, m.widths, m.expected, kStreamHeaderRoom, path);
+    m.allocated = m.expected;
+    m.table_made = true;
+  }
+  if (rows.columns() != m.widths.size())
+    throw std::logic_error("FitsTableStream: a group with other columns than the first");
+  for (std::size_t c = 0; c < rows.columns(); ++c) {
+    if (rows.column(c).type != ColumnType::kText || need[c] <= m.widths[c]) continue;
+    // A wider value than any before: widen the column (cfitsio moves the rows written).
+    fits_modify_vector_len(m.file.get(), static_cast<int>(c) + 1, static_cast<LONGLONG>(need[c]),
+                           &status);
+    if (status) throw_write_status(status, path, "widening column " + rows.column(c).name);
+    m.widths[c] = need[c];
+  }
+  const auto n = static_cast<LONGLONG>(rows.rows());
+  if (n == 0) return;
+  // Rows the table was made with first; past them the table grows (cfitsio then writes the
+  // new rows twice: once empty, once filled).
+  const auto fit = static_cast<std::size_t>(std::min(n, m.allocated - m.rows));
+  write_table_rows(m.file.get(), rows, m.widths, m.rows, path, 0, fit);
+  if (fit < rows.rows()) {
+    fits_insert_rows(m.file.get(), m.allocated, n - static_cast<LONGLONG>(fit), &status);
+    if (status) throw_write_status(status, path, "adding rows");
+    m.allocated += n - static_cast<LONGLONG>(fit);
+    write_table_rows(m.file.get(), rows, m.widths, m.rows + static_cast<LONGLONG>(fit), path, fit,
+                     rows.rows());
+  }
+  m.rows += n;
+}
+
+void FitsTableStream::finish(const std::vector<Keyword>& header,
+                             const std::vector<NamedTable>& more, const StarTable& empty_schema) {
+  Impl& m = *impl_;
+  const std::string& path = m.out.destination();
+  if (!m.table_made) append(empty_schema);
+  int status = 0;
+  fits_movabs_hdu(m.file.get(), 2, nullptr, &status);
+  if (m.allocated > m.rows) fits_delete_rows(m.file.get(), m.rows + 1, m.allocated - m.rows, &status);
+  if (status) throw_write_status(status, path, "closing table " + m.extname);
+  for (const auto& k : header) write_keyword(m.file.get(), k, path);
+  for (const auto& [name, table] : more) write_one_table(m.file.get(), name, *table, path);
+  fits_close_file(m.file.release(), &status);
+  if (status) throw_write_status(status, path, "closing the file");
+  m.out.commit();
 }
 
 }  // namespace rungcal

@@ -48,6 +48,33 @@ class FitsTableReader {
 // A table and the EXTNAME it is written under.
 using NamedTable = std::pair<std::string, const StarTable*>;
 
+// Writes one binary table group by group, for tables larger than memory should hold,
+// then any further whole tables; atomic like write_fits_tables (nothing appears at the
+// path until finish()). Every group has the first group's columns; a text column widens
+// when a later group holds a longer value.
+class FitsTableStream {
+ public:
+  // expected_rows: rows the table is made with, when known (fewer written are dropped at
+  // finish(); more are added as they come, at the cost of writing them twice).
+  FitsTableStream(const std::string& path, std::string extname, std::int64_t expected_rows = 0);
+  ~FitsTableStream();  // without finish(): the temporary file is removed
+  FitsTableStream(const FitsTableStream&) = delete;
+  FitsTableStream& operator=(const FitsTableStream&) = delete;
+
+  void append(const StarTable& rows);
+  std::int64_t rows() const;
+  // Writes the streamed table's header keywords (at most kStreamHeaderRoom), then `more`
+  // as further HDUs; closes and renames into place. empty_schema gives the columns when no
+  // group was appended.
+  void finish(const std::vector<Keyword>& header, const std::vector<NamedTable>& more,
+              const StarTable& empty_schema);
+  static constexpr int kStreamHeaderRoom = 200;
+
+ private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+};
+
 // Writes tables as binary-table extensions after an empty primary HDU, each with its units
 // (TUNITn), column descriptions (TTYPEn comments), header keywords, and for integer columns
 // TNULLn. Keyword names longer than 8 characters are written with the HIERARCH convention,

@@ -155,4 +155,26 @@ const Keyword* StarTable::keyword(const std::string& key) const {
   return nullptr;
 }
 
+void StarTable::append_rows(const StarTable& other) {
+  if (other.columns() != columns())
+    throw std::logic_error("append_rows: the tables have different columns");
+  for (std::size_t c = 0; c < columns(); ++c) {
+    Column& to = columns_[c];
+    const Column& from = other.columns_[c];
+    if (to.name != from.name || to.type != from.type)
+      throw std::logic_error("append_rows: column " + to.name + " differs");
+    to.null.insert(to.null.end(), from.null.begin(), from.null.end());
+    switch (to.type) {
+      case ColumnType::kReal: to.real.insert(to.real.end(), from.real.begin(), from.real.end()); break;
+      case ColumnType::kInteger:
+        to.integer.insert(to.integer.end(), from.integer.begin(), from.integer.end());
+        break;
+      case ColumnType::kText: to.text.insert(to.text.end(), from.text.begin(), from.text.end()); break;
+      case ColumnType::kBoolean:
+        to.boolean.insert(to.boolean.end(), from.boolean.begin(), from.boolean.end());
+        break;
+    }
+  }
+}
+
 }  // namespace rungcal

@@ -71,6 +71,9 @@ class StarTable {
   void remove_column(const std::string& name);
   // A new table with only the given rows, in that order.
   StarTable select_rows(const std::vector<std::size_t>& rows) const;
+  // Appends other's rows; other has the same columns in the same order (else
+  // std::logic_error, a programming error).
+  void append_rows(const StarTable& other);
 
   std::vector<Keyword>& header() { return header_; }
   const std::vector<Keyword>& header() const { return header_; }
