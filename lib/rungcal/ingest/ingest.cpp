@@ -720,6 +720,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     }
     StarTable& table = group.rows;
     table = schema;
+    table.reserve_rows(in.table.rows());
     Column* c_id = &table.column(i_id);
     Column* c_row = &table.column(i_row);
     Column* c_period = &table.column(i_period);

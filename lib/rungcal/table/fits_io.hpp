@@ -39,6 +39,10 @@ class FitsTableReader {
   // Rows first .. first + count - 1 (0-based; count < 0: to the end); source_rows stay the
   // file's 1-based row numbers.
   SourceTable read(std::int64_t first, std::int64_t count);
+  // Plain columns (big-endian numbers, logicals, text; no TSCAL/TZERO) are decoded from one
+  // read of the rows' raw bytes; off: every column through cfitsio's column reads, which
+  // give the same values (the tests compare the two).
+  void use_block_reads(bool on);
 
  private:
   struct Impl;

@@ -177,4 +177,16 @@ void StarTable::append_rows(const StarTable& other) {
   }
 }
 
+void StarTable::reserve_rows(std::size_t rows) {
+  for (Column& c : columns_) {
+    c.null.reserve(rows);
+    switch (c.type) {
+      case ColumnType::kReal: c.real.reserve(rows); break;
+      case ColumnType::kInteger: c.integer.reserve(rows); break;
+      case ColumnType::kText: c.text.reserve(rows); break;
+      case ColumnType::kBoolean: c.boolean.reserve(rows); break;
+    }
+  }
+}
+
 }  // namespace rungcal

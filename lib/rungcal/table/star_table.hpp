@@ -74,6 +74,8 @@ class StarTable {
   // Appends other's rows; other has the same columns in the same order (else
   // std::logic_error, a programming error).
   void append_rows(const StarTable& other);
+  // Room for this many rows in every column (appending them then never reallocates).
+  void reserve_rows(std::size_t rows);
 
   std::vector<Keyword>& header() { return header_; }
   const std::vector<Keyword>& header() const { return header_; }
