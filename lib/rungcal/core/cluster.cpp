@@ -22,7 +22,6 @@ namespace {
 
 thread_local int local_scope_depth = 0;
 
-#ifdef RUNGCAL_WITH_MPI
 // Launchers set these in every process they start: Open MPI, MPICH/Hydra, PMIx.
 bool launched_by_mpi() {
   for (const char* name : {"OMPI_COMM_WORLD_SIZE", "PMI_SIZE", "PMIX_RANK"})
@@ -30,6 +29,7 @@ bool launched_by_mpi() {
   return false;
 }
 
+#ifdef RUNGCAL_WITH_MPI
 void finalize_mpi() {
   int finalized = 0;
   MPI_Finalized(&finalized);
@@ -104,6 +104,12 @@ const Cluster& Cluster::world() {
       MPI_Comm_size(MPI_COMM_WORLD, &size);
       return Cluster(rank, size);
     }
+#else
+    // Each launched process would do the whole job and write the same products.
+    if (launched_by_mpi())
+      spdlog::warn(
+          "this rungcal was built without MPI: every process mpirun started runs the whole "
+          "job on its own (rebuild with Open MPI installed, or run one process)");
 #endif
     return Cluster(0, 1);
   }();
