@@ -33,6 +33,9 @@ points = false
 TOML
 mpi=(mpirun -n "$ranks" --oversubscribe)
 [ "$(id -u)" = 0 ] && mpi+=(--allow-run-as-root)
+# Open MPI on one machine: shared memory only, without probing the network layers at
+# start-up (0.25 s saved per launch here; docs/operations.md).
+mpirun --version 2>&1 | grep -q "Open MPI" && mpi+=(--mca pml ob1 --mca btl self,vader)
 seconds() { local t0 t1; t0=$(date +%s.%N); "$@" > /dev/null; t1=$(date +%s.%N); echo "$t1 - $t0" | bc -l; }
 t1=$(seconds "$build/bin/rungcal-lightcurve" -q --config "$work/lc.toml" --threads 1 --out "$work/one.fits")
 tn=$(seconds "${mpi[@]}" "$build/bin/rungcal-lightcurve" -q --config "$work/lc.toml" --threads 1 --out "$work/n.fits")
