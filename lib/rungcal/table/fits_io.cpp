@@ -229,33 +229,24 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG firs
   }
 }
 
-std::string tform_for(const Column& c) {
+// The TFORM of a column whose text values (if any) are `width` bytes wide.
+std::string tform_for(const Column& c, std::size_t width) {
   switch (c.type) {
-    case ColumnType::kReal:
-      return "1D";
-    case ColumnType::kInteger:
-      return "1K";
-    case ColumnType::kBoolean:
-      return "1L";
-    case ColumnType::kText: {
-      std::size_t w = 1;
-      for (std::size_t r = 0; r < c.size(); ++r)
-        if (!c.is_null(r)) w = std::max(w, c.text[r].size());
-      return fmt::format("{}A", w);
-    }
+    case ColumnType::kReal: return "1D";
+    case ColumnType::kInteger: return "1K";
+    case ColumnType::kBoolean: return "1L";
+    case ColumnType::kText: return fmt::format("{}A", width);
   }
   return "1D";
 }
 
-std::size_t field_width(const Column& c, const std::string& tform) {
+// Bytes per row of a column whose text values (if any) are `width` bytes wide.
+std::size_t field_width(const Column& c, std::size_t width) {
   switch (c.type) {
     case ColumnType::kReal:
-    case ColumnType::kInteger:
-      return 8;
-    case ColumnType::kBoolean:
-      return 1;
-    case ColumnType::kText:
-      return static_cast<std::size_t>(std::stoul(tform));
+    case ColumnType::kInteger: return 8;
+    case ColumnType::kBoolean: return 1;
+    case ColumnType::kText: return width;
   }
   return 0;
 }
@@ -299,8 +290,7 @@ std::vector<std::size_t> field_widths(const StarTable& t, const std::vector<std:
   std::vector<std::size_t> w;
   for (std::size_t c = 0; c < t.columns(); ++c) {
     const Column& col = t.column(c);
-    w.push_back(col.type == ColumnType::kText ? std::max<std::size_t>(1, text_widths[c])
-                                              : field_width(col, tform_for(col)));
+    w.push_back(field_width(col, std::max<std::size_t>(1, text_widths[c])));
   }
   return w;
 }
@@ -327,7 +317,7 @@ void create_table_hdu(fitsfile* f, const std::string& extname, const StarTable& 
   for (std::size_t c = 0; c < t.columns(); ++c) {
     const Column& col = t.column(c);
     names.push_back(col.name);
-    forms.push_back(col.type == ColumnType::kText ? fmt::format("{}A", widths[c]) : tform_for(col));
+    forms.push_back(tform_for(col, widths[c]));
     units.push_back(col.unit);
   }
   std::vector<char*> pn, pf, pu;
