@@ -216,6 +216,106 @@ TEST(IngestRows, NanInFitsIsMissingAndUnitsConvert) {
   EXPECT_EQ(r.rejected[0].source_row, 2);
 }
 
+TEST(IngestRows, EveryColumnTypeConstantAndLogUnitMapsToItsValue) {
+  // Hand-computed truth for each way a value reaches the catalog: a log10 period, numbers
+  // in a text column (one not a number), an integer column, a constant, a band without a
+  // mapped error, Gaia's astrometric bit masks, a text quantity and extras of every type,
+  // in one group and in groups of two rows (the checks are made column by column per group).
+  test::TempDir dir;
+  StarTable t;
+  t.add_column("id", ColumnType::kText);
+  t.add_column("logP", ColumnType::kReal, "log_d");
+  t.add_column("plx", ColumnType::kText);
+  t.add_column("plx_err", ColumnType::kInteger, "uas");
+  t.add_column("V", ColumnType::kReal, "mag");
+  t.add_column("V_err", ColumnType::kReal, "mag");
+  t.add_column("I", ColumnType::kReal, "mag");
+  t.add_column("mode", ColumnType::kText);
+  t.add_column("host", ColumnType::kText);
+  t.add_column("aps", ColumnType::kInteger);
+  t.add_column("flag", ColumnType::kBoolean);
+  t.add_column("count", ColumnType::kInteger);
+  t.add_column("note", ColumnType::kText);
+  t.add_column("w", ColumnType::kReal);
+  auto row = [&](const char* id, double logp, const char* plx, std::int64_t plx_err, double v,
+                 double v_err, double i, std::int64_t aps) {
+    t.column("id").push_text(id);
+    t.column("logP").push_real(logp);
+    t.column("plx").push_text(plx);
+    t.column("plx_err").push_integer(plx_err);
+    t.column("V").push_real(v);
+    t.column("V_err").push_real(v_err);
+    t.column("I").push_real(i);
+    t.column("mode").push_text("F");
+    t.column("host").push_text(std::string("H") + id);
+    t.column("aps").push_integer(aps);
+    t.column("flag").push_boolean(aps == 95);
+    t.column("count").push_integer(aps + 1);
+    t.column("note").push_text(std::string("n") + id);
+    t.column("w").push_real(aps == 95 ? std::nan("") : 0.5 * static_cast<double>(aps));
+  };
+  const double nan = std::nan("");
+  row("A", 1.0, "0.5", 50, 12.0, 0.02, 11.0, 31);  // kept: P 10 d, 5-parameter
+  row("B", 0.5, "abc", 50, 12.0, 0.02, 11.0, 31);  // not_a_number (plx)
+  row("C", 0.0, "-0.25", 40, nan, nan, 10.5, 95);  // kept: V missing, I without error
+  row("D", 1.0, "0.5", 50, 12.0, 0.02, 11.0, 7);   // bad_astrometric_params
+  row("E", 2.0, "0.1", 0, 12.0, 0.02, 11.0, 5);    // parallax_error_nonpositive
+  write_fits_tables(dir.file("in.fits"), {{"STARS", &t}});
+  test::write_text(
+      dir.file("c.toml"),
+      "[source]\npath = \"in.fits\"\nhdu = \"STARS\"\n\n[columns]\nid = \"id\"\n"
+      "period = \"logP\"\nparallax = { column = \"plx\", unit = \"mas\" }\n"
+      "parallax_err = \"plx_err\"\nebv = { value = 0.25 }\nmode = \"mode\"\n"
+      "pulsator_class = { value = \"classical_cepheid\" }\ngroup = \"host\"\n"
+      "astrometric_params = \"aps\"\n\n[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n\n"
+      "[bands.I]\nmag = \"I\"\n\n[extra]\nflag_copy = \"flag\"\ncount_copy = \"count\"\n"
+      "note_copy = \"note\"\nw_copy = \"w\"\n\n[output]\ncatalog = \"cat.fits\"\n");
+  IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
+  o.require_errors = false;  // band I has no error column
+  for (int chunk : {1000, 2}) {
+    o.chunk_rows = chunk;
+    IngestResult r = run_ingest(o);
+    const StarTable& c = r.catalog;
+    ASSERT_EQ(c.rows(), 2u) << chunk;
+    EXPECT_EQ(c.column(col::kId).text, (std::vector<std::string>{"A", "C"}));
+    EXPECT_EQ(c.column(col::kSourceRow).integer, (std::vector<std::int64_t>{1, 3}));
+    EXPECT_DOUBLE_EQ(c.column(col::kPeriod).real[0], 10.0);  // 10^1.0 d
+    EXPECT_DOUBLE_EQ(c.column(col::kPeriod).real[1], 1.0);   // 10^0.0 d
+    EXPECT_DOUBLE_EQ(c.column(col::kLogPeriod).real[0], 1.0);
+    EXPECT_DOUBLE_EQ(c.column(col::kParallax).real[1], -0.25);
+    EXPECT_DOUBLE_EQ(c.column(col::kParallaxErr).real[0], 0.05);  // 50 uas
+    EXPECT_DOUBLE_EQ(c.column(col::kParallaxErr).real[1], 0.04);
+    EXPECT_EQ(c.column("ebv").real, (std::vector<double>{0.25, 0.25}));
+    EXPECT_EQ(c.column(col::kMode).text, (std::vector<std::string>{"fundamental", "fundamental"}));
+    EXPECT_EQ(c.column("pulsator_class").text[1], "classical_cepheid");
+    EXPECT_EQ(c.column("group").text, (std::vector<std::string>{"HA", "HC"}));
+    EXPECT_EQ(c.column("astrometric_params").integer, (std::vector<std::int64_t>{5, 6}));
+    const Column& v = c.column(magnitude_column("V"));
+    const Column& v_err = c.column(magnitude_error_column("V"));
+    EXPECT_EQ(v.null, (std::vector<std::uint8_t>{0, 1}));
+    EXPECT_EQ(v_err.null, (std::vector<std::uint8_t>{0, 1}));  // no error without its magnitude
+    EXPECT_DOUBLE_EQ(c.column(magnitude_column("I")).real[1], 10.5);
+    EXPECT_EQ(c.column(magnitude_error_column("I")).null, (std::vector<std::uint8_t>{1, 1}));
+    EXPECT_EQ(c.column("flag_copy").boolean, (std::vector<std::uint8_t>{0, 1}));
+    EXPECT_EQ(c.column("count_copy").integer, (std::vector<std::int64_t>{32, 96}));
+    EXPECT_EQ(c.column("note_copy").text, (std::vector<std::string>{"nA", "nC"}));
+    EXPECT_DOUBLE_EQ(c.column("w_copy").real[0], 15.5);
+    EXPECT_EQ(c.column("w_copy").null, (std::vector<std::uint8_t>{0, 1}));
+    std::vector<std::pair<std::int64_t, std::string>> got;
+    for (const auto& rej : r.rejected) got.emplace_back(rej.source_row, rej.rule);
+    EXPECT_EQ(
+        got,
+        (std::vector<std::pair<std::int64_t, std::string>>{
+            {2, "not_a_number"}, {4, "bad_astrometric_params"}, {5, "parallax_error_nonpositive"}}))
+        << chunk;
+    ASSERT_EQ(r.rejected.size(), 3u);
+    EXPECT_EQ(r.rejected[0].message, "parallax: 'abc' is not a number");
+    EXPECT_EQ(r.rejected[0].column, "plx");
+    EXPECT_EQ(r.rejected[0].id, "B");
+    EXPECT_EQ(r.rejected[1].column, "aps");
+  }
+}
+
 // One whole-file failure: what to write, which rule and exit code to expect.
 struct BadCase {
   const char* name;

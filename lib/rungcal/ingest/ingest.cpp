@@ -94,18 +94,27 @@ struct Resolved {
   bool present() const { return column || constant; }
 };
 
-// One input row's outcome before the duplicate-id check, which runs in file order.
-struct RowFate {
+// A rejected input row, kept until the duplicate-id check has run in file order.
+struct RowRefusal {
   std::int64_t source_row = 0;
-  std::string id;                 // rejected rows (accepted rows' ids are in the group)
-  std::int64_t accepted_at = -1;  // row in the group's table, or -1: rejected
+  std::string id;  // "" when the row has none
   RowReject reject;
 };
 
-// A group of input rows mapped and checked: the accepted rows and every row's fate.
+// Two independent 64-bit hashes of an id (see IdRegistry).
+struct IdHash {
+  std::uint64_t a = 0, b = 0;
+};
+
+// A group of input rows mapped and checked: the accepted rows, and for every input row its
+// place in the file, its fate and its id's hash, which the workers compute so that the
+// settling thread only looks ids up.
 struct RowGroup {
   StarTable rows;
-  std::vector<RowFate> fates;
+  std::vector<std::int64_t> source_rows;
+  std::vector<std::int64_t> fate;  // the row in `rows`, or -1 - its index in `refusals`
+  std::vector<IdHash> id_hash;     // meaningful where the row has an id
+  std::vector<RowRefusal> refusals;
   std::string row_label, id_column;
 };
 
@@ -121,18 +130,22 @@ class IdRegistry {
     while (size < 2 * expected) size *= 2;
     slots_.assign(size, Slot{});
   }
+  static IdHash hash(std::string_view id) {
+    return {std::hash<std::string_view>{}(id), second_hash(id)};
+  }
+  // Starts loading the slot where h's search begins; a look-up soon after finds it cached.
+  void prefetch(const IdHash& h) const { __builtin_prefetch(&slots_[h.a & (slots_.size() - 1)]); }
   // The row the id was first seen at; nothing (and the id is recorded at row) when new.
-  std::optional<std::int64_t> first_seen(std::string_view id, std::int64_t row) {
+  std::optional<std::int64_t> first_seen(const IdHash& h, std::int64_t row) {
     if (2 * (count_ + 1) > slots_.size()) grow();
-    const std::uint64_t a = std::hash<std::string_view>{}(id), b = second_hash(id);
-    for (std::size_t i = a & (slots_.size() - 1);; i = (i + 1) & (slots_.size() - 1)) {
+    for (std::size_t i = h.a & (slots_.size() - 1);; i = (i + 1) & (slots_.size() - 1)) {
       Slot& s = slots_[i];
       if (s.row == kEmpty) {
-        s = {a, b, row};
+        s = {h.a, h.b, row};
         ++count_;
         return std::nullopt;
       }
-      if (s.a == a && s.b == b) return s.row;
+      if (s.a == h.a && s.b == h.b) return s.row;
     }
   }
 
@@ -284,13 +297,140 @@ std::optional<double> number_at(const Resolved& r, std::size_t row) {
   return x;
 }
 
-std::optional<std::string> text_at(const Resolved& r, std::size_t row) {
-  if (r.constant) {
-    if (const auto* s = std::get_if<std::string>(&*r.constant)) return *s;
-    return fmt::format("{}", std::get<double>(*r.constant));
+// A numeric quantity's values over one group of rows, converted to canonical units column
+// by column before the row checks: one pass over plain arrays instead of a type switch and
+// a conversion per value. Where number_at would refuse a value, at() calls it, so a row is
+// refused with the very rule, column and message number_at gives.
+class PreparedNumbers {
+ public:
+  PreparedNumbers(const Resolved& r, std::size_t rows) : r_(&r), value_(rows), state_(rows) {
+    if (r.constant) {
+      const double* d = std::get_if<double>(&*r.constant);
+      std::fill(state_.begin(), state_.end(), d ? kGood : kRefused);
+      if (d) std::fill(value_.begin(), value_.end(), *d);
+    } else if (!r.column) {
+      std::fill(state_.begin(), state_.end(), kMissing);
+    } else if (r.column->type == ColumnType::kReal) {
+      prepare_reals(*r.column, r.conversion);
+    } else {
+      for (std::size_t i = 0; i < rows; ++i) prepare_one(i);
+    }
   }
-  if (!r.column || r.column->is_null(row)) return std::nullopt;
-  return r.column->to_string(row);
+  std::optional<double> at(std::size_t row) const {
+    if (state_[row] == kGood) return value_[row];
+    if (state_[row] == kMissing) return std::nullopt;
+    return number_at(*r_, row);  // throws the reject
+  }
+  // The value, or NaN where missing; only for rows whose at() returned.
+  double value_or_nan(std::size_t row) const {
+    return state_[row] == kGood ? value_[row] : std::numeric_limits<double>::quiet_NaN();
+  }
+
+ private:
+  enum State : std::uint8_t { kGood, kMissing, kRefused };
+  void prepare_reals(const Column& c, const UnitConversion& conv) {
+    const std::size_t n = value_.size();
+    const double* x = c.real.data();
+    const std::uint8_t* missing = c.null.data();
+    double* y = value_.data();
+    std::uint8_t* state = state_.data();
+    if (conv.log10_input) {
+      for (std::size_t i = 0; i < n; ++i) y[i] = conv.apply(x[i]);
+    } else {
+      const double scale = conv.scale;
+      for (std::size_t i = 0; i < n; ++i) y[i] = scale * x[i];
+    }
+    for (std::size_t i = 0; i < n; ++i) {
+      const bool finite = std::isfinite(x[i]) && std::isfinite(y[i]);
+      state[i] = missing[i] ? kMissing : finite ? kGood : kRefused;
+    }
+  }
+  void prepare_one(std::size_t row) {
+    try {
+      auto v = number_at(*r_, row);
+      state_[row] = v ? kGood : kMissing;
+      value_[row] = v.value_or(0.0);
+    } catch (const RowReject&) {
+      state_[row] = kRefused;
+    }
+  }
+  const Resolved* r_;
+  std::vector<double> value_;
+  std::vector<std::uint8_t> state_;
+};
+
+// The text of a quantity in a row (a number formatted as the file or config gives it),
+// without a copy where the table or the config holds it: nullptr when missing; scratch holds a
+// formatted number.
+const std::string* text_ref(const Resolved& r, std::size_t row, std::string& scratch) {
+  if (r.constant) {
+    if (const auto* s = std::get_if<std::string>(&*r.constant)) return s;
+    scratch = fmt::format("{}", std::get<double>(*r.constant));
+    return &scratch;
+  }
+  if (!r.column || r.column->is_null(row)) return nullptr;
+  if (r.column->type == ColumnType::kText) return &r.column->text[row];
+  scratch = r.column->to_string(row);
+  return &scratch;
+}
+
+// Output columns filled for the accepted input rows at once, column by column.
+template <class ValueAt>
+void fill_reals(Column& out, std::size_t n, const ValueAt& value) {
+  out.real.resize(n);
+  out.null.resize(n);
+  for (std::size_t k = 0; k < n; ++k) {
+    const double v = value(k);
+    out.real[k] = v;
+    out.null[k] = std::isnan(v) ? 1 : 0;  // as push_real: NaN is a null
+  }
+}
+template <class TextAt>
+void fill_texts(Column& out, std::size_t n, const TextAt& value) {
+  out.text.resize(n);
+  out.null.resize(n);
+  for (std::size_t k = 0; k < n; ++k) {
+    const std::string* v = value(k);
+    if (v) out.text[k] = *v;
+    out.null[k] = v ? 0 : 1;
+  }
+}
+void fill_selected(Column& out, const Column& src, const std::vector<std::size_t>& rows) {
+  const std::size_t n = rows.size();
+  out.null.resize(n);
+  switch (src.type) {
+    case ColumnType::kReal:
+      out.real.resize(n);
+      break;
+    case ColumnType::kInteger:
+      out.integer.resize(n);
+      break;
+    case ColumnType::kText:
+      out.text.resize(n);
+      break;
+    case ColumnType::kBoolean:
+      out.boolean.resize(n);
+      break;
+  }
+  for (std::size_t k = 0; k < n; ++k) {
+    const std::size_t r = rows[k];
+    out.null[k] = src.null[r];
+    switch (src.type) {
+      case ColumnType::kReal:
+        out.real[k] = src.null[r] ? std::numeric_limits<double>::quiet_NaN() : src.real[r];
+        if (std::isnan(out.real[k])) out.null[k] = 1;
+        break;
+      case ColumnType::kInteger:
+        out.integer[k] = src.null[r] ? 0 : src.integer[r];
+        break;
+      case ColumnType::kText:
+        if (!src.null[r]) out.text[k] = src.text[r];
+        break;
+      case ColumnType::kBoolean:
+        out.boolean[k] = src.null[r] ? 0 : (src.boolean[r] != 0);
+        break;
+    }
+  }
 }
 
 bool compare(double a, SelectOp op, double b) {
@@ -720,19 +860,9 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     }
     StarTable& table = group.rows;
     table = schema;
-    table.reserve_rows(in.table.rows());
-    Column* c_id = &table.column(i_id);
-    Column* c_row = &table.column(i_row);
-    Column* c_period = &table.column(i_period);
-    Column* c_logp = &table.column(i_logp);
-    std::map<std::string, Column*> out_q;
-    for (const auto& [k, i] : out_q_index) out_q[k] = &table.column(i);
-    std::vector<std::pair<Column*, Column*>> out_bands;
-    for (const auto& [m, e] : out_band_index) out_bands.emplace_back(&table.column(m), &table.column(e));
-    std::vector<Column*> out_extras;
-    for (std::size_t i : out_extra_index) out_extras.push_back(&table.column(i));
-    // Per-chunk lookups done once, not per row: the numeric quantities in slots, and what
-    // each output column takes.
+    const std::size_t rows_in = in.table.rows();
+    // Per-group lookups done once, not per row: the numeric quantities in slots, converted
+    // column by column, and what each output column takes.
     std::vector<const Resolved*> numeric;
     std::map<std::string, int> slot_of;
     for (const auto& [k, res] : q) {
@@ -744,23 +874,19 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
       auto it = slot_of.find(k);
       return it == slot_of.end() ? -1 : it->second;
     };
-    struct OutSource {
-      Column* out;
-      int kind;  // 0 mode, 1 class, 2 text, 3 astrometric, 4 numeric
-      const Resolved* text;
-      int slot;
-    };
-    std::vector<OutSource> out_sources;
-    for (auto& [k, out] : out_q) {
-      if (k == "mode") out_sources.push_back({out, 0, nullptr, -1});
-      else if (k == "pulsator_class") out_sources.push_back({out, 1, nullptr, -1});
-      else if (find_quantity(k)->type == ColumnType::kText) out_sources.push_back({out, 2, &q.at(k), -1});
-      else if (k == "astrometric_params") out_sources.push_back({out, 3, nullptr, -1});
-      else out_sources.push_back({out, 4, nullptr, slot(k.c_str())});
+    std::vector<PreparedNumbers> prepared;
+    prepared.reserve(numeric.size());
+    for (const Resolved* res : numeric) prepared.emplace_back(*res, rows_in);
+    std::vector<PreparedNumbers> band_mags, band_errs;
+    band_mags.reserve(bands.size());
+    band_errs.reserve(bands.size());
+    for (const auto& b : bands) {
+      band_mags.emplace_back(b.mag, rows_in);
+      band_errs.emplace_back(b.err, rows_in);
     }
     std::vector<std::optional<double>> values(numeric.size());
-    const int s_parallax = slot("parallax"), s_parallax_err = slot("parallax_err"), s_ebv = slot("ebv"),
-              s_astrometric = slot("astrometric_params");
+    const int s_parallax = slot("parallax"), s_parallax_err = slot("parallax_err"),
+              s_ebv = slot("ebv"), s_astrometric = slot("astrometric_params");
     std::vector<std::pair<std::string, int>> error_slots;
     for (const char* k : {"ebv_err", "feh_err", "mu_err", "period_err"})
       if (slot(k) >= 0) error_slots.emplace_back(k, slot(k));
@@ -781,16 +907,29 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     const Resolved& q_period = q.at("period");
     const Resolved& q_mode = q.at("mode");
     const Resolved& q_class = q.at("pulsator_class");
-    std::vector<std::pair<std::optional<double>, std::optional<double>>> mags;
-    for (std::size_t r = 0; r < in.table.rows(); ++r) {
-      const std::int64_t src_row = in.source_rows[r];
-      std::string id;
+    const PreparedNumbers periods(q_period, rows_in);
+
+    // The checks, row by row in a fixed order (the first failing check names the reject);
+    // an accepted row is only noted here, and the output columns are filled after the loop.
+    std::vector<std::size_t> accepted;
+    accepted.reserve(rows_in);
+    std::vector<const std::string*> accepted_mode, accepted_class;
+    accepted_mode.reserve(rows_in);
+    accepted_class.reserve(rows_in);
+    constexpr std::int64_t kNoAstrometric = std::numeric_limits<std::int64_t>::min();
+    std::vector<std::int64_t> accepted_astrometric;
+    if (s_astrometric >= 0) accepted_astrometric.reserve(rows_in);
+    group.source_rows.assign(in.source_rows.begin(),
+                             in.source_rows.begin() + static_cast<std::ptrdiff_t>(rows_in));
+    group.fate.resize(rows_in);
+    std::string id_scratch, mode_scratch, class_scratch;
+    for (std::size_t r = 0; r < rows_in; ++r) {
+      const std::string* id = nullptr;
       try {
-        auto idv = text_at(q_id, r);
-        if (!idv || idv->empty())
+        id = text_ref(q_id, r, id_scratch);
+        if (!id || id->empty())
           throw RowReject{"missing_required", q_id.column_name, "the star has no id"};
-        id = std::move(*idv);
-        auto period = number_at(q_period, r);
+        auto period = periods.at(r);
         if (!period)
           throw RowReject{"missing_required", q_period.column_name, "the star has no period"};
         if (*period <= 0)
@@ -801,7 +940,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
             throw RowReject{"selection", o.selection[s].column,
                             "fails the selection " + o.selection[s].describe()};
 
-        auto mode_text = text_at(q_mode, r);
+        const std::string* mode_text = text_ref(q_mode, r, mode_scratch);
         if (!mode_text)
           throw RowReject{"missing_required", q_mode.column_name,
                           "the star has no pulsation mode"};
@@ -810,7 +949,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
           throw RowReject{"unknown_mode", q_mode.column_name,
                           fmt::format("mode '{}' is unknown (map it in [modes]; known: {})",
                                       *mode_text, kPulsationModeNames.choices())};
-        auto class_text = text_at(q_class, r);
+        const std::string* class_text = text_ref(q_class, r, class_scratch);
         if (!class_text)
           throw RowReject{"missing_required", q_class.column_name,
                           "the star has no pulsator class"};
@@ -820,8 +959,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
                           fmt::format("class '{}' is unknown (map it in [classes]; known: {})",
                                       *class_text, kPulsatorClassNames.choices())};
 
-        // Numeric quantities, validated before anything is appended so a reject leaves no trace.
-        for (std::size_t i = 0; i < numeric.size(); ++i) values[i] = number_at(*numeric[i], r);
+        for (std::size_t i = 0; i < numeric.size(); ++i) values[i] = prepared[i].at(r);
         auto get = [&](int i) -> std::optional<double> {
           return i < 0 ? std::nullopt : values[static_cast<std::size_t>(i)];
         };
@@ -854,82 +992,96 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
             throw;
           }
         }
-        mags.clear();
         bool any_mag = false;
-        for (const auto& b : bands) {
-          auto m = number_at(b.mag, r);
-          auto e = b.err.present() ? number_at(b.err, r) : std::nullopt;
-          if (m) {
-            any_mag = true;
-            if (*m < o.magnitude_min || *m > o.magnitude_max)
-              throw RowReject{"magnitude_out_of_range", b.mag.column_name,
-                              fmt::format("{} = {} mag is outside [{}, {}]", b.band, *m,
-                                          o.magnitude_min, o.magnitude_max)};
-            if (!e && o.require_errors)
-              throw RowReject{"missing_error", b.err.column_name,
-                              fmt::format("{} magnitude without its error", b.band)};
-            if (e && !(*e > 0))
-              throw RowReject{"magnitude_error_nonpositive", b.err.column_name,
-                              fmt::format("{} error {} mag is not positive", b.band, *e)};
-          }
-          mags.emplace_back(m, m ? e : std::nullopt);
+        for (std::size_t b = 0; b < bands.size(); ++b) {
+          auto m = band_mags[b].at(r);
+          const std::optional<double> e = band_errs[b].at(r);  // missing when no error is mapped
+          if (!m) continue;
+          any_mag = true;
+          if (*m < o.magnitude_min || *m > o.magnitude_max)
+            throw RowReject{"magnitude_out_of_range", bands[b].mag.column_name,
+                            fmt::format("{} = {} mag is outside [{}, {}]", bands[b].band, *m,
+                                        o.magnitude_min, o.magnitude_max)};
+          if (!e && o.require_errors)
+            throw RowReject{"missing_error", bands[b].err.column_name,
+                            fmt::format("{} magnitude without its error", bands[b].band)};
+          if (e && !(*e > 0))
+            throw RowReject{"magnitude_error_nonpositive", bands[b].err.column_name,
+                            fmt::format("{} error {} mag is not positive", bands[b].band, *e)};
         }
         if (!any_mag)
           throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
 
-        // Accepted: append the row.
-        group.fates.push_back({src_row, {}, static_cast<std::int64_t>(table.rows()), {}});
-        c_id->push_text(std::move(id));
-        c_row->push_integer(src_row);
-        c_period->push_real(*period);
-        c_logp->push_real(std::log10(*period));
-        for (const auto& src : out_sources) {
-          Column* out = src.out;
-          if (src.kind == 0) {
-            out->push_text(mode);
-          } else if (src.kind == 1) {
-            out->push_text(klass);
-          } else if (src.kind == 2) {
-            auto t = text_at(*src.text, r);
-            t ? out->push_text(*t) : out->push_null();
-          } else if (src.kind == 3) {
-            astrometric ? out->push_integer(*astrometric) : out->push_null();
-          } else {
-            const auto& v = src.slot < 0 ? std::optional<double>{} : values[static_cast<std::size_t>(src.slot)];
-            v ? out->push_real(*v) : out->push_null();
-          }
-        }
-        for (std::size_t i = 0; i < mags.size(); ++i) {
-          mags[i].first ? out_bands[i].first->push_real(*mags[i].first)
-                        : out_bands[i].first->push_null();
-          mags[i].second ? out_bands[i].second->push_real(*mags[i].second)
-                         : out_bands[i].second->push_null();
-        }
-        for (std::size_t i = 0; i < out_extras.size(); ++i) {
-          const Column* s = extra_cols[i];
-          Column* d = out_extras[i];
-          if (s->is_null(r)) {
-            d->push_null();
-            continue;
-          }
-          switch (s->type) {
-            case ColumnType::kReal:
-              d->push_real(s->real[r]);
-              break;
-            case ColumnType::kInteger:
-              d->push_integer(s->integer[r]);
-              break;
-            case ColumnType::kText:
-              d->push_text(s->text[r]);
-              break;
-            case ColumnType::kBoolean:
-              d->push_boolean(s->boolean[r] != 0);
-              break;
-          }
-        }
+        group.fate[r] = static_cast<std::int64_t>(accepted.size());
+        accepted.push_back(r);
+        accepted_mode.push_back(&mode);
+        accepted_class.push_back(&klass);
+        if (s_astrometric >= 0)
+          accepted_astrometric.push_back(astrometric.value_or(kNoAstrometric));
       } catch (const RowReject& rej) {
-        group.fates.push_back({src_row, id, -1, rej});
+        group.fate[r] = -1 - static_cast<std::int64_t>(group.refusals.size());
+        group.refusals.push_back({in.source_rows[r], id ? *id : std::string(), rej});
       }
+    }
+
+    // The accepted rows, column by column.
+    const std::size_t m = accepted.size();
+    fill_texts(table.column(i_id), m,
+               [&](std::size_t k) { return text_ref(q_id, accepted[k], id_scratch); });
+    {
+      Column& c = table.column(i_row);
+      c.integer.resize(m);
+      c.null.assign(m, 0);
+      for (std::size_t k = 0; k < m; ++k) c.integer[k] = in.source_rows[accepted[k]];
+    }
+    fill_reals(table.column(i_period), m,
+               [&](std::size_t k) { return periods.value_or_nan(accepted[k]); });
+    fill_reals(table.column(i_logp), m,
+               [&](std::size_t k) { return std::log10(periods.value_or_nan(accepted[k])); });
+    for (const auto& [k, i] : out_q_index) {
+      Column& out = table.column(i);
+      if (k == "mode") {
+        fill_texts(out, m, [&](std::size_t a) { return accepted_mode[a]; });
+      } else if (k == "pulsator_class") {
+        fill_texts(out, m, [&](std::size_t a) { return accepted_class[a]; });
+      } else if (find_quantity(k)->type == ColumnType::kText) {
+        const Resolved& res = q.at(k);
+        fill_texts(out, m, [&](std::size_t a) { return text_ref(res, accepted[a], id_scratch); });
+      } else if (k == "astrometric_params") {
+        out.integer.resize(m);
+        out.null.resize(m);
+        for (std::size_t a = 0; a < m; ++a) {
+          const bool none = accepted_astrometric[a] == kNoAstrometric;
+          out.integer[a] = none ? 0 : accepted_astrometric[a];
+          out.null[a] = none ? 1 : 0;
+        }
+      } else {
+        const PreparedNumbers& p = prepared[static_cast<std::size_t>(slot(k.c_str()))];
+        fill_reals(out, m, [&](std::size_t a) { return p.value_or_nan(accepted[a]); });
+      }
+    }
+    for (std::size_t b = 0; b < bands.size(); ++b) {
+      const PreparedNumbers& mag = band_mags[b];
+      const PreparedNumbers& err = band_errs[b];
+      const double nan = std::numeric_limits<double>::quiet_NaN();
+      fill_reals(table.column(out_band_index[b].first), m,
+                 [&](std::size_t a) { return mag.value_or_nan(accepted[a]); });
+      // An error is kept only beside its magnitude.
+      fill_reals(table.column(out_band_index[b].second), m, [&](std::size_t a) {
+        return std::isnan(mag.value_or_nan(accepted[a])) ? nan : err.value_or_nan(accepted[a]);
+      });
+    }
+    for (std::size_t i = 0; i < out_extra_index.size(); ++i)
+      fill_selected(table.column(out_extra_index[i]), *extra_cols[i], accepted);
+
+    // Ids hashed here, on the worker, so that settling them in file order is only look-ups.
+    group.id_hash.resize(rows_in);
+    const auto& ids_out = table.column(i_id).text;
+    for (std::size_t r = 0; r < rows_in; ++r) {
+      const std::int64_t f = group.fate[r];
+      const std::string& id = f >= 0 ? ids_out[static_cast<std::size_t>(f)]
+                                     : group.refusals[static_cast<std::size_t>(-1 - f)].id;
+      if (!id.empty()) group.id_hash[r] = IdRegistry::hash(id);
     }
     group.id_column = q_id.column_name;
     return group;
@@ -938,25 +1090,34 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
   std::size_t kept = 0;
   auto settle = [&](RowGroup&& g) {
     std::vector<std::size_t> keep;
+    keep.reserve(g.rows.rows());
     bool dropped = false;
-    for (RowFate& f : g.fates) {
-      const std::string& id = f.accepted_at >= 0
-                                  ? g.rows.column(i_id).text[static_cast<std::size_t>(f.accepted_at)]
-                                  : f.id;
+    const auto& accepted_ids = g.rows.column(i_id).text;
+    // How far ahead the registry's slots are loaded: about one memory latency of look-ups.
+    constexpr std::size_t kPrefetchAhead = 16;
+    const std::size_t count = g.fate.size();
+    for (std::size_t r = 0; r < count; ++r) {
+      if (r + kPrefetchAhead < count) ids.prefetch(g.id_hash[r + kPrefetchAhead]);
+      const std::int64_t f = g.fate[r];
+      const std::string& id = f >= 0 ? accepted_ids[static_cast<std::size_t>(f)]
+                                     : g.refusals[static_cast<std::size_t>(-1 - f)].id;
       if (!id.empty()) {
-        if (auto first = ids.first_seen(id, f.source_row)) {
+        if (auto first = ids.first_seen(g.id_hash[r], g.source_rows[r])) {
           result.rejected.push_back(
-              {f.source_row, id, "duplicate_id", g.id_column,
+              {g.source_rows[r], id, "duplicate_id", g.id_column,
                fmt::format("id '{}' was already used at {} {}", id, g.row_label, *first)});
-          dropped = dropped || f.accepted_at >= 0;
+          dropped = dropped || f >= 0;
           continue;
         }
       }
-      if (f.accepted_at >= 0)
-        keep.push_back(static_cast<std::size_t>(f.accepted_at));
-      else
-        result.rejected.push_back(
-            {f.source_row, f.id, f.reject.rule, f.reject.column, f.reject.message});
+      if (f >= 0) {
+        keep.push_back(static_cast<std::size_t>(f));
+      } else {
+        RowRefusal& refusal = g.refusals[static_cast<std::size_t>(-1 - f)];
+        result.rejected.push_back({refusal.source_row, std::move(refusal.id),
+                                   std::move(refusal.reject.rule), std::move(refusal.reject.column),
+                                   std::move(refusal.reject.message)});
+      }
     }
     if (dropped) g.rows = g.rows.select_rows(keep);
     kept += g.rows.rows();
