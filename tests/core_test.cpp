@@ -148,6 +148,25 @@ TEST(AtomicOutput, AbandonedOutputRemovesItsTemporaryFileAndKeepsTheOld) {
   EXPECT_EQ(test::read_text(dir.file("x.txt")), "old");
 }
 
+TEST(AtomicOutput, EarlyWritebackChangesNothingButTiming) {
+  // Writeback started while the file grows, and again after more is written, then the
+  // output abandoned once and committed once: the content and the all-or-nothing rule hold.
+  test::TempDir dir;
+  write_file_atomically(dir.file("x.txt"), "old");
+  for (bool commit : {false, true}) {
+    AtomicOutput out(dir.file("x.txt"));
+    test::write_text(out.temp_path(), "first part ");
+    out.start_writeback();
+    test::write_text(out.temp_path(), "first part and the rest");
+    out.start_writeback();
+    if (commit) out.commit();
+  }
+  EXPECT_EQ(test::read_text(dir.file("x.txt")), "first part and the rest");
+  int files = 0;
+  for (const auto& e : std::filesystem::directory_iterator(dir.path())) (void)e, ++files;
+  EXPECT_EQ(files, 1);
+}
+
 TEST(Config, UnknownKeyIsNamedWithItsLine) {
   Config c = Config::from_string("[source]\npath = \"a\"\ndelimter = \"comma\"\n", "x.toml");
   auto src = c.root().section("source");

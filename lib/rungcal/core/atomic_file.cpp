@@ -59,7 +59,16 @@ AtomicOutput::AtomicOutput(std::string destination)
 }
 
 AtomicOutput::~AtomicOutput() {
+  if (writeback_fd_ >= 0) ::close(writeback_fd_);
   if (!committed_) std::remove(temp_.c_str());
+}
+
+void AtomicOutput::start_writeback() {
+#ifdef __linux__
+  if (writeback_fd_ < 0) writeback_fd_ = ::open(temp_.c_str(), O_RDONLY | O_CLOEXEC);
+  // A failure only means commit()'s fsync has more to do, so it is not an error.
+  if (writeback_fd_ >= 0) (void)::sync_file_range(writeback_fd_, 0, 0, SYNC_FILE_RANGE_WRITE);
+#endif
 }
 
 void AtomicOutput::commit() {

@@ -21,11 +21,16 @@ class AtomicOutput {
   const std::string& destination() const { return destination_; }
   // fsync + rename + fsync(folder). Throws InputError (rule "write_failed") on failure.
   void commit();
+  // Asks the kernel to start writing what the temporary file holds so far to disk (Linux
+  // sync_file_range; nothing elsewhere), so that commit()'s fsync of a large file waits for
+  // its last part rather than all of it. Advisory: durability comes from commit() alone.
+  void start_writeback();
 
  private:
   std::string destination_;
   std::string temp_;
   bool committed_ = false;
+  int writeback_fd_ = -1;  // opened by the first start_writeback()
 };
 
 // Writes bytes to path atomically (AtomicOutput underneath).
