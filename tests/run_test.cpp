@@ -193,6 +193,32 @@ TEST(Run, DriftAlarmFiresOnAShiftedInputAndNotOnAnUnchangedOne) {
   EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), (std::vector<int>{1, 2}));
 }
 
+TEST(Run, ADriftAlarmOfARunKilledAfterPublishingIsRaisedByTheNextRun) {
+  // The shifted version is published, then the run is killed before its summary: the next
+  // run has nothing left to do but must still raise the alarm, measured from version 1
+  // (the last one reported), and only once.
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"),
+                   pipeline_config(dir, "drift_alarm_sigma = 3.0", 0, false));
+  ASSERT_EQ(run(dir).exit_code, 6);
+  edit_catalog(dir, [](StarTable& t) {
+    for (double& p : t.column("PLX").real) p += 0.1;
+  });
+  auto killed =
+      test::run_command(std::string("RUNGCAL_FAULT_AT=run_before_summary ") + RUNGCAL_BIN_DIR +
+                        "/rungcal-run --config " + dir.file("pipeline.toml") + " 2>&1");
+  ASSERT_EQ(killed.exit_code, 128 + SIGKILL) << killed.output;
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), (std::vector<int>{1, 2}));
+  auto next = run(dir);
+  EXPECT_EQ(next.exit_code, 4) << next.output;
+  EXPECT_NE(next.output.find("DRIFT ALARM: new test-cal@2"), std::string::npos) << next.output;
+  EXPECT_NE(next.output.find("ran none"), std::string::npos) << next.output;
+  const std::string log = test::read_text(dir.file("run/logs/rungcal-run.log"));
+  EXPECT_NE(log.find("parallax_offset_mas from v1"), std::string::npos);
+  EXPECT_EQ(run(dir).exit_code, 3);
+}
+
 TEST(Run, TwoRunsAtOnceOneWaitsOrRefusesAndBothSaySo) {
   test::TempDir dir;
   stage_catalog(dir);
@@ -290,12 +316,14 @@ TEST(Run, SigkillAtRandomMomentsLeavesOnlyWholeVersionsAndTheNextRunFinishes) {
 
 TEST(Run, KilledAfterEachStageTheNextRunPicksUpWhereItStopped) {
   // Deterministic kill points (RUNGCAL_FAULT_AT): right after each stage's products, before
-  // the run state records them, and inside publish at each of its steps.
-  const char* points[] = {"run_after_lightcurve",    "run_after_ingest",
-                          "run_after_deredden",      "run_after_fit",
-                          "run_after_publish",       "publish_locked",
-                          "publish_json_written",    "publish_version_built",
-                          "publish_version_renamed", "publish_link_made"};
+  // the run state records them, inside publish at each of its steps, and after the last
+  // stage before the summary. The killed run never reported its version, so the next run
+  // reports it as new (exit 6) whether it made the version or found it made.
+  const char* points[] = {
+      "run_after_lightcurve", "run_after_ingest",      "run_after_deredden",
+      "run_after_fit",        "run_after_publish",     "publish_locked",
+      "publish_json_written", "publish_version_built", "publish_version_renamed",
+      "publish_link_made",    "run_before_summary"};
   for (const char* point : points) {
     test::TempDir dir;
     stage_catalog(dir);
@@ -306,8 +334,10 @@ TEST(Run, KilledAfterEachStageTheNextRunPicksUpWhereItStopped) {
     EXPECT_EQ(killed.exit_code, 128 + SIGKILL) << point << ": " << killed.output;
     expect_store_intact(dir.file("run/store"), "test-cal");
     auto next = run(dir);
+    EXPECT_EQ(next.exit_code, 6) << point << ": " << next.output;
+    EXPECT_NE(next.output.find("new calibration test-cal@1 (the first version)"), std::string::npos)
+        << point << ": " << next.output;
     // A version made by the killed run is found, not made twice.
-    EXPECT_TRUE(next.exit_code == 6 || next.exit_code == 0) << point << ": " << next.output;
     EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), std::vector<int>{1})
         << point;
     EXPECT_EQ(run(dir).exit_code, 3) << point;

@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/run/run.hpp"
 
+#include <algorithm>
 #include <cmath>
 #include <filesystem>
 #include <fstream>
@@ -13,6 +14,7 @@
 #include <nlohmann/json.hpp>
 
 #include "rungcal/calibration/apply.hpp"
+#include "rungcal/calibration/diff.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/config.hpp"
@@ -100,6 +102,22 @@ class RunState {
     return "";
   }
 
+  // The version of a calibration the last finished run reported, and its content hash:
+  // {0, ""} when none (a state from before rungcal recorded it, too).
+  std::pair<int, std::string> announced(const std::string& calibration) const {
+    if (!state_.contains("announced") || !state_["announced"].contains(calibration)) return {0, ""};
+    const auto& a = state_["announced"][calibration];
+    return {a.value("version", 0), a.value("content_sha256", "")};
+  }
+  // Written only when it changes: a run with nothing new leaves the state as it was.
+  void record_announced(const std::string& calibration, int version, const std::string& sha) {
+    if (announced(calibration) == std::make_pair(version, sha)) return;
+    state_["schema"] = "rungcal-run-state";
+    state_["schema_version"] = kStateSchemaVersion;
+    state_["announced"][calibration] = {{"version", version}, {"content_sha256", sha}};
+    write_file_atomically(path_, state_.dump(2) + "\n");
+  }
+
   void record(const Stage& s, const std::string& key) {
     nlohmann::json rec;
     rec["key"] = key;
@@ -134,6 +152,45 @@ class RunState {
   std::string path_;
   nlohmann::json state_ = nlohmann::json::object();
 };
+
+// Whether the latest version is news: one no finished run has reported (a run killed
+// between publishing and its summary leaves the report to the next run, which also catches
+// a version published by hand). When it is, outcome gets the largest shift, in sigma, from
+// the version last reported (else from the one the latest replaced). Returns the latest
+// version's content hash.
+std::string note_if_new(const RunOptions& o, const std::pair<int, std::string>& announced,
+                        RunOutcome& outcome) {
+  const Calibration latest =
+      load_calibration(o.store, fmt::format("{}@{}", o.calibration, outcome.version));
+  const std::string sha = latest.document.value("content_sha256", "");
+  if (announced == std::make_pair(outcome.version, sha)) return sha;
+  outcome.new_version = true;
+  std::optional<Calibration> baseline;
+  const std::vector<int> versions = calibration_versions(o.store, o.calibration);
+  const bool announced_kept =
+      std::find(versions.begin(), versions.end(), announced.first) != versions.end();
+  if (announced.first > 0 && announced_kept) {
+    Calibration before =
+        load_calibration(o.store, fmt::format("{}@{}", o.calibration, announced.first));
+    if (before.document.value("content_sha256", "") == announced.second)
+      baseline = std::move(before);
+  }
+  const auto& previous = latest.document.value("previous", nlohmann::json());
+  if (!baseline && previous.is_object() && previous.contains("version"))
+    baseline = load_calibration(
+        o.store, fmt::format("{}@{}", o.calibration, previous.at("version").get<int>()));
+  if (!baseline) return sha;  // the first version: no shift to report
+  for (const ParameterShift& sh : diff_calibrations(*baseline, latest).shifts) {
+    if (!std::isfinite(sh.shift_in_sigma)) continue;
+    spdlog::info("shift {} {} from v{}: {:+.5f} ({:+.2f} sigma)", sh.relation, sh.parameter,
+                 baseline->version(), sh.shift, sh.shift_in_sigma);
+    if (std::abs(sh.shift_in_sigma) > std::abs(outcome.max_shift_sigma)) {
+      outcome.max_shift_sigma = sh.shift_in_sigma;
+      outcome.max_shift_parameter = sh.relation + " " + sh.parameter;
+    }
+  }
+  return sha;
+}
 
 // The latest version's calibration.json, and the one before (what the report compares).
 std::vector<std::string> latest_versions(const RunOptions& o, std::size_t how_many) {
@@ -255,8 +312,6 @@ RunOutcome run_pipeline(const RunOptions& o) {
   if (lock.waited()) spdlog::warn("started after waiting for another run to finish");
   RunState state(in_folder(o, "run_state.json"));
   RunOutcome outcome;
-  PublishOutcome published;
-  bool published_ran = false;
 
   std::vector<Stage> stages;
   if (lc_opt)
@@ -313,10 +368,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
                     "store=" + o.store + " name=" + o.calibration,
                     {},
                     "",
-                    [&] {
-                      published = publish_calibration(publish);
-                      published_ran = true;
-                    }});
+                    [&] { publish_calibration(publish); }});
   ReportOptions report;
   report.store = o.store;
   report.out_dir = in_folder(o, "report");
@@ -409,20 +461,9 @@ RunOutcome run_pipeline(const RunOptions& o) {
   for (const auto& r : outcome.stages) (r.ran ? ran : skipped).push_back(r.name);
   std::vector<int> versions = calibration_versions(o.store, o.calibration);
   outcome.version = versions.empty() ? 0 : versions.back();
-  if (published_ran && published.created) {
-    outcome.new_version = true;
-    for (const auto& [relation, params] : published.shifts.items())
-      for (const auto& [name, sh] : params.items()) {
-        if (sh["shift_in_sigma"].is_null()) continue;
-        const double sigma = sh["shift_in_sigma"].get<double>();
-        spdlog::info("shift {} {}: {:+.5f} ({:+.2f} sigma)", relation, name,
-                     sh["shift"].get<double>(), sigma);
-        if (std::abs(sigma) > std::abs(outcome.max_shift_sigma)) {
-          outcome.max_shift_sigma = sigma;
-          outcome.max_shift_parameter = relation + " " + name;
-        }
-      }
-  }
+  std::string latest_sha;
+  if (outcome.version > 0 && !o.dry_run)
+    latest_sha = note_if_new(o, state.announced(o.calibration), outcome);
   auto join = [](const std::vector<std::string>& v) {
     std::string s;
     for (const auto& x : v) s += (s.empty() ? "" : ", ") + x;
@@ -433,10 +474,6 @@ RunOutcome run_pipeline(const RunOptions& o) {
     outcome.code = ran.empty() ? ExitCode::kNothingToDo : ExitCode::kSuccess;
     outcome.summary = fmt::format("rungcal-run (dry run): would run {}; up to date: {}", join(ran),
                                   join(skipped));
-  } else if (ran.empty()) {
-    outcome.code = ExitCode::kNothingToDo;
-    outcome.summary = fmt::format("rungcal-run: nothing changed; {} stands",
-                                  outcome.version ? label : "no calibration");
   } else if (outcome.new_version && std::abs(outcome.max_shift_sigma) > o.drift_alarm_sigma) {
     outcome.code = ExitCode::kDriftAlarm;
     outcome.summary = fmt::format(
@@ -451,11 +488,18 @@ RunOutcome run_pipeline(const RunOptions& o) {
                           outcome.max_shift_sigma);
     outcome.summary =
         fmt::format("rungcal-run: new calibration {} ({}); ran {}", label, shift, join(ran));
+  } else if (ran.empty()) {
+    outcome.code = ExitCode::kNothingToDo;
+    outcome.summary = fmt::format("rungcal-run: nothing changed; {} stands",
+                                  outcome.version ? label : "no calibration");
   } else {
     outcome.code = ExitCode::kSuccess;
     outcome.summary =
         fmt::format("rungcal-run: ran {}; the calibration is unchanged ({})", join(ran), label);
   }
+  // Recorded last: a run killed before this point leaves its news to the next run.
+  fault_point("run_before_summary");
+  if (!latest_sha.empty()) state.record_announced(o.calibration, outcome.version, latest_sha);
   return outcome;
 }
 
