@@ -209,6 +209,19 @@ TEST(Config, RelativePathsResolveAgainstTheConfigFolder) {
   EXPECT_EQ(c.resolve_path("/abs/cat.csv"), "/abs/cat.csv");
 }
 
+TEST(Cluster, AnItemThatFailsStopsTheStageWithItsRuleAndWritesNothing) {
+  // RUNGCAL_FAULT_THROW makes one light curve (item 7) fail as bad input would; the
+  // two-rank version, where the item is rank 1's, is in tests/mpi_test.sh.
+  test::TempDir dir;
+  auto r = test::run_command("RUNGCAL_FAULT_THROW=distributed_item:7 " +
+                             std::string(RUNGCAL_BIN_DIR) + "/rungcal-lightcurve -q --config " +
+                             test::source_file("config/demo/lightcurve.toml") + " --out " +
+                             dir.file("lc.fits") + " 2>&1");
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("[injected_fault]"), std::string::npos) << r.output;
+  EXPECT_FALSE(test::file_exists(dir.file("lc.fits")));
+}
+
 TEST(Simd, VectorisableExpAgreesWithTheLibraryToAFewUlp) {
   // Reference: std::exp (glibc, correctly rounded to < 1 ulp) over the range the fit uses
   // (photometric parallaxes: |x| up to ~40) and beyond.

@@ -20,6 +20,19 @@ mpi=(mpirun -n 2 --oversubscribe)
 grep -q "rank 1 of 2: 50 of 100 items" "$work/two/lc.log.rank1" ||
   { echo "FAIL: rank 1 did not take half of the stars" >&2; exit 1; }
 
+# A failure on one rank only (star 7 is rank 1's, made to fail as bad input would) stops
+# both ranks with its rule and exit 2, and nothing is written: rank 0 does not wait forever.
+set +e
+RUNGCAL_FAULT_THROW=distributed_item:7 timeout 120 "${mpi[@]}" -x RUNGCAL_FAULT_THROW \
+  "$bin/rungcal-lightcurve" -q --config "$cfg/lightcurve.toml" --out "$work/fail/lc.fits" \
+  > "$work/fail.txt" 2>&1
+rc=$?
+set -e
+[ "$rc" = 2 ] || { echo "FAIL: one failing rank gave exit $rc, not 2:" >&2; cat "$work/fail.txt" >&2; exit 1; }
+[ "$(grep -c 'injected_fault' "$work/fail.txt")" = 2 ] ||
+  { echo "FAIL: both ranks should report the failure:" >&2; cat "$work/fail.txt" >&2; exit 1; }
+[ ! -e "$work/fail/lc.fits" ] || { echo "FAIL: a failed run wrote lc.fits" >&2; exit 1; }
+
 "$bin/rungcal-ingest" -q --config "$cfg/ingest.toml" --lightcurves "$work/one/lc.fits" \
   --out "$work/catalog.fits"
 "$bin/rungcal-deredden" -q --config "$cfg/deredden.toml" --input "$work/catalog.fits" \

@@ -11,6 +11,7 @@
 
 #include "rungcal/core/byte_buffer.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/fault.hpp"
 #include "rungcal/core/parallel.hpp"
 
 #ifdef RUNGCAL_WITH_MPI
@@ -153,15 +154,19 @@ void distributed_for(std::size_t n, int threads, const std::function<void(std::s
   const Cluster& cluster = Cluster::world();
   const auto size = static_cast<std::size_t>(cluster.size());
   const auto rank = static_cast<std::size_t>(cluster.rank());
+  auto checked_body = [&](std::size_t i) {
+    fault_throw_point("distributed_item", i);
+    body(i);
+  };
   if (size == 1) {
-    parallel_for(n, threads, body);
+    parallel_for(n, threads, checked_body);
     return;
   }
   const std::size_t owned = n > rank ? (n - rank + size - 1) / size : 0;
   spdlog::debug("rank {} of {}: {} of {} items", rank, size, owned, n);
   std::string message;
   try {
-    parallel_for(owned, threads, [&](std::size_t k) { body(rank + k * size); });
+    parallel_for(owned, threads, [&](std::size_t k) { checked_body(rank + k * size); });
     ByteWriter w;
     w.put(Outcome::kOk);
     for (std::size_t k = 0; k < owned; ++k) w.put_string(encode(rank + k * size));
