@@ -752,6 +752,365 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
 
 namespace {
 
+// An input group's columns resolved against the config. Resolving comes before any row is
+// read: a mapping error stops the whole file.
+struct GroupMapping {
+  struct Band {
+    std::string band;
+    Resolved mag, err;
+  };
+  std::map<std::string, Resolved> quantities;
+  std::vector<Band> bands;
+  std::vector<const Column*> select_columns, extra_columns;
+  const Resolved& at(const std::string& key) const { return quantities.at(key); }
+};
+
+GroupMapping resolve_group(const IngestOptions& o, const SourceTable& in) {
+  GroupMapping m;
+  for (const auto& [k, src] : o.quantities)
+    m.quantities[k] = resolve(src, k, find_quantity(k)->kind, in, o);
+  for (const auto& b : o.bands)
+    m.bands.push_back(
+        {b.band, resolve(b.mag, "magnitude " + b.band, QuantityKind::kMagnitude, in, o),
+         resolve(b.err, "magnitude error " + b.band, QuantityKind::kMagnitude, in, o)});
+  for (const auto& s : o.selection) {
+    if (!in.table.has(s.column))
+      whole_file_error(o, s.column, "missing_column",
+                       "a [[select]] rule names this column, which the file does not have");
+    m.select_columns.push_back(&in.table.column(s.column));
+  }
+  for (const auto& e : o.extras) {
+    if (!in.table.has(e.column))
+      whole_file_error(
+          o, e.column, "missing_column",
+          fmt::format("[extra] {} names this column, which the file does not have", e.name));
+    m.extra_columns.push_back(&in.table.column(e.column));
+  }
+  return m;
+}
+
+// The catalog's columns (a schema without rows) and where each kind of value goes in it.
+struct CatalogLayout {
+  StarTable schema;
+  std::size_t id = 0, source_row = 0, period = 0, log_period = 0;
+  std::map<std::string, std::size_t> quantities;           // the other mapped quantities
+  std::vector<std::pair<std::size_t, std::size_t>> bands;  // magnitude, error
+  std::vector<std::size_t> extras;
+};
+
+// Fixed columns first, then the mapped quantities in the schema's order, bands and extras.
+CatalogLayout make_catalog_layout(const IngestOptions& o, const GroupMapping& m) {
+  CatalogLayout l;
+  auto add_column = [&](const std::string& name, ColumnType type, const std::string& unit,
+                        const std::string& description) {
+    l.schema.add_column(name, type, unit, description);
+    return l.schema.columns() - 1;
+  };
+  auto add = [&](const QuantitySpec& spec) {
+    return add_column(std::string(spec.column), spec.type, canonical_unit(spec.kind),
+                      std::string(spec.description));
+  };
+  l.id = add(*find_quantity("id"));
+  l.source_row = add_column(col::kSourceRow, ColumnType::kInteger, "", "line or row in the input");
+  l.period = add(*find_quantity("period"));
+  l.log_period = add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
+  for (const auto& spec : catalog_quantities()) {
+    std::string k(spec.key);
+    if (k == "id" || k == "period" || !m.quantities.count(k)) continue;
+    l.quantities[k] = add(spec);
+  }
+  std::string band_list;
+  for (const auto& b : m.bands) {
+    // Two statements: the magnitude column must come before its error in the file.
+    const std::size_t mag = add_column(magnitude_column(b.band), ColumnType::kReal, "mag",
+                                       "mean magnitude in " + b.band);
+    const std::size_t err = add_column(magnitude_error_column(b.band), ColumnType::kReal, "mag",
+                                       "error of mag_" + b.band);
+    l.bands.emplace_back(mag, err);
+    band_list += (band_list.empty() ? "" : ",") + b.band;
+  }
+  for (std::size_t i = 0; i < o.extras.size(); ++i) {
+    const Column* src = m.extra_columns[i];
+    l.extras.push_back(add_column(o.extras[i].name, src->type,
+                                  o.extras[i].unit.empty() ? src->unit : o.extras[i].unit,
+                                  "copied from input column " + o.extras[i].column));
+  }
+  l.schema.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
+  return l;
+}
+
+// What an accepted row adds to the numbers already prepared: its canonical mode and class
+// and its astrometric parameters.
+struct AcceptedRow {
+  std::size_t input_row = 0;
+  const std::string* mode = nullptr;
+  const std::string* pulsator_class = nullptr;
+  std::optional<std::int64_t> astrometric;
+};
+
+// The row checks of one group. Numbers are converted column by column when it is made;
+// check() then takes each row through the rules in a fixed order.
+class GroupChecks {
+ public:
+  GroupChecks(const IngestOptions& o, const GroupMapping& m, std::size_t rows)
+      : o_(o), m_(m), periods_(m.at("period"), rows) {
+    for (const auto& [k, res] : m.quantities) {
+      if (find_quantity(k)->type == ColumnType::kText || k == "period") continue;
+      slot_of_[k] = static_cast<int>(numbers_.size());
+      numbers_.emplace_back(res, rows);
+    }
+    values_.resize(numbers_.size());
+    for (const auto& b : m.bands) {
+      band_mags_.emplace_back(b.mag, rows);
+      band_errs_.emplace_back(b.err, rows);
+    }
+    for (const char* k : {"ebv_err", "feh_err", "mu_err", "period_err"})
+      if (slot(k) >= 0) error_slots_.emplace_back(k, slot(k));
+    s_parallax_ = slot("parallax");
+    s_parallax_err_ = slot("parallax_err");
+    s_ebv_ = slot("ebv");
+    s_astrometric_ = slot("astrometric_params");
+  }
+
+  // Checks row r; throws the first rule it breaks as a RowReject. id is set as soon as the
+  // row's id is known, for the reject.
+  AcceptedRow check(std::size_t r, const std::string*& id) {
+    const Resolved& q_id = m_.at("id");
+    id = text_ref(q_id, r, id_scratch_);
+    if (!id || id->empty())
+      throw RowReject{"missing_required", q_id.column_name, "the star has no id"};
+    check_period(r);
+    for (std::size_t s = 0; s < o_.selection.size(); ++s)
+      if (!select_row(o_.selection[s], *m_.select_columns[s], r))
+        throw RowReject{"selection", o_.selection[s].column,
+                        "fails the selection " + o_.selection[s].describe()};
+    AcceptedRow row;
+    row.input_row = r;
+    row.mode = &canonical(true, r);
+    row.pulsator_class = &canonical(false, r);
+    for (std::size_t i = 0; i < numbers_.size(); ++i) values_[i] = numbers_[i].at(r);
+    check_errors();
+    row.astrometric = astrometric_params();
+    check_photometry(r);
+    return row;
+  }
+
+  const PreparedNumbers& periods() const { return periods_; }
+  const PreparedNumbers& number(const std::string& key) const {
+    return numbers_[static_cast<std::size_t>(slot_of_.at(key))];
+  }
+  const PreparedNumbers& band_magnitude(std::size_t b) const { return band_mags_[b]; }
+  const PreparedNumbers& band_error(std::size_t b) const { return band_errs_[b]; }
+
+ private:
+  int slot(const char* k) const {
+    auto it = slot_of_.find(k);
+    return it == slot_of_.end() ? -1 : it->second;
+  }
+  std::optional<double> value(int slot) const {
+    return slot < 0 ? std::nullopt : values_[static_cast<std::size_t>(slot)];
+  }
+
+  void check_period(std::size_t r) const {
+    const Resolved& q = m_.at("period");
+    auto period = periods_.at(r);
+    if (!period) throw RowReject{"missing_required", q.column_name, "the star has no period"};
+    if (*period <= 0)
+      throw RowReject{"period_nonpositive", q.column_name,
+                      fmt::format("period {} d is not positive", *period)};
+  }
+
+  // The canonical mode (or class) of row r. Spellings repeat from row to row: each distinct
+  // one is looked up once per group.
+  const std::string& canonical(bool is_mode, std::size_t r) {
+    const Resolved& q = m_.at(is_mode ? "mode" : "pulsator_class");
+    const std::string* text = text_ref(q, r, is_mode ? mode_scratch_ : class_scratch_);
+    if (!text)
+      throw RowReject{
+          "missing_required", q.column_name,
+          is_mode ? "the star has no pulsation mode" : "the star has no pulsator class"};
+    auto& cache = is_mode ? mode_of_ : class_of_;
+    auto it = cache.find(*text);
+    if (it == cache.end())
+      it = cache
+               .emplace(*text, is_mode ? canonical_choice(*text, o_.mode_aliases,
+                                                          builtin_mode_aliases(), true)
+                                       : canonical_choice(*text, o_.class_aliases,
+                                                          builtin_class_aliases(), false))
+               .first;
+    if (it->second.empty()) {
+      if (is_mode)
+        throw RowReject{"unknown_mode", q.column_name,
+                        fmt::format("mode '{}' is unknown (map it in [modes]; known: {})", *text,
+                                    kPulsationModeNames.choices())};
+      throw RowReject{"unknown_class", q.column_name,
+                      fmt::format("class '{}' is unknown (map it in [classes]; known: {})", *text,
+                                  kPulsatorClassNames.choices())};
+    }
+    return it->second;
+  }
+
+  void check_errors() const {
+    if (value(s_parallax_)) {
+      auto e = value(s_parallax_err_);
+      if (!e && o_.require_errors)
+        throw RowReject{
+            "missing_error",
+            m_.quantities.count("parallax_err") ? m_.at("parallax_err").column_name : "",
+            "a parallax without its error"};
+      if (e && !(*e > 0))
+        throw RowReject{"parallax_error_nonpositive", m_.at("parallax_err").column_name,
+                        fmt::format("parallax error {} mas is not positive", *e)};
+    }
+    if (auto e = value(s_ebv_); e && (*e < o_.ebv_min || *e > o_.ebv_max))
+      throw RowReject{"ebv_out_of_range", m_.at("ebv").column_name,
+                      fmt::format("E(B-V) = {} is outside [{}, {}]", *e, o_.ebv_min, o_.ebv_max)};
+    for (const auto& [k, i] : error_slots_)
+      if (auto e = values_[static_cast<std::size_t>(i)]; e && *e < 0)
+        throw RowReject{"error_negative", m_.at(k).column_name,
+                        fmt::format("{} = {} is negative", k, *e)};
+  }
+
+  std::optional<std::int64_t> astrometric_params() const {
+    auto a = value(s_astrometric_);
+    if (!a) return std::nullopt;
+    try {
+      return canonical_astrometric_params(*a);
+    } catch (RowReject& rr) {
+      rr.column = m_.at("astrometric_params").column_name;
+      throw;
+    }
+  }
+
+  void check_photometry(std::size_t r) const {
+    bool any_mag = false;
+    for (std::size_t b = 0; b < m_.bands.size(); ++b) {
+      const auto& band = m_.bands[b];
+      const std::optional<double> mag = band_mags_[b].at(r);
+      const std::optional<double> err = band_errs_[b].at(r);  // missing when none is mapped
+      if (!mag) continue;
+      any_mag = true;
+      if (*mag < o_.magnitude_min || *mag > o_.magnitude_max)
+        throw RowReject{"magnitude_out_of_range", band.mag.column_name,
+                        fmt::format("{} = {} mag is outside [{}, {}]", band.band, *mag,
+                                    o_.magnitude_min, o_.magnitude_max)};
+      if (!err && o_.require_errors)
+        throw RowReject{"missing_error", band.err.column_name,
+                        fmt::format("{} magnitude without its error", band.band)};
+      if (err && !(*err > 0))
+        throw RowReject{"magnitude_error_nonpositive", band.err.column_name,
+                        fmt::format("{} error {} mag is not positive", band.band, *err)};
+    }
+    if (!any_mag)
+      throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
+  }
+
+  const IngestOptions& o_;
+  const GroupMapping& m_;
+  PreparedNumbers periods_;
+  std::vector<PreparedNumbers> numbers_;  // the numeric quantities but the period
+  std::map<std::string, int> slot_of_;    // quantity -> index in numbers_
+  std::vector<PreparedNumbers> band_mags_, band_errs_;
+  std::vector<std::pair<std::string, int>> error_slots_;
+  int s_parallax_ = -1, s_parallax_err_ = -1, s_ebv_ = -1, s_astrometric_ = -1;  // -1: unmapped
+  std::vector<std::optional<double>> values_;  // the row's numbers, by slot
+  std::unordered_map<std::string, std::string> mode_of_, class_of_;
+  std::string id_scratch_, mode_scratch_, class_scratch_;
+};
+
+// The accepted rows' values, written into a copy of the layout's schema column by column.
+StarTable catalog_rows(const CatalogLayout& l, const GroupMapping& m, const GroupChecks& checks,
+                       const std::vector<AcceptedRow>& accepted, const SourceTable& in) {
+  StarTable table = l.schema;
+  const std::size_t n = accepted.size();
+  std::vector<std::size_t> rows(n);
+  for (std::size_t k = 0; k < n; ++k) rows[k] = accepted[k].input_row;
+  std::string scratch;
+  auto text_of = [&](const Resolved& q) {
+    return [&rows, &scratch, q = &q](std::size_t k) { return text_ref(*q, rows[k], scratch); };
+  };
+  auto number_of = [&](const PreparedNumbers& p) {
+    return [&rows, p = &p](std::size_t k) { return p->value_or_nan(rows[k]); };
+  };
+  fill_texts(table.column(l.id), n, text_of(m.at("id")));
+  Column& source_row = table.column(l.source_row);
+  source_row.integer.resize(n);
+  source_row.null.assign(n, 0);
+  for (std::size_t k = 0; k < n; ++k) source_row.integer[k] = in.source_rows[rows[k]];
+  fill_reals(table.column(l.period), n, number_of(checks.periods()));
+  fill_reals(table.column(l.log_period), n,
+             [&](std::size_t k) { return std::log10(checks.periods().value_or_nan(rows[k])); });
+  for (const auto& [key, i] : l.quantities) {
+    Column& out = table.column(i);
+    if (key == "mode") {
+      fill_texts(out, n, [&](std::size_t k) { return accepted[k].mode; });
+    } else if (key == "pulsator_class") {
+      fill_texts(out, n, [&](std::size_t k) { return accepted[k].pulsator_class; });
+    } else if (find_quantity(key)->type == ColumnType::kText) {
+      fill_texts(out, n, text_of(m.at(key)));
+    } else if (key == "astrometric_params") {
+      out.integer.resize(n);
+      out.null.resize(n);
+      for (std::size_t k = 0; k < n; ++k) {
+        out.integer[k] = accepted[k].astrometric.value_or(0);
+        out.null[k] = accepted[k].astrometric ? 0 : 1;
+      }
+    } else {
+      fill_reals(out, n, number_of(checks.number(key)));
+    }
+  }
+  for (std::size_t b = 0; b < l.bands.size(); ++b) {
+    const PreparedNumbers& mag = checks.band_magnitude(b);
+    const PreparedNumbers& err = checks.band_error(b);
+    fill_reals(table.column(l.bands[b].first), n, number_of(mag));
+    // An error is kept only beside its magnitude.
+    fill_reals(table.column(l.bands[b].second), n, [&](std::size_t k) {
+      return std::isnan(mag.value_or_nan(rows[k])) ? std::numeric_limits<double>::quiet_NaN()
+                                                   : err.value_or_nan(rows[k]);
+    });
+  }
+  for (std::size_t i = 0; i < l.extras.size(); ++i)
+    fill_selected(table.column(l.extras[i]), *m.extra_columns[i], rows);
+  return table;
+}
+
+// Maps and checks one group of input rows: the accepted rows in the catalog's columns, and
+// every row's fate and id hash for settling in file order.
+RowGroup check_group(const IngestOptions& o, const SourceTable& in, const CatalogLayout& layout) {
+  const GroupMapping mapping = resolve_group(o, in);
+  const std::size_t rows_in = in.table.rows();
+  GroupChecks checks(o, mapping, rows_in);
+  RowGroup group;
+  group.row_label = in.row_label;
+  group.id_column = mapping.at("id").column_name;
+  group.source_rows.assign(in.source_rows.begin(),
+                           in.source_rows.begin() + static_cast<std::ptrdiff_t>(rows_in));
+  group.fate.resize(rows_in);
+  std::vector<AcceptedRow> accepted;
+  accepted.reserve(rows_in);
+  for (std::size_t r = 0; r < rows_in; ++r) {
+    const std::string* id = nullptr;
+    try {
+      accepted.push_back(checks.check(r, id));
+      group.fate[r] = static_cast<std::int64_t>(accepted.size()) - 1;
+    } catch (const RowReject& rej) {
+      group.fate[r] = -1 - static_cast<std::int64_t>(group.refusals.size());
+      group.refusals.push_back({in.source_rows[r], id ? *id : std::string(), rej});
+    }
+  }
+  group.rows = catalog_rows(layout, mapping, checks, accepted, in);
+  // Ids hashed here, on the worker, so that settling them in file order is only look-ups.
+  group.id_hash.resize(rows_in);
+  const auto& ids = group.rows.column(layout.id).text;
+  for (std::size_t r = 0; r < rows_in; ++r) {
+    const std::int64_t f = group.fate[r];
+    const std::string& id = f >= 0 ? ids[static_cast<std::size_t>(f)]
+                                   : group.refusals[static_cast<std::size_t>(-1 - f)].id;
+    if (!id.empty()) group.id_hash[r] = IdRegistry::hash(id);
+  }
+  return group;
+}
+
 using GroupSink = std::function<void(StarTable&&)>;
 
 // Reads, maps and checks the input group by group (FITS groups on every core, one cfitsio
@@ -781,310 +1140,12 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
   auto input_hash =
       std::async(std::launch::async, [path = o.input_path] { return sha256_file(path); });
 
-  // The catalog's columns, made from the first group of rows; each group fills a copy.
-  StarTable schema;
-  bool schema_made = false;
-  std::size_t i_id = 0, i_row = 0, i_period = 0, i_logp = 0;
-  std::map<std::string, std::size_t> out_q_index;
-  std::vector<std::pair<std::size_t, std::size_t>> out_band_index;
-  std::string band_list;
-  std::vector<std::size_t> out_extra_index;
+  // The catalog's columns, made from the first group of rows (before any worker starts);
+  // each group fills a copy.
+  std::optional<CatalogLayout> layout;
   auto process = [&](const SourceTable& in) {
-    RowGroup group;
-    group.row_label = in.row_label;
-    // Resolve every mapping before any row is read: mapping errors stop the whole file.
-    std::map<std::string, Resolved> q;
-    for (const auto& [k, src] : o.quantities) q[k] = resolve(src, k, find_quantity(k)->kind, in, o);
-    struct BandResolved {
-      std::string band;
-      Resolved mag, err;
-    };
-    std::vector<BandResolved> bands;
-    for (const auto& b : o.bands)
-      bands.push_back(
-          {b.band, resolve(b.mag, "magnitude " + b.band, QuantityKind::kMagnitude, in, o),
-           resolve(b.err, "magnitude error " + b.band, QuantityKind::kMagnitude, in, o)});
-    std::vector<const Column*> select_cols;
-    for (const auto& s : o.selection) {
-      if (!in.table.has(s.column))
-        whole_file_error(o, s.column, "missing_column",
-                         "a [[select]] rule names this column, which the file does not have");
-      select_cols.push_back(&in.table.column(s.column));
-    }
-    std::vector<const Column*> extra_cols;
-    for (const auto& e : o.extras) {
-      if (!in.table.has(e.column))
-        whole_file_error(
-            o, e.column, "missing_column",
-            fmt::format("[extra] {} names this column, which the file does not have", e.name));
-      extra_cols.push_back(&in.table.column(e.column));
-    }
-
-    // Output columns: fixed ones first, then the mapped quantities, bands and extras.
-    if (!schema_made) {
-      schema_made = true;
-      auto add_column = [&](const std::string& name, ColumnType type, const std::string& unit,
-                            const std::string& description) {
-        schema.add_column(name, type, unit, description);
-        return schema.columns() - 1;
-      };
-      auto add = [&](const QuantitySpec& spec) {
-        return add_column(std::string(spec.column), spec.type, canonical_unit(spec.kind),
-                          std::string(spec.description));
-      };
-      i_id = add(*find_quantity("id"));
-      i_row = add_column(col::kSourceRow, ColumnType::kInteger, "", "line or row in the input");
-      i_period = add(*find_quantity("period"));
-      i_logp = add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
-      for (const auto& spec : catalog_quantities()) {
-        std::string k(spec.key);
-        if (k == "id" || k == "period" || !q.count(k)) continue;
-        out_q_index[k] = add(spec);
-      }
-      for (const auto& b : bands) {
-        // Two statements: the magnitude column must come before its error in the file.
-        const std::size_t mag = add_column(magnitude_column(b.band), ColumnType::kReal, "mag",
-                                           "mean magnitude in " + b.band);
-        const std::size_t err = add_column(magnitude_error_column(b.band), ColumnType::kReal,
-                                           "mag", "error of mag_" + b.band);
-        out_band_index.emplace_back(mag, err);
-        band_list += (band_list.empty() ? "" : ",") + b.band;
-      }
-      for (std::size_t i = 0; i < o.extras.size(); ++i) {
-        const Column* src = extra_cols[i];
-        out_extra_index.push_back(add_column(
-            o.extras[i].name, src->type, o.extras[i].unit.empty() ? src->unit : o.extras[i].unit,
-            "copied from input column " + o.extras[i].column));
-      }
-      schema.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
-    }
-    StarTable& table = group.rows;
-    table = schema;
-    const std::size_t rows_in = in.table.rows();
-    // Per-group lookups done once, not per row: the numeric quantities in slots, converted
-    // column by column, and what each output column takes.
-    std::vector<const Resolved*> numeric;
-    std::map<std::string, int> slot_of;
-    for (const auto& [k, res] : q) {
-      if (find_quantity(k)->type == ColumnType::kText || k == "period") continue;
-      slot_of[k] = static_cast<int>(numeric.size());
-      numeric.push_back(&res);
-    }
-    auto slot = [&](const char* k) {
-      auto it = slot_of.find(k);
-      return it == slot_of.end() ? -1 : it->second;
-    };
-    std::vector<PreparedNumbers> prepared;
-    prepared.reserve(numeric.size());
-    for (const Resolved* res : numeric) prepared.emplace_back(*res, rows_in);
-    std::vector<PreparedNumbers> band_mags, band_errs;
-    band_mags.reserve(bands.size());
-    band_errs.reserve(bands.size());
-    for (const auto& b : bands) {
-      band_mags.emplace_back(b.mag, rows_in);
-      band_errs.emplace_back(b.err, rows_in);
-    }
-    std::vector<std::optional<double>> values(numeric.size());
-    const int s_parallax = slot("parallax"), s_parallax_err = slot("parallax_err"),
-              s_ebv = slot("ebv"), s_astrometric = slot("astrometric_params");
-    std::vector<std::pair<std::string, int>> error_slots;
-    for (const char* k : {"ebv_err", "feh_err", "mu_err", "period_err"})
-      if (slot(k) >= 0) error_slots.emplace_back(k, slot(k));
-    // Modes and classes repeat from row to row: each distinct spelling is looked up once.
-    std::unordered_map<std::string, std::string> mode_of, class_of;
-    auto canonical_cached = [&](std::unordered_map<std::string, std::string>& cache,
-                                const std::string& text, bool is_mode) -> const std::string& {
-      auto it = cache.find(text);
-      if (it == cache.end())
-        it = cache.emplace(text, is_mode ? canonical_choice(text, o.mode_aliases,
-                                                            builtin_mode_aliases(), true)
-                                         : canonical_choice(text, o.class_aliases,
-                                                            builtin_class_aliases(), false))
-                 .first;
-      return it->second;
-    };
-    const Resolved& q_id = q.at("id");
-    const Resolved& q_period = q.at("period");
-    const Resolved& q_mode = q.at("mode");
-    const Resolved& q_class = q.at("pulsator_class");
-    const PreparedNumbers periods(q_period, rows_in);
-
-    // The checks, row by row in a fixed order (the first failing check names the reject);
-    // an accepted row is only noted here, and the output columns are filled after the loop.
-    std::vector<std::size_t> accepted;
-    accepted.reserve(rows_in);
-    std::vector<const std::string*> accepted_mode, accepted_class;
-    accepted_mode.reserve(rows_in);
-    accepted_class.reserve(rows_in);
-    constexpr std::int64_t kNoAstrometric = std::numeric_limits<std::int64_t>::min();
-    std::vector<std::int64_t> accepted_astrometric;
-    if (s_astrometric >= 0) accepted_astrometric.reserve(rows_in);
-    group.source_rows.assign(in.source_rows.begin(),
-                             in.source_rows.begin() + static_cast<std::ptrdiff_t>(rows_in));
-    group.fate.resize(rows_in);
-    std::string id_scratch, mode_scratch, class_scratch;
-    for (std::size_t r = 0; r < rows_in; ++r) {
-      const std::string* id = nullptr;
-      try {
-        id = text_ref(q_id, r, id_scratch);
-        if (!id || id->empty())
-          throw RowReject{"missing_required", q_id.column_name, "the star has no id"};
-        auto period = periods.at(r);
-        if (!period)
-          throw RowReject{"missing_required", q_period.column_name, "the star has no period"};
-        if (*period <= 0)
-          throw RowReject{"period_nonpositive", q_period.column_name,
-                          fmt::format("period {} d is not positive", *period)};
-        for (std::size_t s = 0; s < o.selection.size(); ++s)
-          if (!select_row(o.selection[s], *select_cols[s], r))
-            throw RowReject{"selection", o.selection[s].column,
-                            "fails the selection " + o.selection[s].describe()};
-
-        const std::string* mode_text = text_ref(q_mode, r, mode_scratch);
-        if (!mode_text)
-          throw RowReject{"missing_required", q_mode.column_name,
-                          "the star has no pulsation mode"};
-        const std::string& mode = canonical_cached(mode_of, *mode_text, true);
-        if (mode.empty())
-          throw RowReject{"unknown_mode", q_mode.column_name,
-                          fmt::format("mode '{}' is unknown (map it in [modes]; known: {})",
-                                      *mode_text, kPulsationModeNames.choices())};
-        const std::string* class_text = text_ref(q_class, r, class_scratch);
-        if (!class_text)
-          throw RowReject{"missing_required", q_class.column_name,
-                          "the star has no pulsator class"};
-        const std::string& klass = canonical_cached(class_of, *class_text, false);
-        if (klass.empty())
-          throw RowReject{"unknown_class", q_class.column_name,
-                          fmt::format("class '{}' is unknown (map it in [classes]; known: {})",
-                                      *class_text, kPulsatorClassNames.choices())};
-
-        for (std::size_t i = 0; i < numeric.size(); ++i) values[i] = prepared[i].at(r);
-        auto get = [&](int i) -> std::optional<double> {
-          return i < 0 ? std::nullopt : values[static_cast<std::size_t>(i)];
-        };
-        if (get(s_parallax)) {
-          auto e = get(s_parallax_err);
-          if (!e && o.require_errors)
-            throw RowReject{"missing_error",
-                            q.count("parallax_err") ? q.at("parallax_err").column_name : "",
-                            "a parallax without its error"};
-          if (e && !(*e > 0))
-            throw RowReject{"parallax_error_nonpositive", q.at("parallax_err").column_name,
-                            fmt::format("parallax error {} mas is not positive", *e)};
-        }
-        if (auto e = get(s_ebv)) {
-          if (*e < o.ebv_min || *e > o.ebv_max)
-            throw RowReject{
-                "ebv_out_of_range", q.at("ebv").column_name,
-                fmt::format("E(B-V) = {} is outside [{}, {}]", *e, o.ebv_min, o.ebv_max)};
-        }
-        for (const auto& [k, i] : error_slots)
-          if (auto e = get(i); e && *e < 0)
-            throw RowReject{"error_negative", q.at(k).column_name,
-                            fmt::format("{} = {} is negative", k, *e)};
-        std::optional<std::int64_t> astrometric;
-        if (auto a = get(s_astrometric)) {
-          try {
-            astrometric = canonical_astrometric_params(*a);
-          } catch (RowReject& rr) {
-            rr.column = q.at("astrometric_params").column_name;
-            throw;
-          }
-        }
-        bool any_mag = false;
-        for (std::size_t b = 0; b < bands.size(); ++b) {
-          auto m = band_mags[b].at(r);
-          const std::optional<double> e = band_errs[b].at(r);  // missing when no error is mapped
-          if (!m) continue;
-          any_mag = true;
-          if (*m < o.magnitude_min || *m > o.magnitude_max)
-            throw RowReject{"magnitude_out_of_range", bands[b].mag.column_name,
-                            fmt::format("{} = {} mag is outside [{}, {}]", bands[b].band, *m,
-                                        o.magnitude_min, o.magnitude_max)};
-          if (!e && o.require_errors)
-            throw RowReject{"missing_error", bands[b].err.column_name,
-                            fmt::format("{} magnitude without its error", bands[b].band)};
-          if (e && !(*e > 0))
-            throw RowReject{"magnitude_error_nonpositive", bands[b].err.column_name,
-                            fmt::format("{} error {} mag is not positive", bands[b].band, *e)};
-        }
-        if (!any_mag)
-          throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
-
-        group.fate[r] = static_cast<std::int64_t>(accepted.size());
-        accepted.push_back(r);
-        accepted_mode.push_back(&mode);
-        accepted_class.push_back(&klass);
-        if (s_astrometric >= 0)
-          accepted_astrometric.push_back(astrometric.value_or(kNoAstrometric));
-      } catch (const RowReject& rej) {
-        group.fate[r] = -1 - static_cast<std::int64_t>(group.refusals.size());
-        group.refusals.push_back({in.source_rows[r], id ? *id : std::string(), rej});
-      }
-    }
-
-    // The accepted rows, column by column.
-    const std::size_t m = accepted.size();
-    fill_texts(table.column(i_id), m,
-               [&](std::size_t k) { return text_ref(q_id, accepted[k], id_scratch); });
-    {
-      Column& c = table.column(i_row);
-      c.integer.resize(m);
-      c.null.assign(m, 0);
-      for (std::size_t k = 0; k < m; ++k) c.integer[k] = in.source_rows[accepted[k]];
-    }
-    fill_reals(table.column(i_period), m,
-               [&](std::size_t k) { return periods.value_or_nan(accepted[k]); });
-    fill_reals(table.column(i_logp), m,
-               [&](std::size_t k) { return std::log10(periods.value_or_nan(accepted[k])); });
-    for (const auto& [k, i] : out_q_index) {
-      Column& out = table.column(i);
-      if (k == "mode") {
-        fill_texts(out, m, [&](std::size_t a) { return accepted_mode[a]; });
-      } else if (k == "pulsator_class") {
-        fill_texts(out, m, [&](std::size_t a) { return accepted_class[a]; });
-      } else if (find_quantity(k)->type == ColumnType::kText) {
-        const Resolved& res = q.at(k);
-        fill_texts(out, m, [&](std::size_t a) { return text_ref(res, accepted[a], id_scratch); });
-      } else if (k == "astrometric_params") {
-        out.integer.resize(m);
-        out.null.resize(m);
-        for (std::size_t a = 0; a < m; ++a) {
-          const bool none = accepted_astrometric[a] == kNoAstrometric;
-          out.integer[a] = none ? 0 : accepted_astrometric[a];
-          out.null[a] = none ? 1 : 0;
-        }
-      } else {
-        const PreparedNumbers& p = prepared[static_cast<std::size_t>(slot(k.c_str()))];
-        fill_reals(out, m, [&](std::size_t a) { return p.value_or_nan(accepted[a]); });
-      }
-    }
-    for (std::size_t b = 0; b < bands.size(); ++b) {
-      const PreparedNumbers& mag = band_mags[b];
-      const PreparedNumbers& err = band_errs[b];
-      const double nan = std::numeric_limits<double>::quiet_NaN();
-      fill_reals(table.column(out_band_index[b].first), m,
-                 [&](std::size_t a) { return mag.value_or_nan(accepted[a]); });
-      // An error is kept only beside its magnitude.
-      fill_reals(table.column(out_band_index[b].second), m, [&](std::size_t a) {
-        return std::isnan(mag.value_or_nan(accepted[a])) ? nan : err.value_or_nan(accepted[a]);
-      });
-    }
-    for (std::size_t i = 0; i < out_extra_index.size(); ++i)
-      fill_selected(table.column(out_extra_index[i]), *extra_cols[i], accepted);
-
-    // Ids hashed here, on the worker, so that settling them in file order is only look-ups.
-    group.id_hash.resize(rows_in);
-    const auto& ids_out = table.column(i_id).text;
-    for (std::size_t r = 0; r < rows_in; ++r) {
-      const std::int64_t f = group.fate[r];
-      const std::string& id = f >= 0 ? ids_out[static_cast<std::size_t>(f)]
-                                     : group.refusals[static_cast<std::size_t>(-1 - f)].id;
-      if (!id.empty()) group.id_hash[r] = IdRegistry::hash(id);
-    }
-    group.id_column = q_id.column_name;
-    return group;
+    if (!layout) layout = make_catalog_layout(o, resolve_group(o, in));
+    return check_group(o, in, *layout);
   };
   IdRegistry ids(n);
   std::size_t kept = 0;
@@ -1092,7 +1153,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     std::vector<std::size_t> keep;
     keep.reserve(g.rows.rows());
     bool dropped = false;
-    const auto& accepted_ids = g.rows.column(i_id).text;
+    const auto& accepted_ids = g.rows.column(layout->id).text;
     // How far ahead the registry's slots are loaded: about one memory latency of look-ups.
     constexpr std::size_t kPrefetchAhead = 16;
     const std::size_t count = g.fate.size();
@@ -1205,7 +1266,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     throw InputError({o.input_path, {}, {}}, "no_rows_left",
                      fmt::format("all {} rows were rejected{}", n, first));
   }
-  return schema;
+  return layout->schema;
 }
 
 }  // namespace
