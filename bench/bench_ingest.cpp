@@ -18,7 +18,7 @@
 
 #include "rungcal/core/log.hpp"
 #include "rungcal/ingest/ingest.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace {

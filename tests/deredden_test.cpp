@@ -6,7 +6,7 @@
 #include <cmath>
 
 #include "rungcal/deredden/deredden.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "test_util.hpp"
 

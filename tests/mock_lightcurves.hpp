@@ -10,7 +10,7 @@
 #include <vector>
 
 #include "rungcal/lightcurve/lightcurve_stage.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 
 namespace rungcal::test {
 

@@ -8,7 +8,7 @@
 
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/model.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/table/star_table.hpp"
 
 namespace rungcal::test {

@@ -12,7 +12,7 @@
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/joint.hpp"
 #include "rungcal/plfit/model.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 #include "mock_samples.hpp"
 #include "test_util.hpp"
 

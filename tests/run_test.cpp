@@ -19,7 +19,7 @@
 
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/provenance.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "test_util.hpp"
 

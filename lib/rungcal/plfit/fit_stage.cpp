@@ -20,7 +20,7 @@
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
 #include "rungcal/photometry/photometry.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 

@@ -12,7 +12,7 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/version.hpp"
 #include "rungcal/photometry/photometry.hpp"
-#include "rungcal/simulate/random.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/text_io.hpp"
 
