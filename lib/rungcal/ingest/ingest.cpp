@@ -22,6 +22,7 @@
 
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/parallel.hpp"
+#include "rungcal/core/progress.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/table_source.hpp"
@@ -1149,6 +1150,8 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
   };
   IdRegistry ids(n);
   std::size_t kept = 0;
+  // Drawn on a terminal only: a nightly run under cron stays quiet.
+  Progress progress("ingest " + std::filesystem::path(o.input_path).filename().string(), n);
   auto settle = [&](RowGroup&& g) {
     std::vector<std::size_t> keep;
     keep.reserve(g.rows.rows());
@@ -1183,6 +1186,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     if (dropped) g.rows = g.rows.select_rows(keep);
     kept += g.rows.rows();
     sink(std::move(g.rows));
+    progress.advance(count);
   };
   settle(process(first_chunk));
   first_chunk = SourceTable{};
@@ -1254,6 +1258,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     workers.join();
     if (worker_error) std::rethrow_exception(worker_error);
   }
+  progress.finish();
   result.provenance.inputs.push_back(
       {o.input_path, input_hash.get(), static_cast<std::int64_t>(n)});
   result.stars = kept;
