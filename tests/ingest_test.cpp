@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 // Tests of lib/rungcal/ingest and pipeline/rungcal-ingest: the published reference tables
 // ingest through config/reference/*.toml, rows break named rules, bad inputs stop cleanly.
+#include <fmt/format.h>
 #include <gtest/gtest.h>
 
 #include <ostream>
@@ -502,6 +503,57 @@ TEST(IngestChunks, AStreamedCatalogFileEqualsTheOneWrittenWhole) {
     b.header().clear();
     EXPECT_EQ(format_csv_table(b), format_csv_table(a)) << hdu;
   }
+}
+
+TEST(IngestChunks, AStreamedTextCatalogEqualsOneReadAsASingleGroup) {
+  // 40 simulated stars in a CSV with comments, blank lines and CRLF, one id repeated four
+  // groups later and one bad parallax: groups of 7 lines on both cores must give the same
+  // catalog and rejects (with the same line numbers) as the whole file in one group.
+  test::TempDir dir;
+  std::string csv = "# simulated stars (invented)\r\nid,P,plx,plx_err,V,V_err,ebv,mode\r\n";
+  for (int i = 0; i < 40; ++i) {
+    if (i == 20) csv += "\r\n# a comment between groups\r\n";
+    const std::string id = i == 33 ? "S05" : fmt::format("S{:02d}", i);  // a duplicate of S05
+    const std::string plx = i == 12 ? "n/a" : fmt::format("{:.3f}", 0.2 + 0.01 * i);
+    csv += fmt::format("{},{:.2f},{},0.05,{:.2f},0.02,0.3,{}\r\n", id, 3.0 + 0.5 * i, plx,
+                       12.0 - 0.05 * i, i % 3 ? "F" : "1O");
+  }
+  test::write_text(dir.file("in.csv"), csv);
+  test::write_text(dir.file("c.toml"), config_for("in.csv", "cat.fits", "chunk_rows = 7\n"));
+  IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
+  IngestResult streamed = ingest_catalog_file(o);
+  o.chunk_rows = 1000;
+  o.catalog_path = dir.file("whole.fits");
+  o.rejects_csv_path = dir.file("whole_rejects.csv");
+  IngestResult whole = ingest_catalog_file(o);
+  EXPECT_EQ(streamed.rows_read, 40u);
+  EXPECT_EQ(streamed.stars, 38u);
+  std::vector<std::pair<std::int64_t, std::string>> got;
+  for (const auto& r : streamed.rejected) got.emplace_back(r.source_row, r.rule);
+  EXPECT_EQ(got, (std::vector<std::pair<std::int64_t, std::string>>{{15, "not_a_number"},
+                                                                    {38, "duplicate_id"}}));
+  EXPECT_EQ(streamed.rejected[1].message, "id 'S05' was already used at line 8");
+  for (const char* hdu : {"CATALOG", "REJECTS"}) {
+    StarTable a = read_fits_table(dir.file("whole.fits"), {hdu, 0}).table;
+    StarTable b = read_fits_table(dir.file("cat.fits"), {hdu, 0}).table;
+    a.header().clear();
+    b.header().clear();
+    EXPECT_EQ(format_csv_table(b), format_csv_table(a)) << hdu;
+  }
+  // A broken line in a later group stops the file, and nothing is written.
+  test::write_text(dir.file("in.csv"), csv + "S99,5.0,0.5\r\n");
+  o.chunk_rows = 7;
+  o.catalog_path = dir.file("out/broken.fits");
+  o.rejects_csv_path.clear();
+  try {
+    ingest_catalog_file(o);
+    ADD_FAILURE() << "a line with 3 fields was accepted";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "field_count");
+    EXPECT_EQ(e.where().row, 45);
+  }
+  EXPECT_FALSE(test::file_exists(dir.file("out/broken.fits")));
+  EXPECT_FALSE(test::file_exists(dir.file("out/broken_rejects.csv")));
 }
 
 }  // namespace

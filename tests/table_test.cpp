@@ -102,6 +102,79 @@ TEST(TextReader, BadFilesNameTheirRule) {
   }
 }
 
+// Every group of a TextTableReader, joined, against parse_text_table of the whole.
+void expect_groups_equal_whole(const std::string& content, const TextReadOptions& o) {
+  test::TempDir dir;
+  test::write_text(dir.file("t.txt"), content);
+  const SourceTable whole = parse_text_table(content, dir.file("t.txt"), o);
+  for (std::size_t group : {1u, 2u, 3u, 1000u}) {
+    TextTableReader reader(dir.file("t.txt"), o);
+    StarTable joined;
+    std::vector<std::int64_t> lines;
+    bool first = true;
+    for (SourceTable g = reader.read(group); g.table.rows() > 0; g = reader.read(group)) {
+      EXPECT_LE(g.table.rows(), group);
+      first ? void(joined = g.table) : joined.append_rows(g.table);
+      first = false;
+      lines.insert(lines.end(), g.source_rows.begin(), g.source_rows.end());
+    }
+    EXPECT_EQ(format_csv_table(joined), format_csv_table(whole.table)) << group;
+    EXPECT_EQ(lines, whole.source_rows) << group;
+    EXPECT_EQ(reader.bytes_read(), reader.file_bytes()) << group;
+  }
+}
+
+TEST(TextReader, GroupsReadInTurnGiveTheWholeTable) {
+  TextReadOptions o;
+  o.missing = {"xxx", "---"};
+  expect_groups_equal_whole(
+      "\xEF\xBB\xBFid,mag\r\n# a comment\r\nA,1.5\r\nB,xxx\r\n\r\n\"C, c\",\" 2 \"\r\nD,---\r\nE,3",
+      o);
+  TextReadOptions spaced;
+  spaced.delimiter = Delimiter::kMultiSpace;
+  spaced.header_prefix = "#";
+  spaced.skip_lines = 1;
+  expect_groups_equal_whole("title line\n#Name  P\nAA GEM  10.3\nX  1\n\nY  2\n", spaced);
+  TextReadOptions headerless;
+  headerless.has_header = false;
+  headerless.column_names = {"a", "b"};
+  expect_groups_equal_whole("1,2\n3,4\n5,6", headerless);
+  // Longer than the reader's 1 MiB blocks: lines cut across a block boundary.
+  std::string big = "id,value\n";
+  for (int i = 0; i < 60000; ++i) big += fmt::format("star-{:06d},{}.{}\n", i, i, i % 7);
+  expect_groups_equal_whole(big, o);
+}
+
+TEST(TextReader, AGroupReaderNamesTheRulesTheWholeReaderNames) {
+  test::TempDir dir;
+  TextReadOptions o;
+  auto rule_of_groups = [&](const std::string& content) {
+    test::write_text(dir.file("t.csv"), content);
+    return rule_of([&] {
+      TextTableReader reader(dir.file("t.csv"), o);
+      while (reader.read(1).table.rows() > 0) {
+      }
+    });
+  };
+  EXPECT_EQ(rule_of_groups(""), "empty_file");
+  EXPECT_EQ(rule_of_groups("# only a comment\n"), "empty_file");
+  EXPECT_EQ(rule_of_groups("id,a\n1,2\n1,2,3\n"), "field_count");
+  EXPECT_EQ(rule_of_groups("id,id\n1,2\n"), "duplicate_column");
+  EXPECT_EQ(rule_of_groups(std::string("\xFF\xFEi\0d\0", 6)), "encoding");
+  EXPECT_EQ(rule_of_groups(std::string("id\n1\n\0\n", 7)), "encoding");
+  EXPECT_EQ(rule_of([&] { TextTableReader(dir.file("absent.csv"), o); }), "unreadable_file");
+  test::write_text(dir.file("t.csv"), "id,a\n1,2\n3\n");
+  TextTableReader reader(dir.file("t.csv"), o);
+  EXPECT_EQ(reader.read(1).table.rows(), 1u);  // the good line comes first
+  try {
+    reader.read(1);
+    ADD_FAILURE() << "line 3 has one field";
+  } catch (const InputError& e) {
+    EXPECT_EQ(std::string(e.what()).substr(std::string(e.what()).find(":line")),
+              ":line 3: [field_count] 1 fields where the header has 2 columns");
+  }
+}
+
 TEST(Units, ConversionsToCanonicalUnits) {
   EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kParallax, "arcsec")->apply(0.001), 1.0);
   EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kParallax, "uas")->apply(1500.0), 1.5);

@@ -117,6 +117,7 @@ struct RowGroup {
   std::vector<IdHash> id_hash;     // meaningful where the row has an id
   std::vector<RowRefusal> refusals;
   std::string row_label, id_column;
+  std::size_t progress_units = 0;  // of the input taken by this group (GroupReader::next)
 };
 
 // Ids seen so far, with the source row of their first use. Open addressing over two
@@ -1112,7 +1113,64 @@ RowGroup check_group(const IngestOptions& o, const SourceTable& in, const Catalo
   return group;
 }
 
-using GroupSink = std::function<void(StarTable&&)>;
+// The input's groups of rows, in file order: a FITS table or a text table, read a group
+// at a time so that a large catalog never sits in memory whole.
+class GroupReader {
+ public:
+  explicit GroupReader(const IngestOptions& o)
+      : o_(o), chunk_(static_cast<std::size_t>(o.chunk_rows)) {
+    if (o.input_is_fits)
+      fits_ = std::make_unique<FitsTableReader>(o.input_path, o.hdu);
+    else
+      text_ = std::make_unique<TextTableReader>(o.input_path, o.text);
+  }
+  // The next group; no rows at the end. progress_units: rows (FITS) or bytes (text) taken.
+  SourceTable next(std::size_t& progress_units) {
+    if (fits_) {
+      const auto rows = static_cast<std::size_t>(fits_->rows());
+      if (next_row_ >= rows) {
+        progress_units = 0;
+        return SourceTable{};
+      }
+      SourceTable g = fits_->read(static_cast<std::int64_t>(next_row_), o_.chunk_rows);
+      next_row_ += g.table.rows();
+      progress_units = g.table.rows();
+      return g;
+    }
+    const std::uint64_t before = text_->bytes_read();
+    SourceTable g = text_->read(chunk_);
+    progress_units = static_cast<std::size_t>(text_->bytes_read() - before);
+    return g;
+  }
+  // All the progress units, and the rows to expect: a FITS table's own count, or a text
+  // file's size over the bytes per line of the groups read so far.
+  std::size_t progress_total() const {
+    return fits_ ? static_cast<std::size_t>(fits_->rows())
+                 : static_cast<std::size_t>(text_->file_bytes());
+  }
+  std::size_t expected_rows(std::size_t rows_so_far) const {
+    if (fits_) return static_cast<std::size_t>(fits_->rows());
+    const std::uint64_t read = text_->bytes_read(), all = text_->file_bytes();
+    if (rows_so_far == 0 || read == 0 || read >= all) return rows_so_far;
+    return static_cast<std::size_t>(static_cast<double>(rows_so_far) * static_cast<double>(all) /
+                                    static_cast<double>(read) * 1.02) +
+           1;
+  }
+  const char* row_label() const { return fits_ ? "row" : "line"; }
+  const char* no_rows_message() const {
+    return fits_ ? "the table has no rows" : "the table has no data rows";
+  }
+
+ private:
+  const IngestOptions& o_;
+  std::size_t chunk_;
+  std::unique_ptr<FitsTableReader> fits_;
+  std::unique_ptr<TextTableReader> text_;
+  std::size_t next_row_ = 0;
+};
+
+// Takes the settled groups' accepted rows, in file order, with the rows to expect in all.
+using GroupSink = std::function<void(StarTable&&, std::size_t expected_rows)>;
 
 // Reads, maps and checks the input group by group (FITS groups on every core, one cfitsio
 // read at a time), settles each group's duplicate ids in file order and hands its accepted
@@ -1120,21 +1178,14 @@ using GroupSink = std::function<void(StarTable&&)>;
 // header without rows.
 StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const GroupSink& sink) {
   throw_if_invalid(o.check(), o.config_file);
-  // FITS catalogs are read in groups of rows (a million-row table never sits in memory
-  // twice); text tables whole.
-  std::unique_ptr<FitsTableReader> reader;
-  SourceTable first_chunk;
-  if (o.input_is_fits) {
-    reader = std::make_unique<FitsTableReader>(o.input_path, o.hdu);
-    first_chunk = reader->read(0, o.chunk_rows);
-  } else {
-    first_chunk = read_text_table(o.input_path, o.text);
-  }
-  const std::size_t n =
-      reader ? static_cast<std::size_t>(reader->rows()) : first_chunk.table.rows();
-  if (n == 0) throw InputError({o.input_path, {}, {}}, "empty_file", "the table has no rows");
+  GroupReader input(o);
+  std::size_t first_units = 0;
+  SourceTable first_chunk = input.next(first_units);
+  if (first_chunk.table.rows() == 0)
+    throw InputError({o.input_path, {}, {}}, "empty_file", input.no_rows_message());
+  std::size_t rows_read = first_chunk.table.rows();
+  const std::size_t expected = input.expected_rows(rows_read);
 
-  result.rows_read = n;
   result.provenance = Provenance::for_stage("ingest");
   result.provenance.config_sha256 = o.config_sha256;
   // The input's hash for provenance, on its own thread while the rows are mapped.
@@ -1148,10 +1199,11 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     if (!layout) layout = make_catalog_layout(o, resolve_group(o, in));
     return check_group(o, in, *layout);
   };
-  IdRegistry ids(n);
+  IdRegistry ids(expected);
   std::size_t kept = 0;
   // Drawn on a terminal only: a nightly run under cron stays quiet.
-  Progress progress("ingest " + std::filesystem::path(o.input_path).filename().string(), n);
+  Progress progress("ingest " + std::filesystem::path(o.input_path).filename().string(),
+                    input.progress_total());
   auto settle = [&](RowGroup&& g) {
     std::vector<std::size_t> keep;
     keep.reserve(g.rows.rows());
@@ -1185,91 +1237,113 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     }
     if (dropped) g.rows = g.rows.select_rows(keep);
     kept += g.rows.rows();
-    sink(std::move(g.rows));
-    progress.advance(count);
+    sink(std::move(g.rows), expected);
+    progress.advance(g.progress_units);
   };
-  settle(process(first_chunk));
-  first_chunk = SourceTable{};
-  const auto chunk = static_cast<std::size_t>(o.chunk_rows);
-  const std::size_t groups = reader ? (n + chunk - 1) / chunk : 1;
-  if (groups > 1) {
-    // Workers read (one cfitsio call at a time) and check groups; this thread settles them
-    // in file order and hands them on (writing, when streaming) while the workers go on.
-    std::mutex read_mutex, mutex;
-    std::condition_variable changed;
-    std::map<std::size_t, RowGroup> done;  // checked groups waiting to be settled
-    std::size_t next = 1;                  // the next group to settle
-    bool failed = false;
-    std::exception_ptr worker_error;
-    const int threads = worker_threads(0);
-    // Groups read past the next to settle, at most: memory stays a few groups.
-    const auto ahead = static_cast<std::size_t>(threads) + 1;
-    std::thread workers([&] {
-      try {
-        parallel_for(groups - 1, threads, [&](std::size_t k) {
-          const std::size_t g = k + 1;
-          {
-            std::unique_lock lock(mutex);
-            changed.wait(lock, [&] { return failed || g < next + ahead; });
-            if (failed) return;
-          }
-          SourceTable in;
-          {
-            std::lock_guard lock(read_mutex);
-            in = reader->read(static_cast<std::int64_t>(g * chunk), o.chunk_rows);
-          }
-          RowGroup rows = process(in);
-          std::lock_guard lock(mutex);
-          done.emplace(g, std::move(rows));
-          changed.notify_all();
-        });
-      } catch (...) {
-        std::lock_guard lock(mutex);
-        worker_error = std::current_exception();
-        failed = true;
-        changed.notify_all();
-      }
-    });
+  {
+    RowGroup first = process(first_chunk);
+    first.progress_units = first_units;
+    first_chunk = SourceTable{};
+    settle(std::move(first));
+  }
+  // Workers read groups in file order (one read at a time) and check them; this thread
+  // settles them in that order and hands them on (writing, when streaming) meanwhile.
+  std::mutex read_mutex, mutex;
+  std::condition_variable changed;
+  std::map<std::size_t, RowGroup> done;  // checked groups waiting to be settled
+  std::size_t next = 1;                  // the next group to settle
+  std::size_t next_read = 1;             // the group the next read makes
+  std::optional<std::size_t> groups;     // known once a read finds the end
+  bool failed = false;
+  std::exception_ptr worker_error;
+  const int threads = worker_threads(0);
+  // Groups read past the next to settle, at most: memory stays a few groups.
+  const auto ahead = static_cast<std::size_t>(threads) + 1;
+  auto work = [&] {
     try {
       while (true) {
-        RowGroup rows;
         {
           std::unique_lock lock(mutex);
-          changed.wait(lock, [&] { return failed || next >= groups || done.count(next); });
-          if (failed || next >= groups) break;
-          auto it = done.find(next);
-          rows = std::move(it->second);
-          done.erase(it);
+          changed.wait(lock, [&] { return failed || groups || next_read < next + ahead; });
+          if (failed || groups) return;
         }
-        settle(std::move(rows));
+        SourceTable in;
+        std::size_t g = 0, units = 0;
+        {
+          std::lock_guard lock(read_mutex);
+          {
+            std::lock_guard state(mutex);
+            if (groups) return;
+          }
+          in = input.next(units);
+          std::lock_guard state(mutex);
+          if (in.table.rows() == 0) {
+            groups = next_read;
+            changed.notify_all();
+            return;
+          }
+          g = next_read++;
+        }
+        RowGroup rows = process(in);
+        rows.progress_units = units;
         std::lock_guard lock(mutex);
-        ++next;
+        rows_read += in.table.rows();
+        done.emplace(g, std::move(rows));
         changed.notify_all();
       }
     } catch (...) {
-      {
-        std::lock_guard lock(mutex);
-        failed = true;
-        changed.notify_all();
-      }
-      workers.join();
-      throw;
+      std::lock_guard lock(mutex);
+      if (!worker_error) worker_error = std::current_exception();
+      failed = true;
+      changed.notify_all();
     }
-    workers.join();
-    if (worker_error) std::rethrow_exception(worker_error);
+  };
+  std::vector<std::thread> workers;
+  for (int t = 0; t < threads; ++t) workers.emplace_back(work);
+  auto join_workers = [&] {
+    for (auto& w : workers) w.join();
+  };
+  try {
+    while (true) {
+      RowGroup rows;
+      {
+        std::unique_lock lock(mutex);
+        changed.wait(lock,
+                     [&] { return failed || (groups && next >= *groups) || done.count(next); });
+        if (failed || (groups && next >= *groups && !done.count(next))) break;
+        auto it = done.find(next);
+        rows = std::move(it->second);
+        done.erase(it);
+      }
+      settle(std::move(rows));
+      std::lock_guard lock(mutex);
+      ++next;
+      changed.notify_all();
+    }
+  } catch (...) {
+    {
+      std::lock_guard lock(mutex);
+      failed = true;
+      changed.notify_all();
+    }
+    join_workers();
+    throw;
   }
+  join_workers();
+  if (worker_error) std::rethrow_exception(worker_error);
   progress.finish();
+  result.rows_read = rows_read;
   result.provenance.inputs.push_back(
-      {o.input_path, input_hash.get(), static_cast<std::int64_t>(n)});
+      {o.input_path, input_hash.get(), static_cast<std::int64_t>(rows_read)});
   result.stars = kept;
   if (kept == 0) {
-    std::string first =
-        result.rejected.empty()
-            ? ""
-            : fmt::format(" (first: {} {}: [{}] {})", (reader ? "row" : "line"), result.rejected[0].source_row,
-                          result.rejected[0].rule, result.rejected[0].message);
+    std::string first = result.rejected.empty()
+                            ? ""
+                            : fmt::format(" (first: {} {}: [{}] {})", input.row_label(),
+                                          result.rejected[0].source_row, result.rejected[0].rule,
+                                          result.rejected[0].message);
     throw InputError({o.input_path, {}, {}}, "no_rows_left",
-                     fmt::format("all {} rows were rejected{}", n, first));
+                     fmt::format("all {} rows were rejected{}", rows_read, first));
   }
   return layout->schema;
 }
@@ -1280,7 +1354,7 @@ IngestResult run_ingest(const IngestOptions& o) {
   IngestResult result;
   StarTable& cat = result.catalog;
   bool first = true;
-  StarTable schema = ingest_groups(o, result, [&](StarTable&& rows) {
+  StarTable schema = ingest_groups(o, result, [&](StarTable&& rows, std::size_t) {
     if (first) {
       cat = std::move(rows);
       first = false;
@@ -1295,8 +1369,8 @@ IngestResult run_ingest(const IngestOptions& o) {
 }
 
 IngestResult ingest_catalog_file(const IngestOptions& o) {
-  if (!o.input_is_fits || !o.lightcurves.summary_path.empty()) {
-    // Text tables are read whole anyway; a light-curve join needs the whole catalog.
+  if (!o.lightcurves.summary_path.empty()) {
+    // A light-curve join needs the whole catalog.
     IngestResult result = run_ingest(o);
     write_ingest_products(result, o);
     return result;
@@ -1304,10 +1378,11 @@ IngestResult ingest_catalog_file(const IngestOptions& o) {
   IngestResult result;
   // Made at the first accepted row: a file that fails its first checks leaves nothing.
   std::optional<FitsTableStream> stream;
-  StarTable schema = ingest_groups(o, result, [&](StarTable&& rows) {
+  StarTable schema = ingest_groups(o, result, [&](StarTable&& rows, std::size_t expected) {
     if (rows.rows() == 0) return;
-    // Made with a row for every input row: rows refused are dropped at the end.
-    if (!stream) stream.emplace(o.catalog_path, "CATALOG", static_cast<std::int64_t>(result.rows_read));
+    // Made with a row for every input row expected: rows not used are dropped at the end,
+    // and the table grows past them if a text file's estimate fell short.
+    if (!stream) stream.emplace(o.catalog_path, "CATALOG", static_cast<std::int64_t>(expected));
     stream->append(rows);
   });
   stamp_provenance(schema, result.provenance, "catalog");

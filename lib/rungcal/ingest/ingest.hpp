@@ -90,7 +90,7 @@ struct IngestOptions {
   double ebv_max = 10.0;
   bool require_errors = true;    // a value without its error (magnitude, parallax) rejects the row
   LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
-  std::int64_t chunk_rows = 20000;  // FITS rows read at a time ([source] chunk_rows)
+  std::int64_t chunk_rows = 20000;  // rows or text lines read at a time ([source] chunk_rows)
   std::string catalog_path = "out/catalog.fits";   // the FITS catalog product
   std::string rejects_csv_path;  // human-readable rejects; "" = beside the catalog
   std::string config_file;       // for messages and provenance
@@ -130,8 +130,8 @@ void join_lightcurve_summary(StarTable& catalog, const LightCurveJoin& join, Ing
 
 // Reads, maps and validates; writes nothing. Throws InputError for whole-file problems.
 IngestResult run_ingest(const IngestOptions& options);
-// Runs and writes the products (catalog FITS with CATALOG and REJECTS, rejects CSV). A FITS
-// input without a light-curve join streams: each group of rows goes to the file once
+// Runs and writes the products (catalog FITS with CATALOG and REJECTS, rejects CSV). An
+// input (FITS or text) without a light-curve join streams: each group of rows goes to the file once
 // checked, so the catalog is never whole in memory, and the result's catalog holds its
 // columns and header only (result.stars counts the rows). Otherwise run_ingest, then
 // write_ingest_products.

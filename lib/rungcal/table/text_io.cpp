@@ -5,6 +5,7 @@
 #include <cctype>
 #include <charconv>
 #include <fstream>
+#include <memory>
 #include <set>
 #include <sstream>
 
@@ -138,65 +139,88 @@ std::string TextReadOptions::check() const {
   return "";
 }
 
-SourceTable parse_text_table(const std::string& raw, const std::string& name,
-                             const TextReadOptions& options) {
-  if (std::string err = options.check(); !err.empty())
-    throw InputError({name, {}, {}}, "config_value", err);
-  check_encoding(raw, name);
-  std::string_view content(raw);
-  if (content.substr(0, 3) == "\xEF\xBB\xBF") content.remove_prefix(3);  // UTF-8 BOM
+namespace {
 
+// The line-by-line rules of a text table, shared by the whole-file and the group reader:
+// lines skipped, comments, the header, and each data line's fields.
+class TextLineRules {
+ public:
+  TextLineRules(const TextReadOptions& options, std::string name)
+      : options_(options),
+        name_(std::move(name)),
+        names_(options.column_names),
+        header_done_(!options.has_header) {
+    if (std::string err = options.check(); !err.empty())
+      throw InputError({name_, {}, {}}, "config_value", err);
+  }
+  bool header_done() const { return header_done_; }
+  const std::vector<std::string>& names() const { return names_; }
+
+  // Takes one line (without its newline); a data line's fields go to rows.
+  void take(std::string_view line, std::int64_t line_no,
+            std::vector<std::vector<std::string>>& rows, std::vector<std::int64_t>& source_rows) {
+    if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
+    if (static_cast<std::size_t>(line_no) <= options_.skip_lines) return;
+    std::string trimmed = trim(line);
+    if (trimmed.empty()) return;
+    if (!header_done_) {
+      take_header(trimmed, line_no);
+      return;
+    }
+    if (starts_with(trimmed, options_.comment_prefix)) return;
+    auto fields = split_line(line, options_.delimiter, name_, line_no);
+    if (fields.size() != names_.size())
+      throw InputError(
+          {name_, line_no, {}, "line"}, "field_count",
+          fmt::format("{} fields where the header has {} columns", fields.size(), names_.size()));
+    rows.push_back(std::move(fields));
+    source_rows.push_back(line_no);
+  }
+
+  // Throws when the lines seen hold no header.
+  void require_header() const {
+    if (names_.empty() || !header_done_)
+      throw InputError({name_, {}, {}}, "empty_file",
+                       "no header line found (the file is empty or all comments)");
+  }
+
+ private:
+  void take_header(const std::string& trimmed, std::int64_t line_no) {
+    const bool is_header = options_.header_prefix.empty()
+                               ? !starts_with(trimmed, options_.comment_prefix)
+                               : starts_with(trimmed, options_.header_prefix);
+    if (!is_header) return;  // comment lines before the header
+    std::string_view h = trimmed;
+    h.remove_prefix(options_.header_prefix.size());
+    names_ = split_line(h, options_.delimiter, name_, line_no);
+    std::set<std::string> seen;
+    for (auto& n : names_) {
+      n = trim(n);
+      if (n.empty())
+        throw InputError({name_, line_no, {}, "line"}, "duplicate_column",
+                         "the header has an empty column name");
+      if (!seen.insert(n).second)
+        throw InputError({name_, line_no, n, "line"}, "duplicate_column",
+                         "the header names this column twice");
+    }
+    header_done_ = true;
+  }
+
+  const TextReadOptions& options_;
+  std::string name_;
+  std::vector<std::string> names_;
+  bool header_done_;
+};
+
+// Rows of fields as a table of text columns; missing markers become nulls.
+SourceTable text_source_table(const std::string& name, const std::vector<std::string>& names,
+                              std::vector<std::vector<std::string>>& rows,
+                              std::vector<std::int64_t> source_rows,
+                              const TextReadOptions& options) {
   SourceTable out;
   out.file = name;
   out.row_label = "line";
-  std::vector<std::string> names = options.column_names;
-  bool header_done = !options.has_header;
-  std::vector<std::vector<std::string>> rows;
-
-  std::int64_t line_no = 0;
-  std::size_t pos = 0;
-  while (pos < content.size()) {
-    std::size_t end = content.find('\n', pos);
-    if (end == std::string_view::npos) end = content.size();
-    std::string_view line = content.substr(pos, end - pos);
-    pos = end + 1;
-    ++line_no;
-    if (!line.empty() && line.back() == '\r') line.remove_suffix(1);
-    if (static_cast<std::size_t>(line_no) <= options.skip_lines) continue;
-    std::string trimmed = trim(line);
-    if (trimmed.empty()) continue;
-
-    if (!header_done) {
-      bool is_header = options.header_prefix.empty() ? !starts_with(trimmed, options.comment_prefix)
-                                                     : starts_with(trimmed, options.header_prefix);
-      if (!is_header) continue;  // comment lines before the header
-      std::string_view h = trimmed;
-      h.remove_prefix(options.header_prefix.size());
-      names = split_line(h, options.delimiter, name, line_no);
-      std::set<std::string> seen;
-      for (auto& n : names) {
-        n = trim(n);
-        if (n.empty())
-          throw InputError({name, line_no, {}, "line"}, "duplicate_column", "the header has an empty column name");
-        if (!seen.insert(n).second)
-          throw InputError({name, line_no, n, "line"}, "duplicate_column", "the header names this column twice");
-      }
-      header_done = true;
-      continue;
-    }
-    if (starts_with(trimmed, options.comment_prefix)) continue;
-    auto fields = split_line(line, options.delimiter, name, line_no);
-    if (fields.size() != names.size()) {
-      throw InputError({name, line_no, {}, "line"}, "field_count",
-                       fmt::format("{} fields where the header has {} columns", fields.size(), names.size()));
-    }
-    rows.push_back(std::move(fields));
-    out.source_rows.push_back(line_no);
-  }
-  if (names.empty() || (options.has_header && !header_done))
-    throw InputError({name, {}, {}}, "empty_file", "no header line found (the file is empty or all comments)");
-  if (rows.empty()) throw InputError({name, {}, {}}, "empty_file", "the table has no data rows");
-
+  out.source_rows = std::move(source_rows);
   for (std::size_t c = 0; c < names.size(); ++c) {
     Column& col = out.table.add_column(names[c], ColumnType::kText);
     col.text.clear();
@@ -207,13 +231,148 @@ SourceTable parse_text_table(const std::string& raw, const std::string& name,
       if (!v.empty() && (std::isspace(static_cast<unsigned char>(v.front())) ||
                          std::isspace(static_cast<unsigned char>(v.back()))))
         v = trim(v);  // a quoted field keeps its spaces until here
-      bool missing = v.empty() || std::find(options.missing.begin(), options.missing.end(), v) != options.missing.end();
-      if (missing) col.push_null();
-      else col.push_text(std::move(v));
+      bool missing = v.empty() || std::find(options.missing.begin(), options.missing.end(), v) !=
+                                      options.missing.end();
+      if (missing)
+        col.push_null();
+      else
+        col.push_text(std::move(v));
     }
   }
   return out;
 }
+
+}  // namespace
+
+SourceTable parse_text_table(const std::string& raw, const std::string& name,
+                             const TextReadOptions& options) {
+  TextLineRules rules(options, name);
+  check_encoding(raw, name);
+  std::string_view content(raw);
+  if (content.substr(0, 3) == "\xEF\xBB\xBF") content.remove_prefix(3);  // UTF-8 BOM
+  std::vector<std::vector<std::string>> rows;
+  std::vector<std::int64_t> source_rows;
+  std::int64_t line_no = 0;
+  std::size_t pos = 0;
+  while (pos < content.size()) {
+    std::size_t end = content.find('\n', pos);
+    if (end == std::string_view::npos) end = content.size();
+    rules.take(content.substr(pos, end - pos), ++line_no, rows, source_rows);
+    pos = end + 1;
+  }
+  rules.require_header();
+  if (rows.empty()) throw InputError({name, {}, {}}, "empty_file", "the table has no data rows");
+  return text_source_table(name, rules.names(), rows, std::move(source_rows), options);
+}
+
+struct TextTableReader::Impl {
+  Impl(const std::string& path, const TextReadOptions& o)
+      : options(o), path_(path), rules(options, path), in(path, std::ios::binary) {}
+  TextReadOptions options;
+  std::string path_;
+  TextLineRules rules;  // holds a reference to options
+  std::ifstream in;
+  std::string buffer;   // bytes read and not yet taken as lines
+  std::size_t pos = 0;  // where the next line starts in buffer
+  std::int64_t line_no = 0;
+  std::uint64_t bytes_taken = 0;
+  bool at_end = false;  // the file is read to its end
+  bool first_block = true;
+
+  // The next line without its newline; false at the end of the file.
+  bool next_line(std::string_view& line) {
+    while (true) {
+      const std::size_t end = buffer.find('\n', pos);
+      if (end != std::string::npos) {
+        line = std::string_view(buffer).substr(pos, end - pos);
+        bytes_taken += end + 1 - pos;
+        pos = end + 1;
+        ++line_no;
+        return true;
+      }
+      if (at_end) {
+        if (pos >= buffer.size()) return false;
+        line = std::string_view(buffer).substr(pos);  // no final newline
+        bytes_taken += buffer.size() - pos;
+        pos = buffer.size();
+        ++line_no;
+        return true;
+      }
+      read_block();
+    }
+  }
+
+  void read_block() {
+    constexpr std::size_t kBlock = 1u << 20;
+    buffer.erase(0, pos);
+    pos = 0;
+    const std::size_t kept = buffer.size();
+    buffer.resize(kept + kBlock);
+    in.read(buffer.data() + kept, static_cast<std::streamsize>(kBlock));
+    const auto got = static_cast<std::size_t>(in.gcount());
+    buffer.resize(kept + got);
+    if (!in) {
+      if (!in.eof())
+        throw InputError({rules_name(), {}, {}}, "unreadable_file",
+                         "the file could not be read to its end");
+      at_end = true;
+    }
+    check_block(kept);
+  }
+
+  // The encoding rules of check_encoding, for the bytes just read.
+  void check_block(std::size_t from) {
+    std::string_view fresh = std::string_view(buffer).substr(from);
+    if (first_block) {
+      first_block = false;
+      check_encoding(std::string(fresh.substr(0, 4)), rules_name());
+      if (fresh.substr(0, 3) == "\xEF\xBB\xBF") {  // UTF-8 BOM
+        buffer.erase(from, 3);
+        bytes_taken += 3;
+        fresh = std::string_view(buffer).substr(from);
+      }
+    }
+    const std::size_t nul = fresh.find('\0');
+    if (nul == std::string_view::npos) return;
+    const std::string_view before = std::string_view(buffer).substr(pos, from + nul - pos);
+    const std::int64_t line = line_no + 1 + std::count(before.begin(), before.end(), '\n');
+    throw InputError(
+        {rules_name(), line, {}, "line"}, "encoding",
+        "the file holds NUL bytes: it is not a text table (a FITS file given as text?)");
+  }
+  const std::string& rules_name() const { return path_; }
+};
+
+TextTableReader::TextTableReader(const std::string& path, const TextReadOptions& options)
+    : impl_(std::make_unique<Impl>(path, options)) {
+  Impl& m = *impl_;
+  if (!m.in)
+    throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
+  m.in.seekg(0, std::ios::end);
+  const std::streamoff size = m.in.tellg();
+  m.in.seekg(0, std::ios::beg);
+  file_bytes_ = size > 0 ? static_cast<std::uint64_t>(size) : 0;
+  // Up to the header: the data lines come in groups.
+  std::vector<std::vector<std::string>> none;
+  std::vector<std::int64_t> no_rows;
+  std::string_view line;
+  while (!m.rules.header_done() && m.next_line(line)) m.rules.take(line, m.line_no, none, no_rows);
+  m.rules.require_header();
+}
+
+TextTableReader::~TextTableReader() = default;
+
+SourceTable TextTableReader::read(std::size_t max_rows) {
+  Impl& m = *impl_;
+  std::vector<std::vector<std::string>> rows;
+  std::vector<std::int64_t> source_rows;
+  std::string_view line;
+  while (rows.size() < max_rows && m.next_line(line))
+    m.rules.take(line, m.line_no, rows, source_rows);
+  return text_source_table(m.path_, m.rules.names(), rows, std::move(source_rows), m.options);
+}
+
+std::uint64_t TextTableReader::bytes_read() const { return impl_->bytes_taken; }
 
 SourceTable read_text_table(const std::string& path, const TextReadOptions& options) {
   std::ifstream in(path, std::ios::binary);

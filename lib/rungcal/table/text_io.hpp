@@ -1,6 +1,8 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <cstdint>
+#include <memory>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -49,6 +51,27 @@ struct TextReadOptions {
 SourceTable read_text_table(const std::string& path, const TextReadOptions& options);
 SourceTable parse_text_table(const std::string& content, const std::string& name,
                              const TextReadOptions& options);
+
+// Reads a delimited text table group by group in file order, holding one group's rows in
+// memory: the rules and errors of read_text_table, an error in a later line surfacing when
+// its group is read. The constructor reads up to the header ("empty_file" when none).
+class TextTableReader {
+ public:
+  TextTableReader(const std::string& path, const TextReadOptions& options);
+  ~TextTableReader();
+  TextTableReader(const TextTableReader&) = delete;
+  TextTableReader& operator=(const TextTableReader&) = delete;
+  // The next data rows, at most max_rows; a table with the columns and no rows at the end.
+  SourceTable read(std::size_t max_rows);
+  // Bytes of the file taken so far, and in all (0 when not seekable): for progress.
+  std::uint64_t bytes_read() const;
+  std::uint64_t file_bytes() const { return file_bytes_; }
+
+ private:
+  struct Impl;
+  std::unique_ptr<Impl> impl_;
+  std::uint64_t file_bytes_ = 0;
+};
 
 // A whole field as a number, as the C library reads it (decimal or exponent form, inf,
 // nan), also with a leading '+', which published tables use; false for anything else,
