@@ -379,8 +379,7 @@ const std::string* text_ref(const Resolved& r, std::size_t row, std::string& scr
 // Output columns filled for the accepted input rows at once, column by column.
 template <class ValueAt>
 void fill_reals(Column& out, std::size_t n, const ValueAt& value) {
-  out.real.resize(n);
-  out.null.resize(n);
+  out.resize(n);
   for (std::size_t k = 0; k < n; ++k) {
     const double v = value(k);
     out.real[k] = v;
@@ -389,8 +388,7 @@ void fill_reals(Column& out, std::size_t n, const ValueAt& value) {
 }
 template <class TextAt>
 void fill_texts(Column& out, std::size_t n, const TextAt& value) {
-  out.text.resize(n);
-  out.null.resize(n);
+  out.resize(n);
   for (std::size_t k = 0; k < n; ++k) {
     const std::string* v = value(k);
     if (v) out.text[k] = *v;
@@ -398,40 +396,26 @@ void fill_texts(Column& out, std::size_t n, const TextAt& value) {
   }
 }
 void fill_selected(Column& out, const Column& src, const std::vector<std::size_t>& rows) {
-  const std::size_t n = rows.size();
-  out.null.resize(n);
-  switch (src.type) {
-    case ColumnType::kReal:
-      out.real.resize(n);
-      break;
-    case ColumnType::kInteger:
-      out.integer.resize(n);
-      break;
-    case ColumnType::kText:
-      out.text.resize(n);
-      break;
-    case ColumnType::kBoolean:
-      out.boolean.resize(n);
-      break;
-  }
-  for (std::size_t k = 0; k < n; ++k) {
+  out.resize(rows.size());  // every row null, as push_null leaves it
+  for (std::size_t k = 0; k < rows.size(); ++k) {
     const std::size_t r = rows[k];
-    out.null[k] = src.null[r];
+    if (src.null[r]) continue;
     switch (src.type) {
       case ColumnType::kReal:
-        out.real[k] = src.null[r] ? std::numeric_limits<double>::quiet_NaN() : src.real[r];
-        if (std::isnan(out.real[k])) out.null[k] = 1;
+        if (std::isnan(src.real[r])) continue;  // as push_real: NaN is a null
+        out.real[k] = src.real[r];
         break;
       case ColumnType::kInteger:
-        out.integer[k] = src.null[r] ? 0 : src.integer[r];
+        out.integer[k] = src.integer[r];
         break;
       case ColumnType::kText:
-        if (!src.null[r]) out.text[k] = src.text[r];
+        out.text[k] = src.text[r];
         break;
       case ColumnType::kBoolean:
-        out.boolean[k] = src.null[r] ? 0 : (src.boolean[r] != 0);
+        out.boolean[k] = src.boolean[r] != 0;
         break;
     }
+    out.null[k] = 0;
   }
 }
 
@@ -855,7 +839,13 @@ struct AcceptedRow {
 class GroupChecks {
  public:
   GroupChecks(const IngestOptions& o, const GroupMapping& m, std::size_t rows)
-      : o_(o), m_(m), periods_(m.at("period"), rows) {
+      : o_(o),
+        m_(m),
+        q_id_(m.at("id")),
+        q_period_(m.at("period")),
+        q_mode_(m.at("mode")),
+        q_class_(m.at("pulsator_class")),
+        periods_(q_period_, rows) {
     for (const auto& [k, res] : m.quantities) {
       if (find_quantity(k)->type == ColumnType::kText || k == "period") continue;
       slot_of_[k] = static_cast<int>(numbers_.size());
@@ -877,10 +867,9 @@ class GroupChecks {
   // Checks row r; throws the first rule it breaks as a RowReject. id is set as soon as the
   // row's id is known, for the reject.
   AcceptedRow check(std::size_t r, const std::string*& id) {
-    const Resolved& q_id = m_.at("id");
-    id = text_ref(q_id, r, id_scratch_);
+    id = text_ref(q_id_, r, id_scratch_);
     if (!id || id->empty())
-      throw RowReject{"missing_required", q_id.column_name, "the star has no id"};
+      throw RowReject{"missing_required", q_id_.column_name, "the star has no id"};
     check_period(r);
     for (std::size_t s = 0; s < o_.selection.size(); ++s)
       if (!select_row(o_.selection[s], *m_.select_columns[s], r))
@@ -914,7 +903,7 @@ class GroupChecks {
   }
 
   void check_period(std::size_t r) const {
-    const Resolved& q = m_.at("period");
+    const Resolved& q = q_period_;
     auto period = periods_.at(r);
     if (!period) throw RowReject{"missing_required", q.column_name, "the star has no period"};
     if (*period <= 0)
@@ -925,7 +914,7 @@ class GroupChecks {
   // The canonical mode (or class) of row r. Spellings repeat from row to row: each distinct
   // one is looked up once per group.
   const std::string& canonical(bool is_mode, std::size_t r) {
-    const Resolved& q = m_.at(is_mode ? "mode" : "pulsator_class");
+    const Resolved& q = is_mode ? q_mode_ : q_class_;
     const std::string* text = text_ref(q, r, is_mode ? mode_scratch_ : class_scratch_);
     if (!text)
       throw RowReject{
@@ -1009,6 +998,7 @@ class GroupChecks {
 
   const IngestOptions& o_;
   const GroupMapping& m_;
+  const Resolved &q_id_, &q_period_, &q_mode_, &q_class_;  // looked up once, used every row
   PreparedNumbers periods_;
   std::vector<PreparedNumbers> numbers_;  // the numeric quantities but the period
   std::map<std::string, int> slot_of_;    // quantity -> index in numbers_
@@ -1036,9 +1026,11 @@ StarTable catalog_rows(const CatalogLayout& l, const GroupMapping& m, const Grou
   };
   fill_texts(table.column(l.id), n, text_of(m.at("id")));
   Column& source_row = table.column(l.source_row);
-  source_row.integer.resize(n);
-  source_row.null.assign(n, 0);
-  for (std::size_t k = 0; k < n; ++k) source_row.integer[k] = in.source_rows[rows[k]];
+  source_row.resize(n);
+  for (std::size_t k = 0; k < n; ++k) {
+    source_row.integer[k] = in.source_rows[rows[k]];
+    source_row.null[k] = 0;
+  }
   fill_reals(table.column(l.period), n, number_of(checks.periods()));
   fill_reals(table.column(l.log_period), n,
              [&](std::size_t k) { return std::log10(checks.periods().value_or_nan(rows[k])); });
@@ -1051,8 +1043,7 @@ StarTable catalog_rows(const CatalogLayout& l, const GroupMapping& m, const Grou
     } else if (find_quantity(key)->type == ColumnType::kText) {
       fill_texts(out, n, text_of(m.at(key)));
     } else if (key == "astrometric_params") {
-      out.integer.resize(n);
-      out.null.resize(n);
+      out.resize(n);
       for (std::size_t k = 0; k < n; ++k) {
         out.integer[k] = accepted[k].astrometric.value_or(0);
         out.null[k] = accepted[k].astrometric ? 0 : 1;

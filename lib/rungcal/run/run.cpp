@@ -158,15 +158,14 @@ class RunState {
 // a version published by hand). When it is, outcome gets the largest shift, in sigma, from
 // the version last reported (else from the one the latest replaced). Returns the latest
 // version's content hash.
-std::string note_if_new(const RunOptions& o, const std::pair<int, std::string>& announced,
-                        RunOutcome& outcome) {
+std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
+                        const std::pair<int, std::string>& announced, RunOutcome& outcome) {
   const Calibration latest =
       load_calibration(o.store, fmt::format("{}@{}", o.calibration, outcome.version));
   const std::string sha = latest.document.value("content_sha256", "");
   if (announced == std::make_pair(outcome.version, sha)) return sha;
   outcome.new_version = true;
   std::optional<Calibration> baseline;
-  const std::vector<int> versions = calibration_versions(o.store, o.calibration);
   const bool announced_kept =
       std::find(versions.begin(), versions.end(), announced.first) != versions.end();
   if (announced.first > 0 && announced_kept) {
@@ -463,7 +462,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
   outcome.version = versions.empty() ? 0 : versions.back();
   std::string latest_sha;
   if (outcome.version > 0 && !o.dry_run)
-    latest_sha = note_if_new(o, state.announced(o.calibration), outcome);
+    latest_sha = note_if_new(o, versions, state.announced(o.calibration), outcome);
   auto join = [](const std::vector<std::string>& v) {
     std::string s;
     for (const auto& x : v) s += (s.empty() ? "" : ", ") + x;
