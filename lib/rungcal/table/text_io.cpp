@@ -313,7 +313,7 @@ struct TextTableReader::Impl {
     buffer.resize(kept + got);
     if (!in) {
       if (!in.eof())
-        throw InputError({rules_name(), {}, {}}, "unreadable_file",
+        throw InputError({path_, {}, {}}, "unreadable_file",
                          "the file could not be read to its end");
       at_end = true;
     }
@@ -325,7 +325,7 @@ struct TextTableReader::Impl {
     std::string_view fresh = std::string_view(buffer).substr(from);
     if (first_block) {
       first_block = false;
-      check_encoding(std::string(fresh.substr(0, 4)), rules_name());
+      check_encoding(std::string(fresh.substr(0, 4)), path_);
       if (fresh.substr(0, 3) == "\xEF\xBB\xBF") {  // UTF-8 BOM
         buffer.erase(from, 3);
         bytes_taken += 3;
@@ -337,10 +337,9 @@ struct TextTableReader::Impl {
     const std::string_view before = std::string_view(buffer).substr(pos, from + nul - pos);
     const std::int64_t line = line_no + 1 + std::count(before.begin(), before.end(), '\n');
     throw InputError(
-        {rules_name(), line, {}, "line"}, "encoding",
+        {path_, line, {}, "line"}, "encoding",
         "the file holds NUL bytes: it is not a text table (a FITS file given as text?)");
   }
-  const std::string& rules_name() const { return path_; }
 };
 
 TextTableReader::TextTableReader(const std::string& path, const TextReadOptions& options)
