@@ -21,6 +21,7 @@
 #include "rungcal/core/progress.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/core/random.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
@@ -98,8 +99,11 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, 
     a.conservativeResize(a.size() + 1);
     a[a.size() - 1] = v;
   };
-  auto push = [&grow](FitData::Common& common, double x, double xl, double feh, double m0, double var, std::size_t row) {
+  double var_feh = 0.0;  // the current row's [Fe/H] error squared, kept when the term is on
+  auto push = [&grow, &var_feh, &rel](FitData::Common& common, double x, double xl, double feh, double m0, double var,
+                                      std::size_t row) {
     grow(common.x, x), grow(common.xl, xl), grow(common.feh, feh), grow(common.m0, m0), grow(common.var_m, var);
+    if (rel.metallicity) grow(common.var_feh, var_feh);
     common.row.push_back(row);
   };
 
@@ -130,6 +134,8 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, 
     if (rel.metallicity) {
       feh = value_or_nan(cat, col::kFeh, r);
       if (!std::isfinite(feh)) { refuse("no [Fe/H] for the metallicity term"); continue; }
+      const double feh_err = value_or_nan(cat, col::kFehErr, r);
+      var_feh = std::isfinite(feh_err) && feh_err > 0 ? feh_err * feh_err : 0.0;
     }
     double x = logp - rel.pivot_log_period;
     double xl = rel.break_log_period ? std::max(0.0, logp - *rel.break_log_period) : 0.0;
@@ -200,6 +206,12 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel, 
   return c;
 }
 
+bool has_feh_errors(const FitData& d) {
+  for (const FitData::Common* c : {&d.parallax, &d.known, &d.anchor})
+    if (c->var_feh.size() && (c->var_feh > 0).any()) return true;
+  return false;
+}
+
 FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const ParameterLayout& L) {
   FitSettings s;
   s.space = o.space;
@@ -211,13 +223,46 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const 
   s.terms.break_log_period = rel.break_log_period.value_or(0.0);
   s.terms.has_metallicity = rel.metallicity;
   s.terms.n_anchors = static_cast<int>(o.anchors.size());
+  s.terms.hierarchical = L.outlier >= 0;
+  s.terms.feh_errors = L.feh_mean >= 0;
+  s.hierarchical = o.hierarchical;
   s.params.assign(L.size, ParamSpec{});
+  s.params[L.alpha] = rel.alpha;
   s.params[L.beta] = rel.slope;
+  if (L.beta_long >= 0) s.params[L.beta_long] = rel.slope_long;
+  if (L.gamma >= 0) s.params[L.gamma] = rel.gamma;
   s.params[L.offset] = o.offset;
   s.params[L.sigma] = o.scatter;
   for (std::size_t g = 0; g < o.anchors.size(); ++g)
     s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchors[g].mu_err, true};
+  if (s.terms.hierarchical) {
+    s.params[L.outlier] = o.outlier_fraction;
+  }
+  if (L.distance_scale >= 0) {
+    s.params[L.distance_scale] = o.distance_scale;
+    s.params[L.distance_power] = o.distance_power;
+    s.params[L.distance_exponent] = o.distance_exponent;
+    // The space-density family is the generalised gamma with k = 2, a = 1 (distance_prior.hpp).
+    if (o.hierarchical.prior == DistancePriorFamily::kSpaceDensity) {
+      if (o.distance_power.mode == ParamMode::kFree && !o.distance_power.has_start)
+        s.params[L.distance_power] = ParamSpec{ParamMode::kFixed, 2.0, 0, true};
+      if (o.distance_exponent.mode == ParamMode::kFree && !o.distance_exponent.has_start)
+        s.params[L.distance_exponent] = ParamSpec{ParamMode::kFixed, 1.0, 0, true};
+    }
+  }
+  if (s.terms.feh_errors) {
+    s.params[L.feh_mean] = o.feh_mean;
+    s.params[L.feh_spread] = o.feh_spread;
+  }
   return s;
+}
+
+// Parameters nothing in the data can constrain are held where they start, and said so.
+void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
+  const ParameterLayout& L = rr.layout;
+  if (L.distance_scale >= 0 && c.data.parallax.size() == 0)
+    for (int j : {L.distance_scale, L.distance_power, L.distance_exponent})
+      rr.settings.params[j] = ParamSpec{ParamMode::kFixed, j == L.distance_scale ? 1.0 : (j == L.distance_power ? 2.0 : 1.0), 0, true};
 }
 
 // Data rows with nothing to constrain a parameter make the fit degenerate; say so plainly.
@@ -245,9 +290,12 @@ void fill_star_residuals(RelationResult& rr, const Calibrators& c) {
     s.residual = res.r[static_cast<Eigen::Index>(i)];
     s.model_abs_mag = res.model_abs_mag[static_cast<Eigen::Index>(i)];
     s.predicted = res.predicted[static_cast<Eigen::Index>(i)];
+    if (res.membership.size()) s.membership = res.membership[static_cast<Eigen::Index>(i)];
   }
   rr.chi2 = res.r.square().sum();
   rr.neg2_log_likelihood = (res.r.square() + (2.0 * std::numbers::pi * res.s2).log()).sum();
+  if (rr.settings.space == FitSpace::kHierarchical)
+    rr.neg2_log_likelihood = 2.0 * hierarchical_value(c.data, rr.settings, rr.layout, rr.solution.theta).neg_log_likelihood;
   rr.n_used = static_cast<int>(order.size());
   rr.n_free = 0;
   for (const auto& p : rr.settings.params) rr.n_free += p.mode == ParamMode::kFixed ? 0 : 1;
@@ -325,11 +373,25 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
       for (std::size_t k = 0; k < members.size(); ++k) ai.push_back(members[rng.below(members.size())]);
     }
     FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
-    FitSolution s = solve_fit(sample, settings, rr.layout, gauss_newton_start(sample, settings, rr.layout, rr.solution.theta));
+    // Each prior's centre is redrawn from its own Gaussian, so the resamples carry the
+    // prior's uncertainty as the covariance does (method brief, section 4b).
+    FitSettings drawn = settings;
+    for (auto& p : drawn.params)
+      if (p.mode == ParamMode::kPrior) p.value = rng.normal(p.value, p.prior_sigma);
+    FitSolution s = solve_fit(sample, drawn, rr.layout, gauss_newton_start(sample, drawn, rr.layout, rr.solution.theta));
     if (!s.usable) return std::nullopt;
     return s.theta;
   };
   rr.bootstrap = parallel_bootstrap(o, rr.layout.size, rr.relation.name, solve, rr.bootstrap_failed);
+}
+
+std::string undetermined_reason(const std::string& name, double value) {
+  if (name == "outlier_fraction")
+    return fmt::format("outlier_fraction = {:.2g}: the data hold no outliers to measure it by; it has no error", value);
+  if (name == "sigma_int" && value < 1e-3)
+    return fmt::format("sigma_int = {:.2g} mag, on its lower bound: consistent with no intrinsic scatter; it has no error", value);
+  return "sigma_int cannot be estimated under a redescending (tukey) loss, which gives distant stars no weight: "
+         "it is not reported as fitted; fix it, or use another loss";
 }
 
 double percentile(std::vector<double> v, double q) {
@@ -483,6 +545,24 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
 
 }  // namespace
 
+namespace {
+// A parameter's fixed value or prior must be finite and, where the parameter has a domain,
+// inside it (lower < value, or lower <= value when closed; value < upper).
+std::string check_domain(const std::string& key, const ParamSpec& p,
+                         double lower = -std::numeric_limits<double>::infinity(), bool closed = false,
+                         double upper = std::numeric_limits<double>::infinity()) {
+  if (p.mode == ParamMode::kPrior && !(p.prior_sigma > 0 && std::isfinite(p.prior_sigma)))
+    return key + ": a prior needs a finite sigma > 0";
+  if (!std::isfinite(p.value)) return key + ": the value must be finite";
+  if (p.mode == ParamMode::kFree && !p.has_start) return "";
+  const bool above = closed ? p.value >= lower : p.value > lower;
+  if (!above || !(p.value < upper))
+    return fmt::format("{}: {} is outside the parameter's domain ({} {}, below {})", key, p.value,
+                       closed ? ">=" : ">", lower, upper);
+  return "";
+}
+}  // namespace
+
 std::string FitOptions::check() const {
   if (input_path.empty()) return "fit.input: required";
   if (output_path.empty()) return "fit.output: required";
@@ -493,9 +573,34 @@ std::string FitOptions::check() const {
   if (zero_point == ZeroPointRecipe::kLindegren2021 && (zero_point_table_5p.empty() || zero_point_table_6p.empty()))
     return "fit.zero_point_table_5p: both Lindegren et al. 2021 tables are required for that recipe";
   if (inflation == InflationRecipe::kConstant && !(inflation_factor > 0)) return "fit.inflation_factor: must be positive";
-  if (scatter.mode == ParamMode::kPrior) return "fit.scatter: free or fixed only";
+  const bool hier = space == FitSpace::kHierarchical;
+  if (hier && loss != LossKind::kNone)
+    return "fit.loss: the hierarchical likelihood takes outliers as a mixture component (outlier_fraction); a robust "
+           "loss applies to space = \"parallax\", \"magnitude\" or \"abl\"";
+  if (scatter.mode == ParamMode::kPrior && !hier) return "fit.scatter: free or fixed only, except in the hierarchical model";
+  if (std::string e = check_domain("fit.scatter", scatter, 0.0, true); !e.empty()) return e;
+  if (std::string e = check_domain("fit.offset", offset); !e.empty()) return e;
+  if (std::string e = check_domain("fit.outlier_fraction", outlier_fraction, 0.0, true, 1.0); !e.empty()) return e;
+  if (std::string e = check_domain("fit.distance_scale_kpc", distance_scale, 0.0, false); !e.empty()) return e;
+  if (std::string e = check_domain("fit.distance_power", distance_power, -1.0, false); !e.empty()) return e;
+  if (std::string e = check_domain("fit.distance_exponent", distance_exponent, 0.0, false); !e.empty()) return e;
+  if (std::string e = check_domain("fit.feh_mean", feh_mean); !e.empty()) return e;
+  if (std::string e = check_domain("fit.feh_spread", feh_spread, 0.0, false); !e.empty()) return e;
+  if (!(hierarchical.histogram_step >= 0.1 && hierarchical.histogram_step <= 2.0))
+    return "fit.histogram_step_mag: must be 0.1 to 2 mag";
+  if (!(hierarchical.histogram_walk_sigma > 0.05 && hierarchical.histogram_walk_sigma <= 100))
+    return "fit.histogram_smoothing: must be above 0.05 and at most 100";
+  if (!(hierarchical.histogram_margin >= 0 && hierarchical.histogram_margin <= 5))
+    return "fit.histogram_margin_mag: must be 0 to 5 mag";
+  if (!(hierarchical.quadrature_nodes >= 8 && hierarchical.quadrature_nodes <= 128))
+    return "fit.quadrature_nodes: must be 8 to 128";
+  if (!(hierarchical.outlier_mag_width > 0 && hierarchical.outlier_mag_width < 100))
+    return "fit.outlier_mag_width: must be positive (mag) and below 100";
+  if (!(std::abs(hierarchical.outlier_mag_shift) < 100)) return "fit.outlier_mag_shift: must be finite, |shift| < 100 mag";
+  if (!(hierarchical.outlier_parallax_factor >= 1 && hierarchical.outlier_parallax_factor < 1e6))
+    return "fit.outlier_parallax_factor: must be 1 or more";
   if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
-  if (joint && space != FitSpace::kParallax) return "fit.joint: the joint fit works in parallax space";
+  if (joint && space != FitSpace::kParallax && !hier) return "fit.joint: the joint fit works in parallax space";
   if (!(joint_scatter_correlation >= 0.0 && joint_scatter_correlation < 1.0))
     return "fit.joint_scatter_correlation: must be in [0, 1)";
   if (joint_shared_slope) {
@@ -506,7 +611,16 @@ std::string FitOptions::check() const {
   }
   for (const auto& r : relations) {
     if (r.band.empty() && r.magnitude_column.empty()) return "relation.band: required";
-    if (r.slope.mode == ParamMode::kPrior && !(r.slope.prior_sigma > 0)) return "relation.slope: a prior needs sigma > 0";
+    if (!std::isfinite(r.pivot_log_period) || std::abs(r.pivot_log_period) > 10)
+      return "relation.pivot_log_period: must be finite, |log P0| <= 10";
+    if (r.break_log_period && !(std::abs(*r.break_log_period) <= 10))
+      return "relation.break_log_period: must be finite, |log Pb| <= 10";
+    for (const auto& [key, spec] : {std::pair{"relation.alpha", &r.alpha}, std::pair{"relation.slope", &r.slope},
+                                    std::pair{"relation.beta_long", &r.slope_long}, std::pair{"relation.gamma", &r.gamma}})
+      if (std::string e = check_domain(key, *spec); !e.empty()) return e;
+    if (!hier && r.alpha.mode != ParamMode::kFree) return "relation.alpha: fixed or prior only in the hierarchical model";
+    if (!hier && (r.gamma.mode != ParamMode::kFree || r.slope_long.mode != ParamMode::kFree))
+      return "relation.gamma: fixed or prior only in the hierarchical model";
     if (!(r.min_log_period < r.max_log_period)) return "relation.log_period_range: minimum must be below maximum";
     for (const auto& m : r.modes)
       if (!kPulsationModeNames.parse(m)) return "relation.modes: unknown mode '" + m + "'";
@@ -544,6 +658,20 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.use_known_mu = f->bool_or("use_known_distance", o.use_known_mu);
   o.offset = param_from(*f, "offset", o.offset);
   o.scatter = param_from(*f, "scatter", o.scatter);
+  o.hierarchical.prior = choice_or(*f, "distance_prior", kDistancePriorNames, o.hierarchical.prior);
+  o.hierarchical.histogram_step = f->number_or("histogram_step_mag", o.hierarchical.histogram_step);
+  o.hierarchical.histogram_walk_sigma = f->number_or("histogram_smoothing", o.hierarchical.histogram_walk_sigma);
+  o.hierarchical.histogram_margin = f->number_or("histogram_margin_mag", o.hierarchical.histogram_margin);
+  o.hierarchical.quadrature_nodes = static_cast<int>(f->integer_or("quadrature_nodes", o.hierarchical.quadrature_nodes));
+  o.hierarchical.outlier_mag_width = f->number_or("outlier_mag_width", o.hierarchical.outlier_mag_width);
+  o.hierarchical.outlier_mag_shift = f->number_or("outlier_mag_shift", o.hierarchical.outlier_mag_shift);
+  o.hierarchical.outlier_parallax_factor = f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
+  o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
+  o.distance_scale = param_from(*f, "distance_scale_kpc", o.distance_scale);
+  o.distance_power = param_from(*f, "distance_power", o.distance_power);
+  o.distance_exponent = param_from(*f, "distance_exponent", o.distance_exponent);
+  o.feh_mean = param_from(*f, "feh_mean", o.feh_mean);
+  o.feh_spread = param_from(*f, "feh_spread", o.feh_spread);
   o.scatter_estimator = choice_or(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
   o.joint = f->bool_or("joint", o.joint);
   o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
@@ -559,7 +687,10 @@ FitOptions fit_options_from_file(const std::string& path) {
     rel.error_column = r.string_or("error_column", "");
     if (rel.name.empty()) rel.name = rel.magnitude_column;
     rel.pivot_log_period = r.number_or("pivot_log_period", rel.pivot_log_period);
+    rel.alpha = param_from(r, "alpha", rel.alpha);
     rel.slope = param_from(r, "slope", rel.slope);
+    rel.slope_long = param_from(r, "beta_long", rel.slope_long);
+    rel.gamma = param_from(r, "gamma", rel.gamma);
     rel.break_log_period = r.get_number("break_log_period");
     rel.metallicity = r.bool_or("metallicity", rel.metallicity);
     if (auto v = r.get_string_list("classes")) rel.classes = *v;
@@ -607,12 +738,21 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
   for (const auto& rel : o.relations) {
     RelationResult rr;
     rr.relation = rel;
+    Calibrators c = select_calibrators(o, rel, cat, tools, o.offset);
+    const bool hierarchical = o.space == FitSpace::kHierarchical;
+    HierarchicalSettings grid = o.hierarchical;
+    const int bins = hierarchical && o.hierarchical.prior == DistancePriorFamily::kSmoothHistogram &&
+                             c.data.parallax.size() > 0
+                         ? histogram_grid(c.data, grid)
+                         : 0;
     rr.layout = ParameterLayout::for_terms(ModelTerms{rel.pivot_log_period, rel.break_log_period.has_value(),
                                                       rel.break_log_period.value_or(0.0), rel.metallicity,
-                                                      static_cast<int>(o.anchors.size())},
+                                                      static_cast<int>(o.anchors.size()), hierarchical,
+                                                      hierarchical && rel.metallicity && has_feh_errors(c.data), bins},
                                            anchor_names);
     rr.settings = settings_for(o, rel, rr.layout);
-    Calibrators c = select_calibrators(o, rel, cat, tools, o.offset);
+    rr.settings.hierarchical = grid;
+    hold_unconstrained(c, rr);
     rr.stars = c.stars;
     check_constrained(o, rel, c, rr.settings, rr.layout);
     if (o.space == FitSpace::kMagnitude) {
@@ -668,7 +808,20 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     c.data = data;
     if (!rr.solution.usable)
       rr.warnings.push_back("the solver did not reach a usable solution: " + rr.solution.message);
-    rr.covariance_ok = fit_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);
+    if (hierarchical) {
+      rr.covariance_ok = hierarchical_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance, rr.undetermined);
+    } else {
+      rr.covariance_ok = fit_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);
+      // A redescending loss gives a star beyond its scale no weight at all, so the Gaussian
+      // likelihood of the rest drives sigma_int down: it is not an estimate of the scatter.
+      if (o.loss == LossKind::kTukey && o.scatter.mode != ParamMode::kFixed) rr.undetermined.push_back("sigma_int");
+    }
+    for (const auto& name : rr.undetermined) {
+      const int j = index_of(rr.layout, name);
+      rr.covariance.row(j).setConstant(std::numeric_limits<double>::quiet_NaN());
+      rr.covariance.col(j).setConstant(std::numeric_limits<double>::quiet_NaN());
+      rr.warnings.push_back(undetermined_reason(name, rr.solution.theta[j]));
+    }
     if (!rr.covariance_ok) rr.warnings.push_back("the covariance could not be computed (degenerate parameters?)");
     fill_star_residuals(rr, c);
     run_bootstrap(o, rr, data);
@@ -694,6 +847,14 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
   out["model"] = {{"space", std::string(kFitSpaceNames.name(o.space))},
                   {"loss", std::string(kLossNames.name(o.loss))},
                   {"scatter_estimator", std::string(kScatterEstimatorNames.name(o.scatter_estimator))},
+                  {"hierarchical", {{"distance_prior", std::string(kDistancePriorNames.name(o.hierarchical.prior))},
+                                    {"quadrature_nodes", o.hierarchical.quadrature_nodes},
+                                    {"histogram_step_mag", o.hierarchical.histogram_step},
+                                    {"histogram_walk_sigma", o.hierarchical.histogram_walk_sigma},
+                                    {"histogram_margin_mag", o.hierarchical.histogram_margin},
+                                    {"outlier_mag_width", o.hierarchical.outlier_mag_width},
+                                    {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
+                                    {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor}}},
                   {"loss_scale", o.loss_scale},
                   {"clip_sigma", o.clip_sigma},
                   {"zero_point", std::string(kZeroPointRecipeNames.name(o.zero_point))},
@@ -744,6 +905,10 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                 {"p84", finite_or_null(percentile(boot, 0.84))}};
       if (rr.settings.params[j].mode == ParamMode::kPrior)
         p["prior"] = {{"mean", rr.settings.params[j].value}, {"sigma", rr.settings.params[j].prior_sigma}};
+      if (std::find(rr.undetermined.begin(), rr.undetermined.end(), name) != rr.undetermined.end()) {
+        p["determined"] = false;
+        p["error"] = nullptr;
+      }
       r["parameters"].push_back(p);
     }
     json cov = json::array(), corr = json::array();
@@ -785,6 +950,11 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
       else r["used"].push_back(s.id);
     }
     r["warnings"] = rr.warnings;
+    r["undetermined"] = rr.undetermined;
+    if (rr.layout.distance_bin0 >= 0)
+      r["distance_prior_grid"] = {{"first_modulus", rr.settings.hierarchical.histogram_start},
+                                  {"step_mag", rr.settings.hierarchical.histogram_step},
+                                  {"bins", rr.layout.distance_bins + 1}};
     out["relations"].push_back(r);
   }
   if (joint) {
@@ -845,8 +1015,17 @@ std::string fit_summary(const FitResult& result) {
   for (const auto& rr : result.relations) {
     out += fmt::format("{}: {} stars used, {} refused, chi2/dof = {:.2f}/{}\n", rr.relation.name, rr.n_used,
                        rr.stars.size() - static_cast<std::size_t>(rr.n_used), rr.chi2, rr.dof);
+    if (rr.layout.distance_bin0 >= 0)
+      out += fmt::format("  distance prior: smooth histogram, {} bins of {:.2f} mag from mu = {:.2f}\n",
+                         rr.layout.distance_bins + 1, rr.settings.hierarchical.histogram_step,
+                         rr.settings.hierarchical.histogram_start);
     for (int j = 0; j < rr.layout.size; ++j) {
       const std::string& name = rr.layout.names[j];
+      if (j >= rr.layout.distance_bin0 && j < rr.layout.distance_bin0 + rr.layout.distance_bins) continue;
+      if (std::find(rr.undetermined.begin(), rr.undetermined.end(), name) != rr.undetermined.end()) {
+        out += fmt::format("  {:<22} {:>10.4f} (not determined: no error)\n", name, rr.solution.theta[j]);
+        continue;
+      }
       if (rr.settings.params[j].mode == ParamMode::kFixed) {
         out += fmt::format("  {:<22} {:>10.4f} (fixed)\n", name, rr.solution.theta[j]);
         continue;
@@ -925,6 +1104,7 @@ FitResult fit_catalog_file(const FitOptions& o) {
   // Where zero-point, offset and metallicity problems show: [Fe/H] and G beside each residual.
   res.add_column("feh", ColumnType::kReal, "", "[Fe/H] (dex)");
   res.add_column("gaia_g_mag", ColumnType::kReal, "mag");
+  res.add_column("membership", ColumnType::kReal, "", "hierarchical fit: probability of being a member, not an outlier");
   for (const auto& rr : result.relations) {
     for (const auto& s : rr.stars) {
       res.column("relation").push_text(rr.relation.name);
@@ -942,6 +1122,7 @@ FitResult fit_catalog_file(const FitOptions& o) {
       res.column("predicted").push_real(s.predicted);
       res.column("feh").push_real(in.table.has(col::kFeh) ? in.table.column(col::kFeh).as_real(s.row) : std::nan(""));
       res.column("gaia_g_mag").push_real(in.table.has("gaia_g_mag") ? in.table.column("gaia_g_mag").as_real(s.row) : std::nan(""));
+      res.column("membership").push_real(s.membership);
     }
   }
   stamp_provenance(res, result.provenance, "fit_residuals");

@@ -27,7 +27,10 @@ struct RelationOptions {
   std::string magnitude_column;  // override, e.g. "mag_W_H" for a Wesenheit given in the input
   std::string error_column;      // override of the error column
   double pivot_log_period = 1.0;  // log P0
+  ParamSpec alpha;                // absolute magnitude at log P0: free, fixed or with a prior
   ParamSpec slope;                // beta: free, fixed (e.g. -3.26) or with a prior
+  ParamSpec slope_long;           // beta_long above the break: free, fixed or with a prior
+  ParamSpec gamma;                // metallicity term (mag/dex): free, fixed (e.g. -0.17) or with a prior
   std::optional<double> break_log_period;  // a second slope above log Pb when set
   bool metallicity = false;       // gamma [Fe/H] term
   std::vector<std::string> classes = {"classical_cepheid"};             // pulsator classes used
@@ -49,8 +52,9 @@ struct FitOptions {
   std::string input_path;      // dereddened catalog (HDU CATALOG)
   std::string output_path = "out/fit.json";            // the fit result
   std::string residuals_path;  // per-star residuals (FITS); "" = beside the result
-  FitSpace space = FitSpace::kParallax;  // residual space of parallax calibrators
-  LossKind loss = LossKind::kHuber;      // robust loss
+  FitSpace space = FitSpace::kHierarchical;  // how parallax calibrators enter (section 4b model by default)
+  HierarchicalSettings hierarchical;     // the hierarchical model's distance prior, quadrature and outlier component
+  LossKind loss = LossKind::kNone;       // robust loss (residual spaces only; the hierarchical model has a mixture)
   double loss_scale = 3.0;               // its scale, in units of each star's sigma
   double clip_sigma = 0.0;               // > 0: iterative k-sigma clipping on |r|
   int clip_iterations = 10;              // at most this many clipping passes
@@ -63,7 +67,13 @@ struct FitOptions {
   double max_ruwe = 0.0;                 // > 0: parallax stars with RUWE above are refused
   bool use_known_mu = true;              // stars with mu_mag enter as known-distance calibrators
   ParamSpec offset;                      // residual parallax offset (mas): free, fixed or prior
-  ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free or fixed
+  ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free, fixed, or a prior (hierarchical)
+  // The hierarchical model's own parameters: free by default, each may be fixed or given a prior.
+  ParamSpec outlier_fraction;            // share of outliers in the mixture
+  ParamSpec distance_scale;              // distance prior's length scale L (kpc)
+  ParamSpec distance_power;              // its power k (fixed at 2 by the space-density family)
+  ParamSpec distance_exponent;           // its exponent a (fixed at 1 by the space-density family)
+  ParamSpec feh_mean, feh_spread;        // the [Fe/H] population (when [Fe/H] errors are given)
   ScatterEstimator scatter_estimator = ScatterEstimator::kDecoupled;  // how a free scatter is estimated
   bool joint = false;                    // also fit all relations at once, one parallax offset
   bool joint_shared_slope = false;       // ... and one slope for all relations
@@ -94,6 +104,7 @@ struct StarOutcome {
   double residual = std::numeric_limits<double>::quiet_NaN();  // normalised, at the optimum
   double model_abs_mag = std::numeric_limits<double>::quiet_NaN();
   double predicted = std::numeric_limits<double>::quiet_NaN();   // pi_phot (parallax space) or m0 model
+  double membership = std::numeric_limits<double>::quiet_NaN();  // hierarchical: probability of not being an outlier
 };
 
 struct RelationResult {
@@ -106,6 +117,7 @@ struct RelationResult {
   Eigen::MatrixXd bootstrap;  // resamples x parameters
   int bootstrap_failed = 0;
   std::vector<StarOutcome> stars;
+  std::vector<std::string> undetermined;  // free parameters the data could not determine (no error)
   double chi2 = 0, neg2_log_likelihood = 0, aic = 0, bic = 0;
   int dof = 0, n_used = 0, n_clipped = 0, n_free = 0;
   std::vector<std::string> warnings;

@@ -9,6 +9,7 @@
 #include <Eigen/Dense>
 
 #include "rungcal/core/simd.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
 
 namespace rungcal {
 namespace {
@@ -51,6 +52,7 @@ inline Term parallax_term(FitSpace space, double m0, double var_m, double plx, d
   Term k;
   k.abs_mag = abs_mag;
   switch (space) {
+    case FitSpace::kHierarchical:  // shown by its parallax-space residual
     case FitSpace::kParallax: {
       const double pi = std::exp(-kK5 * (m0 - abs_mag - 10.0)), kpi2 = kK5 * kK5 * pi * pi;
       k.s2_base = var_plx + kpi2 * var_m;
@@ -408,6 +410,29 @@ ParameterLayout ParameterLayout::for_terms(const ModelTerms& terms, const std::v
     L.names.push_back("mu_" + a);
     ++next;
   }
+  if (terms.hierarchical) {
+    auto add = [&](int& slot, const char* name) {
+      slot = next++;
+      L.names.push_back(name);
+    };
+    add(L.outlier, "outlier_fraction");
+    if (terms.distance_bins > 0) {
+      L.distance_bin0 = next;
+      L.distance_bins = terms.distance_bins - 1;
+      for (int j = 1; j < terms.distance_bins; ++j) {
+        L.names.push_back("distance_log_weight_" + std::to_string(j));
+        ++next;
+      }
+    } else {
+      add(L.distance_scale, "distance_scale_kpc");
+      add(L.distance_power, "distance_power");
+      add(L.distance_exponent, "distance_exponent");
+    }
+    if (terms.has_metallicity && terms.feh_errors) {
+      add(L.feh_mean, "feh_mean");
+      add(L.feh_spread, "feh_spread");
+    }
+  }
   L.size = next;
   return L;
 }
@@ -437,10 +462,12 @@ FitData::Common take_common(const FitData::Common& c, const Distinct& dd) {
   FitData::Common o;
   const auto n = static_cast<Eigen::Index>(dd.rows.size());
   o.x.resize(n), o.xl.resize(n), o.feh.resize(n), o.m0.resize(n), o.var_m.resize(n), o.weight.resize(n);
+  if (c.var_feh.size()) o.var_feh.resize(n);
   bool all_one = true;
   for (Eigen::Index i = 0; i < n; ++i) {
     Eigen::Index j = dd.rows[static_cast<std::size_t>(i)];
     o.x[i] = c.x[j], o.xl[i] = c.xl[j], o.feh[i] = c.feh[j], o.m0[i] = c.m0[j], o.var_m[i] = c.var_m[j];
+    if (c.var_feh.size()) o.var_feh[i] = c.var_feh[j];
     o.weight[i] = dd.weight[static_cast<std::size_t>(i)];
     all_one = all_one && o.weight[i] == 1.0;
     o.row.push_back(c.row[j]);
@@ -488,7 +515,14 @@ StarResiduals star_residuals(const FitData& d, const FitSettings& s, const Param
   out.r.resize(n), out.s2.resize(n), out.model_abs_mag.resize(n), out.predicted.resize(n);
   Eigen::Index row = 0;
   const Eigen::VectorXd internal = to_internal(t, L);
-  for_each_star(d, s, L, internal.data(), [&](int, Eigen::Index, const Term& k) {
+  // The hierarchical model has no residual of its own: its stars are shown by their
+  // parallax-space residual, beside their membership probability.
+  FitSettings shown = s;
+  if (s.space == FitSpace::kHierarchical) {
+    shown.space = FitSpace::kParallax;
+    out.membership = hierarchical_membership(d, s, L, t);
+  }
+  for_each_star(d, shown, L, internal.data(), [&](int, Eigen::Index, const Term& k) {
     out.r[row] = k.r, out.s2[row] = k.s2, out.model_abs_mag[row] = k.abs_mag, out.predicted[row] = k.predicted;
     ++row;
   });
@@ -534,6 +568,7 @@ Eigen::VectorXd starting_vector(const FitData& d, const FitSettings& s, const Pa
     const ParamSpec& p = s.params[j];
     if (p.mode != ParamMode::kFree || p.has_start) t[j] = p.value;
   }
+  if (s.space == FitSpace::kHierarchical) hierarchical_start(d, s, L, t);
   return t;
 }
 
@@ -576,6 +611,7 @@ bool decoupled(const FitSettings& s, const ParameterLayout& L) {
 }  // namespace
 
 FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& start) {
+  if (s.space == FitSpace::kHierarchical) return solve_hierarchical(d, s, L, start);
   Eigen::VectorXd x = to_internal(start, L);
   if (!decoupled(s, L)) {
     FitSolution sol = solve_once(d, s, L, x, nullptr);
@@ -600,6 +636,7 @@ FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLay
 
 Eigen::VectorXd gauss_newton_start(const FitData& d, const FitSettings& s, const ParameterLayout& L,
                                    const Eigen::VectorXd& theta) {
+  if (s.space == FitSpace::kHierarchical) return theta;  // its quasi-Newton solver starts well from the optimum
   const Eigen::VectorXd x = to_internal(theta, L);
   const Eigen::VectorXd reference = x;
   RelationCost cost(d, s, L, decoupled(s, L) ? &reference : nullptr);
@@ -624,6 +661,10 @@ Eigen::VectorXd gauss_newton_start(const FitData& d, const FitSettings& s, const
 
 bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& theta,
                     Eigen::MatrixXd& covariance) {
+  if (s.space == FitSpace::kHierarchical) {
+    std::vector<std::string> undetermined;
+    return hierarchical_covariance(d, s, L, theta, covariance, undetermined);
+  }
   Eigen::VectorXd t = to_internal(theta, L);
   const Eigen::VectorXd reference = t;
   ceres::Problem::Options po;

@@ -7,12 +7,19 @@
 #include <Eigen/Core>
 
 #include "rungcal/core/enum_table.hpp"
+#include "rungcal/plfit/distance_prior.hpp"
 #include "rungcal/plfit/losses.hpp"
 
 namespace rungcal {
 
-// The space the residuals of parallax calibrators are formed in (method brief, section 4).
+// How parallax calibrators enter the fit (method brief, sections 4 and 4b).
 enum class FitSpace {
+  // The hierarchical likelihood (section 4b): each star's true distance modulus is a latent
+  // quantity with a fitted population prior, marginalised by Gauss-Hermite quadrature; its
+  // magnitude scatters about mu + M by sigma_m and sigma_int, its parallax about
+  // 10^(-0.2 (mu - 10)) + offset by sigma_pi; outliers are a mixture component; [Fe/H]
+  // errors are marginalised. The default: unbiased where the residual spaces below are not.
+  kHierarchical,
   // r = (pi_obs - Z - offset - pi_phot(M)) / s, pi_phot = 10^(-0.2 (m0 - M - 10)),
   // s^2 = sigma_pi^2 + (0.2 ln10 pi_phot)^2 (sigma_m^2 + sigma_int^2). Unbiased for noisy and
   // negative parallaxes: the default.
@@ -26,7 +33,8 @@ enum class FitSpace {
   // s^2 = (10^(0.2 m0 - 2) sigma_pi)^2 + (0.2 ln10 10^(0.2 M))^2 (sigma_m^2 + sigma_int^2).
   kAbl,
 };
-inline constexpr EnumTable<FitSpace, 3> kFitSpaceNames{{{
+inline constexpr EnumTable<FitSpace, 4> kFitSpaceNames{{{
+    {FitSpace::kHierarchical, "hierarchical"},
     {FitSpace::kParallax, "parallax"},
     {FitSpace::kMagnitude, "magnitude"},
     {FitSpace::kAbl, "abl"},
@@ -55,11 +63,19 @@ struct ModelTerms {
   double break_log_period = 1.0;
   bool has_metallicity = false;
   int n_anchors = 0;
+  bool hierarchical = false;  // the hyperparameters of FitSpace::kHierarchical
+  bool feh_errors = false;    // [Fe/H] errors are marginalised: its population mean and spread
+  int distance_bins = 0;      // > 0: the smooth-histogram distance prior with this many bins
 };
 
 // Where each parameter sits in the parameter vector.
 struct ParameterLayout {
   int alpha = 0, beta = 1, beta_long = -1, gamma = -1, offset = -1, sigma = -1, anchor0 = -1;
+  // The hierarchical model's own: outlier fraction, distance-prior hyperparameters (L in kpc,
+  // k, a: see DistancePriorFamily), and the [Fe/H] population's mean and spread.
+  int outlier = -1, distance_scale = -1, distance_power = -1, distance_exponent = -1;
+  int feh_mean = -1, feh_spread = -1;
+  int distance_bin0 = -1, distance_bins = 0;  // smooth histogram: log-weights eta_1 .. eta_(B-1)
   int size = 0;
   std::vector<std::string> names;
   static ParameterLayout for_terms(const ModelTerms& terms, const std::vector<std::string>& anchor_names);
@@ -71,6 +87,7 @@ struct FitData {
     Eigen::ArrayXd x;       // log P_F - log P0
     Eigen::ArrayXd xl;      // max(0, log P_F - log Pb)
     Eigen::ArrayXd feh;     // [Fe/H] (0 when the term is off)
+    Eigen::ArrayXd var_feh; // its error's square (empty: no errors)
     Eigen::ArrayXd m0;      // dereddened (or Wesenheit) apparent magnitude
     Eigen::ArrayXd var_m;   // its variance
     Eigen::ArrayXd weight;  // multiplicity of each row (bootstrap); empty = every row once
@@ -111,7 +128,26 @@ inline constexpr EnumTable<ScatterEstimator, 2> kScatterEstimatorNames{{{
     {ScatterEstimator::kLikelihood, "likelihood"},
 }}};
 
+// The hierarchical likelihood's fixed choices (FitSpace::kHierarchical).
+struct HierarchicalSettings {
+  DistancePriorFamily prior = DistancePriorFamily::kSmoothHistogram;
+  int quadrature_nodes = 24;            // Gauss-Hermite nodes per star and component
+  // The outlier component: the member's magnitude variance plus outlier_mag_width^2, its
+  // magnitude brighter by outlier_mag_shift (blends only brighten), its parallax error
+  // times outlier_parallax_factor.
+  double outlier_mag_width = 1.0;
+  double outlier_mag_shift = 0.0;
+  double outlier_parallax_factor = 10.0;
+  // The smooth-histogram prior's grid: first centre and step (mag); the bin count is the
+  // layout's (ModelTerms::distance_bins). Placed over the data by histogram_grid().
+  double histogram_start = 8.0;
+  double histogram_step = 0.5;
+  double histogram_walk_sigma = kHistogramWalkSigma;  // random-walk hyperprior step of the log-weights
+  double histogram_margin = kHistogramMargin;         // grid beyond the data's 0.5-99.5% range (mag)
+};
+
 struct FitSettings {
+  HierarchicalSettings hierarchical;
   ScatterEstimator scatter_estimator = ScatterEstimator::kDecoupled;
   FitSpace space = FitSpace::kParallax;
   LossKind loss = LossKind::kNone;
@@ -133,6 +169,7 @@ struct FitSettings {
 // order parallax, known, anchor; and s^2 of each.
 struct StarResiduals {
   Eigen::ArrayXd r, s2, model_abs_mag, predicted;  // predicted: pi_phot (parallax space) or m0 model
+  Eigen::ArrayXd membership;  // hierarchical: probability of being a member, not an outlier
 };
 StarResiduals star_residuals(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                              const Eigen::VectorXd& theta);

@@ -1,0 +1,579 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/hierarchical.hpp"
+
+#include <ceres/gradient_problem.h>
+#include <ceres/gradient_problem_solver.h>
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <map>
+#include <mutex>
+#include <numbers>
+
+#include <Eigen/Dense>
+
+namespace rungcal {
+namespace {
+
+constexpr double kLn10 = 2.302585092994045684;
+constexpr double kC = 0.2 * kLn10;  // -d ln(parallax) / d mu
+constexpr double kLog2Pi = 1.8378770664093454836;
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+
+// How a reported parameter maps to the solver's coordinate.
+enum class Scale { kLinear, kLog, kLogPlusOne, kLogit };
+
+Scale scale_of(const ParameterLayout& L, int j) {
+  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread) return Scale::kLog;
+  if (j == L.distance_power) return Scale::kLogPlusOne;
+  if (j == L.outlier) return Scale::kLogit;
+  return Scale::kLinear;
+}
+
+// The solver never reaches an edge of a domain; a value on it (a scatter fixed or started at
+// 0) is moved just inside.
+double to_internal(Scale s, double v) {
+  switch (s) {
+    case Scale::kLinear: return v;
+    case Scale::kLog: return std::log(std::max(v, 1e-12));
+    case Scale::kLogPlusOne: return std::log(std::max(v + 1.0, 1e-12));
+    case Scale::kLogit: {
+      const double f = std::clamp(v, 1e-12, 1.0 - 1e-12);
+      return std::log(f / (1.0 - f));
+    }
+  }
+  return v;
+}
+double to_external(Scale s, double x) {
+  switch (s) {
+    case Scale::kLinear: return x;
+    case Scale::kLog: return std::exp(x);
+    case Scale::kLogPlusOne: return std::exp(x) - 1.0;
+    case Scale::kLogit: return 1.0 / (1.0 + std::exp(-x));
+  }
+  return x;
+}
+// d external / d internal, at the external value v.
+double slope_of(Scale s, double v) {
+  switch (s) {
+    case Scale::kLinear: return 1.0;
+    case Scale::kLog: return v;
+    case Scale::kLogPlusOne: return v + 1.0;
+    case Scale::kLogit: return v * (1.0 - v);
+  }
+  return 1.0;
+}
+
+Eigen::VectorXd internal_of(const ParameterLayout& L, const Eigen::VectorXd& theta) {
+  Eigen::VectorXd x(L.size);
+  for (int j = 0; j < L.size; ++j) x[j] = to_internal(scale_of(L, j), theta[j]);
+  return x;
+}
+Eigen::VectorXd external_of(const ParameterLayout& L, const Eigen::VectorXd& x) {
+  Eigen::VectorXd t(L.size);
+  for (int j = 0; j < L.size; ++j) t[j] = to_external(scale_of(L, j), x[j]);
+  return t;
+}
+
+// Nodes with ln w_k + x_k^2 folded in, per order, built once.
+struct Quadrature {
+  std::vector<double> nodes, log_weight;  // nodes scaled by sqrt(2); ln w_k + x_k^2
+};
+const Quadrature& quadrature(int n) {
+  static std::mutex mutex;
+  static std::map<int, Quadrature> cache;
+  std::lock_guard<std::mutex> lock(mutex);
+  auto it = cache.find(n);
+  if (it != cache.end()) return it->second;
+  Quadrature q;
+  std::vector<double> x, w;
+  gauss_hermite(n, x, w);
+  for (std::size_t k = 0; k < x.size(); ++k) {
+    q.nodes.push_back(std::numbers::sqrt2 * x[k]);
+    q.log_weight.push_back(std::log(w[k]) + x[k] * x[k]);
+  }
+  return cache.emplace(n, std::move(q)).first->second;
+}
+
+// ln of one component's likelihood and its derivatives: with respect to the absolute
+// magnitude M, the magnitude variance V, the parallax offset and the prior's ln L, k, a.
+struct Component {
+  double log_l = 0, d_m = 0, d_v = 0, d_off = 0, d_log_scale = 0, d_power = 0, d_exponent = 0;
+};
+
+// The mu integral of a parallax star's component (see hierarchical.hpp). m_shift: the
+// model's apparent magnitude less mu (M, or M - shift for the outlier component).
+// d_bins (histogram prior): d ln L / d eta_j, written (size B - 1).
+Component integrate_parallax(double m, double var_mag, double plx, double var_plx, double m_shift, double offset,
+                             const DistancePriorShape& prior, const Quadrature& q, double& mode_cache,
+                             double* d_bins) {
+  // The mode by safeguarded Newton steps: the exact curvature where it is negative enough,
+  // else its expected (Fisher) part, which is always negative.
+  auto curvature = [&](double mu, double& slope) {
+    const DistancePriorTerms pr = prior.at(mu);
+    const double pt = std::exp(-kC * (mu - 10.0)), r = m - mu - m_shift, e = plx - pt - offset;
+    slope = pr.d_mu + r / var_mag - e * kC * pt / var_plx;
+    const double fisher = 1.0 / var_mag + kC * kC * pt * pt / var_plx - std::min(pr.d2_mu, 0.0);
+    const double exact = 1.0 / var_mag + kC * kC * pt * (pt - e) / var_plx - pr.d2_mu;
+    return exact > 0.2 * fisher ? exact : fisher;
+  };
+  double mu = std::isfinite(mode_cache) ? mode_cache : m - m_shift;
+  double slope = 0, h = 1;
+  for (int it = 0; it < 60; ++it) {
+    h = curvature(mu, slope);
+    const double step = std::clamp(slope / h, -1.0, 1.0);
+    mu = std::clamp(mu + step, -10.0, 60.0);
+    if (std::abs(step) < 1e-10) break;
+  }
+  h = curvature(mu, slope);
+  mode_cache = mu;
+  const double width = 1.0 / std::sqrt(h);
+  const double norm = -0.5 * (2.0 * kLog2Pi + std::log(var_mag) + std::log(var_plx));
+  // Two passes: the log terms and their maximum, then the normalised weights' sums.
+  const std::size_t n = q.nodes.size();
+  double terms[128];
+  double top = -std::numeric_limits<double>::infinity();
+  Component c;
+  double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, total = 0;
+  double r_of[128], e_of[128];
+  DistancePriorTerms pr_of[128];
+  for (std::size_t k = 0; k < n; ++k) {
+    const double muk = mu + width * q.nodes[k];
+    pr_of[k] = prior.at(muk);
+    const double pt = std::exp(-kC * (muk - 10.0));
+    r_of[k] = m - muk - m_shift;
+    e_of[k] = plx - pt - offset;
+    terms[k] = q.log_weight[k] + pr_of[k].log_density - 0.5 * r_of[k] * r_of[k] / var_mag -
+               0.5 * e_of[k] * e_of[k] / var_plx;
+    top = std::max(top, terms[k]);
+  }
+  for (std::size_t k = 0; k < n; ++k) {
+    const double w = std::exp(terms[k] - top);
+    total += w;
+    s_m += w * r_of[k];
+    s_v += w * r_of[k] * r_of[k];
+    s_off += w * e_of[k];
+    s_l += w * pr_of[k].d_log_scale;
+    s_k += w * pr_of[k].d_power;
+    s_a += w * pr_of[k].d_exponent;
+  }
+  const double inv = 1.0 / total;
+  if (prior.histogram && d_bins) {
+    std::fill(d_bins, d_bins + prior.weight.size() - 1, 0.0);
+    for (std::size_t k = 0; k < n; ++k) prior.at(mu + width * q.nodes[k], d_bins, std::exp(terms[k] - top) * inv);
+  }
+  c.log_l = std::log(std::numbers::sqrt2 * width) + top + std::log(total) + norm;
+  c.d_m = s_m * inv / var_mag;
+  c.d_v = 0.5 * (s_v * inv - var_mag) / (var_mag * var_mag);
+  c.d_off = s_off * inv / var_plx;
+  c.d_log_scale = s_l * inv;
+  c.d_power = s_k * inv;
+  c.d_exponent = s_a * inv;
+  return c;
+}
+
+// N(m | mu + M, V) for a star whose distance modulus is given (known, or an anchor's).
+Component gaussian_magnitude(double m, double var, double mu, double m_shift) {
+  Component c;
+  const double r = m - mu - m_shift;
+  c.log_l = -0.5 * (r * r / var + kLog2Pi + std::log(var));
+  c.d_m = r / var;
+  c.d_v = 0.5 * (r * r - var) / (var * var);
+  return c;
+}
+
+// Gradient accumulators in the natural parameters.
+struct Gradient {
+  double alpha = 0, beta = 0, beta_long = 0, gamma = 0, offset = 0, var_int = 0, outlier = 0;
+  double log_scale = 0, power = 0, exponent = 0, feh_mean = 0, feh_var = 0;
+  std::vector<double> anchor, bins;
+};
+
+class Evaluator {
+ public:
+  Evaluator(const FitData& d, const FitSettings& s, const ParameterLayout& L)
+      : d_(d), s_(s), L_(L), q_(quadrature(s.hierarchical.quadrature_nodes)) {
+    // outlier_fraction = 0 fixed: no mixture at all, not one with a vanishing weight.
+    mixture_ = L.outlier >= 0 && !(s.params[static_cast<std::size_t>(L.outlier)].mode == ParamMode::kFixed &&
+                                   s.params[static_cast<std::size_t>(L.outlier)].value == 0.0);
+    mode_member_.assign(static_cast<std::size_t>(d.parallax.size()), kNaN);
+    mode_outlier_.assign(static_cast<std::size_t>(d.parallax.size()), kNaN);
+  }
+
+  // -ln L with priors, and its gradient in internal coordinates (full length).
+  double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad, Eigen::ArrayXd* membership = nullptr) {
+    const Eigen::VectorXd t = external_of(L_, x);
+    const HierarchicalSettings& h = s_.hierarchical;
+    const double alpha = t[L_.alpha], beta = t[L_.beta], beta_long = L_.beta_long >= 0 ? t[L_.beta_long] : 0.0;
+    const double gamma = L_.gamma >= 0 ? t[L_.gamma] : 0.0, offset = t[L_.offset];
+    const double sigma = t[L_.sigma], var_int = sigma * sigma;
+    const double f = mixture_ ? t[L_.outlier] : 0.0;
+    const double log_f = std::log(f), log_1f = std::log1p(-f);
+    const bool feh_errors = L_.feh_mean >= 0;
+    const double mu_z = feh_errors ? t[L_.feh_mean] : 0.0, tau2 = feh_errors ? t[L_.feh_spread] * t[L_.feh_spread] : 0.0;
+    DistancePriorShape prior;
+    if (L_.distance_scale >= 0 && d_.parallax.size() > 0)
+      prior = DistancePriorShape::make(t[L_.distance_scale], t[L_.distance_power], t[L_.distance_exponent]);
+    const auto H = static_cast<std::size_t>(L_.distance_bins);
+    if (L_.distance_bin0 >= 0)
+      prior = DistancePriorShape::make_histogram(h.histogram_start, h.histogram_step, t.data() + L_.distance_bin0,
+                                                 L_.distance_bins + 1);
+    bins_member_.assign(H, 0.0), bins_outlier_.assign(H, 0.0);
+    const double wide = h.outlier_mag_width * h.outlier_mag_width, shift = h.outlier_mag_shift;
+    const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
+
+    const int n_anchors = (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;  // the layout's, not the settings'
+    Gradient g;
+    g.anchor.assign(static_cast<std::size_t>(n_anchors), 0.0);
+    g.bins.assign(H, 0.0);
+    double log_l = 0;
+    Eigen::Index out_row = 0;
+    for (int kind = 0; kind < 3; ++kind) {
+      const FitData::Common& c = kind == 0 ? d_.parallax : (kind == 1 ? d_.known : d_.anchor);
+      for (Eigen::Index i = 0; i < c.size(); ++i, ++out_row) {
+        const double w = c.weight.size() ? c.weight[i] : 1.0;
+        // [Fe/H]: its latent true value marginalised (Kelly 2007).
+        double zbar = c.feh[i], wz = 0, dz_mean = 0, dz_tau2 = 0, dwz_tau2 = 0;
+        if (feh_errors) {
+          const double s2 = c.var_feh.size() ? c.var_feh[i] : 0.0, den = tau2 + s2, dz = c.feh[i] - mu_z;
+          zbar = (tau2 * c.feh[i] + s2 * mu_z) / den;
+          wz = tau2 * s2 / den;
+          dz_mean = s2 / den;
+          dz_tau2 = s2 * dz / (den * den);
+          dwz_tau2 = s2 * s2 / (den * den);
+          log_l += w * -0.5 * (dz * dz / den + kLog2Pi + std::log(den));
+          g.feh_mean += w * dz / den;
+          g.feh_var += w * 0.5 * (dz * dz - den) / (den * den);
+        }
+        const double M = alpha + beta * c.x[i] + beta_long * c.xl[i] + gamma * zbar;
+        const double V = c.var_m[i] + var_int + gamma * gamma * wz;
+        Component member, outlier;
+        if (kind == 0) {
+          const std::size_t k = static_cast<std::size_t>(i);
+          member = integrate_parallax(c.m0[i], V, d_.plx[i], d_.var_plx[i], M, offset, prior, q_, mode_member_[k],
+                                      bins_member_.data());
+          if (mixture_)
+            outlier = integrate_parallax(c.m0[i], V + wide, d_.plx[i], plx_factor2 * d_.var_plx[i], M - shift, offset,
+                                         prior, q_, mode_outlier_[k], bins_outlier_.data());
+        } else {
+          const double mu = kind == 1 ? d_.mu[i] : t[L_.anchor0 + d_.group[i]];
+          const double var_mu = kind == 1 ? d_.var_mu[i] : 0.0;
+          member = gaussian_magnitude(c.m0[i], V + var_mu, mu, M);
+          if (mixture_) outlier = gaussian_magnitude(c.m0[i], V + var_mu + wide, mu, M - shift);
+        }
+        // The mixture: q is the membership probability.
+        double li = member.log_l, q = 1.0;
+        if (mixture_) {
+          const double a = log_1f + member.log_l, b = log_f + outlier.log_l, top = std::max(a, b);
+          li = top + std::log(std::exp(a - top) + std::exp(b - top));
+          q = std::exp(a - li);
+          g.outlier += w * ((1.0 - q) / f - q / (1.0 - f));
+        }
+        if (membership) (*membership)[out_row] = q;
+        log_l += w * li;
+        auto mix = [&](double Component::*field) { return q * member.*field + (1.0 - q) * outlier.*field; };
+        const double dm = mix(&Component::d_m), dv = mix(&Component::d_v);
+        g.alpha += w * dm;
+        g.beta += w * dm * c.x[i];
+        g.beta_long += w * dm * c.xl[i];
+        g.gamma += w * (dm * zbar + dv * 2.0 * gamma * wz);
+        g.var_int += w * dv;
+        g.feh_mean += w * dm * gamma * dz_mean;
+        g.feh_var += w * (dm * gamma * dz_tau2 + dv * gamma * gamma * dwz_tau2);
+        if (kind == 0) {
+          g.offset += w * mix(&Component::d_off);
+          g.log_scale += w * mix(&Component::d_log_scale);
+          g.power += w * mix(&Component::d_power);
+          g.exponent += w * mix(&Component::d_exponent);
+          for (std::size_t j = 0; j < H; ++j)
+            g.bins[j] += w * (q * bins_member_[j] + (mixture_ ? (1.0 - q) * bins_outlier_[j] : 0.0));
+        }
+        if (kind == 2) g.anchor[static_cast<std::size_t>(d_.group[i])] += w * dm;  // d/dmu_g = d/dM
+      }
+    }
+    double value = -log_l;
+    Eigen::VectorXd gext = Eigen::VectorXd::Zero(L_.size);
+    gext[L_.alpha] = g.alpha, gext[L_.beta] = g.beta, gext[L_.offset] = g.offset;
+    if (L_.beta_long >= 0) gext[L_.beta_long] = g.beta_long;
+    if (L_.gamma >= 0) gext[L_.gamma] = g.gamma;
+    gext[L_.sigma] = g.var_int * 2.0 * sigma;  // d/dsigma
+    for (int a = 0; a < n_anchors; ++a) gext[L_.anchor0 + a] = g.anchor[static_cast<std::size_t>(a)];
+    if (L_.outlier >= 0) gext[L_.outlier] = g.outlier;
+    if (L_.distance_scale >= 0) {
+      gext[L_.distance_scale] = g.log_scale / t[L_.distance_scale];
+      gext[L_.distance_power] = g.power;
+      gext[L_.distance_exponent] = g.exponent;
+    }
+    if (feh_errors) {
+      gext[L_.feh_mean] = g.feh_mean;
+      gext[L_.feh_spread] = g.feh_var * 2.0 * t[L_.feh_spread];
+    }
+    for (std::size_t j = 0; j < H; ++j) gext[L_.distance_bin0 + static_cast<int>(j)] = g.bins[j];
+    gext = -gext;
+    // The histogram's random-walk hyperprior on its log-weights (eta_0 = 0).
+    for (std::size_t j = 0; j < H; ++j) {
+      const double below = j ? t[L_.distance_bin0 + static_cast<int>(j) - 1] : 0.0;
+      const double z = (t[L_.distance_bin0 + static_cast<int>(j)] - below) / h.histogram_walk_sigma;
+      value += 0.5 * z * z;
+      gext[L_.distance_bin0 + static_cast<int>(j)] += z / h.histogram_walk_sigma;
+      if (j) gext[L_.distance_bin0 + static_cast<int>(j) - 1] -= z / h.histogram_walk_sigma;
+    }
+    // Gaussian priors, on the reported parameters.
+    for (int j = 0; j < L_.size; ++j) {
+      const ParamSpec& p = s_.params[static_cast<std::size_t>(j)];
+      if (p.mode != ParamMode::kPrior) continue;
+      const double z = (t[j] - p.value) / p.prior_sigma;
+      value += 0.5 * z * z;
+      gext[j] += z / p.prior_sigma;
+    }
+    if (grad) {
+      grad->resize(L_.size);
+      for (int j = 0; j < L_.size; ++j) (*grad)[j] = gext[j] * slope_of(scale_of(L_, j), t[j]);
+    }
+    return value;
+  }
+
+ private:
+  const FitData& d_;
+  const FitSettings& s_;
+  const ParameterLayout& L_;
+  const Quadrature& q_;
+  std::vector<double> mode_member_, mode_outlier_;  // each star's last mode: the next start
+  std::vector<double> bins_member_, bins_outlier_;  // one star's histogram-weight derivatives
+  bool mixture_ = true;
+};
+
+// The free parameters as the solver's vector.
+class FreeProblem final : public ceres::FirstOrderFunction {
+ public:
+  FreeProblem(Evaluator& e, const Eigen::VectorXd& x0, std::vector<int> free)
+      : e_(e), x0_(x0), free_(std::move(free)) {}
+  bool Evaluate(const double* p, double* cost, double* gradient) const override {
+    Eigen::VectorXd x = expand(p), g;
+    *cost = e_.evaluate(x, gradient ? &g : nullptr);
+    if (!std::isfinite(*cost)) return false;
+    if (gradient) {
+      for (std::size_t k = 0; k < free_.size(); ++k) gradient[k] = g[free_[k]];
+      for (std::size_t k = 0; k < free_.size(); ++k)
+        if (!std::isfinite(gradient[k])) return false;
+    }
+    return true;
+  }
+  int NumParameters() const override { return static_cast<int>(free_.size()); }
+  Eigen::VectorXd expand(const double* p) const {
+    Eigen::VectorXd x = x0_;
+    for (std::size_t k = 0; k < free_.size(); ++k) x[free_[k]] = p[k];
+    return x;
+  }
+
+ private:
+  Evaluator& e_;
+  Eigen::VectorXd x0_;
+  std::vector<int> free_;
+};
+
+std::vector<int> free_parameters(const FitSettings& s, const ParameterLayout& L) {
+  std::vector<int> free;
+  for (int j = 0; j < L.size; ++j)
+    if (s.params[static_cast<std::size_t>(j)].mode != ParamMode::kFixed) free.push_back(j);
+  return free;
+}
+
+}  // namespace
+
+namespace {
+std::vector<double> rough_moduli(const FitData& d) {
+  // A line M(x) through the stars with good parallaxes; their moduli from the parallax, the
+  // others' from the line.
+  std::vector<double> mu(static_cast<std::size_t>(d.parallax.size()), std::numeric_limits<double>::quiet_NaN());
+  double n = 0, sx = 0, sy = 0, sxx = 0, sxy = 0;
+  for (Eigen::Index i = 0; i < d.parallax.size(); ++i) {
+    if (!(d.plx[i] > 0 && d.plx[i] * d.plx[i] > 25.0 * d.var_plx[i])) continue;
+    mu[static_cast<std::size_t>(i)] = 10.0 - 5.0 * std::log10(d.plx[i]);
+    const double x = d.parallax.x[i], y = d.parallax.m0[i] - mu[static_cast<std::size_t>(i)];
+    n += 1, sx += x, sy += y, sxx += x * x, sxy += x * y;
+  }
+  const double den = n * sxx - sx * sx;
+  const double beta = n > 2 && std::abs(den) > 1e-12 ? (n * sxy - sx * sy) / den : -3.0;
+  const double alpha = n > 0 ? (sy - beta * sx) / n : -4.0;
+  for (Eigen::Index i = 0; i < d.parallax.size(); ++i)
+    if (!std::isfinite(mu[static_cast<std::size_t>(i)]))
+      mu[static_cast<std::size_t>(i)] = d.parallax.m0[i] - alpha - beta * d.parallax.x[i];
+  return mu;
+}
+}  // namespace
+
+int histogram_grid(const FitData& data, HierarchicalSettings& settings) {
+  std::vector<double> mu = rough_moduli(data);
+  std::erase_if(mu, [](double v) { return !std::isfinite(v); });
+  if (mu.empty()) return 2;
+  std::sort(mu.begin(), mu.end());
+  // The 0.5% and 99.5% points: one wild star does not stretch the grid.
+  const double lo = mu[static_cast<std::size_t>(0.005 * static_cast<double>(mu.size() - 1))] - settings.histogram_margin;
+  const double hi = mu[static_cast<std::size_t>(0.995 * static_cast<double>(mu.size() - 1))] + settings.histogram_margin;
+  double step = settings.histogram_step;
+  while ((hi - lo) / step + 1 > 30) step *= 1.25;
+  settings.histogram_step = step;
+  settings.histogram_start = lo;
+  return static_cast<int>(std::ceil((hi - lo) / step)) + 1;
+}
+
+void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights) {
+  // The Jacobi matrix of the Hermite polynomials: zero diagonal, off-diagonal sqrt(k / 2).
+  Eigen::MatrixXd J = Eigen::MatrixXd::Zero(n, n);
+  for (int k = 1; k < n; ++k) J(k, k - 1) = J(k - 1, k) = std::sqrt(0.5 * k);
+  Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> es(J);
+  nodes.resize(static_cast<std::size_t>(n));
+  weights.resize(static_cast<std::size_t>(n));
+  const double mu0 = std::sqrt(std::numbers::pi);  // int exp(-x^2) dx
+  for (int k = 0; k < n; ++k) {
+    nodes[static_cast<std::size_t>(k)] = es.eigenvalues()[k];
+    const double v = es.eigenvectors()(0, k);
+    weights[static_cast<std::size_t>(k)] = mu0 * v * v;
+  }
+}
+
+HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                                     const Eigen::VectorXd& theta) {
+  Evaluator e(data, settings, layout);
+  HierarchicalValue v;
+  v.neg_log_likelihood = e.evaluate(internal_of(layout, theta), &v.gradient);
+  v.finite = std::isfinite(v.neg_log_likelihood) && v.gradient.allFinite();
+  return v;
+}
+
+FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                               const Eigen::VectorXd& start) {
+  Evaluator e(data, settings, layout);
+  const Eigen::VectorXd x0 = internal_of(layout, start);
+  std::vector<int> free = free_parameters(settings, layout);
+  FitSolution sol;
+  sol.theta = start;
+  auto* fn = new FreeProblem(e, x0, free);  // owned by the problem
+  ceres::GradientProblem problem(fn);
+  std::vector<double> p;
+  for (int j : free) p.push_back(x0[j]);
+  ceres::GradientProblemSolver::Options so;
+  so.line_search_direction_type = ceres::BFGS;  // a handful of parameters: a dense inverse Hessian is cheap
+  so.max_num_iterations = settings.max_iterations;
+  so.function_tolerance = settings.function_tolerance;
+  so.parameter_tolerance = settings.parameter_tolerance;
+  so.gradient_tolerance = 1e-10 * settings.function_tolerance / 1e-15;
+  so.logging_type = ceres::SILENT;
+  ceres::GradientProblemSolver::Summary summary;
+  if (!p.empty()) ceres::Solve(so, problem, p.data(), &summary);
+  sol.theta = external_of(layout, fn->expand(p.data()));
+  for (int j = 0; j < layout.size; ++j)
+    if (settings.params[static_cast<std::size_t>(j)].mode == ParamMode::kFixed) sol.theta[j] = start[j];
+  sol.usable = p.empty() || summary.IsSolutionUsable();
+  sol.termination = ceres::TerminationTypeToString(summary.termination_type);
+  sol.message = summary.message;
+  sol.iterations = static_cast<int>(summary.iterations.size());
+  sol.cost = summary.final_cost;
+  sol.brief_report = summary.BriefReport();
+  if (!std::isfinite(sol.cost) || !sol.theta.allFinite()) sol.usable = false;
+  return sol;
+}
+
+bool hierarchical_covariance(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                             const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
+                             std::vector<std::string>& undetermined) {
+  const int P = layout.size;
+  covariance = Eigen::MatrixXd::Zero(P, P);
+  std::vector<int> free;
+  for (int j : free_parameters(settings, layout)) {
+    // On the edge of the domain: the likelihood's maximum is not an interior point there.
+    const bool edge = (j == layout.sigma && theta[j] < 1e-3) || (j == layout.outlier && theta[j] < 1e-3);
+    if (edge) {
+      undetermined.push_back(layout.names[static_cast<std::size_t>(j)]);
+      covariance(j, j) = kNaN;
+    } else {
+      free.push_back(j);
+    }
+  }
+  if (free.empty()) return true;
+  Evaluator e(data, settings, layout);
+  const Eigen::VectorXd x = internal_of(layout, theta);
+  const auto F = static_cast<Eigen::Index>(free.size());
+  Eigen::MatrixXd H(F, F);
+  // Fourth-order central differences of the analytic gradient.
+  const double h = 1e-3;
+  for (Eigen::Index a = 0; a < F; ++a) {
+    Eigen::VectorXd g[4];
+    const double steps[4] = {-2 * h, -h, h, 2 * h};
+    for (int k = 0; k < 4; ++k) {
+      Eigen::VectorXd xs = x;
+      xs[free[static_cast<std::size_t>(a)]] += steps[k];
+      e.evaluate(xs, &g[k]);
+    }
+    for (Eigen::Index b = 0; b < F; ++b) {
+      const int j = free[static_cast<std::size_t>(b)];
+      H(b, a) = (8.0 * (g[2][j] - g[1][j]) - (g[3][j] - g[0][j])) / (12.0 * h);
+    }
+  }
+  H = 0.5 * (H + H.transpose()).eval();
+  if (!H.allFinite()) return false;
+  Eigen::LLT<Eigen::MatrixXd> llt(H);
+  if (llt.info() != Eigen::Success) return false;
+  const Eigen::MatrixXd C = llt.solve(Eigen::MatrixXd::Identity(F, F));
+  for (Eigen::Index a = 0; a < F; ++a)
+    for (Eigen::Index b = 0; b < F; ++b) {
+      const int i = free[static_cast<std::size_t>(a)], j = free[static_cast<std::size_t>(b)];
+      covariance(i, j) = slope_of(scale_of(layout, i), theta[i]) * C(a, b) * slope_of(scale_of(layout, j), theta[j]);
+    }
+  return true;
+}
+
+Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+                                       const Eigen::VectorXd& theta) {
+  Evaluator e(data, settings, layout);
+  Eigen::ArrayXd q = Eigen::ArrayXd::Ones(data.stars());
+  e.evaluate(internal_of(layout, theta), nullptr, &q);
+  return q;
+}
+
+void hierarchical_start(const FitData& d, const FitSettings& s, const ParameterLayout& L, Eigen::VectorXd& t) {
+  if (L.outlier >= 0) t[L.outlier] = 0.02;
+  if (L.distance_scale >= 0) {
+    // The space-density prior's mean distance is 3 L: start there from the photometric distances.
+    double sum = 0;
+    int n = 0;
+    for (Eigen::Index i = 0; i < d.parallax.size(); ++i) {
+      const double M = t[L.alpha] + t[L.beta] * d.parallax.x[i];
+      const double dist = std::pow(10.0, 0.2 * (d.parallax.m0[i] - M) - 2.0);
+      if (std::isfinite(dist) && dist > 0 && dist < 1e3) sum += dist, ++n;
+    }
+    t[L.distance_scale] = n ? std::max(sum / n / 3.0, 0.01) : 1.0;
+    t[L.distance_power] = 2.0;
+    t[L.distance_exponent] = 1.0;
+  }
+  if (L.distance_bin0 >= 0) {
+    // Log-weights from the count of rough distance moduli per bin.
+    std::vector<double> count(static_cast<std::size_t>(L.distance_bins + 1), 0.5);
+    for (double mu : rough_moduli(d)) {
+      const long j = std::lround((mu - s.hierarchical.histogram_start) / s.hierarchical.histogram_step);
+      if (j >= 0 && j < static_cast<long>(count.size())) count[static_cast<std::size_t>(j)] += 1.0;
+    }
+    for (int j = 1; j <= L.distance_bins; ++j)
+      t[L.distance_bin0 + j - 1] = std::log(count[static_cast<std::size_t>(j)] / count[0]);
+  }
+  if (L.feh_mean >= 0) {
+    double sum = 0, sum2 = 0, err2 = 0;
+    int n = 0;
+    for (const FitData::Common* c : {&d.parallax, &d.known, &d.anchor})
+      for (Eigen::Index i = 0; i < c->size(); ++i) {
+        sum += c->feh[i], sum2 += c->feh[i] * c->feh[i], ++n;
+        err2 += c->var_feh.size() ? c->var_feh[i] : 0.0;
+      }
+    const double mean = n ? sum / n : 0.0, var = n ? sum2 / n - mean * mean - err2 / n : 0.0;
+    t[L.feh_mean] = mean;
+    t[L.feh_spread] = std::sqrt(std::max(var, 0.05 * 0.05));
+  }
+  for (int j = 0; j < L.size; ++j) {
+    const ParamSpec& p = s.params[static_cast<std::size_t>(j)];
+    if (p.mode != ParamMode::kFree || p.has_start) t[j] = p.value;
+  }
+}
+
+}  // namespace rungcal

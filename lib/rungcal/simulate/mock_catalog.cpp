@@ -1,0 +1,89 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/simulate/mock_catalog.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <vector>
+
+#include <fmt/format.h>
+
+#include "rungcal/core/random.hpp"
+#include "rungcal/photometry/photometry.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+
+namespace rungcal {
+namespace {
+
+double draw_distance_kpc(MockDistances kind, Random& rng, const std::vector<double>& clumps) {
+  switch (kind) {
+    case MockDistances::kDisk:
+      for (;;) {  // Gamma(2, 2.5 kpc) is the sum of two exponentials; keep 0.3-8 kpc
+        const double d = -2.5 * (std::log(1.0 - rng.uniform()) + std::log(1.0 - rng.uniform()));
+        if (d > 0.3 && d < 8.0) return d;
+      }
+    case MockDistances::kFlatModulus: return std::pow(10.0, 0.2 * rng.uniform(8.5, 13.5) - 2.0);
+    case MockDistances::kClumpy: {
+      const double centre = clumps[rng.below(clumps.size())];
+      return centre * std::max(0.5, 1.0 + rng.normal(0.0, 0.05));
+    }
+  }
+  return 1.0;
+}
+
+}  // namespace
+
+std::string MockScenario::check() const {
+  if (stars < 3) return "stars: at least 3";
+  for (double f : {blend_fraction, parallax_outlier_fraction, overtone_fraction, far_fraction})
+    if (!(f >= 0 && f < 1)) return "fractions: each in [0, 1)";
+  if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0))
+    return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread > 0";
+  return "";
+}
+
+nlohmann::json MockScenario::truth() const {
+  return {{"alpha", alpha},       {"beta", beta},         {"gamma", gamma},        {"sigma_int", sigma_int},
+          {"parallax_offset_mas", parallax_offset_mas}, {"feh_mean", feh_mean}, {"feh_spread", feh_spread}};
+}
+
+StarTable mock_calibrator_catalog(const MockScenario& s) {
+  Random rng(s.seed);
+  std::vector<double> clumps;
+  for (int k = 0; k < 8; ++k) clumps.push_back(std::pow(10.0, 0.2 * rng.uniform(9.0, 13.0) - 2.0));
+  StarTable t;
+  for (const char* c : {col::kId, col::kMode, col::kClass}) t.add_column(c, ColumnType::kText);
+  for (const char* c : {col::kLogPeriod, "mag0_X", "mag0_err_X", col::kParallax, col::kParallaxErr, col::kFeh, col::kFehErr})
+    t.add_column(c, ColumnType::kReal);
+  for (int i = 0; i < s.stars; ++i) {
+    const bool far = rng.uniform() < s.far_fraction;
+    const double d = far ? rng.uniform(8.0, 15.0) : draw_distance_kpc(s.distances, rng, clumps);
+    const double mu = distance_modulus_from_parsec(d * 1e3);
+    const bool overtone = rng.uniform() < s.overtone_fraction;
+    const double logp = overtone ? rng.uniform(0.1, 0.7) : rng.uniform(0.4, 1.6);
+    const std::string mode = overtone ? "first_overtone" : "fundamental";
+    const double logp_f = fundamentalized_log_period("classical_cepheid", mode, logp);
+    const double feh = rng.normal(s.feh_mean, s.feh_spread);
+    const double abs_mag = s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + rng.normal(0.0, s.sigma_int);
+    double m0 = abs_mag + mu + rng.normal(0.0, s.mag_error) + s.extinction_per_ebv * rng.normal(0.0, s.ebv_error);
+    if (rng.uniform() < s.blend_fraction) m0 -= rng.uniform(0.3, 1.0);
+    // Astrometric errors follow the star's observed brightness, as a survey's do (the fit
+    // conditions on the observed magnitude, so the errors carry no hidden distance).
+    const double plx_err = 0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0));
+    double plx = 1.0 / d + s.parallax_offset_mas + rng.normal(0.0, plx_err);
+    if (rng.uniform() < s.parallax_outlier_fraction) plx += (rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * plx_err;
+    const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
+    t.column(col::kId).push_text(fmt::format("MOCK-{:05d}", i));
+    t.column(col::kMode).push_text(mode);
+    t.column(col::kClass).push_text("classical_cepheid");
+    t.column(col::kLogPeriod).push_real(logp);
+    t.column("mag0_X").push_real(m0);
+    t.column("mag0_err_X").push_real(m_err);
+    t.column(col::kParallax).push_real(plx);
+    t.column(col::kParallaxErr).push_real(plx_err);
+    t.column(col::kFeh).push_real(feh + (s.feh_error > 0 ? rng.normal(0.0, s.feh_error) : 0.0));
+    t.column(col::kFehErr).push_real(s.feh_error);
+  }
+  return t;
+}
+
+}  // namespace rungcal

@@ -1,0 +1,55 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <cstdint>
+#include <string>
+
+#include <nlohmann/json.hpp>
+
+#include "rungcal/core/enum_table.hpp"
+#include "rungcal/table/star_table.hpp"
+
+namespace rungcal {
+
+// How the mock calibrators' true distances are spread.
+enum class MockDistances {
+  kDisk,          // a thin disk seen from inside: p(d) ~ d exp(-d / 2.5 kpc), 0.3-8 kpc
+  kFlatModulus,   // distance modulus uniform in [8.5, 13.5] (0.5-5 kpc)
+  kClumpy,        // eight associations at random distance moduli in [9, 13], 5% deep each
+};
+inline constexpr EnumTable<MockDistances, 3> kMockDistanceNames{{{
+    {MockDistances::kDisk, "disk"},
+    {MockDistances::kFlatModulus, "flat_modulus"},
+    {MockDistances::kClumpy, "clumpy"},
+}}};
+
+// One mock catalog of parallax calibrators of one relation, already dereddened (the
+// columns rungcal-fit reads, band "X"), with each contamination switchable on its own.
+struct MockScenario {
+  std::uint64_t seed = 1;       // the whole draw follows from it
+  int stars = 300;              // calibrators drawn
+  // The truth: M = alpha + beta (log P_F - pivot) + gamma [Fe/H] + N(0, sigma_int).
+  double alpha = -5.9, beta = -3.3, gamma = -0.2, sigma_int = 0.08, pivot_log_period = 1.0;
+  double parallax_offset_mas = -0.010;  // observed parallax = true + offset + noise
+  double feh_mean = 0.0, feh_spread = 0.15;  // the [Fe/H] population
+  double mag_error = 0.02;      // photometric error of the mean magnitudes (mag)
+  double extinction_per_ebv = 0.0;  // A/E(B-V) of the band: 0 for a Wesenheit magnitude
+  MockDistances distances = MockDistances::kDisk;
+  // Contaminations (0: off).
+  double blend_fraction = 0;     // stars made 0.3-1.0 mag too bright (unresolved companions)
+  double parallax_outlier_fraction = 0;  // parallaxes off by 5-20 of their errors
+  double feh_error = 0;          // [Fe/H] measurement error (dex); the catalog carries feh_err
+  double overtone_fraction = 0;  // first-overtone pulsators, labelled, log P1 in [0.1, 0.7]
+  double far_fraction = 0;       // stars at 8-15 kpc, with noisy (some negative) parallaxes
+  double ebv_error = 0;          // E(B-V) error (mag): A/E(B-V) times it enters the magnitude
+
+  std::string check() const;     // "" when usable, else "field: rule"
+  nlohmann::json truth() const;  // the true parameters by fit parameter name
+};
+
+// Parallax errors grow with the observed magnitude m as for a bright-star astrometric
+// survey: sigma_pi = 0.012 + 0.06 10^(0.4 (m - 15)) mas, 0.013 mas at m = 10, 0.072 at
+// m = 15 (an invented law, for simulations only).
+StarTable mock_calibrator_catalog(const MockScenario& scenario);
+
+}  // namespace rungcal

@@ -1,0 +1,142 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/simulate/study.hpp"
+
+#include <cmath>
+#include <limits>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/parallel.hpp"
+#include "rungcal/core/progress.hpp"
+
+namespace rungcal {
+namespace {
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+
+struct Draw {
+  bool ok = false;
+  std::vector<double> estimate, error, bootstrap_error;
+};
+
+double mean_of(const std::vector<double>& v) {
+  double s = 0;
+  for (double x : v) s += x;
+  return v.empty() ? kNaN : s / static_cast<double>(v.size());
+}
+
+double sd_of(const std::vector<double>& v) {
+  if (v.size() < 2) return kNaN;
+  const double m = mean_of(v);
+  double s = 0;
+  for (double x : v) s += (x - m) * (x - m);
+  return std::sqrt(s / static_cast<double>(v.size() - 1));
+}
+
+}  // namespace
+
+std::string StudyOptions::check() const {
+  if (mocks < 2) return "mocks: at least 2";
+  if (std::string e = scenario.check(); !e.empty()) return "scenario." + e;
+  if (fit.relations.size() != 1) return "fit: exactly one relation";
+  return "";
+}
+
+StudyResult run_study(const StudyOptions& o) {
+  const std::size_t P = o.parameters.size();
+  std::vector<Draw> draws(static_cast<std::size_t>(o.mocks));
+  nlohmann::json truth = o.scenario.truth();
+  Progress progress("mocks", draws.size());
+  parallel_for(draws.size(), worker_threads(o.threads), [&](std::size_t k) {
+    MockScenario s = o.scenario;
+    s.seed = o.scenario.seed + k;
+    FitOptions fit = o.fit;
+    fit.threads = 1;
+    fit.seed = s.seed;
+    Draw& d = draws[k];
+    try {
+      FitResult r = run_fit(fit, mock_calibrator_catalog(s));
+      const RelationResult& rr = r.relations.at(0);
+      d.ok = rr.solution.usable && rr.covariance_ok;
+      for (const auto& name : o.parameters) {
+        const bool has = std::find(rr.layout.names.begin(), rr.layout.names.end(), name) != rr.layout.names.end();
+        d.estimate.push_back(has ? rr.parameter(name) : kNaN);
+        d.error.push_back(has ? rr.error(name) : kNaN);
+        d.bootstrap_error.push_back(has ? rr.bootstrap_error(name) : kNaN);
+      }
+    } catch (const std::exception& e) {
+      spdlog::debug("mock {}: {}", k, e.what());
+      d.ok = false;
+    }
+    progress.advance();
+  });
+  progress.finish();
+  StudyResult out;
+  out.mocks = o.mocks;
+  for (const Draw& d : draws) out.failed += d.ok ? 0 : 1;
+  for (std::size_t j = 0; j < P; ++j) {
+    StudyRow row;
+    row.parameter = o.parameters[j];
+    row.truth = truth.value(row.parameter, kNaN);
+    std::vector<double> est, err, boot;
+    int covered = 0, boot_covered = 0;
+    for (const Draw& d : draws) {
+      if (!d.ok || !std::isfinite(d.estimate[j]) || !std::isfinite(d.error[j])) continue;
+      est.push_back(d.estimate[j]);
+      err.push_back(d.error[j]);
+      covered += std::abs(d.estimate[j] - row.truth) <= d.error[j] ? 1 : 0;
+      if (std::isfinite(d.bootstrap_error[j])) {
+        boot.push_back(d.bootstrap_error[j]);
+        boot_covered += std::abs(d.estimate[j] - row.truth) <= d.bootstrap_error[j] ? 1 : 0;
+      }
+    }
+    row.used = static_cast<int>(est.size());
+    row.mean_estimate = mean_of(est);
+    row.mean_error = mean_of(err);
+    row.bias_in_errors = (row.mean_estimate - row.truth) / row.mean_error;
+    row.coverage = row.used ? static_cast<double>(covered) / row.used : kNaN;
+    row.bootstrap_coverage = boot.empty() ? kNaN : static_cast<double>(boot_covered) / static_cast<double>(boot.size());
+    row.bootstrap_to_covariance = boot.empty() ? kNaN : mean_of(boot) / row.mean_error;
+    row.spread_to_error = sd_of(est) / row.mean_error;
+    row.bias_error = row.spread_to_error / std::sqrt(static_cast<double>(std::max(row.used, 1)));
+    out.rows.push_back(row);
+  }
+  return out;
+}
+
+nlohmann::json StudyResult::to_json(const StudyOptions& o) const {
+  nlohmann::json j;
+  j["mocks"] = mocks;
+  j["failed"] = failed;
+  j["stars"] = o.scenario.stars;
+  j["truth"] = o.scenario.truth();
+  j["space"] = std::string(kFitSpaceNames.name(o.fit.space));
+  auto num = [](double v) { return std::isfinite(v) ? nlohmann::json(v) : nlohmann::json(nullptr); };
+  for (const auto& r : rows)
+    j["parameters"].push_back({{"name", r.parameter},
+                               {"truth", num(r.truth)},
+                               {"mean_estimate", num(r.mean_estimate)},
+                               {"mean_error", num(r.mean_error)},
+                               {"bias_in_errors", num(r.bias_in_errors)},
+                               {"bias_uncertainty", num(r.bias_error)},
+                               {"coverage_68", num(r.coverage)},
+                               {"bootstrap_coverage_68", num(r.bootstrap_coverage)},
+                               {"bootstrap_to_covariance", num(r.bootstrap_to_covariance)},
+                               {"spread_to_error", num(r.spread_to_error)},
+                               {"used", r.used}});
+  return j;
+}
+
+std::string study_table(const StudyResult& r) {
+  std::string out = fmt::format("{} mocks, {} failed\n", r.mocks, r.failed);
+  out += fmt::format("{:<22}{:>10}{:>11}{:>10}{:>14}{:>9}{:>10}{:>10}{:>9}\n", "parameter", "truth", "mean", "error",
+                     "bias/error", "cov68", "boot68", "boot/cov", "sd/err");
+  for (const auto& row : r.rows)
+    out += fmt::format("{:<22}{:>10.4f}{:>11.4f}{:>10.4f}{:>8.2f}+-{:<4.2f}{:>9.2f}{:>10.2f}{:>10.2f}{:>9.2f}\n", row.parameter,
+                       row.truth, row.mean_estimate, row.mean_error, row.bias_in_errors, row.bias_error, row.coverage,
+                       row.bootstrap_coverage, row.bootstrap_to_covariance, row.spread_to_error);
+  return out;
+}
+
+}  // namespace rungcal

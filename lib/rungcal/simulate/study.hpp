@@ -1,0 +1,52 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+#include <vector>
+
+#include <nlohmann/json.hpp>
+
+#include "rungcal/plfit/fit_stage.hpp"
+#include "rungcal/simulate/mock_catalog.hpp"
+
+namespace rungcal {
+
+// A simulation study of the fit: many mock catalogs of one scenario, each fitted as a user
+// would, summarised per parameter against the truth (method brief, section 4b: bias in
+// units of the reported error, and the coverage of the 68% intervals).
+struct StudyOptions {
+  MockScenario scenario;         // the mocks' truth and contaminations; seed of the first mock
+  int mocks = 100;               // catalogs drawn (mock k uses seed + k)
+  FitOptions fit;                // the fit each mock gets (one relation on band "X")
+  int threads = 0;               // mocks fitted in parallel (0: all cores)
+  std::vector<std::string> parameters = {"alpha", "beta", "gamma", "parallax_offset_mas", "sigma_int"};
+
+  std::string check() const;     // "" when usable, else "field: rule"
+};
+
+// Per parameter, over the mocks whose fit was usable.
+struct StudyRow {
+  std::string parameter;
+  double truth = 0;
+  double mean_estimate = 0;
+  double mean_error = 0;          // mean covariance error
+  double bias_in_errors = 0;      // (mean estimate - truth) / mean error
+  double coverage = 0;            // share with |estimate - truth| <= covariance error
+  double bootstrap_coverage = 0;  // ... <= bootstrap error (NaN without a bootstrap)
+  double bootstrap_to_covariance = 0;  // mean bootstrap error / mean covariance error
+  double spread_to_error = 0;     // sd of the estimates / mean error
+  double bias_error = 0;          // the bias's own uncertainty, in errors: sd / mean error / sqrt(n)
+  int used = 0;                   // mocks counted
+};
+
+struct StudyResult {
+  std::vector<StudyRow> rows;
+  int mocks = 0, failed = 0;
+  nlohmann::json to_json(const StudyOptions& options) const;
+};
+
+StudyResult run_study(const StudyOptions& options);
+// A fixed-width table a person reads.
+std::string study_table(const StudyResult& result);
+
+}  // namespace rungcal

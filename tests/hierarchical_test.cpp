@@ -1,0 +1,172 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/plfit/hierarchical and distance_prior: the quadrature against
+// scipy.integrate.quad, the Gauss-Hermite rule against numpy's hermgauss, digamma against
+// scipy.special (Debian python3-scipy, python3-numpy), the analytic gradient against
+// central differences, and the estimator against simulations with known truth.
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+#include <fmt/format.h>
+
+#include "rungcal/plfit/distance_prior.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/simulate/study.hpp"
+#include "test_util.hpp"
+
+namespace rungcal {
+namespace {
+
+// A small data set with every kind of star and an [Fe/H] error on each.
+FitData mixed_data() {
+  FitData d;
+  auto add = [](FitData::Common& c, double x, double feh, double m0, double var_m, double var_feh) {
+    const Eigen::Index n = c.x.size() + 1;
+    for (Eigen::ArrayXd* a : {&c.x, &c.xl, &c.feh, &c.m0, &c.var_m, &c.var_feh}) a->conservativeResize(n);
+    c.x[n - 1] = x, c.xl[n - 1] = std::max(0.0, x - 0.2), c.feh[n - 1] = feh, c.m0[n - 1] = m0;
+    c.var_m[n - 1] = var_m, c.var_feh[n - 1] = var_feh;
+    c.row.push_back(static_cast<std::size_t>(n - 1));
+  };
+  const double plx[] = {0.9, 0.31, 0.05, -0.02, 0.52, 1.8};
+  const double m0[] = {4.3, 6.9, 10.4, 11.0, 5.6, 2.7};
+  for (int i = 0; i < 6; ++i) {
+    add(d.parallax, -0.3 + 0.15 * i, 0.05 * (i - 3), m0[i], 0.02 * 0.02, 0.08 * 0.08);
+    d.plx.conservativeResize(i + 1), d.var_plx.conservativeResize(i + 1);
+    d.plx[i] = plx[i], d.var_plx[i] = 0.03 * 0.03;
+  }
+  add(d.known, 0.1, 0.02, 8.4, 0.03 * 0.03, 0.05 * 0.05);
+  d.mu.resize(1), d.var_mu.resize(1);
+  d.mu[0] = 14.2, d.var_mu[0] = 0.05 * 0.05;
+  for (int i = 0; i < 3; ++i) add(d.anchor, 0.2 * i, -0.3, 12.7 - 0.6 * i, 0.04 * 0.04, 0.1 * 0.1);
+  d.group = {0, 0, 0};
+  return d;
+}
+
+struct MixedCase {
+  FitData data = mixed_data();
+  ParameterLayout layout;
+  FitSettings settings;
+  Eigen::VectorXd theta;
+};
+
+MixedCase mixed_setup() {
+  MixedCase s;
+  s.layout = ParameterLayout::for_terms(ModelTerms{1.0, true, 1.2, true, 1, true, true}, {"GAL"});
+  s.settings.space = FitSpace::kHierarchical;
+  s.settings.params.assign(static_cast<std::size_t>(s.layout.size), ParamSpec{});
+  s.settings.params[static_cast<std::size_t>(s.layout.anchor0)] = ParamSpec{ParamMode::kPrior, 18.5, 0.05, true};
+  s.settings.params[static_cast<std::size_t>(s.layout.gamma)] = ParamSpec{ParamMode::kPrior, -0.2, 0.1, true};
+  const ParameterLayout& L = s.layout;
+  s.theta = Eigen::VectorXd::Zero(L.size);
+  s.theta[L.alpha] = -5.8, s.theta[L.beta] = -3.2, s.theta[L.beta_long] = 0.3, s.theta[L.gamma] = -0.15;
+  s.theta[L.offset] = -0.02, s.theta[L.sigma] = 0.09, s.theta[L.anchor0] = 18.45, s.theta[L.outlier] = 0.07;
+  s.theta[L.distance_scale] = 1.1, s.theta[L.distance_power] = 1.4, s.theta[L.distance_exponent] = 0.8;
+  s.theta[L.feh_mean] = 0.03, s.theta[L.feh_spread] = 0.17;
+  return s;
+}
+
+// d external / d internal, as hierarchical.cpp maps each parameter.
+double internal_slope(const ParameterLayout& L, int j, double v) {
+  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread) return v;
+  if (j == L.distance_power) return v + 1.0;
+  if (j == L.outlier) return v * (1.0 - v);
+  return 1.0;
+}
+
+TEST(Hierarchical, GradientEqualsCentralDifferencesOfTheLikelihood) {
+  MixedCase s = mixed_setup();
+  HierarchicalValue v = hierarchical_value(s.data, s.settings, s.layout, s.theta);
+  ASSERT_TRUE(v.finite);
+  for (int j = 0; j < s.layout.size; ++j) {
+    const double h = 1e-5 * std::max(1.0, std::abs(s.theta[j]));
+    Eigen::VectorXd up = s.theta, down = s.theta;
+    up[j] += h, down[j] -= h;
+    const double numeric = (hierarchical_value(s.data, s.settings, s.layout, up).neg_log_likelihood -
+                            hierarchical_value(s.data, s.settings, s.layout, down).neg_log_likelihood) /
+                           (2 * h);
+    const double analytic = v.gradient[j] / internal_slope(s.layout, j, s.theta[j]);
+    EXPECT_NEAR(analytic, numeric, 2e-6 * std::max(1.0, std::abs(numeric))) << s.layout.names[static_cast<std::size_t>(j)];
+  }
+}
+
+// One parallax star's member likelihood, integrated by scipy.integrate.quad over mu with the
+// same integrand (method brief, section 4b), against the Laplace-centred Gauss-Hermite rule.
+TEST(Hierarchical, QuadratureEqualsScipyQuadForPreciseNoisyAndNegativeParallaxes) {
+  const std::string script = R"(
+import sys, numpy as np
+from scipy import integrate, special
+m, vm, plx, vp, M, off, L, k, a = map(float, sys.argv[1:10])
+def f(mu):
+    d = 10 ** (0.2 * mu - 2)
+    prior = a / (L ** (k + 1) * special.gamma((k + 1) / a)) * d ** k * np.exp(-(d / L) ** a) * d * np.log(10) / 5
+    pt = 10 ** (-0.2 * (mu - 10))
+    return prior * np.exp(-0.5 * (m - mu - M) ** 2 / vm) / np.sqrt(2 * np.pi * vm) \
+         * np.exp(-0.5 * (plx - pt - off) ** 2 / vp) / np.sqrt(2 * np.pi * vp)
+centre = m - M
+at_parallax = 10 - 5 * np.log10(plx - off) if plx - off > 0 else centre
+lo, hi = min(centre, at_parallax) - 8, max(centre, at_parallax) + 8
+v, err = integrate.quad(f, lo, hi, points=sorted([centre, at_parallax]), limit=1000, epsabs=0, epsrel=1e-13)
+print(repr(np.log(v)))
+)";
+  struct Case {
+    double m0, var_m, plx, plx_err;
+  } cases[] = {{6.0, 0.0081, 0.7, 0.015}, {9.5, 0.0081, 0.06, 0.05}, {10.8, 0.05, -0.03, 0.04}, {4.0, 0.0081, 2.2, 0.02}};
+  for (const Case& c : cases) {
+    FitData d;
+    d.parallax.x = Eigen::ArrayXd::Zero(1), d.parallax.xl = d.parallax.x, d.parallax.feh = d.parallax.x;
+    d.parallax.m0 = Eigen::ArrayXd::Constant(1, c.m0), d.parallax.var_m = Eigen::ArrayXd::Constant(1, c.var_m - 0.0064);
+    d.parallax.row = {0};
+    d.plx = Eigen::ArrayXd::Constant(1, c.plx), d.var_plx = Eigen::ArrayXd::Constant(1, c.plx_err * c.plx_err);
+    ParameterLayout L = ParameterLayout::for_terms(ModelTerms{1.0, false, 0, false, 0, true, false}, {});
+    FitSettings s;
+    s.space = FitSpace::kHierarchical;
+    s.params.assign(static_cast<std::size_t>(L.size), ParamSpec{});
+    s.params[static_cast<std::size_t>(L.outlier)] = ParamSpec{ParamMode::kFixed, 0.0, 0, true};  // the member alone
+    Eigen::VectorXd t(L.size);
+    t[L.alpha] = -4.1, t[L.beta] = -3.0, t[L.offset] = -0.015, t[L.sigma] = 0.08;
+    t[L.outlier] = 0.0, t[L.distance_scale] = 1.3, t[L.distance_power] = 2.0, t[L.distance_exponent] = 1.0;
+    const double ours = -hierarchical_value(d, s, L, t).neg_log_likelihood;
+    s.hierarchical.quadrature_nodes = 64;
+    EXPECT_NEAR(-hierarchical_value(d, s, L, t).neg_log_likelihood, ours, 1e-10) << "24 against 64 nodes";
+    test::CommandResult py = test::run_python(
+        script, {fmt::format("{:.17g}", c.m0), fmt::format("{:.17g}", c.var_m), fmt::format("{:.17g}", c.plx),
+                 fmt::format("{:.17g}", c.plx_err * c.plx_err), "-4.1", "-0.015", "1.3", "2", "1"});
+    ASSERT_EQ(py.exit_code, 0) << py.output;
+    const double reference = test::parse_numbers(py.output).at(0);
+    EXPECT_NEAR(ours, reference, 1e-9 * std::max(1.0, std::abs(reference))) << "parallax " << c.plx;
+  }
+}
+
+TEST(Hierarchical, GaussHermiteRuleEqualsNumpyHermgauss) {
+  std::vector<double> x, w;
+  gauss_hermite(24, x, w);
+  test::CommandResult py = test::run_python(
+      "import numpy as np\nx, w = np.polynomial.hermite.hermgauss(24)\nprint(' '.join(repr(v) for v in list(x) + list(w)))\n");
+  ASSERT_EQ(py.exit_code, 0) << py.output;
+  std::vector<double> ref = test::parse_numbers(py.output);
+  ASSERT_EQ(ref.size(), 48u);
+  for (std::size_t k = 0; k < 24; ++k) {
+    EXPECT_NEAR(x[k], ref[k], 1e-12);
+    EXPECT_NEAR(w[k], ref[24 + k], 1e-12 * std::max(1.0, ref[24 + k]) + 1e-25);
+  }
+}
+
+TEST(DistancePrior, DigammaEqualsScipyAndTheDensityIsNormalised) {
+  test::CommandResult py = test::run_python(
+      "from scipy import special\nprint(' '.join(repr(special.digamma(v)) for v in [0.1, 0.5, 1.0, 2.5, 3.0, 7.3, 40.0]))\n");
+  ASSERT_EQ(py.exit_code, 0) << py.output;
+  std::vector<double> ref = test::parse_numbers(py.output);
+  const double xs[] = {0.1, 0.5, 1.0, 2.5, 3.0, 7.3, 40.0};
+  for (std::size_t i = 0; i < 7; ++i) EXPECT_NEAR(digamma(xs[i]), ref[i], 1e-12 * std::max(1.0, std::abs(ref[i])));
+  // Trapezoid rule over mu: the density integrates to 1 for any hyperparameters.
+  for (auto [L, k, a] : {std::tuple{1.0, 2.0, 1.0}, std::tuple{3.0, 0.5, 2.0}, std::tuple{0.4, -0.5, 0.7}}) {
+    DistancePriorShape p = DistancePriorShape::make(L, k, a);
+    double sum = 0;
+    const double step = 0.001;
+    for (double mu = -90; mu < 40; mu += step) sum += std::exp(p.at(mu).log_density) * step;
+    EXPECT_NEAR(sum, 1.0, 1e-6) << L << " " << k << " " << a;
+  }
+}
+
+}  // namespace
+}  // namespace rungcal
