@@ -556,5 +556,63 @@ TEST(IngestChunks, AStreamedTextCatalogEqualsOneReadAsASingleGroup) {
   EXPECT_FALSE(test::file_exists(dir.file("out/broken_rejects.csv")));
 }
 
+// NAXIS1 (bytes per row) of the first binary table in a FITS file, read from the header text.
+long first_table_row_bytes(const std::string& path) {
+  const std::string bytes = test::read_text(path);
+  const auto at = bytes.find("NAXIS1  =", bytes.find("XTENSION= 'BINTABLE'"));
+  return at == std::string::npos ? 0 : std::stol(bytes.substr(at + 10, 20));
+}
+
+TEST(IngestChunks, KeptRowsFillingWholeFitsBlocksAreWritten) {
+  // Issue 15: when rows were refused and the kept rows filled an exact multiple of 2880
+  // bytes, ingest stopped with "[write_failed] closing table CATALOG: tried to move past end
+  // of file". Every kept count from 1 to 150 (the catalog rows are the same width, so
+  // several counts fill whole blocks), text and FITS input, with a refused row and without.
+  test::TempDir dir;
+  IngestOptions o = ingest_options_from_file(test::source_file("config/demo/ingest_targets.toml"));
+  o.chunk_rows = 64;
+  o.rejects_csv_path = dir.file("rejects.csv");
+  const std::string header = "id,host,period_d,ebv,ebv_err,feh,mag_V,mag_err_V,mag_I,mag_err_I,mag_H,mag_err_H\n";
+  auto line = [](std::size_t i, bool refused) {
+    return fmt::format("VEY-{:04d},Veyra Spiral,{:.5f},0.121,0.020,-0.10,24.393,0.082,23.519,0.067,"
+                       "22.176,0.078\n",
+                       i, refused ? -1.0 : 10.0 + 0.01 * static_cast<double>(i));
+  };
+  std::size_t whole_blocks = 0;
+  for (std::size_t kept = 1; kept <= 150; ++kept) {
+    for (bool with_reject : {false, true}) {
+      std::string csv = header;
+      for (std::size_t i = 0; i < kept; ++i) {
+        if (with_reject && i == kept / 2) csv += line(900 + i, true);  // period -1: refused
+        csv += line(i, false);
+      }
+      test::write_text(dir.file("in.csv"), csv);
+      for (bool fits : {false, true}) {
+        if (fits) {
+          StarTable in = read_text_table(dir.file("in.csv"), o.text).table;
+          write_fits_tables(dir.file("in.fits"), {{"STARS", &in}});
+        }
+        o.input_path = dir.file(fits ? "in.fits" : "in.csv");
+        o.input_is_fits = fits;
+        o.catalog_path = dir.file("cat.fits");
+        IngestResult r = ingest_catalog_file(o);
+        ASSERT_EQ(r.stars, kept) << (fits ? "FITS" : "text") << ", refused row: " << with_reject;
+        ASSERT_EQ(r.rejected.size(), with_reject ? 1u : 0u);
+        if (with_reject) {
+          EXPECT_EQ(r.rejected[0].rule, "period_nonpositive");
+        }
+        const StarTable back = read_fits_table(o.catalog_path, {"CATALOG", 0}).table;
+        ASSERT_EQ(back.rows(), kept);
+        // The last star's period as in the input line.
+        EXPECT_DOUBLE_EQ(back.column(col::kPeriod).real[kept - 1], 10.0 + 0.01 * static_cast<double>(kept - 1));
+        const long row_bytes = first_table_row_bytes(o.catalog_path);
+        ASSERT_GT(row_bytes, 0);
+        if (with_reject && fits && kept * static_cast<std::size_t>(row_bytes) % 2880 == 0) ++whole_blocks;
+      }
+    }
+  }
+  EXPECT_GE(whole_blocks, 2u);  // the sweep did reach the counts that failed
+}
+
 }  // namespace
 }  // namespace rungcal

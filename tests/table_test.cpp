@@ -397,6 +397,58 @@ TEST(FitsStream, GroupsWrittenInTurnReadBackAsOneTable) {
   }
 }
 
+// A table of `columns` real columns (8 bytes a row each) and rows [first, first + n), the
+// value of row r in column c being r + c / 1000.
+StarTable real_rows(std::size_t columns, std::size_t first, std::size_t n) {
+  StarTable t;
+  // Every column first: a column added later is made as long as the table already is.
+  for (std::size_t c = 0; c < columns; ++c) t.add_column(fmt::format("x{}", c), ColumnType::kReal);
+  for (std::size_t c = 0; c < columns; ++c)
+    for (std::size_t r = first; r < first + n; ++r)
+      t.column(c).push_real(static_cast<double>(r) + static_cast<double>(c) / 1000.0);
+  return t;
+}
+
+// Streams `kept` rows in groups of `group` into a table made for kept + dropped rows, then
+// reads the file back: the rows and values written, and nothing else.
+void stream_and_check(const test::TempDir& dir, std::size_t columns, std::size_t kept,
+                      std::size_t dropped, std::size_t group) {
+  const std::string path = dir.file("s.fits");
+  FitsTableStream stream(path, "STREAM", static_cast<std::int64_t>(kept + dropped));
+  for (std::size_t first = 0; first < kept; first += group)
+    stream.append(real_rows(columns, first, std::min(group, kept - first)));
+  StarTable rejects = real_rows(1, 0, dropped);
+  stream.finish({}, {{"REJECTS", &rejects}}, real_rows(columns, 0, 0));
+  const StarTable back = read_fits_table(path, {"STREAM", 0}).table;
+  ASSERT_EQ(back.rows(), kept) << kept << " kept, " << dropped << " dropped";
+  ASSERT_EQ(back.columns(), columns);
+  for (std::size_t r = 0; r < kept; ++r)
+    for (std::size_t c = 0; c < columns; ++c)
+      ASSERT_EQ(back.column(c).real[r], static_cast<double>(r) + static_cast<double>(c) / 1000.0)
+          << kept << " kept, " << dropped << " dropped, row " << r;
+  EXPECT_EQ(read_fits_table(path, {"REJECTS", 0}).table.rows(), dropped);
+  EXPECT_EQ(std::filesystem::file_size(path) % 2880, 0u);  // FITS 4.0, section 3.1
+}
+
+TEST(FitsStream, EveryKeptRowCountReadsBackWithOrWithoutDroppedRows) {
+  // The rows made but not written (rows an ingest refused) are dropped at finish(); when
+  // the kept rows ended exactly on a 2880-byte FITS block, cfitsio failed with "tried to
+  // move past end of file" (issue 15). Rows of two 8-byte columns: every count from 1 to
+  // 2,000 with a row dropped, 11 of them filling whole blocks (180 rows a block), and every
+  // count to 400 with none dropped.
+  test::TempDir dir;
+  for (std::size_t kept = 1; kept <= 2000; ++kept) stream_and_check(dir, 2, kept, 1, 1000);
+  for (std::size_t kept = 1; kept <= 400; ++kept) stream_and_check(dir, 2, kept, 0, 1000);
+  // More dropped rows than a block holds, across groups, and rows 1,440 bytes wide (180
+  // columns: every even count fills whole blocks).
+  for (std::size_t kept : {360u, 720u, 2880u})
+    for (std::size_t dropped : {359u, 360u, 361u, 5000u}) stream_and_check(dir, 1, kept, dropped, 7);
+  for (std::size_t kept = 1; kept <= 24; ++kept)
+    for (std::size_t dropped : {0u, 1u, 2u, 3u}) stream_and_check(dir, 180, kept, dropped, 5);
+  // Every row refused: an empty table.
+  stream_and_check(dir, 1, 0, 360, 1);
+}
+
 TEST(FitsStream, AStreamNeverFinishedLeavesNothing) {
   test::TempDir dir;
   {

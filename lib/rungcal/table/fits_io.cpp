@@ -928,7 +928,25 @@ void FitsTableStream::finish(const std::vector<Keyword>& header,
   if (!m.table_made) append(empty_schema);
   int status = 0;
   fits_movabs_hdu(m.file.get(), 2, nullptr, &status);
-  if (m.allocated > m.rows) fits_delete_rows(m.file.get(), m.rows + 1, m.allocated - m.rows, &status);
+  if (m.allocated > m.rows) {
+    // The rows made but never written exist in neither the file nor cfitsio's buffers, and
+    // fits_delete_rows assumes they do: it blanks the bytes freed behind the last kept row
+    // after a seek that reports end of file (ffshft, editcol.c), so when the kept rows end
+    // exactly on a 2880-byte block it failed with "tried to move past end of file". The
+    // unused rows are therefore written (zeros) before they are deleted; they are at most
+    // the rows refused, so this costs little.
+    std::size_t row_bytes = 0;
+    for (std::size_t w : m.widths) row_bytes += w;
+    const LONGLONG block = std::max<LONGLONG>(1, (256 << 10) / std::max<std::size_t>(1, row_bytes));
+    std::vector<unsigned char> zeros;
+    for (LONGLONG r = m.rows; r < m.allocated && status == 0; r += block) {
+      const LONGLONG n = std::min(block, m.allocated - r);
+      zeros.assign(static_cast<std::size_t>(n) * row_bytes, 0);
+      fits_write_tblbytes(m.file.get(), r + 1, 1, static_cast<LONGLONG>(zeros.size()),
+                          zeros.data(), &status);
+    }
+    fits_delete_rows(m.file.get(), m.rows + 1, m.allocated - m.rows, &status);
+  }
   if (status) throw_write_status(status, path, "closing table " + m.extname);
   for (const auto& k : header) write_keyword(m.file.get(), k, path);
   for (const auto& [name, table] : more) write_one_table(m.file.get(), name, *table, path);
