@@ -5,6 +5,7 @@
 
 #include <spdlog/spdlog.h>
 
+#include "rungcal/core/log.hpp"
 #include "rungcal/core/stage_main.hpp"
 #include "rungcal/run/run.hpp"
 
@@ -36,6 +37,7 @@ int main(int argc, char** argv) {
         "run", common.verbosity(),
         (std::filesystem::path(options.folder) / "logs" / "rungcal-run.log").string(),
         options.log_rotate_bytes, options.log_files);
+    rungcal::throw_deferred_logging_error();
     rungcal::RunOutcome out = rungcal::run_pipeline(options);
     spdlog::debug("{}", out.summary);
     std::printf("%s\n", out.summary.c_str());

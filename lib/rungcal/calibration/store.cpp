@@ -29,13 +29,7 @@ namespace fs = std::filesystem;
 namespace rungcal {
 namespace {
 
-std::string read_all(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return ss.str();
-}
+std::string read_all(const std::string& path) { return read_input_file(path); }
 
 nlohmann::json read_json(const std::string& path) {
   try {

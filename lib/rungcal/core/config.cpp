@@ -7,6 +7,7 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/provenance.hpp"
 
@@ -205,11 +206,8 @@ Config Config::from_string(const std::string& text, const std::string& name) {
 }
 
 Config Config::from_file(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the config file");
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return from_string(ss.str(), path);
+  // A folder or a FIFO is refused at once, not read as an empty config or waited on.
+  return from_string(read_input_file(path), path);
 }
 
 ConfigSection Config::root() { return ConfigSection(this, &table_, ""); }

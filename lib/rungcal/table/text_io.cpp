@@ -343,7 +343,7 @@ struct TextTableReader::Impl {
 };
 
 TextTableReader::TextTableReader(const std::string& path, const TextReadOptions& options)
-    : impl_(std::make_unique<Impl>(path, options)) {
+    : impl_((check_input_file(path), std::make_unique<Impl>(path, options))) {
   Impl& m = *impl_;
   if (!m.in)
     throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
@@ -374,6 +374,7 @@ SourceTable TextTableReader::read(std::size_t max_rows) {
 std::uint64_t TextTableReader::bytes_read() const { return impl_->bytes_taken; }
 
 SourceTable read_text_table(const std::string& path, const TextReadOptions& options) {
+  check_input_file(path);
   std::ifstream in(path, std::ios::binary);
   if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
   std::string content;
