@@ -6,6 +6,7 @@
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
+#include <set>
 
 #include <fmt/format.h>
 
@@ -447,6 +448,38 @@ TEST(FitsStream, EveryKeptRowCountReadsBackWithOrWithoutDroppedRows) {
     for (std::size_t dropped : {0u, 1u, 2u, 3u}) stream_and_check(dir, 180, kept, dropped, 5);
   // Every row refused: an empty table.
   stream_and_check(dir, 1, 0, 360, 1);
+}
+
+TEST(FitsPaths, NamesAreTakenLiterallyNotAsCfitsioSyntax) {
+  // Issue 15: cfitsio reads "cal[1].fits" as HDU 1 of "cal", "run(2)/x" as a template and
+  // more; a folder run[1] failed and left a stray empty file, and cal[1].fits could not be
+  // read. Every such name is written, streamed and read as the file it names.
+  test::TempDir dir;
+  const StarTable t = stream_group({"A", "B"}, 1.0);
+  for (const std::string folder : {"run[1]", "run(2)", "a+b", "x[STARS]", "c{d}"}) {
+    for (const std::string name : {"cal[1].fits", "cal(2).fits", "plain.fits", "k[col x].fits", "~t.fits"}) {
+      const std::string path = dir.file(folder) + "/" + name;
+      write_fits_tables(path, {{"STARS", &t}});
+      StarTable back = read_fits_table(path, {"STARS", 0}).table;
+      back.header().clear();
+      EXPECT_EQ(format_csv_table(back), format_csv_table(t)) << path;
+      FitsTableStream stream(path + ".s", "STREAM", 3);
+      stream.append(t);
+      stream.finish({}, {}, t);
+      EXPECT_EQ(read_fits_table(path + ".s", {"STREAM", 0}).table.rows(), 2u) << path;
+    }
+    std::set<std::string> files;
+    for (const auto& e : std::filesystem::directory_iterator(dir.file(folder)))
+      files.insert(e.path().filename().string());
+    EXPECT_EQ(files, (std::set<std::string>{"cal[1].fits", "cal[1].fits.s", "cal(2).fits", "cal(2).fits.s",
+                                            "plain.fits", "plain.fits.s", "k[col x].fits", "k[col x].fits.s",
+                                            "~t.fits", "~t.fits.s"}))
+        << folder;
+  }
+  // Nothing was made beside the folders (cfitsio's syntax once made "run" from "run[1]").
+  std::set<std::string> top;
+  for (const auto& e : std::filesystem::directory_iterator(dir.path())) top.insert(e.path().filename().string());
+  EXPECT_EQ(top, (std::set<std::string>{"run[1]", "run(2)", "a+b", "x[STARS]", "c{d}"}));
 }
 
 TEST(FitsStream, AStreamNeverFinishedLeavesNothing) {

@@ -5,7 +5,6 @@
 
 #include <unistd.h>
 
-#include <CCfits/CCfits>
 #include <algorithm>
 #include <bit>
 #include <cerrno>
@@ -585,6 +584,30 @@ struct FitsFileCloser {
   }
 };
 
+// cfitsio's path for a file name taken literally. fits_open_file and fits_create_file parse
+// cfitsio's extended filename syntax ("cal[1].fits" would mean HDU 1 of cal, "run(2)/x" a
+// template, and a "file://" prefix does not turn that off); fits_open_diskfile does not.
+// Its disk driver still expands a leading '~', so such a relative name gets "./".
+std::string literal_name(const std::string& path) {
+  return !path.empty() && path[0] == '~' ? "./" + path : path;
+}
+
+// Opens an existing FITS file by its literal name. Throws InputError "fits_read".
+fitsfile* open_literal(const std::string& path, int mode) {
+  int status = 0;
+  fitsfile* f = nullptr;
+  fits_open_diskfile(&f, literal_name(path).c_str(), mode, &status);
+  if (status) {
+    if (f) {
+      int ignored = 0;
+      fits_close_file(f, &ignored);
+    }
+    throw InputError({path, {}, {}}, "fits_read",
+                     "not a readable FITS file: " + cfitsio_message(status));
+  }
+  return f;
+}
+
 // The bytes of the primary HDU cfitsio writes for an empty image (fits_create_img with
 // BYTE_IMG and no axes): one 2880-byte block, made in memory.
 std::string empty_primary_hdu() {
@@ -621,7 +644,7 @@ fitsfile* open_output(AtomicOutput& out, const std::string& path) {
   }
   int status = 0;
   fitsfile* f = nullptr;
-  fits_open_diskfile(&f, out.reopen_path().c_str(), READWRITE, &status);
+  fits_open_diskfile(&f, literal_name(out.reopen_path()).c_str(), READWRITE, &status);
   if (status) throw_write_status(status, path, "opening the new file");
   return f;
 }
@@ -649,7 +672,7 @@ struct RawColumn {
 };
 
 struct FitsTableReader::Impl {
-  std::unique_ptr<CCfits::FITS> fits;
+  std::unique_ptr<fitsfile, FitsFileCloser> file;
   fitsfile* f = nullptr;
   std::string path;
   LONGLONG rows = 0;
@@ -807,14 +830,8 @@ FitsTableReader::FitsTableReader(const std::string& path, const FitsHduChoice& h
   impl_->path = path;
   try {
     check_declared_sizes(path);
-    // CCfits opens the file and checks the primary header; cfitsio does the null-aware reads.
-    try {
-      CCfits::FITS::setVerboseMode(false);
-      impl_->fits = std::make_unique<CCfits::FITS>(path, CCfits::Read, false);
-    } catch (const CCfits::FitsException& e) {
-      throw InputError({path, {}, {}}, "fits_read", "not a readable FITS file: " + e.message());
-    }
-    impl_->f = impl_->fits->fitsPointer();
+    impl_->file.reset(open_literal(path, READONLY));
+    impl_->f = impl_->file.get();
     move_to_hdu(impl_->f, path, hdu);
     int status = 0;
     fits_get_num_rowsll(impl_->f, &impl_->rows, &status);
