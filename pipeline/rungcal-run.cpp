@@ -32,7 +32,7 @@ int main(int argc, char** argv) {
     rungcal::RunOptions options = rungcal::run_options_from_file(config_path);
     options.dry_run = dry_run;
     options.force = force;
-    std::filesystem::create_directories(std::filesystem::path(options.folder) / "logs");
+    rungcal::check_run_folder(options);
     rungcal::setup_logging(
         "run", common.verbosity(),
         (std::filesystem::path(options.folder) / "logs" / "rungcal-run.log").string(),

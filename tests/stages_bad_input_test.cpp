@@ -25,6 +25,7 @@ struct StageCase {
   std::string rule;                                        // expected [rule]
   std::string names;                                       // the message names this (file or key)
   std::string must_not_exist = "out";                      // nothing written here
+  std::string setup = "";  // shell commands run in {dir} after the files are written
 };
 
 // Test names in listings, not the struct's bytes.
@@ -32,6 +33,30 @@ void PrintTo(const StageCase& c, std::ostream* os) { *os << c.name; }
 
 const std::string kDemo = test::source_file("config/demo");
 const std::string kRelation = "[[relation]]\nname = \"V\"\nband = \"V\"\n";
+
+const std::string kTargets = "--config " + test::source_file("config/demo/ingest_targets.toml");
+const std::string kTargetsHeader =
+    "id,host,period_d,ebv,ebv_err,feh,mag_V,mag_err_V,mag_I,mag_err_I,mag_H,mag_err_H\n";
+const std::string kTargetsLine = "VEY-0001,Veyra Spiral,29.93505,0.121,0.02,-0.1,24.393,0.082,23.519,0.067,22.176,0.078\n";
+// A pipeline config over the demo's stage configs, into {dir}/out.
+const std::string kPipeline = "[run]\nfolder = \"out\"\ncalibration = \"c\"\n[ingest]\nconfig = \"" + kDemo +
+                              "/ingest.toml\"\n[deredden]\nconfig = \"" + kDemo + "/deredden.toml\"\n[fit]\nconfig = \"" +
+                              kDemo + "/fit.toml\"\n";
+// A small ingest config (the input is never reached: the config is refused first).
+const std::string kIngestConfig =
+    "[source]\npath = \"in.csv\"\n[columns]\nid = \"id\"\nperiod = \"P\"\nmode = { value = \"fundamental\" }\n"
+    "pulsator_class = { value = \"classical_cepheid\" }\n[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n";
+// A rungcal-fit result with one relation and one parameter; {value} is the parameter's value.
+std::string fit_json(const std::string& value, const std::string& covariance = ", \"covariance\": [[0.01]]") {
+  return "{\"schema\": \"rungcal-fit\", \"relations\": [{\"name\": \"V\", \"pivot_log_period\": 1.0, "
+         "\"parameter_names\": [\"alpha\"], \"parameters\": [{\"name\": \"alpha\", \"mode\": \"free\", "
+         "\"value\": " + value + ", \"error\": 0.1}]" + covariance + "}]}";
+}
+// A stored calibration (store/t/v0001, latest) holding fit.
+std::string calibration_json(const std::string& fit) {
+  return "{\"schema\": \"rungcal-calibration\", \"schema_version\": 1, \"name\": \"t\", \"version\": 1, "
+         "\"content_sha256\": \"x\", \"config_text\": \"\", \"previous\": null, \"fit\": " + fit + "}";
+}
 
 std::vector<StageCase> stage_cases() {
   return {
@@ -177,6 +202,33 @@ std::vector<StageCase> stage_cases() {
        {},
        "unreadable_file",
        "nothere.toml"},
+      // Issue 15, internal errors that are bad input.
+      {"IngestIdNotUtf8", "ingest", kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits",
+       {{"in.csv", kTargetsHeader + kTargetsLine + "VEY-\xff" "02,Veyra Spiral,20.1,0.1,0.02,-0.1,24.0,0.08,23.5,0.07,22.1,0.08\n"}},
+       "invalid_utf8", "in.csv:line 3: column 'id'"},
+      {"IngestFitsInputIsASymlinkLoop", "ingest", "--config " + kDemo + "/ingest.toml --input {dir}/cal.fits --out {dir}/out/c.fits",
+       {}, "unreadable_file", "Too many levels of symbolic links", "out", "ln -s loop cal.fits && ln -s cal.fits loop"},
+      {"RunLogFilesNegative", "run", "--config {dir}/r.toml", {{"r.toml", test::replaced(kPipeline, {{"calibration = \"c\"\n", "calibration = \"c\"\nlog_files = -1\n"}})}},
+       "config_value", "log_files"},
+      {"RunFolderIsAFile", "run", "--config {dir}/r.toml", {{"r.toml", kPipeline}, {"out", "a file"}},
+       "run_folder_not_a_folder", "out", "out/catalog.fits"},
+      {"PublishFitNestedTooDeep", "publish", "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", std::string(100000, '[') + std::string(100000, ']')}}, "json_too_deep", "fit.json"},
+      {"PublishFitWithoutRelations", "publish", "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", "{\"schema\": \"rungcal-fit\"}"}}, "fit_schema", "relations"},
+      {"PublishFitStringValue", "publish", "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", fit_json("\"12.5\"")}}, "fit_schema", "relations[0].parameters[0].value"},
+      {"PublishFitNullValue", "publish", "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", fit_json("null")}}, "fit_schema", "relations[0].parameters[0].value"},
+      {"PublishFitNumberBeyondDouble", "publish", "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", fit_json("1e400")}}, "json_syntax", "1e400"},
+      {"DiffStoredCalibrationWithoutCovariance", "diff", "--store {dir}/store --to t@latest",
+       {{"store/t/v0001/calibration.json", calibration_json(fit_json("-2.5", ""))}}, "fit_schema",
+       "relations[0].covariance", "out", "ln -s v0001 store/t/latest"},
+      {"ApplyStoredCalibrationWithoutCovariance", "apply",
+       "--store {dir}/store --calibration t@latest --relation V --targets x.fits --out {dir}/out/d.fits",
+       {{"store/t/v0001/calibration.json", calibration_json(fit_json("-2.5", ""))}}, "fit_schema",
+       "covariance", "out", "ln -s v0001 store/t/latest"},
   };
 }
 
@@ -190,15 +242,22 @@ class StageBadInput : public ::testing::TestWithParam<StageCase> {};
 TEST_P(StageBadInput, StopsWithExit2ItsRuleAndWritesNothing) {
   const StageCase& c = GetParam();
   test::TempDir dir;
-  for (const auto& [name, content] : c.files) test::write_text(dir.file(name), content);
+  for (const auto& [name, content] : c.files) {
+    fs::create_directories(fs::path(dir.file(name)).parent_path());
+    test::write_text(dir.file(name), content);
+  }
+  if (!c.setup.empty()) {
+    ASSERT_EQ(test::run_command("cd " + dir.path() + " && " + c.setup).exit_code, 0) << c.setup;
+  }
   auto r = test::run_command("cd " + dir.path() + " && " + std::string(RUNGCAL_BIN_DIR) +
                              "/rungcal-" + c.stage + " " + with_dir(c.args, dir.path()));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
   EXPECT_NE(r.output.find(c.names), std::string::npos) << r.output;
   EXPECT_FALSE(fs::exists(dir.file(c.must_not_exist))) << c.must_not_exist << " was written";
-  for (const auto& e : fs::recursive_directory_iterator(dir.path()))
+  for (const auto& e : fs::recursive_directory_iterator(dir.path(), fs::directory_options::skip_permission_denied)) {
     EXPECT_EQ(e.path().string().find(".part"), std::string::npos) << e.path();
+  }
 }
 
 INSTANTIATE_TEST_SUITE_P(Cases, StageBadInput, ::testing::ValuesIn(stage_cases()),

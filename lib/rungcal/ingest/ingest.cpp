@@ -1160,6 +1160,37 @@ class GroupReader {
   std::size_t next_row_ = 0;
 };
 
+// The offset of the first byte of s that breaks UTF-8 (RFC 3629: no overlong forms, no
+// surrogates, nothing above U+10FFFF), or npos when s is well-formed.
+std::size_t first_invalid_utf8(std::string_view s) {
+  std::size_t i = 0;
+  while (i < s.size()) {
+    const auto b = static_cast<unsigned char>(s[i]);
+    if (b < 0x80) {
+      ++i;
+      continue;
+    }
+    std::size_t n = 0;
+    unsigned lo = 0x80, hi = 0xBF;  // the allowed range of the second byte
+    if (b >= 0xC2 && b <= 0xDF) n = 1;
+    else if (b == 0xE0) n = 2, lo = 0xA0;
+    else if (b >= 0xE1 && b <= 0xEC) n = 2;
+    else if (b == 0xED) n = 2, hi = 0x9F;
+    else if (b >= 0xEE && b <= 0xEF) n = 2;
+    else if (b == 0xF0) n = 3, lo = 0x90;
+    else if (b >= 0xF1 && b <= 0xF3) n = 3;
+    else if (b == 0xF4) n = 3, hi = 0x8F;
+    else return i;
+    for (std::size_t k = 1; k <= n; ++k) {
+      if (i + k >= s.size()) return i;
+      const auto c = static_cast<unsigned char>(s[i + k]);
+      if (c < (k == 1 ? lo : 0x80) || c > (k == 1 ? hi : 0xBF)) return i;
+    }
+    i += n + 1;
+  }
+  return std::string_view::npos;
+}
+
 // Takes the settled groups' accepted rows, in file order, with the rows to expect in all.
 using GroupSink = std::function<void(StarTable&&, std::size_t expected_rows)>;
 
@@ -1209,6 +1240,12 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
       const std::string& id = f >= 0 ? accepted_ids[static_cast<std::size_t>(f)]
                                      : g.refusals[static_cast<std::size_t>(-1 - f)].id;
       if (!id.empty()) {
+        // Ids go to JSON and FITS text: a byte that is not UTF-8 stops the file here (it
+        // was an internal error later, in the fit, issue 15).
+        if (const std::size_t bad = first_invalid_utf8(id); bad != std::string_view::npos)
+          throw InputError({o.input_path, g.source_rows[r], g.id_column, g.row_label}, "invalid_utf8",
+                           fmt::format("the star id is not valid UTF-8: byte {} is 0x{:02X}", bad + 1,
+                                       static_cast<unsigned char>(id[bad])));
         if (auto first = ids.first_seen(g.id_hash[r], g.source_rows[r])) {
           result.rejected.push_back(
               {g.source_rows[r], id, "duplicate_id", g.id_column,
