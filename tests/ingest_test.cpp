@@ -180,6 +180,69 @@ TEST(IngestRows, EachBrokenRuleRejectsItsRowAndNamesIt) {
   EXPECT_EQ(r.rejected[3].column, "plx");
 }
 
+TEST(IngestRows, ImplausibleValuesAreRefusedWithTheirRule) {
+  // Issue 15: a parallax, period or [Fe/H] of 1e308 (or a period of 1e30 or 1e-300 d)
+  // passed ingest and crashed the fit. Limits per quantity in [validate], defaults
+  // documented in docs/file-formats.md; an id equal to an earlier one but for case is
+  // warned about by default and refused when configured.
+  test::TempDir dir;
+  test::write_text(dir.file("in.csv"),
+                   "id,P,plx,plx_err,V,V_err,ebv,mode,feh\n"
+                   "S1,5.0,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"      // line 2: good
+                   "S2,5.0,1e308,0.05,12.0,0.02,0.3,F,-0.1\n"    // parallax_out_of_range
+                   "S3,1e308,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"    // period_out_of_range
+                   "S4,1e30,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"     // period_out_of_range
+                   "S5,1e-300,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"   // period_out_of_range
+                   "S6,5.0,0.5,0.05,12.0,0.02,0.3,F,1e308\n"     // feh_out_of_range
+                   "S7,5.0,0.5,500,12.0,0.02,0.3,F,-0.1\n"       // parallax_error_out_of_range
+                   "S8,5.0,0.5,0.05,12.0,9.9,0.3,F,-0.1\n"       // magnitude_error_out_of_range
+                   "S9,5.0,-1500,0.05,12.0,0.02,0.3,F,-0.1\n"    // parallax_out_of_range
+                   "s1,0.5,0.7,0.05,12.0,0.02,0.3,F,-0.1\n");    // good: a variant of S1 (warned)
+  test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits", "", "feh = \"feh\"\n"));
+  IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
+  EXPECT_EQ(o.parallax_abs_max, 1000.0);
+  EXPECT_EQ(o.period_range.min, 0.05);
+  EXPECT_EQ(o.period_range.max, 1000.0);
+  IngestResult r = run_ingest(o);
+  ASSERT_EQ(r.catalog.rows(), 2u);
+  std::vector<std::pair<std::int64_t, std::string>> got;
+  for (const auto& rej : r.rejected) got.emplace_back(rej.source_row, rej.rule);
+  EXPECT_EQ(got, (std::vector<std::pair<std::int64_t, std::string>>{{3, "parallax_out_of_range"},
+                                                                    {4, "period_out_of_range"},
+                                                                    {5, "period_out_of_range"},
+                                                                    {6, "period_out_of_range"},
+                                                                    {7, "feh_out_of_range"},
+                                                                    {8, "parallax_error_out_of_range"},
+                                                                    {9, "magnitude_error_out_of_range"},
+                                                                    {10, "parallax_out_of_range"}}));
+  EXPECT_EQ(r.rejected[0].column, "plx");
+  EXPECT_EQ(r.rejected[1].message,
+            "period 1e+308 d is outside the plausible [0.05, 1000] d for classical_cepheid ([validate] period_range_d)");
+  // Limits from the config: the class's own period range, a tighter parallax limit, and
+  // id variants refused.
+  test::write_text(dir.file("c.toml"),
+                   config_for("in.csv", "out/cat.fits", "", "feh = \"feh\"\n") +
+                       "\n[validate]\nparallax_max_mas = 0.6\nid_variants = \"refuse\"\n"
+                       "[validate.class_period_range_d]\nclassical_cepheid = [1.0, 100.0]\n");
+  r = run_ingest(ingest_options_from_file(dir.file("c.toml")));
+  ASSERT_EQ(r.catalog.rows(), 1u);
+  ASSERT_FALSE(r.rejected.empty());
+  EXPECT_EQ(r.rejected.back().rule, "id_variant");
+  EXPECT_EQ(r.rejected.back().source_row, 11);
+  EXPECT_EQ(r.rejected.back().message, "id 's1' equals the id at line 2 but for letter case or spaces around it");
+  // Config numbers must be finite, and ranges in order.
+  for (const std::string bad : {"parallax_max_mas = nan", "feh_range = [1.0, -1.0]", "magnitude_error_max = -1",
+                                "id_variants = \"sometimes\"", "period_range_d = [0.0, 5.0]"}) {
+    test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits") + "\n[validate]\n" + bad + "\n");
+    try {
+      run_ingest(ingest_options_from_file(dir.file("c.toml")));
+      ADD_FAILURE() << bad << " was accepted";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "config_value") << bad;
+    }
+  }
+}
+
 TEST(IngestRows, NanInFitsIsMissingAndUnitsConvert) {
   test::TempDir dir;
   StarTable t;

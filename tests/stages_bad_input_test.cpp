@@ -229,6 +229,21 @@ std::vector<StageCase> stage_cases() {
        "--store {dir}/store --calibration t@latest --relation V --targets x.fits --out {dir}/out/d.fits",
        {{"store/t/v0001/calibration.json", calibration_json(fit_json("-2.5", ""))}}, "fit_schema",
        "covariance", "out", "ln -s v0001 store/t/latest"},
+      // Issue 15, limits: non-finite config numbers, a runaway field, unknown policies.
+      {"FitMaxRuweNan", "fit", "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\nmax_ruwe = nan\n" + kRelation}}, "config_value", "max_ruwe"},
+      {"FitPivotLogPeriodNan", "fit", "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\n" + kRelation + "pivot_log_period = nan\n"}}, "config_value",
+       "pivot_log_period"},
+      {"IngestParallaxLimitInfinite", "ingest", "--config {dir}/c.toml --out {dir}/out/t.fits",
+       {{"c.toml", kIngestConfig + "[validate]\nparallax_max_mas = inf\n"}}, "config_value", "parallax_max_mas"},
+      {"IngestPeriodRangeNotPositive", "ingest", "--config {dir}/c.toml --out {dir}/out/t.fits",
+       {{"c.toml", kIngestConfig + "[validate]\nperiod_range_d = [0.0, 10.0]\n"}},
+       "config_value", "period_range_d"},
+      {"IngestOneHugeField", "ingest", kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits",
+       {{"in.csv", kTargetsHeader + kTargetsLine + "VEY-0002," + std::string(10u << 20, 'x') +
+                       ",20.1,0.1,0.02,-0.1,24.0,0.08,23.5,0.07,22.1,0.08\n"}},
+       "field_too_long", "in.csv:line 3: column 'host'"},
   };
 }
 
