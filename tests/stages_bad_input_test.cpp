@@ -1,10 +1,12 @@
 // SPDX-License-Identifier: MIT
 // Bad input across the stage executables (deredden, fit, publish, apply, report, diff,
-// simulate, run, lightcurve): each case must stop with exit 2, a message naming the file
-// and the broken rule in brackets, and leave nothing half-written. The ingest stage's own
-// cases are in ingest_test.cpp, the light-curve stage's in lightcurve_test.cpp.
+// simulate, run, lightcurve, and ingest's file cases): each case must stop with exit 2, a
+// message naming the file and the broken rule in brackets, and leave nothing half-written.
+// The ingest stage's row and config cases are in ingest_test.cpp, the light-curve stage's
+// in lightcurve_test.cpp. Valid input that once failed (issue 15) is at the end.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <filesystem>
 #include <ostream>
 #include <string>
@@ -33,7 +35,6 @@ void PrintTo(const StageCase& c, std::ostream* os) { *os << c.name; }
 
 const std::string kDemo = test::source_file("config/demo");
 const std::string kRelation = "[[relation]]\nname = \"V\"\nband = \"V\"\n";
-
 const std::string kTargets = "--config " + test::source_file("config/demo/ingest_targets.toml");
 const std::string kTargetsHeader =
     "id,host,period_d,ebv,ebv_err,feh,mag_V,mag_err_V,mag_I,mag_err_I,mag_H,mag_err_H\n";
@@ -202,6 +203,34 @@ std::vector<StageCase> stage_cases() {
        {},
        "unreadable_file",
        "nothere.toml"},
+      // Issue 15, file safety: outputs and inputs that are not regular files, symlinked
+      // lock and log files.
+      {"IngestOutputIsAFifo", "ingest", kTargets + " --out {dir}/out.fits", {}, "output_not_regular_file",
+       "out.fits", "out", "mkfifo out.fits"},
+      {"IngestOutputIsAFolder", "ingest", kTargets + " --out {dir}/out.fits", {}, "output_not_regular_file",
+       "out.fits", "out", "mkdir out.fits"},
+      {"IngestInputIsAFifo", "ingest", kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits", {},
+       "input_not_regular_file", "in.csv", "out", "mkfifo in.csv"},
+      {"IngestInputIsAFolder", "ingest", kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits", {},
+       "input_not_regular_file", "in.csv", "out", "mkdir in.csv"},
+      {"IngestConfigIsAFifo", "ingest", "--config {dir}/c.toml --out {dir}/out/t.fits", {},
+       "input_not_regular_file", "c.toml", "out", "mkfifo c.toml"},
+      {"RunConfigIsAFolder", "run", "--config {dir}/r.toml", {}, "input_not_regular_file", "r.toml", "out",
+       "mkdir r.toml"},
+      {"RunInputIsAFifo", "run", "--config {dir}/r.toml",
+       {{"r.toml", test::replaced(kPipeline, {{"[ingest]\n", "[ingest]\ninput = \"in.fits\"\n"}})}},
+       "input_not_regular_file", "in.fits",
+       "out/catalog.fits", "mkfifo in.fits"},
+      {"RunLockFileIsASymlink", "run", "--config {dir}/r.toml", {{"r.toml", kPipeline}}, "write_failed",
+       "Too many levels of symbolic links", "victim", "mkdir out && ln -s ../victim out/.run.lock"},
+      {"RunLogFileIsASymlink", "run", "--config {dir}/r.toml", {{"r.toml", kPipeline}}, "write_failed",
+       "symlink", "victim", "mkdir -p out/logs && ln -s ../../victim out/logs/rungcal-run.log"},
+      {"PublishFitIsAFifo", "publish", "--store {dir}/out --name t --fit {dir}/fit.json", {},
+       "input_not_regular_file", "fit.json", "out", "mkfifo fit.json"},
+      // Issue 15, cfitsio's extended filename syntax: "cal[1].fits" is a file name.
+      {"IngestFitsNameWithBracketsIsReadAsItsFile", "ingest",
+       "--config " + kDemo + "/ingest.toml --input '{dir}/cal[1].fits' --out '{dir}/run(2)/c.fits'",
+       {{"cal[1].fits", "not FITS"}}, "fits_read", "cal[1].fits: [fits_read] HDU 1 header has no END card", "run(2)/c.fits"},
       // Issue 15, internal errors that are bad input.
       {"IngestIdNotUtf8", "ingest", kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits",
        {{"in.csv", kTargetsHeader + kTargetsLine + "VEY-\xff" "02,Veyra Spiral,20.1,0.1,0.02,-0.1,24.0,0.08,23.5,0.07,22.1,0.08\n"}},
@@ -277,6 +306,58 @@ TEST_P(StageBadInput, StopsWithExit2ItsRuleAndWritesNothing) {
 
 INSTANTIATE_TEST_SUITE_P(Cases, StageBadInput, ::testing::ValuesIn(stage_cases()),
                          [](const auto& case_info) { return std::string(case_info.param.name); });
+
+// Valid input that a stage once refused or failed on (issue 15): each must now exit 0 and
+// write its product, with nothing else left in the folder.
+TEST(StageValidInput, RefusedRowsLeavingWholeFitsBlocksOfKeptRows) {
+  // The issue's reproduction: the demo's targets.csv cut to its first 21 data lines, one
+  // period set to -1; the 20 kept rows fill whole 2880-byte blocks of the catalog.
+  test::TempDir dir;
+  const std::string all = test::read_text(test::source_file("sample_data/targets.csv"));
+  std::string cut;
+  std::size_t at = 0;
+  for (int line = 0; line < 22; ++line) {
+    const std::size_t end = all.find('\n', at);
+    std::string text = all.substr(at, end - at + 1);
+    if (line == 5) {  // the fifth star: its period (third field) becomes -1
+      const std::size_t a = text.find(',', text.find(',') + 1) + 1;
+      text.replace(a, text.find(',', a) - a, "-1");
+    }
+    cut += text;
+    at = end + 1;
+  }
+  test::write_text(dir.file("in.csv"), cut);
+  auto r = test::run_command(std::string(RUNGCAL_BIN_DIR) + "/rungcal-ingest " + kTargets + " --input " +
+                             dir.file("in.csv") + " --out " + dir.file("out/t.fits"));
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  auto py = test::run_python(
+      "import sys\nfrom astropy.io import fits\nh = fits.open(sys.argv[1])\n"
+      "print(h['CATALOG'].header['NAXIS1'] * h['CATALOG'].header['NAXIS2'] % 2880, len(h['CATALOG'].data), "
+      "len(h['REJECTS'].data))",
+      {dir.file("out/t.fits")});
+  ASSERT_EQ(py.exit_code, 0) << py.output;
+  EXPECT_EQ(test::parse_numbers(py.output), (std::vector<double>{0, 20, 1}));  // astropy's count
+}
+
+TEST(StageValidInput, FitsNamesWithCfitsioSyntaxAreFiles) {
+  // cal[1].fits read, into a folder run[1] and one run(2): the products and nothing else.
+  test::TempDir dir;
+  fs::copy_file(test::source_file("sample_data/calibrators.fits"), dir.file("cal[1].fits"));
+  for (const std::string folder : {"run[1]", "run(2)"}) {
+    auto r = test::run_command(std::string(RUNGCAL_BIN_DIR) + "/rungcal-ingest --config " + kDemo +
+                               "/ingest.toml --input " + test::shell_quote(dir.file("cal[1].fits")) + " --out " +
+                               test::shell_quote(dir.file(folder + "/c.fits")));
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    std::vector<std::string> made;
+    for (const auto& e : fs::directory_iterator(dir.file(folder))) made.push_back(e.path().filename().string());
+    std::sort(made.begin(), made.end());
+    EXPECT_EQ(made, (std::vector<std::string>{"c.fits", "c_rejects.csv"})) << folder;
+  }
+  std::vector<std::string> top;
+  for (const auto& e : fs::directory_iterator(dir.path())) top.push_back(e.path().filename().string());
+  std::sort(top.begin(), top.end());
+  EXPECT_EQ(top, (std::vector<std::string>{"cal[1].fits", "run(2)", "run[1]"}));
+}
 
 }  // namespace
 }  // namespace rungcal
