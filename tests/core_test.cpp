@@ -9,11 +9,11 @@
 #include <unistd.h>
 
 #include <algorithm>
-#include <chrono>
-#include <set>
 #include <bit>
+#include <chrono>
 #include <cmath>
 #include <cstdlib>
+#include <set>
 
 #include <filesystem>
 
@@ -281,7 +281,8 @@ TEST(FileSafety, InputsMustBeRegularFilesAndAFifoIsRefusedAtOnce) {
   EXPECT_EQ(input_rule(dir.file("folder"), &message), "input_not_regular_file");
   EXPECT_NE(message.find("a folder"), std::string::npos) << message;
   EXPECT_EQ(input_rule(dir.file("loop_a"), &message), "unreadable_file");
-  EXPECT_NE(message.find("Too many levels of symbolic links"), std::string::npos) << message;  // ELOOP
+  EXPECT_NE(message.find("Too many levels of symbolic links"), std::string::npos)
+      << message;  // ELOOP
   EXPECT_EQ(input_rule(dir.file("absent"), &message), "unreadable_file");
   EXPECT_EQ(message, "no such file");
   EXPECT_EQ(input_rule(dir.file("ok.toml")), "");
@@ -315,7 +316,8 @@ TEST(FileSafety, LockFilesFollowTheUmaskAndNeverASymlink) {
       ADD_FAILURE() << name << ": a symlinked lock file was taken";
     } catch (const InputError& e) {
       EXPECT_EQ(e.rule(), "write_failed");
-      EXPECT_NE(std::string(e.what()).find("Too many levels of symbolic links"), std::string::npos) << e.what();
+      EXPECT_NE(std::string(e.what()).find("Too many levels of symbolic links"), std::string::npos)
+          << e.what();
     }
   }
   EXPECT_FALSE(test::file_exists(dir.file("absent")));
@@ -344,7 +346,12 @@ TEST(FileSafety, TheLogFileNeverFollowsASymlinkFollowsTheUmaskAndRotates) {
     throw_deferred_logging_error();  // nothing kept: the file opened
     for (int i = 0; i < 20; ++i) spdlog::info("message number {} of a rotating log", i);
   }
+  // A log file's folder is made when missing, as spdlog's own file sinks made it.
+  setup_logging("test", Verbosity::kQuiet, dir.file("logs/new/run.log"));
+  throw_deferred_logging_error();
+  spdlog::info("into a new folder");
   setup_logging("test", Verbosity::kQuiet);
+  EXPECT_NE(test::read_text(dir.file("logs/new/run.log")).find("into a new folder"), std::string::npos);
   EXPECT_EQ(mode_of(dir.file("own.log")), 0664u);
   EXPECT_TRUE(test::file_exists(dir.file("own.log.1")));
   EXPECT_TRUE(test::file_exists(dir.file("own.log.2")));
@@ -363,13 +370,15 @@ TEST(FileSafety, StaleTemporariesOfKilledRunsAreRemovedAndNothingElse) {
     struct timespec times[2] = {{1000000000, 0}, {1000000000, 0}};  // 2001
     ::utimensat(AT_FDCWD, dir.file(name).c_str(), times, AT_SYMLINK_NOFOLLOW);
   };
-  old(".catalog.fits.rgtmp-abcdefABCDEF.part");   // stale: removed
-  old(".catalog_rejects.csv.4242-7.part");        // an older release's name: removed
-  old(".catalog.fits.rgtmp-lockedLOCKED.part");   // a live writer's: kept
-  old("notes.part");                              // not a temporary name: kept
-  old(".catalog.fits.rgtmp-short.part");          // not the pattern: kept
-  test::write_text(dir.file(".fresh.fits.rgtmp-abcdefABCDEF.part"), "being written");  // newer than the process
-  std::filesystem::create_symlink(dir.file("notes.part"), dir.file(".link.rgtmp-abcdefABCDEF.part"));
+  old(".catalog.fits.rgtmp-abcdefABCDEF.part");  // stale: removed
+  old(".catalog_rejects.csv.4242-7.part");       // an older release's name: removed
+  old(".catalog.fits.rgtmp-lockedLOCKED.part");  // a live writer's: kept
+  old("notes.part");                             // not a temporary name: kept
+  old(".catalog.fits.rgtmp-short.part");         // not the pattern: kept
+  test::write_text(dir.file(".fresh.fits.rgtmp-abcdefABCDEF.part"),
+                   "being written");  // newer than the process
+  std::filesystem::create_symlink(dir.file("notes.part"),
+                                  dir.file(".link.rgtmp-abcdefABCDEF.part"));
   const int locked = ::open(dir.file(".catalog.fits.rgtmp-lockedLOCKED.part").c_str(), O_RDONLY);
   ASSERT_GE(locked, 0);
   ASSERT_EQ(::flock(locked, LOCK_EX), 0);
@@ -377,9 +386,11 @@ TEST(FileSafety, StaleTemporariesOfKilledRunsAreRemovedAndNothingElse) {
   write_file_atomically(dir.file("catalog.fits"), "new");
   ::close(locked);
   std::set<std::string> left;
-  for (const auto& e : std::filesystem::directory_iterator(dir.path())) left.insert(e.path().filename().string());
-  EXPECT_EQ(left, (std::set<std::string>{"catalog.fits", ".catalog.fits.rgtmp-lockedLOCKED.part", "notes.part",
-                                         ".catalog.fits.rgtmp-short.part", ".fresh.fits.rgtmp-abcdefABCDEF.part",
+  for (const auto& e : std::filesystem::directory_iterator(dir.path()))
+    left.insert(e.path().filename().string());
+  EXPECT_EQ(left, (std::set<std::string>{"catalog.fits", ".catalog.fits.rgtmp-lockedLOCKED.part",
+                                         "notes.part", ".catalog.fits.rgtmp-short.part",
+                                         ".fresh.fits.rgtmp-abcdefABCDEF.part",
                                          ".link.rgtmp-abcdefABCDEF.part"}));
 }
 

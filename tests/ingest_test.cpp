@@ -188,16 +188,16 @@ TEST(IngestRows, ImplausibleValuesAreRefusedWithTheirRule) {
   test::TempDir dir;
   test::write_text(dir.file("in.csv"),
                    "id,P,plx,plx_err,V,V_err,ebv,mode,feh\n"
-                   "S1,5.0,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"      // line 2: good
-                   "S2,5.0,1e308,0.05,12.0,0.02,0.3,F,-0.1\n"    // parallax_out_of_range
-                   "S3,1e308,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"    // period_out_of_range
-                   "S4,1e30,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"     // period_out_of_range
-                   "S5,1e-300,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"   // period_out_of_range
-                   "S6,5.0,0.5,0.05,12.0,0.02,0.3,F,1e308\n"     // feh_out_of_range
-                   "S7,5.0,0.5,500,12.0,0.02,0.3,F,-0.1\n"       // parallax_error_out_of_range
-                   "S8,5.0,0.5,0.05,12.0,9.9,0.3,F,-0.1\n"       // magnitude_error_out_of_range
-                   "S9,5.0,-1500,0.05,12.0,0.02,0.3,F,-0.1\n"    // parallax_out_of_range
-                   "s1,0.5,0.7,0.05,12.0,0.02,0.3,F,-0.1\n");    // good: a variant of S1 (warned)
+                   "S1,5.0,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"     // line 2: good
+                   "S2,5.0,1e308,0.05,12.0,0.02,0.3,F,-0.1\n"   // parallax_out_of_range
+                   "S3,1e308,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"   // period_out_of_range
+                   "S4,1e30,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"    // period_out_of_range
+                   "S5,1e-300,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"  // period_out_of_range
+                   "S6,5.0,0.5,0.05,12.0,0.02,0.3,F,1e308\n"    // feh_out_of_range
+                   "S7,5.0,0.5,500,12.0,0.02,0.3,F,-0.1\n"      // parallax_error_out_of_range
+                   "S8,5.0,0.5,0.05,12.0,9.9,0.3,F,-0.1\n"      // magnitude_error_out_of_range
+                   "S9,5.0,-1500,0.05,12.0,0.02,0.3,F,-0.1\n"   // parallax_out_of_range
+                   "s1,0.5,0.7,0.05,12.0,0.02,0.3,F,-0.1\n");   // good: a variant of S1 (warned)
   test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits", "", "feh = \"feh\"\n"));
   IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
   EXPECT_EQ(o.parallax_abs_max, 1000.0);
@@ -207,17 +207,19 @@ TEST(IngestRows, ImplausibleValuesAreRefusedWithTheirRule) {
   ASSERT_EQ(r.catalog.rows(), 2u);
   std::vector<std::pair<std::int64_t, std::string>> got;
   for (const auto& rej : r.rejected) got.emplace_back(rej.source_row, rej.rule);
-  EXPECT_EQ(got, (std::vector<std::pair<std::int64_t, std::string>>{{3, "parallax_out_of_range"},
-                                                                    {4, "period_out_of_range"},
-                                                                    {5, "period_out_of_range"},
-                                                                    {6, "period_out_of_range"},
-                                                                    {7, "feh_out_of_range"},
-                                                                    {8, "parallax_error_out_of_range"},
-                                                                    {9, "magnitude_error_out_of_range"},
-                                                                    {10, "parallax_out_of_range"}}));
+  EXPECT_EQ(got,
+            (std::vector<std::pair<std::int64_t, std::string>>{{3, "parallax_out_of_range"},
+                                                               {4, "period_out_of_range"},
+                                                               {5, "period_out_of_range"},
+                                                               {6, "period_out_of_range"},
+                                                               {7, "feh_out_of_range"},
+                                                               {8, "parallax_error_out_of_range"},
+                                                               {9, "magnitude_error_out_of_range"},
+                                                               {10, "parallax_out_of_range"}}));
   EXPECT_EQ(r.rejected[0].column, "plx");
   EXPECT_EQ(r.rejected[1].message,
-            "period 1e+308 d is outside the plausible [0.05, 1000] d for classical_cepheid ([validate] period_range_d)");
+            "period 1e+308 d is outside the plausible [0.05, 1000] d for classical_cepheid "
+            "([validate] period_range_d)");
   // Limits from the config: the class's own period range, a tighter parallax limit, and
   // id variants refused.
   test::write_text(dir.file("c.toml"),
@@ -229,11 +231,14 @@ TEST(IngestRows, ImplausibleValuesAreRefusedWithTheirRule) {
   ASSERT_FALSE(r.rejected.empty());
   EXPECT_EQ(r.rejected.back().rule, "id_variant");
   EXPECT_EQ(r.rejected.back().source_row, 11);
-  EXPECT_EQ(r.rejected.back().message, "id 's1' equals the id at line 2 but for letter case or spaces around it");
+  EXPECT_EQ(r.rejected.back().message,
+            "id 's1' equals the id at line 2 but for letter case or spaces around it");
   // Config numbers must be finite, and ranges in order.
-  for (const std::string bad : {"parallax_max_mas = nan", "feh_range = [1.0, -1.0]", "magnitude_error_max = -1",
-                                "id_variants = \"sometimes\"", "period_range_d = [0.0, 5.0]"}) {
-    test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits") + "\n[validate]\n" + bad + "\n");
+  for (const std::string bad :
+       {"parallax_max_mas = nan", "feh_range = [1.0, -1.0]", "magnitude_error_max = -1",
+        "id_variants = \"sometimes\"", "period_range_d = [0.0, 5.0]"}) {
+    test::write_text(dir.file("c.toml"),
+                     config_for("in.csv", "out/cat.fits") + "\n[validate]\n" + bad + "\n");
     try {
       run_ingest(ingest_options_from_file(dir.file("c.toml")));
       ADD_FAILURE() << bad << " was accepted";
@@ -635,11 +640,13 @@ TEST(IngestChunks, KeptRowsFillingWholeFitsBlocksAreWritten) {
   IngestOptions o = ingest_options_from_file(test::source_file("config/demo/ingest_targets.toml"));
   o.chunk_rows = 64;
   o.rejects_csv_path = dir.file("rejects.csv");
-  const std::string header = "id,host,period_d,ebv,ebv_err,feh,mag_V,mag_err_V,mag_I,mag_err_I,mag_H,mag_err_H\n";
+  const std::string header =
+      "id,host,period_d,ebv,ebv_err,feh,mag_V,mag_err_V,mag_I,mag_err_I,mag_H,mag_err_H\n";
   auto line = [](std::size_t i, bool refused) {
-    return fmt::format("VEY-{:04d},Veyra Spiral,{:.5f},0.121,0.020,-0.10,24.393,0.082,23.519,0.067,"
-                       "22.176,0.078\n",
-                       i, refused ? -1.0 : 10.0 + 0.01 * static_cast<double>(i));
+    return fmt::format(
+        "VEY-{:04d},Veyra Spiral,{:.5f},0.121,0.020,-0.10,24.393,0.082,23.519,0.067,"
+        "22.176,0.078\n",
+        i, refused ? -1.0 : 10.0 + 0.01 * static_cast<double>(i));
   };
   std::size_t whole_blocks = 0;
   for (std::size_t kept = 1; kept <= 150; ++kept) {
@@ -667,10 +674,12 @@ TEST(IngestChunks, KeptRowsFillingWholeFitsBlocksAreWritten) {
         const StarTable back = read_fits_table(o.catalog_path, {"CATALOG", 0}).table;
         ASSERT_EQ(back.rows(), kept);
         // The last star's period as in the input line.
-        EXPECT_DOUBLE_EQ(back.column(col::kPeriod).real[kept - 1], 10.0 + 0.01 * static_cast<double>(kept - 1));
+        EXPECT_DOUBLE_EQ(back.column(col::kPeriod).real[kept - 1],
+                         10.0 + 0.01 * static_cast<double>(kept - 1));
         const long row_bytes = first_table_row_bytes(o.catalog_path);
         ASSERT_GT(row_bytes, 0);
-        if (with_reject && fits && kept * static_cast<std::size_t>(row_bytes) % 2880 == 0) ++whole_blocks;
+        if (with_reject && fits && kept * static_cast<std::size_t>(row_bytes) % 2880 == 0)
+          ++whole_blocks;
       }
     }
   }

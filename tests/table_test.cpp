@@ -443,7 +443,8 @@ TEST(FitsStream, EveryKeptRowCountReadsBackWithOrWithoutDroppedRows) {
   // More dropped rows than a block holds, across groups, and rows 1,440 bytes wide (180
   // columns: every even count fills whole blocks).
   for (std::size_t kept : {360u, 720u, 2880u})
-    for (std::size_t dropped : {359u, 360u, 361u, 5000u}) stream_and_check(dir, 1, kept, dropped, 7);
+    for (std::size_t dropped : {359u, 360u, 361u, 5000u})
+      stream_and_check(dir, 1, kept, dropped, 7);
   for (std::size_t kept = 1; kept <= 24; ++kept)
     for (std::size_t dropped : {0u, 1u, 2u, 3u}) stream_and_check(dir, 180, kept, dropped, 5);
   // Every row refused: an empty table.
@@ -457,7 +458,8 @@ TEST(FitsPaths, NamesAreTakenLiterallyNotAsCfitsioSyntax) {
   test::TempDir dir;
   const StarTable t = stream_group({"A", "B"}, 1.0);
   for (const std::string folder : {"run[1]", "run(2)", "a+b", "x[STARS]", "c{d}"}) {
-    for (const std::string name : {"cal[1].fits", "cal(2).fits", "plain.fits", "k[col x].fits", "~t.fits"}) {
+    for (const std::string name :
+         {"cal[1].fits", "cal(2).fits", "plain.fits", "k[col x].fits", "~t.fits"}) {
       const std::string path = dir.file(folder) + "/" + name;
       write_fits_tables(path, {{"STARS", &t}});
       StarTable back = read_fits_table(path, {"STARS", 0}).table;
@@ -471,14 +473,16 @@ TEST(FitsPaths, NamesAreTakenLiterallyNotAsCfitsioSyntax) {
     std::set<std::string> files;
     for (const auto& e : std::filesystem::directory_iterator(dir.file(folder)))
       files.insert(e.path().filename().string());
-    EXPECT_EQ(files, (std::set<std::string>{"cal[1].fits", "cal[1].fits.s", "cal(2).fits", "cal(2).fits.s",
-                                            "plain.fits", "plain.fits.s", "k[col x].fits", "k[col x].fits.s",
-                                            "~t.fits", "~t.fits.s"}))
+    EXPECT_EQ(files,
+              (std::set<std::string>{"cal[1].fits", "cal[1].fits.s", "cal(2).fits", "cal(2).fits.s",
+                                     "plain.fits", "plain.fits.s", "k[col x].fits",
+                                     "k[col x].fits.s", "~t.fits", "~t.fits.s"}))
         << folder;
   }
   // Nothing was made beside the folders (cfitsio's syntax once made "run" from "run[1]").
   std::set<std::string> top;
-  for (const auto& e : std::filesystem::directory_iterator(dir.path())) top.insert(e.path().filename().string());
+  for (const auto& e : std::filesystem::directory_iterator(dir.path()))
+    top.insert(e.path().filename().string());
   EXPECT_EQ(top, (std::set<std::string>{"run[1]", "run(2)", "a+b", "x[STARS]", "c{d}"}));
 }
 

@@ -18,9 +18,9 @@
 
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/fault.hpp"
 #include "rungcal/core/file_lock.hpp"
 #include "rungcal/core/json_io.hpp"
-#include "rungcal/core/fault.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -177,7 +177,8 @@ Calibration load_calibration(const std::string& store, const std::string& refere
   if (!fs::exists(file))
     throw InputError({file.string(), {}, {}}, "unknown_calibration", fmt::format("{} has no version {}", name, version));
   Calibration cal{read_json(file.string())};
-  if (!(cal.document.is_object() && cal.document.contains("schema") && cal.document.at("schema") == "rungcal-calibration"))
+  if (!(cal.document.is_object() && cal.document.contains("schema") &&
+        cal.document.at("schema") == "rungcal-calibration"))
     throw InputError({file.string(), {}, "schema"}, "not_a_calibration", "not a rungcal calibration file");
   check_calibration_document(cal.document, file.string());
   return cal;

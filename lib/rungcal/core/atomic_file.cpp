@@ -16,9 +16,9 @@
 #include <cstring>
 #include <filesystem>
 #include <fstream>
-#include <sstream>
 #include <mutex>
 #include <set>
+#include <sstream>
 
 #include <fmt/format.h>
 #include <spdlog/spdlog.h>
@@ -95,8 +95,9 @@ bool is_temporary_name(const std::string& name) {
   const auto marker = stem.rfind(kTempMarker);
   if (marker != std::string::npos && marker > 1) {
     const std::string random = stem.substr(marker + std::strlen(kTempMarker));
-    return random.size() == kRandomChars &&
-           std::all_of(random.begin(), random.end(), [](char c) { return std::isalnum(static_cast<unsigned char>(c)); });
+    return random.size() == kRandomChars && std::all_of(random.begin(), random.end(), [](char c) {
+             return std::isalnum(static_cast<unsigned char>(c));
+           });
   }
   // Older releases: ".NAME.PID-N.part".
   const auto dot = stem.rfind('.');
@@ -104,7 +105,9 @@ bool is_temporary_name(const std::string& name) {
   const std::string tail = stem.substr(dot + 1);
   const auto dash = tail.find('-');
   if (dash == std::string::npos || dash == 0 || dash + 1 == tail.size()) return false;
-  return std::all_of(tail.begin(), tail.end(), [](char c) { return c == '-' || std::isdigit(static_cast<unsigned char>(c)); }) &&
+  return std::all_of(
+             tail.begin(), tail.end(),
+             [](char c) { return c == '-' || std::isdigit(static_cast<unsigned char>(c)); }) &&
          tail.find('-', dash + 1) == std::string::npos;
 }
 
@@ -130,7 +133,8 @@ int remove_stale_temporaries(const std::string& folder) {
     if (fd < 0) continue;
     // A live writer holds an flock on its temporary file; a killed one's went with it.
     struct stat again {};
-    const bool same = ::fstat(fd, &again) == 0 && again.st_ino == st.st_ino && again.st_dev == st.st_dev;
+    const bool same =
+        ::fstat(fd, &again) == 0 && again.st_ino == st.st_ino && again.st_dev == st.st_dev;
     if (same && ::flock(fd, LOCK_EX | LOCK_NB) == 0 && ::unlinkat(dfd, name.c_str(), 0) == 0) {
       ++removed;
       spdlog::info("{}: removed a temporary file left by an earlier run that was stopped",
@@ -165,11 +169,11 @@ void check_output_path(const std::string& path) {
   struct stat st {};
   if (::stat(path.c_str(), &st) != 0) return;  // absent (or a dangling link, replaced)
   if (S_ISREG(st.st_mode)) return;
-  const char* what = S_ISDIR(st.st_mode)                        ? "a folder"
-                     : S_ISFIFO(st.st_mode)                     ? "a FIFO"
+  const char* what = S_ISDIR(st.st_mode)                          ? "a folder"
+                     : S_ISFIFO(st.st_mode)                       ? "a FIFO"
                      : S_ISCHR(st.st_mode) || S_ISBLK(st.st_mode) ? "a device"
-                     : S_ISSOCK(st.st_mode)                     ? "a socket"
-                                                                : "not a regular file";
+                     : S_ISSOCK(st.st_mode)                       ? "a socket"
+                                                                  : "not a regular file";
   throw InputError({path, {}, {}}, "output_not_regular_file",
                    fmt::format("the output path exists and is {}: outputs must be regular files "
                                "or absent, and it is not replaced",
@@ -186,7 +190,8 @@ void check_input_file(const std::string& path) {
   struct stat st {};
   const int rc = ::fstat(fd, &st);
   ::close(fd);
-  if (rc != 0) throw InputError({path, {}, {}}, "unreadable_file", "cannot stat: " + errno_text(errno));
+  if (rc != 0)
+    throw InputError({path, {}, {}}, "unreadable_file", "cannot stat: " + errno_text(errno));
   if (S_ISREG(st.st_mode)) return;
   const char* what = S_ISDIR(st.st_mode)                          ? "a folder"
                      : S_ISFIFO(st.st_mode)                       ? "a FIFO"
@@ -216,7 +221,8 @@ int open_own_file(const std::string& path, int flags, const std::string& what) {
   struct stat st {};
   if (::fstat(fd, &st) != 0 || !S_ISREG(st.st_mode)) {
     ::close(fd);
-    throw InputError({path, {}, {}}, "output_not_regular_file", what + " exists and is not a regular file");
+    throw InputError({path, {}, {}}, "output_not_regular_file",
+                     what + " exists and is not a regular file");
   }
   return fd;
 }
@@ -228,8 +234,8 @@ AtomicOutput::AtomicOutput(std::string destination) : destination_(std::move(des
   remove_stale_temporaries_once(dest.parent_path().string());
   // Leading dot and ".part" so globs for products never pick the temporary file up.
   for (int attempt = 0; fd_ < 0; ++attempt) {
-    temp_ = (dest.parent_path() / fmt::format(".{}{}{}.part", dest.filename().string(), kTempMarker,
-                                              random_suffix()))
+    temp_ = (dest.parent_path() /
+             fmt::format(".{}{}{}.part", dest.filename().string(), kTempMarker, random_suffix()))
                 .string();
     fd_ = ::open(temp_.c_str(), O_RDWR | O_CREAT | O_EXCL | O_NOFOLLOW | O_CLOEXEC, 0666);
     if (fd_ < 0 && (errno != EEXIST || attempt >= 100))
@@ -247,7 +253,8 @@ AtomicOutput::~AtomicOutput() {
 std::string AtomicOutput::reopen_path() const {
 #ifdef __linux__
   const std::string proc = fmt::format("/proc/self/fd/{}", fd_);
-  struct stat a {}, b {};
+  struct stat a {
+  }, b{};
   if (::stat(proc.c_str(), &a) == 0 && ::fstat(fd_, &b) == 0 && a.st_ino == b.st_ino &&
       a.st_dev == b.st_dev)
     return proc;

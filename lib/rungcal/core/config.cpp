@@ -172,7 +172,8 @@ std::optional<std::vector<double>> ConfigSection::get_number_list(const std::str
     else if (el.is_floating_point() && std::isfinite(el.as_floating_point()->get()))
       out.push_back(el.as_floating_point()->get());
     else if (el.is_floating_point())
-      fail(key, fmt::format("every element must be a finite number, not {}", el.as_floating_point()->get()));
+      fail(key, fmt::format("every element must be a finite number, not {}",
+                            el.as_floating_point()->get()));
     else fail(key, "every element must be a number");
   }
   return out;

@@ -51,6 +51,8 @@ nlohmann::json parse_json(const std::string& text, const std::string& path) {
   }
 }
 
-nlohmann::json read_json_file(const std::string& path) { return parse_json(read_input_file(path), path); }
+nlohmann::json read_json_file(const std::string& path) {
+  return parse_json(read_input_file(path), path);
+}
 
 }  // namespace rungcal

@@ -6,9 +6,9 @@
 #include <sys/stat.h>
 #include <unistd.h>
 
+#include <fmt/format.h>
 #include <spdlog/sinks/base_sink.h>
 #include <spdlog/sinks/stdout_color_sinks.h>
-#include <fmt/format.h>
 #include <spdlog/spdlog.h>
 
 #include <cerrno>
@@ -48,7 +48,8 @@ class SafeFileSink final : public spdlog::sinks::base_sink<std::mutex> {
     while (done < formatted.size()) {
       const ssize_t n = ::write(fd_, formatted.data() + done, formatted.size() - done);
       if (n < 0 && errno == EINTR) continue;
-      if (n < 0) throw spdlog::spdlog_ex("writing the log file " + path_ + ": " + errno_text(errno));
+      if (n < 0)
+        throw spdlog::spdlog_ex("writing the log file " + path_ + ": " + errno_text(errno));
       done += static_cast<std::size_t>(n);
     }
     size_ += formatted.size();
@@ -57,6 +58,7 @@ class SafeFileSink final : public spdlog::sinks::base_sink<std::mutex> {
 
  private:
   void open_file(bool truncate) {
+    ensure_parent_folder(path_);  // as spdlog's own file sinks do
     fd_ = open_own_file(path_, O_WRONLY | O_APPEND | (truncate ? O_TRUNC : 0), "the log file");
     struct stat st {};
     size_ = ::fstat(fd_, &st) == 0 ? static_cast<std::size_t>(st.st_size) : 0;
@@ -65,7 +67,8 @@ class SafeFileSink final : public spdlog::sinks::base_sink<std::mutex> {
     ::close(fd_);
     fd_ = -1;
     for (std::size_t i = rotate_files_; i > 1; --i)
-      std::rename(fmt::format("{}.{}", path_, i - 1).c_str(), fmt::format("{}.{}", path_, i).c_str());
+      std::rename(fmt::format("{}.{}", path_, i - 1).c_str(),
+                  fmt::format("{}.{}", path_, i).c_str());
     if (rotate_files_ > 0) std::rename(path_.c_str(), (path_ + ".1").c_str());
     open_file(true);
   }

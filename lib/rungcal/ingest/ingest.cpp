@@ -513,7 +513,8 @@ std::string IngestOptions::check() const {
   if (!(parallax_abs_max > 0)) return "validate.parallax_max_mas: must be positive";
   if (!(parallax_err_max > 0)) return "validate.parallax_error_max_mas: must be positive";
   if (!(magnitude_err_max > 0)) return "validate.magnitude_error_max: must be positive";
-  if (!(feh_range.min < feh_range.max)) return "validate.feh_range: the minimum must be below the maximum";
+  if (!(feh_range.min < feh_range.max))
+    return "validate.feh_range: the minimum must be below the maximum";
   if (!(period_range.min > 0 && period_range.min < period_range.max))
     return "validate.period_range_d: must be [min, max] days with 0 < min < max";
   for (const auto& [cls, r] : class_period_range) {
@@ -521,7 +522,8 @@ std::string IngestOptions::check() const {
       return fmt::format("validate.class_period_range_d.{}: not a pulsator class (known: {})", cls,
                          kPulsatorClassNames.choices());
     if (!(r.min > 0 && r.min < r.max))
-      return fmt::format("validate.class_period_range_d.{}: must be [min, max] days with 0 < min < max", cls);
+      return fmt::format(
+          "validate.class_period_range_d.{}: must be [min, max] days with 0 < min < max", cls);
   }
   std::set<std::string> seen;
   for (const auto& b : bands) {
@@ -633,7 +635,8 @@ IngestOptions ingest_options_from_config(Config& config) {
     const std::string variants = v->string_or("id_variants", "warn");
     auto parsed = kIdVariantPolicyNames.parse(variants);
     if (!parsed)
-      v->fail("id_variants", fmt::format("'{}' is not one of: {}", variants, kIdVariantPolicyNames.choices()));
+      v->fail("id_variants",
+              fmt::format("'{}' is not one of: {}", variants, kIdVariantPolicyNames.choices()));
     o.id_variants = *parsed;
   }
   if (auto lc = root.section("lightcurves")) {
@@ -952,10 +955,11 @@ class GroupChecks {
     const PlausibleRange& range = it == o_.class_period_range.end() ? o_.period_range : it->second;
     const double p = *periods_.at(r);
     if (!range.contains(p))
-      throw RowReject{"period_out_of_range", q_period_.column_name,
-                      fmt::format("period {} d is outside the plausible [{}, {}] d for {} ([validate] "
-                                  "period_range_d)",
-                                  p, range.min, range.max, pulsator_class)};
+      throw RowReject{
+          "period_out_of_range", q_period_.column_name,
+          fmt::format("period {} d is outside the plausible [{}, {}] d for {} ([validate] "
+                      "period_range_d)",
+                      p, range.min, range.max, pulsator_class)};
   }
 
   // Parallax, its error and [Fe/H] against their plausible ranges ([validate]).
@@ -971,9 +975,10 @@ class GroupChecks {
                                   "parallax_error_max_mas)",
                                   *e, o_.parallax_err_max)};
     if (auto f = value(s_feh_); f && !o_.feh_range.contains(*f))
-      throw RowReject{"feh_out_of_range", m_.at("feh").column_name,
-                      fmt::format("[Fe/H] = {} is outside the plausible [{}, {}] ([validate] feh_range)", *f,
-                                  o_.feh_range.min, o_.feh_range.max)};
+      throw RowReject{
+          "feh_out_of_range", m_.at("feh").column_name,
+          fmt::format("[Fe/H] = {} is outside the plausible [{}, {}] ([validate] feh_range)", *f,
+                      o_.feh_range.min, o_.feh_range.max)};
   }
 
   // The canonical mode (or class) of row r. Spellings repeat from row to row: each distinct
@@ -1074,7 +1079,8 @@ class GroupChecks {
   std::map<std::string, int> slot_of_;    // quantity -> index in numbers_
   std::vector<PreparedNumbers> band_mags_, band_errs_;
   std::vector<std::pair<std::string, int>> error_slots_;
-  int s_parallax_ = -1, s_parallax_err_ = -1, s_ebv_ = -1, s_astrometric_ = -1, s_feh_ = -1;  // -1: unmapped
+  int s_parallax_ = -1, s_parallax_err_ = -1, s_ebv_ = -1, s_astrometric_ = -1,
+      s_feh_ = -1;                             // -1: unmapped
   std::vector<std::optional<double>> values_;  // the row's numbers, by slot
   std::unordered_map<std::string, std::string> mode_of_, class_of_;
   std::string id_scratch_, mode_scratch_, class_scratch_;
@@ -1242,15 +1248,24 @@ std::size_t first_invalid_utf8(std::string_view s) {
     }
     std::size_t n = 0;
     unsigned lo = 0x80, hi = 0xBF;  // the allowed range of the second byte
-    if (b >= 0xC2 && b <= 0xDF) n = 1;
-    else if (b == 0xE0) n = 2, lo = 0xA0;
-    else if (b >= 0xE1 && b <= 0xEC) n = 2;
-    else if (b == 0xED) n = 2, hi = 0x9F;
-    else if (b >= 0xEE && b <= 0xEF) n = 2;
-    else if (b == 0xF0) n = 3, lo = 0x90;
-    else if (b >= 0xF1 && b <= 0xF3) n = 3;
-    else if (b == 0xF4) n = 3, hi = 0x8F;
-    else return i;
+    if (b >= 0xC2 && b <= 0xDF)
+      n = 1;
+    else if (b == 0xE0)
+      n = 2, lo = 0xA0;
+    else if (b >= 0xE1 && b <= 0xEC)
+      n = 2;
+    else if (b == 0xED)
+      n = 2, hi = 0x9F;
+    else if (b >= 0xEE && b <= 0xEF)
+      n = 2;
+    else if (b == 0xF0)
+      n = 3, lo = 0x90;
+    else if (b >= 0xF1 && b <= 0xF3)
+      n = 3;
+    else if (b == 0xF4)
+      n = 3, hi = 0x8F;
+    else
+      return i;
     for (std::size_t k = 1; k <= n; ++k) {
       if (i + k >= s.size()) return i;
       const auto c = static_cast<unsigned char>(s[i + k]);
@@ -1326,9 +1341,10 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
         // Ids go to JSON and FITS text: a byte that is not UTF-8 stops the file here (it
         // was an internal error later, in the fit, issue 15).
         if (const std::size_t bad = first_invalid_utf8(id); bad != std::string_view::npos)
-          throw InputError({o.input_path, g.source_rows[r], g.id_column, g.row_label}, "invalid_utf8",
-                           fmt::format("the star id is not valid UTF-8: byte {} is 0x{:02X}", bad + 1,
-                                       static_cast<unsigned char>(id[bad])));
+          throw InputError({o.input_path, g.source_rows[r], g.id_column, g.row_label},
+                           "invalid_utf8",
+                           fmt::format("the star id is not valid UTF-8: byte {} is 0x{:02X}",
+                                       bad + 1, static_cast<unsigned char>(id[bad])));
         if (auto first = ids.first_seen(g.id_hash[r], g.source_rows[r])) {
           result.rejected.push_back(
               {g.source_rows[r], id, "duplicate_id", g.id_column,
@@ -1338,15 +1354,15 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
         }
         if (auto first = folded_ids.first_seen(IdRegistry::hash(folded_id(id)), g.source_rows[r])) {
           const std::string message =
-              fmt::format("id '{}' equals the id at {} {} but for letter case or spaces around it", id,
-                          g.row_label, *first);
+              fmt::format("id '{}' equals the id at {} {} but for letter case or spaces around it",
+                          id, g.row_label, *first);
           if (o.id_variants == IdVariantPolicy::kRefuse) {
             result.rejected.push_back({g.source_rows[r], id, "id_variant", g.id_column, message});
             dropped = dropped || f >= 0;
             continue;
           }
-          spdlog::warn("{}: {} {}: {} (refused with [validate] id_variants = \"refuse\")", o.input_path,
-                       g.row_label, g.source_rows[r], message);
+          spdlog::warn("{}: {} {}: {} (refused with [validate] id_variants = \"refuse\")",
+                       o.input_path, g.row_label, g.source_rows[r], message);
         }
       }
       if (f >= 0) {

@@ -111,14 +111,14 @@ struct IngestOptions {
   // 0.05 d (short RR Lyrae overtones) and a few hundred days (the longest Cepheids); stellar
   // [Fe/H] lies within +-3 dex for these populations; a magnitude error above 5 mag is no
   // measurement.
-  double parallax_abs_max = 1000.0;      // mas: |parallax| at most this ([validate] parallax_max_mas)
-  double parallax_err_max = 100.0;       // mas ([validate] parallax_error_max_mas)
-  PlausibleRange feh_range{-3.0, 3.0};   // dex ([validate] feh_range)
-  double magnitude_err_max = 5.0;        // mag ([validate] magnitude_error_max)
+  double parallax_abs_max = 1000.0;  // mas: |parallax| at most this ([validate] parallax_max_mas)
+  double parallax_err_max = 100.0;   // mas ([validate] parallax_error_max_mas)
+  PlausibleRange feh_range{-3.0, 3.0};        // dex ([validate] feh_range)
+  double magnitude_err_max = 5.0;             // mag ([validate] magnitude_error_max)
   PlausibleRange period_range{0.05, 1000.0};  // d, every class ([validate] period_range_d)
   std::map<std::string, PlausibleRange> class_period_range;  // d, per canonical pulsator class
                                                              // ([validate.class_period_range_d])
-  IdVariantPolicy id_variants = IdVariantPolicy::kWarn;  // [validate] id_variants
+  IdVariantPolicy id_variants = IdVariantPolicy::kWarn;      // [validate] id_variants
   LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
   std::int64_t chunk_rows = 20000;  // rows or text lines read at a time ([source] chunk_rows)
   std::string catalog_path = "out/catalog.fits";   // the FITS catalog product

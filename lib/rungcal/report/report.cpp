@@ -1,6 +1,6 @@
 // SPDX-License-Identifier: MIT
-#include "rungcal/core/json_io.hpp"
 #include "rungcal/report/report.hpp"
+#include "rungcal/core/json_io.hpp"
 
 #include <filesystem>
 #include <fstream>
@@ -60,7 +60,8 @@ ReportOutcome write_report(const ReportOptions& o) {
   }
   if (!o.grid.empty()) {
     const nlohmann::json budget = read_json_file(o.grid);  // depth-capped (issue 15)
-    if (!(budget.is_object() && budget.contains("schema") && budget.at("schema") == "rungcal-error-budget"))
+    if (!(budget.is_object() && budget.contains("schema") &&
+          budget.at("schema") == "rungcal-error-budget"))
       throw InputError({o.grid, {}, "schema"}, "not_a_grid_result", "not a rungcal-grid result");
     for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
       write_file_atomically(o.out_dir + "/error_budget." + ext[static_cast<int>(f)],

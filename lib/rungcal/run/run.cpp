@@ -79,7 +79,8 @@ class RunState {
     if (!fs::exists(path_)) return;
     try {
       state_ = read_json_file(path_);  // depth-capped; a folder or FIFO here is refused
-      if (!state_.is_object()) throw InputError({path_, {}, {}}, "json_syntax", "not a JSON object");
+      if (!state_.is_object())
+        throw InputError({path_, {}, {}}, "json_syntax", "not a JSON object");
     } catch (const InputError& e) {
       if (e.rule() == "input_not_regular_file" || e.rule() == "unreadable_file") throw;
       // Written atomically, so only a hand edit breaks it: start over rather than guess.
@@ -246,7 +247,8 @@ RunOptions run_options_from_file(const std::string& path) {
   o.log_rotate_bytes = static_cast<std::size_t>(log_mb * (1 << 20));
   const std::int64_t log_files = run->integer_or("log_files", 5);
   if (log_files < 0 || log_files > 1000)
-    run->fail("log_files", fmt::format("must be 0 to 1000 old log files to keep, not {}", log_files));
+    run->fail("log_files",
+              fmt::format("must be 0 to 1000 old log files to keep, not {}", log_files));
   o.log_files = static_cast<std::size_t>(log_files);
   auto stage_config = [&](const char* name, std::string& out) {
     if (auto s = root.section(name)) out = c.resolve_path(s->require_string("config"));

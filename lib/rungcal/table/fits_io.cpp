@@ -622,7 +622,8 @@ std::string empty_primary_hdu() {
   if (status == 0 && buffer && size >= 2880) bytes.assign(static_cast<const char*>(buffer), 2880);
   std::free(buffer);
   if (bytes.compare(0, 6, "SIMPLE") != 0)
-    throw std::runtime_error("cfitsio did not make a primary HDU in memory: " + cfitsio_message(status));
+    throw std::runtime_error("cfitsio did not make a primary HDU in memory: " +
+                             cfitsio_message(status));
   return bytes;
 }
 
@@ -634,8 +635,8 @@ fitsfile* open_output(AtomicOutput& out, const std::string& path) {
   const std::string primary = empty_primary_hdu();
   std::size_t done = 0;
   while (done < primary.size()) {
-    const ssize_t n = ::pwrite(out.fd(), primary.data() + done, primary.size() - done,
-                               static_cast<off_t>(done));
+    const ssize_t n =
+        ::pwrite(out.fd(), primary.data() + done, primary.size() - done, static_cast<off_t>(done));
     if (n < 0 && errno == EINTR) continue;
     if (n < 0)
       throw InputError({path, {}, {}}, "write_failed",
@@ -997,8 +998,8 @@ void FitsTableStream::finish(const std::vector<Keyword>& header,
     for (LONGLONG r = m.rows; r < m.allocated && status == 0; r += block) {
       const LONGLONG n = std::min(block, m.allocated - r);
       zeros.assign(static_cast<std::size_t>(n) * row_bytes, 0);
-      fits_write_tblbytes(m.file.get(), r + 1, 1, static_cast<LONGLONG>(zeros.size()),
-                          zeros.data(), &status);
+      fits_write_tblbytes(m.file.get(), r + 1, 1, static_cast<LONGLONG>(zeros.size()), zeros.data(),
+                          &status);
     }
     fits_delete_rows(m.file.get(), m.rows + 1, m.allocated - m.rows, &status);
   }
