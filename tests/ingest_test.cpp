@@ -248,6 +248,34 @@ TEST(IngestRows, ImplausibleValuesAreRefusedWithTheirRule) {
   }
 }
 
+TEST(IngestRows, StarIdsMustBeUtf8) {
+  // Issue 15: a non-UTF-8 byte in an id was an internal error later (JSON). Well-formed
+  // sequences by RFC 3629, section 4 (Unicode Table 3-7): 2-, 3- and 4-byte forms are ids;
+  // an overlong form, a surrogate, a cut sequence and a code point above U+10FFFF stop the
+  // file with rule invalid_utf8 naming the line.
+  test::TempDir dir;
+  const std::string good =
+      "id,P,plx,plx_err,V,V_err,ebv,mode\n"
+      "S\xc3\xbc,5.0,0.5,0.05,12.0,0.02,0.3,F\n"          // U+00FC
+      "\xe2\x98\x89,5.0,0.5,0.05,12.0,0.02,0.3,F\n"       // U+2609
+      "\xf0\x9d\x9b\xbc,5.0,0.5,0.05,12.0,0.02,0.3,F\n";  // U+1D6FC
+  test::write_text(dir.file("in.csv"), good);
+  test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits"));
+  EXPECT_EQ(run_ingest(ingest_options_from_file(dir.file("c.toml"))).catalog.rows(), 3u);
+  for (const std::string& bad : {std::string("\xc0\xaf"), std::string("\xed\xa0\x80"),
+                                 std::string("X\xe2\x82"), std::string("\xf4\x90\x80\x80")}) {
+    test::write_text(dir.file("in.csv"), good + bad + ",5.0,0.5,0.05,12.0,0.02,0.3,F\n");
+    try {
+      run_ingest(ingest_options_from_file(dir.file("c.toml")));
+      ADD_FAILURE() << "an id of " << bad.size() << " bytes was accepted";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "invalid_utf8");
+      EXPECT_EQ(e.where().row, 5);
+      EXPECT_EQ(e.where().column, "id");
+    }
+  }
+}
+
 TEST(IngestRows, NanInFitsIsMissingAndUnitsConvert) {
   test::TempDir dir;
   StarTable t;

@@ -1246,26 +1246,21 @@ std::size_t first_invalid_utf8(std::string_view s) {
       ++i;
       continue;
     }
-    std::size_t n = 0;
-    unsigned lo = 0x80, hi = 0xBF;  // the allowed range of the second byte
-    if (b >= 0xC2 && b <= 0xDF)
-      n = 1;
-    else if (b == 0xE0)
-      n = 2, lo = 0xA0;
-    else if (b >= 0xE1 && b <= 0xEC)
-      n = 2;
-    else if (b == 0xED)
-      n = 2, hi = 0x9F;
-    else if (b >= 0xEE && b <= 0xEF)
-      n = 2;
-    else if (b == 0xF0)
-      n = 3, lo = 0x90;
-    else if (b >= 0xF1 && b <= 0xF3)
-      n = 3;
-    else if (b == 0xF4)
-      n = 3, hi = 0x8F;
-    else
-      return i;
+    // Well-formed sequences by their first byte (RFC 3629, section 4): how many bytes follow
+    // and the range of the second; the rest are 0x80..0xBF.
+    struct Lead {
+      unsigned first_lo, first_hi, follow, second_lo, second_hi;
+    };
+    static constexpr Lead kLeads[] = {{0xC2, 0xDF, 1, 0x80, 0xBF}, {0xE0, 0xE0, 2, 0xA0, 0xBF},
+                                      {0xE1, 0xEC, 2, 0x80, 0xBF}, {0xED, 0xED, 2, 0x80, 0x9F},
+                                      {0xEE, 0xEF, 2, 0x80, 0xBF}, {0xF0, 0xF0, 3, 0x90, 0xBF},
+                                      {0xF1, 0xF3, 3, 0x80, 0xBF}, {0xF4, 0xF4, 3, 0x80, 0x8F}};
+    const Lead* lead = nullptr;
+    for (const Lead& l : kLeads)
+      if (b >= l.first_lo && b <= l.first_hi) lead = &l;
+    if (!lead) return i;
+    const std::size_t n = lead->follow;
+    const unsigned lo = lead->second_lo, hi = lead->second_hi;
     for (std::size_t k = 1; k <= n; ++k) {
       if (i + k >= s.size()) return i;
       const auto c = static_cast<unsigned char>(s[i + k]);
