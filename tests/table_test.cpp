@@ -2,6 +2,12 @@
 // Tests of lib/rungcal/table: star table, delimited text and FITS readers/writers, units.
 // FITS interchange is checked against astropy (Debian python3-astropy) in both directions.
 #include <gtest/gtest.h>
+#include <sys/resource.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <csignal>
+#include <cstdio>
 
 #include <algorithm>
 #include <cmath>
@@ -484,6 +490,39 @@ TEST(FitsPaths, NamesAreTakenLiterallyNotAsCfitsioSyntax) {
   for (const auto& e : std::filesystem::directory_iterator(dir.path()))
     top.insert(e.path().filename().string());
   EXPECT_EQ(top, (std::set<std::string>{"run[1]", "run(2)", "a+b", "x[STARS]", "c{d}"}));
+}
+
+TEST(FitsPaths, AWriteTheSystemRefusesNamesItsReasonAndLeavesNothing) {
+  // A file-size limit (RLIMIT_FSIZE, in a child process) makes cfitsio's writes fail as a
+  // full disk would, with errno EFBIG instead of ENOSPC: the message carries the system's
+  // reason (issue 15: a full disk must say so), and no file or temporary file is left.
+  test::TempDir dir;
+  StarTable big;
+  big.add_column("x", ColumnType::kReal);
+  for (int i = 0; i < 100000; ++i) big.column("x").push_real(i);
+  const std::string report = dir.file("message.txt");
+  const pid_t child = ::fork();
+  ASSERT_GE(child, 0);
+  if (child == 0) {
+    ::signal(SIGXFSZ, SIG_IGN);
+    const struct rlimit limit = {64 * 1024, 64 * 1024};
+    ::setrlimit(RLIMIT_FSIZE, &limit);
+    std::string message = "written";
+    try {
+      write_fits_tables(dir.file("out/big.fits"), {{"BIG", &big}});
+    } catch (const InputError& e) {
+      message = e.rule() + ": " + e.what();
+    }
+    std::FILE* f = std::fopen(report.c_str(), "w");
+    if (f) std::fputs(message.c_str(), f), std::fclose(f);
+    ::_exit(0);
+  }
+  int status = 0;
+  ::waitpid(child, &status, 0);
+  const std::string message = test::read_text(report);
+  EXPECT_EQ(message.rfind("write_failed: ", 0), 0u) << message;
+  EXPECT_NE(message.find("File too large"), std::string::npos) << message;  // strerror(EFBIG)
+  EXPECT_TRUE(std::filesystem::is_empty(dir.file("out")));
 }
 
 TEST(FitsStream, AStreamNeverFinishedLeavesNothing) {
