@@ -5,6 +5,7 @@
 
 #include <spdlog/spdlog.h>
 
+#include "rungcal/core/log.hpp"
 #include "rungcal/core/stage_main.hpp"
 #include "rungcal/run/run.hpp"
 
@@ -31,11 +32,12 @@ int main(int argc, char** argv) {
     rungcal::RunOptions options = rungcal::run_options_from_file(config_path);
     options.dry_run = dry_run;
     options.force = force;
-    std::filesystem::create_directories(std::filesystem::path(options.folder) / "logs");
+    rungcal::check_run_folder(options);
     rungcal::setup_logging(
         "run", common.verbosity(),
         (std::filesystem::path(options.folder) / "logs" / "rungcal-run.log").string(),
         options.log_rotate_bytes, options.log_files);
+    rungcal::throw_deferred_logging_error();
     rungcal::RunOutcome out = rungcal::run_pipeline(options);
     spdlog::debug("{}", out.summary);
     std::printf("%s\n", out.summary.c_str());

@@ -1,11 +1,19 @@
 // SPDX-License-Identifier: MIT
 // Tests of lib/rungcal/core: errors, provenance hashes, atomic writes, config reading.
+#include <fcntl.h>
 #include <gtest/gtest.h>
+#include <spdlog/spdlog.h>
+#include <sys/file.h>
+#include <sys/stat.h>
+#include <sys/sysmacros.h>
+#include <unistd.h>
 
 #include <algorithm>
 #include <bit>
+#include <chrono>
 #include <cmath>
 #include <cstdlib>
+#include <set>
 
 #include <filesystem>
 
@@ -14,6 +22,8 @@
 #include "rungcal/core/cluster.hpp"
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_lock.hpp"
+#include "rungcal/core/log.hpp"
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/core/simd.hpp"
@@ -165,6 +175,241 @@ TEST(AtomicOutput, EarlyWritebackChangesNothingButTiming) {
   int files = 0;
   for (const auto& e : std::filesystem::directory_iterator(dir.path())) (void)e, ++files;
   EXPECT_EQ(files, 1);
+}
+
+// Permission bits of a path (not followed).
+unsigned mode_of(const std::string& path) {
+  struct stat st {};
+  ::lstat(path.c_str(), &st);
+  return st.st_mode & 07777;
+}
+
+// Sets the umask for one scope.
+struct UmaskScope {
+  explicit UmaskScope(mode_t m) : old(::umask(m)) {}
+  ~UmaskScope() { ::umask(old); }
+  mode_t old;
+};
+
+std::string input_rule(const std::string& path, std::string* message = nullptr) {
+  try {
+    check_input_file(path);
+  } catch (const InputError& e) {
+    if (message) *message = e.detail();
+    return e.rule();
+  }
+  return "";
+}
+
+TEST(FileSafety, TemporaryNamesAreUnpredictableExclusiveAndFollowTheUmask) {
+  // Issue 15: a planted ".NAME.PID-N.part" symlink made root write through it. Temporary
+  // names now carry 12 random letters and digits (62^12 names) and are created with
+  // O_EXCL | O_NOFOLLOW; the mode is 0666 less the umask, as for any new file (open(2)).
+  test::TempDir dir;
+  std::set<std::string> names;
+  for (int i = 0; i < 50; ++i) {
+    AtomicOutput out(dir.file("x.txt"));
+    const std::string name = std::filesystem::path(out.temp_path()).filename().string();
+    EXPECT_TRUE(is_temporary_name(name)) << name;
+    EXPECT_EQ(name.rfind(".x.txt.rgtmp-", 0), 0u) << name;
+    EXPECT_EQ(name.size(), std::string(".x.txt.rgtmp-").size() + 12 + 5);
+    names.insert(name);
+  }
+  EXPECT_EQ(names.size(), 50u);
+  for (mode_t mask : {022u, 002u, 077u}) {
+    UmaskScope scope(mask);
+    write_file_atomically(dir.file("x.txt"), "content");
+    EXPECT_EQ(mode_of(dir.file("x.txt")), 0666u & ~mask) << std::oct << mask;
+  }
+  // Names of the project's temporary files, and names that are not.
+  EXPECT_TRUE(is_temporary_name(".catalog_rejects.csv.1234-5.part"));  // older releases
+  EXPECT_FALSE(is_temporary_name("catalog.fits.rgtmp-abcdefABCDEF.part"));
+  EXPECT_FALSE(is_temporary_name(".catalog.fits.rgtmp-abcdef.part"));
+  EXPECT_FALSE(is_temporary_name(".notes.part"));
+  EXPECT_FALSE(is_temporary_name(".a.b-c.part"));
+}
+
+TEST(FileSafety, OutputsThatAreNotRegularFilesAreRefusedAndKept) {
+  // Issue 15: --out naming a device replaced the device with a regular file. A FIFO, a
+  // folder and (when this process may make one) a character device are refused with rule
+  // output_not_regular_file, and stay what they were.
+  test::TempDir dir;
+  ASSERT_EQ(::mkfifo(dir.file("fifo").c_str(), 0666), 0);
+  std::filesystem::create_directory(dir.file("folder"));
+  std::vector<std::string> targets = {dir.file("fifo"), dir.file("folder")};
+  if (::mknod(dir.file("null").c_str(), S_IFCHR | 0666, makedev(1, 3)) == 0)
+    targets.push_back(dir.file("null"));
+  for (const std::string& target : targets) {
+    const unsigned type = std::filesystem::is_directory(target) ? S_IFDIR : 0;
+    try {
+      write_file_atomically(target, "data");
+      ADD_FAILURE() << target << " was written";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "output_not_regular_file") << target;
+    }
+    struct stat st {};
+    ASSERT_EQ(::lstat(target.c_str(), &st), 0);
+    EXPECT_FALSE(S_ISREG(st.st_mode)) << target;
+    if (type) {
+      EXPECT_TRUE(S_ISDIR(st.st_mode));
+    }
+  }
+  // A symlink to a regular file is an output like any other: the link is replaced by the
+  // new file, and the file it pointed to is untouched.
+  test::write_text(dir.file("target.txt"), "keep");
+  std::filesystem::create_symlink(dir.file("target.txt"), dir.file("link.txt"));
+  write_file_atomically(dir.file("link.txt"), "new");
+  EXPECT_EQ(test::read_text(dir.file("target.txt")), "keep");
+  EXPECT_EQ(test::read_text(dir.file("link.txt")), "new");
+  for (const auto& e : std::filesystem::directory_iterator(dir.path()))
+    EXPECT_FALSE(is_temporary_name(e.path().filename().string())) << e.path();
+}
+
+TEST(FileSafety, InputsMustBeRegularFilesAndAFifoIsRefusedAtOnce) {
+  // Issue 15: a FIFO as input or config blocked forever holding the run lock; a folder was
+  // "no such file" (or read as an empty config); a symlink loop was an internal error.
+  test::TempDir dir;
+  ASSERT_EQ(::mkfifo(dir.file("fifo").c_str(), 0666), 0);
+  std::filesystem::create_directory(dir.file("folder"));
+  std::filesystem::create_symlink(dir.file("loop_b"), dir.file("loop_a"));
+  std::filesystem::create_symlink(dir.file("loop_a"), dir.file("loop_b"));
+  test::write_text(dir.file("ok.toml"), "a = 1\n");
+  std::string message;
+  const auto start = std::chrono::steady_clock::now();
+  EXPECT_EQ(input_rule(dir.file("fifo"), &message), "input_not_regular_file");
+  EXPECT_NE(message.find("a FIFO"), std::string::npos) << message;
+  EXPECT_EQ(input_rule(dir.file("folder"), &message), "input_not_regular_file");
+  EXPECT_NE(message.find("a folder"), std::string::npos) << message;
+  EXPECT_EQ(input_rule(dir.file("loop_a"), &message), "unreadable_file");
+  EXPECT_NE(message.find("Too many levels of symbolic links"), std::string::npos)
+      << message;  // ELOOP
+  EXPECT_EQ(input_rule(dir.file("absent"), &message), "unreadable_file");
+  EXPECT_EQ(message, "no such file");
+  EXPECT_EQ(input_rule(dir.file("ok.toml")), "");
+  for (const char* name : {"fifo", "folder"}) {
+    try {
+      Config::from_file(dir.file(name));
+      ADD_FAILURE() << name << " was read as a config";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "input_not_regular_file");
+    }
+  }
+  // Not waited on: the FIFO has no writer, so a blocking open would never return.
+  EXPECT_LT(std::chrono::steady_clock::now() - start, std::chrono::seconds(60));
+}
+
+TEST(FileSafety, LockFilesFollowTheUmaskAndNeverASymlink) {
+  // Issue 15: lock files were always 0644 (group members under umask 002 could not take
+  // the lock) and followed symlinks; the error named no errno.
+  test::TempDir dir;
+  {
+    UmaskScope scope(002);
+    FileLock lock(dir.file("a.lock"), 1.0);
+    EXPECT_EQ(mode_of(dir.file("a.lock")), 0664u);
+  }
+  test::write_text(dir.file("victim"), "keep");
+  std::filesystem::create_symlink(dir.file("victim"), dir.file("b.lock"));
+  std::filesystem::create_symlink(dir.file("absent"), dir.file("c.lock"));
+  for (const char* name : {"b.lock", "c.lock"}) {
+    try {
+      FileLock lock(dir.file(name), 1.0);
+      ADD_FAILURE() << name << ": a symlinked lock file was taken";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "write_failed");
+      EXPECT_NE(std::string(e.what()).find("Too many levels of symbolic links"), std::string::npos)
+          << e.what();
+    }
+  }
+  EXPECT_FALSE(test::file_exists(dir.file("absent")));
+  EXPECT_EQ(test::read_text(dir.file("victim")), "keep");
+  // A folder where the lock file should be: refused with the system's reason.
+  std::filesystem::create_directory(dir.file("d.lock"));
+  EXPECT_THROW(FileLock(dir.file("d.lock"), 1.0), InputError);
+}
+
+TEST(FileSafety, TheLogFileNeverFollowsASymlinkFollowsTheUmaskAndRotates) {
+  test::TempDir dir;
+  test::write_text(dir.file("victim"), "keep");
+  std::filesystem::create_symlink(dir.file("victim"), dir.file("run.log"));
+  setup_logging("test", Verbosity::kQuiet, dir.file("run.log"));
+  try {
+    throw_deferred_logging_error();
+    ADD_FAILURE() << "a symlinked log file was opened";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "write_failed");
+    EXPECT_NE(std::string(e.what()).find("symlink"), std::string::npos) << e.what();
+  }
+  EXPECT_EQ(test::read_text(dir.file("victim")), "keep");
+  {
+    UmaskScope scope(002);
+    setup_logging("test", Verbosity::kQuiet, dir.file("own.log"), 200, 2);
+    throw_deferred_logging_error();  // nothing kept: the file opened
+    for (int i = 0; i < 20; ++i) spdlog::info("message number {} of a rotating log", i);
+  }
+  // A log file's folder is made when missing, as spdlog's own file sinks made it.
+  setup_logging("test", Verbosity::kQuiet, dir.file("logs/new/run.log"));
+  throw_deferred_logging_error();
+  spdlog::info("into a new folder");
+  setup_logging("test", Verbosity::kQuiet);
+  EXPECT_NE(test::read_text(dir.file("logs/new/run.log")).find("into a new folder"), std::string::npos);
+  EXPECT_EQ(mode_of(dir.file("own.log")), 0664u);
+  EXPECT_TRUE(test::file_exists(dir.file("own.log.1")));
+  EXPECT_TRUE(test::file_exists(dir.file("own.log.2")));
+  EXPECT_FALSE(test::file_exists(dir.file("own.log.3")));
+  EXPECT_LE(std::filesystem::file_size(dir.file("own.log")), 200u);
+  EXPECT_NE(test::read_text(dir.file("own.log")).find("message number 19"), std::string::npos);
+}
+
+TEST(FileSafety, StaleTemporariesOfKilledRunsAreRemovedAndNothingElse) {
+  // Issue 15: ".part" files of killed runs stayed. The first output into a folder removes
+  // this project's temporary files there that are regular, this user's, older than this
+  // process and locked by no live writer; everything else stays.
+  test::TempDir dir;
+  const auto old = [&](const std::string& name) {
+    test::write_text(dir.file(name), "left over");
+    struct timespec times[2] = {{1000000000, 0}, {1000000000, 0}};  // 2001
+    ::utimensat(AT_FDCWD, dir.file(name).c_str(), times, AT_SYMLINK_NOFOLLOW);
+  };
+  old(".catalog.fits.rgtmp-abcdefABCDEF.part");  // stale: removed
+  old(".catalog_rejects.csv.4242-7.part");       // an older release's name: removed
+  old(".catalog.fits.rgtmp-lockedLOCKED.part");  // a live writer's: kept
+  old("notes.part");                             // not a temporary name: kept
+  old(".catalog.fits.rgtmp-short.part");         // not the pattern: kept
+  test::write_text(dir.file(".fresh.fits.rgtmp-abcdefABCDEF.part"),
+                   "being written");  // newer than the process
+  std::filesystem::create_symlink(dir.file("notes.part"),
+                                  dir.file(".link.rgtmp-abcdefABCDEF.part"));
+  const int locked = ::open(dir.file(".catalog.fits.rgtmp-lockedLOCKED.part").c_str(), O_RDONLY);
+  ASSERT_GE(locked, 0);
+  ASSERT_EQ(::flock(locked, LOCK_EX), 0);
+  // The lock is held by another open file description, as another process's would be.
+  write_file_atomically(dir.file("catalog.fits"), "new");
+  ::close(locked);
+  std::set<std::string> left;
+  for (const auto& e : std::filesystem::directory_iterator(dir.path()))
+    left.insert(e.path().filename().string());
+  EXPECT_EQ(left, (std::set<std::string>{"catalog.fits", ".catalog.fits.rgtmp-lockedLOCKED.part",
+                                         "notes.part", ".catalog.fits.rgtmp-short.part",
+                                         ".fresh.fits.rgtmp-abcdefABCDEF.part",
+                                         ".link.rgtmp-abcdefABCDEF.part"}));
+}
+
+TEST(FileSafety, ErrorsNameTheSystemsReason) {
+  // A full disk is named as such, not as bad data (issue 15), and a permission error names
+  // its errno text.
+  EXPECT_NE(errno_text(ENOSPC).find("No space left on device"), std::string::npos);
+  EXPECT_EQ(errno_text(EACCES), "Permission denied");
+  if (::geteuid() == 0) GTEST_SKIP() << "root is not refused by permissions";
+  test::TempDir dir;
+  std::filesystem::create_directory(dir.file("ro"));
+  ::chmod(dir.file("ro").c_str(), 0555);
+  try {
+    write_file_atomically(dir.file("ro/x.txt"), "data");
+    ADD_FAILURE() << "written into a read-only folder";
+  } catch (const InputError& e) {
+    EXPECT_NE(std::string(e.what()).find("Permission denied"), std::string::npos) << e.what();
+  }
+  ::chmod(dir.file("ro").c_str(), 0755);
 }
 
 TEST(Config, UnknownKeyIsNamedWithItsLine) {

@@ -180,6 +180,102 @@ TEST(IngestRows, EachBrokenRuleRejectsItsRowAndNamesIt) {
   EXPECT_EQ(r.rejected[3].column, "plx");
 }
 
+TEST(IngestRows, ImplausibleValuesAreRefusedWithTheirRule) {
+  // Issue 15: a parallax, period or [Fe/H] of 1e308 (or a period of 1e30 or 1e-300 d)
+  // passed ingest and crashed the fit. Limits per quantity in [validate], defaults
+  // documented in docs/file-formats.md; an id equal to an earlier one but for case is
+  // warned about by default and refused when configured.
+  test::TempDir dir;
+  test::write_text(dir.file("in.csv"),
+                   "id,P,plx,plx_err,V,V_err,ebv,mode,feh\n"
+                   "S1,5.0,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"     // line 2: good
+                   "S2,5.0,1e308,0.05,12.0,0.02,0.3,F,-0.1\n"   // parallax_out_of_range
+                   "S3,1e308,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"   // period_out_of_range
+                   "S4,1e30,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"    // period_out_of_range
+                   "S5,1e-300,0.5,0.05,12.0,0.02,0.3,F,-0.1\n"  // period_out_of_range
+                   "S6,5.0,0.5,0.05,12.0,0.02,0.3,F,1e308\n"    // feh_out_of_range
+                   "S7,5.0,0.5,500,12.0,0.02,0.3,F,-0.1\n"      // parallax_error_out_of_range
+                   "S8,5.0,0.5,0.05,12.0,9.9,0.3,F,-0.1\n"      // magnitude_error_out_of_range
+                   "S9,5.0,-1500,0.05,12.0,0.02,0.3,F,-0.1\n"   // parallax_out_of_range
+                   "s1,0.5,0.7,0.05,12.0,0.02,0.3,F,-0.1\n");   // good: a variant of S1 (warned)
+  test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits", "", "feh = \"feh\"\n"));
+  IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
+  EXPECT_EQ(o.parallax_abs_max, 1000.0);
+  EXPECT_EQ(o.period_range.min, 0.05);
+  EXPECT_EQ(o.period_range.max, 1000.0);
+  IngestResult r = run_ingest(o);
+  ASSERT_EQ(r.catalog.rows(), 2u);
+  std::vector<std::pair<std::int64_t, std::string>> got;
+  for (const auto& rej : r.rejected) got.emplace_back(rej.source_row, rej.rule);
+  EXPECT_EQ(got,
+            (std::vector<std::pair<std::int64_t, std::string>>{{3, "parallax_out_of_range"},
+                                                               {4, "period_out_of_range"},
+                                                               {5, "period_out_of_range"},
+                                                               {6, "period_out_of_range"},
+                                                               {7, "feh_out_of_range"},
+                                                               {8, "parallax_error_out_of_range"},
+                                                               {9, "magnitude_error_out_of_range"},
+                                                               {10, "parallax_out_of_range"}}));
+  EXPECT_EQ(r.rejected[0].column, "plx");
+  EXPECT_EQ(r.rejected[1].message,
+            "period 1e+308 d is outside the plausible [0.05, 1000] d for classical_cepheid "
+            "([validate] period_range_d)");
+  // Limits from the config: the class's own period range, a tighter parallax limit, and
+  // id variants refused.
+  test::write_text(dir.file("c.toml"),
+                   config_for("in.csv", "out/cat.fits", "", "feh = \"feh\"\n") +
+                       "\n[validate]\nparallax_max_mas = 0.6\nid_variants = \"refuse\"\n"
+                       "[validate.class_period_range_d]\nclassical_cepheid = [1.0, 100.0]\n");
+  r = run_ingest(ingest_options_from_file(dir.file("c.toml")));
+  ASSERT_EQ(r.catalog.rows(), 1u);
+  ASSERT_FALSE(r.rejected.empty());
+  EXPECT_EQ(r.rejected.back().rule, "id_variant");
+  EXPECT_EQ(r.rejected.back().source_row, 11);
+  EXPECT_EQ(r.rejected.back().message,
+            "id 's1' equals the id at line 2 but for letter case or spaces around it");
+  // Config numbers must be finite, and ranges in order.
+  for (const std::string bad :
+       {"parallax_max_mas = nan", "feh_range = [1.0, -1.0]", "magnitude_error_max = -1",
+        "id_variants = \"sometimes\"", "period_range_d = [0.0, 5.0]"}) {
+    test::write_text(dir.file("c.toml"),
+                     config_for("in.csv", "out/cat.fits") + "\n[validate]\n" + bad + "\n");
+    try {
+      run_ingest(ingest_options_from_file(dir.file("c.toml")));
+      ADD_FAILURE() << bad << " was accepted";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "config_value") << bad;
+    }
+  }
+}
+
+TEST(IngestRows, StarIdsMustBeUtf8) {
+  // Issue 15: a non-UTF-8 byte in an id was an internal error later (JSON). Well-formed
+  // sequences by RFC 3629, section 4 (Unicode Table 3-7): 2-, 3- and 4-byte forms are ids;
+  // an overlong form, a surrogate, a cut sequence and a code point above U+10FFFF stop the
+  // file with rule invalid_utf8 naming the line.
+  test::TempDir dir;
+  const std::string good =
+      "id,P,plx,plx_err,V,V_err,ebv,mode\n"
+      "S\xc3\xbc,5.0,0.5,0.05,12.0,0.02,0.3,F\n"          // U+00FC
+      "\xe2\x98\x89,5.0,0.5,0.05,12.0,0.02,0.3,F\n"       // U+2609
+      "\xf0\x9d\x9b\xbc,5.0,0.5,0.05,12.0,0.02,0.3,F\n";  // U+1D6FC
+  test::write_text(dir.file("in.csv"), good);
+  test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits"));
+  EXPECT_EQ(run_ingest(ingest_options_from_file(dir.file("c.toml"))).catalog.rows(), 3u);
+  for (const std::string& bad : {std::string("\xc0\xaf"), std::string("\xed\xa0\x80"),
+                                 std::string("X\xe2\x82"), std::string("\xf4\x90\x80\x80")}) {
+    test::write_text(dir.file("in.csv"), good + bad + ",5.0,0.5,0.05,12.0,0.02,0.3,F\n");
+    try {
+      run_ingest(ingest_options_from_file(dir.file("c.toml")));
+      ADD_FAILURE() << "an id of " << bad.size() << " bytes was accepted";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "invalid_utf8");
+      EXPECT_EQ(e.where().row, 5);
+      EXPECT_EQ(e.where().column, "id");
+    }
+  }
+}
+
 TEST(IngestRows, NanInFitsIsMissingAndUnitsConvert) {
   test::TempDir dir;
   StarTable t;
@@ -554,6 +650,68 @@ TEST(IngestChunks, AStreamedTextCatalogEqualsOneReadAsASingleGroup) {
   }
   EXPECT_FALSE(test::file_exists(dir.file("out/broken.fits")));
   EXPECT_FALSE(test::file_exists(dir.file("out/broken_rejects.csv")));
+}
+
+// NAXIS1 (bytes per row) of the first binary table in a FITS file, read from the header text.
+long first_table_row_bytes(const std::string& path) {
+  const std::string bytes = test::read_text(path);
+  const auto at = bytes.find("NAXIS1  =", bytes.find("XTENSION= 'BINTABLE'"));
+  return at == std::string::npos ? 0 : std::stol(bytes.substr(at + 10, 20));
+}
+
+TEST(IngestChunks, KeptRowsFillingWholeFitsBlocksAreWritten) {
+  // Issue 15: when rows were refused and the kept rows filled an exact multiple of 2880
+  // bytes, ingest stopped with "[write_failed] closing table CATALOG: tried to move past end
+  // of file". Every kept count from 1 to 150 (the catalog rows are the same width, so
+  // several counts fill whole blocks), text and FITS input, with a refused row and without.
+  test::TempDir dir;
+  IngestOptions o = ingest_options_from_file(test::source_file("config/demo/ingest_targets.toml"));
+  o.chunk_rows = 64;
+  o.rejects_csv_path = dir.file("rejects.csv");
+  const std::string header =
+      "id,host,period_d,ebv,ebv_err,feh,mag_V,mag_err_V,mag_I,mag_err_I,mag_H,mag_err_H\n";
+  auto line = [](std::size_t i, bool refused) {
+    return fmt::format(
+        "VEY-{:04d},Veyra Spiral,{:.5f},0.121,0.020,-0.10,24.393,0.082,23.519,0.067,"
+        "22.176,0.078\n",
+        i, refused ? -1.0 : 10.0 + 0.01 * static_cast<double>(i));
+  };
+  std::size_t whole_blocks = 0;
+  for (std::size_t kept = 1; kept <= 150; ++kept) {
+    for (bool with_reject : {false, true}) {
+      std::string csv = header;
+      for (std::size_t i = 0; i < kept; ++i) {
+        if (with_reject && i == kept / 2) csv += line(900 + i, true);  // period -1: refused
+        csv += line(i, false);
+      }
+      test::write_text(dir.file("in.csv"), csv);
+      for (bool fits : {false, true}) {
+        if (fits) {
+          StarTable in = read_text_table(dir.file("in.csv"), o.text).table;
+          write_fits_tables(dir.file("in.fits"), {{"STARS", &in}});
+        }
+        o.input_path = dir.file(fits ? "in.fits" : "in.csv");
+        o.input_is_fits = fits;
+        o.catalog_path = dir.file("cat.fits");
+        IngestResult r = ingest_catalog_file(o);
+        ASSERT_EQ(r.stars, kept) << (fits ? "FITS" : "text") << ", refused row: " << with_reject;
+        ASSERT_EQ(r.rejected.size(), with_reject ? 1u : 0u);
+        if (with_reject) {
+          EXPECT_EQ(r.rejected[0].rule, "period_nonpositive");
+        }
+        const StarTable back = read_fits_table(o.catalog_path, {"CATALOG", 0}).table;
+        ASSERT_EQ(back.rows(), kept);
+        // The last star's period as in the input line.
+        EXPECT_DOUBLE_EQ(back.column(col::kPeriod).real[kept - 1],
+                         10.0 + 0.01 * static_cast<double>(kept - 1));
+        const long row_bytes = first_table_row_bytes(o.catalog_path);
+        ASSERT_GT(row_bytes, 0);
+        if (with_reject && fits && kept * static_cast<std::size_t>(row_bytes) % 2880 == 0)
+          ++whole_blocks;
+      }
+    }
+  }
+  EXPECT_GE(whole_blocks, 2u);  // the sweep did reach the counts that failed
 }
 
 }  // namespace

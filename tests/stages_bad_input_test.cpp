@@ -1,10 +1,12 @@
 // SPDX-License-Identifier: MIT
 // Bad input across the stage executables (deredden, fit, publish, apply, report, diff,
-// simulate, run, lightcurve): each case must stop with exit 2, a message naming the file
-// and the broken rule in brackets, and leave nothing half-written. The ingest stage's own
-// cases are in ingest_test.cpp, the light-curve stage's in lightcurve_test.cpp.
+// simulate, run, lightcurve, and ingest's file cases): each case must stop with exit 2, a
+// message naming the file and the broken rule in brackets, and leave nothing half-written.
+// The ingest stage's row and config cases are in ingest_test.cpp, the light-curve stage's
+// in lightcurve_test.cpp. Valid input that once failed (issue 15) is at the end.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <filesystem>
 #include <ostream>
 #include <string>
@@ -25,6 +27,7 @@ struct StageCase {
   std::string rule;                                        // expected [rule]
   std::string names;                                       // the message names this (file or key)
   std::string must_not_exist = "out";                      // nothing written here
+  std::string setup = "";  // shell commands run in {dir} after the files are written
 };
 
 // Test names in listings, not the struct's bytes.
@@ -32,6 +35,38 @@ void PrintTo(const StageCase& c, std::ostream* os) { *os << c.name; }
 
 const std::string kDemo = test::source_file("config/demo");
 const std::string kRelation = "[[relation]]\nname = \"V\"\nband = \"V\"\n";
+const std::string kTargets = "--config " + test::source_file("config/demo/ingest_targets.toml");
+const std::string kTargetsHeader =
+    "id,host,period_d,ebv,ebv_err,feh,mag_V,mag_err_V,mag_I,mag_err_I,mag_H,mag_err_H\n";
+const std::string kTargetsLine =
+    "VEY-0001,Veyra Spiral,29.93505,0.121,0.02,-0.1,24.393,0.082,23.519,0.067,22.176,0.078\n";
+// A pipeline config over the demo's stage configs, into {dir}/out.
+const std::string kPipeline =
+    "[run]\nfolder = \"out\"\ncalibration = \"c\"\n[ingest]\nconfig = \"" + kDemo +
+    "/ingest.toml\"\n[deredden]\nconfig = \"" + kDemo + "/deredden.toml\"\n[fit]\nconfig = \"" +
+    kDemo + "/fit.toml\"\n";
+// A small ingest config (the input is never reached: the config is refused first).
+const std::string kIngestConfig =
+    "[source]\npath = \"in.csv\"\n[columns]\nid = \"id\"\nperiod = \"P\"\nmode = { value = "
+    "\"fundamental\" }\n"
+    "pulsator_class = { value = \"classical_cepheid\" }\n[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n";
+// A rungcal-fit result with one relation and one parameter; {value} is the parameter's value.
+std::string fit_json(const std::string& value,
+                     const std::string& covariance = ", \"covariance\": [[0.01]]") {
+  return "{\"schema\": \"rungcal-fit\", \"relations\": [{\"name\": \"V\", \"pivot_log_period\": "
+         "1.0, "
+         "\"parameter_names\": [\"alpha\"], \"parameters\": [{\"name\": \"alpha\", \"mode\": "
+         "\"free\", "
+         "\"value\": " +
+         value + ", \"error\": 0.1}]" + covariance + "}]}";
+}
+// A stored calibration (store/t/v0001, latest) holding fit.
+std::string calibration_json(const std::string& fit) {
+  return "{\"schema\": \"rungcal-calibration\", \"schema_version\": 1, \"name\": \"t\", "
+         "\"version\": 1, "
+         "\"content_sha256\": \"x\", \"config_text\": \"\", \"previous\": null, \"fit\": " +
+         fit + "}";
+}
 
 std::vector<StageCase> stage_cases() {
   return {
@@ -177,6 +212,206 @@ std::vector<StageCase> stage_cases() {
        {},
        "unreadable_file",
        "nothere.toml"},
+      // Issue 15, file safety: outputs and inputs that are not regular files, symlinked
+      // lock and log files.
+      {"IngestOutputIsAFifo",
+       "ingest",
+       kTargets + " --out {dir}/out.fits",
+       {},
+       "output_not_regular_file",
+       "out.fits",
+       "out",
+       "mkfifo out.fits"},
+      {"IngestOutputIsAFolder",
+       "ingest",
+       kTargets + " --out {dir}/out.fits",
+       {},
+       "output_not_regular_file",
+       "out.fits",
+       "out",
+       "mkdir out.fits"},
+      {"IngestInputIsAFifo",
+       "ingest",
+       kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits",
+       {},
+       "input_not_regular_file",
+       "in.csv",
+       "out",
+       "mkfifo in.csv"},
+      {"IngestInputIsAFolder",
+       "ingest",
+       kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits",
+       {},
+       "input_not_regular_file",
+       "in.csv",
+       "out",
+       "mkdir in.csv"},
+      {"IngestConfigIsAFifo",
+       "ingest",
+       "--config {dir}/c.toml --out {dir}/out/t.fits",
+       {},
+       "input_not_regular_file",
+       "c.toml",
+       "out",
+       "mkfifo c.toml"},
+      {"RunConfigIsAFolder",
+       "run",
+       "--config {dir}/r.toml",
+       {},
+       "input_not_regular_file",
+       "r.toml",
+       "out",
+       "mkdir r.toml"},
+      {"RunInputIsAFifo",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", test::replaced(kPipeline, {{"[ingest]\n", "[ingest]\ninput = \"in.fits\"\n"}})}},
+       "input_not_regular_file",
+       "in.fits",
+       "out/catalog.fits",
+       "mkfifo in.fits"},
+      {"RunLockFileIsASymlink",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", kPipeline}},
+       "write_failed",
+       "Too many levels of symbolic links",
+       "victim",
+       "mkdir out && ln -s ../victim out/.run.lock"},
+      {"RunLogFileIsASymlink",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", kPipeline}},
+       "write_failed",
+       "symlink",
+       "victim",
+       "mkdir -p out/logs && ln -s ../../victim out/logs/rungcal-run.log"},
+      {"PublishFitIsAFifo",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/fit.json",
+       {},
+       "input_not_regular_file",
+       "fit.json",
+       "out",
+       "mkfifo fit.json"},
+      // Issue 15, cfitsio's extended filename syntax: "cal[1].fits" is a file name.
+      {"IngestFitsNameWithBracketsIsReadAsItsFile",
+       "ingest",
+       "--config " + kDemo + "/ingest.toml --input '{dir}/cal[1].fits' --out '{dir}/run(2)/c.fits'",
+       {{"cal[1].fits", "not FITS"}},
+       "fits_read",
+       "cal[1].fits: [fits_read] HDU 1 header has no END card",
+       "run(2)/c.fits"},
+      // Issue 15, internal errors that are bad input.
+      {"IngestIdNotUtf8",
+       "ingest",
+       kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits",
+       {{"in.csv", kTargetsHeader + kTargetsLine +
+                       "VEY-\xff"
+                       "02,Veyra Spiral,20.1,0.1,0.02,-0.1,24.0,0.08,23.5,0.07,22.1,0.08\n"}},
+       "invalid_utf8",
+       "in.csv:line 3: column 'id'"},
+      {"IngestFitsInputIsASymlinkLoop",
+       "ingest",
+       "--config " + kDemo + "/ingest.toml --input {dir}/cal.fits --out {dir}/out/c.fits",
+       {},
+       "unreadable_file",
+       "Too many levels of symbolic links",
+       "out",
+       "ln -s loop cal.fits && ln -s cal.fits loop"},
+      {"RunLogFilesNegative",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", test::replaced(kPipeline, {{"calibration = \"c\"\n",
+                                               "calibration = \"c\"\nlog_files = -1\n"}})}},
+       "config_value",
+       "log_files"},
+      {"RunFolderIsAFile",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", kPipeline}, {"out", "a file"}},
+       "run_folder_not_a_folder",
+       "out",
+       "out/catalog.fits"},
+      {"PublishFitNestedTooDeep",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", std::string(100000, '[') + std::string(100000, ']')}},
+       "json_too_deep",
+       "fit.json"},
+      {"PublishFitWithoutRelations",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", "{\"schema\": \"rungcal-fit\"}"}},
+       "fit_schema",
+       "relations"},
+      {"PublishFitStringValue",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", fit_json("\"12.5\"")}},
+       "fit_schema",
+       "relations[0].parameters[0].value"},
+      {"PublishFitNullValue",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", fit_json("null")}},
+       "fit_schema",
+       "relations[0].parameters[0].value"},
+      {"PublishFitNumberBeyondDouble",
+       "publish",
+       "--store {dir}/out --name t --fit {dir}/fit.json",
+       {{"fit.json", fit_json("1e400")}},
+       "json_syntax",
+       "1e400"},
+      {"DiffStoredCalibrationWithoutCovariance",
+       "diff",
+       "--store {dir}/store --to t@latest",
+       {{"store/t/v0001/calibration.json", calibration_json(fit_json("-2.5", ""))}},
+       "fit_schema",
+       "relations[0].covariance",
+       "out",
+       "ln -s v0001 store/t/latest"},
+      {"ApplyStoredCalibrationWithoutCovariance",
+       "apply",
+       "--store {dir}/store --calibration t@latest --relation V --targets x.fits --out "
+       "{dir}/out/d.fits",
+       {{"store/t/v0001/calibration.json", calibration_json(fit_json("-2.5", ""))}},
+       "fit_schema",
+       "covariance",
+       "out",
+       "ln -s v0001 store/t/latest"},
+      // Issue 15, limits: non-finite config numbers, a runaway field, unknown policies.
+      {"FitMaxRuweNan",
+       "fit",
+       "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\nmax_ruwe = nan\n" + kRelation}},
+       "config_value",
+       "max_ruwe"},
+      {"FitPivotLogPeriodNan",
+       "fit",
+       "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\n" + kRelation + "pivot_log_period = nan\n"}},
+       "config_value",
+       "pivot_log_period"},
+      {"IngestParallaxLimitInfinite",
+       "ingest",
+       "--config {dir}/c.toml --out {dir}/out/t.fits",
+       {{"c.toml", kIngestConfig + "[validate]\nparallax_max_mas = inf\n"}},
+       "config_value",
+       "parallax_max_mas"},
+      {"IngestPeriodRangeNotPositive",
+       "ingest",
+       "--config {dir}/c.toml --out {dir}/out/t.fits",
+       {{"c.toml", kIngestConfig + "[validate]\nperiod_range_d = [0.0, 10.0]\n"}},
+       "config_value",
+       "period_range_d"},
+      {"IngestOneHugeField",
+       "ingest",
+       kTargets + " --input {dir}/in.csv --out {dir}/out/t.fits",
+       {{"in.csv", kTargetsHeader + kTargetsLine + "VEY-0002," + std::string(10u << 20, 'x') +
+                       ",20.1,0.1,0.02,-0.1,24.0,0.08,23.5,0.07,22.1,0.08\n"}},
+       "field_too_long",
+       "in.csv:line 3: column 'host'"},
   };
 }
 
@@ -190,19 +425,83 @@ class StageBadInput : public ::testing::TestWithParam<StageCase> {};
 TEST_P(StageBadInput, StopsWithExit2ItsRuleAndWritesNothing) {
   const StageCase& c = GetParam();
   test::TempDir dir;
-  for (const auto& [name, content] : c.files) test::write_text(dir.file(name), content);
+  for (const auto& [name, content] : c.files) {
+    fs::create_directories(fs::path(dir.file(name)).parent_path());
+    test::write_text(dir.file(name), content);
+  }
+  if (!c.setup.empty()) {
+    ASSERT_EQ(test::run_command("cd " + dir.path() + " && " + c.setup).exit_code, 0) << c.setup;
+  }
   auto r = test::run_command("cd " + dir.path() + " && " + std::string(RUNGCAL_BIN_DIR) +
                              "/rungcal-" + c.stage + " " + with_dir(c.args, dir.path()));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
   EXPECT_NE(r.output.find(c.names), std::string::npos) << r.output;
   EXPECT_FALSE(fs::exists(dir.file(c.must_not_exist))) << c.must_not_exist << " was written";
-  for (const auto& e : fs::recursive_directory_iterator(dir.path()))
+  for (const auto& e : fs::recursive_directory_iterator(
+           dir.path(), fs::directory_options::skip_permission_denied)) {
     EXPECT_EQ(e.path().string().find(".part"), std::string::npos) << e.path();
+  }
 }
 
 INSTANTIATE_TEST_SUITE_P(Cases, StageBadInput, ::testing::ValuesIn(stage_cases()),
                          [](const auto& case_info) { return std::string(case_info.param.name); });
+
+// Valid input that a stage once refused or failed on (issue 15): each must now exit 0 and
+// write its product, with nothing else left in the folder.
+TEST(StageValidInput, RefusedRowsLeavingWholeFitsBlocksOfKeptRows) {
+  // The issue's reproduction: the demo's targets.csv cut to its first 21 data lines, one
+  // period set to -1; the 20 kept rows fill whole 2880-byte blocks of the catalog.
+  test::TempDir dir;
+  const std::string all = test::read_text(test::source_file("sample_data/targets.csv"));
+  std::string cut;
+  std::size_t at = 0;
+  for (int line = 0; line < 22; ++line) {
+    const std::size_t end = all.find('\n', at);
+    std::string text = all.substr(at, end - at + 1);
+    if (line == 5) {  // the fifth star: its period (third field) becomes -1
+      const std::size_t a = text.find(',', text.find(',') + 1) + 1;
+      text.replace(a, text.find(',', a) - a, "-1");
+    }
+    cut += text;
+    at = end + 1;
+  }
+  test::write_text(dir.file("in.csv"), cut);
+  auto r = test::run_command(std::string(RUNGCAL_BIN_DIR) + "/rungcal-ingest " + kTargets +
+                             " --input " + dir.file("in.csv") + " --out " + dir.file("out/t.fits"));
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  auto py = test::run_python(
+      "import sys\nfrom astropy.io import fits\nh = fits.open(sys.argv[1])\n"
+      "print(h['CATALOG'].header['NAXIS1'] * h['CATALOG'].header['NAXIS2'] % 2880, "
+      "len(h['CATALOG'].data), "
+      "len(h['REJECTS'].data))",
+      {dir.file("out/t.fits")});
+  ASSERT_EQ(py.exit_code, 0) << py.output;
+  EXPECT_EQ(test::parse_numbers(py.output), (std::vector<double>{0, 20, 1}));  // astropy's count
+}
+
+TEST(StageValidInput, FitsNamesWithCfitsioSyntaxAreFiles) {
+  // cal[1].fits read, into a folder run[1] and one run(2): the products and nothing else.
+  test::TempDir dir;
+  fs::copy_file(test::source_file("sample_data/calibrators.fits"), dir.file("cal[1].fits"));
+  for (const std::string folder : {"run[1]", "run(2)"}) {
+    auto r =
+        test::run_command(std::string(RUNGCAL_BIN_DIR) + "/rungcal-ingest --config " + kDemo +
+                          "/ingest.toml --input " + test::shell_quote(dir.file("cal[1].fits")) +
+                          " --out " + test::shell_quote(dir.file(folder + "/c.fits")));
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    std::vector<std::string> made;
+    for (const auto& e : fs::directory_iterator(dir.file(folder)))
+      made.push_back(e.path().filename().string());
+    std::sort(made.begin(), made.end());
+    EXPECT_EQ(made, (std::vector<std::string>{"c.fits", "c_rejects.csv"})) << folder;
+  }
+  std::vector<std::string> top;
+  for (const auto& e : fs::directory_iterator(dir.path()))
+    top.push_back(e.path().filename().string());
+  std::sort(top.begin(), top.end());
+  EXPECT_EQ(top, (std::vector<std::string>{"cal[1].fits", "run(2)", "run[1]"}));
+}
 
 }  // namespace
 }  // namespace rungcal

@@ -2,10 +2,17 @@
 // Tests of lib/rungcal/table: star table, delimited text and FITS readers/writers, units.
 // FITS interchange is checked against astropy (Debian python3-astropy) in both directions.
 #include <gtest/gtest.h>
+#include <sys/resource.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <csignal>
+#include <cstdio>
 
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
+#include <set>
 
 #include <fmt/format.h>
 
@@ -395,6 +402,127 @@ TEST(FitsStream, GroupsWrittenInTurnReadBackAsOneTable) {
     EXPECT_EQ(back.column("x").unit, "mag");
     EXPECT_EQ(read_fits_table(dir.file("s.fits"), {"EXTRA", 0}).table.rows(), 1u);
   }
+}
+
+// A table of `columns` real columns (8 bytes a row each) and rows [first, first + n), the
+// value of row r in column c being r + c / 1000.
+StarTable real_rows(std::size_t columns, std::size_t first, std::size_t n) {
+  StarTable t;
+  // Every column first: a column added later is made as long as the table already is.
+  for (std::size_t c = 0; c < columns; ++c) t.add_column(fmt::format("x{}", c), ColumnType::kReal);
+  for (std::size_t c = 0; c < columns; ++c)
+    for (std::size_t r = first; r < first + n; ++r)
+      t.column(c).push_real(static_cast<double>(r) + static_cast<double>(c) / 1000.0);
+  return t;
+}
+
+// Streams `kept` rows in groups of `group` into a table made for kept + dropped rows, then
+// reads the file back: the rows and values written, and nothing else.
+void stream_and_check(const test::TempDir& dir, std::size_t columns, std::size_t kept,
+                      std::size_t dropped, std::size_t group) {
+  const std::string path = dir.file("s.fits");
+  FitsTableStream stream(path, "STREAM", static_cast<std::int64_t>(kept + dropped));
+  for (std::size_t first = 0; first < kept; first += group)
+    stream.append(real_rows(columns, first, std::min(group, kept - first)));
+  StarTable rejects = real_rows(1, 0, dropped);
+  stream.finish({}, {{"REJECTS", &rejects}}, real_rows(columns, 0, 0));
+  const StarTable back = read_fits_table(path, {"STREAM", 0}).table;
+  ASSERT_EQ(back.rows(), kept) << kept << " kept, " << dropped << " dropped";
+  ASSERT_EQ(back.columns(), columns);
+  for (std::size_t r = 0; r < kept; ++r)
+    for (std::size_t c = 0; c < columns; ++c)
+      ASSERT_EQ(back.column(c).real[r], static_cast<double>(r) + static_cast<double>(c) / 1000.0)
+          << kept << " kept, " << dropped << " dropped, row " << r;
+  EXPECT_EQ(read_fits_table(path, {"REJECTS", 0}).table.rows(), dropped);
+  EXPECT_EQ(std::filesystem::file_size(path) % 2880, 0u);  // FITS 4.0, section 3.1
+}
+
+TEST(FitsStream, EveryKeptRowCountReadsBackWithOrWithoutDroppedRows) {
+  // The rows made but not written (rows an ingest refused) are dropped at finish(); when
+  // the kept rows ended exactly on a 2880-byte FITS block, cfitsio failed with "tried to
+  // move past end of file" (issue 15). Rows of two 8-byte columns: every count from 1 to
+  // 2,000 with a row dropped, 11 of them filling whole blocks (180 rows a block), and every
+  // count to 400 with none dropped.
+  test::TempDir dir;
+  for (std::size_t kept = 1; kept <= 2000; ++kept) stream_and_check(dir, 2, kept, 1, 1000);
+  for (std::size_t kept = 1; kept <= 400; ++kept) stream_and_check(dir, 2, kept, 0, 1000);
+  // More dropped rows than a block holds, across groups, and rows 1,440 bytes wide (180
+  // columns: every even count fills whole blocks).
+  for (std::size_t kept : {360u, 720u, 2880u})
+    for (std::size_t dropped : {359u, 360u, 361u, 5000u})
+      stream_and_check(dir, 1, kept, dropped, 7);
+  for (std::size_t kept = 1; kept <= 24; ++kept)
+    for (std::size_t dropped : {0u, 1u, 2u, 3u}) stream_and_check(dir, 180, kept, dropped, 5);
+  // Every row refused: an empty table.
+  stream_and_check(dir, 1, 0, 360, 1);
+}
+
+TEST(FitsPaths, NamesAreTakenLiterallyNotAsCfitsioSyntax) {
+  // Issue 15: cfitsio reads "cal[1].fits" as HDU 1 of "cal", "run(2)/x" as a template and
+  // more; a folder run[1] failed and left a stray empty file, and cal[1].fits could not be
+  // read. Every such name is written, streamed and read as the file it names.
+  test::TempDir dir;
+  const StarTable t = stream_group({"A", "B"}, 1.0);
+  for (const std::string folder : {"run[1]", "run(2)", "a+b", "x[STARS]", "c{d}"}) {
+    for (const std::string name :
+         {"cal[1].fits", "cal(2).fits", "plain.fits", "k[col x].fits", "~t.fits"}) {
+      const std::string path = dir.file(folder) + "/" + name;
+      write_fits_tables(path, {{"STARS", &t}});
+      StarTable back = read_fits_table(path, {"STARS", 0}).table;
+      back.header().clear();
+      EXPECT_EQ(format_csv_table(back), format_csv_table(t)) << path;
+      FitsTableStream stream(path + ".s", "STREAM", 3);
+      stream.append(t);
+      stream.finish({}, {}, t);
+      EXPECT_EQ(read_fits_table(path + ".s", {"STREAM", 0}).table.rows(), 2u) << path;
+    }
+    std::set<std::string> files;
+    for (const auto& e : std::filesystem::directory_iterator(dir.file(folder)))
+      files.insert(e.path().filename().string());
+    EXPECT_EQ(files,
+              (std::set<std::string>{"cal[1].fits", "cal[1].fits.s", "cal(2).fits", "cal(2).fits.s",
+                                     "plain.fits", "plain.fits.s", "k[col x].fits",
+                                     "k[col x].fits.s", "~t.fits", "~t.fits.s"}))
+        << folder;
+  }
+  // Nothing was made beside the folders (cfitsio's syntax once made "run" from "run[1]").
+  std::set<std::string> top;
+  for (const auto& e : std::filesystem::directory_iterator(dir.path()))
+    top.insert(e.path().filename().string());
+  EXPECT_EQ(top, (std::set<std::string>{"run[1]", "run(2)", "a+b", "x[STARS]", "c{d}"}));
+}
+
+TEST(FitsPaths, AWriteTheSystemRefusesNamesItsReasonAndLeavesNothing) {
+  // A file-size limit (RLIMIT_FSIZE, in a child process) makes cfitsio's writes fail as a
+  // full disk would, with errno EFBIG instead of ENOSPC: the message carries the system's
+  // reason (issue 15: a full disk must say so), and no file or temporary file is left.
+  test::TempDir dir;
+  StarTable big;
+  big.add_column("x", ColumnType::kReal);
+  for (int i = 0; i < 100000; ++i) big.column("x").push_real(i);
+  const std::string report = dir.file("message.txt");
+  const pid_t child = ::fork();
+  ASSERT_GE(child, 0);
+  if (child == 0) {
+    ::signal(SIGXFSZ, SIG_IGN);
+    const struct rlimit limit = {64 * 1024, 64 * 1024};
+    ::setrlimit(RLIMIT_FSIZE, &limit);
+    std::string message = "written";
+    try {
+      write_fits_tables(dir.file("out/big.fits"), {{"BIG", &big}});
+    } catch (const InputError& e) {
+      message = e.rule() + ": " + e.what();
+    }
+    std::FILE* f = std::fopen(report.c_str(), "w");
+    if (f) std::fputs(message.c_str(), f), std::fclose(f);
+    ::_exit(0);
+  }
+  int status = 0;
+  ::waitpid(child, &status, 0);
+  const std::string message = test::read_text(report);
+  EXPECT_EQ(message.rfind("write_failed: ", 0), 0u) << message;
+  EXPECT_NE(message.find("File too large"), std::string::npos) << message;  // strerror(EFBIG)
+  EXPECT_TRUE(std::filesystem::is_empty(dir.file("out")));
 }
 
 TEST(FitsStream, AStreamNeverFinishedLeavesNothing) {

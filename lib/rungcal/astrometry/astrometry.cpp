@@ -9,6 +9,7 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
 
 namespace rungcal {
@@ -37,6 +38,7 @@ double latitude_term(int k, double sin_beta) {
 }  // namespace
 
 ZeroPointTable ZeroPointTable::from_file(const std::string& path) {
+  check_input_file(path);
   std::ifstream in(path, std::ios::binary);
   if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the zero-point table");
   std::vector<std::vector<double>> rows;

@@ -10,6 +10,110 @@
 
 namespace rungcal {
 
+namespace {
+
+[[noreturn]] void schema_error(const std::string& where, const std::string& rule,
+                               const std::string& key, const std::string& message) {
+  throw InputError({where, {}, key, "row", "key"}, rule, message);
+}
+
+bool finite_number(const nlohmann::json& v) {
+  return v.is_number() && std::isfinite(v.get<double>());
+}
+
+const nlohmann::json& member(const nlohmann::json& object, const std::string& key,
+                             const std::string& path, const std::string& where) {
+  auto it = object.find(key);
+  if (it == object.end()) schema_error(where, "fit_schema", path + key, "missing");
+  return *it;
+}
+
+void require_finite(const nlohmann::json& object, const std::string& key, const std::string& path,
+                    const std::string& where) {
+  const nlohmann::json& v = member(object, key, path, where);
+  if (!finite_number(v))
+    schema_error(where, "fit_schema", path + key,
+                 fmt::format("must be a finite number, not {}", v.dump().substr(0, 40)));
+}
+
+void require_string(const nlohmann::json& object, const std::string& key, const std::string& path,
+                    const std::string& where) {
+  if (!member(object, key, path, where).is_string())
+    schema_error(where, "fit_schema", path + key, "must be a string");
+}
+
+}  // namespace
+
+void check_fit_document(const nlohmann::json& fit, const std::string& where) {
+  if (!fit.is_object())
+    schema_error(where, "fit_schema", "", "the fit result must be a JSON object");
+  const nlohmann::json& relations = member(fit, "relations", "", where);
+  if (!relations.is_array())
+    schema_error(where, "fit_schema", "relations", "must be an array of relations");
+  for (std::size_t i = 0; i < relations.size(); ++i) {
+    const nlohmann::json& r = relations[i];
+    const std::string at = fmt::format("relations[{}].", i);
+    if (!r.is_object())
+      schema_error(where, "fit_schema", at.substr(0, at.size() - 1), "must be an object");
+    require_string(r, "name", at, where);
+    require_finite(r, "pivot_log_period", at, where);
+    if (r.contains("break_log_period")) require_finite(r, "break_log_period", at, where);
+    const nlohmann::json& names = member(r, "parameter_names", at, where);
+    if (!names.is_array())
+      schema_error(where, "fit_schema", at + "parameter_names", "must be an array of strings");
+    for (const auto& n : names)
+      if (!n.is_string())
+        schema_error(where, "fit_schema", at + "parameter_names", "must be an array of strings");
+    const nlohmann::json& params = member(r, "parameters", at, where);
+    if (!params.is_array() || params.size() != names.size())
+      schema_error(
+          where, "fit_schema", at + "parameters",
+          fmt::format("must be an array of {} parameters, one per parameter name", names.size()));
+    for (std::size_t j = 0; j < params.size(); ++j) {
+      const std::string pat = fmt::format("{}parameters[{}].", at, j);
+      if (!params[j].is_object())
+        schema_error(where, "fit_schema", pat.substr(0, pat.size() - 1), "must be an object");
+      require_string(params[j], "name", pat, where);
+      require_string(params[j], "mode", pat, where);
+      require_finite(params[j], "value", pat, where);
+      const nlohmann::json& e = member(params[j], "error", pat, where);
+      if (!e.is_null() && !finite_number(e))
+        schema_error(where, "fit_schema", pat + "error", "must be a finite number or null");
+    }
+    const nlohmann::json& cov = member(r, "covariance", at, where);
+    bool square = cov.is_array() && cov.size() == names.size();
+    for (std::size_t j = 0; square && j < cov.size(); ++j) {
+      square = cov[j].is_array() && cov[j].size() == names.size();
+      for (std::size_t k = 0; square && k < cov[j].size(); ++k)
+        square = cov[j][k].is_null() || finite_number(cov[j][k]);
+    }
+    if (!square)
+      schema_error(
+          where, "fit_schema", at + "covariance",
+          fmt::format("must be a {0} x {0} array of finite numbers or nulls", names.size()));
+    if (r.contains("used")) {
+      const nlohmann::json& used = r.at("used");
+      bool ok = used.is_array();
+      for (std::size_t k = 0; ok && k < used.size(); ++k) ok = used[k].is_string();
+      if (!ok) schema_error(where, "fit_schema", at + "used", "must be an array of star ids");
+    }
+  }
+}
+
+void check_calibration_document(const nlohmann::json& document, const std::string& where) {
+  if (!document.is_object())
+    schema_error(where, "calibration_schema", "", "a calibration file is a JSON object");
+  auto name = document.find("name");
+  if (name == document.end() || !name->is_string())
+    schema_error(where, "calibration_schema", "name", "missing, or not a string");
+  auto version = document.find("version");
+  if (version == document.end() || !version->is_number_integer())
+    schema_error(where, "calibration_schema", "version", "missing, or not an integer");
+  auto fit = document.find("fit");
+  if (fit == document.end()) schema_error(where, "calibration_schema", "fit", "missing");
+  check_fit_document(*fit, where);
+}
+
 const std::string& Calibration::name() const { return document.at("name").get_ref<const std::string&>(); }
 int Calibration::version() const { return document.at("version").get<int>(); }
 std::string Calibration::label() const { return fmt::format("{}@{}", name(), version()); }

@@ -34,6 +34,20 @@ struct Calibration {
   const nlohmann::json& relation(const std::string& name) const;
 };
 
+// Checks the parts of a rungcal-fit result (fit.json, or a calibration's "fit") that
+// publish, diff, apply and report read: "relations" an array of objects, each with a string
+// "name", finite numbers "pivot_log_period" (and "break_log_period" when present),
+// "parameter_names" strings, "parameters" objects with a string "name" and "mode", a finite
+// "value" and an "error" that is a finite number or null, and "covariance" a square array
+// of arrays of numbers or nulls, one row per parameter; "used" (when present) strings.
+// Throws InputError (rule "fit_schema") naming the first part that is missing or of the
+// wrong type, with `where` as the file.
+void check_fit_document(const nlohmann::json& fit, const std::string& where);
+
+// The same for a whole calibration file: a string "name", an integer "version", and its
+// "fit" as above (rule "calibration_schema" for the file's own fields).
+void check_calibration_document(const nlohmann::json& document, const std::string& where);
+
 // The content hash of a fit result (rungcal-fit JSON) with its config text.
 std::string calibration_content_sha256(const nlohmann::json& fit, const std::string& config_text);
 

@@ -18,8 +18,9 @@
 
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
-#include "rungcal/core/file_lock.hpp"
 #include "rungcal/core/fault.hpp"
+#include "rungcal/core/file_lock.hpp"
+#include "rungcal/core/json_io.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -29,21 +30,9 @@ namespace fs = std::filesystem;
 namespace rungcal {
 namespace {
 
-std::string read_all(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return ss.str();
-}
+std::string read_all(const std::string& path) { return read_input_file(path); }
 
-nlohmann::json read_json(const std::string& path) {
-  try {
-    return nlohmann::json::parse(read_all(path));
-  } catch (const nlohmann::json::parse_error& e) {
-    throw InputError({path, {}, {}}, "json_syntax", e.what());
-  }
-}
+nlohmann::json read_json(const std::string& path) { return read_json_file(path); }
 
 std::string version_folder(int v) { return fmt::format("v{:04d}", v); }
 
@@ -188,16 +177,19 @@ Calibration load_calibration(const std::string& store, const std::string& refere
   if (!fs::exists(file))
     throw InputError({file.string(), {}, {}}, "unknown_calibration", fmt::format("{} has no version {}", name, version));
   Calibration cal{read_json(file.string())};
-  if (cal.document.value("schema", "") != "rungcal-calibration")
+  if (!(cal.document.is_object() && cal.document.contains("schema") &&
+        cal.document.at("schema") == "rungcal-calibration"))
     throw InputError({file.string(), {}, "schema"}, "not_a_calibration", "not a rungcal calibration file");
+  check_calibration_document(cal.document, file.string());
   return cal;
 }
 
 PublishOutcome publish_calibration(const PublishOptions& o) {
   throw_if_invalid(o.check(), "");
   nlohmann::json fit = read_json(o.fit_path);
-  if (fit.value("schema", "") != "rungcal-fit")
+  if (!(fit.is_object() && fit.contains("schema") && fit.at("schema") == "rungcal-fit"))
     throw InputError({o.fit_path, {}, "schema"}, "not_a_fit_result", "not a rungcal-fit result");
+  check_fit_document(fit, o.fit_path);
   const std::string config_text = o.config_path.empty() ? "" : read_all(o.config_path);
   if (!o.residuals_path.empty() && !fs::exists(o.residuals_path))
     throw InputError({o.residuals_path, {}, {}}, "unreadable_file", "no such residuals file");

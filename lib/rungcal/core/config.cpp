@@ -1,12 +1,14 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/core/config.hpp"
 
+#include <cmath>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
 
 #include <fmt/format.h>
 
+#include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/provenance.hpp"
 
@@ -116,7 +118,11 @@ std::optional<double> ConfigSection::get_number(const std::string& key) const {
   if (!n) return std::nullopt;
   if (n->is_integer()) return static_cast<double>(n->as_integer()->get());
   if (!n->is_floating_point()) fail(key, fmt::format("must be a number, not {}", toml_type_name(*n)));
-  return n->as_floating_point()->get();
+  // TOML allows nan and inf; no rungcal setting gives them a meaning, and a NaN limit
+  // compares false both ways, switching its check off unseen (max_ruwe = nan, issue 15).
+  const double v = n->as_floating_point()->get();
+  if (!std::isfinite(v)) fail(key, fmt::format("must be a finite number, not {}", v));
+  return v;
 }
 
 double ConfigSection::number_or(const std::string& key, double fallback) const {
@@ -163,7 +169,11 @@ std::optional<std::vector<double>> ConfigSection::get_number_list(const std::str
   std::vector<double> out;
   for (const auto& el : *arr) {
     if (el.is_integer()) out.push_back(static_cast<double>(el.as_integer()->get()));
-    else if (el.is_floating_point()) out.push_back(el.as_floating_point()->get());
+    else if (el.is_floating_point() && std::isfinite(el.as_floating_point()->get()))
+      out.push_back(el.as_floating_point()->get());
+    else if (el.is_floating_point())
+      fail(key, fmt::format("every element must be a finite number, not {}",
+                            el.as_floating_point()->get()));
     else fail(key, "every element must be a number");
   }
   return out;
@@ -205,11 +215,8 @@ Config Config::from_string(const std::string& text, const std::string& name) {
 }
 
 Config Config::from_file(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the config file");
-  std::stringstream ss;
-  ss << in.rdbuf();
-  return from_string(ss.str(), path);
+  // A folder or a FIFO is refused at once, not read as an empty config or waited on.
+  return from_string(read_input_file(path), path);
 }
 
 ConfigSection Config::root() { return ConfigSection(this, &table_, ""); }

@@ -11,13 +11,15 @@
 #include <fmt/format.h>
 #include <spdlog/spdlog.h>
 
+#include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
 
 namespace rungcal {
 
 FileLock::FileLock(const std::string& path, double wait_seconds, const std::string& who) {
-  fd_ = ::open(path.c_str(), O_RDWR | O_CREAT | O_CLOEXEC, 0644);
-  if (fd_ < 0) throw InputError({path, {}, {}}, "write_failed", "cannot create the lock file");
+  // Never through a symlink, mode 0666 less the umask as any new file, and without
+  // blocking on something that is not a regular file (docs/operations.md).
+  fd_ = open_own_file(path, O_RDWR, "the lock file");
   if (::flock(fd_, LOCK_EX | LOCK_NB) == 0) return;
   waited_ = true;
   spdlog::warn("{}: {} holds the lock; waiting up to {} s", path, who, wait_seconds);
@@ -34,6 +36,7 @@ FileLock::FileLock(const std::string& path, double wait_seconds, const std::stri
 }
 
 FileLock::~FileLock() {
+  if (fd_ < 0) return;
   ::flock(fd_, LOCK_UN);
   ::close(fd_);
 }

@@ -16,6 +16,11 @@ enum class Verbosity { kQuiet, kNormal, kVerbose };
 void setup_logging(const std::string& stage, Verbosity verbosity, const std::string& log_file = "",
                    std::size_t rotate_bytes = 0, std::size_t rotate_files = 5);
 
+// A log file that cannot be opened (a symlink, a folder, no permission) is not thrown from
+// setup_logging, which stage mains call before run_stage: it is kept and thrown by this
+// (InputError), which run_stage calls first.
+void throw_deferred_logging_error();
+
 // Keeps freed heap memory in the process (glibc trim and mmap thresholds raised): stages
 // that solve thousands of small problems (bootstrap) otherwise spend most of their time in
 // page faults as glibc returns and re-maps the same buffers. Call once from a stage's main.

@@ -8,6 +8,7 @@
 #include <fstream>
 #include <memory>
 
+#include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/version.hpp"
 
@@ -47,6 +48,7 @@ std::string sha256_hex(const std::string& bytes) {
 }
 
 std::string sha256_file(const std::string& path) {
+  check_input_file(path);
   std::ifstream in(path, std::ios::binary);
   if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
   DigestContext d;

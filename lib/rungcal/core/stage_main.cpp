@@ -5,6 +5,7 @@
 
 #include "rungcal/core/cluster.hpp"
 #include "rungcal/core/file_lock.hpp"
+#include "rungcal/core/log.hpp"
 
 #include <fmt/format.h>
 #include <spdlog/spdlog.h>
@@ -63,6 +64,7 @@ int run_stage(const std::string& stage, const std::function<ExitCode()>& body) {
   if (Cluster::world().rank() > 0 && !std::freopen("/dev/null", "w", stdout))
     spdlog::warn("could not silence stdout of rank {}", Cluster::world().rank());
   try {
+    throw_deferred_logging_error();
     refuse_mpi_unless_split(stage);
     return static_cast<int>(body());
   } catch (const InputError& e) {

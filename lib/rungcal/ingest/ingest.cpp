@@ -510,6 +510,21 @@ std::string IngestOptions::check() const {
   if (!(magnitude_min < magnitude_max))
     return "validate.magnitude_range: the minimum must be below the maximum";
   if (!(ebv_min < ebv_max)) return "validate.ebv_range: the minimum must be below the maximum";
+  if (!(parallax_abs_max > 0)) return "validate.parallax_max_mas: must be positive";
+  if (!(parallax_err_max > 0)) return "validate.parallax_error_max_mas: must be positive";
+  if (!(magnitude_err_max > 0)) return "validate.magnitude_error_max: must be positive";
+  if (!(feh_range.min < feh_range.max))
+    return "validate.feh_range: the minimum must be below the maximum";
+  if (!(period_range.min > 0 && period_range.min < period_range.max))
+    return "validate.period_range_d: must be [min, max] days with 0 < min < max";
+  for (const auto& [cls, r] : class_period_range) {
+    if (!kPulsatorClassNames.parse(cls))
+      return fmt::format("validate.class_period_range_d.{}: not a pulsator class (known: {})", cls,
+                         kPulsatorClassNames.choices());
+    if (!(r.min > 0 && r.min < r.max))
+      return fmt::format(
+          "validate.class_period_range_d.{}: must be [min, max] days with 0 < min < max", cls);
+  }
   std::set<std::string> seen;
   for (const auto& b : bands) {
     if (b.band.empty() || b.band.find_first_of(" ,") != std::string::npos)
@@ -604,6 +619,25 @@ IngestOptions ingest_options_from_config(Config& config) {
       o.ebv_max = (*r)[1];
     }
     o.require_errors = v->bool_or("require_errors", o.require_errors);
+    auto range = [&](const ConfigSection& s, const std::string& key, PlausibleRange& out) {
+      if (auto r = s.get_number_list(key)) {
+        if (r->size() != 2) s.fail(key, "must be [min, max]");
+        out = {(*r)[0], (*r)[1]};
+      }
+    };
+    o.parallax_abs_max = v->number_or("parallax_max_mas", o.parallax_abs_max);
+    o.parallax_err_max = v->number_or("parallax_error_max_mas", o.parallax_err_max);
+    o.magnitude_err_max = v->number_or("magnitude_error_max", o.magnitude_err_max);
+    range(*v, "feh_range", o.feh_range);
+    range(*v, "period_range_d", o.period_range);
+    if (auto by_class = v->section("class_period_range_d"))
+      for (const auto& cls : by_class->keys()) range(*by_class, cls, o.class_period_range[cls]);
+    const std::string variants = v->string_or("id_variants", "warn");
+    auto parsed = kIdVariantPolicyNames.parse(variants);
+    if (!parsed)
+      v->fail("id_variants",
+              fmt::format("'{}' is not one of: {}", variants, kIdVariantPolicyNames.choices()));
+    o.id_variants = *parsed;
   }
   if (auto lc = root.section("lightcurves")) {
     o.lightcurves.summary_path = config.resolve_path(lc->require_string("summary"));
@@ -862,6 +896,7 @@ class GroupChecks {
     s_parallax_err_ = slot("parallax_err");
     s_ebv_ = slot("ebv");
     s_astrometric_ = slot("astrometric_params");
+    s_feh_ = slot("feh");
   }
 
   // Checks row r; throws the first rule it breaks as a RowReject. id is set as soon as the
@@ -879,8 +914,10 @@ class GroupChecks {
     row.input_row = r;
     row.mode = &canonical(true, r);
     row.pulsator_class = &canonical(false, r);
+    check_period_plausible(r, *row.pulsator_class);
     for (std::size_t i = 0; i < numbers_.size(); ++i) values_[i] = numbers_[i].at(r);
     check_errors();
+    check_plausible();
     row.astrometric = astrometric_params();
     check_photometry(r);
     return row;
@@ -909,6 +946,39 @@ class GroupChecks {
     if (*period <= 0)
       throw RowReject{"period_nonpositive", q.column_name,
                       fmt::format("period {} d is not positive", *period)};
+  }
+
+  // The period against the plausible range of the star's class (issue 15: 1e308, 1e30 and
+  // 1e-300 d reached the fit and crashed it).
+  void check_period_plausible(std::size_t r, const std::string& pulsator_class) const {
+    auto it = o_.class_period_range.find(pulsator_class);
+    const PlausibleRange& range = it == o_.class_period_range.end() ? o_.period_range : it->second;
+    const double p = *periods_.at(r);
+    if (!range.contains(p))
+      throw RowReject{
+          "period_out_of_range", q_period_.column_name,
+          fmt::format("period {} d is outside the plausible [{}, {}] d for {} ([validate] "
+                      "period_range_d)",
+                      p, range.min, range.max, pulsator_class)};
+  }
+
+  // Parallax, its error and [Fe/H] against their plausible ranges ([validate]).
+  void check_plausible() const {
+    if (auto p = value(s_parallax_); p && !(std::abs(*p) <= o_.parallax_abs_max))
+      throw RowReject{"parallax_out_of_range", m_.at("parallax").column_name,
+                      fmt::format("parallax {} mas is beyond the plausible +-{} mas ([validate] "
+                                  "parallax_max_mas)",
+                                  *p, o_.parallax_abs_max)};
+    if (auto e = value(s_parallax_err_); e && !(*e <= o_.parallax_err_max))
+      throw RowReject{"parallax_error_out_of_range", m_.at("parallax_err").column_name,
+                      fmt::format("parallax error {} mas is above the plausible {} mas ([validate] "
+                                  "parallax_error_max_mas)",
+                                  *e, o_.parallax_err_max)};
+    if (auto f = value(s_feh_); f && !o_.feh_range.contains(*f))
+      throw RowReject{
+          "feh_out_of_range", m_.at("feh").column_name,
+          fmt::format("[Fe/H] = {} is outside the plausible [{}, {}] ([validate] feh_range)", *f,
+                      o_.feh_range.min, o_.feh_range.max)};
   }
 
   // The canonical mode (or class) of row r. Spellings repeat from row to row: each distinct
@@ -991,6 +1061,11 @@ class GroupChecks {
       if (err && !(*err > 0))
         throw RowReject{"magnitude_error_nonpositive", band.err.column_name,
                         fmt::format("{} error {} mag is not positive", band.band, *err)};
+      if (err && !(*err <= o_.magnitude_err_max))
+        throw RowReject{"magnitude_error_out_of_range", band.err.column_name,
+                        fmt::format("{} error {} mag is above the plausible {} mag ([validate] "
+                                    "magnitude_error_max)",
+                                    band.band, *err, o_.magnitude_err_max)};
     }
     if (!any_mag)
       throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
@@ -1004,7 +1079,8 @@ class GroupChecks {
   std::map<std::string, int> slot_of_;    // quantity -> index in numbers_
   std::vector<PreparedNumbers> band_mags_, band_errs_;
   std::vector<std::pair<std::string, int>> error_slots_;
-  int s_parallax_ = -1, s_parallax_err_ = -1, s_ebv_ = -1, s_astrometric_ = -1;  // -1: unmapped
+  int s_parallax_ = -1, s_parallax_err_ = -1, s_ebv_ = -1, s_astrometric_ = -1,
+      s_feh_ = -1;                             // -1: unmapped
   std::vector<std::optional<double>> values_;  // the row's numbers, by slot
   std::unordered_map<std::string, std::string> mode_of_, class_of_;
   std::string id_scratch_, mode_scratch_, class_scratch_;
@@ -1160,6 +1236,53 @@ class GroupReader {
   std::size_t next_row_ = 0;
 };
 
+// The offset of the first byte of s that breaks UTF-8 (RFC 3629: no overlong forms, no
+// surrogates, nothing above U+10FFFF), or npos when s is well-formed.
+std::size_t first_invalid_utf8(std::string_view s) {
+  std::size_t i = 0;
+  while (i < s.size()) {
+    const auto b = static_cast<unsigned char>(s[i]);
+    if (b < 0x80) {
+      ++i;
+      continue;
+    }
+    // Well-formed sequences by their first byte (RFC 3629, section 4): how many bytes follow
+    // and the range of the second; the rest are 0x80..0xBF.
+    struct Lead {
+      unsigned first_lo, first_hi, follow, second_lo, second_hi;
+    };
+    static constexpr Lead kLeads[] = {{0xC2, 0xDF, 1, 0x80, 0xBF}, {0xE0, 0xE0, 2, 0xA0, 0xBF},
+                                      {0xE1, 0xEC, 2, 0x80, 0xBF}, {0xED, 0xED, 2, 0x80, 0x9F},
+                                      {0xEE, 0xEF, 2, 0x80, 0xBF}, {0xF0, 0xF0, 3, 0x90, 0xBF},
+                                      {0xF1, 0xF3, 3, 0x80, 0xBF}, {0xF4, 0xF4, 3, 0x80, 0x8F}};
+    const Lead* lead = nullptr;
+    for (const Lead& l : kLeads)
+      if (b >= l.first_lo && b <= l.first_hi) lead = &l;
+    if (!lead) return i;
+    const std::size_t n = lead->follow;
+    const unsigned lo = lead->second_lo, hi = lead->second_hi;
+    for (std::size_t k = 1; k <= n; ++k) {
+      if (i + k >= s.size()) return i;
+      const auto c = static_cast<unsigned char>(s[i + k]);
+      if (c < (k == 1 ? lo : 0x80) || c > (k == 1 ? hi : 0xBF)) return i;
+    }
+    i += n + 1;
+  }
+  return std::string_view::npos;
+}
+
+// An id with the spaces around it cut and ASCII letters in lower case: two ids with the
+// same folded form are most likely one star written twice.
+std::string folded_id(std::string_view id) {
+  const auto first = id.find_first_not_of(" \t");
+  if (first == std::string_view::npos) return {};
+  const auto last = id.find_last_not_of(" \t");
+  std::string out(id.substr(first, last - first + 1));
+  for (char& c : out)
+    if (c >= 'A' && c <= 'Z') c = static_cast<char>(c - 'A' + 'a');
+  return out;
+}
+
 // Takes the settled groups' accepted rows, in file order, with the rows to expect in all.
 using GroupSink = std::function<void(StarTable&&, std::size_t expected_rows)>;
 
@@ -1191,6 +1314,7 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
     return check_group(o, in, *layout);
   };
   IdRegistry ids(expected);
+  IdRegistry folded_ids(expected);  // ids folded (folded_id): variants of one id
   std::size_t kept = 0;
   // Drawn on a terminal only: a nightly run under cron stays quiet.
   Progress progress("ingest " + std::filesystem::path(o.input_path).filename().string(),
@@ -1209,12 +1333,31 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
       const std::string& id = f >= 0 ? accepted_ids[static_cast<std::size_t>(f)]
                                      : g.refusals[static_cast<std::size_t>(-1 - f)].id;
       if (!id.empty()) {
+        // Ids go to JSON and FITS text: a byte that is not UTF-8 stops the file here (it
+        // was an internal error later, in the fit, issue 15).
+        if (const std::size_t bad = first_invalid_utf8(id); bad != std::string_view::npos)
+          throw InputError({o.input_path, g.source_rows[r], g.id_column, g.row_label},
+                           "invalid_utf8",
+                           fmt::format("the star id is not valid UTF-8: byte {} is 0x{:02X}",
+                                       bad + 1, static_cast<unsigned char>(id[bad])));
         if (auto first = ids.first_seen(g.id_hash[r], g.source_rows[r])) {
           result.rejected.push_back(
               {g.source_rows[r], id, "duplicate_id", g.id_column,
                fmt::format("id '{}' was already used at {} {}", id, g.row_label, *first)});
           dropped = dropped || f >= 0;
           continue;
+        }
+        if (auto first = folded_ids.first_seen(IdRegistry::hash(folded_id(id)), g.source_rows[r])) {
+          const std::string message =
+              fmt::format("id '{}' equals the id at {} {} but for letter case or spaces around it",
+                          id, g.row_label, *first);
+          if (o.id_variants == IdVariantPolicy::kRefuse) {
+            result.rejected.push_back({g.source_rows[r], id, "id_variant", g.id_column, message});
+            dropped = dropped || f >= 0;
+            continue;
+          }
+          spdlog::warn("{}: {} {}: {} (refused with [validate] id_variants = \"refuse\")",
+                       o.input_path, g.row_label, g.source_rows[r], message);
         }
       }
       if (f >= 0) {

@@ -73,6 +73,21 @@ struct LightCurveJoin {
   double warn_period_change = 0.01; // relative period change that is logged per star
 };
 
+// What ingest does with an id that equals an earlier one but for letter case or spaces
+// around it ("V1 Cyg" and "v1 cyg "): most likely one star written twice.
+enum class IdVariantPolicy { kWarn, kRefuse };
+inline constexpr EnumTable<IdVariantPolicy, 2> kIdVariantPolicyNames{{{
+    {IdVariantPolicy::kWarn, "warn"},
+    {IdVariantPolicy::kRefuse, "refuse"},
+}}};
+
+// A closed range [min, max] of plausible values.
+struct PlausibleRange {
+  double min = 0;
+  double max = 0;
+  bool contains(double v) const { return v >= min && v <= max; }
+};
+
 struct IngestOptions {
   std::string input_path;             // catalog to read (FITS or delimited text)
   bool input_is_fits = false;         // chosen from [source] format or the file extension
@@ -89,6 +104,21 @@ struct IngestOptions {
   double ebv_min = -0.3;         // E(B-V) below this is an error, not noise (common practice)
   double ebv_max = 10.0;
   bool require_errors = true;    // a value without its error (magnitude, parallax) rejects the row
+  // Plausibility limits ([validate]): a value outside is an error in the input, not data,
+  // and the row is refused with rule "<quantity>_out_of_range". Defaults are common practice,
+  // wide enough for every real star: the largest stellar parallax is about 768 mas (Proxima
+  // Centauri, memory); pulsation periods of the classes rungcal knows lie between about
+  // 0.05 d (short RR Lyrae overtones) and a few hundred days (the longest Cepheids); stellar
+  // [Fe/H] lies within +-3 dex for these populations; a magnitude error above 5 mag is no
+  // measurement.
+  double parallax_abs_max = 1000.0;  // mas: |parallax| at most this ([validate] parallax_max_mas)
+  double parallax_err_max = 100.0;   // mas ([validate] parallax_error_max_mas)
+  PlausibleRange feh_range{-3.0, 3.0};        // dex ([validate] feh_range)
+  double magnitude_err_max = 5.0;             // mag ([validate] magnitude_error_max)
+  PlausibleRange period_range{0.05, 1000.0};  // d, every class ([validate] period_range_d)
+  std::map<std::string, PlausibleRange> class_period_range;  // d, per canonical pulsator class
+                                                             // ([validate.class_period_range_d])
+  IdVariantPolicy id_variants = IdVariantPolicy::kWarn;      // [validate] id_variants
   LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
   std::int64_t chunk_rows = 20000;  // rows or text lines read at a time ([source] chunk_rows)
   std::string catalog_path = "out/catalog.fits";   // the FITS catalog product

@@ -202,7 +202,7 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   Panel top{90, kWidth - 30, 30, 430, xmin - padx, xmax + padx, ymin - pady, ymax + pady, true};
   Panel bottom{90, kWidth - 30, 450, 570, top.x0, top.x1, -4.5, 4.5, false};
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.temp_path());
+  auto surface = open_surface(format, out.reopen_path());
   cairo_t* cr = surface->cr;
   // The relation and its intrinsic-scatter band, clipped to the plot box.
   cairo_save(cr);
@@ -287,7 +287,7 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
     if (!p.x.empty()) shown.push_back(&p);
   if (shown.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no residual with [Fe/H], G or a parallax");
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.temp_path());
+  auto surface = open_surface(format, out.reopen_path());
   cairo_t* cr = surface->cr;
   const double height = (570.0 - 30.0) / static_cast<double>(shown.size());
   for (std::size_t k = 0; k < shown.size(); ++k) {
@@ -332,7 +332,7 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   Panel top{90, kWidth - 30, 30, 300, x0, x1, a0, a1, true};
   Panel bottom{90, kWidth - 30, 330, 570, x0, x1, o0, o1, false};
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.temp_path());
+  auto surface = open_surface(format, out.reopen_path());
   cairo_t* cr = surface->cr;
   auto series = [&](const Panel& p, const std::vector<double>& y, const std::vector<double>& e) {
     for (std::size_t i = 0; i < y.size(); ++i) {
@@ -452,7 +452,7 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
   const bool with_periodogram = !freq.empty();
   Panel top{90, kWidth - 30, 40, with_periodogram ? 370.0 : 570.0, 0.0, 2.0, ymin - pad, ymax + pad, true};
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.temp_path());
+  auto surface = open_surface(format, out.reopen_path());
   cairo_t* cr = surface->cr;
   FigureSummary s;
   cairo_save(cr);

@@ -1,5 +1,6 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/report/report.hpp"
+#include "rungcal/core/json_io.hpp"
 
 #include <filesystem>
 #include <fstream>
@@ -58,15 +59,9 @@ ReportOutcome write_report(const ReportOptions& o) {
     }
   }
   if (!o.grid.empty()) {
-    std::ifstream in(o.grid);
-    if (!in) throw InputError({o.grid, {}, {}}, "unreadable_file", "cannot open the grid result");
-    nlohmann::json budget;
-    try {
-      budget = nlohmann::json::parse(in);
-    } catch (const nlohmann::json::parse_error& e) {
-      throw InputError({o.grid, {}, {}}, "json_syntax", e.what());
-    }
-    if (budget.value("schema", "") != "rungcal-error-budget")
+    const nlohmann::json budget = read_json_file(o.grid);  // depth-capped (issue 15)
+    if (!(budget.is_object() && budget.contains("schema") &&
+          budget.at("schema") == "rungcal-error-budget"))
       throw InputError({o.grid, {}, "schema"}, "not_a_grid_result", "not a rungcal-grid result");
     for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
       write_file_atomically(o.out_dir + "/error_budget." + ext[static_cast<int>(f)],

@@ -20,6 +20,7 @@
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/fault.hpp"
 #include "rungcal/core/file_lock.hpp"
+#include "rungcal/core/json_io.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/core/version.hpp"
 #include "rungcal/deredden/deredden.hpp"
@@ -76,12 +77,12 @@ class RunState {
  public:
   explicit RunState(std::string path) : path_(std::move(path)) {
     if (!fs::exists(path_)) return;
-    std::ifstream in(path_);
-    std::stringstream ss;
-    ss << in.rdbuf();
     try {
-      state_ = nlohmann::json::parse(ss.str());
-    } catch (const nlohmann::json::parse_error& e) {
+      state_ = read_json_file(path_);  // depth-capped; a folder or FIFO here is refused
+      if (!state_.is_object())
+        throw InputError({path_, {}, {}}, "json_syntax", "not a JSON object");
+    } catch (const InputError& e) {
+      if (e.rule() == "input_not_regular_file" || e.rule() == "unreadable_file") throw;
       // Written atomically, so only a hand edit breaks it: start over rather than guess.
       spdlog::warn("{}: unreadable run state ({}): every stage reruns", path_, e.what());
       state_ = nlohmann::json::object();
@@ -239,8 +240,16 @@ RunOptions run_options_from_file(const std::string& path) {
   o.calibration = run->require_string("calibration");
   o.lock_wait_seconds = run->number_or("lock_wait", o.lock_wait_seconds);
   o.drift_alarm_sigma = run->number_or("drift_alarm_sigma", o.drift_alarm_sigma);
-  o.log_rotate_bytes = static_cast<std::size_t>(run->number_or("log_max_mb", 5.0) * (1 << 20));
-  o.log_files = static_cast<std::size_t>(run->integer_or("log_files", 5));
+  // Read as given and checked before they become sizes: -1 was a huge count (issue 15).
+  const double log_mb = run->number_or("log_max_mb", 5.0);
+  if (!(log_mb > 0 && log_mb <= 1e6))
+    run->fail("log_max_mb", "must be a size in megabytes above 0 and at most 1e6");
+  o.log_rotate_bytes = static_cast<std::size_t>(log_mb * (1 << 20));
+  const std::int64_t log_files = run->integer_or("log_files", 5);
+  if (log_files < 0 || log_files > 1000)
+    run->fail("log_files",
+              fmt::format("must be 0 to 1000 old log files to keep, not {}", log_files));
+  o.log_files = static_cast<std::size_t>(log_files);
   auto stage_config = [&](const char* name, std::string& out) {
     if (auto s = root.section(name)) out = c.resolve_path(s->require_string("config"));
   };
@@ -261,12 +270,26 @@ RunOptions run_options_from_file(const std::string& path) {
   }
   c.check_unknown_keys();
   throw_if_invalid(o.check(), path);
+  check_run_folder(o, false);
   return o;
+}
+
+void check_run_folder(const RunOptions& o, bool create) {
+  std::error_code ec;
+  const fs::file_status st = fs::status(o.folder, ec);
+  if (fs::exists(st) && !fs::is_directory(st))
+    throw InputError({o.config_file, {}, "run.folder", "line", "key"}, "run_folder_not_a_folder",
+                     fmt::format("'{}' exists and is not a folder", o.folder));
+  if (!create) return;
+  fs::create_directories(fs::path(o.folder) / "logs", ec);
+  if (ec)
+    throw InputError({o.folder, {}, {}}, "write_failed",
+                     "cannot create the run folder: " + errno_text(ec.value()));
 }
 
 RunOutcome run_pipeline(const RunOptions& o) {
   throw_if_invalid(o.check(), o.config_file);
-  fs::create_directories(o.folder);
+  check_run_folder(o);
   // Every stage config is read (and checked) before anything runs or is locked: a typo
   // stops the run at once, not halfway.
   std::optional<LightCurveOptions> lc_opt;

@@ -46,6 +46,11 @@ struct RunOptions {
 // [apply]); unknown keys stop with rule "unknown_config_key".
 RunOptions run_options_from_file(const std::string& path);
 
+// Throws InputError (rule "run_folder_not_a_folder") when the run folder's path exists and
+// is not a folder; with create, makes the folder and its logs/ when missing ("write_failed",
+// with the system's reason, when it cannot).
+void check_run_folder(const RunOptions& o, bool create = true);
+
 // What happened to one stage.
 struct StageReport {
   std::string name;

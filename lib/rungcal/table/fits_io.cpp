@@ -3,7 +3,8 @@
 
 #include <fitsio.h>
 
-#include <CCfits/CCfits>
+#include <unistd.h>
+
 #include <algorithm>
 #include <bit>
 #include <cerrno>
@@ -252,8 +253,13 @@ std::size_t field_width(const Column& c, std::size_t width) {
 }
 
 void throw_write_status(int status, const std::string& path, const std::string& what) {
+  // cfitsio says only "error writing to FITS file"; the system's reason (a full disk, a
+  // quota, an I/O error) is in errno.
+  const int e = errno;
+  const std::string why =
+      e == ENOSPC || e == EDQUOT || e == EIO || e == EFBIG ? " (" + errno_text(e) + ")" : "";
   throw InputError({path, {}, {}}, "write_failed",
-                   fmt::format("{}: {}", what, cfitsio_message(status)));
+                   fmt::format("{}: {}{}", what, cfitsio_message(status), why));
 }
 
 void write_keyword(fitsfile* f, const Keyword& k, const std::string& path) {
@@ -578,6 +584,72 @@ struct FitsFileCloser {
   }
 };
 
+// cfitsio's path for a file name taken literally. fits_open_file and fits_create_file parse
+// cfitsio's extended filename syntax ("cal[1].fits" would mean HDU 1 of cal, "run(2)/x" a
+// template, and a "file://" prefix does not turn that off); fits_open_diskfile does not.
+// Its disk driver still expands a leading '~', so such a relative name gets "./".
+std::string literal_name(const std::string& path) {
+  return !path.empty() && path[0] == '~' ? "./" + path : path;
+}
+
+// Opens an existing FITS file by its literal name. Throws InputError "fits_read".
+fitsfile* open_literal(const std::string& path, int mode) {
+  int status = 0;
+  fitsfile* f = nullptr;
+  fits_open_diskfile(&f, literal_name(path).c_str(), mode, &status);
+  if (status) {
+    if (f) {
+      int ignored = 0;
+      fits_close_file(f, &ignored);
+    }
+    throw InputError({path, {}, {}}, "fits_read",
+                     "not a readable FITS file: " + cfitsio_message(status));
+  }
+  return f;
+}
+
+// The bytes of the primary HDU cfitsio writes for an empty image (fits_create_img with
+// BYTE_IMG and no axes): one 2880-byte block, made in memory.
+std::string empty_primary_hdu() {
+  int status = 0;
+  fitsfile* f = nullptr;
+  void* buffer = nullptr;
+  std::size_t size = 0;
+  fits_create_memfile(&f, &buffer, &size, 2880, std::realloc, &status);
+  fits_create_img(f, BYTE_IMG, 0, nullptr, &status);
+  fits_close_file(f, &status);
+  std::string bytes;
+  if (status == 0 && buffer && size >= 2880) bytes.assign(static_cast<const char*>(buffer), 2880);
+  std::free(buffer);
+  if (bytes.compare(0, 6, "SIMPLE") != 0)
+    throw std::runtime_error("cfitsio did not make a primary HDU in memory: " +
+                             cfitsio_message(status));
+  return bytes;
+}
+
+// Opens an AtomicOutput's temporary file for cfitsio, with an empty primary HDU in it.
+// cfitsio creates files by fopen on a name it first checks is free (following symlinks on
+// the way); this file was already made safely (AtomicOutput) and is opened again through
+// the descriptor (reopen_path), so no name in the folder is trusted twice.
+fitsfile* open_output(AtomicOutput& out, const std::string& path) {
+  const std::string primary = empty_primary_hdu();
+  std::size_t done = 0;
+  while (done < primary.size()) {
+    const ssize_t n =
+        ::pwrite(out.fd(), primary.data() + done, primary.size() - done, static_cast<off_t>(done));
+    if (n < 0 && errno == EINTR) continue;
+    if (n < 0)
+      throw InputError({path, {}, {}}, "write_failed",
+                       "writing the primary HDU: " + errno_text(errno));
+    done += static_cast<std::size_t>(n);
+  }
+  int status = 0;
+  fitsfile* f = nullptr;
+  fits_open_diskfile(&f, literal_name(out.reopen_path()).c_str(), READWRITE, &status);
+  if (status) throw_write_status(status, path, "opening the new file");
+  return f;
+}
+
 // FITS files are whole 2880-byte blocks; a file that is not was cut short: say so.
 [[noreturn]] void rethrow_with_size_hint(const InputError& e, const std::string& path) {
   if (std::filesystem::file_size(path) % 2880 == 0) throw e;
@@ -601,7 +673,7 @@ struct RawColumn {
 };
 
 struct FitsTableReader::Impl {
-  std::unique_ptr<CCfits::FITS> fits;
+  std::unique_ptr<fitsfile, FitsFileCloser> file;
   fitsfile* f = nullptr;
   std::string path;
   LONGLONG rows = 0;
@@ -753,19 +825,14 @@ void decode_raw_column(const RawColumn& rc, const std::string& name, const std::
 
 FitsTableReader::FitsTableReader(const std::string& path, const FitsHduChoice& hdu)
     : impl_(std::make_unique<Impl>()) {
-  if (!std::filesystem::is_regular_file(path))
-    throw InputError({path, {}, {}}, "unreadable_file", "no such file");
+  // A missing file, a folder, a FIFO (refused without waiting on it) or a symlink loop
+  // each have their rule and message.
+  check_input_file(path);
   impl_->path = path;
   try {
     check_declared_sizes(path);
-    // CCfits opens the file and checks the primary header; cfitsio does the null-aware reads.
-    try {
-      CCfits::FITS::setVerboseMode(false);
-      impl_->fits = std::make_unique<CCfits::FITS>(path, CCfits::Read, false);
-    } catch (const CCfits::FitsException& e) {
-      throw InputError({path, {}, {}}, "fits_read", "not a readable FITS file: " + e.message());
-    }
-    impl_->f = impl_->fits->fitsPointer();
+    impl_->file.reset(open_literal(path, READONLY));
+    impl_->f = impl_->file.get();
     move_to_hdu(impl_->f, path, hdu);
     int status = 0;
     fits_get_num_rowsll(impl_->f, &impl_->rows, &status);
@@ -831,13 +898,8 @@ SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu) {
 void write_fits_tables(const std::string& path, const std::vector<NamedTable>& tables) {
   AtomicOutput out(path);
   int status = 0;
-  fitsfile* raw = nullptr;
-  // A leading '!' would tell cfitsio to overwrite; the temp name is new, so none is needed.
-  fits_create_file(&raw, out.temp_path().c_str(), &status);
-  if (status) throw_write_status(status, path, "creating the file");
+  fitsfile* raw = open_output(out, path);
   std::unique_ptr<fitsfile, FitsFileCloser> f(raw);
-  fits_create_img(raw, BYTE_IMG, 0, nullptr, &status);
-  if (status) throw_write_status(status, path, "writing the primary HDU");
   for (const auto& [name, table] : tables) write_one_table(raw, name, *table, path);
   fits_close_file(f.release(), &status);
   if (status) throw_write_status(status, path, "closing the file");
@@ -862,13 +924,7 @@ FitsTableStream::FitsTableStream(const std::string& path, std::string extname,
     : impl_(std::make_unique<Impl>(path)) {
   impl_->extname = std::move(extname);
   impl_->expected = std::max<std::int64_t>(0, expected_rows);
-  int status = 0;
-  fitsfile* raw = nullptr;
-  fits_create_file(&raw, impl_->out.temp_path().c_str(), &status);
-  if (status) throw_write_status(status, path, "creating the file");
-  impl_->file.reset(raw);
-  fits_create_img(raw, BYTE_IMG, 0, nullptr, &status);
-  if (status) throw_write_status(status, path, "writing the primary HDU");
+  impl_->file.reset(open_output(impl_->out, path));
 }
 
 FitsTableStream::~FitsTableStream() = default;
@@ -928,7 +984,25 @@ void FitsTableStream::finish(const std::vector<Keyword>& header,
   if (!m.table_made) append(empty_schema);
   int status = 0;
   fits_movabs_hdu(m.file.get(), 2, nullptr, &status);
-  if (m.allocated > m.rows) fits_delete_rows(m.file.get(), m.rows + 1, m.allocated - m.rows, &status);
+  if (m.allocated > m.rows) {
+    // The rows made but never written exist in neither the file nor cfitsio's buffers, and
+    // fits_delete_rows assumes they do: it blanks the bytes freed behind the last kept row
+    // after a seek that reports end of file (ffshft, editcol.c), so when the kept rows end
+    // exactly on a 2880-byte block it failed with "tried to move past end of file". The
+    // unused rows are therefore written (zeros) before they are deleted; they are at most
+    // the rows refused, so this costs little.
+    std::size_t row_bytes = 0;
+    for (std::size_t w : m.widths) row_bytes += w;
+    const LONGLONG block = std::max<LONGLONG>(1, (256 << 10) / std::max<std::size_t>(1, row_bytes));
+    std::vector<unsigned char> zeros;
+    for (LONGLONG r = m.rows; r < m.allocated && status == 0; r += block) {
+      const LONGLONG n = std::min(block, m.allocated - r);
+      zeros.assign(static_cast<std::size_t>(n) * row_bytes, 0);
+      fits_write_tblbytes(m.file.get(), r + 1, 1, static_cast<LONGLONG>(zeros.size()), zeros.data(),
+                          &status);
+    }
+    fits_delete_rows(m.file.get(), m.rows + 1, m.allocated - m.rows, &status);
+  }
   if (status) throw_write_status(status, path, "closing table " + m.extname);
   for (const auto& k : header) write_keyword(m.file.get(), k, path);
   for (const auto& [name, table] : more) write_one_table(m.file.get(), name, *table, path);

@@ -43,6 +43,10 @@ TableSourceSpec table_source_from_section(const Config& config, const ConfigSect
   o.text.skip_lines = static_cast<std::size_t>(source.integer_or("skip_lines", 0));
   if (auto m = source.get_string_list("missing")) o.text.missing = *m;
   if (auto names = source.get_string_list("column_names")) o.text.column_names = *names;
+  const std::int64_t max_field = source.integer_or("max_field_bytes", 65536);
+  if (max_field < 1 || max_field > (std::int64_t{1} << 30))
+    source.fail("max_field_bytes", "must be 1 to 2^30 bytes");
+  o.text.max_field_bytes = static_cast<std::size_t>(max_field);
   return o;
 }
 

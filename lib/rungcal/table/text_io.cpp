@@ -131,6 +131,7 @@ std::string quote_csv(const std::string& s) {
 }  // namespace
 
 std::string TextReadOptions::check() const {
+  if (max_field_bytes < 1) return "max_field_bytes: must be at least 1";
   if (!has_header && column_names.empty())
     return "column_names: required when the file has no header line (has_header = false)";
   std::set<std::string> seen;
@@ -173,6 +174,12 @@ class TextLineRules {
       throw InputError(
           {name_, line_no, {}, "line"}, "field_count",
           fmt::format("{} fields where the header has {} columns", fields.size(), names_.size()));
+    for (std::size_t c = 0; c < fields.size(); ++c)
+      if (fields[c].size() > options_.max_field_bytes)
+        throw InputError({name_, line_no, names_[c], "line"}, "field_too_long",
+                         fmt::format("a field of {} bytes; the limit is {} ([source] "
+                                     "max_field_bytes)",
+                                     fields[c].size(), options_.max_field_bytes));
     rows.push_back(std::move(fields));
     source_rows.push_back(line_no);
   }
@@ -343,7 +350,7 @@ struct TextTableReader::Impl {
 };
 
 TextTableReader::TextTableReader(const std::string& path, const TextReadOptions& options)
-    : impl_(std::make_unique<Impl>(path, options)) {
+    : impl_((check_input_file(path), std::make_unique<Impl>(path, options))) {
   Impl& m = *impl_;
   if (!m.in)
     throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
@@ -374,6 +381,7 @@ SourceTable TextTableReader::read(std::size_t max_rows) {
 std::uint64_t TextTableReader::bytes_read() const { return impl_->bytes_taken; }
 
 SourceTable read_text_table(const std::string& path, const TextReadOptions& options) {
+  check_input_file(path);
   std::ifstream in(path, std::ios::binary);
   if (!in) throw InputError({path, {}, {}}, "unreadable_file", "cannot open the file for reading");
   std::string content;

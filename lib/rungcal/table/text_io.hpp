@@ -39,6 +39,10 @@ struct TextReadOptions {
   // Field values that mean "no value" (compared after trimming); an empty field always does.
   std::vector<std::string> missing = {"NaN", "nan"};
   std::vector<std::string> column_names;  // names for a headerless file, in order
+  // A field longer than this (bytes) stops the file with rule "field_too_long": one runaway
+  // field (a lost quote, a pasted blob) would otherwise widen a text column of the catalog
+  // for every row. 64 KiB is far above any id, name or number (common practice).
+  std::size_t max_field_bytes = 65536;
 
   // "" when usable, else the broken rule ("column_names: required when has_header is false").
   std::string check() const;
@@ -47,7 +51,7 @@ struct TextReadOptions {
 // Reads a delimited text table: every column comes back as text (typing happens when the
 // columns are mapped). A UTF-8 byte-order mark is dropped, CRLF and a missing final newline
 // are accepted. Throws InputError: "unreadable_file", "empty_file", "encoding" (UTF-16/32 or
-// NUL bytes), "field_count", "duplicate_column", "unterminated_quote".
+// NUL bytes), "field_count", "duplicate_column", "unterminated_quote", "field_too_long".
 SourceTable read_text_table(const std::string& path, const TextReadOptions& options);
 SourceTable parse_text_table(const std::string& content, const std::string& name,
                              const TextReadOptions& options);
