@@ -75,6 +75,10 @@ int main(int argc, char** argv) {
   app.add_option("--histogram-margin", study.fit.hierarchical.histogram_margin, "its grid beyond the data (mag)")
       ->capture_default_str();
   app.add_option("--quadrature-nodes", study.fit.hierarchical.quadrature_nodes, "Gauss-Hermite nodes")->capture_default_str();
+  app.add_option("--outlier-shift", study.fit.hierarchical.outlier_mag_shift,
+                 "outlier component brighter by this (mag)")->capture_default_str();
+  app.add_option("--outlier-width", study.fit.hierarchical.outlier_mag_width, "outlier component's extra width (mag)")
+      ->capture_default_str();
   app.add_option("--metallicity", metallicity, "fit the [Fe/H] term (the truth has gamma = -0.2)")->capture_default_str();
   app.add_option("--bootstrap", bootstrap, "Bootstrap resamples per mock (0: none)")->capture_default_str();
   app.add_option("--seed", seed, "Seed of the first mock")->capture_default_str();

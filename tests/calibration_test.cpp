@@ -277,7 +277,7 @@ TEST(Apply, TheSimulatedTargetGalaxyIsAtItsTrueDistance) {
   const std::string cfg = test::source_file("config/demo/");
   run("ingest", "--config " + cfg + "ingest.toml --out " + dir.file("cat.fits"));
   run("deredden", "--config " + cfg + "deredden.toml --input " + dir.file("cat.fits") + " --out " + dir.file("dered.fits"));
-  test::write_text(dir.file("fit.toml"), "[fit]\ninput = \"dered.fits\"\noutput = \"fit.json\"\nloss = \"huber\"\n"
+  test::write_text(dir.file("fit.toml"), "[fit]\ninput = \"dered.fits\"\noutput = \"fit.json\"\n"
                                          "zero_point = \"constant\"\nzero_point_mas = -0.020\nmax_ruwe = 1.4\n"
                                          "[[relation]]\nband = \"W_VI\"\nmetallicity = true\n");
   run("fit", "--config " + dir.file("fit.toml"));

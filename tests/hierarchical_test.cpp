@@ -89,6 +89,39 @@ TEST(Hierarchical, GradientEqualsCentralDifferencesOfTheLikelihood) {
   }
 }
 
+TEST(Hierarchical, GradientWithTheSmoothHistogramPriorEqualsCentralDifferences) {
+  MixedCase s;
+  s.layout = ParameterLayout::for_terms(ModelTerms{1.0, false, 0, true, 1, true, true, 8}, {"GAL"});
+  s.settings.space = FitSpace::kHierarchical;
+  s.settings.hierarchical.histogram_start = 8.5, s.settings.hierarchical.histogram_step = 0.5;
+  s.settings.params.assign(static_cast<std::size_t>(s.layout.size), ParamSpec{});
+  const ParameterLayout& L = s.layout;
+  s.theta = Eigen::VectorXd::Zero(L.size);
+  s.theta[L.alpha] = -5.8, s.theta[L.beta] = -3.2, s.theta[L.gamma] = -0.15, s.theta[L.offset] = -0.02;
+  s.theta[L.sigma] = 0.09, s.theta[L.anchor0] = 18.45, s.theta[L.outlier] = 0.07;
+  s.theta[L.feh_mean] = 0.03, s.theta[L.feh_spread] = 0.17;
+  for (int j = 0; j < L.distance_bins; ++j) s.theta[L.distance_bin0 + j] = 0.3 * std::sin(j + 1.0);
+  HierarchicalValue v = hierarchical_value(s.data, s.settings, s.layout, s.theta);
+  ASSERT_TRUE(v.finite);
+  for (int j = 0; j < L.size; ++j) {
+    const double h = 1e-5 * std::max(1.0, std::abs(s.theta[j]));
+    Eigen::VectorXd up = s.theta, down = s.theta;
+    up[j] += h, down[j] -= h;
+    const double numeric = (hierarchical_value(s.data, s.settings, s.layout, up).neg_log_likelihood -
+                            hierarchical_value(s.data, s.settings, s.layout, down).neg_log_likelihood) /
+                           (2 * h);
+    EXPECT_NEAR(v.gradient[j] / internal_slope(L, j, s.theta[j]), numeric, 2e-6 * std::max(1.0, std::abs(numeric)))
+        << L.names[static_cast<std::size_t>(j)];
+  }
+  // The histogram density integrates to 1 and stays finite far outside its grid.
+  const double eta[] = {0.4, -1.0, 2.0, 0.0, -3.0, 1.0, 0.5};
+  DistancePriorShape p = DistancePriorShape::make_histogram(8.5, 0.5, eta, 8);
+  double sum = 0;
+  for (double mu = 0; mu < 20; mu += 0.001) sum += std::exp(p.at(mu).log_density) * 0.001;
+  EXPECT_NEAR(sum, 1.0, 1e-9);
+  for (double mu : {-10.0, 60.0}) EXPECT_TRUE(std::isfinite(p.at(mu).log_density) && std::isfinite(p.at(mu).d_mu)) << mu;
+}
+
 // One parallax star's member likelihood, integrated by scipy.integrate.quad over mu with the
 // same integrand (method brief, section 4b), against the Laplace-centred Gauss-Hermite rule.
 TEST(Hierarchical, QuadratureEqualsScipyQuadForPreciseNoisyAndNegativeParallaxes) {
@@ -165,6 +198,66 @@ TEST(DistancePrior, DigammaEqualsScipyAndTheDensityIsNormalised) {
     const double step = 0.001;
     for (double mu = -90; mu < 40; mu += step) sum += std::exp(p.at(mu).log_density) * step;
     EXPECT_NEAR(sum, 1.0, 1e-6) << L << " " << k << " " << a;
+  }
+}
+
+}  // namespace
+}  // namespace rungcal
+
+namespace rungcal {
+namespace {
+
+// CI-sized simulation study (the full one: docs/method.md, scripts/simulation_study.sh):
+// mock catalogs fitted with the stage's defaults. At N = 300 each parameter's bias must stay
+// within 0.3 of its mean reported error (100 mocks: the mean itself scatters by 0.1) and the
+// 68% intervals must cover 55-80% of the truths. The N = 3000 case has only 16 mocks (its
+// mean scatters by 0.25): it catches a bias of a reported error or more. Blends in an
+// optical relation are a known gap (docs/method.md) and are not asserted here.
+struct StudyCase {
+  const char* label;
+  int stars, mocks;
+  double sigma_int, extinction_per_ebv;
+  MockDistances distances;
+  bool blends;
+  double max_bias, min_coverage, max_coverage;
+};
+
+StudyResult run_case(const StudyCase& c) {
+  StudyOptions o;
+  o.scenario.stars = c.stars;
+  o.scenario.seed = 7000;
+  o.scenario.sigma_int = c.sigma_int;
+  o.scenario.extinction_per_ebv = c.extinction_per_ebv;
+  if (c.extinction_per_ebv > 0) o.scenario.alpha = -3.9, o.scenario.beta = -2.4;
+  o.scenario.distances = c.distances;
+  o.scenario.blend_fraction = c.blends ? 0.03 : 0.0;
+  o.scenario.parallax_outlier_fraction = 0.03, o.scenario.feh_error = 0.08;
+  o.scenario.overtone_fraction = 0.15, o.scenario.far_fraction = 0.08, o.scenario.ebv_error = 0.04;
+  o.mocks = c.mocks;
+  o.fit.input_path = "(mock)";
+  RelationOptions rel;
+  rel.name = rel.band = "X";
+  rel.metallicity = true;
+  o.fit.relations = {rel};
+  return run_study(o);
+}
+
+TEST(HierarchicalSimulation, UnbiasedWithHonestIntervalsOnContaminatedMocks) {
+  const StudyCase cases[] = {
+      {"Wesenheit, disk, every contamination, N = 300", 300, 100, 0.08, 0.0, MockDistances::kDisk, true, 0.3, 0.55, 0.80},
+      {"optical, flat in mu, all but blends, N = 300", 300, 100, 0.20, 3.1, MockDistances::kFlatModulus, false, 0.3,
+       0.55, 0.80},
+      {"Wesenheit, disk, all but blends, N = 3000", 3000, 16, 0.08, 0.0, MockDistances::kDisk, false, 0.8, 0.45, 0.95},
+  };
+  for (const StudyCase& c : cases) {
+    StudyResult r = run_case(c);
+    std::cout << "[ " << c.label << " ]\n" << study_table(r);
+    EXPECT_EQ(r.failed, 0) << c.label;
+    for (const StudyRow& row : r.rows) {
+      EXPECT_LT(std::abs(row.bias_in_errors), c.max_bias) << c.label << ": " << row.parameter;
+      EXPECT_GE(row.coverage, c.min_coverage) << c.label << ": " << row.parameter;
+      EXPECT_LE(row.coverage, c.max_coverage) << c.label << ": " << row.parameter;
+    }
   }
 }
 

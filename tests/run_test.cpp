@@ -344,6 +344,36 @@ TEST(Run, KilledAfterEachStageTheNextRunPicksUpWhereItStopped) {
   }
 }
 
+TEST(Run, AnEditedZeroPointTableRerunsTheFitAndAnotherSpellingOfTheConfigDoesNot) {
+  // Every file a stage reads keys it: here the fit's Lindegren et al. 2021 tables, named in
+  // a copy of the demo's fit config (the constant recipe stays in use; the tables are read
+  // and checked all the same).
+  test::TempDir dir;
+  stage_catalog(dir);
+  const std::string zp5 = dir.file("zp5.txt"), zp6 = dir.file("zp6.txt");
+  fs::copy_file(test::reference_file("parallax_zeropoint_5p.txt"), zp5);
+  fs::copy_file(test::reference_file("parallax_zeropoint_6p.txt"), zp6);
+  test::write_text(dir.file("fit.toml"),
+                   test::replaced(test::read_text(test::source_file("config/demo/fit.toml")),
+                                  {{"zero_point_mas = -0.020\n", "zero_point_mas = -0.020\nzero_point_table_5p = \"" + zp5 +
+                                                                    "\"\nzero_point_table_6p = \"" + zp6 + "\"\n"},
+                                   {"../../demo_out", dir.path()}}));
+  test::write_text(dir.file("pipeline.toml"),
+                   test::replaced(pipeline_config(dir), {{test::source_file("config/demo") + "/fit.toml", dir.file("fit.toml")}}));
+  ASSERT_EQ(run(dir).exit_code, 6);
+  // The same config named through another path: the same keys, nothing to do.
+  auto again = test::run_command("cd " + test::shell_quote(dir.path()) + " && " + test::shell_quote(std::string(RUNGCAL_BIN_DIR) + "/rungcal-run") +
+                                 " --config ./../" + fs::path(dir.path()).filename().string() + "/pipeline.toml");
+  EXPECT_EQ(again.exit_code, 3) << again.output;
+  std::string table = test::read_text(zp5);
+  table.replace(table.find("-26.98"), 6, "-16.98");
+  test::write_text(zp5, table);
+  auto dry = run(dir, "--dry-run");
+  EXPECT_NE(dry.output.find("would run fit"), std::string::npos) << dry.output;
+  auto real = run(dir);
+  EXPECT_TRUE(ran(real.output, "fit")) << real.output;
+}
+
 TEST(Run, BadPipelineConfigStopsBeforeAnythingIsWritten) {
   test::TempDir dir;
   stage_catalog(dir);

@@ -59,6 +59,10 @@ ZeroPointTable ZeroPointTable::from_file(const std::string& path) {
       }
       if (used == 0 || cell.find_first_not_of(" \t\r", used) != std::string::npos)
         throw InputError({path, n, std::to_string(col), "line"}, "zero_point_table", "'" + cell + "' is not a number");
+      // Coefficients are micro-arcsec, tens of them at most (Lindegren et al. 2021, Table 9-10).
+      if (!std::isfinite(v) || std::abs(v) > 1e4)
+        throw InputError({path, n, std::to_string(col), "line"}, "zero_point_table",
+                         "'" + cell + "' is not a plausible coefficient (finite, |value| <= 10000 micro-arcsec)");
       row.push_back(v);
     }
     if (!rows.empty() && row.size() != rows.front().size())

@@ -106,6 +106,11 @@ bool has_parameter(const RelationResult& r, const std::string& name) {
   return false;
 }
 
+// A number that may be null (an error the fit could not give): NaN then.
+double number_or_nan(const nlohmann::json& j, const char* key) {
+  return j.contains(key) && j.at(key).is_number() ? j.at(key).get<double>() : NAN;
+}
+
 std::string csv_of_budget(const nlohmann::json& budget) {
   std::string out = "relation,parameter,row,category,value_or_shift,error_or_shift_sigma\n";
   for (const auto& rel : budget.at("relations")) {
@@ -113,11 +118,11 @@ std::string csv_of_budget(const nlohmann::json& budget) {
       const std::string prefix =
           fmt::format("{},{},", rel.at("name").get<std::string>(), p.at("name").get<std::string>());
       out += prefix + fmt::format("baseline,,{:.6g},{:.6g}\n", p.at("baseline").get<double>(),
-                                  p.value("baseline_error", NAN));
+                                  number_or_nan(p, "baseline_error"));
       for (const auto& v : p.at("variants"))
         out += prefix + fmt::format("{},{},{:.6g},{:.4g}\n", v.at("variant").get<std::string>(),
                                     v.at("category").get<std::string>(),
-                                    v.at("shift").get<double>(), v.value("shift_sigma", NAN));
+                                    v.at("shift").get<double>(), number_or_nan(v, "shift_sigma"));
       for (const auto& [cat, q] : p.at("categories").items())
         out += prefix + fmt::format("quadrature,{},{:.6g},\n", cat, q.get<double>());
       out += prefix + fmt::format("total,,{:.6g},\n", p.at("total").get<double>());

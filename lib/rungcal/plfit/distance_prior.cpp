@@ -48,36 +48,52 @@ DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
   return s;
 }
 
+DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi, double* r) const {
+  // In grid units z = (mu - c_0) / h; bins beyond 12 of the nearest add nothing in double.
+  const int bins = static_cast<int>(weight.size());
+  const double z = (mu - start) / step;
+  const int nearest = std::clamp(static_cast<int>(std::lround(z)), 0, bins - 1);
+  lo = std::max(0, nearest - 12), hi = std::min(bins - 1, nearest + 12);
+  // Gaussians relative to the nearest bin's, outwards from it so that nothing underflows:
+  // e_(j+1) / e_j = exp(z - j - 1/2), e_(j-1) / e_j = exp(j - z - 1/2).
+  constexpr double kInvE = 0.36787944117144233;
+  double total = r[nearest - lo] = weight[static_cast<std::size_t>(nearest)];
+  double e = 1.0, ratio = std::exp(z - nearest - 0.5);
+  for (int j = nearest + 1; j <= hi; ++j) {
+    e *= ratio;
+    ratio *= kInvE;
+    total += r[j - lo] = weight[static_cast<std::size_t>(j)] * e;
+  }
+  e = 1.0, ratio = std::exp(nearest - z - 0.5);
+  for (int j = nearest - 1; j >= lo; --j) {
+    e *= ratio;
+    ratio *= kInvE;
+    total += r[j - lo] = weight[static_cast<std::size_t>(j)] * e;
+  }
+  const double inv = 1.0 / total;
+  double first = 0, second = 0;
+  for (int j = lo; j <= hi; ++j) {
+    const double rj = r[j - lo] *= inv, dz = j - z;
+    first += rj * dz;
+    second += rj * dz * dz;
+  }
+  DistancePriorTerms t{};
+  t.log_density = std::log(total) - 0.5 * (z - nearest) * (z - nearest) - std::log(step) - 0.9189385332046727418;
+  t.d_mu = first / step;
+  t.d2_mu = (second - 1.0 - first * first) / (step * step);
+  return t;
+}
+
 // ln p(mu) = (k+1) ln(d/L) - (d/L)^a - lnGamma((k+1)/a) + ln a + ln(ln10/5).
 DistancePriorTerms DistancePriorShape::at(double mu, double* d_bins, double scale) const {
   if (histogram) {
-    // In grid units z = (mu - c_0) / h; bins beyond 12 of the nearest add nothing in double.
-    const int bins = static_cast<int>(weight.size());
-    const double z = (mu - start) / step;
-    const int nearest = std::clamp(static_cast<int>(std::lround(z)), 0, bins - 1);
-    const int lo = std::max(0, nearest - 12), hi = std::min(bins - 1, nearest + 12);
-    // Gaussians relative to the nearest bin's, by the recurrence e_(j+1) = e_j exp(z - j - 1/2).
-    const double ref = 0.5 * (z - nearest) * (z - nearest);
-    double e = std::exp(ref - 0.5 * (z - lo) * (z - lo)), ratio = std::exp(z - lo - 0.5);
-    double p[32], total = 0, first = 0, second = 0;
-    for (int j = lo; j <= hi; ++j) {
-      p[j - lo] = weight[static_cast<std::size_t>(j)] * e;
-      total += p[j - lo];
-      e *= ratio;
-      ratio *= 0.36787944117144233;  // exp(-1)
+    int lo = 0, hi = 0;
+    double r[kHistogramWindow];
+    DistancePriorTerms t = histogram_at(mu, lo, hi, r);
+    if (d_bins) {
+      for (int j = std::max(lo, 1); j <= hi; ++j) d_bins[j - 1] += scale * r[j - lo];
+      for (std::size_t j = 1; j < weight.size(); ++j) d_bins[j - 1] -= scale * weight[j];
     }
-    for (int j = lo; j <= hi; ++j) {
-      const double r = p[j - lo] / total, dz = j - z;
-      first += r * dz;
-      second += r * (dz * dz - 1.0);
-      if (d_bins && j > 0) d_bins[j - 1] += scale * r;
-    }
-    if (d_bins)
-      for (int j = 1; j < bins; ++j) d_bins[j - 1] -= scale * weight[static_cast<std::size_t>(j)];
-    DistancePriorTerms t{};
-    t.log_density = std::log(total) - ref - std::log(step) - 0.9189385332046727418;  // ln sqrt(2 pi)
-    t.d_mu = first / step;
-    t.d2_mu = (second - first * first) / (step * step);
     return t;
   }
   const double log_ratio = kC * mu - 2.0 * kLn10 - log_scale;  // ln(d / L)

@@ -40,7 +40,7 @@ inline constexpr double kHistogramMargin = 1.5;
 struct DistancePriorTerms {
   double log_density;  // ln p(mu)
   double d_mu;         // d ln p / d mu
-  double d2_mu;        // d^2 ln p / d mu^2 (never positive)
+  double d2_mu;        // d^2 ln p / d mu^2 (never positive, except for the histogram)
   double d_log_scale;  // d ln p / d ln L
   double d_power;      // d ln p / d k
   double d_exponent;   // d ln p / d a
@@ -60,7 +60,12 @@ struct DistancePriorShape {
   static DistancePriorShape make_histogram(double start, double step, const double* log_weights, int bins);
   // d_bins (histogram only, size B - 1): d ln p / d eta_j for j = 1 .. B-1, added to.
   DistancePriorTerms at(double mu, double* d_bins = nullptr, double scale = 1.0) const;
+  // The histogram at mu, with each bin's responsibility w_j N_j / p for the bins lo..hi
+  // that reach mu (r[0] is bin lo's; at most kHistogramWindow of them).
+  DistancePriorTerms histogram_at(double mu, int& lo, int& hi, double* r) const;
 };
+
+inline constexpr int kHistogramWindow = 25;  // bins within 12 steps of the nearest
 
 // The digamma function psi(x) = d lnGamma / dx for x > 0: recurrence up to x >= 12, then the
 // asymptotic series (Abramowitz & Stegun 1964, 6.3.5 and 6.3.18); error below 1e-13.

@@ -524,6 +524,9 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
     jr.warnings.push_back("no COEFFS table: E(B-V) errors are taken as independent between relations");
   jr.n_free = static_cast<int>(std::count(js.fixed.begin(), js.fixed.end(), false));
   jr.solution = solve_joint(d, js, L, start);
+  if (!jr.solution.theta.allFinite())
+    throw InputError({o.input_path, {}, {}}, "degenerate_fit",
+                     "the joint fit has no finite solution; look for absurd values among the calibrators");
   if (!jr.solution.usable) jr.warnings.push_back("the joint solver did not reach a usable solution: " + jr.solution.message);
   if (o.bootstrap > 0) {
     // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
@@ -806,6 +809,11 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
       rr.solution = solve_fit(data, rr.settings, rr.layout, rr.solution.theta);
     }
     c.data = data;
+    if (!rr.solution.theta.allFinite() || !std::isfinite(rr.solution.cost))
+      throw InputError({o.input_path, {}, {}}, "degenerate_fit",
+                       fmt::format("relation {}: the fit has no finite solution ({}); look for absurd values among the "
+                                   "calibrators (parallax, period, [Fe/H]) or the zero-point table",
+                                   rel.name, rr.solution.message));
     if (!rr.solution.usable)
       rr.warnings.push_back("the solver did not reach a usable solution: " + rr.solution.message);
     if (hierarchical) {

@@ -138,9 +138,14 @@ Component integrate_parallax(double m, double var_mag, double plx, double var_pl
   double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, total = 0;
   double r_of[128], e_of[128];
   DistancePriorTerms pr_of[128];
+  // The histogram's responsibilities per node, kept for the log-weights' derivatives.
+  thread_local std::vector<double> resp;
+  int lo_of[128], hi_of[128];
+  if (prior.histogram) resp.resize(n * kHistogramWindow);
   for (std::size_t k = 0; k < n; ++k) {
     const double muk = mu + width * q.nodes[k];
-    pr_of[k] = prior.at(muk);
+    pr_of[k] = prior.histogram ? prior.histogram_at(muk, lo_of[k], hi_of[k], resp.data() + k * kHistogramWindow)
+                               : prior.at(muk);
     const double pt = std::exp(-kC * (muk - 10.0));
     r_of[k] = m - muk - m_shift;
     e_of[k] = plx - pt - offset;
@@ -160,8 +165,13 @@ Component integrate_parallax(double m, double var_mag, double plx, double var_pl
   }
   const double inv = 1.0 / total;
   if (prior.histogram && d_bins) {
-    std::fill(d_bins, d_bins + prior.weight.size() - 1, 0.0);
-    for (std::size_t k = 0; k < n; ++k) prior.at(mu + width * q.nodes[k], d_bins, std::exp(terms[k] - top) * inv);
+    // d ln L / d eta_j = E[r_j] - w_j over the normalised integrand.
+    for (std::size_t j = 1; j < prior.weight.size(); ++j) d_bins[j - 1] = -prior.weight[j];
+    for (std::size_t k = 0; k < n; ++k) {
+      const double wk = std::exp(terms[k] - top) * inv;
+      const double* r = resp.data() + k * kHistogramWindow;
+      for (int j = std::max(lo_of[k], 1); j <= hi_of[k]; ++j) d_bins[j - 1] += wk * r[j - lo_of[k]];
+    }
   }
   c.log_l = std::log(std::numbers::sqrt2 * width) + top + std::log(total) + norm;
   c.d_m = s_m * inv / var_mag;

@@ -4,6 +4,7 @@
 #include <ceres/ceres.h>
 #include <ceres/dynamic_autodiff_cost_function.h>
 
+#include <algorithm>
 #include <cmath>
 
 #include <vector>
@@ -196,6 +197,13 @@ JointSolution solve_joint(const JointData& d, const JointSettings& s, const Join
   sol.chi2 = 2.0 * cost;
   ceres::Problem robust;
   build_problem(robust, d, s, L, t.data(), true);
+  // A degenerate system (an absurd value somewhere in the data) gives a non-finite Jacobian,
+  // which Eigen's SVD inside the covariance does not survive: no covariance then.
+  ceres::CRSMatrix jacobian;
+  robust.Evaluate(ceres::Problem::EvaluateOptions(), nullptr, nullptr, nullptr, &jacobian);
+  if (!std::isfinite(sol.chi2) || !t.allFinite() ||
+      !std::all_of(jacobian.values.begin(), jacobian.values.end(), [](double v) { return std::isfinite(v); }))
+    return sol;
   ceres::Covariance::Options co;
   co.algorithm_type = ceres::DENSE_SVD;
   ceres::Covariance cov(co);

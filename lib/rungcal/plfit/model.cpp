@@ -671,6 +671,14 @@ bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayou
   po.cost_function_ownership = ceres::TAKE_OWNERSHIP;
   ceres::Problem problem(po);
   configure_problem(problem, new RelationCost(d, s, L, decoupled(s, L) ? &reference : nullptr), s, L, t.data());
+  // A non-finite Jacobian (a degenerate system) would reach Eigen's SVD: no covariance then.
+  if (!t.allFinite()) return false;
+  ceres::CRSMatrix jacobian;
+  double cost = 0;
+  if (!problem.Evaluate(ceres::Problem::EvaluateOptions(), &cost, nullptr, nullptr, &jacobian) || !std::isfinite(cost))
+    return false;
+  for (double v : jacobian.values)
+    if (!std::isfinite(v)) return false;
   ceres::Covariance::Options co;
   co.algorithm_type = ceres::DENSE_SVD;
   ceres::Covariance cov(co);

@@ -54,12 +54,20 @@ std::string in_folder(const RunOptions& o, const std::string& name) {
 }
 
 // SHA-256 of everything that decides a stage's products.
+// A path as the key sees it: absolute and normalised, so that a config named relatively,
+// absolutely or from another working directory keys its stages the same.
+std::string key_path(const std::string& path) {
+  std::error_code ec;
+  fs::path p = fs::weakly_canonical(fs::absolute(path, ec), ec);
+  return ec ? path : p.string();
+}
+
 std::string stage_key(const Stage& s) {
   std::string text = fmt::format("stage={}\nsoftware={} {}\nsettings={}\n", s.name,
                                  software_version(), software_commit(), s.settings);
-  if (!s.config.empty()) text += fmt::format("config={} {}\n", s.config, sha256_file(s.config));
+  if (!s.config.empty()) text += fmt::format("config={} {}\n", key_path(s.config), sha256_file(s.config));
   for (const auto& in : s.inputs)
-    text += fmt::format("input={} {}\n", in, fs::exists(in) ? sha256_file(in) : "missing");
+    text += fmt::format("input={} {}\n", key_path(in), fs::exists(in) ? sha256_file(in) : "missing");
   return sha256_hex(text);
 }
 
@@ -362,9 +370,13 @@ RunOutcome run_pipeline(const RunOptions& o) {
                     {deredden.output_path},
                     "",
                     [&] { deredden_catalog_file(deredden); }});
+  // Every file a stage reads keys it: the fit's zero-point tables, the grid's band table.
+  std::vector<std::string> fit_inputs = {fit.input_path};
+  for (const auto& table : {fit.zero_point_table_5p, fit.zero_point_table_6p})
+    if (!table.empty()) fit_inputs.push_back(table);
   stages.push_back({"fit",
                     o.fit_config,
-                    {fit.input_path},
+                    fit_inputs,
                     fmt::format("bootstrap={}", fit.bootstrap),
                     {fit.output_path, fit.residuals_path},
                     "",
@@ -372,7 +384,14 @@ RunOutcome run_pipeline(const RunOptions& o) {
   if (grid)
     stages.push_back({"grid",
                       o.grid_config,
-                      {grid->catalog_path, o.deredden_config, o.fit_config},
+                      [&] {
+                        std::vector<std::string> in = fit_inputs;
+                        in.front() = grid->catalog_path;
+                        in.push_back(o.deredden_config);
+                        in.push_back(o.fit_config);
+                        in.push_back(deredden.bands_file);
+                        return in;
+                      }(),
                       "",
                       {in_folder(o, "grid/grid.json"), in_folder(o, "grid/error_budget.csv")},
                       "",
