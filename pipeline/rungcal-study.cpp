@@ -75,10 +75,12 @@ int main(int argc, char** argv) {
   app.add_option("--histogram-margin", study.fit.hierarchical.histogram_margin, "its grid beyond the data (mag)")
       ->capture_default_str();
   app.add_option("--quadrature-nodes", study.fit.hierarchical.quadrature_nodes, "Gauss-Hermite nodes")->capture_default_str();
-  app.add_option("--outlier-shift", study.fit.hierarchical.outlier_mag_shift,
-                 "outlier component brighter by this (mag)")->capture_default_str();
-  app.add_option("--outlier-width", study.fit.hierarchical.outlier_mag_width, "outlier component's extra width (mag)")
+  app.add_option("--outlier-shift", study.fit.outlier_shift.value, "outlier component brighter by this (mag)")
       ->capture_default_str();
+  app.add_option("--outlier-width", study.fit.outlier_width.value, "outlier component's extra width (mag)")
+      ->capture_default_str();
+  bool free_outlier_shape = false;
+  app.add_flag("--fit-outlier-shape", free_outlier_shape, "fit the outlier component's shift and width");
   app.add_option("--metallicity", metallicity, "fit the [Fe/H] term (the truth has gamma = -0.2)")->capture_default_str();
   app.add_option("--bootstrap", bootstrap, "Bootstrap resamples per mock (0: none)")->capture_default_str();
   app.add_option("--seed", seed, "Seed of the first mock")->capture_default_str();
@@ -103,6 +105,7 @@ int main(int argc, char** argv) {
     study.fit.hierarchical.prior = *family;
     if (*sp != rungcal::FitSpace::kHierarchical) study.fit.loss = rungcal::LossKind::kHuber;  // that space's documented default
     study.fit.input_path = "(mock)";
+    if (free_outlier_shape) study.fit.outlier_shift.mode = study.fit.outlier_width.mode = rungcal::ParamMode::kFree;
     study.fit.bootstrap = bootstrap;
     rungcal::RelationOptions rel;
     rel.name = rel.band = "X";

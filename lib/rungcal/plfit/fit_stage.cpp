@@ -237,6 +237,8 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const 
     s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchors[g].mu_err, true};
   if (s.terms.hierarchical) {
     s.params[L.outlier] = o.outlier_fraction;
+    s.params[L.outlier_shift] = o.outlier_shift;
+    s.params[L.outlier_width] = o.outlier_width;
   }
   if (L.distance_scale >= 0) {
     s.params[L.distance_scale] = o.distance_scale;
@@ -597,9 +599,8 @@ std::string FitOptions::check() const {
     return "fit.histogram_margin_mag: must be 0 to 5 mag";
   if (!(hierarchical.quadrature_nodes >= 8 && hierarchical.quadrature_nodes <= 128))
     return "fit.quadrature_nodes: must be 8 to 128";
-  if (!(hierarchical.outlier_mag_width > 0 && hierarchical.outlier_mag_width < 100))
-    return "fit.outlier_mag_width: must be positive (mag) and below 100";
-  if (!(std::abs(hierarchical.outlier_mag_shift) < 100)) return "fit.outlier_mag_shift: must be finite, |shift| < 100 mag";
+  if (std::string e = check_domain("fit.outlier_mag_width", outlier_width, 0.0, false, 100.0); !e.empty()) return e;
+  if (std::string e = check_domain("fit.outlier_mag_shift", outlier_shift, -100.0, false, 100.0); !e.empty()) return e;
   if (!(hierarchical.outlier_parallax_factor >= 1 && hierarchical.outlier_parallax_factor < 1e6))
     return "fit.outlier_parallax_factor: must be 1 or more";
   if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
@@ -666,8 +667,10 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.hierarchical.histogram_walk_sigma = f->number_or("histogram_smoothing", o.hierarchical.histogram_walk_sigma);
   o.hierarchical.histogram_margin = f->number_or("histogram_margin_mag", o.hierarchical.histogram_margin);
   o.hierarchical.quadrature_nodes = static_cast<int>(f->integer_or("quadrature_nodes", o.hierarchical.quadrature_nodes));
-  o.hierarchical.outlier_mag_width = f->number_or("outlier_mag_width", o.hierarchical.outlier_mag_width);
-  o.hierarchical.outlier_mag_shift = f->number_or("outlier_mag_shift", o.hierarchical.outlier_mag_shift);
+  o.outlier_shift = param_from(*f, "outlier_mag_shift", o.outlier_shift);
+  o.outlier_width = param_from(*f, "outlier_mag_width", o.outlier_width);
+  o.hierarchical.outlier_mag_shift = o.outlier_shift.value;
+  o.hierarchical.outlier_mag_width = o.outlier_width.value;
   o.hierarchical.outlier_parallax_factor = f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
   o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
   o.distance_scale = param_from(*f, "distance_scale_kpc", o.distance_scale);

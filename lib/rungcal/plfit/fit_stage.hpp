@@ -70,6 +70,8 @@ struct FitOptions {
   ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free, fixed, or a prior (hierarchical)
   // The hierarchical model's own parameters: free by default, each may be fixed or given a prior.
   ParamSpec outlier_fraction;            // share of outliers in the mixture
+  ParamSpec outlier_shift{ParamMode::kFixed, 0.0, 0, true};  // outlier component brighter by (mag)
+  ParamSpec outlier_width{ParamMode::kFixed, 1.0, 0, true};  // its extra magnitude width (mag)
   ParamSpec distance_scale;              // distance prior's length scale L (kpc)
   ParamSpec distance_power;              // its power k (fixed at 2 by the space-density family)
   ParamSpec distance_exponent;           // its exponent a (fixed at 1 by the space-density family)

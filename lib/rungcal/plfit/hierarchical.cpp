@@ -25,7 +25,8 @@ constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 enum class Scale { kLinear, kLog, kLogPlusOne, kLogit };
 
 Scale scale_of(const ParameterLayout& L, int j) {
-  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread) return Scale::kLog;
+  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread || j == L.outlier_width)
+    return Scale::kLog;
   if (j == L.distance_power) return Scale::kLogPlusOne;
   if (j == L.outlier) return Scale::kLogit;
   return Scale::kLinear;
@@ -196,7 +197,7 @@ Component gaussian_magnitude(double m, double var, double mu, double m_shift) {
 // Gradient accumulators in the natural parameters.
 struct Gradient {
   double alpha = 0, beta = 0, beta_long = 0, gamma = 0, offset = 0, var_int = 0, outlier = 0;
-  double log_scale = 0, power = 0, exponent = 0, feh_mean = 0, feh_var = 0;
+  double log_scale = 0, power = 0, exponent = 0, feh_mean = 0, feh_var = 0, outlier_shift = 0, outlier_wide = 0;
   std::vector<double> anchor, bins;
 };
 
@@ -230,7 +231,8 @@ class Evaluator {
       prior = DistancePriorShape::make_histogram(h.histogram_start, h.histogram_step, t.data() + L_.distance_bin0,
                                                  L_.distance_bins + 1);
     bins_member_.assign(H, 0.0), bins_outlier_.assign(H, 0.0);
-    const double wide = h.outlier_mag_width * h.outlier_mag_width, shift = h.outlier_mag_shift;
+    const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
+    const double wide = width * width, shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
     const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
 
     const int n_anchors = (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;  // the layout's, not the settings'
@@ -279,6 +281,9 @@ class Evaluator {
           li = top + std::log(std::exp(a - top) + std::exp(b - top));
           q = std::exp(a - li);
           g.outlier += w * ((1.0 - q) / f - q / (1.0 - f));
+          // The outlier magnitude is mu + M - shift with variance V + width^2.
+          g.outlier_shift -= w * (1.0 - q) * outlier.d_m;
+          g.outlier_wide += w * (1.0 - q) * outlier.d_v;
         }
         if (membership) (*membership)[out_row] = q;
         log_l += w * li;
@@ -310,6 +315,8 @@ class Evaluator {
     gext[L_.sigma] = g.var_int * 2.0 * sigma;  // d/dsigma
     for (int a = 0; a < n_anchors; ++a) gext[L_.anchor0 + a] = g.anchor[static_cast<std::size_t>(a)];
     if (L_.outlier >= 0) gext[L_.outlier] = g.outlier;
+    if (L_.outlier_shift >= 0) gext[L_.outlier_shift] = g.outlier_shift;
+    if (L_.outlier_width >= 0) gext[L_.outlier_width] = g.outlier_wide * 2.0 * width;
     if (L_.distance_scale >= 0) {
       gext[L_.distance_scale] = g.log_scale / t[L_.distance_scale];
       gext[L_.distance_power] = g.power;
@@ -494,7 +501,10 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings, c
   std::vector<int> free;
   for (int j : free_parameters(settings, layout)) {
     // On the edge of the domain: the likelihood's maximum is not an interior point there.
-    const bool edge = (j == layout.sigma && theta[j] < 1e-3) || (j == layout.outlier && theta[j] < 1e-3);
+    // Without outliers their component's shape has nothing to fit either.
+    const bool no_outliers = layout.outlier >= 0 && theta[layout.outlier] < 1e-3;
+    const bool edge = (j == layout.sigma && theta[j] < 1e-3) ||
+                      (no_outliers && (j == layout.outlier || j == layout.outlier_shift || j == layout.outlier_width));
     if (edge) {
       undetermined.push_back(layout.names[static_cast<std::size_t>(j)]);
       covariance(j, j) = kNaN;
@@ -545,6 +555,8 @@ Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& s
 
 void hierarchical_start(const FitData& d, const FitSettings& s, const ParameterLayout& L, Eigen::VectorXd& t) {
   if (L.outlier >= 0) t[L.outlier] = 0.02;
+  if (L.outlier_shift >= 0) t[L.outlier_shift] = s.hierarchical.outlier_mag_shift;
+  if (L.outlier_width >= 0) t[L.outlier_width] = s.hierarchical.outlier_mag_width;
   if (L.distance_scale >= 0) {
     // The space-density prior's mean distance is 3 L: start there from the photometric distances.
     double sum = 0;

@@ -416,6 +416,8 @@ ParameterLayout ParameterLayout::for_terms(const ModelTerms& terms, const std::v
       L.names.push_back(name);
     };
     add(L.outlier, "outlier_fraction");
+    add(L.outlier_shift, "outlier_shift_mag");
+    add(L.outlier_width, "outlier_width_mag");
     if (terms.distance_bins > 0) {
       L.distance_bin0 = next;
       L.distance_bins = terms.distance_bins - 1;

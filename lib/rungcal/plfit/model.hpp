@@ -73,7 +73,8 @@ struct ParameterLayout {
   int alpha = 0, beta = 1, beta_long = -1, gamma = -1, offset = -1, sigma = -1, anchor0 = -1;
   // The hierarchical model's own: outlier fraction, distance-prior hyperparameters (L in kpc,
   // k, a: see DistancePriorFamily), and the [Fe/H] population's mean and spread.
-  int outlier = -1, distance_scale = -1, distance_power = -1, distance_exponent = -1;
+  int outlier = -1, outlier_shift = -1, outlier_width = -1;
+  int distance_scale = -1, distance_power = -1, distance_exponent = -1;
   int feh_mean = -1, feh_spread = -1;
   int distance_bin0 = -1, distance_bins = 0;  // smooth histogram: log-weights eta_1 .. eta_(B-1)
   int size = 0;
@@ -134,7 +135,8 @@ struct HierarchicalSettings {
   int quadrature_nodes = 24;            // Gauss-Hermite nodes per star and component
   // The outlier component: the member's magnitude variance plus outlier_mag_width^2, its
   // magnitude brighter by outlier_mag_shift (blends only brighten), its parallax error
-  // times outlier_parallax_factor.
+  // times outlier_parallax_factor. The shift and width are parameters (outlier_shift_mag,
+  // outlier_width_mag), fixed at these values unless the config frees them.
   double outlier_mag_width = 1.0;
   double outlier_mag_shift = 0.0;
   double outlier_parallax_factor = 10.0;
