@@ -47,6 +47,13 @@ for line in out.splitlines():
     else:
         info.setdefault(w[0], []).append(w[1:])
 get = lambda key: float(info[key][0][0])
+# The outlier component's shift and width are parameters held fixed by default: this
+# implementation takes them as the constants outlier_mag_shift / outlier_mag_width.
+held = [i for i, n in enumerate(names) if n in ("outlier_shift_mag", "outlier_width_mag")]
+if any(modes_r[i] != "fixed" for i in held):
+    sys.exit("compare_hierarchical.py: the outlier component's shift and width must be held fixed")
+for i in reversed(held):
+    del names[i], theta_r[i], modes_r[i], grad_r[i]
 theta_r, grad_r = np.array(theta_r), np.array(grad_r)
 if any(m != "free" for m in modes_r):
     sys.exit("compare_hierarchical.py: every parameter must be free (the default configuration)")
