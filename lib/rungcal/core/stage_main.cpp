@@ -6,6 +6,7 @@
 #include "rungcal/core/cluster.hpp"
 #include "rungcal/core/file_lock.hpp"
 #include "rungcal/core/log.hpp"
+#include "rungcal/core/version.hpp"
 
 #include <fmt/format.h>
 #include <spdlog/spdlog.h>
@@ -16,6 +17,11 @@ void CommonOptions::add_to(CLI::App& app) {
   app.add_flag("-q,--quiet", quiet, "Print only warnings and errors");
   app.add_flag("-v,--verbose", verbose, "Print debug messages too");
   app.add_option("--log-file", log_file, "Also write every message to this file");
+  app.set_version_flag("--version", fmt::format("{} (commit {})", software_version(), software_commit()));
+  app.footer(
+      "Exit codes: 0 success; 1 internal error (a bug, please report it); 2 bad input (the message names the "
+      "file, row, column and rule); 3 nothing to do; 4 drift alarm; 5 busy (a lock was held); 6 new calibration "
+      "(docs/exit-codes.md).");
 }
 
 Verbosity CommonOptions::verbosity() const {

@@ -36,6 +36,9 @@ std::string DereddenOptions::check() const {
   if (output_path.empty()) return "output: required";
   if (bands_file.empty()) return "bands_file: required";
   if (!(r_v > 0) || !std::isfinite(r_v)) return "r_v: must be a positive number";
+  // Measured sightlines span R_V of about 2 to 6 (common practice); far outside, the laws'
+  // fits do not hold and the coefficients become meaningless.
+  if (!(r_v >= 1.5 && r_v <= 8.0)) return "r_v: must be 1.5 to 8 (measured sightlines span about 2 to 6)";
   for (const auto& [b, v] : a_over_ebv)
     if (!(v >= 0) || !std::isfinite(v)) return fmt::format("a_over_ebv.{}: must be a non-negative number", b);
   return "";
