@@ -28,29 +28,6 @@
 namespace rungcal {
 namespace {
 
-ParamSpec param_from(const ConfigSection& parent, const std::string& key, ParamSpec fallback) {
-  if (!parent.has(key)) return fallback;
-  if (!parent.is_table(key)) {
-    // A bare number fixes the parameter at that value.
-    return ParamSpec{ParamMode::kFixed, *parent.get_number(key), 0.0, false};
-  }
-  auto s = parent.section(key);
-  ParamSpec p = fallback;
-  std::string mode = s->string_or("mode", std::string(kParamModeNames.name(fallback.mode)));
-  auto m = kParamModeNames.parse(mode);
-  if (!m) s->fail("mode", fmt::format("'{}' is not one of: {}", mode, kParamModeNames.choices()));
-  p.mode = *m;
-  if (auto v = s->get_number("value")) {
-    p.value = *v;
-    p.has_start = true;
-  } else if (p.mode != ParamMode::kFree && !fallback.has_start) {
-    s->fail("value", "required for a fixed parameter or a prior");
-  }
-  p.prior_sigma = s->number_or("sigma", 0.0);
-  if (p.mode == ParamMode::kPrior && !(p.prior_sigma > 0)) s->fail("sigma", "a prior needs sigma > 0");
-  return p;
-}
-
 bool contains(const std::vector<std::string>& v, const std::string& x) {
   return std::find(v.begin(), v.end(), x) != v.end();
 }
@@ -295,9 +272,10 @@ void fill_star_residuals(RelationResult& rr, const Calibrators& c) {
     if (res.membership.size()) s.membership = res.membership[static_cast<Eigen::Index>(i)];
   }
   rr.chi2 = res.r.square().sum();
-  rr.neg2_log_likelihood = (res.r.square() + (2.0 * std::numbers::pi * res.s2).log()).sum();
-  if (rr.settings.space == FitSpace::kHierarchical)
-    rr.neg2_log_likelihood = 2.0 * hierarchical_value(c.data, rr.settings, rr.layout, rr.solution.theta).neg_log_likelihood;
+  rr.neg2_log_likelihood =
+      rr.settings.space == FitSpace::kHierarchical
+          ? 2.0 * hierarchical_value(c.data, rr.settings, rr.layout, rr.solution.theta).neg_log_likelihood
+          : (res.r.square() + (2.0 * std::numbers::pi * res.s2).log()).sum();
   rr.n_used = static_cast<int>(order.size());
   rr.n_free = 0;
   for (const auto& p : rr.settings.params) rr.n_free += p.mode == ParamMode::kFixed ? 0 : 1;
@@ -549,177 +527,6 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
 }
 
 }  // namespace
-
-namespace {
-// A parameter's fixed value or prior must be finite and, where the parameter has a domain,
-// inside it (lower < value, or lower <= value when closed; value < upper).
-std::string check_domain(const std::string& key, const ParamSpec& p,
-                         double lower = -std::numeric_limits<double>::infinity(), bool closed = false,
-                         double upper = std::numeric_limits<double>::infinity()) {
-  if (p.mode == ParamMode::kPrior && !(p.prior_sigma > 0 && std::isfinite(p.prior_sigma)))
-    return key + ": a prior needs a finite sigma > 0";
-  if (!std::isfinite(p.value)) return key + ": the value must be finite";
-  if (p.mode == ParamMode::kFree && !p.has_start) return "";
-  const bool above = closed ? p.value >= lower : p.value > lower;
-  if (!above || !(p.value < upper))
-    return fmt::format("{}: {} is outside the parameter's domain ({} {}, below {})", key, p.value,
-                       closed ? ">=" : ">", lower, upper);
-  return "";
-}
-}  // namespace
-
-std::string FitOptions::check() const {
-  if (input_path.empty()) return "fit.input: required";
-  if (output_path.empty()) return "fit.output: required";
-  if (relations.empty()) return "relation: at least one [[relation]] is required";
-  if (!(loss_scale > 0)) return "fit.loss_scale: must be positive";
-  if (clip_sigma < 0) return "fit.clip_sigma: must be 0 (off) or positive";
-  if (bootstrap < 0) return "fit.bootstrap: must be 0 or more";
-  if (zero_point == ZeroPointRecipe::kLindegren2021 && (zero_point_table_5p.empty() || zero_point_table_6p.empty()))
-    return "fit.zero_point_table_5p: both Lindegren et al. 2021 tables are required for that recipe";
-  if (inflation == InflationRecipe::kConstant && !(inflation_factor > 0)) return "fit.inflation_factor: must be positive";
-  const bool hier = space == FitSpace::kHierarchical;
-  if (hier && loss != LossKind::kNone)
-    return "fit.loss: the hierarchical likelihood takes outliers as a mixture component (outlier_fraction); a robust "
-           "loss applies to space = \"parallax\", \"magnitude\" or \"abl\"";
-  if (scatter.mode == ParamMode::kPrior && !hier) return "fit.scatter: free or fixed only, except in the hierarchical model";
-  if (std::string e = check_domain("fit.scatter", scatter, 0.0, true); !e.empty()) return e;
-  if (std::string e = check_domain("fit.offset", offset); !e.empty()) return e;
-  if (std::string e = check_domain("fit.outlier_fraction", outlier_fraction, 0.0, true, 1.0); !e.empty()) return e;
-  if (std::string e = check_domain("fit.distance_scale_kpc", distance_scale, 0.0, false); !e.empty()) return e;
-  if (std::string e = check_domain("fit.distance_power", distance_power, -1.0, false); !e.empty()) return e;
-  if (std::string e = check_domain("fit.distance_exponent", distance_exponent, 0.0, false); !e.empty()) return e;
-  if (std::string e = check_domain("fit.feh_mean", feh_mean); !e.empty()) return e;
-  if (std::string e = check_domain("fit.feh_spread", feh_spread, 0.0, false); !e.empty()) return e;
-  if (!(hierarchical.histogram_step >= 0.1 && hierarchical.histogram_step <= 2.0))
-    return "fit.histogram_step_mag: must be 0.1 to 2 mag";
-  if (!(hierarchical.histogram_walk_sigma > 0.05 && hierarchical.histogram_walk_sigma <= 100))
-    return "fit.histogram_smoothing: must be above 0.05 and at most 100";
-  if (!(hierarchical.histogram_margin >= 0 && hierarchical.histogram_margin <= 5))
-    return "fit.histogram_margin_mag: must be 0 to 5 mag";
-  if (!(hierarchical.quadrature_nodes >= 8 && hierarchical.quadrature_nodes <= 128))
-    return "fit.quadrature_nodes: must be 8 to 128";
-  if (std::string e = check_domain("fit.outlier_mag_width", outlier_width, 0.0, false, 100.0); !e.empty()) return e;
-  if (std::string e = check_domain("fit.outlier_mag_shift", outlier_shift, -100.0, false, 100.0); !e.empty()) return e;
-  if (!(hierarchical.outlier_parallax_factor >= 1 && hierarchical.outlier_parallax_factor < 1e6))
-    return "fit.outlier_parallax_factor: must be 1 or more";
-  if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
-  if (joint && space != FitSpace::kParallax && !hier) return "fit.joint: the joint fit works in parallax space";
-  if (!(joint_scatter_correlation >= 0.0 && joint_scatter_correlation < 1.0))
-    return "fit.joint_scatter_correlation: must be in [0, 1)";
-  if (joint_shared_slope) {
-    if (!joint) return "fit.joint_shared_slope: needs joint = true";
-    for (const auto& r : relations)
-      if (r.pivot_log_period != relations[0].pivot_log_period)
-        return "fit.joint_shared_slope: every relation needs the same pivot_log_period";
-  }
-  for (const auto& r : relations) {
-    if (r.band.empty() && r.magnitude_column.empty()) return "relation.band: required";
-    if (!std::isfinite(r.pivot_log_period) || std::abs(r.pivot_log_period) > 10)
-      return "relation.pivot_log_period: must be finite, |log P0| <= 10";
-    if (r.break_log_period && !(std::abs(*r.break_log_period) <= 10))
-      return "relation.break_log_period: must be finite, |log Pb| <= 10";
-    for (const auto& [key, spec] : {std::pair{"relation.alpha", &r.alpha}, std::pair{"relation.slope", &r.slope},
-                                    std::pair{"relation.beta_long", &r.slope_long}, std::pair{"relation.gamma", &r.gamma}})
-      if (std::string e = check_domain(key, *spec); !e.empty()) return e;
-    if (!hier && r.alpha.mode != ParamMode::kFree) return "relation.alpha: fixed or prior only in the hierarchical model";
-    if (!hier && (r.gamma.mode != ParamMode::kFree || r.slope_long.mode != ParamMode::kFree))
-      return "relation.gamma: fixed or prior only in the hierarchical model";
-    if (!(r.min_log_period < r.max_log_period)) return "relation.log_period_range: minimum must be below maximum";
-    for (const auto& m : r.modes)
-      if (!kPulsationModeNames.parse(m)) return "relation.modes: unknown mode '" + m + "'";
-    for (const auto& c : r.classes)
-      if (!kPulsatorClassNames.parse(c)) return "relation.classes: unknown class '" + c + "'";
-  }
-  for (const auto& a : anchors)
-    if (!(a.mu_err > 0)) return "anchor.mu_err: must be positive (" + a.group + ")";
-  return "";
-}
-
-FitOptions fit_options_from_file(const std::string& path) {
-  Config c = Config::from_file(path);
-  ConfigSection root = c.root();
-  auto f = root.section("fit");
-  if (!f) throw InputError({path, {}, "fit", "line", "key"}, "config_missing_key", "a [fit] table is required");
-  FitOptions o;
-  o.config_file = path;
-  o.config_sha256 = c.sha256();
-  o.input_path = c.resolve_path(f->require_string("input"));
-  o.output_path = c.resolve_path(f->string_or("output", o.output_path));
-  if (auto r = f->get_string("residuals")) o.residuals_path = c.resolve_path(*r);
-  o.space = choice_or(*f, "space", kFitSpaceNames, o.space);
-  o.loss = choice_or(*f, "loss", kLossNames, o.loss);
-  o.loss_scale = f->number_or("loss_scale", o.loss_scale);
-  o.clip_sigma = f->number_or("clip_sigma", o.clip_sigma);
-  o.clip_iterations = static_cast<int>(f->integer_or("clip_iterations", o.clip_iterations));
-  o.zero_point = choice_or(*f, "zero_point", kZeroPointRecipeNames, o.zero_point);
-  o.zero_point_mas = f->number_or("zero_point_mas", o.zero_point_mas);
-  if (auto t = f->get_string("zero_point_table_5p")) o.zero_point_table_5p = c.resolve_path(*t);
-  if (auto t = f->get_string("zero_point_table_6p")) o.zero_point_table_6p = c.resolve_path(*t);
-  o.inflation = choice_or(*f, "inflation", kInflationRecipeNames, o.inflation);
-  o.inflation_factor = f->number_or("inflation_factor", o.inflation_factor);
-  o.max_ruwe = f->number_or("max_ruwe", o.max_ruwe);
-  o.use_known_mu = f->bool_or("use_known_distance", o.use_known_mu);
-  o.offset = param_from(*f, "offset", o.offset);
-  o.scatter = param_from(*f, "scatter", o.scatter);
-  o.hierarchical.prior = choice_or(*f, "distance_prior", kDistancePriorNames, o.hierarchical.prior);
-  o.hierarchical.histogram_step = f->number_or("histogram_step_mag", o.hierarchical.histogram_step);
-  o.hierarchical.histogram_walk_sigma = f->number_or("histogram_smoothing", o.hierarchical.histogram_walk_sigma);
-  o.hierarchical.histogram_margin = f->number_or("histogram_margin_mag", o.hierarchical.histogram_margin);
-  o.hierarchical.quadrature_nodes = static_cast<int>(f->integer_or("quadrature_nodes", o.hierarchical.quadrature_nodes));
-  o.outlier_shift = param_from(*f, "outlier_mag_shift", o.outlier_shift);
-  o.outlier_width = param_from(*f, "outlier_mag_width", o.outlier_width);
-  o.hierarchical.outlier_mag_shift = o.outlier_shift.value;
-  o.hierarchical.outlier_mag_width = o.outlier_width.value;
-  o.hierarchical.outlier_parallax_factor = f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
-  o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
-  o.distance_scale = param_from(*f, "distance_scale_kpc", o.distance_scale);
-  o.distance_power = param_from(*f, "distance_power", o.distance_power);
-  o.distance_exponent = param_from(*f, "distance_exponent", o.distance_exponent);
-  o.feh_mean = param_from(*f, "feh_mean", o.feh_mean);
-  o.feh_spread = param_from(*f, "feh_spread", o.feh_spread);
-  o.scatter_estimator = choice_or(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
-  o.joint = f->bool_or("joint", o.joint);
-  o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
-  o.joint_scatter_correlation = f->number_or("joint_scatter_correlation", o.joint_scatter_correlation);
-  o.bootstrap = static_cast<int>(f->integer_or("bootstrap", o.bootstrap));
-  o.seed = static_cast<std::uint64_t>(f->integer_or("seed", static_cast<std::int64_t>(o.seed)));
-  o.threads = static_cast<int>(f->integer_or("threads", o.threads));
-  for (const auto& r : root.section_list("relation")) {
-    RelationOptions rel;
-    rel.band = r.string_or("band", "");
-    rel.name = r.string_or("name", rel.band);
-    rel.magnitude_column = r.string_or("magnitude_column", "");
-    rel.error_column = r.string_or("error_column", "");
-    if (rel.name.empty()) rel.name = rel.magnitude_column;
-    rel.pivot_log_period = r.number_or("pivot_log_period", rel.pivot_log_period);
-    rel.alpha = param_from(r, "alpha", rel.alpha);
-    rel.slope = param_from(r, "slope", rel.slope);
-    rel.slope_long = param_from(r, "beta_long", rel.slope_long);
-    rel.gamma = param_from(r, "gamma", rel.gamma);
-    rel.break_log_period = r.get_number("break_log_period");
-    rel.metallicity = r.bool_or("metallicity", rel.metallicity);
-    if (auto v = r.get_string_list("classes")) rel.classes = *v;
-    if (auto v = r.get_string_list("modes")) rel.modes = *v;
-    rel.fundamentalize = r.bool_or("fundamentalize", rel.fundamentalize);
-    if (auto v = r.get_number_list("log_period_range")) {
-      if (v->size() != 2) r.fail("log_period_range", "must be [min, max]");
-      rel.min_log_period = (*v)[0];
-      rel.max_log_period = (*v)[1];
-    }
-    o.relations.push_back(rel);
-  }
-  for (const auto& a : root.section_list("anchor")) {
-    AnchorOptions an;
-    an.group = a.require_string("group");
-    an.mu = a.number_or("mu", 0.0);
-    an.mu_err = a.number_or("mu_err", 0.0);
-    o.anchors.push_back(an);
-  }
-  c.check_unknown_keys();
-  throw_if_invalid(o.check(), path);
-  return o;
-}
 
 double RelationResult::parameter(const std::string& name) const { return solution.theta[index_of(layout, name)]; }
 double RelationResult::error(const std::string& name) const {

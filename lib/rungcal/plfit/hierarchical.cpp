@@ -476,6 +476,8 @@ FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings,
   so.max_num_iterations = settings.max_iterations;
   so.function_tolerance = settings.function_tolerance;
   so.parameter_tolerance = settings.parameter_tolerance;
+  // The gradient tolerance follows the function tolerance: 1e-10 for a full fit (1e-15),
+  // 1e-4 for a bootstrap resample (1e-9), whose optimum needs far less than its spread.
   so.gradient_tolerance = 1e-10 * settings.function_tolerance / 1e-15;
   so.logging_type = ceres::SILENT;
   ceres::GradientProblemSolver::Summary summary;
