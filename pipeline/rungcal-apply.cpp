@@ -21,6 +21,7 @@ int main(int argc, char** argv) {
   app.add_option("--outlier-sigma", o.outlier_sigma, "Flag stars this many sigma from their host's mean");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
+  common.silence_stdout_if_quiet();
   rungcal::setup_logging("apply", common.verbosity(), common.log_file);
 
   return rungcal::run_stage("apply", [&] {

@@ -19,6 +19,7 @@ int main(int argc, char** argv) {
   app.add_option("--input", in_path, "Input catalog (overrides [fit] input)");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
+  common.silence_stdout_if_quiet();
   rungcal::setup_logging("fit", common.verbosity(), common.log_file);
   rungcal::keep_freed_memory_for_reuse();
 

@@ -20,6 +20,7 @@ int main(int argc, char** argv) {
   app.add_option("--out", out_dir, "Output folder (overrides [grid] output)");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
+  common.silence_stdout_if_quiet();
   rungcal::setup_logging("grid", common.verbosity(), common.log_file);
   rungcal::keep_freed_memory_for_reuse();
 

@@ -4,6 +4,7 @@
 
 #include "rungcal/core/stage_main.hpp"
 #include "rungcal/report/report.hpp"
+#include "rungcal/report/site.hpp"
 
 int main(int argc, char** argv) {
   CLI::App app{
@@ -22,11 +23,30 @@ int main(int argc, char** argv) {
                  "rungcal-lightcurve product: phased light curves and periodograms too");
   app.add_option("--star", o.stars,
                  "Stars whose light curves to draw (default: those with a kept periodogram)");
+  rungcal::SiteOptions site;
+  std::string site_folder;
+  app.add_option("--site", site_folder,
+                 "Instead, write the status page of the calibration --calibration names (its name; a "
+                 "version is ignored) into this folder: index.html with its figures");
+  app.add_option("--run-folder", site.run_folder,
+                 "With --site: a rungcal-run folder, whose runs, refused rows and products the page lists");
+  app.add_option("--drift-alarm-sigma", site.drift_alarm_sigma,
+                 "With --site: mark versions that moved a parameter by more than this many sigma");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
+  common.silence_stdout_if_quiet();
   rungcal::setup_logging("report", common.verbosity(), common.log_file);
 
   return rungcal::run_stage("report", [&] {
+    if (!site_folder.empty()) {
+      site.store = o.store;
+      site.calibration = o.calibrations.front().substr(0, o.calibrations.front().find('@'));
+      site.out_dir = site_folder;
+      rungcal::SiteOutcome out = rungcal::write_site(site);
+      std::printf("status page of %s (%d versions, %d figures): %s/index.html\n", site.calibration.c_str(),
+                  out.versions, out.figures, site_folder.c_str());
+      return rungcal::ExitCode::kSuccess;
+    }
     rungcal::ReportOutcome out = rungcal::write_report(o);
     std::printf("%d tables and %d figures for %zu calibration version(s) in %s\n", out.tables,
                 out.figures, o.calibrations.size(), o.out_dir.c_str());

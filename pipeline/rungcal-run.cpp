@@ -14,9 +14,8 @@ int main(int argc, char** argv) {
       "Runs the configured stages in order (light curves, ingest, deredden, fit, publish, report, "
       "apply), "
       "each only when its config or inputs changed, under a lock, and ends with one summary line. "
-      "Exit codes: 0 ran (calibration unchanged), 3 nothing changed, 6 new calibration, 4 drift "
-      "alarm, "
-      "5 busy, 2 bad input, 1 internal error."};
+      "Exit codes: 0 ran (calibration unchanged), 3 nothing changed, 6 new calibration (or latest "
+      "rolled back), 4 drift alarm, 5 busy, 2 bad input, 7 cannot write, 1 internal error."};
   rungcal::CommonOptions common;
   std::string config_path;
   bool dry_run = false, force = false;
@@ -25,6 +24,7 @@ int main(int argc, char** argv) {
   app.add_flag("--force", force, "Rerun every stage");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
+  common.silence_stdout_if_quiet();
   // The log file needs the run folder from the config: console first, then the rotating file.
   rungcal::setup_logging("run", common.verbosity(), common.log_file);
 
@@ -40,6 +40,11 @@ int main(int argc, char** argv) {
     rungcal::throw_deferred_logging_error();
     rungcal::RunOutcome out = rungcal::run_pipeline(options);
     spdlog::debug("{}", out.summary);
+    // A dry run's reasons are what was asked for: on stdout, with or without a terminal.
+    if (dry_run)
+      for (const auto& s : out.stages)
+        std::printf("%s: %s\n", s.name.c_str(),
+                    s.ran ? ("would run (" + s.reason + ")").c_str() : "up to date");
     std::printf("%s\n", out.summary.c_str());
     return out.code;
   });

@@ -11,9 +11,10 @@ build_pkgs=(g++ cmake make pkg-config git libceres-dev libeigen3-dev libccfits-d
   libcfitsio-dev libspdlog-dev libfmt-dev libgtest-dev libgmock-dev libcli11-dev
   libtomlplusplus-dev nlohmann-json3-dev libssl-dev libcairo2-dev fonts-dejavu-core)
 # openmpi: the suite runs the MPI stages on two local ranks (the build finds it and turns
-# RUNGCAL_MPI on); bc: the MPI benchmark script.
+# RUNGCAL_MPI on); bc: the MPI benchmark script; chromium: the status page is rendered
+# headless in a test.
 test_pkgs=(python3 python3-numpy python3-astropy python3-scipy python3-extinction
-  python3-statsmodels clang openmpi-bin libopenmpi-dev bc)
+  python3-statsmodels clang openmpi-bin libopenmpi-dev bc chromium)
 
 pkgs=("${build_pkgs[@]}")
 [ "$mode" = test ] && pkgs+=("${test_pkgs[@]}")

@@ -148,6 +148,56 @@ TEST(Calibration, ConcurrentPublishersAreSerialisedAndLoseNothing) {
   EXPECT_EQ(load_calibration(dir.file("store"), "mw-dr2@latest").version(), 4);
 }
 
+std::vector<int> withdrawn_numbers(const std::string& store, const std::string& name) {
+  std::vector<int> out;
+  for (const auto& w : withdrawn_versions(store, name)) out.push_back(w.version);
+  return out;
+}
+
+TEST(Calibration, RollingBackWithdrawsTheVersionsAboveAndTheirContentIsNotRepublished) {
+  // The rollback semantics of docs/operations.md (issue 15 item 6).
+  test::TempDir dir;
+  const std::string store = dir.file("store");
+  const std::string fit1 = write_reference_fit(dir, "fit1", 0.06), fit2 = write_reference_fit(dir, "fit2", 0.10);
+  ASSERT_TRUE(publish_calibration(publish_options(dir, fit1)).created);
+  ASSERT_TRUE(publish_calibration(publish_options(dir, fit2)).created);
+  set_latest_version(store, "mw-dr2", 1, 5);
+  EXPECT_EQ(latest_version(store, "mw-dr2"), 1);
+  EXPECT_EQ(withdrawn_numbers(store, "mw-dr2"), std::vector<int>{2});
+  // Version 2's content again: not published, latest stays.
+  PublishOutcome again = publish_calibration(publish_options(dir, fit2));
+  EXPECT_FALSE(again.created);
+  EXPECT_EQ(again.withdrawn_match, 2);
+  EXPECT_EQ(again.version, 1);
+  EXPECT_EQ(calibration_versions(store, "mw-dr2"), (std::vector<int>{1, 2}));
+  // Asked for, it is a new version; 2 stays withdrawn.
+  PublishOptions asked = publish_options(dir, fit2);
+  asked.republish_withdrawn = true;
+  PublishOutcome republished = publish_calibration(asked);
+  EXPECT_TRUE(republished.created);
+  EXPECT_EQ(republished.version, 3);
+  EXPECT_EQ(withdrawn_numbers(store, "mw-dr2"), std::vector<int>{2});
+  // A rollback by hand (the link moved with ln/mv) is noticed by the next publisher.
+  const fs::path folder = fs::path(store) / "mw-dr2";
+  fs::create_directory_symlink("v0001", folder / ".latest.new");
+  fs::rename(folder / ".latest.new", folder / "latest");
+  PublishOutcome other = publish_calibration(publish_options(dir, write_reference_fit(dir, "fit3", 0.08)));
+  EXPECT_EQ(other.version, 4);
+  EXPECT_EQ(withdrawn_numbers(store, "mw-dr2"), (std::vector<int>{2, 3}));
+  EXPECT_EQ(load_calibration(store, "mw-dr2@latest").document["previous"]["version"], 1);
+  // Pointing latest at a withdrawn version reinstates it and withdraws those above.
+  set_latest_version(store, "mw-dr2", 2, 5);
+  EXPECT_EQ(withdrawn_numbers(store, "mw-dr2"), (std::vector<int>{3, 4}));
+  try {
+    set_latest_version(store, "mw-dr2", 9, 5);
+    ADD_FAILURE() << "version 9 does not exist";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "unknown_calibration");
+  }
+  EXPECT_EQ(latest_version(store, "mw-dr2"), 2);
+  EXPECT_THROW(set_latest_version(store, "../x", 1, 5), InputError);
+}
+
 TEST(Calibration, PredictionErrorIsTheAnalyticPropagation) {
   // M = alpha + beta x + gamma [Fe/H], x = log P - 1: var = g^T C g with g = (1, x, [Fe/H]).
   Calibration cal;

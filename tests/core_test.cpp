@@ -454,6 +454,20 @@ TEST(Config, RelativePathsResolveAgainstTheConfigFolder) {
   EXPECT_EQ(c.resolve_path("/abs/cat.csv"), "/abs/cat.csv");
 }
 
+TEST(Config, TheHashIsOfTheParsedContentNotTheBytes) {
+  // Issue 15: a comment-only edit published a new version. Keys sorted, comments and layout
+  // dropped; a value or a type is a change.
+  const Config a = Config::from_string("# fit\n[fit]\nb = 2.0\na = \"x\"\n");
+  const Config b = Config::from_string("[fit]   # the fit\na=\"x\"\n\nb = 2.00   # two\n");
+  const Config c = Config::from_string("[fit]\na = \"x\"\nb = 2.5\n");
+  const Config d = Config::from_string("[fit]\na = \"x\"\nb = 2\n");
+  EXPECT_EQ(a.sha256(), b.sha256());
+  EXPECT_NE(a.sha256(), c.sha256());
+  EXPECT_NE(a.sha256(), d.sha256());  // 2 is an integer, 2.0 a float
+  EXPECT_EQ(canonical_config_text("x = 1 # one\n"), canonical_config_text("x=1"));
+  EXPECT_EQ(canonical_config_text("not = = toml"), "not = = toml");
+}
+
 TEST(Cluster, AnItemThatFailsStopsTheStageWithItsRuleAndWritesNothing) {
   // RUNGCAL_FAULT_THROW makes one light curve (item 7) fail as bad input would; the
   // two-rank version, where the item is rank 1's, is in tests/mpi_test.sh.

@@ -6,14 +6,22 @@
 #include <gtest/gtest.h>
 
 #include <cmath>
+#include <filesystem>
 #include <regex>
 #include <sstream>
 
 #include <fmt/format.h>
 
+#include "rungcal/calibration/store.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_names.hpp"
+#include "rungcal/ingest/ingest.hpp"
+#include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/report/figures.hpp"
+#include "rungcal/report/report.hpp"
 #include "rungcal/report/tables.hpp"
+#include "rungcal/table/fits_io.hpp"
+#include "reference_store.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
@@ -331,6 +339,70 @@ TEST(Figures, LightCurveOfAStarWithoutAPeriodIsRefused) {
   LightCurveTables t = light_curve_inputs();
   EXPECT_THROW(light_curve_figure(t, "NOT-THERE", FigureFormat::kPng, dir.file("x.png")), InputError);
   EXPECT_FALSE(test::file_exists(dir.file("x.png")));
+}
+
+// A store with one version of the Riess et al. 2018 reference fit, and a light-curve product
+// holding the hand-made star under the id `star`.
+ReportOptions report_with_star(const test::TempDir& dir, const std::string& star) {
+  test::publish_reference_versions(dir, "ref", {0.06});
+  LightCurveTables lc = light_curve_inputs();
+  for (StarTable* t : {&lc.summary, &lc.fourier, &lc.points, &lc.periodogram})
+    for (auto& id : t->column("id").text) id = star;
+  write_fits_tables(dir.file("lc.fits"), {{"SUMMARY", &lc.summary}, {"FOURIER", &lc.fourier},
+                                         {"POINTS", &lc.points}, {"PERIODOGRAM", &lc.periodogram}});
+  ReportOptions o;
+  o.store = dir.file("store");
+  o.calibrations = {"ref@latest"};
+  o.out_dir = dir.file("deep/er/report");
+  o.lightcurves = dir.file("lc.fits");
+  return o;
+}
+
+TEST(Report, FileNamesMadeFromStarIdsStayInTheReportFolder) {
+  // Issue 15: a star id holding "/../.." put figures outside report/.
+  EXPECT_EQ(file_name_part("OGLE-LMC-CEP-0001"), "OGLE-LMC-CEP-0001");
+  EXPECT_EQ(file_name_part("W_VI"), "W_VI");
+  const std::string odd = file_name_part("../../x y");
+  EXPECT_EQ(odd.substr(0, 10), "_._.._x_y-") << odd;
+  EXPECT_EQ(odd.size(), 9u + 1u + 8u);
+  EXPECT_NE(file_name_part("a/b"), file_name_part("a b"));  // replaced ids stay apart
+  EXPECT_EQ(file_name_part(std::string(500, 'A')).size(), 120u + 9u);
+  EXPECT_EQ(file_name_part(".hidden")[0], '_');
+
+  test::TempDir dir;
+  ReportOptions o = report_with_star(dir, "../../escape/STAR-A");
+  write_report(o);
+  EXPECT_FALSE(std::filesystem::exists(dir.file("deep/escape")));
+  int lightcurves = 0;
+  for (const auto& e : std::filesystem::directory_iterator(o.out_dir))
+    lightcurves += e.path().filename().string().rfind("lightcurve_", 0) == 0;
+  EXPECT_EQ(lightcurves, 3);  // PDF, PNG and SVG, inside report/
+  for (const auto& e : std::filesystem::recursive_directory_iterator(dir.path()))
+    EXPECT_FALSE(e.is_directory() && e.path().filename() == "escape") << e.path();
+}
+
+TEST(Report, AStarThatCannotBeDrawnStopsTheReportBeforeAnyFileIsWritten) {
+  // Issue 15 item 8: a bad --star was refused only after the tables had been written.
+  test::TempDir dir;
+  ReportOptions o = report_with_star(dir, "STAR-A");
+  o.stars = {"STAR-A", "NOT-THERE"};
+  try {
+    write_report(o);
+    ADD_FAILURE() << "a star with no light curve was accepted";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "no_rows_left");
+    EXPECT_NE(std::string(e.what()).find("NOT-THERE"), std::string::npos) << e.what();
+  }
+  EXPECT_FALSE(std::filesystem::exists(o.out_dir) && !std::filesystem::is_empty(o.out_dir));
+  o.lightcurves.clear();
+  o.stars = {"STAR-A"};
+  try {
+    write_report(o);
+    ADD_FAILURE() << "--star without --lightcurves was accepted";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "needs_lightcurves");
+  }
+  EXPECT_FALSE(std::filesystem::exists(o.out_dir) && !std::filesystem::is_empty(o.out_dir));
 }
 
 }  // namespace

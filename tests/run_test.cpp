@@ -96,14 +96,15 @@ void expect_store_intact(const std::string& store, const std::string& name) {
     const std::string n = e.path().filename().string();
     const bool leftover = (n.rfind(".v", 0) == 0 || n.rfind(".latest", 0) == 0) &&
                           n.find(".tmp-") != std::string::npos;
-    EXPECT_TRUE(n == "latest" || n == ".lock" || n == ".pending" || n.rfind('v', 0) == 0 ||
-                leftover)
+    EXPECT_TRUE(n == "latest" || n == ".lock" || n == ".pending" || n == "withdrawn.json" ||
+                n.rfind('v', 0) == 0 || leftover)
         << "stray entry " << n;
     EXPECT_EQ(n.find(".part"), std::string::npos) << n;
   }
   // 'latest' names the newest version, except in the moment between a version's rename and
   // the link's, which the .pending marker records and the next publish completes.
-  if (!versions.empty() && !fs::exists(folder / ".pending")) {
+  if (!versions.empty() && !fs::exists(folder / ".pending") &&
+      withdrawn_versions(store, name).empty()) {
     EXPECT_EQ(load_calibration(store, name + "@latest").version(), versions.back());
   }
 }
@@ -372,6 +373,192 @@ TEST(Run, AnEditedZeroPointTableRerunsTheFitAndAnotherSpellingOfTheConfigDoesNot
   EXPECT_NE(dry.output.find("would run fit"), std::string::npos) << dry.output;
   auto real = run(dir);
   EXPECT_TRUE(ran(real.output, "fit")) << real.output;
+}
+
+// The demo's fit config copied into dir (its relative paths made absolute), with edits.
+std::string copy_fit_config(const test::TempDir& dir,
+                            std::vector<std::pair<std::string, std::string>> edits = {}) {
+  edits.insert(edits.begin(), {"../../demo_out", dir.path()});
+  const std::string path = dir.file("fit.toml");
+  test::write_text(path, test::replaced(test::read_text(test::source_file("config/demo/fit.toml")), edits));
+  return path;
+}
+
+std::string with_fit_config(const std::string& pipeline, const std::string& fit) {
+  return test::replaced(pipeline, {{test::source_file("config/demo") + "/fit.toml", fit}});
+}
+
+TEST(Run, ACommentOrLayoutEditOfAConfigRerunsNothingAndPublishesNothing) {
+  // Stages are keyed by a config's parsed content (issue 15: a comment-only edit published a
+  // new version with every shift +0.00).
+  test::TempDir dir;
+  stage_catalog(dir);
+  const std::string fit = copy_fit_config(dir);
+  test::write_text(dir.file("pipeline.toml"), with_fit_config(pipeline_config(dir, "", 0, false), fit));
+  ASSERT_EQ(run(dir).exit_code, 6);
+  test::write_text(fit, "# reviewed 2026-12-02: no change\n" +
+                            test::replaced(test::read_text(fit), {{" = ", "   =   "}}) + "\n\n# end\n");
+  auto again = run(dir, "--dry-run");
+  EXPECT_EQ(again.exit_code, 3) << again.output;
+  again = run(dir);
+  EXPECT_EQ(again.exit_code, 3) << again.output;
+  EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), std::vector<int>{1});
+  // A value edit is a change.
+  test::write_text(fit, test::replaced(test::read_text(fit), {{"zero_point_mas   =   -0.020", "zero_point_mas = -0.017"}}));
+  auto changed = run(dir, "--dry-run");
+  EXPECT_NE(changed.output.find("fit: would run (config changed)"), std::string::npos) << changed.output;
+}
+
+TEST(Run, RollingLatestBackIsHonouredDownstreamAndWithdrawnContentIsNotRepublished) {
+  // Issue 15: after a rollback the nightly apply kept using the highest version, --dry-run
+  // said "up to date", and --force republished the withdrawn content as a new version.
+  test::TempDir dir;
+  stage_catalog(dir);
+  const std::string demo = test::source_file("config/demo");
+  const std::string apply = fmt::format(
+      "[apply]\nrelation = \"W_VI\"\ntargets_ingest = \"{0}/ingest_targets.toml\"\n"
+      "targets_deredden = \"{1}\"\n",
+      demo, dir.file("deredden_targets.toml"));
+  test::write_text(dir.file("deredden_targets.toml"),
+                   test::replaced(test::read_text(demo + "/deredden_targets.toml"),
+                                  {{"../../demo_out", dir.file("run")}, {"../bands.toml", test::source_file("config/bands.toml")}}));
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 0, false) + apply);
+  ASSERT_EQ(run(dir).exit_code, 6);
+  edit_catalog(dir, [](StarTable& t) { t.column("PLX").real[4] += 0.05; });
+  ASSERT_EQ(run(dir).exit_code, 6);
+  const std::string store = dir.file("run/store");
+  ASSERT_EQ(calibration_versions(store, "test-cal"), (std::vector<int>{1, 2}));
+
+  auto rollback = test::run_stage("publish", "--store " + store + " --name test-cal --set-latest 1");
+  ASSERT_EQ(rollback.exit_code, 0) << rollback.output;
+  EXPECT_EQ(load_calibration(store, "test-cal@latest").version(), 1);
+  ASSERT_EQ(withdrawn_versions(store, "test-cal").size(), 1u);
+  EXPECT_EQ(withdrawn_versions(store, "test-cal")[0].version, 2);
+
+  auto dry = run(dir, "--dry-run");
+  EXPECT_NE(dry.output.find("apply: would run"), std::string::npos) << dry.output;
+  auto after = run(dir);
+  EXPECT_EQ(after.exit_code, 6) << after.output;
+  EXPECT_NE(after.output.find("latest is test-cal@1, rolled back from version 2"), std::string::npos)
+      << after.output;
+  EXPECT_TRUE(ran(after.output, "apply")) << after.output;
+  EXPECT_NE(test::run_command("grep -a -c 'test-cal@1' " + dir.file("run/distances.fits")).output, "0\n")
+      << "apply used the version latest names (keyword RGCALIB)";
+  EXPECT_EQ(run(dir).exit_code, 3);
+
+  // The inputs still give version 2's content: a forced rerun does not bring it back.
+  auto forced = run(dir, "--force");
+  EXPECT_EQ(forced.exit_code, 0) << forced.output;
+  EXPECT_NE(forced.output.find("withdrawn version 2's content again, not republished"), std::string::npos)
+      << forced.output;
+  EXPECT_EQ(calibration_versions(store, "test-cal"), (std::vector<int>{1, 2}));
+  EXPECT_EQ(load_calibration(store, "test-cal@latest").version(), 1);
+
+  // Asked for, it is published as a new version (numbers are never reused).
+  test::write_text(dir.file("pipeline.toml"),
+                   pipeline_config(dir, "republish_withdrawn = true", 0, false) + apply);
+  auto republished = run(dir);
+  EXPECT_EQ(republished.exit_code, 6) << republished.output;
+  EXPECT_EQ(calibration_versions(store, "test-cal"), (std::vector<int>{1, 2, 3}));
+  EXPECT_EQ(load_calibration(store, "test-cal@latest").version(), 3);
+  EXPECT_TRUE(withdrawn_versions(store, "test-cal").size() == 1u);  // 2 stays withdrawn
+}
+
+TEST(Run, ANewVersionWhereNoParameterMovedSaysSoNotFirstVersion) {
+  // A version published by hand with the same numbers (here: another software version in its
+  // provenance) is news, but nothing moved: the summary said "(the first version)".
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 0, false));
+  auto first = run(dir);
+  ASSERT_EQ(first.exit_code, 6);
+  EXPECT_NE(first.output.find("(the first version)"), std::string::npos) << first.output;
+  nlohmann::json fit = nlohmann::json::parse(test::read_text(dir.file("run/fit.json")));
+  fit["provenance"]["software_version"] = "0.0.0-other";
+  test::write_text(dir.file("other_fit.json"), fit.dump());
+  auto hand = test::run_stage("publish", "--store " + dir.file("run/store") + " --name test-cal --fit " +
+                                             dir.file("other_fit.json"));
+  ASSERT_EQ(hand.exit_code, 0) << hand.output;
+  auto next = run(dir);
+  EXPECT_EQ(next.exit_code, 6) << next.output;
+  EXPECT_NE(next.output.find("new calibration test-cal@2 (no parameter moved)"), std::string::npos)
+      << next.output;
+}
+
+TEST(Run, RowsRefusedAtIngestAreInTheSummaryAndTheLog) {
+  test::TempDir dir;
+  stage_catalog(dir);
+  edit_catalog(dir, [](StarTable& t) { t.column("PERIOD").real[2] = -1; });
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 0, false));
+  auto r = run(dir);
+  ASSERT_EQ(r.exit_code, 6) << r.output;
+  EXPECT_NE(r.output.find("; ingest refused 1 of "), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("row 3 ("), std::string::npos) << r.output;
+  const std::string log = test::read_text(dir.file("run/logs/rungcal-run.log"));
+  EXPECT_NE(log.find("ingest refused 1 of"), std::string::npos);
+}
+
+TEST(Run, QuietPrintsNothingAndADryRunGivesItsReasonsWithoutATerminal) {
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 0, false));
+  // Warnings go on, on stderr; stdout (the summary) is silent.
+  auto quiet = test::run_command("{ " + test::shell_quote(std::string(RUNGCAL_BIN_DIR) + "/rungcal-run") +
+                                 " -q --config " + dir.file("pipeline.toml") + " 2>/dev/null; }");
+  EXPECT_EQ(quiet.exit_code, 6) << quiet.output;
+  EXPECT_EQ(quiet.output, "");
+  edit_catalog(dir, [](StarTable& t) { t.column("PLX").real[4] += 0.05; });
+  auto dry = run(dir, "--dry-run");  // run_command has no terminal
+  EXPECT_NE(dry.output.find("ingest: would run (input incoming.fits changed)"), std::string::npos) << dry.output;
+  EXPECT_NE(dry.output.find("fit: would run (catalog_dereddened.fits would change)"), std::string::npos)
+      << dry.output;
+}
+
+TEST(Run, PipelineRulesAreCheckedBeforeAnythingIsWritten) {
+  // Issue 15 item 8 and 10: each of these was refused only after stages had written.
+  const std::string demo = test::source_file("config/demo");
+  struct Case {
+    std::string extra, apply, rule, key;
+  } cases[] = {
+      {"", "", "config_value", "run.calibration"},  // the name, below
+      {"", "[apply]\nrelation = \"W_XX\"\ntargets_ingest = \"" + demo + "/ingest_targets.toml\"\ntargets_deredden = \"" +
+               demo + "/deredden_targets.toml\"\n",
+       "unknown_relation", "apply.relation"},
+  };
+  for (std::size_t i = 0; i < 2; ++i) {
+    test::TempDir dir;
+    stage_catalog(dir);
+    std::string cfg = pipeline_config(dir, cases[i].extra, 0, false) + cases[i].apply;
+    if (i == 0) cfg = test::replaced(cfg, {{"calibration = \"test-cal\"", "calibration = \"../../x\""}});
+    test::write_text(dir.file("pipeline.toml"), cfg);
+    auto r = run(dir);
+    EXPECT_EQ(r.exit_code, 2) << r.output;
+    EXPECT_NE(r.output.find("[" + cases[i].rule + "]"), std::string::npos) << r.output;
+    EXPECT_NE(r.output.find(cases[i].key), std::string::npos) << r.output;
+    EXPECT_FALSE(fs::exists(dir.file("run/catalog.fits"))) << i;
+    EXPECT_FALSE(fs::exists(dir.file("x"))) << i;
+  }
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), test::replaced(pipeline_config(dir), {{"bootstrap = 0", "bootstrap = -5"}}));
+  auto r = run(dir);
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("bootstrap"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("not -5"), std::string::npos) << r.output;
+}
+
+TEST(Run, AWriteTheSystemRefusesExits7NamingTheReason) {
+  // A file-size limit stands in for a full disk (EFBIG for ENOSPC): the input was fine, so
+  // not exit 2 (issue 15: a full disk was reported as bad input).
+  test::TempDir dir;
+  stage_catalog(dir);
+  test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 0, false));
+  auto r = test::run_command("ulimit -f 40; trap '' XFSZ; " +
+                             test::shell_quote(std::string(RUNGCAL_BIN_DIR) + "/rungcal-run") +
+                             " --config " + dir.file("pipeline.toml"));
+  EXPECT_EQ(r.exit_code, 7) << r.output;
+  EXPECT_NE(r.output.find("[write_failed]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("File too large"), std::string::npos) << r.output;
 }
 
 TEST(Run, BadPipelineConfigStopsBeforeAnythingIsWritten) {

@@ -149,6 +149,18 @@ std::vector<StageCase> stage_cases() {
        {{"f.toml", "[fit]\ninput = \"x.fits\"\nbootstrap = -3\n" + kRelation}},
        "config_value",
        "bootstrap"},
+      {"FitBootstrapTooLarge",  // issue 15: 2^31-1 resamples ended in bad_alloc
+       "fit",
+       "--config {dir}/f.toml --out {dir}/out/f.json",
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\nbootstrap = 2147483647\n" + kRelation}},
+       "config_value",
+       "must be 0 to 100000 resamples"},
+      {"PublishSetLatestToAMissingVersion",
+       "publish",
+       "--store {dir}/store --name cal --set-latest 3",
+       {},
+       "unknown_calibration",
+       "no version 3"},
       {"FitNoFitTable",
        "fit",
        "--config {dir}/f.toml --out {dir}/out/f.json",
@@ -306,6 +318,33 @@ std::vector<StageCase> stage_cases() {
        "in.fits",
        "out/catalog.fits",
        "mkfifo in.fits"},
+      {"RunCalibrationNameLeavingTheStore",  // issue 15 item 8: refused only after stages ran
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", test::replaced(kPipeline, {{"calibration = \"c\"", "calibration = \"../../x\""}})}},
+       "config_value",
+       "run.calibration"},
+      {"RunUnknownApplyRelation",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", kPipeline + "[apply]\nrelation = \"W_XX\"\ntargets_ingest = \"" + kDemo +
+                       "/ingest_targets.toml\"\ntargets_deredden = \"" + kDemo + "/deredden_targets.toml\"\n"}},
+       "unknown_relation",
+       "apply.relation"},
+      {"RunNegativeBootstrap",
+       "run",
+       "--config {dir}/r.toml",
+       {{"r.toml", kPipeline + "bootstrap = -5\n"}},
+       "config_value",
+       "fit.bootstrap"},
+      {"ReportStarWithoutLightCurves",
+       "report",
+       "--store {dir}/store --calibration t@latest --out {dir}/out --star X",
+       {{"store/t/v0001/calibration.json", calibration_json(fit_json("-5.0"))}},
+       "needs_lightcurves",
+       "--star",
+       "out",
+       "ln -s v0001 store/t/latest"},
       {"RunLockFileIsASymlink",
        "run",
        "--config {dir}/r.toml",
@@ -537,6 +576,34 @@ TEST(StageValidInput, FitsNamesWithCfitsioSyntaxAreFiles) {
     top.push_back(e.path().filename().string());
   std::sort(top.begin(), top.end());
   EXPECT_EQ(top, (std::vector<std::string>{"cal[1].fits", "run(2)", "run[1]"}));
+}
+
+TEST(StageCommandLine, EveryStageAnswersVersionAndItsHelpShowsDefaultsAndExitCodes) {
+  // Issue 15, "unattended runs must be honest": --version, defaults and exit codes in --help.
+  for (const char* stage : {"lightcurve", "ingest", "deredden", "fit", "publish", "report", "apply",
+                            "diff", "grid", "run", "simulate", "study"}) {
+    auto version = test::run_stage(stage, "--version");
+    EXPECT_EQ(version.exit_code, 0) << stage << version.output;
+    EXPECT_NE(version.output.find("(commit "), std::string::npos) << stage << version.output;
+    auto help = test::run_stage(stage, "--help");
+    EXPECT_EQ(help.exit_code, 0) << stage;
+    EXPECT_NE(help.output.find("Exit codes: 0 success"), std::string::npos) << stage;
+    EXPECT_NE(help.output.find("7 cannot write"), std::string::npos) << stage;
+  }
+  const std::string apply = test::run_stage("apply", "--help").output;
+  const std::string line = apply.substr(apply.find("--outlier-sigma"), 80);
+  EXPECT_NE(line.find("=3"), std::string::npos) << line;
+  const std::string publish = test::run_stage("publish", "--help").output;
+  EXPECT_NE(publish.find("=60"), std::string::npos) << publish;  // --lock-wait
+}
+
+TEST(StageCommandLine, QuietKeepsErrors) {
+  // -q silences the summary on stdout (Run.QuietPrintsNothing...), never an error.
+  test::TempDir dir;
+  auto r = test::run_command(std::string(RUNGCAL_BIN_DIR) + "/rungcal-publish -q --store " +
+                             dir.file("s") + " --name c --set-latest 1");
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_NE(r.output.find("[unknown_calibration]"), std::string::npos) << r.output;
 }
 
 }  // namespace

@@ -6,6 +6,7 @@
 #include <fmt/format.h>
 
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/config.hpp"
 #include "rungcal/core/provenance.hpp"
 
 namespace rungcal {
@@ -137,7 +138,8 @@ std::string calibration_content_sha256(const nlohmann::json& fit, const std::str
         in.erase("sha256");
       }
   }
-  nlohmann::json c = {{"fit", f}, {"config_text", config_text}};
+  // The config by its parsed content: a comment edit is not new content (issue 15).
+  nlohmann::json c = {{"fit", f}, {"config_text", canonical_config_text(config_text)}};
   return sha256_hex(c.dump());  // nlohmann::json keeps object keys sorted: a canonical form
 }
 

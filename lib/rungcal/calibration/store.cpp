@@ -5,6 +5,7 @@
 #include <sys/file.h>
 #include <unistd.h>
 
+#include <algorithm>
 #include <chrono>
 #include <cmath>
 #include <filesystem>
@@ -37,7 +38,7 @@ nlohmann::json read_json(const std::string& path) { return read_json_file(path);
 std::string version_folder(int v) { return fmt::format("v{:04d}", v); }
 
 
-std::optional<int> latest_version(const std::string& folder) {
+std::optional<int> latest_link_version(const std::string& folder) {
   std::error_code ec;
   fs::path target = fs::read_symlink(fs::path(folder) / "latest", ec);
   if (ec) return std::nullopt;
@@ -56,7 +57,7 @@ void point_latest_at(const fs::path& folder, int version) {
   fs::create_directory_symlink(version_folder(version), link_tmp);
   fault_point("publish_link_made");
   if (::rename(link_tmp.c_str(), (folder / "latest").c_str()) != 0)
-    throw InputError({(folder / "latest").string(), {}, {}}, "write_failed", "cannot replace the latest link");
+    throw WriteError({(folder / "latest").string(), {}, {}}, "cannot replace the latest link");
   fsync_path(folder.string());
 }
 
@@ -73,6 +74,88 @@ void complete_interrupted_publish(const fs::path& folder) {
   }
   fs::remove(marker);
   fsync_path(folder.string());
+}
+
+constexpr const char* kWithdrawnFile = "withdrawn.json";
+
+std::vector<WithdrawnVersion> read_withdrawn(const fs::path& folder) {
+  std::vector<WithdrawnVersion> out;
+  const fs::path file = folder / kWithdrawnFile;
+  if (!fs::exists(file)) return out;
+  const nlohmann::json doc = read_json(file.string());
+  auto bad = [&](const std::string& key, const std::string& why) {
+    return InputError({file.string(), {}, key}, "withdrawn_schema", why);
+  };
+  if (!doc.is_object() || !doc.contains("withdrawn") || !doc.at("withdrawn").is_array())
+    throw bad("withdrawn", "must be an object holding an array 'withdrawn'");
+  for (std::size_t i = 0; i < doc.at("withdrawn").size(); ++i) {
+    const nlohmann::json& e = doc.at("withdrawn")[i];
+    const std::string key = fmt::format("withdrawn[{}]", i);
+    if (!e.is_object() || !e.contains("version") || !e.at("version").is_number_integer())
+      throw bad(key + ".version", "must be an integer version");
+    out.push_back({e.at("version").get<int>(), e.value("content_sha256", ""),
+                   e.value("withdrawn_utc", "")});
+  }
+  return out;
+}
+
+void write_withdrawn(const fs::path& folder, const std::vector<WithdrawnVersion>& list) {
+  nlohmann::json doc = {{"schema", "rungcal-withdrawn"}, {"schema_version", 1},
+                        {"withdrawn", nlohmann::json::array()}};
+  for (const auto& w : list)
+    doc["withdrawn"].push_back({{"version", w.version},
+                                {"content_sha256", w.content_sha256},
+                                {"withdrawn_utc", w.withdrawn_utc}});
+  write_file_atomically((folder / kWithdrawnFile).string(), doc.dump(2) + "\n");
+}
+
+std::vector<int> versions_in(const fs::path& folder) {
+  std::vector<int> out;
+  std::error_code ec;
+  if (!fs::is_directory(folder, ec)) return out;
+  for (const auto& e : fs::directory_iterator(folder)) {
+    std::smatch m;
+    std::string n = e.path().filename().string();
+    if (e.is_directory() && std::regex_match(n, m, std::regex("v([0-9]{4,})"))) out.push_back(std::stoi(m[1]));
+  }
+  std::sort(out.begin(), out.end());
+  return out;
+}
+
+std::string stored_content_sha256(const fs::path& folder, int version) {
+  const fs::path file = folder / version_folder(version) / "calibration.json";
+  return Calibration{read_json(file.string())}.content_sha256();
+}
+
+// Brings withdrawn.json up to date with 'latest' (call under the publishers' lock): the
+// version latest names is reinstated, and every version above it is withdrawn, whether
+// set_latest_version or a hand-made link moved latest down. Returns the list.
+std::vector<WithdrawnVersion> record_withdrawals(const fs::path& folder, int latest) {
+  std::vector<WithdrawnVersion> before = read_withdrawn(folder), list;
+  for (const auto& w : before)
+    if (w.version != latest) list.push_back(w);
+  for (int v : versions_in(folder)) {
+    if (v <= latest) continue;
+    if (std::any_of(list.begin(), list.end(), [v](const auto& w) { return w.version == v; })) continue;
+    spdlog::warn("{}: version {} is withdrawn ('latest' names version {})", folder.string(), v, latest);
+    list.push_back({v, stored_content_sha256(folder, v), utc_now_iso8601()});
+  }
+  std::sort(list.begin(), list.end(), [](const auto& a, const auto& b) { return a.version < b.version; });
+  const bool changed = list.size() != before.size() ||
+                       !std::equal(list.begin(), list.end(), before.begin(),
+                                   [](const auto& a, const auto& b) { return a.version == b.version; });
+  if (changed) write_withdrawn(folder, list);
+  return list;
+}
+
+// The withdrawn version holding this content (0 = none). Contents are compared as computed
+// now, so a version published under an older hashing rule still matches.
+int withdrawn_with_content(const fs::path& folder, const std::vector<WithdrawnVersion>& list,
+                           const std::string& content) {
+  for (const auto& w : list)
+    if (fs::exists(folder / version_folder(w.version)) && stored_content_sha256(folder, w.version) == content)
+      return w.version;
+  return 0;
 }
 
 nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& before) {
@@ -134,27 +217,50 @@ void copy_file_synced(const std::string& from, const std::string& to) {
 
 }  // namespace
 
-std::string PublishOptions::check() const {
-  if (store.empty()) return "store: required";
+std::string check_calibration_name(const std::string& name) {
   if (!std::regex_match(name, std::regex("[A-Za-z0-9][A-Za-z0-9_.-]*")))
     return "name: letters, digits, '-', '_' and '.', starting with a letter or digit";
+  return "";
+}
+
+std::string PublishOptions::check() const {
+  if (store.empty()) return "store: required";
+  if (auto why = check_calibration_name(name); !why.empty()) return why;
   if (fit_path.empty()) return "fit: required (a rungcal-fit result)";
   if (!(lock_wait_seconds >= 0)) return "lock_wait_seconds: must be 0 or more";
   return "";
 }
 
 std::vector<int> calibration_versions(const std::string& store, const std::string& name) {
-  std::vector<int> out;
-  fs::path folder = fs::path(store) / name;
-  std::error_code ec;
-  if (!fs::is_directory(folder, ec)) return out;
-  for (const auto& e : fs::directory_iterator(folder)) {
-    std::smatch m;
-    std::string n = e.path().filename().string();
-    if (e.is_directory() && std::regex_match(n, m, std::regex("v([0-9]{4,})"))) out.push_back(std::stoi(m[1]));
-  }
-  std::sort(out.begin(), out.end());
+  return versions_in(fs::path(store) / name);
+}
+
+std::optional<int> latest_version(const std::string& store, const std::string& name) {
+  return latest_link_version((fs::path(store) / name).string());
+}
+
+std::vector<WithdrawnVersion> withdrawn_versions(const std::string& store, const std::string& name) {
+  const fs::path folder = fs::path(store) / name;
+  const std::optional<int> latest = latest_link_version(folder.string());
+  std::vector<WithdrawnVersion> out;
+  for (const auto& w : read_withdrawn(folder))
+    if (!latest || w.version != *latest) out.push_back(w);
   return out;
+}
+
+void set_latest_version(const std::string& store, const std::string& name, int version,
+                        double lock_wait_seconds) {
+  throw_if_invalid(check_calibration_name(name), "");
+  const fs::path folder = fs::path(store) / name;
+  if (!fs::exists(folder / version_folder(version) / "calibration.json"))
+    throw InputError({folder.string(), {}, {}}, "unknown_calibration",
+                     fmt::format("{} has no version {}", name, version));
+  FileLock lock((folder / ".lock").string(), lock_wait_seconds, "another publisher");
+  complete_interrupted_publish(folder);
+  // The list first: a run killed between the two leaves a list that names a version
+  // 'latest' still points at, which withdrawn_versions does not count.
+  record_withdrawals(folder, version);
+  point_latest_at(folder, version);
 }
 
 Calibration load_calibration(const std::string& store, const std::string& reference) {
@@ -163,7 +269,7 @@ Calibration load_calibration(const std::string& store, const std::string& refere
   fs::path folder = fs::path(store) / name;
   int version = 0;
   if (which == "latest") {
-    auto v = latest_version(folder.string());
+    auto v = latest_link_version(folder.string());
     if (!v) throw InputError({folder.string(), {}, {}}, "unknown_calibration", "no published version (no 'latest' link)");
     version = *v;
   } else {
@@ -207,13 +313,19 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
 
   PublishOutcome out;
   const std::string content = calibration_content_sha256(fit, config_text);
-  std::optional<int> latest = latest_version(folder.string());
+  std::optional<int> latest = latest_link_version(folder.string());
   std::optional<Calibration> previous;
   if (latest) {
     previous = load_calibration(o.store, fmt::format("{}@{}", o.name, *latest));
-    if (previous->document.value("content_sha256", "") == content) {
-      out.version = *latest;
-      out.folder = (folder / version_folder(*latest)).string();
+    out.version = *latest;
+    out.folder = (folder / version_folder(*latest)).string();
+    if (previous->content_sha256() == content) return out;
+    const std::vector<WithdrawnVersion> withdrawn = record_withdrawals(folder, *latest);
+    out.withdrawn_match = withdrawn_with_content(folder, withdrawn, content);
+    if (out.withdrawn_match > 0 && !o.republish_withdrawn) {
+      spdlog::warn("{}: this content is withdrawn version {}'s; not published again, and "
+                   "'latest' stays at version {} (ask for it with republish_withdrawn)",
+                   folder.string(), out.withdrawn_match, *latest);
       return out;
     }
   }
@@ -254,7 +366,7 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
   // left a whole version that 'latest' does not name yet, which the next one completes.
   write_file_atomically((folder / kPendingMarker).string(), version_folder(version));
   if (::rename(tmp.c_str(), final.c_str()) != 0)
-    throw InputError({final.string(), {}, {}}, "write_failed", "cannot move the new version into place");
+    throw WriteError({final.string(), {}, {}}, "cannot move the new version into place");
   fsync_path(folder.string());
   fault_point("publish_version_renamed");
   point_latest_at(folder, version);

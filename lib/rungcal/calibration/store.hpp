@@ -21,15 +21,43 @@ struct PublishOptions {
   std::string residuals_path;  // its residuals FITS ("" = none)
   std::string config_path;     // the fit config ("" = none)
   double lock_wait_seconds = 60;  // wait this long for another publisher, then give up (exit 5)
+  bool republish_withdrawn = false;  // publish content equal to a withdrawn version's anyway
   std::string check() const;
 };
 
+// "" when a calibration name is safe as a folder name, else the rule it breaks.
+std::string check_calibration_name(const std::string& name);
+
 struct PublishOutcome {
-  bool created = false;       // false: the content equals the latest version's
+  bool created = false;       // false: the content equals the latest or a withdrawn version's
   int version = 0;            // the new version, or the latest one when unchanged
+  int withdrawn_match = 0;    // the withdrawn version whose content this is (0 = none)
   std::string folder;
   nlohmann::json shifts;      // per relation and parameter: shift and shift / combined sigma
 };
+
+// Rolling back. 'latest' is what every reader downstream uses (apply, report, rungcal-run).
+// A version newer than the one 'latest' names is withdrawn: pointed away from by
+// set_latest_version, or by hand (the next publisher notices and records it). Withdrawn
+// versions stay in the store, listed in STORE/NAME/withdrawn.json, and their content is
+// not published again unless PublishOptions::republish_withdrawn asks for it.
+struct WithdrawnVersion {
+  int version = 0;
+  std::string content_sha256;
+  std::string withdrawn_utc;  // when it was withdrawn, or first noticed withdrawn
+};
+
+// The versions withdrawn from a calibration, ascending; never the one 'latest' names.
+std::vector<WithdrawnVersion> withdrawn_versions(const std::string& store, const std::string& name);
+
+// Points 'latest' at an existing version, under the publishers' lock: the versions above it
+// become withdrawn, and a withdrawn version pointed at is reinstated. Throws InputError
+// ("unknown_calibration") for a version that is not there, BusyError when the lock is held.
+void set_latest_version(const std::string& store, const std::string& name, int version,
+                        double lock_wait_seconds);
+
+// The version 'latest' names (nullopt when none).
+std::optional<int> latest_version(const std::string& store, const std::string& name);
 
 // Publishes a fit result as the next version of a calibration. Throws InputError for bad
 // input, and BusyError when the lock cannot be had in time.

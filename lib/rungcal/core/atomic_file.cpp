@@ -59,7 +59,7 @@ std::string random_suffix() {
 }
 
 [[noreturn]] void throw_write_failure(const std::string& path, const std::string& what, int e) {
-  throw InputError({path, {}, {}}, "write_failed", fmt::format("{}: {}", what, errno_text(e)));
+  throw WriteError({path, {}, {}}, fmt::format("{}: {}", what, errno_text(e)));
 }
 
 bool older_than_this_process(const struct stat& st) {
@@ -151,9 +151,12 @@ void ensure_parent_folder(const std::string& path) {
   if (parent.empty()) return;
   std::error_code ec;
   fs::create_directories(parent, ec);
-  if (ec)
-    throw InputError({parent.string(), {}, {}}, "write_failed",
-                     "cannot create the output folder: " + errno_text(ec.value()));
+  if (!ec) return;
+  const std::string message = "cannot create the output folder: " + errno_text(ec.value());
+  // A path through a regular file is a mistake in what was given (exit 2); a full disk or a
+  // permission is the machine's refusal (exit 7).
+  if (ec.value() == ENOTDIR || ec.value() == EEXIST) throw InputError({parent.string(), {}, {}}, "write_failed", message);
+  throw WriteError({parent.string(), {}, {}}, message);
 }
 
 void fsync_path(const std::string& path) {
@@ -214,9 +217,12 @@ int open_own_file(const std::string& path, int flags, const std::string& what) {
   const int fd = ::open(path.c_str(), flags | O_CREAT | O_NOFOLLOW | O_NONBLOCK | O_CLOEXEC, 0666);
   if (fd < 0) {
     const int e = errno;
-    throw InputError({path, {}, {}}, "write_failed",
-                     fmt::format("cannot open or create {}: {}{}", what, errno_text(e),
-                                 e == ELOOP ? " (it is a symlink, which is never followed)" : ""));
+    const std::string message = fmt::format("cannot open or create {}: {}{}", what, errno_text(e),
+                                            e == ELOOP ? " (it is a symlink, which is never followed)" : "");
+    // A symlink planted where rungcal writes is a hazard in what it was given (exit 2), not
+    // a machine that refused a write (exit 7).
+    if (e == ELOOP) throw InputError({path, {}, {}}, "write_failed", message);
+    throw WriteError({path, {}, {}}, message);
   }
   struct stat st {};
   if (::fstat(fd, &st) != 0 || !S_ISREG(st.st_mode)) {

@@ -200,10 +200,21 @@ std::vector<ConfigSection> ConfigSection::section_list(const std::string& key) c
   return out;
 }
 
+namespace {
+
+// toml++ keeps a table's keys sorted and writes values in one form, and a parsed table
+// holds no comments.
+std::string canonical_text(const toml::table& table) {
+  std::ostringstream out;
+  out << toml::toml_formatter{table};
+  return out.str();
+}
+
+}  // namespace
+
 Config Config::from_string(const std::string& text, const std::string& name) {
   Config c;
   c.file_ = name;
-  c.sha256_ = sha256_hex(text);
   c.folder_ = std::filesystem::path(name).parent_path().string();
   try {
     c.table_ = toml::parse(text, name);
@@ -211,7 +222,16 @@ Config Config::from_string(const std::string& text, const std::string& name) {
     throw InputError({name, static_cast<std::int64_t>(e.source().begin.line), {}, "line", "key"}, "config_syntax",
                      std::string(e.description()));
   }
+  c.sha256_ = sha256_hex(canonical_text(c.table_));
   return c;
+}
+
+std::string canonical_config_text(const std::string& text) {
+  try {
+    return canonical_text(toml::parse(text));
+  } catch (const toml::parse_error&) {
+    return text;
+  }
 }
 
 Config Config::from_file(const std::string& path) {

@@ -63,6 +63,8 @@ class Config {
 
   ConfigSection root();
   const std::string& file() const { return file_; }
+  // SHA-256 of the parsed content (canonical_config_text), not of the bytes: a comment or
+  // layout edit keys nothing anew and publishes no version (issue 15).
   const std::string& sha256() const { return sha256_; }
   // A path from the config: absolute as is, relative against the config file's folder.
   std::string resolve_path(const std::string& path) const;
@@ -78,6 +80,11 @@ class Config {
   toml::table table_;
   std::set<std::string> known_;
 };
+
+// The TOML text's parsed content written out canonically (keys sorted, no comments, one
+// layout), or the text unchanged when it does not parse. Two configs with the same values
+// have the same canonical text.
+std::string canonical_config_text(const std::string& text);
 
 // A choice read through its name table: fallback when the key is absent; a name not in the
 // table stops with rule "config_value", listing the choices.

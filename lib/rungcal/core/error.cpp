@@ -14,6 +14,7 @@ const char* exit_code_name(ExitCode code) {
     case ExitCode::kDriftAlarm: return "drift_alarm";
     case ExitCode::kBusy: return "busy";
     case ExitCode::kNewCalibration: return "new_calibration";
+    case ExitCode::kCannotWrite: return "cannot_write";
   }
   return "unknown";
 }

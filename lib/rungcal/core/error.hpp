@@ -18,6 +18,7 @@ enum class ExitCode : int {
   kDriftAlarm = 4,     // a new calibration moved beyond the configured alarm threshold
   kBusy = 5,           // another process holds the lock and the wait ran out
   kNewCalibration = 6, // rungcal-run published a new calibration version (within the drift threshold)
+  kCannotWrite = 7,    // the system refused a write (disk full, permission, I/O): not the input's fault
 };
 
 // Short machine name of an exit code, as printed in logs ("bad_input").
@@ -46,6 +47,15 @@ class InputError : public std::runtime_error {
   InputLocation where_;
   std::string rule_;
   std::string detail_;
+};
+
+// A write the system refused (ENOSPC, EACCES, EIO, ...): the input was fine, the machine
+// was not, so it exits 7 (cannot_write), not 2; the message names the file and the errno.
+// Still an InputError, rule "write_failed", for code that handles both alike.
+class WriteError : public InputError {
+ public:
+  WriteError(InputLocation where, std::string message)
+      : InputError(std::move(where), "write_failed", std::move(message)) {}
 };
 
 // Turns an options check() result ("field: rule", "" when fine) into InputError

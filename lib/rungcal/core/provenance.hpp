@@ -29,7 +29,7 @@ struct Provenance {
   std::string software_version;
   std::string software_commit;
   std::string created_utc;     // kept out of content hashes
-  std::string config_sha256;   // SHA-256 of the config file's bytes ("" when none)
+  std::string config_sha256;   // SHA-256 of the config's parsed content ("" when none)
   std::vector<InputRecord> inputs;
 
   // Fills version, commit and time for a stage.

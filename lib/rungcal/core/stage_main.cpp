@@ -17,11 +17,20 @@ void CommonOptions::add_to(CLI::App& app) {
   app.add_flag("-q,--quiet", quiet, "Print only warnings and errors");
   app.add_flag("-v,--verbose", verbose, "Print debug messages too");
   app.add_option("--log-file", log_file, "Also write every message to this file");
+  // --help shows each option's default: the values are still the defaults here, because
+  // every stage adds its own options before these. Flags (no value) show none.
+  for (CLI::Option* opt : app.get_options())
+    if (opt->get_items_expected_min() > 0) opt->capture_default_str();
   app.set_version_flag("--version", fmt::format("{} (commit {})", software_version(), software_commit()));
   app.footer(
       "Exit codes: 0 success; 1 internal error (a bug, please report it); 2 bad input (the message names the "
-      "file, row, column and rule); 3 nothing to do; 4 drift alarm; 5 busy (a lock was held); 6 new calibration "
-      "(docs/exit-codes.md).");
+      "file, row, column and rule); 3 nothing to do; 4 drift alarm; 5 busy (a lock was held); 6 new calibration; "
+      "7 cannot write (disk full, permission, I/O: the errno is named) (docs/exit-codes.md).");
+}
+
+void CommonOptions::silence_stdout_if_quiet() const {
+  if (quiet && !verbose && !std::freopen("/dev/null", "w", stdout))
+    spdlog::warn("--quiet: could not silence stdout");
 }
 
 Verbosity CommonOptions::verbosity() const {
@@ -73,6 +82,9 @@ int run_stage(const std::string& stage, const std::function<ExitCode()>& body) {
     throw_deferred_logging_error();
     refuse_mpi_unless_split(stage);
     return static_cast<int>(body());
+  } catch (const WriteError& e) {
+    spdlog::error("{}", e.what());
+    return static_cast<int>(ExitCode::kCannotWrite);
   } catch (const InputError& e) {
     spdlog::error("{}", e.what());
     return static_cast<int>(ExitCode::kBadInput);

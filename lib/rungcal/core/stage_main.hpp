@@ -18,11 +18,15 @@ struct CommonOptions {
   std::string log_file;   // also log everything here
   void add_to(CLI::App& app);
   Verbosity verbosity() const;
+  // With --quiet, the summary a stage prints on stdout goes too (to /dev/null): -q means
+  // nothing but warnings and errors. Stages whose stdout is what was asked for (rungcal-diff,
+  // an extinction table) do not call it.
+  void silence_stdout_if_quiet() const;
 };
 
-// Runs a stage's body and turns its outcome into the documented exit code: InputError ->
-// 2 (bad_input) with its message, BusyError -> 5 (busy), any other exception -> 1
-// (internal_error). The body
+// Runs a stage's body and turns its outcome into the documented exit code: WriteError ->
+// 7 (cannot_write), InputError -> 2 (bad_input) with its message, BusyError -> 5 (busy), any
+// other exception -> 1 (internal_error). The body
 // returns its own code for the other outcomes.
 int run_stage(const std::string& stage, const std::function<ExitCode()>& body);
 

@@ -64,7 +64,8 @@ std::string FitOptions::check() const {
   if (relations.empty()) return "relation: at least one [[relation]] is required";
   if (!(loss_scale > 0)) return "fit.loss_scale: must be positive";
   if (clip_sigma < 0) return "fit.clip_sigma: must be 0 (off) or positive";
-  if (bootstrap < 0) return "fit.bootstrap: must be 0 or more";
+  if (bootstrap < 0 || bootstrap > kMaxBootstrap)
+    return fmt::format("fit.bootstrap: must be 0 to {} resamples", kMaxBootstrap);
   if (zero_point == ZeroPointRecipe::kLindegren2021 &&
       (zero_point_table_5p.empty() || zero_point_table_6p.empty()))
     return "fit.zero_point_table_5p: both Lindegren et al. 2021 tables are required for that "
@@ -200,7 +201,11 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
   o.joint_scatter_correlation =
       f->number_or("joint_scatter_correlation", o.joint_scatter_correlation);
-  o.bootstrap = static_cast<int>(f->integer_or("bootstrap", o.bootstrap));
+  // Checked as read: 2^31-1 used to wrap to a negative count or ask for 30 GB.
+  const std::int64_t bootstrap = f->integer_or("bootstrap", o.bootstrap);
+  if (bootstrap < 0 || bootstrap > kMaxBootstrap)
+    f->fail("bootstrap", fmt::format("must be 0 to {} resamples, not {}", kMaxBootstrap, bootstrap));
+  o.bootstrap = static_cast<int>(bootstrap);
   o.seed = static_cast<std::uint64_t>(f->integer_or("seed", static_cast<std::int64_t>(o.seed)));
   o.threads = static_cast<int>(f->integer_or("threads", o.threads));
   for (const auto& r : root.section_list("relation")) {

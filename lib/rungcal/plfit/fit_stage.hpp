@@ -21,6 +21,10 @@ namespace rungcal {
 inline constexpr int kFitSchemaVersion = 1;
 
 // One period-luminosity relation to fit.
+// The most bootstrap resamples a fit takes: far beyond what percentiles need (a few
+// thousand), and small enough that the resample table fits in memory.
+constexpr int kMaxBootstrap = 100000;
+
 struct RelationOptions {
   std::string name;              // label in outputs (default: the band)
   std::string band;              // band or Wesenheit name: uses mag0_<band>, mag0_err_<band>

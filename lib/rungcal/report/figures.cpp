@@ -58,11 +58,11 @@ void finish_surface(Surface& s, const std::string& path) {
   s.cr = nullptr;
   if (s.format == FigureFormat::kPng) {
     if (cairo_surface_write_to_png(s.surface, s.temp.c_str()) != CAIRO_STATUS_SUCCESS)
-      throw InputError({path, {}, {}}, "write_failed", "cairo could not write the PNG");
+      throw WriteError({path, {}, {}}, "cairo could not write the PNG");
   }
   cairo_surface_finish(s.surface);
   if (cairo_surface_status(s.surface) != CAIRO_STATUS_SUCCESS)
-    throw InputError({path, {}, {}}, "write_failed", cairo_status_to_string(cairo_surface_status(s.surface)));
+    throw WriteError({path, {}, {}}, cairo_status_to_string(cairo_surface_status(s.surface)));
 }
 
 // "Nice" tick spacing: 1, 2 or 5 times a power of ten, about n ticks over the range.
@@ -391,6 +391,15 @@ LightCurveTables read_lightcurve_tables(const std::string& path) {
   t.points = read_fits_table(path, {"POINTS", 0}).table;
   t.periodogram = read_fits_table(path, {"PERIODOGRAM", 0}).table;
   return t;
+}
+
+std::string light_curve_star_problem(const LightCurveTables& lc, const std::string& star) {
+  const std::size_t row = row_of(lc.summary, star);
+  if (row == lc.summary.rows() || lc.summary.column("period_d").is_null(row))
+    return "the light-curve summary has no period for this star";
+  for (std::size_t i = 0; i < lc.points.rows(); ++i)
+    if (lc.points.column("id").text[i] == star) return "";
+  return "the light-curve product has no epochs for this star";
 }
 
 FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& star, FigureFormat format,

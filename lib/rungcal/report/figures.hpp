@@ -54,6 +54,9 @@ struct LightCurveTables {
 // Reads SUMMARY, FOURIER, POINTS and PERIODOGRAM; throws InputError naming a missing HDU.
 LightCurveTables read_lightcurve_tables(const std::string& path);
 
+// "" when light_curve_figure can draw this star, else why not (no period, no epochs).
+std::string light_curve_star_problem(const LightCurveTables& lc, const std::string& star);
+
 // One star's light curve: the epochs of every band against phase (two cycles, maximum light
 // of the star's first band at phase 0, magnitudes brighter up) with each band's Fourier
 // model, bands told apart by Okabe & Ito colours and by marker shape; below, the

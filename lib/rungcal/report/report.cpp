@@ -4,6 +4,7 @@
 
 #include <filesystem>
 #include <fstream>
+#include <optional>
 
 #include <nlohmann/json.hpp>
 
@@ -12,6 +13,7 @@
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_names.hpp"
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -35,68 +37,98 @@ std::string ReportOptions::check() const {
   return "";
 }
 
+namespace {
+
+// Everything a report reads, read and checked before the first file is written: a bad
+// --star or --lightcurves stops the report with nothing half-made.
+struct ReportInputs {
+  std::vector<Calibration> versions;
+  StarTable residuals;
+  bool have_residuals = false;
+  std::optional<nlohmann::json> budget;
+  std::optional<LightCurveTables> light_curves;
+  std::vector<std::string> stars;
+};
+
+ReportInputs read_report_inputs(const ReportOptions& o) {
+  ReportInputs in;
+  for (const auto& c : o.calibrations) in.versions.push_back(load_calibration(o.store, c));
+  const std::string residuals = residuals_of(o.store, in.versions.back());
+  in.have_residuals = std::filesystem::exists(residuals);
+  if (in.have_residuals) in.residuals = read_fits_table(residuals, {"RESIDUALS", 0}).table;
+  if (!o.grid.empty()) {
+    in.budget = read_json_file(o.grid);  // depth-capped (issue 15)
+    if (!(in.budget->is_object() && in.budget->contains("schema") &&
+          in.budget->at("schema") == "rungcal-error-budget"))
+      throw InputError({o.grid, {}, "schema"}, "not_a_grid_result", "not a rungcal-grid result");
+  }
+  if (o.lightcurves.empty()) {
+    if (!o.stars.empty())
+      throw InputError({"rungcal-report", {}, "--star"}, "needs_lightcurves",
+                       "--star draws a light curve: give the light-curve product with --lightcurves");
+    return in;
+  }
+  in.light_curves = read_lightcurve_tables(o.lightcurves);
+  const StarTable& pg = in.light_curves->periodogram;
+  in.stars = o.stars;
+  if (in.stars.empty())
+    for (std::size_t i = 0; i < pg.rows(); ++i)
+      if (in.stars.empty() || in.stars.back() != pg.column("id").text[i])
+        in.stars.push_back(pg.column("id").text[i]);
+  for (const auto& star : in.stars)
+    if (auto why = light_curve_star_problem(*in.light_curves, star); !why.empty())
+      throw InputError({o.lightcurves, {}, star, "row", "star"}, "no_rows_left", why);
+  return in;
+}
+
+// out_dir/prefix + part + "." + ext, with part (a star id or relation name, from data)
+// made safe: it can never name a file outside out_dir (issue 15).
+std::string report_file(const ReportOptions& o, const std::string& prefix, const std::string& part,
+                        const std::string& ext) {
+  return o.out_dir + "/" + prefix + file_name_part(part) + "." + ext;
+}
+
+}  // namespace
+
 ReportOutcome write_report(const ReportOptions& o) {
   throw_if_invalid(o.check(), "rungcal-report");
+  const ReportInputs in = read_report_inputs(o);
   ReportOutcome outcome;
-  std::vector<Calibration> versions;
-  for (const auto& c : o.calibrations) versions.push_back(load_calibration(o.store, c));
-  const Calibration& last = versions.back();
-  const std::string residuals = residuals_of(o.store, last);
-  const bool have_residuals = std::filesystem::exists(residuals);
-  StarTable res;
-  if (have_residuals) res = read_fits_table(residuals, {"RESIDUALS", 0}).table;
+  const Calibration& last = in.versions.back();
 
   const char* ext[] = {"tex", "csv", "md"};
   for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
     const std::string e = ext[static_cast<int>(f)];
-    write_file_atomically(o.out_dir + "/relations." + e, relation_table(versions, f));
+    write_file_atomically(o.out_dir + "/relations." + e, relation_table(in.versions, f));
     ++outcome.tables;
-    if (!have_residuals) continue;
-    // Per-star appendix of the last version, from the residuals kept with it.
-    for (const auto& rel : last.relation_names()) {
-      write_file_atomically(o.out_dir + "/stars_" + rel + "." + e, star_table(res, rel, f));
+    if (in.budget) {
+      write_file_atomically(o.out_dir + "/error_budget." + e, error_budget_table(*in.budget, f));
       ++outcome.tables;
     }
-  }
-  if (!o.grid.empty()) {
-    const nlohmann::json budget = read_json_file(o.grid);  // depth-capped (issue 15)
-    if (!(budget.is_object() && budget.contains("schema") &&
-          budget.at("schema") == "rungcal-error-budget"))
-      throw InputError({o.grid, {}, "schema"}, "not_a_grid_result", "not a rungcal-grid result");
-    for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
-      write_file_atomically(o.out_dir + "/error_budget." + ext[static_cast<int>(f)],
-                            error_budget_table(budget, f));
+    if (!in.have_residuals) continue;
+    // Per-star appendix of the last version, from the residuals kept with it.
+    for (const auto& rel : last.relation_names()) {
+      write_file_atomically(report_file(o, "stars_", rel, e), star_table(in.residuals, rel, f));
       ++outcome.tables;
     }
   }
   for (auto f : kFigureFormats) {
     const std::string e(kFigureFormatNames.name(f));
     for (const auto& rel : last.relation_names()) {
-      if (have_residuals) {
-        pl_diagram(last, rel, res, f, o.out_dir + "/pl_" + rel + "." + e);
-        residual_trends(last, rel, res, f, o.out_dir + "/residuals_" + rel + "." + e);
+      if (in.have_residuals) {
+        pl_diagram(last, rel, in.residuals, f, report_file(o, "pl_", rel, e));
+        residual_trends(last, rel, in.residuals, f, report_file(o, "residuals_", rel, e));
         outcome.figures += 2;
       }
-      if (versions.size() > 1) {
-        version_trend(versions, rel, f, o.out_dir + "/versions_" + rel + "." + e);
+      if (in.versions.size() > 1) {
+        version_trend(in.versions, rel, f, report_file(o, "versions_", rel, e));
         ++outcome.figures;
       }
     }
-  }
-  if (!o.lightcurves.empty()) {
-    LightCurveTables lc = read_lightcurve_tables(o.lightcurves);
-    std::vector<std::string> stars = o.stars;
-    if (stars.empty())
-      for (std::size_t i = 0; i < lc.periodogram.rows(); ++i)
-        if (stars.empty() || stars.back() != lc.periodogram.column("id").text[i])
-          stars.push_back(lc.periodogram.column("id").text[i]);
-    for (auto f : kFigureFormats)
-      for (const auto& star : stars) {
-        light_curve_figure(
-            lc, star, f,
-            o.out_dir + "/lightcurve_" + star + "." + std::string(kFigureFormatNames.name(f)));
-        ++outcome.figures;
-      }
+    for (const auto& star : in.stars) {
+      light_curve_figure(*in.light_curves, star, f, report_file(o, "lightcurve_", star, e));
+      ++outcome.figures;
+    }
   }
   return outcome;
 }

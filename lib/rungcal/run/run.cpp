@@ -29,6 +29,8 @@
 #include "rungcal/lightcurve/lightcurve_stage.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/report/report.hpp"
+#include "rungcal/report/site.hpp"
+#include "rungcal/run/run_history.hpp"
 
 namespace fs = std::filesystem;
 
@@ -62,12 +64,23 @@ std::string key_path(const std::string& path) {
   return ec ? path : p.string();
 }
 
+// A stage config by its parsed content: a comment or layout edit reruns nothing (issue 15).
+std::string config_sha(const std::string& path) { return Config::from_file(path).sha256(); }
+
+// An input's hash: a TOML file (a band table, another stage's config) by its parsed content
+// like a stage config, any other file by its bytes; "missing" when absent.
+std::string input_sha(const std::string& path) {
+  if (!fs::exists(path)) return "missing";
+  if (fs::path(path).extension() == ".toml") return config_sha(path);
+  return sha256_file(path);
+}
+
 std::string stage_key(const Stage& s) {
   std::string text = fmt::format("stage={}\nsoftware={} {}\nsettings={}\n", s.name,
                                  software_version(), software_commit(), s.settings);
-  if (!s.config.empty()) text += fmt::format("config={} {}\n", key_path(s.config), sha256_file(s.config));
+  if (!s.config.empty()) text += fmt::format("config={} {}\n", key_path(s.config), config_sha(s.config));
   for (const auto& in : s.inputs)
-    text += fmt::format("input={} {}\n", key_path(in), fs::exists(in) ? sha256_file(in) : "missing");
+    text += fmt::format("input={} {}\n", key_path(in), input_sha(in));
   return sha256_hex(text);
 }
 
@@ -130,10 +143,10 @@ class RunState {
   void record(const Stage& s, const std::string& key) {
     nlohmann::json rec;
     rec["key"] = key;
-    rec["config_sha256"] = s.config.empty() ? "" : sha256_file(s.config);
+    rec["config_sha256"] = s.config.empty() ? "" : config_sha(s.config);
     rec["inputs"] = nlohmann::json::object();
     for (const auto& in : s.inputs)
-      rec["inputs"][in] = fs::exists(in) ? sha256_file(in) : "missing";
+      rec["inputs"][in] = input_sha(in);
     rec["outputs"] = nlohmann::json::object();
     for (const auto& out : products_of(s)) rec["outputs"][out] = sha256_file(out);
     rec["finished_utc"] = utc_now_iso8601();
@@ -146,10 +159,10 @@ class RunState {
  private:
   // Names what differs from the record, for the log and --dry-run.
   static std::string changed_part(const Stage& s, const nlohmann::json& rec) {
-    if (!s.config.empty() && rec.value("config_sha256", "") != sha256_file(s.config))
+    if (!s.config.empty() && rec.value("config_sha256", "") != config_sha(s.config))
       return "config changed";
     for (const auto& in : s.inputs) {
-      const std::string now = fs::exists(in) ? sha256_file(in) : "missing";
+      const std::string now = input_sha(in);
       if (!rec.contains("inputs") || !rec["inputs"].contains(in))
         return "new input " + fs::path(in).filename().string();
       if (rec["inputs"][in].get<std::string>() != now)
@@ -174,6 +187,7 @@ std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
   const std::string sha = latest.document.value("content_sha256", "");
   if (announced == std::make_pair(outcome.version, sha)) return sha;
   outcome.new_version = true;
+  if (announced.first > outcome.version) outcome.rolled_back_from = announced.first;
   std::optional<Calibration> baseline;
   const bool announced_kept =
       std::find(versions.begin(), versions.end(), announced.first) != versions.end();
@@ -187,7 +201,10 @@ std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
   if (!baseline && previous.is_object() && previous.contains("version"))
     baseline = load_calibration(
         o.store, fmt::format("{}@{}", o.calibration, previous.at("version").get<int>()));
-  if (!baseline) return sha;  // the first version: no shift to report
+  if (!baseline) {
+    outcome.first_version = true;  // no shift to report
+    return sha;
+  }
   for (const ParameterShift& sh : diff_calibrations(*baseline, latest).shifts) {
     if (!std::isfinite(sh.shift_in_sigma)) continue;
     spdlog::info("shift {} {} from v{}: {:+.5f} ({:+.2f} sigma)", sh.relation, sh.parameter,
@@ -200,19 +217,121 @@ std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
   return sha;
 }
 
-// The latest version's calibration.json, and the one before (what the report compares).
-std::vector<std::string> latest_versions(const RunOptions& o, std::size_t how_many) {
-  std::vector<int> v = calibration_versions(o.store, o.calibration);
+// The version 'latest' names, and the newest one before it that was not withdrawn (what
+// the report compares), oldest first; empty when nothing is published. Downstream stages use
+// what 'latest' names, never simply the highest number: a rollback is honoured.
+std::vector<std::string> latest_versions(const RunOptions& o) {
+  const std::optional<int> latest = latest_version(o.store, o.calibration);
+  if (!latest) return {};
+  std::set<int> withdrawn;
+  for (const auto& w : withdrawn_versions(o.store, o.calibration)) withdrawn.insert(w.version);
   std::vector<std::string> refs;
-  for (std::size_t i = v.size() > how_many ? v.size() - how_many : 0; i < v.size(); ++i)
-    refs.push_back(fmt::format("{}@{}", o.calibration, v[i]));
+  for (int v : calibration_versions(o.store, o.calibration))
+    if (v < *latest && !withdrawn.count(v)) refs.assign({fmt::format("{}@{}", o.calibration, v)});
+  refs.push_back(fmt::format("{}@{}", o.calibration, *latest));
   return refs;
+}
+
+// The first few refused rows, for the summary line and the log.
+std::string first_refusals(const IngestResult& r, std::size_t how_many) {
+  std::string out;
+  for (std::size_t i = 0; i < r.rejected.size() && i < how_many; ++i) {
+    const RejectedRow& row = r.rejected[i];
+    out += fmt::format("{}row {} ({}) [{}]", out.empty() ? "" : "; ", row.source_row,
+                       row.id.empty() ? "no id" : row.id, row.rule);
+  }
+  if (r.rejected.size() > how_many) out += "; ...";
+  return out;
+}
+
+// Rows refused at ingest go into the outcome and the log (a warning, so cron mail shows it):
+// a typo in a nightly catalog must not drop a star silently.
+void note_refusals(const IngestResult& r, const IngestOptions& ingest, RunOutcome& outcome) {
+  outcome.rows_read = r.rows_read;
+  outcome.rows_refused = r.rejected.size();
+  if (r.rejected.empty()) return;
+  outcome.first_refusals = first_refusals(r, 3);
+  spdlog::warn("ingest refused {} of {} rows of {} (every reason: {}): {}", r.rejected.size(),
+               r.rows_read, ingest.input_path, ingest.rejects_csv_path, outcome.first_refusals);
+  for (const RejectedRow& row : r.rejected)
+    spdlog::debug("refused row {} ({}) column '{}' [{}]: {}", row.source_row, row.id, row.column,
+                  row.rule, row.message);
+}
+
+// Refuses an [apply] relation the fit does not make, before any stage runs.
+void check_apply_relation(const RunOptions& o, const FitOptions& fit) {
+  if (o.apply_relation.empty()) return;
+  std::string names;
+  for (const auto& r : fit.relations) {
+    if (r.name == o.apply_relation) return;
+    names += (names.empty() ? "" : ", ") + r.name;
+  }
+  throw InputError({o.config_file, {}, "apply.relation", "line", "key"}, "unknown_relation",
+                   fmt::format("'{}' is not a relation the fit config {} makes (it makes: {})",
+                               o.apply_relation, o.fit_config, names));
 }
 
 std::string version_json(const RunOptions& o, const std::string& ref) {
   const int v = std::stoi(ref.substr(ref.find('@') + 1));
   return (fs::path(o.store) / o.calibration / fmt::format("v{:04d}", v) / "calibration.json")
       .string();
+}
+
+std::string joined(const std::vector<std::string>& v) {
+  std::string s;
+  for (const auto& x : v) s += (s.empty() ? "" : ", ") + x;
+  return s.empty() ? std::string("none") : s;
+}
+
+ExitCode outcome_code(const RunOptions& o, const std::vector<std::string>& ran,
+                      const RunOutcome& out) {
+  if (o.dry_run) return ran.empty() ? ExitCode::kNothingToDo : ExitCode::kSuccess;
+  // A rollback is a person's decision, not drift: it is news (6), never an alarm.
+  if (out.new_version && out.rolled_back_from == 0 &&
+      std::abs(out.max_shift_sigma) > o.drift_alarm_sigma)
+    return ExitCode::kDriftAlarm;
+  if (out.new_version) return ExitCode::kNewCalibration;
+  return ran.empty() ? ExitCode::kNothingToDo : ExitCode::kSuccess;
+}
+
+// What moved, in the words of the summary line.
+std::string shift_words(const RunOutcome& out) {
+  if (out.first_version) return "the first version";
+  if (out.max_shift_parameter.empty()) return "no parameter moved";
+  return fmt::format("largest shift {} {:+.2f} sigma", out.max_shift_parameter,
+                     out.max_shift_sigma);
+}
+
+// The one line for cron mail: what happened to the calibration, what ran, what was refused.
+std::string summary_line(const RunOptions& o, const std::vector<std::string>& ran,
+                         const std::vector<std::string>& skipped, const RunOutcome& out) {
+  const std::string label = fmt::format("{}@{}", o.calibration, out.version);
+  std::string line;
+  if (o.dry_run)
+    line = fmt::format("rungcal-run (dry run): would run {}; up to date: {}", joined(ran),
+                       joined(skipped));
+  else if (out.new_version && out.rolled_back_from > 0)
+    line = fmt::format("rungcal-run: latest is {}, rolled back from version {} ({}); ran {}",
+                       label, out.rolled_back_from, shift_words(out), joined(ran));
+  else if (out.new_version && outcome_code(o, ran, out) == ExitCode::kDriftAlarm)
+    line = fmt::format(
+        "rungcal-run: DRIFT ALARM: new {} moves {} by {:+.2f} sigma (threshold {}); ran {}", label,
+        out.max_shift_parameter, out.max_shift_sigma, o.drift_alarm_sigma, joined(ran));
+  else if (out.new_version)
+    line = fmt::format("rungcal-run: new calibration {} ({}); ran {}", label, shift_words(out),
+                       joined(ran));
+  else if (ran.empty())
+    line = fmt::format("rungcal-run: nothing changed; {} stands",
+                       out.version ? label : "no calibration");
+  else
+    line = fmt::format("rungcal-run: ran {}; the calibration is unchanged ({})", joined(ran), label);
+  if (out.withheld_version > 0)
+    line += fmt::format("; the fit gave withdrawn version {}'s content again, not republished",
+                        out.withheld_version);
+  if (out.rows_refused > 0)
+    line += fmt::format("; ingest refused {} of {} rows: {}", out.rows_refused, out.rows_read,
+                        out.first_refusals);
+  return line;
 }
 
 }  // namespace
@@ -222,6 +341,7 @@ std::string RunOptions::check() const {
   if (store.empty()) return "run.store: required";
   if (calibration.empty())
     return "run.calibration: required (the name versions are published under)";
+  if (auto why = check_calibration_name(calibration); !why.empty()) return "run.calibration: " + why.substr(6);
   if (ingest_config.empty()) return "ingest.config: required";
   if (deredden_config.empty()) return "deredden.config: required";
   if (fit_config.empty()) return "fit.config: required";
@@ -248,6 +368,8 @@ RunOptions run_options_from_file(const std::string& path) {
   o.calibration = run->require_string("calibration");
   o.lock_wait_seconds = run->number_or("lock_wait", o.lock_wait_seconds);
   o.drift_alarm_sigma = run->number_or("drift_alarm_sigma", o.drift_alarm_sigma);
+  o.republish_withdrawn = run->bool_or("republish_withdrawn", false);
+  o.site = run->bool_or("site", true);
   // Read as given and checked before they become sizes: -1 was a huge count (issue 15).
   const double log_mb = run->number_or("log_max_mb", 5.0);
   if (!(log_mb > 0 && log_mb <= 1e6))
@@ -267,8 +389,13 @@ RunOptions run_options_from_file(const std::string& path) {
     if (auto in = s->get_string("input")) o.ingest_input = c.resolve_path(*in);
   stage_config("deredden", o.deredden_config);
   stage_config("fit", o.fit_config);
-  if (auto s = root.section("fit"))
-    o.fit_bootstrap = static_cast<int>(s->integer_or("bootstrap", -1));
+  if (auto s = root.section("fit"); s && s->has("bootstrap")) {
+    // Checked here, not passed on: -5 used to mean "keep the fit config's" silently.
+    const std::int64_t b = s->integer_or("bootstrap", 0);
+    if (b < 0 || b > kMaxBootstrap)
+      s->fail("bootstrap", fmt::format("must be 0 to {} resamples, not {}", kMaxBootstrap, b));
+    o.fit_bootstrap = static_cast<int>(b);
+  }
   stage_config("grid", o.grid_config);
   if (auto s = root.section("report")) o.report = s->bool_or("enabled", true);
   if (auto s = root.section("apply")) {
@@ -291,11 +418,57 @@ void check_run_folder(const RunOptions& o, bool create) {
   if (!create) return;
   fs::create_directories(fs::path(o.folder) / "logs", ec);
   if (ec)
-    throw InputError({o.folder, {}, {}}, "write_failed",
-                     "cannot create the run folder: " + errno_text(ec.value()));
+    throw WriteError({o.folder, {}, {}}, "cannot create the run folder: " + errno_text(ec.value()));
 }
 
+namespace {
+
+void record_run(const RunOptions& o, int code, const std::string& summary) {
+  append_run_record(in_folder(o, "run_history.json"), {utc_now_iso8601(), code, summary});
+}
+
+// The status page, after a run that changed anything (and when it is missing).
+void refresh_site(const RunOptions& o, const RunOutcome& outcome, bool ran_any) {
+  if (!o.site || outcome.version == 0) return;
+  const std::string site = in_folder(o, "site");
+  if (!ran_any && !outcome.new_version && fs::exists(site + "/index.html")) return;
+  SiteOptions s;
+  s.store = o.store;
+  s.calibration = o.calibration;
+  s.out_dir = site;
+  s.run_folder = o.folder;
+  s.drift_alarm_sigma = o.drift_alarm_sigma;
+  write_site(s);
+}
+
+// The chain under the run lock; held_lock says whether the lock was taken before a throw.
+RunOutcome run_chain(const RunOptions& o, bool& held_lock);
+
+}  // namespace
+
 RunOutcome run_pipeline(const RunOptions& o) {
+  bool held_lock = false;
+  try {
+    return run_chain(o, held_lock);
+  } catch (const std::exception& e) {
+    // Recorded only under the lock: a run that found another one running writes nothing.
+    const int code = dynamic_cast<const WriteError*>(&e)   ? static_cast<int>(ExitCode::kCannotWrite)
+                     : dynamic_cast<const InputError*>(&e) ? static_cast<int>(ExitCode::kBadInput)
+                                                            : static_cast<int>(ExitCode::kInternalError);
+    if (held_lock) {
+      try {
+        record_run(o, code, fmt::format("rungcal-run: stopped: {}", e.what()));
+      } catch (const std::exception& again) {
+        spdlog::warn("could not record the failed run in run_history.json: {}", again.what());
+      }
+    }
+    throw;
+  }
+}
+
+namespace {
+
+RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   throw_if_invalid(o.check(), o.config_file);
   check_run_folder(o);
   // Every stage config is read (and checked) before anything runs or is locked: a typo
@@ -319,6 +492,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
   fit.output_path = in_folder(o, "fit.json");
   fit.residuals_path = in_folder(o, "fit_residuals.fits");
   if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap;
+  check_apply_relation(o, fit);
   std::optional<GridOptions> grid;
   if (!o.grid_config.empty()) {
     grid = grid_options_from_file(o.grid_config);
@@ -339,6 +513,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
   }
 
   FileLock lock(in_folder(o, ".run.lock"), o.lock_wait_seconds, "another rungcal-run");
+  held_lock = true;
   if (lock.waited()) spdlog::warn("started after waiting for another run to finish");
   RunState state(in_folder(o, "run_state.json"));
   RunOutcome outcome;
@@ -361,7 +536,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
                       "",
                       {ingest.catalog_path, ingest.rejects_csv_path},
                       "",
-                      [&] { ingest_catalog_file(ingest); }});
+                      [&] { note_refusals(ingest_catalog_file(ingest), ingest, outcome); }});
   }
   stages.push_back({"deredden",
                     o.deredden_config,
@@ -403,13 +578,18 @@ RunOutcome run_pipeline(const RunOptions& o) {
   publish.residuals_path = fit.residuals_path;
   publish.config_path = o.fit_config;
   publish.lock_wait_seconds = o.lock_wait_seconds;
+  publish.republish_withdrawn = o.republish_withdrawn;
   stages.push_back({"publish",
-                    "",
-                    {fit.output_path, fit.residuals_path, o.fit_config},
-                    "store=" + o.store + " name=" + o.calibration,
+                    o.fit_config,
+                    {fit.output_path, fit.residuals_path},
+                    fmt::format("store={} name={} republish_withdrawn={}", o.store, o.calibration,
+                                o.republish_withdrawn),
                     {},
                     "",
-                    [&] { publish_calibration(publish); }});
+                    [&] {
+                      const PublishOutcome p = publish_calibration(publish);
+                      if (!p.created) outcome.withheld_version = p.withdrawn_match;
+                    }});
   ReportOptions report;
   report.store = o.store;
   report.out_dir = in_folder(o, "report");
@@ -453,7 +633,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
   for (std::size_t i = 0; i < stages.size(); ++i) {
     Stage& s = stages[i];
     if (s.uses_calibration) {
-      std::vector<std::string> refs = latest_versions(o, 2);
+      std::vector<std::string> refs = latest_versions(o);
       if (refs.empty()) {
         if (!o.dry_run) throw std::logic_error("no calibration in the store after publish");
       } else {
@@ -477,7 +657,7 @@ RunOutcome run_pipeline(const RunOptions& o) {
     }
     StageReport rep{s.name, !why.empty(), why.empty() ? "up to date" : why};
     if (o.dry_run) {
-      spdlog::info("{}: {}", s.name, rep.ran ? "would run (" + why + ")" : "up to date");
+      spdlog::debug("{}: {}", s.name, rep.ran ? "would run (" + why + ")" : "up to date");
       if (rep.ran) {
         will_change.insert(s.outputs.begin(), s.outputs.end());
         if (s.name == "publish") will_change.insert(o.store);
@@ -501,47 +681,22 @@ RunOutcome run_pipeline(const RunOptions& o) {
   std::vector<std::string> ran, skipped;
   for (const auto& r : outcome.stages) (r.ran ? ran : skipped).push_back(r.name);
   std::vector<int> versions = calibration_versions(o.store, o.calibration);
-  outcome.version = versions.empty() ? 0 : versions.back();
+  outcome.version = latest_version(o.store, o.calibration).value_or(0);
   std::string latest_sha;
   if (outcome.version > 0 && !o.dry_run)
     latest_sha = note_if_new(o, versions, state.announced(o.calibration), outcome);
-  auto join = [](const std::vector<std::string>& v) {
-    std::string s;
-    for (const auto& x : v) s += (s.empty() ? "" : ", ") + x;
-    return s.empty() ? std::string("none") : s;
-  };
-  const std::string label = fmt::format("{}@{}", o.calibration, outcome.version);
-  if (o.dry_run) {
-    outcome.code = ran.empty() ? ExitCode::kNothingToDo : ExitCode::kSuccess;
-    outcome.summary = fmt::format("rungcal-run (dry run): would run {}; up to date: {}", join(ran),
-                                  join(skipped));
-  } else if (outcome.new_version && std::abs(outcome.max_shift_sigma) > o.drift_alarm_sigma) {
-    outcome.code = ExitCode::kDriftAlarm;
-    outcome.summary = fmt::format(
-        "rungcal-run: DRIFT ALARM: new {} moves {} by {:+.2f} sigma (threshold {}); ran {}", label,
-        outcome.max_shift_parameter, outcome.max_shift_sigma, o.drift_alarm_sigma, join(ran));
-  } else if (outcome.new_version) {
-    outcome.code = ExitCode::kNewCalibration;
-    const std::string shift =
-        outcome.max_shift_parameter.empty()
-            ? std::string("the first version")
-            : fmt::format("largest shift {} {:+.2f} sigma", outcome.max_shift_parameter,
-                          outcome.max_shift_sigma);
-    outcome.summary =
-        fmt::format("rungcal-run: new calibration {} ({}); ran {}", label, shift, join(ran));
-  } else if (ran.empty()) {
-    outcome.code = ExitCode::kNothingToDo;
-    outcome.summary = fmt::format("rungcal-run: nothing changed; {} stands",
-                                  outcome.version ? label : "no calibration");
-  } else {
-    outcome.code = ExitCode::kSuccess;
-    outcome.summary =
-        fmt::format("rungcal-run: ran {}; the calibration is unchanged ({})", join(ran), label);
+  outcome.code = outcome_code(o, ran, outcome);
+  outcome.summary = summary_line(o, ran, skipped, outcome);
+  if (!o.dry_run) {
+    record_run(o, static_cast<int>(outcome.code), outcome.summary);
+    refresh_site(o, outcome, !ran.empty());
   }
   // Recorded last: a run killed before this point leaves its news to the next run.
   fault_point("run_before_summary");
   if (!latest_sha.empty()) state.record_announced(o.calibration, outcome.version, latest_sha);
   return outcome;
 }
+
+}  // namespace
 
 }  // namespace rungcal

@@ -34,6 +34,8 @@ struct RunOptions {
   std::string apply_relation;  // "" = no distances
   std::string targets_ingest_config;
   std::string targets_deredden_config;
+  bool republish_withdrawn = false;  // publish a fit whose content is a withdrawn version's
+  bool site = true;  // write folder/site/index.html (the status page) after runs that changed anything
 
   bool dry_run = false;  // say what would run and why; run nothing
   bool force = false;    // run every stage whatever changed
@@ -65,6 +67,12 @@ struct RunOutcome {
   int version = 0;                  // the latest version after the run (0 = none)
   double max_shift_sigma = 0;       // largest |shift| / combined sigma of the new version
   std::string max_shift_parameter;  // "relation parameter" of that shift
+  bool first_version = false;       // the new version has no version before it to compare
+  int rolled_back_from = 0;         // the version the last run reported, when latest is older
+  int withheld_version = 0;         // a withdrawn version the fit reproduced (not republished)
+  std::size_t rows_read = 0;        // ingest (when it ran): rows read and rows refused
+  std::size_t rows_refused = 0;
+  std::string first_refusals;       // the first few refused rows and their rules
   std::string summary;              // one line for cron mail
 };
 

@@ -258,8 +258,7 @@ void throw_write_status(int status, const std::string& path, const std::string& 
   const int e = errno;
   const std::string why =
       e == ENOSPC || e == EDQUOT || e == EIO || e == EFBIG ? " (" + errno_text(e) + ")" : "";
-  throw InputError({path, {}, {}}, "write_failed",
-                   fmt::format("{}: {}{}", what, cfitsio_message(status), why));
+  throw WriteError({path, {}, {}}, fmt::format("{}: {}{}", what, cfitsio_message(status), why));
 }
 
 void write_keyword(fitsfile* f, const Keyword& k, const std::string& path) {
@@ -639,8 +638,7 @@ fitsfile* open_output(AtomicOutput& out, const std::string& path) {
         ::pwrite(out.fd(), primary.data() + done, primary.size() - done, static_cast<off_t>(done));
     if (n < 0 && errno == EINTR) continue;
     if (n < 0)
-      throw InputError({path, {}, {}}, "write_failed",
-                       "writing the primary HDU: " + errno_text(errno));
+      throw WriteError({path, {}, {}}, "writing the primary HDU: " + errno_text(errno));
     done += static_cast<std::size_t>(n);
   }
   int status = 0;
