@@ -23,6 +23,9 @@ int main(int argc, char** argv) {
                  "rungcal-lightcurve product: phased light curves and periodograms too");
   app.add_option("--star", o.stars,
                  "Stars whose light curves to draw (default: those with a kept periodogram)");
+  std::string table_errors = "covariance";
+  app.add_option("--table-errors", table_errors,
+                 "Errors in the relation table: covariance, bootstrap, or both (bootstrap in parentheses)");
   rungcal::SiteOptions site;
   std::string site_folder;
   app.add_option("--site", site_folder,
@@ -38,6 +41,11 @@ int main(int argc, char** argv) {
   rungcal::setup_logging("report", common.verbosity(), common.log_file);
 
   return rungcal::run_stage("report", [&] {
+    const auto errors = rungcal::kTableErrorsNames.parse(table_errors);
+    if (!errors)
+      throw rungcal::InputError({"--table-errors", {}, {}}, "config_value",
+                                "'" + table_errors + "' is not one of: " + rungcal::kTableErrorsNames.choices());
+    o.table_errors = *errors;
     if (!site_folder.empty()) {
       site.store = o.store;
       site.calibration = o.calibrations.front().substr(0, o.calibrations.front().find('@'));

@@ -32,6 +32,7 @@ int main(int argc, char** argv) {
     rungcal::RunOptions options = rungcal::run_options_from_file(config_path);
     options.dry_run = dry_run;
     options.force = force;
+    rungcal::check_pipeline(options);  // before the run folder and its log are made
     rungcal::check_run_folder(options);
     rungcal::setup_logging(
         "run", common.verbosity(),

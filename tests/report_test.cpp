@@ -56,8 +56,9 @@ Calibration two_relations(int version, double shift) {
   c.document = {{"name", "cal"}, {"version", version}};
   auto rel = [&](const std::string& name, double a) {
     return nlohmann::json{{"name", name},
+                          {"pivot_log_period", 1.0},
                           {"parameters",
-                           {{{"name", "alpha"}, {"value", a + shift}, {"error", 0.0752}, {"mode", "free"}},
+                           {{{"name", "alpha"}, {"value", a + shift}, {"error", 0.0752}, {"bootstrap_error", 0.0811}, {"mode", "free"}},
                             {{"name", "beta"}, {"value", -3.26}, {"error", 0.0}, {"mode", "fixed"}},
                             {{"name", "parallax_offset_mas"}, {"value", -0.04718 + shift}, {"error", 0.01397}, {"mode", "free"}},
                             {{"name", "sigma_int"}, {"value", 0.06}, {"error", 0.0}, {"mode", "fixed"}}}},
@@ -115,7 +116,8 @@ TEST(Tables, StarAppendixListsUsedAndRejectedStars) {
   StarTable t;
   for (const char* c : {"relation", "id", "reason"}) t.add_column(c, ColumnType::kText);
   t.add_column("used", ColumnType::kBoolean);
-  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "residual"}) t.add_column(c, ColumnType::kReal);
+  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
+    t.add_column(c, ColumnType::kReal);
   auto row = [&](const char* id, bool used, const char* reason) {
     t.column("relation").push_text("W_H");
     t.column("id").push_text(id);
@@ -124,24 +126,84 @@ TEST(Tables, StarAppendixListsUsedAndRejectedStars) {
     t.column("log_period_f").push_real(1.053);
     t.column("m0").push_real(6.871);
     t.column("parallax_corrected_mas").push_real(0.1878);
+    t.column("parallax_err_mas").push_real(0.0231);
     used ? t.column("residual").push_real(-0.52) : t.column("residual").push_null();
   };
   row("AA GEM", true, nullptr);
   row("RW CAM", false, "RUWE 2.10 > 1.4");
   std::string csv = star_table(t, "W_H", TableFormat::kCsv);
-  EXPECT_NE(csv.find("AA GEM,1.0530,6.871,0.1878,-0.52,yes,"), std::string::npos) << csv;
-  EXPECT_NE(csv.find("RW CAM,1.0530,6.871,0.1878,,no,RUWE 2.10 > 1.4"), std::string::npos) << csv;
+  EXPECT_NE(csv.find("AA GEM,1.0530,6.871,0.1878,0.0231,-0.52,yes,"), std::string::npos) << csv;
+  EXPECT_NE(csv.find("RW CAM,1.0530,6.871,0.1878,0.0231,,no,RUWE 2.10 > 1.4"), std::string::npos) << csv;
 }
 
-TEST(Tables, LatexTableCompilesWhenATexEngineIsPresent) {
-  if (test::run_command("command -v pdflatex").exit_code != 0)
-    GTEST_SKIP() << "no pdflatex on this machine: the LaTeX table was not compiled";
+TEST(Tables, CaptionsGiveTheEquationThePivotAndWhichErrors) {
+  const std::vector<Calibration> v = {two_relations(1, 0.0)};
+  const std::string cov = relation_table(v, TableFormat::kMarkdown);
+  EXPECT_NE(cov.find("| W_H: zero point alpha (mag) | -5.910 +- 0.075 |"), std::string::npos) << cov;
+  const std::string tex = relation_table(v, TableFormat::kLatex, TableErrors::kBoth);
+  EXPECT_NE(tex.find("$M = \\alpha + \\beta\\,(\\log P - \\log P_0) + \\gamma\\,{\\rm [Fe/H]}$"), std::string::npos) << tex;
+  EXPECT_NE(tex.find("$\\log P_0$: W\\_H 1, W\\_VI 1"), std::string::npos) << tex;
+  EXPECT_NE(tex.find("in parentheses, from the bootstrap"), std::string::npos) << tex;
+  EXPECT_NE(tex.find("$-5.910 \\pm 0.075$ (0.081)"), std::string::npos) << tex;
+  const std::string boot = relation_table(v, TableFormat::kCsv, TableErrors::kBootstrap);
+  EXPECT_NE(boot.find("W_H: zero point alpha (mag),-5.910 +- 0.081"), std::string::npos) << boot;
+}
+
+TEST(Tables, LatexSpecialCharactersAreEscaped) {
+  // Issue 20: ~ and ^ went through raw. The ten special characters of LaTeX text mode.
+  EXPECT_EQ(escape_latex("a_b&c%d#e$f{g}h~i^j\\k"),
+            "a\\_b\\&c\\%d\\#e\\$f\\{g\\}h\\textasciitilde{}i\\textasciicircum{}j\\textbackslash{}k");
+}
+
+TEST(Tables, ErrorBudgetNamesTheQuantities) {
+  const nlohmann::json budget = {
+      {"schema", "rungcal-error-budget"},
+      {"relations",
+       {{{"name", "W_VI"},
+         {"parameters",
+          {{{"name", "parallax_offset_mas"}, {"baseline", -0.012}, {"baseline_error", 0.004},
+            {"categories", {{"zero_point", 0.002}}}, {"total", 0.002}}}}}}}};
+  const std::string md = error_budget_table(budget, TableFormat::kMarkdown);
+  EXPECT_NE(md.find("| W_VI: parallax offset (mas) |"), std::string::npos) << md;
+  const std::string tex = error_budget_table(budget, TableFormat::kLatex);
+  EXPECT_NE(tex.find("W\\_VI: $\\Delta\\varpi$ (mas)"), std::string::npos) << tex;
+  EXPECT_EQ(tex.find("parallax\\_offset"), std::string::npos) << tex;
+}
+
+TEST(Tables, EveryTableTheReportWritesCompilesInAnAastexDocument) {
+  // Runs in CI: scripts/setup-debian.sh test installs pdflatex with AASTeX (Debian's
+  // texlive-latex-base and texlive-publishers).
+  ASSERT_EQ(test::run_command("command -v pdflatex").exit_code, 0)
+      << "no pdflatex: run scripts/setup-debian.sh test (texlive-latex-base, texlive-publishers)";
   test::TempDir dir;
-  std::string doc = "\\documentclass{aastex631}\n\\begin{document}\n" +
-                    relation_table({two_relations(1, 0.0)}, TableFormat::kLatex) + "\\end{document}\n";
-  test::write_text(dir.file("t.tex"), doc);
-  auto r = test::run_command("cd " + dir.path() + " && pdflatex -interaction=nonstopmode t.tex");
+  StarTable stars;
+  for (const char* c : {"relation", "id", "reason"}) stars.add_column(c, ColumnType::kText);
+  stars.add_column("used", ColumnType::kBoolean);
+  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
+    stars.add_column(c, ColumnType::kReal);
+  for (const char* id : {"V~1^a", "X_{2}&#3", "back\\slash$%"}) {
+    stars.column("relation").push_text("W_H");
+    stars.column("id").push_text(id);
+    stars.column("reason").push_text("RUWE > 1.4 & 50% blended");
+    stars.column("used").push_boolean(false);
+    for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas"}) stars.column(c).push_real(1.0);
+    stars.column("residual").push_null();
+  }
+  const nlohmann::json budget = {
+      {"relations",
+       {{{"name", "W_H"},
+         {"parameters",
+          {{{"name", "alpha"}, {"baseline", -5.9}, {"baseline_error", 0.03}, {"categories", {{"zero_point", 0.01}}},
+            {"total", 0.01}}}}}}}};
+  const std::vector<Calibration> v = {two_relations(1, 0.0), two_relations(2, 0.01)};
+  std::string body;
+  for (TableErrors e : {TableErrors::kCovariance, TableErrors::kBootstrap, TableErrors::kBoth})
+    body += relation_table(v, TableFormat::kLatex, e);
+  body += star_table(stars, "W_H", TableFormat::kLatex) + error_budget_table(budget, TableFormat::kLatex);
+  test::write_text(dir.file("t.tex"), "\\documentclass{aastex631}\n\\begin{document}\n" + body + "\\end{document}\n");
+  auto r = test::run_command("cd " + dir.path() + " && pdflatex -interaction=nonstopmode -halt-on-error t.tex");
   EXPECT_EQ(r.exit_code, 0) << r.output;
+  EXPECT_TRUE(test::file_exists(dir.file("t.pdf")));
 }
 
 // A calibration (alpha -5, beta -3 at P0 = 10 d, no offset) and residuals of stars at

@@ -318,7 +318,8 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
     const nlohmann::json& rel = c.relation(relation);
     v.push_back(c.version());
     a.push_back(parameter(rel, "alpha")), ae.push_back(parameter_error(rel, "alpha"));
-    o.push_back(parameter(rel, "parallax_offset_mas") * 1e3), oe.push_back(parameter_error(rel, "parallax_offset_mas") * 1e3);
+    // In mas, as in the tables and the calibration file (issue 20: one unit everywhere).
+    o.push_back(parameter(rel, "parallax_offset_mas")), oe.push_back(parameter_error(rel, "parallax_offset_mas"));
   }
   auto range = [](const std::vector<double>& y, const std::vector<double>& e) {
     double lo = 1e9, hi = -1e9;
@@ -348,7 +349,7 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   series(top, a, ae);
   series(bottom, o, oe);
   axes(cr, top, "", "alpha (mag)", false, 1.0);
-  axes(cr, bottom, "version", "parallax offset (micro-arcsec)", true, 1.0);  // versions are whole numbers
+  axes(cr, bottom, "version", "parallax offset (mas)", true, 1.0);  // versions are whole numbers
   text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}", versions.back().name(), relation), 13, 0.0, 1.0);
   commit_figure(std::move(surface), out, path);
   record_plot_box(s, top);

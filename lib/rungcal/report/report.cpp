@@ -99,7 +99,7 @@ ReportOutcome write_report(const ReportOptions& o) {
   const char* ext[] = {"tex", "csv", "md"};
   for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
     const std::string e = ext[static_cast<int>(f)];
-    write_file_atomically(o.out_dir + "/relations." + e, relation_table(in.versions, f));
+    write_file_atomically(o.out_dir + "/relations." + e, relation_table(in.versions, f, o.table_errors));
     ++outcome.tables;
     if (in.budget) {
       write_file_atomically(o.out_dir + "/error_budget." + e, error_budget_table(*in.budget, f));

@@ -4,6 +4,8 @@
 #include <string>
 #include <vector>
 
+#include "rungcal/report/tables.hpp"
+
 namespace rungcal {
 
 struct ReportOptions {
@@ -13,6 +15,7 @@ struct ReportOptions {
   std::string lightcurves;         // rungcal-lightcurve product ("" = no light-curve figures)
   std::vector<std::string> stars;  // light curves to draw; empty = those with a kept periodogram
   std::string grid;                // rungcal-grid result (grid.json): the error budget table too
+  TableErrors table_errors = TableErrors::kCovariance;  // errors in the relation table
 
   // "" when usable, else "field: rule".
   std::string check() const;

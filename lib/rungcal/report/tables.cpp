@@ -23,13 +23,11 @@ const Quantity kQuantities[] = {
     {"sigma_int", "intrinsic scatter (mag)", "$\\sigma_{\\rm int}$ (mag)"},
 };
 
-std::string escape_latex(const std::string& s) {
-  std::string out;
-  for (char c : s) {
-    if (c == '_' || c == '&' || c == '%' || c == '#' || c == '$') out += '\\';
-    out += c;
-  }
-  return out;
+// The quantity's label, or the parameter's own name when it has none.
+std::string quantity_label(const std::string& parameter, bool latex) {
+  for (const auto& q : kQuantities)
+    if (parameter == q.parameter) return latex ? q.latex : q.label;
+  return latex ? escape_latex(parameter) : parameter;
 }
 
 std::string quote_csv(const std::string& s) {
@@ -39,19 +37,28 @@ std::string quote_csv(const std::string& s) {
   return out + "\"";
 }
 
-// One cell per format: "v +- e" (plain), "$v \pm e$" (LaTeX), "(fixed)" for fixed ones.
-std::string cell(const nlohmann::json& p, TableFormat f) {
+double error_of(const nlohmann::json& p, const char* key) {
+  return p.contains(key) && p.at(key).is_number() ? p.at(key).get<double>() : NAN;
+}
+
+// One cell per format: "v +- e" (plain), "$v \pm e$" (LaTeX), "(fixed)" for fixed ones;
+// with both errors, the bootstrap's follows in parentheses, rounded like the first.
+std::string cell(const nlohmann::json& p, TableFormat f, TableErrors errors) {
   double v = p.at("value");
   const bool fixed = p.value("mode", "free") == "fixed";
-  double e = fixed || p.at("error").is_null() ? NAN : p.at("error").get<double>();
+  const double cov = error_of(p, "error"), boot = error_of(p, "bootstrap_error");
+  const double e = fixed ? NAN : errors == TableErrors::kBootstrap ? boot : cov;
   Rounded r = round_for_print(v, e);
   if (fixed) r.value = fmt::format("{}", v);  // a fixed value prints as it was given
+  std::string second;
+  if (errors == TableErrors::kBoth && !fixed && std::isfinite(boot) && !r.error.empty())
+    second = fmt::format(" ({:.{}f})", boot, std::max(r.decimals, 0));
   if (f == TableFormat::kLatex) {
     if (fixed) return fmt::format("${}$ (fixed)", r.value);
-    return r.error.empty() ? fmt::format("${}$", r.value) : fmt::format("${} \\pm {}$", r.value, r.error);
+    return r.error.empty() ? fmt::format("${}$", r.value) : fmt::format("${} \\pm {}${}", r.value, r.error, second);
   }
   if (fixed) return r.value + " (fixed)";
-  return r.error.empty() ? r.value : fmt::format("{} +- {}", r.value, r.error);
+  return r.error.empty() ? r.value : fmt::format("{} +- {}{}", r.value, r.error, second);
 }
 
 struct Grid {
@@ -95,7 +102,48 @@ std::string render(const Grid& g, TableFormat f, const std::string& caption, con
   return out;
 }
 
+// The caption of a relation table: the relation's equation, every relation's pivot, and
+// which errors the table shows.
+std::string relation_caption(const std::vector<Calibration>& versions, const std::vector<std::string>& relations,
+                             TableErrors errors, bool latex) {
+  std::string names, pivots;
+  for (const auto& c : versions) names += (names.empty() ? "" : ", ") + (latex ? escape_latex(c.label()) : c.label());
+  for (const auto& rel : relations) {
+    double pivot = NAN;
+    for (const auto& c : versions)
+      if (const nlohmann::json* r = c.find_relation(rel)) pivot = r->value("pivot_log_period", NAN);
+    pivots += fmt::format("{}{} {}", pivots.empty() ? "" : ", ", latex ? escape_latex(rel) : rel, pivot);
+  }
+  const char* equation =
+      latex ? "$M = \\alpha + \\beta\\,(\\log P - \\log P_0) + \\gamma\\,{\\rm [Fe/H]}$, with slope "
+              "$\\beta_{\\rm long}$ above a break where fitted"
+            : "M = alpha + beta (log P - log P0) + gamma [Fe/H], with slope beta_long above a break where fitted";
+  const char* shown = errors == TableErrors::kCovariance ? "Errors from the covariance at the optimum (inverse Hessian)."
+                      : errors == TableErrors::kBootstrap
+                          ? "Errors from the bootstrap (half the 16th-84th percentile range)."
+                          : "Errors from the covariance at the optimum; in parentheses, from the bootstrap.";
+  return fmt::format("Period-luminosity relations ({}): {}; pivot {} {}. {}", names, equation,
+                     latex ? "$\\log P_0$:" : "log P0:", pivots, shown);
+}
+
 }  // namespace
+
+std::string escape_latex(const std::string& s) {
+  std::string out;
+  for (char c : s) {
+    switch (c) {
+      case '\\': out += "\\textbackslash{}"; break;
+      case '~': out += "\\textasciitilde{}"; break;
+      case '^': out += "\\textasciicircum{}"; break;
+      case '_': case '&': case '%': case '#': case '$': case '{': case '}':
+        out += '\\';
+        out += c;
+        break;
+      default: out += c;
+    }
+  }
+  return out;
+}
 
 Rounded round_for_print(double value, double error) {
   Rounded r;
@@ -127,7 +175,7 @@ Rounded round_for_print(double value, double error) {
   return r;
 }
 
-std::string relation_table(const std::vector<Calibration>& versions, TableFormat f) {
+std::string relation_table(const std::vector<Calibration>& versions, TableFormat f, TableErrors errors) {
   Grid g;
   g.header.push_back(f == TableFormat::kLatex ? "Relation / quantity" : "relation / quantity");
   for (const auto& c : versions) g.header.push_back(f == TableFormat::kLatex ? escape_latex(c.label()) : c.label());
@@ -145,7 +193,7 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
         std::string text = f == TableFormat::kLatex ? "\\nodata" : "";
         if (r)
           for (const auto& p : r->at("parameters"))
-            if (p.at("name") == q.parameter) text = cell(p, f), any = true;
+            if (p.at("name") == q.parameter) text = cell(p, f, errors), any = true;
         row.push_back(text);
       }
       if (any) g.rows.push_back(row);
@@ -157,16 +205,14 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
     }
     g.rows.push_back(row);
   }
-  std::string names;
-  for (const auto& c : versions) names += (names.empty() ? "" : ", ") + escape_latex(c.label());
-  return render(g, f, fmt::format("Period-luminosity relations ({}). Errors from the covariance at the optimum.", names),
-                "tab:pl");
+  return render(g, f, relation_caption(versions, relations, errors, f == TableFormat::kLatex), "tab:pl");
 }
 
 std::string star_table(const StarTable& t, const std::string& relation, TableFormat f) {
   Grid g;
-  g.header = {"id", "log P", "m0 (mag)", "parallax (mas)", "residual (sigma)", "used", "note"};
-  if (f == TableFormat::kLatex) g.header = {"ID", "$\\log P$", "$m_0$ (mag)", "$\\varpi$ (mas)", "$r/\\sigma$", "Used", "Note"};
+  g.header = {"id", "log P", "m0 (mag)", "parallax (mas)", "parallax error (mas)", "residual (sigma)", "used", "note"};
+  if (f == TableFormat::kLatex)
+    g.header = {"ID", "$\\log P$", "$m_0$ (mag)", "$\\varpi$ (mas)", "$\\sigma_\\varpi$ (mas)", "$r/\\sigma$", "Used", "Note"};
   auto num = [&](const std::string& col, std::size_t i, int decimals) {
     if (!t.has(col) || t.column(col).is_null(i)) return std::string(f == TableFormat::kLatex ? "\\nodata" : "");
     return fmt::format("{:.{}f}", t.column(col).real[i], decimals);
@@ -176,8 +222,8 @@ std::string star_table(const StarTable& t, const std::string& relation, TableFor
     const bool used = t.column("used").boolean[i] != 0;
     std::string id = t.column("id").text[i], reason = t.column("reason").is_null(i) ? "" : t.column("reason").text[i];
     if (f == TableFormat::kLatex) id = escape_latex(id), reason = escape_latex(reason);
-    g.rows.push_back({id, num("log_period_f", i, 4), num("m0", i, 3), num("parallax_corrected_mas", i, 4), num("residual", i, 2),
-                      used ? "yes" : "no", reason});
+    g.rows.push_back({id, num("log_period_f", i, 4), num("m0", i, 3), num("parallax_corrected_mas", i, 4),
+                      num("parallax_err_mas", i, 4), num("residual", i, 2), used ? "yes" : "no", reason});
   }
   return render(g, f, "Calibrators of the " + escape_latex(relation) + " relation.", "tab:stars");
 }
@@ -202,7 +248,7 @@ std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {
       const double error = p.at("baseline_error").is_null() ? NAN : p.at("baseline_error").get<double>();
       const Rounded r = round_for_print(value, error);
       const std::string name = p.at("name").get<std::string>();
-      std::vector<std::string> row = {fmt::format("{}: {}", latex ? escape_latex(rel_name) : rel_name, latex ? escape_latex(name) : name)};
+      std::vector<std::string> row = {fmt::format("{}: {}", latex ? escape_latex(rel_name) : rel_name, quantity_label(name, latex))};
       row.push_back(r.error.empty() ? r.value : (latex ? fmt::format("${} \\pm {}$", r.value, r.error) : fmt::format("{} +- {}", r.value, r.error)));
       // Shifts one decimal finer than the baseline's error, with their size in its sigmas.
       auto shift_cell = [&](double q) {

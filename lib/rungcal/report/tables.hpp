@@ -27,13 +27,27 @@ inline constexpr EnumTable<TableFormat, 3> kTableFormatNames{{{
     {TableFormat::kMarkdown, "markdown"},
 }}};
 
+// Which errors a relation table shows: the covariance's (inverse Hessian at the optimum),
+// the bootstrap's (half the 16-84 percentile range), or both (the bootstrap's in parentheses).
+enum class TableErrors { kCovariance, kBootstrap, kBoth };
+inline constexpr EnumTable<TableErrors, 3> kTableErrorsNames{{{
+    {TableErrors::kCovariance, "covariance"},
+    {TableErrors::kBootstrap, "bootstrap"},
+    {TableErrors::kBoth, "both"},
+}}};
+
 // The relation table: one row per relation and quantity (zero point, slope(s), metallicity
 // term, parallax offset, intrinsic scatter, N), one column per calibration version, side
-// by side. LaTeX is an AASTeX deluxetable.
-std::string relation_table(const std::vector<Calibration>& versions, TableFormat format);
+// by side. LaTeX is an AASTeX deluxetable. The caption gives the relation's equation, each
+// relation's pivot log P0 and which errors are shown.
+std::string relation_table(const std::vector<Calibration>& versions, TableFormat format,
+                           TableErrors errors = TableErrors::kCovariance);
+
+// Text safe in LaTeX's text mode: the ten special characters escaped (\ # $ % & _ { } ~ ^).
+std::string escape_latex(const std::string& text);
 
 // The per-star appendix of one relation from a residuals table (fit_residuals.fits): id,
-// log P, magnitude, parallax, normalised residual, used, and why not.
+// log P, magnitude, parallax with its error, normalised residual, used, and why not.
 std::string star_table(const StarTable& residuals, const std::string& relation, TableFormat format);
 
 // The systematic error budget of a rungcal-grid run (grid.json): per relation and

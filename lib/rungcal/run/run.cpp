@@ -423,6 +423,55 @@ void check_run_folder(const RunOptions& o, bool create) {
 
 namespace {
 
+// Every stage's options, read and checked from the pipeline config's stage configs, with
+// the run folder's product paths filled in. Reading writes nothing.
+struct StageOptions {
+  std::optional<LightCurveOptions> lc_opt;
+  IngestOptions ingest;
+  DereddenOptions deredden;
+  FitOptions fit;
+  std::optional<GridOptions> grid;
+  std::optional<IngestOptions> t_ingest;
+  std::optional<DereddenOptions> t_deredden;
+
+  explicit StageOptions(const RunOptions& o) {
+    if (!o.lightcurve_config.empty()) {
+      lc_opt = lightcurve_options_from_file(o.lightcurve_config);
+      lc_opt->output_path = in_folder(o, "lightcurves.fits");
+      lc_opt->summary_csv_path = in_folder(o, "lightcurves.csv");
+    }
+    ingest = ingest_options_from_file(o.ingest_config);
+    if (!o.ingest_input.empty()) ingest.input_path = o.ingest_input;
+    ingest.catalog_path = in_folder(o, "catalog.fits");
+    ingest.rejects_csv_path = in_folder(o, "catalog_rejects.csv");
+    if (lc_opt) ingest.lightcurves.summary_path = lc_opt->output_path;
+    deredden = deredden_options_from_file(o.deredden_config);
+    deredden.input_path = ingest.catalog_path;
+    deredden.output_path = in_folder(o, "catalog_dereddened.fits");
+    fit = fit_options_from_file(o.fit_config);
+    fit.input_path = deredden.output_path;
+    fit.output_path = in_folder(o, "fit.json");
+    fit.residuals_path = in_folder(o, "fit_residuals.fits");
+    if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap;
+    check_apply_relation(o, fit);  // before anything is written (issue 15)
+    if (!o.grid_config.empty()) {
+      grid = grid_options_from_file(o.grid_config);
+      grid->catalog_path = ingest.catalog_path;
+      grid->deredden_config = o.deredden_config;
+      grid->fit_config = o.fit_config;
+      grid->output_folder = in_folder(o, "grid");
+    }
+    if (!o.apply_relation.empty()) {
+      t_ingest = ingest_options_from_file(o.targets_ingest_config);
+      t_ingest->catalog_path = in_folder(o, "targets.fits");
+      t_ingest->rejects_csv_path = in_folder(o, "targets_rejects.csv");
+      t_deredden = deredden_options_from_file(o.targets_deredden_config);
+      t_deredden->input_path = t_ingest->catalog_path;
+      t_deredden->output_path = in_folder(o, "targets_dereddened.fits");
+    }
+  }
+};
+
 void record_run(const RunOptions& o, int code, const std::string& summary) {
   append_run_record(in_folder(o, "run_history.json"), {utc_now_iso8601(), code, summary});
 }
@@ -445,6 +494,11 @@ void refresh_site(const RunOptions& o, const RunOutcome& outcome, bool ran_any) 
 RunOutcome run_chain(const RunOptions& o, bool& held_lock);
 
 }  // namespace
+
+void check_pipeline(const RunOptions& o) {
+  throw_if_invalid(o.check(), o.config_file);
+  StageOptions checked(o);
+}
 
 RunOutcome run_pipeline(const RunOptions& o) {
   bool held_lock = false;
@@ -470,47 +524,11 @@ namespace {
 
 RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   throw_if_invalid(o.check(), o.config_file);
-  check_run_folder(o);
   // Every stage config is read (and checked) before anything runs or is locked: a typo
   // stops the run at once, not halfway.
-  std::optional<LightCurveOptions> lc_opt;
-  if (!o.lightcurve_config.empty()) {
-    lc_opt = lightcurve_options_from_file(o.lightcurve_config);
-    lc_opt->output_path = in_folder(o, "lightcurves.fits");
-    lc_opt->summary_csv_path = in_folder(o, "lightcurves.csv");
-  }
-  IngestOptions ingest = ingest_options_from_file(o.ingest_config);
-  if (!o.ingest_input.empty()) ingest.input_path = o.ingest_input;
-  ingest.catalog_path = in_folder(o, "catalog.fits");
-  ingest.rejects_csv_path = in_folder(o, "catalog_rejects.csv");
-  if (lc_opt) ingest.lightcurves.summary_path = lc_opt->output_path;
-  DereddenOptions deredden = deredden_options_from_file(o.deredden_config);
-  deredden.input_path = ingest.catalog_path;
-  deredden.output_path = in_folder(o, "catalog_dereddened.fits");
-  FitOptions fit = fit_options_from_file(o.fit_config);
-  fit.input_path = deredden.output_path;
-  fit.output_path = in_folder(o, "fit.json");
-  fit.residuals_path = in_folder(o, "fit_residuals.fits");
-  if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap;
-  check_apply_relation(o, fit);
-  std::optional<GridOptions> grid;
-  if (!o.grid_config.empty()) {
-    grid = grid_options_from_file(o.grid_config);
-    grid->catalog_path = ingest.catalog_path;
-    grid->deredden_config = o.deredden_config;
-    grid->fit_config = o.fit_config;
-    grid->output_folder = in_folder(o, "grid");
-  }
-  std::optional<IngestOptions> t_ingest;
-  std::optional<DereddenOptions> t_deredden;
-  if (!o.apply_relation.empty()) {
-    t_ingest = ingest_options_from_file(o.targets_ingest_config);
-    t_ingest->catalog_path = in_folder(o, "targets.fits");
-    t_ingest->rejects_csv_path = in_folder(o, "targets_rejects.csv");
-    t_deredden = deredden_options_from_file(o.targets_deredden_config);
-    t_deredden->input_path = t_ingest->catalog_path;
-    t_deredden->output_path = in_folder(o, "targets_dereddened.fits");
-  }
+  StageOptions so(o);
+  check_run_folder(o);
+  auto& [lc_opt, ingest, deredden, fit, grid, t_ingest, t_deredden] = so;
 
   FileLock lock(in_folder(o, ".run.lock"), o.lock_wait_seconds, "another rungcal-run");
   held_lock = true;

@@ -76,6 +76,11 @@ struct RunOutcome {
   std::string summary;              // one line for cron mail
 };
 
+// Reads and checks every stage config the pipeline config names, writing nothing: what
+// rungcal-run does first, before it makes the run folder (issue 15: validate everything
+// before writing anything). Throws InputError.
+void check_pipeline(const RunOptions& options);
+
 // Runs the chain in order, each stage only when the hash of its config and inputs changed
 // (or its products are missing), under an exclusive lock on the run folder. Stage products
 // are written atomically and the run state after each stage, so a killed run loses at most
