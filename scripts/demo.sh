@@ -40,6 +40,6 @@ for f in demo_out/lightcurves.fits demo_out/lightcurves.csv demo_out/catalog.fit
          demo_out/store/halden-peak/latest demo_out/distances.fits demo_out/distances.csv demo_out/distances_hosts.csv \
          demo_out/report/relations.tex demo_out/report/relations.md demo_out/report/stars_W_VI.tex \
          demo_out/report/pl_W_VI.pdf demo_out/report/versions_W_VI.pdf demo_out/report/lightcurve_HPO-C0001.pdf \
-         demo_out/run_state.json demo_out/logs/rungcal-run.log; do
+         demo_out/site/index.html demo_out/run_state.json demo_out/logs/rungcal-run.log; do
   echo "  $(pwd)/$f"
 done

@@ -301,6 +301,46 @@ TEST(Figures, PointsSitWhereTheDataAreAndRejectedStarsShowTheirMarker) {
   cairo_surface_destroy(img);
 }
 
+// Pixels of a colour inside a rectangle of the image.
+int pixels_in_box(cairo_surface_t* img, double left, double top, double right, double bottom, const double rgb[3]) {
+  const int stride = cairo_image_surface_get_stride(img);
+  const unsigned char* data = cairo_image_surface_get_data(img);
+  int count = 0;
+  for (int y = static_cast<int>(top); y < static_cast<int>(bottom); ++y)
+    for (int x = static_cast<int>(left); x < static_cast<int>(right); ++x) {
+      const unsigned char* p = data + y * stride + 4 * x;
+      if (std::abs(p[2] - 255 * rgb[0]) < 30 && std::abs(p[1] - 255 * rgb[1]) < 30 && std::abs(p[0] - 255 * rgb[2]) < 30) ++count;
+    }
+  return count;
+}
+
+TEST(Figures, ThePlDiagramHasAKeyAndCountsTheStarsItCannotDraw) {
+  // Issue 20, read as a referee: a legend, and counts that add up (a star with a negative
+  // parallax was used by the fit but not drawn, and the title said nothing).
+  test::TempDir dir;
+  FigureInputs f = figure_inputs();
+  f.res.column("parallax_corrected_mas").real[1] = -0.2;  // used, but no magnitude to draw
+  FigureSummary s = pl_diagram(f.cal, "X", f.res, FigureFormat::kPng, dir.file("pl.png"));
+  EXPECT_EQ(s.used_points, 3);
+  EXPECT_EQ(s.not_drawn_points, 1);
+  ASSERT_GT(s.legend_right, s.legend_left);
+  EXPECT_GE(s.legend_left, s.box_left);
+  EXPECT_LE(s.legend_right, s.box_right);
+  cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("pl.png").c_str());
+  ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+  const double blue[3] = {0.0, 0.447, 0.698}, vermillion[3] = {0.835, 0.369, 0.0};
+  // The key's own markers: a filled circle (used) and an open square (refused).
+  EXPECT_GT(pixels_in_box(img, s.legend_left, s.legend_top, s.legend_left + 24, s.legend_top + 22, blue), 20);
+  EXPECT_GT(pixels_in_box(img, s.legend_left, s.legend_top + 22, s.legend_left + 24, s.legend_top + 40, vermillion), 10);
+  cairo_surface_destroy(img);
+}
+
+TEST(Figures, TickLabelsUseATrueMinusSign) {
+  EXPECT_EQ(axis_number(-1.5), "\u22121.5");
+  EXPECT_EQ(axis_number(2), "2");
+  EXPECT_EQ(axis_number(-0.0), "0");
+}
+
 TEST(Figures, ResidualTrendsShowEachStarWithAResidual) {
   test::TempDir dir;
   FigureInputs f = figure_inputs();

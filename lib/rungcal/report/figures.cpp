@@ -109,6 +109,16 @@ void text(cairo_t* cr, double x, double y, const std::string& s, double size, do
   cairo_restore(cr);
 }
 
+}  // namespace
+
+std::string axis_number(double v) {
+  std::string s = fmt::format("{:g}", v + 0.0);  // + 0.0: no "-0"
+  if (!s.empty() && s[0] == '-') s.replace(0, 1, "\u2212");
+  return s;
+}
+
+namespace {
+
 void axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::string& ylabel, bool x_numbers = true,
           double min_x_step = 0.0) {
   cairo_set_source_rgb(cr, 0, 0, 0);
@@ -120,13 +130,13 @@ void axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::str
     cairo_move_to(cr, p.px(x), p.bottom);
     cairo_line_to(cr, p.px(x), p.bottom - 6);
     cairo_stroke(cr);
-    if (x_numbers) text(cr, p.px(x), p.bottom + 6, fmt::format("{:g}", std::round(x / sx) * sx + 0.0), 13, 0.5, 1.0);
+    if (x_numbers) text(cr, p.px(x), p.bottom + 6, axis_number(std::round(x / sx) * sx), 13, 0.5, 1.0);
   }
   for (double y = std::ceil(std::min(p.y0, p.y1) / sy) * sy; y <= std::max(p.y0, p.y1) + 1e-9; y += sy) {
     cairo_move_to(cr, p.left, p.py(y));
     cairo_line_to(cr, p.left + 6, p.py(y));
     cairo_stroke(cr);
-    text(cr, p.left - 6, p.py(y), fmt::format("{:g}", std::round(y / sy) * sy + 0.0), 13, 1.0, 0.5);
+    text(cr, p.left - 6, p.py(y), axis_number(std::round(y / sy) * sy), 13, 1.0, 0.5);
   }
   if (!xlabel.empty()) text(cr, (p.left + p.right) / 2, p.bottom + 28, xlabel, 15, 0.5, 1.0);
   text(cr, p.left - 52, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true);
@@ -143,6 +153,45 @@ void marker(cairo_t* cr, double x, double y, bool used) {
     cairo_rectangle(cr, x - 4, y - 4, 8, 8);
     cairo_stroke(cr);
   }
+}
+
+// The PL diagram's key, in the top panel's lower right (long periods are bright, so that
+// corner holds faint long-period stars only rarely): used and refused markers with their
+// counts, the relation and its scatter band, and the arrow of an open error bar.
+void pl_legend(cairo_t* cr, const Panel& top, const std::string& relation, const FigureSummary& s,
+               FigureSummary& where) {
+  const double w = 250, h = 92, x = top.right - w - 8, y = top.bottom - h - 8;
+  where.legend_left = x, where.legend_top = y, where.legend_right = x + w, where.legend_bottom = y + h;
+  cairo_set_source_rgba(cr, 1, 1, 1, 0.92);
+  cairo_rectangle(cr, x, y, w, h);
+  cairo_fill_preserve(cr);
+  cairo_set_source_rgb(cr, 0.6, 0.6, 0.6);
+  cairo_set_line_width(cr, 0.8);
+  cairo_stroke(cr);
+  const double row = 17, mx = x + 14, tx = x + 30;
+  marker(cr, mx, y + row * 0.8, true);
+  text(cr, tx, y + row * 0.8, fmt::format("used in the fit ({})", s.used_points), 11, 0.0, 0.5);
+  marker(cr, mx, y + row * 1.8, false);
+  text(cr, tx, y + row * 1.8, fmt::format("refused ({})", s.rejected_points), 11, 0.0, 0.5);
+  cairo_set_source_rgba(cr, kGrey[0], kGrey[1], kGrey[2], 0.35);
+  cairo_rectangle(cr, mx - 9, y + row * 2.8 - 5, 18, 10);
+  cairo_fill(cr);
+  cairo_set_source_rgb(cr, 0, 0, 0);
+  cairo_set_line_width(cr, 1.5);
+  cairo_move_to(cr, mx - 9, y + row * 2.8);
+  cairo_line_to(cr, mx + 9, y + row * 2.8);
+  cairo_stroke(cr);
+  text(cr, tx, y + row * 2.8, fmt::format("{} relation at [Fe/H] = 0, \u00b1\u03c3_int", relation), 11, 0.0, 0.5);
+  cairo_set_source_rgba(cr, 0.3, 0.3, 0.3, 0.8);
+  cairo_set_line_width(cr, 0.9);
+  const double ay = y + row * 3.8 - 5;
+  cairo_move_to(cr, mx, ay + 10);
+  cairo_line_to(cr, mx, ay);
+  cairo_move_to(cr, mx - 3, ay + 5);
+  cairo_line_to(cr, mx, ay);
+  cairo_line_to(cr, mx + 3, ay + 5);
+  cairo_stroke(cr);
+  text(cr, tx, y + row * 3.8, "parallax \u2212 error \u2264 0: no bright limit", 11, 0.0, 0.5);
 }
 
 double parameter(const nlohmann::json& rel, const std::string& name, double fallback = 0.0) {
@@ -178,7 +227,10 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
     Point p{x, 0, 0, 0, res.column("residual").is_null(i) ? NAN : res.column("residual").real[i], res.column("used").boolean[i] != 0, false};
     if (kind == "parallax" && !res.column("parallax_corrected_mas").is_null(i)) {
       const double pi = res.column("parallax_corrected_mas").real[i] - offset, e = res.column("parallax_err_mas").real[i];
-      if (!(pi > 0)) continue;  // no magnitude to plot
+      if (!(pi > 0)) {  // no magnitude to plot: counted and said in the title
+        ++s.not_drawn_points;
+        continue;
+      }
       auto abs_mag = [&](double q) { return m0 - 5.0 * std::log10(100.0 / q); };
       p.y = abs_mag(pi);
       p.lo = abs_mag(pi + e);  // a larger parallax: a nearer, so intrinsically fainter, star
@@ -236,7 +288,8 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
     marker(cr, top.px(p.x), top.py(p.y), p.used);
   }
   cairo_restore(cr);
-  axes(cr, top, "", "M (mag)", false);
+  pl_legend(cr, top, relation, s, s);
+  axes(cr, top, "", fmt::format("M in {} (mag)", relation), false);
   // Residuals.
   cairo_set_source_rgb(cr, 0, 0, 0);
   cairo_set_line_width(cr, 0.8);
@@ -246,9 +299,9 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   for (const auto& p : pts)
     if (std::isfinite(p.r)) marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.used);
   axes(cr, bottom, "log10 P (days)", "r / sigma");
-  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}   used: {}   rejected: {}", cal.label(), relation, s.used_points,
-                                                    s.rejected_points),
-       13, 0.0, 1.0);
+  const std::string not_drawn =
+      s.not_drawn_points > 0 ? fmt::format("   not drawn: {} (parallax \u2264 0)", s.not_drawn_points) : "";
+  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}{}", cal.label(), relation, not_drawn), 13, 0.0, 1.0);
   commit_figure(std::move(surface), out, path);
   record_plot_box(s, top);
   return s;

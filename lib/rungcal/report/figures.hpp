@@ -21,11 +21,16 @@ inline constexpr EnumTable<FigureFormat, 3> kFigureFormatNames{{{
 // Where a figure put things, for tests and for a caption.
 struct FigureSummary {
   int used_points = 0, rejected_points = 0;
+  int not_drawn_points = 0;  // PL diagram: stars with no magnitude to draw (parallax <= 0)
+  double legend_left = 0, legend_right = 0, legend_top = 0, legend_bottom = 0;  // its key, if any
   // Plot box of the top panel in output units (PNG pixels), and its data ranges.
   double box_left = 0, box_right = 0, box_top = 0, box_bottom = 0;
   double x_min = 0, x_max = 0, y_min = 0, y_max = 0;
   double x_to_output(double x) const { return box_left + (x - x_min) / (x_max - x_min) * (box_right - box_left); }
 };
+
+// A tick label: "{:g}" with a true minus sign (U+2212), as typeset mathematics has it.
+std::string axis_number(double value);
 
 // The period-luminosity diagram of one relation (cairo): absolute magnitudes from the
 // calibrators' corrected parallaxes (M = m0 - 5 log10(100 / (pi - offset)), asymmetric
@@ -33,7 +38,9 @@ struct FigureSummary {
 // off the diagram and counted) or known distance moduli, against log P; the fitted relation
 // at [Fe/H] = 0 with its intrinsic-scatter band; used stars as filled blue circles and
 // rejected ones as open vermillion squares (Okabe & Ito colours: legible to colour-blind
-// readers, and the shapes differ in greyscale); a panel of normalised residuals below.
+// readers, and the shapes differ in greyscale), a key naming each with its count and the
+// open-bar arrow, the band in the y label, the stars not drawn counted in the title; a
+// panel of normalised residuals below.
 FigureSummary pl_diagram(const Calibration& calibration, const std::string& relation, const StarTable& residuals,
                          FigureFormat format, const std::string& path);
 
