@@ -23,6 +23,7 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
+#include "rungcal/ingest/column_keys.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/table_source.hpp"
@@ -559,8 +560,7 @@ IngestOptions ingest_options_from_config(Config& config) {
     for (const auto& k : cols->keys()) {
       if (!find_quantity(k))
         throw InputError({config.file(), cols->line_of(k), "columns." + k, "line", "key"},
-                         "unknown_config_key",
-                         "not a catalog quantity (see docs/file-formats.md for the list)");
+                         "unknown_config_key", unknown_column_key_message(k));
       o.quantities[k] = value_source_from(*cols, k);
     }
   }
