@@ -539,7 +539,7 @@ std::string IngestOptions::check() const {
   if (!input_is_fits) {
     if (std::string t = text.check(); !t.empty()) return "source." + t;
   }
-  return "";
+  return unit_checks.check();
 }
 
 IngestOptions ingest_options_from_config(Config& config) {
@@ -641,6 +641,25 @@ IngestOptions ingest_options_from_config(Config& config) {
       v->fail("id_variants",
               fmt::format("'{}' is not one of: {}", variants, kIdVariantPolicyNames.choices()));
     o.id_variants = *parsed;
+    const std::string unit_policy = v->string_or("unit_checks", "refuse");
+    auto policy = kUnitCheckPolicyNames.parse(unit_policy);
+    if (!policy)
+      v->fail("unit_checks",
+              fmt::format("'{}' is not one of: {}", unit_policy, kUnitCheckPolicyNames.choices()));
+    o.unit_checks.policy = *policy;
+    PlausibleRange plx{o.unit_checks.parallax_median_min_mas, o.unit_checks.parallax_median_max_mas};
+    range(*v, "parallax_median_range_mas", plx);
+    o.unit_checks.parallax_median_min_mas = plx.min;
+    o.unit_checks.parallax_median_max_mas = plx.max;
+    if (auto by_class = v->section("class_period_median_range_d"))
+      for (const auto& cls : by_class->keys()) {
+        if (!kPulsatorClassNames.parse(cls))
+          by_class->fail(cls, fmt::format("not a pulsator class (known: {})",
+                                          kPulsatorClassNames.choices()));
+        PlausibleRange r;
+        range(*by_class, cls, r);
+        o.unit_checks.class_period_median_d[cls] = {r.min, r.max};
+      }
   }
   if (auto lc = root.section("lightcurves")) {
     o.lightcurves.summary_path = config.resolve_path(lc->require_string("summary"));
@@ -725,6 +744,46 @@ GroupMapping resolve_group(const IngestOptions& o, const SourceTable& in) {
     m.extra_columns.push_back(&in.table.column(e.column));
   }
   return m;
+}
+
+// The mapped parallaxes and periods (by class) of one group of rows, in canonical units and
+// before any row rule, for the unit checks (unit_sanity.hpp).
+UnitSample unit_sample(const IngestOptions& o, const GroupMapping& m, const SourceTable& in) {
+  UnitSample s;
+  s.file = o.input_path;
+  auto value = [](const Resolved& r, std::size_t row) -> std::optional<double> {
+    try {
+      return number_at(r, row);
+    } catch (const RowReject&) {
+      return std::nullopt;
+    }
+  };
+  auto unit_of = [&](const std::string& key, const Resolved& r) {
+    const std::string& given = o.quantities.at(key).unit;
+    return given.empty() ? r.column->unit : given;
+  };
+  const std::size_t n = in.table.rows();
+  if (auto it = m.quantities.find("parallax"); it != m.quantities.end() && it->second.column) {
+    s.parallax_column = it->second.column_name;
+    s.parallax_unit = unit_of("parallax", it->second);
+    for (std::size_t r = 0; r < n; ++r)
+      if (auto v = value(it->second, r)) s.parallax_mas.push_back(*v);
+  }
+  const Resolved& period = m.at("period");
+  if (period.column) {
+    s.period_column = period.column_name;
+    s.period_unit = unit_of("period", period);
+    const Resolved& cls = m.at("pulsator_class");
+    std::string scratch;
+    for (std::size_t r = 0; r < n; ++r) {
+      auto v = value(period, r);
+      const std::string* text = text_ref(cls, r, scratch);
+      if (!v || !text) continue;
+      std::string c = canonical_choice(*text, o.class_aliases, builtin_class_aliases(), false);
+      if (!c.empty()) s.period_d_by_class[c].push_back(*v);
+    }
+  }
+  return s;
 }
 
 // The catalog's columns (a schema without rows) and where each kind of value goes in it.
@@ -1229,7 +1288,12 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
   // each group fills a copy.
   std::optional<CatalogLayout> layout;
   auto process = [&](const SourceTable& in) {
-    if (!layout) layout = make_catalog_layout(o, resolve_group(o, in));
+    if (!layout) {
+      // The first group (chunk_rows rows) is the sample the unit checks look at.
+      const GroupMapping mapping = resolve_group(o, in);
+      apply_unit_checks(unit_sample(o, mapping, in), o.unit_checks);
+      layout = make_catalog_layout(o, mapping);
+    }
     return check_group(o, in, *layout);
   };
   IdRegistry ids(expected);
