@@ -26,6 +26,8 @@
 #include "rungcal/ingest/column_keys.hpp"
 #include "rungcal/ingest/lightcurve_join.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/ecsv_io.hpp"
+#include "rungcal/table/votable_io.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/table_source.hpp"
 #include "rungcal/table/units.hpp"
@@ -555,6 +557,7 @@ IngestOptions ingest_options_from_config(Config& config) {
   TableSourceSpec spec = table_source_from_section(config, *source);
   o.input_path = spec.path;
   o.input_is_fits = spec.is_fits;
+  o.input_is_votable = spec.is_votable;
   o.hdu = spec.hdu;
   o.text = spec.text;
   o.chunk_rows = source->integer_or("chunk_rows", o.chunk_rows);
@@ -1166,11 +1169,32 @@ class GroupReader {
       : o_(o), chunk_(static_cast<std::size_t>(o.chunk_rows)) {
     if (o.input_is_fits)
       fits_ = std::make_unique<FitsTableReader>(o.input_path, o.hdu);
+    else if (o.input_is_votable)
+      ecsv_ = std::make_unique<SourceTable>(read_votable_table(o.input_path));  // read whole
+    else if (looks_like_ecsv(o.input_path))
+      ecsv_ = std::make_unique<SourceTable>(read_ecsv_table(o.input_path));  // read whole
     else
       text_ = std::make_unique<TextTableReader>(o.input_path, o.text);
   }
   // The next group; no rows at the end. progress_units: rows (FITS) or bytes (text) taken.
   SourceTable next(std::size_t& progress_units) {
+    if (ecsv_) {
+      const std::size_t rows = ecsv_->table.rows();
+      const std::size_t end = std::min(rows, next_row_ + chunk_);
+      progress_units = end - next_row_;
+      if (next_row_ >= rows) return SourceTable{};
+      std::vector<std::size_t> picked(end - next_row_);
+      for (std::size_t i = 0; i < picked.size(); ++i) picked[i] = next_row_ + i;
+      SourceTable g;
+      g.file = ecsv_->file;
+      g.row_label = ecsv_->row_label;
+      g.unusable_columns = ecsv_->unusable_columns;
+      g.table = ecsv_->table.select_rows(picked);
+      g.source_rows.assign(ecsv_->source_rows.begin() + static_cast<std::ptrdiff_t>(next_row_),
+                           ecsv_->source_rows.begin() + static_cast<std::ptrdiff_t>(end));
+      next_row_ = end;
+      return g;
+    }
     if (fits_) {
       const auto rows = static_cast<std::size_t>(fits_->rows());
       if (next_row_ >= rows) {
@@ -1190,10 +1214,12 @@ class GroupReader {
   // All the progress units, and the rows to expect: a FITS table's own count, or a text
   // file's size over the bytes per line of the groups read so far.
   std::size_t progress_total() const {
+    if (ecsv_) return ecsv_->table.rows();
     return fits_ ? static_cast<std::size_t>(fits_->rows())
                  : static_cast<std::size_t>(text_->file_bytes());
   }
   std::size_t expected_rows(std::size_t rows_so_far) const {
+    if (ecsv_) return ecsv_->table.rows();
     if (fits_) return static_cast<std::size_t>(fits_->rows());
     const std::uint64_t read = text_->bytes_read(), all = text_->file_bytes();
     if (rows_so_far == 0 || read == 0 || read >= all) return rows_so_far;
@@ -1201,7 +1227,7 @@ class GroupReader {
                                     static_cast<double>(read) * 1.02) +
            1;
   }
-  const char* row_label() const { return fits_ ? "row" : "line"; }
+  const char* row_label() const { return fits_ ? "row" : "line"; }  // ECSV: line
   const char* no_rows_message() const {
     return fits_ ? "the table has no rows" : "the table has no data rows";
   }
@@ -1211,6 +1237,7 @@ class GroupReader {
   std::size_t chunk_;
   std::unique_ptr<FitsTableReader> fits_;
   std::unique_ptr<TextTableReader> text_;
+  std::unique_ptr<SourceTable> ecsv_;  // an ECSV or VOTable table, read whole
   std::size_t next_row_ = 0;
 };
 

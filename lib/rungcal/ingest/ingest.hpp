@@ -92,6 +92,7 @@ struct PlausibleRange {
 struct IngestOptions {
   std::string input_path;             // catalog to read (FITS or delimited text)
   bool input_is_fits = false;         // chosen from [source] format or the file extension
+  bool input_is_votable = false;      // likewise (VOTable, TABLEDATA); ECSV is known by its first line
   FitsHduChoice hdu;                  // FITS: which table HDU
   TextReadOptions text;               // text: delimiter, header, missing markers
   std::map<std::string, ValueSource> quantities;  // canonical key -> source ([columns])
