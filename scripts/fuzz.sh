@@ -31,7 +31,7 @@ cmake --build "$build" -j"$(nproc)" >/dev/null
 # 4: whitespace, 5: multi-space), so each file is seeded under the options it is read with.
 seeds="$build/seeds"
 rm -rf "$seeds"
-mkdir -p "$seeds/fuzz_text_table" "$seeds/fuzz_fits_table" "$seeds/fuzz_config"
+mkdir -p "$seeds/fuzz_text_table" "$seeds/fuzz_ecsv_table" "$seeds/fuzz_votable_table" "$seeds/fuzz_fits_table" "$seeds/fuzz_config"
 n=0
 for f in sample_data/*.csv ../shared/reference/*.csv ../shared/reference/*.txt tests/*.csv; do
   [ -f "$f" ] || continue
@@ -41,10 +41,22 @@ for f in sample_data/*.csv ../shared/reference/*.csv ../shared/reference/*.txt t
   done
 done
 cp sample_data/*.fits "$seeds/fuzz_fits_table/"
+# An ECSV table as astropy writes it (invented stars).
+printf '%s\n' '# %ECSV 1.0' '# ---' '# datatype:' '# - {name: id, datatype: string}' \
+  '# - {name: plx, unit: mas, datatype: float64}' '# - {name: n, datatype: int64}' \
+  '# - {name: ok, datatype: bool}' '# meta: !!omap' '# - {observatory: Mount Vellin}' \
+  '# schema: astropy-2.0' 'id plx n ok' '"Vell 1" 0.5 3 True' 'Vell-2 nan "" False' \
+  > "$seeds/fuzz_ecsv_table/seed1"
+printf '%s\n' '<?xml version="1.0"?>' '<VOTABLE version="1.4"><RESOURCE><TABLE>' \
+  '<FIELD name="id" datatype="char" arraysize="*"/><FIELD name="plx" datatype="double" unit="mas"/>' \
+  '<FIELD name="n" datatype="int"><VALUES null="-1"/></FIELD><FIELD name="ok" datatype="boolean"/>' \
+  '<DATA><TABLEDATA><TR><TD>Vell 1</TD><TD>0.5</TD><TD>3</TD><TD>T</TD></TR>' \
+  '<TR><TD>Vell-2</TD><TD>NaN</TD><TD>-1</TD><TD/></TR></TABLEDATA></DATA></TABLE></RESOURCE></VOTABLE>' \
+  > "$seeds/fuzz_votable_table/seed1"
 find config -name '*.toml' -exec cp {} "$seeds/fuzz_config/" \;
 
 status=0
-for target in fuzz_text_table fuzz_fits_table fuzz_config; do
+for target in fuzz_text_table fuzz_ecsv_table fuzz_votable_table fuzz_fits_table fuzz_config; do
   corpus="$build/corpus/$target"
   findings="$build/findings/$target"
   mkdir -p "$corpus" "$findings"

@@ -9,7 +9,7 @@ mode=${1:-build}
 
 build_pkgs=(g++ cmake make pkg-config git libceres-dev libeigen3-dev libccfits-dev
   libcfitsio-dev libspdlog-dev libfmt-dev libgtest-dev libgmock-dev libcli11-dev
-  libtomlplusplus-dev nlohmann-json3-dev libssl-dev libcairo2-dev fonts-dejavu-core)
+  libtomlplusplus-dev nlohmann-json3-dev libssl-dev libcairo2-dev libyaml-dev libexpat1-dev fonts-dejavu-core)
 # openmpi: the suite runs the MPI stages on two local ranks (the build finds it and turns
 # RUNGCAL_MPI on); bc: the MPI benchmark script; chromium: the status page is rendered
 # headless in a test; texlive-*: pdflatex with AASTeX (texlive-publishers), which needs

@@ -3,11 +3,14 @@
 // magnitudes, their errors checked by Monte Carlo, the products read by astropy.
 #include <gtest/gtest.h>
 
+#include <algorithm>
 #include <cmath>
 
 #include "rungcal/deredden/deredden.hpp"
 #include "rungcal/core/random.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+#include "rungcal/core/error.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
@@ -159,6 +162,73 @@ TEST(Deredden, BadInputsStopCleanly) {
     EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
     EXPECT_FALSE(test::file_exists(dir.file("out")));
   }
+}
+
+TEST(Deredden, AWesenheitNeedsNoReddening) {
+  // A catalog without E(B-V): the Wesenheit is formed, bands are left alone.
+  StarTable in = two_band_catalog({{12.0, 11.0, 0.5}}, 0.02, 0.03, 0.1);
+  in.remove_column("ebv");
+  in.remove_column("ebv_err");
+  DereddenResult r = run_deredden(vi_options(), in, vi_table());
+  EXPECT_NEAR(r.catalog.column("mag0_W_VI").real[0], 11.0 - 1.55 * 1.0, 1e-12);
+  EXPECT_FALSE(r.catalog.has("mag0_V"));
+  ASSERT_EQ(r.coefficients.size(), 1u);
+  EXPECT_TRUE(r.coefficients[0].wesenheit);
+  // A band asked for by name still needs E(B-V).
+  DereddenOptions o = vi_options();
+  o.bands = {"V"};
+  try {
+    run_deredden(o, in, vi_table());
+    ADD_FAILURE() << "dereddened V without E(B-V)";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "missing_column");
+    EXPECT_NE(std::string(e.what()).find("a Wesenheit magnitude needs none"), std::string::npos);
+  }
+  // Neither bands nor a Wesenheit: dereddening every band needs E(B-V).
+  o = vi_options();
+  o.wesenheit.clear();
+  EXPECT_THROW(run_deredden(o, in, vi_table()), InputError);
+}
+
+TEST(Deredden, WesenheitOnlyStageOnTheLmcCepheidsWithoutReddening) {
+  // OGLE-IV LMC fundamental-mode Cepheids (Soszynski et al. 2015, Acta Astron. 65, 297):
+  // no E(B-V) in the list. W_I = I - 1.55 (V - I); the published relation
+  // W_I = 15.88 - 3.31 log P (reference README, approximate; an independent clipped fit
+  // gives 15.889 - 3.315 log P) sets the median intercept.
+  test::TempDir dir;
+  const std::string cat = dir.file("lmc.fits");
+  auto ingest = test::run_stage(
+      "ingest", "--config " + test::source_file("config/reference/lmc_fundamental_cepheids.toml") +
+                    " --out " + cat);
+  ASSERT_EQ(ingest.exit_code, 0) << ingest.output;
+  test::write_text(dir.file("d.toml"), "[deredden]\ninput = \"lmc.fits\"\noutput = \"w.fits\"\n"
+                                       "bands_file = \"" + test::source_file("config/bands.toml") +
+                                       "\"\nwesenheit = [\"W_VI\"]\n");
+  auto r = test::run_stage("deredden", "--config " + dir.file("d.toml"));
+  ASSERT_EQ(r.exit_code, 0) << r.output;
+  StarTable w = read_fits_table(dir.file("w.fits"), {"CATALOG", 0}).table;
+  EXPECT_FALSE(w.has("mag0_V"));
+  const Column& id = w.column(col::kId);
+  const Column& wm = w.column("mag0_W_VI");
+  std::vector<double> intercepts;
+  for (std::size_t i = 0; i < w.rows(); ++i) {
+    if (wm.is_null(i)) continue;
+    intercepts.push_back(wm.real[i] + 3.31 * w.column(col::kLogPeriod).real[i]);
+    // Last line of the file: OGLE-LMC-CEP-4712, I 15.372, V 16.087.
+    if (id.text[i] == "OGLE-LMC-CEP-4712") {
+      EXPECT_NEAR(wm.real[i], 15.372 - 1.55 * (16.087 - 15.372), 1e-9);
+    }
+  }
+  EXPECT_EQ(intercepts.size(), 2315u);  // the stars with both V and I
+  std::nth_element(intercepts.begin(), intercepts.begin() + intercepts.size() / 2, intercepts.end());
+  EXPECT_NEAR(intercepts[intercepts.size() / 2], 15.88, 0.03);
+  // Asking for a band by name without E(B-V) stops with exit 2 and writes nothing.
+  test::write_text(dir.file("d2.toml"), test::read_text(dir.file("d.toml")) + "bands = [\"V\"]\n");
+  test::write_text(dir.file("d2.toml"), test::replaced(test::read_text(dir.file("d2.toml")), {{"w.fits", "w2.fits"}}));
+  r = test::run_stage("deredden", "--config " + dir.file("d2.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("[missing_column]"), std::string::npos) << r.output;
+  EXPECT_FALSE(test::file_exists(dir.file("w2.fits")));
 }
 
 }  // namespace

@@ -59,7 +59,10 @@ DereddenOptions deredden_options_from_file(const std::string& path) {
   if (!parsed) s->fail("law", fmt::format("'{}' is not one of: {}", law, kExtinctionLawNames.choices()));
   o.law = *parsed;
   o.r_v = s->number_or("r_v", o.r_v);
-  if (auto b = s->get_string_list("bands")) o.bands = *b;
+  if (auto b = s->get_string_list("bands")) {
+    o.bands = *b;
+    o.bands_given = true;
+  }
   if (auto w = s->get_string_list("wesenheit")) o.wesenheit = *w;
   std::string src = s->string_or("wesenheit_r", "table");
   auto ws = kWesenheitSourceNames.parse(src);
@@ -102,8 +105,14 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
   result.catalog = in;
   StarTable& cat = result.catalog;
   const std::string& file = o.input_path;
-  std::vector<std::string> bands = o.bands.empty() ? catalog_bands(in) : o.bands;
-  if (o.bands.empty()) {
+  const bool bands_listed = o.bands_given || !o.bands.empty();
+  std::vector<std::string> bands = bands_listed ? o.bands : catalog_bands(in);
+  if (!bands_listed && !in.has(col::kEbv) && !o.wesenheit.empty()) {
+    // A Wesenheit magnitude is reddening-free by construction: it needs no E(B-V).
+    spdlog::info("the catalog has no E(B-V): its bands are not dereddened, only the Wesenheit "
+                 "magnitudes are formed");
+    bands.clear();
+  } else if (!bands_listed) {
     // Default: every catalog band the table knows; bands it does not know are left alone.
     std::vector<std::string> known;
     for (const auto& b : bands) {
@@ -113,7 +122,10 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
     bands = known;
   }
   const bool need_ebv = !bands.empty();
-  if (need_ebv) require_column(in, col::kEbv, file, "dereddening needs E(B-V): map an ebv column at ingest");
+  if (need_ebv)
+    require_column(in, col::kEbv, file,
+                   "dereddening bands needs E(B-V): map an ebv column at ingest (a Wesenheit "
+                   "magnitude needs none: ask for wesenheit = [...] with bands = [])");
   const std::size_t n = in.rows();
   const Column* ebv = in.has(col::kEbv) ? &in.column(col::kEbv) : nullptr;
   const Column* ebv_err = in.has(col::kEbvErr) ? &in.column(col::kEbvErr) : nullptr;

@@ -31,6 +31,7 @@ struct DereddenOptions {
   ExtinctionLaw law = ExtinctionLaw::kF99;  // law for band coefficients
   double r_v = 3.1;          // A_V / E(B-V)
   std::vector<std::string> bands;       // bands to deredden; empty = every catalog band in the table
+  bool bands_given = false;             // the config lists bands (an empty list: no band at all)
   std::vector<std::string> wesenheit;   // Wesenheit magnitudes to form (names in the band table)
   WesenheitSource wesenheit_source = WesenheitSource::kTable;
   std::map<std::string, double> a_over_ebv;  // per-band A/E(B-V) overriding law and table
@@ -61,6 +62,10 @@ struct DereddenResult {
   Provenance provenance;
 };
 
+// Which bands are dereddened: those listed (bands or bands_given), else every catalog band
+// the band table knows; without a catalog ebv column and with Wesenheit magnitudes asked for,
+// none by default (a Wesenheit needs no E(B-V); a listed band still stops with
+// missing_column).
 // Dereddens each band: m0 = m - R E(B-V), sigma0^2 = sigma^2 + (R sigma_E)^2, A = R E(B-V);
 // the per-star covariance of two dereddened bands is R_X R_Y sigma_E^2 (one E(B-V)), kept in
 // COEFFS for the fit. Wesenheit: W = m_X - R (m_Y - m_Z), its error from the three

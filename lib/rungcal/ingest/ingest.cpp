@@ -23,7 +23,11 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
+#include "rungcal/ingest/column_keys.hpp"
+#include "rungcal/ingest/lightcurve_join.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/ecsv_io.hpp"
+#include "rungcal/table/votable_io.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/table_source.hpp"
 #include "rungcal/table/units.hpp"
@@ -506,7 +510,9 @@ std::string IngestOptions::check() const {
     return "columns.mode: required (a column, or mode = { value = \"fundamental\" } for all stars)";
   if (!quantities.count("pulsator_class"))
     return "columns.pulsator_class: required (a column, or { value = \"classical_cepheid\" })";
-  if (bands.empty()) return "bands: at least one band is required";
+  if (bands.empty() && lightcurves.summary_path.empty())
+    return "bands: at least one band is required (or a [lightcurves] join that supplies the "
+           "magnitudes)";
   if (!(magnitude_min < magnitude_max))
     return "validate.magnitude_range: the minimum must be below the maximum";
   if (!(ebv_min < ebv_max)) return "validate.ebv_range: the minimum must be below the maximum";
@@ -535,7 +541,7 @@ std::string IngestOptions::check() const {
   if (!input_is_fits) {
     if (std::string t = text.check(); !t.empty()) return "source." + t;
   }
-  return "";
+  return unit_checks.check();
 }
 
 IngestOptions ingest_options_from_config(Config& config) {
@@ -551,6 +557,7 @@ IngestOptions ingest_options_from_config(Config& config) {
   TableSourceSpec spec = table_source_from_section(config, *source);
   o.input_path = spec.path;
   o.input_is_fits = spec.is_fits;
+  o.input_is_votable = spec.is_votable;
   o.hdu = spec.hdu;
   o.text = spec.text;
   o.chunk_rows = source->integer_or("chunk_rows", o.chunk_rows);
@@ -559,8 +566,7 @@ IngestOptions ingest_options_from_config(Config& config) {
     for (const auto& k : cols->keys()) {
       if (!find_quantity(k))
         throw InputError({config.file(), cols->line_of(k), "columns." + k, "line", "key"},
-                         "unknown_config_key",
-                         "not a catalog quantity (see docs/file-formats.md for the list)");
+                         "unknown_config_key", unknown_column_key_message(k));
       o.quantities[k] = value_source_from(*cols, k);
     }
   }
@@ -638,6 +644,25 @@ IngestOptions ingest_options_from_config(Config& config) {
       v->fail("id_variants",
               fmt::format("'{}' is not one of: {}", variants, kIdVariantPolicyNames.choices()));
     o.id_variants = *parsed;
+    const std::string unit_policy = v->string_or("unit_checks", "refuse");
+    auto policy = kUnitCheckPolicyNames.parse(unit_policy);
+    if (!policy)
+      v->fail("unit_checks",
+              fmt::format("'{}' is not one of: {}", unit_policy, kUnitCheckPolicyNames.choices()));
+    o.unit_checks.policy = *policy;
+    PlausibleRange plx{o.unit_checks.parallax_median_min_mas, o.unit_checks.parallax_median_max_mas};
+    range(*v, "parallax_median_range_mas", plx);
+    o.unit_checks.parallax_median_min_mas = plx.min;
+    o.unit_checks.parallax_median_max_mas = plx.max;
+    if (auto by_class = v->section("class_period_median_range_d"))
+      for (const auto& cls : by_class->keys()) {
+        if (!kPulsatorClassNames.parse(cls))
+          by_class->fail(cls, fmt::format("not a pulsator class (known: {})",
+                                          kPulsatorClassNames.choices()));
+        PlausibleRange r;
+        range(*by_class, cls, r);
+        o.unit_checks.class_period_median_d[cls] = {r.min, r.max};
+      }
   }
   if (auto lc = root.section("lightcurves")) {
     o.lightcurves.summary_path = config.resolve_path(lc->require_string("summary"));
@@ -685,91 +710,6 @@ StarTable IngestResult::rejects_table() const {
   return t;
 }
 
-void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestResult& result) {
-  SourceTable lc = read_fits_table(join.summary_path, {"SUMMARY", 0});
-  const StarTable& s = lc.table;
-  for (const char* c : {"id", "period_d", "usable"})
-    if (!s.has(c))
-      throw InputError({join.summary_path, {}, c}, "missing_column",
-                       "not a rungcal-lightcurve summary (HDU SUMMARY)");
-  result.provenance.inputs.push_back(
-      {join.summary_path, sha256_file(join.summary_path), static_cast<std::int64_t>(s.rows())});
-  std::vector<std::string> bands = join.bands;
-  if (bands.empty())
-    for (const auto& name : s.column_names())
-      if (name.rfind("mag_err_", 0) == 0) bands.push_back(name.substr(8));
-  for (const auto& b : bands)
-    if (!s.has("mag_" + b) || !s.has("mag_err_" + b))
-      throw InputError(
-          {join.summary_path, {}, "mag_" + b}, "missing_column",
-          fmt::format("[lightcurves] bands names {}, which the summary does not have", b));
-
-  std::unordered_map<std::string, std::size_t> lc_row;
-  for (std::size_t r = 0; r < s.rows(); ++r) lc_row.emplace(s.column("id").to_string(r), r);
-  // Bands the catalog lacks get columns of their own, and join the catalog's band list.
-  std::string band_list = std::get<std::string>(cat.keyword(key::kBands)->value);
-  for (const auto& b : bands)
-    if (!cat.has(magnitude_column(b))) {
-      cat.add_column(magnitude_column(b), ColumnType::kReal, "mag", "mean magnitude in " + b);
-      cat.add_column(magnitude_error_column(b), ColumnType::kReal, "mag", "error of mag_" + b);
-      band_list += (band_list.empty() ? "" : ",") + b;
-    }
-  cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
-  Column& origin = cat.add_column("period_origin", ColumnType::kText, "", "catalog or lightcurve");
-  if (join.periods && !cat.has("period_err_d"))
-    cat.add_column("period_err_d", ColumnType::kReal, "d", "period uncertainty");
-  const bool replace = join.use == JoinUse::kReplace;
-  std::size_t unmatched = 0;
-  for (std::size_t r = 0; r < cat.rows(); ++r) {
-    origin.text[r] = "catalog";
-    origin.null[r] = 0;
-    auto it = lc_row.find(cat.column(col::kId).text[r]);
-    if (it == lc_row.end()) {
-      ++unmatched;
-      continue;
-    }
-    const std::size_t k = it->second;
-    if (s.column("usable").is_null(k) || !s.column("usable").boolean[k]) continue;
-    Column& period = cat.column(col::kPeriod);
-    if (join.periods && (replace || period.is_null(r))) {
-      const double p_lc = s.column("period_d").real[k];
-      const double p_cat = period.real[r];
-      if (!period.is_null(r) && std::abs(p_lc / p_cat - 1) > join.warn_period_change)
-        spdlog::warn(
-            "{}: light-curve period {:.6f} d differs from the catalog's {:.6f} d by {:.2g}% (alias "
-            "or a mode mix-up?)",
-            cat.column(col::kId).text[r], p_lc, p_cat, 100 * std::abs(p_lc / p_cat - 1));
-      period.real[r] = p_lc;
-      period.null[r] = 0;
-      cat.column(col::kLogPeriod).real[r] = std::log10(p_lc);
-      cat.column(col::kLogPeriod).null[r] = 0;
-      if (s.has("period_err_d") && !s.column("period_err_d").is_null(k)) {
-        cat.column("period_err_d").real[r] = s.column("period_err_d").real[k];
-        cat.column("period_err_d").null[r] = 0;
-      }
-      origin.text[r] = "lightcurve";
-      ++result.periods_joined;
-    }
-    for (const auto& b : bands) {
-      const Column& m = s.column("mag_" + b);
-      const Column& e = s.column("mag_err_" + b);
-      if (m.is_null(k) || e.is_null(k)) continue;
-      Column& cm = cat.column(magnitude_column(b));
-      Column& ce = cat.column(magnitude_error_column(b));
-      if (!replace && !cm.is_null(r)) continue;
-      cm.real[r] = m.real[k];
-      cm.null[r] = 0;
-      ce.real[r] = e.real[k];
-      ce.null[r] = 0;
-      ++result.magnitudes_joined;
-    }
-  }
-  spdlog::info(
-      "light curves ({}): {} periods and {} band means joined; {} catalog stars have no light "
-      "curve",
-      join.summary_path, result.periods_joined, result.magnitudes_joined, unmatched);
-}
-
 namespace {
 
 // An input group's columns resolved against the config. Resolving comes before any row is
@@ -807,6 +747,46 @@ GroupMapping resolve_group(const IngestOptions& o, const SourceTable& in) {
     m.extra_columns.push_back(&in.table.column(e.column));
   }
   return m;
+}
+
+// The mapped parallaxes and periods (by class) of one group of rows, in canonical units and
+// before any row rule, for the unit checks (unit_sanity.hpp).
+UnitSample unit_sample(const IngestOptions& o, const GroupMapping& m, const SourceTable& in) {
+  UnitSample s;
+  s.file = o.input_path;
+  auto value = [](const Resolved& r, std::size_t row) -> std::optional<double> {
+    try {
+      return number_at(r, row);
+    } catch (const RowReject&) {
+      return std::nullopt;
+    }
+  };
+  auto unit_of = [&](const std::string& key, const Resolved& r) {
+    const std::string& given = o.quantities.at(key).unit;
+    return given.empty() ? r.column->unit : given;
+  };
+  const std::size_t n = in.table.rows();
+  if (auto it = m.quantities.find("parallax"); it != m.quantities.end() && it->second.column) {
+    s.parallax_column = it->second.column_name;
+    s.parallax_unit = unit_of("parallax", it->second);
+    for (std::size_t r = 0; r < n; ++r)
+      if (auto v = value(it->second, r)) s.parallax_mas.push_back(*v);
+  }
+  const Resolved& period = m.at("period");
+  if (period.column) {
+    s.period_column = period.column_name;
+    s.period_unit = unit_of("period", period);
+    const Resolved& cls = m.at("pulsator_class");
+    std::string scratch;
+    for (std::size_t r = 0; r < n; ++r) {
+      auto v = value(period, r);
+      const std::string* text = text_ref(cls, r, scratch);
+      if (!v || !text) continue;
+      std::string c = canonical_choice(*text, o.class_aliases, builtin_class_aliases(), false);
+      if (!c.empty()) s.period_d_by_class[c].push_back(*v);
+    }
+  }
+  return s;
 }
 
 // The catalog's columns (a schema without rows) and where each kind of value goes in it.
@@ -1067,7 +1047,8 @@ class GroupChecks {
                                     "magnitude_error_max)",
                                     band.band, *err, o_.magnitude_err_max)};
     }
-    if (!any_mag)
+    // With a light-curve join the rule waits for the join (refuse_stars_without_photometry).
+    if (!any_mag && o_.lightcurves.summary_path.empty())
       throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
   }
 
@@ -1188,11 +1169,32 @@ class GroupReader {
       : o_(o), chunk_(static_cast<std::size_t>(o.chunk_rows)) {
     if (o.input_is_fits)
       fits_ = std::make_unique<FitsTableReader>(o.input_path, o.hdu);
+    else if (o.input_is_votable)
+      ecsv_ = std::make_unique<SourceTable>(read_votable_table(o.input_path));  // read whole
+    else if (looks_like_ecsv(o.input_path))
+      ecsv_ = std::make_unique<SourceTable>(read_ecsv_table(o.input_path));  // read whole
     else
       text_ = std::make_unique<TextTableReader>(o.input_path, o.text);
   }
   // The next group; no rows at the end. progress_units: rows (FITS) or bytes (text) taken.
   SourceTable next(std::size_t& progress_units) {
+    if (ecsv_) {
+      const std::size_t rows = ecsv_->table.rows();
+      const std::size_t end = std::min(rows, next_row_ + chunk_);
+      progress_units = end - next_row_;
+      if (next_row_ >= rows) return SourceTable{};
+      std::vector<std::size_t> picked(end - next_row_);
+      for (std::size_t i = 0; i < picked.size(); ++i) picked[i] = next_row_ + i;
+      SourceTable g;
+      g.file = ecsv_->file;
+      g.row_label = ecsv_->row_label;
+      g.unusable_columns = ecsv_->unusable_columns;
+      g.table = ecsv_->table.select_rows(picked);
+      g.source_rows.assign(ecsv_->source_rows.begin() + static_cast<std::ptrdiff_t>(next_row_),
+                           ecsv_->source_rows.begin() + static_cast<std::ptrdiff_t>(end));
+      next_row_ = end;
+      return g;
+    }
     if (fits_) {
       const auto rows = static_cast<std::size_t>(fits_->rows());
       if (next_row_ >= rows) {
@@ -1212,10 +1214,12 @@ class GroupReader {
   // All the progress units, and the rows to expect: a FITS table's own count, or a text
   // file's size over the bytes per line of the groups read so far.
   std::size_t progress_total() const {
+    if (ecsv_) return ecsv_->table.rows();
     return fits_ ? static_cast<std::size_t>(fits_->rows())
                  : static_cast<std::size_t>(text_->file_bytes());
   }
   std::size_t expected_rows(std::size_t rows_so_far) const {
+    if (ecsv_) return ecsv_->table.rows();
     if (fits_) return static_cast<std::size_t>(fits_->rows());
     const std::uint64_t read = text_->bytes_read(), all = text_->file_bytes();
     if (rows_so_far == 0 || read == 0 || read >= all) return rows_so_far;
@@ -1223,7 +1227,7 @@ class GroupReader {
                                     static_cast<double>(read) * 1.02) +
            1;
   }
-  const char* row_label() const { return fits_ ? "row" : "line"; }
+  const char* row_label() const { return fits_ ? "row" : "line"; }  // ECSV: line
   const char* no_rows_message() const {
     return fits_ ? "the table has no rows" : "the table has no data rows";
   }
@@ -1233,6 +1237,7 @@ class GroupReader {
   std::size_t chunk_;
   std::unique_ptr<FitsTableReader> fits_;
   std::unique_ptr<TextTableReader> text_;
+  std::unique_ptr<SourceTable> ecsv_;  // an ECSV or VOTable table, read whole
   std::size_t next_row_ = 0;
 };
 
@@ -1310,7 +1315,12 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
   // each group fills a copy.
   std::optional<CatalogLayout> layout;
   auto process = [&](const SourceTable& in) {
-    if (!layout) layout = make_catalog_layout(o, resolve_group(o, in));
+    if (!layout) {
+      // The first group (chunk_rows rows) is the sample the unit checks look at.
+      const GroupMapping mapping = resolve_group(o, in);
+      apply_unit_checks(unit_sample(o, mapping, in), o.unit_checks);
+      layout = make_catalog_layout(o, mapping);
+    }
     return check_group(o, in, *layout);
   };
   IdRegistry ids(expected);
@@ -1497,7 +1507,15 @@ IngestResult run_ingest(const IngestOptions& o) {
     }
   });
   if (first) cat = std::move(schema);
-  if (!o.lightcurves.summary_path.empty()) join_lightcurve_summary(cat, o.lightcurves, result);
+  if (!o.lightcurves.summary_path.empty()) {
+    join_lightcurve_summary(cat, o.lightcurves, result);
+    refuse_stars_without_photometry(cat, result);
+    if (cat.rows() == 0)
+      throw InputError({o.input_path, {}, {}}, "no_rows_left",
+                       fmt::format("all {} rows were rejected (no star has a magnitude in any "
+                                   "band, from the catalog or its light curve)",
+                                   result.rows_read));
+  }
   stamp_provenance(cat, result.provenance, "catalog");
   return result;
 }

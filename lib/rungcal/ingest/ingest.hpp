@@ -9,6 +9,7 @@
 
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/ingest/unit_sanity.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/star_table.hpp"
 #include "rungcal/table/text_io.hpp"
@@ -91,6 +92,7 @@ struct PlausibleRange {
 struct IngestOptions {
   std::string input_path;             // catalog to read (FITS or delimited text)
   bool input_is_fits = false;         // chosen from [source] format or the file extension
+  bool input_is_votable = false;      // likewise (VOTable, TABLEDATA); ECSV is known by its first line
   FitsHduChoice hdu;                  // FITS: which table HDU
   TextReadOptions text;               // text: delimiter, header, missing markers
   std::map<std::string, ValueSource> quantities;  // canonical key -> source ([columns])
@@ -119,6 +121,7 @@ struct IngestOptions {
   std::map<std::string, PlausibleRange> class_period_range;  // d, per canonical pulsator class
                                                              // ([validate.class_period_range_d])
   IdVariantPolicy id_variants = IdVariantPolicy::kWarn;      // [validate] id_variants
+  UnitSanityOptions unit_checks;  // [validate] unit_checks and median ranges: unit mistakes
   LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
   std::int64_t chunk_rows = 20000;  // rows or text lines read at a time ([source] chunk_rows)
   std::string catalog_path = "out/catalog.fits";   // the FITS catalog product

@@ -5,6 +5,9 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/table/ecsv_io.hpp"
+#include "rungcal/table/votable_io.hpp"
+
 namespace rungcal {
 
 bool has_fits_extension(const std::string& path) {
@@ -20,9 +23,12 @@ bool has_fits_extension(const std::string& path) {
 TableSourceSpec table_source_from_section(const Config& config, const ConfigSection& source) {
   TableSourceSpec o;
   o.path = config.resolve_path(source.require_string("path"));
-  std::string format = source.string_or("format", has_fits_extension(o.path) ? "fits" : "text");
-  if (format != "fits" && format != "text") source.fail("format", "must be \"fits\" or \"text\"");
+  std::string format = source.string_or(
+      "format", has_fits_extension(o.path) ? "fits" : has_votable_extension(o.path) ? "votable" : "text");
+  if (format != "fits" && format != "text" && format != "ecsv" && format != "votable")
+    source.fail("format", "must be \"fits\", \"text\", \"ecsv\" or \"votable\"");
   o.is_fits = format == "fits";
+  o.is_votable = format == "votable";
   if (source.has("hdu")) {
     if (source.is_string("hdu"))
       o.hdu.name = *source.get_string("hdu");
@@ -51,8 +57,11 @@ TableSourceSpec table_source_from_section(const Config& config, const ConfigSect
 }
 
 SourceTable read_table_source(const TableSourceSpec& spec) {
-  return spec.is_fits ? read_fits_table(spec.path, spec.hdu)
-                      : read_text_table(spec.path, spec.text);
+  if (spec.is_fits) return read_fits_table(spec.path, spec.hdu);
+  if (spec.is_votable) return read_votable_table(spec.path);
+  // An ECSV table is known by its first line and carries its own types and units.
+  if (looks_like_ecsv(spec.path)) return read_ecsv_table(spec.path);
+  return read_text_table(spec.path, spec.text);
 }
 
 }  // namespace rungcal

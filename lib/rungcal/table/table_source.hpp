@@ -14,6 +14,7 @@ namespace rungcal {
 struct TableSourceSpec {
   std::string path;      // resolved against the config's folder
   bool is_fits = false;  // from `format`, else from the file name's extension
+  bool is_votable = false;  // format "votable", else a .vot/.xml/.votable name
   FitsHduChoice hdu;     // FITS only
   TextReadOptions text;  // text only: delimiter, header, comments, missing markers
 };
@@ -21,12 +22,14 @@ struct TableSourceSpec {
 // True for .fits, .fit, .fts and their .gz forms (any case).
 bool has_fits_extension(const std::string& path);
 
-// Reads a source table's keys: path (required), format ("fits"/"text"), hdu, delimiter,
+// Reads a source table's keys: path (required), format ("fits", "text", "votable"; "ecsv"
+// is text whose first line says ECSV), hdu, delimiter,
 // header, header_prefix, comment_prefix, skip_lines, missing, column_names. Bad values stop
 // with InputError naming the file, line and key.
 TableSourceSpec table_source_from_section(const Config& config, const ConfigSection& section);
 
-// Reads the table the spec names (read_fits_table or read_text_table).
+// Reads the table the spec names (read_fits_table, read_ecsv_table for a text file that
+// starts with the ECSV signature, read_votable_table, else read_text_table).
 SourceTable read_table_source(const TableSourceSpec& spec);
 
 }  // namespace rungcal

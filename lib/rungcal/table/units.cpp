@@ -39,6 +39,7 @@ const std::vector<UnitEntry>& unit_entries() {
       {QuantityKind::kDex, "", {1.0, false}},
       {QuantityKind::kWavenumber, "1/um", {1.0, false}},
       {QuantityKind::kWavenumber, "um-1", {1.0, false}},
+      {QuantityKind::kWavenumber, "1 / um", {1.0, false}},  // as astropy writes it (ECSV)
       {QuantityKind::kWavenumber, "", {1.0, false}},
       {QuantityKind::kDimensionless, "", {1.0, false}},
   };

@@ -1,0 +1,18 @@
+// SPDX-License-Identifier: MIT
+// Fuzz target: the ECSV reader (YAML header through libyaml, then the data lines). A clean
+// InputError is the expected answer to any bytes; anything else is a bug.
+#include <cstddef>
+#include <cstdint>
+#include <string>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/table/ecsv_io.hpp"
+
+extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size) {
+  const std::string text(reinterpret_cast<const char*>(data), size);
+  try {
+    (void)rungcal::parse_ecsv_table(text, "fuzz.ecsv");
+  } catch (const rungcal::InputError&) {
+  }
+  return 0;
+}

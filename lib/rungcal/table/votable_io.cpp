@@ -1,0 +1,273 @@
+// SPDX-License-Identifier: MIT
+// VOTable reader (TABLEDATA). Format: IVOA Recommendation "VOTable Format Definition",
+// version 1.4 (2019), sections 4 (FIELD), 5 (VALUES) and 6 (TABLEDATA).
+#include "rungcal/table/votable_io.hpp"
+
+#include <expat.h>
+
+#include <algorithm>
+#include <charconv>
+#include <fstream>
+#include <iterator>
+#include <memory>
+#include <optional>
+#include <vector>
+
+#include <fmt/format.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/table/text_io.hpp"
+
+namespace rungcal {
+namespace {
+
+struct Field {
+  std::string name, datatype, unit, arraysize;
+  std::optional<std::string> null_value;  // <VALUES null="...">
+  ColumnType type = ColumnType::kText;
+  bool usable = true;
+};
+
+// An element name without its namespace prefix ("vot:TD" -> "TD").
+std::string_view local(const XML_Char* name) {
+  std::string_view n(name);
+  const auto colon = n.rfind(':');
+  return colon == std::string_view::npos ? n : n.substr(colon + 1);
+}
+
+const XML_Char* attribute(const XML_Char** atts, std::string_view key) {
+  for (int i = 0; atts[i]; i += 2)
+    if (key == atts[i]) return atts[i + 1];
+  return nullptr;
+}
+
+// The parse state, shared with expat's callbacks.
+struct Reader {
+  std::string file;
+  XML_Parser parser = nullptr;
+  std::vector<Field> fields;
+  int tables = 0;          // TABLE elements started
+  bool in_table = false;   // inside the first TABLE
+  bool in_field = false;
+  bool in_td = false;
+  bool data_seen = false;  // TABLEDATA found
+  std::int64_t tr_line = 0;
+  std::vector<std::string> row;
+  std::vector<std::uint8_t> row_empty;  // a TD without text (or an empty <TD/>)
+  std::string text;
+  SourceTable out;
+  std::vector<Column*> columns;  // per field; nullptr when not usable
+  std::exception_ptr error;      // thrown by a callback, rethrown after the parse
+
+  std::int64_t line() const { return static_cast<std::int64_t>(XML_GetCurrentLineNumber(parser)); }
+
+  [[noreturn]] void fail(const std::string& rule, const std::string& column, const std::string& message) const {
+    throw InputError({file, line(), column, "line"}, rule, message);
+  }
+
+  void start(std::string_view el, const XML_Char** atts) {
+    if (el == "TABLE") {
+      in_table = ++tables == 1;
+      return;
+    }
+    if (!in_table) return;
+    if (el == "FIELD") {
+      Field f;
+      const XML_Char* name = attribute(atts, "name");
+      if (!name) name = attribute(atts, "ID");
+      if (!name) fail("votable_table", "", "a FIELD has neither a name nor an ID");
+      f.name = name;
+      if (const XML_Char* v = attribute(atts, "datatype")) f.datatype = v;
+      if (const XML_Char* v = attribute(atts, "unit")) f.unit = v;
+      if (const XML_Char* v = attribute(atts, "arraysize")) f.arraysize = v;
+      fields.push_back(std::move(f));
+      in_field = true;
+    } else if (el == "VALUES" && in_field) {
+      if (const XML_Char* v = attribute(atts, "null")) fields.back().null_value = v;
+    } else if (el == "BINARY" || el == "BINARY2" || el == "FITS") {
+      fail("votable_table", "",
+           fmt::format("the table is serialized as {}; rungcal reads TABLEDATA (ask the archive for "
+                       "it, or convert with astropy: votable.writeto(..., tabledata_format='tabledata'))",
+                       el));
+    } else if (el == "TABLEDATA") {
+      open_columns();
+    } else if (el == "TR" && data_seen) {
+      tr_line = line();
+      row.clear();
+      row_empty.clear();
+    } else if (el == "TD" && data_seen) {
+      in_td = true;
+      text.clear();
+    }
+  }
+
+  void end(std::string_view el) {
+    if (el == "TABLE") {
+      in_table = false;
+      return;
+    }
+    if (!in_table) return;
+    if (el == "FIELD") {
+      in_field = false;
+    } else if (el == "TD" && in_td) {
+      in_td = false;
+      row_empty.push_back(text.empty() ? 1 : 0);
+      row.push_back(std::move(text));
+      text.clear();
+    } else if (el == "TR" && data_seen) {
+      add_row();
+    }
+  }
+
+  void open_columns() {
+    if (fields.empty()) fail("votable_table", "", "the TABLE has no FIELD before its data");
+    data_seen = true;
+    out.file = file;
+    out.row_label = "line";
+    for (auto& f : fields) {
+      const std::string& t = f.datatype;
+      const bool is_char = t == "char" || t == "unicodeChar";
+      if (is_char) {
+        f.type = ColumnType::kText;
+      } else if (t == "boolean" || t == "bit") {
+        f.type = ColumnType::kBoolean;
+      } else if (t == "unsignedByte" || t == "short" || t == "int" || t == "long") {
+        f.type = ColumnType::kInteger;
+      } else if (t == "float" || t == "double") {
+        f.type = ColumnType::kReal;
+      } else {
+        f.usable = false;
+        out.unusable_columns[f.name] = fmt::format("datatype '{}' is not read by rungcal", t);
+      }
+      if (!is_char && !f.arraysize.empty() && f.arraysize != "1") {
+        f.usable = false;
+        out.unusable_columns[f.name] =
+            fmt::format("an array column (arraysize {}): rungcal reads one value per star", f.arraysize);
+      }
+      if (f.usable && out.table.has(f.name))
+        fail("duplicate_column", f.name, "two FIELDs have this name");
+      columns.push_back(f.usable ? &out.table.add_column(f.name, f.type, f.unit) : nullptr);
+    }
+  }
+
+  void add_row() {
+    if (row.size() != fields.size())
+      throw InputError({file, tr_line, {}, "line"}, "field_count",
+                       fmt::format("a TR with {} TD where the TABLE has {} FIELDs", row.size(), fields.size()));
+    for (std::size_t c = 0; c < fields.size(); ++c) {
+      if (!columns[c]) continue;
+      Column& col = *columns[c];
+      const Field& f = fields[c];
+      std::string_view v = row[c];
+      if (col.type != ColumnType::kText) {  // numbers and logicals: spaces around do not count
+        const auto b = v.find_first_not_of(" \t\r\n");
+        v = b == std::string_view::npos ? std::string_view() : v.substr(b, v.find_last_not_of(" \t\r\n") - b + 1);
+      }
+      if (row_empty[c] || v.empty() || (f.null_value && v == *f.null_value)) {
+        col.push_null();
+        continue;
+      }
+      auto lie = [&] {
+        throw InputError({file, tr_line, f.name, "line"}, "votable_value",
+                         fmt::format("'{}' is not a {} value, which the FIELD says the column holds", v, f.datatype));
+      };
+      switch (col.type) {
+        case ColumnType::kText:
+          col.push_text(std::string(v));
+          break;
+        case ColumnType::kReal: {
+          double x = 0;
+          if (!parse_real(v, x)) lie();
+          col.push_real(x);
+          break;
+        }
+        case ColumnType::kInteger: {
+          std::int64_t x = 0;
+          const char* b = v.data() + (v[0] == '+' ? 1 : 0);
+          auto [end, ec] = std::from_chars(b, v.data() + v.size(), x);
+          if (ec != std::errc() || end != v.data() + v.size()) lie();
+          col.push_integer(x);
+          break;
+        }
+        case ColumnType::kBoolean:
+          if (v == "T" || v == "t" || v == "true" || v == "TRUE" || v == "1")
+            col.push_boolean(true);
+          else if (v == "F" || v == "f" || v == "false" || v == "FALSE" || v == "0")
+            col.push_boolean(false);
+          else if (v == "?")
+            col.push_null();
+          else
+            lie();
+          break;
+      }
+    }
+    out.source_rows.push_back(tr_line);
+  }
+};
+
+}  // namespace
+
+bool has_votable_extension(const std::string& path) {
+  std::string p = path;
+  std::transform(p.begin(), p.end(), p.begin(), [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
+  for (std::string e : {".vot", ".xml", ".votable"})
+    if (p.size() >= e.size() && p.compare(p.size() - e.size(), e.size(), e) == 0) return true;
+  return false;
+}
+
+SourceTable read_votable_table(const std::string& path) {
+  return parse_votable_table(read_input_file(path), path);
+}
+
+SourceTable parse_votable_table(const std::string& content, const std::string& name) {
+  Reader r;
+  r.file = name;
+  std::unique_ptr<std::remove_pointer_t<XML_Parser>, decltype(&XML_ParserFree)> parser(
+      XML_ParserCreate(nullptr), &XML_ParserFree);
+  if (!parser) throw std::bad_alloc();
+  r.parser = parser.get();
+  XML_SetUserData(r.parser, &r);
+  XML_SetElementHandler(
+      r.parser,
+      [](void* data, const XML_Char* el, const XML_Char** atts) {
+        auto* self = static_cast<Reader*>(data);
+        try {
+          self->start(local(el), atts);
+        } catch (...) {
+          self->error = std::current_exception();
+          XML_StopParser(self->parser, XML_FALSE);
+        }
+      },
+      [](void* data, const XML_Char* el) {
+        auto* self = static_cast<Reader*>(data);
+        try {
+          self->end(local(el));
+        } catch (...) {
+          self->error = std::current_exception();
+          XML_StopParser(self->parser, XML_FALSE);
+        }
+      });
+  XML_SetCharacterDataHandler(r.parser, [](void* data, const XML_Char* s, int len) {
+    auto* self = static_cast<Reader*>(data);
+    if (self->in_td) self->text.append(s, static_cast<std::size_t>(len));
+  });
+  // Fed in pieces: XML_Parse takes an int length.
+  constexpr std::size_t kPiece = 1 << 20;
+  std::size_t pos = 0;
+  do {
+    const std::size_t n = std::min(kPiece, content.size() - pos);
+    const bool last = pos + n == content.size();
+    const auto status = XML_Parse(r.parser, content.data() + pos, static_cast<int>(n), last);
+    if (r.error) std::rethrow_exception(r.error);
+    if (status == XML_STATUS_ERROR)
+      throw InputError({name, r.line(), {}, "line"}, "votable_xml",
+                       fmt::format("the XML does not parse: {}", XML_ErrorString(XML_GetErrorCode(r.parser))));
+    pos += n;
+  } while (pos < content.size());
+  if (r.tables == 0) throw InputError({name, {}, {}}, "votable_table", "the file has no TABLE");
+  if (!r.data_seen) throw InputError({name, {}, {}}, "votable_table", "the first TABLE has no TABLEDATA");
+  return std::move(r.out);
+}
+
+}  // namespace rungcal

@@ -1,0 +1,26 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <string>
+
+#include "rungcal/table/source_table.hpp"
+
+namespace rungcal {
+
+// True for .vot, .xml and .votable file names (any case): the VOTable reader is chosen by
+// extension (or by [source] format = "votable").
+bool has_votable_extension(const std::string& path);
+
+// Reads the first TABLE of a VOTable (IVOA VOTable 1.x, the XML format of the Gaia archive
+// and of astroquery) in TABLEDATA serialization, with libexpat: each FIELD's datatype gives
+// the column type (char and unicodeChar: text; boolean and bit: logical; the integer types:
+// integer; float and double: real) and its unit attribute the unit. An empty TD, a float
+// NaN and a value equal to the FIELD's <VALUES null="..."/> are nulls. Array FIELDs
+// (arraysize on a non-character type) are listed as unusable. Throws InputError naming the
+// file, line and column: "unreadable_file", "votable_xml" (malformed XML), "votable_table"
+// (no TABLE, no FIELD, or a serialization other than TABLEDATA), "field_count" (a TR with
+// more or fewer TDs than FIELDs), "votable_value" (a value that is not of its FIELD's type).
+SourceTable read_votable_table(const std::string& path);
+SourceTable parse_votable_table(const std::string& content, const std::string& name);
+
+}  // namespace rungcal

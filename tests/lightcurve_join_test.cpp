@@ -1,0 +1,135 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/ingest/lightcurve_join: a star list with ids and periods but no
+// magnitudes gets them from its light curves, and the photometry rule waits for the join.
+// Invented stars (a summary written here), no published data.
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/ingest/ingest.hpp"
+#include "rungcal/ingest/lightcurve_join.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+#include "test_util.hpp"
+
+namespace rungcal {
+namespace {
+
+// A rungcal-lightcurve summary (HDU SUMMARY) of three stars: Vell-1 and Vell-2 usable,
+// Vell-3 without a usable period and without means.
+void write_summary(const std::string& path) {
+  StarTable s;
+  s.add_column("id", ColumnType::kText);
+  s.add_column("period_d", ColumnType::kReal, "d");
+  s.add_column("period_err_d", ColumnType::kReal, "d");
+  s.add_column("usable", ColumnType::kBoolean);
+  for (const char* b : {"V", "I"}) {
+    s.add_column(std::string("mag_") + b, ColumnType::kReal, "mag");
+    s.add_column(std::string("mag_err_") + b, ColumnType::kReal, "mag");
+  }
+  auto row = [&](const char* id, double p, bool usable, double v, double i) {
+    s.column("id").push_text(id);
+    s.column("period_d").push_real(p);
+    s.column("period_err_d").push_real(1e-5);
+    s.column("usable").push_boolean(usable);
+    s.column("mag_V").push_real(v);
+    s.column("mag_err_V").push_real(std::isnan(v) ? v : 0.01);
+    s.column("mag_I").push_real(i);
+    s.column("mag_err_I").push_real(std::isnan(i) ? i : 0.008);
+  };
+  const double nan = std::nan("");
+  row("Vell-1", 5.366, true, 15.2, 14.5);
+  row("Vell-2", 12.01, true, 14.1, 13.2);
+  row("Vell-3", 3.3, false, nan, nan);
+  write_fits_tables(path, {{"SUMMARY", &s}});
+}
+
+// A star list: ids and periods only, no magnitude column, no [bands].
+const char* kStarList =
+    "star,P\n"
+    "Vell-1,5.3660\n"
+    "Vell-4,7.5\n"      // no light curve: no photometry after the join
+    "Vell-2,12.0100\n"
+    "Vell-3,3.3\n";     // a light curve without a usable period or means
+
+std::string star_list_config() {
+  return "[source]\npath = \"stars.csv\"\n"
+         "[columns]\nid = \"star\"\nperiod = \"P\"\nmode = { value = \"fundamental\" }\n"
+         "pulsator_class = { value = \"classical_cepheid\" }\n"
+         "[lightcurves]\nsummary = \"lc.fits\"\n"
+         "[output]\ncatalog = \"out/cat.fits\"\n";
+}
+
+TEST(LightCurveJoin, AStarListWithoutMagnitudesGetsThemFromItsLightCurves) {
+  test::TempDir dir;
+  write_summary(dir.file("lc.fits"));
+  test::write_text(dir.file("stars.csv"), kStarList);
+  test::write_text(dir.file("c.toml"), star_list_config());
+  IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
+  EXPECT_TRUE(o.bands.empty());
+  IngestResult r = run_ingest(o);
+  const StarTable& cat = r.catalog;
+  ASSERT_EQ(cat.rows(), 2u);
+  EXPECT_EQ(r.stars, 2u);
+  EXPECT_EQ(cat.column(col::kId).text, (std::vector<std::string>{"Vell-1", "Vell-2"}));
+  EXPECT_DOUBLE_EQ(cat.column("mag_V").real[0], 15.2);
+  EXPECT_DOUBLE_EQ(cat.column("mag_err_I").real[1], 0.008);
+  EXPECT_EQ(cat.column("period_origin").text[1], "lightcurve");
+  EXPECT_EQ(std::get<std::string>(cat.keyword(key::kBands)->value), "V,I");
+  EXPECT_EQ(r.magnitudes_joined, 4u);
+  // The rows without photometry after the join are refused, in input order, naming the rule.
+  ASSERT_EQ(r.rejected.size(), 2u);
+  EXPECT_EQ(r.rejected[0].source_row, 3);
+  EXPECT_EQ(r.rejected[0].id, "Vell-4");
+  EXPECT_EQ(r.rejected[0].rule, "no_photometry");
+  EXPECT_EQ(r.rejected[0].message,
+            "the star has no magnitude in any configured band, nor from its light curve");
+  EXPECT_EQ(r.rejected[1].id, "Vell-3");
+  EXPECT_EQ(r.rejected[1].source_row, 5);
+}
+
+TEST(LightCurveJoin, TheStageWritesTheJoinedCatalogAndItsRejects) {
+  test::TempDir dir;
+  write_summary(dir.file("lc.fits"));
+  test::write_text(dir.file("stars.csv"), kStarList);
+  test::write_text(dir.file("c.toml"), star_list_config());
+  auto run = test::run_stage("ingest", "--config " + dir.file("c.toml"));
+  ASSERT_EQ(run.exit_code, 0) << run.output;
+  StarTable cat = read_fits_table(dir.file("out/cat.fits"), {"CATALOG", 0}).table;
+  EXPECT_EQ(cat.rows(), 2u);
+  StarTable rej = read_fits_table(dir.file("out/cat.fits"), {"REJECTS", 0}).table;
+  ASSERT_EQ(rej.rows(), 2u);
+  EXPECT_EQ(rej.column("rule").text[0], "no_photometry");
+  EXPECT_NE(test::read_text(dir.file("out/cat_rejects.csv")).find("Vell-4"), std::string::npos);
+}
+
+TEST(LightCurveJoin, NoStarWithPhotometryAfterTheJoinStopsWithExit2AndWritesNothing) {
+  test::TempDir dir;
+  write_summary(dir.file("lc.fits"));
+  test::write_text(dir.file("stars.csv"), "star,P\nVell-3,3.3\nVell-9,4.0\n");
+  test::write_text(dir.file("c.toml"), star_list_config());
+  auto run = test::run_stage("ingest", "--config " + dir.file("c.toml"));
+  EXPECT_EQ(run.exit_code, 2) << run.output;
+  EXPECT_NE(run.output.find("[no_rows_left]"), std::string::npos) << run.output;
+  EXPECT_NE(run.output.find("stars.csv"), std::string::npos) << run.output;
+  EXPECT_FALSE(test::file_exists(dir.file("out")));
+}
+
+TEST(LightCurveJoin, WithoutAJoinABandIsStillRequired) {
+  test::TempDir dir;
+  test::write_text(dir.file("stars.csv"), kStarList);
+  std::string config = star_list_config();
+  config.replace(config.find("[lightcurves]"), std::string("[lightcurves]\nsummary = \"lc.fits\"\n").size(), "");
+  test::write_text(dir.file("c.toml"), config);
+  try {
+    ingest_options_from_file(dir.file("c.toml"));
+    ADD_FAILURE() << "accepted";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "config_value");
+    EXPECT_NE(std::string(e.what()).find("[lightcurves] join"), std::string::npos) << e.what();
+  }
+}
+
+}  // namespace
+}  // namespace rungcal
