@@ -91,8 +91,8 @@ int main(int argc, char** argv) {
   app.add_option("--blend-scale-prior", blend_scale_prior, "> 0: a Gaussian prior of this width on the blend scale (mag)")
       ->capture_default_str();
   app.add_flag("--fix-blend-scale", fix_blend_scale, "hold the blend scale at --blend-scale");
-  app.add_option("--blend-min-sigma", study.fit.hierarchical.blend_min_sigma,
-                 "blends start this many member magnitude widths bright")->capture_default_str();
+  app.add_option("--blend-min-mag", study.fit.hierarchical.blend_min_mag, "blends start this much brighter (mag)")
+      ->capture_default_str();
   app.add_option("--metallicity", metallicity, "fit the [Fe/H] term (the truth has gamma = -0.2)")->capture_default_str();
   app.add_option("--bootstrap", bootstrap, "Bootstrap resamples per mock (0: none)")->capture_default_str();
   app.add_option("--seed", seed, "Seed of the first mock")->capture_default_str();

@@ -689,7 +689,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                                     {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
                                     {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor},
                                     {"blend_component", std::string(kBlendComponentNames.name(o.hierarchical.blends))},
-                                    {"blend_min_sigma", o.hierarchical.blend_min_sigma},
+                                    {"blend_min_mag", o.hierarchical.blend_min_mag},
                                     {"blend_fraction", param_json(o.blend_fraction)},
                                     {"blend_scale_mag", param_json(o.blend_scale)}}},
                   {"loss_scale", o.loss_scale},

@@ -287,16 +287,6 @@ class Evaluator {
     mode_blend_.assign(static_cast<std::size_t>(d.parallax.size()), kNaN);
   }
 
-  // The blend component of a star whose member magnitude variance is V: `component(start)`
-  // with the blends starting kappa sqrt(V) bright. The start depends on V, so d ln L / dV
-  // gains d ln L / dM times d(M - start) / dV = -kappa / (2 sqrt(V)).
-  template <class F>
-  Component blend_start(double V, F component) const {
-    const double kappa = s_.hierarchical.blend_min_sigma, start = kappa * std::sqrt(V);
-    Component b = component(start);
-    b.d_v -= b.d_m * kappa / (2.0 * std::sqrt(V));
-    return b;
-  }
 
   // -ln L with priors, and its gradient in internal coordinates (full length).
   double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad, Eigen::ArrayXd* membership = nullptr) {
@@ -308,6 +298,7 @@ class Evaluator {
     const double f = mixture_ ? t[L_.outlier] : 0.0;
     const double log_f = std::log(f), log_1f = std::log1p(-f);
     const double fb = blends_ ? t[L_.blend] : 0.0, blend_scale = blends_ ? t[L_.blend_scale] : 1.0;
+    const double blend_min = h.blend_min_mag;
     const double log_fb = std::log(fb), log_1fb = std::log1p(-fb);
     const bool feh_errors = L_.feh_mean >= 0;
     const double mu_z = feh_errors ? t[L_.feh_mean] : 0.0, tau2 = feh_errors ? t[L_.feh_spread] * t[L_.feh_spread] : 0.0;
@@ -360,19 +351,14 @@ class Evaluator {
             outlier = integrate_parallax(c.m0[i], GaussianMagnitude(V + wide), d_.plx[i], plx_factor2 * d_.var_plx[i],
                                          M - shift, offset, prior, q_, mode_outlier_[k], bins_outlier_.data());
           if (blends_)
-            blend = blend_start(V, [&](double start) {
-              return integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale), d_.plx[i], d_.var_plx[i], M - start,
-                                        offset, prior, q_blend_, mode_blend_[k], bins_blend_.data());
-            });
+            blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale), d_.plx[i], d_.var_plx[i],
+                                       M - blend_min, offset, prior, q_blend_, mode_blend_[k], bins_blend_.data());
         } else {
           const double mu = kind == 1 ? d_.mu[i] : t[L_.anchor0 + d_.group[i]];
           const double var_mu = kind == 1 ? d_.var_mu[i] : 0.0;
           member = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu), mu, M);
           if (mixture_) outlier = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu + wide), mu, M - shift);
-          if (blends_)
-            blend = blend_start(V + var_mu, [&](double start) {
-              return given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale), mu, M - start);
-            });
+          if (blends_) blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale), mu, M - blend_min);
         }
         // The mixture: q, q_out and q_blend are each component's posterior probability.
         double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;

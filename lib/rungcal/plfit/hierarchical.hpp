@@ -21,8 +21,7 @@ namespace rungcal {
 //   L_i = (1 - f) [(1 - f_b) L_i^member + f_b L_i^blend] + f L_i^out,
 // the outlier component as the member's with the HierarchicalSettings widening, the blend
 // component's magnitude term the exponentially modified Gaussian (blend_log_density) of
-// r + kappa sqrt(V) (blends start kappa = blend_min_sigma member widths bright) with the
-// member's parallax term. Blends are a share of the non-outliers, so either mixture can
+// r + blend_min_mag (blends start that much brighter) with the member's parallax term. Blends are a share of the non-outliers, so either mixture can
 // be switched off without changing the other's meaning. The mu
 // integral is Gauss-Hermite quadrature centred on the integrand's mode with its curvature
 // as the width (Laplace centring), so narrow integrands from precise parallaxes are exact.

@@ -159,11 +159,11 @@ struct HierarchicalSettings {
   // The blend component (BlendComponent); its fraction and scale are parameters
   // (blend_fraction, blend_scale_mag).
   BlendComponent blends = BlendComponent::kExponential;
-  // Blends start this many of a star's member magnitude widths sqrt(V) bright: the exponential
-  // brightening is b = blend_min_sigma sqrt(V) + Exp(s). Closer in, a blend cannot be told from
-  // the scatter, and a component reaching into the core would take the members' bright tail
-  // for blends (sigma_int biased low, alpha faint: docs/method.md).
-  double blend_min_sigma = 1.5;
+  // Blends start this much brighter (mag): the brightening is b = blend_min_mag + Exp(s), a
+  // companion giving at least a quarter of the light. Fainter companions count as intrinsic
+  // scatter: a component reaching into the member core takes the members' bright tail for
+  // blends (sigma_int biased low: docs/method.md).
+  double blend_min_mag = 0.3;
   // The smooth-histogram prior's grid: first centre and step (mag); the bin count is the
   // layout's (ModelTerms::distance_bins). Placed over the data by histogram_grid().
   double histogram_start = 8.0;
