@@ -81,7 +81,7 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   bool free_outlier_shape = false;
   app.add_flag("--fit-outlier-shape", free_outlier_shape, "fit the outlier component's shift and width");
-  std::string blend_component = "exponential";
+  std::string blend_component = "none";
   double blend_scale_prior = 0;
   bool fix_blend_scale = false;
   app.add_option("--blend-component", blend_component, "the hierarchical fit's blend component: exponential or none")

@@ -133,11 +133,11 @@ inline constexpr EnumTable<ScatterEstimator, 2> kScatterEstimatorNames{{{
 
 // The hierarchical model's blend component: stars made brighter by an unresolved companion.
 enum class BlendComponent {
-  kNone,         // no such component: blends are left to the broad outlier component
+  kNone,         // no such component: blends are left to the broad outlier component (default)
   // A magnitude brighter than a member's by b ~ Exp(mean s), s = blend_scale_mag fitted:
   // the member Gaussian convolved with a one-sided exponential, the exponentially modified
   // Gaussian (Grushka 1972, Anal. Chem. 44, 1733), closed form in erfc (hierarchical.hpp).
-  // Parallax as a member's. The default.
+  // Parallax as a member's. Opt-in: see docs/method.md for what it fixes and what it costs.
   kExponential,
 };
 inline constexpr EnumTable<BlendComponent, 2> kBlendComponentNames{{{
@@ -158,7 +158,7 @@ struct HierarchicalSettings {
   double outlier_parallax_factor = 10.0;
   // The blend component (BlendComponent); its fraction and scale are parameters
   // (blend_fraction, blend_scale_mag).
-  BlendComponent blends = BlendComponent::kExponential;
+  BlendComponent blends = BlendComponent::kNone;
   // Blends start this much brighter (mag): the brightening is b = blend_min_mag + Exp(s), a
   // companion giving at least a quarter of the light. Fainter companions count as intrinsic
   // scatter: a component reaching into the member core takes the members' bright tail for
