@@ -81,8 +81,10 @@ void hierarchical_start(const FitData& data, const FitSettings& settings, const 
 // (at most 30; the step grows when the range needs more).
 int histogram_grid(const FitData& data, HierarchicalSettings& settings);
 
-// Gauss-Hermite nodes x_k and weights w_k for int f(x) exp(-x^2) dx, by the Golub-Welsch
-// eigenvalue method (Golub & Welsch 1969, Math. Comp. 23, 221).
+// Gauss-Hermite nodes x_k and weights w_k for int f(x) exp(-x^2) dx: the nodes by the
+// Golub-Welsch eigenvalue method (Golub & Welsch 1969, Math. Comp. 23, 221), the weights as
+// Christoffel numbers from the orthonormal recurrence (accurate where the eigenvectors'
+// are not: the outer weights of rules above ~30 nodes).
 void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights);
 
 }  // namespace rungcal
