@@ -81,6 +81,18 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   bool free_outlier_shape = false;
   app.add_flag("--fit-outlier-shape", free_outlier_shape, "fit the outlier component's shift and width");
+  std::string blend_component = "none";
+  double blend_scale_prior = 0;
+  bool fix_blend_scale = false;
+  app.add_option("--blend-component", blend_component, "the hierarchical fit's blend component: exponential or none")
+      ->capture_default_str();
+  app.add_option("--blend-scale", study.fit.blend_scale.value, "blends' mean brightening: start, fixed value or prior centre (mag)")
+      ->capture_default_str();
+  app.add_option("--blend-scale-prior", blend_scale_prior, "> 0: a Gaussian prior of this width on the blend scale (mag)")
+      ->capture_default_str();
+  app.add_flag("--fix-blend-scale", fix_blend_scale, "hold the blend scale at --blend-scale");
+  app.add_option("--blend-min-mag", study.fit.hierarchical.blend_min_mag, "blends start this much brighter (mag)")
+      ->capture_default_str();
   app.add_option("--metallicity", metallicity, "fit the [Fe/H] term (the truth has gamma = -0.2)")->capture_default_str();
   app.add_option("--bootstrap", bootstrap, "Bootstrap resamples per mock (0: none)")->capture_default_str();
   app.add_option("--seed", seed, "Seed of the first mock")->capture_default_str();
@@ -106,6 +118,11 @@ int main(int argc, char** argv) {
     if (*sp != rungcal::FitSpace::kHierarchical) study.fit.loss = rungcal::LossKind::kHuber;  // that space's documented default
     study.fit.input_path = "(mock)";
     if (free_outlier_shape) study.fit.outlier_shift.mode = study.fit.outlier_width.mode = rungcal::ParamMode::kFree;
+    auto blends = rungcal::kBlendComponentNames.parse(blend_component);
+    if (!blends) throw rungcal::InputError({"--blend-component", {}, {}}, "config_value", "'" + blend_component + "' is not one of: " + rungcal::kBlendComponentNames.choices());
+    study.fit.hierarchical.blends = *blends;
+    if (blend_scale_prior > 0) study.fit.blend_scale.mode = rungcal::ParamMode::kPrior, study.fit.blend_scale.prior_sigma = blend_scale_prior;
+    if (fix_blend_scale) study.fit.blend_scale.mode = rungcal::ParamMode::kFixed;
     study.fit.bootstrap = bootstrap;
     rungcal::RelationOptions rel;
     rel.name = rel.band = "X";

@@ -108,6 +108,12 @@ std::string FitOptions::check() const {
   if (std::string e = check_domain("fit.outlier_mag_shift", outlier_shift, -100.0, false, 100.0);
       !e.empty())
     return e;
+  if (std::string e = check_domain("fit.blend_fraction", blend_fraction, 0.0, true, 1.0); !e.empty())
+    return e;
+  if (std::string e = check_domain("fit.blend_scale_mag", blend_scale, 0.0, false, 10.0); !e.empty())
+    return e;
+  if (!(hierarchical.blend_min_mag >= 0 && hierarchical.blend_min_mag <= 5))
+    return "fit.blend_min_mag: must be 0 to 5 mag";
   if (!(hierarchical.outlier_parallax_factor >= 1 && hierarchical.outlier_parallax_factor < 1e6))
     return "fit.outlier_parallax_factor: must be 1 or more";
   if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
@@ -190,6 +196,10 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.hierarchical.outlier_parallax_factor =
       f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
   o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
+  o.hierarchical.blends = choice_or(*f, "blend_component", kBlendComponentNames, o.hierarchical.blends);
+  o.hierarchical.blend_min_mag = f->number_or("blend_min_mag", o.hierarchical.blend_min_mag);
+  o.blend_fraction = param_from(*f, "blend_fraction", o.blend_fraction);
+  o.blend_scale = param_from(*f, "blend_scale_mag", o.blend_scale);
   o.distance_scale = param_from(*f, "distance_scale_kpc", o.distance_scale);
   o.distance_power = param_from(*f, "distance_power", o.distance_power);
   o.distance_exponent = param_from(*f, "distance_exponent", o.distance_exponent);

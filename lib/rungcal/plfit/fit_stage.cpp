@@ -202,6 +202,7 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const 
   s.terms.n_anchors = static_cast<int>(o.anchors.size());
   s.terms.hierarchical = L.outlier >= 0;
   s.terms.feh_errors = L.feh_mean >= 0;
+  s.terms.blends = L.blend >= 0;
   s.hierarchical = o.hierarchical;
   s.params.assign(L.size, ParamSpec{});
   s.params[L.alpha] = rel.alpha;
@@ -216,6 +217,10 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const 
     s.params[L.outlier] = o.outlier_fraction;
     s.params[L.outlier_shift] = o.outlier_shift;
     s.params[L.outlier_width] = o.outlier_width;
+  }
+  if (s.terms.blends) {
+    s.params[L.blend] = o.blend_fraction;
+    s.params[L.blend_scale] = o.blend_scale;
   }
   if (L.distance_scale >= 0) {
     s.params[L.distance_scale] = o.distance_scale;
@@ -368,6 +373,10 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
 std::string undetermined_reason(const std::string& name, double value) {
   if (name == "outlier_fraction")
     return fmt::format("outlier_fraction = {:.2g}: the data hold no outliers to measure it by; it has no error", value);
+  if (name == "blend_fraction")
+    return fmt::format("blend_fraction = {:.2g}: the data hold no blends to measure it by; it has no error", value);
+  if (name == "blend_scale_mag")
+    return "blend_scale_mag: without blends their brightening is not measured; it has no error";
   if (name == "sigma_int" && value < 1e-3)
     return fmt::format("sigma_int = {:.2g} mag, on its lower bound: consistent with no intrinsic scatter; it has no error", value);
   return "sigma_int cannot be estimated under a redescending (tukey) loss, which gives distant stars no weight: "
@@ -526,6 +535,11 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   return jr;
 }
 
+// A parameter's setting as the result file records it.
+nlohmann::json param_json(const ParamSpec& p) {
+  return {{"mode", std::string(kParamModeNames.name(p.mode))}, {"value", p.value}, {"prior_sigma", p.prior_sigma}};
+}
+
 }  // namespace
 
 double RelationResult::parameter(const std::string& name) const { return solution.theta[index_of(layout, name)]; }
@@ -561,7 +575,8 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     rr.layout = ParameterLayout::for_terms(ModelTerms{rel.pivot_log_period, rel.break_log_period.has_value(),
                                                       rel.break_log_period.value_or(0.0), rel.metallicity,
                                                       static_cast<int>(o.anchors.size()), hierarchical,
-                                                      hierarchical && rel.metallicity && has_feh_errors(c.data), bins},
+                                                      hierarchical && rel.metallicity && has_feh_errors(c.data), bins,
+                                                      hierarchical && o.hierarchical.blends != BlendComponent::kNone},
                                            anchor_names);
     rr.settings = settings_for(o, rel, rr.layout);
     rr.settings.hierarchical = grid;
@@ -672,7 +687,11 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                                     {"histogram_margin_mag", o.hierarchical.histogram_margin},
                                     {"outlier_mag_width", o.hierarchical.outlier_mag_width},
                                     {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
-                                    {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor}}},
+                                    {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor},
+                                    {"blend_component", std::string(kBlendComponentNames.name(o.hierarchical.blends))},
+                                    {"blend_min_mag", o.hierarchical.blend_min_mag},
+                                    {"blend_fraction", param_json(o.blend_fraction)},
+                                    {"blend_scale_mag", param_json(o.blend_scale)}}},
                   {"loss_scale", o.loss_scale},
                   {"clip_sigma", o.clip_sigma},
                   {"zero_point", std::string(kZeroPointRecipeNames.name(o.zero_point))},

@@ -76,6 +76,11 @@ struct FitOptions {
   ParamSpec outlier_fraction;            // share of outliers in the mixture
   ParamSpec outlier_shift{ParamMode::kFixed, 0.0, 0, true};  // outlier component brighter by (mag)
   ParamSpec outlier_width{ParamMode::kFixed, 1.0, 0, true};  // its extra magnitude width (mag)
+  ParamSpec blend_fraction;              // share of blends (of the non-outliers)
+  // Blends' mean brightening beyond their start (mag). A Gaussian prior 0.5 +- 0.15 by default:
+  // free, the scale shrinks onto the members' bright tail when there are few or no blends
+  // (sigma_int 0.6 errors low, alpha 0.6 faint on mocks without blends: docs/method.md).
+  ParamSpec blend_scale{ParamMode::kPrior, 0.5, 0.15, true};
   ParamSpec distance_scale;              // distance prior's length scale L (kpc)
   ParamSpec distance_power;              // its power k (fixed at 2 by the space-density family)
   ParamSpec distance_exponent;           // its exponent a (fixed at 1 by the space-density family)

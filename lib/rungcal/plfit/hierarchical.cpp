@@ -25,10 +25,11 @@ constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 enum class Scale { kLinear, kLog, kLogPlusOne, kLogit };
 
 Scale scale_of(const ParameterLayout& L, int j) {
-  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread || j == L.outlier_width)
+  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread || j == L.outlier_width ||
+      j == L.blend_scale)
     return Scale::kLog;
   if (j == L.distance_power) return Scale::kLogPlusOne;
-  if (j == L.outlier) return Scale::kLogit;
+  if (j == L.outlier || j == L.blend) return Scale::kLogit;
   return Scale::kLinear;
 }
 
@@ -101,22 +102,85 @@ const Quadrature& quadrature(int n) {
 // magnitude M, the magnitude variance V, the parallax offset and the prior's ln L, k, a.
 struct Component {
   double log_l = 0, d_m = 0, d_v = 0, d_off = 0, d_log_scale = 0, d_power = 0, d_exponent = 0;
+  double d_blend_scale = 0;  // the blend component's only
 };
 
-// The mu integral of a parallax star's component (see hierarchical.hpp). m_shift: the
-// model's apparent magnitude less mu (M, or M - shift for the outlier component).
+// A component's magnitude term at one residual r = m - mu - M: ln p(r) (normalised) and its
+// derivatives in r (first and second), in the magnitude variance V and in the blend scale.
+struct MagnitudePoint {
+  double log_p = 0, d_r = 0, d2_r = 0, d_v = 0, d_scale = 0;
+};
+
+// N(r | 0, V): the member and the broad outlier component.
+struct GaussianMagnitude {
+  double var, log_norm;
+  explicit GaussianMagnitude(double v) : var(v), log_norm(-0.5 * (kLog2Pi + std::log(v))) {}
+  MagnitudePoint at(double r) const {
+    const double z = r / var;
+    return {log_norm - 0.5 * r * z, -z, -1.0 / var, 0.5 * (z * z - 1.0 / var), 0.0};
+  }
+  static constexpr double kWidthFactor = 1.0;  // the quadrature's width in curvature widths
+};
+
+// The exponentially modified Gaussian of the blend component (blend_log_density).
+struct BlendMagnitude {
+  double var, scale;
+  BlendMagnitude(double v, double s) : var(v), scale(s) {}
+  MagnitudePoint at(double r) const {
+    const BlendDensity b = blend_log_density(r, var, scale);
+    return {b.log_density, b.d_r, b.d2_r, b.d_var, b.d_scale};
+  }
+  // The exponential tail reaches further than the curvature at the mode says: 24 nodes at
+  // 1.3 curvature widths integrate the blend component to 1e-7 to 1e-9 relative (against
+  // scipy.integrate.quad, noisy and precise parallaxes), at 1.0 only to 1e-5 to 1e-6; the
+  // variance V + s^2 as the width is worse (1e-2). Where the tail spans the prior's range
+  // (noisy parallaxes, s >= 0.45 mag) 24 nodes leave 1e-6, so the blend takes more (blend_nodes).
+  static constexpr double kWidthFactor = 1.3;
+};
+
+// The blend component's node count: 5/3 of the member's (40 for 24), which brings
+// tests/hierarchical_test.cpp's -ln L to within 5e-8 of a 64-node rule (3.6e-6 with 24).
+int blend_nodes(int member_nodes) { return std::min(128, member_nodes * 5 / 3); }
+
+// ln Phi(z), psi = phi(z) / Phi(z) and z + psi, without underflow or cancellation. Below
+// z = -30, erfc(-z / sqrt 2) nears its underflow: Phi(z) = phi(z) / (-z) S(z) with the
+// asymptotic series S = 1 - 1/z^2 + 3/z^4 - ... (Abramowitz & Stegun 26.2.12), whose terms
+// to z^-12 leave a relative error below 1e-16 there.
+void normal_log_cdf(double z, double& log_cdf, double& psi, double& z_plus_psi) {
+  if (z > -30.0) {
+    const double cdf = 0.5 * std::erfc(-z / std::numbers::sqrt2);
+    log_cdf = std::log(cdf);
+    psi = std::exp(-0.5 * z * z - 0.5 * kLog2Pi - log_cdf);
+    z_plus_psi = z + psi;
+    return;
+  }
+  const double u = 1.0 / (z * z);
+  // S - 1 = sum_k (-1)^k (2k - 1)!! u^k, k = 1..6
+  const double s_minus_1 = u * (-1.0 + u * (3.0 + u * (-15.0 + u * (105.0 + u * (-945.0 + u * 10395.0)))));
+  const double S = 1.0 + s_minus_1;
+  log_cdf = -0.5 * z * z - std::log(-z) - 0.5 * kLog2Pi + std::log(S);
+  psi = -z / S;
+  z_plus_psi = z * s_minus_1 / S;
+}
+
+// The mu integral of a parallax star's component (see hierarchical.hpp), whose magnitude
+// term is `mag` (GaussianMagnitude or BlendMagnitude). m_shift: the model's apparent
+// magnitude less mu (M, or M - shift for the outlier component).
 // d_bins (histogram prior): d ln L / d eta_j, written (size B - 1).
-Component integrate_parallax(double m, double var_mag, double plx, double var_plx, double m_shift, double offset,
+template <class Magnitude>
+Component integrate_parallax(double m, const Magnitude& mag, double plx, double var_plx, double m_shift, double offset,
                              const DistancePriorShape& prior, const Quadrature& q, double& mode_cache,
                              double* d_bins) {
   // The mode by safeguarded Newton steps: the exact curvature where it is negative enough,
   // else its expected (Fisher) part, which is always negative.
   auto curvature = [&](double mu, double& slope) {
     const DistancePriorTerms pr = prior.at(mu);
-    const double pt = std::exp(-kC * (mu - 10.0)), r = m - mu - m_shift, e = plx - pt - offset;
-    slope = pr.d_mu + r / var_mag - e * kC * pt / var_plx;
-    const double fisher = 1.0 / var_mag + kC * kC * pt * pt / var_plx - std::min(pr.d2_mu, 0.0);
-    const double exact = 1.0 / var_mag + kC * kC * pt * (pt - e) / var_plx - pr.d2_mu;
+    const double pt = std::exp(-kC * (mu - 10.0)), e = plx - pt - offset;
+    const MagnitudePoint mp = mag.at(m - mu - m_shift);  // d r / d mu = -1
+    slope = pr.d_mu - mp.d_r - e * kC * pt / var_plx;
+    // The magnitude terms are log-concave (-d2_r > 0), so `fisher` stays positive.
+    const double fisher = -mp.d2_r + kC * kC * pt * pt / var_plx - std::min(pr.d2_mu, 0.0);
+    const double exact = -mp.d2_r + kC * kC * pt * (pt - e) / var_plx - pr.d2_mu;
     return exact > 0.2 * fisher ? exact : fisher;
   };
   double mu = std::isfinite(mode_cache) ? mode_cache : m - m_shift;
@@ -129,15 +193,16 @@ Component integrate_parallax(double m, double var_mag, double plx, double var_pl
   }
   h = curvature(mu, slope);
   mode_cache = mu;
-  const double width = 1.0 / std::sqrt(h);
-  const double norm = -0.5 * (2.0 * kLog2Pi + std::log(var_mag) + std::log(var_plx));
+  const double width = Magnitude::kWidthFactor / std::sqrt(h);
+  const double norm = -0.5 * (kLog2Pi + std::log(var_plx));  // the magnitude term is normalised in `mag`
   // Two passes: the log terms and their maximum, then the normalised weights' sums.
   const std::size_t n = q.nodes.size();
   double terms[128];
   double top = -std::numeric_limits<double>::infinity();
   Component c;
-  double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, total = 0;
-  double r_of[128], e_of[128];
+  double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, s_b = 0, total = 0;
+  double e_of[128];
+  MagnitudePoint mp_of[128];
   DistancePriorTerms pr_of[128];
   // The histogram's responsibilities per node, kept for the log-weights' derivatives.
   thread_local std::vector<double> resp;
@@ -148,17 +213,17 @@ Component integrate_parallax(double m, double var_mag, double plx, double var_pl
     pr_of[k] = prior.histogram ? prior.histogram_at(muk, lo_of[k], hi_of[k], resp.data() + k * kHistogramWindow)
                                : prior.at(muk);
     const double pt = std::exp(-kC * (muk - 10.0));
-    r_of[k] = m - muk - m_shift;
+    mp_of[k] = mag.at(m - muk - m_shift);
     e_of[k] = plx - pt - offset;
-    terms[k] = q.log_weight[k] + pr_of[k].log_density - 0.5 * r_of[k] * r_of[k] / var_mag -
-               0.5 * e_of[k] * e_of[k] / var_plx;
+    terms[k] = q.log_weight[k] + pr_of[k].log_density + mp_of[k].log_p - 0.5 * e_of[k] * e_of[k] / var_plx;
     top = std::max(top, terms[k]);
   }
   for (std::size_t k = 0; k < n; ++k) {
     const double w = std::exp(terms[k] - top);
     total += w;
-    s_m += w * r_of[k];
-    s_v += w * r_of[k] * r_of[k];
+    s_m -= w * mp_of[k].d_r;  // d/dM = -d/dr
+    s_v += w * mp_of[k].d_v;
+    s_b += w * mp_of[k].d_scale;
     s_off += w * e_of[k];
     s_l += w * pr_of[k].d_log_scale;
     s_k += w * pr_of[k].d_power;
@@ -175,8 +240,9 @@ Component integrate_parallax(double m, double var_mag, double plx, double var_pl
     }
   }
   c.log_l = std::log(std::numbers::sqrt2 * width) + top + std::log(total) + norm;
-  c.d_m = s_m * inv / var_mag;
-  c.d_v = 0.5 * (s_v * inv - var_mag) / (var_mag * var_mag);
+  c.d_m = s_m * inv;
+  c.d_v = s_v * inv;
+  c.d_blend_scale = s_b * inv;
   c.d_off = s_off * inv / var_plx;
   c.d_log_scale = s_l * inv;
   c.d_power = s_k * inv;
@@ -184,13 +250,16 @@ Component integrate_parallax(double m, double var_mag, double plx, double var_pl
   return c;
 }
 
-// N(m | mu + M, V) for a star whose distance modulus is given (known, or an anchor's).
-Component gaussian_magnitude(double m, double var, double mu, double m_shift) {
+// A component's magnitude term for a star whose distance modulus is given (known, or an
+// anchor's): p(m - mu - M).
+template <class Magnitude>
+Component given_modulus(double m, const Magnitude& mag, double mu, double m_shift) {
+  const MagnitudePoint p = mag.at(m - mu - m_shift);
   Component c;
-  const double r = m - mu - m_shift;
-  c.log_l = -0.5 * (r * r / var + kLog2Pi + std::log(var));
-  c.d_m = r / var;
-  c.d_v = 0.5 * (r * r - var) / (var * var);
+  c.log_l = p.log_p;
+  c.d_m = -p.d_r;
+  c.d_v = p.d_v;
+  c.d_blend_scale = p.d_scale;
   return c;
 }
 
@@ -198,19 +267,26 @@ Component gaussian_magnitude(double m, double var, double mu, double m_shift) {
 struct Gradient {
   double alpha = 0, beta = 0, beta_long = 0, gamma = 0, offset = 0, var_int = 0, outlier = 0;
   double log_scale = 0, power = 0, exponent = 0, feh_mean = 0, feh_var = 0, outlier_shift = 0, outlier_wide = 0;
+  double blend = 0, blend_scale = 0;
   std::vector<double> anchor, bins;
 };
 
 class Evaluator {
  public:
   Evaluator(const FitData& d, const FitSettings& s, const ParameterLayout& L)
-      : d_(d), s_(s), L_(L), q_(quadrature(s.hierarchical.quadrature_nodes)) {
+      : d_(d), s_(s), L_(L), q_(quadrature(s.hierarchical.quadrature_nodes)),
+        q_blend_(quadrature(blend_nodes(s.hierarchical.quadrature_nodes))) {
     // outlier_fraction = 0 fixed: no mixture at all, not one with a vanishing weight.
     mixture_ = L.outlier >= 0 && !(s.params[static_cast<std::size_t>(L.outlier)].mode == ParamMode::kFixed &&
                                    s.params[static_cast<std::size_t>(L.outlier)].value == 0.0);
+    // Likewise blend_fraction = 0 fixed: no blend component.
+    blends_ = L.blend >= 0 && !(s.params[static_cast<std::size_t>(L.blend)].mode == ParamMode::kFixed &&
+                                s.params[static_cast<std::size_t>(L.blend)].value == 0.0);
     mode_member_.assign(static_cast<std::size_t>(d.parallax.size()), kNaN);
     mode_outlier_.assign(static_cast<std::size_t>(d.parallax.size()), kNaN);
+    mode_blend_.assign(static_cast<std::size_t>(d.parallax.size()), kNaN);
   }
+
 
   // -ln L with priors, and its gradient in internal coordinates (full length).
   double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad, Eigen::ArrayXd* membership = nullptr) {
@@ -221,6 +297,9 @@ class Evaluator {
     const double sigma = t[L_.sigma], var_int = sigma * sigma;
     const double f = mixture_ ? t[L_.outlier] : 0.0;
     const double log_f = std::log(f), log_1f = std::log1p(-f);
+    const double fb = blends_ ? t[L_.blend] : 0.0, blend_scale = blends_ ? t[L_.blend_scale] : 1.0;
+    const double blend_min = h.blend_min_mag;
+    const double log_fb = std::log(fb), log_1fb = std::log1p(-fb);
     const bool feh_errors = L_.feh_mean >= 0;
     const double mu_z = feh_errors ? t[L_.feh_mean] : 0.0, tau2 = feh_errors ? t[L_.feh_spread] * t[L_.feh_spread] : 0.0;
     DistancePriorShape prior;
@@ -230,12 +309,15 @@ class Evaluator {
     if (L_.distance_bin0 >= 0)
       prior = DistancePriorShape::make_histogram(h.histogram_start, h.histogram_step, t.data() + L_.distance_bin0,
                                                  L_.distance_bins + 1);
-    bins_member_.assign(H, 0.0), bins_outlier_.assign(H, 0.0);
+    bins_member_.assign(H, 0.0), bins_outlier_.assign(H, 0.0), bins_blend_.assign(H, 0.0);
     const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
     const double wide = width * width, shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
     const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
 
     const int n_anchors = (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;  // the layout's, not the settings'
+    // The components' weights: (1 - f)(1 - f_b), f and (1 - f) f_b.
+    const double log_w_member = (mixture_ ? log_1f : 0.0) + (blends_ ? log_1fb : 0.0);
+    const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
     Gradient g;
     g.anchor.assign(static_cast<std::size_t>(n_anchors), 0.0);
     g.bins.assign(H, 0.0);
@@ -260,34 +342,49 @@ class Evaluator {
         }
         const double M = alpha + beta * c.x[i] + beta_long * c.xl[i] + gamma * zbar;
         const double V = c.var_m[i] + var_int + gamma * gamma * wz;
-        Component member, outlier;
+        Component member, outlier, blend;
         if (kind == 0) {
           const std::size_t k = static_cast<std::size_t>(i);
-          member = integrate_parallax(c.m0[i], V, d_.plx[i], d_.var_plx[i], M, offset, prior, q_, mode_member_[k],
-                                      bins_member_.data());
+          member = integrate_parallax(c.m0[i], GaussianMagnitude(V), d_.plx[i], d_.var_plx[i], M, offset, prior, q_,
+                                      mode_member_[k], bins_member_.data());
           if (mixture_)
-            outlier = integrate_parallax(c.m0[i], V + wide, d_.plx[i], plx_factor2 * d_.var_plx[i], M - shift, offset,
-                                         prior, q_, mode_outlier_[k], bins_outlier_.data());
+            outlier = integrate_parallax(c.m0[i], GaussianMagnitude(V + wide), d_.plx[i], plx_factor2 * d_.var_plx[i],
+                                         M - shift, offset, prior, q_, mode_outlier_[k], bins_outlier_.data());
+          if (blends_)
+            blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale), d_.plx[i], d_.var_plx[i],
+                                       M - blend_min, offset, prior, q_blend_, mode_blend_[k], bins_blend_.data());
         } else {
           const double mu = kind == 1 ? d_.mu[i] : t[L_.anchor0 + d_.group[i]];
           const double var_mu = kind == 1 ? d_.var_mu[i] : 0.0;
-          member = gaussian_magnitude(c.m0[i], V + var_mu, mu, M);
-          if (mixture_) outlier = gaussian_magnitude(c.m0[i], V + var_mu + wide, mu, M - shift);
+          member = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu), mu, M);
+          if (mixture_) outlier = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu + wide), mu, M - shift);
+          if (blends_) blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale), mu, M - blend_min);
         }
-        // The mixture: q is the membership probability.
-        double li = member.log_l, q = 1.0;
+        // The mixture: q, q_out and q_blend are each component's posterior probability.
+        double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;
+        if (mixture_ || blends_) {
+          const double a = log_w_member + member.log_l;
+          const double b = mixture_ ? log_f + outlier.log_l : -std::numeric_limits<double>::infinity();
+          const double e = blends_ ? log_w_blend + blend.log_l : -std::numeric_limits<double>::infinity();
+          const double top = std::max({a, b, e});
+          li = top + std::log(std::exp(a - top) + std::exp(b - top) + std::exp(e - top));
+          q = std::exp(a - li), q_out = std::exp(b - li), q_blend = std::exp(e - li);
+        }
         if (mixture_) {
-          const double a = log_1f + member.log_l, b = log_f + outlier.log_l, top = std::max(a, b);
-          li = top + std::log(std::exp(a - top) + std::exp(b - top));
-          q = std::exp(a - li);
-          g.outlier += w * ((1.0 - q) / f - q / (1.0 - f));
+          g.outlier += w * (q_out / f - (q + q_blend) / (1.0 - f));
           // The outlier magnitude is mu + M - shift with variance V + width^2.
-          g.outlier_shift -= w * (1.0 - q) * outlier.d_m;
-          g.outlier_wide += w * (1.0 - q) * outlier.d_v;
+          g.outlier_shift -= w * q_out * outlier.d_m;
+          g.outlier_wide += w * q_out * outlier.d_v;
+        }
+        if (blends_) {
+          g.blend += w * (q_blend / fb - q / (1.0 - fb));
+          g.blend_scale += w * q_blend * blend.d_blend_scale;
         }
         if (membership) (*membership)[out_row] = q;
         log_l += w * li;
-        auto mix = [&](double Component::*field) { return q * member.*field + (1.0 - q) * outlier.*field; };
+        auto mix = [&](double Component::*field) {
+          return q * member.*field + q_out * outlier.*field + q_blend * blend.*field;
+        };
         const double dm = mix(&Component::d_m), dv = mix(&Component::d_v);
         g.alpha += w * dm;
         g.beta += w * dm * c.x[i];
@@ -302,7 +399,8 @@ class Evaluator {
           g.power += w * mix(&Component::d_power);
           g.exponent += w * mix(&Component::d_exponent);
           for (std::size_t j = 0; j < H; ++j)
-            g.bins[j] += w * (q * bins_member_[j] + (mixture_ ? (1.0 - q) * bins_outlier_[j] : 0.0));
+            g.bins[j] += w * (q * bins_member_[j] + (mixture_ ? q_out * bins_outlier_[j] : 0.0) +
+                              (blends_ ? q_blend * bins_blend_[j] : 0.0));
         }
         if (kind == 2) g.anchor[static_cast<std::size_t>(d_.group[i])] += w * dm;  // d/dmu_g = d/dM
       }
@@ -317,6 +415,7 @@ class Evaluator {
     if (L_.outlier >= 0) gext[L_.outlier] = g.outlier;
     if (L_.outlier_shift >= 0) gext[L_.outlier_shift] = g.outlier_shift;
     if (L_.outlier_width >= 0) gext[L_.outlier_width] = g.outlier_wide * 2.0 * width;
+    if (L_.blend >= 0) gext[L_.blend] = g.blend, gext[L_.blend_scale] = g.blend_scale;
     if (L_.distance_scale >= 0) {
       gext[L_.distance_scale] = g.log_scale / t[L_.distance_scale];
       gext[L_.distance_power] = g.power;
@@ -356,9 +455,10 @@ class Evaluator {
   const FitSettings& s_;
   const ParameterLayout& L_;
   const Quadrature& q_;
-  std::vector<double> mode_member_, mode_outlier_;  // each star's last mode: the next start
-  std::vector<double> bins_member_, bins_outlier_;  // one star's histogram-weight derivatives
-  bool mixture_ = true;
+  const Quadrature& q_blend_;
+  std::vector<double> mode_member_, mode_outlier_, mode_blend_;  // each star's last mode: the next start
+  std::vector<double> bins_member_, bins_outlier_, bins_blend_;  // one star's histogram-weight derivatives
+  bool mixture_ = true, blends_ = false;
 };
 
 // The free parameters as the solver's vector.
@@ -436,6 +536,20 @@ int histogram_grid(const FitData& data, HierarchicalSettings& settings) {
   return static_cast<int>(std::ceil((hi - lo) / step)) + 1;
 }
 
+BlendDensity blend_log_density(double r, double var, double scale) {
+  const double lambda = 1.0 / scale, sd = std::sqrt(var);
+  const double z = -(r + lambda * var) / sd;
+  double log_cdf = 0, psi = 0, z_plus_psi = 0;
+  normal_log_cdf(z, log_cdf, psi, z_plus_psi);
+  BlendDensity b;
+  b.log_density = -std::log(scale) + lambda * r + 0.5 * lambda * lambda * var + log_cdf;
+  b.d_r = lambda - psi / sd;
+  b.d2_r = -psi * z_plus_psi / var;
+  b.d_var = 0.5 * lambda * lambda + psi * (r / var - lambda) / (2.0 * sd);
+  b.d_scale = -lambda * lambda * (scale + r + lambda * var - psi * sd);
+  return b;
+}
+
 void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights) {
   // The Jacobi matrix of the Hermite polynomials: zero diagonal, off-diagonal sqrt(k / 2).
   Eigen::MatrixXd J = Eigen::MatrixXd::Zero(n, n);
@@ -443,11 +557,23 @@ void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weigh
   Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> es(J);
   nodes.resize(static_cast<std::size_t>(n));
   weights.resize(static_cast<std::size_t>(n));
-  const double mu0 = std::sqrt(std::numbers::pi);  // int exp(-x^2) dx
+  // The weights not from the eigenvectors (sqrt(pi) v_0k^2): those are accurate only to about
+  // 1e-16 absolute, so the outer weights of a rule with more than ~30 nodes (true values down
+  // to 1e-100) come out as rounding noise, which multiplied by exp(x^2) swamps integrands
+  // wider than the rule's Gaussian. Instead the Christoffel numbers w_k = 1 / sum_j<n
+  // phi_j(x_k)^2, with the orthonormal Hermite polynomials phi_0 = pi^(-1/4),
+  // phi_1 = sqrt(2) x phi_0, phi_(j+1) = sqrt(2 / (j + 1)) x phi_j - sqrt(j / (j + 1)) phi_(j-1)
+  // (e.g. Gautschi 2004, Orthogonal Polynomials, section 1.4), accurate to rounding relative.
   for (int k = 0; k < n; ++k) {
-    nodes[static_cast<std::size_t>(k)] = es.eigenvalues()[k];
-    const double v = es.eigenvectors()(0, k);
-    weights[static_cast<std::size_t>(k)] = mu0 * v * v;
+    const double x = es.eigenvalues()[k];
+    double prev = 0.0, phi = std::pow(std::numbers::pi, -0.25), sum = phi * phi;
+    for (int j = 0; j + 1 < n; ++j) {
+      const double next = std::sqrt(2.0 / (j + 1)) * x * phi - std::sqrt(static_cast<double>(j) / (j + 1)) * prev;
+      prev = phi, phi = next;
+      sum += phi * phi;
+    }
+    nodes[static_cast<std::size_t>(k)] = x;
+    weights[static_cast<std::size_t>(k)] = 1.0 / sum;
   }
 }
 
@@ -505,8 +631,10 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings, c
     // On the edge of the domain: the likelihood's maximum is not an interior point there.
     // Without outliers their component's shape has nothing to fit either.
     const bool no_outliers = layout.outlier >= 0 && theta[layout.outlier] < 1e-3;
+    const bool no_blends = layout.blend >= 0 && theta[layout.blend] < 1e-3;
     const bool edge = (j == layout.sigma && theta[j] < 1e-3) ||
-                      (no_outliers && (j == layout.outlier || j == layout.outlier_shift || j == layout.outlier_width));
+                      (no_outliers && (j == layout.outlier || j == layout.outlier_shift || j == layout.outlier_width)) ||
+                      (no_blends && (j == layout.blend || j == layout.blend_scale));
     if (edge) {
       undetermined.push_back(layout.names[static_cast<std::size_t>(j)]);
       covariance(j, j) = kNaN;
@@ -559,6 +687,7 @@ void hierarchical_start(const FitData& d, const FitSettings& s, const ParameterL
   if (L.outlier >= 0) t[L.outlier] = 0.02;
   if (L.outlier_shift >= 0) t[L.outlier_shift] = s.hierarchical.outlier_mag_shift;
   if (L.outlier_width >= 0) t[L.outlier_width] = s.hierarchical.outlier_mag_width;
+  if (L.blend >= 0) t[L.blend] = 0.02, t[L.blend_scale] = s.params[static_cast<std::size_t>(L.blend_scale)].value;
   if (L.distance_scale >= 0) {
     // The space-density prior's mean distance is 3 L: start there from the photometric distances.
     double sum = 0;

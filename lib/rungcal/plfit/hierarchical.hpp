@@ -17,13 +17,18 @@ namespace rungcal {
 // 1489): M_i uses Zbar_i = (tau^2 Z_i + s_i^2 mu_Z) / (tau^2 + s_i^2), W_i = tau^2 s_i^2 /
 // (tau^2 + s_i^2), and every star adds ln N(Z_i | mu_Z, tau^2 + s_i^2). Known-distance stars
 // use N(m_i | mu_k + M_i, V_i + sigma_mu^2), anchor stars N(m_i | mu_g + M_i, V_i).
-// Outliers (Hogg, Bovy & Lang 2010, arXiv:1008.4686): L_i = (1 - f) L_i^member + f L_i^out,
-// the outlier component as the member's with the HierarchicalSettings widening. The mu
+// Outliers (Hogg, Bovy & Lang 2010, arXiv:1008.4686) and blends:
+//   L_i = (1 - f) [(1 - f_b) L_i^member + f_b L_i^blend] + f L_i^out,
+// the outlier component as the member's with the HierarchicalSettings widening, the blend
+// component's magnitude term the exponentially modified Gaussian (blend_log_density) of
+// r + blend_min_mag (blends start that much brighter) with the member's parallax term. Blends are a share of the non-outliers, so either mixture can
+// be switched off without changing the other's meaning. The mu
 // integral is Gauss-Hermite quadrature centred on the integrand's mode with its curvature
 // as the width (Laplace centring), so narrow integrands from precise parallaxes are exact.
 //
-// Parameters: the ParameterLayout's, with sigma_int, the outlier fraction, L, k + 1, a and
-// tau solved for on a log (logit for f) scale so that each stays in its domain.
+// Parameters: the ParameterLayout's, with sigma_int, the outlier and blend fractions, the
+// blend scale, L, k + 1, a and tau solved for on a log (logit for the fractions) scale so
+// that each stays in its domain.
 
 // -ln L (priors included) and its gradient in the solver's coordinates; exposed for tests.
 struct HierarchicalValue {
@@ -33,6 +38,19 @@ struct HierarchicalValue {
 };
 HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                                      const Eigen::VectorXd& theta);
+
+// The blend component's magnitude density: a member's residual r = m - mu - M ~ N(0, V),
+// made brighter by b ~ Exp(mean s), b >= 0 (blends only brighten), is r - b, with density
+// (the exponentially modified Gaussian; Grushka 1972, Anal. Chem. 44, 1733)
+//   p(r) = lambda exp(lambda r + lambda^2 V / 2) Phi(z),  z = -(r + lambda V) / sqrt(V),  lambda = 1 / s.
+// Its log and exact derivatives, with psi = phi(z) / Phi(z) (d ln Phi / dz; d psi / dz =
+// -psi (z + psi)): d/dr = lambda - psi / sqrt(V), d2/dr2 = -psi (z + psi) / V (< 0: log-concave),
+// d/dV = lambda^2 / 2 + psi (r / V - lambda) / (2 sqrt(V)), d/ds = -lambda^2 (1 / lambda + r + lambda V - psi sqrt(V)).
+// ln Phi for z < -30 from its asymptotic series (Abramowitz & Stegun 26.2.12), where erfc underflows.
+struct BlendDensity {
+  double log_density = 0, d_r = 0, d2_r = 0, d_var = 0, d_scale = 0;
+};
+BlendDensity blend_log_density(double r, double var, double scale);
 
 // Maximum likelihood from a start (external parameters); fixed parameters stay at theirs.
 FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
@@ -47,12 +65,13 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings, c
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
                              std::vector<std::string>& undetermined);
 
-// Per star (parallax, known, anchor order): the probability of being a member, not an outlier.
+// Per star (parallax, known, anchor order): the probability of being a member, neither an
+// outlier nor a blend.
 Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                                        const Eigen::VectorXd& theta);
 
-// Start values of the hierarchical model's own parameters from the data (outlier fraction
-// 0.02, L from the stars' photometric distances, the [Fe/H] population's moments).
+// Start values of the hierarchical model's own parameters from the data (outlier and blend
+// fractions 0.02, L from the stars' photometric distances, the [Fe/H] population's moments).
 void hierarchical_start(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                         Eigen::VectorXd& theta);
 
@@ -62,8 +81,10 @@ void hierarchical_start(const FitData& data, const FitSettings& settings, const 
 // (at most 30; the step grows when the range needs more).
 int histogram_grid(const FitData& data, HierarchicalSettings& settings);
 
-// Gauss-Hermite nodes x_k and weights w_k for int f(x) exp(-x^2) dx, by the Golub-Welsch
-// eigenvalue method (Golub & Welsch 1969, Math. Comp. 23, 221).
+// Gauss-Hermite nodes x_k and weights w_k for int f(x) exp(-x^2) dx: the nodes by the
+// Golub-Welsch eigenvalue method (Golub & Welsch 1969, Math. Comp. 23, 221), the weights as
+// Christoffel numbers from the orthonormal recurrence (accurate where the eigenvectors'
+// are not: the outer weights of rules above ~30 nodes).
 void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights);
 
 }  // namespace rungcal

@@ -418,6 +418,10 @@ ParameterLayout ParameterLayout::for_terms(const ModelTerms& terms, const std::v
     add(L.outlier, "outlier_fraction");
     add(L.outlier_shift, "outlier_shift_mag");
     add(L.outlier_width, "outlier_width_mag");
+    if (terms.blends) {
+      add(L.blend, "blend_fraction");
+      add(L.blend_scale, "blend_scale_mag");
+    }
     if (terms.distance_bins > 0) {
       L.distance_bin0 = next;
       L.distance_bins = terms.distance_bins - 1;

@@ -66,6 +66,7 @@ struct ModelTerms {
   bool hierarchical = false;  // the hyperparameters of FitSpace::kHierarchical
   bool feh_errors = false;    // [Fe/H] errors are marginalised: its population mean and spread
   int distance_bins = 0;      // > 0: the smooth-histogram distance prior with this many bins
+  bool blends = false;        // the blend component's fraction and scale (hierarchical)
 };
 
 // Where each parameter sits in the parameter vector.
@@ -74,6 +75,7 @@ struct ParameterLayout {
   // The hierarchical model's own: outlier fraction, distance-prior hyperparameters (L in kpc,
   // k, a: see DistancePriorFamily), and the [Fe/H] population's mean and spread.
   int outlier = -1, outlier_shift = -1, outlier_width = -1;
+  int blend = -1, blend_scale = -1;  // the blend component's fraction and mean brightening (mag)
   int distance_scale = -1, distance_power = -1, distance_exponent = -1;
   int feh_mean = -1, feh_spread = -1;
   int distance_bin0 = -1, distance_bins = 0;  // smooth histogram: log-weights eta_1 .. eta_(B-1)
@@ -129,6 +131,20 @@ inline constexpr EnumTable<ScatterEstimator, 2> kScatterEstimatorNames{{{
     {ScatterEstimator::kLikelihood, "likelihood"},
 }}};
 
+// The hierarchical model's blend component: stars made brighter by an unresolved companion.
+enum class BlendComponent {
+  kNone,         // no such component: blends are left to the broad outlier component (default)
+  // A magnitude brighter than a member's by b ~ Exp(mean s), s = blend_scale_mag fitted:
+  // the member Gaussian convolved with a one-sided exponential, the exponentially modified
+  // Gaussian (Grushka 1972, Anal. Chem. 44, 1733), closed form in erfc (hierarchical.hpp).
+  // Parallax as a member's. Opt-in: see docs/method.md for what it fixes and what it costs.
+  kExponential,
+};
+inline constexpr EnumTable<BlendComponent, 2> kBlendComponentNames{{{
+    {BlendComponent::kNone, "none"},
+    {BlendComponent::kExponential, "exponential"},
+}}};
+
 // The hierarchical likelihood's fixed choices (FitSpace::kHierarchical).
 struct HierarchicalSettings {
   DistancePriorFamily prior = DistancePriorFamily::kSmoothHistogram;
@@ -140,6 +156,14 @@ struct HierarchicalSettings {
   double outlier_mag_width = 1.0;
   double outlier_mag_shift = 0.0;
   double outlier_parallax_factor = 10.0;
+  // The blend component (BlendComponent); its fraction and scale are parameters
+  // (blend_fraction, blend_scale_mag).
+  BlendComponent blends = BlendComponent::kNone;
+  // Blends start this much brighter (mag): the brightening is b = blend_min_mag + Exp(s), a
+  // companion giving at least a quarter of the light. Fainter companions count as intrinsic
+  // scatter: a component reaching into the member core takes the members' bright tail for
+  // blends (sigma_int biased low: docs/method.md).
+  double blend_min_mag = 0.3;
   // The smooth-histogram prior's grid: first centre and step (mag); the bin count is the
   // layout's (ModelTerms::distance_bins). Placed over the data by histogram_grid().
   double histogram_start = 8.0;
