@@ -346,6 +346,21 @@ TEST(FitStage, BadInputsStopCleanly) {
   }
 }
 
+TEST(FitStage, TooFewCalibratorsSaysWhyTheStarsWereRefused) {
+  // Issue 19: "0 usable calibrators" gave no reason. The Riess et al. 2018 table has no
+  // [Fe/H], so a metallicity term refuses every star, and the message says so.
+  test::TempDir dir;
+  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
+                                          " --out " + dir.file("cat.fits")).exit_code, 0);
+  test::write_text(dir.file("f.toml"), "[fit]\ninput = \"cat.fits\"\noutput = \"out/fit.json\"\n[[relation]]\nband = "
+                                       "\"W_H\"\nmagnitude_column = \"mag_W_H\"\nmetallicity = true\n");
+  auto r = test::run_stage("fit", "--config " + dir.file("f.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("[too_few_calibrators]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("x 'no [Fe/H] for the metallicity term'"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("(of 46 catalog stars, refused: 46 x"), std::string::npos) << r.output;
+}
+
 TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetWithAConsistentChi2) {
   // The demo scenario (simulated truth: residual parallax offset -0.010 mas after the
   // -0.020 mas zero point): W_VI, W_G and Ks together, intrinsic scatter correlated 0.9

@@ -249,12 +249,38 @@ void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
       rr.settings.params[j] = ParamSpec{ParamMode::kFixed, j == L.distance_scale ? 1.0 : (j == L.distance_power ? 2.0 : 1.0), 0, true};
 }
 
+// Why the catalog's stars were refused, most common first (issue 19: "0 usable
+// calibrators" gave no reason). Reasons that differ only in their numbers ("log P = 0.12
+// outside ...") count together, shown by their first instance.
+std::string refusal_summary(const Calibrators& c) {
+  std::map<std::string, std::pair<int, std::string>> groups;
+  for (const StarOutcome& s : c.stars) {
+    if (s.used || s.reason.empty()) continue;
+    std::string key;
+    for (char ch : s.reason)
+      if (!std::isdigit(static_cast<unsigned char>(ch)) && ch != '.' && ch != '-' && ch != '+') key += ch;
+    auto& g = groups[key];
+    if (g.first++ == 0) g.second = s.reason;
+  }
+  std::vector<std::pair<int, std::string>> sorted;
+  for (const auto& [key, g] : groups) sorted.push_back(g);
+  std::sort(sorted.begin(), sorted.end(), [](const auto& a, const auto& b) { return a.first > b.first; });
+  std::string out;
+  for (std::size_t i = 0; i < sorted.size() && i < 3; ++i)
+    out += fmt::format("{}{} x '{}'{}", out.empty() ? "" : "; ", sorted[i].first, sorted[i].second,
+                       sorted[i].first > 1 && sorted[i].second.find_first_of("0123456789") != std::string::npos
+                           ? " (and the like)" : "");
+  if (sorted.size() > 3) out += "; ...";
+  return out.empty() ? "" : fmt::format(" (of {} catalog stars, refused: {})", c.stars.size(), out);
+}
+
 // Data rows with nothing to constrain a parameter make the fit degenerate; say so plainly.
 void check_constrained(const FitOptions& o, const RelationOptions& rel, const Calibrators& c, const FitSettings& s,
                        const ParameterLayout& L) {
   if (c.data.stars() < 3)
     throw InputError({o.input_path, {}, {}}, "too_few_calibrators",
-                     fmt::format("relation {}: {} usable calibrators, at least 3 are needed", rel.name, c.data.stars()));
+                     fmt::format("relation {}: {} usable calibrators, at least 3 are needed{}", rel.name,
+                                 c.data.stars(), refusal_summary(c)));
   if (s.params[L.offset].mode == ParamMode::kFree && c.data.parallax.size() == 0)
     throw InputError({o.config_file, {}, "fit.offset", "line", "key"}, "config_value",
                      fmt::format("relation {}: the parallax offset is free but no parallax calibrator is used", rel.name));
