@@ -7,6 +7,8 @@
 #include <fmt/format.h>
 
 #include <cmath>
+#include <map>
+#include <set>
 #include <limits>
 #include <fstream>
 #include <numbers>
@@ -483,6 +485,74 @@ TEST(LightCurveRows, BadRowsAreRefusedWithTheirRuleAndTheRestIsMeasured) {
   ASSERT_NE(sum.keyword("RGTIMESC"), nullptr);
   EXPECT_EQ(std::get<std::string>(sum.keyword("RGTIMESC")->value), "bjd_tdb");
   ASSERT_NE(sum.keyword("RGSTAGE"), nullptr);
+}
+
+// The demo's first stars, written as a survey publishes them: one headerless file per star
+// and band, "time mag err" in whitespace columns, times as BJD - 2450000.
+TEST(LightCurveFiles, PerStarFilesGiveTheSameResultsAsOneTable) {
+  test::TempDir dir;
+  const SourceTable all = read_text_table(test::source_file("sample_data/lightcurves.csv"), {});
+  const StarTable& t = all.table;
+  std::map<std::string, std::string> files;  // file name -> content
+  std::string table = "star,time,band,mag,mag_err\n";
+  std::set<std::string> stars;
+  for (std::size_t r = 0; r < t.rows(); ++r) {
+    const std::string star = t.column("star").text[r];
+    if (!stars.count(star) && stars.size() == 4) continue;
+    stars.insert(star);
+    const double time = std::stod(t.column("time_bjd_tdb").text[r]);
+    const std::string band = t.column("band").text[r], mag = t.column("mag").text[r], err = t.column("mag_err").text[r];
+    table += fmt::format("{},{:.4f},{},{},{}\n", star, time, band, mag, err);
+    files[star + "." + band + ".dat"] += fmt::format("{:.4f}  {}  {}\n", time - 2450000.0, mag, err);
+  }
+  test::write_text(dir.file("one/table.csv"), table);
+  for (const auto& [name, content] : files) test::write_text(dir.file("lc/" + name), content);
+  const std::string common = "bands_file = \"" + test::source_file("config/bands.toml") + "\"\n";
+  test::write_text(dir.file("one.toml"), common + "[source]\npath = \"one/table.csv\"\n[columns]\ntime = \"time\"\n"
+                                                  "[output]\npath = \"out/one.fits\"\n");
+  test::write_text(dir.file("files.toml"),
+                   common + "[source]\npath = \"lc/*.dat\"\nname_pattern = \"{star}.{band}.dat\"\nheader = false\n"
+                            "delimiter = \"whitespace\"\ncolumn_names = [\"time\", \"mag\", \"mag_err\"]\n"
+                            "time_offset_d = 2450000\n[columns]\ntime = \"time\"\n[output]\npath = \"out/files.fits\"\n");
+  const LightCurveResult one = run_lightcurves(lightcurve_options_from_file(dir.file("one.toml")));
+  const LightCurveOptions fo = lightcurve_options_from_file(dir.file("files.toml"));
+  const LightCurveResult per = run_lightcurves(fo);
+  EXPECT_EQ(per.provenance.inputs.size(), files.size());  // every file, with its hash
+  EXPECT_EQ(lightcurve_input_files(fo).size(), files.size());
+  ASSERT_EQ(per.stars.size(), 4u);
+  ASSERT_EQ(one.stars.size(), 4u);
+  const StarTable a = one.summary_table(TimeScale::kBjdTdb), b = per.summary_table(TimeScale::kBjdTdb);
+  for (std::size_t i = 0; i < a.rows(); ++i) {
+    EXPECT_EQ(a.column("id").text[i], b.column("id").text[i]);
+    EXPECT_NEAR(b.column("period_d").real[i], a.column("period_d").real[i], 1e-7 * a.column("period_d").real[i]);
+    EXPECT_NEAR(b.column("t_ref").real[i], a.column("t_ref").real[i], 1e-6);
+    for (const char* band : {"mag_V", "mag_I", "mag_Ks"})
+      EXPECT_NEAR(b.column(band).real[i], a.column(band).real[i], 1e-7) << band;
+  }
+}
+
+TEST(LightCurveFiles, AFileNameThatDoesNotMatchOrNoFileAtAllStopsWithItsRule) {
+  test::TempDir dir;
+  const std::string common = "bands_file = \"" + test::source_file("config/bands.toml") + "\"\n";
+  test::write_text(dir.file("lc/S1.V.dat"), "1.0 12.0 0.01\n");
+  test::write_text(dir.file("lc/README.dat"), "1.0 12.0 0.01\n");  // no {band} part
+  const std::string cfg = common + "[source]\npath = \"lc/*.dat\"\nname_pattern = \"{star}.{band}.dat\"\nheader = false\n"
+                                   "delimiter = \"whitespace\"\ncolumn_names = [\"time\", \"mag\", \"mag_err\"]\n"
+                                   "[columns]\ntime = \"time\"\n[output]\npath = \"out/lc.fits\"\n";
+  test::write_text(dir.file("c.toml"), cfg);
+  auto r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("README.dat"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("[file_name_pattern]"), std::string::npos) << r.output;
+  test::write_text(dir.file("c.toml"), test::replaced(cfg, {{"lc/*.dat", "none/*.dat"}}));
+  r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("[no_files]"), std::string::npos) << r.output;
+  test::write_text(dir.file("c.toml"), test::replaced(cfg, {{"{star}.{band}.dat", "{band}.dat"}}));
+  r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("must hold {star}"), std::string::npos) << r.output;
+  EXPECT_FALSE(test::file_exists(dir.file("out")));
 }
 
 TEST(IngestJoin, LightCurvePeriodsAndMeansReplaceTheCatalogsAndSayWhere) {

@@ -141,6 +141,7 @@ std::string LightCurveOptions::check() const {
   if (!(competing_peak_ratio > 0 && competing_peak_ratio <= 1))
     return "flags.competing_peak_ratio: must be in (0, 1]";
   if (threads < 0) return "threads: must be 0 (every core) or positive";
+  if (std::string f = files.check(); !f.empty()) return f;
   if (output_path.empty()) return "output.path: required";
   return "";
 }
@@ -163,6 +164,9 @@ LightCurveOptions lightcurve_options_from_file(const std::string& path) {
     source->fail("time_scale",
                  fmt::format("'{}' is not one of: {}", scale, kTimeScaleNames.choices()));
   o.time_scale = *parsed_scale;
+  o.files.name_pattern = source->string_or("name_pattern", "");
+  o.files.band = source->string_or("band", "");
+  o.files.time_offset_d = source->number_or("time_offset_d", 0.0);
   if (auto cols = root.section("columns")) {
     o.star_column = cols->string_or("star", o.star_column);
     o.time_column = cols->string_or("time", o.time_column);
@@ -440,20 +444,30 @@ StarResult decode_star_result(const std::string& bytes) {
   return s;
 }
 
+std::vector<std::string> lightcurve_input_files(const LightCurveOptions& o) {
+  return o.files.enabled() ? per_star_file_list(o.source.path) : std::vector<std::string>{o.source.path};
+}
+
 LightCurveResult run_lightcurves(const LightCurveOptions& o) {
   throw_if_invalid(o.check(), file_label(o));
   BandTable band_table = BandTable::from_file(o.bands_file);
   spdlog::debug("reading {}", o.source.path);
-  SourceTable in = read_table_source(o.source);
+  LightCurveResult result;
+  result.provenance = Provenance::for_stage("lightcurve");
+  result.provenance.config_sha256 = o.config_sha256;
+  SourceTable in;
+  if (o.files.enabled()) {
+    in = read_per_star_files(o.source, o.files, {o.star_column, o.time_column, o.band_column, o.mag_column, o.err_column},
+                             result.provenance.inputs);
+  } else {
+    in = read_table_source(o.source);
+    result.provenance.inputs.push_back(
+        {o.source.path, sha256_file(o.source.path), static_cast<std::int64_t>(in.table.rows())});
+  }
   if (in.table.rows() == 0)
     throw InputError({in.file, {}, {}}, "empty_file", "the time series has no rows");
   spdlog::debug("{} rows read", in.table.rows());
-  LightCurveResult result;
   result.rows_read = in.table.rows();
-  result.provenance = Provenance::for_stage("lightcurve");
-  result.provenance.config_sha256 = o.config_sha256;
-  result.provenance.inputs.push_back(
-      {o.source.path, sha256_file(o.source.path), static_cast<std::int64_t>(in.table.rows())});
   result.series = group_observations(in, o, band_table, result.rejected, result.bands);
   spdlog::debug("{} rows read and grouped into {} stars", in.table.rows(), result.series.size());
   if (result.series.empty())

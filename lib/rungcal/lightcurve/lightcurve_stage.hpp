@@ -13,6 +13,7 @@
 #include "rungcal/lightcurve/periodogram.hpp"
 #include "rungcal/photometry/bands.hpp"
 #include "rungcal/table/star_table.hpp"
+#include "rungcal/lightcurve/per_star_files.hpp"
 #include "rungcal/table/table_source.hpp"
 
 namespace rungcal {
@@ -26,8 +27,13 @@ inline constexpr EnumTable<TimeScale, 4> kTimeScaleNames{{{
     {TimeScale::kMjd, "mjd"},
 }}};
 
+struct LightCurveOptions;
+// The files the light-curve stage reads: the one table, or every per-star file.
+std::vector<std::string> lightcurve_input_files(const LightCurveOptions& options);
+
 struct LightCurveOptions {
   TableSourceSpec source;                     // the time series: FITS or delimited text ([source])
+  PerStarFiles files;                         // or one file per star: source.path is then a glob
   std::string star_column = "star";           // star id (as in the calibrator catalog)
   std::string time_column = "time";           // time of each epoch, days
   std::string band_column = "band";           // band name (as in the band table)

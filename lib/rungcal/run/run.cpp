@@ -540,7 +540,11 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   if (lc_opt)
     stages.push_back({"lightcurve",
                       o.lightcurve_config,
-                      {lc_opt->source.path, lc_opt->bands_file},
+                      [&] {  // every per-star file keys the stage, not the glob
+                        std::vector<std::string> in = lightcurve_input_files(*lc_opt);
+                        in.push_back(lc_opt->bands_file);
+                        return in;
+                      }(),
                       "",
                       {lc_opt->output_path, lc_opt->summary_csv_path},
                       "",
