@@ -436,6 +436,21 @@ TEST(Figures, LightCurveShowsEachEpochTwiceAndTheModelPeaksAtPhaseZero) {
   cairo_surface_destroy(img);
 }
 
+TEST(Figures, ALightCurveKeepsItsKeyOffTheDataAndItsModelOffTheFrame) {
+  // Issue 20, read as a referee: the key covered epochs, the model touched the frame, and
+  // the magnitude axis had two ticks.
+  test::TempDir dir;
+  LightCurveTables t = light_curve_inputs();
+  FigureSummary s = light_curve_figure(t, "STAR-A", FigureFormat::kPng, dir.file("lc.png"));
+  EXPECT_LE(s.legend_bottom, s.box_top);  // above the plot box
+  EXPECT_GT(s.legend_right, s.legend_left);
+  // The model spans 12 -+ 0.3 mag (plus the 0.01 mag error bars): clear of both edges.
+  const double lo = std::min(s.y_min, s.y_max), hi = std::max(s.y_min, s.y_max);
+  EXPECT_LT(lo, 11.7 - 0.05);
+  EXPECT_GT(hi, 12.3 + 0.05);
+  EXPECT_GE(s.y_ticks, 4);
+}
+
 TEST(Figures, LightCurveOfAStarWithoutAPeriodIsRefused) {
   test::TempDir dir;
   LightCurveTables t = light_curve_inputs();

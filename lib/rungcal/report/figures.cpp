@@ -119,27 +119,31 @@ std::string axis_number(double v) {
 
 namespace {
 
-void axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::string& ylabel, bool x_numbers = true,
-          double min_x_step = 0.0) {
+// Draws the frame, ticks and labels; returns the number of labelled y ticks.
+int axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::string& ylabel, bool x_numbers = true,
+         double min_x_step = 0.0, int y_ticks = 5) {
   cairo_set_source_rgb(cr, 0, 0, 0);
   cairo_set_line_width(cr, 1.2);
   cairo_rectangle(cr, p.left, p.top, p.right - p.left, p.bottom - p.top);
   cairo_stroke(cr);
-  double sx = std::max(tick_step(p.x0, p.x1), min_x_step), sy = tick_step(std::min(p.y0, p.y1), std::max(p.y0, p.y1), 5);
+  double sx = std::max(tick_step(p.x0, p.x1), min_x_step), sy = tick_step(std::min(p.y0, p.y1), std::max(p.y0, p.y1), y_ticks);
   for (double x = std::ceil(p.x0 / sx) * sx; x <= p.x1 + 1e-9; x += sx) {
     cairo_move_to(cr, p.px(x), p.bottom);
     cairo_line_to(cr, p.px(x), p.bottom - 6);
     cairo_stroke(cr);
     if (x_numbers) text(cr, p.px(x), p.bottom + 6, axis_number(std::round(x / sx) * sx), 13, 0.5, 1.0);
   }
+  int labelled = 0;
   for (double y = std::ceil(std::min(p.y0, p.y1) / sy) * sy; y <= std::max(p.y0, p.y1) + 1e-9; y += sy) {
     cairo_move_to(cr, p.left, p.py(y));
     cairo_line_to(cr, p.left + 6, p.py(y));
     cairo_stroke(cr);
     text(cr, p.left - 6, p.py(y), axis_number(std::round(y / sy) * sy), 13, 1.0, 0.5);
+    ++labelled;
   }
   if (!xlabel.empty()) text(cr, (p.left + p.right) / 2, p.bottom + 28, xlabel, 15, 0.5, 1.0);
   text(cr, p.left - 52, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true);
+  return labelled;
 }
 
 void marker(cairo_t* cr, double x, double y, bool used) {
@@ -505,7 +509,7 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
   for (const auto& o : obs) ymin = std::min(ymin, o.mag - o.err), ymax = std::max(ymax, o.mag + o.err);
   for (std::size_t b = 0; b < bands.size(); ++b)  // the model's extremes, which epochs may miss
     for (int i = 0; i < 200 && !coef[b].empty(); ++i) ymin = std::min(ymin, model(b, i / 200.0)), ymax = std::max(ymax, model(b, i / 200.0));
-  const double pad = 0.06 * (ymax - ymin + 0.1);
+  const double pad = 0.10 * (ymax - ymin + 0.1);  // the model and error bars clear the frame
   std::vector<double> freq, power;
   for (std::size_t i = 0; i < lc.periodogram.rows(); ++i)
     if (lc.periodogram.column("id").text[i] == star) {
@@ -543,15 +547,16 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
     }
   cairo_restore(cr);
   s.used_points = static_cast<int>(obs.size());
-  axes(cr, top, "phase (maximum light at 0)", "magnitude");
-  // Legend: band names in their colour and shape, on white so data behind it stay apart.
-  cairo_set_source_rgba(cr, 1, 1, 1, 0.85);
-  cairo_rectangle(cr, top.right - 80, top.top + 4, 72, 18.0 * static_cast<double>(bands.size()) + 4);
-  cairo_fill(cr);
+  s.y_ticks = axes(cr, top, "phase (maximum light at 0)", "magnitude", true, 0.0, 8);
+  // Legend: band names in their colour and shape, in one row above the plot box, beside the
+  // title, where it can cover no epoch (issue 20).
+  constexpr double kEntry = 56;
+  const double legend_y = top.top - 16, legend_x = top.right - kEntry * static_cast<double>(bands.size());
+  s.legend_left = legend_x, s.legend_right = top.right, s.legend_top = legend_y - 9, s.legend_bottom = legend_y + 9;
   for (std::size_t b = 0; b < bands.size(); ++b) {
-    const double x = top.right - 70, y = top.top + 14 + 18.0 * static_cast<double>(b);
-    band_marker(cr, x, y, b);
-    text(cr, x + 10, y, bands[b], 13, 0.0, 0.5);
+    const double x = legend_x + 8 + kEntry * static_cast<double>(b);
+    band_marker(cr, x, legend_y, b);
+    text(cr, x + 10, legend_y, bands[b], 13, 0.0, 0.5);
   }
   text(cr, top.left + 10, top.top - 26, fmt::format("{}   P = {:.6f} d", star, period), 14, 0.0, 1.0);
 

@@ -23,6 +23,7 @@ struct FigureSummary {
   int used_points = 0, rejected_points = 0;
   int not_drawn_points = 0;  // PL diagram: stars with no magnitude to draw (parallax <= 0)
   double legend_left = 0, legend_right = 0, legend_top = 0, legend_bottom = 0;  // its key, if any
+  int y_ticks = 0;  // labelled ticks on the top panel's y axis (light curves)
   // Plot box of the top panel in output units (PNG pixels), and its data ranges.
   double box_left = 0, box_right = 0, box_top = 0, box_bottom = 0;
   double x_min = 0, x_max = 0, y_min = 0, y_max = 0;
