@@ -316,13 +316,6 @@ std::vector<StarSeries> group_observations(const SourceTable& in, const LightCur
     }
     return !it->second.insert(when).second;
   };
-  auto number = [](const Column& c, std::size_t r) -> std::optional<double> {
-    if (c.is_null(r)) return std::nullopt;
-    if (c.type != ColumnType::kText) return c.as_real(r);
-    double v = 0;
-    if (!parse_real(c.text[r], v)) return std::nullopt;
-    return v;
-  };
   for (std::size_t r = 0; r < t.rows(); ++r) {
     const std::int64_t row = in.source_rows[r];
     const std::string id = star.is_null(r) ? "" : star.to_string(r);
@@ -343,7 +336,7 @@ std::vector<StarSeries> group_observations(const SourceTable& in, const LightCur
       reject("unknown_band", o.band_column, fmt::format("band '{}' is not in the band table", b));
       continue;
     }
-    auto tv = number(time, r), mv = number(mag, r), ev = number(err, r);
+    auto tv = cell_number(time, r), mv = cell_number(mag, r), ev = cell_number(err, r);
     if (!tv || !std::isfinite(*tv)) {
       reject("not_a_number", o.time_column, "the time is missing or not a number");
       continue;

@@ -40,14 +40,6 @@ NameRegex name_regex(const std::string& pattern) {
   return n;
 }
 
-std::optional<double> number_at(const Column& c, std::size_t r) {
-  if (c.is_null(r)) return std::nullopt;
-  if (c.type != ColumnType::kText) return c.as_real(r);
-  double v = 0;
-  if (!parse_real(c.text[r], v)) return std::nullopt;
-  return v;
-}
-
 const Column& column_of(const SourceTable& in, const std::string& name) {
   if (!in.table.has(name))
     throw InputError({in.file, {}, name}, "missing_column",
@@ -113,10 +105,10 @@ SourceTable read_per_star_files(const TableSourceSpec& spec, const PerStarFiles&
       t.column(cols.star).push_text(star);
       if (band_col && band_col->is_null(r)) t.column(cols.band).push_null();
       else t.column(cols.band).push_text(band_col ? band_col->to_string(r) : band);
-      const std::optional<double> when = number_at(time, r);
+      const std::optional<double> when = cell_number(time, r);
       when ? t.column(cols.time).push_real(*when + files.time_offset_d) : t.column(cols.time).push_null();
       for (const auto& [from, to] : {std::pair{&mag, &cols.mag}, std::pair{&err, &cols.err}}) {
-        const std::optional<double> v = number_at(*from, r);
+        const std::optional<double> v = cell_number(*from, r);
         v ? t.column(*to).push_real(*v) : t.column(*to).push_null();
       }
       out.source_rows.push_back(in.source_rows[r]);

@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
+#include <map>
 #include <optional>
 #include <set>
 
@@ -76,14 +77,23 @@ Versions load_versions(const SiteOptions& o) {
   return v;
 }
 
-// The largest |shift| in sigma of any parameter of a relation between two versions.
-double largest_shift_sigma(const Calibration& from, const Calibration& to, const std::string& relation) {
-  double largest = 0;
-  for (const ParameterShift& s : diff_calibrations(from, to).shifts)
-    if (s.relation == relation && std::isfinite(s.shift_in_sigma))
-      largest = std::max(largest, std::abs(s.shift_in_sigma));
-  return largest;
-}
+// The largest |shift| in sigma of any parameter of each relation between two versions,
+// diffed once per pair of versions, not once per relation.
+class ShiftsBetweenVersions {
+ public:
+  double largest(const Calibration& from, const Calibration& to, const std::string& relation) {
+    auto [it, fresh] = by_pair_.try_emplace({from.version(), to.version()});
+    if (fresh)
+      for (const ParameterShift& s : diff_calibrations(from, to).shifts)
+        if (std::isfinite(s.shift_in_sigma))
+          it->second[s.relation] = std::max(it->second[s.relation], std::abs(s.shift_in_sigma));
+    const auto r = it->second.find(relation);
+    return r == it->second.end() ? 0.0 : r->second;
+  }
+
+ private:
+  std::map<std::pair<int, int>, std::map<std::string, double>> by_pair_;
+};
 
 std::string header_section(const Versions& v) {
   const nlohmann::json& doc = v.latest.document;
@@ -120,6 +130,7 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
                      "parameter by more than {} sigma from the version before it; withdrawn versions (above "
                      "the one <code>latest</code> names) are struck through.</p>\n",
                      o.drift_alarm_sigma);
+  ShiftsBetweenVersions shifts;
   for (const std::string& relation : v.latest.relation_names()) {
     const nlohmann::json& latest_rel = v.latest.relation(relation);
     std::vector<std::string> names;
@@ -133,7 +144,7 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
       const nlohmann::json* rel = c.find_relation(relation);
       if (!rel) continue;
       const bool withdrawn = v.withdrawn.count(c.version()) > 0;
-      const double moved = before ? largest_shift_sigma(*before, c, relation) : 0.0;
+      const double moved = before ? shifts.largest(*before, c, relation) : 0.0;
       const bool alarm = moved > o.drift_alarm_sigma;
       std::string status = withdrawn ? "withdrawn" : c.version() == v.latest.version() ? "latest" : "";
       if (alarm) status += fmt::format("{}drift alarm: {:.1f} sigma", status.empty() ? "" : "; ", moved);

@@ -401,6 +401,14 @@ SourceTable read_text_table(const std::string& path, const TextReadOptions& opti
   return parse_text_table(content, path, options);
 }
 
+std::optional<double> cell_number(const Column& c, std::size_t r) {
+  if (c.is_null(r)) return std::nullopt;
+  if (c.type != ColumnType::kText) return c.as_real(r);
+  double v = 0;
+  if (!parse_real(c.text[r], v)) return std::nullopt;
+  return v;
+}
+
 bool parse_real(std::string_view text, double& out) {
   const char* b = text.data();
   const char* e = b + text.size();

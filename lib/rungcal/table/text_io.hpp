@@ -3,6 +3,7 @@
 
 #include <cstdint>
 #include <memory>
+#include <optional>
 #include <string>
 #include <string_view>
 #include <vector>
@@ -81,6 +82,10 @@ class TextTableReader {
 // nan), also with a leading '+', which published tables use; false for anything else,
 // trailing characters and values beyond double's range included.
 bool parse_real(std::string_view text, double& out);
+
+// A cell as a number: a numeric column's value, a text column's field through parse_real;
+// nullopt for a null or a field that is not a number.
+std::optional<double> cell_number(const Column& column, std::size_t row);
 
 // Writes a table as CSV (comma, RFC 4180 quoting, header line, empty field for null), with
 // the header keywords as leading "# key = value" lines. Atomic (temp file + rename).
