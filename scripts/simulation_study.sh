@@ -1,46 +1,78 @@
 #!/usr/bin/env bash
 # SPDX-License-Identifier: MIT
 # The fit's simulation study (docs/method.md, "How well the fit does"): many mock catalogs
-# per scenario, every contamination on, fitted as a user would, printed as a Markdown table
-# of bias in units of the mean reported error and 68% coverage (covariance and bootstrap).
-#   bash scripts/simulation_study.sh [build-dir] [--quick]
-# --quick: a tenth of the mocks and no bootstrap, for a first look (minutes, not an hour).
+# per scenario, every contamination on, fitted as a user would, printed as two Markdown
+# tables: bias in units of the mean reported error with the 68% coverage of the covariance
+# and bootstrap intervals; then the mean bootstrap error over the mean covariance error and
+# the spread of the estimates over the mean error.
+#   bash scripts/simulation_study.sh [build-dir] [--quick] [--only N] [--threads T]
+# --quick: a tenth of the mocks and no bootstrap, for a first look (minutes, not hours).
+# --only 300|3000: only the rows with that many stars. --threads: mocks fitted at once.
+# Each row's summary is kept as JSON in <build-dir>/study/ (rerunning a row overwrites it).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 build=${1:-build}
-quick=${2:-}
+shift || true
+small=200 large=50 boot=50 only="" threads=0
+while [[ $# -gt 0 ]]; do
+  case $1 in
+    --quick) small=20 large=5 boot=0 ;;
+    --only) only=$2; shift ;;
+    --threads) threads=$2; shift ;;
+    *) echo "simulation_study.sh: unknown option $1" >&2; exit 2 ;;
+  esac
+  shift
+done
 study="$build/bin/rungcal-study"
-small=200 large=50 boot=50
-if [[ "$quick" == "--quick" ]]; then small=20 large=5 boot=0; fi
+out="$build/study"
+mkdir -p "$out"
+rows=()
 
-row() {  # label, then rungcal-study options
-  local label=$1; shift
-  local json
-  json=$(mktemp)
-  "$study" --out "$json" "$@" >/dev/null
-  /usr/bin/python3 - "$label" "$json" <<'PY'
-import json, sys
-label, path = sys.argv[1], sys.argv[2]
-r = json.load(open(path))
-cells = []
-for p in r["parameters"]:
-    f = lambda v, fmt: "n/a" if v is None else format(v, fmt)
-    cells.append(f"{f(p['bias_in_errors'], '+.2f')} / {f(p['coverage_68'], '.2f')} / {f(p['bootstrap_coverage_68'], '.2f')}")
-print(f"| {label} | {r['stars']} | {r['mocks'] - r['failed']} | " + " | ".join(cells) + " |")
-PY
-  rm -f "$json"
+row() {  # file stem, label, then rungcal-study options
+  local stem=$1 label=$2; shift 2
+  local stars
+  stars=$(printf '%s\n' "$@" | grep -A1 -x -- --stars | tail -1)
+  if [[ -n "$only" && "$stars" != "$only" ]]; then return; fi
+  echo "simulation_study: $label, N = $stars" >&2
+  "$study" --threads "$threads" --out "$out/$stem.json" "$@" >/dev/null
+  printf '%s\t%s\n' "$label" "$out/$stem.json" >>"$out/rows.tsv"
 }
 
-echo "| scenario | N | mocks | alpha | beta | gamma | offset | sigma_int |"
-echo "|---|---|---|---|---|---|---|---|"
+: >"$out/rows.tsv"
 for rel in wesenheit optical; do
   for dist in disk flat_modulus clumpy; do
-    row "hierarchical, $rel, $dist" --relation "$rel" --distances "$dist" --stars 300 --mocks "$small" --bootstrap "$boot"
-    row "hierarchical, $rel, $dist" --relation "$rel" --distances "$dist" --stars 3000 --mocks "$large" --bootstrap "$boot"
+    for n in 300 3000; do
+      mocks=$small
+      [[ $n == 3000 ]] && mocks=$large
+      row "hierarchical_${rel}_${dist}_$n" "hierarchical, $rel, $dist" --relation "$rel" --distances "$dist" \
+        --stars "$n" --mocks "$mocks" --bootstrap "$boot"
+    done
   done
 done
 for space in parallax magnitude; do
   for rel in wesenheit optical; do
-    row "$space space + Huber, $rel, disk" --space "$space" --relation "$rel" --distances disk --stars 3000 --mocks "$large"
+    row "${space}_huber_${rel}_disk_3000" "$space space + Huber, $rel, disk" --space "$space" --relation "$rel" \
+      --distances disk --stars 3000 --mocks "$large"
   done
 done
+
+/usr/bin/python3 - "$out/rows.tsv" <<'PY'
+import json, sys
+rows = [line.rstrip("\n").split("\t") for line in open(sys.argv[1]) if line.strip()]
+f = lambda v, fmt: "n/a" if v is None else format(v, fmt)
+names = ["alpha", "beta", "gamma", "parallax_offset_mas", "sigma_int"]
+def table(title, cell):
+    print(title)
+    print("| scenario | N | mocks | alpha | beta | gamma | offset | sigma_int |")
+    print("|---|---|---|---|---|---|---|---|")
+    for label, path in rows:
+        r = json.load(open(path))
+        by = {p["name"]: p for p in r["parameters"]}
+        cells = [cell(by[n]) if n in by else "" for n in names]
+        print(f"| {label} | {r['stars']} | {r['mocks'] - r['failed']} | " + " | ".join(cells) + " |")
+    print()
+table("bias / mean error, 68% coverage (covariance), 68% coverage (bootstrap):",
+      lambda p: f"{f(p['bias_in_errors'], '+.2f')} / {f(p['coverage_68'], '.2f')} / {f(p['bootstrap_coverage_68'], '.2f')}")
+table("mean bootstrap error / mean covariance error, sd of the estimates / mean error:",
+      lambda p: f"{f(p.get('bootstrap_to_covariance'), '.2f')} / {f(p.get('spread_to_error'), '.2f')}")
+PY

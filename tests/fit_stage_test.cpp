@@ -189,19 +189,11 @@ TEST(FitSimulation, MagnitudeSpaceIsBiasedFaintOnLowSignalToNoiseParallaxes) {
 
 using test::catalog_from_mock;
 
-FitOptions mock_options() {
-  FitOptions o;
-  o.input_path = "mock.fits";
-  o.loss = LossKind::kNone;
-  RelationOptions r;
-  r.name = r.band = "X";
-  o.relations.push_back(r);
-  return o;
-}
+using test::mock_fit_options;
 
 TEST(FitStage, MagnitudeSpaceWarnsAndListsNonPositiveParallaxes) {
   test::MockSample m = test::mock_parallax_sample(77, 200, 0.0, 10.0, 0.04, 0.08);
-  FitOptions o = mock_options();
+  FitOptions o = mock_fit_options();
   o.space = FitSpace::kMagnitude;
   o.offset = ParamSpec{ParamMode::kFixed, m.truth.offset, 0, false};
   FitResult r = run_fit(o, catalog_from_mock(m));
@@ -219,7 +211,7 @@ TEST(FitStage, MagnitudeSpaceWarnsAndListsNonPositiveParallaxes) {
 
 TEST(FitStage, BootstrapIsTheSameForAnyThreadCount) {
   test::MockSample m = test::mock_parallax_sample(78, 120);
-  FitOptions o = mock_options();
+  FitOptions o = mock_fit_options();
   o.bootstrap = 64;
   o.seed = 99;
   o.threads = 1;
@@ -234,7 +226,7 @@ TEST(FitStage, BootstrapIsTheSameForAnyThreadCount) {
 
 TEST(FitStage, ClippingRemovesTheOutliersAndSaysWhy) {
   test::MockSample m = test::mock_parallax_sample(79, 200, 0.08);
-  FitOptions o = mock_options();
+  FitOptions o = mock_fit_options();
   o.clip_sigma = 3.0;
   o.scatter = ParamSpec{ParamMode::kFixed, m.truth.sigma, 0, false};
   FitResult r = run_fit(o, catalog_from_mock(m));
@@ -280,7 +272,7 @@ TEST(FitStage, AnchorGalaxyWithPriorAndKnownDistanceStars) {
   }
   for (int i = 0; i < 60; ++i) add_star("K" + std::to_string(i), rng.uniform(8, 12), true, "field");
   for (int i = 0; i < 150; ++i) add_star("A" + std::to_string(i), 18.48, false, "Kessel Cloud");
-  FitOptions o = mock_options();
+  FitOptions o = mock_fit_options();
   o.anchors.push_back({"Kessel Cloud", 18.50, 0.03});
   o.scatter = ParamSpec{ParamMode::kFixed, m.truth.sigma, 0, false};
   FitResult r = run_fit(o, t);

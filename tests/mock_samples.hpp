@@ -7,6 +7,7 @@
 #include <string>
 
 #include "rungcal/photometry/photometry.hpp"
+#include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/plfit/model.hpp"
 #include "rungcal/core/random.hpp"
 #include "rungcal/table/star_table.hpp"
@@ -69,6 +70,18 @@ inline StarTable catalog_from_mock(const MockSample& m) {
     t.column("parallax_err_mas").push_real(std::sqrt(m.data.var_plx[i]));
   }
   return t;
+}
+
+// Fit options for a mock catalog (catalog_from_mock): one relation "X", no loss, the
+// stage's other defaults (the hierarchical likelihood).
+inline FitOptions mock_fit_options() {
+  FitOptions o;
+  o.input_path = "mock.fits";
+  o.loss = LossKind::kNone;
+  RelationOptions r;
+  r.name = r.band = "X";
+  o.relations.push_back(r);
+  return o;
 }
 
 }  // namespace rungcal::test

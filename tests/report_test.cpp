@@ -136,6 +136,35 @@ TEST(Tables, StarAppendixListsUsedAndRejectedStars) {
   EXPECT_NE(csv.find("RW CAM,1.0530,6.871,0.1878,0.0231,,no,RUWE 2.10 > 1.4"), std::string::npos) << csv;
 }
 
+TEST(Tables, StarAppendixMarksLikelyOutliersOfTheHierarchicalFit) {
+  // Issue 16: each star's membership probability in the residuals, the likely outliers marked.
+  StarTable t;
+  for (const char* c : {"relation", "id", "reason"}) t.add_column(c, ColumnType::kText);
+  t.add_column("used", ColumnType::kBoolean);
+  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual", "membership"})
+    t.add_column(c, ColumnType::kReal);
+  for (const auto& [id, membership] : {std::pair{"S1", 0.97}, std::pair{"S2", 0.12}}) {
+    t.column("relation").push_text("X");
+    t.column("id").push_text(id);
+    t.column("reason").push_null();
+    t.column("used").push_boolean(true);
+    for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
+      t.column(c).push_real(1.0);
+    t.column("membership").push_real(membership);
+  }
+  const std::string csv = star_table(t, "X", TableFormat::kCsv);
+  EXPECT_NE(csv.find(",residual (sigma),membership,used,note"), std::string::npos) << csv;
+  EXPECT_NE(csv.find("S1,1.0000,1.000,1.0000,1.0000,1.00,0.97,yes,\n"), std::string::npos) << csv;
+  EXPECT_NE(csv.find("S2,1.0000,1.000,1.0000,1.0000,1.00,0.12,yes,likely outlier or blend"), std::string::npos) << csv;
+  const std::string tex = star_table(t, "X", TableFormat::kLatex);
+  EXPECT_NE(tex.find("\\colhead{$p_{\\rm member}$}"), std::string::npos) << tex;
+  EXPECT_NE(tex.find("below 0.5 the star is noted as a likely outlier"), std::string::npos) << tex;
+  // Without the column (a residual-space fit) the table is as before.
+  StarTable plain = t;
+  plain.column("membership").real.assign(2, std::nan(""));
+  EXPECT_EQ(star_table(plain, "X", TableFormat::kCsv).find("membership"), std::string::npos);
+}
+
 TEST(Tables, CaptionsGiveTheEquationThePivotAndWhichErrors) {
   const std::vector<Calibration> v = {two_relations(1, 0.0)};
   const std::string cov = relation_table(v, TableFormat::kMarkdown);
@@ -332,6 +361,28 @@ TEST(Figures, ThePlDiagramHasAKeyAndCountsTheStarsItCannotDraw) {
   // The key's own markers: a filled circle (used) and an open square (refused).
   EXPECT_GT(pixels_in_box(img, s.legend_left, s.legend_top, s.legend_left + 24, s.legend_top + 22, blue), 20);
   EXPECT_GT(pixels_in_box(img, s.legend_left, s.legend_top + 22, s.legend_left + 24, s.legend_top + 40, vermillion), 10);
+  cairo_surface_destroy(img);
+}
+
+TEST(Figures, LikelyOutliersOfTheHierarchicalFitAreDrawnAsRingsAndKeyed) {
+  // Issue 16: the report marks the likely outliers (membership below 0.5).
+  test::TempDir dir;
+  FigureInputs f = figure_inputs();
+  Column& membership = f.res.add_column("membership", ColumnType::kReal);
+  membership.real = {0.99, 0.98, 0.08, 0.97, 0.0};
+  membership.null = {0, 0, 0, 0, 1};
+  const FigureSummary plain = pl_diagram(figure_inputs().cal, "X", figure_inputs().res, FigureFormat::kPng, dir.file("a.png"));
+  const FigureSummary s = pl_diagram(f.cal, "X", f.res, FigureFormat::kPng, dir.file("pl.png"));
+  EXPECT_EQ(s.used_points, 4);
+  EXPECT_EQ(s.likely_outlier_points, 1);
+  EXPECT_EQ(plain.likely_outlier_points, 0);
+  EXPECT_GT(s.legend_bottom - s.legend_top, plain.legend_bottom - plain.legend_top);  // one more key row
+  cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("pl.png").c_str());
+  ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+  const double blue[3] = {0.0, 0.447, 0.698};
+  const int ring = pixels_like(img, s.x_to_output(1.0), 0, blue), disk = pixels_like(img, s.x_to_output(0.7), 0, blue);
+  EXPECT_GT(ring, 0);
+  EXPECT_LT(ring, 0.7 * disk) << "a ring crosses the centre column in two short arcs, a disk along its diameter";
   cairo_surface_destroy(img);
 }
 

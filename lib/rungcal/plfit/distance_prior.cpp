@@ -49,11 +49,12 @@ DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
 }
 
 DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi, double* r) const {
-  // In grid units z = (mu - c_0) / h; bins beyond 12 of the nearest add nothing in double.
+  // In grid units z = (mu - c_0) / h; a bin 10 or more steps away adds exp(-50) of what the
+  // nearest does (times their weights' ratio), so only kHistogramReach each side count.
   const int bins = static_cast<int>(weight.size());
   const double z = (mu - start) / step;
   const int nearest = std::clamp(static_cast<int>(std::lround(z)), 0, bins - 1);
-  lo = std::max(0, nearest - 12), hi = std::min(bins - 1, nearest + 12);
+  lo = std::max(0, nearest - kHistogramReach), hi = std::min(bins - 1, nearest + kHistogramReach);
   // Gaussians relative to the nearest bin's, outwards from it so that nothing underflows:
   // e_(j+1) / e_j = exp(z - j - 1/2), e_(j-1) / e_j = exp(j - z - 1/2).
   constexpr double kInvE = 0.36787944117144233;

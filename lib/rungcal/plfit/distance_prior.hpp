@@ -65,7 +65,11 @@ struct DistancePriorShape {
   DistancePriorTerms histogram_at(double mu, int& lo, int& hi, double* r) const;
 };
 
-inline constexpr int kHistogramWindow = 25;  // bins within 12 steps of the nearest
+// The histogram bins that count at one mu: those within kHistogramReach steps of the nearest
+// (a bin further away adds exp(-50) of the nearest's kernel; the same bins in the value and
+// in its gradient, so the two stay consistent).
+inline constexpr int kHistogramReach = 9;
+inline constexpr int kHistogramWindow = 2 * kHistogramReach + 1;
 
 // The digamma function psi(x) = d lnGamma / dx for x > 0: recurrence up to x >= 12, then the
 // asymptotic series (Abramowitz & Stegun 1964, 6.3.5 and 6.3.18); error below 1e-13.

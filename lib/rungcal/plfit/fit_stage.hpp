@@ -125,6 +125,9 @@ struct RelationResult {
   FitSolution solution;
   Eigen::MatrixXd covariance;
   bool covariance_ok = false;
+  // "hessian": the inverse Hessian of -ln L (or the Gauss-Newton inverse); "sandwich": a
+  // robust loss's A^-1 B A^-1 (sandwich.hpp).
+  std::string covariance_method = "hessian";
   Eigen::MatrixXd bootstrap;  // resamples x parameters
   int bootstrap_failed = 0;
   std::vector<StarOutcome> stars;

@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <memory>
 #include <string>
 #include <vector>
 
@@ -61,9 +62,12 @@ FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings,
 // the delta method. Parameters on the edge of their domain (sigma_int or the outlier
 // fraction at zero) cannot be given an error: they are held at their value, their rows are
 // NaN, and `undetermined` names them. Returns false when the Hessian is not positive definite.
+// preconditioner: when given, set to the bootstrap's metric from the same Hessian
+// (FitSettings::preconditioner; unit steps for the parameters on an edge).
 bool hierarchical_covariance(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
-                             std::vector<std::string>& undetermined);
+                             std::vector<std::string>& undetermined,
+                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr);
 
 // Per star (parallax, known, anchor order): the probability of being a member, neither an
 // outlier nor a blend.

@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <memory>
 #include <string>
 #include <vector>
 
@@ -189,6 +190,10 @@ struct FitSettings {
   // Levenberg-Marquardt's first trust region (Ceres' default 1e4). A resample that starts
   // one Gauss-Newton step from its optimum takes full steps at once with a larger one.
   double initial_trust_region_radius = 1e4;
+  // The hierarchical solver's metric (bootstrap resamples): F x F with F the free
+  // parameters, P P^T the full sample's inverse Hessian in the solver's coordinates. BFGS
+  // then starts from the curvature it would otherwise spend its first iterations learning.
+  std::shared_ptr<const Eigen::MatrixXd> preconditioner;
 };
 
 // The raw (non-robust) normalised residual of every star at a parameter vector, in the

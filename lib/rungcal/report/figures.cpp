@@ -146,11 +146,23 @@ int axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::stri
   return labelled;
 }
 
-void marker(cairo_t* cr, double x, double y, bool used) {
-  if (used) {
+// How a star is drawn: used (a filled circle), used but more likely an outlier or a blend
+// than a member of the hierarchical fit's relation (a ring), refused (an open square).
+enum class Mark { kUsed, kLikelyOutlier, kRefused };
+
+// Below this membership probability a used star is drawn as a likely outlier.
+constexpr double kLikelyOutlier = 0.5;
+
+void marker(cairo_t* cr, double x, double y, Mark mark) {
+  if (mark == Mark::kUsed) {
     cairo_set_source_rgb(cr, kBlue[0], kBlue[1], kBlue[2]);
     cairo_arc(cr, x, y, 3.6, 0, 2 * M_PI);
     cairo_fill(cr);
+  } else if (mark == Mark::kLikelyOutlier) {
+    cairo_set_source_rgb(cr, kBlue[0], kBlue[1], kBlue[2]);
+    cairo_set_line_width(cr, 1.4);
+    cairo_arc(cr, x, y, 4.2, 0, 2 * M_PI);
+    cairo_stroke(cr);
   } else {
     cairo_set_source_rgb(cr, kVermillion[0], kVermillion[1], kVermillion[2]);
     cairo_set_line_width(cr, 1.6);
@@ -158,13 +170,15 @@ void marker(cairo_t* cr, double x, double y, bool used) {
     cairo_stroke(cr);
   }
 }
+void marker(cairo_t* cr, double x, double y, bool used) { marker(cr, x, y, used ? Mark::kUsed : Mark::kRefused); }
 
 // The PL diagram's key, in the top panel's lower right (long periods are bright, so that
 // corner holds faint long-period stars only rarely): used and refused markers with their
 // counts, the relation and its scatter band, and the arrow of an open error bar.
 void pl_legend(cairo_t* cr, const Panel& top, const std::string& relation, const FigureSummary& s,
                FigureSummary& where) {
-  const double w = 250, h = 92, x = top.right - w - 8, y = top.bottom - h - 8;
+  const bool outliers = s.likely_outlier_points > 0;
+  const double row = 17, w = 250, h = 92 + (outliers ? row : 0), x = top.right - w - 8, y = top.bottom - h - 8;
   where.legend_left = x, where.legend_top = y, where.legend_right = x + w, where.legend_bottom = y + h;
   cairo_set_source_rgba(cr, 1, 1, 1, 0.92);
   cairo_rectangle(cr, x, y, w, h);
@@ -172,30 +186,41 @@ void pl_legend(cairo_t* cr, const Panel& top, const std::string& relation, const
   cairo_set_source_rgb(cr, 0.6, 0.6, 0.6);
   cairo_set_line_width(cr, 0.8);
   cairo_stroke(cr);
-  const double row = 17, mx = x + 14, tx = x + 30;
-  marker(cr, mx, y + row * 0.8, true);
-  text(cr, tx, y + row * 0.8, fmt::format("used in the fit ({})", s.used_points), 11, 0.0, 0.5);
-  marker(cr, mx, y + row * 1.8, false);
-  text(cr, tx, y + row * 1.8, fmt::format("refused ({})", s.rejected_points), 11, 0.0, 0.5);
+  const double mx = x + 14, tx = x + 30;
+  double line = 0.8;
+  marker(cr, mx, y + row * line, Mark::kUsed);
+  text(cr, tx, y + row * line, fmt::format("used in the fit ({})", s.used_points - s.likely_outlier_points), 11, 0.0,
+       0.5);
+  if (outliers) {
+    line += 1.0;
+    marker(cr, mx, y + row * line, Mark::kLikelyOutlier);
+    text(cr, tx, y + row * line, fmt::format("used, likely outlier: membership < 0.5 ({})", s.likely_outlier_points),
+         11, 0.0, 0.5);
+  }
+  line += 1.0;
+  marker(cr, mx, y + row * line, Mark::kRefused);
+  text(cr, tx, y + row * line, fmt::format("refused ({})", s.rejected_points), 11, 0.0, 0.5);
+  line += 1.0;
   cairo_set_source_rgba(cr, kGrey[0], kGrey[1], kGrey[2], 0.35);
-  cairo_rectangle(cr, mx - 9, y + row * 2.8 - 5, 18, 10);
+  cairo_rectangle(cr, mx - 9, y + row * line - 5, 18, 10);
   cairo_fill(cr);
   cairo_set_source_rgb(cr, 0, 0, 0);
   cairo_set_line_width(cr, 1.5);
-  cairo_move_to(cr, mx - 9, y + row * 2.8);
-  cairo_line_to(cr, mx + 9, y + row * 2.8);
+  cairo_move_to(cr, mx - 9, y + row * line);
+  cairo_line_to(cr, mx + 9, y + row * line);
   cairo_stroke(cr);
-  text(cr, tx, y + row * 2.8, fmt::format("{} relation at [Fe/H] = 0, \u00b1\u03c3_int", relation), 11, 0.0, 0.5);
+  text(cr, tx, y + row * line, fmt::format("{} relation at [Fe/H] = 0, \u00b1\u03c3_int", relation), 11, 0.0, 0.5);
+  line += 1.0;
   cairo_set_source_rgba(cr, 0.3, 0.3, 0.3, 0.8);
   cairo_set_line_width(cr, 0.9);
-  const double ay = y + row * 3.8 - 5;
+  const double ay = y + row * line - 5;
   cairo_move_to(cr, mx, ay + 10);
   cairo_line_to(cr, mx, ay);
   cairo_move_to(cr, mx - 3, ay + 5);
   cairo_line_to(cr, mx, ay);
   cairo_line_to(cr, mx + 3, ay + 5);
   cairo_stroke(cr);
-  text(cr, tx, y + row * 3.8, "parallax \u2212 error \u2264 0: no bright limit", 11, 0.0, 0.5);
+  text(cr, tx, y + row * line, "parallax \u2212 error \u2264 0: no bright limit", 11, 0.0, 0.5);
 }
 
 double parameter(const nlohmann::json& rel, const std::string& name, double fallback = 0.0) {
@@ -213,7 +238,15 @@ double parameter_error(const nlohmann::json& rel, const std::string& name) {
 struct Point {
   double x, y, lo, hi, r;  // y with asymmetric errors (lo, hi as values), residual
   bool used, open_below;
+  Mark mark = Mark::kUsed;
 };
+
+// A used star whose membership probability (hierarchical fit) is below kLikelyOutlier.
+bool likely_outlier(const StarTable& res, std::size_t i) {
+  if (!res.has("membership") || res.column("membership").is_null(i)) return false;
+  const double m = res.column("membership").real[i];
+  return std::isfinite(m) && m < kLikelyOutlier;
+}
 
 }  // namespace
 
@@ -248,8 +281,10 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
     } else {
       continue;
     }
+    p.mark = !p.used ? Mark::kRefused : (likely_outlier(res, i) ? Mark::kLikelyOutlier : Mark::kUsed);
     pts.push_back(p);
     (p.used ? s.used_points : s.rejected_points) += 1;
+    s.likely_outlier_points += p.mark == Mark::kLikelyOutlier ? 1 : 0;
   }
   if (pts.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no star to plot");
   double xmin = 1e9, xmax = -1e9, ymin = 1e9, ymax = -1e9;
@@ -289,7 +324,7 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
       cairo_line_to(cr, ax + 3, ay + 5);
       cairo_stroke(cr);
     }
-    marker(cr, top.px(p.x), top.py(p.y), p.used);
+    marker(cr, top.px(p.x), top.py(p.y), p.mark);
   }
   cairo_restore(cr);
   pl_legend(cr, top, relation, s, s);
@@ -301,7 +336,7 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   cairo_line_to(cr, bottom.right, bottom.py(0));
   cairo_stroke(cr);
   for (const auto& p : pts)
-    if (std::isfinite(p.r)) marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.used);
+    if (std::isfinite(p.r)) marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.mark);
   axes(cr, bottom, "log10 P (days)", "r / sigma");
   const std::string not_drawn =
       s.not_drawn_points > 0 ? fmt::format("   not drawn: {} (parallax \u2264 0)", s.not_drawn_points) : "";

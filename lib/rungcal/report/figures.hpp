@@ -21,6 +21,7 @@ inline constexpr EnumTable<FigureFormat, 3> kFigureFormatNames{{{
 // Where a figure put things, for tests and for a caption.
 struct FigureSummary {
   int used_points = 0, rejected_points = 0;
+  int likely_outlier_points = 0;  // used stars drawn as likely outliers (membership < 0.5)
   int not_drawn_points = 0;  // PL diagram: stars with no magnitude to draw (parallax <= 0)
   double legend_left = 0, legend_right = 0, legend_top = 0, legend_bottom = 0;  // its key, if any
   int y_ticks = 0;  // labelled ticks on the top panel's y axis (light curves)

@@ -208,24 +208,54 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
   return render(g, f, relation_caption(versions, relations, errors, f == TableFormat::kLatex), "tab:pl");
 }
 
+// True when the residuals carry the hierarchical fit's membership probabilities.
+bool has_membership(const StarTable& t, const std::string& relation) {
+  if (!t.has("membership")) return false;
+  for (std::size_t i = 0; i < t.rows(); ++i)
+    if (t.column("relation").text[i] == relation && !t.column("membership").is_null(i) &&
+        std::isfinite(t.column("membership").real[i]))
+      return true;
+  return false;
+}
+
+// Below this membership probability a used star's note calls it a likely outlier (the PL
+// figure draws it as a ring).
+constexpr double kLikelyOutlier = 0.5;
+
 std::string star_table(const StarTable& t, const std::string& relation, TableFormat f) {
   Grid g;
+  const bool membership = has_membership(t, relation);
   g.header = {"id", "log P", "m0 (mag)", "parallax (mas)", "parallax error (mas)", "residual (sigma)", "used", "note"};
   if (f == TableFormat::kLatex)
     g.header = {"ID", "$\\log P$", "$m_0$ (mag)", "$\\varpi$ (mas)", "$\\sigma_\\varpi$ (mas)", "$r/\\sigma$", "Used", "Note"};
+  if (membership) g.header.insert(g.header.end() - 2, f == TableFormat::kLatex ? "$p_{\\rm member}$" : "membership");
   auto num = [&](const std::string& col, std::size_t i, int decimals) {
-    if (!t.has(col) || t.column(col).is_null(i)) return std::string(f == TableFormat::kLatex ? "\\nodata" : "");
+    if (!t.has(col) || t.column(col).is_null(i) || !std::isfinite(t.column(col).real[i]))
+      return std::string(f == TableFormat::kLatex ? "\\nodata" : "");
     return fmt::format("{:.{}f}", t.column(col).real[i], decimals);
   };
   for (std::size_t i = 0; i < t.rows(); ++i) {
     if (t.column("relation").text[i] != relation) continue;
     const bool used = t.column("used").boolean[i] != 0;
     std::string id = t.column("id").text[i], reason = t.column("reason").is_null(i) ? "" : t.column("reason").text[i];
+    if (used && membership && !t.column("membership").is_null(i) && t.column("membership").real[i] < kLikelyOutlier)
+      reason = "likely outlier or blend";
     if (f == TableFormat::kLatex) id = escape_latex(id), reason = escape_latex(reason);
-    g.rows.push_back({id, num("log_period_f", i, 4), num("m0", i, 3), num("parallax_corrected_mas", i, 4),
-                      num("parallax_err_mas", i, 4), num("residual", i, 2), used ? "yes" : "no", reason});
+    std::vector<std::string> row{id, num("log_period_f", i, 4), num("m0", i, 3), num("parallax_corrected_mas", i, 4),
+                                 num("parallax_err_mas", i, 4), num("residual", i, 2)};
+    if (membership) row.push_back(num("membership", i, 2));
+    row.push_back(used ? "yes" : "no");
+    row.push_back(reason);
+    g.rows.push_back(row);
   }
-  return render(g, f, "Calibrators of the " + escape_latex(relation) + " relation.", "tab:stars");
+  std::string caption = "Calibrators of the " + escape_latex(relation) + " relation.";
+  if (membership)
+    caption += f == TableFormat::kLatex
+                   ? " $p_{\\rm member}$: probability of being a member of the relation, not an outlier or a blend, "
+                     "in the hierarchical fit; below 0.5 the star is noted as a likely outlier."
+                   : " membership: probability of being a member of the relation, not an outlier or a blend, in the "
+                     "hierarchical fit; below 0.5 the star is noted as a likely outlier.";
+  return render(g, f, caption, "tab:stars");
 }
 
 std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {

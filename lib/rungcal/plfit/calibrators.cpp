@@ -1,0 +1,269 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/fit_parts.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <filesystem>
+#include <map>
+#include <numbers>
+#include <thread>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/parallel.hpp"
+#include "rungcal/core/progress.hpp"
+#include "rungcal/core/random.hpp"
+#include "rungcal/photometry/photometry.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+
+namespace rungcal::fit_parts {
+namespace {
+
+bool contains(const std::vector<std::string>& v, const std::string& x) {
+  return std::find(v.begin(), v.end(), x) != v.end();
+}
+
+double value_or_nan(const StarTable& t, const std::string& col, std::size_t r) {
+  if (!t.has(col)) return std::numeric_limits<double>::quiet_NaN();
+  return t.column(col).as_real(r);
+}
+
+std::string text_or_empty(const StarTable& t, const std::string& col, std::size_t r) {
+  if (!t.has(col) || t.column(col).is_null(r)) return "";
+  return t.column(col).to_string(r);
+}
+}  // namespace
+
+Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
+                               const StarTable& cat, const ParallaxTools& tools,
+                               const ParamSpec& offset) {
+  Calibrators c;
+  const std::string mag_col =
+      rel.magnitude_column.empty() ? "mag0_" + rel.band : rel.magnitude_column;
+  std::string err_col = rel.error_column;
+  if (err_col.empty()) {
+    err_col = rel.magnitude_column.empty() ? "mag0_err_" + rel.band : rel.magnitude_column;
+    if (!rel.magnitude_column.empty()) {
+      auto p = err_col.find("mag_");
+      err_col = p == 0 ? "mag_err_" + err_col.substr(4) : err_col + "_err";
+    }
+  }
+  if (!cat.has(mag_col))
+    throw InputError(
+        {o.input_path, {}, mag_col}, "missing_column",
+        fmt::format(
+            "relation {} needs this column (dereddened magnitudes come from rungcal-deredden)",
+            rel.name));
+  if (!cat.has(err_col))
+    throw InputError({o.input_path, {}, err_col}, "missing_column",
+                     fmt::format("relation {} needs this error column", rel.name));
+  if (!cat.has(col::kLogPeriod) || !cat.has(col::kId))
+    throw InputError({o.input_path, {}, col::kLogPeriod}, "missing_column",
+                     "not a rungcal catalog (no id / log_period)");
+  auto grow = [](Eigen::ArrayXd& a, double v) {
+    a.conservativeResize(a.size() + 1);
+    a[a.size() - 1] = v;
+  };
+  double var_feh = 0.0;  // the current row's [Fe/H] error squared, kept when the term is on
+  auto push = [&grow, &var_feh, &rel](FitData::Common& common, double x, double xl, double feh,
+                                      double m0, double var, std::size_t row) {
+    grow(common.x, x), grow(common.xl, xl), grow(common.feh, feh), grow(common.m0, m0),
+        grow(common.var_m, var);
+    if (rel.metallicity) grow(common.var_feh, var_feh);
+    common.row.push_back(row);
+  };
+
+  for (std::size_t r = 0; r < cat.rows(); ++r) {
+    StarOutcome s;
+    s.row = r;
+    s.id = cat.column(col::kId).to_string(r);
+    auto refuse = [&](const std::string& why) {
+      s.reason = why;
+      c.stars.push_back(s);
+    };
+    std::string klass = text_or_empty(cat, col::kClass, r),
+                mode = text_or_empty(cat, col::kMode, r);
+    if (!rel.classes.empty() && !contains(rel.classes, klass)) {
+      refuse("class " + klass + " not in this relation");
+      continue;
+    }
+    if (!rel.modes.empty() && !contains(rel.modes, mode)) {
+      refuse("mode " + mode + " not in this relation");
+      continue;
+    }
+    double logp = cat.column(col::kLogPeriod).as_real(r);
+    if (rel.fundamentalize) logp = fundamentalized_log_period(klass, mode, logp);
+    s.log_period = logp;
+    if (logp < rel.min_log_period || logp > rel.max_log_period) {
+      refuse(fmt::format("log P = {:.3f} outside [{}, {}]", logp, rel.min_log_period,
+                         rel.max_log_period));
+      continue;
+    }
+    double m0 = cat.column(mag_col).as_real(r), e = cat.column(err_col).as_real(r);
+    if (!std::isfinite(m0)) {
+      refuse("no " + mag_col);
+      continue;
+    }
+    if (!std::isfinite(e) || !(e > 0)) {
+      refuse("no positive " + err_col);
+      continue;
+    }
+    s.m0 = m0;
+    s.m0_err = e;
+    double feh = 0.0;
+    if (rel.metallicity) {
+      feh = value_or_nan(cat, col::kFeh, r);
+      if (!std::isfinite(feh)) {
+        refuse("no [Fe/H] for the metallicity term");
+        continue;
+      }
+      const double feh_err = value_or_nan(cat, col::kFehErr, r);
+      var_feh = std::isfinite(feh_err) && feh_err > 0 ? feh_err * feh_err : 0.0;
+    }
+    double x = logp - rel.pivot_log_period;
+    double xl = rel.break_log_period ? std::max(0.0, logp - *rel.break_log_period) : 0.0;
+    std::string group = text_or_empty(cat, col::kGroup, r);
+    auto anchor = std::find_if(o.anchors.begin(), o.anchors.end(),
+                               [&](const auto& a) { return a.group == group; });
+    double mu = value_or_nan(cat, "mu_mag", r), mu_err = value_or_nan(cat, "mu_err_mag", r);
+    double plx = value_or_nan(cat, col::kParallax, r),
+           plx_err = value_or_nan(cat, col::kParallaxErr, r);
+    if (anchor != o.anchors.end()) {
+      s.kind = "anchor";
+      s.used = true;
+      c.a_star.push_back(c.stars.size());
+      push(c.data.anchor, x, xl, feh, m0, e * e, r);
+      c.data.group.push_back(static_cast<int>(anchor - o.anchors.begin()));
+      c.stars.push_back(s);
+      continue;
+    }
+    if (o.use_known_mu && std::isfinite(mu)) {
+      s.kind = "known_distance";
+      s.used = true;
+      c.k_star.push_back(c.stars.size());
+      push(c.data.known, x, xl, feh, m0, e * e, r);
+      grow(c.data.mu, mu);
+      grow(c.data.var_mu, std::isfinite(mu_err) ? mu_err * mu_err : 0.0);
+      c.stars.push_back(s);
+      continue;
+    }
+    if (!std::isfinite(plx)) {
+      refuse("no distance: neither a parallax nor a known distance modulus");
+      continue;
+    }
+    s.kind = "parallax";
+    double z = 0.0;
+    if (o.zero_point == ZeroPointRecipe::kConstant) z = o.zero_point_mas;
+    if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
+      double g = value_or_nan(cat, "gaia_g_mag", r), beta = value_or_nan(cat, "ecl_lat_deg", r);
+      double n_param = value_or_nan(cat, "astrometric_params", r);
+      bool six = n_param == 6;
+      double colour = value_or_nan(cat, six ? "pseudocolour_um" : "nu_eff_um", r);
+      if (!std::isfinite(g) || !std::isfinite(beta) || !std::isfinite(colour) ||
+          !std::isfinite(n_param)) {
+        refuse("zero point inputs missing (G, colour, ecliptic latitude, astrometric parameters)");
+        continue;
+      }
+      z = (six ? *tools.zp6 : *tools.zp5).zero_point_mas(g, colour, beta);
+    }
+    double inflate = 1.0;
+    if (o.inflation == InflationRecipe::kConstant) inflate = o.inflation_factor;
+    if (o.inflation == InflationRecipe::kElBadry2021) {
+      double g = value_or_nan(cat, "gaia_g_mag", r);
+      if (!std::isfinite(g)) {
+        refuse("no G magnitude for the El-Badry et al. 2021 inflation");
+        continue;
+      }
+      inflate = el_badry_inflation(g);
+    }
+    if (!std::isfinite(plx_err) || !(plx_err > 0)) {
+      refuse("no positive parallax error");
+      continue;
+    }
+    s.plx = plx - z;
+    s.plx_err = plx_err * inflate;
+    // The cut comes after the correction so that refused stars keep their parallax for plots.
+    if (o.max_ruwe > 0) {
+      double ruwe = value_or_nan(cat, "ruwe", r);
+      if (std::isfinite(ruwe) && ruwe > o.max_ruwe) {
+        refuse(fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe));
+        continue;
+      }
+    }
+    if (o.space == FitSpace::kMagnitude && s.plx - offset.value <= 0) {
+      refuse(
+          fmt::format("parallax {:.4f} mas is not positive: it cannot enter a magnitude-space fit "
+                      "(use space = \"parallax\")",
+                      s.plx));
+      continue;
+    }
+    s.used = true;
+    c.p_star.push_back(c.stars.size());
+    push(c.data.parallax, x, xl, feh, m0, e * e, r);
+    grow(c.data.plx, s.plx);
+    grow(c.data.var_plx, s.plx_err * s.plx_err);
+    c.stars.push_back(s);
+  }
+  return c;
+}
+
+namespace {
+
+// Why the catalog's stars were refused, most common first (issue 19: "0 usable
+// calibrators" gave no reason). Reasons that differ only in their numbers ("log P = 0.12
+// outside ...") count together, shown by their first instance.
+std::string refusal_summary(const Calibrators& c) {
+  std::map<std::string, std::pair<int, std::string>> groups;
+  for (const StarOutcome& s : c.stars) {
+    if (s.used || s.reason.empty()) continue;
+    std::string key;
+    for (char ch : s.reason)
+      if (!std::isdigit(static_cast<unsigned char>(ch)) && ch != '.' && ch != '-' && ch != '+')
+        key += ch;
+    auto& g = groups[key];
+    if (g.first++ == 0) g.second = s.reason;
+  }
+  std::vector<std::pair<int, std::string>> sorted;
+  for (const auto& [key, g] : groups) sorted.push_back(g);
+  std::sort(sorted.begin(), sorted.end(),
+            [](const auto& a, const auto& b) { return a.first > b.first; });
+  std::string out;
+  for (std::size_t i = 0; i < sorted.size() && i < 3; ++i)
+    out += fmt::format(
+        "{}{} x '{}'{}", out.empty() ? "" : "; ", sorted[i].first, sorted[i].second,
+        sorted[i].first > 1 && sorted[i].second.find_first_of("0123456789") != std::string::npos
+            ? " (and the like)"
+            : "");
+  if (sorted.size() > 3) out += "; ...";
+  return out.empty() ? "" : fmt::format(" (of {} catalog stars, refused: {})", c.stars.size(), out);
+}
+
+}  // namespace
+
+void check_constrained(const FitOptions& o, const RelationOptions& rel, const Calibrators& c,
+                       const FitSettings& s, const ParameterLayout& L) {
+  if (c.data.stars() < 3)
+    throw InputError({o.input_path, {}, {}}, "too_few_calibrators",
+                     fmt::format("relation {}: {} usable calibrators, at least 3 are needed{}",
+                                 rel.name, c.data.stars(), refusal_summary(c)));
+  if (s.params[L.offset].mode == ParamMode::kFree && c.data.parallax.size() == 0)
+    throw InputError(
+        {o.config_file, {}, "fit.offset", "line", "key"}, "config_value",
+        fmt::format("relation {}: the parallax offset is free but no parallax calibrator is used",
+                    rel.name));
+  for (std::size_t g = 0; g < o.anchors.size(); ++g)
+    if (std::count(c.data.group.begin(), c.data.group.end(), static_cast<int>(g)) == 0)
+      spdlog::warn("relation {}: anchor {} has no star; its distance modulus stays at its prior",
+                   rel.name, o.anchors[g].group);
+}
+
+}  // namespace rungcal::fit_parts

@@ -1,0 +1,167 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/fit_parts.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <filesystem>
+#include <map>
+#include <numbers>
+#include <thread>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/parallel.hpp"
+#include "rungcal/core/progress.hpp"
+#include "rungcal/core/random.hpp"
+#include "rungcal/photometry/photometry.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+
+namespace rungcal::fit_parts {
+namespace {
+
+double coefficient_of(const StarTable* coefficients, const std::string& name) {
+  if (!coefficients || !coefficients->has("name") || !coefficients->has("a_over_ebv")) return 0.0;
+  const Column& n = coefficients->column("name");
+  for (std::size_t i = 0; i < n.size(); ++i)
+    if (!n.is_null(i) && n.text[i] == name) return coefficients->column("a_over_ebv").as_real(i);
+  return 0.0;
+}
+
+}  // namespace
+
+JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
+                      const StarTable& cat, const StarTable* coefficients) {
+  JointResult jr;
+  std::vector<bool> metallicity;
+  for (const auto& rr : fits) {
+    jr.relations.push_back(rr.relation.name);
+    metallicity.push_back(rr.relation.metallicity);
+  }
+  std::vector<std::string> anchor_names;
+  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
+  jr.layout = JointLayout::make(jr.relations, metallicity, o.joint_shared_slope, anchor_names);
+  const JointLayout& L = jr.layout;
+  JointSettings js;
+  js.loss = o.loss;
+  js.loss_scale = o.loss_scale;
+  js.scatter_correlation = o.joint_scatter_correlation;
+  js.fixed.assign(L.size, false);
+  for (const auto& a : o.anchors) js.anchor_priors.emplace_back(a.mu, a.mu_err);
+  if (o.offset.mode == ParamMode::kFixed) js.fixed[L.offset] = true;
+  if (o.offset.mode == ParamMode::kPrior)
+    jr.warnings.push_back("the offset's prior is not used by the joint fit (free there)");
+  Eigen::VectorXd start = Eigen::VectorXd::Zero(L.size);
+  double offset_sum = 0;
+  for (std::size_t r = 0; r < fits.size(); ++r) {
+    const RelationResult& rr = fits[r];
+    js.sigma_int.push_back(rr.parameter("sigma_int"));
+    start[L.alpha[r]] = rr.parameter("alpha");
+    start[L.beta[r]] = rr.parameter("beta");
+    if (rr.settings.params[rr.layout.beta].mode == ParamMode::kFixed) js.fixed[L.beta[r]] = true;
+    if (L.gamma[r] >= 0) start[L.gamma[r]] = rr.parameter("gamma");
+    offset_sum += rr.parameter("parallax_offset_mas");
+  }
+  for (std::size_t a = 0; a < o.anchors.size(); ++a)
+    start[L.anchor0 + static_cast<int>(a)] = fits[0].parameter("mu_" + o.anchors[a].group);
+  start[L.offset] = o.offset.mode == ParamMode::kFixed
+                        ? o.offset.value
+                        : offset_sum / static_cast<double>(fits.size());
+  // Entries: every relation in which a star was used, as whichever kind of calibrator.
+  JointData& d = jr.data;
+  d.relations = static_cast<int>(fits.size());
+  auto anchor_index = [&](std::size_t row) {
+    const std::string g = cat.has(col::kGroup) && !cat.column(col::kGroup).is_null(row)
+                              ? cat.column(col::kGroup).text[row]
+                              : "";
+    for (std::size_t a = 0; a < o.anchors.size(); ++a)
+      if (o.anchors[a].group == g) return static_cast<int>(a);
+    return -1;
+  };
+  bool any_parallax = false;
+  for (std::size_t row = 0; row < cat.rows(); ++row) {
+    int added = 0, kind = -1;
+    double plx = 0, plx_err = 0;
+    const double se = cat.has(col::kEbvErr) ? cat.column(col::kEbvErr).as_real(row) : 0.0;
+    const double se2 = std::isfinite(se) ? se * se : 0.0;
+    for (std::size_t r = 0; r < fits.size(); ++r) {
+      const StarOutcome& s = fits[r].stars[row];
+      if (!s.used) continue;
+      int k = s.kind == "parallax" ? 0 : (s.kind == "known_distance" ? 1 : 2);
+      if (kind >= 0 && k != kind) continue;  // the same star is the same kind in every relation
+      kind = k;
+      if (added == 0) d.first.push_back(static_cast<int>(d.relation.size()));
+      const std::string& band = fits[r].relation.band;
+      const double c =
+          fits[r].relation.magnitude_column.empty() ? coefficient_of(coefficients, band) : 0.0;
+      d.relation.push_back(static_cast<int>(r));
+      d.x.push_back(s.log_period - fits[r].relation.pivot_log_period);
+      d.m0.push_back(s.m0);
+      // mag0_err holds the photometric and E(B-V) parts in quadrature: keep the first here.
+      d.var_phot.push_back(std::max(s.m0_err * s.m0_err - c * c * se2, 1e-8));
+      d.coefficient.push_back(c);
+      plx = s.plx, plx_err = s.plx_err;
+      ++added;
+    }
+    if (added == 0) continue;
+    any_parallax = any_parallax || kind == 0;
+    d.kind.push_back(kind);
+    d.plx.push_back(kind == 0 ? plx : 0.0);
+    d.var_plx.push_back(kind == 0 ? plx_err * plx_err : 0.0);
+    const double mu = cat.has("mu_mag") ? cat.column("mu_mag").as_real(row) : 0.0;
+    const double mu_err = cat.has("mu_err_mag") ? cat.column("mu_err_mag").as_real(row) : 0.0;
+    d.mu.push_back(kind == 1 ? mu : 0.0);
+    d.var_mu.push_back(kind == 1 && std::isfinite(mu_err) ? mu_err * mu_err : 0.0);
+    d.group.push_back(kind == 2 ? anchor_index(row) : -1);
+    d.var_ebv.push_back(coefficients ? se2 : 0.0);
+    const double feh = cat.has(col::kFeh) ? cat.column(col::kFeh).as_real(row) : 0.0;
+    d.feh.push_back(std::isfinite(feh) ? feh : 0.0);
+    d.row.push_back(row);
+  }
+  d.first.push_back(static_cast<int>(d.relation.size()));
+  if (!any_parallax) js.fixed[L.offset] = true;  // nothing constrains it
+  jr.stars = d.stars();
+  if (jr.stars < 3)
+    throw InputError({o.input_path, {}, {}}, "too_few_calibrators",
+                     "the joint fit has fewer than 3 calibrators");
+  if (!coefficients)
+    jr.warnings.push_back(
+        "no COEFFS table: E(B-V) errors are taken as independent between relations");
+  jr.n_free = static_cast<int>(std::count(js.fixed.begin(), js.fixed.end(), false));
+  jr.solution = solve_joint(d, js, L, start);
+  if (!jr.solution.theta.allFinite())
+    throw InputError(
+        {o.input_path, {}, {}}, "degenerate_fit",
+        "the joint fit has no finite solution; look for absurd values among the calibrators");
+  if (!jr.solution.usable)
+    jr.warnings.push_back("the joint solver did not reach a usable solution: " +
+                          jr.solution.message);
+  if (o.bootstrap > 0) {
+    // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
+    std::map<int, std::vector<int>> strata;
+    for (int i = 0; i < d.stars(); ++i)
+      strata[d.kind[i] == 2 ? 2 + d.group[i] : d.kind[i]].push_back(i);
+    auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
+      std::vector<int> stars;
+      for (const auto& [key, members] : strata)
+        for (std::size_t k = 0; k < members.size(); ++k)
+          stars.push_back(members[rng.below(members.size())]);
+      JointSolution s = solve_joint(d.take(stars), js, L, jr.solution.theta, false);
+      if (!s.usable) return std::nullopt;
+      return s.theta;
+    };
+    jr.bootstrap = parallel_bootstrap(o, L.size, "joint", solve, jr.bootstrap_failed);
+  }
+  for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
+  return jr;
+}
+
+}  // namespace rungcal::fit_parts

@@ -1,0 +1,73 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+// The fit stage's parts, shared by its files (fit_stage.cpp runs them; calibrators.cpp,
+// fit_settings.cpp, fit_bootstrap.cpp, fit_joint_run.cpp and fit_result_json.cpp each hold
+// one job). Not an interface of its own: include fit_stage.hpp from outside the stage.
+
+#include <cstdint>
+#include <functional>
+#include <optional>
+#include <string>
+#include <vector>
+
+#include <Eigen/Core>
+#include <nlohmann/json.hpp>
+
+#include "rungcal/astrometry/astrometry.hpp"
+#include "rungcal/core/random.hpp"
+#include "rungcal/plfit/fit_stage.hpp"
+
+namespace rungcal::fit_parts {
+
+struct Calibrators {
+  FitData data;
+  std::vector<StarOutcome> stars;                   // every catalog star, in catalog order
+  std::vector<std::size_t> p_star, k_star, a_star;  // index into stars per data row
+};
+
+struct ParallaxTools {
+  std::optional<ZeroPointTable> zp5, zp6;
+};
+
+// Chooses one relation's calibrators from the catalog; every refusal keeps its reason.
+Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
+                               const StarTable& cat, const ParallaxTools& tools,
+                               const ParamSpec& offset);
+// Data rows with nothing to constrain a parameter make the fit degenerate; says so plainly
+// (exit 2), with the refusals grouped by reason.
+void check_constrained(const FitOptions& o, const RelationOptions& rel, const Calibrators& c,
+                       const FitSettings& s, const ParameterLayout& L);
+
+// True when any calibrator has an [Fe/H] error (the hierarchical model then marginalises it).
+bool has_feh_errors(const FitData& d);
+// The solver's settings and each parameter's mode for one relation.
+FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const ParameterLayout& L);
+// Parameters nothing in the data can constrain are held where they start, and said so.
+void hold_unconstrained(const Calibrators& c, RelationResult& rr);
+// Why a parameter has no error, as the result file and the terminal say it.
+std::string undetermined_reason(const std::string& name, double value);
+// A parameter's index by name (std::out_of_range when there is none).
+int index_of(const ParameterLayout& L, const std::string& name);
+
+// One resample's fit: its parameters, or nothing when it failed.
+using ResampleSolve = std::function<std::optional<Eigen::VectorXd>(Random&)>;
+// Runs o.bootstrap resamples over the configured threads (and MPI ranks) with a progress
+// bar; rows in resample order, NaN for failures, identical for any thread count.
+Eigen::MatrixXd parallel_bootstrap(const FitOptions& o, int P, const std::string& label,
+                                   const ResampleSolve& solve, int& failed);
+// The bootstrap of one relation's fit (stars resampled by kind and anchor galaxy, every
+// prior's centre redrawn).
+void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data);
+double percentile(std::vector<double> v, double q);
+double standard_deviation(const std::vector<double>& v);
+// Parameter j's finite resample values.
+std::vector<double> bootstrap_column(const RelationResult& rr, int j);
+// Every bootstrap resample's parameters, one row per resample and parameter.
+StarTable bootstrap_table(const FitResult& result);
+
+// The relations fitted together (FitOptions::joint).
+JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
+                      const StarTable& cat, const StarTable* coefficients);
+
+}  // namespace rungcal::fit_parts

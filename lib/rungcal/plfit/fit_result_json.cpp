@@ -1,0 +1,285 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/fit_parts.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <filesystem>
+#include <map>
+#include <numbers>
+#include <thread>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/parallel.hpp"
+#include "rungcal/core/progress.hpp"
+#include "rungcal/core/random.hpp"
+#include "rungcal/photometry/photometry.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+
+namespace rungcal {
+using namespace fit_parts;
+namespace {
+
+// A parameter's setting as the result file records it.
+nlohmann::json param_json(const ParamSpec& p) {
+  return {{"mode", std::string(kParamModeNames.name(p.mode))},
+          {"value", p.value},
+          {"prior_sigma", p.prior_sigma}};
+}
+
+}  // namespace
+
+nlohmann::json FitResult::to_json(const FitOptions& o) const {
+  using nlohmann::json;
+  json out;
+  out["schema"] = "rungcal-fit";
+  out["schema_version"] = kFitSchemaVersion;
+  out["provenance"] = {{"stage", provenance.stage},
+                       {"software_version", provenance.software_version},
+                       {"software_commit", provenance.software_commit},
+                       {"created_utc", provenance.created_utc},
+                       {"config_sha256", provenance.config_sha256}};
+  for (const auto& in : provenance.inputs)
+    out["provenance"]["inputs"].push_back(
+        {{"path", in.path}, {"sha256", in.sha256}, {"rows", in.rows}});
+  out["model"] = {{"space", std::string(kFitSpaceNames.name(o.space))},
+                  {"loss", std::string(kLossNames.name(o.loss))},
+                  {"scatter_estimator", std::string(kScatterEstimatorNames.name(o.scatter_estimator))},
+                  {"hierarchical", {{"distance_prior", std::string(kDistancePriorNames.name(o.hierarchical.prior))},
+                                    {"quadrature_nodes", o.hierarchical.quadrature_nodes},
+                                    {"histogram_step_mag", o.hierarchical.histogram_step},
+                                    {"histogram_walk_sigma", o.hierarchical.histogram_walk_sigma},
+                                    {"histogram_margin_mag", o.hierarchical.histogram_margin},
+                                    {"outlier_mag_width", o.hierarchical.outlier_mag_width},
+                                    {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
+                                    {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor},
+                                    {"blend_component", std::string(kBlendComponentNames.name(o.hierarchical.blends))},
+                                    {"blend_min_mag", o.hierarchical.blend_min_mag},
+                                    {"blend_fraction", param_json(o.blend_fraction)},
+                                    {"blend_scale_mag", param_json(o.blend_scale)}}},
+                  {"loss_scale", o.loss_scale},
+                  {"clip_sigma", o.clip_sigma},
+                  {"zero_point", std::string(kZeroPointRecipeNames.name(o.zero_point))},
+                  {"zero_point_mas", o.zero_point_mas},
+                  {"inflation", std::string(kInflationRecipeNames.name(o.inflation))},
+                  {"inflation_factor", o.inflation_factor},
+                  {"max_ruwe", o.max_ruwe},
+                  {"use_known_distance", o.use_known_mu},
+                  {"offset", {{"mode", std::string(kParamModeNames.name(o.offset.mode))}, {"value", o.offset.value}, {"prior_sigma", o.offset.prior_sigma}}},
+                  {"scatter", {{"mode", std::string(kParamModeNames.name(o.scatter.mode))}, {"value", o.scatter.value}}},
+                  {"anchors", [&] {
+                     nlohmann::json a = nlohmann::json::array();
+                     for (const auto& an : o.anchors) a.push_back({{"group", an.group}, {"mu", an.mu}, {"mu_err", an.mu_err}});
+                     return a;
+                   }()},
+                  {"joint", o.joint},
+                  {"bootstrap", o.bootstrap},
+                  {"seed", o.seed},
+                  {"extinction", extinction.is_null() ? nlohmann::json::object() : extinction}};
+  auto finite_or_null = [](double v) { return std::isfinite(v) ? json(v) : json(nullptr); };
+  for (const auto& rr : relations) {
+    json r;
+    r["name"] = rr.relation.name;
+    r["band"] = rr.relation.band;
+    r["pivot_log_period"] = rr.relation.pivot_log_period;
+    if (rr.relation.break_log_period) r["break_log_period"] = *rr.relation.break_log_period;
+    r["metallicity"] = rr.relation.metallicity;
+    // The relation's resolved selection: with the model and config text, what it was fitted on.
+    r["selection"] = {
+        {"classes", rr.relation.classes},
+        {"modes", rr.relation.modes},
+        {"fundamentalize", rr.relation.fundamentalize},
+        {"log_period_range",
+         {finite_or_null(rr.relation.min_log_period), finite_or_null(rr.relation.max_log_period)}},
+        {"magnitude_column", rr.relation.magnitude_column.empty() ? "mag0_" + rr.relation.band
+                                                                  : rr.relation.magnitude_column},
+        {"slope",
+         {{"mode", std::string(kParamModeNames.name(rr.relation.slope.mode))},
+          {"value", rr.relation.slope.value},
+          {"prior_sigma", rr.relation.slope.prior_sigma}}}};
+    r["parameter_names"] = rr.layout.names;
+    for (int j = 0; j < rr.layout.size; ++j) {
+      const auto& name = rr.layout.names[j];
+      std::vector<double> boot = bootstrap_column(rr, j);
+      json p = {{"name", name},
+                {"value", rr.solution.theta[j]},
+                {"mode", std::string(kParamModeNames.name(rr.settings.params[j].mode))},
+                {"error", rr.settings.params[j].mode == ParamMode::kFixed
+                              ? json(0.0)
+                              : finite_or_null(rr.error(name))},
+                {"bootstrap_error", finite_or_null(rr.bootstrap_error(name))},
+                {"p16", finite_or_null(percentile(boot, 0.16))},
+                {"p50", finite_or_null(percentile(boot, 0.50))},
+                {"p84", finite_or_null(percentile(boot, 0.84))}};
+      if (rr.settings.params[j].mode == ParamMode::kPrior)
+        p["prior"] = {{"mean", rr.settings.params[j].value},
+                      {"sigma", rr.settings.params[j].prior_sigma}};
+      if (std::find(rr.undetermined.begin(), rr.undetermined.end(), name) !=
+          rr.undetermined.end()) {
+        p["determined"] = false;
+        p["error"] = nullptr;
+      }
+      r["parameters"].push_back(p);
+    }
+    json cov = json::array(), corr = json::array();
+    for (int i = 0; i < rr.layout.size; ++i) {
+      json row = json::array(), crow = json::array();
+      for (int j = 0; j < rr.layout.size; ++j) {
+        double cij =
+            rr.covariance_ok ? rr.covariance(i, j) : std::numeric_limits<double>::quiet_NaN();
+        row.push_back(finite_or_null(cij));
+        double d = rr.covariance_ok ? std::sqrt(rr.covariance(i, i) * rr.covariance(j, j)) : 0.0;
+        crow.push_back(d > 0 ? json(cij / d) : json(nullptr));
+      }
+      cov.push_back(row);
+      corr.push_back(crow);
+    }
+    r["covariance"] = cov;
+    r["covariance_method"] = rr.covariance_method;
+    r["correlation"] = corr;
+    int rejected = 0;
+    for (const auto& s : rr.stars) rejected += s.used ? 0 : 1;
+    r["statistics"] = {{"chi2", rr.chi2},
+                       {"dof", rr.dof},
+                       {"n_used", rr.n_used},
+                       {"n_rejected", rejected},
+                       {"n_clipped", rr.n_clipped},
+                       {"n_free_parameters", rr.n_free},
+                       {"neg2_log_likelihood", rr.neg2_log_likelihood},
+                       {"aic", rr.aic},
+                       {"bic", rr.bic},
+                       {"bootstrap_resamples", rr.bootstrap.rows()},
+                       {"bootstrap_failed", rr.bootstrap_failed}};
+    r["solver"] = {{"termination", rr.solution.termination},
+                   {"message", rr.solution.message},
+                   {"iterations", rr.solution.iterations},
+                   {"usable", rr.solution.usable},
+                   {"brief_report", rr.solution.brief_report}};
+    r["rejected"] = json::array();
+    r["used"] = json::array();
+    for (const auto& s : rr.stars) {
+      if (!s.used)
+        r["rejected"].push_back({{"id", s.id}, {"reason", s.reason}});
+      else
+        r["used"].push_back(s.id);
+    }
+    r["warnings"] = rr.warnings;
+    r["undetermined"] = rr.undetermined;
+    if (rr.layout.distance_bin0 >= 0)
+      r["distance_prior_grid"] = {{"first_modulus", rr.settings.hierarchical.histogram_start},
+                                  {"step_mag", rr.settings.hierarchical.histogram_step},
+                                  {"bins", rr.layout.distance_bins + 1}};
+    out["relations"].push_back(r);
+  }
+  if (joint) {
+    const JointSolution& js = joint->solution;
+    json j;
+    j["relations"] = joint->relations;
+    j["shared_slope"] = o.joint_shared_slope;
+    j["scatter_correlation"] = o.joint_scatter_correlation;
+    j["parameter_names"] = joint->layout.names;
+    for (int p = 0; p < joint->layout.size; ++p) {
+      double e = js.covariance_ok ? std::sqrt(std::max(0.0, js.covariance(p, p))) : std::nan("");
+      std::vector<double> boot;
+      for (Eigen::Index b = 0; b < joint->bootstrap.rows(); ++b)
+        if (std::isfinite(joint->bootstrap(b, p))) boot.push_back(joint->bootstrap(b, p));
+      j["parameters"].push_back({{"name", joint->layout.names[p]},
+                                 {"value", js.theta[p]},
+                                 {"error", finite_or_null(e)},
+                                 {"bootstrap_error", finite_or_null(standard_deviation(boot))},
+                                 {"p16", finite_or_null(percentile(boot, 0.16))},
+                                 {"p50", finite_or_null(percentile(boot, 0.50))},
+                                 {"p84", finite_or_null(percentile(boot, 0.84))}});
+    }
+    json cov = json::array();
+    for (int a = 0; a < joint->layout.size; ++a) {
+      json row = json::array();
+      for (int b = 0; b < joint->layout.size; ++b)
+        row.push_back(js.covariance_ok ? finite_or_null(js.covariance(a, b)) : json(nullptr));
+      cov.push_back(row);
+    }
+    j["covariance"] = cov;
+    j["statistics"] = {{"chi2", js.chi2},
+                       {"n_stars", joint->stars},
+                       {"n_entries", js.entries},
+                       {"n_free_parameters", joint->n_free},
+                       {"dof", js.entries - joint->n_free},
+                       {"bootstrap_resamples", joint->bootstrap.rows()},
+                       {"bootstrap_failed", joint->bootstrap_failed}};
+    j["solver"] = {{"termination", js.termination},
+                   {"message", js.message},
+                   {"iterations", js.iterations},
+                   {"usable", js.usable}};
+    j["warnings"] = joint->warnings;
+    out["joint"] = j;
+  }
+  return out;
+}
+
+std::string fit_summary(const FitResult& result) {
+  std::string out;
+  if (result.joint) {
+    const JointResult& j = *result.joint;
+    std::string names;
+    for (const auto& n : j.relations) names += (names.empty() ? "" : " + ") + n;
+    out += fmt::format("joint ({}): {} stars, {} magnitudes, chi2 = {:.2f}\n", names, j.stars,
+                       j.solution.entries, j.solution.chi2);
+    for (int p = 0; p < j.layout.size; ++p) {
+      double e = j.solution.covariance_ok ? std::sqrt(std::max(0.0, j.solution.covariance(p, p)))
+                                          : std::nan("");
+      out += fmt::format("  {:<22} {:>10.4f} +- {:.4f}", j.layout.names[p], j.solution.theta[p], e);
+      std::vector<double> boot;
+      for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b)
+        if (std::isfinite(j.bootstrap(b, p))) boot.push_back(j.bootstrap(b, p));
+      double be = standard_deviation(boot);
+      if (std::isfinite(be)) out += fmt::format("  (bootstrap {:.4f})", be);
+      out += "\n";
+    }
+  }
+  for (const auto& rr : result.relations) {
+    out += fmt::format("{}: {} stars used, {} refused, chi2/dof = {:.2f}/{}\n", rr.relation.name,
+                       rr.n_used, rr.stars.size() - static_cast<std::size_t>(rr.n_used), rr.chi2,
+                       rr.dof);
+    if (rr.layout.distance_bin0 >= 0)
+      out += fmt::format(
+          "  distance prior: smooth histogram, {} bins of {:.2f} mag from mu = {:.2f}\n",
+          rr.layout.distance_bins + 1, rr.settings.hierarchical.histogram_step,
+          rr.settings.hierarchical.histogram_start);
+    for (int j = 0; j < rr.layout.size; ++j) {
+      const std::string& name = rr.layout.names[j];
+      if (j >= rr.layout.distance_bin0 && j < rr.layout.distance_bin0 + rr.layout.distance_bins)
+        continue;
+      if (std::find(rr.undetermined.begin(), rr.undetermined.end(), name) !=
+          rr.undetermined.end()) {
+        out += fmt::format("  {:<22} {:>10.4f} (not determined: no error)\n", name,
+                           rr.solution.theta[j]);
+        continue;
+      }
+      if (rr.settings.params[j].mode == ParamMode::kFixed) {
+        out += fmt::format("  {:<22} {:>10.4f} (fixed)\n", name, rr.solution.theta[j]);
+        continue;
+      }
+      double e = rr.error(name);
+      if (std::isfinite(e))
+        out += fmt::format("  {:<22} {:>10.4f} +- {:.4f}", name, rr.solution.theta[j], e);
+      else
+        out += fmt::format("  {:<22} {:>10.4f} (on its boundary: no covariance error)", name,
+                           rr.solution.theta[j]);
+      double be = rr.bootstrap_error(name);
+      if (std::isfinite(be)) out += fmt::format("  (bootstrap {:.4f})", be);
+      out += "\n";
+    }
+  }
+  return out;
+}
+
+}  // namespace rungcal

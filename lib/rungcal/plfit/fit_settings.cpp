@@ -1,0 +1,126 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/fit_parts.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <filesystem>
+#include <map>
+#include <numbers>
+#include <thread>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/byte_buffer.hpp"
+#include "rungcal/core/cluster.hpp"
+#include "rungcal/core/config.hpp"
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/parallel.hpp"
+#include "rungcal/core/progress.hpp"
+#include "rungcal/core/random.hpp"
+#include "rungcal/photometry/photometry.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fits_io.hpp"
+
+namespace rungcal::fit_parts {
+
+bool has_feh_errors(const FitData& d) {
+  for (const FitData::Common* c : {&d.parallax, &d.known, &d.anchor})
+    if (c->var_feh.size() && (c->var_feh > 0).any()) return true;
+  return false;
+}
+
+FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
+                         const ParameterLayout& L) {
+  FitSettings s;
+  s.space = o.space;
+  s.scatter_estimator = o.scatter_estimator;
+  s.loss = o.loss;
+  s.loss_scale = o.loss_scale;
+  s.terms.pivot_log_period = rel.pivot_log_period;
+  s.terms.has_break = rel.break_log_period.has_value();
+  s.terms.break_log_period = rel.break_log_period.value_or(0.0);
+  s.terms.has_metallicity = rel.metallicity;
+  s.terms.n_anchors = static_cast<int>(o.anchors.size());
+  s.terms.hierarchical = L.outlier >= 0;
+  s.terms.feh_errors = L.feh_mean >= 0;
+  s.terms.blends = L.blend >= 0;
+  s.hierarchical = o.hierarchical;
+  s.params.assign(L.size, ParamSpec{});
+  s.params[L.alpha] = rel.alpha;
+  s.params[L.beta] = rel.slope;
+  if (L.beta_long >= 0) s.params[L.beta_long] = rel.slope_long;
+  if (L.gamma >= 0) s.params[L.gamma] = rel.gamma;
+  s.params[L.offset] = o.offset;
+  s.params[L.sigma] = o.scatter;
+  for (std::size_t g = 0; g < o.anchors.size(); ++g)
+    s.params[L.anchor0 + static_cast<int>(g)] =
+        ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchors[g].mu_err, true};
+  if (s.terms.hierarchical) {
+    s.params[L.outlier] = o.outlier_fraction;
+    s.params[L.outlier_shift] = o.outlier_shift;
+    s.params[L.outlier_width] = o.outlier_width;
+  }
+  if (s.terms.blends) {
+    s.params[L.blend] = o.blend_fraction;
+    s.params[L.blend_scale] = o.blend_scale;
+  }
+  if (L.distance_scale >= 0) {
+    s.params[L.distance_scale] = o.distance_scale;
+    s.params[L.distance_power] = o.distance_power;
+    s.params[L.distance_exponent] = o.distance_exponent;
+    // The space-density family is the generalised gamma with k = 2, a = 1 (distance_prior.hpp).
+    if (o.hierarchical.prior == DistancePriorFamily::kSpaceDensity) {
+      if (o.distance_power.mode == ParamMode::kFree && !o.distance_power.has_start)
+        s.params[L.distance_power] = ParamSpec{ParamMode::kFixed, 2.0, 0, true};
+      if (o.distance_exponent.mode == ParamMode::kFree && !o.distance_exponent.has_start)
+        s.params[L.distance_exponent] = ParamSpec{ParamMode::kFixed, 1.0, 0, true};
+    }
+  }
+  if (s.terms.feh_errors) {
+    s.params[L.feh_mean] = o.feh_mean;
+    s.params[L.feh_spread] = o.feh_spread;
+  }
+  return s;
+}
+
+void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
+  const ParameterLayout& L = rr.layout;
+  if (L.distance_scale >= 0 && c.data.parallax.size() == 0)
+    for (int j : {L.distance_scale, L.distance_power, L.distance_exponent})
+      rr.settings.params[j] =
+          ParamSpec{ParamMode::kFixed,
+                    j == L.distance_scale ? 1.0 : (j == L.distance_power ? 2.0 : 1.0), 0, true};
+}
+
+std::string undetermined_reason(const std::string& name, double value) {
+  if (name == "outlier_fraction")
+    return fmt::format(
+        "outlier_fraction = {:.2g}: the data hold no outliers to measure it by; it has no error",
+        value);
+  if (name == "blend_fraction")
+    return fmt::format(
+        "blend_fraction = {:.2g}: the data hold no blends to measure it by; it has no error",
+        value);
+  if (name == "blend_scale_mag")
+    return "blend_scale_mag: without blends their brightening is not measured; it has no error";
+  if (name == "sigma_int" && value < 1e-3)
+    return fmt::format(
+        "sigma_int = {:.2g} mag, on its lower bound: consistent with no intrinsic scatter; it has "
+        "no error",
+        value);
+  return "sigma_int cannot be estimated under a redescending (tukey) loss, which gives distant "
+         "stars no weight: "
+         "it is not reported as fitted; fix it, or use another loss";
+}
+
+int index_of(const ParameterLayout& L, const std::string& name) {
+  for (std::size_t j = 0; j < L.names.size(); ++j)
+    if (L.names[j] == name) return static_cast<int>(j);
+  throw std::out_of_range("no fit parameter named " + name);
+}
+
+}  // namespace rungcal::fit_parts
