@@ -2,7 +2,8 @@
 # SPDX-License-Identifier: MIT
 # Installs what is missing (Debian packages), builds rungcal, and runs the demo on
 # sample_data/ with config/ defaults: the whole chain through rungcal-run, as a group server
-# would run it nightly. Outputs go to demo_out/.
+# would run it nightly. Outputs go to demo_out/. Also builds the Python module rungcal
+# (build-demo/python/, docs/python.md) when pybind11 is there (setup-debian.sh installs it).
 set -euo pipefail
 cd "$(dirname "$0")/.."
 bash scripts/setup-debian.sh build
@@ -33,6 +34,15 @@ echo "== diff: what the new release changed (truth in sample_data/truth.json: W_
 echo "== distance to the Veyra Spiral (truth: mu = 29.35)"
 grep -v '^#' demo_out/distances_hosts.csv | awk -F, 'NR > 1 {
   printf "  %s: mu = %.3f +- %.3f (stat) +- %.3f (calibration), d = %.2f +- %.2f Mpc, %d stars\n", $1, $4, $5, $6, $9, $10, $2 }'
+if [ -d build-demo/python/rungcal ]; then
+  echo "== the same calibration from Python (docs/python.md): PYTHONPATH=build-demo/python /usr/bin/python3"
+  PYTHONPATH=build-demo/python /usr/bin/python3 - <<'PY'
+import rungcal
+cal = rungcal.load_calibration("demo_out/store/halden-peak@latest")
+M, M_err = cal.absolute_magnitude("W_VI", log_period=1.0, feh=0.0)
+print(f"  {cal.label}: W_VI at log P = 1, [Fe/H] = 0: M = {M:.3f} +- {M_err:.3f} (calibration)")
+PY
+fi
 echo
 echo "Demo outputs:"
 for f in demo_out/lightcurves.fits demo_out/lightcurves.csv demo_out/catalog.fits demo_out/catalog_rejects.csv \

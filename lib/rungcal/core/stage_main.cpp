@@ -6,6 +6,7 @@
 #include "rungcal/core/cluster.hpp"
 #include "rungcal/core/file_lock.hpp"
 #include "rungcal/core/log.hpp"
+#include "rungcal/core/stage_failure.hpp"
 #include "rungcal/core/version.hpp"
 
 #include <fmt/format.h>
@@ -50,6 +51,7 @@ int parse_command_line(CLI::App& app, int argc, char** argv) {
     return app.exit(e);
   } catch (const CLI::ParseError& e) {
     app.exit(e);
+    remember_stage_failure({ExitCode::kBadInput, "command_line", {}, e.what(), e.what()});
     return static_cast<int>(ExitCode::kBadInput);
   }
   return -1;
@@ -84,15 +86,19 @@ int run_stage(const std::string& stage, const std::function<ExitCode()>& body) {
     return static_cast<int>(body());
   } catch (const WriteError& e) {
     spdlog::error("{}", e.what());
+    remember_stage_failure({ExitCode::kCannotWrite, e.rule(), e.where(), e.detail(), e.what()});
     return static_cast<int>(ExitCode::kCannotWrite);
   } catch (const InputError& e) {
     spdlog::error("{}", e.what());
+    remember_stage_failure({ExitCode::kBadInput, e.rule(), e.where(), e.detail(), e.what()});
     return static_cast<int>(ExitCode::kBadInput);
   } catch (const BusyError& e) {
     spdlog::error("{}", e.what());
+    remember_stage_failure({ExitCode::kBusy, "busy", {}, e.what(), e.what()});
     return static_cast<int>(ExitCode::kBusy);
   } catch (const std::exception& e) {
     spdlog::critical("internal error in rungcal-{}: {} (please report this)", stage, e.what());
+    remember_stage_failure({ExitCode::kInternalError, "internal_error", {}, e.what(), e.what()});
     return static_cast<int>(ExitCode::kInternalError);
   }
 }
