@@ -32,8 +32,10 @@ run_chain
 echo "== diff: what the new release changed (truth in sample_data/truth.json: W_VI alpha -5.772, offset -0.010 mas)"
 "$bin/rungcal-diff" --store demo_out/store --to halden-peak@latest
 echo "== distance to the Veyra Spiral (truth: mu = 29.35)"
-grep -v '^#' demo_out/distances_hosts.csv | awk -F, 'NR > 1 {
-  printf "  %s: mu = %.3f +- %.3f (stat) +- %.3f (calibration), d = %.2f +- %.2f Mpc, %d stars\n", $1, $4, $5, $6, $9, $10, $2 }'
+grep -v '^#' demo_out/distances_hosts.csv | awk -F, 'NR == 1 { for (i = 1; i <= NF; ++i) c[$i] = i; next } {
+  printf "  %s: mu = %.3f +- %.3f (stat) +- %.3f (calibration) +- %.3f (systematic), d = %.2f +- %.2f Mpc, %d stars\n",
+    $c["host"], $c["mu"], $c["mu_stat_err"], $c["mu_cal_err"], $c["mu_sys_err"], $c["distance_mpc"],
+    $c["distance_err_mpc"], $c["n_stars"] }'
 if [ -d build-demo/python/rungcal ]; then
   echo "== the same calibration from Python (docs/python.md): PYTHONPATH=build-demo/python /usr/bin/python3"
   PYTHONPATH=build-demo/python /usr/bin/python3 - <<'PY'
@@ -48,6 +50,7 @@ echo "Demo outputs:"
 for f in demo_out/lightcurves.fits demo_out/lightcurves.csv demo_out/catalog.fits demo_out/catalog_rejects.csv \
          demo_out/catalog_dereddened.fits demo_out/fit.json demo_out/fit_residuals.fits \
          demo_out/store/halden-peak/latest demo_out/distances.fits demo_out/distances.csv demo_out/distances_hosts.csv \
+         demo_out/distances_host_covariance.csv \
          demo_out/report/relations.tex demo_out/report/relations.md demo_out/report/stars_W_VI.tex \
          demo_out/report/pl_W_VI.pdf demo_out/report/versions_W_VI.pdf demo_out/report/lightcurve_HPO-C0001.pdf \
          demo_out/site/index.html demo_out/run_state.json demo_out/logs/rungcal-run.log; do

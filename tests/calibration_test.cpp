@@ -1,17 +1,15 @@
 // SPDX-License-Identifier: MIT
 // Tests of lib/rungcal/calibration and pipeline/rungcal-publish: the calibration file and
 // its FITS copy, the versioned store (idempotent, crash-safe, serialised publishers), and
-// predictions with their errors.
+// predictions with their errors. Distances from a calibration: apply_test.cpp.
 #include <gtest/gtest.h>
 
-#include <array>
 #include <cmath>
 #include <filesystem>
 #include <fstream>
 
 #include <fmt/format.h>
 
-#include "rungcal/calibration/apply.hpp"
 #include "rungcal/calibration/diff.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/error.hpp"
@@ -241,112 +239,6 @@ TEST(Calibration, BadReferencesAndInputsStopCleanly) {
   r = test::run_stage("publish", "--store " + dir.file("store") + " --name x --fit " + dir.file("broken.json"));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("[json_syntax]"), std::string::npos) << r.output;
-}
-
-// A calibration with given parameters and covariance (alpha, beta, sigma_int), pivot 1.
-Calibration simple_calibration(double alpha, double beta, double sigma, const std::vector<std::vector<double>>& cov) {
-  Calibration cal;
-  cal.document = {{"name", "simple"}, {"version", 1}};
-  cal.document["fit"]["relations"] = nlohmann::json::array(
-      {{{"name", "X"},
-        {"pivot_log_period", 1.0},
-        {"parameter_names", {"alpha", "beta", "sigma_int"}},
-        {"parameters", {{{"value", alpha}}, {{"value", beta}}, {{"value", sigma}}}},
-        {"covariance", cov}}});
-  return cal;
-}
-
-StarTable targets(const std::vector<std::array<double, 3>>& logp_m0_err, const std::string& host = "Far Galaxy") {
-  StarTable t;
-  for (const char* c : {"id", "group"}) t.add_column(c, ColumnType::kText);
-  for (const char* c : {"log_period", "mag0_X", "mag0_err_X"}) t.add_column(c, ColumnType::kReal);
-  int i = 0;
-  for (const auto& r : logp_m0_err) {
-    t.column("id").push_text("T" + std::to_string(i++));
-    t.column("group").push_text(host);
-    t.column("log_period").push_real(r[0]);
-    t.column("mag0_X").push_real(r[1]);
-    t.column("mag0_err_X").push_real(r[2]);
-  }
-  return t;
-}
-
-TEST(Apply, PhotometryEquationCheck) {
-  // Common practice, no source: M = -4, m = 26, no extinction -> mu = 30, d = 10 Mpc.
-  Calibration cal = simple_calibration(-4.0, 0.0, 0.0, {{0, 0, 0}, {0, 0, 0}, {0, 0, 0}});
-  ApplyResult r = apply_calibration(cal, "X", targets({{1.3, 26.0, 0.05}}), ApplyOptions{});
-  ASSERT_EQ(r.stars.size(), 1u);
-  EXPECT_NEAR(r.stars[0].mu, 30.0, 1e-12);
-  EXPECT_NEAR(r.stars[0].distance_pc, 1e7, 1e-3);
-  EXPECT_NEAR(r.hosts[0].distance_mpc, 10.0, 1e-9);
-}
-
-TEST(Apply, ErrorsFollowTheAnalyticFormulas) {
-  // Known covariance: per star var_cal = C_aa + x^2 C_bb + 2 x C_ab; per host the
-  // statistical error 1/sqrt(sum 1/(e^2 + sigma_int^2)) and the calibration error with the
-  // weighted-mean x.
-  const double caa = 0.0025, cbb = 0.0036, cab = -0.001, sig = 0.08;
-  Calibration cal = simple_calibration(-5.8, -3.3, sig, {{caa, cab, 0}, {cab, cbb, 0}, {0, 0, 0}});
-  std::vector<std::array<double, 3>> rows = {{1.2, 24.0, 0.05}, {1.5, 23.1, 0.10}, {1.8, 22.0, 0.07}};
-  ApplyResult r = apply_calibration(cal, "X", targets(rows), ApplyOptions{});
-  double sw = 0, swx = 0, swm = 0;
-  for (std::size_t i = 0; i < rows.size(); ++i) {
-    const double x = rows[i][0] - 1.0, m = -5.8 - 3.3 * x;
-    EXPECT_NEAR(r.stars[i].mu, rows[i][1] - m, 1e-12);
-    EXPECT_NEAR(r.stars[i].calibration_error, std::sqrt(caa + x * x * cbb + 2 * x * cab), 1e-12);
-    const double var = rows[i][2] * rows[i][2] + sig * sig;
-    EXPECT_NEAR(r.stars[i].stat_error, std::sqrt(var), 1e-12);
-    sw += 1 / var, swx += x / var, swm += (rows[i][1] - m) / var;
-  }
-  ASSERT_EQ(r.hosts.size(), 1u);
-  EXPECT_NEAR(r.hosts[0].mu, swm / sw, 1e-12);
-  EXPECT_NEAR(r.hosts[0].stat_error, 1 / std::sqrt(sw), 1e-12);
-  const double xm = swx / sw;
-  EXPECT_NEAR(r.hosts[0].calibration_error, std::sqrt(caa + xm * xm * cbb + 2 * xm * cab), 1e-12);
-}
-
-TEST(Apply, OutliersAreFlaggedAndLeftOut) {
-  Calibration cal = simple_calibration(-5.0, -3.0, 0.05, {{0, 0, 0}, {0, 0, 0}, {0, 0, 0}});
-  std::vector<std::array<double, 3>> rows;
-  for (int i = 0; i < 20; ++i) rows.push_back({1.0 + 0.04 * i, 25.0 - 3.0 * 0.04 * i + 0.01 * ((i % 3) - 1), 0.05});
-  rows.push_back({1.4, 25.0 - 1.2 - 1.0, 0.05});  // a blend, 1 mag too bright
-  ApplyResult r = apply_calibration(cal, "X", targets(rows), ApplyOptions{});
-  EXPECT_TRUE(r.stars.back().outlier);
-  EXPECT_EQ(r.hosts[0].n_outliers, 1);
-  EXPECT_NEAR(r.hosts[0].mu, 30.0, 0.01);
-}
-
-TEST(Apply, TheSimulatedTargetGalaxyIsAtItsTrueDistance) {
-  // The demo scenario end to end: calibrators -> ingest -> deredden -> fit (W_VI) -> publish;
-  // targets -> ingest -> deredden -> apply. Simulated truth: mu = 29.35 (sample_data/truth.json).
-  test::TempDir dir;
-  auto run = [&](const std::string& stage, const std::string& args) {
-    auto r = test::run_stage(stage, args);
-    ASSERT_EQ(r.exit_code, 0) << stage << ": " << r.output;
-  };
-  const std::string cfg = test::source_file("config/demo/");
-  run("ingest", "--config " + cfg + "ingest.toml --out " + dir.file("cat.fits"));
-  run("deredden", "--config " + cfg + "deredden.toml --input " + dir.file("cat.fits") + " --out " + dir.file("dered.fits"));
-  test::write_text(dir.file("fit.toml"), "[fit]\ninput = \"dered.fits\"\noutput = \"fit.json\"\n"
-                                         "zero_point = \"constant\"\nzero_point_mas = -0.020\nmax_ruwe = 1.4\n"
-                                         "[[relation]]\nband = \"W_VI\"\nmetallicity = true\n");
-  run("fit", "--config " + dir.file("fit.toml"));
-  run("publish", "--store " + dir.file("store") + " --name halden --fit " + dir.file("fit.json"));
-  run("ingest", "--config " + cfg + "ingest_targets.toml --out " + dir.file("targets.fits"));
-  run("deredden", "--config " + cfg + "deredden_targets.toml --input " + dir.file("targets.fits") + " --out " +
-                      dir.file("tdered.fits"));
-  auto r = test::run_stage("apply", "--store " + dir.file("store") + " --calibration halden@latest --relation W_VI --targets " +
-                                        dir.file("tdered.fits") + " --out " + dir.file("distances.fits"));
-  ASSERT_EQ(r.exit_code, 0) << r.output;
-  SourceTable hosts = read_fits_table(dir.file("distances.fits"), {"HOSTS", 0});
-  ASSERT_EQ(hosts.table.rows(), 1u);
-  EXPECT_EQ(hosts.table.column("host").text[0], "Veyra Spiral");
-  const double mu = hosts.table.column("mu").real[0];
-  const double err = std::hypot(hosts.table.column("mu_stat_err").real[0], hosts.table.column("mu_cal_err").real[0]);
-  EXPECT_NEAR(mu, 29.35, 2 * err);
-  EXPECT_EQ(std::get<std::string>(hosts.table.keyword("RGCALIB")->value), "halden@1");
-  EXPECT_TRUE(test::file_exists(dir.file("distances.csv")));
-  std::cout << "[ Veyra Spiral ] mu = " << mu << " +- " << err << " (truth 29.35)\n";
 }
 
 TEST(Diff, ShiftsInputsAndStarsBetweenTwoVersions) {

@@ -464,6 +464,47 @@ TEST(Run, RollingLatestBackIsHonouredDownstreamAndWithdrawnContentIsNotRepublish
   EXPECT_TRUE(withdrawn_versions(store, "test-cal").size() == 1u);  // 2 stays withdrawn
 }
 
+TEST(Run, ApplyTakesTheGridBudgetAndWritesTheHostCovariance) {
+  // Issue 17: with a [grid] stage, apply's systematic error comes from its budget, apply
+  // reruns when the budget changes, and the host covariance is one of its products.
+  test::TempDir dir;
+  stage_catalog(dir);
+  const std::string demo = test::source_file("config/demo");
+  test::write_text(dir.file("deredden_targets.toml"),
+                   test::replaced(test::read_text(demo + "/deredden_targets.toml"),
+                                  {{"../../demo_out", dir.file("run")},
+                                   {"../bands.toml", test::source_file("config/bands.toml")}}));
+  auto grid = [&](const std::string& ruwe) {
+    test::write_text(
+        dir.file("grid.toml"),
+        fmt::format("[grid]\ncatalog = \"unused.fits\"\nderedden = \"{0}/deredden.toml\"\n"
+                    "fit = \"{0}/fit.toml\"\n[[variant]]\nname = \"ruwe\"\n"
+                    "category = \"quality cuts\"\nmax_ruwe = {1}\n",
+                    demo, ruwe));
+  };
+  grid("1.2");
+  test::write_text(
+      dir.file("pipeline.toml"),
+      pipeline_config(dir, "", 0, false) +
+          fmt::format("[grid]\nconfig = \"{0}\"\n[apply]\nrelation = \"W_VI\"\n"
+                      "targets_ingest = \"{1}/ingest_targets.toml\"\ntargets_deredden = \"{2}\"\n",
+                      dir.file("grid.toml"), demo, dir.file("deredden_targets.toml")));
+  auto first = run(dir);
+  ASSERT_EQ(first.exit_code, 6) << first.output;
+  ASSERT_TRUE(test::file_exists(dir.file("run/distances_host_covariance.csv")));
+  SourceTable hosts = read_fits_table(dir.file("run/distances.fits"), {"HOSTS", 0});
+  EXPECT_EQ(std::get<std::int64_t>(hosts.table.keyword("RGNSYSV")->value), 1);
+  const double sys = hosts.table.column("mu_sys_err").real[0];
+  EXPECT_GT(sys, 0.0);
+  SourceTable cov = read_fits_table(dir.file("run/distances.fits"), {"HOST_COVARIANCE", 0});
+  EXPECT_NEAR(cov.table.column("cov_sys").real[0], sys * sys, 1e-15);
+  EXPECT_EQ(run(dir).exit_code, 3);  // nothing changed: apply up to date
+  grid("1.1");                       // a new budget: the grid and apply rerun
+  auto again = run(dir);
+  EXPECT_TRUE(ran(again.output, "grid")) << again.output;
+  EXPECT_TRUE(ran(again.output, "apply")) << again.output;
+}
+
 TEST(Run, ANewVersionWhereNoParameterMovedSaysSoNotFirstVersion) {
   // A version published by hand with the same numbers (here: another software version in its
   // provenance) is news, but nothing moved: the summary said "(the first version)".

@@ -1,199 +1,219 @@
 // SPDX-License-Identifier: MIT
+// Distances of target Cepheids and of their hosts from a published calibration.
 #include "rungcal/calibration/apply.hpp"
 
+#include <algorithm>
 #include <cmath>
-#include <filesystem>
+#include <cstdint>
+#include <limits>
 #include <map>
+#include <optional>
+#include <set>
 
 #include <fmt/format.h>
+#include <spdlog/spdlog.h>
 
-#include "rungcal/calibration/store.hpp"
 #include "rungcal/core/error.hpp"
-#include "rungcal/core/provenance.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/table/catalog_schema.hpp"
-#include "rungcal/table/fits_io.hpp"
-#include "rungcal/table/text_io.hpp"
 
 namespace rungcal {
 namespace {
 
 constexpr double kLn10Over5 = 2.302585092994045684 / 5.0;
 
-HostDistance combine(const Calibration& cal, const std::string& relation, const std::string& host,
-                     std::vector<TargetDistance*>& stars, const ApplyOptions& o) {
+double quadrature_sum(const std::vector<double>& values) {
+  double s = 0;
+  for (double v : values) s += v * v;
+  return std::sqrt(s);
+}
+
+// Inverse-variance mean of the stars not flagged: {mean, sum of weights}; sum 0 when none.
+std::pair<double, double> weighted_mean(const std::vector<TargetDistance*>& stars) {
+  double sw = 0, swm = 0;
+  for (const auto* s : stars) {
+    if (s->outlier) continue;
+    const double w = 1 / (s->stat_error * s->stat_error);
+    sw += w, swm += w * s->mu;
+  }
+  return {sw > 0 ? swm / sw : 0.0, sw};
+}
+
+// Flags the stars more than k of their own sigma from the mean of the stars not flagged,
+// every flag recomputed on each pass (a star flagged while a real outlier pulled the mean
+// comes back once the mean moves), until the flags repeat or the passes run out. A pass
+// that would flag every star is not taken.
+void flag_outliers(const std::string& host, std::vector<TargetDistance*>& stars,
+                   const ApplyOptions& o) {
+  for (auto* s : stars) s->outlier = false;
+  std::set<std::vector<bool>> seen;
+  for (int pass = 0; pass < o.outlier_iterations; ++pass) {
+    const double mean = weighted_mean(stars).first;
+    std::vector<bool> flags;
+    for (const auto* s : stars)
+      flags.push_back(std::abs(s->mu - mean) > o.outlier_sigma * s->stat_error);
+    std::vector<bool> current;
+    for (const auto* s : stars) current.push_back(s->outlier);
+    if (flags == current) return;
+    if (std::find(flags.begin(), flags.end(), false) == flags.end()) {
+      spdlog::warn("{}: every star would be an outlier at {} sigma; the last flags are kept", host,
+                   o.outlier_sigma);
+      return;
+    }
+    if (!seen.insert(current).second) break;  // a cycle: stop here
+    for (std::size_t i = 0; i < stars.size(); ++i) stars[i]->outlier = flags[i];
+  }
+  spdlog::warn("{}: the outlier flags did not settle in {} passes; the last pass's flags are kept",
+               host, o.outlier_iterations);
+}
+
+HostDistance combine(const std::string& host, std::vector<TargetDistance*>& stars,
+                     const ApplyResult& r, const ApplyOptions& o) {
   HostDistance h;
   h.host = host;
   h.n_stars = static_cast<int>(stars.size());
-  for (int pass = 0; pass <= o.outlier_iterations; ++pass) {
-    double sw = 0, swm = 0;
-    for (auto* s : stars)
-      if (!s->outlier) sw += 1 / (s->stat_error * s->stat_error), swm += s->mu / (s->stat_error * s->stat_error);
-    if (sw == 0) break;
-    h.mu = swm / sw;
-    h.stat_error = 1 / std::sqrt(sw);
-    bool changed = false;
-    for (auto* s : stars) {
-      bool out = std::abs(s->mu - h.mu) > o.outlier_sigma * s->stat_error;
-      if (out && !s->outlier) s->outlier = changed = true;
-    }
-    if (!changed) break;
-  }
-  std::vector<double> g;
-  double sw = 0, chi2 = 0, spread = 0;
+  flag_outliers(host.empty() ? "(no host)" : host, stars, o);
+  const auto [mean, sw] = weighted_mean(stars);
+  h.mu = mean;
+  h.stat_error_raw = 1 / std::sqrt(sw);
+  double spread = 0;
   int used = 0;
+  h.gradient.assign(r.covariance.names.size(), 0.0);
   for (auto* s : stars) {
     if (s->outlier) {
       ++h.n_outliers;
       continue;
     }
-    double w = 1 / (s->stat_error * s->stat_error);
-    if (g.empty()) g.assign(s->gradient.size(), 0.0);
-    for (std::size_t j = 0; j < g.size(); ++j) g[j] += w * s->gradient[j];
-    sw += w;
-    chi2 += w * (s->mu - h.mu) * (s->mu - h.mu);
+    const double w = 1 / (s->stat_error * s->stat_error);
+    for (std::size_t j = 0; j < h.gradient.size() && j < s->gradient.size(); ++j)
+      h.gradient[j] += w * s->gradient[j] / sw;
+    h.chi2 += w * (s->mu - h.mu) * (s->mu - h.mu);
     spread += (s->mu - h.mu) * (s->mu - h.mu);
     ++used;
   }
-  for (double& x : g) x /= sw;
-  h.chi2 = chi2;
+  h.dof = used - 1;
   h.dispersion = used > 1 ? std::sqrt(spread / (used - 1)) : 0.0;
-  h.calibration_error = calibration_error_of(cal, relation, g);
-  double total = std::hypot(h.stat_error, h.calibration_error);
+  h.error_scale = h.dof > 0 ? std::max(1.0, std::sqrt(h.chi2 / h.dof)) : 1.0;
+  h.stat_error = h.error_scale * h.stat_error_raw;
+  if (h.error_scale > 1)
+    spdlog::warn(
+        "{}: chi2/dof = {:.2f} > 1: its statistical error is scaled by {:.3f}, {:.4f} -> {:.4f} "
+        "mag (the raw figures are kept: mu_stat_err_raw, chi2, dof, error_scale)",
+        host.empty() ? "(no host)" : host, h.chi2_per_dof(), h.error_scale, h.stat_error_raw,
+        h.stat_error);
+  h.calibration_error =
+      std::sqrt(std::max(0.0, r.covariance.form(h.gradient, h.gradient, r.calibration_label)));
+  h.systematic_shifts = r.systematics.modulus_shifts(h.gradient);
+  h.systematic_error = quadrature_sum(h.systematic_shifts);
   h.distance_mpc = parsec_from_distance_modulus(h.mu) / 1e6;
-  h.distance_err_mpc = h.distance_mpc * kLn10Over5 * total;
+  h.distance_err_mpc = h.distance_mpc * kLn10Over5 * h.total_error();
   return h;
 }
 
-StarTable stars_table(const ApplyResult& r) {
-  StarTable t;
-  for (const char* c : {"id", "host"}) t.add_column(c, ColumnType::kText);
-  t.add_column("log_period_f", ColumnType::kReal, "", "log10 of the (fundamentalized) period in days");
-  t.add_column("m0", ColumnType::kReal, "mag", "dereddened or Wesenheit magnitude");
-  t.add_column("abs_mag", ColumnType::kReal, "mag", "absolute magnitude from the calibration");
-  t.add_column("mu", ColumnType::kReal, "mag", "distance modulus");
-  t.add_column("mu_stat_err", ColumnType::kReal, "mag", "photometry and intrinsic scatter");
-  t.add_column("mu_cal_err", ColumnType::kReal, "mag", "calibration (common to all stars)");
-  t.add_column("distance_pc", ColumnType::kReal, "pc");
-  t.add_column("distance_mpc", ColumnType::kReal, "Mpc");
-  t.add_column("distance_err_mpc", ColumnType::kReal, "Mpc", "both errors in quadrature");
-  t.add_column("outlier", ColumnType::kBoolean, "", "left out of the host mean");
-  for (const auto& s : r.stars) {
-    t.column("id").push_text(s.id);
-    t.column("host").push_text(s.host);
-    t.column("log_period_f").push_real(s.log_period);
-    t.column("m0").push_real(s.m0);
-    t.column("abs_mag").push_real(s.abs_mag);
-    t.column("mu").push_real(s.mu);
-    t.column("mu_stat_err").push_real(s.stat_error);
-    t.column("mu_cal_err").push_real(s.calibration_error);
-    t.column("distance_pc").push_real(s.distance_pc);
-    t.column("distance_mpc").push_real(s.distance_pc / 1e6);
-    t.column("distance_err_mpc").push_real(s.distance_err_pc / 1e6);
-    t.column("outlier").push_boolean(s.outlier);
-  }
-  return t;
-}
-
-StarTable hosts_table(const ApplyResult& r) {
-  StarTable t;
-  t.add_column("host", ColumnType::kText);
-  t.add_column("n_stars", ColumnType::kInteger);
-  t.add_column("n_outliers", ColumnType::kInteger);
-  for (const char* c : {"mu", "mu_stat_err", "mu_cal_err", "dispersion"}) t.add_column(c, ColumnType::kReal, "mag");
-  t.add_column("chi2", ColumnType::kReal);
-  t.add_column("distance_mpc", ColumnType::kReal, "Mpc");
-  t.add_column("distance_err_mpc", ColumnType::kReal, "Mpc", "statistical and calibration in quadrature");
-  for (const auto& h : r.hosts) {
-    t.column("host").push_text(h.host);
-    t.column("n_stars").push_integer(h.n_stars);
-    t.column("n_outliers").push_integer(h.n_outliers);
-    t.column("mu").push_real(h.mu);
-    t.column("mu_stat_err").push_real(h.stat_error);
-    t.column("mu_cal_err").push_real(h.calibration_error);
-    t.column("dispersion").push_real(h.dispersion);
-    t.column("chi2").push_real(h.chi2);
-    t.column("distance_mpc").push_real(h.distance_mpc);
-    t.column("distance_err_mpc").push_real(h.distance_err_mpc);
-  }
-  return t;
-}
-
 }  // namespace
+
+double HostDistance::chi2_per_dof() const {
+  return dof > 0 ? chi2 / dof : std::numeric_limits<double>::quiet_NaN();
+}
+
+double HostDistance::total_error() const {
+  return std::sqrt(stat_error * stat_error + calibration_error * calibration_error +
+                   systematic_error * systematic_error);
+}
 
 std::string ApplyOptions::check() const {
   if (store.empty()) return "store: required";
   if (calibration.empty()) return "calibration: required (name@latest or name@N)";
   if (relation.empty()) return "relation: required";
   if (targets_path.empty()) return "targets: required";
-  if (!(outlier_sigma > 0)) return "outlier_sigma: must be positive";
+  if (output_path.empty()) return "out: required";
+  if (!(outlier_sigma > 0) || !std::isfinite(outlier_sigma))
+    return "outlier_sigma: must be a finite positive number";
+  if (outlier_iterations < 1) return "outlier_iterations: must be at least 1";
   return "";
 }
 
-ApplyResult apply_calibration(const Calibration& cal, const std::string& relation, const StarTable& t, const ApplyOptions& o) {
+ApplyResult apply_calibration(const Calibration& cal, const std::string& relation,
+                              const StarTable& t, const ApplyOptions& o,
+                              const SystematicShifts& systematics) {
   ApplyResult r;
   r.calibration_label = cal.label();
+  r.covariance = parameter_covariance(cal, relation);
+  r.systematics = systematics;
   const std::string mag = "mag0_" + relation, err = "mag0_err_" + relation;
   for (const std::string& c : {std::string(col::kId), std::string(col::kLogPeriod), mag, err})
-    if (!t.has(c)) throw InputError({o.targets_path, {}, c}, "missing_column", "the targets need this column");
+    if (!t.has(c))
+      throw InputError({o.targets_path, {}, c}, "missing_column", "the targets need this column");
+  const bool needs_feh = [&] {
+    for (const auto& n : r.covariance.names)
+      if (n == "gamma") return true;
+    return false;
+  }();
   std::map<std::string, std::vector<std::size_t>> by_host;
+  std::set<std::string> ids;
   for (std::size_t i = 0; i < t.rows(); ++i) {
+    const InputLocation at{o.targets_path, static_cast<std::int64_t>(i + 1), ""};
+    auto where = [&](const std::string& column) {
+      InputLocation w = at;
+      w.column = column;
+      return w;
+    };
     TargetDistance s;
+    s.row = i + 1;
     s.id = t.column(col::kId).to_string(i);
-    s.host = t.has(col::kGroup) && !t.column(col::kGroup).is_null(i) ? t.column(col::kGroup).text[i] : "";
-    double logp = t.column(col::kLogPeriod).as_real(i);
-    std::string klass = t.has(col::kClass) ? t.column(col::kClass).to_string(i) : "classical_cepheid";
+    s.host = t.has(col::kGroup) && !t.column(col::kGroup).is_null(i)
+                 ? t.column(col::kGroup).to_string(i)
+                 : "";
+    s.m0 = t.column(mag).as_real(i);
+    if (!std::isfinite(s.m0)) continue;  // the target lacks this magnitude
+    const double e = t.column(err).as_real(i);
+    if (!(std::isfinite(e) && e > 0))
+      throw InputError(where(err), "bad_error",
+                       fmt::format("'{}': a magnitude's error must be a finite positive number",
+                                   t.column(err).to_string(i)));
+    const double logp = t.column(col::kLogPeriod).as_real(i);
+    if (!std::isfinite(logp))
+      throw InputError(where(col::kLogPeriod), "bad_value",
+                       fmt::format("'{}': log_period must be a finite number",
+                                   t.column(col::kLogPeriod).to_string(i)));
+    if (!ids.insert(s.id).second)
+      throw InputError(where(col::kId), "duplicate_id", "'" + s.id + "' is in the targets twice");
+    std::string klass =
+        t.has(col::kClass) ? t.column(col::kClass).to_string(i) : "classical_cepheid";
     std::string mode = t.has(col::kMode) ? t.column(col::kMode).to_string(i) : "fundamental";
     s.log_period = fundamentalized_log_period(klass, mode, logp);
-    s.m0 = t.column(mag).as_real(i);
-    double e = t.column(err).as_real(i);
-    if (!std::isfinite(s.m0) || !std::isfinite(e)) continue;  // the target lacks this magnitude
     std::optional<double> feh;
-    if (t.has(col::kFeh) && std::isfinite(t.column(col::kFeh).as_real(i))) feh = t.column(col::kFeh).as_real(i);
+    if (t.has(col::kFeh) && std::isfinite(t.column(col::kFeh).as_real(i)))
+      feh = t.column(col::kFeh).as_real(i);
+    if (needs_feh && !feh)
+      throw InputError(
+          where(col::kFeh), "missing_value",
+          fmt::format("relation {} of {} has a metallicity term: every target needs [Fe/H]",
+                      relation, cal.label()));
     Prediction p = predict_absolute_magnitude(cal, relation, s.log_period, feh);
     s.abs_mag = p.abs_mag;
     s.mu = s.m0 - p.abs_mag;
     s.stat_error = std::hypot(e, p.intrinsic_scatter);
-    s.calibration_error = p.calibration_error;
     s.gradient = p.gradient;
+    s.calibration_error =
+        std::sqrt(std::max(0.0, r.covariance.form(s.gradient, s.gradient, r.calibration_label)));
+    s.systematic_error = quadrature_sum(systematics.modulus_shifts(s.gradient));
     s.distance_pc = parsec_from_distance_modulus(s.mu);
-    s.distance_err_pc = s.distance_pc * kLn10Over5 * std::hypot(s.stat_error, s.calibration_error);
+    s.distance_err_pc =
+        s.distance_pc * kLn10Over5 *
+        std::sqrt(s.stat_error * s.stat_error + s.calibration_error * s.calibration_error +
+                  s.systematic_error * s.systematic_error);
     by_host[s.host].push_back(r.stars.size());
     r.stars.push_back(s);
   }
   if (r.stars.empty())
-    throw InputError({o.targets_path, {}, mag}, "no_rows_left", "no target has this magnitude and its error");
+    throw InputError({o.targets_path, {}, mag}, "no_rows_left",
+                     "no target has this magnitude and its error");
   for (auto& [host, idx] : by_host) {
     std::vector<TargetDistance*> members;
     for (std::size_t i : idx) members.push_back(&r.stars[i]);
-    r.hosts.push_back(combine(cal, relation, host, members, o));
+    r.hosts.push_back(combine(host, members, r, o));
   }
-  return r;
-}
-
-ApplyResult apply_calibration_files(const ApplyOptions& o) {
-  throw_if_invalid(o.check(), "");
-  Calibration cal = load_calibration(o.store, o.calibration);
-  SourceTable targets = read_fits_table(o.targets_path, {"CATALOG", 0});
-  ApplyResult r = apply_calibration(cal, o.relation, targets.table, o);
-  Provenance prov = Provenance::for_stage("apply");
-  prov.inputs.push_back({o.targets_path, sha256_file(o.targets_path), static_cast<std::int64_t>(targets.table.rows())});
-  StarTable stars = stars_table(r), hosts = hosts_table(r);
-  for (StarTable* t : {&stars, &hosts}) {
-    stamp_provenance(*t, prov, "distances");
-    t->set_keyword("RGCALIB", r.calibration_label, "calibration name@version");
-    t->set_keyword("RGCALSHA", cal.document.value("content_sha256", ""), "calibration content SHA-256");
-    t->set_keyword("RGRELAT", o.relation, "relation applied");
-  }
-  write_fits_tables(o.output_path, {{"STARS", &stars}, {"HOSTS", &hosts}});
-  std::string csv = o.csv_path;
-  if (csv.empty()) {
-    std::filesystem::path p(o.output_path);
-    csv = (p.parent_path() / (p.stem().string() + ".csv")).string();
-  }
-  write_csv_table(stars, csv);
-  std::filesystem::path p(csv);
-  write_csv_table(hosts, (p.parent_path() / (p.stem().string() + "_hosts.csv")).string());
   return r;
 }
 

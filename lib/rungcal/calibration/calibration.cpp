@@ -1,7 +1,9 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/calibration/calibration.hpp"
 
+#include <algorithm>
 #include <cmath>
+#include <limits>
 
 #include <fmt/format.h>
 
@@ -41,6 +43,15 @@ void require_string(const nlohmann::json& object, const std::string& key, const 
                     const std::string& where) {
   if (!member(object, key, path, where).is_string())
     schema_error(where, "fit_schema", path + key, "must be a string");
+}
+
+// A parameter's prior sigma ({"prior": {"mean", "sigma"}}), 0 when it has none.
+double prior_sigma(const nlohmann::json& parameter) {
+  auto prior = parameter.find("prior");
+  if (prior == parameter.end() || !prior->is_object()) return 0.0;
+  auto sigma = prior->find("sigma");
+  if (sigma == prior->end() || !finite_number(*sigma)) return 0.0;
+  return std::max(0.0, sigma->get<double>());
 }
 
 }  // namespace
@@ -158,13 +169,68 @@ const nlohmann::json& Calibration::relation(const std::string& name) const {
   throw InputError({label(), {}, name, "row", "relation"}, "unknown_relation", "the calibration has no relation of this name");
 }
 
+ParameterCovariance parameter_covariance(const Calibration& cal, const std::string& relation) {
+  const nlohmann::json& rel = cal.relation(relation);
+  const auto& cov = rel.at("covariance");
+  const auto& params = rel.at("parameters");
+  ParameterCovariance c;
+  c.names = rel.at("parameter_names").get<std::vector<std::string>>();
+  const auto n = static_cast<Eigen::Index>(c.names.size());
+  c.matrix = Eigen::MatrixXd::Zero(n, n);
+  c.from_prior.assign(c.names.size(), false);
+  auto at = [&](Eigen::Index i, Eigen::Index j) {
+    const nlohmann::json& v = cov[static_cast<std::size_t>(i)][static_cast<std::size_t>(j)];
+    return v.is_null() ? std::numeric_limits<double>::quiet_NaN() : v.get<double>();
+  };
+  for (Eigen::Index i = 0; i < n; ++i) {
+    const nlohmann::json& p = params[static_cast<std::size_t>(i)];
+    const std::string mode = p.value("mode", "free");
+    const double var = at(i, i);
+    if (mode == "fixed") continue;
+    if (std::isfinite(var)) {
+      c.matrix(i, i) = var;
+    } else if (const double s = prior_sigma(p); s > 0) {
+      c.matrix(i, i) = s * s;
+      c.from_prior[static_cast<std::size_t>(i)] = true;
+    } else {
+      c.matrix(i, i) = std::numeric_limits<double>::quiet_NaN();
+    }
+  }
+  for (Eigen::Index i = 0; i < n; ++i)
+    for (Eigen::Index j = 0; j < n; ++j) {
+      if (i == j || c.from_prior[static_cast<std::size_t>(i)] ||
+          c.from_prior[static_cast<std::size_t>(j)])
+        continue;
+      if (!std::isfinite(c.matrix(i, i)) || !std::isfinite(c.matrix(j, j)) || c.matrix(i, i) == 0 ||
+          c.matrix(j, j) == 0)
+        continue;
+      const double v = at(i, j);
+      if (std::isfinite(v)) c.matrix(i, j) = v;
+    }
+  return c;
+}
+
+double ParameterCovariance::form(const std::vector<double>& g, const std::vector<double>& h,
+                                 const std::string& label) const {
+  const auto n = static_cast<std::size_t>(matrix.rows());
+  for (std::size_t j = 0; j < n && j < g.size() && j < h.size(); ++j)
+    if ((g[j] != 0 || h[j] != 0) &&
+        !std::isfinite(matrix(static_cast<Eigen::Index>(j), static_cast<Eigen::Index>(j))))
+      throw InputError(
+          {label, {}, names[j], "row", "parameter"}, "undetermined_parameter",
+          "the calibration gives no error for this parameter (free, with no variance and no "
+          "prior), and the prediction depends on it: its calibration error would be understated");
+  double v = 0;
+  for (std::size_t i = 0; i < n && i < g.size(); ++i)
+    for (std::size_t j = 0; j < n && j < h.size(); ++j)
+      if (g[i] != 0 && h[j] != 0)
+        v += g[i] * h[j] * matrix(static_cast<Eigen::Index>(i), static_cast<Eigen::Index>(j));
+  return v;
+}
+
 double calibration_error_of(const Calibration& cal, const std::string& relation, const std::vector<double>& grad) {
-  const auto& cov = cal.relation(relation).at("covariance");
-  double var = 0;
-  for (std::size_t i = 0; i < grad.size(); ++i)
-    for (std::size_t j = 0; j < grad.size(); ++j)
-      if (grad[i] != 0 && grad[j] != 0 && !cov[i][j].is_null()) var += grad[i] * grad[j] * cov[i][j].get<double>();
-  return std::sqrt(std::max(0.0, var));
+  return std::sqrt(std::max(
+      0.0, parameter_covariance(cal, relation).form(grad, grad, cal.label() + " " + relation)));
 }
 
 Prediction predict_absolute_magnitude(const Calibration& cal, const std::string& relation, double log_period,

@@ -5,6 +5,7 @@
 #include <string>
 #include <vector>
 
+#include <Eigen/Dense>
 #include <nlohmann/json.hpp>
 
 namespace rungcal {
@@ -59,12 +60,38 @@ struct Prediction {
   std::vector<double> gradient;  // dM / d(parameter), in the relation's parameter order
 };
 
-// sqrt(g^T C g) for a relation's covariance C: the calibration error of any linear
-// combination of predictions (a host's weighted mean uses the mean gradient).
+// The covariance C of a relation's parameters (parameter_names order) that predictions
+// propagate, with every prior in it:
+// - an entry the fit gives is its covariance at the optimum (the Hessian of -ln L, or the
+//   least-squares covariance); every Gaussian prior of the fit (an anchor's geometric
+//   distance, a prior on the offset, slope or metallicity term) is a term of -ln L, so its
+//   curvature is in C already;
+// - a parameter with a prior whose variance the fit left null (undetermined, or no
+//   covariance at all) takes the prior's sigma^2, uncorrelated: the prior alone bounds it,
+//   and the data can only narrow it;
+// - a fixed parameter has variance 0, and a null off-diagonal entry counts as 0;
+// - a free parameter whose variance is null stays NaN: the calibration gives no error for
+//   it, and a prediction that needs it is refused (calibration_error_of).
+struct ParameterCovariance {
+  std::vector<std::string> names;  // the relation's parameter_names
+  Eigen::MatrixXd matrix;          // C (mag and the parameters' units)
+  std::vector<bool> from_prior;    // the variance is the prior's sigma^2
+
+  // g^T C h; InputError (rule "undetermined_parameter", naming `label` and the parameter)
+  // when a parameter with a non-zero entry in g or h has no variance.
+  double form(const std::vector<double>& g, const std::vector<double>& h,
+              const std::string& label) const;
+};
+ParameterCovariance parameter_covariance(const Calibration& calibration,
+                                         const std::string& relation);
+
+// sqrt(g^T C g) for a relation's covariance C (parameter_covariance): the calibration error
+// of any linear combination of predictions (a host's weighted mean uses the mean gradient).
 double calibration_error_of(const Calibration& calibration, const std::string& relation, const std::vector<double>& gradient);
 
 // M = alpha + beta (log P - log P0) [+ beta_long (log P - log Pb) above log Pb]
-// [+ gamma [Fe/H]]; calibration error sqrt(g^T C g), g the gradient in the parameters.
+// [+ gamma [Fe/H]]; calibration error sqrt(g^T C g), g the gradient in the parameters and
+// C from parameter_covariance.
 // Throws InputError ("unknown_relation", "missing_value") when the relation is not in the
 // calibration or a metallicity term needs [Fe/H].
 Prediction predict_absolute_magnitude(const Calibration& calibration, const std::string& relation, double log_period,

@@ -291,7 +291,11 @@ GridResult run_grid_files(const GridOptions& g) {
                        {"config_sha256", prov.config_sha256},
                        {"inputs", {{{"path", g.catalog_path}, {"sha256", prov.inputs[0].sha256}}}}};
   nlohmann::json variants = nlohmann::json::array();
-  for (const auto& v : g.variants) variants.push_back({{"name", v.name}, {"category", v.category}});
+  // changes_extinction: the variant moves every dereddened magnitude, the targets' too.
+  for (const auto& v : g.variants)
+    variants.push_back({{"name", v.name},
+                        {"category", v.category},
+                        {"changes_extinction", v.changes_extinction()}});
   doc["variants"] = variants;
   write_file_atomically((std::filesystem::path(g.output_folder) / "grid.json").string(),
                         doc.dump(2) + "\n");

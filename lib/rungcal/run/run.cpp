@@ -13,7 +13,7 @@
 #include <spdlog/spdlog.h>
 #include <nlohmann/json.hpp>
 
-#include "rungcal/calibration/apply.hpp"
+#include "rungcal/calibration/apply_products.hpp"
 #include "rungcal/calibration/diff.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/atomic_file.hpp"
@@ -349,6 +349,8 @@ std::string RunOptions::check() const {
   if (!(drift_alarm_sigma > 0)) return "run.drift_alarm_sigma: must be positive";
   if (!apply_relation.empty() && (targets_ingest_config.empty() || targets_deredden_config.empty()))
     return "apply: relation needs targets_ingest and targets_deredden";
+  if (!apply_grid_skip_categories.empty() && grid_config.empty())
+    return "apply.grid_skip_categories: needs a [grid] stage, whose budget it edits";
   return "";
 }
 
@@ -400,6 +402,8 @@ RunOptions run_options_from_file(const std::string& path) {
   if (auto s = root.section("report")) o.report = s->bool_or("enabled", true);
   if (auto s = root.section("apply")) {
     o.apply_relation = s->require_string("relation");
+    o.apply_grid_skip_categories =
+        s->get_string_list("grid_skip_categories").value_or(std::vector<std::string>{});
     o.targets_ingest_config = c.resolve_path(s->require_string("targets_ingest"));
     o.targets_deredden_config = c.resolve_path(s->require_string("targets_deredden"));
   }
@@ -641,14 +645,16 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
     apply.targets_path = t_deredden->output_path;
     apply.output_path = in_folder(o, "distances.fits");
     apply.csv_path = in_folder(o, "distances.csv");
-    stages.push_back({"apply",
-                      "",
-                      {t_deredden->output_path},
-                      "relation=" + o.apply_relation,
-                      {apply.output_path, apply.csv_path, in_folder(o, "distances_hosts.csv")},
-                      "",
-                      [&] { apply_calibration_files(apply); },
-                      true});
+    std::vector<std::string> apply_inputs = {t_deredden->output_path};
+    if (grid) {  // the budget's systematics join the distances
+      apply.grid_path = in_folder(o, "grid/grid.json");
+      apply.grid_skip_categories = o.apply_grid_skip_categories;
+      apply_inputs.push_back(apply.grid_path);
+    }
+    std::string apply_settings = "relation=" + o.apply_relation;
+    for (const auto& c : o.apply_grid_skip_categories) apply_settings += " grid_skip=" + c;
+    stages.push_back({"apply", "", apply_inputs, apply_settings, apply_product_paths(apply).all(),
+                      "", [&] { apply_calibration_files(apply); }, true});
   }
 
   std::set<std::string> will_change;  // dry run: products the stages that would run rewrite

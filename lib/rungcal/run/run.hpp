@@ -32,6 +32,9 @@ struct RunOptions {
   std::string grid_config;  // systematics grid ("" = none): its budget joins the report
   bool report = true;          // tables and figures of the latest version (and the one before)
   std::string apply_relation;  // "" = no distances
+  // [apply] grid_skip_categories: categories of the grid's budget left out of the distances'
+  // systematic error (ApplyOptions::grid_skip_categories).
+  std::vector<std::string> apply_grid_skip_categories;
   std::string targets_ingest_config;
   std::string targets_deredden_config;
   bool republish_withdrawn = false;  // publish a fit whose content is a withdrawn version's

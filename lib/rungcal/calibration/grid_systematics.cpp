@@ -1,0 +1,174 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/calibration/grid_systematics.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <map>
+#include <optional>
+#include <utility>
+
+#include <fmt/format.h>
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/json_io.hpp"
+
+namespace rungcal {
+namespace {
+
+[[noreturn]] void budget_error(const std::string& where, const std::string& key,
+                               const std::string& message) {
+  throw InputError({where, {}, key, "row", "key"}, "budget_schema", message);
+}
+
+const nlohmann::json& array_at(const nlohmann::json& object, const std::string& key,
+                               const std::string& path, const std::string& where) {
+  auto it = object.find(key);
+  if (it == object.end() || !it->is_array())
+    budget_error(where, path + key, "missing, or not an array");
+  return *it;
+}
+
+std::string string_at(const nlohmann::json& object, const std::string& key, const std::string& path,
+                      const std::string& where) {
+  auto it = object.find(key);
+  if (it == object.end() || !it->is_string())
+    budget_error(where, path + key, "missing, or not a string");
+  return it->get<std::string>();
+}
+
+double number_at(const nlohmann::json& object, const std::string& key, const std::string& path,
+                 const std::string& where) {
+  auto it = object.find(key);
+  if (it == object.end() || !it->is_number() || !std::isfinite(it->get<double>()))
+    budget_error(where, path + key, "missing, or not a finite number");
+  return it->get<double>();
+}
+
+}  // namespace
+
+std::vector<double> SystematicShifts::modulus_shifts(const std::vector<double>& gradient) const {
+  std::vector<double> out;
+  out.reserve(shift.size());
+  for (const auto& s : shift) {
+    double d = 0;
+    for (std::size_t j = 0; j < s.size() && j < gradient.size(); ++j) d -= gradient[j] * s[j];
+    out.push_back(d);
+  }
+  return out;
+}
+
+SystematicShifts SystematicShifts::without_categories(const std::vector<std::string>& skip,
+                                                      const std::string& option) const {
+  for (const auto& c : skip)
+    if (std::find(categories.begin(), categories.end(), c) == categories.end())
+      throw InputError({source, {}, option, "row", "key"}, "unknown_category",
+                       fmt::format("the error budget has no category '{}'", c));
+  SystematicShifts out;
+  out.source = source;
+  for (std::size_t v = 0; v < variants.size(); ++v) {
+    if (std::find(skip.begin(), skip.end(), categories[v]) != skip.end()) continue;
+    out.variants.push_back(variants[v]);
+    out.categories.push_back(categories[v]);
+    out.changes_extinction.push_back(changes_extinction[v]);
+    out.shift.push_back(shift[v]);
+  }
+  return out;
+}
+
+SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::string& where,
+                                   const Calibration& cal, const std::string& relation) {
+  if (!budget.is_object() || budget.value("schema", "") != "rungcal-error-budget")
+    budget_error(
+        where, "schema",
+        "not a rungcal error budget (schema \"rungcal-error-budget\", rungcal-grid's grid.json)");
+  SystematicShifts s;
+  s.source = where;
+  const nlohmann::json& variants = array_at(budget, "variants", "", where);
+  std::map<std::string, std::size_t> index;
+  for (std::size_t k = 0; k < variants.size(); ++k) {
+    const std::string at = fmt::format("variants[{}].", k);
+    if (!variants[k].is_object())
+      budget_error(where, at.substr(0, at.size() - 1), "must be an object");
+    s.variants.push_back(string_at(variants[k], "name", at, where));
+    s.categories.push_back(string_at(variants[k], "category", at, where));
+    const auto ext = variants[k].find("changes_extinction");
+    if (ext != variants[k].end() && !ext->is_boolean())
+      budget_error(where, at + "changes_extinction", "must be true or false");
+    s.changes_extinction.push_back(ext != variants[k].end() && ext->get<bool>());
+    index[s.variants.back()] = k;
+  }
+  const nlohmann::json& relations = array_at(budget, "relations", "", where);
+  const nlohmann::json* rel = nullptr;
+  std::string rel_at;
+  for (std::size_t i = 0; i < relations.size(); ++i) {
+    const std::string at = fmt::format("relations[{}].", i);
+    if (!relations[i].is_object())
+      budget_error(where, at.substr(0, at.size() - 1), "must be an object");
+    if (string_at(relations[i], "name", at, where) == relation) rel = &relations[i], rel_at = at;
+  }
+  if (!rel)
+    throw InputError({where, {}, "relations", "row", "key"}, "unknown_relation",
+                     fmt::format("the error budget has no relation '{}'", relation));
+  const std::vector<std::string> names =
+      cal.relation(relation).at("parameter_names").get<std::vector<std::string>>();
+  const nlohmann::json& cal_params = cal.relation(relation).at("parameters");
+  s.shift.assign(s.variants.size(), std::vector<double>(names.size(), 0.0));
+  const nlohmann::json& params = array_at(*rel, "parameters", rel_at, where);
+  std::vector<bool> variant_has_rows(s.variants.size(), false);
+  std::vector<std::pair<std::size_t, double>>
+      listed;  // budget parameters of the calibration: index, baseline
+  for (std::size_t j = 0; j < params.size(); ++j) {
+    const std::string at = fmt::format("{}parameters[{}].", rel_at, j);
+    if (!params[j].is_object())
+      budget_error(where, at.substr(0, at.size() - 1), "must be an object");
+    const std::string name = string_at(params[j], "name", at, where);
+    const double baseline = number_at(params[j], "baseline", at, where);
+    std::optional<std::size_t> p;
+    for (std::size_t q = 0; q < names.size(); ++q)
+      if (names[q] == name) p = q;
+    if (!p) continue;  // a parameter the calibration lacks moves no prediction of it
+    const double value = cal_params[*p].at("value").get<double>();
+    const nlohmann::json& err =
+        params[j].contains("baseline_error") ? params[j]["baseline_error"] : nlohmann::json();
+    const double tolerance =
+        err.is_number() ? 0.1 * err.get<double>() : 1e-9 * std::max(1.0, std::abs(value));
+    if (std::abs(value - baseline) > tolerance)
+      spdlog::warn(
+          "{}: the grid's baseline {} = {} differs from the calibration's {} by more than 0.1 of "
+          "its error: the budget describes another fit, and its systematics only approximate "
+          "this calibration's",
+          where, name, baseline, value);
+    listed.emplace_back(*p, baseline);
+    std::vector<bool> seen(s.variants.size(), false);
+    const nlohmann::json& rows = array_at(params[j], "variants", at, where);
+    for (std::size_t k = 0; k < rows.size(); ++k) {
+      const std::string row_at = fmt::format("{}variants[{}].", at, k);
+      if (!rows[k].is_object())
+        budget_error(where, row_at.substr(0, row_at.size() - 1), "must be an object");
+      const std::string variant = string_at(rows[k], "variant", row_at, where);
+      auto v = index.find(variant);
+      if (v == index.end())
+        budget_error(where, row_at + "variant", "names no variant of the budget's \"variants\"");
+      s.shift[v->second][*p] = number_at(rows[k], "shift", row_at, where);
+      seen[v->second] = variant_has_rows[v->second] = true;
+    }
+    for (std::size_t v = 0; v < s.variants.size(); ++v)
+      if (!seen[v]) s.shift[v][*p] = -baseline;  // the term is absent from that variant's model
+  }
+  for (std::size_t v = 0; v < s.variants.size(); ++v) {
+    if (variant_has_rows[v] || listed.empty()) continue;
+    // No row at all: the variant has no fit of this relation, not a model without a term.
+    spdlog::warn("{}: variant '{}' has no shift for relation {}: left out of its systematic error",
+                 where, s.variants[v], relation);
+    for (const auto& [p, baseline] : listed) s.shift[v][p] = 0.0;
+  }
+  return s;
+}
+
+SystematicShifts read_systematic_shifts(const std::string& path, const Calibration& cal,
+                                        const std::string& relation) {
+  return systematic_shifts(read_json_file(path), path, cal, relation);
+}
+
+}  // namespace rungcal
