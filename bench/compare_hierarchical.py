@@ -17,7 +17,9 @@ lib/rungcal/plfit/hierarchical.hpp and distance_prior.hpp, vectorised over stars
   [Fe/H] errors marginalised as in Kelly 2007 (ApJ 665, 1489),
   -ln L += sum_j (eta_j - eta_(j-1))^2 / (2 * 1.5^2)    (the random-walk hyperprior)
 The mu integral is Gauss-Hermite quadrature (numpy's hermgauss) centred on each star's
-mode, found by safeguarded Newton steps, with the curvature there as the width.
+mode, found by safeguarded Newton steps, with the curvature there as the width (a smooth
+maximum of the exact curvature and a fifth of its Fisher part, so the width, and -ln L,
+are smooth in the parameters).
 """
 import os
 import subprocess
@@ -127,20 +129,22 @@ def component(m, V, plx, vp, mshift, off, logw, cache):
         slope = d1 + r / V[i] - e * KC * pt / vp[i]
         fisher = 1.0 / V[i] + KC * KC * pt * pt / vp[i] - np.minimum(d2, 0.0)
         exact = 1.0 / V[i] + KC * KC * pt * (pt - e) / vp[i] - d2
-        return np.where(exact > 0.2 * fisher, exact, fisher), slope
+        floor = 0.2 * fisher  # the quadrature's width: a smooth maximum of exact and floor
+        width_h = 0.5 * (exact + floor + np.sqrt((exact - floor) ** 2 + 0.01 * fisher * fisher))
+        return np.where(exact > floor, exact, fisher), slope, width_h
 
     mu = np.where(np.isfinite(cache), cache, m - mshift)
     active = np.arange(len(m))
     for _ in range(60):
-        h, slope = curvature(active, mu[active])
+        h, slope, _ = curvature(active, mu[active])
         step = np.clip(slope / h, -1.0, 1.0)
         mu[active] = np.clip(mu[active] + step, -10.0, 60.0)
         active = active[np.abs(step) >= 1e-10]
         if active.size == 0:
             break
-    h, _ = curvature(np.arange(len(m)), mu)
+    _, _, width_h = curvature(np.arange(len(m)), mu)
     cache[:] = mu
-    width = 1.0 / np.sqrt(h)
+    width = 1.0 / np.sqrt(width_h)
     muk = mu[:, None] + width[:, None] * NODES
     logp, resp = prior(muk, logw, curvature=False)
     pt = np.exp(-KC * (muk - 10.0))

@@ -173,7 +173,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
                              double* d_bins) {
   // The mode by safeguarded Newton steps: the exact curvature where it is negative enough,
   // else its expected (Fisher) part, which is always negative.
-  auto curvature = [&](double mu, double& slope) {
+  auto curvature = [&](double mu, double& slope, double& width_curvature) {
     const DistancePriorTerms pr = prior.at(mu);
     const double pt = std::exp(-kC * (mu - 10.0)), e = plx - pt - offset;
     const MagnitudePoint mp = mag.at(m - mu - m_shift);  // d r / d mu = -1
@@ -181,19 +181,25 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     // The magnitude terms are log-concave (-d2_r > 0), so `fisher` stays positive.
     const double fisher = -mp.d2_r + kC * kC * pt * pt / var_plx - std::min(pr.d2_mu, 0.0);
     const double exact = -mp.d2_r + kC * kC * pt * (pt - e) / var_plx - pr.d2_mu;
-    return exact > 0.2 * fisher ? exact : fisher;
+    // The quadrature's width must be a smooth function of the parameters: a width that
+    // jumps where `exact` crosses 0.2 fisher makes -ln L jump by the quadrature's error, and
+    // the Hessian's differences then saw negative curvature in flat directions (the
+    // covariance of 1% of 300-star mocks failed). A smooth maximum of the two instead.
+    const double floor = 0.2 * fisher, gap = exact - floor;
+    width_curvature = 0.5 * (exact + floor + std::sqrt(gap * gap + 0.01 * fisher * fisher));
+    return exact > floor ? exact : fisher;
   };
   double mu = std::isfinite(mode_cache) ? mode_cache : m - m_shift;
-  double slope = 0, h = 1;
+  double slope = 0, h = 1, width_h = 1;
   for (int it = 0; it < 60; ++it) {
-    h = curvature(mu, slope);
+    h = curvature(mu, slope, width_h);
     const double step = std::clamp(slope / h, -1.0, 1.0);
     mu = std::clamp(mu + step, -10.0, 60.0);
     if (std::abs(step) < 1e-10) break;
   }
-  h = curvature(mu, slope);
+  curvature(mu, slope, width_h);
   mode_cache = mu;
-  const double width = Magnitude::kWidthFactor / std::sqrt(h);
+  const double width = Magnitude::kWidthFactor / std::sqrt(width_h);
   const double norm = -0.5 * (kLog2Pi + std::log(var_plx));  // the magnitude term is normalised in `mag`
   // Two passes: the log terms and their maximum, then the normalised weights' sums.
   const std::size_t n = q.nodes.size();

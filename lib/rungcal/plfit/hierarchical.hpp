@@ -25,7 +25,8 @@ namespace rungcal {
 // r + blend_min_mag (blends start that much brighter) with the member's parallax term. Blends are a share of the non-outliers, so either mixture can
 // be switched off without changing the other's meaning. The mu
 // integral is Gauss-Hermite quadrature centred on the integrand's mode with its curvature
-// as the width (Laplace centring), so narrow integrands from precise parallaxes are exact.
+// as the width (Laplace centring; a smooth floor keeps the width, and so -ln L, smooth in
+// the parameters), so narrow integrands from precise parallaxes are exact.
 //
 // Parameters: the ParameterLayout's, with sigma_int, the outlier and blend fractions, the
 // blend scale, L, k + 1, a and tau solved for on a log (logit for the fractions) scale so

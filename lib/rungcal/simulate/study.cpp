@@ -5,6 +5,7 @@
 #include <limits>
 
 #include <fmt/format.h>
+#include <fmt/ranges.h>
 #include <spdlog/spdlog.h>
 
 #include "rungcal/core/parallel.hpp"
@@ -17,6 +18,7 @@ constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 
 struct Draw {
   bool ok = false;
+  std::string failure;  // why the mock does not count, when it does not
   std::vector<double> estimate, error, bootstrap_error;
 };
 
@@ -59,8 +61,13 @@ StudyResult run_study(const StudyOptions& o) {
       FitResult r = run_fit(fit, mock_calibrator_catalog(s));
       const RelationResult& rr = r.relations.at(0);
       d.ok = rr.solution.usable && rr.covariance_ok;
+      if (!rr.solution.usable)
+        d.failure = "solver: " + rr.solution.termination;
+      else if (!rr.covariance_ok)
+        d.failure = "covariance: the Hessian is not positive definite";
       for (const auto& name : o.parameters) {
-        const bool has = std::find(rr.layout.names.begin(), rr.layout.names.end(), name) != rr.layout.names.end();
+        const bool has = std::find(rr.layout.names.begin(), rr.layout.names.end(), name) !=
+                         rr.layout.names.end();
         d.estimate.push_back(has ? rr.parameter(name) : kNaN);
         d.error.push_back(has ? rr.error(name) : kNaN);
         d.bootstrap_error.push_back(has ? rr.bootstrap_error(name) : kNaN);
@@ -68,13 +75,18 @@ StudyResult run_study(const StudyOptions& o) {
     } catch (const std::exception& e) {
       spdlog::debug("mock {}: {}", k, e.what());
       d.ok = false;
+      d.failure = std::string("refused: ") + e.what();
     }
     progress.advance();
   });
   progress.finish();
   StudyResult out;
   out.mocks = o.mocks;
-  for (const Draw& d : draws) out.failed += d.ok ? 0 : 1;
+  for (std::size_t k = 0; k < draws.size(); ++k)
+    if (!draws[k].ok) {
+      ++out.failed;
+      out.failures[draws[k].failure].push_back(o.scenario.seed + k);
+    }
   for (std::size_t j = 0; j < P; ++j) {
     StudyRow row;
     row.parameter = o.parameters[j];
@@ -96,7 +108,8 @@ StudyResult run_study(const StudyOptions& o) {
     row.mean_error = mean_of(err);
     row.bias_in_errors = (row.mean_estimate - row.truth) / row.mean_error;
     row.coverage = row.used ? static_cast<double>(covered) / row.used : kNaN;
-    row.bootstrap_coverage = boot.empty() ? kNaN : static_cast<double>(boot_covered) / static_cast<double>(boot.size());
+    row.bootstrap_coverage =
+        boot.empty() ? kNaN : static_cast<double>(boot_covered) / static_cast<double>(boot.size());
     row.bootstrap_to_covariance = boot.empty() ? kNaN : mean_of(boot) / row.mean_error;
     row.spread_to_error = sd_of(est) / row.mean_error;
     row.bias_error = row.spread_to_error / std::sqrt(static_cast<double>(std::max(row.used, 1)));
@@ -109,10 +122,14 @@ nlohmann::json StudyResult::to_json(const StudyOptions& o) const {
   nlohmann::json j;
   j["mocks"] = mocks;
   j["failed"] = failed;
+  for (const auto& [why, seeds] : failures)
+    j["failures"].push_back({{"reason", why}, {"seeds", seeds}});
   j["stars"] = o.scenario.stars;
   j["truth"] = o.scenario.truth();
   j["space"] = std::string(kFitSpaceNames.name(o.fit.space));
-  auto num = [](double v) { return std::isfinite(v) ? nlohmann::json(v) : nlohmann::json(nullptr); };
+  auto num = [](double v) {
+    return std::isfinite(v) ? nlohmann::json(v) : nlohmann::json(nullptr);
+  };
   for (const auto& r : rows)
     j["parameters"].push_back({{"name", r.parameter},
                                {"truth", num(r.truth)},
@@ -130,12 +147,16 @@ nlohmann::json StudyResult::to_json(const StudyOptions& o) const {
 
 std::string study_table(const StudyResult& r) {
   std::string out = fmt::format("{} mocks, {} failed\n", r.mocks, r.failed);
-  out += fmt::format("{:<22}{:>10}{:>11}{:>10}{:>14}{:>9}{:>10}{:>10}{:>9}\n", "parameter", "truth", "mean", "error",
-                     "bias/error", "cov68", "boot68", "boot/cov", "sd/err");
+  for (const auto& [why, seeds] : r.failures)
+    out += fmt::format("  failed ({}): seeds {}\n", why, fmt::join(seeds, ", "));
+  out += fmt::format("{:<22}{:>10}{:>11}{:>10}{:>14}{:>9}{:>10}{:>10}{:>9}\n", "parameter", "truth",
+                     "mean", "error", "bias/error", "cov68", "boot68", "boot/cov", "sd/err");
   for (const auto& row : r.rows)
-    out += fmt::format("{:<22}{:>10.4f}{:>11.4f}{:>10.4f}{:>8.2f}+-{:<4.2f}{:>9.2f}{:>10.2f}{:>10.2f}{:>9.2f}\n", row.parameter,
-                       row.truth, row.mean_estimate, row.mean_error, row.bias_in_errors, row.bias_error, row.coverage,
-                       row.bootstrap_coverage, row.bootstrap_to_covariance, row.spread_to_error);
+    out += fmt::format(
+        "{:<22}{:>10.4f}{:>11.4f}{:>10.4f}{:>8.2f}+-{:<4.2f}{:>9.2f}{:>10.2f}{:>10.2f}{:>9.2f}\n",
+        row.parameter, row.truth, row.mean_estimate, row.mean_error, row.bias_in_errors,
+        row.bias_error, row.coverage, row.bootstrap_coverage, row.bootstrap_to_covariance,
+        row.spread_to_error);
   return out;
 }
 

@@ -1,6 +1,8 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <cstdint>
+#include <map>
 #include <string>
 #include <vector>
 
@@ -15,13 +17,14 @@ namespace rungcal {
 // would, summarised per parameter against the truth (method brief, section 4b: bias in
 // units of the reported error, and the coverage of the 68% intervals).
 struct StudyOptions {
-  MockScenario scenario;         // the mocks' truth and contaminations; seed of the first mock
-  int mocks = 100;               // catalogs drawn (mock k uses seed + k)
-  FitOptions fit;                // the fit each mock gets (one relation on band "X")
-  int threads = 0;               // mocks fitted in parallel (0: all cores)
-  std::vector<std::string> parameters = {"alpha", "beta", "gamma", "parallax_offset_mas", "sigma_int"};
+  MockScenario scenario;  // the mocks' truth and contaminations; seed of the first mock
+  int mocks = 100;        // catalogs drawn (mock k uses seed + k)
+  FitOptions fit;         // the fit each mock gets (one relation on band "X")
+  int threads = 0;        // mocks fitted in parallel (0: all cores)
+  std::vector<std::string> parameters = {"alpha", "beta", "gamma", "parallax_offset_mas",
+                                         "sigma_int"};
 
-  std::string check() const;     // "" when usable, else "field: rule"
+  std::string check() const;  // "" when usable, else "field: rule"
 };
 
 // Per parameter, over the mocks whose fit was usable.
@@ -29,19 +32,20 @@ struct StudyRow {
   std::string parameter;
   double truth = 0;
   double mean_estimate = 0;
-  double mean_error = 0;          // mean covariance error
-  double bias_in_errors = 0;      // (mean estimate - truth) / mean error
-  double coverage = 0;            // share with |estimate - truth| <= covariance error
-  double bootstrap_coverage = 0;  // ... <= bootstrap error (NaN without a bootstrap)
+  double mean_error = 0;               // mean covariance error
+  double bias_in_errors = 0;           // (mean estimate - truth) / mean error
+  double coverage = 0;                 // share with |estimate - truth| <= covariance error
+  double bootstrap_coverage = 0;       // ... <= bootstrap error (NaN without a bootstrap)
   double bootstrap_to_covariance = 0;  // mean bootstrap error / mean covariance error
-  double spread_to_error = 0;     // sd of the estimates / mean error
-  double bias_error = 0;          // the bias's own uncertainty, in errors: sd / mean error / sqrt(n)
-  int used = 0;                   // mocks counted
+  double spread_to_error = 0;          // sd of the estimates / mean error
+  double bias_error = 0;  // the bias's own uncertainty, in errors: sd / mean error / sqrt(n)
+  int used = 0;           // mocks counted
 };
 
 struct StudyResult {
   std::vector<StudyRow> rows;
   int mocks = 0, failed = 0;
+  std::map<std::string, std::vector<std::uint64_t>> failures;  // the failed mocks' seeds by reason
   nlohmann::json to_json(const StudyOptions& options) const;
 };
 
