@@ -26,6 +26,10 @@ int main(int argc, char** argv) {
   std::string table_errors = "covariance";
   app.add_option("--table-errors", table_errors,
                  "Errors in the relation table: covariance, bootstrap, or both (bootstrap in parentheses)");
+  std::string figure_width = "screen";
+  app.add_option("--figure-width", figure_width,
+                 "Draw the figures for: screen (10 in), column (3.5 in) or two_columns (7.1 in); the journal widths "
+                 "keep 8-9 pt labels and write 300 dpi PNGs");
   rungcal::SiteOptions site;
   std::string site_folder;
   app.add_option("--site", site_folder,
@@ -46,6 +50,11 @@ int main(int argc, char** argv) {
       throw rungcal::InputError({"--table-errors", {}, {}}, "config_value",
                                 "'" + table_errors + "' is not one of: " + rungcal::kTableErrorsNames.choices());
     o.table_errors = *errors;
+    const auto width = rungcal::kFigureWidthNames.parse(figure_width);
+    if (!width)
+      throw rungcal::InputError({"--figure-width", {}, {}}, "config_value",
+                                "'" + figure_width + "' is not one of: " + rungcal::kFigureWidthNames.choices());
+    o.figure_width = *width;
     if (!site_folder.empty()) {
       site.store = o.store;
       site.calibration = o.calibrations.front().substr(0, o.calibrations.front().find('@'));

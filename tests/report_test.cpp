@@ -9,6 +9,7 @@
 #include <filesystem>
 #include <regex>
 #include <sstream>
+#include <tuple>
 
 #include <fmt/format.h>
 
@@ -311,6 +312,46 @@ int pixels_like(cairo_surface_t* img, double x_center, int half_width, const dou
       if (std::abs(p[2] - 255 * rgb[0]) < 30 && std::abs(p[1] - 255 * rgb[1]) < 30 && std::abs(p[0] - 255 * rgb[2]) < 30) ++count;
     }
   return count;
+}
+
+TEST(Figures, JournalWidthsGivePrintedSizesAndThreeHundredDpiPngs) {
+  // Issue 20: a column (3.5 in = 252 pt) or two columns (7.1 in = 511.2 pt) wide, the
+  // layout's 640-unit height at 8/13 pt a unit (393.8 pt), PNGs at 300 dpi (AAS and A&A
+  // column widths: common practice, recalled from their author guides).
+  test::TempDir dir;
+  FigureInputs f = figure_inputs();
+  for (const auto& [width, name, points, pixels] :
+       {std::tuple{FigureWidth::kColumn, "column", 252.0, 1050}, std::tuple{FigureWidth::kTwoColumns, "two", 511.2, 2130}}) {
+    const std::string stem = dir.file(std::string("pl_") + name);
+    pl_diagram(f.cal, "X", f.res, FigureFormat::kPdf, stem + ".pdf", width);
+    pl_diagram(f.cal, "X", f.res, FigureFormat::kSvg, stem + ".svg", width);
+    const FigureSummary s = pl_diagram(f.cal, "X", f.res, FigureFormat::kPng, stem + ".png", width);
+    auto r = test::run_python(R"(
+import re, sys, struct, xml.etree.ElementTree as ET
+root = ET.parse(sys.argv[1] + ".svg").getroot()
+png = open(sys.argv[1] + ".png", "rb").read()
+box = re.search(rb"/MediaBox \[\s*0 0 ([0-9.]+) ([0-9.]+)\s*\]", open(sys.argv[1] + ".pdf", "rb").read())
+print(root.get("width"), *struct.unpack(">II", png[16:24]), float(box.group(1)), float(box.group(2)))
+)", {stem});
+    ASSERT_EQ(r.exit_code, 0) << r.output;
+    std::istringstream out(r.output);
+    std::string svg_width;
+    int png_w = 0, png_h = 0;
+    double pdf_w = 0, pdf_h = 0;
+    out >> svg_width >> png_w >> png_h >> pdf_w >> pdf_h;
+    EXPECT_NEAR(pdf_w, points, 0.01) << name;
+    EXPECT_NEAR(pdf_h, 640.0 * 8.0 / 13.0, 0.01) << name;
+    EXPECT_NEAR(std::stod(svg_width), points, 0.01) << name;
+    EXPECT_NEAR(png_w, pixels, 1) << name;  // width in inches times 300
+    EXPECT_NEAR(png_h, 640.0 * 8.0 / 13.0 * 300.0 / 72.0, 1) << name;
+    // The data still sit where the plot box says, in the PNG's own pixels.
+    cairo_surface_t* img = cairo_image_surface_create_from_png((stem + ".png").c_str());
+    ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+    const double blue[3] = {0.0, 0.447, 0.698};
+    for (double logp : {0.4, 0.7, 1.0, 1.3}) EXPECT_GT(pixels_like(img, s.x_to_output(logp), 4, blue), 20) << name << logp;
+    EXPECT_LE(s.box_right, png_w);
+    cairo_surface_destroy(img);
+  }
 }
 
 TEST(Figures, PointsSitWhereTheDataAreAndRejectedStarsShowTheirMarker) {

@@ -20,7 +20,29 @@
 namespace rungcal {
 namespace {
 
-constexpr double kWidth = 720, kHeight = 640;  // points (PDF, SVG) or pixels (PNG)
+// The layout is drawn in units: 720 x 640 of them, at one point (PDF, SVG) or one pixel
+// (PNG) each, for the screen. A journal width keeps the height and the font sizes in units,
+// narrows the layout to fit, and prints the units smaller: 8/13 pt each, so that 13-unit
+// tick labels print at 8 pt, 15-unit axis labels at 9.2 pt and 11-unit keys at 6.8 pt;
+// PNGs then have 300 pixels per inch.
+struct Canvas {
+  double width, height;    // in units
+  double points_per_unit;  // PDF and SVG
+  double pixels_per_unit;  // PNG
+};
+
+Canvas canvas_for(FigureWidth w) {
+  constexpr double kHeight = 640, kPrinted = 8.0 / 13.0, kPixelsPerPoint = 300.0 / 72.0;
+  auto journal = [&](double inches) {
+    return Canvas{inches * 72.0 / kPrinted, kHeight, kPrinted, kPrinted * kPixelsPerPoint};
+  };
+  switch (w) {
+    case FigureWidth::kScreen: return {720, kHeight, 1.0, 1.0};
+    case FigureWidth::kColumn: return journal(3.5);
+    case FigureWidth::kTwoColumns: return journal(7.1);
+  }
+  return {720, kHeight, 1.0, 1.0};
+}
 // Okabe & Ito colour-blind-safe palette.
 constexpr double kBlue[3] = {0.0, 0.447, 0.698};
 constexpr double kVermillion[3] = {0.835, 0.369, 0.0};
@@ -37,18 +59,23 @@ struct Surface {
   }
 };
 
-std::unique_ptr<Surface> open_surface(FigureFormat f, const std::string& temp) {
+std::unique_ptr<Surface> open_surface(FigureFormat f, const std::string& temp, const Canvas& c) {
   auto s = std::make_unique<Surface>();
   s->format = f;
   s->temp = temp;
+  const double scale = f == FigureFormat::kPng ? c.pixels_per_unit : c.points_per_unit;
   switch (f) {
-    case FigureFormat::kPdf: s->surface = cairo_pdf_surface_create(temp.c_str(), kWidth, kHeight); break;
-    case FigureFormat::kSvg: s->surface = cairo_svg_surface_create(temp.c_str(), kWidth, kHeight); break;
-    case FigureFormat::kPng: s->surface = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, static_cast<int>(kWidth), static_cast<int>(kHeight)); break;
+    case FigureFormat::kPdf: s->surface = cairo_pdf_surface_create(temp.c_str(), c.width * scale, c.height * scale); break;
+    case FigureFormat::kSvg: s->surface = cairo_svg_surface_create(temp.c_str(), c.width * scale, c.height * scale); break;
+    case FigureFormat::kPng:
+      s->surface = cairo_image_surface_create(CAIRO_FORMAT_ARGB32, static_cast<int>(std::lround(c.width * scale)),
+                                              static_cast<int>(std::lround(c.height * scale)));
+      break;
   }
   s->cr = cairo_create(s->surface);
   cairo_set_source_rgb(s->cr, 1, 1, 1);
   cairo_paint(s->cr);
+  cairo_scale(s->cr, scale, scale);
   cairo_select_font_face(s->cr, "DejaVu Sans", CAIRO_FONT_SLANT_NORMAL, CAIRO_FONT_WEIGHT_NORMAL);
   return s;
 }
@@ -91,9 +118,12 @@ void commit_figure(std::unique_ptr<Surface> surface, AtomicOutput& out, const st
   out.commit();
 }
 
-void record_plot_box(FigureSummary& s, const Panel& p) {
-  s.box_left = p.left, s.box_right = p.right, s.box_top = p.top, s.box_bottom = p.bottom;
+// The plot box in PNG pixels (the units times the canvas's pixels per unit), and the key's.
+void record_plot_box(FigureSummary& s, const Panel& p, const Canvas& c) {
+  const double k = c.pixels_per_unit;
+  s.box_left = k * p.left, s.box_right = k * p.right, s.box_top = k * p.top, s.box_bottom = k * p.bottom;
   s.x_min = p.x0, s.x_max = p.x1, s.y_min = p.y0, s.y_max = p.y1;
+  s.legend_left *= k, s.legend_right *= k, s.legend_top *= k, s.legend_bottom *= k;
 }
 
 void text(cairo_t* cr, double x, double y, const std::string& s, double size, double align_x, double align_y, bool vertical = false) {
@@ -161,6 +191,7 @@ void marker(cairo_t* cr, double x, double y, Mark mark) {
   } else if (mark == Mark::kLikelyOutlier) {
     cairo_set_source_rgb(cr, kBlue[0], kBlue[1], kBlue[2]);
     cairo_set_line_width(cr, 1.4);
+    cairo_new_path(cr);  // else the arc joins the last point drawn
     cairo_arc(cr, x, y, 4.2, 0, 2 * M_PI);
     cairo_stroke(cr);
   } else {
@@ -194,7 +225,7 @@ void pl_legend(cairo_t* cr, const Panel& top, const std::string& relation, const
   if (outliers) {
     line += 1.0;
     marker(cr, mx, y + row * line, Mark::kLikelyOutlier);
-    text(cr, tx, y + row * line, fmt::format("used, likely outlier: membership < 0.5 ({})", s.likely_outlier_points),
+    text(cr, tx, y + row * line, fmt::format("likely outlier, membership < 0.5 ({})", s.likely_outlier_points),
          11, 0.0, 0.5);
   }
   line += 1.0;
@@ -251,7 +282,8 @@ bool likely_outlier(const StarTable& res, std::size_t i) {
 }  // namespace
 
 FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
-                         const std::string& path) {
+                         const std::string& path, FigureWidth width) {
+  const Canvas canvas = canvas_for(width);
   const nlohmann::json& rel = cal.relation(relation);
   const double offset = parameter(rel, "parallax_offset_mas"), sigma = parameter(rel, "sigma_int");
   const double alpha = parameter(rel, "alpha"), beta = parameter(rel, "beta"), p0 = rel.at("pivot_log_period");
@@ -290,10 +322,10 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   double xmin = 1e9, xmax = -1e9, ymin = 1e9, ymax = -1e9;
   for (const auto& p : pts) xmin = std::min(xmin, p.x), xmax = std::max(xmax, p.x), ymin = std::min(ymin, p.y), ymax = std::max(ymax, p.y);
   const double padx = 0.05 * (xmax - xmin + 0.1), pady = 0.08 * (ymax - ymin + 0.5);
-  Panel top{90, kWidth - 30, 30, 430, xmin - padx, xmax + padx, ymin - pady, ymax + pady, true};
-  Panel bottom{90, kWidth - 30, 450, 570, top.x0, top.x1, -4.5, 4.5, false};
+  Panel top{90, canvas.width - 30, 30, 430, xmin - padx, xmax + padx, ymin - pady, ymax + pady, true};
+  Panel bottom{90, canvas.width - 30, 450, 570, top.x0, top.x1, -4.5, 4.5, false};
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.reopen_path());
+  auto surface = open_surface(format, out.reopen_path(), canvas);
   cairo_t* cr = surface->cr;
   // The relation and its intrinsic-scatter band, clipped to the plot box.
   cairo_save(cr);
@@ -338,16 +370,20 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   for (const auto& p : pts)
     if (std::isfinite(p.r)) marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.mark);
   axes(cr, bottom, "log10 P (days)", "r / sigma");
-  const std::string not_drawn =
-      s.not_drawn_points > 0 ? fmt::format("   not drawn: {} (parallax \u2264 0)", s.not_drawn_points) : "";
-  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}{}", cal.label(), relation, not_drawn), 13, 0.0, 1.0);
+  // The count of stars not drawn on a line of its own: a column-wide figure has no room
+  // beside the title.
+  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}", cal.label(), relation), 13, 0.0, 1.0);
+  if (s.not_drawn_points > 0)
+    text(cr, top.left + 10, top.top + 28, fmt::format("not drawn: {} (parallax \u2264 0)", s.not_drawn_points), 13,
+         0.0, 1.0);
   commit_figure(std::move(surface), out, path);
-  record_plot_box(s, top);
+  record_plot_box(s, top, canvas);
   return s;
 }
 
 FigureSummary residual_trends(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
-                              const std::string& path) {
+                              const std::string& path, FigureWidth width) {
+  const Canvas canvas = canvas_for(width);
   struct Series {
     std::string label;
     std::vector<double> x, r;
@@ -379,7 +415,7 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
     if (!p.x.empty()) shown.push_back(&p);
   if (shown.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no residual with [Fe/H], G or a parallax");
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.reopen_path());
+  auto surface = open_surface(format, out.reopen_path(), canvas);
   cairo_t* cr = surface->cr;
   const double height = (570.0 - 30.0) / static_cast<double>(shown.size());
   for (std::size_t k = 0; k < shown.size(); ++k) {
@@ -387,7 +423,7 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
     double lo = *std::min_element(p.x.begin(), p.x.end()), hi = *std::max_element(p.x.begin(), p.x.end());
     double pad = 0.05 * (hi - lo + 0.1);
     const double kd = static_cast<double>(k);
-    Panel panel{90, kWidth - 30, 30 + kd * height, 30 + (kd + 1) * height - 45, lo - pad, hi + pad, -4.5, 4.5, false};
+    Panel panel{90, canvas.width - 30, 30 + kd * height, 30 + (kd + 1) * height - 45, lo - pad, hi + pad, -4.5, 4.5, false};
     cairo_set_source_rgb(cr, 0, 0, 0);
     cairo_set_line_width(cr, 0.8);
     cairo_move_to(cr, panel.left, panel.py(0));
@@ -395,7 +431,7 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
     cairo_stroke(cr);
     for (std::size_t i = 0; i < p.x.size(); ++i) marker(cr, panel.px(p.x[i]), panel.py(std::clamp(p.r[i], -4.4, 4.4)), p.used[i]);
     axes(cr, panel, p.label, "r / sigma");
-    if (k == 0) record_plot_box(s, panel);
+    if (k == 0) record_plot_box(s, panel, canvas);
   }
   text(cr, 100, 40, fmt::format("{}  {}  residuals", cal.label(), relation), 13, 0.0, 1.0);
   commit_figure(std::move(surface), out, path);
@@ -403,7 +439,8 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
 }
 
 FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
-                            const std::string& path) {
+                            const std::string& path, FigureWidth width) {
+  const Canvas canvas = canvas_for(width);
   FigureSummary s;
   std::vector<double> v, a, ae, o, oe;
   for (const auto& c : versions) {
@@ -422,10 +459,10 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   const double x0 = *std::min_element(v.begin(), v.end()) - 0.5, x1 = *std::max_element(v.begin(), v.end()) + 0.5;
   auto [a0, a1] = range(a, ae);
   auto [o0, o1] = range(o, oe);
-  Panel top{90, kWidth - 30, 30, 300, x0, x1, a0, a1, true};
-  Panel bottom{90, kWidth - 30, 330, 570, x0, x1, o0, o1, false};
+  Panel top{90, canvas.width - 30, 30, 300, x0, x1, a0, a1, true};
+  Panel bottom{90, canvas.width - 30, 330, 570, x0, x1, o0, o1, false};
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.reopen_path());
+  auto surface = open_surface(format, out.reopen_path(), canvas);
   cairo_t* cr = surface->cr;
   auto series = [&](const Panel& p, const std::vector<double>& y, const std::vector<double>& e) {
     for (std::size_t i = 0; i < y.size(); ++i) {
@@ -444,7 +481,7 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   axes(cr, bottom, "version", "parallax offset (mas)", true, 1.0);  // versions are whole numbers
   text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}", versions.back().name(), relation), 13, 0.0, 1.0);
   commit_figure(std::move(surface), out, path);
-  record_plot_box(s, top);
+  record_plot_box(s, top, canvas);
   return s;
 }
 
@@ -496,7 +533,8 @@ std::string light_curve_star_problem(const LightCurveTables& lc, const std::stri
 }
 
 FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& star, FigureFormat format,
-                                 const std::string& path) {
+                                 const std::string& path, FigureWidth width) {
+  const Canvas canvas = canvas_for(width);
   const std::size_t row = row_of(lc.summary, star);
   if (row == lc.summary.rows() || lc.summary.column("period_d").is_null(row))
     throw InputError({path, {}, star, "row", "star"}, "no_rows_left", "the light-curve summary has no period for this star");
@@ -552,9 +590,9 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
       power.push_back(lc.periodogram.column("power").real[i]);
     }
   const bool with_periodogram = !freq.empty();
-  Panel top{90, kWidth - 30, 40, with_periodogram ? 370.0 : 570.0, 0.0, 2.0, ymin - pad, ymax + pad, true};
+  Panel top{90, canvas.width - 30, 40, with_periodogram ? 370.0 : 570.0, 0.0, 2.0, ymin - pad, ymax + pad, true};
   AtomicOutput out(path);
-  auto surface = open_surface(format, out.reopen_path());
+  auto surface = open_surface(format, out.reopen_path(), canvas);
   cairo_t* cr = surface->cr;
   FigureSummary s;
   cairo_save(cr);
@@ -598,7 +636,7 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
   if (with_periodogram) {
     // Power against period (log scale): a period is what a reader looks for.
     double p0 = 1.0 / freq.back(), p1 = 1.0 / freq.front();
-    Panel bottom{90, kWidth - 30, 430, 580, std::log10(p0), std::log10(p1), 0.0, 1.0, false};
+    Panel bottom{90, canvas.width - 30, 430, 580, std::log10(p0), std::log10(p1), 0.0, 1.0, false};
     cairo_save(cr);
     cairo_rectangle(cr, bottom.left, bottom.top, bottom.right - bottom.left, bottom.bottom - bottom.top);
     cairo_clip(cr);
@@ -620,7 +658,7 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
     axes(cr, bottom, "log10 period (days)", "power");
   }
   commit_figure(std::move(surface), out, path);
-  record_plot_box(s, top);
+  record_plot_box(s, top, canvas);
   return s;
 }
 

@@ -6,8 +6,8 @@
 
 #include "rungcal/calibration/calibration.hpp"
 #include "rungcal/core/enum_table.hpp"
-#include "rungcal/table/star_table.hpp"
 #include "rungcal/table/source_table.hpp"
+#include "rungcal/table/star_table.hpp"
 
 namespace rungcal {
 
@@ -18,17 +18,31 @@ inline constexpr EnumTable<FigureFormat, 3> kFigureFormatNames{{{
     {FigureFormat::kSvg, "svg"},
 }}};
 
+// The width a figure is drawn for. "column" and "two_columns" are a journal's single
+// (3.5 in) and double (7.1 in) column: the layout is drawn at that width so that the tick
+// labels print at 8 pt and the axis labels at 9 pt (legible at the printed size; the
+// "screen" layout's 10 in would shrink them to about 4 pt in a column), and PNGs are 300
+// dpi. "screen" is 10 x 8.9 in at 72 dpi (PNG 720 x 640 pixels), for the status page.
+enum class FigureWidth { kScreen, kColumn, kTwoColumns };
+inline constexpr EnumTable<FigureWidth, 3> kFigureWidthNames{{{
+    {FigureWidth::kScreen, "screen"},
+    {FigureWidth::kColumn, "column"},
+    {FigureWidth::kTwoColumns, "two_columns"},
+}}};
+
 // Where a figure put things, for tests and for a caption.
 struct FigureSummary {
   int used_points = 0, rejected_points = 0;
   int likely_outlier_points = 0;  // used stars drawn as likely outliers (membership < 0.5)
-  int not_drawn_points = 0;  // PL diagram: stars with no magnitude to draw (parallax <= 0)
+  int not_drawn_points = 0;       // PL diagram: stars with no magnitude to draw (parallax <= 0)
   double legend_left = 0, legend_right = 0, legend_top = 0, legend_bottom = 0;  // its key, if any
   int y_ticks = 0;  // labelled ticks on the top panel's y axis (light curves)
   // Plot box of the top panel in output units (PNG pixels), and its data ranges.
   double box_left = 0, box_right = 0, box_top = 0, box_bottom = 0;
   double x_min = 0, x_max = 0, y_min = 0, y_max = 0;
-  double x_to_output(double x) const { return box_left + (x - x_min) / (x_max - x_min) * (box_right - box_left); }
+  double x_to_output(double x) const {
+    return box_left + (x - x_min) / (x_max - x_min) * (box_right - box_left);
+  }
 };
 
 // A tick label: "{:g}" with a true minus sign (U+2212), as typeset mathematics has it.
@@ -43,18 +57,21 @@ std::string axis_number(double value);
 // readers, and the shapes differ in greyscale), a key naming each with its count and the
 // open-bar arrow, the band in the y label, the stars not drawn counted in the title; a
 // panel of normalised residuals below.
-FigureSummary pl_diagram(const Calibration& calibration, const std::string& relation, const StarTable& residuals,
-                         FigureFormat format, const std::string& path);
+FigureSummary pl_diagram(const Calibration& calibration, const std::string& relation,
+                         const StarTable& residuals, FigureFormat format, const std::string& path,
+                         FigureWidth width = FigureWidth::kScreen);
 
 // Normalised residuals of a relation against [Fe/H], G and parallax S/N (one panel each,
 // for the columns the residuals have), where metallicity, zero-point and offset problems
 // show as trends; used and refused stars marked as in pl_diagram.
-FigureSummary residual_trends(const Calibration& calibration, const std::string& relation, const StarTable& residuals,
-                              FigureFormat format, const std::string& path);
+FigureSummary residual_trends(const Calibration& calibration, const std::string& relation,
+                              const StarTable& residuals, FigureFormat format,
+                              const std::string& path, FigureWidth width = FigureWidth::kScreen);
 
 // Zero point and parallax offset of a relation, version by version, with covariance errors.
-FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
-                            const std::string& path);
+FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation,
+                            FigureFormat format, const std::string& path,
+                            FigureWidth width = FigureWidth::kScreen);
 
 // The products of rungcal-lightcurve one figure needs (HDUs of its FITS file).
 struct LightCurveTables {
@@ -70,7 +87,8 @@ std::string light_curve_star_problem(const LightCurveTables& lc, const std::stri
 // of the star's first band at phase 0, magnitudes brighter up) with each band's Fourier
 // model, bands told apart by Okabe & Ito colours and by marker shape; below, the
 // periodogram against period with the adopted period marked (when it was kept).
-FigureSummary light_curve_figure(const LightCurveTables& tables, const std::string& star, FigureFormat format,
-                                 const std::string& path);
+FigureSummary light_curve_figure(const LightCurveTables& tables, const std::string& star,
+                                 FigureFormat format, const std::string& path,
+                                 FigureWidth width = FigureWidth::kScreen);
 
 }  // namespace rungcal

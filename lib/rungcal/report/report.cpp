@@ -116,17 +116,17 @@ ReportOutcome write_report(const ReportOptions& o) {
     const std::string e(kFigureFormatNames.name(f));
     for (const auto& rel : last.relation_names()) {
       if (in.have_residuals) {
-        pl_diagram(last, rel, in.residuals, f, report_file(o, "pl_", rel, e));
-        residual_trends(last, rel, in.residuals, f, report_file(o, "residuals_", rel, e));
+        pl_diagram(last, rel, in.residuals, f, report_file(o, "pl_", rel, e), o.figure_width);
+        residual_trends(last, rel, in.residuals, f, report_file(o, "residuals_", rel, e), o.figure_width);
         outcome.figures += 2;
       }
       if (in.versions.size() > 1) {
-        version_trend(in.versions, rel, f, report_file(o, "versions_", rel, e));
+        version_trend(in.versions, rel, f, report_file(o, "versions_", rel, e), o.figure_width);
         ++outcome.figures;
       }
     }
     for (const auto& star : in.stars) {
-      light_curve_figure(*in.light_curves, star, f, report_file(o, "lightcurve_", star, e));
+      light_curve_figure(*in.light_curves, star, f, report_file(o, "lightcurve_", star, e), o.figure_width);
       ++outcome.figures;
     }
   }

@@ -4,6 +4,7 @@
 #include <string>
 #include <vector>
 
+#include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
 
 namespace rungcal {
@@ -16,6 +17,7 @@ struct ReportOptions {
   std::vector<std::string> stars;  // light curves to draw; empty = those with a kept periodogram
   std::string grid;                // rungcal-grid result (grid.json): the error budget table too
   TableErrors table_errors = TableErrors::kCovariance;  // errors in the relation table
+  FigureWidth figure_width = FigureWidth::kScreen;      // the width the figures are drawn for
 
   // "" when usable, else "field: rule".
   std::string check() const;
