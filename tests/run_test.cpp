@@ -602,6 +602,39 @@ TEST(Run, AWriteTheSystemRefusesExits7NamingTheReason) {
   EXPECT_NE(r.output.find("File too large"), std::string::npos) << r.output;
 }
 
+TEST(Run, TheReportsFigureWidthIsAKeyThatRerunsTheReport) {
+  // Issue 20: [report] figure_width as rungcal-report's --figure-width; a new width redoes
+  // the report and nothing else; an unknown one stops before anything is written.
+  test::TempDir dir;
+  stage_catalog(dir);
+  const std::string with_report = test::replaced(pipeline_config(dir, "", 0, false), {{"enabled = false", "enabled = true"}});
+  test::write_text(dir.file("pipeline.toml"), with_report);
+  ASSERT_EQ(run(dir).exit_code, 6);
+  test::write_text(dir.file("pipeline.toml"), with_report + "figure_width = \"column\"\n");
+  auto dry = run(dir, "--dry-run");
+  EXPECT_NE(dry.output.find("report: would run"), std::string::npos) << dry.output;
+  EXPECT_EQ(dry.output.find("fit: would run"), std::string::npos) << dry.output;
+  auto again = run(dir);
+  EXPECT_EQ(again.exit_code, 0) << again.output;
+  const std::string png = test::read_text(dir.file("run/report/pl_W_VI.png"));
+  ASSERT_GT(png.size(), 24u);
+  const auto be32 = [&](std::size_t at) {
+    return (static_cast<unsigned>(static_cast<unsigned char>(png[at])) << 24) |
+           (static_cast<unsigned>(static_cast<unsigned char>(png[at + 1])) << 16) |
+           (static_cast<unsigned>(static_cast<unsigned char>(png[at + 2])) << 8) |
+           static_cast<unsigned>(static_cast<unsigned char>(png[at + 3]));
+  };
+  EXPECT_EQ(be32(16), 1050u);  // 3.5 in at 300 dpi (the PNG header's width)
+  test::TempDir bad;
+  stage_catalog(bad);
+  test::write_text(bad.file("pipeline.toml"),
+                   test::replaced(pipeline_config(bad, "", 0, false), {{"enabled = false", "figure_width = \"a4\""}}));
+  auto r = run(bad);
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("figure_width"), std::string::npos) << r.output;
+  EXPECT_FALSE(fs::exists(bad.file("run")));
+}
+
 TEST(Run, BadPipelineConfigStopsBeforeAnythingIsWritten) {
   test::TempDir dir;
   stage_catalog(dir);

@@ -399,7 +399,19 @@ RunOptions run_options_from_file(const std::string& path) {
     o.fit_bootstrap = static_cast<int>(b);
   }
   stage_config("grid", o.grid_config);
-  if (auto s = root.section("report")) o.report = s->bool_or("enabled", true);
+  if (auto s = root.section("report")) {
+    o.report = s->bool_or("enabled", true);
+    if (auto w = s->get_string("figure_width")) {
+      const auto width = kFigureWidthNames.parse(*w);
+      if (!width) s->fail("figure_width", "must be one of: " + std::string(kFigureWidthNames.choices()));
+      o.report_figure_width = *width;
+    }
+    if (auto e = s->get_string("table_errors")) {
+      const auto errors = kTableErrorsNames.parse(*e);
+      if (!errors) s->fail("table_errors", "must be one of: " + std::string(kTableErrorsNames.choices()));
+      o.report_table_errors = *errors;
+    }
+  }
   if (auto s = root.section("apply")) {
     o.apply_relation = s->require_string("relation");
     o.apply_grid_skip_categories =
@@ -621,9 +633,17 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   report.out_dir = in_folder(o, "report");
   report.lightcurves = lc_opt ? lc_opt->output_path : "";
   report.grid = grid ? in_folder(o, "grid/grid.json") : "";
+  report.figure_width = o.report_figure_width;
+  report.table_errors = o.report_table_errors;
+  // Keyed by the choices only when they are not the defaults, so that run folders made
+  // before these keys existed do not redo their report.
+  std::string report_settings;
+  if (o.report_figure_width != FigureWidth::kScreen)
+    report_settings += fmt::format("figure_width={} ", kFigureWidthNames.name(o.report_figure_width));
+  if (o.report_table_errors != TableErrors::kCovariance)
+    report_settings += fmt::format("table_errors={}", kTableErrorsNames.name(o.report_table_errors));
   if (o.report)
-    stages.push_back(
-        {"report", "", {}, "", {}, report.out_dir, [&] { write_report(report); }, true});
+    stages.push_back({"report", "", {}, report_settings, {}, report.out_dir, [&] { write_report(report); }, true});
   ApplyOptions apply;
   if (t_ingest) {
     stages.push_back({"targets_ingest",

@@ -6,6 +6,7 @@
 #include <vector>
 
 #include "rungcal/core/error.hpp"
+#include "rungcal/report/report.hpp"
 
 namespace rungcal {
 
@@ -31,6 +32,9 @@ struct RunOptions {
   int fit_bootstrap = -1;      // overrides the fit config's bootstrap (-1: keep)
   std::string grid_config;  // systematics grid ("" = none): its budget joins the report
   bool report = true;          // tables and figures of the latest version (and the one before)
+  // [report] figure_width and table_errors: as rungcal-report's --figure-width and --table-errors.
+  FigureWidth report_figure_width = FigureWidth::kScreen;
+  TableErrors report_table_errors = TableErrors::kCovariance;
   std::string apply_relation;  // "" = no distances
   // [apply] grid_skip_categories: categories of the grid's budget left out of the distances'
   // systematic error (ApplyOptions::grid_skip_categories).
