@@ -195,8 +195,7 @@ ApplyResult apply_calibration(const Calibration& cal, const std::string& relatio
     s.mu = s.m0 - p.abs_mag;
     s.stat_error = std::hypot(e, p.intrinsic_scatter);
     s.gradient = p.gradient;
-    s.calibration_error =
-        std::sqrt(std::max(0.0, r.covariance.form(s.gradient, s.gradient, r.calibration_label)));
+    s.calibration_error = p.calibration_error;  // sqrt(g^T C g), every prior included
     s.systematic_error = quadrature_sum(systematics.modulus_shifts(s.gradient));
     s.distance_pc = parsec_from_distance_modulus(s.mu);
     s.distance_err_pc =

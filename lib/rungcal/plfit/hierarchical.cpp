@@ -541,11 +541,9 @@ std::shared_ptr<const Eigen::MatrixXd> metric_from_hessian(const Eigen::MatrixXd
   };
   const auto F = static_cast<Eigen::Index>(free.size());
   auto P = std::make_shared<Eigen::MatrixXd>(Eigen::MatrixXd::Identity(F, F));
-  for (std::size_t a = 0; a < measured.size(); ++a) {
-    (*P)(position(measured[a]), position(measured[a])) = 0.0;
+  for (std::size_t a = 0; a < measured.size(); ++a)
     for (std::size_t b = 0; b < measured.size(); ++b)
       (*P)(position(measured[a]), position(measured[b])) = block(static_cast<Eigen::Index>(a), static_cast<Eigen::Index>(b));
-  }
   return P;
 }
 

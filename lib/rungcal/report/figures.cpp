@@ -15,6 +15,7 @@
 
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/report/likely_outlier.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace rungcal {
@@ -180,9 +181,6 @@ int axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::stri
 // than a member of the hierarchical fit's relation (a ring), refused (an open square).
 enum class Mark { kUsed, kLikelyOutlier, kRefused };
 
-// Below this membership probability a used star is drawn as a likely outlier.
-constexpr double kLikelyOutlier = 0.5;
-
 void marker(cairo_t* cr, double x, double y, Mark mark) {
   if (mark == Mark::kUsed) {
     cairo_set_source_rgb(cr, kBlue[0], kBlue[1], kBlue[2]);
@@ -272,12 +270,6 @@ struct Point {
   Mark mark = Mark::kUsed;
 };
 
-// A used star whose membership probability (hierarchical fit) is below kLikelyOutlier.
-bool likely_outlier(const StarTable& res, std::size_t i) {
-  if (!res.has("membership") || res.column("membership").is_null(i)) return false;
-  const double m = res.column("membership").real[i];
-  return std::isfinite(m) && m < kLikelyOutlier;
-}
 
 }  // namespace
 

@@ -19,6 +19,7 @@
 #include "rungcal/core/version.hpp"
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/html.hpp"
+#include "rungcal/report/likely_outlier.hpp"
 #include "rungcal/run/run_history.hpp"
 #include "rungcal/table/fits_io.hpp"
 
@@ -240,13 +241,11 @@ std::string stars_section(const SiteOptions& o, const Versions& v, const StarTab
   for (const std::string& relation : v.latest.relation_names())
     for (const auto& r : v.latest.relation(relation).value("rejected", nlohmann::json::array()))
       fit.rows.push_back({relation, r.value("id", ""), r.value("reason", "")});
-  if (residuals && residuals->has("membership"))
-    for (std::size_t i = 0; i < residuals->rows(); ++i) {
-      const auto& m = residuals->column("membership");
-      if (residuals->column("used").boolean[i] && !m.is_null(i) && m.real[i] < 0.5)
+  if (residuals)
+    for (std::size_t i = 0; i < residuals->rows(); ++i)
+      if (likely_outlier(*residuals, i))
         fit.rows.push_back({residuals->column("relation").text[i], residuals->column("id").text[i],
-                            fmt::format("likely outlier: membership {:.2f}", m.real[i])});
-    }
+                            fmt::format("likely outlier: membership {:.2f}", residuals->column("membership").real[i])});
   out += fit.rows.empty() ? "<p>The fit refused no star and flags none.</p>\n" : html_table(fit);
   const std::string catalog = o.run_folder.empty() ? "" : o.run_folder + "/catalog.fits";
   if (!catalog.empty() && fs::exists(catalog)) {

@@ -5,6 +5,8 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/report/likely_outlier.hpp"
+
 namespace rungcal {
 namespace {
 
@@ -218,10 +220,6 @@ bool has_membership(const StarTable& t, const std::string& relation) {
   return false;
 }
 
-// Below this membership probability a used star's note calls it a likely outlier (the PL
-// figure draws it as a ring).
-constexpr double kLikelyOutlier = 0.5;
-
 std::string star_table(const StarTable& t, const std::string& relation, TableFormat f) {
   Grid g;
   const bool membership = has_membership(t, relation);
@@ -238,8 +236,7 @@ std::string star_table(const StarTable& t, const std::string& relation, TableFor
     if (t.column("relation").text[i] != relation) continue;
     const bool used = t.column("used").boolean[i] != 0;
     std::string id = t.column("id").text[i], reason = t.column("reason").is_null(i) ? "" : t.column("reason").text[i];
-    if (used && membership && !t.column("membership").is_null(i) && t.column("membership").real[i] < kLikelyOutlier)
-      reason = "likely outlier or blend";
+    if (likely_outlier(t, i)) reason = "likely outlier or blend";
     if (f == TableFormat::kLatex) id = escape_latex(id), reason = escape_latex(reason);
     std::vector<std::string> row{id, num("log_period_f", i, 4), num("m0", i, 3), num("parallax_corrected_mas", i, 4),
                                  num("parallax_err_mas", i, 4), num("residual", i, 2)};
