@@ -67,6 +67,9 @@ int main(int argc, char** argv) {
   app.add_option("--contaminations", contaminations,
                  "all, none, or a comma list of blends, parallax_outliers, feh_errors, overtones, far_stars, ebv_errors")
       ->capture_default_str();
+  std::string blend_law = "moderate";
+  app.add_option("--blend-law", blend_law, "how much brighter the mock blends are: moderate (0.3-1.0 mag), "
+                 "faint_companions (0-1.0 mag) or bright_companions (0.44-1.75 mag)")->capture_default_str();
   app.add_option("--space", space, "the fit's space: hierarchical, parallax, magnitude, abl")->capture_default_str();
   app.add_option("--distance-prior", prior, "the hierarchical fit's distance prior: smooth_histogram, space_density, generalized_gamma")
       ->capture_default_str();
@@ -81,10 +84,10 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   bool free_outlier_shape = false;
   app.add_flag("--fit-outlier-shape", free_outlier_shape, "fit the outlier component's shift and width");
-  std::string blend_component = "none";
+  std::string blend_component(rungcal::kBlendComponentNames.name(rungcal::HierarchicalSettings{}.blends));
   double blend_scale_prior = 0;
   bool fix_blend_scale = false;
-  app.add_option("--blend-component", blend_component, "the hierarchical fit's blend component: exponential or none")
+  app.add_option("--blend-component", blend_component, "the hierarchical fit's blend component: none, exponential or rising")
       ->capture_default_str();
   app.add_option("--blend-scale", study.fit.blend_scale.value, "blends' mean brightening: start, fixed value or prior centre (mag)")
       ->capture_default_str();
@@ -109,6 +112,9 @@ int main(int argc, char** argv) {
     auto d = rungcal::kMockDistanceNames.parse(distances);
     if (!d) throw rungcal::InputError({"--distances", {}, {}}, "config_value", "'" + distances + "' is not one of: " + rungcal::kMockDistanceNames.choices());
     study.scenario.distances = *d;
+    auto law = rungcal::kMockBlendLawNames.parse(blend_law);
+    if (!law) throw rungcal::InputError({"--blend-law", {}, {}}, "config_value", "'" + blend_law + "' is not one of: " + rungcal::kMockBlendLawNames.choices());
+    study.scenario.blend_law = *law;
     auto sp = rungcal::kFitSpaceNames.parse(space);
     if (!sp) throw rungcal::InputError({"--space", {}, {}}, "config_value", "'" + space + "' is not one of: " + rungcal::kFitSpaceNames.choices());
     study.fit.space = *sp;

@@ -179,6 +179,26 @@ std::optional<std::vector<double>> ConfigSection::get_number_list(const std::str
   return out;
 }
 
+std::optional<std::vector<std::vector<double>>> ConfigSection::get_number_rows(const std::string& key) const {
+  const toml::node* n = node(key);
+  if (!n) return std::nullopt;
+  const auto* arr = n->as_array();
+  if (!arr) fail(key, fmt::format("must be a list of rows of numbers, not {}", toml_type_name(*n)));
+  std::vector<std::vector<double>> rows;
+  for (const auto& row : *arr) {
+    const auto* r = row.as_array();
+    if (!r) fail(key, fmt::format("row {} must be a list of numbers", rows.size() + 1));
+    std::vector<double> out;
+    for (const auto& el : *r) {
+      if (el.is_integer()) out.push_back(static_cast<double>(el.as_integer()->get()));
+      else if (el.is_floating_point() && std::isfinite(el.as_floating_point()->get())) out.push_back(el.as_floating_point()->get());
+      else fail(key, fmt::format("row {}: every element must be a finite number", rows.size() + 1));
+    }
+    rows.push_back(std::move(out));
+  }
+  return rows;
+}
+
 std::optional<ConfigSection> ConfigSection::section(const std::string& key) const {
   const toml::node* n = node(key);
   if (!n) return std::nullopt;

@@ -35,6 +35,9 @@ class ConfigSection {
   bool bool_or(const std::string& key, bool fallback) const;
   std::optional<std::vector<std::string>> get_string_list(const std::string& key) const;
   std::optional<std::vector<double>> get_number_list(const std::string& key) const;
+  // A list of rows, each a list of numbers (a matrix: [[1, 0], [0, 1]]); rows may differ in
+  // length here, the caller checks the shape.
+  std::optional<std::vector<std::vector<double>>> get_number_rows(const std::string& key) const;
   std::optional<ConfigSection> section(const std::string& key) const;
   // Sections of an array of tables ([[name]]).
   std::vector<ConfigSection> section_list(const std::string& key) const;

@@ -22,6 +22,7 @@
 #include "rungcal/core/random.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/plfit/priors.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
@@ -100,8 +101,7 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
     // Each prior's centre is redrawn from its own Gaussian, so the resamples carry the
     // prior's uncertainty as the covariance does (method brief, section 4b).
     FitSettings drawn = settings;
-    for (auto& p : drawn.params)
-      if (p.mode == ParamMode::kPrior) p.value = rng.normal(p.value, p.prior_sigma);
+    redraw_prior_centres(drawn, rr.layout, rng);
     FitSolution s = solve_fit(sample, drawn, rr.layout,
                               gauss_newton_start(sample, drawn, rr.layout, rr.solution.theta));
     if (!s.usable) return std::nullopt;

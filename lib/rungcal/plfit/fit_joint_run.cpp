@@ -22,6 +22,7 @@
 #include "rungcal/core/random.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/plfit/priors.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
@@ -55,7 +56,11 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   js.loss_scale = o.loss_scale;
   js.scatter_correlation = o.joint_scatter_correlation;
   js.fixed.assign(L.size, false);
-  for (const auto& a : o.anchors) js.anchor_priors.emplace_back(a.mu, a.mu_err);
+  for (std::size_t g = 0; g < o.anchors.size(); ++g) {
+    const auto k = static_cast<Eigen::Index>(g);
+    js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_covariance.size() ? std::sqrt(o.anchor_covariance(k, k)) : o.anchors[g].mu_err);
+  }
+  if (o.anchor_covariance.size()) js.anchor_correlation = correlation_of(o.anchor_covariance);
   if (o.offset.mode == ParamMode::kFixed) js.fixed[L.offset] = true;
   if (o.offset.mode == ParamMode::kPrior)
     jr.warnings.push_back("the offset's prior is not used by the joint fit (free there)");

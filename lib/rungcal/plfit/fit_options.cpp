@@ -10,6 +10,7 @@
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
+#include "rungcal/plfit/priors.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 
 namespace rungcal {
@@ -148,6 +149,17 @@ std::string FitOptions::check() const {
     for (const auto& c : r.classes)
       if (!kPulsatorClassNames.parse(c)) return "relation.classes: unknown class '" + c + "'";
   }
+  if (anchor_covariance.size()) {
+    if (std::string why = check_anchor_covariance(anchor_covariance, static_cast<int>(anchors.size())); !why.empty())
+      return why;
+    for (std::size_t g = 0; g < anchors.size(); ++g) {
+      const double diag = std::sqrt(anchor_covariance(static_cast<Eigen::Index>(g), static_cast<Eigen::Index>(g)));
+      if (anchors[g].mu_err > 0 && std::abs(anchors[g].mu_err - diag) > 0.01 * diag)
+        return fmt::format("anchor.mu_err: {} differs from the square root of anchor_covariance's diagonal, {:.6g} ({})",
+                           anchors[g].mu_err, diag, anchors[g].group);
+    }
+    return "";
+  }
   for (const auto& a : anchors)
     if (!(a.mu_err > 0)) return "anchor.mu_err: must be positive (" + a.group + ")";
   return "";
@@ -248,6 +260,16 @@ FitOptions fit_options_from_file(const std::string& path) {
     an.mu = a.number_or("mu", 0.0);
     an.mu_err = a.number_or("mu_err", 0.0);
     o.anchors.push_back(an);
+  }
+  if (auto rows = f->get_number_rows("anchor_covariance")) {
+    const auto n = static_cast<Eigen::Index>(rows->size());
+    o.anchor_covariance.resize(n, n);
+    for (Eigen::Index i = 0; i < n; ++i) {
+      if (static_cast<Eigen::Index>((*rows)[static_cast<std::size_t>(i)].size()) != n)
+        f->fail("anchor_covariance", fmt::format("row {} has {} entries; the matrix must be square ({} x {})", i + 1,
+                                                 (*rows)[static_cast<std::size_t>(i)].size(), n, n));
+      for (Eigen::Index k = 0; k < n; ++k) o.anchor_covariance(i, k) = (*rows)[static_cast<std::size_t>(i)][static_cast<std::size_t>(k)];
+    }
   }
   c.check_unknown_keys();
   throw_if_invalid(o.check(), path);

@@ -78,8 +78,21 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                   {"scatter", {{"mode", std::string(kParamModeNames.name(o.scatter.mode))}, {"value", o.scatter.value}}},
                   {"anchors", [&] {
                      nlohmann::json a = nlohmann::json::array();
-                     for (const auto& an : o.anchors) a.push_back({{"group", an.group}, {"mu", an.mu}, {"mu_err", an.mu_err}});
+                     for (std::size_t g = 0; g < o.anchors.size(); ++g) {
+                       const auto k = static_cast<Eigen::Index>(g);
+                       const double err = o.anchor_covariance.size() ? std::sqrt(o.anchor_covariance(k, k)) : o.anchors[g].mu_err;
+                       a.push_back({{"group", o.anchors[g].group}, {"mu", o.anchors[g].mu}, {"mu_err", err}});
+                     }
                      return a;
+                   }()},
+                  {"anchor_covariance", [&] {
+                     nlohmann::json c = nlohmann::json::array();  // empty: independent
+                     for (Eigen::Index i = 0; i < o.anchor_covariance.rows(); ++i) {
+                       nlohmann::json row = nlohmann::json::array();
+                       for (Eigen::Index k = 0; k < o.anchor_covariance.cols(); ++k) row.push_back(o.anchor_covariance(i, k));
+                       c.push_back(row);
+                     }
+                     return c;
                    }()},
                   {"joint", o.joint},
                   {"bootstrap", o.bootstrap},

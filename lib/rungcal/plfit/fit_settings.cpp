@@ -22,6 +22,7 @@
 #include "rungcal/core/random.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/plfit/priors.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
@@ -56,9 +57,12 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
   if (L.gamma >= 0) s.params[L.gamma] = rel.gamma;
   s.params[L.offset] = o.offset;
   s.params[L.sigma] = o.scatter;
-  for (std::size_t g = 0; g < o.anchors.size(); ++g)
-    s.params[L.anchor0 + static_cast<int>(g)] =
-        ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchors[g].mu_err, true};
+  for (std::size_t g = 0; g < o.anchors.size(); ++g) {
+    const auto k = static_cast<Eigen::Index>(g);
+    const double sigma = o.anchor_covariance.size() ? std::sqrt(o.anchor_covariance(k, k)) : o.anchors[g].mu_err;
+    s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, sigma, true};
+  }
+  if (o.anchor_covariance.size()) s.anchor_prior_correlation = correlation_of(o.anchor_covariance);
   if (s.terms.hierarchical) {
     s.params[L.outlier] = o.outlier_fraction;
     s.params[L.outlier_shift] = o.outlier_shift;

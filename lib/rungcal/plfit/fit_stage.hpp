@@ -94,6 +94,10 @@ struct FitOptions {
   int threads = 0;                       // 0: all cores
   std::vector<RelationOptions> relations;
   std::vector<AnchorOptions> anchors;
+  // Covariance of the anchors' moduli priors (mag^2, [[anchor]] order; published distances
+  // share systematics); empty: independent, each with its mu_err. When given, each anchor's
+  // mu_err may be left out and is otherwise checked against the diagonal.
+  Eigen::MatrixXd anchor_covariance;
   std::string config_file, config_sha256;
   nlohmann::json resolved;               // the options as read, for the result file
 

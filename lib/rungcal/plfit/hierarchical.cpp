@@ -13,6 +13,8 @@
 
 #include <Eigen/Dense>
 
+#include "rungcal/plfit/priors.hpp"
+
 namespace rungcal {
 namespace {
 
@@ -122,12 +124,14 @@ struct GaussianMagnitude {
   static constexpr double kWidthFactor = 1.0;  // the quadrature's width in curvature widths
 };
 
-// The exponentially modified Gaussian of the blend component (blend_log_density).
+// The blend component's magnitude term: the exponentially modified Gaussian
+// (blend_log_density) or its Gamma(2) counterpart (blend_rising_log_density).
 struct BlendMagnitude {
   double var, scale;
-  BlendMagnitude(double v, double s) : var(v), scale(s) {}
+  bool rising;
+  BlendMagnitude(double v, double s, BlendComponent kind) : var(v), scale(s), rising(kind == BlendComponent::kRising) {}
   MagnitudePoint at(double r) const {
-    const BlendDensity b = blend_log_density(r, var, scale);
+    const BlendDensity b = rising ? blend_rising_log_density(r, var, scale) : blend_log_density(r, var, scale);
     return {b.log_density, b.d_r, b.d2_r, b.d_var, b.d_scale};
   }
   // The exponential tail reaches further than the curvature at the mode says: 24 nodes at
@@ -281,7 +285,7 @@ class Evaluator {
  public:
   Evaluator(const FitData& d, const FitSettings& s, const ParameterLayout& L)
       : d_(d), s_(s), L_(L), q_(quadrature(s.hierarchical.quadrature_nodes)),
-        q_blend_(quadrature(blend_nodes(s.hierarchical.quadrature_nodes))) {
+        q_blend_(quadrature(blend_nodes(s.hierarchical.quadrature_nodes))), priors_(prior_rows(s, L)) {
     // outlier_fraction = 0 fixed: no mixture at all, not one with a vanishing weight.
     mixture_ = L.outlier >= 0 && !(s.params[static_cast<std::size_t>(L.outlier)].mode == ParamMode::kFixed &&
                                    s.params[static_cast<std::size_t>(L.outlier)].value == 0.0);
@@ -357,14 +361,14 @@ class Evaluator {
             outlier = integrate_parallax(c.m0[i], GaussianMagnitude(V + wide), d_.plx[i], plx_factor2 * d_.var_plx[i],
                                          M - shift, offset, prior, q_, mode_outlier_[k], bins_outlier_.data());
           if (blends_)
-            blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale), d_.plx[i], d_.var_plx[i],
+            blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale, h.blends), d_.plx[i], d_.var_plx[i],
                                        M - blend_min, offset, prior, q_blend_, mode_blend_[k], bins_blend_.data());
         } else {
           const double mu = kind == 1 ? d_.mu[i] : t[L_.anchor0 + d_.group[i]];
           const double var_mu = kind == 1 ? d_.var_mu[i] : 0.0;
           member = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu), mu, M);
           if (mixture_) outlier = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu + wide), mu, M - shift);
-          if (blends_) blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale), mu, M - blend_min);
+          if (blends_) blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale, h.blends), mu, M - blend_min);
         }
         // The mixture: q, q_out and q_blend are each component's posterior probability.
         double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;
@@ -442,12 +446,10 @@ class Evaluator {
       if (j) gext[L_.distance_bin0 + static_cast<int>(j) - 1] -= z / h.histogram_walk_sigma;
     }
     // Gaussian priors, on the reported parameters.
-    for (int j = 0; j < L_.size; ++j) {
-      const ParamSpec& p = s_.params[static_cast<std::size_t>(j)];
-      if (p.mode != ParamMode::kPrior) continue;
-      const double z = (t[j] - p.value) / p.prior_sigma;
+    for (const PriorRow& row : priors_) {
+      const double z = prior_residual(row, s_, t.data());
       value += 0.5 * z * z;
-      gext[j] += z / p.prior_sigma;
+      for (std::size_t k = 0; k < row.params.size(); ++k) gext[row.params[k]] += z * row.weights[k];
     }
     if (grad) {
       grad->resize(L_.size);
@@ -462,6 +464,7 @@ class Evaluator {
   const ParameterLayout& L_;
   const Quadrature& q_;
   const Quadrature& q_blend_;
+  std::vector<PriorRow> priors_;
   std::vector<double> mode_member_, mode_outlier_, mode_blend_;  // each star's last mode: the next start
   std::vector<double> bins_member_, bins_outlier_, bins_blend_;  // one star's histogram-weight derivatives
   bool mixture_ = true, blends_ = false;
@@ -605,6 +608,44 @@ BlendDensity blend_log_density(double r, double var, double scale) {
   b.d_var = 0.5 * lambda * lambda + psi * (r / var - lambda) / (2.0 * sd);
   b.d_scale = -lambda * lambda * (scale + r + lambda * var - psi * sd);
   return b;
+}
+
+namespace {
+
+// Far in the lower tail (x = -z > 5) A = z + psi and B = 1 - psi A cancel to 1/x and 1/x^2
+// of terms near x, losing x^2 of erfc's relative accuracy (4e-11 in ln A at z = -30).
+// Laplace's continued fraction for the Mills ratio (e.g. Abramowitz & Stegun 26.2.14,
+// evaluated backwards) gives them without a difference: with C_k = x + k / C_(k+1),
+// psi = C_1, A = 1 / C_2 and B = (2 / C_3 - 1 / C_2) / C_2. 80 levels: converged to
+// rounding for x >= 5.
+void mean_excess_far_tail(double x, double& psi, double& a, double& b) {
+  double c = x, c3 = x, c2 = x;
+  for (int k = 80; k >= 1; --k) {
+    c = x + k / c;
+    if (k == 3) c3 = c;
+    if (k == 2) c2 = c;
+  }
+  psi = c, a = 1.0 / c2, b = (2.0 / c3 - 1.0 / c2) / c2;
+}
+
+}  // namespace
+
+BlendDensity blend_rising_log_density(double r, double var, double mean) {
+  const double theta = 0.5 * mean, lambda = 1.0 / theta, sd = std::sqrt(var);
+  const BlendDensity e = blend_log_density(r, var, theta);
+  const double z = -(r + lambda * var) / sd;
+  double log_cdf = 0, psi = 0, a = 0;
+  normal_log_cdf(z, log_cdf, psi, a);
+  double b = 1.0 - psi * a;
+  if (z < -5.0) mean_excess_far_tail(-z, psi, a, b);
+  const double h1 = b / a, h2 = (psi * (a * a - b) * a - b * b) / (a * a);
+  BlendDensity d;
+  d.log_density = e.log_density + std::log(lambda * sd) + std::log(a);
+  d.d_r = e.d_r - h1 / sd;
+  d.d2_r = e.d2_r + h2 / var;
+  d.d_var = e.d_var + 0.5 / var + h1 * (r / var - lambda) / (2.0 * sd);
+  d.d_scale = 0.5 * (e.d_scale - lambda + h1 * lambda * lambda * sd);
+  return d;
 }
 
 void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights) {

@@ -54,6 +54,17 @@ struct BlendDensity {
 };
 BlendDensity blend_log_density(double r, double var, double scale);
 
+// BlendComponent::kRising's magnitude density: the brightening b ~ Gamma(shape 2, mean s),
+// density b exp(-b / theta) / theta^2 with theta = s / 2, convolved with N(0, V). Completing
+// the square as for the exponential (lambda = 1 / theta, same z):
+//   p(r) = lambda^2 sqrt(V) exp(lambda r + lambda^2 V / 2) [phi(z) + z Phi(z)]
+//        = EMG(r; V, theta) * lambda sqrt(V) (z + psi),
+// so ln p = ln EMG + ln(lambda sqrt(V)) + ln A with A = z + psi > 0 (the mean excess of a
+// truncated normal), dA/dz = B = 1 - psi A, dB/dz = psi (A^2 - B). Log-concave, as the
+// convolution of two log-concave densities. The scale argument is the mean s, as for
+// blend_log_density, so the two share one parameter and one prior.
+BlendDensity blend_rising_log_density(double r, double var, double mean);
+
 // Maximum likelihood from a start (external parameters); fixed parameters stay at theirs.
 FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                                const Eigen::VectorXd& start);

@@ -9,6 +9,8 @@
 
 #include <vector>
 
+#include <Eigen/Cholesky>
+
 namespace rungcal {
 namespace {
 
@@ -70,26 +72,41 @@ struct StarResidual {
   }
 };
 
-// (mu_g - prior mean) / prior sigma for one anchor galaxy.
-struct AnchorPrior {
-  int index;
-  double mean, sigma;
+// The anchors' moduli priors, whitened: W (mu - mean) with W = L^-1, L L^T their covariance
+// (diagonal when they are independent), so that the squares sum to the Gaussian's -2 ln p.
+struct AnchorPriors {
+  int first;
+  Eigen::VectorXd mean;
+  Eigen::MatrixXd whitener;
   template <typename T>
   bool operator()(T const* const* parameters, T* residual) const {
-    residual[0] = (parameters[0][index] - mean) / sigma;
+    for (Eigen::Index k = 0; k < mean.size(); ++k) {
+      residual[k] = T(0.0);
+      for (Eigen::Index g = 0; g <= k; ++g)
+        residual[k] += whitener(k, g) * (parameters[0][first + static_cast<int>(g)] - mean[g]);
+    }
     return true;
   }
 };
 
+void add_anchor_priors(ceres::Problem& problem, const JointSettings& s, const JointLayout& L, double* t) {
+  const auto n = static_cast<Eigen::Index>(s.anchor_priors.size());
+  if (n == 0) return;
+  Eigen::VectorXd mean(n), sigma(n);
+  for (Eigen::Index g = 0; g < n; ++g)
+    mean[g] = s.anchor_priors[static_cast<std::size_t>(g)].first, sigma[g] = s.anchor_priors[static_cast<std::size_t>(g)].second;
+  const Eigen::MatrixXd R = s.anchor_correlation.rows() == n ? s.anchor_correlation : Eigen::MatrixXd::Identity(n, n);
+  const Eigen::MatrixXd C = sigma.asDiagonal() * R * sigma.asDiagonal();
+  Eigen::MatrixXd W = Eigen::LLT<Eigen::MatrixXd>(C).matrixL().solve(Eigen::MatrixXd::Identity(n, n));
+  auto* prior = new ceres::DynamicAutoDiffCostFunction<AnchorPriors, 8>(new AnchorPriors{L.anchor0, mean, W});
+  prior->AddParameterBlock(L.size);
+  prior->SetNumResiduals(static_cast<int>(n));
+  problem.AddResidualBlock(prior, nullptr, t);
+}
+
 void build_problem(ceres::Problem& problem, const JointData& d, const JointSettings& s, const JointLayout& L, double* t,
                    bool robust) {
-  for (std::size_t g = 0; g < s.anchor_priors.size(); ++g) {
-    auto* prior = new ceres::DynamicAutoDiffCostFunction<AnchorPrior, 8>(
-        new AnchorPrior{L.anchor0 + static_cast<int>(g), s.anchor_priors[g].first, s.anchor_priors[g].second});
-    prior->AddParameterBlock(L.size);
-    prior->SetNumResiduals(1);
-    problem.AddResidualBlock(prior, nullptr, t);
-  }
+  add_anchor_priors(problem, s, L, t);
   for (int star = 0; star < d.stars(); ++star) {
     auto* cost = new ceres::DynamicAutoDiffCostFunction<StarResidual, 8>(new StarResidual{&d, &s, &L, star});
     cost->AddParameterBlock(L.size);

@@ -49,6 +49,7 @@ struct JointSettings {
   double scatter_correlation = 0.0;
   std::vector<bool> fixed;        // per parameter
   std::vector<std::pair<double, double>> anchor_priors;  // per anchor: mean and sigma of mu
+  Eigen::MatrixXd anchor_correlation;  // of the anchors' priors; empty: independent
 };
 
 struct JointSolution {

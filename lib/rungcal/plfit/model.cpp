@@ -10,6 +10,7 @@
 
 #include "rungcal/core/simd.hpp"
 #include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/plfit/priors.hpp"
 
 namespace rungcal {
 namespace {
@@ -255,8 +256,7 @@ class RelationCost final : public ceres::CostFunction {
         ++row;
       });
     }
-    for (int j = 0; j < L.size; ++j)
-      if (s.params[j].mode == ParamMode::kPrior) priors_.push_back(j);
+    priors_ = prior_rows(s, L);
     fast_ = d.known.size() == 0 && d.anchor.size() == 0 && s.space == FitSpace::kParallax && n_norm_ == 0 &&
             L.beta_long < 0 && L.size == L.anchor0 && (s.loss == LossKind::kNone || s.loss == LossKind::kHuber);
     set_num_residuals(n_stars_ + n_norm_ + static_cast<int>(priors_.size()));
@@ -315,10 +315,10 @@ class RelationCost final : public ceres::CostFunction {
       ++row;
     });
     int pr = n_stars_ + n_norm_;
-    for (int j : priors_) {
-      const ParamSpec& p = s_.params[j];
-      residuals[pr] = (t[j] - p.value) / p.prior_sigma;
-      if (J) J[static_cast<std::size_t>(pr) * P + j] = 1.0 / p.prior_sigma;
+    for (const PriorRow& prior : priors_) {
+      residuals[pr] = prior_residual(prior, s_, t);
+      if (J)
+        for (std::size_t k = 0; k < prior.params.size(); ++k) J[static_cast<std::size_t>(pr) * P + prior.params[k]] = prior.weights[k];
       ++pr;
     }
     return finite;  // false on NaN: Ceres shortens the step
@@ -334,12 +334,11 @@ class RelationCost final : public ceres::CostFunction {
                          s_.loss == LossKind::kHuber, s_.loss_scale, P, L_.alpha, L_.beta, L_.gamma, L_.offset, L_.sigma};
     const bool finite = fast_parallax_residuals(in, residuals, J);
     int pr = n_stars_;
-    for (int j : priors_) {
-      const ParamSpec& p = s_.params[j];
-      residuals[pr] = (t[j] - p.value) / p.prior_sigma;
+    for (const PriorRow& row : priors_) {
+      residuals[pr] = prior_residual(row, s_, t);
       if (J) {
         std::fill(J + static_cast<std::size_t>(pr) * P, J + static_cast<std::size_t>(pr + 1) * P, 0.0);
-        J[static_cast<std::size_t>(pr) * P + j] = 1.0 / p.prior_sigma;
+        for (std::size_t k = 0; k < row.params.size(); ++k) J[static_cast<std::size_t>(pr) * P + row.params[k]] = row.weights[k];
       }
       ++pr;
     }
@@ -372,7 +371,7 @@ class RelationCost final : public ceres::CostFunction {
   const FitSettings& s_;
   const ParameterLayout& L_;
   int n_stars_ = 0, n_norm_ = 0;
-  std::vector<int> priors_;
+  std::vector<PriorRow> priors_;
   std::vector<double> frozen_base_, frozen_per_var_;
   bool fast_ = false;  // evaluate_fast applies (see fast_parallax_residuals)
 };

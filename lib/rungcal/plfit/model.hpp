@@ -134,16 +134,24 @@ inline constexpr EnumTable<ScatterEstimator, 2> kScatterEstimatorNames{{{
 
 // The hierarchical model's blend component: stars made brighter by an unresolved companion.
 enum class BlendComponent {
-  kNone,         // no such component: blends are left to the broad outlier component (default)
+  kNone,         // no such component: blends are left to the broad outlier component
   // A magnitude brighter than a member's by b ~ Exp(mean s), s = blend_scale_mag fitted:
   // the member Gaussian convolved with a one-sided exponential, the exponentially modified
   // Gaussian (Grushka 1972, Anal. Chem. 44, 1733), closed form in erfc (hierarchical.hpp).
-  // Parallax as a member's. Opt-in: see docs/method.md for what it fixes and what it costs.
+  // Parallax as a member's. Its density peaks at the start and so reaches into the members'
+  // bright tail (sigma_int low: docs/method.md).
   kExponential,
+  // A brightening b ~ Gamma(shape 2, mean s) instead: its density rises from zero at the
+  // start, so the component claims no members' bright tail, and falls exponentially
+  // (a companion of comparable light is likelier than a barely-there one). Closed form in
+  // phi and Phi (blend_rising_log_density in hierarchical.hpp). The default: the
+  // simulation study in docs/method.md.
+  kRising,
 };
-inline constexpr EnumTable<BlendComponent, 2> kBlendComponentNames{{{
+inline constexpr EnumTable<BlendComponent, 3> kBlendComponentNames{{{
     {BlendComponent::kNone, "none"},
     {BlendComponent::kExponential, "exponential"},
+    {BlendComponent::kRising, "rising"},
 }}};
 
 // The hierarchical likelihood's fixed choices (FitSpace::kHierarchical).
@@ -159,11 +167,11 @@ struct HierarchicalSettings {
   double outlier_parallax_factor = 10.0;
   // The blend component (BlendComponent); its fraction and scale are parameters
   // (blend_fraction, blend_scale_mag).
-  BlendComponent blends = BlendComponent::kNone;
-  // Blends start this much brighter (mag): the brightening is b = blend_min_mag + Exp(s), a
-  // companion giving at least a quarter of the light. Fainter companions count as intrinsic
-  // scatter: a component reaching into the member core takes the members' bright tail for
-  // blends (sigma_int biased low: docs/method.md).
+  BlendComponent blends = BlendComponent::kRising;
+  // Blends start this much brighter (mag): the brightening is b = blend_min_mag + Gamma(2,
+  // mean s) (or + Exp(s)), a companion giving at least a quarter of the light. Fainter
+  // companions count as intrinsic scatter: a component reaching into the member core takes
+  // the members' bright tail for blends (sigma_int biased low: docs/method.md).
   double blend_min_mag = 0.3;
   // The smooth-histogram prior's grid: first centre and step (mag); the bin count is the
   // layout's (ModelTerms::distance_bins). Placed over the data by histogram_grid().
@@ -181,6 +189,9 @@ struct FitSettings {
   double loss_scale = 3.0;  // in units of sigma
   ModelTerms terms;
   std::vector<ParamSpec> params;  // by ParameterLayout index
+  // Correlation of the anchors' moduli priors (anchor order; their centres and sigmas stay in
+  // params); empty: independent. Read through prior_rows (priors.hpp).
+  Eigen::MatrixXd anchor_prior_correlation;
   int max_iterations = 200;
   // Convergence: |delta cost| / cost below function_tolerance, or a step below
   // parameter_tolerance relative to the parameters. The bootstrap relaxes both (its

@@ -7,6 +7,8 @@
 
 #include <Eigen/Dense>
 
+#include "rungcal/plfit/priors.hpp"
+
 namespace rungcal {
 
 double loss_second_derivative(LossKind kind, double a, double s) {
@@ -81,11 +83,15 @@ bool sandwich_covariance(const FitData& d, const FitSettings& s, const Parameter
   Eigen::MatrixXd A = grad.transpose() * curvature.matrix().asDiagonal() * grad;
   const Eigen::MatrixXd scored = score.matrix().asDiagonal() * grad;
   Eigen::MatrixXd B = scored.transpose() * scored;
-  for (Eigen::Index k = 0; k < P; ++k) {
-    const ParamSpec& p = s.params[static_cast<std::size_t>(free[static_cast<std::size_t>(k)])];
-    if (p.mode != ParamMode::kPrior) continue;
-    A(k, k) += 1.0 / (p.prior_sigma * p.prior_sigma);
-    B(k, k) += 1.0 / (p.prior_sigma * p.prior_sigma);
+  // Each whitened prior row w adds w w^T over the free parameters to both A and B.
+  std::vector<Eigen::Index> column(static_cast<std::size_t>(L.size), -1);
+  for (Eigen::Index k = 0; k < P; ++k) column[static_cast<std::size_t>(free[static_cast<std::size_t>(k)])] = k;
+  for (const PriorRow& row : prior_rows(s, L)) {
+    Eigen::VectorXd whitened = Eigen::VectorXd::Zero(P);
+    for (std::size_t k = 0; k < row.params.size(); ++k)
+      if (const Eigen::Index c = column[static_cast<std::size_t>(row.params[k])]; c >= 0) whitened[c] = row.weights[k];
+    A += whitened * whitened.transpose();
+    B += whitened * whitened.transpose();
   }
   Eigen::FullPivLU<Eigen::MatrixXd> lu(A);
   if (!lu.isInvertible()) return false;

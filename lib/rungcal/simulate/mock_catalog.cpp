@@ -30,6 +30,16 @@ double draw_distance_kpc(MockDistances kind, Random& rng, const std::vector<doub
   return 1.0;
 }
 
+// Magnitudes added by a companion of flux ratio q: 2.5 log10(1 + q) (Pogson's ratio).
+double blend_brightening(MockBlendLaw law, Random& rng) {
+  switch (law) {
+    case MockBlendLaw::kModerate: return rng.uniform(0.3, 1.0);
+    case MockBlendLaw::kFaintCompanions: return 2.5 * std::log10(1.0 + rng.uniform(0.0, 1.5));
+    case MockBlendLaw::kBrightCompanions: return 2.5 * std::log10(1.0 + rng.uniform(0.5, 4.0));
+  }
+  return 0.0;
+}
+
 }  // namespace
 
 std::string MockScenario::check() const {
@@ -65,7 +75,7 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     const double feh = rng.normal(s.feh_mean, s.feh_spread);
     const double abs_mag = s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + rng.normal(0.0, s.sigma_int);
     double m0 = abs_mag + mu + rng.normal(0.0, s.mag_error) + s.extinction_per_ebv * rng.normal(0.0, s.ebv_error);
-    if (rng.uniform() < s.blend_fraction) m0 -= rng.uniform(0.3, 1.0);
+    if (rng.uniform() < s.blend_fraction) m0 -= blend_brightening(s.blend_law, rng);
     // Astrometric errors follow the star's observed brightness, as a survey's do (the fit
     // conditions on the observed magnitude, so the errors carry no hidden distance).
     const double plx_err = 0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0));

@@ -23,6 +23,19 @@ inline constexpr EnumTable<MockDistances, 3> kMockDistanceNames{{{
     {MockDistances::kClumpy, "clumpy"},
 }}};
 
+// How much brighter a blended mock star is. The first is the law the study was tuned
+// on; the others test the fit's blend component against blends it was not shaped for.
+enum class MockBlendLaw {
+  kModerate,          // brighter by U(0.3, 1.0) mag
+  kFaintCompanions,   // a companion of flux ratio q ~ U(0, 1.5): 2.5 log10(1 + q), 0-1.0 mag
+  kBrightCompanions,  // q ~ U(0.5, 4): 0.44-1.75 mag
+};
+inline constexpr EnumTable<MockBlendLaw, 3> kMockBlendLawNames{{{
+    {MockBlendLaw::kModerate, "moderate"},
+    {MockBlendLaw::kFaintCompanions, "faint_companions"},
+    {MockBlendLaw::kBrightCompanions, "bright_companions"},
+}}};
+
 // One mock catalog of parallax calibrators of one relation, already dereddened (the
 // columns rungcal-fit reads, band "X"), with each contamination switchable on its own.
 struct MockScenario {
@@ -36,7 +49,8 @@ struct MockScenario {
   double extinction_per_ebv = 0.0;  // A/E(B-V) of the band: 0 for a Wesenheit magnitude
   MockDistances distances = MockDistances::kDisk;
   // Contaminations (0: off).
-  double blend_fraction = 0;     // stars made 0.3-1.0 mag too bright (unresolved companions)
+  double blend_fraction = 0;     // stars made too bright by unresolved companions
+  MockBlendLaw blend_law = MockBlendLaw::kModerate;  // by how much
   double parallax_outlier_fraction = 0;  // parallaxes off by 5-20 of their errors
   double feh_error = 0;          // [Fe/H] measurement error (dex); the catalog carries feh_err
   double overtone_fraction = 0;  // first-overtone pulsators, labelled, log P1 in [0.1, 0.7]
