@@ -70,6 +70,8 @@ int main(int argc, char** argv) {
   std::string blend_law = "moderate";
   app.add_option("--blend-law", blend_law, "how much brighter the mock blends are: moderate (0.3-1.0 mag), "
                  "faint_companions (0-1.0 mag) or bright_companions (0.44-1.75 mag)")->capture_default_str();
+  app.add_option("--parallax-error-scale", study.scenario.parallax_error_scale,
+                 "multiplies the mocks' parallax errors (3: a median S/N near 5 on the disk)")->capture_default_str();
   app.add_option("--space", space, "the fit's space: hierarchical, parallax, magnitude, abl")->capture_default_str();
   app.add_option("--distance-prior", prior, "the hierarchical fit's distance prior: smooth_histogram, space_density, generalized_gamma")
       ->capture_default_str();

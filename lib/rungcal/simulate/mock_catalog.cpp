@@ -30,8 +30,9 @@ double draw_distance_kpc(MockDistances kind, Random& rng, const std::vector<doub
   return 1.0;
 }
 
-// Magnitudes added by a companion of flux ratio q: 2.5 log10(1 + q) (Pogson's ratio).
-double blend_brightening(MockBlendLaw law, Random& rng) {
+}  // namespace
+
+double mock_blend_brightening(MockBlendLaw law, Random& rng) {
   switch (law) {
     case MockBlendLaw::kModerate: return rng.uniform(0.3, 1.0);
     case MockBlendLaw::kFaintCompanions: return 2.5 * std::log10(1.0 + rng.uniform(0.0, 1.5));
@@ -40,14 +41,12 @@ double blend_brightening(MockBlendLaw law, Random& rng) {
   return 0.0;
 }
 
-}  // namespace
-
 std::string MockScenario::check() const {
   if (stars < 3) return "stars: at least 3";
   for (double f : {blend_fraction, parallax_outlier_fraction, overtone_fraction, far_fraction})
     if (!(f >= 0 && f < 1)) return "fractions: each in [0, 1)";
-  if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0))
-    return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread > 0";
+  if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0 && parallax_error_scale > 0))
+    return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread, parallax_error_scale > 0";
   return "";
 }
 
@@ -75,10 +74,10 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     const double feh = rng.normal(s.feh_mean, s.feh_spread);
     const double abs_mag = s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + rng.normal(0.0, s.sigma_int);
     double m0 = abs_mag + mu + rng.normal(0.0, s.mag_error) + s.extinction_per_ebv * rng.normal(0.0, s.ebv_error);
-    if (rng.uniform() < s.blend_fraction) m0 -= blend_brightening(s.blend_law, rng);
+    if (rng.uniform() < s.blend_fraction) m0 -= mock_blend_brightening(s.blend_law, rng);
     // Astrometric errors follow the star's observed brightness, as a survey's do (the fit
     // conditions on the observed magnitude, so the errors carry no hidden distance).
-    const double plx_err = 0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0));
+    const double plx_err = s.parallax_error_scale * (0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0)));
     double plx = 1.0 / d + s.parallax_offset_mas + rng.normal(0.0, plx_err);
     if (rng.uniform() < s.parallax_outlier_fraction) plx += (rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * plx_err;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);

@@ -7,6 +7,7 @@
 #include <nlohmann/json.hpp>
 
 #include "rungcal/core/enum_table.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/table/star_table.hpp"
 
 namespace rungcal {
@@ -36,6 +37,10 @@ inline constexpr EnumTable<MockBlendLaw, 3> kMockBlendLawNames{{{
     {MockBlendLaw::kBrightCompanions, "bright_companions"},
 }}};
 
+// One blend's brightening (mag, > 0) under a law: a companion of flux ratio q adds
+// 2.5 log10(1 + q) (Pogson's ratio).
+double mock_blend_brightening(MockBlendLaw law, Random& rng);
+
 // One mock catalog of parallax calibrators of one relation, already dereddened (the
 // columns rungcal-fit reads, band "X"), with each contamination switchable on its own.
 struct MockScenario {
@@ -46,6 +51,7 @@ struct MockScenario {
   double parallax_offset_mas = -0.010;  // observed parallax = true + offset + noise
   double feh_mean = 0.0, feh_spread = 0.15;  // the [Fe/H] population
   double mag_error = 0.02;      // photometric error of the mean magnitudes (mag)
+  double parallax_error_scale = 1.0;  // the parallax error law below, times this
   double extinction_per_ebv = 0.0;  // A/E(B-V) of the band: 0 for a Wesenheit magnitude
   MockDistances distances = MockDistances::kDisk;
   // Contaminations (0: off).
@@ -63,7 +69,7 @@ struct MockScenario {
 
 // Parallax errors grow with the observed magnitude m as for a bright-star astrometric
 // survey: sigma_pi = 0.012 + 0.06 10^(0.4 (m - 15)) mas, 0.013 mas at m = 10, 0.072 at
-// m = 15 (an invented law, for simulations only).
+// m = 15 (an invented law, for simulations only), times parallax_error_scale.
 StarTable mock_calibrator_catalog(const MockScenario& scenario);
 
 }  // namespace rungcal

@@ -1,0 +1,60 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/simulate/mock_catalog: the study's mock calibrators (simulations with
+// known truth).
+#include "rungcal/simulate/mock_catalog.hpp"
+
+#include <gtest/gtest.h>
+
+#include <cmath>
+
+namespace rungcal {
+namespace {
+
+// Each law's range and mean against its closed form: for q ~ U(a, b) the brightening
+// 2.5 log10(1 + q) has mean (2.5 / ln 10) [F(b) - F(a)] / (b - a), F(q) = (1 + q) ln(1 + q) - q.
+TEST(MockCatalog, BlendLawsHaveTheirRangesAndMeans) {
+  auto mean_of_companion = [](double a, double b) {
+    auto F = [](double q) { return (1 + q) * std::log(1 + q) - q; };
+    return 2.5 / std::log(10.0) * (F(b) - F(a)) / (b - a);
+  };
+  struct Case {
+    MockBlendLaw law;
+    double lo, hi, mean;
+  };
+  const Case cases[] = {
+      {MockBlendLaw::kModerate, 0.3, 1.0, 0.65},
+      {MockBlendLaw::kFaintCompanions, 0.0, 2.5 * std::log10(2.5), mean_of_companion(0.0, 1.5)},
+      {MockBlendLaw::kBrightCompanions, 2.5 * std::log10(1.5), 2.5 * std::log10(5.0),
+       mean_of_companion(0.5, 4.0)}};
+  for (const Case& c : cases) {
+    Random rng(11);
+    const int n = 200000;
+    double sum = 0, lo = 1e9, hi = -1e9;
+    for (int i = 0; i < n; ++i) {
+      const double b = mock_blend_brightening(c.law, rng);
+      sum += b, lo = std::min(lo, b), hi = std::max(hi, b);
+    }
+    EXPECT_GE(lo, c.lo) << kMockBlendLawNames.name(c.law);
+    EXPECT_LE(hi, c.hi) << kMockBlendLawNames.name(c.law);
+    EXPECT_NEAR(hi - lo, c.hi - c.lo, 0.01) << kMockBlendLawNames.name(c.law);
+    EXPECT_NEAR(sum / n, c.mean, 0.002)
+        << kMockBlendLawNames.name(c.law);  // the mean's own scatter: < 0.0007
+  }
+  EXPECT_NEAR(mean_of_companion(0.0, 1.5), 0.5724, 1e-4);  // worked by hand: 1.08574 x 0.52715
+}
+
+TEST(MockCatalog, ParallaxErrorScaleMultipliesEveryError) {
+  MockScenario s;
+  s.stars = 50;
+  const StarTable one = mock_calibrator_catalog(s);
+  s.parallax_error_scale = 3.0;
+  const StarTable three = mock_calibrator_catalog(s);
+  for (std::size_t i = 0; i < 50; ++i)
+    EXPECT_NEAR(three.column("parallax_err_mas").as_real(i),
+                3.0 * one.column("parallax_err_mas").as_real(i), 1e-12);
+  s.parallax_error_scale = 0;
+  EXPECT_NE(s.check().find("parallax_error_scale"), std::string::npos);
+}
+
+}  // namespace
+}  // namespace rungcal
