@@ -146,27 +146,6 @@ struct BlendMagnitude {
 // tests/hierarchical_test.cpp's -ln L to within 5e-8 of a 64-node rule (3.6e-6 with 24).
 int blend_nodes(int member_nodes) { return std::min(128, member_nodes * 5 / 3); }
 
-// ln Phi(z), psi = phi(z) / Phi(z) and z + psi, without underflow or cancellation. Below
-// z = -30, erfc(-z / sqrt 2) nears its underflow: Phi(z) = phi(z) / (-z) S(z) with the
-// asymptotic series S = 1 - 1/z^2 + 3/z^4 - ... (Abramowitz & Stegun 26.2.12), whose terms
-// to z^-12 leave a relative error below 1e-16 there.
-void normal_log_cdf(double z, double& log_cdf, double& psi, double& z_plus_psi) {
-  if (z > -30.0) {
-    const double cdf = 0.5 * std::erfc(-z / std::numbers::sqrt2);
-    log_cdf = std::log(cdf);
-    psi = std::exp(-0.5 * z * z - 0.5 * kLog2Pi - log_cdf);
-    z_plus_psi = z + psi;
-    return;
-  }
-  const double u = 1.0 / (z * z);
-  // S - 1 = sum_k (-1)^k (2k - 1)!! u^k, k = 1..6
-  const double s_minus_1 = u * (-1.0 + u * (3.0 + u * (-15.0 + u * (105.0 + u * (-945.0 + u * 10395.0)))));
-  const double S = 1.0 + s_minus_1;
-  log_cdf = -0.5 * z * z - std::log(-z) - 0.5 * kLog2Pi + std::log(S);
-  psi = -z / S;
-  z_plus_psi = z * s_minus_1 / S;
-}
-
 // The mu integral of a parallax star's component (see hierarchical.hpp), whose magnitude
 // term is `mag` (GaussianMagnitude or BlendMagnitude). m_shift: the model's apparent
 // magnitude less mu (M, or M - shift for the outlier component).
@@ -559,122 +538,6 @@ std::vector<int> free_parameters(const FitSettings& s, const ParameterLayout& L)
 
 }  // namespace
 
-namespace {
-std::vector<double> rough_moduli(const FitData& d) {
-  // A line M(x) through the stars with good parallaxes; their moduli from the parallax, the
-  // others' from the line.
-  std::vector<double> mu(static_cast<std::size_t>(d.parallax.size()), std::numeric_limits<double>::quiet_NaN());
-  double n = 0, sx = 0, sy = 0, sxx = 0, sxy = 0;
-  for (Eigen::Index i = 0; i < d.parallax.size(); ++i) {
-    if (!(d.plx[i] > 0 && d.plx[i] * d.plx[i] > 25.0 * d.var_plx[i])) continue;
-    mu[static_cast<std::size_t>(i)] = 10.0 - 5.0 * std::log10(d.plx[i]);
-    const double x = d.parallax.x[i], y = d.parallax.m0[i] - mu[static_cast<std::size_t>(i)];
-    n += 1, sx += x, sy += y, sxx += x * x, sxy += x * y;
-  }
-  const double den = n * sxx - sx * sx;
-  const double beta = n > 2 && std::abs(den) > 1e-12 ? (n * sxy - sx * sy) / den : -3.0;
-  const double alpha = n > 0 ? (sy - beta * sx) / n : -4.0;
-  for (Eigen::Index i = 0; i < d.parallax.size(); ++i)
-    if (!std::isfinite(mu[static_cast<std::size_t>(i)]))
-      mu[static_cast<std::size_t>(i)] = d.parallax.m0[i] - alpha - beta * d.parallax.x[i];
-  return mu;
-}
-}  // namespace
-
-int histogram_grid(const FitData& data, HierarchicalSettings& settings) {
-  std::vector<double> mu = rough_moduli(data);
-  std::erase_if(mu, [](double v) { return !std::isfinite(v); });
-  if (mu.empty()) return 2;
-  std::sort(mu.begin(), mu.end());
-  // The 0.5% and 99.5% points: one wild star does not stretch the grid.
-  const double lo = mu[static_cast<std::size_t>(0.005 * static_cast<double>(mu.size() - 1))] - settings.histogram_margin;
-  const double hi = mu[static_cast<std::size_t>(0.995 * static_cast<double>(mu.size() - 1))] + settings.histogram_margin;
-  double step = settings.histogram_step;
-  while ((hi - lo) / step + 1 > 30) step *= 1.25;
-  settings.histogram_step = step;
-  settings.histogram_start = lo;
-  return static_cast<int>(std::ceil((hi - lo) / step)) + 1;
-}
-
-BlendDensity blend_log_density(double r, double var, double scale) {
-  const double lambda = 1.0 / scale, sd = std::sqrt(var);
-  const double z = -(r + lambda * var) / sd;
-  double log_cdf = 0, psi = 0, z_plus_psi = 0;
-  normal_log_cdf(z, log_cdf, psi, z_plus_psi);
-  BlendDensity b;
-  b.log_density = -std::log(scale) + lambda * r + 0.5 * lambda * lambda * var + log_cdf;
-  b.d_r = lambda - psi / sd;
-  b.d2_r = -psi * z_plus_psi / var;
-  b.d_var = 0.5 * lambda * lambda + psi * (r / var - lambda) / (2.0 * sd);
-  b.d_scale = -lambda * lambda * (scale + r + lambda * var - psi * sd);
-  return b;
-}
-
-namespace {
-
-// Far in the lower tail (x = -z > 5) A = z + psi and B = 1 - psi A cancel to 1/x and 1/x^2
-// of terms near x, losing x^2 of erfc's relative accuracy (4e-11 in ln A at z = -30).
-// Laplace's continued fraction for the Mills ratio (e.g. Abramowitz & Stegun 26.2.14,
-// evaluated backwards) gives them without a difference: with C_k = x + k / C_(k+1),
-// psi = C_1, A = 1 / C_2 and B = (2 / C_3 - 1 / C_2) / C_2. 80 levels: converged to
-// rounding for x >= 5.
-void mean_excess_far_tail(double x, double& psi, double& a, double& b) {
-  double c = x, c3 = x, c2 = x;
-  for (int k = 80; k >= 1; --k) {
-    c = x + k / c;
-    if (k == 3) c3 = c;
-    if (k == 2) c2 = c;
-  }
-  psi = c, a = 1.0 / c2, b = (2.0 / c3 - 1.0 / c2) / c2;
-}
-
-}  // namespace
-
-BlendDensity blend_rising_log_density(double r, double var, double mean) {
-  const double theta = 0.5 * mean, lambda = 1.0 / theta, sd = std::sqrt(var);
-  const BlendDensity e = blend_log_density(r, var, theta);
-  const double z = -(r + lambda * var) / sd;
-  double log_cdf = 0, psi = 0, a = 0;
-  normal_log_cdf(z, log_cdf, psi, a);
-  double b = 1.0 - psi * a;
-  if (z < -5.0) mean_excess_far_tail(-z, psi, a, b);
-  const double h1 = b / a, h2 = (psi * (a * a - b) * a - b * b) / (a * a);
-  BlendDensity d;
-  d.log_density = e.log_density + std::log(lambda * sd) + std::log(a);
-  d.d_r = e.d_r - h1 / sd;
-  d.d2_r = e.d2_r + h2 / var;
-  d.d_var = e.d_var + 0.5 / var + h1 * (r / var - lambda) / (2.0 * sd);
-  d.d_scale = 0.5 * (e.d_scale - lambda + h1 * lambda * lambda * sd);
-  return d;
-}
-
-void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights) {
-  // The Jacobi matrix of the Hermite polynomials: zero diagonal, off-diagonal sqrt(k / 2).
-  Eigen::MatrixXd J = Eigen::MatrixXd::Zero(n, n);
-  for (int k = 1; k < n; ++k) J(k, k - 1) = J(k - 1, k) = std::sqrt(0.5 * k);
-  Eigen::SelfAdjointEigenSolver<Eigen::MatrixXd> es(J);
-  nodes.resize(static_cast<std::size_t>(n));
-  weights.resize(static_cast<std::size_t>(n));
-  // The weights not from the eigenvectors (sqrt(pi) v_0k^2): those are accurate only to about
-  // 1e-16 absolute, so the outer weights of a rule with more than ~30 nodes (true values down
-  // to 1e-100) come out as rounding noise, which multiplied by exp(x^2) swamps integrands
-  // wider than the rule's Gaussian. Instead the Christoffel numbers w_k = 1 / sum_j<n
-  // phi_j(x_k)^2, with the orthonormal Hermite polynomials phi_0 = pi^(-1/4),
-  // phi_1 = sqrt(2) x phi_0, phi_(j+1) = sqrt(2 / (j + 1)) x phi_j - sqrt(j / (j + 1)) phi_(j-1)
-  // (e.g. Gautschi 2004, Orthogonal Polynomials, section 1.4), accurate to rounding relative.
-  for (int k = 0; k < n; ++k) {
-    const double x = es.eigenvalues()[k];
-    double prev = 0.0, phi = std::pow(std::numbers::pi, -0.25), sum = phi * phi;
-    for (int j = 0; j + 1 < n; ++j) {
-      const double next = std::sqrt(2.0 / (j + 1)) * x * phi - std::sqrt(static_cast<double>(j) / (j + 1)) * prev;
-      prev = phi, phi = next;
-      sum += phi * phi;
-    }
-    nodes[static_cast<std::size_t>(k)] = x;
-    weights[static_cast<std::size_t>(k)] = 1.0 / sum;
-  }
-}
-
 HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
                                      const Eigen::VectorXd& theta) {
   Evaluator e(data, settings, layout);
@@ -780,52 +643,6 @@ Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& s
   Eigen::ArrayXd q = Eigen::ArrayXd::Ones(data.stars());
   e.evaluate(internal_of(layout, theta), nullptr, &q);
   return q;
-}
-
-void hierarchical_start(const FitData& d, const FitSettings& s, const ParameterLayout& L, Eigen::VectorXd& t) {
-  if (L.outlier >= 0) t[L.outlier] = 0.02;
-  if (L.outlier_shift >= 0) t[L.outlier_shift] = s.hierarchical.outlier_mag_shift;
-  if (L.outlier_width >= 0) t[L.outlier_width] = s.hierarchical.outlier_mag_width;
-  if (L.blend >= 0) t[L.blend] = 0.02, t[L.blend_scale] = s.params[static_cast<std::size_t>(L.blend_scale)].value;
-  if (L.distance_scale >= 0) {
-    // The space-density prior's mean distance is 3 L: start there from the photometric distances.
-    double sum = 0;
-    int n = 0;
-    for (Eigen::Index i = 0; i < d.parallax.size(); ++i) {
-      const double M = t[L.alpha] + t[L.beta] * d.parallax.x[i];
-      const double dist = std::pow(10.0, 0.2 * (d.parallax.m0[i] - M) - 2.0);
-      if (std::isfinite(dist) && dist > 0 && dist < 1e3) sum += dist, ++n;
-    }
-    t[L.distance_scale] = n ? std::max(sum / n / 3.0, 0.01) : 1.0;
-    t[L.distance_power] = 2.0;
-    t[L.distance_exponent] = 1.0;
-  }
-  if (L.distance_bin0 >= 0) {
-    // Log-weights from the count of rough distance moduli per bin.
-    std::vector<double> count(static_cast<std::size_t>(L.distance_bins + 1), 0.5);
-    for (double mu : rough_moduli(d)) {
-      const long j = std::lround((mu - s.hierarchical.histogram_start) / s.hierarchical.histogram_step);
-      if (j >= 0 && j < static_cast<long>(count.size())) count[static_cast<std::size_t>(j)] += 1.0;
-    }
-    for (int j = 1; j <= L.distance_bins; ++j)
-      t[L.distance_bin0 + j - 1] = std::log(count[static_cast<std::size_t>(j)] / count[0]);
-  }
-  if (L.feh_mean >= 0) {
-    double sum = 0, sum2 = 0, err2 = 0;
-    int n = 0;
-    for (const FitData::Common* c : {&d.parallax, &d.known, &d.anchor})
-      for (Eigen::Index i = 0; i < c->size(); ++i) {
-        sum += c->feh[i], sum2 += c->feh[i] * c->feh[i], ++n;
-        err2 += c->var_feh.size() ? c->var_feh[i] : 0.0;
-      }
-    const double mean = n ? sum / n : 0.0, var = n ? sum2 / n - mean * mean - err2 / n : 0.0;
-    t[L.feh_mean] = mean;
-    t[L.feh_spread] = std::sqrt(std::max(var, 0.05 * 0.05));
-  }
-  for (int j = 0; j < L.size; ++j) {
-    const ParamSpec& p = s.params[static_cast<std::size_t>(j)];
-    if (p.mode != ParamMode::kFree || p.has_start) t[j] = p.value;
-  }
 }
 
 }  // namespace rungcal

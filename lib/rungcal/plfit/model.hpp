@@ -137,14 +137,14 @@ enum class BlendComponent {
   kNone,         // no such component: blends are left to the broad outlier component
   // A magnitude brighter than a member's by b ~ Exp(mean s), s = blend_scale_mag fitted:
   // the member Gaussian convolved with a one-sided exponential, the exponentially modified
-  // Gaussian (Grushka 1972, Anal. Chem. 44, 1733), closed form in erfc (hierarchical.hpp).
+  // Gaussian (Grushka 1972, Anal. Chem. 44, 1733), closed form in erfc (blend_density.hpp).
   // Parallax as a member's. Its density peaks at the start and so reaches into the members'
   // bright tail (sigma_int low: docs/method.md).
   kExponential,
   // A brightening b ~ Gamma(shape 2, mean s) instead: its density rises from zero at the
   // start, so the component claims no members' bright tail, and falls exponentially
   // (a companion of comparable light is likelier than a barely-there one). Closed form in
-  // phi and Phi (blend_rising_log_density in hierarchical.hpp). The default: the
+  // phi and Phi (blend_rising_log_density in blend_density.hpp). The default: the
   // simulation study in docs/method.md.
   kRising,
 };

@@ -1,0 +1,106 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/plfit/blend_density: the blend components' densities against their
+// definitions (numerical convolutions), their moments, derivatives and log-concavity.
+#include "rungcal/plfit/blend_density.hpp"
+
+#include <gtest/gtest.h>
+
+#include <algorithm>
+#include <cmath>
+#include <numbers>
+#include <utility>
+
+namespace rungcal {
+namespace {
+
+// A blend density's exact derivatives against central differences (step 1e-5), and
+// d2/dr2 < 0 (log-concave); tol_d2 for d2/dr2, whose differences are of a derivative.
+void expect_derivatives_and_log_concavity(BlendDensity (*density)(double, double, double), double r,
+                                          double var, double scale, double tol_d2) {
+  const BlendDensity b = density(r, var, scale);
+  const double h = 1e-5;
+  auto at = [&](double dr, double dv, double ds) { return density(r + dr, var + dv, scale + ds); };
+  EXPECT_NEAR(b.d_r, (at(h, 0, 0).log_density - at(-h, 0, 0).log_density) / (2 * h),
+              1e-6 * std::max(1.0, std::abs(b.d_r)))
+      << r;
+  EXPECT_NEAR(b.d2_r, (at(h, 0, 0).d_r - at(-h, 0, 0).d_r) / (2 * h),
+              tol_d2 * std::max(1.0, std::abs(b.d2_r)))
+      << r;
+  EXPECT_NEAR(b.d_var, (at(0, h, 0).log_density - at(0, -h, 0).log_density) / (2 * h),
+              1e-5 * std::max(1.0, std::abs(b.d_var)))
+      << r;
+  EXPECT_NEAR(b.d_scale, (at(0, 0, h).log_density - at(0, 0, -h).log_density) / (2 * h),
+              1e-6 * std::max(1.0, std::abs(b.d_scale)))
+      << r;
+  EXPECT_LT(b.d2_r, 0.0) << "log-concave at " << r;
+}
+
+TEST(BlendDensity, ExponentialDensityIsTheConvolutionOfTheMemberGaussianWithAnExponential) {
+  for (auto [var, scale] : {std::pair{0.04, 0.5}, std::pair{0.0064, 0.3}, std::pair{0.09, 0.05}}) {
+    for (double r : {-2.0, -0.6, -0.1, 0.0, 0.15, 0.5}) {
+      double sum = 0;
+      const double db = 1e-4;
+      for (double b = 0.5 * db; b < 40 * scale + 20 * std::sqrt(var); b += db)
+        sum += std::exp(-b / scale) / scale * std::exp(-0.5 * (r + b) * (r + b) / var) /
+               std::sqrt(2 * std::numbers::pi * var) * db;
+      EXPECT_NEAR(std::exp(blend_log_density(r, var, scale).log_density), sum,
+                  2e-6 * std::max(1.0, sum))
+          << r;
+    }
+    double total = 0;
+    for (double r = -40; r < 5; r += 1e-4)
+      total += std::exp(blend_log_density(r, var, scale).log_density) * 1e-4;
+    EXPECT_NEAR(total, 1.0, 1e-6) << var << " " << scale;
+  }
+  const double var = 0.04, scale = 0.5, sd = 0.2;
+  const double r_switch = 30.0 * sd - var / scale;  // z = -30
+  for (double r : {-3.0, -0.2, 0.3, 2.0, r_switch - 0.05, r_switch + 0.05, 12.0})
+    expect_derivatives_and_log_concavity(blend_log_density, r, var, scale, 1e-6);
+  const BlendDensity below = blend_log_density(r_switch - 1e-9, var, scale);
+  EXPECT_NEAR(blend_log_density(r_switch + 1e-9, var, scale).log_density - below.log_density,
+              2e-9 * below.d_r, 1e-12);
+}
+
+// The rising blend density against its definition, the convolution of N(0, V) with a
+// Gamma(shape 2, mean s) brightening: int_0^inf b exp(-b / t) / t^2 N(r + b | 0, V) db,
+// t = s / 2, by the midpoint rule; normalised; its mean brightening is s (the first moment
+// of -r); derivatives against central differences on both sides of the asymptotic series
+// (z = -30) and continuous across it; log-concave.
+TEST(BlendDensity, RisingDensityIsTheConvolutionOfTheMemberGaussianWithAGamma2) {
+  for (auto [var, mean] : {std::pair{0.04, 0.5}, std::pair{0.0064, 0.3}, std::pair{0.09, 0.1}}) {
+    const double t = 0.5 * mean;
+    for (double r : {-2.0, -0.6, -0.1, 0.0, 0.15, 0.5}) {
+      double sum = 0;
+      const double db = 1e-4;
+      for (double b = 0.5 * db; b < 60 * t + 20 * std::sqrt(var); b += db)
+        sum += b * std::exp(-b / t) / (t * t) * std::exp(-0.5 * (r + b) * (r + b) / var) /
+               std::sqrt(2 * std::numbers::pi * var) * db;
+      EXPECT_NEAR(std::exp(blend_rising_log_density(r, var, mean).log_density), sum,
+                  2e-6 * std::max(1.0, sum))
+          << r;
+    }
+    double total = 0, first = 0;
+    for (double r = -40; r < 5; r += 1e-4) {
+      const double p = std::exp(blend_rising_log_density(r, var, mean).log_density) * 1e-4;
+      total += p, first -= r * p;
+    }
+    EXPECT_NEAR(total, 1.0, 1e-6) << var << " " << mean;
+    EXPECT_NEAR(first, mean, 1e-5) << var << " " << mean;
+  }
+  const double var = 0.04, mean = 0.5, sd = 0.2;
+  const double r_switch = 30.0 * sd - var / (0.5 * mean);  // z = -30
+  for (double r : {-3.0, -0.2, 0.3, 0.95, 1.05, 2.0, r_switch - 0.05, r_switch + 0.05, 12.0})
+    expect_derivatives_and_log_concavity(blend_rising_log_density, r, var, mean, 1e-5);
+  // Continuous where the erfc form hands over to the continued fraction (z = -5) and the
+  // Phi series to its asymptotic one (z = -30).
+  for (double z_switch : {-5.0, -30.0}) {
+    const double r_at = -z_switch * sd - var / (0.5 * mean);
+    const BlendDensity below = blend_rising_log_density(r_at - 1e-9, var, mean);
+    const BlendDensity above = blend_rising_log_density(r_at + 1e-9, var, mean);
+    EXPECT_NEAR(above.log_density - below.log_density, 2e-9 * below.d_r, 1e-12) << z_switch;
+    EXPECT_NEAR(above.d_r - below.d_r, 2e-9 * below.d2_r, 1e-10) << z_switch;
+  }
+}
+
+}  // namespace
+}  // namespace rungcal
