@@ -35,6 +35,10 @@ void expect_derivatives_and_log_concavity(BlendDensity (*density)(double, double
   EXPECT_LT(b.d2_r, 0.0) << "log-concave at " << r;
 }
 
+// The blend component's density against its definition, the convolution of N(0, V) with a
+// one-sided exponential brightening: int_0^inf (1/s) exp(-b/s) N(r + b | 0, V) db by the
+// midpoint rule; normalised; its derivatives against central differences, on both sides of
+// the switch to the asymptotic series (z = -30) and continuous across it.
 TEST(BlendDensity, ExponentialDensityIsTheConvolutionOfTheMemberGaussianWithAnExponential) {
   for (auto [var, scale] : {std::pair{0.04, 0.5}, std::pair{0.0064, 0.3}, std::pair{0.09, 0.05}}) {
     for (double r : {-2.0, -0.6, -0.1, 0.0, 0.15, 0.5}) {

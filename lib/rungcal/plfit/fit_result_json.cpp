@@ -188,7 +188,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     r["warnings"] = rr.warnings;
     r["undetermined"] = rr.undetermined;
     if (rr.layout.distance_bin0 >= 0)
-      r["distance_prior_grid"] = {{"first_modulus", rr.settings.hierarchical.histogram_start},
+      r["distance_prior_grid"] = {{"first_modulus", histogram_start_at(rr.settings.hierarchical, rr.parameter("alpha"))},
                                   {"step_mag", rr.settings.hierarchical.histogram_step},
                                   {"bins", rr.layout.distance_bins + 1}};
     out["relations"].push_back(r);
@@ -266,7 +266,7 @@ std::string fit_summary(const FitResult& result) {
       out += fmt::format(
           "  distance prior: smooth histogram, {} bins of {:.2f} mag from mu = {:.2f}\n",
           rr.layout.distance_bins + 1, rr.settings.hierarchical.histogram_step,
-          rr.settings.hierarchical.histogram_start);
+          histogram_start_at(rr.settings.hierarchical, rr.parameter("alpha")));
     for (int j = 0; j < rr.layout.size; ++j) {
       const std::string& name = rr.layout.names[j];
       if (j >= rr.layout.distance_bin0 && j < rr.layout.distance_bin0 + rr.layout.distance_bins)

@@ -105,6 +105,7 @@ const Quadrature& quadrature(int n) {
 struct Component {
   double log_l = 0, d_m = 0, d_v = 0, d_off = 0, d_log_scale = 0, d_power = 0, d_exponent = 0;
   double d_blend_scale = 0;  // the blend component's only
+  double d_prior_mu = 0;     // E[d ln p(mu) / d mu]: the histogram grid moves with alpha
 };
 
 // A component's magnitude term at one residual r = m - mu - M: ln p(r) (normalised) and its
@@ -189,7 +190,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   double terms[128];
   double top = -std::numeric_limits<double>::infinity();
   Component c;
-  double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, s_b = 0, total = 0;
+  double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, s_b = 0, s_p = 0, total = 0;
   double e_of[128];
   MagnitudePoint mp_of[128];
   DistancePriorTerms pr_of[128];
@@ -217,6 +218,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     s_l += w * pr_of[k].d_log_scale;
     s_k += w * pr_of[k].d_power;
     s_a += w * pr_of[k].d_exponent;
+    s_p += w * pr_of[k].d_mu;
   }
   const double inv = 1.0 / total;
   if (prior.histogram && d_bins) {
@@ -236,6 +238,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   c.d_log_scale = s_l * inv;
   c.d_power = s_k * inv;
   c.d_exponent = s_a * inv;
+  c.d_prior_mu = s_p * inv;
   return c;
 }
 
@@ -296,8 +299,8 @@ class Evaluator {
       prior = DistancePriorShape::make(t[L_.distance_scale], t[L_.distance_power], t[L_.distance_exponent]);
     const auto H = static_cast<std::size_t>(L_.distance_bins);
     if (L_.distance_bin0 >= 0)
-      prior = DistancePriorShape::make_histogram(h.histogram_start, h.histogram_step, t.data() + L_.distance_bin0,
-                                                 L_.distance_bins + 1);
+      prior = DistancePriorShape::make_histogram(histogram_start_at(h, alpha), h.histogram_step,
+                                                 t.data() + L_.distance_bin0, L_.distance_bins + 1);
     bins_member_.assign(H, 0.0), bins_outlier_.assign(H, 0.0), bins_blend_.assign(H, 0.0);
     const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
     const double wide = width * width, shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
@@ -387,6 +390,7 @@ class Evaluator {
           g.log_scale += w * mix(&Component::d_log_scale);
           g.power += w * mix(&Component::d_power);
           g.exponent += w * mix(&Component::d_exponent);
+          if (L_.distance_bin0 >= 0 && h.histogram_follows_alpha) g.alpha += w * mix(&Component::d_prior_mu);
           for (std::size_t j = 0; j < H; ++j)
             g.bins[j] += w * (q * bins_member_[j] + (mixture_ ? q_out * bins_outlier_[j] : 0.0) +
                               (blends_ ? q_blend * bins_blend_[j] : 0.0));

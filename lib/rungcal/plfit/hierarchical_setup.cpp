@@ -13,7 +13,7 @@
 namespace rungcal {
 
 namespace {
-std::vector<double> rough_moduli(const FitData& d) {
+std::vector<double> rough_moduli(const FitData& d, double* line_alpha = nullptr) {
   // A line M(x) through the stars with good parallaxes; their moduli from the parallax, the
   // others' from the line.
   std::vector<double> mu(static_cast<std::size_t>(d.parallax.size()),
@@ -28,6 +28,7 @@ std::vector<double> rough_moduli(const FitData& d) {
   const double den = n * sxx - sx * sx;
   const double beta = n > 2 && std::abs(den) > 1e-12 ? (n * sxy - sx * sy) / den : -3.0;
   const double alpha = n > 0 ? (sy - beta * sx) / n : -4.0;
+  if (line_alpha) *line_alpha = alpha;
   for (Eigen::Index i = 0; i < d.parallax.size(); ++i)
     if (!std::isfinite(mu[static_cast<std::size_t>(i)]))
       mu[static_cast<std::size_t>(i)] = d.parallax.m0[i] - alpha - beta * d.parallax.x[i];
@@ -37,7 +38,9 @@ std::vector<double> rough_moduli(const FitData& d) {
 }  // namespace
 
 int histogram_grid(const FitData& data, HierarchicalSettings& settings) {
-  std::vector<double> mu = rough_moduli(data);
+  double line_alpha = 0;
+  std::vector<double> mu = rough_moduli(data, &line_alpha);
+  settings.histogram_alpha_ref = line_alpha;
   std::erase_if(mu, [](double v) { return !std::isfinite(v); });
   if (mu.empty()) return 2;
   std::sort(mu.begin(), mu.end());
@@ -51,6 +54,11 @@ int histogram_grid(const FitData& data, HierarchicalSettings& settings) {
   settings.histogram_step = step;
   settings.histogram_start = lo;
   return static_cast<int>(std::ceil((hi - lo) / step)) + 1;
+}
+
+double histogram_start_at(const HierarchicalSettings& settings, double alpha) {
+  return settings.histogram_follows_alpha ? settings.histogram_start - (alpha - settings.histogram_alpha_ref)
+                                          : settings.histogram_start;
 }
 
 void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights) {
@@ -106,7 +114,7 @@ void hierarchical_start(const FitData& d, const FitSettings& s, const ParameterL
     std::vector<double> count(static_cast<std::size_t>(L.distance_bins + 1), 0.5);
     for (double mu : rough_moduli(d)) {
       const long j =
-          std::lround((mu - s.hierarchical.histogram_start) / s.hierarchical.histogram_step);
+          std::lround((mu - histogram_start_at(s.hierarchical, t[L.alpha])) / s.hierarchical.histogram_step);
       if (j >= 0 && j < static_cast<long>(count.size())) count[static_cast<std::size_t>(j)] += 1.0;
     }
     for (int j = 1; j <= L.distance_bins; ++j)

@@ -177,6 +177,13 @@ struct HierarchicalSettings {
   // layout's (ModelTerms::distance_bins). Placed over the data by histogram_grid().
   double histogram_start = 8.0;
   double histogram_step = 0.5;
+  // The grid moves with alpha: centres c_0 - (alpha - histogram_alpha_ref) + j h. With
+  // precise magnitudes the stars' moduli move rigidly with alpha, and a fixed grid fits a
+  // sharp edge of their distribution better at some shifts than others, which then pulls
+  // alpha (docs/method.md: up to 4 errors with weak parallaxes). A grid that moves with
+  // alpha keeps that fit the same for every alpha. ref: the alpha the grid was placed for.
+  bool histogram_follows_alpha = true;
+  double histogram_alpha_ref = 0.0;
   double histogram_walk_sigma = kHistogramWalkSigma;  // random-walk hyperprior step of the log-weights
   double histogram_margin = kHistogramMargin;         // grid beyond the data's 0.5-99.5% range (mag)
 };
