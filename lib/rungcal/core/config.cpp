@@ -166,15 +166,20 @@ std::optional<std::vector<double>> ConfigSection::get_number_list(const std::str
   if (!n) return std::nullopt;
   const auto* arr = n->as_array();
   if (!arr) fail(key, fmt::format("must be a list of numbers, not {}", toml_type_name(*n)));
+  return numbers_of(*arr, key, "");
+}
+
+std::vector<double> ConfigSection::numbers_of(const toml::array& arr, const std::string& key,
+                                              const std::string& where) const {
   std::vector<double> out;
-  for (const auto& el : *arr) {
+  for (const auto& el : arr) {
     if (el.is_integer()) out.push_back(static_cast<double>(el.as_integer()->get()));
     else if (el.is_floating_point() && std::isfinite(el.as_floating_point()->get()))
       out.push_back(el.as_floating_point()->get());
     else if (el.is_floating_point())
-      fail(key, fmt::format("every element must be a finite number, not {}",
+      fail(key, fmt::format("{}every element must be a finite number, not {}", where,
                             el.as_floating_point()->get()));
-    else fail(key, "every element must be a number");
+    else fail(key, where + "every element must be a number");
   }
   return out;
 }
@@ -188,13 +193,7 @@ std::optional<std::vector<std::vector<double>>> ConfigSection::get_number_rows(c
   for (const auto& row : *arr) {
     const auto* r = row.as_array();
     if (!r) fail(key, fmt::format("row {} must be a list of numbers", rows.size() + 1));
-    std::vector<double> out;
-    for (const auto& el : *r) {
-      if (el.is_integer()) out.push_back(static_cast<double>(el.as_integer()->get()));
-      else if (el.is_floating_point() && std::isfinite(el.as_floating_point()->get())) out.push_back(el.as_floating_point()->get());
-      else fail(key, fmt::format("row {}: every element must be a finite number", rows.size() + 1));
-    }
-    rows.push_back(std::move(out));
+    rows.push_back(numbers_of(*r, key, fmt::format("row {}: ", rows.size() + 1)));
   }
   return rows;
 }

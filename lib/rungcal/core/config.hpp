@@ -51,6 +51,8 @@ class ConfigSection {
 
  private:
   const toml::node* node(const std::string& key) const;
+  // The elements of a list of numbers; `where` prefixes the message ("row 2: ").
+  std::vector<double> numbers_of(const toml::array& arr, const std::string& key, const std::string& where) const;
   std::string key_path(const std::string& key) const;
   Config* config_;
   const toml::table* table_;

@@ -56,10 +56,7 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   js.loss_scale = o.loss_scale;
   js.scatter_correlation = o.joint_scatter_correlation;
   js.fixed.assign(L.size, false);
-  for (std::size_t g = 0; g < o.anchors.size(); ++g) {
-    const auto k = static_cast<Eigen::Index>(g);
-    js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_covariance.size() ? std::sqrt(o.anchor_covariance(k, k)) : o.anchors[g].mu_err);
-  }
+  for (std::size_t g = 0; g < o.anchors.size(); ++g) js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_prior_sigma(g));
   if (o.anchor_covariance.size()) js.anchor_correlation = correlation_of(o.anchor_covariance);
   if (o.offset.mode == ParamMode::kFixed) js.fixed[L.offset] = true;
   if (o.offset.mode == ParamMode::kPrior)

@@ -153,7 +153,7 @@ std::string FitOptions::check() const {
     if (std::string why = check_anchor_covariance(anchor_covariance, static_cast<int>(anchors.size())); !why.empty())
       return why;
     for (std::size_t g = 0; g < anchors.size(); ++g) {
-      const double diag = std::sqrt(anchor_covariance(static_cast<Eigen::Index>(g), static_cast<Eigen::Index>(g)));
+      const double diag = anchor_prior_sigma(g);
       if (anchors[g].mu_err > 0 && std::abs(anchors[g].mu_err - diag) > 0.01 * diag)
         return fmt::format("anchor.mu_err: {} differs from the square root of anchor_covariance's diagonal, {:.6g} ({})",
                            anchors[g].mu_err, diag, anchors[g].group);
@@ -163,6 +163,11 @@ std::string FitOptions::check() const {
   for (const auto& a : anchors)
     if (!(a.mu_err > 0)) return "anchor.mu_err: must be positive (" + a.group + ")";
   return "";
+}
+
+double FitOptions::anchor_prior_sigma(std::size_t g) const {
+  const auto k = static_cast<Eigen::Index>(g);
+  return anchor_covariance.size() ? std::sqrt(anchor_covariance(k, k)) : anchors[g].mu_err;
 }
 
 FitOptions fit_options_from_file(const std::string& path) {

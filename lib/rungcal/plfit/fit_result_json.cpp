@@ -78,11 +78,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                   {"scatter", {{"mode", std::string(kParamModeNames.name(o.scatter.mode))}, {"value", o.scatter.value}}},
                   {"anchors", [&] {
                      nlohmann::json a = nlohmann::json::array();
-                     for (std::size_t g = 0; g < o.anchors.size(); ++g) {
-                       const auto k = static_cast<Eigen::Index>(g);
-                       const double err = o.anchor_covariance.size() ? std::sqrt(o.anchor_covariance(k, k)) : o.anchors[g].mu_err;
-                       a.push_back({{"group", o.anchors[g].group}, {"mu", o.anchors[g].mu}, {"mu_err", err}});
-                     }
+                     for (std::size_t g = 0; g < o.anchors.size(); ++g)
+                       a.push_back({{"group", o.anchors[g].group}, {"mu", o.anchors[g].mu}, {"mu_err", o.anchor_prior_sigma(g)}});
                      return a;
                    }()},
                   {"anchor_covariance", [&] {

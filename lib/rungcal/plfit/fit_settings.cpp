@@ -57,11 +57,8 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
   if (L.gamma >= 0) s.params[L.gamma] = rel.gamma;
   s.params[L.offset] = o.offset;
   s.params[L.sigma] = o.scatter;
-  for (std::size_t g = 0; g < o.anchors.size(); ++g) {
-    const auto k = static_cast<Eigen::Index>(g);
-    const double sigma = o.anchor_covariance.size() ? std::sqrt(o.anchor_covariance(k, k)) : o.anchors[g].mu_err;
-    s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, sigma, true};
-  }
+  for (std::size_t g = 0; g < o.anchors.size(); ++g)
+    s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchor_prior_sigma(g), true};
   if (o.anchor_covariance.size()) s.anchor_prior_correlation = correlation_of(o.anchor_covariance);
   if (s.terms.hierarchical) {
     s.params[L.outlier] = o.outlier_fraction;

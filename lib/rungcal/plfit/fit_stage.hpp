@@ -98,6 +98,7 @@ struct FitOptions {
   // share systematics); empty: independent, each with its mu_err. When given, each anchor's
   // mu_err may be left out and is otherwise checked against the diagonal.
   Eigen::MatrixXd anchor_covariance;
+  double anchor_prior_sigma(std::size_t g) const;  // sqrt of the diagonal, else the anchor's mu_err
   std::string config_file, config_sha256;
   nlohmann::json resolved;               // the options as read, for the result file
 

@@ -390,7 +390,7 @@ class Evaluator {
           g.log_scale += w * mix(&Component::d_log_scale);
           g.power += w * mix(&Component::d_power);
           g.exponent += w * mix(&Component::d_exponent);
-          if (L_.distance_bin0 >= 0 && h.histogram_follows_alpha) g.alpha += w * mix(&Component::d_prior_mu);
+          if (L_.distance_bin0 >= 0) g.alpha += w * mix(&Component::d_prior_mu);
           for (std::size_t j = 0; j < H; ++j)
             g.bins[j] += w * (q * bins_member_[j] + (mixture_ ? q_out * bins_outlier_[j] : 0.0) +
                               (blends_ ? q_blend * bins_blend_[j] : 0.0));

@@ -74,7 +74,7 @@ void hierarchical_start(const FitData& data, const FitSettings& settings, const 
 // (at most 30; the step grows when the range needs more).
 int histogram_grid(const FitData& data, HierarchicalSettings& settings);
 
-// The histogram's first centre at alpha (HierarchicalSettings::histogram_follows_alpha).
+// The histogram's first centre at alpha: the grid moves with alpha (HierarchicalSettings).
 double histogram_start_at(const HierarchicalSettings& settings, double alpha);
 
 // Gauss-Hermite nodes x_k and weights w_k for int f(x) exp(-x^2) dx: the nodes by the

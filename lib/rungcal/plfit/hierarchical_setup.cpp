@@ -6,6 +6,7 @@
 #include <algorithm>
 #include <cmath>
 #include <limits>
+#include <numbers>
 #include <vector>
 
 #include <Eigen/Dense>
@@ -57,8 +58,7 @@ int histogram_grid(const FitData& data, HierarchicalSettings& settings) {
 }
 
 double histogram_start_at(const HierarchicalSettings& settings, double alpha) {
-  return settings.histogram_follows_alpha ? settings.histogram_start - (alpha - settings.histogram_alpha_ref)
-                                          : settings.histogram_start;
+  return settings.histogram_start - (alpha - settings.histogram_alpha_ref);
 }
 
 void gauss_hermite(int n, std::vector<double>& nodes, std::vector<double>& weights) {
@@ -113,8 +113,8 @@ void hierarchical_start(const FitData& d, const FitSettings& s, const ParameterL
     // Log-weights from the count of rough distance moduli per bin.
     std::vector<double> count(static_cast<std::size_t>(L.distance_bins + 1), 0.5);
     for (double mu : rough_moduli(d)) {
-      const long j =
-          std::lround((mu - histogram_start_at(s.hierarchical, t[L.alpha])) / s.hierarchical.histogram_step);
+      const long j = std::lround((mu - histogram_start_at(s.hierarchical, t[L.alpha])) /
+                                 s.hierarchical.histogram_step);
       if (j >= 0 && j < static_cast<long>(count.size())) count[static_cast<std::size_t>(j)] += 1.0;
     }
     for (int j = 1; j <= L.distance_bins; ++j)

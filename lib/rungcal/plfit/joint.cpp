@@ -9,7 +9,7 @@
 
 #include <vector>
 
-#include <Eigen/Cholesky>
+#include "rungcal/plfit/priors.hpp"
 
 namespace rungcal {
 namespace {
@@ -95,10 +95,8 @@ void add_anchor_priors(ceres::Problem& problem, const JointSettings& s, const Jo
   Eigen::VectorXd mean(n), sigma(n);
   for (Eigen::Index g = 0; g < n; ++g)
     mean[g] = s.anchor_priors[static_cast<std::size_t>(g)].first, sigma[g] = s.anchor_priors[static_cast<std::size_t>(g)].second;
-  const Eigen::MatrixXd R = s.anchor_correlation.rows() == n ? s.anchor_correlation : Eigen::MatrixXd::Identity(n, n);
-  const Eigen::MatrixXd C = sigma.asDiagonal() * R * sigma.asDiagonal();
-  Eigen::MatrixXd W = Eigen::LLT<Eigen::MatrixXd>(C).matrixL().solve(Eigen::MatrixXd::Identity(n, n));
-  auto* prior = new ceres::DynamicAutoDiffCostFunction<AnchorPriors, 8>(new AnchorPriors{L.anchor0, mean, W});
+  auto* prior = new ceres::DynamicAutoDiffCostFunction<AnchorPriors, 8>(
+      new AnchorPriors{L.anchor0, mean, prior_whitener(sigma, s.anchor_correlation)});
   prior->AddParameterBlock(L.size);
   prior->SetNumResiduals(static_cast<int>(n));
   problem.AddResidualBlock(prior, nullptr, t);

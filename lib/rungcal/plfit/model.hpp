@@ -181,8 +181,7 @@ struct HierarchicalSettings {
   // precise magnitudes the stars' moduli move rigidly with alpha, and a fixed grid fits a
   // sharp edge of their distribution better at some shifts than others, which then pulls
   // alpha (docs/method.md: up to 4 errors with weak parallaxes). A grid that moves with
-  // alpha keeps that fit the same for every alpha. ref: the alpha the grid was placed for.
-  bool histogram_follows_alpha = true;
+  // alpha keeps that fit the same for every alpha. The alpha the grid was placed for:
   double histogram_alpha_ref = 0.0;
   double histogram_walk_sigma = kHistogramWalkSigma;  // random-walk hyperprior step of the log-weights
   double histogram_margin = kHistogramMargin;         // grid beyond the data's 0.5-99.5% range (mag)

@@ -17,13 +17,19 @@ bool is_anchor(const FitSettings& s, const ParameterLayout& L, int j) {
   return correlated_anchors(s) && j >= L.anchor0 && j < L.anchor0 + s.terms.n_anchors;
 }
 
-// The anchors' prior covariance C = S R S (anchor order).
-Eigen::MatrixXd anchor_covariance(const FitSettings& s, const ParameterLayout& L) {
-  const int n = s.terms.n_anchors;
-  Eigen::VectorXd sigma(n);
-  for (int g = 0; g < n; ++g)
+// The anchors' prior sigmas (anchor order).
+Eigen::VectorXd anchor_sigmas(const FitSettings& s, const ParameterLayout& L) {
+  Eigen::VectorXd sigma(s.terms.n_anchors);
+  for (int g = 0; g < s.terms.n_anchors; ++g)
     sigma[g] = s.params[static_cast<std::size_t>(L.anchor0 + g)].prior_sigma;
-  return sigma.asDiagonal() * s.anchor_prior_correlation * sigma.asDiagonal();
+  return sigma;
+}
+
+// C = S R S, R empty: the identity.
+Eigen::MatrixXd covariance_of(const Eigen::VectorXd& sigma, const Eigen::MatrixXd& R) {
+  const Eigen::Index n = sigma.size();
+  const Eigen::MatrixXd corr = R.rows() == n ? R : Eigen::MatrixXd::Identity(n, n);
+  return sigma.asDiagonal() * corr * sigma.asDiagonal();
 }
 
 }  // namespace
@@ -37,9 +43,7 @@ std::vector<PriorRow> prior_rows(const FitSettings& s, const ParameterLayout& L)
   }
   if (!correlated_anchors(s)) return rows;
   const int n = s.terms.n_anchors;
-  const Eigen::MatrixXd C = anchor_covariance(s, L);
-  const Eigen::MatrixXd Linv =
-      Eigen::LLT<Eigen::MatrixXd>(C).matrixL().solve(Eigen::MatrixXd::Identity(n, n));
+  const Eigen::MatrixXd Linv = prior_whitener(anchor_sigmas(s, L), s.anchor_prior_correlation);
   for (int k = 0; k < n; ++k) {
     PriorRow row;
     for (int g = 0; g <= k; ++g) {
@@ -69,11 +73,20 @@ void redraw_prior_centres(FitSettings& s, const ParameterLayout& L, Random& rng)
   }
   if (!correlated_anchors(s)) return;
   const int n = s.terms.n_anchors;
-  const Eigen::MatrixXd lower = Eigen::LLT<Eigen::MatrixXd>(anchor_covariance(s, L)).matrixL();
+  const Eigen::MatrixXd lower =
+      Eigen::LLT<Eigen::MatrixXd>(covariance_of(anchor_sigmas(s, L), s.anchor_prior_correlation))
+          .matrixL();
   Eigen::VectorXd x(n);
   for (int g = 0; g < n; ++g) x[g] = rng.normal();
   const Eigen::VectorXd shift = lower * x;
   for (int g = 0; g < n; ++g) s.params[static_cast<std::size_t>(L.anchor0 + g)].value += shift[g];
+}
+
+Eigen::MatrixXd prior_whitener(const Eigen::VectorXd& sigma, const Eigen::MatrixXd& correlation) {
+  const Eigen::Index n = sigma.size();
+  return Eigen::LLT<Eigen::MatrixXd>(covariance_of(sigma, correlation))
+      .matrixL()
+      .solve(Eigen::MatrixXd::Identity(n, n));
 }
 
 std::string check_anchor_covariance(const Eigen::MatrixXd& C, int n) {

@@ -34,6 +34,10 @@ void redraw_prior_centres(FitSettings& settings, const ParameterLayout& layout, 
 // rule: square n x n, symmetric, positive diagonal, positive definite.
 std::string check_anchor_covariance(const Eigen::MatrixXd& covariance, int n_anchors);
 
+// W = L^-1 with L L^T = S R S (S = diag(sigma); an empty R: independent): W (mu - c) are
+// the whitened residuals of a joint Gaussian prior.
+Eigen::MatrixXd prior_whitener(const Eigen::VectorXd& sigma, const Eigen::MatrixXd& correlation);
+
 // R = D^-1 C D^-1 with D = sqrt(diag C); C must have passed check_anchor_covariance.
 Eigen::MatrixXd correlation_of(const Eigen::MatrixXd& covariance);
 
