@@ -24,6 +24,16 @@ void apply_relation_preset(const std::string& name, rungcal::MockScenario& s) {
   }
 }
 
+// The joint study's further relations of the same stars (invented truths of V-, I- and
+// K-like bands, for simulations only), the first n - 1 of them.
+std::vector<rungcal::MockRelation> joint_relations(int n) {
+  const std::vector<rungcal::MockRelation> all = {
+      {"V", -3.9, -2.4, -0.2, 0.20, 3.1}, {"I", -4.8, -2.9, -0.2, 0.14, 1.9}, {"K", -5.7, -3.2, -0.2, 0.09, 0.35}};
+  if (n < 0 || n == 1 || n > 4)
+    throw rungcal::InputError({"--joint", {}, {}}, "config_value", "must be 0 (one relation) or 2 to 4");
+  return {all.begin(), all.begin() + std::max(0, n - 1)};
+}
+
 void apply_contaminations(const std::string& list, rungcal::MockScenario& s) {
   std::stringstream in(list);
   std::string item;
@@ -57,7 +67,7 @@ int main(int argc, char** argv) {
   std::string relation = "wesenheit", distances = "disk", contaminations = "all", space = "hierarchical", out,
               prior = "smooth_histogram";
   bool metallicity = true;
-  int bootstrap = 0;
+  int bootstrap = 0, joint = 0;
   long long seed = 1;
   app.add_option("--mocks", study.mocks, "Mock catalogs to draw and fit")->capture_default_str();
   app.add_option("--stars", study.scenario.stars, "Calibrators per mock")->capture_default_str();
@@ -84,7 +94,7 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   app.add_option("--outlier-width", study.fit.outlier_width.value, "outlier component's extra width (mag)")
       ->capture_default_str();
-  bool free_outlier_shape = false;
+  bool free_outlier_shape = false, fix_correlation = false;
   app.add_flag("--fit-outlier-shape", free_outlier_shape, "fit the outlier component's shift and width");
   std::string blend_component(rungcal::kBlendComponentNames.name(rungcal::HierarchicalSettings{}.blends));
   double blend_scale_prior = 0;
@@ -99,6 +109,11 @@ int main(int argc, char** argv) {
   app.add_option("--blend-min-mag", study.fit.hierarchical.blend_min_mag, "blends start this much brighter (mag)")
       ->capture_default_str();
   app.add_option("--metallicity", metallicity, "fit the [Fe/H] term (the truth has gamma = -0.2)")->capture_default_str();
+  app.add_option("--joint", joint, "fit X and the first n - 1 of V, I, K jointly (0: X alone)")->capture_default_str();
+  app.add_option("--scatter-correlation", study.scenario.scatter_correlation,
+                 "the mocks' correlation of a star's scatter between relations (joint)")
+      ->capture_default_str();
+  app.add_flag("--fix-scatter-correlation", fix_correlation, "hold the joint fit's correlation at the truth");
   app.add_option("--bootstrap", bootstrap, "Bootstrap resamples per mock (0: none)")->capture_default_str();
   app.add_option("--seed", seed, "Seed of the first mock")->capture_default_str();
   app.add_option("--threads", study.threads, "Mocks fitted at once (0: all cores)")->capture_default_str();
@@ -137,6 +152,23 @@ int main(int argc, char** argv) {
     rel.metallicity = metallicity;
     study.fit.relations = {rel};
     if (!metallicity) study.parameters = {"alpha", "beta", "parallax_offset_mas", "sigma_int"};
+    study.scenario.more_relations = joint_relations(joint);
+    if (joint > 0) {
+      study.fit.joint = true;
+      study.parameters.clear();
+      for (const auto& r : study.scenario.more_relations) {
+        rungcal::RelationOptions more = rel;
+        more.name = more.band = r.name;
+        study.fit.relations.push_back(more);
+      }
+      for (const auto& r : study.fit.relations)
+        for (const char* p : {"alpha_", "beta_", "gamma_", "sigma_int_"})
+          if (metallicity || std::string(p) != "gamma_") study.parameters.push_back(p + r.name);
+      study.parameters.push_back("scatter_correlation");
+      study.parameters.push_back("parallax_offset_mas");
+      study.fit.joint_scatter_correlation.value = study.scenario.scatter_correlation;
+      if (fix_correlation) study.fit.joint_scatter_correlation.mode = rungcal::ParamMode::kFixed;
+    }
     rungcal::throw_if_invalid(study.check(), "(command line)");
     const auto level = spdlog::get_level();
     spdlog::set_level(spdlog::level::err);  // every mock's own warnings would bury the table

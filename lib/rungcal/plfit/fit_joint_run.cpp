@@ -39,46 +39,10 @@ double coefficient_of(const StarTable* coefficients, const std::string& name) {
 
 }  // namespace
 
-JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
-                      const StarTable& cat, const StarTable* coefficients) {
-  JointResult jr;
-  std::vector<bool> metallicity;
-  for (const auto& rr : fits) {
-    jr.relations.push_back(rr.relation.name);
-    metallicity.push_back(rr.relation.metallicity);
-  }
-  std::vector<std::string> anchor_names;
-  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
-  jr.layout = JointLayout::make(jr.relations, metallicity, o.joint_shared_slope, anchor_names);
-  const JointLayout& L = jr.layout;
-  JointSettings js;
-  js.loss = o.loss;
-  js.loss_scale = o.loss_scale;
-  js.scatter_correlation = o.joint_scatter_correlation;
-  js.fixed.assign(L.size, false);
-  for (std::size_t g = 0; g < o.anchors.size(); ++g) js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_prior_sigma(g));
-  if (o.anchor_covariance.size()) js.anchor_correlation = correlation_of(o.anchor_covariance);
-  if (o.offset.mode == ParamMode::kFixed) js.fixed[L.offset] = true;
-  if (o.offset.mode == ParamMode::kPrior)
-    jr.warnings.push_back("the offset's prior is not used by the joint fit (free there)");
-  Eigen::VectorXd start = Eigen::VectorXd::Zero(L.size);
-  double offset_sum = 0;
-  for (std::size_t r = 0; r < fits.size(); ++r) {
-    const RelationResult& rr = fits[r];
-    js.sigma_int.push_back(rr.parameter("sigma_int"));
-    start[L.alpha[r]] = rr.parameter("alpha");
-    start[L.beta[r]] = rr.parameter("beta");
-    if (rr.settings.params[rr.layout.beta].mode == ParamMode::kFixed) js.fixed[L.beta[r]] = true;
-    if (L.gamma[r] >= 0) start[L.gamma[r]] = rr.parameter("gamma");
-    offset_sum += rr.parameter("parallax_offset_mas");
-  }
-  for (std::size_t a = 0; a < o.anchors.size(); ++a)
-    start[L.anchor0 + static_cast<int>(a)] = fits[0].parameter("mu_" + o.anchors[a].group);
-  start[L.offset] = o.offset.mode == ParamMode::kFixed
-                        ? o.offset.value
-                        : offset_sum / static_cast<double>(fits.size());
+JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
+                        const StarTable* coefficients, bool& any_parallax) {
+  JointData d;
   // Entries: every relation in which a star was used, as whichever kind of calibrator.
-  JointData& d = jr.data;
   d.relations = static_cast<int>(fits.size());
   auto anchor_index = [&](std::size_t row) {
     const std::string g = cat.has(col::kGroup) && !cat.column(col::kGroup).is_null(row)
@@ -88,7 +52,7 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
       if (o.anchors[a].group == g) return static_cast<int>(a);
     return -1;
   };
-  bool any_parallax = false;
+  any_parallax = false;
   for (std::size_t row = 0; row < cat.rows(); ++row) {
     int added = 0, kind = -1;
     double plx = 0, plx_err = 0;
@@ -126,17 +90,73 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
     d.var_ebv.push_back(coefficients ? se2 : 0.0);
     const double feh = cat.has(col::kFeh) ? cat.column(col::kFeh).as_real(row) : 0.0;
     d.feh.push_back(std::isfinite(feh) ? feh : 0.0);
+    const double feh_err = cat.has(col::kFehErr) ? cat.column(col::kFehErr).as_real(row) : 0.0;
+    d.var_feh.push_back(std::isfinite(feh_err) ? feh_err * feh_err : 0.0);
     d.row.push_back(row);
   }
   d.first.push_back(static_cast<int>(d.relation.size()));
-  if (!any_parallax) js.fixed[L.offset] = true;  // nothing constrains it
-  jr.stars = d.stars();
+  return d;
+}
+
+void check_joint_sample(const FitOptions& o, const StarTable* coefficients, JointResult& jr) {
+  jr.stars = jr.data.stars();
   if (jr.stars < 3)
-    throw InputError({o.input_path, {}, {}}, "too_few_calibrators",
-                     "the joint fit has fewer than 3 calibrators");
+    throw InputError({o.input_path, {}, {}}, "too_few_calibrators", "the joint fit has fewer than 3 calibrators");
   if (!coefficients)
-    jr.warnings.push_back(
-        "no COEFFS table: E(B-V) errors are taken as independent between relations");
+    jr.warnings.push_back("no COEFFS table: E(B-V) errors are taken as independent between relations");
+}
+
+JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
+                      const StarTable& cat, const StarTable* coefficients) {
+  if (o.space == FitSpace::kHierarchical) {
+    bool any_parallax = false;
+    return run_joint_hierarchical(o, fits, joint_data_of(o, fits, cat, coefficients, any_parallax), coefficients);
+  }
+  JointResult jr;
+  jr.method = "gls";
+  jr.warnings.push_back(
+      "the GLS joint fit is biased on realistic data (docs/method.md); the hierarchical space fits the relations "
+      "jointly without that bias");
+  std::vector<bool> metallicity;
+  for (const auto& rr : fits) {
+    jr.relations.push_back(rr.relation.name);
+    metallicity.push_back(rr.relation.metallicity);
+  }
+  std::vector<std::string> anchor_names;
+  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
+  jr.layout = JointLayout::make(jr.relations, metallicity, o.joint_shared_slope, anchor_names);
+  const JointLayout& L = jr.layout;
+  JointSettings js;
+  js.loss = o.loss;
+  js.loss_scale = o.loss_scale;
+  js.scatter_correlation = o.joint_scatter_correlation.value;
+  js.fixed.assign(L.size, false);
+  for (std::size_t g = 0; g < o.anchors.size(); ++g) js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_prior_sigma(g));
+  if (o.anchor_covariance.size()) js.anchor_correlation = correlation_of(o.anchor_covariance);
+  if (o.offset.mode == ParamMode::kFixed) js.fixed[L.offset] = true;
+  if (o.offset.mode == ParamMode::kPrior)
+    jr.warnings.push_back("the offset's prior is not used by the joint fit (free there)");
+  Eigen::VectorXd start = Eigen::VectorXd::Zero(L.size);
+  double offset_sum = 0;
+  for (std::size_t r = 0; r < fits.size(); ++r) {
+    const RelationResult& rr = fits[r];
+    js.sigma_int.push_back(rr.parameter("sigma_int"));
+    start[L.alpha[r]] = rr.parameter("alpha");
+    start[L.beta[r]] = rr.parameter("beta");
+    if (rr.settings.params[rr.layout.beta].mode == ParamMode::kFixed) js.fixed[L.beta[r]] = true;
+    if (L.gamma[r] >= 0) start[L.gamma[r]] = rr.parameter("gamma");
+    offset_sum += rr.parameter("parallax_offset_mas");
+  }
+  for (std::size_t a = 0; a < o.anchors.size(); ++a)
+    start[L.anchor0 + static_cast<int>(a)] = fits[0].parameter("mu_" + o.anchors[a].group);
+  start[L.offset] = o.offset.mode == ParamMode::kFixed
+                        ? o.offset.value
+                        : offset_sum / static_cast<double>(fits.size());
+  bool any_parallax = false;
+  JointData& d = jr.data;
+  d = joint_data_of(o, fits, cat, coefficients, any_parallax);
+  if (!any_parallax) js.fixed[L.offset] = true;  // nothing constrains it
+  check_joint_sample(o, coefficients, jr);
   jr.n_free = static_cast<int>(std::count(js.fixed.begin(), js.fixed.end(), false));
   jr.solution = solve_joint(d, js, L, start);
   if (!jr.solution.theta.allFinite())
@@ -146,7 +166,7 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   if (!jr.solution.usable)
     jr.warnings.push_back("the joint solver did not reach a usable solution: " +
                           jr.solution.message);
-  if (o.bootstrap > 0) {
+  if (o.joint_resamples() > 0) {
     // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
     std::map<int, std::vector<int>> strata;
     for (int i = 0; i < d.stars(); ++i)
@@ -160,7 +180,9 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
       if (!s.usable) return std::nullopt;
       return s.theta;
     };
-    jr.bootstrap = parallel_bootstrap(o, L.size, "joint", solve, jr.bootstrap_failed);
+    FitOptions resampled = o;
+    resampled.bootstrap = o.joint_resamples();
+    jr.bootstrap = parallel_bootstrap(resampled, L.size, "joint", solve, jr.bootstrap_failed);
   }
   for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
   return jr;

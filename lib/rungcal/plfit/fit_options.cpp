@@ -120,8 +120,13 @@ std::string FitOptions::check() const {
   if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
   if (joint && space != FitSpace::kParallax && !hier)
     return "fit.joint: the joint fit works in parallax space";
-  if (!(joint_scatter_correlation >= 0.0 && joint_scatter_correlation < 1.0))
-    return "fit.joint_scatter_correlation: must be in [0, 1)";
+  if (hier) {
+    if (std::string e = check_domain("fit.joint_scatter_correlation", joint_scatter_correlation, -1.0, false, 1.0);
+        !e.empty())
+      return e;
+  } else if (!(joint_scatter_correlation.value >= 0.0 && joint_scatter_correlation.value < 1.0)) {
+    return "fit.joint_scatter_correlation: must be in [0, 1) (the GLS joint fit)";
+  }
   if (joint_shared_slope) {
     if (!joint) return "fit.joint_shared_slope: needs joint = true";
     for (const auto& r : relations)
@@ -226,13 +231,17 @@ FitOptions fit_options_from_file(const std::string& path) {
       choice_or(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
   o.joint = f->bool_or("joint", o.joint);
   o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
-  o.joint_scatter_correlation =
-      f->number_or("joint_scatter_correlation", o.joint_scatter_correlation);
+  o.joint_scatter_correlation = param_from(*f, "joint_scatter_correlation", o.joint_scatter_correlation);
   // Checked as read: 2^31-1 used to wrap to a negative count or ask for 30 GB.
   const std::int64_t bootstrap = f->integer_or("bootstrap", o.bootstrap);
   if (bootstrap < 0 || bootstrap > kMaxBootstrap)
     f->fail("bootstrap", fmt::format("must be 0 to {} resamples, not {}", kMaxBootstrap, bootstrap));
   o.bootstrap = static_cast<int>(bootstrap);
+  const std::int64_t joint_bootstrap = f->integer_or("joint_bootstrap", o.joint_bootstrap);
+  if (joint_bootstrap < -1 || joint_bootstrap > kMaxBootstrap)
+    f->fail("joint_bootstrap", fmt::format("must be 0 to {} resamples, or -1 (as bootstrap), not {}", kMaxBootstrap,
+                                           joint_bootstrap));
+  o.joint_bootstrap = static_cast<int>(joint_bootstrap);
   o.seed = static_cast<std::uint64_t>(f->integer_or("seed", static_cast<std::int64_t>(o.seed)));
   o.threads = static_cast<int>(f->integer_or("threads", o.threads));
   for (const auto& r : root.section_list("relation")) {

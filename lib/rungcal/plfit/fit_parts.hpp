@@ -66,6 +66,16 @@ std::vector<double> bootstrap_column(const RelationResult& rr, int j);
 // Every bootstrap resample's parameters, one row per resample and parameter.
 StarTable bootstrap_table(const FitResult& result);
 
+// The calibrators used in any of the relations, each with its entries (fit_joint_run.cpp).
+// any_parallax: whether one of them is a parallax calibrator.
+JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
+                        const StarTable* coefficients, bool& any_parallax);
+// Counts jr.data's stars (too few: InputError) and warns without a COEFFS table.
+void check_joint_sample(const FitOptions& o, const StarTable* coefficients, JointResult& jr);
+// The hierarchical joint fit (joint_hierarchical.hpp) on those calibrators, started from the
+// relations' own fits (fit_joint_hierarchical.cpp).
+JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<RelationResult>& fits, JointData data,
+                                   const StarTable* coefficients);
 // The relations fitted together (FitOptions::joint).
 JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
                       const StarTable& cat, const StarTable* coefficients);

@@ -93,6 +93,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                    }()},
                   {"joint", o.joint},
                   {"bootstrap", o.bootstrap},
+                  {"joint_bootstrap", o.joint_resamples()},
                   {"seed", o.seed},
                   {"extinction", extinction.is_null() ? nlohmann::json::object() : extinction}};
   auto finite_or_null = [](double v) { return std::isfinite(v) ? json(v) : json(nullptr); };
@@ -193,9 +194,14 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
   if (joint) {
     const JointSolution& js = joint->solution;
     json j;
+    j["method"] = joint->method;
     j["relations"] = joint->relations;
     j["shared_slope"] = o.joint_shared_slope;
-    j["scatter_correlation"] = o.joint_scatter_correlation;
+    j["scatter_correlation"] = joint->layout.correlation >= 0 ? js.theta[joint->layout.correlation]
+                                                              : o.joint_scatter_correlation.value;
+    j["scatter_correlation_mode"] = joint->layout.correlation >= 0
+                                        ? std::string(kParamModeNames.name(o.joint_scatter_correlation.mode))
+                                        : std::string("fixed");
     j["parameter_names"] = joint->layout.names;
     for (int p = 0; p < joint->layout.size; ++p) {
       double e = js.covariance_ok ? std::sqrt(std::max(0.0, js.covariance(p, p))) : std::nan("");
@@ -218,7 +224,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
       cov.push_back(row);
     }
     j["covariance"] = cov;
-    j["statistics"] = {{"chi2", js.chi2},
+    j["statistics"] = {{"chi2", finite_or_null(js.chi2)},
+                       {"neg2_log_likelihood", finite_or_null(joint->neg2_log_likelihood)},
                        {"n_stars", joint->stars},
                        {"n_entries", js.entries},
                        {"n_free_parameters", joint->n_free},
@@ -230,6 +237,15 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                    {"iterations", js.iterations},
                    {"usable", js.usable}};
     j["warnings"] = joint->warnings;
+    j["undetermined"] = joint->undetermined;
+    // Stars the mixture gives less than even odds of being members, with the relations' ids.
+    j["likely_outliers"] = json::array();
+    for (std::size_t i = 0; i < joint->membership.size(); ++i)
+      if (joint->membership[i] < 0.5) {
+        const std::size_t row = joint->data.row[i];
+        const std::string id = relations.empty() ? "" : relations[0].stars[row].id;
+        j["likely_outliers"].push_back({{"row", row}, {"id", id}, {"membership", joint->membership[i]}});
+      }
     out["joint"] = j;
   }
   return out;
@@ -241,8 +257,12 @@ std::string fit_summary(const FitResult& result) {
     const JointResult& j = *result.joint;
     std::string names;
     for (const auto& n : j.relations) names += (names.empty() ? "" : " + ") + n;
-    out += fmt::format("joint ({}): {} stars, {} magnitudes, chi2 = {:.2f}\n", names, j.stars,
-                       j.solution.entries, j.solution.chi2);
+    if (j.method == "hierarchical")
+      out += fmt::format("joint ({}, hierarchical): {} stars, {} magnitudes, -2 ln L = {:.2f}\n", names, j.stars,
+                         j.solution.entries, j.neg2_log_likelihood);
+    else
+      out += fmt::format("joint ({}): {} stars, {} magnitudes, chi2 = {:.2f}\n", names, j.stars,
+                         j.solution.entries, j.solution.chi2);
     for (int p = 0; p < j.layout.size; ++p) {
       double e = j.solution.covariance_ok ? std::sqrt(std::max(0.0, j.solution.covariance(p, p)))
                                           : std::nan("");

@@ -88,8 +88,15 @@ struct FitOptions {
   ScatterEstimator scatter_estimator = ScatterEstimator::kDecoupled;  // how a free scatter is estimated
   bool joint = false;                    // also fit all relations at once, one parallax offset
   bool joint_shared_slope = false;       // ... and one slope for all relations
-  double joint_scatter_correlation = 0.0;  // correlation of a star's intrinsic scatter between relations
+  // Correlation rho of a star's intrinsic scatter between relations: a bare number fixes it
+  // (the GLS joint fit always holds it at its value, 0 unless given); free by default in the
+  // hierarchical joint fit.
+  ParamSpec joint_scatter_correlation;
   int bootstrap = 0;                     // resamples over stars (0: none)
+  // The joint fit's resamples (-1: as bootstrap): each solves every relation at once, so a
+  // smaller count keeps a nightly run short.
+  int joint_bootstrap = -1;
+  int joint_resamples() const { return joint_bootstrap >= 0 ? joint_bootstrap : bootstrap; }
   std::uint64_t seed = 1;                // bootstrap seed: results are the same for any thread count
   int threads = 0;                       // 0: all cores
   std::vector<RelationOptions> relations;
@@ -148,6 +155,7 @@ struct RelationResult {
 // The relations fitted together (FitOptions::joint): every kind of calibrator, each
 // relation's intrinsic scatter from its own fit.
 struct JointResult {
+  std::string method;  // "hierarchical" (joint_hierarchical.hpp) or "gls" (joint.hpp)
   std::vector<std::string> relations;
   JointLayout layout;
   JointData data;
@@ -157,6 +165,11 @@ struct JointResult {
   Eigen::MatrixXd bootstrap;  // resamples x parameters (NaN rows: failed resamples)
   int bootstrap_failed = 0;
   std::vector<std::string> warnings;
+  // Hierarchical only: -2 ln L at the optimum, each star's membership probability (data
+  // order), and the free parameters on an edge of their domain (no error).
+  double neg2_log_likelihood = std::numeric_limits<double>::quiet_NaN();
+  std::vector<double> membership;
+  std::vector<std::string> undetermined;
 };
 
 struct FitResult {

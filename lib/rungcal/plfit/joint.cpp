@@ -136,6 +136,7 @@ JointData JointData::take(const std::vector<int>& stars) const {
     o.var_plx.push_back(var_plx[star]);
     o.var_ebv.push_back(var_ebv[star]);
     o.feh.push_back(feh[star]);
+    if (!var_feh.empty()) o.var_feh.push_back(var_feh[star]);
     o.kind.push_back(kind[star]);
     o.group.push_back(group[star]);
     o.mu.push_back(mu[star]);
@@ -171,6 +172,7 @@ JointLayout JointLayout::make(const std::vector<std::string>& names, const std::
   L.offset = next++;
   L.names.push_back("parallax_offset_mas");
   L.anchor0 = next;
+  L.n_anchors = static_cast<int>(anchors.size());
   for (const auto& a : anchors) {
     L.names.push_back("mu_" + a);
     ++next;

@@ -7,6 +7,7 @@
 #include <Eigen/Core>
 
 #include "rungcal/plfit/losses.hpp"
+#include "rungcal/plfit/model.hpp"
 
 namespace rungcal {
 
@@ -19,6 +20,7 @@ struct JointData {
   std::vector<double> x, m0, var_phot, coefficient;  // per entry: log P - log P0, magnitude,
                                    // photometric variance, A/E(B-V) left in the magnitude
   std::vector<double> plx, var_plx, var_ebv, feh;    // per star
+  std::vector<double> var_feh;     // per star: [Fe/H] error squared (hierarchical joint; 0: none)
   // Per star: 0 parallax calibrator, 1 known distance (mu, var_mu), 2 anchor galaxy (group).
   std::vector<int> kind, group;
   std::vector<double> mu, var_mu;
@@ -29,15 +31,30 @@ struct JointData {
 };
 
 // Parameters: alpha_r, beta_r (or one shared beta), gamma_r, the shared parallax offset,
-// and one distance modulus per anchor galaxy.
+// and one distance modulus per anchor galaxy. The hierarchical joint fit
+// (joint_hierarchical.hpp) adds each relation's intrinsic scatter sigma_int_r, the scatter's
+// correlation between relations, and the hierarchical model's shared parameters, named and
+// scaled as in ParameterLayout.
 struct JointLayout {
   std::vector<int> alpha, beta, gamma;  // per relation; gamma -1 when the relation has none
   int offset = -1;
-  int anchor0 = -1;
+  int anchor0 = -1, n_anchors = 0;
   int size = 0;
   std::vector<std::string> names;
+  std::vector<int> sigma;  // per relation (hierarchical only)
+  int correlation = -1;    // rho (hierarchical only)
+  int outlier = -1, outlier_shift = -1, outlier_width = -1, blend = -1, blend_scale = -1;
+  int distance_scale = -1, distance_power = -1, distance_exponent = -1;
+  int distance_bin0 = -1, distance_bins = 0;
+  int feh_mean = -1, feh_spread = -1;
   static JointLayout make(const std::vector<std::string>& relation_names, const std::vector<bool>& metallicity,
                           bool shared_slope, const std::vector<std::string>& anchors = {});
+  // The hierarchical joint layout: the shared parameters are those of `shared` (a single
+  // relation's hierarchical layout), [Fe/H]'s population when feh_errors.
+  static JointLayout make_hierarchical(const std::vector<std::string>& relation_names,
+                                       const std::vector<bool>& metallicity, bool shared_slope,
+                                       const std::vector<std::string>& anchors, const ParameterLayout& shared,
+                                       bool feh_errors);
 };
 
 struct JointSettings {

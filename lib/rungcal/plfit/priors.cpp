@@ -9,20 +9,21 @@
 namespace rungcal {
 namespace {
 
-bool correlated_anchors(const FitSettings& s) {
-  return s.terms.n_anchors > 1 && s.anchor_prior_correlation.rows() == s.terms.n_anchors;
+bool correlated_anchors(const AnchorBlock& a) {
+  return a.count > 1 && a.correlation.rows() == a.count;
 }
 
-bool is_anchor(const FitSettings& s, const ParameterLayout& L, int j) {
-  return correlated_anchors(s) && j >= L.anchor0 && j < L.anchor0 + s.terms.n_anchors;
-}
+bool is_anchor(const AnchorBlock& a, int j) { return correlated_anchors(a) && j >= a.first && j < a.first + a.count; }
 
 // The anchors' prior sigmas (anchor order).
-Eigen::VectorXd anchor_sigmas(const FitSettings& s, const ParameterLayout& L) {
-  Eigen::VectorXd sigma(s.terms.n_anchors);
-  for (int g = 0; g < s.terms.n_anchors; ++g)
-    sigma[g] = s.params[static_cast<std::size_t>(L.anchor0 + g)].prior_sigma;
+Eigen::VectorXd anchor_sigmas(const std::vector<ParamSpec>& params, const AnchorBlock& a) {
+  Eigen::VectorXd sigma(a.count);
+  for (int g = 0; g < a.count; ++g) sigma[g] = params[static_cast<std::size_t>(a.first + g)].prior_sigma;
   return sigma;
+}
+
+AnchorBlock anchors_of(const FitSettings& s, const ParameterLayout& L) {
+  return {L.anchor0, s.terms.n_anchors, s.anchor_prior_correlation};
 }
 
 // C = S R S, R empty: the identity.
@@ -34,21 +35,20 @@ Eigen::MatrixXd covariance_of(const Eigen::VectorXd& sigma, const Eigen::MatrixX
 
 }  // namespace
 
-std::vector<PriorRow> prior_rows(const FitSettings& s, const ParameterLayout& L) {
+std::vector<PriorRow> prior_rows(const std::vector<ParamSpec>& params, const AnchorBlock& anchors) {
   std::vector<PriorRow> rows;
-  for (int j = 0; j < L.size; ++j) {
-    const ParamSpec& p = s.params[static_cast<std::size_t>(j)];
-    if (p.mode == ParamMode::kPrior && !is_anchor(s, L, j))
-      rows.push_back({{j}, {1.0 / p.prior_sigma}});
+  for (std::size_t j = 0; j < params.size(); ++j) {
+    const ParamSpec& p = params[j];
+    if (p.mode == ParamMode::kPrior && !is_anchor(anchors, static_cast<int>(j)))
+      rows.push_back({{static_cast<int>(j)}, {1.0 / p.prior_sigma}});
   }
-  if (!correlated_anchors(s)) return rows;
-  const int n = s.terms.n_anchors;
-  const Eigen::MatrixXd Linv = prior_whitener(anchor_sigmas(s, L), s.anchor_prior_correlation);
-  for (int k = 0; k < n; ++k) {
+  if (!correlated_anchors(anchors)) return rows;
+  const Eigen::MatrixXd Linv = prior_whitener(anchor_sigmas(params, anchors), anchors.correlation);
+  for (int k = 0; k < anchors.count; ++k) {
     PriorRow row;
     for (int g = 0; g <= k; ++g) {
-      if (s.params[static_cast<std::size_t>(L.anchor0 + g)].mode != ParamMode::kPrior) continue;
-      row.params.push_back(L.anchor0 + g);
+      if (params[static_cast<std::size_t>(anchors.first + g)].mode != ParamMode::kPrior) continue;
+      row.params.push_back(anchors.first + g);
       row.weights.push_back(Linv(k, g));
     }
     rows.push_back(std::move(row));
@@ -56,30 +56,41 @@ std::vector<PriorRow> prior_rows(const FitSettings& s, const ParameterLayout& L)
   return rows;
 }
 
-double prior_residual(const PriorRow& row, const FitSettings& s, const double* t) {
+std::vector<PriorRow> prior_rows(const FitSettings& s, const ParameterLayout& L) {
+  return prior_rows(s.params, anchors_of(s, L));
+}
+
+double prior_residual(const PriorRow& row, const std::vector<ParamSpec>& params, const double* t) {
   double z = 0;
   for (std::size_t k = 0; k < row.params.size(); ++k) {
     const int j = row.params[k];
-    z += row.weights[k] * (t[j] - s.params[static_cast<std::size_t>(j)].value);
+    z += row.weights[k] * (t[j] - params[static_cast<std::size_t>(j)].value);
   }
   return z;
 }
 
-void redraw_prior_centres(FitSettings& s, const ParameterLayout& L, Random& rng) {
-  for (int j = 0; j < L.size; ++j) {
-    ParamSpec& p = s.params[static_cast<std::size_t>(j)];
-    if (p.mode == ParamMode::kPrior && !is_anchor(s, L, j))
+double prior_residual(const PriorRow& row, const FitSettings& s, const double* t) {
+  return prior_residual(row, s.params, t);
+}
+
+void redraw_prior_centres(std::vector<ParamSpec>& params, const AnchorBlock& anchors, Random& rng) {
+  for (std::size_t j = 0; j < params.size(); ++j) {
+    ParamSpec& p = params[j];
+    if (p.mode == ParamMode::kPrior && !is_anchor(anchors, static_cast<int>(j)))
       p.value = rng.normal(p.value, p.prior_sigma);
   }
-  if (!correlated_anchors(s)) return;
-  const int n = s.terms.n_anchors;
+  if (!correlated_anchors(anchors)) return;
+  const int n = anchors.count;
   const Eigen::MatrixXd lower =
-      Eigen::LLT<Eigen::MatrixXd>(covariance_of(anchor_sigmas(s, L), s.anchor_prior_correlation))
-          .matrixL();
+      Eigen::LLT<Eigen::MatrixXd>(covariance_of(anchor_sigmas(params, anchors), anchors.correlation)).matrixL();
   Eigen::VectorXd x(n);
   for (int g = 0; g < n; ++g) x[g] = rng.normal();
   const Eigen::VectorXd shift = lower * x;
-  for (int g = 0; g < n; ++g) s.params[static_cast<std::size_t>(L.anchor0 + g)].value += shift[g];
+  for (int g = 0; g < n; ++g) params[static_cast<std::size_t>(anchors.first + g)].value += shift[g];
+}
+
+void redraw_prior_centres(FitSettings& s, const ParameterLayout& L, Random& rng) {
+  redraw_prior_centres(s.params, anchors_of(s, L), rng);
 }
 
 Eigen::MatrixXd prior_whitener(const Eigen::VectorXd& sigma, const Eigen::MatrixXd& correlation) {

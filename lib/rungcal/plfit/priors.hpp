@@ -23,6 +23,17 @@ struct PriorRow {
 };
 std::vector<PriorRow> prior_rows(const FitSettings& settings, const ParameterLayout& layout);
 
+// The anchors' moduli among a parameter vector: `count` parameters from `first`, with their
+// priors' correlation (empty: independent).
+struct AnchorBlock {
+  int first = -1, count = 0;
+  Eigen::MatrixXd correlation;
+};
+// The same for any parameter vector (the joint fit's).
+std::vector<PriorRow> prior_rows(const std::vector<ParamSpec>& params, const AnchorBlock& anchors);
+double prior_residual(const PriorRow& row, const std::vector<ParamSpec>& params, const double* t);
+void redraw_prior_centres(std::vector<ParamSpec>& params, const AnchorBlock& anchors, Random& rng);
+
 // z_k at t, the prior centres taken from settings.params[j].value.
 double prior_residual(const PriorRow& row, const FitSettings& settings, const double* t);
 

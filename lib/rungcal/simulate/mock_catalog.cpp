@@ -45,12 +45,25 @@ std::string MockScenario::check() const {
   if (stars < 3) return "stars: at least 3";
   for (double f : {blend_fraction, parallax_outlier_fraction, overtone_fraction, far_fraction})
     if (!(f >= 0 && f < 1)) return "fractions: each in [0, 1)";
+  if (!(scatter_correlation >= 0 && scatter_correlation < 1)) return "scatter_correlation: in [0, 1)";
+  for (const auto& r : more_relations)
+    if (r.name.empty() || r.name == "X" || !(r.sigma_int >= 0)) return "more_relations: a name other than X, sigma_int >= 0";
   if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0 && parallax_error_scale > 0))
     return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread, parallax_error_scale > 0";
   return "";
 }
 
 nlohmann::json MockScenario::truth() const {
+  if (!more_relations.empty()) {
+    nlohmann::json t = {{"parallax_offset_mas", parallax_offset_mas}, {"feh_mean", feh_mean},
+                        {"feh_spread", feh_spread}, {"scatter_correlation", scatter_correlation}};
+    auto add = [&](const std::string& name, double a, double b, double g, double s) {
+      t["alpha_" + name] = a, t["beta_" + name] = b, t["gamma_" + name] = g, t["sigma_int_" + name] = s;
+    };
+    add("X", alpha, beta, gamma, sigma_int);
+    for (const auto& r : more_relations) add(r.name, r.alpha, r.beta, r.gamma, r.sigma_int);
+    return t;
+  }
   return {{"alpha", alpha},       {"beta", beta},         {"gamma", gamma},        {"sigma_int", sigma_int},
           {"parallax_offset_mas", parallax_offset_mas}, {"feh_mean", feh_mean}, {"feh_spread", feh_spread}};
 }
@@ -63,6 +76,10 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
   for (const char* c : {col::kId, col::kMode, col::kClass}) t.add_column(c, ColumnType::kText);
   for (const char* c : {col::kLogPeriod, "mag0_X", "mag0_err_X", col::kParallax, col::kParallaxErr, col::kFeh, col::kFehErr})
     t.add_column(c, ColumnType::kReal);
+  for (const auto& r : s.more_relations)
+    for (const std::string& c : {"mag0_" + r.name, "mag0_err_" + r.name}) t.add_column(c, ColumnType::kReal);
+  // The joint fit correlates the bands' E(B-V) errors through it.
+  if (!s.more_relations.empty()) t.add_column(col::kEbvErr, ColumnType::kReal);
   for (int i = 0; i < s.stars; ++i) {
     const bool far = rng.uniform() < s.far_fraction;
     const double d = far ? rng.uniform(8.0, 15.0) : draw_distance_kpc(s.distances, rng, clumps);
@@ -72,9 +89,13 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     const std::string mode = overtone ? "first_overtone" : "fundamental";
     const double logp_f = fundamentalized_log_period("classical_cepheid", mode, logp);
     const double feh = rng.normal(s.feh_mean, s.feh_spread);
-    const double abs_mag = s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + rng.normal(0.0, s.sigma_int);
-    double m0 = abs_mag + mu + rng.normal(0.0, s.mag_error) + s.extinction_per_ebv * rng.normal(0.0, s.ebv_error);
-    if (rng.uniform() < s.blend_fraction) m0 -= mock_blend_brightening(s.blend_law, rng);
+    const double scatter = rng.normal(0.0, s.sigma_int);
+    const double abs_mag = s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + scatter;
+    double m0 = abs_mag + mu + rng.normal(0.0, s.mag_error);
+    const double ebv_off = rng.normal(0.0, s.ebv_error);
+    m0 += s.extinction_per_ebv * ebv_off;
+    const double brightening = rng.uniform() < s.blend_fraction ? mock_blend_brightening(s.blend_law, rng) : 0.0;
+    m0 -= brightening;
     // Astrometric errors follow the star's observed brightness, as a survey's do (the fit
     // conditions on the observed magnitude, so the errors carry no hidden distance).
     const double plx_err = s.parallax_error_scale * (0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0)));
@@ -91,6 +112,19 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     t.column(col::kParallaxErr).push_real(plx_err);
     t.column(col::kFeh).push_real(feh + (s.feh_error > 0 ? rng.normal(0.0, s.feh_error) : 0.0));
     t.column(col::kFehErr).push_real(s.feh_error);
+    if (s.more_relations.empty()) continue;
+    t.column(col::kEbvErr).push_real(s.ebv_error);
+    // Equicorrelated scatter: u_k = rho u_X + sqrt(rho - rho^2) v + sqrt(1 - rho) w_k has unit
+    // variance and correlation rho with u_X and with every other u_l.
+    const double rho = s.scatter_correlation, u_x = s.sigma_int > 0 ? scatter / s.sigma_int : rng.normal();
+    const double shared = rng.normal();
+    for (const auto& r : s.more_relations) {
+      const double u = rho * u_x + std::sqrt(rho - rho * rho) * shared + std::sqrt(1.0 - rho) * rng.normal();
+      const double m = r.alpha + r.beta * (logp_f - s.pivot_log_period) + r.gamma * feh + r.sigma_int * u + mu +
+                       rng.normal(0.0, s.mag_error) + r.extinction_per_ebv * ebv_off - brightening;
+      t.column("mag0_" + r.name).push_real(m);
+      t.column("mag0_err_" + r.name).push_real(std::hypot(s.mag_error, r.extinction_per_ebv * s.ebv_error));
+    }
   }
   return t;
 }

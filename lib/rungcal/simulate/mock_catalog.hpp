@@ -3,6 +3,7 @@
 
 #include <cstdint>
 #include <string>
+#include <vector>
 
 #include <nlohmann/json.hpp>
 
@@ -41,6 +42,13 @@ inline constexpr EnumTable<MockBlendLaw, 3> kMockBlendLawNames{{{
 // 2.5 log10(1 + q) (Pogson's ratio).
 double mock_blend_brightening(MockBlendLaw law, Random& rng);
 
+// A further relation of the same mock stars (joint fits): its own truth, its magnitudes in
+// mag0_<name>.
+struct MockRelation {
+  std::string name;
+  double alpha = 0, beta = 0, gamma = 0, sigma_int = 0, extinction_per_ebv = 0;
+};
+
 // One mock catalog of parallax calibrators of one relation, already dereddened (the
 // columns rungcal-fit reads, band "X"), with each contamination switchable on its own.
 struct MockScenario {
@@ -62,9 +70,17 @@ struct MockScenario {
   double overtone_fraction = 0;  // first-overtone pulsators, labelled, log P1 in [0.1, 0.7]
   double far_fraction = 0;       // stars at 8-15 kpc, with noisy (some negative) parallaxes
   double ebv_error = 0;          // E(B-V) error (mag): A/E(B-V) times it enters the magnitude
+  // Further relations (joint fits). A star's intrinsic scatter is correlated between all its
+  // relations by scatter_correlation (in [0, 1)); its E(B-V) error, [Fe/H] and blend
+  // brightening are the same in each (blends are grey). Empty: the draws of one relation
+  // are unchanged.
+  std::vector<MockRelation> more_relations;
+  double scatter_correlation = 0;
 
   std::string check() const;     // "" when usable, else "field: rule"
-  nlohmann::json truth() const;  // the true parameters by fit parameter name
+  // The true parameters by fit parameter name; with more_relations, by the joint fit's names
+  // (alpha_X, ..., scatter_correlation).
+  nlohmann::json truth() const;
 };
 
 // Parallax errors grow with the observed magnitude m as for a bright-star astrometric

@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/simulate/study.hpp"
 
+#include <algorithm>
 #include <cmath>
 #include <limits>
 
@@ -36,12 +37,51 @@ double sd_of(const std::vector<double>& v) {
   return std::sqrt(s / static_cast<double>(v.size() - 1));
 }
 
+// The joint fit's estimates, errors and bootstrap errors of the parameters asked for.
+void record_joint(const JointResult& j, const std::vector<std::string>& parameters, Draw& d) {
+  d.ok = j.solution.usable && j.solution.covariance_ok;
+  if (!j.solution.usable)
+    d.failure = "solver: " + j.solution.termination;
+  else if (!j.solution.covariance_ok)
+    d.failure = "covariance: the Hessian is not positive definite";
+  for (const auto& name : parameters) {
+    const auto at = std::find(j.layout.names.begin(), j.layout.names.end(), name);
+    if (at == j.layout.names.end() || !d.ok) {
+      d.estimate.push_back(kNaN), d.error.push_back(kNaN), d.bootstrap_error.push_back(kNaN);
+      continue;
+    }
+    const auto p = static_cast<Eigen::Index>(at - j.layout.names.begin());
+    d.estimate.push_back(j.solution.theta[p]);
+    d.error.push_back(std::sqrt(j.solution.covariance(p, p)));
+    std::vector<double> boot;
+    for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b)
+      if (std::isfinite(j.bootstrap(b, p))) boot.push_back(j.bootstrap(b, p));
+    d.bootstrap_error.push_back(sd_of(boot));
+  }
+}
+
+// The mocks' A/E(B-V) per band, as the deredden stage's COEFFS table gives them to the joint fit.
+StarTable mock_coefficients(const MockScenario& s) {
+  StarTable t;
+  t.add_column("name", ColumnType::kText);
+  t.add_column("a_over_ebv", ColumnType::kReal);
+  t.column("name").push_text("X");
+  t.column("a_over_ebv").push_real(s.extinction_per_ebv);
+  for (const auto& r : s.more_relations) {
+    t.column("name").push_text(r.name);
+    t.column("a_over_ebv").push_real(r.extinction_per_ebv);
+  }
+  return t;
+}
+
 }  // namespace
 
 std::string StudyOptions::check() const {
   if (mocks < 2) return "mocks: at least 2";
   if (std::string e = scenario.check(); !e.empty()) return "scenario." + e;
-  if (fit.relations.size() != 1) return "fit: exactly one relation";
+  if (fit.relations.size() != 1 + scenario.more_relations.size())
+    return "fit: one relation per mock relation (X, then more_relations in order)";
+  if (fit.joint != !scenario.more_relations.empty()) return "fit.joint: exactly when the mocks have more relations";
   return "";
 }
 
@@ -58,19 +98,23 @@ StudyResult run_study(const StudyOptions& o) {
     fit.seed = s.seed;
     Draw& d = draws[k];
     try {
-      FitResult r = run_fit(fit, mock_calibrator_catalog(s));
-      const RelationResult& rr = r.relations.at(0);
-      d.ok = rr.solution.usable && rr.covariance_ok;
-      if (!rr.solution.usable)
-        d.failure = "solver: " + rr.solution.termination;
-      else if (!rr.covariance_ok)
-        d.failure = "covariance: the Hessian is not positive definite";
-      for (const auto& name : o.parameters) {
-        const bool has = std::find(rr.layout.names.begin(), rr.layout.names.end(), name) !=
-                         rr.layout.names.end();
-        d.estimate.push_back(has ? rr.parameter(name) : kNaN);
-        d.error.push_back(has ? rr.error(name) : kNaN);
-        d.bootstrap_error.push_back(has ? rr.bootstrap_error(name) : kNaN);
+      const StarTable coefficients = mock_coefficients(s);
+      FitResult r = run_fit(fit, mock_calibrator_catalog(s), s.more_relations.empty() ? nullptr : &coefficients);
+      if (fit.joint) {
+        record_joint(*r.joint, o.parameters, d);
+      } else {
+        const RelationResult& rr = r.relations.at(0);
+        d.ok = rr.solution.usable && rr.covariance_ok;
+        if (!rr.solution.usable)
+          d.failure = "solver: " + rr.solution.termination;
+        else if (!rr.covariance_ok)
+          d.failure = "covariance: the Hessian is not positive definite";
+        for (const auto& name : o.parameters) {
+          const bool has = std::find(rr.layout.names.begin(), rr.layout.names.end(), name) != rr.layout.names.end();
+          d.estimate.push_back(has ? rr.parameter(name) : kNaN);
+          d.error.push_back(has ? rr.error(name) : kNaN);
+          d.bootstrap_error.push_back(has ? rr.bootstrap_error(name) : kNaN);
+        }
       }
     } catch (const std::exception& e) {
       spdlog::debug("mock {}: {}", k, e.what());

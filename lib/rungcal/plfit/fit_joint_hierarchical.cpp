@@ -1,0 +1,177 @@
+// SPDX-License-Identifier: MIT
+// The hierarchical joint fit as the fit stage runs it: its layout, parameter modes and start
+// from the relations' own fits, the solve, the covariance and the bootstrap.
+#include <algorithm>
+#include <cmath>
+#include <map>
+#include <optional>
+
+#include <spdlog/spdlog.h>
+
+#include "rungcal/core/error.hpp"
+#include "rungcal/core/random.hpp"
+#include "rungcal/plfit/fit_parts.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/plfit/joint_hierarchical.hpp"
+#include "rungcal/plfit/priors.hpp"
+
+namespace rungcal::fit_parts {
+namespace {
+
+// The relation whose fit lends the joint fit its shared parameters' modes and starts: the
+// first with the [Fe/H] population when feh_errors, else the first.
+const RelationResult& shared_source(const std::vector<RelationResult>& fits, bool feh_errors) {
+  if (feh_errors)
+    for (const auto& rr : fits)
+      if (rr.layout.feh_mean >= 0) return rr;
+  return fits[0];
+}
+
+// Copies parameter `from` of a relation's fit (mode, prior and fitted value) to joint slot `to`.
+void take_parameter(const RelationResult& rr, int from, int to, FitSettings& js,
+                    Eigen::VectorXd& start) {
+  if (from < 0 || to < 0) return;
+  js.params[static_cast<std::size_t>(to)] = rr.settings.params[static_cast<std::size_t>(from)];
+  start[to] = rr.solution.theta[from];
+}
+
+FitSettings joint_settings(const FitOptions& o, const std::vector<RelationResult>& fits,
+                           const JointLayout& L, const RelationResult& shared,
+                           Eigen::VectorXd& start) {
+  FitSettings js = fits[0].settings;
+  js.params.assign(static_cast<std::size_t>(L.size), ParamSpec{});
+  js.terms.n_anchors = L.n_anchors;
+  js.preconditioner = nullptr;
+  start = Eigen::VectorXd::Zero(L.size);
+  double offset_sum = 0;
+  for (std::size_t r = 0; r < fits.size(); ++r) {
+    const RelationResult& rr = fits[r];
+    take_parameter(rr, rr.layout.alpha, L.alpha[r], js, start);
+    take_parameter(rr, rr.layout.beta, L.beta[r], js, start);
+    take_parameter(rr, rr.layout.gamma, L.gamma[r], js, start);
+    take_parameter(rr, rr.layout.sigma, L.sigma[r], js, start);
+    // A scatter the relation's fit left at zero starts just inside its domain.
+    start[L.sigma[r]] = std::max(start[L.sigma[r]], 0.01);
+    offset_sum += rr.solution.theta[rr.layout.offset];
+  }
+  const RelationResult& first = fits[0];
+  take_parameter(first, first.layout.offset, L.offset, js, start);
+  if (js.params[static_cast<std::size_t>(L.offset)].mode != ParamMode::kFixed)
+    start[L.offset] = offset_sum / static_cast<double>(fits.size());
+  for (int g = 0; g < L.n_anchors; ++g)
+    take_parameter(first, first.layout.anchor0 + g, L.anchor0 + g, js, start);
+  for (auto [from, to] : {std::pair{first.layout.outlier, L.outlier},
+                          {first.layout.outlier_shift, L.outlier_shift},
+                          {first.layout.outlier_width, L.outlier_width},
+                          {first.layout.blend, L.blend},
+                          {first.layout.blend_scale, L.blend_scale},
+                          {first.layout.distance_scale, L.distance_scale},
+                          {first.layout.distance_power, L.distance_power},
+                          {first.layout.distance_exponent, L.distance_exponent}})
+    take_parameter(first, from, to, js, start);
+  for (int j = 0; j < L.distance_bins; ++j)
+    take_parameter(first, first.layout.distance_bin0 + j, L.distance_bin0 + j, js, start);
+  take_parameter(shared, shared.layout.feh_mean, L.feh_mean, js, start);
+  take_parameter(shared, shared.layout.feh_spread, L.feh_spread, js, start);
+  js.params[static_cast<std::size_t>(L.correlation)] = o.joint_scatter_correlation;
+  start[L.correlation] = o.joint_scatter_correlation.value;
+  // The histogram's grid: the first relation's, where its fit left it, moving from here on
+  // with the mean of the alphas.
+  double alpha_mean = 0;
+  for (int a : L.alpha) alpha_mean += start[a] / static_cast<double>(L.alpha.size());
+  js.hierarchical.histogram_start =
+      histogram_start_at(first.settings.hierarchical, start[L.alpha[0]]);
+  js.hierarchical.histogram_alpha_ref = alpha_mean;
+  return js;
+}
+
+void joint_bootstrap(const FitOptions& o, JointResult& jr, const FitSettings& settings) {
+  const JointData& d = jr.data;
+  FitSettings relaxed = settings;
+  relaxed.function_tolerance = 1e-9;
+  relaxed.parameter_tolerance = 1e-8;
+  // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
+  std::map<int, std::vector<int>> strata;
+  for (int i = 0; i < d.stars(); ++i)
+    strata[d.kind[i] == 2 ? 2 + d.group[i] : d.kind[i]].push_back(i);
+  const AnchorBlock anchors{jr.layout.anchor0, jr.layout.n_anchors,
+                            settings.anchor_prior_correlation};
+  auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
+    std::vector<int> stars;
+    for (const auto& [key, members] : strata)
+      for (std::size_t k = 0; k < members.size(); ++k)
+        stars.push_back(members[rng.below(members.size())]);
+    FitSettings drawn = relaxed;
+    redraw_prior_centres(drawn.params, anchors, rng);
+    const FitSolution s =
+        solve_joint_hierarchical(d.take(stars), drawn, jr.layout, jr.solution.theta);
+    if (!s.usable) return std::nullopt;
+    return s.theta;
+  };
+  jr.bootstrap = parallel_bootstrap(o, jr.layout.size, "joint", solve, jr.bootstrap_failed);
+}
+
+}  // namespace
+
+JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<RelationResult>& fits,
+                                   JointData data, const StarTable* coefficients) {
+  JointResult jr;
+  jr.method = "hierarchical";
+  jr.data = std::move(data);
+  std::vector<bool> metallicity;
+  bool feh_errors = false;
+  for (const auto& rr : fits) {
+    jr.relations.push_back(rr.relation.name);
+    metallicity.push_back(rr.relation.metallicity);
+    feh_errors = feh_errors || rr.layout.feh_mean >= 0;
+  }
+  std::vector<std::string> anchor_names;
+  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
+  jr.layout = JointLayout::make_hierarchical(jr.relations, metallicity, o.joint_shared_slope,
+                                             anchor_names, fits[0].layout, feh_errors);
+  const JointLayout& L = jr.layout;
+  check_joint_sample(o, coefficients, jr);
+  Eigen::VectorXd start;
+  FitSettings js = joint_settings(o, fits, L, shared_source(fits, feh_errors), start);
+  const FitSolution sol = solve_joint_hierarchical(jr.data, js, L, start);
+  if (!sol.theta.allFinite())
+    throw InputError(
+        {o.input_path, {}, {}}, "degenerate_fit",
+        "the joint fit has no finite solution; look for absurd values among the calibrators");
+  JointSolution& out = jr.solution;
+  out.theta = sol.theta;
+  out.usable = sol.usable;
+  out.message = sol.message;
+  out.termination = sol.termination;
+  out.iterations = sol.iterations;
+  out.passes = 1;
+  out.entries = static_cast<int>(jr.data.relation.size());
+  out.chi2 = std::numeric_limits<double>::quiet_NaN();
+  jr.neg2_log_likelihood =
+      2.0 * joint_hierarchical_value(jr.data, js, L, sol.theta).neg_log_likelihood;
+  if (!sol.usable)
+    jr.warnings.push_back("the joint solver did not reach a usable solution: " + sol.message);
+  std::shared_ptr<const Eigen::MatrixXd> metric;
+  out.covariance_ok = joint_hierarchical_covariance(jr.data, js, L, sol.theta, out.covariance,
+                                                    jr.undetermined, &metric);
+  if (!out.covariance_ok)
+    jr.warnings.push_back("the joint fit's Hessian is not positive definite: no covariance");
+  for (const auto& name : jr.undetermined)
+    jr.warnings.push_back(name + " is on the edge of its domain: no error is given");
+  jr.n_free =
+      static_cast<int>(std::count_if(js.params.begin(), js.params.end(), [](const ParamSpec& p) {
+        return p.mode != ParamMode::kFixed;
+      }));
+  const Eigen::ArrayXd q = joint_hierarchical_membership(jr.data, js, L, sol.theta);
+  jr.membership.assign(q.data(), q.data() + q.size());
+  if (o.joint_resamples() > 0) {
+    js.preconditioner = metric;
+    FitOptions resampled = o;
+    resampled.bootstrap = o.joint_resamples();
+    joint_bootstrap(resampled, jr, js);
+  }
+  for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
+  return jr;
+}
+
+}  // namespace rungcal::fit_parts

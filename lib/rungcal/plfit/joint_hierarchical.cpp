@@ -1,0 +1,384 @@
+// SPDX-License-Identifier: MIT
+#include "rungcal/plfit/joint_hierarchical.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+
+#include <Eigen/Dense>
+
+#include "rungcal/plfit/distance_integral.hpp"
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/plfit/likelihood_solver.hpp"
+#include "rungcal/plfit/priors.hpp"
+
+namespace rungcal {
+namespace {
+
+using namespace hier;
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+constexpr double kInf = std::numeric_limits<double>::infinity();
+
+// A star has at most a handful of relations: fixed-capacity matrices, no allocation.
+using SmallMatrix = Eigen::Matrix<double, Eigen::Dynamic, Eigen::Dynamic, 0, 8, 8>;
+using SmallVector = Eigen::Matrix<double, Eigen::Dynamic, 1, 0, 8, 1>;
+
+std::vector<Scale> scales_of(const JointLayout& L) {
+  std::vector<Scale> s(static_cast<std::size_t>(L.size), Scale::kLinear);
+  auto set = [&](int j, Scale scale) {
+    if (j >= 0) s[static_cast<std::size_t>(j)] = scale;
+  };
+  for (int j : L.sigma) set(j, Scale::kLog);
+  set(L.correlation, Scale::kAtanh);
+  set(L.outlier, Scale::kLogit);
+  set(L.blend, Scale::kLogit);
+  for (int j :
+       {L.outlier_width, L.blend_scale, L.distance_scale, L.distance_exponent, L.feh_spread})
+    set(j, Scale::kLog);
+  set(L.distance_power, Scale::kLogPlusOne);
+  return s;
+}
+
+// One star's magnitudes reduced to what they say about its distance (see the header): the
+// magnitude m_eff, its variance 1/a, the colour term c, and what the gradient needs.
+struct Reduced {
+  bool ok = false;
+  double m_eff = 0, a = 0, colour = 0;
+  SmallVector p, u;  // P 1, P (r - m_eff 1)
+  SmallMatrix P;
+};
+
+Reduced reduce(const SmallVector& r, const SmallMatrix& S) {
+  Reduced o;
+  const auto K = r.size();
+  Eigen::LLT<SmallMatrix> llt(S);
+  if (llt.info() != Eigen::Success) return o;
+  const SmallMatrix lower = llt.matrixL();
+  double log_det = 0;
+  for (Eigen::Index k = 0; k < K; ++k) {
+    if (!(lower(k, k) > 0)) return o;
+    log_det += 2.0 * std::log(lower(k, k));
+  }
+  o.P = llt.solve(SmallMatrix::Identity(K, K));
+  o.p = o.P * SmallVector::Ones(K);
+  o.a = o.p.sum();
+  const SmallVector s = o.P * r;
+  o.m_eff = s.sum() / o.a;
+  o.u = s - o.m_eff * o.p;
+  const double q = r.dot(s) - o.a * o.m_eff * o.m_eff;
+  o.colour = -0.5 * (static_cast<double>(K - 1) * kLog2Pi + log_det + std::log(o.a) + q);
+  o.ok = std::isfinite(o.colour) && o.a > 0;
+  return o;
+}
+
+class JointEvaluator final : public Objective {
+ public:
+  JointEvaluator(const JointData& d, const FitSettings& s, const JointLayout& L)
+      : d_(d),
+        s_(s),
+        L_(L),
+        scales_(scales_of(L)),
+        k_(s.hierarchical.quadrature_nodes, static_cast<std::size_t>(d.stars())),
+        priors_(
+            prior_rows(s.params, AnchorBlock{L.anchor0, L.n_anchors, s.anchor_prior_correlation})) {
+    mixture_ = component_on(s.params, L.outlier);
+    blends_ = component_on(s.params, L.blend);
+  }
+
+  double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad) override {
+    return evaluate(x, grad, nullptr);
+  }
+
+  double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad, Eigen::ArrayXd* membership) {
+    const Eigen::VectorXd t = external_of(scales_, x);
+    const HierarchicalSettings& h = s_.hierarchical;
+    const int R = static_cast<int>(L_.alpha.size());
+    auto at = [&](int j) { return j >= 0 ? t[j] : 0.0; };
+    const double rho = at(L_.correlation), offset = t[L_.offset];
+    const double f = mixture_ ? t[L_.outlier] : 0.0, log_f = std::log(f), log_1f = std::log1p(-f);
+    const double fb = blends_ ? t[L_.blend] : 0.0, blend_scale = blends_ ? t[L_.blend_scale] : 1.0;
+    const double log_fb = std::log(fb), log_1fb = std::log1p(-fb);
+    const bool feh_errors = L_.feh_mean >= 0;
+    const double mu_z = at(L_.feh_mean),
+                 tau2 = feh_errors ? t[L_.feh_spread] * t[L_.feh_spread] : 0.0;
+    double alpha_mean = 0;
+    for (int r = 0; r < R; ++r) alpha_mean += t[L_.alpha[static_cast<std::size_t>(r)]] / R;
+    DistancePriorShape prior;
+    if (L_.distance_scale >= 0)
+      prior = DistancePriorShape::make(t[L_.distance_scale], t[L_.distance_power],
+                                       t[L_.distance_exponent]);
+    const auto H = static_cast<std::size_t>(L_.distance_bins);
+    if (L_.distance_bin0 >= 0)
+      prior =
+          DistancePriorShape::make_histogram(histogram_start_at(h, alpha_mean), h.histogram_step,
+                                             t.data() + L_.distance_bin0, L_.distance_bins + 1);
+    k_.clear_bins(H);
+    const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
+    const double wide = width * width,
+                 shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
+    const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
+    const double log_w_member = (mixture_ ? log_1f : 0.0) + (blends_ ? log_1fb : 0.0);
+    const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
+
+    Eigen::VectorXd g = Eigen::VectorXd::Zero(L_.size);  // d ln L / d external
+    double log_l = 0, g_outlier = 0, g_shift = 0, g_wide = 0, g_blend = 0, g_blend_scale = 0;
+    double g_feh_var = 0;
+    for (int i = 0; i < d_.stars(); ++i) {
+      const int e0 = d_.first[static_cast<std::size_t>(i)],
+                K = d_.first[static_cast<std::size_t>(i) + 1] - e0;
+      const int kind = d_.kind[static_cast<std::size_t>(i)];
+      const auto si = static_cast<std::size_t>(i);
+      // [Fe/H]: its latent true value marginalised (Kelly 2007), shared by the relations.
+      double zbar = d_.feh[si], wz = 0, dz_mean = 0, dz_tau2 = 0, dwz_tau2 = 0;
+      if (feh_errors) {
+        const double s2 = d_.var_feh.empty() ? 0.0 : d_.var_feh[si], den = tau2 + s2,
+                     dz = d_.feh[si] - mu_z;
+        zbar = (tau2 * d_.feh[si] + s2 * mu_z) / den;
+        wz = tau2 * s2 / den;
+        dz_mean = s2 / den;
+        dz_tau2 = s2 * dz / (den * den);
+        dwz_tau2 = s2 * s2 / (den * den);
+        log_l += -0.5 * (dz * dz / den + kLog2Pi + std::log(den));
+        g[L_.feh_mean] += dz / den;
+        g_feh_var += 0.5 * (dz * dz - den) / (den * den);
+      }
+      SmallVector r(K), gam(K), sig(K);
+      SmallMatrix S(K, K);
+      for (int k = 0; k < K; ++k) {
+        const auto e = static_cast<std::size_t>(e0 + k);
+        const auto rel = static_cast<std::size_t>(d_.relation[e]);
+        gam[k] = at(L_.gamma[rel]);
+        sig[k] = t[L_.sigma[rel]];
+        r[k] = d_.m0[e] - (t[L_.alpha[rel]] + t[L_.beta[rel]] * d_.x[e] + gam[k] * zbar);
+      }
+      for (int k = 0; k < K; ++k)
+        for (int l = 0; l < K; ++l) {
+          const auto ek = static_cast<std::size_t>(e0 + k), el = static_cast<std::size_t>(e0 + l);
+          S(k, l) = d_.coefficient[ek] * d_.coefficient[el] * d_.var_ebv[si] +
+                    gam[k] * gam[l] * wz +
+                    (k == l ? d_.var_phot[ek] + sig[k] * sig[k] : rho * sig[k] * sig[l]);
+        }
+      const Reduced red = reduce(r, S);
+      if (!red.ok) {  // S not positive definite (rho below -1/(K-1)): outside the model
+        if (grad) *grad = Eigen::VectorXd::Constant(L_.size, kNaN);
+        return kInf;
+      }
+      const double v_eff = 1.0 / red.a;
+      Component member, outlier, blend;
+      if (kind == 0) {
+        member = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff), d_.plx[si], d_.var_plx[si],
+                                    0.0, offset, prior, k_.member_rule, k_.mode_member[si],
+                                    k_.bins_member.data());
+        if (mixture_)
+          outlier = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff + wide), d_.plx[si],
+                                       plx_factor2 * d_.var_plx[si], -shift, offset, prior,
+                                       k_.member_rule, k_.mode_outlier[si], k_.bins_outlier.data());
+        if (blends_)
+          blend = integrate_parallax(red.m_eff, BlendMagnitude(v_eff, blend_scale, h.blends),
+                                     d_.plx[si], d_.var_plx[si], -h.blend_min_mag, offset, prior,
+                                     k_.blend_rule, k_.mode_blend[si], k_.bins_blend.data());
+      } else {
+        const double mu = kind == 1 ? d_.mu[si] : t[L_.anchor0 + d_.group[si]];
+        const double var = v_eff + (kind == 1 ? d_.var_mu[si] : 0.0);
+        member = given_modulus(red.m_eff, GaussianMagnitude(var), mu, 0.0);
+        if (mixture_) outlier = given_modulus(red.m_eff, GaussianMagnitude(var + wide), mu, -shift);
+        if (blends_)
+          blend = given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu,
+                                -h.blend_min_mag);
+      }
+      double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;
+      if (mixture_ || blends_) {
+        const double a = log_w_member + member.log_l;
+        const double b = mixture_ ? log_f + outlier.log_l : -kInf;
+        const double c = blends_ ? log_w_blend + blend.log_l : -kInf;
+        const double top = std::max({a, b, c});
+        li = top + std::log(std::exp(a - top) + std::exp(b - top) + std::exp(c - top));
+        q = std::exp(a - li), q_out = std::exp(b - li), q_blend = std::exp(c - li);
+      }
+      if (membership) (*membership)[i] = q;
+      log_l += li + red.colour;
+      if (mixture_) {
+        g_outlier += q_out / f - (q + q_blend) / (1.0 - f);
+        g_shift -= q_out * outlier.d_m;
+        g_wide += q_out * outlier.d_v;
+      }
+      if (blends_) {
+        g_blend += q_blend / fb - q / (1.0 - fb);
+        g_blend_scale += q_blend * blend.d_blend_scale;
+      }
+      auto mix = [&](double Component::*field) {
+        return q * member.*field + q_out * outlier.*field + q_blend * blend.*field;
+      };
+      // d ln L / d m_eff and / d (1/a), then / d r and / d S (the header's factorisation).
+      const double d_meff = -mix(&Component::d_m), d_veff = mix(&Component::d_v);
+      const SmallVector gr = d_meff / red.a * red.p - red.u;
+      const SmallMatrix G =
+          -d_meff / (2.0 * red.a) * (red.p * red.u.transpose() + red.u * red.p.transpose()) +
+          (d_veff / (red.a * red.a) + 0.5 / red.a) * red.p * red.p.transpose() - 0.5 * red.P +
+          0.5 * red.u * red.u.transpose();
+      const SmallVector Gg = G * gam;
+      for (int k = 0; k < K; ++k) {
+        const auto e = static_cast<std::size_t>(e0 + k);
+        const auto rel = static_cast<std::size_t>(d_.relation[e]);
+        g[L_.alpha[rel]] -= gr[k];
+        g[L_.beta[rel]] -= gr[k] * d_.x[e];
+        if (L_.gamma[rel] >= 0) g[L_.gamma[rel]] += -gr[k] * zbar + 2.0 * Gg[k] * wz;
+        double d_sigma = 2.0 * sig[k] * G(k, k);
+        for (int l = 0; l < K; ++l)
+          if (l != k) d_sigma += 2.0 * G(k, l) * rho * sig[l];
+        g[L_.sigma[rel]] += d_sigma;
+        if (L_.correlation >= 0)
+          for (int l = 0; l < K; ++l)
+            if (l != k) g[L_.correlation] += G(k, l) * sig[k] * sig[l];
+      }
+      if (feh_errors) {
+        const double d_zbar = -gr.dot(gam), d_w = gam.dot(Gg);
+        g[L_.feh_mean] += d_zbar * dz_mean;
+        g_feh_var += d_zbar * dz_tau2 + d_w * dwz_tau2;
+      }
+      if (kind == 0) {
+        g[L_.offset] += mix(&Component::d_off);
+        if (L_.distance_scale >= 0) {
+          g[L_.distance_scale] += mix(&Component::d_log_scale) / t[L_.distance_scale];
+          g[L_.distance_power] += mix(&Component::d_power);
+          g[L_.distance_exponent] += mix(&Component::d_exponent);
+        }
+        if (L_.distance_bin0 >= 0) {
+          const double d_grid = mix(&Component::d_prior_mu) / R;
+          for (int rel = 0; rel < R; ++rel) g[L_.alpha[static_cast<std::size_t>(rel)]] += d_grid;
+        }
+        for (std::size_t j = 0; j < H; ++j)
+          g[L_.distance_bin0 + static_cast<int>(j)] +=
+              q * k_.bins_member[j] + (mixture_ ? q_out * k_.bins_outlier[j] : 0.0) +
+              (blends_ ? q_blend * k_.bins_blend[j] : 0.0);
+      }
+      if (kind == 2) g[L_.anchor0 + d_.group[si]] += mix(&Component::d_m);  // d/dmu_g = d/dM
+    }
+    if (L_.outlier >= 0) g[L_.outlier] = g_outlier;
+    if (L_.outlier_shift >= 0) g[L_.outlier_shift] = g_shift;
+    if (L_.outlier_width >= 0) g[L_.outlier_width] = g_wide * 2.0 * width;
+    if (L_.blend >= 0) g[L_.blend] = g_blend, g[L_.blend_scale] = g_blend_scale;
+    if (feh_errors) g[L_.feh_spread] = g_feh_var * 2.0 * t[L_.feh_spread];
+    double value = -log_l;
+    g = -g;
+    value += hyperprior_terms(t, L_.distance_bin0, L_.distance_bins, h.histogram_walk_sigma,
+                              priors_, s_.params, g);
+    if (grad) internal_gradient(scales_, t, g, *grad);
+    return value;
+  }
+
+ private:
+  const JointData& d_;
+  const FitSettings& s_;
+  const JointLayout& L_;
+  std::vector<Scale> scales_;
+  StarIntegrals k_;
+  std::vector<PriorRow> priors_;
+  bool mixture_ = true, blends_ = false;
+};
+
+}  // namespace
+
+JointLayout JointLayout::make_hierarchical(const std::vector<std::string>& names,
+                                           const std::vector<bool>& metallicity, bool shared_slope,
+                                           const std::vector<std::string>& anchors,
+                                           const ParameterLayout& shared, bool feh_errors) {
+  JointLayout L;
+  int next = 0, slope = -1;
+  auto add = [&](const std::string& name) {
+    L.names.push_back(name);
+    return next++;
+  };
+  for (std::size_t r = 0; r < names.size(); ++r) {
+    L.alpha.push_back(add("alpha_" + names[r]));
+    if (!shared_slope || slope < 0) slope = add(shared_slope ? "beta" : "beta_" + names[r]);
+    L.beta.push_back(slope);
+    L.gamma.push_back(metallicity[r] ? add("gamma_" + names[r]) : -1);
+    L.sigma.push_back(add("sigma_int_" + names[r]));
+  }
+  L.correlation = add("scatter_correlation");
+  L.offset = add("parallax_offset_mas");
+  L.anchor0 = next;
+  L.n_anchors = static_cast<int>(anchors.size());
+  for (const auto& a : anchors) add("mu_" + a);
+  auto copy = [&](int from) {
+    return from >= 0 ? add(shared.names[static_cast<std::size_t>(from)]) : -1;
+  };
+  L.outlier = copy(shared.outlier);
+  L.outlier_shift = copy(shared.outlier_shift);
+  L.outlier_width = copy(shared.outlier_width);
+  L.blend = copy(shared.blend);
+  L.blend_scale = copy(shared.blend_scale);
+  L.distance_scale = copy(shared.distance_scale);
+  L.distance_power = copy(shared.distance_power);
+  L.distance_exponent = copy(shared.distance_exponent);
+  if (shared.distance_bin0 >= 0) {
+    L.distance_bin0 = next;
+    L.distance_bins = shared.distance_bins;
+    for (int j = 0; j < shared.distance_bins; ++j) copy(shared.distance_bin0 + j);
+  }
+  if (feh_errors) {
+    L.feh_mean = add("feh_mean");
+    L.feh_spread = add("feh_spread");
+  }
+  L.size = next;
+  return L;
+}
+
+JointHierarchicalValue joint_hierarchical_value(const JointData& data, const FitSettings& settings,
+                                                const JointLayout& layout,
+                                                const Eigen::VectorXd& theta) {
+  JointEvaluator e(data, settings, layout);
+  JointHierarchicalValue v;
+  v.neg_log_likelihood = e.evaluate(internal_of(scales_of(layout), theta), &v.gradient);
+  v.finite = std::isfinite(v.neg_log_likelihood) && v.gradient.allFinite();
+  return v;
+}
+
+FitSolution solve_joint_hierarchical(const JointData& data, const FitSettings& settings,
+                                     const JointLayout& layout, const Eigen::VectorXd& start) {
+  JointEvaluator e(data, settings, layout);
+  return minimise(e, scales_of(layout), settings, start);
+}
+
+bool joint_hierarchical_covariance(const JointData& data, const FitSettings& settings,
+                                   const JointLayout& layout, const Eigen::VectorXd& theta,
+                                   Eigen::MatrixXd& covariance,
+                                   std::vector<std::string>& undetermined,
+                                   std::shared_ptr<const Eigen::MatrixXd>* preconditioner) {
+  covariance = Eigen::MatrixXd::Zero(layout.size, layout.size);
+  const std::vector<int> all_free = free_parameters(settings.params);
+  const bool no_outliers = layout.outlier >= 0 && theta[layout.outlier] < 1e-3;
+  const bool no_blends = layout.blend >= 0 && theta[layout.blend] < 1e-3;
+  std::vector<int> measured;
+  for (int j : all_free) {
+    const bool scatter_gone =
+        std::find(layout.sigma.begin(), layout.sigma.end(), j) != layout.sigma.end() &&
+        theta[j] < 1e-3;
+    const bool edge = scatter_gone ||
+                      (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
+                                       j == layout.outlier_width)) ||
+                      (no_blends && (j == layout.blend || j == layout.blend_scale));
+    if (edge) {
+      undetermined.push_back(layout.names[static_cast<std::size_t>(j)]);
+      covariance(j, j) = kNaN;
+    } else {
+      measured.push_back(j);
+    }
+  }
+  JointEvaluator e(data, settings, layout);
+  return covariance_from_hessian(e, scales_of(layout), measured, all_free, theta, covariance,
+                                 preconditioner);
+}
+
+Eigen::ArrayXd joint_hierarchical_membership(const JointData& data, const FitSettings& settings,
+                                             const JointLayout& layout,
+                                             const Eigen::VectorXd& theta) {
+  JointEvaluator e(data, settings, layout);
+  Eigen::ArrayXd q = Eigen::ArrayXd::Ones(data.stars());
+  e.evaluate(internal_of(scales_of(layout), theta), nullptr, &q);
+  return q;
+}
+
+}  // namespace rungcal

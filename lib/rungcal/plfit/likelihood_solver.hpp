@@ -1,0 +1,74 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+// Maximum likelihood over parameters that live in domains (scatters > 0, fractions in (0, 1),
+// correlations in (-1, 1)): the solver works on unbounded coordinates, BFGS with an analytic
+// gradient, and the covariance comes from the Hessian. Internal to plfit: the single-relation
+// (hierarchical.hpp) and joint (joint_hierarchical.hpp) likelihoods share it.
+
+#include <memory>
+#include <string>
+#include <vector>
+
+#include <Eigen/Core>
+
+#include "rungcal/plfit/model.hpp"
+#include "rungcal/plfit/priors.hpp"
+
+namespace rungcal::hier {
+
+// How a reported parameter maps to the solver's coordinate.
+enum class Scale {
+  kLinear,
+  kLog,         // v > 0: x = ln v
+  kLogPlusOne,  // v > -1: x = ln(v + 1)
+  kLogit,       // 0 < v < 1: x = ln(v / (1 - v))
+  kAtanh,       // -1 < v < 1: x = atanh v
+};
+
+// The solver never reaches an edge of a domain; a value on it (a scatter fixed or started at
+// 0) is moved just inside.
+double to_internal(Scale s, double v);
+double to_external(Scale s, double x);
+// d external / d internal, at the external value v.
+double slope_of(Scale s, double v);
+Eigen::VectorXd internal_of(const std::vector<Scale>& scales, const Eigen::VectorXd& theta);
+Eigen::VectorXd external_of(const std::vector<Scale>& scales, const Eigen::VectorXd& x);
+
+// The terms -ln L adds beyond the stars: the smooth histogram's random-walk hyperprior on its
+// log-weights eta_1 .. eta_n at t[bin0 ...] (eta_0 = 0; none when n = 0; step walk_sigma)
+// and the Gaussian priors' whitened rows (priors.hpp). Adds their gradient to g (external
+// parameters) and returns their -ln p.
+double hyperprior_terms(const Eigen::VectorXd& t, int bin0, int n, double walk_sigma,
+                        const std::vector<PriorRow>& rows, const std::vector<ParamSpec>& params,
+                        Eigen::VectorXd& g);
+
+// The gradient in the solver's coordinates from the one in the reported parameters.
+void internal_gradient(const std::vector<Scale>& scales, const Eigen::VectorXd& t,
+                       const Eigen::VectorXd& g, Eigen::VectorXd& grad);
+
+// -ln L (priors included) and its gradient in the solver's coordinates (full length).
+class Objective {
+ public:
+  virtual ~Objective() = default;
+  // Non-finite when x is outside what the model allows (the solver then steps back).
+  virtual double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* gradient) = 0;
+};
+
+// The parameters whose mode is not fixed.
+std::vector<int> free_parameters(const std::vector<ParamSpec>& params);
+
+// Minimises from `start` (external parameters); fixed parameters stay at theirs. Tolerances,
+// iterations and the optional metric come from `settings` (FitSettings::preconditioner).
+FitSolution minimise(Objective& f, const std::vector<Scale>& scales, const FitSettings& settings,
+                     const Eigen::VectorXd& start);
+
+// The inverse Hessian of -ln L at theta over `measured` (free parameters not on an edge of
+// their domain), carried to the reported parameters by the delta method; the other rows are
+// zero. preconditioner: when given, the bootstrap's metric over every free parameter (see
+// FitSettings::preconditioner). Returns false when the Hessian is not positive definite.
+bool covariance_from_hessian(Objective& f, const std::vector<Scale>& scales,
+                             const std::vector<int>& measured, const std::vector<int>& free,
+                             const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
+                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner);
+
+}  // namespace rungcal::hier

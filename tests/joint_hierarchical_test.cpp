@@ -1,0 +1,339 @@
+// SPDX-License-Identifier: MIT
+// Tests of lib/rungcal/plfit/joint_hierarchical: with one relation it is the single
+// relation's likelihood (hierarchical.hpp); its factorisation of a star's K magnitudes against
+// the K-variate Gaussian integrated over mu directly (scipy.stats.multivariate_normal and
+// scipy.integrate.quad, Debian python3-scipy); its analytic gradient against central
+// differences.
+#include <gtest/gtest.h>
+
+#include <cmath>
+#include <iomanip>
+#include <sstream>
+
+#include "rungcal/plfit/hierarchical.hpp"
+#include "rungcal/plfit/joint_hierarchical.hpp"
+#include "rungcal/plfit/likelihood_solver.hpp"
+#include "test_util.hpp"
+
+namespace rungcal {
+namespace {
+
+// Stars of three relations (V-like, I-like with E(B-V) coefficients, and a Wesenheit-like
+// one without), some seen in fewer: parallax stars, one known-distance star and an anchor's.
+struct Star {
+  int kind;  // 0 parallax, 1 known, 2 anchor
+  double plx, x, feh;
+  std::vector<double> m0;  // per relation, NaN: not observed
+};
+
+const std::vector<Star>& stars() {
+  static const std::vector<Star> s = {
+      {0, 0.9, -0.30, -0.15, {5.0, 4.3, 3.6}},    {0, 0.31, -0.15, -0.10, {7.7, 6.9, 6.2}},
+      {0, 0.05, 0.00, -0.05, {11.3, 10.4, 9.6}},  {0, -0.02, 0.15, 0.00, {NAN, 11.0, 10.1}},
+      {0, 0.52, 0.30, 0.05, {6.4, 5.6, NAN}},     {0, 1.8, 0.45, 0.10, {3.6, 2.7, 1.9}},
+      {1, 0.0, 0.10, 0.02, {9.1, 8.4, 7.7}},      {2, 0.0, 0.00, -0.30, {12.7, 11.95, 11.2}},
+      {2, 0.0, 0.20, -0.30, {12.05, 11.3, 10.6}},
+  };
+  return s;
+}
+
+constexpr double kCoefficient[3] = {3.1, 1.9, 0.0};
+
+JointData joint_data(int relations) {
+  JointData d;
+  d.relations = relations;
+  for (const Star& s : stars()) {
+    if (std::isnan(s.m0[0]) && relations == 1) continue;  // a star needs an entry
+    d.first.push_back(static_cast<int>(d.relation.size()));
+    for (int r = 0; r < relations; ++r) {
+      if (std::isnan(s.m0[static_cast<std::size_t>(r)])) continue;
+      d.relation.push_back(r);
+      d.x.push_back(s.x);
+      d.m0.push_back(s.m0[static_cast<std::size_t>(r)]);
+      d.var_phot.push_back(0.02 * 0.02 * (r + 1));
+      d.coefficient.push_back(relations > 1 ? kCoefficient[r] : 0.0);
+    }
+    d.plx.push_back(s.plx);
+    d.var_plx.push_back(s.kind == 0 ? 0.03 * 0.03 : 0.0);
+    d.var_ebv.push_back(relations > 1 ? 0.02 * 0.02 : 0.0);
+    d.feh.push_back(s.feh);
+    d.var_feh.push_back(0.08 * 0.08);
+    d.kind.push_back(s.kind);
+    d.group.push_back(s.kind == 2 ? 0 : -1);
+    d.mu.push_back(s.kind == 1 ? 14.2 : 0.0);
+    d.var_mu.push_back(s.kind == 1 ? 0.05 * 0.05 : 0.0);
+    d.row.push_back(d.row.size());
+  }
+  d.first.push_back(static_cast<int>(d.relation.size()));
+  return d;
+}
+
+// The first relation's stars as the single fit's data.
+FitData single_data() {
+  FitData d;
+  auto add = [](FitData::Common& c, const Star& s) {
+    const Eigen::Index n = c.x.size() + 1;
+    for (Eigen::ArrayXd* a : {&c.x, &c.xl, &c.feh, &c.m0, &c.var_m, &c.var_feh})
+      a->conservativeResize(n);
+    c.x[n - 1] = s.x, c.xl[n - 1] = 0, c.feh[n - 1] = s.feh, c.m0[n - 1] = s.m0[0];
+    c.var_m[n - 1] = 0.02 * 0.02, c.var_feh[n - 1] = 0.08 * 0.08;
+    c.row.push_back(static_cast<std::size_t>(n - 1));
+  };
+  for (const Star& s : stars()) {
+    if (std::isnan(s.m0[0])) continue;
+    if (s.kind == 0) {
+      add(d.parallax, s);
+      d.plx.conservativeResize(d.parallax.size()), d.var_plx.conservativeResize(d.parallax.size());
+      d.plx[d.parallax.size() - 1] = s.plx, d.var_plx[d.parallax.size() - 1] = 0.03 * 0.03;
+    } else if (s.kind == 1) {
+      add(d.known, s);
+      d.mu.resize(1), d.var_mu.resize(1);
+      d.mu[0] = 14.2, d.var_mu[0] = 0.05 * 0.05;
+    } else {
+      add(d.anchor, s);
+      d.group.push_back(0);
+    }
+  }
+  return d;
+}
+
+const ParameterLayout& single_layout() {
+  static const ParameterLayout L =
+      ParameterLayout::for_terms(ModelTerms{1.0, false, 0, true, 1, true, true, 0, true}, {"GAL"});
+  return L;
+}
+
+struct JointCase {
+  JointData data;
+  JointLayout layout;
+  FitSettings settings;
+  Eigen::VectorXd theta;
+};
+
+// Every parameter at a value away from any edge; the anchor and gamma_V with priors.
+JointCase joint_case(int relations) {
+  JointCase c;
+  c.data = joint_data(relations);
+  std::vector<std::string> names = {"V", "I", "W"};
+  names.resize(static_cast<std::size_t>(relations));
+  c.layout = JointLayout::make_hierarchical(names, std::vector<bool>(names.size(), true), false,
+                                            {"GAL"}, single_layout(), true);
+  const JointLayout& L = c.layout;
+  c.settings.space = FitSpace::kHierarchical;
+  c.settings.terms.n_anchors = 1;
+  c.settings.params.assign(static_cast<std::size_t>(L.size), ParamSpec{});
+  c.settings.params[static_cast<std::size_t>(L.anchor0)] =
+      ParamSpec{ParamMode::kPrior, 18.5, 0.05, true};
+  c.settings.params[static_cast<std::size_t>(L.gamma[0])] =
+      ParamSpec{ParamMode::kPrior, -0.2, 0.1, true};
+  c.theta = Eigen::VectorXd::Zero(L.size);
+  for (int r = 0; r < relations; ++r) {
+    const auto k = static_cast<std::size_t>(r);
+    c.theta[L.alpha[k]] = -5.8 - 0.75 * r, c.theta[L.beta[k]] = -3.2 - 0.1 * r;
+    c.theta[L.gamma[k]] = -0.15 - 0.02 * r, c.theta[L.sigma[k]] = 0.09 + 0.02 * r;
+  }
+  c.theta[L.correlation] = 0.6;
+  c.theta[L.offset] = -0.02, c.theta[L.anchor0] = 18.45, c.theta[L.outlier] = 0.07;
+  c.theta[L.distance_scale] = 1.1, c.theta[L.distance_power] = 1.4,
+  c.theta[L.distance_exponent] = 0.8;
+  c.theta[L.feh_mean] = 0.03, c.theta[L.feh_spread] = 0.17;
+  c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7;
+  c.theta[L.blend] = 0.12, c.theta[L.blend_scale] = 0.45;
+  return c;
+}
+
+double joint_value(const JointCase& c, const Eigen::VectorXd& theta) {
+  return joint_hierarchical_value(c.data, c.settings, c.layout, theta).neg_log_likelihood;
+}
+
+std::vector<hier::Scale> joint_scales(const JointLayout& L) {
+  std::vector<hier::Scale> s(static_cast<std::size_t>(L.size), hier::Scale::kLinear);
+  for (int j : L.sigma) s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
+  for (int j :
+       {L.outlier_width, L.blend_scale, L.distance_scale, L.distance_exponent, L.feh_spread})
+    s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
+  s[static_cast<std::size_t>(L.distance_power)] = hier::Scale::kLogPlusOne;
+  s[static_cast<std::size_t>(L.outlier)] = s[static_cast<std::size_t>(L.blend)] =
+      hier::Scale::kLogit;
+  s[static_cast<std::size_t>(L.correlation)] = hier::Scale::kAtanh;
+  return s;
+}
+
+// With one relation, the joint likelihood is the single one at the same parameters (the
+// colour term vanishes and the magnitude is the star's own), for each component's set-up.
+TEST(JointHierarchical, OneRelationIsTheSingleRelationLikelihood) {
+  const JointCase c = joint_case(1);
+  const ParameterLayout& S = single_layout();
+  FitSettings single = c.settings;
+  single.params.assign(static_cast<std::size_t>(S.size), ParamSpec{});
+  single.params[static_cast<std::size_t>(S.anchor0)] =
+      c.settings.params[static_cast<std::size_t>(c.layout.anchor0)];
+  single.params[static_cast<std::size_t>(S.gamma)] =
+      c.settings.params[static_cast<std::size_t>(c.layout.gamma[0])];
+  Eigen::VectorXd t(S.size);
+  for (int j = 0; j < S.size; ++j) {
+    std::string name = S.names[static_cast<std::size_t>(j)];
+    for (const char* own : {"alpha", "beta", "gamma", "sigma_int"})
+      if (name == own) name += "_V";
+    const auto at = std::find(c.layout.names.begin(), c.layout.names.end(), name);
+    ASSERT_NE(at, c.layout.names.end()) << name;
+    t[j] = c.theta[at - c.layout.names.begin()];
+  }
+  const FitData d = single_data();
+  for (BlendComponent blends : {BlendComponent::kRising, BlendComponent::kExponential}) {
+    single.hierarchical.blends = blends;
+    JointCase cj = c;
+    cj.settings.hierarchical.blends = blends;
+    EXPECT_NEAR(joint_value(cj, cj.theta), hierarchical_value(d, single, S, t).neg_log_likelihood,
+                1e-9);
+  }
+}
+
+// One parallax star seen in three relations, member component only, the space-density prior
+// with fixed hyperparameters: -ln L against scipy, which integrates the 3-variate Gaussian
+// density of the magnitudes (multivariate_normal with the full covariance, E(B-V), scatter
+// correlation and [Fe/H] terms written out in Python) times the parallax's Gaussian and the
+// prior over mu with quad; the [Fe/H] population's own factor is added by hand.
+TEST(JointHierarchical, StarLikelihoodEqualsScipyIntegralOfTheMultivariateDensity) {
+  JointCase c = joint_case(3);
+  const JointLayout& L = c.layout;
+  c.settings.params[static_cast<std::size_t>(L.outlier)] =
+      ParamSpec{ParamMode::kFixed, 0.0, 0, true};
+  c.settings.params[static_cast<std::size_t>(L.blend)] = ParamSpec{ParamMode::kFixed, 0.0, 0, true};
+  c.theta[L.outlier] = 0, c.theta[L.blend] = 0;
+  c.settings.params[static_cast<std::size_t>(L.anchor0)] = ParamSpec{};
+  c.settings.params[static_cast<std::size_t>(L.gamma[0])] = ParamSpec{};
+  for (int star : {0, 2, 5}) {
+    JointCase one = c;
+    one.data = c.data.take({star});
+    const double ours = joint_value(one, one.theta);
+    const Star& s = stars()[static_cast<std::size_t>(star)];
+    std::ostringstream py;
+    py << std::setprecision(17);
+    py << "import numpy as np\nfrom scipy import stats, integrate\n";
+    py << "m = np.array([" << s.m0[0] << "," << s.m0[1] << "," << s.m0[2] << "])\n";
+    py << "x, z, plx = " << s.x << ", " << s.feh << ", " << s.plx << "\n";
+    py << "alpha = np.array([" << c.theta[L.alpha[0]] << "," << c.theta[L.alpha[1]] << ","
+       << c.theta[L.alpha[2]] << "])\n";
+    py << "beta = np.array([" << c.theta[L.beta[0]] << "," << c.theta[L.beta[1]] << ","
+       << c.theta[L.beta[2]] << "])\n";
+    py << "gamma = np.array([" << c.theta[L.gamma[0]] << "," << c.theta[L.gamma[1]] << ","
+       << c.theta[L.gamma[2]] << "])\n";
+    py << "sig = np.array([" << c.theta[L.sigma[0]] << "," << c.theta[L.sigma[1]] << ","
+       << c.theta[L.sigma[2]] << "])\n";
+    py << "rho, off = " << c.theta[L.correlation] << ", " << c.theta[L.offset] << "\n";
+    py << "Ls, k, a = " << c.theta[L.distance_scale] << ", " << c.theta[L.distance_power] << ", "
+       << c.theta[L.distance_exponent] << "\n";
+    py << "muz, tau = " << c.theta[L.feh_mean] << ", " << c.theta[L.feh_spread] << "\n";
+    py << R"(s2 = 0.08**2
+den = tau**2 + s2
+zbar = (tau**2 * z + s2 * muz) / den
+W = tau**2 * s2 / den
+M = alpha + beta * x + gamma * zbar
+c = np.array([3.1, 1.9, 0.0])
+S = np.diag(0.02**2 * np.array([1.0, 2.0, 3.0]) + sig**2)
+for i in range(3):
+    for j in range(3):
+        if i != j:
+            S[i, j] = rho * sig[i] * sig[j]
+S += np.outer(c, c) * 0.02**2 + np.outer(gamma, gamma) * W
+from scipy.special import gammaln
+def prior(mu):
+    # the generalised-gamma space density in distance d (kpc) = 10^(0.2 mu - 2), per unit mu
+    d = 10 ** (0.2 * mu - 2.0)
+    logp = np.log(a) - gammaln((k + 1) / a) - (k + 1) * np.log(Ls) + k * np.log(d) - (d / Ls) ** a
+    return np.exp(logp) * d * 0.2 * np.log(10)
+def f(mu):
+    return (stats.multivariate_normal(M + mu, S).pdf(m) * stats.norm(10 ** (-0.2 * (mu - 10)) + off, 0.03).pdf(plx)
+            * prior(mu))
+mode = integrate.quad(f, -5, 30, points=[10 - 5 * np.log10(max(plx - off, 0.01))], limit=400, epsabs=0, epsrel=1e-12)
+lnL = np.log(mode[0]) + stats.norm(muz, np.sqrt(den)).logpdf(z)
+print(repr(-lnL))
+)";
+    const test::CommandResult py_run = test::run_python(py.str());
+    ASSERT_EQ(py_run.exit_code, 0) << py_run.output;
+    const std::vector<double> scipy = test::parse_numbers(py_run.output);
+    ASSERT_EQ(scipy.size(), 1u) << py_run.output;
+    EXPECT_NEAR(ours, scipy[0], 2e-6) << "star " << star;
+  }
+}
+
+void expect_gradient_matches_differences(const JointCase& c) {
+  const JointHierarchicalValue v = joint_hierarchical_value(c.data, c.settings, c.layout, c.theta);
+  ASSERT_TRUE(v.finite);
+  const std::vector<hier::Scale> scales = joint_scales(c.layout);
+  for (int j = 0; j < c.layout.size; ++j) {
+    if (c.settings.params[static_cast<std::size_t>(j)].mode == ParamMode::kFixed) continue;
+    const double h = 1e-5 * std::max(1.0, std::abs(c.theta[j]));
+    Eigen::VectorXd up = c.theta, down = c.theta;
+    up[j] += h, down[j] -= h;
+    const double numeric = (joint_value(c, up) - joint_value(c, down)) / (2 * h);
+    const double analytic =
+        v.gradient[j] / hier::slope_of(scales[static_cast<std::size_t>(j)], c.theta[j]);
+    EXPECT_NEAR(analytic, numeric, 2e-6 * std::max(1.0, std::abs(numeric)))
+        << c.layout.names[static_cast<std::size_t>(j)];
+  }
+}
+
+TEST(JointHierarchical, GradientEqualsCentralDifferencesOfTheLikelihood) {
+  JointCase c = joint_case(3);
+  expect_gradient_matches_differences(c);
+  c.theta[c.layout.correlation] = -0.3;
+  expect_gradient_matches_differences(c);
+  c.settings.hierarchical.blends = BlendComponent::kExponential;
+  expect_gradient_matches_differences(c);
+}
+
+TEST(JointHierarchical,
+     GradientWithTheSmoothHistogramPriorAndASharedSlopeEqualsCentralDifferences) {
+  JointCase c;
+  c.data = joint_data(3);
+  const ParameterLayout single =
+      ParameterLayout::for_terms(ModelTerms{1.0, false, 0, true, 1, true, true, 8, true}, {"GAL"});
+  c.layout = JointLayout::make_hierarchical({"V", "I", "W"}, {true, false, true}, true, {"GAL"},
+                                            single, true);
+  const JointLayout& L = c.layout;
+  c.settings.space = FitSpace::kHierarchical;
+  c.settings.terms.n_anchors = 1;
+  c.settings.hierarchical.histogram_start = 8.5, c.settings.hierarchical.histogram_step = 0.5;
+  c.settings.hierarchical.histogram_alpha_ref = -5.0;
+  c.settings.params.assign(static_cast<std::size_t>(L.size), ParamSpec{});
+  c.theta = Eigen::VectorXd::Zero(L.size);
+  for (std::size_t r = 0; r < 3; ++r) {
+    c.theta[L.alpha[r]] = -5.8 - 0.75 * static_cast<double>(r);
+    c.theta[L.sigma[r]] = 0.1;
+    if (L.gamma[r] >= 0) c.theta[L.gamma[r]] = -0.2;
+  }
+  EXPECT_EQ(L.beta[0], L.beta[2]);
+  EXPECT_EQ(L.gamma[1], -1);
+  c.theta[L.beta[0]] = -3.2, c.theta[L.correlation] = 0.4;
+  c.theta[L.offset] = -0.02, c.theta[L.anchor0] = 18.45, c.theta[L.outlier] = 0.07;
+  c.theta[L.feh_mean] = 0.03, c.theta[L.feh_spread] = 0.17;
+  c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7;
+  c.theta[L.blend] = 0.05, c.theta[L.blend_scale] = 0.6;
+  for (int j = 0; j < L.distance_bins; ++j) c.theta[L.distance_bin0 + j] = 0.3 * std::sin(j + 1.0);
+  const std::vector<hier::Scale> scales = [&] {
+    std::vector<hier::Scale> s(static_cast<std::size_t>(L.size), hier::Scale::kLinear);
+    for (int j : L.sigma) s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
+    for (int j : {L.outlier_width, L.blend_scale, L.feh_spread})
+      s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
+    s[static_cast<std::size_t>(L.outlier)] = s[static_cast<std::size_t>(L.blend)] =
+        hier::Scale::kLogit;
+    s[static_cast<std::size_t>(L.correlation)] = hier::Scale::kAtanh;
+    return s;
+  }();
+  const JointHierarchicalValue v = joint_hierarchical_value(c.data, c.settings, L, c.theta);
+  ASSERT_TRUE(v.finite);
+  for (int j = 0; j < L.size; ++j) {
+    const double h = 1e-5 * std::max(1.0, std::abs(c.theta[j]));
+    Eigen::VectorXd up = c.theta, down = c.theta;
+    up[j] += h, down[j] -= h;
+    const double numeric = (joint_value(c, up) - joint_value(c, down)) / (2 * h);
+    EXPECT_NEAR(v.gradient[j] / hier::slope_of(scales[static_cast<std::size_t>(j)], c.theta[j]),
+                numeric, 2e-6 * std::max(1.0, std::abs(numeric)))
+        << L.names[static_cast<std::size_t>(j)];
+  }
+}
+
+}  // namespace
+}  // namespace rungcal
