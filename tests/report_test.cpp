@@ -371,17 +371,27 @@ TEST(Figures, PointsSitWhereTheDataAreAndRejectedStarsShowTheirMarker) {
   cairo_surface_destroy(img);
 }
 
-// Pixels of a colour inside a rectangle of the image.
-int pixels_in_box(cairo_surface_t* img, double left, double top, double right, double bottom, const double rgb[3]) {
+// Pixels inside a rectangle of the image (rows [top, bottom), columns [left, right)) that
+// `match` accepts; it sees each pixel as ARGB32, little endian: B G R A.
+template <class Match>
+int pixels_matching(cairo_surface_t* img, double left, double top, double right, double bottom,
+                    Match match) {
   const int stride = cairo_image_surface_get_stride(img);
   const unsigned char* data = cairo_image_surface_get_data(img);
   int count = 0;
   for (int y = static_cast<int>(top); y < static_cast<int>(bottom); ++y)
-    for (int x = static_cast<int>(left); x < static_cast<int>(right); ++x) {
-      const unsigned char* p = data + y * stride + 4 * x;
-      if (std::abs(p[2] - 255 * rgb[0]) < 30 && std::abs(p[1] - 255 * rgb[1]) < 30 && std::abs(p[0] - 255 * rgb[2]) < 30) ++count;
-    }
+    for (int x = static_cast<int>(left); x < static_cast<int>(right); ++x)
+      count += match(data + y * stride + 4 * x);
   return count;
+}
+
+// Pixels of a colour inside a rectangle of the image.
+int pixels_in_box(cairo_surface_t* img, double left, double top, double right, double bottom,
+                  const double rgb[3]) {
+  return pixels_matching(img, left, top, right, bottom, [&](const unsigned char* p) {
+    return std::abs(p[2] - 255 * rgb[0]) < 30 && std::abs(p[1] - 255 * rgb[1]) < 30 &&
+           std::abs(p[0] - 255 * rgb[2]) < 30;
+  });
 }
 
 TEST(Figures, ThePlDiagramHasAKeyAndCountsTheStarsItCannotDraw) {
@@ -445,6 +455,240 @@ TEST(Figures, ResidualTrendsShowEachStarWithAResidual) {
   const double blue[3] = {0.0, 0.447, 0.698};
   EXPECT_GT(pixels_like(img, s.x_to_output(-0.1), 4, blue), 20);  // the star at [Fe/H] = -0.1
   cairo_surface_destroy(img);
+}
+
+// Figure inputs with [Fe/H] and Gaia G beside each residual (the fit's residual columns).
+FigureInputs residual_inputs(bool with_g) {
+  FigureInputs f = figure_inputs();
+  f.res.add_column("feh", ColumnType::kReal);
+  if (with_g) f.res.add_column("gaia_g_mag", ColumnType::kReal);
+  for (std::size_t i = 0; i < f.res.rows(); ++i) {
+    const double k = static_cast<double>(i);
+    f.res.column("feh").real[i] = -0.2 + 0.1 * k, f.res.column("feh").null[i] = 0;
+    if (with_g)
+      f.res.column("gaia_g_mag").real[i] = 9.0 + 1.5 * k, f.res.column("gaia_g_mag").null[i] = 0;
+  }
+  return f;
+}
+
+// PNG pixels per layout unit at a width: the layout is drawn in units of 8/13 pt at the
+// journal widths, PNGs at 300 dpi (docs/file-formats.md); one pixel a unit on screen.
+double pixels_per_unit(FigureWidth w) {
+  return w == FigureWidth::kScreen ? 1.0 : 8.0 / 13.0 * 300.0 / 72.0;
+}
+
+TEST(Figures, TheResidualFigureHasTheGPanelTheDocsPromiseOrSaysWhyNot) {
+  // Issue 20: docs/file-formats.md promises residuals against [Fe/H], G and parallax S/N;
+  // G is the catalog's Gaia G (gaia_g_mag), the magnitude a parallax zero point depends on.
+  test::TempDir dir;
+  FigureInputs f = residual_inputs(true);
+  const FigureSummary s = residual_trends(f.cal, "X", f.res, FigureFormat::kPng, dir.file("r.png"));
+  ASSERT_EQ(s.panels.size(), 3u);
+  EXPECT_EQ(s.panels[0].x_label, "[Fe/H] (dex)");
+  EXPECT_EQ(s.panels[1].x_label, "Gaia G (mag)");
+  EXPECT_EQ(s.panels[2].x_label, "parallax / error");
+  EXPECT_EQ(s.note, "");
+  // The G panel spans the stars' G (9 to 13.5 for the four with residuals) and draws each
+  // at its G and residual (0.1 of a sigma on a -4.5..4.5 axis).
+  const FigurePanel& g = s.panels[1];
+  EXPECT_LT(g.x_min, 9.0);
+  EXPECT_GT(g.x_max, 13.5);
+  EXPECT_LT(g.x_max, 14.0);
+  cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("r.png").c_str());
+  ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+  const double blue[3] = {0.0, 0.447, 0.698};
+  const double y = g.box.bottom - (0.1 + 4.5) / 9.0 * (g.box.bottom - g.box.top);
+  auto x_of = [&](double mag) {
+    return g.box.left + (mag - g.x_min) / (g.x_max - g.x_min) * (g.box.right - g.box.left);
+  };
+  for (double mag : {9.0, 10.5, 12.0, 13.5})
+    EXPECT_GT(pixels_in_box(img, x_of(mag) - 5, y - 5, x_of(mag) + 5, y + 5, blue), 20) << mag;
+  const double between = x_of(11.25);  // halfway from the star at 10.5 to the one at 12
+  EXPECT_EQ(pixels_in_box(img, between - 5, y - 5, between + 5, y + 5, blue), 0);
+  cairo_surface_destroy(img);
+  // A catalog whose ingest did not map gaia_g: two panels, and the figure says why not three.
+  const FigureInputs no_g = residual_inputs(false);
+  const FigureSummary two =
+      residual_trends(no_g.cal, "X", no_g.res, FigureFormat::kPng, dir.file("r2.png"));
+  ASSERT_EQ(two.panels.size(), 2u);
+  EXPECT_EQ(two.panels[1].x_label, "parallax / error");
+  EXPECT_EQ(two.note, "not shown: no star has G");
+}
+
+// Rows of a PNG that hold nothing but the white background: the longest run of them.
+int longest_blank_run(cairo_surface_t* img) {
+  const int w = cairo_image_surface_get_width(img), h = cairo_image_surface_get_height(img);
+  const int stride = cairo_image_surface_get_stride(img);
+  const unsigned char* data = cairo_image_surface_get_data(img);
+  int longest = 0, run = 0;
+  for (int y = 0; y < h; ++y) {
+    bool blank = true;
+    for (int x = 0; x < w && blank; ++x) {
+      const unsigned char* p = data + y * stride + 4 * x;
+      blank = p[0] == 255 && p[1] == 255 && p[2] == 255;
+    }
+    run = blank ? run + 1 : 0;
+    longest = std::max(longest, run);
+  }
+  return longest;
+}
+
+// Pixels darker than the background inside a rectangle of the image.
+int ink_in_box(cairo_surface_t* img, double left, double top, double right, double bottom) {
+  return pixels_matching(img, left, top, right, bottom, [](const unsigned char* p) {
+    return p[0] < 200 || p[1] < 200 || p[2] < 200;
+  });
+}
+
+// The checks of issue 20 on one PNG: no label's ink touches a plot box (a box widened by
+// its 1.2-unit frame line) or another label; the rows just above each plot box's frame are
+// clear across its width (an axis title of the panel above would show there); and no
+// full-width strip of background-only rows longer than 3% of the height (before, the
+// residual figure's panels stopped 70 units of 640 short of the foot).
+void expect_labels_clear_and_no_blank_strip(const FigureSummary& s, const std::string& png,
+                                            FigureWidth width, const std::string& what) {
+  const double k = pixels_per_unit(width), frame = 0.6 * k + 1;
+  ASSERT_FALSE(s.panels.empty()) << what;
+  ASSERT_FALSE(s.labels.empty()) << what;
+  for (const auto& panel : s.panels) {
+    const FigureBox framed{panel.box.left - frame, panel.box.top - frame, panel.box.right + frame,
+                           panel.box.bottom + frame};
+    for (const auto& label : s.labels)
+      EXPECT_FALSE(label.touches(framed))
+          << what << ": a label at (" << label.left << ", " << label.top << ")-(" << label.right
+          << ", " << label.bottom << ") touches the panel at y " << panel.box.top << "-"
+          << panel.box.bottom;
+  }
+  for (std::size_t i = 0; i < s.labels.size(); ++i)
+    for (std::size_t j = i + 1; j < s.labels.size(); ++j)
+      EXPECT_FALSE(s.labels[i].touches(s.labels[j])) << what << " labels " << i << ", " << j;
+  cairo_surface_t* img = cairo_image_surface_create_from_png(png.c_str());
+  ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+  const int w = cairo_image_surface_get_width(img), h = cairo_image_surface_get_height(img);
+  for (const auto& label : s.labels) {  // every label on the canvas, and inked where it says
+    EXPECT_GE(label.left, 0) << what;
+    EXPECT_GE(label.top, 0) << what;
+    EXPECT_LE(label.right, w) << what;
+    EXPECT_LE(label.bottom, h) << what;
+    EXPECT_GT(ink_in_box(img, label.left, label.top, label.right + 1, label.bottom + 1), 0) << what;
+  }
+  for (std::size_t i = 1; i < s.panels.size(); ++i) {
+    const FigureBox& b = s.panels[i].box;
+    EXPECT_EQ(ink_in_box(img, b.left, b.top - frame - 2 * k, b.right, b.top - frame), 0)
+        << what << " panel " << i;
+  }
+  EXPECT_LT(longest_blank_run(img), 0.03 * h) << what;
+  cairo_surface_destroy(img);
+}
+
+TEST(Figures, NoLabelTouchesAPanelAndNoBlankStripAtAnyWidth) {
+  // Issue 20, read as a referee: the residual figure's axis titles ran into the next panel,
+  // its title sat on the data, and a blank strip filled its foot.
+  test::TempDir dir;
+  const FigureInputs three = residual_inputs(true), two = residual_inputs(false);
+  const FigureInputs one = figure_inputs();  // parallax S/N only
+  for (const auto& [width, name] :
+       {std::pair{FigureWidth::kScreen, "screen"}, std::pair{FigureWidth::kColumn, "column"},
+        std::pair{FigureWidth::kTwoColumns, "two_columns"}}) {
+    for (const auto& [in, panels] :
+         {std::pair{&three, 3u}, std::pair{&two, 2u}, std::pair{&one, 1u}}) {
+      const std::string png = dir.file(fmt::format("r{}_{}.png", panels, name));
+      const FigureSummary s =
+          residual_trends(in->cal, "X", in->res, FigureFormat::kPng, png, width);
+      EXPECT_EQ(s.panels.size(), panels) << name;
+      expect_labels_clear_and_no_blank_strip(s, png, width,
+                                             fmt::format("residuals, {} panels, {}", panels, name));
+    }
+    const std::string png = dir.file(fmt::format("pl_{}.png", name));
+    const FigureSummary s = pl_diagram(one.cal, "X", one.res, FigureFormat::kPng, png, width);
+    ASSERT_EQ(s.panels.size(), 2u);
+    expect_labels_clear_and_no_blank_strip(s, png, width, fmt::format("PL, {}", name));
+  }
+}
+
+// A well-sampled relation as a calibrator sample gives it (alpha -5, beta -3 at log P0 = 1,
+// each star at 2 kpc, 5% parallax errors): 29 stars from log P 0.3 to 1.7 within 0.3 mag of
+// the line, and four faint short-period stars 1.8-1.95 mag under it, the kind the key
+// covered in the lower right of a column-wide figure. Returns the stars' (log P, M) too.
+std::vector<std::pair<double, double>> crowded_relation(FigureInputs& f) {
+  f = figure_inputs();
+  StarTable& t = f.res;
+  t = t.select_rows({});
+  std::vector<std::pair<double, double>> stars;
+  for (int i = 0; i < 29; ++i) {
+    const double logp = 0.3 + 0.05 * i;
+    stars.push_back({logp, -5.0 - 3.0 * (logp - 1.0) + 0.3 * std::sin(2.0 * i)});
+  }
+  for (const double logp : {0.33, 0.38, 0.43, 0.48})
+    stars.push_back({logp, -5.0 - 3.0 * (logp - 1.0) + 1.8 + logp - 0.33});
+  for (std::size_t i = 0; i < stars.size(); ++i) {
+    const auto [logp, m_abs] = stars[i];
+    t.column("relation").push_text("X");
+    t.column("id").push_text(fmt::format("C{}", i));
+    t.column("kind").push_text("parallax");
+    t.column("reason").push_null();
+    t.column("used").push_boolean(true);
+    t.column("log_period_f").push_real(logp);
+    t.column("m0").push_real(m_abs + 5 * std::log10(200.0));  // at 2 kpc: parallax 0.5 mas
+    t.column("m0_err").push_real(0.02);
+    t.column("abs_mag_model").push_real(-5.0 - 3.0 * (logp - 1.0));
+    t.column("residual").push_real(0.5);
+    t.column("parallax_corrected_mas").push_real(0.5);
+    t.column("parallax_err_mas").push_real(0.025);
+    t.column("predicted").push_real(0.5);
+  }
+  return stars;
+}
+
+TEST(Figures, ThePlKeyCoversNoStarAtAnyWidth) {
+  // Issue 20: at column width the key, in the lower right, covered the faint short-period
+  // stars. Each star's marker (5 units across its centre) must stay clear of the key, and
+  // the key's box holds no marker colour beside its own markers' column.
+  test::TempDir dir;
+  FigureInputs f;
+  const auto stars = crowded_relation(f);
+  const double blue[3] = {0.0, 0.447, 0.698};
+  for (const auto& [width, name, key_inside] :
+       {std::tuple{FigureWidth::kScreen, "screen", true},
+        std::tuple{FigureWidth::kColumn, "column", false},
+        std::tuple{FigureWidth::kTwoColumns, "two_columns", true}}) {
+    const std::string png = dir.file(fmt::format("pl_{}.png", name));
+    const FigureSummary s = pl_diagram(f.cal, "X", f.res, FigureFormat::kPng, png, width);
+    EXPECT_EQ(s.used_points, 33) << name;
+    const double k = pixels_per_unit(width), r = 5 * k;
+    const FigureBox key{s.legend_left, s.legend_top, s.legend_right, s.legend_bottom};
+    ASSERT_GT(key.right - key.left, 100 * k) << name;
+    // Inside the plot box where a corner is free (a wide figure's lower right); above it
+    // when none is (a column is too narrow for the key beside the faint stars).
+    const FigureBox box{s.box_left, s.box_top, s.box_right, s.box_bottom};
+    if (key_inside) {
+      EXPECT_GE(key.left, box.left) << name;
+      EXPECT_LE(key.right, box.right) << name;
+      EXPECT_GE(key.top, box.top) << name;
+      EXPECT_LE(key.bottom, box.bottom) << name;
+    } else {
+      EXPECT_LT(key.bottom, box.top) << name;
+      EXPECT_GE(key.top, 0) << name;
+      for (const auto& label : s.labels) EXPECT_FALSE(key.touches(label)) << name;
+    }
+    for (const auto& [logp, m_abs] : stars) {
+      const double x = s.x_to_output(logp), y = s.y_to_output(m_abs);
+      EXPECT_GT(x, box.left) << name;
+      EXPECT_LT(x, box.right) << name;
+      EXPECT_FALSE(key.touches({x - r, y - r, x + r, y + r}))
+          << name << ": the star at log P " << logp << ", M " << m_abs;
+    }
+    cairo_surface_t* img = cairo_image_surface_create_from_png(png.c_str());
+    ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
+    // The faint stars are drawn where the summary says (the check above means something).
+    EXPECT_GT(pixels_in_box(img, s.x_to_output(0.33) - r, s.y_to_output(stars[29].second) - r,
+                            s.x_to_output(0.33) + r, s.y_to_output(stars[29].second) + r, blue),
+              10)
+        << name;
+    EXPECT_EQ(pixels_in_box(img, key.left + 24 * k, key.top, key.right, key.bottom, blue), 0)
+        << name;
+    cairo_surface_destroy(img);
+  }
 }
 
 // A hand-made light-curve product: one star, V epochs at four phases only, a first-order

@@ -9,6 +9,7 @@
 #include <cmath>
 #include <limits>
 #include <memory>
+#include <optional>
 #include <utility>
 
 #include <fmt/format.h>
@@ -119,25 +120,56 @@ void commit_figure(std::unique_ptr<Surface> surface, AtomicOutput& out, const st
   out.commit();
 }
 
+FigureBox scaled(const FigureBox& b, double k) {
+  return {k * b.left, k * b.top, k * b.right, k * b.bottom};
+}
+
 // The plot box in PNG pixels (the units times the canvas's pixels per unit), and the key's.
 void record_plot_box(FigureSummary& s, const Panel& p, const Canvas& c) {
   const double k = c.pixels_per_unit;
   s.box_left = k * p.left, s.box_right = k * p.right, s.box_top = k * p.top, s.box_bottom = k * p.bottom;
   s.x_min = p.x0, s.x_max = p.x1, s.y_min = p.y0, s.y_max = p.y1;
+  s.y_inverted = p.y_inverted;
   s.legend_left *= k, s.legend_right *= k, s.legend_top *= k, s.legend_bottom *= k;
 }
 
-void text(cairo_t* cr, double x, double y, const std::string& s, double size, double align_x, double align_y, bool vertical = false) {
+void record_panel(FigureSummary& s, const Panel& p, const std::string& x_label, const Canvas& c) {
+  s.panels.push_back(
+      {scaled({p.left, p.top, p.right, p.bottom}, c.pixels_per_unit), p.x0, p.x1, x_label});
+}
+
+void record_labels(FigureSummary& s, const std::vector<FigureBox>& ink, const Canvas& c) {
+  for (const auto& b : ink) s.labels.push_back(scaled(b, c.pixels_per_unit));
+}
+
+// Extents of a text at a font size, before drawing it (a layout sizes its key by them).
+cairo_text_extents_t text_extents(cairo_t* cr, const std::string& s, double size) {
   cairo_save(cr);
   cairo_set_font_size(cr, size);
   cairo_text_extents_t e;
   cairo_text_extents(cr, s.c_str(), &e);
+  cairo_restore(cr);
+  return e;
+}
+
+// Draws a text; returns the box its ink covers, in units, so that layouts can be checked
+// for labels touching a plot box.
+FigureBox text(cairo_t* cr, double x, double y, const std::string& s, double size, double align_x,
+               double align_y, bool vertical = false) {
+  const cairo_text_extents_t e = text_extents(cr, s, size);
+  cairo_save(cr);
+  cairo_set_font_size(cr, size);
   cairo_move_to(cr, x, y);
   if (vertical) cairo_rotate(cr, -M_PI / 2);
   cairo_rel_move_to(cr, -e.width * align_x - e.x_bearing, e.height * align_y);
   cairo_set_source_rgb(cr, 0, 0, 0);
   cairo_show_text(cr, s.c_str());
   cairo_restore(cr);
+  // Ink in the text's own frame: u along the baseline, v down from the start point.
+  const double u0 = -e.width * align_x, u1 = u0 + e.width;
+  const double v0 = e.height * align_y + e.y_bearing, v1 = v0 + e.height;
+  if (!vertical) return {x + u0, y + v0, x + u1, y + v1};
+  return {x + v0, y - u1, x + v1, y - u0};  // turned a quarter left: (u, v) -> (v, -u)
 }
 
 }  // namespace
@@ -150,9 +182,26 @@ std::string axis_number(double v) {
 
 namespace {
 
-// Draws the frame, ticks and labels; returns the number of labelled y ticks.
-int axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::string& ylabel, bool x_numbers = true,
-         double min_x_step = 0.0, int y_ticks = 5) {
+// What axes() drew: the number of labelled y ticks, and every label's ink (units).
+struct AxisInk {
+  int y_ticks = 0;
+  std::vector<FigureBox> labels;
+};
+
+// Below a panel with numbers on its x axis: tick labels to about 16 units, the axis title's
+// ink to about 47 (its 15-unit glyphs start 28 units under the frame).
+constexpr double kBelowXAxis = 48;
+// The layouts' other measures, in units: title lines from the top of the canvas, 18 apart
+// (13-unit text); the plot boxes 90 from the left (y tick labels and the y axis title) and
+// 30 from the right; the space between a title or an axis title and the next plot box; the
+// margin under the last axis title.
+constexpr double kTitleTop = 8, kTitleLine = 18, kPanelLeft = 90, kPanelRightMargin = 30,
+                 kPanelGap = 10, kFootMargin = 6;
+
+// Draws the frame, ticks and labels.
+AxisInk axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::string& ylabel,
+             bool x_numbers = true, double min_x_step = 0.0, int y_ticks = 5) {
+  AxisInk ink;
   cairo_set_source_rgb(cr, 0, 0, 0);
   cairo_set_line_width(cr, 1.2);
   cairo_rectangle(cr, p.left, p.top, p.right - p.left, p.bottom - p.top);
@@ -162,19 +211,22 @@ int axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::stri
     cairo_move_to(cr, p.px(x), p.bottom);
     cairo_line_to(cr, p.px(x), p.bottom - 6);
     cairo_stroke(cr);
-    if (x_numbers) text(cr, p.px(x), p.bottom + 6, axis_number(std::round(x / sx) * sx), 13, 0.5, 1.0);
+    if (x_numbers)
+      ink.labels.push_back(
+          text(cr, p.px(x), p.bottom + 6, axis_number(std::round(x / sx) * sx), 13, 0.5, 1.0));
   }
-  int labelled = 0;
   for (double y = std::ceil(std::min(p.y0, p.y1) / sy) * sy; y <= std::max(p.y0, p.y1) + 1e-9; y += sy) {
     cairo_move_to(cr, p.left, p.py(y));
     cairo_line_to(cr, p.left + 6, p.py(y));
     cairo_stroke(cr);
-    text(cr, p.left - 6, p.py(y), axis_number(std::round(y / sy) * sy), 13, 1.0, 0.5);
-    ++labelled;
+    ink.labels.push_back(
+        text(cr, p.left - 6, p.py(y), axis_number(std::round(y / sy) * sy), 13, 1.0, 0.5));
+    ++ink.y_ticks;
   }
-  if (!xlabel.empty()) text(cr, (p.left + p.right) / 2, p.bottom + 28, xlabel, 15, 0.5, 1.0);
-  text(cr, p.left - 52, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true);
-  return labelled;
+  if (!xlabel.empty())
+    ink.labels.push_back(text(cr, (p.left + p.right) / 2, p.bottom + 28, xlabel, 15, 0.5, 1.0));
+  ink.labels.push_back(text(cr, p.left - 52, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true));
+  return ink;
 }
 
 // How a star is drawn: used (a filled circle), used but more likely an outlier or a blend
@@ -201,57 +253,6 @@ void marker(cairo_t* cr, double x, double y, Mark mark) {
 }
 void marker(cairo_t* cr, double x, double y, bool used) { marker(cr, x, y, used ? Mark::kUsed : Mark::kRefused); }
 
-// The PL diagram's key, in the top panel's lower right (long periods are bright, so that
-// corner holds faint long-period stars only rarely): used and refused markers with their
-// counts, the relation and its scatter band, and the arrow of an open error bar.
-void pl_legend(cairo_t* cr, const Panel& top, const std::string& relation, const FigureSummary& s,
-               FigureSummary& where) {
-  const bool outliers = s.likely_outlier_points > 0;
-  const double row = 17, w = 250, h = 92 + (outliers ? row : 0), x = top.right - w - 8, y = top.bottom - h - 8;
-  where.legend_left = x, where.legend_top = y, where.legend_right = x + w, where.legend_bottom = y + h;
-  cairo_set_source_rgba(cr, 1, 1, 1, 0.92);
-  cairo_rectangle(cr, x, y, w, h);
-  cairo_fill_preserve(cr);
-  cairo_set_source_rgb(cr, 0.6, 0.6, 0.6);
-  cairo_set_line_width(cr, 0.8);
-  cairo_stroke(cr);
-  const double mx = x + 14, tx = x + 30;
-  double line = 0.8;
-  marker(cr, mx, y + row * line, Mark::kUsed);
-  text(cr, tx, y + row * line, fmt::format("used in the fit ({})", s.used_points - s.likely_outlier_points), 11, 0.0,
-       0.5);
-  if (outliers) {
-    line += 1.0;
-    marker(cr, mx, y + row * line, Mark::kLikelyOutlier);
-    text(cr, tx, y + row * line, fmt::format("likely outlier, membership < 0.5 ({})", s.likely_outlier_points),
-         11, 0.0, 0.5);
-  }
-  line += 1.0;
-  marker(cr, mx, y + row * line, Mark::kRefused);
-  text(cr, tx, y + row * line, fmt::format("refused ({})", s.rejected_points), 11, 0.0, 0.5);
-  line += 1.0;
-  cairo_set_source_rgba(cr, kGrey[0], kGrey[1], kGrey[2], 0.35);
-  cairo_rectangle(cr, mx - 9, y + row * line - 5, 18, 10);
-  cairo_fill(cr);
-  cairo_set_source_rgb(cr, 0, 0, 0);
-  cairo_set_line_width(cr, 1.5);
-  cairo_move_to(cr, mx - 9, y + row * line);
-  cairo_line_to(cr, mx + 9, y + row * line);
-  cairo_stroke(cr);
-  text(cr, tx, y + row * line, fmt::format("{} relation at [Fe/H] = 0, \u00b1\u03c3_int", relation), 11, 0.0, 0.5);
-  line += 1.0;
-  cairo_set_source_rgba(cr, 0.3, 0.3, 0.3, 0.8);
-  cairo_set_line_width(cr, 0.9);
-  const double ay = y + row * line - 5;
-  cairo_move_to(cr, mx, ay + 10);
-  cairo_line_to(cr, mx, ay);
-  cairo_move_to(cr, mx - 3, ay + 5);
-  cairo_line_to(cr, mx, ay);
-  cairo_line_to(cr, mx + 3, ay + 5);
-  cairo_stroke(cr);
-  text(cr, tx, y + row * line, "parallax \u2212 error \u2264 0: no bright limit", 11, 0.0, 0.5);
-}
-
 double parameter(const nlohmann::json& rel, const std::string& name, double fallback = 0.0) {
   for (const auto& p : rel.at("parameters"))
     if (p.at("name") == name) return p.at("value").get<double>();
@@ -270,6 +271,148 @@ struct Point {
   Mark mark = Mark::kUsed;
 };
 
+// The fitted relation at [Fe/H] = 0 and its intrinsic scatter.
+struct Relation {
+  double alpha, beta, pivot, sigma;
+  double at(double log_p) const { return alpha + beta * (log_p - pivot); }
+};
+
+// The PL diagram's key: used and refused markers with their counts, the relation and its
+// scatter band, and the arrow of an open error bar; sized by its longest text.
+struct PlKey {
+  std::vector<std::string> texts;  // one a row, in the order drawn
+  bool outliers = false;           // a row for the likely outliers
+  double width = 0, height = 0;    // units
+};
+constexpr double kKeyRow = 17, kKeyText = 11, kKeyTextLeft = 30;
+
+PlKey pl_key(cairo_t* cr, const std::string& relation, const FigureSummary& s) {
+  PlKey key;
+  key.outliers = s.likely_outlier_points > 0;
+  key.texts.push_back(fmt::format("used in the fit ({})", s.used_points - s.likely_outlier_points));
+  if (key.outliers)
+    key.texts.push_back(
+        fmt::format("likely outlier, membership < 0.5 ({})", s.likely_outlier_points));
+  key.texts.push_back(fmt::format("refused ({})", s.rejected_points));
+  key.texts.push_back(fmt::format("{} relation at [Fe/H] = 0, \u00b1\u03c3_int", relation));
+  key.texts.push_back("parallax \u2212 error \u2264 0: no bright limit");
+  double widest = 0;
+  for (const auto& t : key.texts)
+    widest = std::max(widest, text_extents(cr, t, kKeyText).x_advance);
+  key.width = kKeyTextLeft + widest + 10;
+  key.height = (static_cast<double>(key.texts.size()) + 0.6) * kKeyRow;
+  return key;
+}
+
+void draw_pl_key(cairo_t* cr, const PlKey& key, double x, double y) {
+  cairo_set_source_rgba(cr, 1, 1, 1, 0.92);
+  cairo_rectangle(cr, x, y, key.width, key.height);
+  cairo_fill_preserve(cr);
+  cairo_set_source_rgb(cr, 0.6, 0.6, 0.6);
+  cairo_set_line_width(cr, 0.8);
+  cairo_stroke(cr);
+  const double mx = x + 14, tx = x + kKeyTextLeft;
+  std::size_t row = 0;
+  auto centre = [&] { return y + kKeyRow * (0.8 + static_cast<double>(row)); };
+  marker(cr, mx, centre(), Mark::kUsed);
+  text(cr, tx, centre(), key.texts[row], kKeyText, 0.0, 0.5);
+  if (key.outliers) {
+    ++row;
+    marker(cr, mx, centre(), Mark::kLikelyOutlier);
+    text(cr, tx, centre(), key.texts[row], kKeyText, 0.0, 0.5);
+  }
+  ++row;
+  marker(cr, mx, centre(), Mark::kRefused);
+  text(cr, tx, centre(), key.texts[row], kKeyText, 0.0, 0.5);
+  ++row;
+  cairo_set_source_rgba(cr, kGrey[0], kGrey[1], kGrey[2], 0.35);
+  cairo_rectangle(cr, mx - 9, centre() - 5, 18, 10);
+  cairo_fill(cr);
+  cairo_set_source_rgb(cr, 0, 0, 0);
+  cairo_set_line_width(cr, 1.5);
+  cairo_move_to(cr, mx - 9, centre());
+  cairo_line_to(cr, mx + 9, centre());
+  cairo_stroke(cr);
+  text(cr, tx, centre(), key.texts[row], kKeyText, 0.0, 0.5);
+  ++row;
+  cairo_set_source_rgba(cr, 0.3, 0.3, 0.3, 0.8);
+  cairo_set_line_width(cr, 0.9);
+  const double ay = centre() - 5;
+  cairo_move_to(cr, mx, ay + 10);
+  cairo_line_to(cr, mx, ay);
+  cairo_move_to(cr, mx - 3, ay + 5);
+  cairo_line_to(cr, mx, ay);
+  cairo_line_to(cr, mx + 3, ay + 5);
+  cairo_stroke(cr);
+  text(cr, tx, centre(), key.texts[row], kKeyText, 0.0, 0.5);
+}
+
+// What a key inside the plot box must not cover, in units: each star's marker and error
+// bar (an open bar's arrow is its bright end), clipped to the box.
+std::vector<FigureBox> pl_ink(const Panel& top, const std::vector<Point>& pts) {
+  constexpr double kMarker = 5.0;  // the largest marker's half-size with its line
+  std::vector<FigureBox> ink;
+  for (const auto& p : pts) {
+    const double x = top.px(p.x), y = top.py(p.y);
+    ink.push_back({x - kMarker, y - kMarker, x + kMarker, y + kMarker});
+    const double a = top.py(p.lo), b = top.py(p.hi);
+    ink.push_back(
+        {x - 3, std::max(top.top, std::min(a, b)), x + 3, std::min(top.bottom, std::max(a, b))});
+  }
+  return ink;
+}
+
+// True when the relation's scatter band crosses the box (units): the band is straight, so
+// its extremes over the box's width are at the box's two sides.
+bool band_crosses(const Panel& top, const Relation& rel, const FigureBox& box) {
+  auto x_of = [&](double u) {
+    return top.x0 + (u - top.left) / (top.right - top.left) * (top.x1 - top.x0);
+  };
+  double lo = std::numeric_limits<double>::infinity(), hi = -lo;
+  for (double u : {box.left, box.right})
+    for (double d : {-rel.sigma, rel.sigma}) {
+      const double v = top.py(rel.at(x_of(u)) + d);
+      lo = std::min(lo, v), hi = std::max(hi, v);
+    }
+  return lo - 2 <= box.bottom && box.top <= hi + 2;
+}
+
+// The first corner of the plot box where the key covers no star, error bar or the relation:
+// lower right first (faint long-period stars are rare), then upper left, lower left, upper
+// right. None when every corner holds something, as in a column-wide figure of a
+// well-sampled relation, whose faint short-period stars and long error bars fill the box.
+std::optional<FigureBox> free_corner(const Panel& top, const std::vector<FigureBox>& ink,
+                                     const Relation& rel, const PlKey& key) {
+  constexpr double kInset = 8;
+  const double left = top.left + kInset, right = top.right - kInset - key.width;
+  const double upper = top.top + kInset, lower = top.bottom - kInset - key.height;
+  if (right < left || lower < upper) return std::nullopt;
+  for (auto [x, y] : {std::pair{right, lower}, std::pair{left, upper}, std::pair{left, lower},
+                      std::pair{right, upper}}) {
+    const FigureBox box{x, y, x + key.width, y + key.height};
+    bool covers = band_crosses(top, rel, box);
+    for (const auto& b : ink) covers = covers || box.touches(b);
+    if (!covers) return box;
+  }
+  return std::nullopt;
+}
+
+// A figure's title lines, drawn from the top of the canvas at the plot box's left; returns
+// their ink.
+std::vector<FigureBox> title_lines(cairo_t* cr, double left,
+                                   const std::vector<std::string>& lines) {
+  std::vector<FigureBox> ink;
+  for (std::size_t i = 0; i < lines.size(); ++i)
+    ink.push_back(
+        text(cr, left, kTitleTop + kTitleLine * static_cast<double>(i), lines[i], 13, 0.0, 1.0));
+  return ink;
+}
+
+double title_width(cairo_t* cr, const std::vector<std::string>& lines) {
+  double w = 0;
+  for (const auto& l : lines) w = std::max(w, text_extents(cr, l, 13).x_advance);
+  return w;
+}
 
 }  // namespace
 
@@ -277,8 +420,9 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
                          const std::string& path, FigureWidth width) {
   const Canvas canvas = canvas_for(width);
   const nlohmann::json& rel = cal.relation(relation);
-  const double offset = parameter(rel, "parallax_offset_mas"), sigma = parameter(rel, "sigma_int");
-  const double alpha = parameter(rel, "alpha"), beta = parameter(rel, "beta"), p0 = rel.at("pivot_log_period");
+  const double offset = parameter(rel, "parallax_offset_mas");
+  const Relation line{parameter(rel, "alpha"), parameter(rel, "beta"),
+                      rel.at("pivot_log_period").get<double>(), parameter(rel, "sigma_int")};
   std::vector<Point> pts;
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
@@ -314,26 +458,57 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   double xmin = 1e9, xmax = -1e9, ymin = 1e9, ymax = -1e9;
   for (const auto& p : pts) xmin = std::min(xmin, p.x), xmax = std::max(xmax, p.x), ymin = std::min(ymin, p.y), ymax = std::max(ymax, p.y);
   const double padx = 0.05 * (xmax - xmin + 0.1), pady = 0.08 * (ymax - ymin + 0.5);
-  Panel top{90, canvas.width - 30, 30, 430, xmin - padx, xmax + padx, ymin - pady, ymax + pady, true};
-  Panel bottom{90, canvas.width - 30, 450, 570, top.x0, top.x1, -4.5, 4.5, false};
   AtomicOutput out(path);
   auto surface = open_surface(format, out.reopen_path(), canvas);
   cairo_t* cr = surface->cr;
+
+  // Layout, top down: the title (and the count of stars not drawn, on a line of its own: a
+  // column-wide figure has no room beside the title), the PL panel, the residual panel, its
+  // axis labels, with no blank strip at the foot (issue 20). The key sits in a corner of the
+  // PL panel where it covers nothing, else above the panel, beside the title or under it.
+  std::vector<std::string> title = {fmt::format("{}  {}", cal.label(), relation)};
+  if (s.not_drawn_points > 0)
+    title.push_back(fmt::format("not drawn: {} (parallax \u2264 0)", s.not_drawn_points));
+  const double title_bottom = kTitleTop + kTitleLine * static_cast<double>(title.size());
+  const double residual_bottom = canvas.height - kBelowXAxis - kFootMargin;
+  Panel bottom{kPanelLeft,
+               canvas.width - kPanelRightMargin,
+               residual_bottom - 120,
+               residual_bottom,
+               xmin - padx,
+               xmax + padx,
+               -4.5,
+               4.5,
+               false};
+  Panel top{bottom.left,     bottom.right, title_bottom + kPanelGap,
+            bottom.top - 20, bottom.x0,    bottom.x1,
+            ymin - pady,     ymax + pady,  true};
+  const PlKey key = pl_key(cr, relation, s);
+  FigureBox key_box;
+  if (auto corner = free_corner(top, pl_ink(top, pts), line, key)) {
+    key_box = *corner;
+  } else {
+    const bool beside = top.left + title_width(cr, title) + 16 + key.width <= top.right;
+    const double key_top = beside ? kTitleTop : title_bottom;
+    key_box = {top.right - key.width, key_top, top.right, key_top + key.height};
+    top.top = std::max(title_bottom, key_box.bottom) + kPanelGap;
+  }
+
   // The relation and its intrinsic-scatter band, clipped to the plot box.
   cairo_save(cr);
   cairo_rectangle(cr, top.left, top.top, top.right - top.left, top.bottom - top.top);
   cairo_clip(cr);
   cairo_set_source_rgba(cr, kGrey[0], kGrey[1], kGrey[2], 0.35);
-  cairo_move_to(cr, top.px(top.x0), top.py(alpha + beta * (top.x0 - p0) - sigma));
-  cairo_line_to(cr, top.px(top.x1), top.py(alpha + beta * (top.x1 - p0) - sigma));
-  cairo_line_to(cr, top.px(top.x1), top.py(alpha + beta * (top.x1 - p0) + sigma));
-  cairo_line_to(cr, top.px(top.x0), top.py(alpha + beta * (top.x0 - p0) + sigma));
+  cairo_move_to(cr, top.px(top.x0), top.py(line.at(top.x0) - line.sigma));
+  cairo_line_to(cr, top.px(top.x1), top.py(line.at(top.x1) - line.sigma));
+  cairo_line_to(cr, top.px(top.x1), top.py(line.at(top.x1) + line.sigma));
+  cairo_line_to(cr, top.px(top.x0), top.py(line.at(top.x0) + line.sigma));
   cairo_close_path(cr);
   cairo_fill(cr);
   cairo_set_source_rgb(cr, 0, 0, 0);
   cairo_set_line_width(cr, 1.5);
-  cairo_move_to(cr, top.px(top.x0), top.py(alpha + beta * (top.x0 - p0)));
-  cairo_line_to(cr, top.px(top.x1), top.py(alpha + beta * (top.x1 - p0)));
+  cairo_move_to(cr, top.px(top.x0), top.py(line.at(top.x0)));
+  cairo_line_to(cr, top.px(top.x1), top.py(line.at(top.x1)));
   cairo_stroke(cr);
   for (const auto& p : pts) {
     cairo_set_source_rgba(cr, 0.3, 0.3, 0.3, 0.8);
@@ -351,8 +526,11 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
     marker(cr, top.px(p.x), top.py(p.y), p.mark);
   }
   cairo_restore(cr);
-  pl_legend(cr, top, relation, s, s);
-  axes(cr, top, "", fmt::format("M in {} (mag)", relation), false);
+  draw_pl_key(cr, key, key_box.left, key_box.top);
+  s.legend_left = key_box.left, s.legend_top = key_box.top, s.legend_right = key_box.right,
+  s.legend_bottom = key_box.bottom;
+  std::vector<FigureBox> ink =
+      axes(cr, top, "", fmt::format("M in {} (mag)", relation), false).labels;
   // Residuals.
   cairo_set_source_rgb(cr, 0, 0, 0);
   cairo_set_line_width(cr, 0.8);
@@ -361,15 +539,13 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   cairo_stroke(cr);
   for (const auto& p : pts)
     if (std::isfinite(p.r)) marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.mark);
-  axes(cr, bottom, "log10 P (days)", "r / sigma");
-  // The count of stars not drawn on a line of its own: a column-wide figure has no room
-  // beside the title.
-  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}", cal.label(), relation), 13, 0.0, 1.0);
-  if (s.not_drawn_points > 0)
-    text(cr, top.left + 10, top.top + 28, fmt::format("not drawn: {} (parallax \u2264 0)", s.not_drawn_points), 13,
-         0.0, 1.0);
+  for (const auto& b : axes(cr, bottom, "log10 P (days)", "r / sigma").labels) ink.push_back(b);
+  for (const auto& b : title_lines(cr, top.left, title)) ink.push_back(b);
   commit_figure(std::move(surface), out, path);
   record_plot_box(s, top, canvas);
+  record_panel(s, top, "", canvas);
+  record_panel(s, bottom, "log10 P (days)", canvas);
+  record_labels(s, ink, canvas);
   return s;
 }
 
@@ -377,11 +553,17 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
                               const std::string& path, FigureWidth width) {
   const Canvas canvas = canvas_for(width);
   struct Series {
-    std::string label;
+    std::string label;  // the x axis's title
+    std::string name;   // what the note calls the panel when it is left out
     std::vector<double> x, r;
     std::vector<bool> used;
   };
-  std::vector<Series> panels = {{"[Fe/H] (dex)", {}, {}, {}}, {"G (mag)", {}, {}, {}}, {"parallax / error", {}, {}, {}}};
+  // [Fe/H] for a metallicity term the fit lacks; Gaia G (the catalog's gaia_g_mag, the
+  // zero point's magnitude input) for a zero point that varies with magnitude; parallax S/N
+  // for a residual offset or error inflation.
+  std::vector<Series> panels = {{"[Fe/H] (dex)", "[Fe/H]", {}, {}, {}},
+                                {"Gaia G (mag)", "G", {}, {}, {}},
+                                {"parallax / error", "parallax S/N", {}, {}, {}}};
   const double offset = parameter(cal.relation(relation), "parallax_offset_mas");
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
@@ -395,6 +577,7 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
         if (res.column("parallax_err_mas").is_null(i)) return;
         x = (x - transform_offset) / res.column("parallax_err_mas").real[i];
       }
+      if (!std::isfinite(x)) return;
       p.x.push_back(x), p.r.push_back(r), p.used.push_back(used);
     };
     add(panels[0], "feh", 0, false);
@@ -403,29 +586,48 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
     (used ? s.used_points : s.rejected_points) += 1;
   }
   std::vector<Series*> shown;
-  for (auto& p : panels)
-    if (!p.x.empty()) shown.push_back(&p);
+  std::vector<std::string> left_out;
+  for (auto& p : panels) p.x.empty() ? left_out.push_back(p.name) : shown.push_back(&p);
   if (shown.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no residual with [Fe/H], G or a parallax");
+  // A panel left out is said, so that a reader of the figure alone knows it is not an
+  // oversight (G comes from the catalog's gaia_g column, which an ingest may not map).
+  if (!left_out.empty()) {
+    std::string names;
+    for (std::size_t k = 0; k < left_out.size(); ++k)
+      names += (k == 0 ? "" : k + 1 == left_out.size() ? " or " : ", ") + left_out[k];
+    s.note = fmt::format("not shown: no star has {}", names);
+  }
+  std::vector<std::string> title = {fmt::format("{}  {}  residuals", cal.label(), relation)};
+  if (!s.note.empty()) title.push_back(s.note);
   AtomicOutput out(path);
   auto surface = open_surface(format, out.reopen_path(), canvas);
   cairo_t* cr = surface->cr;
-  const double height = (570.0 - 30.0) / static_cast<double>(shown.size());
+  // Panels of equal height from under the title to the foot, each followed by its own tick
+  // labels and axis title: nothing touches the next panel, and no blank strip is left.
+  const double n = static_cast<double>(shown.size());
+  const double first_top = kTitleTop + kTitleLine * static_cast<double>(title.size()) + kPanelGap;
+  const double stride_extra = kBelowXAxis + kPanelGap;
+  const double height =
+      (canvas.height - kFootMargin - first_top - n * kBelowXAxis - (n - 1) * kPanelGap) / n;
+  std::vector<FigureBox> ink = title_lines(cr, kPanelLeft, title);
   for (std::size_t k = 0; k < shown.size(); ++k) {
     const Series& p = *shown[k];
     double lo = *std::min_element(p.x.begin(), p.x.end()), hi = *std::max_element(p.x.begin(), p.x.end());
     double pad = 0.05 * (hi - lo + 0.1);
-    const double kd = static_cast<double>(k);
-    Panel panel{90, canvas.width - 30, 30 + kd * height, 30 + (kd + 1) * height - 45, lo - pad, hi + pad, -4.5, 4.5, false};
+    const double panel_top = first_top + static_cast<double>(k) * (height + stride_extra);
+    const Panel panel{kPanelLeft, canvas.width - kPanelRightMargin, panel_top, panel_top + height,
+                      lo - pad, hi + pad, -4.5, 4.5, false};
     cairo_set_source_rgb(cr, 0, 0, 0);
     cairo_set_line_width(cr, 0.8);
     cairo_move_to(cr, panel.left, panel.py(0));
     cairo_line_to(cr, panel.right, panel.py(0));
     cairo_stroke(cr);
     for (std::size_t i = 0; i < p.x.size(); ++i) marker(cr, panel.px(p.x[i]), panel.py(std::clamp(p.r[i], -4.4, 4.4)), p.used[i]);
-    axes(cr, panel, p.label, "r / sigma");
+    for (const auto& b : axes(cr, panel, p.label, "r / sigma").labels) ink.push_back(b);
     if (k == 0) record_plot_box(s, panel, canvas);
+    record_panel(s, panel, p.label, canvas);
   }
-  text(cr, 100, 40, fmt::format("{}  {}  residuals", cal.label(), relation), 13, 0.0, 1.0);
+  record_labels(s, ink, canvas);
   commit_figure(std::move(surface), out, path);
   return s;
 }
@@ -612,7 +814,7 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
     }
   cairo_restore(cr);
   s.used_points = static_cast<int>(obs.size());
-  s.y_ticks = axes(cr, top, "phase (maximum light at 0)", "magnitude", true, 0.0, 8);
+  s.y_ticks = axes(cr, top, "phase (maximum light at 0)", "magnitude", true, 0.0, 8).y_ticks;
   // Legend: band names in their colour and shape, in one row above the plot box, beside the
   // title, where it can cover no epoch (issue 20).
   constexpr double kEntry = 56;

@@ -30,6 +30,22 @@ inline constexpr EnumTable<FigureWidth, 3> kFigureWidthNames{{{
     {FigureWidth::kTwoColumns, "two_columns"},
 }}};
 
+// A rectangle in output units (PNG pixels), top-down like the image.
+struct FigureBox {
+  double left = 0, top = 0, right = 0, bottom = 0;
+  // True when the two share any area or edge (a label on a frame line touches it).
+  bool touches(const FigureBox& other) const {
+    return left <= other.right && other.left <= right && top <= other.bottom && other.top <= bottom;
+  }
+};
+
+// One plot box of a figure and what its x axis shows.
+struct FigurePanel {
+  FigureBox box;
+  double x_min = 0, x_max = 0;
+  std::string x_label;
+};
+
 // Where a figure put things, for tests and for a caption.
 struct FigureSummary {
   int used_points = 0, rejected_points = 0;
@@ -40,8 +56,19 @@ struct FigureSummary {
   // Plot box of the top panel in output units (PNG pixels), and its data ranges.
   double box_left = 0, box_right = 0, box_top = 0, box_bottom = 0;
   double x_min = 0, x_max = 0, y_min = 0, y_max = 0;
+  bool y_inverted = false;  // magnitudes: brighter up
+  // Every plot box drawn, top to bottom, and the ink of every label outside the key (title,
+  // notes, tick labels, axis titles): no label may touch a plot box (issue 20).
+  std::vector<FigurePanel> panels;
+  std::vector<FigureBox> labels;
+  std::string note;  // residual figure: the panels left out, and why ("" when none)
   double x_to_output(double x) const {
     return box_left + (x - x_min) / (x_max - x_min) * (box_right - box_left);
+  }
+  double y_to_output(double y) const {
+    const double f = (y - y_min) / (y_max - y_min);
+    return y_inverted ? box_top + f * (box_bottom - box_top)
+                      : box_bottom - f * (box_bottom - box_top);
   }
 };
 
@@ -55,15 +82,19 @@ std::string axis_number(double value);
 // at [Fe/H] = 0 with its intrinsic-scatter band; used stars as filled blue circles and
 // rejected ones as open vermillion squares (Okabe & Ito colours: legible to colour-blind
 // readers, and the shapes differ in greyscale), a key naming each with its count and the
-// open-bar arrow, the band in the y label, the stars not drawn counted in the title; a
-// panel of normalised residuals below.
+// open-bar arrow, the band in the y label, the stars not drawn counted under the title; a
+// panel of normalised residuals below. The title stands above the plot box; the key in the
+// first corner of the box where it covers no star, error bar or the relation's band, else
+// above the box (a column-wide figure of a well-sampled relation has no such corner).
 FigureSummary pl_diagram(const Calibration& calibration, const std::string& relation,
                          const StarTable& residuals, FigureFormat format, const std::string& path,
                          FigureWidth width = FigureWidth::kScreen);
 
-// Normalised residuals of a relation against [Fe/H], G and parallax S/N (one panel each,
-// for the columns the residuals have), where metallicity, zero-point and offset problems
-// show as trends; used and refused stars marked as in pl_diagram.
+// Normalised residuals of a relation against [Fe/H], Gaia G (the residuals' gaia_g_mag)
+// and parallax S/N, one panel each, where metallicity, zero-point and offset problems show
+// as trends; used and refused stars marked as in pl_diagram. A panel no star has a value
+// for is left out and named under the title (FigureSummary::note); the panels share the
+// height from the title to the foot, each with its axis labels clear of the next.
 FigureSummary residual_trends(const Calibration& calibration, const std::string& relation,
                               const StarTable& residuals, FigureFormat format,
                               const std::string& path, FigureWidth width = FigureWidth::kScreen);
