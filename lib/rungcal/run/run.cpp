@@ -1,221 +1,42 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/run/run.hpp"
 
-#include <algorithm>
-#include <cmath>
 #include <filesystem>
-#include <fstream>
 #include <functional>
+#include <optional>
 #include <set>
-#include <sstream>
 
 #include <fmt/format.h>
 #include <spdlog/spdlog.h>
-#include <nlohmann/json.hpp>
 
 #include "rungcal/calibration/apply_products.hpp"
-#include "rungcal/calibration/diff.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/fault.hpp"
 #include "rungcal/core/file_lock.hpp"
-#include "rungcal/core/json_io.hpp"
-#include "rungcal/core/provenance.hpp"
-#include "rungcal/core/version.hpp"
 #include "rungcal/deredden/deredden.hpp"
 #include "rungcal/grid/grid.hpp"
 #include "rungcal/ingest/ingest.hpp"
 #include "rungcal/lightcurve/lightcurve_stage.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/report/report.hpp"
-#include "rungcal/report/site.hpp"
-#include "rungcal/run/run_history.hpp"
+#include "rungcal/run/run_parts.hpp"
 
 namespace fs = std::filesystem;
 
 namespace rungcal {
-namespace {
-
-constexpr int kStateSchemaVersion = 1;
-
-// One stage of the chain: what keys it, what it writes, how it runs.
-struct Stage {
-  std::string name;
-  std::string config;                // stage config file ("" = none)
-  std::vector<std::string> inputs;   // files whose bytes key the stage
-  std::string settings;              // overrides and choices that key it too
-  std::vector<std::string> outputs;  // files it writes (a missing one reruns it)
-  std::string output_folder;         // a folder whose every file is its product (report)
-  std::function<void()> run;
-  bool uses_calibration = false;  // keyed by the store's latest version too
-};
+namespace run_parts {
 
 std::string in_folder(const RunOptions& o, const std::string& name) {
   return (fs::path(o.folder) / name).string();
 }
 
-// SHA-256 of everything that decides a stage's products.
-// A path as the key sees it: absolute and normalised, so that a config named relatively,
-// absolutely or from another working directory keys its stages the same.
-std::string key_path(const std::string& path) {
-  std::error_code ec;
-  fs::path p = fs::weakly_canonical(fs::absolute(path, ec), ec);
-  return ec ? path : p.string();
-}
+}  // namespace run_parts
 
-// A stage config by its parsed content: a comment or layout edit reruns nothing (issue 15).
-std::string config_sha(const std::string& path) { return Config::from_file(path).sha256(); }
+using namespace run_parts;
 
-// An input's hash: a TOML file (a band table, another stage's config) by its parsed content
-// like a stage config, any other file by its bytes; "missing" when absent.
-std::string input_sha(const std::string& path) {
-  if (!fs::exists(path)) return "missing";
-  if (fs::path(path).extension() == ".toml") return config_sha(path);
-  return sha256_file(path);
-}
-
-std::string stage_key(const Stage& s) {
-  std::string text = fmt::format("stage={}\nsoftware={} {}\nsettings={}\n", s.name,
-                                 software_version(), software_commit(), s.settings);
-  if (!s.config.empty()) text += fmt::format("config={} {}\n", key_path(s.config), config_sha(s.config));
-  for (const auto& in : s.inputs)
-    text += fmt::format("input={} {}\n", key_path(in), input_sha(in));
-  return sha256_hex(text);
-}
-
-std::vector<std::string> products_of(const Stage& s) {
-  std::vector<std::string> out = s.outputs;
-  if (!s.output_folder.empty() && fs::exists(s.output_folder))
-    for (const auto& e : fs::directory_iterator(s.output_folder))
-      if (e.is_regular_file() && e.path().filename().string().rfind('.', 0) != 0)
-        out.push_back(e.path().string());
-  std::sort(out.begin(), out.end());
-  return out;
-}
-
-class RunState {
- public:
-  explicit RunState(std::string path) : path_(std::move(path)) {
-    if (!fs::exists(path_)) return;
-    try {
-      state_ = read_json_file(path_);  // depth-capped; a folder or FIFO here is refused
-      if (!state_.is_object())
-        throw InputError({path_, {}, {}}, "json_syntax", "not a JSON object");
-    } catch (const InputError& e) {
-      if (e.rule() == "input_not_regular_file" || e.rule() == "unreadable_file") throw;
-      // Written atomically, so only a hand edit breaks it: start over rather than guess.
-      spdlog::warn("{}: unreadable run state ({}): every stage reruns", path_, e.what());
-      state_ = nlohmann::json::object();
-    }
-  }
-
-  // "" when the stage's record matches key and its products are all there unchanged, else
-  // the reason it must run.
-  std::string why_run(const Stage& s, const std::string& key) const {
-    if (!state_.contains("stages") || !state_["stages"].contains(s.name)) return "never ran here";
-    const auto& rec = state_["stages"][s.name];
-    if (rec.value("key", "") != key) return changed_part(s, rec);
-    for (const auto& [path, sha] : rec["outputs"].items()) {
-      if (!fs::exists(path)) return "product " + fs::path(path).filename().string() + " is missing";
-      if (sha256_file(path) != sha.get<std::string>())
-        return "product " + fs::path(path).filename().string() + " was changed";
-    }
-    return "";
-  }
-
-  // The version of a calibration the last finished run reported, and its content hash:
-  // {0, ""} when none (a state from before rungcal recorded it, too).
-  std::pair<int, std::string> announced(const std::string& calibration) const {
-    if (!state_.contains("announced") || !state_["announced"].contains(calibration)) return {0, ""};
-    const auto& a = state_["announced"][calibration];
-    return {a.value("version", 0), a.value("content_sha256", "")};
-  }
-  // Written only when it changes: a run with nothing new leaves the state as it was.
-  void record_announced(const std::string& calibration, int version, const std::string& sha) {
-    if (announced(calibration) == std::make_pair(version, sha)) return;
-    state_["schema"] = "rungcal-run-state";
-    state_["schema_version"] = kStateSchemaVersion;
-    state_["announced"][calibration] = {{"version", version}, {"content_sha256", sha}};
-    write_file_atomically(path_, state_.dump(2) + "\n");
-  }
-
-  void record(const Stage& s, const std::string& key) {
-    nlohmann::json rec;
-    rec["key"] = key;
-    rec["config_sha256"] = s.config.empty() ? "" : config_sha(s.config);
-    rec["inputs"] = nlohmann::json::object();
-    for (const auto& in : s.inputs)
-      rec["inputs"][in] = input_sha(in);
-    rec["outputs"] = nlohmann::json::object();
-    for (const auto& out : products_of(s)) rec["outputs"][out] = sha256_file(out);
-    rec["finished_utc"] = utc_now_iso8601();
-    state_["schema"] = "rungcal-run-state";
-    state_["schema_version"] = kStateSchemaVersion;
-    state_["stages"][s.name] = rec;
-    write_file_atomically(path_, state_.dump(2) + "\n");
-  }
-
- private:
-  // Names what differs from the record, for the log and --dry-run.
-  static std::string changed_part(const Stage& s, const nlohmann::json& rec) {
-    if (!s.config.empty() && rec.value("config_sha256", "") != config_sha(s.config))
-      return "config changed";
-    for (const auto& in : s.inputs) {
-      const std::string now = input_sha(in);
-      if (!rec.contains("inputs") || !rec["inputs"].contains(in))
-        return "new input " + fs::path(in).filename().string();
-      if (rec["inputs"][in].get<std::string>() != now)
-        return "input " + fs::path(in).filename().string() + " changed";
-    }
-    return "software or settings changed";
-  }
-
-  std::string path_;
-  nlohmann::json state_ = nlohmann::json::object();
-};
-
-// Whether the latest version is news: one no finished run has reported (a run killed
-// between publishing and its summary leaves the report to the next run, which also catches
-// a version published by hand). When it is, outcome gets the largest shift, in sigma, from
-// the version last reported (else from the one the latest replaced). Returns the latest
-// version's content hash.
-std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
-                        const std::pair<int, std::string>& announced, RunOutcome& outcome) {
-  const Calibration latest =
-      load_calibration(o.store, fmt::format("{}@{}", o.calibration, outcome.version));
-  const std::string sha = latest.document.value("content_sha256", "");
-  if (announced == std::make_pair(outcome.version, sha)) return sha;
-  outcome.new_version = true;
-  if (announced.first > outcome.version) outcome.rolled_back_from = announced.first;
-  std::optional<Calibration> baseline;
-  const bool announced_kept =
-      std::find(versions.begin(), versions.end(), announced.first) != versions.end();
-  if (announced.first > 0 && announced_kept) {
-    Calibration before =
-        load_calibration(o.store, fmt::format("{}@{}", o.calibration, announced.first));
-    if (before.document.value("content_sha256", "") == announced.second)
-      baseline = std::move(before);
-  }
-  const auto& previous = latest.document.value("previous", nlohmann::json());
-  if (!baseline && previous.is_object() && previous.contains("version"))
-    baseline = load_calibration(
-        o.store, fmt::format("{}@{}", o.calibration, previous.at("version").get<int>()));
-  if (!baseline) {
-    outcome.first_version = true;  // no shift to report
-    return sha;
-  }
-  for (const ParameterShift& sh : diff_calibrations(*baseline, latest).shifts) {
-    if (!std::isfinite(sh.shift_in_sigma)) continue;
-    spdlog::info("shift {} {} from v{}: {:+.5f} ({:+.2f} sigma)", sh.relation, sh.parameter,
-                 baseline->version(), sh.shift, sh.shift_in_sigma);
-    if (std::abs(sh.shift_in_sigma) > std::abs(outcome.max_shift_sigma)) {
-      outcome.max_shift_sigma = sh.shift_in_sigma;
-      outcome.max_shift_parameter = sh.relation + " " + sh.parameter;
-    }
-  }
-  return sha;
-}
+namespace {
 
 // The version 'latest' names, and the newest one before it that was not withdrawn (what
 // the report compares), oldest first; empty when nothing is published. Downstream stages use
@@ -230,32 +51,6 @@ std::vector<std::string> latest_versions(const RunOptions& o) {
     if (v < *latest && !withdrawn.count(v)) refs.assign({fmt::format("{}@{}", o.calibration, v)});
   refs.push_back(fmt::format("{}@{}", o.calibration, *latest));
   return refs;
-}
-
-// The first few refused rows, for the summary line and the log.
-std::string first_refusals(const IngestResult& r, std::size_t how_many) {
-  std::string out;
-  for (std::size_t i = 0; i < r.rejected.size() && i < how_many; ++i) {
-    const RejectedRow& row = r.rejected[i];
-    out += fmt::format("{}row {} ({}) [{}]", out.empty() ? "" : "; ", row.source_row,
-                       row.id.empty() ? "no id" : row.id, row.rule);
-  }
-  if (r.rejected.size() > how_many) out += "; ...";
-  return out;
-}
-
-// Rows refused at ingest go into the outcome and the log (a warning, so cron mail shows it):
-// a typo in a nightly catalog must not drop a star silently.
-void note_refusals(const IngestResult& r, const IngestOptions& ingest, RunOutcome& outcome) {
-  outcome.rows_read = r.rows_read;
-  outcome.rows_refused = r.rejected.size();
-  if (r.rejected.empty()) return;
-  outcome.first_refusals = first_refusals(r, 3);
-  spdlog::warn("ingest refused {} of {} rows of {} (every reason: {}): {}", r.rejected.size(),
-               r.rows_read, ingest.input_path, ingest.rejects_csv_path, outcome.first_refusals);
-  for (const RejectedRow& row : r.rejected)
-    spdlog::debug("refused row {} ({}) column '{}' [{}]: {}", row.source_row, row.id, row.column,
-                  row.rule, row.message);
 }
 
 // Refuses an [apply] relation the fit does not make, before any stage runs.
@@ -275,63 +70,6 @@ std::string version_json(const RunOptions& o, const std::string& ref) {
   const int v = std::stoi(ref.substr(ref.find('@') + 1));
   return (fs::path(o.store) / o.calibration / fmt::format("v{:04d}", v) / "calibration.json")
       .string();
-}
-
-std::string joined(const std::vector<std::string>& v) {
-  std::string s;
-  for (const auto& x : v) s += (s.empty() ? "" : ", ") + x;
-  return s.empty() ? std::string("none") : s;
-}
-
-ExitCode outcome_code(const RunOptions& o, const std::vector<std::string>& ran,
-                      const RunOutcome& out) {
-  if (o.dry_run) return ran.empty() ? ExitCode::kNothingToDo : ExitCode::kSuccess;
-  // A rollback is a person's decision, not drift: it is news (6), never an alarm.
-  if (out.new_version && out.rolled_back_from == 0 &&
-      std::abs(out.max_shift_sigma) > o.drift_alarm_sigma)
-    return ExitCode::kDriftAlarm;
-  if (out.new_version) return ExitCode::kNewCalibration;
-  return ran.empty() ? ExitCode::kNothingToDo : ExitCode::kSuccess;
-}
-
-// What moved, in the words of the summary line.
-std::string shift_words(const RunOutcome& out) {
-  if (out.first_version) return "the first version";
-  if (out.max_shift_parameter.empty()) return "no parameter moved";
-  return fmt::format("largest shift {} {:+.2f} sigma", out.max_shift_parameter,
-                     out.max_shift_sigma);
-}
-
-// The one line for cron mail: what happened to the calibration, what ran, what was refused.
-std::string summary_line(const RunOptions& o, const std::vector<std::string>& ran,
-                         const std::vector<std::string>& skipped, const RunOutcome& out) {
-  const std::string label = fmt::format("{}@{}", o.calibration, out.version);
-  std::string line;
-  if (o.dry_run)
-    line = fmt::format("rungcal-run (dry run): would run {}; up to date: {}", joined(ran),
-                       joined(skipped));
-  else if (out.new_version && out.rolled_back_from > 0)
-    line = fmt::format("rungcal-run: latest is {}, rolled back from version {} ({}); ran {}",
-                       label, out.rolled_back_from, shift_words(out), joined(ran));
-  else if (out.new_version && outcome_code(o, ran, out) == ExitCode::kDriftAlarm)
-    line = fmt::format(
-        "rungcal-run: DRIFT ALARM: new {} moves {} by {:+.2f} sigma (threshold {}); ran {}", label,
-        out.max_shift_parameter, out.max_shift_sigma, o.drift_alarm_sigma, joined(ran));
-  else if (out.new_version)
-    line = fmt::format("rungcal-run: new calibration {} ({}); ran {}", label, shift_words(out),
-                       joined(ran));
-  else if (ran.empty())
-    line = fmt::format("rungcal-run: nothing changed; {} stands",
-                       out.version ? label : "no calibration");
-  else
-    line = fmt::format("rungcal-run: ran {}; the calibration is unchanged ({})", joined(ran), label);
-  if (out.withheld_version > 0)
-    line += fmt::format("; the fit gave withdrawn version {}'s content again, not republished",
-                        out.withheld_version);
-  if (out.rows_refused > 0)
-    line += fmt::format("; ingest refused {} of {} rows: {}", out.rows_refused, out.rows_read,
-                        out.first_refusals);
-  return line;
 }
 
 }  // namespace
@@ -487,24 +225,6 @@ struct StageOptions {
     }
   }
 };
-
-void record_run(const RunOptions& o, int code, const std::string& summary) {
-  append_run_record(in_folder(o, "run_history.json"), {utc_now_iso8601(), code, summary});
-}
-
-// The status page, after a run that changed anything (and when it is missing).
-void refresh_site(const RunOptions& o, const RunOutcome& outcome, bool ran_any) {
-  if (!o.site || outcome.version == 0) return;
-  const std::string site = in_folder(o, "site");
-  if (!ran_any && !outcome.new_version && fs::exists(site + "/index.html")) return;
-  SiteOptions s;
-  s.store = o.store;
-  s.calibration = o.calibration;
-  s.out_dir = site;
-  s.run_folder = o.folder;
-  s.drift_alarm_sigma = o.drift_alarm_sigma;
-  write_site(s);
-}
 
 // The chain under the run lock; held_lock says whether the lock was taken before a throw.
 RunOutcome run_chain(const RunOptions& o, bool& held_lock);
