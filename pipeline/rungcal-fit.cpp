@@ -15,7 +15,7 @@ int main(int argc, char** argv) {
   int bootstrap = -1;
   app.add_option("--config", config_path, "Fit config (TOML)")->required();
   app.add_option("--out", out_path, "Fit result to write (overrides [fit] output)");
-  app.add_option("--bootstrap", bootstrap, "Bootstrap resamples (overrides the config)");
+  app.add_option("--bootstrap", bootstrap, "Bootstrap resamples, the joint fit's too (overrides the config)");
   app.add_option("--input", in_path, "Input catalog (overrides [fit] input)");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
@@ -27,7 +27,7 @@ int main(int argc, char** argv) {
     rungcal::FitOptions options = rungcal::fit_options_from_file(config_path);
     if (!in_path.empty()) options.input_path = in_path;
     if (!out_path.empty()) options.output_path = out_path;
-    if (bootstrap >= 0) options.bootstrap = bootstrap;
+    if (bootstrap >= 0) options.bootstrap = bootstrap, options.joint_bootstrap = -1;  // the joint fit's too
     rungcal::FitResult result = rungcal::fit_catalog_file(options);
     std::fputs(rungcal::fit_summary(result).c_str(), stdout);
     spdlog::info("fit result: {}", options.output_path);

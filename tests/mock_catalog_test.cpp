@@ -56,5 +56,41 @@ TEST(MockCatalog, ParallaxErrorScaleMultipliesEveryError) {
   EXPECT_NE(s.check().find("parallax_error_scale"), std::string::npos);
 }
 
+// Further relations draw after each star's own draws (the first star is the same), and their
+// scatter has the asked correlation: the difference of two relations' magnitudes (distance and blends cancel,
+// grey) scatters by sigma_a^2 + sigma_b^2 - 2 rho sigma_a sigma_b plus both photometric errors.
+TEST(MockCatalog, FurtherRelationsShareTheStarsAndCorrelateTheirScatter) {
+  MockScenario s;
+  s.stars = 20000;
+  s.blend_fraction = 0.03;
+  const StarTable one = mock_calibrator_catalog(s);
+  s.more_relations = {{"V", -3.9, -2.4, -0.2, 0.20, 0.0}, {"K", -5.7, -3.2, -0.2, 0.09, 0.0}};
+  s.scatter_correlation = 0.8;
+  const StarTable joint = mock_calibrator_catalog(s);
+  EXPECT_EQ(joint.column("mag0_X").as_real(0), one.column("mag0_X").as_real(0));
+  auto difference_variance = [&](const std::string& b, double alpha, double beta, double gamma) {
+    double sum = 0, sum2 = 0;
+    for (std::size_t i = 0; i < joint.rows(); ++i) {
+      // The truth's log P_F - pivot for fundamental mode stars; overtones are off here.
+      const double x = joint.column("log_period").as_real(i) - s.pivot_log_period;
+      const double z = joint.column("feh").as_real(i);
+      const double d = joint.column("mag0_" + b).as_real(i) - joint.column("mag0_X").as_real(i) -
+                       (alpha - s.alpha + (beta - s.beta) * x + (gamma - s.gamma) * z);
+      sum += d, sum2 += d * d;
+    }
+    const double n = static_cast<double>(joint.rows());
+    return sum2 / n - (sum / n) * (sum / n);
+  };
+  const double noise = 2 * s.mag_error * s.mag_error;
+  // Sampling error of a variance: sqrt(2 / n) relative, 1% here; 4% allowed.
+  EXPECT_NEAR(difference_variance("V", -3.9, -2.4, -0.2),
+              0.08 * 0.08 + 0.2 * 0.2 - 2 * 0.8 * 0.08 * 0.2 + noise, 0.04 * 0.0208);
+  EXPECT_NEAR(difference_variance("K", -5.7, -3.2, -0.2),
+              0.08 * 0.08 + 0.09 * 0.09 - 2 * 0.8 * 0.08 * 0.09 + noise, 0.04 * 0.0030);
+  EXPECT_EQ(joint.column("ebv_err").as_real(0), 0.0);
+  s.scatter_correlation = 1.0;
+  EXPECT_NE(s.check().find("scatter_correlation"), std::string::npos);
+}
+
 }  // namespace
 }  // namespace rungcal

@@ -206,7 +206,8 @@ struct StageOptions {
     fit.input_path = deredden.output_path;
     fit.output_path = in_folder(o, "fit.json");
     fit.residuals_path = in_folder(o, "fit_residuals.fits");
-    if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap;
+    // The run's count is every bootstrap's, the joint fit's too.
+    if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap, fit.joint_bootstrap = -1;
     check_apply_relation(o, fit);  // before anything is written (issue 15)
     if (!o.grid_config.empty()) {
       grid = grid_options_from_file(o.grid_config);

@@ -29,7 +29,7 @@ struct RunOptions {
   std::string ingest_input;  // overrides the ingest config's [source] path
   std::string deredden_config;
   std::string fit_config;
-  int fit_bootstrap = -1;      // overrides the fit config's bootstrap (-1: keep)
+  int fit_bootstrap = -1;      // overrides the fit config's bootstrap and joint_bootstrap (-1: keep)
   std::string grid_config;  // systematics grid ("" = none): its budget joins the report
   bool report = true;          // tables and figures of the latest version (and the one before)
   // [report] figure_width and table_errors: as rungcal-report's --figure-width and --table-errors.

@@ -72,8 +72,8 @@ struct MockScenario {
   double ebv_error = 0;          // E(B-V) error (mag): A/E(B-V) times it enters the magnitude
   // Further relations (joint fits). A star's intrinsic scatter is correlated between all its
   // relations by scatter_correlation (in [0, 1)); its E(B-V) error, [Fe/H] and blend
-  // brightening are the same in each (blends are grey). Empty: the draws of one relation
-  // are unchanged.
+  // brightening are the same in each (blends are grey). Their draws follow each star's own
+  // in the one stream: empty, the catalog is what it was before they existed.
   std::vector<MockRelation> more_relations;
   double scatter_correlation = 0;
 
