@@ -581,6 +581,34 @@ void expect_labels_clear_and_no_blank_strip(const FigureSummary& s, const std::s
   cairo_surface_destroy(img);
 }
 
+// Three versions of the test calibration whose parallax offsets need a tick label as wide
+// as "-0.015" (an invented history: the offset and zero point move version by version).
+std::vector<Calibration> version_history() {
+  std::vector<Calibration> versions;
+  const double offsets[] = {-0.012, -0.018, -0.009}, alphas[] = {-5.02, -4.98, -5.0};
+  for (int v = 0; v < 3; ++v) {
+    Calibration c = figure_inputs().cal;
+    c.document["version"] = v + 1;
+    for (auto& p : c.document["fit"]["relations"][0]["parameters"]) {
+      if (p["name"] == "parallax_offset_mas") p["value"] = offsets[v], p["error"] = 0.004;
+      if (p["name"] == "alpha") p["value"] = alphas[v];
+    }
+    versions.push_back(c);
+  }
+  return versions;
+}
+
+// Labels whose ink begins just under a panel's frame and within its width: its x tick
+// numbers (the axis title begins 17 units down, under them).
+int x_tick_labels(const FigureSummary& s, const FigurePanel& panel, FigureWidth width) {
+  const double k = pixels_per_unit(width);
+  int n = 0;
+  for (const auto& l : s.labels)
+    n += l.top > panel.box.bottom && l.top < panel.box.bottom + 12 * k &&
+         (l.left + l.right) / 2 >= panel.box.left && (l.left + l.right) / 2 <= panel.box.right;
+  return n;
+}
+
 TEST(Figures, NoLabelTouchesAPanelAndNoBlankStripAtAnyWidth) {
   // Issue 20, read as a referee: the residual figure's axis titles ran into the next panel,
   // its title sat on the data, and a blank strip filled its foot.
@@ -598,12 +626,41 @@ TEST(Figures, NoLabelTouchesAPanelAndNoBlankStripAtAnyWidth) {
       EXPECT_EQ(s.panels.size(), panels) << name;
       expect_labels_clear_and_no_blank_strip(s, png, width,
                                              fmt::format("residuals, {} panels, {}", panels, name));
+      // A referee's second look: a G panel numbered only 10 and 15 at column width. Three
+      // numbers at least on every panel at every width.
+      for (const auto& panel : s.panels)
+        EXPECT_GE(x_tick_labels(s, panel, width), 3) << name << " " << panel.x_label;
     }
     const std::string png = dir.file(fmt::format("pl_{}.png", name));
     const FigureSummary s = pl_diagram(one.cal, "X", one.res, FigureFormat::kPng, png, width);
     ASSERT_EQ(s.panels.size(), 2u);
     expect_labels_clear_and_no_blank_strip(s, png, width, fmt::format("PL, {}", name));
+    // The versions figure: its title sat inside the plot box, and "parallax offset (mas)"
+    // ran into the tick label -0.015.
+    const std::string versions_png = dir.file(fmt::format("versions_{}.png", name));
+    const FigureSummary v =
+        version_trend(version_history(), "X", FigureFormat::kPng, versions_png, width);
+    ASSERT_EQ(v.panels.size(), 2u);
+    EXPECT_EQ(x_tick_labels(v, v.panels[1], width), 3) << name;  // versions 1, 2 and 3
+    expect_labels_clear_and_no_blank_strip(v, versions_png, width,
+                                           fmt::format("versions, {}", name));
   }
+}
+
+TEST(Figures, TheResidualGPanelNumbersThreeTicksAtColumnWidth) {
+  // The referee's case: G from 6.2 to 17.2 (5.65 to 17.75 with the panel's margins), whose
+  // nice step of 5 numbered only 10 and 15.
+  test::TempDir dir;
+  FigureInputs f = residual_inputs(true);
+  for (std::size_t i = 0; i < f.res.rows(); ++i)
+    f.res.column("gaia_g_mag").real[i] = 6.2 + 11.0 / 3.0 * static_cast<double>(i);
+  const std::string png = dir.file("r_column.png");
+  const FigureSummary s =
+      residual_trends(f.cal, "X", f.res, FigureFormat::kPng, png, FigureWidth::kColumn);
+  ASSERT_EQ(s.panels.size(), 3u);
+  for (const auto& panel : s.panels)
+    EXPECT_GE(x_tick_labels(s, panel, FigureWidth::kColumn), 3) << panel.x_label;
+  expect_labels_clear_and_no_blank_strip(s, png, FigureWidth::kColumn, "residuals, G 6.2 to 17.2");
 }
 
 // A well-sampled relation as a calibrator sample gives it (alpha -5, beta -3 at log P0 = 1,

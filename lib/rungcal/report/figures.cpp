@@ -102,6 +102,13 @@ double tick_step(double lo, double hi, int n = 6) {
   return 10 * p;
 }
 
+// The nice step under a nice step: 5 -> 2 -> 1 -> 0.5 (times its power of ten).
+double finer_step(double step) {
+  const double p = std::pow(10.0, std::floor(std::log10(step) + 1e-9));
+  const double m = std::round(step / p);
+  return m >= 5 ? 2 * p : m >= 2 ? p : 0.5 * p;
+}
+
 struct Panel {
   double left, right, top, bottom;
   double x0, x1, y0, y1;
@@ -207,6 +214,13 @@ AxisInk axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::
   cairo_rectangle(cr, p.left, p.top, p.right - p.left, p.bottom - p.top);
   cairo_stroke(cr);
   double sx = std::max(tick_step(p.x0, p.x1), min_x_step), sy = tick_step(std::min(p.y0, p.y1), std::max(p.y0, p.y1), y_ticks);
+  // A step of 5 can leave two numbers on an axis (G from 5.6 to 17.8: 10 and 15), too few to
+  // read a trend's scale from; the next finer nice step gives at least three.
+  auto ticks_within = [&](double step) {
+    return std::floor(p.x1 / step + 1e-9) - std::ceil(p.x0 / step - 1e-9) + 1;
+  };
+  for (int finer = 0; finer < 3 && x_numbers && ticks_within(sx) < 3 && finer_step(sx) >= min_x_step; ++finer)
+    sx = finer_step(sx);
   for (double x = std::ceil(p.x0 / sx) * sx; x <= p.x1 + 1e-9; x += sx) {
     cairo_move_to(cr, p.px(x), p.bottom);
     cairo_line_to(cr, p.px(x), p.bottom - 6);
@@ -215,17 +229,23 @@ AxisInk axes(cairo_t* cr, const Panel& p, const std::string& xlabel, const std::
       ink.labels.push_back(
           text(cr, p.px(x), p.bottom + 6, axis_number(std::round(x / sx) * sx), 13, 0.5, 1.0));
   }
+  double tick_labels_left = p.left;
   for (double y = std::ceil(std::min(p.y0, p.y1) / sy) * sy; y <= std::max(p.y0, p.y1) + 1e-9; y += sy) {
     cairo_move_to(cr, p.left, p.py(y));
     cairo_line_to(cr, p.left + 6, p.py(y));
     cairo_stroke(cr);
     ink.labels.push_back(
         text(cr, p.left - 6, p.py(y), axis_number(std::round(y / sy) * sy), 13, 1.0, 0.5));
+    tick_labels_left = std::min(tick_labels_left, ink.labels.back().left);
     ++ink.y_ticks;
   }
   if (!xlabel.empty())
     ink.labels.push_back(text(cr, (p.left + p.right) / 2, p.bottom + 28, xlabel, 15, 0.5, 1.0));
-  ink.labels.push_back(text(cr, p.left - 52, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true));
+  // The y title keeps its usual place unless a wide tick label (-0.015) reaches it;
+  // then it moves left to stand 6 units clear of the widest one.
+  const cairo_text_extents_t e = text_extents(cr, ylabel, 15);
+  const double title_x = std::min(p.left - 52, tick_labels_left - 6 - (e.y_bearing + e.height));
+  ink.labels.push_back(text(cr, title_x, (p.top + p.bottom) / 2, ylabel, 15, 0.5, 0.0, true));
   return ink;
 }
 
@@ -653,8 +673,17 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   const double x0 = *std::min_element(v.begin(), v.end()) - 0.5, x1 = *std::max_element(v.begin(), v.end()) + 0.5;
   auto [a0, a1] = range(a, ae);
   auto [o0, o1] = range(o, oe);
-  Panel top{90, canvas.width - 30, 30, 300, x0, x1, a0, a1, true};
-  Panel bottom{90, canvas.width - 30, 330, 570, x0, x1, o0, o1, false};
+  // Title above the plot boxes, the two panels sharing the height down to the bottom
+  // panel's x axis labels at the foot; the gap between them is narrower than a blank strip
+  // a reader would notice, and wider than two tick labels at the frames' meeting edges.
+  constexpr double kBetweenPanels = 16;
+  const std::vector<std::string> title = {fmt::format("{}  {}", versions.back().name(), relation)};
+  const double first_top = kTitleTop + kTitleLine * static_cast<double>(title.size()) + kPanelGap;
+  const double last_bottom = canvas.height - kBelowXAxis - kFootMargin;
+  const double height = (last_bottom - first_top - kBetweenPanels) / 2;
+  const double right = canvas.width - kPanelRightMargin;
+  Panel top{kPanelLeft, right, first_top, first_top + height, x0, x1, a0, a1, true};
+  Panel bottom{kPanelLeft, right, last_bottom - height, last_bottom, x0, x1, o0, o1, false};
   AtomicOutput out(path);
   auto surface = open_surface(format, out.reopen_path(), canvas);
   cairo_t* cr = surface->cr;
@@ -671,11 +700,16 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   };
   series(top, a, ae);
   series(bottom, o, oe);
-  axes(cr, top, "", "alpha (mag)", false, 1.0);
-  axes(cr, bottom, "version", "parallax offset (mas)", true, 1.0);  // versions are whole numbers
-  text(cr, top.left + 10, top.top + 10, fmt::format("{}  {}", versions.back().name(), relation), 13, 0.0, 1.0);
+  std::vector<FigureBox> ink = axes(cr, top, "", "alpha (mag)", false, 1.0).labels;
+  // Versions are whole numbers: no tick between two of them.
+  for (const auto& b : axes(cr, bottom, "version", "parallax offset (mas)", true, 1.0).labels)
+    ink.push_back(b);
+  for (const auto& b : title_lines(cr, top.left, title)) ink.push_back(b);
   commit_figure(std::move(surface), out, path);
   record_plot_box(s, top, canvas);
+  record_panel(s, top, "", canvas);
+  record_panel(s, bottom, "version", canvas);
+  record_labels(s, ink, canvas);
   return s;
 }
 

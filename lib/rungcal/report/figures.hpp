@@ -99,7 +99,9 @@ FigureSummary residual_trends(const Calibration& calibration, const std::string&
                               const StarTable& residuals, FigureFormat format,
                               const std::string& path, FigureWidth width = FigureWidth::kScreen);
 
-// Zero point and parallax offset of a relation, version by version, with covariance errors.
+// Zero point and parallax offset of a relation, version by version, with covariance errors:
+// two panels sharing the version axis, the title above them, each y title clear of its
+// widest tick label.
 FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation,
                             FigureFormat format, const std::string& path,
                             FigureWidth width = FigureWidth::kScreen);
