@@ -341,8 +341,9 @@ TEST(JointHierarchical,
 // contamination (3% grey blends, 3% parallax outliers, [Fe/H] errors of 0.08 dex, 15%
 // overtones, 8% far stars, E(B-V) errors of 0.04 mag shared by the bands). Acceptance of the
 // method brief (section 4b): |bias| < 0.15 errors and 68% coverage 62-74%, which the 200-mock
-// study in docs/method.md meets; 60 mocks measure a bias to +-0.13 and a coverage to +-0.06,
-// so the test allows 0.4 and 50-86%.
+// study in docs/method.md meets; 40 mocks (under the suite's per-test time on two cores)
+// measure a bias to +-0.16 and a coverage to +-0.07, so the test allows 0.5 and 45-90%: a
+// bias of one error, or intervals half as wide as they should be, still fails.
 TEST(JointHierarchicalSimulation, ThreeRelationsWithEveryContamination) {
   StudyOptions o;
   o.scenario.stars = 300;
@@ -351,7 +352,7 @@ TEST(JointHierarchicalSimulation, ThreeRelationsWithEveryContamination) {
   o.scenario.overtone_fraction = 0.15, o.scenario.far_fraction = 0.08, o.scenario.ebv_error = 0.04;
   o.scenario.more_relations = {{"V", -3.9, -2.4, -0.2, 0.20, 3.1}, {"K", -5.7, -3.2, -0.2, 0.09, 0.35}};
   o.scenario.scatter_correlation = 0.8;
-  o.mocks = 60;
+  o.mocks = 40;
   o.fit.input_path = "(mock)";
   o.fit.joint = true;
   o.parameters.clear();
@@ -371,9 +372,9 @@ TEST(JointHierarchicalSimulation, ThreeRelationsWithEveryContamination) {
   ASSERT_EQ(r.rows.size(), o.parameters.size());
   for (const StudyRow& row : r.rows) {
     EXPECT_EQ(row.used, o.mocks) << row.parameter;
-    EXPECT_LT(std::abs(row.bias_in_errors), 0.4) << row.parameter;
-    EXPECT_GE(row.coverage, 0.50) << row.parameter;
-    EXPECT_LE(row.coverage, 0.86) << row.parameter;
+    EXPECT_LT(std::abs(row.bias_in_errors), 0.5) << row.parameter;
+    EXPECT_GE(row.coverage, 0.45) << row.parameter;
+    EXPECT_LE(row.coverage, 0.90) << row.parameter;
   }
 }
 
