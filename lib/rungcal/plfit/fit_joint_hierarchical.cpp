@@ -3,7 +3,6 @@
 // from the relations' own fits, the solve, the covariance and the bootstrap.
 #include <algorithm>
 #include <cmath>
-#include <map>
 #include <optional>
 
 #include <spdlog/spdlog.h>
@@ -85,32 +84,6 @@ FitSettings joint_settings(const FitOptions& o, const std::vector<RelationResult
   return js;
 }
 
-void joint_bootstrap(const FitOptions& o, JointResult& jr, const FitSettings& settings) {
-  const JointData& d = jr.data;
-  FitSettings relaxed = settings;
-  relaxed.function_tolerance = 1e-9;
-  relaxed.parameter_tolerance = 1e-8;
-  // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
-  std::map<int, std::vector<int>> strata;
-  for (int i = 0; i < d.stars(); ++i)
-    strata[d.kind[i] == 2 ? 2 + d.group[i] : d.kind[i]].push_back(i);
-  const AnchorBlock anchors{jr.layout.anchor0, jr.layout.n_anchors,
-                            settings.anchor_prior_correlation};
-  auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
-    std::vector<int> stars;
-    for (const auto& [key, members] : strata)
-      for (std::size_t k = 0; k < members.size(); ++k)
-        stars.push_back(members[rng.below(members.size())]);
-    FitSettings drawn = relaxed;
-    redraw_prior_centres(drawn.params, anchors, rng);
-    const FitSolution s =
-        solve_joint_hierarchical(d.take(stars), drawn, jr.layout, jr.solution.theta);
-    if (!s.usable) return std::nullopt;
-    return s.theta;
-  };
-  jr.bootstrap = parallel_bootstrap(o, jr.layout.size, "joint", solve, jr.bootstrap_failed);
-}
-
 }  // namespace
 
 JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<RelationResult>& fits,
@@ -133,6 +106,9 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   check_joint_sample(o, coefficients, jr);
   Eigen::VectorXd start;
   FitSettings js = joint_settings(o, fits, L, shared_source(fits, feh_errors), start);
+  if (std::find(jr.data.kind.begin(), jr.data.kind.end(), 0) == jr.data.kind.end())
+    js.params[static_cast<std::size_t>(L.offset)].mode =
+        ParamMode::kFixed;  // nothing constrains it
   const FitSolution sol = solve_joint_hierarchical(jr.data, js, L, start);
   if (!sol.theta.allFinite())
     throw InputError(
@@ -164,12 +140,22 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
       }));
   const Eigen::ArrayXd q = joint_hierarchical_membership(jr.data, js, L, sol.theta);
   jr.membership.assign(q.data(), q.data() + q.size());
-  if (o.joint_resamples() > 0) {
-    js.preconditioner = metric;
-    FitOptions resampled = o;
-    resampled.bootstrap = o.joint_resamples();
-    joint_bootstrap(resampled, jr, js);
-  }
+  // Resamples start at the optimum under the full sample's metric; 1e-9 in the cost and
+  // 1e-8 in the step are far below their spread.
+  FitSettings relaxed = js;
+  relaxed.preconditioner = metric;
+  relaxed.function_tolerance = 1e-9;
+  relaxed.parameter_tolerance = 1e-8;
+  const AnchorBlock anchors{L.anchor0, L.n_anchors, js.anchor_prior_correlation};
+  run_joint_bootstrap(
+      o, jr, [&](const JointData& sample, Random& rng) -> std::optional<Eigen::VectorXd> {
+        FitSettings drawn = relaxed;
+        redraw_prior_centres(drawn.params, anchors,
+                             rng);  // the priors' spread, as the covariance has it
+        const FitSolution s = solve_joint_hierarchical(sample, drawn, L, jr.solution.theta);
+        if (!s.usable) return std::nullopt;
+        return s.theta;
+      });
   for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
   return jr;
 }

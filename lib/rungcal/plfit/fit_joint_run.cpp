@@ -98,6 +98,23 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
   return d;
 }
 
+void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve) {
+  if (o.joint_resamples() <= 0) return;
+  const JointData& d = jr.data;
+  // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
+  std::map<int, std::vector<int>> strata;
+  for (int i = 0; i < d.stars(); ++i) strata[d.kind[i] == 2 ? 2 + d.group[i] : d.kind[i]].push_back(i);
+  auto resample = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
+    std::vector<int> stars;
+    for (const auto& [key, members] : strata)
+      for (std::size_t k = 0; k < members.size(); ++k) stars.push_back(members[rng.below(members.size())]);
+    return solve(d.take(stars), rng);
+  };
+  FitOptions resampled = o;
+  resampled.bootstrap = o.joint_resamples();
+  jr.bootstrap = parallel_bootstrap(resampled, jr.layout.size, "joint", resample, jr.bootstrap_failed);
+}
+
 void check_joint_sample(const FitOptions& o, const StarTable* coefficients, JointResult& jr) {
   jr.stars = jr.data.stars();
   if (jr.stars < 3)
@@ -109,7 +126,7 @@ void check_joint_sample(const FitOptions& o, const StarTable* coefficients, Join
 JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
                       const StarTable& cat, const StarTable* coefficients) {
   if (o.space == FitSpace::kHierarchical) {
-    bool any_parallax = false;
+    bool any_parallax = false;  // run_joint_hierarchical sees it in the data
     return run_joint_hierarchical(o, fits, joint_data_of(o, fits, cat, coefficients, any_parallax), coefficients);
   }
   JointResult jr;
@@ -166,24 +183,11 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   if (!jr.solution.usable)
     jr.warnings.push_back("the joint solver did not reach a usable solution: " +
                           jr.solution.message);
-  if (o.joint_resamples() > 0) {
-    // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
-    std::map<int, std::vector<int>> strata;
-    for (int i = 0; i < d.stars(); ++i)
-      strata[d.kind[i] == 2 ? 2 + d.group[i] : d.kind[i]].push_back(i);
-    auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
-      std::vector<int> stars;
-      for (const auto& [key, members] : strata)
-        for (std::size_t k = 0; k < members.size(); ++k)
-          stars.push_back(members[rng.below(members.size())]);
-      JointSolution s = solve_joint(d.take(stars), js, L, jr.solution.theta, false);
-      if (!s.usable) return std::nullopt;
-      return s.theta;
-    };
-    FitOptions resampled = o;
-    resampled.bootstrap = o.joint_resamples();
-    jr.bootstrap = parallel_bootstrap(resampled, L.size, "joint", solve, jr.bootstrap_failed);
-  }
+  run_joint_bootstrap(o, jr, [&](const JointData& sample, Random&) -> std::optional<Eigen::VectorXd> {
+    JointSolution s = solve_joint(sample, js, L, jr.solution.theta, false);
+    if (!s.usable) return std::nullopt;
+    return s.theta;
+  });
   for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
   return jr;
 }

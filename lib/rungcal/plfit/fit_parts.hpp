@@ -70,6 +70,11 @@ StarTable bootstrap_table(const FitResult& result);
 // any_parallax: whether one of them is a parallax calibrator.
 JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
                         const StarTable* coefficients, bool& any_parallax);
+// The joint fit's bootstrap (FitOptions::joint_resamples()): jr.data's stars resampled
+// within their strata (parallax, known distance, each anchor galaxy), each sample solved by
+// `solve` (nullopt: failed); fills jr.bootstrap and jr.bootstrap_failed.
+using JointSampleSolve = std::function<std::optional<Eigen::VectorXd>(const JointData& sample, Random& rng)>;
+void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve);
 // Counts jr.data's stars (too few: InputError) and warns without a COEFFS table.
 void check_joint_sample(const FitOptions& o, const StarTable* coefficients, JointResult& jr);
 // The hierarchical joint fit (joint_hierarchical.hpp) on those calibrators, started from the
