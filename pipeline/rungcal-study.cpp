@@ -114,6 +114,12 @@ int main(int argc, char** argv) {
                  "the mocks' correlation of a star's scatter between relations (joint)")
       ->capture_default_str();
   app.add_flag("--fix-scatter-correlation", fix_correlation, "hold the joint fit's correlation at the truth");
+  app.add_option("--clusters", study.scenario.clusters, "clusters per mock, each fitted with its cluster parallax")
+      ->capture_default_str();
+  app.add_option("--cluster-members", study.scenario.cluster_members, "stars per cluster")->capture_default_str();
+  app.add_option("--cluster-parallax-error", study.scenario.cluster_parallax_error_mas,
+                 "the clusters' parallax error (mas)")
+      ->capture_default_str();
   app.add_option("--bootstrap", bootstrap, "Bootstrap resamples per mock (0: none)")->capture_default_str();
   app.add_option("--seed", seed, "Seed of the first mock")->capture_default_str();
   app.add_option("--threads", study.threads, "Mocks fitted at once (0: all cores)")->capture_default_str();

@@ -160,26 +160,32 @@ std::vector<hier::Scale> joint_scales(const JointLayout& L) {
   return s;
 }
 
-// With one relation, the joint likelihood is the single one at the same parameters (the
-// colour term vanishes and the magnitude is the star's own), for each component's set-up.
-TEST(JointHierarchical, OneRelationIsTheSingleRelationLikelihood) {
-  const JointCase c = joint_case(1);
+// A one-relation case's parameters and settings in the single relation's layout.
+Eigen::VectorXd single_parameters(const JointCase& c, FitSettings& single) {
   const ParameterLayout& S = single_layout();
-  FitSettings single = c.settings;
+  single = c.settings;
   single.params.assign(static_cast<std::size_t>(S.size), ParamSpec{});
-  single.params[static_cast<std::size_t>(S.anchor0)] =
-      c.settings.params[static_cast<std::size_t>(c.layout.anchor0)];
-  single.params[static_cast<std::size_t>(S.gamma)] =
-      c.settings.params[static_cast<std::size_t>(c.layout.gamma[0])];
+  single.params[static_cast<std::size_t>(S.anchor0)] = c.settings.params[static_cast<std::size_t>(c.layout.anchor0)];
+  single.params[static_cast<std::size_t>(S.gamma)] = c.settings.params[static_cast<std::size_t>(c.layout.gamma[0])];
   Eigen::VectorXd t(S.size);
   for (int j = 0; j < S.size; ++j) {
     std::string name = S.names[static_cast<std::size_t>(j)];
     for (const char* own : {"alpha", "beta", "gamma", "sigma_int"})
       if (name == own) name += "_V";
     const auto at = std::find(c.layout.names.begin(), c.layout.names.end(), name);
-    ASSERT_NE(at, c.layout.names.end()) << name;
-    t[j] = c.theta[at - c.layout.names.begin()];
+    EXPECT_NE(at, c.layout.names.end()) << name;
+    t[j] = at == c.layout.names.end() ? NAN : c.theta[at - c.layout.names.begin()];
   }
+  return t;
+}
+
+// With one relation, the joint likelihood is the single one at the same parameters (the
+// colour term vanishes and the magnitude is the star's own), for each component's set-up.
+TEST(JointHierarchical, OneRelationIsTheSingleRelationLikelihood) {
+  const JointCase c = joint_case(1);
+  const ParameterLayout& S = single_layout();
+  FitSettings single;
+  const Eigen::VectorXd t = single_parameters(c, single);
   const FitData d = single_data();
   for (BlendComponent blends : {BlendComponent::kRising, BlendComponent::kExponential}) {
     single.hierarchical.blends = blends;
@@ -283,6 +289,45 @@ TEST(JointHierarchical, GradientEqualsCentralDifferencesOfTheLikelihood) {
   expect_gradient_matches_differences(c);
   c.settings.hierarchical.blends = BlendComponent::kExponential;
   expect_gradient_matches_differences(c);
+}
+
+// The anchor made a cluster (FitOptions::clusters): its two stars with parallaxes of their
+// own (the first a poor match, so the outlier component's wider parallax term matters) and
+// the cluster's parallax, 10^(-0.2 (mu - 10)) = 0.0245 mas near mu = 18.45 (invented values).
+constexpr double kMemberPlx[2] = {0.031, 0.012}, kMemberErr = 0.01;
+const FitData::GroupParallax kClusterPlx{0.026, 0.002 * 0.002, 1.0};
+
+void make_cluster(JointCase& c) {
+  c.settings.terms.n_clusters = 1;
+  int member = 0;
+  for (int i = 0; i < c.data.stars(); ++i)
+    if (c.data.kind[static_cast<std::size_t>(i)] == 2) {
+      c.data.plx[static_cast<std::size_t>(i)] = kMemberPlx[member++];
+      c.data.var_plx[static_cast<std::size_t>(i)] = kMemberErr * kMemberErr;
+    }
+  c.data.group_plx = {kClusterPlx};
+}
+
+// With one relation the joint likelihood is still the single one, cluster terms included;
+// the gradient of both matches central differences.
+TEST(JointHierarchical, ClusterTermsAgreeWithTheSingleRelationAndTheirGradientWithDifferences) {
+  JointCase c = joint_case(1);
+  make_cluster(c);
+  const ParameterLayout& S = single_layout();
+  FitSettings single;
+  const Eigen::VectorXd t = single_parameters(c, single);
+  FitData d = single_data();
+  d.anchor_plx = Eigen::Map<const Eigen::ArrayXd>(kMemberPlx, 2);
+  d.anchor_var_plx = Eigen::ArrayXd::Constant(2, kMemberErr * kMemberErr);
+  d.group_plx = {kClusterPlx};
+  const double with = joint_value(c, c.theta);
+  EXPECT_NEAR(with, hierarchical_value(d, single, S, t).neg_log_likelihood, 1e-9);
+  // The terms change the value: they are not silently skipped.
+  EXPECT_GT(std::abs(with - joint_value(joint_case(1), c.theta)), 1.0);
+  expect_gradient_matches_differences(c);
+  JointCase three = joint_case(3);
+  make_cluster(three);
+  expect_gradient_matches_differences(three);
 }
 
 TEST(JointHierarchical,

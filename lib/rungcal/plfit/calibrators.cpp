@@ -41,6 +41,61 @@ std::string text_or_empty(const StarTable& t, const std::string& col, std::size_
   if (!t.has(col) || t.column(col).is_null(r)) return "";
   return t.column(col).to_string(r);
 }
+
+// The star's parallax with the zero point subtracted and its error inflated, into s.plx and
+// s.plx_err: "" when usable, else why not.
+std::string correct_parallax(const FitOptions& o, const StarTable& cat, std::size_t r,
+                             const ParallaxTools& tools, StarOutcome& s) {
+  const double plx = value_or_nan(cat, col::kParallax, r),
+               plx_err = value_or_nan(cat, col::kParallaxErr, r);
+  double z = 0.0;
+  if (o.zero_point == ZeroPointRecipe::kConstant) z = o.zero_point_mas;
+  if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
+    double g = value_or_nan(cat, "gaia_g_mag", r), beta = value_or_nan(cat, "ecl_lat_deg", r);
+    double n_param = value_or_nan(cat, "astrometric_params", r);
+    bool six = n_param == 6;
+    double colour = value_or_nan(cat, six ? "pseudocolour_um" : "nu_eff_um", r);
+    if (!std::isfinite(g) || !std::isfinite(beta) || !std::isfinite(colour) ||
+        !std::isfinite(n_param))
+      return "zero point inputs missing (G, colour, ecliptic latitude, astrometric parameters)";
+    z = (six ? *tools.zp6 : *tools.zp5).zero_point_mas(g, colour, beta);
+  }
+  double inflate = 1.0;
+  if (o.inflation == InflationRecipe::kConstant) inflate = o.inflation_factor;
+  if (o.inflation == InflationRecipe::kElBadry2021) {
+    double g = value_or_nan(cat, "gaia_g_mag", r);
+    if (!std::isfinite(g)) return "no G magnitude for the El-Badry et al. 2021 inflation";
+    inflate = el_badry_inflation(g);
+  }
+  if (!std::isfinite(plx_err) || !(plx_err > 0)) return "no positive parallax error";
+  s.plx = plx - z;
+  s.plx_err = plx_err * inflate;
+  // The cut comes after the correction so that refused stars keep their parallax for plots.
+  if (o.max_ruwe > 0) {
+    double ruwe = value_or_nan(cat, "ruwe", r);
+    if (std::isfinite(ruwe) && ruwe > o.max_ruwe) return fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe);
+  }
+  return "";
+}
+
+// A cluster member's own parallax (own, own_var; 0 variance when it is not used): "" when it
+// is used, else why not. Starts "not a member" when it contradicts the cluster's parallax.
+std::string member_parallax(const FitOptions& o, const ClusterOptions& k, const StarTable& cat, std::size_t r,
+                            const ParallaxTools& tools, StarOutcome& s, double& own, double& own_var) {
+  if (std::string why = correct_parallax(o, cat, r, tools, s); !why.empty()) return why;
+  if (k.has_parallax() && o.cluster_member_max_sigma > 0) {
+    const double z = (s.plx - k.parallax_mas) / std::hypot(s.plx_err, k.parallax_err_mas);
+    if (std::abs(z) > o.cluster_member_max_sigma)
+      return fmt::format(
+          "not a member of cluster {}: its parallax {:.4f} +- {:.4f} mas differs from the cluster's {:.4f} +- "
+          "{:.4f} by {:.1f} sigma (cluster_member_max_sigma = {})",
+          k.group, s.plx, s.plx_err, k.parallax_mas, k.parallax_err_mas, std::abs(z), o.cluster_member_max_sigma);
+  }
+  if (o.space != FitSpace::kHierarchical) return "only the hierarchical space uses members' parallaxes";
+  own = s.plx;
+  own_var = s.plx_err * s.plx_err;
+  return "";
+}
 }  // namespace
 
 Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
@@ -86,6 +141,7 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
     StarOutcome s;
     s.row = r;
     s.id = cat.column(col::kId).to_string(r);
+    s.group = text_or_empty(cat, col::kGroup, r);
     auto refuse = [&](const std::string& why) {
       s.reason = why;
       c.stars.push_back(s);
@@ -131,23 +187,45 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
     }
     double x = logp - rel.pivot_log_period;
     double xl = rel.break_log_period ? std::max(0.0, logp - *rel.break_log_period) : 0.0;
-    std::string group = text_or_empty(cat, col::kGroup, r);
+    const std::string& group = s.group;
     auto anchor = std::find_if(o.anchors.begin(), o.anchors.end(),
                                [&](const auto& a) { return a.group == group; });
     double mu = value_or_nan(cat, "mu_mag", r), mu_err = value_or_nan(cat, "mu_err_mag", r);
-    double plx = value_or_nan(cat, col::kParallax, r),
-           plx_err = value_or_nan(cat, col::kParallaxErr, r);
-    if (anchor != o.anchors.end()) {
-      s.kind = "anchor";
+    const double plx = value_or_nan(cat, col::kParallax, r);
+    auto push_group_star = [&](int g, double own_plx, double own_var) {
       s.used = true;
       c.a_star.push_back(c.stars.size());
       push(c.data.anchor, x, xl, feh, m0, e * e, r);
-      c.data.group.push_back(static_cast<int>(anchor - o.anchors.begin()));
+      c.data.group.push_back(g);
+      grow(c.data.anchor_plx, own_plx);
+      grow(c.data.anchor_var_plx, own_var);
       c.stars.push_back(s);
+    };
+    if (anchor != o.anchors.end()) {
+      s.kind = CalibratorKind::kAnchor;
+      push_group_star(static_cast<int>(anchor - o.anchors.begin()), 0.0, 0.0);
+      continue;
+    }
+    auto cluster = std::find_if(o.clusters.begin(), o.clusters.end(),
+                                [&](const auto& k) { return k.group == group; });
+    if (cluster != o.clusters.end()) {
+      s.kind = CalibratorKind::kCluster;
+      double own = 0.0, own_var = 0.0;
+      if (std::isfinite(plx)) {
+        if (std::string why = member_parallax(o, *cluster, cat, r, tools, s, own, own_var); !why.empty()) {
+          if (why.rfind("not a member", 0) == 0) {
+            refuse(why);
+            continue;
+          }
+          s.reason = "used without its own parallax: " + why;
+        }
+      }
+      s.member_parallax = own_var > 0;
+      push_group_star(static_cast<int>(o.anchors.size() + (cluster - o.clusters.begin())), own, own_var);
       continue;
     }
     if (o.use_known_mu && std::isfinite(mu)) {
-      s.kind = "known_distance";
+      s.kind = CalibratorKind::kKnownDistance;
       s.used = true;
       c.k_star.push_back(c.stars.size());
       push(c.data.known, x, xl, feh, m0, e * e, r);
@@ -160,44 +238,10 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
       refuse("no distance: neither a parallax nor a known distance modulus");
       continue;
     }
-    s.kind = "parallax";
-    double z = 0.0;
-    if (o.zero_point == ZeroPointRecipe::kConstant) z = o.zero_point_mas;
-    if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
-      double g = value_or_nan(cat, "gaia_g_mag", r), beta = value_or_nan(cat, "ecl_lat_deg", r);
-      double n_param = value_or_nan(cat, "astrometric_params", r);
-      bool six = n_param == 6;
-      double colour = value_or_nan(cat, six ? "pseudocolour_um" : "nu_eff_um", r);
-      if (!std::isfinite(g) || !std::isfinite(beta) || !std::isfinite(colour) ||
-          !std::isfinite(n_param)) {
-        refuse("zero point inputs missing (G, colour, ecliptic latitude, astrometric parameters)");
-        continue;
-      }
-      z = (six ? *tools.zp6 : *tools.zp5).zero_point_mas(g, colour, beta);
-    }
-    double inflate = 1.0;
-    if (o.inflation == InflationRecipe::kConstant) inflate = o.inflation_factor;
-    if (o.inflation == InflationRecipe::kElBadry2021) {
-      double g = value_or_nan(cat, "gaia_g_mag", r);
-      if (!std::isfinite(g)) {
-        refuse("no G magnitude for the El-Badry et al. 2021 inflation");
-        continue;
-      }
-      inflate = el_badry_inflation(g);
-    }
-    if (!std::isfinite(plx_err) || !(plx_err > 0)) {
-      refuse("no positive parallax error");
+    s.kind = CalibratorKind::kParallax;
+    if (std::string why = correct_parallax(o, cat, r, tools, s); !why.empty()) {
+      refuse(why);
       continue;
-    }
-    s.plx = plx - z;
-    s.plx_err = plx_err * inflate;
-    // The cut comes after the correction so that refused stars keep their parallax for plots.
-    if (o.max_ruwe > 0) {
-      double ruwe = value_or_nan(cat, "ruwe", r);
-      if (std::isfinite(ruwe) && ruwe > o.max_ruwe) {
-        refuse(fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe));
-        continue;
-      }
     }
     if (o.space == FitSpace::kMagnitude && s.plx - offset.value <= 0) {
       refuse(
@@ -212,6 +256,14 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
     grow(c.data.plx, s.plx);
     grow(c.data.var_plx, s.plx_err * s.plx_err);
     c.stars.push_back(s);
+  }
+  bool any_cluster_parallax = false;
+  for (const ClusterOptions& k : o.clusters) any_cluster_parallax = any_cluster_parallax || k.has_parallax();
+  if (any_cluster_parallax) {
+    c.data.group_plx.assign(o.anchors.size(), FitData::GroupParallax{});
+    for (const ClusterOptions& k : o.clusters)
+      c.data.group_plx.push_back(k.has_parallax() ? FitData::GroupParallax{k.parallax_mas, k.parallax_err_mas * k.parallax_err_mas, 1.0}
+                                                 : FitData::GroupParallax{});
   }
   return c;
 }
@@ -255,15 +307,17 @@ void check_constrained(const FitOptions& o, const RelationOptions& rel, const Ca
     throw InputError({o.input_path, {}, {}}, "too_few_calibrators",
                      fmt::format("relation {}: {} usable calibrators, at least 3 are needed{}",
                                  rel.name, c.data.stars(), refusal_summary(c)));
-  if (s.params[L.offset].mode == ParamMode::kFree && c.data.parallax.size() == 0)
+  if (s.params[L.offset].mode == ParamMode::kFree && !has_any_parallax(c.data))
     throw InputError(
         {o.config_file, {}, "fit.offset", "line", "key"}, "config_value",
         fmt::format("relation {}: the parallax offset is free but no parallax calibrator is used",
                     rel.name));
-  for (std::size_t g = 0; g < o.anchors.size(); ++g)
+  const std::vector<std::string> groups = o.group_names();
+  for (std::size_t g = 0; g < groups.size(); ++g)
     if (std::count(c.data.group.begin(), c.data.group.end(), static_cast<int>(g)) == 0)
-      spdlog::warn("relation {}: anchor {} has no star; its distance modulus stays at its prior",
-                   rel.name, o.anchors[g].group);
+      spdlog::warn("relation {}: {} {} has no star; its distance modulus is fitted to its {} alone", rel.name,
+                   g < o.anchors.size() ? "anchor" : "cluster", groups[g],
+                   g < o.anchors.size() ? "prior" : "parallax or modulus");
 }
 
 }  // namespace rungcal::fit_parts

@@ -31,4 +31,26 @@ StarIntegrals::StarIntegrals(int nodes, std::size_t stars)
       mode_outlier(mode_member),
       mode_blend(mode_member) {}
 
+ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double offset) {
+  const double p = std::exp(-kC * (mu - 10.0)), r = plx - p - offset;
+  ParallaxAtModulus o;
+  o.log_l = -0.5 * (r * r / var + kLog2Pi + std::log(var));
+  o.d_off = r / var;
+  o.d_mu = o.d_off * -kC * p;  // dp/dmu = -0.2 ln10 p
+  return o;
+}
+
+double group_parallax_log_l(const std::vector<FitData::GroupParallax>& groups, const double* mu, double offset,
+                            double* d_mu, double& d_off) {
+  double log_l = 0;
+  for (std::size_t g = 0; g < groups.size(); ++g) {
+    if (!(groups[g].var > 0) || groups[g].weight == 0) continue;
+    const ParallaxAtModulus t = parallax_at_modulus(groups[g].plx, groups[g].var, mu[g], offset);
+    log_l += groups[g].weight * t.log_l;
+    d_mu[g] += groups[g].weight * t.d_mu;
+    d_off += groups[g].weight * t.d_off;
+  }
+  return log_l;
+}
+
 }  // namespace rungcal::hier

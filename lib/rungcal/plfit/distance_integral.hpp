@@ -208,4 +208,36 @@ Component given_modulus(double m, const Magnitude& mag, double mu, double m_shif
   return c;
 }
 
+// A cluster member's own parallax at its cluster's modulus mu (a parameter, so no integral):
+// ln N(pi | 10^(-0.2 (mu - 10)) + offset, var), with its derivatives in mu and the offset.
+struct ParallaxAtModulus {
+  double log_l = 0, d_mu = 0, d_off = 0;
+};
+ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double offset);
+
+// A member's own parallax in its mixture: the member and blend components take it with its
+// error, the outlier component with the error widened by `outlier_factor2`'s root.
+struct OwnParallax {
+  ParallaxAtModulus member, outlier;
+  OwnParallax(double plx, double var, double outlier_factor2, double mu, double offset)
+      : member(parallax_at_modulus(plx, var, mu, offset)),
+        outlier(parallax_at_modulus(plx, outlier_factor2 * var, mu, offset)) {}
+  void add_to(Component& m, Component& out, Component& blend) const {
+    m.log_l += member.log_l, out.log_l += outlier.log_l, blend.log_l += member.log_l;
+  }
+  // d ln L_i / d mu and / d offset, with the components' posterior weights.
+  double d_mu(double q, double q_out, double q_blend) const {
+    return (q + q_blend) * member.d_mu + q_out * outlier.d_mu;
+  }
+  double d_off(double q, double q_out, double q_blend) const {
+    return (q + q_blend) * member.d_off + q_out * outlier.d_off;
+  }
+};
+
+// The clusters' own parallaxes, sum_g w_g ln N(pi_g | 10^(-0.2 (mu_g - 10)) + offset, var_g)
+// over the groups with var_g > 0 (mu: the groups' moduli in order): adds d/dmu_g to d_mu[g]
+// and d/doffset to d_off.
+double group_parallax_log_l(const std::vector<FitData::GroupParallax>& groups, const double* mu, double offset,
+                            double* d_mu, double& d_off);
+
 }  // namespace rungcal::hier

@@ -37,7 +37,41 @@ std::uint64_t resample_seed(std::uint64_t seed, int b) {
   return z ^ (z >> 31);
 }
 
+std::vector<Eigen::Index> group_members(const FitData& data, int g) {
+  std::vector<Eigen::Index> members;
+  for (Eigen::Index i = 0; i < data.anchor.size(); ++i)
+    if (data.group[static_cast<std::size_t>(i)] == g) members.push_back(i);
+  return members;
+}
+
 }  // namespace
+
+std::vector<int> draw_clusters(const ModelTerms& terms, Random& rng) {
+  std::vector<int> drawn;
+  const int first = terms.n_anchors - terms.n_clusters;
+  for (int k = 0; k < terms.n_clusters; ++k)
+    drawn.push_back(first + static_cast<int>(rng.below(static_cast<std::uint64_t>(terms.n_clusters))));
+  return drawn;
+}
+
+void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& drawn,
+                              std::vector<FitData::GroupParallax>& groups) {
+  if (groups.empty()) return;
+  for (int g = terms.n_anchors - terms.n_clusters; g < terms.n_anchors; ++g)
+    groups[static_cast<std::size_t>(g)].weight =
+        static_cast<double>(std::count(drawn.begin(), drawn.end(), g));
+}
+
+void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& drawn, FitData& sample) {
+  weigh_cluster_parallaxes(terms, drawn, sample.group_plx);
+}
+
+void forget_undrawn_clusters(const ModelTerms& terms, int anchor0, const std::vector<int>& drawn,
+                             Eigen::VectorXd& theta) {
+  for (int g = terms.n_anchors - terms.n_clusters; g < terms.n_anchors; ++g)
+    if (std::find(drawn.begin(), drawn.end(), g) == drawn.end())
+      theta[anchor0 + g] = std::numeric_limits<double>::quiet_NaN();
+}
 
 Eigen::MatrixXd parallel_bootstrap(const FitOptions& o, int P, const std::string& label,
                                    const ResampleSolve& solve, int& failed) {
@@ -88,16 +122,19 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
       for (auto& i : idx) i = static_cast<Eigen::Index>(rng.below(static_cast<std::uint64_t>(n)));
       return idx;
     };
+    const ModelTerms& terms = rr.settings.terms;
     std::vector<Eigen::Index> ai;
     // Anchors are resampled within each galaxy so each keeps its stars.
-    for (int g = 0; g < rr.settings.terms.n_anchors; ++g) {
-      std::vector<Eigen::Index> members;
-      for (Eigen::Index i = 0; i < data.anchor.size(); ++i)
-        if (data.group[i] == g) members.push_back(i);
+    for (int g = 0; g < terms.n_anchors - terms.n_clusters; ++g) {
+      const std::vector<Eigen::Index> members = group_members(data, g);
       for (std::size_t k = 0; k < members.size(); ++k)
         ai.push_back(members[rng.below(members.size())]);
     }
+    const std::vector<int> drawn_clusters = draw_clusters(terms, rng);
+    for (int g : drawn_clusters)
+      for (Eigen::Index i : group_members(data, g)) ai.push_back(i);
     FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
+    weigh_cluster_parallaxes(terms, drawn_clusters, sample);
     // Each prior's centre is redrawn from its own Gaussian, so the resamples carry the
     // prior's uncertainty as the covariance does (method brief, section 4b).
     FitSettings drawn = settings;
@@ -105,7 +142,9 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
     FitSolution s = solve_fit(sample, drawn, rr.layout,
                               gauss_newton_start(sample, drawn, rr.layout, rr.solution.theta));
     if (!s.usable) return std::nullopt;
-    return s.theta;
+    Eigen::VectorXd theta = s.theta;
+    forget_undrawn_clusters(terms, rr.layout.anchor0, drawn_clusters, theta);
+    return theta;
   };
   rr.bootstrap =
       parallel_bootstrap(o, rr.layout.size, rr.relation.name, solve, rr.bootstrap_failed);
@@ -138,13 +177,14 @@ std::vector<double> bootstrap_column(const RelationResult& rr, int j) {
 }
 
 // Every bootstrap resample's parameters, one row per resample and parameter (NaN for a
+// cluster the resample did not draw, or
 // failed resample), so a user can form any statistic of them.
 StarTable bootstrap_table(const FitResult& result) {
   StarTable t;
   t.add_column("relation", ColumnType::kText, "", "relation, or 'joint'");
   t.add_column("resample", ColumnType::kInteger, "", "resample index b (seeded per b)");
   t.add_column("parameter", ColumnType::kText);
-  t.add_column("value", ColumnType::kReal, "", "parameter's value in resample b (NaN: failed)");
+  t.add_column("value", ColumnType::kReal, "", "parameter's value in resample b (NaN: failed, or a cluster it did not draw)");
   auto add = [&](const std::string& relation, const std::vector<std::string>& names,
                  const Eigen::MatrixXd& samples) {
     for (Eigen::Index b = 0; b < samples.rows(); ++b)

@@ -34,6 +34,11 @@ void take_parameter(const RelationResult& rr, int from, int to, FitSettings& js,
   start[to] = rr.solution.theta[from];
 }
 
+bool joint_has_parallax(const JointData& d) {
+  return std::any_of(d.var_plx.begin(), d.var_plx.end(), [](double v) { return v > 0; }) ||
+         std::any_of(d.group_plx.begin(), d.group_plx.end(), [](const FitData::GroupParallax& g) { return g.var > 0; });
+}
+
 FitSettings joint_settings(const FitOptions& o, const std::vector<RelationResult>& fits,
                            const JointLayout& L, const RelationResult& shared,
                            Eigen::VectorXd& start) {
@@ -98,17 +103,15 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
     metallicity.push_back(rr.relation.metallicity);
     feh_errors = feh_errors || rr.layout.feh_mean >= 0;
   }
-  std::vector<std::string> anchor_names;
-  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
+  const std::vector<std::string> anchor_names = o.group_names();
   jr.layout = JointLayout::make_hierarchical(jr.relations, metallicity, o.joint_shared_slope,
                                              anchor_names, fits[0].layout, feh_errors);
   const JointLayout& L = jr.layout;
   check_joint_sample(o, coefficients, jr);
   Eigen::VectorXd start;
   FitSettings js = joint_settings(o, fits, L, shared_source(fits, feh_errors), start);
-  if (std::find(jr.data.kind.begin(), jr.data.kind.end(), 0) == jr.data.kind.end())
-    js.params[static_cast<std::size_t>(L.offset)].mode =
-        ParamMode::kFixed;  // nothing constrains it
+  if (!joint_has_parallax(jr.data))
+    js.params[static_cast<std::size_t>(L.offset)].mode = ParamMode::kFixed;  // nothing constrains it
   const FitSolution sol = solve_joint_hierarchical(jr.data, js, L, start);
   if (!sol.theta.allFinite())
     throw InputError(
@@ -146,7 +149,7 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   relaxed.preconditioner = metric;
   relaxed.function_tolerance = 1e-9;
   relaxed.parameter_tolerance = 1e-8;
-  const AnchorBlock anchors{L.anchor0, L.n_anchors, js.anchor_prior_correlation};
+  const AnchorBlock anchors{L.anchor0, L.n_anchors - js.terms.n_clusters, js.anchor_prior_correlation};
   run_joint_bootstrap(
       o, jr, [&](const JointData& sample, Random& rng) -> std::optional<Eigen::VectorXd> {
         FitSettings drawn = relaxed;

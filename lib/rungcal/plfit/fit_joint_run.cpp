@@ -44,24 +44,26 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
   JointData d;
   // Entries: every relation in which a star was used, as whichever kind of calibrator.
   d.relations = static_cast<int>(fits.size());
+  const std::vector<std::string> groups = o.group_names();
   auto anchor_index = [&](std::size_t row) {
     const std::string g = cat.has(col::kGroup) && !cat.column(col::kGroup).is_null(row)
                               ? cat.column(col::kGroup).text[row]
                               : "";
-    for (std::size_t a = 0; a < o.anchors.size(); ++a)
-      if (o.anchors[a].group == g) return static_cast<int>(a);
+    for (std::size_t a = 0; a < groups.size(); ++a)
+      if (groups[a] == g) return static_cast<int>(a);
     return -1;
   };
   any_parallax = false;
   for (std::size_t row = 0; row < cat.rows(); ++row) {
     int added = 0, kind = -1;
     double plx = 0, plx_err = 0;
+    bool member_parallax = false;
     const double se = cat.has(col::kEbvErr) ? cat.column(col::kEbvErr).as_real(row) : 0.0;
     const double se2 = std::isfinite(se) ? se * se : 0.0;
     for (std::size_t r = 0; r < fits.size(); ++r) {
       const StarOutcome& s = fits[r].stars[row];
       if (!s.used) continue;
-      int k = s.kind == "parallax" ? 0 : (s.kind == "known_distance" ? 1 : 2);
+      int k = s.kind == CalibratorKind::kParallax ? 0 : (s.kind == CalibratorKind::kKnownDistance ? 1 : 2);
       if (kind >= 0 && k != kind) continue;  // the same star is the same kind in every relation
       kind = k;
       if (added == 0) d.first.push_back(static_cast<int>(d.relation.size()));
@@ -75,13 +77,15 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
       d.var_phot.push_back(std::max(s.m0_err * s.m0_err - c * c * se2, 1e-8));
       d.coefficient.push_back(c);
       plx = s.plx, plx_err = s.plx_err;
+      member_parallax = s.member_parallax;
       ++added;
     }
     if (added == 0) continue;
-    any_parallax = any_parallax || kind == 0;
+    const bool own = kind == 0 || (kind == 2 && member_parallax);
+    any_parallax = any_parallax || own;
     d.kind.push_back(kind);
-    d.plx.push_back(kind == 0 ? plx : 0.0);
-    d.var_plx.push_back(kind == 0 ? plx_err * plx_err : 0.0);
+    d.plx.push_back(own ? plx : 0.0);
+    d.var_plx.push_back(own ? plx_err * plx_err : 0.0);
     const double mu = cat.has("mu_mag") ? cat.column("mu_mag").as_real(row) : 0.0;
     const double mu_err = cat.has("mu_err_mag") ? cat.column("mu_err_mag").as_real(row) : 0.0;
     d.mu.push_back(kind == 1 ? mu : 0.0);
@@ -95,20 +99,42 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
     d.row.push_back(row);
   }
   d.first.push_back(static_cast<int>(d.relation.size()));
+  for (const RelationResult& rr : fits)
+    if (!rr.group_plx.empty()) d.group_plx = rr.group_plx;
+  any_parallax = any_parallax || std::any_of(d.group_plx.begin(), d.group_plx.end(),
+                                             [](const FitData::GroupParallax& g) { return g.var > 0; });
   return d;
 }
 
 void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve) {
   if (o.joint_resamples() <= 0) return;
   const JointData& d = jr.data;
-  // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars.
-  std::map<int, std::vector<int>> strata;
-  for (int i = 0; i < d.stars(); ++i) strata[d.kind[i] == 2 ? 2 + d.group[i] : d.kind[i]].push_back(i);
+  ModelTerms terms;
+  terms.n_anchors = jr.layout.n_anchors;
+  terms.n_clusters = static_cast<int>(o.clusters.size());
+  const int first_cluster = terms.n_anchors - terms.n_clusters;
+  // Strata: parallax stars, known-distance stars, and each anchor galaxy's stars; each
+  // cluster's stars form a unit.
+  std::map<int, std::vector<int>> strata, clusters;
+  for (int i = 0; i < d.stars(); ++i) {
+    const auto si = static_cast<std::size_t>(i);
+    if (d.kind[si] == 2 && d.group[si] >= first_cluster)
+      clusters[d.group[si]].push_back(i);
+    else
+      strata[d.kind[si] == 2 ? 2 + d.group[si] : d.kind[si]].push_back(i);
+  }
   auto resample = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
     std::vector<int> stars;
     for (const auto& [key, members] : strata)
       for (std::size_t k = 0; k < members.size(); ++k) stars.push_back(members[rng.below(members.size())]);
-    return solve(d.take(stars), rng);
+    const std::vector<int> drawn = draw_clusters(terms, rng);
+    for (int g : drawn)
+      if (auto it = clusters.find(g); it != clusters.end()) stars.insert(stars.end(), it->second.begin(), it->second.end());
+    JointData sample = d.take(stars);
+    weigh_cluster_parallaxes(terms, drawn, sample.group_plx);
+    std::optional<Eigen::VectorXd> theta = solve(sample, rng);
+    if (theta) forget_undrawn_clusters(terms, jr.layout.anchor0, drawn, *theta);
+    return theta;
   };
   FitOptions resampled = o;
   resampled.bootstrap = o.joint_resamples();
@@ -139,8 +165,7 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
     jr.relations.push_back(rr.relation.name);
     metallicity.push_back(rr.relation.metallicity);
   }
-  std::vector<std::string> anchor_names;
-  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
+  const std::vector<std::string> anchor_names = o.group_names();
   jr.layout = JointLayout::make(jr.relations, metallicity, o.joint_shared_slope, anchor_names);
   const JointLayout& L = jr.layout;
   JointSettings js;
@@ -149,7 +174,13 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   js.scatter_correlation = o.joint_scatter_correlation.value;
   js.fixed.assign(L.size, false);
   for (std::size_t g = 0; g < o.anchors.size(); ++g) js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_prior_sigma(g));
-  if (o.anchor_covariance.size()) js.anchor_correlation = correlation_of(o.anchor_covariance);
+  // Clusters (a modulus each: the GLS space takes no cluster parallax) are independent of the anchors.
+  for (const ClusterOptions& k : o.clusters) js.anchor_priors.emplace_back(k.mu, k.mu_err);
+  if (o.anchor_covariance.size()) {
+    const auto n = static_cast<Eigen::Index>(anchor_names.size()), a = o.anchor_covariance.rows();
+    js.anchor_correlation = Eigen::MatrixXd::Identity(n, n);
+    js.anchor_correlation.topLeftCorner(a, a) = correlation_of(o.anchor_covariance);
+  }
   if (o.offset.mode == ParamMode::kFixed) js.fixed[L.offset] = true;
   if (o.offset.mode == ParamMode::kPrior)
     jr.warnings.push_back("the offset's prior is not used by the joint fit (free there)");
@@ -164,8 +195,8 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
     if (L.gamma[r] >= 0) start[L.gamma[r]] = rr.parameter("gamma");
     offset_sum += rr.parameter("parallax_offset_mas");
   }
-  for (std::size_t a = 0; a < o.anchors.size(); ++a)
-    start[L.anchor0 + static_cast<int>(a)] = fits[0].parameter("mu_" + o.anchors[a].group);
+  for (std::size_t a = 0; a < anchor_names.size(); ++a)
+    start[L.anchor0 + static_cast<int>(a)] = fits[0].parameter("mu_" + anchor_names[a]);
   start[L.offset] = o.offset.mode == ParamMode::kFixed
                         ? o.offset.value
                         : offset_sum / static_cast<double>(fits.size());

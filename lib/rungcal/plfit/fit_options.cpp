@@ -1,5 +1,6 @@
 // SPDX-License-Identifier: MIT
 // The fit stage's options: reading them from the config and the rules they must obey.
+#include <algorithm>
 #include <cmath>
 #include <limits>
 #include <string>
@@ -154,6 +155,7 @@ std::string FitOptions::check() const {
     for (const auto& c : r.classes)
       if (!kPulsatorClassNames.parse(c)) return "relation.classes: unknown class '" + c + "'";
   }
+  if (std::string why = check_clusters(); !why.empty()) return why;
   if (anchor_covariance.size()) {
     if (std::string why = check_anchor_covariance(anchor_covariance, static_cast<int>(anchors.size())); !why.empty())
       return why;
@@ -168,6 +170,45 @@ std::string FitOptions::check() const {
   for (const auto& a : anchors)
     if (!(a.mu_err > 0)) return "anchor.mu_err: must be positive (" + a.group + ")";
   return "";
+}
+
+std::string FitOptions::check_clusters() const {
+  if (!(cluster_member_max_sigma >= 0 && std::isfinite(cluster_member_max_sigma)))
+    return "fit.cluster_member_max_sigma: must be 0 (no cut) or positive";
+  std::vector<std::string> names = group_names();
+  for (std::size_t i = 0; i < names.size(); ++i) {
+    if (names[i].empty()) return "cluster.group: required (the catalog's group value of its members)";
+    if (std::count(names.begin(), names.end(), names[i]) > 1)
+      return fmt::format("cluster.group: '{}' names two groups (each [[anchor]] and [[cluster]] needs its own)",
+                         names[i]);
+  }
+  for (const ClusterOptions& k : clusters) {
+    if (!k.has_parallax() && !k.has_modulus())
+      return fmt::format("cluster.parallax_mas: cluster {} needs a parallax (parallax_mas, parallax_err_mas) or a "
+                         "distance modulus (mu, mu_err)",
+                         k.group);
+    if (k.has_parallax() && !(k.parallax_err_mas > 0 && std::isfinite(k.parallax_err_mas)))
+      return fmt::format("cluster.parallax_err_mas: must be positive (cluster {})", k.group);
+    if (k.has_parallax() && !(std::abs(k.parallax_mas) < 1000))
+      return fmt::format("cluster.parallax_mas: {} mas is not a cluster's parallax (cluster {})", k.parallax_mas,
+                         k.group);
+    if (k.has_modulus() && !(k.mu_err > 0 && std::isfinite(k.mu_err)))
+      return fmt::format("cluster.mu_err: must be positive (cluster {})", k.group);
+    if (k.has_modulus() && !(k.mu > -5 && k.mu < 40))
+      return fmt::format("cluster.mu: {} mag is not a distance modulus (cluster {})", k.mu, k.group);
+    if (k.has_parallax() && space != FitSpace::kHierarchical)
+      return fmt::format("cluster.parallax_mas: a cluster parallax needs space = \"hierarchical\" (cluster {}); "
+                         "the other spaces take a cluster's distance modulus only",
+                         k.group);
+  }
+  return "";
+}
+
+std::vector<std::string> FitOptions::group_names() const {
+  std::vector<std::string> names;
+  for (const auto& a : anchors) names.push_back(a.group);
+  for (const auto& k : clusters) names.push_back(k.group);
+  return names;
 }
 
 double FitOptions::anchor_prior_sigma(std::size_t g) const {
@@ -275,6 +316,16 @@ FitOptions fit_options_from_file(const std::string& path) {
     an.mu_err = a.number_or("mu_err", 0.0);
     o.anchors.push_back(an);
   }
+  for (const auto& k : root.section_list("cluster")) {
+    ClusterOptions cl;
+    cl.group = k.require_string("group");
+    cl.parallax_mas = k.number_or("parallax_mas", cl.parallax_mas);
+    cl.parallax_err_mas = k.number_or("parallax_err_mas", cl.parallax_err_mas);
+    cl.mu = k.number_or("mu", cl.mu);
+    cl.mu_err = k.number_or("mu_err", cl.mu_err);
+    o.clusters.push_back(cl);
+  }
+  o.cluster_member_max_sigma = f->number_or("cluster_member_max_sigma", o.cluster_member_max_sigma);
   if (auto rows = f->get_number_rows("anchor_covariance")) {
     const auto n = static_cast<Eigen::Index>(rows->size());
     o.anchor_covariance.resize(n, n);

@@ -59,6 +59,17 @@ Eigen::MatrixXd parallel_bootstrap(const FitOptions& o, int P, const std::string
 // The bootstrap of one relation's fit (stars resampled by kind and anchor galaxy, every
 // prior's centre redrawn).
 void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data);
+// Clusters are resampled as units (their members and their parallax together): the groups
+// (indices into the anchors-then-clusters list) one resample draws, with repeats.
+std::vector<int> draw_clusters(const ModelTerms& terms, Random& rng);
+// Each cluster's parallax term counted as often as its cluster was drawn.
+void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& drawn,
+                              std::vector<FitData::GroupParallax>& groups);
+void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& drawn, FitData& sample);
+// A cluster not drawn has no data in its resample: its modulus there is NaN, not a value, so
+// its bootstrap spread comes from the resamples that drew it.
+void forget_undrawn_clusters(const ModelTerms& terms, int anchor0, const std::vector<int>& drawn,
+                             Eigen::VectorXd& theta);
 double percentile(std::vector<double> v, double q);
 double standard_deviation(const std::vector<double>& v);
 // Parameter j's finite resample values.
@@ -71,7 +82,7 @@ StarTable bootstrap_table(const FitResult& result);
 JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
                         const StarTable* coefficients, bool& any_parallax);
 // The joint fit's bootstrap (FitOptions::joint_resamples()): jr.data's stars resampled
-// within their strata (parallax, known distance, each anchor galaxy), each sample solved by
+// within their strata (parallax, known distance, each anchor galaxy; clusters whole), each sample solved by
 // `solve` (nullopt: failed); fills jr.bootstrap and jr.bootstrap_failed.
 using JointSampleSolve = std::function<std::optional<Eigen::VectorXd>(const JointData& sample, Random& rng)>;
 void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve);

@@ -36,6 +36,31 @@ nlohmann::json param_json(const ParamSpec& p) {
           {"prior_sigma", p.prior_sigma}};
 }
 
+// Per cluster of one relation: its fitted modulus and every member, used or not, with the
+// reason (issue: rejections are listed per member).
+nlohmann::json clusters_json(const FitOptions& o, const RelationResult& rr) {
+  nlohmann::json out = nlohmann::json::array();
+  for (const ClusterOptions& k : o.clusters) {
+    nlohmann::json members = nlohmann::json::array();
+    int used = 0, with_parallax = 0;
+    for (const StarOutcome& s : rr.stars) {
+      if (s.group != k.group) continue;
+      used += s.used ? 1 : 0;
+      with_parallax += s.used && s.member_parallax ? 1 : 0;
+      members.push_back({{"id", s.id}, {"used", s.used}, {"own_parallax", s.member_parallax}, {"reason", s.reason}});
+    }
+    const std::string name = "mu_" + k.group;
+    const double err = rr.error(name);
+    out.push_back({{"group", k.group},
+                   {"mu", rr.parameter(name)},
+                   {"mu_err", std::isfinite(err) ? nlohmann::json(err) : nlohmann::json(nullptr)},
+                   {"n_used", used},
+                   {"n_with_own_parallax", with_parallax},
+                   {"members", members}});
+  }
+  return out;
+}
+
 }  // namespace
 
 nlohmann::json FitResult::to_json(const FitOptions& o) const {
@@ -91,6 +116,18 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                      }
                      return c;
                    }()},
+                  {"clusters", [&] {
+                     nlohmann::json a = nlohmann::json::array();
+                     auto number = [](double v) { return std::isfinite(v) ? json(v) : json(nullptr); };
+                     for (const ClusterOptions& k : o.clusters)
+                       a.push_back({{"group", k.group},
+                                    {"parallax_mas", number(k.parallax_mas)},
+                                    {"parallax_err_mas", number(k.parallax_err_mas)},
+                                    {"mu", number(k.mu)},
+                                    {"mu_err", number(k.mu_err)}});
+                     return a;
+                   }()},
+                  {"cluster_member_max_sigma", o.cluster_member_max_sigma},
                   {"joint", o.joint},
                   {"bootstrap", o.bootstrap},
                   {"joint_bootstrap", o.joint_resamples()},
@@ -183,6 +220,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
       else
         r["used"].push_back(s.id);
     }
+    r["clusters"] = clusters_json(o, rr);
     r["warnings"] = rr.warnings;
     r["undetermined"] = rr.undetermined;
     if (rr.layout.distance_bin0 >= 0)

@@ -45,7 +45,8 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
   s.terms.has_break = rel.break_log_period.has_value();
   s.terms.break_log_period = rel.break_log_period.value_or(0.0);
   s.terms.has_metallicity = rel.metallicity;
-  s.terms.n_anchors = static_cast<int>(o.anchors.size());
+  s.terms.n_anchors = static_cast<int>(o.anchors.size() + o.clusters.size());
+  s.terms.n_clusters = static_cast<int>(o.clusters.size());
   s.terms.hierarchical = L.outlier >= 0;
   s.terms.feh_errors = L.feh_mean >= 0;
   s.terms.blends = L.blend >= 0;
@@ -60,6 +61,12 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
   for (std::size_t g = 0; g < o.anchors.size(); ++g)
     s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchor_prior_sigma(g), true};
   if (o.anchor_covariance.size()) s.anchor_prior_correlation = correlation_of(o.anchor_covariance);
+  for (std::size_t k = 0; k < o.clusters.size(); ++k) {
+    const ClusterOptions& cl = o.clusters[k];
+    s.params[L.anchor0 + static_cast<int>(o.anchors.size() + k)] =
+        cl.has_modulus() ? ParamSpec{ParamMode::kPrior, cl.mu, cl.mu_err, true}
+                         : ParamSpec{ParamMode::kFree, 10.0 - 5.0 * std::log10(cl.parallax_mas), 0, true};
+  }
   if (s.terms.hierarchical) {
     s.params[L.outlier] = o.outlier_fraction;
     s.params[L.outlier_shift] = o.outlier_shift;

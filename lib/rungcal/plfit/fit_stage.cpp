@@ -77,8 +77,7 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     tools.zp5 = ZeroPointTable::from_file(o.zero_point_table_5p);
     tools.zp6 = ZeroPointTable::from_file(o.zero_point_table_6p);
   }
-  std::vector<std::string> anchor_names;
-  for (const auto& a : o.anchors) anchor_names.push_back(a.group);
+  const std::vector<std::string> anchor_names = o.group_names();
   FitResult result;
   for (const auto& rel : o.relations) {
     RelationResult rr;
@@ -92,7 +91,7 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
                          : 0;
     rr.layout = ParameterLayout::for_terms(ModelTerms{rel.pivot_log_period, rel.break_log_period.has_value(),
                                                       rel.break_log_period.value_or(0.0), rel.metallicity,
-                                                      static_cast<int>(o.anchors.size()), hierarchical,
+                                                      static_cast<int>(anchor_names.size()), hierarchical,
                                                       hierarchical && rel.metallicity && has_feh_errors(c.data), bins,
                                                       hierarchical && o.hierarchical.blends != BlendComponent::kNone},
                                            anchor_names);
@@ -100,6 +99,7 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     rr.settings.hierarchical = grid;
     hold_unconstrained(c, rr);
     rr.stars = c.stars;
+    rr.group_plx = c.data.group_plx;
     check_constrained(o, rel, c, rr.settings, rr.layout);
     if (o.space == FitSpace::kMagnitude) {
       int noisy = 0;
@@ -235,10 +235,11 @@ FitResult fit_catalog_file(const FitOptions& o) {
     for (const auto& s : rr.stars) {
       res.column("relation").push_text(rr.relation.name);
       res.column("id").push_text(s.id);
-      s.kind.empty() ? res.column("kind").push_null() : res.column("kind").push_text(s.kind);
+      s.kind == CalibratorKind::kNone ? res.column("kind").push_null()
+                                    : res.column("kind").push_text(std::string(kCalibratorKindNames.name(s.kind)));
       s.reason.empty() ? res.column("reason").push_null() : res.column("reason").push_text(s.reason);
       res.column("used").push_boolean(s.used);
-      res.column("log_period_f").push_real(s.kind.empty() && s.log_period == 0 ? std::nan("") : s.log_period);
+      res.column("log_period_f").push_real(s.kind == CalibratorKind::kNone && s.log_period == 0 ? std::nan("") : s.log_period);
       res.column("m0").push_real(s.m0_err > 0 ? s.m0 : std::nan(""));
       res.column("m0_err").push_real(s.m0_err > 0 ? s.m0_err : std::nan(""));
       res.column("abs_mag_model").push_real(s.model_abs_mag);

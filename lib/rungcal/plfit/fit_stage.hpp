@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <cmath>
 #include <cstdint>
 #include <limits>
 #include <optional>
@@ -10,6 +11,7 @@
 #include <nlohmann/json.hpp>
 
 #include "rungcal/astrometry/astrometry.hpp"
+#include "rungcal/core/enum_table.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/plfit/joint.hpp"
 #include "rungcal/plfit/model.hpp"
@@ -50,6 +52,23 @@ struct AnchorOptions {
   std::string group;
   double mu = 0;
   double mu_err = 0;
+};
+
+// A star cluster (or any group of calibrators at one distance): its members (catalog group ==
+// name) share one true distance modulus mu_c, a fit parameter. What fixes mu_c: the cluster's
+// parallax (mas, with the same zero point already applied as the members'; the fit's offset
+// is added to it, as to theirs), its distance modulus, or both. A member with its own usable
+// parallax uses it as well: ln N(pi_i | 10^(-0.2 (mu_c - 10)) + offset, sigma_i^2) in the
+// member's likelihood (docs/method.md, "Clusters"). The parallax terms need the hierarchical
+// space; in the other spaces a cluster with a modulus is fitted as an anchor is.
+struct ClusterOptions {
+  std::string group;
+  double parallax_mas = std::numeric_limits<double>::quiet_NaN();      // cluster parallax (NaN: none)
+  double parallax_err_mas = std::numeric_limits<double>::quiet_NaN();  // its error
+  double mu = std::numeric_limits<double>::quiet_NaN();                // cluster distance modulus (NaN: none)
+  double mu_err = std::numeric_limits<double>::quiet_NaN();            // its error
+  bool has_parallax() const { return std::isfinite(parallax_mas); }
+  bool has_modulus() const { return std::isfinite(mu); }
 };
 
 struct FitOptions {
@@ -105,23 +124,49 @@ struct FitOptions {
   // share systematics); empty: independent, each with its mu_err. When given, each anchor's
   // mu_err may be left out and is otherwise checked against the diagonal.
   Eigen::MatrixXd anchor_covariance;
+  std::vector<ClusterOptions> clusters;
+  // A member whose own parallax differs from its cluster's by more than this many combined
+  // errors is refused as a non-member (its reason names both parallaxes); 0: never. Common
+  // practice in cluster-Cepheid work is a 3-5 sigma membership cut on parallax.
+  double cluster_member_max_sigma = 5.0;
+  // The groups whose stars share a fitted modulus: the anchors, then the clusters.
+  std::vector<std::string> group_names() const;
   double anchor_prior_sigma(std::size_t g) const;  // sqrt of the diagonal, else the anchor's mu_err
   std::string config_file, config_sha256;
   nlohmann::json resolved;               // the options as read, for the result file
 
   // "" when usable, else "field: rule".
   std::string check() const;
+  std::string check_clusters() const;  // the [[cluster]] part of check()
 };
 
 FitOptions fit_options_from_file(const std::string& path);
+
+// How a calibrator's distance enters the fit (the residual table's `kind` column).
+enum class CalibratorKind {
+  kNone,           // not used before its kind was known (refused early)
+  kParallax,       // its own parallax
+  kKnownDistance,  // a given distance modulus (mu_mag)
+  kAnchor,         // a member of an [[anchor]] galaxy
+  kCluster,        // a member of a [[cluster]]
+};
+inline constexpr EnumTable<CalibratorKind, 5> kCalibratorKindNames{{{
+    {CalibratorKind::kNone, ""},
+    {CalibratorKind::kParallax, "parallax"},
+    {CalibratorKind::kKnownDistance, "known_distance"},
+    {CalibratorKind::kAnchor, "anchor"},
+    {CalibratorKind::kCluster, "cluster"},
+}}};
 
 // What happened to one catalog star in one relation.
 struct StarOutcome {
   std::size_t row = 0;
   std::string id;
-  std::string kind;    // parallax, known_distance, anchor, none
+  std::string group;   // the catalog's group value ("" when none)
+  CalibratorKind kind = CalibratorKind::kNone;
   bool used = false;
-  std::string reason;  // why not used
+  bool member_parallax = false;  // a cluster member whose own parallax enters (hierarchical)
+  std::string reason;  // why not used (for a used cluster member: why its own parallax is not)
   double log_period = 0, m0 = 0, m0_err = 0;
   double plx = std::numeric_limits<double>::quiet_NaN(), plx_err = std::numeric_limits<double>::quiet_NaN();
   double residual = std::numeric_limits<double>::quiet_NaN();  // normalised, at the optimum
@@ -143,6 +188,7 @@ struct RelationResult {
   Eigen::MatrixXd bootstrap;  // resamples x parameters
   int bootstrap_failed = 0;
   std::vector<StarOutcome> stars;
+  std::vector<FitData::GroupParallax> group_plx;  // the clusters' parallaxes used (FitData's)
   std::vector<std::string> undetermined;  // free parameters the data could not determine (no error)
   double chi2 = 0, neg2_log_likelihood = 0, aic = 0, bic = 0;
   int dof = 0, n_used = 0, n_clipped = 0, n_free = 0;

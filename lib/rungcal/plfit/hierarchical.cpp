@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <cmath>
 #include <limits>
+#include <optional>
 
 #include <Eigen/Dense>
 
@@ -109,6 +110,7 @@ class Evaluator final : public Objective {
         const double M = alpha + beta * c.x[i] + beta_long * c.xl[i] + gamma * zbar;
         const double V = c.var_m[i] + var_int + gamma * gamma * wz;
         Component member, outlier, blend;
+        std::optional<OwnParallax> own;
         if (kind == 0) {
           const std::size_t k = static_cast<std::size_t>(i);
           member = integrate_parallax(c.m0[i], GaussianMagnitude(V), d_.plx[i], d_.var_plx[i], M, offset, prior, k_.member_rule,
@@ -125,6 +127,10 @@ class Evaluator final : public Objective {
           member = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu), mu, M);
           if (mixture_) outlier = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu + wide), mu, M - shift);
           if (blends_) blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale, h.blends), mu, M - blend_min);
+          if (kind == 2 && d_.anchor_var_plx.size() && d_.anchor_var_plx[i] > 0) {
+            own.emplace(d_.anchor_plx[i], d_.anchor_var_plx[i], plx_factor2, mu, offset);
+            own->add_to(member, outlier, blend);
+          }
         }
         // The mixture: q, q_out and q_blend are each component's posterior probability.
         double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;
@@ -169,9 +175,15 @@ class Evaluator final : public Objective {
             g.bins[j] += w * (q * k_.bins_member[j] + (mixture_ ? q_out * k_.bins_outlier[j] : 0.0) +
                               (blends_ ? q_blend * k_.bins_blend[j] : 0.0));
         }
-        if (kind == 2) g.anchor[static_cast<std::size_t>(d_.group[i])] += w * dm;  // d/dmu_g = d/dM
+        if (kind == 2) {
+          double& d_mu = g.anchor[static_cast<std::size_t>(d_.group[i])];
+          d_mu += w * dm;  // d/dmu_g = d/dM
+          if (own) d_mu += w * own->d_mu(q, q_out, q_blend), g.offset += w * own->d_off(q, q_out, q_blend);
+        }
       }
     }
+    if (!d_.group_plx.empty())
+      log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset, g.anchor.data(), g.offset);
     double value = -log_l;
     Eigen::VectorXd gext = Eigen::VectorXd::Zero(L_.size);
     gext[L_.alpha] = g.alpha, gext[L_.beta] = g.beta, gext[L_.offset] = g.offset;

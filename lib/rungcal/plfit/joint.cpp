@@ -144,6 +144,7 @@ JointData JointData::take(const std::vector<int>& stars) const {
     o.row.push_back(row[star]);
   }
   o.first.push_back(static_cast<int>(o.relation.size()));
+  o.group_plx = group_plx;
   return o;
 }
 

@@ -24,6 +24,8 @@ struct JointData {
   // Per star: 0 parallax calibrator, 1 known distance (mu, var_mu), 2 anchor galaxy (group).
   std::vector<int> kind, group;
   std::vector<double> mu, var_mu;
+  // plx and var_plx of a kind-2 star: a cluster member's own parallax (var_plx 0: none).
+  std::vector<FitData::GroupParallax> group_plx;  // per group: a cluster's parallax (FitData's)
   std::vector<std::size_t> row;    // per star: catalog row
   int stars() const { return static_cast<int>(plx.size()); }
   // The stars given by index (repeats allowed), with all their entries: a bootstrap sample.

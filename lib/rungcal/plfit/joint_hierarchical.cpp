@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <cmath>
 #include <limits>
+#include <optional>
 
 #include <Eigen/Dense>
 
@@ -81,7 +82,7 @@ class JointEvaluator final : public Objective {
         scales_(scales_of(L)),
         k_(s.hierarchical.quadrature_nodes, static_cast<std::size_t>(d.stars())),
         priors_(
-            prior_rows(s.params, AnchorBlock{L.anchor0, L.n_anchors, s.anchor_prior_correlation})) {
+            prior_rows(s.params, AnchorBlock{L.anchor0, L.n_anchors - s.terms.n_clusters, s.anchor_prior_correlation})) {
     mixture_ = component_on(s.params, L.outlier);
     blends_ = component_on(s.params, L.blend);
   }
@@ -166,6 +167,7 @@ class JointEvaluator final : public Objective {
       }
       const double v_eff = 1.0 / red.a;
       Component member, outlier, blend;
+      std::optional<OwnParallax> own;
       if (kind == 0) {
         member = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff), d_.plx[si], d_.var_plx[si],
                                     0.0, offset, prior, k_.member_rule, k_.mode_member[si],
@@ -186,6 +188,10 @@ class JointEvaluator final : public Objective {
         if (blends_)
           blend = given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu,
                                 -h.blend_min_mag);
+        if (kind == 2 && d_.var_plx[si] > 0) {
+          own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset);
+          own->add_to(member, outlier, blend);
+        }
       }
       double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;
       if (mixture_ || blends_) {
@@ -253,8 +259,16 @@ class JointEvaluator final : public Objective {
               q * k_.bins_member[j] + (mixture_ ? q_out * k_.bins_outlier[j] : 0.0) +
               (blends_ ? q_blend * k_.bins_blend[j] : 0.0);
       }
-      if (kind == 2) g[L_.anchor0 + d_.group[si]] += mix(&Component::d_m);  // d/dmu_g = d/dM
+      if (kind == 2) {
+        g[L_.anchor0 + d_.group[si]] += mix(&Component::d_m);  // d/dmu_g = d/dM
+        if (own)
+          g[L_.anchor0 + d_.group[si]] += own->d_mu(q, q_out, q_blend),
+              g[L_.offset] += own->d_off(q, q_out, q_blend);
+      }
     }
+    if (!d_.group_plx.empty())
+      log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset, g.data() + L_.anchor0,
+                                    g[L_.offset]);
     if (L_.outlier >= 0) g[L_.outlier] = g_outlier;
     if (L_.outlier_shift >= 0) g[L_.outlier_shift] = g_shift;
     if (L_.outlier_width >= 0) g[L_.outlier_width] = g_wide * 2.0 * width;

@@ -3,6 +3,7 @@
 
 #include <ceres/ceres.h>
 
+#include <algorithm>
 #include <cmath>
 #include <limits>
 
@@ -507,7 +508,17 @@ FitData FitData::take(const std::vector<Eigen::Index>& p, const std::vector<Eige
   o.var_mu = take_array(var_mu, dk);
   o.anchor = take_common(anchor, da);
   for (Eigen::Index i : da.rows) o.group.push_back(group[i]);
+  if (anchor_plx.size()) {
+    o.anchor_plx = take_array(anchor_plx, da);
+    o.anchor_var_plx = take_array(anchor_var_plx, da);
+  }
+  o.group_plx = group_plx;
   return o;
+}
+
+bool has_any_parallax(const FitData& d) {
+  if (d.parallax.size() > 0 || (d.anchor_var_plx.size() && (d.anchor_var_plx > 0).any())) return true;
+  return std::any_of(d.group_plx.begin(), d.group_plx.end(), [](const auto& g) { return g.var > 0; });
 }
 
 FitData FitData::without(const std::vector<bool>& dp, const std::vector<bool>& dk, const std::vector<bool>& da) const {

@@ -63,11 +63,12 @@ struct ModelTerms {
   bool has_break = false;
   double break_log_period = 1.0;
   bool has_metallicity = false;
-  int n_anchors = 0;
+  int n_anchors = 0;           // groups sharing a fitted modulus: anchors, then clusters
   bool hierarchical = false;  // the hyperparameters of FitSpace::kHierarchical
   bool feh_errors = false;    // [Fe/H] errors are marginalised: its population mean and spread
   int distance_bins = 0;      // > 0: the smooth-histogram distance prior with this many bins
   bool blends = false;        // the blend component's fraction and scale (hierarchical)
+  int n_clusters = 0;         // of n_anchors, the last n_clusters are clusters (FitOptions::clusters)
 };
 
 // Where each parameter sits in the parameter vector.
@@ -104,8 +105,17 @@ struct FitData {
   Eigen::ArrayXd var_plx;     // inflated parallax variance (mas^2)
   Common known;               // stars or clusters with a known distance modulus
   Eigen::ArrayXd mu, var_mu;
-  Common anchor;              // stars of anchor galaxies
-  std::vector<int> group;     // anchor index per anchor star
+  Common anchor;              // stars of anchor galaxies and clusters
+  std::vector<int> group;     // group index per anchor star (ModelTerms::n_anchors)
+  // Per anchor star: its own parallax, pi_obs - Z (mas), and inflated variance (0: none; only
+  // cluster members have one). The hierarchical model's member term (hierarchical.hpp).
+  Eigen::ArrayXd anchor_plx, anchor_var_plx;
+  // Per group: a cluster's parallax, its variance (0: none) and the multiplicity of its term
+  // (the bootstrap draws clusters whole). Empty when no group has one.
+  struct GroupParallax {
+    double plx = 0, var = 0, weight = 1;
+  };
+  std::vector<GroupParallax> group_plx;
 
   Eigen::Index stars() const { return parallax.size() + known.size() + anchor.size(); }
   // Resample: rows of each kind chosen by index (with repeats), for the bootstrap. Repeated
@@ -114,6 +124,9 @@ struct FitData {
                const std::vector<Eigen::Index>& a) const;
   FitData without(const std::vector<bool>& drop_p, const std::vector<bool>& drop_k, const std::vector<bool>& drop_a) const;
 };
+
+// Whether any star or cluster of d has a parallax: the offset is measured only then.
+bool has_any_parallax(const FitData& d);
 
 // How a free intrinsic scatter is estimated.
 enum class ScatterEstimator {

@@ -23,7 +23,7 @@ Eigen::VectorXd anchor_sigmas(const std::vector<ParamSpec>& params, const Anchor
 }
 
 AnchorBlock anchors_of(const FitSettings& s, const ParameterLayout& L) {
-  return {L.anchor0, s.terms.n_anchors, s.anchor_prior_correlation};
+  return {L.anchor0, s.terms.n_anchors - s.terms.n_clusters, s.anchor_prior_correlation};
 }
 
 // C = S R S, R empty: the identity.

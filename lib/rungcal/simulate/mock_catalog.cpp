@@ -30,7 +30,30 @@ double draw_distance_kpc(MockDistances kind, Random& rng, const std::vector<doub
   return 1.0;
 }
 
+// The clusters' own stream: seeded apart from the field stars' so adding clusters leaves
+// those unchanged.
+Random cluster_stream(const MockScenario& s) { return Random(s.seed ^ 0x5C1A57E2D0C0FFEEull); }
+
+// The cluster-level draws come first in that stream, so mock_clusters() need not draw members.
+std::vector<MockCluster> draw_clusters(const MockScenario& s, Random& rng) {
+  std::vector<MockCluster> out;
+  for (int k = 0; k < s.clusters; ++k) {
+    MockCluster c;
+    c.group = fmt::format("MOCK-CL{:03d}", k);
+    c.mu = rng.uniform(9.5, 12.0);
+    c.parallax_err_mas = s.cluster_parallax_error_mas;
+    c.parallax_mas = std::pow(10.0, -0.2 * (c.mu - 10.0)) + s.parallax_offset_mas + rng.normal(0.0, c.parallax_err_mas);
+    out.push_back(c);
+  }
+  return out;
+}
+
 }  // namespace
+
+std::vector<MockCluster> mock_clusters(const MockScenario& s) {
+  Random rng = cluster_stream(s);
+  return draw_clusters(s, rng);
+}
 
 double mock_blend_brightening(MockBlendLaw law, Random& rng) {
   switch (law) {
@@ -48,6 +71,9 @@ std::string MockScenario::check() const {
   if (!(scatter_correlation >= 0 && scatter_correlation < 1)) return "scatter_correlation: in [0, 1)";
   for (const auto& r : more_relations)
     if (r.name.empty() || r.name == "X" || !(r.sigma_int >= 0)) return "more_relations: a name other than X, sigma_int >= 0";
+  if (clusters < 0 || clusters > 1000 || cluster_members < 1 || cluster_members > 1000)
+    return "clusters: 0 to 1000 clusters of 1 to 1000 members";
+  if (!(cluster_parallax_error_mas > 0)) return "cluster_parallax_error_mas: must be positive";
   if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0 && parallax_error_scale > 0))
     return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread, parallax_error_scale > 0";
   return "";
@@ -69,9 +95,9 @@ nlohmann::json MockScenario::truth() const {
 }
 
 StarTable mock_calibrator_catalog(const MockScenario& s) {
-  Random rng(s.seed);
+  Random field_rng(s.seed);
   std::vector<double> clumps;
-  for (int k = 0; k < 8; ++k) clumps.push_back(std::pow(10.0, 0.2 * rng.uniform(9.0, 13.0) - 2.0));
+  for (int k = 0; k < 8; ++k) clumps.push_back(std::pow(10.0, 0.2 * field_rng.uniform(9.0, 13.0) - 2.0));
   StarTable t;
   for (const char* c : {col::kId, col::kMode, col::kClass}) t.add_column(c, ColumnType::kText);
   for (const char* c : {col::kLogPeriod, "mag0_X", "mag0_err_X", col::kParallax, col::kParallaxErr, col::kFeh, col::kFehErr})
@@ -80,9 +106,11 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     for (const std::string& c : {"mag0_" + r.name, "mag0_err_" + r.name}) t.add_column(c, ColumnType::kReal);
   // The joint fit correlates the bands' E(B-V) errors through it.
   if (!s.more_relations.empty()) t.add_column(col::kEbvErr, ColumnType::kReal);
-  for (int i = 0; i < s.stars; ++i) {
+  if (s.clusters > 0) t.add_column(col::kGroup, ColumnType::kText);
+  // One star at cluster_kpc (> 0) or drawn from the scenario's distances.
+  auto add_star = [&](Random& rng, const std::string& id, const std::string& group, double cluster_kpc) {
     const bool far = rng.uniform() < s.far_fraction;
-    const double d = far ? rng.uniform(8.0, 15.0) : draw_distance_kpc(s.distances, rng, clumps);
+    const double d = cluster_kpc > 0 ? cluster_kpc : far ? rng.uniform(8.0, 15.0) : draw_distance_kpc(s.distances, rng, clumps);
     const double mu = distance_modulus_from_parsec(d * 1e3);
     const bool overtone = rng.uniform() < s.overtone_fraction;
     const double logp = overtone ? rng.uniform(0.1, 0.7) : rng.uniform(0.4, 1.6);
@@ -102,7 +130,8 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     double plx = 1.0 / d + s.parallax_offset_mas + rng.normal(0.0, plx_err);
     if (rng.uniform() < s.parallax_outlier_fraction) plx += (rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * plx_err;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
-    t.column(col::kId).push_text(fmt::format("MOCK-{:05d}", i));
+    t.column(col::kId).push_text(id);
+    if (s.clusters > 0) t.column(col::kGroup).push_text(group);
     t.column(col::kMode).push_text(mode);
     t.column(col::kClass).push_text("classical_cepheid");
     t.column(col::kLogPeriod).push_real(logp);
@@ -112,7 +141,7 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     t.column(col::kParallaxErr).push_real(plx_err);
     t.column(col::kFeh).push_real(feh + (s.feh_error > 0 ? rng.normal(0.0, s.feh_error) : 0.0));
     t.column(col::kFehErr).push_real(s.feh_error);
-    if (s.more_relations.empty()) continue;
+    if (s.more_relations.empty()) return;
     t.column(col::kEbvErr).push_real(s.ebv_error);
     // Equicorrelated scatter: u_k = rho u_X + sqrt(rho - rho^2) v + sqrt(1 - rho) w_k has unit
     // variance and correlation rho with u_X and with every other u_l.
@@ -125,7 +154,12 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
       t.column("mag0_" + r.name).push_real(m);
       t.column("mag0_err_" + r.name).push_real(std::hypot(s.mag_error, r.extinction_per_ebv * s.ebv_error));
     }
-  }
+  };
+  for (int i = 0; i < s.stars; ++i) add_star(field_rng, fmt::format("MOCK-{:05d}", i), "", 0.0);
+  Random cluster_rng = cluster_stream(s);
+  for (const MockCluster& c : draw_clusters(s, cluster_rng))
+    for (int k = 0; k < s.cluster_members; ++k)
+      add_star(cluster_rng, fmt::format("{}-{:03d}", c.group, k), c.group, std::pow(10.0, 0.2 * c.mu - 2.0));
   return t;
 }
 

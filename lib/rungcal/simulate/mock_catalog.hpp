@@ -76,6 +76,13 @@ struct MockScenario {
   // in the one stream: empty, the catalog is what it was before they existed.
   std::vector<MockRelation> more_relations;
   double scatter_correlation = 0;
+  // Clusters (0: none): each at its own distance modulus, uniform in [9.5, 12] (0.8-2.5 kpc),
+  // with cluster_members stars (group MOCK-CL<k>) drawn as the field stars are, contaminations
+  // included, and a cluster parallax of error cluster_parallax_error_mas. Their draws come
+  // from a stream of their own: the field stars are those of the same seed without them.
+  int clusters = 0;
+  int cluster_members = 4;
+  double cluster_parallax_error_mas = 0.008;
 
   std::string check() const;     // "" when usable, else "field: rule"
   // The true parameters by fit parameter name; with more_relations, by the joint fit's names
@@ -87,5 +94,12 @@ struct MockScenario {
 // survey: sigma_pi = 0.012 + 0.06 10^(0.4 (m - 15)) mas, 0.013 mas at m = 10, 0.072 at
 // m = 15 (an invented law, for simulations only), times parallax_error_scale.
 StarTable mock_calibrator_catalog(const MockScenario& scenario);
+
+// The scenario's clusters as drawn: their group, true modulus and measured parallax.
+struct MockCluster {
+  std::string group;
+  double mu = 0, parallax_mas = 0, parallax_err_mas = 0;
+};
+std::vector<MockCluster> mock_clusters(const MockScenario& scenario);
 
 }  // namespace rungcal

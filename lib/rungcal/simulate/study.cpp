@@ -96,6 +96,13 @@ StudyResult run_study(const StudyOptions& o) {
     FitOptions fit = o.fit;
     fit.threads = 1;
     fit.seed = s.seed;
+    for (const MockCluster& c : mock_clusters(s)) {
+      ClusterOptions cluster;
+      cluster.group = c.group;
+      cluster.parallax_mas = c.parallax_mas;
+      cluster.parallax_err_mas = c.parallax_err_mas;
+      fit.clusters.push_back(cluster);
+    }
     Draw& d = draws[k];
     try {
       const StarTable coefficients = mock_coefficients(s);
