@@ -8,6 +8,19 @@ src=$1 build=$2
 work=$(mktemp -d)
 trap 'rm -rf "$work"' EXIT
 cmake --install "$build" --prefix "$work/prefix" >/dev/null
+# Only public headers: none of a module's inside, and none including a header left out.
+inc="$work/prefix/include"
+if find "$inc" -name '*_parts.hpp' -o -name stage_main.hpp | grep .; then
+  echo "internal headers installed" >&2; exit 1
+fi
+missing=$(grep -rhoE '#include "rungcal/[^"]+"' "$inc" | sed -E 's/.*"(.*)"/\1/' | sort -u |
+          while read -r h; do [ -f "$inc/$h" ] || echo "$h"; done)
+if [ -n "$missing" ]; then
+  echo "installed headers include headers not installed: $missing" >&2; exit 1
+fi
+if grep -rq --include="*.cmake" CLI11 "$work/prefix"; then
+  echo "the installed package depends on CLI11" >&2; exit 1
+fi
 cmake -S "$src/tests/consumer" -B "$work/consumer" -DCMAKE_PREFIX_PATH="$work/prefix" >/dev/null
 cmake --build "$work/consumer" -j2 >/dev/null
 "$build/bin/rungcal-ingest" --config "$src/config/reference/mw_cepheids_hst_gaiadr2.toml" --out "$work/cat.fits"
