@@ -68,6 +68,7 @@ int main(int argc, char** argv) {
               prior = "smooth_histogram";
   bool metallicity = true;
   int bootstrap = 0, joint = 0;
+  double red_companions = 1.0;  // --red-companions
   long long seed = 1;
   app.add_option("--mocks", study.mocks, "Mock catalogs to draw and fit")->capture_default_str();
   app.add_option("--stars", study.scenario.stars, "Calibrators per mock")->capture_default_str();
@@ -120,6 +121,10 @@ int main(int argc, char** argv) {
   app.add_option("--cluster-parallax-error", study.scenario.cluster_parallax_error_mas,
                  "the clusters' parallax error (mas)")
       ->capture_default_str();
+  app.add_option("--red-companions", red_companions,
+                 "joint mocks: blends' companion flux ratio in K is this times X's and in V 1/this (1: grey)")
+      ->check(CLI::PositiveNumber)
+      ->capture_default_str();
   app.add_option("--bootstrap", bootstrap, "Bootstrap resamples per mock (0: none)")->capture_default_str();
   app.add_option("--seed", seed, "Seed of the first mock")->capture_default_str();
   app.add_option("--threads", study.threads, "Mocks fitted at once (0: all cores)")->capture_default_str();
@@ -159,6 +164,9 @@ int main(int argc, char** argv) {
     study.fit.relations = {rel};
     if (!metallicity) study.parameters = {"alpha", "beta", "parallax_offset_mas", "sigma_int"};
     study.scenario.more_relations = joint_relations(joint);
+    // A red companion: its flux ratio 1/r times X's in V and r times in K (I as X).
+    for (auto& r : study.scenario.more_relations)
+      r.companion_colour = r.name == "V" ? 1.0 / red_companions : (r.name == "K" ? red_companions : 1.0);
     if (joint > 0) {
       study.fit.joint = true;
       study.parameters.clear();

@@ -92,5 +92,29 @@ TEST(MockCatalog, FurtherRelationsShareTheStarsAndCorrelateTheirScatter) {
   EXPECT_NE(s.check().find("scatter_correlation"), std::string::npos);
 }
 
+// A red companion (flux ratio 3 times X's in K): a blend 0.3-1.0 mag brighter in X (flux
+// ratio q = 10^(0.4 b) - 1 in 0.318-1.512, Pogson) is 2.5 log10(1 + 3 q) brighter in K, so
+// its K magnitude moves by 0.428-0.858 mag against grey blends; other stars do not move.
+TEST(MockCatalog, ColouredCompanionsBrightenEachBandByTheirFluxRatio) {
+  MockScenario s;
+  s.stars = 20000;
+  s.blend_fraction = 0.03;
+  s.more_relations = {{"K", -5.7, -3.2, -0.2, 0.09, 0.0}};
+  const StarTable grey = mock_calibrator_catalog(s);
+  s.more_relations[0].companion_colour = 3.0;
+  const StarTable red = mock_calibrator_catalog(s);
+  int moved = 0;
+  for (std::size_t i = 0; i < grey.rows(); ++i) {
+    const double d = grey.column("mag0_K").as_real(i) - red.column("mag0_K").as_real(i);
+    EXPECT_EQ(grey.column("mag0_X").as_real(i), red.column("mag0_X").as_real(i));
+    if (d == 0) continue;
+    ++moved;
+    EXPECT_GT(d, 0.428 - 1e-3) << i;
+    EXPECT_LT(d, 0.858 + 1e-3) << i;
+  }
+  // 3% of 20000 blended: 600 +- 24.
+  EXPECT_NEAR(moved, 600, 100);
+}
+
 }  // namespace
 }  // namespace rungcal

@@ -48,6 +48,14 @@ std::vector<MockCluster> draw_clusters(const MockScenario& s, Random& rng) {
   return out;
 }
 
+// A blend's brightening b in band X carried to a band where the companion's flux ratio is
+// `colour` times X's (Pogson: b = 2.5 log10(1 + q)).
+double coloured_brightening(double b, double colour) {
+  if (b <= 0 || colour == 1.0) return b;
+  const double q = std::pow(10.0, 0.4 * b) - 1.0;
+  return 2.5 * std::log10(1.0 + colour * q);
+}
+
 }  // namespace
 
 std::vector<MockCluster> mock_clusters(const MockScenario& s) {
@@ -70,7 +78,8 @@ std::string MockScenario::check() const {
     if (!(f >= 0 && f < 1)) return "fractions: each in [0, 1)";
   if (!(scatter_correlation >= 0 && scatter_correlation < 1)) return "scatter_correlation: in [0, 1)";
   for (const auto& r : more_relations)
-    if (r.name.empty() || r.name == "X" || !(r.sigma_int >= 0)) return "more_relations: a name other than X, sigma_int >= 0";
+    if (r.name.empty() || r.name == "X" || !(r.sigma_int >= 0) || !(r.companion_colour > 0))
+      return "more_relations: a name other than X, sigma_int >= 0, companion_colour > 0";
   if (clusters < 0 || clusters > 1000 || cluster_members < 1 || cluster_members > 1000)
     return "clusters: 0 to 1000 clusters of 1 to 1000 members";
   if (!(cluster_parallax_error_mas > 0)) return "cluster_parallax_error_mas: must be positive";
@@ -150,7 +159,8 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     for (const auto& r : s.more_relations) {
       const double u = rho * u_x + std::sqrt(rho - rho * rho) * shared + std::sqrt(1.0 - rho) * rng.normal();
       const double m = r.alpha + r.beta * (logp_f - s.pivot_log_period) + r.gamma * feh + r.sigma_int * u + mu +
-                       rng.normal(0.0, s.mag_error) + r.extinction_per_ebv * ebv_off - brightening;
+                       rng.normal(0.0, s.mag_error) + r.extinction_per_ebv * ebv_off -
+                       coloured_brightening(brightening, r.companion_colour);
       t.column("mag0_" + r.name).push_real(m);
       t.column("mag0_err_" + r.name).push_real(std::hypot(s.mag_error, r.extinction_per_ebv * s.ebv_error));
     }

@@ -47,6 +47,10 @@ double mock_blend_brightening(MockBlendLaw law, Random& rng);
 struct MockRelation {
   std::string name;
   double alpha = 0, beta = 0, gamma = 0, sigma_int = 0, extinction_per_ebv = 0;
+  // A blend's companion light in this band relative to band X's, as flux ratios: with q its
+  // flux ratio in X (brightening 2.5 log10(1 + q)), it is companion_colour q here. 1: grey
+  // blends, every band brightened alike; a red companion has it above 1 in the infrared.
+  double companion_colour = 1.0;
 };
 
 // One mock catalog of parallax calibrators of one relation, already dereddened (the
@@ -71,8 +75,8 @@ struct MockScenario {
   double far_fraction = 0;       // stars at 8-15 kpc, with noisy (some negative) parallaxes
   double ebv_error = 0;          // E(B-V) error (mag): A/E(B-V) times it enters the magnitude
   // Further relations (joint fits). A star's intrinsic scatter is correlated between all its
-  // relations by scatter_correlation (in [0, 1)); its E(B-V) error, [Fe/H] and blend
-  // brightening are the same in each (blends are grey). Their draws follow each star's own
+  // relations by scatter_correlation (in [0, 1)); its E(B-V) error and [Fe/H] are the same in
+  // each, and its blend brightening too unless a relation's companion_colour differs from 1. Their draws follow each star's own
   // in the one stream: empty, the catalog is what it was before they existed.
   std::vector<MockRelation> more_relations;
   double scatter_correlation = 0;
