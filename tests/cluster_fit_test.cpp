@@ -213,6 +213,52 @@ TEST(ClusterFit, BootstrapResamplesClustersAsUnits) {
   EXPECT_GT(rr.bootstrap_error("alpha"), 0.0);
 }
 
+// The hierarchical joint fit of three relations uses the clusters too: their moduli come
+// out near the truth, members enter with their own parallaxes, and its bootstrap draws
+// clusters whole.
+TEST(ClusterFit, JointFitUsesTheClustersAndResamplesThemWhole) {
+  ClusterMock m;
+  m.scenario.seed = 14;
+  m.scenario.stars = 150;
+  m.scenario.clusters = 6;
+  m.scenario.cluster_members = 5;
+  m.scenario.more_relations = {{"V", -3.9, -2.4, -0.2, 0.20, 0.0},
+                               {"K", -5.7, -3.2, -0.2, 0.09, 0.0}};
+  m.scenario.scatter_correlation = 0.5;
+  m.catalog = mock_calibrator_catalog(m.scenario);
+  m.clusters = mock_clusters(m.scenario);
+  for (const MockCluster& k : m.clusters)
+    m.options.clusters.push_back({k.group, k.parallax_mas, k.parallax_err_mas, NAN, NAN});
+  for (const char* band : {"V", "K"}) {
+    RelationOptions r = m.options.relations[0];
+    r.name = r.band = band;
+    m.options.relations.push_back(r);
+  }
+  m.options.joint = true;
+  m.options.joint_bootstrap = 12;
+  const FitResult result = run_fit(m.options, m.catalog, nullptr);
+  ASSERT_TRUE(result.joint.has_value());
+  const JointResult& j = *result.joint;
+  ASSERT_TRUE(j.solution.usable);
+  ASSERT_TRUE(j.solution.covariance_ok);
+  int members_with_parallax = 0;
+  for (int i = 0; i < j.data.stars(); ++i)
+    members_with_parallax += j.data.kind[static_cast<std::size_t>(i)] == 2 &&
+                             j.data.var_plx[static_cast<std::size_t>(i)] > 0;
+  EXPECT_GE(members_with_parallax, 25);
+  ASSERT_EQ(j.data.group_plx.size(), 6u);
+  int drawn = 0;
+  for (const MockCluster& k : m.clusters) {
+    const auto at = std::find(j.layout.names.begin(), j.layout.names.end(), "mu_" + k.group);
+    ASSERT_NE(at, j.layout.names.end()) << k.group;
+    const auto p = at - j.layout.names.begin();
+    EXPECT_NEAR(j.solution.theta[p], k.mu, 3.0 * std::sqrt(j.solution.covariance(p, p))) << k.group;
+    drawn += static_cast<int>(j.bootstrap.col(p).array().isFinite().count());
+  }
+  EXPECT_LT(drawn, 6 * 12);
+  EXPECT_GT(drawn, 6 * 12 / 3);
+}
+
 // A cluster without stars' parallaxes: the GLS (parallax) space takes its modulus as an
 // anchor's and refuses a cluster parallax, naming the rule.
 TEST(ClusterOptions, RulesNameTheBrokenOne) {
