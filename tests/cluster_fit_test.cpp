@@ -259,8 +259,8 @@ TEST(ClusterFit, JointFitUsesTheClustersAndResamplesThemWhole) {
   EXPECT_GT(drawn, 6 * 12 / 3);
 }
 
-// A cluster without stars' parallaxes: the GLS (parallax) space takes its modulus as an
-// anchor's and refuses a cluster parallax, naming the rule.
+// The options' rules. Outside the hierarchical space a cluster's parallax becomes the
+// modulus prior it implies (first order: 5 / ln 10 sigma / pi), refused below S/N 10.
 TEST(ClusterOptions, RulesNameTheBrokenOne) {
   FitOptions o = test::mock_fit_options();
   ClusterOptions k;
@@ -275,7 +275,11 @@ TEST(ClusterOptions, RulesNameTheBrokenOne) {
   o.clusters[0].parallax_err_mas = 0.01;
   EXPECT_EQ(o.check(), "");
   o.space = FitSpace::kParallax;
-  EXPECT_NE(o.check().find("a cluster parallax needs space = \"hierarchical\""), std::string::npos)
+  EXPECT_EQ(o.check(), "");  // S/N 40: a modulus prior, 10 - 5 log10(0.4) +- 0.054
+  EXPECT_NEAR(o.clusters[0].modulus_prior().first, 11.9897, 1e-4);
+  EXPECT_NEAR(o.clusters[0].modulus_prior().second, 0.05429, 1e-5);
+  o.clusters[0].parallax_err_mas = 0.05;
+  EXPECT_NE(o.check().find("needs a parallax S/N of 10 or more (cluster CL-A has 8.0)"), std::string::npos)
       << o.check();
   o.clusters[0] = ClusterOptions{"CL-A", NAN, NAN, 10.4, 0.05};
   EXPECT_EQ(o.check(), "");

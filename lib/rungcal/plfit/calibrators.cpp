@@ -259,7 +259,7 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
   }
   bool any_cluster_parallax = false;
   for (const ClusterOptions& k : o.clusters) any_cluster_parallax = any_cluster_parallax || k.has_parallax();
-  if (any_cluster_parallax) {
+  if (any_cluster_parallax && o.space == FitSpace::kHierarchical) {
     c.data.group_plx.assign(o.anchors.size(), FitData::GroupParallax{});
     for (const ClusterOptions& k : o.clusters)
       c.data.group_plx.push_back(k.has_parallax() ? FitData::GroupParallax{k.parallax_mas, k.parallax_err_mas * k.parallax_err_mas, 1.0}

@@ -174,8 +174,8 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   js.scatter_correlation = o.joint_scatter_correlation.value;
   js.fixed.assign(L.size, false);
   for (std::size_t g = 0; g < o.anchors.size(); ++g) js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_prior_sigma(g));
-  // Clusters (a modulus each: the GLS space takes no cluster parallax) are independent of the anchors.
-  for (const ClusterOptions& k : o.clusters) js.anchor_priors.emplace_back(k.mu, k.mu_err);
+  // Clusters, by their modulus prior (ClusterOptions::modulus_prior), are independent of the anchors.
+  for (const ClusterOptions& k : o.clusters) js.anchor_priors.push_back(k.modulus_prior());
   if (o.anchor_covariance.size()) {
     const auto n = static_cast<Eigen::Index>(anchor_names.size()), a = o.anchor_covariance.rows();
     js.anchor_correlation = Eigen::MatrixXd::Identity(n, n);

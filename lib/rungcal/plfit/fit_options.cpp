@@ -196,12 +196,19 @@ std::string FitOptions::check_clusters() const {
       return fmt::format("cluster.mu_err: must be positive (cluster {})", k.group);
     if (k.has_modulus() && !(k.mu > -5 && k.mu < 40))
       return fmt::format("cluster.mu: {} mag is not a distance modulus (cluster {})", k.mu, k.group);
-    if (k.has_parallax() && space != FitSpace::kHierarchical)
-      return fmt::format("cluster.parallax_mas: a cluster parallax needs space = \"hierarchical\" (cluster {}); "
-                         "the other spaces take a cluster's distance modulus only",
-                         k.group);
+    if (k.has_parallax() && !k.has_modulus() && space != FitSpace::kHierarchical &&
+        !(k.parallax_mas > 10 * k.parallax_err_mas))
+      return fmt::format("cluster.parallax_mas: outside space = \"hierarchical\" a cluster's parallax becomes a "
+                         "modulus prior, which needs a parallax S/N of 10 or more (cluster {} has {:.1f}); give its "
+                         "modulus (mu, mu_err) or fit in the hierarchical space",
+                         k.group, k.parallax_mas / k.parallax_err_mas);
   }
   return "";
+}
+
+std::pair<double, double> ClusterOptions::modulus_prior() const {
+  if (has_modulus()) return {mu, mu_err};
+  return {10.0 - 5.0 * std::log10(parallax_mas), 5.0 / std::log(10.0) * parallax_err_mas / parallax_mas};
 }
 
 std::vector<std::string> FitOptions::group_names() const {

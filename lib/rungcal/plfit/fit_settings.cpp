@@ -63,9 +63,12 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
   if (o.anchor_covariance.size()) s.anchor_prior_correlation = correlation_of(o.anchor_covariance);
   for (std::size_t k = 0; k < o.clusters.size(); ++k) {
     const ClusterOptions& cl = o.clusters[k];
+    const auto [mean, sigma] = cl.modulus_prior();
+    // In the hierarchical space a cluster's parallax is its own likelihood term (with the
+    // offset); elsewhere it enters through the modulus prior it implies.
+    const bool prior = cl.has_modulus() || o.space != FitSpace::kHierarchical;
     s.params[L.anchor0 + static_cast<int>(o.anchors.size() + k)] =
-        cl.has_modulus() ? ParamSpec{ParamMode::kPrior, cl.mu, cl.mu_err, true}
-                         : ParamSpec{ParamMode::kFree, 10.0 - 5.0 * std::log10(cl.parallax_mas), 0, true};
+        ParamSpec{prior ? ParamMode::kPrior : ParamMode::kFree, mean, prior ? sigma : 0.0, true};
   }
   if (s.terms.hierarchical) {
     s.params[L.outlier] = o.outlier_fraction;

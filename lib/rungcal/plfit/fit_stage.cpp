@@ -100,6 +100,16 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     hold_unconstrained(c, rr);
     rr.stars = c.stars;
     rr.group_plx = c.data.group_plx;
+    if (!hierarchical)
+      for (const ClusterOptions& k : o.clusters)
+        if (k.has_parallax())
+          rr.warnings.push_back(
+              k.has_modulus()
+                  ? fmt::format("cluster {}: its parallax is used in the hierarchical space only; here its modulus is",
+                                k.group)
+                  : fmt::format("cluster {}: its parallax enters as the modulus prior {:.3f} +- {:.3f} it implies, "
+                                "without the parallax offset; the hierarchical space fits it with the offset",
+                                k.group, k.modulus_prior().first, k.modulus_prior().second));
     check_constrained(o, rel, c, rr.settings, rr.layout);
     if (o.space == FitSpace::kMagnitude) {
       int noisy = 0;

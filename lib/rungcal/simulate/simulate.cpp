@@ -93,6 +93,12 @@ std::string SimulateOptions::check() const {
     bool found = std::any_of(relations.begin(), relations.end(), [&](const auto& r) { return r.band == b; });
     if (!found) return fmt::format("target_bands: '{}' has no relation", b);
   }
+  for (const auto& k : clusters) {
+    if (k.name.empty() || k.name == field_group) return "cluster.name: required, and not the field_group";
+    if (!(k.mu > 5 && k.mu < 16)) return "cluster.mu: must be 5 to 16 (100 pc to 16 kpc)";
+    if (k.members < 1 || k.members > 200) return "cluster.members: must be 1 to 200";
+  }
+  if (!(cluster_parallax_error_mas > 0)) return "cluster_parallax_error_mas: must be positive";
   return "";
 }
 
@@ -142,6 +148,15 @@ SimulateOptions simulate_options_from_file(const std::string& path) {
   o.target_mag_error = s->number_or("target_mag_error", o.target_mag_error);
   o.bands_file = c.resolve_path(s->string_or("bands_file", "bands.toml"));
   o.output_folder = c.resolve_path(s->string_or("output_folder", o.output_folder));
+  o.cluster_parallax_error_mas = s->number_or("cluster_parallax_error_mas", o.cluster_parallax_error_mas);
+  o.field_group = s->string_or("field_group", o.field_group);
+  for (const auto& k : root.section_list("cluster")) {
+    SimulatedCluster cl;
+    cl.name = k.require_string("name");
+    cl.mu = k.number_or("mu", cl.mu);
+    cl.members = static_cast<int>(k.integer_or("members", cl.members));
+    o.clusters.push_back(cl);
+  }
   for (const auto& r : root.section_list("relation")) {
     TrueRelation t;
     t.band = r.require_string("band");
@@ -160,7 +175,7 @@ SimulateOptions simulate_options_from_file(const std::string& path) {
 
 Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
   throw_if_invalid(o.check(), "", "simulate.");
-  Random rng(o.seed);
+  Random stream(o.seed);
   Simulation sim;
   std::map<std::string, double> coefficient;  // R_band = A_band / E(B-V)
   for (const auto& r : o.relations) {
@@ -190,6 +205,7 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
     cat.add_column(r.band + "_MEAN", ColumnType::kReal, "mag");
     cat.add_column(r.band + "_ERR", ColumnType::kReal, "mag");
   }
+  if (!o.clusters.empty()) cat.add_column("GROUP", ColumnType::kText);
   StarTable& truth = sim.truth_stars;
   for (const char* c : {"id"}) truth.add_column(c, ColumnType::kText);
   for (const char* c : {"distance_pc", "mu_true", "ebv_true", "feh_true", "log_period_fundamental", "parallax_true_mas"})
@@ -204,97 +220,123 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
   lc.add_column("mag", ColumnType::kReal, "mag");
   lc.add_column("mag_err", ColumnType::kReal, "mag");
 
-  for (int i = 0; i < o.n_calibrators; ++i) {
-    std::string id = fmt::format("{}{:04d}", o.calibrator_prefix, i + 1);
-    bool overtone = rng.uniform() < o.first_overtone_fraction;
-    bool far = rng.uniform() < o.far_fraction;
-    bool outlier = rng.uniform() < o.outlier_fraction;
-    // Fundamental(ized) log period: more short than long periods, as in the Galaxy.
-    double logp_f = overtone ? rng.uniform(0.25, 0.85) : 0.35 + 1.35 * std::pow(rng.uniform(), 1.4);
-    double period_f = std::pow(10.0, logp_f);
-    double period = overtone ? first_overtone_period_for(period_f) : period_f;
-    // Distance: uniform over a disk (p(d) ~ d) or, for the far share, 6-15 kpc.
-    double d_kpc = far ? rng.uniform(6.0, 15.0) : o.max_distance_kpc * std::sqrt(rng.uniform(0.005, 1.0));
-    double mu = distance_modulus_from_parsec(d_kpc * 1000.0);
-    // Capped: stars behind more dust than this would be too faint for the astrometry.
-    double ebv = std::clamp(o.ebv_per_kpc * d_kpc * std::exp(rng.normal(0.0, 0.35)), 0.02, 1.8);
-    double ebv_err = o.ebv_error + 0.05 * ebv;
-    double feh = rng.normal(o.feh_mean, o.feh_sigma);
-    double blend = outlier ? -rng.uniform(0.6, 1.2) : 0.0;
+  // One calibrator: in the field, or at a cluster's place (`at`).
+  struct Place {
+    double d_kpc, ra, dec;
+    std::string group;
+  };
+  auto add_calibrator = [&](Random& rng, const std::string& id, const Place* at, bool with_light_curve) {
+  bool overtone = rng.uniform() < o.first_overtone_fraction;
+  bool far = rng.uniform() < o.far_fraction;
+  bool outlier = rng.uniform() < o.outlier_fraction;
+  // Fundamental(ized) log period: more short than long periods, as in the Galaxy.
+  double logp_f = overtone ? rng.uniform(0.25, 0.85) : 0.35 + 1.35 * std::pow(rng.uniform(), 1.4);
+  double period_f = std::pow(10.0, logp_f);
+  double period = overtone ? first_overtone_period_for(period_f) : period_f;
+  // Distance: uniform over a disk (p(d) ~ d) or, for the far share, 6-15 kpc.
+  double d_kpc = far ? rng.uniform(6.0, 15.0) : o.max_distance_kpc * std::sqrt(rng.uniform(0.005, 1.0));
+  if (at) d_kpc = at->d_kpc;
+  double mu = distance_modulus_from_parsec(d_kpc * 1000.0);
+  // Capped: stars behind more dust than this would be too faint for the astrometry.
+  double ebv = std::clamp(o.ebv_per_kpc * d_kpc * std::exp(rng.normal(0.0, 0.35)), 0.02, 1.8);
+  double ebv_err = o.ebv_error + 0.05 * ebv;
+  double feh = rng.normal(o.feh_mean, o.feh_sigma);
+  double blend = outlier ? -rng.uniform(0.6, 1.2) : 0.0;
 
-    cat.column("STAR").push_text(id);
-    cat.column("PERIOD").push_real(rounded(period, 7));
-    cat.column("MODE").push_text(overtone ? "1O" : "F");
-    double ra = rng.uniform(0, 360), dec = std::asin(rng.uniform(-1, 1)) * 180 / std::numbers::pi;
-    cat.column("RA").push_real(rounded(ra, 6));
-    cat.column("DEC").push_real(rounded(dec, 6));
-    cat.column("ECL_LAT").push_real(rounded(std::asin(rng.uniform(-1, 1)) * 180 / std::numbers::pi, 5));
-    truth.column("id").push_text(id);
-    truth.column("distance_pc").push_real(d_kpc * 1000);
-    truth.column("mu_true").push_real(mu);
-    truth.column("ebv_true").push_real(ebv);
-    truth.column("feh_true").push_real(feh);
-    truth.column("log_period_fundamental").push_real(logp_f);
-    truth.column("parallax_true_mas").push_real(1.0 / d_kpc);
-    truth.column("outlier").push_boolean(outlier);
+  cat.column("STAR").push_text(id);
+  if (!o.clusters.empty()) cat.column("GROUP").push_text(at ? at->group : o.field_group);
+  cat.column("PERIOD").push_real(rounded(period, 7));
+  cat.column("MODE").push_text(overtone ? "1O" : "F");
+  double ra = rng.uniform(0, 360), dec = std::asin(rng.uniform(-1, 1)) * 180 / std::numbers::pi;
+  if (at) ra = at->ra + rng.normal(0, 0.05), dec = at->dec + rng.normal(0, 0.05);
+  cat.column("RA").push_real(rounded(ra, 6));
+  cat.column("DEC").push_real(rounded(dec, 6));
+  cat.column("ECL_LAT").push_real(rounded(std::asin(rng.uniform(-1, 1)) * 180 / std::numbers::pi, 5));
+  truth.column("id").push_text(id);
+  truth.column("distance_pc").push_real(d_kpc * 1000);
+  truth.column("mu_true").push_real(mu);
+  truth.column("ebv_true").push_real(ebv);
+  truth.column("feh_true").push_real(feh);
+  truth.column("log_period_fundamental").push_real(logp_f);
+  truth.column("parallax_true_mas").push_real(1.0 / d_kpc);
+  truth.column("outlier").push_boolean(outlier);
 
-    std::map<std::string, double> mean_mag;
-    double strip = rng.normal();
-    for (const auto& r : o.relations) {
-      double m_abs = r.alpha + r.beta * (logp_f - o.pivot_log_period) + r.gamma * feh + r.scatter * strip +
-                     rng.normal(0, r.independent_scatter);
-      truth.column("M_" + r.band).push_real(m_abs);
-      mean_mag[r.band] = m_abs + mu + coefficient[r.band] * ebv + blend;
-      cat.column(r.band + "_MEAN").push_real(rounded(mean_mag[r.band] + rng.normal(0, o.mag_error), 4));
-      cat.column(r.band + "_ERR").push_real(o.mag_error);
-    }
-    double g = mean_mag.count("G") ? mean_mag["G"] : mean_mag.begin()->second;
-    double plx_err = parallax_error_for(o, g);
-    bool binary = rng.uniform() < 0.05;
-    double ruwe = binary ? rng.uniform(1.5, 3.0) : rng.uniform(0.85, 1.25);
-    double plx = 1.0 / d_kpc + o.parallax_zero_point_mas + o.parallax_offset_mas +
-                 rng.normal(0, plx_err * (binary ? 3.0 : 1.0));
-    cat.column("PLX").push_real(rounded(plx, 4));
-    cat.column("PLX_ERR").push_real(rounded(plx_err, 4));
-    // nu_eff from BP-RP (memory: Lindegren et al. 2021's colour relation, clamped to the
-    // range the zero-point recipe accepts).
-    double bprp = (mean_mag.count("BP") && mean_mag.count("RP")) ? mean_mag["BP"] - mean_mag["RP"] : 1.2;
-    double nu_eff = std::clamp(1.76 - 1.61 / std::numbers::pi * std::atan(0.531 * bprp), 1.24, 1.72);
-    cat.column("NU_EFF").push_real(rounded(nu_eff, 4));
-    cat.column("ASTRO_N").push_integer(31);
-    cat.column("RUWE").push_real(rounded(ruwe, 3));
-    cat.column("EBV").push_real(rounded(std::max(0.0, ebv + rng.normal(0, ebv_err)), 3));
-    cat.column("EBV_ERR").push_real(rounded(ebv_err, 3));
-    cat.column("FEH").push_real(rounded(feh + rng.normal(0, o.feh_error), 2));
-    cat.column("FEH_ERR").push_real(o.feh_error);
+  std::map<std::string, double> mean_mag;
+  double strip = rng.normal();
+  for (const auto& r : o.relations) {
+    double m_abs = r.alpha + r.beta * (logp_f - o.pivot_log_period) + r.gamma * feh + r.scatter * strip +
+                   rng.normal(0, r.independent_scatter);
+    truth.column("M_" + r.band).push_real(m_abs);
+    mean_mag[r.band] = m_abs + mu + coefficient[r.band] * ebv + blend;
+    cat.column(r.band + "_MEAN").push_real(rounded(mean_mag[r.band] + rng.normal(0, o.mag_error), 4));
+    cat.column(r.band + "_ERR").push_real(o.mag_error);
+  }
+  double g = mean_mag.count("G") ? mean_mag["G"] : mean_mag.begin()->second;
+  double plx_err = parallax_error_for(o, g);
+  bool binary = rng.uniform() < 0.05;
+  double ruwe = binary ? rng.uniform(1.5, 3.0) : rng.uniform(0.85, 1.25);
+  double plx = 1.0 / d_kpc + o.parallax_zero_point_mas + o.parallax_offset_mas +
+               rng.normal(0, plx_err * (binary ? 3.0 : 1.0));
+  cat.column("PLX").push_real(rounded(plx, 4));
+  cat.column("PLX_ERR").push_real(rounded(plx_err, 4));
+  // nu_eff from BP-RP (memory: Lindegren et al. 2021's colour relation, clamped to the
+  // range the zero-point recipe accepts).
+  double bprp = (mean_mag.count("BP") && mean_mag.count("RP")) ? mean_mag["BP"] - mean_mag["RP"] : 1.2;
+  double nu_eff = std::clamp(1.76 - 1.61 / std::numbers::pi * std::atan(0.531 * bprp), 1.24, 1.72);
+  cat.column("NU_EFF").push_real(rounded(nu_eff, 4));
+  cat.column("ASTRO_N").push_integer(31);
+  cat.column("RUWE").push_real(rounded(ruwe, 3));
+  cat.column("EBV").push_real(rounded(std::max(0.0, ebv + rng.normal(0, ebv_err)), 3));
+  cat.column("EBV_ERR").push_real(rounded(ebv_err, 3));
+  cat.column("FEH").push_real(rounded(feh + rng.normal(0, o.feh_error), 2));
+  cat.column("FEH_ERR").push_real(o.feh_error);
 
-    if (i < o.n_lightcurve_stars) {
-      LightCurveShape shape = draw_shape(rng, overtone);
-      shape.epoch = 2460000.0 + rng.uniform(0, period);
-      for (const auto& band : o.lightcurve_bands) {
-        double scale = relation_for(o, band).amplitude_ratio;
-        double offset = intensity_mean_offset(shape, scale);
-        auto it = o.lightcurve_epochs.find(band);
-        int n_epochs = it == o.lightcurve_epochs.end() ? 30 : it->second;
-        std::vector<double> times;
-        for (int k = 0; k < n_epochs; ++k) {
-          // Four observing seasons of 160 nights, one a year.
-          double season = static_cast<double>(rng.below(4));
-          times.push_back(2460000.0 + 365.25 * season + rng.uniform(0, 160));
-        }
-        std::sort(times.begin(), times.end());
-        for (double t : times) {
-          double phi = std::fmod((t - shape.epoch) / period, 1.0);
-          if (phi < 0) phi += 1.0;
-          double m = mean_mag[band] - offset + shape_value(shape, scale, phi) + rng.normal(0, o.lightcurve_error);
-          lc.column("star").push_text(id);
-          lc.column("time_bjd_tdb").push_real(rounded(t, 5));
-          lc.column("band").push_text(band);
-          lc.column("mag").push_real(rounded(m, 4));
-          lc.column("mag_err").push_real(o.lightcurve_error);
-        }
+  if (with_light_curve) {
+    LightCurveShape shape = draw_shape(rng, overtone);
+    shape.epoch = 2460000.0 + rng.uniform(0, period);
+    for (const auto& band : o.lightcurve_bands) {
+      double scale = relation_for(o, band).amplitude_ratio;
+      double offset = intensity_mean_offset(shape, scale);
+      auto it = o.lightcurve_epochs.find(band);
+      int n_epochs = it == o.lightcurve_epochs.end() ? 30 : it->second;
+      std::vector<double> times;
+      for (int k = 0; k < n_epochs; ++k) {
+        // Four observing seasons of 160 nights, one a year.
+        double season = static_cast<double>(rng.below(4));
+        times.push_back(2460000.0 + 365.25 * season + rng.uniform(0, 160));
+      }
+      std::sort(times.begin(), times.end());
+      for (double t : times) {
+        double phi = std::fmod((t - shape.epoch) / period, 1.0);
+        if (phi < 0) phi += 1.0;
+        double m = mean_mag[band] - offset + shape_value(shape, scale, phi) + rng.normal(0, o.lightcurve_error);
+        lc.column("star").push_text(id);
+        lc.column("time_bjd_tdb").push_real(rounded(t, 5));
+        lc.column("band").push_text(band);
+        lc.column("mag").push_real(rounded(m, 4));
+        lc.column("mag_err").push_real(o.lightcurve_error);
       }
     }
+  }
+  };
+  for (int i = 0; i < o.n_calibrators; ++i)
+    add_calibrator(stream, fmt::format("{}{:04d}", o.calibrator_prefix, i + 1), nullptr, i < o.n_lightcurve_stars);
+  // Clusters come from a stream of their own, after the field: the field's draws stay as
+  // they were without them.
+  Random cluster_rng(o.seed ^ 0xC1C1A5E7B0A7D5E1ull);
+  int member_number = o.n_calibrators;
+  for (const SimulatedCluster& k : o.clusters) {
+    const Place place{std::pow(10.0, 0.2 * k.mu - 2.0), cluster_rng.uniform(0, 360),
+                      std::asin(cluster_rng.uniform(-1, 1)) * 180 / std::numbers::pi, k.name};
+    // The cluster's mean parallax as published, with the zero point already applied.
+    const double plx = 1.0 / place.d_kpc + o.parallax_offset_mas + cluster_rng.normal(0, o.cluster_parallax_error_mas);
+    sim.truth["clusters"].push_back({{"name", k.name},
+                                     {"mu_true", k.mu},
+                                     {"parallax_true_mas", 1.0 / place.d_kpc},
+                                     {"parallax_mas", rounded(plx, 4)},
+                                     {"parallax_err_mas", o.cluster_parallax_error_mas}});
+    for (int m = 0; m < k.members; ++m)
+      add_calibrator(cluster_rng, fmt::format("{}{:04d}", o.calibrator_prefix, ++member_number), &place, false);
   }
 
   // A later data release: the same stars, new parallaxes with smaller errors, drawn from a
@@ -327,21 +369,21 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
   }
   double host_feh = o.feh_mean - 0.1;
   for (int i = 0; i < o.n_targets; ++i) {
-    double logp = rng.uniform(1.0, 1.9);
-    double ebv = o.target_ebv + std::abs(rng.normal(0, 0.03));
-    double strip = rng.normal();
+    double logp = stream.uniform(1.0, 1.9);
+    double ebv = o.target_ebv + std::abs(stream.normal(0, 0.03));
+    double strip = stream.normal();
     tg.column("id").push_text(fmt::format("{}{:04d}", o.target_prefix, i + 1));
     tg.column("host").push_text(o.target_galaxy);
     tg.column("period_d").push_real(rounded(std::pow(10.0, logp), 5));
-    tg.column("ebv").push_real(rounded(ebv + rng.normal(0, 0.02), 3));
+    tg.column("ebv").push_real(rounded(ebv + stream.normal(0, 0.02), 3));
     tg.column("ebv_err").push_real(0.02);
     tg.column("feh").push_real(host_feh);
     for (const auto& b : o.target_bands) {
       const TrueRelation& r = relation_for(o, b);
       double m = r.alpha + r.beta * (logp - o.pivot_log_period) + r.gamma * host_feh + r.scatter * strip +
-                 rng.normal(0, r.independent_scatter) + o.target_mu + coefficient[b] * ebv;
-      double err = o.target_mag_error * (1.0 + 0.5 * rng.uniform());
-      tg.column("mag_" + b).push_real(rounded(m + rng.normal(0, err), 3));
+                 stream.normal(0, r.independent_scatter) + o.target_mu + coefficient[b] * ebv;
+      double err = o.target_mag_error * (1.0 + 0.5 * stream.uniform());
+      tg.column("mag_" + b).push_real(rounded(m + stream.normal(0, err), 3));
       tg.column("mag_err_" + b).push_real(rounded(err, 3));
     }
   }

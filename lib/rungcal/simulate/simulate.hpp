@@ -30,6 +30,14 @@ struct TrueRelation {
   double amplitude_ratio = 1.0;  // light-curve amplitude relative to V
 };
 
+// A star cluster among the calibrators: members at one true distance, and the cluster's
+// mean parallax as a user would take it from the literature (zero point applied).
+struct SimulatedCluster {
+  std::string name;   // invented; the calibrators' GROUP value
+  double mu = 11.0;   // true distance modulus
+  int members = 4;    // calibrators in it (numbered after the field calibrators)
+};
+
 struct SimulateOptions {
   std::uint64_t seed = 1;               // the whole draw follows from it
   int n_calibrators = 120;              // Milky Way calibrators with parallaxes
@@ -62,6 +70,9 @@ struct SimulateOptions {
   double target_ebv = 0.08;             // mean foreground + host reddening of targets
   std::vector<std::string> target_bands = {"V", "I", "H"};
   double target_mag_error = 0.06;
+  std::vector<SimulatedCluster> clusters;  // [[cluster]]: drawn from their own stream
+  double cluster_parallax_error_mas = 0.006;  // error of a cluster's mean parallax
+  std::string field_group = "Milky Way";  // GROUP of the calibrators outside clusters
   std::string bands_file;               // band table (wavelengths for the law)
   std::string output_folder = "sample_data";
 
