@@ -99,6 +99,7 @@ GroupMapping resolve_group(const IngestOptions& o, const SourceTable& in) {
   GroupMapping m;
   for (const auto& [k, src] : o.quantities)
     m.quantities[k] = resolve(src, k, find_quantity(k)->kind, in, o);
+  m.ecl_lat_from_ra_dec = ecl_lat_from_ra_dec(o);
   for (const auto& b : o.bands)
     m.bands.push_back(
         {b.band, resolve(b.mag, "magnitude " + b.band, QuantityKind::kMagnitude, in, o),
@@ -174,7 +175,8 @@ CatalogLayout make_catalog_layout(const IngestOptions& o, const GroupMapping& m)
   l.log_period = add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
   for (const auto& spec : catalog_quantities()) {
     std::string k(spec.key);
-    if (k == "id" || k == "period" || !m.quantities.count(k)) continue;
+    const bool computed = k == "ecl_lat" && m.ecl_lat_from_ra_dec;
+    if (k == "id" || k == "period" || !(m.quantities.count(k) || computed)) continue;
     l.quantities[k] = add(spec);
   }
   std::string band_list;

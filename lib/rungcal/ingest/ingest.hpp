@@ -82,6 +82,14 @@ inline constexpr EnumTable<IdVariantPolicy, 2> kIdVariantPolicyNames{{{
     {IdVariantPolicy::kRefuse, "refuse"},
 }}};
 
+// Column names an archive publishes, mapped without a [columns] entry ([columns] preset):
+// gaia_dr3 takes the Gaia DR3 gaia_source names (column_preset.cpp lists them).
+enum class ColumnPreset { kNone, kGaiaDr3 };
+inline constexpr EnumTable<ColumnPreset, 2> kColumnPresetNames{{{
+    {ColumnPreset::kNone, "none"},
+    {ColumnPreset::kGaiaDr3, "gaia_dr3"},
+}}};
+
 // A closed range [min, max] of plausible values.
 struct PlausibleRange {
   double min = 0;
@@ -96,6 +104,7 @@ struct IngestOptions {
   FitsHduChoice hdu;                  // FITS: which table HDU
   TextReadOptions text;               // text: delimiter, header, missing markers
   std::map<std::string, ValueSource> quantities;  // canonical key -> source ([columns])
+  ColumnPreset column_preset = ColumnPreset::kNone;  // [columns] preset: the keys not mapped
   std::vector<BandSource> bands;      // [bands.NAME]
   std::vector<ExtraColumn> extras;    // [extra]
   std::vector<SelectRule> selection;  // [[select]]

@@ -102,8 +102,8 @@ std::string IngestOptions::check() const {
   if (input_path.empty()) return "source.path: required";
   if (catalog_path.empty()) return "output.catalog: required";
   if (chunk_rows < 1) return "source.chunk_rows: must be at least 1";
-  if (!quantities.count("id"))
-    return "columns.id: required (which input column identifies each star)";
+  if (!quantities.count("id") && column_preset == ColumnPreset::kNone)
+    return "columns.id: required (which input column identifies each star, or a preset)";
   if (!quantities.count("period"))
     return "columns.period: required (a period or log-period column)";
   if (!quantities.count("mode"))
@@ -164,6 +164,10 @@ IngestOptions ingest_options_from_config(Config& config) {
 
   if (auto cols = root.section("columns")) {
     for (const auto& k : cols->keys()) {
+      if (k == "preset") {
+        o.column_preset = choice_or(*cols, k, kColumnPresetNames, o.column_preset);
+        continue;
+      }
       if (!find_quantity(k))
         throw InputError({config.file(), cols->line_of(k), "columns." + k, "line", "key"},
                          "unknown_config_key", unknown_column_key_message(k));

@@ -15,6 +15,7 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/astrometry/astrometry.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/text_io.hpp"
 
@@ -478,6 +479,11 @@ StarTable catalog_rows(const CatalogLayout& l, const GroupMapping& m, const Grou
       fill_texts(out, n, [&](std::size_t k) { return accepted[k].pulsator_class; });
     } else if (find_quantity(key)->type == ColumnType::kText) {
       fill_texts(out, n, text_of(m.at(key)));
+    } else if (key == "ecl_lat" && m.ecl_lat_from_ra_dec) {
+      const PreparedNumbers &ra = checks.number("ra"), &dec = checks.number("dec");
+      fill_reals(out, n, [&](std::size_t k) {
+        return ecliptic_latitude_deg(ra.value_or_nan(rows[k]), dec.value_or_nan(rows[k]));
+      });
     } else if (key == "astrometric_params") {
       out.resize(n);
       for (std::size_t k = 0; k < n; ++k) {
