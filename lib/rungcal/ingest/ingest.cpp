@@ -279,6 +279,9 @@ StarTable ingest_groups(const IngestOptions& given, IngestResult& result, const 
                                    std::move(refusal.reject.message)});
       }
     }
+    for (const RowRefusal& w : g.warnings)
+      spdlog::warn("{}: {} {}: star '{}': [{}] {}", o.input_path, g.row_label, w.source_row, w.id,
+                   w.reject.rule, w.reject.message);
     if (dropped) g.rows = g.rows.select_rows(keep);
     kept += g.rows.rows();
     sink(std::move(g.rows), expected);

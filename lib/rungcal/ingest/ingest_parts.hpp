@@ -118,6 +118,7 @@ struct RowGroup {
   std::vector<std::int64_t> fate;  // the row in `rows`, or -1 - its index in `refusals`
   std::vector<IdHash> id_hash;     // meaningful where the row has an id
   std::vector<RowRefusal> refusals;
+  std::vector<RowRefusal> warnings;  // accepted rows beyond a per-star limit under "warn"
   std::string row_label, id_column;
   std::size_t progress_units = 0;  // of the input taken by this group (GroupReader::next)
 };
