@@ -7,6 +7,7 @@
 #include <fmt/format.h>
 
 #include <cmath>
+#include <functional>
 #include <map>
 #include <set>
 #include <limits>
@@ -488,8 +489,12 @@ TEST(LightCurveRows, BadRowsAreRefusedWithTheirRuleAndTheRestIsMeasured) {
 }
 
 // The demo's first stars, written as a survey publishes them: one headerless file per star
-// and band, "time mag err" in whitespace columns, times as BJD - 2450000.
-TEST(LightCurveFiles, PerStarFilesGiveTheSameResultsAsOneTable) {
+// and band, "time mag err" in whitespace columns, times as BJD - 2450000, at the path
+// file_of(star, band) gives under lc/; the light curves read from them (name_pattern) and
+// from one table must agree.
+void expect_per_star_files_match_one_table(
+    const std::function<std::string(const std::string&, const std::string&)>& file_of,
+    const std::string& glob, const std::string& name_pattern) {
   test::TempDir dir;
   const SourceTable all = read_text_table(test::source_file("sample_data/lightcurves.csv"), {});
   const StarTable& t = all.table;
@@ -503,7 +508,7 @@ TEST(LightCurveFiles, PerStarFilesGiveTheSameResultsAsOneTable) {
     const double time = std::stod(t.column("time_bjd_tdb").text[r]);
     const std::string band = t.column("band").text[r], mag = t.column("mag").text[r], err = t.column("mag_err").text[r];
     table += fmt::format("{},{:.4f},{},{},{}\n", star, time, band, mag, err);
-    files[star + "." + band + ".dat"] += fmt::format("{:.4f}  {}  {}\n", time - 2450000.0, mag, err);
+    files[file_of(star, band)] += fmt::format("{:.4f}  {}  {}\n", time - 2450000.0, mag, err);
   }
   test::write_text(dir.file("one/table.csv"), table);
   for (const auto& [name, content] : files) test::write_text(dir.file("lc/" + name), content);
@@ -511,7 +516,7 @@ TEST(LightCurveFiles, PerStarFilesGiveTheSameResultsAsOneTable) {
   test::write_text(dir.file("one.toml"), common + "[source]\npath = \"one/table.csv\"\n[columns]\ntime = \"time\"\n"
                                                   "[output]\npath = \"out/one.fits\"\n");
   test::write_text(dir.file("files.toml"),
-                   common + "[source]\npath = \"lc/*.dat\"\nname_pattern = \"{star}.{band}.dat\"\nheader = false\n"
+                   common + "[source]\npath = \"" + glob + "\"\nname_pattern = \"" + name_pattern + "\"\nheader = false\n"
                             "delimiter = \"whitespace\"\ncolumn_names = [\"time\", \"mag\", \"mag_err\"]\n"
                             "time_offset_d = 2450000\n[columns]\ntime = \"time\"\n[output]\npath = \"out/files.fits\"\n");
   const LightCurveResult one = run_lightcurves(lightcurve_options_from_file(dir.file("one.toml")));
@@ -529,6 +534,20 @@ TEST(LightCurveFiles, PerStarFilesGiveTheSameResultsAsOneTable) {
     for (const char* band : {"mag_V", "mag_I", "mag_Ks"})
       EXPECT_NEAR(b.column(band).real[i], a.column(band).real[i], 1e-7) << band;
   }
+}
+
+TEST(LightCurveFiles, PerStarFilesGiveTheSameResultsAsOneTable) {
+  expect_per_star_files_match_one_table(
+      [](const std::string& star, const std::string& band) { return star + "." + band + ".dat"; },
+      "lc/*.dat", "{star}.{band}.dat");
+}
+
+TEST(LightCurveFiles, TheBandCanComeFromTheFolder) {
+  // As OGLE publishes light curves: one folder per band (phot/I/, phot/V/), each holding a
+  // file per star named by its id.
+  expect_per_star_files_match_one_table(
+      [](const std::string& star, const std::string& band) { return "phot/" + band + "/" + star + ".dat"; },
+      "lc/phot/*/*.dat", "{band}/{star}.dat");
 }
 
 TEST(LightCurveFiles, AFileNameThatDoesNotMatchOrNoFileAtAllStopsWithItsRule) {
@@ -552,6 +571,17 @@ TEST(LightCurveFiles, AFileNameThatDoesNotMatchOrNoFileAtAllStopsWithItsRule) {
   r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("must hold {star}"), std::string::npos) << r.output;
+  // A folder in the pattern: the file's folder must match it too ("lc" is not a band folder
+  // named V here, so lc/S1.V.dat has no part "phot").
+  test::write_text(dir.file("c.toml"), test::replaced(cfg, {{"{star}.{band}.dat", "phot/{star}.{band}.dat"}}));
+  r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("[file_name_pattern]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("'lc/README.dat' does not match"), std::string::npos) << r.output;
+  test::write_text(dir.file("c.toml"), test::replaced(cfg, {{"{star}.{band}.dat", "../{star}.{band}.dat"}}));
+  r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("source.name_pattern"), std::string::npos) << r.output;
   EXPECT_FALSE(test::file_exists(dir.file("out")));
 }
 
