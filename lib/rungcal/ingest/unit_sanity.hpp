@@ -34,9 +34,12 @@ inline constexpr EnumTable<UnitCheckPolicy, 3> kUnitCheckPolicyNames{{{
 //   by up to a few magnitudes in the optical). Pulsators of a class span a few magnitudes
 //   over their periods and bands: classical Cepheids from about -1.5 (V, 2 d) to -9 (a
 //   Wesenheit magnitude at 100 d), type II Cepheids +1 to -5, anomalous Cepheids +1 to -3.5,
-//   RR Lyrae +1.5 (u) to -1 (mid-infrared) (memory, common practice). A whole sample's
-//   median outside is a column of something else (an error or a flux read as a magnitude)
-//   or parallaxes in another unit.
+//   RR Lyrae +1.5 (u) to -1 (mid-infrared) (memory, common practice). The ranges reach
+//   several magnitudes further on the faint side: no extinction is applied (A_V reaches
+//   several magnitudes in the Galactic disc and bulge), and a parallax offset of 0.1 mas
+//   makes the stars above 5 sigma look several magnitudes fainter. A column of something
+//   else (an error read as a magnitude gives about -12) or parallaxes in another unit
+//   (arcsec or uas for mas: 15 mag) fall far outside.
 struct UnitSanityOptions {
   UnitCheckPolicy policy = UnitCheckPolicy::kRefuse;  // [validate] unit_checks
   double parallax_median_min_mas = 0.005;  // [validate] parallax_median_range_mas = [min, max]
@@ -52,10 +55,10 @@ struct UnitSanityOptions {
   // Median absolute magnitude range per canonical class, mag, every band
   // ([validate.class_absolute_magnitude_median_range]); classes not listed are not checked.
   std::map<std::string, std::pair<double, double>> class_absolute_magnitude_median = {
-      {"classical_cepheid", {-9.5, 0.5}},
-      {"type2_cepheid", {-6.0, 2.5}},
-      {"anomalous_cepheid", {-4.5, 2.5}},
-      {"rr_lyrae", {-2.5, 2.5}},
+      {"classical_cepheid", {-10.5, 4.0}},
+      {"type2_cepheid", {-6.5, 5.0}},
+      {"anomalous_cepheid", {-5.0, 5.0}},
+      {"rr_lyrae", {-3.0, 5.0}},
   };
   // "" when usable, else "field: rule".
   std::string check() const;
