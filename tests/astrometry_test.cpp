@@ -71,6 +71,17 @@ TEST(Lindegren2021, ABrokenTableIsRefusedNamingItsLine) {
   }
 }
 
+TEST(EclipticLatitude, OfTheEquinoxesAndSolsticesIsTheObliquity) {
+  // Geometry: the equator's points at RA 90 and 270 deg lie the obliquity below and above the
+  // ecliptic, and RA 0 lies on it; the IAU 2006 obliquity at J2000.0 is 84381.406 arcsec
+  // (Capitaine, Wallace & Chapront 2003). The frame bias moves these by under 0.03 arcsec.
+  const double eps = 84381.406 / 3600.0;
+  EXPECT_NEAR(ecliptic_latitude_deg(90.0, 0.0), -eps, 1e-5);
+  EXPECT_NEAR(ecliptic_latitude_deg(270.0, 0.0), eps, 1e-5);
+  EXPECT_NEAR(ecliptic_latitude_deg(0.0, 0.0), 0.0, 1e-5);
+  EXPECT_NEAR(ecliptic_latitude_deg(270.0, 90.0 - eps), 90.0, 1e-4);  // the north ecliptic pole
+}
+
 TEST(ElBadry2021, InflationFollowsEquation16) {
   // f(G) = 0.21 exp(-(G - 12.65)^2 / 0.81) - 0.00062 G^2 + 0.0040 G + 1.141 (El-Badry, Rix
   // & Heintz 2021, eq. 16), evaluated here by hand at the bump's centre and far from it.

@@ -132,5 +132,42 @@ TEST(UnitSanity, RiessCepheidsWithLogPeriodsMappedAsDaysStopAndCanBeWarnedInstea
   EXPECT_NE(r.output.find("[config_value]"), std::string::npos) << r.output;
 }
 
+TEST(UnitSanity, AnImplausibleMedianAbsoluteMagnitudeIsFoundPerClassAndColumn) {
+  UnitSanityOptions o;
+  UnitSample s;
+  s.file = "stars.csv";
+  s.parallax_column = "plx";
+  // M = m + 5 log10(parallax / 100 mas): a Cepheid sample near -4 passes; errors read as
+  // magnitudes (about 0.02 mag at 0.3 mas) give M near -12.6.
+  s.absolute_mag_by_class["classical_cepheid"]["V"] = {-4.1, -3.2, -5.0, -2.5, -4.4};
+  s.absolute_mag_by_class["classical_cepheid"]["V_err"] = {-12.58, -12.57, -12.7, -12.5, -12.6};
+  s.absolute_mag_by_class["rr_lyrae"]["V_err"] = {-12.58, -12.57, -12.7, -12.5};  // too few
+  const std::vector<UnitFinding> found = find_unit_mistakes(s, o);
+  ASSERT_EQ(found.size(), 1u);
+  EXPECT_EQ(found[0].rule, "absolute_magnitude_median");
+  EXPECT_EQ(found[0].column, "V_err");
+  EXPECT_EQ(found[0].message,
+            "the median absolute magnitude of 5 classical_cepheid stars with parallax / error >= 5 "
+            "is -12.6 mag (m + 5 log10(parallax / 100 mas), no extinction), outside the class's "
+            "plausible [-10.5, 4] mag ([validate.class_absolute_magnitude_median_range]): is this "
+            "column a magnitude, and are the parallaxes (plx) in the unit mapped?");
+  o.class_absolute_magnitude_median["classical_cepheid"] = {1.0, -1.0};
+  EXPECT_NE(o.check().find("validate.class_absolute_magnitude_median_range.classical_cepheid"),
+            std::string::npos);
+}
+
+TEST(UnitSanity, RiessCepheidsWithAnErrorColumnMappedAsTheMagnitudeStopWithExit2) {
+  // Riess et al. 2018, ApJ 861, 126: F160W_error (0.01-0.03 mag) mapped as the F160W
+  // magnitude; the 44 stars above 5 sigma give a median M of -12.3 (a numpy evaluation).
+  test::TempDir dir;
+  test::write_text(dir.file("c.toml"), riess_config({{"mag = \"F160W\"", "mag = \"F160W_error\""}}));
+  auto r = test::run_stage("ingest", "--config " + dir.file("c.toml") + " --out " + dir.file("out/cat.fits"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("mw_cepheids_hst_gaiadr2.txt"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("column 'F160W_error'"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("[absolute_magnitude_median]"), std::string::npos) << r.output;
+  EXPECT_FALSE(test::file_exists(dir.file("out")));
+}
+
 }  // namespace
 }  // namespace rungcal

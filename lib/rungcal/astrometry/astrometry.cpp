@@ -109,4 +109,26 @@ double el_badry_inflation(double g) {
   return 0.21 * std::exp(-(g - 12.65) * (g - 12.65) / 0.81) - 0.00062 * g * g + 0.0040 * g + 1.141;
 }
 
+double ecliptic_latitude_deg(double ra_deg, double dec_deg) {
+  constexpr double kDeg = std::numbers::pi / 180.0;
+  constexpr double kMas = kDeg / 3.6e6;
+  constexpr double kXi0 = -16.6170 * kMas, kEta0 = -6.8192 * kMas, kDa0 = -14.6 * kMas;
+  constexpr double kObliquity = 84381.406 / 3600.0 * kDeg;
+  const double ra = ra_deg * kDeg, dec = dec_deg * kDeg;
+  double x = std::cos(dec) * std::cos(ra), y = std::cos(dec) * std::sin(ra), z = std::sin(dec);
+  // R3(da0), R2(xi0), R1(-eta0) in turn, each an exact rotation (the angles are tiny, but
+  // exact rotations keep the vector a unit vector).
+  auto rotate = [](double angle, double& a, double& b) {
+    const double c = std::cos(angle), s = std::sin(angle);
+    const double a2 = c * a + s * b;
+    b = -s * a + c * b;
+    a = a2;
+  };
+  rotate(kDa0, x, y);    // R3: x' = c x + s y, y' = -s x + c y
+  rotate(kXi0, z, x);    // R2: z' = s x + c z, x' = c x - s z
+  rotate(-kEta0, y, z);  // R1: y' = c y + s z, z' = -s y + c z
+  const double sin_beta = -std::sin(kObliquity) * y + std::cos(kObliquity) * z;
+  return std::asin(std::clamp(sin_beta, -1.0, 1.0)) / kDeg;
+}
+
 }  // namespace rungcal

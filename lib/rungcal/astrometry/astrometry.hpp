@@ -38,6 +38,18 @@ class ZeroPointTable {
 // f(G) = 0.21 exp(-(G - 12.65)^2 / 0.81) - 0.00062 G^2 + 0.0040 G + 1.141.
 double el_badry_inflation(double g_mag);
 
+// Ecliptic latitude beta (deg) of an ICRS direction (ra, dec in deg), in the mean ecliptic
+// and equinox of J2000.0: the frame astropy calls BarycentricMeanEcliptic (equinox J2000),
+// for a direction without parallax. The ICRS unit vector is rotated by the frame bias
+// B = R1(-eta0) R2(xi0) R3(da0) onto the mean equator and equinox of J2000 (IERS Conventions
+// 2010, section 5.5.1: xi0 = -16.6170 mas, eta0 = -6.8192 mas, da0 = -14.6 mas), then by the
+// obliquity about the equinox direction, sin beta = -sin(eps) y + cos(eps) z, with eps the
+// IAU 2006 obliquity at J2000.0, 84381.406 arcsec = 23.4392794 deg (Capitaine, Wallace &
+// Chapront 2003, A&A 412, 567). Without the bias beta moves by up to about 0.02 arcsec; the
+// Gaia archive's own ecl_lat agrees with this to a few mas. Input of the Lindegren et al. 2021
+// zero point, which takes sin beta.
+double ecliptic_latitude_deg(double ra_deg, double dec_deg);
+
 enum class ZeroPointRecipe { kNone, kConstant, kLindegren2021 };
 inline constexpr EnumTable<ZeroPointRecipe, 3> kZeroPointRecipeNames{{{
     {ZeroPointRecipe::kNone, "none"},

@@ -2,6 +2,7 @@
 #include "rungcal/ingest/ingest_parts.hpp"
 
 #include <algorithm>
+#include <cmath>
 #include <iterator>
 #include <optional>
 #include <string>
@@ -99,6 +100,7 @@ GroupMapping resolve_group(const IngestOptions& o, const SourceTable& in) {
   GroupMapping m;
   for (const auto& [k, src] : o.quantities)
     m.quantities[k] = resolve(src, k, find_quantity(k)->kind, in, o);
+  m.ecl_lat_from_ra_dec = ecl_lat_from_ra_dec(o);
   for (const auto& b : o.bands)
     m.bands.push_back(
         {b.band, resolve(b.mag, "magnitude " + b.band, QuantityKind::kMagnitude, in, o),
@@ -140,19 +142,31 @@ UnitSample unit_sample(const IngestOptions& o, const GroupMapping& m, const Sour
     for (std::size_t r = 0; r < n; ++r)
       if (auto v = value(it->second, r)) s.parallax_mas.push_back(*v);
   }
+  std::vector<std::string> classes(n);  // canonical, "" when unknown
+  {
+    const Resolved& cls = m.at("pulsator_class");
+    std::string scratch;
+    for (std::size_t r = 0; r < n; ++r)
+      if (const std::string* text = text_ref(cls, r, scratch))
+        classes[r] = canonical_choice(*text, o.class_aliases, builtin_class_aliases(), false);
+  }
   const Resolved& period = m.at("period");
   if (period.column) {
     s.period_column = period.column_name;
     s.period_unit = unit_of("period", period);
-    const Resolved& cls = m.at("pulsator_class");
-    std::string scratch;
-    for (std::size_t r = 0; r < n; ++r) {
-      auto v = value(period, r);
-      const std::string* text = text_ref(cls, r, scratch);
-      if (!v || !text) continue;
-      std::string c = canonical_choice(*text, o.class_aliases, builtin_class_aliases(), false);
-      if (!c.empty()) s.period_d_by_class[c].push_back(*v);
-    }
+    for (std::size_t r = 0; r < n; ++r)
+      if (auto v = value(period, r); v && !classes[r].empty())
+        s.period_d_by_class[classes[r]].push_back(*v);
+  }
+  auto plx = m.quantities.find("parallax"), plx_err = m.quantities.find("parallax_err");
+  if (plx == m.quantities.end() || plx_err == m.quantities.end()) return s;
+  for (std::size_t r = 0; r < n; ++r) {
+    const auto p = value(plx->second, r), e = value(plx_err->second, r);
+    if (classes[r].empty() || !p || !e || !(*e > 0) || *p < 5 * *e) continue;
+    for (const auto& b : m.bands)
+      if (auto mag = b.mag.column ? value(b.mag, r) : std::nullopt)
+        s.absolute_mag_by_class[classes[r]][b.mag.column_name].push_back(
+            *mag + 5 * std::log10(*p / 100.0));
   }
   return s;
 }
@@ -174,7 +188,8 @@ CatalogLayout make_catalog_layout(const IngestOptions& o, const GroupMapping& m)
   l.log_period = add_column(col::kLogPeriod, ColumnType::kReal, "", "log10 of the period in days");
   for (const auto& spec : catalog_quantities()) {
     std::string k(spec.key);
-    if (k == "id" || k == "period" || !m.quantities.count(k)) continue;
+    const bool computed = k == "ecl_lat" && m.ecl_lat_from_ra_dec;
+    if (k == "id" || k == "period" || !(m.quantities.count(k) || computed)) continue;
     l.quantities[k] = add(spec);
   }
   std::string band_list;

@@ -193,13 +193,15 @@ using GroupSink = std::function<void(StarTable&&, std::size_t expected_rows)>;
 // read at a time), settles each group's duplicate ids in file order and hands its accepted
 // rows to sink in file order. Fills the rest of result; returns the catalog's columns and
 // header without rows.
-StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const GroupSink& sink) {
-  throw_if_invalid(o.check(), o.config_file);
-  GroupReader input(o);
+StarTable ingest_groups(const IngestOptions& given, IngestResult& result, const GroupSink& sink) {
+  throw_if_invalid(given.check(), given.config_file);
+  GroupReader input(given);
   std::size_t first_units = 0;
   SourceTable first_chunk = input.next(first_units);
   if (first_chunk.table.rows() == 0)
-    throw InputError({o.input_path, {}, {}}, "empty_file", input.no_rows_message());
+    throw InputError({given.input_path, {}, {}}, "empty_file", input.no_rows_message());
+  // A preset's columns are known once the input's are; every group has the same columns.
+  const IngestOptions o = with_preset_columns(given, first_chunk.table);
   std::size_t rows_read = first_chunk.table.rows();
   const std::size_t expected = input.expected_rows(rows_read);
 
@@ -277,6 +279,9 @@ StarTable ingest_groups(const IngestOptions& o, IngestResult& result, const Grou
                                    std::move(refusal.reject.message)});
       }
     }
+    for (const RowRefusal& w : g.warnings)
+      spdlog::warn("{}: {} {}: star '{}': [{}] {}", o.input_path, g.row_label, w.source_row, w.id,
+                   w.reject.rule, w.reject.message);
     if (dropped) g.rows = g.rows.select_rows(keep);
     kept += g.rows.rows();
     sink(std::move(g.rows), expected);

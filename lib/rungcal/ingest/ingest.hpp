@@ -82,11 +82,50 @@ inline constexpr EnumTable<IdVariantPolicy, 2> kIdVariantPolicyNames{{{
     {IdVariantPolicy::kRefuse, "refuse"},
 }}};
 
+// Column names an archive publishes, mapped without a [columns] entry ([columns] preset):
+// gaia_dr3 takes the Gaia DR3 gaia_source names (column_preset.cpp lists them).
+enum class ColumnPreset { kNone, kGaiaDr3 };
+inline constexpr EnumTable<ColumnPreset, 2> kColumnPresetNames{{{
+    {ColumnPreset::kNone, "none"},
+    {ColumnPreset::kGaiaDr3, "gaia_dr3"},
+}}};
+
 // A closed range [min, max] of plausible values.
 struct PlausibleRange {
   double min = 0;
   double max = 0;
   bool contains(double v) const { return v >= min && v <= max; }
+};
+
+// Per-star limits by pulsator class ([validate]): a value that some star may have but no star
+// of its class, most likely a misclassified star or a wrong value. Per quantity, a star
+// beyond its class's limit is refused (rules parallax_above_class_limit and
+// period_outside_class_range, in the rejects with its row), kept with a warning naming the
+// file, row and rule, or not checked. Classes not listed are not checked. Defaults are
+// common practice, the distances and periods recalled from memory:
+// - parallax: the nearest classical Cepheid, Polaris, has about 7.5 mas, the nearest type II
+//   Cepheid, kappa Pav, about 5 mas, and the nearest RR Lyrae star, RR Lyr, about 3.6 mas;
+//   100 mas is a parallax of the Sun's neighbourhood within 10 pc, where none of them lies.
+// - period: classical Cepheids 0.2-250 d (the shortest overtone pulsators of the Magellanic
+//   Clouds to the longest fundamental-mode Cepheids known), type II Cepheids 0.8-150 d
+//   (BL Her to RV Tau stars), anomalous Cepheids 0.3-3 d, RR Lyrae 0.15-1.2 d.
+struct ClassLimits {
+  UnitCheckPolicy parallax_policy = UnitCheckPolicy::kRefuse;  // [validate] class_parallax_check
+  std::map<std::string, double> parallax_max_mas = {  // [validate.class_parallax_max_mas]
+      {"classical_cepheid", 100.0},
+      {"type2_cepheid", 100.0},
+      {"anomalous_cepheid", 100.0},
+      {"rr_lyrae", 100.0},
+  };
+  UnitCheckPolicy period_policy = UnitCheckPolicy::kRefuse;  // [validate] class_period_check
+  std::map<std::string, PlausibleRange> period_d = {  // [validate.class_period_known_range_d]
+      {"classical_cepheid", {0.2, 250.0}},
+      {"type2_cepheid", {0.8, 150.0}},
+      {"anomalous_cepheid", {0.3, 3.0}},
+      {"rr_lyrae", {0.15, 1.2}},
+  };
+  // "" when usable, else "field: rule".
+  std::string check() const;
 };
 
 struct IngestOptions {
@@ -96,6 +135,7 @@ struct IngestOptions {
   FitsHduChoice hdu;                  // FITS: which table HDU
   TextReadOptions text;               // text: delimiter, header, missing markers
   std::map<std::string, ValueSource> quantities;  // canonical key -> source ([columns])
+  ColumnPreset column_preset = ColumnPreset::kNone;  // [columns] preset: the keys not mapped
   std::vector<BandSource> bands;      // [bands.NAME]
   std::vector<ExtraColumn> extras;    // [extra]
   std::vector<SelectRule> selection;  // [[select]]
@@ -121,6 +161,7 @@ struct IngestOptions {
   std::map<std::string, PlausibleRange> class_period_range;  // d, per canonical pulsator class
                                                              // ([validate.class_period_range_d])
   IdVariantPolicy id_variants = IdVariantPolicy::kWarn;      // [validate] id_variants
+  ClassLimits class_limits;       // [validate]: per-star limits by class
   UnitSanityOptions unit_checks;  // [validate] unit_checks and median ranges: unit mistakes
   LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
   std::int64_t chunk_rows = 20000;  // rows or text lines read at a time ([source] chunk_rows)

@@ -98,12 +98,31 @@ std::string SelectRule::describe() const {
   return fmt::format("{} {} {}", column, kSelectOpNames.name(op), v);
 }
 
+std::string ClassLimits::check() const {
+  for (const auto& [cls, max] : parallax_max_mas) {
+    if (!kPulsatorClassNames.parse(cls))
+      return fmt::format("validate.class_parallax_max_mas.{}: not a pulsator class (known: {})", cls,
+                         kPulsatorClassNames.choices());
+    if (!(max > 0))
+      return fmt::format("validate.class_parallax_max_mas.{}: must be positive (mas)", cls);
+  }
+  for (const auto& [cls, r] : period_d) {
+    if (!kPulsatorClassNames.parse(cls))
+      return fmt::format("validate.class_period_known_range_d.{}: not a pulsator class (known: {})",
+                         cls, kPulsatorClassNames.choices());
+    if (!(r.min > 0 && r.min < r.max))
+      return fmt::format(
+          "validate.class_period_known_range_d.{}: must be [min, max] days with 0 < min < max", cls);
+  }
+  return "";
+}
+
 std::string IngestOptions::check() const {
   if (input_path.empty()) return "source.path: required";
   if (catalog_path.empty()) return "output.catalog: required";
   if (chunk_rows < 1) return "source.chunk_rows: must be at least 1";
-  if (!quantities.count("id"))
-    return "columns.id: required (which input column identifies each star)";
+  if (!quantities.count("id") && column_preset == ColumnPreset::kNone)
+    return "columns.id: required (which input column identifies each star, or a preset)";
   if (!quantities.count("period"))
     return "columns.period: required (a period or log-period column)";
   if (!quantities.count("mode"))
@@ -131,6 +150,7 @@ std::string IngestOptions::check() const {
       return fmt::format(
           "validate.class_period_range_d.{}: must be [min, max] days with 0 < min < max", cls);
   }
+  if (std::string c = class_limits.check(); !c.empty()) return c;
   std::set<std::string> seen;
   for (const auto& b : bands) {
     if (b.band.empty() || b.band.find_first_of(" ,") != std::string::npos)
@@ -164,6 +184,10 @@ IngestOptions ingest_options_from_config(Config& config) {
 
   if (auto cols = root.section("columns")) {
     for (const auto& k : cols->keys()) {
+      if (k == "preset") {
+        o.column_preset = choice_or(*cols, k, kColumnPresetNames, o.column_preset);
+        continue;
+      }
       if (!find_quantity(k))
         throw InputError({config.file(), cols->line_of(k), "columns." + k, "line", "key"},
                          "unknown_config_key", unknown_column_key_message(k));
@@ -244,26 +268,42 @@ IngestOptions ingest_options_from_config(Config& config) {
       v->fail("id_variants",
               fmt::format("'{}' is not one of: {}", variants, kIdVariantPolicyNames.choices()));
     o.id_variants = *parsed;
-    const std::string unit_policy = v->string_or("unit_checks", "refuse");
-    auto policy = kUnitCheckPolicyNames.parse(unit_policy);
-    if (!policy)
-      v->fail("unit_checks",
-              fmt::format("'{}' is not one of: {}", unit_policy, kUnitCheckPolicyNames.choices()));
-    o.unit_checks.policy = *policy;
+    o.unit_checks.policy = choice_or(*v, "unit_checks", kUnitCheckPolicyNames, o.unit_checks.policy);
+    ClassLimits& limits = o.class_limits;
+    limits.parallax_policy =
+        choice_or(*v, "class_parallax_check", kUnitCheckPolicyNames, limits.parallax_policy);
+    limits.period_policy =
+        choice_or(*v, "class_period_check", kUnitCheckPolicyNames, limits.period_policy);
+    if (auto by_class = v->section("class_parallax_max_mas"))
+      for (const auto& cls : by_class->keys()) {
+        auto max = by_class->get_number(cls);
+        if (!max) by_class->fail(cls, "must be a number of mas");
+        limits.parallax_max_mas[cls] = *max;
+      }
+    if (auto by_class = v->section("class_period_known_range_d"))
+      for (const auto& cls : by_class->keys()) range(*by_class, cls, limits.period_d[cls]);
     PlausibleRange plx{o.unit_checks.parallax_median_min_mas,
                        o.unit_checks.parallax_median_max_mas};
     range(*v, "parallax_median_range_mas", plx);
     o.unit_checks.parallax_median_min_mas = plx.min;
     o.unit_checks.parallax_median_max_mas = plx.max;
-    if (auto by_class = v->section("class_period_median_range_d"))
+    // A [validate.NAME] table of [min, max] per pulsator class, into out.
+    auto class_ranges = [&](const std::string& name,
+                            std::map<std::string, std::pair<double, double>>& out) {
+      auto by_class = v->section(name);
+      if (!by_class) return;
       for (const auto& cls : by_class->keys()) {
         if (!kPulsatorClassNames.parse(cls))
           by_class->fail(
               cls, fmt::format("not a pulsator class (known: {})", kPulsatorClassNames.choices()));
         PlausibleRange r;
         range(*by_class, cls, r);
-        o.unit_checks.class_period_median_d[cls] = {r.min, r.max};
+        out[cls] = {r.min, r.max};
       }
+    };
+    class_ranges("class_period_median_range_d", o.unit_checks.class_period_median_d);
+    class_ranges("class_absolute_magnitude_median_range",
+                 o.unit_checks.class_absolute_magnitude_median);
   }
   if (auto lc = root.section("lightcurves")) {
     o.lightcurves.summary_path = config.resolve_path(lc->require_string("summary"));

@@ -36,6 +36,14 @@ std::string canonical_choice(const std::string& value,
                              const std::map<std::string, std::string>& config_aliases,
                              const std::map<std::string, std::string>& builtin, bool is_mode);
 
+// The options with the preset's columns added to [columns] (column_preset.cpp): each key the
+// config leaves out whose archive column the input has. Keys the config maps win. Throws
+// InputError (missing_column) when neither the config nor the input gives the star id.
+IngestOptions with_preset_columns(const IngestOptions& o, const StarTable& input);
+// True when the catalog's ecliptic latitude is computed from ra and dec: the preset is on, the
+// input gives no ecl_lat and ra and dec are mapped.
+bool ecl_lat_from_ra_dec(const IngestOptions& o);
+
 // A row that breaks a rule; caught per row and turned into a RejectedRow.
 struct RowReject {
   std::string rule;
@@ -70,6 +78,7 @@ struct GroupMapping {
   std::map<std::string, Resolved> quantities;
   std::vector<Band> bands;
   std::vector<const Column*> select_columns, extra_columns;
+  bool ecl_lat_from_ra_dec = false;  // the catalog's ecl_lat computed (ecl_lat_from_ra_dec())
   const Resolved& at(const std::string& key) const { return quantities.at(key); }
 };
 
@@ -109,6 +118,7 @@ struct RowGroup {
   std::vector<std::int64_t> fate;  // the row in `rows`, or -1 - its index in `refusals`
   std::vector<IdHash> id_hash;     // meaningful where the row has an id
   std::vector<RowRefusal> refusals;
+  std::vector<RowRefusal> warnings;  // accepted rows beyond a per-star limit under "warn"
   std::string row_label, id_column;
   std::size_t progress_units = 0;  // of the input taken by this group (GroupReader::next)
 };

@@ -15,6 +15,7 @@
 
 #include <fmt/format.h>
 
+#include "rungcal/astrometry/astrometry.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/text_io.hpp"
 
@@ -261,6 +262,7 @@ class GroupChecks {
   // Checks row r; throws the first rule it breaks as a RowReject. id is set as soon as the
   // row's id is known, for the reject.
   AcceptedRow check(std::size_t r, const std::string*& id) {
+    warnings_.clear();
     id = text_ref(q_id_, r, id_scratch_);
     if (!id || id->empty())
       throw RowReject{"missing_required", q_id_.column_name, "the star has no id"};
@@ -277,11 +279,14 @@ class GroupChecks {
     for (std::size_t i = 0; i < numbers_.size(); ++i) values_[i] = numbers_[i].at(r);
     check_errors();
     check_plausible();
+    check_class_limits(r, *row.pulsator_class);
     row.astrometric = astrometric_params();
     check_photometry(r);
     return row;
   }
 
+  // The per-star limits the last accepted row broke under the "warn" policy.
+  const std::vector<RowReject>& warnings() const { return warnings_; }
   const PreparedNumbers& periods() const { return periods_; }
   const PreparedNumbers& number(const std::string& key) const {
     return numbers_[static_cast<std::size_t>(slot_of_.at(key))];
@@ -338,6 +343,37 @@ class GroupChecks {
           "feh_out_of_range", m_.at("feh").column_name,
           fmt::format("[Fe/H] = {} is outside the plausible [{}, {}] ([validate] feh_range)", *f,
                       o_.feh_range.min, o_.feh_range.max)};
+  }
+
+  // The star's parallax and period against its class's limits (ClassLimits): refused or
+  // warned about by the quantity's policy.
+  void check_class_limits(std::size_t r, const std::string& pulsator_class) {
+    const ClassLimits& l = o_.class_limits;
+    auto breaks = [&](UnitCheckPolicy policy, RowReject&& reject) {
+      if (policy == UnitCheckPolicy::kRefuse) throw std::move(reject);
+      warnings_.push_back(std::move(reject));
+    };
+    if (l.parallax_policy != UnitCheckPolicy::kOff) {
+      auto max = l.parallax_max_mas.find(pulsator_class);
+      auto p = value(s_parallax_);
+      if (max != l.parallax_max_mas.end() && p && *p > max->second)
+        breaks(l.parallax_policy,
+               {"parallax_above_class_limit", m_.at("parallax").column_name,
+                fmt::format("parallax {} mas is above the {} mas no {} star reaches ([validate."
+                            "class_parallax_max_mas]; class_parallax_check = \"warn\" keeps it)",
+                            *p, max->second, pulsator_class)});
+    }
+    if (l.period_policy != UnitCheckPolicy::kOff) {
+      auto range = l.period_d.find(pulsator_class);
+      const double p = *periods_.at(r);
+      if (range != l.period_d.end() && !range->second.contains(p))
+        breaks(l.period_policy,
+               {"period_outside_class_range", q_period_.column_name,
+                fmt::format("period {} d is outside the known [{}, {}] d of {} stars ([validate."
+                            "class_period_known_range_d]; class_period_check = \"warn\" keeps "
+                            "it): misclassified?",
+                            p, range->second.min, range->second.max, pulsator_class)});
+    }
   }
 
   // The canonical mode (or class) of row r. Spellings repeat from row to row: each distinct
@@ -442,6 +478,7 @@ class GroupChecks {
   int s_parallax_ = -1, s_parallax_err_ = -1, s_ebv_ = -1, s_astrometric_ = -1,
       s_feh_ = -1;                             // -1: unmapped
   std::vector<std::optional<double>> values_;  // the row's numbers, by slot
+  std::vector<RowReject> warnings_;            // the row's broken limits under "warn"
   std::unordered_map<std::string, std::string> mode_of_, class_of_;
   std::string id_scratch_, mode_scratch_, class_scratch_;
 };
@@ -478,6 +515,11 @@ StarTable catalog_rows(const CatalogLayout& l, const GroupMapping& m, const Grou
       fill_texts(out, n, [&](std::size_t k) { return accepted[k].pulsator_class; });
     } else if (find_quantity(key)->type == ColumnType::kText) {
       fill_texts(out, n, text_of(m.at(key)));
+    } else if (key == "ecl_lat" && m.ecl_lat_from_ra_dec) {
+      const PreparedNumbers &ra = checks.number("ra"), &dec = checks.number("dec");
+      fill_reals(out, n, [&](std::size_t k) {
+        return ecliptic_latitude_deg(ra.value_or_nan(rows[k]), dec.value_or_nan(rows[k]));
+      });
     } else if (key == "astrometric_params") {
       out.resize(n);
       for (std::size_t k = 0; k < n; ++k) {
@@ -522,6 +564,8 @@ RowGroup check_group(const IngestOptions& o, const SourceTable& in, const Catalo
     try {
       accepted.push_back(checks.check(r, id));
       group.fate[r] = static_cast<std::int64_t>(accepted.size()) - 1;
+      for (const RowReject& w : checks.warnings())
+        group.warnings.push_back({in.source_rows[r], id ? *id : std::string(), w});
     } catch (const RowReject& rej) {
       group.fate[r] = -1 - static_cast<std::int64_t>(group.refusals.size());
       group.refusals.push_back({in.source_rows[r], id ? *id : std::string(), rej});

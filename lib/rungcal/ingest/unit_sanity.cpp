@@ -36,6 +36,11 @@ std::string UnitSanityOptions::check() const {
       return fmt::format(
           "validate.class_period_median_range_d.{}: must be [min, max] days with 0 < min < max",
           cls);
+  for (const auto& [cls, r] : class_absolute_magnitude_median)
+    if (!(r.first < r.second))
+      return fmt::format(
+          "validate.class_absolute_magnitude_median_range.{}: must be [min, max] mag with min < max",
+          cls);
   return "";
 }
 
@@ -73,6 +78,24 @@ std::vector<UnitFinding> find_unit_mistakes(const UnitSample& s, const UnitSanit
                                "class's plausible [{}, {}] d ([validate.class_period_median_"
                                "range_d]); the column was read with {}: {}",
                                periods.size(), cls, m, lo, hi, unit_said(s.period_unit), hint)});
+  }
+  for (const auto& [cls, by_column] : s.absolute_mag_by_class) {
+    auto range = o.class_absolute_magnitude_median.find(cls);
+    if (range == o.class_absolute_magnitude_median.end()) continue;
+    const auto [lo, hi] = range->second;
+    for (const auto& [column, mags] : by_column) {
+      if (mags.size() < kMinSample) continue;
+      const double m = median(mags);
+      if (m >= lo && m <= hi) continue;
+      out.push_back(
+          {"absolute_magnitude_median", column,
+           fmt::format("the median absolute magnitude of {} {} stars with parallax / error >= 5 "
+                       "is {:.3g} mag (m + 5 log10(parallax / 100 mas), no extinction), outside "
+                       "the class's plausible [{}, {}] mag ([validate.class_absolute_magnitude_"
+                       "median_range]): is this column a magnitude, and are the parallaxes ({}) "
+                       "in the unit mapped?",
+                       mags.size(), cls, m, lo, hi, s.parallax_column)});
+    }
   }
   return out;
 }

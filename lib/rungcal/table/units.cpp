@@ -40,6 +40,7 @@ const std::vector<UnitEntry>& unit_entries() {
       {QuantityKind::kWavenumber, "1/um", {1.0, false}},
       {QuantityKind::kWavenumber, "um-1", {1.0, false}},
       {QuantityKind::kWavenumber, "1 / um", {1.0, false}},  // as astropy writes it (ECSV)
+      {QuantityKind::kWavenumber, "um**-1", {1.0, false}},  // as the Gaia archive writes it
       {QuantityKind::kWavenumber, "", {1.0, false}},
       {QuantityKind::kDimensionless, "", {1.0, false}},
   };
