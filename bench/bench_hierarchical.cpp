@@ -12,6 +12,7 @@
 #include <fstream>
 #include <string>
 
+#include "hierarchical_bench.hpp"
 #include "rungcal/core/log.hpp"
 #include "rungcal/core/random.hpp"
 #include "rungcal/photometry/photometry.hpp"
@@ -58,30 +59,12 @@ FitData parallax_data(const StarTable& t, double pivot) {
 }  // namespace
 
 int main(int argc, char** argv) {
-  if (argc != 3 && argc != 4) {
-    std::fprintf(stderr, "usage: bench_hierarchical RESAMPLES DATA.csv [STARS]\n");
-    return 2;
-  }
-  const int resamples = std::atoi(argv[1]);
-  if (resamples < 1) {
-    std::fprintf(stderr, "RESAMPLES: at least 1\n");
-    return 2;
-  }
+  const auto args = bench::arguments(argc, argv, "bench_hierarchical", 3000);
+  if (!args) return 2;
+  const int resamples = args->resamples;
   keep_freed_memory_for_reuse();
-  MockScenario scenario;  // the "wesenheit" preset's relation: no extinction term
-  scenario.seed = 2026;
-  scenario.stars = argc == 4 ? std::atoi(argv[3]) : 3000;
-  scenario.sigma_int = 0.08;
-  scenario.alpha = -5.9;
-  scenario.beta = -3.3;
-  scenario.gamma = -0.2;
-  scenario.blend_fraction = 0.03;
-  scenario.parallax_outlier_fraction = 0.03;
-  scenario.feh_error = 0.08;
-  if (const std::string why = scenario.check(); !why.empty()) {
-    std::fprintf(stderr, "scenario: %s\n", why.c_str());
-    return 2;
-  }
+  const MockScenario scenario = bench::contaminated_scenario(args->stars);
+  if (!bench::usable(scenario)) return 2;
   const StarTable catalog = mock_calibrator_catalog(scenario);
 
   FitOptions o;  // the defaults: hierarchical space, smooth histogram, mixture, sigma_int free
@@ -92,25 +75,12 @@ int main(int argc, char** argv) {
   r.metallicity = true;
   o.relations.push_back(r);
 
-  auto clock = [] { return std::chrono::steady_clock::now(); };
-  auto ms_since = [&](auto t0) {
-    return std::chrono::duration<double, std::milli>(clock() - t0).count();
-  };
-  // The bootstrap's time is run_fit with B resamples less run_fit without: the full fit,
-  // covariance and residuals are the same work in both. The smaller of two runs without
-  // stands for that part, so noise from the shared machine does not count against the
-  // resamples.
-  FitResult base;
-  double base_ms = 1e300;
-  for (int k = 0; k < 2; ++k) {
-    auto t0 = clock();
-    base = run_fit(o, catalog);
-    base_ms = std::min(base_ms, ms_since(t0));
-  }
-  o.bootstrap = resamples;
-  auto t1 = clock();
-  FitResult boot = run_fit(o, catalog);
-  const double boot_ms = ms_since(t1) - base_ms;
+  const auto timing = bench::time_bootstrap(resamples, [&](int b) {
+    o.bootstrap = b;
+    return run_fit(o, catalog);
+  });
+  const FitResult& base = timing.base;
+  const FitResult& boot = timing.boot;
 
   const RelationResult& rr = base.relations[0];
   const FitData data = parallax_data(catalog, r.pivot_log_period);
@@ -129,7 +99,7 @@ int main(int argc, char** argv) {
     return 1;
   }
 
-  std::ofstream csv(argv[2]);
+  std::ofstream csv(args->csv);
   csv.precision(17);
   csv << "# x,m0,var_m,plx,var_plx,feh,var_feh\n";
   for (Eigen::Index i = 0; i < data.parallax.size(); ++i)
@@ -138,16 +108,13 @@ int main(int argc, char** argv) {
         << data.parallax.var_feh[i] << "\n";
   csv.close();
   if (!csv) {
-    std::fprintf(stderr, "cannot write %s\n", argv[2]);
+    std::fprintf(stderr, "cannot write %s\n", args->csv.c_str());
     return 1;
   }
 
   const HierarchicalSettings& h = rr.settings.hierarchical;
   std::printf("stars %ld\n", static_cast<long>(data.parallax.size()));
-  std::printf("rungcal_fit_ms %.4f\n", base_ms);
-  std::printf("rungcal_resamples %d\n", resamples);
-  std::printf("rungcal_ms_per_resample %.5f\n", boot_ms / resamples);
-  std::printf("rungcal_threads %d\n", o.threads);
+  bench::print_timing(timing, resamples, o.threads);
   std::printf("bootstrap_failed %d\n", boot.relations[0].bootstrap_failed);
   std::printf("full_iterations %d\n", rr.solution.iterations);
   std::printf("full_termination %s\n", rr.solution.termination.c_str());
@@ -177,28 +144,11 @@ int main(int argc, char** argv) {
   FitSettings relaxed = rr.settings;
   relaxed.function_tolerance = 1e-9;
   relaxed.parameter_tolerance = 1e-8;
-  Random rng(7);
-  const int direct = std::min(resamples, 3);
-  double solve_ms = 0;
-  int iterations = 0;
-  for (int b = 0; b < direct; ++b) {
-    std::vector<Eigen::Index> idx(static_cast<std::size_t>(data.parallax.size()));
-    for (auto& i : idx)
-      i = static_cast<Eigen::Index>(rng.below(static_cast<std::uint64_t>(idx.size())));
-    const FitData sample = data.take(idx, {}, {});
-    auto t0 = clock();
-    const FitSolution s = solve_fit(sample, relaxed, rr.layout, rr.solution.theta);
-    solve_ms += ms_since(t0);
-    iterations += s.iterations;
-    std::printf("direct_resample %d %s\n", b, s.brief_report.c_str());
-  }
-  std::printf("direct_ms_per_resample %.3f\n", solve_ms / direct);
-  std::printf("direct_iterations_per_resample %.1f\n", static_cast<double>(iterations) / direct);
-  auto t2 = clock();
-  const int evaluations = 20;
-  for (int k = 0; k < evaluations; ++k)
-    hierarchical_value(data, rr.settings, rr.layout, rr.solution.theta);
-  std::printf("rungcal_ms_per_evaluation %.3f\n", ms_since(t2) / evaluations);
+  bench::print_direct_solves<Eigen::Index>(
+      resamples, static_cast<std::size_t>(data.parallax.size()),
+      [&](const std::vector<Eigen::Index>& idx) { return data.take(idx, {}, {}); },
+      [&](const FitData& sample) { return solve_fit(sample, relaxed, rr.layout, rr.solution.theta); },
+      [&] { hierarchical_value(data, rr.settings, rr.layout, rr.solution.theta); });
   for (const char* name : {"alpha", "beta", "gamma", "parallax_offset_mas", "sigma_int"})
     std::printf("bootstrap_error %s %.6g\n", name, boot.relations[0].bootstrap_error(name));
   return 0;

@@ -16,34 +16,21 @@ lib/rungcal/plfit/hierarchical.hpp and distance_prior.hpp, vectorised over stars
   p(mu) = sum_j w_j N(mu | c_0 + j h, h^2), w = softmax(eta), eta_0 = 0  (Bovy, Hogg & Roweis 2011)
   [Fe/H] errors marginalised as in Kelly 2007 (ApJ 665, 1489),
   -ln L += sum_j (eta_j - eta_(j-1))^2 / (2 * 1.5^2)    (the random-walk hyperprior)
-The mu integral is Gauss-Hermite quadrature (numpy's hermgauss) centred on each star's
-mode, found by safeguarded Newton steps, with the curvature there as the width (a smooth
-maximum of the exact curvature and a fifth of its Fisher part, so the width, and -ln L,
-are smooth in the parameters).
+The mu integral, the prior and the timed resamples are bench/hierarchical_reference.py's,
+shared with bench/compare_joint_hierarchical.py.
 """
-import os
-import subprocess
 import sys
-import tempfile
 import time
 
 import numpy as np
-from numpy.polynomial.hermite import hermgauss
-from scipy.optimize import minimize
 
-build = sys.argv[1] if len(sys.argv) > 1 else "build"
-rungcal_resamples = int(sys.argv[2]) if len(sys.argv) > 2 else 20
-scipy_resamples = int(sys.argv[3]) if len(sys.argv) > 3 else 10
+from hierarchical_reference import (LOG2PI, bfgs, component, gaussian,
+                                    rule, report_times, run_bench, time_resamples)
 
-with tempfile.TemporaryDirectory() as tmp:
-    path = os.path.join(tmp, "stars.csv")
-    out = subprocess.run([os.path.join(build, "bench", "bench_hierarchical"), str(rungcal_resamples), path],
-                         check=True, capture_output=True, text=True).stdout
-    X, M0, VM, PLX, VP, FEH, VFEH = np.loadtxt(path, delimiter=",", comments="#").T
+lines, (X, M0, VM, PLX, VP, FEH, VFEH), scipy_resamples = run_bench("bench_hierarchical", 20, 10)
 
 info, names, theta_r, modes_r, grad_r = {}, [], [], [], []
-for line in out.splitlines():
-    w = line.split()
+for w in lines:
     if w[0] == "param":
         names.append(w[1]), theta_r.append(float(w[2])), modes_r.append(w[3]), grad_r.append(float(w[4]))
     else:
@@ -66,12 +53,7 @@ WALK = get("histogram_walk_sigma")
 WIDE = get("outlier_mag_width") ** 2
 SHIFT = get("outlier_mag_shift")
 PLX_F2 = get("outlier_parallax_factor") ** 2
-gh_x, gh_w = hermgauss(int(get("quadrature_nodes")))
-NODES = np.sqrt(2.0) * gh_x
-LOGW = np.log(gh_w) + gh_x ** 2
-KC = 0.2 * np.log(10.0)
-LOG2PI = np.log(2.0 * np.pi)
-JB = np.arange(NB, dtype=float)
+MEMBER_RULE = rule(int(get("quadrature_nodes")))
 
 # Internal coordinates: alpha, beta, gamma, offset, ln sigma_int, logit f, eta_1..eta_(B-1),
 # feh_mean, ln feh_spread -- rungcal's order (checked against its names below).
@@ -99,69 +81,11 @@ def to_external(x):
     return t
 
 
-def prior(mu, logw, curvature=True):
-    """ln p(mu) and each bin's responsibility, over all bins; with curvature also
-    d ln p / dmu and d2 ln p / dmu2 (for the mode search)."""
-    d = JB - ((mu - C0) / H)[..., None]
-    a = d * d
-    a *= -0.5
-    a += logw
-    top = a.max(-1, keepdims=True)
-    a -= top
-    r = np.exp(a, out=a)
-    tot = r.sum(-1)
-    r /= tot[..., None]
-    logp = top[..., 0] + np.log(tot) - np.log(H) - 0.5 * LOG2PI
-    if not curvature:
-        return logp, r
-    first = (r * d).sum(-1)
-    second = (r * (d * d - 1.0)).sum(-1)
-    return logp, first / H, (second - first * first) / (H * H), r
-
-
-def component(m, V, plx, vp, mshift, off, logw, cache):
-    """ln of one mixture component's mu integral per star and its derivatives in M, V,
-    offset and the log-weights. cache: each star's last mode, the next Newton start."""
-    def curvature(i, mu):
-        logp, d1, d2, _ = prior(mu, logw)
-        pt = np.exp(-KC * (mu - 10.0))
-        r, e = m[i] - mu - mshift[i], plx[i] - pt - off
-        slope = d1 + r / V[i] - e * KC * pt / vp[i]
-        fisher = 1.0 / V[i] + KC * KC * pt * pt / vp[i] - np.minimum(d2, 0.0)
-        exact = 1.0 / V[i] + KC * KC * pt * (pt - e) / vp[i] - d2
-        floor = 0.2 * fisher  # the quadrature's width: a smooth maximum of exact and floor
-        width_h = 0.5 * (exact + floor + np.sqrt((exact - floor) ** 2 + 0.01 * fisher * fisher))
-        return np.where(exact > floor, exact, fisher), slope, width_h
-
-    mu = np.where(np.isfinite(cache), cache, m - mshift)
-    active = np.arange(len(m))
-    for _ in range(60):
-        h, slope, _ = curvature(active, mu[active])
-        step = np.clip(slope / h, -1.0, 1.0)
-        mu[active] = np.clip(mu[active] + step, -10.0, 60.0)
-        active = active[np.abs(step) >= 1e-10]
-        if active.size == 0:
-            break
-    _, _, width_h = curvature(np.arange(len(m)), mu)
-    cache[:] = mu
-    width = 1.0 / np.sqrt(width_h)
-    muk = mu[:, None] + width[:, None] * NODES
-    logp, resp = prior(muk, logw, curvature=False)
-    pt = np.exp(-KC * (muk - 10.0))
-    r = m[:, None] - muk - mshift[:, None]
-    e = plx[:, None] - pt - off
-    terms = LOGW + logp - 0.5 * r * r / V[:, None] - 0.5 * e * e / vp[:, None]
-    top = terms.max(1)
-    q = np.exp(terms - top[:, None])
-    tot = q.sum(1)
-    q /= tot[:, None]
-    norm = -0.5 * (2.0 * LOG2PI + np.log(V) + np.log(vp))
-    log_l = np.log(np.sqrt(2.0) * width) + top + np.log(tot) + norm
-    d_m = (q * r).sum(1) / V
-    d_v = 0.5 * ((q * r * r).sum(1) - V) / (V * V)
-    d_off = (q * e).sum(1) / vp
-    d_eta = np.einsum("nk,nkb->nb", q, resp)[:, 1:] - np.exp(logw[1:])  # d ln p / d eta_j, j >= 1
-    return log_l, d_m, d_v, d_off, d_eta
+def component_in_m(m, V, plx, vp, mshift, off, logw, cache):
+    """ln of one mixture component's mu integral per star and its derivatives in M (mshift),
+    V, the offset and the log-weights."""
+    c = component(m - mshift, V, 0.0, gaussian, MEMBER_RULE, 1.0, plx, vp, 0.0, off, C0, H, logw, cache)
+    return c[0], -c[1], c[2], c[4], c[6]
 
 
 class Likelihood:
@@ -190,8 +114,8 @@ class Likelihood:
         log_nz = -0.5 * (dz * dz / den + LOG2PI + np.log(den))
         Mi = alpha + beta * self.x + gamma * zbar
         V = self.vm + sigma * sigma + gamma * gamma * wz
-        a = component(self.m, V, self.plx, self.vp, Mi, off, logw, self.cache_member)
-        b = component(self.m, V + WIDE, self.plx, PLX_F2 * self.vp, Mi - SHIFT, off, logw, self.cache_outlier)
+        a = component_in_m(self.m, V, self.plx, self.vp, Mi, off, logw, self.cache_member)
+        b = component_in_m(self.m, V + WIDE, self.plx, PLX_F2 * self.vp, Mi - SHIFT, off, logw, self.cache_outlier)
         la, lb = np.log1p(-f) + a[0], np.log(f) + b[0]
         li = np.logaddexp(la, lb)
         q = np.exp(la - li)
@@ -218,11 +142,7 @@ class Likelihood:
 
 
 def fit(lik, start, gtol):
-    # Dense BFGS, as rungcal's Ceres GradientProblemSolver: L-BFGS-B crawls here (the
-    # offset's curvature is ~1e7 times the log-weights'). gtol on the largest gradient
-    # component, as Ceres' gradient_tolerance.
-    res = minimize(lik, to_internal(start), jac=True, method="BFGS",
-                   options=dict(gtol=gtol, norm=np.inf, maxiter=5000))
+    res = bfgs(lik, to_internal(start), gtol)
     return to_external(res.x), res
 
 
@@ -273,26 +193,11 @@ if not worst <= 1e-6:
 # with its count as weight, the solve started at the full optimum and stopped when the
 # largest gradient component is below 1e-4 (rungcal's bootstrap gradient tolerance; Ceres
 # also stops on a relative cost change below 1e-9, which scipy's BFGS does not offer).
-rng = np.random.default_rng(1)
-times, evals, iters = [], [], []
-for _ in range(scipy_resamples):
-    counts = np.bincount(rng.integers(0, N, N), minlength=N)
-    rows = np.nonzero(counts)[0]
-    t0 = time.perf_counter()
-    lik = Likelihood(rows, counts[rows].astype(float))
-    th, r = fit(lik, theta_s, 1e-4)
-    times.append(time.perf_counter() - t0)
-    evals.append(lik.evaluations)
-    iters.append(r.nit)
-scipy_ms = 1e3 * np.mean(times)
-ours = get("rungcal_ms_per_resample")
-print(f"scipy BFGS:        {scipy_ms:.1f} ms per resample (1 core, {scipy_resamples} resamples, "
-      f"{np.mean(iters):.0f} iterations / {np.mean(evals):.0f} evaluations each; "
-      f"{', '.join(f'{1e3 * t:.0f}' for t in times)} ms)")
-print(f"rungcal bootstrap: {ours:.1f} ms per resample ({info['rungcal_threads'][0][0]} thread, "
-      f"{int(get('rungcal_resamples'))} resamples, {int(get('bootstrap_failed'))} failed; "
-      f"{get('direct_iterations_per_resample'):.0f} iterations and "
-      f"{get('direct_ms_per_resample'):.0f} ms each in {len(info['direct_resample'])} direct solves)")
-print(f"one evaluation of -ln L and gradient, 3000 stars, cold mode search: rungcal "
-      f"{get('rungcal_ms_per_evaluation'):.1f} ms, numpy {numpy_eval_ms:.1f} ms")
-print(f"ratio scipy / rungcal per core: {scipy_ms / ours:.2f}x (target >= 10x)")
+def solve_resample(rows, weights, rng):
+    lik = Likelihood(rows, weights)
+    nit = fit(lik, theta_s, 1e-4)[1].nit
+    return lik.evaluations, nit
+
+
+times, evals, iters = time_resamples(N, scipy_resamples, solve_resample)
+report_times(info, times, evals, iters, numpy_eval_ms, "rungcal bootstrap", f"{N} stars", " (target >= 10x)")

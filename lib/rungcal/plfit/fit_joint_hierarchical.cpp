@@ -112,6 +112,7 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   FitSettings js = joint_settings(o, fits, L, shared_source(fits, feh_errors), start);
   if (!joint_has_parallax(jr.data))
     js.params[static_cast<std::size_t>(L.offset)].mode = ParamMode::kFixed;  // nothing constrains it
+  jr.settings = js;
   const FitSolution sol = solve_joint_hierarchical(jr.data, js, L, start);
   if (!sol.theta.allFinite())
     throw InputError(

@@ -221,6 +221,9 @@ struct JointResult {
   double neg2_log_likelihood = std::numeric_limits<double>::quiet_NaN();
   std::vector<double> membership;
   std::vector<std::string> undetermined;
+  // Hierarchical only: the settings the joint likelihood was solved with (parameter modes
+  // and priors by layout index, the histogram's grid), for joint_hierarchical_value.
+  FitSettings settings;
 };
 
 struct FitResult {

@@ -173,4 +173,17 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
   return t;
 }
 
+StarTable mock_coefficients(const MockScenario& s) {
+  StarTable t;
+  t.add_column("name", ColumnType::kText);
+  t.add_column("a_over_ebv", ColumnType::kReal);
+  t.column("name").push_text("X");
+  t.column("a_over_ebv").push_real(s.extinction_per_ebv);
+  for (const auto& r : s.more_relations) {
+    t.column("name").push_text(r.name);
+    t.column("a_over_ebv").push_real(r.extinction_per_ebv);
+  }
+  return t;
+}
+
 }  // namespace rungcal

@@ -99,6 +99,10 @@ struct MockScenario {
 // m = 15 (an invented law, for simulations only), times parallax_error_scale.
 StarTable mock_calibrator_catalog(const MockScenario& scenario);
 
+// The scenario's A/E(B-V) per band (X, then more_relations), as the deredden stage's COEFFS
+// table gives them to the joint fit (run_fit's coefficients).
+StarTable mock_coefficients(const MockScenario& scenario);
+
 // The scenario's clusters as drawn: their group, true modulus and measured parallax.
 struct MockCluster {
   std::string group;

@@ -60,20 +60,6 @@ void record_joint(const JointResult& j, const std::vector<std::string>& paramete
   }
 }
 
-// The mocks' A/E(B-V) per band, as the deredden stage's COEFFS table gives them to the joint fit.
-StarTable mock_coefficients(const MockScenario& s) {
-  StarTable t;
-  t.add_column("name", ColumnType::kText);
-  t.add_column("a_over_ebv", ColumnType::kReal);
-  t.column("name").push_text("X");
-  t.column("a_over_ebv").push_real(s.extinction_per_ebv);
-  for (const auto& r : s.more_relations) {
-    t.column("name").push_text(r.name);
-    t.column("a_over_ebv").push_real(r.extinction_per_ebv);
-  }
-  return t;
-}
-
 }  // namespace
 
 std::string StudyOptions::check() const {
