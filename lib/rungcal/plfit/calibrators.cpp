@@ -78,23 +78,16 @@ std::string correct_parallax(const FitOptions& o, const StarTable& cat, std::siz
   return "";
 }
 
-// A cluster member's own parallax (own, own_var; 0 variance when it is not used): "" when it
-// is used, else why not. Starts "not a member" when it contradicts the cluster's parallax.
-std::string member_parallax(const FitOptions& o, const ClusterOptions& k, const StarTable& cat, std::size_t r,
-                            const ParallaxTools& tools, StarOutcome& s, double& own, double& own_var) {
-  if (std::string why = correct_parallax(o, cat, r, tools, s); !why.empty()) return why;
-  if (k.has_parallax() && o.cluster_member_max_sigma > 0) {
-    const double z = (s.plx - k.parallax_mas) / std::hypot(s.plx_err, k.parallax_err_mas);
-    if (std::abs(z) > o.cluster_member_max_sigma)
-      return fmt::format(
-          "not a member of cluster {}: its parallax {:.4f} +- {:.4f} mas differs from the cluster's {:.4f} +- "
-          "{:.4f} by {:.1f} sigma (cluster_member_max_sigma = {})",
-          k.group, s.plx, s.plx_err, k.parallax_mas, k.parallax_err_mas, std::abs(z), o.cluster_member_max_sigma);
-  }
-  if (o.space != FitSpace::kHierarchical) return "only the hierarchical space uses members' parallaxes";
-  own = s.plx;
-  own_var = s.plx_err * s.plx_err;
-  return "";
+// Why a star with the corrected parallax s.plx is not a member of cluster k ("" when it may
+// be): its parallax contradicts the cluster's.
+std::string non_member_reason(const FitOptions& o, const ClusterOptions& k, const StarOutcome& s) {
+  if (!k.has_parallax() || !(o.cluster_member_max_sigma > 0)) return "";
+  const double z = (s.plx - k.parallax_mas) / std::hypot(s.plx_err, k.parallax_err_mas);
+  if (!(std::abs(z) > o.cluster_member_max_sigma)) return "";
+  return fmt::format(
+      "not a member of cluster {}: its parallax {:.4f} +- {:.4f} mas differs from the cluster's {:.4f} +- "
+      "{:.4f} by {:.1f} sigma (cluster_member_max_sigma = {})",
+      k.group, s.plx, s.plx_err, k.parallax_mas, k.parallax_err_mas, std::abs(z), o.cluster_member_max_sigma);
 }
 }  // namespace
 
@@ -212,13 +205,18 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
       s.kind = CalibratorKind::kCluster;
       double own = 0.0, own_var = 0.0;
       if (std::isfinite(plx)) {
-        if (std::string why = member_parallax(o, *cluster, cat, r, tools, s, own, own_var); !why.empty()) {
-          if (why.rfind("not a member", 0) == 0) {
-            refuse(why);
+        std::string why = correct_parallax(o, cat, r, tools, s);
+        if (why.empty()) {
+          if (std::string no = non_member_reason(o, *cluster, s); !no.empty()) {
+            refuse(no);
             continue;
           }
-          s.reason = "used without its own parallax: " + why;
+          if (o.space == FitSpace::kHierarchical)
+            own = s.plx, own_var = s.plx_err * s.plx_err;
+          else
+            why = "only the hierarchical space uses members' parallaxes";
         }
+        if (!why.empty()) s.reason = "used without its own parallax: " + why;
       }
       s.member_parallax = own_var > 0;
       push_group_star(static_cast<int>(o.anchors.size() + (cluster - o.clusters.begin())), own, own_var);
@@ -257,15 +255,18 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
     grow(c.data.var_plx, s.plx_err * s.plx_err);
     c.stars.push_back(s);
   }
-  bool any_cluster_parallax = false;
-  for (const ClusterOptions& k : o.clusters) any_cluster_parallax = any_cluster_parallax || k.has_parallax();
-  if (any_cluster_parallax && o.space == FitSpace::kHierarchical) {
-    c.data.group_plx.assign(o.anchors.size(), FitData::GroupParallax{});
-    for (const ClusterOptions& k : o.clusters)
-      c.data.group_plx.push_back(k.has_parallax() ? FitData::GroupParallax{k.parallax_mas, k.parallax_err_mas * k.parallax_err_mas, 1.0}
-                                                 : FitData::GroupParallax{});
-  }
+  c.data.group_plx = cluster_parallaxes(o);
   return c;
+}
+
+std::vector<FitData::GroupParallax> cluster_parallaxes(const FitOptions& o) {
+  const bool any = std::any_of(o.clusters.begin(), o.clusters.end(), [](const auto& k) { return k.has_parallax(); });
+  if (!any || o.space != FitSpace::kHierarchical) return {};
+  std::vector<FitData::GroupParallax> groups(o.anchors.size());
+  for (const ClusterOptions& k : o.clusters)
+    groups.push_back(k.has_parallax() ? FitData::GroupParallax{k.parallax_mas, k.parallax_err_mas * k.parallax_err_mas, 1.0}
+                                      : FitData::GroupParallax{});
+  return groups;
 }
 
 namespace {

@@ -62,10 +62,6 @@ void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& d
         static_cast<double>(std::count(drawn.begin(), drawn.end(), g));
 }
 
-void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& drawn, FitData& sample) {
-  weigh_cluster_parallaxes(terms, drawn, sample.group_plx);
-}
-
 void forget_undrawn_clusters(const ModelTerms& terms, int anchor0, const std::vector<int>& drawn,
                              Eigen::VectorXd& theta) {
   for (int g = terms.n_anchors - terms.n_clusters; g < terms.n_anchors; ++g)
@@ -116,25 +112,28 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
   settings.function_tolerance = 1e-9;
   settings.parameter_tolerance = 1e-8;
   settings.initial_trust_region_radius = 1e8;
+  // Each group's anchor stars, found once: every resample draws from them.
+  const ModelTerms& terms = rr.settings.terms;
+  std::vector<std::vector<Eigen::Index>> group_stars;
+  for (int g = 0; g < terms.n_anchors; ++g) group_stars.push_back(group_members(data, g));
   auto solve = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
     auto draw = [&](Eigen::Index n) {
       std::vector<Eigen::Index> idx(static_cast<std::size_t>(n));
       for (auto& i : idx) i = static_cast<Eigen::Index>(rng.below(static_cast<std::uint64_t>(n)));
       return idx;
     };
-    const ModelTerms& terms = rr.settings.terms;
     std::vector<Eigen::Index> ai;
     // Anchors are resampled within each galaxy so each keeps its stars.
     for (int g = 0; g < terms.n_anchors - terms.n_clusters; ++g) {
-      const std::vector<Eigen::Index> members = group_members(data, g);
+      const std::vector<Eigen::Index>& members = group_stars[static_cast<std::size_t>(g)];
       for (std::size_t k = 0; k < members.size(); ++k)
         ai.push_back(members[rng.below(members.size())]);
     }
     const std::vector<int> drawn_clusters = draw_clusters(terms, rng);
     for (int g : drawn_clusters)
-      for (Eigen::Index i : group_members(data, g)) ai.push_back(i);
+      for (Eigen::Index i : group_stars[static_cast<std::size_t>(g)]) ai.push_back(i);
     FitData sample = data.take(draw(data.parallax.size()), draw(data.known.size()), ai);
-    weigh_cluster_parallaxes(terms, drawn_clusters, sample);
+    weigh_cluster_parallaxes(terms, drawn_clusters, sample.group_plx);
     // Each prior's centre is redrawn from its own Gaussian, so the resamples carry the
     // prior's uncertainty as the covariance does (method brief, section 4b).
     FitSettings drawn = settings;
@@ -177,8 +176,8 @@ std::vector<double> bootstrap_column(const RelationResult& rr, int j) {
 }
 
 // Every bootstrap resample's parameters, one row per resample and parameter (NaN for a
-// cluster the resample did not draw, or
-// failed resample), so a user can form any statistic of them.
+// failed resample, or a cluster the resample did not draw), so a user can form any
+// statistic of them.
 StarTable bootstrap_table(const FitResult& result) {
   StarTable t;
   t.add_column("relation", ColumnType::kText, "", "relation, or 'joint'");

@@ -34,11 +34,6 @@ void take_parameter(const RelationResult& rr, int from, int to, FitSettings& js,
   start[to] = rr.solution.theta[from];
 }
 
-bool joint_has_parallax(const JointData& d) {
-  return std::any_of(d.var_plx.begin(), d.var_plx.end(), [](double v) { return v > 0; }) ||
-         std::any_of(d.group_plx.begin(), d.group_plx.end(), [](const FitData::GroupParallax& g) { return g.var > 0; });
-}
-
 FitSettings joint_settings(const FitOptions& o, const std::vector<RelationResult>& fits,
                            const JointLayout& L, const RelationResult& shared,
                            Eigen::VectorXd& start) {
@@ -110,7 +105,7 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   check_joint_sample(o, coefficients, jr);
   Eigen::VectorXd start;
   FitSettings js = joint_settings(o, fits, L, shared_source(fits, feh_errors), start);
-  if (!joint_has_parallax(jr.data))
+  if (!jr.data.has_parallax())
     js.params[static_cast<std::size_t>(L.offset)].mode = ParamMode::kFixed;  // nothing constrains it
   jr.settings = js;
   const FitSolution sol = solve_joint_hierarchical(jr.data, js, L, start);

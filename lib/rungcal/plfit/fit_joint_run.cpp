@@ -40,7 +40,7 @@ double coefficient_of(const StarTable* coefficients, const std::string& name) {
 }  // namespace
 
 JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
-                        const StarTable* coefficients, bool& any_parallax) {
+                        const StarTable* coefficients) {
   JointData d;
   // Entries: every relation in which a star was used, as whichever kind of calibrator.
   d.relations = static_cast<int>(fits.size());
@@ -53,7 +53,6 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
       if (groups[a] == g) return static_cast<int>(a);
     return -1;
   };
-  any_parallax = false;
   for (std::size_t row = 0; row < cat.rows(); ++row) {
     int added = 0, kind = -1;
     double plx = 0, plx_err = 0;
@@ -82,7 +81,6 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
     }
     if (added == 0) continue;
     const bool own = kind == 0 || (kind == 2 && member_parallax);
-    any_parallax = any_parallax || own;
     d.kind.push_back(kind);
     d.plx.push_back(own ? plx : 0.0);
     d.var_plx.push_back(own ? plx_err * plx_err : 0.0);
@@ -99,10 +97,7 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
     d.row.push_back(row);
   }
   d.first.push_back(static_cast<int>(d.relation.size()));
-  for (const RelationResult& rr : fits)
-    if (!rr.group_plx.empty()) d.group_plx = rr.group_plx;
-  any_parallax = any_parallax || std::any_of(d.group_plx.begin(), d.group_plx.end(),
-                                             [](const FitData::GroupParallax& g) { return g.var > 0; });
+  d.group_plx = cluster_parallaxes(o);
   return d;
 }
 
@@ -152,8 +147,7 @@ void check_joint_sample(const FitOptions& o, const StarTable* coefficients, Join
 JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
                       const StarTable& cat, const StarTable* coefficients) {
   if (o.space == FitSpace::kHierarchical) {
-    bool any_parallax = false;  // run_joint_hierarchical sees it in the data
-    return run_joint_hierarchical(o, fits, joint_data_of(o, fits, cat, coefficients, any_parallax), coefficients);
+    return run_joint_hierarchical(o, fits, joint_data_of(o, fits, cat, coefficients), coefficients);
   }
   JointResult jr;
   jr.method = "gls";
@@ -200,10 +194,9 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   start[L.offset] = o.offset.mode == ParamMode::kFixed
                         ? o.offset.value
                         : offset_sum / static_cast<double>(fits.size());
-  bool any_parallax = false;
   JointData& d = jr.data;
-  d = joint_data_of(o, fits, cat, coefficients, any_parallax);
-  if (!any_parallax) js.fixed[L.offset] = true;  // nothing constrains it
+  d = joint_data_of(o, fits, cat, coefficients);
+  if (!d.has_parallax()) js.fixed[L.offset] = true;  // nothing constrains it
   check_joint_sample(o, coefficients, jr);
   jr.n_free = static_cast<int>(std::count(js.fixed.begin(), js.fixed.end(), false));
   jr.solution = solve_joint(d, js, L, start);

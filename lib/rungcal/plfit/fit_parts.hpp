@@ -34,6 +34,9 @@ struct ParallaxTools {
 Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
                                const StarTable& cat, const ParallaxTools& tools,
                                const ParamSpec& offset);
+// The clusters' parallaxes by group (anchors first, with none), FitData::group_plx: empty
+// when no cluster has one or outside the hierarchical space, where none enters as a term.
+std::vector<FitData::GroupParallax> cluster_parallaxes(const FitOptions& o);
 // Data rows with nothing to constrain a parameter make the fit degenerate; says so plainly
 // (exit 2), with the refusals grouped by reason.
 void check_constrained(const FitOptions& o, const RelationOptions& rel, const Calibrators& c,
@@ -65,7 +68,6 @@ std::vector<int> draw_clusters(const ModelTerms& terms, Random& rng);
 // Each cluster's parallax term counted as often as its cluster was drawn.
 void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& drawn,
                               std::vector<FitData::GroupParallax>& groups);
-void weigh_cluster_parallaxes(const ModelTerms& terms, const std::vector<int>& drawn, FitData& sample);
 // A cluster not drawn has no data in its resample: its modulus there is NaN, not a value, so
 // its bootstrap spread comes from the resamples that drew it.
 void forget_undrawn_clusters(const ModelTerms& terms, int anchor0, const std::vector<int>& drawn,
@@ -78,9 +80,8 @@ std::vector<double> bootstrap_column(const RelationResult& rr, int j);
 StarTable bootstrap_table(const FitResult& result);
 
 // The calibrators used in any of the relations, each with its entries (fit_joint_run.cpp).
-// any_parallax: whether one of them is a parallax calibrator.
 JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
-                        const StarTable* coefficients, bool& any_parallax);
+                        const StarTable* coefficients);
 // The joint fit's bootstrap (FitOptions::joint_resamples()): jr.data's stars resampled
 // within their strata (parallax, known distance, each anchor galaxy; clusters whole), each sample solved by
 // `solve` (nullopt: failed); fills jr.bootstrap and jr.bootstrap_failed.

@@ -99,7 +99,6 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     rr.settings.hierarchical = grid;
     hold_unconstrained(c, rr);
     rr.stars = c.stars;
-    rr.group_plx = c.data.group_plx;
     if (!hierarchical)
       for (const ClusterOptions& k : o.clusters)
         if (k.has_parallax())

@@ -193,7 +193,6 @@ struct RelationResult {
   Eigen::MatrixXd bootstrap;  // resamples x parameters
   int bootstrap_failed = 0;
   std::vector<StarOutcome> stars;
-  std::vector<FitData::GroupParallax> group_plx;  // the clusters' parallaxes used (FitData's)
   std::vector<std::string> undetermined;  // free parameters the data could not determine (no error)
   double chi2 = 0, neg2_log_likelihood = 0, aic = 0, bic = 0;
   int dof = 0, n_used = 0, n_clipped = 0, n_free = 0;

@@ -120,6 +120,11 @@ void build_problem(ceres::Problem& problem, const JointData& d, const JointSetti
 
 }  // namespace
 
+bool JointData::has_parallax() const {
+  return std::any_of(var_plx.begin(), var_plx.end(), [](double v) { return v > 0; }) ||
+         std::any_of(group_plx.begin(), group_plx.end(), [](const FitData::GroupParallax& g) { return g.var > 0; });
+}
+
 JointData JointData::take(const std::vector<int>& stars) const {
   JointData o;
   o.relations = relations;

@@ -28,6 +28,8 @@ struct JointData {
   std::vector<FitData::GroupParallax> group_plx;  // per group: a cluster's parallax (FitData's)
   std::vector<std::size_t> row;    // per star: catalog row
   int stars() const { return static_cast<int>(plx.size()); }
+  // Whether any star or cluster has a parallax: the offset is measured only then.
+  bool has_parallax() const;
   // The stars given by index (repeats allowed), with all their entries: a bootstrap sample.
   JointData take(const std::vector<int>& stars) const;
 };
