@@ -95,7 +95,7 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   app.add_option("--outlier-width", study.fit.outlier_width.value, "outlier component's extra width (mag)")
       ->capture_default_str();
-  bool free_outlier_shape = false, fix_correlation = false;
+  bool free_outlier_shape = false, fix_correlation = false, grey_blend_model = false;
   app.add_flag("--fit-outlier-shape", free_outlier_shape, "fit the outlier component's shift and width");
   std::string blend_component(rungcal::kBlendComponentNames.name(rungcal::HierarchicalSettings{}.blends));
   double blend_scale_prior = 0;
@@ -115,6 +115,8 @@ int main(int argc, char** argv) {
                  "the mocks' correlation of a star's scatter between relations (joint)")
       ->capture_default_str();
   app.add_flag("--fix-scatter-correlation", fix_correlation, "hold the joint fit's correlation at the truth");
+  app.add_flag("--grey-blend-model", grey_blend_model,
+               "hold the joint fit's blend ratios at 1 (the model's blends grey)");
   app.add_option("--clusters", study.scenario.clusters, "clusters per mock, each fitted with its cluster parallax")
       ->capture_default_str();
   app.add_option("--cluster-members", study.scenario.cluster_members, "stars per cluster")->capture_default_str();
@@ -182,6 +184,7 @@ int main(int argc, char** argv) {
       study.parameters.push_back("parallax_offset_mas");
       study.fit.joint_scatter_correlation.value = study.scenario.scatter_correlation;
       if (fix_correlation) study.fit.joint_scatter_correlation.mode = rungcal::ParamMode::kFixed;
+      if (grey_blend_model) study.fit.joint_blend_ratio = {rungcal::ParamMode::kFixed, 1.0, 0, true};
     }
     rungcal::throw_if_invalid(study.check(), "(command line)");
     const auto level = spdlog::get_level();

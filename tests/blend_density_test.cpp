@@ -106,5 +106,75 @@ TEST(BlendDensity, RisingDensityIsTheConvolutionOfTheMemberGaussianWithAGamma2) 
   }
 }
 
+// The coloured blend density (the joint fit's: a brightening kappa b of the reduced magnitude
+// and a colour residual -t b - D b^2 / 2) against its definition by the midpoint rule,
+//   lambda^(1+k) / k! int_0^inf b^k N(r + kappa b | 0, V) exp(-(lambda + t) b - D b^2 / 2) db;
+// equal to the grey densities at kappa = 1, D = t = 0; each derivative against central
+// differences; log-concave in r.
+TEST(BlendDensity, ColouredDensityIsItsDefiningIntegralAndGreyAtUnitRatio) {
+  struct Case {
+    double var, mean;
+    BlendColour colour;
+  };
+  const Case cases[] = {{0.04, 0.5, {1.3, 2.0, -0.4}},
+                        {0.0064, 0.3, {0.7, 12.0, 1.5}},
+                        {0.09, 0.2, {1.0, 0.5, 0.0}},
+                        {0.01, 0.4, {2.2, 0.0, 3.0}}};
+  for (const Case& c : cases)
+    for (bool rising : {false, true}) {
+      const double lambda = (rising ? 2.0 : 1.0) / c.mean;
+      for (double r : {-2.0, -0.6, -0.1, 0.0, 0.15, 0.5}) {
+        double sum = 0;
+        const double db = 1e-4;
+        for (double b = 0.5 * db; b < 80 / lambda + 20 * std::sqrt(c.var); b += db) {
+          const double y = r + c.colour.kappa * b;
+          sum += (rising ? lambda * lambda * b : lambda) *
+                 std::exp(-(lambda + c.colour.tilt) * b - 0.5 * c.colour.curvature * b * b) *
+                 std::exp(-0.5 * y * y / c.var) / std::sqrt(2 * std::numbers::pi * c.var) * db;
+        }
+        const double ours =
+            std::exp(coloured_blend_log_density(r, c.var, c.mean, c.colour, rising).log_density);
+        EXPECT_NEAR(ours, sum, 2e-6 * std::max(1.0, sum)) << r << " rising " << rising;
+      }
+      for (double r : {-3.0, -0.4, 0.1, 0.8, 4.0}) {
+        const ColouredBlendDensity d = coloured_blend_log_density(r, c.var, c.mean, c.colour, rising);
+        auto at = [&](double dr, double dv, double ds, double dk, double dd, double dt) {
+          BlendColour k{c.colour.kappa + dk, c.colour.curvature + dd, c.colour.tilt + dt};
+          return coloured_blend_log_density(r + dr, c.var + dv, c.mean + ds, k, rising);
+        };
+        const double h = 1e-6;
+        auto diff = [&](double ColouredBlendDensity::*field, int which) {
+          double up[6] = {0, 0, 0, 0, 0, 0}, down[6] = {0, 0, 0, 0, 0, 0};
+          up[which] = h, down[which] = -h;
+          return (at(up[0], up[1], up[2], up[3], up[4], up[5]).*field -
+                  at(down[0], down[1], down[2], down[3], down[4], down[5]).*field) /
+                 (2 * h);
+        };
+        using D = ColouredBlendDensity;
+        const std::pair<double, double> checks[] = {
+            {d.d_r, diff(&D::log_density, 0)},     {d.d2_r, diff(&D::d_r, 0)},
+            {d.d_var, diff(&D::log_density, 1)},   {d.d_scale, diff(&D::log_density, 2)},
+            {d.d_kappa, diff(&D::log_density, 3)}, {d.d_curvature, diff(&D::log_density, 4)},
+            {d.d_tilt, diff(&D::log_density, 5)}};
+        for (std::size_t k = 0; k < std::size(checks); ++k)
+          EXPECT_NEAR(checks[k].first, checks[k].second, 2e-5 * std::max(1.0, std::abs(checks[k].second)))
+              << "derivative " << k << " at r = " << r << " rising " << rising;
+        EXPECT_LT(d.d2_r, 0.0) << "log-concave at " << r;
+      }
+    }
+  for (double r : {-2.0, -0.3, 0.0, 0.4, 3.0, 9.0}) {
+    const ColouredBlendDensity e = coloured_blend_log_density(r, 0.04, 0.5, {}, false);
+    const BlendDensity grey = blend_log_density(r, 0.04, 0.5);
+    const ColouredBlendDensity er = coloured_blend_log_density(r, 0.04, 0.5, {}, true);
+    const BlendDensity grey_r = blend_rising_log_density(r, 0.04, 0.5);
+    for (auto [ours, theirs] : {std::pair{e.log_density, grey.log_density}, {e.d_r, grey.d_r},
+                                {e.d2_r, grey.d2_r}, {e.d_var, grey.d_var}, {e.d_scale, grey.d_scale},
+                                {er.log_density, grey_r.log_density}, {er.d_r, grey_r.d_r},
+                                {er.d2_r, grey_r.d2_r}, {er.d_var, grey_r.d_var},
+                                {er.d_scale, grey_r.d_scale}})
+      EXPECT_NEAR(ours, theirs, 1e-9 * std::max(1.0, std::abs(theirs))) << r;
+  }
+}
+
 }  // namespace
 }  // namespace rungcal

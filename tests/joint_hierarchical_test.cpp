@@ -140,6 +140,9 @@ JointCase joint_case(int relations) {
   c.theta[L.feh_mean] = 0.03, c.theta[L.feh_spread] = 0.17;
   c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7;
   c.theta[L.blend] = 0.12, c.theta[L.blend_scale] = 0.45;
+  // Coloured blends: a companion adds more light in the second relation, less in the third.
+  constexpr double kRatio[3] = {1.0, 1.4, 0.7};
+  for (int r = 1; r < relations; ++r) c.theta[L.blend_ratio[static_cast<std::size_t>(r)]] = kRatio[r];
   return c;
 }
 
@@ -150,6 +153,8 @@ double joint_value(const JointCase& c, const Eigen::VectorXd& theta) {
 std::vector<hier::Scale> joint_scales(const JointLayout& L) {
   std::vector<hier::Scale> s(static_cast<std::size_t>(L.size), hier::Scale::kLinear);
   for (int j : L.sigma) s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
+  for (int j : L.blend_ratio)
+    if (j >= 0) s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
   for (int j :
        {L.outlier_width, L.blend_scale, L.distance_scale, L.distance_exponent, L.feh_spread})
     s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
@@ -196,6 +201,64 @@ TEST(JointHierarchical, OneRelationIsTheSingleRelationLikelihood) {
   }
 }
 
+// The Python (numpy, scipy) that sets up one star of joint_case(3) at c's parameters: its
+// magnitudes m, the model's M, the magnitudes' full covariance S (scatter correlation, E(B-V)
+// and [Fe/H] terms written out) and the space-density prior over mu, `prior(mu)`.
+std::string star_model_python(const JointCase& c, const Star& s) {
+  const JointLayout& L = c.layout;
+  auto vec = [&](const std::vector<int>& idx) {
+    std::ostringstream o;
+    o << std::setprecision(17) << "np.array([" << c.theta[idx[0]] << "," << c.theta[idx[1]] << ","
+      << c.theta[idx[2]] << "])";
+    return o.str();
+  };
+  std::ostringstream py;
+  py << std::setprecision(17);
+  py << "import numpy as np\nfrom scipy import stats, integrate\nfrom scipy.special import gammaln\n";
+  py << "m = np.array([" << s.m0[0] << "," << s.m0[1] << "," << s.m0[2] << "])\n";
+  py << "kind, x, z, plx = " << s.kind << ", " << s.x << ", " << s.feh << ", " << s.plx << "\n";
+  py << "alpha, beta = " << vec(L.alpha) << ", " << vec(L.beta) << "\n";
+  py << "gamma, sig = " << vec(L.gamma) << ", " << vec(L.sigma) << "\n";
+  py << "rho, off = " << c.theta[L.correlation] << ", " << c.theta[L.offset] << "\n";
+  py << "Ls, k, a = " << c.theta[L.distance_scale] << ", " << c.theta[L.distance_power] << ", "
+     << c.theta[L.distance_exponent] << "\n";
+  py << "muz, tau = " << c.theta[L.feh_mean] << ", " << c.theta[L.feh_spread] << "\n";
+  py << R"(s2 = 0.08**2
+den = tau**2 + s2
+zbar = (tau**2 * z + s2 * muz) / den
+W = tau**2 * s2 / den
+M = alpha + beta * x + gamma * zbar
+c = np.array([3.1, 1.9, 0.0])
+S = np.diag(0.02**2 * np.array([1.0, 2.0, 3.0]) + sig**2)
+for i in range(3):
+    for j in range(3):
+        if i != j:
+            S[i, j] = rho * sig[i] * sig[j]
+S += np.outer(c, c) * 0.02**2 + np.outer(gamma, gamma) * W
+def prior(mu):
+    # the generalised-gamma space density in distance d (kpc) = 10^(0.2 mu - 2), per unit mu
+    d = 10 ** (0.2 * mu - 2.0)
+    logp = np.log(a) - gammaln((k + 1) / a) - (k + 1) * np.log(Ls) + k * np.log(d) - (d / Ls) ** a
+    return np.exp(logp) * d * 0.2 * np.log(10)
+)";
+  return py.str();
+}
+
+// -ln L of one star by scipy: star_model_python, then `body`, which sets the star's likelihood
+// `L_star` (its magnitudes and parallax), then the [Fe/H] population's factor. NaN on failure.
+double scipy_star_neg_log_l(const JointCase& c, const Star& s, const std::string& body) {
+  const test::CommandResult py_run = test::run_python(star_model_python(c, s) + body + R"(
+lnL = np.log(L_star) + stats.norm(muz, np.sqrt(den)).logpdf(z)
+print(repr(-lnL))
+)");
+  const std::vector<double> scipy = test::parse_numbers(py_run.output);
+  if (py_run.exit_code != 0 || scipy.size() != 1u) {
+    ADD_FAILURE() << py_run.output;
+    return std::nan("");
+  }
+  return scipy[0];
+}
+
 // One parallax star seen in three relations, member component only, the space-density prior
 // with fixed hyperparameters: -ln L against scipy, which integrates the 3-variate Gaussian
 // density of the magnitudes (multivariate_normal with the full covariance, E(B-V), scatter
@@ -215,53 +278,13 @@ TEST(JointHierarchical, StarLikelihoodEqualsScipyIntegralOfTheMultivariateDensit
     one.data = c.data.take({star});
     const double ours = joint_value(one, one.theta);
     const Star& s = stars()[static_cast<std::size_t>(star)];
-    std::ostringstream py;
-    py << std::setprecision(17);
-    py << "import numpy as np\nfrom scipy import stats, integrate\n";
-    py << "m = np.array([" << s.m0[0] << "," << s.m0[1] << "," << s.m0[2] << "])\n";
-    py << "x, z, plx = " << s.x << ", " << s.feh << ", " << s.plx << "\n";
-    py << "alpha = np.array([" << c.theta[L.alpha[0]] << "," << c.theta[L.alpha[1]] << ","
-       << c.theta[L.alpha[2]] << "])\n";
-    py << "beta = np.array([" << c.theta[L.beta[0]] << "," << c.theta[L.beta[1]] << ","
-       << c.theta[L.beta[2]] << "])\n";
-    py << "gamma = np.array([" << c.theta[L.gamma[0]] << "," << c.theta[L.gamma[1]] << ","
-       << c.theta[L.gamma[2]] << "])\n";
-    py << "sig = np.array([" << c.theta[L.sigma[0]] << "," << c.theta[L.sigma[1]] << ","
-       << c.theta[L.sigma[2]] << "])\n";
-    py << "rho, off = " << c.theta[L.correlation] << ", " << c.theta[L.offset] << "\n";
-    py << "Ls, k, a = " << c.theta[L.distance_scale] << ", " << c.theta[L.distance_power] << ", "
-       << c.theta[L.distance_exponent] << "\n";
-    py << "muz, tau = " << c.theta[L.feh_mean] << ", " << c.theta[L.feh_spread] << "\n";
-    py << R"(s2 = 0.08**2
-den = tau**2 + s2
-zbar = (tau**2 * z + s2 * muz) / den
-W = tau**2 * s2 / den
-M = alpha + beta * x + gamma * zbar
-c = np.array([3.1, 1.9, 0.0])
-S = np.diag(0.02**2 * np.array([1.0, 2.0, 3.0]) + sig**2)
-for i in range(3):
-    for j in range(3):
-        if i != j:
-            S[i, j] = rho * sig[i] * sig[j]
-S += np.outer(c, c) * 0.02**2 + np.outer(gamma, gamma) * W
-from scipy.special import gammaln
-def prior(mu):
-    # the generalised-gamma space density in distance d (kpc) = 10^(0.2 mu - 2), per unit mu
-    d = 10 ** (0.2 * mu - 2.0)
-    logp = np.log(a) - gammaln((k + 1) / a) - (k + 1) * np.log(Ls) + k * np.log(d) - (d / Ls) ** a
-    return np.exp(logp) * d * 0.2 * np.log(10)
+    const double scipy = scipy_star_neg_log_l(c, s, R"(
 def f(mu):
     return (stats.multivariate_normal(M + mu, S).pdf(m) * stats.norm(10 ** (-0.2 * (mu - 10)) + off, 0.03).pdf(plx)
             * prior(mu))
-mode = integrate.quad(f, -5, 30, points=[10 - 5 * np.log10(max(plx - off, 0.01))], limit=400, epsabs=0, epsrel=1e-12)
-lnL = np.log(mode[0]) + stats.norm(muz, np.sqrt(den)).logpdf(z)
-print(repr(-lnL))
-)";
-    const test::CommandResult py_run = test::run_python(py.str());
-    ASSERT_EQ(py_run.exit_code, 0) << py_run.output;
-    const std::vector<double> scipy = test::parse_numbers(py_run.output);
-    ASSERT_EQ(scipy.size(), 1u) << py_run.output;
-    EXPECT_NEAR(ours, scipy[0], 2e-6) << "star " << star;
+L_star = integrate.quad(f, -5, 30, points=[10 - 5 * np.log10(max(plx - off, 0.01))], limit=400, epsabs=0, epsrel=1e-12)[0]
+)");
+    EXPECT_NEAR(ours, scipy, 2e-6) << "star " << star;
   }
 }
 
@@ -289,6 +312,92 @@ TEST(JointHierarchical, GradientEqualsCentralDifferencesOfTheLikelihood) {
   expect_gradient_matches_differences(c);
   c.settings.hierarchical.blends = BlendComponent::kExponential;
   expect_gradient_matches_differences(c);
+}
+
+// Coloured blends: one star of each kind seen in three relations, the member and the blend
+// components (outliers off), blend brightenings kappa_k (b0 + b) with ratios (1, 1.4, 0.7):
+// -ln L against scipy, which integrates the 3-variate Gaussian density of the magnitudes
+// brightened by kappa (b0 + b) over b (the blend's Gamma(2) or exponential density) and mu
+// (parallax and space-density prior) with Simpson's rule and quad, or over b alone by quad at a
+// given modulus.
+TEST(JointHierarchical, ColouredBlendStarLikelihoodEqualsScipyDoubleIntegral) {
+  JointCase c = joint_case(3);
+  const JointLayout& L = c.layout;
+  c.settings.params[static_cast<std::size_t>(L.outlier)] = ParamSpec{ParamMode::kFixed, 0.0, 0, true};
+  c.theta[L.outlier] = 0;
+  c.settings.params[static_cast<std::size_t>(L.anchor0)] = ParamSpec{};
+  c.settings.params[static_cast<std::size_t>(L.gamma[0])] = ParamSpec{};
+  // One star of each kind for the rising component, a parallax star and the anchor's for the
+  // exponential one.
+  const std::pair<BlendComponent, int> cases[] = {{BlendComponent::kRising, 0},
+                                                  {BlendComponent::kRising, 6},
+                                                  {BlendComponent::kRising, 7},
+                                                  {BlendComponent::kExponential, 2},
+                                                  {BlendComponent::kExponential, 7}};
+  for (auto [kind, star] : cases) {
+      JointCase one = c;
+      one.settings.hierarchical.blends = kind;
+      one.data = c.data.take({star});
+      const double ours = joint_value(one, one.theta);
+      const Star& s = stars()[static_cast<std::size_t>(star)];
+      std::ostringstream py;
+      py << std::setprecision(17);
+      py << "mu_gal, fb, s = " << c.theta[L.anchor0] << ", " << c.theta[L.blend] << ", "
+         << c.theta[L.blend_scale] << "\n";
+      py << "kappa = np.array([1.0, " << c.theta[L.blend_ratio[1]] << ", "
+         << c.theta[L.blend_ratio[2]] << "])\n";
+      py << "b0, rising = " << c.settings.hierarchical.blend_min_mag << ", "
+         << (kind == BlendComponent::kRising ? "True" : "False") << "\n";
+      py << R"(
+def pb(b):
+    th = s / 2 if rising else s
+    return b * np.exp(-b / th) / th**2 if rising else np.exp(-b / th) / th
+class Gauss:
+    # the 3-variate normal density, its inverse and determinant once (scipy's pdf per call is slow)
+    def __init__(self, cov):
+        self.P = np.linalg.inv(cov)
+        self.norm = 1.0 / np.sqrt((2 * np.pi) ** 3 * np.linalg.det(cov))
+        self.check = stats.multivariate_normal(np.zeros(3), cov)
+    def pdf(self, d):
+        return self.norm * np.exp(-0.5 * d @ self.P @ d)
+mvn = Gauss(S)
+mvn_known = Gauss(S + 0.05**2)
+d_test = np.array([0.1, -0.05, 0.02])
+assert abs(mvn.pdf(d_test) / mvn.check.pdf(d_test) - 1) < 1e-12
+def dist(mu):
+    return stats.norm(10 ** (-0.2 * (mu - 10)) + off, 0.03).pdf(plx) * prior(mu)
+if kind == 0:
+    mu0 = 10 - 5 * np.log10(max(plx - off, 0.01))
+    member = integrate.quad(lambda mu: mvn.pdf(m - M - mu) * dist(mu), -5, 30, points=[mu0],
+                            limit=400, epsabs=0, epsrel=1e-12)[0]
+    # over b by Simpson's rule on a fine grid (vectorised), over mu by quad
+    bs = np.linspace(0, 6, 12001)
+    Pb = pb(bs)
+    def over_b(mu):
+        d = (m - M - mu)[None, :] + np.outer(b0 + bs, kappa)
+        return integrate.simpson(mvn.norm * np.exp(-0.5 * np.einsum('ij,jk,ik->i', d, mvn.P, d)) * Pb, x=bs)
+    blend = integrate.quad(lambda mu: over_b(mu) * dist(mu), mu0 - 4, mu0 + 4, points=[mu0],
+                           limit=400, epsabs=0, epsrel=1e-10)[0]
+else:
+    mu, dist_mvn = (14.2, mvn_known) if kind == 1 else (mu_gal, mvn)
+    member = dist_mvn.pdf(m - M - mu)
+    blend = integrate.quad(lambda b: dist_mvn.pdf(m - M - mu + kappa * (b0 + b)) * pb(b), 0, 8,
+                           epsabs=0, epsrel=1e-12, limit=400)[0]
+L_star = (1 - fb) * member + fb * blend
+)";
+      EXPECT_NEAR(ours, scipy_star_neg_log_l(c, s, py.str()), 2e-6) << "star " << star;
+    }
+}
+
+// Free ratios at 1 take the coloured path; fixed at 1 the grey one: the same likelihood.
+TEST(JointHierarchical, UnitBlendRatiosAreGreyBlends) {
+  JointCase c = joint_case(3);
+  for (std::size_t r = 1; r < 3; ++r) c.theta[c.layout.blend_ratio[r]] = 1.0;
+  const double coloured = joint_value(c, c.theta);
+  for (std::size_t r = 1; r < 3; ++r)
+    c.settings.params[static_cast<std::size_t>(c.layout.blend_ratio[r])] =
+        ParamSpec{ParamMode::kFixed, 1.0, 0, true};
+  EXPECT_NEAR(coloured, joint_value(c, c.theta), 1e-8);
 }
 
 // The anchor made a cluster (FitOptions::clusters): its two stars with parallaxes of their
@@ -357,11 +466,12 @@ TEST(JointHierarchical,
   c.theta[L.feh_mean] = 0.03, c.theta[L.feh_spread] = 0.17;
   c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7;
   c.theta[L.blend] = 0.05, c.theta[L.blend_scale] = 0.6;
+  c.theta[L.blend_ratio[1]] = 1.2, c.theta[L.blend_ratio[2]] = 0.8;
   for (int j = 0; j < L.distance_bins; ++j) c.theta[L.distance_bin0 + j] = 0.3 * std::sin(j + 1.0);
   const std::vector<hier::Scale> scales = [&] {
     std::vector<hier::Scale> s(static_cast<std::size_t>(L.size), hier::Scale::kLinear);
     for (int j : L.sigma) s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
-    for (int j : {L.outlier_width, L.blend_scale, L.feh_spread})
+    for (int j : {L.outlier_width, L.blend_scale, L.feh_spread, L.blend_ratio[1], L.blend_ratio[2]})
       s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
     s[static_cast<std::size_t>(L.outlier)] = s[static_cast<std::size_t>(L.blend)] =
         hier::Scale::kLogit;

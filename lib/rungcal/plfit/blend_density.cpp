@@ -86,3 +86,46 @@ BlendDensity blend_rising_log_density(double r, double var, double mean) {
 }
 
 }  // namespace rungcal
+
+namespace rungcal {
+
+ColouredBlendDensity coloured_blend_log_density(double r, double var, double mean,
+                                                const BlendColour& colour, bool rising) {
+  const double k_rise = rising ? 1.0 : 0.0;
+  const double lambda = (1.0 + k_rise) / mean, lam = lambda + colour.tilt;
+  const double kappa = colour.kappa, curv = colour.curvature;
+  const double A = kappa * kappa / var + curv, root_a = std::sqrt(A);
+  const double B = kappa * r / var + lam, z = -B / root_a;
+  double log_cdf = 0, psi = 0, m1 = 0;
+  normal_log_cdf(z, log_cdf, psi, m1);
+  double b1 = 1.0 - psi * m1;
+  if (z < -5.0) mean_excess_far_tail(-z, psi, m1, b1);
+  // H(z) = z^2/2 + ln Phi(z) [+ ln(z + psi) when rising]: H' = z + g1, H'' = 1 + g2, with
+  // g1 and g2 kept apart from z and 1 (they are tiny on the bright side).
+  double g1 = psi, g2 = -psi * m1;
+  ColouredBlendDensity d;
+  d.log_density = (1.0 + k_rise) * std::log(lambda) - 0.5 * std::log(var * A) +
+                  (2.0 * kappa * r * lam + lam * lam * var - curv * r * r) / (2.0 * var * A) +
+                  log_cdf;
+  if (rising) {
+    d.log_density += std::log(m1) - 0.5 * std::log(A);
+    g1 += b1 / m1;
+    g2 += (psi * (m1 * m1 - b1) * m1 - b1 * b1) / (m1 * m1);
+  }
+  const double h1 = z + g1;
+  const double z_r = -kappa / (var * root_a);
+  const double z_v = kappa * r / (var * var * root_a) + z * kappa * kappa / (2.0 * A * var * var);
+  const double z_kappa = -r / (var * root_a) - z * kappa / (var * A);
+  const double gap = r * curv - kappa * lam;  // r A - B kappa
+  d.d_r = -gap / (var * A) + g1 * z_r;
+  d.d2_r = -curv / (var * A) + g2 * z_r * z_r;
+  d.d_var = -0.5 / var + gap * gap / (2.0 * var * var * A * A) +
+            (1.0 + k_rise) * kappa * kappa / (2.0 * A * var * var) + g1 * z_v;
+  d.d_scale = -(1.0 + k_rise) / mean + lambda * h1 / (mean * root_a);
+  d.d_kappa = -(1.0 + k_rise) * kappa / (var * A) + h1 * z_kappa;
+  d.d_curvature = -(1.0 + k_rise) / (2.0 * A) - h1 * z / (2.0 * A);
+  d.d_tilt = -h1 / root_a;
+  return d;
+}
+
+}  // namespace rungcal

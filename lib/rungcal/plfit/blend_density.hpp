@@ -32,4 +32,32 @@ BlendDensity blend_log_density(double r, double var, double scale);
 // blend_log_density, so the two share one parameter and one prior.
 BlendDensity blend_rising_log_density(double r, double var, double mean);
 
+// A blend whose brightening differs between bands, as the joint fit sees it after reducing a
+// star's bands to one magnitude (joint_hierarchical.hpp): the brightening b in the first
+// relation's band moves the reduced magnitude by kappa b and leaves a colour residual whose
+// log-likelihood is -tilt b - curvature b^2 / 2. With kappa = 1 and the other two 0 the blend
+// is grey and the density is blend_log_density's or blend_rising_log_density's.
+struct BlendColour {
+  double kappa = 1.0;      // the reduced magnitude's brightening per unit b
+  double curvature = 0.0;  // D >= 0: how fast the colour residual grows with b
+  double tilt = 0.0;       // t: the colour residual's slope in b at b = 0
+};
+struct ColouredBlendDensity : BlendDensity {
+  double d_kappa = 0, d_curvature = 0, d_tilt = 0;
+};
+// The density of the reduced residual r,
+//   p(r) = lambda^(1+k) / k! int_0^inf b^k N(r + kappa b | 0, V) exp(-(lambda + t) b - D b^2 / 2) db,
+// k = 0 (Exp(mean s), lambda = 1 / s) or k = 1 (rising: Gamma(2, mean s), lambda = 2 / s).
+// Completing the square in b with A = kappa^2 / V + D, B = kappa r / V + lambda + t and
+// z = -B / sqrt(A), int_0^inf exp(-A b^2/2 - B b) db = sqrt(2 pi / A) exp(z^2/2) Phi(z) and
+// int_0^inf b exp(...) db = that times (z + psi) / sqrt(A) (derived in docs/method.md, "Coloured
+// blends"; tested against quadrature in tests/blend_density_test.cpp):
+//   ln p = (1+k) ln lambda - ln(V A) / 2 + (2 kappa r lambda' + lambda'^2 V - D r^2) / (2 V A)
+//          + ln Phi(z) + k [ln(z + psi) - ln(A) / 2],   lambda' = lambda + t,
+// (the third term is z^2/2 - r^2/(2V) without cancellation), log-concave in r. Derivatives:
+// for any argument x, d ln p / dx = -(1+k) A_x / (2A) + H'(z) z_x plus its explicit terms, with
+// H' = z + psi + k (1 - psi (z + psi)) / (z + psi) and z_x = -B_x / sqrt(A) - z A_x / (2A).
+ColouredBlendDensity coloured_blend_log_density(double r, double var, double mean,
+                                                const BlendColour& colour, bool rising);
+
 }  // namespace rungcal

@@ -53,6 +53,8 @@ inline bool component_on(const std::vector<ParamSpec>& params, int j) {
 struct Component {
   double log_l = 0, d_m = 0, d_v = 0, d_off = 0, d_log_scale = 0, d_power = 0, d_exponent = 0;
   double d_blend_scale = 0;  // the blend component's only
+  // The coloured blend component's only (ColouredBlendMagnitude): d/d kappa, D and t.
+  double d_blend_kappa = 0, d_blend_curvature = 0, d_blend_tilt = 0;
   double d_prior_mu = 0;     // E[d ln p(mu) / d mu]: the histogram grid moves with alpha
 };
 
@@ -60,6 +62,7 @@ struct Component {
 // derivatives in r (first and second), in the magnitude variance V and in the blend scale.
 struct MagnitudePoint {
   double log_p = 0, d_r = 0, d2_r = 0, d_v = 0, d_scale = 0;
+  double d_kappa = 0, d_curvature = 0, d_tilt = 0;  // ColouredBlendMagnitude's only
 };
 
 // N(r | 0, V): the member and the broad outlier component.
@@ -71,6 +74,7 @@ struct GaussianMagnitude {
     return {log_norm - 0.5 * r * z, -z, -1.0 / var, 0.5 * (z * z - 1.0 / var), 0.0};
   }
   static constexpr double kWidthFactor = 1.0;  // the quadrature's width in curvature widths
+  static constexpr bool kColoured = false;
 };
 
 // The blend component's magnitude term: the exponentially modified Gaussian
@@ -91,6 +95,23 @@ struct BlendMagnitude {
   // variance V + s^2 as the width is worse (1e-2). Where the tail spans the prior's range
   // (noisy parallaxes, s >= 0.45 mag) 24 nodes leave 1e-6, so the blend takes more (blend_nodes).
   static constexpr double kWidthFactor = 1.3;
+  static constexpr bool kColoured = false;
+};
+
+// A blend whose brightening differs between the joint fit's relations
+// (coloured_blend_log_density): BlendMagnitude's term with the colour residual's terms.
+struct ColouredBlendMagnitude {
+  double var, scale;
+  bool rising;
+  BlendColour colour;
+  ColouredBlendMagnitude(double v, double s, BlendComponent kind, const BlendColour& c)
+      : var(v), scale(s), rising(kind == BlendComponent::kRising), colour(c) {}
+  MagnitudePoint at(double r) const {
+    const ColouredBlendDensity b = coloured_blend_log_density(r, var, scale, colour, rising);
+    return {b.log_density, b.d_r, b.d2_r, b.d_var, b.d_scale, b.d_kappa, b.d_curvature, b.d_tilt};
+  }
+  static constexpr double kWidthFactor = BlendMagnitude::kWidthFactor;
+  static constexpr bool kColoured = true;
 };
 
 // The blend component's node count: 5/3 of the member's (40 for 24), which brings
@@ -142,6 +163,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   double top = -std::numeric_limits<double>::infinity();
   Component c;
   double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, s_b = 0, s_p = 0, total = 0;
+  double s_kappa = 0, s_curv = 0, s_tilt = 0;
   double e_of[128];
   MagnitudePoint mp_of[128];
   DistancePriorTerms pr_of[128];
@@ -172,6 +194,11 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     s_k += w * pr_of[k].d_power;
     s_a += w * pr_of[k].d_exponent;
     s_p += w * pr_of[k].d_mu;
+    if constexpr (Magnitude::kColoured) {
+      s_kappa += w * mp_of[k].d_kappa;
+      s_curv += w * mp_of[k].d_curvature;
+      s_tilt += w * mp_of[k].d_tilt;
+    }
   }
   const double inv = 1.0 / total;
   if (prior.histogram && d_bins) {
@@ -192,6 +219,9 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   c.d_power = s_k * inv;
   c.d_exponent = s_a * inv;
   c.d_prior_mu = s_p * inv;
+  c.d_blend_kappa = s_kappa * inv;
+  c.d_blend_curvature = s_curv * inv;
+  c.d_blend_tilt = s_tilt * inv;
   return c;
 }
 
@@ -205,6 +235,9 @@ Component given_modulus(double m, const Magnitude& mag, double mu, double m_shif
   c.d_m = -p.d_r;
   c.d_v = p.d_v;
   c.d_blend_scale = p.d_scale;
+  c.d_blend_kappa = p.d_kappa;
+  c.d_blend_curvature = p.d_curvature;
+  c.d_blend_tilt = p.d_tilt;
   return c;
 }
 

@@ -74,6 +74,8 @@ FitSettings joint_settings(const FitOptions& o, const std::vector<RelationResult
   take_parameter(shared, shared.layout.feh_spread, L.feh_spread, js, start);
   js.params[static_cast<std::size_t>(L.correlation)] = o.joint_scatter_correlation;
   start[L.correlation] = o.joint_scatter_correlation.value;
+  for (int j : L.blend_ratio)
+    if (j >= 0) js.params[static_cast<std::size_t>(j)] = o.joint_blend_ratio, start[j] = o.joint_blend_ratio.value;
   // The histogram's grid: the first relation's, where its fit left it, moving from here on
   // with the mean of the alphas.
   double alpha_mean = 0;

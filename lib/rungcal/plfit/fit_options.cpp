@@ -125,6 +125,9 @@ std::string FitOptions::check() const {
     if (std::string e = check_domain("fit.joint_scatter_correlation", joint_scatter_correlation, -1.0, false, 1.0);
         !e.empty())
       return e;
+    if (std::string e = check_domain("fit.joint_blend_ratio", joint_blend_ratio, 0.0, false, 20.0);
+        !e.empty())
+      return e;
   } else if (!(joint_scatter_correlation.value >= 0.0 && joint_scatter_correlation.value < 1.0)) {
     return "fit.joint_scatter_correlation: must be in [0, 1) (the GLS joint fit)";
   }
@@ -280,6 +283,7 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.joint = f->bool_or("joint", o.joint);
   o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
   o.joint_scatter_correlation = param_from(*f, "joint_scatter_correlation", o.joint_scatter_correlation);
+  o.joint_blend_ratio = param_from(*f, "joint_blend_ratio", o.joint_blend_ratio);
   // Checked as read: 2^31-1 used to wrap to a negative count or ask for 30 GB.
   const std::int64_t bootstrap = f->integer_or("bootstrap", o.bootstrap);
   if (bootstrap < 0 || bootstrap > kMaxBootstrap)

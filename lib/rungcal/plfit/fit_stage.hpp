@@ -116,6 +116,11 @@ struct FitOptions {
   // (the GLS joint fit always holds it at its value, 0 unless given); free by default in the
   // hierarchical joint fit.
   ParamSpec joint_scatter_correlation;
+  // A blend's brightening in each relation over its brightening in the first (hierarchical
+  // joint fit with blends): free by default, one ratio per relation after the first, each
+  // starting at this value; a bare number fixes them all (1: grey blends). Companions are
+  // seldom the Cepheid's colour: grey blends biased a V, I, K joint fit (docs/method.md).
+  ParamSpec joint_blend_ratio{ParamMode::kFree, 1.0, 0, true};
   int bootstrap = 0;                     // resamples over stars (0: none)
   // The joint fit's resamples (-1: as bootstrap): each solves every relation at once, so a
   // smaller count keeps a nightly run short.

@@ -51,6 +51,9 @@ struct JointLayout {
   int distance_scale = -1, distance_power = -1, distance_exponent = -1;
   int distance_bin0 = -1, distance_bins = 0;
   int feh_mean = -1, feh_spread = -1;
+  // Per relation (hierarchical, with blends): a blend's brightening in the relation over its
+  // brightening in the first relation's (-1 for the first: 1 by definition).
+  std::vector<int> blend_ratio;
   static JointLayout make(const std::vector<std::string>& relation_names, const std::vector<bool>& metallicity,
                           bool shared_slope, const std::vector<std::string>& anchors = {});
   // The hierarchical joint layout: the shared parameters are those of `shared` (a single

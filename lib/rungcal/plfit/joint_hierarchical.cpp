@@ -31,6 +31,7 @@ std::vector<Scale> scales_of(const JointLayout& L) {
     if (j >= 0) s[static_cast<std::size_t>(j)] = scale;
   };
   for (int j : L.sigma) set(j, Scale::kLog);
+  for (int j : L.blend_ratio) set(j, Scale::kLog);
   set(L.correlation, Scale::kAtanh);
   set(L.outlier, Scale::kLogit);
   set(L.blend, Scale::kLogit);
@@ -74,6 +75,29 @@ Reduced reduce(const SmallVector& r, const SmallMatrix& S) {
 }
 
 class JointEvaluator final : public Objective {
+ private:
+  // The coloured blend component's terms of d ln L / d r, d S and d kappa (the ratios),
+  // weighted by the star's blend probability q: with h = P kappa - kappa_eff P 1,
+  // d kappa_eff = -p^T dS h / a + p^T dkappa / a, dD = -h^T dS h + 2 h^T dkappa and
+  // dt = h^T dr - h^T dS u + u^T dkappa (t = kappa^T u; matrix calculus as for m_eff).
+  void add_blend_colour_gradient(const Reduced& red, const SmallVector& hk, const Component& blend,
+                                 double b0, double q, int e0, SmallVector& gr, SmallMatrix& G,
+                                 Eigen::VectorXd& g) const {
+    // The component's derivatives in (kappa_eff, D, t) through the shift -kappa_eff b0, the
+    // tilt t + b0 D and the constant -b0 t - b0^2 D / 2.
+    const double d_kappa = blend.d_blend_kappa - b0 * blend.d_m;
+    const double d_tilt = blend.d_blend_tilt - b0;
+    const double d_curv = blend.d_blend_curvature + b0 * blend.d_blend_tilt - 0.5 * b0 * b0;
+    gr += q * d_tilt * hk;
+    G -= q * (0.5 * d_kappa / red.a * (red.p * hk.transpose() + hk * red.p.transpose()) +
+              d_curv * hk * hk.transpose() +
+              0.5 * d_tilt * (hk * red.u.transpose() + red.u * hk.transpose()));
+    for (Eigen::Index k = 0; k < hk.size(); ++k) {
+      const int j = L_.blend_ratio[static_cast<std::size_t>(d_.relation[static_cast<std::size_t>(e0 + k)])];
+      if (j >= 0) g[j] += q * (d_kappa * red.p[k] / red.a + 2.0 * d_curv * hk[k] + d_tilt * red.u[k]);
+    }
+  }
+
  public:
   JointEvaluator(const JointData& d, const FitSettings& s, const JointLayout& L)
       : d_(d),
@@ -85,6 +109,10 @@ class JointEvaluator final : public Objective {
             prior_rows(s.params, AnchorBlock{L.anchor0, L.n_anchors - s.terms.n_clusters, s.anchor_prior_correlation})) {
     mixture_ = component_on(s.params, L.outlier);
     blends_ = component_on(s.params, L.blend);
+    for (int j : L.blend_ratio)
+      if (j >= 0 && !(s.params[static_cast<std::size_t>(j)].mode == ParamMode::kFixed &&
+                      s.params[static_cast<std::size_t>(j)].value == 1.0))
+        coloured_ = blends_;
   }
 
   double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad) override {
@@ -166,6 +194,27 @@ class JointEvaluator final : public Objective {
         return kInf;
       }
       const double v_eff = 1.0 / red.a;
+      // A coloured blend (the header): its brightening kappa_k (b0 + b) moves m_eff by
+      // kappa_eff (b0 + b) and leaves the colour term c - (b0 + b) t - (b0 + b)^2 D / 2.
+      const double b0 = h.blend_min_mag;
+      BlendColour colour;
+      SmallVector kap, hk;
+      double tilt = 0;
+      if (coloured_) {
+        kap.resize(K);
+        for (int k = 0; k < K; ++k) {
+          const int j = L_.blend_ratio[static_cast<std::size_t>(d_.relation[static_cast<std::size_t>(e0 + k)])];
+          kap[k] = j >= 0 ? t[j] : 1.0;
+        }
+        colour.kappa = red.p.dot(kap) / red.a;
+        hk = red.P * kap - colour.kappa * red.p;
+        colour.curvature = std::max(0.0, kap.dot(hk));
+        tilt = kap.dot(red.u);
+        colour.tilt = tilt + b0 * colour.curvature;
+      }
+      const double blend_shift = coloured_ ? -colour.kappa * b0 : -b0;
+      const double blend_colour_log_l =
+          coloured_ ? -b0 * tilt - 0.5 * b0 * b0 * colour.curvature : 0.0;
       Component member, outlier, blend;
       std::optional<OwnParallax> own;
       if (kind == 0) {
@@ -176,7 +225,12 @@ class JointEvaluator final : public Objective {
           outlier = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff + wide), d_.plx[si],
                                        plx_factor2 * d_.var_plx[si], -shift, offset, prior,
                                        k_.member_rule, k_.mode_outlier[si], k_.bins_outlier.data());
-        if (blends_)
+        if (coloured_)
+          blend = integrate_parallax(
+              red.m_eff, ColouredBlendMagnitude(v_eff, blend_scale, h.blends, colour), d_.plx[si],
+              d_.var_plx[si], blend_shift, offset, prior, k_.blend_rule, k_.mode_blend[si],
+              k_.bins_blend.data());
+        else if (blends_)
           blend = integrate_parallax(red.m_eff, BlendMagnitude(v_eff, blend_scale, h.blends),
                                      d_.plx[si], d_.var_plx[si], -h.blend_min_mag, offset, prior,
                                      k_.blend_rule, k_.mode_blend[si], k_.bins_blend.data());
@@ -185,7 +239,11 @@ class JointEvaluator final : public Objective {
         const double var = v_eff + (kind == 1 ? d_.var_mu[si] : 0.0);
         member = given_modulus(red.m_eff, GaussianMagnitude(var), mu, 0.0);
         if (mixture_) outlier = given_modulus(red.m_eff, GaussianMagnitude(var + wide), mu, -shift);
-        if (blends_)
+        if (coloured_)
+          blend = given_modulus(red.m_eff,
+                                ColouredBlendMagnitude(var, blend_scale, h.blends, colour), mu,
+                                blend_shift);
+        else if (blends_)
           blend = given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu,
                                 -h.blend_min_mag);
         if (kind == 2 && d_.var_plx[si] > 0) {
@@ -193,6 +251,7 @@ class JointEvaluator final : public Objective {
           own->add_to(member, outlier, blend);
         }
       }
+      blend.log_l += blend_colour_log_l;
       double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;
       if (mixture_ || blends_) {
         const double a = log_w_member + member.log_l;
@@ -218,11 +277,12 @@ class JointEvaluator final : public Objective {
       };
       // d ln L / d m_eff and / d (1/a), then / d r and / d S (the header's factorisation).
       const double d_meff = -mix(&Component::d_m), d_veff = mix(&Component::d_v);
-      const SmallVector gr = d_meff / red.a * red.p - red.u;
-      const SmallMatrix G =
+      SmallVector gr = d_meff / red.a * red.p - red.u;
+      SmallMatrix G =
           -d_meff / (2.0 * red.a) * (red.p * red.u.transpose() + red.u * red.p.transpose()) +
           (d_veff / (red.a * red.a) + 0.5 / red.a) * red.p * red.p.transpose() - 0.5 * red.P +
           0.5 * red.u * red.u.transpose();
+      if (coloured_) add_blend_colour_gradient(red, hk, blend, b0, q_blend, e0, gr, G, g);
       const SmallVector Gg = G * gam;
       for (int k = 0; k < K; ++k) {
         const auto e = static_cast<std::size_t>(e0 + k);
@@ -290,6 +350,7 @@ class JointEvaluator final : public Objective {
   StarIntegrals k_;
   std::vector<PriorRow> priors_;
   bool mixture_ = true, blends_ = false;
+  bool coloured_ = false;  // blends brighten the relations by different amounts
 };
 
 }  // namespace
@@ -324,6 +385,9 @@ JointLayout JointLayout::make_hierarchical(const std::vector<std::string>& names
   L.outlier_width = copy(shared.outlier_width);
   L.blend = copy(shared.blend);
   L.blend_scale = copy(shared.blend_scale);
+  L.blend_ratio.assign(names.size(), -1);
+  if (L.blend >= 0)
+    for (std::size_t r = 1; r < names.size(); ++r) L.blend_ratio[r] = add("blend_ratio_" + names[r]);
   L.distance_scale = copy(shared.distance_scale);
   L.distance_power = copy(shared.distance_power);
   L.distance_exponent = copy(shared.distance_exponent);
@@ -373,7 +437,9 @@ bool joint_hierarchical_covariance(const JointData& data, const FitSettings& set
     const bool edge = scatter_gone ||
                       (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
                                        j == layout.outlier_width)) ||
-                      (no_blends && (j == layout.blend || j == layout.blend_scale));
+                      (no_blends && (j == layout.blend || j == layout.blend_scale ||
+                                     std::find(layout.blend_ratio.begin(), layout.blend_ratio.end(),
+                                               j) != layout.blend_ratio.end()));
     if (edge) {
       undetermined.push_back(layout.names[static_cast<std::size_t>(j)]);
       covariance(j, j) = kNaN;

@@ -96,7 +96,12 @@ nlohmann::json MockScenario::truth() const {
       t["alpha_" + name] = a, t["beta_" + name] = b, t["gamma_" + name] = g, t["sigma_int_" + name] = s;
     };
     add("X", alpha, beta, gamma, sigma_int);
-    for (const auto& r : more_relations) add(r.name, r.alpha, r.beta, r.gamma, r.sigma_int);
+    for (const auto& r : more_relations) {
+      add(r.name, r.alpha, r.beta, r.gamma, r.sigma_int);
+      // A coloured companion's brightening ratio depends on the companion's light (Pogson per
+      // band): no single true value, so only grey blends have one.
+      if (r.companion_colour == 1.0) t["blend_ratio_" + r.name] = 1.0;
+    }
     return t;
   }
   return {{"alpha", alpha},       {"beta", beta},         {"gamma", gamma},        {"sigma_int", sigma_int},
