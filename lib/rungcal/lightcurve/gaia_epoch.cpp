@@ -206,7 +206,8 @@ SourceTable read_gaia_epochs(const TableSourceSpec& spec, const std::vector<std:
   for (const auto& d : dropped) flagged += d.flagged, missing += d.missing;
   spdlog::info(
       "Gaia epoch photometry: {} epochs kept, {} dropped by rejection flags, {} with a "
-      "missing value (per star and band: SUMMARY dropped_<band>)",
+      "missing value (per source and band: SUMMARY "
+      "flagged_<band>, missing_<band>)",
       t.rows(), flagged, missing);
   return out;
 }
