@@ -218,10 +218,14 @@ TEST(GaiaEpoch, TheStageRecoversThePeriodsAndRecordsTheDroppedEpochs) {
   test::TempDir dir;
   write_gaia_files(dir);
   test::write_text(dir.file("lc.toml"), gaia_config("gaia.fits"));
-  const auto run = test::run_stage("lightcurve", "--config " + dir.file("lc.toml"));
+  const auto run = test::run_stage("lightcurve", "--verbose --config " + dir.file("lc.toml"));
   ASSERT_EQ(run.exit_code, 0) << run.output;
-  // The log says what was dropped.
+  // The log says what was dropped, in all and per source and band.
   EXPECT_NE(run.output.find("4 dropped by rejection flags, 2 with a missing value"),
+            std::string::npos)
+      << run.output;
+  EXPECT_NE(run.output.find("4101234567890123457 BP: 2 epochs dropped (0 flagged, 2 with a "
+                            "missing value)"),
             std::string::npos)
       << run.output;
   const SourceTable s = read_fits_table(dir.file("out/lc.fits"), {"SUMMARY", 0});

@@ -48,10 +48,12 @@ void add_dropped_epoch_columns(const std::vector<GaiaDroppedEpochs>& dropped,
                                    "Gaia epochs in " + b + " dropped by a rejection flag");
     Column& missing = t.add_column("missing_" + b, ColumnType::kInteger, "",
                                    "Gaia epochs in " + b + " dropped for a missing value");
-    for (const auto& s : stars) {
-      auto it = by_star.find({s.id, b});
-      flagged.push_integer(it == by_star.end() ? 0 : it->second->flagged);
-      missing.push_integer(it == by_star.end() ? 0 : it->second->missing);
+    // The table has its rows already: the new columns come sized to them, all null.
+    for (std::size_t r = 0; r < stars.size(); ++r) {
+      auto it = by_star.find({stars[r].id, b});
+      flagged.integer[r] = it == by_star.end() ? 0 : it->second->flagged;
+      missing.integer[r] = it == by_star.end() ? 0 : it->second->missing;
+      flagged.null[r] = missing.null[r] = 0;
     }
   }
 }
