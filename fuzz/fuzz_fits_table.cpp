@@ -8,6 +8,7 @@
 #include <cstdint>
 #include <cstdio>
 #include <string>
+#include <vector>
 
 #include "rungcal/core/error.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -23,6 +24,10 @@ extern "C" int LLVMFuzzerTestOneInput(const std::uint8_t* data, std::size_t size
     for (std::size_t c = 0; c < t.table.columns(); ++c)
       for (std::size_t r = 0; r < t.table.rows() && r < 1000; ++r)
         (void)t.table.column(c).as_real(r);
+    // Again with every vector and variable-length column read as arrays (Gaia epoch layout).
+    std::vector<std::string> arrays;
+    for (const auto& [name, why] : t.unusable_columns) arrays.push_back(name);
+    if (!arrays.empty()) (void)rungcal::read_fits_table(path, {}, arrays);
   } catch (const rungcal::InputError&) {
   }
   std::remove(path.c_str());

@@ -53,6 +53,18 @@ printf '%s\n' '<?xml version="1.0"?>' '<VOTABLE version="1.4"><RESOURCE><TABLE>'
   '<DATA><TABLEDATA><TR><TD>Vell 1</TD><TD>0.5</TD><TD>3</TD><TD>T</TD></TR>' \
   '<TR><TD>Vell-2</TD><TD>NaN</TD><TD>-1</TD><TD/></TR></TABLEDATA></DATA></TABLE></RESOURCE></VOTABLE>' \
   > "$seeds/fuzz_votable_table/seed1"
+# Array columns as Gaia epoch photometry has them (invented source ids).
+printf '%s\n' '# %ECSV 1.0' '# ---' '# datatype:' '# - {name: source_id, datatype: int64}' \
+  "# - {name: g_transit_time, datatype: string, subtype: 'float64[null]'}" \
+  "# - {name: variability_flag_g_reject, datatype: string, subtype: 'bool[null]'}" \
+  'source_id g_transit_time variability_flag_g_reject' '17 [1706.5,null,NaN] [false,true,false]' \
+  '18 [] []' > "$seeds/fuzz_ecsv_table/seed2"
+printf '%s\n' '<?xml version="1.0"?>' '<VOTABLE version="1.4"><RESOURCE><TABLE>' \
+  '<FIELD name="source_id" datatype="long"/><FIELD name="t" datatype="double" arraysize="*"/>' \
+  '<FIELD name="rej" datatype="bit" arraysize="*"/><FIELD name="n" datatype="int" arraysize="3"><VALUES null="-1"/></FIELD>' \
+  '<DATA><TABLEDATA><TR><TD>17</TD><TD>1706.5 NaN 1710.25</TD><TD>010</TD><TD>1 -1 3</TD></TR>' \
+  '<TR><TD>18</TD><TD/><TD>1 0</TD><TD>4 5 6</TD></TR></TABLEDATA></DATA></TABLE></RESOURCE></VOTABLE>' \
+  > "$seeds/fuzz_votable_table/seed2"
 find config -name '*.toml' -exec cp {} "$seeds/fuzz_config/" \;
 
 status=0

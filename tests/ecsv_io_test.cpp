@@ -5,6 +5,8 @@
 // the published text table, with the same column map.
 #include <gtest/gtest.h>
 
+#include <cmath>
+
 #include "rungcal/core/error.hpp"
 #include "rungcal/ingest/ingest.hpp"
 #include "rungcal/table/catalog_schema.hpp"
@@ -24,6 +26,42 @@ std::string rule_of(const std::string& content) {
     return e.rule() + " | " + e.what();
   }
   return "accepted";
+}
+
+TEST(Ecsv, ArrayColumnsAskedForAreReadPerRow) {
+  // ECSV 1.0 (astropy APE 6): a variable-length array column has datatype string and a
+  // subtype such as float64[null], each cell a JSON array; astropy writes NaN as NaN and a
+  // masked element as null.
+  const std::string content =
+      "# %ECSV 1.0\n# ---\n# datatype:\n# - {name: id, datatype: int64}\n"
+      "# - {name: t, unit: d, datatype: string, subtype: 'float64[null]'}\n"
+      "# - {name: rej, datatype: string, subtype: 'bool[null]'}\n"
+      "id t rej\n"
+      "1 [1.5,2.25,null,NaN] [true,false,false,true]\n"
+      "2 \"[ 3e2 , -1 ]\" [false,false]\n"
+      "3 [] []\n";
+  EXPECT_EQ(parse_ecsv_table(content, "t.ecsv").unusable_columns.count("t"), 1u);
+  const SourceTable s = parse_ecsv_table(content, "t.ecsv", {"t", "rej"});
+  const auto& t = s.arrays.at("t");
+  EXPECT_EQ(t.unit, "d");
+  ASSERT_EQ(t.rows.size(), 3u);
+  ASSERT_EQ(t.rows[0].size(), 4u);
+  EXPECT_EQ(t.rows[0][1], 2.25);
+  EXPECT_TRUE(std::isnan(t.rows[0][2]) && std::isnan(t.rows[0][3]));
+  EXPECT_EQ(t.rows[1], (std::vector<double>{300.0, -1.0}));
+  EXPECT_TRUE(t.rows[2].empty());
+  EXPECT_TRUE(s.arrays.at("rej").logical);
+  EXPECT_EQ(s.arrays.at("rej").rows[0], (std::vector<double>{1, 0, 0, 1}));
+  // A cell that is not a flat JSON array of the subtype's values: its line and column.
+  for (const char* bad : {"[1.5,[2]]", "[1.5,x]", "1.5", "[1.5,]", "[true]"}) {
+    try {
+      parse_ecsv_table(test::replaced(content, {{"[1.5,2.25,null,NaN]", bad}}), "t.ecsv", {"t"});
+      ADD_FAILURE() << bad << " accepted";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "ecsv_value") << bad;
+      EXPECT_NE(std::string(e.what()).find("t.ecsv:line 8: column 't'"), std::string::npos) << e.what();
+    }
+  }
 }
 
 TEST(Ecsv, RungcalReadsWhatAstropyWrites) {

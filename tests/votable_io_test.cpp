@@ -4,6 +4,8 @@
 // name their rule and line.
 #include <gtest/gtest.h>
 
+#include <cmath>
+
 #include "rungcal/core/error.hpp"
 #include "rungcal/table/votable_io.hpp"
 #include "rungcal/table/units.hpp"
@@ -91,6 +93,51 @@ TEST(VOTable, NullValuesAndTypesFromTheFields) {
   EXPECT_TRUE(t.table.column("parallax").is_null(1));
   EXPECT_TRUE(t.table.column("flag").is_null(1));
   EXPECT_EQ(t.source_rows, (std::vector<std::int64_t>{8, 9}));  // the TR lines
+}
+
+TEST(VOTable, ArrayColumnsAskedForAreReadPerRow) {
+  // VOTable 1.4, section 6.1: a TABLEDATA array's elements are separated by whitespace; a
+  // bit array may run together ("1001"); NaN and the VALUES null marker are nulls.
+  const std::string content =
+      "<?xml version=\"1.0\"?>\n<VOTABLE><RESOURCE><TABLE>\n"
+      "<FIELD name=\"source_id\" datatype=\"long\"/>\n"
+      "<FIELD name=\"t\" datatype=\"double\" arraysize=\"*\" unit=\"d\"/>\n"
+      "<FIELD name=\"n\" datatype=\"int\" arraysize=\"*\"><VALUES null=\"-9\"/></FIELD>\n"
+      "<FIELD name=\"rej\" datatype=\"bit\" arraysize=\"*\"/>\n"
+      "<FIELD name=\"ok\" datatype=\"boolean\" arraysize=\"*\"/>\n"
+      "<DATA><TABLEDATA>\n"
+      "<TR><TD>1</TD><TD> 1.5  2.25\nNaN </TD><TD>3 -9 4</TD><TD>1001</TD><TD>T F ?</TD></TR>\n"
+      "<TR><TD>2</TD><TD></TD><TD>7</TD><TD>0 1</TD><TD/></TR>\n"
+      "</TABLEDATA></DATA></TABLE></RESOURCE></VOTABLE>\n";
+  const SourceTable plain = parse_votable_table(content, "t.vot");
+  EXPECT_TRUE(plain.arrays.empty());
+  EXPECT_EQ(plain.unusable_columns.count("t"), 1u);
+  const SourceTable t = parse_votable_table(content, "t.vot", {"t", "n", "rej", "ok", "absent"});
+  ASSERT_EQ(t.arrays.size(), 4u);
+  EXPECT_EQ(t.unusable_columns.count("t"), 0u);
+  const auto& time = t.arrays.at("t");
+  EXPECT_EQ(time.unit, "d");
+  ASSERT_EQ(time.rows.size(), 2u);
+  ASSERT_EQ(time.rows[0].size(), 3u);
+  EXPECT_EQ(time.rows[0][1], 2.25);
+  EXPECT_TRUE(std::isnan(time.rows[0][2]));
+  EXPECT_TRUE(time.rows[1].empty());
+  EXPECT_TRUE(std::isnan(t.arrays.at("n").rows[0][1]));
+  EXPECT_EQ(t.arrays.at("n").rows[1], (std::vector<double>{7}));
+  EXPECT_TRUE(t.arrays.at("rej").logical);
+  EXPECT_EQ(t.arrays.at("rej").rows[0], (std::vector<double>{1, 0, 0, 1}));
+  EXPECT_EQ(t.arrays.at("rej").rows[1], (std::vector<double>{0, 1}));
+  EXPECT_EQ(t.arrays.at("ok").rows[0][1], 0.0);
+  EXPECT_TRUE(std::isnan(t.arrays.at("ok").rows[0][2]));
+  EXPECT_EQ(t.table.column("source_id").integer[1], 2);
+  // An element that is not of the FIELD's type names the line and the column.
+  try {
+    parse_votable_table(test::replaced(content, {{"3 -9 4", "3 x 4"}}), "t.vot", {"n"});
+    ADD_FAILURE() << "accepted";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "votable_value");
+    EXPECT_NE(std::string(e.what()).find("t.vot:line 9: column 'n'"), std::string::npos) << e.what();
+  }
 }
 
 TEST(VOTable, BadFilesNameTheirRuleAndLine) {

@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/lightcurve/lightcurve_stage.hpp"
 
+#include <algorithm>
 #include <cmath>
 #include <string>
 
@@ -35,6 +36,20 @@ std::string LightCurveOptions::check() const {
     return "flags.competing_peak_ratio: must be in (0, 1]";
   if (threads < 0) return "threads: must be 0 (every core) or positive";
   if (std::string f = files.check(); !f.empty()) return f;
+  if (layout == SourceLayout::kGaiaEpoch) {
+    if (files.enabled()) return "source.name_pattern: not with layout \"gaia_epoch\" (each row names its source)";
+    if (time_scale != TimeScale::kBjdTcb)
+      return "source.time_scale: Gaia epoch times are BJD in TCB: leave it out or say \"bjd_tcb\"";
+    if (gaia_bands.empty()) return "source.bands: name at least one of G, BP, RP";
+    for (std::size_t i = 0; i < gaia_bands.size(); ++i) {
+      const std::string& b = gaia_bands[i];
+      if (b != "G" && b != "BP" && b != "RP")
+        return fmt::format("source.bands: '{}' is not one of G, BP, RP", b);
+      if (std::find(gaia_bands.begin(), gaia_bands.begin() + static_cast<std::ptrdiff_t>(i), b) !=
+          gaia_bands.begin() + static_cast<std::ptrdiff_t>(i))
+        return fmt::format("source.bands: {} more than once", b);
+    }
+  }
   if (output_path.empty()) return "output.path: required";
   return "";
 }
@@ -50,6 +65,16 @@ LightCurveOptions lightcurve_options_from_file(const std::string& path) {
     throw InputError({path, {}, "source", "line", "key"}, "config_missing_key",
                      "a [source] table is required");
   o.source = table_source_from_section(c, *source);
+  const std::string layout = source->string_or("layout", std::string(kSourceLayoutNames.name(o.layout)));
+  auto parsed_layout = kSourceLayoutNames.parse(layout);
+  if (!parsed_layout)
+    source->fail("layout", fmt::format("'{}' is not one of: {}", layout, kSourceLayoutNames.choices()));
+  o.layout = *parsed_layout;
+  // Gaia's epochs are BJD in TCB (gaia_epoch.hpp), whatever the default of other layouts.
+  if (o.layout == SourceLayout::kGaiaEpoch) o.time_scale = TimeScale::kBjdTcb;
+  if (auto bands = source->get_string_list("bands")) o.gaia_bands = *bands;
+  if (source->has("bands") && o.layout != SourceLayout::kGaiaEpoch)
+    source->fail("bands", "only layout \"gaia_epoch\" has bands to choose (others: a band column or source.band)");
   std::string scale =
       source->string_or("time_scale", std::string(kTimeScaleNames.name(o.time_scale)));
   auto parsed_scale = kTimeScaleNames.parse(scale);

@@ -99,6 +99,24 @@ std::vector<int> orders_at(const std::vector<TimeSeries>& series, double f, doub
   return orders;
 }
 
+// A Gaia source whose every epoch was dropped has no light curve and so no SUMMARY row: it
+// gets a REJECTS row saying why.
+void note_sources_without_epochs(LightCurveResult& result) {
+  std::set<std::string> with_epochs;
+  for (const auto& s : result.series) with_epochs.insert(s.id);
+  std::map<std::string, std::pair<std::int64_t, std::int64_t>> lost;  // star -> (row, dropped)
+  for (const auto& d : result.dropped)
+    if (!with_epochs.count(d.star)) {
+      auto& [row, n] = lost[d.star];
+      row = d.source_row;
+      n += d.flagged + d.missing;
+    }
+  for (const auto& [star, lost_epochs] : lost)
+    result.rejected.push_back({lost_epochs.first, star, "no_usable_epochs", "",
+                               fmt::format("all {} epochs were flagged or had a missing value",
+                                           lost_epochs.second)});
+}
+
 std::string file_label(const LightCurveOptions& o) {
   return o.config_file.empty() ? o.source.path : o.config_file;
 }
@@ -338,6 +356,7 @@ StarResult decode_star_result(const std::string& bytes) {
 }
 
 std::vector<std::string> lightcurve_input_files(const LightCurveOptions& o) {
+  if (o.layout == SourceLayout::kGaiaEpoch) return gaia_epoch_files(o.source.path);
   return o.files.enabled() ? per_star_file_list(o.source.path) : std::vector<std::string>{o.source.path};
 }
 
@@ -349,20 +368,26 @@ LightCurveResult run_lightcurves(const LightCurveOptions& o) {
   result.provenance = Provenance::for_stage("lightcurve");
   result.provenance.config_sha256 = o.config_sha256;
   SourceTable in;
-  if (o.files.enabled()) {
-    in = read_per_star_files(o.source, o.files, {o.star_column, o.time_column, o.band_column, o.mag_column, o.err_column},
-                             result.provenance.inputs);
+  const LightCurveColumns columns{o.star_column, o.time_column, o.band_column, o.mag_column, o.err_column};
+  if (o.layout == SourceLayout::kGaiaEpoch) {
+    in = read_gaia_epochs(o.source, o.gaia_bands, columns, result.provenance.inputs, result.dropped);
+  } else if (o.files.enabled()) {
+    in = read_per_star_files(o.source, o.files, columns, result.provenance.inputs);
   } else {
     in = read_table_source(o.source);
     result.provenance.inputs.push_back(
         {o.source.path, sha256_file(o.source.path), static_cast<std::int64_t>(in.table.rows())});
   }
+  if (in.table.rows() == 0 && !result.dropped.empty())
+    throw InputError({in.file, {}, {}}, "no_rows_left",
+                     "no Gaia epoch is left after the rejection flags and missing values");
   if (in.table.rows() == 0)
     throw InputError({in.file, {}, {}}, "empty_file", "the time series has no rows");
   spdlog::debug("{} rows read", in.table.rows());
   result.rows_read = in.table.rows();
   result.series = group_observations(in, o, band_table, result.rejected, result.bands);
   spdlog::debug("{} rows read and grouped into {} stars", in.table.rows(), result.series.size());
+  note_sources_without_epochs(result);
   if (result.series.empty())
     throw InputError({in.file, {}, {}}, "no_rows_left",
                      fmt::format("all {} rows were refused (first: {} {}: [{}] {})",

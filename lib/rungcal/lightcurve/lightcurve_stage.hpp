@@ -10,6 +10,7 @@
 #include "rungcal/core/enum_table.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/lightcurve/fourier.hpp"
+#include "rungcal/lightcurve/gaia_epoch.hpp"
 #include "rungcal/lightcurve/periodogram.hpp"
 #include "rungcal/photometry/bands.hpp"
 #include "rungcal/table/star_table.hpp"
@@ -19,12 +20,21 @@
 namespace rungcal {
 
 // The time scale of a time series' times; kept with every epoch the stage writes.
-enum class TimeScale { kBjdTdb, kHjd, kJd, kMjd };
-inline constexpr EnumTable<TimeScale, 4> kTimeScaleNames{{{
+enum class TimeScale { kBjdTdb, kHjd, kJd, kMjd, kBjdTcb };
+inline constexpr EnumTable<TimeScale, 5> kTimeScaleNames{{{
     {TimeScale::kBjdTdb, "bjd_tdb"},
+    {TimeScale::kBjdTcb, "bjd_tcb"},  // Gaia's epochs (gaia_epoch.hpp)
     {TimeScale::kHjd, "hjd"},
     {TimeScale::kJd, "jd"},
     {TimeScale::kMjd, "mjd"},
+}}};
+
+// How the time series is laid out: one long table (or one file per star, see PerStarFiles),
+// or Gaia DR3 epoch photometry with the epochs in array columns (gaia_epoch.hpp).
+enum class SourceLayout { kTable, kGaiaEpoch };
+inline constexpr EnumTable<SourceLayout, 2> kSourceLayoutNames{{{
+    {SourceLayout::kTable, "table"},
+    {SourceLayout::kGaiaEpoch, "gaia_epoch"},
 }}};
 
 struct LightCurveOptions;
@@ -34,6 +44,8 @@ std::vector<std::string> lightcurve_input_files(const LightCurveOptions& options
 struct LightCurveOptions {
   TableSourceSpec source;                     // the time series: FITS or delimited text ([source])
   PerStarFiles files;                         // or one file per star: source.path is then a glob
+  SourceLayout layout = SourceLayout::kTable;  // or Gaia epoch photometry (source.path: file or glob)
+  std::vector<std::string> gaia_bands = {"G", "BP", "RP"};  // gaia_epoch: the bands expanded
   std::string star_column = "star";           // star id (as in the calibrator catalog)
   std::string time_column = "time";           // time of each epoch, days
   std::string band_column = "band";           // band name (as in the band table)
@@ -155,6 +167,9 @@ struct LightCurveResult {
   std::vector<StarResult> stars;  // in order of first appearance in the input
   std::vector<ObservationReject> rejected;
   std::vector<std::string> bands;  // every band seen, in order of first appearance
+  // gaia_epoch: epochs dropped per source and band (flags, missing values); SUMMARY
+  // dropped_<band>.
+  std::vector<GaiaDroppedEpochs> dropped;
   std::size_t rows_read = 0;
   Provenance provenance;
   std::vector<StarSeries> series;  // the accepted epochs (for the POINTS table)

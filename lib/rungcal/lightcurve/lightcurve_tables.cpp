@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <cmath>
 #include <filesystem>
+#include <map>
 #include <string>
 #include <vector>
 
@@ -29,6 +30,35 @@ std::string period_flag_names(std::uint32_t flags) {
     if (has_flag(flags, flag)) out += (out.empty() ? "" : ",") + std::string(name);
   return out;
 }
+
+namespace {
+
+// Gaia epoch photometry: each star's epochs dropped per band, by a rejection flag
+// (flagged_<band>) or for a missing value (missing_<band>); no columns for other layouts.
+void add_dropped_epoch_columns(const std::vector<GaiaDroppedEpochs>& dropped,
+                               const std::vector<StarResult>& stars, StarTable& t) {
+  std::vector<std::string> bands;
+  std::map<std::pair<std::string, std::string>, const GaiaDroppedEpochs*> by_star;
+  for (const auto& d : dropped) {
+    if (std::find(bands.begin(), bands.end(), d.band) == bands.end()) bands.push_back(d.band);
+    by_star[{d.star, d.band}] = &d;
+  }
+  for (const auto& b : bands) {
+    Column& flagged = t.add_column("flagged_" + b, ColumnType::kInteger, "",
+                                   "Gaia epochs in " + b + " dropped by a rejection flag");
+    Column& missing = t.add_column("missing_" + b, ColumnType::kInteger, "",
+                                   "Gaia epochs in " + b + " dropped for a missing value");
+    // The table has its rows already: the new columns come sized to them, all null.
+    for (std::size_t r = 0; r < stars.size(); ++r) {
+      auto it = by_star.find({stars[r].id, b});
+      flagged.integer[r] = it == by_star.end() ? 0 : it->second->flagged;
+      missing.integer[r] = it == by_star.end() ? 0 : it->second->missing;
+      flagged.null[r] = missing.null[r] = 0;
+    }
+  }
+}
+
+}  // namespace
 
 StarTable LightCurveResult::summary_table(TimeScale scale) const {
   StarTable t;
@@ -139,6 +169,7 @@ StarTable LightCurveResult::summary_table(TimeScale scale) const {
       put("phi31_err", m.phi31_err);
     }
   }
+  add_dropped_epoch_columns(dropped, stars, t);
   std::string band_list;
   for (const auto& b : bands) band_list += (band_list.empty() ? "" : ",") + b;
   t.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");

@@ -4,7 +4,10 @@
 
 #include <yaml.h>
 
+#include <algorithm>
 #include <charconv>
+#include <limits>
+#include <optional>
 #include <fstream>
 #include <iterator>
 #include <memory>
@@ -201,6 +204,56 @@ std::vector<std::string> split_line(std::string_view line, char delimiter, const
   }
 }
 
+// The element type an array column's subtype names ("float64[null]" -> "float64", "bool[3]"
+// -> "bool"; ECSV 1.0).
+std::string subtype_element(const std::string& subtype) {
+  return subtype.substr(0, subtype.find('['));
+}
+
+// A flat JSON array of numbers, true/false and null ("[1.5,null,NaN]", the ECSV encoding of
+// an array cell); nullopt when the text is not one.
+std::optional<std::vector<double>> json_flat_array(std::string_view s, bool logical) {
+  auto skip = [&](std::size_t& i) {
+    while (i < s.size() && (s[i] == ' ' || s[i] == '\t')) ++i;
+  };
+  std::size_t i = 0;
+  skip(i);
+  if (i >= s.size() || s[i] != '[') return std::nullopt;
+  ++i;
+  std::vector<double> out;
+  skip(i);
+  if (i < s.size() && s[i] == ']') {
+    ++i;
+    skip(i);
+    return i == s.size() ? std::optional(out) : std::nullopt;
+  }
+  for (;;) {
+    skip(i);
+    std::size_t e = i;
+    while (e < s.size() && s[e] != ',' && s[e] != ']' && s[e] != ' ') ++e;
+    const std::string_view x = s.substr(i, e - i);
+    double v = 0;
+    if (x == "null" || x == "NaN") {
+      v = std::numeric_limits<double>::quiet_NaN();
+    } else if (logical) {
+      if (x != "true" && x != "false") return std::nullopt;
+      v = x == "true" ? 1 : 0;
+    } else if (x.empty() || !parse_real(x, v)) {
+      return std::nullopt;
+    }
+    out.push_back(v);
+    i = e;
+    skip(i);
+    if (i >= s.size()) return std::nullopt;
+    if (s[i] == ']') break;
+    if (s[i] != ',') return std::nullopt;
+    ++i;
+  }
+  ++i;
+  skip(i);
+  return i == s.size() ? std::optional(out) : std::nullopt;
+}
+
 }  // namespace
 
 bool looks_like_ecsv(const std::string& path) {
@@ -211,11 +264,12 @@ bool looks_like_ecsv(const std::string& path) {
   return in.gcount() == 7 && std::string_view(head, 7) == "# %ECSV";
 }
 
-SourceTable read_ecsv_table(const std::string& path) {
-  return parse_ecsv_table(read_input_file(path), path);
+SourceTable read_ecsv_table(const std::string& path, const std::vector<std::string>& arrays) {
+  return parse_ecsv_table(read_input_file(path), path, arrays);
 }
 
-SourceTable parse_ecsv_table(const std::string& content, const std::string& name) {
+SourceTable parse_ecsv_table(const std::string& content, const std::string& name,
+                             const std::vector<std::string>& arrays) {
   // Lines, without CR.
   std::vector<std::string_view> lines;
   for (std::size_t pos = 0; pos < content.size();) {
@@ -277,7 +331,20 @@ SourceTable parse_ecsv_table(const std::string& content, const std::string& name
                  fmt::format("the YAML header lists the columns {} but the column-name line has {}",
                              fmt::join(declared, ", "), fmt::join(names, ", ")));
   std::vector<Column*> cols(columns.size(), nullptr);
+  std::vector<ArrayColumn*> array_cols(columns.size(), nullptr);
   for (std::size_t c = 0; c < columns.size(); ++c) {
+    const bool wanted = std::find(arrays.begin(), arrays.end(), columns[c].name) != arrays.end();
+    if (!columns[c].subtype.empty() && wanted && !out.arrays.count(columns[c].name)) {
+      const std::string element = subtype_element(columns[c].subtype);
+      const ColumnType type = type_of(element, name, 2, columns[c].name);
+      if (type == ColumnType::kText)
+        header_error(name, 2, fmt::format("column {} has subtype {}: an array of strings",
+                                          columns[c].name, columns[c].subtype));
+      array_cols[c] = &out.arrays[columns[c].name];
+      array_cols[c]->unit = columns[c].unit;
+      array_cols[c]->logical = type == ColumnType::kBoolean;
+      continue;
+    }
     if (!columns[c].subtype.empty()) {
       out.unusable_columns[columns[c].name] =
           fmt::format("an array column (subtype {}): rungcal reads one value per star",
@@ -296,6 +363,18 @@ SourceTable parse_ecsv_table(const std::string& content, const std::string& name
                        fmt::format("{} fields where the header has {} columns", fields.size(),
                                    columns.size()));
     for (std::size_t c = 0; c < columns.size(); ++c) {
+      if (ArrayColumn* a = array_cols[c]) {
+        auto v = fields[c].empty() ? std::optional(std::vector<double>{})
+                                   : json_flat_array(fields[c], a->logical);
+        if (!v)
+          throw InputError({name, line_no, columns[c].name, "line"}, "ecsv_value",
+                           fmt::format("'{}' is not a JSON array of {} values, which the header's "
+                                       "subtype {} says the column holds",
+                                       fields[c].substr(0, 80), subtype_element(columns[c].subtype),
+                                       columns[c].subtype));
+        a->rows.push_back(std::move(*v));
+        continue;
+      }
       if (!cols[c]) continue;
       Column& col = *cols[c];
       const std::string& f = fields[c];

@@ -21,10 +21,14 @@ struct FitsHduChoice {
 // Reads one binary-table HDU. Real columns: NaN is null. Integer columns: TNULLn is null.
 // Logical columns: the FITS null byte is null. Text columns: an all-blank value is null.
 // Units come from TUNITn, header keywords (other than the table structure) into header().
-// Vector columns are listed in unusable_columns. Throws InputError: "unreadable_file",
-// "fits_read" (truncated or corrupt file, cfitsio's message included), "fits_hdu" (no such
-// HDU, or not a binary table), "empty_file".
-SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu = {});
+// Vector columns are listed in unusable_columns, unless named in `arrays`: those, fixed
+// (rE, rD, rJ, rL, ...) or variable-length (1PD(n), 1QE(n), ...), are read into
+// SourceTable::arrays (a variable-length column's length is its row's descriptor, FITS 4.0
+// section 7.3.5). Throws InputError: "unreadable_file", "fits_read" (truncated or corrupt
+// file, cfitsio's message included), "fits_hdu" (no such HDU, or not a binary table),
+// "empty_file".
+SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu = {},
+                            const std::vector<std::string>& arrays = {});
 
 // A binary-table HDU opened once and read in row ranges, so a large catalog can be taken
 // in groups of rows without holding it whole. Same rules and errors as read_fits_table.
@@ -43,6 +47,8 @@ class FitsTableReader {
   // read of the rows' raw bytes; off: every column through cfitsio's column reads, which
   // give the same values (the tests compare the two).
   void use_block_reads(bool on);
+  // Array columns to read into SourceTable::arrays (see read_fits_table).
+  void read_arrays(std::vector<std::string> names);
 
  private:
   struct Impl;

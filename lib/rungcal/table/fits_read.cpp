@@ -148,9 +148,48 @@ void move_to_hdu(fitsfile* f, const std::string& path, const FitsHduChoice& hdu)
     throw InputError({path, {}, {}}, "fits_hdu", "the chosen HDU is not a binary table");
 }
 
-// Reads rows first .. first + nrows - 1 (1-based) of one column.
+// Rows first .. first + nrows - 1 (1-based) of a vector or variable-length column (typecode
+// negative) into out.arrays: each row's elements through cfitsio, which applies TSCAL/TZERO
+// and gives TNULL and the logical null byte as nulls (NaN here).
+void read_array_column(fitsfile* f, const std::string& path, int colnum, const std::string& name,
+                       const std::string& unit, int typecode, LONGLONG repeat, LONGLONG first,
+                       LONGLONG nrows, SourceTable& out) {
+  ArrayColumn& a = out.arrays[name];
+  a.unit = unit;
+  a.logical = std::abs(typecode) == TLOGICAL;
+  // A corrupt descriptor cannot make a row longer than the file (no allocation beyond it).
+  const auto file_bytes = static_cast<LONGLONG>(std::filesystem::file_size(path));
+  for (LONGLONG r = first; r < first + nrows; ++r) {
+    int status = 0, anynul = 0;
+    LONGLONG n = repeat, heap_offset = 0;
+    if (typecode < 0) {
+      fits_read_descriptll(f, colnum, r, &n, &heap_offset, &status);
+      check_status(status, path, fmt::format("reading row {}'s array descriptor", r), name);
+    }
+    if (n < 0 || n > file_bytes)
+      throw InputError({path, r, name}, "fits_read",
+                       fmt::format("the row's array claims {} elements: corrupt descriptor", n));
+    const auto size = static_cast<std::size_t>(n);
+    std::vector<double> v(size, 0.0);
+    std::vector<char> nulls(size, 0);
+    if (size > 0 && a.logical) {
+      std::vector<char> b(size, 0);
+      fits_read_colnull_log(f, colnum, r, 1, n, b.data(), nulls.data(), &anynul, &status);
+      for (std::size_t k = 0; k < size; ++k) v[k] = b[k] ? 1.0 : 0.0;
+    } else if (size > 0) {
+      fits_read_colnull_dbl(f, colnum, r, 1, n, v.data(), nulls.data(), &anynul, &status);
+    }
+    check_status(status, path, fmt::format("reading row {}", r), name);
+    for (std::size_t k = 0; k < size; ++k)
+      if (nulls[k]) v[k] = std::numeric_limits<double>::quiet_NaN();
+    a.rows.push_back(std::move(v));
+  }
+}
+
+// Reads rows first .. first + nrows - 1 (1-based) of one column; a vector or variable-length
+// column named in `arrays` into out.arrays.
 void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG first, LONGLONG nrows,
-                 SourceTable& out) {
+                 const std::vector<std::string>& arrays, SourceTable& out) {
   int status = 0, typecode = 0;
   LONGLONG repeat = 0, width = 0;
   char ttype[FLEN_VALUE] = {0};
@@ -164,6 +203,12 @@ void read_column(fitsfile* f, const std::string& path, int colnum, LONGLONG firs
   std::vector<char> nulls(n, 0);
   int anynul = 0;
 
+  const bool is_array = typecode < 0 || (typecode != TSTRING && repeat != 1);
+  if (is_array && std::abs(typecode) != TSTRING && !out.arrays.count(name) &&
+      std::find(arrays.begin(), arrays.end(), name) != arrays.end()) {
+    read_array_column(f, path, colnum, name, unit, typecode, repeat, first, nrows, out);
+    return;
+  }
   if (typecode == TSTRING) {
     // One call for all the rows: a buffer of fixed-width strings and a pointer to each.
     const std::size_t w = static_cast<std::size_t>(width) + 1;
@@ -415,6 +460,7 @@ struct FitsTableReader::Impl {
   std::vector<std::optional<RawColumn>> raw;  // per column; empty: read by cfitsio
   bool raw_layout_known = false;              // every column's width is known
   bool block_reads = true;
+  std::vector<std::string> arrays;  // array columns to read
 };
 
 FitsTableReader::FitsTableReader(const std::string& path, const FitsHduChoice& hdu)
@@ -443,6 +489,9 @@ FitsTableReader::~FitsTableReader() = default;
 
 std::int64_t FitsTableReader::rows() const { return impl_->rows; }
 void FitsTableReader::use_block_reads(bool on) { impl_->block_reads = on; }
+void FitsTableReader::read_arrays(std::vector<std::string> names) {
+  impl_->arrays = std::move(names);
+}
 
 SourceTable FitsTableReader::read(std::int64_t first, std::int64_t count) {
   const LONGLONG begin = std::clamp<LONGLONG>(first, 0, impl_->rows);
@@ -465,7 +514,7 @@ SourceTable FitsTableReader::read(std::int64_t first, std::int64_t count) {
       const auto& rc =
           impl_->raw.empty() ? std::nullopt : impl_->raw[static_cast<std::size_t>(c - 1)];
       if (block.empty() || !rc) {
-        read_column(impl_->f, impl_->path, c, begin + 1, n, out);
+        read_column(impl_->f, impl_->path, c, begin + 1, n, impl_->arrays, out);
         continue;
       }
       int status = 0;
@@ -484,8 +533,10 @@ SourceTable FitsTableReader::read(std::int64_t first, std::int64_t count) {
   return out;
 }
 
-SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu) {
+SourceTable read_fits_table(const std::string& path, const FitsHduChoice& hdu,
+                            const std::vector<std::string>& arrays) {
   FitsTableReader reader(path, hdu);
+  reader.read_arrays(arrays);
   return reader.read(0, -1);
 }
 

@@ -57,10 +57,10 @@ TableSourceSpec table_source_from_section(const Config& config, const ConfigSect
 }
 
 SourceTable read_table_source(const TableSourceSpec& spec) {
-  if (spec.is_fits) return read_fits_table(spec.path, spec.hdu);
-  if (spec.is_votable) return read_votable_table(spec.path);
+  if (spec.is_fits) return read_fits_table(spec.path, spec.hdu, spec.array_columns);
+  if (spec.is_votable) return read_votable_table(spec.path, spec.array_columns);
   // An ECSV table is known by its first line and carries its own types and units.
-  if (looks_like_ecsv(spec.path)) return read_ecsv_table(spec.path);
+  if (looks_like_ecsv(spec.path)) return read_ecsv_table(spec.path, spec.array_columns);
   return read_text_table(spec.path, spec.text);
 }
 

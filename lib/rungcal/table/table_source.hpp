@@ -2,6 +2,7 @@
 #pragma once
 
 #include <string>
+#include <vector>
 
 #include "rungcal/core/config.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -17,6 +18,7 @@ struct TableSourceSpec {
   bool is_votable = false;  // format "votable", else a .vot/.xml/.votable name
   FitsHduChoice hdu;     // FITS only
   TextReadOptions text;  // text only: delimiter, header, comments, missing markers
+  std::vector<std::string> array_columns;  // read into SourceTable::arrays (not text files)
 };
 
 // True for .fits, .fit, .fts and their .gz forms (any case).

@@ -9,6 +9,7 @@
 #include <charconv>
 #include <fstream>
 #include <iterator>
+#include <limits>
 #include <memory>
 #include <optional>
 #include <vector>
@@ -27,6 +28,7 @@ struct Field {
   std::optional<std::string> null_value;  // <VALUES null="...">
   ColumnType type = ColumnType::kText;
   bool usable = true;
+  ArrayColumn* array = nullptr;  // an array FIELD asked for by name
 };
 
 // An element name without its namespace prefix ("vot:TD" -> "TD").
@@ -57,6 +59,7 @@ struct Reader {
   std::vector<std::uint8_t> row_empty;  // a TD without text (or an empty <TD/>)
   std::string text;
   SourceTable out;
+  std::vector<std::string> wanted_arrays;
   std::vector<Column*> columns;  // per field; nullptr when not usable
   std::exception_ptr error;      // thrown by a callback, rethrown after the parse
 
@@ -142,8 +145,16 @@ struct Reader {
       }
       if (!is_char && !f.arraysize.empty() && f.arraysize != "1") {
         f.usable = false;
-        out.unusable_columns[f.name] =
-            fmt::format("an array column (arraysize {}): rungcal reads one value per star", f.arraysize);
+        const bool wanted = std::find(wanted_arrays.begin(), wanted_arrays.end(), f.name) !=
+                            wanted_arrays.end();
+        if (wanted && f.type != ColumnType::kText && !out.arrays.count(f.name)) {
+          f.array = &out.arrays[f.name];
+          f.array->unit = f.unit;
+          f.array->logical = f.type == ColumnType::kBoolean;
+        } else if (!out.arrays.count(f.name)) {
+          out.unusable_columns[f.name] =
+              fmt::format("an array column (arraysize {}): rungcal reads one value per star", f.arraysize);
+        }
       }
       if (f.usable && out.table.has(f.name))
         fail("duplicate_column", f.name, "two FIELDs have this name");
@@ -156,6 +167,10 @@ struct Reader {
       throw InputError({file, tr_line, {}, "line"}, "field_count",
                        fmt::format("a TR with {} TD where the TABLE has {} FIELDs", row.size(), fields.size()));
     for (std::size_t c = 0; c < fields.size(); ++c) {
+      if (fields[c].array) {
+        fields[c].array->rows.push_back(row_empty[c] ? std::vector<double>{} : array_values(fields[c], row[c]));
+        continue;
+      }
       if (!columns[c]) continue;
       Column& col = *columns[c];
       const Field& f = fields[c];
@@ -204,6 +219,46 @@ struct Reader {
     }
     out.source_rows.push_back(tr_line);
   }
+
+  // An array TD's elements, separated by whitespace (VOTable 1.4, section 6.1).
+  std::vector<double> array_values(const Field& f, std::string_view cell) const {
+    std::vector<double> v;
+    std::size_t i = 0;
+    while (i < cell.size()) {
+      const auto b = cell.find_first_not_of(" \t\r\n", i);
+      if (b == std::string_view::npos) break;
+      auto e = cell.find_first_of(" \t\r\n", b);
+      if (e == std::string_view::npos) e = cell.size();
+      const std::string_view x = cell.substr(b, e - b);
+      i = e;
+      // A bit array may be written without separators ("1001"; VOTable 1.4, section 2.1).
+      if (f.datatype == "bit" && x.size() > 1 && x.find_first_not_of("01") == std::string_view::npos) {
+        for (char ch : x) v.push_back(ch == '1' ? 1.0 : 0.0);
+        continue;
+      }
+      double value = 0;
+      if ((f.null_value && x == *f.null_value) || x == "?" || x == "NaN") {
+        value = std::numeric_limits<double>::quiet_NaN();
+      } else if (f.type == ColumnType::kBoolean) {
+        if (x == "T" || x == "t" || x == "true" || x == "TRUE" || x == "1")
+          value = 1;
+        else if (x == "F" || x == "f" || x == "false" || x == "FALSE" || x == "0")
+          value = 0;
+        else
+          bad_element(f, x);
+      } else if (!parse_real(x, value)) {
+        bad_element(f, x);
+      }
+      v.push_back(value);
+    }
+    return v;
+  }
+
+  [[noreturn]] void bad_element(const Field& f, std::string_view x) const {
+    throw InputError({file, tr_line, f.name, "line"}, "votable_value",
+                     fmt::format("array element '{}' is not a {} value, which the FIELD says the column holds",
+                                 x, f.datatype));
+  }
 };
 
 }  // namespace
@@ -216,13 +271,15 @@ bool has_votable_extension(const std::string& path) {
   return false;
 }
 
-SourceTable read_votable_table(const std::string& path) {
-  return parse_votable_table(read_input_file(path), path);
+SourceTable read_votable_table(const std::string& path, const std::vector<std::string>& arrays) {
+  return parse_votable_table(read_input_file(path), path, arrays);
 }
 
-SourceTable parse_votable_table(const std::string& content, const std::string& name) {
+SourceTable parse_votable_table(const std::string& content, const std::string& name,
+                                const std::vector<std::string>& arrays) {
   Reader r;
   r.file = name;
+  r.wanted_arrays = arrays;
   std::unique_ptr<std::remove_pointer_t<XML_Parser>, decltype(&XML_ParserFree)> parser(
       XML_ParserCreate(nullptr), &XML_ParserFree);
   if (!parser) throw std::bad_alloc();

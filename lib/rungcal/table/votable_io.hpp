@@ -2,6 +2,7 @@
 #pragma once
 
 #include <string>
+#include <vector>
 
 #include "rungcal/table/source_table.hpp"
 
@@ -16,11 +17,14 @@ bool has_votable_extension(const std::string& path);
 // the column type (char and unicodeChar: text; boolean and bit: logical; the integer types:
 // integer; float and double: real) and its unit attribute the unit. An empty TD, a float
 // NaN and a value equal to the FIELD's <VALUES null="..."/> are nulls. Array FIELDs
-// (arraysize on a non-character type) are listed as unusable. Throws InputError naming the
+// (arraysize on a non-character type) are listed as unusable, unless named in `arrays`:
+// those are read into SourceTable::arrays, a TD's elements separated by whitespace
+// (VOTable 1.4, section 6.1), an element equal to the null value or "NaN" a NaN. Throws InputError naming the
 // file, line and column: "unreadable_file", "votable_xml" (malformed XML), "votable_table"
 // (no TABLE, no FIELD, or a serialization other than TABLEDATA), "field_count" (a TR with
 // more or fewer TDs than FIELDs), "votable_value" (a value that is not of its FIELD's type).
-SourceTable read_votable_table(const std::string& path);
-SourceTable parse_votable_table(const std::string& content, const std::string& name);
+SourceTable read_votable_table(const std::string& path, const std::vector<std::string>& arrays = {});
+SourceTable parse_votable_table(const std::string& content, const std::string& name,
+                                const std::vector<std::string>& arrays = {});
 
 }  // namespace rungcal

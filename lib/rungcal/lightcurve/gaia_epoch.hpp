@@ -1,0 +1,89 @@
+// SPDX-License-Identifier: MIT
+#pragma once
+
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "rungcal/core/provenance.hpp"
+#include "rungcal/lightcurve/per_star_files.hpp"
+#include "rungcal/table/source_table.hpp"
+#include "rungcal/table/table_source.hpp"
+
+namespace rungcal {
+
+// Gaia DR3 epoch photometry as the archive publishes it: one row per source, the epochs in
+// array columns (the "RAW" data structure of Gaia DR3 documentation, section 20.7.1
+// "epoch_photometry"; the same columns in the bulk ECSV files). [source] layout =
+// "gaia_epoch" expands each row into one light curve per band G, BP and RP.
+
+// Gaia's epoch times are "Barycentric JD in TCB - 2455197.5 (day)", the origin being
+// 2010-01-01T00:00:00 TCB (Gaia DR3 documentation, section 20.7.1, g_transit_time,
+// bp_obs_time, rp_obs_time; the same in Gaia DR3 documentation section 10.2.3). So
+// BJD(TCB) = t + 2455197.5; the stage keeps the TCB scale (time_scale "bjd_tcb"): TCB runs
+// ahead of TDB by about 19 s over the DR3 epochs, which no period or phase here can feel.
+inline constexpr double kGaiaTimeOriginBjd = 2455197.5;
+double bjd_from_gaia_time(double gaia_time_d);
+
+// Vega-system photometric zero points of Gaia (E)DR3, for G = -2.5 log10(flux) + ZP with the
+// flux in e-/s: G 25.6874, BP 25.3385, RP 24.7479 (Riello et al. 2021, A&A 649, A3,
+// section 7, table 3). Recalled from memory; the table itself was not read. The values agree
+// with an independent listing of the Gaia DR3 Vega zero points, and ESA's Gaia EDR3
+// known-issues page names Riello et al., section 7, table 3 as where they are published.
+// The zero points' own errors (a few mmag, memory) shift every epoch alike and are left out
+// of the epoch errors: they cannot move a period, a phase or an amplitude.
+inline constexpr double kGaiaZeroPointG = 25.6874;
+inline constexpr double kGaiaZeroPointBp = 25.3385;
+inline constexpr double kGaiaZeroPointRp = 24.7479;
+
+// m = ZP - 2.5 log10(flux); NaN for a flux that is not positive.
+double magnitude_from_flux(double flux, double zero_point);
+// sigma_m = (2.5 / ln 10) / (flux / sigma_flux): first-order propagation of the flux error
+// through m = ZP - 2.5 log10(flux) (common practice); NaN for a ratio that is not positive.
+double magnitude_error_from_flux_over_error(double flux_over_error);
+
+// One band's array columns (names as in Gaia DR3 documentation, section 20.7.1).
+struct GaiaEpochBand {
+  const char* band;                // band name in the band table
+  const char* time;                // epoch times
+  const char* mag;                 // Vega magnitudes (used when present)
+  const char* flux;                // fluxes, e-/s (when there is no magnitude column)
+  const char* flux_over_error;     // flux divided by its error
+  const char* flux_error;          // the flux error (when there is no flux_over_error column)
+  const char* variability_reject;  // "rejected by variability processing"
+  const char* photometry_reject;   // "transit rejected by photometry processing" (BP, RP)
+  double zero_point;
+};
+extern const GaiaEpochBand kGaiaEpochBands[3];
+
+// The files [source] path names: the file itself, or every file a glob matches (one
+// archive download per source); InputError "no_files" when none.
+std::vector<std::string> gaia_epoch_files(const std::string& path);
+
+// Every array column the layout may use, to ask the readers for.
+std::vector<std::string> gaia_epoch_array_columns();
+
+// What the expansion dropped from one band of one source: epochs with a rejection flag set
+// (variability_flag_<band>_reject, photometry_flag_<band>_reject, and per-transit
+// rejected_by_variability / rejected_by_photometry arrays when a file has them) and epochs
+// with a NaN or null time, magnitude, flux or error, or a flux that is not positive.
+struct GaiaDroppedEpochs {
+  std::string star, band;
+  std::int64_t source_row = 0;  // the source's row (FITS) or line (VOTable, ECSV)
+  std::int64_t flagged = 0;
+  std::int64_t missing = 0;
+};
+
+// Reads every file the spec's path (a file name or a glob) matches with the array columns,
+// and writes one long table of columns.star (source_id), band, time (BJD TCB), mag and err,
+// its source rows the row (FITS) or line (VOTable, ECSV) of each source. bands: the bands to
+// expand ("G", "BP", "RP"). inputs receives every file with its SHA-256 and rows. Throws
+// InputError naming the file, row and column: "missing_column" (no source_id, or a band
+// without its time array or without magnitudes or fluxes and their errors), "not_an_array"
+// (the column is there but holds one value per row), "array_length" (a row whose arrays for
+// one band differ in length).
+SourceTable read_gaia_epochs(const TableSourceSpec& spec, const std::vector<std::string>& bands,
+                             const LightCurveColumns& columns, std::vector<InputRecord>& inputs,
+                             std::vector<GaiaDroppedEpochs>& dropped);
+
+}  // namespace rungcal
