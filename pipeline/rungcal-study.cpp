@@ -182,6 +182,10 @@ int main(int argc, char** argv) {
           if (metallicity || std::string(p) != "gamma_") study.parameters.push_back(p + r.name);
       study.parameters.push_back("scatter_correlation");
       study.parameters.push_back("parallax_offset_mas");
+      // The blend ratios: a true value only for grey companions (MockScenario::truth), the
+      // mean estimate always.
+      if (!grey_blend_model && study.fit.hierarchical.blends != rungcal::BlendComponent::kNone)
+        for (const auto& r : study.scenario.more_relations) study.parameters.push_back("blend_ratio_" + r.name);
       study.fit.joint_scatter_correlation.value = study.scenario.scatter_correlation;
       if (fix_correlation) study.fit.joint_scatter_correlation.mode = rungcal::ParamMode::kFixed;
       if (grey_blend_model) study.fit.joint_blend_ratio = {rungcal::ParamMode::kFixed, 1.0, 0, true};

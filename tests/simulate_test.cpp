@@ -47,6 +47,7 @@ TEST(Simulate, TruthFileMatchesTheDraws) {
   o.n_lightcurve_stars = 0;
   o.outlier_fraction = 0.0;
   o.clusters.clear();  // field stars only: the checks below are of the field's draws
+  o.anchors.clear();
   Simulation s = simulate(o, demo_bands());
   const StarTable &cat = s.calibrators, &truth = s.truth_stars;
   ASSERT_EQ(cat.rows(), 3000u);
@@ -94,6 +95,45 @@ TEST(Simulate, TruthFileMatchesTheDraws) {
   double slope = (n * sxy - sx * sy) / (n * sxx - sx * sx), icpt = (sy - slope * sx) / n;
   EXPECT_NEAR(slope, beta, 4 * scatter / std::sqrt(sxx - sx * sx / n));
   EXPECT_NEAR(icpt, alpha, 8 * scatter / std::sqrt(n));
+}
+
+// Anchor galaxies: their Cepheids at the true modulus with the galaxy's reddening, in GROUP;
+// the published moduli scatter about the truth with the configured errors and correlation
+// (400 draws of the demo's two anchors: the sample correlation's error is about
+// (1 - rho^2) / sqrt(400) = 0.03).
+TEST(Simulate, AnchorGalaxiesAndTheirCorrelatedPublishedModuli) {
+  SimulateOptions o = demo_options();
+  ASSERT_EQ(o.anchors.size(), 2u);
+  o.n_calibrators = 3, o.n_lightcurve_stars = 0, o.n_targets = 3, o.release2_error_factor = 0;
+  o.clusters.clear();
+  const BandTable bands = demo_bands();
+  const Simulation one = simulate(o, bands);
+  const StarTable& cat = one.calibrators;
+  ASSERT_EQ(cat.rows(), 3u + 24u + 14u);
+  for (std::size_t i = 3; i < cat.rows(); ++i) {
+    const std::string& group = cat.column("GROUP").text[i];
+    const SimulatedAnchor& a = group == o.anchors[0].name ? o.anchors[0] : o.anchors[1];
+    EXPECT_EQ(group, a.name);
+    EXPECT_NEAR(one.truth_stars.column("mu_true").real[i], a.mu, 1e-9);
+    EXPECT_LT(one.truth_stars.column("ebv_true").real[i], 5 * a.ebv);
+  }
+  ASSERT_EQ(one.truth["anchor_covariance"].size(), 2u);
+  EXPECT_NEAR(one.truth["anchor_covariance"][0][1].get<double>(), 0.6 * 0.026 * 0.033, 1e-12);
+  double s00 = 0, s11 = 0, s01 = 0;
+  const int draws = 400;
+  for (int k = 0; k < draws; ++k) {
+    o.seed = 1000 + static_cast<std::uint64_t>(k);
+    o.anchors[0].members = o.anchors[1].members = 1;
+    const nlohmann::json t = simulate(o, bands).truth["anchors"];
+    const double e0 = (t[0]["mu"].get<double>() - t[0]["mu_true"].get<double>()) / 0.026;
+    const double e1 = (t[1]["mu"].get<double>() - t[1]["mu_true"].get<double>()) / 0.033;
+    s00 += e0 * e0, s11 += e1 * e1, s01 += e0 * e1;
+  }
+  EXPECT_NEAR(std::sqrt(s00 / draws), 1.0, 0.15);  // unit errors: sd of an sd ~ 1/sqrt(2n)
+  EXPECT_NEAR(std::sqrt(s11 / draws), 1.0, 0.15);
+  EXPECT_NEAR(s01 / std::sqrt(s00 * s11), 0.6, 0.13);
+  o.anchor_correlation = 1.0;
+  EXPECT_NE(o.check().find("anchor_correlation"), std::string::npos);
 }
 
 TEST(Simulate, BadConfigNamesTheKey) {

@@ -99,8 +99,33 @@ std::string SimulateOptions::check() const {
     if (k.members < 1 || k.members > 200) return "cluster.members: must be 1 to 200";
   }
   if (!(cluster_parallax_error_mas > 0)) return "cluster_parallax_error_mas: must be positive";
+  for (const auto& a : anchors) {
+    const bool taken = a.name == field_group || std::any_of(clusters.begin(), clusters.end(),
+                                                            [&](const auto& k) { return k.name == a.name; });
+    if (a.name.empty() || taken) return "anchor.name: required, and neither the field_group nor a cluster's";
+    if (!(a.mu > 16 && a.mu < 26)) return "anchor.mu: must be 16 to 26 (16 kpc to 16 Mpc)";
+    if (a.members < 1 || a.members > 2000) return "anchor.members: must be 1 to 2000";
+    if (!(a.mu_err > 0 && a.mu_err < 1)) return "anchor.mu_err: must be above 0 and below 1 mag";
+    if (!(a.ebv >= 0 && a.ebv <= 1)) return "anchor.ebv: must be 0 to 1 mag";
+  }
+  if (!(anchor_correlation >= 0 && anchor_correlation < 1))
+    return "anchor_correlation: must be 0 to below 1 (a shared systematic)";
   return "";
 }
+
+namespace {
+
+// A [[cluster]] or [[anchor]] table's name, true modulus and member count.
+template <class Group>
+Group group_from(const ConfigSection& k) {
+  Group g;
+  g.name = k.require_string("name");
+  g.mu = k.number_or("mu", g.mu);
+  g.members = static_cast<int>(k.integer_or("members", g.members));
+  return g;
+}
+
+}  // namespace
 
 SimulateOptions simulate_options_from_file(const std::string& path) {
   Config c = Config::from_file(path);
@@ -150,12 +175,13 @@ SimulateOptions simulate_options_from_file(const std::string& path) {
   o.output_folder = c.resolve_path(s->string_or("output_folder", o.output_folder));
   o.cluster_parallax_error_mas = s->number_or("cluster_parallax_error_mas", o.cluster_parallax_error_mas);
   o.field_group = s->string_or("field_group", o.field_group);
-  for (const auto& k : root.section_list("cluster")) {
-    SimulatedCluster cl;
-    cl.name = k.require_string("name");
-    cl.mu = k.number_or("mu", cl.mu);
-    cl.members = static_cast<int>(k.integer_or("members", cl.members));
-    o.clusters.push_back(cl);
+  for (const auto& k : root.section_list("cluster")) o.clusters.push_back(group_from<SimulatedCluster>(k));
+  o.anchor_correlation = s->number_or("anchor_correlation", o.anchor_correlation);
+  for (const auto& k : root.section_list("anchor")) {
+    SimulatedAnchor a = group_from<SimulatedAnchor>(k);
+    a.mu_err = k.number_or("mu_err", a.mu_err);
+    a.ebv = k.number_or("ebv", a.ebv);
+    o.anchors.push_back(a);
   }
   for (const auto& r : root.section_list("relation")) {
     TrueRelation t;
@@ -205,7 +231,8 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
     cat.add_column(r.band + "_MEAN", ColumnType::kReal, "mag");
     cat.add_column(r.band + "_ERR", ColumnType::kReal, "mag");
   }
-  if (!o.clusters.empty()) cat.add_column("GROUP", ColumnType::kText);
+  const bool grouped = !o.clusters.empty() || !o.anchors.empty();
+  if (grouped) cat.add_column("GROUP", ColumnType::kText);
   StarTable& truth = sim.truth_stars;
   for (const char* c : {"id"}) truth.add_column(c, ColumnType::kText);
   for (const char* c : {"distance_pc", "mu_true", "ebv_true", "feh_true", "log_period_fundamental", "parallax_true_mas"})
@@ -220,10 +247,11 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
   lc.add_column("mag", ColumnType::kReal, "mag");
   lc.add_column("mag_err", ColumnType::kReal, "mag");
 
-  // One calibrator: in the field, or at a cluster's place (`at`).
+  // One calibrator: in the field, or at a cluster's or an anchor galaxy's place (`at`).
   struct Place {
     double d_kpc, ra, dec;
     std::string group;
+    double ebv = -1;  // mean reddening there (< 0: the disk's, growing with distance)
   };
   auto add_calibrator = [&](Random& rng, const std::string& id, const Place* at, bool with_light_curve) {
   bool overtone = rng.uniform() < o.first_overtone_fraction;
@@ -238,17 +266,21 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
   if (at) d_kpc = at->d_kpc;
   double mu = distance_modulus_from_parsec(d_kpc * 1000.0);
   // Capped: stars behind more dust than this would be too faint for the astrometry.
-  double ebv = std::clamp(o.ebv_per_kpc * d_kpc * std::exp(rng.normal(0.0, 0.35)), 0.02, 1.8);
+  const double ebv_spread = std::exp(rng.normal(0.0, 0.35));
+  double ebv = std::clamp(o.ebv_per_kpc * d_kpc * ebv_spread, 0.02, 1.8);
+  if (at && at->ebv >= 0) ebv = std::clamp(at->ebv * ebv_spread, 0.005, 1.0);
   double ebv_err = o.ebv_error + 0.05 * ebv;
   double feh = rng.normal(o.feh_mean, o.feh_sigma);
   double blend = outlier ? -rng.uniform(0.6, 1.2) : 0.0;
 
   cat.column("STAR").push_text(id);
-  if (!o.clusters.empty()) cat.column("GROUP").push_text(at ? at->group : o.field_group);
+  if (grouped) cat.column("GROUP").push_text(at ? at->group : o.field_group);
   cat.column("PERIOD").push_real(rounded(period, 7));
   cat.column("MODE").push_text(overtone ? "1O" : "F");
   double ra = rng.uniform(0, 360), dec = std::asin(rng.uniform(-1, 1)) * 180 / std::numbers::pi;
-  if (at) ra = at->ra + rng.normal(0, 0.05), dec = at->dec + rng.normal(0, 0.05);
+  // A cluster spans minutes of arc, an anchor galaxy degrees.
+  const double spread = at && at->ebv >= 0 ? 1.5 : 0.05;
+  if (at) ra = at->ra + rng.normal(0, spread), dec = at->dec + rng.normal(0, spread);
   cat.column("RA").push_real(rounded(ra, 6));
   cat.column("DEC").push_real(rounded(dec, 6));
   cat.column("ECL_LAT").push_real(rounded(std::asin(rng.uniform(-1, 1)) * 180 / std::numbers::pi, 5));
@@ -338,6 +370,31 @@ Simulation simulate(const SimulateOptions& o, const BandTable& bands) {
     for (int m = 0; m < k.members; ++m)
       add_calibrator(cluster_rng, fmt::format("{}{:04d}", o.calibrator_prefix, ++member_number), &place, false);
   }
+  // Anchor galaxies, from a stream of their own after the clusters. Published moduli: the
+  // truth plus sigma_i (sqrt(rho) g + sqrt(1 - rho) n_i), one g shared, so that
+  // cov_ij = rho sigma_i sigma_j.
+  Random anchor_rng(o.seed ^ 0xA7C4D2B9E5F31A6Bull);
+  const double shared = anchor_rng.normal();
+  nlohmann::json covariance = nlohmann::json::array();
+  for (const SimulatedAnchor& a : o.anchors) {
+    const double mu_published =
+        a.mu + a.mu_err * (std::sqrt(o.anchor_correlation) * shared +
+                           std::sqrt(1.0 - o.anchor_correlation) * anchor_rng.normal());
+    sim.truth["anchors"].push_back({{"name", a.name},
+                                    {"mu_true", a.mu},
+                                    {"mu", rounded(mu_published, 4)},
+                                    {"mu_err", a.mu_err}});
+    nlohmann::json row = nlohmann::json::array();
+    for (const SimulatedAnchor& b : o.anchors)
+      row.push_back(a.name == b.name ? a.mu_err * a.mu_err
+                                     : o.anchor_correlation * a.mu_err * b.mu_err);
+    covariance.push_back(row);
+    Place place{std::pow(10.0, 0.2 * a.mu - 2.0), anchor_rng.uniform(0, 360),
+                std::asin(anchor_rng.uniform(-1, 1)) * 180 / std::numbers::pi, a.name, a.ebv};
+    for (int m = 0; m < a.members; ++m)
+      add_calibrator(anchor_rng, fmt::format("{}{:04d}", o.calibrator_prefix, ++member_number), &place, false);
+  }
+  if (!o.anchors.empty()) sim.truth["anchor_covariance"] = covariance;
 
   // A later data release: the same stars, new parallaxes with smaller errors, drawn from a
   // stream of their own so the first release's draw stays as it was.

@@ -38,6 +38,18 @@ struct SimulatedCluster {
   int members = 4;    // calibrators in it (numbered after the field calibrators)
 };
 
+// An anchor galaxy among the calibrators: Cepheids at one true distance far beyond useful
+// parallaxes, and its distance modulus as a user would take it from the literature: the
+// truth plus an error drawn with the anchors' correlation (published anchor distances share
+// calibration systematics).
+struct SimulatedAnchor {
+  std::string name;     // invented; the calibrators' GROUP value
+  double mu = 18.5;     // true distance modulus
+  int members = 20;     // calibrators in it (numbered after the clusters')
+  double mu_err = 0.03; // the published modulus's error (mag)
+  double ebv = 0.08;    // mean foreground reddening of its Cepheids (mag)
+};
+
 struct SimulateOptions {
   std::uint64_t seed = 1;               // the whole draw follows from it
   int n_calibrators = 120;              // Milky Way calibrators with parallaxes
@@ -73,6 +85,10 @@ struct SimulateOptions {
   std::vector<SimulatedCluster> clusters;  // [[cluster]]: drawn from their own stream
   double cluster_parallax_error_mas = 0.006;  // error of a cluster's mean parallax
   std::string field_group = "Milky Way";  // GROUP of the calibrators outside clusters
+  std::vector<SimulatedAnchor> anchors;   // [[anchor]]: drawn from their own stream
+  // Correlation of the anchors' published moduli errors, one for every pair (a shared
+  // systematic; 0: independent).
+  double anchor_correlation = 0.0;
   std::string bands_file;               // band table (wavelengths for the law)
   std::string output_folder = "sample_data";
 
