@@ -1,7 +1,7 @@
 // SPDX-License-Identifier: MIT
 // Times rungcal's bootstrap in the default fit configuration (the hierarchical likelihood:
-// smooth-histogram distance prior, outlier mixture, sigma_int free, [Fe/H] errors
-// marginalised) on a mock catalog, and writes the fit's inputs and full-sample optimum so
+// smooth-histogram distance prior, outlier and rising-blend mixture, sigma_int free, [Fe/H]
+// errors marginalised) on a mock catalog, and writes the fit's inputs and full-sample optimum so
 // bench/compare_hierarchical.py can check and time an independent numpy/scipy version.
 // bench_fit keeps timing the parallax-space special case.
 // Usage: bench_hierarchical RESAMPLES DATA.csv [STARS]
@@ -67,7 +67,7 @@ int main(int argc, char** argv) {
   if (!bench::usable(scenario)) return 2;
   const StarTable catalog = mock_calibrator_catalog(scenario);
 
-  FitOptions o;  // the defaults: hierarchical space, smooth histogram, mixture, sigma_int free
+  FitOptions o;  // the defaults: hierarchical space, smooth histogram, outliers, rising blends
   o.input_path = "bench";
   o.threads = 1;  // per-core time
   RelationOptions r;
@@ -121,6 +121,7 @@ int main(int argc, char** argv) {
   std::printf("full_usable %d\n", rr.solution.usable ? 1 : 0);
   std::printf("neg_log_likelihood %.17g\n", at_optimum.neg_log_likelihood);
   std::printf("histogram_start %.17g\n", h.histogram_start);
+  std::printf("histogram_alpha_ref %.17g\n", h.histogram_alpha_ref);
   std::printf("histogram_step %.17g\n", h.histogram_step);
   std::printf("histogram_bins %d\n", rr.layout.distance_bins + 1);
   std::printf("histogram_walk_sigma %.17g\n", h.histogram_walk_sigma);
@@ -128,14 +129,17 @@ int main(int argc, char** argv) {
   std::printf("outlier_mag_width %.17g\n", h.outlier_mag_width);
   std::printf("outlier_mag_shift %.17g\n", h.outlier_mag_shift);
   std::printf("outlier_parallax_factor %.17g\n", h.outlier_parallax_factor);
+  std::printf("blend_component %s\n", std::string(kBlendComponentNames.name(h.blends)).c_str());
+  std::printf("blend_min_mag %.17g\n", h.blend_min_mag);
   std::printf("pivot_log_period %.17g\n", rr.settings.terms.pivot_log_period);
   for (int j = 0; j < rr.layout.size; ++j) {
     const ParamSpec& p = rr.settings.params[static_cast<std::size_t>(j)];
-    // mode: free or fixed parameters only in the default configuration; a prior would need
-    // its centre and width passed on too.
-    std::printf("param %s %.17g %s %.17g\n", rr.layout.names[static_cast<std::size_t>(j)].c_str(),
-                rr.solution.theta[j], std::string(kParamModeNames.name(p.mode)).c_str(),
-                at_optimum.gradient[j]);
+    // name, value, mode, d(-ln L)/d(solver coordinate), and the prior's centre and width
+    // (used only when the mode is "prior": blend_scale_mag's by default).
+    std::printf("param %s %.17g %s %.17g %.17g %.17g\n",
+                rr.layout.names[static_cast<std::size_t>(j)].c_str(), rr.solution.theta[j],
+                std::string(kParamModeNames.name(p.mode)).c_str(), at_optimum.gradient[j], p.value,
+                p.prior_sigma);
   }
   // Where the bootstrap's time goes: a few resamples solved here as run_bootstrap solves
   // them (fit_stage.cpp: rows drawn with replacement, tolerances 1e-9 / 1e-8, start at the

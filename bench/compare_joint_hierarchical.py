@@ -2,17 +2,18 @@
 # SPDX-License-Identifier: MIT
 """Times rungcal's joint bootstrap in the default joint configuration (the hierarchical joint
 likelihood of three relations X, V, I: shared latent distance per star, sigma_int per
-relation, scatter correlation rho free, shared E(B-V) errors, outlier and blend mixture,
-[Fe/H] errors marginalised, smooth-histogram distance prior) against a plain numpy/scipy
+relation, scatter correlation rho free, shared E(B-V) errors, outlier and coloured-blend
+mixture with per-relation brightening ratios free, [Fe/H] errors marginalised,
+smooth-histogram distance prior) against a plain numpy/scipy
 implementation of the same -ln L on the same 1000-star mock (bench/bench_joint_hierarchical),
 after checking that both reach the same full-sample optimum (1e-6 relative in every alpha,
-beta, gamma, sigma_int, rho and the offset; exit 1 if not). bench/compare_hierarchical.py
+beta, gamma, sigma_int, rho, the offset and the blend ratios; exit 1 if not). bench/compare_hierarchical.py
 does the same for one relation.
 Run with Debian's Python:
     /usr/bin/python3 bench/compare_joint_hierarchical.py [build-dir] [rungcal-resamples] [scipy-resamples]
 
-The likelihood is written here from docs/method.md ("The hierarchical joint fit") and
-lib/rungcal/plfit/joint_hierarchical.hpp, vectorised over stars. Each star's K magnitudes
+The likelihood is written here from docs/method.md ("The hierarchical joint fit"),
+lib/rungcal/plfit/joint_hierarchical.hpp and blend_density.hpp, vectorised over stars. Each star's K magnitudes
 scatter about mu + M_k with
   S_kl = delta_kl (s_m,k^2 + sigma_k^2) + (1 - delta_kl) rho sigma_k sigma_l + c_k c_l s_E^2 + gamma_k gamma_l W,
 and the K-variate Gaussian is used in its factorised form (our choice; the direct form
@@ -25,12 +26,19 @@ so each star's mu integral is one relation's on m_eff with variance 1/a:
   p(mu) = sum_j w_j N(mu | c_0 + j h, h^2), w = softmax(eta), eta_0 = 0,
           c_0 = histogram_start - (mean alpha - histogram_alpha_ref)  (the grid moves with it)
 the member's p_c = N(0, 1/a), the outlier's N(0, 1/a + width^2) with F = outlier_parallax_factor,
-the blend's the Gaussian convolved with a Gamma(2, mean s) brightening beyond blend_min_mag
-(closed form: p(r) = lambda^2 sqrt(V) exp(lambda r + lambda^2 V / 2) [phi(z) + z Phi(z)],
-lambda = 2 / s, z = -(r + lambda V) / sqrt(V)). [Fe/H] errors marginalised as in Kelly 2007
+the blend's coloured: a blend brightens relation k by kap_k (b0 + b), b0 = blend_min_mag,
+b ~ Gamma(2, mean s), kap_first = 1 and the others the blend_ratio_<name> parameters (log
+scale). Brightening r by (b0 + b) kap moves m_eff by kap_eff (b0 + b) and the colour term by
+-(b0 + b) t - (b0 + b)^2 D / 2 (h = P kap - kap_eff P 1, kap_eff = 1^T P kap / a, D = kap^T h,
+t = kap^T P (r - m_eff 1)), so the blend's p_c is the b-integral
+  exp(-b0 t - b0^2 D / 2) lambda^2 int_0^inf b N(y + kap_eff b | 0, 1/a) exp(-(lambda + t + b0 D) b - D b^2 / 2) db,
+y = m_eff - mu + kap_eff b0, lambda = 2 / s, in closed form (hierarchical_reference.py's
+coloured_rising_blend; with kap = 1 it is the grey p(r) = lambda^2 sqrt(V) exp(lambda r +
+lambda^2 V / 2) [phi(z) + z Phi(z)], z = -(r + lambda V) / sqrt(V)). [Fe/H] errors marginalised as in Kelly 2007
 (ApJ 665, 1489); -ln L adds the random walk on eta (step histogram_walk_sigma) and the
 Gaussian priors (blend_scale_mag's by default). The gradient is analytic: d/dm_eff and d/d(1/a)
-of the mixture, then d/dr and d/dS by matrix calculus, then the chain rule.
+and d/d(kap_eff, D, t) of the mixture, then d/dr, d/dS and d/dkap by matrix calculus, then the
+chain rule.
 The mu integral (the blend component with its own node count and 1.3 curvature widths), the
 prior, the magnitude terms and the timed resamples are bench/hierarchical_reference.py's,
 shared with bench/compare_hierarchical.py.
@@ -40,21 +48,15 @@ import time
 
 import numpy as np
 
-from hierarchical_reference import (LOG2PI, bfgs, component, gaussian,
-                                    rising_blend, rule, report_times, run_bench, time_resamples)
+from hierarchical_reference import (LOG2PI, Coordinates, bfgs, component, coloured_rising_blend, gaussian,
+                                    hyperprior_terms, log_weights, mixture, read_output, rule, report_times,
+                                    run_bench, time_resamples)
 
 lines, (STAR, REL, XE, ME, VPHOT, COEF, PLXE, VPE, VEBVE, FEHE, VFEHE, KINDE), scipy_resamples = run_bench(
     "bench_joint_hierarchical", 100, 10)
 
-info, names, theta_r, modes_r, grad_r, centre_r, width_r = {}, [], [], [], [], [], []
-for w in lines:
-    if w[0] == "param":
-        names.append(w[1]), theta_r.append(float(w[2])), modes_r.append(w[3])
-        grad_r.append(float(w[4])), centre_r.append(float(w[5])), width_r.append(float(w[6]))
-    else:
-        info.setdefault(w[0], []).append(w[1:])
+info, names, theta_r, modes_r, grad_r, CENTRE, WIDTH = read_output(lines)
 get = lambda key: float(info[key][0][0])
-theta_r, grad_r = np.array(theta_r), np.array(grad_r)
 relations = [r[1] for r in info["relation"]]
 R = len(relations)
 
@@ -82,11 +84,10 @@ BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
 expected = [f"{p}_{r}" for r in relations for p in ("alpha", "beta", "gamma", "sigma_int")]
 expected += ["scatter_correlation", "parallax_offset_mas", "outlier_fraction", "outlier_shift_mag",
              "outlier_width_mag", "blend_fraction", "blend_scale_mag"]
+expected += [f"blend_ratio_{r}" for r in relations[1:]]
 expected += [f"distance_log_weight_{j}" for j in range(1, NB)] + ["feh_mean", "feh_spread"]
 if names != expected:
     sys.exit(f"compare_joint_hierarchical.py: unexpected parameters {names}")
-if any(m not in ("free", "fixed", "prior") for m in modes_r):
-    sys.exit(f"compare_joint_hierarchical.py: unknown parameter modes {set(modes_r)}")
 ix = {n: j for j, n in enumerate(names)}
 IA = np.array([ix[f"alpha_{r}"] for r in relations])
 IBETA = np.array([ix[f"beta_{r}"] for r in relations])
@@ -95,66 +96,38 @@ IS = np.array([ix[f"sigma_int_{r}"] for r in relations])
 IR, IO, IF, ISH, IW = (ix[n] for n in ("scatter_correlation", "parallax_offset_mas", "outlier_fraction",
                                        "outlier_shift_mag", "outlier_width_mag"))
 IFB, IBS, IZ, IT = (ix[n] for n in ("blend_fraction", "blend_scale_mag", "feh_mean", "feh_spread"))
+IK = np.array([ix[f"blend_ratio_{r}"] for r in relations[1:]], dtype=int)
 IE = np.arange(ix["distance_log_weight_1"], ix["distance_log_weight_1"] + NB - 1)
-LOG = np.concatenate((IS, [IW, IBS, IT]))
-LOGIT = np.array([IF, IFB])
-FREE = np.array([j for j, m in enumerate(modes_r) if m != "fixed"])
-PRIOR = np.array([j for j, m in enumerate(modes_r) if m == "prior"], dtype=int)
-CENTRE, WIDTH = np.array(centre_r), np.array(width_r)
-
-
-def to_internal(t):
-    x = np.array(t, dtype=float)
-    x[LOG] = np.log(t[LOG])
-    x[LOGIT] = np.log(t[LOGIT] / (1.0 - t[LOGIT]))
-    x[IR] = np.arctanh(t[IR])
-    return x
-
-
-def to_external(x):
-    t = np.array(x, dtype=float)
-    t[LOG] = np.exp(x[LOG])
-    t[LOGIT] = 1.0 / (1.0 + np.exp(-x[LOGIT]))
-    t[IR] = np.tanh(x[IR])
-    return t
-
-
-def slope(t):
-    """d external / d internal."""
-    s = np.ones_like(t)
-    s[LOG] = t[LOG]
-    s[LOGIT] = t[LOGIT] * (1.0 - t[LOGIT])
-    s[IR] = 1.0 - t[IR] ** 2
-    return s
+COORD = Coordinates(np.concatenate((IS, [IW, IBS, IT], IK)), [IF, IFB], [IR], modes_r)
+FREE, PRIOR = COORD.free, COORD.prior
 
 
 class Likelihood:
     """-ln L and its gradient in internal coordinates over the free parameters, for stars
     `rows` with weights `w`; `fixed` holds every parameter's external value (the fixed ones'
-    are used), `centre` the priors' centres."""
+    are used), `centre` the priors' centres; `free`: the parameters solved for."""
 
-    def __init__(self, rows, w, fixed, centre):
+    def __init__(self, rows, w, fixed, centre, free=FREE):
         self.x, self.m, self.vphot, self.coef = X[rows], M0[rows], VPHOT[rows], COEF[rows]
         self.plx, self.vp, self.vebv, self.z, self.s2 = PLX[rows], VP[rows], VEBV[rows], FEH[rows], VFEH[rows]
-        self.w, self.fixed, self.centre = w, np.array(fixed, dtype=float), centre
+        self.w, self.fixed, self.centre, self.free = w, np.array(fixed, dtype=float), centre, free
         self.caches = [np.full(len(rows), np.nan) for _ in range(3)]
         self.evaluations = 0
 
     def full(self, xi):
-        x = to_internal(self.fixed)
-        x[FREE] = xi
+        x = COORD.to_internal(self.fixed)
+        x[self.free] = xi
         return x
 
     def __call__(self, xi):
         self.evaluations += 1
-        t = to_external(self.full(xi))
+        t = COORD.to_external(self.full(xi))
         alpha, beta, gamma, sig = t[IA], t[IBETA], t[IG], t[IS]
         rho, off, f, fb, bs = t[IR], t[IO], t[IF], t[IFB], t[IBS]
         shift, wide = t[ISH], t[IW] ** 2
         mu_z, tau2 = t[IZ], t[IT] ** 2
         eta = np.concatenate(([0.0], t[IE]))
-        logw = eta - eta.max()
-        logw -= np.log(np.exp(logw).sum())
+        logw = log_weights(eta)
         c0 = C0 - (alpha.mean() - ALPHA_REF)
         w, K = self.w, R
         # [Fe/H]: the latent value's mean and variance given the measurement, shared by the relations.
@@ -172,7 +145,7 @@ class Likelihood:
         try:
             chol = np.linalg.cholesky(S)
         except np.linalg.LinAlgError:  # rho below -1/(K-1): outside the model, the solver steps back
-            return np.inf, np.full(len(FREE), np.nan)
+            return np.inf, np.full(len(self.free), np.nan)
         log_det = 2.0 * np.log(np.diagonal(chol, axis1=1, axis2=2)).sum(1)
         P = np.linalg.inv(S)
         p = P.sum(2)
@@ -182,17 +155,24 @@ class Likelihood:
         u = s - m_eff[:, None] * p
         colour = -0.5 * ((K - 1) * LOG2PI + log_det + np.log(a) + (u * (r - m_eff[:, None])).sum(1))
         v = 1.0 / a
+        # The coloured blend: brightening relation k by kap_k (b0 + b) moves r to r + (b0 + b) kap,
+        # so m_eff by kap_eff (b0 + b), and the colour term by -(b0 + b) t - (b0 + b)^2 D / 2
+        # (expanding (r - m_eff 1)^T P (r - m_eff 1); 1^T u = 0), with h = P kap - kap_eff p,
+        # kap_eff = p^T kap / a, D = kap^T h >= 0 and t = kap^T u. The mu integral is the
+        # coloured density's at m_eff - mu + kap_eff b0 with tilt t + b0 D.
+        kap = np.concatenate(([1.0], t[IK]))
+        kap_eff = (p @ kap) / a
+        hk = P @ kap - kap_eff[:, None] * p
+        D = np.maximum(hk @ kap, 0.0)
+        tilt = u @ kap
         cm, co, cb = self.caches
         A = component(m_eff, v, bs, gaussian, MEMBER_RULE, 1.0, self.plx, self.vp, 0.0, off, c0, H, logw, cm)
         O = component(m_eff, v + wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, PLX_F2 * self.vp, shift, off,
                       c0, H, logw, co)
-        Bl = component(m_eff, v, bs, rising_blend, BLEND_RULE, 1.3, self.plx, self.vp, BLEND_MIN, off, c0, H, logw,
-                       cb)
-        la = np.log1p(-f) + np.log1p(-fb) + A[0]
-        lo = np.log(f) + O[0]
-        lb = np.log1p(-f) + np.log(fb) + Bl[0]
-        li = np.logaddexp(np.logaddexp(la, lo), lb)
-        qa, qo, qb = np.exp(la - li), np.exp(lo - li), np.exp(lb - li)
+        Bl = component(m_eff + kap_eff * BLEND_MIN, v, bs, coloured_rising_blend, BLEND_RULE, 1.3, self.plx,
+                       self.vp, 0.0, off, c0, H, logw, cb, (kap_eff, D, tilt + BLEND_MIN * D))
+        blend_log_l = Bl[0] - BLEND_MIN * tilt - 0.5 * BLEND_MIN ** 2 * D
+        li, qa, qo, qb, d_f, d_fb = mixture(f, fb, A[0], O[0], blend_log_l)
         mix = lambda k: qa * A[k] + qo * O[k] + qb * Bl[k]
         f_m, f_v, d_off, d_grid = mix(1), mix(2), mix(4), mix(5)
         d_eta = qa[:, None] * A[6] + qo[:, None] * O[6] + qb[:, None] * Bl[6]
@@ -202,6 +182,18 @@ class Likelihood:
         G = (-(f_m / (2.0 * a))[:, None, None] * (pu + pu.transpose(0, 2, 1))
              + (f_v / a ** 2 + 0.5 / a)[:, None, None] * p[:, :, None] * p[:, None, :]
              - 0.5 * P + 0.5 * u[:, :, None] * u[:, None, :])
+        # The coloured blend's own terms, through kap_eff (shift and tilt), D and t:
+        # d kap_eff = -p^T dS h / a + p^T dkap / a, dD = -h^T dS h + 2 h^T dkap,
+        # dt = h^T dr - h^T dS u + u^T dkap (dP = -P dS P).
+        d_kap = Bl[7] + BLEND_MIN * Bl[1]
+        d_curv = Bl[8] + BLEND_MIN * Bl[9] - 0.5 * BLEND_MIN ** 2
+        d_tilt = Bl[9] - BLEND_MIN
+        gr += (qb * d_tilt)[:, None] * hk
+        ph = p[:, :, None] * hk[:, None, :]
+        hu = hk[:, :, None] * u[:, None, :]
+        G -= ((qb * d_kap / (2.0 * a))[:, None, None] * (ph + ph.transpose(0, 2, 1))
+              + (qb * d_curv)[:, None, None] * hk[:, :, None] * hk[:, None, :]
+              + (0.5 * qb * d_tilt)[:, None, None] * (hu + hu.transpose(0, 2, 1)))
         Gg = np.einsum("nkl,l->nk", G, gamma)
         Gs = np.einsum("nkl,l->nk", G, sig)
         Gdiag = np.diagonal(G, axis1=1, axis2=2)
@@ -212,8 +204,10 @@ class Likelihood:
         g[IS] = w @ (2.0 * sig * Gdiag + 2.0 * rho * (Gs - Gdiag * sig))
         g[IR] = w @ (np.einsum("nkl,k,l->n", G, sig, sig) - Gdiag @ (sig * sig))
         g[IO] = w @ d_off
-        g[IF] = w @ (qo / f - (qa + qb) / (1.0 - f))
-        g[IFB] = w @ (qb / fb - qa / (1.0 - fb))
+        g[IF] = w @ d_f
+        g[IFB] = w @ d_fb
+        g[IK] = (w @ (qb[:, None] * (d_kap[:, None] * p / a[:, None] + 2.0 * d_curv[:, None] * hk
+                                     + d_tilt[:, None] * u)))[1:]
         g[IBS] = w @ (qb * Bl[3])
         g[ISH] = w @ (qo * O[1])
         g[IW] = (w @ (qo * O[2])) * 2.0 * t[IW]
@@ -223,41 +217,36 @@ class Likelihood:
         g[IZ] = w @ (dz / den + d_zbar * self.s2 / den)
         g[IT] = (w @ (0.5 * (dz * dz - den) / den ** 2 + d_zbar * self.s2 * dz / den ** 2
                       + d_wz * self.s2 ** 2 / den ** 2)) * 2.0 * t[IT]
-        value = -(w @ (li + colour + log_nz))
         g = -g
-        step = np.diff(eta) / WALK
-        value += 0.5 * step @ step
-        g[IE] += step / WALK
-        g[IE[:-1]] -= step[1:] / WALK
-        zp = (t[PRIOR] - self.centre[PRIOR]) / WIDTH[PRIOR]
-        value += 0.5 * zp @ zp
-        g[PRIOR] += zp / WIDTH[PRIOR]
-        return value, (g * slope(t))[FREE]
+        value = -(w @ (li + colour + log_nz)) + hyperprior_terms(t, eta, IE, WALK, PRIOR, self.centre, WIDTH, g)
+        return value, (g * COORD.slope(t))[self.free]
 
 
 def fit(lik, start, gtol):
-    res = bfgs(lik, to_internal(start)[FREE], gtol)
-    return to_external(lik.full(res.x)), res
+    res = bfgs(lik, COORD.to_internal(start)[lik.free], gtol)
+    return COORD.to_external(lik.full(res.x)), res
 
 
 everyone = lambda fixed=theta_r: Likelihood(np.arange(N), np.ones(N), fixed, CENTRE)
 
 # The likelihood itself, at rungcal's optimum (a fresh evaluation on both sides).
-value, grad = everyone()(to_internal(theta_r)[FREE])
+value, grad = everyone()(COORD.to_internal(theta_r)[FREE])
 t0 = time.perf_counter()
 for _ in range(5):
-    everyone()(to_internal(theta_r)[FREE])
+    everyone()(COORD.to_internal(theta_r)[FREE])
 numpy_eval_ms = (time.perf_counter() - t0) / 5 * 1e3
 nll_r = get("neg_log_likelihood")
 print(f"stars {N}, relations {', '.join(relations)}, hierarchical joint likelihood, smooth histogram ({NB} bins of "
-      f"{H} mag), outlier and rising-blend mixture, sigma_int per relation, rho free, E(B-V) and [Fe/H] errors")
+      f"{H} mag), outlier and coloured rising-blend mixture (blend ratios free), sigma_int per relation, rho free, "
+      f"E(B-V) and [Fe/H] errors")
 print(f"-ln L at rungcal's optimum: rungcal {nll_r:.10f}, numpy {value:.10f} (difference {value - nll_r:.2e})")
 print(f"gradient there (free parameters, solver coordinates): max |rungcal - numpy| = "
       f"{np.max(np.abs(grad - grad_r[FREE])):.2e} (max |g| rungcal {np.max(np.abs(grad_r[FREE])):.2e})")
 
 # An independent start: per relation a magnitude-space line through the stars with parallax
-# S/N > 10, scatter 0.1, rho 0, fractions 0.02, the blend prior's centre, a flat histogram,
-# the [Fe/H] sample's moments; the fixed parameters at rungcal's values.
+# S/N > 10, scatter 0.1, rho 0, fractions 0.02, grey blends (ratios 1), the blend prior's
+# centre, a flat histogram, the [Fe/H] sample's moments; the fixed parameters at rungcal's
+# values.
 good = PLX > 10.0 * np.sqrt(VP)
 start = theta_r.copy()
 design = np.column_stack([np.ones(good.sum()), X[good, 0], FEH[good]])
@@ -267,13 +256,21 @@ for k in range(R):
                                                        rcond=None)[0]
 start[IS], start[IR], start[IO], start[IF], start[IFB] = 0.1, 0.0, 0.0, 0.02, 0.02
 start[IE] = 0.0
+start[IK] = 1.0
 start[PRIOR] = CENTRE[PRIOR]
 start[IZ], start[IT] = FEH.mean(), np.sqrt(max(FEH.var() - VFEH.mean(), 0.05 ** 2))
+# Grey blends first, then the ratios freed: from grey start values BFGS's first steps let the
+# blend fraction collapse, after which the ratios have nothing to measure and wander off
+# (measured on this mock from the start above: ratios 17 and 80, blend_fraction 0, -ln L 27
+# above rungcal's optimum).
 full = everyone()
 t0 = time.perf_counter()
-theta_s, res = fit(full, start, 1e-7)
+grey = Likelihood(np.arange(N), np.ones(N), start, CENTRE, np.setdiff1d(FREE, IK))
+theta_s, res = fit(full, fit(grey, start, 1e-5)[0], 1e-7)
+full.evaluations += grey.evaluations
 full_s = time.perf_counter() - t0
-check = np.concatenate((IA, IBETA, IG, IS, [IR, IO]))
+print(f"-ln L at scipy's own optimum: {res.fun:.10f} (rungcal's {nll_r:.10f})")
+check = np.concatenate((IA, IBETA, IG, IS, [IR, IO], IK))
 rel = np.abs(theta_s[check] / theta_r[check] - 1)
 print(f"full sample (scipy BFGS from its own start: {res.nit} iterations, {full.evaluations} evaluations, "
       f"{full_s:.1f} s, max |gradient| {np.max(np.abs(res.jac)):.1e}, '{res.message}';\n"
@@ -285,8 +282,8 @@ print(f"  also: outlier_fraction {theta_r[IF]:.6f} / {theta_s[IF]:.6f}, blend_fr
       f"{theta_s[IFB]:.6f}, blend_scale {theta_r[IBS]:.6f} / {theta_s[IBS]:.6f}, feh_spread {theta_r[IT]:.6f} / "
       f"{theta_s[IT]:.6f}, max |eta difference| {np.max(np.abs(theta_r[IE] - theta_s[IE])):.1e}")
 worst = np.max(rel)
-print(f"full-sample optimum agrees to {worst:.1e} relative in every alpha, beta, gamma, sigma_int, rho and the "
-      f"offset (target 1e-6)")
+print(f"full-sample optimum agrees to {worst:.1e} relative in every alpha, beta, gamma, sigma_int, rho, the "
+      f"offset and the blend ratios (target 1e-6)")
 if not worst <= 1e-6:
     print("FAIL: the optima differ by more than 1e-6 relative; no timing")
     sys.exit(1)

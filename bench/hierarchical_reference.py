@@ -37,6 +37,55 @@ def run_bench(program, default_resamples, default_scipy_resamples):
             int(sys.argv[3]) if len(sys.argv) > 3 else default_scipy_resamples)
 
 
+def read_output(lines):
+    """The bench's output: key -> its lines' words, and its parameter lines (name, value,
+    mode, d(-ln L)/d(solver coordinate), prior centre, prior width) as names, values, modes,
+    gradient, centres and widths."""
+    info, rows = {}, []
+    for w in lines:
+        if w[0] == "param":
+            rows.append(w[1:])
+        else:
+            info.setdefault(w[0], []).append(w[1:])
+    values, grad, centre, width = (np.array([float(r[k]) for r in rows]) for k in (1, 3, 4, 5))
+    return info, [r[0] for r in rows], values, [r[2] for r in rows], grad, centre, width
+
+
+class Coordinates:
+    """rungcal's solver coordinates: a log scale for the indices `log` (scales, the blend
+    ratios), logit for `logit` (fractions), atanh for `atanh` (a correlation), the rest
+    linear; only the parameters whose mode is not "fixed" are solved for (free)."""
+
+    def __init__(self, log, logit, atanh, modes):
+        self.log, self.logit, self.atanh = (np.asarray(a, dtype=int) for a in (log, logit, atanh))
+        self.free = np.array([j for j, m in enumerate(modes) if m != "fixed"], dtype=int)
+        self.prior = np.array([j for j, m in enumerate(modes) if m == "prior"], dtype=int)
+        if any(m not in ("free", "fixed", "prior") for m in modes):
+            sys.exit(f"unknown parameter modes {set(modes)}")
+
+    def to_internal(self, t):
+        x = np.array(t, dtype=float)
+        x[self.log] = np.log(x[self.log])
+        x[self.logit] = np.log(x[self.logit] / (1.0 - x[self.logit]))
+        x[self.atanh] = np.arctanh(x[self.atanh])
+        return x
+
+    def to_external(self, x):
+        t = np.array(x, dtype=float)
+        t[self.log] = np.exp(t[self.log])
+        t[self.logit] = 1.0 / (1.0 + np.exp(-t[self.logit]))
+        t[self.atanh] = np.tanh(t[self.atanh])
+        return t
+
+    def slope(self, t):
+        """d external / d internal."""
+        s = np.ones_like(t)
+        s[self.log] = t[self.log]
+        s[self.logit] = t[self.logit] * (1.0 - t[self.logit])
+        s[self.atanh] = 1.0 - t[self.atanh] ** 2
+        return s
+
+
 KC = 0.2 * np.log(10.0)  # -d ln(parallax) / d mu
 LOG2PI = np.log(2.0 * np.pi)
 
@@ -75,37 +124,65 @@ def gaussian(r, V, s):
             0.5 * (r * r / V - 1.0) / V, 0.0)
 
 
-def rising_blend(r, V, s):
-    """The rising blend's magnitude term: N(0, V) convolved with a Gamma(2, mean s)
-    brightening, in closed form
-        p(r) = lambda^2 sqrt(V) exp(lambda r + lambda^2 V / 2) [phi(z) + z Phi(z)],
-        lambda = 2 / s, z = -(r + lambda V) / sqrt(V),
-    with g(z) = ln(phi + z Phi): g' = 1/A, g'' = -B/A^2, A = z + phi/Phi, B = 1 - (phi/Phi) A.
-    Below z = -5, A comes from the scaled complementary error function (Phi/phi =
-    sqrt(pi/2) erfcx(-z/sqrt 2)) rather than from a difference of nearly equal terms."""
-    lam, sd = 2.0 / s, np.sqrt(V)
-    z = -(r + lam * V) / sd
+def coloured_rising_blend(r, V, s, kap, D, tilt):
+    """A blend's magnitude term when its brightening b ~ Gamma(2, mean s) moves the reduced
+    magnitude by kap b and leaves a colour residual contributing -tilt b - D b^2 / 2 to ln L
+    (the joint fit's coloured blends; kap = 1, D = tilt = 0 is the grey rising blend):
+        p(r) = lambda^2 int_0^inf b N(r + kap b | 0, V) exp(-(lambda + tilt) b - D b^2 / 2) db,
+    lambda = 2 / s. Completing the square in b, with A = kap^2 / V + D, B = kap r / V + lambda
+    + tilt and z = -B / sqrt(A), int_0^inf b exp(-A b^2 / 2 - B b) db = (sqrt(2 pi) / A)
+    exp(z^2 / 2) [phi(z) + z Phi(z)], so
+        ln p = 2 ln lambda - ln V / 2 - ln A - r^2 / (2 V) + z^2 / 2 + ln Phi(z) + ln(z + psi),
+    psi = phi / Phi, with r^2 / (2 V) - z^2 / 2 written as one fraction so nothing cancels.
+    With F(z) = z^2 / 2 + ln Phi + ln(z + psi): F' = z + psi + Bz / Az, F'' = 1 - Bz / Az^2
+    (Az = z + psi, Bz = 1 - psi Az = dAz / dz), and every argument x enters through
+    d ln p / dx = (explicit part) + F' dz/dx, dz/dx = -B_x / sqrt(A) - z A_x / (2 A).
+    Below z = -5, Az comes from the scaled complementary error function (Phi/phi =
+    sqrt(pi/2) erfcx(-z/sqrt 2)) rather than from a difference of nearly equal terms.
+    Returns ln p and its derivatives in r (first, second), V, s, kap, D and tilt."""
+    lam = 2.0 / s
+    lam_t = lam + tilt
+    A = kap * kap / V + D
+    root = np.sqrt(A)
+    z = -(kap * r / V + lam_t) / root
     tail = z < -5.0
     zt = np.where(tail, z, -6.0)
     zc = np.where(tail, 0.0, z)
     mills = np.sqrt(0.5 * np.pi) * erfcx(-zt / np.sqrt(2.0))
     log_cdf = np.where(tail, -0.5 * z * z - 0.5 * LOG2PI + np.log(mills), log_ndtr(zc))
     psi = np.where(tail, 1.0 / mills, np.exp(-0.5 * zc * zc - 0.5 * LOG2PI - log_ndtr(zc)))
-    A = np.where(tail, (1.0 + zt * mills) / mills, zc + psi)
-    B = 1.0 - psi * A
-    logp = 2.0 * np.log(lam) + 0.5 * np.log(V) + lam * r + 0.5 * lam * lam * V + log_cdf + np.log(A)
-    d_lam = 2.0 / lam + r + lam * V - sd / A
-    return (logp, lam - 1.0 / (A * sd), -B / (A * A * V),
-            0.5 / V + 0.5 * lam * lam + (-lam / sd - 0.5 * z / V) / A, -0.5 * lam * lam * d_lam)
+    Az = np.where(tail, (1.0 + zt * mills) / mills, zc + psi)
+    Bz = 1.0 - psi * Az
+    F1 = z + psi + Bz / Az
+    F2 = 1.0 - Bz / (Az * Az)
+    logp = (2.0 * np.log(lam) - 0.5 * np.log(V) - np.log(A)
+            + (2.0 * kap * r * lam_t + lam_t * lam_t * V - D * r * r) / (2.0 * V * A) + log_cdf + np.log(Az))
+    z_r = -kap / (V * root)
+    z_v = kap * r / (V * V * root) + z * kap * kap / (2.0 * A * V * V)
+    d_lam = 2.0 / lam - F1 / root
+    return (logp, -r / V + F1 * z_r, -1.0 / V + F2 * z_r * z_r,
+            -0.5 / V + 0.5 * r * r / (V * V) + kap * kap / (V * V * A) + F1 * z_v, -0.5 * lam * lam * d_lam,
+            -2.0 * kap / (V * A) + F1 * (-r / (V * root) - z * kap / (V * A)),
+            -1.0 / A - F1 * z / (2.0 * A), -F1 / root)
 
 
-def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, logw, cache):
+def rising_blend(r, V, s):
+    """The grey rising blend's magnitude term: N(0, V) convolved with a Gamma(2, mean s)
+    brightening, p(r) = lambda^2 sqrt(V) exp(lambda r + lambda^2 V / 2) [phi(z) + z Phi(z)],
+    z = -(r + lambda V) / sqrt(V): coloured_rising_blend with kap = 1, D = tilt = 0. Returns
+    ln p and its derivatives in r (first, second), V and s."""
+    return coloured_rising_blend(r, V, s, 1.0, 0.0, 0.0)[:5]
+
+
+def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, logw, cache, colour=()):
     """One mixture component's integral over mu per star,
-        int dmu p(mu) mag(m - mu + shift | V, s) N(plx | 10^(-0.2 (mu - 10)) + off, vp),
-    m: each star's magnitude less its model; shift: how much brighter the component starts.
+        int dmu p(mu) mag(m - mu + shift | V, s, *colour) N(plx | 10^(-0.2 (mu - 10)) + off, vp),
+    m: each star's magnitude less its model; shift: how much brighter the component starts;
+    colour: per-star arrays a coloured magnitude term takes after s.
     Returns ln of it and, over its normalised integrand, the expectations of d/dm, d/dV and
-    d/ds of the magnitude term, d/doff of the parallax term, d ln p / dmu, and
-    d ln p / d eta_j (j >= 1). quad: rule(n); width_factor: the width in curvature widths.
+    d/ds of the magnitude term, d/doff of the parallax term, d ln p / dmu,
+    d ln p / d eta_j (j >= 1), then those of the magnitude term's derivatives in the colour
+    arguments. quad: rule(n); width_factor: the width in curvature widths.
     cache: each star's last mode, the next Newton start."""
     nodes, logw_q = quad
 
@@ -113,7 +190,7 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
         _, d1, d2, _ = prior(mu, c0, step, logw)
         pt = np.exp(-KC * (mu - 10.0))
         e = plx[i] - pt - off
-        _, m1, m2, _, _ = mag(m[i] - mu + shift, V[i], s)
+        _, m1, m2 = mag(m[i] - mu + shift, V[i], s, *(c[i] for c in colour))[:3]
         slope = d1 - m1 - e * KC * pt / vp[i]
         fisher = -m2 + KC * KC * pt * pt / vp[i] - np.minimum(d2, 0.0)
         exact = -m2 + KC * KC * pt * (pt - e) / vp[i] - d2
@@ -136,7 +213,8 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     muk = mu[:, None] + width[:, None] * nodes
     logp, resp, dlogp = prior(muk, c0, step, logw, curvature=False)
     pt = np.exp(-KC * (muk - 10.0))
-    lp, d_r, _, d_v, d_s = mag(m[:, None] - muk + shift, V[:, None], s)
+    lp, d_r, _, d_v, d_s, *d_colour = mag(m[:, None] - muk + shift, V[:, None], s,
+                                          *(c[:, None] for c in colour))
     e = plx[:, None] - pt - off
     terms = logw_q + logp + lp - 0.5 * e * e / vp[:, None]
     top = terms.max(1)
@@ -146,7 +224,38 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     log_l = np.log(np.sqrt(2.0) * width) + top + np.log(tot) - 0.5 * (LOG2PI + np.log(vp))
     d_eta = np.einsum("nk,nkb->nb", q, resp)[:, 1:] - np.exp(logw[1:])
     d_s = (q * d_s).sum(1) if np.ndim(d_s) else 0.0
-    return log_l, (q * d_r).sum(1), (q * d_v).sum(1), d_s, (q * e).sum(1) / vp, (q * dlogp).sum(1), d_eta
+    return (log_l, (q * d_r).sum(1), (q * d_v).sum(1), d_s, (q * e).sum(1) / vp, (q * dlogp).sum(1), d_eta,
+            *((q * d).sum(1) for d in d_colour))
+
+
+def log_weights(eta):
+    """ln w = ln softmax(eta) of the histogram's bins (eta_0 = 0 first)."""
+    logw = eta - eta.max()
+    return logw - np.log(np.exp(logw).sum())
+
+
+def mixture(f, fb, member, outlier, blend):
+    """ln L_i = ln[(1 - f)(1 - f_b) L^member + f L^outlier + (1 - f) f_b L^blend] from each
+    component's ln L (blends are a share of the non-outliers), each component's posterior
+    probability, and d ln L_i / d f, d f_b."""
+    la = np.log1p(-f) + np.log1p(-fb) + member
+    lo = np.log(f) + outlier
+    lb = np.log1p(-f) + np.log(fb) + blend
+    li = np.logaddexp(np.logaddexp(la, lo), lb)
+    qa, qo, qb = np.exp(la - li), np.exp(lo - li), np.exp(lb - li)
+    return li, qa, qo, qb, qo / f - (qa + qb) / (1.0 - f), qb / fb - qa / (1.0 - fb)
+
+
+def hyperprior_terms(t, eta, bins, walk, prior, centre, width, g):
+    """Adds to g (d(-ln L)/d external) the random walk on the histogram's log-weights eta
+    (indices `bins`, step `walk`) and the Gaussian priors of the parameters `prior`;
+    returns their -ln of the density."""
+    step = np.diff(eta) / walk
+    g[bins] += step / walk
+    g[bins[:-1]] -= step[1:] / walk
+    zp = (t[prior] - centre[prior]) / width[prior]
+    g[prior] += zp / width[prior]
+    return 0.5 * step @ step + 0.5 * zp @ zp
 
 
 def bfgs(f, x0, gtol):
