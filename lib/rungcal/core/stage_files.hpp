@@ -10,7 +10,8 @@ namespace rungcal {
 // once, beside its options (`StageFiles declared_files(const XOptions&)`), and both the stage
 // and rungcal-run use that declaration: rungcal-run keys a stage by every input declared and
 // checks every product declared, so a file the stage reads cannot be left out of its key
-// (issue 18: the fit's zero-point table once was). Declaring reads no file.
+// (issue 18: the fit's zero-point table once was). Declaring reads no data: at most the
+// configs or the store's 'latest' link that name the files (the grid, the report, apply).
 struct StageFiles {
   std::vector<std::string> inputs;       // files it reads (a missing one keys as missing)
   std::vector<std::string> input_globs;  // patterns whose every match it reads (one file per star)
