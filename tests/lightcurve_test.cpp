@@ -523,7 +523,9 @@ void expect_per_star_files_match_one_table(
   const LightCurveOptions fo = lightcurve_options_from_file(dir.file("files.toml"));
   const LightCurveResult per = run_lightcurves(fo);
   EXPECT_EQ(per.provenance.inputs.size(), files.size());  // every file, with its hash
-  EXPECT_EQ(lightcurve_input_files(fo).size(), files.size());
+  // The stage declares the glob; every file it matches, and the band table, key it.
+  EXPECT_EQ(declared_files(fo).input_globs, std::vector<std::string>{fo.source.path});
+  EXPECT_EQ(input_files_now(declared_files(fo)).size(), files.size() + 1);
   ASSERT_EQ(per.stars.size(), 4u);
   ASSERT_EQ(one.stars.size(), 4u);
   const StarTable a = one.summary_table(TimeScale::kBjdTdb), b = per.summary_table(TimeScale::kBjdTdb);

@@ -17,7 +17,7 @@
 #include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/report/html.hpp"
 #include "rungcal/report/site.hpp"
-#include "rungcal/run/run_history.hpp"
+#include "rungcal/report/run_history.hpp"
 #include "reference_store.hpp"
 #include "test_util.hpp"
 

@@ -9,6 +9,7 @@
 #include "rungcal/calibration/host_covariance.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_names.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -77,20 +78,24 @@ StarTable hosts_table(const ApplyResult& r) {
       r.hosts);
 }
 
-std::string beside(const std::string& path, const std::string& suffix) {
-  const std::filesystem::path p(path);
-  return (p.parent_path() / (p.stem().string() + suffix)).string();
-}
-
 }  // namespace
 
 ApplyProductPaths apply_product_paths(const ApplyOptions& o) {
   ApplyProductPaths p;
   p.fits = o.output_path;
-  p.stars_csv = o.csv_path.empty() ? beside(o.output_path, ".csv") : o.csv_path;
-  p.hosts_csv = beside(p.stars_csv, "_hosts.csv");
-  p.covariance_csv = beside(p.stars_csv, "_host_covariance.csv");
+  p.stars_csv = o.csv_path.empty() ? path_beside(o.output_path, ".csv") : o.csv_path;
+  p.hosts_csv = path_beside(p.stars_csv, "_hosts.csv");
+  p.covariance_csv = path_beside(p.stars_csv, "_host_covariance.csv");
   return p;
+}
+
+StageFiles declared_files(const ApplyOptions& o) {
+  StageFiles f;
+  f.add_input(calibration_file(o.store, o.calibration));
+  f.add_input(o.targets_path);
+  f.add_input(o.grid_path);
+  f.outputs = apply_product_paths(o).all();
+  return f;
 }
 
 ApplyResult apply_calibration_files(const ApplyOptions& o) {

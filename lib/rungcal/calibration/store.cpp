@@ -263,9 +263,48 @@ void set_latest_version(const std::string& store, const std::string& name, int v
   point_latest_at(folder, version);
 }
 
+namespace {
+
+// "name@which" -> {name, which}; "name" alone means name@latest.
+std::pair<std::string, std::string> split_reference(const std::string& reference) {
+  const auto at = reference.find('@');
+  return {reference.substr(0, at), at == std::string::npos ? "latest" : reference.substr(at + 1)};
+}
+
+}  // namespace
+
+std::string calibration_folder(const std::string& store, const std::string& name) {
+  return (fs::path(store) / name).string();
+}
+
+std::string calibration_file(const std::string& store, const std::string& reference) {
+  const auto [name, which] = split_reference(reference);
+  const std::string folder = calibration_folder(store, name);
+  std::optional<int> version;
+  if (which == "latest") {
+    version = latest_link_version(folder);
+  } else {
+    try {
+      version = std::stoi(which);  // as load_calibration reads it
+    } catch (const std::exception&) {
+      return "";
+    }
+  }
+  if (!version) return "";
+  return (fs::path(folder) / version_folder(*version) / "calibration.json").string();
+}
+
+StageFiles declared_files(const PublishOptions& o) {
+  StageFiles f;
+  f.add_input(o.fit_path);
+  f.add_input(o.residuals_path);
+  f.add_input(o.config_path);
+  f.adds_to = calibration_folder(o.store, o.name);
+  return f;
+}
+
 Calibration load_calibration(const std::string& store, const std::string& reference) {
-  auto at = reference.find('@');
-  std::string name = reference.substr(0, at), which = at == std::string::npos ? "latest" : reference.substr(at + 1);
+  const auto [name, which] = split_reference(reference);
   fs::path folder = fs::path(store) / name;
   int version = 0;
   if (which == "latest") {

@@ -7,6 +7,7 @@
 
 #include "rungcal/calibration/calibration.hpp"
 #include "rungcal/core/file_lock.hpp"  // BusyError
+#include "rungcal/core/stage_files.hpp"
 
 namespace rungcal {
 
@@ -68,6 +69,16 @@ Calibration load_calibration(const std::string& store, const std::string& refere
 
 // Versions present in a store for a name, ascending.
 std::vector<int> calibration_versions(const std::string& store, const std::string& name);
+
+// STORE/NAME: a calibration's versions, its 'latest' link and its lock.
+std::string calibration_folder(const std::string& store, const std::string& name);
+// STORE/NAME/vNNNN/calibration.json for a reference ("name@N", "name@latest" or "name"),
+// without reading it: "" when the reference names no version there (yet).
+std::string calibration_file(const std::string& store, const std::string& reference);
+
+// What publishing reads (the fit result, its residuals and its config, when given) and
+// changes: the calibration's folder in the store, shared with other publishers (adds_to).
+StageFiles declared_files(const PublishOptions& options);
 
 
 }  // namespace rungcal

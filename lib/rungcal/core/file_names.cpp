@@ -1,6 +1,8 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/core/file_names.hpp"
 
+#include <filesystem>
+
 #include "rungcal/core/provenance.hpp"
 
 namespace rungcal {
@@ -26,6 +28,11 @@ std::string file_name_part(const std::string& text) {
   }
   if (replaced) out += "-" + sha256_hex(text).substr(0, 8);
   return out;
+}
+
+std::string path_beside(const std::string& path, const std::string& suffix) {
+  const std::filesystem::path p(path);
+  return (p.parent_path() / (p.stem().string() + suffix)).string();
 }
 
 }  // namespace rungcal

@@ -13,4 +13,9 @@ namespace rungcal {
 // "a b") still name two files. Long parts are cut to 120 bytes before the suffix.
 std::string file_name_part(const std::string& text);
 
+// A product's companion file beside it: the path's stem with suffix in place of its
+// extension ("out/fit.json", "_residuals.fits" -> "out/fit_residuals.fits"). The one naming
+// rule of every stage's default second product, which rungcal-run lists too.
+std::string path_beside(const std::string& path, const std::string& suffix);
+
 }  // namespace rungcal

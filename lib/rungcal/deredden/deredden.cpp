@@ -75,6 +75,14 @@ DereddenOptions deredden_options_from_file(const std::string& path) {
   return o;
 }
 
+StageFiles declared_files(const DereddenOptions& o) {
+  StageFiles f;
+  f.add_input(o.input_path);
+  f.add_input(o.bands_file);
+  f.outputs = {o.output_path};
+  return f;
+}
+
 StarTable DereddenResult::coefficients_table() const {
   StarTable t;
   t.add_column("name", ColumnType::kText);

@@ -8,6 +8,7 @@
 
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/core/stage_files.hpp"
 #include "rungcal/extinction/extinction.hpp"
 #include "rungcal/photometry/bands.hpp"
 #include "rungcal/table/star_table.hpp"
@@ -43,6 +44,9 @@ struct DereddenOptions {
 
 // Reads a [deredden] config; unknown keys stop with rule "unknown_config_key".
 DereddenOptions deredden_options_from_file(const std::string& path);
+
+// What the stage reads (the catalog and the band table) and writes (the dereddened catalog).
+StageFiles declared_files(const DereddenOptions& options);
 
 // The coefficient used for one output magnitude.
 struct BandCoefficient {

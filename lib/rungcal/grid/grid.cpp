@@ -192,6 +192,31 @@ GridOptions grid_options_from_file(const std::string& path) {
   return o;
 }
 
+std::string grid_result_path(const GridOptions& g) {
+  return (std::filesystem::path(g.output_folder) / "grid.json").string();
+}
+
+std::string grid_budget_csv_path(const GridOptions& g) {
+  return (std::filesystem::path(g.output_folder) / "error_budget.csv").string();
+}
+
+StageFiles declared_files(const GridOptions& g) {
+  StageFiles f;
+  f.add_input(g.catalog_path);
+  f.add_input(g.deredden_config);
+  f.add_input(g.fit_config);
+  const DereddenOptions dered = deredden_options_from_file(g.deredden_config);
+  StageFiles dered_files = declared_files(dered);
+  dered_files.drop_input(dered.input_path);
+  f.add_inputs_of(dered_files);
+  const FitOptions fit = fit_options_from_file(g.fit_config);
+  StageFiles fit_files = declared_files(fit);
+  fit_files.drop_input(fit.input_path);
+  f.add_inputs_of(fit_files);
+  f.outputs = {grid_result_path(g), grid_budget_csv_path(g)};
+  return f;
+}
+
 GridResult run_grid(const GridOptions& g) {
   throw_if_invalid(g.check(), g.config_file);
   const DereddenOptions base_dered = deredden_options_from_file(g.deredden_config);
@@ -297,10 +322,8 @@ GridResult run_grid_files(const GridOptions& g) {
                         {"category", v.category},
                         {"changes_extinction", v.changes_extinction()}});
   doc["variants"] = variants;
-  write_file_atomically((std::filesystem::path(g.output_folder) / "grid.json").string(),
-                        doc.dump(2) + "\n");
-  write_file_atomically((std::filesystem::path(g.output_folder) / "error_budget.csv").string(),
-                        csv_of_budget(r.budget));
+  write_file_atomically(grid_result_path(g), doc.dump(2) + "\n");
+  write_file_atomically(grid_budget_csv_path(g), csv_of_budget(r.budget));
   return r;
 }
 

@@ -49,6 +49,16 @@ struct GridOptions {
 // Reads [grid] and [[variant]] tables; unknown keys stop with rule "unknown_config_key".
 GridOptions grid_options_from_file(const std::string& path);
 
+// What the grid reads: its catalog, the baseline deredden and fit configs, and what those two
+// stages read besides their own catalogs, which the grid's replaces (the band table, the
+// zero-point tables: found by reading the two configs); what it writes: OUTPUT/grid.json and
+// OUTPUT/error_budget.csv.
+StageFiles declared_files(const GridOptions& options);
+// OUTPUT/grid.json: the budget the report and apply read.
+std::string grid_result_path(const GridOptions& options);
+// OUTPUT/error_budget.csv: the budget for a person.
+std::string grid_budget_csv_path(const GridOptions& options);
+
 // The baseline and every variant, fitted; the shifts and the budget.
 struct GridResult {
   FitResult baseline;

@@ -30,15 +30,6 @@
 
 namespace rungcal {
 using namespace ingest_parts;
-namespace {
-
-std::string rejects_csv_path(const IngestOptions& o) {
-  if (!o.rejects_csv_path.empty()) return o.rejects_csv_path;
-  std::filesystem::path p(o.catalog_path);
-  return (p.parent_path() / (p.stem().string() + "_rejects.csv")).string();
-}
-
-}  // namespace
 
 StarTable IngestResult::rejects_table() const {
   StarTable t;
@@ -444,7 +435,7 @@ IngestResult ingest_catalog_file(const IngestOptions& o) {
   StarTable rejects = result.rejects_table();
   stamp_provenance(rejects, result.provenance, "rejects");
   stream->finish(schema.header(), {{"REJECTS", &rejects}}, schema);
-  write_csv_table(rejects, rejects_csv_path(o));
+  write_csv_table(rejects, ingest_rejects_csv_path(o));
   result.catalog = std::move(schema);  // columns and header: the rows are in the file
   return result;
 }
@@ -453,7 +444,7 @@ void write_ingest_products(const IngestResult& result, const IngestOptions& o) {
   StarTable rejects = result.rejects_table();
   stamp_provenance(rejects, result.provenance, "rejects");
   write_fits_tables(o.catalog_path, {{"CATALOG", &result.catalog}, {"REJECTS", &rejects}});
-  write_csv_table(rejects, rejects_csv_path(o));
+  write_csv_table(rejects, ingest_rejects_csv_path(o));
 }
 
 }  // namespace rungcal

@@ -9,6 +9,7 @@
 
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/core/stage_files.hpp"
 #include "rungcal/ingest/unit_sanity.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/star_table.hpp"
@@ -178,6 +179,12 @@ struct IngestOptions {
 // [classes], [validate], [output]); unknown keys stop with rule "unknown_config_key".
 IngestOptions ingest_options_from_config(Config& config);
 IngestOptions ingest_options_from_file(const std::string& path);
+
+// What the stage reads: the input catalog and the light-curve summary it joins (when it
+// joins one); what it writes: the catalog and the rejects CSV.
+StageFiles declared_files(const IngestOptions& options);
+// The rejects CSV: rejects_csv_path, or <catalog stem>_rejects.csv beside the catalog.
+std::string ingest_rejects_csv_path(const IngestOptions& options);
 
 // One rejected input row.
 struct RejectedRow {

@@ -8,6 +8,7 @@
 #include <fmt/format.h>
 
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_names.hpp"
 #include "rungcal/ingest/column_keys.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/table_source.hpp"
@@ -332,6 +333,18 @@ IngestOptions ingest_options_from_config(Config& config) {
 IngestOptions ingest_options_from_file(const std::string& path) {
   Config c = Config::from_file(path);
   return ingest_options_from_config(c);
+}
+
+std::string ingest_rejects_csv_path(const IngestOptions& o) {
+  return o.rejects_csv_path.empty() ? path_beside(o.catalog_path, "_rejects.csv") : o.rejects_csv_path;
+}
+
+StageFiles declared_files(const IngestOptions& o) {
+  StageFiles f;
+  f.add_input(o.input_path);
+  f.add_input(o.lightcurves.summary_path);
+  f.outputs = {o.catalog_path, ingest_rejects_csv_path(o)};
+  return f;
 }
 
 }  // namespace rungcal

@@ -3,12 +3,14 @@
 
 #include <algorithm>
 #include <cmath>
+#include <filesystem>
 #include <string>
 
 #include <fmt/format.h>
 
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_names.hpp"
 
 namespace rungcal {
 
@@ -121,6 +123,24 @@ LightCurveOptions lightcurve_options_from_file(const std::string& path) {
   c.check_unknown_keys();
   throw_if_invalid(o.check(), path);
   return o;
+}
+
+std::string lightcurve_summary_csv_path(const LightCurveOptions& o) {
+  return o.summary_csv_path.empty() ? path_beside(o.output_path, ".csv") : o.summary_csv_path;
+}
+
+StageFiles declared_files(const LightCurveOptions& o) {
+  StageFiles f;
+  // Per-star files, and Gaia epoch photometry given as a pattern, are globs (gaia_epoch_files
+  // reads a file named literally as it is).
+  const bool gaia_glob = o.layout == SourceLayout::kGaiaEpoch && !std::filesystem::is_regular_file(o.source.path);
+  if (o.files.enabled() || gaia_glob)
+    f.input_globs.push_back(o.source.path);
+  else
+    f.add_input(o.source.path);
+  f.add_input(o.bands_file);
+  f.outputs = {o.output_path, lightcurve_summary_csv_path(o)};
+  return f;
 }
 
 }  // namespace rungcal

@@ -355,11 +355,6 @@ StarResult decode_star_result(const std::string& bytes) {
   return s;
 }
 
-std::vector<std::string> lightcurve_input_files(const LightCurveOptions& o) {
-  if (o.layout == SourceLayout::kGaiaEpoch) return gaia_epoch_files(o.source.path);
-  return o.files.enabled() ? per_star_file_list(o.source.path) : std::vector<std::string>{o.source.path};
-}
-
 LightCurveResult run_lightcurves(const LightCurveOptions& o) {
   throw_if_invalid(o.check(), file_label(o));
   BandTable band_table = BandTable::from_file(o.bands_file);

@@ -9,6 +9,7 @@
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/enum_table.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/core/stage_files.hpp"
 #include "rungcal/lightcurve/fourier.hpp"
 #include "rungcal/lightcurve/gaia_epoch.hpp"
 #include "rungcal/lightcurve/periodogram.hpp"
@@ -36,10 +37,6 @@ inline constexpr EnumTable<SourceLayout, 2> kSourceLayoutNames{{{
     {SourceLayout::kTable, "table"},
     {SourceLayout::kGaiaEpoch, "gaia_epoch"},
 }}};
-
-struct LightCurveOptions;
-// The files the light-curve stage reads: the one table, or every per-star file.
-std::vector<std::string> lightcurve_input_files(const LightCurveOptions& options);
 
 struct LightCurveOptions {
   TableSourceSpec source;                     // the time series: FITS or delimited text ([source])
@@ -78,6 +75,13 @@ struct LightCurveOptions {
 // Reads a light-curve config ([source], [columns], [search], [model], [flags], [output]);
 // unknown keys stop with rule "unknown_config_key".
 LightCurveOptions lightcurve_options_from_file(const std::string& path);
+
+// What the stage reads: the time-series table, or every per-star file its glob matches (a
+// file added, removed or changed is seen), and the band table; what it writes: the FITS
+// product and the summary CSV.
+StageFiles declared_files(const LightCurveOptions& options);
+// The summary CSV: summary_csv_path, or the FITS product's name with .csv.
+std::string lightcurve_summary_csv_path(const LightCurveOptions& options);
 
 // A quality flag of a star's period, in the order of its bit in the summary's flags column.
 enum class PeriodFlag : std::uint32_t {

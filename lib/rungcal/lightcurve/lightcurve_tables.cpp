@@ -288,9 +288,7 @@ void write_lightcurve_products(const LightCurveResult& result, const LightCurveO
   tables.emplace_back("PERIODOGRAM", &periodograms);
   tables.emplace_back("REJECTS", &rejects);
   write_fits_tables(o.output_path, tables);
-  std::string csv = o.summary_csv_path;
-  if (csv.empty()) csv = std::filesystem::path(o.output_path).replace_extension(".csv").string();
-  write_csv_table(summary, csv);
+  write_csv_table(summary, lightcurve_summary_csv_path(o));
 }
 
 }  // namespace rungcal

@@ -1,8 +1,6 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/lightcurve/per_star_files.hpp"
 
-#include <glob.h>
-
 #include <cmath>
 #include <filesystem>
 #include <optional>
@@ -12,6 +10,7 @@
 #include <fmt/format.h>
 
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/stage_files.hpp"
 #include "rungcal/table/text_io.hpp"
 
 namespace rungcal {
@@ -86,15 +85,11 @@ std::string PerStarFiles::check() const {
 }
 
 std::vector<std::string> per_star_file_list(const std::string& pattern) {
-  glob_t g{};
-  const int rc = ::glob(pattern.c_str(), GLOB_ERR, nullptr, &g);
-  std::vector<std::string> files;
-  for (std::size_t i = 0; rc == 0 && i < g.gl_pathc; ++i)
-    if (std::filesystem::is_regular_file(g.gl_pathv[i])) files.emplace_back(g.gl_pathv[i]);
-  ::globfree(&g);
+  // The same matches rungcal-run keys the stage by (declared_files).
+  std::vector<std::string> files = files_matching(pattern);
   if (files.empty())
     throw InputError({pattern, {}, "path", "line", "key"}, "no_files", "no light-curve file matches this pattern");
-  return files;  // glob(3) sorts its matches
+  return files;
 }
 
 SourceTable read_per_star_files(const TableSourceSpec& spec, const PerStarFiles& files,

@@ -10,6 +10,7 @@
 
 #include "rungcal/core/config.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/file_names.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/plfit/priors.hpp"
 #include "rungcal/table/catalog_schema.hpp"
@@ -350,6 +351,19 @@ FitOptions fit_options_from_file(const std::string& path) {
   c.check_unknown_keys();
   throw_if_invalid(o.check(), path);
   return o;
+}
+
+std::string fit_residuals_path(const FitOptions& o) {
+  return o.residuals_path.empty() ? path_beside(o.output_path, "_residuals.fits") : o.residuals_path;
+}
+
+StageFiles declared_files(const FitOptions& o) {
+  StageFiles f;
+  f.add_input(o.input_path);
+  f.add_input(o.zero_point_table_5p);
+  f.add_input(o.zero_point_table_6p);
+  f.outputs = {o.output_path, fit_residuals_path(o)};
+  return f;
 }
 
 }  // namespace rungcal

@@ -5,7 +5,6 @@
 #include <algorithm>
 #include <atomic>
 #include <cmath>
-#include <filesystem>
 #include <map>
 #include <numbers>
 #include <thread>
@@ -262,11 +261,7 @@ FitResult fit_catalog_file(const FitOptions& o) {
     }
   }
   stamp_provenance(res, result.provenance, "fit_residuals");
-  std::string residuals = o.residuals_path;
-  if (residuals.empty()) {
-    std::filesystem::path p(o.output_path);
-    residuals = (p.parent_path() / (p.stem().string() + "_residuals.fits")).string();
-  }
+  const std::string residuals = fit_residuals_path(o);
   if (!Cluster::world().writes_outputs()) return result;
   StarTable boot = bootstrap_table(result);
   stamp_provenance(boot, result.provenance, "fit_bootstrap");

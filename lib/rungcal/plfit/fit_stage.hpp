@@ -14,6 +14,7 @@
 #include "rungcal/astrometry/astrometry.hpp"
 #include "rungcal/core/enum_table.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/core/stage_files.hpp"
 #include "rungcal/plfit/joint.hpp"
 #include "rungcal/plfit/model.hpp"
 #include "rungcal/table/star_table.hpp"
@@ -151,6 +152,13 @@ struct FitOptions {
 };
 
 FitOptions fit_options_from_file(const std::string& path);
+
+// What the stage reads: the dereddened catalog and the zero-point tables its config names
+// (named is read: a grid variant may switch to their recipe); what it writes: the result and
+// the residuals FITS.
+StageFiles declared_files(const FitOptions& options);
+// The residuals FITS: residuals_path, or <result stem>_residuals.fits beside the result.
+std::string fit_residuals_path(const FitOptions& options);
 
 // How a calibrator's distance enters the fit (the residual table's `kind` column).
 enum class CalibratorKind {

@@ -21,14 +21,31 @@
 namespace rungcal {
 namespace {
 
+// The residuals published beside a version's calibration.json.
+std::string residuals_beside(const std::string& calibration_json) {
+  return (std::filesystem::path(calibration_json).parent_path() / "fit_residuals.fits").string();
+}
+
 std::string residuals_of(const std::string& store, const Calibration& c) {
-  return store + "/" + c.name() + "/" + fmt::format("v{:04d}", c.version()) + "/fit_residuals.fits";
+  return residuals_beside(calibration_file(store, fmt::format("{}@{}", c.name(), c.version())));
 }
 
 constexpr FigureFormat kFigureFormats[] = {FigureFormat::kPdf, FigureFormat::kPng,
                                            FigureFormat::kSvg};
 
 }  // namespace
+
+StageFiles declared_files(const ReportOptions& o) {
+  StageFiles f;
+  for (const auto& c : o.calibrations) f.add_input(calibration_file(o.store, c));
+  if (!o.calibrations.empty())
+    if (const std::string last = calibration_file(o.store, o.calibrations.back()); !last.empty())
+      f.add_input(residuals_beside(last));
+  f.add_input(o.lightcurves);
+  f.add_input(o.grid);
+  f.output_folder = o.out_dir;
+  return f;
+}
 
 std::string ReportOptions::check() const {
   if (store.empty()) return "store: required";

@@ -4,6 +4,7 @@
 #include <string>
 #include <vector>
 
+#include "rungcal/core/stage_files.hpp"
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
 
@@ -22,6 +23,11 @@ struct ReportOptions {
   // "" when usable, else "field: rule".
   std::string check() const;
 };
+
+// What the report reads: each calibration version named (those the store has), the last
+// one's residuals, the light-curve product and the grid's budget (when given); what it
+// writes: every file in out_dir, named as it runs (output_folder).
+StageFiles declared_files(const ReportOptions& options);
 
 struct ReportOutcome {
   int tables = 0;

@@ -20,7 +20,7 @@
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/html.hpp"
 #include "rungcal/report/likely_outlier.hpp"
-#include "rungcal/run/run_history.hpp"
+#include "rungcal/report/run_history.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace fs = std::filesystem;

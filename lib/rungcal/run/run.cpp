@@ -66,12 +66,6 @@ void check_apply_relation(const RunOptions& o, const FitOptions& fit) {
                                o.apply_relation, o.fit_config, names));
 }
 
-std::string version_json(const RunOptions& o, const std::string& ref) {
-  const int v = std::stoi(ref.substr(ref.find('@') + 1));
-  return (fs::path(o.store) / o.calibration / fmt::format("v{:04d}", v) / "calibration.json")
-      .string();
-}
-
 }  // namespace
 
 std::string RunOptions::check() const {
@@ -273,78 +267,34 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   RunState state(in_folder(o, "run_state.json"));
   RunOutcome outcome;
 
+  // The chain: each stage's config, settings and work; its files are its own declaration.
   std::vector<Stage> stages;
   if (lc_opt)
-    stages.push_back({"lightcurve",
-                      o.lightcurve_config,
-                      [&] {  // every per-star file keys the stage, not the glob
-                        std::vector<std::string> in = lightcurve_input_files(*lc_opt);
-                        in.push_back(lc_opt->bands_file);
-                        return in;
-                      }(),
-                      "",
-                      {lc_opt->output_path, lc_opt->summary_csv_path},
-                      "",
+    stages.push_back({"lightcurve", o.lightcurve_config, "",
+                      [&] { return declared_files(*lc_opt); },
                       [&] { write_lightcurve_products(run_lightcurves(*lc_opt), *lc_opt); }});
-  {
-    std::vector<std::string> in = {ingest.input_path};
-    if (lc_opt) in.push_back(lc_opt->output_path);
-    stages.push_back({"ingest",
-                      o.ingest_config,
-                      in,
-                      "",
-                      {ingest.catalog_path, ingest.rejects_csv_path},
-                      "",
-                      [&] { note_refusals(ingest_catalog_file(ingest), ingest, outcome); }});
-  }
-  stages.push_back({"deredden",
-                    o.deredden_config,
-                    {deredden.input_path, deredden.bands_file},
-                    "",
-                    {deredden.output_path},
-                    "",
+  stages.push_back({"ingest", o.ingest_config, "", [&] { return declared_files(ingest); },
+                    [&] { note_refusals(ingest_catalog_file(ingest), ingest, outcome); }});
+  stages.push_back({"deredden", o.deredden_config, "", [&] { return declared_files(deredden); },
                     [&] { deredden_catalog_file(deredden); }});
-  // Every file a stage reads keys it: the fit's zero-point tables, the grid's band table.
-  std::vector<std::string> fit_inputs = {fit.input_path};
-  for (const auto& table : {fit.zero_point_table_5p, fit.zero_point_table_6p})
-    if (!table.empty()) fit_inputs.push_back(table);
-  stages.push_back({"fit",
-                    o.fit_config,
-                    fit_inputs,
-                    fmt::format("bootstrap={}", fit.bootstrap),
-                    {fit.output_path, fit.residuals_path},
-                    "",
+  stages.push_back({"fit", o.fit_config, fmt::format("bootstrap={}", fit.bootstrap),
+                    [&] { return declared_files(fit); },
                     [&] { spdlog::info("fit:\n{}", fit_summary(fit_catalog_file(fit))); }});
   if (grid)
-    stages.push_back({"grid",
-                      o.grid_config,
-                      [&] {
-                        std::vector<std::string> in = fit_inputs;
-                        in.front() = grid->catalog_path;
-                        in.push_back(o.deredden_config);
-                        in.push_back(o.fit_config);
-                        in.push_back(deredden.bands_file);
-                        return in;
-                      }(),
-                      "",
-                      {in_folder(o, "grid/grid.json"), in_folder(o, "grid/error_budget.csv")},
-                      "",
+    stages.push_back({"grid", o.grid_config, "", [&] { return declared_files(*grid); },
                       [&] { run_grid_files(*grid); }});
   PublishOptions publish;
   publish.store = o.store;
   publish.name = o.calibration;
   publish.fit_path = fit.output_path;
-  publish.residuals_path = fit.residuals_path;
+  publish.residuals_path = fit_residuals_path(fit);
   publish.config_path = o.fit_config;
   publish.lock_wait_seconds = o.lock_wait_seconds;
   publish.republish_withdrawn = o.republish_withdrawn;
-  stages.push_back({"publish",
-                    o.fit_config,
-                    {fit.output_path, fit.residuals_path},
+  stages.push_back({"publish", "",
                     fmt::format("store={} name={} republish_withdrawn={}", o.store, o.calibration,
                                 o.republish_withdrawn),
-                    {},
-                    "",
+                    [&] { return declared_files(publish); },
                     [&] {
                       const PublishOutcome p = publish_calibration(publish);
                       if (!p.created) outcome.withheld_version = p.withdrawn_match;
@@ -353,7 +303,7 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   report.store = o.store;
   report.out_dir = in_folder(o, "report");
   report.lightcurves = lc_opt ? lc_opt->output_path : "";
-  report.grid = grid ? in_folder(o, "grid/grid.json") : "";
+  report.grid = grid ? grid_result_path(*grid) : "";
   report.figure_width = o.report_figure_width;
   report.table_errors = o.report_table_errors;
   // Keyed by the choices only when they are not the defaults, so that run folders made
@@ -364,41 +314,34 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   if (o.report_table_errors != TableErrors::kCovariance)
     report_settings += fmt::format("table_errors={}", kTableErrorsNames.name(o.report_table_errors));
   if (o.report)
-    stages.push_back({"report", "", {}, report_settings, {}, report.out_dir, [&] { write_report(report); }, true});
+    stages.push_back({"report", "", report_settings, [&] { return declared_files(report); },
+                      [&] { write_report(report); }, true});
   ApplyOptions apply;
   if (t_ingest) {
-    stages.push_back({"targets_ingest",
-                      o.targets_ingest_config,
-                      {t_ingest->input_path},
-                      "",
-                      {t_ingest->catalog_path, t_ingest->rejects_csv_path},
-                      "",
+    stages.push_back({"targets_ingest", o.targets_ingest_config, "",
+                      [&] { return declared_files(*t_ingest); },
                       [&] { ingest_catalog_file(*t_ingest); }});
-    stages.push_back({"targets_deredden",
-                      o.targets_deredden_config,
-                      {t_deredden->input_path, t_deredden->bands_file},
-                      "",
-                      {t_deredden->output_path},
-                      "",
+    stages.push_back({"targets_deredden", o.targets_deredden_config, "",
+                      [&] { return declared_files(*t_deredden); },
                       [&] { deredden_catalog_file(*t_deredden); }});
     apply.store = o.store;
     apply.relation = o.apply_relation;
     apply.targets_path = t_deredden->output_path;
     apply.output_path = in_folder(o, "distances.fits");
     apply.csv_path = in_folder(o, "distances.csv");
-    std::vector<std::string> apply_inputs = {t_deredden->output_path};
     if (grid) {  // the budget's systematics join the distances
-      apply.grid_path = in_folder(o, "grid/grid.json");
+      apply.grid_path = grid_result_path(*grid);
       apply.grid_skip_categories = o.apply_grid_skip_categories;
-      apply_inputs.push_back(apply.grid_path);
     }
     std::string apply_settings = "relation=" + o.apply_relation;
     for (const auto& c : o.apply_grid_skip_categories) apply_settings += " grid_skip=" + c;
-    stages.push_back({"apply", "", apply_inputs, apply_settings, apply_product_paths(apply).all(),
-                      "", [&] { apply_calibration_files(apply); }, true});
+    stages.push_back({"apply", "", apply_settings, [&] { return declared_files(apply); },
+                      [&] { apply_calibration_files(apply); }, true});
   }
 
-  std::set<std::string> will_change;  // dry run: products the stages that would run rewrite
+  // Dry run: the files and shared folders the stages that would run rewrite.
+  std::set<std::string> will_change;
+  const std::string calibration_place = calibration_folder(o.store, o.calibration);
   for (std::size_t i = 0; i < stages.size(); ++i) {
     Stage& s = stages[i];
     if (s.uses_calibration) {
@@ -408,28 +351,24 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
       } else {
         report.calibrations = refs;
         apply.calibration = refs.back();
-        s.inputs.push_back(version_json(o, refs.back()));
-        if (s.name == "report") {
-          if (refs.size() > 1) s.inputs.push_back(version_json(o, refs.front()));
-          if (lc_opt) s.inputs.push_back(lc_opt->output_path);
-          if (grid) s.inputs.push_back(report.grid);
-        }
       }
     }
+    s.files = s.declare();
     const std::string key = stage_key(s);
     std::string why = o.force ? "forced" : state.why_run(s, key);
     if (why.empty() && o.dry_run) {
       // A dry run cannot see the new products: a stage reruns when an input of it would change.
-      for (const auto& in : s.inputs)
+      for (const auto& in : s.files.inputs)
         if (will_change.count(in)) why = fs::path(in).filename().string() + " would change";
-      if (s.uses_calibration && will_change.count(o.store)) why = "a new version may be published";
+      if (s.uses_calibration && will_change.count(calibration_place))
+        why = "a new version may be published";
     }
     StageReport rep{s.name, !why.empty(), why.empty() ? "up to date" : why};
     if (o.dry_run) {
       spdlog::debug("{}: {}", s.name, rep.ran ? "would run (" + why + ")" : "up to date");
       if (rep.ran) {
-        will_change.insert(s.outputs.begin(), s.outputs.end());
-        if (s.name == "publish") will_change.insert(o.store);
+        will_change.insert(s.files.outputs.begin(), s.files.outputs.end());
+        if (!s.files.adds_to.empty()) will_change.insert(s.files.adds_to);
       }
       outcome.stages.push_back(rep);
       continue;

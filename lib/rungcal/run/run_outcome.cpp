@@ -12,8 +12,8 @@
 #include "rungcal/calibration/diff.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/provenance.hpp"
+#include "rungcal/report/run_history.hpp"
 #include "rungcal/report/site.hpp"
-#include "rungcal/run/run_history.hpp"
 
 namespace fs = std::filesystem;
 

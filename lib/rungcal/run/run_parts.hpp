@@ -14,21 +14,24 @@
 
 #include <nlohmann/json.hpp>
 
+#include "rungcal/core/stage_files.hpp"
 #include "rungcal/ingest/ingest.hpp"
 #include "rungcal/run/run.hpp"
 
 namespace rungcal::run_parts {
 
-// One stage of the chain: what keys it, what it writes, how it runs.
+// One stage of the chain: what keys it, how it runs. Its files are the stage's own
+// declaration (declared_files of its options), never listed here.
 struct Stage {
   std::string name;
-  std::string config;                // stage config file ("" = none)
-  std::vector<std::string> inputs;   // files whose bytes key the stage
-  std::string settings;              // overrides and choices that key it too
-  std::vector<std::string> outputs;  // files it writes (a missing one reruns it)
-  std::string output_folder;         // a folder whose every file is its product (report)
+  std::string config;    // stage config file, keyed by its parsed content ("" = none)
+  std::string settings;  // overrides and choices that key it too
+  // The stage's declared_files, asked at its turn: a calibration version it reads exists
+  // only once the stages before it ran.
+  std::function<StageFiles()> declare;
   std::function<void()> run;
-  bool uses_calibration = false;  // keyed by the store's latest version too
+  bool uses_calibration = false;  // reads the version 'latest' names, set at its turn
+  StageFiles files{};             // declare()'s answer at the stage's turn
 };
 
 // A product's path in the run folder.

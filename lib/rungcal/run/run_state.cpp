@@ -41,9 +41,9 @@ std::string input_sha(const std::string& path) {
 }
 
 std::vector<std::string> products_of(const Stage& s) {
-  std::vector<std::string> out = s.outputs;
-  if (!s.output_folder.empty() && fs::exists(s.output_folder))
-    for (const auto& e : fs::directory_iterator(s.output_folder))
+  std::vector<std::string> out = s.files.outputs;
+  if (!s.files.output_folder.empty() && fs::exists(s.files.output_folder))
+    for (const auto& e : fs::directory_iterator(s.files.output_folder))
       if (e.is_regular_file() && e.path().filename().string().rfind('.', 0) != 0)
         out.push_back(e.path().string());
   std::sort(out.begin(), out.end());
@@ -57,7 +57,11 @@ std::string stage_key(const Stage& s) {
                                  software_version(), software_commit(), s.settings);
   if (!s.config.empty())
     text += fmt::format("config={} {}\n", key_path(s.config), config_sha(s.config));
-  for (const auto& in : s.inputs) text += fmt::format("input={} {}\n", key_path(in), input_sha(in));
+  // A glob keys the stage by its pattern and by every file it matches now: a file added,
+  // removed or changed under it reruns the stage.
+  for (const auto& g : s.files.input_globs) text += fmt::format("input_glob={}\n", key_path(g));
+  for (const auto& in : input_files_now(s.files))
+    text += fmt::format("input={} {}\n", key_path(in), input_sha(in));
   return sha256_hex(text);
 }
 
@@ -106,7 +110,7 @@ void RunState::record(const Stage& s, const std::string& key) {
   rec["key"] = key;
   rec["config_sha256"] = s.config.empty() ? "" : config_sha(s.config);
   rec["inputs"] = nlohmann::json::object();
-  for (const auto& in : s.inputs) rec["inputs"][in] = input_sha(in);
+  for (const auto& in : input_files_now(s.files)) rec["inputs"][in] = input_sha(in);
   rec["outputs"] = nlohmann::json::object();
   for (const auto& out : products_of(s)) rec["outputs"][out] = sha256_file(out);
   rec["finished_utc"] = utc_now_iso8601();
@@ -119,13 +123,17 @@ void RunState::record(const Stage& s, const std::string& key) {
 std::string RunState::changed_part(const Stage& s, const nlohmann::json& rec) {
   if (!s.config.empty() && rec.value("config_sha256", "") != config_sha(s.config))
     return "config changed";
-  for (const auto& in : s.inputs) {
-    const std::string now = input_sha(in);
+  const std::vector<std::string> now = input_files_now(s.files);
+  for (const auto& in : now) {
     if (!rec.contains("inputs") || !rec["inputs"].contains(in))
       return "new input " + fs::path(in).filename().string();
-    if (rec["inputs"][in].get<std::string>() != now)
+    if (rec["inputs"][in].get<std::string>() != input_sha(in))
       return "input " + fs::path(in).filename().string() + " changed";
   }
+  if (rec.contains("inputs"))
+    for (const auto& [in, sha] : rec["inputs"].items())
+      if (std::find(now.begin(), now.end(), in) == now.end())
+        return "input " + fs::path(in).filename().string() + " is gone";
   return "software or settings changed";
 }
 

@@ -1,5 +1,5 @@
 // SPDX-License-Identifier: MIT
-#include "rungcal/run/run_history.hpp"
+#include "rungcal/report/run_history.hpp"
 
 #include <filesystem>
 
