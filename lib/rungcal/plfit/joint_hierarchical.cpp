@@ -76,6 +76,11 @@ Reduced reduce(const SmallVector& r, const SmallMatrix& S) {
 
 class JointEvaluator final : public Objective {
  private:
+  // The blend ratio parameter of entry e's relation (-1: the first relation, ratio 1).
+  int ratio_index(int e) const {
+    return L_.blend_ratio[static_cast<std::size_t>(d_.relation[static_cast<std::size_t>(e)])];
+  }
+
   // The coloured blend component's terms of d ln L / d r, d S and d kappa (the ratios),
   // weighted by the star's blend probability q: with h = P kappa - kappa_eff P 1,
   // d kappa_eff = -p^T dS h / a + p^T dkappa / a, dD = -h^T dS h + 2 h^T dkappa and
@@ -93,7 +98,7 @@ class JointEvaluator final : public Objective {
               d_curv * hk * hk.transpose() +
               0.5 * d_tilt * (hk * red.u.transpose() + red.u * hk.transpose()));
     for (Eigen::Index k = 0; k < hk.size(); ++k) {
-      const int j = L_.blend_ratio[static_cast<std::size_t>(d_.relation[static_cast<std::size_t>(e0 + k)])];
+      const int j = ratio_index(e0 + static_cast<int>(k));
       if (j >= 0) g[j] += q * (d_kappa * red.p[k] / red.a + 2.0 * d_curv * hk[k] + d_tilt * red.u[k]);
     }
   }
@@ -203,7 +208,7 @@ class JointEvaluator final : public Objective {
       if (coloured_) {
         kap.resize(K);
         for (int k = 0; k < K; ++k) {
-          const int j = L_.blend_ratio[static_cast<std::size_t>(d_.relation[static_cast<std::size_t>(e0 + k)])];
+          const int j = ratio_index(e0 + k);
           kap[k] = j >= 0 ? t[j] : 1.0;
         }
         colour.kappa = red.p.dot(kap) / red.a;
@@ -232,7 +237,7 @@ class JointEvaluator final : public Objective {
               k_.bins_blend.data());
         else if (blends_)
           blend = integrate_parallax(red.m_eff, BlendMagnitude(v_eff, blend_scale, h.blends),
-                                     d_.plx[si], d_.var_plx[si], -h.blend_min_mag, offset, prior,
+                                     d_.plx[si], d_.var_plx[si], blend_shift, offset, prior,
                                      k_.blend_rule, k_.mode_blend[si], k_.bins_blend.data());
       } else {
         const double mu = kind == 1 ? d_.mu[si] : t[L_.anchor0 + d_.group[si]];
@@ -245,7 +250,7 @@ class JointEvaluator final : public Objective {
                                 blend_shift);
         else if (blends_)
           blend = given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu,
-                                -h.blend_min_mag);
+                                blend_shift);
         if (kind == 2 && d_.var_plx[si] > 0) {
           own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset);
           own->add_to(member, outlier, blend);
