@@ -121,9 +121,10 @@ int main(int argc, char** argv) {
                 p.prior_sigma);
   }
   // Where the bootstrap's time goes: a few resamples solved here as run_joint_hierarchical
-  // solves them (stars drawn with replacement, tolerances 1e-9 / 1e-8, the full sample's
-  // metric, start at the optimum; the priors' centres not redrawn), and the cost of one
-  // evaluation of -ln L with its gradient. Not part of the timing above.
+  // solves them (stars drawn with replacement, each drawn star once with its draws as its
+  // weight, tolerances 1e-9 / 1e-8, the full sample's metric, start at the optimum; the
+  // priors' centres not redrawn), and the cost of one evaluation of -ln L with its gradient.
+  // Not part of the timing above.
   FitSettings relaxed = jr.settings;
   Eigen::MatrixXd covariance;
   std::vector<std::string> undetermined;
@@ -135,7 +136,7 @@ int main(int argc, char** argv) {
   relaxed.parameter_tolerance = 1e-8;
   bench::print_direct_solves<int>(
       resamples, static_cast<std::size_t>(d.stars()),
-      [&](const std::vector<int>& stars) { return d.take(stars); },
+      [&](const std::vector<int>& stars) { return d.take_counted(stars); },
       [&](const JointData& sample) {
         return solve_joint_hierarchical(sample, relaxed, L, jr.solution.theta);
       },

@@ -41,6 +41,9 @@ for f in sample_data/*.csv ../shared/reference/*.csv ../shared/reference/*.txt t
   done
 done
 cp sample_data/*.fits "$seeds/fuzz_fits_table/"
+# Array columns, variable-length and fixed vectors, as Gaia epoch photometry has them
+# (fuzz/seeds/fits: invented sources, written by astropy).
+cp fuzz/seeds/fits/*.fits "$seeds/fuzz_fits_table/"
 # An ECSV table as astropy writes it (invented stars).
 printf '%s\n' '# %ECSV 1.0' '# ---' '# datatype:' '# - {name: id, datatype: string}' \
   '# - {name: plx, unit: mas, datatype: float64}' '# - {name: n, datatype: int64}' \

@@ -400,6 +400,29 @@ TEST(JointHierarchical, UnitBlendRatiosAreGreyBlends) {
   EXPECT_NEAR(coloured, joint_value(c, c.theta), 1e-8);
 }
 
+// A bootstrap resample evaluates each drawn star once, weighted by its draws
+// (JointData::take_counted): -ln L and its gradient must be those of the sample with the
+// repeats written out, star by star (an exact identity: a sum of the same terms).
+TEST(JointHierarchical, CountedResampleEqualsTheResampleWithItsRepeats) {
+  JointCase c = joint_case(3);
+  const std::vector<int> drawn = {0, 0, 2, 5, 5, 5, 6, 7, 7, 8, 3};
+  const JointData repeated = c.data.take(drawn), counted = c.data.take_counted(drawn);
+  ASSERT_EQ(counted.stars(), 7);
+  EXPECT_DOUBLE_EQ(counted.weight_of(3), 3.0);  // star 5 (the fourth drawn), drawn three times
+  for (const BlendComponent blends : {BlendComponent::kRising, BlendComponent::kExponential}) {
+    c.settings.hierarchical.blends = blends;
+    const JointHierarchicalValue a = joint_hierarchical_value(repeated, c.settings, c.layout, c.theta);
+    const JointHierarchicalValue b = joint_hierarchical_value(counted, c.settings, c.layout, c.theta);
+    ASSERT_TRUE(a.finite && b.finite);
+    EXPECT_NEAR(a.neg_log_likelihood, b.neg_log_likelihood, 1e-10 * std::abs(a.neg_log_likelihood));
+    for (int j = 0; j < c.layout.size; ++j)
+      EXPECT_NEAR(a.gradient[j], b.gradient[j], 1e-9 * std::max(1.0, std::abs(a.gradient[j])))
+          << c.layout.names[static_cast<std::size_t>(j)];
+  }
+  c.data = counted;  // the weighted likelihood's own gradient against its differences
+  expect_gradient_matches_differences(c);
+}
+
 // The anchor made a cluster (FitOptions::clusters): its two stars with parallaxes of their
 // own (the first a poor match, so the outlier component's wider parallax term matters) and
 // the cluster's parallax, 10^(-0.2 (mu - 10)) = 0.0245 mas near mu = 18.45 (invented values).

@@ -32,6 +32,19 @@ BlendDensity blend_log_density(double r, double var, double scale);
 // blend_log_density, so the two share one parameter and one prior.
 BlendDensity blend_rising_log_density(double r, double var, double mean);
 
+// Either law at many residuals r for one variance and scale, as a star's quadrature needs it:
+// what does not depend on r is computed once (the functions above are this, for one r).
+class BlendLaw {
+ public:
+  BlendLaw(double var, double scale, bool rising);  // scale: the mean brightening s
+  BlendDensity at(double r) const;
+
+ private:
+  double var_, sd_, theta_, lambda_;  // theta: the exponential's scale (s, or s / 2 rising)
+  bool rising_;
+  double log_norm_ = 0;  // ln p's terms free of r
+};
+
 // A blend whose brightening differs between bands, as the joint fit sees it after reducing a
 // star's bands to one magnitude (joint_hierarchical.hpp): the brightening b in the first
 // relation's band moves the reduced magnitude by kappa b and leaves a colour residual whose
@@ -59,5 +72,17 @@ struct ColouredBlendDensity : BlendDensity {
 // H' = z + psi + k (1 - psi (z + psi)) / (z + psi) and z_x = -B_x / sqrt(A) - z A_x / (2A).
 ColouredBlendDensity coloured_blend_log_density(double r, double var, double mean,
                                                 const BlendColour& colour, bool rising);
+
+// coloured_blend_log_density at many r for one variance, mean and colour (as BlendLaw).
+class ColouredBlendLaw {
+ public:
+  ColouredBlendLaw(double var, double mean, const BlendColour& colour, bool rising);
+  ColouredBlendDensity at(double r) const;
+
+ private:
+  double var_, mean_, k_rise_, lambda_, lam_, kappa_, curv_, A_, root_a_;
+  bool rising_;
+  double log_norm_ = 0;  // ln p's terms free of r
+};
 
 }  // namespace rungcal

@@ -80,13 +80,11 @@ struct GaussianMagnitude {
 // The blend component's magnitude term: the exponentially modified Gaussian
 // (blend_log_density) or its Gamma(2) counterpart (blend_rising_log_density).
 struct BlendMagnitude {
-  double var, scale;
-  bool rising;
+  BlendLaw law;
   BlendMagnitude(double v, double s, BlendComponent kind)
-      : var(v), scale(s), rising(kind == BlendComponent::kRising) {}
+      : law(v, s, kind == BlendComponent::kRising) {}
   MagnitudePoint at(double r) const {
-    const BlendDensity b =
-        rising ? blend_rising_log_density(r, var, scale) : blend_log_density(r, var, scale);
+    const BlendDensity b = law.at(r);
     return {b.log_density, b.d_r, b.d2_r, b.d_var, b.d_scale};
   }
   // The exponential tail reaches further than the curvature at the mode says: 24 nodes at
@@ -101,13 +99,11 @@ struct BlendMagnitude {
 // A blend whose brightening differs between the joint fit's relations
 // (coloured_blend_log_density): BlendMagnitude's term with the colour residual's terms.
 struct ColouredBlendMagnitude {
-  double var, scale;
-  bool rising;
-  BlendColour colour;
+  ColouredBlendLaw law;
   ColouredBlendMagnitude(double v, double s, BlendComponent kind, const BlendColour& c)
-      : var(v), scale(s), rising(kind == BlendComponent::kRising), colour(c) {}
+      : law(v, s, c, kind == BlendComponent::kRising) {}
   MagnitudePoint at(double r) const {
-    const ColouredBlendDensity b = coloured_blend_log_density(r, var, scale, colour, rising);
+    const ColouredBlendDensity b = law.at(r);
     return {b.log_density, b.d_r, b.d2_r, b.d_var, b.d_scale, b.d_kappa, b.d_curvature, b.d_tilt};
   }
   static constexpr double kWidthFactor = BlendMagnitude::kWidthFactor;
@@ -150,7 +146,9 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     h = curvature(mu, slope, width_h);
     const double step = std::clamp(slope / h, -1.0, 1.0);
     mu = std::clamp(mu + step, -10.0, 60.0);
-    if (std::abs(step) < 1e-10) break;
+    // Newton converges quadratically here: after a step below 1e-7 the mode is known to
+    // about 1e-14, and the next step would only confirm it.
+    if (std::abs(step) < 1e-7) break;
   }
   curvature(mu, slope, width_h);
   mode_cache = mu;
@@ -170,11 +168,13 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   // The histogram's responsibilities per node, kept for the log-weights' derivatives.
   thread_local std::vector<double> resp;
   int lo_of[128], hi_of[128];
+  double resp_scale[128];
   if (prior.histogram) resp.resize(n * kHistogramWindow);
   for (std::size_t k = 0; k < n; ++k) {
     const double muk = mu + width * q.nodes[k];
     pr_of[k] = prior.histogram
-                   ? prior.histogram_at(muk, lo_of[k], hi_of[k], resp.data() + k * kHistogramWindow)
+                   ? prior.histogram_at(muk, lo_of[k], hi_of[k], resp.data() + k * kHistogramWindow,
+                                        resp_scale[k])
                    : prior.at(muk);
     const double pt = std::exp(-kC * (muk - 10.0));
     mp_of[k] = mag.at(m - muk - m_shift);
@@ -184,7 +184,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     top = std::max(top, terms[k]);
   }
   for (std::size_t k = 0; k < n; ++k) {
-    const double w = std::exp(terms[k] - top);
+    const double w = terms[k] = std::exp(terms[k] - top);  // the node's weight, kept for d_bins
     total += w;
     s_m -= w * mp_of[k].d_r;  // d/dM = -d/dr
     s_v += w * mp_of[k].d_v;
@@ -205,7 +205,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     // d ln L / d eta_j = E[r_j] - w_j over the normalised integrand.
     for (std::size_t j = 1; j < prior.weight.size(); ++j) d_bins[j - 1] = -prior.weight[j];
     for (std::size_t k = 0; k < n; ++k) {
-      const double wk = std::exp(terms[k] - top) * inv;
+      const double wk = terms[k] * inv * resp_scale[k];
       const double* r = resp.data() + k * kHistogramWindow;
       for (int j = std::max(lo_of[k], 1); j <= hi_of[k]; ++j) d_bins[j - 1] += wk * r[j - lo_of[k]];
     }

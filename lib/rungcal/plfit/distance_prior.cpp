@@ -45,10 +45,12 @@ DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
   double sum = 0;
   for (int j = 0; j < bins; ++j) sum += s.weight[static_cast<std::size_t>(j)] = std::exp((j ? log_weights[j - 1] : 0.0) - top);
   for (double& w : s.weight) w /= sum;
+  s.log_kernel_norm = -std::log(step) - 0.9189385332046727418;  // ln(1 / (h sqrt(2 pi)))
   return s;
 }
 
-DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi, double* r) const {
+DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi, double* r,
+                                                   double& r_scale) const {
   // In grid units z = (mu - c_0) / h; a bin 10 or more steps away adds exp(-50) of what the
   // nearest does (times their weights' ratio), so only kHistogramReach each side count.
   const int bins = static_cast<int>(weight.size());
@@ -56,30 +58,31 @@ DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi,
   const int nearest = std::clamp(static_cast<int>(std::lround(z)), 0, bins - 1);
   lo = std::max(0, nearest - kHistogramReach), hi = std::min(bins - 1, nearest + kHistogramReach);
   // Gaussians relative to the nearest bin's, outwards from it so that nothing underflows:
-  // e_(j+1) / e_j = exp(z - j - 1/2), e_(j-1) / e_j = exp(j - z - 1/2).
+  // e_(j+1) / e_j = exp(z - j - 1/2), e_(j-1) / e_j = exp(j - z - 1/2). The two sides are
+  // summed apart (independent chains) with the moments of j - z in the same pass.
   constexpr double kInvE = 0.36787944117144233;
-  double total = r[nearest - lo] = weight[static_cast<std::size_t>(nearest)];
-  double e = 1.0, ratio = std::exp(z - nearest - 0.5);
-  for (int j = nearest + 1; j <= hi; ++j) {
-    e *= ratio;
-    ratio *= kInvE;
-    total += r[j - lo] = weight[static_cast<std::size_t>(j)] * e;
+  const double* w = weight.data();
+  const double d0 = nearest - z;
+  const double t0 = r[nearest - lo] = w[nearest];
+  double up0 = t0, up1 = t0 * d0, up2 = t0 * d0 * d0, dn0 = 0, dn1 = 0, dn2 = 0;
+  double e_up = 1.0, ratio_up = std::exp(-d0 - 0.5), e_dn = 1.0, ratio_dn = std::exp(d0 - 0.5);
+  for (int k = 1; k <= kHistogramReach; ++k) {
+    e_up *= ratio_up, ratio_up *= kInvE;
+    e_dn *= ratio_dn, ratio_dn *= kInvE;
+    if (nearest + k <= hi) {
+      const double t = r[nearest + k - lo] = w[nearest + k] * e_up, d = d0 + k;
+      up0 += t, up1 += t * d, up2 += t * d * d;
+    }
+    if (nearest - k >= lo) {
+      const double t = r[nearest - k - lo] = w[nearest - k] * e_dn, d = d0 - k;
+      dn0 += t, dn1 += t * d, dn2 += t * d * d;
+    }
   }
-  e = 1.0, ratio = std::exp(nearest - z - 0.5);
-  for (int j = nearest - 1; j >= lo; --j) {
-    e *= ratio;
-    ratio *= kInvE;
-    total += r[j - lo] = weight[static_cast<std::size_t>(j)] * e;
-  }
-  const double inv = 1.0 / total;
-  double first = 0, second = 0;
-  for (int j = lo; j <= hi; ++j) {
-    const double rj = r[j - lo] *= inv, dz = j - z;
-    first += rj * dz;
-    second += rj * dz * dz;
-  }
+  const double total = up0 + dn0, inv = 1.0 / total;
+  const double first = (up1 + dn1) * inv, second = (up2 + dn2) * inv;
+  r_scale = inv;
   DistancePriorTerms t{};
-  t.log_density = std::log(total) - 0.5 * (z - nearest) * (z - nearest) - std::log(step) - 0.9189385332046727418;
+  t.log_density = std::log(total) - 0.5 * d0 * d0 + log_kernel_norm;
   t.d_mu = first / step;
   t.d2_mu = (second - 1.0 - first * first) / (step * step);
   return t;
@@ -89,10 +92,10 @@ DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi,
 DistancePriorTerms DistancePriorShape::at(double mu, double* d_bins, double scale) const {
   if (histogram) {
     int lo = 0, hi = 0;
-    double r[kHistogramWindow];
-    DistancePriorTerms t = histogram_at(mu, lo, hi, r);
+    double r[kHistogramWindow], r_scale = 0;
+    DistancePriorTerms t = histogram_at(mu, lo, hi, r, r_scale);
     if (d_bins) {
-      for (int j = std::max(lo, 1); j <= hi; ++j) d_bins[j - 1] += scale * r[j - lo];
+      for (int j = std::max(lo, 1); j <= hi; ++j) d_bins[j - 1] += scale * r_scale * r[j - lo];
       for (std::size_t j = 1; j < weight.size(); ++j) d_bins[j - 1] -= scale * weight[j];
     }
     return t;

@@ -55,14 +55,16 @@ struct DistancePriorShape {
   bool histogram = false;
   double start = 0, step = 0.5;
   std::vector<double> weight;
+  double log_kernel_norm = 0;  // ln of the bins' Gaussian normalisation, 1 / (h sqrt(2 pi))
   static DistancePriorShape make(double scale_kpc, double power, double exponent);
   // log_weights: eta_1 .. eta_(B-1) (eta_0 = 0).
   static DistancePriorShape make_histogram(double start, double step, const double* log_weights, int bins);
   // d_bins (histogram only, size B - 1): d ln p / d eta_j for j = 1 .. B-1, added to.
   DistancePriorTerms at(double mu, double* d_bins = nullptr, double scale = 1.0) const;
   // The histogram at mu, with each bin's responsibility w_j N_j / p for the bins lo..hi
-  // that reach mu (r[0] is bin lo's; at most kHistogramWindow of them).
-  DistancePriorTerms histogram_at(double mu, int& lo, int& hi, double* r) const;
+  // that reach mu: r_scale r[j - lo] (at most kHistogramWindow of them; the caller scales,
+  // which it can fold into a weight of its own).
+  DistancePriorTerms histogram_at(double mu, int& lo, int& hi, double* r, double& r_scale) const;
 };
 
 // The histogram bins that count at one mu: those within kHistogramReach steps of the nearest

@@ -156,7 +156,8 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
         const FitSolution s = solve_joint_hierarchical(sample, drawn, L, jr.solution.theta);
         if (!s.usable) return std::nullopt;
         return s.theta;
-      });
+      },
+      true);
   for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
   return jr;
 }

@@ -101,7 +101,7 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
   return d;
 }
 
-void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve) {
+void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve, bool counted) {
   if (o.joint_resamples() <= 0) return;
   const JointData& d = jr.data;
   ModelTerms terms;
@@ -125,7 +125,7 @@ void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSample
     const std::vector<int> drawn = draw_clusters(terms, rng);
     for (int g : drawn)
       if (auto it = clusters.find(g); it != clusters.end()) stars.insert(stars.end(), it->second.begin(), it->second.end());
-    JointData sample = d.take(stars);
+    JointData sample = counted ? d.take_counted(stars) : d.take(stars);
     weigh_cluster_parallaxes(terms, drawn, sample.group_plx);
     std::optional<Eigen::VectorXd> theta = solve(sample, rng);
     if (theta) forget_undrawn_clusters(terms, jr.layout.anchor0, drawn, *theta);
@@ -207,11 +207,14 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   if (!jr.solution.usable)
     jr.warnings.push_back("the joint solver did not reach a usable solution: " +
                           jr.solution.message);
-  run_joint_bootstrap(o, jr, [&](const JointData& sample, Random&) -> std::optional<Eigen::VectorXd> {
-    JointSolution s = solve_joint(sample, js, L, jr.solution.theta, false);
-    if (!s.usable) return std::nullopt;
-    return s.theta;
-  });
+  run_joint_bootstrap(
+      o, jr,
+      [&](const JointData& sample, Random&) -> std::optional<Eigen::VectorXd> {
+        JointSolution s = solve_joint(sample, js, L, jr.solution.theta, false);
+        if (!s.usable) return std::nullopt;
+        return s.theta;
+      },
+      false);
   for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
   return jr;
 }

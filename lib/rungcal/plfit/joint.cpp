@@ -147,9 +147,23 @@ JointData JointData::take(const std::vector<int>& stars) const {
     o.mu.push_back(mu[star]);
     o.var_mu.push_back(var_mu[star]);
     o.row.push_back(row[star]);
+    if (!weight.empty()) o.weight.push_back(weight[static_cast<std::size_t>(star)]);
   }
   o.first.push_back(static_cast<int>(o.relation.size()));
   o.group_plx = group_plx;
+  return o;
+}
+
+JointData JointData::take_counted(const std::vector<int>& stars) const {
+  std::vector<int> draws(static_cast<std::size_t>(this->stars()), 0);
+  for (int star : stars) ++draws[static_cast<std::size_t>(star)];
+  std::vector<int> distinct;
+  std::vector<double> counts;
+  for (int i = 0; i < this->stars(); ++i)
+    if (const int n = draws[static_cast<std::size_t>(i)]; n > 0)
+      distinct.push_back(i), counts.push_back(n * weight_of(i));
+  JointData o = take(distinct);
+  o.weight = std::move(counts);
   return o;
 }
 

@@ -163,6 +163,8 @@ class JointEvaluator final : public Objective {
                 K = d_.first[static_cast<std::size_t>(i) + 1] - e0;
       const int kind = d_.kind[static_cast<std::size_t>(i)];
       const auto si = static_cast<std::size_t>(i);
+      // A bootstrap's star drawn n times counts n times (JointData::weight).
+      const double count = d_.weight_of(i);
       // [Fe/H]: its latent true value marginalised (Kelly 2007), shared by the relations.
       double zbar = d_.feh[si], wz = 0, dz_mean = 0, dz_tau2 = 0, dwz_tau2 = 0;
       if (feh_errors) {
@@ -173,9 +175,9 @@ class JointEvaluator final : public Objective {
         dz_mean = s2 / den;
         dz_tau2 = s2 * dz / (den * den);
         dwz_tau2 = s2 * s2 / (den * den);
-        log_l += -0.5 * (dz * dz / den + kLog2Pi + std::log(den));
-        g[L_.feh_mean] += dz / den;
-        g_feh_var += 0.5 * (dz * dz - den) / (den * den);
+        log_l += -0.5 * count * (dz * dz / den + kLog2Pi + std::log(den));
+        g[L_.feh_mean] += count * dz / den;
+        g_feh_var += 0.5 * count * (dz * dz - den) / (den * den);
       }
       SmallVector r(K), gam(K), sig(K);
       SmallMatrix S(K, K);
@@ -267,7 +269,8 @@ class JointEvaluator final : public Objective {
         q = std::exp(a - li), q_out = std::exp(b - li), q_blend = std::exp(c - li);
       }
       if (membership) (*membership)[i] = q;
-      log_l += li + red.colour;
+      log_l += count * (li + red.colour);
+      q *= count, q_out *= count, q_blend *= count;  // every gradient term below is per draw
       if (mixture_) {
         g_outlier += q_out / f - (q + q_blend) / (1.0 - f);
         g_shift -= q_out * outlier.d_m;
@@ -282,11 +285,11 @@ class JointEvaluator final : public Objective {
       };
       // d ln L / d m_eff and / d (1/a), then / d r and / d S (the header's factorisation).
       const double d_meff = -mix(&Component::d_m), d_veff = mix(&Component::d_v);
-      SmallVector gr = d_meff / red.a * red.p - red.u;
+      SmallVector gr = d_meff / red.a * red.p - count * red.u;
       SmallMatrix G =
           -d_meff / (2.0 * red.a) * (red.p * red.u.transpose() + red.u * red.p.transpose()) +
-          (d_veff / (red.a * red.a) + 0.5 / red.a) * red.p * red.p.transpose() - 0.5 * red.P +
-          0.5 * red.u * red.u.transpose();
+          (d_veff / (red.a * red.a) + 0.5 * count / red.a) * red.p * red.p.transpose() +
+          0.5 * count * (red.u * red.u.transpose() - red.P);
       if (coloured_) add_blend_colour_gradient(red, hk, blend, b0, q_blend, e0, gr, G, g);
       const SmallVector Gg = G * gam;
       for (int k = 0; k < K; ++k) {

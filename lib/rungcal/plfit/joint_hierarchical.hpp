@@ -24,10 +24,14 @@ namespace rungcal {
 //   N_K(r - mu 1 | S) = N(m_eff - mu | 0, 1/a) exp(c),  m_eff = 1^T P r / a,
 //   c = -(K-1)/2 ln 2 pi - 1/2 ln det S - 1/2 ln a - 1/2 (r^T P r - a m_eff^2),
 // so the mu integral is the single relation's (hierarchical.hpp) with the magnitude m_eff
-// and variance 1/a, and c carries the colours: what the bands say beyond mu. Outliers and
-// blends are grey (the same shift in every band): the outlier component adds width^2 1 1^T
-// to S and the blend component a brightening b 1, which leave c unchanged and act on m_eff
-// alone (a colour outlier, one band off, is not modelled: it is a Gaussian colour residual).
+// and variance 1/a, and c carries the colours: what the bands say beyond mu. Outliers are
+// grey (the same shift in every band): the outlier component adds width^2 1 1^T to S, which
+// leaves c unchanged and acts on m_eff alone (a colour outlier, one band off, is not
+// modelled: it is a Gaussian colour residual). A blend brightens band k by kappa_k (b0 + b),
+// kappa_k the relation's blend_ratio (1 for the first): it moves m_eff and leaves a colour
+// residual linear and quadratic in b (coloured_blend_log_density; docs/method.md, "Coloured
+// blends"); with every ratio 1 it is grey and acts on m_eff alone.
+// A star of JointData::weight w counts w times (a bootstrap resample's repeats).
 // Gradients are exact: d/dr and d/dS of each star's -ln L by matrix calculus, then the chain
 // rule to the parameters. The smooth-histogram distance prior's grid moves with the mean of
 // the relations' alphas (HierarchicalSettings::histogram_alpha_ref is that mean's reference).
