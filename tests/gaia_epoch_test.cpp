@@ -2,10 +2,12 @@
 // Tests of lib/rungcal/lightcurve/gaia_epoch*: Gaia DR3 epoch photometry, in arrays (one row
 // per source, the epochs in array columns) as FITS, VOTable and ECSV, and flat (one epoch per
 // row) as CSV and VOTable, written by astropy (Debian python3-astropy), expanded into light
-// curves; times against astropy.time, magnitudes
-// against numpy. No small real Gaia DR3 epoch-photometry file in the array layout was found
-// in public repositories, so the sources here are invented (their source_ids are made up)
-// with sinusoidal light curves of known period: known truth, as for the other simulations.
+// curves; times against astropy.time, magnitudes against numpy. No small real Gaia DR3
+// epoch-photometry file, in either form, was found in public repositories' test data
+// (astroquery's Gaia DataLink test archives, astroquery/gaia/tests/data/*_dl_products_*.zip,
+// hold XP spectra and MCMC samples, no EPOCH_PHOTOMETRY), so the sources here are invented
+// (their source_ids are made up) with sinusoidal light curves of known period: known truth,
+// as for the other simulations.
 #include <gtest/gtest.h>
 
 #include <fmt/format.h>
