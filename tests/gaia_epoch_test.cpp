@@ -124,6 +124,8 @@ ft = Table(flat)
 ft["flux_over_error"] = ft["flux_over_error"].astype(np.float32)
 ft.write(out + "/flat.csv", format="ascii.csv", overwrite=True)
 ft.write(out + "/flat.vot", format="votable", overwrite=True)
+ft.write(out + "/flat.ecsv", format="ascii.ecsv", overwrite=True)
+ft.write(out + "/flat.fits", format="fits", overwrite=True)
 )py";
 
 std::string write_gaia_files(const test::TempDir& dir) {
@@ -139,14 +141,14 @@ std::string gaia_config(const std::string& input, const std::string& extra_sourc
          "\"out/lc.fits\"\n";
 }
 
-SourceTable expand(const std::string& path, std::vector<GaiaDroppedEpochs>& dropped) {
+SourceTable expand(const std::string& path, std::vector<GaiaDroppedEpochs>& dropped,
+                   const std::vector<std::string>& bands = {"G", "BP", "RP"}) {
   TableSourceSpec spec;
   spec.path = path;
   spec.is_fits = has_fits_extension(path);
   spec.is_votable = path.ends_with(".vot");
   std::vector<InputRecord> inputs;
-  return read_gaia_epochs(spec, {"G", "BP", "RP"}, {"star", "time", "band", "mag", "err"}, inputs,
-                          dropped);
+  return read_gaia_epochs(spec, bands, {"star", "time", "band", "mag", "err"}, inputs, dropped);
 }
 
 TEST(GaiaEpoch, TimesAreBjdInTcbAsAstropyCountsThem) {
@@ -237,22 +239,22 @@ TEST(GaiaEpoch, FitsVotableAndEcsvGiveTheSameLightCurves) {
   }
 }
 
-TEST(GaiaEpoch, TheFlatFormInCsvAndVotableGivesTheLightCurvesOfTheArrayForm) {
+TEST(GaiaEpoch, TheFlatFormGivesTheLightCurvesOfTheArrayForm) {
   // The same invented epochs written by astropy once per source in arrays (gaia.ecsv) and
-  // once per epoch (flat.csv, flat.vot): the same points, and the same epochs dropped and
-  // counted per source and band.
+  // once per epoch (flat.csv, flat.vot, flat.ecsv, flat.fits): the same points, and the
+  // same epochs dropped and counted per source and band.
   test::TempDir dir;
   write_gaia_files(dir);
-  std::vector<GaiaDroppedEpochs> da, dc, dv;
+  std::vector<GaiaDroppedEpochs> da, dc, dv, de, df;
   const SourceTable a = expand(dir.file("gaia.ecsv"), da);
   const SourceTable c = expand(dir.file("flat.csv"), dc);
   const SourceTable v = expand(dir.file("flat.vot"), dv);
+  const SourceTable e = expand(dir.file("flat.ecsv"), de);
+  const SourceTable f = expand(dir.file("flat.fits"), df);
   ASSERT_EQ(a.table.rows(), 3u * 70 + 3u * 90 - 6);
-  expect_same_light_curves(c, a);
-  expect_same_light_curves(v, a);
-  ASSERT_EQ(dc.size(), da.size());
-  ASSERT_EQ(dv.size(), da.size());
-  for (const auto* d : {&dc, &dv})
+  for (const SourceTable* flat : {&c, &v, &e, &f}) expect_same_light_curves(*flat, a);
+  for (const auto* d : {&dc, &dv, &de, &df}) ASSERT_EQ(d->size(), da.size());
+  for (const auto* d : {&dc, &dv, &de, &df})
     for (std::size_t i = 0; i < da.size(); ++i) {
       EXPECT_EQ((*d)[i].star, da[i].star) << i;
       EXPECT_EQ((*d)[i].band, da[i].band) << i;
@@ -267,6 +269,17 @@ TEST(GaiaEpoch, TheFlatFormInCsvAndVotableGivesTheLightCurvesOfTheArrayForm) {
   EXPECT_EQ(c.row_label, "line");
   EXPECT_EQ(c.source_rows[0], 2);
   EXPECT_EQ(dc[1].source_row, 2);  // the source's first line
+}
+
+TEST(GaiaEpoch, TheFlatFormSkipsTheRowsOfBandsNotAskedFor) {
+  test::TempDir dir;
+  write_gaia_files(dir);
+  std::vector<GaiaDroppedEpochs> d;
+  const SourceTable g = expand(dir.file("flat.csv"), d, {"G"});
+  ASSERT_EQ(g.table.rows(), 70u + 90u - 3u);  // the G epochs less the three flagged
+  for (const std::string& band : g.table.column("band").text) EXPECT_EQ(band, "G");
+  ASSERT_EQ(d.size(), 2u);  // one per source, G only
+  EXPECT_EQ(d[0].flagged, 3);
 }
 
 TEST(GaiaEpoch, TheStageGivesTheSameSummaryFromTheFlatForm) {
