@@ -74,8 +74,8 @@ void GaiaLightCurveWriter::add(const GaiaEpochBand& band, const std::string& sta
 
 void log_dropped_epochs(const GaiaDroppedEpochs& d) {
   if (d.flagged + d.missing > 0)
-    spdlog::debug("Gaia DR3 {} {}: {} epochs dropped ({} flagged, {} with a missing value)",
-                  d.star, d.band, d.flagged + d.missing, d.flagged, d.missing);
+    spdlog::debug("Gaia DR3 {} {}: {} epochs dropped ({} flagged, {} with a missing value)", d.star,
+                  d.band, d.flagged + d.missing, d.flagged, d.missing);
 }
 
 std::vector<std::string> gaia_epoch_files(const std::string& path) {
