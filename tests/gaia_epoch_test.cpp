@@ -1,10 +1,13 @@
 // SPDX-License-Identifier: MIT
-// Tests of lib/rungcal/lightcurve/gaia_epoch: Gaia DR3 epoch photometry (one row per source,
-// the epochs in array columns) as FITS, VOTable and ECSV written by astropy (Debian
-// python3-astropy), expanded into light curves; times against astropy.time, magnitudes
-// against numpy. No small real Gaia DR3 epoch-photometry file in the array layout was found
-// in public repositories, so the sources here are invented (their source_ids are made up)
-// with sinusoidal light curves of known period: known truth, as for the other simulations.
+// Tests of lib/rungcal/lightcurve/gaia_epoch*: Gaia DR3 epoch photometry, in arrays (one row
+// per source, the epochs in array columns) as FITS, VOTable and ECSV, and flat (one epoch per
+// row) as CSV and VOTable, written by astropy (Debian python3-astropy), expanded into light
+// curves; times against astropy.time, magnitudes against numpy. No small real Gaia DR3
+// epoch-photometry file, in either form, was found in public repositories' test data
+// (astroquery's Gaia DataLink test archives, astroquery/gaia/tests/data/*_dl_products_*.zip,
+// hold XP spectra and MCMC samples, no EPOCH_PHOTOMETRY), so the sources here are invented
+// (their source_ids are made up) with sinusoidal light curves of known period: known truth,
+// as for the other simulations.
 #include <gtest/gtest.h>
 
 #include <fmt/format.h>
@@ -92,6 +95,37 @@ for name in names:
     kind = "L" if "flag" in name else ("E" if name.endswith("over_error") else "D")
     cols.append(fits.Column(name=name, format="P" + kind + "()", array=a))
 fits.BinTableHDU.from_columns(cols).writeto(out + "/gaia.fits", overwrite=True)
+# The same epochs in the flat form (one epoch per row; columns of table 1 of the Gaia DR3
+# epoch-photometry paper, A&A 2023, aa44204-22), transit by transit with the bands
+# interleaved, as flat.csv and flat.vot. transit_id and solution_id are invented.
+flat = {k: [] for k in ["source_id", "transit_id", "band", "time", "mag", "flux",
+        "flux_error", "flux_over_error", "rejected_by_photometry",
+        "rejected_by_variability", "other_flags", "solution_id"]}
+for i, (sid, period, n, mean) in enumerate(sources):
+    for k in range(n):
+        for band, tcol in [("G", "g_transit_time"), ("BP", "bp_obs_time"), ("RP", "rp_obs_time")]:
+            pre = "g_transit_" if band == "G" else band.lower() + "_"
+            snr = rows[pre + "flux_over_error"][i][k]
+            flat["source_id"].append(sid)
+            flat["transit_id"].append(17000000000000000 + 1000 * i + k)
+            flat["band"].append(band)
+            flat["time"].append(rows[tcol][i][k])
+            flat["mag"].append(rows[pre + "mag"][i][k])
+            flat["flux"].append(rows[pre + "flux"][i][k])
+            flat["flux_error"].append(rows[pre + "flux"][i][k] / snr)
+            flat["flux_over_error"].append(snr)
+            phot = "photometry_flag_" + band.lower() + "_reject"
+            flat["rejected_by_photometry"].append(bool(phot in rows and rows[phot][i][k]))
+            flat["rejected_by_variability"].append(
+                bool(rows["variability_flag_" + band.lower() + "_reject"][i][k]))
+            flat["other_flags"].append(0)
+            flat["solution_id"].append(375316653866487564)
+ft = Table(flat)
+ft["flux_over_error"] = ft["flux_over_error"].astype(np.float32)
+ft.write(out + "/flat.csv", format="ascii.csv", overwrite=True)
+ft.write(out + "/flat.vot", format="votable", overwrite=True)
+ft.write(out + "/flat.ecsv", format="ascii.ecsv", overwrite=True)
+ft.write(out + "/flat.fits", format="fits", overwrite=True)
 )py";
 
 std::string write_gaia_files(const test::TempDir& dir) {
@@ -107,14 +141,14 @@ std::string gaia_config(const std::string& input, const std::string& extra_sourc
          "\"out/lc.fits\"\n";
 }
 
-SourceTable expand(const std::string& path, std::vector<GaiaDroppedEpochs>& dropped) {
+SourceTable expand(const std::string& path, std::vector<GaiaDroppedEpochs>& dropped,
+                   const std::vector<std::string>& bands = {"G", "BP", "RP"}) {
   TableSourceSpec spec;
   spec.path = path;
   spec.is_fits = has_fits_extension(path);
   spec.is_votable = path.ends_with(".vot");
   std::vector<InputRecord> inputs;
-  return read_gaia_epochs(spec, {"G", "BP", "RP"}, {"star", "time", "band", "mag", "err"}, inputs,
-                          dropped);
+  return read_gaia_epochs(spec, bands, {"star", "time", "band", "mag", "err"}, inputs, dropped);
 }
 
 TEST(GaiaEpoch, TimesAreBjdInTcbAsAstropyCountsThem) {
@@ -163,6 +197,24 @@ print(repr(2.5 / np.log(10) / 437.5))
   EXPECT_TRUE(std::isnan(magnitude_error_from_flux_over_error(0.0)));
 }
 
+// The same light-curve points, in the same order: the star, band, time and magnitude to the
+// bit (astropy writes each double in full, repr), the error to float precision
+// (flux_over_error is a float in the DR3 data model: FITS keeps its binary value, each text
+// form writes its shortest decimal).
+void expect_same_light_curves(const SourceTable& other, const SourceTable& reference) {
+  const StarTable& o = other.table;
+  const StarTable& e = reference.table;
+  ASSERT_EQ(o.rows(), e.rows());
+  for (std::size_t r = 0; r < e.rows(); ++r) {
+    EXPECT_EQ(o.column("star").text[r], e.column("star").text[r]) << r;
+    EXPECT_EQ(o.column("band").text[r], e.column("band").text[r]) << r;
+    EXPECT_EQ(o.column("time").real[r], e.column("time").real[r]) << r;
+    EXPECT_EQ(o.column("mag").real[r], e.column("mag").real[r]) << r;
+    EXPECT_NEAR(o.column("err").real[r], e.column("err").real[r], 1e-7 * e.column("err").real[r])
+        << r;
+  }
+}
+
 TEST(GaiaEpoch, FitsVotableAndEcsvGiveTheSameLightCurves) {
   test::TempDir dir;
   write_gaia_files(dir);
@@ -172,21 +224,7 @@ TEST(GaiaEpoch, FitsVotableAndEcsvGiveTheSameLightCurves) {
   const SourceTable f = expand(dir.file("gaia.fits"), df);
   // 3 x 70 + 3 x 90 epochs, less 3 flagged G, 2 missing BP and 1 flagged RP.
   ASSERT_EQ(e.table.rows(), 3u * 70 + 3u * 90 - 6);
-  for (const SourceTable* other : {&v, &f}) {
-    ASSERT_EQ(other->table.rows(), e.table.rows());
-    for (std::size_t r = 0; r < e.table.rows(); ++r) {
-      EXPECT_EQ(other->table.column("star").text[r], e.table.column("star").text[r]);
-      EXPECT_EQ(other->table.column("band").text[r], e.table.column("band").text[r]);
-      // astropy writes each double in full (repr): the same numbers each way, bit for bit.
-      EXPECT_EQ(other->table.column("time").real[r], e.table.column("time").real[r]) << r;
-      EXPECT_EQ(other->table.column("mag").real[r], e.table.column("mag").real[r]) << r;
-      // flux_over_error is a float (DR3 data model): FITS keeps its binary value, the text
-      // formats its shortest decimal, so the errors agree to float precision.
-      EXPECT_NEAR(other->table.column("err").real[r], e.table.column("err").real[r],
-                  1e-7 * e.table.column("err").real[r])
-          << r;
-    }
-  }
+  for (const SourceTable* other : {&v, &f}) expect_same_light_curves(*other, e);
   EXPECT_EQ(e.table.column("star").text[0], "4101234567890123457");
   EXPECT_EQ(e.row_label, "line");
   EXPECT_EQ(f.row_label, "row");
@@ -199,6 +237,88 @@ TEST(GaiaEpoch, FitsVotableAndEcsvGiveTheSameLightCurves) {
     EXPECT_EQ((*d)[2].flagged, 1);
     EXPECT_EQ((*d)[3].flagged + (*d)[3].missing, 0);
   }
+}
+
+TEST(GaiaEpoch, TheFlatFormGivesTheLightCurvesOfTheArrayForm) {
+  // The same invented epochs written by astropy once per source in arrays (gaia.ecsv) and
+  // once per epoch (flat.csv, flat.vot, flat.ecsv, flat.fits): the same points, and the
+  // same epochs dropped and counted per source and band.
+  test::TempDir dir;
+  write_gaia_files(dir);
+  std::vector<GaiaDroppedEpochs> da, dc, dv, de, df;
+  const SourceTable a = expand(dir.file("gaia.ecsv"), da);
+  const SourceTable c = expand(dir.file("flat.csv"), dc);
+  const SourceTable v = expand(dir.file("flat.vot"), dv);
+  const SourceTable e = expand(dir.file("flat.ecsv"), de);
+  const SourceTable f = expand(dir.file("flat.fits"), df);
+  ASSERT_EQ(a.table.rows(), 3u * 70 + 3u * 90 - 6);
+  for (const SourceTable* flat : {&c, &v, &e, &f}) expect_same_light_curves(*flat, a);
+  for (const auto* d : {&dc, &dv, &de, &df}) ASSERT_EQ(d->size(), da.size());
+  for (const auto* d : {&dc, &dv, &de, &df})
+    for (std::size_t i = 0; i < da.size(); ++i) {
+      EXPECT_EQ((*d)[i].star, da[i].star) << i;
+      EXPECT_EQ((*d)[i].band, da[i].band) << i;
+      EXPECT_EQ((*d)[i].flagged, da[i].flagged) << i;
+      EXPECT_EQ((*d)[i].missing, da[i].missing) << i;
+    }
+  EXPECT_EQ(dc[0].flagged, 3);  // three G epochs rejected by variability processing
+  EXPECT_EQ(dc[1].missing, 2);  // two BP epochs without flux or magnitude
+  EXPECT_EQ(dc[2].flagged, 1);  // one RP transit rejected by photometry processing
+  // Each epoch keeps its own line (the header is line 1): the first source's first G epoch
+  // is on line 2 of the CSV, its first BP epoch on line 3.
+  EXPECT_EQ(c.row_label, "line");
+  EXPECT_EQ(c.source_rows[0], 2);
+  EXPECT_EQ(dc[1].source_row, 2);  // the source's first line
+}
+
+TEST(GaiaEpoch, TheFlatFormSkipsTheRowsOfBandsNotAskedFor) {
+  test::TempDir dir;
+  write_gaia_files(dir);
+  std::vector<GaiaDroppedEpochs> d;
+  const SourceTable g = expand(dir.file("flat.csv"), d, {"G"});
+  ASSERT_EQ(g.table.rows(), 70u + 90u - 3u);  // the G epochs less the three flagged
+  for (const std::string& band : g.table.column("band").text) EXPECT_EQ(band, "G");
+  ASSERT_EQ(d.size(), 2u);  // one per source, G only
+  EXPECT_EQ(d[0].flagged, 3);
+}
+
+TEST(GaiaEpoch, TheStageGivesTheSameSummaryFromTheFlatForm) {
+  test::TempDir dir;
+  write_gaia_files(dir);
+  test::write_text(dir.file("arrays.toml"), gaia_config("gaia.fits"));
+  test::write_text(dir.file("flat.toml"),
+                   test::replaced(gaia_config("flat.csv"), {{"out/lc.fits", "flat/lc.fits"}}));
+  const auto ra = test::run_stage("lightcurve", "--config " + dir.file("arrays.toml"));
+  ASSERT_EQ(ra.exit_code, 0) << ra.output;
+  const auto rf = test::run_stage("lightcurve", "--verbose --config " + dir.file("flat.toml"));
+  ASSERT_EQ(rf.exit_code, 0) << rf.output;
+  EXPECT_NE(rf.output.find("4 dropped by rejection flags, 2 with a missing value"),
+            std::string::npos)
+      << rf.output;
+  EXPECT_NE(rf.output.find("4101234567890123457 G: 3 epochs dropped (3 flagged, 0 with a "
+                           "missing value)"),
+            std::string::npos)
+      << rf.output;
+  const StarTable a = read_fits_table(dir.file("out/lc.fits"), {"SUMMARY", 0}).table;
+  const StarTable f = read_fits_table(dir.file("flat/lc.fits"), {"SUMMARY", 0}).table;
+  ASSERT_EQ(f.rows(), a.rows());
+  ASSERT_EQ(f.columns(), a.columns());
+  for (std::size_t k = 0; k < a.columns(); ++k) {
+    const Column& ca = a.column(k);
+    const Column& cf = f.column(ca.name);
+    for (std::size_t r = 0; r < a.rows(); ++r) {
+      if (ca.type == ColumnType::kReal && std::isnan(ca.real[r]))  // e.g. R21 of one harmonic
+        EXPECT_TRUE(std::isnan(cf.real[r])) << ca.name << " " << r;
+      else if (ca.type == ColumnType::kReal)  // errors through float flux_over_error: 1e-7
+        EXPECT_NEAR(cf.real[r], ca.real[r], 1e-6 * std::max(1.0, std::abs(ca.real[r])))
+            << ca.name << " " << r;
+      else
+        EXPECT_EQ(cf.to_string(r), ca.to_string(r)) << ca.name << " " << r;
+    }
+  }
+  EXPECT_EQ(f.column("flagged_G").integer, (std::vector<std::int64_t>{3, 0}));
+  EXPECT_EQ(f.column("missing_BP").integer, (std::vector<std::int64_t>{2, 0}));
+  EXPECT_EQ(f.column("flagged_RP").integer, (std::vector<std::int64_t>{1, 0}));
 }
 
 TEST(GaiaEpoch, FluxesWithoutMagnitudesGiveTheSameMagnitudes) {
@@ -293,30 +413,80 @@ lines = open(path).read().split("\n")
 print(1 + [i for i, l in enumerate(lines) if l and not l.startswith("#")][2])
 )";
 
-class GaiaEpochBadInput : public ::testing::TestWithParam<GaiaBadCase> {};
-
-TEST_P(GaiaEpochBadInput, StopsWithItsRuleAndExitCode2AndWritesNothing) {
-  const GaiaBadCase& c = GetParam();
+// Writes the Gaia files, edits `file` with `editor`, runs the stage on it and checks that it
+// stops with exit code 2 and the case's rule, names what the case says and the file (or the
+// config, for a config rule), and writes nothing. Returns what the editor printed.
+std::string expect_stop_on_edited(const GaiaBadCase& c, const char* editor,
+                                  const std::string& file, std::string& stage_output) {
   test::TempDir dir;
   write_gaia_files(dir);
-  const auto edit = test::run_python(kEditEcsv, {dir.file("gaia.ecsv"), c.python_edit});
-  ASSERT_EQ(edit.exit_code, 0) << edit.output;
-  test::write_text(dir.file("lc.toml"), gaia_config("gaia.ecsv", c.extra_source));
+  const auto edit = test::run_python(editor, {dir.file(file), c.python_edit});
+  EXPECT_EQ(edit.exit_code, 0) << edit.output;
+  test::write_text(dir.file("lc.toml"), gaia_config(file, c.extra_source));
   const auto r = test::run_stage("lightcurve", "--config " + dir.file("lc.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
   EXPECT_NE(r.output.find(c.names), std::string::npos) << r.output;
-  if (c.rule == "array_length") {  // the second source's line, as the editor counted it
-    EXPECT_NE(r.output.find("line " + test::replaced(edit.output, {{"\n", ""}})), std::string::npos)
-        << r.output;
-  }
-  EXPECT_TRUE(r.output.find("gaia.ecsv") != std::string::npos ||
+  EXPECT_TRUE(r.output.find(file) != std::string::npos ||
               r.output.find("lc.toml") != std::string::npos)
       << r.output;
   EXPECT_FALSE(test::file_exists(dir.file("out")));
+  stage_output = r.output;
+  return edit.output;
+}
+
+class GaiaEpochBadInput : public ::testing::TestWithParam<GaiaBadCase> {};
+
+TEST_P(GaiaEpochBadInput, StopsWithItsRuleAndExitCode2AndWritesNothing) {
+  const GaiaBadCase& c = GetParam();
+  std::string output;
+  const std::string edited = expect_stop_on_edited(c, kEditEcsv, "gaia.ecsv", output);
+  if (c.rule == "array_length") {  // the second source's line, as the editor counted it
+    EXPECT_NE(output.find("line " + test::replaced(edited, {{"\n", ""}})), std::string::npos)
+        << output;
+  }
 }
 
 INSTANTIATE_TEST_SUITE_P(Cases, GaiaEpochBadInput, ::testing::ValuesIn(gaia_bad_cases()),
+                         [](const auto& case_info) { return std::string(case_info.param.name); });
+
+std::vector<GaiaBadCase> gaia_flat_bad_cases() {
+  // Lines of flat.csv: 1 the header, 2 the first source's first G epoch.
+  return {
+      {"MissingTimeColumn", "drop('time')", "", "missing_column", "column 'time'"},
+      {"NeitherMagnitudeNorFlux", "drop('mag'); drop('flux')", "", "missing_column",
+       "column 'flux'"},
+      {"UnknownBandValue", "t['band'][3] = 'V'", "", "unknown_band",
+       "line 5: column 'band': [unknown_band] \"V\" is not a Gaia band"},
+      {"FlagThatIsNoFlag",
+       "t['rejected_by_variability'] = t['rejected_by_variability'].astype(str); "
+       "t['rejected_by_variability'][6] = 'maybe'",
+       "", "not_a_flag",
+       "line 8: column 'rejected_by_variability'"},
+      {"TimeThatIsNoNumber", "t['time'] = t['time'].astype('U24'); t['time'][2] = 'soon'", "",
+       "not_a_number", "line 4: column 'time'"},
+  };
+}
+
+// Edits flat.csv with astropy: drop(name) removes a column; other edits change cells.
+constexpr const char* kEditFlatCsv = R"(
+import sys
+from astropy.table import Table
+path, edit = sys.argv[1], sys.argv[2]
+t = Table.read(path, format="ascii.csv")
+def drop(name): t.remove_column(name)
+exec(edit)
+t.write(path, format="ascii.csv", overwrite=True)
+)";
+
+class GaiaEpochFlatBadInput : public ::testing::TestWithParam<GaiaBadCase> {};
+
+TEST_P(GaiaEpochFlatBadInput, StopsWithItsRuleAndExitCode2AndWritesNothing) {
+  std::string output;
+  expect_stop_on_edited(GetParam(), kEditFlatCsv, "flat.csv", output);
+}
+
+INSTANTIATE_TEST_SUITE_P(Cases, GaiaEpochFlatBadInput, ::testing::ValuesIn(gaia_flat_bad_cases()),
                          [](const auto& case_info) { return std::string(case_info.param.name); });
 
 }  // namespace

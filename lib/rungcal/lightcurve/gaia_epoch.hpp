@@ -12,10 +12,17 @@
 
 namespace rungcal {
 
-// Gaia DR3 epoch photometry as the archive publishes it: one row per source, the epochs in
-// array columns (the "RAW" data structure of Gaia DR3 documentation, section 20.7.1
-// "epoch_photometry"; the same columns in the bulk ECSV files). [source] layout =
-// "gaia_epoch" expands each row into one light curve per band G, BP and RP.
+// Gaia DR3 epoch photometry as the archive publishes it, in either of its two forms
+// (Gaia DR3 documentation, section 20.7.1 "epoch_photometry"):
+// - arrays ("RAW"): one row per source, the epochs in array columns (the same columns in
+//   the bulk ECSV files);
+// - flat ("INDIVIDUAL", as the DataLink service writes it in CSV, VOTable or FITS): one
+//   epoch per row, columns source_id, band (G, BP, RP), time, mag, flux, flux_error,
+//   flux_over_error, rejected_by_photometry, rejected_by_variability (table 1 of the Gaia
+//   DR3 paper on the epoch photometry, A&A 2023, article aa44204-22).
+// [source] layout = "gaia_epoch" reads both, telling them apart by the file's columns (a
+// file without arrays and with a time or band column is flat), and makes one light curve
+// per source and band G, BP and RP by the same rules.
 
 // Gaia's epoch times are "Barycentric JD in TCB - 2455197.5 (day)", the origin being
 // 2010-01-01T00:00:00 TCB (Gaia DR3 documentation, section 20.7.1, g_transit_time,
@@ -69,19 +76,23 @@ std::vector<std::string> gaia_epoch_array_columns();
 // with a NaN or null time, magnitude, flux or error, or a flux that is not positive.
 struct GaiaDroppedEpochs {
   std::string star, band;
-  std::int64_t source_row = 0;  // the source's row (FITS) or line (VOTable, ECSV)
+  std::int64_t source_row = 0;  // the source's (first) row (FITS) or line (VOTable, ECSV, CSV)
   std::int64_t flagged = 0;
   std::int64_t missing = 0;
 };
 
-// Reads every file the spec's path (a file name or a glob) matches with the array columns,
-// and writes one long table of columns.star (source_id), band, time (BJD TCB), mag and err,
-// its source rows the row (FITS) or line (VOTable, ECSV) of each source. bands: the bands to
-// expand ("G", "BP", "RP"). inputs receives every file with its SHA-256 and rows. Throws
-// InputError naming the file, row and column: "missing_column" (no source_id, or a band
-// without its time array or without magnitudes or fluxes and their errors), "not_an_array"
-// (the column is there but holds one value per row), "array_length" (a row whose arrays for
-// one band differ in length).
+// Reads every file the spec's path (a file name or a glob) matches, in either form, and
+// writes one long table of columns.star (source_id), band, time (BJD TCB), mag and err, its
+// source rows the row (FITS) or line (VOTable, ECSV, CSV) of each source (arrays) or epoch
+// (flat). bands: the bands to expand ("G", "BP", "RP"); a flat file's rows of other bands
+// are skipped. inputs receives every file with its SHA-256 and rows. Throws InputError
+// naming the file, row and column: "missing_column" (no source_id; arrays: a band without
+// its time array or without magnitudes or fluxes and their errors; flat: no band or time
+// column, no mag or flux, no flux_over_error or flux_error), "not_an_array" (the column is
+// there but holds one value per row), "array_length" (a row whose arrays for one band
+// differ in length); flat only: "unknown_band" (a band value other than G, BP, RP),
+// "not_a_number" (a value that is neither empty nor a number), "not_a_flag" (a rejection
+// flag other than True/False, T/F, 1/0), "missing_required" (a row without source_id).
 SourceTable read_gaia_epochs(const TableSourceSpec& spec, const std::vector<std::string>& bands,
                              const LightCurveColumns& columns, std::vector<InputRecord>& inputs,
                              std::vector<GaiaDroppedEpochs>& dropped);
