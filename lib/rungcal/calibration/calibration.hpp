@@ -8,6 +8,8 @@
 #include <Eigen/Dense>
 #include <nlohmann/json.hpp>
 
+#include "rungcal/table/fit_result_schema.hpp"
+
 namespace rungcal {
 
 // Schema version of calibration files (docs/file-formats.md, "Calibration file").
@@ -33,17 +35,16 @@ struct Calibration {
   const nlohmann::json* find_relation(const std::string& name) const;
   // The same, or InputError (rule "unknown_relation").
   const nlohmann::json& relation(const std::string& name) const;
+  // The relation's typed record (table/fit_result_schema.hpp), or InputError
+  // ("unknown_relation"); find_relation_record: std::nullopt when there is none.
+  FitRelationRecord relation_record(const std::string& name) const;
+  std::optional<FitRelationRecord> find_relation_record(const std::string& name) const;
+  // The fit result inside: the fit's "provenance" and "relations".
+  const nlohmann::json& fit() const;
 };
 
-// Checks the parts of a rungcal-fit result (fit.json, or a calibration's "fit") that
-// publish, diff, apply and report read: "relations" an array of objects, each with a string
-// "name", finite numbers "pivot_log_period" (and "break_log_period" when present),
-// "parameter_names" strings, "parameters" objects with a string "name" and "mode", a finite
-// "value" and an "error" that is a finite number or null, and "covariance" a square array
-// of arrays of numbers or nulls, one row per parameter; "used" (when present) strings.
-// Throws InputError (rule "fit_schema") naming the first part that is missing or of the
-// wrong type, with `where` as the file.
-void check_fit_document(const nlohmann::json& fit, const std::string& where);
+// check_fit_document, which checks a rungcal-fit result (fit.json, or a calibration's
+// "fit"): table/fit_result_schema.hpp.
 
 // The same for a whole calibration file: a string "name", an integer "version", and its
 // "fit" as above (rule "calibration_schema" for the file's own fields).

@@ -160,22 +160,20 @@ int withdrawn_with_content(const fs::path& folder, const std::vector<WithdrawnVe
 
 nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& before) {
   nlohmann::json out = nlohmann::json::object();
-  for (const auto& r : now.at("relations")) {
-    const std::string name = r.at("name");
-    const nlohmann::json* old = nullptr;
-    for (const auto& o : before.at("relations"))
-      if (o.at("name") == name) old = &o;
+  const std::vector<FitRelationRecord> old_relations = fit_relations(before);
+  for (const FitRelationRecord& r : fit_relations(now)) {
+    const FitRelationRecord* old = nullptr;
+    for (const FitRelationRecord& o : old_relations)
+      if (o.name == r.name) old = &o;
     if (!old) continue;
-    for (const auto& p : r.at("parameters")) {
-      for (const auto& q : old->at("parameters")) {
-        if (q.at("name") != p.at("name")) continue;
-        double shift = p.at("value").get<double>() - q.at("value").get<double>();
-        double e1 = p.at("error").is_null() ? NAN : p.at("error").get<double>();
-        double e0 = q.at("error").is_null() ? NAN : q.at("error").get<double>();
-        double combined = std::hypot(e1, e0);
+    for (const FitParameterRecord& p : r.parameters) {
+      for (const FitParameterRecord& q : old->parameters) {
+        if (q.name != p.name) continue;
+        double shift = p.value - q.value;
+        double combined = std::hypot(p.error_or_nan(), q.error_or_nan());
         nlohmann::json entry = {{"shift", shift}, {"combined_sigma", std::isfinite(combined) ? nlohmann::json(combined) : nlohmann::json(nullptr)}};
         entry["shift_in_sigma"] = std::isfinite(combined) && combined > 0 ? nlohmann::json(shift / combined) : nlohmann::json(nullptr);
-        out[name][p.at("name").get<std::string>()] = entry;
+        out[r.name][p.name] = entry;
       }
     }
   }
@@ -188,13 +186,20 @@ void write_calibration_fits(const Calibration& cal, const std::string& path) {
   StarTable params;
   for (const char* c : {"relation", "parameter", "mode"}) params.add_column(c, ColumnType::kText);
   for (const char* c : {"value", "error", "bootstrap_error", "p16", "p50", "p84"}) params.add_column(c, ColumnType::kReal);
-  for (const auto& r : cal.document.at("fit").at("relations")) {
-    for (const auto& p : r.at("parameters")) {
-      params.column("relation").push_text(r.at("name"));
-      params.column("parameter").push_text(p.at("name"));
-      params.column("mode").push_text(p.at("mode"));
-      for (const char* c : {"value", "error", "bootstrap_error", "p16", "p50", "p84"})
-        p.at(c).is_null() ? params.column(c).push_null() : params.column(c).push_real(p.at(c).get<double>());
+  auto push_number = [&](const char* column, const std::optional<double>& v) {
+    v ? params.column(column).push_real(*v) : params.column(column).push_null();
+  };
+  for (const FitRelationRecord& r : fit_relations(cal.fit())) {
+    for (const FitParameterRecord& p : r.parameters) {
+      params.column("relation").push_text(r.name);
+      params.column("parameter").push_text(p.name);
+      params.column("mode").push_text(p.mode ? std::string(kParamModeNames.name(*p.mode)) : std::string());
+      push_number("value", p.value);
+      push_number("error", p.error);
+      push_number("bootstrap_error", p.bootstrap_error);
+      push_number("p16", p.p16);
+      push_number("p50", p.p50);
+      push_number("p84", p.p84);
     }
   }
   StarTable doc;
@@ -332,8 +337,8 @@ Calibration load_calibration(const std::string& store, const std::string& refere
 PublishOutcome publish_calibration(const PublishOptions& o) {
   throw_if_invalid(o.check(), "");
   nlohmann::json fit = read_json(o.fit_path);
-  if (!(fit.is_object() && fit.contains("schema") && fit.at("schema") == "rungcal-fit"))
-    throw InputError({o.fit_path, {}, "schema"}, "not_a_fit_result", "not a rungcal-fit result");
+  if (!(fit.is_object() && fit.contains(fit_key::kSchema) && fit.at(fit_key::kSchema) == kFitSchemaName))
+    throw InputError({o.fit_path, {}, fit_key::kSchema}, "not_a_fit_result", "not a rungcal-fit result");
   check_fit_document(fit, o.fit_path);
   const std::string config_text = o.config_path.empty() ? "" : read_all(o.config_path);
   if (!o.residuals_path.empty() && !fs::exists(o.residuals_path))

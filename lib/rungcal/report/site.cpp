@@ -57,10 +57,6 @@ std::string fmt_value(double v, double e) {
   return fmt::format("{:.5g} ± {:.2g}", v, e);
 }
 
-double json_number(const nlohmann::json& j) {
-  return j.is_number() ? j.get<double>() : NAN;
-}
-
 struct Versions {
   std::vector<Calibration> shown;  // oldest first, the latest's last
   std::set<int> withdrawn;
@@ -101,24 +97,23 @@ std::string header_section(const Versions& v) {
   std::string out = fmt::format("<header>\n<h1>{}</h1>\n<p>Latest version: <strong>{}</strong>, published {}.</p>\n",
                                 html_escape(v.latest.name()), v.latest.version(),
                                 html_escape(doc.value("published_utc", "")));
-  const nlohmann::json& prov = doc.at("fit").value("provenance", nlohmann::json::object());
+  const Provenance prov = provenance_from_json(v.latest.fit().value(fit_key::kProvenance, nlohmann::json::object()));
   HtmlTable inputs{"Inputs that made it", {"input", "rows", "SHA-256"}, {}, {}};
-  for (const auto& in : prov.value("inputs", nlohmann::json::array()))
-    inputs.rows.push_back({in.value("path", ""), in.contains("rows") ? in.at("rows").dump() : "",
-                           in.value("sha256", "").substr(0, 16)});
+  for (const InputRecord& in : prov.inputs)
+    inputs.rows.push_back({in.path, std::to_string(in.rows), in.sha256.substr(0, 16)});
   if (!inputs.rows.empty()) out += html_table(inputs);
   out += fmt::format("<p class=\"note\">Made by rungcal {} (commit {}); fit config SHA-256 {}.</p>\n</header>\n",
-                     html_escape(prov.value("software_version", "")), html_escape(prov.value("software_commit", "")),
-                     html_escape(prov.value("config_sha256", "").substr(0, 16)));
+                     html_escape(prov.software_version), html_escape(prov.software_commit),
+                     html_escape(prov.config_sha256.substr(0, 16)));
   return out;
 }
 
 // The relation's own parameters, when fitted: fixed ones do not move, and the distance
 // prior's and [Fe/H] population's hyperparameters are nuisance parameters (all of them are
 // in the calibration file and the diff).
-bool shown_in_history(const nlohmann::json& parameter) {
-  const std::string name = parameter.at("name");
-  if (parameter.value("mode", "free") == "fixed") return false;
+bool shown_in_history(const FitParameterRecord& parameter) {
+  const std::string& name = parameter.name;
+  if (parameter.fixed()) return false;
   return name.rfind("distance_", 0) != 0 && name != "feh_mean" && name != "feh_spread";
 }
 
@@ -133,16 +128,15 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
                      o.drift_alarm_sigma);
   ShiftsBetweenVersions shifts;
   for (const std::string& relation : v.latest.relation_names()) {
-    const nlohmann::json& latest_rel = v.latest.relation(relation);
     std::vector<std::string> names;
-    for (const auto& p : latest_rel.at("parameters"))
-      if (shown_in_history(p)) names.push_back(p.at("name"));
+    for (const FitParameterRecord& p : v.latest.relation_record(relation).parameters)
+      if (shown_in_history(p)) names.push_back(p.name);
     HtmlTable t{relation + ": parameters by version", {"version", "published", "status"}, {}, {}};
     for (const auto& n : names) t.header.push_back(n);
     std::vector<std::vector<HistoryPoint>> charts(names.size());
     const Calibration* before = nullptr;
     for (const Calibration& c : v.shown) {
-      const nlohmann::json* rel = c.find_relation(relation);
+      const std::optional<FitRelationRecord> rel = c.find_relation_record(relation);
       if (!rel) continue;
       const bool withdrawn = v.withdrawn.count(c.version()) > 0;
       const double moved = before ? shifts.largest(*before, c, relation) : 0.0;
@@ -152,13 +146,12 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
       std::vector<std::string> row = {fmt::format("v{}", c.version()),
                                       c.document.value("published_utc", ""), status};
       for (std::size_t k = 0; k < names.size(); ++k) {
-        const auto it = std::find_if(rel->at("parameters").begin(), rel->at("parameters").end(),
-                                     [&](const nlohmann::json& p) { return p.at("name") == names[k]; });
-        if (it == rel->at("parameters").end()) {
+        const FitParameterRecord* p = rel->find_parameter(names[k]);
+        if (!p) {
           row.push_back("");
           continue;
         }
-        const double value = json_number(it->at("value")), error = json_number(it->at("error"));
+        const double value = p->value, error = p->error_or_nan();
         row.push_back(fmt_value(value, error));
         charts[k].push_back({c.version(), value, error, withdrawn, alarm});
       }
@@ -239,8 +232,8 @@ std::string stars_section(const SiteOptions& o, const Versions& v, const StarTab
   std::string out = "<section id=\"stars\">\n<h2>Stars refused or flagged</h2>\n";
   HtmlTable fit{"Refused by the fit or likely outliers (latest version)", {"relation", "star", "why"}, {}, {}};
   for (const std::string& relation : v.latest.relation_names())
-    for (const auto& r : v.latest.relation(relation).value("rejected", nlohmann::json::array()))
-      fit.rows.push_back({relation, r.value("id", ""), r.value("reason", "")});
+    for (const RefusedStarRecord& r : v.latest.relation_record(relation).rejected)
+      fit.rows.push_back({relation, r.id, r.reason});
   if (residuals)
     for (std::size_t i = 0; i < residuals->rows(); ++i)
       if (likely_outlier(*residuals, i))
