@@ -13,34 +13,13 @@
 
 namespace rungcal {
 
-namespace {
-
-[[noreturn]] void schema_error(const std::string& where, const std::string& rule,
-                               const std::string& key, const std::string& message) {
-  throw InputError({where, {}, key, "row", "key"}, rule, message);
+const std::string& Calibration::name() const {
+  return document.at(calibration_key::kName).get_ref<const std::string&>();
 }
-
-}  // namespace
-
-void check_calibration_document(const nlohmann::json& document, const std::string& where) {
-  if (!document.is_object())
-    schema_error(where, "calibration_schema", "", "a calibration file is a JSON object");
-  auto name = document.find("name");
-  if (name == document.end() || !name->is_string())
-    schema_error(where, "calibration_schema", "name", "missing, or not a string");
-  auto version = document.find("version");
-  if (version == document.end() || !version->is_number_integer())
-    schema_error(where, "calibration_schema", "version", "missing, or not an integer");
-  auto fit = document.find("fit");
-  if (fit == document.end()) schema_error(where, "calibration_schema", "fit", "missing");
-  check_fit_document(*fit, where);
-}
-
-const std::string& Calibration::name() const { return document.at("name").get_ref<const std::string&>(); }
-int Calibration::version() const { return document.at("version").get<int>(); }
+int Calibration::version() const { return document.at(calibration_key::kVersion).get<int>(); }
 std::string Calibration::label() const { return fmt::format("{}@{}", name(), version()); }
 
-const nlohmann::json& Calibration::fit() const { return document.at("fit"); }
+const nlohmann::json& Calibration::fit() const { return document.at(calibration_key::kFit); }
 
 std::vector<std::string> Calibration::relation_names() const {
   std::vector<std::string> out;
@@ -63,12 +42,12 @@ std::string calibration_content_sha256(const nlohmann::json& fit, const std::str
       }
   }
   // The config by its parsed content: a comment edit is not new content (issue 15).
-  nlohmann::json c = {{"fit", f}, {"config_text", canonical_config_text(config_text)}};
+  nlohmann::json c = {{calibration_key::kFit, f}, {calibration_key::kConfigText, canonical_config_text(config_text)}};
   return sha256_hex(c.dump());  // nlohmann::json keeps object keys sorted: a canonical form
 }
 
 std::string Calibration::content_sha256() const {
-  return calibration_content_sha256(fit(), document.value("config_text", ""));
+  return calibration_content_sha256(fit(), document.value(calibration_key::kConfigText, ""));
 }
 
 const nlohmann::json* Calibration::find_relation(const std::string& name) const {

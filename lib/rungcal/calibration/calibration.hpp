@@ -8,17 +8,16 @@
 #include <Eigen/Dense>
 #include <nlohmann/json.hpp>
 
+#include "rungcal/table/calibration_schema.hpp"
 #include "rungcal/table/fit_result_schema.hpp"
 
 namespace rungcal {
 
-// Schema version of calibration files (docs/file-formats.md, "Calibration file").
-inline constexpr int kCalibrationSchemaVersion = 1;
-
 // A published calibration file: {schema, schema_version, name, version, published_utc,
 // content_sha256, previous {version, content_sha256, shifts}, config_text, fit}, where fit
 // is the rungcal-fit result it was made from (parameters, covariance, statistics, rejected
-// stars, provenance and model).
+// stars, provenance and model). Its keys and schema version (kCalibrationSchemaVersion),
+// its record and check_calibration_document: table/calibration_schema.hpp.
 struct Calibration {
   nlohmann::json document;  // the whole calibration file
 
@@ -46,9 +45,6 @@ struct Calibration {
 // check_fit_document, which checks a rungcal-fit result (fit.json, or a calibration's
 // "fit"): table/fit_result_schema.hpp.
 
-// The same for a whole calibration file: a string "name", an integer "version", and its
-// "fit" as above (rule "calibration_schema" for the file's own fields).
-void check_calibration_document(const nlohmann::json& document, const std::string& where);
 
 // The content hash of a fit result (rungcal-fit JSON) with its config text.
 std::string calibration_content_sha256(const nlohmann::json& fit, const std::string& config_text);

@@ -72,7 +72,7 @@ CalibrationDiff diff_calibrations(const Calibration& a, const Calibration& b) {
     else continue;
     d.inputs.push_back(c);
   }
-  d.config_changed = a.document.value("config_text", "") != b.document.value("config_text", "");
+  d.config_changed = a.document.value(calibration_key::kConfigText, "") != b.document.value(calibration_key::kConfigText, "");
   return d;
 }
 

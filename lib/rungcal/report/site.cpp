@@ -96,7 +96,7 @@ std::string header_section(const Versions& v) {
   const nlohmann::json& doc = v.latest.document;
   std::string out = fmt::format("<header>\n<h1>{}</h1>\n<p>Latest version: <strong>{}</strong>, published {}.</p>\n",
                                 html_escape(v.latest.name()), v.latest.version(),
-                                html_escape(doc.value("published_utc", "")));
+                                html_escape(doc.value(calibration_key::kPublishedUtc, "")));
   const Provenance prov = provenance_from_json(v.latest.fit().value(fit_key::kProvenance, nlohmann::json::object()));
   HtmlTable inputs{"Inputs that made it", {"input", "rows", "SHA-256"}, {}, {}};
   for (const InputRecord& in : prov.inputs)
@@ -144,7 +144,7 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
       std::string status = withdrawn ? "withdrawn" : c.version() == v.latest.version() ? "latest" : "";
       if (alarm) status += fmt::format("{}drift alarm: {:.1f} sigma", status.empty() ? "" : "; ", moved);
       std::vector<std::string> row = {fmt::format("v{}", c.version()),
-                                      c.document.value("published_utc", ""), status};
+                                      c.document.value(calibration_key::kPublishedUtc, ""), status};
       for (std::size_t k = 0; k < names.size(); ++k) {
         const FitParameterRecord* p = rel->find_parameter(names[k]);
         if (!p) {

@@ -7,30 +7,18 @@
 #include <fmt/format.h>
 
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/json_io.hpp"
 
 namespace rungcal {
 namespace {
 
 using nlohmann::json;
 
-json number_or_null(double v) { return std::isfinite(v) ? json(v) : json(nullptr); }
 json number_or_null(const std::optional<double>& v) {
-  return v ? number_or_null(*v) : json(nullptr);
+  return v ? json_number_or_null(*v) : json(nullptr);
 }
 
 bool finite_number(const json& v) { return v.is_number() && std::isfinite(v.get<double>()); }
-
-// A key that holds a number, or nothing (absent, null, or not a number).
-std::optional<double> optional_number(const json& object, const char* key) {
-  auto it = object.find(key);
-  if (it == object.end() || !it->is_number()) return std::nullopt;
-  return it->get<double>();
-}
-
-std::string string_or_empty(const json& object, const char* key) {
-  auto it = object.find(key);
-  return it != object.end() && it->is_string() ? it->get<std::string>() : std::string();
-}
 
 [[noreturn]] void schema_error(const std::string& where, const std::string& key,
                                const std::string& message) {
@@ -119,14 +107,15 @@ json to_json(const Provenance& p) {
 Provenance provenance_from_json(const json& p) {
   Provenance out;
   if (!p.is_object()) return out;
-  out.stage = string_or_empty(p, fit_key::kStage);
-  out.software_version = string_or_empty(p, fit_key::kSoftwareVersion);
-  out.software_commit = string_or_empty(p, fit_key::kSoftwareCommit);
-  out.created_utc = string_or_empty(p, fit_key::kCreatedUtc);
-  out.config_sha256 = string_or_empty(p, fit_key::kConfigSha256);
+  out.stage = json_string_or_empty(p, fit_key::kStage);
+  out.software_version = json_string_or_empty(p, fit_key::kSoftwareVersion);
+  out.software_commit = json_string_or_empty(p, fit_key::kSoftwareCommit);
+  out.created_utc = json_string_or_empty(p, fit_key::kCreatedUtc);
+  out.config_sha256 = json_string_or_empty(p, fit_key::kConfigSha256);
   if (auto inputs = p.find(fit_key::kInputs); inputs != p.end() && inputs->is_array())
     for (const json& in : *inputs) {
-      InputRecord r{string_or_empty(in, fit_key::kPath), string_or_empty(in, fit_key::kSha256), -1};
+      InputRecord r{json_string_or_empty(in, fit_key::kPath),
+                    json_string_or_empty(in, fit_key::kSha256), -1};
       if (auto rows = in.find(fit_key::kRows); rows != in.end() && rows->is_number_integer())
         r.rows = rows->get<std::int64_t>();
       out.inputs.push_back(r);
@@ -160,18 +149,18 @@ json to_json(const FitParameterRecord& p) {
 
 FitParameterRecord fit_parameter_from_json(const json& p) {
   FitParameterRecord out;
-  out.name = string_or_empty(p, fit_key::kName);
+  out.name = json_string_or_empty(p, fit_key::kName);
   out.value = p.at(fit_key::kValue).get<double>();
   if (auto mode = p.find(fit_key::kMode); mode != p.end() && mode->is_string())
     out.mode = kParamModeNames.parse(mode->get<std::string>());
-  out.error = optional_number(p, fit_key::kError);
-  out.bootstrap_error = optional_number(p, fit_key::kBootstrapError);
-  out.p16 = optional_number(p, fit_key::kP16);
-  out.p50 = optional_number(p, fit_key::kP50);
-  out.p84 = optional_number(p, fit_key::kP84);
+  out.error = json_optional_number(p, fit_key::kError);
+  out.bootstrap_error = json_optional_number(p, fit_key::kBootstrapError);
+  out.p16 = json_optional_number(p, fit_key::kP16);
+  out.p50 = json_optional_number(p, fit_key::kP50);
+  out.p84 = json_optional_number(p, fit_key::kP84);
   if (auto prior = p.find(fit_key::kPrior); prior != p.end() && prior->is_object())
-    out.prior = FitPriorRecord{optional_number(*prior, fit_key::kPriorMean).value_or(0.0),
-                               optional_number(*prior, fit_key::kPriorSigma).value_or(0.0)};
+    out.prior = FitPriorRecord{json_optional_number(*prior, fit_key::kPriorMean).value_or(0.0),
+                               json_optional_number(*prior, fit_key::kPriorSigma).value_or(0.0)};
   if (auto determined = p.find(fit_key::kDetermined);
       determined != p.end() && determined->is_boolean())
     out.determined = determined->get<bool>();
@@ -196,7 +185,7 @@ json to_json(const FitRelationRecord& r) {
   json cov = json::array();
   for (const auto& row : r.covariance) {
     json cells = json::array();
-    for (double v : row) cells.push_back(number_or_null(v));
+    for (double v : row) cells.push_back(json_number_or_null(v));
     cov.push_back(cells);
   }
   out[fit_key::kCovariance] = cov;
@@ -210,10 +199,10 @@ json to_json(const FitRelationRecord& r) {
 FitRelationRecord fit_relation_from_json(const json& r) {
   FitRelationRecord out;
   out.name = r.at(fit_key::kName).get<std::string>();
-  out.band = string_or_empty(r, fit_key::kBand);
-  out.pivot_log_period = optional_number(r, fit_key::kPivotLogPeriod)
+  out.band = json_string_or_empty(r, fit_key::kBand);
+  out.pivot_log_period = json_optional_number(r, fit_key::kPivotLogPeriod)
                              .value_or(std::numeric_limits<double>::quiet_NaN());
-  out.break_log_period = optional_number(r, fit_key::kBreakLogPeriod);
+  out.break_log_period = json_optional_number(r, fit_key::kBreakLogPeriod);
   if (auto m = r.find(fit_key::kMetallicity); m != r.end() && m->is_boolean())
     out.metallicity = m->get<bool>();
   if (auto names = r.find(fit_key::kParameterNames); names != r.end() && names->is_array())
@@ -238,7 +227,7 @@ FitRelationRecord fit_relation_from_json(const json& r) {
   if (auto rejected = r.find(fit_key::kRejected); rejected != r.end() && rejected->is_array())
     for (const json& s : *rejected)
       out.rejected.push_back(
-          {string_or_empty(s, fit_key::kId), string_or_empty(s, fit_key::kReason)});
+          {json_string_or_empty(s, fit_key::kId), json_string_or_empty(s, fit_key::kReason)});
   if (auto stats = r.find(fit_key::kStatistics); stats != r.end() && stats->is_object())
     if (auto n = stats->find(fit_key::kNUsed); n != stats->end() && n->is_number_integer())
       out.n_used = n->get<int>();
