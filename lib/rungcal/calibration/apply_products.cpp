@@ -101,7 +101,7 @@ StageFiles declared_files(const ApplyOptions& o) {
 ApplyResult apply_calibration_files(const ApplyOptions& o) {
   throw_if_invalid(o.check(), "");
   Calibration cal = load_calibration(o.store, o.calibration);
-  SourceTable targets = read_fits_table(o.targets_path, {"CATALOG", 0});
+  SourceTable targets = read_fits_table(o.targets_path, {catalog_hdu::kCatalog, 0});
   SystematicShifts systematics;
   if (!o.grid_path.empty()) {
     systematics = read_systematic_shifts(o.grid_path, cal, o.relation)

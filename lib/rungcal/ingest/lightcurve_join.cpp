@@ -42,9 +42,9 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       band_list += (band_list.empty() ? "" : ",") + b;
     }
   cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
-  Column& origin = cat.add_column("period_origin", ColumnType::kText, "", "catalog or lightcurve");
-  if (join.periods && !cat.has("period_err_d"))
-    cat.add_column("period_err_d", ColumnType::kReal, "d", "period uncertainty");
+  Column& origin = cat.add_column(col::kPeriodOrigin, ColumnType::kText, "", "catalog or lightcurve");
+  if (join.periods && !cat.has(col::kPeriodErr))
+    cat.add_column(col::kPeriodErr, ColumnType::kReal, "d", "period uncertainty");
   const bool replace = join.use == JoinUse::kReplace;
   std::size_t unmatched = 0;
   for (std::size_t r = 0; r < cat.rows(); ++r) {
@@ -71,8 +71,8 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       cat.column(col::kLogPeriod).real[r] = std::log10(p_lc);
       cat.column(col::kLogPeriod).null[r] = 0;
       if (s.has(C::kPeriodErrD) && !s.column(C::kPeriodErrD).is_null(k)) {
-        cat.column("period_err_d").real[r] = s.column(C::kPeriodErrD).real[k];
-        cat.column("period_err_d").null[r] = 0;
+        cat.column(col::kPeriodErr).real[r] = s.column(C::kPeriodErrD).real[k];
+        cat.column(col::kPeriodErr).null[r] = 0;
       }
       origin.text[r] = "lightcurve";
       ++result.periods_joined;

@@ -256,17 +256,18 @@ StarTable LightCurveResult::periodogram_table() const {
 
 StarTable LightCurveResult::rejects_table() const {
   StarTable t;
-  t.add_column("source_row", ColumnType::kInteger, "", "line (text) or row (FITS) in the input");
-  t.add_column("id", ColumnType::kText);
-  t.add_column("rule", ColumnType::kText);
-  t.add_column("column", ColumnType::kText);
-  t.add_column("message", ColumnType::kText);
+  namespace R = reject_col;
+  t.add_column(R::kSourceRow, ColumnType::kInteger, "", "line (text) or row (FITS) in the input");
+  t.add_column(R::kId, ColumnType::kText);
+  t.add_column(R::kRule, ColumnType::kText);
+  t.add_column(R::kColumn, ColumnType::kText);
+  t.add_column(R::kMessage, ColumnType::kText);
   for (const auto& r : rejected) {
-    t.column("source_row").push_integer(r.source_row);
-    r.star.empty() ? t.column("id").push_null() : t.column("id").push_text(r.star);
-    t.column("rule").push_text(r.rule);
-    t.column("column").push_text(r.column);
-    t.column("message").push_text(r.message);
+    t.column(R::kSourceRow).push_integer(r.source_row);
+    r.star.empty() ? t.column(R::kId).push_null() : t.column(R::kId).push_text(r.star);
+    t.column(R::kRule).push_text(r.rule);
+    t.column(R::kColumn).push_text(r.column);
+    t.column(R::kMessage).push_text(r.message);
   }
   return t;
 }

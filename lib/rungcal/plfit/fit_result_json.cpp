@@ -185,7 +185,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
         {"fundamentalize", rr.relation.fundamentalize},
         {"log_period_range",
          {finite_or_null(rr.relation.min_log_period), finite_or_null(rr.relation.max_log_period)}},
-        {"magnitude_column", rr.relation.magnitude_column.empty() ? "mag0_" + rr.relation.band
+        {"magnitude_column", rr.relation.magnitude_column.empty() ? dereddened_magnitude_column(rr.relation.band)
                                                                   : rr.relation.magnitude_column},
         {"slope",
          {{"mode", std::string(kParamModeNames.name(rr.relation.slope.mode))},

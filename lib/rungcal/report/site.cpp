@@ -21,6 +21,7 @@
 #include "rungcal/report/html.hpp"
 #include "rungcal/report/likely_outlier.hpp"
 #include "rungcal/report/run_history.hpp"
+#include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace fs = std::filesystem;
@@ -242,12 +243,13 @@ std::string stars_section(const SiteOptions& o, const Versions& v, const StarTab
   out += fit.rows.empty() ? "<p>The fit refused no star and flags none.</p>\n" : html_table(fit);
   const std::string catalog = o.run_folder.empty() ? "" : o.run_folder + "/catalog.fits";
   if (!catalog.empty() && fs::exists(catalog)) {
-    const StarTable rejects = read_fits_table(catalog, {"REJECTS", 0}).table;
+    const StarTable rejects = read_fits_table(catalog, {catalog_hdu::kRejects, 0}).table;
     HtmlTable t{"Rows refused at ingest (last run that ingested)", {"row", "star", "rule", "column", "why"}, {}, {}};
+    namespace R = reject_col;
     for (std::size_t i = 0; i < rejects.rows(); ++i)
-      t.rows.push_back({std::to_string(rejects.column("source_row").integer[i]), rejects.column("id").text[i],
-                        rejects.column("rule").text[i], rejects.column("column").text[i],
-                        rejects.column("message").text[i]});
+      t.rows.push_back({std::to_string(rejects.column(R::kSourceRow).integer[i]), rejects.column(R::kId).text[i],
+                        rejects.column(R::kRule).text[i], rejects.column(R::kColumn).text[i],
+                        rejects.column(R::kMessage).text[i]});
     out += t.rows.empty() ? "<p>Ingest refused no row.</p>\n" : html_table(t);
   }
   return out + "</section>\n";
