@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 // rungcal-diff: two versions of a calibration side by side.
 #include <cstdio>
+#include <optional>
 
 #include "rungcal/calibration/diff.hpp"
 #include "rungcal/calibration/store.hpp"
@@ -22,9 +23,10 @@ int main(int argc, char** argv) {
     rungcal::Calibration b = rungcal::load_calibration(store, to);
     std::string older = from;
     if (older.empty()) {
-      if (b.document["previous"].is_null())
+      const std::optional<int> previous = rungcal::previous_version(b.document);
+      if (!previous)
         throw rungcal::InputError({to, {}, {}}, "no_previous_version", "this is the first version: give --from");
-      older = b.name() + "@" + std::to_string(b.document["previous"]["version"].get<int>());
+      older = b.name() + "@" + std::to_string(*previous);
     }
     rungcal::Calibration a = rungcal::load_calibration(store, older);
     std::fputs(rungcal::format_diff(rungcal::diff_calibrations(a, b)).c_str(), stdout);

@@ -1,5 +1,6 @@
 // SPDX-License-Identifier: MIT
 // rungcal-publish: a fit result -> the next immutable version of a named calibration.
+#include <cmath>
 #include <cstdio>
 
 #include <spdlog/spdlog.h>
@@ -59,10 +60,9 @@ int main(int argc, char** argv) {
     }
     std::printf("published %s@%d in %s\n", o.name.c_str(), out.version, out.folder.c_str());
     for (const auto& [relation, params] : out.shifts.items())
-      for (const auto& [name, s] : params.items())
-        if (!s["shift_in_sigma"].is_null())
-          std::printf("  %s %s: %+.5f (%+.2f sigma)\n", relation.c_str(), name.c_str(), s["shift"].get<double>(),
-                      s["shift_in_sigma"].get<double>());
+      for (const auto& [name, entry] : params.items())
+        if (const rungcal::ParameterShiftRecord s = rungcal::parameter_shift_from_json(entry); std::isfinite(s.shift_in_sigma))
+          std::printf("  %s %s: %+.5f (%+.2f sigma)\n", relation.c_str(), name.c_str(), s.shift, s.shift_in_sigma);
     return rungcal::ExitCode::kSuccess;
   });
 }

@@ -101,7 +101,7 @@ StageFiles declared_files(const ApplyOptions& o) {
 ApplyResult apply_calibration_files(const ApplyOptions& o) {
   throw_if_invalid(o.check(), "");
   Calibration cal = load_calibration(o.store, o.calibration);
-  SourceTable targets = read_fits_table(o.targets_path, {"CATALOG", 0});
+  SourceTable targets = read_fits_table(o.targets_path, {catalog_hdu::kCatalog, 0});
   SystematicShifts systematics;
   if (!o.grid_path.empty()) {
     systematics = read_systematic_shifts(o.grid_path, cal, o.relation)
@@ -128,7 +128,7 @@ ApplyResult apply_calibration_files(const ApplyOptions& o) {
   for (StarTable* t : {&stars, &hosts, &covariance}) {
     stamp_provenance(*t, prov, "distances");
     t->set_keyword("RGCALIB", r.calibration_label, "calibration name@version");
-    t->set_keyword("RGCALSHA", cal.document.value("content_sha256", ""),
+    t->set_keyword(calibration_fits::kContentShaKeyword, cal.document.value(calibration_key::kContentSha256, ""),
                    "calibration content SHA-256");
     t->set_keyword("RGRELAT", o.relation, "relation applied");
     t->set_keyword("RGNSYSV", static_cast<std::int64_t>(r.systematics.variants.size()),

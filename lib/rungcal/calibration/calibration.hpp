@@ -8,15 +8,16 @@
 #include <Eigen/Dense>
 #include <nlohmann/json.hpp>
 
-namespace rungcal {
+#include "rungcal/table/calibration_schema.hpp"
+#include "rungcal/table/fit_result_schema.hpp"
 
-// Schema version of calibration files (docs/file-formats.md, "Calibration file").
-inline constexpr int kCalibrationSchemaVersion = 1;
+namespace rungcal {
 
 // A published calibration file: {schema, schema_version, name, version, published_utc,
 // content_sha256, previous {version, content_sha256, shifts}, config_text, fit}, where fit
 // is the rungcal-fit result it was made from (parameters, covariance, statistics, rejected
-// stars, provenance and model).
+// stars, provenance and model). Its keys and schema version (kCalibrationSchemaVersion),
+// its record and check_calibration_document: table/calibration_schema.hpp.
 struct Calibration {
   nlohmann::json document;  // the whole calibration file
 
@@ -33,21 +34,17 @@ struct Calibration {
   const nlohmann::json* find_relation(const std::string& name) const;
   // The same, or InputError (rule "unknown_relation").
   const nlohmann::json& relation(const std::string& name) const;
+  // The relation's typed record (table/fit_result_schema.hpp), or InputError
+  // ("unknown_relation"); find_relation_record: std::nullopt when there is none.
+  FitRelationRecord relation_record(const std::string& name) const;
+  std::optional<FitRelationRecord> find_relation_record(const std::string& name) const;
+  // The fit result inside: the fit's "provenance" and "relations".
+  const nlohmann::json& fit() const;
 };
 
-// Checks the parts of a rungcal-fit result (fit.json, or a calibration's "fit") that
-// publish, diff, apply and report read: "relations" an array of objects, each with a string
-// "name", finite numbers "pivot_log_period" (and "break_log_period" when present),
-// "parameter_names" strings, "parameters" objects with a string "name" and "mode", a finite
-// "value" and an "error" that is a finite number or null, and "covariance" a square array
-// of arrays of numbers or nulls, one row per parameter; "used" (when present) strings.
-// Throws InputError (rule "fit_schema") naming the first part that is missing or of the
-// wrong type, with `where` as the file.
-void check_fit_document(const nlohmann::json& fit, const std::string& where);
+// check_fit_document, which checks a rungcal-fit result (fit.json, or a calibration's
+// "fit"): table/fit_result_schema.hpp.
 
-// The same for a whole calibration file: a string "name", an integer "version", and its
-// "fit" as above (rule "calibration_schema" for the file's own fields).
-void check_calibration_document(const nlohmann::json& document, const std::string& where);
 
 // The content hash of a fit result (rungcal-fit JSON) with its config text.
 std::string calibration_content_sha256(const nlohmann::json& fit, const std::string& config_text);

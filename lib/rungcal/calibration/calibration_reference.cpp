@@ -13,10 +13,8 @@ namespace rungcal {
 
 Calibration read_calibration_file(const std::string& path) {
   Calibration cal{read_json_file(path)};
-  const nlohmann::json& doc = cal.document;
-  if (!(doc.is_object() && doc.contains("schema") && doc.at("schema") == "rungcal-calibration"))
-    throw InputError({path, {}, "schema"}, "not_a_calibration", "not a rungcal calibration file");
-  check_calibration_document(doc, path);
+  require_calibration_schema(cal.document, path);
+  check_calibration_document(cal.document, path);
   return cal;
 }
 

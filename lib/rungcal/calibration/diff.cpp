@@ -10,19 +10,14 @@
 namespace rungcal {
 namespace {
 
-double error_or_nan(const nlohmann::json& p) { return p.at("error").is_null() ? NAN : p.at("error").get<double>(); }
-
-const nlohmann::json* find_by_name(const nlohmann::json& list, const std::string& name) {
-  for (const auto& x : list)
-    if (x.at("name") == name) return &x;
+const FitRelationRecord* find_by_name(const std::vector<FitRelationRecord>& relations, const std::string& name) {
+  for (const auto& r : relations)
+    if (r.name == name) return &r;
   return nullptr;
 }
 
-std::set<std::string> used_ids(const nlohmann::json& relation) {
-  std::set<std::string> out;
-  if (relation.contains("used"))
-    for (const auto& id : relation.at("used")) out.insert(id.get<std::string>());
-  return out;
+std::set<std::string> used_ids(const FitRelationRecord& relation) {
+  return {relation.used.begin(), relation.used.end()};
 }
 
 }  // namespace
@@ -38,22 +33,21 @@ CalibrationDiff diff_calibrations(const Calibration& a, const Calibration& b) {
   CalibrationDiff d;
   d.from_label = a.label();
   d.to_label = b.label();
-  const auto& fa = a.document.at("fit");
-  const auto& fb = b.document.at("fit");
-  for (const auto& rb : fb.at("relations")) {
-    const std::string rel = rb.at("name");
-    const nlohmann::json* ra = find_by_name(fa.at("relations"), rel);
+  const std::vector<FitRelationRecord> relations_a = fit_relations(a.fit());
+  for (const FitRelationRecord& rb : fit_relations(b.fit())) {
+    const std::string& rel = rb.name;
+    const FitRelationRecord* ra = find_by_name(relations_a, rel);
     if (!ra) continue;
-    for (const auto& pb : rb.at("parameters")) {
-      const nlohmann::json* pa = find_by_name(ra->at("parameters"), pb.at("name"));
+    for (const FitParameterRecord& pb : rb.parameters) {
+      const FitParameterRecord* pa = ra->find_parameter(pb.name);
       if (!pa) continue;
       ParameterShift s;
       s.relation = rel;
-      s.parameter = pb.at("name");
-      s.from = pa->at("value");
-      s.to = pb.at("value");
-      s.from_error = error_or_nan(*pa);
-      s.to_error = error_or_nan(pb);
+      s.parameter = pb.name;
+      s.from = pa->value;
+      s.to = pb.value;
+      s.from_error = pa->error_or_nan();
+      s.to_error = pb.error_or_nan();
       s.shift = s.to - s.from;
       const double combined = std::hypot(s.from_error, s.to_error);
       s.shift_in_sigma = combined > 0 ? s.shift / combined : NAN;
@@ -67,18 +61,18 @@ CalibrationDiff diff_calibrations(const Calibration& a, const Calibration& b) {
     if (!out.empty()) d.left.emplace_back(rel, out);
   }
   // Inputs pair up by position (the stage writes them in a fixed order), else by path.
-  const auto& ia = fa.at("provenance").value("inputs", nlohmann::json::array());
-  const auto& ib = fb.at("provenance").value("inputs", nlohmann::json::array());
+  const std::vector<InputRecord> ia = provenance_from_json(a.fit().at(fit_key::kProvenance)).inputs;
+  const std::vector<InputRecord> ib = provenance_from_json(b.fit().at(fit_key::kProvenance)).inputs;
   for (std::size_t i = 0; i < std::max(ia.size(), ib.size()); ++i) {
     InputChange c;
-    if (i >= ia.size()) c = {"added", ib[i].value("path", ""), "", ib[i].value("sha256", "")};
-    else if (i >= ib.size()) c = {"removed", ia[i].value("path", ""), ia[i].value("sha256", ""), ""};
-    else if (ia[i].value("sha256", "") != ib[i].value("sha256", ""))
-      c = {"changed", ib[i].value("path", ""), ia[i].value("sha256", ""), ib[i].value("sha256", "")};
+    if (i >= ia.size()) c = {"added", ib[i].path, "", ib[i].sha256};
+    else if (i >= ib.size()) c = {"removed", ia[i].path, ia[i].sha256, ""};
+    else if (ia[i].sha256 != ib[i].sha256)
+      c = {"changed", ib[i].path, ia[i].sha256, ib[i].sha256};
     else continue;
     d.inputs.push_back(c);
   }
-  d.config_changed = a.document.value("config_text", "") != b.document.value("config_text", "");
+  d.config_changed = a.document.value(calibration_key::kConfigText, "") != b.document.value(calibration_key::kConfigText, "");
   return d;
 }
 

@@ -110,9 +110,8 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
   if (!rel)
     throw InputError({where, {}, "relations", "row", "key"}, "unknown_relation",
                      fmt::format("the error budget has no relation '{}'", relation));
-  const std::vector<std::string> names =
-      cal.relation(relation).at("parameter_names").get<std::vector<std::string>>();
-  const nlohmann::json& cal_params = cal.relation(relation).at("parameters");
+  const FitRelationRecord cal_relation = cal.relation_record(relation);
+  const std::vector<std::string>& names = cal_relation.parameter_names;
   s.shift.assign(s.variants.size(), std::vector<double>(names.size(), 0.0));
   const nlohmann::json& params = array_at(*rel, "parameters", rel_at, where);
   std::vector<bool> variant_has_rows(s.variants.size(), false);
@@ -128,7 +127,7 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
     for (std::size_t q = 0; q < names.size(); ++q)
       if (names[q] == name) p = q;
     if (!p) continue;  // a parameter the calibration lacks moves no prediction of it
-    const double value = cal_params[*p].at("value").get<double>();
+    const double value = cal_relation.parameters.at(*p).value;
     const nlohmann::json& err =
         params[j].contains("baseline_error") ? params[j]["baseline_error"] : nlohmann::json();
     const double tolerance =

@@ -160,22 +160,20 @@ int withdrawn_with_content(const fs::path& folder, const std::vector<WithdrawnVe
 
 nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& before) {
   nlohmann::json out = nlohmann::json::object();
-  for (const auto& r : now.at("relations")) {
-    const std::string name = r.at("name");
-    const nlohmann::json* old = nullptr;
-    for (const auto& o : before.at("relations"))
-      if (o.at("name") == name) old = &o;
+  const std::vector<FitRelationRecord> old_relations = fit_relations(before);
+  for (const FitRelationRecord& r : fit_relations(now)) {
+    const FitRelationRecord* old = nullptr;
+    for (const FitRelationRecord& o : old_relations)
+      if (o.name == r.name) old = &o;
     if (!old) continue;
-    for (const auto& p : r.at("parameters")) {
-      for (const auto& q : old->at("parameters")) {
-        if (q.at("name") != p.at("name")) continue;
-        double shift = p.at("value").get<double>() - q.at("value").get<double>();
-        double e1 = p.at("error").is_null() ? NAN : p.at("error").get<double>();
-        double e0 = q.at("error").is_null() ? NAN : q.at("error").get<double>();
-        double combined = std::hypot(e1, e0);
-        nlohmann::json entry = {{"shift", shift}, {"combined_sigma", std::isfinite(combined) ? nlohmann::json(combined) : nlohmann::json(nullptr)}};
-        entry["shift_in_sigma"] = std::isfinite(combined) && combined > 0 ? nlohmann::json(shift / combined) : nlohmann::json(nullptr);
-        out[name][p.at("name").get<std::string>()] = entry;
+    for (const FitParameterRecord& p : r.parameters) {
+      for (const FitParameterRecord& q : old->parameters) {
+        if (q.name != p.name) continue;
+        ParameterShiftRecord s;
+        s.shift = p.value - q.value;
+        s.combined_sigma = std::hypot(p.error_or_nan(), q.error_or_nan());
+        if (std::isfinite(s.combined_sigma) && s.combined_sigma > 0) s.shift_in_sigma = s.shift / s.combined_sigma;
+        out[r.name][p.name] = to_json(s);
       }
     }
   }
@@ -186,29 +184,40 @@ nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& b
 // (so the copy holds the same content, readable without a JSON parser for the numbers).
 void write_calibration_fits(const Calibration& cal, const std::string& path) {
   StarTable params;
-  for (const char* c : {"relation", "parameter", "mode"}) params.add_column(c, ColumnType::kText);
-  for (const char* c : {"value", "error", "bootstrap_error", "p16", "p50", "p84"}) params.add_column(c, ColumnType::kReal);
-  for (const auto& r : cal.document.at("fit").at("relations")) {
-    for (const auto& p : r.at("parameters")) {
-      params.column("relation").push_text(r.at("name"));
-      params.column("parameter").push_text(p.at("name"));
-      params.column("mode").push_text(p.at("mode"));
-      for (const char* c : {"value", "error", "bootstrap_error", "p16", "p50", "p84"})
-        p.at(c).is_null() ? params.column(c).push_null() : params.column(c).push_real(p.at(c).get<double>());
+  for (const char* c : {calibration_fits::kRelationColumn, calibration_fits::kParameterColumn, fit_key::kMode})
+    params.add_column(c, ColumnType::kText);
+  for (const char* c : {fit_key::kValue, fit_key::kError, fit_key::kBootstrapError, fit_key::kP16, fit_key::kP50, fit_key::kP84})
+    params.add_column(c, ColumnType::kReal);
+  auto push_number = [&](const char* column, const std::optional<double>& v) {
+    v ? params.column(column).push_real(*v) : params.column(column).push_null();
+  };
+  for (const FitRelationRecord& r : fit_relations(cal.fit())) {
+    for (const FitParameterRecord& p : r.parameters) {
+      params.column(calibration_fits::kRelationColumn).push_text(r.name);
+      params.column(calibration_fits::kParameterColumn).push_text(p.name);
+      params.column(fit_key::kMode).push_text(p.mode ? std::string(kParamModeNames.name(*p.mode)) : std::string());
+      push_number(fit_key::kValue, p.value);
+      push_number(fit_key::kError, p.error);
+      push_number(fit_key::kBootstrapError, p.bootstrap_error);
+      push_number(fit_key::kP16, p.p16);
+      push_number(fit_key::kP50, p.p50);
+      push_number(fit_key::kP84, p.p84);
     }
   }
   StarTable doc;
-  doc.add_column("json", ColumnType::kText, "", "the calibration file, verbatim");
-  doc.column("json").push_text(cal.document.dump());
+  doc.add_column(calibration_fits::kJsonColumn, ColumnType::kText, "", "the calibration file, verbatim");
+  doc.column(calibration_fits::kJsonColumn).push_text(cal.document.dump());
   for (StarTable* t : {&params, &doc}) {
-    t->set_keyword("RGCALNAM", cal.name(), "calibration name");
-    t->set_keyword("RGCALVER", static_cast<std::int64_t>(cal.version()), "calibration version");
-    t->set_keyword("RGCALSHA", cal.document.at("content_sha256").get<std::string>(), "content SHA-256");
+    t->set_keyword(calibration_fits::kNameKeyword, cal.name(), "calibration name");
+    t->set_keyword(calibration_fits::kVersionKeyword, static_cast<std::int64_t>(cal.version()), "calibration version");
+    t->set_keyword(calibration_fits::kContentShaKeyword,
+                   cal.document.at(calibration_key::kContentSha256).get<std::string>(), "content SHA-256");
     t->set_keyword(key::kSchema, static_cast<std::int64_t>(kCalibrationSchemaVersion), "calibration schema version");
     t->set_keyword(key::kProduct, std::string("calibration"), "rungcal product type");
-    t->set_keyword(key::kDate, cal.document.at("published_utc").get<std::string>(), "UTC time of publishing");
+    t->set_keyword(key::kDate, cal.document.at(calibration_key::kPublishedUtc).get<std::string>(),
+                   "UTC time of publishing");
   }
-  write_fits_tables(path, {{"PARAMS", &params}, {"CALJSON", &doc}});
+  write_fits_tables(path, {{calibration_fits::kParametersHdu, &params}, {calibration_fits::kJsonHdu, &doc}});
 }
 
 void copy_file_synced(const std::string& from, const std::string& to) {
@@ -322,9 +331,7 @@ Calibration load_calibration(const std::string& store, const std::string& refere
   if (!fs::exists(file))
     throw InputError({file.string(), {}, {}}, "unknown_calibration", fmt::format("{} has no version {}", name, version));
   Calibration cal{read_json(file.string())};
-  if (!(cal.document.is_object() && cal.document.contains("schema") &&
-        cal.document.at("schema") == "rungcal-calibration"))
-    throw InputError({file.string(), {}, "schema"}, "not_a_calibration", "not a rungcal calibration file");
+  require_calibration_schema(cal.document, file.string());
   check_calibration_document(cal.document, file.string());
   return cal;
 }
@@ -332,8 +339,8 @@ Calibration load_calibration(const std::string& store, const std::string& refere
 PublishOutcome publish_calibration(const PublishOptions& o) {
   throw_if_invalid(o.check(), "");
   nlohmann::json fit = read_json(o.fit_path);
-  if (!(fit.is_object() && fit.contains("schema") && fit.at("schema") == "rungcal-fit"))
-    throw InputError({o.fit_path, {}, "schema"}, "not_a_fit_result", "not a rungcal-fit result");
+  if (!(fit.is_object() && fit.contains(fit_key::kSchema) && fit.at(fit_key::kSchema) == kFitSchemaName))
+    throw InputError({o.fit_path, {}, fit_key::kSchema}, "not_a_fit_result", "not a rungcal-fit result");
   check_fit_document(fit, o.fit_path);
   const std::string config_text = o.config_path.empty() ? "" : read_all(o.config_path);
   if (!o.residuals_path.empty() && !fs::exists(o.residuals_path))
@@ -371,23 +378,13 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
   std::vector<int> versions = calibration_versions(o.store, o.name);
   const int version = versions.empty() ? 1 : versions.back() + 1;
 
-  Calibration cal;
-  cal.document = {{"schema", "rungcal-calibration"},
-                  {"schema_version", kCalibrationSchemaVersion},
-                  {"name", o.name},
-                  {"version", version},
-                  {"published_utc", utc_now_iso8601()},
-                  {"content_sha256", content},
-                  {"config_text", config_text},
-                  {"fit", fit}};
+  CalibrationRecord record{o.name, version, utc_now_iso8601(), content, config_text, fit, std::nullopt};
   if (previous) {
-    out.shifts = shifts_between(fit, previous->document.at("fit"));
-    cal.document["previous"] = {{"version", previous->version()},
-                                {"content_sha256", previous->document.value("content_sha256", "")},
-                                {"shifts", out.shifts}};
-  } else {
-    cal.document["previous"] = nullptr;
+    out.shifts = shifts_between(fit, previous->fit());
+    record.previous = PreviousVersionRecord{
+        previous->version(), previous->document.value(calibration_key::kContentSha256, ""), out.shifts};
   }
+  Calibration cal{to_json(record)};
 
   // Build the version under a temporary name, then rename it into place: a crash leaves
   // either no new version or a whole one.

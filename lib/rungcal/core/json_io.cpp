@@ -2,6 +2,7 @@
 #include "rungcal/core/json_io.hpp"
 
 #include <algorithm>
+#include <cmath>
 
 #include <fmt/format.h>
 
@@ -53,6 +54,21 @@ nlohmann::json parse_json(const std::string& text, const std::string& path) {
 
 nlohmann::json read_json_file(const std::string& path) {
   return parse_json(read_input_file(path), path);
+}
+
+nlohmann::json json_number_or_null(double value) {
+  return std::isfinite(value) ? nlohmann::json(value) : nlohmann::json(nullptr);
+}
+
+std::optional<double> json_optional_number(const nlohmann::json& object, const char* key) {
+  auto it = object.find(key);
+  if (it == object.end() || !it->is_number()) return std::nullopt;
+  return it->get<double>();
+}
+
+std::string json_string_or_empty(const nlohmann::json& object, const char* key) {
+  auto it = object.find(key);
+  return it != object.end() && it->is_string() ? it->get<std::string>() : std::string();
 }
 
 }  // namespace rungcal

@@ -85,20 +85,21 @@ StageFiles declared_files(const DereddenOptions& o) {
 
 StarTable DereddenResult::coefficients_table() const {
   StarTable t;
-  t.add_column("name", ColumnType::kText);
-  t.add_column("kind", ColumnType::kText, "", "band or wesenheit");
-  t.add_column("a_over_ebv", ColumnType::kReal, "", "A/E(B-V); for a Wesenheit its residual reddening");
-  t.add_column("wesenheit_r", ColumnType::kReal, "", "W = m_x - R (m_y - m_z)");
-  t.add_column("wavelength_aa", ColumnType::kReal, "Angstrom");
+  namespace C = coefficient_col;
+  t.add_column(C::kName, ColumnType::kText);
+  t.add_column(C::kKind, ColumnType::kText, "", "band or wesenheit");
+  t.add_column(C::kAOverEbv, ColumnType::kReal, "", "A/E(B-V); for a Wesenheit its residual reddening");
+  t.add_column(C::kWesenheitR, ColumnType::kReal, "", "W = m_x - R (m_y - m_z)");
+  t.add_column(C::kWavelength, ColumnType::kReal, "Angstrom");
   t.add_column("x", ColumnType::kText);
   t.add_column("y", ColumnType::kText);
   t.add_column("z", ColumnType::kText);
   for (const auto& c : coefficients) {
-    t.column("name").push_text(c.name);
-    t.column("kind").push_text(c.wesenheit ? "wesenheit" : "band");
-    t.column("a_over_ebv").push_real(c.a_over_ebv);
-    t.column("wesenheit_r").push_real(c.r);
-    c.wavelength_aa > 0 ? t.column("wavelength_aa").push_real(c.wavelength_aa) : t.column("wavelength_aa").push_null();
+    t.column(C::kName).push_text(c.name);
+    t.column(C::kKind).push_text(c.wesenheit ? "wesenheit" : "band");
+    t.column(C::kAOverEbv).push_real(c.a_over_ebv);
+    t.column(C::kWesenheitR).push_real(c.r);
+    c.wavelength_aa > 0 ? t.column(C::kWavelength).push_real(c.wavelength_aa) : t.column(C::kWavelength).push_null();
     for (const char* k : {"x", "y", "z"}) {
       const std::string& v = k[0] == 'x' ? c.x : (k[0] == 'y' ? c.y : c.z);
       v.empty() ? t.column(k).push_null() : t.column(k).push_text(v);
@@ -156,8 +157,9 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
     result.coefficients.push_back({band, false, rb, 0.0, b ? b->wavelength_aa : 0.0, "", "", ""});
     const Column& m = in.column(magnitude_column(band));
     const Column* e = in.has(magnitude_error_column(band)) ? &in.column(magnitude_error_column(band)) : nullptr;
-    Column& m0 = cat.add_column("mag0_" + band, ColumnType::kReal, "mag", "dereddened " + band);
-    Column& e0 = cat.add_column("mag0_err_" + band, ColumnType::kReal, "mag", "error of mag0_" + band + " incl. E(B-V)");
+    Column& m0 = cat.add_column(dereddened_magnitude_column(band), ColumnType::kReal, "mag", "dereddened " + band);
+    Column& e0 = cat.add_column(dereddened_magnitude_error_column(band), ColumnType::kReal, "mag",
+                                "error of " + dereddened_magnitude_column(band) + " incl. E(B-V)");
     for (std::size_t r = 0; r < n; ++r) {
       if (m.is_null(r) || ebv->is_null(r)) continue;
       double se = ebv_err && !ebv_err->is_null(r) ? ebv_err->real[r] : 0.0;
@@ -167,8 +169,8 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
       e0.real[r] = std::sqrt(sm * sm + rb * rb * se * se);
       e0.null[r] = 0;
     }
-    Column& a = cat.add_column("a_" + band, ColumnType::kReal, "mag", "extinction in " + band);
-    Column& ae = cat.add_column("a_err_" + band, ColumnType::kReal, "mag", "error of a_" + band);
+    Column& a = cat.add_column(extinction_column(band), ColumnType::kReal, "mag", "extinction in " + band);
+    Column& ae = cat.add_column(extinction_error_column(band), ColumnType::kReal, "mag", "error of " + extinction_column(band));
     for (std::size_t r = 0; r < n; ++r) {
       if (ebv->is_null(r)) continue;
       a.real[r] = rb * ebv->real[r];
@@ -196,8 +198,9 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
     weight[w->x] += 1.0;
     weight[w->y] -= r;
     weight[w->z] += r;
-    Column& wm = cat.add_column("mag0_" + wname, ColumnType::kReal, "mag", fmt::format("Wesenheit {} - {:.4f} ({} - {})", w->x, r, w->y, w->z));
-    Column& we = cat.add_column("mag0_err_" + wname, ColumnType::kReal, "mag", "error of mag0_" + wname);
+    Column& wm = cat.add_column(dereddened_magnitude_column(wname), ColumnType::kReal, "mag", fmt::format("Wesenheit {} - {:.4f} ({} - {})", w->x, r, w->y, w->z));
+    Column& we = cat.add_column(dereddened_magnitude_error_column(wname), ColumnType::kReal, "mag",
+                                "error of " + dereddened_magnitude_column(wname));
     for (std::size_t row = 0; row < n; ++row) {
       double value = 0, var = 0;
       bool ok = true;
@@ -227,7 +230,7 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
 }
 
 DereddenResult deredden_catalog_file(const DereddenOptions& o) {
-  SourceTable in = read_fits_table(o.input_path, {"CATALOG", 0});
+  SourceTable in = read_fits_table(o.input_path, {catalog_hdu::kCatalog, 0});
   BandTable table = BandTable::from_file(o.bands_file);
   DereddenResult result = run_deredden(o, in.table, table);
   result.provenance = Provenance::for_stage("deredden");
@@ -237,7 +240,7 @@ DereddenResult deredden_catalog_file(const DereddenOptions& o) {
   stamp_provenance(result.catalog, result.provenance, "catalog");
   StarTable coeffs = result.coefficients_table();
   stamp_provenance(coeffs, result.provenance, "coefficients");
-  write_fits_tables(o.output_path, {{"CATALOG", &result.catalog}, {"COEFFS", &coeffs}});
+  write_fits_tables(o.output_path, {{catalog_hdu::kCatalog, &result.catalog}, {catalog_hdu::kCoefficients, &coeffs}});
   return result;
 }
 

@@ -17,6 +17,7 @@
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
 #include "rungcal/photometry/bands.hpp"
+#include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace rungcal {
@@ -221,7 +222,7 @@ GridResult run_grid(const GridOptions& g) {
   throw_if_invalid(g.check(), g.config_file);
   const DereddenOptions base_dered = deredden_options_from_file(g.deredden_config);
   const FitOptions base_fit = fit_options_from_file(g.fit_config);
-  const SourceTable catalog = read_fits_table(g.catalog_path, {"CATALOG", 0});
+  const SourceTable catalog = read_fits_table(g.catalog_path, {catalog_hdu::kCatalog, 0});
   const BandTable bands = BandTable::from_file(base_dered.bands_file);
 
   // Every variant's fit from the same catalog; the baseline is index 0.

@@ -33,17 +33,18 @@ using namespace ingest_parts;
 
 StarTable IngestResult::rejects_table() const {
   StarTable t;
-  t.add_column("source_row", ColumnType::kInteger, "", "line (text) or row (FITS) in the input");
-  t.add_column("id", ColumnType::kText);
-  t.add_column("rule", ColumnType::kText, "", "rule the row broke");
-  t.add_column("column", ColumnType::kText, "", "input column involved");
-  t.add_column("message", ColumnType::kText);
+  namespace R = reject_col;
+  t.add_column(R::kSourceRow, ColumnType::kInteger, "", "line (text) or row (FITS) in the input");
+  t.add_column(R::kId, ColumnType::kText);
+  t.add_column(R::kRule, ColumnType::kText, "", "rule the row broke");
+  t.add_column(R::kColumn, ColumnType::kText, "", "input column involved");
+  t.add_column(R::kMessage, ColumnType::kText);
   for (const auto& r : rejected) {
-    t.column("source_row").push_integer(r.source_row);
-    r.id.empty() ? t.column("id").push_null() : t.column("id").push_text(r.id);
-    t.column("rule").push_text(r.rule);
-    r.column.empty() ? t.column("column").push_null() : t.column("column").push_text(r.column);
-    t.column("message").push_text(r.message);
+    t.column(R::kSourceRow).push_integer(r.source_row);
+    r.id.empty() ? t.column(R::kId).push_null() : t.column(R::kId).push_text(r.id);
+    t.column(R::kRule).push_text(r.rule);
+    r.column.empty() ? t.column(R::kColumn).push_null() : t.column(R::kColumn).push_text(r.column);
+    t.column(R::kMessage).push_text(r.message);
   }
   return t;
 }
@@ -428,13 +429,13 @@ IngestResult ingest_catalog_file(const IngestOptions& o) {
     if (rows.rows() == 0) return;
     // Made with a row for every input row expected: rows not used are dropped at the end,
     // and the table grows past them if a text file's estimate fell short.
-    if (!stream) stream.emplace(o.catalog_path, "CATALOG", static_cast<std::int64_t>(expected));
+    if (!stream) stream.emplace(o.catalog_path, catalog_hdu::kCatalog, static_cast<std::int64_t>(expected));
     stream->append(rows);
   });
   stamp_provenance(schema, result.provenance, "catalog");
   StarTable rejects = result.rejects_table();
   stamp_provenance(rejects, result.provenance, "rejects");
-  stream->finish(schema.header(), {{"REJECTS", &rejects}}, schema);
+  stream->finish(schema.header(), {{catalog_hdu::kRejects, &rejects}}, schema);
   write_csv_table(rejects, ingest_rejects_csv_path(o));
   result.catalog = std::move(schema);  // columns and header: the rows are in the file
   return result;
@@ -443,7 +444,7 @@ IngestResult ingest_catalog_file(const IngestOptions& o) {
 void write_ingest_products(const IngestResult& result, const IngestOptions& o) {
   StarTable rejects = result.rejects_table();
   stamp_provenance(rejects, result.provenance, "rejects");
-  write_fits_tables(o.catalog_path, {{"CATALOG", &result.catalog}, {"REJECTS", &rejects}});
+  write_fits_tables(o.catalog_path, {{catalog_hdu::kCatalog, &result.catalog}, {catalog_hdu::kRejects, &rejects}});
   write_csv_table(rejects, ingest_rejects_csv_path(o));
 }
 

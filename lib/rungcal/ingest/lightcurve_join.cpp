@@ -13,30 +13,26 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
+#include "rungcal/table/lightcurve_schema.hpp"
 
 namespace rungcal {
 
 void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestResult& result) {
-  SourceTable lc = read_fits_table(join.summary_path, {"SUMMARY", 0});
+  namespace C = lightcurve_col;
+  SourceTable lc = read_lightcurve_summary(join.summary_path);
   const StarTable& s = lc.table;
-  for (const char* c : {"id", "period_d", "usable"})
-    if (!s.has(c))
-      throw InputError({join.summary_path, {}, c}, "missing_column",
-                       "not a rungcal-lightcurve summary (HDU SUMMARY)");
   result.provenance.inputs.push_back(
       {join.summary_path, sha256_file(join.summary_path), static_cast<std::int64_t>(s.rows())});
   std::vector<std::string> bands = join.bands;
-  if (bands.empty())
-    for (const auto& name : s.column_names())
-      if (name.rfind("mag_err_", 0) == 0) bands.push_back(name.substr(8));
+  if (bands.empty()) bands = lightcurve_summary_bands(s);
   for (const auto& b : bands)
-    if (!s.has("mag_" + b) || !s.has("mag_err_" + b))
+    if (!s.has(band_column(C::kMag, b)) || !s.has(band_column(C::kMagErr, b)))
       throw InputError(
-          {join.summary_path, {}, "mag_" + b}, "missing_column",
+          {join.summary_path, {}, band_column(C::kMag, b)}, "missing_column",
           fmt::format("[lightcurves] bands names {}, which the summary does not have", b));
 
   std::unordered_map<std::string, std::size_t> lc_row;
-  for (std::size_t r = 0; r < s.rows(); ++r) lc_row.emplace(s.column("id").to_string(r), r);
+  for (std::size_t r = 0; r < s.rows(); ++r) lc_row.emplace(s.column(C::kId).to_string(r), r);
   // Bands the catalog lacks get columns of their own, and join the catalog's band list.
   std::string band_list = std::get<std::string>(cat.keyword(key::kBands)->value);
   for (const auto& b : bands)
@@ -46,9 +42,9 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       band_list += (band_list.empty() ? "" : ",") + b;
     }
   cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
-  Column& origin = cat.add_column("period_origin", ColumnType::kText, "", "catalog or lightcurve");
-  if (join.periods && !cat.has("period_err_d"))
-    cat.add_column("period_err_d", ColumnType::kReal, "d", "period uncertainty");
+  Column& origin = cat.add_column(col::kPeriodOrigin, ColumnType::kText, "", "catalog or lightcurve");
+  if (join.periods && !cat.has(col::kPeriodErr))
+    cat.add_column(col::kPeriodErr, ColumnType::kReal, "d", "period uncertainty");
   const bool replace = join.use == JoinUse::kReplace;
   std::size_t unmatched = 0;
   for (std::size_t r = 0; r < cat.rows(); ++r) {
@@ -60,10 +56,10 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       continue;
     }
     const std::size_t k = it->second;
-    if (s.column("usable").is_null(k) || !s.column("usable").boolean[k]) continue;
+    if (s.column(C::kUsable).is_null(k) || !s.column(C::kUsable).boolean[k]) continue;
     Column& period = cat.column(col::kPeriod);
     if (join.periods && (replace || period.is_null(r))) {
-      const double p_lc = s.column("period_d").real[k];
+      const double p_lc = s.column(C::kPeriodD).real[k];
       const double p_cat = period.real[r];
       if (!period.is_null(r) && std::abs(p_lc / p_cat - 1) > join.warn_period_change)
         spdlog::warn(
@@ -74,16 +70,16 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       period.null[r] = 0;
       cat.column(col::kLogPeriod).real[r] = std::log10(p_lc);
       cat.column(col::kLogPeriod).null[r] = 0;
-      if (s.has("period_err_d") && !s.column("period_err_d").is_null(k)) {
-        cat.column("period_err_d").real[r] = s.column("period_err_d").real[k];
-        cat.column("period_err_d").null[r] = 0;
+      if (s.has(C::kPeriodErrD) && !s.column(C::kPeriodErrD).is_null(k)) {
+        cat.column(col::kPeriodErr).real[r] = s.column(C::kPeriodErrD).real[k];
+        cat.column(col::kPeriodErr).null[r] = 0;
       }
       origin.text[r] = "lightcurve";
       ++result.periods_joined;
     }
     for (const auto& b : bands) {
-      const Column& m = s.column("mag_" + b);
-      const Column& e = s.column("mag_err_" + b);
+      const Column& m = s.column(band_column(C::kMag, b));
+      const Column& e = s.column(band_column(C::kMagErr, b));
       if (m.is_null(k) || e.is_null(k)) continue;
       Column& cm = cat.column(magnitude_column(b));
       Column& ce = cat.column(magnitude_error_column(b));

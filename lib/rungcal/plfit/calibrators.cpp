@@ -51,10 +51,10 @@ std::string correct_parallax(const FitOptions& o, const StarTable& cat, std::siz
   double z = 0.0;
   if (o.zero_point == ZeroPointRecipe::kConstant) z = o.zero_point_mas;
   if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
-    double g = value_or_nan(cat, "gaia_g_mag", r), beta = value_or_nan(cat, "ecl_lat_deg", r);
-    double n_param = value_or_nan(cat, "astrometric_params", r);
+    double g = value_or_nan(cat, col::kGaiaG, r), beta = value_or_nan(cat, col::kEclLat, r);
+    double n_param = value_or_nan(cat, col::kAstrometricParams, r);
     bool six = n_param == 6;
-    double colour = value_or_nan(cat, six ? "pseudocolour_um" : "nu_eff_um", r);
+    double colour = value_or_nan(cat, six ? col::kPseudocolour : col::kNuEff, r);
     if (!std::isfinite(g) || !std::isfinite(beta) || !std::isfinite(colour) ||
         !std::isfinite(n_param))
       return "zero point inputs missing (G, colour, ecliptic latitude, astrometric parameters)";
@@ -63,7 +63,7 @@ std::string correct_parallax(const FitOptions& o, const StarTable& cat, std::siz
   double inflate = 1.0;
   if (o.inflation == InflationRecipe::kConstant) inflate = o.inflation_factor;
   if (o.inflation == InflationRecipe::kElBadry2021) {
-    double g = value_or_nan(cat, "gaia_g_mag", r);
+    double g = value_or_nan(cat, col::kGaiaG, r);
     if (!std::isfinite(g)) return "no G magnitude for the El-Badry et al. 2021 inflation";
     inflate = el_badry_inflation(g);
   }
@@ -72,7 +72,7 @@ std::string correct_parallax(const FitOptions& o, const StarTable& cat, std::siz
   s.plx_err = plx_err * inflate;
   // The cut comes after the correction so that refused stars keep their parallax for plots.
   if (o.max_ruwe > 0) {
-    double ruwe = value_or_nan(cat, "ruwe", r);
+    double ruwe = value_or_nan(cat, col::kRuwe, r);
     if (std::isfinite(ruwe) && ruwe > o.max_ruwe) return fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe);
   }
   return "";
@@ -96,10 +96,10 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
                                const ParamSpec& offset) {
   Calibrators c;
   const std::string mag_col =
-      rel.magnitude_column.empty() ? "mag0_" + rel.band : rel.magnitude_column;
+      rel.magnitude_column.empty() ? dereddened_magnitude_column(rel.band) : rel.magnitude_column;
   std::string err_col = rel.error_column;
   if (err_col.empty()) {
-    err_col = rel.magnitude_column.empty() ? "mag0_err_" + rel.band : rel.magnitude_column;
+    err_col = rel.magnitude_column.empty() ? dereddened_magnitude_error_column(rel.band) : rel.magnitude_column;
     if (!rel.magnitude_column.empty()) {
       auto p = err_col.find("mag_");
       err_col = p == 0 ? "mag_err_" + err_col.substr(4) : err_col + "_err";
@@ -183,7 +183,7 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
     const std::string& group = s.group;
     auto anchor = std::find_if(o.anchors.begin(), o.anchors.end(),
                                [&](const auto& a) { return a.group == group; });
-    double mu = value_or_nan(cat, "mu_mag", r), mu_err = value_or_nan(cat, "mu_err_mag", r);
+    double mu = value_or_nan(cat, col::kMu, r), mu_err = value_or_nan(cat, col::kMuErr, r);
     const double plx = value_or_nan(cat, col::kParallax, r);
     auto push_group_star = [&](int g, double own_plx, double own_var) {
       s.used = true;
@@ -317,7 +317,8 @@ void check_constrained(const FitOptions& o, const RelationOptions& rel, const Ca
   for (std::size_t g = 0; g < groups.size(); ++g)
     if (std::count(c.data.group.begin(), c.data.group.end(), static_cast<int>(g)) == 0)
       spdlog::warn("relation {}: {} {} has no star; its distance modulus is fitted to its {} alone", rel.name,
-                   g < o.anchors.size() ? "anchor" : "cluster", groups[g],
+                   kCalibratorKindNames.name(g < o.anchors.size() ? CalibratorKind::kAnchor : CalibratorKind::kCluster),
+                   groups[g],
                    g < o.anchors.size() ? "prior" : "parallax or modulus");
 }
 

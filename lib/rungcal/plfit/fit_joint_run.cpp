@@ -30,10 +30,11 @@ namespace rungcal::fit_parts {
 namespace {
 
 double coefficient_of(const StarTable* coefficients, const std::string& name) {
-  if (!coefficients || !coefficients->has("name") || !coefficients->has("a_over_ebv")) return 0.0;
-  const Column& n = coefficients->column("name");
+  namespace C = coefficient_col;
+  if (!coefficients || !coefficients->has(C::kName) || !coefficients->has(C::kAOverEbv)) return 0.0;
+  const Column& n = coefficients->column(C::kName);
   for (std::size_t i = 0; i < n.size(); ++i)
-    if (!n.is_null(i) && n.text[i] == name) return coefficients->column("a_over_ebv").as_real(i);
+    if (!n.is_null(i) && n.text[i] == name) return coefficients->column(C::kAOverEbv).as_real(i);
   return 0.0;
 }
 
@@ -84,8 +85,8 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
     d.kind.push_back(kind);
     d.plx.push_back(own ? plx : 0.0);
     d.var_plx.push_back(own ? plx_err * plx_err : 0.0);
-    const double mu = cat.has("mu_mag") ? cat.column("mu_mag").as_real(row) : 0.0;
-    const double mu_err = cat.has("mu_err_mag") ? cat.column("mu_err_mag").as_real(row) : 0.0;
+    const double mu = cat.has(col::kMu) ? cat.column(col::kMu).as_real(row) : 0.0;
+    const double mu_err = cat.has(col::kMuErr) ? cat.column(col::kMuErr).as_real(row) : 0.0;
     d.mu.push_back(kind == 1 ? mu : 0.0);
     d.var_mu.push_back(kind == 1 && std::isfinite(mu_err) ? mu_err * mu_err : 0.0);
     d.group.push_back(kind == 2 ? anchor_index(row) : -1);

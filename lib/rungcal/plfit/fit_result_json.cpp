@@ -23,6 +23,7 @@
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/hierarchical.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fit_result_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace rungcal {
@@ -61,22 +62,63 @@ nlohmann::json clusters_json(const FitOptions& o, const RelationResult& rr) {
   return out;
 }
 
+// The bootstrap's 16th, 50th and 84th percentiles (none without resamples: written null).
+void set_percentiles(FitParameterRecord& record, const std::vector<double>& boot) {
+  record.p16 = percentile(boot, 0.16);
+  record.p50 = percentile(boot, 0.50);
+  record.p84 = percentile(boot, 0.84);
+}
+
+// The parts of a relation's result that other stages read (table/fit_result_schema.hpp).
+FitRelationRecord relation_record(const RelationResult& rr) {
+  FitRelationRecord r;
+  r.name = rr.relation.name;
+  r.band = rr.relation.band;
+  r.pivot_log_period = rr.relation.pivot_log_period;
+  r.break_log_period = rr.relation.break_log_period;
+  r.metallicity = rr.relation.metallicity;
+  r.parameter_names = rr.layout.names;
+  for (int j = 0; j < rr.layout.size; ++j) {
+    const std::string& name = rr.layout.names[j];
+    const ParamSpec& spec = rr.settings.params[j];
+    FitParameterRecord p;
+    p.name = name;
+    p.value = rr.solution.theta[j];
+    p.mode = spec.mode;
+    p.error = spec.mode == ParamMode::kFixed ? 0.0 : rr.error(name);
+    p.bootstrap_error = rr.bootstrap_error(name);
+    set_percentiles(p, bootstrap_column(rr, j));
+    if (spec.mode == ParamMode::kPrior) p.prior = FitPriorRecord{spec.value, spec.prior_sigma};
+    if (std::find(rr.undetermined.begin(), rr.undetermined.end(), name) != rr.undetermined.end()) {
+      p.determined = false;
+      p.error.reset();
+    }
+    r.parameters.push_back(p);
+  }
+  for (int i = 0; i < rr.layout.size; ++i) {
+    std::vector<double> row;
+    for (int j = 0; j < rr.layout.size; ++j)
+      row.push_back(rr.covariance_ok ? rr.covariance(i, j) : std::numeric_limits<double>::quiet_NaN());
+    r.covariance.push_back(row);
+  }
+  for (const auto& s : rr.stars) {
+    if (s.used)
+      r.used.push_back(s.id);
+    else
+      r.rejected.push_back({s.id, s.reason});
+  }
+  return r;
+}
+
 }  // namespace
 
 nlohmann::json FitResult::to_json(const FitOptions& o) const {
   using nlohmann::json;
   json out;
-  out["schema"] = "rungcal-fit";
-  out["schema_version"] = kFitSchemaVersion;
-  out["provenance"] = {{"stage", provenance.stage},
-                       {"software_version", provenance.software_version},
-                       {"software_commit", provenance.software_commit},
-                       {"created_utc", provenance.created_utc},
-                       {"config_sha256", provenance.config_sha256}};
-  for (const auto& in : provenance.inputs)
-    out["provenance"]["inputs"].push_back(
-        {{"path", in.path}, {"sha256", in.sha256}, {"rows", in.rows}});
-  out["model"] = {{"space", std::string(kFitSpaceNames.name(o.space))},
+  out[fit_key::kSchema] = kFitSchemaName;
+  out[fit_key::kSchemaVersion] = kFitSchemaVersion;
+  out[fit_key::kProvenance] = rungcal::to_json(provenance);
+  out[fit_key::kModel] = {{"space", std::string(kFitSpaceNames.name(o.space))},
                   {"loss", std::string(kLossNames.name(o.loss))},
                   {"scatter_estimator", std::string(kScatterEstimatorNames.name(o.scatter_estimator))},
                   {"hierarchical", {{"distance_prior", std::string(kDistancePriorNames.name(o.hierarchical.prior))},
@@ -135,70 +177,38 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                   {"extinction", extinction.is_null() ? nlohmann::json::object() : extinction}};
   auto finite_or_null = [](double v) { return std::isfinite(v) ? json(v) : json(nullptr); };
   for (const auto& rr : relations) {
-    json r;
-    r["name"] = rr.relation.name;
-    r["band"] = rr.relation.band;
-    r["pivot_log_period"] = rr.relation.pivot_log_period;
-    if (rr.relation.break_log_period) r["break_log_period"] = *rr.relation.break_log_period;
-    r["metallicity"] = rr.relation.metallicity;
+    json r = rungcal::to_json(relation_record(rr));
     // The relation's resolved selection: with the model and config text, what it was fitted on.
-    r["selection"] = {
+    r[fit_key::kSelection] = {
         {"classes", rr.relation.classes},
         {"modes", rr.relation.modes},
         {"fundamentalize", rr.relation.fundamentalize},
         {"log_period_range",
          {finite_or_null(rr.relation.min_log_period), finite_or_null(rr.relation.max_log_period)}},
-        {"magnitude_column", rr.relation.magnitude_column.empty() ? "mag0_" + rr.relation.band
+        {"magnitude_column", rr.relation.magnitude_column.empty() ? dereddened_magnitude_column(rr.relation.band)
                                                                   : rr.relation.magnitude_column},
         {"slope",
          {{"mode", std::string(kParamModeNames.name(rr.relation.slope.mode))},
           {"value", rr.relation.slope.value},
           {"prior_sigma", rr.relation.slope.prior_sigma}}}};
-    r["parameter_names"] = rr.layout.names;
-    for (int j = 0; j < rr.layout.size; ++j) {
-      const auto& name = rr.layout.names[j];
-      std::vector<double> boot = bootstrap_column(rr, j);
-      json p = {{"name", name},
-                {"value", rr.solution.theta[j]},
-                {"mode", std::string(kParamModeNames.name(rr.settings.params[j].mode))},
-                {"error", rr.settings.params[j].mode == ParamMode::kFixed
-                              ? json(0.0)
-                              : finite_or_null(rr.error(name))},
-                {"bootstrap_error", finite_or_null(rr.bootstrap_error(name))},
-                {"p16", finite_or_null(percentile(boot, 0.16))},
-                {"p50", finite_or_null(percentile(boot, 0.50))},
-                {"p84", finite_or_null(percentile(boot, 0.84))}};
-      if (rr.settings.params[j].mode == ParamMode::kPrior)
-        p["prior"] = {{"mean", rr.settings.params[j].value},
-                      {"sigma", rr.settings.params[j].prior_sigma}};
-      if (std::find(rr.undetermined.begin(), rr.undetermined.end(), name) !=
-          rr.undetermined.end()) {
-        p["determined"] = false;
-        p["error"] = nullptr;
-      }
-      r["parameters"].push_back(p);
-    }
-    json cov = json::array(), corr = json::array();
+    json corr = json::array();
     for (int i = 0; i < rr.layout.size; ++i) {
-      json row = json::array(), crow = json::array();
+      json crow = json::array();
       for (int j = 0; j < rr.layout.size; ++j) {
         double cij =
             rr.covariance_ok ? rr.covariance(i, j) : std::numeric_limits<double>::quiet_NaN();
-        row.push_back(finite_or_null(cij));
         double d = rr.covariance_ok ? std::sqrt(rr.covariance(i, i) * rr.covariance(j, j)) : 0.0;
         crow.push_back(d > 0 ? json(cij / d) : json(nullptr));
       }
-      cov.push_back(row);
       corr.push_back(crow);
     }
-    r["covariance"] = cov;
-    r["covariance_method"] = rr.covariance_method;
-    r["correlation"] = corr;
+    r[fit_key::kCovarianceMethod] = rr.covariance_method;
+    r[fit_key::kCorrelation] = corr;
     int rejected = 0;
     for (const auto& s : rr.stars) rejected += s.used ? 0 : 1;
-    r["statistics"] = {{"chi2", rr.chi2},
+    r[fit_key::kStatistics] = {{"chi2", rr.chi2},
                        {"dof", rr.dof},
-                       {"n_used", rr.n_used},
+                       {fit_key::kNUsed, rr.n_used},
                        {"n_rejected", rejected},
                        {"n_clipped", rr.n_clipped},
                        {"n_free_parameters", rr.n_free},
@@ -207,52 +217,44 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                        {"bic", rr.bic},
                        {"bootstrap_resamples", rr.bootstrap.rows()},
                        {"bootstrap_failed", rr.bootstrap_failed}};
-    r["solver"] = {{"termination", rr.solution.termination},
+    r[fit_key::kSolver] = {{"termination", rr.solution.termination},
                    {"message", rr.solution.message},
                    {"iterations", rr.solution.iterations},
                    {"usable", rr.solution.usable},
                    {"brief_report", rr.solution.brief_report}};
-    r["rejected"] = json::array();
-    r["used"] = json::array();
-    for (const auto& s : rr.stars) {
-      if (!s.used)
-        r["rejected"].push_back({{"id", s.id}, {"reason", s.reason}});
-      else
-        r["used"].push_back(s.id);
-    }
-    r["clusters"] = clusters_json(o, rr);
-    r["warnings"] = rr.warnings;
-    r["undetermined"] = rr.undetermined;
+    r[fit_key::kClusters] = clusters_json(o, rr);
+    r[fit_key::kWarnings] = rr.warnings;
+    r[fit_key::kUndetermined] = rr.undetermined;
     if (rr.layout.distance_bin0 >= 0)
-      r["distance_prior_grid"] = {{"first_modulus", histogram_start_at(rr.settings.hierarchical, rr.parameter("alpha"))},
+      r[fit_key::kDistancePriorGrid] = {{"first_modulus", histogram_start_at(rr.settings.hierarchical, rr.parameter("alpha"))},
                                   {"step_mag", rr.settings.hierarchical.histogram_step},
                                   {"bins", rr.layout.distance_bins + 1}};
-    out["relations"].push_back(r);
+    out[fit_key::kRelations].push_back(r);
   }
   if (joint) {
     const JointSolution& js = joint->solution;
     json j;
     j["method"] = joint->method;
-    j["relations"] = joint->relations;
+    j[fit_key::kRelations] = joint->relations;
     j["shared_slope"] = o.joint_shared_slope;
     j["scatter_correlation"] = joint->layout.correlation >= 0 ? js.theta[joint->layout.correlation]
                                                               : o.joint_scatter_correlation.value;
     j["scatter_correlation_mode"] = joint->layout.correlation >= 0
                                         ? std::string(kParamModeNames.name(o.joint_scatter_correlation.mode))
                                         : std::string("fixed");
-    j["parameter_names"] = joint->layout.names;
+    j[fit_key::kParameterNames] = joint->layout.names;
     for (int p = 0; p < joint->layout.size; ++p) {
       double e = js.covariance_ok ? std::sqrt(std::max(0.0, js.covariance(p, p))) : std::nan("");
       std::vector<double> boot;
       for (Eigen::Index b = 0; b < joint->bootstrap.rows(); ++b)
         if (std::isfinite(joint->bootstrap(b, p))) boot.push_back(joint->bootstrap(b, p));
-      j["parameters"].push_back({{"name", joint->layout.names[p]},
-                                 {"value", js.theta[p]},
-                                 {"error", finite_or_null(e)},
-                                 {"bootstrap_error", finite_or_null(standard_deviation(boot))},
-                                 {"p16", finite_or_null(percentile(boot, 0.16))},
-                                 {"p50", finite_or_null(percentile(boot, 0.50))},
-                                 {"p84", finite_or_null(percentile(boot, 0.84))}});
+      FitParameterRecord record;
+      record.name = joint->layout.names[p];
+      record.value = js.theta[p];
+      record.error = e;
+      record.bootstrap_error = standard_deviation(boot);
+      set_percentiles(record, boot);
+      j[fit_key::kParameters].push_back(rungcal::to_json(record));
     }
     json cov = json::array();
     for (int a = 0; a < joint->layout.size; ++a) {
@@ -261,8 +263,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
         row.push_back(js.covariance_ok ? finite_or_null(js.covariance(a, b)) : json(nullptr));
       cov.push_back(row);
     }
-    j["covariance"] = cov;
-    j["statistics"] = {{"chi2", finite_or_null(js.chi2)},
+    j[fit_key::kCovariance] = cov;
+    j[fit_key::kStatistics] = {{"chi2", finite_or_null(js.chi2)},
                        {"neg2_log_likelihood", finite_or_null(joint->neg2_log_likelihood)},
                        {"n_stars", joint->stars},
                        {"n_entries", js.entries},
@@ -270,12 +272,12 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                        {"dof", js.entries - joint->n_free},
                        {"bootstrap_resamples", joint->bootstrap.rows()},
                        {"bootstrap_failed", joint->bootstrap_failed}};
-    j["solver"] = {{"termination", js.termination},
+    j[fit_key::kSolver] = {{"termination", js.termination},
                    {"message", js.message},
                    {"iterations", js.iterations},
                    {"usable", js.usable}};
-    j["warnings"] = joint->warnings;
-    j["undetermined"] = joint->undetermined;
+    j[fit_key::kWarnings] = joint->warnings;
+    j[fit_key::kUndetermined] = joint->undetermined;
     // Stars the mixture gives less than even odds of being members, with the relations' ids.
     j["likely_outliers"] = json::array();
     for (std::size_t i = 0; i < joint->membership.size(); ++i)
@@ -284,7 +286,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
         const std::string id = relations.empty() ? "" : relations[0].stars[row].id;
         j["likely_outliers"].push_back({{"row", row}, {"id", id}, {"membership", joint->membership[i]}});
       }
-    out["joint"] = j;
+    out[fit_key::kJoint] = j;
   }
   return out;
 }

@@ -203,11 +203,11 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
 }
 
 FitResult fit_catalog_file(const FitOptions& o) {
-  SourceTable in = read_fits_table(o.input_path, {"CATALOG", 0});
+  SourceTable in = read_fits_table(o.input_path, {catalog_hdu::kCatalog, 0});
   std::optional<SourceTable> coeffs;
   if (o.joint) {
     try {
-      coeffs = read_fits_table(o.input_path, {"COEFFS", 0});
+      coeffs = read_fits_table(o.input_path, {catalog_hdu::kCoefficients, 0});
     } catch (const InputError& e) {
       if (e.rule() != "fits_hdu") throw;
     }
@@ -256,7 +256,7 @@ FitResult fit_catalog_file(const FitOptions& o) {
       res.column("parallax_err_mas").push_real(s.plx_err);
       res.column("predicted").push_real(s.predicted);
       res.column("feh").push_real(in.table.has(col::kFeh) ? in.table.column(col::kFeh).as_real(s.row) : std::nan(""));
-      res.column("gaia_g_mag").push_real(in.table.has("gaia_g_mag") ? in.table.column("gaia_g_mag").as_real(s.row) : std::nan(""));
+      res.column("gaia_g_mag").push_real(in.table.has(col::kGaiaG) ? in.table.column(col::kGaiaG).as_real(s.row) : std::nan(""));
       res.column("membership").push_real(s.membership);
     }
   }

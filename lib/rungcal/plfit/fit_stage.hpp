@@ -17,12 +17,13 @@
 #include "rungcal/core/stage_files.hpp"
 #include "rungcal/plfit/joint.hpp"
 #include "rungcal/plfit/model.hpp"
+#include "rungcal/table/fit_result_schema.hpp"
 #include "rungcal/table/star_table.hpp"
 
 namespace rungcal {
 
-// Schema version of the fit result (docs/file-formats.md, "Fit result").
-inline constexpr int kFitSchemaVersion = 1;
+// The fit result's keys, records and schema version (kFitSchemaVersion):
+// table/fit_result_schema.hpp.
 
 // One period-luminosity relation to fit.
 // The most bootstrap resamples a fit takes: far beyond what percentiles need (a few
@@ -160,21 +161,8 @@ StageFiles declared_files(const FitOptions& options);
 // The residuals FITS: residuals_path, or <result stem>_residuals.fits beside the result.
 std::string fit_residuals_path(const FitOptions& options);
 
-// How a calibrator's distance enters the fit (the residual table's `kind` column).
-enum class CalibratorKind {
-  kNone,           // not used before its kind was known (refused early)
-  kParallax,       // its own parallax
-  kKnownDistance,  // a given distance modulus (mu_mag)
-  kAnchor,         // a member of an [[anchor]] galaxy
-  kCluster,        // a member of a [[cluster]]
-};
-inline constexpr EnumTable<CalibratorKind, 5> kCalibratorKindNames{{{
-    {CalibratorKind::kNone, ""},
-    {CalibratorKind::kParallax, "parallax"},
-    {CalibratorKind::kKnownDistance, "known_distance"},
-    {CalibratorKind::kAnchor, "anchor"},
-    {CalibratorKind::kCluster, "cluster"},
-}}};
+// CalibratorKind and its names (the residual table's `kind` column):
+// table/fit_result_schema.hpp, where the report reads them too.
 
 // What happened to one catalog star in one relation.
 struct StarOutcome {

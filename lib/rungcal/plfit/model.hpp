@@ -10,6 +10,7 @@
 #include "rungcal/core/enum_table.hpp"
 #include "rungcal/plfit/distance_prior.hpp"
 #include "rungcal/plfit/losses.hpp"
+#include "rungcal/table/fit_result_schema.hpp"
 
 namespace rungcal {
 
@@ -42,12 +43,7 @@ inline constexpr EnumTable<FitSpace, 4> kFitSpaceNames{{{
 }}};
 
 // How a parameter enters the fit.
-enum class ParamMode { kFree, kFixed, kPrior };
-inline constexpr EnumTable<ParamMode, 3> kParamModeNames{{{
-    {ParamMode::kFree, "free"},
-    {ParamMode::kFixed, "fixed"},
-    {ParamMode::kPrior, "prior"},
-}}};
+// ParamMode and its names: table/fit_result_schema.hpp (the fit result records them).
 
 struct ParamSpec {
   ParamMode mode = ParamMode::kFree;

@@ -21,16 +21,15 @@ namespace rungcal {
 using namespace figure_parts;
 namespace {
 
-double parameter(const nlohmann::json& rel, const std::string& name, double fallback = 0.0) {
-  for (const auto& p : rel.at("parameters"))
-    if (p.at("name") == name) return p.at("value").get<double>();
-  return fallback;
+double parameter(const FitRelationRecord& rel, const std::string& name, double fallback = 0.0) {
+  const FitParameterRecord* p = rel.find_parameter(name);
+  return p ? p->value : fallback;
 }
 
-double parameter_error(const nlohmann::json& rel, const std::string& name) {
-  for (const auto& p : rel.at("parameters"))
-    if (p.at("name") == name) return p.at("error").is_null() ? 0.0 : p.at("error").get<double>();
-  return 0.0;
+// 0 when the parameter or its error is missing: drawn without an error bar.
+double parameter_error(const FitRelationRecord& rel, const std::string& name) {
+  const FitParameterRecord* p = rel.find_parameter(name);
+  return p && p->error ? *p->error : 0.0;
 }
 
 struct Point {
@@ -170,10 +169,10 @@ std::optional<FigureBox> free_corner(const Panel& top, const std::vector<FigureB
 FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
                          const std::string& path, FigureWidth width) {
   const Canvas canvas = canvas_for(width);
-  const nlohmann::json& rel = cal.relation(relation);
+  const FitRelationRecord rel = cal.relation_record(relation);
   const double offset = parameter(rel, "parallax_offset_mas");
-  const Relation line{parameter(rel, "alpha"), parameter(rel, "beta"),
-                      rel.at("pivot_log_period").get<double>(), parameter(rel, "sigma_int")};
+  const Relation line{parameter(rel, "alpha"), parameter(rel, "beta"), rel.pivot_log_period,
+                      parameter(rel, "sigma_int")};
   std::vector<Point> pts;
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
@@ -181,7 +180,8 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
     const std::string kind = res.column("kind").is_null(i) ? "" : res.column("kind").text[i];
     const double m0 = res.column("m0").real[i], x = res.column("log_period_f").real[i];
     Point p{x, 0, 0, 0, res.column("residual").is_null(i) ? NAN : res.column("residual").real[i], res.column("used").boolean[i] != 0, false};
-    if (kind == "parallax" && !res.column("parallax_corrected_mas").is_null(i)) {
+    if (kind == kCalibratorKindNames.name(CalibratorKind::kParallax) &&
+        !res.column("parallax_corrected_mas").is_null(i)) {
       const double pi = res.column("parallax_corrected_mas").real[i] - offset, e = res.column("parallax_err_mas").real[i];
       if (!(pi > 0)) {  // no magnitude to plot: counted and said in the title
         ++s.not_drawn_points;
@@ -315,7 +315,7 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
   std::vector<Series> panels = {{"[Fe/H] (dex)", "[Fe/H]", {}, {}, {}},
                                 {"Gaia G (mag)", "G", {}, {}, {}},
                                 {"parallax / error", "parallax S/N", {}, {}, {}}};
-  const double offset = parameter(cal.relation(relation), "parallax_offset_mas");
+  const double offset = parameter(cal.relation_record(relation), "parallax_offset_mas");
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
     if (res.column("relation").text[i] != relation || res.column("residual").is_null(i)) continue;
@@ -389,7 +389,7 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
   FigureSummary s;
   std::vector<double> v, a, ae, o, oe;
   for (const auto& c : versions) {
-    const nlohmann::json& rel = c.relation(relation);
+    const FitRelationRecord rel = c.relation_record(relation);
     v.push_back(c.version());
     a.push_back(parameter(rel, "alpha")), ae.push_back(parameter_error(rel, "alpha"));
     // In mas, as in the tables and the calibration file (issue 20: one unit everywhere).

@@ -13,14 +13,17 @@
 #include "rungcal/report/figure_parts.hpp"
 #include "rungcal/report/figures.hpp"
 #include "rungcal/table/fits_io.hpp"
+#include "rungcal/table/lightcurve_schema.hpp"
 
 namespace rungcal {
 using namespace figure_parts;
 namespace {
 
+namespace C = lightcurve_col;
+
 std::size_t row_of(const StarTable& t, const std::string& id) {
   for (std::size_t i = 0; i < t.rows(); ++i)
-    if (t.column("id").text[i] == id) return i;
+    if (t.column(C::kId).text[i] == id) return i;
   return t.rows();
 }
 
@@ -28,19 +31,19 @@ std::size_t row_of(const StarTable& t, const std::string& id) {
 
 LightCurveTables read_lightcurve_tables(const std::string& path) {
   LightCurveTables t;
-  t.summary = read_fits_table(path, {"SUMMARY", 0}).table;
-  t.fourier = read_fits_table(path, {"FOURIER", 0}).table;
-  t.points = read_fits_table(path, {"POINTS", 0}).table;
-  t.periodogram = read_fits_table(path, {"PERIODOGRAM", 0}).table;
+  t.summary = read_fits_table(path, {lightcurve_hdu::kSummary, 0}).table;
+  t.fourier = read_fits_table(path, {lightcurve_hdu::kFourier, 0}).table;
+  t.points = read_fits_table(path, {lightcurve_hdu::kPoints, 0}).table;
+  t.periodogram = read_fits_table(path, {lightcurve_hdu::kPeriodogram, 0}).table;
   return t;
 }
 
 std::string light_curve_star_problem(const LightCurveTables& lc, const std::string& star) {
   const std::size_t row = row_of(lc.summary, star);
-  if (row == lc.summary.rows() || lc.summary.column("period_d").is_null(row))
+  if (row == lc.summary.rows() || lc.summary.column(C::kPeriodD).is_null(row))
     return "the light-curve summary has no period for this star";
   for (std::size_t i = 0; i < lc.points.rows(); ++i)
-    if (lc.points.column("id").text[i] == star) return "";
+    if (lc.points.column(C::kId).text[i] == star) return "";
   return "the light-curve product has no epochs for this star";
 }
 
@@ -48,13 +51,13 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
                                  FigureFormat format, const std::string& path, FigureWidth width) {
   const Canvas canvas = canvas_for(width);
   const std::size_t row = row_of(lc.summary, star);
-  if (row == lc.summary.rows() || lc.summary.column("period_d").is_null(row))
+  if (row == lc.summary.rows() || lc.summary.column(C::kPeriodD).is_null(row))
     throw InputError({path, {}, star, "row", "star"}, "no_rows_left",
                      "the light-curve summary has no period for this star");
-  const double period = lc.summary.column("period_d").real[row];
+  const double period = lc.summary.column(C::kPeriodD).real[row];
   const double frequency = 1.0 / period;
-  const double t_ref = lc.summary.column("t_ref").real[row];
-  const double phase_zero = (lc.summary.column("epoch_max").real[row] - t_ref) * frequency;
+  const double t_ref = lc.summary.column(C::kTRef).real[row];
+  const double phase_zero = (lc.summary.column(C::kEpochMax).real[row] - t_ref) * frequency;
 
   // Points and each band's Fourier coefficients.
   std::vector<std::string> bands;
@@ -70,19 +73,19 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
     return bands.size() - 1;
   };
   for (std::size_t i = 0; i < lc.points.rows(); ++i)
-    if (lc.points.column("id").text[i] == star)
-      obs.push_back({lc.points.column("phase").real[i], lc.points.column("mag").real[i],
-                     lc.points.column("mag_err").real[i],
-                     band_index(lc.points.column("band").text[i])});
+    if (lc.points.column(C::kId).text[i] == star)
+      obs.push_back({lc.points.column(C::kPhase).real[i], lc.points.column(C::kMag).real[i],
+                     lc.points.column(C::kMagErr).real[i],
+                     band_index(lc.points.column(C::kBand).text[i])});
   std::vector<std::vector<std::pair<double, double>>> coef(bands.size());
   for (std::size_t i = 0; i < lc.fourier.rows(); ++i) {
-    if (lc.fourier.column("id").text[i] != star) continue;
-    auto it = std::find(bands.begin(), bands.end(), lc.fourier.column("band").text[i]);
+    if (lc.fourier.column(C::kId).text[i] != star) continue;
+    auto it = std::find(bands.begin(), bands.end(), lc.fourier.column(C::kBand).text[i]);
     if (it == bands.end()) continue;
     auto& c = coef[static_cast<std::size_t>(it - bands.begin())];
-    const auto k = static_cast<std::size_t>(lc.fourier.column("harmonic").integer[i]);
+    const auto k = static_cast<std::size_t>(lc.fourier.column(C::kHarmonic).integer[i]);
     if (c.size() <= k) c.resize(k + 1);
-    c[k] = {lc.fourier.column("cos_coef").real[i], lc.fourier.column("sin_coef").real[i]};
+    c[k] = {lc.fourier.column(C::kCosCoef).real[i], lc.fourier.column(C::kSinCoef).real[i]};
   }
   if (obs.empty())
     throw InputError({path, {}, star, "row", "star"}, "no_rows_left",
@@ -106,9 +109,9 @@ FigureSummary light_curve_figure(const LightCurveTables& lc, const std::string& 
   const double pad = 0.10 * (ymax - ymin + 0.1);  // the model and error bars clear the frame
   std::vector<double> freq, power;
   for (std::size_t i = 0; i < lc.periodogram.rows(); ++i)
-    if (lc.periodogram.column("id").text[i] == star) {
-      freq.push_back(lc.periodogram.column("frequency").real[i]);
-      power.push_back(lc.periodogram.column("power").real[i]);
+    if (lc.periodogram.column(C::kId).text[i] == star) {
+      freq.push_back(lc.periodogram.column(C::kFrequency).real[i]);
+      power.push_back(lc.periodogram.column(C::kPower).real[i]);
     }
   const bool with_periodogram = !freq.empty();
   Panel top{90,         canvas.width - 30, 40,  with_periodogram ? 370.0 : 570.0, 0.0, 2.0,

@@ -17,6 +17,7 @@
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
 #include "rungcal/table/fits_io.hpp"
+#include "rungcal/table/lightcurve_schema.hpp"
 
 namespace rungcal {
 namespace {
@@ -90,8 +91,8 @@ ReportInputs read_report_inputs(const ReportOptions& o) {
   in.stars = o.stars;
   if (in.stars.empty())
     for (std::size_t i = 0; i < pg.rows(); ++i)
-      if (in.stars.empty() || in.stars.back() != pg.column("id").text[i])
-        in.stars.push_back(pg.column("id").text[i]);
+      if (in.stars.empty() || in.stars.back() != pg.column(lightcurve_col::kId).text[i])
+        in.stars.push_back(pg.column(lightcurve_col::kId).text[i]);
   for (const auto& star : in.stars)
     if (auto why = light_curve_star_problem(*in.light_curves, star); !why.empty())
       throw InputError({o.lightcurves, {}, star, "row", "star"}, "no_rows_left", why);

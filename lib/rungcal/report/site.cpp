@@ -21,6 +21,7 @@
 #include "rungcal/report/html.hpp"
 #include "rungcal/report/likely_outlier.hpp"
 #include "rungcal/report/run_history.hpp"
+#include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace fs = std::filesystem;
@@ -55,10 +56,6 @@ figure img { max-width: 34em; border: 1px solid #ddd; }
 std::string fmt_value(double v, double e) {
   if (!std::isfinite(e)) return fmt::format("{:.5g}", v);
   return fmt::format("{:.5g} ± {:.2g}", v, e);
-}
-
-double json_number(const nlohmann::json& j) {
-  return j.is_number() ? j.get<double>() : NAN;
 }
 
 struct Versions {
@@ -100,25 +97,24 @@ std::string header_section(const Versions& v) {
   const nlohmann::json& doc = v.latest.document;
   std::string out = fmt::format("<header>\n<h1>{}</h1>\n<p>Latest version: <strong>{}</strong>, published {}.</p>\n",
                                 html_escape(v.latest.name()), v.latest.version(),
-                                html_escape(doc.value("published_utc", "")));
-  const nlohmann::json& prov = doc.at("fit").value("provenance", nlohmann::json::object());
+                                html_escape(doc.value(calibration_key::kPublishedUtc, "")));
+  const Provenance prov = provenance_from_json(v.latest.fit().value(fit_key::kProvenance, nlohmann::json::object()));
   HtmlTable inputs{"Inputs that made it", {"input", "rows", "SHA-256"}, {}, {}};
-  for (const auto& in : prov.value("inputs", nlohmann::json::array()))
-    inputs.rows.push_back({in.value("path", ""), in.contains("rows") ? in.at("rows").dump() : "",
-                           in.value("sha256", "").substr(0, 16)});
+  for (const InputRecord& in : prov.inputs)
+    inputs.rows.push_back({in.path, std::to_string(in.rows), in.sha256.substr(0, 16)});
   if (!inputs.rows.empty()) out += html_table(inputs);
   out += fmt::format("<p class=\"note\">Made by rungcal {} (commit {}); fit config SHA-256 {}.</p>\n</header>\n",
-                     html_escape(prov.value("software_version", "")), html_escape(prov.value("software_commit", "")),
-                     html_escape(prov.value("config_sha256", "").substr(0, 16)));
+                     html_escape(prov.software_version), html_escape(prov.software_commit),
+                     html_escape(prov.config_sha256.substr(0, 16)));
   return out;
 }
 
 // The relation's own parameters, when fitted: fixed ones do not move, and the distance
 // prior's and [Fe/H] population's hyperparameters are nuisance parameters (all of them are
 // in the calibration file and the diff).
-bool shown_in_history(const nlohmann::json& parameter) {
-  const std::string name = parameter.at("name");
-  if (parameter.value("mode", "free") == "fixed") return false;
+bool shown_in_history(const FitParameterRecord& parameter) {
+  const std::string& name = parameter.name;
+  if (parameter.fixed()) return false;
   return name.rfind("distance_", 0) != 0 && name != "feh_mean" && name != "feh_spread";
 }
 
@@ -133,16 +129,15 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
                      o.drift_alarm_sigma);
   ShiftsBetweenVersions shifts;
   for (const std::string& relation : v.latest.relation_names()) {
-    const nlohmann::json& latest_rel = v.latest.relation(relation);
     std::vector<std::string> names;
-    for (const auto& p : latest_rel.at("parameters"))
-      if (shown_in_history(p)) names.push_back(p.at("name"));
+    for (const FitParameterRecord& p : v.latest.relation_record(relation).parameters)
+      if (shown_in_history(p)) names.push_back(p.name);
     HtmlTable t{relation + ": parameters by version", {"version", "published", "status"}, {}, {}};
     for (const auto& n : names) t.header.push_back(n);
     std::vector<std::vector<HistoryPoint>> charts(names.size());
     const Calibration* before = nullptr;
     for (const Calibration& c : v.shown) {
-      const nlohmann::json* rel = c.find_relation(relation);
+      const std::optional<FitRelationRecord> rel = c.find_relation_record(relation);
       if (!rel) continue;
       const bool withdrawn = v.withdrawn.count(c.version()) > 0;
       const double moved = before ? shifts.largest(*before, c, relation) : 0.0;
@@ -150,15 +145,14 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
       std::string status = withdrawn ? "withdrawn" : c.version() == v.latest.version() ? "latest" : "";
       if (alarm) status += fmt::format("{}drift alarm: {:.1f} sigma", status.empty() ? "" : "; ", moved);
       std::vector<std::string> row = {fmt::format("v{}", c.version()),
-                                      c.document.value("published_utc", ""), status};
+                                      c.document.value(calibration_key::kPublishedUtc, ""), status};
       for (std::size_t k = 0; k < names.size(); ++k) {
-        const auto it = std::find_if(rel->at("parameters").begin(), rel->at("parameters").end(),
-                                     [&](const nlohmann::json& p) { return p.at("name") == names[k]; });
-        if (it == rel->at("parameters").end()) {
+        const FitParameterRecord* p = rel->find_parameter(names[k]);
+        if (!p) {
           row.push_back("");
           continue;
         }
-        const double value = json_number(it->at("value")), error = json_number(it->at("error"));
+        const double value = p->value, error = p->error_or_nan();
         row.push_back(fmt_value(value, error));
         charts[k].push_back({c.version(), value, error, withdrawn, alarm});
       }
@@ -239,8 +233,8 @@ std::string stars_section(const SiteOptions& o, const Versions& v, const StarTab
   std::string out = "<section id=\"stars\">\n<h2>Stars refused or flagged</h2>\n";
   HtmlTable fit{"Refused by the fit or likely outliers (latest version)", {"relation", "star", "why"}, {}, {}};
   for (const std::string& relation : v.latest.relation_names())
-    for (const auto& r : v.latest.relation(relation).value("rejected", nlohmann::json::array()))
-      fit.rows.push_back({relation, r.value("id", ""), r.value("reason", "")});
+    for (const RefusedStarRecord& r : v.latest.relation_record(relation).rejected)
+      fit.rows.push_back({relation, r.id, r.reason});
   if (residuals)
     for (std::size_t i = 0; i < residuals->rows(); ++i)
       if (likely_outlier(*residuals, i))
@@ -249,12 +243,13 @@ std::string stars_section(const SiteOptions& o, const Versions& v, const StarTab
   out += fit.rows.empty() ? "<p>The fit refused no star and flags none.</p>\n" : html_table(fit);
   const std::string catalog = o.run_folder.empty() ? "" : o.run_folder + "/catalog.fits";
   if (!catalog.empty() && fs::exists(catalog)) {
-    const StarTable rejects = read_fits_table(catalog, {"REJECTS", 0}).table;
+    const StarTable rejects = read_fits_table(catalog, {catalog_hdu::kRejects, 0}).table;
     HtmlTable t{"Rows refused at ingest (last run that ingested)", {"row", "star", "rule", "column", "why"}, {}, {}};
+    namespace R = reject_col;
     for (std::size_t i = 0; i < rejects.rows(); ++i)
-      t.rows.push_back({std::to_string(rejects.column("source_row").integer[i]), rejects.column("id").text[i],
-                        rejects.column("rule").text[i], rejects.column("column").text[i],
-                        rejects.column("message").text[i]});
+      t.rows.push_back({std::to_string(rejects.column(R::kSourceRow).integer[i]), rejects.column(R::kId).text[i],
+                        rejects.column(R::kRule).text[i], rejects.column(R::kColumn).text[i],
+                        rejects.column(R::kMessage).text[i]});
     out += t.rows.empty() ? "<p>Ingest refused no row.</p>\n" : html_table(t);
   }
   return out + "</section>\n";

@@ -39,16 +39,14 @@ std::string quote_csv(const std::string& s) {
   return out + "\"";
 }
 
-double error_of(const nlohmann::json& p, const char* key) {
-  return p.contains(key) && p.at(key).is_number() ? p.at(key).get<double>() : NAN;
-}
+double nan_when_null(const std::optional<double>& v) { return v ? *v : NAN; }
 
 // One cell per format: "v +- e" (plain), "$v \pm e$" (LaTeX), "(fixed)" for fixed ones;
 // with both errors, the bootstrap's follows in parentheses, rounded like the first.
-std::string cell(const nlohmann::json& p, TableFormat f, TableErrors errors) {
-  double v = p.at("value");
-  const bool fixed = p.value("mode", "free") == "fixed";
-  const double cov = error_of(p, "error"), boot = error_of(p, "bootstrap_error");
+std::string cell(const FitParameterRecord& p, TableFormat f, TableErrors errors) {
+  const double v = p.value;
+  const bool fixed = p.fixed();
+  const double cov = nan_when_null(p.error), boot = nan_when_null(p.bootstrap_error);
   const double e = fixed ? NAN : errors == TableErrors::kBootstrap ? boot : cov;
   Rounded r = round_for_print(v, e);
   if (fixed) r.value = fmt::format("{}", v);  // a fixed value prints as it was given
@@ -113,7 +111,7 @@ std::string relation_caption(const std::vector<Calibration>& versions, const std
   for (const auto& rel : relations) {
     double pivot = NAN;
     for (const auto& c : versions)
-      if (const nlohmann::json* r = c.find_relation(rel)) pivot = r->value("pivot_log_period", NAN);
+      if (const auto r = c.find_relation_record(rel)) pivot = r->pivot_log_period;
     pivots += fmt::format("{}{} {}", pivots.empty() ? "" : ", ", latex ? escape_latex(rel) : rel, pivot);
   }
   const char* equation =
@@ -191,19 +189,19 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
       std::vector<std::string> row = {fmt::format("{}: {}", rel_name, f == TableFormat::kLatex ? q.latex : q.label)};
       bool any = false;
       for (const auto& c : versions) {
-        const nlohmann::json* r = c.find_relation(rel);
+        const auto r = c.find_relation_record(rel);
         std::string text = f == TableFormat::kLatex ? "\\nodata" : "";
         if (r)
-          for (const auto& p : r->at("parameters"))
-            if (p.at("name") == q.parameter) text = cell(p, f, errors), any = true;
+          for (const FitParameterRecord& p : r->parameters)
+            if (p.name == q.parameter) text = cell(p, f, errors), any = true;
         row.push_back(text);
       }
       if (any) g.rows.push_back(row);
     }
     std::vector<std::string> row = {fmt::format("{}: N", rel_name)};
     for (const auto& c : versions) {
-      const nlohmann::json* r = c.find_relation(rel);
-      row.push_back(r ? std::to_string(r->at("statistics").at("n_used").get<int>()) : (f == TableFormat::kLatex ? "\\nodata" : ""));
+      const auto r = c.find_relation_record(rel);
+      row.push_back(r ? std::to_string(r->n_used.value()) : (f == TableFormat::kLatex ? "\\nodata" : ""));
     }
     g.rows.push_back(row);
   }

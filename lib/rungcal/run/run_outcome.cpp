@@ -52,7 +52,7 @@ std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
                         const std::pair<int, std::string>& announced, RunOutcome& outcome) {
   const Calibration latest =
       load_calibration(o.store, fmt::format("{}@{}", o.calibration, outcome.version));
-  const std::string sha = latest.document.value("content_sha256", "");
+  const std::string sha = latest.document.value(calibration_key::kContentSha256, "");
   if (announced == std::make_pair(outcome.version, sha)) return sha;
   outcome.new_version = true;
   if (announced.first > outcome.version) outcome.rolled_back_from = announced.first;
@@ -62,13 +62,12 @@ std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
   if (announced.first > 0 && announced_kept) {
     Calibration before =
         load_calibration(o.store, fmt::format("{}@{}", o.calibration, announced.first));
-    if (before.document.value("content_sha256", "") == announced.second)
+    if (before.document.value(calibration_key::kContentSha256, "") == announced.second)
       baseline = std::move(before);
   }
-  const auto& previous = latest.document.value("previous", nlohmann::json());
-  if (!baseline && previous.is_object() && previous.contains("version"))
-    baseline = load_calibration(
-        o.store, fmt::format("{}@{}", o.calibration, previous.at("version").get<int>()));
+  const std::optional<int> previous = previous_version(latest.document);
+  if (!baseline && previous)
+    baseline = load_calibration(o.store, fmt::format("{}@{}", o.calibration, *previous));
   if (!baseline) {
     outcome.first_version = true;  // no shift to report
     return sha;

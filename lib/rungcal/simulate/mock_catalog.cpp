@@ -114,10 +114,13 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
   for (int k = 0; k < 8; ++k) clumps.push_back(std::pow(10.0, 0.2 * field_rng.uniform(9.0, 13.0) - 2.0));
   StarTable t;
   for (const char* c : {col::kId, col::kMode, col::kClass}) t.add_column(c, ColumnType::kText);
-  for (const char* c : {col::kLogPeriod, "mag0_X", "mag0_err_X", col::kParallax, col::kParallaxErr, col::kFeh, col::kFehErr})
+  const std::string mag_x = dereddened_magnitude_column("X"), mag_err_x = dereddened_magnitude_error_column("X");
+  for (const std::string& c : {std::string(col::kLogPeriod), mag_x, mag_err_x, std::string(col::kParallax),
+                               std::string(col::kParallaxErr), std::string(col::kFeh), std::string(col::kFehErr)})
     t.add_column(c, ColumnType::kReal);
   for (const auto& r : s.more_relations)
-    for (const std::string& c : {"mag0_" + r.name, "mag0_err_" + r.name}) t.add_column(c, ColumnType::kReal);
+    for (const std::string& c : {dereddened_magnitude_column(r.name), dereddened_magnitude_error_column(r.name)})
+      t.add_column(c, ColumnType::kReal);
   // The joint fit correlates the bands' E(B-V) errors through it.
   if (!s.more_relations.empty()) t.add_column(col::kEbvErr, ColumnType::kReal);
   if (s.clusters > 0) t.add_column(col::kGroup, ColumnType::kText);
@@ -149,8 +152,8 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     t.column(col::kMode).push_text(mode);
     t.column(col::kClass).push_text("classical_cepheid");
     t.column(col::kLogPeriod).push_real(logp);
-    t.column("mag0_X").push_real(m0);
-    t.column("mag0_err_X").push_real(m_err);
+    t.column(mag_x).push_real(m0);
+    t.column(mag_err_x).push_real(m_err);
     t.column(col::kParallax).push_real(plx);
     t.column(col::kParallaxErr).push_real(plx_err);
     t.column(col::kFeh).push_real(feh + (s.feh_error > 0 ? rng.normal(0.0, s.feh_error) : 0.0));
@@ -166,8 +169,8 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
       const double m = r.alpha + r.beta * (logp_f - s.pivot_log_period) + r.gamma * feh + r.sigma_int * u + mu +
                        rng.normal(0.0, s.mag_error) + r.extinction_per_ebv * ebv_off -
                        coloured_brightening(brightening, r.companion_colour);
-      t.column("mag0_" + r.name).push_real(m);
-      t.column("mag0_err_" + r.name).push_real(std::hypot(s.mag_error, r.extinction_per_ebv * s.ebv_error));
+      t.column(dereddened_magnitude_column(r.name)).push_real(m);
+      t.column(dereddened_magnitude_error_column(r.name)).push_real(std::hypot(s.mag_error, r.extinction_per_ebv * s.ebv_error));
     }
   };
   for (int i = 0; i < s.stars; ++i) add_star(field_rng, fmt::format("MOCK-{:05d}", i), "", 0.0);
@@ -180,13 +183,14 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
 
 StarTable mock_coefficients(const MockScenario& s) {
   StarTable t;
-  t.add_column("name", ColumnType::kText);
-  t.add_column("a_over_ebv", ColumnType::kReal);
-  t.column("name").push_text("X");
-  t.column("a_over_ebv").push_real(s.extinction_per_ebv);
+  namespace C = coefficient_col;
+  t.add_column(C::kName, ColumnType::kText);
+  t.add_column(C::kAOverEbv, ColumnType::kReal);
+  t.column(C::kName).push_text("X");
+  t.column(C::kAOverEbv).push_real(s.extinction_per_ebv);
   for (const auto& r : s.more_relations) {
-    t.column("name").push_text(r.name);
-    t.column("a_over_ebv").push_real(r.extinction_per_ebv);
+    t.column(C::kName).push_text(r.name);
+    t.column(C::kAOverEbv).push_real(r.extinction_per_ebv);
   }
   return t;
 }

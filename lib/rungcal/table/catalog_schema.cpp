@@ -9,28 +9,28 @@ const std::vector<QuantitySpec>& catalog_quantities() {
   using K = QuantityKind;
   using T = ColumnType;
   static const std::vector<QuantitySpec> kSpecs = {
-      {"id", "id", T::kText, K::kDimensionless, "star identifier (unique)"},
-      {"period", "period_d", T::kReal, K::kPeriod, "pulsation period"},
-      {"period_err", "period_err_d", T::kReal, K::kPeriod, "period uncertainty"},
-      {"mode", "mode", T::kText, K::kDimensionless, "pulsation mode"},
-      {"pulsator_class", "pulsator_class", T::kText, K::kDimensionless, "class of pulsator"},
-      {"group", "group", T::kText, K::kDimensionless, "cluster or host galaxy"},
-      {"ra", "ra_deg", T::kReal, K::kAngle, "right ascension"},
-      {"dec", "dec_deg", T::kReal, K::kAngle, "declination"},
-      {"parallax", "parallax_mas", T::kReal, K::kParallax, "trigonometric parallax as published"},
-      {"parallax_err", "parallax_err_mas", T::kReal, K::kParallax, "parallax uncertainty"},
-      {"gaia_g", "gaia_g_mag", T::kReal, K::kMagnitude, "Gaia G (parallax zero-point input)"},
-      {"nu_eff", "nu_eff_um", T::kReal, K::kWavenumber, "effective wavenumber (5-parameter zero point)"},
-      {"pseudocolour", "pseudocolour_um", T::kReal, K::kWavenumber, "pseudocolour (6-parameter zero point)"},
-      {"ecl_lat", "ecl_lat_deg", T::kReal, K::kAngle, "ecliptic latitude (zero-point input)"},
-      {"astrometric_params", "astrometric_params", T::kInteger, K::kDimensionless, "astrometric parameters solved (5 or 6; 31/95 bit masks accepted)"},
-      {"ruwe", "ruwe", T::kReal, K::kDimensionless, "renormalised unit weight error"},
-      {"ebv", "ebv", T::kReal, K::kMagnitude, "colour excess E(B-V)"},
-      {"ebv_err", "ebv_err", T::kReal, K::kMagnitude, "E(B-V) uncertainty"},
-      {"feh", "feh", T::kReal, K::kDex, "metallicity [Fe/H]"},
-      {"feh_err", "feh_err", T::kReal, K::kDex, "[Fe/H] uncertainty"},
-      {"mu", "mu_mag", T::kReal, K::kMagnitude, "known distance modulus (non-parallax calibrators)"},
-      {"mu_err", "mu_err_mag", T::kReal, K::kMagnitude, "distance modulus uncertainty"},
+      {"id", col::kId, T::kText, K::kDimensionless, "star identifier (unique)"},
+      {"period", col::kPeriod, T::kReal, K::kPeriod, "pulsation period"},
+      {"period_err", col::kPeriodErr, T::kReal, K::kPeriod, "period uncertainty"},
+      {"mode", col::kMode, T::kText, K::kDimensionless, "pulsation mode"},
+      {"pulsator_class", col::kClass, T::kText, K::kDimensionless, "class of pulsator"},
+      {"group", col::kGroup, T::kText, K::kDimensionless, "cluster or host galaxy"},
+      {"ra", col::kRa, T::kReal, K::kAngle, "right ascension"},
+      {"dec", col::kDec, T::kReal, K::kAngle, "declination"},
+      {"parallax", col::kParallax, T::kReal, K::kParallax, "trigonometric parallax as published"},
+      {"parallax_err", col::kParallaxErr, T::kReal, K::kParallax, "parallax uncertainty"},
+      {"gaia_g", col::kGaiaG, T::kReal, K::kMagnitude, "Gaia G (parallax zero-point input)"},
+      {"nu_eff", col::kNuEff, T::kReal, K::kWavenumber, "effective wavenumber (5-parameter zero point)"},
+      {"pseudocolour", col::kPseudocolour, T::kReal, K::kWavenumber, "pseudocolour (6-parameter zero point)"},
+      {"ecl_lat", col::kEclLat, T::kReal, K::kAngle, "ecliptic latitude (zero-point input)"},
+      {"astrometric_params", col::kAstrometricParams, T::kInteger, K::kDimensionless, "astrometric parameters solved (5 or 6; 31/95 bit masks accepted)"},
+      {"ruwe", col::kRuwe, T::kReal, K::kDimensionless, "renormalised unit weight error"},
+      {"ebv", col::kEbv, T::kReal, K::kMagnitude, "colour excess E(B-V)"},
+      {"ebv_err", col::kEbvErr, T::kReal, K::kMagnitude, "E(B-V) uncertainty"},
+      {"feh", col::kFeh, T::kReal, K::kDex, "metallicity [Fe/H]"},
+      {"feh_err", col::kFehErr, T::kReal, K::kDex, "[Fe/H] uncertainty"},
+      {"mu", col::kMu, T::kReal, K::kMagnitude, "known distance modulus (non-parallax calibrators)"},
+      {"mu_err", col::kMuErr, T::kReal, K::kMagnitude, "distance modulus uncertainty"},
   };
   return kSpecs;
 }
@@ -60,5 +60,9 @@ void stamp_provenance(StarTable& table, const Provenance& p, const std::string& 
 
 std::string magnitude_column(const std::string& band) { return "mag_" + band; }
 std::string magnitude_error_column(const std::string& band) { return "mag_err_" + band; }
+std::string dereddened_magnitude_column(const std::string& band) { return "mag0_" + band; }
+std::string dereddened_magnitude_error_column(const std::string& band) { return "mag0_err_" + band; }
+std::string extinction_column(const std::string& band) { return "a_" + band; }
+std::string extinction_error_column(const std::string& band) { return "a_err_" + band; }
 
 }  // namespace rungcal
