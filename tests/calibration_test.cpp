@@ -91,6 +91,16 @@ TEST(Calibration, IdenticalContentMakesOneVersionChangedContentTheNext) {
   Calibration v2 = load_calibration(dir.file("store"), "mw-dr2@latest");
   EXPECT_EQ(v2.document["previous"]["version"], 1);
   EXPECT_EQ(load_calibration(dir.file("store"), "mw-dr2@1").version(), 1);
+  // A version is digits only: "1abc", "+1", " 1", "0" and "" name no version.
+  for (const char* bad : {"mw-dr2@1abc", "mw-dr2@+1", "mw-dr2@ 1", "mw-dr2@0", "mw-dr2@"}) {
+    try {
+      load_calibration(dir.file("store"), bad);
+      ADD_FAILURE() << bad << " was accepted";
+    } catch (const InputError& e) {
+      EXPECT_EQ(e.rule(), "unknown_calibration") << bad;
+    }
+    EXPECT_EQ(calibration_file(dir.file("store"), bad), "") << bad;
+  }
 }
 
 void expect_store_whole(const std::string& store, const std::string& name) {

@@ -10,6 +10,7 @@
 #include <cmath>
 #include <filesystem>
 #include <fstream>
+#include <optional>
 #include <regex>
 #include <sstream>
 #include <thread>
@@ -280,6 +281,15 @@ std::pair<std::string, std::string> split_reference(const std::string& reference
   return {reference.substr(0, at), at == std::string::npos ? "latest" : reference.substr(at + 1)};
 }
 
+// The N of "name@N": digits only, at least 1 (std::stoi alone took "3abc" as 3).
+std::optional<int> version_number(const std::string& which) {
+  if (which.empty() || which.size() > 9 ||
+      !std::all_of(which.begin(), which.end(), [](char c) { return c >= '0' && c <= '9'; }))
+    return std::nullopt;
+  const int n = std::stoi(which);
+  return n >= 1 ? std::optional<int>(n) : std::nullopt;
+}
+
 }  // namespace
 
 std::string calibration_folder(const std::string& store, const std::string& name) {
@@ -293,11 +303,7 @@ std::string calibration_file(const std::string& store, const std::string& refere
   if (which == "latest") {
     version = latest_link_version(folder);
   } else {
-    try {
-      version = std::stoi(which);  // as load_calibration reads it
-    } catch (const std::exception&) {
-      return "";
-    }
+    version = version_number(which);  // as load_calibration reads it
   }
   if (!version) return "";
   return (fs::path(folder) / version_folder(*version) / "calibration.json").string();
@@ -321,11 +327,11 @@ Calibration load_calibration(const std::string& store, const std::string& refere
     if (!v) throw InputError({folder.string(), {}, {}}, "unknown_calibration", "no published version (no 'latest' link)");
     version = *v;
   } else {
-    try {
-      version = std::stoi(which);
-    } catch (...) {
-      throw InputError({reference, {}, {}}, "unknown_calibration", "give name@latest or name@N");
-    }
+    const std::optional<int> n = version_number(which);
+    if (!n)
+      throw InputError({reference, {}, {}}, "unknown_calibration",
+                       "give name@latest or name@N (N a version number, 1 or more)");
+    version = *n;
   }
   fs::path file = folder / version_folder(version) / "calibration.json";
   if (!fs::exists(file))
