@@ -6,6 +6,9 @@
 
 #include <cmath>
 #include <filesystem>
+#include <map>
+
+#include <nlohmann/json.hpp>
 
 #include "mock_samples.hpp"
 #include "rungcal/core/error.hpp"
@@ -397,6 +400,18 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetAndAgreesWithEachRelation) {
   EXPECT_NEAR(std::sqrt(var) / e, 1.0, 0.35);
   auto json = test::read_text(dir.file("fit.json"));
   EXPECT_NE(json.find("\"joint\""), std::string::npos);
+  // Each joint parameter says how it entered the fit: the blend ratio free by default, the
+  // anchors' moduli with their published priors (config/demo/fit.toml).
+  const nlohmann::json doc = nlohmann::json::parse(json);
+  std::map<std::string, nlohmann::json> joint_params;
+  for (const auto& p : doc.at("joint").at("parameters")) joint_params[p.at("name").get<std::string>()] = p;
+  ASSERT_TRUE(joint_params.count("blend_ratio_W_G")) << doc.at("joint").at("parameter_names");
+  EXPECT_EQ(joint_params.at("blend_ratio_W_G").at("mode"), "free");
+  EXPECT_EQ(joint_params.at("alpha_W_VI").at("mode"), "free");
+  const auto anchor = joint_params.find("mu_Corran Cloud");
+  ASSERT_NE(anchor, joint_params.end());
+  EXPECT_EQ(anchor->second.at("mode"), "prior");
+  EXPECT_DOUBLE_EQ(anchor->second.at("prior").at("mean").get<double>(), 18.5008);
   o.joint = true;
   o.relations.resize(1);
   EXPECT_NE(o.check().find("fit.joint"), std::string::npos);

@@ -254,6 +254,11 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
       record.error = e;
       record.bootstrap_error = standard_deviation(boot);
       set_percentiles(record, boot);
+      if (joint->method == "hierarchical") {  // the GLS fit has no per-parameter settings
+        const ParamSpec& spec = joint->settings.params[static_cast<std::size_t>(p)];
+        record.mode = spec.mode;
+        if (spec.mode == ParamMode::kPrior) record.prior = FitPriorRecord{spec.value, spec.prior_sigma};
+      }
       j[fit_key::kParameters].push_back(rungcal::to_json(record));
     }
     json cov = json::array();

@@ -118,11 +118,12 @@ struct FitPriorRecord {
   double sigma = 0;
 };
 
-// One fitted parameter, of a relation or of the joint fit (which records no mode or prior).
+// One fitted parameter, of a relation or of the joint fit (the GLS joint fit records no mode
+// or prior).
 struct FitParameterRecord {
   std::string name;
   double value = 0;
-  std::optional<ParamMode> mode;          // none in the joint fit's parameters
+  std::optional<ParamMode> mode;          // none in the GLS joint fit's parameters
   std::optional<double> error;            // null: no covariance error (undetermined, boundary)
   std::optional<double> bootstrap_error;  // null or absent without a bootstrap
   std::optional<double> p16, p50, p84;    // the bootstrap's percentiles, likewise
