@@ -63,6 +63,12 @@ nlohmann::json clusters_json(const FitOptions& o, const RelationResult& rr) {
 }
 
 // The bootstrap's 16th, 50th and 84th percentiles (none without resamples: written null).
+// How the parameter entered the fit: its mode, and its prior where it has one.
+void record_setting(FitParameterRecord& record, const ParamSpec& spec) {
+  record.mode = spec.mode;
+  if (spec.mode == ParamMode::kPrior) record.prior = FitPriorRecord{spec.value, spec.prior_sigma};
+}
+
 void set_percentiles(FitParameterRecord& record, const std::vector<double>& boot) {
   record.p16 = percentile(boot, 0.16);
   record.p50 = percentile(boot, 0.50);
@@ -84,11 +90,10 @@ FitRelationRecord relation_record(const RelationResult& rr) {
     FitParameterRecord p;
     p.name = name;
     p.value = rr.solution.theta[j];
-    p.mode = spec.mode;
+    record_setting(p, spec);
     p.error = spec.mode == ParamMode::kFixed ? 0.0 : rr.error(name);
     p.bootstrap_error = rr.bootstrap_error(name);
     set_percentiles(p, bootstrap_column(rr, j));
-    if (spec.mode == ParamMode::kPrior) p.prior = FitPriorRecord{spec.value, spec.prior_sigma};
     if (std::find(rr.undetermined.begin(), rr.undetermined.end(), name) != rr.undetermined.end()) {
       p.determined = false;
       p.error.reset();
@@ -254,11 +259,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
       record.error = e;
       record.bootstrap_error = standard_deviation(boot);
       set_percentiles(record, boot);
-      if (joint->method == "hierarchical") {  // the GLS fit has no per-parameter settings
-        const ParamSpec& spec = joint->settings.params[static_cast<std::size_t>(p)];
-        record.mode = spec.mode;
-        if (spec.mode == ParamMode::kPrior) record.prior = FitPriorRecord{spec.value, spec.prior_sigma};
-      }
+      if (!joint->settings.params.empty())  // the GLS fit has no per-parameter settings
+        record_setting(record, joint->settings.params[static_cast<std::size_t>(p)]);
       j[fit_key::kParameters].push_back(rungcal::to_json(record));
     }
     json cov = json::array();
