@@ -416,8 +416,8 @@ print(1 + [i for i, l in enumerate(lines) if l and not l.startswith("#")][2])
 // Writes the Gaia files, edits `file` with `editor`, runs the stage on it and checks that it
 // stops with exit code 2 and the case's rule, names what the case says and the file (or the
 // config, for a config rule), and writes nothing. Returns what the editor printed.
-std::string expect_stop_on_edited(const GaiaBadCase& c, const char* editor,
-                                  const std::string& file, std::string& stage_output) {
+std::string expect_stop_on_edited(const GaiaBadCase& c, const char* editor, const std::string& file,
+                                  std::string& stage_output) {
   test::TempDir dir;
   write_gaia_files(dir);
   const auto edit = test::run_python(editor, {dir.file(file), c.python_edit});
@@ -461,8 +461,7 @@ std::vector<GaiaBadCase> gaia_flat_bad_cases() {
       {"FlagThatIsNoFlag",
        "t['rejected_by_variability'] = t['rejected_by_variability'].astype(str); "
        "t['rejected_by_variability'][6] = 'maybe'",
-       "", "not_a_flag",
-       "line 8: column 'rejected_by_variability'"},
+       "", "not_a_flag", "line 8: column 'rejected_by_variability'"},
       {"TimeThatIsNoNumber", "t['time'] = t['time'].astype('U24'); t['time'][2] = 'soon'", "",
        "not_a_number", "line 4: column 'time'"},
   };

@@ -49,8 +49,8 @@ struct Reader {
   std::string file;
   XML_Parser parser = nullptr;
   std::vector<Field> fields;
-  int tables = 0;          // TABLE elements started
-  bool in_table = false;   // inside the first TABLE
+  int tables = 0;         // TABLE elements started
+  bool in_table = false;  // inside the first TABLE
   bool in_field = false;
   bool in_td = false;
   bool data_seen = false;  // TABLEDATA found
@@ -65,7 +65,8 @@ struct Reader {
 
   std::int64_t line() const { return static_cast<std::int64_t>(XML_GetCurrentLineNumber(parser)); }
 
-  [[noreturn]] void fail(const std::string& rule, const std::string& column, const std::string& message) const {
+  [[noreturn]] void fail(const std::string& rule, const std::string& column,
+                         const std::string& message) const {
     throw InputError({file, line(), column, "line"}, rule, message);
   }
 
@@ -90,9 +91,10 @@ struct Reader {
       if (const XML_Char* v = attribute(atts, "null")) fields.back().null_value = v;
     } else if (el == "BINARY" || el == "BINARY2" || el == "FITS") {
       fail("votable_table", "",
-           fmt::format("the table is serialized as {}; rungcal reads TABLEDATA (ask the archive for "
-                       "it, or convert with astropy: votable.writeto(..., tabledata_format='tabledata'))",
-                       el));
+           fmt::format(
+               "the table is serialized as {}; rungcal reads TABLEDATA (ask the archive for "
+               "it, or convert with astropy: votable.writeto(..., tabledata_format='tabledata'))",
+               el));
     } else if (el == "TABLEDATA") {
       open_columns();
     } else if (el == "TR" && data_seen) {
@@ -145,15 +147,15 @@ struct Reader {
       }
       if (!is_char && !f.arraysize.empty() && f.arraysize != "1") {
         f.usable = false;
-        const bool wanted = std::find(wanted_arrays.begin(), wanted_arrays.end(), f.name) !=
-                            wanted_arrays.end();
+        const bool wanted =
+            std::find(wanted_arrays.begin(), wanted_arrays.end(), f.name) != wanted_arrays.end();
         if (wanted && f.type != ColumnType::kText && !out.arrays.count(f.name)) {
           f.array = &out.arrays[f.name];
           f.array->unit = f.unit;
           f.array->logical = f.type == ColumnType::kBoolean;
         } else if (!out.arrays.count(f.name)) {
-          out.unusable_columns[f.name] =
-              fmt::format("an array column (arraysize {}): rungcal reads one value per star", f.arraysize);
+          out.unusable_columns[f.name] = fmt::format(
+              "an array column (arraysize {}): rungcal reads one value per star", f.arraysize);
         }
       }
       if (f.usable && out.table.has(f.name))
@@ -164,11 +166,13 @@ struct Reader {
 
   void add_row() {
     if (row.size() != fields.size())
-      throw InputError({file, tr_line, {}, "line"}, "field_count",
-                       fmt::format("a TR with {} TD where the TABLE has {} FIELDs", row.size(), fields.size()));
+      throw InputError(
+          {file, tr_line, {}, "line"}, "field_count",
+          fmt::format("a TR with {} TD where the TABLE has {} FIELDs", row.size(), fields.size()));
     for (std::size_t c = 0; c < fields.size(); ++c) {
       if (fields[c].array) {
-        fields[c].array->rows.push_back(row_empty[c] ? std::vector<double>{} : array_values(fields[c], row[c]));
+        fields[c].array->rows.push_back(row_empty[c] ? std::vector<double>{}
+                                                     : array_values(fields[c], row[c]));
         continue;
       }
       if (!columns[c]) continue;
@@ -177,15 +181,18 @@ struct Reader {
       std::string_view v = row[c];
       if (col.type != ColumnType::kText) {  // numbers and logicals: spaces around do not count
         const auto b = v.find_first_not_of(" \t\r\n");
-        v = b == std::string_view::npos ? std::string_view() : v.substr(b, v.find_last_not_of(" \t\r\n") - b + 1);
+        v = b == std::string_view::npos ? std::string_view()
+                                        : v.substr(b, v.find_last_not_of(" \t\r\n") - b + 1);
       }
       if (row_empty[c] || v.empty() || (f.null_value && v == *f.null_value)) {
         col.push_null();
         continue;
       }
       auto lie = [&] {
-        throw InputError({file, tr_line, f.name, "line"}, "votable_value",
-                         fmt::format("'{}' is not a {} value, which the FIELD says the column holds", v, f.datatype));
+        throw InputError(
+            {file, tr_line, f.name, "line"}, "votable_value",
+            fmt::format("'{}' is not a {} value, which the FIELD says the column holds", v,
+                        f.datatype));
       };
       switch (col.type) {
         case ColumnType::kText:
@@ -232,7 +239,8 @@ struct Reader {
       const std::string_view x = cell.substr(b, e - b);
       i = e;
       // A bit array may be written without separators ("1001"; VOTable 1.4, section 2.1).
-      if (f.datatype == "bit" && x.size() > 1 && x.find_first_not_of("01") == std::string_view::npos) {
+      if (f.datatype == "bit" && x.size() > 1 &&
+          x.find_first_not_of("01") == std::string_view::npos) {
         for (char ch : x) v.push_back(ch == '1' ? 1.0 : 0.0);
         continue;
       }
@@ -255,9 +263,10 @@ struct Reader {
   }
 
   [[noreturn]] void bad_element(const Field& f, std::string_view x) const {
-    throw InputError({file, tr_line, f.name, "line"}, "votable_value",
-                     fmt::format("array element '{}' is not a {} value, which the FIELD says the column holds",
-                                 x, f.datatype));
+    throw InputError(
+        {file, tr_line, f.name, "line"}, "votable_value",
+        fmt::format("array element '{}' is not a {} value, which the FIELD says the column holds",
+                    x, f.datatype));
   }
 };
 
@@ -265,7 +274,8 @@ struct Reader {
 
 bool has_votable_extension(const std::string& path) {
   std::string p = path;
-  std::transform(p.begin(), p.end(), p.begin(), [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
+  std::transform(p.begin(), p.end(), p.begin(),
+                 [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
   for (std::string e : {".vot", ".xml", ".votable"})
     if (p.size() >= e.size() && p.compare(p.size() - e.size(), e.size(), e) == 0) return true;
   return false;
@@ -318,12 +328,14 @@ SourceTable parse_votable_table(const std::string& content, const std::string& n
     const auto status = XML_Parse(r.parser, content.data() + pos, static_cast<int>(n), last);
     if (r.error) std::rethrow_exception(r.error);
     if (status == XML_STATUS_ERROR)
-      throw InputError({name, r.line(), {}, "line"}, "votable_xml",
-                       fmt::format("the XML does not parse: {}", XML_ErrorString(XML_GetErrorCode(r.parser))));
+      throw InputError(
+          {name, r.line(), {}, "line"}, "votable_xml",
+          fmt::format("the XML does not parse: {}", XML_ErrorString(XML_GetErrorCode(r.parser))));
     pos += n;
   } while (pos < content.size());
   if (r.tables == 0) throw InputError({name, {}, {}}, "votable_table", "the file has no TABLE");
-  if (!r.data_seen) throw InputError({name, {}, {}}, "votable_table", "the first TABLE has no TABLEDATA");
+  if (!r.data_seen)
+    throw InputError({name, {}, {}}, "votable_table", "the first TABLE has no TABLEDATA");
   return std::move(r.out);
 }
 

@@ -19,11 +19,13 @@ bool has_votable_extension(const std::string& path);
 // NaN and a value equal to the FIELD's <VALUES null="..."/> are nulls. Array FIELDs
 // (arraysize on a non-character type) are listed as unusable, unless named in `arrays`:
 // those are read into SourceTable::arrays, a TD's elements separated by whitespace
-// (VOTable 1.4, section 6.1), an element equal to the null value or "NaN" a NaN. Throws InputError naming the
-// file, line and column: "unreadable_file", "votable_xml" (malformed XML), "votable_table"
-// (no TABLE, no FIELD, or a serialization other than TABLEDATA), "field_count" (a TR with
-// more or fewer TDs than FIELDs), "votable_value" (a value that is not of its FIELD's type).
-SourceTable read_votable_table(const std::string& path, const std::vector<std::string>& arrays = {});
+// (VOTable 1.4, section 6.1), an element equal to the null value or "NaN" a NaN. Throws InputError
+// naming the file, line and column: "unreadable_file", "votable_xml" (malformed XML),
+// "votable_table" (no TABLE, no FIELD, or a serialization other than TABLEDATA), "field_count" (a
+// TR with more or fewer TDs than FIELDs), "votable_value" (a value that is not of its FIELD's
+// type).
+SourceTable read_votable_table(const std::string& path,
+                               const std::vector<std::string>& arrays = {});
 SourceTable parse_votable_table(const std::string& content, const std::string& name,
                                 const std::vector<std::string>& arrays = {});
 
