@@ -12,14 +12,15 @@ build_pkgs=(g++ cmake make pkg-config git libceres-dev libeigen3-dev libccfits-d
   libcfitsio-dev libspdlog-dev libfmt-dev libgtest-dev libgmock-dev libcli11-dev
   libtomlplusplus-dev nlohmann-json3-dev libssl-dev libcairo2-dev libyaml-dev libexpat1-dev fonts-dejavu-core
   pybind11-dev python3-dev python3-numpy)
-# python3-pytest: the Python module's tests (python/tests, through ctest); openmpi: the suite
+# clang-format, clang-tidy: the style check (scripts/check-style.sh); python3-pytest: the
+# Python module's tests (python/tests, through ctest); openmpi: the suite
 # runs the MPI stages on two local ranks (the build finds it and turns RUNGCAL_MPI on); bc:
 # the MPI benchmark script; chromium: the status page is rendered headless in a test;
 # texlive-*: pdflatex with AASTeX (texlive-publishers), which needs epsf.sty
 # (texlive-plain-generic) and Helvetica metrics (texlive-fonts-recommended), so the paper
 # tables are compiled in a test.
 test_pkgs=(python3 python3-numpy python3-pytest python3-astropy python3-scipy python3-extinction
-  python3-statsmodels clang openmpi-bin libopenmpi-dev bc chromium
+  python3-statsmodels clang clang-format clang-tidy openmpi-bin libopenmpi-dev bc chromium
   texlive-latex-base texlive-publishers texlive-plain-generic texlive-fonts-recommended)
 
 pkgs=("${build_pkgs[@]}")

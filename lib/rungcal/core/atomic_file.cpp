@@ -6,7 +6,6 @@
 #include <sys/file.h>
 #include <sys/random.h>
 #include <sys/stat.h>
-#include <time.h>
 #include <unistd.h>
 
 #include <algorithm>
@@ -14,6 +13,7 @@
 #include <cerrno>
 #include <cstdio>
 #include <cstring>
+#include <ctime>
 #include <filesystem>
 #include <fstream>
 #include <mutex>
@@ -260,7 +260,7 @@ AtomicOutput::~AtomicOutput() {
 
 std::string AtomicOutput::reopen_path() const {
 #ifdef __linux__
-  const std::string proc = fmt::format("/proc/self/fd/{}", fd_);
+  std::string proc = fmt::format("/proc/self/fd/{}", fd_);
   struct stat a {
   }, b{};
   if (::stat(proc.c_str(), &a) == 0 && ::fstat(fd_, &b) == 0 && a.st_ino == b.st_ino &&

@@ -263,7 +263,15 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   // stops the run at once, not halfway.
   StageOptions so(o);
   check_run_folder(o);
-  auto& [lc_opt, ingest, deredden, fit, grid, t_ingest, t_deredden] = so;
+  // Plain references, not a structured binding: the stage lambdas capture them, which
+  // clang before 16 refuses for bindings.
+  auto& lc_opt = so.lc_opt;
+  auto& ingest = so.ingest;
+  auto& deredden = so.deredden;
+  auto& fit = so.fit;
+  auto& grid = so.grid;
+  auto& t_ingest = so.t_ingest;
+  auto& t_deredden = so.t_deredden;
 
   FileLock lock(in_folder(o, ".run.lock"), o.lock_wait_seconds, "another rungcal-run");
   held_lock = true;

@@ -52,7 +52,7 @@ std::string note_if_new(const RunOptions& o, const std::vector<int>& versions,
                         const std::pair<int, std::string>& announced, RunOutcome& outcome) {
   const Calibration latest =
       load_calibration(o.store, fmt::format("{}@{}", o.calibration, outcome.version));
-  const std::string sha = latest.document.value(calibration_key::kContentSha256, "");
+  std::string sha = latest.document.value(calibration_key::kContentSha256, "");
   if (announced == std::make_pair(outcome.version, sha)) return sha;
   outcome.new_version = true;
   if (announced.first > outcome.version) outcome.rolled_back_from = announced.first;

@@ -193,7 +193,9 @@ void encode_column(const Column& col, std::size_t width, std::size_t r0, std::si
       // which astropy then hands its users as part of the value.
       const std::string* v = col.text.data() + r0;
       for (std::size_t i = 0; i < n; ++i, at += row_bytes)
-        if (!null[i]) std::memcpy(at, v[i].data(), std::min(v[i].size(), width));
+        if (!null[i])                   // a fixed-width field, NUL-padded, not NUL-terminated
+          std::memcpy(at, v[i].data(),  // NOLINT(bugprone-not-null-terminated-result)
+                      std::min(v[i].size(), width));
       break;
     }
   }
