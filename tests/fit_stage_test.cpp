@@ -8,6 +8,7 @@
 #include <filesystem>
 #include <map>
 
+#include <fmt/format.h>
 #include <nlohmann/json.hpp>
 
 #include "mock_samples.hpp"
@@ -15,6 +16,7 @@
 #include "rungcal/deredden/deredden.hpp"
 #include "rungcal/ingest/ingest.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "test_util.hpp"
 
@@ -324,10 +326,22 @@ rel = j["relations"][0]
 off = [p for p in rel["parameters"] if p["name"] == "parallax_offset_mas"][0]
 print(len(t), int(t["used"].sum()), j["schema_version"], rel["statistics"]["n_used"], rel["statistics"]["bootstrap_resamples"],
       round(off["value"] * 1e3), off["p16"] < off["value"] < off["p84"], j["provenance"]["stage"])
+print(",".join(t.colnames))
+print(",".join(Table.read(sys.argv[1], hdu="BOOTSTRAP").colnames))
 )",
                              {dir.file("fit_residuals.fits"), dir.file("fit.json")});
   ASSERT_EQ(py.exit_code, 0) << py.output;
   EXPECT_NE(py.output.find("46 46 1 46 50 -47 True fit"), std::string::npos) << py.output;
+  // The columns astropy finds are the schema's, in the documented order.
+  using namespace residual_col;
+  const std::string residual_columns =
+      fmt::format("{},{},{},{},{},{},{},{},{},{},{},{},{},{},{},{}", kRelation, kId, kKind, kReason,
+                  kUsed, kLogPeriodF, kM0, kM0Err, kAbsMagModel, kResidual, kParallaxCorrectedMas,
+                  kParallaxErrMas, kPredicted, kFeh, kGaiaGMag, kMembership);
+  EXPECT_NE(py.output.find(residual_columns + "\n"), std::string::npos) << py.output;
+  EXPECT_NE(py.output.find(fmt::format("{},{},{},{}\n", kRelation, kResample, kParameter, kValue)),
+            std::string::npos)
+      << py.output;
 }
 
 TEST(FitStage, BadInputsStopCleanly) {

@@ -25,6 +25,7 @@
 #include "rungcal/core/json_io.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace fs = std::filesystem;
@@ -425,7 +426,7 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
   fault_point("publish_json_written");
   write_calibration_fits(cal, (tmp / "calibration.fits").string());
   if (!o.residuals_path.empty())
-    copy_file_synced(o.residuals_path, (tmp / "fit_residuals.fits").string());
+    copy_file_synced(o.residuals_path, (tmp / kFitResidualsFileName).string());
   if (!o.config_path.empty()) write_file_atomically((tmp / "config.toml").string(), config_text);
   fsync_path(tmp.string());
   fault_point("publish_version_built");

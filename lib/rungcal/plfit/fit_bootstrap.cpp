@@ -24,6 +24,7 @@
 #include "rungcal/plfit/hierarchical.hpp"
 #include "rungcal/plfit/priors.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace rungcal::fit_parts {
@@ -181,19 +182,20 @@ std::vector<double> bootstrap_column(const RelationResult& rr, int j) {
 // statistic of them.
 StarTable bootstrap_table(const FitResult& result) {
   StarTable t;
-  t.add_column("relation", ColumnType::kText, "", "relation, or 'joint'");
-  t.add_column("resample", ColumnType::kInteger, "", "resample index b (seeded per b)");
-  t.add_column("parameter", ColumnType::kText);
-  t.add_column("value", ColumnType::kReal, "",
+  t.add_column(residual_col::kRelation, ColumnType::kText, "", "relation, or 'joint'");
+  t.add_column(residual_col::kResample, ColumnType::kInteger, "",
+               "resample index b (seeded per b)");
+  t.add_column(residual_col::kParameter, ColumnType::kText);
+  t.add_column(residual_col::kValue, ColumnType::kReal, "",
                "parameter's value in resample b (NaN: failed, or a cluster it did not draw)");
   auto add = [&](const std::string& relation, const std::vector<std::string>& names,
                  const Eigen::MatrixXd& samples) {
     for (Eigen::Index b = 0; b < samples.rows(); ++b)
       for (Eigen::Index j = 0; j < samples.cols(); ++j) {
-        t.column("relation").push_text(relation);
-        t.column("resample").push_integer(b);
-        t.column("parameter").push_text(names[static_cast<std::size_t>(j)]);
-        t.column("value").push_real(samples(b, j));
+        t.column(residual_col::kRelation).push_text(relation);
+        t.column(residual_col::kResample).push_integer(b);
+        t.column(residual_col::kParameter).push_text(names[static_cast<std::size_t>(j)]);
+        t.column(residual_col::kValue).push_real(samples(b, j));
       }
   };
   for (const auto& rr : result.relations) add(rr.relation.name, rr.layout.names, rr.bootstrap);

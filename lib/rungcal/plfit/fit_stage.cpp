@@ -24,6 +24,7 @@
 #include "rungcal/plfit/hierarchical.hpp"
 #include "rungcal/plfit/sandwich.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace rungcal {
@@ -245,49 +246,57 @@ FitResult fit_catalog_file(const FitOptions& o) {
   }
   // Residuals per star and relation.
   StarTable res;
-  for (const char* c : {"relation", "id", "kind", "reason"}) res.add_column(c, ColumnType::kText);
-  res.add_column("used", ColumnType::kBoolean);
-  res.add_column("log_period_f", ColumnType::kReal, "",
+  for (const char* c :
+       {residual_col::kRelation, residual_col::kId, residual_col::kKind, residual_col::kReason})
+    res.add_column(c, ColumnType::kText);
+  res.add_column(residual_col::kUsed, ColumnType::kBoolean);
+  res.add_column(residual_col::kLogPeriodF, ColumnType::kReal, "",
                  "log10 of the (fundamentalized) period in days");
-  res.add_column("m0", ColumnType::kReal, "mag", "magnitude the relation uses");
-  res.add_column("m0_err", ColumnType::kReal, "mag");
-  res.add_column("abs_mag_model", ColumnType::kReal, "mag", "relation's absolute magnitude");
-  res.add_column("residual", ColumnType::kReal, "", "normalised residual at the optimum");
-  res.add_column("parallax_corrected_mas", ColumnType::kReal, "mas", "parallax minus zero point");
-  res.add_column("parallax_err_mas", ColumnType::kReal, "mas", "inflated parallax error");
-  res.add_column("predicted", ColumnType::kReal, "",
+  res.add_column(residual_col::kM0, ColumnType::kReal, "mag", "magnitude the relation uses");
+  res.add_column(residual_col::kM0Err, ColumnType::kReal, "mag");
+  res.add_column(residual_col::kAbsMagModel, ColumnType::kReal, "mag",
+                 "relation's absolute magnitude");
+  res.add_column(residual_col::kResidual, ColumnType::kReal, "",
+                 "normalised residual at the optimum");
+  res.add_column(residual_col::kParallaxCorrectedMas, ColumnType::kReal, "mas",
+                 "parallax minus zero point");
+  res.add_column(residual_col::kParallaxErrMas, ColumnType::kReal, "mas",
+                 "inflated parallax error");
+  res.add_column(residual_col::kPredicted, ColumnType::kReal, "",
                  "photometric parallax (mas, parallax space) or predicted m0");
   // Where zero-point, offset and metallicity problems show: [Fe/H] and G beside each residual.
-  res.add_column("feh", ColumnType::kReal, "", "[Fe/H] (dex)");
-  res.add_column("gaia_g_mag", ColumnType::kReal, "mag");
-  res.add_column("membership", ColumnType::kReal, "",
+  res.add_column(residual_col::kFeh, ColumnType::kReal, "", "[Fe/H] (dex)");
+  res.add_column(residual_col::kGaiaGMag, ColumnType::kReal, "mag");
+  res.add_column(residual_col::kMembership, ColumnType::kReal, "",
                  "hierarchical fit: probability of being a member, not an outlier");
   for (const auto& rr : result.relations) {
     for (const auto& s : rr.stars) {
-      res.column("relation").push_text(rr.relation.name);
-      res.column("id").push_text(s.id);
+      res.column(residual_col::kRelation).push_text(rr.relation.name);
+      res.column(residual_col::kId).push_text(s.id);
       s.kind == CalibratorKind::kNone
-          ? res.column("kind").push_null()
-          : res.column("kind").push_text(std::string(kCalibratorKindNames.name(s.kind)));
-      s.reason.empty() ? res.column("reason").push_null()
-                       : res.column("reason").push_text(s.reason);
-      res.column("used").push_boolean(s.used);
-      res.column("log_period_f")
+          ? res.column(residual_col::kKind).push_null()
+          : res.column(residual_col::kKind)
+                .push_text(std::string(kCalibratorKindNames.name(s.kind)));
+      s.reason.empty() ? res.column(residual_col::kReason).push_null()
+                       : res.column(residual_col::kReason).push_text(s.reason);
+      res.column(residual_col::kUsed).push_boolean(s.used);
+      res.column(residual_col::kLogPeriodF)
           .push_real(s.kind == CalibratorKind::kNone && s.log_period == 0 ? std::nan("")
                                                                           : s.log_period);
-      res.column("m0").push_real(s.m0_err > 0 ? s.m0 : std::nan(""));
-      res.column("m0_err").push_real(s.m0_err > 0 ? s.m0_err : std::nan(""));
-      res.column("abs_mag_model").push_real(s.model_abs_mag);
-      res.column("residual").push_real(s.residual);
-      res.column("parallax_corrected_mas").push_real(s.plx);
-      res.column("parallax_err_mas").push_real(s.plx_err);
-      res.column("predicted").push_real(s.predicted);
-      res.column("feh").push_real(
-          in.table.has(col::kFeh) ? in.table.column(col::kFeh).as_real(s.row) : std::nan(""));
-      res.column("gaia_g_mag")
+      res.column(residual_col::kM0).push_real(s.m0_err > 0 ? s.m0 : std::nan(""));
+      res.column(residual_col::kM0Err).push_real(s.m0_err > 0 ? s.m0_err : std::nan(""));
+      res.column(residual_col::kAbsMagModel).push_real(s.model_abs_mag);
+      res.column(residual_col::kResidual).push_real(s.residual);
+      res.column(residual_col::kParallaxCorrectedMas).push_real(s.plx);
+      res.column(residual_col::kParallaxErrMas).push_real(s.plx_err);
+      res.column(residual_col::kPredicted).push_real(s.predicted);
+      res.column(residual_col::kFeh)
+          .push_real(in.table.has(col::kFeh) ? in.table.column(col::kFeh).as_real(s.row)
+                                             : std::nan(""));
+      res.column(residual_col::kGaiaGMag)
           .push_real(in.table.has(col::kGaiaG) ? in.table.column(col::kGaiaG).as_real(s.row)
                                                : std::nan(""));
-      res.column("membership").push_real(s.membership);
+      res.column(residual_col::kMembership).push_real(s.membership);
     }
   }
   stamp_provenance(res, result.provenance, "fit_residuals");
@@ -295,8 +304,8 @@ FitResult fit_catalog_file(const FitOptions& o) {
   if (!Cluster::world().writes_outputs()) return result;
   StarTable boot = bootstrap_table(result);
   stamp_provenance(boot, result.provenance, "fit_bootstrap");
-  std::vector<std::pair<std::string, const StarTable*>> hdus{{"RESIDUALS", &res}};
-  if (boot.rows() > 0) hdus.emplace_back("BOOTSTRAP", &boot);
+  std::vector<std::pair<std::string, const StarTable*>> hdus{{residuals_hdu::kResiduals, &res}};
+  if (boot.rows() > 0) hdus.emplace_back(residuals_hdu::kBootstrap, &boot);
   write_fits_tables(residuals, hdus);
   write_file_atomically(o.output_path, result.to_json(o).dump(2) + "\n");
   return result;

@@ -16,6 +16,7 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/report/figure_parts.hpp"
 #include "rungcal/report/likely_outlier.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 
 namespace rungcal {
 using namespace figure_parts;
@@ -176,22 +177,27 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   std::vector<Point> pts;
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
-    if (res.column("relation").text[i] != relation || res.column("m0").is_null(i) ||
-        res.column("log_period_f").is_null(i))
+    if (res.column(residual_col::kRelation).text[i] != relation ||
+        res.column(residual_col::kM0).is_null(i) ||
+        res.column(residual_col::kLogPeriodF).is_null(i))
       continue;
-    const std::string kind = res.column("kind").is_null(i) ? "" : res.column("kind").text[i];
-    const double m0 = res.column("m0").real[i], x = res.column("log_period_f").real[i];
+    const std::string kind =
+        res.column(residual_col::kKind).is_null(i) ? "" : res.column(residual_col::kKind).text[i];
+    const double m0 = res.column(residual_col::kM0).real[i],
+                 x = res.column(residual_col::kLogPeriodF).real[i];
     Point p{x,
             0,
             0,
             0,
-            res.column("residual").is_null(i) ? NAN : res.column("residual").real[i],
-            res.column("used").boolean[i] != 0,
+            res.column(residual_col::kResidual).is_null(i)
+                ? NAN
+                : res.column(residual_col::kResidual).real[i],
+            res.column(residual_col::kUsed).boolean[i] != 0,
             false};
     if (kind == kCalibratorKindNames.name(CalibratorKind::kParallax) &&
-        !res.column("parallax_corrected_mas").is_null(i)) {
-      const double pi = res.column("parallax_corrected_mas").real[i] - offset,
-                   e = res.column("parallax_err_mas").real[i];
+        !res.column(residual_col::kParallaxCorrectedMas).is_null(i)) {
+      const double pi = res.column(residual_col::kParallaxCorrectedMas).real[i] - offset,
+                   e = res.column(residual_col::kParallaxErrMas).real[i];
       if (!(pi > 0)) {  // no magnitude to plot: counted and said in the title
         ++s.not_drawn_points;
         continue;
@@ -201,10 +207,14 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
       p.lo = abs_mag(pi + e);  // a larger parallax: a nearer, so intrinsically fainter, star
       p.open_below = pi - e <= 0;
       p.hi = p.open_below ? p.y - 2.0 : abs_mag(pi - e);
-    } else if (!res.column("predicted").is_null(i) && !res.column("abs_mag_model").is_null(i)) {
-      const double mu = res.column("predicted").real[i] - res.column("abs_mag_model").real[i];
+    } else if (!res.column(residual_col::kPredicted).is_null(i) &&
+               !res.column(residual_col::kAbsMagModel).is_null(i)) {
+      const double mu = res.column(residual_col::kPredicted).real[i] -
+                        res.column(residual_col::kAbsMagModel).real[i];
       p.y = m0 - mu;
-      const double e = res.column("m0_err").is_null(i) ? 0 : res.column("m0_err").real[i];
+      const double e = res.column(residual_col::kM0Err).is_null(i)
+                           ? 0
+                           : res.column(residual_col::kM0Err).real[i];
       p.lo = p.y + e, p.hi = p.y - e;
     } else {
       continue;
@@ -333,22 +343,24 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
   const double offset = parameter(cal.relation_record(relation), "parallax_offset_mas");
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
-    if (res.column("relation").text[i] != relation || res.column("residual").is_null(i)) continue;
-    const double r = res.column("residual").real[i];
-    const bool used = res.column("used").boolean[i] != 0;
+    if (res.column(residual_col::kRelation).text[i] != relation ||
+        res.column(residual_col::kResidual).is_null(i))
+      continue;
+    const double r = res.column(residual_col::kResidual).real[i];
+    const bool used = res.column(residual_col::kUsed).boolean[i] != 0;
     auto add = [&](Series& p, const char* col, double transform_offset, bool snr) {
       if (!res.has(col) || res.column(col).is_null(i)) return;
       double x = res.column(col).real[i];
       if (snr) {
-        if (res.column("parallax_err_mas").is_null(i)) return;
-        x = (x - transform_offset) / res.column("parallax_err_mas").real[i];
+        if (res.column(residual_col::kParallaxErrMas).is_null(i)) return;
+        x = (x - transform_offset) / res.column(residual_col::kParallaxErrMas).real[i];
       }
       if (!std::isfinite(x)) return;
       p.x.push_back(x), p.r.push_back(r), p.used.push_back(used);
     };
-    add(panels[0], "feh", 0, false);
-    add(panels[1], "gaia_g_mag", 0, false);
-    add(panels[2], "parallax_corrected_mas", offset, true);
+    add(panels[0], residual_col::kFeh, 0, false);
+    add(panels[1], residual_col::kGaiaGMag, 0, false);
+    add(panels[2], residual_col::kParallaxCorrectedMas, offset, true);
     (used ? s.used_points : s.rejected_points) += 1;
   }
   std::vector<Series*> shown;

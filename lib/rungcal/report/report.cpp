@@ -16,6 +16,7 @@
 #include "rungcal/core/file_names.hpp"
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/lightcurve_schema.hpp"
 
@@ -24,7 +25,7 @@ namespace {
 
 // The residuals published beside a version's calibration.json.
 std::string residuals_beside(const std::string& calibration_json) {
-  return (std::filesystem::path(calibration_json).parent_path() / "fit_residuals.fits").string();
+  return (std::filesystem::path(calibration_json).parent_path() / kFitResidualsFileName).string();
 }
 
 std::string residuals_of(const std::string& store, const Calibration& c) {
@@ -73,7 +74,8 @@ ReportInputs read_report_inputs(const ReportOptions& o) {
   for (const auto& c : o.calibrations) in.versions.push_back(load_calibration(o.store, c));
   const std::string residuals = residuals_of(o.store, in.versions.back());
   in.have_residuals = std::filesystem::exists(residuals);
-  if (in.have_residuals) in.residuals = read_fits_table(residuals, {"RESIDUALS", 0}).table;
+  if (in.have_residuals)
+    in.residuals = read_fits_table(residuals, {residuals_hdu::kResiduals, 0}).table;
   if (!o.grid.empty()) {
     in.budget = read_json_file(o.grid);  // depth-capped (issue 15)
     if (!(in.budget->is_object() && in.budget->contains("schema") &&

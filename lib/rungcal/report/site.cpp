@@ -22,6 +22,7 @@
 #include "rungcal/report/likely_outlier.hpp"
 #include "rungcal/report/run_history.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace fs = std::filesystem;
@@ -180,7 +181,7 @@ std::string history_section(const SiteOptions& o, const Versions& v) {
 
 std::string residuals_path(const SiteOptions& o, const Calibration& c) {
   return (fs::path(o.store) / o.calibration / fmt::format("v{:04d}", c.version()) /
-          "fit_residuals.fits")
+          kFitResidualsFileName)
       .string();
 }
 
@@ -259,9 +260,10 @@ std::string stars_section(const SiteOptions& o, const Versions& v, const StarTab
   if (residuals)
     for (std::size_t i = 0; i < residuals->rows(); ++i)
       if (likely_outlier(*residuals, i))
-        fit.rows.push_back({residuals->column("relation").text[i], residuals->column("id").text[i],
+        fit.rows.push_back({residuals->column(residual_col::kRelation).text[i],
+                            residuals->column(residual_col::kId).text[i],
                             fmt::format("likely outlier: membership {:.2f}",
-                                        residuals->column("membership").real[i])});
+                                        residuals->column(residual_col::kMembership).real[i])});
   out += fit.rows.empty() ? "<p>The fit refused no star and flags none.</p>\n" : html_table(fit);
   const std::string catalog = o.run_folder.empty() ? "" : o.run_folder + "/catalog.fits";
   if (!catalog.empty() && fs::exists(catalog)) {
@@ -349,7 +351,7 @@ SiteOutcome write_site(const SiteOptions& o) {
   outcome.versions = static_cast<int>(v.shown.size());
   std::optional<StarTable> residuals;
   if (fs::exists(residuals_path(o, v.latest)))
-    residuals = read_fits_table(residuals_path(o, v.latest), {"RESIDUALS", 0}).table;
+    residuals = read_fits_table(residuals_path(o, v.latest), {residuals_hdu::kResiduals, 0}).table;
   const StarTable* res = residuals ? &*residuals : nullptr;
   // Assets first, the page last: the page never names a figure that is not there yet.
   write_file_atomically(o.out_dir + "/site.css", kStyle);

@@ -6,6 +6,7 @@
 #include <fmt/format.h>
 
 #include "rungcal/report/likely_outlier.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 
 namespace rungcal {
 namespace {
@@ -241,10 +242,11 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
 
 // True when the residuals carry the hierarchical fit's membership probabilities.
 bool has_membership(const StarTable& t, const std::string& relation) {
-  if (!t.has("membership")) return false;
+  if (!t.has(residual_col::kMembership)) return false;
   for (std::size_t i = 0; i < t.rows(); ++i)
-    if (t.column("relation").text[i] == relation && !t.column("membership").is_null(i) &&
-        std::isfinite(t.column("membership").real[i]))
+    if (t.column(residual_col::kRelation).text[i] == relation &&
+        !t.column(residual_col::kMembership).is_null(i) &&
+        std::isfinite(t.column(residual_col::kMembership).real[i]))
       return true;
   return false;
 }
@@ -268,19 +270,21 @@ std::string star_table(const StarTable& t, const std::string& relation, TableFor
     return fmt::format("{:.{}f}", t.column(col).real[i], decimals);
   };
   for (std::size_t i = 0; i < t.rows(); ++i) {
-    if (t.column("relation").text[i] != relation) continue;
-    const bool used = t.column("used").boolean[i] != 0;
-    std::string id = t.column("id").text[i],
-                reason = t.column("reason").is_null(i) ? "" : t.column("reason").text[i];
+    if (t.column(residual_col::kRelation).text[i] != relation) continue;
+    const bool used = t.column(residual_col::kUsed).boolean[i] != 0;
+    std::string id = t.column(residual_col::kId).text[i],
+                reason = t.column(residual_col::kReason).is_null(i)
+                             ? ""
+                             : t.column(residual_col::kReason).text[i];
     if (likely_outlier(t, i)) reason = "likely outlier or blend";
     if (f == TableFormat::kLatex) id = escape_latex(id), reason = escape_latex(reason);
     std::vector<std::string> row{id,
-                                 num("log_period_f", i, 4),
-                                 num("m0", i, 3),
-                                 num("parallax_corrected_mas", i, 4),
-                                 num("parallax_err_mas", i, 4),
-                                 num("residual", i, 2)};
-    if (membership) row.push_back(num("membership", i, 2));
+                                 num(residual_col::kLogPeriodF, i, 4),
+                                 num(residual_col::kM0, i, 3),
+                                 num(residual_col::kParallaxCorrectedMas, i, 4),
+                                 num(residual_col::kParallaxErrMas, i, 4),
+                                 num(residual_col::kResidual, i, 2)};
+    if (membership) row.push_back(num(residual_col::kMembership, i, 2));
     row.push_back(used ? "yes" : "no");
     row.push_back(reason);
     g.rows.push_back(row);

@@ -22,6 +22,7 @@
 #include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/report/report.hpp"
 #include "rungcal/run/run_parts.hpp"
+#include "rungcal/table/fit_residuals_schema.hpp"
 
 namespace fs = std::filesystem;
 
@@ -202,7 +203,7 @@ struct StageOptions {
     fit = fit_options_from_file(o.fit_config);
     fit.input_path = deredden.output_path;
     fit.output_path = in_folder(o, "fit.json");
-    fit.residuals_path = in_folder(o, "fit_residuals.fits");
+    fit.residuals_path = in_folder(o, kFitResidualsFileName);
     // The run's count is every bootstrap's, the joint fit's too.
     if (o.fit_bootstrap >= 0) fit.bootstrap = o.fit_bootstrap, fit.joint_bootstrap = -1;
     check_apply_relation(o, fit);  // before anything is written (issue 15)
