@@ -1,6 +1,8 @@
 // SPDX-License-Identifier: MIT
-// VOTable reader (TABLEDATA). Format: IVOA Recommendation "VOTable Format Definition",
-// version 1.4 (2019), sections 4 (FIELD), 5 (VALUES) and 6 (TABLEDATA).
+// VOTable reader: the XML, the FIELDs and TABLEDATA; the rows of a BINARY or BINARY2
+// STREAM are read by votable_binary.cpp. Format: IVOA Recommendation "VOTable Format
+// Definition", version 1.4 (2019), sections 4 (FIELD), 5 (VALUES, the binary
+// serializations) and 6 (TABLEDATA).
 #include "rungcal/table/votable_io.hpp"
 
 #include <expat.h>
@@ -17,19 +19,15 @@
 #include <fmt/format.h>
 
 #include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/base64.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/table/text_io.hpp"
+#include "rungcal/table/votable_parts.hpp"
 
 namespace rungcal {
 namespace {
 
-struct Field {
-  std::string name, datatype, unit, arraysize;
-  std::optional<std::string> null_value;  // <VALUES null="...">
-  ColumnType type = ColumnType::kText;
-  bool usable = true;
-  ArrayColumn* array = nullptr;  // an array FIELD asked for by name
-};
+using Field = VotableField;
 
 // An element name without its namespace prefix ("vot:TD" -> "TD").
 std::string_view local(const XML_Char* name) {
@@ -49,11 +47,16 @@ struct Reader {
   std::string file;
   XML_Parser parser = nullptr;
   std::vector<Field> fields;
-  int tables = 0;          // TABLE elements started
-  bool in_table = false;   // inside the first TABLE
+  int tables = 0;         // TABLE elements started
+  bool in_table = false;  // inside the first TABLE
   bool in_field = false;
   bool in_td = false;
-  bool data_seen = false;  // TABLEDATA found
+  bool data_seen = false;               // TABLEDATA, BINARY or BINARY2 found
+  std::optional<VotableStream> binary;  // the serialization, when binary
+  bool in_stream = false;
+  bool stream_seen = false;
+  std::int64_t stream_line = 0;     // the line of the STREAM's start tag
+  bool written_by_astropy = false;  // an XML comment names astropy.io.votable
   std::int64_t tr_line = 0;
   std::vector<std::string> row;
   std::vector<std::uint8_t> row_empty;  // a TD without text (or an empty <TD/>)
@@ -65,7 +68,8 @@ struct Reader {
 
   std::int64_t line() const { return static_cast<std::int64_t>(XML_GetCurrentLineNumber(parser)); }
 
-  [[noreturn]] void fail(const std::string& rule, const std::string& column, const std::string& message) const {
+  [[noreturn]] void fail(const std::string& rule, const std::string& column,
+                         const std::string& message) const {
     throw InputError({file, line(), column, "line"}, rule, message);
   }
 
@@ -88,18 +92,25 @@ struct Reader {
       in_field = true;
     } else if (el == "VALUES" && in_field) {
       if (const XML_Char* v = attribute(atts, "null")) fields.back().null_value = v;
-    } else if (el == "BINARY" || el == "BINARY2" || el == "FITS") {
+    } else if (el == "FITS") {
       fail("votable_table", "",
-           fmt::format("the table is serialized as {}; rungcal reads TABLEDATA (ask the archive for "
-                       "it, or convert with astropy: votable.writeto(..., tabledata_format='tabledata'))",
-                       el));
-    } else if (el == "TABLEDATA") {
+           "the table is serialized as FITS inside the VOTable; rungcal reads TABLEDATA, BINARY "
+           "and BINARY2 (ask the archive for one of them, or convert with astropy: "
+           "votable.writeto(..., tabledata_format='binary2'))");
+    } else if ((el == "BINARY" || el == "BINARY2") && !data_seen) {
+      binary = el == "BINARY" ? VotableStream::kBinary : VotableStream::kBinary2;
+      refuse_unpacked_bit_arrays();
       open_columns();
-    } else if (el == "TR" && data_seen) {
+      out.row_label = "row";
+    } else if (el == "STREAM" && binary && !stream_seen) {
+      open_stream(atts);
+    } else if (el == "TABLEDATA" && !data_seen) {
+      open_columns();
+    } else if (el == "TR" && data_seen && !binary) {
       tr_line = line();
       row.clear();
       row_empty.clear();
-    } else if (el == "TD" && data_seen) {
+    } else if (el == "TD" && data_seen && !binary) {
       in_td = true;
       text.clear();
     }
@@ -118,9 +129,58 @@ struct Reader {
       row_empty.push_back(text.empty() ? 1 : 0);
       row.push_back(std::move(text));
       text.clear();
-    } else if (el == "TR" && data_seen) {
+    } else if (el == "TR" && data_seen && !binary) {
       add_row();
+    } else if (el == "STREAM" && in_stream) {
+      close_stream();
     }
+  }
+
+  // A variable-length bit array is packed, eight elements to a byte (VOTable 1.4, section
+  // 5.3; memory), but astropy.io.votable (5.2, Debian 12) writes one byte per element. The
+  // stream does not say which, and reading one as the other shifts every later value, so a
+  // file that names astropy as its writer and has such a FIELD stops here.
+  void refuse_unpacked_bit_arrays() const {
+    if (!written_by_astropy) return;
+    for (const auto& f : fields)
+      if (f.datatype == "bit" && !f.arraysize.empty() && f.arraysize.back() == '*')
+        fail("votable_table", f.name,
+             "a variable-length bit array in a binary stream written by astropy.io.votable, "
+             "which writes one byte per element where VOTable packs eight: rungcal cannot tell "
+             "which the file holds (write the column as datatype boolean, or in TABLEDATA)");
+  }
+
+  // VOTable 1.4, section 5.1: a STREAM holds the data itself, base64-encoded, or points to
+  // them with href. rungcal reads the first kind only.
+  void open_stream(const XML_Char** atts) {
+    stream_seen = true;
+    if (const XML_Char* href = attribute(atts, "href"))
+      fail("votable_table", "",
+           fmt::format("the table's STREAM points to data outside the file ({}); rungcal reads a "
+                       "STREAM whose data are inside it (download the data, or ask the archive for "
+                       "TABLEDATA or an inline BINARY2 stream)",
+                       href));
+    const XML_Char* encoding = attribute(atts, "encoding");
+    if (!encoding || std::string_view(encoding) != "base64")
+      fail("votable_table", "",
+           fmt::format("the table's STREAM has encoding '{}'; rungcal reads encoding=\"base64\"",
+                       encoding ? encoding : "(none)"));
+    in_stream = true;
+    stream_line = line();
+    text.clear();
+  }
+
+  void close_stream() {
+    in_stream = false;
+    const Base64Decoded decoded = decode_base64(text);
+    if (!decoded.ok()) {
+      const auto before = std::string_view(text).substr(0, *decoded.bad_offset);
+      const auto line_of_error = stream_line + std::count(before.begin(), before.end(), '\n');
+      throw InputError({file, line_of_error, {}, "line"}, "votable_base64",
+                       fmt::format("the STREAM is not base64: {}", decoded.problem));
+    }
+    text.clear();
+    read_votable_binary_rows(decoded.bytes, *binary, fields, columns, file, out);
   }
 
   void open_columns() {
@@ -145,15 +205,15 @@ struct Reader {
       }
       if (!is_char && !f.arraysize.empty() && f.arraysize != "1") {
         f.usable = false;
-        const bool wanted = std::find(wanted_arrays.begin(), wanted_arrays.end(), f.name) !=
-                            wanted_arrays.end();
+        const bool wanted =
+            std::find(wanted_arrays.begin(), wanted_arrays.end(), f.name) != wanted_arrays.end();
         if (wanted && f.type != ColumnType::kText && !out.arrays.count(f.name)) {
           f.array = &out.arrays[f.name];
           f.array->unit = f.unit;
           f.array->logical = f.type == ColumnType::kBoolean;
         } else if (!out.arrays.count(f.name)) {
-          out.unusable_columns[f.name] =
-              fmt::format("an array column (arraysize {}): rungcal reads one value per star", f.arraysize);
+          out.unusable_columns[f.name] = fmt::format(
+              "an array column (arraysize {}): rungcal reads one value per star", f.arraysize);
         }
       }
       if (f.usable && out.table.has(f.name))
@@ -164,11 +224,13 @@ struct Reader {
 
   void add_row() {
     if (row.size() != fields.size())
-      throw InputError({file, tr_line, {}, "line"}, "field_count",
-                       fmt::format("a TR with {} TD where the TABLE has {} FIELDs", row.size(), fields.size()));
+      throw InputError(
+          {file, tr_line, {}, "line"}, "field_count",
+          fmt::format("a TR with {} TD where the TABLE has {} FIELDs", row.size(), fields.size()));
     for (std::size_t c = 0; c < fields.size(); ++c) {
       if (fields[c].array) {
-        fields[c].array->rows.push_back(row_empty[c] ? std::vector<double>{} : array_values(fields[c], row[c]));
+        fields[c].array->rows.push_back(row_empty[c] ? std::vector<double>{}
+                                                     : array_values(fields[c], row[c]));
         continue;
       }
       if (!columns[c]) continue;
@@ -177,15 +239,18 @@ struct Reader {
       std::string_view v = row[c];
       if (col.type != ColumnType::kText) {  // numbers and logicals: spaces around do not count
         const auto b = v.find_first_not_of(" \t\r\n");
-        v = b == std::string_view::npos ? std::string_view() : v.substr(b, v.find_last_not_of(" \t\r\n") - b + 1);
+        v = b == std::string_view::npos ? std::string_view()
+                                        : v.substr(b, v.find_last_not_of(" \t\r\n") - b + 1);
       }
       if (row_empty[c] || v.empty() || (f.null_value && v == *f.null_value)) {
         col.push_null();
         continue;
       }
       auto lie = [&] {
-        throw InputError({file, tr_line, f.name, "line"}, "votable_value",
-                         fmt::format("'{}' is not a {} value, which the FIELD says the column holds", v, f.datatype));
+        throw InputError(
+            {file, tr_line, f.name, "line"}, "votable_value",
+            fmt::format("'{}' is not a {} value, which the FIELD says the column holds", v,
+                        f.datatype));
       };
       switch (col.type) {
         case ColumnType::kText:
@@ -232,7 +297,8 @@ struct Reader {
       const std::string_view x = cell.substr(b, e - b);
       i = e;
       // A bit array may be written without separators ("1001"; VOTable 1.4, section 2.1).
-      if (f.datatype == "bit" && x.size() > 1 && x.find_first_not_of("01") == std::string_view::npos) {
+      if (f.datatype == "bit" && x.size() > 1 &&
+          x.find_first_not_of("01") == std::string_view::npos) {
         for (char ch : x) v.push_back(ch == '1' ? 1.0 : 0.0);
         continue;
       }
@@ -255,9 +321,10 @@ struct Reader {
   }
 
   [[noreturn]] void bad_element(const Field& f, std::string_view x) const {
-    throw InputError({file, tr_line, f.name, "line"}, "votable_value",
-                     fmt::format("array element '{}' is not a {} value, which the FIELD says the column holds",
-                                 x, f.datatype));
+    throw InputError(
+        {file, tr_line, f.name, "line"}, "votable_value",
+        fmt::format("array element '{}' is not a {} value, which the FIELD says the column holds",
+                    x, f.datatype));
   }
 };
 
@@ -265,7 +332,8 @@ struct Reader {
 
 bool has_votable_extension(const std::string& path) {
   std::string p = path;
-  std::transform(p.begin(), p.end(), p.begin(), [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
+  std::transform(p.begin(), p.end(), p.begin(),
+                 [](unsigned char c) { return static_cast<char>(std::tolower(c)); });
   for (std::string e : {".vot", ".xml", ".votable"})
     if (p.size() >= e.size() && p.compare(p.size() - e.size(), e.size(), e) == 0) return true;
   return false;
@@ -307,7 +375,12 @@ SourceTable parse_votable_table(const std::string& content, const std::string& n
       });
   XML_SetCharacterDataHandler(r.parser, [](void* data, const XML_Char* s, int len) {
     auto* self = static_cast<Reader*>(data);
-    if (self->in_td) self->text.append(s, static_cast<std::size_t>(len));
+    if (self->in_td || self->in_stream) self->text.append(s, static_cast<std::size_t>(len));
+  });
+  XML_SetCommentHandler(r.parser, [](void* data, const XML_Char* comment) {
+    auto* self = static_cast<Reader*>(data);
+    if (std::string_view(comment).find("astropy.io.votable") != std::string_view::npos)
+      self->written_by_astropy = true;
   });
   // Fed in pieces: XML_Parse takes an int length.
   constexpr std::size_t kPiece = 1 << 20;
@@ -318,12 +391,17 @@ SourceTable parse_votable_table(const std::string& content, const std::string& n
     const auto status = XML_Parse(r.parser, content.data() + pos, static_cast<int>(n), last);
     if (r.error) std::rethrow_exception(r.error);
     if (status == XML_STATUS_ERROR)
-      throw InputError({name, r.line(), {}, "line"}, "votable_xml",
-                       fmt::format("the XML does not parse: {}", XML_ErrorString(XML_GetErrorCode(r.parser))));
+      throw InputError(
+          {name, r.line(), {}, "line"}, "votable_xml",
+          fmt::format("the XML does not parse: {}", XML_ErrorString(XML_GetErrorCode(r.parser))));
     pos += n;
   } while (pos < content.size());
   if (r.tables == 0) throw InputError({name, {}, {}}, "votable_table", "the file has no TABLE");
-  if (!r.data_seen) throw InputError({name, {}, {}}, "votable_table", "the first TABLE has no TABLEDATA");
+  if (!r.data_seen)
+    throw InputError({name, {}, {}}, "votable_table",
+                     "the first TABLE has no TABLEDATA, BINARY or BINARY2");
+  if (r.binary && !r.stream_seen)
+    throw InputError({name, {}, {}}, "votable_table", "the table's BINARY data have no STREAM");
   return std::move(r.out);
 }
 
