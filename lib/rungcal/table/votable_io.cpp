@@ -74,11 +74,18 @@ struct Reader {
   }
 
   void start(std::string_view el, const XML_Char** atts) {
+    if (in_stream)
+      fail("votable_table", "",
+           fmt::format("an element <{}> inside the STREAM, which holds base64 text only", el));
     if (el == "TABLE") {
       in_table = ++tables == 1;
       return;
     }
     if (!in_table) return;
+    // The columns are laid out when the data start: a FIELD after that (VOTable puts them
+    // before DATA) would have no column.
+    if (el == "FIELD" && data_seen)
+      fail("votable_table", "", "a FIELD after the table's data began (FIELDs come before DATA)");
     if (el == "FIELD") {
       Field f;
       const XML_Char* name = attribute(atts, "name");
