@@ -380,6 +380,30 @@ TEST(GaiaEpoch, TheStageReadsABinary2VotableAsTheArchiveSendsIt) {
   EXPECT_EQ(b.column("missing_BP").integer, (std::vector<std::int64_t>{2, 0}));
 }
 
+TEST(GaiaEpoch, ATruncatedBinary2StreamStopsTheStageNamingRowAndColumn) {
+  // gaia_binary2.vot with its stream cut 100 bytes short (decoded and encoded again with
+  // Python's base64): the second source's last arrays end early.
+  test::TempDir dir;
+  write_gaia_files(dir);
+  const auto cut = test::run_python(R"py(
+import base64, re, sys
+path = sys.argv[1]
+text = open(path).read()
+m = re.search(r"(<STREAM[^>]*>)(.*?)(</STREAM>)", text, re.S)
+short = base64.b64encode(base64.b64decode(m.group(2))[:-100]).decode()
+open(path, "w").write(text[:m.start(2)] + short + text[m.end(2):])
+)py",
+                                    {dir.file("gaia_binary2.vot")});
+  ASSERT_EQ(cut.exit_code, 0) << cut.output;
+  test::write_text(dir.file("lc.toml"), gaia_config("gaia_binary2.vot"));
+  const auto r = test::run_stage("lightcurve", "--config " + dir.file("lc.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("gaia_binary2.vot:row 2: column '"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("[votable_binary]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("truncated"), std::string::npos) << r.output;
+  EXPECT_FALSE(test::file_exists(dir.file("out")));
+}
+
 TEST(GaiaEpoch, FluxesWithoutMagnitudesGiveTheSameMagnitudes) {
   // The writer made its fluxes from the magnitudes with the same zero points: through
   // log10 and back the magnitudes agree to rounding.
