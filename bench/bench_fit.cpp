@@ -26,8 +26,8 @@ int main(int argc, char** argv) {
   std::ofstream csv(argv[3]);
   csv.precision(17);
   for (Eigen::Index i = 0; i < m.data.parallax.size(); ++i)
-    csv << m.data.parallax.x[i] << "," << m.data.parallax.m0[i] << "," << m.data.parallax.var_m[i] << "," << m.data.plx[i]
-        << "," << m.data.var_plx[i] << "\n";
+    csv << m.data.parallax.x[i] << "," << m.data.parallax.m0[i] << "," << m.data.parallax.var_m[i]
+        << "," << m.data.plx[i] << "," << m.data.var_plx[i] << "\n";
   csv.close();
   FitOptions o;
   o.input_path = "bench";
@@ -50,7 +50,8 @@ int main(int argc, char** argv) {
   std::printf("rungcal_fit_ms %.4f\n", fit_ms);
   std::printf("rungcal_ms_per_resample %.5f\n", boot_ms / resamples);
   std::printf("rungcal_threads %u\n", std::thread::hardware_concurrency());
-  std::printf("rungcal_params %.17g %.17g %.17g\n", rr.parameter("alpha"), rr.parameter("beta"), rr.parameter("parallax_offset_mas"));
+  std::printf("rungcal_params %.17g %.17g %.17g\n", rr.parameter("alpha"), rr.parameter("beta"),
+              rr.parameter("parallax_offset_mas"));
   std::printf("rungcal_sigma %.17g\n", m.truth.sigma);
   std::printf("bootstrap_failed %d\n", boot.relations[0].bootstrap_failed);
   return 0;

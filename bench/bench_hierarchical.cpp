@@ -151,7 +151,9 @@ int main(int argc, char** argv) {
   bench::print_direct_solves<Eigen::Index>(
       resamples, static_cast<std::size_t>(data.parallax.size()),
       [&](const std::vector<Eigen::Index>& idx) { return data.take(idx, {}, {}); },
-      [&](const FitData& sample) { return solve_fit(sample, relaxed, rr.layout, rr.solution.theta); },
+      [&](const FitData& sample) {
+        return solve_fit(sample, relaxed, rr.layout, rr.solution.theta);
+      },
       [&] { hierarchical_value(data, rr.settings, rr.layout, rr.solution.theta); });
   for (const char* name : {"alpha", "beta", "gamma", "parallax_offset_mas", "sigma_int"})
     std::printf("bootstrap_error %s %.6g\n", name, boot.relations[0].bootstrap_error(name));

@@ -17,8 +17,8 @@
 #include <fmt/format.h>
 
 #include "rungcal/core/log.hpp"
-#include "rungcal/ingest/ingest.hpp"
 #include "rungcal/core/random.hpp"
+#include "rungcal/ingest/ingest.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace {
@@ -111,8 +111,8 @@ int ingest(const std::string& path, const std::string& config, bool to_file) {
   o.rejects_csv_path = path + ".rejects.csv";
   rungcal::IngestResult r = to_file ? rungcal::ingest_catalog_file(o) : rungcal::run_ingest(o);
   const double s = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
-  std::printf("seconds %.4f\npeak_rss_mb %.1f\nrows %zu\nrejected %zu\n", s, peak_rss_mb(),
-              r.stars, r.rejected.size());
+  std::printf("seconds %.4f\npeak_rss_mb %.1f\nrows %zu\nrejected %zu\n", s, peak_rss_mb(), r.stars,
+              r.rejected.size());
   return 0;
 }
 

@@ -17,7 +17,8 @@ int main(int argc, char** argv) {
   app.add_option("--store", o.store, "Calibration store folder")->required();
   app.add_option("--calibration", o.calibration, "name@latest or name@N")->required();
   app.add_option("--relation", o.relation, "Relation to use, e.g. W_VI")->required();
-  app.add_option("--targets", o.targets_path, "Dereddened target catalog (FITS, HDU CATALOG)")->required();
+  app.add_option("--targets", o.targets_path, "Dereddened target catalog (FITS, HDU CATALOG)")
+      ->required();
   app.add_option(
       "--grid", o.grid_path,
       "A systematics grid's grid.json (rungcal-grid): its budget gives the systematic error");
@@ -25,7 +26,8 @@ int main(int argc, char** argv) {
                  "A category of the grid's budget to leave out (repeatable)");
   app.add_option("--out", o.output_path,
                  "Distances (FITS, HDUs STARS, HOSTS and HOST_COVARIANCE; CSVs beside it)");
-  app.add_option("--outlier-sigma", o.outlier_sigma, "Flag stars this many sigma from their host's mean");
+  app.add_option("--outlier-sigma", o.outlier_sigma,
+                 "Flag stars this many sigma from their host's mean");
   app.add_option("--outlier-iterations", o.outlier_iterations, "At most this many flagging passes");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;

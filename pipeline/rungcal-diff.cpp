@@ -8,8 +8,9 @@
 #include "rungcal/core/stage_main.hpp"
 
 int main(int argc, char** argv) {
-  CLI::App app{"Shows two versions of a calibration side by side: parameter shifts in units of the "
-               "combined sigma, inputs that changed, and stars that entered or left the fit."};
+  CLI::App app{
+      "Shows two versions of a calibration side by side: parameter shifts in units of the "
+      "combined sigma, inputs that changed, and stars that entered or left the fit."};
   rungcal::CommonOptions common;
   std::string store, from, to;
   app.add_option("--store", store, "Calibration store folder")->required();
@@ -25,7 +26,8 @@ int main(int argc, char** argv) {
     if (older.empty()) {
       const std::optional<int> previous = rungcal::previous_version(b.document);
       if (!previous)
-        throw rungcal::InputError({to, {}, {}}, "no_previous_version", "this is the first version: give --from");
+        throw rungcal::InputError({to, {}, {}}, "no_previous_version",
+                                  "this is the first version: give --from");
       older = b.name() + "@" + std::to_string(*previous);
     }
     rungcal::Calibration a = rungcal::load_calibration(store, older);

@@ -6,15 +6,17 @@
 #include "rungcal/ingest/ingest.hpp"
 
 int main(int argc, char** argv) {
-  CLI::App app{"Reads a calibrator catalog through a TOML column map, validates every row and "
-               "writes the canonical FITS catalog plus a table of rejected rows."};
+  CLI::App app{
+      "Reads a calibrator catalog through a TOML column map, validates every row and "
+      "writes the canonical FITS catalog plus a table of rejected rows."};
   rungcal::CommonOptions common;
   std::string config_path, out_path, in_path, lightcurves_path;
   app.add_option("--config", config_path, "Ingest config (TOML)")->required();
   app.add_option("--out", out_path, "Catalog to write (overrides [output] catalog)");
   app.add_option("--input", in_path, "Input catalog (overrides [source] path)");
   app.add_option("--lightcurves", lightcurves_path,
-                 "rungcal-lightcurve summary whose periods and mean magnitudes replace the catalog's (overrides [lightcurves] summary)");
+                 "rungcal-lightcurve summary whose periods and mean magnitudes replace the "
+                 "catalog's (overrides [lightcurves] summary)");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("ingest", common.verbosity(), common.log_file);

@@ -6,8 +6,10 @@
 #include "rungcal/simulate/simulate.hpp"
 
 int main(int argc, char** argv) {
-  CLI::App app{"Draws a mock calibrator catalog, light curves and distant target Cepheids from a known "
-               "truth (relations, distances, reddening, parallax zero point) and writes them with the truth."};
+  CLI::App app{
+      "Draws a mock calibrator catalog, light curves and distant target Cepheids from a known "
+      "truth (relations, distances, reddening, parallax zero point) and writes them with the "
+      "truth."};
   rungcal::CommonOptions common;
   std::string config_path, out_folder;
   long long seed = -1;
@@ -25,8 +27,9 @@ int main(int argc, char** argv) {
     rungcal::BandTable bands = rungcal::BandTable::from_file(options.bands_file);
     rungcal::Simulation sim = rungcal::simulate(options, bands);
     rungcal::write_simulation(sim, options.output_folder);
-    spdlog::info("{} calibrators, {} light-curve points, {} targets written to {}", sim.calibrators.rows(),
-                 sim.light_curves.rows(), sim.targets.rows(), options.output_folder);
+    spdlog::info("{} calibrators, {} light-curve points, {} targets written to {}",
+                 sim.calibrators.rows(), sim.light_curves.rows(), sim.targets.rows(),
+                 options.output_folder);
     return rungcal::ExitCode::kSuccess;
   });
 }

@@ -18,7 +18,8 @@ namespace {
 TEST(Lindegren2021, ReproducesTheCheckValuesOfThePublishedTable) {
   // Check values recomputed from the published 5-parameter table, given beside it in
   // ../shared/reference/README.md (micro-arcsec).
-  const ZeroPointTable t = ZeroPointTable::from_file(test::reference_file("parallax_zeropoint_5p.txt"));
+  const ZeroPointTable t =
+      ZeroPointTable::from_file(test::reference_file("parallax_zeropoint_5p.txt"));
   EXPECT_NEAR(t.zero_point_mas(15.0, 1.48, 0.0) * 1e3, -43.438, 5e-4);
   EXPECT_NEAR(t.zero_point_mas(8.0, 1.55, 30.0) * 1e3, -32.428, 5e-4);
   EXPECT_NEAR(t.zero_point_mas(17.0, 1.40, -45.0) * 1e3, -29.188, 5e-4);
@@ -85,9 +86,11 @@ TEST(EclipticLatitude, OfTheEquinoxesAndSolsticesIsTheObliquity) {
 TEST(ElBadry2021, InflationFollowsEquation16) {
   // f(G) = 0.21 exp(-(G - 12.65)^2 / 0.81) - 0.00062 G^2 + 0.0040 G + 1.141 (El-Badry, Rix
   // & Heintz 2021, eq. 16), evaluated here by hand at the bump's centre and far from it.
-  EXPECT_NEAR(el_badry_inflation(12.65), 0.21 - 0.00062 * 12.65 * 12.65 + 0.0040 * 12.65 + 1.141, 1e-12);
+  EXPECT_NEAR(el_badry_inflation(12.65), 0.21 - 0.00062 * 12.65 * 12.65 + 0.0040 * 12.65 + 1.141,
+              1e-12);
   EXPECT_NEAR(el_badry_inflation(12.65), 1.302386, 1e-6);
-  EXPECT_NEAR(el_badry_inflation(18.0), -0.00062 * 324.0 + 0.072 + 1.141 + 0.21 * std::exp(-5.35 * 5.35 / 0.81), 1e-12);
+  EXPECT_NEAR(el_badry_inflation(18.0),
+              -0.00062 * 324.0 + 0.072 + 1.141 + 0.21 * std::exp(-5.35 * 5.35 / 0.81), 1e-12);
   // The paper's finding, recalled from memory: bright stars' errors are underestimated by
   // up to about 30 per cent, with the worst near G = 13.
   double worst_g = 0, worst = 0;

@@ -137,7 +137,8 @@ TEST(BlendDensity, ColouredDensityIsItsDefiningIntegralAndGreyAtUnitRatio) {
         EXPECT_NEAR(ours, sum, 2e-6 * std::max(1.0, sum)) << r << " rising " << rising;
       }
       for (double r : {-3.0, -0.4, 0.1, 0.8, 4.0}) {
-        const ColouredBlendDensity d = coloured_blend_log_density(r, c.var, c.mean, c.colour, rising);
+        const ColouredBlendDensity d =
+            coloured_blend_log_density(r, c.var, c.mean, c.colour, rising);
         auto at = [&](double dr, double dv, double ds, double dk, double dd, double dt) {
           BlendColour k{c.colour.kappa + dk, c.colour.curvature + dd, c.colour.tilt + dt};
           return coloured_blend_log_density(r + dr, c.var + dv, c.mean + ds, k, rising);
@@ -157,7 +158,8 @@ TEST(BlendDensity, ColouredDensityIsItsDefiningIntegralAndGreyAtUnitRatio) {
             {d.d_kappa, diff(&D::log_density, 3)}, {d.d_curvature, diff(&D::log_density, 4)},
             {d.d_tilt, diff(&D::log_density, 5)}};
         for (std::size_t k = 0; k < std::size(checks); ++k)
-          EXPECT_NEAR(checks[k].first, checks[k].second, 2e-5 * std::max(1.0, std::abs(checks[k].second)))
+          EXPECT_NEAR(checks[k].first, checks[k].second,
+                      2e-5 * std::max(1.0, std::abs(checks[k].second)))
               << "derivative " << k << " at r = " << r << " rising " << rising;
         EXPECT_LT(d.d2_r, 0.0) << "log-concave at " << r;
       }
@@ -167,10 +169,15 @@ TEST(BlendDensity, ColouredDensityIsItsDefiningIntegralAndGreyAtUnitRatio) {
     const BlendDensity grey = blend_log_density(r, 0.04, 0.5);
     const ColouredBlendDensity er = coloured_blend_log_density(r, 0.04, 0.5, {}, true);
     const BlendDensity grey_r = blend_rising_log_density(r, 0.04, 0.5);
-    for (auto [ours, theirs] : {std::pair{e.log_density, grey.log_density}, {e.d_r, grey.d_r},
-                                {e.d2_r, grey.d2_r}, {e.d_var, grey.d_var}, {e.d_scale, grey.d_scale},
-                                {er.log_density, grey_r.log_density}, {er.d_r, grey_r.d_r},
-                                {er.d2_r, grey_r.d2_r}, {er.d_var, grey_r.d_var},
+    for (auto [ours, theirs] : {std::pair{e.log_density, grey.log_density},
+                                {e.d_r, grey.d_r},
+                                {e.d2_r, grey.d2_r},
+                                {e.d_var, grey.d_var},
+                                {e.d_scale, grey.d_scale},
+                                {er.log_density, grey_r.log_density},
+                                {er.d_r, grey_r.d_r},
+                                {er.d2_r, grey_r.d2_r},
+                                {er.d_var, grey_r.d_var},
                                 {er.d_scale, grey_r.d_scale}})
       EXPECT_NEAR(ours, theirs, 1e-9 * std::max(1.0, std::abs(theirs))) << r;
   }

@@ -25,11 +25,14 @@ namespace {
 
 // A fit result of the Riess et al. 2018 reference table, written where the test wants it;
 // `scatter` changes its content.
-std::string write_reference_fit(const test::TempDir& dir, const std::string& name, double scatter = 0.06) {
-  IngestOptions io = ingest_options_from_file(test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml"));
+std::string write_reference_fit(const test::TempDir& dir, const std::string& name,
+                                double scatter = 0.06) {
+  IngestOptions io =
+      ingest_options_from_file(test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml"));
   io.catalog_path = dir.file("cat.fits");
   write_ingest_products(run_ingest(io), io);
-  FitOptions o = fit_options_from_file(test::source_file("config/reference/fit_mw_cepheids_dr2.toml"));
+  FitOptions o =
+      fit_options_from_file(test::source_file("config/reference/fit_mw_cepheids_dr2.toml"));
   o.input_path = dir.file("cat.fits");
   o.output_path = dir.file(name + ".json");
   o.scatter.value = scatter;
@@ -57,7 +60,8 @@ TEST(Calibration, PublishLoadPredictRoundTripAndTheFitsCopy) {
   EXPECT_EQ(cal.relation_names(), std::vector<std::string>{"W_H"});
   // The fit's numbers come back: M(log P = 1) = alpha (slope fixed, so its error is alpha's).
   auto fit_json = nlohmann::json::parse(test::read_text(fit));
-  double alpha = fit_json["relations"][0]["parameters"][0]["value"], alpha_err = fit_json["relations"][0]["parameters"][0]["error"];
+  double alpha = fit_json["relations"][0]["parameters"][0]["value"],
+         alpha_err = fit_json["relations"][0]["parameters"][0]["error"];
   Prediction p = predict_absolute_magnitude(cal, "W_H", 1.0);
   EXPECT_DOUBLE_EQ(p.abs_mag, alpha);
   EXPECT_NEAR(p.calibration_error, alpha_err, 1e-12);
@@ -83,7 +87,8 @@ TEST(Calibration, IdenticalContentMakesOneVersionChangedContentTheNext) {
   EXPECT_FALSE(same.created);
   EXPECT_EQ(same.version, 1);
   // A changed input (here the adopted scatter) makes version 2 with its shifts.
-  PublishOutcome next = publish_calibration(publish_options(dir, write_reference_fit(dir, "changed", 0.10)));
+  PublishOutcome next =
+      publish_calibration(publish_options(dir, write_reference_fit(dir, "changed", 0.10)));
   ASSERT_TRUE(next.created);
   EXPECT_EQ(next.version, 2);
   EXPECT_TRUE(next.shifts["W_H"].contains("parallax_offset_mas"));
@@ -107,7 +112,8 @@ void expect_store_whole(const std::string& store, const std::string& name) {
   for (int v : calibration_versions(store, name)) {
     Calibration c = load_calibration(store, name + "@" + std::to_string(v));  // parses
     EXPECT_EQ(c.version(), v);
-    EXPECT_TRUE(fs::exists(fs::path(store) / name / fmt::format("v{:04d}", v) / "calibration.fits"));
+    EXPECT_TRUE(
+        fs::exists(fs::path(store) / name / fmt::format("v{:04d}", v) / "calibration.fits"));
   }
 }
 
@@ -119,10 +125,11 @@ TEST(Calibration, AKillAtAnyStepLeavesOnlyWholeVersions) {
   std::string fit1 = write_reference_fit(dir, "one"), fit2 = write_reference_fit(dir, "two", 0.10);
   const std::string store = dir.file("store");
   ASSERT_TRUE(publish_calibration(publish_options(dir, fit1)).created);
-  for (const char* step : {"publish_locked", "publish_json_written", "publish_version_built", "publish_version_renamed",
-                           "publish_link_made", "publish_done"}) {
-    auto r = test::run_command(std::string("RUNGCAL_FAULT_AT=") + step + " " + RUNGCAL_BIN_DIR +
-                               "/rungcal-publish --store " + store + " --name mw-dr2 --fit " + fit2);
+  for (const char* step : {"publish_locked", "publish_json_written", "publish_version_built",
+                           "publish_version_renamed", "publish_link_made", "publish_done"}) {
+    auto r =
+        test::run_command(std::string("RUNGCAL_FAULT_AT=") + step + " " + RUNGCAL_BIN_DIR +
+                          "/rungcal-publish --store " + store + " --name mw-dr2 --fit " + fit2);
     EXPECT_EQ(r.exit_code, 128 + 9) << step << ": " << r.output;
     expect_store_whole(store, "mw-dr2");
     Calibration latest = load_calibration(store, "mw-dr2@latest");
@@ -132,7 +139,9 @@ TEST(Calibration, AKillAtAnyStepLeavesOnlyWholeVersions) {
     EXPECT_EQ(done.exit_code, 0) << done.output;
     EXPECT_EQ(load_calibration(store, "mw-dr2@latest").document["content_sha256"],
               calibration_content_sha256(nlohmann::json::parse(test::read_text(fit2)), ""));
-    ASSERT_EQ(test::run_stage("publish", "--store " + store + " --name mw-dr2 --fit " + fit1).exit_code, 0);
+    ASSERT_EQ(
+        test::run_stage("publish", "--store " + store + " --name mw-dr2 --fit " + fit1).exit_code,
+        0);
   }
   expect_store_whole(store, "mw-dr2");
   // No temporary folder survives a finished publish.
@@ -143,11 +152,13 @@ TEST(Calibration, AKillAtAnyStepLeavesOnlyWholeVersions) {
 TEST(Calibration, ConcurrentPublishersAreSerialisedAndLoseNothing) {
   test::TempDir dir;
   std::vector<std::string> fits;
-  for (int k = 0; k < 4; ++k) fits.push_back(write_reference_fit(dir, "f" + std::to_string(k), 0.05 + 0.01 * k));
+  for (int k = 0; k < 4; ++k)
+    fits.push_back(write_reference_fit(dir, "f" + std::to_string(k), 0.05 + 0.01 * k));
   std::string cmd;
   for (int k = 0; k < 4; ++k)
-    cmd += std::string(RUNGCAL_BIN_DIR) + "/rungcal-publish --store " + dir.file("store") + " --name mw-dr2 --fit " +
-           fits[k] + " > " + dir.file("p" + std::to_string(k) + ".log") + " 2>&1; echo $? >> " + dir.file("codes") + " & ";
+    cmd += std::string(RUNGCAL_BIN_DIR) + "/rungcal-publish --store " + dir.file("store") +
+           " --name mw-dr2 --fit " + fits[k] + " > " + dir.file("p" + std::to_string(k) + ".log") +
+           " 2>&1; echo $? >> " + dir.file("codes") + " & ";
   auto r = test::run_command(cmd + "wait");
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_EQ(test::read_text(dir.file("codes")), "0\n0\n0\n0\n");
@@ -166,7 +177,8 @@ TEST(Calibration, RollingBackWithdrawsTheVersionsAboveAndTheirContentIsNotRepubl
   // The rollback semantics of docs/operations.md (issue 15 item 6).
   test::TempDir dir;
   const std::string store = dir.file("store");
-  const std::string fit1 = write_reference_fit(dir, "fit1", 0.06), fit2 = write_reference_fit(dir, "fit2", 0.10);
+  const std::string fit1 = write_reference_fit(dir, "fit1", 0.06),
+                    fit2 = write_reference_fit(dir, "fit2", 0.10);
   ASSERT_TRUE(publish_calibration(publish_options(dir, fit1)).created);
   ASSERT_TRUE(publish_calibration(publish_options(dir, fit2)).created);
   set_latest_version(store, "mw-dr2", 1, 5);
@@ -189,7 +201,8 @@ TEST(Calibration, RollingBackWithdrawsTheVersionsAboveAndTheirContentIsNotRepubl
   const fs::path folder = fs::path(store) / "mw-dr2";
   fs::create_directory_symlink("v0001", folder / ".latest.new");
   fs::rename(folder / ".latest.new", folder / "latest");
-  PublishOutcome other = publish_calibration(publish_options(dir, write_reference_fit(dir, "fit3", 0.08)));
+  PublishOutcome other =
+      publish_calibration(publish_options(dir, write_reference_fit(dir, "fit3", 0.08)));
   EXPECT_EQ(other.version, 4);
   EXPECT_EQ(withdrawn_numbers(store, "mw-dr2"), (std::vector<int>{2, 3}));
   EXPECT_EQ(load_calibration(store, "mw-dr2@latest").document["previous"]["version"], 1);
@@ -210,16 +223,16 @@ TEST(Calibration, PredictionErrorIsTheAnalyticPropagation) {
   // M = alpha + beta x + gamma [Fe/H], x = log P - 1: var = g^T C g with g = (1, x, [Fe/H]).
   Calibration cal;
   cal.document = {{"name", "t"}, {"version", 1}};
-  cal.document["fit"]["relations"] = nlohmann::json::array({{{"name", "V"},
-                                                             {"pivot_log_period", 1.0},
-                                                             {"parameter_names", {"alpha", "beta", "gamma", "sigma_int"}},
-                                                             {"parameters",
-                                                              {{{"value", -4.0}}, {{"value", -2.8}}, {{"value", -0.2}}, {{"value", 0.1}}}},
-                                                             {"covariance",
-                                                              {{0.0004, 0.0001, 0.0, 0.0},
-                                                               {0.0001, 0.0009, 0.00005, 0.0},
-                                                               {0.0, 0.00005, 0.01, 0.0},
-                                                               {0.0, 0.0, 0.0, 0.0001}}}}});
+  cal.document["fit"]["relations"] = nlohmann::json::array(
+      {{{"name", "V"},
+        {"pivot_log_period", 1.0},
+        {"parameter_names", {"alpha", "beta", "gamma", "sigma_int"}},
+        {"parameters", {{{"value", -4.0}}, {{"value", -2.8}}, {{"value", -0.2}}, {{"value", 0.1}}}},
+        {"covariance",
+         {{0.0004, 0.0001, 0.0, 0.0},
+          {0.0001, 0.0009, 0.00005, 0.0},
+          {0.0, 0.00005, 0.01, 0.0},
+          {0.0, 0.0, 0.0, 0.0001}}}}});
   Prediction p = predict_absolute_magnitude(cal, "V", 1.5, -0.3);
   const double x = 0.5, f = -0.3;
   EXPECT_NEAR(p.abs_mag, -4.0 - 2.8 * x - 0.2 * f, 1e-12);
@@ -239,14 +252,17 @@ TEST(Calibration, BadReferencesAndInputsStopCleanly) {
     EXPECT_EQ(e.rule(), "unknown_calibration");
   }
   test::write_text(dir.file("bad.json"), "{\"schema\": \"something-else\"}");
-  auto r = test::run_stage("publish", "--store " + dir.file("store") + " --name x --fit " + dir.file("bad.json"));
+  auto r = test::run_stage(
+      "publish", "--store " + dir.file("store") + " --name x --fit " + dir.file("bad.json"));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("[not_a_fit_result]"), std::string::npos) << r.output;
-  r = test::run_stage("publish", "--store " + dir.file("store") + " --name 'bad name' --fit " + dir.file("bad.json"));
+  r = test::run_stage("publish", "--store " + dir.file("store") + " --name 'bad name' --fit " +
+                                     dir.file("bad.json"));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("name"), std::string::npos) << r.output;
   test::write_text(dir.file("broken.json"), "{\"schema\": ");
-  r = test::run_stage("publish", "--store " + dir.file("store") + " --name x --fit " + dir.file("broken.json"));
+  r = test::run_stage(
+      "publish", "--store " + dir.file("store") + " --name x --fit " + dir.file("broken.json"));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("[json_syntax]"), std::string::npos) << r.output;
 }
@@ -267,16 +283,19 @@ TEST(Diff, ShiftsInputsAndStarsBetweenTwoVersions) {
   for (int field = 0; field < 10; ++field) flag_pos = edited.find("  ", flag_pos + 2);
   edited.replace(flag_pos + 2, 1, "1");
   test::write_text(dir.file("edited.txt"), edited);
-  IngestOptions io = ingest_options_from_file(test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml"));
+  IngestOptions io =
+      ingest_options_from_file(test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml"));
   io.input_path = dir.file("edited.txt");
   io.catalog_path = dir.file("cat2.fits");
   write_ingest_products(run_ingest(io), io);
-  FitOptions o = fit_options_from_file(test::source_file("config/reference/fit_mw_cepheids_dr2.toml"));
+  FitOptions o =
+      fit_options_from_file(test::source_file("config/reference/fit_mw_cepheids_dr2.toml"));
   o.input_path = dir.file("cat2.fits");
   o.output_path = dir.file("two.json");
   fit_catalog_file(o);
   ASSERT_TRUE(publish_calibration(publish_options(dir, o.output_path)).created);
-  Calibration a = load_calibration(dir.file("store"), "mw-dr2@1"), b = load_calibration(dir.file("store"), "mw-dr2@2");
+  Calibration a = load_calibration(dir.file("store"), "mw-dr2@1"),
+              b = load_calibration(dir.file("store"), "mw-dr2@2");
   CalibrationDiff d = diff_calibrations(a, b);
   ASSERT_EQ(d.left.size(), 1u);
   EXPECT_EQ(d.left[0].second, std::vector<std::string>{"AA GEM"});

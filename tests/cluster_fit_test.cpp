@@ -279,7 +279,8 @@ TEST(ClusterOptions, RulesNameTheBrokenOne) {
   EXPECT_NEAR(o.clusters[0].modulus_prior().first, 11.9897, 1e-4);
   EXPECT_NEAR(o.clusters[0].modulus_prior().second, 0.05429, 1e-5);
   o.clusters[0].parallax_err_mas = 0.05;
-  EXPECT_NE(o.check().find("needs a parallax S/N of 10 or more (cluster CL-A has 8.0)"), std::string::npos)
+  EXPECT_NE(o.check().find("needs a parallax S/N of 10 or more (cluster CL-A has 8.0)"),
+            std::string::npos)
       << o.check();
   o.clusters[0] = ClusterOptions{"CL-A", NAN, NAN, 10.4, 0.05};
   EXPECT_EQ(o.check(), "");

@@ -99,7 +99,8 @@ TEST(Parallel, RanksOnOneMachineShareItsCores) {
 
 TEST(Error, MessageNamesFileRowColumnAndRule) {
   InputError e({"cat.csv", 12, "parallax", "line"}, "not_a_number", "'abc' is not a number");
-  EXPECT_STREQ(e.what(), "cat.csv:line 12: column 'parallax': [not_a_number] 'abc' is not a number");
+  EXPECT_STREQ(e.what(),
+               "cat.csv:line 12: column 'parallax': [not_a_number] 'abc' is not a number");
   EXPECT_EQ(e.rule(), "not_a_number");
 }
 
@@ -351,7 +352,8 @@ TEST(FileSafety, TheLogFileNeverFollowsASymlinkFollowsTheUmaskAndRotates) {
   throw_deferred_logging_error();
   spdlog::info("into a new folder");
   setup_logging("test", Verbosity::kQuiet);
-  EXPECT_NE(test::read_text(dir.file("logs/new/run.log")).find("into a new folder"), std::string::npos);
+  EXPECT_NE(test::read_text(dir.file("logs/new/run.log")).find("into a new folder"),
+            std::string::npos);
   EXPECT_EQ(mode_of(dir.file("own.log")), 0664u);
   EXPECT_TRUE(test::file_exists(dir.file("own.log.1")));
   EXPECT_TRUE(test::file_exists(dir.file("own.log.2")));

@@ -6,19 +6,21 @@
 #include <algorithm>
 #include <cmath>
 
-#include "rungcal/deredden/deredden.hpp"
+#include "rungcal/core/error.hpp"
 #include "rungcal/core/random.hpp"
+#include "rungcal/deredden/deredden.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
-#include "rungcal/core/error.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
 namespace {
 
-StarTable two_band_catalog(const std::vector<std::array<double, 3>>& v_i_ebv, double sv, double si, double se) {
+StarTable two_band_catalog(const std::vector<std::array<double, 3>>& v_i_ebv, double sv, double si,
+                           double se) {
   StarTable t;
-  for (const char* c : {"mag_V", "mag_err_V", "mag_I", "mag_err_I", "ebv", "ebv_err"}) t.add_column(c, ColumnType::kReal, "mag");
+  for (const char* c : {"mag_V", "mag_err_V", "mag_I", "mag_err_I", "ebv", "ebv_err"})
+    t.add_column(c, ColumnType::kReal, "mag");
   for (const auto& row : v_i_ebv) {
     t.column("mag_V").push_real(row[0]);
     t.column("mag_err_V").push_real(sv);
@@ -69,7 +71,8 @@ TEST(Deredden, ValuesAndErrorsOfOneStar) {
 TEST(Deredden, LawWesenheitIsReddeningFree) {
   DereddenOptions o = vi_options();
   o.wesenheit_source = WesenheitSource::kLaw;
-  StarTable in = two_band_catalog({{12.0, 11.0, 0.0}, {12.0 + 3.0, 11.0 + 1.8, 1.0}}, 0.02, 0.02, 0.0);
+  StarTable in =
+      two_band_catalog({{12.0, 11.0, 0.0}, {12.0 + 3.0, 11.0 + 1.8, 1.0}}, 0.02, 0.02, 0.0);
   // Redden the second star by the law exactly: its W must equal the first's.
   double rv = 3.1 * extinction_ratio(ExtinctionLaw::kCCM89, 5450.0, 3.1);
   double ri = 3.1 * extinction_ratio(ExtinctionLaw::kCCM89, 7980.0, 3.1);
@@ -87,7 +90,8 @@ TEST(Deredden, ErrorPropagationMatchesMonteCarlo) {
   const double sv = 0.03, si = 0.02, se = 0.05;
   Random rng(7);
   std::vector<std::array<double, 3>> rows;
-  for (int k = 0; k < 40000; ++k) rows.push_back({rng.normal(14.0, sv), rng.normal(13.0, si), rng.normal(0.6, se)});
+  for (int k = 0; k < 40000; ++k)
+    rows.push_back({rng.normal(14.0, sv), rng.normal(13.0, si), rng.normal(0.6, se)});
   DereddenResult r = run_deredden(vi_options(), two_band_catalog(rows, sv, si, se), vi_table());
   auto stats = [&](const std::string& a, const std::string& b) {
     const auto& x = r.catalog.column(a).real;
@@ -101,7 +105,8 @@ TEST(Deredden, ErrorPropagationMatchesMonteCarlo) {
     return c / static_cast<double>(x.size() - 1);
   };
   double rv = r.coefficients[0].a_over_ebv, ri = r.coefficients[1].a_over_ebv;
-  double sd_v = std::sqrt(stats("mag0_V", "mag0_V")), sd_w = std::sqrt(stats("mag0_W_VI", "mag0_W_VI"));
+  double sd_v = std::sqrt(stats("mag0_V", "mag0_V")),
+         sd_w = std::sqrt(stats("mag0_W_VI", "mag0_W_VI"));
   EXPECT_NEAR(sd_v / r.catalog.column("mag0_err_V").real[0], 1.0, 0.02);
   EXPECT_NEAR(sd_w / r.catalog.column("mag0_err_W_VI").real[0], 1.0, 0.02);
   EXPECT_NEAR(stats("mag0_V", "mag0_I") / (rv * ri * se * se), 1.0, 0.05);
@@ -110,11 +115,14 @@ TEST(Deredden, ErrorPropagationMatchesMonteCarlo) {
 TEST(Deredden, StageRunsOnTheDemoCatalogAndAstropyReadsIt) {
   test::TempDir dir;
   std::string cat = dir.file("catalog.fits"), out = dir.file("dered.fits");
-  auto r = test::run_stage("ingest", "--config " + test::source_file("config/demo/ingest.toml") + " --out " + cat);
+  auto r = test::run_stage(
+      "ingest", "--config " + test::source_file("config/demo/ingest.toml") + " --out " + cat);
   ASSERT_EQ(r.exit_code, 0) << r.output;
-  test::write_text(dir.file("d.toml"), "[deredden]\ninput = \"catalog.fits\"\noutput = \"dered.fits\"\nbands_file = \"" +
-                                           test::source_file("config/bands.toml") +
-                                           "\"\nlaw = \"odonnell94\"\nr_v = 3.1\nwesenheit = [\"W_VI\", \"W_G\"]\n");
+  test::write_text(
+      dir.file("d.toml"),
+      "[deredden]\ninput = \"catalog.fits\"\noutput = \"dered.fits\"\nbands_file = \"" +
+          test::source_file("config/bands.toml") +
+          "\"\nlaw = \"odonnell94\"\nr_v = 3.1\nwesenheit = [\"W_VI\", \"W_G\"]\n");
   r = test::run_stage("deredden", "--config " + dir.file("d.toml"));
   ASSERT_EQ(r.exit_code, 0) << r.output;
   auto py = test::run_python(R"(
@@ -125,9 +133,12 @@ warnings.simplefilter("error")
 t = Table.read(sys.argv[1], hdu="CATALOG"); c = Table.read(sys.argv[1], hdu="COEFFS")
 h = fits.getheader(sys.argv[1], "CATALOG")
 print(len(t), str(t["mag0_V"].unit), h["RGLAW"], h["RGRV"], h["RGSTAGE"], list(c["name"])[-2:], [float(x) for x in c["wesenheit_r"][-2:]])
-)", {out});
+)",
+                             {out});
   ASSERT_EQ(py.exit_code, 0) << py.output;
-  EXPECT_NE(py.output.find("170 mag odonnell94 3.1 deredden ['W_VI', 'W_G'] [1.55, 1.9]"), std::string::npos) << py.output;
+  EXPECT_NE(py.output.find("170 mag odonnell94 3.1 deredden ['W_VI', 'W_G'] [1.55, 1.9]"),
+            std::string::npos)
+      << py.output;
 }
 
 TEST(Deredden, QueryModePrintsOneLinePerWavelength) {
@@ -146,10 +157,16 @@ TEST(Deredden, QueryModePrintsOneLinePerWavelength) {
 TEST(Deredden, BadInputsStopCleanly) {
   test::TempDir dir;
   std::string cat = dir.file("catalog.fits");
-  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/demo/ingest.toml") + " --out " + cat).exit_code, 0);
-  std::string head = "[deredden]\ninput = \"catalog.fits\"\noutput = \"out/d.fits\"\nbands_file = \"" +
-                     test::source_file("config/bands.toml") + "\"\n";
-  struct Case { std::string extra, rule; };
+  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/demo/ingest.toml") +
+                                          " --out " + cat)
+                .exit_code,
+            0);
+  std::string head =
+      "[deredden]\ninput = \"catalog.fits\"\noutput = \"out/d.fits\"\nbands_file = \"" +
+      test::source_file("config/bands.toml") + "\"\n";
+  struct Case {
+    std::string extra, rule;
+  };
   const Case cases[] = {{"wesenheit = [\"W_XYZ\"]\n", "unknown_wesenheit"},
                         {"bands = [\"U\"]\n", "missing_column"},
                         {"law = \"cardelli\"\n", "config_value"},
@@ -201,9 +218,10 @@ TEST(Deredden, WesenheitOnlyStageOnTheLmcCepheidsWithoutReddening) {
       "ingest", "--config " + test::source_file("config/reference/lmc_fundamental_cepheids.toml") +
                     " --out " + cat);
   ASSERT_EQ(ingest.exit_code, 0) << ingest.output;
-  test::write_text(dir.file("d.toml"), "[deredden]\ninput = \"lmc.fits\"\noutput = \"w.fits\"\n"
-                                       "bands_file = \"" + test::source_file("config/bands.toml") +
-                                       "\"\nwesenheit = [\"W_VI\"]\n");
+  test::write_text(dir.file("d.toml"),
+                   "[deredden]\ninput = \"lmc.fits\"\noutput = \"w.fits\"\n"
+                   "bands_file = \"" +
+                       test::source_file("config/bands.toml") + "\"\nwesenheit = [\"W_VI\"]\n");
   auto r = test::run_stage("deredden", "--config " + dir.file("d.toml"));
   ASSERT_EQ(r.exit_code, 0) << r.output;
   StarTable w = read_fits_table(dir.file("w.fits"), {"CATALOG", 0}).table;
@@ -220,11 +238,13 @@ TEST(Deredden, WesenheitOnlyStageOnTheLmcCepheidsWithoutReddening) {
     }
   }
   EXPECT_EQ(intercepts.size(), 2315u);  // the stars with both V and I
-  std::nth_element(intercepts.begin(), intercepts.begin() + intercepts.size() / 2, intercepts.end());
+  std::nth_element(intercepts.begin(), intercepts.begin() + intercepts.size() / 2,
+                   intercepts.end());
   EXPECT_NEAR(intercepts[intercepts.size() / 2], 15.88, 0.03);
   // Asking for a band by name without E(B-V) stops with exit 2 and writes nothing.
   test::write_text(dir.file("d2.toml"), test::read_text(dir.file("d.toml")) + "bands = [\"V\"]\n");
-  test::write_text(dir.file("d2.toml"), test::replaced(test::read_text(dir.file("d2.toml")), {{"w.fits", "w2.fits"}}));
+  test::write_text(dir.file("d2.toml"),
+                   test::replaced(test::read_text(dir.file("d2.toml")), {{"w.fits", "w2.fits"}}));
   r = test::run_stage("deredden", "--config " + dir.file("d2.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("[missing_column]"), std::string::npos) << r.output;

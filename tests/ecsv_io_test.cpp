@@ -59,7 +59,8 @@ TEST(Ecsv, ArrayColumnsAskedForAreReadPerRow) {
       ADD_FAILURE() << bad << " accepted";
     } catch (const InputError& e) {
       EXPECT_EQ(e.rule(), "ecsv_value") << bad;
-      EXPECT_NE(std::string(e.what()).find("t.ecsv:line 8: column 't'"), std::string::npos) << e.what();
+      EXPECT_NE(std::string(e.what()).find("t.ecsv:line 8: column 't'"), std::string::npos)
+          << e.what();
     }
   }
 }
@@ -89,11 +90,14 @@ t.write(sys.argv[2], format="ascii.ecsv", delimiter=",")
     ASSERT_TRUE(looks_like_ecsv(dir.file(f)));
     SourceTable t = read_ecsv_table(dir.file(f));
     ASSERT_EQ(t.table.rows(), 3u) << f;
-    EXPECT_EQ(t.table.column("name").text, (std::vector<std::string>{"Vell 1", "Vell-2", "Vell \"3\""}));
+    EXPECT_EQ(t.table.column("name").text,
+              (std::vector<std::string>{"Vell 1", "Vell-2", "Vell \"3\""}));
     EXPECT_DOUBLE_EQ(t.table.column("plx").real[0], 0.5);
     EXPECT_TRUE(t.table.column("plx").is_null(1));
     EXPECT_EQ(t.table.column("plx").unit, "mas");
-    EXPECT_DOUBLE_EQ(unit_conversion(QuantityKind::kParallax, t.table.column("plx_uas").unit)->apply(500.0), 0.5);
+    EXPECT_DOUBLE_EQ(
+        unit_conversion(QuantityKind::kParallax, t.table.column("plx_uas").unit)->apply(500.0),
+        0.5);
     EXPECT_EQ(t.table.column("n").type, ColumnType::kInteger);
     EXPECT_TRUE(t.table.column("n").is_null(1));
     EXPECT_EQ(t.table.column("n").integer[2], 5);
@@ -117,7 +121,8 @@ TEST(Ecsv, BadFilesNameTheirRuleAndLine) {
             "ecsv_header | t.ecsv:line 1: [ecsv_header] not an ECSV file: the first line is not "
             "'# %ECSV <version>'");
   // Malformed YAML: an unclosed flow mapping.
-  EXPECT_EQ(rule_of("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: id, datatype: string\nid\nA\n").substr(0, 11),
+  EXPECT_EQ(rule_of("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: id, datatype: string\nid\nA\n")
+                .substr(0, 11),
             "ecsv_header");
   // The header lies about the columns: it lists id, plx; the data names id, parallax.
   EXPECT_EQ(rule_of(head + "id parallax\nA 0.5\n"),
@@ -129,8 +134,10 @@ TEST(Ecsv, BadFilesNameTheirRuleAndLine) {
             "which the header says the column holds");
   EXPECT_EQ(rule_of(head + "id plx\nA 0.5 7\n").substr(0, 11), "field_count");
   EXPECT_EQ(rule_of(head + "id plx\n\"A 0.5\n").substr(0, 18), "unterminated_quote");
-  EXPECT_EQ(rule_of("# %ECSV 1.0\n# ---\n# schema: astropy-2.0\nid\nA\n").substr(0, 11), "ecsv_header");
-  EXPECT_EQ(rule_of("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: id, datatype: complex64}\nid\nA\n").substr(0, 11),
+  EXPECT_EQ(rule_of("# %ECSV 1.0\n# ---\n# schema: astropy-2.0\nid\nA\n").substr(0, 11),
+            "ecsv_header");
+  EXPECT_EQ(rule_of("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: id, datatype: complex64}\nid\nA\n")
+                .substr(0, 11),
             "ecsv_header");
   // An array column is listed as unusable with its reason, and the rest reads.
   SourceTable t = parse_ecsv_table(
@@ -172,7 +179,8 @@ t.write(sys.argv[2] + ".fits", format="fits")
 
 TEST(Ecsv, RiessCepheidsIngestTheSameFromEcsvVOTableAndFitsAsFromThePublishedText) {
   test::TempDir dir;
-  auto py = test::run_python(kRiessToEcsv, {test::reference_file("mw_cepheids_hst_gaiadr2.txt"), dir.file("mw")});
+  auto py = test::run_python(kRiessToEcsv,
+                             {test::reference_file("mw_cepheids_hst_gaiadr2.txt"), dir.file("mw")});
   ASSERT_EQ(py.exit_code, 0) << py.output;
   const std::string text_config = test::replaced(
       test::read_text(test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml")),
@@ -181,45 +189,48 @@ TEST(Ecsv, RiessCepheidsIngestTheSameFromEcsvVOTableAndFitsAsFromThePublishedTex
   IngestResult from_text = run_ingest(ingest_options_from_file(dir.file("text.toml")));
   const StarTable& a = from_text.catalog;
   for (const std::string format : {"ecsv", "vot", "fits"}) {
-  SCOPED_TRACE(format);
-  // The same column map; only the path differs (the text keys are not used by the others;
-  // the format follows the file: ECSV's first line, .vot, .fits).
-  test::write_text(dir.file(format + ".toml"),
-                   test::replaced(text_config, {{test::reference_file("") + "/mw_cepheids_hst_gaiadr2.txt", "mw." + format},
-                                                {"format = \"text\"\n", format == "ecsv" ? "format = \"text\"\n" : ""}}));
-  IngestResult from_other = run_ingest(ingest_options_from_file(dir.file(format + ".toml")));
-  const StarTable& b = from_other.catalog;
-  ASSERT_EQ(a.rows(), 46u);  // 50 stars, 4 flagged out of the final analysis
-  ASSERT_EQ(b.rows(), a.rows());
-  EXPECT_EQ(b.column_names(), a.column_names());
-  for (const auto& name : a.column_names()) {
-    if (name == col::kSourceRow) continue;  // the files' own line numbers
-    const Column& x = a.column(name);
-    const Column& y = b.column(name);
-    EXPECT_EQ(y.unit, x.unit) << name;
-    for (std::size_t i = 0; i < a.rows(); ++i) {
-      EXPECT_EQ(y.is_null(i), x.is_null(i)) << name << " " << i;
-      // Extra columns keep the input's type: text from the text table, numbers from the others.
-      double vx = 0, vy = 0;
-      if (parse_real(x.to_string(i), vx) && parse_real(y.to_string(i), vy))
-        EXPECT_DOUBLE_EQ(vy, vx) << name << " " << i;
-      else
-        EXPECT_EQ(y.to_string(i), x.to_string(i)) << name << " " << i;
+    SCOPED_TRACE(format);
+    // The same column map; only the path differs (the text keys are not used by the others;
+    // the format follows the file: ECSV's first line, .vot, .fits).
+    test::write_text(
+        dir.file(format + ".toml"),
+        test::replaced(text_config,
+                       {{test::reference_file("") + "/mw_cepheids_hst_gaiadr2.txt", "mw." + format},
+                        {"format = \"text\"\n", format == "ecsv" ? "format = \"text\"\n" : ""}}));
+    IngestResult from_other = run_ingest(ingest_options_from_file(dir.file(format + ".toml")));
+    const StarTable& b = from_other.catalog;
+    ASSERT_EQ(a.rows(), 46u);  // 50 stars, 4 flagged out of the final analysis
+    ASSERT_EQ(b.rows(), a.rows());
+    EXPECT_EQ(b.column_names(), a.column_names());
+    for (const auto& name : a.column_names()) {
+      if (name == col::kSourceRow) continue;  // the files' own line numbers
+      const Column& x = a.column(name);
+      const Column& y = b.column(name);
+      EXPECT_EQ(y.unit, x.unit) << name;
+      for (std::size_t i = 0; i < a.rows(); ++i) {
+        EXPECT_EQ(y.is_null(i), x.is_null(i)) << name << " " << i;
+        // Extra columns keep the input's type: text from the text table, numbers from the others.
+        double vx = 0, vy = 0;
+        if (parse_real(x.to_string(i), vx) && parse_real(y.to_string(i), vy))
+          EXPECT_DOUBLE_EQ(vy, vx) << name << " " << i;
+        else
+          EXPECT_EQ(y.to_string(i), x.to_string(i)) << name << " " << i;
+      }
     }
-  }
-  // Riess et al. 2018, AA GEM: parallax 0.18780788545791 mas (Gaia DR2), LogPeriod 1.053.
-  EXPECT_DOUBLE_EQ(b.column(col::kParallax).real[0], 0.18780788545791);
-  EXPECT_NEAR(b.column(col::kLogPeriod).real[0], 1.053, 1e-12);
+    // Riess et al. 2018, AA GEM: parallax 0.18780788545791 mas (Gaia DR2), LogPeriod 1.053.
+    EXPECT_DOUBLE_EQ(b.column(col::kParallax).real[0], 0.18780788545791);
+    EXPECT_NEAR(b.column(col::kLogPeriod).real[0], 1.053, 1e-12);
   }
 }
 
 TEST(Ecsv, TheFilesUnitsAreCheckedAgainstTheMappedQuantity) {
   test::TempDir dir;
-  const std::string head = "# %ECSV 1.0\n# ---\n# datatype:\n# - {name: id, datatype: string}\n"
-                           "# - {name: P, unit: d, datatype: float64}\n"
-                           "# - {name: plx, unit: UNIT, datatype: float64}\n"
-                           "# - {name: V, unit: mag, datatype: float64}\n# schema: astropy-2.0\n"
-                           "id P plx V\nVell-1 5.0 400 12.1\nVell-2 7.0 300 11.5\nVell-3 9.0 500 11.2\n";
+  const std::string head =
+      "# %ECSV 1.0\n# ---\n# datatype:\n# - {name: id, datatype: string}\n"
+      "# - {name: P, unit: d, datatype: float64}\n"
+      "# - {name: plx, unit: UNIT, datatype: float64}\n"
+      "# - {name: V, unit: mag, datatype: float64}\n# schema: astropy-2.0\n"
+      "id P plx V\nVell-1 5.0 400 12.1\nVell-2 7.0 300 11.5\nVell-3 9.0 500 11.2\n";
   const std::string config =
       "[source]\npath = \"in.ecsv\"\n[columns]\nid = \"id\"\nperiod = \"P\"\nparallax = PLX\n"
       "mode = { value = \"fundamental\" }\npulsator_class = { value = \"classical_cepheid\" }\n"
@@ -243,7 +254,8 @@ TEST(Ecsv, TheFilesUnitsAreCheckedAgainstTheMappedQuantity) {
   r = run("deg", "\"plx\"");
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("in.ecsv"), std::string::npos) << r.output;
-  EXPECT_NE(r.output.find("[bad_unit] unit 'deg' is not a unit for parallax"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("[bad_unit] unit 'deg' is not a unit for parallax"), std::string::npos)
+      << r.output;
 }
 
 }  // namespace

@@ -26,14 +26,16 @@ TEST_P(AgainstPythonExtinction, AgreesTo1e6RelativeOverTheWholeRange) {
   // rungcal's Fitzpatrick 1999 is the FM_UNRED variant that library implements.
   const LawCase& c = GetParam();
   WavelengthRange range = law_range(c.law);
-  auto r = test::run_python(R"(
+  auto r =
+      test::run_python(R"(
 import sys, numpy as np, extinction
 law = getattr(extinction, sys.argv[1]); lo, hi = float(sys.argv[2]), float(sys.argv[3])
 w = np.geomspace(lo * 1.0000001, hi * 0.9999999, 240)
 for rv in (2.5, 3.1, 4.0, 5.0):
     for wi, a in zip(w, law(w, 1.0, rv)):
         print(rv, repr(wi), repr(a))
-)", {c.python_name, std::to_string(range.min_aa), std::to_string(range.max_aa)});
+)",
+                       {c.python_name, std::to_string(range.min_aa), std::to_string(range.max_aa)});
   ASSERT_EQ(r.exit_code, 0) << r.output;
   std::istringstream in(r.output);
   double rv, w, ref;
@@ -58,11 +60,15 @@ TEST(Ccm89, Table3AtRv31WithinTheTablesRounding) {
   // Cardelli, Clayton & Mathis 1989, ApJ 345, 245, Table 3, A/A_V at R_V = 3.1. Band
   // wavelengths (memory): U 0.365, B 0.44, V 0.55, R 0.70, I 0.90, J 1.25, H 1.6, K 2.2 um.
   // The formula gives B 1.323 against the table's 1.337 (method brief): rtol 0.016.
-  struct Row { double um, table; };
+  struct Row {
+    double um, table;
+  };
   const Row rows[] = {{0.365, 1.569}, {0.44, 1.337}, {0.55, 1.000}, {0.70, 0.751},
-                      {0.90, 0.479},  {1.25, 0.282}, {1.6, 0.190}, {2.2, 0.114}};
+                      {0.90, 0.479},  {1.25, 0.282}, {1.6, 0.190},  {2.2, 0.114}};
   for (const auto& row : rows)
-    EXPECT_NEAR(extinction_ratio(ExtinctionLaw::kCCM89, row.um * 1e4, 3.1), row.table, 0.016 * row.table) << row.um;
+    EXPECT_NEAR(extinction_ratio(ExtinctionLaw::kCCM89, row.um * 1e4, 3.1), row.table,
+                0.016 * row.table)
+        << row.um;
 }
 
 TEST(Extinction, RefusesToExtrapolate) {

@@ -44,8 +44,8 @@ TEST(FitPublished, Riess2018DR2ParallaxOffsetSlopeFixed) {
   EXPECT_NEAR(w.parameter("alpha"), -5.91, 0.01);
   EXPECT_NEAR(w.error("alpha"), 0.08, 0.01);
   std::cout << "[ Riess 2018 ] offset = " << w.parameter("parallax_offset_mas") * 1e3 << " +- "
-            << w.error("parallax_offset_mas") * 1e3 << " uas, alpha = " << w.parameter("alpha") << " +- "
-            << w.error("alpha") << "\n";
+            << w.error("parallax_offset_mas") * 1e3 << " uas, alpha = " << w.parameter("alpha")
+            << " +- " << w.error("alpha") << "\n";
 }
 
 TEST(FitPublished, Riess2018DR2ParallaxOffsetUnderTheHierarchicalLikelihood) {
@@ -60,8 +60,8 @@ TEST(FitPublished, Riess2018DR2ParallaxOffsetUnderTheHierarchicalLikelihood) {
   EXPECT_NEAR(w.parameter("parallax_offset_mas"), -0.046, 0.004);
   EXPECT_NEAR(w.error("parallax_offset_mas"), 0.014, 0.002);
   EXPECT_NEAR(w.parameter("alpha"), -5.91, 0.02);
-  std::cout << "[ Riess 2018, hierarchical ] offset = " << w.parameter("parallax_offset_mas") * 1e3 << " +- "
-            << w.error("parallax_offset_mas") * 1e3 << " uas\n";
+  std::cout << "[ Riess 2018, hierarchical ] offset = " << w.parameter("parallax_offset_mas") * 1e3
+            << " +- " << w.error("parallax_offset_mas") * 1e3 << " uas\n";
 }
 
 TEST(FitPublished, Riess2018DR2ParallaxOffsetSlopeFree) {
@@ -80,7 +80,8 @@ TEST(FitPublished, KleinBloom2014RRLyraeKSlope) {
   // extinction; here: the K band alone, their distance priors as known distance moduli.
   // The slope must agree within the combined 1 sigma; the zero point is reported.
   StarTable cat = ingest_reference_catalog("rrlyrae_distance_priors.toml");
-  DereddenOptions d = deredden_options_from_file(test::source_file("config/reference/deredden_rrlyrae.toml"));
+  DereddenOptions d =
+      deredden_options_from_file(test::source_file("config/reference/deredden_rrlyrae.toml"));
   DereddenResult dr = run_deredden(d, cat, BandTable::from_file(d.bands_file));
   FitResult r = run_fit(reference_fit_options("fit_rrlyrae_k.toml"), dr.catalog);
   const RelationResult& k = r.relations.at(0);
@@ -89,8 +90,8 @@ TEST(FitPublished, KleinBloom2014RRLyraeKSlope) {
   EXPECT_NEAR(k.parameter("beta"), -2.4599, combined);
   EXPECT_NEAR(k.parameter("alpha"), -0.3472, 3 * std::hypot(k.error("alpha"), 0.0160));
   std::cout << "[ Klein & Bloom 2014 K ] slope " << k.parameter("beta") << " +- " << k.error("beta")
-            << " (theirs -2.46 +- 0.18), zero point " << k.parameter("alpha") << " +- " << k.error("alpha")
-            << " (theirs -0.347 +- 0.016)\n";
+            << " (theirs -2.46 +- 0.18), zero point " << k.parameter("alpha") << " +- "
+            << k.error("alpha") << " (theirs -0.347 +- 0.016)\n";
 }
 
 // Runs many simulated samples and returns (bias / mean error, coverage of the 68% interval)
@@ -100,18 +101,20 @@ struct Coverage {
   double coverage[3] = {0, 0, 0};
 };
 
-Coverage simulate_coverage(FitSpace space, int samples, int stars, bool scatter_free, double max_kpc,
-                           double plx_err_max, std::uint64_t seed0) {
+Coverage simulate_coverage(FitSpace space, int samples, int stars, bool scatter_free,
+                           double max_kpc, double plx_err_max, std::uint64_t seed0) {
   Coverage c;
   double bias[3] = {0, 0, 0}, err[3] = {0, 0, 0};
   int inside[3] = {0, 0, 0};
   for (int k = 0; k < samples; ++k) {
-    test::MockSample m = test::mock_parallax_sample(seed0 + static_cast<std::uint64_t>(k), stars, 0.0, max_kpc, 0.02, plx_err_max);
+    test::MockSample m = test::mock_parallax_sample(seed0 + static_cast<std::uint64_t>(k), stars,
+                                                    0.0, max_kpc, 0.02, plx_err_max);
     FitSettings s;
     s.space = space;
     ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
     s.params.assign(L.size, ParamSpec{});
-    s.params[L.sigma] = scatter_free ? ParamSpec{ParamMode::kFree, 0.1, 0, true} : ParamSpec{ParamMode::kFixed, m.truth.sigma, 0, false};
+    s.params[L.sigma] = scatter_free ? ParamSpec{ParamMode::kFree, 0.1, 0, true}
+                                     : ParamSpec{ParamMode::kFixed, m.truth.sigma, 0, false};
     FitSolution sol = solve_fit(m.data, s, L, starting_vector(m.data, s, L));
     Eigen::MatrixXd cov;
     if (!sol.usable || !fit_covariance(m.data, s, L, sol.theta, cov)) continue;
@@ -148,8 +151,9 @@ TEST(FitSimulation, FreeScatterKeepsTheOtherParametersHonest) {
   // Gaussian likelihood this same simulation biased alpha by 0.41 sigma and the offset by
   // 0.32 sigma. 300 samples: the bias estimate scatters by 0.06 sigma.
   Coverage c = simulate_coverage(FitSpace::kParallax, 300, 200, true, 6.0, 0.04, 5000);
-  std::cout << "[ free scatter ] bias/sigma " << c.bias_in_sigma[0] << " " << c.bias_in_sigma[1] << " "
-            << c.bias_in_sigma[2] << ", coverage " << c.coverage[0] << " " << c.coverage[1] << " " << c.coverage[2] << "\n";
+  std::cout << "[ free scatter ] bias/sigma " << c.bias_in_sigma[0] << " " << c.bias_in_sigma[1]
+            << " " << c.bias_in_sigma[2] << ", coverage " << c.coverage[0] << " " << c.coverage[1]
+            << " " << c.coverage[2] << "\n";
   for (int j = 0; j < 3; ++j) {
     EXPECT_LT(std::abs(c.bias_in_sigma[j]), 0.1) << "parameter " << j;
     EXPECT_GT(c.coverage[j], 0.60) << "parameter " << j;
@@ -178,16 +182,19 @@ TEST(FitSimulation, MagnitudeSpaceIsBiasedFaintOnLowSignalToNoiseParallaxes) {
       FitData d = m.data;
       if (space == FitSpace::kMagnitude) {  // what the stage does: refuse non-positive parallaxes
         std::vector<bool> drop(d.parallax.size());
-        for (Eigen::Index i = 0; i < d.parallax.size(); ++i) drop[i] = d.plx[i] - m.truth.offset <= 0;
+        for (Eigen::Index i = 0; i < d.parallax.size(); ++i)
+          drop[i] = d.plx[i] - m.truth.offset <= 0;
         d = d.without(drop, {}, {});
       }
       FitSolution sol = solve_fit(d, s, L, starting_vector(d, s, L));
-      (space == FitSpace::kMagnitude ? mag_bias : plx_bias) += (sol.theta[L.alpha] - m.truth.alpha) / samples;
+      (space == FitSpace::kMagnitude ? mag_bias : plx_bias) +=
+          (sol.theta[L.alpha] - m.truth.alpha) / samples;
     }
   }
   EXPECT_GT(mag_bias, 0.05) << "magnitude space should be biased faint";
   EXPECT_LT(std::abs(plx_bias), 0.02);
-  std::cout << "[ magnitude-space bias ] mean alpha error " << mag_bias << " mag (parallax space " << plx_bias << ")\n";
+  std::cout << "[ magnitude-space bias ] mean alpha error " << mag_bias << " mag (parallax space "
+            << plx_bias << ")\n";
 }
 
 using test::catalog_from_mock;
@@ -259,7 +266,8 @@ TEST(FitStage, AnchorGalaxyWithPriorAndKnownDistanceStars) {
     t.column("mode").push_text("fundamental");
     t.column("pulsator_class").push_text("classical_cepheid");
     t.column("log_period").push_real(x + 1.0);
-    t.column("mag0_X").push_real(m.truth.alpha + m.truth.beta * x + mu_true + rng.normal(0, std::hypot(0.08, 0.02)) +
+    t.column("mag0_X").push_real(m.truth.alpha + m.truth.beta * x + mu_true +
+                                 rng.normal(0, std::hypot(0.08, 0.02)) +
                                  (known ? rng.normal(0, 0.05) : 0.0));
     t.column("mag0_err_X").push_real(0.02);
     t.column("parallax_mas").push_null();
@@ -285,17 +293,24 @@ TEST(FitStage, AnchorGalaxyWithPriorAndKnownDistanceStars) {
   EXPECT_NEAR(rr.parameter("beta"), m.truth.beta, 3 * rr.error("beta"));
   EXPECT_NEAR(rr.parameter("mu_Kessel Cloud"), 18.48, 3 * rr.error("mu_Kessel Cloud"));
   EXPECT_LT(rr.error("mu_Kessel Cloud"), 0.03);  // the stars add to the prior
-  EXPECT_NEAR(rr.parameter("parallax_offset_mas"), m.truth.offset, 3 * rr.error("parallax_offset_mas"));
+  EXPECT_NEAR(rr.parameter("parallax_offset_mas"), m.truth.offset,
+              3 * rr.error("parallax_offset_mas"));
 }
 
 TEST(FitStage, TheStageWritesItsProductsAndAstropyReadsTheResiduals) {
   test::TempDir dir;
-  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
-                                          " --out " + dir.file("cat.fits")).exit_code, 0);
-  test::write_text(dir.file("fit.toml"),
-                   test::replaced(test::read_text(test::source_file("config/reference/fit_mw_cepheids_dr2.toml")),
-                                  {{"../../out/reference/mw_cepheids_catalog.fits", dir.file("cat.fits")},
-                                   {"../../out/reference/mw_cepheids_fit.json", dir.file("fit.json")}}));
+  ASSERT_EQ(test::run_stage("ingest",
+                            "--config " +
+                                test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
+                                " --out " + dir.file("cat.fits"))
+                .exit_code,
+            0);
+  test::write_text(
+      dir.file("fit.toml"),
+      test::replaced(
+          test::read_text(test::source_file("config/reference/fit_mw_cepheids_dr2.toml")),
+          {{"../../out/reference/mw_cepheids_catalog.fits", dir.file("cat.fits")},
+           {"../../out/reference/mw_cepheids_fit.json", dir.file("fit.json")}}));
   auto r = test::run_stage("fit", "--config " + dir.file("fit.toml") + " --bootstrap 50");
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_NE(r.output.find("parallax_offset_mas"), std::string::npos) << r.output;
@@ -309,18 +324,25 @@ rel = j["relations"][0]
 off = [p for p in rel["parameters"] if p["name"] == "parallax_offset_mas"][0]
 print(len(t), int(t["used"].sum()), j["schema_version"], rel["statistics"]["n_used"], rel["statistics"]["bootstrap_resamples"],
       round(off["value"] * 1e3), off["p16"] < off["value"] < off["p84"], j["provenance"]["stage"])
-)", {dir.file("fit_residuals.fits"), dir.file("fit.json")});
+)",
+                             {dir.file("fit_residuals.fits"), dir.file("fit.json")});
   ASSERT_EQ(py.exit_code, 0) << py.output;
   EXPECT_NE(py.output.find("46 46 1 46 50 -47 True fit"), std::string::npos) << py.output;
 }
 
 TEST(FitStage, BadInputsStopCleanly) {
   test::TempDir dir;
-  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
-                                          " --out " + dir.file("cat.fits")).exit_code, 0);
+  ASSERT_EQ(test::run_stage("ingest",
+                            "--config " +
+                                test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
+                                " --out " + dir.file("cat.fits"))
+                .exit_code,
+            0);
   const std::string head = "[fit]\ninput = \"cat.fits\"\noutput = \"out/fit.json\"\n";
   const std::string rel = "[[relation]]\nband = \"W_H\"\nmagnitude_column = \"mag_W_H\"\n";
-  struct Case { std::string config, rule; };
+  struct Case {
+    std::string config, rule;
+  };
   const Case cases[] = {
       {head + "[[relation]]\nband = \"V\"\n", "missing_column"},
       {head + rel + "slope = { mode = \"prior\", value = -3.3 }\n", "config_value"},
@@ -345,10 +367,15 @@ TEST(FitStage, TooFewCalibratorsSaysWhyTheStarsWereRefused) {
   // Issue 19: "0 usable calibrators" gave no reason. The Riess et al. 2018 table has no
   // [Fe/H], so a metallicity term refuses every star, and the message says so.
   test::TempDir dir;
-  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
-                                          " --out " + dir.file("cat.fits")).exit_code, 0);
-  test::write_text(dir.file("f.toml"), "[fit]\ninput = \"cat.fits\"\noutput = \"out/fit.json\"\n[[relation]]\nband = "
-                                       "\"W_H\"\nmagnitude_column = \"mag_W_H\"\nmetallicity = true\n");
+  ASSERT_EQ(test::run_stage("ingest",
+                            "--config " +
+                                test::source_file("config/reference/mw_cepheids_hst_gaiadr2.toml") +
+                                " --out " + dir.file("cat.fits"))
+                .exit_code,
+            0);
+  test::write_text(dir.file("f.toml"),
+                   "[fit]\ninput = \"cat.fits\"\noutput = \"out/fit.json\"\n[[relation]]\nband = "
+                   "\"W_H\"\nmagnitude_column = \"mag_W_H\"\nmetallicity = true\n");
   auto r = test::run_stage("fit", "--config " + dir.file("f.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("[too_few_calibrators]"), std::string::npos) << r.output;
@@ -361,8 +388,10 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetAndAgreesWithEachRelation) {
   // -0.020 mas zero point): W_VI and W_G together on the hierarchical likelihood, the
   // stars' scatter correlated between relations as the simulation's instability strip makes it.
   test::TempDir dir;
-  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/demo/ingest.toml") + " --out " +
-                                          dir.file("cat.fits")).exit_code, 0);
+  ASSERT_EQ(test::run_stage("ingest", "--config " + test::source_file("config/demo/ingest.toml") +
+                                          " --out " + dir.file("cat.fits"))
+                .exit_code,
+            0);
   DereddenOptions d = deredden_options_from_file(test::source_file("config/demo/deredden.toml"));
   d.input_path = dir.file("cat.fits");
   d.output_path = dir.file("dered.fits");
@@ -378,8 +407,10 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetAndAgreesWithEachRelation) {
   ASSERT_TRUE(j.solution.usable && j.solution.covariance_ok);
   EXPECT_EQ(j.method, "hierarchical");
 
-  for (const auto& w : j.warnings) EXPECT_EQ(w.find("COEFFS"), std::string::npos) << w;  // the table was found
-  const double off = j.solution.theta[j.layout.offset], e = std::sqrt(j.solution.covariance(j.layout.offset, j.layout.offset));
+  for (const auto& w : j.warnings)
+    EXPECT_EQ(w.find("COEFFS"), std::string::npos) << w;  // the table was found
+  const double off = j.solution.theta[j.layout.offset],
+               e = std::sqrt(j.solution.covariance(j.layout.offset, j.layout.offset));
   EXPECT_NEAR(off, -0.010, 2 * e);
   // Each relation's zero point as its own fit has it, within the two errors.
   for (std::size_t k = 0; k < r.relations.size(); ++k) {
@@ -392,7 +423,8 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetAndAgreesWithEachRelation) {
   // The bootstrap over stars agrees with the covariance error of the offset (within the
   // scatter 60 resamples allow).
   std::vector<double> boot;
-  for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b) boot.push_back(j.bootstrap(b, j.layout.offset));
+  for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b)
+    boot.push_back(j.bootstrap(b, j.layout.offset));
   ASSERT_EQ(j.bootstrap_failed, 0);
   double mean = 0, var = 0;
   for (double v : boot) mean += v / static_cast<double>(boot.size());
@@ -404,7 +436,8 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetAndAgreesWithEachRelation) {
   // anchors' moduli with their published priors (config/demo/fit.toml).
   const nlohmann::json doc = nlohmann::json::parse(json);
   std::map<std::string, nlohmann::json> joint_params;
-  for (const auto& p : doc.at("joint").at("parameters")) joint_params[p.at("name").get<std::string>()] = p;
+  for (const auto& p : doc.at("joint").at("parameters"))
+    joint_params[p.at("name").get<std::string>()] = p;
   ASSERT_TRUE(joint_params.count("blend_ratio_W_G")) << doc.at("joint").at("parameter_names");
   EXPECT_EQ(joint_params.at("blend_ratio_W_G").at("mode"), "free");
   EXPECT_EQ(joint_params.at("alpha_W_VI").at("mode"), "free");

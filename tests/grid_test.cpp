@@ -137,7 +137,8 @@ TEST(Grid, ReportRendersTheBudgetInEachFormat) {
   ASSERT_TRUE(test::file_exists(dir.file("grid/grid.json")));
   ASSERT_TRUE(test::file_exists(dir.file("grid/error_budget.csv")));
   const std::string md = error_budget_table(grid.budget, TableFormat::kMarkdown);
-  EXPECT_NE(md.find("| W_VI: zero point alpha (mag)"), std::string::npos) << md;  // readable names (issue 20)
+  EXPECT_NE(md.find("| W_VI: zero point alpha (mag)"), std::string::npos)
+      << md;  // readable names (issue 20)
   EXPECT_NE(md.find("extinction"), std::string::npos);
   EXPECT_NE(md.find("quality cuts"), std::string::npos);
   // The total is the quadrature sum of the categories, as printed.

@@ -26,7 +26,8 @@ FitData mixed_data() {
   FitData d;
   auto add = [](FitData::Common& c, double x, double feh, double m0, double var_m, double var_feh) {
     const Eigen::Index n = c.x.size() + 1;
-    for (Eigen::ArrayXd* a : {&c.x, &c.xl, &c.feh, &c.m0, &c.var_m, &c.var_feh}) a->conservativeResize(n);
+    for (Eigen::ArrayXd* a : {&c.x, &c.xl, &c.feh, &c.m0, &c.var_m, &c.var_feh})
+      a->conservativeResize(n);
     c.x[n - 1] = x, c.xl[n - 1] = std::max(0.0, x - 0.2), c.feh[n - 1] = feh, c.m0[n - 1] = m0;
     c.var_m[n - 1] = var_m, c.var_feh[n - 1] = var_feh;
     c.row.push_back(static_cast<std::size_t>(n - 1));
@@ -55,16 +56,22 @@ struct MixedCase {
 
 MixedCase mixed_setup() {
   MixedCase s;
-  s.layout = ParameterLayout::for_terms(ModelTerms{1.0, true, 1.2, true, 1, true, true, 0, true}, {"GAL"});
+  s.layout =
+      ParameterLayout::for_terms(ModelTerms{1.0, true, 1.2, true, 1, true, true, 0, true}, {"GAL"});
   s.settings.space = FitSpace::kHierarchical;
   s.settings.params.assign(static_cast<std::size_t>(s.layout.size), ParamSpec{});
-  s.settings.params[static_cast<std::size_t>(s.layout.anchor0)] = ParamSpec{ParamMode::kPrior, 18.5, 0.05, true};
-  s.settings.params[static_cast<std::size_t>(s.layout.gamma)] = ParamSpec{ParamMode::kPrior, -0.2, 0.1, true};
+  s.settings.params[static_cast<std::size_t>(s.layout.anchor0)] =
+      ParamSpec{ParamMode::kPrior, 18.5, 0.05, true};
+  s.settings.params[static_cast<std::size_t>(s.layout.gamma)] =
+      ParamSpec{ParamMode::kPrior, -0.2, 0.1, true};
   const ParameterLayout& L = s.layout;
   s.theta = Eigen::VectorXd::Zero(L.size);
-  s.theta[L.alpha] = -5.8, s.theta[L.beta] = -3.2, s.theta[L.beta_long] = 0.3, s.theta[L.gamma] = -0.15;
-  s.theta[L.offset] = -0.02, s.theta[L.sigma] = 0.09, s.theta[L.anchor0] = 18.45, s.theta[L.outlier] = 0.07;
-  s.theta[L.distance_scale] = 1.1, s.theta[L.distance_power] = 1.4, s.theta[L.distance_exponent] = 0.8;
+  s.theta[L.alpha] = -5.8, s.theta[L.beta] = -3.2, s.theta[L.beta_long] = 0.3,
+  s.theta[L.gamma] = -0.15;
+  s.theta[L.offset] = -0.02, s.theta[L.sigma] = 0.09, s.theta[L.anchor0] = 18.45,
+  s.theta[L.outlier] = 0.07;
+  s.theta[L.distance_scale] = 1.1, s.theta[L.distance_power] = 1.4,
+  s.theta[L.distance_exponent] = 0.8;
   s.theta[L.feh_mean] = 0.03, s.theta[L.feh_spread] = 0.17;
   s.theta[L.outlier_shift] = 0.4, s.theta[L.outlier_width] = 0.7;
   s.theta[L.blend] = 0.12, s.theta[L.blend_scale] = 0.45;
@@ -73,8 +80,8 @@ MixedCase mixed_setup() {
 
 // d external / d internal, as hierarchical.cpp maps each parameter.
 double internal_slope(const ParameterLayout& L, int j, double v) {
-  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread || j == L.outlier_width ||
-      j == L.blend_scale)
+  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread ||
+      j == L.outlier_width || j == L.blend_scale)
     return v;
   if (j == L.distance_power) return v + 1.0;
   if (j == L.outlier || j == L.blend) return v * (1.0 - v);
@@ -86,15 +93,18 @@ void expect_gradient_matches_differences(const MixedCase& s) {
   HierarchicalValue v = hierarchical_value(s.data, s.settings, s.layout, s.theta);
   ASSERT_TRUE(v.finite);
   for (int j = 0; j < s.layout.size; ++j) {
-    if (s.settings.params[static_cast<std::size_t>(j)].mode == ParamMode::kFixed) continue;  // e.g. a fraction fixed at 0
+    if (s.settings.params[static_cast<std::size_t>(j)].mode == ParamMode::kFixed)
+      continue;  // e.g. a fraction fixed at 0
     const double h = 1e-5 * std::max(1.0, std::abs(s.theta[j]));
     Eigen::VectorXd up = s.theta, down = s.theta;
     up[j] += h, down[j] -= h;
-    const double numeric = (hierarchical_value(s.data, s.settings, s.layout, up).neg_log_likelihood -
-                            hierarchical_value(s.data, s.settings, s.layout, down).neg_log_likelihood) /
-                           (2 * h);
+    const double numeric =
+        (hierarchical_value(s.data, s.settings, s.layout, up).neg_log_likelihood -
+         hierarchical_value(s.data, s.settings, s.layout, down).neg_log_likelihood) /
+        (2 * h);
     const double analytic = v.gradient[j] / internal_slope(s.layout, j, s.theta[j]);
-    EXPECT_NEAR(analytic, numeric, 2e-6 * std::max(1.0, std::abs(numeric))) << s.layout.names[static_cast<std::size_t>(j)];
+    EXPECT_NEAR(analytic, numeric, 2e-6 * std::max(1.0, std::abs(numeric)))
+        << s.layout.names[static_cast<std::size_t>(j)];
   }
 }
 
@@ -123,20 +133,27 @@ TEST(Hierarchical, BlendQuadratureOfTheDefaultRuleEqualsAFinerOne) {
   for (double scale : {0.1, 0.45, 1.3}) {
     s.theta[s.layout.blend_scale] = scale;
     s.settings.hierarchical.quadrature_nodes = 24;
-    const double ours = hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood;
+    const double ours =
+        hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood;
     s.settings.hierarchical.quadrature_nodes = 64;
-    EXPECT_NEAR(hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood, ours, 2e-7) << scale;
+    EXPECT_NEAR(hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood, ours,
+                2e-7)
+        << scale;
     s.settings.hierarchical.blends = BlendComponent::kRising;
-    const double fine = hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood;
+    const double fine =
+        hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood;
     s.settings.hierarchical.quadrature_nodes = 24;
-    EXPECT_NEAR(hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood, fine, 2e-7) << "rising " << scale;
+    EXPECT_NEAR(hierarchical_value(s.data, s.settings, s.layout, s.theta).neg_log_likelihood, fine,
+                2e-7)
+        << "rising " << scale;
     s.settings.hierarchical.blends = BlendComponent::kNone;
   }
 }
 
 TEST(Hierarchical, GradientWithoutTheOutlierComponentButWithBlendsEqualsCentralDifferences) {
   MixedCase s = mixed_setup();
-  s.settings.params[static_cast<std::size_t>(s.layout.outlier)] = ParamSpec{ParamMode::kFixed, 0.0, 0, true};
+  s.settings.params[static_cast<std::size_t>(s.layout.outlier)] =
+      ParamSpec{ParamMode::kFixed, 0.0, 0, true};
   s.theta[s.layout.outlier] = 0.0;
   expect_gradient_matches_differences(s);
 }
@@ -145,14 +162,16 @@ TEST(Hierarchical, GradientWithoutTheOutlierComponentButWithBlendsEqualsCentralD
 // the prior's d ln p / d mu as well.
 TEST(Hierarchical, GradientWithTheSmoothHistogramPriorEqualsCentralDifferences) {
   MixedCase s;
-  s.layout = ParameterLayout::for_terms(ModelTerms{1.0, false, 0, true, 1, true, true, 8, true}, {"GAL"});
+  s.layout =
+      ParameterLayout::for_terms(ModelTerms{1.0, false, 0, true, 1, true, true, 8, true}, {"GAL"});
   s.settings.space = FitSpace::kHierarchical;
   s.settings.hierarchical.histogram_start = 8.5, s.settings.hierarchical.histogram_step = 0.5;
   s.settings.hierarchical.histogram_alpha_ref = -5.8;
   s.settings.params.assign(static_cast<std::size_t>(s.layout.size), ParamSpec{});
   const ParameterLayout& L = s.layout;
   s.theta = Eigen::VectorXd::Zero(L.size);
-  s.theta[L.alpha] = -5.8, s.theta[L.beta] = -3.2, s.theta[L.gamma] = -0.15, s.theta[L.offset] = -0.02;
+  s.theta[L.alpha] = -5.8, s.theta[L.beta] = -3.2, s.theta[L.gamma] = -0.15,
+  s.theta[L.offset] = -0.02;
   s.theta[L.sigma] = 0.09, s.theta[L.anchor0] = 18.45, s.theta[L.outlier] = 0.07;
   s.theta[L.feh_mean] = 0.03, s.theta[L.feh_spread] = 0.17;
   s.theta[L.outlier_shift] = 0.4, s.theta[L.outlier_width] = 0.7;
@@ -165,7 +184,8 @@ TEST(Hierarchical, GradientWithTheSmoothHistogramPriorEqualsCentralDifferences) 
   double sum = 0;
   for (double mu = 0; mu < 20; mu += 0.001) sum += std::exp(p.at(mu).log_density) * 0.001;
   EXPECT_NEAR(sum, 1.0, 1e-9);
-  for (double mu : {-10.0, 60.0}) EXPECT_TRUE(std::isfinite(p.at(mu).log_density) && std::isfinite(p.at(mu).d_mu)) << mu;
+  for (double mu : {-10.0, 60.0})
+    EXPECT_TRUE(std::isfinite(p.at(mu).log_density) && std::isfinite(p.at(mu).d_mu)) << mu;
 }
 
 // One parallax star's member likelihood, integrated by scipy.integrate.quad over mu with the
@@ -189,27 +209,38 @@ print(repr(np.log(v)))
 )";
   struct Case {
     double m0, var_m, plx, plx_err;
-  } cases[] = {{6.0, 0.0081, 0.7, 0.015}, {9.5, 0.0081, 0.06, 0.05}, {10.8, 0.05, -0.03, 0.04}, {4.0, 0.0081, 2.2, 0.02}};
+  } cases[] = {{6.0, 0.0081, 0.7, 0.015},
+               {9.5, 0.0081, 0.06, 0.05},
+               {10.8, 0.05, -0.03, 0.04},
+               {4.0, 0.0081, 2.2, 0.02}};
   for (const Case& c : cases) {
     FitData d;
-    d.parallax.x = Eigen::ArrayXd::Zero(1), d.parallax.xl = d.parallax.x, d.parallax.feh = d.parallax.x;
-    d.parallax.m0 = Eigen::ArrayXd::Constant(1, c.m0), d.parallax.var_m = Eigen::ArrayXd::Constant(1, c.var_m - 0.0064);
+    d.parallax.x = Eigen::ArrayXd::Zero(1), d.parallax.xl = d.parallax.x,
+    d.parallax.feh = d.parallax.x;
+    d.parallax.m0 = Eigen::ArrayXd::Constant(1, c.m0),
+    d.parallax.var_m = Eigen::ArrayXd::Constant(1, c.var_m - 0.0064);
     d.parallax.row = {0};
-    d.plx = Eigen::ArrayXd::Constant(1, c.plx), d.var_plx = Eigen::ArrayXd::Constant(1, c.plx_err * c.plx_err);
-    ParameterLayout L = ParameterLayout::for_terms(ModelTerms{1.0, false, 0, false, 0, true, false}, {});
+    d.plx = Eigen::ArrayXd::Constant(1, c.plx),
+    d.var_plx = Eigen::ArrayXd::Constant(1, c.plx_err * c.plx_err);
+    ParameterLayout L =
+        ParameterLayout::for_terms(ModelTerms{1.0, false, 0, false, 0, true, false}, {});
     FitSettings s;
     s.space = FitSpace::kHierarchical;
     s.params.assign(static_cast<std::size_t>(L.size), ParamSpec{});
-    s.params[static_cast<std::size_t>(L.outlier)] = ParamSpec{ParamMode::kFixed, 0.0, 0, true};  // the member alone
+    s.params[static_cast<std::size_t>(L.outlier)] =
+        ParamSpec{ParamMode::kFixed, 0.0, 0, true};  // the member alone
     Eigen::VectorXd t(L.size);
     t[L.alpha] = -4.1, t[L.beta] = -3.0, t[L.offset] = -0.015, t[L.sigma] = 0.08;
-    t[L.outlier] = 0.0, t[L.outlier_shift] = 0.0, t[L.outlier_width] = 1.0, t[L.distance_scale] = 1.3, t[L.distance_power] = 2.0, t[L.distance_exponent] = 1.0;
+    t[L.outlier] = 0.0, t[L.outlier_shift] = 0.0, t[L.outlier_width] = 1.0,
+    t[L.distance_scale] = 1.3, t[L.distance_power] = 2.0, t[L.distance_exponent] = 1.0;
     const double ours = -hierarchical_value(d, s, L, t).neg_log_likelihood;
     s.hierarchical.quadrature_nodes = 64;
-    EXPECT_NEAR(-hierarchical_value(d, s, L, t).neg_log_likelihood, ours, 1e-10) << "24 against 64 nodes";
+    EXPECT_NEAR(-hierarchical_value(d, s, L, t).neg_log_likelihood, ours, 1e-10)
+        << "24 against 64 nodes";
     test::CommandResult py = test::run_python(
-        script, {fmt::format("{:.17g}", c.m0), fmt::format("{:.17g}", c.var_m), fmt::format("{:.17g}", c.plx),
-                 fmt::format("{:.17g}", c.plx_err * c.plx_err), "-4.1", "-0.015", "1.3", "2", "1"});
+        script, {fmt::format("{:.17g}", c.m0), fmt::format("{:.17g}", c.var_m),
+                 fmt::format("{:.17g}", c.plx), fmt::format("{:.17g}", c.plx_err * c.plx_err),
+                 "-4.1", "-0.015", "1.3", "2", "1"});
     ASSERT_EQ(py.exit_code, 0) << py.output;
     const double reference = test::parse_numbers(py.output).at(0);
     EXPECT_NEAR(ours, reference, 1e-9 * std::max(1.0, std::abs(reference))) << "parallax " << c.plx;
@@ -220,7 +251,8 @@ TEST(Hierarchical, GaussHermiteRuleEqualsNumpyHermgauss) {
   std::vector<double> x, w;
   gauss_hermite(24, x, w);
   test::CommandResult py = test::run_python(
-      "import numpy as np\nx, w = np.polynomial.hermite.hermgauss(24)\nprint(' '.join(repr(v) for v in list(x) + list(w)))\n");
+      "import numpy as np\nx, w = np.polynomial.hermite.hermgauss(24)\nprint(' '.join(repr(v) for "
+      "v in list(x) + list(w)))\n");
   ASSERT_EQ(py.exit_code, 0) << py.output;
   std::vector<double> ref = test::parse_numbers(py.output);
   ASSERT_EQ(ref.size(), 48u);
@@ -254,25 +286,31 @@ TEST(Hierarchical, BootstrapMetricLeavesEachResampleWithinAFewHundredthsOfAnErro
     const FitSolution e = solve_fit(sample, plain, rr.layout, rr.solution.theta);
     ASSERT_TRUE(a.usable && e.usable) << a.message << " / " << e.message;
     for (const char* name : {"alpha", "beta", "parallax_offset_mas", "sigma_int"}) {
-      const int j = static_cast<int>(std::find(rr.layout.names.begin(), rr.layout.names.end(), name) - rr.layout.names.begin());
+      const int j =
+          static_cast<int>(std::find(rr.layout.names.begin(), rr.layout.names.end(), name) -
+                           rr.layout.names.begin());
       // sigma_int 0.2: a resample whose sigma_int lands far below the sample's (0.01 for
       // 0.06 +- 0.035 here) sits where -ln L is flat in log sigma_int, and the gradient
       // tolerance in units of the sample's errors stops short there by up to 0.16 errors.
       const double tolerance = std::string(name) == "sigma_int" ? 0.2 : 0.05;
-      EXPECT_LT(std::abs(a.theta[j] - e.theta[j]), tolerance * rr.error(name)) << "resample " << b << ": " << name;
+      EXPECT_LT(std::abs(a.theta[j] - e.theta[j]), tolerance * rr.error(name))
+          << "resample " << b << ": " << name;
     }
   }
 }
 
 TEST(DistancePrior, DigammaEqualsScipyAndTheDensityIsNormalised) {
   test::CommandResult py = test::run_python(
-      "from scipy import special\nprint(' '.join(repr(special.digamma(v)) for v in [0.1, 0.5, 1.0, 2.5, 3.0, 7.3, 40.0]))\n");
+      "from scipy import special\nprint(' '.join(repr(special.digamma(v)) for v in [0.1, 0.5, 1.0, "
+      "2.5, 3.0, 7.3, 40.0]))\n");
   ASSERT_EQ(py.exit_code, 0) << py.output;
   std::vector<double> ref = test::parse_numbers(py.output);
   const double xs[] = {0.1, 0.5, 1.0, 2.5, 3.0, 7.3, 40.0};
-  for (std::size_t i = 0; i < 7; ++i) EXPECT_NEAR(digamma(xs[i]), ref[i], 1e-12 * std::max(1.0, std::abs(ref[i])));
+  for (std::size_t i = 0; i < 7; ++i)
+    EXPECT_NEAR(digamma(xs[i]), ref[i], 1e-12 * std::max(1.0, std::abs(ref[i])));
   // Trapezoid rule over mu: the density integrates to 1 for any hyperparameters.
-  for (auto [L, k, a] : {std::tuple{1.0, 2.0, 1.0}, std::tuple{3.0, 0.5, 2.0}, std::tuple{0.4, -0.5, 0.7}}) {
+  for (auto [L, k, a] :
+       {std::tuple{1.0, 2.0, 1.0}, std::tuple{3.0, 0.5, 2.0}, std::tuple{0.4, -0.5, 0.7}}) {
     DistancePriorShape p = DistancePriorShape::make(L, k, a);
     double sum = 0;
     const double step = 0.001;
@@ -340,27 +378,36 @@ void expect_unbiased_with_honest_intervals(const StudyCase& c) {
 
 // One test per case, so that ctest runs them side by side.
 TEST(HierarchicalSimulation, WesenheitOnADiskWithEveryContamination) {
-  expect_unbiased_with_honest_intervals(
-      {"Wesenheit, disk, every contamination, N = 300", 300, 100, 0.08, 0.0, MockDistances::kDisk, true, 0.3, 0.55, 0.80});
+  expect_unbiased_with_honest_intervals({"Wesenheit, disk, every contamination, N = 300", 300, 100,
+                                         0.08, 0.0, MockDistances::kDisk, true, 0.3, 0.55, 0.80});
 }
 
 TEST(HierarchicalSimulation, OpticalFlatInModulusWithEveryContamination) {
-  expect_unbiased_with_honest_intervals({"optical, flat in mu, every contamination, N = 300", 300, 100, 0.20, 3.1,
-                                         MockDistances::kFlatModulus, true, 0.3, 0.55, 0.80});
+  expect_unbiased_with_honest_intervals({"optical, flat in mu, every contamination, N = 300", 300,
+                                         100, 0.20, 3.1, MockDistances::kFlatModulus, true, 0.3,
+                                         0.55, 0.80});
 }
 
 // Clusters beside field stars: 8 clusters of 4 members (the members with every
 // contamination too) and 150 field stars; 60 mocks, so the mean bias scatters by 0.13.
 TEST(HierarchicalSimulation, WesenheitWithClustersAndEveryContamination) {
   StudyCase c{"Wesenheit, disk, 150 field stars and 8 clusters of 4, every contamination",
-              150, 60, 0.08, 0.0, MockDistances::kDisk, true, 0.4, 0.5, 0.85};
+              150,
+              60,
+              0.08,
+              0.0,
+              MockDistances::kDisk,
+              true,
+              0.4,
+              0.5,
+              0.85};
   c.clusters = 8, c.cluster_members = 4;
   expect_unbiased_with_honest_intervals(c);
 }
 
 TEST(HierarchicalSimulation, WesenheitOnADiskAtThreeThousandStars) {
-  expect_unbiased_with_honest_intervals(
-      {"Wesenheit, disk, every contamination, N = 3000", 3000, 16, 0.08, 0.0, MockDistances::kDisk, true, 0.8, 0.45, 0.95});
+  expect_unbiased_with_honest_intervals({"Wesenheit, disk, every contamination, N = 3000", 3000, 16,
+                                         0.08, 0.0, MockDistances::kDisk, true, 0.8, 0.45, 0.95});
 }
 
 }  // namespace

@@ -97,7 +97,8 @@ TEST(IngestReference, LmcFundamentalCepheidsHeaderless) {
   std::size_t both = 0;
   const Column& v = r.catalog.column("mag_V");
   const Column& i = r.catalog.column("mag_I");
-  for (std::size_t k = 0; k < r.catalog.rows(); ++k) both += (!v.is_null(k) && !i.is_null(k)) ? 1 : 0;
+  for (std::size_t k = 0; k < r.catalog.rows(); ++k)
+    both += (!v.is_null(k) && !i.is_null(k)) ? 1 : 0;
   EXPECT_EQ(both, 2315u);
   EXPECT_EQ(r.catalog.rows() + r.rejected.size(), 2477u);
   // Last line of the file (no final newline): OGLE-LMC-CEP-4712, I 15.372, V 16.087, P 2.7551528 d.
@@ -110,9 +111,11 @@ TEST(IngestReference, LmcFundamentalCepheidsHeaderless) {
 
 TEST(IngestReference, AstropyOpensEveryCatalogWithUnitsAndProvenance) {
   test::TempDir dir;
-  for (const char* c : {"mw_cepheids_hst_gaiadr2.toml", "rrlyrae_distance_priors.toml", "lmc_fundamental_cepheids.toml"})
+  for (const char* c : {"mw_cepheids_hst_gaiadr2.toml", "rrlyrae_distance_priors.toml",
+                        "lmc_fundamental_cepheids.toml"})
     ingest_reference(c, dir.file(std::string(c) + ".fits"));
-  auto r = test::run_python(R"(
+  auto r = test::run_python(
+      R"(
 import sys, warnings
 from astropy.table import Table
 from astropy.io import fits
@@ -122,8 +125,9 @@ for path in sys.argv[1:]:
     rej = Table.read(path, hdu="REJECTS")
     h = fits.getheader(path, "CATALOG")
     print(len(t), len(rej), str(t["period_d"].unit), h["RGSTAGE"], h["RGPRODUC"], len(h["RGSHA01"]), h["RGSCHEMA"])
-)", {dir.file("mw_cepheids_hst_gaiadr2.toml.fits"), dir.file("rrlyrae_distance_priors.toml.fits"),
-     dir.file("lmc_fundamental_cepheids.toml.fits")});
+)",
+      {dir.file("mw_cepheids_hst_gaiadr2.toml.fits"), dir.file("rrlyrae_distance_priors.toml.fits"),
+       dir.file("lmc_fundamental_cepheids.toml.fits")});
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_NE(r.output.find("46 4 d ingest catalog 64 1"), std::string::npos) << r.output;
   EXPECT_NE(r.output.find("128 6 d ingest catalog 64 1"), std::string::npos) << r.output;
@@ -137,31 +141,33 @@ const char* kGoodCsv =
     "S2,10.0,-0.1,0.08,11.0,0.02,0.2,1O\n"
     "S3,20.0,0.3,0.04,10.0,0.02,0.1,F\n";
 
-std::string config_for(const std::string& input, const std::string& out, const std::string& extra = "",
-                       const std::string& columns_extra = "") {
+std::string config_for(const std::string& input, const std::string& out,
+                       const std::string& extra = "", const std::string& columns_extra = "") {
   return "[source]\npath = \"" + input + "\"\n" + extra +
          "\n[columns]\nid = \"id\"\nperiod = { column = \"P\", unit = \"d\" }\nparallax = \"plx\"\n"
-         "parallax_err = \"plx_err\"\nebv = \"ebv\"\nmode = \"mode\"\npulsator_class = { value = \"classical_cepheid\" }\n" +
-         columns_extra + "\n[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n\n[output]\ncatalog = \"" + out + "\"\n";
+         "parallax_err = \"plx_err\"\nebv = \"ebv\"\nmode = \"mode\"\npulsator_class = { value = "
+         "\"classical_cepheid\" }\n" +
+         columns_extra + "\n[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n\n[output]\ncatalog = \"" +
+         out + "\"\n";
 }
 
 TEST(IngestRows, EachBrokenRuleRejectsItsRowAndNamesIt) {
   test::TempDir dir;
   test::write_text(dir.file("in.csv"),
                    "id,P,plx,plx_err,V,V_err,ebv,mode\r\n"
-                   "S1,5.0,0.5,0.05,12.0,0.02,0.3,F\r\n"      // line 2: good
-                   "S1,6.0,0.5,0.05,12.0,0.02,0.3,F\r\n"      // duplicate_id
-                   "S3,-2,0.5,0.05,12.0,0.02,0.3,F\r\n"       // period_nonpositive
-                   "S4,5.0,0.5,0,12.0,0.02,0.3,F\r\n"         // parallax_error_nonpositive
-                   "S5,5.0,abc,0.05,12.0,0.02,0.3,F\r\n"      // not_a_number
-                   "S6,5.0,0.5,0.05,99.0,0.02,0.3,F\r\n"      // magnitude_out_of_range
-                   "S7,5.0,0.5,0.05,12.0,0.02,11.5,F\r\n"     // ebv_out_of_range
-                   "S8,5.0,0.5,0.05,12.0,0.02,0.3,3O\r\n"     // unknown_mode
-                   "S9,,0.5,0.05,12.0,0.02,0.3,F\r\n"         // missing_required
-                   "S10,5.0,inf,0.05,12.0,0.02,0.3,F\r\n"     // not_finite
-                   "S11,5.0,0.5,0.05,12.0,,0.3,F\r\n"         // missing_error
-                   "S12,5.0,0.5,0.05,12.0,-0.1,0.3,F\r\n"     // magnitude_error_nonpositive
-                   "S13,5.0,-0.7,0.05,12.0,0.02,0.3,1O\r\n"); // good: negative parallaxes are data
+                   "S1,5.0,0.5,0.05,12.0,0.02,0.3,F\r\n"       // line 2: good
+                   "S1,6.0,0.5,0.05,12.0,0.02,0.3,F\r\n"       // duplicate_id
+                   "S3,-2,0.5,0.05,12.0,0.02,0.3,F\r\n"        // period_nonpositive
+                   "S4,5.0,0.5,0,12.0,0.02,0.3,F\r\n"          // parallax_error_nonpositive
+                   "S5,5.0,abc,0.05,12.0,0.02,0.3,F\r\n"       // not_a_number
+                   "S6,5.0,0.5,0.05,99.0,0.02,0.3,F\r\n"       // magnitude_out_of_range
+                   "S7,5.0,0.5,0.05,12.0,0.02,11.5,F\r\n"      // ebv_out_of_range
+                   "S8,5.0,0.5,0.05,12.0,0.02,0.3,3O\r\n"      // unknown_mode
+                   "S9,,0.5,0.05,12.0,0.02,0.3,F\r\n"          // missing_required
+                   "S10,5.0,inf,0.05,12.0,0.02,0.3,F\r\n"      // not_finite
+                   "S11,5.0,0.5,0.05,12.0,,0.3,F\r\n"          // missing_error
+                   "S12,5.0,0.5,0.05,12.0,-0.1,0.3,F\r\n"      // magnitude_error_nonpositive
+                   "S13,5.0,-0.7,0.05,12.0,0.02,0.3,1O\r\n");  // good: negative parallaxes are data
   test::write_text(dir.file("c.toml"), config_for("in.csv", "out/cat.fits"));
   IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
   o.text.missing = {};  // "inf" must be read as a number to be refused as not finite
@@ -172,9 +178,10 @@ TEST(IngestRows, EachBrokenRuleRejectsItsRowAndNamesIt) {
   std::vector<std::pair<std::int64_t, std::string>> got;
   for (const auto& rej : r.rejected) got.emplace_back(rej.source_row, rej.rule);
   std::vector<std::pair<std::int64_t, std::string>> want = {
-      {3, "duplicate_id"}, {4, "period_nonpositive"}, {5, "parallax_error_nonpositive"}, {6, "not_a_number"},
-      {7, "magnitude_out_of_range"}, {8, "ebv_out_of_range"}, {9, "unknown_mode"}, {10, "missing_required"},
-      {11, "not_finite"}, {12, "missing_error"}, {13, "magnitude_error_nonpositive"}};
+      {3, "duplicate_id"},   {4, "period_nonpositive"},          {5, "parallax_error_nonpositive"},
+      {6, "not_a_number"},   {7, "magnitude_out_of_range"},      {8, "ebv_out_of_range"},
+      {9, "unknown_mode"},   {10, "missing_required"},           {11, "not_finite"},
+      {12, "missing_error"}, {13, "magnitude_error_nonpositive"}};
   EXPECT_EQ(got, want);
   EXPECT_EQ(r.rejected[0].message, "id 'S1' was already used at line 2");
   EXPECT_EQ(r.rejected[3].column, "plx");
@@ -301,12 +308,13 @@ TEST(IngestRows, NanInFitsIsMissingAndUnitsConvert) {
   row("B", std::nan(""), 5e-4, 12.0);
   write_fits_tables(dir.file("in.fits"), {{"STARS", &t}});
   // No unit in the config: the file's TUNIT (h, arcsec) is used.
-  test::write_text(dir.file("c.toml"), test::replaced(config_for("in.fits", "cat.fits", "hdu = \"STARS\"\n"),
-                                                      {{"{ column = \"P\", unit = \"d\" }", "\"P\""}}));
+  test::write_text(dir.file("c.toml"),
+                   test::replaced(config_for("in.fits", "cat.fits", "hdu = \"STARS\"\n"),
+                                  {{"{ column = \"P\", unit = \"d\" }", "\"P\""}}));
   IngestResult r = run_ingest(ingest_options_from_file(dir.file("c.toml")));
   ASSERT_EQ(r.catalog.rows(), 1u);
-  EXPECT_DOUBLE_EQ(r.catalog.column(col::kPeriod).real[0], 5.0);      // 120 h
-  EXPECT_DOUBLE_EQ(r.catalog.column(col::kParallax).real[0], 0.5);    // 5e-4 arcsec
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kPeriod).real[0], 5.0);    // 120 h
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kParallax).real[0], 0.5);  // 5e-4 arcsec
   EXPECT_DOUBLE_EQ(r.catalog.column(col::kParallaxErr).real[0], 0.05);
   ASSERT_EQ(r.rejected.size(), 1u);
   EXPECT_EQ(r.rejected[0].rule, "missing_required");
@@ -416,12 +424,12 @@ TEST(IngestRows, EveryColumnTypeConstantAndLogUnitMapsToItsValue) {
 // One whole-file failure: what to write, which rule and exit code to expect.
 struct BadCase {
   const char* name;
-  std::string config;   // config text ("" = none written)
-  std::string input;    // input file content
+  std::string config;  // config text ("" = none written)
+  std::string input;   // input file content
   std::string input_name = "in.csv";
-  std::string rule;     // expected [rule] in the message
+  std::string rule;  // expected [rule] in the message
   int exit_code = 2;
-  std::string args;     // command-line args; default --config c.toml
+  std::string args;  // command-line args; default --config c.toml
 };
 
 // Test names in listings, not the struct's bytes.
@@ -429,7 +437,9 @@ void PrintTo(const BadCase& c, std::ostream* os) { *os << c.name; }
 
 BadCase bad(const char* name, std::string config, std::string input, std::string input_name,
             std::string rule, int exit_code = 2, std::string args = "") {
-  return BadCase{name, std::move(config), std::move(input), std::move(input_name), std::move(rule), exit_code, std::move(args)};
+  return BadCase{
+      name,      std::move(config), std::move(input), std::move(input_name), std::move(rule),
+      exit_code, std::move(args)};
 }
 
 std::vector<BadCase> bad_cases() {
@@ -446,37 +456,70 @@ std::vector<BadCase> bad_cases() {
   std::vector<BadCase> v;
   v.push_back(bad("config_missing", "", good, "in.csv", "unreadable_file"));
   v.push_back(bad("config_syntax", "[source\npath = 1\n", good, "in.csv", "config_syntax"));
-  v.push_back(bad("unknown_key_typo", cfg("delimter = \"comma\"\n"), good, "in.csv", "unknown_config_key"));
-  v.push_back(bad("unknown_quantity", cfg("", "paralax = \"plx\"\n"), good, "in.csv", "unknown_config_key"));
-  v.push_back(bad("unknown_section", base + "\n[fitt]\nloss = \"huber\"\n", good, "in.csv", "unknown_config_key"));
-  v.push_back(bad("no_source_table", replace(base, "[source]\npath = \"in.csv\"\n", ""), good, "in.csv", "config_missing_key"));
-  v.push_back(bad("no_id_mapping", replace(base, "id = \"id\"\n", ""), good, "in.csv", "config_value"));
-  v.push_back(bad("no_mode_mapping", replace(base, "mode = \"mode\"\n", ""), good, "in.csv", "config_value"));
-  v.push_back(bad("bad_delimiter_name", cfg("delimiter = \"spaces\"\n"), good, "in.csv", "config_value"));
+  v.push_back(
+      bad("unknown_key_typo", cfg("delimter = \"comma\"\n"), good, "in.csv", "unknown_config_key"));
+  v.push_back(bad("unknown_quantity", cfg("", "paralax = \"plx\"\n"), good, "in.csv",
+                  "unknown_config_key"));
+  v.push_back(bad("unknown_section", base + "\n[fitt]\nloss = \"huber\"\n", good, "in.csv",
+                  "unknown_config_key"));
+  v.push_back(bad("no_source_table", replace(base, "[source]\npath = \"in.csv\"\n", ""), good,
+                  "in.csv", "config_missing_key"));
+  v.push_back(
+      bad("no_id_mapping", replace(base, "id = \"id\"\n", ""), good, "in.csv", "config_value"));
+  v.push_back(bad("no_mode_mapping", replace(base, "mode = \"mode\"\n", ""), good, "in.csv",
+                  "config_value"));
+  v.push_back(
+      bad("bad_delimiter_name", cfg("delimiter = \"spaces\"\n"), good, "in.csv", "config_value"));
   v.push_back(bad("wrong_key_type", cfg("header = \"yes\"\n"), good, "in.csv", "config_value"));
   v.push_back(bad("hdu_on_text_source", cfg("hdu = 1\n"), good, "in.csv", "config_value"));
-  v.push_back(bad("reversed_magnitude_range", base + "\n[validate]\nmagnitude_range = [30, -5]\n", good, "in.csv", "config_value"));
-  v.push_back(bad("bad_mode_alias", base + "\n[modes]\nX = \"fundamentl\"\n", good, "in.csv", "config_value"));
-  v.push_back(bad("bad_select_op", base + "\n[[select]]\ncolumn = \"P\"\nop = \"=>\"\nvalue = 1\n", good, "in.csv", "config_value"));
-  v.push_back(bad("no_bands", replace(base, "[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n", ""), good, "in.csv", "config_value"));
-  v.push_back(bad("input_missing", replace(base, "in.csv", "nothere.csv"), good, "in.csv", "unreadable_file"));
+  v.push_back(bad("reversed_magnitude_range", base + "\n[validate]\nmagnitude_range = [30, -5]\n",
+                  good, "in.csv", "config_value"));
+  v.push_back(bad("bad_mode_alias", base + "\n[modes]\nX = \"fundamentl\"\n", good, "in.csv",
+                  "config_value"));
+  v.push_back(bad("bad_select_op", base + "\n[[select]]\ncolumn = \"P\"\nop = \"=>\"\nvalue = 1\n",
+                  good, "in.csv", "config_value"));
+  v.push_back(bad("no_bands", replace(base, "[bands.V]\nmag = \"V\"\nerr = \"V_err\"\n", ""), good,
+                  "in.csv", "config_value"));
+  v.push_back(bad("input_missing", replace(base, "in.csv", "nothere.csv"), good, "in.csv",
+                  "unreadable_file"));
   v.push_back(bad("empty_file", base, "", "in.csv", "empty_file"));
-  v.push_back(bad("header_only", base, "id,P,plx,plx_err,V,V_err,ebv,mode\n", "in.csv", "empty_file"));
-  v.push_back(bad("missing_required_column", base, "id,Q,plx,plx_err,V,V_err,ebv,mode\nS1,5,0.5,0.05,12,0.02,0.3,F\n", "in.csv", "missing_column"));
-  v.push_back(bad("field_count", base, "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,5,0.5,0.05,12,0.02,0.3\n", "in.csv", "field_count"));
+  v.push_back(
+      bad("header_only", base, "id,P,plx,plx_err,V,V_err,ebv,mode\n", "in.csv", "empty_file"));
+  v.push_back(bad("missing_required_column", base,
+                  "id,Q,plx,plx_err,V,V_err,ebv,mode\nS1,5,0.5,0.05,12,0.02,0.3,F\n", "in.csv",
+                  "missing_column"));
+  v.push_back(bad("field_count", base,
+                  "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,5,0.5,0.05,12,0.02,0.3\n", "in.csv",
+                  "field_count"));
   v.push_back(bad("utf16_bom", base, std::string("\xFF\xFE", 2) + good, "in.csv", "encoding"));
   v.push_back(bad("nul_bytes", base, std::string("id,P\0\0\0", 7), "in.csv", "encoding"));
-  v.push_back(bad("duplicate_header_column", base, "id,P,plx,plx_err,V,V_err,ebv,mode,P\nS1,5,0.5,0.05,12,0.02,0.3,F,1\n", "in.csv", "duplicate_column"));
-  v.push_back(bad("unterminated_quote", base, "id,P,plx,plx_err,V,V_err,ebv,mode\n\"S1,5,0.5,0.05,12,0.02,0.3,F\n", "in.csv", "unterminated_quote"));
-  v.push_back(bad("bad_unit", replace(base, "unit = \"d\"", "unit = \"fortnight\""), good, "in.csv", "bad_unit"));
-  v.push_back(bad("wrong_type_text_parallax", base, "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,5,high,0.05,12,0.02,0.3,F\nS2,6,low,0.05,12,0.02,0.3,F\n", "in.csv", "column_type"));
-  v.push_back(bad("all_rows_rejected", base, "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,-5,0.5,0.05,12,0.02,0.3,F\nS2,0,0.5,0.05,12,0.02,0.3,F\n", "in.csv", "no_rows_left"));
-  v.push_back(bad("select_unknown_column", base + "\n[[select]]\ncolumn = \"flag\"\nvalue = 0\n", good, "in.csv", "missing_column"));
-  v.push_back(bad("extra_unknown_column", base + "\n[extra]\nq = \"quality\"\n", good, "in.csv", "missing_column"));
-  v.push_back(bad("fits_not_fits", replace(base, "path = \"in.csv\"", "path = \"in.fits\""), good, "in.fits", "fits_read"));
-  v.push_back(bad("output_under_a_file", replace(base, "out/cat.fits", "in.csv/cat.fits"), good, "in.csv", "write_failed"));
+  v.push_back(bad("duplicate_header_column", base,
+                  "id,P,plx,plx_err,V,V_err,ebv,mode,P\nS1,5,0.5,0.05,12,0.02,0.3,F,1\n", "in.csv",
+                  "duplicate_column"));
+  v.push_back(bad("unterminated_quote", base,
+                  "id,P,plx,plx_err,V,V_err,ebv,mode\n\"S1,5,0.5,0.05,12,0.02,0.3,F\n", "in.csv",
+                  "unterminated_quote"));
+  v.push_back(bad("bad_unit", replace(base, "unit = \"d\"", "unit = \"fortnight\""), good, "in.csv",
+                  "bad_unit"));
+  v.push_back(bad("wrong_type_text_parallax", base,
+                  "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,5,high,0.05,12,0.02,0.3,F\nS2,6,low,0.05,"
+                  "12,0.02,0.3,F\n",
+                  "in.csv", "column_type"));
+  v.push_back(bad("all_rows_rejected", base,
+                  "id,P,plx,plx_err,V,V_err,ebv,mode\nS1,-5,0.5,0.05,12,0.02,0.3,F\nS2,0,0.5,0.05,"
+                  "12,0.02,0.3,F\n",
+                  "in.csv", "no_rows_left"));
+  v.push_back(bad("select_unknown_column", base + "\n[[select]]\ncolumn = \"flag\"\nvalue = 0\n",
+                  good, "in.csv", "missing_column"));
+  v.push_back(bad("extra_unknown_column", base + "\n[extra]\nq = \"quality\"\n", good, "in.csv",
+                  "missing_column"));
+  v.push_back(bad("fits_not_fits", replace(base, "path = \"in.csv\"", "path = \"in.fits\""), good,
+                  "in.fits", "fits_read"));
+  v.push_back(bad("output_under_a_file", replace(base, "out/cat.fits", "in.csv/cat.fits"), good,
+                  "in.csv", "write_failed"));
   v.push_back(bad("cli_no_config", "", good, "in.csv", "", 2, " "));
-  v.push_back(bad("cli_unknown_option", base, good, "in.csv", "", 2, "--config c.toml --frobnicate"));
+  v.push_back(
+      bad("cli_unknown_option", base, good, "in.csv", "", 2, "--config c.toml --frobnicate"));
   return v;
 }
 
@@ -488,14 +531,17 @@ TEST_P(IngestBadInput, StopsWithItsRuleAndExitCodeAndWritesNothing) {
   if (!c.config.empty()) test::write_text(dir.file("c.toml"), c.config);
   test::write_text(dir.file(c.input_name), c.input);
   std::string args = c.args.empty() ? "--config " + dir.file("c.toml") : c.args;
-  if (args.find("c.toml") != std::string::npos && c.args.size()) args = "--config " + dir.file("c.toml") + args.substr(args.find("c.toml") + 6);
+  if (args.find("c.toml") != std::string::npos && c.args.size())
+    args = "--config " + dir.file("c.toml") + args.substr(args.find("c.toml") + 6);
   auto r = test::run_stage("ingest", args);
   EXPECT_EQ(r.exit_code, c.exit_code) << r.output;
   if (!c.rule.empty()) {
     EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
     // The message names the file it is about (the config or the input).
-    EXPECT_TRUE(r.output.find("c.toml") != std::string::npos || r.output.find(c.input_name) != std::string::npos ||
-                r.output.find("nothere.csv") != std::string::npos) << r.output;
+    EXPECT_TRUE(r.output.find("c.toml") != std::string::npos ||
+                r.output.find(c.input_name) != std::string::npos ||
+                r.output.find("nothere.csv") != std::string::npos)
+        << r.output;
   }
   EXPECT_FALSE(test::file_exists(dir.file("out"))) << "an output folder was left behind";
   for (const auto& e : fs::recursive_directory_iterator(dir.path()))
@@ -534,11 +580,15 @@ TEST(IngestBadInput, FitsCasesNameTheirRule) {
     return test::run_stage("ingest", "--config " + dir.file(name + ".toml"));
   };
   // The file says arcsec, the config says mas: refuse rather than guess.
-  auto r = run("conflict", test::replaced(config_for("in.fits", "out/a.fits"), {{"parallax = \"plx\"", "parallax = { column = \"plx\", unit = \"mas\" }"}}));
+  auto r = run(
+      "conflict",
+      test::replaced(config_for("in.fits", "out/a.fits"),
+                     {{"parallax = \"plx\"", "parallax = { column = \"plx\", unit = \"mas\" }"}}));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("[unit_conflict]"), std::string::npos) << r.output;
   // A logical column mapped to E(B-V).
-  r = run("logical", test::replaced(config_for("in.fits", "out/b.fits"), {{"ebv = \"ebv\"", "ebv = \"ok\""}}));
+  r = run("logical",
+          test::replaced(config_for("in.fits", "out/b.fits"), {{"ebv = \"ebv\"", "ebv = \"ok\""}}));
   EXPECT_NE(r.output.find("[column_type]"), std::string::npos) << r.output;
   // No such HDU.
   r = run("hdu", config_for("in.fits", "out/c.fits", "hdu = \"PHOTOMETRY\"\n"));
@@ -563,7 +613,8 @@ TEST(IngestChunks, AFitsCatalogReadInGroupsOfRowsGivesTheSameCatalog) {
   chunked.catalog.header().clear();
   EXPECT_EQ(format_csv_table(chunked.catalog), format_csv_table(whole.catalog));
   EXPECT_EQ(chunked.rejected.size(), whole.rejected.size());
-  EXPECT_EQ(chunked.rows_read, 170u);  // 120 field calibrators, 12 cluster members, 38 in anchor galaxies
+  EXPECT_EQ(chunked.rows_read,
+            170u);  // 120 field calibrators, 12 cluster members, 38 in anchor galaxies
 }
 
 TEST(IngestChunks, AStreamedCatalogFileEqualsTheOneWrittenWhole) {
@@ -590,7 +641,8 @@ TEST(IngestChunks, AStreamedCatalogFileEqualsTheOneWrittenWhole) {
   EXPECT_EQ(streamed.catalog.rows(), 0u);  // the rows are in the file only
   ASSERT_EQ(streamed.rejected.size(), whole.rejected.size());
   bool duplicate = false;
-  for (const auto& r : streamed.rejected) duplicate |= r.rule == "duplicate_id" && r.source_row == 16;
+  for (const auto& r : streamed.rejected)
+    duplicate |= r.rule == "duplicate_id" && r.source_row == 16;
   EXPECT_TRUE(duplicate);
   for (const char* hdu : {"CATALOG", "REJECTS"}) {
     StarTable a = read_fits_table(dir.file("whole.fits"), {hdu, 0}).table;

@@ -142,7 +142,8 @@ JointCase joint_case(int relations) {
   c.theta[L.blend] = 0.12, c.theta[L.blend_scale] = 0.45;
   // Coloured blends: a companion adds more light in the second relation, less in the third.
   constexpr double kRatio[3] = {1.0, 1.4, 0.7};
-  for (int r = 1; r < relations; ++r) c.theta[L.blend_ratio[static_cast<std::size_t>(r)]] = kRatio[r];
+  for (int r = 1; r < relations; ++r)
+    c.theta[L.blend_ratio[static_cast<std::size_t>(r)]] = kRatio[r];
   return c;
 }
 
@@ -170,8 +171,10 @@ Eigen::VectorXd single_parameters(const JointCase& c, FitSettings& single) {
   const ParameterLayout& S = single_layout();
   single = c.settings;
   single.params.assign(static_cast<std::size_t>(S.size), ParamSpec{});
-  single.params[static_cast<std::size_t>(S.anchor0)] = c.settings.params[static_cast<std::size_t>(c.layout.anchor0)];
-  single.params[static_cast<std::size_t>(S.gamma)] = c.settings.params[static_cast<std::size_t>(c.layout.gamma[0])];
+  single.params[static_cast<std::size_t>(S.anchor0)] =
+      c.settings.params[static_cast<std::size_t>(c.layout.anchor0)];
+  single.params[static_cast<std::size_t>(S.gamma)] =
+      c.settings.params[static_cast<std::size_t>(c.layout.gamma[0])];
   Eigen::VectorXd t(S.size);
   for (int j = 0; j < S.size; ++j) {
     std::string name = S.names[static_cast<std::size_t>(j)];
@@ -214,7 +217,8 @@ std::string star_model_python(const JointCase& c, const Star& s) {
   };
   std::ostringstream py;
   py << std::setprecision(17);
-  py << "import numpy as np\nfrom scipy import stats, integrate\nfrom scipy.special import gammaln\n";
+  py << "import numpy as np\nfrom scipy import stats, integrate\nfrom scipy.special import "
+        "gammaln\n";
   py << "m = np.array([" << s.m0[0] << "," << s.m0[1] << "," << s.m0[2] << "])\n";
   py << "kind, x, z, plx = " << s.kind << ", " << s.x << ", " << s.feh << ", " << s.plx << "\n";
   py << "alpha, beta = " << vec(L.alpha) << ", " << vec(L.beta) << "\n";
@@ -323,7 +327,8 @@ TEST(JointHierarchical, GradientEqualsCentralDifferencesOfTheLikelihood) {
 TEST(JointHierarchical, ColouredBlendStarLikelihoodEqualsScipyDoubleIntegral) {
   JointCase c = joint_case(3);
   const JointLayout& L = c.layout;
-  c.settings.params[static_cast<std::size_t>(L.outlier)] = ParamSpec{ParamMode::kFixed, 0.0, 0, true};
+  c.settings.params[static_cast<std::size_t>(L.outlier)] =
+      ParamSpec{ParamMode::kFixed, 0.0, 0, true};
   c.theta[L.outlier] = 0;
   c.settings.params[static_cast<std::size_t>(L.anchor0)] = ParamSpec{};
   c.settings.params[static_cast<std::size_t>(L.gamma[0])] = ParamSpec{};
@@ -335,20 +340,20 @@ TEST(JointHierarchical, ColouredBlendStarLikelihoodEqualsScipyDoubleIntegral) {
                                                   {BlendComponent::kExponential, 2},
                                                   {BlendComponent::kExponential, 7}};
   for (auto [kind, star] : cases) {
-      JointCase one = c;
-      one.settings.hierarchical.blends = kind;
-      one.data = c.data.take({star});
-      const double ours = joint_value(one, one.theta);
-      const Star& s = stars()[static_cast<std::size_t>(star)];
-      std::ostringstream py;
-      py << std::setprecision(17);
-      py << "mu_gal, fb, s = " << c.theta[L.anchor0] << ", " << c.theta[L.blend] << ", "
-         << c.theta[L.blend_scale] << "\n";
-      py << "kappa = np.array([1.0, " << c.theta[L.blend_ratio[1]] << ", "
-         << c.theta[L.blend_ratio[2]] << "])\n";
-      py << "b0, rising = " << c.settings.hierarchical.blend_min_mag << ", "
-         << (kind == BlendComponent::kRising ? "True" : "False") << "\n";
-      py << R"(
+    JointCase one = c;
+    one.settings.hierarchical.blends = kind;
+    one.data = c.data.take({star});
+    const double ours = joint_value(one, one.theta);
+    const Star& s = stars()[static_cast<std::size_t>(star)];
+    std::ostringstream py;
+    py << std::setprecision(17);
+    py << "mu_gal, fb, s = " << c.theta[L.anchor0] << ", " << c.theta[L.blend] << ", "
+       << c.theta[L.blend_scale] << "\n";
+    py << "kappa = np.array([1.0, " << c.theta[L.blend_ratio[1]] << ", "
+       << c.theta[L.blend_ratio[2]] << "])\n";
+    py << "b0, rising = " << c.settings.hierarchical.blend_min_mag << ", "
+       << (kind == BlendComponent::kRising ? "True" : "False") << "\n";
+    py << R"(
 def pb(b):
     th = s / 2 if rising else s
     return b * np.exp(-b / th) / th**2 if rising else np.exp(-b / th) / th
@@ -385,8 +390,8 @@ else:
                            epsabs=0, epsrel=1e-12, limit=400)[0]
 L_star = (1 - fb) * member + fb * blend
 )";
-      EXPECT_NEAR(ours, scipy_star_neg_log_l(c, s, py.str()), 2e-6) << "star " << star;
-    }
+    EXPECT_NEAR(ours, scipy_star_neg_log_l(c, s, py.str()), 2e-6) << "star " << star;
+  }
 }
 
 // Free ratios at 1 take the coloured path; fixed at 1 the grey one: the same likelihood.
@@ -411,8 +416,10 @@ TEST(JointHierarchical, CountedResampleEqualsTheResampleWithItsRepeats) {
   EXPECT_DOUBLE_EQ(counted.weight_of(3), 3.0);  // star 5 (the fourth drawn), drawn three times
   for (const BlendComponent blends : {BlendComponent::kRising, BlendComponent::kExponential}) {
     c.settings.hierarchical.blends = blends;
-    const JointHierarchicalValue a = joint_hierarchical_value(repeated, c.settings, c.layout, c.theta);
-    const JointHierarchicalValue b = joint_hierarchical_value(counted, c.settings, c.layout, c.theta);
+    const JointHierarchicalValue a =
+        joint_hierarchical_value(repeated, c.settings, c.layout, c.theta);
+    const JointHierarchicalValue b =
+        joint_hierarchical_value(counted, c.settings, c.layout, c.theta);
     ASSERT_TRUE(a.finite && b.finite);
     EXPECT_NEAR(a.neg_log_likelihood, b.neg_log_likelihood, 1e-10 * std::abs(a.neg_log_likelihood));
     for (int j = 0; j < c.layout.size; ++j)
@@ -526,9 +533,11 @@ TEST(JointHierarchicalSimulation, ThreeRelationsWithEveryContamination) {
   StudyOptions o;
   o.scenario.stars = 300;
   o.scenario.seed = 9100;
-  o.scenario.blend_fraction = 0.03, o.scenario.parallax_outlier_fraction = 0.03, o.scenario.feh_error = 0.08;
+  o.scenario.blend_fraction = 0.03, o.scenario.parallax_outlier_fraction = 0.03,
+  o.scenario.feh_error = 0.08;
   o.scenario.overtone_fraction = 0.15, o.scenario.far_fraction = 0.08, o.scenario.ebv_error = 0.04;
-  o.scenario.more_relations = {{"V", -3.9, -2.4, -0.2, 0.20, 3.1}, {"K", -5.7, -3.2, -0.2, 0.09, 0.35}};
+  o.scenario.more_relations = {{"V", -3.9, -2.4, -0.2, 0.20, 3.1},
+                               {"K", -5.7, -3.2, -0.2, 0.09, 0.35}};
   o.scenario.scatter_correlation = 0.8;
   o.mocks = 40;
   o.fit.input_path = "(mock)";
@@ -539,7 +548,8 @@ TEST(JointHierarchicalSimulation, ThreeRelationsWithEveryContamination) {
     rel.name = rel.band = name;
     rel.metallicity = true;
     o.fit.relations.push_back(rel);
-    for (const char* p : {"alpha_", "beta_", "gamma_", "sigma_int_"}) o.parameters.push_back(p + std::string(name));
+    for (const char* p : {"alpha_", "beta_", "gamma_", "sigma_int_"})
+      o.parameters.push_back(p + std::string(name));
   }
   o.parameters.push_back("scatter_correlation");
   o.parameters.push_back("parallax_offset_mas");

@@ -49,9 +49,9 @@ void write_summary(const std::string& path) {
 const char* kStarList =
     "star,P\n"
     "Vell-1,5.3660\n"
-    "Vell-4,7.5\n"      // no light curve: no photometry after the join
+    "Vell-4,7.5\n"  // no light curve: no photometry after the join
     "Vell-2,12.0100\n"
-    "Vell-3,3.3\n";     // a light curve without a usable period or means
+    "Vell-3,3.3\n";  // a light curve without a usable period or means
 
 std::string star_list_config() {
   return "[source]\npath = \"stars.csv\"\n"
@@ -120,7 +120,8 @@ TEST(LightCurveJoin, WithoutAJoinABandIsStillRequired) {
   test::TempDir dir;
   test::write_text(dir.file("stars.csv"), kStarList);
   std::string config = star_list_config();
-  config.replace(config.find("[lightcurves]"), std::string("[lightcurves]\nsummary = \"lc.fits\"\n").size(), "");
+  config.replace(config.find("[lightcurves]"),
+                 std::string("[lightcurves]\nsummary = \"lc.fits\"\n").size(), "");
   test::write_text(dir.file("c.toml"), config);
   try {
     ingest_options_from_file(dir.file("c.toml"));

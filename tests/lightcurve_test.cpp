@@ -7,13 +7,13 @@
 #include <fmt/format.h>
 
 #include <cmath>
-#include <functional>
-#include <map>
-#include <set>
-#include <limits>
 #include <fstream>
+#include <functional>
+#include <limits>
+#include <map>
 #include <numbers>
 #include <ostream>
+#include <set>
 #include <sstream>
 
 #include "mock_lightcurves.hpp"
@@ -436,15 +436,14 @@ TEST(LightCurveRows, ARepeatedEpochIsFoundInOrderAndOutOfOrder) {
   o.err_column = "err";
   SourceTable in = parse_text_table(
       "star,t,band,mag,err\n"
-      "A,3,V,12,0.01\nA,5,V,12,0.01\nA,5,V,12,0.01\n"  // line 4: in-order repeat
-      "A,1,V,12,0.01\nA,2,I,12,0.01\nA,3,V,12,0.01\n"  // line 7: out-of-order repeat
+      "A,3,V,12,0.01\nA,5,V,12,0.01\nA,5,V,12,0.01\n"   // line 4: in-order repeat
+      "A,1,V,12,0.01\nA,2,I,12,0.01\nA,3,V,12,0.01\n"   // line 7: out-of-order repeat
       "A,2,I,12,0.01\nB,5,V,12,0.01\nA,1,V,12,0.01\n",  // lines 8 and 10: repeats
       "rows.csv", TextReadOptions{});
   std::vector<ObservationReject> rejected;
   std::vector<std::string> bands;
-  const std::vector<StarSeries> stars =
-      group_observations(in, o, BandTable::from_file(test::source_file("config/bands.toml")),
-                         rejected, bands);
+  const std::vector<StarSeries> stars = group_observations(
+      in, o, BandTable::from_file(test::source_file("config/bands.toml")), rejected, bands);
   ASSERT_EQ(rejected.size(), 4u);
   const std::int64_t lines[] = {4, 7, 8, 10};
   for (std::size_t i = 0; i < 4; ++i) {
@@ -506,19 +505,25 @@ void expect_per_star_files_match_one_table(
     if (!stars.count(star) && stars.size() == 4) continue;
     stars.insert(star);
     const double time = std::stod(t.column("time_bjd_tdb").text[r]);
-    const std::string band = t.column("band").text[r], mag = t.column("mag").text[r], err = t.column("mag_err").text[r];
+    const std::string band = t.column("band").text[r], mag = t.column("mag").text[r],
+                      err = t.column("mag_err").text[r];
     table += fmt::format("{},{:.4f},{},{},{}\n", star, time, band, mag, err);
     files[file_of(star, band)] += fmt::format("{:.4f}  {}  {}\n", time - 2450000.0, mag, err);
   }
   test::write_text(dir.file("one/table.csv"), table);
   for (const auto& [name, content] : files) test::write_text(dir.file("lc/" + name), content);
   const std::string common = "bands_file = \"" + test::source_file("config/bands.toml") + "\"\n";
-  test::write_text(dir.file("one.toml"), common + "[source]\npath = \"one/table.csv\"\n[columns]\ntime = \"time\"\n"
-                                                  "[output]\npath = \"out/one.fits\"\n");
-  test::write_text(dir.file("files.toml"),
-                   common + "[source]\npath = \"" + glob + "\"\nname_pattern = \"" + name_pattern + "\"\nheader = false\n"
-                            "delimiter = \"whitespace\"\ncolumn_names = [\"time\", \"mag\", \"mag_err\"]\n"
-                            "time_offset_d = 2450000\n[columns]\ntime = \"time\"\n[output]\npath = \"out/files.fits\"\n");
+  test::write_text(dir.file("one.toml"),
+                   common +
+                       "[source]\npath = \"one/table.csv\"\n[columns]\ntime = \"time\"\n"
+                       "[output]\npath = \"out/one.fits\"\n");
+  test::write_text(
+      dir.file("files.toml"),
+      common + "[source]\npath = \"" + glob + "\"\nname_pattern = \"" + name_pattern +
+          "\"\nheader = false\n"
+          "delimiter = \"whitespace\"\ncolumn_names = [\"time\", \"mag\", \"mag_err\"]\n"
+          "time_offset_d = 2450000\n[columns]\ntime = \"time\"\n[output]\npath = "
+          "\"out/files.fits\"\n");
   const LightCurveResult one = run_lightcurves(lightcurve_options_from_file(dir.file("one.toml")));
   const LightCurveOptions fo = lightcurve_options_from_file(dir.file("files.toml"));
   const LightCurveResult per = run_lightcurves(fo);
@@ -528,10 +533,12 @@ void expect_per_star_files_match_one_table(
   EXPECT_EQ(input_files_now(declared_files(fo)).size(), files.size() + 1);
   ASSERT_EQ(per.stars.size(), 4u);
   ASSERT_EQ(one.stars.size(), 4u);
-  const StarTable a = one.summary_table(TimeScale::kBjdTdb), b = per.summary_table(TimeScale::kBjdTdb);
+  const StarTable a = one.summary_table(TimeScale::kBjdTdb),
+                  b = per.summary_table(TimeScale::kBjdTdb);
   for (std::size_t i = 0; i < a.rows(); ++i) {
     EXPECT_EQ(a.column("id").text[i], b.column("id").text[i]);
-    EXPECT_NEAR(b.column("period_d").real[i], a.column("period_d").real[i], 1e-7 * a.column("period_d").real[i]);
+    EXPECT_NEAR(b.column("period_d").real[i], a.column("period_d").real[i],
+                1e-7 * a.column("period_d").real[i]);
     EXPECT_NEAR(b.column("t_ref").real[i], a.column("t_ref").real[i], 1e-6);
     for (const char* band : {"mag_V", "mag_I", "mag_Ks"})
       EXPECT_NEAR(b.column(band).real[i], a.column(band).real[i], 1e-7) << band;
@@ -548,7 +555,9 @@ TEST(LightCurveFiles, TheBandCanComeFromTheFolder) {
   // As OGLE publishes light curves: one folder per band (phot/I/, phot/V/), each holding a
   // file per star named by its id.
   expect_per_star_files_match_one_table(
-      [](const std::string& star, const std::string& band) { return "phot/" + band + "/" + star + ".dat"; },
+      [](const std::string& star, const std::string& band) {
+        return "phot/" + band + "/" + star + ".dat";
+      },
       "lc/phot/*/*.dat", "{band}/{star}.dat");
 }
 
@@ -562,10 +571,12 @@ TEST(LightCurveFiles, RealSurveyFilesGiveThePublishedPeriods) {
   // The SDSS bands are not in config/bands.toml; the period search does not use their
   // wavelengths (Fukugita et al. 1996 effective wavelengths, memory).
   std::string bands;
-  for (const auto& [b, aa] : {std::pair{"u", 3551.0}, {"g", 4686.0}, {"r", 6166.0}, {"i", 7480.0}, {"z", 8932.0}})
-    bands += fmt::format("[bands.{}]\nsystem = \"SDSS\"\nwavelength_aa = {}\nwavelength_kind = \"effective\"\n"
-                         "source = \"Fukugita et al. 1996 (memory)\"\n",
-                         b, aa);
+  for (const auto& [b, aa] :
+       {std::pair{"u", 3551.0}, {"g", 4686.0}, {"r", 6166.0}, {"i", 7480.0}, {"z", 8932.0}})
+    bands += fmt::format(
+        "[bands.{}]\nsystem = \"SDSS\"\nwavelength_aa = {}\nwavelength_kind = \"effective\"\n"
+        "source = \"Fukugita et al. 1996 (memory)\"\n",
+        b, aa);
   test::write_text(dir.file("bands.toml"), bands);
   test::write_text(dir.file("lc.toml"),
                    "bands_file = \"bands.toml\"\n[source]\npath = \"" +
@@ -600,9 +611,11 @@ TEST(LightCurveFiles, AFileNameThatDoesNotMatchOrNoFileAtAllStopsWithItsRule) {
   const std::string common = "bands_file = \"" + test::source_file("config/bands.toml") + "\"\n";
   test::write_text(dir.file("lc/S1.V.dat"), "1.0 12.0 0.01\n");
   test::write_text(dir.file("lc/README.dat"), "1.0 12.0 0.01\n");  // no {band} part
-  const std::string cfg = common + "[source]\npath = \"lc/*.dat\"\nname_pattern = \"{star}.{band}.dat\"\nheader = false\n"
-                                   "delimiter = \"whitespace\"\ncolumn_names = [\"time\", \"mag\", \"mag_err\"]\n"
-                                   "[columns]\ntime = \"time\"\n[output]\npath = \"out/lc.fits\"\n";
+  const std::string cfg =
+      common +
+      "[source]\npath = \"lc/*.dat\"\nname_pattern = \"{star}.{band}.dat\"\nheader = false\n"
+      "delimiter = \"whitespace\"\ncolumn_names = [\"time\", \"mag\", \"mag_err\"]\n"
+      "[columns]\ntime = \"time\"\n[output]\npath = \"out/lc.fits\"\n";
   test::write_text(dir.file("c.toml"), cfg);
   auto r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
@@ -618,12 +631,14 @@ TEST(LightCurveFiles, AFileNameThatDoesNotMatchOrNoFileAtAllStopsWithItsRule) {
   EXPECT_NE(r.output.find("must hold {star}"), std::string::npos) << r.output;
   // A folder in the pattern: the file's folder must match it too ("lc" is not a band folder
   // named V here, so lc/S1.V.dat has no part "phot").
-  test::write_text(dir.file("c.toml"), test::replaced(cfg, {{"{star}.{band}.dat", "phot/{star}.{band}.dat"}}));
+  test::write_text(dir.file("c.toml"),
+                   test::replaced(cfg, {{"{star}.{band}.dat", "phot/{star}.{band}.dat"}}));
   r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("[file_name_pattern]"), std::string::npos) << r.output;
   EXPECT_NE(r.output.find("'lc/README.dat' does not match"), std::string::npos) << r.output;
-  test::write_text(dir.file("c.toml"), test::replaced(cfg, {{"{star}.{band}.dat", "../{star}.{band}.dat"}}));
+  test::write_text(dir.file("c.toml"),
+                   test::replaced(cfg, {{"{star}.{band}.dat", "../{star}.{band}.dat"}}));
   r = test::run_stage("lightcurve", "--config " + dir.file("c.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("source.name_pattern"), std::string::npos) << r.output;

@@ -57,8 +57,9 @@ TEST(MockCatalog, ParallaxErrorScaleMultipliesEveryError) {
 }
 
 // Further relations draw after each star's own draws (the first star is the same), and their
-// scatter has the asked correlation: the difference of two relations' magnitudes (distance and blends cancel,
-// grey) scatters by sigma_a^2 + sigma_b^2 - 2 rho sigma_a sigma_b plus both photometric errors.
+// scatter has the asked correlation: the difference of two relations' magnitudes (distance and
+// blends cancel, grey) scatters by sigma_a^2 + sigma_b^2 - 2 rho sigma_a sigma_b plus both
+// photometric errors.
 TEST(MockCatalog, FurtherRelationsShareTheStarsAndCorrelateTheirScatter) {
   MockScenario s;
   s.stars = 20000;

@@ -9,8 +9,8 @@
 #include <string>
 #include <vector>
 
-#include "rungcal/lightcurve/lightcurve_stage.hpp"
 #include "rungcal/core/random.hpp"
+#include "rungcal/lightcurve/lightcurve_stage.hpp"
 
 namespace rungcal::test {
 

@@ -6,10 +6,10 @@
 #include <cmath>
 #include <string>
 
+#include "rungcal/core/random.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/plfit/model.hpp"
-#include "rungcal/core/random.hpp"
 #include "rungcal/table/star_table.hpp"
 
 namespace rungcal::test {
@@ -29,8 +29,8 @@ struct MockSample {
 // plx_err_min and plx_err_max (mas), photometric error 0.02 mag; a share of outliers made
 // 1 mag too bright.
 inline MockSample mock_parallax_sample(std::uint64_t seed, int n, double outlier_fraction = 0.05,
-                                       double max_kpc = 6.0, double plx_err_min = 0.02, double plx_err_max = 0.05,
-                                       MockTruth truth = {}) {
+                                       double max_kpc = 6.0, double plx_err_min = 0.02,
+                                       double plx_err_max = 0.05, MockTruth truth = {}) {
   MockSample m;
   m.truth = truth;
   Random rng(seed);
@@ -42,9 +42,10 @@ inline MockSample mock_parallax_sample(std::uint64_t seed, int n, double outlier
     double d_kpc = 0.5 + (max_kpc - 0.5) * std::sqrt(rng.uniform());
     double mu = distance_modulus_from_parsec(d_kpc * 1e3);
     double sm = 0.02, sp = rng.uniform(plx_err_min, plx_err_max);
-    double xl = std::max(0.0, x - truth.break_x), feh = truth.feh_sigma > 0 ? rng.normal(0, truth.feh_sigma) : 0.0;
-    double mag = truth.alpha + truth.beta * x + truth.beta_long * xl + truth.gamma * feh + rng.normal(0, truth.sigma) +
-                 mu + rng.normal(0, sm);
+    double xl = std::max(0.0, x - truth.break_x),
+           feh = truth.feh_sigma > 0 ? rng.normal(0, truth.feh_sigma) : 0.0;
+    double mag = truth.alpha + truth.beta * x + truth.beta_long * xl + truth.gamma * feh +
+                 rng.normal(0, truth.sigma) + mu + rng.normal(0, sm);
     if (rng.uniform() < outlier_fraction) mag -= 1.0;
     p.x[i] = x, p.xl[i] = xl, p.feh[i] = feh, p.m0[i] = mag, p.var_m[i] = sm * sm;
     p.row.push_back(static_cast<std::size_t>(i));
@@ -58,7 +59,8 @@ inline MockSample mock_parallax_sample(std::uint64_t seed, int n, double outlier
 inline StarTable catalog_from_mock(const MockSample& m) {
   StarTable t;
   for (const char* c : {"id", "mode", "pulsator_class"}) t.add_column(c, ColumnType::kText);
-  for (const char* c : {"log_period", "mag0_X", "mag0_err_X", "parallax_mas", "parallax_err_mas"}) t.add_column(c, ColumnType::kReal);
+  for (const char* c : {"log_period", "mag0_X", "mag0_err_X", "parallax_mas", "parallax_err_mas"})
+    t.add_column(c, ColumnType::kReal);
   for (Eigen::Index i = 0; i < m.data.parallax.size(); ++i) {
     t.column("id").push_text("S" + std::to_string(i));
     t.column("mode").push_text("fundamental");

@@ -44,7 +44,8 @@ TEST(Bands, WesenheitCoefficientsFromTheBandTable) {
   EXPECT_NEAR(wesenheit_coefficient(vi, t, ExtinctionLaw::kOD94, 3.1), 1.55, 0.03);
   // Gaia's documented 1.90 (Ripepi et al. 2019, A&A 625, A14) is reproduced when given.
   ASSERT_NE(t.find_wesenheit("W_G"), nullptr);
-  EXPECT_DOUBLE_EQ(wesenheit_coefficient(*t.find_wesenheit("W_G"), t, ExtinctionLaw::kOD94, 3.1), 1.90);
+  EXPECT_DOUBLE_EQ(wesenheit_coefficient(*t.find_wesenheit("W_G"), t, ExtinctionLaw::kOD94, 3.1),
+                   1.90);
   // HST near-infrared: the law's value lands near the published 0.386 (memory).
   WesenheitDef h{"W", "F160W", "F555W", "F814W", std::nullopt, ""};
   EXPECT_NEAR(wesenheit_coefficient(h, t, ExtinctionLaw::kF99, 3.1), 0.386, 0.01);

@@ -9,11 +9,11 @@
 #include <cmath>
 #include <sstream>
 
+#include "mock_samples.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/joint.hpp"
 #include "rungcal/plfit/model.hpp"
-#include "rungcal/core/random.hpp"
-#include "mock_samples.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
@@ -29,7 +29,8 @@ TEST(Losses, VectorisedLossesEqualCeres) {
       for (Eigen::Index i = 0; i < s.size(); ++i) {
         double out[3];
         ceres_loss->Evaluate(s[i], out);
-        ASSERT_NEAR(rho[i], out[0], 1e-12 * (1 + out[0])) << kLossNames.name(k) << " a=" << a << " s=" << s[i];
+        ASSERT_NEAR(rho[i], out[0], 1e-12 * (1 + out[0]))
+            << kLossNames.name(k) << " a=" << a << " s=" << s[i];
         ASSERT_NEAR(rho1[i], out[1], 1e-12) << kLossNames.name(k);
       }
     }
@@ -51,14 +52,16 @@ TEST(Losses, CheckValuesOfTheMethodBrief) {
 using Mock = test::MockSample;
 using test::mock_parallax_sample;
 
-FitSettings settings_for(FitSpace space, LossKind loss, double scale, bool sigma_free, double sigma) {
+FitSettings settings_for(FitSpace space, LossKind loss, double scale, bool sigma_free,
+                         double sigma) {
   FitSettings s;
   s.space = space;
   s.loss = loss;
   s.loss_scale = scale;
   ParameterLayout L = ParameterLayout::for_terms(s.terms, {});
   s.params.assign(L.size, ParamSpec{});
-  s.params[L.sigma] = sigma_free ? ParamSpec{ParamMode::kFree, sigma, 0, true} : ParamSpec{ParamMode::kFixed, sigma, 0, false};
+  s.params[L.sigma] = sigma_free ? ParamSpec{ParamMode::kFree, sigma, 0, true}
+                                 : ParamSpec{ParamMode::kFixed, sigma, 0, false};
   return s;
 }
 
@@ -67,7 +70,8 @@ std::string to_csv(const Mock& m) {
   o.precision(17);
   const auto& p = m.data.parallax;
   for (Eigen::Index i = 0; i < p.size(); ++i)
-    o << p.x[i] << "," << p.m0[i] << "," << p.var_m[i] << "," << m.data.plx[i] << "," << m.data.var_plx[i] << "\n";
+    o << p.x[i] << "," << p.m0[i] << "," << p.var_m[i] << "," << m.data.plx[i] << ","
+      << m.data.var_plx[i] << "\n";
   return o.str();
 }
 
@@ -106,8 +110,9 @@ TEST_P(AgainstScipy, ParallaxSpaceRobustFitAgreesTo1e6) {
   ASSERT_TRUE(sol.usable) << sol.message;
   std::string name = loss == LossKind::kSoftL1 ? "soft_l1" : std::string(kLossNames.name(loss));
   if (loss == LossKind::kNone) name = "linear";
-  auto r = test::run_python(kScipyParallaxFit, {dir.file("d.csv"), name, "2.0", "0.08", std::to_string(start[0]),
-                                                std::to_string(start[1]), std::to_string(start[L.offset])});
+  auto r = test::run_python(kScipyParallaxFit,
+                            {dir.file("d.csv"), name, "2.0", "0.08", std::to_string(start[0]),
+                             std::to_string(start[1]), std::to_string(start[L.offset])});
   ASSERT_EQ(r.exit_code, 0) << r.output;
   std::vector<double> ref = test::parse_numbers(r.output);
   ASSERT_EQ(ref.size(), 3u) << r.output;
@@ -117,7 +122,8 @@ TEST_P(AgainstScipy, ParallaxSpaceRobustFitAgreesTo1e6) {
 }
 
 INSTANTIATE_TEST_SUITE_P(Losses, AgainstScipy,
-                         ::testing::Values(LossKind::kNone, LossKind::kHuber, LossKind::kSoftL1, LossKind::kCauchy),
+                         ::testing::Values(LossKind::kNone, LossKind::kHuber, LossKind::kSoftL1,
+                                           LossKind::kCauchy),
                          [](const auto& i) { return std::string(kLossNames.name(i.param)); });
 
 TEST(MaximumLikelihood, ScatterAgreesWithScipyMinimize) {
@@ -146,7 +152,8 @@ t = minimize(nll, [-5.5, -3.0, 0.0, 0.1], method="Nelder-Mead",
              options=dict(xatol=1e-10, fatol=1e-12, maxiter=200000, maxfev=200000)).x
 t = minimize(nll, t, method="BFGS", options=dict(gtol=1e-10)).x
 print(*["%.17g" % v for v in t])
-)", {dir.file("d.csv")});
+)",
+                            {dir.file("d.csv")});
   ASSERT_EQ(r.exit_code, 0) << r.output;
   std::vector<double> ref = test::parse_numbers(r.output);
   ASSERT_EQ(ref.size(), 4u) << r.output;
@@ -191,7 +198,8 @@ x, y, var = np.loadtxt(sys.argv[1], delimiter=",").T
 res = sm.WLS(y, sm.add_constant(x), weights=1 / var).fit(cov_type="fixed scale")
 c = res.cov_params()
 print(*["%.17g" % v for v in [*res.params, c[0, 0], c[0, 1], c[1, 1]]])
-)", {dir.file("d.csv")});
+)",
+                            {dir.file("d.csv")});
   ASSERT_EQ(r.exit_code, 0) << r.output;
   std::vector<double> ref = test::parse_numbers(r.output);
   ASSERT_EQ(ref.size(), 5u);
@@ -287,16 +295,19 @@ JointMock joint_mock(std::uint64_t seed, int stars, int relations) {
   JointMock m;
   Random rng(seed);
   m.data.relations = relations;
-  for (int r = 0; r < relations; ++r) m.alpha.push_back(-5.8 + 0.5 * r), m.beta.push_back(-3.3 + 0.1 * r);
+  for (int r = 0; r < relations; ++r)
+    m.alpha.push_back(-5.8 + 0.5 * r), m.beta.push_back(-3.3 + 0.1 * r);
   const double coef[3] = {1.0, 0.6, 0.3};
   for (int i = 0; i < stars; ++i) {
     double x = rng.uniform(-0.6, 0.8), d_kpc = 0.5 + 5.5 * std::sqrt(rng.uniform());
-    double mu = distance_modulus_from_parsec(d_kpc * 1e3), sp = rng.uniform(0.02, 0.05), de = rng.normal(0, m.ebv_err);
+    double mu = distance_modulus_from_parsec(d_kpc * 1e3), sp = rng.uniform(0.02, 0.05),
+           de = rng.normal(0, m.ebv_err);
     m.data.first.push_back(static_cast<int>(m.data.relation.size()));
     for (int r = 0; r < relations; ++r) {
       m.data.relation.push_back(r);
       m.data.x.push_back(x);
-      m.data.m0.push_back(m.alpha[r] + m.beta[r] * x + mu + rng.normal(0, m.sigma) + rng.normal(0, 0.02) - coef[r] * de);
+      m.data.m0.push_back(m.alpha[r] + m.beta[r] * x + mu + rng.normal(0, m.sigma) +
+                          rng.normal(0, 0.02) - coef[r] * de);
       m.data.var_phot.push_back(0.02 * 0.02);
       m.data.coefficient.push_back(coef[r]);
     }
@@ -304,7 +315,8 @@ JointMock joint_mock(std::uint64_t seed, int stars, int relations) {
     m.data.var_plx.push_back(sp * sp);
     m.data.var_ebv.push_back(m.ebv_err * m.ebv_err);
     m.data.feh.push_back(0.0);
-    m.data.kind.push_back(0), m.data.group.push_back(-1), m.data.mu.push_back(0.0), m.data.var_mu.push_back(0.0);
+    m.data.kind.push_back(0), m.data.group.push_back(-1), m.data.mu.push_back(0.0),
+        m.data.var_mu.push_back(0.0);
     m.data.row.push_back(static_cast<std::size_t>(i));
   }
   m.data.first.push_back(static_cast<int>(m.data.relation.size()));
@@ -338,9 +350,11 @@ TEST(Joint, OneRelationEqualsTheSingleRelationFit) {
   JointSolution joint = solve_joint(jm.data, js, J, start);
   ASSERT_TRUE(joint.usable && joint.covariance_ok) << joint.message;
   // The same objective: equal to the two solvers' tolerance (1e-7 relative).
-  EXPECT_NEAR(joint.theta[J.alpha[0]], single.theta[L.alpha], 1e-7 * std::abs(single.theta[L.alpha]));
+  EXPECT_NEAR(joint.theta[J.alpha[0]], single.theta[L.alpha],
+              1e-7 * std::abs(single.theta[L.alpha]));
   EXPECT_NEAR(joint.theta[J.beta[0]], single.theta[L.beta], 1e-7 * std::abs(single.theta[L.beta]));
-  EXPECT_NEAR(joint.theta[J.offset], single.theta[L.offset], 1e-6 * std::abs(single.theta[L.offset]));
+  EXPECT_NEAR(joint.theta[J.offset], single.theta[L.offset],
+              1e-6 * std::abs(single.theta[L.offset]));
   EXPECT_NEAR(joint.covariance(J.offset, J.offset) / cov(L.offset, L.offset), 1.0, 1e-6);
   EXPECT_NEAR(joint.covariance(J.alpha[0], J.beta[0]) / cov(L.alpha, L.beta), 1.0, 1e-6);
 }
@@ -368,8 +382,10 @@ TEST(Joint, ThreeRelationsShareOneOffsetAndRecoverTheTruth) {
     inside += std::abs(d) < e ? 1 : 0;
     if (k == 0)
       for (int r = 0; r < 3; ++r) {
-        EXPECT_NEAR(sol.theta[J.alpha[r]], jm.alpha[r], 3 * std::sqrt(sol.covariance(J.alpha[r], J.alpha[r])));
-        EXPECT_NEAR(sol.theta[J.beta[r]], jm.beta[r], 3 * std::sqrt(sol.covariance(J.beta[r], J.beta[r])));
+        EXPECT_NEAR(sol.theta[J.alpha[r]], jm.alpha[r],
+                    3 * std::sqrt(sol.covariance(J.alpha[r], J.alpha[r])));
+        EXPECT_NEAR(sol.theta[J.beta[r]], jm.beta[r],
+                    3 * std::sqrt(sol.covariance(J.beta[r], J.beta[r])));
       }
   }
   EXPECT_LT(std::abs(bias / err), 0.15);
@@ -381,7 +397,8 @@ TEST(Joint, ThreeRelationsShareOneOffsetAndRecoverTheTruth) {
 TEST(Joint, SharedSlopeIsOneParameter) {
   JointLayout J = JointLayout::make({"A", "B"}, {true, false}, true);
   EXPECT_EQ(J.beta[0], J.beta[1]);
-  EXPECT_EQ(J.names, (std::vector<std::string>{"alpha_A", "beta", "gamma_A", "alpha_B", "parallax_offset_mas"}));
+  EXPECT_EQ(J.names, (std::vector<std::string>{"alpha_A", "beta", "gamma_A", "alpha_B",
+                                               "parallax_offset_mas"}));
 }
 
 TEST(Joint, KnownDistanceAndAnchorStarsJoinTheParallaxStars) {
@@ -396,11 +413,13 @@ TEST(Joint, KnownDistanceAndAnchorStarsJoinTheParallaxStars) {
     for (int r = 0; r < 2; ++r) {
       jm.data.relation.push_back(r);
       jm.data.x.push_back(x);
-      jm.data.m0.push_back(jm.alpha[r] + jm.beta[r] * x + mu + shared + rng.normal(0, jm.sigma) + rng.normal(0, 0.02));
+      jm.data.m0.push_back(jm.alpha[r] + jm.beta[r] * x + mu + shared + rng.normal(0, jm.sigma) +
+                           rng.normal(0, 0.02));
       jm.data.var_phot.push_back(0.02 * 0.02);
       jm.data.coefficient.push_back(0.0);
     }
-    jm.data.plx.push_back(0), jm.data.var_plx.push_back(0), jm.data.var_ebv.push_back(0), jm.data.feh.push_back(0);
+    jm.data.plx.push_back(0), jm.data.var_plx.push_back(0), jm.data.var_ebv.push_back(0),
+        jm.data.feh.push_back(0);
     jm.data.kind.push_back(kind), jm.data.group.push_back(group);
     jm.data.mu.push_back(kind == 1 ? mu : 0.0), jm.data.var_mu.push_back(var_mu);
     jm.data.row.push_back(jm.data.row.size());

@@ -15,8 +15,10 @@ namespace rungcal::test {
 // Riess et al. 2018 reference fit (config/reference) with that adopted intrinsic scatter,
 // each published with its residuals. The catalog is dir/<folder>/catalog.fits.
 inline void publish_reference_versions(const TempDir& dir, const std::string& name,
-                                       const std::vector<double>& scatters, const std::string& folder = "run") {
-  IngestOptions io = ingest_options_from_file(source_file("config/reference/mw_cepheids_hst_gaiadr2.toml"));
+                                       const std::vector<double>& scatters,
+                                       const std::string& folder = "run") {
+  IngestOptions io =
+      ingest_options_from_file(source_file("config/reference/mw_cepheids_hst_gaiadr2.toml"));
   io.catalog_path = dir.file(folder + "/catalog.fits");
   write_ingest_products(run_ingest(io), io);
   for (double scatter : scatters) {

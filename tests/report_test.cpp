@@ -13,6 +13,7 @@
 
 #include <fmt/format.h>
 
+#include "reference_store.hpp"
 #include "rungcal/calibration/store.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/file_names.hpp"
@@ -22,7 +23,6 @@
 #include "rungcal/report/report.hpp"
 #include "rungcal/report/tables.hpp"
 #include "rungcal/table/fits_io.hpp"
-#include "reference_store.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
@@ -56,14 +56,22 @@ Calibration two_relations(int version, double shift) {
   Calibration c;
   c.document = {{"name", "cal"}, {"version", version}};
   auto rel = [&](const std::string& name, double a) {
-    return nlohmann::json{{"name", name},
-                          {"pivot_log_period", 1.0},
-                          {"parameters",
-                           {{{"name", "alpha"}, {"value", a + shift}, {"error", 0.0752}, {"bootstrap_error", 0.0811}, {"mode", "free"}},
-                            {{"name", "beta"}, {"value", -3.26}, {"error", 0.0}, {"mode", "fixed"}},
-                            {{"name", "parallax_offset_mas"}, {"value", -0.04718 + shift}, {"error", 0.01397}, {"mode", "free"}},
-                            {{"name", "sigma_int"}, {"value", 0.06}, {"error", 0.0}, {"mode", "fixed"}}}},
-                          {"statistics", {{"n_used", 46}}}};
+    return nlohmann::json{
+        {"name", name},
+        {"pivot_log_period", 1.0},
+        {"parameters",
+         {{{"name", "alpha"},
+           {"value", a + shift},
+           {"error", 0.0752},
+           {"bootstrap_error", 0.0811},
+           {"mode", "free"}},
+          {{"name", "beta"}, {"value", -3.26}, {"error", 0.0}, {"mode", "fixed"}},
+          {{"name", "parallax_offset_mas"},
+           {"value", -0.04718 + shift},
+           {"error", 0.01397},
+           {"mode", "free"}},
+          {{"name", "sigma_int"}, {"value", 0.06}, {"error", 0.0}, {"mode", "fixed"}}}},
+        {"statistics", {{"n_used", 46}}}};
   };
   c.document["fit"]["relations"] = nlohmann::json::array({rel("W_H", -5.91013), rel("W_VI", -5.8)});
   return c;
@@ -87,16 +95,20 @@ TEST(Tables, NumbersParseBackToTheRoundedValues) {
       ASSERT_NE(rel, nullptr);
       std::string text = m[3 + k];
       std::smatch vm;
-      if (!std::regex_match(text, vm, std::regex("(-?[0-9.]+)(?: \\+- ([0-9.]+))?(?: \\(fixed\\))?"))) continue;
+      if (!std::regex_match(text, vm,
+                            std::regex("(-?[0-9.]+)(?: \\+- ([0-9.]+))?(?: \\(fixed\\))?")))
+        continue;
       const std::string q = m[2];
       for (const auto& p : (*rel)["parameters"]) {
         bool match = (q.find("zero point") == 0 && p["name"] == "alpha") ||
                      (q.find("parallax offset") == 0 && p["name"] == "parallax_offset_mas") ||
                      (q.find("slope") == 0 && p["name"] == "beta");
         if (!match) continue;
-        Rounded expect = round_for_print(p["value"], p["mode"] == "fixed" ? NAN : p["error"].get<double>());
+        Rounded expect =
+            round_for_print(p["value"], p["mode"] == "fixed" ? NAN : p["error"].get<double>());
         // A fixed value prints as it was given.
-        std::string value = p["mode"] == "fixed" ? fmt::format("{}", p["value"].get<double>()) : expect.value;
+        std::string value =
+            p["mode"] == "fixed" ? fmt::format("{}", p["value"].get<double>()) : expect.value;
         EXPECT_EQ(vm[1].str(), value) << line;
         if (vm[2].matched) {
           EXPECT_EQ(vm[2].str(), expect.error) << line;
@@ -107,9 +119,13 @@ TEST(Tables, NumbersParseBackToTheRoundedValues) {
   }
   EXPECT_EQ(checked, 12);  // 2 relations x 3 quantities x 2 versions
   std::string md = relation_table(v, TableFormat::kMarkdown);
-  EXPECT_NE(md.find("| W_H: zero point alpha (mag) | -5.910 +- 0.075 | -5.898 +- 0.075 |"), std::string::npos) << md;
+  EXPECT_NE(md.find("| W_H: zero point alpha (mag) | -5.910 +- 0.075 | -5.898 +- 0.075 |"),
+            std::string::npos)
+      << md;
   std::string tex = relation_table(v, TableFormat::kLatex);
-  EXPECT_NE(tex.find("W\\_H: $\\alpha$ (mag) & $-5.910 \\pm 0.075$ & $-5.898 \\pm 0.075$"), std::string::npos) << tex;
+  EXPECT_NE(tex.find("W\\_H: $\\alpha$ (mag) & $-5.910 \\pm 0.075$ & $-5.898 \\pm 0.075$"),
+            std::string::npos)
+      << tex;
   EXPECT_NE(tex.find("$-3.26$ (fixed)"), std::string::npos);
 }
 
@@ -117,7 +133,8 @@ TEST(Tables, StarAppendixListsUsedAndRejectedStars) {
   StarTable t;
   for (const char* c : {"relation", "id", "reason"}) t.add_column(c, ColumnType::kText);
   t.add_column("used", ColumnType::kBoolean);
-  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
+  for (const char* c :
+       {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
     t.add_column(c, ColumnType::kReal);
   auto row = [&](const char* id, bool used, const char* reason) {
     t.column("relation").push_text("W_H");
@@ -134,7 +151,8 @@ TEST(Tables, StarAppendixListsUsedAndRejectedStars) {
   row("RW CAM", false, "RUWE 2.10 > 1.4");
   std::string csv = star_table(t, "W_H", TableFormat::kCsv);
   EXPECT_NE(csv.find("AA GEM,1.0530,6.871,0.1878,0.0231,-0.52,yes,"), std::string::npos) << csv;
-  EXPECT_NE(csv.find("RW CAM,1.0530,6.871,0.1878,0.0231,,no,RUWE 2.10 > 1.4"), std::string::npos) << csv;
+  EXPECT_NE(csv.find("RW CAM,1.0530,6.871,0.1878,0.0231,,no,RUWE 2.10 > 1.4"), std::string::npos)
+      << csv;
 }
 
 TEST(Tables, StarAppendixMarksLikelyOutliersOfTheHierarchicalFit) {
@@ -142,21 +160,25 @@ TEST(Tables, StarAppendixMarksLikelyOutliersOfTheHierarchicalFit) {
   StarTable t;
   for (const char* c : {"relation", "id", "reason"}) t.add_column(c, ColumnType::kText);
   t.add_column("used", ColumnType::kBoolean);
-  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual", "membership"})
+  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas",
+                        "residual", "membership"})
     t.add_column(c, ColumnType::kReal);
   for (const auto& [id, membership] : {std::pair{"S1", 0.97}, std::pair{"S2", 0.12}}) {
     t.column("relation").push_text("X");
     t.column("id").push_text(id);
     t.column("reason").push_null();
     t.column("used").push_boolean(true);
-    for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
+    for (const char* c :
+         {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
       t.column(c).push_real(1.0);
     t.column("membership").push_real(membership);
   }
   const std::string csv = star_table(t, "X", TableFormat::kCsv);
   EXPECT_NE(csv.find(",residual (sigma),membership,used,note"), std::string::npos) << csv;
   EXPECT_NE(csv.find("S1,1.0000,1.000,1.0000,1.0000,1.00,0.97,yes,\n"), std::string::npos) << csv;
-  EXPECT_NE(csv.find("S2,1.0000,1.000,1.0000,1.0000,1.00,0.12,yes,likely outlier or blend"), std::string::npos) << csv;
+  EXPECT_NE(csv.find("S2,1.0000,1.000,1.0000,1.0000,1.00,0.12,yes,likely outlier or blend"),
+            std::string::npos)
+      << csv;
   const std::string tex = star_table(t, "X", TableFormat::kLatex);
   EXPECT_NE(tex.find("\\colhead{$p_{\\rm member}$}"), std::string::npos) << tex;
   EXPECT_NE(tex.find("below 0.5 the star is noted as a likely outlier"), std::string::npos) << tex;
@@ -169,9 +191,12 @@ TEST(Tables, StarAppendixMarksLikelyOutliersOfTheHierarchicalFit) {
 TEST(Tables, CaptionsGiveTheEquationThePivotAndWhichErrors) {
   const std::vector<Calibration> v = {two_relations(1, 0.0)};
   const std::string cov = relation_table(v, TableFormat::kMarkdown);
-  EXPECT_NE(cov.find("| W_H: zero point alpha (mag) | -5.910 +- 0.075 |"), std::string::npos) << cov;
+  EXPECT_NE(cov.find("| W_H: zero point alpha (mag) | -5.910 +- 0.075 |"), std::string::npos)
+      << cov;
   const std::string tex = relation_table(v, TableFormat::kLatex, TableErrors::kBoth);
-  EXPECT_NE(tex.find("$M = \\alpha + \\beta\\,(\\log P - \\log P_0) + \\gamma\\,{\\rm [Fe/H]}$"), std::string::npos) << tex;
+  EXPECT_NE(tex.find("$M = \\alpha + \\beta\\,(\\log P - \\log P_0) + \\gamma\\,{\\rm [Fe/H]}$"),
+            std::string::npos)
+      << tex;
   EXPECT_NE(tex.find("$\\log P_0$: W\\_H 1, W\\_VI 1"), std::string::npos) << tex;
   EXPECT_NE(tex.find("in parentheses, from the bootstrap"), std::string::npos) << tex;
   EXPECT_NE(tex.find("$-5.910 \\pm 0.075$ (0.081)"), std::string::npos) << tex;
@@ -181,18 +206,21 @@ TEST(Tables, CaptionsGiveTheEquationThePivotAndWhichErrors) {
 
 TEST(Tables, LatexSpecialCharactersAreEscaped) {
   // Issue 20: ~ and ^ went through raw. The ten special characters of LaTeX text mode.
-  EXPECT_EQ(escape_latex("a_b&c%d#e$f{g}h~i^j\\k"),
-            "a\\_b\\&c\\%d\\#e\\$f\\{g\\}h\\textasciitilde{}i\\textasciicircum{}j\\textbackslash{}k");
+  EXPECT_EQ(
+      escape_latex("a_b&c%d#e$f{g}h~i^j\\k"),
+      "a\\_b\\&c\\%d\\#e\\$f\\{g\\}h\\textasciitilde{}i\\textasciicircum{}j\\textbackslash{}k");
 }
 
 TEST(Tables, ErrorBudgetNamesTheQuantities) {
-  const nlohmann::json budget = {
-      {"schema", "rungcal-error-budget"},
-      {"relations",
-       {{{"name", "W_VI"},
-         {"parameters",
-          {{{"name", "parallax_offset_mas"}, {"baseline", -0.012}, {"baseline_error", 0.004},
-            {"categories", {{"zero_point", 0.002}}}, {"total", 0.002}}}}}}}};
+  const nlohmann::json budget = {{"schema", "rungcal-error-budget"},
+                                 {"relations",
+                                  {{{"name", "W_VI"},
+                                    {"parameters",
+                                     {{{"name", "parallax_offset_mas"},
+                                       {"baseline", -0.012},
+                                       {"baseline_error", 0.004},
+                                       {"categories", {{"zero_point", 0.002}}},
+                                       {"total", 0.002}}}}}}}};
   const std::string md = error_budget_table(budget, TableFormat::kMarkdown);
   EXPECT_NE(md.find("| W_VI: parallax offset (mas) |"), std::string::npos) << md;
   const std::string tex = error_budget_table(budget, TableFormat::kLatex);
@@ -209,29 +237,36 @@ TEST(Tables, EveryTableTheReportWritesCompilesInAnAastexDocument) {
   StarTable stars;
   for (const char* c : {"relation", "id", "reason"}) stars.add_column(c, ColumnType::kText);
   stars.add_column("used", ColumnType::kBoolean);
-  for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
+  for (const char* c :
+       {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas", "residual"})
     stars.add_column(c, ColumnType::kReal);
   for (const char* id : {"V~1^a", "X_{2}&#3", "back\\slash$%"}) {
     stars.column("relation").push_text("W_H");
     stars.column("id").push_text(id);
     stars.column("reason").push_text("RUWE > 1.4 & 50% blended");
     stars.column("used").push_boolean(false);
-    for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas"}) stars.column(c).push_real(1.0);
+    for (const char* c : {"log_period_f", "m0", "parallax_corrected_mas", "parallax_err_mas"})
+      stars.column(c).push_real(1.0);
     stars.column("residual").push_null();
   }
-  const nlohmann::json budget = {
-      {"relations",
-       {{{"name", "W_H"},
-         {"parameters",
-          {{{"name", "alpha"}, {"baseline", -5.9}, {"baseline_error", 0.03}, {"categories", {{"zero_point", 0.01}}},
-            {"total", 0.01}}}}}}}};
+  const nlohmann::json budget = {{"relations",
+                                  {{{"name", "W_H"},
+                                    {"parameters",
+                                     {{{"name", "alpha"},
+                                       {"baseline", -5.9},
+                                       {"baseline_error", 0.03},
+                                       {"categories", {{"zero_point", 0.01}}},
+                                       {"total", 0.01}}}}}}}};
   const std::vector<Calibration> v = {two_relations(1, 0.0), two_relations(2, 0.01)};
   std::string body;
   for (TableErrors e : {TableErrors::kCovariance, TableErrors::kBootstrap, TableErrors::kBoth})
     body += relation_table(v, TableFormat::kLatex, e);
-  body += star_table(stars, "W_H", TableFormat::kLatex) + error_budget_table(budget, TableFormat::kLatex);
-  test::write_text(dir.file("t.tex"), "\\documentclass{aastex631}\n\\begin{document}\n" + body + "\\end{document}\n");
-  auto r = test::run_command("cd " + dir.path() + " && pdflatex -interaction=nonstopmode -halt-on-error t.tex");
+  body += star_table(stars, "W_H", TableFormat::kLatex) +
+          error_budget_table(budget, TableFormat::kLatex);
+  test::write_text(dir.file("t.tex"),
+                   "\\documentclass{aastex631}\n\\begin{document}\n" + body + "\\end{document}\n");
+  auto r = test::run_command("cd " + dir.path() +
+                             " && pdflatex -interaction=nonstopmode -halt-on-error t.tex");
   EXPECT_EQ(r.exit_code, 0) << r.output;
   EXPECT_TRUE(test::file_exists(dir.file("t.pdf")));
 }
@@ -246,22 +281,24 @@ struct FigureInputs {
 FigureInputs figure_inputs() {
   FigureInputs f;
   f.cal.document = {{"name", "fig"}, {"version", 1}};
-  f.cal.document["fit"]["relations"] = nlohmann::json::array(
-      {{{"name", "X"},
-        {"pivot_log_period", 1.0},
-        {"parameters",
-         {{{"name", "alpha"}, {"value", -5.0}, {"error", 0.02}},
-          {{"name", "beta"}, {"value", -3.0}, {"error", 0.03}},
-          {{"name", "parallax_offset_mas"}, {"value", 0.0}, {"error", 0.01}},
-          {{"name", "sigma_int"}, {"value", 0.1}, {"error", 0.01}}}}}});
+  f.cal.document["fit"]["relations"] =
+      nlohmann::json::array({{{"name", "X"},
+                              {"pivot_log_period", 1.0},
+                              {"parameters",
+                               {{{"name", "alpha"}, {"value", -5.0}, {"error", 0.02}},
+                                {{"name", "beta"}, {"value", -3.0}, {"error", 0.03}},
+                                {{"name", "parallax_offset_mas"}, {"value", 0.0}, {"error", 0.01}},
+                                {{"name", "sigma_int"}, {"value", 0.1}, {"error", 0.01}}}}}});
   StarTable& t = f.res;
   for (const char* c : {"relation", "id", "kind", "reason"}) t.add_column(c, ColumnType::kText);
   t.add_column("used", ColumnType::kBoolean);
-  for (const char* c : {"log_period_f", "m0", "m0_err", "abs_mag_model", "residual", "parallax_corrected_mas", "parallax_err_mas", "predicted"})
+  for (const char* c : {"log_period_f", "m0", "m0_err", "abs_mag_model", "residual",
+                        "parallax_corrected_mas", "parallax_err_mas", "predicted"})
     t.add_column(c, ColumnType::kReal);
   const double logp[] = {0.4, 0.7, 1.0, 1.3, 1.6};
   for (int i = 0; i < 5; ++i) {
-    double m_abs = -5.0 - 3.0 * (logp[i] - 1.0), d_kpc = 2.0, m0 = m_abs + 5 * std::log10(d_kpc * 100);
+    double m_abs = -5.0 - 3.0 * (logp[i] - 1.0), d_kpc = 2.0,
+           m0 = m_abs + 5 * std::log10(d_kpc * 100);
     t.column("relation").push_text("X");
     t.column("id").push_text("S" + std::to_string(i));
     t.column("kind").push_text("parallax");
@@ -295,7 +332,8 @@ root = ET.parse(sys.argv[1]).getroot()
 png = open(sys.argv[2], "rb").read()
 w, h = struct.unpack(">II", png[16:24])
 print(root.tag.endswith("svg"), png[:8] == b"\x89PNG\r\n\x1a\n", w, h)
-)", {dir.file("pl.svg"), dir.file("pl.png")});
+)",
+                            {dir.file("pl.svg"), dir.file("pl.png")});
   ASSERT_EQ(r.exit_code, 0) << r.output;
   EXPECT_NE(r.output.find("True True 720 640"), std::string::npos) << r.output;
 }
@@ -306,10 +344,13 @@ int pixels_like(cairo_surface_t* img, double x_center, int half_width, const dou
   const int stride = cairo_image_surface_get_stride(img);
   const unsigned char* data = cairo_image_surface_get_data(img);
   int count = 0;
-  for (int x = std::max(0, static_cast<int>(x_center) - half_width); x <= std::min(w - 1, static_cast<int>(x_center) + half_width); ++x)
+  for (int x = std::max(0, static_cast<int>(x_center) - half_width);
+       x <= std::min(w - 1, static_cast<int>(x_center) + half_width); ++x)
     for (int y = 0; y < h; ++y) {
       const unsigned char* p = data + y * stride + 4 * x;  // ARGB32, little endian: B G R A
-      if (std::abs(p[2] - 255 * rgb[0]) < 30 && std::abs(p[1] - 255 * rgb[1]) < 30 && std::abs(p[0] - 255 * rgb[2]) < 30) ++count;
+      if (std::abs(p[2] - 255 * rgb[0]) < 30 && std::abs(p[1] - 255 * rgb[1]) < 30 &&
+          std::abs(p[0] - 255 * rgb[2]) < 30)
+        ++count;
     }
   return count;
 }
@@ -321,7 +362,8 @@ TEST(Figures, JournalWidthsGivePrintedSizesAndThreeHundredDpiPngs) {
   test::TempDir dir;
   FigureInputs f = figure_inputs();
   for (const auto& [width, name, points, pixels] :
-       {std::tuple{FigureWidth::kColumn, "column", 252.0, 1050}, std::tuple{FigureWidth::kTwoColumns, "two", 511.2, 2130}}) {
+       {std::tuple{FigureWidth::kColumn, "column", 252.0, 1050},
+        std::tuple{FigureWidth::kTwoColumns, "two", 511.2, 2130}}) {
     const std::string stem = dir.file(std::string("pl_") + name);
     pl_diagram(f.cal, "X", f.res, FigureFormat::kPdf, stem + ".pdf", width);
     pl_diagram(f.cal, "X", f.res, FigureFormat::kSvg, stem + ".svg", width);
@@ -332,7 +374,8 @@ root = ET.parse(sys.argv[1] + ".svg").getroot()
 png = open(sys.argv[1] + ".png", "rb").read()
 box = re.search(rb"/MediaBox \[\s*0 0 ([0-9.]+) ([0-9.]+)\s*\]", open(sys.argv[1] + ".pdf", "rb").read())
 print(root.get("width"), *struct.unpack(">II", png[16:24]), float(box.group(1)), float(box.group(2)))
-)", {stem});
+)",
+                              {stem});
     ASSERT_EQ(r.exit_code, 0) << r.output;
     std::istringstream out(r.output);
     std::string svg_width;
@@ -348,7 +391,8 @@ print(root.get("width"), *struct.unpack(">II", png[16:24]), float(box.group(1)),
     cairo_surface_t* img = cairo_image_surface_create_from_png((stem + ".png").c_str());
     ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
     const double blue[3] = {0.0, 0.447, 0.698};
-    for (double logp : {0.4, 0.7, 1.0, 1.3}) EXPECT_GT(pixels_like(img, s.x_to_output(logp), 4, blue), 20) << name << logp;
+    for (double logp : {0.4, 0.7, 1.0, 1.3})
+      EXPECT_GT(pixels_like(img, s.x_to_output(logp), 4, blue), 20) << name << logp;
     EXPECT_LE(s.box_right, png_w);
     cairo_surface_destroy(img);
   }
@@ -363,7 +407,8 @@ TEST(Figures, PointsSitWhereTheDataAreAndRejectedStarsShowTheirMarker) {
   cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("pl.png").c_str());
   ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
   const double blue[3] = {0.0, 0.447, 0.698}, vermillion[3] = {0.835, 0.369, 0.0};
-  for (double logp : {0.4, 0.7, 1.0, 1.3}) EXPECT_GT(pixels_like(img, s.x_to_output(logp), 4, blue), 20) << logp;
+  for (double logp : {0.4, 0.7, 1.0, 1.3})
+    EXPECT_GT(pixels_like(img, s.x_to_output(logp), 4, blue), 20) << logp;
   // Between the stars, no marker colour.
   EXPECT_EQ(pixels_like(img, s.x_to_output(0.85), 2, blue), 0);
   EXPECT_GT(pixels_like(img, s.x_to_output(1.6), 5, vermillion), 10);
@@ -410,8 +455,12 @@ TEST(Figures, ThePlDiagramHasAKeyAndCountsTheStarsItCannotDraw) {
   ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
   const double blue[3] = {0.0, 0.447, 0.698}, vermillion[3] = {0.835, 0.369, 0.0};
   // The key's own markers: a filled circle (used) and an open square (refused).
-  EXPECT_GT(pixels_in_box(img, s.legend_left, s.legend_top, s.legend_left + 24, s.legend_top + 22, blue), 20);
-  EXPECT_GT(pixels_in_box(img, s.legend_left, s.legend_top + 22, s.legend_left + 24, s.legend_top + 40, vermillion), 10);
+  EXPECT_GT(
+      pixels_in_box(img, s.legend_left, s.legend_top, s.legend_left + 24, s.legend_top + 22, blue),
+      20);
+  EXPECT_GT(pixels_in_box(img, s.legend_left, s.legend_top + 22, s.legend_left + 24,
+                          s.legend_top + 40, vermillion),
+            10);
   cairo_surface_destroy(img);
 }
 
@@ -422,18 +471,22 @@ TEST(Figures, LikelyOutliersOfTheHierarchicalFitAreDrawnAsRingsAndKeyed) {
   Column& membership = f.res.add_column("membership", ColumnType::kReal);
   membership.real = {0.99, 0.98, 0.08, 0.97, 0.0};
   membership.null = {0, 0, 0, 0, 1};
-  const FigureSummary plain = pl_diagram(figure_inputs().cal, "X", figure_inputs().res, FigureFormat::kPng, dir.file("a.png"));
+  const FigureSummary plain = pl_diagram(figure_inputs().cal, "X", figure_inputs().res,
+                                         FigureFormat::kPng, dir.file("a.png"));
   const FigureSummary s = pl_diagram(f.cal, "X", f.res, FigureFormat::kPng, dir.file("pl.png"));
   EXPECT_EQ(s.used_points, 4);
   EXPECT_EQ(s.likely_outlier_points, 1);
   EXPECT_EQ(plain.likely_outlier_points, 0);
-  EXPECT_GT(s.legend_bottom - s.legend_top, plain.legend_bottom - plain.legend_top);  // one more key row
+  EXPECT_GT(s.legend_bottom - s.legend_top,
+            plain.legend_bottom - plain.legend_top);  // one more key row
   cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("pl.png").c_str());
   ASSERT_EQ(cairo_surface_status(img), CAIRO_STATUS_SUCCESS);
   const double blue[3] = {0.0, 0.447, 0.698};
-  const int ring = pixels_like(img, s.x_to_output(1.0), 0, blue), disk = pixels_like(img, s.x_to_output(0.7), 0, blue);
+  const int ring = pixels_like(img, s.x_to_output(1.0), 0, blue),
+            disk = pixels_like(img, s.x_to_output(0.7), 0, blue);
   EXPECT_GT(ring, 0);
-  EXPECT_LT(ring, 0.7 * disk) << "a ring crosses the centre column in two short arcs, a disk along its diameter";
+  EXPECT_LT(ring, 0.7 * disk)
+      << "a ring crosses the centre column in two short arcs, a disk along its diameter";
   cairo_surface_destroy(img);
 }
 
@@ -447,7 +500,9 @@ TEST(Figures, ResidualTrendsShowEachStarWithAResidual) {
   test::TempDir dir;
   FigureInputs f = figure_inputs();
   f.res.add_column("feh", ColumnType::kReal);
-  for (std::size_t i = 0; i < f.res.rows(); ++i) f.res.column("feh").real[i] = -0.2 + 0.1 * static_cast<double>(i), f.res.column("feh").null[i] = 0;
+  for (std::size_t i = 0; i < f.res.rows(); ++i)
+    f.res.column("feh").real[i] = -0.2 + 0.1 * static_cast<double>(i),
+    f.res.column("feh").null[i] = 0;
   FigureSummary s = residual_trends(f.cal, "X", f.res, FigureFormat::kPng, dir.file("r.png"));
   EXPECT_EQ(s.used_points, 4);  // the refused star has no residual
   cairo_surface_t* img = cairo_image_surface_create_from_png(dir.file("r.png").c_str());
@@ -753,7 +808,8 @@ TEST(Figures, ThePlKeyCoversNoStarAtAnyWidth) {
 LightCurveTables light_curve_inputs() {
   LightCurveTables t;
   t.summary.add_column("id", ColumnType::kText);
-  for (const char* c : {"period_d", "t_ref", "epoch_max"}) t.summary.add_column(c, ColumnType::kReal);
+  for (const char* c : {"period_d", "t_ref", "epoch_max"})
+    t.summary.add_column(c, ColumnType::kReal);
   t.summary.column("id").push_text("STAR-A");
   t.summary.column("period_d").push_real(10.0);
   t.summary.column("t_ref").push_real(100.0);
@@ -768,7 +824,8 @@ LightCurveTables light_curve_inputs() {
     t.fourier.column("band").push_text("V");
     t.fourier.column("harmonic").push_integer(k);
     t.fourier.column("cos_coef").push_real(k == 0 ? 12.0 : 0.0);
-    t.fourier.column("sin_coef").push_real(k == 0 ? 0.0 : -0.3);  // brightest a quarter cycle after t_ref
+    t.fourier.column("sin_coef")
+        .push_real(k == 0 ? 0.0 : -0.3);  // brightest a quarter cycle after t_ref
   }
   t.points.add_column("id", ColumnType::kText);
   t.points.add_column("band", ColumnType::kText);
@@ -807,7 +864,8 @@ TEST(Figures, LightCurveShowsEachEpochTwiceAndTheModelPeaksAtPhaseZero) {
   // Each epoch at its phase and one cycle later; the model line crosses every column, so
   // a marker column holds clearly more blue than a column between epochs.
   const int between = pixels_like(img, s.x_to_output(0.45), 2, blue);
-  for (double ph : {0.1, 0.3, 0.55, 0.8, 1.1, 1.3, 1.55, 1.8}) EXPECT_GT(pixels_like(img, s.x_to_output(ph), 2, blue), between + 10) << ph;
+  for (double ph : {0.1, 0.3, 0.55, 0.8, 1.1, 1.3, 1.55, 1.8})
+    EXPECT_GT(pixels_like(img, s.x_to_output(ph), 2, blue), between + 10) << ph;
   cairo_surface_destroy(img);
   // The model's brightest point (smallest magnitude) drawn at phase 0: the top rows of the
   // plot box hold model pixels near phase 0 and 1, not near 0.5.
@@ -817,7 +875,8 @@ TEST(Figures, LightCurveShowsEachEpochTwiceAndTheModelPeaksAtPhaseZero) {
   auto blue_near_top = [&](double phase) {
     const int x = static_cast<int>(s.x_to_output(phase));
     int count = 0;
-    for (int y = static_cast<int>(s.box_top); y < static_cast<int>(s.box_top + 0.25 * (s.box_bottom - s.box_top)); ++y)
+    for (int y = static_cast<int>(s.box_top);
+         y < static_cast<int>(s.box_top + 0.25 * (s.box_bottom - s.box_top)); ++y)
       for (int dx = -3; dx <= 3; ++dx) {
         const unsigned char* p = data + y * stride + 4 * (x + dx);
         count += std::abs(p[0] - 178) < 30 && std::abs(p[2] - 0) < 30;
@@ -847,7 +906,8 @@ TEST(Figures, ALightCurveKeepsItsKeyOffTheDataAndItsModelOffTheFrame) {
 TEST(Figures, LightCurveOfAStarWithoutAPeriodIsRefused) {
   test::TempDir dir;
   LightCurveTables t = light_curve_inputs();
-  EXPECT_THROW(light_curve_figure(t, "NOT-THERE", FigureFormat::kPng, dir.file("x.png")), InputError);
+  EXPECT_THROW(light_curve_figure(t, "NOT-THERE", FigureFormat::kPng, dir.file("x.png")),
+               InputError);
   EXPECT_FALSE(test::file_exists(dir.file("x.png")));
 }
 
@@ -858,8 +918,10 @@ ReportOptions report_with_star(const test::TempDir& dir, const std::string& star
   LightCurveTables lc = light_curve_inputs();
   for (StarTable* t : {&lc.summary, &lc.fourier, &lc.points, &lc.periodogram})
     for (auto& id : t->column("id").text) id = star;
-  write_fits_tables(dir.file("lc.fits"), {{"SUMMARY", &lc.summary}, {"FOURIER", &lc.fourier},
-                                         {"POINTS", &lc.points}, {"PERIODOGRAM", &lc.periodogram}});
+  write_fits_tables(dir.file("lc.fits"), {{"SUMMARY", &lc.summary},
+                                          {"FOURIER", &lc.fourier},
+                                          {"POINTS", &lc.points},
+                                          {"PERIODOGRAM", &lc.periodogram}});
   ReportOptions o;
   o.store = dir.file("store");
   o.calibrations = {"ref@latest"};

@@ -358,15 +358,20 @@ TEST(Run, AnEditedZeroPointTableRerunsTheFitAndAnotherSpellingOfTheConfigDoesNot
   fs::copy_file(test::reference_file("parallax_zeropoint_6p.txt"), zp6);
   test::write_text(dir.file("fit.toml"),
                    test::replaced(test::read_text(test::source_file("config/demo/fit.toml")),
-                                  {{"zero_point_mas = -0.020\n", "zero_point_mas = -0.020\nzero_point_table_5p = \"" + zp5 +
-                                                                    "\"\nzero_point_table_6p = \"" + zp6 + "\"\n"},
+                                  {{"zero_point_mas = -0.020\n",
+                                    "zero_point_mas = -0.020\nzero_point_table_5p = \"" + zp5 +
+                                        "\"\nzero_point_table_6p = \"" + zp6 + "\"\n"},
                                    {"../../demo_out", dir.path()}}));
-  test::write_text(dir.file("pipeline.toml"),
-                   test::replaced(pipeline_config(dir), {{test::source_file("config/demo") + "/fit.toml", dir.file("fit.toml")}}));
+  test::write_text(
+      dir.file("pipeline.toml"),
+      test::replaced(pipeline_config(dir),
+                     {{test::source_file("config/demo") + "/fit.toml", dir.file("fit.toml")}}));
   ASSERT_EQ(run(dir).exit_code, 6);
   // The same config named through another path: the same keys, nothing to do.
-  auto again = test::run_command("cd " + test::shell_quote(dir.path()) + " && " + test::shell_quote(std::string(RUNGCAL_BIN_DIR) + "/rungcal-run") +
-                                 " --config ./../" + fs::path(dir.path()).filename().string() + "/pipeline.toml");
+  auto again = test::run_command("cd " + test::shell_quote(dir.path()) + " && " +
+                                 test::shell_quote(std::string(RUNGCAL_BIN_DIR) + "/rungcal-run") +
+                                 " --config ./../" + fs::path(dir.path()).filename().string() +
+                                 "/pipeline.toml");
   EXPECT_EQ(again.exit_code, 3) << again.output;
   std::string table = test::read_text(zp5);
   table.replace(table.find("-26.98"), 6, "-16.98");
@@ -382,7 +387,8 @@ std::string copy_fit_config(const test::TempDir& dir,
                             std::vector<std::pair<std::string, std::string>> edits = {}) {
   edits.insert(edits.begin(), {"../../demo_out", dir.path()});
   const std::string path = dir.file("fit.toml");
-  test::write_text(path, test::replaced(test::read_text(test::source_file("config/demo/fit.toml")), edits));
+  test::write_text(
+      path, test::replaced(test::read_text(test::source_file("config/demo/fit.toml")), edits));
   return path;
 }
 
@@ -396,19 +402,23 @@ TEST(Run, ACommentOrLayoutEditOfAConfigRerunsNothingAndPublishesNothing) {
   test::TempDir dir;
   stage_catalog(dir);
   const std::string fit = copy_fit_config(dir);
-  test::write_text(dir.file("pipeline.toml"), with_fit_config(pipeline_config(dir, "", 0, false), fit));
+  test::write_text(dir.file("pipeline.toml"),
+                   with_fit_config(pipeline_config(dir, "", 0, false), fit));
   ASSERT_EQ(run(dir).exit_code, 6);
   test::write_text(fit, "# reviewed 2026-12-02: no change\n" +
-                            test::replaced(test::read_text(fit), {{" = ", "   =   "}}) + "\n\n# end\n");
+                            test::replaced(test::read_text(fit), {{" = ", "   =   "}}) +
+                            "\n\n# end\n");
   auto again = run(dir, "--dry-run");
   EXPECT_EQ(again.exit_code, 3) << again.output;
   again = run(dir);
   EXPECT_EQ(again.exit_code, 3) << again.output;
   EXPECT_EQ(calibration_versions(dir.file("run/store"), "test-cal"), std::vector<int>{1});
   // A value edit is a change.
-  test::write_text(fit, test::replaced(test::read_text(fit), {{"zero_point_mas   =   -0.020", "zero_point_mas = -0.017"}}));
+  test::write_text(fit, test::replaced(test::read_text(fit), {{"zero_point_mas   =   -0.020",
+                                                               "zero_point_mas = -0.017"}}));
   auto changed = run(dir, "--dry-run");
-  EXPECT_NE(changed.output.find("fit: would run (config changed)"), std::string::npos) << changed.output;
+  EXPECT_NE(changed.output.find("fit: would run (config changed)"), std::string::npos)
+      << changed.output;
 }
 
 TEST(Run, RollingLatestBackIsHonouredDownstreamAndWithdrawnContentIsNotRepublished) {
@@ -423,7 +433,8 @@ TEST(Run, RollingLatestBackIsHonouredDownstreamAndWithdrawnContentIsNotRepublish
       demo, dir.file("deredden_targets.toml"));
   test::write_text(dir.file("deredden_targets.toml"),
                    test::replaced(test::read_text(demo + "/deredden_targets.toml"),
-                                  {{"../../demo_out", dir.file("run")}, {"../bands.toml", test::source_file("config/bands.toml")}}));
+                                  {{"../../demo_out", dir.file("run")},
+                                   {"../bands.toml", test::source_file("config/bands.toml")}}));
   test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 0, false) + apply);
   ASSERT_EQ(run(dir).exit_code, 6);
   edit_catalog(dir, [](StarTable& t) { t.column("PLX").real[4] += 0.05; });
@@ -431,7 +442,8 @@ TEST(Run, RollingLatestBackIsHonouredDownstreamAndWithdrawnContentIsNotRepublish
   const std::string store = dir.file("run/store");
   ASSERT_EQ(calibration_versions(store, "test-cal"), (std::vector<int>{1, 2}));
 
-  auto rollback = test::run_stage("publish", "--store " + store + " --name test-cal --set-latest 1");
+  auto rollback =
+      test::run_stage("publish", "--store " + store + " --name test-cal --set-latest 1");
   ASSERT_EQ(rollback.exit_code, 0) << rollback.output;
   EXPECT_EQ(load_calibration(store, "test-cal@latest").version(), 1);
   ASSERT_EQ(withdrawn_versions(store, "test-cal").size(), 1u);
@@ -441,17 +453,20 @@ TEST(Run, RollingLatestBackIsHonouredDownstreamAndWithdrawnContentIsNotRepublish
   EXPECT_NE(dry.output.find("apply: would run"), std::string::npos) << dry.output;
   auto after = run(dir);
   EXPECT_EQ(after.exit_code, 6) << after.output;
-  EXPECT_NE(after.output.find("latest is test-cal@1, rolled back from version 2"), std::string::npos)
+  EXPECT_NE(after.output.find("latest is test-cal@1, rolled back from version 2"),
+            std::string::npos)
       << after.output;
   EXPECT_TRUE(ran(after.output, "apply")) << after.output;
-  EXPECT_NE(test::run_command("grep -a -c 'test-cal@1' " + dir.file("run/distances.fits")).output, "0\n")
+  EXPECT_NE(test::run_command("grep -a -c 'test-cal@1' " + dir.file("run/distances.fits")).output,
+            "0\n")
       << "apply used the version latest names (keyword RGCALIB)";
   EXPECT_EQ(run(dir).exit_code, 3);
 
   // The inputs still give version 2's content: a forced rerun does not bring it back.
   auto forced = run(dir, "--force");
   EXPECT_EQ(forced.exit_code, 0) << forced.output;
-  EXPECT_NE(forced.output.find("withdrawn version 2's content again, not republished"), std::string::npos)
+  EXPECT_NE(forced.output.find("withdrawn version 2's content again, not republished"),
+            std::string::npos)
       << forced.output;
   EXPECT_EQ(calibration_versions(store, "test-cal"), (std::vector<int>{1, 2}));
   EXPECT_EQ(load_calibration(store, "test-cal@latest").version(), 1);
@@ -519,8 +534,9 @@ TEST(Run, ANewVersionWhereNoParameterMovedSaysSoNotFirstVersion) {
   nlohmann::json fit = nlohmann::json::parse(test::read_text(dir.file("run/fit.json")));
   fit["provenance"]["software_version"] = "0.0.0-other";
   test::write_text(dir.file("other_fit.json"), fit.dump());
-  auto hand = test::run_stage("publish", "--store " + dir.file("run/store") + " --name test-cal --fit " +
-                                             dir.file("other_fit.json"));
+  auto hand =
+      test::run_stage("publish", "--store " + dir.file("run/store") + " --name test-cal --fit " +
+                                     dir.file("other_fit.json"));
   ASSERT_EQ(hand.exit_code, 0) << hand.output;
   auto next = run(dir);
   EXPECT_EQ(next.exit_code, 6) << next.output;
@@ -546,14 +562,17 @@ TEST(Run, QuietPrintsNothingAndADryRunGivesItsReasonsWithoutATerminal) {
   stage_catalog(dir);
   test::write_text(dir.file("pipeline.toml"), pipeline_config(dir, "", 0, false));
   // Warnings go on, on stderr; stdout (the summary) is silent.
-  auto quiet = test::run_command("{ " + test::shell_quote(std::string(RUNGCAL_BIN_DIR) + "/rungcal-run") +
-                                 " -q --config " + dir.file("pipeline.toml") + " 2>/dev/null; }");
+  auto quiet =
+      test::run_command("{ " + test::shell_quote(std::string(RUNGCAL_BIN_DIR) + "/rungcal-run") +
+                        " -q --config " + dir.file("pipeline.toml") + " 2>/dev/null; }");
   EXPECT_EQ(quiet.exit_code, 6) << quiet.output;
   EXPECT_EQ(quiet.output, "");
   edit_catalog(dir, [](StarTable& t) { t.column("PLX").real[4] += 0.05; });
   auto dry = run(dir, "--dry-run");  // run_command has no terminal
-  EXPECT_NE(dry.output.find("ingest: would run (input incoming.fits changed)"), std::string::npos) << dry.output;
-  EXPECT_NE(dry.output.find("fit: would run (catalog_dereddened.fits would change)"), std::string::npos)
+  EXPECT_NE(dry.output.find("ingest: would run (input incoming.fits changed)"), std::string::npos)
+      << dry.output;
+  EXPECT_NE(dry.output.find("fit: would run (catalog_dereddened.fits would change)"),
+            std::string::npos)
       << dry.output;
 }
 
@@ -564,15 +583,17 @@ TEST(Run, PipelineRulesAreCheckedBeforeAnythingIsWritten) {
     std::string extra, apply, rule, key;
   } cases[] = {
       {"", "", "config_value", "run.calibration"},  // the name, below
-      {"", "[apply]\nrelation = \"W_XX\"\ntargets_ingest = \"" + demo + "/ingest_targets.toml\"\ntargets_deredden = \"" +
-               demo + "/deredden_targets.toml\"\n",
+      {"",
+       "[apply]\nrelation = \"W_XX\"\ntargets_ingest = \"" + demo +
+           "/ingest_targets.toml\"\ntargets_deredden = \"" + demo + "/deredden_targets.toml\"\n",
        "unknown_relation", "apply.relation"},
   };
   for (std::size_t i = 0; i < 2; ++i) {
     test::TempDir dir;
     stage_catalog(dir);
     std::string cfg = pipeline_config(dir, cases[i].extra, 0, false) + cases[i].apply;
-    if (i == 0) cfg = test::replaced(cfg, {{"calibration = \"test-cal\"", "calibration = \"../../x\""}});
+    if (i == 0)
+      cfg = test::replaced(cfg, {{"calibration = \"test-cal\"", "calibration = \"../../x\""}});
     test::write_text(dir.file("pipeline.toml"), cfg);
     auto r = run(dir);
     EXPECT_EQ(r.exit_code, 2) << r.output;
@@ -583,7 +604,8 @@ TEST(Run, PipelineRulesAreCheckedBeforeAnythingIsWritten) {
   }
   test::TempDir dir;
   stage_catalog(dir);
-  test::write_text(dir.file("pipeline.toml"), test::replaced(pipeline_config(dir), {{"bootstrap = 0", "bootstrap = -5"}}));
+  test::write_text(dir.file("pipeline.toml"),
+                   test::replaced(pipeline_config(dir), {{"bootstrap = 0", "bootstrap = -5"}}));
   auto r = run(dir);
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("bootstrap"), std::string::npos) << r.output;
@@ -609,7 +631,8 @@ TEST(Run, TheReportsFigureWidthIsAKeyThatRerunsTheReport) {
   // the report and nothing else; an unknown one stops before anything is written.
   test::TempDir dir;
   stage_catalog(dir);
-  const std::string with_report = test::replaced(pipeline_config(dir, "", 0, false), {{"enabled = false", "enabled = true"}});
+  const std::string with_report =
+      test::replaced(pipeline_config(dir, "", 0, false), {{"enabled = false", "enabled = true"}});
   test::write_text(dir.file("pipeline.toml"), with_report);
   ASSERT_EQ(run(dir).exit_code, 6);
   test::write_text(dir.file("pipeline.toml"), with_report + "figure_width = \"column\"\n");
@@ -630,7 +653,8 @@ TEST(Run, TheReportsFigureWidthIsAKeyThatRerunsTheReport) {
   test::TempDir bad;
   stage_catalog(bad);
   test::write_text(bad.file("pipeline.toml"),
-                   test::replaced(pipeline_config(bad, "", 0, false), {{"enabled = false", "figure_width = \"a4\""}}));
+                   test::replaced(pipeline_config(bad, "", 0, false),
+                                  {{"enabled = false", "figure_width = \"a4\""}}));
   auto r = run(bad);
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("figure_width"), std::string::npos) << r.output;

@@ -36,8 +36,10 @@ TEST(Simulate, SampleDataIsWhatTheDemoConfigDraws) {
   // sample_data/ is checked in; it must be reproducible from config/simulate_demo.toml.
   SimulateOptions o = demo_options();
   Simulation s = simulate(o, demo_bands());
-  EXPECT_EQ(format_csv_table(s.light_curves), test::read_text(test::source_file("sample_data/lightcurves.csv")));
-  EXPECT_EQ(format_csv_table(s.targets), test::read_text(test::source_file("sample_data/targets.csv")));
+  EXPECT_EQ(format_csv_table(s.light_curves),
+            test::read_text(test::source_file("sample_data/lightcurves.csv")));
+  EXPECT_EQ(format_csv_table(s.targets),
+            test::read_text(test::source_file("sample_data/targets.csv")));
   EXPECT_EQ(s.truth.dump(2) + "\n", test::read_text(test::source_file("sample_data/truth.json")));
 }
 
@@ -57,14 +59,16 @@ TEST(Simulate, TruthFileMatchesTheDraws) {
   double rk = s.truth["relations"]["Ks"]["a_over_ebv"].get<double>();
   double sum = 0, sum2 = 0;
   for (std::size_t i = 0; i < rows; ++i) {
-    double d = cat.column("Ks_MEAN").real[i] - (truth.column("M_Ks").real[i] + truth.column("mu_true").real[i] +
-                                               rk * truth.column("ebv_true").real[i]);
+    double d = cat.column("Ks_MEAN").real[i] -
+               (truth.column("M_Ks").real[i] + truth.column("mu_true").real[i] +
+                rk * truth.column("ebv_true").real[i]);
     sum += d;
     sum2 += d * d;
   }
   double mean = sum / n, sd = std::sqrt(sum2 / n - mean * mean);
   EXPECT_NEAR(mean, 0.0, 4 * o.mag_error / std::sqrt(n));
-  EXPECT_NEAR(sd, o.mag_error, 0.1 * o.mag_error);  // published rounding to 1e-4 adds nothing visible
+  EXPECT_NEAR(sd, o.mag_error,
+              0.1 * o.mag_error);  // published rounding to 1e-4 adds nothing visible
   // Parallaxes: observed - true has mean zero point + offset (weighted by 1/sigma^2).
   double wsum = 0, wres = 0;
   for (std::size_t i = 0; i < rows; ++i) {
@@ -73,7 +77,8 @@ TEST(Simulate, TruthFileMatchesTheDraws) {
     wsum += w;
     wres += w * (cat.column("PLX").real[i] - truth.column("parallax_true_mas").real[i]);
   }
-  EXPECT_NEAR(wres / wsum, o.parallax_zero_point_mas + o.parallax_offset_mas, 4.0 / std::sqrt(wsum));
+  EXPECT_NEAR(wres / wsum, o.parallax_zero_point_mas + o.parallax_offset_mas,
+              4.0 / std::sqrt(wsum));
   // Periods: first-overtone periods fundamentalize to the true log period.
   for (std::size_t i = 0; i < rows; ++i) {
     double p = cat.column("PERIOD").real[i];
@@ -83,12 +88,15 @@ TEST(Simulate, TruthFileMatchesTheDraws) {
   // The Wesenheit truth: a least-squares line through the true W_VI absolute magnitudes
   // recovers the truth file's slope and zero point (gamma [Fe/H] included).
   double r = s.truth["wesenheit"]["W_VI"]["r_reddening_free"].get<double>();
-  double alpha = s.truth["wesenheit"]["W_VI"]["alpha"].get<double>(), beta = s.truth["wesenheit"]["W_VI"]["beta"].get<double>();
-  double gamma = s.truth["wesenheit"]["W_VI"]["gamma"].get<double>(), scatter = s.truth["wesenheit"]["W_VI"]["scatter"].get<double>();
+  double alpha = s.truth["wesenheit"]["W_VI"]["alpha"].get<double>(),
+         beta = s.truth["wesenheit"]["W_VI"]["beta"].get<double>();
+  double gamma = s.truth["wesenheit"]["W_VI"]["gamma"].get<double>(),
+         scatter = s.truth["wesenheit"]["W_VI"]["scatter"].get<double>();
   double sx = 0, sy = 0, sxx = 0, sxy = 0;
   for (std::size_t i = 0; i < rows; ++i) {
     double x = truth.column("log_period_fundamental").real[i] - 1.0;
-    double y = truth.column("M_I").real[i] - r * (truth.column("M_V").real[i] - truth.column("M_I").real[i]) -
+    double y = truth.column("M_I").real[i] -
+               r * (truth.column("M_V").real[i] - truth.column("M_I").real[i]) -
                gamma * truth.column("feh_true").real[i];
     sx += x, sy += y, sxx += x * x, sxy += x * y;
   }
@@ -138,7 +146,8 @@ TEST(Simulate, AnchorGalaxiesAndTheirCorrelatedPublishedModuli) {
 
 TEST(Simulate, BadConfigNamesTheKey) {
   test::TempDir dir;
-  test::write_text(dir.file("s.toml"), "[simulate]\nseed = 1\nn_calibrators = 2\n[[relation]]\nband = \"V\"\n");
+  test::write_text(dir.file("s.toml"),
+                   "[simulate]\nseed = 1\nn_calibrators = 2\n[[relation]]\nband = \"V\"\n");
   auto r = test::run_stage("simulate", "--config " + dir.file("s.toml"));
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_NE(r.output.find("n_calibrators"), std::string::npos) << r.output;

@@ -98,13 +98,15 @@ std::vector<StageCase> stage_cases() {
       {"FitNegativeFixedScatter",
        "fit",
        "--config {dir}/f.toml",
-       {{"f.toml", "[fit]\ninput = \"x.fits\"\nscatter = { mode = \"fixed\", value = -0.1 }\n" + kRelation}},
+       {{"f.toml",
+         "[fit]\ninput = \"x.fits\"\nscatter = { mode = \"fixed\", value = -0.1 }\n" + kRelation}},
        "config_value",
        "scatter"},
       {"FitPriorWithoutWidth",
        "fit",
        "--config {dir}/f.toml",
-       {{"f.toml", "[fit]\ninput = \"x.fits\"\n" + kRelation + "gamma = { mode = \"prior\", value = -0.2, sigma = 0 }\n"}},
+       {{"f.toml", "[fit]\ninput = \"x.fits\"\n" + kRelation +
+                       "gamma = { mode = \"prior\", value = -0.2, sigma = 0 }\n"}},
        "config_value",
        "gamma"},
       {"FitQuadratureOrderOutOfRange",
@@ -116,7 +118,10 @@ std::vector<StageCase> stage_cases() {
       {"FitDistancePriorThatCannotBeNormalised",
        "fit",
        "--config {dir}/f.toml",
-       {{"f.toml", "[fit]\ninput = \"x.fits\"\ndistance_prior = \"generalized_gamma\"\ndistance_power = -2\n" + kRelation}},
+       {{"f.toml",
+         "[fit]\ninput = \"x.fits\"\ndistance_prior = \"generalized_gamma\"\ndistance_power = "
+         "-2\n" +
+             kRelation}},
        "config_value",
        "distance_power"},
       {"FitRobustLossWithTheHierarchicalModel",
@@ -321,14 +326,16 @@ std::vector<StageCase> stage_cases() {
       {"RunCalibrationNameLeavingTheStore",  // issue 15 item 8: refused only after stages ran
        "run",
        "--config {dir}/r.toml",
-       {{"r.toml", test::replaced(kPipeline, {{"calibration = \"c\"", "calibration = \"../../x\""}})}},
+       {{"r.toml",
+         test::replaced(kPipeline, {{"calibration = \"c\"", "calibration = \"../../x\""}})}},
        "config_value",
        "run.calibration"},
       {"RunUnknownApplyRelation",
        "run",
        "--config {dir}/r.toml",
        {{"r.toml", kPipeline + "[apply]\nrelation = \"W_XX\"\ntargets_ingest = \"" + kDemo +
-                       "/ingest_targets.toml\"\ntargets_deredden = \"" + kDemo + "/deredden_targets.toml\"\n"}},
+                       "/ingest_targets.toml\"\ntargets_deredden = \"" + kDemo +
+                       "/deredden_targets.toml\"\n"}},
        "unknown_relation",
        "apply.relation"},
       {"RunNegativeBootstrap",

@@ -10,12 +10,12 @@ namespace {
 TEST(EditDistance, CountsInsertionsDeletionsSubstitutionsAndSwaps) {
   EXPECT_EQ(edit_distance("", ""), 0u);
   EXPECT_EQ(edit_distance("", "abc"), 3u);
-  EXPECT_EQ(edit_distance("paralax", "parallax"), 1u);      // insertion
-  EXPECT_EQ(edit_distance("parallaxx", "parallax"), 1u);    // deletion
-  EXPECT_EQ(edit_distance("parallex", "parallax"), 1u);     // substitution
-  EXPECT_EQ(edit_distance("paralalx", "parallax"), 1u);     // two neighbours swapped
-  EXPECT_EQ(edit_distance("kitten", "sitting"), 3u);        // the textbook example
-  EXPECT_EQ(edit_distance("EBV", "ebv"), 0u);               // letter case ignored
+  EXPECT_EQ(edit_distance("paralax", "parallax"), 1u);    // insertion
+  EXPECT_EQ(edit_distance("parallaxx", "parallax"), 1u);  // deletion
+  EXPECT_EQ(edit_distance("parallex", "parallax"), 1u);   // substitution
+  EXPECT_EQ(edit_distance("paralalx", "parallax"), 1u);   // two neighbours swapped
+  EXPECT_EQ(edit_distance("kitten", "sitting"), 3u);      // the textbook example
+  EXPECT_EQ(edit_distance("EBV", "ebv"), 0u);             // letter case ignored
   EXPECT_EQ(edit_distance("ca", "abc"), 3u);  // optimal string alignment: no edit of a swap
 }
 

@@ -418,10 +418,9 @@ TEST(Fits, InputsTheFuzzerFoundAreReadOrRefusedCleanly) {
 // (12D, 12E) columns read back, the fluxes being the magnitudes through the Gaia G zero point
 // 25.6874 the writer used, so the fuzzer starts from a file the reader takes whole.
 TEST(Fits, TheArrayColumnSeedReadsWhole) {
-  const SourceTable t = read_fits_table(
-      test::source_file("fuzz/seeds/fits/epoch_arrays.fits"), {},
-      {"g_transit_time", "g_transit_mag", "g_transit_flux", "g_transit_flux_over_error",
-       "variability_flag_g_reject"});
+  const SourceTable t = read_fits_table(test::source_file("fuzz/seeds/fits/epoch_arrays.fits"), {},
+                                        {"g_transit_time", "g_transit_mag", "g_transit_flux",
+                                         "g_transit_flux_over_error", "variability_flag_g_reject"});
   ASSERT_EQ(t.table.rows(), 2u);
   ASSERT_EQ(t.arrays.size(), 5u);
   const auto& mag = t.arrays.at("g_transit_mag").rows;
@@ -669,7 +668,8 @@ cols = [
   fits.Column(name='vec', format='3D', array=np.zeros((n, 3))),
 ]
 fits.BinTableHDU.from_columns(cols, name='STARS').writeto(sys.argv[1])
-)", {dir.file("types.fits")});
+)",
+                             {dir.file("types.fits")});
   ASSERT_EQ(py.exit_code, 0) << py.output;
   for (const std::string& path :
        {dir.file("types.fits"), test::source_file("sample_data/calibrators.fits")}) {

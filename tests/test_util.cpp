@@ -32,8 +32,10 @@ TempDir::~TempDir() {
 std::string shell_quote(const std::string& s) {
   std::string out = "'";
   for (char c : s) {
-    if (c == '\'') out += "'\\''";
-    else out += c;
+    if (c == '\'')
+      out += "'\\''";
+    else
+      out += c;
   }
   return out + "'";
 }
@@ -75,16 +77,22 @@ std::string read_text(const std::string& path) {
 }
 
 bool file_exists(const std::string& path) { return fs::exists(path); }
-std::string reference_file(const std::string& name) { return std::string(RUNGCAL_REFERENCE_DIR) + "/" + name; }
-std::string source_file(const std::string& relative) { return std::string(RUNGCAL_SOURCE_DIR) + "/" + relative; }
+std::string reference_file(const std::string& name) {
+  return std::string(RUNGCAL_REFERENCE_DIR) + "/" + name;
+}
+std::string source_file(const std::string& relative) {
+  return std::string(RUNGCAL_SOURCE_DIR) + "/" + relative;
+}
 
 }  // namespace rungcal::test
 
 namespace rungcal::test {
 
-std::string replaced(std::string text, const std::vector<std::pair<std::string, std::string>>& edits) {
+std::string replaced(std::string text,
+                     const std::vector<std::pair<std::string, std::string>>& edits) {
   for (const auto& [from, to] : edits)
-    for (auto p = text.find(from); p != std::string::npos; p = text.find(from, p + to.size())) text.replace(p, from.size(), to);
+    for (auto p = text.find(from); p != std::string::npos; p = text.find(from, p + to.size()))
+      text.replace(p, from.size(), to);
   return text;
 }
 

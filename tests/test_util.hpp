@@ -42,6 +42,7 @@ std::string reference_file(const std::string& name);
 std::string source_file(const std::string& relative);
 std::string shell_quote(const std::string& s);
 // text with every occurrence of each `from` replaced by its `to`, in order.
-std::string replaced(std::string text, const std::vector<std::pair<std::string, std::string>>& edits);
+std::string replaced(std::string text,
+                     const std::vector<std::pair<std::string, std::string>>& edits);
 
 }  // namespace rungcal::test

@@ -4,8 +4,8 @@
 #include <algorithm>
 #include <cmath>
 #include <fstream>
-#include <sstream>
 #include <numbers>
+#include <sstream>
 
 #include <fmt/format.h>
 
@@ -17,20 +17,28 @@ namespace {
 
 double colour_term(int j, double nu) {
   switch (j) {
-    case 0: return 1.0;
-    case 1: return std::clamp(nu - 1.48, -0.24, 0.24);
-    case 2: return std::pow(std::min(0.24, std::max(0.0, 1.48 - nu)), 3);
-    case 3: return std::min(0.0, nu - 1.24);
-    case 4: return std::max(0.0, nu - 1.72);
+    case 0:
+      return 1.0;
+    case 1:
+      return std::clamp(nu - 1.48, -0.24, 0.24);
+    case 2:
+      return std::pow(std::min(0.24, std::max(0.0, 1.48 - nu)), 3);
+    case 3:
+      return std::min(0.0, nu - 1.24);
+    case 4:
+      return std::max(0.0, nu - 1.72);
   }
   return 0.0;
 }
 
 double latitude_term(int k, double sin_beta) {
   switch (k) {
-    case 0: return 1.0;
-    case 1: return sin_beta;
-    case 2: return sin_beta * sin_beta - 1.0 / 3.0;
+    case 0:
+      return 1.0;
+    case 1:
+      return sin_beta;
+    case 2:
+      return sin_beta * sin_beta - 1.0 / 3.0;
   }
   return 0.0;
 }
@@ -58,21 +66,26 @@ ZeroPointTable ZeroPointTable::from_file(const std::string& path) {
         used = 0;
       }
       if (used == 0 || cell.find_first_not_of(" \t\r", used) != std::string::npos)
-        throw InputError({path, n, std::to_string(col), "line"}, "zero_point_table", "'" + cell + "' is not a number");
+        throw InputError({path, n, std::to_string(col), "line"}, "zero_point_table",
+                         "'" + cell + "' is not a number");
       // Coefficients are micro-arcsec, tens of them at most (Lindegren et al. 2021, Table 9-10).
       if (!std::isfinite(v) || std::abs(v) > 1e4)
-        throw InputError({path, n, std::to_string(col), "line"}, "zero_point_table",
-                         "'" + cell + "' is not a plausible coefficient (finite, |value| <= 10000 micro-arcsec)");
+        throw InputError(
+            {path, n, std::to_string(col), "line"}, "zero_point_table",
+            "'" + cell +
+                "' is not a plausible coefficient (finite, |value| <= 10000 micro-arcsec)");
       row.push_back(v);
     }
     if (!rows.empty() && row.size() != rows.front().size())
-      throw InputError({path, n, {}, "line"}, "zero_point_table",
-                       fmt::format("{} values where the first line has {}", row.size(), rows.front().size()));
+      throw InputError(
+          {path, n, {}, "line"}, "zero_point_table",
+          fmt::format("{} values where the first line has {}", row.size(), rows.front().size()));
     rows.push_back(std::move(row));
     lines.push_back(n);
   }
   if (rows.size() < 4 || rows.front().size() < 2)
-    throw InputError({path, {}, {}}, "zero_point_table", "expected an index row, a latitude row and two or more G nodes");
+    throw InputError({path, {}, {}}, "zero_point_table",
+                     "expected an index row, a latitude row and two or more G nodes");
   ZeroPointTable t;
   t.file_ = path;
   for (std::size_t c = 1; c < rows[0].size(); ++c) {

@@ -28,8 +28,8 @@ class ZeroPointTable {
 
  private:
   std::string file_;
-  std::vector<int> j_, k_;         // per coefficient column
-  std::vector<double> g_;          // G nodes
+  std::vector<int> j_, k_;              // per coefficient column
+  std::vector<double> g_;               // G nodes
   std::vector<std::vector<double>> q_;  // [node][column], micro-arcsec
 };
 

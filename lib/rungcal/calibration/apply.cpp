@@ -140,7 +140,8 @@ ApplyResult apply_calibration(const Calibration& cal, const std::string& relatio
   r.calibration_label = cal.label();
   r.covariance = parameter_covariance(cal, relation);
   r.systematics = systematics;
-  const std::string mag = dereddened_magnitude_column(relation), err = dereddened_magnitude_error_column(relation);
+  const std::string mag = dereddened_magnitude_column(relation),
+                    err = dereddened_magnitude_error_column(relation);
   for (const std::string& c : {std::string(col::kId), std::string(col::kLogPeriod), mag, err})
     if (!t.has(c))
       throw InputError({o.targets_path, {}, c}, "missing_column", "the targets need this column");

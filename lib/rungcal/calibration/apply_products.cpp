@@ -128,7 +128,8 @@ ApplyResult apply_calibration_files(const ApplyOptions& o) {
   for (StarTable* t : {&stars, &hosts, &covariance}) {
     stamp_provenance(*t, prov, "distances");
     t->set_keyword("RGCALIB", r.calibration_label, "calibration name@version");
-    t->set_keyword(calibration_fits::kContentShaKeyword, cal.document.value(calibration_key::kContentSha256, ""),
+    t->set_keyword(calibration_fits::kContentShaKeyword,
+                   cal.document.value(calibration_key::kContentSha256, ""),
                    "calibration content SHA-256");
     t->set_keyword("RGRELAT", o.relation, "relation applied");
     t->set_keyword("RGNSYSV", static_cast<std::int64_t>(r.systematics.variants.size()),

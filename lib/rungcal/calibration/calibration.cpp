@@ -7,8 +7,8 @@
 
 #include <fmt/format.h>
 
-#include "rungcal/core/error.hpp"
 #include "rungcal/core/config.hpp"
+#include "rungcal/core/error.hpp"
 #include "rungcal/core/provenance.hpp"
 
 namespace rungcal {
@@ -23,7 +23,8 @@ const nlohmann::json& Calibration::fit() const { return document.at(calibration_
 
 std::vector<std::string> Calibration::relation_names() const {
   std::vector<std::string> out;
-  for (const auto& r : fit().at(fit_key::kRelations)) out.push_back(r.at(fit_key::kName).get<std::string>());
+  for (const auto& r : fit().at(fit_key::kRelations))
+    out.push_back(r.at(fit_key::kName).get<std::string>());
   return out;
 }
 
@@ -42,7 +43,8 @@ std::string calibration_content_sha256(const nlohmann::json& fit, const std::str
       }
   }
   // The config by its parsed content: a comment edit is not new content (issue 15).
-  nlohmann::json c = {{calibration_key::kFit, f}, {calibration_key::kConfigText, canonical_config_text(config_text)}};
+  nlohmann::json c = {{calibration_key::kFit, f},
+                      {calibration_key::kConfigText, canonical_config_text(config_text)}};
   return sha256_hex(c.dump());  // nlohmann::json keeps object keys sorted: a canonical form
 }
 
@@ -58,7 +60,8 @@ const nlohmann::json* Calibration::find_relation(const std::string& name) const 
 
 const nlohmann::json& Calibration::relation(const std::string& name) const {
   if (const nlohmann::json* r = find_relation(name)) return *r;
-  throw InputError({label(), {}, name, "row", "relation"}, "unknown_relation", "the calibration has no relation of this name");
+  throw InputError({label(), {}, name, "row", "relation"}, "unknown_relation",
+                   "the calibration has no relation of this name");
 }
 
 FitRelationRecord Calibration::relation_record(const std::string& name) const {
@@ -125,13 +128,14 @@ double ParameterCovariance::form(const std::vector<double>& g, const std::vector
   return v;
 }
 
-double calibration_error_of(const Calibration& cal, const std::string& relation, const std::vector<double>& grad) {
+double calibration_error_of(const Calibration& cal, const std::string& relation,
+                            const std::vector<double>& grad) {
   return std::sqrt(std::max(
       0.0, parameter_covariance(cal, relation).form(grad, grad, cal.label() + " " + relation)));
 }
 
-Prediction predict_absolute_magnitude(const Calibration& cal, const std::string& relation, double log_period,
-                                      std::optional<double> feh) {
+Prediction predict_absolute_magnitude(const Calibration& cal, const std::string& relation,
+                                      double log_period, std::optional<double> feh) {
   const FitRelationRecord rel = cal.relation_record(relation);
   const std::size_t n = rel.parameter_names.size();
   std::vector<double> value(n), grad(n, 0.0);
@@ -142,9 +146,12 @@ Prediction predict_absolute_magnitude(const Calibration& cal, const std::string&
   for (std::size_t j = 0; j < n; ++j) {
     const std::string& name = rel.parameter_names[j];
     double g = 0;
-    if (name == "alpha") g = 1.0;
-    else if (name == "beta") g = x;
-    else if (name == "beta_long") g = std::max(0.0, log_period - rel.break_log_period.value());
+    if (name == "alpha")
+      g = 1.0;
+    else if (name == "beta")
+      g = x;
+    else if (name == "beta_long")
+      g = std::max(0.0, log_period - rel.break_log_period.value());
     else if (name == "gamma") {
       if (!feh)
         throw InputError({cal.label(), {}, relation, "row", "relation"}, "missing_value",

@@ -45,13 +45,12 @@ struct Calibration {
 // check_fit_document, which checks a rungcal-fit result (fit.json, or a calibration's
 // "fit"): table/fit_result_schema.hpp.
 
-
 // The content hash of a fit result (rungcal-fit JSON) with its config text.
 std::string calibration_content_sha256(const nlohmann::json& fit, const std::string& config_text);
 
 // An absolute magnitude from a calibration with its uncertainties.
 struct Prediction {
-  double abs_mag = 0;        // M(log P, [Fe/H])
+  double abs_mag = 0;            // M(log P, [Fe/H])
   double calibration_error = 0;  // from the parameters' covariance: common to all stars
   double intrinsic_scatter = 0;  // the relation's sigma_int: a single star's scatter about it
   std::vector<double> gradient;  // dM / d(parameter), in the relation's parameter order
@@ -84,14 +83,15 @@ ParameterCovariance parameter_covariance(const Calibration& calibration,
 
 // sqrt(g^T C g) for a relation's covariance C (parameter_covariance): the calibration error
 // of any linear combination of predictions (a host's weighted mean uses the mean gradient).
-double calibration_error_of(const Calibration& calibration, const std::string& relation, const std::vector<double>& gradient);
+double calibration_error_of(const Calibration& calibration, const std::string& relation,
+                            const std::vector<double>& gradient);
 
 // M = alpha + beta (log P - log P0) [+ beta_long (log P - log Pb) above log Pb]
 // [+ gamma [Fe/H]]; calibration error sqrt(g^T C g), g the gradient in the parameters and
 // C from parameter_covariance.
 // Throws InputError ("unknown_relation", "missing_value") when the relation is not in the
 // calibration or a metallicity term needs [Fe/H].
-Prediction predict_absolute_magnitude(const Calibration& calibration, const std::string& relation, double log_period,
-                                      std::optional<double> feh = std::nullopt);
+Prediction predict_absolute_magnitude(const Calibration& calibration, const std::string& relation,
+                                      double log_period, std::optional<double> feh = std::nullopt);
 
 }  // namespace rungcal

@@ -10,7 +10,8 @@
 namespace rungcal {
 namespace {
 
-const FitRelationRecord* find_by_name(const std::vector<FitRelationRecord>& relations, const std::string& name) {
+const FitRelationRecord* find_by_name(const std::vector<FitRelationRecord>& relations,
+                                      const std::string& name) {
   for (const auto& r : relations)
     if (r.name == name) return &r;
   return nullptr;
@@ -65,30 +66,38 @@ CalibrationDiff diff_calibrations(const Calibration& a, const Calibration& b) {
   const std::vector<InputRecord> ib = provenance_from_json(b.fit().at(fit_key::kProvenance)).inputs;
   for (std::size_t i = 0; i < std::max(ia.size(), ib.size()); ++i) {
     InputChange c;
-    if (i >= ia.size()) c = {"added", ib[i].path, "", ib[i].sha256};
-    else if (i >= ib.size()) c = {"removed", ia[i].path, ia[i].sha256, ""};
+    if (i >= ia.size())
+      c = {"added", ib[i].path, "", ib[i].sha256};
+    else if (i >= ib.size())
+      c = {"removed", ia[i].path, ia[i].sha256, ""};
     else if (ia[i].sha256 != ib[i].sha256)
       c = {"changed", ib[i].path, ia[i].sha256, ib[i].sha256};
-    else continue;
+    else
+      continue;
     d.inputs.push_back(c);
   }
-  d.config_changed = a.document.value(calibration_key::kConfigText, "") != b.document.value(calibration_key::kConfigText, "");
+  d.config_changed = a.document.value(calibration_key::kConfigText, "") !=
+                     b.document.value(calibration_key::kConfigText, "");
   return d;
 }
 
 std::string format_diff(const CalibrationDiff& d) {
   std::string out = fmt::format("{} -> {}\n", d.from_label, d.to_label);
-  out += fmt::format("  {:<8} {:<22} {:>19} {:>19} {:>10} {:>8}\n", "relation", "parameter", "from", "to", "shift", "sigma");
+  out += fmt::format("  {:<8} {:<22} {:>19} {:>19} {:>10} {:>8}\n", "relation", "parameter", "from",
+                     "to", "shift", "sigma");
   for (const auto& s : d.shifts) {
     auto value = [](double v, double e) {
-      return std::isfinite(e) && e > 0 ? fmt::format("{:.4f} +- {:.4f}", v, e) : fmt::format("{:.4f}", v);
+      return std::isfinite(e) && e > 0 ? fmt::format("{:.4f} +- {:.4f}", v, e)
+                                       : fmt::format("{:.4f}", v);
     };
-    out += fmt::format("  {:<8} {:<22} {:>19} {:>19} {:>+10.4f} {:>8}\n", s.relation, s.parameter, value(s.from, s.from_error),
-                       value(s.to, s.to_error), s.shift,
-                       std::isfinite(s.shift_in_sigma) ? fmt::format("{:+.2f}", s.shift_in_sigma) : "-");
+    out += fmt::format(
+        "  {:<8} {:<22} {:>19} {:>19} {:>+10.4f} {:>8}\n", s.relation, s.parameter,
+        value(s.from, s.from_error), value(s.to, s.to_error), s.shift,
+        std::isfinite(s.shift_in_sigma) ? fmt::format("{:+.2f}", s.shift_in_sigma) : "-");
   }
   for (const auto& c : d.inputs)
-    out += fmt::format("  input {}: {} ({} -> {})\n", c.what, c.path, c.from_sha256.substr(0, 12), c.to_sha256.substr(0, 12));
+    out += fmt::format("  input {}: {} ({} -> {})\n", c.what, c.path, c.from_sha256.substr(0, 12),
+                       c.to_sha256.substr(0, 12));
   if (d.config_changed) out += "  config changed\n";
   for (const auto& [rel, ids] : d.entered) {
     std::string list;
@@ -100,7 +109,8 @@ std::string format_diff(const CalibrationDiff& d) {
     for (const auto& id : ids) list += (list.empty() ? "" : ", ") + id;
     out += fmt::format("  {}: {} stars left: {}\n", rel, ids.size(), list);
   }
-  if (d.inputs.empty() && !d.config_changed && d.entered.empty() && d.left.empty() && d.max_shift_in_sigma() == 0)
+  if (d.inputs.empty() && !d.config_changed && d.entered.empty() && d.left.empty() &&
+      d.max_shift_in_sigma() == 0)
     out += "  no difference\n";
   return out;
 }

@@ -11,13 +11,13 @@ namespace rungcal {
 struct ParameterShift {
   std::string relation, parameter;
   double from = 0, to = 0, from_error = 0, to_error = 0;  // errors from the covariance (NaN: none)
-  double shift = 0;           // to - from
+  double shift = 0;                                       // to - from
   double shift_in_sigma = 0;  // shift / sqrt(from_error^2 + to_error^2) (NaN when both are 0)
 };
 
 struct InputChange {
-  std::string what;      // "changed", "added", "removed"
-  std::string path;      // the input's path in the newer version (else the older)
+  std::string what;  // "changed", "added", "removed"
+  std::string path;  // the input's path in the newer version (else the older)
   std::string from_sha256, to_sha256;
 };
 

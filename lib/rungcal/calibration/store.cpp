@@ -38,7 +38,6 @@ nlohmann::json read_json(const std::string& path) { return read_json_file(path);
 
 std::string version_folder(int v) { return fmt::format("v{:04d}", v); }
 
-
 std::optional<int> latest_link_version(const std::string& folder) {
   std::error_code ec;
   fs::path target = fs::read_symlink(fs::path(folder) / "latest", ec);
@@ -70,7 +69,8 @@ void complete_interrupted_publish(const fs::path& folder) {
   const std::string name = read_all(marker.string());
   std::smatch m;
   if (std::regex_match(name, m, std::regex("v([0-9]{4,})")) && fs::exists(folder / name)) {
-    spdlog::warn("{}: completing an interrupted publish: 'latest' now points at {}", folder.string(), name);
+    spdlog::warn("{}: completing an interrupted publish: 'latest' now points at {}",
+                 folder.string(), name);
     point_latest_at(folder, std::stoi(m[1]));
   }
   fs::remove(marker);
@@ -94,14 +94,15 @@ std::vector<WithdrawnVersion> read_withdrawn(const fs::path& folder) {
     const std::string key = fmt::format("withdrawn[{}]", i);
     if (!e.is_object() || !e.contains("version") || !e.at("version").is_number_integer())
       throw bad(key + ".version", "must be an integer version");
-    out.push_back({e.at("version").get<int>(), e.value("content_sha256", ""),
-                   e.value("withdrawn_utc", "")});
+    out.push_back(
+        {e.at("version").get<int>(), e.value("content_sha256", ""), e.value("withdrawn_utc", "")});
   }
   return out;
 }
 
 void write_withdrawn(const fs::path& folder, const std::vector<WithdrawnVersion>& list) {
-  nlohmann::json doc = {{"schema", "rungcal-withdrawn"}, {"schema_version", 1},
+  nlohmann::json doc = {{"schema", "rungcal-withdrawn"},
+                        {"schema_version", 1},
                         {"withdrawn", nlohmann::json::array()}};
   for (const auto& w : list)
     doc["withdrawn"].push_back({{"version", w.version},
@@ -117,7 +118,8 @@ std::vector<int> versions_in(const fs::path& folder) {
   for (const auto& e : fs::directory_iterator(folder)) {
     std::smatch m;
     std::string n = e.path().filename().string();
-    if (e.is_directory() && std::regex_match(n, m, std::regex("v([0-9]{4,})"))) out.push_back(std::stoi(m[1]));
+    if (e.is_directory() && std::regex_match(n, m, std::regex("v([0-9]{4,})")))
+      out.push_back(std::stoi(m[1]));
   }
   std::sort(out.begin(), out.end());
   return out;
@@ -137,14 +139,18 @@ std::vector<WithdrawnVersion> record_withdrawals(const fs::path& folder, int lat
     if (w.version != latest) list.push_back(w);
   for (int v : versions_in(folder)) {
     if (v <= latest) continue;
-    if (std::any_of(list.begin(), list.end(), [v](const auto& w) { return w.version == v; })) continue;
-    spdlog::warn("{}: version {} is withdrawn ('latest' names version {})", folder.string(), v, latest);
+    if (std::any_of(list.begin(), list.end(), [v](const auto& w) { return w.version == v; }))
+      continue;
+    spdlog::warn("{}: version {} is withdrawn ('latest' names version {})", folder.string(), v,
+                 latest);
     list.push_back({v, stored_content_sha256(folder, v), utc_now_iso8601()});
   }
-  std::sort(list.begin(), list.end(), [](const auto& a, const auto& b) { return a.version < b.version; });
-  const bool changed = list.size() != before.size() ||
-                       !std::equal(list.begin(), list.end(), before.begin(),
-                                   [](const auto& a, const auto& b) { return a.version == b.version; });
+  std::sort(list.begin(), list.end(),
+            [](const auto& a, const auto& b) { return a.version < b.version; });
+  const bool changed =
+      list.size() != before.size() ||
+      !std::equal(list.begin(), list.end(), before.begin(),
+                  [](const auto& a, const auto& b) { return a.version == b.version; });
   if (changed) write_withdrawn(folder, list);
   return list;
 }
@@ -154,7 +160,8 @@ std::vector<WithdrawnVersion> record_withdrawals(const fs::path& folder, int lat
 int withdrawn_with_content(const fs::path& folder, const std::vector<WithdrawnVersion>& list,
                            const std::string& content) {
   for (const auto& w : list)
-    if (fs::exists(folder / version_folder(w.version)) && stored_content_sha256(folder, w.version) == content)
+    if (fs::exists(folder / version_folder(w.version)) &&
+        stored_content_sha256(folder, w.version) == content)
       return w.version;
   return 0;
 }
@@ -173,7 +180,8 @@ nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& b
         ParameterShiftRecord s;
         s.shift = p.value - q.value;
         s.combined_sigma = std::hypot(p.error_or_nan(), q.error_or_nan());
-        if (std::isfinite(s.combined_sigma) && s.combined_sigma > 0) s.shift_in_sigma = s.shift / s.combined_sigma;
+        if (std::isfinite(s.combined_sigma) && s.combined_sigma > 0)
+          s.shift_in_sigma = s.shift / s.combined_sigma;
         out[r.name][p.name] = to_json(s);
       }
     }
@@ -185,9 +193,11 @@ nlohmann::json shifts_between(const nlohmann::json& now, const nlohmann::json& b
 // (so the copy holds the same content, readable without a JSON parser for the numbers).
 void write_calibration_fits(const Calibration& cal, const std::string& path) {
   StarTable params;
-  for (const char* c : {calibration_fits::kRelationColumn, calibration_fits::kParameterColumn, fit_key::kMode})
+  for (const char* c :
+       {calibration_fits::kRelationColumn, calibration_fits::kParameterColumn, fit_key::kMode})
     params.add_column(c, ColumnType::kText);
-  for (const char* c : {fit_key::kValue, fit_key::kError, fit_key::kBootstrapError, fit_key::kP16, fit_key::kP50, fit_key::kP84})
+  for (const char* c : {fit_key::kValue, fit_key::kError, fit_key::kBootstrapError, fit_key::kP16,
+                        fit_key::kP50, fit_key::kP84})
     params.add_column(c, ColumnType::kReal);
   auto push_number = [&](const char* column, const std::optional<double>& v) {
     v ? params.column(column).push_real(*v) : params.column(column).push_null();
@@ -196,7 +206,8 @@ void write_calibration_fits(const Calibration& cal, const std::string& path) {
     for (const FitParameterRecord& p : r.parameters) {
       params.column(calibration_fits::kRelationColumn).push_text(r.name);
       params.column(calibration_fits::kParameterColumn).push_text(p.name);
-      params.column(fit_key::kMode).push_text(p.mode ? std::string(kParamModeNames.name(*p.mode)) : std::string());
+      params.column(fit_key::kMode)
+          .push_text(p.mode ? std::string(kParamModeNames.name(*p.mode)) : std::string());
       push_number(fit_key::kValue, p.value);
       push_number(fit_key::kError, p.error);
       push_number(fit_key::kBootstrapError, p.bootstrap_error);
@@ -206,19 +217,24 @@ void write_calibration_fits(const Calibration& cal, const std::string& path) {
     }
   }
   StarTable doc;
-  doc.add_column(calibration_fits::kJsonColumn, ColumnType::kText, "", "the calibration file, verbatim");
+  doc.add_column(calibration_fits::kJsonColumn, ColumnType::kText, "",
+                 "the calibration file, verbatim");
   doc.column(calibration_fits::kJsonColumn).push_text(cal.document.dump());
   for (StarTable* t : {&params, &doc}) {
     t->set_keyword(calibration_fits::kNameKeyword, cal.name(), "calibration name");
-    t->set_keyword(calibration_fits::kVersionKeyword, static_cast<std::int64_t>(cal.version()), "calibration version");
+    t->set_keyword(calibration_fits::kVersionKeyword, static_cast<std::int64_t>(cal.version()),
+                   "calibration version");
     t->set_keyword(calibration_fits::kContentShaKeyword,
-                   cal.document.at(calibration_key::kContentSha256).get<std::string>(), "content SHA-256");
-    t->set_keyword(key::kSchema, static_cast<std::int64_t>(kCalibrationSchemaVersion), "calibration schema version");
+                   cal.document.at(calibration_key::kContentSha256).get<std::string>(),
+                   "content SHA-256");
+    t->set_keyword(key::kSchema, static_cast<std::int64_t>(kCalibrationSchemaVersion),
+                   "calibration schema version");
     t->set_keyword(key::kProduct, std::string("calibration"), "rungcal product type");
     t->set_keyword(key::kDate, cal.document.at(calibration_key::kPublishedUtc).get<std::string>(),
                    "UTC time of publishing");
   }
-  write_fits_tables(path, {{calibration_fits::kParametersHdu, &params}, {calibration_fits::kJsonHdu, &doc}});
+  write_fits_tables(
+      path, {{calibration_fits::kParametersHdu, &params}, {calibration_fits::kJsonHdu, &doc}});
 }
 
 void copy_file_synced(const std::string& from, const std::string& to) {
@@ -249,7 +265,8 @@ std::optional<int> latest_version(const std::string& store, const std::string& n
   return latest_link_version((fs::path(store) / name).string());
 }
 
-std::vector<WithdrawnVersion> withdrawn_versions(const std::string& store, const std::string& name) {
+std::vector<WithdrawnVersion> withdrawn_versions(const std::string& store,
+                                                 const std::string& name) {
   const fs::path folder = fs::path(store) / name;
   const std::optional<int> latest = latest_link_version(folder.string());
   std::vector<WithdrawnVersion> out;
@@ -324,7 +341,9 @@ Calibration load_calibration(const std::string& store, const std::string& refere
   int version = 0;
   if (which == "latest") {
     auto v = latest_link_version(folder.string());
-    if (!v) throw InputError({folder.string(), {}, {}}, "unknown_calibration", "no published version (no 'latest' link)");
+    if (!v)
+      throw InputError({folder.string(), {}, {}}, "unknown_calibration",
+                       "no published version (no 'latest' link)");
     version = *v;
   } else {
     const std::optional<int> n = version_number(which);
@@ -335,7 +354,8 @@ Calibration load_calibration(const std::string& store, const std::string& refere
   }
   fs::path file = folder / version_folder(version) / "calibration.json";
   if (!fs::exists(file))
-    throw InputError({file.string(), {}, {}}, "unknown_calibration", fmt::format("{} has no version {}", name, version));
+    throw InputError({file.string(), {}, {}}, "unknown_calibration",
+                     fmt::format("{} has no version {}", name, version));
   Calibration cal{read_json(file.string())};
   require_calibration_schema(cal.document, file.string());
   check_calibration_document(cal.document, file.string());
@@ -345,8 +365,10 @@ Calibration load_calibration(const std::string& store, const std::string& refere
 PublishOutcome publish_calibration(const PublishOptions& o) {
   throw_if_invalid(o.check(), "");
   nlohmann::json fit = read_json(o.fit_path);
-  if (!(fit.is_object() && fit.contains(fit_key::kSchema) && fit.at(fit_key::kSchema) == kFitSchemaName))
-    throw InputError({o.fit_path, {}, fit_key::kSchema}, "not_a_fit_result", "not a rungcal-fit result");
+  if (!(fit.is_object() && fit.contains(fit_key::kSchema) &&
+        fit.at(fit_key::kSchema) == kFitSchemaName))
+    throw InputError({o.fit_path, {}, fit_key::kSchema}, "not_a_fit_result",
+                     "not a rungcal-fit result");
   check_fit_document(fit, o.fit_path);
   const std::string config_text = o.config_path.empty() ? "" : read_all(o.config_path);
   if (!o.residuals_path.empty() && !fs::exists(o.residuals_path))
@@ -375,20 +397,23 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
     const std::vector<WithdrawnVersion> withdrawn = record_withdrawals(folder, *latest);
     out.withdrawn_match = withdrawn_with_content(folder, withdrawn, content);
     if (out.withdrawn_match > 0 && !o.republish_withdrawn) {
-      spdlog::warn("{}: this content is withdrawn version {}'s; not published again, and "
-                   "'latest' stays at version {} (ask for it with republish_withdrawn)",
-                   folder.string(), out.withdrawn_match, *latest);
+      spdlog::warn(
+          "{}: this content is withdrawn version {}'s; not published again, and "
+          "'latest' stays at version {} (ask for it with republish_withdrawn)",
+          folder.string(), out.withdrawn_match, *latest);
       return out;
     }
   }
   std::vector<int> versions = calibration_versions(o.store, o.name);
   const int version = versions.empty() ? 1 : versions.back() + 1;
 
-  CalibrationRecord record{o.name, version, utc_now_iso8601(), content, config_text, fit, std::nullopt};
+  CalibrationRecord record{o.name,      version, utc_now_iso8601(), content,
+                           config_text, fit,     std::nullopt};
   if (previous) {
     out.shifts = shifts_between(fit, previous->fit());
     record.previous = PreviousVersionRecord{
-        previous->version(), previous->document.value(calibration_key::kContentSha256, ""), out.shifts};
+        previous->version(), previous->document.value(calibration_key::kContentSha256, ""),
+        out.shifts};
   }
   Calibration cal{to_json(record)};
 
@@ -399,7 +424,8 @@ PublishOutcome publish_calibration(const PublishOptions& o) {
   write_file_atomically((tmp / "calibration.json").string(), cal.document.dump(2) + "\n");
   fault_point("publish_json_written");
   write_calibration_fits(cal, (tmp / "calibration.fits").string());
-  if (!o.residuals_path.empty()) copy_file_synced(o.residuals_path, (tmp / "fit_residuals.fits").string());
+  if (!o.residuals_path.empty())
+    copy_file_synced(o.residuals_path, (tmp / "fit_residuals.fits").string());
   if (!o.config_path.empty()) write_file_atomically((tmp / "config.toml").string(), config_text);
   fsync_path(tmp.string());
   fault_point("publish_version_built");

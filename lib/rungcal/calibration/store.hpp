@@ -16,12 +16,12 @@ namespace rungcal {
 // changes once made; STORE/NAME/latest is a symbolic link to the newest version, replaced
 // atomically. Publishers of one name are serialised by a lock (STORE/NAME/.lock).
 struct PublishOptions {
-  std::string store;           // the store folder
-  std::string name;            // calibration name: letters, digits, '-', '_', '.'
-  std::string fit_path;        // rungcal-fit result (JSON)
-  std::string residuals_path;  // its residuals FITS ("" = none)
-  std::string config_path;     // the fit config ("" = none)
-  double lock_wait_seconds = 60;  // wait this long for another publisher, then give up (exit 5)
+  std::string store;                 // the store folder
+  std::string name;                  // calibration name: letters, digits, '-', '_', '.'
+  std::string fit_path;              // rungcal-fit result (JSON)
+  std::string residuals_path;        // its residuals FITS ("" = none)
+  std::string config_path;           // the fit config ("" = none)
+  double lock_wait_seconds = 60;     // wait this long for another publisher, then give up (exit 5)
   bool republish_withdrawn = false;  // publish content equal to a withdrawn version's anyway
   std::string check() const;
 };
@@ -30,11 +30,11 @@ struct PublishOptions {
 std::string check_calibration_name(const std::string& name);
 
 struct PublishOutcome {
-  bool created = false;       // false: the content equals the latest or a withdrawn version's
-  int version = 0;            // the new version, or the latest one when unchanged
-  int withdrawn_match = 0;    // the withdrawn version whose content this is (0 = none)
+  bool created = false;     // false: the content equals the latest or a withdrawn version's
+  int version = 0;          // the new version, or the latest one when unchanged
+  int withdrawn_match = 0;  // the withdrawn version whose content this is (0 = none)
   std::string folder;
-  nlohmann::json shifts;      // per relation and parameter: shift and shift / combined sigma
+  nlohmann::json shifts;  // per relation and parameter: shift and shift / combined sigma
 };
 
 // Rolling back. 'latest' is what every reader downstream uses (apply, report, rungcal-run).
@@ -79,6 +79,5 @@ std::string calibration_file(const std::string& store, const std::string& refere
 // What publishing reads (the fit result, its residuals and its config, when given) and
 // changes: the calibration's folder in the store, shared with other publishers (adds_to).
 StageFiles declared_files(const PublishOptions& options);
-
 
 }  // namespace rungcal

@@ -155,7 +155,8 @@ void ensure_parent_folder(const std::string& path) {
   const std::string message = "cannot create the output folder: " + errno_text(ec.value());
   // A path through a regular file is a mistake in what was given (exit 2); a full disk or a
   // permission is the machine's refusal (exit 7).
-  if (ec.value() == ENOTDIR || ec.value() == EEXIST) throw InputError({parent.string(), {}, {}}, "write_failed", message);
+  if (ec.value() == ENOTDIR || ec.value() == EEXIST)
+    throw InputError({parent.string(), {}, {}}, "write_failed", message);
   throw WriteError({parent.string(), {}, {}}, message);
 }
 
@@ -217,8 +218,9 @@ int open_own_file(const std::string& path, int flags, const std::string& what) {
   const int fd = ::open(path.c_str(), flags | O_CREAT | O_NOFOLLOW | O_NONBLOCK | O_CLOEXEC, 0666);
   if (fd < 0) {
     const int e = errno;
-    const std::string message = fmt::format("cannot open or create {}: {}{}", what, errno_text(e),
-                                            e == ELOOP ? " (it is a symlink, which is never followed)" : "");
+    const std::string message =
+        fmt::format("cannot open or create {}: {}{}", what, errno_text(e),
+                    e == ELOOP ? " (it is a symlink, which is never followed)" : "");
     // A symlink planted where rungcal writes is a hazard in what it was given (exit 2), not
     // a machine that refused a write (exit 7).
     if (e == ELOOP) throw InputError({path, {}, {}}, "write_failed", message);

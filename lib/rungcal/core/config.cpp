@@ -18,24 +18,32 @@ namespace {
 
 const char* toml_type_name(const toml::node& n) {
   switch (n.type()) {
-    case toml::node_type::string: return "a string";
-    case toml::node_type::integer: return "an integer";
-    case toml::node_type::floating_point: return "a number";
-    case toml::node_type::boolean: return "a boolean";
-    case toml::node_type::table: return "a table";
-    case toml::node_type::array: return "an array";
-    default: return "a date or time";
+    case toml::node_type::string:
+      return "a string";
+    case toml::node_type::integer:
+      return "an integer";
+    case toml::node_type::floating_point:
+      return "a number";
+    case toml::node_type::boolean:
+      return "a boolean";
+    case toml::node_type::table:
+      return "a table";
+    case toml::node_type::array:
+      return "an array";
+    default:
+      return "a date or time";
   }
 }
 
-void walk_unknown(const toml::table& t, const std::string& prefix, const std::set<std::string>& known,
-                  const std::string& file) {
+void walk_unknown(const toml::table& t, const std::string& prefix,
+                  const std::set<std::string>& known, const std::string& file) {
   for (const auto& [k, v] : t) {
     std::string path = prefix.empty() ? std::string(k.str()) : prefix + "." + std::string(k.str());
     if (!known.count(path)) {
-      throw InputError({file, static_cast<std::int64_t>(v.source().begin.line), path, "line", "key"},
-                       "unknown_config_key",
-                       "this key is not a rungcal setting here (misspelt, or in the wrong section)");
+      throw InputError(
+          {file, static_cast<std::int64_t>(v.source().begin.line), path, "line", "key"},
+          "unknown_config_key",
+          "this key is not a rungcal setting here (misspelt, or in the wrong section)");
     }
     if (const auto* sub = v.as_table()) walk_unknown(*sub, path, known, file);
     if (const auto* arr = v.as_array()) {
@@ -117,7 +125,8 @@ std::optional<double> ConfigSection::get_number(const std::string& key) const {
   const toml::node* n = node(key);
   if (!n) return std::nullopt;
   if (n->is_integer()) return static_cast<double>(n->as_integer()->get());
-  if (!n->is_floating_point()) fail(key, fmt::format("must be a number, not {}", toml_type_name(*n)));
+  if (!n->is_floating_point())
+    fail(key, fmt::format("must be a number, not {}", toml_type_name(*n)));
   // TOML allows nan and inf; no rungcal setting gives them a meaning, and a NaN limit
   // compares false both ways, switching its check off unseen (max_ruwe = nan, issue 15).
   const double v = n->as_floating_point()->get();
@@ -147,7 +156,8 @@ bool ConfigSection::bool_or(const std::string& key, bool fallback) const {
   return n->as_boolean()->get();
 }
 
-std::optional<std::vector<std::string>> ConfigSection::get_string_list(const std::string& key) const {
+std::optional<std::vector<std::string>> ConfigSection::get_string_list(
+    const std::string& key) const {
   const toml::node* n = node(key);
   if (!n) return std::nullopt;
   if (n->is_string()) return std::vector<std::string>{n->as_string()->get()};
@@ -173,18 +183,21 @@ std::vector<double> ConfigSection::numbers_of(const toml::array& arr, const std:
                                               const std::string& where) const {
   std::vector<double> out;
   for (const auto& el : arr) {
-    if (el.is_integer()) out.push_back(static_cast<double>(el.as_integer()->get()));
+    if (el.is_integer())
+      out.push_back(static_cast<double>(el.as_integer()->get()));
     else if (el.is_floating_point() && std::isfinite(el.as_floating_point()->get()))
       out.push_back(el.as_floating_point()->get());
     else if (el.is_floating_point())
       fail(key, fmt::format("{}every element must be a finite number, not {}", where,
                             el.as_floating_point()->get()));
-    else fail(key, where + "every element must be a number");
+    else
+      fail(key, where + "every element must be a number");
   }
   return out;
 }
 
-std::optional<std::vector<std::vector<double>>> ConfigSection::get_number_rows(const std::string& key) const {
+std::optional<std::vector<std::vector<double>>> ConfigSection::get_number_rows(
+    const std::string& key) const {
   const toml::node* n = node(key);
   if (!n) return std::nullopt;
   const auto* arr = n->as_array();
@@ -210,7 +223,8 @@ std::vector<ConfigSection> ConfigSection::section_list(const std::string& key) c
   const toml::node* n = node(key);
   if (!n) return out;
   const auto* arr = n->as_array();
-  if (!arr) fail(key, fmt::format("must be an array of tables ([[{}]]), not {}", key, toml_type_name(*n)));
+  if (!arr)
+    fail(key, fmt::format("must be an array of tables ([[{}]]), not {}", key, toml_type_name(*n)));
   for (std::size_t i = 0; i < arr->size(); ++i) {
     const auto* t = (*arr)[i].as_table();
     if (!t) fail(key, "every element must be a table");
@@ -238,8 +252,8 @@ Config Config::from_string(const std::string& text, const std::string& name) {
   try {
     c.table_ = toml::parse(text, name);
   } catch (const toml::parse_error& e) {
-    throw InputError({name, static_cast<std::int64_t>(e.source().begin.line), {}, "line", "key"}, "config_syntax",
-                     std::string(e.description()));
+    throw InputError({name, static_cast<std::int64_t>(e.source().begin.line), {}, "line", "key"},
+                     "config_syntax", std::string(e.description()));
   }
   c.sha256_ = sha256_hex(canonical_text(c.table_));
   return c;

@@ -52,7 +52,8 @@ class ConfigSection {
  private:
   const toml::node* node(const std::string& key) const;
   // The elements of a list of numbers; `where` prefixes the message ("row 2: ").
-  std::vector<double> numbers_of(const toml::array& arr, const std::string& key, const std::string& where) const;
+  std::vector<double> numbers_of(const toml::array& arr, const std::string& key,
+                                 const std::string& where) const;
   std::string key_path(const std::string& key) const;
   Config* config_;
   const toml::table* table_;
@@ -94,7 +95,8 @@ std::string canonical_config_text(const std::string& text);
 // A choice read through its name table: fallback when the key is absent; a name not in the
 // table stops with rule "config_value", listing the choices.
 template <typename E, std::size_t N>
-E choice_or(const ConfigSection& s, const std::string& key, const EnumTable<E, N>& table, E fallback) {
+E choice_or(const ConfigSection& s, const std::string& key, const EnumTable<E, N>& table,
+            E fallback) {
   std::string v = s.string_or(key, std::string(table.name(fallback)));
   auto parsed = table.parse(v);
   if (!parsed) s.fail(key, "'" + v + "' is not one of: " + table.choices());

@@ -7,14 +7,22 @@ namespace rungcal {
 
 const char* exit_code_name(ExitCode code) {
   switch (code) {
-    case ExitCode::kSuccess: return "success";
-    case ExitCode::kInternalError: return "internal_error";
-    case ExitCode::kBadInput: return "bad_input";
-    case ExitCode::kNothingToDo: return "nothing_to_do";
-    case ExitCode::kDriftAlarm: return "drift_alarm";
-    case ExitCode::kBusy: return "busy";
-    case ExitCode::kNewCalibration: return "new_calibration";
-    case ExitCode::kCannotWrite: return "cannot_write";
+    case ExitCode::kSuccess:
+      return "success";
+    case ExitCode::kInternalError:
+      return "internal_error";
+    case ExitCode::kBadInput:
+      return "bad_input";
+    case ExitCode::kNothingToDo:
+      return "nothing_to_do";
+    case ExitCode::kDriftAlarm:
+      return "drift_alarm";
+    case ExitCode::kBusy:
+      return "busy";
+    case ExitCode::kNewCalibration:
+      return "new_calibration";
+    case ExitCode::kCannotWrite:
+      return "cannot_write";
   }
   return "unknown";
 }
@@ -24,17 +32,20 @@ std::string format_input_error(const InputLocation& where, const std::string& ru
   std::string out;
   if (!where.file.empty()) out += where.file;
   if (where.row) out += fmt::format("{}{} {}", out.empty() ? "" : ":", where.row_label, *where.row);
-  if (!where.column.empty()) out += fmt::format("{}{} '{}'", out.empty() ? "" : ": ", where.column_label, where.column);
+  if (!where.column.empty())
+    out += fmt::format("{}{} '{}'", out.empty() ? "" : ": ", where.column_label, where.column);
   if (!out.empty()) out += ": ";
   out += fmt::format("[{}] {}", rule, message);
   return out;
 }
 
-void throw_if_invalid(const std::string& check_result, const std::string& file, const std::string& key_prefix) {
+void throw_if_invalid(const std::string& check_result, const std::string& file,
+                      const std::string& key_prefix) {
   if (check_result.empty()) return;
   const auto colon = check_result.find(':');
   const std::string field = check_result.substr(0, colon);
-  const std::string rule = colon == std::string::npos ? check_result : check_result.substr(colon + 1);
+  const std::string rule =
+      colon == std::string::npos ? check_result : check_result.substr(colon + 1);
   throw InputError({file, {}, key_prefix + field, "line", "key"}, "config_value",
                    rule.empty() || rule[0] != ' ' ? rule : rule.substr(1));
 }

@@ -17,8 +17,10 @@ enum class ExitCode : int {
   kNothingToDo = 3,    // inputs unchanged since the last product; nothing was rewritten
   kDriftAlarm = 4,     // a new calibration moved beyond the configured alarm threshold
   kBusy = 5,           // another process holds the lock and the wait ran out
-  kNewCalibration = 6, // rungcal-run published a new calibration version (within the drift threshold)
-  kCannotWrite = 7,    // the system refused a write (disk full, permission, I/O): not the input's fault
+  kNewCalibration =
+      6,  // rungcal-run published a new calibration version (within the drift threshold)
+  kCannotWrite =
+      7,  // the system refused a write (disk full, permission, I/O): not the input's fault
 };
 
 // Short machine name of an exit code, as printed in logs ("bad_input").
@@ -26,10 +28,10 @@ const char* exit_code_name(ExitCode code);
 
 // Where in the input a problem sits. Every field is optional; what is known is printed.
 struct InputLocation {
-  std::string file;                 // path as the user gave it
-  std::optional<std::int64_t> row;  // 1-based line (text files) or row (FITS)
-  std::string column;               // input column name or config key
-  std::string row_label = "row";    // "line" for text files and configs
+  std::string file;                     // path as the user gave it
+  std::optional<std::int64_t> row;      // 1-based line (text files) or row (FITS)
+  std::string column;                   // input column name or config key
+  std::string row_label = "row";        // "line" for text files and configs
   std::string column_label = "column";  // "key" for config keys
 };
 
@@ -60,7 +62,8 @@ class WriteError : public InputError {
 
 // Turns an options check() result ("field: rule", "" when fine) into InputError
 // (rule "config_value") naming the config file and the key (key_prefix + field).
-void throw_if_invalid(const std::string& check_result, const std::string& file, const std::string& key_prefix = "");
+void throw_if_invalid(const std::string& check_result, const std::string& file,
+                      const std::string& key_prefix = "");
 
 // Formats "file:row N: column 'c': [rule] message", leaving out what is unknown.
 std::string format_input_error(const InputLocation& where, const std::string& rule,

@@ -99,11 +99,12 @@ void keep_freed_memory_for_reuse() {
 
 bool stderr_is_terminal() { return ::isatty(STDERR_FILENO) == 1; }
 
-void setup_logging(const std::string& stage, Verbosity verbosity, const std::string& log_file, std::size_t rotate_bytes,
-                   std::size_t rotate_files) {
+void setup_logging(const std::string& stage, Verbosity verbosity, const std::string& log_file,
+                   std::size_t rotate_bytes, std::size_t rotate_files) {
   std::vector<spdlog::sink_ptr> sinks;
   auto console = std::make_shared<spdlog::sinks::stderr_color_sink_mt>();
-  spdlog::level::level_enum level = stderr_is_terminal() ? spdlog::level::info : spdlog::level::warn;
+  spdlog::level::level_enum level =
+      stderr_is_terminal() ? spdlog::level::info : spdlog::level::warn;
   if (verbosity == Verbosity::kQuiet) level = spdlog::level::warn;
   if (verbosity == Verbosity::kVerbose) level = spdlog::level::debug;
   console->set_level(level);

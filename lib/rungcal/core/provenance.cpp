@@ -22,7 +22,8 @@ struct DigestContext {
       throw std::runtime_error("OpenSSL SHA-256 initialisation failed");
   }
   void update(const char* data, std::size_t n) {
-    if (EVP_DigestUpdate(ctx.get(), data, n) != 1) throw std::runtime_error("SHA-256 update failed");
+    if (EVP_DigestUpdate(ctx.get(), data, n) != 1)
+      throw std::runtime_error("SHA-256 update failed");
   }
   std::string hex() {
     std::array<unsigned char, EVP_MAX_MD_SIZE> md{};

@@ -31,7 +31,9 @@ class Random {
   }
   double normal(double mean, double sigma) { return mean + sigma * normal(); }
   // Integer in [0, n).
-  std::uint64_t below(std::uint64_t n) { return static_cast<std::uint64_t>(uniform() * static_cast<double>(n)); }
+  std::uint64_t below(std::uint64_t n) {
+    return static_cast<std::uint64_t>(uniform() * static_cast<double>(n));
+  }
   std::uint64_t next() { return engine_(); }
 
  private:

@@ -22,10 +22,13 @@ void CommonOptions::add_to(CLI::App& app) {
   // every stage adds its own options before these. Flags (no value) show none.
   for (CLI::Option* opt : app.get_options())
     if (opt->get_items_expected_min() > 0) opt->capture_default_str();
-  app.set_version_flag("--version", fmt::format("{} (commit {})", software_version(), software_commit()));
+  app.set_version_flag("--version",
+                       fmt::format("{} (commit {})", software_version(), software_commit()));
   app.footer(
-      "Exit codes: 0 success; 1 internal error (a bug, please report it); 2 bad input (the message names the "
-      "file, row, column and rule); 3 nothing to do; 4 drift alarm; 5 busy (a lock was held); 6 new calibration; "
+      "Exit codes: 0 success; 1 internal error (a bug, please report it); 2 bad input (the message "
+      "names the "
+      "file, row, column and rule); 3 nothing to do; 4 drift alarm; 5 busy (a lock was held); 6 "
+      "new calibration; "
       "7 cannot write (disk full, permission, I/O: the errno is named) (docs/exit-codes.md).");
 }
 

@@ -13,9 +13,9 @@ namespace rungcal {
 
 // Options every stage takes.
 struct CommonOptions {
-  bool quiet = false;     // warnings and errors only
-  bool verbose = false;   // debug messages too
-  std::string log_file;   // also log everything here
+  bool quiet = false;    // warnings and errors only
+  bool verbose = false;  // debug messages too
+  std::string log_file;  // also log everything here
   void add_to(CLI::App& app);
   Verbosity verbosity() const;
   // With --quiet, the summary a stage prints on stdout goes too (to /dev/null): -q means

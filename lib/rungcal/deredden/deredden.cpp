@@ -25,7 +25,8 @@ std::vector<std::string> catalog_bands(const StarTable& t) {
   return out;
 }
 
-void require_column(const StarTable& t, const std::string& name, const std::string& file, const std::string& why) {
+void require_column(const StarTable& t, const std::string& name, const std::string& file,
+                    const std::string& why) {
   if (!t.has(name)) throw InputError({file, {}, name}, "missing_column", why);
 }
 
@@ -38,9 +39,11 @@ std::string DereddenOptions::check() const {
   if (!(r_v > 0) || !std::isfinite(r_v)) return "r_v: must be a positive number";
   // Measured sightlines span R_V of about 2 to 6 (common practice); far outside, the laws'
   // fits do not hold and the coefficients become meaningless.
-  if (!(r_v >= 1.5 && r_v <= 8.0)) return "r_v: must be 1.5 to 8 (measured sightlines span about 2 to 6)";
+  if (!(r_v >= 1.5 && r_v <= 8.0))
+    return "r_v: must be 1.5 to 8 (measured sightlines span about 2 to 6)";
   for (const auto& [b, v] : a_over_ebv)
-    if (!(v >= 0) || !std::isfinite(v)) return fmt::format("a_over_ebv.{}: must be a non-negative number", b);
+    if (!(v >= 0) || !std::isfinite(v))
+      return fmt::format("a_over_ebv.{}: must be a non-negative number", b);
   return "";
 }
 
@@ -48,7 +51,9 @@ DereddenOptions deredden_options_from_file(const std::string& path) {
   Config c = Config::from_file(path);
   ConfigSection root = c.root();
   auto s = root.section("deredden");
-  if (!s) throw InputError({path, {}, "deredden", "line", "key"}, "config_missing_key", "a [deredden] table is required");
+  if (!s)
+    throw InputError({path, {}, "deredden", "line", "key"}, "config_missing_key",
+                     "a [deredden] table is required");
   DereddenOptions o;
   o.config_sha256 = c.sha256();
   o.input_path = c.resolve_path(s->require_string("input"));
@@ -56,7 +61,8 @@ DereddenOptions deredden_options_from_file(const std::string& path) {
   o.bands_file = c.resolve_path(s->string_or("bands_file", "bands.toml"));
   std::string law = s->string_or("law", std::string(kExtinctionLawNames.name(o.law)));
   auto parsed = kExtinctionLawNames.parse(law);
-  if (!parsed) s->fail("law", fmt::format("'{}' is not one of: {}", law, kExtinctionLawNames.choices()));
+  if (!parsed)
+    s->fail("law", fmt::format("'{}' is not one of: {}", law, kExtinctionLawNames.choices()));
   o.law = *parsed;
   o.r_v = s->number_or("r_v", o.r_v);
   if (auto b = s->get_string_list("bands")) {
@@ -66,7 +72,9 @@ DereddenOptions deredden_options_from_file(const std::string& path) {
   if (auto w = s->get_string_list("wesenheit")) o.wesenheit = *w;
   std::string src = s->string_or("wesenheit_r", "table");
   auto ws = kWesenheitSourceNames.parse(src);
-  if (!ws) s->fail("wesenheit_r", fmt::format("'{}' is not one of: {}", src, kWesenheitSourceNames.choices()));
+  if (!ws)
+    s->fail("wesenheit_r",
+            fmt::format("'{}' is not one of: {}", src, kWesenheitSourceNames.choices()));
   o.wesenheit_source = *ws;
   if (auto a = s->section("a_over_ebv"))
     for (const auto& k : a->keys()) o.a_over_ebv[k] = *a->get_number(k);
@@ -88,7 +96,8 @@ StarTable DereddenResult::coefficients_table() const {
   namespace C = coefficient_col;
   t.add_column(C::kName, ColumnType::kText);
   t.add_column(C::kKind, ColumnType::kText, "", "band or wesenheit");
-  t.add_column(C::kAOverEbv, ColumnType::kReal, "", "A/E(B-V); for a Wesenheit its residual reddening");
+  t.add_column(C::kAOverEbv, ColumnType::kReal, "",
+               "A/E(B-V); for a Wesenheit its residual reddening");
   t.add_column(C::kWesenheitR, ColumnType::kReal, "", "W = m_x - R (m_y - m_z)");
   t.add_column(C::kWavelength, ColumnType::kReal, "Angstrom");
   t.add_column("x", ColumnType::kText);
@@ -99,7 +108,8 @@ StarTable DereddenResult::coefficients_table() const {
     t.column(C::kKind).push_text(c.wesenheit ? "wesenheit" : "band");
     t.column(C::kAOverEbv).push_real(c.a_over_ebv);
     t.column(C::kWesenheitR).push_real(c.r);
-    c.wavelength_aa > 0 ? t.column(C::kWavelength).push_real(c.wavelength_aa) : t.column(C::kWavelength).push_null();
+    c.wavelength_aa > 0 ? t.column(C::kWavelength).push_real(c.wavelength_aa)
+                        : t.column(C::kWavelength).push_null();
     for (const char* k : {"x", "y", "z"}) {
       const std::string& v = k[0] == 'x' ? c.x : (k[0] == 'y' ? c.y : c.z);
       v.empty() ? t.column(k).push_null() : t.column(k).push_text(v);
@@ -118,15 +128,18 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
   std::vector<std::string> bands = bands_listed ? o.bands : catalog_bands(in);
   if (!bands_listed && !in.has(col::kEbv) && !o.wesenheit.empty()) {
     // A Wesenheit magnitude is reddening-free by construction: it needs no E(B-V).
-    spdlog::info("the catalog has no E(B-V): its bands are not dereddened, only the Wesenheit "
-                 "magnitudes are formed");
+    spdlog::info(
+        "the catalog has no E(B-V): its bands are not dereddened, only the Wesenheit "
+        "magnitudes are formed");
     bands.clear();
   } else if (!bands_listed) {
     // Default: every catalog band the table knows; bands it does not know are left alone.
     std::vector<std::string> known;
     for (const auto& b : bands) {
-      if (table.find(b) || o.a_over_ebv.count(b)) known.push_back(b);
-      else spdlog::warn("band {} is not in the band table: not dereddened", b);
+      if (table.find(b) || o.a_over_ebv.count(b))
+        known.push_back(b);
+      else
+        spdlog::warn("band {} is not in the band table: not dereddened", b);
     }
     bands = known;
   }
@@ -145,7 +158,9 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
   auto coefficient = [&](const std::string& band) {
     if (auto it = o.a_over_ebv.find(band); it != o.a_over_ebv.end()) return it->second;
     const Band* b = table.find(band);
-    if (!b) throw InputError({o.bands_file, {}, band, "row", "band"}, "unknown_band", "the band is not in the band table");
+    if (!b)
+      throw InputError({o.bands_file, {}, band, "row", "band"}, "unknown_band",
+                       "the band is not in the band table");
     return band_coefficient(*b, o.law, o.r_v);
   };
 
@@ -156,8 +171,10 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
     const Band* b = table.find(band);
     result.coefficients.push_back({band, false, rb, 0.0, b ? b->wavelength_aa : 0.0, "", "", ""});
     const Column& m = in.column(magnitude_column(band));
-    const Column* e = in.has(magnitude_error_column(band)) ? &in.column(magnitude_error_column(band)) : nullptr;
-    Column& m0 = cat.add_column(dereddened_magnitude_column(band), ColumnType::kReal, "mag", "dereddened " + band);
+    const Column* e =
+        in.has(magnitude_error_column(band)) ? &in.column(magnitude_error_column(band)) : nullptr;
+    Column& m0 = cat.add_column(dereddened_magnitude_column(band), ColumnType::kReal, "mag",
+                                "dereddened " + band);
     Column& e0 = cat.add_column(dereddened_magnitude_error_column(band), ColumnType::kReal, "mag",
                                 "error of " + dereddened_magnitude_column(band) + " incl. E(B-V)");
     for (std::size_t r = 0; r < n; ++r) {
@@ -169,8 +186,10 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
       e0.real[r] = std::sqrt(sm * sm + rb * rb * se * se);
       e0.null[r] = 0;
     }
-    Column& a = cat.add_column(extinction_column(band), ColumnType::kReal, "mag", "extinction in " + band);
-    Column& ae = cat.add_column(extinction_error_column(band), ColumnType::kReal, "mag", "error of " + extinction_column(band));
+    Column& a =
+        cat.add_column(extinction_column(band), ColumnType::kReal, "mag", "extinction in " + band);
+    Column& ae = cat.add_column(extinction_error_column(band), ColumnType::kReal, "mag",
+                                "error of " + extinction_column(band));
     for (std::size_t r = 0; r < n; ++r) {
       if (ebv->is_null(r)) continue;
       a.real[r] = rb * ebv->real[r];
@@ -182,23 +201,30 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
 
   for (const auto& wname : o.wesenheit) {
     const WesenheitDef* w = table.find_wesenheit(wname);
-    if (!w) throw InputError({o.bands_file, {}, wname, "row", "wesenheit"}, "unknown_wesenheit", "the band table has no [wesenheit." + wname + "]");
+    if (!w)
+      throw InputError({o.bands_file, {}, wname, "row", "wesenheit"}, "unknown_wesenheit",
+                       "the band table has no [wesenheit." + wname + "]");
     for (const auto* b : {&w->x, &w->y, &w->z})
-      require_column(in, magnitude_column(*b), file, fmt::format("Wesenheit {} needs band {}", wname, *b));
-    double r = (o.wesenheit_source == WesenheitSource::kTable && w->r) ? *w->r
-                                                                       : coefficient(w->x) / (coefficient(w->y) - coefficient(w->z));
+      require_column(in, magnitude_column(*b), file,
+                     fmt::format("Wesenheit {} needs band {}", wname, *b));
+    double r = (o.wesenheit_source == WesenheitSource::kTable && w->r)
+                   ? *w->r
+                   : coefficient(w->x) / (coefficient(w->y) - coefficient(w->z));
     // What the Wesenheit leaves of the reddening under the chosen law (0 when R is the law's).
     double residual = coefficient(w->x) - r * (coefficient(w->y) - coefficient(w->z));
     result.coefficients.push_back({wname, true, residual, r, 0.0, w->x, w->y, w->z});
     if (std::abs(residual) > 0.05)
-      spdlog::warn("Wesenheit {} with R = {:.3f} leaves {:.3f} E(B-V) of reddening under {} (R_V = {}): "
-                   "its absolute magnitudes carry that much reddening bias",
-                   wname, r, residual, kExtinctionLawNames.name(o.law), o.r_v);
+      spdlog::warn(
+          "Wesenheit {} with R = {:.3f} leaves {:.3f} E(B-V) of reddening under {} (R_V = {}): "
+          "its absolute magnitudes carry that much reddening bias",
+          wname, r, residual, kExtinctionLawNames.name(o.law), o.r_v);
     std::map<std::string, double> weight;  // W = sum weight_b m_b
     weight[w->x] += 1.0;
     weight[w->y] -= r;
     weight[w->z] += r;
-    Column& wm = cat.add_column(dereddened_magnitude_column(wname), ColumnType::kReal, "mag", fmt::format("Wesenheit {} - {:.4f} ({} - {})", w->x, r, w->y, w->z));
+    Column& wm =
+        cat.add_column(dereddened_magnitude_column(wname), ColumnType::kReal, "mag",
+                       fmt::format("Wesenheit {} - {:.4f} ({} - {})", w->x, r, w->y, w->z));
     Column& we = cat.add_column(dereddened_magnitude_error_column(wname), ColumnType::kReal, "mag",
                                 "error of " + dereddened_magnitude_column(wname));
     for (std::size_t row = 0; row < n; ++row) {
@@ -206,9 +232,13 @@ DereddenResult run_deredden(const DereddenOptions& o, const StarTable& in, const
       bool ok = true;
       for (const auto& [b, c] : weight) {
         const Column& m = in.column(magnitude_column(b));
-        if (m.is_null(row)) { ok = false; break; }
+        if (m.is_null(row)) {
+          ok = false;
+          break;
+        }
         value += c * m.real[row];
-        if (in.has(magnitude_error_column(b)) && !in.column(magnitude_error_column(b)).is_null(row)) {
+        if (in.has(magnitude_error_column(b)) &&
+            !in.column(magnitude_error_column(b)).is_null(row)) {
           double e = in.column(magnitude_error_column(b)).real[row];
           var += c * c * e * e;
         }
@@ -235,12 +265,14 @@ DereddenResult deredden_catalog_file(const DereddenOptions& o) {
   DereddenResult result = run_deredden(o, in.table, table);
   result.provenance = Provenance::for_stage("deredden");
   result.provenance.config_sha256 = o.config_sha256;
-  result.provenance.inputs.push_back({o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(in.table.rows())});
+  result.provenance.inputs.push_back(
+      {o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(in.table.rows())});
   result.provenance.inputs.push_back({o.bands_file, table.sha256(), -1});
   stamp_provenance(result.catalog, result.provenance, "catalog");
   StarTable coeffs = result.coefficients_table();
   stamp_provenance(coeffs, result.provenance, "coefficients");
-  write_fits_tables(o.output_path, {{catalog_hdu::kCatalog, &result.catalog}, {catalog_hdu::kCoefficients, &coeffs}});
+  write_fits_tables(o.output_path, {{catalog_hdu::kCatalog, &result.catalog},
+                                    {catalog_hdu::kCoefficients, &coeffs}});
   return result;
 }
 

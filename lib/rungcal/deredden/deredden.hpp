@@ -26,17 +26,17 @@ inline constexpr EnumTable<WesenheitSource, 2> kWesenheitSourceNames{{{
 }}};
 
 struct DereddenOptions {
-  std::string input_path;    // catalog from rungcal-ingest (HDU CATALOG)
+  std::string input_path;  // catalog from rungcal-ingest (HDU CATALOG)
   std::string output_path = "out/catalog_dereddened.fits";  // this stage's product
-  std::string bands_file;    // band table (config/bands.toml)
-  ExtinctionLaw law = ExtinctionLaw::kF99;  // law for band coefficients
-  double r_v = 3.1;          // A_V / E(B-V)
-  std::vector<std::string> bands;       // bands to deredden; empty = every catalog band in the table
-  bool bands_given = false;             // the config lists bands (an empty list: no band at all)
-  std::vector<std::string> wesenheit;   // Wesenheit magnitudes to form (names in the band table)
+  std::string bands_file;                                   // band table (config/bands.toml)
+  ExtinctionLaw law = ExtinctionLaw::kF99;                  // law for band coefficients
+  double r_v = 3.1;                                         // A_V / E(B-V)
+  std::vector<std::string> bands;      // bands to deredden; empty = every catalog band in the table
+  bool bands_given = false;            // the config lists bands (an empty list: no band at all)
+  std::vector<std::string> wesenheit;  // Wesenheit magnitudes to form (names in the band table)
   WesenheitSource wesenheit_source = WesenheitSource::kTable;
   std::map<std::string, double> a_over_ebv;  // per-band A/E(B-V) overriding law and table
-  std::string config_sha256;  // for provenance
+  std::string config_sha256;                 // for provenance
 
   // "" when usable, else "field: rule".
   std::string check() const;
@@ -50,18 +50,18 @@ StageFiles declared_files(const DereddenOptions& options);
 
 // The coefficient used for one output magnitude.
 struct BandCoefficient {
-  std::string name;       // band or Wesenheit name
+  std::string name;  // band or Wesenheit name
   bool wesenheit = false;
   double a_over_ebv = 0;  // R_band for a band; for a Wesenheit the residual R_X - R (R_Y - R_Z)
   double r = 0;           // Wesenheit coefficient (0 for bands)
   double wavelength_aa = 0;
-  std::string x, y, z;    // Wesenheit bands
+  std::string x, y, z;  // Wesenheit bands
 };
 
 struct DereddenResult {
-  StarTable catalog;                       // input columns plus mag0_*, mag0_err_*, a_*, a_err_*
+  StarTable catalog;  // input columns plus mag0_*, mag0_err_*, a_*, a_err_*
   std::vector<BandCoefficient> coefficients;
-  StarTable coefficients_table() const;    // HDU COEFFS: what the fit needs for covariances
+  StarTable coefficients_table() const;  // HDU COEFFS: what the fit needs for covariances
   std::size_t stars_without_ebv = 0;
   Provenance provenance;
 };
@@ -74,7 +74,8 @@ struct DereddenResult {
 // the per-star covariance of two dereddened bands is R_X R_Y sigma_E^2 (one E(B-V)), kept in
 // COEFFS for the fit. Wesenheit: W = m_X - R (m_Y - m_Z), its error from the three
 // magnitudes' errors (each band's total coefficient, so W_VI = (1+R) I - R V is right).
-DereddenResult run_deredden(const DereddenOptions& options, const StarTable& catalog, const BandTable& bands);
+DereddenResult run_deredden(const DereddenOptions& options, const StarTable& catalog,
+                            const BandTable& bands);
 // Reads the input, runs, writes (HDUs CATALOG and COEFFS), atomically.
 DereddenResult deredden_catalog_file(const DereddenOptions& options);
 

@@ -33,12 +33,16 @@ AB cardelli_ab(double x, bool odonnell) {
   if (x < 3.3) {
     double y = x - 1.82;
     if (odonnell) {
-      static constexpr std::array<double, 9> a = {1.0, 0.104, -0.609, 0.701, 1.137, -1.718, -0.827, 1.647, -0.505};
-      static constexpr std::array<double, 9> b = {0.0, 1.952, 2.908, -3.989, -7.985, 11.102, 5.491, -10.805, 3.347};
+      static constexpr std::array<double, 9> a = {1.0,    0.104,  -0.609, 0.701, 1.137,
+                                                  -1.718, -0.827, 1.647,  -0.505};
+      static constexpr std::array<double, 9> b = {0.0,    1.952, 2.908,   -3.989, -7.985,
+                                                  11.102, 5.491, -10.805, 3.347};
       return {polynomial(a, y), polynomial(b, y)};
     }
-    static constexpr std::array<double, 8> a = {1.0, 0.17699, -0.50447, -0.02427, 0.72085, 0.01979, -0.77530, 0.32999};
-    static constexpr std::array<double, 8> b = {0.0, 1.41338, 2.28305, 1.07233, -5.38434, -0.62251, 5.30260, -2.09002};
+    static constexpr std::array<double, 8> a = {1.0,     0.17699, -0.50447, -0.02427,
+                                                0.72085, 0.01979, -0.77530, 0.32999};
+    static constexpr std::array<double, 8> b = {0.0,      1.41338,  2.28305, 1.07233,
+                                                -5.38434, -0.62251, 5.30260, -2.09002};
     return {polynomial(a, y), polynomial(b, y)};
   }
   if (x < 8.0) {
@@ -92,7 +96,8 @@ double natural_spline(const std::vector<double>& xs, const std::vector<double>& 
   std::size_t k = 0;
   while (k + 2 < n && x > xs[k + 1]) ++k;
   double a = (xs[k + 1] - x) / h[k], b = (x - xs[k]) / h[k];
-  return a * ys[k] + b * ys[k + 1] + ((a * a * a - a) * m[k] + (b * b * b - b) * m[k + 1]) * h[k] * h[k] / 6.0;
+  return a * ys[k] + b * ys[k + 1] +
+         ((a * a * a - a) * m[k] + (b * b * b - b) * m[k + 1]) * h[k] * h[k] / 6.0;
 }
 
 // Fitzpatrick 1999 A_lambda / E(B-V).
@@ -100,8 +105,8 @@ double fitzpatrick_a_over_ebv(double x, double r_v) {
   constexpr double kUvCut = 1e4 / 2700.0;
   if (x >= kUvCut) return fm_uv_k(x, r_v) + r_v;
   const double s = r_v / 3.1;
-  std::vector<double> xs = {0.0, 1e4 / 26500.0, 1e4 / 12200.0, 1e4 / 6000.0, 1e4 / 5470.0,
-                            1e4 / 4670.0, 1e4 / 4110.0, 1e4 / 2700.0, 1e4 / 2600.0};
+  std::vector<double> xs = {0.0,          1e4 / 26500.0, 1e4 / 12200.0, 1e4 / 6000.0, 1e4 / 5470.0,
+                            1e4 / 4670.0, 1e4 / 4110.0,  1e4 / 2700.0,  1e4 / 2600.0};
   std::vector<double> ys = {
       0.0,
       0.26469 * s,
@@ -122,8 +127,10 @@ double fitzpatrick_a_over_ebv(double x, double r_v) {
 WavelengthRange law_range(ExtinctionLaw law) {
   switch (law) {
     case ExtinctionLaw::kCCM89:
-    case ExtinctionLaw::kOD94: return {1000.0, 1e4 / 0.3};
-    case ExtinctionLaw::kF99: return {910.0, 60000.0};
+    case ExtinctionLaw::kOD94:
+      return {1000.0, 1e4 / 0.3};
+    case ExtinctionLaw::kF99:
+      return {910.0, 60000.0};
   }
   return {0, 0};
 }
@@ -133,9 +140,10 @@ double extinction_ratio(ExtinctionLaw law, double wavelength_aa, double r_v) {
     throw InputError({}, "config_value", fmt::format("R_V = {} must be a positive number", r_v));
   WavelengthRange range = law_range(law);
   if (!(wavelength_aa >= range.min_aa && wavelength_aa <= range.max_aa))
-    throw InputError({}, "outside_law_range",
-                     fmt::format("{} A is outside the {} law's range, {:.0f} to {:.0f} A", wavelength_aa,
-                                 kExtinctionLawNames.name(law), range.min_aa, range.max_aa));
+    throw InputError(
+        {}, "outside_law_range",
+        fmt::format("{} A is outside the {} law's range, {:.0f} to {:.0f} A", wavelength_aa,
+                    kExtinctionLawNames.name(law), range.min_aa, range.max_aa));
   const double x = 1e4 / wavelength_aa;
   switch (law) {
     case ExtinctionLaw::kCCM89: {
@@ -146,7 +154,8 @@ double extinction_ratio(ExtinctionLaw law, double wavelength_aa, double r_v) {
       AB ab = cardelli_ab(x, true);
       return ab.a + ab.b / r_v;
     }
-    case ExtinctionLaw::kF99: return fitzpatrick_a_over_ebv(x, r_v) / r_v;
+    case ExtinctionLaw::kF99:
+      return fitzpatrick_a_over_ebv(x, r_v) / r_v;
   }
   return 0.0;
 }

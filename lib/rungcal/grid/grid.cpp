@@ -233,19 +233,19 @@ GridResult run_grid(const GridOptions& g) {
   distributed_for(
       fits.size(), worker_threads(g.threads),
       [&](std::size_t i) {
-    // Under MPI the variants are split across ranks; each variant's bootstrap stays here.
-    LocalWorkScope local;
-    const GridVariant* v = i == 0 ? nullptr : &g.variants[i - 1];
-    const FitOptions fo = fit_options_for(g, base_fit, v);
-    if (v && v->changes_extinction()) {
-      const DereddenResult dr =
-          run_deredden(deredden_options_for(base_dered, *v), catalog.table, bands);
-      const StarTable coeffs = dr.coefficients_table();
-      fits[i] = run_fit(fo, dr.catalog, &coeffs);
-    } else {
-      fits[i] = run_fit(fo, base_dr.catalog, &base_coeffs);
-    }
-    progress.advance();
+        // Under MPI the variants are split across ranks; each variant's bootstrap stays here.
+        LocalWorkScope local;
+        const GridVariant* v = i == 0 ? nullptr : &g.variants[i - 1];
+        const FitOptions fo = fit_options_for(g, base_fit, v);
+        if (v && v->changes_extinction()) {
+          const DereddenResult dr =
+              run_deredden(deredden_options_for(base_dered, *v), catalog.table, bands);
+          const StarTable coeffs = dr.coefficients_table();
+          fits[i] = run_fit(fo, dr.catalog, &coeffs);
+        } else {
+          fits[i] = run_fit(fo, base_dr.catalog, &base_coeffs);
+        }
+        progress.advance();
       },
       [&](std::size_t i) { return encode_budget_fields(fits[i]); },
       [&](std::size_t i, const std::string& bytes) { fits[i] = decode_budget_fields(bytes); });

@@ -16,9 +16,8 @@ std::string unknown_column_key_message(const std::string& key) {
   for (const auto& q : catalog_quantities()) {
     keys.emplace_back(q.key);
     if (q.column == key)
-      return fmt::format(
-          "not a [columns] key: {} is the catalog column, its key is '{}' ({})", key, q.key,
-          kWhere);
+      return fmt::format("not a [columns] key: {} is the catalog column, its key is '{}' ({})", key,
+                         q.key, kWhere);
   }
   if (key.rfind("mag_", 0) == 0 || key == "mag" || key == "magnitude")
     return fmt::format(

@@ -429,7 +429,8 @@ IngestResult ingest_catalog_file(const IngestOptions& o) {
     if (rows.rows() == 0) return;
     // Made with a row for every input row expected: rows not used are dropped at the end,
     // and the table grows past them if a text file's estimate fell short.
-    if (!stream) stream.emplace(o.catalog_path, catalog_hdu::kCatalog, static_cast<std::int64_t>(expected));
+    if (!stream)
+      stream.emplace(o.catalog_path, catalog_hdu::kCatalog, static_cast<std::int64_t>(expected));
     stream->append(rows);
   });
   stamp_provenance(schema, result.provenance, "catalog");
@@ -444,7 +445,8 @@ IngestResult ingest_catalog_file(const IngestOptions& o) {
 void write_ingest_products(const IngestResult& result, const IngestOptions& o) {
   StarTable rejects = result.rejects_table();
   stamp_provenance(rejects, result.provenance, "rejects");
-  write_fits_tables(o.catalog_path, {{catalog_hdu::kCatalog, &result.catalog}, {catalog_hdu::kRejects, &rejects}});
+  write_fits_tables(o.catalog_path,
+                    {{catalog_hdu::kCatalog, &result.catalog}, {catalog_hdu::kRejects, &rejects}});
   write_csv_table(rejects, ingest_rejects_csv_path(o));
 }
 

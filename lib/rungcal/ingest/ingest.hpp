@@ -46,9 +46,9 @@ struct SelectRule {
 
 // A band's magnitude and its error.
 struct BandSource {
-  std::string band;   // band name as in the band table (config/bands.toml)
-  ValueSource mag;    // mean magnitude
-  ValueSource err;    // its error (a column, or a constant for every star)
+  std::string band;  // band name as in the band table (config/bands.toml)
+  ValueSource mag;   // mean magnitude
+  ValueSource err;   // its error (a column, or a constant for every star)
 };
 
 // An input column copied through unchanged under a new name (quality flags and the like).
@@ -68,11 +68,11 @@ inline constexpr EnumTable<JoinUse, 2> kJoinUseNames{{{
 }}};
 
 struct LightCurveJoin {
-  std::string summary_path;         // "" = no join
-  JoinUse use = JoinUse::kReplace;  // replace catalog values, or fill empty ones only
-  std::vector<std::string> bands;   // bands whose means are joined; empty = every summary band
-  bool periods = true;              // join periods too (false: magnitudes only)
-  double warn_period_change = 0.01; // relative period change that is logged per star
+  std::string summary_path;          // "" = no join
+  JoinUse use = JoinUse::kReplace;   // replace catalog values, or fill empty ones only
+  std::vector<std::string> bands;    // bands whose means are joined; empty = every summary band
+  bool periods = true;               // join periods too (false: magnitudes only)
+  double warn_period_change = 0.01;  // relative period change that is logged per star
 };
 
 // What ingest does with an id that equals an earlier one but for letter case or spaces
@@ -112,14 +112,16 @@ struct PlausibleRange {
 //   (BL Her to RV Tau stars), anomalous Cepheids 0.3-3 d, RR Lyrae 0.15-1.2 d.
 struct ClassLimits {
   UnitCheckPolicy parallax_policy = UnitCheckPolicy::kRefuse;  // [validate] class_parallax_check
-  std::map<std::string, double> parallax_max_mas = {  // [validate.class_parallax_max_mas]
+  std::map<std::string, double> parallax_max_mas = {
+      // [validate.class_parallax_max_mas]
       {"classical_cepheid", 100.0},
       {"type2_cepheid", 100.0},
       {"anomalous_cepheid", 100.0},
       {"rr_lyrae", 100.0},
   };
   UnitCheckPolicy period_policy = UnitCheckPolicy::kRefuse;  // [validate] class_period_check
-  std::map<std::string, PlausibleRange> period_d = {  // [validate.class_period_known_range_d]
+  std::map<std::string, PlausibleRange> period_d = {
+      // [validate.class_period_known_range_d]
       {"classical_cepheid", {0.2, 250.0}},
       {"type2_cepheid", {0.8, 150.0}},
       {"anomalous_cepheid", {0.3, 3.0}},
@@ -130,23 +132,23 @@ struct ClassLimits {
 };
 
 struct IngestOptions {
-  std::string input_path;             // catalog to read (FITS or delimited text)
-  bool input_is_fits = false;         // chosen from [source] format or the file extension
-  bool input_is_votable = false;      // likewise (VOTable, TABLEDATA); ECSV is known by its first line
-  FitsHduChoice hdu;                  // FITS: which table HDU
-  TextReadOptions text;               // text: delimiter, header, missing markers
-  std::map<std::string, ValueSource> quantities;  // canonical key -> source ([columns])
+  std::string input_path;         // catalog to read (FITS or delimited text)
+  bool input_is_fits = false;     // chosen from [source] format or the file extension
+  bool input_is_votable = false;  // likewise (VOTable, TABLEDATA); ECSV is known by its first line
+  FitsHduChoice hdu;              // FITS: which table HDU
+  TextReadOptions text;           // text: delimiter, header, missing markers
+  std::map<std::string, ValueSource> quantities;     // canonical key -> source ([columns])
   ColumnPreset column_preset = ColumnPreset::kNone;  // [columns] preset: the keys not mapped
-  std::vector<BandSource> bands;      // [bands.NAME]
-  std::vector<ExtraColumn> extras;    // [extra]
-  std::vector<SelectRule> selection;  // [[select]]
+  std::vector<BandSource> bands;                     // [bands.NAME]
+  std::vector<ExtraColumn> extras;                   // [extra]
+  std::vector<SelectRule> selection;                 // [[select]]
   std::map<std::string, std::string> mode_aliases;   // input mode value -> canonical mode name
   std::map<std::string, std::string> class_aliases;  // input class value -> canonical class name
   double magnitude_min = -12.0;  // plausible apparent/absolute magnitude range (common practice)
   double magnitude_max = 35.0;
-  double ebv_min = -0.3;         // E(B-V) below this is an error, not noise (common practice)
+  double ebv_min = -0.3;  // E(B-V) below this is an error, not noise (common practice)
   double ebv_max = 10.0;
-  bool require_errors = true;    // a value without its error (magnitude, parallax) rejects the row
+  bool require_errors = true;  // a value without its error (magnitude, parallax) rejects the row
   // Plausibility limits ([validate]): a value outside is an error in the input, not data,
   // and the row is refused with rule "<quantity>_out_of_range". Defaults are common practice,
   // wide enough for every real star: the largest stellar parallax is about 768 mas (Proxima
@@ -162,13 +164,13 @@ struct IngestOptions {
   std::map<std::string, PlausibleRange> class_period_range;  // d, per canonical pulsator class
                                                              // ([validate.class_period_range_d])
   IdVariantPolicy id_variants = IdVariantPolicy::kWarn;      // [validate] id_variants
-  ClassLimits class_limits;       // [validate]: per-star limits by class
-  UnitSanityOptions unit_checks;  // [validate] unit_checks and median ranges: unit mistakes
-  LightCurveJoin lightcurves;    // [lightcurves]: periods and mean magnitudes from light curves
+  ClassLimits class_limits;                                  // [validate]: per-star limits by class
+  UnitSanityOptions unit_checks;    // [validate] unit_checks and median ranges: unit mistakes
+  LightCurveJoin lightcurves;       // [lightcurves]: periods and mean magnitudes from light curves
   std::int64_t chunk_rows = 20000;  // rows or text lines read at a time ([source] chunk_rows)
-  std::string catalog_path = "out/catalog.fits";   // the FITS catalog product
-  std::string rejects_csv_path;  // human-readable rejects; "" = beside the catalog
-  std::string config_file;       // for messages and provenance
+  std::string catalog_path = "out/catalog.fits";  // the FITS catalog product
+  std::string rejects_csv_path;                   // human-readable rejects; "" = beside the catalog
+  std::string config_file;                        // for messages and provenance
   std::string config_sha256;
 
   // "" when usable, else "field: rule" for the first broken rule.

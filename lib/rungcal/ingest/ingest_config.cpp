@@ -102,8 +102,8 @@ std::string SelectRule::describe() const {
 std::string ClassLimits::check() const {
   for (const auto& [cls, max] : parallax_max_mas) {
     if (!kPulsatorClassNames.parse(cls))
-      return fmt::format("validate.class_parallax_max_mas.{}: not a pulsator class (known: {})", cls,
-                         kPulsatorClassNames.choices());
+      return fmt::format("validate.class_parallax_max_mas.{}: not a pulsator class (known: {})",
+                         cls, kPulsatorClassNames.choices());
     if (!(max > 0))
       return fmt::format("validate.class_parallax_max_mas.{}: must be positive (mas)", cls);
   }
@@ -113,7 +113,8 @@ std::string ClassLimits::check() const {
                          cls, kPulsatorClassNames.choices());
     if (!(r.min > 0 && r.min < r.max))
       return fmt::format(
-          "validate.class_period_known_range_d.{}: must be [min, max] days with 0 < min < max", cls);
+          "validate.class_period_known_range_d.{}: must be [min, max] days with 0 < min < max",
+          cls);
   }
   return "";
 }
@@ -269,7 +270,8 @@ IngestOptions ingest_options_from_config(Config& config) {
       v->fail("id_variants",
               fmt::format("'{}' is not one of: {}", variants, kIdVariantPolicyNames.choices()));
     o.id_variants = *parsed;
-    o.unit_checks.policy = choice_or(*v, "unit_checks", kUnitCheckPolicyNames, o.unit_checks.policy);
+    o.unit_checks.policy =
+        choice_or(*v, "unit_checks", kUnitCheckPolicyNames, o.unit_checks.policy);
     ClassLimits& limits = o.class_limits;
     limits.parallax_policy =
         choice_or(*v, "class_parallax_check", kUnitCheckPolicyNames, limits.parallax_policy);
@@ -336,7 +338,8 @@ IngestOptions ingest_options_from_file(const std::string& path) {
 }
 
 std::string ingest_rejects_csv_path(const IngestOptions& o) {
-  return o.rejects_csv_path.empty() ? path_beside(o.catalog_path, "_rejects.csv") : o.rejects_csv_path;
+  return o.rejects_csv_path.empty() ? path_beside(o.catalog_path, "_rejects.csv")
+                                    : o.rejects_csv_path;
 }
 
 StageFiles declared_files(const IngestOptions& o) {

@@ -42,7 +42,8 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       band_list += (band_list.empty() ? "" : ",") + b;
     }
   cat.set_keyword(key::kBands, band_list, "bands with mag_<band> columns");
-  Column& origin = cat.add_column(col::kPeriodOrigin, ColumnType::kText, "", "catalog or lightcurve");
+  Column& origin =
+      cat.add_column(col::kPeriodOrigin, ColumnType::kText, "", "catalog or lightcurve");
   if (join.periods && !cat.has(col::kPeriodErr))
     cat.add_column(col::kPeriodErr, ColumnType::kReal, "d", "period uncertainty");
   const bool replace = join.use == JoinUse::kReplace;
@@ -122,8 +123,9 @@ std::size_t refuse_stars_without_photometry(StarTable& cat, IngestResult& result
   result.stars = cat.rows();
   // The rejects stay in input order.
   result.rejected.insert(result.rejected.end(), refused.begin(), refused.end());
-  std::stable_sort(result.rejected.begin(), result.rejected.end(),
-                   [](const RejectedRow& a, const RejectedRow& b) { return a.source_row < b.source_row; });
+  std::stable_sort(
+      result.rejected.begin(), result.rejected.end(),
+      [](const RejectedRow& a, const RejectedRow& b) { return a.source_row < b.source_row; });
   return refused.size();
 }
 

@@ -39,7 +39,8 @@ std::string UnitSanityOptions::check() const {
   for (const auto& [cls, r] : class_absolute_magnitude_median)
     if (!(r.first < r.second))
       return fmt::format(
-          "validate.class_absolute_magnitude_median_range.{}: must be [min, max] mag with min < max",
+          "validate.class_absolute_magnitude_median_range.{}: must be [min, max] mag with min < "
+          "max",
           cls);
   return "";
 }
@@ -69,8 +70,7 @@ std::vector<UnitFinding> find_unit_mistakes(const UnitSample& s, const UnitSanit
     const double m = median(periods);
     const auto [lo, hi] = range->second;
     if (m >= lo && m <= hi) continue;
-    std::string hint = s.period_unit == "log_d"
-                           ? "are the values days mapped as log_d?"
+    std::string hint = s.period_unit == "log_d" ? "are the values days mapped as log_d?"
                        : m < lo ? "are the values log10(P / d), which want unit = \"log_d\"?"
                                 : "are the values in another unit than the one mapped?";
     out.push_back({"period_unit", s.period_column,

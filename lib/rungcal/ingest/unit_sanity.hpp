@@ -67,8 +67,8 @@ struct UnitSanityOptions {
 // The values a unit check looks at, in canonical units, for the rows of one sample of the
 // input (rows whose value cannot be read are left out).
 struct UnitSample {
-  std::string file;                 // input file, for messages
-  std::vector<double> parallax_mas;  // parallaxes after conversion
+  std::string file;                            // input file, for messages
+  std::vector<double> parallax_mas;            // parallaxes after conversion
   std::string parallax_column, parallax_unit;  // input column and the unit it was read in
   std::map<std::string, std::vector<double>> period_d_by_class;  // periods after conversion
   std::string period_column, period_unit;
@@ -79,8 +79,8 @@ struct UnitSample {
 
 // A finding: the rule broken and a message naming the file, column, median and likely cause.
 struct UnitFinding {
-  std::string rule;     // "parallax_unit", "period_unit" or "absolute_magnitude_median"
-  std::string column;   // input column
+  std::string rule;    // "parallax_unit", "period_unit" or "absolute_magnitude_median"
+  std::string column;  // input column
   std::string message;
 };
 

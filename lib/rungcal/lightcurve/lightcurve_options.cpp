@@ -39,7 +39,8 @@ std::string LightCurveOptions::check() const {
   if (threads < 0) return "threads: must be 0 (every core) or positive";
   if (std::string f = files.check(); !f.empty()) return f;
   if (layout == SourceLayout::kGaiaEpoch) {
-    if (files.enabled()) return "source.name_pattern: not with layout \"gaia_epoch\" (each row names its source)";
+    if (files.enabled())
+      return "source.name_pattern: not with layout \"gaia_epoch\" (each row names its source)";
     if (time_scale != TimeScale::kBjdTcb)
       return "source.time_scale: Gaia epoch times are BJD in TCB: leave it out or say \"bjd_tcb\"";
     if (gaia_bands.empty()) return "source.bands: name at least one of G, BP, RP";
@@ -67,16 +68,20 @@ LightCurveOptions lightcurve_options_from_file(const std::string& path) {
     throw InputError({path, {}, "source", "line", "key"}, "config_missing_key",
                      "a [source] table is required");
   o.source = table_source_from_section(c, *source);
-  const std::string layout = source->string_or("layout", std::string(kSourceLayoutNames.name(o.layout)));
+  const std::string layout =
+      source->string_or("layout", std::string(kSourceLayoutNames.name(o.layout)));
   auto parsed_layout = kSourceLayoutNames.parse(layout);
   if (!parsed_layout)
-    source->fail("layout", fmt::format("'{}' is not one of: {}", layout, kSourceLayoutNames.choices()));
+    source->fail("layout",
+                 fmt::format("'{}' is not one of: {}", layout, kSourceLayoutNames.choices()));
   o.layout = *parsed_layout;
   // Gaia's epochs are BJD in TCB (gaia_epoch.hpp), whatever the default of other layouts.
   if (o.layout == SourceLayout::kGaiaEpoch) o.time_scale = TimeScale::kBjdTcb;
   if (auto bands = source->get_string_list("bands")) o.gaia_bands = *bands;
   if (source->has("bands") && o.layout != SourceLayout::kGaiaEpoch)
-    source->fail("bands", "only layout \"gaia_epoch\" has bands to choose (others: a band column or source.band)");
+    source->fail(
+        "bands",
+        "only layout \"gaia_epoch\" has bands to choose (others: a band column or source.band)");
   std::string scale =
       source->string_or("time_scale", std::string(kTimeScaleNames.name(o.time_scale)));
   auto parsed_scale = kTimeScaleNames.parse(scale);
@@ -133,7 +138,8 @@ StageFiles declared_files(const LightCurveOptions& o) {
   StageFiles f;
   // Per-star files, and Gaia epoch photometry given as a pattern, are globs (gaia_epoch_files
   // reads a file named literally as it is).
-  const bool gaia_glob = o.layout == SourceLayout::kGaiaEpoch && !std::filesystem::is_regular_file(o.source.path);
+  const bool gaia_glob =
+      o.layout == SourceLayout::kGaiaEpoch && !std::filesystem::is_regular_file(o.source.path);
   if (o.files.enabled() || gaia_glob)
     f.input_globs.push_back(o.source.path);
   else

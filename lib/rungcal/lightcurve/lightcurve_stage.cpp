@@ -112,9 +112,9 @@ void note_sources_without_epochs(LightCurveResult& result) {
       n += d.flagged + d.missing;
     }
   for (const auto& [star, lost_epochs] : lost)
-    result.rejected.push_back({lost_epochs.first, star, "no_usable_epochs", "",
-                               fmt::format("all {} epochs were flagged or had a missing value",
-                                           lost_epochs.second)});
+    result.rejected.push_back(
+        {lost_epochs.first, star, "no_usable_epochs", "",
+         fmt::format("all {} epochs were flagged or had a missing value", lost_epochs.second)});
 }
 
 std::string file_label(const LightCurveOptions& o) {
@@ -301,9 +301,9 @@ std::string encode_star_result(const StarResult& s) {
   ByteWriter w;
   w.put_string(s.id);
   w.put(s.points);
-  for (double v : {s.baseline_d, s.frequency, s.frequency_err, s.period_d, s.period_err_d, s.power,
-                   s.false_alarm, s.second_peak_power, s.second_peak_period_d, s.t_ref,
-                   s.max_phase_gap})
+  for (double v :
+       {s.baseline_d, s.frequency, s.frequency_err, s.period_d, s.period_err_d, s.power,
+        s.false_alarm, s.second_peak_power, s.second_peak_period_d, s.t_ref, s.max_phase_gap})
     w.put(v);
   w.put(s.flags);
   w.put<std::uint8_t>(s.usable);
@@ -330,9 +330,9 @@ StarResult decode_star_result(const std::string& bytes) {
   StarResult s;
   s.id = r.get_string();
   s.points = r.get<std::size_t>();
-  for (double* v : {&s.baseline_d, &s.frequency, &s.frequency_err, &s.period_d, &s.period_err_d,
-                    &s.power, &s.false_alarm, &s.second_peak_power, &s.second_peak_period_d,
-                    &s.t_ref, &s.max_phase_gap})
+  for (double* v :
+       {&s.baseline_d, &s.frequency, &s.frequency_err, &s.period_d, &s.period_err_d, &s.power,
+        &s.false_alarm, &s.second_peak_power, &s.second_peak_period_d, &s.t_ref, &s.max_phase_gap})
     *v = r.get<double>();
   s.flags = r.get<std::uint32_t>();
   s.usable = r.get<std::uint8_t>() != 0;
@@ -363,9 +363,11 @@ LightCurveResult run_lightcurves(const LightCurveOptions& o) {
   result.provenance = Provenance::for_stage("lightcurve");
   result.provenance.config_sha256 = o.config_sha256;
   SourceTable in;
-  const LightCurveColumns columns{o.star_column, o.time_column, o.band_column, o.mag_column, o.err_column};
+  const LightCurveColumns columns{o.star_column, o.time_column, o.band_column, o.mag_column,
+                                  o.err_column};
   if (o.layout == SourceLayout::kGaiaEpoch) {
-    in = read_gaia_epochs(o.source, o.gaia_bands, columns, result.provenance.inputs, result.dropped);
+    in =
+        read_gaia_epochs(o.source, o.gaia_bands, columns, result.provenance.inputs, result.dropped);
   } else if (o.files.enabled()) {
     in = read_per_star_files(o.source, o.files, columns, result.provenance.inputs);
   } else {

@@ -12,10 +12,10 @@
 #include "rungcal/core/stage_files.hpp"
 #include "rungcal/lightcurve/fourier.hpp"
 #include "rungcal/lightcurve/gaia_epoch.hpp"
+#include "rungcal/lightcurve/per_star_files.hpp"
 #include "rungcal/lightcurve/periodogram.hpp"
 #include "rungcal/photometry/bands.hpp"
 #include "rungcal/table/star_table.hpp"
-#include "rungcal/lightcurve/per_star_files.hpp"
 #include "rungcal/table/table_source.hpp"
 
 namespace rungcal {
@@ -39,9 +39,10 @@ inline constexpr EnumTable<SourceLayout, 2> kSourceLayoutNames{{{
 }}};
 
 struct LightCurveOptions {
-  TableSourceSpec source;                     // the time series: FITS or delimited text ([source])
-  PerStarFiles files;                         // or one file per star: source.path is then a glob
-  SourceLayout layout = SourceLayout::kTable;  // or Gaia epoch photometry (source.path: file or glob)
+  TableSourceSpec source;  // the time series: FITS or delimited text ([source])
+  PerStarFiles files;      // or one file per star: source.path is then a glob
+  SourceLayout layout =
+      SourceLayout::kTable;  // or Gaia epoch photometry (source.path: file or glob)
   std::vector<std::string> gaia_bands = {"G", "BP", "RP"};  // gaia_epoch: the bands expanded
   std::string star_column = "star";           // star id (as in the calibrator catalog)
   std::string time_column = "time";           // time of each epoch, days

@@ -47,10 +47,10 @@ void add_dropped_epoch_columns(const std::vector<GaiaDroppedEpochs>& dropped,
     by_star[{d.star, d.band}] = &d;
   }
   for (const auto& b : bands) {
-    Column& flagged = t.add_column(band_column(lightcurve_col::kFlagged, b), ColumnType::kInteger, "",
-                                   "Gaia epochs in " + b + " dropped by a rejection flag");
-    Column& missing = t.add_column(band_column(lightcurve_col::kMissing, b), ColumnType::kInteger, "",
-                                   "Gaia epochs in " + b + " dropped for a missing value");
+    Column& flagged = t.add_column(band_column(lightcurve_col::kFlagged, b), ColumnType::kInteger,
+                                   "", "Gaia epochs in " + b + " dropped by a rejection flag");
+    Column& missing = t.add_column(band_column(lightcurve_col::kMissing, b), ColumnType::kInteger,
+                                   "", "Gaia epochs in " + b + " dropped for a missing value");
     // The table has its rows already: the new columns come sized to them, all null.
     for (std::size_t r = 0; r < stars.size(); ++r) {
       auto it = by_star.find({stars[r].id, b});
@@ -113,8 +113,7 @@ StarTable LightCurveResult::summary_table(TimeScale scale) const {
   };
   for (const auto& b : bands)
     for (const auto& c : kPerBand)
-      t.add_column(band_column(c.name, b), c.type, c.unit,
-                   c.what + std::string(" in ") + b);
+      t.add_column(band_column(c.name, b), c.type, c.unit, c.what + std::string(" in ") + b);
 
   for (const auto& s : stars) {
     const bool has_period = s.frequency > 0;
@@ -159,7 +158,8 @@ StarTable LightCurveResult::summary_table(TimeScale scale) const {
       put(C::kEpochMax, m.epoch_of_max);
       ok ? t.column(band_column(C::kOrder, b)).push_integer(found->curve.order)
          : t.column(band_column(C::kOrder, b)).push_null();
-      ok ? t.column(band_column(C::kN, b)).push_integer(static_cast<std::int64_t>(found->curve.points))
+      ok ? t.column(band_column(C::kN, b))
+               .push_integer(static_cast<std::int64_t>(found->curve.points))
          : t.column(band_column(C::kN, b)).push_null();
       put(C::kRms, ok ? found->curve.rms : 0.0);
       put(C::kR21, m.r21);
@@ -287,7 +287,8 @@ void write_lightcurve_products(const LightCurveResult& result, const LightCurveO
                       "Fourier terms in the periodogram");
   for (StarTable* t : {&fourier, &points, &periodograms, &rejects})
     stamp_provenance(*t, result.provenance, "lightcurve_summary");
-  std::vector<NamedTable> tables = {{lightcurve_hdu::kSummary, &summary}, {lightcurve_hdu::kFourier, &fourier}};
+  std::vector<NamedTable> tables = {{lightcurve_hdu::kSummary, &summary},
+                                    {lightcurve_hdu::kFourier, &fourier}};
   if (o.write_points) tables.emplace_back(lightcurve_hdu::kPoints, &points);
   tables.emplace_back(lightcurve_hdu::kPeriodogram, &periodograms);
   tables.emplace_back(lightcurve_hdu::kRejects, &rejects);

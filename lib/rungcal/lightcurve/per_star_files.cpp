@@ -88,7 +88,8 @@ std::vector<std::string> per_star_file_list(const std::string& pattern) {
   // The same matches rungcal-run keys the stage by (declared_files).
   std::vector<std::string> files = files_matching(pattern);
   if (files.empty())
-    throw InputError({pattern, {}, "path", "line", "key"}, "no_files", "no light-curve file matches this pattern");
+    throw InputError({pattern, {}, "path", "line", "key"}, "no_files",
+                     "no light-curve file matches this pattern");
   return files;
 }
 
@@ -101,7 +102,8 @@ SourceTable read_per_star_files(const TableSourceSpec& spec, const PerStarFiles&
   StarTable& t = out.table;
   t.add_column(cols.star, ColumnType::kText);
   t.add_column(cols.band, ColumnType::kText);
-  for (const std::string* c : {&cols.time, &cols.mag, &cols.err}) t.add_column(*c, ColumnType::kReal);
+  for (const std::string* c : {&cols.time, &cols.mag, &cols.err})
+    t.add_column(*c, ColumnType::kReal);
   for (const std::string& path : per_star_file_list(spec.path)) {
     const std::string base = path_tail(path, name.parts);
     std::smatch m;
@@ -124,10 +126,13 @@ SourceTable read_per_star_files(const TableSourceSpec& spec, const PerStarFiles&
     const Column* band_col = band_in_file ? &column_of(in, cols.band) : nullptr;
     for (std::size_t r = 0; r < in.table.rows(); ++r) {
       t.column(cols.star).push_text(star);
-      if (band_col && band_col->is_null(r)) t.column(cols.band).push_null();
-      else t.column(cols.band).push_text(band_col ? band_col->to_string(r) : band);
+      if (band_col && band_col->is_null(r))
+        t.column(cols.band).push_null();
+      else
+        t.column(cols.band).push_text(band_col ? band_col->to_string(r) : band);
       const std::optional<double> when = cell_number(time, r);
-      when ? t.column(cols.time).push_real(*when + files.time_offset_d) : t.column(cols.time).push_null();
+      when ? t.column(cols.time).push_real(*when + files.time_offset_d)
+           : t.column(cols.time).push_null();
       for (const auto& [from, to] : {std::pair{&mag, &cols.mag}, std::pair{&err, &cols.err}}) {
         const std::optional<double> v = cell_number(*from, r);
         v ? t.column(*to).push_real(*v) : t.column(*to).push_null();

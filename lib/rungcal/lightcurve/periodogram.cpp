@@ -80,7 +80,6 @@ struct Sums {
   double c = 0, s = 0, yc = 0, ys = 0;
 };
 
-
 // Sums of w cos, w sin and w y cos, w y sin of one harmonic at the current frequency, then
 // one rotation step. The hot loop of both periodograms.
 RUNGCAL_VECTOR_CLONES
@@ -210,7 +209,7 @@ double chi2_reduction(const std::vector<Sums>& h, int k_max) {
       const int cj = 2 * j - 1, sj = 2 * j;
       a[ci][cj] = 0.5 * (cm(i - j) + cm(i + j));
       a[si][sj] = 0.5 * (cm(i - j) - cm(i + j));
-      a[si][cj] = 0.5 * (sm(i + j) + sm(i - j));  // sum w sin(ix) cos(jx)
+      a[si][cj] = 0.5 * (sm(i + j) + sm(i - j));             // sum w sin(ix) cos(jx)
       if (j < i) a[ci][sj] = 0.5 * (sm(i + j) - sm(i - j));  // sum w cos(ix) sin(jx)
     }
   }

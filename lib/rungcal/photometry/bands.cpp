@@ -28,7 +28,9 @@ BandTable BandTable::from_config(Config& config) {
       if (w && !(*w > 0)) s->fail("wavelength_aa", "must be positive (Angstrom)");
       std::string kind = s->string_or("wavelength_kind", "pivot");
       auto k = kWavelengthKindNames.parse(kind);
-      if (!k) s->fail("wavelength_kind", fmt::format("'{}' is not one of: {}", kind, kWavelengthKindNames.choices()));
+      if (!k)
+        s->fail("wavelength_kind",
+                fmt::format("'{}' is not one of: {}", kind, kWavelengthKindNames.choices()));
       b.kind = *k;
       t.bands_.push_back(std::move(b));
     }
@@ -79,16 +81,20 @@ double band_coefficient(const Band& band, ExtinctionLaw law, double r_v) {
   }
 }
 
-double wesenheit_coefficient(const WesenheitDef& w, const BandTable& bands, ExtinctionLaw law, double r_v) {
+double wesenheit_coefficient(const WesenheitDef& w, const BandTable& bands, ExtinctionLaw law,
+                             double r_v) {
   if (w.r) return *w.r;
   auto coefficient = [&](const std::string& name) {
     const Band* b = bands.find(name);
-    if (!b) throw InputError({"", {}, w.name, "row", "wesenheit"}, "unknown_band", fmt::format("band '{}' is not in the band table", name));
+    if (!b)
+      throw InputError({"", {}, w.name, "row", "wesenheit"}, "unknown_band",
+                       fmt::format("band '{}' is not in the band table", name));
     return band_coefficient(*b, law, r_v);
   };
   double rx = coefficient(w.x), ry = coefficient(w.y), rz = coefficient(w.z);
   if (std::abs(ry - rz) < 1e-9)
-    throw InputError({"", {}, w.name, "row", "wesenheit"}, "config_value", "the colour's bands have equal extinction: R is undefined");
+    throw InputError({"", {}, w.name, "row", "wesenheit"}, "config_value",
+                     "the colour's bands have equal extinction: R is undefined");
   return rx / (ry - rz);
 }
 

@@ -25,7 +25,7 @@ struct Band {
   std::string system;        // photometric system, e.g. "Johnson-Cousins", "2MASS"
   double wavelength_aa = 0;  // the wavelength the extinction law is evaluated at
   WavelengthKind kind = WavelengthKind::kPivot;
-  std::string source;        // where the wavelength comes from
+  std::string source;  // where the wavelength comes from
   // A_band / E(B-V) given outright; overrides the law (and ignores R_V) when set.
   std::optional<double> a_over_ebv;
 };
@@ -64,6 +64,7 @@ double band_coefficient(const Band& band, ExtinctionLaw law, double r_v);
 
 // The Wesenheit coefficient R: given, or R_X / (R_Y - R_Z) under the law. Throws InputError
 // ("unknown_band") when a band is not in the table.
-double wesenheit_coefficient(const WesenheitDef& w, const BandTable& bands, ExtinctionLaw law, double r_v);
+double wesenheit_coefficient(const WesenheitDef& w, const BandTable& bands, ExtinctionLaw law,
+                             double r_v);
 
 }  // namespace rungcal

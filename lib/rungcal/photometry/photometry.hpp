@@ -33,7 +33,8 @@ double fundamentalized_period(double first_overtone_period);
 inline constexpr double kRRLyraeOvertoneLogShift = 0.127;
 // log10 of the fundamental-mode period for a star of a class and mode: Cepheid formula for
 // Cepheids, the RR Lyrae shift for RR Lyrae stars, unchanged for fundamental-mode stars.
-double fundamentalized_log_period(const std::string& pulsator_class, const std::string& mode, double log_period);
+double fundamentalized_log_period(const std::string& pulsator_class, const std::string& mode,
+                                  double log_period);
 // Inverse of fundamentalized_period (fixed-point iteration, converges in a few steps).
 double first_overtone_period_for(double fundamental_period);
 

@@ -105,8 +105,7 @@ BlendDensity blend_rising_log_density(double r, double var, double mean) {
   return BlendLaw(var, mean, true).at(r);
 }
 
-ColouredBlendLaw::ColouredBlendLaw(double var, double mean, const BlendColour& colour,
-                                   bool rising)
+ColouredBlendLaw::ColouredBlendLaw(double var, double mean, const BlendColour& colour, bool rising)
     : var_(var),
       mean_(mean),
       k_rise_(rising ? 1.0 : 0.0),

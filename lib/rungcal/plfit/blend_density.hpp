@@ -59,7 +59,8 @@ struct ColouredBlendDensity : BlendDensity {
   double d_kappa = 0, d_curvature = 0, d_tilt = 0;
 };
 // The density of the reduced residual r,
-//   p(r) = lambda^(1+k) / k! int_0^inf b^k N(r + kappa b | 0, V) exp(-(lambda + t) b - D b^2 / 2) db,
+//   p(r) = lambda^(1+k) / k! int_0^inf b^k N(r + kappa b | 0, V) exp(-(lambda + t) b - D b^2 / 2)
+//   db,
 // k = 0 (Exp(mean s), lambda = 1 / s) or k = 1 (rising: Gamma(2, mean s), lambda = 2 / s).
 // Completing the square in b with A = kappa^2 / V + D, B = kappa r / V + lambda + t and
 // z = -B / sqrt(A), int_0^inf exp(-A b^2/2 - B b) db = sqrt(2 pi / A) exp(z^2/2) Phi(z) and

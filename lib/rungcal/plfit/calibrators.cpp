@@ -73,7 +73,8 @@ std::string correct_parallax(const FitOptions& o, const StarTable& cat, std::siz
   // The cut comes after the correction so that refused stars keep their parallax for plots.
   if (o.max_ruwe > 0) {
     double ruwe = value_or_nan(cat, col::kRuwe, r);
-    if (std::isfinite(ruwe) && ruwe > o.max_ruwe) return fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe);
+    if (std::isfinite(ruwe) && ruwe > o.max_ruwe)
+      return fmt::format("RUWE {:.2f} > {}", ruwe, o.max_ruwe);
   }
   return "";
 }
@@ -85,9 +86,11 @@ std::string non_member_reason(const FitOptions& o, const ClusterOptions& k, cons
   const double z = (s.plx - k.parallax_mas) / std::hypot(s.plx_err, k.parallax_err_mas);
   if (!(std::abs(z) > o.cluster_member_max_sigma)) return "";
   return fmt::format(
-      "not a member of cluster {}: its parallax {:.4f} +- {:.4f} mas differs from the cluster's {:.4f} +- "
+      "not a member of cluster {}: its parallax {:.4f} +- {:.4f} mas differs from the cluster's "
+      "{:.4f} +- "
       "{:.4f} by {:.1f} sigma (cluster_member_max_sigma = {})",
-      k.group, s.plx, s.plx_err, k.parallax_mas, k.parallax_err_mas, std::abs(z), o.cluster_member_max_sigma);
+      k.group, s.plx, s.plx_err, k.parallax_mas, k.parallax_err_mas, std::abs(z),
+      o.cluster_member_max_sigma);
 }
 }  // namespace
 
@@ -99,7 +102,8 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
       rel.magnitude_column.empty() ? dereddened_magnitude_column(rel.band) : rel.magnitude_column;
   std::string err_col = rel.error_column;
   if (err_col.empty()) {
-    err_col = rel.magnitude_column.empty() ? dereddened_magnitude_error_column(rel.band) : rel.magnitude_column;
+    err_col = rel.magnitude_column.empty() ? dereddened_magnitude_error_column(rel.band)
+                                           : rel.magnitude_column;
     if (!rel.magnitude_column.empty()) {
       auto p = err_col.find("mag_");
       err_col = p == 0 ? "mag_err_" + err_col.substr(4) : err_col + "_err";
@@ -219,7 +223,8 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
         if (!why.empty()) s.reason = "used without its own parallax: " + why;
       }
       s.member_parallax = own_var > 0;
-      push_group_star(static_cast<int>(o.anchors.size() + (cluster - o.clusters.begin())), own, own_var);
+      push_group_star(static_cast<int>(o.anchors.size() + (cluster - o.clusters.begin())), own,
+                      own_var);
       continue;
     }
     if (o.use_known_mu && std::isfinite(mu)) {
@@ -260,12 +265,15 @@ Calibrators select_calibrators(const FitOptions& o, const RelationOptions& rel,
 }
 
 std::vector<FitData::GroupParallax> cluster_parallaxes(const FitOptions& o) {
-  const bool any = std::any_of(o.clusters.begin(), o.clusters.end(), [](const auto& k) { return k.has_parallax(); });
+  const bool any = std::any_of(o.clusters.begin(), o.clusters.end(),
+                               [](const auto& k) { return k.has_parallax(); });
   if (!any || o.space != FitSpace::kHierarchical) return {};
   std::vector<FitData::GroupParallax> groups(o.anchors.size());
   for (const ClusterOptions& k : o.clusters)
-    groups.push_back(k.has_parallax() ? FitData::GroupParallax{k.parallax_mas, k.parallax_err_mas * k.parallax_err_mas, 1.0}
-                                      : FitData::GroupParallax{});
+    groups.push_back(
+        k.has_parallax()
+            ? FitData::GroupParallax{k.parallax_mas, k.parallax_err_mas * k.parallax_err_mas, 1.0}
+            : FitData::GroupParallax{});
   return groups;
 }
 
@@ -316,10 +324,11 @@ void check_constrained(const FitOptions& o, const RelationOptions& rel, const Ca
   const std::vector<std::string> groups = o.group_names();
   for (std::size_t g = 0; g < groups.size(); ++g)
     if (std::count(c.data.group.begin(), c.data.group.end(), static_cast<int>(g)) == 0)
-      spdlog::warn("relation {}: {} {} has no star; its distance modulus is fitted to its {} alone", rel.name,
-                   kCalibratorKindNames.name(g < o.anchors.size() ? CalibratorKind::kAnchor : CalibratorKind::kCluster),
-                   groups[g],
-                   g < o.anchors.size() ? "prior" : "parallax or modulus");
+      spdlog::warn("relation {}: {} {} has no star; its distance modulus is fitted to its {} alone",
+                   rel.name,
+                   kCalibratorKindNames.name(g < o.anchors.size() ? CalibratorKind::kAnchor
+                                                                  : CalibratorKind::kCluster),
+                   groups[g], g < o.anchors.size() ? "prior" : "parallax or modulus");
 }
 
 }  // namespace rungcal::fit_parts

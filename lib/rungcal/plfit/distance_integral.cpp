@@ -40,8 +40,8 @@ ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double 
   return o;
 }
 
-double group_parallax_log_l(const std::vector<FitData::GroupParallax>& groups, const double* mu, double offset,
-                            double* d_mu, double& d_off) {
+double group_parallax_log_l(const std::vector<FitData::GroupParallax>& groups, const double* mu,
+                            double offset, double* d_mu, double& d_off) {
   double log_l = 0;
   for (std::size_t g = 0; g < groups.size(); ++g) {
     if (!(groups[g].var > 0) || groups[g].weight == 0) continue;

@@ -55,7 +55,7 @@ struct Component {
   double d_blend_scale = 0;  // the blend component's only
   // The coloured blend component's only (ColouredBlendMagnitude): d/d kappa, D and t.
   double d_blend_kappa = 0, d_blend_curvature = 0, d_blend_tilt = 0;
-  double d_prior_mu = 0;     // E[d ln p(mu) / d mu]: the histogram grid moves with alpha
+  double d_prior_mu = 0;  // E[d ln p(mu) / d mu]: the histogram grid moves with alpha
 };
 
 // A component's magnitude term at one residual r = m - mu - M: ln p(r) (normalised) and its
@@ -270,7 +270,7 @@ struct OwnParallax {
 // The clusters' own parallaxes, sum_g w_g ln N(pi_g | 10^(-0.2 (mu_g - 10)) + offset, var_g)
 // over the groups with var_g > 0 (mu: the groups' moduli in order): adds d/dmu_g to d_mu[g]
 // and d/doffset to d_off.
-double group_parallax_log_l(const std::vector<FitData::GroupParallax>& groups, const double* mu, double offset,
-                            double* d_mu, double& d_off);
+double group_parallax_log_l(const std::vector<FitData::GroupParallax>& groups, const double* mu,
+                            double offset, double* d_mu, double& d_off);
 
 }  // namespace rungcal::hier

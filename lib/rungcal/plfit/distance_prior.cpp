@@ -19,7 +19,8 @@ double digamma(double x) {
   const double inv = 1.0 / x, inv2 = inv * inv;
   // psi(x) ~ ln x - 1/(2x) - sum B_2n / (2n x^2n)
   const double series =
-      inv2 * (1.0 / 12 - inv2 * (1.0 / 120 - inv2 * (1.0 / 252 - inv2 * (1.0 / 240 - inv2 * (1.0 / 132)))));
+      inv2 * (1.0 / 12 -
+              inv2 * (1.0 / 120 - inv2 * (1.0 / 252 - inv2 * (1.0 / 240 - inv2 * (1.0 / 132)))));
   return shift + std::log(x) - 0.5 * inv - series;
 }
 
@@ -34,7 +35,8 @@ DistancePriorShape DistancePriorShape::make(double scale_kpc, double power, doub
   return s;
 }
 
-DistancePriorShape DistancePriorShape::make_histogram(double start, double step, const double* log_weights, int bins) {
+DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
+                                                      const double* log_weights, int bins) {
   DistancePriorShape s;
   s.histogram = true;
   s.start = start;
@@ -43,14 +45,15 @@ DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
   double top = 0;
   for (int j = 1; j < bins; ++j) top = std::max(top, log_weights[j - 1]);
   double sum = 0;
-  for (int j = 0; j < bins; ++j) sum += s.weight[static_cast<std::size_t>(j)] = std::exp((j ? log_weights[j - 1] : 0.0) - top);
+  for (int j = 0; j < bins; ++j)
+    sum += s.weight[static_cast<std::size_t>(j)] = std::exp((j ? log_weights[j - 1] : 0.0) - top);
   for (double& w : s.weight) w /= sum;
   s.log_kernel_norm = -std::log(step) - 0.9189385332046727418;  // ln(1 / (h sqrt(2 pi)))
   return s;
 }
 
 DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi, double* r,
-                                                   double& r_scale) const {
+                                                    double& r_scale) const {
   // In grid units z = (mu - c_0) / h; a bin 10 or more steps away adds exp(-50) of what the
   // nearest does (times their weights' ratio), so only kHistogramReach each side count.
   const int bins = static_cast<int>(weight.size());

@@ -58,7 +58,8 @@ struct DistancePriorShape {
   double log_kernel_norm = 0;  // ln of the bins' Gaussian normalisation, 1 / (h sqrt(2 pi))
   static DistancePriorShape make(double scale_kpc, double power, double exponent);
   // log_weights: eta_1 .. eta_(B-1) (eta_0 = 0).
-  static DistancePriorShape make_histogram(double start, double step, const double* log_weights, int bins);
+  static DistancePriorShape make_histogram(double start, double step, const double* log_weights,
+                                           int bins);
   // d_bins (histogram only, size B - 1): d ln p / d eta_j for j = 1 .. B-1, added to.
   DistancePriorTerms at(double mu, double* d_bins = nullptr, double scale = 1.0) const;
   // The histogram at mu, with each bin's responsibility w_j N_j / p for the bins lo..hi

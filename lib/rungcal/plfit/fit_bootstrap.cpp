@@ -50,7 +50,8 @@ std::vector<int> draw_clusters(const ModelTerms& terms, Random& rng) {
   std::vector<int> drawn;
   const int first = terms.n_anchors - terms.n_clusters;
   for (int k = 0; k < terms.n_clusters; ++k)
-    drawn.push_back(first + static_cast<int>(rng.below(static_cast<std::uint64_t>(terms.n_clusters))));
+    drawn.push_back(first +
+                    static_cast<int>(rng.below(static_cast<std::uint64_t>(terms.n_clusters))));
   return drawn;
 }
 
@@ -183,7 +184,8 @@ StarTable bootstrap_table(const FitResult& result) {
   t.add_column("relation", ColumnType::kText, "", "relation, or 'joint'");
   t.add_column("resample", ColumnType::kInteger, "", "resample index b (seeded per b)");
   t.add_column("parameter", ColumnType::kText);
-  t.add_column("value", ColumnType::kReal, "", "parameter's value in resample b (NaN: failed, or a cluster it did not draw)");
+  t.add_column("value", ColumnType::kReal, "",
+               "parameter's value in resample b (NaN: failed, or a cluster it did not draw)");
   auto add = [&](const std::string& relation, const std::vector<std::string>& names,
                  const Eigen::MatrixXd& samples) {
     for (Eigen::Index b = 0; b < samples.rows(); ++b)

@@ -75,7 +75,9 @@ FitSettings joint_settings(const FitOptions& o, const std::vector<RelationResult
   js.params[static_cast<std::size_t>(L.correlation)] = o.joint_scatter_correlation;
   start[L.correlation] = o.joint_scatter_correlation.value;
   for (int j : L.blend_ratio)
-    if (j >= 0) js.params[static_cast<std::size_t>(j)] = o.joint_blend_ratio, start[j] = o.joint_blend_ratio.value;
+    if (j >= 0)
+      js.params[static_cast<std::size_t>(j)] = o.joint_blend_ratio,
+      start[j] = o.joint_blend_ratio.value;
   // The histogram's grid: the first relation's, where its fit left it, moving from here on
   // with the mean of the alphas.
   double alpha_mean = 0;
@@ -108,7 +110,8 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   Eigen::VectorXd start;
   FitSettings js = joint_settings(o, fits, L, shared_source(fits, feh_errors), start);
   if (!jr.data.has_parallax())
-    js.params[static_cast<std::size_t>(L.offset)].mode = ParamMode::kFixed;  // nothing constrains it
+    js.params[static_cast<std::size_t>(L.offset)].mode =
+        ParamMode::kFixed;  // nothing constrains it
   jr.settings = js;
   const FitSolution sol = solve_joint_hierarchical(jr.data, js, L, start);
   if (!sol.theta.allFinite())
@@ -147,9 +150,11 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   relaxed.preconditioner = metric;
   relaxed.function_tolerance = 1e-9;
   relaxed.parameter_tolerance = 1e-8;
-  const AnchorBlock anchors{L.anchor0, L.n_anchors - js.terms.n_clusters, js.anchor_prior_correlation};
+  const AnchorBlock anchors{L.anchor0, L.n_anchors - js.terms.n_clusters,
+                            js.anchor_prior_correlation};
   run_joint_bootstrap(
-      o, jr, [&](const JointData& sample, Random& rng) -> std::optional<Eigen::VectorXd> {
+      o, jr,
+      [&](const JointData& sample, Random& rng) -> std::optional<Eigen::VectorXd> {
         FitSettings drawn = relaxed;
         redraw_prior_centres(drawn.params, anchors,
                              rng);  // the priors' spread, as the covariance has it

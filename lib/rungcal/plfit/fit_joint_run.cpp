@@ -40,8 +40,8 @@ double coefficient_of(const StarTable* coefficients, const std::string& name) {
 
 }  // namespace
 
-JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
-                        const StarTable* coefficients) {
+JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits,
+                        const StarTable& cat, const StarTable* coefficients) {
   JointData d;
   // Entries: every relation in which a star was used, as whichever kind of calibrator.
   d.relations = static_cast<int>(fits.size());
@@ -63,7 +63,9 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
     for (std::size_t r = 0; r < fits.size(); ++r) {
       const StarOutcome& s = fits[r].stars[row];
       if (!s.used) continue;
-      int k = s.kind == CalibratorKind::kParallax ? 0 : (s.kind == CalibratorKind::kKnownDistance ? 1 : 2);
+      int k = s.kind == CalibratorKind::kParallax
+                  ? 0
+                  : (s.kind == CalibratorKind::kKnownDistance ? 1 : 2);
       if (kind >= 0 && k != kind) continue;  // the same star is the same kind in every relation
       kind = k;
       if (added == 0) d.first.push_back(static_cast<int>(d.relation.size()));
@@ -102,7 +104,8 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
   return d;
 }
 
-void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve, bool counted) {
+void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve,
+                         bool counted) {
   if (o.joint_resamples() <= 0) return;
   const JointData& d = jr.data;
   ModelTerms terms;
@@ -122,10 +125,12 @@ void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSample
   auto resample = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
     std::vector<int> stars;
     for (const auto& [key, members] : strata)
-      for (std::size_t k = 0; k < members.size(); ++k) stars.push_back(members[rng.below(members.size())]);
+      for (std::size_t k = 0; k < members.size(); ++k)
+        stars.push_back(members[rng.below(members.size())]);
     const std::vector<int> drawn = draw_clusters(terms, rng);
     for (int g : drawn)
-      if (auto it = clusters.find(g); it != clusters.end()) stars.insert(stars.end(), it->second.begin(), it->second.end());
+      if (auto it = clusters.find(g); it != clusters.end())
+        stars.insert(stars.end(), it->second.begin(), it->second.end());
     JointData sample = counted ? d.take_counted(stars) : d.take(stars);
     weigh_cluster_parallaxes(terms, drawn, sample.group_plx);
     std::optional<Eigen::VectorXd> theta = solve(sample, rng);
@@ -134,15 +139,18 @@ void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSample
   };
   FitOptions resampled = o;
   resampled.bootstrap = o.joint_resamples();
-  jr.bootstrap = parallel_bootstrap(resampled, jr.layout.size, "joint", resample, jr.bootstrap_failed);
+  jr.bootstrap =
+      parallel_bootstrap(resampled, jr.layout.size, "joint", resample, jr.bootstrap_failed);
 }
 
 void check_joint_sample(const FitOptions& o, const StarTable* coefficients, JointResult& jr) {
   jr.stars = jr.data.stars();
   if (jr.stars < 3)
-    throw InputError({o.input_path, {}, {}}, "too_few_calibrators", "the joint fit has fewer than 3 calibrators");
+    throw InputError({o.input_path, {}, {}}, "too_few_calibrators",
+                     "the joint fit has fewer than 3 calibrators");
   if (!coefficients)
-    jr.warnings.push_back("no COEFFS table: E(B-V) errors are taken as independent between relations");
+    jr.warnings.push_back(
+        "no COEFFS table: E(B-V) errors are taken as independent between relations");
 }
 
 JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
@@ -153,7 +161,8 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   JointResult jr;
   jr.method = "gls";
   jr.warnings.push_back(
-      "the GLS joint fit is biased on realistic data (docs/method.md); the hierarchical space fits the relations "
+      "the GLS joint fit is biased on realistic data (docs/method.md); the hierarchical space fits "
+      "the relations "
       "jointly without that bias");
   std::vector<bool> metallicity;
   for (const auto& rr : fits) {
@@ -168,8 +177,10 @@ JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fi
   js.loss_scale = o.loss_scale;
   js.scatter_correlation = o.joint_scatter_correlation.value;
   js.fixed.assign(L.size, false);
-  for (std::size_t g = 0; g < o.anchors.size(); ++g) js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_prior_sigma(g));
-  // Clusters, by their modulus prior (ClusterOptions::modulus_prior), are independent of the anchors.
+  for (std::size_t g = 0; g < o.anchors.size(); ++g)
+    js.anchor_priors.emplace_back(o.anchors[g].mu, o.anchor_prior_sigma(g));
+  // Clusters, by their modulus prior (ClusterOptions::modulus_prior), are independent of the
+  // anchors.
   for (const ClusterOptions& k : o.clusters) js.anchor_priors.push_back(k.modulus_prior());
   if (o.anchor_covariance.size()) {
     const auto n = static_cast<Eigen::Index>(anchor_names.size()), a = o.anchor_covariance.rows();

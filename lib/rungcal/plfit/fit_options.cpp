@@ -111,9 +111,11 @@ std::string FitOptions::check() const {
   if (std::string e = check_domain("fit.outlier_mag_shift", outlier_shift, -100.0, false, 100.0);
       !e.empty())
     return e;
-  if (std::string e = check_domain("fit.blend_fraction", blend_fraction, 0.0, true, 1.0); !e.empty())
+  if (std::string e = check_domain("fit.blend_fraction", blend_fraction, 0.0, true, 1.0);
+      !e.empty())
     return e;
-  if (std::string e = check_domain("fit.blend_scale_mag", blend_scale, 0.0, false, 10.0); !e.empty())
+  if (std::string e = check_domain("fit.blend_scale_mag", blend_scale, 0.0, false, 10.0);
+      !e.empty())
     return e;
   if (!(hierarchical.blend_min_mag >= 0 && hierarchical.blend_min_mag <= 5))
     return "fit.blend_min_mag: must be 0 to 5 mag";
@@ -123,7 +125,8 @@ std::string FitOptions::check() const {
   if (joint && space != FitSpace::kParallax && !hier)
     return "fit.joint: the joint fit works in parallax space";
   if (hier) {
-    if (std::string e = check_domain("fit.joint_scatter_correlation", joint_scatter_correlation, -1.0, false, 1.0);
+    if (std::string e = check_domain("fit.joint_scatter_correlation", joint_scatter_correlation,
+                                     -1.0, false, 1.0);
         !e.empty())
       return e;
     if (std::string e = check_domain("fit.joint_blend_ratio", joint_blend_ratio, 0.0, false, 20.0);
@@ -161,13 +164,17 @@ std::string FitOptions::check() const {
   }
   if (std::string why = check_clusters(); !why.empty()) return why;
   if (anchor_covariance.size()) {
-    if (std::string why = check_anchor_covariance(anchor_covariance, static_cast<int>(anchors.size())); !why.empty())
+    if (std::string why =
+            check_anchor_covariance(anchor_covariance, static_cast<int>(anchors.size()));
+        !why.empty())
       return why;
     for (std::size_t g = 0; g < anchors.size(); ++g) {
       const double diag = anchor_prior_sigma(g);
       if (anchors[g].mu_err > 0 && std::abs(anchors[g].mu_err - diag) > 0.01 * diag)
-        return fmt::format("anchor.mu_err: {} differs from the square root of anchor_covariance's diagonal, {:.6g} ({})",
-                           anchors[g].mu_err, diag, anchors[g].group);
+        return fmt::format(
+            "anchor.mu_err: {} differs from the square root of anchor_covariance's diagonal, "
+            "{:.6g} ({})",
+            anchors[g].mu_err, diag, anchors[g].group);
     }
     return "";
   }
@@ -181,38 +188,45 @@ std::string FitOptions::check_clusters() const {
     return "fit.cluster_member_max_sigma: must be 0 (no cut) or positive";
   std::vector<std::string> names = group_names();
   for (std::size_t i = 0; i < names.size(); ++i) {
-    if (names[i].empty()) return "cluster.group: required (the catalog's group value of its members)";
+    if (names[i].empty())
+      return "cluster.group: required (the catalog's group value of its members)";
     if (std::count(names.begin(), names.end(), names[i]) > 1)
-      return fmt::format("cluster.group: '{}' names two groups (each [[anchor]] and [[cluster]] needs its own)",
-                         names[i]);
+      return fmt::format(
+          "cluster.group: '{}' names two groups (each [[anchor]] and [[cluster]] needs its own)",
+          names[i]);
   }
   for (const ClusterOptions& k : clusters) {
     if (!k.has_parallax() && !k.has_modulus())
-      return fmt::format("cluster.parallax_mas: cluster {} needs a parallax (parallax_mas, parallax_err_mas) or a "
-                         "distance modulus (mu, mu_err)",
-                         k.group);
+      return fmt::format(
+          "cluster.parallax_mas: cluster {} needs a parallax (parallax_mas, parallax_err_mas) or a "
+          "distance modulus (mu, mu_err)",
+          k.group);
     if (k.has_parallax() && !(k.parallax_err_mas > 0 && std::isfinite(k.parallax_err_mas)))
       return fmt::format("cluster.parallax_err_mas: must be positive (cluster {})", k.group);
     if (k.has_parallax() && !(std::abs(k.parallax_mas) < 1000))
-      return fmt::format("cluster.parallax_mas: {} mas is not a cluster's parallax (cluster {})", k.parallax_mas,
-                         k.group);
+      return fmt::format("cluster.parallax_mas: {} mas is not a cluster's parallax (cluster {})",
+                         k.parallax_mas, k.group);
     if (k.has_modulus() && !(k.mu_err > 0 && std::isfinite(k.mu_err)))
       return fmt::format("cluster.mu_err: must be positive (cluster {})", k.group);
     if (k.has_modulus() && !(k.mu > -5 && k.mu < 40))
-      return fmt::format("cluster.mu: {} mag is not a distance modulus (cluster {})", k.mu, k.group);
+      return fmt::format("cluster.mu: {} mag is not a distance modulus (cluster {})", k.mu,
+                         k.group);
     if (k.has_parallax() && !k.has_modulus() && space != FitSpace::kHierarchical &&
         !(k.parallax_mas > 10 * k.parallax_err_mas))
-      return fmt::format("cluster.parallax_mas: outside space = \"hierarchical\" a cluster's parallax becomes a "
-                         "modulus prior, which needs a parallax S/N of 10 or more (cluster {} has {:.1f}); give its "
-                         "modulus (mu, mu_err) or fit in the hierarchical space",
-                         k.group, k.parallax_mas / k.parallax_err_mas);
+      return fmt::format(
+          "cluster.parallax_mas: outside space = \"hierarchical\" a cluster's parallax becomes a "
+          "modulus prior, which needs a parallax S/N of 10 or more (cluster {} has {:.1f}); give "
+          "its "
+          "modulus (mu, mu_err) or fit in the hierarchical space",
+          k.group, k.parallax_mas / k.parallax_err_mas);
   }
   return "";
 }
 
 std::pair<double, double> ClusterOptions::modulus_prior() const {
   if (has_modulus()) return {mu, mu_err};
-  return {10.0 - 5.0 * std::log10(parallax_mas), 5.0 / std::log(10.0) * parallax_err_mas / parallax_mas};
+  return {10.0 - 5.0 * std::log10(parallax_mas),
+          5.0 / std::log(10.0) * parallax_err_mas / parallax_mas};
 }
 
 std::vector<std::string> FitOptions::group_names() const {
@@ -270,7 +284,8 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.hierarchical.outlier_parallax_factor =
       f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
   o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
-  o.hierarchical.blends = choice_or(*f, "blend_component", kBlendComponentNames, o.hierarchical.blends);
+  o.hierarchical.blends =
+      choice_or(*f, "blend_component", kBlendComponentNames, o.hierarchical.blends);
   o.hierarchical.blend_min_mag = f->number_or("blend_min_mag", o.hierarchical.blend_min_mag);
   o.blend_fraction = param_from(*f, "blend_fraction", o.blend_fraction);
   o.blend_scale = param_from(*f, "blend_scale_mag", o.blend_scale);
@@ -283,17 +298,20 @@ FitOptions fit_options_from_file(const std::string& path) {
       choice_or(*f, "scatter_estimator", kScatterEstimatorNames, o.scatter_estimator);
   o.joint = f->bool_or("joint", o.joint);
   o.joint_shared_slope = f->bool_or("joint_shared_slope", o.joint_shared_slope);
-  o.joint_scatter_correlation = param_from(*f, "joint_scatter_correlation", o.joint_scatter_correlation);
+  o.joint_scatter_correlation =
+      param_from(*f, "joint_scatter_correlation", o.joint_scatter_correlation);
   o.joint_blend_ratio = param_from(*f, "joint_blend_ratio", o.joint_blend_ratio);
   // Checked as read: 2^31-1 used to wrap to a negative count or ask for 30 GB.
   const std::int64_t bootstrap = f->integer_or("bootstrap", o.bootstrap);
   if (bootstrap < 0 || bootstrap > kMaxBootstrap)
-    f->fail("bootstrap", fmt::format("must be 0 to {} resamples, not {}", kMaxBootstrap, bootstrap));
+    f->fail("bootstrap",
+            fmt::format("must be 0 to {} resamples, not {}", kMaxBootstrap, bootstrap));
   o.bootstrap = static_cast<int>(bootstrap);
   const std::int64_t joint_bootstrap = f->integer_or("joint_bootstrap", o.joint_bootstrap);
   if (joint_bootstrap < -1 || joint_bootstrap > kMaxBootstrap)
-    f->fail("joint_bootstrap", fmt::format("must be 0 to {} resamples, or -1 (as bootstrap), not {}", kMaxBootstrap,
-                                           joint_bootstrap));
+    f->fail("joint_bootstrap",
+            fmt::format("must be 0 to {} resamples, or -1 (as bootstrap), not {}", kMaxBootstrap,
+                        joint_bootstrap));
   o.joint_bootstrap = static_cast<int>(joint_bootstrap);
   o.seed = static_cast<std::uint64_t>(f->integer_or("seed", static_cast<std::int64_t>(o.seed)));
   o.threads = static_cast<int>(f->integer_or("threads", o.threads));
@@ -343,9 +361,12 @@ FitOptions fit_options_from_file(const std::string& path) {
     o.anchor_covariance.resize(n, n);
     for (Eigen::Index i = 0; i < n; ++i) {
       if (static_cast<Eigen::Index>((*rows)[static_cast<std::size_t>(i)].size()) != n)
-        f->fail("anchor_covariance", fmt::format("row {} has {} entries; the matrix must be square ({} x {})", i + 1,
-                                                 (*rows)[static_cast<std::size_t>(i)].size(), n, n));
-      for (Eigen::Index k = 0; k < n; ++k) o.anchor_covariance(i, k) = (*rows)[static_cast<std::size_t>(i)][static_cast<std::size_t>(k)];
+        f->fail("anchor_covariance",
+                fmt::format("row {} has {} entries; the matrix must be square ({} x {})", i + 1,
+                            (*rows)[static_cast<std::size_t>(i)].size(), n, n));
+      for (Eigen::Index k = 0; k < n; ++k)
+        o.anchor_covariance(i, k) =
+            (*rows)[static_cast<std::size_t>(i)][static_cast<std::size_t>(k)];
     }
   }
   c.check_unknown_keys();
@@ -354,7 +375,8 @@ FitOptions fit_options_from_file(const std::string& path) {
 }
 
 std::string fit_residuals_path(const FitOptions& o) {
-  return o.residuals_path.empty() ? path_beside(o.output_path, "_residuals.fits") : o.residuals_path;
+  return o.residuals_path.empty() ? path_beside(o.output_path, "_residuals.fits")
+                                  : o.residuals_path;
 }
 
 StageFiles declared_files(const FitOptions& o) {

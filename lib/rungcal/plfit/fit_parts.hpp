@@ -80,21 +80,23 @@ std::vector<double> bootstrap_column(const RelationResult& rr, int j);
 StarTable bootstrap_table(const FitResult& result);
 
 // The calibrators used in any of the relations, each with its entries (fit_joint_run.cpp).
-JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits, const StarTable& cat,
-                        const StarTable* coefficients);
+JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits,
+                        const StarTable& cat, const StarTable* coefficients);
 // The joint fit's bootstrap (FitOptions::joint_resamples()): jr.data's stars resampled
-// within their strata (parallax, known distance, each anchor galaxy; clusters whole), each sample solved by
-// `solve` (nullopt: failed); fills jr.bootstrap and jr.bootstrap_failed. counted: each drawn
-// star once with its number of draws as its weight (JointData::take_counted), for a
+// within their strata (parallax, known distance, each anchor galaxy; clusters whole), each sample
+// solved by `solve` (nullopt: failed); fills jr.bootstrap and jr.bootstrap_failed. counted: each
+// drawn star once with its number of draws as its weight (JointData::take_counted), for a
 // likelihood that honours JointData::weight.
-using JointSampleSolve = std::function<std::optional<Eigen::VectorXd>(const JointData& sample, Random& rng)>;
-void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve, bool counted);
+using JointSampleSolve =
+    std::function<std::optional<Eigen::VectorXd>(const JointData& sample, Random& rng)>;
+void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSampleSolve& solve,
+                         bool counted);
 // Counts jr.data's stars (too few: InputError) and warns without a COEFFS table.
 void check_joint_sample(const FitOptions& o, const StarTable* coefficients, JointResult& jr);
 // The hierarchical joint fit (joint_hierarchical.hpp) on those calibrators, started from the
 // relations' own fits (fit_joint_hierarchical.cpp).
-JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<RelationResult>& fits, JointData data,
-                                   const StarTable* coefficients);
+JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<RelationResult>& fits,
+                                   JointData data, const StarTable* coefficients);
 // The relations fitted together (FitOptions::joint).
 JointResult run_joint(const FitOptions& o, const std::vector<RelationResult>& fits,
                       const StarTable& cat, const StarTable* coefficients);

@@ -48,7 +48,10 @@ nlohmann::json clusters_json(const FitOptions& o, const RelationResult& rr) {
       if (s.group != k.group) continue;
       used += s.used ? 1 : 0;
       with_parallax += s.used && s.member_parallax ? 1 : 0;
-      members.push_back({{"id", s.id}, {"used", s.used}, {"own_parallax", s.member_parallax}, {"reason", s.reason}});
+      members.push_back({{"id", s.id},
+                         {"used", s.used},
+                         {"own_parallax", s.member_parallax},
+                         {"reason", s.reason}});
     }
     const std::string name = "mu_" + k.group;
     const double err = rr.error(name);
@@ -103,7 +106,8 @@ FitRelationRecord relation_record(const RelationResult& rr) {
   for (int i = 0; i < rr.layout.size; ++i) {
     std::vector<double> row;
     for (int j = 0; j < rr.layout.size; ++j)
-      row.push_back(rr.covariance_ok ? rr.covariance(i, j) : std::numeric_limits<double>::quiet_NaN());
+      row.push_back(rr.covariance_ok ? rr.covariance(i, j)
+                                     : std::numeric_limits<double>::quiet_NaN());
     r.covariance.push_back(row);
   }
   for (const auto& s : rr.stars) {
@@ -190,8 +194,9 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
         {"fundamentalize", rr.relation.fundamentalize},
         {"log_period_range",
          {finite_or_null(rr.relation.min_log_period), finite_or_null(rr.relation.max_log_period)}},
-        {"magnitude_column", rr.relation.magnitude_column.empty() ? dereddened_magnitude_column(rr.relation.band)
-                                                                  : rr.relation.magnitude_column},
+        {"magnitude_column", rr.relation.magnitude_column.empty()
+                                 ? dereddened_magnitude_column(rr.relation.band)
+                                 : rr.relation.magnitude_column},
         {"slope",
          {{"mode", std::string(kParamModeNames.name(rr.relation.slope.mode))},
           {"value", rr.relation.slope.value},
@@ -212,28 +217,29 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     int rejected = 0;
     for (const auto& s : rr.stars) rejected += s.used ? 0 : 1;
     r[fit_key::kStatistics] = {{"chi2", rr.chi2},
-                       {"dof", rr.dof},
-                       {fit_key::kNUsed, rr.n_used},
-                       {"n_rejected", rejected},
-                       {"n_clipped", rr.n_clipped},
-                       {"n_free_parameters", rr.n_free},
-                       {"neg2_log_likelihood", rr.neg2_log_likelihood},
-                       {"aic", rr.aic},
-                       {"bic", rr.bic},
-                       {"bootstrap_resamples", rr.bootstrap.rows()},
-                       {"bootstrap_failed", rr.bootstrap_failed}};
+                               {"dof", rr.dof},
+                               {fit_key::kNUsed, rr.n_used},
+                               {"n_rejected", rejected},
+                               {"n_clipped", rr.n_clipped},
+                               {"n_free_parameters", rr.n_free},
+                               {"neg2_log_likelihood", rr.neg2_log_likelihood},
+                               {"aic", rr.aic},
+                               {"bic", rr.bic},
+                               {"bootstrap_resamples", rr.bootstrap.rows()},
+                               {"bootstrap_failed", rr.bootstrap_failed}};
     r[fit_key::kSolver] = {{"termination", rr.solution.termination},
-                   {"message", rr.solution.message},
-                   {"iterations", rr.solution.iterations},
-                   {"usable", rr.solution.usable},
-                   {"brief_report", rr.solution.brief_report}};
+                           {"message", rr.solution.message},
+                           {"iterations", rr.solution.iterations},
+                           {"usable", rr.solution.usable},
+                           {"brief_report", rr.solution.brief_report}};
     r[fit_key::kClusters] = clusters_json(o, rr);
     r[fit_key::kWarnings] = rr.warnings;
     r[fit_key::kUndetermined] = rr.undetermined;
     if (rr.layout.distance_bin0 >= 0)
-      r[fit_key::kDistancePriorGrid] = {{"first_modulus", histogram_start_at(rr.settings.hierarchical, rr.parameter("alpha"))},
-                                  {"step_mag", rr.settings.hierarchical.histogram_step},
-                                  {"bins", rr.layout.distance_bins + 1}};
+      r[fit_key::kDistancePriorGrid] = {
+          {"first_modulus", histogram_start_at(rr.settings.hierarchical, rr.parameter("alpha"))},
+          {"step_mag", rr.settings.hierarchical.histogram_step},
+          {"bins", rr.layout.distance_bins + 1}};
     out[fit_key::kRelations].push_back(r);
   }
   if (joint) {
@@ -244,9 +250,10 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     j["shared_slope"] = o.joint_shared_slope;
     j["scatter_correlation"] = joint->layout.correlation >= 0 ? js.theta[joint->layout.correlation]
                                                               : o.joint_scatter_correlation.value;
-    j["scatter_correlation_mode"] = joint->layout.correlation >= 0
-                                        ? std::string(kParamModeNames.name(o.joint_scatter_correlation.mode))
-                                        : std::string("fixed");
+    j["scatter_correlation_mode"] =
+        joint->layout.correlation >= 0
+            ? std::string(kParamModeNames.name(o.joint_scatter_correlation.mode))
+            : std::string("fixed");
     j[fit_key::kParameterNames] = joint->layout.names;
     for (int p = 0; p < joint->layout.size; ++p) {
       double e = js.covariance_ok ? std::sqrt(std::max(0.0, js.covariance(p, p))) : std::nan("");
@@ -272,17 +279,17 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     }
     j[fit_key::kCovariance] = cov;
     j[fit_key::kStatistics] = {{"chi2", finite_or_null(js.chi2)},
-                       {"neg2_log_likelihood", finite_or_null(joint->neg2_log_likelihood)},
-                       {"n_stars", joint->stars},
-                       {"n_entries", js.entries},
-                       {"n_free_parameters", joint->n_free},
-                       {"dof", js.entries - joint->n_free},
-                       {"bootstrap_resamples", joint->bootstrap.rows()},
-                       {"bootstrap_failed", joint->bootstrap_failed}};
+                               {"neg2_log_likelihood", finite_or_null(joint->neg2_log_likelihood)},
+                               {"n_stars", joint->stars},
+                               {"n_entries", js.entries},
+                               {"n_free_parameters", joint->n_free},
+                               {"dof", js.entries - joint->n_free},
+                               {"bootstrap_resamples", joint->bootstrap.rows()},
+                               {"bootstrap_failed", joint->bootstrap_failed}};
     j[fit_key::kSolver] = {{"termination", js.termination},
-                   {"message", js.message},
-                   {"iterations", js.iterations},
-                   {"usable", js.usable}};
+                           {"message", js.message},
+                           {"iterations", js.iterations},
+                           {"usable", js.usable}};
     j[fit_key::kWarnings] = joint->warnings;
     j[fit_key::kUndetermined] = joint->undetermined;
     // Stars the mixture gives less than even odds of being members, with the relations' ids.
@@ -291,7 +298,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
       if (joint->membership[i] < 0.5) {
         const std::size_t row = joint->data.row[i];
         const std::string id = relations.empty() ? "" : relations[0].stars[row].id;
-        j["likely_outliers"].push_back({{"row", row}, {"id", id}, {"membership", joint->membership[i]}});
+        j["likely_outliers"].push_back(
+            {{"row", row}, {"id", id}, {"membership", joint->membership[i]}});
       }
     out[fit_key::kJoint] = j;
   }
@@ -305,8 +313,8 @@ std::string fit_summary(const FitResult& result) {
     std::string names;
     for (const auto& n : j.relations) names += (names.empty() ? "" : " + ") + n;
     if (j.method == "hierarchical")
-      out += fmt::format("joint ({}, hierarchical): {} stars, {} magnitudes, -2 ln L = {:.2f}\n", names, j.stars,
-                         j.solution.entries, j.neg2_log_likelihood);
+      out += fmt::format("joint ({}, hierarchical): {} stars, {} magnitudes, -2 ln L = {:.2f}\n",
+                         names, j.stars, j.solution.entries, j.neg2_log_likelihood);
     else
       out += fmt::format("joint ({}): {} stars, {} magnitudes, chi2 = {:.2f}\n", names, j.stars,
                          j.solution.entries, j.solution.chi2);

@@ -59,7 +59,8 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
   s.params[L.offset] = o.offset;
   s.params[L.sigma] = o.scatter;
   for (std::size_t g = 0; g < o.anchors.size(); ++g)
-    s.params[L.anchor0 + static_cast<int>(g)] = ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchor_prior_sigma(g), true};
+    s.params[L.anchor0 + static_cast<int>(g)] =
+        ParamSpec{ParamMode::kPrior, o.anchors[g].mu, o.anchor_prior_sigma(g), true};
   if (o.anchor_covariance.size()) s.anchor_prior_correlation = correlation_of(o.anchor_covariance);
   for (std::size_t k = 0; k < o.clusters.size(); ++k) {
     const ClusterOptions& cl = o.clusters[k];

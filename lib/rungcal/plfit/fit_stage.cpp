@@ -19,13 +19,12 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
-#include "rungcal/photometry/photometry.hpp"
 #include "rungcal/core/random.hpp"
+#include "rungcal/photometry/photometry.hpp"
 #include "rungcal/plfit/hierarchical.hpp"
 #include "rungcal/plfit/sandwich.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
-
 
 namespace rungcal {
 using namespace fit_parts;
@@ -47,7 +46,8 @@ void fill_star_residuals(RelationResult& rr, const Calibrators& c) {
   rr.chi2 = res.r.square().sum();
   rr.neg2_log_likelihood =
       rr.settings.space == FitSpace::kHierarchical
-          ? 2.0 * hierarchical_value(c.data, rr.settings, rr.layout, rr.solution.theta).neg_log_likelihood
+          ? 2.0 * hierarchical_value(c.data, rr.settings, rr.layout, rr.solution.theta)
+                      .neg_log_likelihood
           : (res.r.square() + (2.0 * std::numbers::pi * res.s2).log()).sum();
   rr.n_used = static_cast<int>(order.size());
   rr.n_free = 0;
@@ -59,10 +59,13 @@ void fill_star_residuals(RelationResult& rr, const Calibrators& c) {
 
 }  // namespace
 
-double RelationResult::parameter(const std::string& name) const { return solution.theta[index_of(layout, name)]; }
+double RelationResult::parameter(const std::string& name) const {
+  return solution.theta[index_of(layout, name)];
+}
 double RelationResult::error(const std::string& name) const {
   int j = index_of(layout, name);
-  if (!covariance_ok || !std::isfinite(covariance(j, j))) return std::numeric_limits<double>::quiet_NaN();
+  if (!covariance_ok || !std::isfinite(covariance(j, j)))
+    return std::numeric_limits<double>::quiet_NaN();
   return std::sqrt(std::max(0.0, covariance(j, j)));
 }
 double RelationResult::bootstrap_error(const std::string& name) const {
@@ -84,16 +87,18 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     Calibrators c = select_calibrators(o, rel, cat, tools, o.offset);
     const bool hierarchical = o.space == FitSpace::kHierarchical;
     HierarchicalSettings grid = o.hierarchical;
-    const int bins = hierarchical && o.hierarchical.prior == DistancePriorFamily::kSmoothHistogram &&
+    const int bins = hierarchical &&
+                             o.hierarchical.prior == DistancePriorFamily::kSmoothHistogram &&
                              c.data.parallax.size() > 0
                          ? histogram_grid(c.data, grid)
                          : 0;
-    rr.layout = ParameterLayout::for_terms(ModelTerms{rel.pivot_log_period, rel.break_log_period.has_value(),
-                                                      rel.break_log_period.value_or(0.0), rel.metallicity,
-                                                      static_cast<int>(anchor_names.size()), hierarchical,
-                                                      hierarchical && rel.metallicity && has_feh_errors(c.data), bins,
-                                                      hierarchical && o.hierarchical.blends != BlendComponent::kNone},
-                                           anchor_names);
+    rr.layout = ParameterLayout::for_terms(
+        ModelTerms{rel.pivot_log_period, rel.break_log_period.has_value(),
+                   rel.break_log_period.value_or(0.0), rel.metallicity,
+                   static_cast<int>(anchor_names.size()), hierarchical,
+                   hierarchical && rel.metallicity && has_feh_errors(c.data), bins,
+                   hierarchical && o.hierarchical.blends != BlendComponent::kNone},
+        anchor_names);
     rr.settings = settings_for(o, rel, rr.layout);
     rr.settings.hierarchical = grid;
     hold_unconstrained(c, rr);
@@ -101,13 +106,16 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     if (!hierarchical)
       for (const ClusterOptions& k : o.clusters)
         if (k.has_parallax())
-          rr.warnings.push_back(
-              k.has_modulus()
-                  ? fmt::format("cluster {}: its parallax is used in the hierarchical space only; here its modulus is",
-                                k.group)
-                  : fmt::format("cluster {}: its parallax enters as the modulus prior {:.3f} +- {:.3f} it implies, "
-                                "without the parallax offset; the hierarchical space fits it with the offset",
-                                k.group, k.modulus_prior().first, k.modulus_prior().second));
+          rr.warnings.push_back(k.has_modulus()
+                                    ? fmt::format("cluster {}: its parallax is used in the "
+                                                  "hierarchical space only; here its modulus is",
+                                                  k.group)
+                                    : fmt::format("cluster {}: its parallax enters as the modulus "
+                                                  "prior {:.3f} +- {:.3f} it implies, "
+                                                  "without the parallax offset; the hierarchical "
+                                                  "space fits it with the offset",
+                                                  k.group, k.modulus_prior().first,
+                                                  k.modulus_prior().second));
     check_constrained(o, rel, c, rr.settings, rr.layout);
     if (o.space == FitSpace::kMagnitude) {
       int noisy = 0;
@@ -115,7 +123,8 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
         noisy += std::sqrt(c.data.var_plx[i]) > 0.1 * c.data.plx[i] ? 1 : 0;
       if (noisy > 0) {
         rr.warnings.push_back(fmt::format(
-            "{} of {} parallax stars have sigma_pi/pi > 0.1: a magnitude-space fit of such parallaxes is biased "
+            "{} of {} parallax stars have sigma_pi/pi > 0.1: a magnitude-space fit of such "
+            "parallaxes is biased "
             "(Lutz-Kelker) and drops non-positive parallaxes; fit in parallax space instead",
             noisy, c.data.parallax.size()));
       }
@@ -161,30 +170,36 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     }
     c.data = data;
     if (!rr.solution.theta.allFinite() || !std::isfinite(rr.solution.cost))
-      throw InputError({o.input_path, {}, {}}, "degenerate_fit",
-                       fmt::format("relation {}: the fit has no finite solution ({}); look for absurd values among the "
-                                   "calibrators (parallax, period, [Fe/H]) or the zero-point table",
-                                   rel.name, rr.solution.message));
+      throw InputError(
+          {o.input_path, {}, {}}, "degenerate_fit",
+          fmt::format(
+              "relation {}: the fit has no finite solution ({}); look for absurd values among the "
+              "calibrators (parallax, period, [Fe/H]) or the zero-point table",
+              rel.name, rr.solution.message));
     if (!rr.solution.usable)
       rr.warnings.push_back("the solver did not reach a usable solution: " + rr.solution.message);
     if (hierarchical) {
       // The Hessian also gives the bootstrap's metric: each resample's optimum is near the
       // full sample's, and so is its curvature, which BFGS then need not learn.
-      rr.covariance_ok = hierarchical_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance,
-                                                 rr.undetermined, &rr.settings.preconditioner);
+      rr.covariance_ok =
+          hierarchical_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance,
+                                  rr.undetermined, &rr.settings.preconditioner);
     } else {
-      rr.covariance_ok = fit_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);
+      rr.covariance_ok =
+          fit_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);
       // A robust loss is not the data's likelihood: its inverse Hessian understates the
       // spread of the estimates, the sandwich does not.
       Eigen::MatrixXd sandwich;
       if (o.loss != LossKind::kNone && rr.covariance_ok &&
-          sandwich_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance, sandwich)) {
+          sandwich_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance,
+                              sandwich)) {
         rr.covariance = sandwich;
         rr.covariance_method = "sandwich";
       }
       // A redescending loss gives a star beyond its scale no weight at all, so the Gaussian
       // likelihood of the rest drives sigma_int down: it is not an estimate of the scatter.
-      if (o.loss == LossKind::kTukey && o.scatter.mode != ParamMode::kFixed) rr.undetermined.push_back("sigma_int");
+      if (o.loss == LossKind::kTukey && o.scatter.mode != ParamMode::kFixed)
+        rr.undetermined.push_back("sigma_int");
     }
     for (const auto& name : rr.undetermined) {
       const int j = index_of(rr.layout, name);
@@ -192,7 +207,8 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
       rr.covariance.col(j).setConstant(std::numeric_limits<double>::quiet_NaN());
       rr.warnings.push_back(undetermined_reason(name, rr.solution.theta[j]));
     }
-    if (!rr.covariance_ok) rr.warnings.push_back("the covariance could not be computed (degenerate parameters?)");
+    if (!rr.covariance_ok)
+      rr.warnings.push_back("the covariance could not be computed (degenerate parameters?)");
     fill_star_residuals(rr, c);
     run_bootstrap(o, rr, data);
     for (const auto& w : rr.warnings) spdlog::warn("relation {}: {}", rel.name, w);
@@ -215,39 +231,50 @@ FitResult fit_catalog_file(const FitOptions& o) {
   FitResult result = run_fit(o, in.table, coeffs ? &coeffs->table : nullptr);
   result.provenance = Provenance::for_stage("fit");
   result.provenance.config_sha256 = o.config_sha256;
-  for (const auto& [keyword, field] : {std::pair{"RGLAW", "law"}, std::pair{"RGRV", "r_v"}, std::pair{"RGBNDSHA", "band_table_sha256"}})
+  for (const auto& [keyword, field] : {std::pair{"RGLAW", "law"}, std::pair{"RGRV", "r_v"},
+                                       std::pair{"RGBNDSHA", "band_table_sha256"}})
     if (const Keyword* k = in.table.keyword(keyword))
       std::visit([&, f = field](const auto& v) { result.extinction[f] = v; }, k->value);
-  result.provenance.inputs.push_back({o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(in.table.rows())});
+  result.provenance.inputs.push_back(
+      {o.input_path, sha256_file(o.input_path), static_cast<std::int64_t>(in.table.rows())});
   if (o.zero_point == ZeroPointRecipe::kLindegren2021) {
-    result.provenance.inputs.push_back({o.zero_point_table_5p, sha256_file(o.zero_point_table_5p), -1});
-    result.provenance.inputs.push_back({o.zero_point_table_6p, sha256_file(o.zero_point_table_6p), -1});
+    result.provenance.inputs.push_back(
+        {o.zero_point_table_5p, sha256_file(o.zero_point_table_5p), -1});
+    result.provenance.inputs.push_back(
+        {o.zero_point_table_6p, sha256_file(o.zero_point_table_6p), -1});
   }
   // Residuals per star and relation.
   StarTable res;
   for (const char* c : {"relation", "id", "kind", "reason"}) res.add_column(c, ColumnType::kText);
   res.add_column("used", ColumnType::kBoolean);
-  res.add_column("log_period_f", ColumnType::kReal, "", "log10 of the (fundamentalized) period in days");
+  res.add_column("log_period_f", ColumnType::kReal, "",
+                 "log10 of the (fundamentalized) period in days");
   res.add_column("m0", ColumnType::kReal, "mag", "magnitude the relation uses");
   res.add_column("m0_err", ColumnType::kReal, "mag");
   res.add_column("abs_mag_model", ColumnType::kReal, "mag", "relation's absolute magnitude");
   res.add_column("residual", ColumnType::kReal, "", "normalised residual at the optimum");
   res.add_column("parallax_corrected_mas", ColumnType::kReal, "mas", "parallax minus zero point");
   res.add_column("parallax_err_mas", ColumnType::kReal, "mas", "inflated parallax error");
-  res.add_column("predicted", ColumnType::kReal, "", "photometric parallax (mas, parallax space) or predicted m0");
+  res.add_column("predicted", ColumnType::kReal, "",
+                 "photometric parallax (mas, parallax space) or predicted m0");
   // Where zero-point, offset and metallicity problems show: [Fe/H] and G beside each residual.
   res.add_column("feh", ColumnType::kReal, "", "[Fe/H] (dex)");
   res.add_column("gaia_g_mag", ColumnType::kReal, "mag");
-  res.add_column("membership", ColumnType::kReal, "", "hierarchical fit: probability of being a member, not an outlier");
+  res.add_column("membership", ColumnType::kReal, "",
+                 "hierarchical fit: probability of being a member, not an outlier");
   for (const auto& rr : result.relations) {
     for (const auto& s : rr.stars) {
       res.column("relation").push_text(rr.relation.name);
       res.column("id").push_text(s.id);
-      s.kind == CalibratorKind::kNone ? res.column("kind").push_null()
-                                    : res.column("kind").push_text(std::string(kCalibratorKindNames.name(s.kind)));
-      s.reason.empty() ? res.column("reason").push_null() : res.column("reason").push_text(s.reason);
+      s.kind == CalibratorKind::kNone
+          ? res.column("kind").push_null()
+          : res.column("kind").push_text(std::string(kCalibratorKindNames.name(s.kind)));
+      s.reason.empty() ? res.column("reason").push_null()
+                       : res.column("reason").push_text(s.reason);
       res.column("used").push_boolean(s.used);
-      res.column("log_period_f").push_real(s.kind == CalibratorKind::kNone && s.log_period == 0 ? std::nan("") : s.log_period);
+      res.column("log_period_f")
+          .push_real(s.kind == CalibratorKind::kNone && s.log_period == 0 ? std::nan("")
+                                                                          : s.log_period);
       res.column("m0").push_real(s.m0_err > 0 ? s.m0 : std::nan(""));
       res.column("m0_err").push_real(s.m0_err > 0 ? s.m0_err : std::nan(""));
       res.column("abs_mag_model").push_real(s.model_abs_mag);
@@ -255,8 +282,11 @@ FitResult fit_catalog_file(const FitOptions& o) {
       res.column("parallax_corrected_mas").push_real(s.plx);
       res.column("parallax_err_mas").push_real(s.plx_err);
       res.column("predicted").push_real(s.predicted);
-      res.column("feh").push_real(in.table.has(col::kFeh) ? in.table.column(col::kFeh).as_real(s.row) : std::nan(""));
-      res.column("gaia_g_mag").push_real(in.table.has(col::kGaiaG) ? in.table.column(col::kGaiaG).as_real(s.row) : std::nan(""));
+      res.column("feh").push_real(
+          in.table.has(col::kFeh) ? in.table.column(col::kFeh).as_real(s.row) : std::nan(""));
+      res.column("gaia_g_mag")
+          .push_real(in.table.has(col::kGaiaG) ? in.table.column(col::kGaiaG).as_real(s.row)
+                                               : std::nan(""));
       res.column("membership").push_real(s.membership);
     }
   }

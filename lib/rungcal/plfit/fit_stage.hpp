@@ -31,21 +31,22 @@ namespace rungcal {
 constexpr int kMaxBootstrap = 100000;
 
 struct RelationOptions {
-  std::string name;              // label in outputs (default: the band)
-  std::string band;              // band or Wesenheit name: uses mag0_<band>, mag0_err_<band>
-  std::string magnitude_column;  // override, e.g. "mag_W_H" for a Wesenheit given in the input
-  std::string error_column;      // override of the error column
+  std::string name;               // label in outputs (default: the band)
+  std::string band;               // band or Wesenheit name: uses mag0_<band>, mag0_err_<band>
+  std::string magnitude_column;   // override, e.g. "mag_W_H" for a Wesenheit given in the input
+  std::string error_column;       // override of the error column
   double pivot_log_period = 1.0;  // log P0
   ParamSpec alpha;                // absolute magnitude at log P0: free, fixed or with a prior
   ParamSpec slope;                // beta: free, fixed (e.g. -3.26) or with a prior
   ParamSpec slope_long;           // beta_long above the break: free, fixed or with a prior
-  ParamSpec gamma;                // metallicity term (mag/dex): free, fixed (e.g. -0.17) or with a prior
-  std::optional<double> break_log_period;  // a second slope above log Pb when set
-  bool metallicity = false;       // gamma [Fe/H] term
-  std::vector<std::string> classes = {"classical_cepheid"};             // pulsator classes used
-  std::vector<std::string> modes = {"fundamental", "first_overtone"};   // modes used
-  bool fundamentalize = true;     // first-overtone periods -> fundamental (fundamentalized_log_period)
-  double min_log_period = -std::numeric_limits<double>::infinity();     // of the (fundamentalized) period
+  ParamSpec gamma;  // metallicity term (mag/dex): free, fixed (e.g. -0.17) or with a prior
+  std::optional<double> break_log_period;                    // a second slope above log Pb when set
+  bool metallicity = false;                                  // gamma [Fe/H] term
+  std::vector<std::string> classes = {"classical_cepheid"};  // pulsator classes used
+  std::vector<std::string> modes = {"fundamental", "first_overtone"};  // modes used
+  bool fundamentalize = true;  // first-overtone periods -> fundamental (fundamentalized_log_period)
+  double min_log_period =
+      -std::numeric_limits<double>::infinity();  // of the (fundamentalized) period
   double max_log_period = std::numeric_limits<double>::infinity();
 };
 
@@ -66,10 +67,10 @@ struct AnchorOptions {
 // space; in the other spaces a cluster with a modulus is fitted as an anchor is.
 struct ClusterOptions {
   std::string group;
-  double parallax_mas = std::numeric_limits<double>::quiet_NaN();      // cluster parallax (NaN: none)
+  double parallax_mas = std::numeric_limits<double>::quiet_NaN();  // cluster parallax (NaN: none)
   double parallax_err_mas = std::numeric_limits<double>::quiet_NaN();  // its error
-  double mu = std::numeric_limits<double>::quiet_NaN();                // cluster distance modulus (NaN: none)
-  double mu_err = std::numeric_limits<double>::quiet_NaN();            // its error
+  double mu = std::numeric_limits<double>::quiet_NaN();      // cluster distance modulus (NaN: none)
+  double mu_err = std::numeric_limits<double>::quiet_NaN();  // its error
   bool has_parallax() const { return std::isfinite(parallax_mas); }
   bool has_modulus() const { return std::isfinite(mu); }
   // The residual spaces' Gaussian prior on mu_c: the modulus when given, else the parallax's
@@ -79,41 +80,46 @@ struct ClusterOptions {
 };
 
 struct FitOptions {
-  std::string input_path;      // dereddened catalog (HDU CATALOG)
-  std::string output_path = "out/fit.json";            // the fit result
-  std::string residuals_path;  // per-star residuals (FITS); "" = beside the result
-  FitSpace space = FitSpace::kHierarchical;  // how parallax calibrators enter (section 4b model by default)
-  HierarchicalSettings hierarchical;     // the hierarchical model's distance prior, quadrature and outlier component
-  LossKind loss = LossKind::kNone;       // robust loss (residual spaces only; the hierarchical model has a mixture)
-  double loss_scale = 3.0;               // its scale, in units of each star's sigma
-  double clip_sigma = 0.0;               // > 0: iterative k-sigma clipping on |r|
-  int clip_iterations = 10;              // at most this many clipping passes
+  std::string input_path;                    // dereddened catalog (HDU CATALOG)
+  std::string output_path = "out/fit.json";  // the fit result
+  std::string residuals_path;                // per-star residuals (FITS); "" = beside the result
+  FitSpace space =
+      FitSpace::kHierarchical;  // how parallax calibrators enter (section 4b model by default)
+  HierarchicalSettings
+      hierarchical;  // the hierarchical model's distance prior, quadrature and outlier component
+  LossKind loss =
+      LossKind::kNone;  // robust loss (residual spaces only; the hierarchical model has a mixture)
+  double loss_scale = 3.0;                              // its scale, in units of each star's sigma
+  double clip_sigma = 0.0;                              // > 0: iterative k-sigma clipping on |r|
+  int clip_iterations = 10;                             // at most this many clipping passes
   ZeroPointRecipe zero_point = ZeroPointRecipe::kNone;  // parallax zero point Z
-  double zero_point_mas = 0.0;           // Z for the constant recipe
-  std::string zero_point_table_5p;       // Lindegren et al. 2021 tables
+  double zero_point_mas = 0.0;                          // Z for the constant recipe
+  std::string zero_point_table_5p;                      // Lindegren et al. 2021 tables
   std::string zero_point_table_6p;
   InflationRecipe inflation = InflationRecipe::kNone;  // parallax error inflation
-  double inflation_factor = 1.0;         // for the constant recipe
-  double max_ruwe = 0.0;                 // > 0: parallax stars with RUWE above are refused
-  bool use_known_mu = true;              // stars with mu_mag enter as known-distance calibrators
-  ParamSpec offset;                      // residual parallax offset (mas): free, fixed or prior
-  ParamSpec scatter{ParamMode::kFree, 0.1, 0, true};  // intrinsic scatter: free, fixed, or a prior (hierarchical)
+  double inflation_factor = 1.0;                       // for the constant recipe
+  double max_ruwe = 0.0;     // > 0: parallax stars with RUWE above are refused
+  bool use_known_mu = true;  // stars with mu_mag enter as known-distance calibrators
+  ParamSpec offset;          // residual parallax offset (mas): free, fixed or prior
+  ParamSpec scatter{ParamMode::kFree, 0.1, 0,
+                    true};  // intrinsic scatter: free, fixed, or a prior (hierarchical)
   // The hierarchical model's own parameters: free by default, each may be fixed or given a prior.
-  ParamSpec outlier_fraction;            // share of outliers in the mixture
+  ParamSpec outlier_fraction;                                // share of outliers in the mixture
   ParamSpec outlier_shift{ParamMode::kFixed, 0.0, 0, true};  // outlier component brighter by (mag)
   ParamSpec outlier_width{ParamMode::kFixed, 1.0, 0, true};  // its extra magnitude width (mag)
-  ParamSpec blend_fraction;              // share of blends (of the non-outliers)
+  ParamSpec blend_fraction;  // share of blends (of the non-outliers)
   // Blends' mean brightening beyond their start (mag). A Gaussian prior 0.5 +- 0.15 by default:
   // free, the scale shrinks onto the members' bright tail when there are few or no blends
   // (sigma_int 0.6 errors low, alpha 0.6 faint on mocks without blends: docs/method.md).
   ParamSpec blend_scale{ParamMode::kPrior, 0.5, 0.15, true};
-  ParamSpec distance_scale;              // distance prior's length scale L (kpc)
-  ParamSpec distance_power;              // its power k (fixed at 2 by the space-density family)
-  ParamSpec distance_exponent;           // its exponent a (fixed at 1 by the space-density family)
-  ParamSpec feh_mean, feh_spread;        // the [Fe/H] population (when [Fe/H] errors are given)
-  ScatterEstimator scatter_estimator = ScatterEstimator::kDecoupled;  // how a free scatter is estimated
-  bool joint = false;                    // also fit all relations at once, one parallax offset
-  bool joint_shared_slope = false;       // ... and one slope for all relations
+  ParamSpec distance_scale;        // distance prior's length scale L (kpc)
+  ParamSpec distance_power;        // its power k (fixed at 2 by the space-density family)
+  ParamSpec distance_exponent;     // its exponent a (fixed at 1 by the space-density family)
+  ParamSpec feh_mean, feh_spread;  // the [Fe/H] population (when [Fe/H] errors are given)
+  ScatterEstimator scatter_estimator =
+      ScatterEstimator::kDecoupled;  // how a free scatter is estimated
+  bool joint = false;                // also fit all relations at once, one parallax offset
+  bool joint_shared_slope = false;   // ... and one slope for all relations
   // Correlation rho of a star's intrinsic scatter between relations: a bare number fixes it
   // (the GLS joint fit always holds it at its value, 0 unless given); free by default in the
   // hierarchical joint fit.
@@ -123,13 +129,13 @@ struct FitOptions {
   // starting at this value; a bare number fixes them all (1: grey blends). Companions are
   // seldom the Cepheid's colour: grey blends biased a V, I, K joint fit (docs/method.md).
   ParamSpec joint_blend_ratio{ParamMode::kFree, 1.0, 0, true};
-  int bootstrap = 0;                     // resamples over stars (0: none)
+  int bootstrap = 0;  // resamples over stars (0: none)
   // The joint fit's resamples (-1: as bootstrap): each solves every relation at once, so a
   // smaller count keeps a nightly run short.
   int joint_bootstrap = -1;
   int joint_resamples() const { return joint_bootstrap >= 0 ? joint_bootstrap : bootstrap; }
-  std::uint64_t seed = 1;                // bootstrap seed: results are the same for any thread count
-  int threads = 0;                       // 0: all cores
+  std::uint64_t seed = 1;  // bootstrap seed: results are the same for any thread count
+  int threads = 0;         // 0: all cores
   std::vector<RelationOptions> relations;
   std::vector<AnchorOptions> anchors;
   // Covariance of the anchors' moduli priors (mag^2, [[anchor]] order; published distances
@@ -145,7 +151,7 @@ struct FitOptions {
   std::vector<std::string> group_names() const;
   double anchor_prior_sigma(std::size_t g) const;  // sqrt of the diagonal, else the anchor's mu_err
   std::string config_file, config_sha256;
-  nlohmann::json resolved;               // the options as read, for the result file
+  nlohmann::json resolved;  // the options as read, for the result file
 
   // "" when usable, else "field: rule".
   std::string check() const;
@@ -168,17 +174,20 @@ std::string fit_residuals_path(const FitOptions& options);
 struct StarOutcome {
   std::size_t row = 0;
   std::string id;
-  std::string group;   // the catalog's group value ("" when none)
+  std::string group;  // the catalog's group value ("" when none)
   CalibratorKind kind = CalibratorKind::kNone;
   bool used = false;
   bool member_parallax = false;  // a cluster member whose own parallax enters (hierarchical)
   std::string reason;  // why not used (for a used cluster member: why its own parallax is not)
   double log_period = 0, m0 = 0, m0_err = 0;
-  double plx = std::numeric_limits<double>::quiet_NaN(), plx_err = std::numeric_limits<double>::quiet_NaN();
+  double plx = std::numeric_limits<double>::quiet_NaN(),
+         plx_err = std::numeric_limits<double>::quiet_NaN();
   double residual = std::numeric_limits<double>::quiet_NaN();  // normalised, at the optimum
   double model_abs_mag = std::numeric_limits<double>::quiet_NaN();
-  double predicted = std::numeric_limits<double>::quiet_NaN();   // pi_phot (parallax space) or m0 model
-  double membership = std::numeric_limits<double>::quiet_NaN();  // hierarchical: probability of not being an outlier
+  double predicted =
+      std::numeric_limits<double>::quiet_NaN();  // pi_phot (parallax space) or m0 model
+  double membership = std::numeric_limits<double>::quiet_NaN();  // hierarchical: probability of not
+                                                                 // being an outlier
 };
 
 struct RelationResult {
@@ -212,7 +221,7 @@ struct JointResult {
   JointData data;
   JointSolution solution;
   int stars = 0;
-  int n_free = 0;  // parameters the joint fit estimated
+  int n_free = 0;             // parameters the joint fit estimated
   Eigen::MatrixXd bootstrap;  // resamples x parameters (NaN rows: failed resamples)
   int bootstrap_failed = 0;
   std::vector<std::string> warnings;
@@ -239,7 +248,8 @@ struct FitResult {
 // the deredden product's COEFFS table (A/E(B-V) per band), for the joint fit's E(B-V)
 // covariance; without it E(B-V) errors are taken as independent between relations.
 // Writes nothing.
-FitResult run_fit(const FitOptions& options, const StarTable& catalog, const StarTable* coefficients = nullptr);
+FitResult run_fit(const FitOptions& options, const StarTable& catalog,
+                  const StarTable* coefficients = nullptr);
 // Reads the catalog, runs, writes the result JSON and the residuals FITS atomically.
 FitResult fit_catalog_file(const FitOptions& options);
 // A few lines a person reads on the terminal.

@@ -19,10 +19,9 @@ using namespace hier;
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 
-
 Scale scale_of(const ParameterLayout& L, int j) {
-  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread || j == L.outlier_width ||
-      j == L.blend_scale)
+  if (j == L.sigma || j == L.distance_scale || j == L.distance_exponent || j == L.feh_spread ||
+      j == L.outlier_width || j == L.blend_scale)
     return Scale::kLog;
   if (j == L.distance_power) return Scale::kLogPlusOne;
   if (j == L.outlier || j == L.blend) return Scale::kLogit;
@@ -40,7 +39,8 @@ std::vector<Scale> scales_of(const ParameterLayout& L) {
 // Gradient accumulators in the natural parameters.
 struct Gradient {
   double alpha = 0, beta = 0, beta_long = 0, gamma = 0, offset = 0, var_int = 0, outlier = 0;
-  double log_scale = 0, power = 0, exponent = 0, feh_mean = 0, feh_var = 0, outlier_shift = 0, outlier_wide = 0;
+  double log_scale = 0, power = 0, exponent = 0, feh_mean = 0, feh_var = 0, outlier_shift = 0,
+         outlier_wide = 0;
   double blend = 0, blend_scale = 0;
   std::vector<double> anchor, bins;
 };
@@ -48,18 +48,25 @@ struct Gradient {
 class Evaluator final : public Objective {
  public:
   Evaluator(const FitData& d, const FitSettings& s, const ParameterLayout& L)
-      : d_(d), s_(s), L_(L), scales_(scales_of(L)),
-        k_(s.hierarchical.quadrature_nodes, static_cast<std::size_t>(d.parallax.size())), priors_(prior_rows(s, L)) {
+      : d_(d),
+        s_(s),
+        L_(L),
+        scales_(scales_of(L)),
+        k_(s.hierarchical.quadrature_nodes, static_cast<std::size_t>(d.parallax.size())),
+        priors_(prior_rows(s, L)) {
     mixture_ = component_on(s.params, L.outlier);
     blends_ = component_on(s.params, L.blend);
   }
 
   // -ln L with priors, and its gradient in internal coordinates (full length).
-  double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad) override { return evaluate(x, grad, nullptr); }
+  double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad) override {
+    return evaluate(x, grad, nullptr);
+  }
   double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* grad, Eigen::ArrayXd* membership) {
     const Eigen::VectorXd t = external_of(scales_, x);
     const HierarchicalSettings& h = s_.hierarchical;
-    const double alpha = t[L_.alpha], beta = t[L_.beta], beta_long = L_.beta_long >= 0 ? t[L_.beta_long] : 0.0;
+    const double alpha = t[L_.alpha], beta = t[L_.beta],
+                 beta_long = L_.beta_long >= 0 ? t[L_.beta_long] : 0.0;
     const double gamma = L_.gamma >= 0 ? t[L_.gamma] : 0.0, offset = t[L_.offset];
     const double sigma = t[L_.sigma], var_int = sigma * sigma;
     const double f = mixture_ ? t[L_.outlier] : 0.0;
@@ -68,20 +75,24 @@ class Evaluator final : public Objective {
     const double blend_min = h.blend_min_mag;
     const double log_fb = std::log(fb), log_1fb = std::log1p(-fb);
     const bool feh_errors = L_.feh_mean >= 0;
-    const double mu_z = feh_errors ? t[L_.feh_mean] : 0.0, tau2 = feh_errors ? t[L_.feh_spread] * t[L_.feh_spread] : 0.0;
+    const double mu_z = feh_errors ? t[L_.feh_mean] : 0.0,
+                 tau2 = feh_errors ? t[L_.feh_spread] * t[L_.feh_spread] : 0.0;
     DistancePriorShape prior;
     if (L_.distance_scale >= 0 && d_.parallax.size() > 0)
-      prior = DistancePriorShape::make(t[L_.distance_scale], t[L_.distance_power], t[L_.distance_exponent]);
+      prior = DistancePriorShape::make(t[L_.distance_scale], t[L_.distance_power],
+                                       t[L_.distance_exponent]);
     const auto H = static_cast<std::size_t>(L_.distance_bins);
     if (L_.distance_bin0 >= 0)
       prior = DistancePriorShape::make_histogram(histogram_start_at(h, alpha), h.histogram_step,
                                                  t.data() + L_.distance_bin0, L_.distance_bins + 1);
     k_.clear_bins(H);
     const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
-    const double wide = width * width, shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
+    const double wide = width * width,
+                 shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
     const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
 
-    const int n_anchors = (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;  // the layout's, not the settings'
+    const int n_anchors =
+        (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;  // the layout's, not the settings'
     // The components' weights: (1 - f)(1 - f_b), f and (1 - f) f_b.
     const double log_w_member = (mixture_ ? log_1f : 0.0) + (blends_ ? log_1fb : 0.0);
     const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
@@ -97,7 +108,8 @@ class Evaluator final : public Objective {
         // [Fe/H]: its latent true value marginalised (Kelly 2007).
         double zbar = c.feh[i], wz = 0, dz_mean = 0, dz_tau2 = 0, dwz_tau2 = 0;
         if (feh_errors) {
-          const double s2 = c.var_feh.size() ? c.var_feh[i] : 0.0, den = tau2 + s2, dz = c.feh[i] - mu_z;
+          const double s2 = c.var_feh.size() ? c.var_feh[i] : 0.0, den = tau2 + s2,
+                       dz = c.feh[i] - mu_z;
           zbar = (tau2 * c.feh[i] + s2 * mu_z) / den;
           wz = tau2 * s2 / den;
           dz_mean = s2 / den;
@@ -113,20 +125,27 @@ class Evaluator final : public Objective {
         std::optional<OwnParallax> own;
         if (kind == 0) {
           const std::size_t k = static_cast<std::size_t>(i);
-          member = integrate_parallax(c.m0[i], GaussianMagnitude(V), d_.plx[i], d_.var_plx[i], M, offset, prior, k_.member_rule,
-                                      k_.mode_member[k], k_.bins_member.data());
+          member =
+              integrate_parallax(c.m0[i], GaussianMagnitude(V), d_.plx[i], d_.var_plx[i], M, offset,
+                                 prior, k_.member_rule, k_.mode_member[k], k_.bins_member.data());
           if (mixture_)
-            outlier = integrate_parallax(c.m0[i], GaussianMagnitude(V + wide), d_.plx[i], plx_factor2 * d_.var_plx[i],
-                                         M - shift, offset, prior, k_.member_rule, k_.mode_outlier[k], k_.bins_outlier.data());
+            outlier =
+                integrate_parallax(c.m0[i], GaussianMagnitude(V + wide), d_.plx[i],
+                                   plx_factor2 * d_.var_plx[i], M - shift, offset, prior,
+                                   k_.member_rule, k_.mode_outlier[k], k_.bins_outlier.data());
           if (blends_)
-            blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale, h.blends), d_.plx[i], d_.var_plx[i],
-                                       M - blend_min, offset, prior, k_.blend_rule, k_.mode_blend[k], k_.bins_blend.data());
+            blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale, h.blends), d_.plx[i],
+                                       d_.var_plx[i], M - blend_min, offset, prior, k_.blend_rule,
+                                       k_.mode_blend[k], k_.bins_blend.data());
         } else {
           const double mu = kind == 1 ? d_.mu[i] : t[L_.anchor0 + d_.group[i]];
           const double var_mu = kind == 1 ? d_.var_mu[i] : 0.0;
           member = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu), mu, M);
-          if (mixture_) outlier = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu + wide), mu, M - shift);
-          if (blends_) blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale, h.blends), mu, M - blend_min);
+          if (mixture_)
+            outlier = given_modulus(c.m0[i], GaussianMagnitude(V + var_mu + wide), mu, M - shift);
+          if (blends_)
+            blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale, h.blends), mu,
+                                  M - blend_min);
           if (kind == 2 && d_.anchor_var_plx.size() && d_.anchor_var_plx[i] > 0) {
             own.emplace(d_.anchor_plx[i], d_.anchor_var_plx[i], plx_factor2, mu, offset);
             own->add_to(member, outlier, blend);
@@ -136,8 +155,10 @@ class Evaluator final : public Objective {
         double li = member.log_l, q = 1.0, q_out = 0.0, q_blend = 0.0;
         if (mixture_ || blends_) {
           const double a = log_w_member + member.log_l;
-          const double b = mixture_ ? log_f + outlier.log_l : -std::numeric_limits<double>::infinity();
-          const double e = blends_ ? log_w_blend + blend.log_l : -std::numeric_limits<double>::infinity();
+          const double b =
+              mixture_ ? log_f + outlier.log_l : -std::numeric_limits<double>::infinity();
+          const double e =
+              blends_ ? log_w_blend + blend.log_l : -std::numeric_limits<double>::infinity();
           const double top = std::max({a, b, e});
           li = top + std::log(std::exp(a - top) + std::exp(b - top) + std::exp(e - top));
           q = std::exp(a - li), q_out = std::exp(b - li), q_blend = std::exp(e - li);
@@ -172,25 +193,29 @@ class Evaluator final : public Objective {
           g.exponent += w * mix(&Component::d_exponent);
           if (L_.distance_bin0 >= 0) g.alpha += w * mix(&Component::d_prior_mu);
           for (std::size_t j = 0; j < H; ++j)
-            g.bins[j] += w * (q * k_.bins_member[j] + (mixture_ ? q_out * k_.bins_outlier[j] : 0.0) +
-                              (blends_ ? q_blend * k_.bins_blend[j] : 0.0));
+            g.bins[j] +=
+                w * (q * k_.bins_member[j] + (mixture_ ? q_out * k_.bins_outlier[j] : 0.0) +
+                     (blends_ ? q_blend * k_.bins_blend[j] : 0.0));
         }
         if (kind == 2) {
           double& d_mu = g.anchor[static_cast<std::size_t>(d_.group[i])];
           d_mu += w * dm;  // d/dmu_g = d/dM
-          if (own) d_mu += w * own->d_mu(q, q_out, q_blend), g.offset += w * own->d_off(q, q_out, q_blend);
+          if (own)
+            d_mu += w * own->d_mu(q, q_out, q_blend), g.offset += w * own->d_off(q, q_out, q_blend);
         }
       }
     }
     if (!d_.group_plx.empty())
-      log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset, g.anchor.data(), g.offset);
+      log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset, g.anchor.data(),
+                                    g.offset);
     double value = -log_l;
     Eigen::VectorXd gext = Eigen::VectorXd::Zero(L_.size);
     gext[L_.alpha] = g.alpha, gext[L_.beta] = g.beta, gext[L_.offset] = g.offset;
     if (L_.beta_long >= 0) gext[L_.beta_long] = g.beta_long;
     if (L_.gamma >= 0) gext[L_.gamma] = g.gamma;
     gext[L_.sigma] = g.var_int * 2.0 * sigma;  // d/dsigma
-    for (int a = 0; a < n_anchors; ++a) gext[L_.anchor0 + a] = g.anchor[static_cast<std::size_t>(a)];
+    for (int a = 0; a < n_anchors; ++a)
+      gext[L_.anchor0 + a] = g.anchor[static_cast<std::size_t>(a)];
     if (L_.outlier >= 0) gext[L_.outlier] = g.outlier;
     if (L_.outlier_shift >= 0) gext[L_.outlier_shift] = g.outlier_shift;
     if (L_.outlier_width >= 0) gext[L_.outlier_width] = g.outlier_wide * 2.0 * width;
@@ -206,7 +231,8 @@ class Evaluator final : public Objective {
     }
     for (std::size_t j = 0; j < H; ++j) gext[L_.distance_bin0 + static_cast<int>(j)] = g.bins[j];
     gext = -gext;
-    value += hyperprior_terms(t, L_.distance_bin0, L_.distance_bins, h.histogram_walk_sigma, priors_, s_.params, gext);
+    value += hyperprior_terms(t, L_.distance_bin0, L_.distance_bins, h.histogram_walk_sigma,
+                              priors_, s_.params, gext);
     if (grad) internal_gradient(scales_, t, gext, *grad);
     return value;
   }
@@ -225,8 +251,8 @@ class Evaluator final : public Objective {
 
 }  // namespace
 
-HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                                     const Eigen::VectorXd& theta) {
+HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& settings,
+                                     const ParameterLayout& layout, const Eigen::VectorXd& theta) {
   Evaluator e(data, settings, layout);
   HierarchicalValue v;
   v.neg_log_likelihood = e.evaluate(internal_of(scales_of(layout), theta), &v.gradient);
@@ -234,15 +260,15 @@ HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& set
   return v;
 }
 
-FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                               const Eigen::VectorXd& start) {
+FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings,
+                               const ParameterLayout& layout, const Eigen::VectorXd& start) {
   Evaluator e(data, settings, layout);
   return minimise(e, scales_of(layout), settings, start);
 }
 
-bool hierarchical_covariance(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                             const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
-                             std::vector<std::string>& undetermined,
+bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
+                             const ParameterLayout& layout, const Eigen::VectorXd& theta,
+                             Eigen::MatrixXd& covariance, std::vector<std::string>& undetermined,
                              std::shared_ptr<const Eigen::MatrixXd>* preconditioner) {
   covariance = Eigen::MatrixXd::Zero(layout.size, layout.size);
   const std::vector<int> all_free = free_parameters(settings.params);
@@ -253,7 +279,8 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings, c
     const bool no_outliers = layout.outlier >= 0 && theta[layout.outlier] < 1e-3;
     const bool no_blends = layout.blend >= 0 && theta[layout.blend] < 1e-3;
     const bool edge = (j == layout.sigma && theta[j] < 1e-3) ||
-                      (no_outliers && (j == layout.outlier || j == layout.outlier_shift || j == layout.outlier_width)) ||
+                      (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
+                                       j == layout.outlier_width)) ||
                       (no_blends && (j == layout.blend || j == layout.blend_scale));
     if (edge) {
       undetermined.push_back(layout.names[static_cast<std::size_t>(j)]);
@@ -263,10 +290,12 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings, c
     }
   }
   Evaluator e(data, settings, layout);
-  return covariance_from_hessian(e, scales_of(layout), measured, all_free, theta, covariance, preconditioner);
+  return covariance_from_hessian(e, scales_of(layout), measured, all_free, theta, covariance,
+                                 preconditioner);
 }
 
-Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
+Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings,
+                                       const ParameterLayout& layout,
                                        const Eigen::VectorXd& theta) {
   Evaluator e(data, settings, layout);
   Eigen::ArrayXd q = Eigen::ArrayXd::Ones(data.stars());

@@ -14,7 +14,8 @@ namespace rungcal {
 
 // The hierarchical likelihood of one relation (method brief, section 4b; FitSpace::
 // kHierarchical). Per parallax calibrator i, member component:
-//   L_i = int dmu p(mu | L, k, a) N(m_i | mu + M_i, V_i) N(pi_i | 10^(-0.2 (mu - 10)) + offset, sigma_pi,i^2)
+//   L_i = int dmu p(mu | L, k, a) N(m_i | mu + M_i, V_i) N(pi_i | 10^(-0.2 (mu - 10)) + offset,
+//   sigma_pi,i^2)
 // with V_i = sigma_m,i^2 + sigma_int^2 + gamma^2 W_i. [Fe/H] errors (Kelly 2007, ApJ 665,
 // 1489): M_i uses Zbar_i = (tau^2 Z_i + s_i^2 mu_Z) / (tau^2 + s_i^2), W_i = tau^2 s_i^2 /
 // (tau^2 + s_i^2), and every star adds ln N(Z_i | mu_Z, tau^2 + s_i^2). Known-distance stars
@@ -23,10 +24,10 @@ namespace rungcal {
 //   L_i = (1 - f) [(1 - f_b) L_i^member + f_b L_i^blend] + f L_i^out,
 // the outlier component as the member's with the HierarchicalSettings widening, the blend
 // component's magnitude term the exponentially modified Gaussian (blend_log_density) of
-// r + blend_min_mag (blends start that much brighter) with the member's parallax term. Blends are a share of the non-outliers, so either mixture can
-// be switched off without changing the other's meaning. The mu
-// integral is Gauss-Hermite quadrature centred on the integrand's mode with its curvature
-// as the width (Laplace centring; a smooth floor keeps the width, and so -ln L, smooth in
+// r + blend_min_mag (blends start that much brighter) with the member's parallax term. Blends are a
+// share of the non-outliers, so either mixture can be switched off without changing the other's
+// meaning. The mu integral is Gauss-Hermite quadrature centred on the integrand's mode with its
+// curvature as the width (Laplace centring; a smooth floor keeps the width, and so -ln L, smooth in
 // the parameters), so narrow integrands from precise parallaxes are exact.
 //
 // Parameters: the ParameterLayout's, with sigma_int, the outlier and blend fractions, the
@@ -39,12 +40,12 @@ struct HierarchicalValue {
   Eigen::VectorXd gradient;       // d(-ln L) / d(internal parameters)
   bool finite = false;
 };
-HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                                     const Eigen::VectorXd& theta);
+HierarchicalValue hierarchical_value(const FitData& data, const FitSettings& settings,
+                                     const ParameterLayout& layout, const Eigen::VectorXd& theta);
 
 // Maximum likelihood from a start (external parameters); fixed parameters stay at theirs.
-FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                               const Eigen::VectorXd& start);
+FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings,
+                               const ParameterLayout& layout, const Eigen::VectorXd& start);
 
 // Covariance from the Hessian of -ln L at the optimum, computed in the solver's coordinates
 // (central differences of the analytic gradient) and carried to the reported parameters by
@@ -53,20 +54,20 @@ FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings,
 // NaN, and `undetermined` names them. Returns false when the Hessian is not positive definite.
 // preconditioner: when given, set to the bootstrap's metric from the same Hessian
 // (FitSettings::preconditioner; unit steps for the parameters on an edge).
-bool hierarchical_covariance(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                             const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
-                             std::vector<std::string>& undetermined,
+bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
+                             const ParameterLayout& layout, const Eigen::VectorXd& theta,
+                             Eigen::MatrixXd& covariance, std::vector<std::string>& undetermined,
                              std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr);
 
 // Per star (parallax, known, anchor order): the probability of being a member, neither an
 // outlier nor a blend.
-Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                                       const Eigen::VectorXd& theta);
+Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings,
+                                       const ParameterLayout& layout, const Eigen::VectorXd& theta);
 
 // Start values of the hierarchical model's own parameters from the data (outlier and blend
 // fractions 0.02, L from the stars' photometric distances, the [Fe/H] population's moments).
-void hierarchical_start(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                        Eigen::VectorXd& theta);
+void hierarchical_start(const FitData& data, const FitSettings& settings,
+                        const ParameterLayout& layout, Eigen::VectorXd& theta);
 
 // The smooth-histogram prior's grid over the calibrators' rough distance moduli (from
 // parallaxes with S/N > 5, else photometric from a line through those), 1.5 mag beyond them

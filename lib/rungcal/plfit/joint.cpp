@@ -28,7 +28,8 @@ struct StarResidual {
   bool operator()(T const* const* parameters, T* residuals) const {
     const T* t = parameters[0];
     const int b0 = d->first[star], K = d->first[star + 1] - b0, kind = d->kind[star];
-    std::vector<T> kpi(K), e(K), c(static_cast<std::size_t>(K * K)), lower(static_cast<std::size_t>(K * K), T(0.0));
+    std::vector<T> kpi(K), e(K), c(static_cast<std::size_t>(K * K)),
+        lower(static_cast<std::size_t>(K * K), T(0.0));
     const T mu = kind == 1 ? T(d->mu[star]) : (kind == 2 ? t[L->anchor0 + d->group[star]] : T(0.0));
     for (int i = 0; i < K; ++i) {
       const int entry = b0 + i, r = d->relation[entry];
@@ -89,12 +90,14 @@ struct AnchorPriors {
   }
 };
 
-void add_anchor_priors(ceres::Problem& problem, const JointSettings& s, const JointLayout& L, double* t) {
+void add_anchor_priors(ceres::Problem& problem, const JointSettings& s, const JointLayout& L,
+                       double* t) {
   const auto n = static_cast<Eigen::Index>(s.anchor_priors.size());
   if (n == 0) return;
   Eigen::VectorXd mean(n), sigma(n);
   for (Eigen::Index g = 0; g < n; ++g)
-    mean[g] = s.anchor_priors[static_cast<std::size_t>(g)].first, sigma[g] = s.anchor_priors[static_cast<std::size_t>(g)].second;
+    mean[g] = s.anchor_priors[static_cast<std::size_t>(g)].first,
+    sigma[g] = s.anchor_priors[static_cast<std::size_t>(g)].second;
   auto* prior = new ceres::DynamicAutoDiffCostFunction<AnchorPriors, 8>(
       new AnchorPriors{L.anchor0, mean, prior_whitener(sigma, s.anchor_correlation)});
   prior->AddParameterBlock(L.size);
@@ -102,11 +105,12 @@ void add_anchor_priors(ceres::Problem& problem, const JointSettings& s, const Jo
   problem.AddResidualBlock(prior, nullptr, t);
 }
 
-void build_problem(ceres::Problem& problem, const JointData& d, const JointSettings& s, const JointLayout& L, double* t,
-                   bool robust) {
+void build_problem(ceres::Problem& problem, const JointData& d, const JointSettings& s,
+                   const JointLayout& L, double* t, bool robust) {
   add_anchor_priors(problem, s, L, t);
   for (int star = 0; star < d.stars(); ++star) {
-    auto* cost = new ceres::DynamicAutoDiffCostFunction<StarResidual, 8>(new StarResidual{&d, &s, &L, star});
+    auto* cost =
+        new ceres::DynamicAutoDiffCostFunction<StarResidual, 8>(new StarResidual{&d, &s, &L, star});
     cost->AddParameterBlock(L.size);
     cost->SetNumResiduals(d.first[star + 1] - d.first[star]);
     ceres::LossFunction* loss = robust ? make_ceres_loss(s.loss, s.loss_scale).release() : nullptr;
@@ -122,7 +126,8 @@ void build_problem(ceres::Problem& problem, const JointData& d, const JointSetti
 
 bool JointData::has_parallax() const {
   return std::any_of(var_plx.begin(), var_plx.end(), [](double v) { return v > 0; }) ||
-         std::any_of(group_plx.begin(), group_plx.end(), [](const FitData::GroupParallax& g) { return g.var > 0; });
+         std::any_of(group_plx.begin(), group_plx.end(),
+                     [](const FitData::GroupParallax& g) { return g.var > 0; });
 }
 
 JointData JointData::take(const std::vector<int>& stars) const {
@@ -167,7 +172,8 @@ JointData JointData::take_counted(const std::vector<int>& stars) const {
   return o;
 }
 
-JointLayout JointLayout::make(const std::vector<std::string>& names, const std::vector<bool>& metallicity, bool shared_slope,
+JointLayout JointLayout::make(const std::vector<std::string>& names,
+                              const std::vector<bool>& metallicity, bool shared_slope,
                               const std::vector<std::string>& anchors) {
   JointLayout L;
   int next = 0;
@@ -201,8 +207,8 @@ JointLayout JointLayout::make(const std::vector<std::string>& names, const std::
   return L;
 }
 
-JointSolution solve_joint(const JointData& d, const JointSettings& s, const JointLayout& L, const Eigen::VectorXd& start,
-                          bool with_covariance) {
+JointSolution solve_joint(const JointData& d, const JointSettings& s, const JointLayout& L,
+                          const Eigen::VectorXd& start, bool with_covariance) {
   JointSolution sol;
   sol.theta = start;
   sol.entries = static_cast<int>(d.relation.size());
@@ -239,7 +245,8 @@ JointSolution solve_joint(const JointData& d, const JointSettings& s, const Join
   ceres::CRSMatrix jacobian;
   robust.Evaluate(ceres::Problem::EvaluateOptions(), nullptr, nullptr, nullptr, &jacobian);
   if (!std::isfinite(sol.chi2) || !t.allFinite() ||
-      !std::all_of(jacobian.values.begin(), jacobian.values.end(), [](double v) { return std::isfinite(v); }))
+      !std::all_of(jacobian.values.begin(), jacobian.values.end(),
+                   [](double v) { return std::isfinite(v); }))
     return sol;
   ceres::Covariance::Options co;
   co.algorithm_type = ceres::DENSE_SVD;

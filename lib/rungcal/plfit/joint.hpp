@@ -15,24 +15,27 @@ namespace rungcal {
 // one entry per star and relation, grouped by star.
 struct JointData {
   int relations = 0;
-  std::vector<int> first;          // per star: index of its first entry; size stars + 1
-  std::vector<int> relation;       // per entry: which relation
-  std::vector<double> x, m0, var_phot, coefficient;  // per entry: log P - log P0, magnitude,
-                                   // photometric variance, A/E(B-V) left in the magnitude
-  std::vector<double> plx, var_plx, var_ebv, feh;    // per star
-  std::vector<double> var_feh;     // per star: [Fe/H] error squared (hierarchical joint; 0: none)
+  std::vector<int> first;     // per star: index of its first entry; size stars + 1
+  std::vector<int> relation;  // per entry: which relation
+  std::vector<double> x, m0, var_phot,
+      coefficient;  // per entry: log P - log P0, magnitude,
+                    // photometric variance, A/E(B-V) left in the magnitude
+  std::vector<double> plx, var_plx, var_ebv, feh;  // per star
+  std::vector<double> var_feh;  // per star: [Fe/H] error squared (hierarchical joint; 0: none)
   // Per star: 0 parallax calibrator, 1 known distance (mu, var_mu), 2 anchor galaxy (group).
   std::vector<int> kind, group;
   std::vector<double> mu, var_mu;
   // plx and var_plx of a kind-2 star: a cluster member's own parallax (var_plx 0: none).
   std::vector<FitData::GroupParallax> group_plx;  // per group: a cluster's parallax (FitData's)
-  std::vector<std::size_t> row;    // per star: catalog row
+  std::vector<std::size_t> row;                   // per star: catalog row
   // Per star: how many times a bootstrap resample drew it (empty: once each). The
   // hierarchical joint likelihood counts a star's term that many times, so a resample
   // evaluates each drawn star once (about 63% of them) instead of once per draw.
   std::vector<double> weight;
   int stars() const { return static_cast<int>(plx.size()); }
-  double weight_of(int star) const { return weight.empty() ? 1.0 : weight[static_cast<std::size_t>(star)]; }
+  double weight_of(int star) const {
+    return weight.empty() ? 1.0 : weight[static_cast<std::size_t>(star)];
+  }
   // Whether any star or cluster has a parallax: the offset is measured only then.
   bool has_parallax() const;
   // The stars given by index (repeats allowed), with all their entries: a bootstrap sample.
@@ -61,14 +64,15 @@ struct JointLayout {
   // Per relation (hierarchical, with blends): a blend's brightening in the relation over its
   // brightening in the first relation's (-1 for the first: 1 by definition).
   std::vector<int> blend_ratio;
-  static JointLayout make(const std::vector<std::string>& relation_names, const std::vector<bool>& metallicity,
-                          bool shared_slope, const std::vector<std::string>& anchors = {});
+  static JointLayout make(const std::vector<std::string>& relation_names,
+                          const std::vector<bool>& metallicity, bool shared_slope,
+                          const std::vector<std::string>& anchors = {});
   // The hierarchical joint layout: the shared parameters are those of `shared` (a single
   // relation's hierarchical layout), [Fe/H]'s population when feh_errors.
   static JointLayout make_hierarchical(const std::vector<std::string>& relation_names,
                                        const std::vector<bool>& metallicity, bool shared_slope,
-                                       const std::vector<std::string>& anchors, const ParameterLayout& shared,
-                                       bool feh_errors);
+                                       const std::vector<std::string>& anchors,
+                                       const ParameterLayout& shared, bool feh_errors);
 };
 
 struct JointSettings {
@@ -78,7 +82,7 @@ struct JointSettings {
   // Correlation of one star's intrinsic scatter between relations (its place in the
   // instability strip moves every band): C_bc += (k pi_b)(k pi_c) rho sigma_b sigma_c.
   double scatter_correlation = 0.0;
-  std::vector<bool> fixed;        // per parameter
+  std::vector<bool> fixed;                               // per parameter
   std::vector<std::pair<double, double>> anchor_priors;  // per anchor: mean and sigma of mu
   Eigen::MatrixXd anchor_correlation;  // of the anchors' priors; empty: independent
 };
@@ -95,16 +99,18 @@ struct JointSolution {
 
 // Generalised least squares with each star's covariance between its relations. Parallax
 // calibrators: residuals e_b = pi - offset - pi_phot,b, covariance
-// C_bc = sigma_pi^2 + (k pi_b)(k pi_c) [delta_bc (sigma_phot,b^2 + sigma_int,b^2) + R_b R_c sigma_E^2]
-// (k = 0.2 ln 10: the parallax is shared, so is the E(B-V) error). Known-distance and anchor
-// stars: e_b = m0_b - mu - M_b, C_bc = sigma_mu^2 + delta_bc (sigma_phot,b^2 + sigma_int,b^2)
+// C_bc = sigma_pi^2 + (k pi_b)(k pi_c) [delta_bc (sigma_phot,b^2 + sigma_int,b^2) + R_b R_c
+// sigma_E^2] (k = 0.2 ln 10: the parallax is shared, so is the E(B-V) error). Known-distance and
+// anchor stars: e_b = m0_b - mu - M_b, C_bc = sigma_mu^2 + delta_bc (sigma_phot,b^2 +
+// sigma_int,b^2)
 // + ... (the same scatter and E(B-V) terms without (k pi)^2), mu an anchor's parameter with
 // its Gaussian prior. Each star's residual
 // vector is whitened by the Cholesky factor of C(theta) itself, derivatives by Ceres'
 // automatic differentiation: freezing C at the solution instead (a fixed point) biases the
 // zero points, by 0.23 mag for three relations in tests/plfit_test.cpp's simulation. The
 // robust loss acts on each star's whole Mahalanobis distance: a star is an outlier or not.
-JointSolution solve_joint(const JointData& data, const JointSettings& settings, const JointLayout& layout,
-                          const Eigen::VectorXd& start, bool with_covariance = true);
+JointSolution solve_joint(const JointData& data, const JointSettings& settings,
+                          const JointLayout& layout, const Eigen::VectorXd& start,
+                          bool with_covariance = true);
 
 }  // namespace rungcal

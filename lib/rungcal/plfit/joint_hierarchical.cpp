@@ -99,7 +99,8 @@ class JointEvaluator final : public Objective {
               0.5 * d_tilt * (hk * red.u.transpose() + red.u * hk.transpose()));
     for (Eigen::Index k = 0; k < hk.size(); ++k) {
       const int j = ratio_index(e0 + static_cast<int>(k));
-      if (j >= 0) g[j] += q * (d_kappa * red.p[k] / red.a + 2.0 * d_curv * hk[k] + d_tilt * red.u[k]);
+      if (j >= 0)
+        g[j] += q * (d_kappa * red.p[k] / red.a + 2.0 * d_curv * hk[k] + d_tilt * red.u[k]);
     }
   }
 
@@ -110,8 +111,8 @@ class JointEvaluator final : public Objective {
         L_(L),
         scales_(scales_of(L)),
         k_(s.hierarchical.quadrature_nodes, static_cast<std::size_t>(d.stars())),
-        priors_(
-            prior_rows(s.params, AnchorBlock{L.anchor0, L.n_anchors - s.terms.n_clusters, s.anchor_prior_correlation})) {
+        priors_(prior_rows(s.params, AnchorBlock{L.anchor0, L.n_anchors - s.terms.n_clusters,
+                                                 s.anchor_prior_correlation})) {
     mixture_ = component_on(s.params, L.outlier);
     blends_ = component_on(s.params, L.blend);
     for (int j : L.blend_ratio)
@@ -233,10 +234,10 @@ class JointEvaluator final : public Objective {
                                        plx_factor2 * d_.var_plx[si], -shift, offset, prior,
                                        k_.member_rule, k_.mode_outlier[si], k_.bins_outlier.data());
         if (coloured_)
-          blend = integrate_parallax(
-              red.m_eff, ColouredBlendMagnitude(v_eff, blend_scale, h.blends, colour), d_.plx[si],
-              d_.var_plx[si], blend_shift, offset, prior, k_.blend_rule, k_.mode_blend[si],
-              k_.bins_blend.data());
+          blend = integrate_parallax(red.m_eff,
+                                     ColouredBlendMagnitude(v_eff, blend_scale, h.blends, colour),
+                                     d_.plx[si], d_.var_plx[si], blend_shift, offset, prior,
+                                     k_.blend_rule, k_.mode_blend[si], k_.bins_blend.data());
         else if (blends_)
           blend = integrate_parallax(red.m_eff, BlendMagnitude(v_eff, blend_scale, h.blends),
                                      d_.plx[si], d_.var_plx[si], blend_shift, offset, prior,
@@ -247,12 +248,12 @@ class JointEvaluator final : public Objective {
         member = given_modulus(red.m_eff, GaussianMagnitude(var), mu, 0.0);
         if (mixture_) outlier = given_modulus(red.m_eff, GaussianMagnitude(var + wide), mu, -shift);
         if (coloured_)
-          blend = given_modulus(red.m_eff,
-                                ColouredBlendMagnitude(var, blend_scale, h.blends, colour), mu,
-                                blend_shift);
+          blend =
+              given_modulus(red.m_eff, ColouredBlendMagnitude(var, blend_scale, h.blends, colour),
+                            mu, blend_shift);
         else if (blends_)
-          blend = given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu,
-                                blend_shift);
+          blend =
+              given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu, blend_shift);
         if (kind == 2 && d_.var_plx[si] > 0) {
           own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset);
           own->add_to(member, outlier, blend);
@@ -335,8 +336,8 @@ class JointEvaluator final : public Objective {
       }
     }
     if (!d_.group_plx.empty())
-      log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset, g.data() + L_.anchor0,
-                                    g[L_.offset]);
+      log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset,
+                                    g.data() + L_.anchor0, g[L_.offset]);
     if (L_.outlier >= 0) g[L_.outlier] = g_outlier;
     if (L_.outlier_shift >= 0) g[L_.outlier_shift] = g_shift;
     if (L_.outlier_width >= 0) g[L_.outlier_width] = g_wide * 2.0 * width;
@@ -395,7 +396,8 @@ JointLayout JointLayout::make_hierarchical(const std::vector<std::string>& names
   L.blend_scale = copy(shared.blend_scale);
   L.blend_ratio.assign(names.size(), -1);
   if (L.blend >= 0)
-    for (std::size_t r = 1; r < names.size(); ++r) L.blend_ratio[r] = add("blend_ratio_" + names[r]);
+    for (std::size_t r = 1; r < names.size(); ++r)
+      L.blend_ratio[r] = add("blend_ratio_" + names[r]);
   L.distance_scale = copy(shared.distance_scale);
   L.distance_power = copy(shared.distance_power);
   L.distance_exponent = copy(shared.distance_exponent);

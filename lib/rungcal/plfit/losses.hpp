@@ -35,7 +35,9 @@ inline constexpr EnumTable<LossKind, 5> kLossNames{{{
 inline void loss_terms(LossKind kind, double a, double s, double& rho, double& rho1) {
   const double b = a * a;
   switch (kind) {
-    case LossKind::kNone: rho = s, rho1 = 1.0; return;
+    case LossKind::kNone:
+      rho = s, rho1 = 1.0;
+      return;
     case LossKind::kHuber:
       if (s > b) {
         double root = std::sqrt(s);
@@ -66,7 +68,8 @@ inline void loss_terms(LossKind kind, double a, double s, double& rho, double& r
 }
 
 // rho(s) and rho'(s) element-wise.
-void evaluate_loss(LossKind kind, double scale, const Eigen::ArrayXd& s, Eigen::ArrayXd& rho, Eigen::ArrayXd& rho1);
+void evaluate_loss(LossKind kind, double scale, const Eigen::ArrayXd& s, Eigen::ArrayXd& rho,
+                   Eigen::ArrayXd& rho1);
 
 // The same loss as a Ceres object (nullptr for kNone), for tests and per-block use.
 std::unique_ptr<ceres::LossFunction> make_ceres_loss(LossKind kind, double scale);

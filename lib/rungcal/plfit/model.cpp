@@ -15,7 +15,8 @@
 namespace rungcal {
 using namespace model_parts;
 
-ParameterLayout ParameterLayout::for_terms(const ModelTerms& terms, const std::vector<std::string>& anchors) {
+ParameterLayout ParameterLayout::for_terms(const ModelTerms& terms,
+                                           const std::vector<std::string>& anchors) {
   ParameterLayout L;
   L.names = {"alpha", "beta"};
   int next = 2;
@@ -76,7 +77,8 @@ struct Distinct {
   std::vector<Eigen::Index> rows;
   std::vector<double> weight;
 };
-Distinct distinct(const std::vector<Eigen::Index>& idx, const Eigen::ArrayXd& old_weight, Eigen::Index n) {
+Distinct distinct(const std::vector<Eigen::Index>& idx, const Eigen::ArrayXd& old_weight,
+                  Eigen::Index n) {
   Distinct out;
   std::vector<int> slot(static_cast<std::size_t>(n), -1);
   for (Eigen::Index j : idx) {
@@ -93,12 +95,14 @@ Distinct distinct(const std::vector<Eigen::Index>& idx, const Eigen::ArrayXd& ol
 FitData::Common take_common(const FitData::Common& c, const Distinct& dd) {
   FitData::Common o;
   const auto n = static_cast<Eigen::Index>(dd.rows.size());
-  o.x.resize(n), o.xl.resize(n), o.feh.resize(n), o.m0.resize(n), o.var_m.resize(n), o.weight.resize(n);
+  o.x.resize(n), o.xl.resize(n), o.feh.resize(n), o.m0.resize(n), o.var_m.resize(n),
+      o.weight.resize(n);
   if (c.var_feh.size()) o.var_feh.resize(n);
   bool all_one = true;
   for (Eigen::Index i = 0; i < n; ++i) {
     Eigen::Index j = dd.rows[static_cast<std::size_t>(i)];
-    o.x[i] = c.x[j], o.xl[i] = c.xl[j], o.feh[i] = c.feh[j], o.m0[i] = c.m0[j], o.var_m[i] = c.var_m[j];
+    o.x[i] = c.x[j], o.xl[i] = c.xl[j], o.feh[i] = c.feh[j], o.m0[i] = c.m0[j],
+    o.var_m[i] = c.var_m[j];
     if (c.var_feh.size()) o.var_feh[i] = c.var_feh[j];
     o.weight[i] = dd.weight[static_cast<std::size_t>(i)];
     all_one = all_one && o.weight[i] == 1.0;
@@ -124,7 +128,8 @@ std::vector<Eigen::Index> kept(const std::vector<bool>& drop, Eigen::Index n) {
 FitData FitData::take(const std::vector<Eigen::Index>& p, const std::vector<Eigen::Index>& k,
                       const std::vector<Eigen::Index>& a) const {
   FitData o;
-  Distinct dp = distinct(p, parallax.weight, parallax.size()), dk = distinct(k, known.weight, known.size()),
+  Distinct dp = distinct(p, parallax.weight, parallax.size()),
+           dk = distinct(k, known.weight, known.size()),
            da = distinct(a, anchor.weight, anchor.size());
   o.parallax = take_common(parallax, dp);
   o.plx = take_array(plx, dp);
@@ -143,11 +148,14 @@ FitData FitData::take(const std::vector<Eigen::Index>& p, const std::vector<Eige
 }
 
 bool has_any_parallax(const FitData& d) {
-  if (d.parallax.size() > 0 || (d.anchor_var_plx.size() && (d.anchor_var_plx > 0).any())) return true;
-  return std::any_of(d.group_plx.begin(), d.group_plx.end(), [](const auto& g) { return g.var > 0; });
+  if (d.parallax.size() > 0 || (d.anchor_var_plx.size() && (d.anchor_var_plx > 0).any()))
+    return true;
+  return std::any_of(d.group_plx.begin(), d.group_plx.end(),
+                     [](const auto& g) { return g.var > 0; });
 }
 
-FitData FitData::without(const std::vector<bool>& dp, const std::vector<bool>& dk, const std::vector<bool>& da) const {
+FitData FitData::without(const std::vector<bool>& dp, const std::vector<bool>& dk,
+                         const std::vector<bool>& da) const {
   return take(kept(dp, parallax.size()), kept(dk, known.size()), kept(da, anchor.size()));
 }
 
@@ -170,7 +178,8 @@ Eigen::VectorXd starting_vector(const FitData& d, const FitSettings& s, const Pa
   t[L.beta] = -3.0;
   if (y.size() >= 2) {
     double n = static_cast<double>(y.size()), sx = 0, sy = 0, sxx = 0, sxy = 0;
-    for (std::size_t i = 0; i < y.size(); ++i) sx += x[i], sy += y[i], sxx += x[i] * x[i], sxy += x[i] * y[i];
+    for (std::size_t i = 0; i < y.size(); ++i)
+      sx += x[i], sy += y[i], sxx += x[i] * x[i], sxy += x[i] * y[i];
     double den = n * sxx - sx * sx;
     if (std::abs(den) > 1e-12) t[L.beta] = (n * sxy - sx * sy) / den;
     t[L.alpha] = (sy - t[L.beta] * sx) / n;
@@ -196,8 +205,8 @@ Eigen::VectorXd starting_vector(const FitData& d, const FitSettings& s, const Pa
 
 namespace {
 
-FitSolution solve_once(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& start_internal,
-                       const Eigen::VectorXd* reference) {
+FitSolution solve_once(const FitData& d, const FitSettings& s, const ParameterLayout& L,
+                       const Eigen::VectorXd& start_internal, const Eigen::VectorXd* reference) {
   FitSolution sol;
   sol.theta = start_internal;
   ceres::Problem::Options po;
@@ -228,7 +237,8 @@ FitSolution solve_once(const FitData& d, const FitSettings& s, const ParameterLa
 
 }  // namespace
 
-FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& start) {
+FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLayout& L,
+                      const Eigen::VectorXd& start) {
   if (s.space == FitSpace::kHierarchical) return solve_hierarchical(d, s, L, start);
   Eigen::VectorXd x = to_internal(start, L);
   if (!decoupled(s, L)) {
@@ -254,7 +264,8 @@ FitSolution solve_fit(const FitData& d, const FitSettings& s, const ParameterLay
 
 Eigen::VectorXd gauss_newton_start(const FitData& d, const FitSettings& s, const ParameterLayout& L,
                                    const Eigen::VectorXd& theta) {
-  if (s.space == FitSpace::kHierarchical) return theta;  // its quasi-Newton solver starts well from the optimum
+  if (s.space == FitSpace::kHierarchical)
+    return theta;  // its quasi-Newton solver starts well from the optimum
   const Eigen::VectorXd x = to_internal(theta, L);
   const Eigen::VectorXd reference = x;
   RelationCost cost(d, s, L, decoupled(s, L) ? &reference : nullptr);
@@ -268,7 +279,8 @@ Eigen::VectorXd gauss_newton_start(const FitData& d, const FitSettings& s, const
   for (int j = 0; j < P; ++j)
     if (s.params[j].mode != ParamMode::kFixed) free.push_back(j);
   Eigen::MatrixXd Jf(n, static_cast<Eigen::Index>(free.size()));
-  for (std::size_t k = 0; k < free.size(); ++k) Jf.col(static_cast<Eigen::Index>(k)) = J.col(free[k]);
+  for (std::size_t k = 0; k < free.size(); ++k)
+    Jf.col(static_cast<Eigen::Index>(k)) = J.col(free[k]);
   Eigen::VectorXd step = (Jf.transpose() * Jf).ldlt().solve(-Jf.transpose() * f);
   if (!step.allFinite()) return theta;
   Eigen::VectorXd out = x;
@@ -277,8 +289,8 @@ Eigen::VectorXd gauss_newton_start(const FitData& d, const FitSettings& s, const
   return to_external(out, L);
 }
 
-bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayout& L, const Eigen::VectorXd& theta,
-                    Eigen::MatrixXd& covariance) {
+bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayout& L,
+                    const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance) {
   if (s.space == FitSpace::kHierarchical) {
     std::vector<std::string> undetermined;
     return hierarchical_covariance(d, s, L, theta, covariance, undetermined);
@@ -288,12 +300,14 @@ bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayou
   ceres::Problem::Options po;
   po.cost_function_ownership = ceres::TAKE_OWNERSHIP;
   ceres::Problem problem(po);
-  configure_problem(problem, new RelationCost(d, s, L, decoupled(s, L) ? &reference : nullptr), s, L, t.data());
+  configure_problem(problem, new RelationCost(d, s, L, decoupled(s, L) ? &reference : nullptr), s,
+                    L, t.data());
   // A non-finite Jacobian (a degenerate system) would reach Eigen's SVD: no covariance then.
   if (!t.allFinite()) return false;
   ceres::CRSMatrix jacobian;
   double cost = 0;
-  if (!problem.Evaluate(ceres::Problem::EvaluateOptions(), &cost, nullptr, nullptr, &jacobian) || !std::isfinite(cost))
+  if (!problem.Evaluate(ceres::Problem::EvaluateOptions(), &cost, nullptr, nullptr, &jacobian) ||
+      !std::isfinite(cost))
     return false;
   for (double v : jacobian.values)
     if (!std::isfinite(v)) return false;
@@ -307,7 +321,8 @@ bool fit_covariance(const FitData& d, const FitSettings& s, const ParameterLayou
   // From sigma^2 to sigma by the delta method, d sigma = d(sigma^2) / (2 sigma); undefined at
   // sigma = 0 (the likelihood's maximum on its boundary), where that row stays NaN.
   Eigen::VectorXd scale = Eigen::VectorXd::Ones(L.size);
-  scale[L.sigma] = theta[L.sigma] > 0 ? 0.5 / theta[L.sigma] : std::numeric_limits<double>::quiet_NaN();
+  scale[L.sigma] =
+      theta[L.sigma] > 0 ? 0.5 / theta[L.sigma] : std::numeric_limits<double>::quiet_NaN();
   covariance = scale.asDiagonal() * c * scale.asDiagonal();
   if (s.params[L.sigma].mode == ParamMode::kFixed) {
     covariance.row(L.sigma).setZero();

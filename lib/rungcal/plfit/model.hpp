@@ -59,12 +59,12 @@ struct ModelTerms {
   bool has_break = false;
   double break_log_period = 1.0;
   bool has_metallicity = false;
-  int n_anchors = 0;           // groups sharing a fitted modulus: anchors, then clusters
+  int n_anchors = 0;          // groups sharing a fitted modulus: anchors, then clusters
   bool hierarchical = false;  // the hyperparameters of FitSpace::kHierarchical
   bool feh_errors = false;    // [Fe/H] errors are marginalised: its population mean and spread
   int distance_bins = 0;      // > 0: the smooth-histogram distance prior with this many bins
   bool blends = false;        // the blend component's fraction and scale (hierarchical)
-  int n_clusters = 0;         // of n_anchors, the last n_clusters are clusters (FitOptions::clusters)
+  int n_clusters = 0;  // of n_anchors, the last n_clusters are clusters (FitOptions::clusters)
 };
 
 // Where each parameter sits in the parameter vector.
@@ -79,30 +79,31 @@ struct ParameterLayout {
   int distance_bin0 = -1, distance_bins = 0;  // smooth histogram: log-weights eta_1 .. eta_(B-1)
   int size = 0;
   std::vector<std::string> names;
-  static ParameterLayout for_terms(const ModelTerms& terms, const std::vector<std::string>& anchor_names);
+  static ParameterLayout for_terms(const ModelTerms& terms,
+                                   const std::vector<std::string>& anchor_names);
 };
 
 // Calibrators of one relation, by kind, as column arrays.
 struct FitData {
   struct Common {
-    Eigen::ArrayXd x;       // log P_F - log P0
-    Eigen::ArrayXd xl;      // max(0, log P_F - log Pb)
-    Eigen::ArrayXd feh;     // [Fe/H] (0 when the term is off)
-    Eigen::ArrayXd var_feh; // its error's square (empty: no errors)
-    Eigen::ArrayXd m0;      // dereddened (or Wesenheit) apparent magnitude
-    Eigen::ArrayXd var_m;   // its variance
-    Eigen::ArrayXd weight;  // multiplicity of each row (bootstrap); empty = every row once
-    Eigen::ArrayXd sqrt_weight;  // its square root, what the residuals are scaled by
+    Eigen::ArrayXd x;              // log P_F - log P0
+    Eigen::ArrayXd xl;             // max(0, log P_F - log Pb)
+    Eigen::ArrayXd feh;            // [Fe/H] (0 when the term is off)
+    Eigen::ArrayXd var_feh;        // its error's square (empty: no errors)
+    Eigen::ArrayXd m0;             // dereddened (or Wesenheit) apparent magnitude
+    Eigen::ArrayXd var_m;          // its variance
+    Eigen::ArrayXd weight;         // multiplicity of each row (bootstrap); empty = every row once
+    Eigen::ArrayXd sqrt_weight;    // its square root, what the residuals are scaled by
     std::vector<std::size_t> row;  // catalog row, for reporting
     Eigen::Index size() const { return x.size(); }
   };
-  Common parallax;            // parallax calibrators
-  Eigen::ArrayXd plx;         // pi_obs - Z (mas)
-  Eigen::ArrayXd var_plx;     // inflated parallax variance (mas^2)
-  Common known;               // stars or clusters with a known distance modulus
+  Common parallax;         // parallax calibrators
+  Eigen::ArrayXd plx;      // pi_obs - Z (mas)
+  Eigen::ArrayXd var_plx;  // inflated parallax variance (mas^2)
+  Common known;            // stars or clusters with a known distance modulus
   Eigen::ArrayXd mu, var_mu;
-  Common anchor;              // stars of anchor galaxies and clusters
-  std::vector<int> group;     // group index per anchor star (ModelTerms::n_anchors)
+  Common anchor;           // stars of anchor galaxies and clusters
+  std::vector<int> group;  // group index per anchor star (ModelTerms::n_anchors)
   // Per anchor star: its own parallax, pi_obs - Z (mas), and inflated variance (0: none; only
   // cluster members have one). The hierarchical model's member term (hierarchical.hpp).
   Eigen::ArrayXd anchor_plx, anchor_var_plx;
@@ -118,7 +119,8 @@ struct FitData {
   // rows are kept once with their count as weight: the same objective, fewer residuals.
   FitData take(const std::vector<Eigen::Index>& p, const std::vector<Eigen::Index>& k,
                const std::vector<Eigen::Index>& a) const;
-  FitData without(const std::vector<bool>& drop_p, const std::vector<bool>& drop_k, const std::vector<bool>& drop_a) const;
+  FitData without(const std::vector<bool>& drop_p, const std::vector<bool>& drop_k,
+                  const std::vector<bool>& drop_a) const;
 };
 
 // Whether any star or cluster of d has a parallax: the offset is measured only then.
@@ -143,7 +145,7 @@ inline constexpr EnumTable<ScatterEstimator, 2> kScatterEstimatorNames{{{
 
 // The hierarchical model's blend component: stars made brighter by an unresolved companion.
 enum class BlendComponent {
-  kNone,         // no such component: blends are left to the broad outlier component
+  kNone,  // no such component: blends are left to the broad outlier component
   // A magnitude brighter than a member's by b ~ Exp(mean s), s = blend_scale_mag fitted:
   // the member Gaussian convolved with a one-sided exponential, the exponentially modified
   // Gaussian (Grushka 1972, Anal. Chem. 44, 1733), closed form in erfc (blend_density.hpp).
@@ -166,7 +168,7 @@ inline constexpr EnumTable<BlendComponent, 3> kBlendComponentNames{{{
 // The hierarchical likelihood's fixed choices (FitSpace::kHierarchical).
 struct HierarchicalSettings {
   DistancePriorFamily prior = DistancePriorFamily::kSmoothHistogram;
-  int quadrature_nodes = 24;            // Gauss-Hermite nodes per star and component
+  int quadrature_nodes = 24;  // Gauss-Hermite nodes per star and component
   // The outlier component: the member's magnitude variance plus outlier_mag_width^2, its
   // magnitude brighter by outlier_mag_shift (blends only brighten), its parallax error
   // times outlier_parallax_factor. The shift and width are parameters (outlier_shift_mag,
@@ -192,8 +194,9 @@ struct HierarchicalSettings {
   // alpha (docs/method.md: up to 4 errors with weak parallaxes). A grid that moves with
   // alpha keeps that fit the same for every alpha. The alpha the grid was placed for:
   double histogram_alpha_ref = 0.0;
-  double histogram_walk_sigma = kHistogramWalkSigma;  // random-walk hyperprior step of the log-weights
-  double histogram_margin = kHistogramMargin;         // grid beyond the data's 0.5-99.5% range (mag)
+  double histogram_walk_sigma =
+      kHistogramWalkSigma;                     // random-walk hyperprior step of the log-weights
+  double histogram_margin = kHistogramMargin;  // grid beyond the data's 0.5-99.5% range (mag)
 };
 
 struct FitSettings {
@@ -225,33 +228,34 @@ struct FitSettings {
 // The raw (non-robust) normalised residual of every star at a parameter vector, in the
 // order parallax, known, anchor; and s^2 of each.
 struct StarResiduals {
-  Eigen::ArrayXd r, s2, model_abs_mag, predicted;  // predicted: pi_phot (parallax space) or m0 model
+  Eigen::ArrayXd r, s2, model_abs_mag,
+      predicted;              // predicted: pi_phot (parallax space) or m0 model
   Eigen::ArrayXd membership;  // hierarchical: probability of being a member, not an outlier
 };
-StarResiduals star_residuals(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                             const Eigen::VectorXd& theta);
+StarResiduals star_residuals(const FitData& data, const FitSettings& settings,
+                             const ParameterLayout& layout, const Eigen::VectorXd& theta);
 
 struct FitSolution {
   Eigen::VectorXd theta;
-  bool usable = false;       // Ceres: IsSolutionUsable()
-  std::string termination;   // Ceres termination type
+  bool usable = false;      // Ceres: IsSolutionUsable()
+  std::string termination;  // Ceres termination type
   std::string message;
   int iterations = 0;
-  double cost = 0;           // 1/2 sum rho + normalisation + priors, at the optimum
+  double cost = 0;  // 1/2 sum rho + normalisation + priors, at the optimum
   std::string brief_report;
 };
 
-// Solves with Ceres (Levenberg-Marquardt, dense normal-equation Cholesky) from a start vector. With the scatter
-// free, the Gaussian likelihood's log-normalisation sum ln s^2 is part of the objective
+// Solves with Ceres (Levenberg-Marquardt, dense normal-equation Cholesky) from a start vector. With
+// the scatter free, the Gaussian likelihood's log-normalisation sum ln s^2 is part of the objective
 // (as extra residuals sqrt(ln s_i^2 + K_i), K_i keeping the root real): least squares alone
 // would drive the scatter to infinity. See ScatterEstimator for which parameters it acts on.
-FitSolution solve_fit(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                      const Eigen::VectorXd& start);
+FitSolution solve_fit(const FitData& data, const FitSettings& settings,
+                      const ParameterLayout& layout, const Eigen::VectorXd& start);
 
 // theta plus one Gauss-Newton step of the objective on this data (fixed parameters kept):
 // a cheap start for a bootstrap resample, whose optimum is a small step from the full fit's.
-Eigen::VectorXd gauss_newton_start(const FitData& data, const FitSettings& settings, const ParameterLayout& layout,
-                                   const Eigen::VectorXd& theta);
+Eigen::VectorXd gauss_newton_start(const FitData& data, const FitSettings& settings,
+                                   const ParameterLayout& layout, const Eigen::VectorXd& theta);
 
 // Covariance of the parameters at the optimum (Ceres Covariance, dense SVD); fixed
 // parameters get zero rows. Returns false when the Jacobian is rank-deficient.
@@ -260,6 +264,7 @@ bool fit_covariance(const FitData& data, const FitSettings& settings, const Para
 
 // A starting vector: magnitude-space least squares on the stars with good parallaxes or
 // known distances, then the settings' values for fixed/prior/started parameters.
-Eigen::VectorXd starting_vector(const FitData& data, const FitSettings& settings, const ParameterLayout& layout);
+Eigen::VectorXd starting_vector(const FitData& data, const FitSettings& settings,
+                                const ParameterLayout& layout);
 
 }  // namespace rungcal

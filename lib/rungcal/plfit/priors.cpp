@@ -13,12 +13,15 @@ bool correlated_anchors(const AnchorBlock& a) {
   return a.count > 1 && a.correlation.rows() == a.count;
 }
 
-bool is_anchor(const AnchorBlock& a, int j) { return correlated_anchors(a) && j >= a.first && j < a.first + a.count; }
+bool is_anchor(const AnchorBlock& a, int j) {
+  return correlated_anchors(a) && j >= a.first && j < a.first + a.count;
+}
 
 // The anchors' prior sigmas (anchor order).
 Eigen::VectorXd anchor_sigmas(const std::vector<ParamSpec>& params, const AnchorBlock& a) {
   Eigen::VectorXd sigma(a.count);
-  for (int g = 0; g < a.count; ++g) sigma[g] = params[static_cast<std::size_t>(a.first + g)].prior_sigma;
+  for (int g = 0; g < a.count; ++g)
+    sigma[g] = params[static_cast<std::size_t>(a.first + g)].prior_sigma;
   return sigma;
 }
 
@@ -82,7 +85,9 @@ void redraw_prior_centres(std::vector<ParamSpec>& params, const AnchorBlock& anc
   if (!correlated_anchors(anchors)) return;
   const int n = anchors.count;
   const Eigen::MatrixXd lower =
-      Eigen::LLT<Eigen::MatrixXd>(covariance_of(anchor_sigmas(params, anchors), anchors.correlation)).matrixL();
+      Eigen::LLT<Eigen::MatrixXd>(
+          covariance_of(anchor_sigmas(params, anchors), anchors.correlation))
+          .matrixL();
   Eigen::VectorXd x(n);
   for (int g = 0; g < n; ++g) x[g] = rng.normal();
   const Eigen::VectorXd shift = lower * x;

@@ -85,11 +85,13 @@ bool sandwich_covariance(const FitData& d, const FitSettings& s, const Parameter
   Eigen::MatrixXd B = scored.transpose() * scored;
   // Each whitened prior row w adds w w^T over the free parameters to both A and B.
   std::vector<Eigen::Index> column(static_cast<std::size_t>(L.size), -1);
-  for (Eigen::Index k = 0; k < P; ++k) column[static_cast<std::size_t>(free[static_cast<std::size_t>(k)])] = k;
+  for (Eigen::Index k = 0; k < P; ++k)
+    column[static_cast<std::size_t>(free[static_cast<std::size_t>(k)])] = k;
   for (const PriorRow& row : prior_rows(s, L)) {
     Eigen::VectorXd whitened = Eigen::VectorXd::Zero(P);
     for (std::size_t k = 0; k < row.params.size(); ++k)
-      if (const Eigen::Index c = column[static_cast<std::size_t>(row.params[k])]; c >= 0) whitened[c] = row.weights[k];
+      if (const Eigen::Index c = column[static_cast<std::size_t>(row.params[k])]; c >= 0)
+        whitened[c] = row.weights[k];
     A += whitened * whitened.transpose();
     B += whitened * whitened.transpose();
   }

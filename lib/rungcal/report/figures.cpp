@@ -166,8 +166,8 @@ std::optional<FigureBox> free_corner(const Panel& top, const std::vector<FigureB
 
 }  // namespace
 
-FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
-                         const std::string& path, FigureWidth width) {
+FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, const StarTable& res,
+                         FigureFormat format, const std::string& path, FigureWidth width) {
   const Canvas canvas = canvas_for(width);
   const FitRelationRecord rel = cal.relation_record(relation);
   const double offset = parameter(rel, "parallax_offset_mas");
@@ -176,13 +176,22 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   std::vector<Point> pts;
   FigureSummary s;
   for (std::size_t i = 0; i < res.rows(); ++i) {
-    if (res.column("relation").text[i] != relation || res.column("m0").is_null(i) || res.column("log_period_f").is_null(i)) continue;
+    if (res.column("relation").text[i] != relation || res.column("m0").is_null(i) ||
+        res.column("log_period_f").is_null(i))
+      continue;
     const std::string kind = res.column("kind").is_null(i) ? "" : res.column("kind").text[i];
     const double m0 = res.column("m0").real[i], x = res.column("log_period_f").real[i];
-    Point p{x, 0, 0, 0, res.column("residual").is_null(i) ? NAN : res.column("residual").real[i], res.column("used").boolean[i] != 0, false};
+    Point p{x,
+            0,
+            0,
+            0,
+            res.column("residual").is_null(i) ? NAN : res.column("residual").real[i],
+            res.column("used").boolean[i] != 0,
+            false};
     if (kind == kCalibratorKindNames.name(CalibratorKind::kParallax) &&
         !res.column("parallax_corrected_mas").is_null(i)) {
-      const double pi = res.column("parallax_corrected_mas").real[i] - offset, e = res.column("parallax_err_mas").real[i];
+      const double pi = res.column("parallax_corrected_mas").real[i] - offset,
+                   e = res.column("parallax_err_mas").real[i];
       if (!(pi > 0)) {  // no magnitude to plot: counted and said in the title
         ++s.not_drawn_points;
         continue;
@@ -200,14 +209,18 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
     } else {
       continue;
     }
-    p.mark = !p.used ? Mark::kRefused : (likely_outlier(res, i) ? Mark::kLikelyOutlier : Mark::kUsed);
+    p.mark =
+        !p.used ? Mark::kRefused : (likely_outlier(res, i) ? Mark::kLikelyOutlier : Mark::kUsed);
     pts.push_back(p);
     (p.used ? s.used_points : s.rejected_points) += 1;
     s.likely_outlier_points += p.mark == Mark::kLikelyOutlier ? 1 : 0;
   }
-  if (pts.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no star to plot");
+  if (pts.empty())
+    throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no star to plot");
   double xmin = 1e9, xmax = -1e9, ymin = 1e9, ymax = -1e9;
-  for (const auto& p : pts) xmin = std::min(xmin, p.x), xmax = std::max(xmax, p.x), ymin = std::min(ymin, p.y), ymax = std::max(ymax, p.y);
+  for (const auto& p : pts)
+    xmin = std::min(xmin, p.x), xmax = std::max(xmax, p.x), ymin = std::min(ymin, p.y),
+    ymax = std::max(ymax, p.y);
   const double padx = 0.05 * (xmax - xmin + 0.1), pady = 0.08 * (ymax - ymin + 0.5);
   AtomicOutput out(path);
   auto surface = open_surface(format, out.reopen_path(), canvas);
@@ -289,7 +302,8 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   cairo_line_to(cr, bottom.right, bottom.py(0));
   cairo_stroke(cr);
   for (const auto& p : pts)
-    if (std::isfinite(p.r)) marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.mark);
+    if (std::isfinite(p.r))
+      marker(cr, bottom.px(p.x), bottom.py(std::clamp(p.r, -4.4, 4.4)), p.mark);
   for (const auto& b : axes(cr, bottom, "log10 P (days)", "r / sigma").labels) ink.push_back(b);
   for (const auto& b : title_lines(cr, top.left, title)) ink.push_back(b);
   commit_figure(std::move(surface), out, path);
@@ -300,8 +314,9 @@ FigureSummary pl_diagram(const Calibration& cal, const std::string& relation, co
   return s;
 }
 
-FigureSummary residual_trends(const Calibration& cal, const std::string& relation, const StarTable& res, FigureFormat format,
-                              const std::string& path, FigureWidth width) {
+FigureSummary residual_trends(const Calibration& cal, const std::string& relation,
+                              const StarTable& res, FigureFormat format, const std::string& path,
+                              FigureWidth width) {
   const Canvas canvas = canvas_for(width);
   struct Series {
     std::string label;  // the x axis's title
@@ -339,7 +354,9 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
   std::vector<Series*> shown;
   std::vector<std::string> left_out;
   for (auto& p : panels) p.x.empty() ? left_out.push_back(p.name) : shown.push_back(&p);
-  if (shown.empty()) throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left", "no residual with [Fe/H], G or a parallax");
+  if (shown.empty())
+    throw InputError({path, {}, relation, "row", "relation"}, "no_rows_left",
+                     "no residual with [Fe/H], G or a parallax");
   // A panel left out is said, so that a reader of the figure alone knows it is not an
   // oversight (G comes from the catalog's gaia_g column, which an ingest may not map).
   if (!left_out.empty()) {
@@ -363,17 +380,22 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
   std::vector<FigureBox> ink = title_lines(cr, kPanelLeft, title);
   for (std::size_t k = 0; k < shown.size(); ++k) {
     const Series& p = *shown[k];
-    double lo = *std::min_element(p.x.begin(), p.x.end()), hi = *std::max_element(p.x.begin(), p.x.end());
+    double lo = *std::min_element(p.x.begin(), p.x.end()),
+           hi = *std::max_element(p.x.begin(), p.x.end());
     double pad = 0.05 * (hi - lo + 0.1);
     const double panel_top = first_top + static_cast<double>(k) * (height + stride_extra);
-    const Panel panel{kPanelLeft, canvas.width - kPanelRightMargin, panel_top, panel_top + height,
-                      lo - pad, hi + pad, -4.5, 4.5, false};
+    const Panel panel{kPanelLeft, canvas.width - kPanelRightMargin,
+                      panel_top,  panel_top + height,
+                      lo - pad,   hi + pad,
+                      -4.5,       4.5,
+                      false};
     cairo_set_source_rgb(cr, 0, 0, 0);
     cairo_set_line_width(cr, 0.8);
     cairo_move_to(cr, panel.left, panel.py(0));
     cairo_line_to(cr, panel.right, panel.py(0));
     cairo_stroke(cr);
-    for (std::size_t i = 0; i < p.x.size(); ++i) marker(cr, panel.px(p.x[i]), panel.py(std::clamp(p.r[i], -4.4, 4.4)), p.used[i]);
+    for (std::size_t i = 0; i < p.x.size(); ++i)
+      marker(cr, panel.px(p.x[i]), panel.py(std::clamp(p.r[i], -4.4, 4.4)), p.used[i]);
     for (const auto& b : axes(cr, panel, p.label, "r / sigma").labels) ink.push_back(b);
     if (k == 0) record_plot_box(s, panel, canvas);
     record_panel(s, panel, p.label, canvas);
@@ -383,8 +405,8 @@ FigureSummary residual_trends(const Calibration& cal, const std::string& relatio
   return s;
 }
 
-FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation, FigureFormat format,
-                            const std::string& path, FigureWidth width) {
+FigureSummary version_trend(const std::vector<Calibration>& versions, const std::string& relation,
+                            FigureFormat format, const std::string& path, FigureWidth width) {
   const Canvas canvas = canvas_for(width);
   FigureSummary s;
   std::vector<double> v, a, ae, o, oe;
@@ -393,15 +415,18 @@ FigureSummary version_trend(const std::vector<Calibration>& versions, const std:
     v.push_back(c.version());
     a.push_back(parameter(rel, "alpha")), ae.push_back(parameter_error(rel, "alpha"));
     // In mas, as in the tables and the calibration file (issue 20: one unit everywhere).
-    o.push_back(parameter(rel, "parallax_offset_mas")), oe.push_back(parameter_error(rel, "parallax_offset_mas"));
+    o.push_back(parameter(rel, "parallax_offset_mas")),
+        oe.push_back(parameter_error(rel, "parallax_offset_mas"));
   }
   auto range = [](const std::vector<double>& y, const std::vector<double>& e) {
     double lo = 1e9, hi = -1e9;
-    for (std::size_t i = 0; i < y.size(); ++i) lo = std::min(lo, y[i] - e[i]), hi = std::max(hi, y[i] + e[i]);
+    for (std::size_t i = 0; i < y.size(); ++i)
+      lo = std::min(lo, y[i] - e[i]), hi = std::max(hi, y[i] + e[i]);
     double pad = 0.1 * (hi - lo + 1e-3);
     return std::pair{lo - pad, hi + pad};
   };
-  const double x0 = *std::min_element(v.begin(), v.end()) - 0.5, x1 = *std::max_element(v.begin(), v.end()) + 0.5;
+  const double x0 = *std::min_element(v.begin(), v.end()) - 0.5,
+               x1 = *std::max_element(v.begin(), v.end()) + 0.5;
   auto [a0, a1] = range(a, ae);
   auto [o0, o1] = range(o, oe);
   // Title above the plot boxes, the two panels sharing the height down to the bottom

@@ -13,12 +13,23 @@ std::string html_escape(std::string_view text) {
   out.reserve(text.size());
   for (char c : text) {
     switch (c) {
-      case '&': out += "&amp;"; break;
-      case '<': out += "&lt;"; break;
-      case '>': out += "&gt;"; break;
-      case '"': out += "&quot;"; break;
-      case '\'': out += "&#39;"; break;
-      default: out += c;
+      case '&':
+        out += "&amp;";
+        break;
+      case '<':
+        out += "&lt;";
+        break;
+      case '>':
+        out += "&gt;";
+        break;
+      case '"':
+        out += "&quot;";
+        break;
+      case '\'':
+        out += "&#39;";
+        break;
+      default:
+        out += c;
     }
   }
   return out;
@@ -78,18 +89,21 @@ std::string history_chart_svg(const std::string& title, const std::vector<Histor
     return v1 == v0 ? (kLeft + kWidth - kRight) / 2
                     : kLeft + (v - v0) * (kWidth - kLeft - kRight) / static_cast<double>(v1 - v0);
   };
-  auto py = [&](double value) { return kTop + (y.hi - value) * (kHeight - kTop - kBottom) / (y.hi - y.lo); };
-  out += fmt::format("<text x=\"{}\" y=\"14\" class=\"chart-title\">{}</text>\n", kLeft, html_escape(title));
-  out += fmt::format("<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" class=\"frame\"/>\n", kLeft, kTop,
-                     kWidth - kLeft - kRight, kHeight - kTop - kBottom);
+  auto py = [&](double value) {
+    return kTop + (y.hi - value) * (kHeight - kTop - kBottom) / (y.hi - y.lo);
+  };
+  out += fmt::format("<text x=\"{}\" y=\"14\" class=\"chart-title\">{}</text>\n", kLeft,
+                     html_escape(title));
+  out += fmt::format("<rect x=\"{}\" y=\"{}\" width=\"{}\" height=\"{}\" class=\"frame\"/>\n",
+                     kLeft, kTop, kWidth - kLeft - kRight, kHeight - kTop - kBottom);
   // Axis labels: the value range at the left, the first and last version below.
-  out += fmt::format("<text x=\"{}\" y=\"{}\" class=\"tick\" text-anchor=\"end\">{:.4g}</text>\n", kLeft - 4,
-                     kTop + 4, y.hi);
-  out += fmt::format("<text x=\"{}\" y=\"{}\" class=\"tick\" text-anchor=\"end\">{:.4g}</text>\n", kLeft - 4,
-                     kHeight - kBottom, y.lo);
+  out += fmt::format("<text x=\"{}\" y=\"{}\" class=\"tick\" text-anchor=\"end\">{:.4g}</text>\n",
+                     kLeft - 4, kTop + 4, y.hi);
+  out += fmt::format("<text x=\"{}\" y=\"{}\" class=\"tick\" text-anchor=\"end\">{:.4g}</text>\n",
+                     kLeft - 4, kHeight - kBottom, y.lo);
   for (int v : {v0, v1})
-    out += fmt::format("<text x=\"{}\" y=\"{}\" class=\"tick\" text-anchor=\"middle\">v{}</text>\n", px(v),
-                       kHeight - kBottom + 14, v);
+    out += fmt::format("<text x=\"{}\" y=\"{}\" class=\"tick\" text-anchor=\"middle\">v{}</text>\n",
+                       px(v), kHeight - kBottom + 14, v);
   for (const auto& p : points) {
     const double x = px(p.version);
     if (std::isfinite(p.error))
@@ -98,8 +112,8 @@ std::string history_chart_svg(const std::string& title, const std::vector<Histor
     std::string cls = "version-point";
     if (p.withdrawn) cls += " withdrawn";
     if (p.alarm) cls += " alarm";
-    out += fmt::format("<circle cx=\"{}\" cy=\"{}\" r=\"4\" class=\"{}\" data-version=\"{}\"/>\n", x,
-                       py(p.value), cls, p.version);
+    out += fmt::format("<circle cx=\"{}\" cy=\"{}\" r=\"4\" class=\"{}\" data-version=\"{}\"/>\n",
+                       x, py(p.value), cls, p.version);
   }
   return out + "</svg>\n";
 }

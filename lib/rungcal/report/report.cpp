@@ -82,8 +82,9 @@ ReportInputs read_report_inputs(const ReportOptions& o) {
   }
   if (o.lightcurves.empty()) {
     if (!o.stars.empty())
-      throw InputError({"rungcal-report", {}, "--star"}, "needs_lightcurves",
-                       "--star draws a light curve: give the light-curve product with --lightcurves");
+      throw InputError(
+          {"rungcal-report", {}, "--star"}, "needs_lightcurves",
+          "--star draws a light curve: give the light-curve product with --lightcurves");
     return in;
   }
   in.light_curves = read_lightcurve_tables(o.lightcurves);
@@ -117,7 +118,8 @@ ReportOutcome write_report(const ReportOptions& o) {
   const char* ext[] = {"tex", "csv", "md"};
   for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
     const std::string e = ext[static_cast<int>(f)];
-    write_file_atomically(o.out_dir + "/relations." + e, relation_table(in.versions, f, o.table_errors));
+    write_file_atomically(o.out_dir + "/relations." + e,
+                          relation_table(in.versions, f, o.table_errors));
     ++outcome.tables;
     if (in.budget) {
       write_file_atomically(o.out_dir + "/error_budget." + e, error_budget_table(*in.budget, f));
@@ -135,7 +137,8 @@ ReportOutcome write_report(const ReportOptions& o) {
     for (const auto& rel : last.relation_names()) {
       if (in.have_residuals) {
         pl_diagram(last, rel, in.residuals, f, report_file(o, "pl_", rel, e), o.figure_width);
-        residual_trends(last, rel, in.residuals, f, report_file(o, "residuals_", rel, e), o.figure_width);
+        residual_trends(last, rel, in.residuals, f, report_file(o, "residuals_", rel, e),
+                        o.figure_width);
         outcome.figures += 2;
       }
       if (in.versions.size() > 1) {
@@ -144,7 +147,8 @@ ReportOutcome write_report(const ReportOptions& o) {
       }
     }
     for (const auto& star : in.stars) {
-      light_curve_figure(*in.light_curves, star, f, report_file(o, "lightcurve_", star, e), o.figure_width);
+      light_curve_figure(*in.light_curves, star, f, report_file(o, "lightcurve_", star, e),
+                         o.figure_width);
       ++outcome.figures;
     }
   }

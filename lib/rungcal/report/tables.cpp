@@ -12,8 +12,8 @@ namespace {
 
 struct Quantity {
   const char* parameter;
-  const char* label;        // plain text
-  const char* latex;        // LaTeX
+  const char* label;  // plain text
+  const char* latex;  // LaTeX
 };
 
 const Quantity kQuantities[] = {
@@ -55,7 +55,8 @@ std::string cell(const FitParameterRecord& p, TableFormat f, TableErrors errors)
     second = fmt::format(" ({:.{}f})", boot, std::max(r.decimals, 0));
   if (f == TableFormat::kLatex) {
     if (fixed) return fmt::format("${}$ (fixed)", r.value);
-    return r.error.empty() ? fmt::format("${}$", r.value) : fmt::format("${} \\pm {}${}", r.value, r.error, second);
+    return r.error.empty() ? fmt::format("${}$", r.value)
+                           : fmt::format("${} \\pm {}${}", r.value, r.error, second);
   }
   if (fixed) return r.value + " (fixed)";
   return r.error.empty() ? r.value : fmt::format("{} +- {}{}", r.value, r.error, second);
@@ -66,10 +67,12 @@ struct Grid {
   std::vector<std::vector<std::string>> rows;
 };
 
-std::string render(const Grid& g, TableFormat f, const std::string& caption, const std::string& label) {
+std::string render(const Grid& g, TableFormat f, const std::string& caption,
+                   const std::string& label) {
   std::string out;
   if (f == TableFormat::kCsv) {
-    for (std::size_t i = 0; i < g.header.size(); ++i) out += (i ? "," : "") + quote_csv(g.header[i]);
+    for (std::size_t i = 0; i < g.header.size(); ++i)
+      out += (i ? "," : "") + quote_csv(g.header[i]);
     out += "\n";
     for (const auto& row : g.rows) {
       for (std::size_t i = 0; i < row.size(); ++i) out += (i ? "," : "") + quote_csv(row[i]);
@@ -90,9 +93,11 @@ std::string render(const Grid& g, TableFormat f, const std::string& caption, con
     }
     return out;
   }
-  out += fmt::format("\\begin{{deluxetable}}{{l{}}}\n\\tablecaption{{{}\\label{{{}}}}}\n\\tablehead{{", std::string(g.header.size() - 1, 'c'),
-                     caption, label);
-  for (std::size_t i = 0; i < g.header.size(); ++i) out += (i ? " & " : "") + fmt::format("\\colhead{{{}}}", g.header[i]);
+  out +=
+      fmt::format("\\begin{{deluxetable}}{{l{}}}\n\\tablecaption{{{}\\label{{{}}}}}\n\\tablehead{{",
+                  std::string(g.header.size() - 1, 'c'), caption, label);
+  for (std::size_t i = 0; i < g.header.size(); ++i)
+    out += (i ? " & " : "") + fmt::format("\\colhead{{{}}}", g.header[i]);
   out += "}\n\\startdata\n";
   for (std::size_t r = 0; r < g.rows.size(); ++r) {
     for (std::size_t i = 0; i < g.rows[r].size(); ++i) out += (i ? " & " : "") + g.rows[r][i];
@@ -104,24 +109,31 @@ std::string render(const Grid& g, TableFormat f, const std::string& caption, con
 
 // The caption of a relation table: the relation's equation, every relation's pivot, and
 // which errors the table shows.
-std::string relation_caption(const std::vector<Calibration>& versions, const std::vector<std::string>& relations,
-                             TableErrors errors, bool latex) {
+std::string relation_caption(const std::vector<Calibration>& versions,
+                             const std::vector<std::string>& relations, TableErrors errors,
+                             bool latex) {
   std::string names, pivots;
-  for (const auto& c : versions) names += (names.empty() ? "" : ", ") + (latex ? escape_latex(c.label()) : c.label());
+  for (const auto& c : versions)
+    names += (names.empty() ? "" : ", ") + (latex ? escape_latex(c.label()) : c.label());
   for (const auto& rel : relations) {
     double pivot = NAN;
     for (const auto& c : versions)
       if (const auto r = c.find_relation_record(rel)) pivot = r->pivot_log_period;
-    pivots += fmt::format("{}{} {}", pivots.empty() ? "" : ", ", latex ? escape_latex(rel) : rel, pivot);
+    pivots +=
+        fmt::format("{}{} {}", pivots.empty() ? "" : ", ", latex ? escape_latex(rel) : rel, pivot);
   }
   const char* equation =
-      latex ? "$M = \\alpha + \\beta\\,(\\log P - \\log P_0) + \\gamma\\,{\\rm [Fe/H]}$, with slope "
-              "$\\beta_{\\rm long}$ above a break where fitted"
-            : "M = alpha + beta (log P - log P0) + gamma [Fe/H], with slope beta_long above a break where fitted";
-  const char* shown = errors == TableErrors::kCovariance ? "Errors from the covariance at the optimum (inverse Hessian)."
-                      : errors == TableErrors::kBootstrap
-                          ? "Errors from the bootstrap (half the 16th-84th percentile range)."
-                          : "Errors from the covariance at the optimum; in parentheses, from the bootstrap.";
+      latex
+          ? "$M = \\alpha + \\beta\\,(\\log P - \\log P_0) + \\gamma\\,{\\rm [Fe/H]}$, with slope "
+            "$\\beta_{\\rm long}$ above a break where fitted"
+          : "M = alpha + beta (log P - log P0) + gamma [Fe/H], with slope beta_long above a break "
+            "where fitted";
+  const char* shown =
+      errors == TableErrors::kCovariance
+          ? "Errors from the covariance at the optimum (inverse Hessian)."
+      : errors == TableErrors::kBootstrap
+          ? "Errors from the bootstrap (half the 16th-84th percentile range)."
+          : "Errors from the covariance at the optimum; in parentheses, from the bootstrap.";
   return fmt::format("Period-luminosity relations ({}): {}; pivot {} {}. {}", names, equation,
                      latex ? "$\\log P_0$:" : "log P0:", pivots, shown);
 }
@@ -132,14 +144,27 @@ std::string escape_latex(const std::string& s) {
   std::string out;
   for (char c : s) {
     switch (c) {
-      case '\\': out += "\\textbackslash{}"; break;
-      case '~': out += "\\textasciitilde{}"; break;
-      case '^': out += "\\textasciicircum{}"; break;
-      case '_': case '&': case '%': case '#': case '$': case '{': case '}':
+      case '\\':
+        out += "\\textbackslash{}";
+        break;
+      case '~':
+        out += "\\textasciitilde{}";
+        break;
+      case '^':
+        out += "\\textasciicircum{}";
+        break;
+      case '_':
+      case '&':
+      case '%':
+      case '#':
+      case '$':
+      case '{':
+      case '}':
         out += '\\';
         out += c;
         break;
-      default: out += c;
+      default:
+        out += c;
     }
   }
   return out;
@@ -175,18 +200,22 @@ Rounded round_for_print(double value, double error) {
   return r;
 }
 
-std::string relation_table(const std::vector<Calibration>& versions, TableFormat f, TableErrors errors) {
+std::string relation_table(const std::vector<Calibration>& versions, TableFormat f,
+                           TableErrors errors) {
   Grid g;
   g.header.push_back(f == TableFormat::kLatex ? "Relation / quantity" : "relation / quantity");
-  for (const auto& c : versions) g.header.push_back(f == TableFormat::kLatex ? escape_latex(c.label()) : c.label());
+  for (const auto& c : versions)
+    g.header.push_back(f == TableFormat::kLatex ? escape_latex(c.label()) : c.label());
   std::vector<std::string> relations;
   for (const auto& c : versions)
     for (const auto& n : c.relation_names())
-      if (std::find(relations.begin(), relations.end(), n) == relations.end()) relations.push_back(n);
+      if (std::find(relations.begin(), relations.end(), n) == relations.end())
+        relations.push_back(n);
   for (const auto& rel : relations) {
     const std::string rel_name = f == TableFormat::kLatex ? escape_latex(rel) : rel;
     for (const auto& q : kQuantities) {
-      std::vector<std::string> row = {fmt::format("{}: {}", rel_name, f == TableFormat::kLatex ? q.latex : q.label)};
+      std::vector<std::string> row = {
+          fmt::format("{}: {}", rel_name, f == TableFormat::kLatex ? q.latex : q.label)};
       bool any = false;
       for (const auto& c : versions) {
         const auto r = c.find_relation_record(rel);
@@ -201,11 +230,13 @@ std::string relation_table(const std::vector<Calibration>& versions, TableFormat
     std::vector<std::string> row = {fmt::format("{}: N", rel_name)};
     for (const auto& c : versions) {
       const auto r = c.find_relation_record(rel);
-      row.push_back(r ? std::to_string(r->n_used.value()) : (f == TableFormat::kLatex ? "\\nodata" : ""));
+      row.push_back(r ? std::to_string(r->n_used.value())
+                      : (f == TableFormat::kLatex ? "\\nodata" : ""));
     }
     g.rows.push_back(row);
   }
-  return render(g, f, relation_caption(versions, relations, errors, f == TableFormat::kLatex), "tab:pl");
+  return render(g, f, relation_caption(versions, relations, errors, f == TableFormat::kLatex),
+                "tab:pl");
 }
 
 // True when the residuals carry the hierarchical fit's membership probabilities.
@@ -221,10 +252,16 @@ bool has_membership(const StarTable& t, const std::string& relation) {
 std::string star_table(const StarTable& t, const std::string& relation, TableFormat f) {
   Grid g;
   const bool membership = has_membership(t, relation);
-  g.header = {"id", "log P", "m0 (mag)", "parallax (mas)", "parallax error (mas)", "residual (sigma)", "used", "note"};
+  g.header = {
+      "id",   "log P", "m0 (mag)", "parallax (mas)", "parallax error (mas)", "residual (sigma)",
+      "used", "note"};
   if (f == TableFormat::kLatex)
-    g.header = {"ID", "$\\log P$", "$m_0$ (mag)", "$\\varpi$ (mas)", "$\\sigma_\\varpi$ (mas)", "$r/\\sigma$", "Used", "Note"};
-  if (membership) g.header.insert(g.header.end() - 2, f == TableFormat::kLatex ? "$p_{\\rm member}$" : "membership");
+    g.header = {
+        "ID",          "$\\log P$", "$m_0$ (mag)", "$\\varpi$ (mas)", "$\\sigma_\\varpi$ (mas)",
+        "$r/\\sigma$", "Used",      "Note"};
+  if (membership)
+    g.header.insert(g.header.end() - 2,
+                    f == TableFormat::kLatex ? "$p_{\\rm member}$" : "membership");
   auto num = [&](const std::string& col, std::size_t i, int decimals) {
     if (!t.has(col) || t.column(col).is_null(i) || !std::isfinite(t.column(col).real[i]))
       return std::string(f == TableFormat::kLatex ? "\\nodata" : "");
@@ -233,11 +270,16 @@ std::string star_table(const StarTable& t, const std::string& relation, TableFor
   for (std::size_t i = 0; i < t.rows(); ++i) {
     if (t.column("relation").text[i] != relation) continue;
     const bool used = t.column("used").boolean[i] != 0;
-    std::string id = t.column("id").text[i], reason = t.column("reason").is_null(i) ? "" : t.column("reason").text[i];
+    std::string id = t.column("id").text[i],
+                reason = t.column("reason").is_null(i) ? "" : t.column("reason").text[i];
     if (likely_outlier(t, i)) reason = "likely outlier or blend";
     if (f == TableFormat::kLatex) id = escape_latex(id), reason = escape_latex(reason);
-    std::vector<std::string> row{id, num("log_period_f", i, 4), num("m0", i, 3), num("parallax_corrected_mas", i, 4),
-                                 num("parallax_err_mas", i, 4), num("residual", i, 2)};
+    std::vector<std::string> row{id,
+                                 num("log_period_f", i, 4),
+                                 num("m0", i, 3),
+                                 num("parallax_corrected_mas", i, 4),
+                                 num("parallax_err_mas", i, 4),
+                                 num("residual", i, 2)};
     if (membership) row.push_back(num("membership", i, 2));
     row.push_back(used ? "yes" : "no");
     row.push_back(reason);
@@ -246,9 +288,11 @@ std::string star_table(const StarTable& t, const std::string& relation, TableFor
   std::string caption = "Calibrators of the " + escape_latex(relation) + " relation.";
   if (membership)
     caption += f == TableFormat::kLatex
-                   ? " $p_{\\rm member}$: probability of being a member of the relation, not an outlier or a blend, "
+                   ? " $p_{\\rm member}$: probability of being a member of the relation, not an "
+                     "outlier or a blend, "
                      "in the hierarchical fit; below 0.5 the star is noted as a likely outlier."
-                   : " membership: probability of being a member of the relation, not an outlier or a blend, in the "
+                   : " membership: probability of being a member of the relation, not an outlier "
+                     "or a blend, in the "
                      "hierarchical fit; below 0.5 the star is noted as a likely outlier.";
   return render(g, f, caption, "tab:stars");
 }
@@ -259,7 +303,8 @@ std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {
   for (const auto& rel : budget.at("relations"))
     for (const auto& p : rel.at("parameters"))
       for (const auto& [cat, q] : p.at("categories").items())
-        if (std::find(categories.begin(), categories.end(), cat) == categories.end()) categories.push_back(cat);
+        if (std::find(categories.begin(), categories.end(), cat) == categories.end())
+          categories.push_back(cat);
   Grid g;
   const bool latex = f == TableFormat::kLatex;
   g.header.push_back(latex ? "Relation / parameter" : "relation / parameter");
@@ -270,27 +315,37 @@ std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {
     const std::string rel_name = rel.at("name").get<std::string>();
     for (const auto& p : rel.at("parameters")) {
       const double value = p.at("baseline").get<double>();
-      const double error = p.at("baseline_error").is_null() ? NAN : p.at("baseline_error").get<double>();
+      const double error =
+          p.at("baseline_error").is_null() ? NAN : p.at("baseline_error").get<double>();
       const Rounded r = round_for_print(value, error);
       const std::string name = p.at("name").get<std::string>();
-      std::vector<std::string> row = {fmt::format("{}: {}", latex ? escape_latex(rel_name) : rel_name, quantity_label(name, latex))};
-      row.push_back(r.error.empty() ? r.value : (latex ? fmt::format("${} \\pm {}$", r.value, r.error) : fmt::format("{} +- {}", r.value, r.error)));
+      std::vector<std::string> row = {fmt::format(
+          "{}: {}", latex ? escape_latex(rel_name) : rel_name, quantity_label(name, latex))};
+      row.push_back(r.error.empty() ? r.value
+                                    : (latex ? fmt::format("${} \\pm {}$", r.value, r.error)
+                                             : fmt::format("{} +- {}", r.value, r.error)));
       // Shifts one decimal finer than the baseline's error, with their size in its sigmas.
       auto shift_cell = [&](double q) {
         std::string text = fmt::format("{:.{}f}", q, r.decimals + 1);
-        if (std::isfinite(error) && error > 0) text += latex ? fmt::format(" ({:.2f}$\\sigma$)", q / error) : fmt::format(" ({:.2f} sigma)", q / error);
+        if (std::isfinite(error) && error > 0)
+          text += latex ? fmt::format(" ({:.2f}$\\sigma$)", q / error)
+                        : fmt::format(" ({:.2f} sigma)", q / error);
         return text;
       };
       for (const auto& c : categories)
-        row.push_back(p.at("categories").contains(c) ? shift_cell(p.at("categories").at(c).get<double>()) : (latex ? "\\nodata" : ""));
+        row.push_back(p.at("categories").contains(c)
+                          ? shift_cell(p.at("categories").at(c).get<double>())
+                          : (latex ? "\\nodata" : ""));
       row.push_back(shift_cell(p.at("total").get<double>()));
       g.rows.push_back(row);
     }
   }
-  return render(g, f,
-                "Systematic error budget: for each category of analysis choices, the quadrature sum of the shifts of its "
-                "variants from the baseline; in parentheses in units of the baseline's statistical error.",
-                "tab:budget");
+  return render(
+      g, f,
+      "Systematic error budget: for each category of analysis choices, the quadrature sum of the "
+      "shifts of its "
+      "variants from the baseline; in parentheses in units of the baseline's statistical error.",
+      "tab:budget");
 }
 
 }  // namespace rungcal

@@ -73,7 +73,8 @@ std::string RunOptions::check() const {
   if (store.empty()) return "run.store: required";
   if (calibration.empty())
     return "run.calibration: required (the name versions are published under)";
-  if (auto why = check_calibration_name(calibration); !why.empty()) return "run.calibration: " + why.substr(6);
+  if (auto why = check_calibration_name(calibration); !why.empty())
+    return "run.calibration: " + why.substr(6);
   if (ingest_config.empty()) return "ingest.config: required";
   if (deredden_config.empty()) return "deredden.config: required";
   if (fit_config.empty()) return "fit.config: required";
@@ -135,12 +136,14 @@ RunOptions run_options_from_file(const std::string& path) {
     o.report = s->bool_or("enabled", true);
     if (auto w = s->get_string("figure_width")) {
       const auto width = kFigureWidthNames.parse(*w);
-      if (!width) s->fail("figure_width", "must be one of: " + std::string(kFigureWidthNames.choices()));
+      if (!width)
+        s->fail("figure_width", "must be one of: " + std::string(kFigureWidthNames.choices()));
       o.report_figure_width = *width;
     }
     if (auto e = s->get_string("table_errors")) {
       const auto errors = kTableErrorsNames.parse(*e);
-      if (!errors) s->fail("table_errors", "must be one of: " + std::string(kTableErrorsNames.choices()));
+      if (!errors)
+        s->fail("table_errors", "must be one of: " + std::string(kTableErrorsNames.choices()));
       o.report_table_errors = *errors;
     }
   }
@@ -237,9 +240,10 @@ RunOutcome run_pipeline(const RunOptions& o) {
     return run_chain(o, held_lock);
   } catch (const std::exception& e) {
     // Recorded only under the lock: a run that found another one running writes nothing.
-    const int code = dynamic_cast<const WriteError*>(&e)   ? static_cast<int>(ExitCode::kCannotWrite)
-                     : dynamic_cast<const InputError*>(&e) ? static_cast<int>(ExitCode::kBadInput)
-                                                            : static_cast<int>(ExitCode::kInternalError);
+    const int code = dynamic_cast<const WriteError*>(&e) ? static_cast<int>(ExitCode::kCannotWrite)
+                     : dynamic_cast<const InputError*>(&e)
+                         ? static_cast<int>(ExitCode::kBadInput)
+                         : static_cast<int>(ExitCode::kInternalError);
     if (held_lock) {
       try {
         record_run(o, code, fmt::format("rungcal-run: stopped: {}", e.what()));
@@ -310,9 +314,11 @@ RunOutcome run_chain(const RunOptions& o, bool& held_lock) {
   // before these keys existed do not redo their report.
   std::string report_settings;
   if (o.report_figure_width != FigureWidth::kScreen)
-    report_settings += fmt::format("figure_width={} ", kFigureWidthNames.name(o.report_figure_width));
+    report_settings +=
+        fmt::format("figure_width={} ", kFigureWidthNames.name(o.report_figure_width));
   if (o.report_table_errors != TableErrors::kCovariance)
-    report_settings += fmt::format("table_errors={}", kTableErrorsNames.name(o.report_table_errors));
+    report_settings +=
+        fmt::format("table_errors={}", kTableErrorsNames.name(o.report_table_errors));
   if (o.report)
     stages.push_back({"report", "", report_settings, [&] { return declared_files(report); },
                       [&] { write_report(report); }, true});

@@ -29,9 +29,9 @@ struct RunOptions {
   std::string ingest_input;  // overrides the ingest config's [source] path
   std::string deredden_config;
   std::string fit_config;
-  int fit_bootstrap = -1;      // overrides the fit config's bootstrap and joint_bootstrap (-1: keep)
+  int fit_bootstrap = -1;   // overrides the fit config's bootstrap and joint_bootstrap (-1: keep)
   std::string grid_config;  // systematics grid ("" = none): its budget joins the report
-  bool report = true;          // tables and figures of the latest version (and the one before)
+  bool report = true;       // tables and figures of the latest version (and the one before)
   // [report] figure_width and table_errors: as rungcal-report's --figure-width and --table-errors.
   FigureWidth report_figure_width = FigureWidth::kScreen;
   TableErrors report_table_errors = TableErrors::kCovariance;
@@ -42,7 +42,8 @@ struct RunOptions {
   std::string targets_ingest_config;
   std::string targets_deredden_config;
   bool republish_withdrawn = false;  // publish a fit whose content is a withdrawn version's
-  bool site = true;  // write folder/site/index.html (the status page) after runs that changed anything
+  bool site =
+      true;  // write folder/site/index.html (the status page) after runs that changed anything
 
   bool dry_run = false;  // say what would run and why; run nothing
   bool force = false;    // run every stage whatever changed
@@ -79,8 +80,8 @@ struct RunOutcome {
   int withheld_version = 0;         // a withdrawn version the fit reproduced (not republished)
   std::size_t rows_read = 0;        // ingest (when it ran): rows read and rows refused
   std::size_t rows_refused = 0;
-  std::string first_refusals;       // the first few refused rows and their rules
-  std::string summary;              // one line for cron mail
+  std::string first_refusals;  // the first few refused rows and their rules
+  std::string summary;         // one line for cron mail
 };
 
 // Reads and checks every stage config the pipeline config names, writing nothing: what

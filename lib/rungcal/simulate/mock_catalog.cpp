@@ -21,7 +21,8 @@ double draw_distance_kpc(MockDistances kind, Random& rng, const std::vector<doub
         const double d = -2.5 * (std::log(1.0 - rng.uniform()) + std::log(1.0 - rng.uniform()));
         if (d > 0.3 && d < 8.0) return d;
       }
-    case MockDistances::kFlatModulus: return std::pow(10.0, 0.2 * rng.uniform(8.5, 13.5) - 2.0);
+    case MockDistances::kFlatModulus:
+      return std::pow(10.0, 0.2 * rng.uniform(8.5, 13.5) - 2.0);
     case MockDistances::kClumpy: {
       const double centre = clumps[rng.below(clumps.size())];
       return centre * std::max(0.5, 1.0 + rng.normal(0.0, 0.05));
@@ -42,7 +43,8 @@ std::vector<MockCluster> draw_clusters(const MockScenario& s, Random& rng) {
     c.group = fmt::format("MOCK-CL{:03d}", k);
     c.mu = rng.uniform(9.5, 12.0);
     c.parallax_err_mas = s.cluster_parallax_error_mas;
-    c.parallax_mas = std::pow(10.0, -0.2 * (c.mu - 10.0)) + s.parallax_offset_mas + rng.normal(0.0, c.parallax_err_mas);
+    c.parallax_mas = std::pow(10.0, -0.2 * (c.mu - 10.0)) + s.parallax_offset_mas +
+                     rng.normal(0.0, c.parallax_err_mas);
     out.push_back(c);
   }
   return out;
@@ -65,9 +67,12 @@ std::vector<MockCluster> mock_clusters(const MockScenario& s) {
 
 double mock_blend_brightening(MockBlendLaw law, Random& rng) {
   switch (law) {
-    case MockBlendLaw::kModerate: return rng.uniform(0.3, 1.0);
-    case MockBlendLaw::kFaintCompanions: return 2.5 * std::log10(1.0 + rng.uniform(0.0, 1.5));
-    case MockBlendLaw::kBrightCompanions: return 2.5 * std::log10(1.0 + rng.uniform(0.5, 4.0));
+    case MockBlendLaw::kModerate:
+      return rng.uniform(0.3, 1.0);
+    case MockBlendLaw::kFaintCompanions:
+      return 2.5 * std::log10(1.0 + rng.uniform(0.0, 1.5));
+    case MockBlendLaw::kBrightCompanions:
+      return 2.5 * std::log10(1.0 + rng.uniform(0.5, 4.0));
   }
   return 0.0;
 }
@@ -76,24 +81,30 @@ std::string MockScenario::check() const {
   if (stars < 3) return "stars: at least 3";
   for (double f : {blend_fraction, parallax_outlier_fraction, overtone_fraction, far_fraction})
     if (!(f >= 0 && f < 1)) return "fractions: each in [0, 1)";
-  if (!(scatter_correlation >= 0 && scatter_correlation < 1)) return "scatter_correlation: in [0, 1)";
+  if (!(scatter_correlation >= 0 && scatter_correlation < 1))
+    return "scatter_correlation: in [0, 1)";
   for (const auto& r : more_relations)
     if (r.name.empty() || r.name == "X" || !(r.sigma_int >= 0) || !(r.companion_colour > 0))
       return "more_relations: a name other than X, sigma_int >= 0, companion_colour > 0";
   if (clusters < 0 || clusters > 1000 || cluster_members < 1 || cluster_members > 1000)
     return "clusters: 0 to 1000 clusters of 1 to 1000 members";
   if (!(cluster_parallax_error_mas > 0)) return "cluster_parallax_error_mas: must be positive";
-  if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0 && parallax_error_scale > 0))
-    return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread, parallax_error_scale > 0";
+  if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0 &&
+        parallax_error_scale > 0))
+    return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread, "
+           "parallax_error_scale > 0";
   return "";
 }
 
 nlohmann::json MockScenario::truth() const {
   if (!more_relations.empty()) {
-    nlohmann::json t = {{"parallax_offset_mas", parallax_offset_mas}, {"feh_mean", feh_mean},
-                        {"feh_spread", feh_spread}, {"scatter_correlation", scatter_correlation}};
+    nlohmann::json t = {{"parallax_offset_mas", parallax_offset_mas},
+                        {"feh_mean", feh_mean},
+                        {"feh_spread", feh_spread},
+                        {"scatter_correlation", scatter_correlation}};
     auto add = [&](const std::string& name, double a, double b, double g, double s) {
-      t["alpha_" + name] = a, t["beta_" + name] = b, t["gamma_" + name] = g, t["sigma_int_" + name] = s;
+      t["alpha_" + name] = a, t["beta_" + name] = b, t["gamma_" + name] = g,
+                   t["sigma_int_" + name] = s;
     };
     add("X", alpha, beta, gamma, sigma_int);
     for (const auto& r : more_relations) {
@@ -104,30 +115,42 @@ nlohmann::json MockScenario::truth() const {
     }
     return t;
   }
-  return {{"alpha", alpha},       {"beta", beta},         {"gamma", gamma},        {"sigma_int", sigma_int},
-          {"parallax_offset_mas", parallax_offset_mas}, {"feh_mean", feh_mean}, {"feh_spread", feh_spread}};
+  return {{"alpha", alpha},
+          {"beta", beta},
+          {"gamma", gamma},
+          {"sigma_int", sigma_int},
+          {"parallax_offset_mas", parallax_offset_mas},
+          {"feh_mean", feh_mean},
+          {"feh_spread", feh_spread}};
 }
 
 StarTable mock_calibrator_catalog(const MockScenario& s) {
   Random field_rng(s.seed);
   std::vector<double> clumps;
-  for (int k = 0; k < 8; ++k) clumps.push_back(std::pow(10.0, 0.2 * field_rng.uniform(9.0, 13.0) - 2.0));
+  for (int k = 0; k < 8; ++k)
+    clumps.push_back(std::pow(10.0, 0.2 * field_rng.uniform(9.0, 13.0) - 2.0));
   StarTable t;
   for (const char* c : {col::kId, col::kMode, col::kClass}) t.add_column(c, ColumnType::kText);
-  const std::string mag_x = dereddened_magnitude_column("X"), mag_err_x = dereddened_magnitude_error_column("X");
-  for (const std::string& c : {std::string(col::kLogPeriod), mag_x, mag_err_x, std::string(col::kParallax),
-                               std::string(col::kParallaxErr), std::string(col::kFeh), std::string(col::kFehErr)})
+  const std::string mag_x = dereddened_magnitude_column("X"),
+                    mag_err_x = dereddened_magnitude_error_column("X");
+  for (const std::string& c :
+       {std::string(col::kLogPeriod), mag_x, mag_err_x, std::string(col::kParallax),
+        std::string(col::kParallaxErr), std::string(col::kFeh), std::string(col::kFehErr)})
     t.add_column(c, ColumnType::kReal);
   for (const auto& r : s.more_relations)
-    for (const std::string& c : {dereddened_magnitude_column(r.name), dereddened_magnitude_error_column(r.name)})
+    for (const std::string& c :
+         {dereddened_magnitude_column(r.name), dereddened_magnitude_error_column(r.name)})
       t.add_column(c, ColumnType::kReal);
   // The joint fit correlates the bands' E(B-V) errors through it.
   if (!s.more_relations.empty()) t.add_column(col::kEbvErr, ColumnType::kReal);
   if (s.clusters > 0) t.add_column(col::kGroup, ColumnType::kText);
   // One star at cluster_kpc (> 0) or drawn from the scenario's distances.
-  auto add_star = [&](Random& rng, const std::string& id, const std::string& group, double cluster_kpc) {
+  auto add_star = [&](Random& rng, const std::string& id, const std::string& group,
+                      double cluster_kpc) {
     const bool far = rng.uniform() < s.far_fraction;
-    const double d = cluster_kpc > 0 ? cluster_kpc : far ? rng.uniform(8.0, 15.0) : draw_distance_kpc(s.distances, rng, clumps);
+    const double d = cluster_kpc > 0 ? cluster_kpc
+                     : far           ? rng.uniform(8.0, 15.0)
+                                     : draw_distance_kpc(s.distances, rng, clumps);
     const double mu = distance_modulus_from_parsec(d * 1e3);
     const bool overtone = rng.uniform() < s.overtone_fraction;
     const double logp = overtone ? rng.uniform(0.1, 0.7) : rng.uniform(0.4, 1.6);
@@ -135,17 +158,21 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     const double logp_f = fundamentalized_log_period("classical_cepheid", mode, logp);
     const double feh = rng.normal(s.feh_mean, s.feh_spread);
     const double scatter = rng.normal(0.0, s.sigma_int);
-    const double abs_mag = s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + scatter;
+    const double abs_mag =
+        s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + scatter;
     double m0 = abs_mag + mu + rng.normal(0.0, s.mag_error);
     const double ebv_off = rng.normal(0.0, s.ebv_error);
     m0 += s.extinction_per_ebv * ebv_off;
-    const double brightening = rng.uniform() < s.blend_fraction ? mock_blend_brightening(s.blend_law, rng) : 0.0;
+    const double brightening =
+        rng.uniform() < s.blend_fraction ? mock_blend_brightening(s.blend_law, rng) : 0.0;
     m0 -= brightening;
     // Astrometric errors follow the star's observed brightness, as a survey's do (the fit
     // conditions on the observed magnitude, so the errors carry no hidden distance).
-    const double plx_err = s.parallax_error_scale * (0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0)));
+    const double plx_err =
+        s.parallax_error_scale * (0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0)));
     double plx = 1.0 / d + s.parallax_offset_mas + rng.normal(0.0, plx_err);
-    if (rng.uniform() < s.parallax_outlier_fraction) plx += (rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * plx_err;
+    if (rng.uniform() < s.parallax_outlier_fraction)
+      plx += (rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * plx_err;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
     t.column(col::kId).push_text(id);
     if (s.clusters > 0) t.column(col::kGroup).push_text(group);
@@ -162,22 +189,27 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     t.column(col::kEbvErr).push_real(s.ebv_error);
     // Equicorrelated scatter: u_k = rho u_X + sqrt(rho - rho^2) v + sqrt(1 - rho) w_k has unit
     // variance and correlation rho with u_X and with every other u_l.
-    const double rho = s.scatter_correlation, u_x = s.sigma_int > 0 ? scatter / s.sigma_int : rng.normal();
+    const double rho = s.scatter_correlation,
+                 u_x = s.sigma_int > 0 ? scatter / s.sigma_int : rng.normal();
     const double shared = rng.normal();
     for (const auto& r : s.more_relations) {
-      const double u = rho * u_x + std::sqrt(rho - rho * rho) * shared + std::sqrt(1.0 - rho) * rng.normal();
-      const double m = r.alpha + r.beta * (logp_f - s.pivot_log_period) + r.gamma * feh + r.sigma_int * u + mu +
-                       rng.normal(0.0, s.mag_error) + r.extinction_per_ebv * ebv_off -
+      const double u =
+          rho * u_x + std::sqrt(rho - rho * rho) * shared + std::sqrt(1.0 - rho) * rng.normal();
+      const double m = r.alpha + r.beta * (logp_f - s.pivot_log_period) + r.gamma * feh +
+                       r.sigma_int * u + mu + rng.normal(0.0, s.mag_error) +
+                       r.extinction_per_ebv * ebv_off -
                        coloured_brightening(brightening, r.companion_colour);
       t.column(dereddened_magnitude_column(r.name)).push_real(m);
-      t.column(dereddened_magnitude_error_column(r.name)).push_real(std::hypot(s.mag_error, r.extinction_per_ebv * s.ebv_error));
+      t.column(dereddened_magnitude_error_column(r.name))
+          .push_real(std::hypot(s.mag_error, r.extinction_per_ebv * s.ebv_error));
     }
   };
   for (int i = 0; i < s.stars; ++i) add_star(field_rng, fmt::format("MOCK-{:05d}", i), "", 0.0);
   Random cluster_rng = cluster_stream(s);
   for (const MockCluster& c : draw_clusters(s, cluster_rng))
     for (int k = 0; k < s.cluster_members; ++k)
-      add_star(cluster_rng, fmt::format("{}-{:03d}", c.group, k), c.group, std::pow(10.0, 0.2 * c.mu - 2.0));
+      add_star(cluster_rng, fmt::format("{}-{:03d}", c.group, k), c.group,
+               std::pow(10.0, 0.2 * c.mu - 2.0));
   return t;
 }
 

@@ -15,9 +15,9 @@ namespace rungcal {
 
 // How the mock calibrators' true distances are spread.
 enum class MockDistances {
-  kDisk,          // a thin disk seen from inside: p(d) ~ d exp(-d / 2.5 kpc), 0.3-8 kpc
-  kFlatModulus,   // distance modulus uniform in [8.5, 13.5] (0.5-5 kpc)
-  kClumpy,        // eight associations at random distance moduli in [9, 13], 5% deep each
+  kDisk,         // a thin disk seen from inside: p(d) ~ d exp(-d / 2.5 kpc), 0.3-8 kpc
+  kFlatModulus,  // distance modulus uniform in [8.5, 13.5] (0.5-5 kpc)
+  kClumpy,       // eight associations at random distance moduli in [9, 13], 5% deep each
 };
 inline constexpr EnumTable<MockDistances, 3> kMockDistanceNames{{{
     {MockDistances::kDisk, "disk"},
@@ -56,28 +56,29 @@ struct MockRelation {
 // One mock catalog of parallax calibrators of one relation, already dereddened (the
 // columns rungcal-fit reads, band "X"), with each contamination switchable on its own.
 struct MockScenario {
-  std::uint64_t seed = 1;       // the whole draw follows from it
-  int stars = 300;              // calibrators drawn
+  std::uint64_t seed = 1;  // the whole draw follows from it
+  int stars = 300;         // calibrators drawn
   // The truth: M = alpha + beta (log P_F - pivot) + gamma [Fe/H] + N(0, sigma_int).
   double alpha = -5.9, beta = -3.3, gamma = -0.2, sigma_int = 0.08, pivot_log_period = 1.0;
-  double parallax_offset_mas = -0.010;  // observed parallax = true + offset + noise
+  double parallax_offset_mas = -0.010;       // observed parallax = true + offset + noise
   double feh_mean = 0.0, feh_spread = 0.15;  // the [Fe/H] population
-  double mag_error = 0.02;      // photometric error of the mean magnitudes (mag)
-  double parallax_error_scale = 1.0;  // the parallax error law below, times this
-  double extinction_per_ebv = 0.0;  // A/E(B-V) of the band: 0 for a Wesenheit magnitude
+  double mag_error = 0.02;                   // photometric error of the mean magnitudes (mag)
+  double parallax_error_scale = 1.0;         // the parallax error law below, times this
+  double extinction_per_ebv = 0.0;           // A/E(B-V) of the band: 0 for a Wesenheit magnitude
   MockDistances distances = MockDistances::kDisk;
   // Contaminations (0: off).
-  double blend_fraction = 0;     // stars made too bright by unresolved companions
+  double blend_fraction = 0;  // stars made too bright by unresolved companions
   MockBlendLaw blend_law = MockBlendLaw::kModerate;  // by how much
-  double parallax_outlier_fraction = 0;  // parallaxes off by 5-20 of their errors
+  double parallax_outlier_fraction = 0;              // parallaxes off by 5-20 of their errors
   double feh_error = 0;          // [Fe/H] measurement error (dex); the catalog carries feh_err
   double overtone_fraction = 0;  // first-overtone pulsators, labelled, log P1 in [0.1, 0.7]
   double far_fraction = 0;       // stars at 8-15 kpc, with noisy (some negative) parallaxes
   double ebv_error = 0;          // E(B-V) error (mag): A/E(B-V) times it enters the magnitude
   // Further relations (joint fits). A star's intrinsic scatter is correlated between all its
   // relations by scatter_correlation (in [0, 1)); its E(B-V) error and [Fe/H] are the same in
-  // each, and its blend brightening too unless a relation's companion_colour differs from 1. Their draws follow each star's own
-  // in the one stream: empty, the catalog is what it was before they existed.
+  // each, and its blend brightening too unless a relation's companion_colour differs from 1. Their
+  // draws follow each star's own in the one stream: empty, the catalog is what it was before they
+  // existed.
   std::vector<MockRelation> more_relations;
   double scatter_correlation = 0;
   // Clusters (0: none): each at its own distance modulus, uniform in [9.5, 12] (0.8-2.5 kpc),
@@ -88,7 +89,7 @@ struct MockScenario {
   int cluster_members = 4;
   double cluster_parallax_error_mas = 0.008;
 
-  std::string check() const;     // "" when usable, else "field: rule"
+  std::string check() const;  // "" when usable, else "field: rule"
   // The true parameters by fit parameter name; with more_relations, by the joint fit's names
   // (alpha_X, ..., scatter_correlation).
   nlohmann::json truth() const;

@@ -67,7 +67,8 @@ std::string StudyOptions::check() const {
   if (std::string e = scenario.check(); !e.empty()) return "scenario." + e;
   if (fit.relations.size() != 1 + scenario.more_relations.size())
     return "fit: one relation per mock relation (X, then more_relations in order)";
-  if (fit.joint != !scenario.more_relations.empty()) return "fit.joint: exactly when the mocks have more relations";
+  if (fit.joint != !scenario.more_relations.empty())
+    return "fit.joint: exactly when the mocks have more relations";
   return "";
 }
 
@@ -92,7 +93,8 @@ StudyResult run_study(const StudyOptions& o) {
     Draw& d = draws[k];
     try {
       const StarTable coefficients = mock_coefficients(s);
-      FitResult r = run_fit(fit, mock_calibrator_catalog(s), s.more_relations.empty() ? nullptr : &coefficients);
+      FitResult r = run_fit(fit, mock_calibrator_catalog(s),
+                            s.more_relations.empty() ? nullptr : &coefficients);
       if (fit.joint) {
         record_joint(*r.joint, o.parameters, d);
       } else {
@@ -103,7 +105,8 @@ StudyResult run_study(const StudyOptions& o) {
         else if (!rr.covariance_ok)
           d.failure = "covariance: the Hessian is not positive definite";
         for (const auto& name : o.parameters) {
-          const bool has = std::find(rr.layout.names.begin(), rr.layout.names.end(), name) != rr.layout.names.end();
+          const bool has = std::find(rr.layout.names.begin(), rr.layout.names.end(), name) !=
+                           rr.layout.names.end();
           d.estimate.push_back(has ? rr.parameter(name) : kNaN);
           d.error.push_back(has ? rr.error(name) : kNaN);
           d.bootstrap_error.push_back(has ? rr.bootstrap_error(name) : kNaN);

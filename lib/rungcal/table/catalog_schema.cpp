@@ -20,16 +20,20 @@ const std::vector<QuantitySpec>& catalog_quantities() {
       {"parallax", col::kParallax, T::kReal, K::kParallax, "trigonometric parallax as published"},
       {"parallax_err", col::kParallaxErr, T::kReal, K::kParallax, "parallax uncertainty"},
       {"gaia_g", col::kGaiaG, T::kReal, K::kMagnitude, "Gaia G (parallax zero-point input)"},
-      {"nu_eff", col::kNuEff, T::kReal, K::kWavenumber, "effective wavenumber (5-parameter zero point)"},
-      {"pseudocolour", col::kPseudocolour, T::kReal, K::kWavenumber, "pseudocolour (6-parameter zero point)"},
+      {"nu_eff", col::kNuEff, T::kReal, K::kWavenumber,
+       "effective wavenumber (5-parameter zero point)"},
+      {"pseudocolour", col::kPseudocolour, T::kReal, K::kWavenumber,
+       "pseudocolour (6-parameter zero point)"},
       {"ecl_lat", col::kEclLat, T::kReal, K::kAngle, "ecliptic latitude (zero-point input)"},
-      {"astrometric_params", col::kAstrometricParams, T::kInteger, K::kDimensionless, "astrometric parameters solved (5 or 6; 31/95 bit masks accepted)"},
+      {"astrometric_params", col::kAstrometricParams, T::kInteger, K::kDimensionless,
+       "astrometric parameters solved (5 or 6; 31/95 bit masks accepted)"},
       {"ruwe", col::kRuwe, T::kReal, K::kDimensionless, "renormalised unit weight error"},
       {"ebv", col::kEbv, T::kReal, K::kMagnitude, "colour excess E(B-V)"},
       {"ebv_err", col::kEbvErr, T::kReal, K::kMagnitude, "E(B-V) uncertainty"},
       {"feh", col::kFeh, T::kReal, K::kDex, "metallicity [Fe/H]"},
       {"feh_err", col::kFehErr, T::kReal, K::kDex, "[Fe/H] uncertainty"},
-      {"mu", col::kMu, T::kReal, K::kMagnitude, "known distance modulus (non-parallax calibrators)"},
+      {"mu", col::kMu, T::kReal, K::kMagnitude,
+       "known distance modulus (non-parallax calibrators)"},
       {"mu_err", col::kMuErr, T::kReal, K::kMagnitude, "distance modulus uncertainty"},
   };
   return kSpecs;
@@ -43,13 +47,15 @@ const QuantitySpec* find_quantity(std::string_view key) {
 
 void stamp_provenance(StarTable& table, const Provenance& p, const std::string& product) {
   table.set_keyword(key::kProduct, product, "rungcal product type");
-  table.set_keyword(key::kSchema, static_cast<std::int64_t>(kCatalogSchemaVersion), "product schema version");
+  table.set_keyword(key::kSchema, static_cast<std::int64_t>(kCatalogSchemaVersion),
+                    "product schema version");
   table.set_keyword(key::kStage, p.stage, "rungcal stage that wrote this");
   table.set_keyword(key::kVersion, p.software_version, "rungcal version");
   table.set_keyword(key::kCommit, p.software_commit, "rungcal git commit");
   table.set_keyword(key::kDate, p.created_utc, "UTC time of writing");
   table.set_keyword(key::kConfigSha, p.config_sha256, "SHA-256 of the config file");
-  table.set_keyword(key::kInputCount, static_cast<std::int64_t>(p.inputs.size()), "number of inputs");
+  table.set_keyword(key::kInputCount, static_cast<std::int64_t>(p.inputs.size()),
+                    "number of inputs");
   for (std::size_t i = 0; i < p.inputs.size(); ++i) {
     const auto& in = p.inputs[i];
     table.set_keyword(fmt::format("RGINP{:02d}", i + 1), in.path, "input path");
@@ -61,7 +67,9 @@ void stamp_provenance(StarTable& table, const Provenance& p, const std::string& 
 std::string magnitude_column(const std::string& band) { return "mag_" + band; }
 std::string magnitude_error_column(const std::string& band) { return "mag_err_" + band; }
 std::string dereddened_magnitude_column(const std::string& band) { return "mag0_" + band; }
-std::string dereddened_magnitude_error_column(const std::string& band) { return "mag0_err_" + band; }
+std::string dereddened_magnitude_error_column(const std::string& band) {
+  return "mag0_err_" + band;
+}
 std::string extinction_column(const std::string& band) { return "a_" + band; }
 std::string extinction_error_column(const std::string& band) { return "a_err_" + band; }
 

@@ -65,7 +65,8 @@ namespace col {
 inline constexpr const char* kId = "id";
 inline constexpr const char* kPeriod = "period_d";
 inline constexpr const char* kPeriodErr = "period_err_d";
-inline constexpr const char* kPeriodOrigin = "period_origin";  // catalog or lightcurve (a light-curve join)
+inline constexpr const char* kPeriodOrigin =
+    "period_origin";  // catalog or lightcurve (a light-curve join)
 inline constexpr const char* kLogPeriod = "log_period";
 inline constexpr const char* kMode = "mode";
 inline constexpr const char* kClass = "pulsator_class";

@@ -6,11 +6,11 @@
 
 #include <algorithm>
 #include <charconv>
-#include <limits>
-#include <optional>
 #include <fstream>
 #include <iterator>
+#include <limits>
 #include <memory>
+#include <optional>
 #include <sstream>
 #include <utility>
 #include <vector>
@@ -28,7 +28,7 @@ namespace {
 struct YamlNode {
   enum class Kind { kScalar, kSequence, kMapping } kind = Kind::kScalar;
   std::string scalar;
-  std::vector<YamlNode> items;   // sequence
+  std::vector<YamlNode> items;  // sequence
   // Mapping, in file order: keys[i] -> values[i] (two vectors: a vector of pairs would need
   // YamlNode complete here).
   std::vector<std::string> keys;
@@ -40,7 +40,8 @@ struct YamlNode {
   }
 };
 
-[[noreturn]] void header_error(const std::string& file, std::int64_t line, const std::string& message) {
+[[noreturn]] void header_error(const std::string& file, std::int64_t line,
+                               const std::string& message) {
   throw InputError({file, line, {}, "line"}, "ecsv_header", message);
 }
 
@@ -61,7 +62,8 @@ class YamlReader {
     for (;;) {
       Event e = next();
       if (e.get().type == YAML_DOCUMENT_START_EVENT) break;
-      if (e.get().type == YAML_STREAM_END_EVENT) header_error(file_, first_line_, "the YAML header is empty");
+      if (e.get().type == YAML_STREAM_END_EVENT)
+        header_error(file_, first_line_, "the YAML header is empty");
     }
     Event first = next();
     return node(first, 0);
@@ -101,7 +103,8 @@ class YamlReader {
 
   YamlNode node(Event& e, int depth) {
     if (depth > kMaxDepth)
-      header_error(file_, first_line_, fmt::format("the YAML header nests deeper than {} levels", kMaxDepth));
+      header_error(file_, first_line_,
+                   fmt::format("the YAML header nests deeper than {} levels", kMaxDepth));
     YamlNode n;
     switch (e.get().type) {
       case YAML_SCALAR_EVENT:
@@ -291,7 +294,8 @@ SourceTable parse_ecsv_table(const std::string& content, const std::string& name
     yaml.append(l).push_back('\n');
   }
   YamlNode root = YamlReader(yaml, name, 2).document();
-  if (root.kind != YamlNode::Kind::kMapping) header_error(name, 2, "the YAML header is not a mapping");
+  if (root.kind != YamlNode::Kind::kMapping)
+    header_error(name, 2, "the YAML header is not a mapping");
   const YamlNode* datatype = root.find("datatype");
   if (!datatype || datatype->kind != YamlNode::Kind::kSequence || datatype->items.empty())
     header_error(name, 2, "the YAML header has no 'datatype' list of columns");
@@ -321,7 +325,8 @@ SourceTable parse_ecsv_table(const std::string& content, const std::string& name
   out.row_label = "line";
   // The column-name line: the first line after the header that is not blank.
   while (k < lines.size() && lines[k].find_first_not_of(' ') == std::string_view::npos) ++k;
-  if (k >= lines.size()) header_error(name, static_cast<std::int64_t>(k), "the file has no column-name line");
+  if (k >= lines.size())
+    header_error(name, static_cast<std::int64_t>(k), "the file has no column-name line");
   const auto names_line = static_cast<std::int64_t>(k + 1);
   std::vector<std::string> names = split_line(lines[k], delimiter, name, names_line);
   std::vector<std::string> declared;
@@ -338,17 +343,17 @@ SourceTable parse_ecsv_table(const std::string& content, const std::string& name
       const std::string element = subtype_element(columns[c].subtype);
       const ColumnType type = type_of(element, name, 2, columns[c].name);
       if (type == ColumnType::kText)
-        header_error(name, 2, fmt::format("column {} has subtype {}: an array of strings",
-                                          columns[c].name, columns[c].subtype));
+        header_error(name, 2,
+                     fmt::format("column {} has subtype {}: an array of strings", columns[c].name,
+                                 columns[c].subtype));
       array_cols[c] = &out.arrays[columns[c].name];
       array_cols[c]->unit = columns[c].unit;
       array_cols[c]->logical = type == ColumnType::kBoolean;
       continue;
     }
     if (!columns[c].subtype.empty()) {
-      out.unusable_columns[columns[c].name] =
-          fmt::format("an array column (subtype {}): rungcal reads one value per star",
-                      columns[c].subtype);
+      out.unusable_columns[columns[c].name] = fmt::format(
+          "an array column (subtype {}): rungcal reads one value per star", columns[c].subtype);
       continue;
     }
     cols[c] = &out.table.add_column(columns[c].name, columns[c].type, columns[c].unit);
@@ -359,9 +364,9 @@ SourceTable parse_ecsv_table(const std::string& content, const std::string& name
     if (lines[k][0] == '#') continue;
     std::vector<std::string> fields = split_line(lines[k], delimiter, name, line_no);
     if (fields.size() != columns.size())
-      throw InputError({name, line_no, {}, "line"}, "field_count",
-                       fmt::format("{} fields where the header has {} columns", fields.size(),
-                                   columns.size()));
+      throw InputError(
+          {name, line_no, {}, "line"}, "field_count",
+          fmt::format("{} fields where the header has {} columns", fields.size(), columns.size()));
     for (std::size_t c = 0; c < columns.size(); ++c) {
       if (ArrayColumn* a = array_cols[c]) {
         auto v = fields[c].empty() ? std::optional(std::vector<double>{})
@@ -383,9 +388,10 @@ SourceTable parse_ecsv_table(const std::string& content, const std::string& name
         continue;
       }
       auto lie = [&] {
-        throw InputError({name, line_no, columns[c].name, "line"}, "ecsv_value",
-                         fmt::format("'{}' is not a {} value, which the header says the column holds",
-                                     f, columns[c].datatype));
+        throw InputError(
+            {name, line_no, columns[c].name, "line"}, "ecsv_value",
+            fmt::format("'{}' is not a {} value, which the header says the column holds", f,
+                        columns[c].datatype));
       };
       switch (col.type) {
         case ColumnType::kText:

@@ -11,20 +11,32 @@ namespace rungcal {
 
 const char* column_type_name(ColumnType type) {
   switch (type) {
-    case ColumnType::kReal: return "real";
-    case ColumnType::kInteger: return "integer";
-    case ColumnType::kText: return "text";
-    case ColumnType::kBoolean: return "boolean";
+    case ColumnType::kReal:
+      return "real";
+    case ColumnType::kInteger:
+      return "integer";
+    case ColumnType::kText:
+      return "text";
+    case ColumnType::kBoolean:
+      return "boolean";
   }
   return "?";
 }
 
 void Column::resize(std::size_t rows) {
   switch (type) {
-    case ColumnType::kReal: real.resize(rows, std::numeric_limits<double>::quiet_NaN()); break;
-    case ColumnType::kInteger: integer.resize(rows, 0); break;
-    case ColumnType::kText: text.resize(rows); break;
-    case ColumnType::kBoolean: boolean.resize(rows, 0); break;
+    case ColumnType::kReal:
+      real.resize(rows, std::numeric_limits<double>::quiet_NaN());
+      break;
+    case ColumnType::kInteger:
+      integer.resize(rows, 0);
+      break;
+    case ColumnType::kText:
+      text.resize(rows);
+      break;
+    case ColumnType::kBoolean:
+      boolean.resize(rows, 0);
+      break;
   }
   null.resize(rows, 1);
 }
@@ -51,10 +63,14 @@ void Column::push_boolean(bool v) {
 double Column::as_real(std::size_t row) const {
   if (is_null(row)) return std::numeric_limits<double>::quiet_NaN();
   switch (type) {
-    case ColumnType::kReal: return real[row];
-    case ColumnType::kInteger: return static_cast<double>(integer[row]);
-    case ColumnType::kBoolean: return boolean[row] ? 1.0 : 0.0;
-    case ColumnType::kText: return std::numeric_limits<double>::quiet_NaN();
+    case ColumnType::kReal:
+      return real[row];
+    case ColumnType::kInteger:
+      return static_cast<double>(integer[row]);
+    case ColumnType::kBoolean:
+      return boolean[row] ? 1.0 : 0.0;
+    case ColumnType::kText:
+      return std::numeric_limits<double>::quiet_NaN();
   }
   return std::numeric_limits<double>::quiet_NaN();
 }
@@ -62,10 +78,14 @@ double Column::as_real(std::size_t row) const {
 std::string Column::to_string(std::size_t row) const {
   if (is_null(row)) return "";
   switch (type) {
-    case ColumnType::kReal: return fmt::format("{}", real[row]);
-    case ColumnType::kInteger: return fmt::format("{}", integer[row]);
-    case ColumnType::kBoolean: return boolean[row] ? "true" : "false";
-    case ColumnType::kText: return text[row];
+    case ColumnType::kReal:
+      return fmt::format("{}", real[row]);
+    case ColumnType::kInteger:
+      return fmt::format("{}", integer[row]);
+    case ColumnType::kBoolean:
+      return boolean[row] ? "true" : "false";
+    case ColumnType::kText:
+      return text[row];
   }
   return "";
 }
@@ -124,10 +144,18 @@ StarTable StarTable::select_rows(const std::vector<std::size_t>& rows) const {
     for (std::size_t r : rows) {
       n.null.push_back(c.null[r]);
       switch (c.type) {
-        case ColumnType::kReal: n.real.push_back(c.real[r]); break;
-        case ColumnType::kInteger: n.integer.push_back(c.integer[r]); break;
-        case ColumnType::kText: n.text.push_back(c.text[r]); break;
-        case ColumnType::kBoolean: n.boolean.push_back(c.boolean[r]); break;
+        case ColumnType::kReal:
+          n.real.push_back(c.real[r]);
+          break;
+        case ColumnType::kInteger:
+          n.integer.push_back(c.integer[r]);
+          break;
+        case ColumnType::kText:
+          n.text.push_back(c.text[r]);
+          break;
+        case ColumnType::kBoolean:
+          n.boolean.push_back(c.boolean[r]);
+          break;
       }
     }
     out.index_[n.name] = out.columns_.size();
@@ -165,11 +193,15 @@ void StarTable::append_rows(const StarTable& other) {
       throw std::logic_error("append_rows: column " + to.name + " differs");
     to.null.insert(to.null.end(), from.null.begin(), from.null.end());
     switch (to.type) {
-      case ColumnType::kReal: to.real.insert(to.real.end(), from.real.begin(), from.real.end()); break;
+      case ColumnType::kReal:
+        to.real.insert(to.real.end(), from.real.begin(), from.real.end());
+        break;
       case ColumnType::kInteger:
         to.integer.insert(to.integer.end(), from.integer.begin(), from.integer.end());
         break;
-      case ColumnType::kText: to.text.insert(to.text.end(), from.text.begin(), from.text.end()); break;
+      case ColumnType::kText:
+        to.text.insert(to.text.end(), from.text.begin(), from.text.end());
+        break;
       case ColumnType::kBoolean:
         to.boolean.insert(to.boolean.end(), from.boolean.begin(), from.boolean.end());
         break;
@@ -181,10 +213,18 @@ void StarTable::reserve_rows(std::size_t rows) {
   for (Column& c : columns_) {
     c.null.reserve(rows);
     switch (c.type) {
-      case ColumnType::kReal: c.real.reserve(rows); break;
-      case ColumnType::kInteger: c.integer.reserve(rows); break;
-      case ColumnType::kText: c.text.reserve(rows); break;
-      case ColumnType::kBoolean: c.boolean.reserve(rows); break;
+      case ColumnType::kReal:
+        c.real.reserve(rows);
+        break;
+      case ColumnType::kInteger:
+        c.integer.reserve(rows);
+        break;
+      case ColumnType::kText:
+        c.text.reserve(rows);
+        break;
+      case ColumnType::kBoolean:
+        c.boolean.reserve(rows);
+        break;
     }
   }
 }

@@ -79,7 +79,9 @@ class StarTable {
 
   std::vector<Keyword>& header() { return header_; }
   const std::vector<Keyword>& header() const { return header_; }
-  void set_keyword(const std::string& key, std::variant<std::string, double, std::int64_t, bool> value, const std::string& comment = "");
+  void set_keyword(const std::string& key,
+                   std::variant<std::string, double, std::int64_t, bool> value,
+                   const std::string& comment = "");
   const Keyword* keyword(const std::string& key) const;
 
  private:

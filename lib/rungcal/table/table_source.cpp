@@ -23,8 +23,9 @@ bool has_fits_extension(const std::string& path) {
 TableSourceSpec table_source_from_section(const Config& config, const ConfigSection& source) {
   TableSourceSpec o;
   o.path = config.resolve_path(source.require_string("path"));
-  std::string format = source.string_or(
-      "format", has_fits_extension(o.path) ? "fits" : has_votable_extension(o.path) ? "votable" : "text");
+  std::string format = source.string_or("format", has_fits_extension(o.path)      ? "fits"
+                                                  : has_votable_extension(o.path) ? "votable"
+                                                                                  : "text");
   if (format != "fits" && format != "text" && format != "ecsv" && format != "votable")
     source.fail("format", "must be \"fits\", \"text\", \"ecsv\" or \"votable\"");
   o.is_fits = format == "fits";

@@ -13,11 +13,11 @@ namespace rungcal {
 
 // Where a stage reads an input table from: a FITS binary table or a delimited text file.
 struct TableSourceSpec {
-  std::string path;      // resolved against the config's folder
-  bool is_fits = false;  // from `format`, else from the file name's extension
+  std::string path;         // resolved against the config's folder
+  bool is_fits = false;     // from `format`, else from the file name's extension
   bool is_votable = false;  // format "votable", else a .vot/.xml/.votable name
-  FitsHduChoice hdu;     // FITS only
-  TextReadOptions text;  // text only: delimiter, header, comments, missing markers
+  FitsHduChoice hdu;        // FITS only
+  TextReadOptions text;     // text only: delimiter, header, comments, missing markers
   std::vector<std::string> array_columns;  // read into SourceTable::arrays (not text files)
 };
 

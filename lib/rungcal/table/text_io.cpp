@@ -30,11 +30,16 @@ bool starts_with(std::string_view s, std::string_view prefix) {
 
 char single_delimiter(Delimiter d) {
   switch (d) {
-    case Delimiter::kComma: return ',';
-    case Delimiter::kTab: return '\t';
-    case Delimiter::kSemicolon: return ';';
-    case Delimiter::kPipe: return '|';
-    default: return 0;
+    case Delimiter::kComma:
+      return ',';
+    case Delimiter::kTab:
+      return '\t';
+    case Delimiter::kSemicolon:
+      return ';';
+    case Delimiter::kPipe:
+      return '|';
+    default:
+      return 0;
   }
 }
 
@@ -45,7 +50,9 @@ std::vector<std::string> split_runs(std::string_view line, bool need_two_spaces)
   std::string cur;
   while (i < n) {
     char c = line[i];
-    bool is_gap = c == '\t' || (c == ' ' && (!need_two_spaces || (i + 1 < n && (line[i + 1] == ' ' || line[i + 1] == '\t'))));
+    bool is_gap =
+        c == '\t' || (c == ' ' && (!need_two_spaces ||
+                                   (i + 1 < n && (line[i + 1] == ' ' || line[i + 1] == '\t'))));
     if (is_gap) {
       out.push_back(cur);
       cur.clear();
@@ -99,26 +106,31 @@ std::vector<std::string> split_line(std::string_view line, Delimiter d, const st
     cur += c;
   }
   if (quoted)
-    throw InputError({file, line_no, {}, "line"}, "unterminated_quote", "a double quote opens a field that never closes");
+    throw InputError({file, line_no, {}, "line"}, "unterminated_quote",
+                     "a double quote opens a field that never closes");
   out.push_back(was_quoted ? cur : trim(cur));
   return out;
 }
 
 void check_encoding(const std::string& content, const std::string& name) {
   auto has_prefix = [&](std::string_view p) { return content.compare(0, p.size(), p) == 0; };
-  if (has_prefix("\xFF\xFE") || has_prefix("\xFE\xFF") || has_prefix(std::string_view("\x00\x00\xFE\xFF", 4)))
+  if (has_prefix("\xFF\xFE") || has_prefix("\xFE\xFF") ||
+      has_prefix(std::string_view("\x00\x00\xFE\xFF", 4)))
     throw InputError({name, 1, {}, "line"}, "encoding",
                      "the file is UTF-16 or UTF-32 encoded; save it as UTF-8 or ASCII");
   auto nul = content.find('\0');
   if (nul != std::string::npos) {
-    std::int64_t line = 1 + std::count(content.begin(), content.begin() + static_cast<std::ptrdiff_t>(nul), '\n');
-    throw InputError({name, line, {}, "line"}, "encoding",
-                     "the file holds NUL bytes: it is not a text table (a FITS file given as text?)");
+    std::int64_t line =
+        1 + std::count(content.begin(), content.begin() + static_cast<std::ptrdiff_t>(nul), '\n');
+    throw InputError(
+        {name, line, {}, "line"}, "encoding",
+        "the file holds NUL bytes: it is not a text table (a FITS file given as text?)");
   }
 }
 
 std::string quote_csv(const std::string& s) {
-  if (s.find_first_of(",\"\n\r") == std::string::npos && (s.empty() || (s.front() != ' ' && s.back() != ' ')))
+  if (s.find_first_of(",\"\n\r") == std::string::npos &&
+      (s.empty() || (s.front() != ' ' && s.back() != ' ')))
     return s;
   std::string out = "\"";
   for (char c : s) {
@@ -432,8 +444,10 @@ std::string format_csv_table(const StarTable& table) {
     for (std::size_t c = 0; c < table.columns(); ++c) {
       if (c) out += ',';
       const Column& col = table.column(c);
-      if (col.type == ColumnType::kReal && !col.is_null(r)) out += fmt::format("{}", col.real[r]);  // shortest round-trip form
-      else out += quote_csv(col.to_string(r));
+      if (col.type == ColumnType::kReal && !col.is_null(r))
+        out += fmt::format("{}", col.real[r]);  // shortest round-trip form
+      else
+        out += quote_csv(col.to_string(r));
     }
     out += '\n';
   }

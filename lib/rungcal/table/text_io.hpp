@@ -34,7 +34,7 @@ inline constexpr EnumTable<Delimiter, 6> kDelimiterNames{{{
 struct TextReadOptions {
   Delimiter delimiter = Delimiter::kComma;  // field separator
   bool has_header = true;                   // a line names the columns
-  std::string header_prefix;    // the header line starts with this (e.g. "#"), which is cut off
+  std::string header_prefix;  // the header line starts with this (e.g. "#"), which is cut off
   std::string comment_prefix = "#";  // other lines starting with this are skipped
   std::size_t skip_lines = 0;        // lines skipped before anything else
   // Field values that mean "no value" (compared after trimming); an empty field always does.

@@ -51,13 +51,20 @@ const std::vector<UnitEntry>& unit_entries() {
 
 const char* canonical_unit(QuantityKind kind) {
   switch (kind) {
-    case QuantityKind::kParallax: return "mas";
-    case QuantityKind::kPeriod: return "d";
-    case QuantityKind::kAngle: return "deg";
-    case QuantityKind::kMagnitude: return "mag";
-    case QuantityKind::kDex: return "";  // [Fe/H] is in dex, which FITS has no unit for
-    case QuantityKind::kWavenumber: return "um-1";
-    case QuantityKind::kDimensionless: return "";
+    case QuantityKind::kParallax:
+      return "mas";
+    case QuantityKind::kPeriod:
+      return "d";
+    case QuantityKind::kAngle:
+      return "deg";
+    case QuantityKind::kMagnitude:
+      return "mag";
+    case QuantityKind::kDex:
+      return "";  // [Fe/H] is in dex, which FITS has no unit for
+    case QuantityKind::kWavenumber:
+      return "um-1";
+    case QuantityKind::kDimensionless:
+      return "";
   }
   return "";
 }

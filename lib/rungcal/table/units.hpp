@@ -22,7 +22,7 @@ const char* canonical_unit(QuantityKind kind);
 
 // A conversion from an input unit to the canonical one.
 struct UnitConversion {
-  double scale = 1.0;    // canonical = scale * input (unless log10_input)
+  double scale = 1.0;        // canonical = scale * input (unless log10_input)
   bool log10_input = false;  // input is log10(value in canonical unit)
   double apply(double x) const;
 };
