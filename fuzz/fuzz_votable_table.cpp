@@ -1,5 +1,5 @@
 // SPDX-License-Identifier: MIT
-// Fuzz target: the VOTable reader (XML through libexpat, TABLEDATA). A clean
+// Fuzz target: the VOTable reader (XML through libexpat; TABLEDATA, BINARY, BINARY2). A clean
 // InputError is the expected answer to any bytes; anything else is a bug.
 #include <cstddef>
 #include <cstdint>

@@ -31,7 +31,8 @@ cmake --build "$build" -j"$(nproc)" >/dev/null
 # 4: whitespace, 5: multi-space), so each file is seeded under the options it is read with.
 seeds="$build/seeds"
 rm -rf "$seeds"
-mkdir -p "$seeds/fuzz_text_table" "$seeds/fuzz_ecsv_table" "$seeds/fuzz_votable_table" "$seeds/fuzz_fits_table" "$seeds/fuzz_config"
+mkdir -p "$seeds/fuzz_text_table" "$seeds/fuzz_ecsv_table" "$seeds/fuzz_votable_table" "$seeds/fuzz_votable_binary" \
+  "$seeds/fuzz_gaia_epoch" "$seeds/fuzz_fits_table" "$seeds/fuzz_config"
 n=0
 for f in sample_data/*.csv ../shared/reference/*.csv ../shared/reference/*.txt tests/*.csv; do
   [ -f "$f" ] || continue
@@ -68,10 +69,21 @@ printf '%s\n' '<?xml version="1.0"?>' '<VOTABLE version="1.4"><RESOURCE><TABLE>'
   '<DATA><TABLEDATA><TR><TD>17</TD><TD>1706.5 NaN 1710.25</TD><TD>010</TD><TD>1 -1 3</TD></TR>' \
   '<TR><TD>18</TD><TD/><TD>1 0</TD><TD>4 5 6</TD></TR></TABLEDATA></DATA></TABLE></RESOURCE></VOTABLE>' \
   > "$seeds/fuzz_votable_table/seed2"
+# A BINARY2 VOTable of Gaia-epoch-like arrays, and decoded binary streams, a first byte
+# choosing the serialization and the FIELDs (fuzz/seeds/votable/write_binary_seeds.py).
+cp fuzz/seeds/votable/*.vot "$seeds/fuzz_votable_table/"
+cp fuzz/seeds/votable_binary/*.bin "$seeds/fuzz_votable_binary/"
+# The gaia_epoch layout: a first byte choosing the reader (0: VOTable, 1: ECSV), then the
+# VOTable and ECSV epoch seeds above.
+for f in fuzz/seeds/votable/*.vot "$seeds/fuzz_votable_table/seed2"; do
+  { printf '\x00'; cat "$f"; } > "$seeds/fuzz_gaia_epoch/vot-$(basename "$f")"
+done
+{ printf '\x01'; cat "$seeds/fuzz_ecsv_table/seed2"; } > "$seeds/fuzz_gaia_epoch/ecsv-seed2"
 find config -name '*.toml' -exec cp {} "$seeds/fuzz_config/" \;
 
 status=0
-for target in fuzz_text_table fuzz_ecsv_table fuzz_votable_table fuzz_fits_table fuzz_config; do
+for target in fuzz_text_table fuzz_ecsv_table fuzz_votable_table fuzz_votable_binary fuzz_gaia_epoch fuzz_fits_table \
+  fuzz_config; do
   corpus="$build/corpus/$target"
   findings="$build/findings/$target"
   mkdir -p "$corpus" "$findings"

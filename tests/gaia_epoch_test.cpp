@@ -29,7 +29,8 @@ namespace {
 // Two invented sources in the columns of Gaia DR3 documentation, section 20.7.1: a
 // 5.3671-day Cepheid-like and a 0.58731-day RR Lyrae-like sinusoid, 70 and 90 transits over
 // Gaia times 1700-2750 d. Flagged epochs carry a wrong magnitude (5.0) so that keeping one
-// would show. Written as gaia.ecsv, gaia.vot (TABLEDATA), gaia.fits (variable-length
+// would show. Written as gaia.ecsv, gaia.vot (TABLEDATA), gaia_binary2.vot (BINARY2, the
+// flags boolean, as the Gaia archive's DataLink sends them), gaia.fits (variable-length
 // arrays, 1PD/1PE/1PL), flux.ecsv (fluxes only, no magnitudes), each through astropy.
 constexpr const char* kWriteGaiaFiles = R"py(
 import sys, numpy as np
@@ -84,6 +85,31 @@ names = list(rows)
 table(names).write(out + "/gaia.ecsv", overwrite=True)
 table(names).write(out + "/gaia.vot", format="votable", overwrite=True)
 table([n for n in names if not n.endswith("mag")]).write(out + "/flux.ecsv", overwrite=True)
+# BINARY2 through astropy.io.votable's tree: its Table writer makes bool arrays "bit", and
+# variable-length arrays need a masked array per cell.
+from astropy.io.votable import tree as vo
+vot = vo.VOTableFile()
+vot.resources.append(vo.Resource())
+vt = (getattr(vo, "TableElement", None) or vo.Table)(vot)
+vot.resources[0].tables.append(vt)
+def vo_type(name):
+    if name == "source_id":
+        return "long", None
+    if "flag" in name:
+        return "boolean", "*"
+    return ("float" if name.endswith("over_error") else "double"), "*"
+for name in names:
+    vt.fields.append(vo.Field(vot, name=name, datatype=vo_type(name)[0], arraysize=vo_type(name)[1]))
+vt.create_arrays(len(sources))
+numpy_type = {"boolean": bool, "float": np.float32, "double": np.float64}
+for name in names:
+    for i, v in enumerate(rows[name]):
+        if name == "source_id":
+            vt.array[name][i] = v
+            continue
+        x = np.asarray(v, dtype=numpy_type[vo_type(name)[0]])
+        vt.array.data[name][i] = np.ma.array(x, mask=np.zeros(x.shape, dtype=bool))
+vot.to_xml(out + "/gaia_binary2.vot", tabledata_format="binary2")
 cols = []
 for name in names:
     if name == "source_id":
@@ -218,18 +244,21 @@ void expect_same_light_curves(const SourceTable& other, const SourceTable& refer
 TEST(GaiaEpoch, FitsVotableAndEcsvGiveTheSameLightCurves) {
   test::TempDir dir;
   write_gaia_files(dir);
-  std::vector<GaiaDroppedEpochs> de, dv, df;
+  std::vector<GaiaDroppedEpochs> de, dv, df, db;
   const SourceTable e = expand(dir.file("gaia.ecsv"), de);
   const SourceTable v = expand(dir.file("gaia.vot"), dv);
   const SourceTable f = expand(dir.file("gaia.fits"), df);
+  const SourceTable b = expand(dir.file("gaia_binary2.vot"), db);
   // 3 x 70 + 3 x 90 epochs, less 3 flagged G, 2 missing BP and 1 flagged RP.
   ASSERT_EQ(e.table.rows(), 3u * 70 + 3u * 90 - 6);
-  for (const SourceTable* other : {&v, &f}) expect_same_light_curves(*other, e);
+  for (const SourceTable* other : {&v, &f, &b}) expect_same_light_curves(*other, e);
+  EXPECT_EQ(b.row_label, "row");
+  EXPECT_EQ(b.source_rows.back(), 2);  // the second source's row in the stream
   EXPECT_EQ(e.table.column("star").text[0], "4101234567890123457");
   EXPECT_EQ(e.row_label, "line");
   EXPECT_EQ(f.row_label, "row");
   EXPECT_EQ(f.source_rows.back(), 2);  // the second source's FITS row
-  for (const auto* d : {&de, &dv, &df}) {
+  for (const auto* d : {&de, &dv, &df, &db}) {
     ASSERT_EQ(d->size(), 6u);  // 2 sources x 3 bands
     EXPECT_EQ((*d)[0].band, "G");
     EXPECT_EQ((*d)[0].flagged, 3);
@@ -282,6 +311,25 @@ TEST(GaiaEpoch, TheFlatFormSkipsTheRowsOfBandsNotAskedFor) {
   EXPECT_EQ(d[0].flagged, 3);
 }
 
+// The light-curve stage's SUMMARY from two runs: every column alike.
+void expect_same_summary(const StarTable& f, const StarTable& a) {
+  ASSERT_EQ(f.rows(), a.rows());
+  ASSERT_EQ(f.columns(), a.columns());
+  for (std::size_t k = 0; k < a.columns(); ++k) {
+    const Column& ca = a.column(k);
+    const Column& cf = f.column(ca.name);
+    for (std::size_t r = 0; r < a.rows(); ++r) {
+      if (ca.type == ColumnType::kReal && std::isnan(ca.real[r]))  // e.g. R21 of one harmonic
+        EXPECT_TRUE(std::isnan(cf.real[r])) << ca.name << " " << r;
+      else if (ca.type == ColumnType::kReal)  // errors through float flux_over_error: 1e-7
+        EXPECT_NEAR(cf.real[r], ca.real[r], 1e-6 * std::max(1.0, std::abs(ca.real[r])))
+            << ca.name << " " << r;
+      else
+        EXPECT_EQ(cf.to_string(r), ca.to_string(r)) << ca.name << " " << r;
+    }
+  }
+}
+
 TEST(GaiaEpoch, TheStageGivesTheSameSummaryFromTheFlatForm) {
   test::TempDir dir;
   write_gaia_files(dir);
@@ -301,24 +349,59 @@ TEST(GaiaEpoch, TheStageGivesTheSameSummaryFromTheFlatForm) {
       << rf.output;
   const StarTable a = read_fits_table(dir.file("out/lc.fits"), {"SUMMARY", 0}).table;
   const StarTable f = read_fits_table(dir.file("flat/lc.fits"), {"SUMMARY", 0}).table;
-  ASSERT_EQ(f.rows(), a.rows());
-  ASSERT_EQ(f.columns(), a.columns());
-  for (std::size_t k = 0; k < a.columns(); ++k) {
-    const Column& ca = a.column(k);
-    const Column& cf = f.column(ca.name);
-    for (std::size_t r = 0; r < a.rows(); ++r) {
-      if (ca.type == ColumnType::kReal && std::isnan(ca.real[r]))  // e.g. R21 of one harmonic
-        EXPECT_TRUE(std::isnan(cf.real[r])) << ca.name << " " << r;
-      else if (ca.type == ColumnType::kReal)  // errors through float flux_over_error: 1e-7
-        EXPECT_NEAR(cf.real[r], ca.real[r], 1e-6 * std::max(1.0, std::abs(ca.real[r])))
-            << ca.name << " " << r;
-      else
-        EXPECT_EQ(cf.to_string(r), ca.to_string(r)) << ca.name << " " << r;
-    }
-  }
+  expect_same_summary(f, a);
   EXPECT_EQ(f.column("flagged_G").integer, (std::vector<std::int64_t>{3, 0}));
   EXPECT_EQ(f.column("missing_BP").integer, (std::vector<std::int64_t>{2, 0}));
   EXPECT_EQ(f.column("flagged_RP").integer, (std::vector<std::int64_t>{1, 0}));
+}
+
+TEST(GaiaEpoch, TheStageReadsABinary2VotableAsTheArchiveSendsIt) {
+  // The same epochs in a BINARY2 VOTable (astropy.io.votable) and in FITS: the same SUMMARY
+  // and the periods the light curves were made with.
+  test::TempDir dir;
+  write_gaia_files(dir);
+  test::write_text(dir.file("fits.toml"), gaia_config("gaia.fits"));
+  test::write_text(dir.file("b2.toml"), test::replaced(gaia_config("gaia_binary2.vot"),
+                                                       {{"out/lc.fits", "b2/lc.fits"}}));
+  const auto rf = test::run_stage("lightcurve", "--config " + dir.file("fits.toml"));
+  ASSERT_EQ(rf.exit_code, 0) << rf.output;
+  const auto rb = test::run_stage("lightcurve", "--config " + dir.file("b2.toml"));
+  ASSERT_EQ(rb.exit_code, 0) << rb.output;
+  const StarTable f = read_fits_table(dir.file("out/lc.fits"), {"SUMMARY", 0}).table;
+  const StarTable b = read_fits_table(dir.file("b2/lc.fits"), {"SUMMARY", 0}).table;
+  expect_same_summary(b, f);
+  const std::map<std::string, double> truth = {{"4101234567890123457", 5.3671},
+                                               {"4107654321098765439", 0.58731}};
+  for (std::size_t r = 0; r < b.rows(); ++r) {
+    const double period = truth.at(b.column("id").text[r]);
+    EXPECT_NEAR(b.column("period_d").real[r], period, 2e-5 * period);  // known truth
+  }
+  EXPECT_EQ(b.column("flagged_G").integer, (std::vector<std::int64_t>{3, 0}));
+  EXPECT_EQ(b.column("missing_BP").integer, (std::vector<std::int64_t>{2, 0}));
+}
+
+TEST(GaiaEpoch, ATruncatedBinary2StreamStopsTheStageNamingRowAndColumn) {
+  // gaia_binary2.vot with its stream cut 100 bytes short (decoded and encoded again with
+  // Python's base64): the second source's last arrays end early.
+  test::TempDir dir;
+  write_gaia_files(dir);
+  const auto cut = test::run_python(R"py(
+import base64, re, sys
+path = sys.argv[1]
+text = open(path).read()
+m = re.search(r"(<STREAM[^>]*>)(.*?)(</STREAM>)", text, re.S)
+short = base64.b64encode(base64.b64decode(m.group(2))[:-100]).decode()
+open(path, "w").write(text[:m.start(2)] + short + text[m.end(2):])
+)py",
+                                    {dir.file("gaia_binary2.vot")});
+  ASSERT_EQ(cut.exit_code, 0) << cut.output;
+  test::write_text(dir.file("lc.toml"), gaia_config("gaia_binary2.vot"));
+  const auto r = test::run_stage("lightcurve", "--config " + dir.file("lc.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("gaia_binary2.vot:row 2: column '"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("[votable_binary]"), std::string::npos) << r.output;
+  EXPECT_NE(r.output.find("truncated"), std::string::npos) << r.output;
+  EXPECT_FALSE(test::file_exists(dir.file("out")));
 }
 
 TEST(GaiaEpoch, FluxesWithoutMagnitudesGiveTheSameMagnitudes) {

@@ -76,19 +76,20 @@ std::vector<std::string> gaia_epoch_array_columns();
 // with a NaN or null time, magnitude, flux or error, or a flux that is not positive.
 struct GaiaDroppedEpochs {
   std::string star, band;
-  std::int64_t source_row = 0;  // the source's (first) row (FITS) or line (VOTable, ECSV, CSV)
+  std::int64_t source_row = 0;  // the source's (first) row (FITS, binary VOTable) or line
+                                // (TABLEDATA VOTable, ECSV, CSV)
   std::int64_t flagged = 0;
   std::int64_t missing = 0;
 };
 
 // Reads every file the spec's path (a file name or a glob) matches, in either form, and
 // writes one long table of columns.star (source_id), band, time (BJD TCB), mag and err, its
-// source rows the row (FITS) or line (VOTable, ECSV, CSV) of each source (arrays) or epoch
-// (flat). bands: the bands to expand ("G", "BP", "RP"); a flat file's rows of other bands
-// are skipped. inputs receives every file with its SHA-256 and rows. Throws InputError
-// naming the file, row and column: "missing_column" (no source_id; arrays: a band without
-// its time array or without magnitudes or fluxes and their errors; flat: no band or time
-// column, no mag or flux, no flux_over_error or flux_error), "not_an_array" (the column is
+// source rows the row (FITS, BINARY and BINARY2 VOTable) or line (TABLEDATA VOTable, ECSV,
+// CSV) of each source (arrays) or epoch (flat). bands: the bands to expand ("G", "BP", "RP"); a
+// flat file's rows of other bands are skipped. inputs receives every file with its SHA-256 and
+// rows. Throws InputError naming the file, row and column: "missing_column" (no source_id; arrays:
+// a band without its time array or without magnitudes or fluxes and their errors; flat: no band or
+// time column, no mag or flux, no flux_over_error or flux_error), "not_an_array" (the column is
 // there but holds one value per row), "array_length" (a row whose arrays for one band
 // differ in length); flat only: "unknown_band" (a band value other than G, BP, RP),
 // "not_a_number" (a value that is neither empty nor a number), "not_a_flag" (a rejection

@@ -1,6 +1,8 @@
 // SPDX-License-Identifier: MIT
-// VOTable reader (TABLEDATA). Format: IVOA Recommendation "VOTable Format Definition",
-// version 1.4 (2019), sections 4 (FIELD), 5 (VALUES) and 6 (TABLEDATA).
+// VOTable reader: the XML, the FIELDs and TABLEDATA; the rows of a BINARY or BINARY2
+// STREAM are read by votable_binary.cpp. Format: IVOA Recommendation "VOTable Format
+// Definition", version 1.4 (2019), sections 4 (FIELD), 5 (VALUES, the binary
+// serializations) and 6 (TABLEDATA).
 #include "rungcal/table/votable_io.hpp"
 
 #include <expat.h>
@@ -17,19 +19,15 @@
 #include <fmt/format.h>
 
 #include "rungcal/core/atomic_file.hpp"
+#include "rungcal/core/base64.hpp"
 #include "rungcal/core/error.hpp"
 #include "rungcal/table/text_io.hpp"
+#include "rungcal/table/votable_parts.hpp"
 
 namespace rungcal {
 namespace {
 
-struct Field {
-  std::string name, datatype, unit, arraysize;
-  std::optional<std::string> null_value;  // <VALUES null="...">
-  ColumnType type = ColumnType::kText;
-  bool usable = true;
-  ArrayColumn* array = nullptr;  // an array FIELD asked for by name
-};
+using Field = VotableField;
 
 // An element name without its namespace prefix ("vot:TD" -> "TD").
 std::string_view local(const XML_Char* name) {
@@ -53,7 +51,12 @@ struct Reader {
   bool in_table = false;  // inside the first TABLE
   bool in_field = false;
   bool in_td = false;
-  bool data_seen = false;  // TABLEDATA found
+  bool data_seen = false;               // TABLEDATA, BINARY or BINARY2 found
+  std::optional<VotableStream> binary;  // the serialization, when binary
+  bool in_stream = false;
+  bool stream_seen = false;
+  std::int64_t stream_line = 0;     // the line of the STREAM's start tag
+  bool written_by_astropy = false;  // an XML comment names astropy.io.votable
   std::int64_t tr_line = 0;
   std::vector<std::string> row;
   std::vector<std::uint8_t> row_empty;  // a TD without text (or an empty <TD/>)
@@ -71,11 +74,18 @@ struct Reader {
   }
 
   void start(std::string_view el, const XML_Char** atts) {
+    if (in_stream)
+      fail("votable_table", "",
+           fmt::format("an element <{}> inside the STREAM, which holds base64 text only", el));
     if (el == "TABLE") {
       in_table = ++tables == 1;
       return;
     }
     if (!in_table) return;
+    // The columns are laid out when the data start: a FIELD after that (VOTable puts them
+    // before DATA) would have no column.
+    if (el == "FIELD" && data_seen)
+      fail("votable_table", "", "a FIELD after the table's data began (FIELDs come before DATA)");
     if (el == "FIELD") {
       Field f;
       const XML_Char* name = attribute(atts, "name");
@@ -89,19 +99,25 @@ struct Reader {
       in_field = true;
     } else if (el == "VALUES" && in_field) {
       if (const XML_Char* v = attribute(atts, "null")) fields.back().null_value = v;
-    } else if (el == "BINARY" || el == "BINARY2" || el == "FITS") {
+    } else if (el == "FITS") {
       fail("votable_table", "",
-           fmt::format(
-               "the table is serialized as {}; rungcal reads TABLEDATA (ask the archive for "
-               "it, or convert with astropy: votable.writeto(..., tabledata_format='tabledata'))",
-               el));
-    } else if (el == "TABLEDATA") {
+           "the table is serialized as FITS inside the VOTable; rungcal reads TABLEDATA, BINARY "
+           "and BINARY2 (ask the archive for one of them, or convert with astropy: "
+           "votable.writeto(..., tabledata_format='binary2'))");
+    } else if ((el == "BINARY" || el == "BINARY2") && !data_seen) {
+      binary = el == "BINARY" ? VotableStream::kBinary : VotableStream::kBinary2;
+      refuse_unpacked_bit_arrays();
       open_columns();
-    } else if (el == "TR" && data_seen) {
+      out.row_label = "row";
+    } else if (el == "STREAM" && binary && !stream_seen) {
+      open_stream(atts);
+    } else if (el == "TABLEDATA" && !data_seen) {
+      open_columns();
+    } else if (el == "TR" && data_seen && !binary) {
       tr_line = line();
       row.clear();
       row_empty.clear();
-    } else if (el == "TD" && data_seen) {
+    } else if (el == "TD" && data_seen && !binary) {
       in_td = true;
       text.clear();
     }
@@ -120,9 +136,58 @@ struct Reader {
       row_empty.push_back(text.empty() ? 1 : 0);
       row.push_back(std::move(text));
       text.clear();
-    } else if (el == "TR" && data_seen) {
+    } else if (el == "TR" && data_seen && !binary) {
       add_row();
+    } else if (el == "STREAM" && in_stream) {
+      close_stream();
     }
+  }
+
+  // A variable-length bit array is packed, eight elements to a byte (VOTable 1.4, section
+  // 5.3; memory), but astropy.io.votable (5.2, Debian 12) writes one byte per element. The
+  // stream does not say which, and reading one as the other shifts every later value, so a
+  // file that names astropy as its writer and has such a FIELD stops here.
+  void refuse_unpacked_bit_arrays() const {
+    if (!written_by_astropy) return;
+    for (const auto& f : fields)
+      if (f.datatype == "bit" && !f.arraysize.empty() && f.arraysize.back() == '*')
+        fail("votable_table", f.name,
+             "a variable-length bit array in a binary stream written by astropy.io.votable, "
+             "which writes one byte per element where VOTable packs eight: rungcal cannot tell "
+             "which the file holds (write the column as datatype boolean, or in TABLEDATA)");
+  }
+
+  // VOTable 1.4, section 5.1: a STREAM holds the data itself, base64-encoded, or points to
+  // them with href. rungcal reads the first kind only.
+  void open_stream(const XML_Char** atts) {
+    stream_seen = true;
+    if (const XML_Char* href = attribute(atts, "href"))
+      fail("votable_table", "",
+           fmt::format("the table's STREAM points to data outside the file ({}); rungcal reads a "
+                       "STREAM whose data are inside it (download the data, or ask the archive for "
+                       "TABLEDATA or an inline BINARY2 stream)",
+                       href));
+    const XML_Char* encoding = attribute(atts, "encoding");
+    if (!encoding || std::string_view(encoding) != "base64")
+      fail("votable_table", "",
+           fmt::format("the table's STREAM has encoding '{}'; rungcal reads encoding=\"base64\"",
+                       encoding ? encoding : "(none)"));
+    in_stream = true;
+    stream_line = line();
+    text.clear();
+  }
+
+  void close_stream() {
+    in_stream = false;
+    const Base64Decoded decoded = decode_base64(text);
+    if (!decoded.ok()) {
+      const auto before = std::string_view(text).substr(0, *decoded.bad_offset);
+      const auto line_of_error = stream_line + std::count(before.begin(), before.end(), '\n');
+      throw InputError({file, line_of_error, {}, "line"}, "votable_base64",
+                       fmt::format("the STREAM is not base64: {}", decoded.problem));
+    }
+    text.clear();
+    read_votable_binary_rows(decoded.bytes, *binary, fields, columns, file, out);
   }
 
   void open_columns() {
@@ -317,7 +382,12 @@ SourceTable parse_votable_table(const std::string& content, const std::string& n
       });
   XML_SetCharacterDataHandler(r.parser, [](void* data, const XML_Char* s, int len) {
     auto* self = static_cast<Reader*>(data);
-    if (self->in_td) self->text.append(s, static_cast<std::size_t>(len));
+    if (self->in_td || self->in_stream) self->text.append(s, static_cast<std::size_t>(len));
+  });
+  XML_SetCommentHandler(r.parser, [](void* data, const XML_Char* comment) {
+    auto* self = static_cast<Reader*>(data);
+    if (std::string_view(comment).find("astropy.io.votable") != std::string_view::npos)
+      self->written_by_astropy = true;
   });
   // Fed in pieces: XML_Parse takes an int length.
   constexpr std::size_t kPiece = 1 << 20;
@@ -335,7 +405,10 @@ SourceTable parse_votable_table(const std::string& content, const std::string& n
   } while (pos < content.size());
   if (r.tables == 0) throw InputError({name, {}, {}}, "votable_table", "the file has no TABLE");
   if (!r.data_seen)
-    throw InputError({name, {}, {}}, "votable_table", "the first TABLE has no TABLEDATA");
+    throw InputError({name, {}, {}}, "votable_table",
+                     "the first TABLE has no TABLEDATA, BINARY or BINARY2");
+  if (r.binary && !r.stream_seen)
+    throw InputError({name, {}, {}}, "votable_table", "the table's BINARY data have no STREAM");
   return std::move(r.out);
 }
 
