@@ -12,6 +12,7 @@
 
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/json_io.hpp"
+#include "rungcal/table/error_budget_schema.hpp"
 
 namespace rungcal {
 namespace {
@@ -19,30 +20,6 @@ namespace {
 [[noreturn]] void budget_error(const std::string& where, const std::string& key,
                                const std::string& message) {
   throw InputError({where, {}, key, "row", "key"}, "budget_schema", message);
-}
-
-const nlohmann::json& array_at(const nlohmann::json& object, const std::string& key,
-                               const std::string& path, const std::string& where) {
-  auto it = object.find(key);
-  if (it == object.end() || !it->is_array())
-    budget_error(where, path + key, "missing, or not an array");
-  return *it;
-}
-
-std::string string_at(const nlohmann::json& object, const std::string& key, const std::string& path,
-                      const std::string& where) {
-  auto it = object.find(key);
-  if (it == object.end() || !it->is_string())
-    budget_error(where, path + key, "missing, or not a string");
-  return it->get<std::string>();
-}
-
-double number_at(const nlohmann::json& object, const std::string& key, const std::string& path,
-                 const std::string& where) {
-  auto it = object.find(key);
-  if (it == object.end() || !it->is_number() || !std::isfinite(it->get<double>()))
-    budget_error(where, path + key, "missing, or not a finite number");
-  return it->get<double>();
 }
 
 }  // namespace
@@ -78,42 +55,43 @@ SystematicShifts SystematicShifts::without_categories(const std::vector<std::str
 
 SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::string& where,
                                    const Calibration& cal, const std::string& relation) {
-  if (!budget.is_object() || budget.value("schema", "") != "rungcal-error-budget")
-    budget_error(
-        where, "schema",
-        "not a rungcal error budget (schema \"rungcal-error-budget\", rungcal-grid's grid.json)");
+  if (!budget.is_object() || budget.value(budget_key::kSchema, "") != kErrorBudgetSchemaName)
+    budget_error(where, budget_key::kSchema,
+                 fmt::format("not a rungcal error budget (schema \"{}\", rungcal-grid's grid.json)",
+                             kErrorBudgetSchemaName));
   SystematicShifts s;
   s.source = where;
-  const nlohmann::json& variants = array_at(budget, "variants", "", where);
+  const nlohmann::json& variants = budget_array_at(budget, budget_key::kVariants, "", where);
   std::map<std::string, std::size_t> index;
   for (std::size_t k = 0; k < variants.size(); ++k) {
     const std::string at = fmt::format("variants[{}].", k);
     if (!variants[k].is_object())
       budget_error(where, at.substr(0, at.size() - 1), "must be an object");
-    s.variants.push_back(string_at(variants[k], "name", at, where));
-    s.categories.push_back(string_at(variants[k], "category", at, where));
-    const auto ext = variants[k].find("changes_extinction");
+    s.variants.push_back(budget_string_at(variants[k], budget_key::kName, at, where));
+    s.categories.push_back(budget_string_at(variants[k], budget_key::kCategory, at, where));
+    const auto ext = variants[k].find(budget_key::kChangesExtinction);
     if (ext != variants[k].end() && !ext->is_boolean())
-      budget_error(where, at + "changes_extinction", "must be true or false");
+      budget_error(where, at + budget_key::kChangesExtinction, "must be true or false");
     s.changes_extinction.push_back(ext != variants[k].end() && ext->get<bool>());
     index[s.variants.back()] = k;
   }
-  const nlohmann::json& relations = array_at(budget, "relations", "", where);
+  const nlohmann::json& relations = budget_array_at(budget, budget_key::kRelations, "", where);
   const nlohmann::json* rel = nullptr;
   std::string rel_at;
   for (std::size_t i = 0; i < relations.size(); ++i) {
     const std::string at = fmt::format("relations[{}].", i);
     if (!relations[i].is_object())
       budget_error(where, at.substr(0, at.size() - 1), "must be an object");
-    if (string_at(relations[i], "name", at, where) == relation) rel = &relations[i], rel_at = at;
+    if (budget_string_at(relations[i], budget_key::kName, at, where) == relation)
+      rel = &relations[i], rel_at = at;
   }
   if (!rel)
-    throw InputError({where, {}, "relations", "row", "key"}, "unknown_relation",
+    throw InputError({where, {}, budget_key::kRelations, "row", "key"}, "unknown_relation",
                      fmt::format("the error budget has no relation '{}'", relation));
   const FitRelationRecord cal_relation = cal.relation_record(relation);
   const std::vector<std::string>& names = cal_relation.parameter_names;
   s.shift.assign(s.variants.size(), std::vector<double>(names.size(), 0.0));
-  const nlohmann::json& params = array_at(*rel, "parameters", rel_at, where);
+  const nlohmann::json& params = budget_array_at(*rel, budget_key::kParameters, rel_at, where);
   std::vector<bool> variant_has_rows(s.variants.size(), false);
   std::vector<std::pair<std::size_t, double>>
       listed;  // budget parameters of the calibration: index, baseline
@@ -121,15 +99,16 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
     const std::string at = fmt::format("{}parameters[{}].", rel_at, j);
     if (!params[j].is_object())
       budget_error(where, at.substr(0, at.size() - 1), "must be an object");
-    const std::string name = string_at(params[j], "name", at, where);
-    const double baseline = number_at(params[j], "baseline", at, where);
+    const std::string name = budget_string_at(params[j], budget_key::kName, at, where);
+    const double baseline = budget_number_at(params[j], budget_key::kBaseline, at, where);
     std::optional<std::size_t> p;
     for (std::size_t q = 0; q < names.size(); ++q)
       if (names[q] == name) p = q;
     if (!p) continue;  // a parameter the calibration lacks moves no prediction of it
     const double value = cal_relation.parameters.at(*p).value;
-    const nlohmann::json& err =
-        params[j].contains("baseline_error") ? params[j]["baseline_error"] : nlohmann::json();
+    const nlohmann::json& err = params[j].contains(budget_key::kBaselineError)
+                                    ? params[j][budget_key::kBaselineError]
+                                    : nlohmann::json();
     const double tolerance =
         err.is_number() ? 0.1 * err.get<double>() : 1e-9 * std::max(1.0, std::abs(value));
     if (std::abs(value - baseline) > tolerance)
@@ -140,16 +119,16 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
           where, name, baseline, value);
     listed.emplace_back(*p, baseline);
     std::vector<bool> seen(s.variants.size(), false);
-    const nlohmann::json& rows = array_at(params[j], "variants", at, where);
+    const nlohmann::json& rows = budget_array_at(params[j], budget_key::kVariants, at, where);
     for (std::size_t k = 0; k < rows.size(); ++k) {
       const std::string row_at = fmt::format("{}variants[{}].", at, k);
       if (!rows[k].is_object())
         budget_error(where, row_at.substr(0, row_at.size() - 1), "must be an object");
-      const std::string variant = string_at(rows[k], "variant", row_at, where);
+      const std::string variant = budget_string_at(rows[k], budget_key::kVariant, row_at, where);
       auto v = index.find(variant);
       if (v == index.end())
         budget_error(where, row_at + "variant", "names no variant of the budget's \"variants\"");
-      s.shift[v->second][*p] = number_at(rows[k], "shift", row_at, where);
+      s.shift[v->second][*p] = budget_number_at(rows[k], budget_key::kShift, row_at, where);
       seen[v->second] = variant_has_rows[v->second] = true;
     }
     for (std::size_t v = 0; v < s.variants.size(); ++v)

@@ -18,6 +18,7 @@
 #include "rungcal/core/progress.hpp"
 #include "rungcal/photometry/bands.hpp"
 #include "rungcal/table/catalog_schema.hpp"
+#include "rungcal/table/error_budget_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 
 namespace rungcal {
@@ -114,19 +115,22 @@ double number_or_nan(const nlohmann::json& j, const char* key) {
 
 std::string csv_of_budget(const nlohmann::json& budget) {
   std::string out = "relation,parameter,row,category,value_or_shift,error_or_shift_sigma\n";
-  for (const auto& rel : budget.at("relations")) {
-    for (const auto& p : rel.at("parameters")) {
-      const std::string prefix =
-          fmt::format("{},{},", rel.at("name").get<std::string>(), p.at("name").get<std::string>());
-      out += prefix + fmt::format("baseline,,{:.6g},{:.6g}\n", p.at("baseline").get<double>(),
-                                  number_or_nan(p, "baseline_error"));
-      for (const auto& v : p.at("variants"))
-        out += prefix + fmt::format("{},{},{:.6g},{:.4g}\n", v.at("variant").get<std::string>(),
-                                    v.at("category").get<std::string>(),
-                                    v.at("shift").get<double>(), number_or_nan(v, "shift_sigma"));
-      for (const auto& [cat, q] : p.at("categories").items())
+  for (const auto& rel : budget.at(budget_key::kRelations)) {
+    for (const auto& p : rel.at(budget_key::kParameters)) {
+      const std::string prefix = fmt::format("{},{},", rel.at(budget_key::kName).get<std::string>(),
+                                             p.at(budget_key::kName).get<std::string>());
+      out += prefix + fmt::format("baseline,,{:.6g},{:.6g}\n",
+                                  p.at(budget_key::kBaseline).get<double>(),
+                                  number_or_nan(p, budget_key::kBaselineError));
+      for (const auto& v : p.at(budget_key::kVariants))
+        out += prefix + fmt::format("{},{},{:.6g},{:.4g}\n",
+                                    v.at(budget_key::kVariant).get<std::string>(),
+                                    v.at(budget_key::kCategory).get<std::string>(),
+                                    v.at(budget_key::kShift).get<double>(),
+                                    number_or_nan(v, budget_key::kShiftSigma));
+      for (const auto& [cat, q] : p.at(budget_key::kCategories).items())
         out += prefix + fmt::format("quadrature,{},{:.6g},\n", cat, q.get<double>());
-      out += prefix + fmt::format("total,,{:.6g},\n", p.at("total").get<double>());
+      out += prefix + fmt::format("total,,{:.6g},\n", p.at(budget_key::kTotal).get<double>());
     }
   }
   return out;
@@ -260,45 +264,47 @@ GridResult run_grid(const GridOptions& g) {
 
 nlohmann::json error_budget(const GridOptions& g, const GridResult& r) {
   nlohmann::json out;
-  out["schema"] = "rungcal-error-budget";
-  out["schema_version"] = 1;
-  out["relations"] = nlohmann::json::array();
+  out[budget_key::kSchema] = kErrorBudgetSchemaName;
+  out[budget_key::kSchemaVersion] = 1;
+  out[budget_key::kRelations] = nlohmann::json::array();
   for (const auto& base : r.baseline.relations) {
     nlohmann::json rel;
-    rel["name"] = base.relation.name;
-    rel["parameters"] = nlohmann::json::array();
+    rel[budget_key::kName] = base.relation.name;
+    rel[budget_key::kParameters] = nlohmann::json::array();
     for (std::size_t j = 0; j < base.layout.names.size(); ++j) {
       const std::string& pname = base.layout.names[j];
       if (base.settings.params[j].mode == ParamMode::kFixed) continue;
       nlohmann::json p;
       const double value = base.parameter(pname), error = base.error(pname);
-      p["name"] = pname;
-      p["baseline"] = value;
-      p["baseline_error"] = std::isfinite(error) ? nlohmann::json(error) : nlohmann::json(nullptr);
-      p["variants"] = nlohmann::json::array();
+      p[budget_key::kName] = pname;
+      p[budget_key::kBaseline] = value;
+      p[budget_key::kBaselineError] =
+          std::isfinite(error) ? nlohmann::json(error) : nlohmann::json(nullptr);
+      p[budget_key::kVariants] = nlohmann::json::array();
       std::map<std::string, double> sum2;
       for (std::size_t k = 0; k < g.variants.size(); ++k) {
         const RelationResult* vr = find_relation(r.variants[k], base.relation.name);
         if (!vr || !has_parameter(*vr, pname)) continue;  // e.g. gamma with the term off
         const double shift = vr->parameter(pname) - value;
-        nlohmann::json row = {{"variant", g.variants[k].name},
-                              {"category", g.variants[k].category},
-                              {"shift", shift}};
-        row["shift_sigma"] = std::isfinite(error) && error > 0 ? nlohmann::json(shift / error)
-                                                               : nlohmann::json(nullptr);
-        p["variants"].push_back(row);
+        nlohmann::json row = {{budget_key::kVariant, g.variants[k].name},
+                              {budget_key::kCategory, g.variants[k].category},
+                              {budget_key::kShift, shift}};
+        row[budget_key::kShiftSigma] = std::isfinite(error) && error > 0
+                                           ? nlohmann::json(shift / error)
+                                           : nlohmann::json(nullptr);
+        p[budget_key::kVariants].push_back(row);
         sum2[g.variants[k].category] += shift * shift;
       }
       double total2 = 0;
-      p["categories"] = nlohmann::json::object();
+      p[budget_key::kCategories] = nlohmann::json::object();
       for (const auto& [cat, s2] : sum2) {
-        p["categories"][cat] = std::sqrt(s2);
+        p[budget_key::kCategories][cat] = std::sqrt(s2);
         total2 += s2;
       }
-      p["total"] = std::sqrt(total2);
-      rel["parameters"].push_back(p);
+      p[budget_key::kTotal] = std::sqrt(total2);
+      rel[budget_key::kParameters].push_back(p);
     }
-    out["relations"].push_back(rel);
+    out[budget_key::kRelations].push_back(rel);
   }
   return out;
 }
@@ -310,19 +316,20 @@ GridResult run_grid_files(const GridOptions& g) {
   Provenance prov = Provenance::for_stage("grid");
   prov.config_sha256 = g.config_sha256;
   prov.inputs.push_back({g.catalog_path, sha256_file(g.catalog_path), -1});
-  doc["provenance"] = {{"stage", prov.stage},
-                       {"software_version", prov.software_version},
-                       {"software_commit", prov.software_commit},
-                       {"created_utc", prov.created_utc},
-                       {"config_sha256", prov.config_sha256},
-                       {"inputs", {{{"path", g.catalog_path}, {"sha256", prov.inputs[0].sha256}}}}};
+  doc[budget_key::kProvenance] = {
+      {"stage", prov.stage},
+      {"software_version", prov.software_version},
+      {"software_commit", prov.software_commit},
+      {"created_utc", prov.created_utc},
+      {"config_sha256", prov.config_sha256},
+      {"inputs", {{{"path", g.catalog_path}, {"sha256", prov.inputs[0].sha256}}}}};
   nlohmann::json variants = nlohmann::json::array();
   // changes_extinction: the variant moves every dereddened magnitude, the targets' too.
   for (const auto& v : g.variants)
-    variants.push_back({{"name", v.name},
-                        {"category", v.category},
-                        {"changes_extinction", v.changes_extinction()}});
-  doc["variants"] = variants;
+    variants.push_back({{budget_key::kName, v.name},
+                        {budget_key::kCategory, v.category},
+                        {budget_key::kChangesExtinction, v.changes_extinction()}});
+  doc[budget_key::kVariants] = variants;
   write_file_atomically(grid_result_path(g), doc.dump(2) + "\n");
   write_file_atomically(grid_budget_csv_path(g), csv_of_budget(r.budget));
   return r;

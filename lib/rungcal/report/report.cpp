@@ -16,6 +16,7 @@
 #include "rungcal/core/file_names.hpp"
 #include "rungcal/report/figures.hpp"
 #include "rungcal/report/tables.hpp"
+#include "rungcal/table/error_budget_schema.hpp"
 #include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/lightcurve_schema.hpp"
@@ -77,10 +78,8 @@ ReportInputs read_report_inputs(const ReportOptions& o) {
   if (in.have_residuals)
     in.residuals = read_fits_table(residuals, {residuals_hdu::kResiduals, 0}).table;
   if (!o.grid.empty()) {
-    in.budget = read_json_file(o.grid);  // depth-capped (issue 15)
-    if (!(in.budget->is_object() && in.budget->contains("schema") &&
-          in.budget->at("schema") == "rungcal-error-budget"))
-      throw InputError({o.grid, {}, "schema"}, "not_a_grid_result", "not a rungcal-grid result");
+    in.budget = read_json_file(o.grid);               // depth-capped (issue 15)
+    check_error_budget_document(*in.budget, o.grid);  // every key the budget table reads
   }
   if (o.lightcurves.empty()) {
     if (!o.stars.empty())

@@ -6,6 +6,7 @@
 #include <fmt/format.h>
 
 #include "rungcal/report/likely_outlier.hpp"
+#include "rungcal/table/error_budget_schema.hpp"
 #include "rungcal/table/fit_residuals_schema.hpp"
 
 namespace rungcal {
@@ -304,9 +305,9 @@ std::string star_table(const StarTable& t, const std::string& relation, TableFor
 std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {
   // Columns: the baseline, then each category's quadrature sum of shifts, then the total.
   std::vector<std::string> categories;
-  for (const auto& rel : budget.at("relations"))
-    for (const auto& p : rel.at("parameters"))
-      for (const auto& [cat, q] : p.at("categories").items())
+  for (const auto& rel : budget.at(budget_key::kRelations))
+    for (const auto& p : rel.at(budget_key::kParameters))
+      for (const auto& [cat, q] : p.at(budget_key::kCategories).items())
         if (std::find(categories.begin(), categories.end(), cat) == categories.end())
           categories.push_back(cat);
   Grid g;
@@ -315,14 +316,15 @@ std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {
   g.header.push_back(latex ? "Baseline" : "baseline");
   for (const auto& c : categories) g.header.push_back(latex ? escape_latex(c) : c);
   g.header.push_back(latex ? "Total systematic" : "total systematic");
-  for (const auto& rel : budget.at("relations")) {
-    const std::string rel_name = rel.at("name").get<std::string>();
-    for (const auto& p : rel.at("parameters")) {
-      const double value = p.at("baseline").get<double>();
-      const double error =
-          p.at("baseline_error").is_null() ? NAN : p.at("baseline_error").get<double>();
+  for (const auto& rel : budget.at(budget_key::kRelations)) {
+    const std::string rel_name = rel.at(budget_key::kName).get<std::string>();
+    for (const auto& p : rel.at(budget_key::kParameters)) {
+      const double value = p.at(budget_key::kBaseline).get<double>();
+      const double error = p.at(budget_key::kBaselineError).is_null()
+                               ? NAN
+                               : p.at(budget_key::kBaselineError).get<double>();
       const Rounded r = round_for_print(value, error);
-      const std::string name = p.at("name").get<std::string>();
+      const std::string name = p.at(budget_key::kName).get<std::string>();
       std::vector<std::string> row = {fmt::format(
           "{}: {}", latex ? escape_latex(rel_name) : rel_name, quantity_label(name, latex))};
       row.push_back(r.error.empty() ? r.value
@@ -337,10 +339,10 @@ std::string error_budget_table(const nlohmann::json& budget, TableFormat f) {
         return text;
       };
       for (const auto& c : categories)
-        row.push_back(p.at("categories").contains(c)
-                          ? shift_cell(p.at("categories").at(c).get<double>())
+        row.push_back(p.at(budget_key::kCategories).contains(c)
+                          ? shift_cell(p.at(budget_key::kCategories).at(c).get<double>())
                           : (latex ? "\\nodata" : ""));
-      row.push_back(shift_cell(p.at("total").get<double>()));
+      row.push_back(shift_cell(p.at(budget_key::kTotal).get<double>()));
       g.rows.push_back(row);
     }
   }
