@@ -15,14 +15,6 @@
 #include "rungcal/table/error_budget_schema.hpp"
 
 namespace rungcal {
-namespace {
-
-[[noreturn]] void budget_error(const std::string& where, const std::string& key,
-                               const std::string& message) {
-  throw InputError({where, {}, key, "row", "key"}, "budget_schema", message);
-}
-
-}  // namespace
 
 std::vector<double> SystematicShifts::modulus_shifts(const std::vector<double>& gradient) const {
   std::vector<double> out;
@@ -55,10 +47,7 @@ SystematicShifts SystematicShifts::without_categories(const std::vector<std::str
 
 SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::string& where,
                                    const Calibration& cal, const std::string& relation) {
-  if (!budget.is_object() || budget.value(budget_key::kSchema, "") != kErrorBudgetSchemaName)
-    budget_error(where, budget_key::kSchema,
-                 fmt::format("not a rungcal error budget (schema \"{}\", rungcal-grid's grid.json)",
-                             kErrorBudgetSchemaName));
+  require_error_budget_schema(budget, where);
   SystematicShifts s;
   s.source = where;
   const nlohmann::json& variants = budget_array_at(budget, budget_key::kVariants, "", where);
@@ -66,12 +55,12 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
   for (std::size_t k = 0; k < variants.size(); ++k) {
     const std::string at = fmt::format("variants[{}].", k);
     if (!variants[k].is_object())
-      budget_error(where, at.substr(0, at.size() - 1), "must be an object");
+      budget_schema_error(where, at.substr(0, at.size() - 1), "must be an object");
     s.variants.push_back(budget_string_at(variants[k], budget_key::kName, at, where));
     s.categories.push_back(budget_string_at(variants[k], budget_key::kCategory, at, where));
     const auto ext = variants[k].find(budget_key::kChangesExtinction);
     if (ext != variants[k].end() && !ext->is_boolean())
-      budget_error(where, at + budget_key::kChangesExtinction, "must be true or false");
+      budget_schema_error(where, at + budget_key::kChangesExtinction, "must be true or false");
     s.changes_extinction.push_back(ext != variants[k].end() && ext->get<bool>());
     index[s.variants.back()] = k;
   }
@@ -81,7 +70,7 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
   for (std::size_t i = 0; i < relations.size(); ++i) {
     const std::string at = fmt::format("relations[{}].", i);
     if (!relations[i].is_object())
-      budget_error(where, at.substr(0, at.size() - 1), "must be an object");
+      budget_schema_error(where, at.substr(0, at.size() - 1), "must be an object");
     if (budget_string_at(relations[i], budget_key::kName, at, where) == relation)
       rel = &relations[i], rel_at = at;
   }
@@ -98,7 +87,7 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
   for (std::size_t j = 0; j < params.size(); ++j) {
     const std::string at = fmt::format("{}parameters[{}].", rel_at, j);
     if (!params[j].is_object())
-      budget_error(where, at.substr(0, at.size() - 1), "must be an object");
+      budget_schema_error(where, at.substr(0, at.size() - 1), "must be an object");
     const std::string name = budget_string_at(params[j], budget_key::kName, at, where);
     const double baseline = budget_number_at(params[j], budget_key::kBaseline, at, where);
     std::optional<std::size_t> p;
@@ -123,11 +112,12 @@ SystematicShifts systematic_shifts(const nlohmann::json& budget, const std::stri
     for (std::size_t k = 0; k < rows.size(); ++k) {
       const std::string row_at = fmt::format("{}variants[{}].", at, k);
       if (!rows[k].is_object())
-        budget_error(where, row_at.substr(0, row_at.size() - 1), "must be an object");
+        budget_schema_error(where, row_at.substr(0, row_at.size() - 1), "must be an object");
       const std::string variant = budget_string_at(rows[k], budget_key::kVariant, row_at, where);
       auto v = index.find(variant);
       if (v == index.end())
-        budget_error(where, row_at + "variant", "names no variant of the budget's \"variants\"");
+        budget_schema_error(where, row_at + "variant",
+                            "names no variant of the budget's \"variants\"");
       s.shift[v->second][*p] = budget_number_at(rows[k], budget_key::kShift, row_at, where);
       seen[v->second] = variant_has_rows[v->second] = true;
     }

@@ -39,6 +39,13 @@ inline constexpr char kShift[] = "shift";
 inline constexpr char kShiftSigma[] = "shift_sigma";  // null when the baseline has no error
 }  // namespace budget_key
 
+// Refuses a budget with InputError (rule `budget_schema`) naming key path `key` in `where`.
+[[noreturn]] void budget_schema_error(const std::string& where, const std::string& key,
+                                      const std::string& message);
+
+// Refuses `doc` unless it is an object whose schema is kErrorBudgetSchemaName.
+void require_error_budget_schema(const nlohmann::json& doc, const std::string& where);
+
 // Members of a budget object that must be there, with the type the format gives them;
 // otherwise InputError (rule `budget_schema`) naming `path + key` in file `where`.
 const nlohmann::json& budget_array_at(const nlohmann::json& object, const std::string& key,
