@@ -60,10 +60,8 @@ TEST(ErrorBudgetSchema, EachBrokenKeyIsNamedByItsPath) {
 }
 
 TEST(ErrorBudgetSchema, EveryKeyIsDocumented) {
-  const std::string doc = test::read_text(test::source_file("docs/file-formats.md"));
-  const auto start = doc.find("## Systematics grid");
-  ASSERT_NE(start, std::string::npos);
-  const std::string page = doc.substr(start, doc.find("\n## ", start + 1) - start);
+  const std::string page = test::doc_section("file-formats.md", "Systematics grid");
+  ASSERT_FALSE(page.empty());
   using namespace budget_key;
   for (const char* key :
        {kSchema, kSchemaVersion, kProvenance, kRelations, kVariants, kName, kParameters, kVariant,

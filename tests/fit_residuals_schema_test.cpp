@@ -13,13 +13,7 @@
 namespace rungcal {
 namespace {
 
-// The text of docs/file-formats.md from the residuals' heading to the next "## " heading.
-std::string residuals_page() {
-  const std::string doc = test::read_text(test::source_file("docs/file-formats.md"));
-  const auto start = doc.find("## Fit residuals");
-  if (start == std::string::npos) return "";
-  return doc.substr(start, doc.find("\n## ", start + 1) - start);
-}
+std::string residuals_page() { return test::doc_section("file-formats.md", "Fit residuals"); }
 
 TEST(FitResidualsSchema, EveryColumnAndHduIsDocumented) {
   const std::string page = residuals_page();

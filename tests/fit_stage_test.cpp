@@ -9,6 +9,7 @@
 #include <map>
 
 #include <fmt/format.h>
+#include <fmt/ranges.h>
 #include <nlohmann/json.hpp>
 
 #include "mock_samples.hpp"
@@ -30,6 +31,18 @@ StarTable ingest_reference_catalog(const std::string& config) {
 
 FitOptions reference_fit_options(const std::string& config) {
   return fit_options_from_file(test::source_file("config/reference/" + config));
+}
+
+// Every key rungcal-fit wrote, at any depth, is named in docs/file-formats.md ("Fit
+// result"): the page is the contract for the parts no other stage reads (model, selection,
+// statistics, solver), as fit_result_schema.hpp is for the parts they do.
+void expect_every_key_documented(const std::string& fit_json) {
+  const std::string page = test::doc_section("file-formats.md", "Fit result");
+  ASSERT_FALSE(page.empty()) << "docs/file-formats.md has no '## Fit result' section";
+  const auto missing =
+      test::undocumented_keys(nlohmann::json::parse(test::read_text(fit_json)), page);
+  EXPECT_TRUE(missing.empty()) << "not in docs/file-formats.md, 'Fit result': "
+                               << fmt::format("{}", fmt::join(missing, ", "));
 }
 
 TEST(FitPublished, Riess2018DR2ParallaxOffsetSlopeFixed) {
@@ -332,6 +345,7 @@ print(",".join(Table.read(sys.argv[1], hdu="BOOTSTRAP").colnames))
                              {dir.file("fit_residuals.fits"), dir.file("fit.json")});
   ASSERT_EQ(py.exit_code, 0) << py.output;
   EXPECT_NE(py.output.find("46 46 1 46 50 -47 True fit"), std::string::npos) << py.output;
+  expect_every_key_documented(dir.file("fit.json"));
   // The columns astropy finds are the schema's, in the documented order.
   using namespace residual_col;
   const std::string residual_columns =
@@ -446,6 +460,7 @@ TEST(FitStage, JointFitOfTheDemoRecoversTheOffsetAndAgreesWithEachRelation) {
   EXPECT_NEAR(std::sqrt(var) / e, 1.0, 0.35);
   auto json = test::read_text(dir.file("fit.json"));
   EXPECT_NE(json.find("\"joint\""), std::string::npos);
+  expect_every_key_documented(dir.file("fit.json"));
   // Each joint parameter says how it entered the fit: the blend ratio free by default, the
   // anchors' moduli with their published priors (config/demo/fit.toml).
   const nlohmann::json doc = nlohmann::json::parse(json);

@@ -5,9 +5,11 @@
 #include <sys/wait.h>
 
 #include <array>
+#include <cctype>
 #include <cstdio>
 #include <filesystem>
 #include <fstream>
+#include <set>
 #include <sstream>
 
 namespace fs = std::filesystem;
@@ -67,6 +69,49 @@ void write_text(const std::string& path, const std::string& content) {
   fs::create_directories(fs::path(path).parent_path());
   std::ofstream f(path, std::ios::binary);
   f << content;
+}
+
+std::string doc_section(const std::string& page, const std::string& heading) {
+  const std::string doc = read_text(source_file("docs/" + page));
+  const auto start = doc.find("## " + heading);
+  if (start == std::string::npos) return "";
+  return doc.substr(start, doc.find("\n## ", start + 1) - start);
+}
+
+namespace {
+
+bool is_name_char(char c) { return std::isalnum(static_cast<unsigned char>(c)) != 0 || c == '_'; }
+
+bool names_word(const std::string& text, const std::string& word) {
+  for (auto at = text.find(word); at != std::string::npos; at = text.find(word, at + 1)) {
+    const bool starts = at == 0 || !is_name_char(text[at - 1]);
+    const bool ends = at + word.size() == text.size() || !is_name_char(text[at + word.size()]);
+    if (starts && ends) return true;
+  }
+  return false;
+}
+
+void collect_undocumented(const nlohmann::json& node, const std::string& path,
+                          const std::string& documentation, std::set<std::string>& missing) {
+  if (node.is_array()) {
+    for (const auto& item : node) collect_undocumented(item, path + "[]", documentation, missing);
+    return;
+  }
+  if (!node.is_object()) return;
+  for (const auto& [key, value] : node.items()) {
+    const std::string here = path.empty() ? key : path + "." + key;
+    if (!names_word(documentation, key)) missing.insert(here);
+    collect_undocumented(value, here, documentation, missing);
+  }
+}
+
+}  // namespace
+
+std::vector<std::string> undocumented_keys(const nlohmann::json& document,
+                                           const std::string& documentation) {
+  std::set<std::string> missing;
+  collect_undocumented(document, "", documentation, missing);
+  return {missing.begin(), missing.end()};
 }
 
 std::string read_text(const std::string& path) {

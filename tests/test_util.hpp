@@ -5,6 +5,8 @@
 #include <utility>
 #include <vector>
 
+#include <nlohmann/json.hpp>
+
 namespace rungcal::test {
 
 // A fresh folder under the build tree for one test, removed when the test passes.
@@ -41,6 +43,14 @@ bool file_exists(const std::string& path);
 std::string reference_file(const std::string& name);
 std::string source_file(const std::string& relative);
 std::string shell_quote(const std::string& s);
+// The text of a docs/ page from its "## <heading>" line to the next "## " heading; empty
+// when the page has no such heading.
+std::string doc_section(const std::string& page, const std::string& heading);
+// The keys of a JSON document that the documentation text never names: each as its path
+// ("relations[].statistics.chi2"), once. A key counts as named when it stands as a word of
+// its own (not inside a longer name such as loss inside loss_scale).
+std::vector<std::string> undocumented_keys(const nlohmann::json& document,
+                                           const std::string& documentation);
 // text with every occurrence of each `from` replaced by its `to`, in order.
 std::string replaced(std::string text,
                      const std::vector<std::pair<std::string, std::string>>& edits);
