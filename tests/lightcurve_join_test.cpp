@@ -116,20 +116,64 @@ TEST(LightCurveJoin, NoStarWithPhotometryAfterTheJoinStopsWithExit2AndWritesNoth
   EXPECT_FALSE(test::file_exists(dir.file("out")));
 }
 
-TEST(LightCurveJoin, WithoutAJoinABandIsStillRequired) {
+// The message of the config_value error an ingest config stops with ("" if it is accepted).
+std::string config_error(const std::string& config) {
   test::TempDir dir;
-  test::write_text(dir.file("stars.csv"), kStarList);
-  std::string config = star_list_config();
-  config.replace(config.find("[lightcurves]"),
-                 std::string("[lightcurves]\nsummary = \"lc.fits\"\n").size(), "");
   test::write_text(dir.file("c.toml"), config);
   try {
     ingest_options_from_file(dir.file("c.toml"));
-    ADD_FAILURE() << "accepted";
   } catch (const InputError& e) {
     EXPECT_EQ(e.rule(), "config_value");
-    EXPECT_NE(std::string(e.what()).find("[lightcurves] join"), std::string::npos) << e.what();
+    return e.what();
   }
+  return "";
+}
+
+// The text with its first occurrence of part removed.
+std::string without(std::string text, const std::string& part) {
+  return text.erase(text.find(part), part.size());
+}
+
+TEST(LightCurveJoin, WithoutAJoinABandIsStillRequired) {
+  const std::string error =
+      config_error(without(star_list_config(), "[lightcurves]\nsummary = \"lc.fits\"\n"));
+  EXPECT_NE(error.find("[lightcurves] join"), std::string::npos) << error;
+}
+
+// A star list of ids alone: the join supplies periods and magnitudes; a star whose light curve
+// gave no usable period, or that has none, is refused after the join with "no_period".
+TEST(LightCurveJoin, AStarListOfIdsAloneGetsItsPeriodsFromItsLightCurves) {
+  test::TempDir dir;
+  write_summary(dir.file("lc.fits"));
+  test::write_text(dir.file("stars.csv"), "star\nVell-1\nVell-4\nVell-2\nVell-3\n");
+  test::write_text(dir.file("c.toml"), without(star_list_config(), "period = \"P\"\n"));
+  IngestOptions o = ingest_options_from_file(dir.file("c.toml"));
+  EXPECT_FALSE(o.quantities.count("period"));
+  IngestResult r = run_ingest(o);
+  ASSERT_EQ(r.catalog.rows(), 2u);
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kPeriod).real[0], 5.366);
+  EXPECT_DOUBLE_EQ(r.catalog.column(col::kLogPeriod).real[1], std::log10(12.01));
+  EXPECT_EQ(r.catalog.column("period_origin").text[0], "lightcurve");
+  EXPECT_EQ(r.periods_joined, 2u);
+  ASSERT_EQ(r.rejected.size(), 2u);
+  EXPECT_EQ(r.rejected[0].id, "Vell-4");
+  EXPECT_EQ(r.rejected[0].rule, "no_period");
+  EXPECT_EQ(r.rejected[0].message,
+            "the star has no period: the star list gives none and its light curve gave no usable "
+            "one");
+  EXPECT_EQ(r.rejected[1].id, "Vell-3");
+  EXPECT_EQ(r.rejected[1].rule, "no_period");
+}
+
+// Without a join, or with a join told not to take periods, a period column is required.
+TEST(LightCurveJoin, WithoutPeriodsFromTheJoinAPeriodColumnIsRequired) {
+  std::string config = without(star_list_config(), "period = \"P\"\n");
+  config.insert(config.find("[output]"), "periods = false\n");
+  const std::string error = config_error(config);
+  EXPECT_NE(error.find("key 'columns.period': [config_value] required (a period or log-period "
+                       "column, or a [lightcurves] join that supplies the periods)"),
+            std::string::npos)
+      << error;
 }
 
 }  // namespace

@@ -100,6 +100,9 @@ GroupMapping resolve_group(const IngestOptions& o, const SourceTable& in) {
   GroupMapping m;
   for (const auto& [k, src] : o.quantities)
     m.quantities[k] = resolve(src, k, find_quantity(k)->kind, in, o);
+  // A star list without periods gets them from its light curves (IngestOptions::check): an
+  // unmapped period reads as missing in every row until the join.
+  m.quantities.try_emplace("period", Resolved{"period", nullptr, "", {}, std::nullopt});
   m.ecl_lat_from_ra_dec = ecl_lat_from_ra_dec(o);
   for (const auto& b : o.bands)
     m.bands.push_back(

@@ -404,11 +404,11 @@ IngestResult run_ingest(const IngestOptions& o) {
   if (first) cat = std::move(schema);
   if (!o.lightcurves.summary_path.empty()) {
     join_lightcurve_summary(cat, o.lightcurves, result);
-    refuse_stars_without_photometry(cat, result);
+    refuse_incomplete_stars_after_join(cat, result);
     if (cat.rows() == 0)
       throw InputError({o.input_path, {}, {}}, "no_rows_left",
-                       fmt::format("all {} rows were rejected (no star has a magnitude in any "
-                                   "band, from the catalog or its light curve)",
+                       fmt::format("all {} rows were rejected (no star has both a period and a "
+                                   "magnitude in some band, from the catalog or its light curve)",
                                    result.rows_read));
   }
   stamp_provenance(cat, result.provenance, "catalog");

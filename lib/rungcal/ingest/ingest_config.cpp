@@ -125,8 +125,9 @@ std::string IngestOptions::check() const {
   if (chunk_rows < 1) return "source.chunk_rows: must be at least 1";
   if (!quantities.count("id") && column_preset == ColumnPreset::kNone)
     return "columns.id: required (which input column identifies each star, or a preset)";
-  if (!quantities.count("period"))
-    return "columns.period: required (a period or log-period column)";
+  if (!quantities.count("period") && !(lightcurves.periods && !lightcurves.summary_path.empty()))
+    return "columns.period: required (a period or log-period column, or a [lightcurves] join "
+           "that supplies the periods)";
   if (!quantities.count("mode"))
     return "columns.mode: required (a column, or mode = { value = \"fundamental\" } for all stars)";
   if (!quantities.count("pulsator_class"))

@@ -98,7 +98,7 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       join.summary_path, result.periods_joined, result.magnitudes_joined, unmatched);
 }
 
-std::size_t refuse_stars_without_photometry(StarTable& cat, IngestResult& result) {
+std::size_t refuse_incomplete_stars_after_join(StarTable& cat, IngestResult& result) {
   std::vector<std::string> bands;
   for (const auto& name : cat.column_names())
     if (name.rfind("mag_err_", 0) != 0 && name.rfind("mag_", 0) == 0) bands.push_back(name);
@@ -106,8 +106,15 @@ std::size_t refuse_stars_without_photometry(StarTable& cat, IngestResult& result
   keep.reserve(cat.rows());
   const Column& ids = cat.column(col::kId);
   const Column& rows = cat.column(col::kSourceRow);
+  const Column& period = cat.column(col::kPeriod);
   std::vector<RejectedRow> refused;
   for (std::size_t r = 0; r < cat.rows(); ++r) {
+    if (period.is_null(r)) {
+      refused.push_back({rows.integer[r], ids.text[r], "no_period", "",
+                         "the star has no period: the star list gives none and its light curve "
+                         "gave no usable one"});
+      continue;
+    }
     const bool any = std::any_of(bands.begin(), bands.end(),
                                  [&](const std::string& b) { return !cat.column(b).is_null(r); });
     if (any) {

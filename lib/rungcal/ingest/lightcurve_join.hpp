@@ -7,10 +7,12 @@
 
 namespace rungcal {
 
-// After a light-curve join: refuses (rule "no_photometry") the stars that have a magnitude
-// in no band, neither from the catalog nor from their light curve, and drops them from the
-// catalog. With [lightcurves] the row checks leave this rule to here: a star list with ids
-// and periods only gets its magnitudes from the join. Returns the stars refused.
-std::size_t refuse_stars_without_photometry(StarTable& catalog, IngestResult& result);
+// After a light-curve join: refuses the stars still without a period (rule "no_period": the
+// star list has no period column and the star's light curve gave no usable one) or without
+// a magnitude in any band, neither from the catalog nor from their light curve (rule
+// "no_photometry"), and drops them from the catalog. With [lightcurves] the row checks leave
+// these rules to here: a star list of ids alone gets its periods and magnitudes from the
+// join. Returns the stars refused.
+std::size_t refuse_incomplete_stars_after_join(StarTable& catalog, IngestResult& result);
 
 }  // namespace rungcal

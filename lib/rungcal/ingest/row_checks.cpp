@@ -305,6 +305,7 @@ class GroupChecks {
 
   void check_period(std::size_t r) const {
     const Resolved& q = q_period_;
+    if (!q.present()) return;  // the [lightcurves] join supplies it; checked after the join
     auto period = periods_.at(r);
     if (!period) throw RowReject{"missing_required", q.column_name, "the star has no period"};
     if (*period <= 0)
@@ -317,6 +318,7 @@ class GroupChecks {
   void check_period_plausible(std::size_t r, const std::string& pulsator_class) const {
     auto it = o_.class_period_range.find(pulsator_class);
     const PlausibleRange& range = it == o_.class_period_range.end() ? o_.period_range : it->second;
+    if (!q_period_.present()) return;
     const double p = *periods_.at(r);
     if (!range.contains(p))
       throw RowReject{
@@ -363,7 +365,7 @@ class GroupChecks {
                             "class_parallax_max_mas]; class_parallax_check = \"warn\" keeps it)",
                             *p, max->second, pulsator_class)});
     }
-    if (l.period_policy != UnitCheckPolicy::kOff) {
+    if (l.period_policy != UnitCheckPolicy::kOff && q_period_.present()) {
       auto range = l.period_d.find(pulsator_class);
       const double p = *periods_.at(r);
       if (range != l.period_d.end() && !range->second.contains(p))
@@ -462,7 +464,7 @@ class GroupChecks {
                                     "magnitude_error_max)",
                                     band.band, *err, o_.magnitude_err_max)};
     }
-    // With a light-curve join the rule waits for the join (refuse_stars_without_photometry).
+    // With a light-curve join the rule waits for the join (refuse_incomplete_stars_after_join).
     if (!any_mag && o_.lightcurves.summary_path.empty())
       throw RowReject{"no_photometry", "", "the star has no magnitude in any configured band"};
   }
