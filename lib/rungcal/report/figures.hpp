@@ -11,6 +11,9 @@
 
 namespace rungcal {
 
+// The figure formats, named by their file extension: rungcal-report draws every figure in
+// every format of this table (a new format: an entry here and its cairo surface in
+// figure_drawing.cpp).
 enum class FigureFormat { kPdf, kPng, kSvg };
 inline constexpr EnumTable<FigureFormat, 3> kFigureFormatNames{{{
     {FigureFormat::kPdf, "pdf"},

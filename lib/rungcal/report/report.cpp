@@ -33,9 +33,6 @@ std::string residuals_of(const std::string& store, const Calibration& c) {
   return residuals_beside(calibration_file(store, fmt::format("{}@{}", c.name(), c.version())));
 }
 
-constexpr FigureFormat kFigureFormats[] = {FigureFormat::kPdf, FigureFormat::kPng,
-                                           FigureFormat::kSvg};
-
 }  // namespace
 
 StageFiles declared_files(const ReportOptions& o) {
@@ -116,9 +113,8 @@ ReportOutcome write_report(const ReportOptions& o) {
   ReportOutcome outcome;
   const Calibration& last = in.versions.back();
 
-  const char* ext[] = {"tex", "csv", "md"};
-  for (auto f : {TableFormat::kLatex, TableFormat::kCsv, TableFormat::kMarkdown}) {
-    const std::string e = ext[static_cast<int>(f)];
+  for (const auto& [f, extension] : kTableFormatExtensions.entries) {
+    const std::string e(extension);
     write_file_atomically(o.out_dir + "/relations." + e,
                           relation_table(in.versions, f, o.table_errors));
     ++outcome.tables;
@@ -133,8 +129,8 @@ ReportOutcome write_report(const ReportOptions& o) {
       ++outcome.tables;
     }
   }
-  for (auto f : kFigureFormats) {
-    const std::string e(kFigureFormatNames.name(f));
+  for (const auto& [f, extension] : kFigureFormatNames.entries) {
+    const std::string e(extension);
     for (const auto& rel : last.relation_names()) {
       if (in.have_residuals) {
         pl_diagram(last, rel, in.residuals, f, report_file(o, "pl_", rel, e), o.figure_width);

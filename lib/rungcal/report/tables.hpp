@@ -20,11 +20,14 @@ struct Rounded {
 };
 Rounded round_for_print(double value, double error);
 
+// The table formats, each with the file extension it is written with: rungcal-report writes
+// every table in every format of this table (a new format: an entry here and its branch in
+// tables.cpp's render and cell).
 enum class TableFormat { kLatex, kCsv, kMarkdown };
-inline constexpr EnumTable<TableFormat, 3> kTableFormatNames{{{
-    {TableFormat::kLatex, "latex"},
+inline constexpr EnumTable<TableFormat, 3> kTableFormatExtensions{{{
+    {TableFormat::kLatex, "tex"},
     {TableFormat::kCsv, "csv"},
-    {TableFormat::kMarkdown, "markdown"},
+    {TableFormat::kMarkdown, "md"},
 }}};
 
 // Which errors a relation table shows: the covariance's (inverse Hessian at the optimum),
