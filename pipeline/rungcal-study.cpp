@@ -116,7 +116,8 @@ int main(int argc, char** argv) {
   app.add_option("--outlier-width", study.fit.outlier_width.value,
                  "outlier component's extra width (mag)")
       ->capture_default_str();
-  bool free_outlier_shape = false, fix_correlation = false, grey_blend_model = false;
+  bool free_outlier_shape = false, fix_correlation = false, grey_blend_model = false,
+       independent_anchors = false;
   app.add_flag("--fit-outlier-shape", free_outlier_shape,
                "fit the outlier component's shift and width");
   std::string blend_component(
@@ -155,6 +156,20 @@ int main(int argc, char** argv) {
   app.add_option("--cluster-parallax-error", study.scenario.cluster_parallax_error_mas,
                  "the clusters' parallax error (mas)")
       ->capture_default_str();
+  app.add_option("--anchors", study.scenario.anchors,
+                 "anchor galaxies per mock, each fitted with its published modulus as a prior")
+      ->capture_default_str();
+  app.add_option("--anchor-members", study.scenario.anchor_members, "stars per anchor galaxy")
+      ->capture_default_str();
+  app.add_option("--anchor-mu-error", study.scenario.anchor_mu_error,
+                 "the published anchor moduli's standard error (mag)")
+      ->capture_default_str();
+  app.add_option("--anchor-correlation", study.scenario.anchor_correlation,
+                 "the correlation of the published anchor moduli's errors (given to the fit as "
+                 "anchor_covariance)")
+      ->capture_default_str();
+  app.add_flag("--independent-anchor-priors", independent_anchors,
+               "fit the anchors' moduli with independent priors, ignoring their correlation");
   app.add_option("--red-companions", red_companions,
                  "joint mocks: blends' companion flux ratio in K is this times X's and in V 1/this "
                  "(1: grey)")
@@ -247,6 +262,9 @@ int main(int argc, char** argv) {
       if (grey_blend_model)
         study.fit.joint_blend_ratio = {rungcal::ParamMode::kFixed, 1.0, 0, true};
     }
+    study.anchor_covariance = !independent_anchors;
+    for (const auto& a : rungcal::mock_anchors(study.scenario))
+      study.parameters.push_back("mu_" + a.group);
     rungcal::throw_if_invalid(study.check(), "(command line)");
     const auto level = spdlog::get_level();
     spdlog::set_level(spdlog::level::err);  // every mock's own warnings would bury the table

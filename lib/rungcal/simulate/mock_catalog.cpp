@@ -50,6 +50,27 @@ std::vector<MockCluster> draw_clusters(const MockScenario& s, Random& rng) {
   return out;
 }
 
+// The anchors' own stream: seeded apart from the field stars' and the clusters'.
+Random anchor_stream(const MockScenario& s) { return Random(s.seed ^ 0xA2C4085A11CE5EEDull); }
+
+// Equicorrelated errors: e_k = sigma (sqrt(rho) z_0 + sqrt(1 - rho) z_k) has variance sigma^2
+// and correlation rho between any two. The galaxy-level draws come first in the stream.
+std::vector<MockAnchor> draw_anchors(const MockScenario& s, Random& rng) {
+  std::vector<MockAnchor> out;
+  if (s.anchors == 0) return out;
+  const double shared = rng.normal(), rho = s.anchor_correlation;
+  for (int k = 0; k < s.anchors; ++k) {
+    MockAnchor a;
+    a.group = fmt::format("MOCK-AN{:03d}", k);
+    a.mu_true = 18.5 + 0.45 * k;
+    a.mu_err = s.anchor_mu_error;
+    a.mu_published = a.mu_true + s.anchor_mu_error *
+                                     (std::sqrt(rho) * shared + std::sqrt(1 - rho) * rng.normal());
+    out.push_back(a);
+  }
+  return out;
+}
+
 // A blend's brightening b in band X carried to a band where the companion's flux ratio is
 // `colour` times X's (Pogson: b = 2.5 log10(1 + q)).
 double coloured_brightening(double b, double colour) {
@@ -63,6 +84,18 @@ double coloured_brightening(double b, double colour) {
 std::vector<MockCluster> mock_clusters(const MockScenario& s) {
   Random rng = cluster_stream(s);
   return draw_clusters(s, rng);
+}
+
+std::vector<MockAnchor> mock_anchors(const MockScenario& s) {
+  Random rng = anchor_stream(s);
+  return draw_anchors(s, rng);
+}
+
+Eigen::MatrixXd mock_anchor_covariance(const MockScenario& s) {
+  const double var = s.anchor_mu_error * s.anchor_mu_error;
+  Eigen::MatrixXd c = Eigen::MatrixXd::Constant(s.anchors, s.anchors, s.anchor_correlation * var);
+  c.diagonal().setConstant(var);
+  return c;
 }
 
 double mock_blend_brightening(MockBlendLaw law, Random& rng) {
@@ -89,6 +122,10 @@ std::string MockScenario::check() const {
   if (clusters < 0 || clusters > 1000 || cluster_members < 1 || cluster_members > 1000)
     return "clusters: 0 to 1000 clusters of 1 to 1000 members";
   if (!(cluster_parallax_error_mas > 0)) return "cluster_parallax_error_mas: must be positive";
+  if (anchors < 0 || anchors > 20 || anchor_members < 1 || anchor_members > 10000)
+    return "anchors: 0 to 20 galaxies of 1 to 10000 members";
+  if (!(anchor_mu_error > 0)) return "anchor_mu_error: must be positive";
+  if (!(anchor_correlation >= 0 && anchor_correlation < 1)) return "anchor_correlation: in [0, 1)";
   if (!(sigma_int >= 0 && feh_error >= 0 && ebv_error >= 0 && mag_error > 0 && feh_spread > 0 &&
         parallax_error_scale > 0))
     return "errors: sigma_int, feh_error, ebv_error >= 0; mag_error, feh_spread, "
@@ -97,6 +134,13 @@ std::string MockScenario::check() const {
 }
 
 nlohmann::json MockScenario::truth() const {
+  nlohmann::json t = relation_truth();
+  // The anchors' true moduli, named as the fit names them (single and joint alike).
+  for (const MockAnchor& a : mock_anchors(*this)) t["mu_" + a.group] = a.mu_true;
+  return t;
+}
+
+nlohmann::json MockScenario::relation_truth() const {
   if (!more_relations.empty()) {
     nlohmann::json t = {{"parallax_offset_mas", parallax_offset_mas},
                         {"feh_mean", feh_mean},
@@ -143,7 +187,8 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
       t.add_column(c, ColumnType::kReal);
   // The joint fit correlates the bands' E(B-V) errors through it.
   if (!s.more_relations.empty()) t.add_column(col::kEbvErr, ColumnType::kReal);
-  if (s.clusters > 0) t.add_column(col::kGroup, ColumnType::kText);
+  const bool groups = s.clusters > 0 || s.anchors > 0;
+  if (groups) t.add_column(col::kGroup, ColumnType::kText);
   // One star at cluster_kpc (> 0) or drawn from the scenario's distances.
   auto add_star = [&](Random& rng, const std::string& id, const std::string& group,
                       double cluster_kpc) {
@@ -175,7 +220,7 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
       plx += (rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * plx_err;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
     t.column(col::kId).push_text(id);
-    if (s.clusters > 0) t.column(col::kGroup).push_text(group);
+    if (groups) t.column(col::kGroup).push_text(group);
     t.column(col::kMode).push_text(mode);
     t.column(col::kClass).push_text("classical_cepheid");
     t.column(col::kLogPeriod).push_real(logp);
@@ -210,6 +255,11 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     for (int k = 0; k < s.cluster_members; ++k)
       add_star(cluster_rng, fmt::format("{}-{:03d}", c.group, k), c.group,
                std::pow(10.0, 0.2 * c.mu - 2.0));
+  Random anchor_rng = anchor_stream(s);
+  for (const MockAnchor& a : draw_anchors(s, anchor_rng))
+    for (int k = 0; k < s.anchor_members; ++k)
+      add_star(anchor_rng, fmt::format("{}-{:04d}", a.group, k), a.group,
+               std::pow(10.0, 0.2 * a.mu_true - 2.0));
   return t;
 }
 

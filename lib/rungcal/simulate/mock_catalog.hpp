@@ -5,6 +5,7 @@
 #include <string>
 #include <vector>
 
+#include <Eigen/Core>
 #include <nlohmann/json.hpp>
 
 #include "rungcal/core/enum_table.hpp"
@@ -88,11 +89,25 @@ struct MockScenario {
   int clusters = 0;
   int cluster_members = 4;
   double cluster_parallax_error_mas = 0.008;
+  // Anchor galaxies (0: none): galaxy k at the true modulus 18.5 + 0.45 k, with
+  // anchor_members stars (group MOCK-AN<k>) drawn as the field stars are, contaminations
+  // included, at that distance (the fit does not use an anchor star's parallax). Each
+  // galaxy's published modulus is its truth plus a draw of the anchors' joint error:
+  // anchor_mu_error each, correlated by anchor_correlation between any two, as distances
+  // that share one calibration are (mock_anchor_covariance). Their own stream, as the
+  // clusters'.
+  int anchors = 0;
+  int anchor_members = 30;
+  double anchor_mu_error = 0.03;
+  double anchor_correlation = 0.0;
 
   std::string check() const;  // "" when usable, else "field: rule"
   // The true parameters by fit parameter name; with more_relations, by the joint fit's names
   // (alpha_X, ..., scatter_correlation).
   nlohmann::json truth() const;
+
+ private:
+  nlohmann::json relation_truth() const;  // truth() without the anchors' moduli
 };
 
 // Parallax errors grow with the observed magnitude m as for a bright-star astrometric
@@ -110,5 +125,16 @@ struct MockCluster {
   double mu = 0, parallax_mas = 0, parallax_err_mas = 0;
 };
 std::vector<MockCluster> mock_clusters(const MockScenario& scenario);
+
+// The scenario's anchor galaxies as drawn: their group, true modulus, and the published
+// modulus and its standard error that the fit takes as the prior.
+struct MockAnchor {
+  std::string group;
+  double mu_true = 0, mu_published = 0, mu_err = 0;
+};
+std::vector<MockAnchor> mock_anchors(const MockScenario& scenario);
+// The covariance of the anchors' published moduli (mag^2): anchor_mu_error^2 on the
+// diagonal, anchor_correlation anchor_mu_error^2 off it (the fit's anchor_covariance).
+Eigen::MatrixXd mock_anchor_covariance(const MockScenario& scenario);
 
 }  // namespace rungcal

@@ -90,6 +90,12 @@ StudyResult run_study(const StudyOptions& o) {
       cluster.parallax_err_mas = c.parallax_err_mas;
       fit.clusters.push_back(cluster);
     }
+    // The anchors enter as a user's [[anchor]] priors would: the published moduli, with
+    // their covariance when they are correlated.
+    for (const MockAnchor& a : mock_anchors(s))
+      fit.anchors.push_back({a.group, a.mu_published, a.mu_err});
+    if (o.anchor_covariance && s.anchors > 1 && s.anchor_correlation > 0)
+      fit.anchor_covariance = mock_anchor_covariance(s);
     Draw& d = draws[k];
     try {
       const StarTable coefficients = mock_coefficients(s);

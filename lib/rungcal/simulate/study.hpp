@@ -21,6 +21,9 @@ struct StudyOptions {
   int mocks = 100;        // catalogs drawn (mock k uses seed + k)
   FitOptions fit;         // the fit each mock gets (one relation on band "X")
   int threads = 0;        // mocks fitted in parallel (0: all cores)
+  // With correlated mock anchors: give the fit their covariance (false: independent priors,
+  // each with its own error, to show what ignoring the correlation costs).
+  bool anchor_covariance = true;
   std::vector<std::string> parameters = {"alpha", "beta", "gamma", "parallax_offset_mas",
                                          "sigma_int"};
 
