@@ -81,8 +81,8 @@ int main(int argc, char** argv) {
       const auto se = static_cast<std::size_t>(e);
       csv << i << "," << d.relation[se] << "," << d.x[se] << "," << d.m0[se] << ","
           << d.var_phot[se] << "," << d.coefficient[se] << "," << d.plx[si] << "," << d.var_plx[si]
-          << "," << d.var_ebv[si] << "," << d.feh[si] << "," << d.var_feh[si] << "," << d.kind[si]
-          << "\n";
+          << "," << d.var_ebv[si] << "," << d.feh[si] << "," << d.var_feh[si] << ","
+          << static_cast<int>(d.kind[si]) << "\n";
     }
   }
   csv.close();

@@ -243,7 +243,7 @@ TEST(ClusterFit, JointFitUsesTheClustersAndResamplesThemWhole) {
   ASSERT_TRUE(j.solution.covariance_ok);
   int members_with_parallax = 0;
   for (int i = 0; i < j.data.stars(); ++i)
-    members_with_parallax += j.data.kind[static_cast<std::size_t>(i)] == 2 &&
+    members_with_parallax += j.data.kind[static_cast<std::size_t>(i)] == JointStarKind::kGroup &&
                              j.data.var_plx[static_cast<std::size_t>(i)] > 0;
   EXPECT_GE(members_with_parallax, 25);
   ASSERT_EQ(j.data.group_plx.size(), 6u);

@@ -22,18 +22,25 @@ namespace {
 // Stars of three relations (V-like, I-like with E(B-V) coefficients, and a Wesenheit-like
 // one without), some seen in fewer: parallax stars, one known-distance star and an anchor's.
 struct Star {
-  int kind;  // 0 parallax, 1 known, 2 anchor
+  JointStarKind kind;
   double plx, x, feh;
   std::vector<double> m0;  // per relation, NaN: not observed
 };
 
+constexpr JointStarKind kP = JointStarKind::kParallax, kKnown = JointStarKind::kKnownDistance,
+                        kGroup = JointStarKind::kGroup;
+
 const std::vector<Star>& stars() {
   static const std::vector<Star> s = {
-      {0, 0.9, -0.30, -0.15, {5.0, 4.3, 3.6}},    {0, 0.31, -0.15, -0.10, {7.7, 6.9, 6.2}},
-      {0, 0.05, 0.00, -0.05, {11.3, 10.4, 9.6}},  {0, -0.02, 0.15, 0.00, {NAN, 11.0, 10.1}},
-      {0, 0.52, 0.30, 0.05, {6.4, 5.6, NAN}},     {0, 1.8, 0.45, 0.10, {3.6, 2.7, 1.9}},
-      {1, 0.0, 0.10, 0.02, {9.1, 8.4, 7.7}},      {2, 0.0, 0.00, -0.30, {12.7, 11.95, 11.2}},
-      {2, 0.0, 0.20, -0.30, {12.05, 11.3, 10.6}},
+      {kP, 0.9, -0.30, -0.15, {5.0, 4.3, 3.6}},
+      {kP, 0.31, -0.15, -0.10, {7.7, 6.9, 6.2}},
+      {kP, 0.05, 0.00, -0.05, {11.3, 10.4, 9.6}},
+      {kP, -0.02, 0.15, 0.00, {NAN, 11.0, 10.1}},
+      {kP, 0.52, 0.30, 0.05, {6.4, 5.6, NAN}},
+      {kP, 1.8, 0.45, 0.10, {3.6, 2.7, 1.9}},
+      {kKnown, 0.0, 0.10, 0.02, {9.1, 8.4, 7.7}},
+      {kGroup, 0.0, 0.00, -0.30, {12.7, 11.95, 11.2}},
+      {kGroup, 0.0, 0.20, -0.30, {12.05, 11.3, 10.6}},
   };
   return s;
 }
@@ -55,14 +62,14 @@ JointData joint_data(int relations) {
       d.coefficient.push_back(relations > 1 ? kCoefficient[r] : 0.0);
     }
     d.plx.push_back(s.plx);
-    d.var_plx.push_back(s.kind == 0 ? 0.03 * 0.03 : 0.0);
+    d.var_plx.push_back(s.kind == kP ? 0.03 * 0.03 : 0.0);
     d.var_ebv.push_back(relations > 1 ? 0.02 * 0.02 : 0.0);
     d.feh.push_back(s.feh);
     d.var_feh.push_back(0.08 * 0.08);
     d.kind.push_back(s.kind);
-    d.group.push_back(s.kind == 2 ? 0 : -1);
-    d.mu.push_back(s.kind == 1 ? 14.2 : 0.0);
-    d.var_mu.push_back(s.kind == 1 ? 0.05 * 0.05 : 0.0);
+    d.group.push_back(s.kind == kGroup ? 0 : -1);
+    d.mu.push_back(s.kind == kKnown ? 14.2 : 0.0);
+    d.var_mu.push_back(s.kind == kKnown ? 0.05 * 0.05 : 0.0);
     d.row.push_back(d.row.size());
   }
   d.first.push_back(static_cast<int>(d.relation.size()));
@@ -82,11 +89,11 @@ FitData single_data() {
   };
   for (const Star& s : stars()) {
     if (std::isnan(s.m0[0])) continue;
-    if (s.kind == 0) {
+    if (s.kind == kP) {
       add(d.parallax, s);
       d.plx.conservativeResize(d.parallax.size()), d.var_plx.conservativeResize(d.parallax.size());
       d.plx[d.parallax.size() - 1] = s.plx, d.var_plx[d.parallax.size() - 1] = 0.03 * 0.03;
-    } else if (s.kind == 1) {
+    } else if (s.kind == kKnown) {
       add(d.known, s);
       d.mu.resize(1), d.var_mu.resize(1);
       d.mu[0] = 14.2, d.var_mu[0] = 0.05 * 0.05;
@@ -220,7 +227,8 @@ std::string star_model_python(const JointCase& c, const Star& s) {
   py << "import numpy as np\nfrom scipy import stats, integrate\nfrom scipy.special import "
         "gammaln\n";
   py << "m = np.array([" << s.m0[0] << "," << s.m0[1] << "," << s.m0[2] << "])\n";
-  py << "kind, x, z, plx = " << s.kind << ", " << s.x << ", " << s.feh << ", " << s.plx << "\n";
+  py << "kind, x, z, plx = " << static_cast<int>(s.kind) << ", " << s.x << ", " << s.feh << ", "
+     << s.plx << "\n";
   py << "alpha, beta = " << vec(L.alpha) << ", " << vec(L.beta) << "\n";
   py << "gamma, sig = " << vec(L.gamma) << ", " << vec(L.sigma) << "\n";
   py << "rho, off = " << c.theta[L.correlation] << ", " << c.theta[L.offset] << "\n";
@@ -440,7 +448,7 @@ void make_cluster(JointCase& c) {
   c.settings.terms.n_clusters = 1;
   int member = 0;
   for (int i = 0; i < c.data.stars(); ++i)
-    if (c.data.kind[static_cast<std::size_t>(i)] == 2) {
+    if (c.data.kind[static_cast<std::size_t>(i)] == kGroup) {
       c.data.plx[static_cast<std::size_t>(i)] = kMemberPlx[member++];
       c.data.var_plx[static_cast<std::size_t>(i)] = kMemberErr * kMemberErr;
     }

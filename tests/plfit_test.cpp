@@ -315,8 +315,8 @@ JointMock joint_mock(std::uint64_t seed, int stars, int relations) {
     m.data.var_plx.push_back(sp * sp);
     m.data.var_ebv.push_back(m.ebv_err * m.ebv_err);
     m.data.feh.push_back(0.0);
-    m.data.kind.push_back(0), m.data.group.push_back(-1), m.data.mu.push_back(0.0),
-        m.data.var_mu.push_back(0.0);
+    m.data.kind.push_back(JointStarKind::kParallax), m.data.group.push_back(-1),
+        m.data.mu.push_back(0.0), m.data.var_mu.push_back(0.0);
     m.data.row.push_back(static_cast<std::size_t>(i));
   }
   m.data.first.push_back(static_cast<int>(m.data.relation.size()));
@@ -407,7 +407,7 @@ TEST(Joint, KnownDistanceAndAnchorStarsJoinTheParallaxStars) {
   // recovers the zero points, slopes, the offset and the anchor's modulus within 3 sigma.
   JointMock jm = joint_mock(61, 150, 2);
   Random rng(62);
-  auto add = [&](int kind, double mu, double var_mu, int group) {
+  auto add = [&](JointStarKind kind, double mu, double var_mu, int group) {
     double x = rng.uniform(-0.6, 0.8), shared = rng.normal(0, std::sqrt(var_mu));
     jm.data.first.back() = static_cast<int>(jm.data.relation.size());
     for (int r = 0; r < 2; ++r) {
@@ -421,12 +421,14 @@ TEST(Joint, KnownDistanceAndAnchorStarsJoinTheParallaxStars) {
     jm.data.plx.push_back(0), jm.data.var_plx.push_back(0), jm.data.var_ebv.push_back(0),
         jm.data.feh.push_back(0);
     jm.data.kind.push_back(kind), jm.data.group.push_back(group);
-    jm.data.mu.push_back(kind == 1 ? mu : 0.0), jm.data.var_mu.push_back(var_mu);
+    jm.data.mu.push_back(kind == JointStarKind::kKnownDistance ? mu : 0.0),
+        jm.data.var_mu.push_back(var_mu);
     jm.data.row.push_back(jm.data.row.size());
     jm.data.first.push_back(static_cast<int>(jm.data.relation.size()));
   };
-  for (int i = 0; i < 60; ++i) add(1, rng.uniform(8, 12), 0.05 * 0.05, -1);
-  for (int i = 0; i < 150; ++i) add(2, 18.48, 0.0, 0);
+  for (int i = 0; i < 60; ++i)
+    add(JointStarKind::kKnownDistance, rng.uniform(8, 12), 0.05 * 0.05, -1);
+  for (int i = 0; i < 150; ++i) add(JointStarKind::kGroup, 18.48, 0.0, 0);
   JointLayout J = JointLayout::make({"A", "B"}, {false, false}, false, {"Kessel"});
   JointSettings js;
   js.sigma_int = {jm.sigma, jm.sigma};

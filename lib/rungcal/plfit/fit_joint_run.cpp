@@ -7,6 +7,7 @@
 #include <filesystem>
 #include <map>
 #include <numbers>
+#include <optional>
 #include <thread>
 
 #include <fmt/format.h>
@@ -38,6 +39,13 @@ double coefficient_of(const StarTable* coefficients, const std::string& name) {
   return 0.0;
 }
 
+// Anchor-galaxy and cluster stars share their group's modulus.
+JointStarKind joint_star_kind(CalibratorKind kind) {
+  if (kind == CalibratorKind::kParallax) return JointStarKind::kParallax;
+  return kind == CalibratorKind::kKnownDistance ? JointStarKind::kKnownDistance
+                                                : JointStarKind::kGroup;
+}
+
 }  // namespace
 
 JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& fits,
@@ -55,7 +63,8 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
     return -1;
   };
   for (std::size_t row = 0; row < cat.rows(); ++row) {
-    int added = 0, kind = -1;
+    int added = 0;
+    std::optional<JointStarKind> kind;
     double plx = 0, plx_err = 0;
     bool member_parallax = false;
     const double se = cat.has(col::kEbvErr) ? cat.column(col::kEbvErr).as_real(row) : 0.0;
@@ -63,10 +72,8 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
     for (std::size_t r = 0; r < fits.size(); ++r) {
       const StarOutcome& s = fits[r].stars[row];
       if (!s.used) continue;
-      int k = s.kind == CalibratorKind::kParallax
-                  ? 0
-                  : (s.kind == CalibratorKind::kKnownDistance ? 1 : 2);
-      if (kind >= 0 && k != kind) continue;  // the same star is the same kind in every relation
+      const JointStarKind k = joint_star_kind(s.kind);
+      if (kind && k != *kind) continue;  // the same star is the same kind in every relation
       kind = k;
       if (added == 0) d.first.push_back(static_cast<int>(d.relation.size()));
       const std::string& band = fits[r].relation.band;
@@ -83,15 +90,17 @@ JointData joint_data_of(const FitOptions& o, const std::vector<RelationResult>& 
       ++added;
     }
     if (added == 0) continue;
-    const bool own = kind == 0 || (kind == 2 && member_parallax);
-    d.kind.push_back(kind);
+    const bool own =
+        kind == JointStarKind::kParallax || (kind == JointStarKind::kGroup && member_parallax);
+    d.kind.push_back(*kind);
     d.plx.push_back(own ? plx : 0.0);
     d.var_plx.push_back(own ? plx_err * plx_err : 0.0);
     const double mu = cat.has(col::kMu) ? cat.column(col::kMu).as_real(row) : 0.0;
     const double mu_err = cat.has(col::kMuErr) ? cat.column(col::kMuErr).as_real(row) : 0.0;
-    d.mu.push_back(kind == 1 ? mu : 0.0);
-    d.var_mu.push_back(kind == 1 && std::isfinite(mu_err) ? mu_err * mu_err : 0.0);
-    d.group.push_back(kind == 2 ? anchor_index(row) : -1);
+    const bool known = kind == JointStarKind::kKnownDistance;
+    d.mu.push_back(known ? mu : 0.0);
+    d.var_mu.push_back(known && std::isfinite(mu_err) ? mu_err * mu_err : 0.0);
+    d.group.push_back(kind == JointStarKind::kGroup ? anchor_index(row) : -1);
     d.var_ebv.push_back(coefficients ? se2 : 0.0);
     const double feh = cat.has(col::kFeh) ? cat.column(col::kFeh).as_real(row) : 0.0;
     d.feh.push_back(std::isfinite(feh) ? feh : 0.0);
@@ -117,10 +126,11 @@ void run_joint_bootstrap(const FitOptions& o, JointResult& jr, const JointSample
   std::map<int, std::vector<int>> strata, clusters;
   for (int i = 0; i < d.stars(); ++i) {
     const auto si = static_cast<std::size_t>(i);
-    if (d.kind[si] == 2 && d.group[si] >= first_cluster)
+    const bool grouped = d.kind[si] == JointStarKind::kGroup;
+    if (grouped && d.group[si] >= first_cluster)
       clusters[d.group[si]].push_back(i);
     else
-      strata[d.kind[si] == 2 ? 2 + d.group[si] : d.kind[si]].push_back(i);
+      strata[grouped ? 2 + d.group[si] : static_cast<int>(d.kind[si])].push_back(i);
   }
   auto resample = [&](Random& rng) -> std::optional<Eigen::VectorXd> {
     std::vector<int> stars;

@@ -27,15 +27,18 @@ struct StarResidual {
   template <typename T>
   bool operator()(T const* const* parameters, T* residuals) const {
     const T* t = parameters[0];
-    const int b0 = d->first[star], K = d->first[star + 1] - b0, kind = d->kind[star];
+    const int b0 = d->first[star], K = d->first[star + 1] - b0;
+    const JointStarKind kind = d->kind[star];
     std::vector<T> kpi(K), e(K), c(static_cast<std::size_t>(K * K)),
         lower(static_cast<std::size_t>(K * K), T(0.0));
-    const T mu = kind == 1 ? T(d->mu[star]) : (kind == 2 ? t[L->anchor0 + d->group[star]] : T(0.0));
+    const T mu = kind == JointStarKind::kKnownDistance ? T(d->mu[star])
+                 : kind == JointStarKind::kGroup       ? t[L->anchor0 + d->group[star]]
+                                                       : T(0.0);
     for (int i = 0; i < K; ++i) {
       const int entry = b0 + i, r = d->relation[entry];
       T m = t[L->alpha[r]] + t[L->beta[r]] * d->x[entry];
       if (L->gamma[r] >= 0) m += t[L->gamma[r]] * d->feh[star];
-      if (kind == 0) {
+      if (kind == JointStarKind::kParallax) {
         const T pi = exp(-kK5 * (d->m0[entry] - m - 10.0));
         kpi[i] = kK5 * pi;
         e[i] = d->plx[star] - t[L->offset] - pi;
@@ -44,7 +47,9 @@ struct StarResidual {
         e[i] = d->m0[entry] - mu - m;
       }
     }
-    const double shared = kind == 0 ? d->var_plx[star] : (kind == 1 ? d->var_mu[star] : 0.0);
+    const double shared = kind == JointStarKind::kParallax        ? d->var_plx[star]
+                          : kind == JointStarKind::kKnownDistance ? d->var_mu[star]
+                                                                  : 0.0;
     for (int i = 0; i < K; ++i)
       for (int j = 0; j < K; ++j) {
         double inner = d->coefficient[b0 + i] * d->coefficient[b0 + j] * d->var_ebv[star];

@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #pragma once
 
+#include <cstdint>
 #include <string>
 #include <vector>
 
@@ -10,6 +11,13 @@
 #include "rungcal/plfit/model.hpp"
 
 namespace rungcal {
+
+// How a joint-fit star's distance is known.
+enum class JointStarKind : std::uint8_t {
+  kParallax,       // its own parallax (plx, var_plx)
+  kKnownDistance,  // a given modulus (mu, var_mu)
+  kGroup,          // an anchor galaxy's or a cluster's modulus (group); maybe its own parallax too
+};
 
 // Parallax calibrators seen in several relations at once (bands, Wesenheit magnitudes):
 // one entry per star and relation, grouped by star.
@@ -21,11 +29,11 @@ struct JointData {
       coefficient;  // per entry: log P - log P0, magnitude,
                     // photometric variance, A/E(B-V) left in the magnitude
   std::vector<double> plx, var_plx, var_ebv, feh;  // per star
-  std::vector<double> var_feh;  // per star: [Fe/H] error squared (hierarchical joint; 0: none)
-  // Per star: 0 parallax calibrator, 1 known distance (mu, var_mu), 2 anchor galaxy (group).
-  std::vector<int> kind, group;
-  std::vector<double> mu, var_mu;
-  // plx and var_plx of a kind-2 star: a cluster member's own parallax (var_plx 0: none).
+  std::vector<double> var_feh;      // per star: [Fe/H] error squared (hierarchical joint; 0: none)
+  std::vector<JointStarKind> kind;  // per star
+  std::vector<int> group;           // per star: its anchor or cluster (kGroup), else -1
+  std::vector<double> mu, var_mu;   // per star: the given modulus (kKnownDistance)
+  // plx and var_plx of a kGroup star: a cluster member's own parallax (var_plx 0: none).
   std::vector<FitData::GroupParallax> group_plx;  // per group: a cluster's parallax (FitData's)
   std::vector<std::size_t> row;                   // per star: catalog row
   // Per star: how many times a bootstrap resample drew it (empty: once each). The

@@ -162,7 +162,7 @@ class JointEvaluator final : public Objective {
     for (int i = 0; i < d_.stars(); ++i) {
       const int e0 = d_.first[static_cast<std::size_t>(i)],
                 K = d_.first[static_cast<std::size_t>(i) + 1] - e0;
-      const int kind = d_.kind[static_cast<std::size_t>(i)];
+      const JointStarKind kind = d_.kind[static_cast<std::size_t>(i)];
       const auto si = static_cast<std::size_t>(i);
       // A bootstrap's star drawn n times counts n times (JointData::weight).
       const double count = d_.weight_of(i);
@@ -225,7 +225,7 @@ class JointEvaluator final : public Objective {
           coloured_ ? -b0 * tilt - 0.5 * b0 * b0 * colour.curvature : 0.0;
       Component member, outlier, blend;
       std::optional<OwnParallax> own;
-      if (kind == 0) {
+      if (kind == JointStarKind::kParallax) {
         member = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff), d_.plx[si], d_.var_plx[si],
                                     0.0, offset, prior, k_.member_rule, k_.mode_member[si],
                                     k_.bins_member.data());
@@ -243,8 +243,9 @@ class JointEvaluator final : public Objective {
                                      d_.plx[si], d_.var_plx[si], blend_shift, offset, prior,
                                      k_.blend_rule, k_.mode_blend[si], k_.bins_blend.data());
       } else {
-        const double mu = kind == 1 ? d_.mu[si] : t[L_.anchor0 + d_.group[si]];
-        const double var = v_eff + (kind == 1 ? d_.var_mu[si] : 0.0);
+        const double mu =
+            kind == JointStarKind::kKnownDistance ? d_.mu[si] : t[L_.anchor0 + d_.group[si]];
+        const double var = v_eff + (kind == JointStarKind::kKnownDistance ? d_.var_mu[si] : 0.0);
         member = given_modulus(red.m_eff, GaussianMagnitude(var), mu, 0.0);
         if (mixture_) outlier = given_modulus(red.m_eff, GaussianMagnitude(var + wide), mu, -shift);
         if (coloured_)
@@ -254,7 +255,7 @@ class JointEvaluator final : public Objective {
         else if (blends_)
           blend =
               given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu, blend_shift);
-        if (kind == 2 && d_.var_plx[si] > 0) {
+        if (kind == JointStarKind::kGroup && d_.var_plx[si] > 0) {
           own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset);
           own->add_to(member, outlier, blend);
         }
@@ -312,7 +313,7 @@ class JointEvaluator final : public Objective {
         g[L_.feh_mean] += d_zbar * dz_mean;
         g_feh_var += d_zbar * dz_tau2 + d_w * dwz_tau2;
       }
-      if (kind == 0) {
+      if (kind == JointStarKind::kParallax) {
         g[L_.offset] += mix(&Component::d_off);
         if (L_.distance_scale >= 0) {
           g[L_.distance_scale] += mix(&Component::d_log_scale) / t[L_.distance_scale];
@@ -328,7 +329,7 @@ class JointEvaluator final : public Objective {
               q * k_.bins_member[j] + (mixture_ ? q_out * k_.bins_outlier[j] : 0.0) +
               (blends_ ? q_blend * k_.bins_blend[j] : 0.0);
       }
-      if (kind == 2) {
+      if (kind == JointStarKind::kGroup) {
         g[L_.anchor0 + d_.group[si]] += mix(&Component::d_m);  // d/dmu_g = d/dM
         if (own)
           g[L_.anchor0 + d_.group[si]] += own->d_mu(q, q_out, q_blend),
