@@ -2,12 +2,11 @@
 // Tests of lib/rungcal/lightcurve/gaia_epoch*: Gaia DR3 epoch photometry, in arrays (one row
 // per source, the epochs in array columns) as FITS, VOTable and ECSV, and flat (one epoch per
 // row) as CSV and VOTable, written by astropy (Debian python3-astropy), expanded into light
-// curves; times against astropy.time, magnitudes against numpy. No small real Gaia DR3
-// epoch-photometry file, in either form, was found in public repositories' test data
-// (astroquery's Gaia DataLink test archives, astroquery/gaia/tests/data/*_dl_products_*.zip,
-// hold XP spectra and MCMC samples, no EPOCH_PHOTOMETRY), so the sources here are invented
+// curves; times against astropy.time, magnitudes against numpy. The sources here are invented
 // (their source_ids are made up) with sinusoidal light curves of known period: known truth,
-// as for the other simulations.
+// as for the other simulations. A real archive file of the flat form (a DataLink download,
+// VOTable BINARY2) is read in lightcurve_real_data_test.cpp; no small real file of the array
+// form was found in public repositories' test data.
 #include <gtest/gtest.h>
 
 #include <fmt/format.h>

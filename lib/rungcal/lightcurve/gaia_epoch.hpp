@@ -37,6 +37,8 @@ double bjd_from_gaia_time(double gaia_time_d);
 // section 7, table 3). Recalled from memory; the table itself was not read. The values agree
 // with an independent listing of the Gaia DR3 Vega zero points, and ESA's Gaia EDR3
 // known-issues page names Riello et al., section 7, table 3 as where they are published.
+// A real DataLink file (tests/data/gaia_dr3_epoch_photometry) confirms them: with these, its
+// own fluxes give its own magnitudes to 4e-5 mag in each band (lightcurve_real_data_test).
 // The zero points' own errors (a few mmag, memory) shift every epoch alike and are left out
 // of the epoch errors: they cannot move a period, a phase or an amplitude.
 inline constexpr double kGaiaZeroPointG = 25.6874;
