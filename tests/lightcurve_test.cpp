@@ -260,6 +260,66 @@ TEST(LightCurveStage, FlagsANoiseOnlyStarAsNotSignificant) {
   EXPECT_NE(period_flag_names(r.flags).find("not_significant"), std::string::npos);
 }
 
+// Sparse three-band sampling (45 epochs over 1,050 days, Gaia-like) of a curve of period P
+// with harmonics A_1..A_3; known truth.
+StarSeries sparse_star(std::uint64_t seed, double period_d, const std::vector<double>& amplitude) {
+  Random rng(seed);
+  StarSeries s{"S", {"G", "BP", "RP"}, {}};
+  std::vector<double> t;
+  for (int i = 0; i < 45; ++i) t.push_back(2456900.0 + rng.uniform(0, 1050));
+  for (double scale : {1.0, 1.3, 0.7}) {
+    test::MockCurve c;
+    c.period_d = period_d;
+    c.amplitude = amplitude;
+    for (double& a : c.amplitude) a *= scale;
+    s.series.push_back(test::mock_series(c, t, 0.005, rng));
+  }
+  return s;
+}
+
+TEST(LightCurveStage, ANearSinusoidIsNotTakenAtTwiceOrThriceItsPeriod) {
+  // Three harmonics fit a sinusoid of period P as well at 2P and 3P (as their second or
+  // third): the search's highest peak is often there. The stage takes the fundamental.
+  LightCurveOptions o = mock_options();
+  o.search_harmonics = 3;
+  o.min_period_d = 0.2, o.max_period_d = 60;
+  int at_p = 0, usable = 0;
+  for (std::uint64_t seed = 1; seed <= 30; ++seed) {
+    const double period = 3.0 + static_cast<double>(seed);
+    const StarResult r = analyse_star(sparse_star(seed, period, {0.3}), o, false);
+    at_p += std::abs(r.period_d / period - 1) < 1e-3;
+    usable += r.usable;
+  }
+  EXPECT_EQ(at_p, 30);
+  EXPECT_EQ(usable, 30);
+}
+
+TEST(LightCurveStage, ACepheidShapedCurveKeepsItsFundamental) {
+  // With real harmonics, the nested model at 2f or 3f lacks the fundamental: no switch.
+  LightCurveOptions o = mock_options();
+  o.search_harmonics = 3;
+  o.min_period_d = 0.2, o.max_period_d = 60;
+  for (std::uint64_t seed = 1; seed <= 20; ++seed) {
+    const double period = 2.5 + 1.7 * static_cast<double>(seed);
+    const StarResult r = analyse_star(sparse_star(seed, period, {0.3, 0.12, 0.05}), o, false);
+    EXPECT_NEAR(r.period_d / period, 1.0, 1e-3) << period;
+    EXPECT_TRUE(r.usable) << period;
+  }
+}
+
+TEST(Periodogram, TheFundamentalOfASubharmonicPeakIsItsMultiple) {
+  // fundamental_frequency directly: from f0 / 2 and f0 / 3 of a sinusoid it returns f0 (to a
+  // fraction of the grid step); from f0 of a three-harmonic curve, f0.
+  const StarSeries sine = sparse_star(7, 5.5, {0.3});
+  const double step = 1.0 / (5 * 1050.0), f0 = 1 / 5.5;
+  EXPECT_NEAR(fundamental_frequency(sine.series, f0 / 2, step, 3, 5.0), f0, step);
+  EXPECT_NEAR(fundamental_frequency(sine.series, f0 / 3, step, 3, 5.0), f0, step);
+  EXPECT_EQ(fundamental_frequency(sine.series, f0 / 2, step, 1, 5.0), f0 / 2);  // one harmonic
+  EXPECT_EQ(fundamental_frequency(sine.series, f0 / 2, step, 3, 0.1), f0 / 2);  // beyond range
+  const StarSeries cepheid = sparse_star(7, 5.5, {0.3, 0.12, 0.05});
+  EXPECT_EQ(fundamental_frequency(cepheid.series, f0, step, 3, 5.0), f0);
+}
+
 TEST(LightCurveStage, TooFewEpochsGiveNoPeriod) {
   Random rng(52);
   test::MockStar star = test::mock_cepheid(rng, 5.0, {8, 6, 5});

@@ -99,6 +99,19 @@ std::vector<int> orders_at(const std::vector<TimeSeries>& series, double f, doub
   return orders;
 }
 
+std::size_t nearest_index(const FrequencyGrid& grid, double f) {
+  const double k = std::round((f - grid.first) / grid.step);
+  return static_cast<std::size_t>(std::clamp(k, 0.0, static_cast<double>(grid.count - 1)));
+}
+
+// f2 is f / k (k = 2..harmonics): the search's model fits the curve there too, as its k-th
+// harmonic (fundamental_frequency), so it is no competitor.
+bool is_subharmonic(double f2, double f, int harmonics, double width) {
+  for (int k = 2; k <= harmonics; ++k)
+    if (std::abs(f2 - f / k) <= width) return true;
+  return false;
+}
+
 // A Gaia source whose every epoch was dropped has no light curve and so no SUMMARY row: it
 // gets a REJECTS row saying why.
 void note_sources_without_epochs(LightCurveResult& result) {
@@ -147,13 +160,16 @@ StarResult analyse_star(const StarSeries& star, const LightCurveOptions& o, bool
   r.grid = frequency_grid(r.baseline_d, o.min_period_d, o.max_period_d, o.oversampling);
   std::vector<double> power = multiband_power(used, r.grid, o.search_harmonics);
   std::vector<std::size_t> peaks = peaks_by_power(power);
-  const std::size_t best = peaks.front();
-  const double f_peak = r.grid.at(best);
+  const double f_highest = r.grid.at(peaks.front());
+  const double f_peak =
+      fundamental_frequency(used, f_highest, r.grid.step, o.search_harmonics, r.grid.last());
+  const std::size_t best = nearest_index(r.grid, f_peak);
   r.power = power[best];
   const double peak_width = 1.0 / r.baseline_d;
   for (std::size_t i = 1; i < peaks.size(); ++i) {
     const double f2 = r.grid.at(peaks[i]);
     if (std::abs(f2 - f_peak) <= peak_width) continue;  // the same peak's shoulder
+    if (is_subharmonic(f2, f_peak, o.search_harmonics, peak_width)) continue;  // the same curve
     r.second_peak_power = power[peaks[i]];
     r.second_peak_period_d = 1.0 / f2;
     if (r.second_peak_power >= o.competing_peak_ratio * r.power)

@@ -310,6 +310,48 @@ std::vector<double> multiband_power(const std::vector<TimeSeries>& bands, const 
   return reduction;
 }
 
+namespace {
+
+struct FinePeak {
+  double frequency = 0, power = 0;
+};
+
+// The best multi-harmonic power within +- half_width of f (65 frequencies).
+FinePeak best_power_near(const std::vector<TimeSeries>& bands, double f, double half_width,
+                         int harmonics) {
+  constexpr std::size_t kPoints = 65;
+  const FrequencyGrid fine{std::max(f - half_width, 0.5 * f), 2 * half_width / (kPoints - 1),
+                           kPoints};
+  const std::vector<double> p = multiband_power(bands, fine, harmonics);
+  const auto best = std::max_element(p.begin(), p.end());
+  return {fine.at(static_cast<std::size_t>(best - p.begin())), *best};
+}
+
+}  // namespace
+
+double fundamental_frequency(const std::vector<TimeSeries>& bands, double f, double grid_step,
+                             int harmonics, double max_frequency) {
+  double chi2_0 = 0;
+  std::size_t epochs = 0;
+  for (const auto& band : bands) {
+    const Prepared p = prepare(band);
+    chi2_0 += p.weight * p.yy;
+    epochs += band.size();
+  }
+  if (harmonics < 2 || !(chi2_0 > 0) || epochs < 2) return f;
+  const double at_f = best_power_near(bands, f, grid_step, harmonics).power;
+  const double ln_n = std::log(static_cast<double>(epochs));
+  for (int k = harmonics; k >= 2; --k) {
+    const double kf = k * f;
+    if (kf - k * grid_step / 2 > max_frequency) continue;
+    const int nested = harmonics / k;
+    const FinePeak at_kf = best_power_near(bands, kf, k * grid_step, nested);
+    const double extra_terms = 2.0 * static_cast<double>(bands.size()) * (harmonics - nested);
+    if ((at_f - at_kf.power) * chi2_0 < extra_terms * ln_n) return at_kf.frequency;
+  }
+  return f;
+}
+
 double false_alarm_probability(double z, const TimeSeries& series, double max_frequency) {
   const double n = static_cast<double>(series.size());
   if (n < 5) return 1.0;

@@ -48,6 +48,19 @@ std::vector<double> lomb_scargle_power(const TimeSeries& series, const Frequency
 std::vector<double> multiband_power(const std::vector<TimeSeries>& bands, const FrequencyGrid& grid,
                                     int harmonics);
 
+// The sub-harmonic ambiguity of a multi-harmonic search: a curve of frequency k f fits H
+// harmonics at f as well, as their k-th (a near-sinusoid ties at 2P and 3P with P). The
+// fundamental is the largest multiple k f (k = H down to 2, k f up to max_frequency) whose
+// nested model, floor(H / k) harmonics at k f, loses to H harmonics at f by less than the
+// Bayesian information criterion charges for the extra terms (Schwarz 1978, Ann. Stat. 6,
+// 461; as the stage's Fourier orders are chosen):
+//   chi2(k f, floor(H / k)) - chi2(f, H) < 2 B (H - floor(H / k)) ln N,
+// B bands, N epochs in all, chi2 = (1 - p) sum_b chi2_b,0 from multiband_power, each
+// frequency at the best of a fine grid across its search grid cell (f is known to +- step / 2,
+// so k f to +- k step / 2). Returns f itself when no multiple qualifies or H = 1.
+double fundamental_frequency(const std::vector<TimeSeries>& bands, double f, double grid_step,
+                             int harmonics, double max_frequency);
+
 // False-alarm probability of a peak of standard-normalised single-harmonic power z over
 // frequencies up to f_max, by the Baluev (2008, MNRAS 385, 1279) approximation as
 // astropy computes it (LombScargle.false_alarm_probability, method "baluev"):
