@@ -23,6 +23,7 @@
 #include "rungcal/astrometry/astrometry.hpp"
 #include "rungcal/core/random.hpp"
 #include "rungcal/ingest/ingest.hpp"
+#include "rungcal/lightcurve/gaia_epoch.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "test_util.hpp"
 
@@ -229,7 +230,7 @@ std::string gaia_mock_stars() {
 // Writes gaia/gaia_source.vot (TABLEDATA, the archive's column names and units) and one
 // EPOCH_PHOTOMETRY file per source as the archive's DataLink names and writes them (flat form,
 // VOTable BINARY2): 45 transits over Gaia times 1700-2750 d, three-harmonic Cepheid-like curves
-// whose intensity means are the given ones, fluxes from the Gaia zero points,
+// whose intensity means are the given ones, fluxes from the stage's Gaia zero points (passed in),
 // and one epoch per source rejected by the variability processing with a wrong magnitude.
 constexpr const char* kWriteGaiaDownload = R"py(
 import sys, csv, numpy as np
@@ -250,7 +251,7 @@ src["astrometric_params_solved"] = np.full(len(rows), 31, dtype=np.int16)
 rng = np.random.default_rng(20261204)
 src["ruwe"] = np.float32(rng.uniform(0.9, 1.2, len(rows)))
 src.write(out + "/gaia_source.vot", format="votable", overwrite=True)
-zp = dict(G=25.6874, BP=25.3385, RP=24.7479)
+zp = dict(G=float(sys.argv[3]), BP=float(sys.argv[4]), RP=float(sys.argv[5]))
 def shape(a, x):  # a Cepheid-like curve: R21 0.4, R31 0.2 (a pure sinusoid aliases to 2P, 3P)
     return a * (np.sin(x) + 0.4 * np.sin(2 * x + 3.1) + 0.2 * np.sin(3 * x + 6.2))
 def mean_offset(a):  # the curve's intensity mean minus its m0
@@ -300,7 +301,9 @@ TEST(Tutorial, GaiaArchiveDownloadToCalibration) {
   const std::string gaia = dir.file("gaia");
   std::filesystem::create_directories(gaia + "/epoch");
   test::write_text(dir.file("stars.csv"), gaia_mock_stars());
-  const auto py = test::run_python(kWriteGaiaDownload, {dir.file("stars.csv"), gaia});
+  const auto py = test::run_python(
+      kWriteGaiaDownload, {dir.file("stars.csv"), gaia, std::to_string(kGaiaZeroPointG),
+                           std::to_string(kGaiaZeroPointBp), std::to_string(kGaiaZeroPointRp)});
   ASSERT_EQ(py.exit_code, 0) << py.output;
   test::write_text(gaia + "/bands.toml", test::read_text(test::source_file("config/bands.toml")));
   for (const char* table : {"5p", "6p"})
