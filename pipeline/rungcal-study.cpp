@@ -8,7 +8,26 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/stage_main.hpp"
 #include "rungcal/simulate/study.hpp"
+#include "rungcal/simulate/study_pool.hpp"
 #include "rungcal/simulate/study_setup.hpp"
+
+namespace {
+
+rungcal::StudyResult run_mocks(rungcal::StudyOptions study, const rungcal::StudyChoices& choice,
+                               const CLI::App& app) {
+  rungcal::apply_study_choices(choice, study);
+  rungcal::throw_if_invalid(study.check(), "(command line)");
+  const auto level = spdlog::get_level();
+  spdlog::set_level(spdlog::level::err);  // every mock's own warnings would bury the table
+  rungcal::StudyResult result = rungcal::run_study(study);
+  spdlog::set_level(level);
+  // What runs must share to be pooled: every setting but the mocks drawn and how.
+  result.header["setup"] = rungcal::command_line_settings(
+      app, {"mocks", "seed", "threads", "out", "combine", "quiet", "verbose", "log-file"});
+  return result;
+}
+
+}  // namespace
 
 int main(int argc, char** argv) {
   CLI::App app{
@@ -21,6 +40,7 @@ int main(int argc, char** argv) {
   choice.blend_component =
       rungcal::kBlendComponentNames.name(rungcal::HierarchicalSettings{}.blends);
   std::string out;
+  std::vector<std::string> combine;
   app.add_option("--mocks", study.mocks, "Mock catalogs to draw and fit")->capture_default_str();
   app.add_option("--stars", study.scenario.stars, "Calibrators per mock")->capture_default_str();
   app.add_option("--relation", choice.relation,
@@ -121,20 +141,20 @@ int main(int argc, char** argv) {
   app.add_option("--seed", choice.seed, "Seed of the first mock")->capture_default_str();
   app.add_option("--threads", study.threads, "Mocks fitted at once (0: all cores)")
       ->capture_default_str();
-  app.add_option("--out", out, "Also write the summary as JSON here");
+  app.add_option("--out", out, "Also write the summary and every mock's figures as JSON here");
+  app.add_option(
+      "--combine", combine,
+      "Fit nothing: pool earlier runs' --out files (one setup, distinct seeds) and print "
+      "the table over all their mocks");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("study", common.verbosity(), common.log_file);
 
   return rungcal::run_stage("study", [&] {
-    rungcal::apply_study_choices(choice, study);
-    rungcal::throw_if_invalid(study.check(), "(command line)");
-    const auto level = spdlog::get_level();
-    spdlog::set_level(spdlog::level::err);  // every mock's own warnings would bury the table
-    rungcal::StudyResult result = rungcal::run_study(study);
-    spdlog::set_level(level);
+    const rungcal::StudyResult result =
+        combine.empty() ? run_mocks(study, choice, app) : rungcal::combine_studies(combine);
     std::cout << rungcal::study_table(result);
-    if (!out.empty()) rungcal::write_file_atomically(out, result.to_json(study).dump(2) + "\n");
+    if (!out.empty()) rungcal::write_file_atomically(out, result.to_json().dump(2) + "\n");
     return rungcal::ExitCode::kSuccess;
   });
 }

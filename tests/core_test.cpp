@@ -27,6 +27,7 @@
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/provenance.hpp"
 #include "rungcal/core/simd.hpp"
+#include "rungcal/core/stage_main.hpp"
 #include "test_util.hpp"
 
 namespace rungcal {
@@ -493,6 +494,25 @@ TEST(Simd, VectorisableExpAgreesWithTheLibraryToAFewUlp) {
   }
   EXPECT_LT(worst, 4e-16);
   EXPECT_EQ(exp_vectorisable(0.0), 1.0);
+}
+
+TEST(StageMain, CommandLineSettingsRecordEveryOptionButTheLeftOut) {
+  CLI::App app;
+  int mocks = 100;
+  double width = 1.0;
+  bool fixed = false, other = false;
+  std::string out;
+  app.add_option("--mocks", mocks)->capture_default_str();
+  app.add_option("--width", width)->capture_default_str();
+  app.add_flag("--fixed", fixed);
+  app.add_flag("--other", other);
+  app.add_option("--out", out);
+  std::vector<std::string> args = {"prog", "--mocks", "7", "--fixed", "--out", "x.json"};
+  std::vector<char*> argv;
+  for (auto& a : args) argv.push_back(a.data());
+  app.parse(static_cast<int>(argv.size()), argv.data());
+  const nlohmann::json s = command_line_settings(app, {"out"});
+  EXPECT_EQ(s, (nlohmann::json{{"mocks", "7"}, {"width", "1"}, {"fixed", true}, {"other", false}}));
 }
 
 }  // namespace

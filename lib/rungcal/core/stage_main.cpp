@@ -1,6 +1,7 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/core/stage_main.hpp"
 
+#include <algorithm>
 #include <cstdio>
 
 #include "rungcal/core/cluster.hpp"
@@ -10,6 +11,7 @@
 #include "rungcal/core/version.hpp"
 
 #include <fmt/format.h>
+#include <fmt/ranges.h>
 #include <spdlog/spdlog.h>
 
 namespace rungcal {
@@ -104,6 +106,24 @@ int run_stage(const std::string& stage, const std::function<ExitCode()>& body) {
     remember_stage_failure({ExitCode::kInternalError, "internal_error", {}, e.what(), e.what()});
     return static_cast<int>(ExitCode::kInternalError);
   }
+}
+
+nlohmann::json command_line_settings(const CLI::App& app,
+                                     const std::vector<std::string>& leave_out) {
+  nlohmann::json settings = nlohmann::json::object();
+  for (const CLI::Option* opt : app.get_options()) {
+    const std::string& name = opt->get_single_name();
+    if (name == "help" || name == "version" ||
+        std::find(leave_out.begin(), leave_out.end(), name) != leave_out.end())
+      continue;
+    if (opt->get_expected_max() == 0)
+      settings[name] = opt->count() > 0;
+    else if (opt->count() > 0)
+      settings[name] = fmt::format("{}", fmt::join(opt->results(), ","));
+    else
+      settings[name] = opt->get_default_str();
+  }
+  return settings;
 }
 
 }  // namespace rungcal

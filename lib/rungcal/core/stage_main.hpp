@@ -4,7 +4,10 @@
 #include <functional>
 #include <string>
 
+#include <vector>
+
 #include <CLI/CLI.hpp>
+#include <nlohmann/json.hpp>
 
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/log.hpp"
@@ -33,5 +36,11 @@ int run_stage(const std::string& stage, const std::function<ExitCode()>& body);
 // Parses the command line; on --help prints and returns 0, on a bad command line prints
 // the reason and returns 2. Returns -1 when the stage should go on.
 int parse_command_line(CLI::App& app, int argc, char** argv);
+
+// Every option's value after parsing, by its long name (flags as booleans, the rest as the
+// text given or the default), less --help, --version and the names in leave_out: what a
+// product records so that two runs can be told to be of one setup.
+nlohmann::json command_line_settings(const CLI::App& app,
+                                     const std::vector<std::string>& leave_out);
 
 }  // namespace rungcal

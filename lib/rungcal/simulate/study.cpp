@@ -9,6 +9,7 @@
 #include <fmt/ranges.h>
 #include <spdlog/spdlog.h>
 
+#include "rungcal/core/json_io.hpp"
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
 
@@ -16,12 +17,6 @@ namespace rungcal {
 namespace {
 
 constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
-
-struct Draw {
-  bool ok = false;
-  std::string failure;  // why the mock does not count, when it does not
-  std::vector<double> estimate, error, bootstrap_error;
-};
 
 double mean_of(const std::vector<double>& v) {
   double s = 0;
@@ -38,7 +33,7 @@ double sd_of(const std::vector<double>& v) {
 }
 
 // The joint fit's estimates, errors and bootstrap errors of the parameters asked for.
-void record_joint(const JointResult& j, const std::vector<std::string>& parameters, Draw& d) {
+void record_joint(const JointResult& j, const std::vector<std::string>& parameters, StudyMock& d) {
   d.ok = j.solution.usable && j.solution.covariance_ok;
   if (!j.solution.usable)
     d.failure = "solver: " + j.solution.termination;
@@ -73,9 +68,7 @@ std::string StudyOptions::check() const {
 }
 
 StudyResult run_study(const StudyOptions& o) {
-  const std::size_t P = o.parameters.size();
-  std::vector<Draw> draws(static_cast<std::size_t>(o.mocks));
-  nlohmann::json truth = o.scenario.truth();
+  std::vector<StudyMock> draws(static_cast<std::size_t>(o.mocks));
   Progress progress("mocks", draws.size());
   parallel_for(draws.size(), worker_threads(o.threads), [&](std::size_t k) {
     MockScenario s = o.scenario;
@@ -96,7 +89,8 @@ StudyResult run_study(const StudyOptions& o) {
       fit.anchors.push_back({a.group, a.mu_published, a.mu_err});
     if (o.anchor_covariance && s.anchors > 1 && s.anchor_correlation > 0)
       fit.anchor_covariance = mock_anchor_covariance(s);
-    Draw& d = draws[k];
+    StudyMock& d = draws[k];
+    d.seed = s.seed;
     try {
       const StarTable coefficients = mock_coefficients(s);
       FitResult r = run_fit(fit, mock_calibrator_catalog(s),
@@ -126,20 +120,32 @@ StudyResult run_study(const StudyOptions& o) {
     progress.advance();
   });
   progress.finish();
+  return summarise_study({{"stars", o.scenario.stars},
+                          {"truth", o.scenario.truth()},
+                          {"space", std::string(kFitSpaceNames.name(o.fit.space))},
+                          {"parameter_names", o.parameters}},
+                         std::move(draws));
+}
+
+StudyResult summarise_study(nlohmann::json header, std::vector<StudyMock> mocks) {
+  std::sort(mocks.begin(), mocks.end(),
+            [](const StudyMock& a, const StudyMock& b) { return a.seed < b.seed; });
+  const auto parameters = header.at("parameter_names").get<std::vector<std::string>>();
+  const nlohmann::json& truth = header.at("truth");
   StudyResult out;
-  out.mocks = o.mocks;
-  for (std::size_t k = 0; k < draws.size(); ++k)
-    if (!draws[k].ok) {
+  out.mocks = static_cast<int>(mocks.size());
+  for (const StudyMock& d : mocks)
+    if (!d.ok) {
       ++out.failed;
-      out.failures[draws[k].failure].push_back(o.scenario.seed + k);
+      out.failures[d.failure].push_back(d.seed);
     }
-  for (std::size_t j = 0; j < P; ++j) {
+  for (std::size_t j = 0; j < parameters.size(); ++j) {
     StudyRow row;
-    row.parameter = o.parameters[j];
+    row.parameter = parameters[j];
     row.truth = truth.value(row.parameter, kNaN);
     std::vector<double> est, err, boot;
     int covered = 0, boot_covered = 0;
-    for (const Draw& d : draws) {
+    for (const StudyMock& d : mocks) {
       if (!d.ok || !std::isfinite(d.estimate[j]) || !std::isfinite(d.error[j])) continue;
       est.push_back(d.estimate[j]);
       err.push_back(d.error[j]);
@@ -161,21 +167,18 @@ StudyResult run_study(const StudyOptions& o) {
     row.bias_error = row.spread_to_error / std::sqrt(static_cast<double>(std::max(row.used, 1)));
     out.rows.push_back(row);
   }
+  out.header = std::move(header);
+  out.per_mock = std::move(mocks);
   return out;
 }
 
-nlohmann::json StudyResult::to_json(const StudyOptions& o) const {
-  nlohmann::json j;
+nlohmann::json StudyResult::to_json() const {
+  nlohmann::json j = header;
   j["mocks"] = mocks;
   j["failed"] = failed;
   for (const auto& [why, seeds] : failures)
     j["failures"].push_back({{"reason", why}, {"seeds", seeds}});
-  j["stars"] = o.scenario.stars;
-  j["truth"] = o.scenario.truth();
-  j["space"] = std::string(kFitSpaceNames.name(o.fit.space));
-  auto num = [](double v) {
-    return std::isfinite(v) ? nlohmann::json(v) : nlohmann::json(nullptr);
-  };
+  const auto num = json_number_or_null;
   for (const auto& r : rows)
     j["parameters"].push_back({{"name", r.parameter},
                                {"truth", num(r.truth)},
@@ -188,6 +191,21 @@ nlohmann::json StudyResult::to_json(const StudyOptions& o) const {
                                {"bootstrap_to_covariance", num(r.bootstrap_to_covariance)},
                                {"spread_to_error", num(r.spread_to_error)},
                                {"used", r.used}});
+  auto numbers = [&](const std::vector<double>& v) {
+    nlohmann::json a = nlohmann::json::array();
+    for (double x : v) a.push_back(num(x));
+    return a;
+  };
+  j["per_mock"] = nlohmann::json::array();
+  for (const StudyMock& d : per_mock) {
+    nlohmann::json m = {{"seed", d.seed},
+                        {"ok", d.ok},
+                        {"estimate", numbers(d.estimate)},
+                        {"error", numbers(d.error)},
+                        {"bootstrap_error", numbers(d.bootstrap_error)}};
+    if (!d.ok) m["failure"] = d.failure;
+    j["per_mock"].push_back(std::move(m));
+  }
   return j;
 }
 

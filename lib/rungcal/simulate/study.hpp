@@ -45,14 +45,33 @@ struct StudyRow {
   int used = 0;           // mocks counted
 };
 
+// One mock's fit: what the summary is made of. Kept per mock so that runs on different
+// seeds can be pooled exactly (combine_studies) rather than by averaging their summaries.
+struct StudyMock {
+  std::uint64_t seed = 0;
+  bool ok = false;
+  std::string failure;  // why the mock does not count, when it does not
+  // Per parameter of the study, in its order; NaN where the fit has no such value.
+  std::vector<double> estimate, error, bootstrap_error;
+};
+
 struct StudyResult {
   std::vector<StudyRow> rows;
   int mocks = 0, failed = 0;
   std::map<std::string, std::vector<std::uint64_t>> failures;  // the failed mocks' seeds by reason
-  nlohmann::json to_json(const StudyOptions& options) const;
+  std::vector<StudyMock> per_mock;                             // in seed order
+  // What the mocks are: stars, truth, space, parameter_names (the order of StudyMock's
+  // vectors), and whatever the caller adds (rungcal-study: its command-line settings, which
+  // runs must share to be pooled).
+  nlohmann::json header;
+  // The header, the summary, and every mock's own figures ("per_mock").
+  nlohmann::json to_json() const;
 };
 
 StudyResult run_study(const StudyOptions& options);
+// The per-parameter summary of the given mocks against header["truth"] (by parameter name),
+// for the parameters header["parameter_names"] names.
+StudyResult summarise_study(nlohmann::json header, std::vector<StudyMock> mocks);
 // A fixed-width table a person reads.
 std::string study_table(const StudyResult& result);
 
