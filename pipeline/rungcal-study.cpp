@@ -56,6 +56,11 @@ int main(int argc, char** argv) {
                  "how much brighter the mock blends are: moderate (0.3-1.0 mag), "
                  "faint_companions (0-1.0 mag) or bright_companions (0.44-1.75 mag)")
       ->capture_default_str();
+  app.add_option("--outlier-law", choice.outlier_law,
+                 "how the mocks' gross parallax outliers are drawn: shifted (+-5-20 errors) or "
+                 "fit_component (the fit's own outlier component: parallax error x10, magnitude "
+                 "+-1 mag)")
+      ->capture_default_str();
   app.add_option("--parallax-error-scale", study.scenario.parallax_error_scale,
                  "multiplies the mocks' parallax errors (3: a median S/N near 5 on the disk)")
       ->capture_default_str();

@@ -43,6 +43,34 @@ TEST(MockCatalog, BlendLawsHaveTheirRangesAndMeans) {
   EXPECT_NEAR(mean_of_companion(0.0, 1.5), 0.5724, 1e-4);  // worked by hand: 1.08574 x 0.52715
 }
 
+// The two gross-outlier laws: the study's shifted one lies 5-20 errors off on either side
+// with the magnitude untouched; the fit-component one is the fit's default outlier
+// component (docs/method.md, "Outliers"): parallax error x10 in all, magnitude +- 1 mag.
+TEST(MockCatalog, OutlierLawsHaveTheirShapes) {
+  Random rng(5);
+  const int n = 20000;
+  double below = 0, sum2_plx = 0, sum2_mag = 0, sum_mag = 0;
+  for (int i = 0; i < n; ++i) {
+    const MockOutlierShift s = mock_outlier_shift(MockOutlierLaw::kShifted, 0.02, rng);
+    EXPECT_GE(std::abs(s.parallax_mas), 5 * 0.02 - 1e-12);
+    EXPECT_LE(std::abs(s.parallax_mas), 20 * 0.02 + 1e-12);
+    EXPECT_EQ(s.magnitude, 0.0);
+    below += s.parallax_mas < 0 ? 1 : 0;
+  }
+  EXPECT_NEAR(below / n, 0.5, 0.015);  // 3.4 of its own sd (0.0035)
+  for (int i = 0; i < n; ++i) {
+    const MockOutlierShift s = mock_outlier_shift(MockOutlierLaw::kFitComponent, 0.02, rng);
+    sum2_plx += s.parallax_mas * s.parallax_mas;
+    sum2_mag += s.magnitude * s.magnitude;
+    sum_mag += s.magnitude;
+  }
+  // Added to the member's own error 0.02, the parallax spread is 10 x 0.02 in all.
+  EXPECT_NEAR(std::sqrt(sum2_plx / n + 0.02 * 0.02), 0.2, 0.004);  // sd of the sd: 0.001
+  EXPECT_NEAR(std::sqrt(sum2_mag / n), 1.0, 0.02);
+  EXPECT_NEAR(sum_mag / n, 0.0, 0.03);
+  EXPECT_EQ(kMockOutlierLawNames.parse("fit_component"), MockOutlierLaw::kFitComponent);
+}
+
 TEST(MockCatalog, ParallaxErrorScaleMultipliesEveryError) {
   MockScenario s;
   s.stars = 50;

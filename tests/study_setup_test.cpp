@@ -128,6 +128,15 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   c.red_companions = 0;
   EXPECT_EQ(refusal(c), "--red-companions [config_value] must be > 0");
   c = {};
+  c.outlier_law = "uniform";
+  EXPECT_EQ(refusal(c),
+            "--outlier-law [config_value] 'uniform' is not one of: shifted, fit_component");
+  c = {};
+  c.outlier_law = "fit_component";
+  StudyOptions study;
+  apply_study_choices(c, study);
+  EXPECT_EQ(study.scenario.outlier_law, MockOutlierLaw::kFitComponent);
+  c = {};
   c.space = "sky";
   EXPECT_EQ(refusal(c).rfind("--space [config_value] 'sky' is not one of: ", 0), 0U);
 }

@@ -98,6 +98,14 @@ Eigen::MatrixXd mock_anchor_covariance(const MockScenario& s) {
   return c;
 }
 
+MockOutlierShift mock_outlier_shift(MockOutlierLaw law, double parallax_err_mas, Random& rng) {
+  if (law == MockOutlierLaw::kShifted)
+    return {(rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * parallax_err_mas, 0.0};
+  // x10 the error in all: the member's own N(0, sigma^2) plus N(0, 99 sigma^2).
+  const double parallax = rng.normal(0.0, std::sqrt(99.0) * parallax_err_mas);
+  return {parallax, rng.normal(0.0, 1.0)};
+}
+
 double mock_blend_brightening(MockBlendLaw law, Random& rng) {
   switch (law) {
     case MockBlendLaw::kModerate:
@@ -216,8 +224,11 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     const double plx_err =
         s.parallax_error_scale * (0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0)));
     double plx = 1.0 / d + s.parallax_offset_mas + rng.normal(0.0, plx_err);
+    MockOutlierShift outlier;
     if (rng.uniform() < s.parallax_outlier_fraction)
-      plx += (rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * plx_err;
+      outlier = mock_outlier_shift(s.outlier_law, plx_err, rng);
+    plx += outlier.parallax_mas;
+    m0 += outlier.magnitude;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
     t.column(col::kId).push_text(id);
     if (groups) t.column(col::kGroup).push_text(group);
@@ -241,7 +252,7 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
       const double u =
           rho * u_x + std::sqrt(rho - rho * rho) * shared + std::sqrt(1.0 - rho) * rng.normal();
       const double m = r.alpha + r.beta * (logp_f - s.pivot_log_period) + r.gamma * feh +
-                       r.sigma_int * u + mu + rng.normal(0.0, s.mag_error) +
+                       r.sigma_int * u + mu + outlier.magnitude + rng.normal(0.0, s.mag_error) +
                        r.extinction_per_ebv * ebv_off -
                        coloured_brightening(brightening, r.companion_colour);
       t.column(dereddened_magnitude_column(r.name)).push_real(m);

@@ -43,6 +43,25 @@ inline constexpr EnumTable<MockBlendLaw, 3> kMockBlendLawNames{{{
 // 2.5 log10(1 + q) (Pogson's ratio).
 double mock_blend_brightening(MockBlendLaw law, Random& rng);
 
+// How a gross parallax outlier is drawn. The first is the study's; the second is the fit's
+// own default outlier component (docs/method.md, "Outliers": the parallax error times 10,
+// the magnitude widened by 1 mag), a self-consistency check of the mixture: on it the fit's
+// model is right, so what bias remains with the first is the outlier law's mismatch.
+enum class MockOutlierLaw {
+  kShifted,       // parallax off by +-U(5, 20) of its errors; magnitude a member's
+  kFitComponent,  // parallax + N(0, 99 sigma_pi^2) (x10 in all), magnitude + N(0, 1 mag^2)
+};
+inline constexpr EnumTable<MockOutlierLaw, 2> kMockOutlierLawNames{{{
+    {MockOutlierLaw::kShifted, "shifted"},
+    {MockOutlierLaw::kFitComponent, "fit_component"},
+}}};
+
+// What a gross outlier adds to a star's parallax (mas) and magnitude (mag, every band alike).
+struct MockOutlierShift {
+  double parallax_mas = 0, magnitude = 0;
+};
+MockOutlierShift mock_outlier_shift(MockOutlierLaw law, double parallax_err_mas, Random& rng);
+
 // A further relation of the same mock stars (joint fits): its own truth, its magnitudes in
 // mag0_<name>.
 struct MockRelation {
@@ -70,7 +89,8 @@ struct MockScenario {
   // Contaminations (0: off).
   double blend_fraction = 0;  // stars made too bright by unresolved companions
   MockBlendLaw blend_law = MockBlendLaw::kModerate;  // by how much
-  double parallax_outlier_fraction = 0;              // parallaxes off by 5-20 of their errors
+  double parallax_outlier_fraction = 0;              // gross outliers, drawn by outlier_law
+  MockOutlierLaw outlier_law = MockOutlierLaw::kShifted;
   double feh_error = 0;          // [Fe/H] measurement error (dex); the catalog carries feh_err
   double overtone_fraction = 0;  // first-overtone pulsators, labelled, log P1 in [0.1, 0.7]
   double far_fraction = 0;       // stars at 8-15 kpc, with noisy (some negative) parallaxes

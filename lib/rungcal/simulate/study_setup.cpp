@@ -105,6 +105,7 @@ void apply_study_choices(const StudyChoices& c, StudyOptions& study) {
   s.seed = c.seed;
   s.distances = parse_choice(kMockDistanceNames, c.distances, "--distances");
   s.blend_law = parse_choice(kMockBlendLawNames, c.blend_law, "--blend-law");
+  s.outlier_law = parse_choice(kMockOutlierLawNames, c.outlier_law, "--outlier-law");
   FitOptions& fit = study.fit;
   fit.space = parse_choice(kFitSpaceNames, c.space, "--space");
   fit.hierarchical.prior = parse_choice(kDistancePriorNames, c.distance_prior, "--distance-prior");

@@ -13,11 +13,12 @@ namespace rungcal {
 // into StudyOptions by apply_study_choices. The numeric settings (mocks, stars, the fit's
 // grid and outlier shape, clusters, anchors) go straight into StudyOptions.
 struct StudyChoices {
-  std::string relation = "wesenheit";  // the preset truth: wesenheit (sigma_int 0.08) or optical
-  std::string distances = "disk";      // kMockDistanceNames
-  std::string contaminations = "all";  // all, none, or a comma list (kStudyContaminations)
-  std::string blend_law = "moderate";  // kMockBlendLawNames
-  std::string space = "hierarchical";  // kFitSpaceNames
+  std::string relation = "wesenheit";   // the preset truth: wesenheit (sigma_int 0.08) or optical
+  std::string distances = "disk";       // kMockDistanceNames
+  std::string contaminations = "all";   // all, none, or a comma list (kStudyContaminations)
+  std::string blend_law = "moderate";   // kMockBlendLawNames
+  std::string outlier_law = "shifted";  // kMockOutlierLawNames
+  std::string space = "hierarchical";   // kFitSpaceNames
   std::string distance_prior = "smooth_histogram";  // kDistancePriorNames
   std::string blend_component;                      // kBlendComponentNames ("": the fit's default)
   bool metallicity = true;                 // fit the [Fe/H] term (the truth has gamma = -0.2)
