@@ -18,6 +18,9 @@ missing=$(grep -rhoE '#include "rungcal/[^"]+"' "$inc" | sed -E 's/.*"(.*)"/\1/'
 if [ -n "$missing" ]; then
   echo "installed headers include headers not installed: $missing" >&2; exit 1
 fi
+if ! cmp -s "$src/config/bands.toml" "$work/prefix/share/rungcal/bands.toml"; then
+  echo "the band table is not installed as share/rungcal/bands.toml" >&2; exit 1
+fi
 if grep -rq --include="*.cmake" CLI11 "$work/prefix"; then
   echo "the installed package depends on CLI11" >&2; exit 1
 fi

@@ -514,8 +514,11 @@ TEST_P(StageBadInput, StopsWithExit2ItsRuleAndWritesNothing) {
   if (!c.setup.empty()) {
     ASSERT_EQ(test::run_command("cd " + dir.path() + " && " + c.setup).exit_code, 0) << c.setup;
   }
-  auto r = test::run_command("cd " + dir.path() + " && " + std::string(RUNGCAL_BIN_DIR) +
+  // A stage that opened a FIFO would wait for a writer forever: timeout (coreutils) ends it
+  // with 124, a plain failure here, instead of the suite's per-test limit.
+  auto r = test::run_command("cd " + dir.path() + " && timeout 60 " + std::string(RUNGCAL_BIN_DIR) +
                              "/rungcal-" + c.stage + " " + with_dir(c.args, dir.path()));
+  EXPECT_NE(r.exit_code, 124) << "the stage hung on " << c.name;
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("[" + c.rule + "]"), std::string::npos) << r.output;
   EXPECT_NE(r.output.find(c.names), std::string::npos) << r.output;
