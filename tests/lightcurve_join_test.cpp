@@ -165,6 +165,44 @@ TEST(LightCurveJoin, AStarListOfIdsAloneGetsItsPeriodsFromItsLightCurves) {
   EXPECT_EQ(r.rejected[1].rule, "no_period");
 }
 
+// A period the join gives is checked against [validate]'s class ranges as a catalog's own
+// is: Vell-1's 5.4 d and Vell-2's 12 d are no RR Lyrae periods (0.15-1.2 d, the ClassLimits
+// default, recalled from memory).
+TEST(LightCurveJoin, JoinedPeriodsMeetTheClassPeriodChecks) {
+  test::TempDir dir;
+  write_summary(dir.file("lc.fits"));
+  test::write_text(dir.file("stars.csv"), "star\nVell-1\nVell-2\n");
+  const std::string config = test::replaced(without(star_list_config(), "period = \"P\"\n"),
+                                            {{"classical_cepheid", "rr_lyrae"}});
+  test::write_text(dir.file("c.toml"), config);
+  // Both refused: nothing is left, and the error names the first refusal.
+  try {
+    run_ingest(ingest_options_from_file(dir.file("c.toml")));
+    ADD_FAILURE() << "a catalog of stars all refused was accepted";
+  } catch (const InputError& e) {
+    EXPECT_EQ(e.rule(), "no_rows_left");
+    EXPECT_NE(e.detail().find("the first, star 'Vell-1' (row 2): [period_outside_class_range] "
+                              "light-curve period ("),
+              std::string::npos)
+        << e.detail();
+    EXPECT_NE(e.detail().find("lc.fits) 5.366 d is outside the known [0.15, 1.2] d of "
+                              "rr_lyrae stars"),
+              std::string::npos)
+        << e.detail();
+  }
+  // With class_period_check = "warn" both are kept; a plausible range refuses outright.
+  test::write_text(dir.file("c.toml"), config + "[validate]\nclass_period_check = \"warn\"\n");
+  EXPECT_EQ(run_ingest(ingest_options_from_file(dir.file("c.toml"))).catalog.rows(), 2u);
+  test::write_text(dir.file("c.toml"), config +
+                                           "[validate]\nclass_period_check = \"warn\"\n"
+                                           "[validate.class_period_range_d]\n"
+                                           "rr_lyrae = [0.1, 10.0]\n");
+  const IngestResult r = run_ingest(ingest_options_from_file(dir.file("c.toml")));
+  ASSERT_EQ(r.rejected.size(), 1u);
+  EXPECT_EQ(r.rejected[0].id, "Vell-2");
+  EXPECT_EQ(r.rejected[0].rule, "period_out_of_range");
+}
+
 // Without a join, or with a join told not to take periods, a period column is required.
 TEST(LightCurveJoin, WithoutPeriodsFromTheJoinAPeriodColumnIsRequired) {
   std::string config = without(star_list_config(), "period = \"P\"\n");

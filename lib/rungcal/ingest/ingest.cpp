@@ -404,12 +404,15 @@ IngestResult run_ingest(const IngestOptions& o) {
   if (first) cat = std::move(schema);
   if (!o.lightcurves.summary_path.empty()) {
     join_lightcurve_summary(cat, o.lightcurves, result);
-    refuse_incomplete_stars_after_join(cat, result);
-    if (cat.rows() == 0)
+    refuse_incomplete_stars_after_join(cat, o, result);
+    if (cat.rows() == 0 && !result.rejected.empty()) {
+      const RejectedRow& refused = result.rejected.front();
       throw InputError({o.input_path, {}, {}}, "no_rows_left",
-                       fmt::format("all {} rows were rejected (no star has both a period and a "
-                                   "magnitude in some band, from the catalog or its light curve)",
-                                   result.rows_read));
+                       fmt::format("all {} rows were rejected by the end of the light-curve join; "
+                                   "the first, star '{}' (row {}): [{}] {}",
+                                   result.rows_read, refused.id, refused.source_row, refused.rule,
+                                   refused.message));
+    }
   }
   stamp_provenance(cat, result.provenance, "catalog");
   return result;

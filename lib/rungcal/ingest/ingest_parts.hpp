@@ -51,6 +51,19 @@ struct RowReject {
   std::string message;
 };
 
+// The period checks of [validate], shared by the row checks (a catalog's own periods) and the
+// light-curve join (periods from light curves); what names the period in the message.
+// Outside the plausible range of the star's class (period_range_d, class_period_range_d):
+// rule period_out_of_range (issue 15: 1e308, 1e30 and 1e-300 d reached the fit).
+std::optional<RowReject> implausible_period(const IngestOptions& o, double period_d,
+                                            const std::string& pulsator_class,
+                                            const std::string& column, const std::string& what);
+// Outside the known range of the class (ClassLimits; unchecked classes and policy "off" pass):
+// rule period_outside_class_range, a refusal or a warning by class_period_check.
+std::optional<RowReject> period_outside_class(const ClassLimits& l, double period_d,
+                                              const std::string& pulsator_class,
+                                              const std::string& column, const std::string& what);
+
 // Resolves a ValueSource against the input table: column pointer and unit conversion.
 struct Resolved {
   std::string key;  // canonical key or band name, for messages

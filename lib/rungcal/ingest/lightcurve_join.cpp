@@ -11,6 +11,7 @@
 #include <spdlog/spdlog.h>
 
 #include "rungcal/core/error.hpp"
+#include "rungcal/ingest/ingest_parts.hpp"
 #include "rungcal/table/catalog_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
 #include "rungcal/table/lightcurve_schema.hpp"
@@ -98,7 +99,35 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
       join.summary_path, result.periods_joined, result.magnitudes_joined, unmatched);
 }
 
-std::size_t refuse_incomplete_stars_after_join(StarTable& cat, IngestResult& result) {
+namespace {
+
+// A period the join gave against [validate]'s class ranges: the refusal, if any (a broken
+// class range under class_period_check = "warn" is logged and kept).
+std::optional<RejectedRow> joined_period_refusal(const StarTable& cat, std::size_t r,
+                                                 const IngestOptions& o) {
+  if (!cat.has(col::kPeriodOrigin) || cat.column(col::kPeriodOrigin).text[r] != "lightcurve")
+    return std::nullopt;
+  const double p = cat.column(col::kPeriod).real[r];
+  const std::string& cls = cat.column(col::kClass).text[r];
+  const std::int64_t row = cat.column(col::kSourceRow).integer[r];
+  const std::string& id = cat.column(col::kId).text[r];
+  const std::string what = "light-curve period (" + o.lightcurves.summary_path + ")";
+  if (auto reject = ingest_parts::implausible_period(o, p, cls, col::kPeriod, what))
+    return RejectedRow{row, id, reject->rule, reject->column, reject->message};
+  if (auto reject =
+          ingest_parts::period_outside_class(o.class_limits, p, cls, col::kPeriod, what)) {
+    if (o.class_limits.period_policy == UnitCheckPolicy::kRefuse)
+      return RejectedRow{row, id, reject->rule, reject->column, reject->message};
+    spdlog::warn("{}: row {}: star '{}': [{}] {}", o.input_path, row, id, reject->rule,
+                 reject->message);
+  }
+  return std::nullopt;
+}
+
+}  // namespace
+
+std::size_t refuse_incomplete_stars_after_join(StarTable& cat, const IngestOptions& o,
+                                               IngestResult& result) {
   std::vector<std::string> bands;
   for (const auto& name : cat.column_names())
     if (name.rfind("mag_err_", 0) != 0 && name.rfind("mag_", 0) == 0) bands.push_back(name);
@@ -113,6 +142,10 @@ std::size_t refuse_incomplete_stars_after_join(StarTable& cat, IngestResult& res
       refused.push_back({rows.integer[r], ids.text[r], "no_period", "",
                          "the star has no period: the star list gives none and its light curve "
                          "gave no usable one"});
+      continue;
+    }
+    if (auto refusal = joined_period_refusal(cat, r, o)) {
+      refused.push_back(std::move(*refusal));
       continue;
     }
     const bool any = std::any_of(bands.begin(), bands.end(),

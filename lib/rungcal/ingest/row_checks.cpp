@@ -313,19 +313,12 @@ class GroupChecks {
                       fmt::format("period {} d is not positive", *period)};
   }
 
-  // The period against the plausible range of the star's class (issue 15: 1e308, 1e30 and
-  // 1e-300 d reached the fit and crashed it).
+  // The period against the plausible range of the star's class.
   void check_period_plausible(std::size_t r, const std::string& pulsator_class) const {
-    auto it = o_.class_period_range.find(pulsator_class);
-    const PlausibleRange& range = it == o_.class_period_range.end() ? o_.period_range : it->second;
     if (!q_period_.present()) return;
-    const double p = *periods_.at(r);
-    if (!range.contains(p))
-      throw RowReject{
-          "period_out_of_range", q_period_.column_name,
-          fmt::format("period {} d is outside the plausible [{}, {}] d for {} ([validate] "
-                      "period_range_d)",
-                      p, range.min, range.max, pulsator_class)};
+    if (auto reject = implausible_period(o_, *periods_.at(r), pulsator_class, q_period_.column_name,
+                                         "period"))
+      throw std::move(*reject);
   }
 
   // Parallax, its error and [Fe/H] against their plausible ranges ([validate]).
@@ -365,17 +358,10 @@ class GroupChecks {
                             "class_parallax_max_mas]; class_parallax_check = \"warn\" keeps it)",
                             *p, max->second, pulsator_class)});
     }
-    if (l.period_policy != UnitCheckPolicy::kOff && q_period_.present()) {
-      auto range = l.period_d.find(pulsator_class);
-      const double p = *periods_.at(r);
-      if (range != l.period_d.end() && !range->second.contains(p))
-        breaks(l.period_policy,
-               {"period_outside_class_range", q_period_.column_name,
-                fmt::format("period {} d is outside the known [{}, {}] d of {} stars ([validate."
-                            "class_period_known_range_d]; class_period_check = \"warn\" keeps "
-                            "it): misclassified?",
-                            p, range->second.min, range->second.max, pulsator_class)});
-    }
+    if (!q_period_.present()) return;
+    if (auto reject = period_outside_class(l, *periods_.at(r), pulsator_class,
+                                           q_period_.column_name, "period"))
+      breaks(l.period_policy, std::move(*reject));
   }
 
   // The canonical mode (or class) of row r. Spellings repeat from row to row: each distinct
@@ -584,6 +570,32 @@ RowGroup check_group(const IngestOptions& o, const SourceTable& in, const Catalo
     if (!id.empty()) group.id_hash[r] = IdRegistry::hash(id);
   }
   return group;
+}
+
+std::optional<RowReject> implausible_period(const IngestOptions& o, double period_d,
+                                            const std::string& pulsator_class,
+                                            const std::string& column, const std::string& what) {
+  auto it = o.class_period_range.find(pulsator_class);
+  const PlausibleRange& range = it == o.class_period_range.end() ? o.period_range : it->second;
+  if (range.contains(period_d)) return std::nullopt;
+  return RowReject{"period_out_of_range", column,
+                   fmt::format("{} {} d is outside the plausible [{}, {}] d for {} ([validate] "
+                               "period_range_d)",
+                               what, period_d, range.min, range.max, pulsator_class)};
+}
+
+std::optional<RowReject> period_outside_class(const ClassLimits& l, double period_d,
+                                              const std::string& pulsator_class,
+                                              const std::string& column, const std::string& what) {
+  if (l.period_policy == UnitCheckPolicy::kOff) return std::nullopt;
+  auto range = l.period_d.find(pulsator_class);
+  if (range == l.period_d.end() || range->second.contains(period_d)) return std::nullopt;
+  return RowReject{
+      "period_outside_class_range", column,
+      fmt::format("{} {} d is outside the known [{}, {}] d of {} stars ([validate."
+                  "class_period_known_range_d]; class_period_check = \"warn\" keeps it): "
+                  "misclassified?",
+                  what, period_d, range->second.min, range->second.max, pulsator_class)};
 }
 
 }  // namespace rungcal::ingest_parts
