@@ -54,7 +54,8 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   app.add_option("--blend-law", choice.blend_law,
                  "how much brighter the mock blends are: moderate (0.3-1.0 mag), "
-                 "faint_companions (0-1.0 mag) or bright_companions (0.44-1.75 mag)")
+                 "faint_companions (0-1.0 mag), bright_companions (0.44-1.75 mag) or fit_component "
+                 "(the fit's own: 0.3 mag plus Gamma(2, mean 0.5))")
       ->capture_default_str();
   app.add_option("--outlier-law", choice.outlier_law,
                  "how the mocks' gross parallax outliers are drawn: shifted (+-5-20 errors) or "

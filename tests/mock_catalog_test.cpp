@@ -43,6 +43,25 @@ TEST(MockCatalog, BlendLawsHaveTheirRangesAndMeans) {
   EXPECT_NEAR(mean_of_companion(0.0, 1.5), 0.5724, 1e-4);  // worked by hand: 1.08574 x 0.52715
 }
 
+// The fit-component blend law is the fit's rising component with its defaults: 0.3 mag plus
+// Gamma(shape 2, scale 0.25): mean 0.8, variance 2 x 0.25^2, and CDF 1 - e^-t (1 + t) at
+// t = (b - 0.3) / 0.25 (the Gamma(2) distribution; 0.2642 at t = 1).
+TEST(MockCatalog, FitComponentBlendsFollowTheFitsRisingLaw) {
+  Random rng(3);
+  const int n = 200000;
+  double sum = 0, sum2 = 0, lo = 1e9;
+  int below = 0;
+  for (int i = 0; i < n; ++i) {
+    const double b = mock_blend_brightening(MockBlendLaw::kFitComponent, rng);
+    sum += b, sum2 += b * b, lo = std::min(lo, b);
+    below += b < 0.55 ? 1 : 0;
+  }
+  EXPECT_GE(lo, 0.3);
+  EXPECT_NEAR(sum / n, 0.8, 0.003);  // its own scatter: 0.0008
+  EXPECT_NEAR(sum2 / n - (sum / n) * (sum / n), 0.125, 0.002);
+  EXPECT_NEAR(static_cast<double>(below) / n, 1 - 2 * std::exp(-1.0), 0.004);
+}
+
 // The two gross-outlier laws: the study's shifted one lies 5-20 errors off on either side
 // with the magnitude untouched; the fit-component one is the fit's default outlier
 // component (docs/method.md, "Outliers"): parallax error x10 in all, magnitude +- 1 mag.

@@ -114,6 +114,11 @@ double mock_blend_brightening(MockBlendLaw law, Random& rng) {
       return 2.5 * std::log10(1.0 + rng.uniform(0.0, 1.5));
     case MockBlendLaw::kBrightCompanions:
       return 2.5 * std::log10(1.0 + rng.uniform(0.5, 4.0));
+    case MockBlendLaw::kFitComponent: {
+      // Gamma(2, theta) is the sum of two Exp(theta): theta = 0.25 for a mean of 0.5 mag.
+      const double u1 = 1.0 - rng.uniform(), u2 = 1.0 - rng.uniform();
+      return 0.3 - 0.25 * std::log(u1 * u2);
+    }
   }
   return 0.0;
 }

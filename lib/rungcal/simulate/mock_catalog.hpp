@@ -32,11 +32,16 @@ enum class MockBlendLaw {
   kModerate,          // brighter by U(0.3, 1.0) mag
   kFaintCompanions,   // a companion of flux ratio q ~ U(0, 1.5): 2.5 log10(1 + q), 0-1.0 mag
   kBrightCompanions,  // q ~ U(0.5, 4): 0.44-1.75 mag
+  // The fit's own default blend component (docs/method.md, "Blends"): 0.3 mag plus a
+  // Gamma(shape 2, mean 0.5 mag) draw, so that the model matches the mocks: a check of the
+  // component itself, as MockOutlierLaw::kFitComponent is of the outlier component.
+  kFitComponent,
 };
-inline constexpr EnumTable<MockBlendLaw, 3> kMockBlendLawNames{{{
+inline constexpr EnumTable<MockBlendLaw, 4> kMockBlendLawNames{{{
     {MockBlendLaw::kModerate, "moderate"},
     {MockBlendLaw::kFaintCompanions, "faint_companions"},
     {MockBlendLaw::kBrightCompanions, "bright_companions"},
+    {MockBlendLaw::kFitComponent, "fit_component"},
 }}};
 
 // One blend's brightening (mag, > 0) under a law: a companion of flux ratio q adds
