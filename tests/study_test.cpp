@@ -115,6 +115,11 @@ TEST(Study, PoolingRefusesRepeatedSeedsAndOtherSetups) {
   test::write_text(dir.file("old.json"), old.dump());
   EXPECT_EQ(refusal([&] { read_study_run(dir.file("old.json")); }),
             "study_no_per_mock at per_mock");
+  nlohmann::json bad_truth = nlohmann::json::parse(test::read_text(a));
+  bad_truth["truth"]["alpha"] = "faint";
+  test::write_text(dir.file("bad_truth.json"), bad_truth.dump());
+  EXPECT_EQ(refusal([&] { read_study_run(dir.file("bad_truth.json")); }),
+            "study_format at parameter_names");
   nlohmann::json short_mock = nlohmann::json::parse(test::read_text(a));
   short_mock["per_mock"][1]["error"].erase(0);
   test::write_text(dir.file("short.json"), short_mock.dump());

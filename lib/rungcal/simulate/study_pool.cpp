@@ -67,6 +67,16 @@ StudyResult read_study_run(const std::string& path) {
       !j["parameter_names"].is_array() || !j.contains("truth") || !j["truth"].is_object())
     refuse(path, "per_mock", "study_format",
            "a study run needs per_mock (array), parameter_names (array) and truth (object)");
+  // The summary reads each name's truth as a number, or none.
+  auto usable_name = [&](const nlohmann::json& name) {
+    if (!name.is_string()) return false;
+    const auto at = j["truth"].find(name.get<std::string>());
+    return at == j["truth"].end() || at->is_number();
+  };
+  for (const auto& name : j["parameter_names"])
+    if (!usable_name(name))
+      refuse(path, "parameter_names", "study_format",
+             "each parameter name must be a string, and its truth, if given, a number");
   nlohmann::json header = nlohmann::json::object();
   for (const auto& [key, value] : j.items())
     if (!is_summary_key(key)) header[key] = value;
