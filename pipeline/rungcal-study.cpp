@@ -74,6 +74,9 @@ int main(int argc, char** argv) {
   app.add_option("--histogram-smoothing", study.fit.hierarchical.histogram_walk_sigma,
                  "random-walk step of the smooth histogram's log-weights")
       ->capture_default_str();
+  app.add_option("--histogram-step", study.fit.hierarchical.histogram_step,
+                 "the smooth histogram's bin step and kernel width (mag)")
+      ->capture_default_str();
   app.add_option("--histogram-margin", study.fit.hierarchical.histogram_margin,
                  "its grid beyond the data (mag)")
       ->capture_default_str();
