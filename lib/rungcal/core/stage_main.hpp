@@ -3,7 +3,6 @@
 
 #include <functional>
 #include <string>
-
 #include <vector>
 
 #include <CLI/CLI.hpp>

@@ -101,27 +101,22 @@ void join_lightcurve_summary(StarTable& cat, const LightCurveJoin& join, IngestR
 
 namespace {
 
-// A period the join gave against [validate]'s class ranges: the refusal, if any (a broken
-// class range under class_period_check = "warn" is logged and kept).
-std::optional<RejectedRow> joined_period_refusal(const StarTable& cat, std::size_t r,
-                                                 const IngestOptions& o) {
-  if (!cat.has(col::kPeriodOrigin) || cat.column(col::kPeriodOrigin).text[r] != "lightcurve")
-    return std::nullopt;
-  const double p = cat.column(col::kPeriod).real[r];
-  const std::string& cls = cat.column(col::kClass).text[r];
-  const std::int64_t row = cat.column(col::kSourceRow).integer[r];
-  const std::string& id = cat.column(col::kId).text[r];
-  const std::string what = "light-curve period (" + o.lightcurves.summary_path + ")";
-  if (auto reject = ingest_parts::implausible_period(o, p, cls, col::kPeriod, what))
-    return RejectedRow{row, id, reject->rule, reject->column, reject->message};
+// A period the join gave against [validate]'s class ranges, named by what: the refusal, if
+// any (a broken class range under class_period_check = "warn" is logged and kept).
+std::optional<ingest_parts::RowReject> joined_period_refusal(
+    double period_d, const std::string& pulsator_class, const IngestOptions& o,
+    const std::string& what, std::int64_t row, const std::string& id) {
   if (auto reject =
-          ingest_parts::period_outside_class(o.class_limits, p, cls, col::kPeriod, what)) {
-    if (o.class_limits.period_policy == UnitCheckPolicy::kRefuse)
-      return RejectedRow{row, id, reject->rule, reject->column, reject->message};
+          ingest_parts::implausible_period(o, period_d, pulsator_class, col::kPeriod, what))
+    return reject;
+  auto reject = ingest_parts::period_outside_class(o.class_limits, period_d, pulsator_class,
+                                                   col::kPeriod, what);
+  if (reject && o.class_limits.period_policy != UnitCheckPolicy::kRefuse) {
     spdlog::warn("{}: row {}: star '{}': [{}] {}", o.input_path, row, id, reject->rule,
                  reject->message);
+    return std::nullopt;
   }
-  return std::nullopt;
+  return reject;
 }
 
 }  // namespace
@@ -136,6 +131,9 @@ std::size_t refuse_incomplete_stars_after_join(StarTable& cat, const IngestOptio
   const Column& ids = cat.column(col::kId);
   const Column& rows = cat.column(col::kSourceRow);
   const Column& period = cat.column(col::kPeriod);
+  const Column* origin = cat.has(col::kPeriodOrigin) ? &cat.column(col::kPeriodOrigin) : nullptr;
+  const Column& classes = cat.column(col::kClass);
+  const std::string what = "light-curve period (" + o.lightcurves.summary_path + ")";
   std::vector<RejectedRow> refused;
   for (std::size_t r = 0; r < cat.rows(); ++r) {
     if (period.is_null(r)) {
@@ -144,9 +142,13 @@ std::size_t refuse_incomplete_stars_after_join(StarTable& cat, const IngestOptio
                          "gave no usable one"});
       continue;
     }
-    if (auto refusal = joined_period_refusal(cat, r, o)) {
-      refused.push_back(std::move(*refusal));
-      continue;
+    if (origin && origin->text[r] == "lightcurve") {
+      if (auto reject = joined_period_refusal(period.real[r], classes.text[r], o, what,
+                                              rows.integer[r], ids.text[r])) {
+        refused.push_back({rows.integer[r], ids.text[r], std::move(reject->rule),
+                           std::move(reject->column), std::move(reject->message)});
+        continue;
+      }
     }
     const bool any = std::any_of(bands.begin(), bands.end(),
                                  [&](const std::string& b) { return !cat.column(b).is_null(r); });
