@@ -58,9 +58,10 @@ int main(int argc, char** argv) {
                  "(the fit's own: 0.3 mag plus Gamma(2, mean 0.5))")
       ->capture_default_str();
   app.add_option("--outlier-law", choice.outlier_law,
-                 "how the mocks' gross parallax outliers are drawn: shifted (+-5-20 errors) or "
+                 "how the mocks' gross parallax outliers are drawn: shifted (+-5-20 errors), "
                  "fit_component (the fit's own outlier component: parallax error x10, magnitude "
-                 "+-1 mag)")
+                 "+-1 mag) or underestimated_error (parallax error x U(5, 20), magnitude a "
+                 "member's)")
       ->capture_default_str();
   app.add_option("--parallax-error-scale", study.scenario.parallax_error_scale,
                  "multiplies the mocks' parallax errors (3: a median S/N near 5 on the disk)")
@@ -75,7 +76,10 @@ int main(int argc, char** argv) {
                  "random-walk step of the smooth histogram's log-weights")
       ->capture_default_str();
   app.add_option("--histogram-step", study.fit.hierarchical.histogram_step,
-                 "the smooth histogram's bin step and kernel width (mag)")
+                 "the smooth histogram's bin step (mag)")
+      ->capture_default_str();
+  app.add_option("--histogram-kernel", study.fit.hierarchical.histogram_kernel,
+                 "the smooth histogram's kernel width as a fraction of its step (0.75-1)")
       ->capture_default_str();
   app.add_option("--histogram-margin", study.fit.hierarchical.histogram_margin,
                  "its grid beyond the data (mag)")

@@ -180,12 +180,42 @@ TEST(Hierarchical, GradientWithTheSmoothHistogramPriorEqualsCentralDifferences) 
   expect_gradient_matches_differences(s);
   // The histogram density integrates to 1 and stays finite far outside its grid.
   const double eta[] = {0.4, -1.0, 2.0, 0.0, -3.0, 1.0, 0.5};
-  DistancePriorShape p = DistancePriorShape::make_histogram(8.5, 0.5, eta, 8);
-  double sum = 0;
-  for (double mu = 0; mu < 20; mu += 0.001) sum += std::exp(p.at(mu).log_density) * 0.001;
-  EXPECT_NEAR(sum, 1.0, 1e-9);
-  for (double mu : {-10.0, 60.0})
-    EXPECT_TRUE(std::isfinite(p.at(mu).log_density) && std::isfinite(p.at(mu).d_mu)) << mu;
+  for (double kernel : {1.0, 0.5}) {
+    DistancePriorShape p = DistancePriorShape::make_histogram(8.5, 0.5, kernel, eta, 8);
+    double sum = 0;
+    for (double mu = 0; mu < 20; mu += 0.001) sum += std::exp(p.at(mu).log_density) * 0.001;
+    EXPECT_NEAR(sum, 1.0, 1e-9) << kernel;
+    for (double mu : {-10.0, 60.0})
+      EXPECT_TRUE(std::isfinite(p.at(mu).log_density) && std::isfinite(p.at(mu).d_mu)) << mu;
+  }
+}
+
+// The histogram's density with kernels narrower than the step (kappa = 0.5, below the config's
+// range, so that the terms differ most from kappa = 1) is the mixture
+// sum_j w_j N(mu | c_j, (kappa h)^2) written out term by term, and its mu derivatives are
+// the central differences of its logarithm.
+TEST(Hierarchical, NarrowHistogramKernelsEqualTheMixtureWrittenOut) {
+  const double eta[] = {0.4, -1.0, 2.0, 0.0, -3.0, 1.0, 0.5};
+  const double start = 8.5, step = 0.5, kernel = 0.5;
+  DistancePriorShape p = DistancePriorShape::make_histogram(start, step, kernel, eta, 8);
+  double w[8] = {1.0}, total = 1.0;
+  for (int j = 1; j < 8; ++j) total += w[j] = std::exp(eta[j - 1]);
+  const double s = kernel * step;
+  auto direct = [&](double mu) {
+    double sum = 0;
+    for (int j = 0; j < 8; ++j) {
+      const double z = (mu - start - j * step) / s;
+      sum += w[j] / total * std::exp(-0.5 * z * z) / (s * std::sqrt(2 * std::numbers::pi));
+    }
+    return std::log(sum);
+  };
+  for (double mu : {8.2, 9.13, 10.0, 10.37, 12.3}) {
+    const DistancePriorTerms t = p.at(mu);
+    EXPECT_NEAR(t.log_density, direct(mu), 1e-12) << mu;
+    const double e = 1e-4;
+    EXPECT_NEAR(t.d_mu, (direct(mu + e) - direct(mu - e)) / (2 * e), 1e-6) << mu;
+    EXPECT_NEAR(t.d2_mu, (direct(mu + e) - 2 * direct(mu) + direct(mu - e)) / (e * e), 1e-4) << mu;
+  }
 }
 
 // One parallax star's member likelihood, integrated by scipy.integrate.quad over mu with the

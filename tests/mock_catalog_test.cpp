@@ -88,6 +88,16 @@ TEST(MockCatalog, OutlierLawsHaveTheirShapes) {
   EXPECT_NEAR(std::sqrt(sum2_mag / n), 1.0, 0.02);
   EXPECT_NEAR(sum_mag / n, 0.0, 0.03);
   EXPECT_EQ(kMockOutlierLawNames.parse("fit_component"), MockOutlierLaw::kFitComponent);
+  // Underestimated errors: F ~ U(5, 20) gives E[F^2] = (20^3 - 5^3) / (3 x 15) = 175 in
+  // all (the added variance F^2 - 1 plus the member's own 1); the magnitude is untouched.
+  double sum2 = 0;
+  for (int i = 0; i < n; ++i) {
+    const MockOutlierShift s = mock_outlier_shift(MockOutlierLaw::kUnderestimatedError, 0.02, rng);
+    const double z2 = s.parallax_mas * s.parallax_mas / (0.02 * 0.02) + 1.0;
+    sum2 += z2;
+    EXPECT_EQ(s.magnitude, 0.0);
+  }
+  EXPECT_NEAR(sum2 / n, 175.0, 8.0);  // sd of the mean: 2.2
 }
 
 TEST(MockCatalog, ParallaxErrorScaleMultipliesEveryError) {

@@ -378,6 +378,8 @@ TEST(OptionChecks, Fit) {
         "fit.histogram_step_mag: must be 0.1 to 2 mag"},
        {"histogram smoothing", [](O& o) { o.hierarchical.histogram_walk_sigma = 0.01; },
         "fit.histogram_smoothing: must be above 0.05 and at most 100"},
+       {"histogram kernel", [](O& o) { o.hierarchical.histogram_kernel = 0.5; },
+        "fit.histogram_kernel_fraction: must be 0.75 to 1 (of the step)"},
        {"histogram margin", [](O& o) { o.hierarchical.histogram_margin = 6; },
         "fit.histogram_margin_mag: must be 0 to 5 mag"},
        {"quadrature nodes", [](O& o) { o.hierarchical.quadrature_nodes = 500; },

@@ -130,7 +130,8 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   c = {};
   c.outlier_law = "uniform";
   EXPECT_EQ(refusal(c),
-            "--outlier-law [config_value] 'uniform' is not one of: shifted, fit_component");
+            "--outlier-law [config_value] 'uniform' is not one of: shifted, fit_component, "
+            "underestimated_error");
   c = {};
   c.outlier_law = "fit_component";
   StudyOptions study;

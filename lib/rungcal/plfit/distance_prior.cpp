@@ -35,12 +35,13 @@ DistancePriorShape DistancePriorShape::make(double scale_kpc, double power, doub
   return s;
 }
 
-DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
+DistancePriorShape DistancePriorShape::make_histogram(double start, double step, double kernel,
                                                       const double* log_weights, int bins) {
   DistancePriorShape s;
   s.histogram = true;
   s.start = start;
   s.step = step;
+  s.kernel = kernel;
   s.weight.assign(static_cast<std::size_t>(bins), 1.0);
   double top = 0;
   for (int j = 1; j < bins; ++j) top = std::max(top, log_weights[j - 1]);
@@ -48,30 +49,33 @@ DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
   for (int j = 0; j < bins; ++j)
     sum += s.weight[static_cast<std::size_t>(j)] = std::exp((j ? log_weights[j - 1] : 0.0) - top);
   for (double& w : s.weight) w /= sum;
-  s.log_kernel_norm = -std::log(step) - 0.9189385332046727418;  // ln(1 / (h sqrt(2 pi)))
+  s.log_kernel_norm = -std::log(kernel * step) - 0.9189385332046727418;
   return s;
 }
 
 DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi, double* r,
                                                     double& r_scale) const {
-  // In grid units z = (mu - c_0) / h; a bin 10 or more steps away adds exp(-50) of what the
-  // nearest does (times their weights' ratio), so only kHistogramReach each side count.
+  // In grid units z = (mu - c_0) / h; with kappa >= 0.5 a bin 10 or more steps away adds
+  // exp(-50) of what the nearest does (times their weights' ratio), so only kHistogramReach
+  // each side count.
   const int bins = static_cast<int>(weight.size());
   const double z = (mu - start) / step;
   const int nearest = std::clamp(static_cast<int>(std::lround(z)), 0, bins - 1);
   lo = std::max(0, nearest - kHistogramReach), hi = std::min(bins - 1, nearest + kHistogramReach);
   // Gaussians relative to the nearest bin's, outwards from it so that nothing underflows:
-  // e_(j+1) / e_j = exp(z - j - 1/2), e_(j-1) / e_j = exp(j - z - 1/2). The two sides are
-  // summed apart (independent chains) with the moments of j - z in the same pass.
-  constexpr double kInvE = 0.36787944117144233;
+  // with q = 1 / kappa^2, e_(j+1) / e_j = exp(q (z - j - 1/2)), e_(j-1) / e_j =
+  // exp(q (j - z - 1/2)). The two sides are summed apart (independent chains) with the moments
+  // of j - z in the same pass.
+  const double q = 1.0 / (kernel * kernel), decay = std::exp(-q);
   const double* w = weight.data();
   const double d0 = nearest - z;
   const double t0 = r[nearest - lo] = w[nearest];
   double up0 = t0, up1 = t0 * d0, up2 = t0 * d0 * d0, dn0 = 0, dn1 = 0, dn2 = 0;
-  double e_up = 1.0, ratio_up = std::exp(-d0 - 0.5), e_dn = 1.0, ratio_dn = std::exp(d0 - 0.5);
+  double e_up = 1.0, ratio_up = std::exp(q * (-d0 - 0.5)), e_dn = 1.0,
+         ratio_dn = std::exp(q * (d0 - 0.5));
   for (int k = 1; k <= kHistogramReach; ++k) {
-    e_up *= ratio_up, ratio_up *= kInvE;
-    e_dn *= ratio_dn, ratio_dn *= kInvE;
+    e_up *= ratio_up, ratio_up *= decay;
+    e_dn *= ratio_dn, ratio_dn *= decay;
     if (nearest + k <= hi) {
       const double t = r[nearest + k - lo] = w[nearest + k] * e_up, d = d0 + k;
       up0 += t, up1 += t * d, up2 += t * d * d;
@@ -85,9 +89,12 @@ DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi,
   const double first = (up1 + dn1) * inv, second = (up2 + dn2) * inv;
   r_scale = inv;
   DistancePriorTerms t{};
-  t.log_density = std::log(total) - 0.5 * d0 * d0 + log_kernel_norm;
-  t.d_mu = first / step;
-  t.d2_mu = (second - 1.0 - first * first) / (step * step);
+  // With s = kappa h: d ln p / d mu = sum r_j (c_j - mu) / s^2, and its derivative the
+  // responsibilities' variance of (c_j - mu) / s^2 less 1 / s^2.
+  const double h_q = q / step;
+  t.log_density = std::log(total) - 0.5 * q * d0 * d0 + log_kernel_norm;
+  t.d_mu = first * h_q;
+  t.d2_mu = (second - first * first) * h_q * h_q - h_q / step;
   return t;
 }
 

@@ -101,6 +101,9 @@ std::string FitOptions::check() const {
     return "fit.histogram_step_mag: must be 0.1 to 2 mag";
   if (!(hierarchical.histogram_walk_sigma > 0.05 && hierarchical.histogram_walk_sigma <= 100))
     return "fit.histogram_smoothing: must be above 0.05 and at most 100";
+  if (!(hierarchical.histogram_kernel >= kHistogramKernelFractionMin &&
+        hierarchical.histogram_kernel <= 1.0))
+    return "fit.histogram_kernel_fraction: must be 0.75 to 1 (of the step)";
   if (!(hierarchical.histogram_margin >= 0 && hierarchical.histogram_margin <= 5))
     return "fit.histogram_margin_mag: must be 0 to 5 mag";
   if (!(hierarchical.quadrature_nodes >= 8 && hierarchical.quadrature_nodes <= 128))
@@ -275,6 +278,8 @@ FitOptions fit_options_from_file(const std::string& path) {
       f->number_or("histogram_smoothing", o.hierarchical.histogram_walk_sigma);
   o.hierarchical.histogram_margin =
       f->number_or("histogram_margin_mag", o.hierarchical.histogram_margin);
+  o.hierarchical.histogram_kernel =
+      f->number_or("histogram_kernel_fraction", o.hierarchical.histogram_kernel);
   o.hierarchical.quadrature_nodes =
       static_cast<int>(f->integer_or("quadrature_nodes", o.hierarchical.quadrature_nodes));
   o.outlier_shift = param_from(*f, "outlier_mag_shift", o.outlier_shift);

@@ -135,6 +135,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                                     {"histogram_step_mag", o.hierarchical.histogram_step},
                                     {"histogram_walk_sigma", o.hierarchical.histogram_walk_sigma},
                                     {"histogram_margin_mag", o.hierarchical.histogram_margin},
+                                    {"histogram_kernel_fraction", o.hierarchical.histogram_kernel},
                                     {"outlier_mag_width", o.hierarchical.outlier_mag_width},
                                     {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
                                     {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor},
@@ -239,6 +240,8 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
       r[fit_key::kDistancePriorGrid] = {
           {"first_modulus", histogram_start_at(rr.settings.hierarchical, rr.parameter("alpha"))},
           {"step_mag", rr.settings.hierarchical.histogram_step},
+          {"kernel_mag",
+           rr.settings.hierarchical.histogram_step * rr.settings.hierarchical.histogram_kernel},
           {"bins", rr.layout.distance_bins + 1}};
     out[fit_key::kRelations].push_back(r);
   }

@@ -84,7 +84,8 @@ class Evaluator final : public Objective {
     const auto H = static_cast<std::size_t>(L_.distance_bins);
     if (L_.distance_bin0 >= 0)
       prior = DistancePriorShape::make_histogram(histogram_start_at(h, alpha), h.histogram_step,
-                                                 t.data() + L_.distance_bin0, L_.distance_bins + 1);
+                                                 h.histogram_kernel, t.data() + L_.distance_bin0,
+                                                 L_.distance_bins + 1);
     k_.clear_bins(H);
     const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
     const double wide = width * width,

@@ -197,6 +197,8 @@ struct HierarchicalSettings {
   double histogram_walk_sigma =
       kHistogramWalkSigma;                     // random-walk hyperprior step of the log-weights
   double histogram_margin = kHistogramMargin;  // grid beyond the data's 0.5-99.5% range (mag)
+  // The bins' Gaussian width as a fraction of the step (distance_prior.hpp: kappa).
+  double histogram_kernel = kHistogramKernelFraction;
 };
 
 struct FitSettings {

@@ -101,6 +101,11 @@ Eigen::MatrixXd mock_anchor_covariance(const MockScenario& s) {
 MockOutlierShift mock_outlier_shift(MockOutlierLaw law, double parallax_err_mas, Random& rng) {
   if (law == MockOutlierLaw::kShifted)
     return {(rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * parallax_err_mas, 0.0};
+  if (law == MockOutlierLaw::kUnderestimatedError) {
+    // x F in all: the member's own N(0, sigma^2) plus N(0, (F^2 - 1) sigma^2).
+    const double factor = rng.uniform(5.0, 20.0);
+    return {rng.normal(0.0, std::sqrt(factor * factor - 1.0) * parallax_err_mas), 0.0};
+  }
   // x10 the error in all: the member's own N(0, sigma^2) plus N(0, 99 sigma^2).
   const double parallax = rng.normal(0.0, std::sqrt(99.0) * parallax_err_mas);
   return {parallax, rng.normal(0.0, 1.0)};

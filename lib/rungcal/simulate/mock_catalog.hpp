@@ -51,14 +51,19 @@ double mock_blend_brightening(MockBlendLaw law, Random& rng);
 // How a gross parallax outlier is drawn. The first is the study's; the second is the fit's
 // own default outlier component (docs/method.md, "Outliers": the parallax error times 10,
 // the magnitude widened by 1 mag), a self-consistency check of the mixture: on it the fit's
-// model is right, so what bias remains with the first is the outlier law's mismatch.
+// model is right, so what bias remains with the first is the outlier law's mismatch. The
+// third is an astrometric solution whose error is underestimated by a factor drawn per star
+// (a scale mixture, unlike the fit's one factor; its deviations reach into the members'
+// core, which the first's never do).
 enum class MockOutlierLaw {
-  kShifted,       // parallax off by +-U(5, 20) of its errors; magnitude a member's
-  kFitComponent,  // parallax + N(0, 99 sigma_pi^2) (x10 in all), magnitude + N(0, 1 mag^2)
+  kShifted,              // parallax off by +-U(5, 20) of its errors; magnitude a member's
+  kFitComponent,         // parallax + N(0, 99 sigma_pi^2) (x10 in all), magnitude + N(0, 1 mag^2)
+  kUnderestimatedError,  // parallax error x F in all, F ~ U(5, 20); magnitude a member's
 };
-inline constexpr EnumTable<MockOutlierLaw, 2> kMockOutlierLawNames{{{
+inline constexpr EnumTable<MockOutlierLaw, 3> kMockOutlierLawNames{{{
     {MockOutlierLaw::kShifted, "shifted"},
     {MockOutlierLaw::kFitComponent, "fit_component"},
+    {MockOutlierLaw::kUnderestimatedError, "underestimated_error"},
 }}};
 
 // What a gross outlier adds to a star's parallax (mas) and magnitude (mag, every band alike).
