@@ -125,6 +125,7 @@ int main(int argc, char** argv) {
   std::printf("histogram_step %.17g\n", h.histogram_step);
   std::printf("histogram_bins %d\n", rr.layout.distance_bins + 1);
   std::printf("histogram_walk_sigma %.17g\n", h.histogram_walk_sigma);
+  std::printf("histogram_kernel_fraction %.17g\n", h.histogram_kernel);
   std::printf("quadrature_nodes %d\n", h.quadrature_nodes);
   std::printf("outlier_mag_width %.17g\n", h.outlier_mag_width);
   std::printf("outlier_mag_shift %.17g\n", h.outlier_mag_shift);

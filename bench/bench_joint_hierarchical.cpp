@@ -107,6 +107,7 @@ int main(int argc, char** argv) {
   std::printf("histogram_step %.17g\n", h.histogram_step);
   std::printf("histogram_bins %d\n", L.distance_bins + 1);
   std::printf("histogram_walk_sigma %.17g\n", h.histogram_walk_sigma);
+  std::printf("histogram_kernel_fraction %.17g\n", h.histogram_kernel);
   std::printf("quadrature_nodes %d\n", h.quadrature_nodes);
   std::printf("blend_component %s\n", std::string(kBlendComponentNames.name(h.blends)).c_str());
   std::printf("blend_min_mag %.17g\n", h.blend_min_mag);

@@ -46,6 +46,8 @@ if info["blend_component"][0][0] != "rising":
 C0, ALPHA_REF, H = get("histogram_start"), get("histogram_alpha_ref"), get("histogram_step")
 NB = int(get("histogram_bins"))
 WALK = get("histogram_walk_sigma")
+if get("histogram_kernel_fraction") != 1.0:  # the reference's kernels are one step wide
+    sys.exit("compare_hierarchical.py: the histogram's kernels must be the default (one step wide)")
 BLEND_MIN = get("blend_min_mag")
 PLX_F2 = get("outlier_parallax_factor") ** 2
 MEMBER_RULE = rule(int(get("quadrature_nodes")))
