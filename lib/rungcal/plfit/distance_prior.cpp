@@ -41,7 +41,8 @@ DistancePriorShape DistancePriorShape::make_histogram(double start, double step,
   s.histogram = true;
   s.start = start;
   s.step = step;
-  s.kernel = kernel;
+  s.kernel_q = 1.0 / (kernel * kernel);
+  s.kernel_decay = std::exp(-s.kernel_q);
   s.weight.assign(static_cast<std::size_t>(bins), 1.0);
   double top = 0;
   for (int j = 1; j < bins; ++j) top = std::max(top, log_weights[j - 1]);
@@ -66,7 +67,7 @@ DistancePriorTerms DistancePriorShape::histogram_at(double mu, int& lo, int& hi,
   // with q = 1 / kappa^2, e_(j+1) / e_j = exp(q (z - j - 1/2)), e_(j-1) / e_j =
   // exp(q (j - z - 1/2)). The two sides are summed apart (independent chains) with the moments
   // of j - z in the same pass.
-  const double q = 1.0 / (kernel * kernel), decay = std::exp(-q);
+  const double q = kernel_q, decay = kernel_decay;
   const double* w = weight.data();
   const double d0 = nearest - z;
   const double t0 = r[nearest - lo] = w[nearest];

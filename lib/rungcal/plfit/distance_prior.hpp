@@ -58,9 +58,11 @@ struct DistancePriorTerms {
 struct DistancePriorShape {
   double log_scale = 0, power = 2, exponent = 1;
   double constant = 0, digamma_shape = 0;
-  // The smooth histogram: grid start c_0, step h, kernel fraction kappa, normalised weights.
+  // The smooth histogram: grid start c_0, step h, normalised weights; from the kernel
+  // fraction kappa, q = 1 / kappa^2 and exp(-q), worked out once (histogram_at runs per
+  // star and node).
   bool histogram = false;
-  double start = 0, step = 0.5, kernel = 1.0;
+  double start = 0, step = 0.5, kernel_q = 1.0, kernel_decay = 0.36787944117144233;
   std::vector<double> weight;
   double log_kernel_norm = 0;  // ln of the bins' Gaussian normalisation, 1 / (kappa h sqrt(2 pi))
   static DistancePriorShape make(double scale_kpc, double power, double exponent);
