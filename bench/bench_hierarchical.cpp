@@ -130,6 +130,8 @@ int main(int argc, char** argv) {
   std::printf("outlier_mag_width %.17g\n", h.outlier_mag_width);
   std::printf("outlier_mag_shift %.17g\n", h.outlier_mag_shift);
   std::printf("outlier_parallax_factor %.17g\n", h.outlier_parallax_factor);
+  std::printf("outlier_parallax_law %s\n",
+              std::string(kOutlierParallaxLawNames.name(h.outlier_parallax)).c_str());
   std::printf("blend_component %s\n", std::string(kBlendComponentNames.name(h.blends)).c_str());
   std::printf("blend_min_mag %.17g\n", h.blend_min_mag);
   std::printf("pivot_log_period %.17g\n", rr.settings.terms.pivot_log_period);

@@ -112,6 +112,8 @@ int main(int argc, char** argv) {
   std::printf("blend_component %s\n", std::string(kBlendComponentNames.name(h.blends)).c_str());
   std::printf("blend_min_mag %.17g\n", h.blend_min_mag);
   std::printf("outlier_parallax_factor %.17g\n", h.outlier_parallax_factor);
+  std::printf("outlier_parallax_law %s\n",
+              std::string(kOutlierParallaxLawNames.name(h.outlier_parallax)).c_str());
   for (int j = 0; j < L.size; ++j) {
     const ParamSpec& p = jr.settings.params[static_cast<std::size_t>(j)];
     // name, value, mode, d(-ln L)/d(solver coordinate), and the prior's centre and width

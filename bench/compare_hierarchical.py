@@ -50,6 +50,7 @@ if get("histogram_kernel_fraction") != 1.0:  # the reference's kernels are one s
     sys.exit("compare_hierarchical.py: the histogram's kernels must be the default (one step wide)")
 BLEND_MIN = get("blend_min_mag")
 PLX_F2 = get("outlier_parallax_factor") ** 2
+RISING = info["outlier_parallax_law"][0][0] == "rising"
 MEMBER_RULE = rule(int(get("quadrature_nodes")))
 BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
 
@@ -102,8 +103,10 @@ class Likelihood:
         V = self.vm + sigma * sigma + gamma * gamma * wz
         cm, co, cb = self.caches
         A = component(r, V, bs, gaussian, MEMBER_RULE, 1.0, self.plx, self.vp, 0.0, off, c0, H, logw, cm)
-        O = component(r, V + wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, PLX_F2 * self.vp, shift, off,
-                      c0, H, logw, co)
+        # Under the rising law a parallax star's outlier has the member's magnitude term.
+        shape = 0.0 if RISING else 1.0
+        O = component(r, V + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, PLX_F2 * self.vp,
+                      shape * shift, off, c0, H, logw, co, rising=RISING)
         Bl = component(r, V, bs, rising_blend, BLEND_RULE, 1.3, self.plx, self.vp, BLEND_MIN, off, c0, H, logw, cb)
         li, qa, qo, qb, d_f, d_fb = mixture(f, fb, A[0], O[0], Bl[0])
         mix = lambda k: qa * A[k] + qo * O[k] + qb * Bl[k]
@@ -116,8 +119,8 @@ class Likelihood:
         g[IO] = w @ d_off
         g[IS] = (w @ dv) * 2.0 * sigma
         g[IF] = w @ d_f
-        g[ISH] = w @ (qo * O[1])
-        g[IW] = (w @ (qo * O[2])) * 2.0 * t[IW]
+        g[ISH] = shape * (w @ (qo * O[1]))
+        g[IW] = shape * (w @ (qo * O[2])) * 2.0 * t[IW]
         g[IFB] = w @ d_fb
         g[IBS] = w @ (qb * Bl[3])
         g[IE] = w @ (qa[:, None] * A[6] + qo[:, None] * O[6] + qb[:, None] * Bl[6])
@@ -144,7 +147,8 @@ for _ in range(5):
     everyone()(COORD.to_internal(theta_r)[FREE])
 numpy_eval_ms = (time.perf_counter() - t0) / 5 * 1e3
 nll_r = get("neg_log_likelihood")
-print(f"stars {N}, hierarchical likelihood, smooth histogram ({NB} bins of {H} mag), outlier and rising-blend "
+print(f"stars {N}, hierarchical likelihood, smooth histogram ({NB} bins of {H} mag), outlier ({'rising' if RISING else 'Gaussian'} "
+      f"parallax law) and rising-blend "
       f"mixture, sigma_int free, [Fe/H] errors marginalised")
 print(f"-ln L at rungcal's optimum: rungcal {nll_r:.10f}, numpy {value:.10f} "
       f"(difference {value - nll_r:.2e})")

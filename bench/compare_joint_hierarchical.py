@@ -79,6 +79,7 @@ if get("histogram_kernel_fraction") != 1.0:  # the reference's kernels are one s
     sys.exit("compare_joint_hierarchical.py: the histogram's kernels must be the default (one step wide)")
 BLEND_MIN = get("blend_min_mag")
 PLX_F2 = get("outlier_parallax_factor") ** 2
+RISING = info["outlier_parallax_law"][0][0] == "rising"
 MEMBER_RULE = rule(int(get("quadrature_nodes")))
 BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
 
@@ -169,8 +170,10 @@ class Likelihood:
         tilt = u @ kap
         cm, co, cb = self.caches
         A = component(m_eff, v, bs, gaussian, MEMBER_RULE, 1.0, self.plx, self.vp, 0.0, off, c0, H, logw, cm)
-        O = component(m_eff, v + wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, PLX_F2 * self.vp, shift, off,
-                      c0, H, logw, co)
+        # Under the rising law a parallax star's outlier has the member's magnitude term.
+        shape = 0.0 if RISING else 1.0
+        O = component(m_eff, v + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, PLX_F2 * self.vp,
+                      shape * shift, off, c0, H, logw, co, rising=RISING)
         Bl = component(m_eff + kap_eff * BLEND_MIN, v, bs, coloured_rising_blend, BLEND_RULE, 1.3, self.plx,
                        self.vp, 0.0, off, c0, H, logw, cb, (kap_eff, D, tilt + BLEND_MIN * D))
         blend_log_l = Bl[0] - BLEND_MIN * tilt - 0.5 * BLEND_MIN ** 2 * D
@@ -211,8 +214,8 @@ class Likelihood:
         g[IK] = (w @ (qb[:, None] * (d_kap[:, None] * p / a[:, None] + 2.0 * d_curv[:, None] * hk
                                      + d_tilt[:, None] * u)))[1:]
         g[IBS] = w @ (qb * Bl[3])
-        g[ISH] = w @ (qo * O[1])
-        g[IW] = (w @ (qo * O[2])) * 2.0 * t[IW]
+        g[ISH] = shape * (w @ (qo * O[1]))
+        g[IW] = shape * (w @ (qo * O[2])) * 2.0 * t[IW]
         g[IE] = w @ d_eta
         d_zbar = -(gr * gamma).sum(1)
         d_wz = Gg @ gamma
@@ -239,7 +242,7 @@ for _ in range(5):
 numpy_eval_ms = (time.perf_counter() - t0) / 5 * 1e3
 nll_r = get("neg_log_likelihood")
 print(f"stars {N}, relations {', '.join(relations)}, hierarchical joint likelihood, smooth histogram ({NB} bins of "
-      f"{H} mag), outlier and coloured rising-blend mixture (blend ratios free), sigma_int per relation, rho free, "
+      f"{H} mag), outlier ({'rising' if RISING else 'Gaussian'} parallax law) and coloured rising-blend mixture (blend ratios free), sigma_int per relation, rho free, "
       f"E(B-V) and [Fe/H] errors")
 print(f"-ln L at rungcal's optimum: rungcal {nll_r:.10f}, numpy {value:.10f} (difference {value - nll_r:.2e})")
 print(f"gradient there (free parameters, solver coordinates): max |rungcal - numpy| = "

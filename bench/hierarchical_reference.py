@@ -174,7 +174,8 @@ def rising_blend(r, V, s):
     return coloured_rising_blend(r, V, s, 1.0, 0.0, 0.0)[:5]
 
 
-def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, logw, cache, colour=()):
+def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, logw, cache, colour=(),
+              rising=False):
     """One mixture component's integral over mu per star,
         int dmu p(mu) mag(m - mu + shift | V, s, *colour) N(plx | 10^(-0.2 (mu - 10)) + off, vp),
     m: each star's magnitude less its model; shift: how much brighter the component starts;
@@ -183,7 +184,9 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     d/ds of the magnitude term, d/doff of the parallax term, d ln p / dmu,
     d ln p / d eta_j (j >= 1), then those of the magnitude term's derivatives in the colour
     arguments. quad: rule(n); width_factor: the width in curvature widths.
-    cache: each star's last mode, the next Newton start."""
+    cache: each star's last mode, the next Newton start.
+    rising: the parallax term is (e^2 / vp) N(e | 0, vp) (the outlier component's rising law),
+    its factor e^2 on the nodes of the Gaussian part's rule."""
     nodes, logw_q = quad
 
     def curvature(i, mu):
@@ -217,6 +220,9 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
                                           *(c[:, None] for c in colour))
     e = plx[:, None] - pt - off
     terms = logw_q + logp + lp - 0.5 * e * e / vp[:, None]
+    if rising:
+        with np.errstate(divide="ignore"):
+            terms = terms + np.log(e * e / vp[:, None])
     top = terms.max(1)
     q = np.exp(terms - top[:, None])
     tot = q.sum(1)
@@ -224,7 +230,10 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     log_l = np.log(np.sqrt(2.0) * width) + top + np.log(tot) - 0.5 * (LOG2PI + np.log(vp))
     d_eta = np.einsum("nk,nkb->nb", q, resp)[:, 1:] - np.exp(logw[1:])
     d_s = (q * d_s).sum(1) if np.ndim(d_s) else 0.0
-    return (log_l, (q * d_r).sum(1), (q * d_v).sum(1), d_s, (q * e).sum(1) / vp, (q * dlogp).sum(1), d_eta,
+    d_off = (q * e).sum(1) / vp
+    if rising:  # d ln e^2 / d off = -2 / e, its weight vanishing where e does
+        d_off -= 2.0 * (q * np.divide(1.0, e, out=np.zeros_like(e), where=e != 0)).sum(1)
+    return (log_l, (q * d_r).sum(1), (q * d_v).sum(1), d_s, d_off, (q * dlogp).sum(1), d_eta,
             *((q * d).sum(1) for d in d_colour))
 
 

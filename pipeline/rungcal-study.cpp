@@ -93,6 +93,11 @@ int main(int argc, char** argv) {
   app.add_option("--outlier-width", study.fit.outlier_width.value,
                  "outlier component's extra width (mag)")
       ->capture_default_str();
+  app.add_option("--outlier-parallax-law", choice.outlier_parallax_law,
+                 "outlier component's parallax law: gaussian or rising (default: the fit's)");
+  app.add_option("--outlier-parallax-factor", study.fit.hierarchical.outlier_parallax_factor,
+                 "outlier component's parallax error x this")
+      ->capture_default_str();
   app.add_flag("--fit-outlier-shape", choice.free_outlier_shape,
                "fit the outlier component's shift and width");
   app.add_option("--blend-component", choice.blend_component,

@@ -241,62 +241,157 @@ TEST(Hierarchical, NarrowHistogramKernelsEqualTheMixtureWrittenOut) {
   }
 }
 
-// One parallax star's member likelihood, integrated by scipy.integrate.quad over mu with the
-// same integrand (method brief, section 4b), against the Laplace-centred Gauss-Hermite rule.
-TEST(Hierarchical, QuadratureEqualsScipyQuadForPreciseNoisyAndNegativeParallaxes) {
+// One parallax star (magnitude m0 with variance var_m including sigma_int = 0.08, parallax
+// and its error) in a relation without [Fe/H], under the space-density prior: the scipy
+// checks' case, at alpha -4.1, beta -3.0, offset -0.015 mas and L, k, a = 1.3, 2, 1.
+struct OneStarCase {
+  double m0, var_m, plx, plx_err;
+};
+struct OneStar {
+  FitData data;
+  ParameterLayout layout =
+      ParameterLayout::for_terms(ModelTerms{1.0, false, 0, false, 0, true, false}, {});
+  FitSettings settings;
+  Eigen::VectorXd theta;
+  double value() const {
+    return hierarchical_value(data, settings, layout, theta).neg_log_likelihood;
+  }
+};
+OneStar one_parallax_star(const OneStarCase& c) {
+  OneStar o;
+  FitData& d = o.data;
+  d.parallax.x = Eigen::ArrayXd::Zero(1), d.parallax.xl = d.parallax.x,
+  d.parallax.feh = d.parallax.x;
+  d.parallax.m0 = Eigen::ArrayXd::Constant(1, c.m0),
+  d.parallax.var_m = Eigen::ArrayXd::Constant(1, c.var_m - 0.0064);
+  d.parallax.row = {0};
+  d.plx = Eigen::ArrayXd::Constant(1, c.plx),
+  d.var_plx = Eigen::ArrayXd::Constant(1, c.plx_err * c.plx_err);
+  const ParameterLayout& L = o.layout;
+  o.settings.space = FitSpace::kHierarchical;
+  o.settings.params.assign(static_cast<std::size_t>(L.size), ParamSpec{});
+  o.theta = Eigen::VectorXd::Zero(L.size);
+  o.theta[L.alpha] = -4.1, o.theta[L.beta] = -3.0, o.theta[L.offset] = -0.015,
+  o.theta[L.sigma] = 0.08;
+  o.theta[L.outlier_width] = 1.0, o.theta[L.distance_scale] = 1.3, o.theta[L.distance_power] = 2.0,
+  o.theta[L.distance_exponent] = 1.0;
+  return o;
+}
+// ln L of the case by scipy.integrate.quad over mu (method brief, section 4b): the member's
+// integrand, or with `rising_outlier` the outlier component's under the rising law, its
+// parallax variance 100 sigma_pi^2 and the factor e^2 / (100 sigma_pi^2).
+double one_star_scipy(const OneStarCase& c, bool rising_outlier) {
   const std::string script = R"(
 import sys, numpy as np
 from scipy import integrate, special
-m, vm, plx, vp, M, off, L, k, a = map(float, sys.argv[1:10])
+m, vm, plx, vp, M, off, L, k, a, rising = map(float, sys.argv[1:11])
+if rising:
+    vp *= 100.0
 def f(mu):
     d = 10 ** (0.2 * mu - 2)
     prior = a / (L ** (k + 1) * special.gamma((k + 1) / a)) * d ** k * np.exp(-(d / L) ** a) * d * np.log(10) / 5
-    pt = 10 ** (-0.2 * (mu - 10))
+    e = plx - 10 ** (-0.2 * (mu - 10)) - off
+    factor = e * e / vp if rising else 1.0
     return prior * np.exp(-0.5 * (m - mu - M) ** 2 / vm) / np.sqrt(2 * np.pi * vm) \
-         * np.exp(-0.5 * (plx - pt - off) ** 2 / vp) / np.sqrt(2 * np.pi * vp)
+         * factor * np.exp(-0.5 * e * e / vp) / np.sqrt(2 * np.pi * vp)
 centre = m - M
 at_parallax = 10 - 5 * np.log10(plx - off) if plx - off > 0 else centre
 lo, hi = min(centre, at_parallax) - 8, max(centre, at_parallax) + 8
 v, err = integrate.quad(f, lo, hi, points=sorted([centre, at_parallax]), limit=1000, epsabs=0, epsrel=1e-13)
 print(repr(np.log(v)))
 )";
-  struct Case {
-    double m0, var_m, plx, plx_err;
-  } cases[] = {{6.0, 0.0081, 0.7, 0.015},
-               {9.5, 0.0081, 0.06, 0.05},
-               {10.8, 0.05, -0.03, 0.04},
-               {4.0, 0.0081, 2.2, 0.02}};
-  for (const Case& c : cases) {
-    FitData d;
-    d.parallax.x = Eigen::ArrayXd::Zero(1), d.parallax.xl = d.parallax.x,
-    d.parallax.feh = d.parallax.x;
-    d.parallax.m0 = Eigen::ArrayXd::Constant(1, c.m0),
-    d.parallax.var_m = Eigen::ArrayXd::Constant(1, c.var_m - 0.0064);
-    d.parallax.row = {0};
-    d.plx = Eigen::ArrayXd::Constant(1, c.plx),
-    d.var_plx = Eigen::ArrayXd::Constant(1, c.plx_err * c.plx_err);
-    ParameterLayout L =
-        ParameterLayout::for_terms(ModelTerms{1.0, false, 0, false, 0, true, false}, {});
-    FitSettings s;
-    s.space = FitSpace::kHierarchical;
-    s.params.assign(static_cast<std::size_t>(L.size), ParamSpec{});
-    s.params[static_cast<std::size_t>(L.outlier)] =
+  test::CommandResult py = test::run_python(
+      script, {fmt::format("{:.17g}", c.m0), fmt::format("{:.17g}", c.var_m),
+               fmt::format("{:.17g}", c.plx), fmt::format("{:.17g}", c.plx_err * c.plx_err), "-4.1",
+               "-0.015", "1.3", "2", "1", rising_outlier ? "1" : "0"});
+  EXPECT_EQ(py.exit_code, 0) << py.output;
+  const std::vector<double> v = test::parse_numbers(py.output);
+  return v.empty() ? std::nan("") : v[0];
+}
+
+// One parallax star's member likelihood, integrated by scipy.integrate.quad over mu with the
+// same integrand (method brief, section 4b), against the Laplace-centred Gauss-Hermite rule.
+TEST(Hierarchical, QuadratureEqualsScipyQuadForPreciseNoisyAndNegativeParallaxes) {
+  const OneStarCase cases[] = {{6.0, 0.0081, 0.7, 0.015},
+                               {9.5, 0.0081, 0.06, 0.05},
+                               {10.8, 0.05, -0.03, 0.04},
+                               {4.0, 0.0081, 2.2, 0.02}};
+  for (const OneStarCase& c : cases) {
+    OneStar o = one_parallax_star(c);
+    o.settings.params[static_cast<std::size_t>(o.layout.outlier)] =
         ParamSpec{ParamMode::kFixed, 0.0, 0, true};  // the member alone
-    Eigen::VectorXd t(L.size);
-    t[L.alpha] = -4.1, t[L.beta] = -3.0, t[L.offset] = -0.015, t[L.sigma] = 0.08;
-    t[L.outlier] = 0.0, t[L.outlier_shift] = 0.0, t[L.outlier_width] = 1.0,
-    t[L.distance_scale] = 1.3, t[L.distance_power] = 2.0, t[L.distance_exponent] = 1.0;
-    const double ours = -hierarchical_value(d, s, L, t).neg_log_likelihood;
-    s.hierarchical.quadrature_nodes = 64;
-    EXPECT_NEAR(-hierarchical_value(d, s, L, t).neg_log_likelihood, ours, 1e-10)
-        << "24 against 64 nodes";
-    test::CommandResult py = test::run_python(
-        script, {fmt::format("{:.17g}", c.m0), fmt::format("{:.17g}", c.var_m),
-                 fmt::format("{:.17g}", c.plx), fmt::format("{:.17g}", c.plx_err * c.plx_err),
-                 "-4.1", "-0.015", "1.3", "2", "1"});
-    ASSERT_EQ(py.exit_code, 0) << py.output;
-    const double reference = test::parse_numbers(py.output).at(0);
+    const double ours = -o.value();
+    o.settings.hierarchical.quadrature_nodes = 64;
+    EXPECT_NEAR(-o.value(), ours, 1e-10) << "24 against 64 nodes";
+    const double reference = one_star_scipy(c, false);
     EXPECT_NEAR(ours, reference, 1e-9 * std::max(1.0, std::abs(reference))) << "parallax " << c.plx;
+  }
+}
+
+// Both parallax laws of the outlier component (the rising default and the Gaussian), with
+// and without an anchor's own parallaxes (rising_parallax_at_modulus): the gradient against
+// central differences.
+TEST(Hierarchical, GradientUnderEitherOutlierParallaxLawEqualsCentralDifferences) {
+  for (OutlierParallaxLaw law : {OutlierParallaxLaw::kRising, OutlierParallaxLaw::kGaussian}) {
+    SCOPED_TRACE(std::string(kOutlierParallaxLawNames.name(law)));
+    MixedCase s = mixed_setup();
+    s.settings.hierarchical.outlier_parallax = law;
+    expect_gradient_matches_differences(s);
+    SCOPED_TRACE("with the anchors' own parallaxes");
+    s.data.anchor_plx = Eigen::ArrayXd::Constant(3, 0.021);
+    // As uncertain as the stars' (0.03 mas): a more precise one makes -ln L so stiff in the
+    // offset that the differences' own error (h^2 f''' / 6) exceeds the tolerance.
+    s.data.anchor_var_plx = Eigen::ArrayXd::Constant(3, 0.03 * 0.03);
+    expect_gradient_matches_differences(s);
+  }
+}
+
+// fit.outlier_parallax_law in a config: read, and a name not in the table refused naming the
+// file and the key.
+TEST(Hierarchical, OutlierParallaxLawIsReadAndAnUnknownOneRefused) {
+  test::TempDir dir;
+  const std::string head =
+      "[[relation]]\nname = \"W\"\nband = \"W\"\n[fit]\ninput = \"cat.fits\"\n";
+  EXPECT_EQ(FitOptions{}.hierarchical.outlier_parallax, OutlierParallaxLaw::kRising);
+  test::write_text(dir.file("good.toml"), head + "outlier_parallax_law = \"gaussian\"\n");
+  EXPECT_EQ(fit_options_from_file(dir.file("good.toml")).hierarchical.outlier_parallax,
+            OutlierParallaxLaw::kGaussian);
+  test::write_text(dir.file("bad.toml"), head + "outlier_parallax_law = \"uniform\"\n");
+  try {
+    fit_options_from_file(dir.file("bad.toml"));
+    FAIL() << "no error";
+  } catch (const InputError& e) {
+    const std::string what = e.what();
+    EXPECT_NE(what.find("bad.toml"), std::string::npos) << what;
+    EXPECT_NE(what.find("outlier_parallax_law"), std::string::npos) << what;
+    EXPECT_NE(what.find("gaussian, rising"), std::string::npos) << what;
+  }
+}
+
+// One parallax star's outlier component under the rising law, (e^2 / s^2) N(e | 0, s^2) with
+// s = 10 sigma_pi and the member's magnitude term (the width set to 0.7 must not enter), by
+// scipy.integrate.quad (Debian python3-scipy), against the Gauss-Hermite rule that carries
+// e^2 on its nodes. The component is isolated with the outlier fraction fixed at 1 - 1e-6.
+TEST(Hierarchical, RisingOutlierLawEqualsScipyQuad) {
+  const OneStarCase cases[] = {{6.0, 0.0081, 0.7, 0.015},
+                               {6.0, 0.0081, 1.3, 0.015},
+                               {9.5, 0.0081, 0.06, 0.05},
+                               {10.8, 0.05, -0.03, 0.04},
+                               {4.0, 0.0081, 2.2, 0.02}};
+  const double f = 1.0 - 1e-6;
+  for (const OneStarCase& c : cases) {
+    OneStar o = one_parallax_star(c);
+    o.theta[o.layout.outlier_shift] = 0.4, o.theta[o.layout.outlier_width] = 0.7;
+    auto log_l = [&](double fraction) {
+      o.settings.params[static_cast<std::size_t>(o.layout.outlier)] =
+          ParamSpec{ParamMode::kFixed, fraction, 0, true};
+      o.theta[o.layout.outlier] = fraction;
+      return -o.value();
+    };
+    const double member = std::exp(log_l(0.0)), mixed = std::exp(log_l(f));
+    const double ours = std::log((mixed - (1.0 - f) * member) / f);
+    const double reference = one_star_scipy(c, true);
+    EXPECT_NEAR(ours, reference, 1e-8 * std::max(1.0, std::abs(reference))) << "parallax " << c.plx;
   }
 }
 

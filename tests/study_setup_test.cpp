@@ -138,6 +138,13 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   apply_study_choices(c, study);
   EXPECT_EQ(study.scenario.outlier_law, MockOutlierLaw::kFitComponent);
   c = {};
+  c.outlier_parallax_law = "flat";
+  EXPECT_EQ(refusal(c),
+            "--outlier-parallax-law [config_value] 'flat' is not one of: gaussian, rising");
+  c.outlier_parallax_law = "gaussian";
+  apply_study_choices(c, study);
+  EXPECT_EQ(study.fit.hierarchical.outlier_parallax, OutlierParallaxLaw::kGaussian);
+  c = {};
   c.space = "sky";
   EXPECT_EQ(refusal(c).rfind("--space [config_value] 'sky' is not one of: ", 0), 0U);
 }

@@ -40,6 +40,17 @@ ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double 
   return o;
 }
 
+ParallaxAtModulus rising_parallax_at_modulus(double plx, double var, double mu, double offset) {
+  ParallaxAtModulus o = parallax_at_modulus(plx, var, mu, offset);
+  const double p = std::exp(-kC * (mu - 10.0)), r = plx - p - offset;
+  o.log_l += std::log(r * r / var);
+  if (r != 0.0) {  // at r = 0 the term is -infinity and its weight in the mixture zero
+    o.d_off -= 2.0 / r;
+    o.d_mu += 2.0 * kC * p / r;  // d r / d mu = 0.2 ln10 p
+  }
+  return o;
+}
+
 double group_parallax_log_l(const std::vector<FitData::GroupParallax>& groups, const double* mu,
                             double offset, double* d_mu, double& d_off) {
   double log_l = 0;

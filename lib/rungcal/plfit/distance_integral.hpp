@@ -118,10 +118,15 @@ inline int blend_nodes(int member_nodes) { return std::min(128, member_nodes * 5
 // term is `mag` (GaussianMagnitude or BlendMagnitude). m_shift: the model's apparent
 // magnitude less mu (M, or M - shift for the outlier component).
 // d_bins (histogram prior): d ln L / d eta_j, written (size B - 1).
+// rising_parallax: the parallax term is (e^2 / var_plx) N(e | 0, var_plx)
+// (OutlierParallaxLaw::kRising). The mode and width are the Gaussian part's, and the factor
+// e^2, nearly quadratic in mu across that width, rides on the nodes: Gauss-Hermite
+// integrates a polynomial times the Gaussian exactly.
 template <class Magnitude>
 Component integrate_parallax(double m, const Magnitude& mag, double plx, double var_plx,
                              double m_shift, double offset, const DistancePriorShape& prior,
-                             const Quadrature& q, double& mode_cache, double* d_bins) {
+                             const Quadrature& q, double& mode_cache, double* d_bins,
+                             bool rising_parallax = false) {
   // The mode by safeguarded Newton steps: the exact curvature where it is negative enough,
   // else its expected (Fisher) part, which is always negative.
   auto curvature = [&](double mu, double& slope, double& width_curvature) {
@@ -161,7 +166,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   double top = -std::numeric_limits<double>::infinity();
   Component c;
   double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, s_b = 0, s_p = 0, total = 0;
-  double s_kappa = 0, s_curv = 0, s_tilt = 0;
+  double s_kappa = 0, s_curv = 0, s_tilt = 0, s_rise = 0;
   double e_of[128];
   MagnitudePoint mp_of[128];
   DistancePriorTerms pr_of[128];
@@ -181,6 +186,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     e_of[k] = plx - pt - offset;
     terms[k] =
         q.log_weight[k] + pr_of[k].log_density + mp_of[k].log_p - 0.5 * e_of[k] * e_of[k] / var_plx;
+    if (rising_parallax) terms[k] += std::log(e_of[k] * e_of[k] / var_plx);
     top = std::max(top, terms[k]);
   }
   for (std::size_t k = 0; k < n; ++k) {
@@ -190,6 +196,8 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     s_v += w * mp_of[k].d_v;
     s_b += w * mp_of[k].d_scale;
     s_off += w * e_of[k];
+    // d ln e^2 / d offset = -2 / e; the weight holds e^2, so the product vanishes at e = 0.
+    if (rising_parallax && e_of[k] != 0.0) s_rise -= 2.0 * w / e_of[k];
     s_l += w * pr_of[k].d_log_scale;
     s_k += w * pr_of[k].d_power;
     s_a += w * pr_of[k].d_exponent;
@@ -214,7 +222,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   c.d_m = s_m * inv;
   c.d_v = s_v * inv;
   c.d_blend_scale = s_b * inv;
-  c.d_off = s_off * inv / var_plx;
+  c.d_off = (s_off / var_plx + s_rise) * inv;
   c.d_log_scale = s_l * inv;
   c.d_power = s_k * inv;
   c.d_exponent = s_a * inv;
@@ -248,13 +256,19 @@ struct ParallaxAtModulus {
 };
 ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double offset);
 
+// The same term under OutlierParallaxLaw::kRising: ln[(r^2 / var) N(r | 0, var)].
+ParallaxAtModulus rising_parallax_at_modulus(double plx, double var, double mu, double offset);
+
 // A member's own parallax in its mixture: the member and blend components take it with its
-// error, the outlier component with the error widened by `outlier_factor2`'s root.
+// error, the outlier component with the error widened by `outlier_factor2`'s root and, if
+// `rising`, the rising law.
 struct OwnParallax {
   ParallaxAtModulus member, outlier;
-  OwnParallax(double plx, double var, double outlier_factor2, double mu, double offset)
+  OwnParallax(double plx, double var, double outlier_factor2, double mu, double offset,
+              bool rising = false)
       : member(parallax_at_modulus(plx, var, mu, offset)),
-        outlier(parallax_at_modulus(plx, outlier_factor2 * var, mu, offset)) {}
+        outlier(rising ? rising_parallax_at_modulus(plx, outlier_factor2 * var, mu, offset)
+                       : parallax_at_modulus(plx, outlier_factor2 * var, mu, offset)) {}
   void add_to(Component& m, Component& out, Component& blend) const {
     m.log_l += member.log_l, out.log_l += outlier.log_l, blend.log_l += member.log_l;
   }

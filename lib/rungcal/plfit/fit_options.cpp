@@ -288,6 +288,8 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.hierarchical.outlier_mag_width = o.outlier_width.value;
   o.hierarchical.outlier_parallax_factor =
       f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
+  o.hierarchical.outlier_parallax = choice_or(*f, "outlier_parallax_law", kOutlierParallaxLawNames,
+                                              o.hierarchical.outlier_parallax);
   o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
   o.hierarchical.blends =
       choice_or(*f, "blend_component", kBlendComponentNames, o.hierarchical.blends);

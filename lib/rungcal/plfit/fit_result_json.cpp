@@ -139,6 +139,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                                     {"outlier_mag_width", o.hierarchical.outlier_mag_width},
                                     {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
                                     {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor},
+                                    {"outlier_parallax_law", std::string(kOutlierParallaxLawNames.name(o.hierarchical.outlier_parallax))},
                                     {"blend_component", std::string(kBlendComponentNames.name(o.hierarchical.blends))},
                                     {"blend_min_mag", o.hierarchical.blend_min_mag},
                                     {"blend_fraction", param_json(o.blend_fraction)},

@@ -153,6 +153,7 @@ class JointEvaluator final : public Objective {
     const double wide = width * width,
                  shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
     const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
+    const bool rising_outliers = h.outlier_parallax == OutlierParallaxLaw::kRising;
     const double log_w_member = (mixture_ ? log_1f : 0.0) + (blends_ ? log_1fb : 0.0);
     const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
 
@@ -230,9 +231,11 @@ class JointEvaluator final : public Objective {
                                     0.0, offset, prior, k_.member_rule, k_.mode_member[si],
                                     k_.bins_member.data());
         if (mixture_)
-          outlier = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff + wide), d_.plx[si],
-                                       plx_factor2 * d_.var_plx[si], -shift, offset, prior,
-                                       k_.member_rule, k_.mode_outlier[si], k_.bins_outlier.data());
+          // Under the rising law a parallax star's outlier has the member's magnitude term.
+          outlier = integrate_parallax(
+              red.m_eff, GaussianMagnitude(rising_outliers ? v_eff : v_eff + wide), d_.plx[si],
+              plx_factor2 * d_.var_plx[si], rising_outliers ? 0.0 : -shift, offset, prior,
+              k_.member_rule, k_.mode_outlier[si], k_.bins_outlier.data(), rising_outliers);
         if (coloured_)
           blend = integrate_parallax(red.m_eff,
                                      ColouredBlendMagnitude(v_eff, blend_scale, h.blends, colour),
@@ -256,7 +259,7 @@ class JointEvaluator final : public Objective {
           blend =
               given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu, blend_shift);
         if (kind == JointStarKind::kGroup && d_.var_plx[si] > 0) {
-          own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset);
+          own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset, rising_outliers);
           own->add_to(member, outlier, blend);
         }
       }
@@ -275,8 +278,8 @@ class JointEvaluator final : public Objective {
       q *= count, q_out *= count, q_blend *= count;  // every gradient term below is per draw
       if (mixture_) {
         g_outlier += q_out / f - (q + q_blend) / (1.0 - f);
-        g_shift -= q_out * outlier.d_m;
-        g_wide += q_out * outlier.d_v;
+        if (!(kind == JointStarKind::kParallax && rising_outliers))
+          g_shift -= q_out * outlier.d_m, g_wide += q_out * outlier.d_v;
       }
       if (blends_) {
         g_blend += q_blend / fb - q / (1.0 - fb);

@@ -165,17 +165,42 @@ inline constexpr EnumTable<BlendComponent, 3> kBlendComponentNames{{{
     {BlendComponent::kRising, "rising"},
 }}};
 
+// The outlier component's parallax term, a law of the deviation e = pi - pi(mu) - offset with
+// s = outlier_parallax_factor x the star's parallax error.
+enum class OutlierParallaxLaw {
+  // N(e | 0, s^2), with the magnitude widened by outlier_mag_width: dense at e = 0, so it
+  // needs the width (1 mag) to keep off the members' tails, and a star whose parallax alone
+  // is off then pays that width and stays a member (alpha faint, offset low at N = 3000:
+  // docs/method.md). The default until 2026-12-04.
+  kGaussian,
+  // (e^2 / s^2) N(e | 0, s^2), zero at e = 0 and peaked at +-sqrt(2) s: a deviation that is
+  // gross by definition, which claims no member whose parallax agrees with its magnitude (the
+  // parallax counterpart of the rising blend component). Normalised: E[e^2] = s^2. A parallax
+  // star's outlier then takes the member's magnitude term: only the parallax-magnitude
+  // discrepancy is seen, whatever its cause. outlier_mag_width and outlier_mag_shift apply
+  // to the stars whose distance is given (known-distance stars, anchor galaxies). The
+  // default: docs/method.md, "A rising parallax law".
+  kRising,
+};
+inline constexpr EnumTable<OutlierParallaxLaw, 2> kOutlierParallaxLawNames{{{
+    {OutlierParallaxLaw::kGaussian, "gaussian"},
+    {OutlierParallaxLaw::kRising, "rising"},
+}}};
+
 // The hierarchical likelihood's fixed choices (FitSpace::kHierarchical).
 struct HierarchicalSettings {
   DistancePriorFamily prior = DistancePriorFamily::kSmoothHistogram;
   int quadrature_nodes = 24;  // Gauss-Hermite nodes per star and component
   // The outlier component: the member's magnitude variance plus outlier_mag_width^2, its
   // magnitude brighter by outlier_mag_shift (blends only brighten), its parallax error
-  // times outlier_parallax_factor. The shift and width are parameters (outlier_shift_mag,
-  // outlier_width_mag), fixed at these values unless the config frees them.
+  // times outlier_parallax_factor, its parallax law outlier_parallax (under the rising law a
+  // parallax star's outlier has the member's magnitude term). The shift and width are
+  // parameters (outlier_shift_mag, outlier_width_mag), fixed at these values unless the
+  // config frees them.
   double outlier_mag_width = 1.0;
   double outlier_mag_shift = 0.0;
   double outlier_parallax_factor = 10.0;
+  OutlierParallaxLaw outlier_parallax = OutlierParallaxLaw::kRising;
   // The blend component (BlendComponent); its fraction and scale are parameters
   // (blend_fraction, blend_scale_mag).
   BlendComponent blends = BlendComponent::kRising;

@@ -112,6 +112,9 @@ void apply_study_choices(const StudyChoices& c, StudyOptions& study) {
   if (!c.blend_component.empty())
     fit.hierarchical.blends =
         parse_choice(kBlendComponentNames, c.blend_component, "--blend-component");
+  if (!c.outlier_parallax_law.empty())
+    fit.hierarchical.outlier_parallax =
+        parse_choice(kOutlierParallaxLawNames, c.outlier_parallax_law, "--outlier-parallax-law");
   if (fit.space != FitSpace::kHierarchical) fit.loss = LossKind::kHuber;  // its documented default
   fit.input_path = "(mock)";
   if (c.free_outlier_shape) fit.outlier_shift.mode = fit.outlier_width.mode = ParamMode::kFree;
