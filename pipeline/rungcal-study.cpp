@@ -99,7 +99,8 @@ int main(int argc, char** argv) {
                  "outlier component's parallax error x this")
       ->capture_default_str();
   app.add_flag("--fit-outlier-shape", choice.free_outlier_shape,
-               "fit the outlier component's shift and width");
+               "fit the outlier component's shift and width (under the rising parallax "
+               "law they shape only stars of given distance, and are held without them)");
   app.add_option("--blend-component", choice.blend_component,
                  "the hierarchical fit's blend component: none, exponential or rising")
       ->capture_default_str();

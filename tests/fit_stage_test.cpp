@@ -234,6 +234,22 @@ TEST(FitStage, MagnitudeSpaceWarnsAndListsNonPositiveParallaxes) {
   EXPECT_TRUE(p.relations[0].warnings.empty());
 }
 
+// Under the rising parallax law the outlier's magnitude width shapes only stars of given
+// distance: freed on a parallax-only sample it is held where it starts, and the fit says so.
+TEST(FitStage, OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldWithAWarning) {
+  test::MockSample m = test::mock_parallax_sample(81, 150);
+  FitOptions o = mock_fit_options();
+  o.outlier_width.mode = ParamMode::kFree;
+  FitResult r = run_fit(o, catalog_from_mock(m));
+  const RelationResult& rr = r.relations[0];
+  bool said = false;
+  for (const auto& w : rr.warnings)
+    said = said || w.rfind("outlier_width_mag: held at 1: under the rising parallax law", 0) == 0;
+  EXPECT_TRUE(said);
+  EXPECT_DOUBLE_EQ(rr.parameter("outlier_width_mag"), 1.0);
+  EXPECT_TRUE(std::isfinite(rr.error("alpha")));
+}
+
 TEST(FitStage, BootstrapIsTheSameForAnyThreadCount) {
   test::MockSample m = test::mock_parallax_sample(78, 120);
   FitOptions o = mock_fit_options();
