@@ -233,6 +233,17 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   return c;
 }
 
+// The outlier component's magnitude shape for a parallax star: the configured width^2 and
+// shift, or under the rising parallax law none, the member's magnitude term (its parallax is
+// what is off: OutlierParallaxLaw::kRising). `fitted`: whether the shape's parameters enter.
+struct ParallaxOutlierShape {
+  double wide = 0, shift = 0;
+  bool fitted = false;
+};
+inline ParallaxOutlierShape parallax_outlier_shape(bool rising, double wide, double shift) {
+  return rising ? ParallaxOutlierShape{} : ParallaxOutlierShape{wide, shift, true};
+}
+
 // A component's magnitude term for a star whose distance modulus is given (known, or an
 // anchor's): p(m - mu - M).
 template <class Magnitude>

@@ -92,6 +92,7 @@ class Evaluator final : public Objective {
                  shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
     const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
     const bool rising_outliers = h.outlier_parallax == OutlierParallaxLaw::kRising;
+    const ParallaxOutlierShape plx_shape = parallax_outlier_shape(rising_outliers, wide, shift);
 
     const int n_anchors =
         (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;  // the layout's, not the settings'
@@ -130,13 +131,11 @@ class Evaluator final : public Objective {
           member =
               integrate_parallax(c.m0[i], GaussianMagnitude(V), d_.plx[i], d_.var_plx[i], M, offset,
                                  prior, k_.member_rule, k_.mode_member[k], k_.bins_member.data());
-          // Under the rising law a parallax star's outlier has the member's magnitude term:
-          // its parallax is what is off (HierarchicalSettings::outlier_parallax).
           if (mixture_)
-            outlier = integrate_parallax(
-                c.m0[i], GaussianMagnitude(rising_outliers ? V : V + wide), d_.plx[i],
-                plx_factor2 * d_.var_plx[i], rising_outliers ? M : M - shift, offset, prior,
-                k_.member_rule, k_.mode_outlier[k], k_.bins_outlier.data(), rising_outliers);
+            outlier = integrate_parallax(c.m0[i], GaussianMagnitude(V + plx_shape.wide), d_.plx[i],
+                                         plx_factor2 * d_.var_plx[i], M - plx_shape.shift, offset,
+                                         prior, k_.member_rule, k_.mode_outlier[k],
+                                         k_.bins_outlier.data(), rising_outliers);
           if (blends_)
             blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale, h.blends), d_.plx[i],
                                        d_.var_plx[i], M - blend_min, offset, prior, k_.blend_rule,
@@ -170,9 +169,9 @@ class Evaluator final : public Objective {
         }
         if (mixture_) {
           g.outlier += w * (q_out / f - (q + q_blend) / (1.0 - f));
-          // The outlier magnitude is mu + M - shift with variance V + width^2 (but for
-          // parallax stars under the rising law).
-          if (!(kind == 0 && rising_outliers)) {
+          // The outlier magnitude is mu + M - shift with variance V + width^2 (a parallax
+          // star's only if its shape is fitted).
+          if (kind != 0 || plx_shape.fitted) {
             g.outlier_shift -= w * q_out * outlier.d_m;
             g.outlier_wide += w * q_out * outlier.d_v;
           }

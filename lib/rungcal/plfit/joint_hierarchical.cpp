@@ -154,6 +154,7 @@ class JointEvaluator final : public Objective {
                  shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
     const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
     const bool rising_outliers = h.outlier_parallax == OutlierParallaxLaw::kRising;
+    const ParallaxOutlierShape plx_shape = parallax_outlier_shape(rising_outliers, wide, shift);
     const double log_w_member = (mixture_ ? log_1f : 0.0) + (blends_ ? log_1fb : 0.0);
     const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
 
@@ -231,11 +232,10 @@ class JointEvaluator final : public Objective {
                                     0.0, offset, prior, k_.member_rule, k_.mode_member[si],
                                     k_.bins_member.data());
         if (mixture_)
-          // Under the rising law a parallax star's outlier has the member's magnitude term.
-          outlier = integrate_parallax(
-              red.m_eff, GaussianMagnitude(rising_outliers ? v_eff : v_eff + wide), d_.plx[si],
-              plx_factor2 * d_.var_plx[si], rising_outliers ? 0.0 : -shift, offset, prior,
-              k_.member_rule, k_.mode_outlier[si], k_.bins_outlier.data(), rising_outliers);
+          outlier = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff + plx_shape.wide),
+                                       d_.plx[si], plx_factor2 * d_.var_plx[si], -plx_shape.shift,
+                                       offset, prior, k_.member_rule, k_.mode_outlier[si],
+                                       k_.bins_outlier.data(), rising_outliers);
         if (coloured_)
           blend = integrate_parallax(red.m_eff,
                                      ColouredBlendMagnitude(v_eff, blend_scale, h.blends, colour),
@@ -278,7 +278,7 @@ class JointEvaluator final : public Objective {
       q *= count, q_out *= count, q_blend *= count;  // every gradient term below is per draw
       if (mixture_) {
         g_outlier += q_out / f - (q + q_blend) / (1.0 - f);
-        if (!(kind == JointStarKind::kParallax && rising_outliers))
+        if (kind != JointStarKind::kParallax || plx_shape.fitted)
           g_shift -= q_out * outlier.d_m, g_wide += q_out * outlier.d_v;
       }
       if (blends_) {
