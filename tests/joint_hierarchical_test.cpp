@@ -538,6 +538,36 @@ TEST(JointHierarchical,
   }
 }
 
+// Under the rising parallax law the outlier's magnitude shape acts only on stars of given
+// distance; a parallax-only sample cannot measure it. The joint fit takes the shared
+// parameters' modes from the first relation's fit, so it inherits that fit's hold
+// (FitStage.OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldWithAWarning) and its Hessian
+// stays positive definite.
+TEST(JointHierarchical, OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldInTheJointFit) {
+  MockScenario s;
+  s.stars = 150;
+  s.seed = 9300;
+  s.more_relations = {{"V", -3.9, -2.4, -0.2, 0.20, 3.1}};
+  FitOptions fit;
+  fit.input_path = "(mock)";
+  fit.joint = true;
+  fit.outlier_width.mode = ParamMode::kFree;
+  for (const char* name : {"X", "V"}) {
+    RelationOptions rel;
+    rel.name = rel.band = name;
+    fit.relations.push_back(rel);
+  }
+  const StarTable coefficients = mock_coefficients(s);
+  const FitResult r = run_fit(fit, mock_calibrator_catalog(s), &coefficients);
+  ASSERT_TRUE(r.joint.has_value());
+  const JointResult& j = *r.joint;
+  ASSERT_GE(j.layout.outlier_width, 0);
+  EXPECT_EQ(j.settings.params[static_cast<std::size_t>(j.layout.outlier_width)].mode,
+            ParamMode::kFixed);
+  EXPECT_TRUE(j.solution.usable);
+  EXPECT_TRUE(j.solution.covariance_ok);
+}
+
 // Mock catalogs with known truth (simulate/mock_catalog.hpp): a Wesenheit-like relation and
 // V- and K-like ones of the same 300 stars, their scatter correlated 0.8, with every
 // contamination (3% grey blends, 3% parallax outliers, [Fe/H] errors of 0.08 dex, 15%
