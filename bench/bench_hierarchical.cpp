@@ -90,7 +90,7 @@ int main(int argc, char** argv) {
     return 1;
   }
   const HierarchicalValue at_optimum =
-      hierarchical_value(data, rr.settings, rr.layout, rr.solution.theta);
+      hierarchical_value(data, rr.settings, rr.layout, rr.likelihood_optimum());
   const double fit_nll = 0.5 * rr.neg2_log_likelihood;
   if (!(std::abs(at_optimum.neg_log_likelihood - fit_nll) <= 1e-9 * std::abs(fit_nll))) {
     std::fprintf(
@@ -140,7 +140,7 @@ int main(int argc, char** argv) {
     // name, value, mode, d(-ln L)/d(solver coordinate), and the prior's centre and width
     // (used only when the mode is "prior": blend_scale_mag's by default).
     std::printf("param %s %.17g %s %.17g %.17g %.17g\n",
-                rr.layout.names[static_cast<std::size_t>(j)].c_str(), rr.solution.theta[j],
+                rr.layout.names[static_cast<std::size_t>(j)].c_str(), rr.likelihood_optimum()[j],
                 std::string(kParamModeNames.name(p.mode)).c_str(), at_optimum.gradient[j], p.value,
                 p.prior_sigma);
   }
@@ -155,9 +155,9 @@ int main(int argc, char** argv) {
       resamples, static_cast<std::size_t>(data.parallax.size()),
       [&](const std::vector<Eigen::Index>& idx) { return data.take(idx, {}, {}); },
       [&](const FitData& sample) {
-        return solve_fit(sample, relaxed, rr.layout, rr.solution.theta);
+        return solve_fit(sample, relaxed, rr.layout, rr.likelihood_optimum());
       },
-      [&] { hierarchical_value(data, rr.settings, rr.layout, rr.solution.theta); });
+      [&] { hierarchical_value(data, rr.settings, rr.layout, rr.likelihood_optimum()); });
   for (const char* name : {"alpha", "beta", "gamma", "parallax_offset_mas", "sigma_int"})
     std::printf("bootstrap_error %s %.6g\n", name, boot.relations[0].bootstrap_error(name));
   return 0;

@@ -61,7 +61,7 @@ int main(int argc, char** argv) {
   const JointLayout& L = jr.layout;
   const JointData& d = jr.data;
   const JointHierarchicalValue at_optimum =
-      joint_hierarchical_value(d, jr.settings, L, jr.solution.theta);
+      joint_hierarchical_value(d, jr.settings, L, jr.likelihood_optimum());
   const double fit_nll = 0.5 * jr.neg2_log_likelihood;
   if (!(std::abs(at_optimum.neg_log_likelihood - fit_nll) <= 1e-9 * std::abs(fit_nll))) {
     std::fprintf(
@@ -119,7 +119,7 @@ int main(int argc, char** argv) {
     // name, value, mode, d(-ln L)/d(solver coordinate), and the prior's centre and width
     // (used only when the mode is "prior").
     std::printf("param %s %.17g %s %.17g %.17g %.17g\n",
-                L.names[static_cast<std::size_t>(j)].c_str(), jr.solution.theta[j],
+                L.names[static_cast<std::size_t>(j)].c_str(), jr.likelihood_optimum()[j],
                 std::string(kParamModeNames.name(p.mode)).c_str(), at_optimum.gradient[j], p.value,
                 p.prior_sigma);
   }
@@ -132,8 +132,8 @@ int main(int argc, char** argv) {
   Eigen::MatrixXd covariance;
   std::vector<std::string> undetermined;
   std::shared_ptr<const Eigen::MatrixXd> metric;
-  joint_hierarchical_covariance(d, jr.settings, L, jr.solution.theta, covariance, undetermined,
-                                &metric);
+  joint_hierarchical_covariance(d, jr.settings, L, jr.likelihood_optimum(), covariance,
+                                undetermined, &metric);
   relaxed.preconditioner = metric;
   relaxed.function_tolerance = 1e-9;
   relaxed.parameter_tolerance = 1e-8;
@@ -141,9 +141,9 @@ int main(int argc, char** argv) {
       resamples, static_cast<std::size_t>(d.stars()),
       [&](const std::vector<int>& stars) { return d.take_counted(stars); },
       [&](const JointData& sample) {
-        return solve_joint_hierarchical(sample, relaxed, L, jr.solution.theta);
+        return solve_joint_hierarchical(sample, relaxed, L, jr.likelihood_optimum());
       },
-      [&] { joint_hierarchical_value(d, jr.settings, L, jr.solution.theta); });
+      [&] { joint_hierarchical_value(d, jr.settings, L, jr.likelihood_optimum()); });
   const Eigen::MatrixXd& bs = boot.joint->bootstrap;
   for (const char* name : {"alpha_X", "alpha_V", "alpha_I", "sigma_int_V", "scatter_correlation",
                            "parallax_offset_mas"}) {

@@ -95,6 +95,9 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   app.add_option("--outlier-parallax-law", choice.outlier_parallax_law,
                  "outlier component's parallax law: gaussian or rising (default: the fit's)");
+  app.add_option("--scatter-correction", choice.scatter_correction,
+                 "the scatters' estimate: restricted (maximum likelihood with the location "
+                 "parameters integrated out) or none (maximum likelihood; default: the fit's)");
   app.add_option("--outlier-parallax-factor", study.fit.hierarchical.outlier_parallax_factor,
                  "outlier component's parallax error x this")
       ->capture_default_str();

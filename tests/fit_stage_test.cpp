@@ -14,8 +14,10 @@
 
 #include "mock_samples.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/core/random.hpp"
 #include "rungcal/deredden/deredden.hpp"
 #include "rungcal/ingest/ingest.hpp"
+#include "rungcal/plfit/fit_parts.hpp"
 #include "rungcal/plfit/fit_stage.hpp"
 #include "rungcal/table/fit_residuals_schema.hpp"
 #include "rungcal/table/fits_io.hpp"
@@ -248,6 +250,23 @@ TEST(FitStage, OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldWithAWarning) {
   EXPECT_TRUE(said);
   EXPECT_DOUBLE_EQ(rr.parameter("outlier_width_mag"), 1.0);
   EXPECT_TRUE(std::isfinite(rr.error("alpha")));
+}
+
+// The bootstrap error is half the resamples' 16-84 percentile width: for a Gaussian it is the
+// standard deviation, (Phi^-1(0.84) - Phi^-1(0.16)) / 2 = 0.994458 of it (scipy.stats.norm.ppf),
+// and a few strays, which inflate the standard deviation, leave it be.
+TEST(FitStage, BootstrapErrorIsTheHalfWidthOfTheCentral68PercentInterval) {
+  std::vector<double> ramp;
+  for (int k = 0; k <= 100; ++k) ramp.push_back(k);
+  EXPECT_DOUBLE_EQ(fit_parts::bootstrap_spread(ramp), 34.0);
+  Random rng(5);
+  std::vector<double> gauss;
+  for (int k = 0; k < 40000; ++k) gauss.push_back(rng.normal());
+  EXPECT_NEAR(fit_parts::bootstrap_spread(gauss), 0.994458, 0.015);
+  for (int k = 0; k < 200; ++k) gauss.push_back(50.0);  // 0.5% strays
+  EXPECT_NEAR(fit_parts::bootstrap_spread(gauss), 1.0, 0.03);
+  EXPECT_GT(fit_parts::standard_deviation(gauss), 3.0);
+  EXPECT_TRUE(std::isnan(fit_parts::bootstrap_spread({1.0})));
 }
 
 TEST(FitStage, BootstrapIsTheSameForAnyThreadCount) {

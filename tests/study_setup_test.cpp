@@ -145,6 +145,13 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   apply_study_choices(c, study);
   EXPECT_EQ(study.fit.hierarchical.outlier_parallax, OutlierParallaxLaw::kGaussian);
   c = {};
+  c.scatter_correction = "unbiased";
+  EXPECT_EQ(refusal(c),
+            "--scatter-correction [config_value] 'unbiased' is not one of: none, restricted");
+  c.scatter_correction = "none";
+  apply_study_choices(c, study);
+  EXPECT_EQ(study.fit.hierarchical.scatter_correction, ScatterCorrection::kNone);
+  c = {};
   c.space = "sky";
   EXPECT_EQ(refusal(c).rfind("--space [config_value] 'sky' is not one of: ", 0), 0U);
 }

@@ -106,6 +106,11 @@ Eigen::MatrixXd parallel_bootstrap(const FitOptions& o, int P, const std::string
   return out;
 }
 
+void shift_resamples(const Eigen::VectorXd& shift, Eigen::MatrixXd& samples) {
+  if (shift.size() != samples.cols()) return;
+  samples.rowwise() += shift.transpose();  // NaN (failed or undrawn) entries stay NaN
+}
+
 void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data) {
   if (o.bootstrap <= 0) return;
   // Resamples start at the optimum; 1e-9 in the cost and 1e-8 in the step are far below
@@ -149,6 +154,7 @@ void run_bootstrap(const FitOptions& o, RelationResult& rr, const FitData& data)
   };
   rr.bootstrap =
       parallel_bootstrap(o, rr.layout.size, rr.relation.name, solve, rr.bootstrap_failed);
+  shift_resamples(rr.restricted_shift, rr.bootstrap);
 }
 
 double percentile(std::vector<double> v, double q) {
@@ -170,11 +176,20 @@ double standard_deviation(const std::vector<double>& v) {
   return std::sqrt(s / static_cast<double>(v.size() - 1));
 }
 
-std::vector<double> bootstrap_column(const RelationResult& rr, int j) {
+double bootstrap_spread(const std::vector<double>& v) {
+  if (v.size() < 2) return std::numeric_limits<double>::quiet_NaN();
+  return 0.5 * (percentile(v, 0.84) - percentile(v, 0.16));
+}
+
+std::vector<double> bootstrap_column(const Eigen::MatrixXd& samples, int j) {
   std::vector<double> v;
-  for (Eigen::Index b = 0; b < rr.bootstrap.rows(); ++b)
-    if (std::isfinite(rr.bootstrap(b, j))) v.push_back(rr.bootstrap(b, j));
+  for (Eigen::Index b = 0; b < samples.rows(); ++b)
+    if (std::isfinite(samples(b, j))) v.push_back(samples(b, j));
   return v;
+}
+
+std::vector<double> bootstrap_column(const RelationResult& rr, int j) {
+  return bootstrap_column(rr.bootstrap, j);
 }
 
 // Every bootstrap resample's parameters, one row per resample and parameter (NaN for a

@@ -134,6 +134,10 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   std::shared_ptr<const Eigen::MatrixXd> metric;
   out.covariance_ok = joint_hierarchical_covariance(jr.data, js, L, sol.theta, out.covariance,
                                                     jr.undetermined, &metric);
+  if (out.covariance_ok && js.hierarchical.scatter_correction == ScatterCorrection::kRestricted) {
+    out.theta = joint_hierarchical_restricted(jr.data, js, L, sol.theta, out.covariance);
+    jr.restricted_shift = out.theta - sol.theta;
+  }
   if (!out.covariance_ok)
     jr.warnings.push_back("the joint fit's Hessian is not positive definite: no covariance");
   for (const auto& name : jr.undetermined)
@@ -142,7 +146,7 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
       static_cast<int>(std::count_if(js.params.begin(), js.params.end(), [](const ParamSpec& p) {
         return p.mode != ParamMode::kFixed;
       }));
-  const Eigen::ArrayXd q = joint_hierarchical_membership(jr.data, js, L, sol.theta);
+  const Eigen::ArrayXd q = joint_hierarchical_membership(jr.data, js, L, out.theta);
   jr.membership.assign(q.data(), q.data() + q.size());
   // Resamples start at the optimum under the full sample's metric; 1e-9 in the cost and
   // 1e-8 in the step are far below their spread.
@@ -163,6 +167,7 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
         return s.theta;
       },
       true);
+  shift_resamples(jr.restricted_shift, jr.bootstrap);
   for (const auto& w : jr.warnings) spdlog::warn("joint fit: {}", w);
   return jr;
 }

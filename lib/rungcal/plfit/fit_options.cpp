@@ -290,6 +290,8 @@ FitOptions fit_options_from_file(const std::string& path) {
       f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
   o.hierarchical.outlier_parallax = choice_or(*f, "outlier_parallax_law", kOutlierParallaxLawNames,
                                               o.hierarchical.outlier_parallax);
+  o.hierarchical.scatter_correction = choice_or(*f, "scatter_correction", kScatterCorrectionNames,
+                                                o.hierarchical.scatter_correction);
   o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
   o.hierarchical.blends =
       choice_or(*f, "blend_component", kBlendComponentNames, o.hierarchical.blends);

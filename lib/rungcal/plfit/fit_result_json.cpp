@@ -140,6 +140,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                                     {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
                                     {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor},
                                     {"outlier_parallax_law", std::string(kOutlierParallaxLawNames.name(o.hierarchical.outlier_parallax))},
+                                    {"scatter_correction", std::string(kScatterCorrectionNames.name(o.hierarchical.scatter_correction))},
                                     {"blend_component", std::string(kBlendComponentNames.name(o.hierarchical.blends))},
                                     {"blend_min_mag", o.hierarchical.blend_min_mag},
                                     {"blend_fraction", param_json(o.blend_fraction)},
@@ -261,14 +262,12 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     j[fit_key::kParameterNames] = joint->layout.names;
     for (int p = 0; p < joint->layout.size; ++p) {
       double e = js.covariance_ok ? std::sqrt(std::max(0.0, js.covariance(p, p))) : std::nan("");
-      std::vector<double> boot;
-      for (Eigen::Index b = 0; b < joint->bootstrap.rows(); ++b)
-        if (std::isfinite(joint->bootstrap(b, p))) boot.push_back(joint->bootstrap(b, p));
+      const std::vector<double> boot = bootstrap_column(joint->bootstrap, p);
       FitParameterRecord record;
       record.name = joint->layout.names[p];
       record.value = js.theta[p];
       record.error = e;
-      record.bootstrap_error = standard_deviation(boot);
+      record.bootstrap_error = bootstrap_spread(boot);
       set_percentiles(record, boot);
       if (!joint->settings.params.empty())  // the GLS fit has no per-parameter settings
         record_setting(record, joint->settings.params[static_cast<std::size_t>(p)]);
@@ -326,10 +325,7 @@ std::string fit_summary(const FitResult& result) {
       double e = j.solution.covariance_ok ? std::sqrt(std::max(0.0, j.solution.covariance(p, p)))
                                           : std::nan("");
       out += fmt::format("  {:<22} {:>10.4f} +- {:.4f}", j.layout.names[p], j.solution.theta[p], e);
-      std::vector<double> boot;
-      for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b)
-        if (std::isfinite(j.bootstrap(b, p))) boot.push_back(j.bootstrap(b, p));
-      double be = standard_deviation(boot);
+      const double be = bootstrap_spread(bootstrap_column(j.bootstrap, p));
       if (std::isfinite(be)) out += fmt::format("  (bootstrap {:.4f})", be);
       out += "\n";
     }

@@ -47,7 +47,7 @@ void fill_star_residuals(RelationResult& rr, const Calibrators& c) {
   rr.chi2 = res.r.square().sum();
   rr.neg2_log_likelihood =
       rr.settings.space == FitSpace::kHierarchical
-          ? 2.0 * hierarchical_value(c.data, rr.settings, rr.layout, rr.solution.theta)
+          ? 2.0 * hierarchical_value(c.data, rr.settings, rr.layout, rr.likelihood_optimum())
                       .neg_log_likelihood
           : (res.r.square() + (2.0 * std::numbers::pi * res.s2).log()).sum();
   rr.n_used = static_cast<int>(order.size());
@@ -70,7 +70,7 @@ double RelationResult::error(const std::string& name) const {
   return std::sqrt(std::max(0.0, covariance(j, j)));
 }
 double RelationResult::bootstrap_error(const std::string& name) const {
-  return standard_deviation(bootstrap_column(*this, index_of(layout, name)));
+  return bootstrap_spread(bootstrap_column(*this, index_of(layout, name)));
 }
 
 FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* coefficients) {
@@ -185,6 +185,13 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
       rr.covariance_ok =
           hierarchical_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance,
                                   rr.undetermined, &rr.settings.preconditioner);
+      if (rr.covariance_ok &&
+          rr.settings.hierarchical.scatter_correction == ScatterCorrection::kRestricted) {
+        const Eigen::VectorXd moved =
+            hierarchical_restricted(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);
+        rr.restricted_shift = moved - rr.solution.theta;
+        rr.solution.theta = moved;
+      }
     } else {
       rr.covariance_ok =
           fit_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);

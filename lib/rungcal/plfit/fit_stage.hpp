@@ -202,14 +202,25 @@ struct RelationResult {
   std::string covariance_method = "hessian";
   Eigen::MatrixXd bootstrap;  // resamples x parameters
   int bootstrap_failed = 0;
+  // Restricted maximum likelihood's move of the parameters from the likelihood's optimum
+  // (ScatterCorrection::kRestricted; empty otherwise). Resamples are solved by maximum
+  // likelihood and moved by the same amount, so the bootstrap describes the reported
+  // estimator.
+  Eigen::VectorXd restricted_shift;
+  // The likelihood's own optimum (solution.theta less restricted_shift).
+  Eigen::VectorXd likelihood_optimum() const {
+    return restricted_shift.size() ? Eigen::VectorXd(solution.theta - restricted_shift)
+                                   : solution.theta;
+  }
   std::vector<StarOutcome> stars;
   std::vector<std::string> undetermined;  // free parameters the data could not determine (no error)
   double chi2 = 0, neg2_log_likelihood = 0, aic = 0, bic = 0;
   int dof = 0, n_used = 0, n_clipped = 0, n_free = 0;
   std::vector<std::string> warnings;
   double parameter(const std::string& name) const;
-  double error(const std::string& name) const;            // from the covariance
-  double bootstrap_error(const std::string& name) const;  // standard deviation of the resamples
+  double error(const std::string& name) const;  // from the covariance
+  // Half the resamples' 16-84 percentile width (fit_parts.hpp, bootstrap_spread).
+  double bootstrap_error(const std::string& name) const;
 };
 
 // The relations fitted together (FitOptions::joint): every kind of calibrator, each
@@ -224,6 +235,11 @@ struct JointResult {
   int n_free = 0;             // parameters the joint fit estimated
   Eigen::MatrixXd bootstrap;  // resamples x parameters (NaN rows: failed resamples)
   int bootstrap_failed = 0;
+  Eigen::VectorXd restricted_shift;  // as RelationResult's
+  Eigen::VectorXd likelihood_optimum() const {
+    return restricted_shift.size() ? Eigen::VectorXd(solution.theta - restricted_shift)
+                                   : solution.theta;
+  }
   std::vector<std::string> warnings;
   // Hierarchical only: -2 ln L at the optimum, each star's membership probability (data
   // order), and the free parameters on an edge of their domain (no error).

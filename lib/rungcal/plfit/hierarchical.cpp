@@ -301,6 +301,18 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
                                  preconditioner);
 }
 
+Eigen::VectorXd hierarchical_restricted(const FitData& data, const FitSettings& settings,
+                                        const ParameterLayout& layout, const Eigen::VectorXd& theta,
+                                        const Eigen::MatrixXd& covariance) {
+  std::vector<int> location;
+  for (int j : {layout.alpha, layout.beta, layout.beta_long, layout.gamma, layout.offset})
+    if (j >= 0) location.push_back(j);
+  if (layout.anchor0 >= 0)
+    for (int g = 0; g < settings.terms.n_anchors; ++g) location.push_back(layout.anchor0 + g);
+  Evaluator e(data, settings, layout);
+  return restricted_step(e, scales_of(layout), location, {layout.sigma}, theta, covariance);
+}
+
 Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings,
                                        const ParameterLayout& layout,
                                        const Eigen::VectorXd& theta) {

@@ -59,6 +59,14 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
                              Eigen::MatrixXd& covariance, std::vector<std::string>& undetermined,
                              std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr);
 
+// theta with sigma_int by restricted maximum likelihood (ScatterCorrection::kRestricted,
+// likelihood_solver.hpp: restricted_step): the location parameters are alpha, beta,
+// beta_long, gamma, the offset and the groups' moduli; `covariance` is
+// hierarchical_covariance's at theta.
+Eigen::VectorXd hierarchical_restricted(const FitData& data, const FitSettings& settings,
+                                        const ParameterLayout& layout, const Eigen::VectorXd& theta,
+                                        const Eigen::MatrixXd& covariance);
+
 // Per star (parallax, known, anchor order): the probability of being a member, neither an
 // outlier nor a blend.
 Eigen::ArrayXd hierarchical_membership(const FitData& data, const FitSettings& settings,

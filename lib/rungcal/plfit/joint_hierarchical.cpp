@@ -466,6 +466,22 @@ bool joint_hierarchical_covariance(const JointData& data, const FitSettings& set
                                  preconditioner);
 }
 
+Eigen::VectorXd joint_hierarchical_restricted(const JointData& data, const FitSettings& settings,
+                                              const JointLayout& layout,
+                                              const Eigen::VectorXd& theta,
+                                              const Eigen::MatrixXd& covariance) {
+  std::vector<int> location;
+  for (const std::vector<int>* per : {&layout.alpha, &layout.beta, &layout.gamma})
+    for (int j : *per)
+      if (j >= 0) location.push_back(j);
+  if (layout.offset >= 0) location.push_back(layout.offset);
+  for (int g = 0; g < layout.n_anchors; ++g) location.push_back(layout.anchor0 + g);
+  std::vector<int> scatter = layout.sigma;
+  if (layout.correlation >= 0) scatter.push_back(layout.correlation);
+  JointEvaluator e(data, settings, layout);
+  return restricted_step(e, scales_of(layout), location, scatter, theta, covariance);
+}
+
 Eigen::ArrayXd joint_hierarchical_membership(const JointData& data, const FitSettings& settings,
                                              const JointLayout& layout,
                                              const Eigen::VectorXd& theta) {

@@ -62,6 +62,14 @@ bool joint_hierarchical_covariance(
     std::vector<std::string>& undetermined,
     std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr);
 
+// theta with the scatters and their correlation by restricted maximum likelihood
+// (hierarchical_restricted): the location parameters are every relation's alpha, beta and
+// gamma, the offset and the groups' moduli.
+Eigen::VectorXd joint_hierarchical_restricted(const JointData& data, const FitSettings& settings,
+                                              const JointLayout& layout,
+                                              const Eigen::VectorXd& theta,
+                                              const Eigen::MatrixXd& covariance);
+
 // Per star: the probability of being a member, neither an outlier nor a blend.
 Eigen::ArrayXd joint_hierarchical_membership(const JointData& data, const FitSettings& settings,
                                              const JointLayout& layout,

@@ -251,6 +251,61 @@ FitSolution minimise(Objective& e, const std::vector<Scale>& scales, const FitSe
   return sol;
 }
 
+Eigen::VectorXd restricted_step(Objective& e, const std::vector<Scale>& scales,
+                                const std::vector<int>& location, const std::vector<int>& scatter,
+                                const Eigen::VectorXd& theta, const Eigen::MatrixXd& covariance) {
+  auto measured = [&](int j) {
+    const double v = covariance(j, j);
+    return std::isfinite(v) && v > 0;
+  };
+  std::vector<int> loc, sca, moved;
+  for (int j : location)
+    if (measured(j)) loc.push_back(j);
+  for (int j : scatter)
+    if (measured(j)) sca.push_back(j);
+  for (Eigen::Index j = 0; j < theta.size(); ++j)
+    if (measured(static_cast<int>(j)) && covariance.row(j).allFinite())
+      moved.push_back(static_cast<int>(j));
+  for (std::vector<int>* v : {&loc, &sca}) {  // a shared slope is listed once per relation
+    std::sort(v->begin(), v->end());
+    v->erase(std::unique(v->begin(), v->end()), v->end());
+  }
+  if (loc.empty() || sca.empty()) return theta;
+  const Eigen::VectorXd x = internal_of(scales, theta);
+  auto half_log_det = [&](const Eigen::VectorXd& at) {
+    Eigen::LLT<Eigen::MatrixXd> llt(internal_hessian(e, at, loc));
+    if (llt.info() != Eigen::Success) return std::numeric_limits<double>::quiet_NaN();
+    return llt.matrixLLT().diagonal().array().log().sum();  // 1/2 ln det = sum ln L_ii
+  };
+  // The penalty's gradient along each scatter, in the solver's coordinates (a log scale for
+  // a scatter: a step of 0.01 is 1% of it, far below its error at any useful N).
+  const double h = 1e-2;
+  Eigen::VectorXd gradient(static_cast<Eigen::Index>(sca.size()));
+  for (std::size_t v = 0; v < sca.size(); ++v) {
+    Eigen::VectorXd up = x, down = x;
+    up[sca[v]] += h, down[sca[v]] -= h;
+    gradient[static_cast<Eigen::Index>(v)] = (half_log_det(up) - half_log_det(down)) / (2 * h);
+  }
+  if (!gradient.allFinite()) return theta;
+  // dx = -C g with C the inverse Hessian in the solver's coordinates.
+  auto internal_cov = [&](int i, int j) {
+    return covariance(i, j) / (slope_of(scales[static_cast<std::size_t>(i)], theta[i]) *
+                               slope_of(scales[static_cast<std::size_t>(j)], theta[j]));
+  };
+  Eigen::VectorXd moved_x = x;
+  for (int a : moved) {
+    double dx = 0;
+    for (std::size_t v = 0; v < sca.size(); ++v)
+      dx -= internal_cov(a, sca[v]) * gradient[static_cast<Eigen::Index>(v)];
+    moved_x[a] += dx;
+  }
+  Eigen::VectorXd out = external_of(scales, moved_x);
+  for (Eigen::Index j = 0; j < out.size(); ++j)
+    if (std::find(moved.begin(), moved.end(), static_cast<int>(j)) == moved.end())
+      out[j] = theta[j];
+  return out.allFinite() ? out : theta;
+}
+
 bool covariance_from_hessian(Objective& e, const std::vector<Scale>& scales,
                              const std::vector<int>& measured, const std::vector<int>& free,
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,

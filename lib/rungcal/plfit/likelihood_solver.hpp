@@ -71,4 +71,17 @@ bool covariance_from_hessian(Objective& f, const std::vector<Scale>& scales,
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
                              std::shared_ptr<const Eigen::MatrixXd>* preconditioner);
 
+// Restricted maximum likelihood's scatters (ScatterCorrection::kRestricted, model.hpp): one
+// Newton step on -ln L + 1/2 ln det H_LL from the maximum-likelihood optimum theta, where
+// H_LL is the Hessian of -ln L over `location` in the solver's coordinates. The step's
+// gradient is the penalty's derivative along each of `scatter` (central differences of
+// ln det H_LL, each H_LL from the analytic gradient); its metric is the inverse Hessian,
+// `covariance` (reported parameters, as covariance_from_hessian gives it), so every measured
+// parameter moves with the scatters as their correlations say. Parameters whose covariance
+// is not finite and positive are neither location, scatter nor moved. Returns theta moved;
+// theta itself when no scatter or location parameter is measured or a step is not finite.
+Eigen::VectorXd restricted_step(Objective& f, const std::vector<Scale>& scales,
+                                const std::vector<int>& location, const std::vector<int>& scatter,
+                                const Eigen::VectorXd& theta, const Eigen::MatrixXd& covariance);
+
 }  // namespace rungcal::hier

@@ -12,6 +12,7 @@
 #include "rungcal/core/json_io.hpp"
 #include "rungcal/core/parallel.hpp"
 #include "rungcal/core/progress.hpp"
+#include "rungcal/plfit/fit_parts.hpp"
 
 namespace rungcal {
 namespace {
@@ -43,15 +44,15 @@ void record_joint(const JointResult& j, const std::vector<std::string>& paramete
     const auto at = std::find(j.layout.names.begin(), j.layout.names.end(), name);
     if (at == j.layout.names.end() || !d.ok) {
       d.estimate.push_back(kNaN), d.error.push_back(kNaN), d.bootstrap_error.push_back(kNaN);
+      d.bootstrap_sd.push_back(kNaN);
       continue;
     }
     const auto p = static_cast<Eigen::Index>(at - j.layout.names.begin());
     d.estimate.push_back(j.solution.theta[p]);
     d.error.push_back(std::sqrt(j.solution.covariance(p, p)));
-    std::vector<double> boot;
-    for (Eigen::Index b = 0; b < j.bootstrap.rows(); ++b)
-      if (std::isfinite(j.bootstrap(b, p))) boot.push_back(j.bootstrap(b, p));
-    d.bootstrap_error.push_back(sd_of(boot));
+    const std::vector<double> boot = fit_parts::bootstrap_column(j.bootstrap, static_cast<int>(p));
+    d.bootstrap_error.push_back(fit_parts::bootstrap_spread(boot));
+    d.bootstrap_sd.push_back(sd_of(boot));
   }
 }
 
@@ -110,6 +111,9 @@ StudyResult run_study(const StudyOptions& o) {
           d.estimate.push_back(has ? rr.parameter(name) : kNaN);
           d.error.push_back(has ? rr.error(name) : kNaN);
           d.bootstrap_error.push_back(has ? rr.bootstrap_error(name) : kNaN);
+          d.bootstrap_sd.push_back(
+              has ? sd_of(fit_parts::bootstrap_column(rr, fit_parts::index_of(rr.layout, name)))
+                  : kNaN);
         }
       }
     } catch (const std::exception& e) {
@@ -143,7 +147,7 @@ StudyResult summarise_study(nlohmann::json header, std::vector<StudyMock> mocks)
     StudyRow row;
     row.parameter = parameters[j];
     row.truth = truth.value(row.parameter, kNaN);
-    std::vector<double> est, err, boot;
+    std::vector<double> est, err, boot, boot_sd;
     int covered = 0, boot_covered = 0;
     for (const StudyMock& d : mocks) {
       if (!d.ok || !std::isfinite(d.estimate[j]) || !std::isfinite(d.error[j])) continue;
@@ -154,6 +158,8 @@ StudyResult summarise_study(nlohmann::json header, std::vector<StudyMock> mocks)
         boot.push_back(d.bootstrap_error[j]);
         boot_covered += std::abs(d.estimate[j] - row.truth) <= d.bootstrap_error[j] ? 1 : 0;
       }
+      if (j < d.bootstrap_sd.size() && std::isfinite(d.bootstrap_sd[j]))
+        boot_sd.push_back(d.bootstrap_sd[j]);
     }
     row.used = static_cast<int>(est.size());
     row.mean_estimate = mean_of(est);
@@ -163,6 +169,7 @@ StudyResult summarise_study(nlohmann::json header, std::vector<StudyMock> mocks)
     row.bootstrap_coverage =
         boot.empty() ? kNaN : static_cast<double>(boot_covered) / static_cast<double>(boot.size());
     row.bootstrap_to_covariance = boot.empty() ? kNaN : mean_of(boot) / row.mean_error;
+    row.bootstrap_sd_to_covariance = boot_sd.empty() ? kNaN : mean_of(boot_sd) / row.mean_error;
     row.spread_to_error = sd_of(est) / row.mean_error;
     row.bias_error = row.spread_to_error / std::sqrt(static_cast<double>(std::max(row.used, 1)));
     out.rows.push_back(row);
@@ -189,6 +196,7 @@ nlohmann::json StudyResult::to_json() const {
                                {"coverage_68", num(r.coverage)},
                                {"bootstrap_coverage_68", num(r.bootstrap_coverage)},
                                {"bootstrap_to_covariance", num(r.bootstrap_to_covariance)},
+                               {"bootstrap_sd_to_covariance", num(r.bootstrap_sd_to_covariance)},
                                {"spread_to_error", num(r.spread_to_error)},
                                {"used", r.used}});
   auto numbers = [&](const std::vector<double>& v) {
@@ -202,7 +210,8 @@ nlohmann::json StudyResult::to_json() const {
                         {"ok", d.ok},
                         {"estimate", numbers(d.estimate)},
                         {"error", numbers(d.error)},
-                        {"bootstrap_error", numbers(d.bootstrap_error)}};
+                        {"bootstrap_error", numbers(d.bootstrap_error)},
+                        {"bootstrap_sd", numbers(d.bootstrap_sd)}};
     if (!d.ok) m["failure"] = d.failure;
     j["per_mock"].push_back(std::move(m));
   }
@@ -213,14 +222,16 @@ std::string study_table(const StudyResult& r) {
   std::string out = fmt::format("{} mocks, {} failed\n", r.mocks, r.failed);
   for (const auto& [why, seeds] : r.failures)
     out += fmt::format("  failed ({}): seeds {}\n", why, fmt::join(seeds, ", "));
-  out += fmt::format("{:<22}{:>10}{:>11}{:>10}{:>14}{:>9}{:>10}{:>10}{:>9}\n", "parameter", "truth",
-                     "mean", "error", "bias/error", "cov68", "boot68", "boot/cov", "sd/err");
+  out += fmt::format("{:<22}{:>10}{:>11}{:>10}{:>14}{:>9}{:>10}{:>10}{:>9}{:>10}\n", "parameter",
+                     "truth", "mean", "error", "bias/error", "cov68", "boot68", "boot/cov",
+                     "sd/err", "bootsd/cov");
   for (const auto& row : r.rows)
     out += fmt::format(
-        "{:<22}{:>10.4f}{:>11.4f}{:>10.4f}{:>8.2f}+-{:<4.2f}{:>9.2f}{:>10.2f}{:>10.2f}{:>9.2f}\n",
+        "{:<22}{:>10.4f}{:>11.4f}{:>10.4f}{:>8.2f}+-{:<4.2f}{:>9.2f}{:>10.2f}{:>10.2f}{:>9.2f}"
+        "{:>10.2f}\n",
         row.parameter, row.truth, row.mean_estimate, row.mean_error, row.bias_in_errors,
         row.bias_error, row.coverage, row.bootstrap_coverage, row.bootstrap_to_covariance,
-        row.spread_to_error);
+        row.spread_to_error, row.bootstrap_sd_to_covariance);
   return out;
 }
 

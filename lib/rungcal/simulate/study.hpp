@@ -40,9 +40,12 @@ struct StudyRow {
   double coverage = 0;                 // share with |estimate - truth| <= covariance error
   double bootstrap_coverage = 0;       // ... <= bootstrap error (NaN without a bootstrap)
   double bootstrap_to_covariance = 0;  // mean bootstrap error / mean covariance error
-  double spread_to_error = 0;          // sd of the estimates / mean error
-  double bias_error = 0;  // the bias's own uncertainty, in errors: sd / mean error / sqrt(n)
-  int used = 0;           // mocks counted
+  // Mean standard deviation of the resamples / mean covariance error: above
+  // bootstrap_to_covariance when a few resamples stray (fit_parts.hpp, bootstrap_spread).
+  double bootstrap_sd_to_covariance = 0;
+  double spread_to_error = 0;  // sd of the estimates / mean error
+  double bias_error = 0;       // the bias's own uncertainty, in errors: sd / mean error / sqrt(n)
+  int used = 0;                // mocks counted
 };
 
 // One mock's fit: what the summary is made of. Kept per mock so that runs on different
@@ -53,6 +56,9 @@ struct StudyMock {
   std::string failure;  // why the mock does not count, when it does not
   // Per parameter of the study, in its order; NaN where the fit has no such value.
   std::vector<double> estimate, error, bootstrap_error;
+  // The resamples' standard deviation (NaN without a bootstrap, or in a run written before
+  // 2026-12-04).
+  std::vector<double> bootstrap_sd;
 };
 
 struct StudyResult {

@@ -53,6 +53,9 @@ StudyMock read_mock(const nlohmann::json& m, std::size_t parameters, const std::
   d.estimate = numbers("estimate");
   d.error = numbers("error");
   d.bootstrap_error = numbers("bootstrap_error");
+  d.bootstrap_sd = m.contains("bootstrap_sd")
+                       ? numbers("bootstrap_sd")
+                       : std::vector<double>(n, std::numeric_limits<double>::quiet_NaN());
   return d;
 }
 

@@ -115,6 +115,9 @@ void apply_study_choices(const StudyChoices& c, StudyOptions& study) {
   if (!c.outlier_parallax_law.empty())
     fit.hierarchical.outlier_parallax =
         parse_choice(kOutlierParallaxLawNames, c.outlier_parallax_law, "--outlier-parallax-law");
+  if (!c.scatter_correction.empty())
+    fit.hierarchical.scatter_correction =
+        parse_choice(kScatterCorrectionNames, c.scatter_correction, "--scatter-correction");
   if (fit.space != FitSpace::kHierarchical) fit.loss = LossKind::kHuber;  // its documented default
   fit.input_path = "(mock)";
   if (c.free_outlier_shape) fit.outlier_shift.mode = fit.outlier_width.mode = ParamMode::kFree;
