@@ -190,6 +190,13 @@ struct StarOutcome {
                                                                  // being an outlier
 };
 
+// theta less restricted maximum likelihood's shift (none when the shift is empty): the
+// likelihood's own optimum (RelationResult::restricted_shift).
+inline Eigen::VectorXd less_restricted_shift(const Eigen::VectorXd& theta,
+                                             const Eigen::VectorXd& shift) {
+  return shift.size() ? Eigen::VectorXd(theta - shift) : theta;
+}
+
 struct RelationResult {
   RelationOptions relation;
   ParameterLayout layout;
@@ -209,8 +216,7 @@ struct RelationResult {
   Eigen::VectorXd restricted_shift;
   // The likelihood's own optimum (solution.theta less restricted_shift).
   Eigen::VectorXd likelihood_optimum() const {
-    return restricted_shift.size() ? Eigen::VectorXd(solution.theta - restricted_shift)
-                                   : solution.theta;
+    return less_restricted_shift(solution.theta, restricted_shift);
   }
   std::vector<StarOutcome> stars;
   std::vector<std::string> undetermined;  // free parameters the data could not determine (no error)
@@ -237,8 +243,7 @@ struct JointResult {
   int bootstrap_failed = 0;
   Eigen::VectorXd restricted_shift;  // as RelationResult's
   Eigen::VectorXd likelihood_optimum() const {
-    return restricted_shift.size() ? Eigen::VectorXd(solution.theta - restricted_shift)
-                                   : solution.theta;
+    return less_restricted_shift(solution.theta, restricted_shift);
   }
   std::vector<std::string> warnings;
   // Hierarchical only: -2 ln L at the optimum, each star's membership probability (data

@@ -292,17 +292,13 @@ Eigen::VectorXd restricted_step(Objective& e, const std::vector<Scale>& scales,
     return covariance(i, j) / (slope_of(scales[static_cast<std::size_t>(i)], theta[i]) *
                                slope_of(scales[static_cast<std::size_t>(j)], theta[j]));
   };
-  Eigen::VectorXd moved_x = x;
+  Eigen::VectorXd out = theta;
   for (int a : moved) {
     double dx = 0;
     for (std::size_t v = 0; v < sca.size(); ++v)
       dx -= internal_cov(a, sca[v]) * gradient[static_cast<Eigen::Index>(v)];
-    moved_x[a] += dx;
+    out[a] = to_external(scales[static_cast<std::size_t>(a)], x[a] + dx);
   }
-  Eigen::VectorXd out = external_of(scales, moved_x);
-  for (Eigen::Index j = 0; j < out.size(); ++j)
-    if (std::find(moved.begin(), moved.end(), static_cast<int>(j)) == moved.end())
-      out[j] = theta[j];
   return out.allFinite() ? out : theta;
 }
 

@@ -25,14 +25,6 @@ double mean_of(const std::vector<double>& v) {
   return v.empty() ? kNaN : s / static_cast<double>(v.size());
 }
 
-double sd_of(const std::vector<double>& v) {
-  if (v.size() < 2) return kNaN;
-  const double m = mean_of(v);
-  double s = 0;
-  for (double x : v) s += (x - m) * (x - m);
-  return std::sqrt(s / static_cast<double>(v.size() - 1));
-}
-
 // The joint fit's estimates, errors and bootstrap errors of the parameters asked for.
 void record_joint(const JointResult& j, const std::vector<std::string>& parameters, StudyMock& d) {
   d.ok = j.solution.usable && j.solution.covariance_ok;
@@ -52,7 +44,7 @@ void record_joint(const JointResult& j, const std::vector<std::string>& paramete
     d.error.push_back(std::sqrt(j.solution.covariance(p, p)));
     const std::vector<double> boot = fit_parts::bootstrap_column(j.bootstrap, static_cast<int>(p));
     d.bootstrap_error.push_back(fit_parts::bootstrap_spread(boot));
-    d.bootstrap_sd.push_back(sd_of(boot));
+    d.bootstrap_sd.push_back(fit_parts::standard_deviation(boot));
   }
 }
 
@@ -111,9 +103,9 @@ StudyResult run_study(const StudyOptions& o) {
           d.estimate.push_back(has ? rr.parameter(name) : kNaN);
           d.error.push_back(has ? rr.error(name) : kNaN);
           d.bootstrap_error.push_back(has ? rr.bootstrap_error(name) : kNaN);
-          d.bootstrap_sd.push_back(
-              has ? sd_of(fit_parts::bootstrap_column(rr, fit_parts::index_of(rr.layout, name)))
-                  : kNaN);
+          d.bootstrap_sd.push_back(has ? fit_parts::standard_deviation(fit_parts::bootstrap_column(
+                                             rr, fit_parts::index_of(rr.layout, name)))
+                                       : kNaN);
         }
       }
     } catch (const std::exception& e) {
@@ -170,7 +162,7 @@ StudyResult summarise_study(nlohmann::json header, std::vector<StudyMock> mocks)
         boot.empty() ? kNaN : static_cast<double>(boot_covered) / static_cast<double>(boot.size());
     row.bootstrap_to_covariance = boot.empty() ? kNaN : mean_of(boot) / row.mean_error;
     row.bootstrap_sd_to_covariance = boot_sd.empty() ? kNaN : mean_of(boot_sd) / row.mean_error;
-    row.spread_to_error = sd_of(est) / row.mean_error;
+    row.spread_to_error = fit_parts::standard_deviation(est) / row.mean_error;
     row.bias_error = row.spread_to_error / std::sqrt(static_cast<double>(std::max(row.used, 1)));
     out.rows.push_back(row);
   }
