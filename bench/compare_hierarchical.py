@@ -49,21 +49,21 @@ WALK = get("histogram_walk_sigma")
 if get("histogram_kernel_fraction") != 1.0:  # the reference's kernels are one step wide
     sys.exit("compare_hierarchical.py: the histogram's kernels must be the default (one step wide)")
 BLEND_MIN = get("blend_min_mag")
-PLX_F2 = get("outlier_parallax_factor") ** 2
 RISING = info["outlier_parallax_law"][0][0] == "rising"
 MEMBER_RULE = rule(int(get("quadrature_nodes")))
 BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
 
 # rungcal's order (checked).
 expected = (["alpha", "beta", "gamma", "parallax_offset_mas", "sigma_int", "outlier_fraction",
-             "outlier_shift_mag", "outlier_width_mag", "blend_fraction", "blend_scale_mag"]
+             "outlier_shift_mag", "outlier_width_mag", "outlier_parallax_factor", "blend_fraction",
+             "blend_scale_mag"]
             + [f"distance_log_weight_{j}" for j in range(1, NB)] + ["feh_mean", "feh_spread"])
 if names != expected:
     sys.exit(f"compare_hierarchical.py: unexpected parameters {names}")
-IA, IB, IG, IO, IS, IF, ISH, IW, IFB, IBS = range(10)
-IE = np.arange(10, 10 + NB - 1)
+IA, IB, IG, IO, IS, IF, ISH, IW, IPF, IFB, IBS = range(11)
+IE = np.arange(11, 11 + NB - 1)
 IZ, IT = len(names) - 2, len(names) - 1
-COORD = Coordinates([IS, IW, IBS, IT], [IF, IFB], [], modes_r)
+COORD = Coordinates([IS, IW, IBS, IT], [IF, IFB], [], modes_r, above3=[IPF])
 FREE, PRIOR = COORD.free, COORD.prior
 
 
@@ -89,6 +89,7 @@ class Likelihood:
         t = COORD.to_external(self.full(xi))
         alpha, beta, gamma, off, sigma = t[IA], t[IB], t[IG], t[IO], t[IS]
         f, fb, bs, shift, wide = t[IF], t[IFB], t[IBS], t[ISH], t[IW] ** 2
+        factor = t[IPF]
         mu_z, tau2 = t[IZ], t[IT] ** 2
         eta = np.concatenate(([0.0], t[IE]))
         logw = log_weights(eta)
@@ -105,7 +106,7 @@ class Likelihood:
         A = component(r, V, bs, gaussian, MEMBER_RULE, 1.0, self.plx, self.vp, 0.0, off, c0, H, logw, cm)
         # Under the rising law a parallax star's outlier has the member's magnitude term.
         shape = 0.0 if RISING else 1.0
-        O = component(r, V + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, PLX_F2 * self.vp,
+        O = component(r, V + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, factor ** 2 * self.vp,
                       shape * shift, off, c0, H, logw, co, rising=RISING)
         Bl = component(r, V, bs, rising_blend, BLEND_RULE, 1.3, self.plx, self.vp, BLEND_MIN, off, c0, H, logw, cb)
         li, qa, qo, qb, d_f, d_fb = mixture(f, fb, A[0], O[0], Bl[0])
@@ -121,6 +122,7 @@ class Likelihood:
         g[IF] = w @ d_f
         g[ISH] = shape * (w @ (qo * O[1]))
         g[IW] = shape * (w @ (qo * O[2])) * 2.0 * t[IW]
+        g[IPF] = w @ (qo * O[-1] * 2.0 * factor * self.vp)  # the outlier's variance F^2 vp
         g[IFB] = w @ d_fb
         g[IBS] = w @ (qb * Bl[3])
         g[IE] = w @ (qa[:, None] * A[6] + qo[:, None] * O[6] + qb[:, None] * Bl[6])

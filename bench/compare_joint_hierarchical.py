@@ -78,7 +78,6 @@ WALK = get("histogram_walk_sigma")
 if get("histogram_kernel_fraction") != 1.0:  # the reference's kernels are one step wide
     sys.exit("compare_joint_hierarchical.py: the histogram's kernels must be the default (one step wide)")
 BLEND_MIN = get("blend_min_mag")
-PLX_F2 = get("outlier_parallax_factor") ** 2
 RISING = info["outlier_parallax_law"][0][0] == "rising"
 MEMBER_RULE = rule(int(get("quadrature_nodes")))
 BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
@@ -86,7 +85,7 @@ BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
 # The layout, in rungcal's order (checked), and each parameter's solver scale.
 expected = [f"{p}_{r}" for r in relations for p in ("alpha", "beta", "gamma", "sigma_int")]
 expected += ["scatter_correlation", "parallax_offset_mas", "outlier_fraction", "outlier_shift_mag",
-             "outlier_width_mag", "blend_fraction", "blend_scale_mag"]
+             "outlier_width_mag", "outlier_parallax_factor", "blend_fraction", "blend_scale_mag"]
 expected += [f"blend_ratio_{r}" for r in relations[1:]]
 expected += [f"distance_log_weight_{j}" for j in range(1, NB)] + ["feh_mean", "feh_spread"]
 if names != expected:
@@ -96,12 +95,13 @@ IA = np.array([ix[f"alpha_{r}"] for r in relations])
 IBETA = np.array([ix[f"beta_{r}"] for r in relations])
 IG = np.array([ix[f"gamma_{r}"] for r in relations])
 IS = np.array([ix[f"sigma_int_{r}"] for r in relations])
-IR, IO, IF, ISH, IW = (ix[n] for n in ("scatter_correlation", "parallax_offset_mas", "outlier_fraction",
-                                       "outlier_shift_mag", "outlier_width_mag"))
+IR, IO, IF, ISH, IW, IPF = (ix[n] for n in ("scatter_correlation", "parallax_offset_mas",
+                                            "outlier_fraction", "outlier_shift_mag", "outlier_width_mag",
+                                            "outlier_parallax_factor"))
 IFB, IBS, IZ, IT = (ix[n] for n in ("blend_fraction", "blend_scale_mag", "feh_mean", "feh_spread"))
 IK = np.array([ix[f"blend_ratio_{r}"] for r in relations[1:]], dtype=int)
 IE = np.arange(ix["distance_log_weight_1"], ix["distance_log_weight_1"] + NB - 1)
-COORD = Coordinates(np.concatenate((IS, [IW, IBS, IT], IK)), [IF, IFB], [IR], modes_r)
+COORD = Coordinates(np.concatenate((IS, [IW, IBS, IT], IK)), [IF, IFB], [IR], modes_r, above3=[IPF])
 FREE, PRIOR = COORD.free, COORD.prior
 
 
@@ -127,7 +127,7 @@ class Likelihood:
         t = COORD.to_external(self.full(xi))
         alpha, beta, gamma, sig = t[IA], t[IBETA], t[IG], t[IS]
         rho, off, f, fb, bs = t[IR], t[IO], t[IF], t[IFB], t[IBS]
-        shift, wide = t[ISH], t[IW] ** 2
+        shift, wide, factor = t[ISH], t[IW] ** 2, t[IPF]
         mu_z, tau2 = t[IZ], t[IT] ** 2
         eta = np.concatenate(([0.0], t[IE]))
         logw = log_weights(eta)
@@ -172,7 +172,7 @@ class Likelihood:
         A = component(m_eff, v, bs, gaussian, MEMBER_RULE, 1.0, self.plx, self.vp, 0.0, off, c0, H, logw, cm)
         # Under the rising law a parallax star's outlier has the member's magnitude term.
         shape = 0.0 if RISING else 1.0
-        O = component(m_eff, v + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, PLX_F2 * self.vp,
+        O = component(m_eff, v + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, factor ** 2 * self.vp,
                       shape * shift, off, c0, H, logw, co, rising=RISING)
         Bl = component(m_eff + kap_eff * BLEND_MIN, v, bs, coloured_rising_blend, BLEND_RULE, 1.3, self.plx,
                        self.vp, 0.0, off, c0, H, logw, cb, (kap_eff, D, tilt + BLEND_MIN * D))
@@ -216,6 +216,7 @@ class Likelihood:
         g[IBS] = w @ (qb * Bl[3])
         g[ISH] = shape * (w @ (qo * O[1]))
         g[IW] = shape * (w @ (qo * O[2])) * 2.0 * t[IW]
+        g[IPF] = w @ (qo * O[-1] * 2.0 * factor * self.vp)  # the outlier's variance F^2 vp
         g[IE] = w @ d_eta
         d_zbar = -(gr * gamma).sum(1)
         d_wz = Gg @ gamma

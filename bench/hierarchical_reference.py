@@ -53,11 +53,13 @@ def read_output(lines):
 
 class Coordinates:
     """rungcal's solver coordinates: a log scale for the indices `log` (scales, the blend
-    ratios), logit for `logit` (fractions), atanh for `atanh` (a correlation), the rest
-    linear; only the parameters whose mode is not "fixed" are solved for (free)."""
+    ratios), logit for `logit` (fractions), atanh for `atanh` (a correlation), ln(v - 3) for
+    `above3` (the outlier's parallax factor), the rest linear; only the parameters whose mode
+    is not "fixed" are solved for (free)."""
 
-    def __init__(self, log, logit, atanh, modes):
-        self.log, self.logit, self.atanh = (np.asarray(a, dtype=int) for a in (log, logit, atanh))
+    def __init__(self, log, logit, atanh, modes, above3=()):
+        self.log, self.logit, self.atanh, self.above3 = (np.asarray(a, dtype=int)
+                                                         for a in (log, logit, atanh, above3))
         self.free = np.array([j for j, m in enumerate(modes) if m != "fixed"], dtype=int)
         self.prior = np.array([j for j, m in enumerate(modes) if m == "prior"], dtype=int)
         if any(m not in ("free", "fixed", "prior") for m in modes):
@@ -68,6 +70,7 @@ class Coordinates:
         x[self.log] = np.log(x[self.log])
         x[self.logit] = np.log(x[self.logit] / (1.0 - x[self.logit]))
         x[self.atanh] = np.arctanh(x[self.atanh])
+        x[self.above3] = np.log(x[self.above3] - 3.0)
         return x
 
     def to_external(self, x):
@@ -75,6 +78,7 @@ class Coordinates:
         t[self.log] = np.exp(t[self.log])
         t[self.logit] = 1.0 / (1.0 + np.exp(-t[self.logit]))
         t[self.atanh] = np.tanh(t[self.atanh])
+        t[self.above3] = 3.0 + np.exp(t[self.above3])
         return t
 
     def slope(self, t):
@@ -83,6 +87,7 @@ class Coordinates:
         s[self.log] = t[self.log]
         s[self.logit] = t[self.logit] * (1.0 - t[self.logit])
         s[self.atanh] = 1.0 - t[self.atanh] ** 2
+        s[self.above3] = t[self.above3] - 3.0
         return s
 
 
@@ -183,7 +188,7 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     Returns ln of it and, over its normalised integrand, the expectations of d/dm, d/dV and
     d/ds of the magnitude term, d/doff of the parallax term, d ln p / dmu,
     d ln p / d eta_j (j >= 1), then those of the magnitude term's derivatives in the colour
-    arguments. quad: rule(n); width_factor: the width in curvature widths.
+    arguments, and last that of the parallax term's d/dvp. quad: rule(n); width_factor: the width in curvature widths.
     cache: each star's last mode, the next Newton start.
     rising: the parallax term is (e^2 / vp) N(e | 0, vp) (the outlier component's rising law),
     its factor e^2 on the nodes of the Gaussian part's rule."""
@@ -233,8 +238,10 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     d_off = (q * e).sum(1) / vp
     if rising:  # d ln e^2 / d off = -2 / e, its weight vanishing where e does
         d_off -= 2.0 * (q * np.divide(1.0, e, out=np.zeros_like(e), where=e != 0)).sum(1)
+    # d/dvp of -e^2 / (2 vp) - ln(vp) / 2, and of ln(e^2 / vp) under the rising law.
+    d_vp = (0.5 * (q * e * e).sum(1) / vp - (1.5 if rising else 0.5)) / vp
     return (log_l, (q * d_r).sum(1), (q * d_v).sum(1), d_s, d_off, (q * dlogp).sum(1), d_eta,
-            *((q * d).sum(1) for d in d_colour))
+            *((q * d).sum(1) for d in d_colour), d_vp)
 
 
 def log_weights(eta):

@@ -98,9 +98,12 @@ int main(int argc, char** argv) {
   app.add_option("--scatter-correction", choice.scatter_correction,
                  "the scatters' estimate: restricted (maximum likelihood with the location "
                  "parameters integrated out) or none (maximum likelihood; default: the fit's)");
-  app.add_option("--outlier-parallax-factor", study.fit.hierarchical.outlier_parallax_factor,
-                 "outlier component's parallax error x this")
+  app.add_option("--outlier-parallax-factor", study.fit.outlier_factor.value,
+                 "outlier component's parallax error x this (its start when fitted)")
       ->capture_default_str();
+  app.add_flag(
+      "--fit-outlier-factor", choice.free_outlier_factor,
+      "fit the outlier component's parallax error factor (from --outlier-parallax-factor)");
   app.add_flag("--fit-outlier-shape", choice.free_outlier_shape,
                "fit the outlier component's shift and width (under the rising parallax "
                "law they shape only stars of given distance, and are held without them)");

@@ -12,6 +12,8 @@ it reproduces the study's sigma_int bias (docs/method.md) and lets one vary the 
 
   sigma_int_toy.py outliers --distances flat --stars 3000 --mocks 40 --width 1 --factor 10
   sigma_int_toy.py outliers ... --law mock   (the outlier component is the mocks' own law)
+  sigma_int_toy.py outliers ... --law rising --fit-factor   (rungcal's default since 2026-12-05)
+  sigma_int_toy.py outliers ... --law rising --fit-factor --floor 0 --outlier-fraction 0
   sigma_int_toy.py reml --distances disk --stars 300 --mocks 200
 """
 import argparse
@@ -51,12 +53,23 @@ def gauss_log(r, var):
     return -0.5 * r * r / var - 0.5 * np.log(var)
 
 
+def rising_log(r, s2, v):
+    """ln of (e^2 / s^2) N(e | 0, s^2) convolved with N(0, v), at r: the Gaussian N(r | 0,
+    s^2 + v) times E[e^2 | r] / s^2, e | r being N(r s^2 / (s^2 + v), s^2 v / (s^2 + v))."""
+    t = s2 + v
+    m, w = r * s2 / t, s2 * v / t
+    return gauss_log(r, t) + np.log((m * m + w) / s2)
+
+
 def fit_outlier_mixture(s, args):
     """ML sigma_int and f with the relation and the offset held at the truth."""
     model_plx = 10 ** (-0.2 * (s["m"] - s["abs_mag"] - 10)) + OFFSET
     slope = C * (model_plx - OFFSET)
     r, err = s["plx"] - model_plx, s["err"]
     shifts = np.linspace(5, 20, 61)
+
+    def factor(t):  # rungcal's ln(F - floor) when fitted
+        return args.floor + np.exp(t[2]) if args.fit_factor else args.factor
 
     def nll(t):
         var = np.exp(2 * t[0]) + MAG_ERR**2
@@ -66,13 +79,15 @@ def fit_outlier_mixture(s, args):
         if args.law == "mock":  # parallax shifted by +-U(5, 20) errors, magnitude a member's
             terms = [gauss_log(r - sgn * k * err, v_member) for k in shifts for sgn in (-1, 1)]
             outlier = np.logaddexp.reduce(terms, axis=0) - np.log(len(terms))
+        elif args.law == "rising":  # rungcal's default: the member's magnitude term
+            outlier = rising_log(r, (factor(t) * err) ** 2, v_member)
         else:
-            outlier = gauss_log(r, (args.factor * err) ** 2 + slope**2 * (var + args.width**2))
+            outlier = gauss_log(r, (factor(t) * err) ** 2 + slope**2 * (var + args.width**2))
         return -np.sum(np.logaddexp(np.log(1 - f) + member, np.log(f) + outlier))
 
-    t = minimize(nll, [np.log(SIGMA_INT), -3.5], method="Nelder-Mead",
-                 options={"xatol": 1e-7, "fatol": 1e-9}).x
-    return np.exp(t[0]), 1 / (1 + np.exp(-t[1]))
+    start = [np.log(SIGMA_INT), -3.5] + ([np.log(args.factor - args.floor)] if args.fit_factor else [])
+    t = minimize(nll, start, method="Nelder-Mead", options={"xatol": 1e-7, "fatol": 1e-9, "maxiter": 5000}).x
+    return np.exp(t[0]), 1 / (1 + np.exp(-t[1])), factor(t)
 
 
 def fit_relation(s, restricted):
@@ -111,19 +126,22 @@ def main():
     p.add_argument("--stars", type=int, default=3000)
     p.add_argument("--mocks", type=int, default=40)
     p.add_argument("--outlier-fraction", type=float, default=0.03)
-    p.add_argument("--law", choices=["gaussian", "mock"], default="gaussian",
-                   help="the fit's outlier component: rungcal's Gaussian one or the mocks' own law")
-    p.add_argument("--width", type=float, default=1.0, help="outlier magnitude width (mag)")
-    p.add_argument("--factor", type=float, default=10.0, help="outlier parallax error factor")
+    p.add_argument("--law", choices=["gaussian", "rising", "mock"], default="gaussian",
+                   help="the fit's outlier component: rungcal's Gaussian or rising one, or the mocks' own law")
+    p.add_argument("--width", type=float, default=1.0, help="outlier magnitude width (mag; Gaussian law)")
+    p.add_argument("--factor", type=float, default=10.0, help="outlier parallax error factor (its start if fitted)")
+    p.add_argument("--fit-factor", action="store_true", help="fit the factor, above --floor")
+    p.add_argument("--floor", type=float, default=3.0, help="the fitted factor's lower bound")
     p.add_argument("--seed", type=int, default=5)
     args = p.parse_args()
     rng = np.random.default_rng(args.seed)
     if args.study == "outliers":
         fits = [fit_outlier_mixture(draw_mock(args.distances, args.stars, args.outlier_fraction, rng), args)
                 for _ in range(args.mocks)]
-        summary(f"{args.distances}, N = {args.stars}, law {args.law}, width {args.width}, factor {args.factor}",
-                [s for s, _ in fits], args.mocks)
-        print(f"  mean outlier fraction {np.mean([f for _, f in fits]):.4f} (truth {args.outlier_fraction})")
+        summary(f"{args.distances}, N = {args.stars}, law {args.law}, width {args.width}, factor {args.factor}"
+                + (f" fitted above {args.floor}" if args.fit_factor else ""), [s for s, _, _ in fits], args.mocks)
+        print(f"  mean outlier fraction {np.mean([f for _, f, _ in fits]):.4f} (truth {args.outlier_fraction}), "
+              f"factor {np.mean([k for _, _, k in fits]):.2f} (sd {np.std([k for _, _, k in fits]):.2f})")
         return
     mocks = [draw_mock(args.distances, args.stars, 0.0, rng) for _ in range(args.mocks)]
     for restricted, label in [(0, "ML"), (1, "restricted (alpha, beta, gamma)"),

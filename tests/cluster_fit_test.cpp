@@ -65,10 +65,10 @@ ClusterCase cluster_case() {
   c.theta[L.alpha] = -5.9, c.theta[L.beta] = -3.1, c.theta[L.offset] = -0.012,
   c.theta[L.sigma] = 0.07;
   c.theta[L.anchor0] = 10.95, c.theta[L.outlier] = 0.1, c.theta[L.outlier_shift] = 0.5;
-  c.theta[L.outlier_width] = 0.8;
+  c.theta[L.outlier_width] = 0.8, c.theta[L.outlier_factor] = 10.0;
   c.theta[L.distance_scale] = 1, c.theta[L.distance_power] = 2, c.theta[L.distance_exponent] = 1;
-  for (int j :
-       {L.outlier_shift, L.outlier_width, L.distance_scale, L.distance_power, L.distance_exponent})
+  for (int j : {L.outlier_shift, L.outlier_width, L.outlier_factor, L.distance_scale,
+                L.distance_power, L.distance_exponent})
     c.settings.params[static_cast<std::size_t>(j)] =
         ParamSpec{ParamMode::kFixed, c.theta[j], 0, true};
   return c;

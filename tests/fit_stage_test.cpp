@@ -252,6 +252,109 @@ TEST(FitStage, OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldWithAWarning) {
   EXPECT_TRUE(std::isfinite(rr.error("alpha")));
 }
 
+// The outlier component's parallax factor F, fitted: on a sample whose parallax outliers are
+// drawn from the component's own law (e = F sigma_pi times a signed chi with 3 degrees of
+// freedom: (e^2 / s^2) N(e | 0, s^2) is that density, s = F sigma_pi), the fit recovers F.
+TEST(FitStage, FreeOutlierParallaxFactorRecoversTheOutliersOwnFactor) {
+  constexpr double kTrueFactor = 6.0;
+  test::MockSample m = test::mock_parallax_sample(83, 400, 0.0);
+  Random rng(84);
+  for (Eigen::Index i = 0; i < m.data.plx.size(); ++i) {
+    if (rng.uniform() >= 0.1) continue;
+    double chi2 = 0;
+    for (int k = 0; k < 3; ++k) chi2 += std::pow(rng.normal(), 2);
+    m.data.plx[i] +=
+        (rng.uniform() < 0.5 ? -1.0 : 1.0) * kTrueFactor * std::sqrt(m.data.var_plx[i] * chi2);
+  }
+  FitOptions o = mock_fit_options();
+  o.outlier_factor = ParamSpec{ParamMode::kFree, 10.0, 0, true};
+  FitResult r = run_fit(o, catalog_from_mock(m));
+  const RelationResult& rr = r.relations[0];
+  const double f = rr.parameter("outlier_parallax_factor"),
+               err = rr.error("outlier_parallax_factor");
+  EXPECT_NEAR(f, kTrueFactor, 3 * err);
+  EXPECT_LT(err, 1.5);
+  EXPECT_NEAR(rr.parameter("outlier_fraction"), 0.1, 0.04);
+  EXPECT_NEAR(rr.parameter("alpha"), m.truth.alpha, 3 * rr.error("alpha"));
+}
+
+// Without outliers the outlier component's shape has nothing to fit: F is reported as
+// undetermined, with the reason.
+TEST(FitStage, FreeOutlierParallaxFactorWithoutOutliersIsUndeterminedWithTheReason) {
+  test::MockSample m = test::mock_parallax_sample(86, 200, 0.0);
+  FitOptions o = mock_fit_options();
+  o.outlier_factor = ParamSpec{ParamMode::kFree, 10.0, 0, true};
+  FitResult r = run_fit(o, catalog_from_mock(m));
+  const RelationResult& rr = r.relations[0];
+  ASSERT_LT(rr.parameter("outlier_fraction"), 1e-3);
+  EXPECT_NE(std::find(rr.undetermined.begin(), rr.undetermined.end(), "outlier_parallax_factor"),
+            rr.undetermined.end());
+  EXPECT_NE(std::find(rr.warnings.begin(), rr.warnings.end(),
+                      "outlier_parallax_factor: without outliers their shape is not measured; it "
+                      "has no error"),
+            rr.warnings.end())
+      << fmt::format("{}", rr.warnings);
+  EXPECT_NEAR(rr.parameter("alpha"), m.truth.alpha, 3 * rr.error("alpha"));
+}
+
+// A bare number fixes F, a table frees it or gives it a prior, and F <= 3 is refused: a
+// deviation of three errors or fewer is a member's.
+TEST(FitStage, OutlierParallaxFactorIsReadFixedOrFreeAndRefusedAtThreeOrBelow) {
+  test::TempDir dir;
+  const std::string head =
+      "[[relation]]\nname = \"W\"\nband = \"W\"\n[fit]\ninput = \"cat.fits\"\n";
+  auto read = [&](const std::string& line) {
+    test::write_text(dir.file("fit.toml"), head + line + "\n");
+    return fit_options_from_file(dir.file("fit.toml"));
+  };
+  FitOptions fixed = read("outlier_parallax_factor = 12");
+  EXPECT_EQ(fixed.outlier_factor.mode, ParamMode::kFixed);
+  EXPECT_DOUBLE_EQ(fixed.hierarchical.outlier_parallax_factor, 12.0);
+  FitOptions free = read("outlier_parallax_factor = { mode = \"free\", value = 8 }");
+  EXPECT_EQ(free.outlier_factor.mode, ParamMode::kFree);
+  EXPECT_DOUBLE_EQ(free.outlier_factor.value, 8.0);
+  try {
+    read("outlier_parallax_factor = 3");
+    FAIL() << "no error";
+  } catch (const InputError& e) {
+    const std::string what = e.what();
+    EXPECT_NE(what.find("fit.toml"), std::string::npos) << what;
+    EXPECT_NE(what.find("fit.outlier_parallax_factor': [config_value] 3 is outside the parameter's "
+                        "domain (> 3, below 1000000)"),
+              std::string::npos)
+        << what;
+  }
+}
+
+// Without a star that has a parallax of its own, F has nothing to fit: held, with a warning.
+TEST(FitStage, FreeOutlierParallaxFactorWithoutParallaxesIsHeldWithAWarning) {
+  test::MockSample m = test::mock_parallax_sample(85, 120, 0.0);
+  StarTable t = catalog_from_mock(m);
+  t.add_column("mu_mag", ColumnType::kReal, "mag");
+  t.add_column("mu_err_mag", ColumnType::kReal, "mag");
+  for (Eigen::Index i = 0; i < m.data.plx.size(); ++i) {
+    const auto row = static_cast<std::size_t>(i);
+    const double mu = distance_modulus_from_parsec(1e3 / (m.data.plx[i] - m.truth.offset));
+    t.column("parallax_mas").null[row] = 1;
+    t.column("parallax_err_mas").null[row] = 1;
+    t.column("mu_mag").real[row] = std::isfinite(mu) ? mu : 12.0;
+    t.column("mu_mag").null[row] = 0;
+    t.column("mu_err_mag").real[row] = 0.05;
+    t.column("mu_err_mag").null[row] = 0;
+  }
+  FitOptions o = mock_fit_options();
+  o.outlier_factor = ParamSpec{ParamMode::kFree, 10.0, 0, true};
+  o.offset = ParamSpec{ParamMode::kFixed, 0.0, 0, true};
+  FitResult r = run_fit(o, t);
+  const RelationResult& rr = r.relations[0];
+  bool said = false;
+  for (const auto& w : rr.warnings)
+    said = said || w == "outlier_parallax_factor: held at 10: no star has a parallax of its own";
+  EXPECT_TRUE(said) << fmt::format("{}", rr.warnings);
+  EXPECT_DOUBLE_EQ(rr.parameter("outlier_parallax_factor"), 10.0);
+  EXPECT_TRUE(std::isfinite(rr.error("alpha")));
+}
+
 // The bootstrap error is half the resamples' 16-84 percentile width: for a Gaussian it is the
 // standard deviation, (Phi^-1(0.84) - Phi^-1(0.16)) / 2 = 0.994458 of it (scipy.stats.norm.ppf),
 // and a few strays, which inflate the standard deviation, leave it be.

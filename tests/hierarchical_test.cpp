@@ -76,7 +76,7 @@ MixedCase mixed_setup() {
   s.theta[L.distance_scale] = 1.1, s.theta[L.distance_power] = 1.4,
   s.theta[L.distance_exponent] = 0.8;
   s.theta[L.feh_mean] = 0.03, s.theta[L.feh_spread] = 0.17;
-  s.theta[L.outlier_shift] = 0.4, s.theta[L.outlier_width] = 0.7;
+  s.theta[L.outlier_shift] = 0.4, s.theta[L.outlier_width] = 0.7, s.theta[L.outlier_factor] = 6.5;
   s.theta[L.blend] = 0.12, s.theta[L.blend_scale] = 0.45;
   return s;
 }
@@ -87,6 +87,7 @@ double internal_slope(const ParameterLayout& L, int j, double v) {
       j == L.outlier_width || j == L.blend_scale)
     return v;
   if (j == L.distance_power) return v + 1.0;
+  if (j == L.outlier_factor) return v - 3.0;
   if (j == L.outlier || j == L.blend) return v * (1.0 - v);
   return 1.0;
 }
@@ -177,7 +178,7 @@ TEST(Hierarchical, GradientWithTheSmoothHistogramPriorEqualsCentralDifferences) 
   s.theta[L.offset] = -0.02;
   s.theta[L.sigma] = 0.09, s.theta[L.anchor0] = 18.45, s.theta[L.outlier] = 0.07;
   s.theta[L.feh_mean] = 0.03, s.theta[L.feh_spread] = 0.17;
-  s.theta[L.outlier_shift] = 0.4, s.theta[L.outlier_width] = 0.7;
+  s.theta[L.outlier_shift] = 0.4, s.theta[L.outlier_width] = 0.7, s.theta[L.outlier_factor] = 6.5;
   s.theta[L.blend] = 0.05, s.theta[L.blend_scale] = 0.6;
   for (int j = 0; j < L.distance_bins; ++j) s.theta[L.distance_bin0 + j] = 0.3 * std::sin(j + 1.0);
   expect_gradient_matches_differences(s);
@@ -276,7 +277,7 @@ OneStar one_parallax_star(const OneStarCase& c) {
   o.theta[L.alpha] = -4.1, o.theta[L.beta] = -3.0, o.theta[L.offset] = -0.015,
   o.theta[L.sigma] = 0.08;
   o.theta[L.outlier_width] = 1.0, o.theta[L.distance_scale] = 1.3, o.theta[L.distance_power] = 2.0,
-  o.theta[L.distance_exponent] = 1.0;
+  o.theta[L.distance_exponent] = 1.0, o.theta[L.outlier_factor] = 10.0;
   return o;
 }
 // ln L of the case by scipy.integrate.quad over mu (method brief, section 4b): the member's
@@ -463,9 +464,9 @@ TEST(Hierarchical, RestrictedScatterEqualsTheClosedFormOfALinearRegression) {
   Eigen::VectorXd start = Eigen::VectorXd::Zero(L.size);
   start[L.alpha] = -5.7, start[L.beta] = -3.0, start[L.sigma] = 0.08;
   start[L.outlier_width] = 1.0, start[L.distance_scale] = 1.0, start[L.distance_power] = 2.0,
-  start[L.distance_exponent] = 1.0;
-  for (int j : {L.offset, L.outlier, L.outlier_shift, L.outlier_width, L.distance_scale,
-                L.distance_power, L.distance_exponent})
+  start[L.distance_exponent] = 1.0, start[L.outlier_factor] = 10.0;
+  for (int j : {L.offset, L.outlier, L.outlier_shift, L.outlier_width, L.outlier_factor,
+                L.distance_scale, L.distance_power, L.distance_exponent})
     settings.params[static_cast<std::size_t>(j)] = ParamSpec{ParamMode::kFixed, start[j], 0, true};
   const FitSolution ml = solve_hierarchical(d, settings, L, start);
   ASSERT_TRUE(ml.usable) << ml.message;

@@ -145,7 +145,7 @@ JointCase joint_case(int relations) {
   c.theta[L.distance_scale] = 1.1, c.theta[L.distance_power] = 1.4,
   c.theta[L.distance_exponent] = 0.8;
   c.theta[L.feh_mean] = 0.03, c.theta[L.feh_spread] = 0.17;
-  c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7;
+  c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7, c.theta[L.outlier_factor] = 6.5;
   c.theta[L.blend] = 0.12, c.theta[L.blend_scale] = 0.45;
   // Coloured blends: a companion adds more light in the second relation, less in the third.
   constexpr double kRatio[3] = {1.0, 1.4, 0.7};
@@ -167,6 +167,7 @@ std::vector<hier::Scale> joint_scales(const JointLayout& L) {
        {L.outlier_width, L.blend_scale, L.distance_scale, L.distance_exponent, L.feh_spread})
     s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
   s[static_cast<std::size_t>(L.distance_power)] = hier::Scale::kLogPlusOne;
+  s[static_cast<std::size_t>(L.outlier_factor)] = hier::Scale::kLogAboveThree;
   s[static_cast<std::size_t>(L.outlier)] = s[static_cast<std::size_t>(L.blend)] =
       hier::Scale::kLogit;
   s[static_cast<std::size_t>(L.correlation)] = hier::Scale::kAtanh;
@@ -511,7 +512,7 @@ TEST(JointHierarchical,
   c.theta[L.beta[0]] = -3.2, c.theta[L.correlation] = 0.4;
   c.theta[L.offset] = -0.02, c.theta[L.anchor0] = 18.45, c.theta[L.outlier] = 0.07;
   c.theta[L.feh_mean] = 0.03, c.theta[L.feh_spread] = 0.17;
-  c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7;
+  c.theta[L.outlier_shift] = 0.4, c.theta[L.outlier_width] = 0.7, c.theta[L.outlier_factor] = 6.5;
   c.theta[L.blend] = 0.05, c.theta[L.blend_scale] = 0.6;
   c.theta[L.blend_ratio[1]] = 1.2, c.theta[L.blend_ratio[2]] = 0.8;
   for (int j = 0; j < L.distance_bins; ++j) c.theta[L.distance_bin0 + j] = 0.3 * std::sin(j + 1.0);
@@ -520,6 +521,7 @@ TEST(JointHierarchical,
     for (int j : L.sigma) s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
     for (int j : {L.outlier_width, L.blend_scale, L.feh_spread, L.blend_ratio[1], L.blend_ratio[2]})
       s[static_cast<std::size_t>(j)] = hier::Scale::kLog;
+    s[static_cast<std::size_t>(L.outlier_factor)] = hier::Scale::kLogAboveThree;
     s[static_cast<std::size_t>(L.outlier)] = s[static_cast<std::size_t>(L.blend)] =
         hier::Scale::kLogit;
     s[static_cast<std::size_t>(L.correlation)] = hier::Scale::kAtanh;

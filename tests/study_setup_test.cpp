@@ -48,7 +48,15 @@ TEST(StudySetup, DefaultsAreTheWesenheitDiskWithEveryContamination) {
   EXPECT_EQ(study.fit.relations[0].band, "X");
   EXPECT_EQ(study.parameters, (std::vector<std::string>{"alpha", "beta", "gamma",
                                                         "parallax_offset_mas", "sigma_int"}));
+  EXPECT_EQ(study.fit.outlier_factor.mode, ParamMode::kFixed);  // the fit's default, 10
+  EXPECT_DOUBLE_EQ(study.fit.outlier_factor.value, 10.0);
   EXPECT_EQ(study.check(), "");
+  // --fit-outlier-factor frees it, from its value.
+  StudyChoices free;
+  free.free_outlier_factor = true;
+  apply_study_choices(free, study);
+  EXPECT_EQ(study.fit.outlier_factor.mode, ParamMode::kFree);
+  EXPECT_DOUBLE_EQ(study.fit.outlier_factor.value, 10.0);
 }
 
 TEST(StudySetup, ContaminationsSwitchOnOneByOne) {

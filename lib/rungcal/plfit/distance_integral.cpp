@@ -37,6 +37,7 @@ ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double 
   o.log_l = -0.5 * (r * r / var + kLog2Pi + std::log(var));
   o.d_off = r / var;
   o.d_mu = o.d_off * -kC * p;  // dp/dmu = -0.2 ln10 p
+  o.d_var = 0.5 * (r * r / var - 1.0) / var;
   return o;
 }
 
@@ -44,6 +45,7 @@ ParallaxAtModulus rising_parallax_at_modulus(double plx, double var, double mu, 
   ParallaxAtModulus o = parallax_at_modulus(plx, var, mu, offset);
   const double p = std::exp(-kC * (mu - 10.0)), r = plx - p - offset;
   o.log_l += std::log(r * r / var);
+  o.d_var -= 1.0 / var;
   if (r != 0.0) {  // at r = 0 the term is -infinity and its weight in the mixture zero
     o.d_off -= 2.0 / r;
     o.d_mu += 2.0 * kC * p / r;  // d r / d mu = 0.2 ln10 p

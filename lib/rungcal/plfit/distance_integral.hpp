@@ -49,9 +49,11 @@ inline bool component_on(const std::vector<ParamSpec>& params, int j) {
 }
 
 // ln of one component's likelihood and its derivatives: with respect to the absolute
-// magnitude M, the magnitude variance V, the parallax offset and the prior's ln L, k, a.
+// magnitude M, the magnitude variance V, the parallax offset, the prior's ln L, k, a and the
+// parallax term's variance (d_var_plx: the outlier component's fitted factor).
 struct Component {
   double log_l = 0, d_m = 0, d_v = 0, d_off = 0, d_log_scale = 0, d_power = 0, d_exponent = 0;
+  double d_var_plx = 0;
   double d_blend_scale = 0;  // the blend component's only
   // The coloured blend component's only (ColouredBlendMagnitude): d/d kappa, D and t.
   double d_blend_kappa = 0, d_blend_curvature = 0, d_blend_tilt = 0;
@@ -166,7 +168,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   double top = -std::numeric_limits<double>::infinity();
   Component c;
   double s_m = 0, s_v = 0, s_off = 0, s_l = 0, s_k = 0, s_a = 0, s_b = 0, s_p = 0, total = 0;
-  double s_kappa = 0, s_curv = 0, s_tilt = 0, s_rise = 0;
+  double s_kappa = 0, s_curv = 0, s_tilt = 0, s_rise = 0, s_e2 = 0;
   double e_of[128];
   MagnitudePoint mp_of[128];
   DistancePriorTerms pr_of[128];
@@ -196,6 +198,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     s_v += w * mp_of[k].d_v;
     s_b += w * mp_of[k].d_scale;
     s_off += w * e_of[k];
+    s_e2 += w * e_of[k] * e_of[k];
     // d ln e^2 / d offset = -2 / e; the weight holds e^2, so the product vanishes at e = 0.
     if (rising_parallax && e_of[k] != 0.0) s_rise -= 2.0 * w / e_of[k];
     s_l += w * pr_of[k].d_log_scale;
@@ -223,6 +226,8 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   c.d_v = s_v * inv;
   c.d_blend_scale = s_b * inv;
   c.d_off = (s_off / var_plx + s_rise) * inv;
+  // d/d var of -e^2 / (2 var) - ln(var) / 2, and of ln(e^2 / var) under the rising law.
+  c.d_var_plx = (0.5 * s_e2 * inv / var_plx - (rising_parallax ? 1.5 : 0.5)) / var_plx;
   c.d_log_scale = s_l * inv;
   c.d_power = s_k * inv;
   c.d_exponent = s_a * inv;
@@ -263,7 +268,7 @@ Component given_modulus(double m, const Magnitude& mag, double mu, double m_shif
 // A cluster member's own parallax at its cluster's modulus mu (a parameter, so no integral):
 // ln N(pi | 10^(-0.2 (mu - 10)) + offset, var), with its derivatives in mu and the offset.
 struct ParallaxAtModulus {
-  double log_l = 0, d_mu = 0, d_off = 0;
+  double log_l = 0, d_mu = 0, d_off = 0, d_var = 0;  // d_var: d/d var
 };
 ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double offset);
 
@@ -289,6 +294,10 @@ struct OwnParallax {
   }
   double d_off(double q, double q_out, double q_blend) const {
     return (q + q_blend) * member.d_off + q_out * outlier.d_off;
+  }
+  // d ln L_i / d F for the outlier's variance F^2 var, with its posterior weight.
+  double d_factor(double q_out, double factor, double var) const {
+    return q_out * outlier.d_var * 2.0 * factor * var;
   }
 };
 

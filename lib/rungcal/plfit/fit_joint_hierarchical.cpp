@@ -62,6 +62,7 @@ FitSettings joint_settings(const FitOptions& o, const std::vector<RelationResult
   for (auto [from, to] : {std::pair{first.layout.outlier, L.outlier},
                           {first.layout.outlier_shift, L.outlier_shift},
                           {first.layout.outlier_width, L.outlier_width},
+                          {first.layout.outlier_factor, L.outlier_factor},
                           {first.layout.blend, L.blend},
                           {first.layout.blend_scale, L.blend_scale},
                           {first.layout.distance_scale, L.distance_scale},

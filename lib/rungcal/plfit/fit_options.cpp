@@ -122,8 +122,9 @@ std::string FitOptions::check() const {
     return e;
   if (!(hierarchical.blend_min_mag >= 0 && hierarchical.blend_min_mag <= 5))
     return "fit.blend_min_mag: must be 0 to 5 mag";
-  if (!(hierarchical.outlier_parallax_factor >= 1 && hierarchical.outlier_parallax_factor < 1e6))
-    return "fit.outlier_parallax_factor: must be 1 or more";
+  if (std::string e = check_domain("fit.outlier_parallax_factor", outlier_factor, 3.0, false, 1e6);
+      !e.empty())
+    return e;
   if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
   if (joint && space != FitSpace::kParallax && !hier)
     return "fit.joint: the joint fit works in parallax space";
@@ -286,8 +287,8 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.outlier_width = param_from(*f, "outlier_mag_width", o.outlier_width);
   o.hierarchical.outlier_mag_shift = o.outlier_shift.value;
   o.hierarchical.outlier_mag_width = o.outlier_width.value;
-  o.hierarchical.outlier_parallax_factor =
-      f->number_or("outlier_parallax_factor", o.hierarchical.outlier_parallax_factor);
+  o.outlier_factor = param_from(*f, "outlier_parallax_factor", o.outlier_factor);
+  o.hierarchical.outlier_parallax_factor = o.outlier_factor.value;
   o.hierarchical.outlier_parallax = choice_or(*f, "outlier_parallax_law", kOutlierParallaxLawNames,
                                               o.hierarchical.outlier_parallax);
   o.hierarchical.scatter_correction = choice_or(*f, "scatter_correction", kScatterCorrectionNames,

@@ -138,7 +138,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                                     {"histogram_kernel_fraction", o.hierarchical.histogram_kernel},
                                     {"outlier_mag_width", o.hierarchical.outlier_mag_width},
                                     {"outlier_mag_shift", o.hierarchical.outlier_mag_shift},
-                                    {"outlier_parallax_factor", o.hierarchical.outlier_parallax_factor},
+                                    {"outlier_parallax_factor", param_json(o.outlier_factor)},
                                     {"outlier_parallax_law", std::string(kOutlierParallaxLawNames.name(o.hierarchical.outlier_parallax))},
                                     {"scatter_correction", std::string(kScatterCorrectionNames.name(o.hierarchical.scatter_correction))},
                                     {"blend_component", std::string(kBlendComponentNames.name(o.hierarchical.blends))},

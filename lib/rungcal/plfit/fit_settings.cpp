@@ -51,6 +51,7 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
   s.terms.feh_errors = L.feh_mean >= 0;
   s.terms.blends = L.blend >= 0;
   s.hierarchical = o.hierarchical;
+  s.hierarchical.outlier_parallax_factor = o.outlier_factor.value;  // the start when free
   s.params.assign(L.size, ParamSpec{});
   s.params[L.alpha] = rel.alpha;
   s.params[L.beta] = rel.slope;
@@ -75,6 +76,7 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel,
     s.params[L.outlier] = o.outlier_fraction;
     s.params[L.outlier_shift] = o.outlier_shift;
     s.params[L.outlier_width] = o.outlier_width;
+    s.params[L.outlier_factor] = o.outlier_factor;
   }
   if (s.terms.blends) {
     s.params[L.blend] = o.blend_fraction;
@@ -120,6 +122,17 @@ void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
           L.names[static_cast<std::size_t>(j)], p.value));
       p = ParamSpec{ParamMode::kFixed, p.value, 0, true};
     }
+  // The outlier's parallax factor shapes stars with a parallax of their own; without any it
+  // has nothing to fit.
+  const bool own_parallaxes = c.data.parallax.size() > 0 || (c.data.anchor_var_plx > 0).any();
+  if (L.outlier_factor >= 0 && !own_parallaxes) {
+    ParamSpec& p = rr.settings.params[static_cast<std::size_t>(L.outlier_factor)];
+    if (p.mode != ParamMode::kFixed) {
+      rr.warnings.push_back(fmt::format(
+          "outlier_parallax_factor: held at {:g}: no star has a parallax of its own", p.value));
+      p = ParamSpec{ParamMode::kFixed, p.value, 0, true};
+    }
+  }
 }
 
 std::string undetermined_reason(const std::string& name, double value) {
@@ -133,6 +146,9 @@ std::string undetermined_reason(const std::string& name, double value) {
         value);
   if (name == "blend_scale_mag")
     return "blend_scale_mag: without blends their brightening is not measured; it has no error";
+  if (name == "outlier_shift_mag" || name == "outlier_width_mag" ||
+      name == "outlier_parallax_factor")
+    return name + ": without outliers their shape is not measured; it has no error";
   if (name == "sigma_int" && value < 1e-3)
     return fmt::format(
         "sigma_int = {:.2g} mag, on its lower bound: consistent with no intrinsic scatter; it has "

@@ -107,6 +107,10 @@ struct FitOptions {
   ParamSpec outlier_fraction;                                // share of outliers in the mixture
   ParamSpec outlier_shift{ParamMode::kFixed, 0.0, 0, true};  // outlier component brighter by (mag)
   ParamSpec outlier_width{ParamMode::kFixed, 1.0, 0, true};  // its extra magnitude width (mag)
+  // Its parallax error over the star's, F > 3 (HierarchicalSettings::outlier_parallax_factor).
+  // Held at 10 by default: fitted, it mends the near stars' outliers flat in mu but takes the
+  // members' tails on a disk (sigma_int -0.5 errors at N = 3000; docs/method.md).
+  ParamSpec outlier_factor{ParamMode::kFixed, 10.0, 0, true};
   ParamSpec blend_fraction;  // share of blends (of the non-outliers)
   // Blends' mean brightening beyond their start (mag). A Gaussian prior 0.5 +- 0.15 by default:
   // free, the scale shrinks onto the members' bright tail when there are few or no blends

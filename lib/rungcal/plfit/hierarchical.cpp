@@ -24,6 +24,7 @@ Scale scale_of(const ParameterLayout& L, int j) {
       j == L.outlier_width || j == L.blend_scale)
     return Scale::kLog;
   if (j == L.distance_power) return Scale::kLogPlusOne;
+  if (j == L.outlier_factor) return Scale::kLogAboveThree;
   if (j == L.outlier || j == L.blend) return Scale::kLogit;
   return Scale::kLinear;
 }
@@ -40,7 +41,7 @@ std::vector<Scale> scales_of(const ParameterLayout& L) {
 struct Gradient {
   double alpha = 0, beta = 0, beta_long = 0, gamma = 0, offset = 0, var_int = 0, outlier = 0;
   double log_scale = 0, power = 0, exponent = 0, feh_mean = 0, feh_var = 0, outlier_shift = 0,
-         outlier_wide = 0;
+         outlier_wide = 0, outlier_factor = 0;
   double blend = 0, blend_scale = 0;
   std::vector<double> anchor, bins;
 };
@@ -90,7 +91,9 @@ class Evaluator final : public Objective {
     const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
     const double wide = width * width,
                  shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
-    const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
+    const double plx_factor =
+        L_.outlier_factor >= 0 ? t[L_.outlier_factor] : h.outlier_parallax_factor;
+    const double plx_factor2 = plx_factor * plx_factor;
     const bool rising_outliers = h.outlier_parallax == OutlierParallaxLaw::kRising;
     const ParallaxOutlierShape plx_shape = parallax_outlier_shape(rising_outliers, wide, shift);
 
@@ -175,6 +178,11 @@ class Evaluator final : public Objective {
             g.outlier_shift -= w * q_out * outlier.d_m;
             g.outlier_wide += w * q_out * outlier.d_v;
           }
+          // Its parallax variance is F^2 sigma_pi^2.
+          if (kind == 0)
+            g.outlier_factor += w * q_out * outlier.d_var_plx * 2.0 * plx_factor * d_.var_plx[i];
+          else if (own)
+            g.outlier_factor += w * own->d_factor(q_out, plx_factor, d_.anchor_var_plx[i]);
         }
         if (blends_) {
           g.blend += w * (q_blend / fb - q / (1.0 - fb));
@@ -226,6 +234,7 @@ class Evaluator final : public Objective {
     if (L_.outlier >= 0) gext[L_.outlier] = g.outlier;
     if (L_.outlier_shift >= 0) gext[L_.outlier_shift] = g.outlier_shift;
     if (L_.outlier_width >= 0) gext[L_.outlier_width] = g.outlier_wide * 2.0 * width;
+    if (L_.outlier_factor >= 0) gext[L_.outlier_factor] = g.outlier_factor;
     if (L_.blend >= 0) gext[L_.blend] = g.blend, gext[L_.blend_scale] = g.blend_scale;
     if (L_.distance_scale >= 0) {
       gext[L_.distance_scale] = g.log_scale / t[L_.distance_scale];
@@ -287,7 +296,7 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
     const bool no_blends = layout.blend >= 0 && theta[layout.blend] < 1e-3;
     const bool edge = (j == layout.sigma && theta[j] < 1e-3) ||
                       (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
-                                       j == layout.outlier_width)) ||
+                                       j == layout.outlier_width || j == layout.outlier_factor)) ||
                       (no_blends && (j == layout.blend || j == layout.blend_scale));
     if (edge) {
       undetermined.push_back(layout.names[static_cast<std::size_t>(j)]);

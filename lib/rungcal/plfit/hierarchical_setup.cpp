@@ -94,6 +94,7 @@ void hierarchical_start(const FitData& d, const FitSettings& s, const ParameterL
   if (L.outlier >= 0) t[L.outlier] = 0.02;
   if (L.outlier_shift >= 0) t[L.outlier_shift] = s.hierarchical.outlier_mag_shift;
   if (L.outlier_width >= 0) t[L.outlier_width] = s.hierarchical.outlier_mag_width;
+  if (L.outlier_factor >= 0) t[L.outlier_factor] = s.hierarchical.outlier_parallax_factor;
   if (L.blend >= 0)
     t[L.blend] = 0.02, t[L.blend_scale] = s.params[static_cast<std::size_t>(L.blend_scale)].value;
   if (L.distance_scale >= 0) {

@@ -66,6 +66,7 @@ struct JointLayout {
   std::vector<int> sigma;  // per relation (hierarchical only)
   int correlation = -1;    // rho (hierarchical only)
   int outlier = -1, outlier_shift = -1, outlier_width = -1, blend = -1, blend_scale = -1;
+  int outlier_factor = -1;
   int distance_scale = -1, distance_power = -1, distance_exponent = -1;
   int distance_bin0 = -1, distance_bins = 0;
   int feh_mean = -1, feh_spread = -1;

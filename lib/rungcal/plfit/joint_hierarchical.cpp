@@ -39,6 +39,7 @@ std::vector<Scale> scales_of(const JointLayout& L) {
        {L.outlier_width, L.blend_scale, L.distance_scale, L.distance_exponent, L.feh_spread})
     set(j, Scale::kLog);
   set(L.distance_power, Scale::kLogPlusOne);
+  set(L.outlier_factor, Scale::kLogAboveThree);
   return s;
 }
 
@@ -152,14 +153,17 @@ class JointEvaluator final : public Objective {
     const double width = L_.outlier_width >= 0 ? t[L_.outlier_width] : h.outlier_mag_width;
     const double wide = width * width,
                  shift = L_.outlier_shift >= 0 ? t[L_.outlier_shift] : h.outlier_mag_shift;
-    const double plx_factor2 = h.outlier_parallax_factor * h.outlier_parallax_factor;
+    const double plx_factor =
+        L_.outlier_factor >= 0 ? t[L_.outlier_factor] : h.outlier_parallax_factor;
+    const double plx_factor2 = plx_factor * plx_factor;
     const bool rising_outliers = h.outlier_parallax == OutlierParallaxLaw::kRising;
     const ParallaxOutlierShape plx_shape = parallax_outlier_shape(rising_outliers, wide, shift);
     const double log_w_member = (mixture_ ? log_1f : 0.0) + (blends_ ? log_1fb : 0.0);
     const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
 
     Eigen::VectorXd g = Eigen::VectorXd::Zero(L_.size);  // d ln L / d external
-    double log_l = 0, g_outlier = 0, g_shift = 0, g_wide = 0, g_blend = 0, g_blend_scale = 0;
+    double log_l = 0, g_outlier = 0, g_shift = 0, g_wide = 0, g_factor = 0, g_blend = 0,
+           g_blend_scale = 0;
     double g_feh_var = 0;
     for (int i = 0; i < d_.stars(); ++i) {
       const int e0 = d_.first[static_cast<std::size_t>(i)],
@@ -280,6 +284,11 @@ class JointEvaluator final : public Objective {
         g_outlier += q_out / f - (q + q_blend) / (1.0 - f);
         if (kind != JointStarKind::kParallax || plx_shape.fitted)
           g_shift -= q_out * outlier.d_m, g_wide += q_out * outlier.d_v;
+        // Its parallax variance is F^2 sigma_pi^2.
+        if (kind == JointStarKind::kParallax)
+          g_factor += q_out * outlier.d_var_plx * 2.0 * plx_factor * d_.var_plx[si];
+        else if (own)
+          g_factor += own->d_factor(q_out, plx_factor, d_.var_plx[si]);
       }
       if (blends_) {
         g_blend += q_blend / fb - q / (1.0 - fb);
@@ -345,6 +354,7 @@ class JointEvaluator final : public Objective {
     if (L_.outlier >= 0) g[L_.outlier] = g_outlier;
     if (L_.outlier_shift >= 0) g[L_.outlier_shift] = g_shift;
     if (L_.outlier_width >= 0) g[L_.outlier_width] = g_wide * 2.0 * width;
+    if (L_.outlier_factor >= 0) g[L_.outlier_factor] = g_factor;
     if (L_.blend >= 0) g[L_.blend] = g_blend, g[L_.blend_scale] = g_blend_scale;
     if (feh_errors) g[L_.feh_spread] = g_feh_var * 2.0 * t[L_.feh_spread];
     double value = -log_l;
@@ -396,6 +406,7 @@ JointLayout JointLayout::make_hierarchical(const std::vector<std::string>& names
   L.outlier = copy(shared.outlier);
   L.outlier_shift = copy(shared.outlier_shift);
   L.outlier_width = copy(shared.outlier_width);
+  L.outlier_factor = copy(shared.outlier_factor);
   L.blend = copy(shared.blend);
   L.blend_scale = copy(shared.blend_scale);
   L.blend_ratio.assign(names.size(), -1);
@@ -450,7 +461,7 @@ bool joint_hierarchical_covariance(const JointData& data, const FitSettings& set
         theta[j] < 1e-3;
     const bool edge = scatter_gone ||
                       (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
-                                       j == layout.outlier_width)) ||
+                                       j == layout.outlier_width || j == layout.outlier_factor)) ||
                       (no_blends && (j == layout.blend || j == layout.blend_scale ||
                                      std::find(layout.blend_ratio.begin(), layout.blend_ratio.end(),
                                                j) != layout.blend_ratio.end()));

@@ -117,6 +117,8 @@ double to_internal(Scale s, double v) {
     }
     case Scale::kAtanh:
       return std::atanh(std::clamp(v, -1.0 + 1e-12, 1.0 - 1e-12));
+    case Scale::kLogAboveThree:
+      return std::log(std::max(v - 3.0, 1e-12));
   }
   return v;
 }
@@ -133,6 +135,8 @@ double to_external(Scale s, double x) {
       return 1.0 / (1.0 + std::exp(-x));
     case Scale::kAtanh:
       return std::tanh(x);
+    case Scale::kLogAboveThree:
+      return 3.0 + std::exp(x);
   }
   return x;
 }
@@ -149,6 +153,8 @@ double slope_of(Scale s, double v) {
       return v * (1.0 - v);
     case Scale::kAtanh:
       return 1.0 - v * v;
+    case Scale::kLogAboveThree:
+      return v - 3.0;
   }
   return 1.0;
 }

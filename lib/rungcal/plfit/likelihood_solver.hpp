@@ -23,6 +23,9 @@ enum class Scale {
   kLogPlusOne,  // v > -1: x = ln(v + 1)
   kLogit,       // 0 < v < 1: x = ln(v / (1 - v))
   kAtanh,       // -1 < v < 1: x = atanh v
+  // v > 3: x = ln(v - 3). The outlier component's parallax factor: a deviation of three
+  // errors or fewer is a member's, and a factor free below that would take the members' tails.
+  kLogAboveThree,
 };
 
 // The solver never reaches an edge of a domain; a value on it (a scatter fixed or started at

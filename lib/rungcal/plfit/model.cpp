@@ -45,6 +45,7 @@ ParameterLayout ParameterLayout::for_terms(const ModelTerms& terms,
     add(L.outlier, "outlier_fraction");
     add(L.outlier_shift, "outlier_shift_mag");
     add(L.outlier_width, "outlier_width_mag");
+    add(L.outlier_factor, "outlier_parallax_factor");
     if (terms.blends) {
       add(L.blend, "blend_fraction");
       add(L.blend_scale, "blend_scale_mag");

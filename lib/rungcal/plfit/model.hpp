@@ -73,6 +73,7 @@ struct ParameterLayout {
   // The hierarchical model's own: outlier fraction, distance-prior hyperparameters (L in kpc,
   // k, a: see DistancePriorFamily), and the [Fe/H] population's mean and spread.
   int outlier = -1, outlier_shift = -1, outlier_width = -1;
+  int outlier_factor = -1;           // the outlier component's parallax error factor F
   int blend = -1, blend_scale = -1;  // the blend component's fraction and mean brightening (mag)
   int distance_scale = -1, distance_power = -1, distance_exponent = -1;
   int feh_mean = -1, feh_spread = -1;
