@@ -91,6 +91,14 @@ TEST(Study, KeepsEachMocksFiguresInSeedOrder) {
   EXPECT_EQ(j["per_mock"].size(), 3U);
   EXPECT_EQ(j["parameter_names"][0], "alpha");
   EXPECT_DOUBLE_EQ(j["truth"]["alpha"].get<double>(), -5.9);
+  // Beside them, the mixture's fitted shape: the factor held at its default, a fraction.
+  for (const StudyMock& d : r.per_mock) {
+    ASSERT_EQ(d.mixture.size(), 4U);
+    EXPECT_DOUBLE_EQ(d.mixture.at("outlier_parallax_factor"), 10.0);
+    EXPECT_GE(d.mixture.at("outlier_fraction"), 0.0);
+    EXPECT_LT(d.mixture.at("outlier_fraction"), 1.0);
+  }
+  EXPECT_DOUBLE_EQ(j["per_mock"][0]["mixture"]["outlier_parallax_factor"].get<double>(), 10.0);
 }
 
 TEST(Study, PoolingTwoRunsIsOneRunOfAllTheirMocks) {
@@ -99,8 +107,10 @@ TEST(Study, PoolingTwoRunsIsOneRunOfAllTheirMocks) {
   const std::string b = written(dir, "b.json", small_run(4, 3));
   const StudyResult pooled = combine_studies({a, b});
   expect_same_rows(pooled, small_run(1, 6));
-  // A run read back is the run.
-  expect_same_rows(read_study_run(a), small_run(1, 3));
+  // A run read back is the run, its mixture shapes too.
+  const StudyResult back = read_study_run(a);
+  expect_same_rows(back, small_run(1, 3));
+  EXPECT_EQ(back.per_mock[1].mixture, small_run(1, 3).per_mock[1].mixture);
 }
 
 TEST(Study, PoolingRefusesRepeatedSeedsAndOtherSetups) {

@@ -48,6 +48,16 @@ void record_joint(const JointResult& j, const std::vector<std::string>& paramete
   }
 }
 
+// The fitted mixture shape, by name, from a layout's names and the solution's theta.
+void record_mixture(const std::vector<std::string>& names, const Eigen::VectorXd& theta,
+                    StudyMock& d) {
+  for (const std::string& name : kMixtureShapeNames) {
+    const auto at = std::find(names.begin(), names.end(), name);
+    if (at != names.end() && std::isfinite(theta[at - names.begin()]))
+      d.mixture[name] = theta[at - names.begin()];
+  }
+}
+
 }  // namespace
 
 std::string StudyOptions::check() const {
@@ -90,8 +100,10 @@ StudyResult run_study(const StudyOptions& o) {
                             s.more_relations.empty() ? nullptr : &coefficients);
       if (fit.joint) {
         record_joint(*r.joint, o.parameters, d);
+        record_mixture(r.joint->layout.names, r.joint->solution.theta, d);
       } else {
         const RelationResult& rr = r.relations.at(0);
+        record_mixture(rr.layout.names, rr.solution.theta, d);
         d.ok = rr.solution.usable && rr.covariance_ok;
         if (!rr.solution.usable)
           d.failure = "solver: " + rr.solution.termination;
@@ -205,6 +217,7 @@ nlohmann::json StudyResult::to_json() const {
                         {"bootstrap_error", numbers(d.bootstrap_error)},
                         {"bootstrap_sd", numbers(d.bootstrap_sd)}};
     if (!d.ok) m["failure"] = d.failure;
+    if (!d.mixture.empty()) m["mixture"] = d.mixture;
     j["per_mock"].push_back(std::move(m));
   }
   return j;

@@ -59,7 +59,14 @@ struct StudyMock {
   // The resamples' standard deviation (NaN without a bootstrap, or in a run written before
   // 2026-12-04).
   std::vector<double> bootstrap_sd;
+  // The mixture's fitted shape (kMixtureShapeNames that the fit has; none in a run written
+  // before 2026-12-05): what the outlier and blend components took, which no truth gives.
+  std::map<std::string, double> mixture;
 };
+
+// The mixture parameters each mock keeps beside the study's (StudyMock::mixture).
+inline const std::vector<std::string> kMixtureShapeNames = {
+    "outlier_fraction", "outlier_parallax_factor", "blend_fraction", "blend_scale_mag"};
 
 struct StudyResult {
   std::vector<StudyRow> rows;

@@ -56,6 +56,15 @@ StudyMock read_mock(const nlohmann::json& m, std::size_t parameters, const std::
   d.bootstrap_sd = m.contains("bootstrap_sd")
                        ? numbers("bootstrap_sd")
                        : std::vector<double>(n, std::numeric_limits<double>::quiet_NaN());
+  if (m.contains("mixture")) {
+    if (!m["mixture"].is_object())
+      refuse(path, at + ".mixture", "study_format", "the mixture shape is an object of numbers");
+    for (const auto& [name, value] : m["mixture"].items()) {
+      if (!value.is_number())
+        refuse(path, fmt::format("{}.mixture.{}", at, name), "study_format", "must be a number");
+      d.mixture[name] = value.get<double>();
+    }
+  }
   return d;
 }
 
