@@ -214,9 +214,9 @@ struct HierarchicalSettings {
   // The outlier component: the member's magnitude variance plus outlier_mag_width^2, its
   // magnitude brighter by outlier_mag_shift (blends only brighten), its parallax error
   // times outlier_parallax_factor, its parallax law outlier_parallax (under the rising law a
-  // parallax star's outlier has the member's magnitude term). The shift and width are
-  // parameters (outlier_shift_mag, outlier_width_mag), fixed at these values unless the
-  // config frees them.
+  // parallax star's outlier has the member's magnitude term). The shift, width and factor are
+  // parameters (outlier_shift_mag, outlier_width_mag, outlier_parallax_factor), fixed at
+  // these values unless the config frees them (then their starts).
   double outlier_mag_width = 1.0;
   double outlier_mag_shift = 0.0;
   double outlier_parallax_factor = 10.0;
