@@ -12,7 +12,7 @@ it reproduces the study's sigma_int bias (docs/method.md) and lets one vary the 
 
   sigma_int_toy.py outliers --distances flat --stars 3000 --mocks 40 --width 1 --factor 10
   sigma_int_toy.py outliers ... --law mock   (the outlier component is the mocks' own law)
-  sigma_int_toy.py outliers ... --law rising --fit-factor   (rungcal's default since 2026-12-05)
+  sigma_int_toy.py outliers ... --law rising [--fit-factor]   (rungcal's default law; F held at 10 unless fitted)
   sigma_int_toy.py outliers ... --law rising --fit-factor --floor 0 --outlier-fraction 0
   sigma_int_toy.py reml --distances disk --stars 300 --mocks 200
 """

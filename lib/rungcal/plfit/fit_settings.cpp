@@ -108,31 +108,28 @@ void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
       rr.settings.params[j] =
           ParamSpec{ParamMode::kFixed,
                     j == L.distance_scale ? 1.0 : (j == L.distance_power ? 2.0 : 1.0), 0, true};
+  // A free parameter the sample cannot measure is held where it starts, with a warning.
+  auto hold = [&](int j, const char* why) {
+    ParamSpec& p = rr.settings.params[static_cast<std::size_t>(j)];
+    if (p.mode == ParamMode::kFixed) return;
+    rr.warnings.push_back(
+        fmt::format("{}: held at {:g}: {}", L.names[static_cast<std::size_t>(j)], p.value, why));
+    p = ParamSpec{ParamMode::kFixed, p.value, 0, true};
+  };
   // Under the rising parallax law the outlier's magnitude shape is that of stars whose
   // distance is given; without any, a free shift or width would leave the Hessian singular.
   const bool given_distances = c.data.known.size() > 0 || c.data.anchor.size() > 0;
   if (L.outlier_shift >= 0 && !given_distances &&
       rr.settings.hierarchical.outlier_parallax == OutlierParallaxLaw::kRising)
-    for (int j : {L.outlier_shift, L.outlier_width}) {
-      ParamSpec& p = rr.settings.params[static_cast<std::size_t>(j)];
-      if (p.mode == ParamMode::kFixed) continue;
-      rr.warnings.push_back(fmt::format(
-          "{}: held at {:g}: under the rising parallax law it shapes the outliers among stars "
-          "of given distance, and the sample has none",
-          L.names[static_cast<std::size_t>(j)], p.value));
-      p = ParamSpec{ParamMode::kFixed, p.value, 0, true};
-    }
+    for (int j : {L.outlier_shift, L.outlier_width})
+      hold(j,
+           "under the rising parallax law it shapes the outliers among stars of given distance, "
+           "and the sample has none");
   // The outlier's parallax factor shapes stars with a parallax of their own; without any it
   // has nothing to fit.
   const bool own_parallaxes = c.data.parallax.size() > 0 || (c.data.anchor_var_plx > 0).any();
-  if (L.outlier_factor >= 0 && !own_parallaxes) {
-    ParamSpec& p = rr.settings.params[static_cast<std::size_t>(L.outlier_factor)];
-    if (p.mode != ParamMode::kFixed) {
-      rr.warnings.push_back(fmt::format(
-          "outlier_parallax_factor: held at {:g}: no star has a parallax of its own", p.value));
-      p = ParamSpec{ParamMode::kFixed, p.value, 0, true};
-    }
-  }
+  if (L.outlier_factor >= 0 && !own_parallaxes)
+    hold(L.outlier_factor, "no star has a parallax of its own");
 }
 
 std::string undetermined_reason(const std::string& name, double value) {
