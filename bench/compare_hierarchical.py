@@ -49,7 +49,8 @@ WALK = get("histogram_walk_sigma")
 if get("histogram_kernel_fraction") != 1.0:  # the reference's kernels are one step wide
     sys.exit("compare_hierarchical.py: the histogram's kernels must be the default (one step wide)")
 BLEND_MIN = get("blend_min_mag")
-RISING = info["outlier_parallax_law"][0][0] == "rising"
+LAW = info["outlier_parallax_law"][0][0]
+POWER = {"gaussian": 0, "rising": 1, "quartic": 2}[LAW]  # the law's power of e^2 (model.hpp)
 MEMBER_RULE = rule(int(get("quadrature_nodes")))
 BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
 
@@ -104,10 +105,10 @@ class Likelihood:
         V = self.vm + sigma * sigma + gamma * gamma * wz
         cm, co, cb = self.caches
         A = component(r, V, bs, gaussian, MEMBER_RULE, 1.0, self.plx, self.vp, 0.0, off, c0, H, logw, cm)
-        # Under the rising law a parallax star's outlier has the member's magnitude term.
-        shape = 0.0 if RISING else 1.0
+        # Under the rising and quartic laws a parallax star's outlier has the member's magnitude term.
+        shape = 0.0 if POWER else 1.0
         O = component(r, V + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, factor ** 2 * self.vp,
-                      shape * shift, off, c0, H, logw, co, rising=RISING)
+                      shape * shift, off, c0, H, logw, co, power=POWER)
         Bl = component(r, V, bs, rising_blend, BLEND_RULE, 1.3, self.plx, self.vp, BLEND_MIN, off, c0, H, logw, cb)
         li, qa, qo, qb, d_f, d_fb = mixture(f, fb, A[0], O[0], Bl[0])
         mix = lambda k: qa * A[k] + qo * O[k] + qb * Bl[k]
@@ -149,7 +150,7 @@ for _ in range(5):
     everyone()(COORD.to_internal(theta_r)[FREE])
 numpy_eval_ms = (time.perf_counter() - t0) / 5 * 1e3
 nll_r = get("neg_log_likelihood")
-print(f"stars {N}, hierarchical likelihood, smooth histogram ({NB} bins of {H} mag), outlier ({'rising' if RISING else 'Gaussian'} "
+print(f"stars {N}, hierarchical likelihood, smooth histogram ({NB} bins of {H} mag), outlier ({LAW} "
       f"parallax law) and rising-blend "
       f"mixture, sigma_int free, [Fe/H] errors marginalised")
 print(f"-ln L at rungcal's optimum: rungcal {nll_r:.10f}, numpy {value:.10f} "

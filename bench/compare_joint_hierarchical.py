@@ -78,7 +78,8 @@ WALK = get("histogram_walk_sigma")
 if get("histogram_kernel_fraction") != 1.0:  # the reference's kernels are one step wide
     sys.exit("compare_joint_hierarchical.py: the histogram's kernels must be the default (one step wide)")
 BLEND_MIN = get("blend_min_mag")
-RISING = info["outlier_parallax_law"][0][0] == "rising"
+LAW = info["outlier_parallax_law"][0][0]
+POWER = {"gaussian": 0, "rising": 1, "quartic": 2}[LAW]  # the law's power of e^2 (model.hpp)
 MEMBER_RULE = rule(int(get("quadrature_nodes")))
 BLEND_RULE = rule(min(128, int(get("quadrature_nodes")) * 5 // 3))
 
@@ -170,10 +171,10 @@ class Likelihood:
         tilt = u @ kap
         cm, co, cb = self.caches
         A = component(m_eff, v, bs, gaussian, MEMBER_RULE, 1.0, self.plx, self.vp, 0.0, off, c0, H, logw, cm)
-        # Under the rising law a parallax star's outlier has the member's magnitude term.
-        shape = 0.0 if RISING else 1.0
+        # Under the rising and quartic laws a parallax star's outlier has the member's magnitude term.
+        shape = 0.0 if POWER else 1.0
         O = component(m_eff, v + shape * wide, bs, gaussian, MEMBER_RULE, 1.0, self.plx, factor ** 2 * self.vp,
-                      shape * shift, off, c0, H, logw, co, rising=RISING)
+                      shape * shift, off, c0, H, logw, co, power=POWER)
         Bl = component(m_eff + kap_eff * BLEND_MIN, v, bs, coloured_rising_blend, BLEND_RULE, 1.3, self.plx,
                        self.vp, 0.0, off, c0, H, logw, cb, (kap_eff, D, tilt + BLEND_MIN * D))
         blend_log_l = Bl[0] - BLEND_MIN * tilt - 0.5 * BLEND_MIN ** 2 * D
@@ -243,7 +244,7 @@ for _ in range(5):
 numpy_eval_ms = (time.perf_counter() - t0) / 5 * 1e3
 nll_r = get("neg_log_likelihood")
 print(f"stars {N}, relations {', '.join(relations)}, hierarchical joint likelihood, smooth histogram ({NB} bins of "
-      f"{H} mag), outlier ({'rising' if RISING else 'Gaussian'} parallax law) and coloured rising-blend mixture (blend ratios free), sigma_int per relation, rho free, "
+      f"{H} mag), outlier ({LAW} parallax law) and coloured rising-blend mixture (blend ratios free), sigma_int per relation, rho free, "
       f"E(B-V) and [Fe/H] errors")
 print(f"-ln L at rungcal's optimum: rungcal {nll_r:.10f}, numpy {value:.10f} (difference {value - nll_r:.2e})")
 print(f"gradient there (free parameters, solver coordinates): max |rungcal - numpy| = "

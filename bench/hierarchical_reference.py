@@ -180,7 +180,7 @@ def rising_blend(r, V, s):
 
 
 def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, logw, cache, colour=(),
-              rising=False):
+              power=0):
     """One mixture component's integral over mu per star,
         int dmu p(mu) mag(m - mu + shift | V, s, *colour) N(plx | 10^(-0.2 (mu - 10)) + off, vp),
     m: each star's magnitude less its model; shift: how much brighter the component starts;
@@ -190,8 +190,9 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     d ln p / d eta_j (j >= 1), then those of the magnitude term's derivatives in the colour
     arguments, and last that of the parallax term's d/dvp. quad: rule(n); width_factor: the width in curvature widths.
     cache: each star's last mode, the next Newton start.
-    rising: the parallax term is (e^2 / vp) N(e | 0, vp) (the outlier component's rising law),
-    its factor e^2 on the nodes of the Gaussian part's rule."""
+    power k: the parallax term is (e^2 / vp)^k N(e | 0, vp) / (2k - 1)!! (the outlier
+    component's rising law k = 1, quartic k = 2), its factor e^2k on the nodes of the Gaussian
+    part's rule."""
     nodes, logw_q = quad
 
     def curvature(i, mu):
@@ -225,9 +226,9 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
                                           *(c[:, None] for c in colour))
     e = plx[:, None] - pt - off
     terms = logw_q + logp + lp - 0.5 * e * e / vp[:, None]
-    if rising:
+    if power:
         with np.errstate(divide="ignore"):
-            terms = terms + np.log(e * e / vp[:, None])
+            terms = terms + power * np.log(e * e / vp[:, None]) - (np.log(3.0) if power == 2 else 0.0)
     top = terms.max(1)
     q = np.exp(terms - top[:, None])
     tot = q.sum(1)
@@ -236,10 +237,10 @@ def component(m, V, s, mag, quad, width_factor, plx, vp, shift, off, c0, step, l
     d_eta = np.einsum("nk,nkb->nb", q, resp)[:, 1:] - np.exp(logw[1:])
     d_s = (q * d_s).sum(1) if np.ndim(d_s) else 0.0
     d_off = (q * e).sum(1) / vp
-    if rising:  # d ln e^2 / d off = -2 / e, its weight vanishing where e does
-        d_off -= 2.0 * (q * np.divide(1.0, e, out=np.zeros_like(e), where=e != 0)).sum(1)
-    # d/dvp of -e^2 / (2 vp) - ln(vp) / 2, and of ln(e^2 / vp) under the rising law.
-    d_vp = (0.5 * (q * e * e).sum(1) / vp - (1.5 if rising else 0.5)) / vp
+    if power:  # d ln e^2k / d off = -2k / e, its weight vanishing where e does
+        d_off -= 2.0 * power * (q * np.divide(1.0, e, out=np.zeros_like(e), where=e != 0)).sum(1)
+    # d/dvp of -e^2 / (2 vp) - ln(vp) / 2, and of k ln(e^2 / vp).
+    d_vp = (0.5 * (q * e * e).sum(1) / vp - (0.5 + power)) / vp
     return (log_l, (q * d_r).sum(1), (q * d_v).sum(1), d_s, d_off, (q * dlogp).sum(1), d_eta,
             *((q * d).sum(1) for d in d_colour), d_vp)
 

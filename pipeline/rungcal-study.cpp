@@ -93,8 +93,9 @@ int main(int argc, char** argv) {
   app.add_option("--outlier-width", study.fit.outlier_width.value,
                  "outlier component's extra width (mag)")
       ->capture_default_str();
-  app.add_option("--outlier-parallax-law", choice.outlier_parallax_law,
-                 "outlier component's parallax law: gaussian or rising (default: the fit's)");
+  app.add_option(
+      "--outlier-parallax-law", choice.outlier_parallax_law,
+      "outlier component's parallax law: gaussian, rising or quartic (default: the fit's)");
   app.add_option("--scatter-correction", choice.scatter_correction,
                  "the scatters' estimate: restricted (maximum likelihood with the location "
                  "parameters integrated out) or none (maximum likelihood; default: the fit's)");

@@ -61,6 +61,14 @@ def rising_log(r, s2, v):
     return gauss_log(r, t) + np.log((m * m + w) / s2)
 
 
+def quartic_log(r, s2, v):
+    """ln of (e^4 / 3 s^4) N(e | 0, s^2) convolved with N(0, v), at r: as rising_log, with
+    E[e^4 | r] = m^4 + 6 m^2 w + 3 w^2."""
+    t = s2 + v
+    m, w = r * s2 / t, s2 * v / t
+    return gauss_log(r, t) + np.log((m**4 + 6 * m * m * w + 3 * w * w) / (3 * s2 * s2))
+
+
 def fit_outlier_mixture(s, args):
     """ML sigma_int and f with the relation and the offset held at the truth."""
     model_plx = 10 ** (-0.2 * (s["m"] - s["abs_mag"] - 10)) + OFFSET
@@ -81,6 +89,8 @@ def fit_outlier_mixture(s, args):
             outlier = np.logaddexp.reduce(terms, axis=0) - np.log(len(terms))
         elif args.law == "rising":  # rungcal's default: the member's magnitude term
             outlier = rising_log(r, (factor(t) * err) ** 2, v_member)
+        elif args.law == "quartic":  # zero at e = 0 to fourth order, peaked at +-2 s
+            outlier = quartic_log(r, (factor(t) * err) ** 2, v_member)
         else:
             outlier = gauss_log(r, (factor(t) * err) ** 2 + slope**2 * (var + args.width**2))
         return -np.sum(np.logaddexp(np.log(1 - f) + member, np.log(f) + outlier))
@@ -126,7 +136,7 @@ def main():
     p.add_argument("--stars", type=int, default=3000)
     p.add_argument("--mocks", type=int, default=40)
     p.add_argument("--outlier-fraction", type=float, default=0.03)
-    p.add_argument("--law", choices=["gaussian", "rising", "mock"], default="gaussian",
+    p.add_argument("--law", choices=["gaussian", "rising", "quartic", "mock"], default="gaussian",
                    help="the fit's outlier component: rungcal's Gaussian or rising one, or the mocks' own law")
     p.add_argument("--width", type=float, default=1.0, help="outlier magnitude width (mag; Gaussian law)")
     p.add_argument("--factor", type=float, default=10.0, help="outlier parallax error factor (its start if fitted)")

@@ -281,20 +281,20 @@ OneStar one_parallax_star(const OneStarCase& c) {
   return o;
 }
 // ln L of the case by scipy.integrate.quad over mu (method brief, section 4b): the member's
-// integrand, or with `rising_outlier` the outlier component's under the rising law, its
-// parallax variance 100 sigma_pi^2 and the factor e^2 / (100 sigma_pi^2).
-double one_star_scipy(const OneStarCase& c, bool rising_outlier) {
+// integrand (power 0), or the outlier component's under the law of power k (1 rising, 2
+// quartic), its parallax variance s^2 = 100 sigma_pi^2 and the factor (e^2 / s^2)^k / (2k - 1)!!.
+double one_star_scipy(const OneStarCase& c, int outlier_power) {
   const std::string script = R"(
 import sys, numpy as np
 from scipy import integrate, special
-m, vm, plx, vp, M, off, L, k, a, rising = map(float, sys.argv[1:11])
-if rising:
+m, vm, plx, vp, M, off, L, k, a, power = map(float, sys.argv[1:11])
+if power:
     vp *= 100.0
 def f(mu):
     d = 10 ** (0.2 * mu - 2)
     prior = a / (L ** (k + 1) * special.gamma((k + 1) / a)) * d ** k * np.exp(-(d / L) ** a) * d * np.log(10) / 5
     e = plx - 10 ** (-0.2 * (mu - 10)) - off
-    factor = e * e / vp if rising else 1.0
+    factor = (e * e / vp) ** power / (3.0 if power == 2 else 1.0)
     return prior * np.exp(-0.5 * (m - mu - M) ** 2 / vm) / np.sqrt(2 * np.pi * vm) \
          * factor * np.exp(-0.5 * e * e / vp) / np.sqrt(2 * np.pi * vp)
 centre = m - M
@@ -306,7 +306,7 @@ print(repr(np.log(v)))
   test::CommandResult py = test::run_python(
       script, {fmt::format("{:.17g}", c.m0), fmt::format("{:.17g}", c.var_m),
                fmt::format("{:.17g}", c.plx), fmt::format("{:.17g}", c.plx_err * c.plx_err), "-4.1",
-               "-0.015", "1.3", "2", "1", rising_outlier ? "1" : "0"});
+               "-0.015", "1.3", "2", "1", std::to_string(outlier_power)});
   EXPECT_EQ(py.exit_code, 0) << py.output;
   const std::vector<double> v = test::parse_numbers(py.output);
   return v.empty() ? std::nan("") : v[0];
@@ -326,16 +326,17 @@ TEST(Hierarchical, QuadratureEqualsScipyQuadForPreciseNoisyAndNegativeParallaxes
     const double ours = -o.value();
     o.settings.hierarchical.quadrature_nodes = 64;
     EXPECT_NEAR(-o.value(), ours, 1e-10) << "24 against 64 nodes";
-    const double reference = one_star_scipy(c, false);
+    const double reference = one_star_scipy(c, 0);
     EXPECT_NEAR(ours, reference, 1e-9 * std::max(1.0, std::abs(reference))) << "parallax " << c.plx;
   }
 }
 
-// Both parallax laws of the outlier component (the rising default and the Gaussian), with
-// and without an anchor's own parallaxes (rising_parallax_at_modulus): the gradient against
-// central differences.
-TEST(Hierarchical, GradientUnderEitherOutlierParallaxLawEqualsCentralDifferences) {
-  for (OutlierParallaxLaw law : {OutlierParallaxLaw::kRising, OutlierParallaxLaw::kGaussian}) {
+// Every parallax law of the outlier component (the rising default, the Gaussian and the
+// quartic), with and without an anchor's own parallaxes (powered_parallax_at_modulus): the
+// gradient against central differences.
+TEST(Hierarchical, GradientUnderEveryOutlierParallaxLawEqualsCentralDifferences) {
+  for (OutlierParallaxLaw law :
+       {OutlierParallaxLaw::kRising, OutlierParallaxLaw::kGaussian, OutlierParallaxLaw::kQuartic}) {
     SCOPED_TRACE(std::string(kOutlierParallaxLawNames.name(law)));
     MixedCase s = mixed_setup();
     s.settings.hierarchical.outlier_parallax = law;
@@ -376,7 +377,7 @@ TEST(Hierarchical, OutlierParallaxLawIsReadAndAnUnknownOneRefused) {
   EXPECT_EQ(FitOptions{}.hierarchical.outlier_parallax, OutlierParallaxLaw::kRising);
   expect_choice_read_and_refused(
       "outlier_parallax_law", "outlier_parallax_law = \"gaussian\"",
-      "outlier_parallax_law = \"uniform\"", "gaussian, rising", [](const FitOptions& o) {
+      "outlier_parallax_law = \"uniform\"", "gaussian, rising, quartic", [](const FitOptions& o) {
         EXPECT_EQ(o.hierarchical.outlier_parallax, OutlierParallaxLaw::kGaussian);
       });
 }
@@ -391,30 +392,35 @@ TEST(Hierarchical, ScatterCorrectionIsReadAndAnUnknownOneRefused) {
 }
 
 // One parallax star's outlier component under the rising law, (e^2 / s^2) N(e | 0, s^2) with
-// s = 10 sigma_pi and the member's magnitude term (the width set to 0.7 must not enter), by
-// scipy.integrate.quad (Debian python3-scipy), against the Gauss-Hermite rule that carries
-// e^2 on its nodes. The component is isolated with the outlier fraction fixed at 1 - 1e-6.
-TEST(Hierarchical, RisingOutlierLawEqualsScipyQuad) {
+// s = 10 sigma_pi, and under the quartic law, (e^4 / 3 s^4) N(e | 0, s^2), both with the
+// member's magnitude term (the width set to 0.7 must not enter), by scipy.integrate.quad
+// (Debian python3-scipy), against the Gauss-Hermite rule that carries e^2k on its nodes. The
+// component is isolated with the outlier fraction fixed at 1 - 1e-6.
+TEST(Hierarchical, RisingAndQuarticOutlierLawsEqualScipyQuad) {
   const OneStarCase cases[] = {{6.0, 0.0081, 0.7, 0.015},
                                {6.0, 0.0081, 1.3, 0.015},
                                {9.5, 0.0081, 0.06, 0.05},
                                {10.8, 0.05, -0.03, 0.04},
                                {4.0, 0.0081, 2.2, 0.02}};
   const double f = 1.0 - 1e-6;
-  for (const OneStarCase& c : cases) {
-    OneStar o = one_parallax_star(c);
-    o.theta[o.layout.outlier_shift] = 0.4, o.theta[o.layout.outlier_width] = 0.7;
-    auto log_l = [&](double fraction) {
-      o.settings.params[static_cast<std::size_t>(o.layout.outlier)] =
-          ParamSpec{ParamMode::kFixed, fraction, 0, true};
-      o.theta[o.layout.outlier] = fraction;
-      return -o.value();
-    };
-    const double member = std::exp(log_l(0.0)), mixed = std::exp(log_l(f));
-    const double ours = std::log((mixed - (1.0 - f) * member) / f);
-    const double reference = one_star_scipy(c, true);
-    EXPECT_NEAR(ours, reference, 1e-8 * std::max(1.0, std::abs(reference))) << "parallax " << c.plx;
-  }
+  for (OutlierParallaxLaw law : {OutlierParallaxLaw::kRising, OutlierParallaxLaw::kQuartic})
+    for (const OneStarCase& c : cases) {
+      SCOPED_TRACE(std::string(kOutlierParallaxLawNames.name(law)));
+      OneStar o = one_parallax_star(c);
+      o.settings.hierarchical.outlier_parallax = law;
+      o.theta[o.layout.outlier_shift] = 0.4, o.theta[o.layout.outlier_width] = 0.7;
+      auto log_l = [&](double fraction) {
+        o.settings.params[static_cast<std::size_t>(o.layout.outlier)] =
+            ParamSpec{ParamMode::kFixed, fraction, 0, true};
+        o.theta[o.layout.outlier] = fraction;
+        return -o.value();
+      };
+      const double member = std::exp(log_l(0.0)), mixed = std::exp(log_l(f));
+      const double ours = std::log((mixed - (1.0 - f) * member) / f);
+      const double reference = one_star_scipy(c, outlier_parallax_power(law));
+      EXPECT_NEAR(ours, reference, 1e-8 * std::max(1.0, std::abs(reference)))
+          << "parallax " << c.plx;
+    }
 }
 
 TEST(Hierarchical, GaussHermiteRuleEqualsNumpyHermgauss) {

@@ -210,13 +210,16 @@ TEST(JointHierarchical, OneRelationIsTheSingleRelationLikelihood) {
     EXPECT_NEAR(joint_value(cj, cj.theta), hierarchical_value(d, single, S, t).neg_log_likelihood,
                 1e-9);
   }
-  // Either parallax law of the outlier component.
+  // The other parallax laws of the outlier component.
   single.hierarchical.blends = BlendComponent::kRising;
-  single.hierarchical.outlier_parallax = OutlierParallaxLaw::kGaussian;
-  JointCase cj = c;
-  cj.settings.hierarchical.outlier_parallax = OutlierParallaxLaw::kGaussian;
-  EXPECT_NEAR(joint_value(cj, cj.theta), hierarchical_value(d, single, S, t).neg_log_likelihood,
-              1e-9);
+  for (OutlierParallaxLaw law : {OutlierParallaxLaw::kGaussian, OutlierParallaxLaw::kQuartic}) {
+    single.hierarchical.outlier_parallax = law;
+    JointCase cj = c;
+    cj.settings.hierarchical.outlier_parallax = law;
+    EXPECT_NEAR(joint_value(cj, cj.theta), hierarchical_value(d, single, S, t).neg_log_likelihood,
+                1e-9)
+        << kOutlierParallaxLawNames.name(law);
+  }
 }
 
 // The Python (numpy, scipy) that sets up one star of joint_case(3) at c's parameters: its
@@ -333,6 +336,8 @@ TEST(JointHierarchical, GradientEqualsCentralDifferencesOfTheLikelihood) {
   c.settings.hierarchical.blends = BlendComponent::kExponential;
   expect_gradient_matches_differences(c);
   c.settings.hierarchical.outlier_parallax = OutlierParallaxLaw::kGaussian;
+  expect_gradient_matches_differences(c);
+  c.settings.hierarchical.outlier_parallax = OutlierParallaxLaw::kQuartic;
   expect_gradient_matches_differences(c);
 }
 

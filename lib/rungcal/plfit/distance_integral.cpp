@@ -41,14 +41,16 @@ ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double 
   return o;
 }
 
-ParallaxAtModulus rising_parallax_at_modulus(double plx, double var, double mu, double offset) {
+ParallaxAtModulus powered_parallax_at_modulus(double plx, double var, double mu, double offset,
+                                              int power) {
   ParallaxAtModulus o = parallax_at_modulus(plx, var, mu, offset);
+  if (power == 0) return o;
   const double p = std::exp(-kC * (mu - 10.0)), r = plx - p - offset;
-  o.log_l += std::log(r * r / var);
-  o.d_var -= 1.0 / var;
+  o.log_l += power * std::log(r * r / var) - (power == 2 ? kLog3 : 0.0);
+  o.d_var -= power / var;
   if (r != 0.0) {  // at r = 0 the term is -infinity and its weight in the mixture zero
-    o.d_off -= 2.0 / r;
-    o.d_mu += 2.0 * kC * p / r;  // d r / d mu = 0.2 ln10 p
+    o.d_off -= 2.0 * power / r;
+    o.d_mu += 2.0 * power * kC * p / r;  // d r / d mu = 0.2 ln10 p
   }
   return o;
 }

@@ -19,6 +19,7 @@ namespace rungcal::hier {
 inline constexpr double kLn10 = 2.302585092994045684;
 inline constexpr double kC = 0.2 * kLn10;  // -d ln(parallax) / d mu
 inline constexpr double kLog2Pi = 1.8378770664093454836;
+inline constexpr double kLog3 = 1.0986122886681096914;  // the quartic law's ln (2k - 1)!!
 
 // Nodes with ln w_k + x_k^2 folded in, per order, built once.
 struct Quadrature {
@@ -120,15 +121,15 @@ inline int blend_nodes(int member_nodes) { return std::min(128, member_nodes * 5
 // term is `mag` (GaussianMagnitude or BlendMagnitude). m_shift: the model's apparent
 // magnitude less mu (M, or M - shift for the outlier component).
 // d_bins (histogram prior): d ln L / d eta_j, written (size B - 1).
-// rising_parallax: the parallax term is (e^2 / var_plx) N(e | 0, var_plx)
-// (OutlierParallaxLaw::kRising). The mode and width are the Gaussian part's, and the factor
-// e^2, nearly quadratic in mu across that width, rides on the nodes: Gauss-Hermite
-// integrates a polynomial times the Gaussian exactly.
+// parallax_power k: the parallax term is (e^2 / var_plx)^k N(e | 0, var_plx) / (2k - 1)!!
+// (outlier_parallax_power: 1 rising, 2 quartic). The mode and width are the Gaussian part's,
+// and the factor e^2k, nearly a polynomial in mu across that width, rides on the nodes:
+// Gauss-Hermite integrates a polynomial times the Gaussian exactly.
 template <class Magnitude>
 Component integrate_parallax(double m, const Magnitude& mag, double plx, double var_plx,
                              double m_shift, double offset, const DistancePriorShape& prior,
                              const Quadrature& q, double& mode_cache, double* d_bins,
-                             bool rising_parallax = false) {
+                             int parallax_power = 0) {
   // The mode by safeguarded Newton steps: the exact curvature where it is negative enough,
   // else its expected (Fisher) part, which is always negative.
   auto curvature = [&](double mu, double& slope, double& width_curvature) {
@@ -160,8 +161,8 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   curvature(mu, slope, width_h);
   mode_cache = mu;
   const double width = Magnitude::kWidthFactor / std::sqrt(width_h);
-  const double norm =
-      -0.5 * (kLog2Pi + std::log(var_plx));  // the magnitude term is normalised in `mag`
+  // The magnitude term is normalised in `mag`; ln 3 is the quartic law's (2k - 1)!!.
+  const double norm = -0.5 * (kLog2Pi + std::log(var_plx)) - (parallax_power == 2 ? kLog3 : 0.0);
   // Two passes: the log terms and their maximum, then the normalised weights' sums.
   const std::size_t n = q.nodes.size();
   double terms[128];
@@ -188,7 +189,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     e_of[k] = plx - pt - offset;
     terms[k] =
         q.log_weight[k] + pr_of[k].log_density + mp_of[k].log_p - 0.5 * e_of[k] * e_of[k] / var_plx;
-    if (rising_parallax) terms[k] += std::log(e_of[k] * e_of[k] / var_plx);
+    if (parallax_power) terms[k] += parallax_power * std::log(e_of[k] * e_of[k] / var_plx);
     top = std::max(top, terms[k]);
   }
   for (std::size_t k = 0; k < n; ++k) {
@@ -199,8 +200,8 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
     s_b += w * mp_of[k].d_scale;
     s_off += w * e_of[k];
     s_e2 += w * e_of[k] * e_of[k];
-    // d ln e^2 / d offset = -2 / e; the weight holds e^2, so the product vanishes at e = 0.
-    if (rising_parallax && e_of[k] != 0.0) s_rise -= 2.0 * w / e_of[k];
+    // d ln e^2k / d offset = -2k / e; the weight holds e^2k, so the product vanishes at e = 0.
+    if (parallax_power && e_of[k] != 0.0) s_rise -= 2.0 * parallax_power * w / e_of[k];
     s_l += w * pr_of[k].d_log_scale;
     s_k += w * pr_of[k].d_power;
     s_a += w * pr_of[k].d_exponent;
@@ -226,8 +227,8 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   c.d_v = s_v * inv;
   c.d_blend_scale = s_b * inv;
   c.d_off = (s_off / var_plx + s_rise) * inv;
-  // d/d var of -e^2 / (2 var) - ln(var) / 2, and of ln(e^2 / var) under the rising law.
-  c.d_var_plx = (0.5 * s_e2 * inv / var_plx - (rising_parallax ? 1.5 : 0.5)) / var_plx;
+  // d/d var of -e^2 / (2 var) - ln(var) / 2, and of k ln(e^2 / var).
+  c.d_var_plx = (0.5 * s_e2 * inv / var_plx - (0.5 + parallax_power)) / var_plx;
   c.d_log_scale = s_l * inv;
   c.d_power = s_k * inv;
   c.d_exponent = s_a * inv;
@@ -239,14 +240,15 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
 }
 
 // The outlier component's magnitude shape for a parallax star: the configured width^2 and
-// shift, or under the rising parallax law none, the member's magnitude term (its parallax is
-// what is off: OutlierParallaxLaw::kRising). `fitted`: whether the shape's parameters enter.
+// shift, or under the rising and quartic parallax laws (`gross`) none, the member's magnitude
+// term (its parallax is what is off: OutlierParallaxLaw::kRising). `fitted`: whether the
+// shape's parameters enter.
 struct ParallaxOutlierShape {
   double wide = 0, shift = 0;
   bool fitted = false;
 };
-inline ParallaxOutlierShape parallax_outlier_shape(bool rising, double wide, double shift) {
-  return rising ? ParallaxOutlierShape{} : ParallaxOutlierShape{wide, shift, true};
+inline ParallaxOutlierShape parallax_outlier_shape(bool gross, double wide, double shift) {
+  return gross ? ParallaxOutlierShape{} : ParallaxOutlierShape{wide, shift, true};
 }
 
 // A component's magnitude term for a star whose distance modulus is given (known, or an
@@ -272,19 +274,20 @@ struct ParallaxAtModulus {
 };
 ParallaxAtModulus parallax_at_modulus(double plx, double var, double mu, double offset);
 
-// The same term under OutlierParallaxLaw::kRising: ln[(r^2 / var) N(r | 0, var)].
-ParallaxAtModulus rising_parallax_at_modulus(double plx, double var, double mu, double offset);
+// The same term under the law of power k (outlier_parallax_power):
+// ln[(r^2 / var)^k N(r | 0, var) / (2k - 1)!!].
+ParallaxAtModulus powered_parallax_at_modulus(double plx, double var, double mu, double offset,
+                                              int power);
 
 // A member's own parallax in its mixture: the member and blend components take it with its
-// error, the outlier component with the error widened by `outlier_factor2`'s root and, if
-// `rising`, the rising law.
+// error, the outlier component with the error widened by `outlier_factor2`'s root and the law
+// of power `power` (outlier_parallax_power).
 struct OwnParallax {
   ParallaxAtModulus member, outlier;
   OwnParallax(double plx, double var, double outlier_factor2, double mu, double offset,
-              bool rising = false)
+              int power = 0)
       : member(parallax_at_modulus(plx, var, mu, offset)),
-        outlier(rising ? rising_parallax_at_modulus(plx, outlier_factor2 * var, mu, offset)
-                       : parallax_at_modulus(plx, outlier_factor2 * var, mu, offset)) {}
+        outlier(powered_parallax_at_modulus(plx, outlier_factor2 * var, mu, offset, power)) {}
   void add_to(Component& m, Component& out, Component& blend) const {
     m.log_l += member.log_l, out.log_l += outlier.log_l, blend.log_l += member.log_l;
   }

@@ -7,6 +7,7 @@
 #include <filesystem>
 #include <map>
 #include <numbers>
+#include <string_view>
 #include <thread>
 
 #include <fmt/format.h>
@@ -109,22 +110,24 @@ void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
           ParamSpec{ParamMode::kFixed,
                     j == L.distance_scale ? 1.0 : (j == L.distance_power ? 2.0 : 1.0), 0, true};
   // A free parameter the sample cannot measure is held where it starts, with a warning.
-  auto hold = [&](int j, const char* why) {
+  auto hold = [&](int j, std::string_view why) {
     ParamSpec& p = rr.settings.params[static_cast<std::size_t>(j)];
     if (p.mode == ParamMode::kFixed) return;
     rr.warnings.push_back(
         fmt::format("{}: held at {:g}: {}", L.names[static_cast<std::size_t>(j)], p.value, why));
     p = ParamSpec{ParamMode::kFixed, p.value, 0, true};
   };
-  // Under the rising parallax law the outlier's magnitude shape is that of stars whose
-  // distance is given; without any, a free shift or width would leave the Hessian singular.
+  // Under the rising and quartic parallax laws the outlier's magnitude shape is that of stars
+  // whose distance is given; without any, a free shift or width would leave the Hessian
+  // singular.
   const bool given_distances = c.data.known.size() > 0 || c.data.anchor.size() > 0;
   if (L.outlier_shift >= 0 && !given_distances &&
-      rr.settings.hierarchical.outlier_parallax == OutlierParallaxLaw::kRising)
+      outlier_parallax_power(rr.settings.hierarchical.outlier_parallax) > 0)
     for (int j : {L.outlier_shift, L.outlier_width})
       hold(j,
-           "under the rising parallax law it shapes the outliers among stars of given distance, "
-           "and the sample has none");
+           fmt::format("under the {} parallax law it shapes the outliers among stars of given "
+                       "distance, and the sample has none",
+                       kOutlierParallaxLawNames.name(rr.settings.hierarchical.outlier_parallax)));
   // The outlier's parallax factor shapes stars with a parallax of their own; without any it
   // has nothing to fit.
   const bool own_parallaxes = c.data.parallax.size() > 0 || (c.data.anchor_var_plx > 0).any();

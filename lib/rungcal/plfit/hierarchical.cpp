@@ -94,8 +94,8 @@ class Evaluator final : public Objective {
     const double plx_factor =
         L_.outlier_factor >= 0 ? t[L_.outlier_factor] : h.outlier_parallax_factor;
     const double plx_factor2 = plx_factor * plx_factor;
-    const bool rising_outliers = h.outlier_parallax == OutlierParallaxLaw::kRising;
-    const ParallaxOutlierShape plx_shape = parallax_outlier_shape(rising_outliers, wide, shift);
+    const int plx_power = outlier_parallax_power(h.outlier_parallax);
+    const ParallaxOutlierShape plx_shape = parallax_outlier_shape(plx_power > 0, wide, shift);
 
     const int n_anchors =
         (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;  // the layout's, not the settings'
@@ -138,7 +138,7 @@ class Evaluator final : public Objective {
             outlier = integrate_parallax(c.m0[i], GaussianMagnitude(V + plx_shape.wide), d_.plx[i],
                                          plx_factor2 * d_.var_plx[i], M - plx_shape.shift, offset,
                                          prior, k_.member_rule, k_.mode_outlier[k],
-                                         k_.bins_outlier.data(), rising_outliers);
+                                         k_.bins_outlier.data(), plx_power);
           if (blends_)
             blend = integrate_parallax(c.m0[i], BlendMagnitude(V, blend_scale, h.blends), d_.plx[i],
                                        d_.var_plx[i], M - blend_min, offset, prior, k_.blend_rule,
@@ -153,8 +153,7 @@ class Evaluator final : public Objective {
             blend = given_modulus(c.m0[i], BlendMagnitude(V + var_mu, blend_scale, h.blends), mu,
                                   M - blend_min);
           if (kind == 2 && d_.anchor_var_plx.size() && d_.anchor_var_plx[i] > 0) {
-            own.emplace(d_.anchor_plx[i], d_.anchor_var_plx[i], plx_factor2, mu, offset,
-                        rising_outliers);
+            own.emplace(d_.anchor_plx[i], d_.anchor_var_plx[i], plx_factor2, mu, offset, plx_power);
             own->add_to(member, outlier, blend);
           }
         }

@@ -156,8 +156,8 @@ class JointEvaluator final : public Objective {
     const double plx_factor =
         L_.outlier_factor >= 0 ? t[L_.outlier_factor] : h.outlier_parallax_factor;
     const double plx_factor2 = plx_factor * plx_factor;
-    const bool rising_outliers = h.outlier_parallax == OutlierParallaxLaw::kRising;
-    const ParallaxOutlierShape plx_shape = parallax_outlier_shape(rising_outliers, wide, shift);
+    const int plx_power = outlier_parallax_power(h.outlier_parallax);
+    const ParallaxOutlierShape plx_shape = parallax_outlier_shape(plx_power > 0, wide, shift);
     const double log_w_member = (mixture_ ? log_1f : 0.0) + (blends_ ? log_1fb : 0.0);
     const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
 
@@ -239,7 +239,7 @@ class JointEvaluator final : public Objective {
           outlier = integrate_parallax(red.m_eff, GaussianMagnitude(v_eff + plx_shape.wide),
                                        d_.plx[si], plx_factor2 * d_.var_plx[si], -plx_shape.shift,
                                        offset, prior, k_.member_rule, k_.mode_outlier[si],
-                                       k_.bins_outlier.data(), rising_outliers);
+                                       k_.bins_outlier.data(), plx_power);
         if (coloured_)
           blend = integrate_parallax(red.m_eff,
                                      ColouredBlendMagnitude(v_eff, blend_scale, h.blends, colour),
@@ -263,7 +263,7 @@ class JointEvaluator final : public Objective {
           blend =
               given_modulus(red.m_eff, BlendMagnitude(var, blend_scale, h.blends), mu, blend_shift);
         if (kind == JointStarKind::kGroup && d_.var_plx[si] > 0) {
-          own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset, rising_outliers);
+          own.emplace(d_.plx[si], d_.var_plx[si], plx_factor2, mu, offset, plx_power);
           own->add_to(member, outlier, blend);
         }
       }

@@ -182,11 +182,22 @@ enum class OutlierParallaxLaw {
   // to the stars whose distance is given (known-distance stars, anchor galaxies). The
   // default: docs/method.md, "The rising parallax law of the outlier component".
   kRising,
+  // (e^4 / 3 s^4) N(e | 0, s^2), flat to fourth order at e = 0 and peaked at +-2 s (|e| / s
+  // is chi with five degrees of freedom): less mass than the rising law within a few errors,
+  // where the members' tails are. E[e^2] = 5 s^2. The magnitude as under the rising law.
+  kQuartic,
 };
-inline constexpr EnumTable<OutlierParallaxLaw, 2> kOutlierParallaxLawNames{{{
+inline constexpr EnumTable<OutlierParallaxLaw, 3> kOutlierParallaxLawNames{{{
     {OutlierParallaxLaw::kGaussian, "gaussian"},
     {OutlierParallaxLaw::kRising, "rising"},
+    {OutlierParallaxLaw::kQuartic, "quartic"},
 }}};
+
+// The power k of the outlier's parallax law (e^2 / s^2)^k N(e | 0, s^2) / (2k - 1)!!: 0 for
+// the Gaussian, 1 rising, 2 quartic. (2k - 1)!! = E[(e / s)^2k] normalises it.
+inline int outlier_parallax_power(OutlierParallaxLaw law) {
+  return law == OutlierParallaxLaw::kQuartic ? 2 : (law == OutlierParallaxLaw::kRising ? 1 : 0);
+}
 
 // How the hierarchical fit estimates the intrinsic scatters.
 enum class ScatterCorrection {
