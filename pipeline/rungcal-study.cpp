@@ -100,14 +100,16 @@ int main(int argc, char** argv) {
                  "the scatters' estimate: restricted (maximum likelihood with the location "
                  "parameters integrated out) or none (maximum likelihood; default: the fit's)");
   app.add_option("--outlier-parallax-factor", study.fit.outlier_factor.value,
-                 "outlier component's parallax error x this (its start when fitted)")
+                 "outlier component's parallax scale over the error (its start; the value held "
+                 "with --hold-outlier-factor)")
       ->capture_default_str();
-  app.add_flag(
-      "--fit-outlier-factor", choice.free_outlier_factor,
-      "fit the outlier component's parallax error factor (from --outlier-parallax-factor)");
+  app.add_flag("--hold-outlier-factor", choice.hold_outlier_factor,
+               "hold the outlier component's parallax factor at --outlier-parallax-factor (the "
+               "fit frees it by default)");
   app.add_flag("--fit-outlier-shape", choice.free_outlier_shape,
-               "fit the outlier component's shift and width (under the rising parallax "
-               "law they shape only stars of given distance, and are held without them)");
+               "fit the outlier component's shift and width (under the quartic and rising "
+               "parallax laws they shape only stars of given distance, and are held without "
+               "them)");
   app.add_option("--blend-component", choice.blend_component,
                  "the hierarchical fit's blend component: none, exponential or rising")
       ->capture_default_str();

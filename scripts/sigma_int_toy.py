@@ -12,7 +12,8 @@ it reproduces the study's sigma_int bias (docs/method.md) and lets one vary the 
 
   sigma_int_toy.py outliers --distances flat --stars 3000 --mocks 40 --width 1 --factor 10
   sigma_int_toy.py outliers ... --law mock   (the outlier component is the mocks' own law)
-  sigma_int_toy.py outliers ... --law rising [--fit-factor]   (rungcal's default law; F held at 10 unless fitted)
+  sigma_int_toy.py outliers ... --law rising [--fit-factor]   (rungcal's default from 2026-12-04; F held at 10 unless fitted)
+  sigma_int_toy.py outliers ... --law quartic --fit-factor --factor 6   (rungcal's default since 2026-12-05)
   sigma_int_toy.py outliers ... --law rising --fit-factor --floor 0 --outlier-fraction 0
   sigma_int_toy.py reml --distances disk --stars 300 --mocks 200
 """
@@ -87,7 +88,7 @@ def fit_outlier_mixture(s, args):
         if args.law == "mock":  # parallax shifted by +-U(5, 20) errors, magnitude a member's
             terms = [gauss_log(r - sgn * k * err, v_member) for k in shifts for sgn in (-1, 1)]
             outlier = np.logaddexp.reduce(terms, axis=0) - np.log(len(terms))
-        elif args.law == "rising":  # rungcal's default: the member's magnitude term
+        elif args.law == "rising":  # the member's magnitude term
             outlier = rising_log(r, (factor(t) * err) ** 2, v_member)
         elif args.law == "quartic":  # zero at e = 0 to fourth order, peaked at +-2 s
             outlier = quartic_log(r, (factor(t) * err) ** 2, v_member)
@@ -137,7 +138,7 @@ def main():
     p.add_argument("--mocks", type=int, default=40)
     p.add_argument("--outlier-fraction", type=float, default=0.03)
     p.add_argument("--law", choices=["gaussian", "rising", "quartic", "mock"], default="gaussian",
-                   help="the fit's outlier component: rungcal's Gaussian or rising one, or the mocks' own law")
+                   help="the fit's outlier component: rungcal's Gaussian, rising or quartic one, or the mocks' own law")
     p.add_argument("--width", type=float, default=1.0, help="outlier magnitude width (mag; Gaussian law)")
     p.add_argument("--factor", type=float, default=10.0, help="outlier parallax error factor (its start if fitted)")
     p.add_argument("--fit-factor", action="store_true", help="fit the factor, above --floor")

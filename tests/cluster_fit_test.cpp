@@ -76,9 +76,10 @@ ClusterCase cluster_case() {
 
 // -ln L written out with scipy.stats.norm (Debian python3-scipy): per member,
 // logaddexp(ln(1 - f) + ln N(m | mu + M, V) + ln N(pi | p + off, s^2),
-//           ln f + ln N(m | mu + M - shift, V + w^2) + ln[(e^2 / 100 s^2) N(e | 0, 100 s^2)]),
-// with e = pi - p - off (the outlier's rising parallax law, the default), p = 10^(-0.2 (mu -
-// 10)), V = sigma_m^2 + sigma_int^2, plus the cluster's ln N(pi_c | p + off, s_c^2).
+//           ln f + ln N(m | mu + M - shift, V + w^2) + ln[(e^4 / 3 S^2) N(e | 0, S)]),
+// S = 100 s^2, with e = pi - p - off (the outlier's quartic parallax law, the default),
+// p = 10^(-0.2 (mu - 10)), V = sigma_m^2 + sigma_int^2, plus the cluster's
+// ln N(pi_c | p + off, s_c^2).
 TEST(ClusterLikelihood, ValueEqualsScipyOnAClusterOnlySample) {
   const ClusterCase c = cluster_case();
   const ParameterLayout& L = c.layout;
@@ -107,7 +108,7 @@ for x, m, plx in members:
     if plx is not None:
         a += norm.logpdf(plx, p + off, ep)
         e = plx - p - off
-        b += norm.logpdf(e, 0, 10 * ep) + np.log(e * e / (100 * ep * ep))
+        b += norm.logpdf(e, 0, 10 * ep) + np.log(e**4 / (3 * (100 * ep * ep) ** 2))
     total += np.logaddexp(a, b)
 print(repr(-total))
 )";

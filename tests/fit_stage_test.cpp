@@ -236,8 +236,9 @@ TEST(FitStage, MagnitudeSpaceWarnsAndListsNonPositiveParallaxes) {
   EXPECT_TRUE(p.relations[0].warnings.empty());
 }
 
-// Under the rising parallax law the outlier's magnitude width shapes only stars of given
-// distance: freed on a parallax-only sample it is held where it starts, and the fit says so.
+// Under the quartic (default) parallax law the outlier's magnitude width shapes only stars of
+// given distance: freed on a parallax-only sample it is held where it starts, and the fit says
+// so.
 TEST(FitStage, OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldWithAWarning) {
   test::MockSample m = test::mock_parallax_sample(81, 150);
   FitOptions o = mock_fit_options();
@@ -246,40 +247,47 @@ TEST(FitStage, OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldWithAWarning) {
   const RelationResult& rr = r.relations[0];
   bool said = false;
   for (const auto& w : rr.warnings)
-    said = said || w.rfind("outlier_width_mag: held at 1: under the rising parallax law", 0) == 0;
+    said = said || w.rfind("outlier_width_mag: held at 1: under the quartic parallax law", 0) == 0;
   EXPECT_TRUE(said);
   EXPECT_DOUBLE_EQ(rr.parameter("outlier_width_mag"), 1.0);
   EXPECT_TRUE(std::isfinite(rr.error("alpha")));
 }
 
 // The outlier component's parallax factor F, fitted: on a sample whose parallax outliers are
-// drawn from the component's own law (e = F sigma_pi times a signed chi with 3 degrees of
-// freedom: (e^2 / s^2) N(e | 0, s^2) is that density, s = F sigma_pi), the fit recovers F.
+// drawn from the component's own law (e = F sigma_pi times a signed chi with 2k + 1 degrees of
+// freedom: (e^2 / s^2)^k N(e | 0, s^2) / (2k - 1)!! is that density, s = F sigma_pi; k = 2
+// quartic, the default, from its default start, and k = 1 rising, from 10), the fit recovers F.
 TEST(FitStage, FreeOutlierParallaxFactorRecoversTheOutliersOwnFactor) {
-  constexpr double kTrueFactor = 6.0;
-  test::MockSample m = test::mock_parallax_sample(83, 400, 0.0);
-  Random rng(84);
-  for (Eigen::Index i = 0; i < m.data.plx.size(); ++i) {
-    if (rng.uniform() >= 0.1) continue;
-    double chi2 = 0;
-    for (int k = 0; k < 3; ++k) chi2 += std::pow(rng.normal(), 2);
-    m.data.plx[i] +=
-        (rng.uniform() < 0.5 ? -1.0 : 1.0) * kTrueFactor * std::sqrt(m.data.var_plx[i] * chi2);
+  for (OutlierParallaxLaw law : {OutlierParallaxLaw::kQuartic, OutlierParallaxLaw::kRising}) {
+    SCOPED_TRACE(std::string(kOutlierParallaxLawNames.name(law)));
+    const double true_factor = law == OutlierParallaxLaw::kQuartic ? 5.0 : 6.0;
+    test::MockSample m = test::mock_parallax_sample(83, 400, 0.0);
+    Random rng(84);
+    for (Eigen::Index i = 0; i < m.data.plx.size(); ++i) {
+      if (rng.uniform() >= 0.1) continue;
+      double chi2 = 0;
+      for (int k = 0; k < 2 * outlier_parallax_power(law) + 1; ++k)
+        chi2 += std::pow(rng.normal(), 2);
+      m.data.plx[i] +=
+          (rng.uniform() < 0.5 ? -1.0 : 1.0) * true_factor * std::sqrt(m.data.var_plx[i] * chi2);
+    }
+    FitOptions o = mock_fit_options();
+    o.hierarchical.outlier_parallax = law;
+    if (law == OutlierParallaxLaw::kRising)
+      o.outlier_factor = ParamSpec{ParamMode::kFree, 10.0, 0, true};
+    FitResult r = run_fit(o, catalog_from_mock(m));
+    const RelationResult& rr = r.relations[0];
+    const double f = rr.parameter("outlier_parallax_factor"),
+                 err = rr.error("outlier_parallax_factor");
+    EXPECT_NEAR(f, true_factor, 3 * err);
+    EXPECT_LT(err, 1.5);
+    EXPECT_NEAR(rr.parameter("outlier_fraction"), 0.1, 0.04);
+    EXPECT_NEAR(rr.parameter("alpha"), m.truth.alpha, 3 * rr.error("alpha"));
   }
-  FitOptions o = mock_fit_options();
-  o.outlier_factor = ParamSpec{ParamMode::kFree, 10.0, 0, true};
-  FitResult r = run_fit(o, catalog_from_mock(m));
-  const RelationResult& rr = r.relations[0];
-  const double f = rr.parameter("outlier_parallax_factor"),
-               err = rr.error("outlier_parallax_factor");
-  EXPECT_NEAR(f, kTrueFactor, 3 * err);
-  EXPECT_LT(err, 1.5);
-  EXPECT_NEAR(rr.parameter("outlier_fraction"), 0.1, 0.04);
-  EXPECT_NEAR(rr.parameter("alpha"), m.truth.alpha, 3 * rr.error("alpha"));
 }
 
 // Without outliers the outlier component's shape has nothing to fit: F is reported as
-// undetermined, with the reason.
+// undetermined, its reason said within the outlier fraction's (one warning, not two).
 TEST(FitStage, FreeOutlierParallaxFactorWithoutOutliersIsUndeterminedWithTheReason) {
   test::MockSample m = test::mock_parallax_sample(86, 200, 0.0);
   FitOptions o = mock_fit_options();
@@ -289,12 +297,45 @@ TEST(FitStage, FreeOutlierParallaxFactorWithoutOutliersIsUndeterminedWithTheReas
   ASSERT_LT(rr.parameter("outlier_fraction"), 1e-3);
   EXPECT_NE(std::find(rr.undetermined.begin(), rr.undetermined.end(), "outlier_parallax_factor"),
             rr.undetermined.end());
-  EXPECT_NE(std::find(rr.warnings.begin(), rr.warnings.end(),
-                      "outlier_parallax_factor: without outliers their shape is not measured; it "
-                      "has no error"),
-            rr.warnings.end())
-      << fmt::format("{}", rr.warnings);
+  const std::string tail =
+      ": the data hold no outliers to measure it by; it has no error, nor have the component's "
+      "shape parameters (outlier_parallax_factor)";
+  int said = 0, alone = 0;
+  for (const std::string& w : rr.warnings) {
+    said += w.starts_with("outlier_fraction = ") && w.ends_with(tail);
+    alone += w.starts_with("outlier_parallax_factor");
+  }
+  EXPECT_EQ(said, 1) << fmt::format("{}", rr.warnings);
+  EXPECT_EQ(alone, 0) << fmt::format("{}", rr.warnings);
   EXPECT_NEAR(rr.parameter("alpha"), m.truth.alpha, 3 * rr.error("alpha"));
+}
+
+// The warnings for parameters without an error: a component's shape is said within its
+// fraction's warning when the fraction has none either; F at its floor of 3 with a measured
+// fraction is said alone, as is what belongs to no component.
+TEST(FitStage, UndeterminedShapeIsSaidWithinItsFractionsWarning) {
+  using fit_parts::undetermined_warnings;
+  auto value = [](const std::string& n) { return n == "outlier_parallax_factor" ? 3.0 : 1e-14; };
+  auto other = [](const std::string& n) { return n + " is on the edge"; };
+  const std::vector<std::string> merged =
+      undetermined_warnings({"outlier_parallax_factor", "blend_ratio_V", "outlier_fraction",
+                             "blend_fraction", "scatter_correlation"},
+                            value, other);
+  ASSERT_EQ(merged.size(), 3U) << fmt::format("{}", merged);
+  EXPECT_EQ(merged[0],
+            "outlier_fraction = 1e-14: the data hold no outliers to measure it by; it has no "
+            "error, nor have the component's shape parameters (outlier_parallax_factor)");
+  EXPECT_EQ(merged[1],
+            "blend_fraction = 1e-14: the data hold no blends to measure it by; it has no error, "
+            "nor have the component's shape parameters (blend_ratio_V)");
+  EXPECT_EQ(merged[2], "scatter_correlation is on the edge");
+  const std::vector<std::string> floor =
+      undetermined_warnings({"outlier_parallax_factor"}, value, other);
+  ASSERT_EQ(floor.size(), 1U);
+  EXPECT_TRUE(floor[0].starts_with("outlier_parallax_factor = 3, the floor of its domain"))
+      << floor[0];
+  const std::vector<std::string> ratio = undetermined_warnings({"blend_ratio_K"}, value, other);
+  EXPECT_EQ(ratio, std::vector<std::string>{"blend_ratio_K is on the edge"});
 }
 
 // A bare number fixes F, a table frees it or gives it a prior, and F <= 3 is refused: a
@@ -313,6 +354,13 @@ TEST(FitStage, OutlierParallaxFactorIsReadFixedOrFreeAndRefusedAtThreeOrBelow) {
   FitOptions free = read("outlier_parallax_factor = { mode = \"free\", value = 8 }");
   EXPECT_EQ(free.outlier_factor.mode, ParamMode::kFree);
   EXPECT_DOUBLE_EQ(free.outlier_factor.value, 8.0);
+  // Freed by name without a value it starts at the default's 6, and counts as configured (a
+  // hold is then said); the default itself does not.
+  FitOptions named = read("outlier_parallax_factor = { mode = \"free\" }");
+  EXPECT_EQ(named.outlier_factor.mode, ParamMode::kFree);
+  EXPECT_DOUBLE_EQ(named.outlier_factor.value, 6.0);
+  EXPECT_TRUE(named.outlier_factor.has_start);
+  EXPECT_FALSE(read("").outlier_factor.has_start);
   try {
     read("outlier_parallax_factor = 3");
     FAIL() << "no error";
@@ -327,7 +375,7 @@ TEST(FitStage, OutlierParallaxFactorIsReadFixedOrFreeAndRefusedAtThreeOrBelow) {
 }
 
 // Without a star that has a parallax of its own, F has nothing to fit: held, with a warning.
-TEST(FitStage, FreeOutlierParallaxFactorWithoutParallaxesIsHeldWithAWarning) {
+TEST(FitStage, FreeOutlierParallaxFactorWithoutParallaxesIsHeldWithAWarningUnlessByDefault) {
   test::MockSample m = test::mock_parallax_sample(85, 120, 0.0);
   StarTable t = catalog_from_mock(m);
   t.add_column("mu_mag", ColumnType::kReal, "mag");
@@ -353,6 +401,12 @@ TEST(FitStage, FreeOutlierParallaxFactorWithoutParallaxesIsHeldWithAWarning) {
   EXPECT_TRUE(said) << fmt::format("{}", rr.warnings);
   EXPECT_DOUBLE_EQ(rr.parameter("outlier_parallax_factor"), 10.0);
   EXPECT_TRUE(std::isfinite(rr.error("alpha")));
+  // Free by default (no start given), it is held at its start without a word.
+  o.outlier_factor = FitOptions{}.outlier_factor;
+  const RelationResult quiet = run_fit(o, t).relations[0];
+  for (const auto& w : quiet.warnings)
+    EXPECT_EQ(w.find("outlier_parallax_factor"), std::string::npos) << w;
+  EXPECT_DOUBLE_EQ(quiet.parameter("outlier_parallax_factor"), 6.0);
 }
 
 // The bootstrap error is half the resamples' 16-84 percentile width: for a Gaussian it is the

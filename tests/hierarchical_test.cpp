@@ -331,8 +331,8 @@ TEST(Hierarchical, QuadratureEqualsScipyQuadForPreciseNoisyAndNegativeParallaxes
   }
 }
 
-// Every parallax law of the outlier component (the rising default, the Gaussian and the
-// quartic), with and without an anchor's own parallaxes (powered_parallax_at_modulus): the
+// Every parallax law of the outlier component (the rising, the Gaussian and the quartic
+// default), with and without an anchor's own parallaxes (powered_parallax_at_modulus): the
 // gradient against central differences.
 TEST(Hierarchical, GradientUnderEveryOutlierParallaxLawEqualsCentralDifferences) {
   for (OutlierParallaxLaw law :
@@ -374,7 +374,7 @@ void expect_choice_read_and_refused(const std::string& key, const std::string& l
 }
 
 TEST(Hierarchical, OutlierParallaxLawIsReadAndAnUnknownOneRefused) {
-  EXPECT_EQ(FitOptions{}.hierarchical.outlier_parallax, OutlierParallaxLaw::kRising);
+  EXPECT_EQ(FitOptions{}.hierarchical.outlier_parallax, OutlierParallaxLaw::kQuartic);
   expect_choice_read_and_refused(
       "outlier_parallax_law", "outlier_parallax_law = \"gaussian\"",
       "outlier_parallax_law = \"uniform\"", "gaussian, rising, quartic", [](const FitOptions& o) {
@@ -607,6 +607,11 @@ StudyResult run_case(const StudyCase& c) {
   o.mocks = c.mocks;
   o.fit.input_path = "(mock)";
   o.fit.hierarchical.blends = c.blend_component;
+  // Outliers drawn from the fit's Gaussian component (x10, 1 mag wide) are fitted with it.
+  if (c.outlier_law == MockOutlierLaw::kFitComponent) {
+    o.fit.hierarchical.outlier_parallax = OutlierParallaxLaw::kGaussian;
+    o.fit.outlier_factor = ParamSpec{ParamMode::kFixed, 10.0, 0, true};
+  }
   RelationOptions rel;
   rel.name = rel.band = "X";
   rel.metallicity = true;

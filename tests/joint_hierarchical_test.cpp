@@ -545,8 +545,8 @@ TEST(JointHierarchical,
   }
 }
 
-// Under the rising parallax law the outlier's magnitude shape acts only on stars of given
-// distance; a parallax-only sample cannot measure it. The joint fit takes the shared
+// Under the quartic (default) and rising parallax laws the outlier's magnitude shape acts only on
+// stars of given distance; a parallax-only sample cannot measure it. The joint fit takes the shared
 // parameters' modes from the first relation's fit, so it inherits that fit's hold
 // (FitStage.OutlierWidthFreedWithoutStarsOfGivenDistanceIsHeldWithAWarning) and its Hessian
 // stays positive definite.

@@ -48,14 +48,15 @@ TEST(StudySetup, DefaultsAreTheWesenheitDiskWithEveryContamination) {
   EXPECT_EQ(study.fit.relations[0].band, "X");
   EXPECT_EQ(study.parameters, (std::vector<std::string>{"alpha", "beta", "gamma",
                                                         "parallax_offset_mas", "sigma_int"}));
-  EXPECT_EQ(study.fit.outlier_factor.mode, ParamMode::kFixed);  // the fit's default, 10
-  EXPECT_DOUBLE_EQ(study.fit.outlier_factor.value, 10.0);
+  EXPECT_EQ(study.fit.outlier_factor.mode, ParamMode::kFree);  // the fit's default, from 6
+  EXPECT_DOUBLE_EQ(study.fit.outlier_factor.value, 6.0);
   EXPECT_EQ(study.check(), "");
-  // --fit-outlier-factor frees it, from its value.
-  StudyChoices free;
-  free.free_outlier_factor = true;
-  apply_study_choices(free, study);
-  EXPECT_EQ(study.fit.outlier_factor.mode, ParamMode::kFree);
+  // --hold-outlier-factor holds it at its value.
+  StudyChoices held;
+  held.hold_outlier_factor = true;
+  study.fit.outlier_factor.value = 10.0;  // as --outlier-parallax-factor 10 sets it
+  apply_study_choices(held, study);
+  EXPECT_EQ(study.fit.outlier_factor.mode, ParamMode::kFixed);
   EXPECT_DOUBLE_EQ(study.fit.outlier_factor.value, 10.0);
 }
 
@@ -148,7 +149,8 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   c = {};
   c.outlier_parallax_law = "flat";
   EXPECT_EQ(refusal(c),
-            "--outlier-parallax-law [config_value] 'flat' is not one of: gaussian, rising");
+            "--outlier-parallax-law [config_value] 'flat' is not one of: gaussian, rising, "
+            "quartic");
   c.outlier_parallax_law = "gaussian";
   apply_study_choices(c, study);
   EXPECT_EQ(study.fit.hierarchical.outlier_parallax, OutlierParallaxLaw::kGaussian);

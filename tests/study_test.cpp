@@ -91,14 +91,16 @@ TEST(Study, KeepsEachMocksFiguresInSeedOrder) {
   EXPECT_EQ(j["per_mock"].size(), 3U);
   EXPECT_EQ(j["parameter_names"][0], "alpha");
   EXPECT_DOUBLE_EQ(j["truth"]["alpha"].get<double>(), -5.9);
-  // Beside them, the mixture's fitted shape: the factor held at its default, a fraction.
+  // Beside them, the mixture's fitted shape: the factor (free by default, above 3), a fraction.
   for (const StudyMock& d : r.per_mock) {
     ASSERT_EQ(d.mixture.size(), 4U);
-    EXPECT_DOUBLE_EQ(d.mixture.at("outlier_parallax_factor"), 10.0);
+    EXPECT_GT(d.mixture.at("outlier_parallax_factor"), 3.0);
+    EXPECT_LT(d.mixture.at("outlier_parallax_factor"), 1e6);
     EXPECT_GE(d.mixture.at("outlier_fraction"), 0.0);
     EXPECT_LT(d.mixture.at("outlier_fraction"), 1.0);
   }
-  EXPECT_DOUBLE_EQ(j["per_mock"][0]["mixture"]["outlier_parallax_factor"].get<double>(), 10.0);
+  EXPECT_DOUBLE_EQ(j["per_mock"][0]["mixture"]["outlier_parallax_factor"].get<double>(),
+                   r.per_mock[0].mixture.at("outlier_parallax_factor"));
 }
 
 TEST(Study, PoolingTwoRunsIsOneRunOfAllTheirMocks) {

@@ -46,7 +46,7 @@ ParallaxAtModulus powered_parallax_at_modulus(double plx, double var, double mu,
   ParallaxAtModulus o = parallax_at_modulus(plx, var, mu, offset);
   if (power == 0) return o;
   const double p = std::exp(-kC * (mu - 10.0)), r = plx - p - offset;
-  o.log_l += power * std::log(r * r / var) - (power == 2 ? kLog3 : 0.0);
+  o.log_l += power * std::log(r * r / var) - outlier_parallax_log_norm(power);
   o.d_var -= power / var;
   if (r != 0.0) {  // at r = 0 the term is -infinity and its weight in the mixture zero
     o.d_off -= 2.0 * power / r;

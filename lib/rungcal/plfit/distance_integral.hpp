@@ -19,7 +19,6 @@ namespace rungcal::hier {
 inline constexpr double kLn10 = 2.302585092994045684;
 inline constexpr double kC = 0.2 * kLn10;  // -d ln(parallax) / d mu
 inline constexpr double kLog2Pi = 1.8378770664093454836;
-inline constexpr double kLog3 = 1.0986122886681096914;  // the quartic law's ln (2k - 1)!!
 
 // Nodes with ln w_k + x_k^2 folded in, per order, built once.
 struct Quadrature {
@@ -162,7 +161,8 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
   mode_cache = mu;
   const double width = Magnitude::kWidthFactor / std::sqrt(width_h);
   // The magnitude term is normalised in `mag`; ln 3 is the quartic law's (2k - 1)!!.
-  const double norm = -0.5 * (kLog2Pi + std::log(var_plx)) - (parallax_power == 2 ? kLog3 : 0.0);
+  const double norm =
+      -0.5 * (kLog2Pi + std::log(var_plx)) - outlier_parallax_log_norm(parallax_power);
   // Two passes: the log terms and their maximum, then the normalised weights' sums.
   const std::size_t n = q.nodes.size();
   double terms[128];
@@ -241,7 +241,7 @@ Component integrate_parallax(double m, const Magnitude& mag, double plx, double 
 
 // The outlier component's magnitude shape for a parallax star: the configured width^2 and
 // shift, or under the rising and quartic parallax laws (`gross`) none, the member's magnitude
-// term (its parallax is what is off: OutlierParallaxLaw::kRising). `fitted`: whether the
+// term (its parallax is what is off: OutlierParallaxLaw::kRising, kQuartic). `fitted`: whether the
 // shape's parameters enter.
 struct ParallaxOutlierShape {
   double wide = 0, shift = 0;

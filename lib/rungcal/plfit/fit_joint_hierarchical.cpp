@@ -141,8 +141,14 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   }
   if (!out.covariance_ok)
     jr.warnings.push_back("the joint fit's Hessian is not positive definite: no covariance");
-  for (const auto& name : jr.undetermined)
-    jr.warnings.push_back(name + " is on the edge of its domain: no error is given");
+  auto estimate = [&](const std::string& n) {
+    const auto at = std::find(L.names.begin(), L.names.end(), n);
+    return at == L.names.end() ? std::nan("") : out.theta[at - L.names.begin()];
+  };
+  for (std::string& w : undetermined_warnings(jr.undetermined, estimate, [](const std::string& n) {
+         return n + " is on the edge of its domain: no error is given";
+       }))
+    jr.warnings.push_back(std::move(w));
   jr.n_free =
       static_cast<int>(std::count_if(js.params.begin(), js.params.end(), [](const ParamSpec& p) {
         return p.mode != ParamMode::kFixed;

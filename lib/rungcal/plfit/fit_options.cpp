@@ -122,7 +122,10 @@ std::string FitOptions::check() const {
     return e;
   if (!(hierarchical.blend_min_mag >= 0 && hierarchical.blend_min_mag <= 5))
     return "fit.blend_min_mag: must be 0 to 5 mag";
-  if (std::string e = check_domain("fit.outlier_parallax_factor", outlier_factor, 3.0, false, 1e6);
+  // Its value is its start even when free by default (no start given): checked either way.
+  ParamSpec factor_start = outlier_factor;
+  factor_start.has_start = true;
+  if (std::string e = check_domain("fit.outlier_parallax_factor", factor_start, 3.0, false, 1e6);
       !e.empty())
     return e;
   if (joint && relations.size() < 2) return "fit.joint: needs two or more [[relation]]";
@@ -288,6 +291,8 @@ FitOptions fit_options_from_file(const std::string& path) {
   o.hierarchical.outlier_mag_shift = o.outlier_shift.value;
   o.hierarchical.outlier_mag_width = o.outlier_width.value;
   o.outlier_factor = param_from(*f, "outlier_parallax_factor", o.outlier_factor);
+  // Named in the config, even free without a value: the user's, so holding it is said.
+  if (f->has("outlier_parallax_factor")) o.outlier_factor.has_start = true;
   o.hierarchical.outlier_parallax_factor = o.outlier_factor.value;
   o.hierarchical.outlier_parallax = choice_or(*f, "outlier_parallax_law", kOutlierParallaxLawNames,
                                               o.hierarchical.outlier_parallax);

@@ -50,6 +50,13 @@ FitSettings settings_for(const FitOptions& o, const RelationOptions& rel, const 
 void hold_unconstrained(const Calibrators& c, RelationResult& rr);
 // Why a parameter has no error, as the result file and the terminal say it.
 std::string undetermined_reason(const std::string& name, double value);
+// The warnings for the parameters without an error, `value(name)` each one's estimate: a
+// component's shape (the outliers' shift, width and parallax factor; the blends' scale) is
+// said within its fraction's warning when the fraction has none either (no outliers, so no
+// shape), else alone. `other(name)` words a parameter that is neither.
+std::vector<std::string> undetermined_warnings(
+    const std::vector<std::string>& names, const std::function<double(const std::string&)>& value,
+    const std::function<std::string(const std::string&)>& other);
 // A parameter's index by name (std::out_of_range when there is none).
 int index_of(const ParameterLayout& L, const std::string& name);
 

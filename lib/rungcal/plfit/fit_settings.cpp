@@ -11,6 +11,7 @@
 #include <thread>
 
 #include <fmt/format.h>
+#include <fmt/ranges.h>
 #include <spdlog/spdlog.h>
 
 #include "rungcal/core/atomic_file.hpp"
@@ -109,12 +110,14 @@ void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
       rr.settings.params[j] =
           ParamSpec{ParamMode::kFixed,
                     j == L.distance_scale ? 1.0 : (j == L.distance_power ? 2.0 : 1.0), 0, true};
-  // A free parameter the sample cannot measure is held where it starts, with a warning.
-  auto hold = [&](int j, std::string_view why) {
+  // A free parameter the sample cannot measure is held where it starts, with a warning when
+  // the config asked for it (`quiet`: it is free by default).
+  auto hold = [&](int j, std::string_view why, bool quiet = false) {
     ParamSpec& p = rr.settings.params[static_cast<std::size_t>(j)];
     if (p.mode == ParamMode::kFixed) return;
-    rr.warnings.push_back(
-        fmt::format("{}: held at {:g}: {}", L.names[static_cast<std::size_t>(j)], p.value, why));
+    if (!quiet)
+      rr.warnings.push_back(
+          fmt::format("{}: held at {:g}: {}", L.names[static_cast<std::size_t>(j)], p.value, why));
     p = ParamSpec{ParamMode::kFixed, p.value, 0, true};
   };
   // Under the rising and quartic parallax laws the outlier's magnitude shape is that of stars
@@ -131,8 +134,55 @@ void hold_unconstrained(const Calibrators& c, RelationResult& rr) {
   // The outlier's parallax factor shapes stars with a parallax of their own; without any it
   // has nothing to fit.
   const bool own_parallaxes = c.data.parallax.size() > 0 || (c.data.anchor_var_plx > 0).any();
-  if (L.outlier_factor >= 0 && !own_parallaxes)
-    hold(L.outlier_factor, "no star has a parallax of its own");
+  if (L.outlier_factor >= 0 && !own_parallaxes) {
+    const ParamSpec& p = rr.settings.params[static_cast<std::size_t>(L.outlier_factor)];
+    hold(L.outlier_factor, "no star has a parallax of its own",
+         p.mode == ParamMode::kFree && !p.has_start);
+  }
+}
+
+std::vector<std::string> undetermined_warnings(
+    const std::vector<std::string>& names, const std::function<double(const std::string&)>& value,
+    const std::function<std::string(const std::string&)>& other) {
+  // Each component's fraction and the prefixes of its shape's names (the joint fit's blend
+  // ratios are blend_ratio_<relation>).
+  struct Component {
+    std::string fraction;
+    std::vector<std::string> shape;
+  };
+  static const Component kComponents[] = {
+      {"outlier_fraction", {"outlier_shift_mag", "outlier_width_mag", "outlier_parallax_factor"}},
+      {"blend_fraction", {"blend_scale_mag", "blend_ratio_"}},
+  };
+  auto listed = [&](const std::string& n) {
+    return std::find(names.begin(), names.end(), n) != names.end();
+  };
+  auto component_of = [&](const std::string& n) -> const Component* {
+    for (const Component& c : kComponents)
+      for (const std::string& prefix : c.shape)
+        if (n.starts_with(prefix)) return &c;
+    return nullptr;
+  };
+  std::vector<std::string> out;
+  for (const Component& c : kComponents) {
+    if (!listed(c.fraction)) continue;
+    std::vector<std::string> shape;
+    for (const std::string& n : names)
+      if (component_of(n) == &c) shape.push_back(n);
+    std::string w = undetermined_reason(c.fraction, value(c.fraction));
+    if (!shape.empty())
+      w += fmt::format(", nor have the component's shape parameters ({})", fmt::join(shape, ", "));
+    out.push_back(std::move(w));
+  }
+  for (const std::string& n : names) {
+    const Component* c = component_of(n);
+    if (n == "outlier_fraction" || n == "blend_fraction") continue;
+    if (c && listed(c->fraction)) continue;
+    // The blend ratios are the joint fit's: worded as it words its other edges.
+    out.push_back(c && !n.starts_with("blend_ratio_") ? undetermined_reason(n, value(n))
+                                                      : other(n));
+  }
+  return out;
 }
 
 std::string undetermined_reason(const std::string& name, double value) {
@@ -146,6 +196,10 @@ std::string undetermined_reason(const std::string& name, double value) {
         value);
   if (name == "blend_scale_mag")
     return "blend_scale_mag: without blends their brightening is not measured; it has no error";
+  if (name == "outlier_parallax_factor" && value - 3.0 < 1e-3)
+    return "outlier_parallax_factor = 3, the floor of its domain (a deviation of three errors or "
+           "fewer is a member's): the outliers' parallaxes are not measured to be broader; it has "
+           "no error";
   if (name == "outlier_shift_mag" || name == "outlier_width_mag" ||
       name == "outlier_parallax_factor")
     return name + ": without outliers their shape is not measured; it has no error";

@@ -213,8 +213,12 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
       const int j = index_of(rr.layout, name);
       rr.covariance.row(j).setConstant(std::numeric_limits<double>::quiet_NaN());
       rr.covariance.col(j).setConstant(std::numeric_limits<double>::quiet_NaN());
-      rr.warnings.push_back(undetermined_reason(name, rr.solution.theta[j]));
     }
+    auto estimate = [&](const std::string& n) { return rr.solution.theta[index_of(rr.layout, n)]; };
+    for (std::string& w : undetermined_warnings(
+             rr.undetermined, estimate,
+             [&](const std::string& n) { return undetermined_reason(n, estimate(n)); }))
+      rr.warnings.push_back(std::move(w));
     if (!rr.covariance_ok)
       rr.warnings.push_back("the covariance could not be computed (degenerate parameters?)");
     fill_star_residuals(rr, c);

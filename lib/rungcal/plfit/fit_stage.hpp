@@ -107,10 +107,11 @@ struct FitOptions {
   ParamSpec outlier_fraction;                                // share of outliers in the mixture
   ParamSpec outlier_shift{ParamMode::kFixed, 0.0, 0, true};  // outlier component brighter by (mag)
   ParamSpec outlier_width{ParamMode::kFixed, 1.0, 0, true};  // its extra magnitude width (mag)
-  // Its parallax error over the star's, F > 3 (HierarchicalSettings::outlier_parallax_factor).
-  // Held at 10 by default: fitted, it mends the near stars' outliers flat in mu but takes the
-  // members' tails on a disk (sigma_int -0.5 errors at N = 3000; docs/method.md).
-  ParamSpec outlier_factor{ParamMode::kFixed, 10.0, 0, true};
+  // Its parallax scale over the star's error, F > 3 (HierarchicalSettings::
+  // outlier_parallax_factor). Free by default from 6, where the quartic law settles on the
+  // study's mocks (docs/method.md); has_start false marks that default, which a sample
+  // without parallaxes of its own holds quietly (hold_unconstrained).
+  ParamSpec outlier_factor{ParamMode::kFree, 6.0, 0, false};
   ParamSpec blend_fraction;  // share of blends (of the non-outliers)
   // Blends' mean brightening beyond their start (mag). A Gaussian prior 0.5 +- 0.15 by default:
   // free, the scale shrinks onto the members' bright tail when there are few or no blends

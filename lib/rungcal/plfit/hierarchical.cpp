@@ -293,7 +293,9 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
     // Without outliers their component's shape has nothing to fit either.
     const bool no_outliers = layout.outlier >= 0 && theta[layout.outlier] < 1e-3;
     const bool no_blends = layout.blend >= 0 && theta[layout.blend] < 1e-3;
+    // F at its floor of 3 (kLogAboveThree) has no interior maximum either.
     const bool edge = (j == layout.sigma && theta[j] < 1e-3) ||
+                      (j == layout.outlier_factor && theta[j] - 3.0 < 1e-3) ||
                       (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
                                        j == layout.outlier_width || j == layout.outlier_factor)) ||
                       (no_blends && (j == layout.blend || j == layout.blend_scale));

@@ -180,11 +180,14 @@ enum class OutlierParallaxLaw {
   // star's outlier then takes the member's magnitude term: only the parallax-magnitude
   // discrepancy is seen, whatever its cause. outlier_mag_width and outlier_mag_shift apply
   // to the stars whose distance is given (known-distance stars, anchor galaxies). The
-  // default: docs/method.md, "The rising parallax law of the outlier component".
+  // default from 2026-12-04 to 2026-12-05: docs/method.md, "The rising parallax law of the
+  // outlier component".
   kRising,
-  // (e^4 / 3 s^4) N(e | 0, s^2), flat to fourth order at e = 0 and peaked at +-2 s (|e| / s
+  // (e^4 / 3 s^4) N(e | 0, s^2), vanishing to fourth order at e = 0 and peaked at +-2 s (|e| / s
   // is chi with five degrees of freedom): less mass than the rising law within a few errors,
-  // where the members' tails are. E[e^2] = 5 s^2. The magnitude as under the rising law.
+  // where the members' tails are. E[e^2] = 5 s^2. The magnitude as under the rising law. The
+  // default since 2026-12-05, with its factor F fitted: docs/method.md, "The default model
+  // since 2026-12-05".
   kQuartic,
 };
 inline constexpr EnumTable<OutlierParallaxLaw, 3> kOutlierParallaxLawNames{{{
@@ -197,6 +200,10 @@ inline constexpr EnumTable<OutlierParallaxLaw, 3> kOutlierParallaxLawNames{{{
 // the Gaussian, 1 rising, 2 quartic. (2k - 1)!! = E[(e / s)^2k] normalises it.
 inline int outlier_parallax_power(OutlierParallaxLaw law) {
   return law == OutlierParallaxLaw::kQuartic ? 2 : (law == OutlierParallaxLaw::kRising ? 1 : 0);
+}
+// ln (2k - 1)!! for the power k: ln 3 for k = 2, else 0.
+inline double outlier_parallax_log_norm(int power) {
+  return power == 2 ? 1.0986122886681096914 : 0.0;
 }
 
 // How the hierarchical fit estimates the intrinsic scatters.
@@ -224,14 +231,15 @@ struct HierarchicalSettings {
   int quadrature_nodes = 24;  // Gauss-Hermite nodes per star and component
   // The outlier component: the member's magnitude variance plus outlier_mag_width^2, its
   // magnitude brighter by outlier_mag_shift (blends only brighten), its parallax error
-  // times outlier_parallax_factor, its parallax law outlier_parallax (under the rising law a
-  // parallax star's outlier has the member's magnitude term). The shift, width and factor are
-  // parameters (outlier_shift_mag, outlier_width_mag, outlier_parallax_factor), fixed at
-  // these values unless the config frees them (then their starts).
+  // times outlier_parallax_factor, its parallax law outlier_parallax (under the quartic and
+  // rising laws a parallax star's outlier has the member's magnitude term). The shift, width
+  // and factor are parameters (outlier_shift_mag, outlier_width_mag, outlier_parallax_factor):
+  // their fixed values, or their starts when free (the factor is free by default:
+  // FitOptions::outlier_factor).
   double outlier_mag_width = 1.0;
   double outlier_mag_shift = 0.0;
-  double outlier_parallax_factor = 10.0;
-  OutlierParallaxLaw outlier_parallax = OutlierParallaxLaw::kRising;
+  double outlier_parallax_factor = 6.0;
+  OutlierParallaxLaw outlier_parallax = OutlierParallaxLaw::kQuartic;
   // The scatters' estimate (ScatterCorrection).
   ScatterCorrection scatter_correction = ScatterCorrection::kRestricted;
   // The blend component (BlendComponent); its fraction and scale are parameters

@@ -121,7 +121,8 @@ void apply_study_choices(const StudyChoices& c, StudyOptions& study) {
   if (fit.space != FitSpace::kHierarchical) fit.loss = LossKind::kHuber;  // its documented default
   fit.input_path = "(mock)";
   if (c.free_outlier_shape) fit.outlier_shift.mode = fit.outlier_width.mode = ParamMode::kFree;
-  if (c.free_outlier_factor) fit.outlier_factor.mode = ParamMode::kFree;
+  if (c.hold_outlier_factor)
+    fit.outlier_factor = ParamSpec{ParamMode::kFixed, fit.outlier_factor.value, 0, true};
   if (c.blend_scale_prior > 0)
     fit.blend_scale.mode = ParamMode::kPrior, fit.blend_scale.prior_sigma = c.blend_scale_prior;
   if (c.fix_blend_scale) fit.blend_scale.mode = ParamMode::kFixed;

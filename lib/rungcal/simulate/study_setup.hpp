@@ -27,7 +27,7 @@ struct StudyChoices {
   int joint = 0;                           // 0: X alone; 2-4: X and the first joint - 1 of V, I, K
   double red_companions = 1.0;             // joint: companion flux ratio x this in K, / this in V
   bool free_outlier_shape = false;         // fit the outlier component's shift and width
-  bool free_outlier_factor = false;        // fit the outlier component's parallax factor
+  bool hold_outlier_factor = false;        // hold the outlier's parallax factor at its value
   bool fix_scatter_correlation = false;    // joint: hold rho at the mocks' truth
   bool grey_blend_model = false;           // joint: hold the blend ratios at 1
   bool independent_anchor_priors = false;  // ignore the mock anchors' correlation
