@@ -196,7 +196,7 @@ std::string undetermined_reason(const std::string& name, double value) {
         value);
   if (name == "blend_scale_mag")
     return "blend_scale_mag: without blends their brightening is not measured; it has no error";
-  if (name == "outlier_parallax_factor" && value - 3.0 < 1e-3)
+  if (name == "outlier_parallax_factor" && outlier_factor_at_floor(value))
     return "outlier_parallax_factor = 3, the floor of its domain (a deviation of three errors or "
            "fewer is a member's): the outliers' parallaxes are not measured to be broader; it has "
            "no error";

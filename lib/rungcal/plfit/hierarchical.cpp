@@ -295,7 +295,7 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
     const bool no_blends = layout.blend >= 0 && theta[layout.blend] < 1e-3;
     // F at its floor of 3 (kLogAboveThree) has no interior maximum either.
     const bool edge = (j == layout.sigma && theta[j] < 1e-3) ||
-                      (j == layout.outlier_factor && theta[j] - 3.0 < 1e-3) ||
+                      (j == layout.outlier_factor && outlier_factor_at_floor(theta[j])) ||
                       (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
                                        j == layout.outlier_width || j == layout.outlier_factor)) ||
                       (no_blends && (j == layout.blend || j == layout.blend_scale));

@@ -460,7 +460,8 @@ bool joint_hierarchical_covariance(const JointData& data, const FitSettings& set
         std::find(layout.sigma.begin(), layout.sigma.end(), j) != layout.sigma.end() &&
         theta[j] < 1e-3;
     // F at its floor of 3 (kLogAboveThree) has no interior maximum either.
-    const bool edge = scatter_gone || (j == layout.outlier_factor && theta[j] - 3.0 < 1e-3) ||
+    const bool edge = scatter_gone ||
+                      (j == layout.outlier_factor && outlier_factor_at_floor(theta[j])) ||
                       (no_outliers && (j == layout.outlier || j == layout.outlier_shift ||
                                        j == layout.outlier_width || j == layout.outlier_factor)) ||
                       (no_blends && (j == layout.blend || j == layout.blend_scale ||

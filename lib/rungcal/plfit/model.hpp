@@ -201,6 +201,10 @@ inline constexpr EnumTable<OutlierParallaxLaw, 3> kOutlierParallaxLawNames{{{
 inline int outlier_parallax_power(OutlierParallaxLaw law) {
   return law == OutlierParallaxLaw::kQuartic ? 2 : (law == OutlierParallaxLaw::kRising ? 1 : 0);
 }
+// The outlier's parallax factor F lies above 3 (a deviation of three errors or fewer is a
+// member's; solved as ln(F - 3), Scale::kLogAboveThree). At its floor it has no interior
+// maximum, and so no error.
+inline bool outlier_factor_at_floor(double factor) { return factor - 3.0 < 1e-3; }
 // ln (2k - 1)!! for the power k: ln 3 for k = 2, else 0.
 inline double outlier_parallax_log_norm(int power) {
   return power == 2 ? 1.0986122886681096914 : 0.0;
