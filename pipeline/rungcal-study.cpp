@@ -8,6 +8,7 @@
 #include "rungcal/core/error.hpp"
 #include "rungcal/core/stage_main.hpp"
 #include "rungcal/simulate/study.hpp"
+#include "rungcal/simulate/study_paired.hpp"
 #include "rungcal/simulate/study_pool.hpp"
 #include "rungcal/simulate/study_setup.hpp"
 
@@ -40,7 +41,7 @@ int main(int argc, char** argv) {
   choice.blend_component =
       rungcal::kBlendComponentNames.name(rungcal::HierarchicalSettings{}.blends);
   std::string out;
-  std::vector<std::string> combine;
+  std::vector<std::string> combine, paired;
   app.add_option("--mocks", study.mocks, "Mock catalogs to draw and fit")->capture_default_str();
   app.add_option("--stars", study.scenario.stars, "Calibrators per mock")->capture_default_str();
   app.add_option("--relation", choice.relation,
@@ -174,11 +175,23 @@ int main(int argc, char** argv) {
       "--combine", combine,
       "Fit nothing: pool earlier runs' --out files (one setup, distinct seeds) and print "
       "the table over all their mocks");
+  app.add_option(
+         "--paired", paired,
+         "Fit nothing: A.json B.json, two --out files of the same scenario on the same seeds "
+         "but one change; print what the change does, mock by mock")
+      ->expected(2)
+      ->excludes("--combine");
   common.add_to(app);
   if (int rc = rungcal::parse_command_line(app, argc, argv); rc >= 0) return rc;
   rungcal::setup_logging("study", common.verbosity(), common.log_file);
 
   return rungcal::run_stage("study", [&] {
+    if (!paired.empty()) {
+      const rungcal::PairedStudy p = rungcal::pair_studies(paired[0], paired[1]);
+      std::cout << rungcal::paired_table(p);
+      if (!out.empty()) rungcal::write_file_atomically(out, p.to_json().dump(2) + "\n");
+      return rungcal::ExitCode::kSuccess;
+    }
     const rungcal::StudyResult result =
         combine.empty() ? run_mocks(study, choice, app) : rungcal::combine_studies(combine);
     std::cout << rungcal::study_table(result);

@@ -562,11 +562,15 @@ namespace {
 
 // CI-sized simulation study (the full one: docs/method.md, scripts/simulation_study.sh):
 // mock catalogs fitted with the stage's defaults. At N = 300 each parameter's bias must stay
-// within 0.3 of its mean reported error (100 mocks: the mean itself scatters by 0.1) and the
-// 68% intervals must cover 55-80% of the truths. The N = 3000 case has only 16 mocks (its
-// mean scatters by 0.25): it catches a bias of a reported error or more. Every case has
-// every contamination, blends included, and the default (rising) blend component: without
-// one the optical sigma_int came out 0.8 errors high at N = 300 and 3 at N = 3000.
+// within 0.3 of its mean reported error (200 mocks: the mean itself scatters by 0.07) and the
+// 68% intervals must cover 55-80% of the truths (a coverage of 200 mocks scatters by 0.033).
+// The Wesenheit disk's sigma_int sits at that floor here: 0.55 on these mocks (0.54 on the first
+// 100), 0.69 on the study's seeds 1..200, so about 0.62 over the 400, its covariance error some
+// 10% small (docs/method.md, "Common random numbers"): a known weakness this test keeps in view.
+// The N = 3000 case has only 16 mocks (its mean scatters by 0.25): it catches a bias of a reported
+// error or more. Every case has every contamination, blends included, and the default (rising)
+// blend component: without one the optical sigma_int came out 0.8 errors high at N = 300 and 3 at N
+// = 3000.
 struct StudyCase {
   const char* label;
   int stars, mocks;
@@ -632,13 +636,13 @@ void expect_unbiased_with_honest_intervals(const StudyCase& c) {
 
 // One test per case, so that ctest runs them side by side.
 TEST(HierarchicalSimulation, WesenheitOnADiskWithEveryContamination) {
-  expect_unbiased_with_honest_intervals({"Wesenheit, disk, every contamination, N = 300", 300, 100,
+  expect_unbiased_with_honest_intervals({"Wesenheit, disk, every contamination, N = 300", 300, 200,
                                          0.08, 0.0, MockDistances::kDisk, true, 0.3, 0.55, 0.80});
 }
 
 TEST(HierarchicalSimulation, OpticalFlatInModulusWithEveryContamination) {
   expect_unbiased_with_honest_intervals({"optical, flat in mu, every contamination, N = 300", 300,
-                                         100, 0.20, 3.1, MockDistances::kFlatModulus, true, 0.3,
+                                         200, 0.20, 3.1, MockDistances::kFlatModulus, true, 0.3,
                                          0.55, 0.80});
 }
 

@@ -1,7 +1,8 @@
 // SPDX-License-Identifier: MIT
-// Tests of lib/rungcal/simulate/study and study_pool: the simulation study's summary, its
-// per-mock figures, and pooling runs on distinct seeds (simulations with a known truth; the
-// study's own bias and coverage checks are in hierarchical_test.cpp).
+// Tests of lib/rungcal/simulate/study, study_pool and study_paired: the simulation study's
+// summary, its per-mock figures, pooling runs on distinct seeds and pairing runs on the same
+// (simulations with a known truth; the study's own bias and coverage checks are in
+// hierarchical_test.cpp).
 #include "rungcal/simulate/study.hpp"
 
 #include <cmath>
@@ -11,6 +12,7 @@
 
 #include "rungcal/core/atomic_file.hpp"
 #include "rungcal/core/error.hpp"
+#include "rungcal/simulate/study_paired.hpp"
 #include "rungcal/simulate/study_pool.hpp"
 #include "rungcal/simulate/study_setup.hpp"
 #include "test_util.hpp"
@@ -122,6 +124,14 @@ TEST(Study, PoolingRefusesRepeatedSeedsAndOtherSetups) {
   const std::string other = written(dir, "other.json", small_run(10, 2, 120));
   EXPECT_EQ(refusal([&] { combine_studies({a, overlap}); }), "study_seed_repeated at per_mock");
   EXPECT_EQ(refusal([&] { combine_studies({a, other}); }), "study_setup_differs at setup");
+  // A run drawn before each effect had its own stream: the same seed is another mock.
+  nlohmann::json earlier = small_run(10, 2).to_json();
+  earlier.erase("mock_draw_layout");
+  test::write_text(dir.file("earlier.json"), earlier.dump());
+  EXPECT_EQ(refusal([&] {
+              combine_studies({a, dir.file("earlier.json")});
+            }),
+            "study_setup_differs at mock_draw_layout");
   nlohmann::json old = nlohmann::json::parse(test::read_text(a));
   old.erase("per_mock");  // a run written before per-mock figures were kept
   test::write_text(dir.file("old.json"), old.dump());
@@ -137,6 +147,63 @@ TEST(Study, PoolingRefusesRepeatedSeedsAndOtherSetups) {
   test::write_text(dir.file("short.json"), short_mock.dump());
   EXPECT_EQ(refusal([&] { read_study_run(dir.file("short.json")); }),
             "study_format at per_mock[1].error");
+}
+
+// Pairing by seed: a run against itself shifts nothing; against a run of the same mocks with
+// the parallax outliers on, the mean shift is the mean of the per-mock differences in the
+// reference's errors, computed here from the runs' own figures.
+TEST(Study, PairingTwoRunsGivesEachMocksShiftInItsError) {
+  test::TempDir dir;
+  const StudyResult clean = small_run(1, 4);
+  const std::string a = written(dir, "a.json", clean);
+  StudyChoices c;
+  c.contaminations = "parallax_outliers";
+  c.seed = 2;  // seeds 2..5: three in common with a
+  StudyOptions o;
+  apply_study_choices(c, o);
+  o.mocks = 4, o.scenario.stars = 150, o.threads = 1;
+  const auto level = spdlog::get_level();
+  spdlog::set_level(spdlog::level::err);
+  StudyResult dirty = run_study(o);
+  spdlog::set_level(level);
+  const std::string b = written(dir, "b.json", dirty);
+  const PairedStudy self = pair_studies(a, a);
+  for (const PairedRow& r : self.rows) {
+    EXPECT_EQ(r.pairs, 4) << r.parameter;
+    EXPECT_EQ(r.mean_shift, 0.0) << r.parameter;
+  }
+  const PairedStudy p = pair_studies(b, a);
+  EXPECT_EQ(p.common_seeds, 3);
+  for (std::size_t j = 0; j < p.rows.size(); ++j) {
+    double sum = 0, sum2 = 0;
+    for (int k = 0; k < 3; ++k) {
+      const StudyMock &x = dirty.per_mock[static_cast<std::size_t>(k)],
+                      &y = clean.per_mock[static_cast<std::size_t>(k + 1)];
+      ASSERT_EQ(x.seed, y.seed);
+      const double d = (x.estimate[j] - y.estimate[j]) / y.error[j];
+      sum += d, sum2 += d * d;
+    }
+    SCOPED_TRACE(p.rows[j].parameter);
+    EXPECT_EQ(p.rows[j].pairs, 3);
+    EXPECT_NEAR(p.rows[j].mean_shift, sum / 3, 1e-12);
+    EXPECT_NEAR(p.rows[j].shift_sd, std::sqrt((sum2 - sum * sum / 3) / 2), 1e-9);
+    EXPECT_NEAR(p.rows[j].shift_error, p.rows[j].shift_sd / std::sqrt(3.0), 1e-12);
+  }
+  EXPECT_NE(paired_table(p).find("3 seeds in both"), std::string::npos);
+}
+
+TEST(Study, PairingRefusesOtherMocksAndDisjointSeeds) {
+  test::TempDir dir;
+  const std::string a = written(dir, "a.json", small_run(1, 2));
+  const std::string far = written(dir, "far.json", small_run(10, 2));
+  const std::string bigger = written(dir, "bigger.json", small_run(1, 2, 160));
+  EXPECT_EQ(refusal([&] { pair_studies(a, far); }), "study_no_common_seeds at per_mock");
+  EXPECT_EQ(refusal([&] { pair_studies(bigger, a); }), "study_pairing_differs at stars");
+  nlohmann::json earlier = nlohmann::json::parse(test::read_text(a));
+  earlier.erase("mock_draw_layout");
+  test::write_text(dir.file("earlier.json"), earlier.dump());
+  EXPECT_EQ(refusal([&] { pair_studies(dir.file("earlier.json"), a); }),
+            "study_pairing_differs at mock_draw_layout");
 }
 
 }  // namespace

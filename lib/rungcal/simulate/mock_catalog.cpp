@@ -79,6 +79,43 @@ double coloured_brightening(double b, double colour) {
   return 2.5 * std::log10(1.0 + colour * q);
 }
 
+// A star's draws, one stream per effect, each seeded from the star's key and the effect:
+// switching one contamination on or off (or changing its size) leaves every other draw of every
+// star as it was, so study rows that differ in one contamination pair mock by mock (common
+// random numbers), and a paired difference shows that contamination's effect alone.
+enum class StarEffect : int {
+  kDistance,
+  kPulsation,
+  kMetallicity,
+  kScatter,
+  kPhotometry,
+  kReddening,
+  kBlend,
+  kAstrometry,
+  kOutlier,
+  kFurtherBands,
+  kCount
+};
+
+class StarDraws {
+ public:
+  explicit StarDraws(std::uint64_t key) {
+    for (int k = 0; k < static_cast<int>(StarEffect::kCount); ++k)
+      streams_.emplace_back(
+          splitmix64(key + 0x9E3779B97F4A7C15ull * static_cast<std::uint64_t>(k + 1)));
+  }
+  Random& stream(StarEffect e) { return streams_[static_cast<std::size_t>(e)]; }
+
+ private:
+  // SplitMix64's output function (Steele, Lea & Flood 2014): nearby keys give unrelated seeds.
+  static std::uint64_t splitmix64(std::uint64_t z) {
+    z = (z ^ (z >> 30)) * 0xBF58476D1CE4E5B9ull;
+    z = (z ^ (z >> 27)) * 0x94D049BB133111EBull;
+    return z ^ (z >> 31);
+  }
+  std::vector<Random> streams_;
+};
+
 }  // namespace
 
 std::vector<MockCluster> mock_clusters(const MockScenario& s) {
@@ -207,36 +244,50 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
   if (!s.more_relations.empty()) t.add_column(col::kEbvErr, ColumnType::kReal);
   const bool groups = s.clusters > 0 || s.anchors > 0;
   if (groups) t.add_column(col::kGroup, ColumnType::kText);
-  // One star at cluster_kpc (> 0) or drawn from the scenario's distances.
+  // One star at cluster_kpc (> 0) or drawn from the scenario's distances. Each effect draws
+  // from the star's own stream for it, every draw made whether the effect is on or off.
   auto add_star = [&](Random& rng, const std::string& id, const std::string& group,
                       double cluster_kpc) {
-    const bool far = rng.uniform() < s.far_fraction;
+    StarDraws draw(rng.next());
+    Random& where = draw.stream(StarEffect::kDistance);
+    const bool far = where.uniform() < s.far_fraction;
+    const double far_kpc = where.uniform(8.0, 15.0);
     const double d = cluster_kpc > 0 ? cluster_kpc
-                     : far           ? rng.uniform(8.0, 15.0)
-                                     : draw_distance_kpc(s.distances, rng, clumps);
+                     : far           ? far_kpc
+                                     : draw_distance_kpc(s.distances, where, clumps);
     const double mu = distance_modulus_from_parsec(d * 1e3);
-    const bool overtone = rng.uniform() < s.overtone_fraction;
-    const double logp = overtone ? rng.uniform(0.1, 0.7) : rng.uniform(0.4, 1.6);
+    Random& pulsation = draw.stream(StarEffect::kPulsation);
+    const bool overtone = pulsation.uniform() < s.overtone_fraction;
+    const double logp_overtone = pulsation.uniform(0.1, 0.7),
+                 logp_fundamental = pulsation.uniform(0.4, 1.6);
+    const double logp = overtone ? logp_overtone : logp_fundamental;
     const std::string mode = overtone ? "first_overtone" : "fundamental";
     const double logp_f = fundamentalized_log_period("classical_cepheid", mode, logp);
-    const double feh = rng.normal(s.feh_mean, s.feh_spread);
-    const double scatter = rng.normal(0.0, s.sigma_int);
+    Random& metals = draw.stream(StarEffect::kMetallicity);
+    const double feh = metals.normal(s.feh_mean, s.feh_spread),
+                 feh_measured = feh + s.feh_error * metals.normal();
+    const double u_x = draw.stream(StarEffect::kScatter).normal();
     const double abs_mag =
-        s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + scatter;
-    double m0 = abs_mag + mu + rng.normal(0.0, s.mag_error);
-    const double ebv_off = rng.normal(0.0, s.ebv_error);
+        s.alpha + s.beta * (logp_f - s.pivot_log_period) + s.gamma * feh + s.sigma_int * u_x;
+    Random& photometry = draw.stream(StarEffect::kPhotometry);
+    double m0 = abs_mag + mu + photometry.normal(0.0, s.mag_error);
+    const double ebv_off = s.ebv_error * draw.stream(StarEffect::kReddening).normal();
     m0 += s.extinction_per_ebv * ebv_off;
-    const double brightening =
-        rng.uniform() < s.blend_fraction ? mock_blend_brightening(s.blend_law, rng) : 0.0;
+    Random& blending = draw.stream(StarEffect::kBlend);
+    const bool blended = blending.uniform() < s.blend_fraction;
+    const double blend_mag = mock_blend_brightening(s.blend_law, blending);
+    const double brightening = blended ? blend_mag : 0.0;
     m0 -= brightening;
     // Astrometric errors follow the star's observed brightness, as a survey's do (the fit
     // conditions on the observed magnitude, so the errors carry no hidden distance).
     const double plx_err =
         s.parallax_error_scale * (0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0)));
-    double plx = 1.0 / d + s.parallax_offset_mas + rng.normal(0.0, plx_err);
-    MockOutlierShift outlier;
-    if (rng.uniform() < s.parallax_outlier_fraction)
-      outlier = mock_outlier_shift(s.outlier_law, plx_err, rng);
+    double plx =
+        1.0 / d + s.parallax_offset_mas + plx_err * draw.stream(StarEffect::kAstrometry).normal();
+    Random& gross = draw.stream(StarEffect::kOutlier);
+    const bool is_outlier = gross.uniform() < s.parallax_outlier_fraction;
+    const MockOutlierShift shift = mock_outlier_shift(s.outlier_law, plx_err, gross);
+    const MockOutlierShift outlier = is_outlier ? shift : MockOutlierShift{};
     plx += outlier.parallax_mas;
     m0 += outlier.magnitude;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
@@ -249,21 +300,21 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     t.column(mag_err_x).push_real(m_err);
     t.column(col::kParallax).push_real(plx);
     t.column(col::kParallaxErr).push_real(plx_err);
-    t.column(col::kFeh).push_real(feh + (s.feh_error > 0 ? rng.normal(0.0, s.feh_error) : 0.0));
+    t.column(col::kFeh).push_real(feh_measured);
     t.column(col::kFehErr).push_real(s.feh_error);
     if (s.more_relations.empty()) return;
     t.column(col::kEbvErr).push_real(s.ebv_error);
     // Equicorrelated scatter: u_k = rho u_X + sqrt(rho - rho^2) v + sqrt(1 - rho) w_k has unit
     // variance and correlation rho with u_X and with every other u_l.
-    const double rho = s.scatter_correlation,
-                 u_x = s.sigma_int > 0 ? scatter / s.sigma_int : rng.normal();
-    const double shared = rng.normal();
+    const double rho = s.scatter_correlation;
+    Random& bands = draw.stream(StarEffect::kFurtherBands);
+    const double shared = bands.normal();
     for (const auto& r : s.more_relations) {
       const double u =
-          rho * u_x + std::sqrt(rho - rho * rho) * shared + std::sqrt(1.0 - rho) * rng.normal();
+          rho * u_x + std::sqrt(rho - rho * rho) * shared + std::sqrt(1.0 - rho) * bands.normal();
       const double m = r.alpha + r.beta * (logp_f - s.pivot_log_period) + r.gamma * feh +
-                       r.sigma_int * u + mu + outlier.magnitude + rng.normal(0.0, s.mag_error) +
-                       r.extinction_per_ebv * ebv_off -
+                       r.sigma_int * u + mu + outlier.magnitude +
+                       photometry.normal(0.0, s.mag_error) + r.extinction_per_ebv * ebv_off -
                        coloured_brightening(brightening, r.companion_colour);
       t.column(dereddened_magnitude_column(r.name)).push_real(m);
       t.column(dereddened_magnitude_error_column(r.name))

@@ -83,11 +83,20 @@ struct MockRelation {
   double companion_colour = 1.0;
 };
 
+// The layout of the mocks' draws, recorded in each study run so that runs drawn under different
+// layouts are never pooled: 2 since 2026-12-05 (a stream per star and effect: common random
+// numbers between scenarios); 1 before (one stream through every star's draws in turn).
+inline constexpr int kMockDrawLayout = 2;
+
 // One mock catalog of parallax calibrators of one relation, already dereddened (the
 // columns rungcal-fit reads, band "X"), with each contamination switchable on its own.
 struct MockScenario {
-  std::uint64_t seed = 1;  // the whole draw follows from it
-  int stars = 300;         // calibrators drawn
+  // The whole draw follows from it. Each star draws each effect (distance, period, [Fe/H],
+  // scatter, photometry, E(B-V), blend, parallax, outlier, further bands) from a stream of its
+  // own, whether the effect is on or not: two scenarios that differ in one contamination have
+  // the same stars but for that contamination (common random numbers, for paired study rows).
+  std::uint64_t seed = 1;
+  int stars = 300;  // calibrators drawn
   // The truth: M = alpha + beta (log P_F - pivot) + gamma [Fe/H] + N(0, sigma_int).
   double alpha = -5.9, beta = -3.3, gamma = -0.2, sigma_int = 0.08, pivot_log_period = 1.0;
   double parallax_offset_mas = -0.010;       // observed parallax = true + offset + noise
@@ -108,8 +117,8 @@ struct MockScenario {
   // Further relations (joint fits). A star's intrinsic scatter is correlated between all its
   // relations by scatter_correlation (in [0, 1)); its E(B-V) error and [Fe/H] are the same in
   // each, and its blend brightening too unless a relation's companion_colour differs from 1. Their
-  // draws follow each star's own in the one stream: empty, the catalog is what it was before they
-  // existed.
+  // draws come from the star's own stream for them: empty, the catalog is what it is with them
+  // but for their columns.
   std::vector<MockRelation> more_relations;
   double scatter_correlation = 0;
   // Clusters (0: none): each at its own distance modulus, uniform in [9.5, 12] (0.8-2.5 kpc),

@@ -130,6 +130,7 @@ StudyResult run_study(const StudyOptions& o) {
   progress.finish();
   return summarise_study({{"stars", o.scenario.stars},
                           {"truth", o.scenario.truth()},
+                          {"mock_draw_layout", kMockDrawLayout},
                           {"space", std::string(kFitSpaceNames.name(o.fit.space))},
                           {"parameter_names", o.parameters}},
                          std::move(draws));
