@@ -499,7 +499,11 @@ TEST(OptionChecks, MockScenarioAndStudy) {
               {"relations", [](S& o) { o.fit.relations.push_back(o.fit.relations[0]); },
                "fit: one relation per mock relation (X, then more_relations in order)"},
               {"joint", [](S& o) { o.fit.joint = true; },
-               "fit.joint: exactly when the mocks have more relations"}});
+               "fit.joint: exactly when the mocks have more relations"},
+              // The fit's own rules, once for the study rather than as every mock's failure.
+              {"fit option", [](S& o) { o.fit.outlier_factor.value = 2.0; },
+               "fit.outlier_parallax_factor: 2 is outside the parameter's domain (> 3, below "
+               "1000000)"}});
 }
 
 }  // namespace

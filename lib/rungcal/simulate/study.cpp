@@ -67,6 +67,11 @@ std::string StudyOptions::check() const {
     return "fit: one relation per mock relation (X, then more_relations in order)";
   if (fit.joint != !scenario.more_relations.empty())
     return "fit.joint: exactly when the mocks have more relations";
+  // Each mock's fit, but for its paths and its mock clusters (added per mock): a bad option
+  // is refused once here, not by every mock.
+  FitOptions each = fit;
+  each.input_path = each.output_path = "(mock)";
+  if (std::string e = each.check(); !e.empty()) return e;
   return "";
 }
 
