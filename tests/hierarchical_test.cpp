@@ -565,8 +565,8 @@ namespace {
 // within 0.3 of its mean reported error (200 mocks: the mean itself scatters by 0.07) and the
 // 68% intervals must cover 55-80% of the truths (a coverage of 200 mocks scatters by 0.033).
 // The Wesenheit disk's sigma_int sits at that floor here: 0.55 on these mocks (0.54 on the first
-// 100), 0.69 on the study's seeds 1..200, so about 0.62 over the 400, its covariance error some
-// 10% small (docs/method.md, "Common random numbers"): a known weakness this test keeps in view.
+// 100), 0.69 on each of the study's seeds 1..200 and 201..400, so 0.64 over the 600
+// (docs/method.md, "Common random numbers"): a known weakness this test keeps in view.
 // The N = 3000 case has only 16 mocks (its mean scatters by 0.25): it catches a bias of a reported
 // error or more. Every case has every contamination, blends included, and the default (rising)
 // blend component: without one the optical sigma_int came out 0.8 errors high at N = 300 and 3 at N
