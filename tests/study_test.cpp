@@ -20,10 +20,12 @@
 namespace rungcal {
 namespace {
 
-// A small, quick study: 150 Wesenheit stars on the disk, no contamination, seeds first..
-StudyResult small_run(std::uint64_t first, int mocks, int stars = 150) {
+// A small, quick study: 150 Wesenheit stars on the disk, no contamination (or those listed),
+// seeds first..
+StudyResult small_run(std::uint64_t first, int mocks, int stars = 150,
+                      const std::string& contaminations = "none") {
   StudyChoices c;
-  c.contaminations = "none";
+  c.contaminations = contaminations;
   c.seed = first;
   StudyOptions o;
   apply_study_choices(c, o);
@@ -156,16 +158,8 @@ TEST(Study, PairingTwoRunsGivesEachMocksShiftInItsError) {
   test::TempDir dir;
   const StudyResult clean = small_run(1, 4);
   const std::string a = written(dir, "a.json", clean);
-  StudyChoices c;
-  c.contaminations = "parallax_outliers";
-  c.seed = 2;  // seeds 2..5: three in common with a
-  StudyOptions o;
-  apply_study_choices(c, o);
-  o.mocks = 4, o.scenario.stars = 150, o.threads = 1;
-  const auto level = spdlog::get_level();
-  spdlog::set_level(spdlog::level::err);
-  StudyResult dirty = run_study(o);
-  spdlog::set_level(level);
+  // Seeds 2..5: three in common with a.
+  const StudyResult dirty = small_run(2, 4, 150, "parallax_outliers");
   const std::string b = written(dir, "b.json", dirty);
   const PairedStudy self = pair_studies(a, a);
   for (const PairedRow& r : self.rows) {

@@ -174,9 +174,13 @@ std::vector<std::string> undetermined_warnings(
       w += fmt::format(", nor have the component's shape parameters ({})", fmt::join(shape, ", "));
     out.push_back(std::move(w));
   }
+  auto is_fraction = [&](const std::string& n) {
+    return std::any_of(std::begin(kComponents), std::end(kComponents),
+                       [&](const Component& c) { return c.fraction == n; });
+  };
   for (const std::string& n : names) {
     const Component* c = component_of(n);
-    if (n == "outlier_fraction" || n == "blend_fraction") continue;
+    if (is_fraction(n)) continue;
     if (c && listed(c->fraction)) continue;
     // The blend ratios are the joint fit's: worded as it words its other edges.
     out.push_back(c && !n.starts_with("blend_ratio_") ? undetermined_reason(n, value(n))
