@@ -60,9 +60,11 @@ int main(int argc, char** argv) {
       ->capture_default_str();
   app.add_option("--outlier-law", choice.outlier_law,
                  "how the mocks' gross parallax outliers are drawn: shifted (+-5-20 errors), "
-                 "fit_component (the fit's own outlier component: parallax error x10, magnitude "
-                 "+-1 mag) or underestimated_error (parallax error x U(5, 20), magnitude a "
-                 "member's)")
+                 "quartic_component (the fit's default outlier component: +-chi(5) x 6 errors, "
+                 "magnitude a member's), gaussian_component (its Gaussian one: parallax error "
+                 "x10, magnitude +-1 mag; fit it with --outlier-parallax-law gaussian "
+                 "--hold-outlier-factor --outlier-parallax-factor 10) or underestimated_error "
+                 "(parallax error x U(5, 20), magnitude a member's)")
       ->capture_default_str();
   app.add_option("--parallax-error-scale", study.scenario.parallax_error_scale,
                  "multiplies the mocks' parallax errors (3: a median S/N near 5 on the disk)")

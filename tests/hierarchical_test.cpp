@@ -612,7 +612,7 @@ StudyResult run_case(const StudyCase& c) {
   o.fit.input_path = "(mock)";
   o.fit.hierarchical.blends = c.blend_component;
   // Outliers drawn from the fit's Gaussian component (x10, 1 mag wide) are fitted with it.
-  if (c.outlier_law == MockOutlierLaw::kFitComponent) {
+  if (c.outlier_law == MockOutlierLaw::kGaussianComponent) {
     o.fit.hierarchical.outlier_parallax = OutlierParallaxLaw::kGaussian;
     o.fit.outlier_factor = ParamSpec{ParamMode::kFixed, 10.0, 0, true};
   }
@@ -663,7 +663,7 @@ TEST(HierarchicalSimulation, OpticalDiskWithContaminationsAsTheModelHasThem) {
               0.45,
               0.5,
               0.85};
-  c.outlier_law = MockOutlierLaw::kFitComponent, c.blend_law = MockBlendLaw::kFitComponent;
+  c.outlier_law = MockOutlierLaw::kGaussianComponent, c.blend_law = MockBlendLaw::kFitComponent;
   expect_unbiased_with_honest_intervals(c);
 }
 

@@ -62,9 +62,9 @@ TEST(MockCatalog, FitComponentBlendsFollowTheFitsRisingLaw) {
   EXPECT_NEAR(static_cast<double>(below) / n, 1 - 2 * std::exp(-1.0), 0.004);
 }
 
-// The two gross-outlier laws: the study's shifted one lies 5-20 errors off on either side
-// with the magnitude untouched; the fit-component one is the fit's default outlier
-// component (docs/method.md, "Outliers"): parallax error x10 in all, magnitude +- 1 mag.
+// The gross-outlier laws: the study's shifted one lies 5-20 errors off on either side with the
+// magnitude untouched; the Gaussian component is the fit's former default outlier component
+// (docs/method.md, "Outliers"): parallax error x10 in all, magnitude +- 1 mag.
 TEST(MockCatalog, OutlierLawsHaveTheirShapes) {
   Random rng(5);
   const int n = 20000;
@@ -78,7 +78,7 @@ TEST(MockCatalog, OutlierLawsHaveTheirShapes) {
   }
   EXPECT_NEAR(below / n, 0.5, 0.015);  // 3.4 of its own sd (0.0035)
   for (int i = 0; i < n; ++i) {
-    const MockOutlierShift s = mock_outlier_shift(MockOutlierLaw::kFitComponent, 0.02, rng);
+    const MockOutlierShift s = mock_outlier_shift(MockOutlierLaw::kGaussianComponent, 0.02, rng);
     sum2_plx += s.parallax_mas * s.parallax_mas;
     sum2_mag += s.magnitude * s.magnitude;
     sum_mag += s.magnitude;
@@ -87,7 +87,7 @@ TEST(MockCatalog, OutlierLawsHaveTheirShapes) {
   EXPECT_NEAR(std::sqrt(sum2_plx / n + 0.02 * 0.02), 0.2, 0.004);  // sd of the sd: 0.001
   EXPECT_NEAR(std::sqrt(sum2_mag / n), 1.0, 0.02);
   EXPECT_NEAR(sum_mag / n, 0.0, 0.03);
-  EXPECT_EQ(kMockOutlierLawNames.parse("fit_component"), MockOutlierLaw::kFitComponent);
+  EXPECT_EQ(kMockOutlierLawNames.parse("gaussian_component"), MockOutlierLaw::kGaussianComponent);
   // Underestimated errors: F ~ U(5, 20) gives E[F^2] = (20^3 - 5^3) / (3 x 15) = 175 in
   // all (the added variance F^2 - 1 plus the member's own 1); the magnitude is untouched.
   double sum2 = 0;
@@ -98,6 +98,33 @@ TEST(MockCatalog, OutlierLawsHaveTheirShapes) {
     EXPECT_EQ(s.magnitude, 0.0);
   }
   EXPECT_NEAR(sum2 / n, 175.0, 8.0);  // sd of the mean: 2.2
+}
+
+// The fit's default outlier component (docs/method.md, "Outliers"): p(e) = (e^4 / 3 s^4)
+// N(e | 0, s^2), s = 6 sigma_pi, so |e| / s follows the chi distribution of five degrees of
+// freedom. Reference values from scipy.stats.chi(5): mean 2.12769, cdf(1) 0.037434, cdf(2)
+// 0.450584; E[e^2] = 5 s^2 and E[e^4] = 35 s^4 (the chi-squared's k and k (k + 2)). The draw is
+// the whole deviation, so it replaces the member's own error and leaves the magnitude alone.
+TEST(MockCatalog, QuarticComponentOutliersFollowTheFitsOwnLaw) {
+  Random rng(11);
+  const int n = 40000;
+  const double s = kMockQuarticOutlierFactor * 0.02;
+  double sum = 0, sum2 = 0, sum4 = 0, below1 = 0, below2 = 0, negative = 0;
+  for (int i = 0; i < n; ++i) {
+    const MockOutlierShift o = mock_outlier_shift(MockOutlierLaw::kQuarticComponent, 0.02, rng);
+    EXPECT_TRUE(o.replaces_member_noise);
+    EXPECT_EQ(o.magnitude, 0.0);
+    const double x = std::abs(o.parallax_mas) / s;
+    sum += x, sum2 += x * x, sum4 += x * x * x * x;
+    below1 += x < 1 ? 1 : 0, below2 += x < 2 ? 1 : 0, negative += o.parallax_mas < 0 ? 1 : 0;
+  }
+  EXPECT_NEAR(sum / n, 2.12769, 0.01);       // sd of the mean: 0.0035
+  EXPECT_NEAR(sum2 / n, 5.0, 0.05);          // sd of the mean: 0.016
+  EXPECT_NEAR(sum4 / n, 35.0, 1.0);          // sd of the mean: about 0.3
+  EXPECT_NEAR(below1 / n, 0.037434, 0.004);  // sd: 0.00095
+  EXPECT_NEAR(below2 / n, 0.450584, 0.01);   // sd: 0.0025
+  EXPECT_NEAR(negative / n, 0.5, 0.01);      // sd: 0.0025
+  EXPECT_EQ(kMockOutlierLawNames.parse("quartic_component"), MockOutlierLaw::kQuarticComponent);
 }
 
 TEST(MockCatalog, ParallaxErrorScaleMultipliesEveryError) {

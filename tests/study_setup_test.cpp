@@ -139,13 +139,13 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   c = {};
   c.outlier_law = "uniform";
   EXPECT_EQ(refusal(c),
-            "--outlier-law [config_value] 'uniform' is not one of: shifted, fit_component, "
-            "underestimated_error");
+            "--outlier-law [config_value] 'uniform' is not one of: shifted, gaussian_component, "
+            "quartic_component, underestimated_error");
   c = {};
-  c.outlier_law = "fit_component";
+  c.outlier_law = "quartic_component";
   StudyOptions study;
   apply_study_choices(c, study);
-  EXPECT_EQ(study.scenario.outlier_law, MockOutlierLaw::kFitComponent);
+  EXPECT_EQ(study.scenario.outlier_law, MockOutlierLaw::kQuarticComponent);
   c = {};
   c.outlier_parallax_law = "flat";
   EXPECT_EQ(refusal(c),

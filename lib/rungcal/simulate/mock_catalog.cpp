@@ -135,6 +135,24 @@ Eigen::MatrixXd mock_anchor_covariance(const MockScenario& s) {
   return c;
 }
 
+namespace {
+
+// The fit's quartic outlier law, p(e) = (e^4 / 3 s^4) N(e | 0, s^2) with s = F sigma_pi: |e| / s
+// follows the chi distribution of five degrees of freedom, the length of a 5-d standard normal
+// vector, and the sign is even.
+MockOutlierShift quartic_component_draw(double parallax_err_mas, Random& rng) {
+  double chi2 = 0;
+  for (int k = 0; k < 5; ++k) {
+    const double z = rng.normal();
+    chi2 += z * z;
+  }
+  const double sign = rng.uniform() < 0.5 ? -1.0 : 1.0;
+  const double scale = kMockQuarticOutlierFactor * parallax_err_mas;
+  return {sign * std::sqrt(chi2) * scale, 0.0, true};
+}
+
+}  // namespace
+
 MockOutlierShift mock_outlier_shift(MockOutlierLaw law, double parallax_err_mas, Random& rng) {
   if (law == MockOutlierLaw::kShifted)
     return {(rng.uniform() < 0.5 ? -1.0 : 1.0) * rng.uniform(5.0, 20.0) * parallax_err_mas, 0.0};
@@ -143,6 +161,8 @@ MockOutlierShift mock_outlier_shift(MockOutlierLaw law, double parallax_err_mas,
     const double factor = rng.uniform(5.0, 20.0);
     return {rng.normal(0.0, std::sqrt(factor * factor - 1.0) * parallax_err_mas), 0.0};
   }
+  if (law == MockOutlierLaw::kQuarticComponent)
+    return quartic_component_draw(parallax_err_mas, rng);
   // x10 the error in all: the member's own N(0, sigma^2) plus N(0, 99 sigma^2).
   const double parallax = rng.normal(0.0, std::sqrt(99.0) * parallax_err_mas);
   return {parallax, rng.normal(0.0, 1.0)};
@@ -288,7 +308,8 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     const bool is_outlier = gross.uniform() < s.parallax_outlier_fraction;
     const MockOutlierShift shift = mock_outlier_shift(s.outlier_law, plx_err, gross);
     const MockOutlierShift outlier = is_outlier ? shift : MockOutlierShift{};
-    plx += outlier.parallax_mas;
+    plx = outlier.replaces_member_noise ? 1.0 / d + s.parallax_offset_mas + outlier.parallax_mas
+                                        : plx + outlier.parallax_mas;
     m0 += outlier.magnitude;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
     t.column(col::kId).push_text(id);

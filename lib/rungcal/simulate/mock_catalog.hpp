@@ -34,7 +34,7 @@ enum class MockBlendLaw {
   kBrightCompanions,  // q ~ U(0.5, 4): 0.44-1.75 mag
   // The fit's own default blend component (docs/method.md, "Blends"): 0.3 mag plus a
   // Gamma(shape 2, mean 0.5 mag) draw, so that the model matches the mocks: a check of the
-  // component itself, as MockOutlierLaw::kFitComponent is of the outlier component.
+  // component itself, as MockOutlierLaw::kQuarticComponent is of the outlier component.
   kFitComponent,
 };
 inline constexpr EnumTable<MockBlendLaw, 4> kMockBlendLawNames{{{
@@ -48,27 +48,39 @@ inline constexpr EnumTable<MockBlendLaw, 4> kMockBlendLawNames{{{
 // 2.5 log10(1 + q) (Pogson's ratio).
 double mock_blend_brightening(MockBlendLaw law, Random& rng);
 
-// How a gross parallax outlier is drawn. The first is the study's; the second is the fit's
-// own default outlier component (docs/method.md, "Outliers": the parallax error times 10,
-// the magnitude widened by 1 mag), a self-consistency check of the mixture: on it the fit's
-// model is right, so what bias remains with the first is the outlier law's mismatch. The
-// third is an astrometric solution whose error is underestimated by a factor drawn per star
-// (a scale mixture, unlike the fit's one factor; its deviations reach into the members'
-// core, which the first's never do).
+// How a gross parallax outlier is drawn. The first is the study's. The next two are the fit's
+// own outlier components (docs/method.md, "Outliers"), self-consistency checks of the mixture:
+// drawn from them, the outliers are what the model says, so what bias remains with the first
+// is the outlier law's mismatch. The Gaussian one (the parallax error times 10, the magnitude
+// widened by 1 mag) was the fit's default before 2026-12-04 and named `fit_component` until
+// 2026-12-05; the quartic one is the default since 2026-12-05 (F = 6, where the fit settles
+// on the study's mocks). The last is an astrometric solution whose error is underestimated by
+// a factor drawn per star (a scale mixture, unlike the fit's one factor; its deviations reach
+// into the members' core, which the first's never do).
 enum class MockOutlierLaw {
   kShifted,              // parallax off by +-U(5, 20) of its errors; magnitude a member's
-  kFitComponent,         // parallax + N(0, 99 sigma_pi^2) (x10 in all), magnitude + N(0, 1 mag^2)
+  kGaussianComponent,    // parallax + N(0, 99 sigma_pi^2) (x10 in all), magnitude + N(0, 1 mag^2)
+  kQuarticComponent,     // parallax deviation +-chi(5) x 6 sigma_pi in all; magnitude a member's
   kUnderestimatedError,  // parallax error x F in all, F ~ U(5, 20); magnitude a member's
 };
-inline constexpr EnumTable<MockOutlierLaw, 3> kMockOutlierLawNames{{{
+inline constexpr EnumTable<MockOutlierLaw, 4> kMockOutlierLawNames{{{
     {MockOutlierLaw::kShifted, "shifted"},
-    {MockOutlierLaw::kFitComponent, "fit_component"},
+    {MockOutlierLaw::kGaussianComponent, "gaussian_component"},
+    {MockOutlierLaw::kQuarticComponent, "quartic_component"},
     {MockOutlierLaw::kUnderestimatedError, "underestimated_error"},
 }}};
 
+// The quartic component's parallax scale over the error that kQuarticComponent draws with: the
+// fit's start, and where it settles on the study's mocks (docs/method.md, "Outliers").
+inline constexpr double kMockQuarticOutlierFactor = 6.0;
+
 // What a gross outlier adds to a star's parallax (mas) and magnitude (mag, every band alike).
+// With `replaces_member_noise` the parallax figure is the whole deviation from the true
+// parallax plus offset, in place of the member's own error (the quartic component's law is
+// that of the whole deviation).
 struct MockOutlierShift {
   double parallax_mas = 0, magnitude = 0;
+  bool replaces_member_noise = false;
 };
 MockOutlierShift mock_outlier_shift(MockOutlierLaw law, double parallax_err_mas, Random& rng);
 
