@@ -17,7 +17,7 @@ namespace {
 rungcal::StudyResult run_mocks(rungcal::StudyOptions study, const rungcal::StudyChoices& choice,
                                const CLI::App& app) {
   rungcal::apply_study_choices(choice, study);
-  rungcal::throw_if_invalid(study.check(), "(command line)");
+  rungcal::throw_if_invalid(rungcal::with_study_option_name(study.check()), "(command line)");
   const auto level = spdlog::get_level();
   spdlog::set_level(spdlog::level::err);  // every mock's own warnings would bury the table
   rungcal::StudyResult result = rungcal::run_study(study);

@@ -167,4 +167,23 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
 }
 
 }  // namespace
+// A broken fit rule is named by the option the study's user typed, the config key beside it.
+TEST(StudySetup, FitRulesAreRestatedWithTheStudysOptionName) {
+  StudyOptions study;
+  study.fit.relations = {RelationOptions{}};
+  study.fit.relations[0].name = study.fit.relations[0].band = "X";
+  study.fit.outlier_factor.value = 2.0;
+  EXPECT_EQ(with_study_option_name(study.check()),
+            "--outlier-parallax-factor: 2 is outside the parameter's domain (> 3, below 1000000) "
+            "(fit.outlier_parallax_factor)");
+  study.fit.outlier_factor.value = 6.0;
+  study.fit.hierarchical.quadrature_nodes = 4;
+  EXPECT_EQ(with_study_option_name(study.check()),
+            "--quadrature-nodes: must be 8 to 128 (fit.quadrature_nodes)");
+  // A rule of a key without an option of its own stays as it was.
+  EXPECT_EQ(with_study_option_name("fit.loss_scale: must be positive"),
+            "fit.loss_scale: must be positive");
+  EXPECT_EQ(with_study_option_name(""), "");
+}
+
 }  // namespace rungcal

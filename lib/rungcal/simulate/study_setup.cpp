@@ -1,7 +1,10 @@
 // SPDX-License-Identifier: MIT
 #include "rungcal/simulate/study_setup.hpp"
 
+#include <fmt/format.h>
+
 #include <algorithm>
+#include <array>
 #include <sstream>
 
 #include "rungcal/core/enum_table.hpp"
@@ -139,6 +142,37 @@ void apply_study_choices(const StudyChoices& c, StudyOptions& study) {
   if (c.joint > 0) set_up_joint(c, x, study);
   study.anchor_covariance = !c.independent_anchor_priors;
   for (const auto& a : mock_anchors(s)) study.parameters.push_back("mu_" + a.group);
+}
+
+namespace {
+
+// The fit's config keys that rungcal-study sets from an option of its own.
+struct StudyOptionOfFitKey {
+  const char* key;
+  const char* option;
+};
+constexpr std::array<StudyOptionOfFitKey, 10> kStudyOptionsOfFitKeys{{
+    {"fit.histogram_smoothing", "--histogram-smoothing"},
+    {"fit.histogram_step_mag", "--histogram-step"},
+    {"fit.histogram_kernel_fraction", "--histogram-kernel"},
+    {"fit.histogram_margin_mag", "--histogram-margin"},
+    {"fit.quadrature_nodes", "--quadrature-nodes"},
+    {"fit.outlier_mag_shift", "--outlier-shift"},
+    {"fit.outlier_mag_width", "--outlier-width"},
+    {"fit.outlier_parallax_factor", "--outlier-parallax-factor"},
+    {"fit.blend_scale_mag", "--blend-scale"},
+    {"fit.blend_min_mag", "--blend-min-mag"},
+}};
+
+}  // namespace
+
+std::string with_study_option_name(const std::string& rule) {
+  for (const StudyOptionOfFitKey& k : kStudyOptionsOfFitKeys) {
+    const std::string prefix = std::string(k.key) + ":";
+    if (rule.rfind(prefix, 0) == 0)
+      return fmt::format("{}:{} ({})", k.option, rule.substr(prefix.size()), k.key);
+  }
+  return rule;
 }
 
 }  // namespace rungcal

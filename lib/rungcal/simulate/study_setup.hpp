@@ -54,4 +54,9 @@ std::vector<MockRelation> study_joint_relations(int joint);
 // rule for a name that is not one of its table's.
 void apply_study_choices(const StudyChoices& choices, StudyOptions& study);
 
+// A rule broken by one of the fit's options that rungcal-study sets from its command line,
+// "fit.<key>: <rule>", restated with the option's name first, "--<option>: <rule> (fit.<key>)",
+// since the study's user typed the option, not the config key; other rules as they are.
+std::string with_study_option_name(const std::string& rule);
+
 }  // namespace rungcal
