@@ -166,7 +166,6 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   EXPECT_EQ(refusal(c).rfind("--space [config_value] 'sky' is not one of: ", 0), 0U);
 }
 
-}  // namespace
 // A broken fit rule is named by the option the study's user typed, the config key beside it.
 TEST(StudySetup, FitRulesAreRestatedWithTheStudysOptionName) {
   StudyOptions study;
@@ -186,4 +185,5 @@ TEST(StudySetup, FitRulesAreRestatedWithTheStudysOptionName) {
   EXPECT_EQ(with_study_option_name(""), "");
 }
 
+}  // namespace
 }  // namespace rungcal

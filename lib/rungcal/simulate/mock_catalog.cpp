@@ -302,14 +302,15 @@ StarTable mock_calibrator_catalog(const MockScenario& s) {
     // conditions on the observed magnitude, so the errors carry no hidden distance).
     const double plx_err =
         s.parallax_error_scale * (0.012 + 0.06 * std::pow(10.0, 0.4 * (m0 - 15.0)));
-    double plx =
-        1.0 / d + s.parallax_offset_mas + plx_err * draw.stream(StarEffect::kAstrometry).normal();
+    const double plx_expected = 1.0 / d + s.parallax_offset_mas;
+    const double plx_measured =
+        plx_expected + plx_err * draw.stream(StarEffect::kAstrometry).normal();
     Random& gross = draw.stream(StarEffect::kOutlier);
     const bool is_outlier = gross.uniform() < s.parallax_outlier_fraction;
     const MockOutlierShift shift = mock_outlier_shift(s.outlier_law, plx_err, gross);
     const MockOutlierShift outlier = is_outlier ? shift : MockOutlierShift{};
-    plx = outlier.replaces_member_noise ? 1.0 / d + s.parallax_offset_mas + outlier.parallax_mas
-                                        : plx + outlier.parallax_mas;
+    const double plx =
+        (outlier.replaces_member_noise ? plx_expected : plx_measured) + outlier.parallax_mas;
     m0 += outlier.magnitude;
     const double m_err = std::hypot(s.mag_error, s.extinction_per_ebv * s.ebv_error);
     t.column(col::kId).push_text(id);
