@@ -152,6 +152,43 @@ TEST(Grid, ReportRendersTheBudgetInEachFormat) {
       << tex;  // alpha's error 0.07x: shifts to 4 decimals
 }
 
+TEST(Grid, BlendModelVariantsReachTheHierarchicalFit) {
+  // The blend component's start and law as analysis choices (docs/method.md, "The blend law
+  // near its start"): read from [[variant]] and handed to that variant's fit only.
+  test::TempDir dir;
+  const std::string catalog = ingested_catalog(dir, false);
+  test::write_text(dir.file("g.toml"),
+                   fmt::format("[grid]\ncatalog = \"{}\"\nderedden = \"{}\"\nfit = \"{}\"\n"
+                               "output = \"{}\"\nthreads = 2\n"
+                               "[[variant]]\nname = \"blend_start_0.5\"\ncategory = \"blends\"\n"
+                               "blend_min_mag = 0.5\n"
+                               "[[variant]]\nname = \"blend_exponential\"\ncategory = \"blends\"\n"
+                               "blend_component = \"exponential\"\n",
+                               catalog, test::source_file("config/demo/deredden.toml"),
+                               test::source_file("config/demo/fit.toml"), dir.file("grid")));
+  const GridOptions g = grid_options_from_file(dir.file("g.toml"));
+  ASSERT_EQ(g.variants.size(), 2u);
+  EXPECT_EQ(g.variants[0].blend_min_mag, 0.5);
+  EXPECT_FALSE(g.variants[0].blend_component.has_value());
+  EXPECT_EQ(g.variants[1].blend_component, BlendComponent::kExponential);
+  const GridResult grid = run_grid(g);
+  const HierarchicalSettings& base = grid.baseline.relations[0].settings.hierarchical;
+  const HierarchicalSettings& start = grid.variants[0].relations[0].settings.hierarchical;
+  const HierarchicalSettings& law = grid.variants[1].relations[0].settings.hierarchical;
+  // The demo fit keeps the model's defaults (model.hpp): a rising component from 0.3 mag.
+  EXPECT_EQ(base.blend_min_mag, 0.3);
+  EXPECT_EQ(base.blends, BlendComponent::kRising);
+  EXPECT_EQ(start.blend_min_mag, 0.5);
+  EXPECT_EQ(start.blends, BlendComponent::kRising);
+  EXPECT_EQ(law.blend_min_mag, 0.3);
+  EXPECT_EQ(law.blends, BlendComponent::kExponential);
+  // Both rows are in the budget, under their category.
+  const auto& alpha = grid.budget["relations"][0]["parameters"][0];
+  ASSERT_EQ(alpha["variants"].size(), 2u);
+  EXPECT_TRUE(std::isfinite(alpha["variants"][0]["shift"].get<double>()));
+  EXPECT_TRUE(alpha["categories"].contains("blends"));
+}
+
 TEST(Grid, BadGridConfigStopsWithItsRule) {
   test::TempDir dir;
   test::write_text(dir.file("g.toml"),
@@ -165,6 +202,21 @@ TEST(Grid, BadGridConfigStopsWithItsRule) {
   r = test::run_stage("grid", "--config " + dir.file("g.toml"));
   EXPECT_EQ(r.exit_code, 2) << r.output;
   EXPECT_NE(r.output.find("variant"), std::string::npos) << r.output;
+  test::write_text(dir.file("g.toml"),
+                   "[grid]\ncatalog = \"c.fits\"\nderedden = \"d.toml\"\nfit = \"f.toml\"\n"
+                   "[[variant]]\nname = \"x\"\ncategory = \"blends\"\nblend_min_mag = -0.1\n");
+  r = test::run_stage("grid", "--config " + dir.file("g.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("key 'variant.x.blend_min_mag': [config_value] must be 0 to 5 mag"),
+            std::string::npos)
+      << r.output;
+  test::write_text(dir.file("g.toml"),
+                   "[grid]\ncatalog = \"c.fits\"\nderedden = \"d.toml\"\nfit = \"f.toml\"\n"
+                   "[[variant]]\nname = \"x\"\ncategory = \"blends\"\n"
+                   "blend_component = \"gamma3\"\n");
+  r = test::run_stage("grid", "--config " + dir.file("g.toml"));
+  EXPECT_EQ(r.exit_code, 2) << r.output;
+  EXPECT_NE(r.output.find("blend_component"), std::string::npos) << r.output;
 }
 
 }  // namespace

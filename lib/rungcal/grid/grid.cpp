@@ -36,12 +36,27 @@ FitOptions fit_options_for(const GridOptions& g, const FitOptions& base, const G
   if (v->loss_scale) o.loss_scale = *v->loss_scale;
   if (v->space) o.space = *v->space;
   if (v->inflation) o.inflation = *v->inflation;
+  if (v->blend_min_mag) o.hierarchical.blend_min_mag = *v->blend_min_mag;
+  if (v->blend_component) o.hierarchical.blends = *v->blend_component;
   for (auto& r : o.relations) {
     if (v->metallicity) r.metallicity = *v->metallicity;
     if (v->min_log_period) r.min_log_period = *v->min_log_period;
     if (v->max_log_period) r.max_log_period = *v->max_log_period;
   }
   return o;
+}
+
+// A blend-model variant changes nothing outside the hierarchical space: say so, rather than let
+// its zero shift read as "the blend model does not matter".
+void warn_of_blend_variants_without_blends(const GridOptions& g, const FitOptions& base) {
+  for (const GridVariant& v : g.variants) {
+    if (!v.blend_min_mag && !v.blend_component) continue;
+    if (fit_options_for(g, base, &v).space != FitSpace::kHierarchical)
+      spdlog::warn(
+          "variant '{}': blend_min_mag and blend_component shape only the hierarchical "
+          "fit; in this variant's space its shift is zero by construction",
+          v.name);
+  }
 }
 
 DereddenOptions deredden_options_for(const DereddenOptions& base, const GridVariant& v) {
@@ -154,6 +169,8 @@ std::string GridOptions::check() const {
       return fmt::format("variant.name: '{}' is used twice", v.name);
     if (v.category.empty()) return fmt::format("variant.{}.category: required", v.name);
     if (v.r_v && !(*v.r_v > 0)) return fmt::format("variant.{}.r_v: must be positive", v.name);
+    if (v.blend_min_mag && !(*v.blend_min_mag >= 0 && *v.blend_min_mag <= 5))
+      return fmt::format("variant.{}.blend_min_mag: must be 0 to 5 mag", v.name);
   }
   return "";
 }
@@ -190,6 +207,8 @@ GridOptions grid_options_from_file(const std::string& path) {
     v.min_log_period = number_if(s, "min_log_period");
     v.max_log_period = number_if(s, "max_log_period");
     v.inflation = choice_if(s, "inflation", kInflationRecipeNames);
+    v.blend_min_mag = number_if(s, "blend_min_mag");
+    v.blend_component = choice_if(s, "blend_component", kBlendComponentNames);
     o.variants.push_back(v);
   }
   c.check_unknown_keys();
@@ -233,6 +252,7 @@ GridResult run_grid(const GridOptions& g) {
   std::vector<FitResult> fits(g.variants.size() + 1);
   const DereddenResult base_dr = run_deredden(base_dered, catalog.table, bands);
   const StarTable base_coeffs = base_dr.coefficients_table();
+  warn_of_blend_variants_without_blends(g, base_fit);
   Progress progress("systematics grid", fits.size());
   distributed_for(
       fits.size(), worker_threads(g.threads),

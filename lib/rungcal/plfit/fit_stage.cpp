@@ -221,6 +221,7 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
       rr.warnings.push_back(std::move(w));
     if (!rr.covariance_ok)
       rr.warnings.push_back("the covariance could not be computed (degenerate parameters?)");
+    if (std::string w = blend_start_warning(rr); !w.empty()) rr.warnings.push_back(std::move(w));
     fill_star_residuals(rr, c);
     run_bootstrap(o, rr, data);
     for (const auto& w : rr.warnings) spdlog::warn("relation {}: {}", rel.name, w);
