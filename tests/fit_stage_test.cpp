@@ -338,26 +338,26 @@ TEST(FitStage, UndeterminedShapeIsSaidWithinItsFractionsWarning) {
   EXPECT_EQ(ratio, std::vector<std::string>{"blend_ratio_K is on the edge"});
 }
 
-// The blend start warning (fit_parts.hpp): on when the component starts within 3 sigma_int
+// The blend start warning (fit_parts.hpp): on when the component starts within 2.5 sigma_int
 // of the members and blends were found, off otherwise. The thresholds are the study's
 // (docs/method.md, "The blend law near its start").
-TEST(FitStage, BlendStartWithinThreeScattersWarns) {
+TEST(FitStage, BlendStartWithinTwoAndAHalfScattersWarns) {
   using fit_parts::blend_start_warning;
   RelationResult rr;
   rr.layout.sigma = 2, rr.layout.blend = 3;
   rr.settings.hierarchical.blends = BlendComponent::kRising;
   rr.settings.hierarchical.blend_min_mag = 0.3;
-  rr.solution.theta = Eigen::Vector4d(-3.9, -2.4, 0.20, 0.03);  // optical: 0.3 < 0.6
+  rr.solution.theta = Eigen::Vector4d(-3.9, -2.4, 0.20, 0.03);  // optical: 0.3 < 0.5
   const std::string w = blend_start_warning(rr);
   EXPECT_TRUE(
-      w.starts_with("blends start 0.3 mag brighter than a member, within 3 sigma_int "
-                    "(0.6 mag) of the relation"))
+      w.starts_with("blends start 0.30 mag brighter than a member, within 2.5 sigma_int "
+                    "(0.50 mag) of the relation"))
       << w;
-  rr.solution.theta[2] = 0.08;  // Wesenheit: 0.3 > 0.24
+  rr.solution.theta[2] = 0.11;  // near the Wesenheit relations' 0.08: 0.3 > 0.275
   EXPECT_EQ(blend_start_warning(rr), "");
   rr.solution.theta[2] = 0.20, rr.solution.theta[3] = 1e-12;  // no blends found
   EXPECT_EQ(blend_start_warning(rr), "");
-  rr.solution.theta[3] = 0.03, rr.settings.hierarchical.blend_min_mag = 0.7;  // beyond 3 widths
+  rr.solution.theta[3] = 0.03, rr.settings.hierarchical.blend_min_mag = 0.6;  // beyond 2.5 widths
   EXPECT_EQ(blend_start_warning(rr), "");
   rr.settings.hierarchical.blend_min_mag = 0.3;
   rr.settings.hierarchical.blends = BlendComponent::kNone;

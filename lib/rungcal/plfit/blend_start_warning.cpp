@@ -11,10 +11,10 @@ std::string blend_start_warning(const RelationResult& rr) {
   if (L.blend < 0 || h.blends == BlendComponent::kNone) return "";
   const Eigen::VectorXd& t = rr.solution.theta;
   const double fraction = t[L.blend], sigma_int = t[L.sigma];
-  constexpr double kWidths = 3.0;
+  constexpr double kWidths = 2.5;
   if (!(fraction >= 1e-3) || !(h.blend_min_mag < kWidths * sigma_int)) return "";
   return fmt::format(
-      "blends start {:.2g} mag brighter than a member, within 3 sigma_int ({:.2g} mag) of the "
+      "blends start {:.2f} mag brighter than a member, within 2.5 sigma_int ({:.2f} mag) of the "
       "relation, where they look like the members' bright tail: alpha and sigma_int lean on "
       "blend_min_mag and blend_component (on the study's mocks at sigma_int 0.2, a start of "
       "0.3 or 0.5 mag moved alpha by about +-0.2 of its error at 3000 stars); a systematics grid "

@@ -57,12 +57,12 @@ std::string undetermined_reason(const std::string& name, double value);
 std::vector<std::string> undetermined_warnings(
     const std::vector<std::string>& names, const std::function<double(const std::string&)>& value,
     const std::function<std::string(const std::string&)>& other);
-// A warning when the blend component starts within 3 sigma_int of the members (at sigma_int
-// 0.2 mag, the default 0.3 mag start): blends that brighten a star by less than about three
-// member widths look like the members' bright tail, so the estimates lean on where the
-// component starts and how it rises (docs/method.md, "The blend law near its start"; 3 is
-// where the study's Wesenheit relation, start 3.75 widths, stopped leaning). Empty without a
-// blend component, without blends (fraction under 1e-3) or with the start beyond that.
+// A warning when the blend component starts within 2.5 sigma_int of the members (at sigma_int
+// 0.2 mag, the default 0.3 mag start): blends that brighten a star by less than a few member
+// widths look like the members' bright tail, so the estimates lean on where the component
+// starts and how it rises (docs/method.md, "The blend law near its start": 1.5 widths out it
+// moved alpha by +-0.2 errors, 3.75 widths out by -0.08). Empty without a blend component,
+// without blends (fraction under 1e-3) or with the start beyond 2.5 widths.
 std::string blend_start_warning(const RelationResult& rr);
 // A parameter's index by name (std::out_of_range when there is none).
 int index_of(const ParameterLayout& L, const std::string& name);
