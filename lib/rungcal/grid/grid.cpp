@@ -51,7 +51,7 @@ FitOptions fit_options_for(const GridOptions& g, const FitOptions& base, const G
 void warn_of_blend_variants_without_blends(const GridOptions& g, const FitOptions& base) {
   for (const GridVariant& v : g.variants) {
     if (!v.blend_min_mag && !v.blend_component) continue;
-    if (fit_options_for(g, base, &v).space != FitSpace::kHierarchical)
+    if (v.space.value_or(base.space) != FitSpace::kHierarchical)
       spdlog::warn(
           "variant '{}': blend_min_mag and blend_component shape only the hierarchical "
           "fit; in this variant's space its shift is zero by construction",
