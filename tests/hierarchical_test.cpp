@@ -391,6 +391,15 @@ TEST(Hierarchical, ScatterCorrectionIsReadAndAnUnknownOneRefused) {
       });
 }
 
+TEST(Hierarchical, CovarianceEstimateIsReadAndAnUnknownOneRefused) {
+  EXPECT_EQ(FitOptions{}.hierarchical.covariance, CovarianceEstimate::kHessian);
+  expect_choice_read_and_refused(
+      "covariance", "covariance = \"sandwich\"", "covariance = \"bootstrap\"", "hessian, sandwich",
+      [](const FitOptions& o) {
+        EXPECT_EQ(o.hierarchical.covariance, CovarianceEstimate::kSandwich);
+      });
+}
+
 // One parallax star's outlier component under the rising law, (e^2 / s^2) N(e | 0, s^2) with
 // s = 10 sigma_pi, and under the quartic law, (e^4 / 3 s^4) N(e | 0, s^2), both with the
 // member's magnitude term (the width set to 0.7 must not enter), by scipy.integrate.quad

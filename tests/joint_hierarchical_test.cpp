@@ -418,6 +418,62 @@ L_star = (1 - fb) * member + fb * blend
 }
 
 // Free ratios at 1 take the coloured path; fixed at 1 the grey one: the same likelihood.
+// The sandwich's units are the stars: with one relation, the joint fit's scores (its own
+// accumulators, snapshot per star) and its terms outside the stars (the anchor's prior, the
+// gamma prior) must give the single relation's sandwich, itself checked against a closed form
+// (tests/hierarchical_sandwich_test.cpp). Taken at the optimum over the location parameters
+// and the scatter, the rest held, so that the Hessian is positive definite.
+TEST(JointHierarchical, OneRelationSandwichIsTheSingleRelations) {
+  JointCase c = joint_case(1);
+  const JointLayout& L = c.layout;
+  const std::vector<int> free = {L.alpha[0], L.beta[0], L.gamma[0],
+                                 L.sigma[0], L.offset,  L.anchor0};
+  for (int j = 0; j < L.size; ++j)
+    if (std::find(free.begin(), free.end(), j) == free.end())
+      c.settings.params[static_cast<std::size_t>(j)] =
+          ParamSpec{ParamMode::kFixed, c.theta[j], 0, true};
+  const FitSolution sol = solve_joint_hierarchical(c.data, c.settings, L, c.theta);
+  ASSERT_TRUE(sol.usable) << sol.message;
+  c.theta = sol.theta;
+  Eigen::MatrixXd joint_cov, joint_sandwich;
+  std::vector<std::string> undetermined;
+  ASSERT_TRUE(joint_hierarchical_covariance(c.data, c.settings, L, c.theta, joint_cov, undetermined,
+                                            nullptr, &joint_sandwich));
+  ASSERT_EQ(joint_sandwich.rows(), L.size);
+
+  const ParameterLayout& S = single_layout();
+  FitSettings single;
+  const Eigen::VectorXd t = single_parameters(c, single);
+  for (int j = 0; j < S.size; ++j) {
+    std::string name = S.names[static_cast<std::size_t>(j)];
+    for (const char* own : {"alpha", "beta", "gamma", "sigma_int"})
+      if (name == own) name += "_V";
+    const auto at = std::find(L.names.begin(), L.names.end(), name) - L.names.begin();
+    single.params[static_cast<std::size_t>(j)] = c.settings.params[static_cast<std::size_t>(at)];
+  }
+  Eigen::MatrixXd single_cov, single_sandwich;
+  std::vector<std::string> single_undetermined;
+  ASSERT_TRUE(hierarchical_covariance(single_data(), single, S, t, single_cov, single_undetermined,
+                                      nullptr, &single_sandwich));
+  ASSERT_EQ(single_sandwich.rows(), S.size);
+  const std::vector<std::pair<int, int>> pairs = {{L.alpha[0], S.alpha}, {L.beta[0], S.beta},
+                                                  {L.gamma[0], S.gamma}, {L.sigma[0], S.sigma},
+                                                  {L.offset, S.offset},  {L.anchor0, S.anchor0}};
+  auto measured = [&](int j) { return std::isfinite(single_sandwich(j, j)); };
+  EXPECT_TRUE(measured(S.alpha) && measured(S.offset));
+  for (const auto& [ja, sa] : pairs)
+    for (const auto& [jb, sb] : pairs) {
+      if (!measured(sa) || !measured(sb)) continue;  // on an edge in both: no error
+      EXPECT_NEAR(joint_sandwich(ja, jb), single_sandwich(sa, sb),
+                  1e-6 * std::sqrt(single_sandwich(sa, sa) * single_sandwich(sb, sb)))
+          << L.names[static_cast<std::size_t>(ja)] << ", " << L.names[static_cast<std::size_t>(jb)];
+    }
+  // Not the inverse Hessian: the check can fail.
+  EXPECT_GT(
+      std::abs(joint_sandwich(L.alpha[0], L.alpha[0]) / joint_cov(L.alpha[0], L.alpha[0]) - 1.0),
+      1e-3);
+}
+
 TEST(JointHierarchical, UnitBlendRatiosAreGreyBlends) {
   JointCase c = joint_case(3);
   for (std::size_t r = 1; r < 3; ++r) c.theta[c.layout.blend_ratio[r]] = 1.0;

@@ -162,6 +162,12 @@ TEST(StudySetup, NamesOutsideTheirTablesAreRefusedNamingTheOption) {
   apply_study_choices(c, study);
   EXPECT_EQ(study.fit.hierarchical.scatter_correction, ScatterCorrection::kNone);
   c = {};
+  c.covariance = "bootstrap";
+  EXPECT_EQ(refusal(c), "--covariance [config_value] 'bootstrap' is not one of: hessian, sandwich");
+  c.covariance = "sandwich";
+  apply_study_choices(c, study);
+  EXPECT_EQ(study.fit.hierarchical.covariance, CovarianceEstimate::kSandwich);
+  c = {};
   c.space = "sky";
   EXPECT_EQ(refusal(c).rfind("--space [config_value] 'sky' is not one of: ", 0), 0U);
 }

@@ -133,11 +133,25 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
   if (!sol.usable)
     jr.warnings.push_back("the joint solver did not reach a usable solution: " + sol.message);
   std::shared_ptr<const Eigen::MatrixXd> metric;
-  out.covariance_ok = joint_hierarchical_covariance(jr.data, js, L, sol.theta, out.covariance,
-                                                    jr.undetermined, &metric);
+  const bool want_sandwich = js.hierarchical.covariance == CovarianceEstimate::kSandwich;
+  Eigen::MatrixXd sandwich;
+  out.covariance_ok =
+      joint_hierarchical_covariance(jr.data, js, L, sol.theta, out.covariance, jr.undetermined,
+                                    &metric, want_sandwich ? &sandwich : nullptr);
   if (out.covariance_ok && js.hierarchical.scatter_correction == ScatterCorrection::kRestricted) {
     out.theta = joint_hierarchical_restricted(jr.data, js, L, sol.theta, out.covariance);
     jr.restricted_shift = out.theta - sol.theta;
+  }
+  // After the restricted step, whose metric is the inverse Hessian.
+  if (want_sandwich && out.covariance_ok) {
+    if (sandwich.size() > 0) {
+      out.covariance = sandwich;
+      jr.covariance_method = "sandwich";
+    } else {
+      jr.warnings.push_back(
+          "the joint fit's sandwich covariance could not be formed: the errors are the inverse "
+          "Hessian's");
+    }
   }
   if (!out.covariance_ok)
     jr.warnings.push_back("the joint fit's Hessian is not positive definite: no covariance");

@@ -298,6 +298,8 @@ FitOptions fit_options_from_file(const std::string& path) {
                                               o.hierarchical.outlier_parallax);
   o.hierarchical.scatter_correction = choice_or(*f, "scatter_correction", kScatterCorrectionNames,
                                                 o.hierarchical.scatter_correction);
+  o.hierarchical.covariance =
+      choice_or(*f, "covariance", kCovarianceEstimateNames, o.hierarchical.covariance);
   o.outlier_fraction = param_from(*f, "outlier_fraction", o.outlier_fraction);
   o.hierarchical.blends =
       choice_or(*f, "blend_component", kBlendComponentNames, o.hierarchical.blends);

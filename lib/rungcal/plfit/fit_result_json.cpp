@@ -141,6 +141,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
                                     {"outlier_parallax_factor", param_json(o.outlier_factor)},
                                     {"outlier_parallax_law", std::string(kOutlierParallaxLawNames.name(o.hierarchical.outlier_parallax))},
                                     {"scatter_correction", std::string(kScatterCorrectionNames.name(o.hierarchical.scatter_correction))},
+                                    {"covariance", std::string(kCovarianceEstimateNames.name(o.hierarchical.covariance))},
                                     {"blend_component", std::string(kBlendComponentNames.name(o.hierarchical.blends))},
                                     {"blend_min_mag", o.hierarchical.blend_min_mag},
                                     {"blend_fraction", param_json(o.blend_fraction)},
@@ -251,6 +252,7 @@ nlohmann::json FitResult::to_json(const FitOptions& o) const {
     const JointSolution& js = joint->solution;
     json j;
     j["method"] = joint->method;
+    j[fit_key::kCovarianceMethod] = joint->covariance_method;
     j[fit_key::kRelations] = joint->relations;
     j["shared_slope"] = o.joint_shared_slope;
     j["scatter_correlation"] = joint->layout.correlation >= 0 ? js.theta[joint->layout.correlation]

@@ -182,15 +182,29 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
     if (hierarchical) {
       // The Hessian also gives the bootstrap's metric: each resample's optimum is near the
       // full sample's, and so is its curvature, which BFGS then need not learn.
-      rr.covariance_ok =
-          hierarchical_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance,
-                                  rr.undetermined, &rr.settings.preconditioner);
+      const bool want_sandwich =
+          rr.settings.hierarchical.covariance == CovarianceEstimate::kSandwich;
+      Eigen::MatrixXd sandwich;
+      rr.covariance_ok = hierarchical_covariance(
+          data, rr.settings, rr.layout, rr.solution.theta, rr.covariance, rr.undetermined,
+          &rr.settings.preconditioner, want_sandwich ? &sandwich : nullptr);
       if (rr.covariance_ok &&
           rr.settings.hierarchical.scatter_correction == ScatterCorrection::kRestricted) {
         const Eigen::VectorXd moved =
             hierarchical_restricted(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);
         rr.restricted_shift = moved - rr.solution.theta;
         rr.solution.theta = moved;
+      }
+      // After the restricted step, whose metric is the inverse Hessian.
+      if (want_sandwich && rr.covariance_ok) {
+        if (sandwich.size() > 0) {
+          rr.covariance = sandwich;
+          rr.covariance_method = "sandwich";
+        } else {
+          rr.warnings.push_back(
+              "the sandwich covariance could not be formed: the errors are the inverse "
+              "Hessian's");
+        }
       }
     } else {
       rr.covariance_ok =

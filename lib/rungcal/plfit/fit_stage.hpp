@@ -246,7 +246,8 @@ struct JointResult {
   int n_free = 0;             // parameters the joint fit estimated
   Eigen::MatrixXd bootstrap;  // resamples x parameters (NaN rows: failed resamples)
   int bootstrap_failed = 0;
-  Eigen::VectorXd restricted_shift;  // as RelationResult's
+  Eigen::VectorXd restricted_shift;           // as RelationResult's
+  std::string covariance_method = "hessian";  // as RelationResult's
   Eigen::VectorXd likelihood_optimum() const {
     return less_restricted_shift(solution.theta, restricted_shift);
   }

@@ -46,7 +46,7 @@ struct Gradient {
   std::vector<double> anchor, bins;
 };
 
-class Evaluator final : public Objective {
+class Evaluator final : public StarSumObjective {
  public:
   Evaluator(const FitData& d, const FitSettings& s, const ParameterLayout& L)
       : d_(d),
@@ -107,10 +107,12 @@ class Evaluator final : public Objective {
     g.bins.assign(H, 0.0);
     double log_l = 0;
     Eigen::Index out_row = 0;
-    for (int kind = 0; kind < 3; ++kind) {
+    for (int kind = 0; kind < (stars_ ? 3 : 0); ++kind) {
       const FitData::Common& c = kind == 0 ? d_.parallax : (kind == 1 ? d_.known : d_.anchor);
       for (Eigen::Index i = 0; i < c.size(); ++i, ++out_row) {
         const double w = c.weight.size() ? c.weight[i] : 1.0;
+        std::optional<Gradient> before;
+        if (scores_) before = g;
         // [Fe/H]: its latent true value marginalised (Kelly 2007).
         double zbar = c.feh[i], wz = 0, dz_mean = 0, dz_tau2 = 0, dwz_tau2 = 0;
         if (feh_errors) {
@@ -217,12 +219,35 @@ class Evaluator final : public Objective {
           if (own)
             d_mu += w * own->d_mu(q, q_out, q_blend), g.offset += w * own->d_off(q, q_out, q_blend);
         }
+        if (before)
+          scores_->row(out_row) = internal_score(
+              t, natural_gradient(g, t, width) - natural_gradient(*before, t, width));
       }
     }
     if (!d_.group_plx.empty())
       log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset, g.anchor.data(),
                                     g.offset);
     double value = -log_l;
+    Eigen::VectorXd gext = -natural_gradient(g, t, width);
+    value += hyperprior_terms(t, L_.distance_bin0, L_.distance_bins, h.histogram_walk_sigma,
+                              priors_, s_.params, gext);
+    if (grad) internal_gradient(scales_, t, gext, *grad);
+    return value;
+  }
+
+  // Stars in parallax, known, anchor order.
+  void collect_scores(Eigen::MatrixXd* scores) override { scores_ = scores; }
+  // What is left: the priors, the histogram's hyperprior and the groups' parallaxes.
+  void drop_stars() override { stars_ = false; }
+
+ private:
+  // d ln L / d (reported parameters) from the accumulators; linear in g, so the difference
+  // of two is the gradient of the stars between them.
+  Eigen::VectorXd natural_gradient(const Gradient& g, const Eigen::VectorXd& t,
+                                   double width) const {
+    const double sigma = t[L_.sigma];
+    const bool feh_errors = L_.feh_mean >= 0;
+    const int n_anchors = (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;
     Eigen::VectorXd gext = Eigen::VectorXd::Zero(L_.size);
     gext[L_.alpha] = g.alpha, gext[L_.beta] = g.beta, gext[L_.offset] = g.offset;
     if (L_.beta_long >= 0) gext[L_.beta_long] = g.beta_long;
@@ -244,15 +269,16 @@ class Evaluator final : public Objective {
       gext[L_.feh_mean] = g.feh_mean;
       gext[L_.feh_spread] = g.feh_var * 2.0 * t[L_.feh_spread];
     }
-    for (std::size_t j = 0; j < H; ++j) gext[L_.distance_bin0 + static_cast<int>(j)] = g.bins[j];
-    gext = -gext;
-    value += hyperprior_terms(t, L_.distance_bin0, L_.distance_bins, h.histogram_walk_sigma,
-                              priors_, s_.params, gext);
-    if (grad) internal_gradient(scales_, t, gext, *grad);
-    return value;
+    for (std::size_t j = 0; j < g.bins.size(); ++j)
+      gext[L_.distance_bin0 + static_cast<int>(j)] = g.bins[j];
+    return gext;
+  }
+  Eigen::VectorXd internal_score(const Eigen::VectorXd& t, const Eigen::VectorXd& g) const {
+    Eigen::VectorXd out;
+    internal_gradient(scales_, t, g, out);
+    return out;
   }
 
- private:
   const FitData& d_;
   const FitSettings& s_;
   const ParameterLayout& L_;
@@ -260,6 +286,8 @@ class Evaluator final : public Objective {
   StarIntegrals k_;
   std::vector<PriorRow> priors_;
   bool mixture_ = true, blends_ = false;  // outlier and blend components present
+  Eigen::MatrixXd* scores_ = nullptr;     // collect_scores
+  bool stars_ = true;                     // drop_stars
 };
 
 // The free parameters as the solver's vector: x_free = base + P y with P the preconditioner
@@ -284,7 +312,8 @@ FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings,
 bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
                              const ParameterLayout& layout, const Eigen::VectorXd& theta,
                              Eigen::MatrixXd& covariance, std::vector<std::string>& undetermined,
-                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner) {
+                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
+                             Eigen::MatrixXd* sandwich) {
   covariance = Eigen::MatrixXd::Zero(layout.size, layout.size);
   const std::vector<int> all_free = free_parameters(settings.params);
   std::vector<int> measured;
@@ -306,9 +335,9 @@ bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
       measured.push_back(j);
     }
   }
-  Evaluator e(data, settings, layout);
-  return covariance_from_hessian(e, scales_of(layout), measured, all_free, theta, covariance,
-                                 preconditioner);
+  Evaluator e(data, settings, layout), rest(data, settings, layout);
+  return hessian_and_sandwich(e, rest, data.stars(), scales_of(layout), measured, all_free, theta,
+                              covariance, preconditioner, sandwich);
 }
 
 Eigen::VectorXd hierarchical_restricted(const FitData& data, const FitSettings& settings,

@@ -53,11 +53,14 @@ FitSolution solve_hierarchical(const FitData& data, const FitSettings& settings,
 // fraction at zero) cannot be given an error: they are held at their value, their rows are
 // NaN, and `undetermined` names them. Returns false when the Hessian is not positive definite.
 // preconditioner: when given, set to the bootstrap's metric from the same Hessian
-// (FitSettings::preconditioner; unit steps for the parameters on an edge).
+// (FitSettings::preconditioner; unit steps for the parameters on an edge). sandwich: when
+// given, set to the sandwich covariance over the same parameters (likelihood_solver.hpp,
+// sandwich_from_hessian; the stars are the units), or emptied when it cannot be formed.
 bool hierarchical_covariance(const FitData& data, const FitSettings& settings,
                              const ParameterLayout& layout, const Eigen::VectorXd& theta,
                              Eigen::MatrixXd& covariance, std::vector<std::string>& undetermined,
-                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr);
+                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr,
+                             Eigen::MatrixXd* sandwich = nullptr);
 
 // theta with sigma_int by restricted maximum likelihood (ScatterCorrection::kRestricted,
 // likelihood_solver.hpp: restricted_step): the location parameters are alpha, beta,

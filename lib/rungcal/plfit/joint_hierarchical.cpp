@@ -75,7 +75,7 @@ Reduced reduce(const SmallVector& r, const SmallMatrix& S) {
   return o;
 }
 
-class JointEvaluator final : public Objective {
+class JointEvaluator final : public StarSumObjective {
  private:
   // The blend ratio parameter of entry e's relation (-1: the first relation, ratio 1).
   int ratio_index(int e) const {
@@ -162,10 +162,11 @@ class JointEvaluator final : public Objective {
     const double log_w_blend = (mixture_ ? log_1f : 0.0) + log_fb;
 
     Eigen::VectorXd g = Eigen::VectorXd::Zero(L_.size);  // d ln L / d external
-    double log_l = 0, g_outlier = 0, g_shift = 0, g_wide = 0, g_factor = 0, g_blend = 0,
-           g_blend_scale = 0;
-    double g_feh_var = 0;
-    for (int i = 0; i < d_.stars(); ++i) {
+    double log_l = 0;
+    Shared sh;  // the shared components' sums
+    for (int i = 0; i < (stars_ ? d_.stars() : 0); ++i) {
+      std::optional<std::pair<Eigen::VectorXd, Shared>> before;
+      if (scores_) before.emplace(g, sh);
       const int e0 = d_.first[static_cast<std::size_t>(i)],
                 K = d_.first[static_cast<std::size_t>(i) + 1] - e0;
       const JointStarKind kind = d_.kind[static_cast<std::size_t>(i)];
@@ -184,7 +185,7 @@ class JointEvaluator final : public Objective {
         dwz_tau2 = s2 * s2 / (den * den);
         log_l += -0.5 * count * (dz * dz / den + kLog2Pi + std::log(den));
         g[L_.feh_mean] += count * dz / den;
-        g_feh_var += 0.5 * count * (dz * dz - den) / (den * den);
+        sh.feh_var += 0.5 * count * (dz * dz - den) / (den * den);
       }
       SmallVector r(K), gam(K), sig(K);
       SmallMatrix S(K, K);
@@ -281,18 +282,18 @@ class JointEvaluator final : public Objective {
       log_l += count * (li + red.colour);
       q *= count, q_out *= count, q_blend *= count;  // every gradient term below is per draw
       if (mixture_) {
-        g_outlier += q_out / f - (q + q_blend) / (1.0 - f);
+        sh.outlier += q_out / f - (q + q_blend) / (1.0 - f);
         if (kind != JointStarKind::kParallax || plx_shape.fitted)
-          g_shift -= q_out * outlier.d_m, g_wide += q_out * outlier.d_v;
+          sh.shift -= q_out * outlier.d_m, sh.wide += q_out * outlier.d_v;
         // Its parallax variance is F^2 sigma_pi^2.
         if (kind == JointStarKind::kParallax)
-          g_factor += q_out * outlier.d_var_plx * 2.0 * plx_factor * d_.var_plx[si];
+          sh.factor += q_out * outlier.d_var_plx * 2.0 * plx_factor * d_.var_plx[si];
         else if (own)
-          g_factor += own->d_factor(q_out, plx_factor, d_.var_plx[si]);
+          sh.factor += own->d_factor(q_out, plx_factor, d_.var_plx[si]);
       }
       if (blends_) {
-        g_blend += q_blend / fb - q / (1.0 - fb);
-        g_blend_scale += q_blend * blend.d_blend_scale;
+        sh.blend += q_blend / fb - q / (1.0 - fb);
+        sh.blend_scale += q_blend * blend.d_blend_scale;
       }
       auto mix = [&](double Component::*field) {
         return q * member.*field + q_out * outlier.*field + q_blend * blend.*field;
@@ -323,7 +324,7 @@ class JointEvaluator final : public Objective {
       if (feh_errors) {
         const double d_zbar = -gr.dot(gam), d_w = gam.dot(Gg);
         g[L_.feh_mean] += d_zbar * dz_mean;
-        g_feh_var += d_zbar * dz_tau2 + d_w * dwz_tau2;
+        sh.feh_var += d_zbar * dz_tau2 + d_w * dwz_tau2;
       }
       if (kind == JointStarKind::kParallax) {
         g[L_.offset] += mix(&Component::d_off);
@@ -347,25 +348,48 @@ class JointEvaluator final : public Objective {
           g[L_.anchor0 + d_.group[si]] += own->d_mu(q, q_out, q_blend),
               g[L_.offset] += own->d_off(q, q_out, q_blend);
       }
+      if (before) {
+        Eigen::VectorXd score =
+            finished(g, sh, t, width) - finished(before->first, before->second, t, width);
+        Eigen::VectorXd row;
+        internal_gradient(scales_, t, score, row);
+        scores_->row(i) = row;
+      }
     }
     if (!d_.group_plx.empty())
       log_l += group_parallax_log_l(d_.group_plx, t.data() + L_.anchor0, offset,
                                     g.data() + L_.anchor0, g[L_.offset]);
-    if (L_.outlier >= 0) g[L_.outlier] = g_outlier;
-    if (L_.outlier_shift >= 0) g[L_.outlier_shift] = g_shift;
-    if (L_.outlier_width >= 0) g[L_.outlier_width] = g_wide * 2.0 * width;
-    if (L_.outlier_factor >= 0) g[L_.outlier_factor] = g_factor;
-    if (L_.blend >= 0) g[L_.blend] = g_blend, g[L_.blend_scale] = g_blend_scale;
-    if (feh_errors) g[L_.feh_spread] = g_feh_var * 2.0 * t[L_.feh_spread];
     double value = -log_l;
-    g = -g;
+    g = -finished(g, sh, t, width);
     value += hyperprior_terms(t, L_.distance_bin0, L_.distance_bins, h.histogram_walk_sigma,
                               priors_, s_.params, g);
     if (grad) internal_gradient(scales_, t, g, *grad);
     return value;
   }
 
+  // A star with all its relations is one row.
+  void collect_scores(Eigen::MatrixXd* scores) override { scores_ = scores; }
+  // What is left: the priors, the histogram's hyperprior and the groups' parallaxes.
+  void drop_stars() override { stars_ = false; }
+
  private:
+  // The sums over stars of the parameters every relation shares (d ln L / d each).
+  struct Shared {
+    double outlier = 0, shift = 0, wide = 0, factor = 0, blend = 0, blend_scale = 0, feh_var = 0;
+  };
+  // d ln L / d (reported parameters): g with the shared sums in their slots. Linear in both,
+  // so the difference of two is the gradient of the stars between them.
+  Eigen::VectorXd finished(Eigen::VectorXd g, const Shared& sh, const Eigen::VectorXd& t,
+                           double width) const {
+    if (L_.outlier >= 0) g[L_.outlier] = sh.outlier;
+    if (L_.outlier_shift >= 0) g[L_.outlier_shift] = sh.shift;
+    if (L_.outlier_width >= 0) g[L_.outlier_width] = sh.wide * 2.0 * width;
+    if (L_.outlier_factor >= 0) g[L_.outlier_factor] = sh.factor;
+    if (L_.blend >= 0) g[L_.blend] = sh.blend, g[L_.blend_scale] = sh.blend_scale;
+    if (L_.feh_mean >= 0) g[L_.feh_spread] = sh.feh_var * 2.0 * t[L_.feh_spread];
+    return g;
+  }
+
   const JointData& d_;
   const FitSettings& s_;
   const JointLayout& L_;
@@ -373,7 +397,9 @@ class JointEvaluator final : public Objective {
   StarIntegrals k_;
   std::vector<PriorRow> priors_;
   bool mixture_ = true, blends_ = false;
-  bool coloured_ = false;  // blends brighten the relations by different amounts
+  bool coloured_ = false;              // blends brighten the relations by different amounts
+  Eigen::MatrixXd* scores_ = nullptr;  // collect_scores
+  bool stars_ = true;                  // drop_stars
 };
 
 }  // namespace
@@ -449,7 +475,8 @@ bool joint_hierarchical_covariance(const JointData& data, const FitSettings& set
                                    const JointLayout& layout, const Eigen::VectorXd& theta,
                                    Eigen::MatrixXd& covariance,
                                    std::vector<std::string>& undetermined,
-                                   std::shared_ptr<const Eigen::MatrixXd>* preconditioner) {
+                                   std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
+                                   Eigen::MatrixXd* sandwich) {
   covariance = Eigen::MatrixXd::Zero(layout.size, layout.size);
   const std::vector<int> all_free = free_parameters(settings.params);
   const bool no_outliers = layout.outlier >= 0 && theta[layout.outlier] < 1e-3;
@@ -474,9 +501,9 @@ bool joint_hierarchical_covariance(const JointData& data, const FitSettings& set
       measured.push_back(j);
     }
   }
-  JointEvaluator e(data, settings, layout);
-  return covariance_from_hessian(e, scales_of(layout), measured, all_free, theta, covariance,
-                                 preconditioner);
+  JointEvaluator e(data, settings, layout), rest(data, settings, layout);
+  return hessian_and_sandwich(e, rest, data.stars(), scales_of(layout), measured, all_free, theta,
+                              covariance, preconditioner, sandwich);
 }
 
 Eigen::VectorXd joint_hierarchical_restricted(const JointData& data, const FitSettings& settings,

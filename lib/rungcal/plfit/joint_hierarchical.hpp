@@ -55,12 +55,14 @@ FitSolution solve_joint_hierarchical(const JointData& data, const FitSettings& s
                                      const JointLayout& layout, const Eigen::VectorXd& start);
 
 // The inverse Hessian at theta, as hierarchical_covariance (parameters on an edge of their
-// domain are named in `undetermined` and get NaN rows).
-bool joint_hierarchical_covariance(
-    const JointData& data, const FitSettings& settings, const JointLayout& layout,
-    const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
-    std::vector<std::string>& undetermined,
-    std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr);
+// domain are named in `undetermined` and get NaN rows; sandwich as there, a star with all
+// its relations one unit).
+bool joint_hierarchical_covariance(const JointData& data, const FitSettings& settings,
+                                   const JointLayout& layout, const Eigen::VectorXd& theta,
+                                   Eigen::MatrixXd& covariance,
+                                   std::vector<std::string>& undetermined,
+                                   std::shared_ptr<const Eigen::MatrixXd>* preconditioner = nullptr,
+                                   Eigen::MatrixXd* sandwich = nullptr);
 
 // theta with the scatters and their correlation by restricted maximum likelihood
 // (hierarchical_restricted): the location parameters are every relation's alpha, beta and

@@ -101,6 +101,21 @@ std::shared_ptr<const Eigen::MatrixXd> metric_from_hessian(const Eigen::MatrixXd
   return P;
 }
 
+// covariance(i, j) for i, j in `measured` from C in the solver's coordinates, by the delta
+// method.
+void report_covariance(const Eigen::MatrixXd& C, const std::vector<Scale>& scales,
+                       const std::vector<int>& measured, const Eigen::VectorXd& theta,
+                       Eigen::MatrixXd& covariance) {
+  const auto F = static_cast<Eigen::Index>(measured.size());
+  for (Eigen::Index a = 0; a < F; ++a)
+    for (Eigen::Index b = 0; b < F; ++b) {
+      const int i = measured[static_cast<std::size_t>(a)],
+                j = measured[static_cast<std::size_t>(b)];
+      covariance(i, j) = slope_of(scales[static_cast<std::size_t>(i)], theta[i]) * C(a, b) *
+                         slope_of(scales[static_cast<std::size_t>(j)], theta[j]);
+    }
+}
+
 }  // namespace
 
 double to_internal(Scale s, double v) {
@@ -311,23 +326,68 @@ Eigen::VectorXd restricted_step(Objective& e, const std::vector<Scale>& scales,
 bool covariance_from_hessian(Objective& e, const std::vector<Scale>& scales,
                              const std::vector<int>& measured, const std::vector<int>& free,
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
-                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner) {
+                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
+                             Eigen::MatrixXd* hessian) {
   if (measured.empty()) return true;
   const Eigen::VectorXd x = internal_of(scales, theta);
   const auto F = static_cast<Eigen::Index>(measured.size());
   const Eigen::MatrixXd H = internal_hessian(e, x, measured);
   if (!H.allFinite()) return false;
+  if (hessian) *hessian = H;
   if (preconditioner) *preconditioner = metric_from_hessian(H, measured, free);
   Eigen::LLT<Eigen::MatrixXd> llt(H);
   if (llt.info() != Eigen::Success) return false;
-  const Eigen::MatrixXd C = llt.solve(Eigen::MatrixXd::Identity(F, F));
+  report_covariance(llt.solve(Eigen::MatrixXd::Identity(F, F)), scales, measured, theta,
+                    covariance);
+  return true;
+}
+
+bool sandwich_from_hessian(const Eigen::MatrixXd& hessian, const Eigen::MatrixXd& unit_scores,
+                           Objective& rest, const std::vector<Scale>& scales,
+                           const std::vector<int>& measured, const Eigen::VectorXd& theta,
+                           Eigen::MatrixXd& covariance) {
+  if (measured.empty()) return true;
+  const auto F = static_cast<Eigen::Index>(measured.size());
+  const Eigen::Index n = unit_scores.rows();
+  if (n <= F) return false;  // no spread to measure
+  Eigen::MatrixXd S(n, F);
   for (Eigen::Index a = 0; a < F; ++a)
-    for (Eigen::Index b = 0; b < F; ++b) {
-      const int i = measured[static_cast<std::size_t>(a)],
-                j = measured[static_cast<std::size_t>(b)];
-      covariance(i, j) = slope_of(scales[static_cast<std::size_t>(i)], theta[i]) * C(a, b) *
-                         slope_of(scales[static_cast<std::size_t>(j)], theta[j]);
-    }
+    S.col(a) = unit_scores.col(measured[static_cast<std::size_t>(a)]);
+  const Eigen::MatrixXd rest_hessian = internal_hessian(rest, internal_of(scales, theta), measured);
+  Eigen::LLT<Eigen::MatrixXd> llt(hessian);
+  if (llt.info() != Eigen::Success || !rest_hessian.allFinite()) return false;
+  const Eigen::MatrixXd bread = llt.solve(Eigen::MatrixXd::Identity(F, F));
+  // The parameters the stars determine: those the priors hold count for less.
+  const double p = std::clamp(static_cast<double>(F) - (bread * rest_hessian).trace(), 0.0,
+                              static_cast<double>(F));
+  const Eigen::MatrixXd meat =
+      static_cast<double>(n) / (static_cast<double>(n) - p) * (S.transpose() * S) + rest_hessian;
+  if (!meat.allFinite()) return false;
+  Eigen::MatrixXd C = bread * meat * bread;
+  report_covariance(0.5 * (C + C.transpose()), scales, measured, theta, covariance);
+  return true;
+}
+
+bool hessian_and_sandwich(StarSumObjective& f, StarSumObjective& rest, Eigen::Index stars,
+                          const std::vector<Scale>& scales, const std::vector<int>& measured,
+                          const std::vector<int>& free, const Eigen::VectorXd& theta,
+                          Eigen::MatrixXd& covariance,
+                          std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
+                          Eigen::MatrixXd* sandwich) {
+  Eigen::MatrixXd hessian;
+  if (!covariance_from_hessian(f, scales, measured, free, theta, covariance, preconditioner,
+                               &hessian))
+    return false;
+  if (sandwich) {
+    *sandwich = covariance;
+    Eigen::MatrixXd scores(stars, theta.size());
+    f.collect_scores(&scores);
+    f.evaluate(internal_of(scales, theta), nullptr);
+    f.collect_scores(nullptr);
+    rest.drop_stars();
+    if (!sandwich_from_hessian(hessian, scores, rest, scales, measured, theta, *sandwich))
+      sandwich->resize(0, 0);
+  }
   return true;
 }
 

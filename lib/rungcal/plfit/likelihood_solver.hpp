@@ -57,6 +57,17 @@ class Objective {
   virtual double evaluate(const Eigen::VectorXd& x, Eigen::VectorXd* gradient) = 0;
 };
 
+// A -ln L that sums over stars, plus terms that are not one star's (priors, hyperpriors,
+// cluster parallaxes): what the sandwich needs of it.
+class StarSumObjective : public Objective {
+ public:
+  // Each star's d ln L_i / d x (solver's coordinates) as a row, in the data's star order, from
+  // the next evaluations on; nullptr: none.
+  virtual void collect_scores(Eigen::MatrixXd* scores) = 0;
+  // From now on only the terms that are not a sum over stars.
+  virtual void drop_stars() = 0;
+};
+
 // The parameters whose mode is not fixed.
 std::vector<int> free_parameters(const std::vector<ParamSpec>& params);
 
@@ -68,11 +79,44 @@ FitSolution minimise(Objective& f, const std::vector<Scale>& scales, const FitSe
 // The inverse Hessian of -ln L at theta over `measured` (free parameters not on an edge of
 // their domain), carried to the reported parameters by the delta method; the other rows are
 // zero. preconditioner: when given, the bootstrap's metric over every free parameter (see
-// FitSettings::preconditioner). Returns false when the Hessian is not positive definite.
+// FitSettings::preconditioner). hessian: when given, set to the Hessian over `measured` in
+// the solver's coordinates (what sandwich_from_hessian takes). Returns false when the
+// Hessian is not positive definite.
 bool covariance_from_hessian(Objective& f, const std::vector<Scale>& scales,
                              const std::vector<int>& measured, const std::vector<int>& free,
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
-                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner);
+                             std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
+                             Eigen::MatrixXd* hessian = nullptr);
+
+// The sandwich covariance of a likelihood whose model may be wrong (Huber 1967, Proc. Fifth
+// Berkeley Symp. 1, 221; White 1982, Econometrica 50, 1): the units (stars) are independent
+// given the parameters, s_u each one's score d ln L_u / d x, and
+//   Cov = H^-1 (n / (n - p) sum_u s_u s_u^T + H_rest) H^-1
+// over `measured` (n units), carried to the reported parameters as covariance_from_hessian
+// does. H is the Hessian of the whole -ln L; H_rest the Hessian of its terms that are not a
+// sum over units (priors, hyperpriors, cluster parallaxes): their information is the model's,
+// not an estimate from one draw. n / (n - p) is MacKinnon & White's (1985, J. Econometrics
+// 29, 305) HC1 small-sample factor, p the parameters the units determine, tr(H^-1 H_units) =
+// |measured| - tr(H^-1 H_rest): the distance histogram's twenty-odd log-weights, held
+// together by their random-walk hyperprior, count for far fewer. When the model is right
+// the bracket's expectation is H and the sandwich is the inverse Hessian; when it is not
+// (contaminants drawn from another law than the fit's), the sandwich follows the estimates'
+// spread and the inverse Hessian does not. unit_scores: one row per unit, full length, in
+// the solver's coordinates. Returns false when H is not positive definite.
+bool sandwich_from_hessian(const Eigen::MatrixXd& hessian, const Eigen::MatrixXd& unit_scores,
+                           Objective& rest, const std::vector<Scale>& scales,
+                           const std::vector<int>& measured, const Eigen::VectorXd& theta,
+                           Eigen::MatrixXd& covariance);
+
+// covariance_from_hessian of f; when `sandwich` is given, also the sandwich over f's `stars`
+// (sandwich_from_hessian; `rest` is another f, whose stars it drops), or emptied when it
+// cannot be formed. Returns covariance_from_hessian's verdict.
+bool hessian_and_sandwich(StarSumObjective& f, StarSumObjective& rest, Eigen::Index stars,
+                          const std::vector<Scale>& scales, const std::vector<int>& measured,
+                          const std::vector<int>& free, const Eigen::VectorXd& theta,
+                          Eigen::MatrixXd& covariance,
+                          std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
+                          Eigen::MatrixXd* sandwich);
 
 // Restricted maximum likelihood's scatters (ScatterCorrection::kRestricted, model.hpp): one
 // Newton step on -ln L + 1/2 ln det H_LL from the maximum-likelihood optimum theta, where

@@ -229,6 +229,19 @@ inline constexpr EnumTable<ScatterCorrection, 2> kScatterCorrectionNames{{{
     {ScatterCorrection::kRestricted, "restricted"},
 }}};
 
+// The errors the hierarchical fit reports.
+enum class CovarianceEstimate {
+  // The inverse Hessian of -ln L: the estimates' covariance when the model is the data's law.
+  kHessian,
+  // The sandwich over the stars (likelihood_solver.hpp, sandwich_from_hessian): also when the
+  // model is not, e.g. contaminants drawn from another law than the fit's components.
+  kSandwich,
+};
+inline constexpr EnumTable<CovarianceEstimate, 2> kCovarianceEstimateNames{{{
+    {CovarianceEstimate::kHessian, "hessian"},
+    {CovarianceEstimate::kSandwich, "sandwich"},
+}}};
+
 // The hierarchical likelihood's fixed choices (FitSpace::kHierarchical).
 struct HierarchicalSettings {
   DistancePriorFamily prior = DistancePriorFamily::kSmoothHistogram;
@@ -246,6 +259,9 @@ struct HierarchicalSettings {
   OutlierParallaxLaw outlier_parallax = OutlierParallaxLaw::kQuartic;
   // The scatters' estimate (ScatterCorrection).
   ScatterCorrection scatter_correction = ScatterCorrection::kRestricted;
+  // The reported covariance (CovarianceEstimate); the restricted step and the bootstrap's
+  // metric always use the inverse Hessian.
+  CovarianceEstimate covariance = CovarianceEstimate::kHessian;
   // The blend component (BlendComponent); its fraction and scale are parameters
   // (blend_fraction, blend_scale_mag).
   BlendComponent blends = BlendComponent::kRising;

@@ -93,6 +93,9 @@ void add_study_options(CLI::App& app, StudyCommandLine& line) {
   app.add_option("--scatter-correction", line.choice.scatter_correction,
                  "the scatters' estimate: restricted (maximum likelihood with the location "
                  "parameters integrated out) or none (maximum likelihood; default: the fit's)");
+  app.add_option("--covariance", line.choice.covariance,
+                 "the reported errors: hessian (the inverse Hessian) or sandwich (over the "
+                 "stars; default: the fit's)");
   app.add_option("--outlier-parallax-factor", line.study.fit.outlier_factor.value,
                  "outlier component's parallax scale over the error (its start; the value held "
                  "with --hold-outlier-factor)")

@@ -121,6 +121,9 @@ void apply_study_choices(const StudyChoices& c, StudyOptions& study) {
   if (!c.scatter_correction.empty())
     fit.hierarchical.scatter_correction =
         parse_choice(kScatterCorrectionNames, c.scatter_correction, "--scatter-correction");
+  if (!c.covariance.empty())
+    fit.hierarchical.covariance =
+        parse_choice(kCovarianceEstimateNames, c.covariance, "--covariance");
   if (fit.space != FitSpace::kHierarchical) fit.loss = LossKind::kHuber;  // its documented default
   fit.input_path = "(mock)";
   if (c.free_outlier_shape) fit.outlier_shift.mode = fit.outlier_width.mode = ParamMode::kFree;

@@ -23,6 +23,7 @@ struct StudyChoices {
   std::string blend_component;                      // kBlendComponentNames ("": the fit's default)
   std::string outlier_parallax_law;        // kOutlierParallaxLawNames ("": the fit's default)
   std::string scatter_correction;          // kScatterCorrectionNames ("": the fit's default)
+  std::string covariance;                  // kCovarianceEstimateNames ("": the fit's default)
   bool metallicity = true;                 // fit the [Fe/H] term (the truth has gamma = -0.2)
   int joint = 0;                           // 0: X alone; 2-4: X and the first joint - 1 of V, I, K
   double red_companions = 1.0;             // joint: companion flux ratio x this in K, / this in V
