@@ -62,7 +62,8 @@ class Objective {
 class StarSumObjective : public Objective {
  public:
   // Each star's d ln L_i / d x (solver's coordinates) as a row, in the data's star order, from
-  // the next evaluations on; nullptr: none.
+  // the next evaluations on; nullptr: none. A star a bootstrap drew w times gives w times its
+  // score, which the sandwich (full samples only, every count 1) does not meet.
   virtual void collect_scores(Eigen::MatrixXd* scores) = 0;
   // From now on only the terms that are not a sum over stars.
   virtual void drop_stars() = 0;
