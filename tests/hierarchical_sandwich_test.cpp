@@ -163,5 +163,19 @@ TEST(HierarchicalSandwich, TheFitStageReportsItWhenAskedAndItAgreesWhereTheModel
   }
 }
 
+// Outside the hierarchical space without a loss there is no sandwich to give: the fit says so.
+TEST(HierarchicalSandwich, AskedForInAResidualSpaceWithoutALossItWarns) {
+  const test::MockSample m = test::mock_parallax_sample(43, 150, 0.0);
+  FitOptions o = test::mock_fit_options();
+  o.space = FitSpace::kParallax;
+  o.hierarchical.covariance = CovarianceEstimate::kSandwich;
+  const FitResult r = run_fit(o, test::catalog_from_mock(m));
+  EXPECT_EQ(r.relations[0].covariance_method, "hessian");
+  bool warned = false;
+  for (const auto& w : r.relations[0].warnings)
+    warned = warned || w.find("applies to the hierarchical fit") != std::string::npos;
+  EXPECT_TRUE(warned);
+}
+
 }  // namespace
 }  // namespace rungcal

@@ -218,6 +218,12 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
         rr.covariance = sandwich;
         rr.covariance_method = "sandwich";
       }
+      // Asked for, a sandwich without a loss here would be the plain fit's, which is not built:
+      // say so rather than let "hessian" in the result pass unread.
+      if (o.hierarchical.covariance == CovarianceEstimate::kSandwich && o.loss == LossKind::kNone)
+        rr.warnings.push_back(
+            "covariance = \"sandwich\" applies to the hierarchical fit (and every robust loss "
+            "has its own): these errors are the inverse Hessian's");
       // A redescending loss gives a star beyond its scale no weight at all, so the Gaussian
       // likelihood of the rest drives sigma_int down: it is not an estimate of the scatter.
       if (o.loss == LossKind::kTukey && o.scatter.mode != ParamMode::kFixed)
