@@ -142,17 +142,8 @@ JointResult run_joint_hierarchical(const FitOptions& o, const std::vector<Relati
     out.theta = joint_hierarchical_restricted(jr.data, js, L, sol.theta, out.covariance);
     jr.restricted_shift = out.theta - sol.theta;
   }
-  // After the restricted step, whose metric is the inverse Hessian.
-  if (want_sandwich && out.covariance_ok) {
-    if (sandwich.size() > 0) {
-      out.covariance = sandwich;
-      jr.covariance_method = "sandwich";
-    } else {
-      jr.warnings.push_back(
-          "the joint fit's sandwich covariance could not be formed: the errors are the inverse "
-          "Hessian's");
-    }
-  }
+  adopt_sandwich(want_sandwich && out.covariance_ok, sandwich, out.covariance, jr.covariance_method,
+                 jr.warnings);
   if (!out.covariance_ok)
     jr.warnings.push_back("the joint fit's Hessian is not positive definite: no covariance");
   auto estimate = [&](const std::string& n) {

@@ -64,6 +64,11 @@ std::vector<std::string> undetermined_warnings(
 // moved alpha by +-0.2 errors, 3.75 widths out by -0.08). Empty without a blend component,
 // without blends (fraction under 1e-3) or with the start beyond 2.5 widths.
 std::string blend_start_warning(const RelationResult& rr);
+// After the restricted step, whose metric is the inverse Hessian: the sandwich, when it was
+// asked for (`wanted`) and formed, becomes the reported covariance and `method` says so; asked
+// for but not formed (empty), a warning says the errors are the inverse Hessian's.
+void adopt_sandwich(bool wanted, const Eigen::MatrixXd& sandwich, Eigen::MatrixXd& covariance,
+                    std::string& method, std::vector<std::string>& warnings);
 // A parameter's index by name (std::out_of_range when there is none).
 int index_of(const ParameterLayout& L, const std::string& name);
 

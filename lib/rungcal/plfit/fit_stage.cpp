@@ -73,6 +73,19 @@ double RelationResult::bootstrap_error(const std::string& name) const {
   return bootstrap_spread(bootstrap_column(*this, index_of(layout, name)));
 }
 
+void fit_parts::adopt_sandwich(bool wanted, const Eigen::MatrixXd& sandwich,
+                               Eigen::MatrixXd& covariance, std::string& method,
+                               std::vector<std::string>& warnings) {
+  if (!wanted) return;
+  if (sandwich.size() == 0) {
+    warnings.emplace_back(
+        "the sandwich covariance could not be formed: the errors are the inverse Hessian's");
+    return;
+  }
+  covariance = sandwich;
+  method = "sandwich";
+}
+
 FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* coefficients) {
   throw_if_invalid(o.check(), o.config_file);
   ParallaxTools tools;
@@ -195,17 +208,8 @@ FitResult run_fit(const FitOptions& o, const StarTable& cat, const StarTable* co
         rr.restricted_shift = moved - rr.solution.theta;
         rr.solution.theta = moved;
       }
-      // After the restricted step, whose metric is the inverse Hessian.
-      if (want_sandwich && rr.covariance_ok) {
-        if (sandwich.size() > 0) {
-          rr.covariance = sandwich;
-          rr.covariance_method = "sandwich";
-        } else {
-          rr.warnings.push_back(
-              "the sandwich covariance could not be formed: the errors are the inverse "
-              "Hessian's");
-        }
-      }
+      adopt_sandwich(want_sandwich && rr.covariance_ok, sandwich, rr.covariance,
+                     rr.covariance_method, rr.warnings);
     } else {
       rr.covariance_ok =
           fit_covariance(data, rr.settings, rr.layout, rr.solution.theta, rr.covariance);

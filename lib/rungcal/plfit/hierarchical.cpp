@@ -107,12 +107,12 @@ class Evaluator final : public StarSumObjective {
     g.bins.assign(H, 0.0);
     double log_l = 0;
     Eigen::Index out_row = 0;
+    // The gradient of the stars so far (reported parameters), when scores are collected.
+    Eigen::VectorXd so_far = Eigen::VectorXd::Zero(L_.size);
     for (int kind = 0; kind < (stars_ ? 3 : 0); ++kind) {
       const FitData::Common& c = kind == 0 ? d_.parallax : (kind == 1 ? d_.known : d_.anchor);
       for (Eigen::Index i = 0; i < c.size(); ++i, ++out_row) {
         const double w = c.weight.size() ? c.weight[i] : 1.0;
-        std::optional<Gradient> before;
-        if (scores_) before = g;
         // [Fe/H]: its latent true value marginalised (Kelly 2007).
         double zbar = c.feh[i], wz = 0, dz_mean = 0, dz_tau2 = 0, dwz_tau2 = 0;
         if (feh_errors) {
@@ -219,9 +219,11 @@ class Evaluator final : public StarSumObjective {
           if (own)
             d_mu += w * own->d_mu(q, q_out, q_blend), g.offset += w * own->d_off(q, q_out, q_blend);
         }
-        if (before)
-          scores_->row(out_row) = internal_score(
-              t, natural_gradient(g, t, width) - natural_gradient(*before, t, width));
+        if (scores_) {
+          Eigen::VectorXd now = natural_gradient(g, t, width);
+          scores_->row(out_row) = internal_score(t, now - so_far);
+          so_far = std::move(now);
+        }
       }
     }
     if (!d_.group_plx.empty())
@@ -242,19 +244,18 @@ class Evaluator final : public StarSumObjective {
 
  private:
   // d ln L / d (reported parameters) from the accumulators; linear in g, so the difference
-  // of two is the gradient of the stars between them.
+  // of two is the gradient of the stars between them, and zero accumulators give zero.
   Eigen::VectorXd natural_gradient(const Gradient& g, const Eigen::VectorXd& t,
                                    double width) const {
     const double sigma = t[L_.sigma];
     const bool feh_errors = L_.feh_mean >= 0;
-    const int n_anchors = (L_.outlier >= 0 ? L_.outlier : L_.size) - L_.anchor0;
     Eigen::VectorXd gext = Eigen::VectorXd::Zero(L_.size);
     gext[L_.alpha] = g.alpha, gext[L_.beta] = g.beta, gext[L_.offset] = g.offset;
     if (L_.beta_long >= 0) gext[L_.beta_long] = g.beta_long;
     if (L_.gamma >= 0) gext[L_.gamma] = g.gamma;
     gext[L_.sigma] = g.var_int * 2.0 * sigma;  // d/dsigma
-    for (int a = 0; a < n_anchors; ++a)
-      gext[L_.anchor0 + a] = g.anchor[static_cast<std::size_t>(a)];
+    for (std::size_t a = 0; a < g.anchor.size(); ++a)
+      gext[L_.anchor0 + static_cast<int>(a)] = g.anchor[a];
     if (L_.outlier >= 0) gext[L_.outlier] = g.outlier;
     if (L_.outlier_shift >= 0) gext[L_.outlier_shift] = g.outlier_shift;
     if (L_.outlier_width >= 0) gext[L_.outlier_width] = g.outlier_wide * 2.0 * width;

@@ -164,9 +164,9 @@ class JointEvaluator final : public StarSumObjective {
     Eigen::VectorXd g = Eigen::VectorXd::Zero(L_.size);  // d ln L / d external
     double log_l = 0;
     Shared sh;  // the shared components' sums
+    // The gradient of the stars so far (reported parameters), when scores are collected.
+    Eigen::VectorXd so_far = Eigen::VectorXd::Zero(L_.size);
     for (int i = 0; i < (stars_ ? d_.stars() : 0); ++i) {
-      std::optional<std::pair<Eigen::VectorXd, Shared>> before;
-      if (scores_) before.emplace(g, sh);
       const int e0 = d_.first[static_cast<std::size_t>(i)],
                 K = d_.first[static_cast<std::size_t>(i) + 1] - e0;
       const JointStarKind kind = d_.kind[static_cast<std::size_t>(i)];
@@ -348,12 +348,11 @@ class JointEvaluator final : public StarSumObjective {
           g[L_.anchor0 + d_.group[si]] += own->d_mu(q, q_out, q_blend),
               g[L_.offset] += own->d_off(q, q_out, q_blend);
       }
-      if (before) {
-        Eigen::VectorXd score =
-            finished(g, sh, t, width) - finished(before->first, before->second, t, width);
-        Eigen::VectorXd row;
-        internal_gradient(scales_, t, score, row);
+      if (scores_) {
+        Eigen::VectorXd now = finished(g, sh, t, width), row;
+        internal_gradient(scales_, t, now - so_far, row);
         scores_->row(i) = row;
+        so_far = std::move(now);
       }
     }
     if (!d_.group_plx.empty())
@@ -378,7 +377,8 @@ class JointEvaluator final : public StarSumObjective {
     double outlier = 0, shift = 0, wide = 0, factor = 0, blend = 0, blend_scale = 0, feh_var = 0;
   };
   // d ln L / d (reported parameters): g with the shared sums in their slots. Linear in both,
-  // so the difference of two is the gradient of the stars between them.
+  // so the difference of two is the gradient of the stars between them, and zero sums give
+  // zero.
   Eigen::VectorXd finished(Eigen::VectorXd g, const Shared& sh, const Eigen::VectorXd& t,
                            double width) const {
     if (L_.outlier >= 0) g[L_.outlier] = sh.outlier;

@@ -327,22 +327,22 @@ bool covariance_from_hessian(Objective& e, const std::vector<Scale>& scales,
                              const std::vector<int>& measured, const std::vector<int>& free,
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
                              std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
-                             Eigen::MatrixXd* hessian) {
+                             Eigen::MatrixXd* inverse) {
   if (measured.empty()) return true;
   const Eigen::VectorXd x = internal_of(scales, theta);
   const auto F = static_cast<Eigen::Index>(measured.size());
   const Eigen::MatrixXd H = internal_hessian(e, x, measured);
   if (!H.allFinite()) return false;
-  if (hessian) *hessian = H;
   if (preconditioner) *preconditioner = metric_from_hessian(H, measured, free);
   Eigen::LLT<Eigen::MatrixXd> llt(H);
   if (llt.info() != Eigen::Success) return false;
-  report_covariance(llt.solve(Eigen::MatrixXd::Identity(F, F)), scales, measured, theta,
-                    covariance);
+  const Eigen::MatrixXd C = llt.solve(Eigen::MatrixXd::Identity(F, F));
+  report_covariance(C, scales, measured, theta, covariance);
+  if (inverse) *inverse = C;
   return true;
 }
 
-bool sandwich_from_hessian(const Eigen::MatrixXd& hessian, const Eigen::MatrixXd& unit_scores,
+bool sandwich_from_hessian(const Eigen::MatrixXd& inverse, const Eigen::MatrixXd& unit_scores,
                            Objective& rest, const std::vector<Scale>& scales,
                            const std::vector<int>& measured, const Eigen::VectorXd& theta,
                            Eigen::MatrixXd& covariance) {
@@ -354,16 +354,14 @@ bool sandwich_from_hessian(const Eigen::MatrixXd& hessian, const Eigen::MatrixXd
   for (Eigen::Index a = 0; a < F; ++a)
     S.col(a) = unit_scores.col(measured[static_cast<std::size_t>(a)]);
   const Eigen::MatrixXd rest_hessian = internal_hessian(rest, internal_of(scales, theta), measured);
-  Eigen::LLT<Eigen::MatrixXd> llt(hessian);
-  if (llt.info() != Eigen::Success || !rest_hessian.allFinite()) return false;
-  const Eigen::MatrixXd bread = llt.solve(Eigen::MatrixXd::Identity(F, F));
+  if (!rest_hessian.allFinite()) return false;
   // The parameters the stars determine: those the priors hold count for less.
-  const double p = std::clamp(static_cast<double>(F) - (bread * rest_hessian).trace(), 0.0,
+  const double p = std::clamp(static_cast<double>(F) - (inverse * rest_hessian).trace(), 0.0,
                               static_cast<double>(F));
   const Eigen::MatrixXd meat =
       static_cast<double>(n) / (static_cast<double>(n) - p) * (S.transpose() * S) + rest_hessian;
   if (!meat.allFinite()) return false;
-  Eigen::MatrixXd C = bread * meat * bread;
+  Eigen::MatrixXd C = inverse * meat * inverse;
   report_covariance(0.5 * (C + C.transpose()), scales, measured, theta, covariance);
   return true;
 }
@@ -374,9 +372,9 @@ bool hessian_and_sandwich(StarSumObjective& f, StarSumObjective& rest, Eigen::In
                           Eigen::MatrixXd& covariance,
                           std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
                           Eigen::MatrixXd* sandwich) {
-  Eigen::MatrixXd hessian;
+  Eigen::MatrixXd inverse;
   if (!covariance_from_hessian(f, scales, measured, free, theta, covariance, preconditioner,
-                               &hessian))
+                               &inverse))
     return false;
   if (sandwich) {
     *sandwich = covariance;
@@ -385,7 +383,7 @@ bool hessian_and_sandwich(StarSumObjective& f, StarSumObjective& rest, Eigen::In
     f.evaluate(internal_of(scales, theta), nullptr);
     f.collect_scores(nullptr);
     rest.drop_stars();
-    if (!sandwich_from_hessian(hessian, scores, rest, scales, measured, theta, *sandwich))
+    if (!sandwich_from_hessian(inverse, scores, rest, scales, measured, theta, *sandwich))
       sandwich->resize(0, 0);
   }
   return true;

@@ -80,14 +80,14 @@ FitSolution minimise(Objective& f, const std::vector<Scale>& scales, const FitSe
 // The inverse Hessian of -ln L at theta over `measured` (free parameters not on an edge of
 // their domain), carried to the reported parameters by the delta method; the other rows are
 // zero. preconditioner: when given, the bootstrap's metric over every free parameter (see
-// FitSettings::preconditioner). hessian: when given, set to the Hessian over `measured` in
-// the solver's coordinates (what sandwich_from_hessian takes). Returns false when the
+// FitSettings::preconditioner). inverse: when given, set to the inverse Hessian over
+// `measured` in the solver's coordinates (what sandwich_from_hessian takes). Returns false when the
 // Hessian is not positive definite.
 bool covariance_from_hessian(Objective& f, const std::vector<Scale>& scales,
                              const std::vector<int>& measured, const std::vector<int>& free,
                              const Eigen::VectorXd& theta, Eigen::MatrixXd& covariance,
                              std::shared_ptr<const Eigen::MatrixXd>* preconditioner,
-                             Eigen::MatrixXd* hessian = nullptr);
+                             Eigen::MatrixXd* inverse = nullptr);
 
 // The sandwich covariance of a likelihood whose model may be wrong (Huber 1967, Proc. Fifth
 // Berkeley Symp. 1, 221; White 1982, Econometrica 50, 1): the units (stars) are independent
@@ -98,13 +98,14 @@ bool covariance_from_hessian(Objective& f, const std::vector<Scale>& scales,
 // sum over units (priors, hyperpriors, cluster parallaxes): their information is the model's,
 // not an estimate from one draw. n / (n - p) is MacKinnon & White's (1985, J. Econometrics
 // 29, 305) HC1 small-sample factor, p the parameters the units determine, tr(H^-1 H_units) =
-// |measured| - tr(H^-1 H_rest): the distance histogram's twenty-odd log-weights, held
-// together by their random-walk hyperprior, count for far fewer. When the model is right
+// |measured| - tr(H^-1 H_rest): a parameter a prior holds counts for less (the distance
+// histogram's log-weights, loosely held by their random walk, still count for most of
+// theirs: p is about 28 at N = 300, docs/method.md). When the model is right
 // the bracket's expectation is H and the sandwich is the inverse Hessian; when it is not
 // (contaminants drawn from another law than the fit's), the sandwich follows the estimates'
 // spread and the inverse Hessian does not. unit_scores: one row per unit, full length, in
-// the solver's coordinates. Returns false when H is not positive definite.
-bool sandwich_from_hessian(const Eigen::MatrixXd& hessian, const Eigen::MatrixXd& unit_scores,
+// the solver's coordinates; inverse: H^-1 there, as covariance_from_hessian gives it.
+bool sandwich_from_hessian(const Eigen::MatrixXd& inverse, const Eigen::MatrixXd& unit_scores,
                            Objective& rest, const std::vector<Scale>& scales,
                            const std::vector<int>& measured, const Eigen::VectorXd& theta,
                            Eigen::MatrixXd& covariance);
