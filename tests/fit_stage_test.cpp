@@ -340,7 +340,7 @@ TEST(FitStage, UndeterminedShapeIsSaidWithinItsFractionsWarning) {
 
 // The blend start warning (fit_parts.hpp): on when the component starts within 2.5 sigma_int
 // of the members and blends were found, off otherwise. The thresholds are the study's
-// (docs/method.md, "The blend law near its start").
+// (docs/simulation-history.md, "The blend law near its start").
 TEST(FitStage, BlendStartWithinTwoAndAHalfScattersWarns) {
   using fit_parts::blend_start_warning;
   RelationResult rr;

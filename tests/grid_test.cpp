@@ -153,8 +153,8 @@ TEST(Grid, ReportRendersTheBudgetInEachFormat) {
 }
 
 TEST(Grid, BlendModelVariantsReachTheHierarchicalFit) {
-  // The blend component's start and law as analysis choices (docs/method.md, "The blend law
-  // near its start"): read from [[variant]] and handed to that variant's fit only.
+  // The blend component's start and law as analysis choices (docs/simulation-history.md, "The blend
+  // law near its start"): read from [[variant]] and handed to that variant's fit only.
   test::TempDir dir;
   const std::string catalog = ingested_catalog(dir, false);
   test::write_text(dir.file("g.toml"),

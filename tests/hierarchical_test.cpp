@@ -195,7 +195,7 @@ TEST(Hierarchical, GradientWithTheSmoothHistogramPriorEqualsCentralDifferences) 
 }
 
 // fit.histogram_kernel_fraction in a config: read, and outside 0.75-1 refused naming the key
-// (narrower kernels biased alpha by 2.9 errors in the study: docs/method.md).
+// (narrower kernels biased alpha by 2.9 errors in the study: docs/simulation-history.md).
 TEST(Hierarchical, HistogramKernelFractionIsReadAndRefusedBelowItsRange) {
   test::TempDir dir;
   const std::string head =
@@ -655,12 +655,12 @@ TEST(HierarchicalSimulation, OpticalFlatInModulusWithEveryContamination) {
                                          0.55, 0.80});
 }
 
-// The model's self-consistency (docs/method.md, "Self-consistency"): with the outliers and
-// blends drawn from the fit's own components, every contamination is one the model describes
-// as drawn, so what bias remains is the model's own. N = 1000 and 40 mocks (the mean bias
-// scatters by about 0.15, hence 0.45); measured: every bias within 0.18, coverage 0.60-0.80.
-// The mocks' own laws put alpha +0.5 errors off at N = 3000; here a regression in the
-// mixture's components would show without the laws' mismatch to hide it.
+// The model's self-consistency (docs/simulation-history.md, "Self-consistency"): with the outliers
+// and blends drawn from the fit's own components, every contamination is one the model describes as
+// drawn, so what bias remains is the model's own. N = 1000 and 40 mocks (the mean bias scatters by
+// about 0.15, hence 0.45); measured: every bias within 0.18, coverage 0.60-0.80. The mocks' own
+// laws put alpha +0.5 errors off at N = 3000; here a regression in the mixture's components would
+// show without the laws' mismatch to hide it.
 TEST(HierarchicalSimulation, OpticalDiskWithContaminationsAsTheModelHasThem) {
   StudyCase c{"optical, disk, contaminations drawn from the fit's components, N = 1000",
               1000,

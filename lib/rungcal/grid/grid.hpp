@@ -31,7 +31,7 @@ struct GridVariant {
   // The hierarchical fit's blend model (other spaces have none: the variant then warns and
   // refits unchanged). At sigma_int ~ 0.2 mag, blends within ~0.5 mag of a member cannot be told
   // from the members' bright tail, so the result leans on the component's start and shape
-  // (docs/method.md, "The blend law near its start").
+  // (docs/simulation-history.md, "The blend law near its start").
   std::optional<double> blend_min_mag;            // where the blend component starts (mag)
   std::optional<BlendComponent> blend_component;  // its brightening law
   // True when the variant changes the dereddened magnitudes (law or R_V).

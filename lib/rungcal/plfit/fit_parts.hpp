@@ -60,8 +60,8 @@ std::vector<std::string> undetermined_warnings(
 // A warning when the blend component starts within 2.5 sigma_int of the members (at sigma_int
 // 0.2 mag, the default 0.3 mag start): blends that brighten a star by less than a few member
 // widths look like the members' bright tail, so the estimates lean on where the component
-// starts and how it rises (docs/method.md, "The blend law near its start": 1.5 widths out it
-// moved alpha by +-0.2 errors, 3.75 widths out by -0.08). Empty without a blend component,
+// starts and how it rises (docs/simulation-history.md, "The blend law near its start": 1.5 widths
+// out it moved alpha by +-0.2 errors, 3.75 widths out by -0.08). Empty without a blend component,
 // without blends (fraction under 1e-3) or with the start beyond 2.5 widths.
 std::string blend_start_warning(const RelationResult& rr);
 // After the restricted step, whose metric is the inverse Hessian: the sandwich, when it was
@@ -101,7 +101,8 @@ double standard_deviation(const std::vector<double>& v);
 // Tibshirani 1993, ch. 13). Their standard deviation is not used: a few resamples that stray
 // (a blend or outlier drawn thrice) inflated it for the optical sigma_int to 1.18-1.24 times
 // the covariance error on the study's mocks, where the half-width is 1.07-1.14 and the
-// estimates' own spread 1.05-1.26 (docs/method.md, the bootstrap rows).
+// estimates' own spread 1.05-1.26 (docs/simulation-history.md, "The bootstrap with the default
+// model").
 double bootstrap_spread(const std::vector<double>& v);
 // Parameter j's finite resample values.
 std::vector<double> bootstrap_column(const RelationResult& rr, int j);

@@ -180,14 +180,14 @@ enum class OutlierParallaxLaw {
   // star's outlier then takes the member's magnitude term: only the parallax-magnitude
   // discrepancy is seen, whatever its cause. outlier_mag_width and outlier_mag_shift apply
   // to the stars whose distance is given (known-distance stars, anchor galaxies). The
-  // default from 2026-12-04 to 2026-12-05: docs/method.md, "The rising parallax law of the
-  // outlier component".
+  // default from 2026-12-04 to 2026-12-05: docs/simulation-history.md, "The rising
+  // parallax law of the outlier component".
   kRising,
   // (e^4 / 3 s^4) N(e | 0, s^2), vanishing to fourth order at e = 0 and peaked at +-2 s (|e| / s
   // is chi with five degrees of freedom): less mass than the rising law within a few errors,
   // where the members' tails are. E[e^2] = 5 s^2. The magnitude as under the rising law. The
-  // default since 2026-12-05, with its factor F fitted: docs/method.md, "The default model
-  // since 2026-12-05".
+  // default since 2026-12-05, with its factor F fitted: docs/simulation-history.md, "The
+  // default model since 2026-12-05".
   kQuartic,
 };
 inline constexpr EnumTable<OutlierParallaxLaw, 3> kOutlierParallaxLawNames{{{
@@ -274,14 +274,15 @@ struct HierarchicalSettings {
   // layout's (ModelTerms::distance_bins). Placed over the data by histogram_grid(). A
   // quarter magnitude: kernels as wide as a 0.5 mag step spread the prior beyond a sharp
   // edge of the stars' moduli, which put the offset +0.54 and sigma_int -0.31 errors off
-  // at N = 3000 (docs/method.md, "The default model since 2026-12-04, later").
+  // at N = 3000 (docs/simulation-history.md, "The default model since 2026-12-04, later").
   double histogram_start = 8.0;
   double histogram_step = 0.25;
   // The grid moves with alpha: centres c_0 - (alpha - histogram_alpha_ref) + j h. With
   // precise magnitudes the stars' moduli move rigidly with alpha, and a fixed grid fits a
   // sharp edge of their distribution better at some shifts than others, which then pulls
-  // alpha (docs/method.md: up to 4 errors with weak parallaxes). A grid that moves with
-  // alpha keeps that fit the same for every alpha. The alpha the grid was placed for:
+  // alpha (docs/simulation-history.md, "a sharp far edge": up to 4 errors with weak
+  // parallaxes). A grid that moves with alpha keeps that fit the same for every alpha. The
+  // alpha the grid was placed for:
   double histogram_alpha_ref = 0.0;
   double histogram_walk_sigma =
       kHistogramWalkSigma;                     // random-walk hyperprior step of the log-weights
