@@ -575,11 +575,11 @@ namespace {
 // 68% intervals must cover 55-80% of the truths (a coverage of 200 mocks scatters by 0.033).
 // The Wesenheit disk's sigma_int sits at that floor here: 0.55 on these mocks (0.54 on the first
 // 100), 0.69 on each of the study's seeds 1..200 and 201..400, so 0.64 over the 600
-// (docs/method.md, "Common random numbers"): a known weakness this test keeps in view.
-// The N = 3000 case has only 16 mocks (its mean scatters by 0.25): it catches a bias of a reported
-// error or more. Every case has every contamination, blends included, and the default (rising)
-// blend component: without one the optical sigma_int came out 0.8 errors high at N = 300 and 3 at N
-// = 3000.
+// (docs/method.md, "The acceptance table of the default model"): a known weakness this test keeps
+// in view. The N = 3000 case has only 16 mocks (its mean scatters by 0.25): it catches a bias of a
+// reported error or more. Every case has every contamination, blends included, and the default
+// (rising) blend component: without one the optical sigma_int came out 0.8 errors high at N = 300
+// and 3 at N = 3000.
 struct StudyCase {
   const char* label;
   int stars, mocks;

@@ -125,7 +125,20 @@ TEST(Study, PoolingRefusesRepeatedSeedsAndOtherSetups) {
   const std::string overlap = written(dir, "overlap.json", small_run(2, 2));
   const std::string other = written(dir, "other.json", small_run(10, 2, 120));
   EXPECT_EQ(refusal([&] { combine_studies({a, overlap}); }), "study_seed_repeated at per_mock");
-  EXPECT_EQ(refusal([&] { combine_studies({a, other}); }), "study_setup_differs at setup");
+  EXPECT_EQ(refusal([&] { combine_studies({a, other}); }), "study_setup_differs at setup.stars");
+  // An option the first run's binary did not have yet: unset in the later run, it pools;
+  // set, it does not.
+  nlohmann::json later = small_run(20, 2).to_json();
+  later["setup"]["covariance"] = "";
+  later["setup"]["paired"] = "[]";  // an empty list option, as the command line records it
+  test::write_text(dir.file("later.json"), later.dump());
+  EXPECT_EQ(combine_studies({a, dir.file("later.json")}).per_mock.size(), 4U);
+  later["setup"]["covariance"] = "sandwich";
+  test::write_text(dir.file("later.json"), later.dump());
+  EXPECT_EQ(refusal([&] {
+              combine_studies({a, dir.file("later.json")});
+            }),
+            "study_setup_differs at setup.covariance");
   // A run drawn before each effect had its own stream: the same seed is another mock.
   nlohmann::json earlier = small_run(10, 2).to_json();
   earlier.erase("mock_draw_layout");

@@ -21,8 +21,8 @@ StudyResult run_mocks(StudyOptions study, const StudyChoices& choice, const CLI:
   StudyResult result = run_study(study);
   spdlog::set_level(level);
   // What runs must share to be pooled: every setting but the mocks drawn and how.
-  result.header["setup"] = command_line_settings(
-      app, {"mocks", "seed", "threads", "out", "combine", "quiet", "verbose", "log-file"});
+  result.header["setup"] = command_line_settings(app, {"mocks", "seed", "threads", "out", "combine",
+                                                       "paired", "quiet", "verbose", "log-file"});
   return result;
 }
 

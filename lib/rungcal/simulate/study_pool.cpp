@@ -24,6 +24,27 @@ bool is_summary_key(const std::string& key) {
   throw InputError({path, std::nullopt, key, "row", "key"}, rule, message);
 }
 
+// An option a run's binary did not have yet is absent from its setup; it ran as that option
+// unset ("", an empty list, written "[]", or false: "the fit's default"), so absent and unset
+// compare equal.
+bool unset(const nlohmann::json& v) {
+  if (v.is_string()) return v.get<std::string>().empty() || v.get<std::string>() == "[]";
+  return v.is_null() || (v.is_array() && v.empty()) || (v.is_boolean() && !v.get<bool>());
+}
+
+// The first setting whose value differs between two runs' setups ("" when none does).
+std::string first_setup_difference(const nlohmann::json& a, const nlohmann::json& b) {
+  if (!a.is_object() || !b.is_object()) return a == b ? "" : "setup";
+  for (const nlohmann::json* one : {&a, &b}) {
+    const nlohmann::json& other = one == &a ? b : a;
+    for (const auto& [key, value] : one->items()) {
+      const auto at = other.find(key);
+      if (at == other.end() ? !unset(value) : *at != value) return "setup." + key;
+    }
+  }
+  return "";
+}
+
 std::vector<double> read_numbers(const nlohmann::json& a, std::size_t expected,
                                  const std::string& path, const std::string& key) {
   if (!a.is_array() || a.size() != expected)
@@ -107,10 +128,17 @@ StudyResult combine_studies(const std::vector<std::string>& paths) {
   for (const std::string& path : paths) {
     StudyResult run = read_study_run(path);
     if (header.is_null()) header = run.header;
-    for (const auto& [key, value] : header.items())
-      if (!run.header.contains(key) || run.header[key] != value)
+    for (const auto& [key, value] : header.items()) {
+      if (key == "setup" && run.header.contains(key)) {
+        if (const std::string at = first_setup_difference(value, run.header[key]); !at.empty())
+          refuse(
+              path, at, "study_setup_differs",
+              fmt::format("differs from {}: only runs of one setup can be pooled", paths.front()));
+      } else if (!run.header.contains(key) || run.header[key] != value) {
         refuse(path, key, "study_setup_differs",
                fmt::format("differs from {}: only runs of one setup can be pooled", paths.front()));
+      }
+    }
     for (const auto& [key, value] : run.header.items())
       if (!header.contains(key))
         refuse(path, key, "study_setup_differs",
