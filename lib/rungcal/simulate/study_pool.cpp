@@ -35,14 +35,23 @@ bool unset(const nlohmann::json& v) {
 // The first setting whose value differs between two runs' setups ("" when none does).
 std::string first_setup_difference(const nlohmann::json& a, const nlohmann::json& b) {
   if (!a.is_object() || !b.is_object()) return a == b ? "" : "setup";
-  for (const nlohmann::json* one : {&a, &b}) {
-    const nlohmann::json& other = one == &a ? b : a;
-    for (const auto& [key, value] : one->items()) {
-      const auto at = other.find(key);
-      if (at == other.end() ? !unset(value) : *at != value) return "setup." + key;
-    }
+  for (const auto& [key, value] : a.items()) {
+    const auto at = b.find(key);
+    if (at == b.end() ? !unset(value) : *at != value) return "setup." + key;
   }
+  for (const auto& [key, value] : b.items())
+    if (!a.contains(key) && !unset(value)) return "setup." + key;
   return "";
+}
+
+// Where the other run's header differs at `key` ("" when it does not): the key itself, or for
+// the setup the setting within it.
+std::string header_difference(const std::string& key, const nlohmann::json& value,
+                              const nlohmann::json& other) {
+  const auto at = other.find(key);
+  if (at == other.end()) return key;
+  if (key == "setup") return first_setup_difference(value, *at);
+  return *at == value ? "" : key;
 }
 
 std::vector<double> read_numbers(const nlohmann::json& a, std::size_t expected,
@@ -129,15 +138,9 @@ StudyResult combine_studies(const std::vector<std::string>& paths) {
     StudyResult run = read_study_run(path);
     if (header.is_null()) header = run.header;
     for (const auto& [key, value] : header.items()) {
-      if (key == "setup" && run.header.contains(key)) {
-        if (const std::string at = first_setup_difference(value, run.header[key]); !at.empty())
-          refuse(
-              path, at, "study_setup_differs",
-              fmt::format("differs from {}: only runs of one setup can be pooled", paths.front()));
-      } else if (!run.header.contains(key) || run.header[key] != value) {
-        refuse(path, key, "study_setup_differs",
+      if (const std::string at = header_difference(key, value, run.header); !at.empty())
+        refuse(path, at, "study_setup_differs",
                fmt::format("differs from {}: only runs of one setup can be pooled", paths.front()));
-      }
     }
     for (const auto& [key, value] : run.header.items())
       if (!header.contains(key))
